@@ -1,0 +1,25 @@
+# Every target bootstraps a local virtual environment (idempotently) before it runs.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+
+.PHONY: demo test bench clean
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[test,tools]"
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/python -m rtrace.demo
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -n 2 -q
+
+bench: $(STAMP)
+	$(BIN)/python benchmarks/bench_engine.py
+
+clean:
+	rm -rf $(VENV) demo-output .pytest_cache

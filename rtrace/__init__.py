@@ -1,0 +1,18 @@
+"""rtrace: synthetic thermal free-free radio images from hydrodynamics snapshots.
+
+The public API::
+
+    snap = rtrace.Snapshot.from_arrays(temperature=..., cell_size=..., electron_density=...)
+    view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=256, width=..., distance=...)
+    res = rtrace.trace(snap, view, frequencies=[1, 5, 20] * u.GHz)
+"""
+
+from . import physics
+from .errors import ConfigError, InputError, PhysicsRangeWarning, RtraceError
+from .snapshot import Snapshot
+from .transfer import Result, View, trace
+
+__version__ = "0.1.0"
+
+__all__ = ["Snapshot", "View", "Result", "trace", "physics", "RtraceError", "InputError",
+           "ConfigError", "PhysicsRangeWarning", "__version__"]

@@ -1,0 +1,198 @@
+"""Thermally averaged free-free Gaunt factor for a Maxwellian plasma.
+
+Notation: ``u = h nu / k T``, ``gamma^2 = Z^2 Ry / k T`` and ``w = u * gamma``.
+
+The Gaunt factor is assembled from three pieces, each exact in a limit:
+
+1. **Born term** ``g_B(u) = (sqrt(3)/pi) e^{u/2} K_0(u/2)``: the exact thermal
+   average of the Born-approximation Gaunt factor (valid for gamma^2 << 1) at
+   any ``u`` (Karzas & Latter 1961, ApJS 6, 167; also Rybicki & Lightman 1979,
+   problem 5.x; from memory, verified in the tests against a direct numerical
+   thermal average of the Born formula).
+2. **Coulomb soft-photon correction** ``D(gamma^2) = -(sqrt(3)/pi)(gamma_E + F(gamma^2))``
+   with ``F = int_0^inf Re psi(1 + i gamma / sqrt(x)) e^{-x} dx``. In the
+   soft-photon limit the Sommerfeld Gaunt factor of one electron is
+   ``(sqrt(3)/pi)[ln(4E/h nu) - gamma_E - Re psi(1 + i eta)]`` (Weinberg 2019,
+   Phys. Rev. D 99, 076018, from memory). Its thermal average is ``g_B + D``,
+   which reduces to the quantum (Born) radio form for gamma -> 0 and to the
+   classical radio form of Oster (1961) for gamma -> infinity, both exactly.
+3. **Classical finite-frequency correction** ``C(w) = gbar_cl(w) - gbar_cl,soft(w)``,
+   where ``gbar_cl`` is the thermal average of the classical Coulomb-orbit
+   Gaunt factor (Hankel functions of imaginary order), tabulated by
+   ``tools/gaunt_classical.py`` in ``data/gaunt_classical.csv``. It vanishes at
+   low frequency and carries the turnover to the Kramers regime (w >~ 0.01),
+   which matters at millimetre wavelengths in gas cooler than ~1e4 K.
+
+``gbar = g_B(u) + D(gamma^2) + C(w)`` is exact in the radio limits (classical
+and quantum), and in the classical regime at any frequency. The accuracy
+verified against an exact thermal average of the Sommerfeld formula is listed
+in the README (physics section) and checked in ``tests/test_gaunt.py``.
+"""
+
+import functools
+import math
+from importlib import resources
+
+import astropy.units as u
+import numpy as np
+from scipy import special
+from scipy.interpolate import CubicSpline
+
+from .constants import EULER_GAMMA, H_OVER_K, K_B, RYDBERG_ENERGY
+
+__all__ = [
+    "gaunt_factor", "gaunt_cgs", "born_thermal", "coulomb_correction",
+    "classical_correction", "classical_radio_gaunt", "born_radio_gaunt",
+    "log_temperature_table", "LOG_T_MIN", "LOG_T_MAX",
+]
+
+SQRT3_PI = math.sqrt(3.0) / math.pi
+RY_OVER_K = RYDBERG_ENERGY / K_B          # 1.5789e5 K
+
+# Temperature range of the per-frequency lookup tables used by the kernels.
+LOG_T_MIN = math.log(1.0)                  # 1 K
+LOG_T_MAX = math.log(1.0e10)               # 1e10 K, beyond the non-relativistic range
+
+
+def born_thermal(u_):
+    """Thermal average of the Born Gaunt factor, ``(sqrt(3)/pi) e^{u/2} K_0(u/2)``.
+
+    ``scipy.special.k0e`` is the exponentially scaled ``K_0``, so this is
+    evaluated without overflow for any ``u > 0``.
+    """
+    return SQRT3_PI * special.k0e(0.5 * np.asarray(u_, float))
+
+
+@functools.lru_cache(maxsize=1)
+def _coulomb_table():
+    """``F(gamma^2)`` on a log grid, by the trapezoidal rule in ``s = ln x``.
+
+    The integrand ``Re psi(1 + i gamma e^{-s/2}) exp(s - e^s)`` is smooth and
+    decays double-exponentially for s -> +inf and like ``|s| e^{s}`` for
+    s -> -inf, so the trapezoidal rule converges spectrally.
+    """
+    log_g2 = np.linspace(math.log(1e-10), math.log(1e12), 441)
+    s = np.arange(-70.0, 4.5, 0.005)
+    weight = np.exp(s - np.exp(s)) * 0.005
+    gamma = np.exp(0.5 * log_g2)[:, None]
+    psi = special.psi(1.0 + 1j * gamma * np.exp(-0.5 * s)[None, :]).real
+    return log_g2, CubicSpline(log_g2, psi @ weight)
+
+
+def coulomb_correction(gamma2):
+    """Soft-photon Coulomb correction ``D(gamma^2)`` (zero in the Born limit).
+
+    Beyond the tabulated range the asymptotic forms are used:
+    ``F -> -gamma_E`` (gamma -> 0) and ``F -> ln(gamma) + gamma_E/2 + 1/(12 gamma^2)``
+    (gamma -> inf, from ``Re psi(1+iy) = ln y + 1/(12 y^2) + ...``,
+    Abramowitz & Stegun 6.3.19).
+    """
+    log_g2 = np.log(np.asarray(gamma2, float))
+    grid, spline = _coulomb_table()
+    inner = spline(np.clip(log_g2, grid[0], grid[-1]))
+    big = 0.5 * log_g2 + 0.5 * EULER_GAMMA + np.exp(-log_g2) / 12.0
+    small = np.full_like(log_g2, -EULER_GAMMA)
+    fval = np.where(log_g2 > grid[-1], big, np.where(log_g2 < grid[0], small, inner))
+    return -SQRT3_PI * (EULER_GAMMA + fval)
+
+
+@functools.lru_cache(maxsize=1)
+def _classical_table():
+    text = resources.files("rtrace.physics").joinpath("data/gaunt_classical.csv").read_text()
+    rows = [line for line in text.splitlines() if line and not line.startswith("#")]
+    data = np.array([[float(v) for v in line.split(",")] for line in rows[1:]])
+    w, g = data[:, 0], data[:, 1]
+    soft = SQRT3_PI * (np.log(4.0 / w) - 2.5 * EULER_GAMMA)
+    return np.log(w), CubicSpline(np.log(w), g - soft), g[-1]
+
+
+def classical_correction(w):
+    """``C(w) = gbar_cl(w) - (sqrt(3)/pi)[ln(4/w) - 5 gamma_E / 2]``.
+
+    Interpolated with a cubic spline in ``ln w``; zero below the table (its first entry
+    is already negligible) and, above it, ``gbar_cl`` is held at its last
+    tabulated value (the classical high-frequency plateau).
+    """
+    log_w = np.log(np.asarray(w, float))
+    grid, spline, g_last = _classical_table()
+    inner = spline(np.clip(log_w, grid[0], grid[-1]))
+    high = g_last - SQRT3_PI * (math.log(4.0) - log_w - 2.5 * EULER_GAMMA)
+    return np.where(log_w < grid[0], 0.0, np.where(log_w > grid[-1], high, inner))
+
+
+def gaunt_cgs(nu, temperature, Z=1):
+    """Gaunt factor for plain arrays: ``nu`` in Hz, ``temperature`` in K."""
+    nu = np.asarray(nu, float)
+    t = np.asarray(temperature, float)
+    uu = H_OVER_K * nu / t
+    gamma2 = Z * Z * RY_OVER_K / t
+    w = uu * np.sqrt(gamma2)
+    return born_thermal(uu) + coulomb_correction(gamma2) + classical_correction(w)
+
+
+def _as_cgs(value, unit, equivalencies):
+    if isinstance(value, u.Quantity):
+        return np.asarray(value.to_value(unit, equivalencies=equivalencies), float)
+    return np.asarray(value, float)
+
+
+def gaunt_factor(frequency, temperature, Z=1):
+    """Thermally averaged free-free Gaunt factor ``gbar_ff(nu, T)``.
+
+    Parameters
+    ----------
+    frequency : `~astropy.units.Quantity` or array_like
+        Frequency; plain numbers are taken to be in Hz.
+    temperature : `~astropy.units.Quantity` or array_like
+        Electron temperature; plain numbers are taken to be in K.
+    Z : int, optional
+        Ion charge (1 for H+ and He+, 2 for He++).
+
+    Returns
+    -------
+    numpy.ndarray
+        Dimensionless Gaunt factor, broadcast over the inputs.
+    """
+    nu = _as_cgs(frequency, u.Hz, u.spectral())
+    t = _as_cgs(temperature, u.K, u.temperature())
+    return gaunt_cgs(nu, t, Z)
+
+
+def classical_radio_gaunt(nu, temperature, Z=1):
+    """Classical radio form (Oster 1961, Rev. Mod. Phys. 33, 525; Spitzer 1978).
+
+    ``(sqrt(3)/pi)[ln((2kT)^{3/2} / (pi Z e^2 nu m_e^{1/2})) - 5 gamma_E / 2]``,
+    which equals ``(sqrt(3)/pi)[ln(4/w) - 5 gamma_E/2]``. Valid for
+    ``h nu << kT`` and ``T << 1.6e5 Z^2 K``. ``nu`` in Hz, ``temperature`` in K.
+    """
+    from .constants import E_CHARGE, M_E
+    t = np.asarray(temperature, float)
+    arg = (2.0 * K_B * t) ** 1.5 / (math.pi * Z * E_CHARGE**2 * np.asarray(nu, float) * math.sqrt(M_E))
+    return SQRT3_PI * (np.log(arg) - 2.5 * EULER_GAMMA)
+
+
+def born_radio_gaunt(nu, temperature):
+    """Quantum (Born) radio form ``(sqrt(3)/pi) ln(4 kT / (zeta h nu))``, ``zeta = e^gamma_E``.
+
+    Valid for ``h nu << kT`` and ``T >> 1.6e5 Z^2 K``. ``nu`` in Hz, ``temperature`` in K.
+    """
+    uu = H_OVER_K * np.asarray(nu, float) / np.asarray(temperature, float)
+    return SQRT3_PI * (np.log(4.0 / uu) - EULER_GAMMA)
+
+
+def log_temperature_table(nu, n_table=4097):
+    """Gaunt factor for each frequency on a uniform grid in ``ln T`` (1 K to 1e10 K).
+
+    The kernels interpolate this table linearly in ``ln T``; the Gaunt factor
+    is close to linear in ``ln T`` so the interpolation error is below 1e-6.
+
+    Returns
+    -------
+    log_t0, dlog_t : float
+        First node and spacing of the grid in ``ln(T / K)``.
+    table : ndarray, shape (nfreq, n_table)
+    """
+    log_t = np.linspace(LOG_T_MIN, LOG_T_MAX, n_table)
+    nu = np.atleast_1d(np.asarray(nu, float))
+    table = gaunt_cgs(nu[:, None], np.exp(log_t)[None, :])
+    return LOG_T_MIN, log_t[1] - log_t[0], np.ascontiguousarray(table)

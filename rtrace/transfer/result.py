@@ -1,0 +1,100 @@
+"""Result: the sky-plane product of a trace, before any instrument is applied."""
+
+import astropy.units as u
+import numpy as np
+
+from ..errors import InputError
+from ..physics.constants import C, K_B, PC
+from ..physics.planck import inverse_planck_cgs
+
+__all__ = ["Result", "INTENSITY_UNIT"]
+
+INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
+
+
+class Result:
+    """Intensity, optical depth and emission measure images of one view.
+
+    Attributes
+    ----------
+    intensity : `~astropy.units.Quantity` (nfreq, ny, nx)
+        Specific intensity in erg s-1 cm-2 Hz-1 sr-1, the mean over each pixel.
+    tau : ndarray (nfreq, ny, nx)
+        Optical depth through the grid, the mean over each pixel.
+    emission_measure : `~astropy.units.Quantity` (ny, nx)
+        ``int n_e (sum_i Z_i^2 n_i) dl`` in pc cm-6, the mean over each pixel.
+    frequencies : `~astropy.units.Quantity` (nfreq,)
+    pixel_solid_angle : `~astropy.units.Quantity`
+        Solid angle of one pixel, ``(pixel size / distance)^2`` sr.
+    pixel_size : `~astropy.units.Quantity`
+        Physical size of a pixel at the source (cm).
+    view, center, provenance
+        The view, the image centre in snapshot coordinates (cm) and the
+        snapshot's provenance.
+    """
+
+    def __init__(self, intensity, tau, em, nu, view, pixel_size_cm, center_cm, provenance,
+                 rays_per_pixel=1, background=None):
+        self._intensity = intensity
+        self.tau = tau
+        self._em = em
+        self.frequencies = u.Quantity(nu, u.Hz)
+        self.view = view
+        self.pixel_size = pixel_size_cm * u.cm
+        self.center = center_cm * u.cm
+        self.provenance = dict(provenance)
+        self.rays_per_pixel = rays_per_pixel
+        self.background = (np.zeros_like(nu) if background is None else np.asarray(background)) * INTENSITY_UNIT
+        ratio = pixel_size_cm / view.distance.to_value(u.cm)
+        self.pixel_solid_angle = ratio**2 * u.sr
+
+    @property
+    def intensity(self):
+        return u.Quantity(self._intensity, INTENSITY_UNIT, copy=False)
+
+    @property
+    def emission_measure(self):
+        return u.Quantity(self._em / PC, u.pc * u.cm**-6)
+
+    @property
+    def shape(self):
+        return self._intensity.shape
+
+    def flux_density(self, subtract_background=False):
+        """Total flux density of the image per frequency (Jy).
+
+        ``S_nu = sum_pixels I_nu Omega_pix``. With ``subtract_background`` the
+        background intensity is removed first (what a differential
+        measurement sees).
+        """
+        img = self._intensity
+        if subtract_background:
+            img = img - self.background.value[:, None, None]
+        return (img.sum(axis=(1, 2)) * self.pixel_solid_angle.to_value(u.sr)
+                * (u.erg / (u.s * u.cm**2 * u.Hz))).to(u.Jy)
+
+    def brightness_temperature(self, kind="planck"):
+        """Brightness temperature of each pixel (K).
+
+        Parameters
+        ----------
+        kind : {"planck", "rayleigh-jeans"}
+            ``planck``: the temperature of a blackbody of the same intensity,
+            ``T_b = (h nu/k) / ln(1 + 2 h nu^3 / (c^2 I))``, which tends to
+            ``T_e`` for optically thick isothermal gas (NaN where I <= 0).
+            ``rayleigh-jeans``: ``T_b = c^2 I / (2 k nu^2)``, linear in I
+            (the convention of astropy's ``brightness_temperature``
+            equivalency and of most radio work).
+        """
+        nu = self.frequencies.to_value(u.Hz)[:, None, None]
+        if kind == "planck":
+            tb = inverse_planck_cgs(nu, self._intensity)
+        elif kind in ("rayleigh-jeans", "rj"):
+            tb = C**2 * self._intensity / (2.0 * K_B * nu**2)
+        else:
+            raise InputError(f"kind: expected 'planck' or 'rayleigh-jeans', got {kind!r}")
+        return u.Quantity(tb, u.K)
+
+    def __repr__(self):
+        nf, ny, nx = self.shape
+        return f"<Result {nf} frequencies, {ny}x{nx} pixels of {self.pixel_size.to(u.pc):.4g}>"

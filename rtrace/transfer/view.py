@@ -1,0 +1,130 @@
+"""The orthographic camera: where rays start, which way they go, how pixels map to the sky.
+
+Conventions (part of the public contract): ``los`` is the direction in which
+rays travel, the observer sits at +infinity along ``los``. ``north``,
+projected perpendicular to ``los``, is the image's row axis (row index grows
+toward north). The column axis is ``north x los``, toward sky west, so east
+is on the left when the image is displayed (standard sky orientation) and a
+FITS header has ``CDELT1 < 0``. Images have shape ``(nfreq, ny, nx)``;
+``width`` is the extent along the column axis; pixels are square.
+"""
+
+import numpy as np
+import astropy.units as u
+from astropy.coordinates import SkyCoord
+
+from ..errors import InputError
+
+__all__ = ["View"]
+
+
+def _unit_vector(value, name):
+    vec = np.asarray(value, dtype=float).reshape(-1)
+    if vec.shape != (3,) or not np.all(np.isfinite(vec)):
+        raise InputError(f"{name}: expected three finite numbers, got {value!r}")
+    norm = np.linalg.norm(vec)
+    if norm == 0:
+        raise InputError(f"{name}: the zero vector has no direction")
+    return vec / norm
+
+
+class View:
+    """An orthographic view of a snapshot.
+
+    Parameters
+    ----------
+    los : sequence of 3 floats
+        Direction in which rays travel (toward the observer).
+    north : sequence of 3 floats
+        Direction that appears as up (north) in the image; its component
+        along ``los`` is discarded. Must not be parallel to ``los``.
+    npix : int or (int, int)
+        Image size; an int gives a square image, a pair is ``(ny, nx)``.
+    width : `~astropy.units.Quantity`
+        Physical extent of the image along its column axis (length).
+        ``None`` (default) fits the whole projected box.
+    distance : `~astropy.units.Quantity`
+        Distance from the observer to the source (length).
+    center : `~astropy.units.Quantity` (3,), optional
+        Point of the snapshot on the image centre; defaults to the snapshot's centre.
+    sky_position : `~astropy.coordinates.SkyCoord`, optional
+        Sky coordinates of the image centre (used for WCS).
+    """
+
+    def __init__(self, los=(0, 0, 1), north=(0, 1, 0), npix=256, width=None, distance=1 * u.kpc,
+                 center=None, sky_position=None):
+        self.los = _unit_vector(los, "los")
+        north = _unit_vector(north, "north")
+        perp = north - np.dot(north, self.los) * self.los
+        if np.linalg.norm(perp) < 1e-8:
+            raise InputError("north: parallel to los, so the image orientation is undefined")
+        self.north = perp / np.linalg.norm(perp)
+        self.west = np.cross(self.north, self.los)        # column axis: north x los
+        if np.ndim(npix) == 0:
+            ny = nx = int(npix)
+        else:
+            ny, nx = (int(v) for v in npix)
+        if nx < 1 or ny < 1:
+            raise InputError(f"npix: image size must be positive, got {npix!r}")
+        self.shape = (ny, nx)
+        self.width = None if width is None else self._length(width, "width")
+        if self.width is not None and not self.width.to_value(u.cm) > 0:
+            raise InputError(f"width: must be positive, got {width}")
+        self.distance = self._length(distance, "distance")
+        if not self.distance.to_value(u.cm) > 0:
+            raise InputError(f"distance: must be positive, got {distance}")
+        if center is not None:
+            center = self._length(center, "center")
+            if center.shape != (3,):
+                raise InputError(f"center: expected a 3-vector of lengths, got shape {center.shape}")
+        self.center = center
+        if sky_position is not None and not isinstance(sky_position, SkyCoord):
+            raise InputError("sky_position: expected an astropy SkyCoord")
+        self.sky_position = sky_position
+
+    @staticmethod
+    def _length(value, name):
+        q = u.Quantity(value)
+        if not q.unit.is_equivalent(u.cm):
+            raise InputError(f"{name}: expected a length, got unit '{q.unit}'")
+        return q.to(u.cm)
+
+    def describe(self):
+        """One-line description for provenance."""
+        w = "fit" if self.width is None else f"{self.width.to_value(u.pc):.6g} pc"
+        return (f"los=({', '.join(f'{v:.6g}' for v in self.los)}) "
+                f"north=({', '.join(f'{v:.6g}' for v in self.north)}) "
+                f"npix={self.shape[0]}x{self.shape[1]} width={w} "
+                f"distance={self.distance.to_value(u.pc):.6g} pc")
+
+    def resolve(self, snapshot):
+        """Pixel geometry for ``snapshot``: ``(center_cm (3,), pixel_size_cm)``.
+
+        With ``width=None`` the image fits the box's projection on both axes.
+        """
+        lo = snapshot.origin
+        hi = snapshot.origin + np.asarray(snapshot.shape) * snapshot.cell_size
+        center = (lo + hi) / 2 if self.center is None else self.center.to_value(u.cm)
+        if self.width is not None:
+            return center, self.width.to_value(u.cm) / self.shape[1]
+        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
+                            for z in (lo[2], hi[2])]) - center
+        half_w = np.max(np.abs(corners @ self.west))
+        half_n = np.max(np.abs(corners @ self.north))
+        return center, max(2 * half_w / self.shape[1], 2 * half_n / self.shape[0])
+
+    @staticmethod
+    def _along_axis(vec, tol=1e-12):
+        ax = int(np.argmax(np.abs(vec)))
+        if abs(abs(vec[ax]) - 1.0) > tol:
+            return None
+        return ax, 1 if vec[ax] > 0 else -1
+
+    def los_axis(self):
+        """``(axis, sign)`` if the line of sight lies along a grid axis, else None."""
+        return self._along_axis(self.los)
+
+    def axis_alignment(self):
+        """``(axis, sign)`` of los, column and row axes if all lie along grid axes, else None."""
+        out = tuple(self._along_axis(v) for v in (self.los, self.west, self.north))
+        return None if None in out else out

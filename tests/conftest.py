@@ -1,0 +1,21 @@
+"""Shared helpers for the test suite (small grids: the whole suite runs in minutes)."""
+
+import astropy.units as u
+import numpy as np
+import pytest
+
+import rtrace
+
+
+def uniform_snapshot(shape, temperature, ne, cell_pc=0.01, dtype=np.float64, origin=None):
+    """A snapshot with uniform temperature (K) and electron density (cm-3)."""
+    t = np.full(shape, float(temperature))
+    n = np.full(shape, float(ne))
+    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=cell_pc * u.pc,
+                                       electron_density=n * u.cm**-3, dtype=dtype,
+                                       origin=origin)
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(12345)
