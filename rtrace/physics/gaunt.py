@@ -109,15 +109,19 @@ def _classical_table():
 def classical_correction(w):
     """``C(w) = gbar_cl(w) - (sqrt(3)/pi)[ln(4/w) - 5 gamma_E / 2]``.
 
-    Interpolated with a cubic spline in ``ln w``; zero below the table (its first entry
-    is already negligible) and, above it, ``gbar_cl`` is held at its last
-    tabulated value (the classical high-frequency plateau).
+    Interpolated with a cubic spline in ``ln w``. Below the table the
+    correction falls as ``w^{2/3}`` (slow electrons, which always see large
+    ``x``, dominate it; the power is read off the table by
+    ``tools/gaunt_classical.py``), so it is continued as
+    ``C(w_min) (w / w_min)^{2/3}``; above the table ``gbar_cl`` is held at its
+    last value, which is within 1e-3 of the Kramers plateau 1.
     """
     log_w = np.log(np.asarray(w, float))
     grid, spline, g_last = _classical_table()
     inner = spline(np.clip(log_w, grid[0], grid[-1]))
+    low = float(spline(grid[0])) * np.exp((2.0 / 3.0) * (np.minimum(log_w, grid[0]) - grid[0]))
     high = g_last - SQRT3_PI * (math.log(4.0) - log_w - 2.5 * EULER_GAMMA)
-    return np.where(log_w < grid[0], 0.0, np.where(log_w > grid[-1], high, inner))
+    return np.where(log_w < grid[0], low, np.where(log_w > grid[-1], high, inner))
 
 
 def gaunt_cgs(nu, temperature, Z=1):

@@ -38,6 +38,7 @@ from .result import Result
 __all__ = ["trace", "FrequencyTables"]
 
 _CMB_TEMPERATURE = 2.7255   # K, Fixsen (2009), ApJ 707, 916
+_TILE_SIDE = 8              # rays are ordered in tiles of 8 x 8 neighbours (cache reuse)
 
 
 class FrequencyTables:
@@ -294,15 +295,18 @@ def _trace_oblique(snap, view, center, pix, tables, bg, supersample, brick_size)
         keep = ((cols > -margin[0]) & (cols < nx + margin[0]) & (rows > -margin[1]) & (rows < ny + margin[1]))
         if not keep.any():
             continue
-        origins = np.zeros((int(keep.sum()), 3))
-        origins[:, a] = (ii[keep] + 0.5) * h_a
-        origins[:, b] = (jj[keep] + 0.5) * h_b
+        # order rays in compact tiles so consecutive rays share cached cells
+        order = np.lexsort((jj[keep], ii[keep], jj[keep] // _TILE_SIDE, ii[keep] // _TILE_SIDE))
+        cols, rows = cols[keep][order], rows[keep][order]
+        origins = np.zeros((len(order), 3))
+        origins[:, a] = (ii[keep][order] + 0.5) * h_a
+        origins[:, b] = (jj[keep][order] + 0.5) * h_b
         acc = Segment.empty(nfreq, (1, origins.shape[0]))
         for lo, hi in bricks:
             part = Segment.empty(nfreq, (1, origins.shape[0]))
             kernels.trace_rays(snap._ne, snap._ni, snap._t, cell, lo, hi, origins, los,
                                *tables.args(), part.intensity, part.tau, part.em)
             acc = composite(acc, part) if len(bricks) > 1 else part
-        _splat(Segment(acc.intensity[:, 0], acc.tau[:, 0], acc.em[0]), bg, cols[keep], rows[keep], e1, e2, planes)
+        _splat(Segment(acc.intensity[:, 0], acc.tau[:, 0], acc.em[0]), bg, cols, rows, e1, e2, planes)
         n_traced += origins.shape[0]
     return _planes_to_segment(planes, bg), n_traced / (nx * ny)
