@@ -90,7 +90,7 @@ def test_cmb_background_through_a_slab():
     assert np.allclose(res.intensity.value[:, 0, :], bg[:, None], rtol=1e-12)   # outside the box: CMB only
     # The differential flux removes the background: S = sum (I - I_bg) Omega.
     expected = (intensity - bg * -np.expm1(-tau)) * 16 * res.pixel_solid_angle.to_value(u.sr)
-    got = res.flux_density(subtract_background=True).to(u.erg / (u.s * u.cm**2 * u.Hz)).value
+    got = res.flux_density().to(u.erg / (u.s * u.cm**2 * u.Hz)).value
     assert np.allclose(got, expected, rtol=2e-6)
 
 
@@ -228,3 +228,15 @@ def test_rayleigh_jeans_matches_astropy_equivalency():
     surface_brightness = res.intensity[0, 1, 1].to(u.Jy / u.sr)
     via_astropy = surface_brightness.to(u.K, equivalencies=u.brightness_temperature(5 * u.GHz))
     assert tb.to_value(u.K) == pytest.approx(via_astropy.to_value(u.K), rel=1e-10)
+
+
+def test_flux_density_with_and_without_background():
+    # S_nu = sum_pixels I_nu Omega_pix (common practice); the background is removed by default.
+    snap = uniform_snapshot((4, 4, 10), 8000.0, 100.0)
+    res = rtrace.trace(snap, rtrace.View(npix=8, width=0.08 * u.pc, distance=1 * u.kpc), [1.0] * u.GHz,
+                       background=2.7255 * u.K)
+    omega = res.pixel_solid_angle.to_value(u.sr)
+    total = res.intensity.value.sum() * omega * 1e23
+    bg = planck_cgs(np.array([1e9]), np.array([2.7255]))[0]
+    assert res.flux_density(subtract_background=False)[0].to_value(u.Jy) == pytest.approx(total, rel=1e-12)
+    assert res.flux_density()[0].to_value(u.Jy) == pytest.approx(total - bg * 64 * omega * 1e23, rel=1e-9)

@@ -14,7 +14,28 @@ import numpy as np
 
 from .constants import C, H, H_OVER_K
 
-__all__ = ["planck", "planck_cgs", "planck_scalar", "inverse_planck_cgs"]
+__all__ = ["planck", "planck_cgs", "planck_scalar", "inverse_planck_cgs", "one_minus_exp", "inverse_expm1",
+           "SERIES_LIMIT"]
+
+# Below this argument the Taylor series in ``one_minus_exp`` and ``inverse_expm1`` are exact to
+# double precision (the first omitted terms are < 1e-14 relative).
+SERIES_LIMIT = 1.0e-3
+
+
+@numba.njit(cache=True, inline="always")
+def one_minus_exp(x):
+    """``1 - e^{-x}`` for ``x >= 0``, exact to rounding (Taylor series below SERIES_LIMIT, A&S 4.2.1)."""
+    if x < SERIES_LIMIT:
+        return x * (1.0 - x * (0.5 - x * (1.0 / 6.0 - x * (1.0 / 24.0 - x * (1.0 / 120.0)))))
+    return -math.expm1(-x)
+
+
+@numba.njit(cache=True, inline="always")
+def inverse_expm1(x):
+    """``1 / (e^x - 1)`` for ``x > 0`` without overflow (Bernoulli series below SERIES_LIMIT, A&S 23.1.1)."""
+    if x < SERIES_LIMIT:
+        return 1.0 / x - 0.5 + x * (1.0 / 12.0 - x * x * (1.0 / 720.0))
+    return math.exp(-x) / -math.expm1(-x)
 
 _INTENSITY = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 

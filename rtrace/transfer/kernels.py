@@ -21,20 +21,11 @@ Kernels trust their inputs: the Python layer validates them.
 import math
 
 import numba
-import numpy as np
 from numba import prange
 
+from ..physics.planck import inverse_expm1, one_minus_exp
+
 __all__ = ["trace_along_last_axis", "trace_along_middle_axis", "trace_rays"]
-
-_SERIES_LIMIT = 1.0e-3
-
-
-@numba.njit(cache=True, inline="always")
-def _one_minus_exp(x):
-    """``1 - e^{-x}`` for x >= 0, exact to rounding."""
-    if x < _SERIES_LIMIT:
-        return x * (1.0 - x * (0.5 - x * (1.0 / 6.0 - x * (1.0 / 24.0 - x * (1.0 / 120.0)))))
-    return -math.expm1(-x)
 
 
 @numba.njit(cache=True, inline="always")
@@ -59,17 +50,10 @@ def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, a
     a0 = nn_ds * math.sqrt(inv_t)
     for f in range(hk.shape[0]):
         uu = hk[f] * inv_t
-        if uu < _SERIES_LIMIT:
-            # 1 - e^{-u} and 1/(e^u - 1), Taylor series (Abramowitz & Stegun 4.2.1, 23.1.1)
-            stim = uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
-            inv_em1 = 1.0 / uu - 0.5 + uu * (1.0 / 12.0 - uu * uu * (1.0 / 720.0))
-        else:
-            stim = -math.expm1(-uu)
-            inv_em1 = math.exp(-uu) / stim
         g = gtab[f, i] + wt * (gtab[f, i + 1] - gtab[f, i])
-        dtau = alpha_pref[f] * a0 * stim * g
-        om = _one_minus_exp(dtau)
-        out_i[f, a, b] += om * (b_pref[f] * inv_em1 - out_i[f, a, b])
+        dtau = alpha_pref[f] * a0 * one_minus_exp(uu) * g        # R&L 5.18b times ds
+        om = one_minus_exp(dtau)
+        out_i[f, a, b] += om * (b_pref[f] * inverse_expm1(uu) - out_i[f, a, b])   # S = B_nu(T)
         out_tau[f, a, b] += dtau
 
 

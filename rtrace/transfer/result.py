@@ -60,12 +60,14 @@ class Result:
     def shape(self):
         return self._intensity.shape
 
-    def flux_density(self, subtract_background=False):
+    def flux_density(self, subtract_background=True):
         """Total flux density of the image per frequency (Jy).
 
-        ``S_nu = sum_pixels I_nu Omega_pix``. With ``subtract_background`` the
-        background intensity is removed first (what a differential
-        measurement sees).
+        ``S_nu = sum_pixels (I_nu - I_bg) Omega_pix``: the background that
+        entered from the far side (e.g. the CMB) is removed first, as in any
+        differential measurement, so gas seen in absorption against it gives
+        negative flux. ``subtract_background=False`` sums the total intensity.
+        Without a background both are the same.
         """
         img = self._intensity
         if subtract_background:
