@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Segment", "composite", "add_background"]
+__all__ = ["Segment", "composite"]
 
 
 @dataclass
@@ -36,8 +36,3 @@ def composite(near, far):
     return Segment(near.intensity + np.exp(-near.tau) * far.intensity,
                    near.tau + far.tau, near.em + far.em)
 
-
-def add_background(segment, background):
-    """Intensity reaching the observer when ``background`` (nfreq,) enters from the far side."""
-    bg = np.asarray(background, float).reshape((-1,) + (1,) * segment.em.ndim)
-    return Segment(segment.intensity + np.exp(-segment.tau) * bg, segment.tau, segment.em)

@@ -54,6 +54,8 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
     by = np.empty(12)
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
     half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
+    # tubes that are rectangles aligned with the pixels: overlaps are products of 1D overlaps
+    aligned = (e1[1] == 0.0 and e2[0] == 0.0) or (e1[0] == 0.0 and e2[1] == 0.0)
     for r in range(cols.shape[0]):
         c0 = cols[r]
         r0 = rows[r]
@@ -61,6 +63,17 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
         ix1 = min(int(np.floor(c0 + half_c)), nx - 1)
         iy0 = max(int(np.floor(r0 - half_r)), 0)
         iy1 = min(int(np.floor(r0 + half_r)), ny - 1)
+        if aligned:
+            for iy in range(iy0, iy1 + 1):
+                oy = min(r0 + half_r, iy + 1.0) - max(r0 - half_r, float(iy))
+                if oy <= 0.0:
+                    continue
+                for ix in range(ix0, ix1 + 1):
+                    area = oy * (min(c0 + half_c, ix + 1.0) - max(c0 - half_c, float(ix)))
+                    if area > 0.0:
+                        for q in range(nq):
+                            out[q, iy, ix] += area * values[q, r]
+            continue
         for iy in range(iy0, iy1 + 1):
             for ix in range(ix0, ix1 + 1):
                 # the tube's parallelogram, corners in order

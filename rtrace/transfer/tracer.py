@@ -4,9 +4,9 @@ Two routes give the same physics:
 
 * **Line of sight along a grid axis**: every column of cells is one exact
   ray (the fields are constant across the column's footprint), traced over
-  contiguous memory. The column map goes onto pixels with exact area
-  weights: separable overlaps when north is also along an axis, polygon
-  clipping otherwise (``remap``). Nothing aliases; the total flux is exact.
+  contiguous memory. Each column's square footprint is clipped onto the
+  pixels (``remap``) for any pixel size and any rotation of north about the
+  line of sight. Nothing aliases; the total flux is exact.
 * **Any other direction**: Amanatides & Woo traversal of parallel rays on a
   lattice that is commensurate with the grid on the two axes most nearly
   perpendicular to the line of sight (``supersample`` rays per cell, and at
@@ -24,14 +24,13 @@ import math
 
 import astropy.units as u
 import numpy as np
-from scipy import sparse
 
 from ..errors import InputError
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.gaunt import log_temperature_table
 from ..physics.planck import planck_cgs
 from . import kernels
-from .compositing import Segment, add_background, composite
+from .compositing import Segment, composite
 from .remap import remap_parallelograms
 from .result import Result
 
@@ -149,21 +148,6 @@ def _pixel_coordinates(points, center, view, pix):
 
 # -- axis-aligned route -------------------------------------------------------------------------
 
-def _overlap_matrix(pix_lo, pix_width, npix, cell_edges):
-    """Sparse (npix, ncell) matrix: fraction of each pixel covered by each cell (exact overlaps)."""
-    lo = pix_lo + pix_width * np.arange(npix)
-    hi = lo + pix_width
-    first = np.clip(np.searchsorted(cell_edges, lo, side="right") - 1, 0, len(cell_edges) - 2)
-    last = np.clip(np.searchsorted(cell_edges, hi, side="left") - 1, 0, len(cell_edges) - 2)
-    count = np.maximum(last - first + 1, 0)
-    rows = np.repeat(np.arange(npix), count)
-    cols = np.repeat(first, count) + (np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count))
-    overlap = np.minimum(hi[rows], cell_edges[cols + 1]) - np.maximum(lo[rows], cell_edges[cols])
-    keep = overlap > 0
-    return sparse.csr_matrix((overlap[keep] / pix_width, (rows[keep], cols[keep])),
-                             shape=(npix, len(cell_edges) - 1))
-
-
 def _trace_axis_aligned(snap, view, center, pix, tables, bg):
     la, ls = view.los_axis()
     ne, ni, t = snap._ne, snap._ni, snap._t
@@ -179,47 +163,20 @@ def _trace_axis_aligned(snap, view, center, pix, tables, bg):
     shape2 = (snap.shape[trans[0]], snap.shape[trans[1]])
     seg = Segment.empty(nfreq, shape2)
     kern(*arrays, ds, forward, *tables.args(), seg.intensity, seg.tau, seg.em)
-    align = view.axis_alignment()
-    if align is None:               # north rotated about the axis: clip cell squares onto pixels
-        a, b = trans
-        cell = snap.cell_size
-        centers = np.zeros(shape2 + (3,))
-        centers[..., a] = snap.origin[a] + (np.arange(shape2[0])[:, None] + 0.5) * cell[a]
-        centers[..., b] = snap.origin[b] + (np.arange(shape2[1])[None, :] + 0.5) * cell[b]
-        centers[..., la] = center[la]
-        cols, rows = _pixel_coordinates(centers.reshape(-1, 3), center, view, pix)
-        e1 = cell[a] * np.array([view.west[a], view.north[a]]) / pix
-        e2 = cell[b] * np.array([view.west[b], view.north[b]]) / pix
-        flat = Segment(seg.intensity.reshape(nfreq, -1), seg.tau.reshape(nfreq, -1), seg.em.ravel())
-        planes = np.zeros((2 * nfreq + 1,) + view.shape)
-        _splat(flat, bg, cols, rows, e1, e2, planes)
-        return _planes_to_segment(planes, bg), 1
-    (_, _), (ca, cs), (ra, rs) = align
-    seg = add_background(seg, bg)
-    if (ra, ca) != trans:                       # order the column map as (row axis, column axis)
-        seg = Segment(seg.intensity.transpose(0, 2, 1), seg.tau.transpose(0, 2, 1), seg.em.T)
-
-    ny, nx = view.shape
-    weights = []
-    for axis, sign, n, vec in ((ra, rs, ny, view.north), (ca, cs, nx, view.west)):
-        lo_sky = float(center @ vec) - n / 2 * pix           # lower edge along the image axis
-        edges = snap.origin[axis] + snap.cell_size[axis] * np.arange(snap.shape[axis] + 1)
-        if sign > 0:
-            w = _overlap_matrix(lo_sky, pix, n, edges)
-        else:   # image coordinate runs opposite to the grid axis: mirror the cells
-            w = _overlap_matrix(lo_sky, pix, n, -edges[::-1])[:, np.arange(len(edges) - 2, -1, -1)]
-        weights.append(sparse.csr_matrix(w))
-    w_row, w_col = weights
-    coverage = np.outer(np.asarray(w_row.sum(axis=1)).ravel(), np.asarray(w_col.sum(axis=1)).ravel())
-
-    def resample(img2d):
-        return np.asarray((w_col @ (w_row @ img2d).T).T)
-
-    out = Segment(np.empty((nfreq, ny, nx)), np.empty((nfreq, ny, nx)), resample(seg.em))
-    for f in range(nfreq):
-        out.intensity[f] = resample(seg.intensity[f]) + (1.0 - coverage) * bg[f]
-        out.tau[f] = resample(seg.tau[f])
-    return out, 1
+    # each column is a tube with the cell's square footprint: clip it onto the pixels
+    a, b = trans
+    cell = snap.cell_size
+    centers = np.zeros(shape2 + (3,))
+    centers[..., a] = snap.origin[a] + (np.arange(shape2[0])[:, None] + 0.5) * cell[a]
+    centers[..., b] = snap.origin[b] + (np.arange(shape2[1])[None, :] + 0.5) * cell[b]
+    centers[..., la] = center[la]
+    cols, rows = _pixel_coordinates(centers.reshape(-1, 3), center, view, pix)
+    e1 = cell[a] * np.array([view.west[a], view.north[a]]) / pix
+    e2 = cell[b] * np.array([view.west[b], view.north[b]]) / pix
+    flat = Segment(seg.intensity.reshape(nfreq, -1), seg.tau.reshape(nfreq, -1), seg.em.ravel())
+    planes = np.zeros((2 * nfreq + 1,) + view.shape)
+    _splat(flat, bg, cols, rows, e1, e2, planes)
+    return _planes_to_segment(planes, bg), 1
 
 
 # -- oblique route ------------------------------------------------------------------------------
