@@ -82,6 +82,7 @@ class Snapshot:
         self.cell_size = np.asarray(cell_size, float)
         self.origin = np.asarray(origin, float)
         self.provenance = dict(provenance)
+        self._checksum = None
 
     @classmethod
     def from_arrays(cls, temperature, cell_size, electron_density=None, ion_density=None, *,
@@ -195,11 +196,13 @@ class Snapshot:
         return (lo + hi) / 2
 
     def checksum(self):
-        """SHA-256 of the stored fields and geometry (for provenance headers)."""
-        h = hashlib.sha256()
-        for arr in (self._t, self._ne, self._ni, self.cell_size, self.origin):
-            h.update(np.ascontiguousarray(arr).tobytes())
-        return h.hexdigest()
+        """SHA-256 of the stored fields and geometry (for provenance headers); computed once."""
+        if self._checksum is None:
+            h = hashlib.sha256()
+            for arr in (self._t, self._ne, self._ni, self.cell_size, self.origin):
+                h.update(memoryview(np.ascontiguousarray(arr)).cast("B"))
+            self._checksum = h.hexdigest()
+        return self._checksum
 
     def describe(self):
         """Multi-line summary: shape, geometry, field ranges."""

@@ -2,14 +2,17 @@
 
 import astropy.units as u
 import numpy as np
+from astropy.coordinates import SkyCoord
 
 from ..errors import InputError
 from ..physics.constants import C, K_B, PC
 from ..physics.planck import inverse_planck_cgs
 
-__all__ = ["Result", "INTENSITY_UNIT"]
+__all__ = ["Result", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
 
 INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
+# Where an image lands on the sky when the View gives no sky_position (written to FITS headers).
+DEFAULT_SKY_POSITION = SkyCoord(ra=0.0 * u.deg, dec=0.0 * u.deg, frame="icrs")
 
 
 class Result:
@@ -28,6 +31,8 @@ class Result:
         Solid angle of one pixel, ``(pixel size / distance)^2`` sr.
     pixel_size : `~astropy.units.Quantity`
         Physical size of a pixel at the source (cm).
+    pixel_scale : `~astropy.units.Quantity`
+        Angular size of a pixel, ``pixel_size / distance`` (arcsec).
     view, center, provenance
         The view, the image centre in snapshot coordinates (cm) and the
         snapshot's provenance.
@@ -47,6 +52,12 @@ class Result:
         self.background = (np.zeros_like(nu) if background is None else np.asarray(background)) * INTENSITY_UNIT
         ratio = pixel_size_cm / view.distance.to_value(u.cm)
         self.pixel_solid_angle = ratio**2 * u.sr
+        self.pixel_scale = (ratio * u.rad).to(u.arcsec)
+
+    @property
+    def sky_position(self):
+        """Sky coordinates of the image centre: the View's, or DEFAULT_SKY_POSITION (ICRS 0, 0)."""
+        return self.view.sky_position if self.view.sky_position is not None else DEFAULT_SKY_POSITION
 
     @property
     def intensity(self):

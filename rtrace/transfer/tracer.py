@@ -117,7 +117,9 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         seg, nrays = _trace_axis_aligned(snapshot, view, center, pix, tables, bg)
     else:
         seg, nrays = _trace_oblique(snapshot, view, center, pix, tables, bg, int(supersample), brick_size)
-    return Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, snapshot.provenance,
+    provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
+                      background="none" if background is None else str(background))
+    return Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
                   rays_per_pixel=nrays, background=bg)
 
 
