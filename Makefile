@@ -13,7 +13,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/python -m rtrace.demo
+	$(BIN)/rtrace demo --output demo-output
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -n 2 -q

@@ -108,6 +108,22 @@ class Result:
             raise InputError(f"kind: expected 'planck' or 'rayleigh-jeans', got {kind!r}")
         return u.Quantity(tb, u.K)
 
+    def observe(self, beam, noise=None, **kwargs):
+        """Convolve with a telescope beam (and add noise): a :class:`~rtrace.observe.SkyMap` in Jy/beam.
+
+        See :func:`rtrace.observe.observe` for the parameters.
+        """
+        from ..observe import observe
+        return observe(self, beam=beam, noise=noise, **kwargs)
+
+    def write_fits(self, path, quantity="intensity", **kwargs):
+        """Write a (RA, Dec, FREQ) FITS cube of this result (Jy/pixel by default), atomically.
+
+        See :func:`rtrace.io.fits.write_result` for the options.
+        """
+        from ..io.fits import write_result
+        return write_result(self, path, quantity=quantity, **kwargs)
+
     def __repr__(self):
         nf, ny, nx = self.shape
         return f"<Result {nf} frequencies, {ny}x{nx} pixels of {self.pixel_size.to(u.pc):.4g}>"

@@ -1,0 +1,211 @@
+"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot an SED.
+
+Exit codes (for scripts): 0 success; 1 unexpected internal error; 2 bad
+command-line usage; 3 job-file problem (unknown key, wrong unit, missing
+file); 4 unusable input data (e.g. NaN temperatures).
+"""
+
+import argparse
+import sys
+import time
+from importlib import resources
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+
+from .errors import ConfigError, InputError
+
+__all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_USAGE", "EXIT_CONFIG", "EXIT_INPUT"]
+
+EXIT_OK, EXIT_INTERNAL, EXIT_USAGE, EXIT_CONFIG, EXIT_INPUT = 0, 1, 2, 3, 4
+
+
+class Progress:
+    """A one-line progress bar on a terminal, plain lines otherwise; silent with ``quiet``."""
+
+    def __init__(self, stream=None, quiet=False, width=24):
+        self.stream = stream or sys.stderr
+        self.quiet = quiet
+        self.width = width
+        self.t0 = time.perf_counter()
+        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
+
+    def __call__(self, step, total, message):
+        if self.quiet:
+            return
+        filled = int(round(self.width * step / max(total, 1)))
+        bar = "#" * filled + "." * (self.width - filled)
+        line = f"[{bar}] {step}/{total} {time.perf_counter() - self.t0:6.1f} s  {message}"
+        if self.tty:
+            end = "\n" if step >= total else ""
+            self.stream.write("\r" + line.ljust(100) + end)
+        else:
+            self.stream.write(line + "\n")
+        self.stream.flush()
+
+
+def _frequencies(text):
+    try:
+        values = [u.Quantity(v.strip()) for v in text.split(",") if v.strip()]
+        nu = u.Quantity([v.to(u.Hz, equivalencies=u.spectral()) for v in values])
+    except (TypeError, ValueError, u.UnitsError):
+        raise argparse.ArgumentTypeError(f"cannot read frequencies '{text}' (write e.g. '1 GHz, 5 GHz')") from None
+    return nu
+
+
+def _report(paths, stream):
+    stream.write(f"wrote {len(paths)} files:\n")
+    for p in paths:
+        stream.write(f"  {p}\n")
+
+
+def cmd_run(args):
+    from .job import load_job, run_job
+    job = load_job(args.job)
+    if args.output:
+        job.output["directory"] = Path(args.output).resolve()
+    paths = run_job(job, progress=Progress(quiet=args.quiet))
+    _report(paths, sys.stdout)
+    return EXIT_OK
+
+
+def _demo_job_text():
+    return resources.files("rtrace").joinpath("data/demo_job.toml").read_text()
+
+
+def cmd_demo(args):
+    import tomllib
+
+    from .job import parse_job, run_job
+    raw = tomllib.loads(_demo_job_text())
+    raw["output"]["directory"] = str(Path(args.output).resolve())
+    if args.cells:
+        raw["snapshot"]["cells"] = args.cells
+    job = parse_job(raw)
+    t0 = time.perf_counter()
+    paths = run_job(job, progress=Progress(quiet=args.quiet))
+    _report(paths, sys.stdout)
+    print(f"demo finished in {time.perf_counter() - t0:.1f} s; the job it ran is "
+          f"{Path(args.output) / 'demo_job.toml'}")
+    (Path(args.output) / "demo_job.toml").write_text(_demo_job_text())
+    return EXIT_OK
+
+
+def _snapshot_from(args):
+    if args.job is None:
+        from .demo import scenario
+        return scenario(args.cells or 64)
+    from .job import load_job
+    from .pipeline import build_snapshot
+    return build_snapshot(load_job(args.job))
+
+
+def cmd_inspect(args):
+    from .physics.freefree import absorption_cgs
+    snap = _snapshot_from(args)
+    print(snap.describe())
+    lo, hi = snap.extent
+    print(f"  extent     {', '.join(f'{v:.4g}' for v in (hi - lo) / u.pc.to(u.cm))} pc")
+    ne = snap._ne.astype(float)
+    ni = snap._ni.astype(float)
+    t = snap._t.astype(float)
+    ionized = ne * ni > 0
+    print(f"  ionized cells {int(ionized.sum())} of {ionized.size}")
+    if not ionized.any():
+        return EXIT_OK
+    print("  estimated optical depth through the box along each axis (median and max over columns):")
+    for nu in args.frequencies.to_value(u.Hz):
+        alpha = np.zeros_like(ne)
+        alpha[ionized] = absorption_cgs(nu, t[ionized], ne[ionized], ni[ionized])
+        parts = []
+        for ax, name in enumerate("xyz"):
+            tau = alpha.sum(axis=ax) * snap.cell_size[ax]
+            parts.append(f"{name}: {np.median(tau):.3g} / {tau.max():.3g}")
+        print(f"    {nu / 1e9:10.4g} GHz   " + "   ".join(parts))
+    return EXIT_OK
+
+
+def cmd_sed(args):
+    from . import trace
+    from .analysis.spectra import sed, spectral_index
+    from .job import build_views, load_job
+    from .pipeline import build_snapshot
+    job = load_job(args.job)
+    views = dict(build_views(job))
+    name = args.view or next(iter(views))
+    if name not in views:
+        raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
+    res = trace(build_snapshot(job), views[name], job.frequencies, background=job.trace.get("background"))
+    nu, flux = sed(res)
+    alpha = spectral_index(nu, flux)
+    print(f"# SED of view '{name}' ({res.provenance.get('source', '')})")
+    print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
+    for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy))):
+        a = f"{alpha[i]:+8.3f}" if i < len(alpha) else ""
+        print(f"{f:12.5g} {s:12.5g} {a}")
+    if args.plot:
+        from .plot import plot_sed
+        plot_sed(nu, flux, path=args.plot, label=name)
+        print(f"wrote {args.plot}")
+    return EXIT_OK
+
+
+def build_parser():
+    parser = argparse.ArgumentParser(
+        prog="rtrace", description="Synthetic thermal free-free radio images from hydrodynamics snapshots.",
+        epilog="exit codes: 0 ok, 1 internal error, 2 usage, 3 job-file problem, 4 unusable input data")
+    from . import __version__
+    parser.add_argument("--version", action="version", version=f"rtrace {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="command")
+
+    p = sub.add_parser("run", help="run a job file", description="Validate a TOML job file, then trace and "
+                       "write every output it asks for.")
+    p.add_argument("job", help="the job file (TOML)")
+    p.add_argument("--output", help="write outputs here instead of the job's [output].directory")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_run)
+
+    p = sub.add_parser("demo", help="run the built-in scenario", description="Trace the built-in HII-bubble "
+                       "scenario and write FITS cubes, pictures and an SED.")
+    p.add_argument("--output", default="demo-output", help="output folder (default: ./demo-output)")
+    p.add_argument("--cells", type=int, default=None, help="cells per side of the scenario")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_demo)
+
+    p = sub.add_parser("inspect", help="describe a snapshot", description="Describe the snapshot of a job "
+                       "file (or the built-in scenario): fields, ranges, units, estimated optical depths.")
+    p.add_argument("job", nargs="?", help="job file whose snapshot to describe (default: the built-in scenario)")
+    p.add_argument("--frequencies", type=_frequencies, default=_frequencies("0.3 GHz, 1 GHz, 5 GHz, 30 GHz"),
+                   help="comma-separated frequencies for the optical-depth estimate (default '0.3 GHz, 1 GHz, "
+                        "5 GHz, 30 GHz')")
+    p.add_argument("--cells", type=int, default=None, help="cells per side of the built-in scenario")
+    p.set_defaults(func=cmd_inspect)
+
+    p = sub.add_parser("sed", help="print or plot the spectrum of a view", description="Trace one view of a "
+                       "job at the job's frequencies and print its spectral energy distribution.")
+    p.add_argument("job", help="the job file (TOML)")
+    p.add_argument("--view", help="name of the view (default: the first)")
+    p.add_argument("--plot", help="also draw the SED to this file (PNG, PDF, ...)")
+    p.set_defaults(func=cmd_sed)
+    return parser
+
+
+def main(argv=None):
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except ConfigError as exc:
+        print(f"rtrace: job problem: {exc}", file=sys.stderr)
+        return EXIT_CONFIG
+    except InputError as exc:
+        print(f"rtrace: input problem: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("rtrace: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,270 @@
+"""Job files: a whole study described in TOML, validated in full before any tracing starts.
+
+A job names a snapshot, how to ionize it, the frequencies, one or more views,
+the instrument (beam, noise) and the outputs. :func:`load_job` parses and
+validates everything (unknown keys get a did-you-mean suggestion, quantities
+are checked for the right physical type, files for existence) and returns a
+:class:`Job`; :func:`run_job` executes it. See ``examples/`` for complete
+job files.
+"""
+
+import difflib
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+from astropy.coordinates import SkyCoord
+
+from .errors import ConfigError
+
+__all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "SCHEMA"]
+
+# Allowed keys of every table, with the physical type of quantity-valued keys.
+SCHEMA = {
+    "snapshot": {"kind": str, "path": str, "cells": int, "seed": int,
+                 "temperature": str, "electron_density": str, "ion_density": str, "density": str,
+                 "cell_size": "length", "origin": "length3", "units": dict, "subvolume": list},
+    "ionization": {"model": str, "threshold": "temperature", "helium": str, "fraction": str,
+                   "hydrogen_mass_fraction": float, "helium_mass_fraction": float},
+    "frequencies": {"values": "frequency_list", "start": "frequency", "stop": "frequency",
+                    "num": int, "spacing": str},
+    "trace": {"background": str, "supersample": int},
+    "view": {"name": str, "los": list, "north": list, "npix": (int, list), "width": "length",
+             "distance": "length", "center": "length3", "ra": "angle", "dec": "angle"},
+    "beam": {"major": "angle", "minor": "angle", "pa": "angle", "scaling": str,
+             "reference_frequency": "frequency"},
+    "noise": {"rms": ("flux_per_beam", "flux_per_beam_list"), "seed": int},
+    "output": {"directory": str, "fits": bool, "pictures": bool, "sed": bool, "quantities": list,
+               "picture_format": str, "prefix": str},
+}
+_TOP = set(SCHEMA)
+_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
+_PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg,
+             "flux_per_beam": u.Jy / u.beam}
+
+
+def _suggest(key, allowed):
+    close = difflib.get_close_matches(key, sorted(allowed), n=1, cutoff=0.6)
+    return f" (did you mean '{close[0]}'?)" if close else ""
+
+
+def _check_keys(table, allowed, where):
+    for key in table:
+        if key not in allowed:
+            raise ConfigError(f"{where}: unknown key '{key}'{_suggest(key, allowed)}; "
+                              f"allowed: {', '.join(sorted(allowed))}")
+
+
+def _a(kind):
+    name = kind.replace("_", " ")
+    return ("an " if name[0] in "aeiou" else "a ") + name
+
+
+def _quantity(value, kind, where):
+    """Parse '1 GHz' (or a number with no unit, refused) into a Quantity of the right type."""
+    if kind == "flux_per_beam":
+        unit = u.Jy / u.beam
+    else:
+        unit = _PHYSICAL[kind]
+    try:
+        q = u.Quantity(value)
+    except (TypeError, ValueError):
+        raise ConfigError(f"{where}: cannot read '{value}' as a quantity (write e.g. '1 GHz', '2 pc')") from None
+    if q.unit == u.dimensionless_unscaled:
+        raise ConfigError(f"{where}: '{value}' has no unit; expected {_a(kind)}")
+    equiv = u.spectral() if kind == "frequency" else []
+    if kind == "flux_per_beam" and q.unit.is_equivalent(u.Jy):
+        q = q / u.beam                       # '0.1 mJy' is read as per beam
+    if not q.unit.is_equivalent(unit, equivalencies=equiv):
+        raise ConfigError(f"{where}: '{value}' is not {_a(kind)} (unit '{q.unit}')")
+    return q.to(unit, equivalencies=equiv)
+
+
+def _typed(value, kind, where):
+    if isinstance(kind, tuple):
+        errors = []
+        for k in kind:
+            try:
+                return _typed(value, k, where)
+            except ConfigError as exc:
+                errors.append(str(exc))
+        raise ConfigError(errors[0])
+    if kind in _PHYSICAL or kind == "flux_per_beam":
+        return _quantity(value, kind, where)
+    if kind == "length3":
+        if not isinstance(value, list) or len(value) != 3:
+            raise ConfigError(f"{where}: expected a list of three lengths, e.g. ['0 pc', '0 pc', '1 pc']")
+        return u.Quantity([_quantity(v, "length", f"{where}[{i}]") for i, v in enumerate(value)])
+    if kind in ("frequency_list", "flux_per_beam_list"):
+        if not isinstance(value, list) or not value:
+            raise ConfigError(f"{where}: expected a non-empty list")
+        base = kind.replace("_list", "")
+        return u.Quantity([_quantity(v, base, f"{where}[{i}]") for i, v in enumerate(value)])
+    if kind is float and isinstance(value, int) and not isinstance(value, bool):
+        return float(value)
+    if kind is int and isinstance(value, bool) or not isinstance(value, kind):
+        name = kind.__name__ if isinstance(kind, type) else str(kind)
+        raise ConfigError(f"{where}: expected {name}, got {type(value).__name__} {value!r}")
+    return value
+
+
+def _section(raw, name, where=None):
+    table = raw.get(name, {})
+    where = where or f"[{name}]"
+    if not isinstance(table, dict):
+        raise ConfigError(f"{where}: expected a table")
+    _check_keys(table, SCHEMA[name], where)
+    return {k: _typed(v, SCHEMA[name][k], f"{where}.{k}") for k, v in table.items()}
+
+
+@dataclass
+class Job:
+    """A validated job. Build it with :func:`load_job` or :func:`parse_job`."""
+
+    snapshot: dict
+    ionization: dict
+    frequencies: u.Quantity
+    trace: dict
+    views: list
+    beam: dict
+    noise: dict
+    output: dict
+    base_dir: Path = field(default_factory=Path.cwd)
+
+
+def _frequencies(spec):
+    if "values" in spec:
+        if set(spec) - {"values"}:
+            raise ConfigError("[frequencies]: give either 'values' or 'start', 'stop', 'num', not both")
+        nu = spec["values"]
+    else:
+        missing = [k for k in ("start", "stop", "num") if k not in spec]
+        if missing:
+            raise ConfigError(f"[frequencies]: missing {', '.join(missing)} (or give 'values')")
+        spacing = spec.get("spacing", "log")
+        if spacing not in ("log", "linear"):
+            raise ConfigError(f"[frequencies].spacing: '{spacing}' is not 'log' or 'linear'")
+        make = np.geomspace if spacing == "log" else np.linspace
+        nu = make(spec["start"].to_value(u.Hz), spec["stop"].to_value(u.Hz), spec["num"]) * u.Hz
+    if np.any(nu <= 0):
+        raise ConfigError("[frequencies]: frequencies must be positive")
+    return nu.to(u.Hz)
+
+
+def parse_job(raw, base_dir="."):
+    """Validate a job given as a dict (the parsed TOML). Raises ConfigError on the first problem."""
+    base_dir = Path(base_dir)
+    unknown = set(raw) - _TOP
+    for key in sorted(unknown):
+        raise ConfigError(f"job: unknown table '[{key}]'{_suggest(key, _TOP)}; allowed: {', '.join(sorted(_TOP))}")
+    snap = _section(raw, "snapshot")
+    kind = snap.get("kind", "demo")
+    if kind not in ("demo", "hdf5"):
+        raise ConfigError(f"[snapshot].kind: '{kind}' is not 'demo' or 'hdf5'")
+    snap["kind"] = kind
+    if kind == "hdf5":
+        for key in ("path", "temperature"):
+            if key not in snap:
+                raise ConfigError(f"[snapshot]: '{key}' is required when kind = 'hdf5'")
+        if ("electron_density" in snap) == ("density" in snap):
+            raise ConfigError("[snapshot]: give exactly one of 'electron_density' or 'density'")
+        path = (base_dir / snap["path"]).resolve()
+        if not path.is_file():
+            raise ConfigError(f"[snapshot].path: file not found: {path}")
+        snap["path"] = path
+    ion = _section(raw, "ionization")
+    if "model" in ion and ion["model"] not in ("full", "threshold", "saha", "supplied"):
+        raise ConfigError(f"[ionization].model: '{ion['model']}' is not one of full, threshold, saha, supplied")
+    if ion and (kind == "demo" or "electron_density" in snap):
+        raise ConfigError("[ionization]: only used with [snapshot].density (the demo scenario and "
+                          "snapshots with electron_density carry their own ionization)")
+    if ion.get("model") == "supplied" and "fraction" not in ion:
+        raise ConfigError("[ionization]: model = 'supplied' needs 'fraction' (the dataset with the ionized fraction)")
+    if "frequencies" not in raw:
+        raise ConfigError("job: the [frequencies] table is required")
+    nu = _frequencies(_section(raw, "frequencies"))
+    trace = _section(raw, "trace")
+    views_raw = raw.get("view", [])
+    if isinstance(views_raw, dict):
+        views_raw = [views_raw]
+    if not views_raw:
+        raise ConfigError("job: at least one [[view]] is required")
+    views = []
+    names = set()
+    for i, v in enumerate(views_raw):
+        where = f"[[view]] #{i + 1}"
+        if not isinstance(v, dict):
+            raise ConfigError(f"{where}: expected a table")
+        _check_keys(v, SCHEMA["view"], where)
+        spec = {k: _typed(val, SCHEMA["view"][k], f"{where}.{k}") for k, val in v.items()}
+        spec.setdefault("name", f"view{i + 1}")
+        if spec["name"] in names:
+            raise ConfigError(f"{where}.name: '{spec['name']}' is used by another view")
+        names.add(spec["name"])
+        if ("ra" in spec) != ("dec" in spec):
+            raise ConfigError(f"{where}: give both 'ra' and 'dec' or neither")
+        views.append(spec)
+    beam = _section(raw, "beam")
+    if beam:
+        for key in ("major",):
+            if key not in beam:
+                raise ConfigError(f"[beam]: '{key}' is required")
+        if beam.get("scaling", "none") not in ("none", "inverse-frequency"):
+            raise ConfigError(f"[beam].scaling: '{beam['scaling']}' is not 'none' or 'inverse-frequency'")
+    noise = _section(raw, "noise")
+    if noise and not beam:
+        raise ConfigError("[noise]: noise is defined per beam, so it needs a [beam]")
+    if noise and "rms" not in noise:
+        raise ConfigError("[noise]: 'rms' is required")
+    if noise and noise["rms"].ndim == 1 and len(noise["rms"]) != len(nu):
+        raise ConfigError(f"[noise].rms: {len(noise['rms'])} values for {len(nu)} frequencies")
+    out = _section(raw, "output")
+    for q in out.get("quantities", []):
+        if q not in _QUANTITIES:
+            raise ConfigError(f"[output].quantities: unknown '{q}'{_suggest(q, _QUANTITIES)}")
+    out.setdefault("directory", "rtrace-output")
+    out["directory"] = (base_dir / out["directory"]).resolve()
+    job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir)
+    build_views(job)              # the View constructor validates geometry now, not after tracing
+    return job
+
+
+def load_job(path):
+    """Read and validate a TOML job file."""
+    path = Path(path)
+    if not path.is_file():
+        raise ConfigError(f"job file not found: {path}")
+    try:
+        raw = tomllib.loads(path.read_text())
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    return parse_job(raw, base_dir=path.parent)
+
+
+def build_views(job):
+    """``[(name, View)]`` for the job's views (raises ConfigError naming the view)."""
+    from . import View
+    from .errors import InputError
+
+    views = []
+    for spec in job.views:
+        kw = {k: spec[k] for k in ("los", "north", "npix", "width", "distance", "center") if k in spec}
+        if "ra" in spec:
+            kw["sky_position"] = SkyCoord(ra=spec["ra"], dec=spec["dec"], frame="icrs")
+        try:
+            views.append((spec["name"], View(**kw)))
+        except InputError as exc:
+            raise ConfigError(f"[[view]] '{spec['name']}': {exc}") from None
+    return views
+
+
+def run_job(job, progress=None):
+    """Execute a validated job; returns the list of files written.
+
+    ``progress(step, total, message)`` is called before each step (the command
+    line draws a progress bar from it).
+    """
+    from .pipeline import run
+    return run(job, progress=progress)
