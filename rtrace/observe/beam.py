@@ -26,7 +26,7 @@ import scipy.fft
 
 from ..errors import InputError
 
-__all__ = ["BeamKernel", "validate_beam", "beams_for_frequencies", "BEAM_SCALINGS",
+__all__ = ["BeamKernel", "describe_beam", "validate_beam", "beams_for_frequencies", "BEAM_SCALINGS",
            "KERNEL_HALF_WIDTH_SIGMA", "SUPERSAMPLE_BELOW_SIGMA"]
 
 # FWHM = sqrt(8 ln 2) sigma for a Gaussian (standard identity).
@@ -218,7 +218,11 @@ class BeamKernel:
         return scipy.fft.irfft2(ft * self.kernel_ft, s=self.fft_shape)[..., :ny, :nx]
 
     def describe(self):
-        """One-line description of the beam for provenance."""
-        b = self.beam
-        return (f"major={b.major.to_value(u.arcsec):.6g} arcsec minor={b.minor.to_value(u.arcsec):.6g} arcsec "
-                f"pa={b.pa.to_value(u.deg):.6g} deg")
+        """One-line description of this kernel's beam for provenance."""
+        return describe_beam(self.beam)
+
+
+def describe_beam(beam):
+    """One-line description of a beam: FWHM axes (arcsec) and position angle (deg)."""
+    return (f"major={beam.major.to_value(u.arcsec):.6g} arcsec minor={beam.minor.to_value(u.arcsec):.6g} arcsec "
+            f"pa={beam.pa.to_value(u.deg):.6g} deg")

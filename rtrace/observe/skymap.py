@@ -1,0 +1,328 @@
+"""SkyMap: a traced Result seen through a beam, with noise, in Jy/beam; and ``observe``."""
+
+import astropy.units as u
+import numpy as np
+
+from ..errors import InputError
+from ..physics.planck import inverse_planck_cgs
+from ..transfer.result import Result
+from .beam import BeamKernel, beams_for_frequencies, describe_beam, validate_beam
+from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_frequency
+
+__all__ = ["SkyMap", "observe"]
+
+_JY_CGS = 1.0e-23          # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
+
+
+def _reference_frequency(reference_frequency, scaling):
+    if reference_frequency is None:
+        return None
+    if scaling is None:
+        raise InputError("reference_frequency: only used with beam_scaling='inverse-frequency'")
+    q = u.Quantity(reference_frequency)
+    if not q.unit.is_equivalent(u.Hz, equivalencies=u.spectral()):
+        raise InputError(f"reference_frequency: expected a frequency, got unit '{q.unit}'")
+    if q.ndim != 0:
+        raise InputError(f"reference_frequency: expected a scalar, got shape {q.shape}")
+    nu = float(q.to_value(u.Hz, equivalencies=u.spectral()))
+    if not (np.isfinite(nu) and nu > 0):
+        raise InputError(f"reference_frequency: must be finite and positive, got {reference_frequency}")
+    return nu
+
+
+def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
+            *, subtract_background=True):
+    """Convolve a traced Result with a beam and add beam-correlated noise.
+
+    Parameters
+    ----------
+    result : `~rtrace.Result`
+        The traced intensity images.
+    beam : `radio_beam.Beam`
+        Beam at the reference frequency: FWHM axes, position angle of the
+        major axis from north through east (on the image: toward +row for
+        0 deg, toward -column for 90 deg).
+    noise : None or `~astropy.units.Quantity`, optional
+        rms per beam in Jy/beam, a scalar or one per frequency. The noise is
+        white Gaussian noise convolved with the beam and scaled so that its
+        expected rms is exactly this value.
+    seed : None or int, optional
+        Seed of the noise; ``None`` draws one and records it in the provenance.
+    beam_scaling : {None, "inverse-frequency"}, optional
+        ``None``: the same beam at every frequency. ``"inverse-frequency"``:
+        FWHM proportional to ``reference_frequency / nu``.
+    reference_frequency : `~astropy.units.Quantity`, optional
+        Frequency at which ``beam`` applies when scaling; defaults to the
+        first frequency. Only allowed with a scaling.
+    subtract_background : bool, optional
+        Remove the uniform background intensity (e.g. the CMB) that the
+        trace let in from behind before convolving, as a differential
+        measurement does (the convention of ``Result.flux_density``).
+        Without a background this changes nothing.
+
+    Returns
+    -------
+    `SkyMap`
+    """
+    if not isinstance(result, Result):
+        raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
+    validate_beam(beam)
+    if beam_scaling not in (None, "inverse-frequency"):
+        raise InputError(f"beam_scaling: expected None or 'inverse-frequency', got {beam_scaling!r}")
+    ref_hz = _reference_frequency(reference_frequency, beam_scaling)
+    nu = result.frequencies.to_value(u.Hz)
+    rms = noise_rms_per_frequency(noise, len(nu))
+
+    intensity = np.asarray(result.intensity.value, float)
+    if subtract_background:
+        intensity = intensity - result.background.value[:, None, None]
+    bad = ~np.isfinite(intensity)
+    if bad.any():
+        raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
+    # Jy per pixel: S = I Omega_pix, then erg s-1 cm-2 Hz-1 -> Jy
+    jy_per_pixel = intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
+
+    beams = beams_for_frequencies(beam, nu, beam_scaling, ref_hz)
+    image_shape = intensity.shape[1:]
+    kernels = {}                   # one kernel (and one kernel FFT) per distinct beam
+    per_freq = []
+    for b in beams:
+        key = (b.major.to_value(u.arcsec), b.minor.to_value(u.arcsec), b.pa.to_value(u.deg))
+        if key not in kernels:
+            kernels[key] = BeamKernel(b, result.pixel_scale, image_shape)
+        per_freq.append(kernels[key])
+
+    model = np.empty_like(jy_per_pixel)
+    for i, k in enumerate(per_freq):
+        # Jy/pixel through a unit-sum kernel is still Jy/pixel; times the beam area in
+        # pixels it becomes the flux a beam centred on each pixel collects (Jy/beam).
+        model[i] = k.convolve(jy_per_pixel[i]) * k.area_pixels
+
+    data = model
+    used_seed = None
+    if rms is not None:
+        rng, used_seed = make_rng(seed)
+        data = model.copy()
+        for i, k in enumerate(per_freq):
+            data[i] += correlated_noise(k, rms[i:i + 1], rng)[0]
+
+    scaling_txt = ("same at all frequencies" if beam_scaling is None else
+                   f"FWHM ~ 1/nu from {(ref_hz if ref_hz is not None else nu[0]) / 1e9:.6g} GHz")
+    beam_txt = f"gaussian {describe_beam(beam)}, {scaling_txt}"
+    if rms is None:
+        noise_txt = "none"
+    else:
+        noise_txt = ("gaussian, correlated over the beam, rms="
+                     + ",".join(f"{r:.6g}" for r in rms) + f" Jy/beam, seed={used_seed}")
+    provenance = dict(result.provenance, beam=beam_txt, noise=noise_txt)
+    return SkyMap(data, model, beams, result, rms, provenance, beam=beam, beam_scaling=beam_scaling,
+                  reference_frequency=ref_hz if ref_hz is not None else nu[0], seed=used_seed,
+                  background_subtracted=bool(subtract_background))
+
+
+class SkyMap:
+    """Images in Jy/beam as a telescope records them: the Result convolved with a beam, plus noise.
+
+    Build one with :func:`observe` (or ``Result.observe``).
+
+    Attributes
+    ----------
+    data : `~astropy.units.Quantity` (nfreq, ny, nx)
+        Model plus noise, Jy/beam.
+    model : `~astropy.units.Quantity` (nfreq, ny, nx)
+        Noiseless convolved image, Jy/beam.
+    beam : `radio_beam.Beam`
+        The beam as given, at the reference frequency (the first frequency
+        unless ``reference_frequency`` was set).
+    beams : list of `radio_beam.Beam`
+        The beam at each frequency.
+    frequencies : `~astropy.units.Quantity` (nfreq,)
+        Hz.
+    pixel_scale : `~astropy.units.Quantity`
+        Angular size of a square pixel (arcsec).
+    pixel_size : `~astropy.units.Quantity`
+        Physical size of a pixel at the source (cm).
+    distance : `~astropy.units.Quantity`
+        Distance to the source.
+    sky_position : `~astropy.coordinates.SkyCoord`
+        Sky coordinates of the image centre.
+    noise_rms : `~astropy.units.Quantity` (nfreq,) or None
+        Requested noise rms, Jy/beam.
+    beam_solid_angle : `~astropy.units.Quantity` (nfreq,)
+        ``pi bmaj bmin / (4 ln 2)`` per frequency (sr).
+    reference_frequency : `~astropy.units.Quantity`
+        Frequency at which ``beam`` applies (Hz).
+    beam_scaling : None or str
+    seed : int or None
+        Seed that reproduces the noise (None without noise).
+    background_subtracted : bool
+        Whether the Result's uniform background was removed before convolving.
+    provenance : dict
+        The Result's provenance plus ``"beam"`` and ``"noise"`` descriptions.
+    result : `~rtrace.Result`
+        The Result this map came from.
+    """
+
+    def __init__(self, data, model, beams, result, noise_rms, provenance, *, beam, beam_scaling,
+                 reference_frequency, seed, background_subtracted):
+        self._data = np.asarray(data, float)
+        self._model = np.asarray(model, float)
+        self.beams = list(beams)
+        self.beam = beam
+        self.result = result
+        self._rms = None if noise_rms is None else np.asarray(noise_rms, float)
+        self.provenance = dict(provenance)
+        self.beam_scaling = beam_scaling
+        self.reference_frequency = float(reference_frequency) * u.Hz
+        self.seed = seed
+        self.background_subtracted = background_subtracted
+        self._beam_sr = np.array([b.sr.to_value(u.sr) for b in self.beams])
+        self._pix_sr = result.pixel_solid_angle.to_value(u.sr)
+
+    # -- geometry, taken from the Result ---------------------------------------------------------
+    @property
+    def frequencies(self):
+        return self.result.frequencies
+
+    @property
+    def pixel_scale(self):
+        return self.result.pixel_scale
+
+    @property
+    def pixel_size(self):
+        return self.result.pixel_size
+
+    @property
+    def distance(self):
+        return self.result.view.distance
+
+    @property
+    def sky_position(self):
+        return self.result.sky_position
+
+    @property
+    def shape(self):
+        return self._data.shape
+
+    # -- images --------------------------------------------------------------------------------
+    @property
+    def data(self):
+        return u.Quantity(self._data, JY_PER_BEAM, copy=False)
+
+    @property
+    def model(self):
+        return u.Quantity(self._model, JY_PER_BEAM, copy=False)
+
+    @property
+    def noise_rms(self):
+        return None if self._rms is None else u.Quantity(self._rms, JY_PER_BEAM)
+
+    @property
+    def beam_solid_angle(self):
+        return u.Quantity(self._beam_sr, u.sr)
+
+    @property
+    def beam_area_pixels(self):
+        """Beam solid angle over pixel solid angle, per frequency (ndarray)."""
+        return self._beam_sr / self._pix_sr
+
+    def _image(self, noiseless):
+        return self._model if noiseless else self._data
+
+    def to_jy_per_pixel(self, noiseless=False):
+        """The map in Jy/pixel: Jy/beam divided by the beam area in pixels.
+
+        Parameters
+        ----------
+        noiseless : bool
+            Use the model instead of the data.
+
+        Returns
+        -------
+        `~astropy.units.Quantity` (nfreq, ny, nx), Jy/pixel
+        """
+        img = self._image(noiseless) / self.beam_area_pixels[:, None, None]
+        return u.Quantity(img, u.Jy / u.pix)
+
+    def flux_density(self, noiseless=False):
+        """Total flux density per frequency: the sum over pixels of Jy/pixel (Jy).
+
+        Parameters
+        ----------
+        noiseless : bool
+            Use the model instead of the data.
+
+        Returns
+        -------
+        `~astropy.units.Quantity` (nfreq,), Jy
+        """
+        total = self._image(noiseless).sum(axis=(1, 2)) / self.beam_area_pixels
+        return u.Quantity(total, u.Jy)
+
+    def brightness_temperature(self, kind="rayleigh-jeans", noiseless=False):
+        """Brightness temperature per beam (K).
+
+        Parameters
+        ----------
+        kind : {"rayleigh-jeans", "planck"}
+            ``rayleigh-jeans``: astropy's ``brightness_temperature(nu,
+            beam_area)`` equivalency, ``T = c^2 S / (2 k nu^2 Omega_beam)``
+            (linear, so noise stays Gaussian). ``planck``: the blackbody
+            temperature of the mean intensity in the beam,
+            ``I = S / Omega_beam``, NaN where ``I <= 0``.
+        noiseless : bool
+            Use the model instead of the data.
+
+        Returns
+        -------
+        `~astropy.units.Quantity` (nfreq, ny, nx), K
+        """
+        img = self._image(noiseless)
+        nu = self.frequencies.to_value(u.Hz)
+        if kind in ("rayleigh-jeans", "rj"):
+            # Kelvin per Jy/beam at each frequency, straight from astropy's equivalency
+            k_per_jyb = np.array([(1.0 * JY_PER_BEAM).to_value(
+                u.K, equivalencies=u.brightness_temperature(f * u.Hz, beam_area=sr * u.sr))
+                for f, sr in zip(nu, self._beam_sr)])
+            return u.Quantity(img * k_per_jyb[:, None, None], u.K)
+        if kind == "planck":
+            mean_intensity = img * (_JY_CGS / self._beam_sr[:, None, None])
+            return u.Quantity(inverse_planck_cgs(nu[:, None, None], mean_intensity), u.K)
+        raise InputError(f"kind: expected 'rayleigh-jeans' or 'planck', got {kind!r}")
+
+    def snr_mask(self, threshold=5.0):
+        """Pixels whose noiseless model reaches ``threshold`` times the noise rms.
+
+        Parameters
+        ----------
+        threshold : float
+            Signal-to-noise threshold.
+
+        Returns
+        -------
+        ndarray of bool (nfreq, ny, nx)
+            ``model / noise_rms >= threshold``; all True without noise (and
+            at frequencies whose rms is zero).
+        """
+        try:
+            thr = float(threshold)
+        except (TypeError, ValueError):
+            raise InputError(f"threshold: expected a number, got {threshold!r}") from None
+        if not np.isfinite(thr):
+            raise InputError(f"threshold: must be finite, got {threshold!r}")
+        if self._rms is None:
+            return np.ones(self.shape, dtype=bool)
+        rms = self._rms[:, None, None]
+        # compared as model >= thr * rms so no division by a zero rms is needed
+        return (self._model >= thr * rms) | (rms == 0)
+
+    def write_fits(self, path):
+        """Write the map to a FITS file (see `rtrace.io.fits.write_skymap`)."""
+        from ..io.fits import write_skymap
+        return write_skymap(self, path)
+
+    def __repr__(self):
+        nf, ny, nx = self.shape
+        b = self.beam
+        return (f"<SkyMap {nf} frequencies, {ny}x{nx} pixels of {self.pixel_scale:.4g}, beam "
+                f"{b.major.to(u.arcsec):.4g} x {b.minor.to(u.arcsec):.4g} pa {b.pa.to(u.deg):.4g}>")
