@@ -21,11 +21,14 @@ Kernels trust their inputs: the Python layer validates them.
 import math
 
 import numba
+import numpy as np
 from numba import prange
 
 from ..physics.planck import inverse_expm1, one_minus_exp
 
-__all__ = ["trace_along_last_axis", "trace_along_middle_axis", "trace_rays"]
+__all__ = ["trace_along_last_axis", "trace_along_middle_axis", "layer_segments", "trace_sheared"]
+
+_ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
 
 
 @numba.njit(cache=True, inline="always")
@@ -101,81 +104,103 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
                               log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)
 
 
-@numba.njit(cache=True, inline="always")
-def _axis_start(o, d, size, k_lo, k_hi, t_in, big):
-    """Amanatides & Woo (1987) start state on one axis: cell index, step, next boundary t, t per cell."""
-    p = o + t_in * d
-    k = int(math.floor(p / size))
-    k = min(max(k, k_lo), k_hi - 1)
-    if d > 0.0:
-        return k, 1, t_in + ((k + 1) * size - p) / d, size / d
-    if d < 0.0:
-        return k, -1, t_in + (k * size - p) / d, -size / d
-    return k, 0, big, big
+@numba.njit(cache=True)
+def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs_lc, k_lo, k_hi, forward,
+                   max_seg):
+    """Path segments, per cell layer, shared by every ray of one lattice phase.
+
+    Rays of a lattice commensurate with the grid on axes a and b all sit at the
+    same fractional place within their cells, so within layer k (along the
+    axis c most nearly parallel to the rays) they cross the same cell
+    boundaries at the same depths. A ray whose lattice cell is (i, j) visits,
+    in layer k, cells (i + da, j + db, k) for the listed segments, over path
+    lengths ds: Amanatides & Woo (1987) traversal done once for all rays.
+
+    ``offset_*``: ray position within its cell at c = 0 (cell units);
+    ``rho_* = L_* / L_c``; returns ``(count (nk,), da, db (nk, max_seg) int64,
+    ds (nk, max_seg))`` with layers and segments in the order of travel.
+    """
+    nk = k_hi - k_lo
+    count = np.zeros(nk, np.int64)
+    da = np.zeros((nk, max_seg), np.int64)
+    db = np.zeros((nk, max_seg), np.int64)
+    ds = np.zeros((nk, max_seg))
+    step_a = rho_a * cell_c / cell_a          # change of the cell-unit position per layer
+    step_b = rho_b * cell_c / cell_b
+    cuts = np.empty(max_seg + 1)
+    for s in range(nk):
+        k = k_lo + s if forward else k_hi - 1 - s
+        # depths (in layer units, 0..1 from the layer's entry face) where a or b crosses a cell edge
+        ua0 = offset_a + step_a * (k if forward else k + 1)
+        ub0 = offset_b + step_b * (k if forward else k + 1)
+        sa = step_a if forward else -step_a
+        sb = step_b if forward else -step_b
+        n = 0
+        cuts[n] = 0.0
+        n += 1
+        for u0, su in ((ua0, sa), (ub0, sb)):
+            if su != 0.0:
+                lo_edge = math.floor(min(u0, u0 + su))
+                hi_edge = math.ceil(max(u0, u0 + su))
+                for e in range(int(lo_edge), int(hi_edge) + 1):
+                    t = (e - u0) / su
+                    if 0.0 < t < 1.0 and n < max_seg:
+                        cuts[n] = t
+                        n += 1
+        cuts[n] = 1.0
+        n += 1
+        cuts[:n].sort()
+        m = 0
+        for q in range(n - 1):
+            t0, t1 = cuts[q], cuts[q + 1]
+            if t1 - t0 <= 0.0:
+                continue
+            tm = 0.5 * (t0 + t1)
+            da[s, m] = int(math.floor(ua0 + sa * tm))
+            db[s, m] = int(math.floor(ub0 + sb * tm))
+            ds[s, m] = (t1 - t0) * cell_c / abs_lc
+            m += 1
+        count[s] = m
+    return count, da, db, ds
 
 
 @numba.njit(cache=True, parallel=True)
-def trace_rays(ne, ni, temp, cell, lo, hi, origins, direction, log_t0, inv_dlog_t, gtab, hk, alpha_pref,
-               b_pref, out_i, out_tau, out_em):
-    """Parallel rays in any direction through the brick ``lo <= index < hi`` of ``(nx, ny, nz)`` arrays.
+def trace_sheared(ne, ni, temp, lo, hi, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+                  log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out_i, out_tau, out_em):
+    """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
-    Amanatides & Woo (1987) traversal gives the exact path length in every
-    cell. ``origins`` (nray, 3) are points on the rays in cm relative to the
-    grid's lower corner; ``direction`` is the unit vector of travel; ``cell``
-    the cell size per axis in cm; ``lo``, ``hi`` (3,) integer index bounds.
-    Outputs ``(nfreq, 1, nray)`` and ``(1, nray)`` must be zero on entry.
+    Arrays are ``(A, B, C)`` views with C the axis most nearly parallel to the
+    rays; ray ``(i0 + p, j0 + q)`` is output index ``p * n_j + q``. For each
+    layer, each segment of :func:`layer_segments` reads a shifted row of
+    cells for a whole row of rays, so memory is read in order and a cache
+    line serves many consecutive layers. Cells outside ``lo <= index < hi``
+    (the brick) contribute nothing. Outputs ``(nfreq, 1, n_i n_j)`` and
+    ``(1, n_i n_j)`` must be zero on entry.
     """
-    nray = origins.shape[0]
-    big = 1.0e300
-    for r in prange(nray):
-        t_in = -big
-        t_out = big
-        miss = False
-        for ax in range(3):
-            o = origins[r, ax]
-            d = direction[ax]
-            x_lo = lo[ax] * cell[ax]
-            x_hi = hi[ax] * cell[ax]
-            if d == 0.0:
-                if o < x_lo or o >= x_hi:
-                    miss = True
-            else:
-                t0 = (x_lo - o) / d
-                t1 = (x_hi - o) / d
-                if t0 > t1:
-                    t0, t1 = t1, t0
-                t_in = max(t_in, t0)
-                t_out = min(t_out, t1)
-        if miss or t_out <= t_in:
-            continue
-        # Per-axis traversal state as scalars: no allocation inside the ray loop.
-        i0, s0, m0, d0 = _axis_start(origins[r, 0], direction[0], cell[0], lo[0], hi[0], t_in, big)
-        i1, s1, m1, d1 = _axis_start(origins[r, 1], direction[1], cell[1], lo[1], hi[1], t_in, big)
-        i2, s2, m2, d2 = _axis_start(origins[r, 2], direction[2], cell[2], lo[2], hi[2], t_in, big)
-        t = t_in
-        em = 0.0
-        while t < t_out:
-            t_next = min(m0, m1, m2, t_out)
-            ds = t_next - t
-            nn = float(ne[i0, i1, i2]) * float(ni[i0, i1, i2])
-            if nn > 0.0 and ds > 0.0:
-                em += nn * ds
-                _add_cell(out_i, out_tau, 0, r, nn * ds, float(temp[i0, i1, i2]),
-                          log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)
-            t = t_next
-            if m0 <= m1 and m0 <= m2:
-                i0 += s0
-                m0 += d0
-                if i0 < lo[0] or i0 >= hi[0]:
-                    break
-            elif m1 <= m2:
-                i1 += s1
-                m1 += d1
-                if i1 < lo[1] or i1 >= hi[1]:
-                    break
-            else:
-                i2 += s2
-                m2 += d2
-                if i2 < lo[2] or i2 >= hi[2]:
-                    break
-        out_em[0, r] = em
+    nk = count.shape[0]
+    n_block = (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK
+    for blk in prange(n_block):
+        # rows of a block advance together layer by layer: a cache line of cells (several
+        # consecutive layers of one column) is then reused by the neighbouring rows that
+        # drift through it, instead of being fetched again for each row
+        p_lo = blk * _ROW_BLOCK
+        p_hi = min(n_i, p_lo + _ROW_BLOCK)
+        for s in range(nk):
+            k = k_lo + s if forward else k_lo + nk - 1 - s
+            for p in range(p_lo, p_hi):
+                i = i0 + p
+                for g in range(count[s]):
+                    x = i + seg_da[s, g]
+                    if x < lo[0] or x >= hi[0]:
+                        continue
+                    ds = seg_ds[s, g]
+                    q_lo = max(0, lo[1] - j0 - seg_db[s, g])
+                    q_hi = min(n_j, hi[1] - j0 - seg_db[s, g])
+                    for q in range(q_lo, q_hi):
+                        y = j0 + q + seg_db[s, g]
+                        nn = float(ne[x, y, k]) * float(ni[x, y, k])
+                        if nn > 0.0:
+                            r = p * n_j + q
+                            out_em[0, r] += nn * ds
+                            _add_cell(out_i, out_tau, 0, r, nn * ds, float(temp[x, y, k]),
+                                      log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)

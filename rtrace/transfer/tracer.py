@@ -7,10 +7,13 @@ Two routes give the same physics:
   contiguous memory. Each column's square footprint is clipped onto the
   pixels (``remap``) for any pixel size and any rotation of north about the
   line of sight. Nothing aliases; the total flux is exact.
-* **Any other direction**: Amanatides & Woo traversal of parallel rays on a
-  lattice that is commensurate with the grid on the two axes most nearly
-  perpendicular to the line of sight (``supersample`` rays per cell, and at
-  least one per pixel). Each ray stands for a parallelogram tube; tubes tile
+* **Any other direction**: parallel rays on a lattice that is commensurate
+  with the grid on the two axes most nearly perpendicular to the line of
+  sight (``supersample`` rays per cell, and at least one per pixel). All rays
+  of one lattice phase cross cell boundaries at the same depths, so the
+  Amanatides & Woo traversal is done once per layer of cells
+  (``kernels.layer_segments``) and the rays are swept through the grid layer
+  by layer (``kernels.trace_sheared``). Each ray stands for a parallelogram tube; tubes tile
   the image plane and are remapped onto pixels by exact clipping, so a
   pixel reports the mean over its footprint and the total flux is the
   lattice quadrature of the volume integral for any pixel size. Faces seen
@@ -37,7 +40,6 @@ from .result import Result
 __all__ = ["trace", "FrequencyTables"]
 
 _CMB_TEMPERATURE = 2.7255   # K, Fixsen (2009), ApJ 707, 916
-_TILE_SIDE = 8              # rays are ordered in tiles of 8 x 8 neighbours (cache reuse)
 
 
 class FrequencyTables:
@@ -211,7 +213,7 @@ def _lattice_range(lo, hi, spacing):
 def _trace_oblique(snap, view, center, pix, tables, bg, supersample, brick_size):
     ny, nx = view.shape
     cell = snap.cell_size
-    los = np.ascontiguousarray(view.los, float)
+    los = np.asarray(view.los, float)
     c = int(np.argmax(np.abs(los)))
     a, b = [ax for ax in range(3) if ax != c]
     size = np.asarray(snap.shape) * cell
@@ -219,18 +221,18 @@ def _trace_oblique(snap, view, center, pix, tables, bg, supersample, brick_size)
     m_a = max(supersample, math.ceil(cell[a] / pix - 1e-9))
     m_b = max(supersample, math.ceil(cell[b] / pix - 1e-9))
     h_a, h_b = cell[a] / m_a, cell[b] / m_b
-    shift_a = los[a] / los[c] * size[c]           # drift of a ray across the grid's depth
-    shift_b = los[b] / los[c] * size[c]
+    rho_a, rho_b = los[a] / los[c], los[b] / los[c]
+    shift_a, shift_b = rho_a * size[c], rho_b * size[c]     # drift of a ray across the grid's depth
     ia = _lattice_range(-max(shift_a, 0.0), size[a] - min(shift_a, 0.0), h_a)
     ib = _lattice_range(-max(shift_b, 0.0), size[b] - min(shift_b, 0.0), h_b)
-    # pixel coordinates are affine in the lattice indices: (col, row) = p0 + i e1 + j e2
+    # pixel coordinates are affine in the sub-lattice indices: (col, row) = p0 + I e1 + J e2
     rel_center = center - snap.origin
     e1 = h_a * np.array([view.west[a], view.north[a]]) / pix
     e2 = h_b * np.array([view.west[b], view.north[b]]) / pix
     origin_pt = np.zeros(3)
     origin_pt[a], origin_pt[b] = 0.5 * h_a, 0.5 * h_b
     p0 = np.array(_pixel_coordinates(origin_pt, rel_center, view, pix))
-    # keep only the lattice part whose tubes can touch the image
+    # keep only the part of the lattice whose tubes can touch the image
     inv = np.linalg.inv(np.column_stack([e1, e2]))
     margin = np.abs(e1) + np.abs(e2)
     corners = np.array([[-margin[0], -margin[1]], [nx + margin[0], -margin[1]],
@@ -242,30 +244,32 @@ def _trace_oblique(snap, view, center, pix, tables, bg, supersample, brick_size)
     planes = np.zeros((2 * nfreq + 1, ny, nx))
     if ia[1] < ia[0] or ib[1] < ib[0]:
         return _planes_to_segment(planes, bg), 0.0
-    bricks = _bricks(snap.shape, brick_size, los, cell)
-    i_all = np.arange(ia[0], ia[1] + 1)
-    rows_per_chunk = max(1, int(2_000_000 // max(1, len(i_all) * max(nfreq, 1))))
+    order = (a, b, c)
+    arrays = tuple(arr.transpose(order) for arr in (snap._ne, snap._ni, snap._t))
+    forward = bool(los[c] > 0)
+    max_seg = 3 + math.ceil(abs(rho_a) * cell[c] / cell[a]) + math.ceil(abs(rho_b) * cell[c] / cell[b])
+    bricks = [(lo[list(order)], hi[list(order)]) for lo, hi in _bricks(snap.shape, brick_size, los, cell)]
     n_traced = 0
-    for j0 in range(ib[0], ib[1] + 1, rows_per_chunk):
-        j_all = np.arange(j0, min(ib[1] + 1, j0 + rows_per_chunk))
-        ii, jj = np.meshgrid(i_all, j_all, indexing="ij")
-        cols = p0[0] + ii * e1[0] + jj * e2[0]
-        rows = p0[1] + ii * e1[1] + jj * e2[1]
-        keep = ((cols > -margin[0]) & (cols < nx + margin[0]) & (rows > -margin[1]) & (rows < ny + margin[1]))
-        if not keep.any():
-            continue
-        # order rays in compact tiles so consecutive rays share cached cells
-        order = np.lexsort((jj[keep], ii[keep], jj[keep] // _TILE_SIDE, ii[keep] // _TILE_SIDE))
-        cols, rows = cols[keep][order], rows[keep][order]
-        origins = np.zeros((len(order), 3))
-        origins[:, a] = (ii[keep][order] + 0.5) * h_a
-        origins[:, b] = (jj[keep][order] + 0.5) * h_b
-        acc = Segment.empty(nfreq, (1, origins.shape[0]))
-        for lo, hi in bricks:
-            part = Segment.empty(nfreq, (1, origins.shape[0]))
-            kernels.trace_rays(snap._ne, snap._ni, snap._t, cell, lo, hi, origins, los,
-                               *tables.args(), part.intensity, part.tau, part.em)
-            acc = composite(acc, part) if len(bricks) > 1 else part
-        _splat(Segment(acc.intensity[:, 0], acc.tau[:, 0], acc.em[0]), bg, cols, rows, e1, e2, planes)
-        n_traced += origins.shape[0]
+    for pa in range(m_a):
+        for pb in range(m_b):
+            # this phase's rays: sub-lattice indices I = i m_a + pa, J = j m_b + pb
+            i_lo, i_hi = -((pa - ia[0]) // m_a), (ia[1] - pa) // m_a
+            j_lo, j_hi = -((pb - ib[0]) // m_b), (ib[1] - pb) // m_b
+            n_i, n_j = i_hi - i_lo + 1, j_hi - j_lo + 1
+            if n_i <= 0 or n_j <= 0:
+                continue
+            acc = None
+            for lo, hi in bricks:
+                segs = kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell[a], cell[b],
+                                              cell[c], abs(los[c]), lo[2], hi[2], forward, max_seg)
+                part = Segment.empty(nfreq, (1, n_i * n_j))
+                kernels.trace_sheared(*arrays, lo, hi, lo[2], forward, i_lo, n_i, j_lo, n_j, *segs,
+                                      *tables.args(), part.intensity, part.tau, part.em)
+                acc = part if acc is None else composite(acc, part)
+            big_i = (np.arange(i_lo, i_hi + 1) * m_a + pa)[:, None]
+            big_j = (np.arange(j_lo, j_hi + 1) * m_b + pb)[None, :]
+            cols = (p0[0] + big_i * e1[0] + big_j * e2[0]).ravel()
+            rows = (p0[1] + big_i * e1[1] + big_j * e2[1]).ravel()
+            _splat(Segment(acc.intensity[:, 0], acc.tau[:, 0], acc.em[0]), bg, cols, rows, e1, e2, planes)
+            n_traced += n_i * n_j
     return _planes_to_segment(planes, bg), n_traced / (nx * ny)

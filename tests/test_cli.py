@@ -1,0 +1,103 @@
+"""The rtrace command end to end on small jobs in a temporary directory."""
+
+import textwrap
+
+import h5py
+import numpy as np
+import pytest
+from astropy.io import fits
+from astropy.wcs import WCS
+
+from rtrace.cli import EXIT_CONFIG, EXIT_INPUT, EXIT_OK, main
+
+JOB = """
+[snapshot]
+kind = "demo"
+cells = 20
+
+[frequencies]
+values = ["1 GHz", "10 GHz"]
+
+[[view]]
+name = "small"
+npix = 24
+distance = "2 kpc"
+
+[beam]
+major = "60 arcsec"
+minor = "40 arcsec"
+pa = "30 deg"
+
+[noise]
+rms = "0.1 mJy"
+seed = 3
+
+[output]
+directory = "out"
+"""
+
+
+def write(tmp_path, text, name="job.toml"):
+    path = tmp_path / name
+    path.write_text(textwrap.dedent(text))
+    return path
+
+
+def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):
+    job = write(tmp_path, JOB)
+    assert main(["run", str(job), "--quiet"]) == EXIT_OK
+    out = tmp_path / "out"
+    names = sorted(p.name for p in out.iterdir())
+    for expected in ("small_intensity.fits", "small_tau.fits", "small_jy_per_beam.fits", "small_sed.csv",
+                     "small_intensity.png", "small_sed.png"):
+        assert expected in names
+    assert not [n for n in names if n.startswith(".")]                 # no temporary files left
+    with fits.open(out / "small_jy_per_beam.fits") as hdul:
+        header = hdul[0].header
+        assert hdul[0].data.shape == (2, 24, 24)
+        # FITS beam keywords in degrees (common practice of radio FITS files)
+        assert header["BMAJ"] == pytest.approx(60 / 3600)
+        assert WCS(header).naxis == 3
+    sed = np.loadtxt(out / "small_sed.csv", delimiter=",", comments="#", skiprows=1, ndmin=2)
+    assert sed.shape[0] == 2
+    assert "wrote" in capsys.readouterr().out
+
+
+def test_bad_job_exits_3_and_writes_nothing(tmp_path, capsys):
+    job = write(tmp_path, JOB.replace("npix = 24", "npx = 24"))
+    assert main(["run", str(job), "--quiet"]) == EXIT_CONFIG
+    assert "did you mean 'npix'" in capsys.readouterr().err
+    assert not (tmp_path / "out").exists()
+
+
+def test_bad_data_exits_4(tmp_path, capsys):
+    t = np.full((8, 8, 8), 1e4)
+    t[0, 0, :3] = np.nan
+    with h5py.File(tmp_path / "bad.h5", "w") as f:
+        f.create_dataset("T", data=t).attrs["units"] = "K"
+        f.create_dataset("ne", data=np.ones((8, 8, 8))).attrs["units"] = "cm**-3"
+    text = JOB.replace('kind = "demo"\ncells = 20',
+                       'kind = "hdf5"\npath = "bad.h5"\ntemperature = "T"\nelectron_density = "ne"\n'
+                       'cell_size = "0.01 pc"')
+    assert main(["run", str(write(tmp_path, text)), "--quiet"]) == EXIT_INPUT
+    assert "temperature: 3 of 512 cells are not finite" in capsys.readouterr().err
+
+
+def test_inspect_and_sed(tmp_path, capsys):
+    assert main(["inspect", "--cells", "16", "--frequencies", "1 GHz, 30 GHz"]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "estimated optical depth" in out and "30 GHz" in out
+    job = write(tmp_path, JOB)
+    assert main(["sed", str(job), "--plot", str(tmp_path / "sed.png")]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "S (Jy)" in out and (tmp_path / "sed.png").stat().st_size > 1000
+
+
+def test_help_everywhere():
+    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["sed", "--help"]):
+        with pytest.raises(SystemExit) as exc:
+            main(argv)
+        assert exc.value.code == 0
+    with pytest.raises(SystemExit) as exc:
+        main(["frobnicate"])
+    assert exc.value.code == 2
