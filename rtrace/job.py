@@ -213,6 +213,8 @@ def parse_job(raw, base_dir="."):
                 raise ConfigError(f"[beam]: '{key}' is required")
         if beam.get("scaling", "none") not in ("none", "inverse-frequency"):
             raise ConfigError(f"[beam].scaling: '{beam['scaling']}' is not 'none' or 'inverse-frequency'")
+        if "reference_frequency" in beam and beam.get("scaling", "none") == "none":
+            raise ConfigError("[beam].reference_frequency: only used with scaling = 'inverse-frequency'")
     noise = _section(raw, "noise")
     if noise and not beam:
         raise ConfigError("[noise]: noise is defined per beam, so it needs a [beam]")

@@ -3,10 +3,7 @@
 import time
 
 import astropy.units as u
-import h5py
-import numpy as np
 
-from .errors import InputError
 from .job import build_views
 
 __all__ = ["run", "build_snapshot"]
@@ -23,20 +20,14 @@ def _composition(ion):
 def _ionization_model(job):
     from .physics.ionization import SuppliedFraction, TemperatureThreshold, resolve_ionization
 
-    ion, snap = job.ionization, job.snapshot
+    ion = job.ionization
     comp = _composition(ion)
     model = ion.get("model", "full")
     if model == "threshold":
         kw = {} if "threshold" not in ion else {"threshold": ion["threshold"]}
         return TemperatureThreshold(composition=comp, helium=ion.get("helium", "single"), **kw)
-    if model == "supplied":
-        with h5py.File(snap["path"], "r") as f:
-            if ion["fraction"] not in f:
-                raise InputError(f"[ionization].fraction: dataset '{ion['fraction']}' is not in {snap['path']}")
-            dset = f[ion["fraction"]]
-            sel = tuple(slice(a, b) for a, b in snap.get("subvolume", [[None, None]] * 3))
-            fraction = np.asarray(dset[sel], dtype=float)
-        return SuppliedFraction(fraction, composition=comp, helium=ion.get("helium", "follow"))
+    if model == "supplied":       # the reader fetches the named dataset (same sub-volume)
+        return SuppliedFraction(ion["fraction"], composition=comp, helium=ion.get("helium", "follow"))
     return resolve_ionization(model, composition=comp, helium=ion.get("helium"))
 
 
@@ -61,10 +52,10 @@ def _observe(res, job):
     b = job.beam
     beam = radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
     noise = job.noise.get("rms") if job.noise else None
-    scaling = b.get("scaling", "none")
-    return res.observe(beam=beam, noise=noise, seed=job.noise.get("seed") if job.noise else None,
-                       beam_scaling=None if scaling == "none" else scaling,
-                       reference_frequency=b.get("reference_frequency"))
+    kw = {}
+    if b.get("scaling", "none") != "none":
+        kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
+    return res.observe(beam=beam, noise=noise, seed=job.noise.get("seed") if job.noise else None, **kw)
 
 
 def run(job, progress=None):

@@ -1,0 +1,306 @@
+"""Read a gridded snapshot from an HDF5 file.
+
+Any layout works: the caller names the datasets (paths inside groups are
+allowed, e.g. ``"fluid/temperature"``). Every dataset needs a unit, from the
+``units`` argument or from the dataset's ``"units"`` attribute (a string
+astropy parses: ``"K"``, ``"cm**-3"``, ``"g/cm**3"``, ``"1.67e-24 g/cm**3"``).
+The argument overrides the attribute, so a file with a missing or wrong
+attribute can be read without editing it. Geometry comes from the
+arguments or from root attributes (``cell_size`` with ``cell_size_units``
+or ``length_unit``; ``origin`` with ``origin_units``, ``length_unit`` or
+``cell_size_units``).
+
+Arrays are indexed ``[i, j, k]`` <-> ``(x, y, z)``, as in
+:class:`~rtrace.Snapshot`.
+"""
+
+import os
+
+import astropy.units as u
+import h5py
+import numpy as np
+
+from ..errors import InputError
+from ..snapshot import Snapshot
+
+__all__ = ["read_hdf5"]
+
+# Ionization names that are models, not datasets (see resolve_ionization).
+_MODEL_NAMES = ("full", "threshold", "saha")
+
+# What each field's unit must be convertible to, and with which equivalencies.
+_FIELD_UNITS = {
+    "temperature": (u.K, u.temperature()),
+    "electron_density": (u.cm**-3, []),
+    "ion_density": (u.cm**-3, []),
+    "density": (u.g / u.cm**3, []),
+    "ionization": (u.dimensionless_unscaled, []),
+}
+
+
+def _text(value):
+    """An HDF5 attribute holding a string (str, bytes or a 0-d/1-element array of them)."""
+    if isinstance(value, np.ndarray) and value.size == 1:
+        value = value.reshape(-1)[0]
+    if isinstance(value, (bytes, np.bytes_)):
+        return value.decode("utf-8", errors="replace")
+    if isinstance(value, str):
+        return value
+    return None
+
+
+def _all_datasets(handle):
+    names = []
+    handle.visititems(lambda name, obj: names.append(name) if isinstance(obj, h5py.Dataset) else None)
+    return names
+
+
+def _dataset(handle, name, parameter, path):
+    key = str(name).lstrip("/")
+    obj = handle.get(key) if key else None
+    if not isinstance(obj, h5py.Dataset):
+        what = "is a group, not a dataset" if isinstance(obj, h5py.Group) else "not found"
+        available = ", ".join(_all_datasets(handle)) or "none"
+        raise InputError(f"{parameter}: dataset '{name}' {what} in '{path}'; "
+                         f"datasets in the file: {available}")
+    if obj.dtype.kind not in "fiu":
+        raise InputError(f"{parameter}: dataset '{name}' has non-numeric type {obj.dtype} "
+                         "(expected floats or integers)")
+    if obj.ndim != 3:
+        raise InputError(f"{parameter}: dataset '{name}' has {obj.ndim} dimension(s) "
+                         f"(shape {obj.shape}); expected a 3D grid")
+    return obj
+
+
+def _unit(dataset, name, parameter, units, required=True):
+    """Unit of a dataset: the ``units`` argument first, then its ``"units"`` attribute."""
+    if name in units:
+        text, origin = units[name], "units argument"
+    elif "units" in dataset.attrs:
+        raw = dataset.attrs["units"]
+        text = _text(raw)
+        origin = "attribute 'units'"
+        if text is None:
+            raise InputError(f"{parameter}: dataset '{name}' attribute 'units' is not a string "
+                             f"({raw!r})")
+    elif not required:
+        return u.dimensionless_unscaled
+    else:
+        raise InputError(f"{parameter}: dataset '{name}' has no 'units' attribute and no entry "
+                         f"in the units argument; give units={{'{name}': '...'}}")
+    try:
+        unit = u.Unit(text)
+    except (ValueError, TypeError) as exc:
+        raise InputError(f"{parameter}: dataset '{name}' unit {text!r} ({origin}) "
+                         f"cannot be parsed: {exc}") from None
+    target, equivalencies = _FIELD_UNITS[parameter]
+    if not unit.is_equivalent(target, equivalencies=equivalencies):
+        raise InputError(f"{parameter}: dataset '{name}' has unit '{unit}' ({origin}), "
+                         f"which is not convertible to {target}")
+    return unit
+
+
+def _subvolume(subvolume, shape):
+    """Validated ``(slices, starts)`` for a sub-volume in cell indices."""
+    if subvolume is None:
+        return tuple(slice(0, n) for n in shape), np.zeros(3, int)
+    items = tuple(subvolume)
+    if len(items) != 3:
+        raise InputError(f"subvolume: expected three (start, stop) pairs or slices, got {len(items)}")
+    slices, starts = [], []
+    for axis, (item, n) in enumerate(zip(items, shape)):
+        if isinstance(item, slice):
+            if item.step not in (None, 1):
+                raise InputError(f"subvolume: axis {axis} slice has step {item.step}; only "
+                                 "contiguous ranges keep the cell size")
+            start, stop, _ = item.indices(n)
+        else:
+            try:
+                start, stop = (int(v) for v in item)
+            except (TypeError, ValueError):
+                raise InputError(f"subvolume: axis {axis} expected a (start, stop) pair or a slice, "
+                                 f"got {item!r}") from None
+            if not (0 <= start and stop <= n):
+                raise InputError(f"subvolume: axis {axis} range ({start}, {stop}) lies outside "
+                                 f"the grid's 0..{n}")
+        if stop <= start:
+            raise InputError(f"subvolume: axis {axis} range ({start}, {stop}) is empty")
+        slices.append(slice(start, stop))
+        starts.append(start)
+    return tuple(slices), np.asarray(starts)
+
+
+def _root_length(handle, key, unit_keys, path):
+    """Root attribute ``key`` as a length Quantity, its unit from the first of ``unit_keys``."""
+    value = np.asarray(handle.attrs[key])
+    if value.dtype.kind not in "fiu" or value.size not in (1, 3):
+        raise InputError(f"{key}: root attribute of '{path}' must be 1 or 3 numbers, got {value!r}")
+    for unit_key in unit_keys:
+        if unit_key in handle.attrs:
+            raw = handle.attrs[unit_key]
+            text = _text(raw)
+            if text is None:
+                raise InputError(f"{key}: root attribute '{unit_key}' of '{path}' must be a unit "
+                                 f"string such as 'cm' or 'pc', got {raw!r}")
+            try:
+                unit = u.Unit(text)
+            except ValueError as exc:
+                raise InputError(f"{key}: root attribute '{unit_key}' = {text!r} of '{path}' "
+                                 f"cannot be parsed: {exc}") from None
+            if not unit.is_equivalent(u.cm):
+                raise InputError(f"{key}: root attribute '{unit_key}' = {text!r} of '{path}' "
+                                 "is not a length")
+            return u.Quantity(value.astype(float).reshape(-1) if value.size == 3
+                              else float(value.reshape(-1)[0]), unit)
+    raise InputError(f"{key}: root attribute '{key}' of '{path}' has no unit; add one of the "
+                     f"root attributes {', '.join(repr(k) for k in unit_keys)} or pass {key} "
+                     "as a Quantity")
+
+
+def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, density=None,
+              ionization=None, composition=None, helium=None, cell_size=None, origin=None,
+              units=None, subvolume=None, dtype=np.float32):
+    """Read a snapshot on a regular grid from an HDF5 file.
+
+    Give either ``electron_density`` (and optionally ``ion_density``) or the
+    mass ``density`` with an ``ionization`` model, as for
+    :meth:`rtrace.Snapshot.from_arrays`, which validates the values.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The HDF5 file.
+    temperature : str
+        Name of the electron-temperature dataset (any temperature unit).
+    electron_density, ion_density, density : str, optional
+        Names of the electron density, ion term ``sum_i Z_i^2 n_i`` (number
+        densities) and mass density datasets.
+    ionization : str or IonizationModel, optional
+        ``"full"``, ``"threshold"``, ``"saha"`` or a model, used with
+        ``density``. Any other string names a dataset holding the hydrogen
+        ionized fraction; a ``SuppliedFraction`` with a field name reads that
+        dataset too. A fraction needs no unit (it must be dimensionless if
+        it has one).
+    composition, helium
+        Passed to the ionization model.
+    cell_size : `~astropy.units.Quantity`, optional
+        Cell size (scalar or per axis). Default: root attribute
+        ``cell_size`` with its unit from ``cell_size_units`` or
+        ``length_unit``.
+    origin : `~astropy.units.Quantity` (3,), optional
+        Lower corner of the whole grid in the file. Default: root attribute
+        ``origin`` (unit from ``origin_units``, ``length_unit`` or
+        ``cell_size_units``), else zeros.
+    units : dict of str to str or `~astropy.units.Unit`, optional
+        Unit per dataset name; overrides the dataset's ``"units"`` attribute.
+    subvolume : sequence of three (start, stop) pairs or slices, optional
+        Cell-index range to read on each axis; only that part is read from
+        disk, and the origin moves to the lower corner of the first cell read.
+    dtype : numpy dtype, optional
+        float32 (default) or float64 storage.
+
+    Returns
+    -------
+    `~rtrace.Snapshot`
+        With provenance source ``"hdf5:<path>"`` (plus the sub-volume).
+
+    Raises
+    ------
+    InputError
+        Missing file or dataset (the message lists the file's datasets),
+        non-numeric or non-3D dataset, shapes that differ, missing or
+        unparseable units, missing geometry, bad sub-volume; and every
+        value check of :meth:`~rtrace.Snapshot.from_arrays`.
+    """
+    path = os.fspath(path)
+    if not os.path.isfile(path):
+        raise InputError(f"path: HDF5 file '{path}' not found")
+    units = {} if units is None else dict(units)
+    try:
+        dtype = np.dtype(dtype)
+    except TypeError:
+        raise InputError(f"dtype: not a numpy dtype: {dtype!r}") from None
+    if dtype not in (np.float32, np.float64):
+        raise InputError(f"dtype: must be float32 or float64, got {dtype}")
+
+    wanted = {"temperature": temperature, "electron_density": electron_density,
+              "ion_density": ion_density, "density": density}
+    from ..physics.ionization import SuppliedFraction
+    fraction_name = None
+    model = ionization
+    if isinstance(ionization, str) and ionization.strip().lower() not in _MODEL_NAMES:
+        fraction_name, model = ionization, None
+    elif isinstance(ionization, SuppliedFraction) and ionization.field_name is not None:
+        fraction_name = ionization.field_name
+    if fraction_name is not None:
+        wanted["ionization"] = fraction_name
+    wanted = {param: name for param, name in wanted.items() if name is not None}
+    for param, name in wanted.items():
+        if not isinstance(name, str):
+            raise InputError(f"{param}: expected a dataset name (str), got {type(name).__name__}")
+    unknown = sorted(set(units) - set(wanted.values()))
+    if unknown:
+        raise InputError(f"units: {', '.join(repr(k) for k in unknown)} name(s) no dataset being "
+                         f"read (datasets read: {', '.join(repr(v) for v in wanted.values())})")
+
+    try:
+        handle = h5py.File(path, "r")
+    except OSError as exc:
+        raise InputError(f"path: '{path}' cannot be opened as an HDF5 file ({exc})") from None
+    with handle:
+        datasets = {param: _dataset(handle, name, param, path) for param, name in wanted.items()}
+        shape = datasets["temperature"].shape
+        for param, ds in datasets.items():
+            if ds.shape != shape:
+                raise InputError(f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
+                                 f"temperature '{temperature}' has shape {shape}")
+        field_units = {param: _unit(ds, wanted[param], param, units, required=param != "ionization")
+                       for param, ds in datasets.items()}
+        if cell_size is None:
+            if "cell_size" not in handle.attrs:
+                raise InputError(f"cell_size: not given and '{path}' has no root attribute "
+                                 "'cell_size'")
+            cell_size = _root_length(handle, "cell_size", ("cell_size_units", "length_unit"), path)
+        if origin is None and "origin" in handle.attrs:
+            origin = _root_length(handle, "origin", ("origin_units", "length_unit",
+                                                     "cell_size_units"), path)
+        slices, starts = _subvolume(subvolume, shape)
+        # Geometry is checked before any data is read: a mistake costs no I/O.
+        cell = u.Quantity(cell_size)
+        if not cell.unit.is_equivalent(u.cm):
+            raise InputError(f"cell_size: expected a length, got unit '{cell.unit}'")
+        if cell.size not in (1, 3):
+            raise InputError(f"cell_size: expected a scalar or a 3-vector, got shape {cell.shape}")
+        if origin is None:
+            origin = np.zeros(3) * u.cm
+        origin = u.Quantity(origin)
+        if not origin.unit.is_equivalent(u.cm):
+            raise InputError(f"origin: expected a length, got unit '{origin.unit}'")
+        if subvolume is not None:
+            # The origin is the lower corner of cell (0, 0, 0) of the part read.
+            origin = origin + starts * (cell.to(u.cm) * np.ones(3))
+        # The mass density (and, with it, the temperature) goes through the
+        # ionization model in float64; everything else is stored as dtype.
+        wide = density is not None
+        arrays = {}
+        for param, ds in datasets.items():
+            read_type = np.float64 if wide and param in ("temperature", "density", "ionization") \
+                else dtype
+            # h5py reads only the hyperslab and converts the type while reading.
+            arrays[param] = u.Quantity(ds.astype(read_type)[slices], field_units[param], copy=False)
+
+    source = f"hdf5:{path}"
+    if subvolume is not None:
+        source += " subvolume=[" + ", ".join(f"{s.start}:{s.stop}" for s in slices) + "]"
+    fields = None
+    if fraction_name is not None:
+        fraction = arrays.pop("ionization").to_value(u.dimensionless_unscaled)
+        if model is None:
+            model = fraction
+        else:
+            fields = {fraction_name: fraction}
+    return Snapshot.from_arrays(
+        temperature=arrays["temperature"], cell_size=cell,
+        electron_density=arrays.get("electron_density"), ion_density=arrays.get("ion_density"),
+        density=arrays.get("density"), ionization=model, composition=composition, helium=helium,
+        origin=origin, fields=fields, dtype=dtype, source=source)

@@ -1,0 +1,351 @@
+"""Figures: files written atomically, sky orientation, beam position angle, scale bar, errors."""
+
+import math
+import types
+
+import astropy.units as u
+import matplotlib
+import numpy as np
+import pytest
+from matplotlib import colors
+from matplotlib.patches import Ellipse
+from radio_beam import Beam
+
+matplotlib.use("Agg")              # no display in tests
+
+import rtrace                      # noqa: E402
+from rtrace import demo, plot      # noqa: E402
+from rtrace.analysis import sed, spectral_index   # noqa: E402
+from rtrace.errors import InputError   # noqa: E402
+
+NX = NY = 48
+DISTANCE = 2 * u.kpc
+
+
+@pytest.fixture(scope="module")
+def tiny():
+    return rtrace.trace(demo.scenario(32), rtrace.View(npix=NX, distance=DISTANCE), [0.3, 1, 3, 10, 30] * u.GHz)
+
+
+def standin_skymap(res, pa=45 * u.deg, noise=None):
+    """A SkyMap look-alike: the Result's intensity times the beam solid angle (Jy/beam), unconvolved."""
+    beams = [Beam(major=24 * u.arcsec, minor=12 * u.arcsec, pa=pa) for _ in res.frequencies]
+    data = np.stack([res.intensity.value[i] * 1e23 * b.sr.to_value(u.sr) for i, b in enumerate(beams)])
+    data = data * u.Jy / u.beam
+
+    def brightness_temperature(kind="rayleigh-jeans"):
+        # Rayleigh-Jeans T = c^2 S / (2 k nu^2 Omega) via astropy's equivalency
+        return u.Quantity([data[i].to(u.K, equivalencies=u.brightness_temperature(nu, beam_area=b.sr))
+                           for i, (nu, b) in enumerate(zip(res.frequencies, beams))])
+
+    return types.SimpleNamespace(data=data, model=data, beam=beams[0], beams=beams, frequencies=res.frequencies,
+                                 pixel_scale=res.pixel_scale, pixel_size=res.pixel_size, distance=res.view.distance,
+                                 noise_rms=noise, result=res, brightness_temperature=brightness_temperature)
+
+
+def the_image(ax):
+    (image,) = ax.get_images()
+    return image
+
+
+def by_gid(artists, gid):
+    found = [a for a in artists if a.get_gid() == gid]
+    assert len(found) == 1, f"expected one artist with gid {gid!r}, got {len(found)}"
+    return found[0]
+
+
+def assert_written(path, magic):
+    data = path.read_bytes()
+    assert data.startswith(magic) and len(data) > 1000
+    # atomic: only the finished file, no temporary left beside it
+    assert [p.name for p in path.parent.iterdir() if p.name.startswith(".")] == []
+
+
+# --- files -------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("quantity, frequency", [
+    ("intensity", None), ("tau", 1 * u.GHz), ("emission_measure", None),
+    ("brightness_temperature", 2), ("spectral_index", (1 * u.GHz, 3 * u.GHz)),
+])
+def test_plot_map_writes_png_for_every_quantity(tiny, tmp_path, quantity, frequency):
+    path = tmp_path / f"{quantity}.png"
+    fig = plot.plot_map(tiny, quantity, frequency, path=path)
+    assert isinstance(fig, matplotlib.figure.Figure)
+    assert_written(path, b"\x89PNG")     # PNG signature (PNG specification)
+
+
+def test_every_function_writes_pdf(tiny, tmp_path):
+    plot.plot_map(standin_skymap(tiny), path=tmp_path / "map.pdf", contours=3)
+    plot.plot_panels(tiny, "tau", [0, 2, 4], path=tmp_path / "panels.pdf", stretch="log")
+    plot.plot_sed(*sed(tiny), path=tmp_path / "sed.pdf")
+    for name in ("map.pdf", "panels.pdf", "sed.pdf"):
+        assert_written(tmp_path / name, b"%PDF")     # PDF header (ISO 32000)
+    plot.plot_panels(standin_skymap(tiny), path=tmp_path / "sky_panels")    # no suffix: PNG
+    assert_written(tmp_path / "sky_panels", b"\x89PNG")
+    plot.plot_sed(*sed(tiny), path=tmp_path / "sed.png")
+    assert_written(tmp_path / "sed.png", b"\x89PNG")
+
+
+def test_unknown_format_is_refused_before_writing(tiny, tmp_path):
+    with pytest.raises(InputError, match="path"):
+        plot.plot_map(tiny, path=tmp_path / "map.xyz")
+    assert list(tmp_path.iterdir()) == []
+
+
+# --- orientation, beam, scale bar ------------------------------------------------------------
+
+def test_east_is_left(tiny):
+    fig = plot.plot_map(tiny, "tau")
+    ax = fig.axes[0]
+    half = NX / 2 * tiny.pixel_scale.to_value(u.arcsec)
+    left, right = ax.get_xlim()
+    assert left > right                                        # east offsets grow to the left
+    assert np.allclose((left, right), (half, -half))
+    assert np.allclose(ax.get_ylim(), (-half, half))           # north up
+    # column 0 is the most easterly: offset_x = -(col + 0.5 - nx/2) * scale (the View's convention)
+    image = the_image(ax)
+    assert image.origin == "lower"
+    assert np.allclose(image.get_extent(), (half, -half, -half, half))
+    assert "east" in ax.get_xlabel() and "arcsec" in ax.get_xlabel()
+
+
+@pytest.mark.parametrize("pa_deg", [0.0, 45.0, 90.0, 130.0, -30.0])
+def test_beam_ellipse_follows_the_position_angle(tiny, pa_deg):
+    fig = plot.plot_map(standin_skymap(tiny, pa=pa_deg * u.deg))
+    fig.draw_without_rendering()
+    ax = fig.axes[0]
+    beam = by_gid(ax.patches, "beam")
+    assert isinstance(beam, Ellipse)
+    assert math.isclose(beam.height, 24.0) and math.isclose(beam.width, 12.0)   # FWHM in arcsec
+    assert math.isclose(beam.angle, -pa_deg)
+    # On screen the major axis must point north through east, east being left: (-sin PA, cos PA)
+    # (position angle convention, common practice in radio astronomy).
+    centre, tip = ax.transData.transform([beam.center, beam.get_patch_transform().transform((0.0, 1.0))])
+    direction = (tip - centre) / np.hypot(*(tip - centre))
+    pa = math.radians(pa_deg)
+    assert np.allclose(direction * np.sign(direction @ [-math.sin(pa), math.cos(pa)]),
+                       [-math.sin(pa), math.cos(pa)], atol=1e-6)
+    # lower-left corner
+    left, right = ax.get_xlim()
+    bottom, top = ax.get_ylim()
+    assert beam.center[0] > 0.5 * left and beam.center[1] < 0.5 * bottom
+
+
+def test_pa_45_points_up_left_on_screen(tiny):
+    fig = plot.plot_map(standin_skymap(tiny, pa=45 * u.deg))
+    fig.draw_without_rendering()
+    ax = fig.axes[0]
+    beam = by_gid(ax.patches, "beam")
+    centre, tip = ax.transData.transform([beam.center, beam.get_patch_transform().transform((0.0, 1.0))])
+    dx, dy = tip - centre
+    assert dx * dy < 0 and math.isclose(abs(dx), abs(dy), rel_tol=1e-6)   # the major axis runs up-left
+
+
+def test_result_maps_have_no_beam(tiny):
+    ax = plot.plot_map(tiny).axes[0]
+    assert [p for p in ax.patches if p.get_gid() == "beam"] == []
+
+
+def test_automatic_scale_bar_length(tiny):
+    ax = plot.plot_map(tiny).axes[0]
+    bar = by_gid(ax.lines, "scale_bar")
+    label = by_gid(ax.texts, "scale_bar_label").get_text()
+    value, unit = label.split()
+    length = float(value) * u.Unit(unit)
+    x = bar.get_xdata()
+    expected = (length / DISTANCE).decompose().value * u.rad
+    assert math.isclose(abs(x[0] - x[1]), expected.to_value(u.arcsec), rel_tol=1e-12)
+    # about a fifth of the 2 pc field, from the 1-2-5 sequence
+    field = NX * tiny.pixel_size
+    assert 0.6 < (length / (field / 5)).decompose() < 1.6
+    mantissa = float(value) / 10 ** math.floor(math.log10(float(value)))
+    assert round(mantissa, 9) in (1, 2, 5)
+    # in the lower right (west, south)
+    assert np.all(x < 0) and np.all(bar.get_ydata() < 0)
+
+
+def test_given_scale_bar_length(tiny):
+    ax = plot.plot_map(tiny, scale_bar=1000 * u.AU).axes[0]
+    x = by_gid(ax.lines, "scale_bar").get_xdata()
+    # 1 AU at 1 pc subtends 1 arcsec (definition of the parsec): 1000 AU at 2000 pc is 0.5 arcsec
+    assert math.isclose(abs(x[0] - x[1]), 0.5, rel_tol=1e-9)
+    assert by_gid(ax.texts, "scale_bar_label").get_text() == "1000 AU"
+    ax = plot.plot_map(tiny, scale_bar=False).axes[0]
+    assert [line for line in ax.lines if line.get_gid() == "scale_bar"] == []
+    with pytest.raises(InputError, match="scale_bar"):
+        plot.plot_map(tiny, scale_bar=3 * u.s)
+
+
+@pytest.mark.parametrize("field, expected", [
+    (100 * u.AU, 20 * u.AU), (0.01 * u.pc, 500 * u.AU), (1 * u.pc, 0.2 * u.pc), (3 * u.pc, 0.5 * u.pc),
+    (10 * u.kpc, 2 * u.kpc),
+])
+def test_choose_scale_bar(field, expected):
+    # ~1/5 of the field rounded to the nearest of 1, 2, 5 x 10^k (common practice)
+    got = plot.choose_scale_bar(field)
+    assert got.unit == expected.unit and math.isclose(got.value, expected.value)
+
+
+# --- quantities, units, stretches --------------------------------------------------------------
+
+def test_intensity_units_and_prefix(tiny):
+    fig = plot.plot_map(tiny, frequency=0.3 * u.GHz)
+    image = the_image(fig.axes[0])
+    label = fig.axes[1].get_ylabel()
+    # peak Jy/pixel: I * Omega_pix (erg s-1 cm-2 Hz-1 -> Jy is x 1e23)
+    peak_jy = (tiny.intensity.value[0] * tiny.pixel_solid_angle.to_value(u.sr) * 1e23).max()
+    assert 1e-3 <= peak_jy < 1                           # so mJy is the sensible prefix
+    assert "mJy pixel" in label
+    assert math.isclose(np.nanmax(image.get_array()), peak_jy * 1e3, rel_tol=1e-12)
+    sky_label = plot.plot_map(standin_skymap(tiny), frequency=1).axes[1].get_ylabel()
+    assert "Jy beam" in sky_label
+
+
+@pytest.mark.parametrize("stretch, norm_class", [
+    ("linear", colors.Normalize), ("log", colors.LogNorm), ("asinh", colors.AsinhNorm),
+])
+def test_stretches(tiny, stretch, norm_class):
+    norm = the_image(plot.plot_map(tiny, "emission_measure", stretch=stretch).axes[0]).norm
+    assert type(norm) is norm_class
+
+
+def test_spectral_index_map_is_diverging_around_the_thin_value(tiny):
+    fig = plot.plot_map(tiny, "spectral_index", (1 * u.GHz, 3 * u.GHz))
+    image = the_image(fig.axes[0])
+    # thin free-free alpha = -0.1 sits at the centre of the colour map (Condon & Ransom 2016, from memory)
+    assert isinstance(image.norm, colors.TwoSlopeNorm) and image.norm.vcenter == -0.1
+    assert image.norm.vmin < -0.1 and image.norm.vmax >= 2.0       # covers thin to thick (+2)
+    assert image.get_cmap().name.startswith("RdBu")
+
+
+def test_contours(tiny):
+    ax = plot.plot_map(tiny, contours=4).axes[0]
+    cs = by_gid(ax.collections, "contours")
+    norm = the_image(ax).norm
+    assert len(cs.levels) == 4 and np.all(np.diff(cs.levels) > 0)
+    assert norm.vmin < cs.levels[0] and cs.levels[-1] < norm.vmax
+    # evenly spaced in the stretch
+    assert np.allclose(np.diff(norm(cs.levels)), 0.2)
+    # values in the plotted unit, or Quantities converted to it (the 0.3 GHz map is in mJy/pixel)
+    for levels in ([1.0, 5.0], [1, 5] * u.mJy, [0.001, 0.005] * u.Jy / u.pix):
+        cs = by_gid(plot.plot_map(tiny, contours=levels).axes[0].collections, "contours")
+        assert np.allclose(cs.levels, [1.0, 5.0])
+    for bad in (0, [np.nan], [1, 2] * u.K, "many"):
+        with pytest.raises(InputError, match="contours"):
+            plot.plot_map(tiny, contours=bad)
+
+
+@pytest.mark.parametrize("kwargs, name", [
+    (dict(quantity="flux"), "quantity"),
+    (dict(quantity="Tau"), "quantity"),
+    (dict(stretch="sqrt"), "stretch"),
+    (dict(quantity="spectral_index"), "frequency"),
+    (dict(quantity="spectral_index", frequency=1 * u.GHz), "frequency"),
+    (dict(frequency=2 * u.GHz), "frequency"),
+    (dict(frequency=9), "frequency"),
+    (dict(cmap="no-such-map"), "cmap"),
+])
+def test_bad_arguments_raise(tiny, kwargs, name):
+    with pytest.raises(InputError, match=name):
+        plot.plot_map(tiny, **kwargs)
+
+
+def test_bad_quantity_in_panels_and_bad_object():
+    with pytest.raises(InputError, match="obj"):
+        plot.plot_map(np.zeros((2, 3, 3)))
+    with pytest.raises(InputError, match="obj"):
+        plot.plot_panels(object(), "intensity")
+
+
+# --- panels ------------------------------------------------------------------------------------
+
+def image_axes(fig):
+    return [ax for ax in fig.axes if ax.get_images()]
+
+
+def test_panels_shared_and_separate_scales(tiny):
+    fig = plot.plot_panels(tiny)
+    axes = image_axes(fig)
+    assert len(axes) == 5
+    norms = {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in axes}
+    assert len(norms) == 1                                   # one colour scale
+    assert len(fig.axes) == 6                                # five maps and one colour bar
+    assert [ax.get_title() for ax in axes] == ["300 MHz", "1 GHz", "3 GHz", "10 GHz", "30 GHz"]
+    for ax in axes:
+        assert ax.get_xlim()[0] > ax.get_xlim()[1]
+    fig = plot.plot_panels(tiny, "tau", shared_scale=False)
+    axes = image_axes(fig)
+    assert len({the_image(ax).norm.vmax for ax in axes}) == 5
+    assert len(fig.axes) == 10                               # a colour bar per map
+
+
+def test_spectral_index_panels_take_consecutive_pairs(tiny):
+    fig = plot.plot_panels(standin_skymap(tiny), "spectral_index", [0.3, 1, 3] * u.GHz)
+    titles = [ax.get_title() for ax in image_axes(fig)]
+    assert titles == ["300 MHz \N{EN DASH} 1 GHz", "1 GHz \N{EN DASH} 3 GHz"]
+    # one beam per panel, none of the pixels outside the map
+    for ax in image_axes(fig):
+        by_gid(ax.patches, "beam")
+
+
+# --- SED -------------------------------------------------------------------------------------
+
+def test_plot_sed_is_log_log_with_index_labels(tiny):
+    nu, flux = sed(tiny)
+    fig = plot.plot_sed(nu, flux, label="demo")
+    ax = fig.axes[0]
+    assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
+    (line,) = ax.lines
+    assert np.allclose(line.get_xdata(), nu.to_value(u.GHz))
+    labels = [t.get_text() for t in ax.texts if t.get_gid() == "spectral_index"]
+    expected = [f"{a:+.2f}".replace("-", "\N{MINUS SIGN}") for a in spectral_index(nu, flux)]
+    assert len(labels) == 4 and all(e in lab for e, lab in zip(expected, labels))
+    assert ax.get_legend() is not None
+    bare = plot.plot_sed(nu, flux, annotate_index=False).axes[0]
+    assert [t for t in bare.texts if t.get_gid() == "spectral_index"] == []
+    with pytest.raises(InputError, match="flux"):
+        plot.plot_sed(nu, -flux)
+    with pytest.raises(InputError, match="flux"):
+        plot.plot_sed(nu, flux.value * u.K)
+
+
+def test_observed_skymap_noise_contours_and_delegated_quantities(tiny):
+    from rtrace.observe import observe
+    rms = 2e-3
+    sky = observe(tiny, Beam(major=20 * u.arcsec, minor=10 * u.arcsec, pa=60 * u.deg), noise=rms * u.Jy / u.beam,
+                  seed=5)
+    ax = plot.plot_map(sky, frequency=1 * u.GHz, contours=3).axes[0]
+    levels = by_gid(ax.collections, "contours").levels
+    # lowest contour at 3 rms (common practice for radio maps); the map is in mJy/beam here
+    assert "mJy beam" in ax.figure.axes[1].get_ylabel()
+    assert math.isclose(levels[0], 3 * rms * 1e3, rel_tol=1e-9) and len(levels) == 3
+    assert math.isclose(by_gid(ax.patches, "beam").angle, -60.0)
+    # optical depth is not observed: it comes from the Result behind the map, drawn without a beam
+    ax = plot.plot_map(sky, "tau").axes[0]
+    assert np.array_equal(the_image(ax).get_array().data, tiny.tau[0])
+    assert [p for p in ax.patches if p.get_gid() == "beam"] == []
+    tb = the_image(plot.plot_map(sky, "brightness_temperature", 1).axes[0]).get_array()
+    assert np.allclose(tb, sky.brightness_temperature("rayleigh-jeans")[1].to_value(u.K))
+
+
+def test_drawing_into_given_axes(tiny):
+    fig = matplotlib.figure.Figure(figsize=(9, 4), layout="constrained")
+    left, right = fig.subplots(1, 2)
+    assert plot.plot_map(tiny, "emission_measure", ax=left) is fig
+    assert plot.plot_sed(*sed(tiny), ax=right) is fig
+    assert left.get_images() and right.get_xscale() == "log"
+    assert len(fig.axes) == 3                                # two panels and the map's colour bar
+
+
+def test_shared_scale_uses_one_unit_across_panels():
+    # A shared colour scale must express every panel in the same unit (regression: per-panel SI prefixes).
+    import astropy.units as u
+    import rtrace
+    from rtrace import demo
+    from rtrace.plot import _common_prefix, _plane
+    res = rtrace.trace(demo.scenario(24), rtrace.View(npix=32, distance=2 * u.kpc), [0.3, 30] * u.GHz)
+    planes = _common_prefix([_plane(res, "intensity", k) for k in range(2)])
+    assert planes[0].unit == planes[1].unit
+    jy = [p.values * u.Quantity(p.unit).to_value(u.Jy / u.pix) for p in planes]
+    flux = res.flux_density().to_value(u.Jy)
+    assert np.allclose([j.sum() for j in jy], flux, rtol=1e-6)

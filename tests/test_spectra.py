@@ -1,0 +1,325 @@
+"""SEDs, spectral indices and the tau = 1 frequency against analytic free-free spectra."""
+
+import math
+import types
+
+import astropy.units as u
+import numpy as np
+import pytest
+from radio_beam import Beam
+from scipy.optimize import brentq
+
+import rtrace
+from rtrace import demo
+from rtrace.analysis import (aperture_mask, sed, sed_metadata, spectral_index, spectral_index_map,
+                             tau_unity_frequency, write_sed_csv)
+from rtrace.errors import InputError
+from rtrace.physics import absorption_coefficient, planck
+
+from conftest import uniform_snapshot
+
+T_SLAB = 8000.0          # K
+NE_SLAB = 2000.0         # cm-3
+CELL_PC = 0.01
+N_ALONG = 40             # cells along the line of sight
+L_SLAB = N_ALONG * CELL_PC * u.pc
+
+
+@pytest.fixture(scope="module")
+def tiny():
+    return rtrace.trace(demo.scenario(32), rtrace.View(npix=48, distance=2 * u.kpc), [0.3, 1, 3, 10, 30] * u.GHz)
+
+
+def trace_slab(freqs, ne=NE_SLAB):
+    snap = uniform_snapshot((4, 4, N_ALONG), T_SLAB, ne, cell_pc=CELL_PC)
+    view = rtrace.View(npix=4, width=4 * CELL_PC * u.pc, distance=1 * u.kpc)
+    return rtrace.trace(snap, view, freqs)
+
+
+def slab_tau(nu_hz, ne=NE_SLAB, length=L_SLAB):
+    # tau = alpha_nu L for a uniform slab (Rybicki & Lightman 1979, eq. 1.30 setting)
+    return float((absorption_coefficient(nu_hz * u.Hz, T_SLAB * u.K, ne * u.cm**-3) * length).decompose())
+
+
+def slab_intensity(nu_hz, ne=NE_SLAB):
+    # I = B_nu(T) (1 - e^-tau) (Rybicki & Lightman 1979, eq. 1.30)
+    return float(planck(nu_hz * u.Hz, T_SLAB * u.K).value) * -math.expm1(-slab_tau(nu_hz, ne))
+
+
+# --- SED -------------------------------------------------------------------------------------
+
+def test_sed_of_whole_image_equals_flux_density(tiny):
+    nu, flux = sed(tiny)
+    assert nu.unit == u.Hz and flux.unit == u.Jy
+    assert np.allclose(nu.value, tiny.frequencies.to_value(u.Hz), rtol=0)
+    assert np.allclose(flux.value, tiny.flux_density().to_value(u.Jy), rtol=1e-12, atol=0)
+
+
+def test_circle_aperture_counts_pixel_centres_inside(tiny):
+    # Pixel (row, col) centred at (col, row); a brute-force loop is the reference.
+    col0, row0, radius = 20.3, 25.7, 9.5
+    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23     # Jy (1 Jy = 1e-23 cgs)
+    expected = np.zeros(len(tiny.frequencies))
+    count = 0
+    for row in range(48):
+        for col in range(48):
+            if (col - col0) ** 2 + (row - row0) ** 2 <= radius**2:
+                expected += per_pixel[:, row, col]
+                count += 1
+    _, flux = sed(tiny, (col0, row0, radius))
+    assert np.allclose(flux.value, expected, rtol=1e-12)
+    assert aperture_mask((48, 48), (col0, row0, radius)).sum() == count
+    # radius 1 around a pixel centre takes it and its four neighbours (hand count)
+    assert aperture_mask((48, 48), (2, 3, 1.0)).sum() == 5
+
+
+def test_mask_aperture_and_its_complement_add_up(tiny):
+    rows, cols = np.mgrid[0:48, 0:48]
+    mask = cols < 20
+    _, inside = sed(tiny, mask)
+    _, outside = sed(tiny, ~mask)
+    _, whole = sed(tiny)
+    assert np.allclose(inside.value + outside.value, whole.value, rtol=1e-12)
+    assert np.all(inside.value > 0) and np.all(outside.value > 0)
+    # a list of lists works like the array
+    _, listed = sed(tiny, mask.tolist())
+    assert np.array_equal(listed.value, inside.value)
+
+
+@pytest.mark.parametrize("aperture, words", [
+    (np.ones((47, 48), bool), "shape"),
+    (np.ones((48, 48), int), "boolean"),
+    (np.zeros((48, 48), bool), "selects none"),
+    ((10, 10, 0), "radius"),
+    ((10, 10, -2), "radius"),
+    ((500, 500, 3), "selects none"),
+    ((10, 10), "three"),
+    ((10, np.nan, 3), "three"),
+    ("centre", "aperture"),
+])
+def test_bad_apertures_raise(tiny, aperture, words):
+    with pytest.raises(InputError, match="aperture") as info:
+        sed(tiny, aperture)
+    assert words in str(info.value)
+
+
+def skymap_standin(res, beams, noise=None, model=None):
+    """A SkyMap look-alike: the Result's intensity times each beam's solid angle, in Jy/beam, unconvolved."""
+    jy_per_sr = res.intensity.value * 1e23            # 1 Jy = 1e-23 erg s-1 cm-2 Hz-1 (definition)
+    data = np.stack([jy_per_sr[i] * b.sr.to_value(u.sr) for i, b in enumerate(beams)]) * u.Jy / u.beam
+    return types.SimpleNamespace(
+        data=data, model=data if model is None else model, beam=beams[0], beams=beams,
+        frequencies=res.frequencies, pixel_scale=res.pixel_scale, pixel_size=res.pixel_size,
+        distance=res.view.distance, noise_rms=noise, result=res)
+
+
+def test_skymap_sed_converts_with_the_beam_area(tiny):
+    beams = [Beam(major=(20 / f) * u.arcsec, minor=(12 / f) * u.arcsec, pa=30 * u.deg)
+             for f in (0.3, 1, 3, 10, 30)]
+    # The Gaussian beam solid angle pi theta_maj theta_min / (4 ln 2) (Condon & Ransom 2016, from memory)
+    omega = math.pi * (20 * u.arcsec) * (12 * u.arcsec) / (4 * math.log(2))
+    assert math.isclose(beams[1].sr.to_value(u.sr), omega.to_value(u.sr), rel_tol=1e-10)
+    sky = skymap_standin(tiny, beams)
+    _, flux = sed(sky)
+    assert np.allclose(flux.value, tiny.flux_density().to_value(u.Jy), rtol=1e-10)
+    _, part = sed(sky, (24, 24, 10))
+    _, part_res = sed(tiny, (24, 24, 10))
+    assert np.allclose(part.value, part_res.value, rtol=1e-10)
+
+
+def test_sed_of_an_observed_skymap_matches_its_flux_density(tiny):
+    from rtrace.observe import observe
+    sky = observe(tiny, Beam(major=15 * u.arcsec, minor=10 * u.arcsec, pa=20 * u.deg), noise=1 * u.mJy / u.beam,
+                  seed=3)
+    _, flux = sed(sky)
+    assert np.allclose(flux.to_value(u.Jy), sky.flux_density().to_value(u.Jy), rtol=1e-10)
+
+
+# --- spectral indices --------------------------------------------------------------------------
+
+def test_spectral_index_of_a_power_law():
+    nu = [1, 2, 8, 10] * u.GHz
+    flux = 3.0 * (nu / u.GHz).value ** 1.3 * u.mJy
+    assert np.allclose(spectral_index(nu, flux), 1.3, rtol=1e-12)
+    # the same spectrum given in wavelength (c / nu) has the same index
+    assert np.allclose(spectral_index(nu.to(u.cm, equivalencies=u.spectral()), flux), 1.3, rtol=1e-10)
+    with_zero = spectral_index([1, 2, 4] * u.GHz, [1.0, 0.0, 2.0] * u.Jy)
+    assert np.all(np.isnan(with_zero))
+    with pytest.raises(InputError, match="flux"):
+        spectral_index([1, 2] * u.GHz, [1, 2, 3] * u.Jy)
+    with pytest.raises(InputError, match="frequencies"):
+        spectral_index([1, 2] * u.kg, [1, 2] * u.Jy)
+
+
+def test_uniform_slab_thick_and_thin_indices():
+    freqs = np.array([0.01, 0.0105, 20.0, 30.0]) * 1e9
+    res = trace_slab(freqs * u.Hz)
+    assert res.tau[0].min() > 100 and res.tau[-1].max() < 1e-2        # really thick / really thin
+    alpha = spectral_index(*sed(res))
+    # Rayleigh-Jeans thick limit S ~ nu^2 (Rybicki & Lightman 1979, eq. 1.54)
+    assert abs(alpha[0] - 2.0) < 1e-3
+    # thin free-free alpha ~ -0.1 (Condon & Ransom 2016, from memory): the Gaunt factor's slow fall
+    assert -0.2 < alpha[2] < -0.05
+    # and exactly the index of B_nu(T)(1 - e^-tau) with tau from the absorption coefficient
+    exact = [math.log(slab_intensity(b) / slab_intensity(a)) / math.log(b / a)
+             for a, b in zip(freqs[:-1], freqs[1:])]
+    assert np.allclose(alpha, exact, rtol=1e-6, atol=1e-8)
+
+
+def test_spectral_index_map_of_a_slab_matches_the_sed_index():
+    res = trace_slab([0.5, 1, 3] * u.GHz)
+    amap = spectral_index_map(res, 1 * u.GHz, 3 * u.GHz)
+    expected = spectral_index(*sed(res))[1]
+    assert amap.shape == (4, 4)
+    assert np.allclose(amap, expected, rtol=1e-10)
+    # planes found within 1 % of the request, or by index
+    assert np.array_equal(spectral_index_map(res, 1.005 * u.GHz, 2.98 * u.GHz), amap)
+    assert np.array_equal(spectral_index_map(res, 1, 2), amap)
+    for nu1, nu2, name in ((1.02 * u.GHz, 3 * u.GHz, "nu1"), (1 * u.GHz, 5 * u.GHz, "nu2"),
+                           (1 * u.GHz, 1 * u.GHz, "nu2"), (1 * u.kg, 3 * u.GHz, "nu1"), (0, 7, "nu2")):
+        with pytest.raises(InputError, match=name):
+            spectral_index_map(res, nu1, nu2)
+
+
+def test_spectral_index_map_is_nan_where_there_is_no_emission(tiny):
+    amap = spectral_index_map(tiny, 10 * u.GHz, 30 * u.GHz)
+    i = tiny.intensity.value
+    empty = (i[3] <= 0) | (i[4] <= 0)
+    assert empty.any() and (~empty).any()
+    assert np.array_equal(np.isnan(amap), empty)
+    # by hand on the emitting pixels: alpha = ln(I2/I1) / ln(nu2/nu1)
+    assert np.allclose(amap[~empty], np.log(i[4][~empty] / i[3][~empty]) / math.log(3.0), rtol=1e-12)
+
+
+def test_spectral_index_map_snr_cut_uses_model_over_noise(tiny):
+    beams = [Beam(major=10 * u.arcsec, minor=10 * u.arcsec, pa=0 * u.deg)] * 5
+    clean = skymap_standin(tiny, beams)
+    noise = np.array([1e-3, 5e-3, 5e-3, 5e-3, 2e-2]) * u.Jy / u.beam
+    sky = skymap_standin(tiny, beams, noise=noise, model=clean.data)
+    amap = spectral_index_map(sky, 1, 4, snr_threshold=3)
+    model = clean.data.value
+    low = (model[1] < 3 * noise[1].value) | (model[4] < 3 * noise[4].value) | (model[1] <= 0) | (model[4] <= 0)
+    assert low.any() and (~low).any()
+    assert np.array_equal(np.isnan(amap), low)
+    with pytest.raises(InputError, match="snr_threshold"):
+        spectral_index_map(tiny, 1, 4, snr_threshold=3)          # a Result has no noise
+
+
+# --- tau = 1 -----------------------------------------------------------------------------------
+
+FINE = np.geomspace(0.1e9, 10e9, 41)          # 5 % steps in frequency
+
+
+def unity_frequency(ne):
+    """Frequency where alpha_nu L = 1, found independently by root finding in ln nu."""
+    return math.exp(brentq(lambda x: math.log(slab_tau(math.exp(x), ne)), math.log(1e7), math.log(1e12),
+                           xtol=1e-12))
+
+
+def test_tau_unity_frequency_of_a_uniform_slab():
+    res = trace_slab(FINE * u.Hz)
+    per_pixel, whole = tau_unity_frequency(res)
+    nu1 = unity_frequency(NE_SLAB)
+    assert 0.2e9 < nu1 < 5e9                     # well inside the traced range
+    assert per_pixel.unit == u.Hz and per_pixel.shape == (4, 4)
+    assert np.allclose(per_pixel.value, nu1, rtol=0.01)
+    # uniform slab: every pixel alike, so the intensity-weighted <tau> is tau itself
+    assert math.isclose(whole.to_value(u.Hz), nu1, rel_tol=0.01)
+
+
+def test_tau_unity_interpolates_in_log_tau_log_nu():
+    # tau ~ nu^-2.1 is close to a power law (Mezger & Henderson 1967 form, from memory), so the
+    # ln tau - ln nu interpolation stays accurate even with factor-of-3 steps in frequency.
+    res = trace_slab([0.1, 0.3, 1, 3, 10] * u.GHz)
+    per_pixel, _ = tau_unity_frequency(res)
+    assert np.allclose(per_pixel.value, unity_frequency(NE_SLAB), rtol=0.005)
+
+
+def test_tau_unity_frequency_per_column_and_weighted_whole():
+    # Columns of the image (x) carry different densities; the last has no gas at all.
+    nx, ny = 6, 2
+    ne = np.empty((nx, ny, N_ALONG))
+    densities = [3000.0, 3000.0, 900.0, 900.0, 900.0, 0.0]
+    for i, d in enumerate(densities):
+        ne[i] = d
+    snap = rtrace.Snapshot.from_arrays(temperature=np.full(ne.shape, T_SLAB) * u.K, cell_size=CELL_PC * u.pc,
+                                       electron_density=ne * u.cm**-3, dtype=np.float64)
+    view = rtrace.View(npix=(ny, nx), width=nx * CELL_PC * u.pc, distance=1 * u.kpc)
+    res = rtrace.trace(snap, view, FINE[::-1] * u.Hz)          # descending order must not matter
+    per_pixel, whole = tau_unity_frequency(res)
+    # column axis is west = north x los = +x, so column i holds density densities[i]
+    for i, d in enumerate(densities):
+        if d == 0:
+            assert np.all(np.isnan(per_pixel.value[:, i]))
+        else:
+            assert np.allclose(per_pixel.value[:, i], unity_frequency(d), rtol=0.01)
+
+    def mean_tau(nu_hz):
+        # <tau> = sum(tau I) / sum(I) over pixels (definition in tau_unity_frequency)
+        taus = np.array([slab_tau(nu_hz, d) if d else 0.0 for d in densities])
+        intens = np.array([slab_intensity(nu_hz, d) if d else 0.0 for d in densities])
+        return (taus * intens).sum() / intens.sum()
+
+    expected = math.exp(brentq(lambda x: math.log(mean_tau(math.exp(x))), math.log(1e8), math.log(1e10)))
+    assert math.isclose(whole.to_value(u.Hz), expected, rel_tol=0.01)
+    # the weighting matters: the flux-weighted turnover is not the plain pixel average
+    assert not math.isclose(expected, np.nanmean(per_pixel.value), rel_tol=0.05)
+
+
+def test_tau_unity_is_nan_when_never_bracketed():
+    thin = trace_slab([20, 30, 40] * u.GHz)
+    per_pixel, whole = tau_unity_frequency(thin)
+    assert np.all(np.isnan(per_pixel.value)) and np.isnan(whole.value)
+    thick = trace_slab([0.01, 0.02] * u.GHz)
+    per_pixel, whole = tau_unity_frequency(thick)
+    assert np.all(np.isnan(per_pixel.value)) and np.isnan(whole.value)
+    with pytest.raises(InputError, match="two frequencies"):
+        tau_unity_frequency(trace_slab([1] * u.GHz))
+    with pytest.raises(InputError, match="result"):
+        tau_unity_frequency(np.ones((3, 4, 4)))
+
+
+def test_tau_unity_of_the_demo_lies_between_its_thick_and_thin_frequencies(tiny):
+    per_pixel, whole = tau_unity_frequency(tiny)
+    nu = per_pixel.to_value(u.GHz)
+    bracketed = np.isfinite(nu)
+    # exactly the pixels with tau >= 1 at 0.3 GHz and < 1 at 30 GHz are bracketed (tau falls with nu)
+    assert np.array_equal(bracketed, (tiny.tau[0] >= 1) & (tiny.tau[-1] < 1))
+    assert np.all((nu[bracketed] >= 0.3) & (nu[bracketed] <= 30))
+    assert 0.3 < whole.to_value(u.GHz) < 30
+
+
+# --- CSV ---------------------------------------------------------------------------------------
+
+def test_sed_csv_round_trip(tiny, tmp_path):
+    nu, flux = sed(tiny, (24, 24, 12))
+    meta = sed_metadata(tiny, (24, 24, 12))
+    assert meta["source"].startswith("rtrace.demo.scenario") and "circle" in meta["aperture"]
+    meta["note"] = "two\nlines"                                   # must stay on one header line
+    path = tmp_path / "sed.csv"
+    write_sed_csv(path, nu, flux, meta)
+    table = np.loadtxt(path, delimiter=",")
+    assert table.shape == (5, 3)
+    # 17 significant digits: the values come back to the last bit (up to the Hz -> GHz division)
+    assert np.allclose(table[:, 0], nu.to_value(u.GHz), rtol=1e-15, atol=0)
+    assert np.array_equal(table[:, 1], flux.to_value(u.Jy))
+    assert np.allclose(table[:-1, 2], spectral_index(nu, flux), rtol=1e-14)
+    assert np.isnan(table[-1, 2])
+    named = np.genfromtxt(path, delimiter=",", names=True)
+    assert named.dtype.names == ("frequency_GHz", "flux_density_Jy", "spectral_index")
+    header = [line for line in path.read_text().splitlines() if line.startswith("#")]
+    assert "# note: two lines" in header
+    assert any(line.startswith("# view: ") for line in header)
+    # no temporary file is left next to it
+    assert [p.name for p in tmp_path.iterdir()] == ["sed.csv"]
+
+
+def test_sed_csv_rejects_bad_input_and_leaves_no_file(tmp_path):
+    path = tmp_path / "bad.csv"
+    with pytest.raises(InputError, match="flux"):
+        write_sed_csv(path, [1, 2] * u.GHz, [1, 2] * u.K)
+    with pytest.raises(InputError, match="flux"):
+        write_sed_csv(path, [1, 2] * u.GHz, [1, 2, 3] * u.Jy)
+    with pytest.raises(InputError, match="metadata"):
+        write_sed_csv(path, [1, 2] * u.GHz, [1, 2] * u.Jy, metadata=["source"])
+    assert list(tmp_path.iterdir()) == []
