@@ -11,6 +11,7 @@ from . import physics
 from .errors import ConfigError, InputError, PhysicsRangeWarning, RtraceError
 from .snapshot import Snapshot
 from .transfer import Result, View, trace
+from .io.lazy import open_hdf5
 
 __version__ = "0.1.0"
 

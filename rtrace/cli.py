@@ -58,14 +58,35 @@ def _report(paths, stream):
     stream.write(f"wrote {len(paths)} files:\n")
     for p in paths:
         stream.write(f"  {p}\n")
+    skipped = getattr(paths, "skipped", [])
+    if skipped:
+        stream.write(f"skipped {len(skipped)} files already up to date (--restart makes them again)\n")
+
+
+def _positive_int(text):
+    from .job import check_workers
+    try:
+        return check_workers(int(text), "--workers")
+    except (ValueError, ConfigError) as exc:
+        # a bad option is a command-line mistake (exit 2), not a job-file problem
+        raise argparse.ArgumentTypeError(f"expected a positive number of workers, got '{text}'") from exc
+
+
+def _address(text):
+    from .job import check_scheduler_address
+    try:
+        return check_scheduler_address(text, "--scheduler")
+    except ConfigError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def cmd_run(args):
-    from .job import load_job, run_job
+    from .job import load_job, override_parallel, run_job
     job = load_job(args.job)
     if args.output:
         job.output["directory"] = Path(args.output).resolve()
-    paths = run_job(job, progress=Progress(quiet=args.quiet))
+    override_parallel(job, workers=args.workers, scheduler=args.scheduler)
+    paths = run_job(job, progress=Progress(quiet=args.quiet), restart=args.restart)
     _report(paths, sys.stdout)
     return EXIT_OK
 
@@ -84,11 +105,13 @@ def cmd_demo(args):
         raw["snapshot"]["cells"] = args.cells
     job = parse_job(raw)
     t0 = time.perf_counter()
-    paths = run_job(job, progress=Progress(quiet=args.quiet))
+    paths = run_job(job, progress=Progress(quiet=args.quiet), restart=args.restart)
     _report(paths, sys.stdout)
     print(f"demo finished in {time.perf_counter() - t0:.1f} s; the job it ran is "
           f"{Path(args.output) / 'demo_job.toml'}")
-    (Path(args.output) / "demo_job.toml").write_text(_demo_job_text())
+    from .io.atomic import atomic_path
+    with atomic_path(Path(args.output) / "demo_job.toml") as tmp:
+        tmp.write_text(_demo_job_text())
     return EXIT_OK
 
 
@@ -98,7 +121,10 @@ def _snapshot_from(args):
         return scenario(args.cells or 64)
     from .job import load_job
     from .pipeline import build_snapshot
-    return build_snapshot(load_job(args.job))
+    job = load_job(args.job)
+    if job.series:
+        print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0]['label']}'")
+    return build_snapshot(job)
 
 
 def cmd_inspect(args):
@@ -139,6 +165,8 @@ def cmd_sed(args):
     res = trace(build_snapshot(job), views[name], job.frequencies, background=job.trace.get("background"))
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
+    if job.series:
+        print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
     print(f"# SED of view '{name}' ({res.provenance.get('source', '')})")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
     for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy))):
@@ -164,6 +192,13 @@ def build_parser():
     p.add_argument("job", help="the job file (TOML)")
     p.add_argument("--output", help="write outputs here instead of the job's [output].directory")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--restart", action="store_true", help="ignore the output folder's manifest and make every "
+                   "output again (default: skip outputs already finished from the same inputs)")
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=_positive_int, metavar="N",
+                       help="trace on a local dask cluster of N single-threaded workers (overrides [parallel])")
+    where.add_argument("--scheduler", type=_address, metavar="ADDRESS",
+                       help="trace on the dask cluster at ADDRESS, e.g. tcp://10.0.0.5:8786 (overrides [parallel])")
     p.set_defaults(func=cmd_run)
 
     p = sub.add_parser("demo", help="run the built-in scenario", description="Trace the built-in HII-bubble "
@@ -171,6 +206,7 @@ def build_parser():
     p.add_argument("--output", default="demo-output", help="output folder (default: ./demo-output)")
     p.add_argument("--cells", type=int, default=None, help="cells per side of the scenario")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--restart", action="store_true", help="make every output again, even those already finished")
     p.set_defaults(func=cmd_demo)
 
     p = sub.add_parser("inspect", help="describe a snapshot", description="Describe the snapshot of a job "

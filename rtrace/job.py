@@ -1,7 +1,8 @@
 """Job files: a whole study described in TOML, validated in full before any tracing starts.
 
-A job names a snapshot, how to ionize it, the frequencies, one or more views,
-the instrument (beam, noise) and the outputs. :func:`load_job` parses and
+A job names a snapshot (or a series of snapshots), how to ionize it, the
+frequencies, one or more views, the instrument (beam, noise), the outputs and
+optionally where to compute (``[parallel]``). :func:`load_job` parses and
 validates everything (unknown keys get a did-you-mean suggestion, quantities
 are checked for the right physical type, files for existence) and returns a
 :class:`Job`; :func:`run_job` executes it. See ``examples/`` for complete
@@ -9,6 +10,8 @@ job files.
 """
 
 import difflib
+import glob
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,11 +22,13 @@ from astropy.coordinates import SkyCoord
 
 from .errors import ConfigError
 
-__all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "SCHEMA"]
+__all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
+           "check_scheduler_address", "check_workers", "SCHEMA"]
 
 # Allowed keys of every table, with the physical type of quantity-valued keys.
 SCHEMA = {
-    "snapshot": {"kind": str, "path": str, "cells": int, "seed": int,
+    "snapshot": {"kind": str, "path": str, "paths": list, "pattern": str, "cells": int, "seed": int,
+                 "seeds": list,
                  "temperature": str, "electron_density": str, "ion_density": str, "density": str,
                  "cell_size": "length", "origin": "length3", "units": dict, "subvolume": list},
     "ionization": {"model": str, "threshold": "temperature", "helium": str, "fraction": str,
@@ -38,11 +43,12 @@ SCHEMA = {
     "noise": {"rms": ("flux_per_beam", "flux_per_beam_list"), "seed": int},
     "output": {"directory": str, "fits": bool, "pictures": bool, "sed": bool, "quantities": list,
                "picture_format": str, "prefix": str},
+    "parallel": {"scheduler": str, "workers": int, "max_memory": "memory_size"},
 }
 _TOP = set(SCHEMA)
 _QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 _PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg,
-             "flux_per_beam": u.Jy / u.beam}
+             "flux_per_beam": u.Jy / u.beam, "memory_size": u.byte}
 
 
 def _suggest(key, allowed):
@@ -121,7 +127,34 @@ def _section(raw, name, where=None):
 
 @dataclass
 class Job:
-    """A validated job. Build it with :func:`load_job` or :func:`parse_job`."""
+    """A validated job. Build it with :func:`load_job` or :func:`parse_job`.
+
+    Attributes
+    ----------
+    snapshot : dict
+        ``[snapshot]`` as validated: the settings shared by every snapshot
+        (kind, dataset names, units, geometry); ``path`` is resolved for a
+        single HDF5 file.
+    ionization, trace, beam, noise, output : dict
+        The validated tables (quantities carry units; ``output["directory"]``
+        is an absolute path).
+    frequencies : `~astropy.units.Quantity`
+        In Hz.
+    views : list of dict
+        One validated ``[[view]]`` each, with a unique ``name``.
+    base_dir : pathlib.Path
+        Folder of the job file; relative paths are read from there.
+    snapshots : list of dict
+        The snapshots to process, in order: each has a ``label`` and either a
+        ``path`` (HDF5) or a ``seed`` (demo). One entry for a single snapshot.
+    series : bool
+        True when the job names a series (``paths``, ``pattern`` or
+        ``seeds``): outputs then go to one sub-folder per snapshot label and
+        pictures share colour scales across the series.
+    parallel : dict
+        ``[parallel]`` as validated: ``scheduler`` (an address) or ``workers``
+        (an int), and ``max_memory`` (bytes, an int).
+    """
 
     snapshot: dict
     ionization: dict
@@ -132,6 +165,9 @@ class Job:
     noise: dict
     output: dict
     base_dir: Path = field(default_factory=Path.cwd)
+    snapshots: list = field(default_factory=list)
+    series: bool = False
+    parallel: dict = field(default_factory=dict)
 
 
 def _frequencies(spec):
@@ -153,6 +189,179 @@ def _frequencies(spec):
     return nu.to(u.Hz)
 
 
+def _hdf5_file(value, where, base_dir):
+    if not isinstance(value, str):
+        raise ConfigError(f"{where}: expected str, got {type(value).__name__} {value!r}")
+    path = (base_dir / value).resolve()
+    if not path.is_file():
+        raise ConfigError(f"{where}: file not found: {path}")
+    return path
+
+
+def _unique_labels(members, where):
+    """Outputs are named by label, so two snapshots with one label would overwrite each other."""
+    seen = {}
+    for m in members:
+        if m["label"] in seen:
+            first, second = seen[m["label"]], m.get("path", m.get("seed"))
+            raise ConfigError(f"{where}: two snapshots share the label '{m['label']}' ({first} and {second}); "
+                              f"outputs are named by label, so labels must differ")
+        seen[m["label"]] = m.get("path", m.get("seed"))
+
+
+def _snapshot_members(snap, base_dir):
+    """``([{"label", "path" or "seed"}, ...], series)`` from ``[snapshot]`` (validated in place)."""
+    sources = [k for k in ("path", "paths", "pattern") if k in snap]
+    if snap["kind"] == "demo":
+        for key in ("paths", "pattern"):
+            if key in snap:
+                raise ConfigError(f"[snapshot].{key}: only used with kind = 'hdf5' "
+                                  f"(a series of demo snapshots takes 'seeds')")
+        if "seeds" not in snap:
+            return [{"label": "demo", "seed": snap.get("seed", 7)}], False
+        if "seed" in snap:
+            raise ConfigError("[snapshot]: give either 'seed' (one demo snapshot) or 'seeds' (a series), not both")
+        seeds = snap["seeds"]
+        if not seeds:
+            raise ConfigError("[snapshot].seeds: expected a non-empty list of integers")
+        for i, seed in enumerate(seeds):
+            if isinstance(seed, bool) or not isinstance(seed, int):
+                raise ConfigError(f"[snapshot].seeds[{i}]: expected int, got {type(seed).__name__} {seed!r}")
+        members = [{"label": f"seed{seed}", "seed": seed} for seed in seeds]
+        _unique_labels(members, "[snapshot].seeds")
+        return members, True
+    if "seeds" in snap:
+        raise ConfigError("[snapshot].seeds: only used with kind = 'demo' (a series of files takes "
+                          "'paths' or 'pattern')")
+    if not sources:
+        raise ConfigError("[snapshot]: 'path' is required when kind = 'hdf5' (or 'paths' / 'pattern' "
+                          "for a series of files)")
+    if len(sources) > 1:
+        raise ConfigError(f"[snapshot]: give one of 'path', 'paths' or 'pattern', not "
+                          f"{' and '.join(repr(k) for k in sources)}")
+    if "path" in snap:
+        snap["path"] = _hdf5_file(snap["path"], "[snapshot].path", base_dir)
+        return [{"label": snap["path"].stem, "path": snap["path"]}], False
+    if "paths" in snap:
+        if not snap["paths"]:
+            raise ConfigError("[snapshot].paths: expected a non-empty list of file names")
+        files = [_hdf5_file(v, f"[snapshot].paths[{i}]", base_dir) for i, v in enumerate(snap["paths"])]
+        where = "[snapshot].paths"
+    else:
+        pattern = snap["pattern"]
+        # relative to the job file, like every other path in a job; sorted so that the series
+        # order (and therefore the output layout and progress) does not depend on the file system
+        full = pattern if Path(pattern).is_absolute() else str(base_dir / pattern)
+        files = sorted(Path(p).resolve() for p in glob.glob(full, recursive=True) if Path(p).is_file())
+        if not files:
+            raise ConfigError(f"[snapshot].pattern: '{pattern}' matches no file (looked in "
+                              f"{Path(full).parent.resolve()})")
+        where = "[snapshot].pattern"
+    members = [{"label": f.stem, "path": f} for f in files]
+    _unique_labels(members, where)
+    return members, True
+
+
+# scheme://host:port, the host a name, an IPv4 address or a bracketed IPv6 address
+_ADDRESS = re.compile(r"^[A-Za-z][A-Za-z0-9+.-]*://(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9._-]+):(\d{1,5})$")
+
+
+def check_scheduler_address(value, where="[parallel].scheduler"):
+    """Return ``value`` if it looks like ``scheme://host:port``, else raise ConfigError naming ``where``.
+
+    Parameters
+    ----------
+    value : str
+        E.g. ``"tcp://10.0.0.5:8786"``.
+    where : str
+        The key or option reported in the error message.
+
+    Returns
+    -------
+    str
+
+    Raises
+    ------
+    ConfigError
+    """
+    match = _ADDRESS.match(value) if isinstance(value, str) else None
+    if match is None or not 1 <= int(match.group(2)) <= 65535:
+        raise ConfigError(f"{where}: {value!r} is not a scheduler address of the form scheme://host:port "
+                          f"(e.g. 'tcp://10.0.0.5:8786')")
+    return value
+
+
+def check_workers(value, where="[parallel].workers"):
+    """Return ``value`` if it is a positive int, else raise ConfigError naming ``where``.
+
+    Parameters
+    ----------
+    value : int
+        Number of local worker processes.
+    where : str
+        The key or option reported in the error message.
+
+    Returns
+    -------
+    int
+
+    Raises
+    ------
+    ConfigError
+    """
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise ConfigError(f"{where}: expected a positive number of workers, got {value!r}")
+    return value
+
+
+def _parallel(spec):
+    if "scheduler" in spec and "workers" in spec:
+        raise ConfigError("[parallel]: give either 'scheduler' (the address of a running cluster) or "
+                          "'workers' (the size of a local one), not both")
+    if "scheduler" in spec:
+        check_scheduler_address(spec["scheduler"])
+    if "workers" in spec:
+        check_workers(spec["workers"])
+    if "max_memory" in spec:
+        nbytes = spec["max_memory"].to_value(u.byte)
+        if not np.isfinite(nbytes) or nbytes < 1:
+            raise ConfigError(f"[parallel].max_memory: must be a positive amount of memory, got "
+                              f"'{spec['max_memory']}'")
+        spec["max_memory"] = int(nbytes)
+    return spec
+
+
+def override_parallel(job, workers=None, scheduler=None):
+    """Replace the job's cluster choice (``--workers`` / ``--scheduler`` on the command line).
+
+    Either argument replaces both ``scheduler`` and ``workers`` of ``[parallel]``;
+    ``max_memory`` is kept.
+
+    Parameters
+    ----------
+    job : Job
+    workers : int, optional
+        Size of a local cluster.
+    scheduler : str, optional
+        Address of a running scheduler.
+
+    Raises
+    ------
+    ConfigError
+        If both are given or either is malformed.
+    """
+    if workers is not None and scheduler is not None:
+        raise ConfigError("--workers and --scheduler: give one or the other")
+    if workers is None and scheduler is None:
+        return
+    kept = {k: v for k, v in job.parallel.items() if k == "max_memory"}
+    if workers is not None:
+        kept["workers"] = check_workers(workers, "--workers")
+    else:
+        kept["scheduler"] = check_scheduler_address(scheduler, "--scheduler")
+    job.parallel = kept
+
+
 def parse_job(raw, base_dir="."):
     """Validate a job given as a dict (the parsed TOML). Raises ConfigError on the first problem."""
     base_dir = Path(base_dir)
@@ -165,15 +374,11 @@ def parse_job(raw, base_dir="."):
         raise ConfigError(f"[snapshot].kind: '{kind}' is not 'demo' or 'hdf5'")
     snap["kind"] = kind
     if kind == "hdf5":
-        for key in ("path", "temperature"):
-            if key not in snap:
-                raise ConfigError(f"[snapshot]: '{key}' is required when kind = 'hdf5'")
+        if "temperature" not in snap:
+            raise ConfigError("[snapshot]: 'temperature' is required when kind = 'hdf5'")
         if ("electron_density" in snap) == ("density" in snap):
             raise ConfigError("[snapshot]: give exactly one of 'electron_density' or 'density'")
-        path = (base_dir / snap["path"]).resolve()
-        if not path.is_file():
-            raise ConfigError(f"[snapshot].path: file not found: {path}")
-        snap["path"] = path
+    members, series = _snapshot_members(snap, base_dir)
     ion = _section(raw, "ionization")
     if "model" in ion and ion["model"] not in ("full", "threshold", "saha", "supplied"):
         raise ConfigError(f"[ionization].model: '{ion['model']}' is not one of full, threshold, saha, supplied")
@@ -228,7 +433,8 @@ def parse_job(raw, base_dir="."):
             raise ConfigError(f"[output].quantities: unknown '{q}'{_suggest(q, _QUANTITIES)}")
     out.setdefault("directory", "rtrace-output")
     out["directory"] = (base_dir / out["directory"]).resolve()
-    job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir)
+    par = _parallel(_section(raw, "parallel"))
+    job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par)
     build_views(job)              # the View constructor validates geometry now, not after tracing
     return job
 
@@ -262,11 +468,13 @@ def build_views(job):
     return views
 
 
-def run_job(job, progress=None):
+def run_job(job, progress=None, restart=False):
     """Execute a validated job; returns the list of files written.
 
     ``progress(step, total, message)`` is called before each step (the command
-    line draws a progress bar from it).
+    line draws a progress bar from it). Outputs recorded as finished in the
+    output folder's manifest are skipped unless ``restart`` (see
+    :func:`rtrace.pipeline.run`).
     """
     from .pipeline import run
-    return run(job, progress=progress)
+    return run(job, progress=progress, restart=restart)

@@ -293,36 +293,73 @@ def _plane(obj, quantity, frequency):
     return _Plane(tb, label=label, tag=tag, unit=u.K, per=None, beam=_beam(obj, index), noise=noise, **common)
 
 
-def _make_norm(planes, stretch):
-    """Colour normalisation for one or several planes (a shared scale)."""
+def _limit(value, plane, name):
+    """A colour-scale end in the plotted unit of ``plane`` (a Quantity is converted), or None."""
+    if value is None:
+        return None
+    if isinstance(value, u.Quantity):
+        try:
+            value = (value / (1 * plane.unit)).to_value(u.dimensionless_unscaled)
+        except u.UnitsError:
+            raise InputError(f"{name}: '{value}' cannot be converted to the unit of the {plane.quantity} map "
+                             f"({(1 * plane.unit).unit})") from None
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: expected a number or a Quantity, got {value!r}") from None
+    if not math.isfinite(value):
+        raise InputError(f"{name}: must be finite, got {value!r}")
+    return value
+
+
+def _make_norm(planes, stretch, vmin=None, vmax=None):
+    """Colour normalisation for one or several planes (a shared scale).
+
+    ``vmin``/``vmax`` (plotted unit) replace the ends derived from the planes.
+    """
     quantity = planes[0].quantity
     vals = _finite([p.values for p in planes])
+    if vmin is not None and vmax is not None and vmax <= vmin:
+        raise InputError(f"vmax: must exceed vmin ({vmax:g} <= {vmin:g})")
     if quantity == "spectral_index":
         # diverging, centred on the optically thin index; the range always covers thin (-0.1)
         # to thick (+2) and widens (up to +-4) only if the data need it
         lo = np.percentile(vals, 1) if vals.size else THIN_SPECTRAL_INDEX
         hi = np.percentile(vals, 99) if vals.size else 2.0
-        vmin = min(THIN_SPECTRAL_INDEX - 0.5, max(lo, -4.0))
-        vmax = max(2.1, min(hi, 4.0))
-        return colors.TwoSlopeNorm(vcenter=THIN_SPECTRAL_INDEX, vmin=vmin, vmax=vmax)
-    if vals.size == 0:
+        lo = max(lo, -4.0) if vmin is None else vmin
+        hi = min(hi, 4.0) if vmax is None else vmax
+        # given ends still widen to the thin-thick range: the centre must lie inside the scale
+        return colors.TwoSlopeNorm(vcenter=THIN_SPECTRAL_INDEX, vmin=min(THIN_SPECTRAL_INDEX - 0.5, lo),
+                                   vmax=max(2.1, hi))
+    if vals.size == 0 and vmin is None and vmax is None:
         return colors.Normalize(0.0, 1.0)
-    lo, hi = float(vals.min()), float(vals.max())
-    vmin = 0.0 if lo >= 0 else lo
-    if hi <= vmin:
-        hi = vmin + 1.0            # a constant image still gets a valid scale
+    lo, hi = (float(vals.min()), float(vals.max())) if vals.size else (0.0, 1.0)
+    if vmin is not None:
+        lo = vmin
+    if vmax is not None:
+        hi = vmax
+    low = 0.0 if lo >= 0 and vmin is None else lo
+    if hi <= low:
+        if vmax is not None:
+            raise InputError(f"vmax: {vmax:g} lies below the lower end of the colour scale ({low:g})")
+        hi = low + 1.0             # a constant image still gets a valid scale
     noises = [p.noise for p in planes if p.noise is not None]
     if stretch == "linear":
-        return colors.Normalize(vmin=vmin, vmax=hi)
+        return colors.Normalize(vmin=low, vmax=hi)
     if stretch == "log":
         pos = vals[vals > 0]
-        if pos.size == 0:
+        if pos.size == 0 and (vmax is None or vmin is None or vmin <= 0):
             raise InputError(f"stretch: 'log' needs positive values, and the {quantity} map has none")
-        vmax = float(pos.max())
-        floor = max(float(pos.min()), vmax / _LOG_DYNAMIC_RANGE)
+        top = float(pos.max()) if vmax is None else vmax
+        if top <= 0:
+            raise InputError(f"vmax: the 'log' stretch needs a positive vmax, got {top:g}")
+        if vmin is not None and vmin > 0:
+            return colors.LogNorm(vmin=vmin, vmax=top)
+        floor = max(float(pos.min()), top / _LOG_DYNAMIC_RANGE)
         if noises:
-            floor = min(max(floor, min(noises)), vmax / 10.0)
-        return colors.LogNorm(vmin=floor, vmax=vmax)
+            floor = min(max(floor, min(noises)), top / 10.0)
+        return colors.LogNorm(vmin=floor, vmax=top)
+    vmin = low
     peak = max(abs(lo), abs(hi))
     width = _ASINH_LINEAR_FRACTION * peak
     if noises:
@@ -527,7 +564,7 @@ def _colorbar(fig, image, ax, plane, norm, planes, **kw):
 # --- public functions ----------------------------------------------------------------------------
 
 def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", contours=None, scale_bar=None,
-             path=None, ax=None, cmap=None, title=None):
+             path=None, ax=None, cmap=None, title=None, vmin=None, vmax=None):
     """Draw one image of a Result or SkyMap.
 
     Parameters
@@ -564,6 +601,13 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
     cmap : str or `~matplotlib.colors.Colormap`, optional
     title : str, optional
         Default: the quantity and frequency.
+    vmin, vmax : float or `~astropy.units.Quantity`, optional
+        Ends of the colour scale in place of those derived from this image
+        (a float in the plotted unit, a Quantity is converted to it; e.g.
+        Jy/beam for the intensity of a SkyMap), so that several figures can
+        share one scale. The stretch keeps its rules otherwise (the asinh
+        linear range follows the larger end; a ``log`` vmin <= 0 takes the
+        automatic floor); a spectral-index scale still covers -0.6 to +2.1.
 
     Returns
     -------
@@ -571,13 +615,14 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
     """
     _check_stretch(stretch)
     plane = _plane(obj, quantity, frequency)
+    vmin, vmax = _limit(vmin, plane, "vmin"), _limit(vmax, plane, "vmax")
     with matplotlib.rc_context(_STYLE):
         if ax is None:
             fig = _new_figure((5.6, 4.5))
             ax = fig.add_subplot()
         else:
             fig = ax.figure
-        norm = _make_norm([plane], stretch)
+        norm = _make_norm([plane], stretch, vmin, vmax)
         cmap_obj = _resolve_cmap(cmap, quantity)
         if title is None:
             title = _NAMES[quantity] + (f", {plane.tag}" if plane.tag else "")
@@ -613,7 +658,8 @@ def _panel_selection(obj, quantity, frequencies):
 
 
 def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, shared_scale=True,
-                stretch="asinh", contours=None, scale_bar=None, cmap=None, title=None, ncols=None):
+                stretch="asinh", contours=None, scale_bar=None, cmap=None, title=None, ncols=None,
+                vmin=None, vmax=None):
     """One map per frequency on a grid.
 
     Parameters
@@ -635,6 +681,9 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
         Figure title; default the quantity.
     ncols : int, optional
         Panels per row; default up to 3 for 6 panels or fewer, about sqrt(n) beyond.
+    vmin, vmax : float or `~astropy.units.Quantity`, optional
+        As in :func:`plot_map`, for every panel (with ``shared_scale=False``
+        too).
 
     Returns
     -------
@@ -646,6 +695,8 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
     planes = [_plane(obj, quantity, f) for f in _panel_selection(obj, quantity, frequencies)]
     if shared_scale and quantity == "intensity":
         planes = _common_prefix(planes)
+    # per plane: without a shared scale, intensity panels may each have their own SI prefix
+    limits = [(_limit(vmin, p, "vmin"), _limit(vmax, p, "vmax")) for p in planes]
     n = len(planes)
     if ncols is None:
         ncols = n if n <= 3 else (3 if n <= 9 else math.ceil(math.sqrt(n)))
@@ -661,10 +712,10 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
             fig.delaxes(spare)
         axes = axes[:n]
         cmap_obj = _resolve_cmap(cmap, quantity)
-        shared = _make_norm(planes, stretch) if shared_scale else None
+        shared = _make_norm(planes, stretch, *limits[0]) if shared_scale else None
         image = None
         for k, (ax, plane) in enumerate(zip(axes, planes)):
-            norm = shared if shared_scale else _make_norm([plane], stretch)
+            norm = shared if shared_scale else _make_norm([plane], stretch, *limits[k])
             image = _draw(ax, plane, norm, cmap_obj, contours=contours,
                           scale_bar=scale_bar if k == 0 else False, title=plane.tag or None)
             row, col = divmod(k, ncols)

@@ -74,6 +74,10 @@ class Snapshot:
         Where the data came from and how the ionization was derived.
     """
 
+    #: True when the fields are arrays in memory; False for a file-backed snapshot
+    #: (:func:`rtrace.open_hdf5`), whose fields are read brick by brick.
+    in_memory = True
+
     def __init__(self, temperature, electron_density, ion_term, cell_size, origin, provenance):
         self._t = temperature
         self._ne = electron_density
@@ -194,6 +198,19 @@ class Snapshot:
         """Centre of the grid in cm."""
         lo, hi = self.extent
         return (lo + hi) / 2
+
+    def field_source(self):
+        """The fields as a brick source for the tracer (see :mod:`rtrace.transfer.bricks`).
+
+        Returns
+        -------
+        `~rtrace.transfer.bricks.ArraySource`
+            ``read(lo, hi)`` gives ``(n_e, ion term, T_e)`` of cells
+            ``lo <= (i, j, k) < hi`` (cgs, the storage dtype), copied only
+            where the box is not contiguous in memory.
+        """
+        from .transfer.bricks import ArraySource
+        return ArraySource(self._ne, self._ni, self._t)
 
     def checksum(self):
         """SHA-256 of the stored fields and geometry (for provenance headers); computed once."""

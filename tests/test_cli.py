@@ -51,7 +51,7 @@ def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):
     for expected in ("small_intensity.fits", "small_tau.fits", "small_jy_per_beam.fits", "small_sed.csv",
                      "small_intensity.png", "small_sed.png"):
         assert expected in names
-    assert not [n for n in names if n.startswith(".")]                 # no temporary files left
+    assert [n for n in names if n.startswith(".")] == [".rtrace-manifest.json"]   # no temporary files left
     with fits.open(out / "small_jy_per_beam.fits") as hdul:
         header = hdul[0].header
         assert hdul[0].data.shape == (2, 24, 24)
@@ -101,3 +101,47 @@ def test_help_everywhere():
     with pytest.raises(SystemExit) as exc:
         main(["frobnicate"])
     assert exc.value.code == 2
+
+
+QUICK = JOB.replace('directory = "out"', 'directory = "out"\npictures = false').replace(
+    "cells = 20", "cells = 16\nseeds = [1, 2]")
+
+
+def test_rerun_skips_finished_outputs_and_restart_redoes_them(tmp_path, capsys):
+    job = write(tmp_path, QUICK)
+    assert main(["run", str(job), "--quiet"]) == EXIT_OK
+    out = tmp_path / "out"
+    assert sorted(p.name for p in out.iterdir()) == [".rtrace-manifest.json", "seed1", "seed2"]
+    assert "wrote 12 files" in capsys.readouterr().out
+    assert main(["run", str(job)]) == EXIT_OK                    # with progress lines
+    captured = capsys.readouterr()
+    assert "wrote 0 files" in captured.out and "skipped 12 files already up to date" in captured.out
+    assert "seed1 / view 'small': 6 of 6 outputs up to date, skipped" in captured.err
+    assert "done: 0 written, 12 up to date (skipped)" in captured.err
+    assert main(["run", str(job), "--quiet", "--restart"]) == EXIT_OK
+    assert "wrote 12 files" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("argv,message", [
+    (["--workers", "0"], "expected a positive number of workers, got '0'"),
+    (["--workers", "two"], "expected a positive number of workers, got 'two'"),
+    (["--scheduler", "localhost:8786"], "is not a scheduler address of the form scheme://host:port"),
+    (["--workers", "2", "--scheduler", "tcp://h:8786"], "not allowed with argument"),
+])
+def test_bad_parallel_options_are_usage_errors(tmp_path, capsys, argv, message):
+    job = write(tmp_path, QUICK)
+    with pytest.raises(SystemExit) as exc:
+        main(["run", str(job), "--quiet", *argv])
+    assert exc.value.code == 2 and message in capsys.readouterr().err
+    assert not (tmp_path / "out").exists()
+
+
+def test_workers_option_overrides_the_job(tmp_path, monkeypatch, capsys):
+    import rtrace
+
+    def serial_only(snapshot, view, frequencies, *, background=None, supersample=1):
+        raise AssertionError("not reached: the job is refused before tracing")
+    monkeypatch.setattr(rtrace, "trace", serial_only)
+    job = write(tmp_path, QUICK)
+    assert main(["run", str(job), "--quiet", "--workers", "2"]) == EXIT_CONFIG
+    assert "[parallel]: this rtrace build cannot trace on a dask cluster" in capsys.readouterr().err

@@ -6,7 +6,7 @@ import astropy.units as u
 import pytest
 
 from rtrace.errors import ConfigError
-from rtrace.job import load_job, parse_job
+from rtrace.job import load_job, override_parallel, parse_job
 
 BASE = """
 [snapshot]
@@ -89,3 +89,107 @@ def test_ionization_only_with_density():
     raw = tomllib.loads(BASE + '\n[ionization]\nmodel = "saha"\n')
     with pytest.raises(ConfigError, match=r"\[ionization\]: only used with \[snapshot\].density"):
         parse_job(raw)
+
+
+# --- series of snapshots and [parallel] ---------------------------------------------------------
+
+HDF5 = """
+[snapshot]
+kind = "hdf5"
+{source}
+temperature = "T"
+electron_density = "ne"
+
+[frequencies]
+values = ["1 GHz"]
+
+[[view]]
+npix = 8
+"""
+
+
+def touch_files(tmp_path, *names):
+    for name in names:
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_bytes(b"")
+
+
+def test_pattern_is_sorted_and_relative_to_the_job_file(tmp_path):
+    touch_files(tmp_path, "run/snap_0020.h5", "run/snap_0003.h5", "run/snap_0010.h5", "run/other.h5")
+    job = load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
+    assert job.series
+    assert [m["label"] for m in job.snapshots] == ["snap_0003", "snap_0010", "snap_0020"]
+    assert job.snapshots[0]["path"] == (tmp_path / "run/snap_0003.h5").resolve()
+    job = load_job(write(tmp_path, HDF5.format(source='paths = ["run/snap_0010.h5", "run/other.h5"]')))
+    assert [m["label"] for m in job.snapshots] == ["snap_0010", "other"]        # the order given
+    job = load_job(write(tmp_path, HDF5.format(source='path = "run/other.h5"')))
+    assert not job.series and job.snapshots == [{"label": "other", "path": (tmp_path / "run/other.h5").resolve()}]
+
+
+@pytest.mark.parametrize("source,message", [
+    ('pattern = "run/nothing_*.h5"', r"\[snapshot\].pattern: 'run/nothing_\*.h5' matches no file \(looked in "),
+    ('paths = ["run/a.h5", "run/missing.h5"]', r"\[snapshot\].paths\[1\]: file not found: .*missing.h5"),
+    ('paths = []', r"\[snapshot\].paths: expected a non-empty list"),
+    ('paths = ["run/a.h5", 3]', r"\[snapshot\].paths\[1\]: expected str, got int 3"),
+    ('paths = ["run/a.h5", "other/a.h5"]', r"two snapshots share the label 'a'"),
+    ('path = "run/a.h5"\npattern = "run/*.h5"', r"give one of 'path', 'paths' or 'pattern', not 'path' and 'pattern'"),
+    ('seeds = [1, 2]', r"\[snapshot\].seeds: only used with kind = 'demo'"),
+    ('patern = "run/*.h5"', r"unknown key 'patern' \(did you mean 'pattern'\?\)"),
+    ('', r"\[snapshot\]: 'path' is required when kind = 'hdf5' \(or 'paths' / 'pattern'"),
+])
+def test_series_errors(tmp_path, source, message):
+    touch_files(tmp_path, "run/a.h5", "other/a.h5")
+    with pytest.raises(ConfigError, match=message):
+        load_job(write(tmp_path, HDF5.format(source=source)))
+
+
+@pytest.mark.parametrize("patch,message", [
+    ("seeds = [1, 1]", r"\[snapshot\].seeds: two snapshots share the label 'seed1'"),
+    ("seeds = []", r"\[snapshot\].seeds: expected a non-empty list"),
+    ("seeds = [1, 2.5]", r"\[snapshot\].seeds\[1\]: expected int, got float 2.5"),
+    ("seeds = [1, 2]\nseed = 3", r"give either 'seed' \(one demo snapshot\) or 'seeds'"),
+    ('pattern = "*.h5"', r"\[snapshot\].pattern: only used with kind = 'hdf5'"),
+])
+def test_demo_series_errors(tmp_path, patch, message):
+    with pytest.raises(ConfigError, match=message):
+        load_job(write(tmp_path, BASE.replace("cells = 16", f"cells = 16\n{patch}")))
+
+
+def test_demo_seeds_make_a_series(tmp_path):
+    job = load_job(write(tmp_path, BASE.replace("cells = 16", "cells = 16\nseeds = [4, 2]")))
+    assert job.series and job.snapshots == [{"label": "seed4", "seed": 4}, {"label": "seed2", "seed": 2}]
+    single = load_job(write(tmp_path, BASE))
+    assert not single.series and single.parallel == {}
+
+
+@pytest.mark.parametrize("table,message", [
+    ('scheduler = "localhost:8786"', r"\[parallel\].scheduler: 'localhost:8786' is not a scheduler address of "
+                                     r"the form scheme://host:port"),
+    ('scheduler = "tcp://host:99999"', r"'tcp://host:99999' is not a scheduler address"),
+    ('scheduler = "tcp://host"', r"'tcp://host' is not a scheduler address"),
+    ("workers = 0", r"\[parallel\].workers: expected a positive number of workers, got 0"),
+    ("workers = true", r"\[parallel\].workers: expected int, got bool True"),
+    ('workers = "4"', r"\[parallel\].workers: expected int, got str '4'"),
+    ('workers = 2\nscheduler = "tcp://h:1"', r"\[parallel\]: give either 'scheduler' .* or 'workers' .*, not both"),
+    ('max_memory = "2 GHz"', r"\[parallel\].max_memory: '2 GHz' is not a memory size"),
+    ("max_memory = 2000", r"\[parallel\].max_memory: '2000' has no unit; expected a memory size"),
+    ('max_memory = "-1 GB"', r"\[parallel\].max_memory: must be a positive amount of memory"),
+    ("worker = 2", r"\[parallel\]: unknown key 'worker' \(did you mean 'workers'\?\)"),
+])
+def test_parallel_errors(tmp_path, table, message):
+    with pytest.raises(ConfigError, match=message):
+        load_job(write(tmp_path, BASE + f"\n[parallel]\n{table}\n"))
+
+
+def test_parallel_settings_and_overrides(tmp_path):
+    job = load_job(write(tmp_path, BASE + '\n[parallel]\nscheduler = "tls://10.0.0.5:8786"\nmax_memory = "2 GiB"\n'))
+    assert job.parallel == {"scheduler": "tls://10.0.0.5:8786", "max_memory": 2 * 1024**3}
+    assert load_job(write(tmp_path, BASE + '\n[parallel]\nscheduler = "tcp://[::1]:8786"\n')).parallel
+    override_parallel(job, workers=3)
+    assert job.parallel == {"workers": 3, "max_memory": 2 * 1024**3}
+    override_parallel(job, scheduler="tcp://node7:8786")
+    assert job.parallel == {"scheduler": "tcp://node7:8786", "max_memory": 2 * 1024**3}
+    with pytest.raises(ConfigError, match="--workers: expected a positive number of workers, got -1"):
+        override_parallel(job, workers=-1)
+    with pytest.raises(ConfigError, match="--scheduler: 'node7' is not a scheduler address"):
+        override_parallel(job, scheduler="node7")

@@ -165,7 +165,7 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
 
 
 @numba.njit(cache=True, parallel=True)
-def trace_sheared(ne, ni, temp, lo, hi, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                   log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out_i, out_tau, out_em):
     """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
@@ -174,8 +174,12 @@ def trace_sheared(ne, ni, temp, lo, hi, k_lo, forward, i0, n_i, j0, n_j, count, 
     layer, each segment of :func:`layer_segments` reads a shifted row of
     cells for a whole row of rays, so memory is read in order and a cache
     line serves many consecutive layers. Cells outside ``lo <= index < hi``
-    (the brick) contribute nothing. Outputs ``(nfreq, 1, n_i n_j)`` and
-    ``(1, n_i n_j)`` must be zero on entry.
+    (the brick, in global cell indices) contribute nothing. The arrays may be
+    the whole grid or a brick's own sub-array: global cell ``(x, y, k)`` is
+    element ``(x, y, k) - off`` (``off`` (3,) int64, the global index of
+    element 0; zeros for the whole grid), so lattice and layer indices stay
+    global and every brick shares one ray lattice. Outputs
+    ``(nfreq, 1, n_i n_j)`` and ``(1, n_i n_j)`` must be zero on entry.
     """
     nk = count.shape[0]
     n_block = (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK
@@ -198,9 +202,10 @@ def trace_sheared(ne, ni, temp, lo, hi, k_lo, forward, i0, n_i, j0, n_j, count, 
                     q_hi = min(n_j, hi[1] - j0 - seg_db[s, g])
                     for q in range(q_lo, q_hi):
                         y = j0 + q + seg_db[s, g]
-                        nn = float(ne[x, y, k]) * float(ni[x, y, k])
+                        xl, yl, kl = x - off[0], y - off[1], k - off[2]
+                        nn = float(ne[xl, yl, kl]) * float(ni[xl, yl, kl])
                         if nn > 0.0:
                             r = p * n_j + q
                             out_em[0, r] += nn * ds
-                            _add_cell(out_i, out_tau, 0, r, nn * ds, float(temp[x, y, k]),
+                            _add_cell(out_i, out_tau, 0, r, nn * ds, float(temp[xl, yl, kl]),
                                       log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)

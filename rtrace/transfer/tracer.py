@@ -19,8 +19,15 @@ Two routes give the same physics:
   lattice quadrature of the volume integral for any pixel size. Faces seen
   edge-on (directions in or near a coordinate plane) do not alias, because
   the lattice counts exactly ``supersample`` rays per cell across them.
-  The grid may be split into bricks, traced independently and composited
-  front to back (exact, see ``compositing``).
+
+Each route has a two-dimensional grid of rays (columns; sub-lattice points)
+and traces one box of cells at a time into a ``Patch`` over the rays that
+box can reach. An in-memory snapshot is by default one box, the whole
+arrays. Otherwise (``brick_size``, ``max_memory``, ``client``, or a
+file-backed snapshot) the grid is cut into bricks (``bricks``), each read
+once from the snapshot's field source and traced on its own sub-array;
+the patches are composited front to back (exact, see ``compositing``),
+here in sequence or by :mod:`rtrace.parallel` as a tree of dask tasks.
 """
 
 import math
@@ -32,8 +39,9 @@ from ..errors import InputError
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.gaunt import log_temperature_table
 from ..physics.planck import planck_cgs
+from . import bricks as _bricks
 from . import kernels
-from .compositing import Segment, composite
+from .compositing import Patch, Segment, composite_into
 from .remap import remap_parallelograms
 from .result import Result
 
@@ -84,12 +92,14 @@ def _background(background, nu):
     return np.broadcast_to(q.to_value(unit), nu.shape).astype(float)
 
 
-def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_size=None):
+def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_size=None,
+          max_memory=None, client=None):
     """Solve the transfer equation along the rays of ``view`` through ``snapshot``.
 
     Parameters
     ----------
     snapshot : `~rtrace.Snapshot`
+        In memory, or file-backed (:func:`rtrace.open_hdf5`).
     view : `~rtrace.View`
     frequencies : `~astropy.units.Quantity`
         Frequencies (or wavelengths) to image; all are traced in one traversal.
@@ -102,27 +112,378 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         never farther apart than a cell). Axis-aligned views are exact and
         ignore it.
     brick_size : int, optional
-        Split the grid into cubic bricks of this many cells per side for
-        oblique views, traced independently and composited (same result).
+        Trace the grid in cubic bricks of this many cells per side, each on
+        its own sub-array, composited front to back (same result to rounding).
+    max_memory : `~astropy.units.Quantity` or str, optional
+        Bound on the tracer's working set (bytes: ``2 * u.GB``, ``"150 MB"``):
+        one brick's three fields, the per-ray segment state and the images.
+        The largest cubic brick that fits is used (with ``brick_size``, that
+        size is checked against the bound instead). With ``client`` the bound
+        applies to each task. The snapshot's own in-memory arrays are not
+        counted, nor what the C allocator keeps of freed memory (with
+        glibc, the resident size can exceed the bound by a few tens of MB).
+    client : `dask.distributed.Client`, optional
+        Trace the bricks as dask tasks and composite them on the workers;
+        only the final per-ray result comes back. A file-backed snapshot is
+        read by the tasks themselves (each gets the path and its index
+        range); an in-memory one sends each brick once.
 
     Returns
     -------
     `~rtrace.Result`
+
+    Raises
+    ------
+    InputError
+        Bad frequencies, background, supersample, brick_size or client; a
+        ``max_memory`` smaller than one minimal brick plus the per-ray
+        state and images (the message gives the minimum).
+
+    Notes
+    -----
+    An in-memory snapshot with none of ``brick_size``, ``max_memory`` and
+    ``client`` is traced over its whole arrays at once (fastest). A
+    file-backed one is always traced in bricks (``bricks.DEFAULT_BRICK``
+    cells per side unless told otherwise), each brick read once per call.
     """
     nu = _frequencies(frequencies)
     bg = _background(background, nu)
     if int(supersample) < 1:
         raise InputError(f"supersample: must be a positive integer, got {supersample}")
+    edge = None if brick_size is None else _bricks.check_brick_size(brick_size)
+    budget = None if max_memory is None else _bricks.parse_memory(max_memory)
+    if client is not None and not (hasattr(client, "submit") and hasattr(client, "scatter")):
+        raise InputError(f"client: expected a dask.distributed.Client, got {type(client).__name__}")
     tables = FrequencyTables(nu)
     center, pix = view.resolve(snapshot)
     if view.los_axis() is not None:
-        seg, nrays = _trace_axis_aligned(snapshot, view, center, pix, tables, bg)
+        route = _AxisRoute(snapshot, view, center, pix, tables)
     else:
-        seg, nrays = _trace_oblique(snapshot, view, center, pix, tables, bg, int(supersample), brick_size)
+        route = _ObliqueRoute(snapshot, view, center, pix, tables, int(supersample))
+    in_memory = getattr(snapshot, "in_memory", True)
+    if in_memory and edge is None and budget is None and client is None:
+        zero = np.zeros(3, np.int64)
+        whole = np.asarray(snapshot.shape, np.int64)
+        patch = route.trace_brick(zero, whole, (snapshot._ne, snapshot._ni, snapshot._t), zero)
+    else:
+        source = snapshot.field_source()
+        edge = _brick_edge(route, source, edge, budget)
+        order = _bricks.front_to_back(snapshot.shape, edge, view.los)
+        if client is not None:
+            from .. import parallel
+            patch = parallel.trace_bricks(client, route, source, order)
+        else:
+            patch = _trace_in_sequence(route, source, order)
+    seg, nrays = route.finish(patch, bg)
     provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
                       background="none" if background is None else str(background))
     return Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
                   rays_per_pixel=nrays, background=bg)
+
+
+# -- bricked tracing ----------------------------------------------------------------------------
+
+# Estimate of the per-ray arrays alive while one brick is traced and composited, in units of
+# one (2 nfreq + 1) float64 segment per ray: the brick's patch, one lattice phase's kernel
+# output, and composite()'s result plus its exp(-tau) temporary.
+_BRICK_SEGMENTS = 4
+
+
+def _brick_edge(route, source, edge, budget):
+    """Brick edge (cells) from ``brick_size`` and/or ``max_memory``."""
+    shape = source.shape
+    if budget is None:
+        return edge if edge is not None else min(_bricks.DEFAULT_BRICK, max(shape))
+
+    def working_set(b):
+        # the accumulated per-ray state lives throughout; bricks come and go; the images
+        # and the remap's temporaries exist only after the last brick is freed
+        cells = int(np.prod(np.minimum(shape, b)))
+        brick = (cells * source.bytes_per_cell + source.scratch_bytes
+                 + _BRICK_SEGMENTS * route.segment_bytes(route.brick_ray_count(b)) + route.table_bytes(b))
+        return route.segment_bytes(route.ray_count) + max(brick, route.finish_bytes())
+
+    what = "one brick of the fields, the per-ray segment state and the images"
+    if edge is None:
+        return _bricks.choose_brick_edge(shape, budget, working_set, what)
+    need = working_set(edge)
+    if need > budget:
+        raise InputError(f"max_memory: brick_size={edge} needs about {need / 1e6:.3g} MB ({what}), "
+                         f"more than the {budget / 1e6:.3g} MB allowed; give a smaller brick_size "
+                         "or leave it out to have one chosen")
+    return edge
+
+
+def _trace_in_sequence(route, source, order):
+    """Read and trace the bricks one at a time (front to back), compositing as they come."""
+    acc = Segment.empty(route.nfreq, route.ray_shape)
+    for lo, hi in order:
+        if route.brick_rays(lo, hi) is None:
+            continue            # no ray of this view reaches the brick: do not read it
+        arrays = source.read(lo, hi)
+        patch = route.trace_brick(lo, hi, arrays, lo)
+        del arrays              # free the brick before the next one is read
+        if patch is not None:
+            composite_into(acc, (0, 0), patch)
+    return Patch((0, 0), acc)
+
+
+def _full_segment(patch, nfreq, ray_shape):
+    """The patch spread over the whole ray grid (identity where it has no rays)."""
+    if patch is not None and tuple(patch.start) == (0, 0) and patch.seg.em.shape == tuple(ray_shape):
+        return patch.seg
+    full = Segment.empty(nfreq, ray_shape)
+    if patch is not None:
+        composite_into(full, (0, 0), patch)
+    return full
+
+
+class _Route:
+    """What both routes share: sizes for the memory planner."""
+
+    def segment_bytes(self, nrays):
+        """Bytes of one float64 segment (I, tau per frequency; EM) for ``nrays`` rays."""
+        return (2 * self.nfreq + 1) * 8 * int(nrays)
+
+    @property
+    def ray_count(self):
+        return int(np.prod(self.ray_shape))
+
+    def finish_bytes(self):
+        """Images plus the remap's temporaries (values, background terms, tube positions)."""
+        npix = int(np.prod(self.image_shape))
+        rays = self.ray_count
+        return (3 * self.nfreq + 1) * 8 * npix + (3 * self.nfreq + 1 + 8) * 8 * rays
+
+    def table_bytes(self, edge):
+        return 0
+
+
+# -- axis-aligned route -------------------------------------------------------------------------
+
+class _AxisRoute(_Route):
+    """Rays are the grid's columns along the line of sight; the ray grid is the other two axes."""
+
+    def __init__(self, snap, view, center, pix, tables):
+        la, ls = view.los_axis()
+        self.la, self.forward = la, ls > 0
+        self.trans = {2: (0, 1), 1: (0, 2), 0: (1, 2)}[la]
+        a, b = self.trans
+        self.ds = float(snap.cell_size[la])
+        self.cell = np.asarray(snap.cell_size, float)
+        self.origin = np.asarray(snap.origin, float)
+        self.center, self.pix = np.asarray(center, float), float(pix)
+        self.west, self.north = np.asarray(view.west, float), np.asarray(view.north, float)
+        self.image_shape = tuple(view.shape)
+        self.tables = tables
+        self.nfreq = len(tables.nu)
+        self.ray_shape = (int(snap.shape[a]), int(snap.shape[b]))
+
+    def brick_ray_count(self, edge):
+        return min(edge, self.ray_shape[0]) * min(edge, self.ray_shape[1])
+
+    def brick_rays(self, lo, hi):
+        a, b = self.trans
+        return (int(lo[a]), int(lo[b])), (int(hi[a]), int(hi[b]))
+
+    def trace_brick(self, lo, hi, arrays, off):
+        """Column segments of the cells ``lo <= index < hi`` given as that box's own arrays.
+
+        ``off`` is unused: a column kernel needs no global index (the patch
+        position carries it).
+        """
+        ne, ni, t = arrays
+        if ne.shape != tuple(int(h - l) for l, h in zip(lo, hi)):
+            raise ValueError("axis route: brick arrays do not match the brick bounds")
+        if self.la == 2:
+            arrs, kern = (ne, ni, t), kernels.trace_along_last_axis
+        elif self.la == 1:
+            arrs, kern = (ne, ni, t), kernels.trace_along_middle_axis
+        else:
+            arrs, kern = tuple(x.transpose(1, 0, 2) for x in (ne, ni, t)), kernels.trace_along_middle_axis
+        (r0, s0), (r1, s1) = self.brick_rays(lo, hi)
+        seg = Segment.empty(self.nfreq, (r1 - r0, s1 - s0))
+        kern(*arrs, self.ds, self.forward, *self.tables.args(), seg.intensity, seg.tau, seg.em)
+        return Patch((r0, s0), seg)
+
+    def finish(self, patch, bg):
+        """Clip every column's square footprint onto the pixels: ``(image Segment, rays per pixel)``."""
+        nfreq = self.nfreq
+        seg = _full_segment(patch, nfreq, self.ray_shape)
+        a, b = self.trans
+        cell = self.cell
+        centers = np.zeros(self.ray_shape + (3,))
+        centers[..., a] = self.origin[a] + (np.arange(self.ray_shape[0])[:, None] + 0.5) * cell[a]
+        centers[..., b] = self.origin[b] + (np.arange(self.ray_shape[1])[None, :] + 0.5) * cell[b]
+        centers[..., self.la] = self.center[self.la]
+        cols, rows = _pixel_coordinates(centers.reshape(-1, 3), self.center, self.west, self.north,
+                                        self.image_shape, self.pix)
+        e1 = cell[a] * np.array([self.west[a], self.north[a]]) / self.pix
+        e2 = cell[b] * np.array([self.west[b], self.north[b]]) / self.pix
+        flat = Segment(seg.intensity.reshape(nfreq, -1), seg.tau.reshape(nfreq, -1), seg.em.ravel())
+        planes = np.zeros((2 * nfreq + 1,) + self.image_shape)
+        _splat(flat, bg, cols, rows, e1, e2, planes)
+        return _planes_to_segment(planes, bg), 1
+
+
+# -- oblique route ------------------------------------------------------------------------------
+
+def _lattice_range(lo, hi, spacing):
+    """Integer lattice indices i with (i + 0.5) * spacing covering [lo, hi]."""
+    return int(math.floor(lo / spacing - 0.5)), int(math.ceil(hi / spacing - 0.5))
+
+
+class _ObliqueRoute(_Route):
+    """Rays on a lattice commensurate with the grid; the ray grid is the sub-lattice (I, J).
+
+    Axes are renamed ``(a, b, c)`` with ``c`` most nearly parallel to the
+    rays. Sub-lattice index ``I`` on axis a is lattice phase ``I mod m_a`` of
+    cell column ``I // m_a``; ray ``(I, J)`` crosses the plane ``x_c = 0``
+    (grid coordinates) at ``((I + 1/2) h_a, (J + 1/2) h_b)``. Ray grid entry
+    ``(r, s)`` is ``(I, J) = (ia0 + r, ib0 + s)``.
+    """
+
+    def __init__(self, snap, view, center, pix, tables, supersample):
+        ny, nx = view.shape
+        cell = np.asarray(snap.cell_size, float)
+        los = np.asarray(view.los, float)
+        c = int(np.argmax(np.abs(los)))
+        a, b = [ax for ax in range(3) if ax != c]
+        size = np.asarray(snap.shape) * cell
+        # lattice in the plane x_c = 0 (grid coordinates): m rays per cell on axes a and b
+        m_a = max(supersample, math.ceil(cell[a] / pix - 1e-9))
+        m_b = max(supersample, math.ceil(cell[b] / pix - 1e-9))
+        h_a, h_b = cell[a] / m_a, cell[b] / m_b
+        rho_a, rho_b = los[a] / los[c], los[b] / los[c]
+        shift_a, shift_b = rho_a * size[c], rho_b * size[c]     # drift of a ray across the grid's depth
+        ia = _lattice_range(-max(shift_a, 0.0), size[a] - min(shift_a, 0.0), h_a)
+        ib = _lattice_range(-max(shift_b, 0.0), size[b] - min(shift_b, 0.0), h_b)
+        # pixel coordinates are affine in the sub-lattice indices: (col, row) = p0 + I e1 + J e2
+        rel_center = center - snap.origin
+        e1 = h_a * np.array([view.west[a], view.north[a]]) / pix
+        e2 = h_b * np.array([view.west[b], view.north[b]]) / pix
+        origin_pt = np.zeros(3)
+        origin_pt[a], origin_pt[b] = 0.5 * h_a, 0.5 * h_b
+        p0 = np.array(_pixel_coordinates(origin_pt, rel_center, view.west, view.north, view.shape, pix))
+        # keep only the part of the lattice whose tubes can touch the image
+        inv = np.linalg.inv(np.column_stack([e1, e2]))
+        margin = np.abs(e1) + np.abs(e2)
+        corners = np.array([[-margin[0], -margin[1]], [nx + margin[0], -margin[1]],
+                            [-margin[0], ny + margin[1]], [nx + margin[0], ny + margin[1]]])
+        ij = (corners - p0) @ inv.T
+        self.ia = (max(ia[0], int(math.floor(ij[:, 0].min()))), min(ia[1], int(math.ceil(ij[:, 0].max()))))
+        self.ib = (max(ib[0], int(math.floor(ij[:, 1].min()))), min(ib[1], int(math.ceil(ij[:, 1].max()))))
+        self.ray_shape = (max(self.ia[1] - self.ia[0] + 1, 0), max(self.ib[1] - self.ib[0] + 1, 0))
+        if 0 in self.ray_shape:
+            self.ray_shape = (0, 0)
+        self.order = np.array([a, b, c], np.int64)
+        self.cell_abc = cell[[a, b, c]]
+        self.m = (m_a, m_b)
+        self.h = (h_a, h_b)
+        self.rho = (rho_a, rho_b)
+        self.abs_lc = abs(los[c])
+        self.forward = bool(los[c] > 0)
+        self.max_seg = 3 + math.ceil(abs(rho_a) * cell[c] / cell[a]) + math.ceil(abs(rho_b) * cell[c] / cell[b])
+        self.e1, self.e2, self.p0 = e1, e2, p0
+        self.image_shape = tuple(view.shape)
+        self.tables = tables
+        self.nfreq = len(tables.nu)
+
+    def _ray_span(self, axis, lo_t, hi_t):
+        """Sub-lattice indices (inclusive) of rays that can visit cells lo_t..hi_t on ``axis`` (0 = a, 1 = b)."""
+        h, rho = self.h[axis], self.rho[axis]
+        cell, cell_c = self.cell_abc[axis], self.cell_abc[2]
+        drift = (rho * lo_t[2] * cell_c, rho * hi_t[2] * cell_c)
+        # a ray at (I + 1/2) h + drift(x_c) over the brick's depth must meet [lo, hi) cells;
+        # one lattice step of margin each side absorbs rounding (extra rays stay the identity)
+        first = math.floor((lo_t[axis] * cell - max(drift)) / h - 0.5) - 1
+        last = math.ceil((hi_t[axis] * cell - min(drift)) / h - 0.5) + 1
+        rng = self.ia if axis == 0 else self.ib
+        return max(first, rng[0]), min(last, rng[1])
+
+    def brick_rays(self, lo, hi):
+        """Ray-grid rectangle ``((r0, s0), (r1, s1))`` of rays that can reach the brick, or None."""
+        if self.ray_shape == (0, 0):
+            return None
+        lo_t, hi_t = np.asarray(lo)[self.order], np.asarray(hi)[self.order]
+        i_first, i_last = self._ray_span(0, lo_t, hi_t)
+        j_first, j_last = self._ray_span(1, lo_t, hi_t)
+        if i_last < i_first or j_last < j_first:
+            return None
+        return ((i_first - self.ia[0], j_first - self.ib[0]),
+                (i_last - self.ia[0] + 1, j_last - self.ib[0] + 1))
+
+    def brick_ray_count(self, edge):
+        """Upper bound on the rays :meth:`brick_rays` gives a cubic brick of ``edge`` cells."""
+        n = []
+        for axis in (0, 1):
+            span = edge * self.cell_abc[axis] + abs(self.rho[axis]) * edge * self.cell_abc[2]
+            n.append(min(math.ceil(span / self.h[axis]) + 4, self.ray_shape[axis]))
+        return n[0] * n[1]
+
+    def table_bytes(self, edge):
+        return 3 * 8 * edge * self.max_seg
+
+    def trace_brick(self, lo, hi, arrays, off):
+        """Segments of the rays reaching cells ``lo <= index < hi``; ``arrays`` start at global index ``off``.
+
+        ``arrays`` may be the whole grid (``off`` = 0) or the brick's own
+        sub-array (``off`` = ``lo``).
+        """
+        rect = self.brick_rays(lo, hi)
+        if rect is None:
+            return None
+        (r0, s0), (r1, s1) = rect
+        i_first, i_last = r0 + self.ia[0], r1 - 1 + self.ia[0]
+        j_first, j_last = s0 + self.ib[0], s1 - 1 + self.ib[0]
+        order = self.order
+        arrs = tuple(x.transpose(order) for x in arrays)
+        lo_t = np.ascontiguousarray(np.asarray(lo, np.int64)[order])
+        hi_t = np.ascontiguousarray(np.asarray(hi, np.int64)[order])
+        off_t = np.ascontiguousarray(np.asarray(off, np.int64)[order])
+        (m_a, m_b), (rho_a, rho_b) = self.m, self.rho
+        cell_a, cell_b, cell_c = self.cell_abc
+        nfreq = self.nfreq
+        seg = Segment.empty(nfreq, (r1 - r0, s1 - s0))
+        for pa in range(m_a):
+            # this phase's rays in the rectangle: I = i m_a + pa, J = j m_b + pb
+            i_lo, i_hi = -((pa - i_first) // m_a), (i_last - pa) // m_a
+            n_i = i_hi - i_lo + 1
+            if n_i <= 0:
+                continue
+            for pb in range(m_b):
+                j_lo, j_hi = -((pb - j_first) // m_b), (j_last - pb) // m_b
+                n_j = j_hi - j_lo + 1
+                if n_j <= 0:
+                    continue
+                segs = kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell_a, cell_b,
+                                              cell_c, self.abs_lc, lo_t[2], hi_t[2], self.forward, self.max_seg)
+                part = Segment.empty(nfreq, (1, n_i * n_j))
+                kernels.trace_sheared(*arrs, lo_t, hi_t, off_t, lo_t[2], self.forward, i_lo, n_i, j_lo, n_j,
+                                      *segs, *self.tables.args(), part.intensity, part.tau, part.em)
+                r = i_lo * m_a + pa - i_first
+                q = j_lo * m_b + pb - j_first
+                sl = (slice(r, r + (n_i - 1) * m_a + 1, m_a), slice(q, q + (n_j - 1) * m_b + 1, m_b))
+                seg.intensity[(slice(None),) + sl] = part.intensity.reshape(nfreq, n_i, n_j)
+                seg.tau[(slice(None),) + sl] = part.tau.reshape(nfreq, n_i, n_j)
+                seg.em[sl] = part.em.reshape(n_i, n_j)
+        return Patch((r0, s0), seg)
+
+    def finish(self, patch, bg):
+        """Remap every ray's tube onto the pixels: ``(image Segment, rays per pixel)``."""
+        ny, nx = self.image_shape
+        planes = np.zeros((2 * self.nfreq + 1, ny, nx))
+        if self.ray_shape == (0, 0):
+            return _planes_to_segment(planes, bg), 0.0
+        seg = _full_segment(patch, self.nfreq, self.ray_shape)
+        big_i = (self.ia[0] + np.arange(self.ray_shape[0]))[:, None]
+        big_j = (self.ib[0] + np.arange(self.ray_shape[1]))[None, :]
+        e1, e2, p0 = self.e1, self.e2, self.p0
+        cols = (p0[0] + big_i * e1[0] + big_j * e2[0]).ravel()
+        rows = (p0[1] + big_i * e1[1] + big_j * e2[1]).ravel()
+        flat = Segment(seg.intensity.reshape(self.nfreq, -1), seg.tau.reshape(self.nfreq, -1), seg.em.ravel())
+        _splat(flat, bg, cols, rows, e1, e2, planes)
+        return _planes_to_segment(planes, bg), self.ray_count / (nx * ny)
 
 
 def _splat(seg, bg, cols, rows, e1, e2, planes):
@@ -143,133 +504,10 @@ def _planes_to_segment(planes, bg):
     return Segment(planes[:nfreq] + bg[:, None, None], planes[nfreq:2 * nfreq], planes[-1])
 
 
-def _pixel_coordinates(points, center, view, pix):
+def _pixel_coordinates(points, center, west, north, image_shape, pix):
     """Image-plane position (column, row), in pixel units, of points (..., 3) in cm."""
-    ny, nx = view.shape
+    ny, nx = image_shape
     rel = points - center
-    return rel @ view.west / pix + nx / 2, rel @ view.north / pix + ny / 2
+    return rel @ west / pix + nx / 2, rel @ north / pix + ny / 2
 
 
-# -- axis-aligned route -------------------------------------------------------------------------
-
-def _trace_axis_aligned(snap, view, center, pix, tables, bg):
-    la, ls = view.los_axis()
-    ne, ni, t = snap._ne, snap._ni, snap._t
-    ds = float(snap.cell_size[la])
-    forward = ls > 0
-    nfreq = len(tables.nu)
-    if la == 2:
-        arrays, kern, trans = (ne, ni, t), kernels.trace_along_last_axis, (0, 1)
-    elif la == 1:
-        arrays, kern, trans = (ne, ni, t), kernels.trace_along_middle_axis, (0, 2)
-    else:
-        arrays, kern, trans = tuple(a.transpose(1, 0, 2) for a in (ne, ni, t)), kernels.trace_along_middle_axis, (1, 2)
-    shape2 = (snap.shape[trans[0]], snap.shape[trans[1]])
-    seg = Segment.empty(nfreq, shape2)
-    kern(*arrays, ds, forward, *tables.args(), seg.intensity, seg.tau, seg.em)
-    # each column is a tube with the cell's square footprint: clip it onto the pixels
-    a, b = trans
-    cell = snap.cell_size
-    centers = np.zeros(shape2 + (3,))
-    centers[..., a] = snap.origin[a] + (np.arange(shape2[0])[:, None] + 0.5) * cell[a]
-    centers[..., b] = snap.origin[b] + (np.arange(shape2[1])[None, :] + 0.5) * cell[b]
-    centers[..., la] = center[la]
-    cols, rows = _pixel_coordinates(centers.reshape(-1, 3), center, view, pix)
-    e1 = cell[a] * np.array([view.west[a], view.north[a]]) / pix
-    e2 = cell[b] * np.array([view.west[b], view.north[b]]) / pix
-    flat = Segment(seg.intensity.reshape(nfreq, -1), seg.tau.reshape(nfreq, -1), seg.em.ravel())
-    planes = np.zeros((2 * nfreq + 1,) + view.shape)
-    _splat(flat, bg, cols, rows, e1, e2, planes)
-    return _planes_to_segment(planes, bg), 1
-
-
-# -- oblique route ------------------------------------------------------------------------------
-
-def _bricks(shape, brick_size, direction, cell):
-    """Brick index bounds, ordered front to back (nearest the observer first)."""
-    if brick_size is None:
-        return [(np.zeros(3, np.int64), np.asarray(shape, np.int64))]
-    b = int(brick_size)
-    if b < 1:
-        raise InputError(f"brick_size: must be a positive integer, got {brick_size}")
-    starts = [range(0, n, b) for n in shape]
-    out = []
-    for i in starts[0]:
-        for j in starts[1]:
-            for k in starts[2]:
-                lo = np.array([i, j, k], np.int64)
-                out.append((lo, np.minimum(lo + b, shape).astype(np.int64)))
-    # For parallel rays through a regular partition, decreasing depth of the brick
-    # centres along the direction of travel is a valid front-to-back order.
-    out.sort(key=lambda lh: -float(((lh[0] + lh[1]) * 0.5 * cell) @ direction))
-    return out
-
-
-def _lattice_range(lo, hi, spacing):
-    """Integer lattice indices i with (i + 0.5) * spacing covering [lo, hi]."""
-    return int(math.floor(lo / spacing - 0.5)), int(math.ceil(hi / spacing - 0.5))
-
-
-def _trace_oblique(snap, view, center, pix, tables, bg, supersample, brick_size):
-    ny, nx = view.shape
-    cell = snap.cell_size
-    los = np.asarray(view.los, float)
-    c = int(np.argmax(np.abs(los)))
-    a, b = [ax for ax in range(3) if ax != c]
-    size = np.asarray(snap.shape) * cell
-    # lattice in the plane x_c = 0 (grid coordinates): m rays per cell on axes a and b
-    m_a = max(supersample, math.ceil(cell[a] / pix - 1e-9))
-    m_b = max(supersample, math.ceil(cell[b] / pix - 1e-9))
-    h_a, h_b = cell[a] / m_a, cell[b] / m_b
-    rho_a, rho_b = los[a] / los[c], los[b] / los[c]
-    shift_a, shift_b = rho_a * size[c], rho_b * size[c]     # drift of a ray across the grid's depth
-    ia = _lattice_range(-max(shift_a, 0.0), size[a] - min(shift_a, 0.0), h_a)
-    ib = _lattice_range(-max(shift_b, 0.0), size[b] - min(shift_b, 0.0), h_b)
-    # pixel coordinates are affine in the sub-lattice indices: (col, row) = p0 + I e1 + J e2
-    rel_center = center - snap.origin
-    e1 = h_a * np.array([view.west[a], view.north[a]]) / pix
-    e2 = h_b * np.array([view.west[b], view.north[b]]) / pix
-    origin_pt = np.zeros(3)
-    origin_pt[a], origin_pt[b] = 0.5 * h_a, 0.5 * h_b
-    p0 = np.array(_pixel_coordinates(origin_pt, rel_center, view, pix))
-    # keep only the part of the lattice whose tubes can touch the image
-    inv = np.linalg.inv(np.column_stack([e1, e2]))
-    margin = np.abs(e1) + np.abs(e2)
-    corners = np.array([[-margin[0], -margin[1]], [nx + margin[0], -margin[1]],
-                        [-margin[0], ny + margin[1]], [nx + margin[0], ny + margin[1]]])
-    ij = (corners - p0) @ inv.T
-    ia = (max(ia[0], int(math.floor(ij[:, 0].min()))), min(ia[1], int(math.ceil(ij[:, 0].max()))))
-    ib = (max(ib[0], int(math.floor(ij[:, 1].min()))), min(ib[1], int(math.ceil(ij[:, 1].max()))))
-    nfreq = len(tables.nu)
-    planes = np.zeros((2 * nfreq + 1, ny, nx))
-    if ia[1] < ia[0] or ib[1] < ib[0]:
-        return _planes_to_segment(planes, bg), 0.0
-    order = (a, b, c)
-    arrays = tuple(arr.transpose(order) for arr in (snap._ne, snap._ni, snap._t))
-    forward = bool(los[c] > 0)
-    max_seg = 3 + math.ceil(abs(rho_a) * cell[c] / cell[a]) + math.ceil(abs(rho_b) * cell[c] / cell[b])
-    bricks = [(lo[list(order)], hi[list(order)]) for lo, hi in _bricks(snap.shape, brick_size, los, cell)]
-    n_traced = 0
-    for pa in range(m_a):
-        for pb in range(m_b):
-            # this phase's rays: sub-lattice indices I = i m_a + pa, J = j m_b + pb
-            i_lo, i_hi = -((pa - ia[0]) // m_a), (ia[1] - pa) // m_a
-            j_lo, j_hi = -((pb - ib[0]) // m_b), (ib[1] - pb) // m_b
-            n_i, n_j = i_hi - i_lo + 1, j_hi - j_lo + 1
-            if n_i <= 0 or n_j <= 0:
-                continue
-            acc = None
-            for lo, hi in bricks:
-                segs = kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell[a], cell[b],
-                                              cell[c], abs(los[c]), lo[2], hi[2], forward, max_seg)
-                part = Segment.empty(nfreq, (1, n_i * n_j))
-                kernels.trace_sheared(*arrays, lo, hi, lo[2], forward, i_lo, n_i, j_lo, n_j, *segs,
-                                      *tables.args(), part.intensity, part.tau, part.em)
-                acc = part if acc is None else composite(acc, part)
-            big_i = (np.arange(i_lo, i_hi + 1) * m_a + pa)[:, None]
-            big_j = (np.arange(j_lo, j_hi + 1) * m_b + pb)[None, :]
-            cols = (p0[0] + big_i * e1[0] + big_j * e2[0]).ravel()
-            rows = (p0[1] + big_i * e1[1] + big_j * e2[1]).ravel()
-            _splat(Segment(acc.intensity[:, 0], acc.tau[:, 0], acc.em[0]), bg, cols, rows, e1, e2, planes)
-            n_traced += n_i * n_j
-    return _planes_to_segment(planes, bg), n_traced / (nx * ny)

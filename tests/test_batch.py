@@ -1,0 +1,502 @@
+"""Series of snapshots, shared colour scales, the resume manifest and [parallel] settings.
+
+Small demo snapshots (16 cells, 16 pixels, two frequencies); pictures only where a test is about them.
+"""
+
+import importlib.util
+import inspect
+import json
+import os
+import textwrap
+
+import astropy.units as u
+import h5py
+import matplotlib
+import numpy as np
+import pytest
+from astropy.io import fits
+
+matplotlib.use("Agg")              # no display in tests
+
+import rtrace                                      # noqa: E402
+from rtrace import pipeline, plot                  # noqa: E402
+from rtrace.errors import ConfigError, InputError  # noqa: E402
+from rtrace.io import atomic                       # noqa: E402
+from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key   # noqa: E402
+from rtrace.job import load_job, override_parallel, run_job   # noqa: E402
+
+SERIES = """
+[snapshot]
+kind = "demo"
+cells = 16
+seeds = [1, 2, 3]
+
+[frequencies]
+values = ["1 GHz", "10 GHz"]
+
+[[view]]
+name = "a"
+npix = 16
+distance = "2 kpc"
+
+[beam]
+major = "60 arcsec"
+
+[noise]
+rms = "0.1 mJy"
+seed = 3
+
+[output]
+directory = "out"
+pictures = false
+"""
+
+PER_SEED = ["a_intensity.fits", "a_tau.fits", "a_emission_measure.fits", "a_brightness_temperature.fits",
+            "a_jy_per_beam.fits", "a_sed.csv"]
+
+
+def write(tmp_path, text, name="job.toml"):
+    path = tmp_path / name
+    path.write_text(textwrap.dedent(text))
+    return path
+
+
+def expected(out, seeds=(1, 2, 3)):
+    return {str(out / f"seed{s}" / n) for s in seeds for n in PER_SEED}
+
+
+def stamps(paths):
+    """(inode, mtime_ns) of each path: both change when a file is rewritten (atomically replaced)."""
+    return {p: (os.stat(p).st_ino, os.stat(p).st_mtime_ns) for p in paths}
+
+
+def hidden_leftovers(out):
+    """Temporary files or caches left in the output tree (the manifest is the only hidden file kept)."""
+    return [p for p in out.rglob(".*") if p.name != MANIFEST_NAME]
+
+
+def recorded(out):
+    data = json.loads((out / MANIFEST_NAME).read_text())
+    return {str(out / name) for name in data["outputs"]}
+
+
+class Counter:
+    """Wraps a function and counts its calls."""
+
+    def __init__(self, func):
+        self.func, self.calls = func, 0
+
+    def __call__(self, *args, **kwargs):
+        self.calls += 1
+        return self.func(*args, **kwargs)
+
+
+def crashing_record(fail_after, counts=lambda path: True):
+    """Manifest.record that raises once the ``fail_after``-th counted output has been recorded."""
+    real = Manifest.record
+    seen = []
+
+    def record(self, path, inputs):
+        entry = real(self, path, inputs)
+        if counts(str(path)):
+            seen.append(path)
+            if len(seen) >= fail_after:
+                raise RuntimeError("simulated crash")
+        return entry
+    return record
+
+
+# --- layout -------------------------------------------------------------------------------------
+
+def test_series_writes_one_folder_per_snapshot_and_a_verifiable_manifest(tmp_path):
+    job = load_job(write(tmp_path, SERIES))
+    assert job.series and [m["label"] for m in job.snapshots] == ["seed1", "seed2", "seed3"]
+    out = tmp_path / "out"
+    written = run_job(job)
+    assert set(written) == expected(out) and len(written) == 18 and written.skipped == []
+    assert not hidden_leftovers(out)
+    # each folder holds its own snapshot: emission measures differ between seeds
+    em = [fits.getdata(out / f"seed{s}" / "a_emission_measure.fits") for s in (1, 2)]
+    assert em[0].shape == em[1].shape and not np.allclose(em[0], em[1])
+    data = json.loads((out / MANIFEST_NAME).read_text())
+    assert data["format"] == "rtrace-manifest" and data["version"] == 1
+    for name, entry in data["outputs"].items():
+        path = out / name
+        assert entry["size"] == path.stat().st_size and entry["sha256"] == file_sha256(path)
+        assert len(entry["inputs"]) == 64
+
+
+def test_inputs_key_is_order_independent_and_unit_aware():
+    a = inputs_key({"x": 1 * u.GHz, "y": [1, 2]})
+    assert a == inputs_key({"y": [1, 2], "x": 1 * u.GHz})
+    assert a != inputs_key({"x": 1 * u.MHz, "y": [1, 2]})
+
+
+# --- resume ------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("how", ["after_output", "during_write"])
+def test_interrupted_batch_resumes_with_exactly_the_missing_outputs(tmp_path, monkeypatch, how):
+    job_path = write(tmp_path, SERIES)
+    out = tmp_path / "out"
+    with monkeypatch.context() as m:
+        if how == "after_output":
+            # the crash comes right after the 7th output was recorded as finished
+            m.setattr(Manifest, "record", crashing_record(7))
+        else:
+            # the crash comes inside atomic_path, after a file's bytes are written, before its rename
+            real = atomic._fsync_file
+            calls = []
+
+            def crash(path):
+                calls.append(path)
+                if len(calls) == 11:
+                    raise RuntimeError("simulated crash")
+                real(path)
+            m.setattr(atomic, "_fsync_file", crash)
+        with pytest.raises(RuntimeError, match="simulated crash"):
+            run_job(load_job(job_path))
+    assert not hidden_leftovers(out)                     # no temporary file survives the crash
+    done = recorded(out)
+    present = {str(p) for p in out.rglob("*") if p.is_file() and p.name != MANIFEST_NAME}
+    assert done and done < expected(out) and done <= present
+    if how == "after_output":
+        assert len(done) == 7 and present == done
+    for p in done:                                       # what the manifest calls finished is intact
+        entry = json.loads((out / MANIFEST_NAME).read_text())["outputs"][os.path.relpath(p, out)]
+        assert os.stat(p).st_size == entry["size"] and file_sha256(p) == entry["sha256"]
+    before = stamps(done)
+    again = run_job(load_job(job_path))
+    assert set(again) == expected(out) - done
+    assert set(again.skipped) == done
+    assert stamps(done) == before                        # finished outputs were not rewritten
+    assert recorded(out) == expected(out)
+    for p in again:
+        if p.endswith(".fits"):
+            assert fits.getdata(p).shape[-2:] == (16, 16)
+    assert not hidden_leftovers(out)
+
+
+def test_truncated_edited_and_missing_outputs_are_redone(tmp_path, monkeypatch):
+    job_path = write(tmp_path, SERIES)
+    out = tmp_path / "out"
+    run_job(load_job(job_path))
+    truncated, edited, deleted = out / "seed2/a_tau.fits", out / "seed3/a_sed.csv", out / "seed1/a_intensity.fits"
+    full_size = truncated.stat().st_size
+    with open(truncated, "r+b") as f:
+        f.truncate(full_size // 2)
+    text = bytearray(edited.read_bytes())
+    text[-2] = ord("7") if text[-2] != ord("7") else ord("8")    # same size, different content
+    edited.write_bytes(bytes(text))
+    deleted.unlink()
+    damaged = {str(truncated), str(edited), str(deleted)}
+    untouched = expected(out) - damaged
+    before = stamps(untouched)
+    traces = Counter(rtrace.trace)
+    monkeypatch.setattr(rtrace, "trace", traces)
+    again = run_job(load_job(job_path))
+    assert set(again) == damaged and set(again.skipped) == untouched
+    assert traces.calls == 3                             # one view of each damaged snapshot
+    assert stamps(untouched) == before
+    assert truncated.stat().st_size == full_size and fits.getdata(truncated).shape == (2, 16, 16)
+    np.loadtxt(edited, delimiter=",", comments="#", skiprows=1, ndmin=2)
+
+
+def test_changed_settings_redo_only_the_outputs_they_affect(tmp_path):
+    job_path = write(tmp_path, SERIES)
+    out = tmp_path / "out"
+    run_job(load_job(job_path))
+    observed = {str(out / f"seed{s}" / n) for s in (1, 2, 3) for n in ("a_jy_per_beam.fits", "a_sed.csv")}
+    before = stamps(expected(out) - observed)
+    # the noise changes the observed map and its SED, not the model cubes
+    again = run_job(load_job(write(tmp_path, SERIES.replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))))
+    assert set(again) == observed
+    assert stamps(expected(out) - observed) == before
+    # a different set of snapshots: only the new one is made
+    again = run_job(load_job(write(tmp_path, SERIES.replace("[1, 2, 3]", "[1, 2, 3, 4]")
+                                   .replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))))
+    assert set(again) == expected(out, seeds=(4,))
+    # the view geometry changes every output
+    again = run_job(load_job(write(tmp_path, SERIES.replace("npix = 16", "npix = 12"))))
+    assert set(again) == expected(out)
+    assert fits.getdata(out / "seed1/a_tau.fits").shape == (2, 12, 12)
+
+
+def test_restart_ignores_the_manifest(tmp_path):
+    job_path = write(tmp_path, SERIES)
+    out = tmp_path / "out"
+    run_job(load_job(job_path))
+    before = stamps(expected(out))
+    again = run_job(load_job(job_path), restart=True)
+    assert set(again) == expected(out) and again.skipped == []
+    after = stamps(expected(out))
+    assert all(after[p] != before[p] for p in before)
+    assert recorded(out) == expected(out)
+
+
+def test_unreadable_manifest_is_ignored_with_a_warning(tmp_path):
+    job_path = write(tmp_path, SERIES.replace("[1, 2, 3]", "[1]"))
+    out = tmp_path / "out"
+    run_job(load_job(job_path))
+    (out / MANIFEST_NAME).write_text("{not json")
+    with pytest.warns(UserWarning, match="unreadable"):
+        again = run_job(load_job(job_path))
+    assert set(again) == expected(out, seeds=(1,))
+
+
+# --- HDF5 series -------------------------------------------------------------------------------
+
+def snapshot_file(path, scale):
+    x = np.linspace(-1, 1, 8)
+    r2 = x[:, None, None] ** 2 + x[None, :, None] ** 2 + x[None, None, :] ** 2
+    with h5py.File(path, "w") as f:
+        f.create_dataset("T", data=np.full((8, 8, 8), 1e4)).attrs["units"] = "K"
+        f.create_dataset("ne", data=scale * 100.0 * np.exp(-r2)).attrs["units"] = "cm**-3"
+
+
+HDF5_SERIES = """
+[snapshot]
+kind = "hdf5"
+pattern = "run/snap_*.h5"
+temperature = "T"
+electron_density = "ne"
+cell_size = "0.01 pc"
+
+[frequencies]
+values = ["1 GHz"]
+
+[[view]]
+name = "z"
+npix = 8
+distance = "1 kpc"
+
+[output]
+directory = "out"
+pictures = false
+"""
+
+
+def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
+    (tmp_path / "run").mkdir()
+    for i, scale in ((20, 2.0), (10, 1.0)):
+        snapshot_file(tmp_path / "run" / f"snap_{i:04d}.h5", scale)
+    job = load_job(write(tmp_path, HDF5_SERIES))
+    assert [m["label"] for m in job.snapshots] == ["snap_0010", "snap_0020"]        # sorted
+    out = tmp_path / "out"
+    names = ["z_intensity.fits", "z_tau.fits", "z_emission_measure.fits", "z_brightness_temperature.fits",
+             "z_sed.csv"]
+    all_outputs = {str(out / lab / n) for lab in ("snap_0010", "snap_0020") for n in names}
+    assert set(run_job(job)) == all_outputs
+    em10, em20 = (fits.getdata(out / lab / "z_emission_measure.fits") for lab in ("snap_0010", "snap_0020"))
+    assert em20.max() == pytest.approx(4 * em10.max(), rel=1e-5)     # EM ~ n_e^2: each file was traced
+    # a snapshot written again (new mtime) redoes its own outputs only
+    snapshot_file(tmp_path / "run" / "snap_0010.h5", 3.0)
+    st = os.stat(tmp_path / "run" / "snap_0010.h5")
+    os.utime(tmp_path / "run" / "snap_0010.h5", ns=(st.st_atime_ns, st.st_mtime_ns + 10**9))
+    again = run_job(load_job(tmp_path / "job.toml"))
+    assert set(again) == {p for p in all_outputs if "snap_0010" in p}
+    assert fits.getdata(out / "snap_0010/z_emission_measure.fits").max() == pytest.approx(9 * em10.max(), rel=1e-5)
+
+
+# --- shared colour scales ----------------------------------------------------------------------
+
+def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path, monkeypatch):
+    text = SERIES.replace("[1, 2, 3]", "[1, 2]").replace("pictures = false", "pictures = true\nfits = false")
+    job_path = write(tmp_path, text)
+    out = tmp_path / "out"
+    drawn = []
+
+    def spy(func):
+        def wrapper(obj, *args, **kwargs):
+            fig = func(obj, *args, **kwargs)
+            image = fig.axes[0].get_images()[0]
+            drawn.append({"path": kwargs["path"], "obj": obj, "kw": kwargs, "norm": image.norm,
+                          "quantity": kwargs.get("quantity")})
+            return fig
+        return wrapper
+    monkeypatch.setattr(plot, "plot_panels", spy(plot.plot_panels))
+    monkeypatch.setattr(plot, "plot_map", spy(plot.plot_map))
+    traces = Counter(rtrace.trace)
+    monkeypatch.setattr(rtrace, "trace", traces)
+    with monkeypatch.context() as m:
+        # interrupted after the second series picture (all tracing done, pictures half drawn)
+        m.setattr(Manifest, "record", crashing_record(2, lambda p: p.endswith(".png") and not p.endswith("_sed.png")))
+        with pytest.raises(RuntimeError, match="simulated crash"):
+            run_job(load_job(job_path))
+    assert traces.calls == 2 and len(drawn) == 2
+    first = recorded(out)
+    again = run_job(load_job(job_path))
+    assert traces.calls == 2                      # resumed from the cached results: nothing traced again
+    pictures = {str(out / f"seed{s}" / f"a_{q}.png") for s in (1, 2)
+                for q in ("intensity", "tau", "brightness_temperature", "emission_measure", "spectral_index")}
+    assert set(again) == pictures - first and len(drawn) == 10
+    assert not hidden_leftovers(out)              # the cache is gone once the series is complete
+
+    by_q = {}
+    for d in drawn:
+        by_q.setdefault(d["quantity"], []).append(d)
+    assert set(by_q) == {"intensity", "tau", "brightness_temperature", "emission_measure", "spectral_index"}
+    for q, items in by_q.items():
+        assert len(items) == 2, q                 # one per snapshot, across the two runs
+        a, b = (d["norm"] for d in items)
+        assert (a.vmin, a.vmax) == pytest.approx((b.vmin, b.vmax)), q
+    # the shared scale spans both snapshots' images, so at least one is drawn on a wider scale than alone
+    tau_max = [float(np.max(d["obj"].tau)) for d in by_q["tau"]]
+    assert by_q["tau"][0]["norm"].vmax == pytest.approx(max(tau_max))
+    assert min(tau_max) < 0.9 * max(tau_max)
+    em_max = [float(d["obj"].emission_measure.to_value(u.pc * u.cm**-6).max()) for d in by_q["emission_measure"]]
+    assert by_q["emission_measure"][0]["norm"].vmax == pytest.approx(max(em_max))
+    jy = [float(d["obj"].data.to_value(u.Jy / u.beam).max()) for d in by_q["intensity"]]
+    for d in by_q["intensity"]:
+        assert d["kw"]["vmax"].to_value(u.Jy / u.beam) == pytest.approx(max(jy))
+
+    # a deleted picture: only it is drawn again, from one retraced view (the cache is gone)
+    (out / "seed1/a_tau.png").unlink()
+    again = run_job(load_job(job_path))
+    assert list(again) == [str(out / "seed1/a_tau.png")] and traces.calls == 3
+    assert drawn[-1]["norm"].vmax == pytest.approx(max(tau_max))
+
+
+@pytest.fixture(scope="module")
+def observed():
+    from rtrace import demo
+    res = rtrace.trace(demo.scenario(n=16, seed=2), rtrace.View(npix=16, distance=2 * u.kpc),
+                       [1, 10] * u.GHz)
+    import radio_beam
+    # noise well above the faintest emission, so that the intensity map has negative pixels
+    sky = res.observe(beam=radio_beam.Beam(60 * u.arcsec), noise=0.3 * u.Jy / u.beam, seed=1)
+    return res, sky
+
+
+@pytest.mark.parametrize("quantity,kind", [("intensity", "panels"), ("tau", "panels"),
+                                           ("spectral_index", "map")])
+def test_a_series_of_one_gets_the_automatic_scale(observed, quantity, kind):
+    """The series limits follow the automatic rules: one snapshot alone looks as it would without them."""
+    res, sky = observed
+    lim = pipeline._series_limits([pipeline._ranges(res, sky, 2)])[quantity]
+    obj = sky if quantity != "tau" else res
+    kw = {"frequency": (1 * u.GHz, 10 * u.GHz)} if kind == "map" else {}
+    draw = plot.plot_map if kind == "map" else plot.plot_panels
+    auto = draw(obj, quantity=quantity, **kw).axes[0].get_images()[0].norm
+    given = draw(obj, quantity=quantity, vmin=u.Quantity(lim["vmin"], lim["unit"]),
+                 vmax=u.Quantity(lim["vmax"], lim["unit"]), **kw).axes[0].get_images()[0].norm
+    assert type(given) is type(auto)
+    assert (given.vmin, given.vmax) == pytest.approx((auto.vmin, auto.vmax), rel=1e-12)
+    if quantity == "intensity":
+        assert lim["vmin"] < 0                       # noise: negative pixels set the lower end
+
+
+def test_plot_vmin_vmax(observed):
+    res, sky = observed
+    norm = plot.plot_map(res, quantity="tau", vmin=0.0, vmax=20.0, stretch="linear").axes[0].get_images()[0].norm
+    assert (norm.vmin, norm.vmax) == (0.0, 20.0)
+    # a limit in any flux unit is converted to the plotted one: Jy/beam for this map, mJy/pixel
+    # (the prefix of its peak) for the unconvolved one
+    peak = float(sky.data[0].to_value(u.Jy / u.beam).max())
+    fig = plot.plot_map(sky, quantity="intensity", vmax=2e3 * peak * u.mJy / u.beam, stretch="linear")
+    image = fig.axes[0].get_images()[0]
+    assert "(Jy beam" in fig.axes[1].get_ylabel() and image.norm.vmax == pytest.approx(2 * image.get_array().max())
+    pix = float(res.flux_density().to_value(u.Jy).max())          # more than any one pixel
+    fig = plot.plot_map(res, quantity="intensity", vmax=pix * u.Jy / u.pix, stretch="linear")
+    assert "(mJy pixel" in fig.axes[1].get_ylabel()
+    assert fig.axes[0].get_images()[0].norm.vmax == pytest.approx(1e3 * pix)
+    with pytest.raises(InputError, match="vmax: '1.0 K' cannot be converted"):
+        plot.plot_map(sky, quantity="intensity", vmax=1 * u.K)
+    with pytest.raises(InputError, match="vmax: must exceed vmin"):
+        plot.plot_panels(res, quantity="tau", vmin=2.0, vmax=1.0)
+
+
+# --- [parallel] --------------------------------------------------------------------------------
+
+def old_trace(snapshot, view, frequencies, *, background=None, supersample=1):
+    """The signature of an rtrace build without cluster support."""
+    return RealTrace.func(snapshot, view, frequencies, background=background, supersample=supersample)
+
+
+class RealTrace:
+    func = staticmethod(rtrace.trace)
+
+
+def test_parallel_settings_need_a_trace_that_takes_them(tmp_path, monkeypatch):
+    monkeypatch.setattr(rtrace, "trace", old_trace)
+    job = load_job(write(tmp_path, SERIES + '\n[parallel]\nworkers = 2\nmax_memory = "1 GB"\n'))
+    with pytest.raises(ConfigError, match=r"\[parallel\]: this rtrace build cannot trace on a dask cluster "
+                                          r"\('scheduler' / 'workers'\) or bound its memory use"):
+        run_job(job)
+    assert not (tmp_path / "out").exists()          # refused before any work
+
+
+def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatch):
+    import dask.distributed
+
+    seen, made = [], []
+
+    def new_trace(snapshot, view, frequencies, *, background=None, supersample=1, client=None, max_memory=None):
+        seen.append((client, max_memory))
+        return RealTrace.func(snapshot, view, frequencies, background=background, supersample=supersample)
+
+    class Cluster:
+        def __init__(self, **kw):
+            self.kw, self.closed = kw, False
+            made.append(self)
+
+        def close(self):
+            self.closed = True
+
+    class Client:
+        def __init__(self, target):
+            self.target, self.closed = target, False
+            made.append(self)
+
+        def close(self):
+            self.closed = True
+
+    monkeypatch.setattr(rtrace, "trace", new_trace)
+    monkeypatch.setattr(dask.distributed, "LocalCluster", Cluster)
+    monkeypatch.setattr(dask.distributed, "Client", Client)
+    text = SERIES.replace("[1, 2, 3]", "[1, 2]") + '\n[parallel]\nworkers = 3\nmax_memory = "2 GB"\n'
+    job = load_job(write(tmp_path, text))
+    run_job(job)
+    cluster, client = made
+    assert cluster.kw == {"n_workers": 3, "threads_per_worker": 1} and client.target is cluster
+    assert [c for c, _ in seen] == [client, client]         # one client for the whole series
+    assert all(m == 2_000_000_000 * u.byte for _, m in seen)
+    assert cluster.closed and client.closed
+    run_job(job)                                           # everything up to date: no cluster started
+    assert len(made) == 2
+    override_parallel(job, scheduler="tcp://127.0.0.1:8786")
+    run_job(job, restart=True)
+    assert made[2].target == "tcp://127.0.0.1:8786" and seen[-1][0] is made[2]
+
+
+def _trace_takes(keyword, module=None):
+    if keyword not in inspect.signature(rtrace.trace).parameters:
+        return False
+    return module is None or importlib.util.find_spec(module) is not None
+
+
+def _same_images(serial, other):
+    for a, b in zip(sorted(serial), sorted(other)):
+        if a.endswith(("_tau.fits", "_emission_measure.fits", "_intensity.fits")):
+            np.testing.assert_allclose(fits.getdata(b), fits.getdata(a), rtol=1e-5, atol=1e-30)
+
+
+@pytest.mark.skipif(not _trace_takes("max_memory"), reason="this rtrace build cannot bound trace memory yet")
+def test_max_memory_gives_the_images_of_an_unbounded_run(tmp_path):
+    text = SERIES.replace("[1, 2, 3]", "[1]").replace("npix = 16", "npix = 16\nlos = [0, 0.6, 0.8]")
+    serial = run_job(load_job(write(tmp_path, text)))
+    bounded = run_job(load_job(write(tmp_path, text.replace('directory = "out"', 'directory = "mem"')
+                                     + '\n[parallel]\nmax_memory = "1 MB"\n')))
+    assert len(bounded) == len(serial)
+    _same_images(serial, bounded)
+
+
+@pytest.mark.skipif(not _trace_takes("client", "rtrace.parallel"),
+                    reason="this rtrace build has no cluster support in rtrace.trace yet")
+def test_local_cluster_gives_the_serial_images(tmp_path):
+    text = SERIES.replace("[1, 2, 3]", "[1]")
+    serial = run_job(load_job(write(tmp_path, text)))
+    par = load_job(write(tmp_path, text.replace('directory = "out"', 'directory = "par"')
+                         + "\n[parallel]\nworkers = 1\n"))
+    parallel = run_job(par)
+    assert len(parallel) == len(serial)
+    _same_images(serial, parallel)
