@@ -15,5 +15,5 @@ from .io.lazy import open_hdf5
 
 __version__ = "0.1.0"
 
-__all__ = ["Snapshot", "View", "Result", "trace", "physics", "RtraceError", "InputError",
+__all__ = ["Snapshot", "View", "Result", "trace", "open_hdf5", "physics", "RtraceError", "InputError",
            "ConfigError", "PhysicsRangeWarning", "__version__"]
