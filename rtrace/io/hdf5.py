@@ -157,6 +157,33 @@ def _root_length(handle, key, unit_keys, path):
                      "as a Quantity")
 
 
+def checked_names(wanted, units):
+    """Drop unused fields; every name must be a string and every ``units`` key a dataset being read."""
+    wanted = {param: name for param, name in wanted.items() if name is not None}
+    for param, name in wanted.items():
+        if not isinstance(name, str):
+            raise InputError(f"{param}: expected a dataset name (str), got {type(name).__name__}")
+    unknown = sorted(set(units) - set(wanted.values()))
+    if unknown:
+        raise InputError(f"units: {', '.join(repr(k) for k in unknown)} name(s) no dataset being "
+                         f"read (datasets read: {', '.join(repr(v) for v in wanted.values())})")
+    return wanted
+
+
+def open_fields(handle, wanted, units, path):
+    """The datasets of ``wanted`` in an open file, their common shape and units (shape and units checked)."""
+    temperature = wanted["temperature"]
+    datasets = {param: _dataset(handle, name, param, path) for param, name in wanted.items()}
+    shape = datasets["temperature"].shape
+    for param, ds in datasets.items():
+        if ds.shape != shape:
+            raise InputError(f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
+                             f"temperature '{temperature}' has shape {shape}")
+    field_units = {param: _unit(ds, wanted[param], param, units, required=param != "ionization")
+                   for param, ds in datasets.items()}
+    return datasets, shape, field_units
+
+
 def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, density=None,
               ionization=None, composition=None, helium=None, cell_size=None, origin=None,
               units=None, subvolume=None, dtype=np.float32):
@@ -234,28 +261,14 @@ def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
         fraction_name = ionization.field_name
     if fraction_name is not None:
         wanted["ionization"] = fraction_name
-    wanted = {param: name for param, name in wanted.items() if name is not None}
-    for param, name in wanted.items():
-        if not isinstance(name, str):
-            raise InputError(f"{param}: expected a dataset name (str), got {type(name).__name__}")
-    unknown = sorted(set(units) - set(wanted.values()))
-    if unknown:
-        raise InputError(f"units: {', '.join(repr(k) for k in unknown)} name(s) no dataset being "
-                         f"read (datasets read: {', '.join(repr(v) for v in wanted.values())})")
+    wanted = checked_names(wanted, units)
 
     try:
         handle = h5py.File(path, "r")
     except OSError as exc:
         raise InputError(f"path: '{path}' cannot be opened as an HDF5 file ({exc})") from None
     with handle:
-        datasets = {param: _dataset(handle, name, param, path) for param, name in wanted.items()}
-        shape = datasets["temperature"].shape
-        for param, ds in datasets.items():
-            if ds.shape != shape:
-                raise InputError(f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
-                                 f"temperature '{temperature}' has shape {shape}")
-        field_units = {param: _unit(ds, wanted[param], param, units, required=param != "ionization")
-                       for param, ds in datasets.items()}
+        datasets, shape, field_units = open_fields(handle, wanted, units, path)
         if cell_size is None:
             if "cell_size" not in handle.attrs:
                 raise InputError(f"cell_size: not given and '{path}' has no root attribute "

@@ -34,7 +34,7 @@ from ..errors import InputError, PhysicsRangeWarning
 from ..physics.constants import PC
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE
 from ..snapshot import Snapshot, _vector3
-from .hdf5 import _FIELD_UNITS, _MODEL_NAMES, _dataset, _root_length, _unit
+from .hdf5 import _FIELD_UNITS, _MODEL_NAMES, _root_length, checked_names, open_fields
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
 
@@ -524,28 +524,14 @@ def open_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
                                  "brick by brick; give it the name of a dataset in the file instead")
         if fraction_name is not None:
             wanted["ionization"] = fraction_name
-    wanted = {param: name for param, name in wanted.items() if name is not None}
-    for param, name in wanted.items():
-        if not isinstance(name, str):
-            raise InputError(f"{param}: expected a dataset name (str), got {type(name).__name__}")
-    unknown = sorted(set(units) - set(wanted.values()))
-    if unknown:
-        raise InputError(f"units: {', '.join(repr(k) for k in unknown)} name(s) no dataset being "
-                         f"read (datasets read: {', '.join(repr(v) for v in wanted.values())})")
+    wanted = checked_names(wanted, units)
 
     try:
         handle = h5py.File(path, "r")
     except OSError as exc:
         raise InputError(f"path: '{path}' cannot be opened as an HDF5 file ({exc})") from None
     with handle:
-        datasets = {param: _dataset(handle, name, param, path) for param, name in wanted.items()}
-        shape = datasets["temperature"].shape
-        for param, ds in datasets.items():
-            if ds.shape != shape:
-                raise InputError(f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
-                                 f"temperature '{temperature}' has shape {shape}")
-        field_units = {param: _unit(ds, wanted[param], param, units, required=param != "ionization")
-                       for param, ds in datasets.items()}
+        datasets, shape, field_units = open_fields(handle, wanted, units, path)
         if cell_size is None:
             if "cell_size" not in handle.attrs:
                 raise InputError(f"cell_size: not given and '{path}' has no root attribute 'cell_size'")
