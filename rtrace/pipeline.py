@@ -311,6 +311,10 @@ def _draw_picture(path, res, sky, quantity, observed, limits):
     elif quantity == "spectral_index":
         nu = res.frequencies
         fig = plot_map(obj, quantity=quantity, frequency=(nu[0], nu[-1]), path=path, **kw)
+    elif quantity == "tau":
+        # optical depth spans decades between frequencies: one log scale per panel shows each of them
+        # (a series still shares limits, which then apply to every panel)
+        fig = plot_panels(obj, quantity=quantity, path=path, stretch="log", shared_scale=limits is not None, **kw)
     else:
         fig = plot_panels(obj, quantity=quantity, path=path, **kw)
     _close(fig)
