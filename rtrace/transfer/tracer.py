@@ -48,6 +48,10 @@ from .result import Result
 __all__ = ["trace", "FrequencyTables"]
 
 _CMB_TEMPERATURE = 2.7255   # K, Fixsen (2009), ApJ 707, 916
+# What every traced image assumes (written to provenance and FITS headers).
+PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
+           "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
+           "Gaunt factor: soft-photon Born + Coulomb correction + classical finite-frequency term (Z=1)")
 
 
 class FrequencyTables:
@@ -176,7 +180,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
             patch = _trace_in_sequence(route, source, order)
     seg, nrays = route.finish(patch, bg)
     provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
-                      background="none" if background is None else str(background))
+                      background="none" if background is None else str(background), physics=PHYSICS)
     return Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
                   rays_per_pixel=nrays, background=bg)
 
