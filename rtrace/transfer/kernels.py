@@ -24,7 +24,7 @@ import numba
 import numpy as np
 from numba import prange
 
-from ..physics.planck import inverse_expm1, one_minus_exp
+from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp
 
 __all__ = ["trace_along_last_axis", "trace_along_middle_axis", "layer_segments", "trace_sheared"]
 
@@ -37,7 +37,8 @@ def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, a
 
     ``nn_ds = n_e * ion_term * ds`` (cm-5); ``gtab`` is the Gaunt factor per
     frequency on a uniform ``ln T`` grid; ``hk = h nu / k``;
-    ``alpha_pref = A nu^-3`` (R&L 5.18b); ``b_pref = 2 h nu^3 / c^2``.
+    ``alpha_pref = A nu^-3`` (R&L 5.18b); ``b_pref`` (2, nfreq): ``2 h nu^3 / c^2`` and
+    ``2 nu^2 k / c^2`` (the Rayleigh-Jeans factor, so the radio branch needs no division).
     """
     n_t = gtab.shape[1]
     x = (math.log(temp) - log_t0) * inv_dlog_t
@@ -54,9 +55,18 @@ def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, a
     for f in range(hk.shape[0]):
         uu = hk[f] * inv_t
         g = gtab[f, i] + wt * (gtab[f, i + 1] - gtab[f, i])
-        dtau = alpha_pref[f] * a0 * one_minus_exp(uu) * g        # R&L 5.18b times ds
+        if uu < SERIES_LIMIT:
+            # radio regime, no division: B_nu = (2 h nu^3/c^2)(1/u - 1/2 + u/12) with the 1/u term
+            # as (2 nu^2 k / c^2) T; 1 - e^{-u} to u^4. For u < 1e-3 the omitted terms are below
+            # 1e-14 relative (A&S 4.2.1, 23.1.1; cf. physics.planck.one_minus_exp, inverse_expm1)
+            stim = uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
+            source = b_pref[1, f] * temp + b_pref[0, f] * (uu * (1.0 / 12.0) - 0.5)
+        else:
+            stim = one_minus_exp(uu)
+            source = b_pref[0, f] * inverse_expm1(uu)
+        dtau = alpha_pref[f] * a0 * stim * g        # R&L 5.18b times ds
         om = one_minus_exp(dtau)
-        out_i[f, a, b] += om * (b_pref[f] * inverse_expm1(uu) - out_i[f, a, b])   # S = B_nu(T)
+        out_i[f, a, b] += om * (source - out_i[f, a, b])   # S = B_nu(T)
         out_tau[f, a, b] += dtau
 
 

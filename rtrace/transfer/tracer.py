@@ -61,7 +61,8 @@ class FrequencyTables:
         self.nu = np.ascontiguousarray(nu_hz, float)
         self.hk = H_OVER_K * self.nu                          # h nu / k  (K)
         self.alpha_pref = ALPHA_FF_PREFACTOR / self.nu**3     # R&L 5.18b prefactor times nu^-3
-        self.b_pref = 2.0 * H * self.nu**3 / C**2             # Planck prefactor 2 h nu^3 / c^2
+        # Planck prefactor 2 h nu^3 / c^2 and Rayleigh-Jeans factor 2 nu^2 k / c^2 (= the former / (h nu / k))
+        self.b_pref = np.ascontiguousarray([2.0 * H * self.nu**3 / C**2, 2.0 * H * self.nu**3 / C**2 / self.hk])
         self.log_t0, dlog_t, self.gtab = log_temperature_table(self.nu)
         self.inv_dlog_t = 1.0 / dlog_t
 
