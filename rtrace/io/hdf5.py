@@ -184,6 +184,25 @@ def open_fields(handle, wanted, units, path):
     return datasets, shape, field_units
 
 
+def open_file(path):
+    """Open an HDF5 file for reading; an unreadable file is an InputError naming it."""
+    try:
+        return h5py.File(path, "r")
+    except OSError as exc:
+        raise InputError(f"path: '{path}' cannot be opened as an HDF5 file ({exc})") from None
+
+
+def file_geometry(handle, cell_size, origin, path):
+    """Cell size and origin: the caller's, else the file's root attributes (origin may stay None)."""
+    if cell_size is None:
+        if "cell_size" not in handle.attrs:
+            raise InputError(f"cell_size: not given and '{path}' has no root attribute 'cell_size'")
+        cell_size = _root_length(handle, "cell_size", ("cell_size_units", "length_unit"), path)
+    if origin is None and "origin" in handle.attrs:
+        origin = _root_length(handle, "origin", ("origin_units", "length_unit", "cell_size_units"), path)
+    return cell_size, origin
+
+
 def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, density=None,
               ionization=None, composition=None, helium=None, cell_size=None, origin=None,
               units=None, subvolume=None, dtype=np.float32):
@@ -263,20 +282,9 @@ def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
         wanted["ionization"] = fraction_name
     wanted = checked_names(wanted, units)
 
-    try:
-        handle = h5py.File(path, "r")
-    except OSError as exc:
-        raise InputError(f"path: '{path}' cannot be opened as an HDF5 file ({exc})") from None
-    with handle:
+    with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
-        if cell_size is None:
-            if "cell_size" not in handle.attrs:
-                raise InputError(f"cell_size: not given and '{path}' has no root attribute "
-                                 "'cell_size'")
-            cell_size = _root_length(handle, "cell_size", ("cell_size_units", "length_unit"), path)
-        if origin is None and "origin" in handle.attrs:
-            origin = _root_length(handle, "origin", ("origin_units", "length_unit",
-                                                     "cell_size_units"), path)
+        cell_size, origin = file_geometry(handle, cell_size, origin, path)
         slices, starts = _subvolume(subvolume, shape)
         # Geometry is checked before any data is read: a mistake costs no I/O.
         cell = u.Quantity(cell_size)

@@ -34,7 +34,7 @@ from ..errors import InputError, PhysicsRangeWarning
 from ..physics.constants import PC
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE
 from ..snapshot import Snapshot, _vector3
-from .hdf5 import _FIELD_UNITS, _MODEL_NAMES, _root_length, checked_names, open_fields
+from .hdf5 import _FIELD_UNITS, _MODEL_NAMES, checked_names, file_geometry, open_fields, open_file
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
 
@@ -526,18 +526,9 @@ def open_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
             wanted["ionization"] = fraction_name
     wanted = checked_names(wanted, units)
 
-    try:
-        handle = h5py.File(path, "r")
-    except OSError as exc:
-        raise InputError(f"path: '{path}' cannot be opened as an HDF5 file ({exc})") from None
-    with handle:
+    with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
-        if cell_size is None:
-            if "cell_size" not in handle.attrs:
-                raise InputError(f"cell_size: not given and '{path}' has no root attribute 'cell_size'")
-            cell_size = _root_length(handle, "cell_size", ("cell_size_units", "length_unit"), path)
-        if origin is None and "origin" in handle.attrs:
-            origin = _root_length(handle, "origin", ("origin_units", "length_unit", "cell_size_units"), path)
+        cell_size, origin = file_geometry(handle, cell_size, origin, path)
     cell = _vector3(cell_size, "cell_size", u.cm)
     if not np.all(np.isfinite(cell) & (cell > 0)):
         raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
