@@ -19,7 +19,7 @@ from astropy.io import fits
 matplotlib.use("Agg")              # no display in tests
 
 import rtrace                                      # noqa: E402
-from rtrace import pipeline, plot                  # noqa: E402
+from rtrace import colour_scales, plot             # noqa: E402
 from rtrace.errors import ConfigError, InputError  # noqa: E402
 from rtrace.io import atomic                       # noqa: E402
 from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key   # noqa: E402
@@ -372,7 +372,7 @@ def observed():
 def test_a_series_of_one_gets_the_automatic_scale(observed, quantity, kind):
     """The series limits follow the automatic rules: one snapshot alone looks as it would without them."""
     res, sky = observed
-    lim = pipeline._series_limits([pipeline._ranges(res, sky, 2)])[quantity]
+    lim = colour_scales.series_limits([colour_scales.view_ranges(res, sky, 2)])[quantity]
     obj = sky if quantity != "tau" else res
     kw = {"frequency": (1 * u.GHz, 10 * u.GHz)} if kind == "map" else {}
     draw = plot.plot_map if kind == "map" else plot.plot_panels

@@ -1,0 +1,107 @@
+"""The engine a run traces with: the ``[parallel]`` check, the dask client, trace and observe of one view.
+
+:func:`trace_keywords` checks, before any work, that this build's
+`rtrace.trace` takes the keywords ``[parallel]`` needs; :class:`Engine`
+traces one view with the job's ``[trace]`` settings, observes it with
+``[beam]`` and ``[noise]`` when the job has a beam, and owns the dask
+client for the whole run (started on first use, closed at the end).
+"""
+
+import inspect
+import time
+
+import astropy.units as u
+
+from .errors import ConfigError
+
+__all__ = ["Engine", "trace_keywords"]
+
+
+def _observe(res, job):
+    import radio_beam
+    b = job.beam
+    beam = radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
+    noise = job.noise.get("rms") if job.noise else None
+    kw = {}
+    if b.get("scaling", "none") != "none":
+        kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
+    return res.observe(beam=beam, noise=noise, seed=job.noise.get("seed") if job.noise else None, **kw)
+
+
+def trace_keywords(job):
+    """The keywords ``[parallel]`` needs ``rtrace.trace`` to take; ConfigError if this build lacks them.
+
+    Checked before any work, so that a job does not fail after hours of tracing.
+    """
+    from . import trace
+    par = job.parallel
+    wanted = []
+    if "scheduler" in par or "workers" in par:
+        wanted.append("client")
+    if "max_memory" in par:
+        wanted.append("max_memory")
+    if not wanted:
+        return ()
+    params = inspect.signature(trace).parameters
+    missing = [k for k in wanted if k not in params]
+    if missing:
+        what = {"client": "trace on a dask cluster ('scheduler' / 'workers')",
+                "max_memory": "bound its memory use ('max_memory')"}
+        raise ConfigError(f"[parallel]: this rtrace build cannot {' or '.join(what[k] for k in missing)}: "
+                          f"rtrace.trace takes no {' or '.join(repr(k) for k in missing)} keyword")
+    return tuple(wanted)
+
+
+class Engine:
+    """Traces and observes one view; starts the dask client on first use and closes it at the end."""
+
+    def __init__(self, job, keywords):
+        self.job = job
+        self.keywords = keywords
+        self._client = None
+        self._cluster = None
+
+    def _get_client(self):
+        if self._client is None:
+            # imported here: dask is needed only by jobs that ask for a cluster
+            from dask.distributed import Client, LocalCluster
+            par = self.job.parallel
+            if "scheduler" in par:
+                try:
+                    self._client = Client(par["scheduler"])
+                except (OSError, TimeoutError) as exc:
+                    raise ConfigError(f"[parallel].scheduler: cannot connect to {par['scheduler']}: "
+                                      f"{exc}") from None
+            else:
+                self._cluster = LocalCluster(n_workers=par["workers"], threads_per_worker=1)
+                self._client = Client(self._cluster)
+        return self._client
+
+    def trace(self, snap, view):
+        from . import trace
+        job = self.job
+        kw = {}
+        if "client" in self.keywords:
+            kw["client"] = self._get_client()
+        if "max_memory" in self.keywords:
+            kw["max_memory"] = job.parallel["max_memory"] * u.byte
+        t0 = time.perf_counter()
+        res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
+                    supersample=job.trace.get("supersample", 1), **kw)
+        res.provenance["trace_seconds"] = f"{time.perf_counter() - t0:.2f}"
+        sky = _observe(res, job) if job.beam else None
+        return res, sky
+
+    def close(self):
+        if self._client is not None:
+            self._client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+        self._client = self._cluster = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
