@@ -56,6 +56,41 @@ def _vector3(value, name, unit):
     return vec
 
 
+def derive_terms(t, electron_density=None, ion_density=None, density=None, ionization=None, composition=None,
+                 helium=None, fields=None, dtype=np.float32):
+    """``(T, n_e, ion term, description)`` as ``dtype`` arrays from validated temperatures ``t`` (K).
+
+    Either ``electron_density`` (and optionally ``ion_density``, which
+    defaults to the same array) or the mass ``density`` with an
+    ``ionization`` model (see :meth:`Snapshot.from_arrays`). Each field is
+    validated against ``t.shape`` before use.
+    """
+    shape = t.shape
+    if density is not None:
+        if electron_density is not None or ion_density is not None:
+            raise InputError("density: give either density (with ionization) or electron_density, not both")
+        rho = _to_array(density, u.g / u.cm**3, "density", np.float64)
+        _check("density", rho, shape, 0.0, strict=False)
+        from .physics.ionization import resolve_ionization
+        model = resolve_ionization("full" if ionization is None else ionization,
+                                   composition=composition, helium=helium)
+        ne, ni = model.electron_and_ion_terms(rho, np.asarray(t, np.float64), fields or {})
+        return (np.ascontiguousarray(t, dtype), np.ascontiguousarray(ne, dtype), np.ascontiguousarray(ni, dtype),
+                model.describe())
+    if electron_density is None:
+        raise InputError("electron_density: required unless density and ionization are given")
+    if ionization is not None:
+        raise InputError("ionization: only used with density; electron_density was given directly")
+    ne = _to_array(electron_density, u.cm**-3, "electron_density", dtype)
+    _check("electron_density", ne, shape, 0.0, strict=False)
+    t = np.ascontiguousarray(t, dtype)
+    if ion_density is None:
+        return t, ne, ne, "supplied n_e; ion term = n_e"
+    ni = _to_array(ion_density, u.cm**-3, "ion_density", dtype)
+    _check("ion_density", ni, shape, 0.0, strict=False)
+    return t, ne, ni, "supplied n_e and ion term"
+
+
 class Snapshot:
     """Electron density, ion term and temperature on a regular grid.
 
@@ -140,37 +175,55 @@ class Snapshot:
         if not np.all(np.isfinite(cell) & (cell > 0)):
             raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
         org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
-        provenance = {"source": str(source)}
-
-        if density is not None:
-            if electron_density is not None or ion_density is not None:
-                raise InputError("density: give either density (with ionization) or electron_density, not both")
-            rho = _to_array(density, u.g / u.cm**3, "density", np.float64)
-            _check("density", rho, shape, 0.0, strict=False)
-            from .physics.ionization import resolve_ionization
-            model = resolve_ionization("full" if ionization is None else ionization,
-                                       composition=composition, helium=helium)
-            ne, ni = model.electron_and_ion_terms(rho, t, fields or {})
-            ne = np.ascontiguousarray(ne, dtype)
-            ni = np.ascontiguousarray(ni, dtype)
-            t = np.ascontiguousarray(t, dtype)
-            provenance["ionization"] = model.describe()
-        else:
-            if electron_density is None:
-                raise InputError("electron_density: required unless density and ionization are given")
-            if ionization is not None:
-                raise InputError("ionization: only used with density; electron_density was given directly")
-            ne = _to_array(electron_density, u.cm**-3, "electron_density", dtype)
-            _check("electron_density", ne, shape, 0.0, strict=False)
-            if ion_density is None:
-                ni = ne
-                provenance["ionization"] = "supplied n_e; ion term = n_e"
-            else:
-                ni = _to_array(ion_density, u.cm**-3, "ion_density", dtype)
-                _check("ion_density", ni, shape, 0.0, strict=False)
-                provenance["ionization"] = "supplied n_e and ion term"
+        t, ne, ni, how = derive_terms(t, electron_density, ion_density, density, ionization, composition,
+                                      helium, fields, dtype)
+        provenance = {"source": str(source), "ionization": how}
         check_temperature_range(t, "temperature")
         return cls(t, ne, ni, cell, org, provenance)
+
+    @classmethod
+    def from_yt(cls, ds, *, temperature, electron_density=None, ion_density=None, density=None, ionization=None,
+                composition=None, helium=None, level=None, dtype=np.float32):
+        """Build a snapshot from a yt dataset, any simulation code yt reads.
+
+        Parameters
+        ----------
+        ds : yt Dataset or path
+            A loaded dataset, or a path handed to ``yt.load``.
+        temperature, electron_density, ion_density, density : str or (str, str)
+            yt field names (``"temperature"`` or ``("gas", "temperature")``);
+            yt's units are carried through. Give ``electron_density`` (and
+            optionally the ion term ``ion_density``) or ``density``.
+        ionization : str, field name or model, optional
+            With ``density``: a model name (``"full"``, ``"threshold"``,
+            ``"saha"``), an :class:`~rtrace.physics.ionization.IonizationModel`,
+            or the name of a hydrogen ionized-fraction field.
+        composition, helium : optional
+            As for :meth:`from_arrays`.
+        level : int, optional
+            Sample the data on yt's covering grid at this refinement level
+            (a uniform snapshot). By default a block-structured AMR dataset
+            keeps every grid at its native resolution
+            (:class:`~rtrace.amr.AMRSnapshot`) and a single-level one becomes
+            a uniform snapshot; octree and particle datasets need ``level``.
+        dtype : numpy dtype, optional
+            Storage type, float32 (default) or float64.
+
+        Returns
+        -------
+        `Snapshot` or `~rtrace.amr.AMRSnapshot`
+
+        Raises
+        ------
+        InputError
+            A field the dataset does not have (the message lists those it
+            has), invalid values (field, problem and cell count), AMR grids
+            not aligned with their parents' cells.
+        """
+        from .io.ytdata import from_yt
+        return from_yt(ds, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
+                       density=density, ionization=ionization, composition=composition, helium=helium,
+                       level=level, dtype=dtype)
 
     # -- fields as Quantities (views, no copies) --------------------------------------------
     @property

@@ -32,15 +32,8 @@ _ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
 
 
 @numba.njit(cache=True, inline="always")
-def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref):
-    """Apply one cell of path ``ds`` to the running ray sums ``out_*[:, a, b]``.
-
-    ``nn_ds = n_e * ion_term * ds`` (cm-5); ``gtab`` is the Gaunt factor per
-    frequency on a uniform ``ln T`` grid; ``hk = h nu / k``;
-    ``alpha_pref = A nu^-3`` (R&L 5.18b); ``b_pref`` (2, nfreq): ``2 h nu^3 / c^2`` and
-    ``2 nu^2 k / c^2`` (the Rayleigh-Jeans factor, so the radio branch needs no division).
-    """
-    n_t = gtab.shape[1]
+def _table_position(temp, log_t0, inv_dlog_t, n_t):
+    """Index and weight of ``ln T`` on the uniform Gaunt-table grid (clamped to the table)."""
     x = (math.log(temp) - log_t0) * inv_dlog_t
     if x < 0.0:
         x = 0.0
@@ -49,22 +42,45 @@ def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, a
     i = int(x)
     if i > n_t - 2:
         i = n_t - 2
-    wt = x - i
+    return i, x - i
+
+
+@numba.njit(cache=True, inline="always")
+def _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref):
+    """At frequency ``f``: ``alpha_nu / (n_e n_i T^-1/2)`` (cm5) and ``S = B_nu(T)``.
+
+    ``gtab`` is the Gaunt factor per frequency on a uniform ``ln T`` grid;
+    ``hk = h nu / k``; ``alpha_pref = A nu^-3`` (R&L 5.18b); ``b_pref`` (2, nfreq):
+    ``2 h nu^3 / c^2`` and ``2 nu^2 k / c^2`` (the Rayleigh-Jeans factor, so the
+    radio branch needs no division).
+    """
+    uu = hk[f] * inv_t
+    g = gtab[f, i] + wt * (gtab[f, i + 1] - gtab[f, i])
+    if uu < SERIES_LIMIT:
+        # radio regime, no division: B_nu = (2 h nu^3/c^2)(1/u - 1/2 + u/12) with the 1/u term
+        # as (2 nu^2 k / c^2) T; 1 - e^{-u} to u^4. For u < 1e-3 the omitted terms are below
+        # 1e-14 relative (A&S 4.2.1, 23.1.1; cf. physics.planck.one_minus_exp, inverse_expm1)
+        stim = uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
+        source = b_pref[1, f] * temp + b_pref[0, f] * (uu * (1.0 / 12.0) - 0.5)
+    else:
+        stim = one_minus_exp(uu)
+        source = b_pref[0, f] * inverse_expm1(uu)
+    return alpha_pref[f] * stim * g, source
+
+
+@numba.njit(cache=True, inline="always")
+def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref):
+    """Apply one cell of path ``ds`` to the running ray sums ``out_*[:, a, b]``.
+
+    ``nn_ds = n_e * ion_term * ds`` (cm-5); the tables are those of
+    :func:`_opacity_and_source`.
+    """
+    i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab.shape[1])
     inv_t = 1.0 / temp
     a0 = nn_ds * math.sqrt(inv_t)
     for f in range(hk.shape[0]):
-        uu = hk[f] * inv_t
-        g = gtab[f, i] + wt * (gtab[f, i + 1] - gtab[f, i])
-        if uu < SERIES_LIMIT:
-            # radio regime, no division: B_nu = (2 h nu^3/c^2)(1/u - 1/2 + u/12) with the 1/u term
-            # as (2 nu^2 k / c^2) T; 1 - e^{-u} to u^4. For u < 1e-3 the omitted terms are below
-            # 1e-14 relative (A&S 4.2.1, 23.1.1; cf. physics.planck.one_minus_exp, inverse_expm1)
-            stim = uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
-            source = b_pref[1, f] * temp + b_pref[0, f] * (uu * (1.0 / 12.0) - 0.5)
-        else:
-            stim = one_minus_exp(uu)
-            source = b_pref[0, f] * inverse_expm1(uu)
-        dtau = alpha_pref[f] * a0 * stim * g        # R&L 5.18b times ds
+        kappa, source = _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref)
+        dtau = a0 * kappa                   # R&L 5.18b times ds
         om = one_minus_exp(dtau)
         out_i[f, a, b] += om * (source - out_i[f, a, b])   # S = B_nu(T)
         out_tau[f, a, b] += dtau
@@ -180,42 +196,89 @@ def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, co
     """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
     Arrays are ``(A, B, C)`` views with C the axis most nearly parallel to the
-    rays; ray ``(i0 + p, j0 + q)`` is output index ``p * n_j + q``. For each
-    layer, each segment of :func:`layer_segments` reads a shifted row of
-    cells for a whole row of rays, so memory is read in order and a cache
-    line serves many consecutive layers. Cells outside ``lo <= index < hi``
-    (the brick, in global cell indices) contribute nothing. The arrays may be
-    the whole grid or a brick's own sub-array: global cell ``(x, y, k)`` is
-    element ``(x, y, k) - off`` (``off`` (3,) int64, the global index of
-    element 0; zeros for the whole grid), so lattice and layer indices stay
-    global and every brick shares one ray lattice. Outputs
-    ``(nfreq, 1, n_i n_j)`` and ``(1, n_i n_j)`` must be zero on entry.
+    rays; ray ``(i0 + p, j0 + q)`` is output index ``p * n_j + q``. Rays are
+    taken in blocks of rows that advance together layer by layer: for each
+    layer the block first evaluates, once per cell it can reach, the
+    absorption coefficient and source function at every frequency, then each
+    segment of :func:`layer_segments` applies them to a whole row of rays
+    (a cell is crossed by ~1 + |rho_a| + |rho_b| ray segments, so the
+    transcendentals are not repeated per crossing). Memory is read in order
+    and a cache line serves many consecutive layers. Cells outside
+    ``lo <= index < hi`` (the brick, in global cell indices) contribute
+    nothing. The arrays may be the whole grid or a brick's own sub-array:
+    global cell ``(x, y, k)`` is element ``(x, y, k) - off`` (``off`` (3,)
+    int64, the global index of element 0; zeros for the whole grid), so
+    lattice and layer indices stay global and every brick shares one ray
+    lattice. Outputs ``(nfreq, 1, n_i n_j)`` and ``(1, n_i n_j)`` must be zero
+    on entry.
     """
     nk = count.shape[0]
+    nf = hk.shape[0]
+    n_t = gtab.shape[1]
     n_block = (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK
+    span_a, span_b = 0, 0
+    for s in range(nk):
+        a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, s, count[s])
+        span_a = max(span_a, a_max - a_min)
+        span_b = max(span_b, b_max - b_min)
     for blk in prange(n_block):
-        # rows of a block advance together layer by layer: a cache line of cells (several
-        # consecutive layers of one column) is then reused by the neighbouring rows that
-        # drift through it, instead of being fetched again for each row
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
+        # this block's cells of one layer: n_e n_i, alpha_nu / ds... per frequency, S_nu
+        nn_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b))
+        kap_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
+        src_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
         for s in range(nk):
             k = k_lo + s if forward else k_lo + nk - 1 - s
+            kl = k - off[2]
+            a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, s, count[s])
+            x_lo = max(i0 + p_lo + a_min, lo[0])
+            x_hi = min(i0 + p_hi + a_max, hi[0])
+            y_lo = max(j0 + b_min, lo[1])
+            y_hi = min(j0 + n_j + b_max, hi[1])
+            for x in range(x_lo, x_hi):
+                xb, xl = x - x_lo, x - off[0]
+                for y in range(y_lo, y_hi):
+                    yb, yl = y - y_lo, y - off[1]
+                    nn = float(ne[xl, yl, kl]) * float(ni[xl, yl, kl])
+                    nn_buf[xb, yb] = nn
+                    if nn > 0.0:
+                        t = float(temp[xl, yl, kl])
+                        it, wt = _table_position(t, log_t0, inv_dlog_t, n_t)
+                        inv_t = 1.0 / t
+                        a0 = nn * math.sqrt(inv_t)
+                        for f in range(nf):
+                            kappa, source = _opacity_and_source(f, t, inv_t, it, wt, gtab, hk, alpha_pref, b_pref)
+                            kap_buf[xb, yb, f] = a0 * kappa        # R&L 5.18b, cm-1
+                            src_buf[xb, yb, f] = source
             for p in range(p_lo, p_hi):
-                i = i0 + p
                 for g in range(count[s]):
-                    x = i + seg_da[s, g]
-                    if x < lo[0] or x >= hi[0]:
+                    x = i0 + p + seg_da[s, g]
+                    if x < x_lo or x >= x_hi:
                         continue
+                    xb = x - x_lo
                     ds = seg_ds[s, g]
-                    q_lo = max(0, lo[1] - j0 - seg_db[s, g])
-                    q_hi = min(n_j, hi[1] - j0 - seg_db[s, g])
-                    for q in range(q_lo, q_hi):
-                        y = j0 + q + seg_db[s, g]
-                        xl, yl, kl = x - off[0], y - off[1], k - off[2]
-                        nn = float(ne[xl, yl, kl]) * float(ni[xl, yl, kl])
+                    yb0 = j0 + seg_db[s, g] - y_lo          # buffer column of ray q = 0
+                    for q in range(max(0, -yb0), min(n_j, y_hi - y_lo - yb0)):
+                        yb = yb0 + q
+                        nn = nn_buf[xb, yb]
                         if nn > 0.0:
                             r = p * n_j + q
                             out_em[0, r] += nn * ds
-                            _add_cell(out_i, out_tau, 0, r, nn * ds, float(temp[xl, yl, kl]),
-                                      log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)
+                            for f in range(nf):
+                                dtau = kap_buf[xb, yb, f] * ds
+                                om = one_minus_exp(dtau)
+                                out_i[f, 0, r] += om * (src_buf[xb, yb, f] - out_i[f, 0, r])
+                                out_tau[f, 0, r] += dtau
+
+
+@numba.njit(cache=True, inline="always")
+def _segment_spread(seg_da, seg_db, s, n):
+    """Smallest and largest cell offsets ``(da_min, da_max, db_min, db_max)`` of layer ``s``'s segments."""
+    a_min, a_max, b_min, b_max = seg_da[s, 0], seg_da[s, 0], seg_db[s, 0], seg_db[s, 0]
+    for g in range(1, n):
+        a_min = min(a_min, seg_da[s, g])
+        a_max = max(a_max, seg_da[s, g])
+        b_min = min(b_min, seg_db[s, g])
+        b_max = max(b_max, seg_db[s, g])
+    return a_min, a_max, b_min, b_max

@@ -9,8 +9,11 @@ The sum over pixels of value x pixel area equals the sum over rays of
 value x tube area exactly, whatever the pixel size or orientation.
 """
 
+import math
+
 import numba
 import numpy as np
+from numba import prange
 
 __all__ = ["remap_parallelograms"]
 
@@ -37,7 +40,55 @@ def _clip(xs, ys, n, out_x, out_y, axis, bound, keep_greater):
     return m
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
+def _add_tube(c0, r0, e1, e2, half_c, half_r, aligned, values, r, out, ax, ay, bx, by):
+    """Add tube ``r`` (centre ``(c0, r0)``) to the pixels it overlaps."""
+    nq, ny, nx = out.shape
+    ix0 = max(int(np.floor(c0 - half_c)), 0)
+    ix1 = min(int(np.floor(c0 + half_c)), nx - 1)
+    iy0 = max(int(np.floor(r0 - half_r)), 0)
+    iy1 = min(int(np.floor(r0 + half_r)), ny - 1)
+    if aligned:
+        for iy in range(iy0, iy1 + 1):
+            oy = min(r0 + half_r, iy + 1.0) - max(r0 - half_r, float(iy))
+            if oy <= 0.0:
+                continue
+            for ix in range(ix0, ix1 + 1):
+                area = oy * (min(c0 + half_c, ix + 1.0) - max(c0 - half_c, float(ix)))
+                if area > 0.0:
+                    for q in range(nq):
+                        out[q, iy, ix] += area * values[q, r]
+        return
+    x0 = c0 - 0.5 * e1[0] - 0.5 * e2[0]
+    y0 = r0 - 0.5 * e1[1] - 0.5 * e2[1]
+    for iy in range(iy0, iy1 + 1):
+        for ix in range(ix0, ix1 + 1):
+            # the tube's parallelogram, corners in order
+            ax[0] = x0
+            ay[0] = y0
+            ax[1] = x0 + e1[0]
+            ay[1] = y0 + e1[1]
+            ax[2] = ax[1] + e2[0]
+            ay[2] = ay[1] + e2[1]
+            ax[3] = x0 + e2[0]
+            ay[3] = y0 + e2[1]
+            n = _clip(ax, ay, 4, bx, by, 0, float(ix), True)
+            n = _clip(bx, by, n, ax, ay, 0, float(ix + 1), False)
+            n = _clip(ax, ay, n, bx, by, 1, float(iy), True)
+            n = _clip(bx, by, n, ax, ay, 1, float(iy + 1), False)
+            if n < 3:
+                continue
+            area = 0.0
+            for k in range(n):
+                k2 = (k + 1) % n
+                area += ax[k] * ay[k2] - ax[k2] * ay[k]
+            area = abs(0.5 * area)
+            if area > 0.0:
+                for q in range(nq):
+                    out[q, iy, ix] += area * values[q, r]
+
+
+@numba.njit(cache=True, parallel=True)
 def remap_parallelograms(cols, rows, e1, e2, values, out):
     """Accumulate ``values`` (nq, nray) of parallelogram tubes into ``out`` (nq, ny, nx).
 
@@ -46,56 +97,47 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
     vectors in pixel units (column, row). ``out`` receives the overlap area
     (in pixel areas) times the value, i.e. the footprint mean for fully
     covered pixels.
+
+    Threads work on bands of image rows at least one tube tall: a tube whose
+    lowest row lies in band ``b`` touches bands ``b`` and ``b + 1`` only, so
+    even bands are done in parallel, then odd ones, with no two threads ever
+    adding to the same pixel. Bands depend only on the geometry, not on the
+    thread count, so the sums are the same for any number of threads.
     """
     nq, ny, nx = out.shape
-    ax = np.empty(12)
-    ay = np.empty(12)
-    bx = np.empty(12)
-    by = np.empty(12)
+    nray = cols.shape[0]
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
     half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
     # tubes that are rectangles aligned with the pixels: overlaps are products of 1D overlaps
     aligned = (e1[1] == 0.0 and e2[0] == 0.0) or (e1[0] == 0.0 and e2[1] == 0.0)
-    for r in range(cols.shape[0]):
-        c0 = cols[r]
-        r0 = rows[r]
-        ix0 = max(int(np.floor(c0 - half_c)), 0)
-        ix1 = min(int(np.floor(c0 + half_c)), nx - 1)
-        iy0 = max(int(np.floor(r0 - half_r)), 0)
-        iy1 = min(int(np.floor(r0 + half_r)), ny - 1)
-        if aligned:
-            for iy in range(iy0, iy1 + 1):
-                oy = min(r0 + half_r, iy + 1.0) - max(r0 - half_r, float(iy))
-                if oy <= 0.0:
-                    continue
-                for ix in range(ix0, ix1 + 1):
-                    area = oy * (min(c0 + half_c, ix + 1.0) - max(c0 - half_c, float(ix)))
-                    if area > 0.0:
-                        for q in range(nq):
-                            out[q, iy, ix] += area * values[q, r]
+    height = max(int(math.ceil(2.0 * half_r)) + 2, 8)
+    n_band = (ny + height - 1) // height
+    # counting sort of the tubes by band (tubes wholly outside the image are dropped)
+    band = np.full(nray, -1, np.int64)
+    start = np.zeros(n_band + 1, np.int64)
+    for r in range(nray):
+        lo = math.floor(rows[r] - half_r)
+        hi = math.floor(rows[r] + half_r)
+        if hi < 0 or lo > ny - 1 or math.floor(cols[r] + half_c) < 0 or math.floor(cols[r] - half_c) > nx - 1:
             continue
-        for iy in range(iy0, iy1 + 1):
-            for ix in range(ix0, ix1 + 1):
-                # the tube's parallelogram, corners in order
-                ax[0] = c0 - 0.5 * e1[0] - 0.5 * e2[0]
-                ay[0] = r0 - 0.5 * e1[1] - 0.5 * e2[1]
-                ax[1] = ax[0] + e1[0]
-                ay[1] = ay[0] + e1[1]
-                ax[2] = ax[1] + e2[0]
-                ay[2] = ay[1] + e2[1]
-                ax[3] = ax[0] + e2[0]
-                ay[3] = ay[0] + e2[1]
-                n = _clip(ax, ay, 4, bx, by, 0, float(ix), True)
-                n = _clip(bx, by, n, ax, ay, 0, float(ix + 1), False)
-                n = _clip(ax, ay, n, bx, by, 1, float(iy), True)
-                n = _clip(bx, by, n, ax, ay, 1, float(iy + 1), False)
-                if n < 3:
-                    continue
-                area = 0.0
-                for k in range(n):
-                    k2 = (k + 1) % n
-                    area += ax[k] * ay[k2] - ax[k2] * ay[k]
-                area = abs(0.5 * area)
-                if area > 0.0:
-                    for q in range(nq):
-                        out[q, iy, ix] += area * values[q, r]
+        b = min(max(lo, 0) // height, n_band - 1)
+        band[r] = b
+        start[b + 1] += 1
+    for b in range(n_band):
+        start[b + 1] += start[b]
+    order = np.empty(start[n_band], np.int64)
+    fill = start[:n_band].copy()
+    for r in range(nray):
+        if band[r] >= 0:
+            order[fill[band[r]]] = r
+            fill[band[r]] += 1
+    for parity in range(2):
+        for t in prange((n_band - parity + 1) // 2):
+            b = 2 * t + parity
+            ax = np.empty(12)
+            ay = np.empty(12)
+            bx = np.empty(12)
+            by = np.empty(12)
+            for k in range(start[b], start[b + 1]):
+                r = order[k]
+                _add_tube(cols[r], rows[r], e1, e2, half_c, half_r, aligned, values, r, out, ax, ay, bx, by)

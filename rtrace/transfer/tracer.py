@@ -30,6 +30,7 @@ the patches are composited front to back (exact, see ``compositing``),
 here in sequence or by :mod:`rtrace.parallel` as a tree of dask tasks.
 """
 
+import copy
 import math
 
 import astropy.units as u
@@ -166,7 +167,12 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     else:
         route = _ObliqueRoute(snapshot, view, center, pix, tables, int(supersample))
     in_memory = getattr(snapshot, "in_memory", True)
-    if in_memory and edge is None and budget is None and client is None:
+    if getattr(snapshot, "is_amr", False):
+        if edge is not None or budget is not None or client is not None:
+            raise InputError("brick_size / max_memory / client: not available for AMR snapshots; their leaves "
+                             "are traced in memory, one at a time")
+        patch = _trace_amr(route, snapshot, view.los)
+    elif in_memory and edge is None and budget is None and client is None:
         zero = np.zeros(3, np.int64)
         whole = np.asarray(snapshot.shape, np.int64)
         patch = route.trace_brick(zero, whole, (snapshot._ne, snapshot._ni, snapshot._t), zero)
@@ -233,6 +239,30 @@ def _trace_in_sequence(route, source, order):
     return Patch((0, 0), acc)
 
 
+def _trace_amr(route, snap, los):
+    """Trace an AMR snapshot's leaves front to back, each at its own level's resolution.
+
+    The ray grid is that of the finest level; a level whose cells are ``r``
+    finest cells wide uses the same rays (:meth:`coarsened`), so the leaves'
+    patches composite exactly.
+    """
+    from ..amr import front_to_back
+    acc = Segment.empty(route.nfreq, route.ray_shape)
+    routes = {}
+    for leaf in front_to_back(snap.tree, los):
+        r = snap.scale(leaf.level)
+        if r not in routes:
+            routes[r] = route.coarsened(r)
+        level_route = routes[r]
+        lo, hi = leaf.lo // r, leaf.hi // r            # the leaf in its level's cell indices
+        if level_route.brick_rays(lo, hi) is None:
+            continue
+        patch = level_route.trace_brick(lo, hi, snap.leaf_arrays(leaf), lo)
+        if patch is not None:
+            composite_into(acc, (0, 0), patch)
+    return Patch((0, 0), acc)
+
+
 def _full_segment(patch, nfreq, ray_shape):
     """The patch spread over the whole ray grid (identity where it has no rays)."""
     if patch is not None and tuple(patch.start) == (0, 0) and patch.seg.em.shape == tuple(ray_shape):
@@ -287,6 +317,10 @@ class _AxisRoute(_Route):
     def brick_ray_count(self, edge):
         return min(edge, self.ray_shape[0]) * min(edge, self.ray_shape[1])
 
+    def coarsened(self, r):
+        """This route for cells ``r`` times larger on every axis (an AMR level), on the same rays."""
+        return self if r == 1 else _CoarseAxisRoute(self, r)
+
     def brick_rays(self, lo, hi):
         a, b = self.trans
         return (int(lo[a]), int(lo[b])), (int(hi[a]), int(hi[b]))
@@ -329,6 +363,35 @@ class _AxisRoute(_Route):
         planes = np.zeros((2 * nfreq + 1,) + self.image_shape)
         _splat(flat, bg, cols, rows, e1, e2, planes)
         return _planes_to_segment(planes, bg), 1
+
+
+class _CoarseAxisRoute:
+    """Columns of cells ``r`` finest cells wide, spread onto the finest level's columns.
+
+    Every finest column inside a coarse one crosses the same cells over the
+    same path lengths, so its segment is the coarse column's, exactly.
+    """
+
+    def __init__(self, fine, r):
+        self.r = r
+        self.coarse = copy.copy(fine)
+        self.coarse.ds = fine.ds * r
+        self.nfreq = fine.nfreq
+
+    def brick_rays(self, lo, hi):
+        (r0, s0), (r1, s1) = self.coarse.brick_rays(lo, hi)
+        r = self.r
+        return (r0 * r, s0 * r), (r1 * r, s1 * r)
+
+    def trace_brick(self, lo, hi, arrays, off):
+        patch = self.coarse.trace_brick(lo, hi, arrays, off)
+        r = self.r
+
+        def spread(x):
+            return np.repeat(np.repeat(x, r, axis=-2), r, axis=-1)
+
+        seg = Segment(spread(patch.seg.intensity), spread(patch.seg.tau), spread(patch.seg.em))
+        return Patch((patch.start[0] * r, patch.start[1] * r), seg)
 
 
 # -- oblique route ------------------------------------------------------------------------------
@@ -393,6 +456,20 @@ class _ObliqueRoute(_Route):
         self.image_shape = tuple(view.shape)
         self.tables = tables
         self.nfreq = len(tables.nu)
+
+    def coarsened(self, r):
+        """This route for cells ``r`` times larger on every axis (an AMR level), on the same rays.
+
+        The lattice is unchanged (same spacing, same origin), so a coarse
+        cell holds ``r m`` lattice phases per axis where a finest cell holds
+        ``m``; ray indices, and hence patches, are shared by all levels.
+        """
+        if r == 1:
+            return self
+        out = copy.copy(self)
+        out.cell_abc = self.cell_abc * r
+        out.m = (self.m[0] * r, self.m[1] * r)
+        return out
 
     def _ray_span(self, axis, lo_t, hi_t):
         """Sub-lattice indices (inclusive) of rays that can visit cells lo_t..hi_t on ``axis`` (0 = a, 1 = b)."""

@@ -1,0 +1,198 @@
+"""Snapshots from any simulation code yt can read.
+
+yt (Turk et al. 2011, ApJS 192, 9) loads the outputs of many hydrodynamics
+codes into one data model; this reader takes a loaded dataset (or a path
+for ``yt.load``) and field names, carries yt's units through astropy, and
+builds
+
+* a uniform :class:`~rtrace.Snapshot` when the data are one level of grids
+  (or when a resampling ``level`` is asked for explicitly), or
+* an :class:`~rtrace.amr.AMRSnapshot` holding every grid of a
+  block-structured AMR hierarchy at its own resolution, traced leaf by leaf
+  with no resampling to the finest level.
+
+Datasets without grids (octree or particle codes) need ``level=``: they are
+then sampled on yt's covering grid at that level, and the provenance says so.
+"""
+
+import os
+
+import numpy as np
+
+from ..amr import AMRSnapshot, Grid
+from ..errors import InputError
+from ..physics.freefree import check_temperature_range
+
+__all__ = ["from_yt"]
+
+_MODELS = ("full", "threshold", "saha")
+
+
+def _load(ds):
+    import yt
+    if isinstance(ds, (str, os.PathLike)):
+        if not os.path.exists(ds):
+            raise InputError(f"yt dataset: '{ds}' does not exist")
+        return yt.load(os.fspath(ds))
+    if not hasattr(ds, "domain_dimensions") or not hasattr(ds, "field_list"):
+        raise InputError(f"yt dataset: expected a loaded yt dataset or a path, got {type(ds).__name__}")
+    return ds
+
+
+def _resolve_field(ds, name, param):
+    """The yt field key for ``name`` (a name or a ``(type, name)`` tuple); the error lists what exists."""
+    known = list(dict.fromkeys(list(ds.field_list) + list(ds.derived_field_list)))
+    if isinstance(name, tuple):
+        if tuple(name) in known:
+            return tuple(name)
+        wanted = name[1]
+    else:
+        wanted = str(name)
+        matches = [f for f in known if f[1] == wanted]
+        for ftype in ("gas", ds.field_list[0][0] if ds.field_list else None):
+            if (ftype, wanted) in matches:
+                return (ftype, wanted)
+        if matches:
+            return matches[0]
+    on_disk = ", ".join(f"{t}/{n}" for t, n in ds.field_list)
+    gas = sorted({n for t, n in known if t == "gas"})
+    raise InputError(f"{param}: yt field '{name if isinstance(name, str) else '/'.join(name)}' is not in "
+                     f"{ds}; fields on disk: {on_disk}; derived gas fields: {', '.join(gas) or 'none'}")
+
+
+def _fraction_field(ds, ionization):
+    """True when ``ionization`` names a dataset field (an ionized fraction) rather than a model."""
+    if isinstance(ionization, tuple):
+        return True
+    return isinstance(ionization, str) and ionization.strip().lower() not in _MODELS
+
+
+def _quantity(data, key):
+    return data[key].to_astropy()
+
+
+class _Tally:
+    """Bad-cell counts of one field over all grids, for one error naming the field and the count."""
+
+    def __init__(self):
+        self.counts = {}
+        self.total = 0
+
+    def add(self, name, q, lower, strict):
+        arr = np.asarray(q.value)
+        bad_finite = arr.size - int(np.count_nonzero(np.isfinite(arr)))
+        with np.errstate(invalid="ignore"):
+            bad_bound = int(np.count_nonzero(arr <= lower if strict else arr < lower))
+        c = self.counts.setdefault(name, [0, 0, 0, strict])
+        c[0] += bad_finite
+        c[1] += bad_bound
+        c[2] += arr.size
+
+    def raise_if_bad(self, where):
+        for name, (bad_finite, bad_bound, size, strict) in self.counts.items():
+            if bad_finite:
+                raise InputError(f"{name}: {bad_finite} of {size} cells in {where} are not finite (NaN or inf)")
+            if bad_bound:
+                raise InputError(f"{name}: {bad_bound} of {size} cells in {where} violate {name} "
+                                 f"{'> 0' if strict else '>= 0'}")
+
+
+def _inputs(data, keys):
+    """Quantities of the fields ``keys`` (param -> yt key) read from ``data`` (a grid or covering grid)."""
+    return {param: _quantity(data, key) for param, key in keys.items()}
+
+
+def _validate(all_inputs, where):
+    tally = _Tally()
+    for inputs in all_inputs:
+        for param, q in inputs.items():
+            if param == "temperature":
+                tally.add(param, q, 0.0, True)
+            elif param != "ionization":
+                tally.add(param, q, 0.0, False)
+    tally.raise_if_bad(where)
+
+
+def _terms(inputs, options, dtype):
+    from ..snapshot import _to_array, derive_terms
+    import astropy.units as u
+    t = _to_array(inputs["temperature"], u.K, "temperature",
+                  np.float64 if "density" in inputs else dtype, u.temperature())
+    ionization = inputs.get("ionization", options["ionization"])
+    if "ionization" in inputs:
+        ionization = np.asarray(inputs["ionization"].to_value(u.dimensionless_unscaled), np.float64)
+    return derive_terms(t, inputs.get("electron_density"), inputs.get("ion_density"), inputs.get("density"),
+                        ionization, options["composition"], options["helium"], None, dtype)
+
+
+def from_yt(ds, *, temperature, electron_density=None, ion_density=None, density=None, ionization=None,
+            composition=None, helium=None, level=None, dtype=np.float32):
+    """Build a snapshot from a yt dataset (see :meth:`rtrace.Snapshot.from_yt`)."""
+    import astropy.units as u
+    from ..snapshot import Snapshot
+    dtype = np.dtype(dtype)
+    if dtype not in (np.float32, np.float64):
+        raise InputError(f"dtype: must be float32 or float64, got {dtype}")
+    ds = _load(ds)
+    if (electron_density is None) == (density is None):
+        raise InputError("electron_density / density: give exactly one of them (density with ionization)")
+    keys = {"temperature": _resolve_field(ds, temperature, "temperature")}
+    if electron_density is not None:
+        keys["electron_density"] = _resolve_field(ds, electron_density, "electron_density")
+        if ion_density is not None:
+            keys["ion_density"] = _resolve_field(ds, ion_density, "ion_density")
+        if ionization is not None:
+            raise InputError("ionization: only used with density; electron_density was given directly")
+    else:
+        if ion_density is not None:
+            raise InputError("ion_density: only used with electron_density")
+        keys["density"] = _resolve_field(ds, density, "density")
+        if _fraction_field(ds, ionization):
+            keys["ionization"] = _resolve_field(ds, ionization, "ionization")
+            ionization = None
+    options = {"ionization": ionization, "composition": composition, "helium": helium}
+    left = ds.domain_left_edge.to("cm").d.astype(float)
+    width = (ds.domain_right_edge - ds.domain_left_edge).to("cm").d.astype(float)
+    base = np.asarray(ds.domain_dimensions, np.int64)
+    fields_text = ", ".join(f"{p}={'/'.join(k)}" for p, k in keys.items())
+    grids = getattr(ds.index, "grids", None) if level is None else None
+    max_level = int(getattr(ds.index, "max_level", 0)) if grids is not None else 0
+    if level is not None or grids is None or max_level == 0:
+        if grids is None and level is None:
+            raise InputError(f"level: {ds} has no grid hierarchy (octree or particle data); give level= "
+                             "to sample it on yt's covering grid at that refinement level")
+        lev = 0 if level is None else int(level)
+        if lev < 0:
+            raise InputError(f"level: must be >= 0, got {level}")
+        dims = base * int(ds.refine_by) ** lev
+        cg = ds.covering_grid(lev, ds.domain_left_edge, dims)
+        inputs = _inputs(cg, keys)
+        _validate([inputs], f"{ds}")
+        t, ne, ni, how = _terms(inputs, options, dtype)
+        check_temperature_range(t, "temperature")
+        how_sampled = "uniform level-0 grid" if level is None else f"sampled on yt's covering grid at level {lev}"
+        prov = {"source": f"yt: {ds} ({how_sampled}; {fields_text})", "ionization": how}
+        return Snapshot(t, ne, ni, width / dims, left, prov)
+    return _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_text)
+
+
+def _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_text):
+    r = int(np.max(ds.refine_by))
+    levels = 1 + max(int(g.Level) for g in grids)
+    finest = r ** (levels - 1)
+    all_inputs, boxes = [], []
+    for g in grids:
+        lev = int(g.Level)
+        start = np.asarray(g.get_global_startindex(), np.int64)
+        dims = np.asarray(g.ActiveDimensions, np.int64)
+        scale = r ** (levels - 1 - lev)
+        boxes.append((lev, start * scale, (start + dims) * scale, f"grid {g.id}"))
+        all_inputs.append(_inputs(g, keys))
+    _validate(all_inputs, f"{len(grids)} grids of {ds}")
+    out, how = [], None
+    for (lev, lo, hi, label), inputs in zip(boxes, all_inputs):
+        t, ne, ni, how = _terms(inputs, options, dtype)
+        check_temperature_range(t, "temperature")
+        out.append(Grid(lev, lo, hi, ne, ni, t, label))
+    prov = {"source": f"yt: {ds} (AMR, {levels} levels, {len(grids)} grids; {fields_text})", "ionization": how}
+    return AMRSnapshot(out, r, base, width / base, left, prov)
