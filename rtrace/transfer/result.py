@@ -53,6 +53,9 @@ class Result:
         ratio = pixel_size_cm / view.distance.to_value(u.cm)
         self.pixel_solid_angle = ratio**2 * u.sr
         self.pixel_scale = (ratio * u.rad).to(u.arcsec)
+        self._snapshot = None           # set by trace(): the diagnostics retrace the same rays
+        self._trace_options = {}
+        self._unabsorbed = None
 
     @property
     def sky_position(self):
@@ -107,6 +110,63 @@ class Result:
         else:
             raise InputError(f"kind: expected 'planck' or 'rayleigh-jeans', got {kind!r}")
         return u.Quantity(tb, u.K)
+
+    # -- optical-depth diagnostics -----------------------------------------------------------
+
+    def _require_snapshot(self, what):
+        if self._snapshot is None:
+            raise InputError(f"{what}: this Result does not carry its snapshot (it was not made by rtrace.trace)")
+        return self._snapshot
+
+    @property
+    def unabsorbed_intensity(self):
+        """``int j_nu ds`` per pixel: the same emission with no absorption (Quantity (nfreq, ny, nx)).
+
+        Traced on first use over exactly the rays of this result (same
+        lattice, same pixel footprints; background excluded), so
+        ``intensity / unabsorbed_intensity`` is the absorption loss per pixel,
+        ``(1 - e^{-tau}) / tau`` for a uniform column. The Result keeps a
+        reference to its snapshot for this.
+        """
+        if self._unabsorbed is None:
+            from .tracer import trace
+            snap = self._require_snapshot("unabsorbed_intensity")
+            thin = trace(snap, self.view, self.frequencies, absorption=False, **self._trace_options)
+            self._unabsorbed = thin._intensity
+        return u.Quantity(self._unabsorbed, INTENSITY_UNIT, copy=False)
+
+    def tau_unity_depth(self):
+        """Depth (pc) from the observer-side grid boundary where tau reaches 1, per pixel (nfreq, ny, nx).
+
+        Along the ray through each pixel centre; NaN where tau never reaches 1.
+        See :mod:`rtrace.analysis.depth`.
+        """
+        from ..analysis.depth import tau_unity_depth
+        self._require_snapshot("tau_unity_depth")
+        return tau_unity_depth(self)
+
+    def contribution(self, pixel):
+        """Contribution function along the ray through the centre of ``pixel = (column, row)``.
+
+        Returns a :class:`~rtrace.analysis.depth.RayContribution`: where along
+        the line of sight the emergent intensity comes from.
+        """
+        from ..analysis.depth import contribution
+        self._require_snapshot("contribution")
+        return contribution(self, pixel)
+
+    def turnover_frequency(self):
+        """Frequency (Hz) per pixel where tau falls through 1, and for the whole source.
+
+        See :func:`rtrace.analysis.spectra.tau_unity_frequency`.
+        """
+        from ..analysis.spectra import tau_unity_frequency
+        return tau_unity_frequency(self)
+
+    def cut(self, start, end, num=None, order=1):
+        """Profiles along a straight cut; see :func:`rtrace.analysis.cuts.cut`."""
+        from ..analysis.cuts import cut
+        return cut(self, start, end, num=num, order=order)
 
     def observe(self, beam, noise=None, **kwargs):
         """Convolve with a telescope beam (and add noise): a :class:`~rtrace.observe.SkyMap` in Jy/beam.

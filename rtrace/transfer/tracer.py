@@ -55,13 +55,18 @@ PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function 
            "Gaunt factor: soft-photon Born + Coulomb correction + classical finite-frequency term (Z=1)")
 
 
-class FrequencyTables:
-    """Per-frequency constants the kernels need (all cgs)."""
+# Opacity scale of an absorption-free trace: alpha -> eps alpha at fixed j_nu, then I / eps.
+_THIN_SCALE = 1e-30
 
-    def __init__(self, nu_hz):
+
+class FrequencyTables:
+    """Per-frequency constants the kernels need (all cgs); ``opacity_scale`` multiplies alpha_nu."""
+
+    def __init__(self, nu_hz, opacity_scale=1.0):
         self.nu = np.ascontiguousarray(nu_hz, float)
         self.hk = H_OVER_K * self.nu                          # h nu / k  (K)
-        self.alpha_pref = ALPHA_FF_PREFACTOR / self.nu**3     # R&L 5.18b prefactor times nu^-3
+        # R&L 5.18b prefactor times nu^-3
+        self.alpha_pref = ALPHA_FF_PREFACTOR / self.nu**3 * opacity_scale
         # Planck prefactor 2 h nu^3 / c^2 and Rayleigh-Jeans factor 2 nu^2 k / c^2 (= the former / (h nu / k))
         self.b_pref = np.ascontiguousarray([2.0 * H * self.nu**3 / C**2, 2.0 * H * self.nu**3 / C**2 / self.hk])
         self.log_t0, dlog_t, self.gtab = log_temperature_table(self.nu)
@@ -99,7 +104,7 @@ def _background(background, nu):
 
 
 def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_size=None,
-          max_memory=None, client=None):
+          max_memory=None, client=None, absorption=True):
     """Solve the transfer equation along the rays of ``view`` through ``snapshot``.
 
     Parameters
@@ -133,6 +138,12 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         only the final per-ray result comes back. A file-backed snapshot is
         read by the tasks themselves (each gets the path and its index
         range); an in-memory one sends each brick once.
+    absorption : bool, optional
+        False: the same emission with no absorption (``I = I_bg + int j_nu ds``,
+        tau = 0): the optically thin reference for full/unabsorbed ratios
+        (see :attr:`Result.unabsorbed_intensity`). Traced as the limit of
+        opacity scaled by ``1e-30`` at fixed emissivity, whose relative
+        error is ``1e-30 tau``.
 
     Returns
     -------
@@ -160,7 +171,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     budget = None if max_memory is None else _bricks.parse_memory(max_memory)
     if client is not None and not (hasattr(client, "submit") and hasattr(client, "scatter")):
         raise InputError(f"client: expected a dask.distributed.Client, got {type(client).__name__}")
-    tables = FrequencyTables(nu)
+    tables = FrequencyTables(nu, 1.0 if absorption else _THIN_SCALE)
     center, pix = view.resolve(snapshot)
     if view.los_axis() is not None:
         route = _AxisRoute(snapshot, view, center, pix, tables)
@@ -185,11 +196,20 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
             patch = parallel.trace_bricks(client, route, source, order)
         else:
             patch = _trace_in_sequence(route, source, order)
+    if not absorption and patch is not None:
+        patch.seg.intensity /= _THIN_SCALE        # I = sum S dtau' / eps = int j ds (1 + O(eps tau))
+        patch.seg.tau[...] = 0.0
     seg, nrays = route.finish(patch, bg)
     provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
                       background="none" if background is None else str(background), physics=PHYSICS)
-    return Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
-                  rays_per_pixel=nrays, background=bg)
+    if not absorption:
+        provenance["absorption"] = "off (emission only)"
+    res = Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
+                 rays_per_pixel=nrays, background=bg)
+    # what the diagnostics need to retrace the same rays (see Result.unabsorbed_intensity)
+    res._snapshot = snapshot
+    res._trace_options = dict(supersample=supersample, brick_size=brick_size, max_memory=max_memory)
+    return res
 
 
 # -- bricked tracing ----------------------------------------------------------------------------
