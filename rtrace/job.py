@@ -30,7 +30,7 @@ SCHEMA = {
     "snapshot": {"kind": str, "path": str, "paths": list, "pattern": str, "cells": int, "seed": int,
                  "seeds": list,
                  "temperature": str, "electron_density": str, "ion_density": str, "density": str,
-                 "cell_size": "length", "origin": "length3", "units": dict, "subvolume": list},
+                 "cell_size": "length", "origin": "length3", "units": dict, "subvolume": list, "level": int},
     "ionization": {"model": str, "threshold": "temperature", "helium": str, "fraction": str,
                    "hydrogen_mass_fraction": float, "helium_mass_fraction": float},
     "frequencies": {"values": "frequency_list", "start": "frequency", "stop": "frequency",
@@ -189,12 +189,13 @@ def _frequencies(spec):
     return nu.to(u.Hz)
 
 
-def _hdf5_file(value, where, base_dir):
+def _hdf5_file(value, where, base_dir, directories=False):
+    """Resolve a snapshot path (relative to the job file); ``directories``: yt datasets may be folders."""
     if not isinstance(value, str):
         raise ConfigError(f"{where}: expected str, got {type(value).__name__} {value!r}")
     path = (base_dir / value).resolve()
-    if not path.is_file():
-        raise ConfigError(f"{where}: file not found: {path}")
+    if not (path.exists() if directories else path.is_file()):
+        raise ConfigError(f"{where}: {'path' if directories else 'file'} not found: {path}")
     return path
 
 
@@ -215,7 +216,7 @@ def _snapshot_members(snap, base_dir):
     if snap["kind"] == "demo":
         for key in ("paths", "pattern"):
             if key in snap:
-                raise ConfigError(f"[snapshot].{key}: only used with kind = 'hdf5' "
+                raise ConfigError(f"[snapshot].{key}: only used with kind = 'hdf5' or 'yt' "
                                   f"(a series of demo snapshots takes 'seeds')")
         if "seeds" not in snap:
             return [{"label": "demo", "seed": snap.get("seed", 7)}], False
@@ -233,26 +234,29 @@ def _snapshot_members(snap, base_dir):
     if "seeds" in snap:
         raise ConfigError("[snapshot].seeds: only used with kind = 'demo' (a series of files takes "
                           "'paths' or 'pattern')")
+    kind = snap["kind"]
+    dirs = kind == "yt"
     if not sources:
-        raise ConfigError("[snapshot]: 'path' is required when kind = 'hdf5' (or 'paths' / 'pattern' "
+        raise ConfigError(f"[snapshot]: 'path' is required when kind = '{kind}' (or 'paths' / 'pattern' "
                           "for a series of files)")
     if len(sources) > 1:
         raise ConfigError(f"[snapshot]: give one of 'path', 'paths' or 'pattern', not "
                           f"{' and '.join(repr(k) for k in sources)}")
     if "path" in snap:
-        snap["path"] = _hdf5_file(snap["path"], "[snapshot].path", base_dir)
+        snap["path"] = _hdf5_file(snap["path"], "[snapshot].path", base_dir, dirs)
         return [{"label": snap["path"].stem, "path": snap["path"]}], False
     if "paths" in snap:
         if not snap["paths"]:
             raise ConfigError("[snapshot].paths: expected a non-empty list of file names")
-        files = [_hdf5_file(v, f"[snapshot].paths[{i}]", base_dir) for i, v in enumerate(snap["paths"])]
+        files = [_hdf5_file(v, f"[snapshot].paths[{i}]", base_dir, dirs) for i, v in enumerate(snap["paths"])]
         where = "[snapshot].paths"
     else:
         pattern = snap["pattern"]
         # relative to the job file, like every other path in a job; sorted so that the series
         # order (and therefore the output layout and progress) does not depend on the file system
         full = pattern if Path(pattern).is_absolute() else str(base_dir / pattern)
-        files = sorted(Path(p).resolve() for p in glob.glob(full, recursive=True) if Path(p).is_file())
+        files = sorted(Path(p).resolve() for p in glob.glob(full, recursive=True)
+                       if (Path(p).exists() if dirs else Path(p).is_file()))
         if not files:
             raise ConfigError(f"[snapshot].pattern: '{pattern}' matches no file (looked in "
                               f"{Path(full).parent.resolve()})")
@@ -370,12 +374,19 @@ def parse_job(raw, base_dir="."):
         raise ConfigError(f"job: unknown table '[{key}]'{_suggest(key, _TOP)}; allowed: {', '.join(sorted(_TOP))}")
     snap = _section(raw, "snapshot")
     kind = snap.get("kind", "demo")
-    if kind not in ("demo", "hdf5"):
-        raise ConfigError(f"[snapshot].kind: '{kind}' is not 'demo' or 'hdf5'")
+    if kind not in ("demo", "hdf5", "yt"):
+        raise ConfigError(f"[snapshot].kind: '{kind}' is not 'demo', 'hdf5' or 'yt'")
     snap["kind"] = kind
-    if kind == "hdf5":
+    if kind == "yt":
+        for key in ("cell_size", "origin", "units", "subvolume"):
+            if key in snap:
+                raise ConfigError(f"[snapshot].{key}: not used with kind = 'yt' (yt reads the geometry and "
+                                  "units from the dataset)")
+    elif "level" in snap:
+        raise ConfigError("[snapshot].level: only used with kind = 'yt'")
+    if kind in ("hdf5", "yt"):
         if "temperature" not in snap:
-            raise ConfigError("[snapshot]: 'temperature' is required when kind = 'hdf5'")
+            raise ConfigError(f"[snapshot]: 'temperature' is required when kind = '{kind}'")
         if ("electron_density" in snap) == ("density" in snap):
             raise ConfigError("[snapshot]: give exactly one of 'electron_density' or 'density'")
     members, series = _snapshot_members(snap, base_dir)

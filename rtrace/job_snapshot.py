@@ -1,4 +1,4 @@
-"""The snapshots a job names, and how each one is loaded (HDF5) or built (demo).
+"""The snapshots a job names, and how each one is loaded (HDF5, yt) or built (demo).
 
 :func:`job_members` lists the job's snapshots (one entry per member of a
 series); :func:`build_snapshot` turns one of them into a `~rtrace.Snapshot`,
@@ -61,6 +61,8 @@ def build_snapshot(job, member=None):
     if snap["kind"] == "demo":
         from .demo import scenario
         return scenario(n=snap.get("cells", 64), seed=member.get("seed", snap.get("seed", 7)))
+    if snap["kind"] == "yt":
+        return _from_yt(job, snap, member)
     from .io.hdf5 import read_hdf5
     kw = {k: snap[k] for k in ("electron_density", "ion_density", "density", "cell_size", "origin", "units")
           if k in snap}
@@ -69,3 +71,22 @@ def build_snapshot(job, member=None):
     if "density" in snap:
         kw["ionization"] = _ionization_model(job)
     return read_hdf5(member["path"], temperature=snap["temperature"], **kw)
+
+
+def _yt_field(name):
+    """A job's field name: ``"density"`` or ``"gas/density"`` (yt's (type, name))."""
+    return tuple(name.split("/", 1)) if "/" in name else name
+
+
+def _from_yt(job, snap, member):
+    from .snapshot import Snapshot
+    kw = {k: _yt_field(snap[k]) for k in ("electron_density", "ion_density", "density") if k in snap}
+    if "density" in snap:
+        ion = job.ionization
+        model = ion.get("model", "full")
+        kw["ionization"] = _yt_field(ion["fraction"]) if model == "supplied" else _ionization_model(job)
+        if model == "supplied":
+            kw["composition"] = _composition(ion)
+            kw["helium"] = ion.get("helium")
+    return Snapshot.from_yt(str(member["path"]), temperature=_yt_field(snap["temperature"]),
+                            level=snap.get("level"), **kw)

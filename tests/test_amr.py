@@ -202,3 +202,40 @@ def test_path_form_loads_through_yt(tmp_path):
     np.testing.assert_allclose(snap._ne, ne, rtol=1e-6)
     with pytest.raises(InputError, match="does not exist"):
         rtrace.Snapshot.from_yt(str(tmp_path / "nope.h5"), temperature="temperature", electron_density="x")
+
+
+def test_job_file_reads_a_yt_dataset(tmp_path):
+    from rtrace.errors import ConfigError
+    from rtrace.job import load_job
+    from rtrace.job_snapshot import build_snapshot
+    rng = np.random.default_rng(6)
+    t = rng.uniform(5e3, 3e4, (8, 8, 8))
+    rho = rng.uniform(1e-22, 1e-21, (8, 8, 8))
+    ds = yt.load_uniform_grid({"temperature": (t, "K"), "density": (rho, "g/cm**3")}, t.shape,
+                              length_unit=(1, "pc"))
+    cg = ds.covering_grid(0, ds.domain_left_edge, ds.domain_dimensions)
+    cg.save_as_dataset(str(tmp_path / "cube"), fields=[("stream", "temperature"), ("stream", "density")])
+    text = """
+[snapshot]
+kind = "yt"
+path = "cube.h5"
+temperature = "temperature"
+density = "gas/density"
+[ionization]
+model = "full"
+[frequencies]
+values = ["1 GHz"]
+[[view]]
+los = [0, 0, 1]
+north = [0, 1, 0]
+npix = 8
+distance = "1 kpc"
+"""
+    (tmp_path / "job.toml").write_text(text)
+    snap = build_snapshot(load_job(tmp_path / "job.toml"))
+    ref = rtrace.Snapshot.from_arrays(temperature=t * u.K, density=rho * u.g / u.cm**3, ionization="full",
+                                      cell_size=1 / 8 * u.pc)
+    np.testing.assert_allclose(snap._ne, ref._ne, rtol=1e-6)
+    (tmp_path / "bad.toml").write_text(text.replace('kind = "yt"', 'kind = "yt"\ncell_size = "1 pc"'))
+    with pytest.raises(ConfigError, match="cell_size: not used with kind = 'yt'"):
+        load_job(tmp_path / "bad.toml")

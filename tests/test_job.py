@@ -45,7 +45,7 @@ def test_minimal_job_parses(tmp_path):
     (('"5 GHz"', '"5 K"'), r"\[frequencies\].values\[1\]: '5 K' is not a frequency"),
     (('kind = "demo"', 'kind = "hdf5"\npath = "nope.h5"\ntemperature = "T"\nelectron_density = "ne"'),
      r"\[snapshot\].path: file not found"),
-    (('kind = "demo"', 'kind = "movie"'), r"\[snapshot\].kind: 'movie' is not 'demo' or 'hdf5'"),
+    (('kind = "demo"', 'kind = "movie"'), r"\[snapshot\].kind: 'movie' is not 'demo', 'hdf5' or 'yt'"),
     (("npix = 16", "npix = 16\nlos = [0, 0, 1]\nnorth = [0, 0, 1]"), r"'a': north: parallel to los"),
 ])
 def test_validation_errors(tmp_path, patch, message):
