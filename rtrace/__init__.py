@@ -12,8 +12,10 @@ from .errors import ConfigError, InputError, PhysicsRangeWarning, RtraceError
 from .snapshot import Snapshot
 from .transfer import Result, View, trace
 from .io.lazy import open_hdf5
+from . import interferometer
+from .comparison import Comparison, compare
 
 __version__ = "0.1.0"
 
 __all__ = ["Snapshot", "View", "Result", "trace", "open_hdf5", "physics", "RtraceError", "InputError",
-           "ConfigError", "PhysicsRangeWarning", "__version__"]
+           "ConfigError", "PhysicsRangeWarning", "compare", "Comparison", "interferometer", "__version__"]

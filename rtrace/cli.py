@@ -1,4 +1,5 @@
-"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot an SED.
+"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot an SED,
+compare a model with an observed image.
 
 Exit codes (for scripts): 0 success; 1 unexpected internal error; 2 bad
 command-line usage; 3 job-file problem (unknown key, wrong unit, missing
@@ -179,6 +180,63 @@ def cmd_sed(args):
     return EXIT_OK
 
 
+def _one_frequency(text):
+    nu = _frequencies(text)
+    if nu.size != 1:
+        raise argparse.ArgumentTypeError(f"expected one frequency, got '{text}'")
+    return nu[0]
+
+
+def _beam_option(text):
+    import radio_beam
+    try:
+        major, minor, pa = (u.Quantity(v.strip()) for v in text.split(","))
+        return radio_beam.Beam(major=major.to(u.arcsec), minor=minor.to(u.arcsec), pa=pa.to(u.deg))
+    except (TypeError, ValueError, u.UnitsError):
+        raise argparse.ArgumentTypeError(f"cannot read beam '{text}' (write e.g. '6 arcsec, 4 arcsec, 30 deg': "
+                                         "major and minor FWHM, position angle)") from None
+
+
+def cmd_compare(args):
+    import warnings
+
+    from .comparison import ComparisonWarning, compare, read_observation
+    with warnings.catch_warnings():
+        # every warning is also a note, which the summary prints
+        warnings.simplefilter("ignore", ComparisonWarning)
+        obs = read_observation(args.observation, frequency=args.frequency, beam=args.beam)
+        if Path(args.model).suffix.lower() == ".toml":
+            from . import trace
+            from .job import build_views, load_job
+            from .pipeline import build_snapshot
+            job = load_job(args.model)
+            views = dict(build_views(job))
+            name = args.view or next(iter(views))
+            if name not in views:
+                raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
+            if job.series:
+                print(f"series of {len(job.snapshots)} snapshots; comparing the first, "
+                      f"'{job.snapshots[0]['label']}'")
+            # traced at the observed frequency itself: no interpolation between planes
+            model = trace(build_snapshot(job), views[name], u.Quantity([obs.frequency]),
+                          background=job.trace.get("background"))
+        elif args.view:
+            raise ConfigError("--view: only for a job file (TOML) model")
+        else:
+            model = args.model
+        result = compare(model, obs)
+    out = Path(args.output)
+    out.mkdir(parents=True, exist_ok=True)
+    stem = Path(args.observation).name
+    for suffix in (".gz", ".fits", ".fit", ".fts"):
+        stem = stem[:-len(suffix)] if stem.lower().endswith(suffix) else stem
+    paths = [result.write_fits(out / f"{stem}_residual.fits"), out / f"{stem}_comparison.png"]
+    result.plot(paths[1])
+    print(result.summary())
+    _report(paths, sys.stdout)
+    return EXIT_OK
+
+
 def build_parser():
     parser = argparse.ArgumentParser(
         prog="rtrace", description="Synthetic thermal free-free radio images from hydrodynamics snapshots.",
@@ -224,6 +282,20 @@ def build_parser():
     p.add_argument("--view", help="name of the view (default: the first)")
     p.add_argument("--plot", help="also draw the SED to this file (PNG, PDF, ...)")
     p.set_defaults(func=cmd_sed)
+
+    p = sub.add_parser("compare", help="compare a model with an observed image", description="Take a model at "
+                       "an observed image's frequency, convolve it with the observed beam, put it on the observed "
+                       "pixel grid and write the residual (observed - model) as FITS, a figure and a summary.")
+    p.add_argument("model", help="a model FITS cube written by rtrace (Jy/pixel or Jy/beam), or a job file (TOML) "
+                   "whose view is traced at the observed frequency")
+    p.add_argument("observation", help="the observed image (FITS; Jy/beam or K)")
+    p.add_argument("--view", help="job file only: name of the view (default: the first)")
+    p.add_argument("--frequency", type=_one_frequency, help="observed frequency, e.g. '1.4 GHz' (replaces the "
+                   "header's)")
+    p.add_argument("--beam", type=_beam_option, help="observed beam 'MAJOR, MINOR, PA', e.g. '6 arcsec, 4 arcsec, "
+                   "30 deg' (replaces BMAJ/BMIN/BPA)")
+    p.add_argument("--output", default=".", help="folder for the residual FITS and the figure (default: .)")
+    p.set_defaults(func=cmd_compare)
     return parser
 
 
