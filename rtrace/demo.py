@@ -27,15 +27,28 @@ _M_H = (const.m_p + const.m_e).cgs.value   # g, mass of a hydrogen atom (binding
 
 
 def _clumps(n, rng, slope=-3.7, sigma=0.7):
-    """Log-normal density contrast from a Gaussian random field with power spectrum k^slope."""
+    """Log-normal density contrast from a Gaussian random field with power spectrum k^slope.
+
+    Written to keep few full-size temporaries (one complex cube, transformed in place).
+    """
+    from scipy import fft
     k = np.fft.fftfreq(n) * n
-    kk = np.sqrt(k[:, None, None]**2 + k[None, :, None]**2 + k[None, None, :]**2)
+    phase = rng.random((n, n, n))
+    phase *= 2 * np.pi
+    field = np.empty((n, n, n), complex)                          # e^{2 pi i u}: random phases
+    np.cos(phase, out=field.real)
+    np.sin(phase, out=field.imag)
+    del phase
+    kk = k[:, None, None]**2 + k[None, :, None]**2 + k[None, None, :]**2
     kk[0, 0, 0] = 1.0
-    amp = kk ** (slope / 2)
-    amp[0, 0, 0] = 0.0
-    field = np.fft.ifftn(amp * np.exp(2j * np.pi * rng.random((n, n, n)))).real
+    kk **= slope / 4                                              # |k|^(slope/2)
+    kk[0, 0, 0] = 0.0
+    field *= kk
+    del kk
+    field = fft.ifftn(field, overwrite_x=True).real
     field *= sigma / field.std()
-    return np.exp(field - sigma**2 / 2)
+    field -= sigma**2 / 2
+    return np.exp(field, out=field)
 
 
 def scenario(n=96, seed=7, box=2.0 * u.pc):
@@ -58,11 +71,10 @@ def scenario(n=96, seed=7, box=2.0 * u.pc):
     side = box.to_value(u.pc)
     dx = side / n
     x = (np.arange(n) + 0.5) * dx - side / 2
-    X, Y, Z = np.meshgrid(x, x, x, indexing="ij")
     clumps = _clumps(n, rng)
     # bubble centred slightly off the box centre so views differ
     bx, by, bz = 0.08, -0.05, 0.0
-    r = np.sqrt((X - bx)**2 + (Y - by)**2 + (Z - bz)**2)
+    r = np.sqrt((x[:, None, None] - bx)**2 + (x[None, :, None] - by)**2 + (x[None, None, :] - bz)**2)
     r_bubble, shell = 0.55, 0.09
     n_h = 300.0 * clumps                                          # neutral cloud, cm-3
     temp = np.full_like(n_h, 30.0)                                # K
@@ -76,10 +88,12 @@ def scenario(n=96, seed=7, box=2.0 * u.pc):
     wind = r < r_wind
     n_h[wind] = 3.0e4 * (0.02 / np.maximum(r[wind], r_core))**2
     temp[wind] = 1.0e4
+    del r, inside, in_shell, wind, clumps
     comp = Composition(hydrogen=0.70, helium=0.28)
-    rho = n_h * _M_H / comp.hydrogen
-    return Snapshot.from_arrays(temperature=temp * u.K, cell_size=dx * u.pc,
-                                density=rho * u.g / u.cm**3,
+    rho = n_h
+    rho *= _M_H / comp.hydrogen                                   # g cm-3, in place
+    return Snapshot.from_arrays(temperature=u.Quantity(temp, u.K, copy=False), cell_size=dx * u.pc,
+                                density=u.Quantity(rho, u.g / u.cm**3, copy=False),
                                 ionization=TemperatureThreshold(5000.0 * u.K, composition=comp),
                                 origin=[-side / 2] * 3 * u.pc,
                                 source=f"rtrace.demo.scenario(n={n}, seed={seed})")
