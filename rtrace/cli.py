@@ -1,5 +1,5 @@
 """The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot an SED,
-compare a model with an observed image.
+compare a model with an observed image, take a cut through a view.
 
 Exit codes (for scripts): 0 success; 1 unexpected internal error; 2 bad
 command-line usage; 3 job-file problem (unknown key, wrong unit, missing
@@ -180,6 +180,73 @@ def cmd_sed(args):
     return EXIT_OK
 
 
+def _cut_point(text):
+    """``"col, row"`` (pixels) or ``"RA, Dec"`` with angle units (ICRS), e.g. ``"150.1 deg, -30.2 deg"``."""
+    parts = [v.strip() for v in text.split(",")]
+    if len(parts) != 2:
+        raise argparse.ArgumentTypeError(f"cannot read point '{text}' (write 'column, row' or 'RA, Dec' with units)")
+    try:
+        return tuple(float(v) for v in parts)
+    except ValueError:
+        pass
+    try:
+        from astropy.coordinates import SkyCoord
+        ra, dec = (u.Quantity(v) for v in parts)
+        return SkyCoord(ra=ra.to(u.deg), dec=dec.to(u.deg), frame="icrs")
+    except (TypeError, ValueError, u.UnitsError):
+        raise argparse.ArgumentTypeError(f"cannot read point '{text}' (write 'column, row' or 'RA, Dec' with "
+                                         "units, e.g. '150.1 deg, -30.2 deg')") from None
+
+
+def _write_cut_csv(path, c):
+    from .io.atomic import atomic_path
+    ghz = c.frequencies.to_value(u.GHz)
+    names = ["offset_arcsec", "distance_pc", "column", "row", "emission_measure_pc_cm-6"]
+    cols = [c.offset.to_value(u.arcsec), c.distance.to_value(u.pc), c.columns, c.rows,
+            c.emission_measure.to_value(u.pc * u.cm**-6)]
+    thin = c.unabsorbed_intensity.value
+    for k, f in enumerate(ghz):
+        tag = f"{f:.6g}GHz"
+        names += [f"I_{tag}", f"I_unabsorbed_{tag}", f"tau_{tag}", f"Tb_{tag}_K", f"alpha_{tag}"]
+        cols += [c.intensity.value[k], thin[k], c.tau[k], c.brightness_temperature.to_value(u.K)[k],
+                 c.spectral_index[k]]
+    with atomic_path(path) as tmp:
+        with open(tmp, "w") as fh:
+            fh.write("# rtrace cut; intensities in erg s-1 cm-2 Hz-1 sr-1, T_b Planck (K)\n")
+            fh.write(",".join(names) + "\n")
+            for row in zip(*cols):
+                fh.write(",".join(f"{v:.8g}" for v in row) + "\n")
+
+
+def cmd_cut(args):
+    from . import trace
+    from .job import build_views, load_job
+    from .pipeline import build_snapshot
+    job = load_job(args.job)
+    views = dict(build_views(job))
+    name = args.view or next(iter(views))
+    if name not in views:
+        raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
+    res = trace(build_snapshot(job), views[name], job.frequencies)
+    c = res.cut(args.start, args.end, num=args.num)
+    print(f"# cut through view '{name}' ({res.provenance.get('source', '')}), {c.columns.size} samples, "
+          f"{c.offset[-1].to_value(u.arcsec):.4g} arcsec = {c.distance[-1].to_value(u.pc):.4g} pc")
+    print(f"{'nu (GHz)':>10} {'max tau':>10} {'min tau':>10} {'max I/I_thin':>13} {'min I/I_thin':>13}")
+    thin = c.unabsorbed_intensity.value
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = c.intensity.value / thin
+    for k, f in enumerate(c.frequencies.to_value(u.GHz)):
+        print(f"{f:10.5g} {np.nanmax(c.tau[k]):10.4g} {np.nanmin(c.tau[k]):10.4g} "
+              f"{np.nanmax(ratio[k]):13.4g} {np.nanmin(ratio[k]):13.4g}")
+    if args.csv:
+        _write_cut_csv(args.csv, c)
+        print(f"wrote {args.csv}")
+    if args.plot:
+        c.plot(args.plot)
+        print(f"wrote {args.plot}")
+    return EXIT_OK
+
+
 def _one_frequency(text):
     nu = _frequencies(text)
     if nu.size != 1:
@@ -296,6 +363,19 @@ def build_parser():
                    "30 deg' (replaces BMAJ/BMIN/BPA)")
     p.add_argument("--output", default=".", help="folder for the residual FITS and the figure (default: .)")
     p.set_defaults(func=cmd_compare)
+
+    p = sub.add_parser("cut", help="profiles along a cut through a view", description="Trace one view of a job "
+                       "and take a straight cut through the images: intensity with and without absorption, "
+                       "optical depth, brightness temperature, emission measure and spectral index.")
+    p.add_argument("job", help="the job file (TOML)")
+    p.add_argument("--view", help="name of the view (default: the first)")
+    p.add_argument("--start", type=_cut_point, required=True, help="'column, row' (pixels, 0 = centre of the "
+                   "first pixel) or 'RA, Dec' with units")
+    p.add_argument("--end", type=_cut_point, required=True, help="as --start")
+    p.add_argument("--num", type=int, default=None, help="number of samples (default: one per pixel)")
+    p.add_argument("--csv", help="write the profiles to this CSV file")
+    p.add_argument("--plot", help="draw full and unabsorbed profiles to this file (PNG, PDF, ...)")
+    p.set_defaults(func=cmd_cut)
     return parser
 
 

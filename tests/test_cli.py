@@ -93,8 +93,25 @@ def test_inspect_and_sed(tmp_path, capsys):
     assert "S (Jy)" in out and (tmp_path / "sed.png").stat().st_size > 1000
 
 
+def test_cut_writes_profiles_and_figure(tmp_path, capsys):
+    job = write(tmp_path, JOB)
+    csv, png = tmp_path / "cut.csv", tmp_path / "cut.png"
+    assert main(["cut", str(job), "--start", "2, 12", "--end", "21, 12", "--csv", str(csv),
+                 "--plot", str(png)]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert "max tau" in out and png.stat().st_size > 1000
+    rows = np.genfromtxt(csv, delimiter=",", names=True, skip_header=1)
+    assert rows.size == 20
+    # with absorption the intensity never exceeds the emission-only one (R&L 1979 eq. 1.30: (1 - e^-tau)/tau <= 1)
+    assert np.all(rows["I_1GHz"] <= rows["I_unabsorbed_1GHz"] * (1 + 1e-6))
+    with pytest.raises(SystemExit) as exc:
+        main(["cut", str(job), "--start", "2", "--end", "3, 4"])
+    assert exc.value.code == 2
+
+
 def test_help_everywhere():
-    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["sed", "--help"]):
+    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["sed", "--help"],
+                 ["compare", "--help"], ["cut", "--help"]):
         with pytest.raises(SystemExit) as exc:
             main(argv)
         assert exc.value.code == 0

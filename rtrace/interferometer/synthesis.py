@@ -1,0 +1,465 @@
+"""``synthesize``: a traced Result observed with an Earth-rotation synthesis array, and its map.
+
+Steps, per frequency: the (u, v, w) tracks of every baseline over the
+hour-angle range (:mod:`.array`); the model in Jy/pixel, optionally
+attenuated by the primary beam of one dish, Fourier-sampled exactly at the
+tracks (:mod:`.sampling`); weighting, dirty image and dirty beam
+(:mod:`.imaging`); Högbom CLEAN, the fitted clean beam and the restored
+image in Jy/beam (:mod:`.clean`).
+
+Largest angular scale: ``theta_LAS ~ 0.6 lambda / B_min`` with ``B_min`` the
+shortest projected baseline over the observation (common practice for the
+largest structure an array images reliably). For scale: the visibility
+of a Gaussian of that FWHM on the shortest baseline is
+``exp(-pi^2 0.6^2 / (4 ln 2)) ~ 28 %`` of its flux (Fourier transform of a
+Gaussian); structure much larger is filtered out, because no baseline
+samples the visibility near ``(u, v) = 0``.
+"""
+
+import math
+import warnings
+
+import astropy.units as u
+import numpy as np
+
+from ..errors import InputError
+from ..io.fits import write_cube
+from ..observe.beam import describe_beam
+from ..observe.noise import JY_PER_BEAM
+from ..observe.skymap import SkyMap
+from ..physics.constants import C
+from ..transfer.result import Result
+from .array import antenna_positions, hour_angle_samples, source_elevation, uvw_tracks
+from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
+from .imaging import WEIGHTINGS, dirty_beam, dirty_image, imaging_weights, uniform_cell
+from .sampling import (GAUSSIAN_FWHM_FACTOR, PRIMARY_BEAMS, direction_cosines, predict_visibilities,
+                       primary_beam_pattern, w_term_phase)
+
+__all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_HOUR_ANGLE_STEP",
+           "DEFAULT_RELATIVE_THRESHOLD"]
+
+_JY_CGS = 1.0e-23                # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
+
+# theta_LAS ~ 0.6 lambda / B_min (common practice)
+LAS_FACTOR = 0.6
+# Hour-angle sampling when none is given: 5 minutes of hour angle.
+DEFAULT_HOUR_ANGLE_STEP = (5.0 / 60.0) * u.hourangle
+# CLEAN stops at this fraction of the dirty image's peak when no threshold is given.
+DEFAULT_RELATIVE_THRESHOLD = 1e-3
+# The neglected w-term phase at the image corner above which a warning is given (rad):
+# 0.25 rad costs 1 - cos(0.25) ~ 3 % of a source's amplitude there.
+_W_PHASE_WARN = 0.25
+
+
+class SynthesisWarning(UserWarning):
+    """The synthetic observation is valid but something limits it (sampling, horizon, w term, CLEAN)."""
+
+
+def _angle(value, name, lo=None, hi=None):
+    if not isinstance(value, u.Quantity) or not value.unit.is_equivalent(u.deg):
+        raise InputError(f"{name}: expected an angle Quantity (e.g. 34 * u.deg), got {value!r}")
+    if value.ndim != 0:
+        raise InputError(f"{name}: expected a scalar angle, got shape {value.shape}")
+    deg = float(value.to_value(u.deg))
+    if not np.isfinite(deg) or (lo is not None and deg < lo) or (hi is not None and deg > hi):
+        raise InputError(f"{name}: must lie in [{lo}, {hi}] deg, got {value}")
+    return math.radians(deg)
+
+
+def _positive_length(value, name):
+    if not isinstance(value, u.Quantity) or not value.unit.is_equivalent(u.m):
+        raise InputError(f"{name}: expected a length Quantity (e.g. 12 * u.m), got {value!r}")
+    if value.ndim != 0:
+        raise InputError(f"{name}: expected a scalar, got shape {value.shape}")
+    x = float(value.to_value(u.m))
+    if not (np.isfinite(x) and x > 0):
+        raise InputError(f"{name}: must be finite and positive, got {value}")
+    return x
+
+
+def _threshold_jyb(threshold):
+    if threshold is None:
+        return None
+    if not isinstance(threshold, u.Quantity):
+        raise InputError(f"threshold: expected a Quantity in Jy/beam (e.g. 0.1 * u.mJy / u.beam), got {threshold!r}")
+    if threshold.unit.is_equivalent(JY_PER_BEAM):
+        t = threshold.to_value(JY_PER_BEAM)
+    elif threshold.unit.is_equivalent(u.Jy):
+        t = threshold.to_value(u.Jy)
+    else:
+        raise InputError(f"threshold: expected Jy/beam, got unit '{threshold.unit}'")
+    if np.ndim(t) != 0 or not (np.isfinite(t) and t >= 0):
+        raise InputError(f"threshold: expected one finite non-negative value, got {threshold}")
+    return float(t)
+
+
+def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.hourangle, hour_angle_step=None,
+               n_hour_angles=None, antenna_unit=None, min_elevation=0 * u.deg, dish_diameter=None,
+               primary_beam="gaussian", primary_beam_fwhm_factor=GAUSSIAN_FWHM_FACTOR, weighting="natural",
+               robust=0.0, gain=DEFAULT_GAIN, niter=10000, threshold=None, subtract_background=True):
+    """Observe a traced Result with an Earth-rotation synthesis array and image it.
+
+    Parameters
+    ----------
+    result : `~rtrace.Result`
+        The traced images; the image centre is the phase (and pointing)
+        centre, its declination is ``result.sky_position``'s (ICRS).
+    antennas : `~astropy.units.Quantity` (n, 3), str or os.PathLike
+        East, north, up antenna offsets (a length), or an antenna file
+        (see :func:`rtrace.interferometer.read_antennas`).
+    latitude : `~astropy.units.Quantity`
+        Geodetic latitude of the site.
+    hour_angle_range : `~astropy.units.Quantity` (2,)
+        ``(start, stop)`` of the source's hour angle, ``start <= stop``
+        (angles such as ``u.hourangle``, or times).
+    hour_angle_step : `~astropy.units.Quantity`, optional
+        Sample spacing (default 5 min of hour angle). A time is converted
+        at the sidereal rate.
+    n_hour_angles : int, optional
+        Number of evenly spaced samples instead of ``hour_angle_step``.
+    antenna_unit : str, optional
+        Unit of an antenna file that has no ``unit =`` line.
+    min_elevation : `~astropy.units.Quantity`
+        Samples with the source lower than this are dropped (default 0 deg,
+        the horizon), with a :class:`SynthesisWarning`.
+    dish_diameter : `~astropy.units.Quantity`, optional
+        Diameter of the (identical) dishes: the model is attenuated by one
+        dish's power pattern before sampling (the map is then the apparent
+        sky, not corrected for the primary beam). None: no attenuation.
+    primary_beam : {"gaussian", "airy"}
+        Shape of that pattern (see
+        :func:`rtrace.interferometer.sampling.primary_beam_pattern`).
+    primary_beam_fwhm_factor : float
+        Gaussian FWHM in units of ``lambda / D`` (default 1.13, common
+        practice for a tapered dish; a uniformly lit one, "airy", has 1.03).
+    weighting : {"natural", "uniform", "robust"}
+        Imaging weights (see :mod:`rtrace.interferometer.imaging`).
+    robust : float
+        Briggs robustness R for ``weighting="robust"`` (-2 ~ uniform,
+        +2 ~ natural).
+    gain : float
+        CLEAN loop gain (default 0.1).
+    niter : int
+        Most CLEAN components per frequency (default 10000).
+    threshold : `~astropy.units.Quantity`, optional
+        Stop CLEAN at this residual (Jy/beam); default 0.1 % of the dirty
+        image's peak at each frequency (a noiseless model has no noise
+        floor to stop at).
+    subtract_background : bool
+        Remove the background intensity (e.g. the CMB) first, as
+        ``Result.flux_density`` does: an interferometer measures no
+        uniform level in any case.
+
+    Returns
+    -------
+    `SynthesizedMap`
+        The restored images in Jy per clean beam (a `~rtrace.observe.SkyMap`),
+        with the tracks, visibilities, dirty image and beam, residual,
+        clean components and the largest angular scale.
+    """
+    if not isinstance(result, Result):
+        raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
+    pos = antenna_positions(antennas, unit=antenna_unit)
+    lat = _angle(latitude, "latitude", -90.0, 90.0)
+    min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
+    if weighting not in WEIGHTINGS:
+        raise InputError(f"weighting: expected one of {', '.join(WEIGHTINGS)}, got {weighting!r}")
+    try:
+        robust = float(robust)
+    except (TypeError, ValueError):
+        raise InputError(f"robust: expected a number, got {robust!r}") from None
+    if not np.isfinite(robust):
+        raise InputError(f"robust: must be finite, got {robust}")
+    thr = _threshold_jyb(threshold)
+    diameter = None
+    if dish_diameter is not None:
+        diameter = _positive_length(dish_diameter, "dish_diameter")
+        if primary_beam not in PRIMARY_BEAMS:
+            raise InputError(f"primary_beam: expected one of {', '.join(PRIMARY_BEAMS)}, got {primary_beam!r}")
+        try:
+            fwhm_factor = float(primary_beam_fwhm_factor)
+        except (TypeError, ValueError):
+            raise InputError(f"primary_beam_fwhm_factor: expected a number, got {primary_beam_fwhm_factor!r}") from None
+        if not (np.isfinite(fwhm_factor) and fwhm_factor > 0):
+            raise InputError(f"primary_beam_fwhm_factor: must be positive, got {primary_beam_fwhm_factor}")
+        sep = np.linalg.norm(pos[:, None, :2] - pos[None, :, :2], axis=-1)
+        sep[np.diag_indices(len(pos))] = np.inf
+        i, j = np.unravel_index(np.argmin(sep), sep.shape)
+        if sep[i, j] < diameter:
+            raise InputError(f"dish_diameter: antennas {min(i, j)} and {max(i, j)} stand {sep[i, j]:.4g} m "
+                             f"apart on the ground, closer than one dish diameter ({diameter:.4g} m)")
+    if hour_angle_step is None and n_hour_angles is None:
+        hour_angle_step = DEFAULT_HOUR_ANGLE_STEP
+    ha_all = hour_angle_samples(hour_angle_range, hour_angle_step, n_hour_angles)
+
+    sky = result.sky_position
+    dec = float(sky.icrs.dec.to_value(u.rad))
+    if result.view.sky_position is None:
+        warnings.warn("result: the View has no sky_position, so the source is placed at the default "
+                      "ICRS (0, 0): declination 0 deg; give View(sky_position=...) for the real "
+                      "declination, which shapes the (u, v) tracks", SynthesisWarning, stacklevel=2)
+
+    elev = source_elevation(ha_all, dec, lat)
+    keep = elev >= min_el - 1e-12
+    if not keep.any():
+        raise InputError(f"hour_angle_range: the source (declination {math.degrees(dec):.6g} deg) stays below "
+                         f"min_elevation={math.degrees(min_el):.6g} deg at latitude {math.degrees(lat):.6g} deg "
+                         f"over the whole range")
+    if not keep.all():
+        warnings.warn(f"hour_angle_range: {int((~keep).sum())} of {keep.size} hour-angle samples have the "
+                      f"source below min_elevation={math.degrees(min_el):.6g} deg and are dropped",
+                      SynthesisWarning, stacklevel=2)
+    ha = ha_all[keep]
+    uvw3, pairs, xyz = uvw_tracks(pos, lat, dec, ha)
+    uvw_half = uvw3.reshape(-1, 3)                            # (nh * nb, 3) metres
+    nhalf = uvw_half.shape[0]
+    proj = np.hypot(uvw_half[:, 0], uvw_half[:, 1])
+    b_min, b_max = float(proj.min()), float(proj.max())
+
+    nu = result.frequencies.to_value(u.Hz)
+    nfreq = nu.size
+    ny, nx = result.shape[1:]
+    pix_rad = float(result.pixel_scale.to_value(u.rad))
+    l, m = direction_cosines((ny, nx), pix_rad)
+    cell = uniform_cell((ny, nx), pix_rad)
+
+    intensity = np.asarray(result.intensity.value, float)
+    if subtract_background:
+        intensity = intensity - result.background.value[:, None, None]
+    bad = ~np.isfinite(intensity)
+    if bad.any():
+        raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
+    jy_per_pixel = intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
+
+    # sampling of the tracks: successive samples of the longest equatorial baseline are
+    # |d(u, v)/dH| dH <= sqrt(X^2 + Y^2) dH / lambda apart, which repeats the response of
+    # each source 1 / that away (a grating response along the track)
+    if ha.size > 1:
+        dh = float(np.max(np.diff(ha_all)))
+        dq_m = float(np.max(np.hypot(xyz[:, 0], xyz[:, 1]))) * dh
+        lam_min = C / nu.max() * 1e-2                     # metres (C is cgs)
+        alias_rad = lam_min / dq_m if dq_m > 0 else math.inf
+        extent_rad = max(nx, ny) * pix_rad
+        if alias_rad < extent_rad:
+            warnings.warn(f"hour_angle_step: the longest baseline's samples are far apart in (u, v), "
+                          f"so each source repeats {math.degrees(alias_rad) * 3600:.4g} arcsec away along the "
+                          f"tracks, inside the {math.degrees(extent_rad) * 3600:.4g} arcsec image; use a "
+                          f"step below {math.degrees(dh * alias_rad / extent_rad) * 4.0:.3g} min of hour angle",
+                          SynthesisWarning, stacklevel=2)
+
+    shape2 = (nfreq, ny, nx)
+    restored = np.empty(shape2)
+    dirty_all = np.empty(shape2)
+    resid_all = np.empty(shape2)
+    comps_all = np.empty(shape2)
+    psf_all = np.empty((nfreq, 2 * ny, 2 * nx))
+    pb_all = np.empty(shape2) if diameter is not None else None
+    vis_all = np.empty((nfreq, 2 * nhalf), complex)
+    wt_all = np.empty((nfreq, 2 * nhalf))
+    beams, las, n_iter, thresholds = [], np.empty(nfreq), np.empty(nfreq, int), np.empty(nfreq)
+    w_phase = np.empty(nfreq)
+    for i, f in enumerate(nu):
+        lam = C / f * 1e-2                                    # metres (C is cgs)
+        uu, vv, ww = (uvw_half[:, k] / lam for k in range(3))
+        model = jy_per_pixel[i]
+        if diameter is not None:
+            pb_all[i] = primary_beam_pattern(primary_beam, diameter, lam, l, m, fwhm_factor)
+            model = model * pb_all[i]
+        vis = predict_visibilities(model, l, m, uu, vv)
+        w_full = imaging_weights(np.concatenate([uu, -uu]), np.concatenate([vv, -vv]), weighting, cell,
+                                 robust=robust)
+        w_half = w_full[:nhalf]
+        dirty = dirty_image(vis, w_half, uu, vv, l, m)
+        psf = dirty_beam(w_half, uu, vv, (ny, nx), pix_rad)
+        beam = fit_clean_beam(psf, result.pixel_scale)
+        t = thr if thr is not None else DEFAULT_RELATIVE_THRESHOLD * float(np.max(np.abs(dirty)))
+        comps, resid, n, peak = hogbom(dirty, psf, gain=gain, threshold=t, niter=niter)
+        if n >= niter and peak > t:
+            warnings.warn(f"niter: CLEAN at {f / 1e9:.6g} GHz stopped after {n} components with the residual "
+                          f"peak at {peak:.4g} Jy/beam, above the threshold {t:.4g} Jy/beam",
+                          SynthesisWarning, stacklevel=2)
+        minor_pix = beam.minor.to_value(u.rad) / pix_rad
+        if minor_pix < 2.0:
+            warnings.warn(f"pixel_scale: the clean beam at {f / 1e9:.6g} GHz is {minor_pix:.3g} pixels wide "
+                          f"(FWHM, minor axis); fewer than 2 pixels per beam make CLEAN and the beam fit "
+                          f"coarse, trace with smaller pixels", SynthesisWarning, stacklevel=2)
+        restored[i] = restore(comps, resid, beam, result.pixel_scale)
+        dirty_all[i], resid_all[i], comps_all[i], psf_all[i] = dirty, resid, comps, psf
+        vis_all[i] = np.concatenate([vis, np.conj(vis)])
+        wt_all[i] = w_full / w_full.sum()
+        beams.append(beam)
+        q_min = b_min / lam
+        las[i] = LAS_FACTOR / q_min if q_min > 0 else math.inf
+        n_iter[i], thresholds[i] = n, t
+        w_phase[i] = w_term_phase(np.max(np.abs(ww)), l, m)
+    if w_phase.max() > _W_PHASE_WARN:
+        warnings.warn(f"result: the neglected w term reaches a phase of {w_phase.max():.3g} rad at the image "
+                      f"corners (non-coplanar baselines); the field is too wide for a two-dimensional "
+                      f"transform at these baselines", SynthesisWarning, stacklevel=2)
+
+    las_q = (las * u.rad).to(u.arcsec)
+    pb_txt = ("none" if diameter is None else
+              f"{primary_beam} of a {diameter:.6g} m dish"
+              + (f" (FWHM {fwhm_factor:.4g} lambda/D)" if primary_beam == "gaussian" else "")
+              + ", applied to the model, not corrected")
+    interferometer_txt = (
+        f"{len(pos)} antennas, {len(pairs)} baselines, latitude {math.degrees(lat):.6g} deg, declination "
+        f"{math.degrees(dec):.6g} deg, hour angle {math.degrees(ha[0]) / 15:.6g} to {math.degrees(ha[-1]) / 15:.6g} h "
+        f"({ha.size} samples), projected baselines {b_min:.6g}-{b_max:.6g} m, weighting {weighting}"
+        + (f" R={robust:g}" if weighting == "robust" else "")
+        + f", primary beam {pb_txt}, Hogbom CLEAN gain {gain:g} niter {niter} threshold "
+        + ",".join(f"{t:.4g}" for t in thresholds) + " Jy/beam, iterations "
+        + ",".join(str(k) for k in n_iter) + f", w-term phase at corners <= {w_phase.max():.3g} rad")
+    las_txt = ("0.6 lambda / B_min (common practice): "
+               + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu))
+               + f" (B_min = {b_min:.6g} m projected)")
+    beam_txt = ("clean beam fitted to the dirty beam: "
+                + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu)))
+    provenance = dict(result.provenance, beam=beam_txt, noise="none", interferometer=interferometer_txt,
+                      largest_angular_scale=las_txt)
+
+    uvw_full = np.concatenate([uvw_half, -uvw_half]) * u.m
+    return SynthesizedMap(
+        restored, beams, result, provenance, background_subtracted=bool(subtract_background),
+        dirty_image=dirty_all, dirty_beam=psf_all, residual=resid_all, clean_components=comps_all,
+        primary_beam=pb_all, uvw=uvw_full, visibilities=vis_all, weights=wt_all,
+        hour_angles=(ha * u.rad).to(u.hourangle), baselines=pairs, antennas=pos * u.m,
+        latitude=(math.degrees(lat) * u.deg), declination=(math.degrees(dec) * u.deg),
+        largest_angular_scale=las_q, shortest_baseline=b_min * u.m, longest_baseline=b_max * u.m,
+        clean_iterations=n_iter, clean_thresholds=thresholds, weighting=weighting,
+        robust=robust if weighting == "robust" else None)
+
+
+class SynthesizedMap(SkyMap):
+    """A synthesis image in Jy per clean beam, with what made it.
+
+    A :class:`~rtrace.observe.SkyMap` (``data``, ``beams``, ``flux_density``,
+    ``write_fits``... work as there; ``beams`` are the fitted clean beams,
+    one per frequency, ``beam`` the first; ``model`` is ``data``, as
+    nothing adds noise here). Build one with :func:`synthesize`.
+
+    Attributes
+    ----------
+    dirty_image, residual : `~astropy.units.Quantity` (nfreq, ny, nx)
+        Jy per dirty beam.
+    clean_components : `~astropy.units.Quantity` (nfreq, ny, nx)
+        Jy/pixel.
+    dirty_beam : ndarray (nfreq, 2 ny, 2 nx)
+        Point-spread function, peak 1 at index ``[:, ny, nx]``, at every
+        pixel offset (rows toward north, columns toward west).
+    primary_beam : ndarray (nfreq, ny, nx) or None
+        Power pattern that attenuated the model (None without ``dish_diameter``).
+    uvw : `~astropy.units.Quantity` (nvis, 3)
+        Baseline coordinates in metres: all samples, then their mirror
+        images ``(-u, -v, -w)``.
+    u, v, w : ndarray (nfreq, nvis)
+        The same in wavelengths at each frequency (for uv-coverage plots).
+    visibilities : ndarray (nfreq, nvis) complex
+        Model visibilities (Jy), in the order of ``uvw``.
+    weights : ndarray (nfreq, nvis)
+        Imaging weights, normalised to sum 1 at each frequency.
+    hour_angles : `~astropy.units.Quantity`
+        Hour angles sampled (those above ``min_elevation``).
+    baselines : ndarray (nb, 2)
+        Antenna indices of each baseline; ``uvw`` runs over hour angle
+        first, then baseline (sample ``h * nb + b``).
+    antennas : `~astropy.units.Quantity` (n, 3)
+        East, north, up positions (m).
+    latitude, declination : `~astropy.units.Quantity`
+    largest_angular_scale : `~astropy.units.Quantity` (nfreq,)
+        ``0.6 lambda / B_min`` (arcsec, common practice).
+    shortest_baseline, longest_baseline : `~astropy.units.Quantity`
+        Extremes of the projected baseline length over the observation (m).
+    clean_iterations : ndarray (nfreq,) of int
+    clean_thresholds : ndarray (nfreq,)
+        Threshold used at each frequency (Jy/beam).
+    weighting : str
+    robust : float or None
+    """
+
+    def __init__(self, data, beams, result, provenance, *, background_subtracted, dirty_image, dirty_beam,
+                 residual, clean_components, primary_beam, uvw, visibilities, weights, hour_angles, baselines,
+                 antennas, latitude, declination, largest_angular_scale, shortest_baseline, longest_baseline,
+                 clean_iterations, clean_thresholds, weighting, robust):
+        nu = result.frequencies.to_value(u.Hz)
+        super().__init__(data, data, beams, result, None, provenance, beam=beams[0], beam_scaling=None,
+                         reference_frequency=nu[0], seed=None, background_subtracted=background_subtracted)
+        self._dirty = np.asarray(dirty_image, float)
+        self._residual = np.asarray(residual, float)
+        self._components = np.asarray(clean_components, float)
+        self.dirty_beam = np.asarray(dirty_beam, float)
+        self.primary_beam = primary_beam
+        self.uvw = uvw
+        self.visibilities = visibilities
+        self.weights = weights
+        self.hour_angles = hour_angles
+        self.baselines = baselines
+        self.antennas = antennas
+        self.latitude = latitude
+        self.declination = declination
+        self.largest_angular_scale = largest_angular_scale
+        self.shortest_baseline = shortest_baseline
+        self.longest_baseline = longest_baseline
+        self.clean_iterations = np.asarray(clean_iterations, int)
+        self.clean_thresholds = u.Quantity(clean_thresholds, JY_PER_BEAM)
+        self.weighting = weighting
+        self.robust = robust
+
+    @property
+    def dirty_image(self):
+        return u.Quantity(self._dirty, JY_PER_BEAM, copy=False)
+
+    @property
+    def residual(self):
+        return u.Quantity(self._residual, JY_PER_BEAM, copy=False)
+
+    @property
+    def clean_components(self):
+        return u.Quantity(self._components, u.Jy / u.pix, copy=False)
+
+    def _wavelengths(self, k):
+        lam_m = C / self.frequencies.to_value(u.Hz) * 1e-2
+        return self.uvw[:, k].to_value(u.m)[None, :] / lam_m[:, None]
+
+    @property
+    def u(self):
+        return self._wavelengths(0)
+
+    @property
+    def v(self):
+        return self._wavelengths(1)
+
+    @property
+    def w(self):
+        return self._wavelengths(2)
+
+    def write_fits(self, path, image="restored"):
+        """Write one of the images to a FITS cube.
+
+        Parameters
+        ----------
+        path : str or os.PathLike
+        image : {"restored", "dirty", "residual", "components"}
+            ``restored`` (Jy/beam, the clean beams), ``dirty`` and
+            ``residual`` (Jy per dirty beam; the header carries the clean
+            beams, as usual for these images) or ``components`` (Jy/pixel,
+            no beam).
+        """
+        if image == "restored":
+            return super().write_fits(path)
+        choices = {"dirty": (self.dirty_image, True), "residual": (self.residual, True),
+                   "components": (self.clean_components, False)}
+        if image not in choices:
+            raise InputError(f"image: expected 'restored', 'dirty', 'residual' or 'components', got {image!r}")
+        data, with_beam = choices[image]
+        return write_cube(path, data, self.frequencies, self.pixel_scale, self.sky_position,
+                          beams=self.beams if with_beam else None, provenance=self.provenance,
+                          reference_beam=self.beam if with_beam else None, quantity=f"synthesis {image}")
+
+    def __repr__(self):
+        nf, ny, nx = self.shape
+        b = self.beam
+        return (f"<SynthesizedMap {nf} frequencies, {ny}x{nx} pixels of {self.pixel_scale:.4g}, "
+                f"{len(self.antennas)} antennas, clean beam {b.major.to(u.arcsec):.4g} x "
+                f"{b.minor.to(u.arcsec):.4g} pa {b.pa.to(u.deg):.4g}, largest angular scale "
+                f"{self.largest_angular_scale[0]:.4g}>")
