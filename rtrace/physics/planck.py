@@ -14,7 +14,8 @@ import numpy as np
 
 from .constants import C, H, H_OVER_K
 
-__all__ = ["planck", "planck_cgs", "planck_scalar", "inverse_planck_cgs", "one_minus_exp", "inverse_expm1",
+__all__ = ["planck", "planck_cgs", "planck_scalar", "inverse_planck_cgs", "one_minus_exp",
+           "one_minus_exp_series", "inverse_expm1",
            "SERIES_LIMIT"]
 
 # Below this argument the Taylor series in ``one_minus_exp`` and ``inverse_expm1`` are exact to
@@ -23,10 +24,16 @@ SERIES_LIMIT = 1.0e-3
 
 
 @numba.njit(cache=True, inline="always")
+def one_minus_exp_series(x):
+    """``1 - e^{-x}`` by its Taylor series to x^5 (A&S 4.2.1): exact to rounding for ``0 <= x < SERIES_LIMIT``."""
+    return x * (1.0 - x * (0.5 - x * (1.0 / 6.0 - x * (1.0 / 24.0 - x * (1.0 / 120.0)))))
+
+
+@numba.njit(cache=True, inline="always")
 def one_minus_exp(x):
     """``1 - e^{-x}`` for ``x >= 0``, exact to rounding (Taylor series below SERIES_LIMIT, A&S 4.2.1)."""
     if x < SERIES_LIMIT:
-        return x * (1.0 - x * (0.5 - x * (1.0 / 6.0 - x * (1.0 / 24.0 - x * (1.0 / 120.0)))))
+        return one_minus_exp_series(x)
     return -math.expm1(-x)
 
 

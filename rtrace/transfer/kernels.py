@@ -24,7 +24,7 @@ import numba
 import numpy as np
 from numba import prange
 
-from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp
+from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 
 __all__ = ["trace_along_last_axis", "trace_along_middle_axis", "layer_segments", "trace_sheared"]
 
@@ -46,6 +46,22 @@ def _table_position(temp, log_t0, inv_dlog_t, n_t):
 
 
 @numba.njit(cache=True, inline="always")
+def _radio_stimulated(uu):
+    """``1 - e^{-u}`` to u^4 for ``u < SERIES_LIMIT`` (omitted terms < 1e-14 relative; A&S 4.2.1)."""
+    return uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
+
+
+@numba.njit(cache=True, inline="always")
+def _radio_source(temp, uu, b_planck, b_rj):
+    """``B_nu`` for ``u = h nu / kT < SERIES_LIMIT`` with no division: ``(2 h nu^3/c^2)(1/u - 1/2 + u/12)``.
+
+    The 1/u term is ``(2 nu^2 k / c^2) T`` (``b_rj T``); omitted terms < 1e-14 relative (A&S 23.1.1;
+    cf. physics.planck.inverse_expm1).
+    """
+    return b_rj * temp + b_planck * (uu * (1.0 / 12.0) - 0.5)
+
+
+@numba.njit(cache=True, inline="always")
 def _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref):
     """At frequency ``f``: ``alpha_nu / (n_e n_i T^-1/2)`` (cm5) and ``S = B_nu(T)``.
 
@@ -57,11 +73,8 @@ def _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref):
     uu = hk[f] * inv_t
     g = gtab[f, i] + wt * (gtab[f, i + 1] - gtab[f, i])
     if uu < SERIES_LIMIT:
-        # radio regime, no division: B_nu = (2 h nu^3/c^2)(1/u - 1/2 + u/12) with the 1/u term
-        # as (2 nu^2 k / c^2) T; 1 - e^{-u} to u^4. For u < 1e-3 the omitted terms are below
-        # 1e-14 relative (A&S 4.2.1, 23.1.1; cf. physics.planck.one_minus_exp, inverse_expm1)
-        stim = uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
-        source = b_pref[1, f] * temp + b_pref[0, f] * (uu * (1.0 / 12.0) - 0.5)
+        stim = _radio_stimulated(uu)
+        source = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
     else:
         stim = one_minus_exp(uu)
         source = b_pref[0, f] * inverse_expm1(uu)
@@ -69,21 +82,52 @@ def _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref):
 
 
 @numba.njit(cache=True, inline="always")
-def _add_cell(out_i, out_tau, a, b, nn_ds, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref):
-    """Apply one cell of path ``ds`` to the running ray sums ``out_*[:, a, b]``.
+def _cell_coefficients(nn, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src):
+    """Fill ``kap[f] = alpha_nu`` (cm-1, R&L 5.18b with ``n_e n_i = nn``) and ``src[f] = B_nu(T)``.
 
-    ``nn_ds = n_e * ion_term * ds`` (cm-5); the tables are those of
-    :func:`_opacity_and_source`.
+    Per-cell factors (``ln T`` table position, ``T^-1/2``, ``1/T``) are computed
+    once. Where every frequency is in the radio regime (``h nu_max / kT <
+    SERIES_LIMIT``, the common case) the frequency loop has no branch and reads
+    the Gaunt table transposed (``gtab_t`` (n_T, nfreq)), so it vectorises.
     """
-    i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab.shape[1])
+    i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab_t.shape[0])
     inv_t = 1.0 / temp
-    a0 = nn_ds * math.sqrt(inv_t)
-    for f in range(hk.shape[0]):
-        kappa, source = _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref)
-        dtau = a0 * kappa                   # R&L 5.18b times ds
-        om = one_minus_exp(dtau)
-        out_i[f, a, b] += om * (source - out_i[f, a, b])   # S = B_nu(T)
-        out_tau[f, a, b] += dtau
+    a0 = nn * math.sqrt(inv_t)
+    if hk_max * inv_t < SERIES_LIMIT:
+        for f in range(hk.shape[0]):
+            uu = hk[f] * inv_t
+            g = gtab_t[i, f] + wt * (gtab_t[i + 1, f] - gtab_t[i, f])
+            kap[f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
+            src[f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
+    else:
+        for f in range(hk.shape[0]):
+            kappa, source = _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref)
+            kap[f] = a0 * kappa
+            src[f] = source
+
+
+@numba.njit(cache=True, inline="always")
+def _cross(kap, src, ds, acc_i, acc_t):
+    """One cell crossed over path ``ds``: ``I <- I e^{-dtau} + S (1 - e^{-dtau})``, ``tau += dtau``, all frequencies.
+
+    The series for ``1 - e^{-dtau}`` is used unless some frequency has
+    ``dtau >= SERIES_LIMIT`` (then each takes the exact form), so thin cells
+    run a branch-free, vectorisable loop.
+    """
+    nf = kap.shape[0]
+    thick = False
+    for f in range(nf):
+        thick |= kap[f] * ds >= SERIES_LIMIT
+    if thick:
+        for f in range(nf):
+            dtau = kap[f] * ds
+            acc_i[f] += one_minus_exp(dtau) * (src[f] - acc_i[f])
+            acc_t[f] += dtau
+    else:
+        for f in range(nf):
+            dtau = kap[f] * ds
+            acc_i[f] += one_minus_exp_series(dtau) * (src[f] - acc_i[f])
+            acc_t[f] += dtau
 
 
 @numba.njit(cache=True, parallel=True)
@@ -96,16 +140,57 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     be zero on entry.
     """
     na, nb, nl = ne.shape
+    nf = hk.shape[0]
+    if nf == 1:
+        _one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
+                                       out_i, out_tau, out_em)
+        return
+    gtab_t = np.ascontiguousarray(gtab.T)
+    hk_max = hk.max()
     for a in prange(na):
+        kap, src = np.empty(nf), np.empty(nf)
+        acc_i, acc_t = np.empty(nf), np.empty(nf)
         for b in range(nb):
+            acc_i[:] = 0.0
+            acc_t[:] = 0.0
             em = 0.0
             for s in range(nl):
                 l = s if forward else nl - 1 - s
                 nn = float(ne[a, b, l]) * float(ni[a, b, l])
                 if nn > 0.0:
                     em += nn * ds
-                    _add_cell(out_i, out_tau, a, b, nn * ds, float(temp[a, b, l]),
-                              log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)
+                    _cell_coefficients(nn, float(temp[a, b, l]), log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
+                                       alpha_pref, b_pref, kap, src)
+                    _cross(kap, src, ds, acc_i, acc_t)
+            for f in range(nf):
+                out_i[f, a, b] = acc_i[f]
+                out_tau[f, a, b] = acc_t[f]
+            out_em[a, b] = em
+
+
+@numba.njit(cache=True, parallel=True)
+def _one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
+                                   out_i, out_tau, out_em):
+    """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers."""
+    na, nb, nl = ne.shape
+    n_t = gtab.shape[1]
+    for a in prange(na):
+        for b in range(nb):
+            i_acc, t_acc, em = 0.0, 0.0, 0.0
+            for s in range(nl):
+                l = s if forward else nl - 1 - s
+                nn = float(ne[a, b, l]) * float(ni[a, b, l])
+                if nn > 0.0:
+                    em += nn * ds
+                    t = float(temp[a, b, l])
+                    it, wt = _table_position(t, log_t0, inv_dlog_t, n_t)
+                    inv_t = 1.0 / t
+                    kappa, source = _opacity_and_source(0, t, inv_t, it, wt, gtab, hk, alpha_pref, b_pref)
+                    dtau = nn * ds * math.sqrt(inv_t) * kappa          # R&L 5.18b times ds
+                    i_acc += one_minus_exp(dtau) * (source - i_acc)
+                    t_acc += dtau
+            out_i[0, a, b] = i_acc
+            out_tau[0, a, b] = t_acc
             out_em[a, b] = em
 
 
@@ -119,15 +204,26 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     and ``(A, C)``; they must be zero on entry.
     """
     na, nl, nc = ne.shape
+    nf = hk.shape[0]
+    gtab_t = np.ascontiguousarray(gtab.T)
+    hk_max = hk.max()
     for a in prange(na):
+        kap, src = np.empty(nf), np.empty(nf)
+        acc_i = np.zeros((nc, nf))          # this row's rays, frequencies contiguous
+        acc_t = np.zeros((nc, nf))
         for s in range(nl):
             l = s if forward else nl - 1 - s
             for c in range(nc):
                 nn = float(ne[a, l, c]) * float(ni[a, l, c])
                 if nn > 0.0:
                     out_em[a, c] += nn * ds
-                    _add_cell(out_i, out_tau, a, c, nn * ds, float(temp[a, l, c]),
-                              log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref)
+                    _cell_coefficients(nn, float(temp[a, l, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
+                                       alpha_pref, b_pref, kap, src)
+                    _cross(kap, src, ds, acc_i[c], acc_t[c])
+        for c in range(nc):
+            for f in range(nf):
+                out_i[f, a, c] = acc_i[c, f]
+                out_tau[f, a, c] = acc_t[c, f]
 
 
 @numba.njit(cache=True)
@@ -214,7 +310,8 @@ def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, co
     """
     nk = count.shape[0]
     nf = hk.shape[0]
-    n_t = gtab.shape[1]
+    gtab_t = np.ascontiguousarray(gtab.T)
+    hk_max = hk.max()
     n_block = (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK
     span_a, span_b = 0, 0
     for s in range(nk):
@@ -224,10 +321,13 @@ def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, co
     for blk in prange(n_block):
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
-        # this block's cells of one layer: n_e n_i, alpha_nu / ds... per frequency, S_nu
+        # this block's cells of one layer: n_e n_i, alpha_nu per frequency, S_nu
         nn_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b))
         kap_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
         src_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
+        # the block's rays (its rows are its own), frequencies contiguous
+        acc_i = np.zeros(((p_hi - p_lo) * n_j, nf))
+        acc_t = np.zeros(((p_hi - p_lo) * n_j, nf))
         for s in range(nk):
             k = k_lo + s if forward else k_lo + nk - 1 - s
             kl = k - off[2]
@@ -243,14 +343,8 @@ def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, co
                     nn = float(ne[xl, yl, kl]) * float(ni[xl, yl, kl])
                     nn_buf[xb, yb] = nn
                     if nn > 0.0:
-                        t = float(temp[xl, yl, kl])
-                        it, wt = _table_position(t, log_t0, inv_dlog_t, n_t)
-                        inv_t = 1.0 / t
-                        a0 = nn * math.sqrt(inv_t)
-                        for f in range(nf):
-                            kappa, source = _opacity_and_source(f, t, inv_t, it, wt, gtab, hk, alpha_pref, b_pref)
-                            kap_buf[xb, yb, f] = a0 * kappa        # R&L 5.18b, cm-1
-                            src_buf[xb, yb, f] = source
+                        _cell_coefficients(nn, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
+                                           hk_max, alpha_pref, b_pref, kap_buf[xb, yb], src_buf[xb, yb])
             for p in range(p_lo, p_hi):
                 for g in range(count[s]):
                     x = i0 + p + seg_da[s, g]
@@ -263,13 +357,13 @@ def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, co
                         yb = yb0 + q
                         nn = nn_buf[xb, yb]
                         if nn > 0.0:
-                            r = p * n_j + q
-                            out_em[0, r] += nn * ds
-                            for f in range(nf):
-                                dtau = kap_buf[xb, yb, f] * ds
-                                om = one_minus_exp(dtau)
-                                out_i[f, 0, r] += om * (src_buf[xb, yb, f] - out_i[f, 0, r])
-                                out_tau[f, 0, r] += dtau
+                            r = (p - p_lo) * n_j + q
+                            out_em[0, p * n_j + q] += nn * ds
+                            _cross(kap_buf[xb, yb], src_buf[xb, yb], ds, acc_i[r], acc_t[r])
+        for r in range((p_hi - p_lo) * n_j):
+            for f in range(nf):
+                out_i[f, 0, p_lo * n_j + r] = acc_i[r, f]
+                out_tau[f, 0, p_lo * n_j + r] = acc_t[r, f]
 
 
 @numba.njit(cache=True, inline="always")
