@@ -24,6 +24,7 @@ import numpy as np
 
 from .errors import InputError
 from .physics.constants import PC
+from .snapshot import GridGeometry
 
 __all__ = ["AMRSnapshot", "Grid", "Leaf", "decompose", "front_to_back"]
 
@@ -156,7 +157,7 @@ def front_to_back(tree, los):
     return out
 
 
-class AMRSnapshot:
+class AMRSnapshot(GridGeometry):
     """An AMR hierarchy of electron density, ion term and temperature, traced leaf by leaf.
 
     Built by :meth:`rtrace.Snapshot.from_yt`. The geometry attributes are
@@ -217,15 +218,6 @@ class AMRSnapshot:
             ne = np.ascontiguousarray(g.ne[sl])
             return ne, ne, np.ascontiguousarray(g.t[sl])
         return tuple(np.ascontiguousarray(x[sl]) for x in (g.ne, g.ni, g.t))
-
-    @property
-    def extent(self):
-        return self.origin, self.origin + np.asarray(self.shape) * self.cell_size
-
-    @property
-    def center(self):
-        lo, hi = self.extent
-        return (lo + hi) / 2
 
     def cell_counts(self):
         """Cells the leaves hold, per level (the data actually traced)."""

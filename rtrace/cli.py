@@ -153,17 +153,23 @@ def cmd_inspect(args):
     return EXIT_OK
 
 
-def cmd_sed(args):
+def _trace_job_view(path, view_name, frequencies=None):
+    """Trace one view of a job (the first snapshot of a series): ``(job, view name, Result)``."""
     from . import trace
-    from .analysis.spectra import sed, spectral_index
     from .job import build_views, load_job
     from .pipeline import build_snapshot
-    job = load_job(args.job)
+    job = load_job(path)
     views = dict(build_views(job))
-    name = args.view or next(iter(views))
+    name = view_name or next(iter(views))
     if name not in views:
         raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
-    res = trace(build_snapshot(job), views[name], job.frequencies, background=job.trace.get("background"))
+    nu = job.frequencies if frequencies is None else frequencies
+    return job, name, trace(build_snapshot(job), views[name], nu, background=job.trace.get("background"))
+
+
+def cmd_sed(args):
+    from .analysis.spectra import sed, spectral_index
+    job, name, res = _trace_job_view(args.job, args.view)
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
     if job.series:
@@ -219,15 +225,7 @@ def _write_cut_csv(path, c):
 
 
 def cmd_cut(args):
-    from . import trace
-    from .job import build_views, load_job
-    from .pipeline import build_snapshot
-    job = load_job(args.job)
-    views = dict(build_views(job))
-    name = args.view or next(iter(views))
-    if name not in views:
-        raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
-    res = trace(build_snapshot(job), views[name], job.frequencies)
+    job, name, res = _trace_job_view(args.job, args.view)
     c = res.cut(args.start, args.end, num=args.num)
     print(f"# cut through view '{name}' ({res.provenance.get('source', '')}), {c.columns.size} samples, "
           f"{c.offset[-1].to_value(u.arcsec):.4g} arcsec = {c.distance[-1].to_value(u.pc):.4g} pc")
@@ -273,20 +271,11 @@ def cmd_compare(args):
         warnings.simplefilter("ignore", ComparisonWarning)
         obs = read_observation(args.observation, frequency=args.frequency, beam=args.beam)
         if Path(args.model).suffix.lower() == ".toml":
-            from . import trace
-            from .job import build_views, load_job
-            from .pipeline import build_snapshot
-            job = load_job(args.model)
-            views = dict(build_views(job))
-            name = args.view or next(iter(views))
-            if name not in views:
-                raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
-            if job.series:
-                print(f"series of {len(job.snapshots)} snapshots; comparing the first, "
-                      f"'{job.snapshots[0]['label']}'")
             # traced at the observed frequency itself: no interpolation between planes
-            model = trace(build_snapshot(job), views[name], u.Quantity([obs.frequency]),
-                          background=job.trace.get("background"))
+            job, name, model = _trace_job_view(args.model, args.view, u.Quantity([obs.frequency]))
+            if job.series:
+                print(f"series of {len(job.snapshots)} snapshots; compared the first, "
+                      f"'{job.snapshots[0]['label']}'")
         elif args.view:
             raise ConfigError("--view: only for a job file (TOML) model")
         else:

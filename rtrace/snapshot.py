@@ -91,7 +91,22 @@ def derive_terms(t, electron_density=None, ion_density=None, density=None, ioniz
     return t, ne, ni, "supplied n_e and ion term"
 
 
-class Snapshot:
+class GridGeometry:
+    """The box of a grid with ``shape``, ``cell_size`` (cm) and ``origin`` (cm) attributes."""
+
+    @property
+    def extent(self):
+        """``(lower, upper)`` corners of the grid in cm."""
+        return self.origin, self.origin + np.asarray(self.shape) * self.cell_size
+
+    @property
+    def center(self):
+        """Centre of the grid in cm."""
+        lo, hi = self.extent
+        return (lo + hi) / 2
+
+
+class Snapshot(GridGeometry):
     """Electron density, ion term and temperature on a regular grid.
 
     Build one with :meth:`from_arrays` (or a reader); the constructor expects
@@ -240,17 +255,6 @@ class Snapshot:
     def ion_density(self):
         """Ion term ``sum_i Z_i^2 n_i``, Quantity (nx, ny, nz) in cm-3."""
         return u.Quantity(self._ni, u.cm**-3, copy=False)
-
-    @property
-    def extent(self):
-        """``(lower, upper)`` corners of the grid in cm."""
-        return self.origin, self.origin + np.asarray(self.shape) * self.cell_size
-
-    @property
-    def center(self):
-        """Centre of the grid in cm."""
-        lo, hi = self.extent
-        return (lo + hi) / 2
 
     def field_source(self):
         """The fields as a brick source for the tracer (see :mod:`rtrace.transfer.bricks`).

@@ -94,7 +94,9 @@ class Cut:
     intensity, tau, emission_measure, brightness_temperature, spectral_index
         Profiles, ``(nfreq, num)`` except EM ``(num,)``.
     unabsorbed_intensity : Quantity (nfreq, num)
-        ``int j ds`` along the same samples (traced on first use).
+        ``int j ds`` along the same samples (traced on first use). Like
+        :attr:`rtrace.Result.unabsorbed_intensity` it excludes any background,
+        which ``intensity`` includes (attenuated), as ``Result.intensity`` does.
     """
 
     def __init__(self, result, cols, rows, offset_pix, order):
