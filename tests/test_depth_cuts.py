@@ -156,3 +156,13 @@ def test_diagnostics_need_a_traced_result():
                  np.zeros(3), {"source": "x"})
     with pytest.raises(InputError, match="snapshot"):
         res.tau_unity_depth()
+
+
+def test_pickled_result_leaves_its_snapshot_behind(axis_result):
+    import pickle
+    copy = pickle.loads(pickle.dumps(axis_result))
+    np.testing.assert_array_equal(copy.intensity.value, axis_result.intensity.value)
+    assert copy._snapshot is None and axis_result._snapshot is not None
+    assert len(pickle.dumps(axis_result)) < 5 * axis_result.intensity.nbytes      # not the 24^3 snapshot
+    with pytest.raises(InputError, match="snapshot"):
+        copy.tau_unity_depth()

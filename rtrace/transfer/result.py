@@ -111,6 +111,13 @@ class Result:
             raise InputError(f"kind: expected 'planck' or 'rayleigh-jeans', got {kind!r}")
         return u.Quantity(tb, u.K)
 
+    def __getstate__(self):
+        # a pickled Result carries its images, not the snapshot they came from (which may be
+        # large or file-backed); the diagnostics that retrace need the original object
+        state = dict(self.__dict__)
+        state["_snapshot"] = None
+        return state
+
     # -- optical-depth diagnostics -----------------------------------------------------------
 
     def _require_snapshot(self, what):
