@@ -127,6 +127,7 @@ class Snapshot(GridGeometry):
     #: True when the fields are arrays in memory; False for a file-backed snapshot
     #: (:func:`rtrace.open_hdf5`), whose fields are read brick by brick.
     in_memory = True
+    _product = None
 
     def __init__(self, temperature, electron_density, ion_term, cell_size, origin, provenance):
         self._t = temperature
@@ -137,6 +138,7 @@ class Snapshot(GridGeometry):
         self.origin = np.asarray(origin, float)
         self.provenance = dict(provenance)
         self._checksum = None
+        self._product = None
 
     @classmethod
     def from_arrays(cls, temperature, cell_size, electron_density=None, ion_density=None, *,
@@ -268,6 +270,22 @@ class Snapshot(GridGeometry):
         """
         from .transfer.bricks import ArraySource
         return ArraySource(self._ne, self._ni, self._t)
+
+    def emission_product(self):
+        """``n_e x ion term`` per cell (storage dtype), formed on first use and kept.
+
+        Oblique views read it instead of both fields (their layer-by-layer
+        sweep reads memory with a stride, so each array read costs): one more
+        cube of memory for as long as the snapshot lives, or until :meth:`release`.
+        """
+        if self._product is None:
+            from .transfer.tracer import emission_product
+            self._product = emission_product(self._ne, self._ni)
+        return self._product
+
+    def release(self):
+        """Free what the snapshot computed and kept for speed (the emission product)."""
+        self._product = None
 
     def checksum(self):
         """SHA-256 of the stored fields and geometry (for provenance headers); computed once."""

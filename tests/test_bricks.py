@@ -77,7 +77,8 @@ def test_sheared_kernel_on_a_brick_sub_array_equals_the_whole_array(snap):
     # The index offset maps global cell indices onto the brick's own array: the kernel must
     # give bit-identical segments from the sub-array and from the whole array (common practice).
     tables = FrequencyTables(NU.to_value(u.Hz))
-    arrays = tuple(a.transpose(0, 2, 1) for a in (snap._ne, snap._ni, snap._t))     # (a, b, c) = (x, z, y)
+    # (a, b, c) = (x, z, y); the kernel reads n_e x ion term and T
+    arrays = tuple(a.transpose(0, 2, 1) for a in (snap._ne * snap._ni, snap._t))
     lo = np.array([4, 6, 3], np.int64)
     hi = np.array([13, 17, 12], np.int64)
     rho_a, rho_b, cell = 0.45, -0.8, snap.cell_size[[0, 2, 1]]

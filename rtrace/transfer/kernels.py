@@ -287,12 +287,14 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
 
 
 @numba.njit(cache=True, parallel=True)
-def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+def trace_sheared(nn_cells, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                   log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out_i, out_tau, out_em):
     """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
-    Arrays are ``(A, B, C)`` views with C the axis most nearly parallel to the
-    rays; ray ``(i0 + p, j0 + q)`` is output index ``p * n_j + q``. Rays are
+    ``nn_cells`` holds ``n_e x ion term`` per cell (one array read instead of
+    two: the layers are read with a stride, so each stream costs) and
+    ``temp`` the temperature, both ``(A, B, C)`` views with C the axis most
+    nearly parallel to the rays; ray ``(i0 + p, j0 + q)`` is output index ``p * n_j + q``. Rays are
     taken in blocks of rows that advance together layer by layer: for each
     layer the block first evaluates, once per cell it can reach, the
     absorption coefficient and source function at every frequency, then each
@@ -340,7 +342,7 @@ def trace_sheared(ne, ni, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, co
                 xb, xl = x - x_lo, x - off[0]
                 for y in range(y_lo, y_hi):
                     yb, yl = y - y_lo, y - off[1]
-                    nn = float(ne[xl, yl, kl]) * float(ni[xl, yl, kl])
+                    nn = float(nn_cells[xl, yl, kl])
                     nn_buf[xb, yb] = nn
                     if nn > 0.0:
                         _cell_coefficients(nn, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab, gtab_t, hk,

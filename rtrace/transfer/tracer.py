@@ -186,7 +186,11 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     elif in_memory and edge is None and budget is None and client is None:
         zero = np.zeros(3, np.int64)
         whole = np.asarray(snapshot.shape, np.int64)
-        patch = route.trace_brick(zero, whole, (snapshot._ne, snapshot._ni, snapshot._t), zero)
+        arrays = (snapshot._ne, snapshot._ni, snapshot._t)
+        if isinstance(route, _ObliqueRoute):
+            patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product())
+        else:
+            patch = route.trace_brick(zero, whole, arrays, zero)
     else:
         source = snapshot.field_source()
         edge = _brick_edge(route, source, edge, budget)
@@ -257,6 +261,11 @@ def _trace_in_sequence(route, source, order):
         if patch is not None:
             composite_into(acc, (0, 0), patch)
     return Patch((0, 0), acc)
+
+
+def emission_product(ne, ni):
+    """``n_e x ion term`` per cell in the fields' dtype (for float32 fields the exact product, rounded once)."""
+    return np.multiply(ne, ni, dtype=np.result_type(ne, ni))
 
 
 def _trace_amr(route, snap, los):
@@ -524,22 +533,27 @@ class _ObliqueRoute(_Route):
         return n[0] * n[1]
 
     def table_bytes(self, edge):
-        return 3 * 8 * edge * self.max_seg
+        # the layer tables, and the brick's n_e x ion term (4 or 8 bytes a cell; counted as 8)
+        return 3 * 8 * edge * self.max_seg + 8 * edge**3
 
-    def trace_brick(self, lo, hi, arrays, off):
+    def trace_brick(self, lo, hi, arrays, off, product=None):
         """Segments of the rays reaching cells ``lo <= index < hi``; ``arrays`` start at global index ``off``.
 
-        ``arrays`` may be the whole grid (``off`` = 0) or the brick's own
-        sub-array (``off`` = ``lo``).
+        ``arrays`` (n_e, ion term, T) may be the whole grid (``off`` = 0) or
+        the brick's own sub-array (``off`` = ``lo``); ``product`` is their
+        ``n_e x ion term`` if already at hand (:meth:`Snapshot.emission_product`),
+        else it is formed for the brick.
         """
         rect = self.brick_rays(lo, hi)
         if rect is None:
             return None
+        if product is None:
+            product = emission_product(arrays[0], arrays[1])
         (r0, s0), (r1, s1) = rect
         i_first, i_last = r0 + self.ia[0], r1 - 1 + self.ia[0]
         j_first, j_last = s0 + self.ib[0], s1 - 1 + self.ib[0]
         order = self.order
-        arrs = tuple(x.transpose(order) for x in arrays)
+        arrs = (product.transpose(order), arrays[2].transpose(order))
         lo_t = np.ascontiguousarray(np.asarray(lo, np.int64)[order])
         hi_t = np.ascontiguousarray(np.asarray(hi, np.int64)[order])
         off_t = np.ascontiguousarray(np.asarray(off, np.int64)[order])
