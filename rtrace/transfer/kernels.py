@@ -13,7 +13,10 @@ are computed once and reused for every frequency. In the radio regime
 (``h nu/kT < 1e-3``) the stimulated-emission factor and ``1/(e^u - 1)`` are
 replaced by their Taylor series, truncated where the next term is below
 1e-14 relative, so no transcendental is evaluated per frequency; likewise
-``1 - e^{-dtau}`` for ``dtau < 1e-3``.
+``1 - e^{-dtau}`` for ``dtau < 1e-3``. Where a cell is in that regime at
+every frequency the frequency loop has no branch, and the running sums of a
+ray keep their frequencies contiguous, so the loop vectorises; a single
+frequency keeps the sums in registers.
 
 Kernels trust their inputs: the Python layer validates them.
 """
