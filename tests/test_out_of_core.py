@@ -320,3 +320,17 @@ def test_out_of_core_trace_stays_within_the_budget(tmp_path):
     assert all(a < budget for a in report["allocated"])
     assert max(report["diffs"]) < 1e-6
     assert report["same_checksum"]
+
+
+def test_file_backed_result_diagnostics(h5file):
+    # The unabsorbed image retraces the file brick by brick; the ray-marching diagnostics refuse
+    # a file-backed snapshot (they would read every field whole) and say what to do instead.
+    from rtrace.errors import InputError
+    snap = open_hdf5(h5file, temperature="gas/T", electron_density="gas/ne", cell_size=0.01 * u.pc)
+    eager = read_hdf5(h5file, temperature="gas/T", electron_density="gas/ne", cell_size=0.01 * u.pc)
+    view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=12, distance=1 * u.kpc)
+    res = rtrace.trace(snap, view, NU, max_memory="20 MB")
+    ref = rtrace.trace(eager, view, NU)
+    assert np.allclose(res.unabsorbed_intensity.value, ref.unabsorbed_intensity.value, rtol=1e-10, atol=0)
+    with pytest.raises(InputError, match="file-backed"):
+        res.tau_unity_depth()

@@ -154,6 +154,10 @@ def _snapshot_of(result):
         raise InputError("result: this Result does not carry its snapshot (it was not made by rtrace.trace)")
     if getattr(snap, "is_amr", False):
         raise InputError("result: tau = 1 depths and contribution functions are not available for AMR snapshots")
+    if not getattr(snap, "in_memory", True):
+        raise InputError("result: tau = 1 depths and contribution functions march rays through the fields in "
+                         "memory, and this snapshot is file-backed (open_hdf5); read it, or a sub-volume of it, "
+                         "with rtrace.io.hdf5.read_hdf5 and trace that")
     return snap
 
 
