@@ -297,7 +297,8 @@ def trace_sheared(nn_cells, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, 
     ``nn_cells`` holds ``n_e x ion term`` per cell (one array read instead of
     two: the layers are read with a stride, so each stream costs) and
     ``temp`` the temperature, both ``(A, B, C)`` views with C the axis most
-    nearly parallel to the rays; ray ``(i0 + p, j0 + q)`` is output index ``p * n_j + q``. Rays are
+    nearly parallel to the rays; ray ``(i0 + p, j0 + q)`` is output index
+    ``p * n_j + q``. Rays are
     taken in blocks of rows that advance together layer by layer: for each
     layer the block first evaluates, once per cell it can reach, the
     absorption coefficient and source function at every frequency, then each
