@@ -34,6 +34,7 @@ from astropy.io import fits
 from astropy.wcs.utils import pixel_to_skycoord
 
 from ..errors import InputError
+from ..quantities import positive_scalar
 from ..observe.beam import describe_beam
 from .model import model_cube, model_image
 from .observation import JY_PER_BEAM, note, read_observation
@@ -439,13 +440,7 @@ class Comparison:
 
 
 def _angle_arcsec(value, name):
-    q = u.Quantity(value)
-    if not q.unit.is_equivalent(u.arcsec) or q.ndim != 0:
-        raise InputError(f"{name}: expected a single angle, got {value!r}")
-    v = float(q.to_value(u.arcsec))
-    if not (np.isfinite(v) and v > 0):
-        raise InputError(f"{name}: must be a positive angle, got {value!r}")
-    return v
+    return positive_scalar(value, u.arcsec, name, "an angle")
 
 
 def _jy_text(q):

@@ -25,6 +25,7 @@ from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_area, proj_plane_pixel_scales
 
 from ..errors import InputError
+from ..quantities import positive_scalar
 from ..observe.beam import describe_beam, validate_beam
 
 __all__ = ["ObservedImage", "read_observation", "ComparisonWarning", "FREQUENCY_KEYWORDS",
@@ -198,15 +199,7 @@ def header_frequencies(header, wcs, name):
 
 def check_frequency(frequency, name="frequency"):
     """A positive scalar frequency (or wavelength) in Hz."""
-    q = u.Quantity(frequency)
-    if not q.unit.is_equivalent(u.Hz, equivalencies=u.spectral()):
-        raise InputError(f"{name}: expected a frequency, got unit '{q.unit}'")
-    if q.ndim != 0:
-        raise InputError(f"{name}: expected a single frequency, got shape {q.shape}")
-    nu = float(q.to_value(u.Hz, equivalencies=u.spectral()))
-    if not (np.isfinite(nu) and nu > 0):
-        raise InputError(f"{name}: must be finite and positive, got {frequency}")
-    return nu
+    return positive_scalar(frequency, u.Hz, name, "a frequency", u.spectral())
 
 
 # --------------------------------------------------------------------------------------------

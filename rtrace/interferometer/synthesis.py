@@ -23,6 +23,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..quantities import positive_scalar
 from ..io.fits import write_cube
 from ..observe.beam import describe_beam
 from ..observe.noise import JY_PER_BEAM
@@ -67,14 +68,7 @@ def _angle(value, name, lo=None, hi=None):
 
 
 def _positive_length(value, name):
-    if not isinstance(value, u.Quantity) or not value.unit.is_equivalent(u.m):
-        raise InputError(f"{name}: expected a length Quantity (e.g. 12 * u.m), got {value!r}")
-    if value.ndim != 0:
-        raise InputError(f"{name}: expected a scalar, got shape {value.shape}")
-    x = float(value.to_value(u.m))
-    if not (np.isfinite(x) and x > 0):
-        raise InputError(f"{name}: must be finite and positive, got {value}")
-    return x
+    return positive_scalar(value, u.m, name, "a length (e.g. 12 * u.m)")
 
 
 def _threshold_jyb(threshold):

@@ -60,6 +60,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 from ..errors import InputError
+from ..quantities import positive_scalar
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap",
@@ -112,15 +113,7 @@ def _frequencies_hz(frequencies, name="frequencies"):
 
 
 def _pixel_scale_deg(pixel_scale):
-    q = u.Quantity(pixel_scale)
-    if not q.unit.is_equivalent(u.deg):
-        raise InputError(f"pixel_scale: expected an angle, got unit '{q.unit}'")
-    if q.ndim != 0:
-        raise InputError(f"pixel_scale: expected a scalar angle (square pixels), got shape {q.shape}")
-    value = float(q.to_value(u.deg))
-    if not (np.isfinite(value) and value > 0):
-        raise InputError(f"pixel_scale: must be finite and positive, got {q}")
-    return value
+    return positive_scalar(pixel_scale, u.deg, "pixel_scale", "an angle (square pixels)")
 
 
 def _icrs(sky_position):

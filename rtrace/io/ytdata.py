@@ -128,7 +128,6 @@ def _terms(inputs, options, dtype):
 def from_yt(ds, *, temperature, electron_density=None, ion_density=None, density=None, ionization=None,
             composition=None, helium=None, level=None, dtype=np.float32):
     """Build a snapshot from a yt dataset (see :meth:`rtrace.Snapshot.from_yt`)."""
-    import astropy.units as u
     from ..snapshot import Snapshot
     dtype = np.dtype(dtype)
     if dtype not in (np.float32, np.float64):
@@ -179,7 +178,6 @@ def from_yt(ds, *, temperature, electron_density=None, ion_density=None, density
 def _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_text):
     r = int(np.max(ds.refine_by))
     levels = 1 + max(int(g.Level) for g in grids)
-    finest = r ** (levels - 1)
     all_inputs, boxes = [], []
     for g in grids:
         lev = int(g.Level)

@@ -4,6 +4,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..quantities import positive_scalar
 from ..physics.planck import inverse_planck_cgs
 from ..transfer.result import Result
 from .beam import BeamKernel, beams_for_frequencies, describe_beam, validate_beam
@@ -19,15 +20,7 @@ def _reference_frequency(reference_frequency, scaling):
         return None
     if scaling is None:
         raise InputError("reference_frequency: only used with beam_scaling='inverse-frequency'")
-    q = u.Quantity(reference_frequency)
-    if not q.unit.is_equivalent(u.Hz, equivalencies=u.spectral()):
-        raise InputError(f"reference_frequency: expected a frequency, got unit '{q.unit}'")
-    if q.ndim != 0:
-        raise InputError(f"reference_frequency: expected a scalar, got shape {q.shape}")
-    nu = float(q.to_value(u.Hz, equivalencies=u.spectral()))
-    if not (np.isfinite(nu) and nu > 0):
-        raise InputError(f"reference_frequency: must be finite and positive, got {reference_frequency}")
-    return nu
+    return positive_scalar(reference_frequency, u.Hz, "reference_frequency", "a frequency", u.spectral())
 
 
 def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
