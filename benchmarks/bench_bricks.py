@@ -17,7 +17,6 @@ Usage: ``python benchmarks/bench_bricks.py [--cells 256] [--brick 64] [--budget 
 
 import argparse
 import os
-import resource
 import tempfile
 import time
 
@@ -26,16 +25,10 @@ import h5py
 import numpy as np
 
 import rtrace
+from timing import best_of, max_rss_mb
 from rtrace import demo
 
 
-def best_of(fn, repeat):
-    times, value = [], None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        times.append(time.perf_counter() - t0)
-    return min(times), value
 
 
 def status_bytes(key):
@@ -150,7 +143,7 @@ def main():
                   f"{max_difference(res, res_single):10.1e}")
     print("(the single process already runs the numba kernels on every core; each worker does too, "
           "so on a 2-core machine dask adds scheduling and transfer, not cores)")
-    print(f"\nprocess peak RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MiB")
+    print(f"\nprocess peak RSS {max_rss_mb():.0f} MiB")
 
 
 if __name__ == "__main__":

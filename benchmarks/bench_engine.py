@@ -19,6 +19,7 @@ import astropy.units as u
 import numpy as np
 
 import rtrace
+from timing import best_of
 from rtrace.physics.freefree import absorption_cgs
 from rtrace.physics.planck import planck_cgs
 
@@ -41,13 +42,6 @@ def numpy_reference(snap, nu_hz):
     return np.array(out)
 
 
-def best_of(fn, repeat):
-    times = []
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        times.append(time.perf_counter() - t0)
-    return min(times), value
 
 
 def traced_peak_mb(fn):

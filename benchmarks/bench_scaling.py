@@ -20,13 +20,13 @@ Usage: ``python benchmarks/bench_scaling.py [--sizes 128 256 512] [--repeat 3] [
 import argparse
 import gc
 import math
-import resource
 import time
 
 import astropy.units as u
 import numba
 
 import rtrace
+from timing import best_of, max_rss_mb
 from rtrace import demo
 
 TILT = math.radians(30.0)
@@ -38,17 +38,8 @@ NORTH = (0.0, 1.0, 0.0)
 NU = [5.0] * u.GHz
 
 
-def best_of(fn, repeat):
-    times = []
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
 
 
-def max_rss_mb():
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def views_for(snap, n):
@@ -63,7 +54,7 @@ def thread_scaling(snap, n, repeat):
     rows = []
     for k in range(1, top + 1):
         numba.set_num_threads(k)
-        rows.append((k, {name: best_of(lambda v=v: rtrace.trace(snap, v, NU), repeat) for name, v in views.items()}))
+        rows.append((k, {name: best_of(lambda v=v: rtrace.trace(snap, v, NU), repeat)[0] for name, v in views.items()}))
     numba.set_num_threads(top)
     return rows
 
@@ -91,7 +82,7 @@ def main():
         snap = demo.scenario(n)
         t_build = time.perf_counter() - t0
         gc.collect()
-        row = {name: best_of(lambda v=v: rtrace.trace(snap, v, NU), args.repeat)
+        row = {name: best_of(lambda v=v: rtrace.trace(snap, v, NU), args.repeat)[0]
                for name, v in views_for(snap, n).items()}
         results[n] = row
         print(f"  N={n:4d}: scenario built in {t_build:6.1f} s; axis {row['axis']:8.3f} s, "

@@ -20,7 +20,6 @@ Usage: ``python benchmarks/bench_yt.py [--cells 256] [--repeat 3] [--threads N] 
 
 import argparse
 import math
-import resource
 import time
 
 import astropy.units as u
@@ -28,6 +27,7 @@ import numba
 import numpy as np
 
 import rtrace
+from timing import best_of, max_rss_mb
 from rtrace import demo
 from rtrace.physics.constants import EMISSIVITY_FF_PREFACTOR, H_OVER_K
 from rtrace.physics.gaunt import classical_radio_gaunt, gaunt_cgs
@@ -42,17 +42,8 @@ NORTH = (0.0, 1.0, 0.0)
 J_UNITS = "erg/s/cm**3/Hz/sr"
 
 
-def best_of(fn, repeat):
-    times, value = [], None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        times.append(time.perf_counter() - t0)
-    return min(times), value
 
 
-def max_rss_mb():
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def emissivity(nu_hz, t, ne, ni, gaunt):

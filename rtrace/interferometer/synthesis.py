@@ -26,7 +26,7 @@ from ..errors import InputError
 from ..quantities import positive_scalar
 from ..io.fits import write_cube
 from ..observe.beam import describe_beam
-from ..observe.noise import JY_PER_BEAM
+from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
 from ..observe.skymap import SkyMap
 from ..physics.constants import C
 from ..transfer.result import Result
@@ -74,14 +74,7 @@ def _positive_length(value, name):
 def _threshold_jyb(threshold):
     if threshold is None:
         return None
-    if not isinstance(threshold, u.Quantity):
-        raise InputError(f"threshold: expected a Quantity in Jy/beam (e.g. 0.1 * u.mJy / u.beam), got {threshold!r}")
-    if threshold.unit.is_equivalent(JY_PER_BEAM):
-        t = threshold.to_value(JY_PER_BEAM)
-    elif threshold.unit.is_equivalent(u.Jy):
-        t = threshold.to_value(u.Jy)
-    else:
-        raise InputError(f"threshold: expected Jy/beam, got unit '{threshold.unit}'")
+    t = jy_per_beam_value(threshold, "threshold", "0.1 * u.mJy / u.beam")
     if np.ndim(t) != 0 or not (np.isfinite(t) and t >= 0):
         raise InputError(f"threshold: expected one finite non-negative value, got {threshold}")
     return float(t)

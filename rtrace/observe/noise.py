@@ -15,9 +15,23 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["noise_rms_per_frequency", "make_rng", "correlated_noise", "JY_PER_BEAM"]
+__all__ = ["noise_rms_per_frequency", "make_rng", "correlated_noise", "JY_PER_BEAM", "jy_per_beam_value"]
 
 JY_PER_BEAM = u.Jy / u.beam
+
+
+def jy_per_beam_value(value, name, example):
+    """The value(s) of a surface-brightness Quantity in Jy/beam (a plain flux density is read as per beam).
+
+    ``example`` is shown in the error for a value without units (e.g. ``"50 * u.uJy / u.beam"``).
+    """
+    if not isinstance(value, u.Quantity):
+        raise InputError(f"{name}: expected a Quantity in Jy/beam (e.g. {example}), got {value!r}")
+    if value.unit.is_equivalent(JY_PER_BEAM):
+        return value.to_value(JY_PER_BEAM)
+    if value.unit.is_equivalent(u.Jy):
+        return value.to_value(u.Jy)
+    raise InputError(f"{name}: expected Jy/beam, got unit '{value.unit}'")
 
 
 def noise_rms_per_frequency(noise, nfreq):
@@ -37,14 +51,7 @@ def noise_rms_per_frequency(noise, nfreq):
     """
     if noise is None:
         return None
-    if not isinstance(noise, u.Quantity):
-        raise InputError(f"noise: expected a Quantity in Jy/beam (e.g. 50 * u.uJy / u.beam), got {noise!r}")
-    if noise.unit.is_equivalent(JY_PER_BEAM):
-        rms = noise.to_value(JY_PER_BEAM)
-    elif noise.unit.is_equivalent(u.Jy):
-        rms = noise.to_value(u.Jy)
-    else:
-        raise InputError(f"noise: expected Jy/beam, got unit '{noise.unit}'")
+    rms = jy_per_beam_value(noise, "noise", "50 * u.uJy / u.beam")
     rms = np.atleast_1d(np.asarray(rms, float))
     if rms.ndim != 1:
         raise InputError(f"noise: expected a scalar or one value per frequency, got shape {noise.shape}")
