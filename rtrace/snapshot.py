@@ -128,6 +128,7 @@ class Snapshot(GridGeometry):
     #: (:func:`rtrace.open_hdf5`), whose fields are read brick by brick.
     in_memory = True
     _product = None
+    _blocks = None
 
     def __init__(self, temperature, electron_density, ion_term, cell_size, origin, provenance):
         self._t = temperature
@@ -139,6 +140,7 @@ class Snapshot(GridGeometry):
         self.provenance = dict(provenance)
         self._checksum = None
         self._product = None
+        self._blocks = None
 
     @classmethod
     def from_arrays(cls, temperature, cell_size, electron_density=None, ion_density=None, *,
@@ -283,9 +285,20 @@ class Snapshot(GridGeometry):
             self._product = emission_product(self._ne, self._ni)
         return self._product
 
+    def emitting_blocks(self):
+        """Which blocks of 8^3 cells hold emitting gas (:func:`rtrace.transfer.kernels.emitting_blocks`), kept.
+
+        Oblique views skip the blocks with none (1/512 of a cube of uint8).
+        """
+        if self._blocks is None:
+            from .transfer.kernels import emitting_blocks
+            self._blocks = emitting_blocks(self.emission_product())
+        return self._blocks
+
     def release(self):
-        """Free what the snapshot computed and kept for speed (the emission product)."""
+        """Free what the snapshot computed and kept for speed (the emission product and its block map)."""
         self._product = None
+        self._blocks = None
 
     def checksum(self):
         """SHA-256 of the stored fields and geometry (for provenance headers); computed once."""

@@ -86,8 +86,8 @@ def test_sheared_kernel_on_a_brick_sub_array_equals_the_whole_array(snap):
 
     def run(arrs, off):
         out = Segment.empty(len(tables.nu), (1, 20 * 25))
-        kernels.trace_sheared(*arrs, lo, hi, off, lo[2], True, -3, 20, -2, 25, *segs, *tables.args(),
-                              out.intensity, out.tau, out.em)
+        kernels.trace_sheared(*arrs, kernels.emitting_blocks(arrs[0]), lo, hi, off, lo[2], True, -3, 20, -2, 25,
+                              *segs, *tables.args(), out.intensity, out.tau, out.em)
         return out
 
     whole = run(arrays, np.zeros(3, np.int64))
@@ -95,6 +95,72 @@ def test_sheared_kernel_on_a_brick_sub_array_equals_the_whole_array(snap):
     assert whole.em.max() > 0
     assert np.array_equal(sub.intensity, whole.intensity) and np.array_equal(sub.tau, whole.tau)
     assert np.array_equal(sub.em, whole.em)
+
+
+@pytest.fixture(scope="module")
+def sparse():
+    """Mostly neutral gas: ionized clumps that straddle the 8-cell block edges, and lone ionized cells."""
+    rng = np.random.default_rng(77)
+    shape = (29, 21, 26)
+    ne = np.zeros(shape)
+    ne[6:10, 14:17, 7:9] = 1e4 * rng.lognormal(0, 1, (4, 3, 2))      # across x = 8, y = 16, z = 8
+    ne[20:25, 2:5, 15:18] = 3e3
+    for cell in [(0, 0, 0), (7, 7, 7), (8, 8, 8), (15, 20, 25), (28, 9, 16), (13, 0, 24)]:
+        ne[cell] = 5e4
+    t = rng.uniform(5e3, 2e4, shape)
+    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=[0.01, 0.012, 0.009] * u.pc,
+                                       electron_density=ne * u.cm**-3, dtype=np.float64)
+
+
+def test_emitting_blocks_mark_the_blocks_with_emitting_cells(sparse):
+    # Reference: numpy's any() over each 8^3 block of the zero-padded cube (common practice).
+    nn = sparse.emission_product()
+    padded = np.zeros([-(-n // 8) * 8 for n in nn.shape])
+    padded[:nn.shape[0], :nn.shape[1], :nn.shape[2]] = nn
+    s = padded.shape
+    expected = (padded.reshape(s[0] // 8, 8, s[1] // 8, 8, s[2] // 8, 8) > 0).any(axis=(1, 3, 5))
+    blocks = sparse.emitting_blocks()
+    assert np.array_equal(blocks.astype(bool), expected)
+    assert 0 < blocks.mean() < 0.5                               # the sweep has blocks to skip
+    sparse.release()
+    assert sparse._blocks is None and np.array_equal(sparse.emitting_blocks(), blocks)
+
+
+@pytest.mark.parametrize("off", [(0, 0, 0), (3, 5, 2)])
+def test_skipping_neutral_blocks_changes_no_bit(sparse, off):
+    # Cells with n_e n_i = 0 add nothing to I, tau or EM (R&L 1979, eq. 1.30 with j = alpha = 0), so the
+    # sweep that skips empty blocks must give exactly the sweep that reads every cell (an all-ones map),
+    # on the whole array and on a sub-array whose blocks are offset from the global ones.
+    tables = FrequencyTables(NU.to_value(u.Hz))
+    arrays = tuple(a.transpose(2, 0, 1) for a in (sparse.emission_product(), sparse._t))     # (a, b, c) = (z, x, y)
+    off = np.array(off, np.int64)
+    lo, hi = off, np.array(arrays[0].shape, np.int64)
+    arrays = tuple(np.ascontiguousarray(a[off[0]:, off[1]:, off[2]:]) for a in arrays)
+    cell = sparse.cell_size[[2, 0, 1]]
+    segs = kernels.layer_segments(0.25, 0.75, 0.6, -0.35, cell[0], cell[1], cell[2], 0.8, lo[2], hi[2], True, 8)
+
+    def run(blocks):
+        out = Segment.empty(len(tables.nu), (1, 40 * 30))
+        kernels.trace_sheared(*arrays, blocks, lo, hi, off, lo[2], True, -8, 40, -4, 30, *segs, *tables.args(),
+                              out.intensity, out.tau, out.em)
+        return out
+
+    blocks = kernels.emitting_blocks(arrays[0])
+    assert blocks.min() == 0
+    skipped, read_all = run(blocks), run(np.ones_like(blocks))
+    assert skipped.em.max() > 0 and skipped.tau[0].max() > 1
+    assert np.array_equal(skipped.intensity, read_all.intensity) and np.array_equal(skipped.tau, read_all.tau)
+    assert np.array_equal(skipped.em, read_all.em)
+
+
+@pytest.mark.parametrize("los", [(0.4, -0.7, 0.6), (-0.2, 0.9, 0.3)])
+def test_sparse_snapshot_bricks_equal_the_whole_grid(sparse, los):
+    # Each brick maps its own blocks (offset from the whole grid's); composited they give the whole-grid
+    # image (R&L 1979, eq. 1.30 piecewise).
+    view = rtrace.View(los=los, north=(0, 0, 1), npix=40, distance=1 * u.kpc)
+    whole = rtrace.trace(sparse, view, NU)
+    for size in (5, 9):
+        assert_same(rtrace.trace(sparse, view, NU, brick_size=size), whole)
 
 
 @pytest.mark.parametrize("los", [(0.3, -0.5, 0.8), (-0.9, 0.2, 0.1), (0.0, 0.6, -0.8), (0, 0, 1), (0.5, 0.5, -0.7)])

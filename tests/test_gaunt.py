@@ -120,6 +120,11 @@ def test_gaunt_is_smooth_and_positive_over_the_plane():
     i = x.astype(int)
     interp = table[:, i] + (x - i) * (table[:, i + 1] - table[:, i])
     assert np.allclose(interp, gaunt_factor(np.array([[1e9], [1e12]]), t_test[None, :]), rtol=1e-6)
+    # rows are kept per frequency: a later table (another frequency set) reuses them unchanged
+    nodes = np.exp(np.linspace(gaunt.LOG_T_MIN, gaunt.LOG_T_MAX, table.shape[1]))
+    again = gaunt.log_temperature_table(np.array([1e12, 3e10, 1e9]))[2]
+    assert again.flags.writeable and np.array_equal(again[[2, 0]], table)
+    assert np.array_equal(again[1], gaunt.gaunt_cgs(3e10, nodes))
 
 
 def _sommerfeld_points():

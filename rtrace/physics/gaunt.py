@@ -198,6 +198,9 @@ def log_temperature_table(nu, n_table=4097):
 
     The kernels interpolate this table linearly in ``ln T``; the Gaunt factor
     is close to linear in ``ln T`` so the interpolation error is below 1e-6.
+    Each frequency's row is computed once per process and kept (a few hundred
+    most recent frequencies), so repeated traces at the same frequencies do
+    not evaluate the Gaunt factor again.
 
     Returns
     -------
@@ -207,5 +210,15 @@ def log_temperature_table(nu, n_table=4097):
     """
     log_t = np.linspace(LOG_T_MIN, LOG_T_MAX, n_table)
     nu = np.atleast_1d(np.asarray(nu, float))
-    table = gaunt_cgs(nu[:, None], np.exp(log_t)[None, :])
-    return LOG_T_MIN, log_t[1] - log_t[0], np.ascontiguousarray(table)
+    table = np.empty((nu.size, n_table))
+    for f, nu_f in enumerate(nu.ravel()):
+        table[f] = _table_row(float(nu_f), n_table)
+    return LOG_T_MIN, log_t[1] - log_t[0], table
+
+
+@functools.lru_cache(maxsize=256)
+def _table_row(nu, n_table):
+    """One frequency's row of :func:`log_temperature_table` (read-only: it is shared)."""
+    row = gaunt_cgs(nu, np.exp(np.linspace(LOG_T_MIN, LOG_T_MAX, n_table)))
+    row.flags.writeable = False
+    return row

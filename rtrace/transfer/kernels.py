@@ -29,9 +29,11 @@ from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 
-__all__ = ["trace_along_last_axis", "trace_along_middle_axis", "layer_segments", "trace_sheared"]
+__all__ = ["trace_along_last_axis", "trace_along_middle_axis", "layer_segments", "trace_sheared",
+           "emitting_blocks", "BLOCK_SHIFT"]
 
 _ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
+BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
 
 
 @numba.njit(cache=True, inline="always")
@@ -290,8 +292,8 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
 
 
 @numba.njit(cache=True, parallel=True)
-def trace_sheared(nn_cells, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
-                  log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out_i, out_tau, out_em):
+def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
+                  seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out_i, out_tau, out_em):
     """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
     ``nn_cells`` holds ``n_e x ion term`` per cell (one array read instead of
@@ -305,7 +307,12 @@ def trace_sheared(nn_cells, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, 
     segment of :func:`layer_segments` applies them to a whole row of rays
     (a cell is crossed by ~1 + |rho_a| + |rho_b| ray segments, so the
     transcendentals are not repeated per crossing). Memory is read in order
-    and a cache line serves many consecutive layers. Cells outside
+    and a cache line serves many consecutive layers. ``blocks`` is
+    :func:`emitting_blocks` of ``nn_cells`` (same axis order): cells of a
+    block with no emitting cell are not read, and each row's crossings are
+    confined to the span of its emitting cells, so neutral gas costs almost
+    nothing (empty-space skipping; the sums are unchanged, since a cell with
+    ``n_e n_i = 0`` adds nothing to I, tau or EM). Cells outside
     ``lo <= index < hi`` (the brick, in global cell indices) contribute
     nothing. The arrays may be the whole grid or a brick's own sub-array:
     global cell ``(x, y, k)`` is element ``(x, y, k) - off`` (``off`` (3,)
@@ -328,6 +335,8 @@ def trace_sheared(nn_cells, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, 
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
         # this block's cells of one layer: n_e n_i, alpha_nu per frequency, S_nu
+        row_first = np.empty(_ROW_BLOCK + span_a, np.int64)     # buffer columns of a row's emitting cells
+        row_last = np.empty(_ROW_BLOCK + span_a, np.int64)
         nn_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b))
         kap_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
         src_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
@@ -344,22 +353,39 @@ def trace_sheared(nn_cells, temp, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, 
             y_hi = min(j0 + n_j + b_max, hi[1])
             for x in range(x_lo, x_hi):
                 xb, xl = x - x_lo, x - off[0]
-                for y in range(y_lo, y_hi):
-                    yb, yl = y - y_lo, y - off[1]
-                    nn = float(nn_cells[xl, yl, kl])
-                    nn_buf[xb, yb] = nn
-                    if nn > 0.0:
-                        _cell_coefficients(nn, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
-                                           hk_max, alpha_pref, b_pref, kap_buf[xb, yb], src_buf[xb, yb])
+                first, last = n_j + span_b, -1
+                bx, bk = xl >> BLOCK_SHIFT, kl >> BLOCK_SHIFT
+                y = y_lo
+                while y < y_hi:                 # one block of cells along y at a time
+                    by = (y - off[1]) >> BLOCK_SHIFT
+                    y_end = min(y_hi, ((by + 1) << BLOCK_SHIFT) + off[1])
+                    if blocks[bx, by, bk]:
+                        for yy in range(y, y_end):
+                            yb, yl = yy - y_lo, yy - off[1]
+                            nn = float(nn_cells[xl, yl, kl])
+                            nn_buf[xb, yb] = nn
+                            if nn > 0.0:
+                                first = min(first, yb)
+                                last = max(last, yb)
+                                _cell_coefficients(nn, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab, gtab_t,
+                                                   hk, hk_max, alpha_pref, b_pref, kap_buf[xb, yb], src_buf[xb, yb])
+                    else:
+                        for yy in range(y, y_end):
+                            nn_buf[xb, yy - y_lo] = 0.0
+                    y = y_end
+                row_first[xb] = first
+                row_last[xb] = last
             for p in range(p_lo, p_hi):
                 for g in range(count[s]):
                     x = i0 + p + seg_da[s, g]
                     if x < x_lo or x >= x_hi:
                         continue
                     xb = x - x_lo
+                    if row_last[xb] < 0:
+                        continue                            # no emitting cell in this row of the layer
                     ds = seg_ds[s, g]
                     yb0 = j0 + seg_db[s, g] - y_lo          # buffer column of ray q = 0
-                    for q in range(max(0, -yb0), min(n_j, y_hi - y_lo - yb0)):
+                    for q in range(max(0, row_first[xb] - yb0), min(n_j, row_last[xb] + 1 - yb0)):
                         yb = yb0 + q
                         nn = nn_buf[xb, yb]
                         if nn > 0.0:
@@ -382,3 +408,25 @@ def _segment_spread(seg_da, seg_db, s, n):
         b_min = min(b_min, seg_db[s, g])
         b_max = max(b_max, seg_db[s, g])
     return a_min, a_max, b_min, b_max
+
+
+@numba.njit(cache=True, parallel=True)
+def emitting_blocks(nn_cells):
+    """Which blocks of ``2**BLOCK_SHIFT`` cells per axis hold a cell with ``n_e n_i > 0`` (uint8, 1 = some).
+
+    Element ``(i, j, k)`` covers cells ``(i, j, k) * 8`` to ``+ 8`` (fewer at
+    the far edges); transposing the result as the cells are transposed keeps
+    the two in step. :func:`trace_sheared` skips the blocks marked 0.
+    """
+    na, nb, nc = nn_cells.shape
+    w = 1 << BLOCK_SHIFT
+    out = np.zeros(((na + w - 1) >> BLOCK_SHIFT, (nb + w - 1) >> BLOCK_SHIFT, (nc + w - 1) >> BLOCK_SHIFT),
+                   np.uint8)
+    for bx in prange(out.shape[0]):
+        for x in range(bx * w, min(na, (bx + 1) * w)):
+            for y in range(nb):
+                by = y >> BLOCK_SHIFT
+                for z in range(nc):
+                    if nn_cells[x, y, z] > 0:
+                        out[bx, by, z >> BLOCK_SHIFT] = 1
+    return out

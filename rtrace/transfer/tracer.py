@@ -13,12 +13,14 @@ Two routes give the same physics:
   of one lattice phase cross cell boundaries at the same depths, so the
   Amanatides & Woo traversal is done once per layer of cells
   (``kernels.layer_segments``) and the rays are swept through the grid layer
-  by layer (``kernels.trace_sheared``). Each ray stands for a parallelogram tube; tubes tile
-  the image plane and are remapped onto pixels by exact clipping, so a
-  pixel reports the mean over its footprint and the total flux is the
-  lattice quadrature of the volume integral for any pixel size. Faces seen
-  edge-on (directions in or near a coordinate plane) do not alias, because
-  the lattice counts exactly ``supersample`` rays per cell across them.
+  by layer (``kernels.trace_sheared``), skipping 8^3 blocks of cells that
+  hold no emitting gas (``kernels.emitting_blocks``). Each ray stands for a
+  parallelogram tube; tubes tile the image plane and are remapped onto
+  pixels by exact clipping, so a pixel reports the mean over its footprint
+  and the total flux is the lattice quadrature of the volume integral for
+  any pixel size. Faces seen edge-on (directions in or near a coordinate
+  plane) do not alias, because the lattice counts exactly ``supersample``
+  rays per cell across them.
 
 Each route has a two-dimensional grid of rays (columns; sub-lattice points)
 and traces one box of cells at a time into a ``Patch`` over the rays that
@@ -188,7 +190,8 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         whole = np.asarray(snapshot.shape, np.int64)
         arrays = (snapshot._ne, snapshot._ni, snapshot._t)
         if isinstance(route, _ObliqueRoute):
-            patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product())
+            patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product(),
+                                      blocks=snapshot.emitting_blocks())
         else:
             patch = route.trace_brick(zero, whole, arrays, zero)
     else:
@@ -536,24 +539,28 @@ class _ObliqueRoute(_Route):
         # the layer tables, and the brick's n_e x ion term (4 or 8 bytes a cell; counted as 8)
         return 3 * 8 * edge * self.max_seg + 8 * edge**3
 
-    def trace_brick(self, lo, hi, arrays, off, product=None):
+    def trace_brick(self, lo, hi, arrays, off, product=None, blocks=None):
         """Segments of the rays reaching cells ``lo <= index < hi``; ``arrays`` start at global index ``off``.
 
         ``arrays`` (n_e, ion term, T) may be the whole grid (``off`` = 0) or
         the brick's own sub-array (``off`` = ``lo``); ``product`` is their
-        ``n_e x ion term`` if already at hand (:meth:`Snapshot.emission_product`),
-        else it is formed for the brick.
+        ``n_e x ion term`` and ``blocks`` its :func:`kernels.emitting_blocks`
+        if already at hand (:meth:`Snapshot.emission_product`,
+        :meth:`Snapshot.emitting_blocks`), else they are formed for the brick.
         """
         rect = self.brick_rays(lo, hi)
         if rect is None:
             return None
         if product is None:
             product = emission_product(arrays[0], arrays[1])
+            blocks = None
+        if blocks is None:
+            blocks = kernels.emitting_blocks(product)
         (r0, s0), (r1, s1) = rect
         i_first, i_last = r0 + self.ia[0], r1 - 1 + self.ia[0]
         j_first, j_last = s0 + self.ib[0], s1 - 1 + self.ib[0]
         order = self.order
-        arrs = (product.transpose(order), arrays[2].transpose(order))
+        arrs = (product.transpose(order), arrays[2].transpose(order), blocks.transpose(order))
         lo_t = np.ascontiguousarray(np.asarray(lo, np.int64)[order])
         hi_t = np.ascontiguousarray(np.asarray(hi, np.int64)[order])
         off_t = np.ascontiguousarray(np.asarray(off, np.int64)[order])
