@@ -30,6 +30,7 @@ from matplotlib.patches import Ellipse
 from .analysis.spectra import (THIN_SPECTRAL_INDEX, _is_result, _is_skymap, _spectrum_arrays, frequency_index,
                                pixel_flux, spectral_index, spectral_index_map)
 from .errors import InputError
+from .quantities import finite_number
 
 __all__ = ["plot_map", "plot_panels", "plot_sed", "QUANTITIES", "STRETCHES", "nice_length",
            "choose_scale_bar", "DEFAULT_SNR_THRESHOLD"]
@@ -303,13 +304,7 @@ def _limit(value, plane, name):
         except u.UnitsError:
             raise InputError(f"{name}: '{value}' cannot be converted to the unit of the {plane.quantity} map "
                              f"({(1 * plane.unit).unit})") from None
-    try:
-        value = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{name}: expected a number or a Quantity, got {value!r}") from None
-    if not math.isfinite(value):
-        raise InputError(f"{name}: must be finite, got {value!r}")
-    return value
+    return finite_number(value, name, what="a number or a Quantity")
 
 
 def _make_norm(planes, stretch, vmin=None, vmax=None):

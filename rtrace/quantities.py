@@ -5,7 +5,7 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["positive_scalar"]
+__all__ = ["positive_scalar", "finite_number"]
 
 
 def positive_scalar(value, unit, name, what, equivalencies=None):
@@ -41,4 +41,17 @@ def positive_scalar(value, unit, name, what, equivalencies=None):
     x = float(q.to_value(unit, equivalencies=eq))
     if not (np.isfinite(x) and x > 0):
         raise InputError(f"{name}: must be finite and positive, got {value}")
+    return x
+
+
+def finite_number(value, name, positive=False, what="a number"):
+    """``value`` as a float: one finite number (and > 0 if ``positive``), else an error naming ``name``."""
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: expected {what}, got {value!r}") from None
+    if not np.isfinite(x):
+        raise InputError(f"{name}: must be finite, got {value!r}")
+    if positive and not x > 0:
+        raise InputError(f"{name}: must be positive, got {value!r}")
     return x

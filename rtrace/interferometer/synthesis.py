@@ -23,7 +23,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
-from ..quantities import positive_scalar
+from ..quantities import finite_number, positive_scalar
 from ..io.fits import write_cube
 from ..observe.beam import describe_beam
 from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
@@ -151,24 +151,14 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
     if weighting not in WEIGHTINGS:
         raise InputError(f"weighting: expected one of {', '.join(WEIGHTINGS)}, got {weighting!r}")
-    try:
-        robust = float(robust)
-    except (TypeError, ValueError):
-        raise InputError(f"robust: expected a number, got {robust!r}") from None
-    if not np.isfinite(robust):
-        raise InputError(f"robust: must be finite, got {robust}")
+    robust = finite_number(robust, "robust")
     thr = _threshold_jyb(threshold)
     diameter = None
     if dish_diameter is not None:
         diameter = _positive_length(dish_diameter, "dish_diameter")
         if primary_beam not in PRIMARY_BEAMS:
             raise InputError(f"primary_beam: expected one of {', '.join(PRIMARY_BEAMS)}, got {primary_beam!r}")
-        try:
-            fwhm_factor = float(primary_beam_fwhm_factor)
-        except (TypeError, ValueError):
-            raise InputError(f"primary_beam_fwhm_factor: expected a number, got {primary_beam_fwhm_factor!r}") from None
-        if not (np.isfinite(fwhm_factor) and fwhm_factor > 0):
-            raise InputError(f"primary_beam_fwhm_factor: must be positive, got {primary_beam_fwhm_factor}")
+        fwhm_factor = finite_number(primary_beam_fwhm_factor, "primary_beam_fwhm_factor", positive=True)
         sep = np.linalg.norm(pos[:, None, :2] - pos[None, :, :2], axis=-1)
         sep[np.diag_indices(len(pos))] = np.inf
         i, j = np.unravel_index(np.argmin(sep), sep.shape)

@@ -4,7 +4,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
-from ..quantities import positive_scalar
+from ..quantities import finite_number, positive_scalar
 from ..physics.planck import inverse_planck_cgs
 from ..transfer.result import Result
 from .beam import BeamKernel, beams_for_frequencies, describe_beam, validate_beam
@@ -297,12 +297,7 @@ class SkyMap:
             ``model / noise_rms >= threshold``; all True without noise (and
             at frequencies whose rms is zero).
         """
-        try:
-            thr = float(threshold)
-        except (TypeError, ValueError):
-            raise InputError(f"threshold: expected a number, got {threshold!r}") from None
-        if not np.isfinite(thr):
-            raise InputError(f"threshold: must be finite, got {threshold!r}")
+        thr = finite_number(threshold, "threshold")
         if self._rms is None:
             return np.ones(self.shape, dtype=bool)
         rms = self._rms[:, None, None]
