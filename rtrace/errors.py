@@ -4,7 +4,11 @@ Every error raised for bad user input derives from :class:`RtraceError`, so
 scripts can catch one class; the subclasses say whose fault it is.
 """
 
-__all__ = ["RtraceError", "InputError", "ConfigError", "PhysicsRangeWarning"]
+import os
+import sys
+import warnings
+
+__all__ = ["RtraceError", "InputError", "ConfigError", "PhysicsRangeWarning", "warn_user"]
 
 
 class RtraceError(Exception):
@@ -24,3 +28,15 @@ class ConfigError(RtraceError, ValueError):
 
 class PhysicsRangeWarning(UserWarning):
     """Input lies outside the range where the implemented physics is accurate."""
+
+
+_PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))
+
+
+def warn_user(message, category=PhysicsRangeWarning):
+    """Issue a warning attributed to the first caller outside rtrace (the user's line, not ours)."""
+    level, frame = 2, sys._getframe(1)
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(_PACKAGE_DIR):
+        frame = frame.f_back
+        level += 1
+    warnings.warn(message, category, stacklevel=level)

@@ -29,10 +29,14 @@ __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_p
 SCHEMA = {
     "snapshot": {"kind": str, "path": str, "paths": list, "pattern": str, "cells": int, "seed": int,
                  "seeds": list,
-                 "temperature": str, "electron_density": str, "ion_density": str, "density": str,
+                 "temperature": str, "pressure": str, "internal_energy": str, "gamma": float,
+                 "electron_density": str, "ion_density": str, "density": str,
                  "cell_size": "length", "origin": "length3", "units": dict, "subvolume": list, "level": int},
     "ionization": {"model": str, "threshold": "temperature", "helium": str, "fraction": str,
+                   "helium_ii": str, "helium_iii": str, "case": str, "sources": list,
+                   "ionized_temperature": "temperature", "allow_outside": bool, "rays_per_cell": float,
                    "hydrogen_mass_fraction": float, "helium_mass_fraction": float},
+    "source": {"position": "length3", "rate": "rate"},
     "frequencies": {"values": "frequency_list", "start": "frequency", "stop": "frequency",
                     "num": int, "spacing": str},
     "trace": {"background": str, "supersample": int},
@@ -45,9 +49,9 @@ SCHEMA = {
                "picture_format": str, "prefix": str},
     "parallel": {"scheduler": str, "workers": int, "max_memory": "memory_size"},
 }
-_TOP = set(SCHEMA)
+_TOP = set(SCHEMA) - {"source"}          # [[ionization.sources]] entries, not a table of their own
 _QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
-_PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg,
+_PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg, "rate": u.s**-1,
              "flux_per_beam": u.Jy / u.beam, "memory_size": u.byte}
 
 
@@ -366,6 +370,94 @@ def override_parallel(job, workers=None, scheduler=None):
     job.parallel = kept
 
 
+def _thermal(snap, kind):
+    """``[snapshot]``: one thermal input; pressure and internal energy need the mass density."""
+    thermal = [k for k in ("temperature", "pressure", "internal_energy") if k in snap]
+    if len(thermal) != 1:
+        raise ConfigError(f"[snapshot]: give exactly one of 'temperature', 'pressure' or 'internal_energy' when "
+                          f"kind = '{kind}' (got {', '.join(repr(k) for k in thermal) or 'none'})")
+    if ("electron_density" in snap) == ("density" in snap):
+        raise ConfigError("[snapshot]: give exactly one of 'electron_density' or 'density'")
+    if thermal[0] != "temperature" and "density" not in snap:
+        raise ConfigError(f"[snapshot].{thermal[0]}: needs 'density' (the temperature is derived from it with the "
+                          "ionization model's particle count)")
+    if "gamma" in snap:
+        if thermal[0] == "temperature":
+            raise ConfigError("[snapshot].gamma: only used with 'pressure' or 'internal_energy'")
+        if not (np.isfinite(snap["gamma"]) and snap["gamma"] > 1):
+            raise ConfigError(f"[snapshot].gamma: the adiabatic index must be > 1, got {snap['gamma']}")
+
+
+# The ionization models a job may name, and which [ionization] keys each one takes.
+_MODEL_KEYS = {
+    "full": {"helium"}, "threshold": {"threshold", "helium"}, "saha": set(), "collisional": {"case"},
+    "supplied": {"fraction", "helium", "helium_ii", "helium_iii"},
+    "sources": {"sources", "ionized_temperature", "helium", "allow_outside", "rays_per_cell"},
+}
+_HELIUM_CHOICES = {"full": ("single", "double"), "threshold": ("single", "double"),
+                   "supplied": ("single", "double", "none", "follow"), "sources": ("single", "none")}
+_COMMON_IONIZATION = {"model", "hydrogen_mass_fraction", "helium_mass_fraction"}
+
+
+def _sources(entries):
+    """``[[ionization.sources]]``: a position (three lengths) and a photon rate each."""
+    if not entries:
+        raise ConfigError("[ionization].sources: expected a non-empty list of sources, each "
+                          "{ position = ['1 pc', '2 pc', '3 pc'], rate = '1e49 / s' }")
+    out = []
+    for i, entry in enumerate(entries):
+        where = f"[ionization].sources[{i}]"
+        if not isinstance(entry, dict):
+            raise ConfigError(f"{where}: expected a table with 'position' and 'rate'")
+        _check_keys(entry, SCHEMA["source"], where)
+        for key in ("position", "rate"):
+            if key not in entry:
+                raise ConfigError(f"{where}: '{key}' is required")
+        spec = {k: _typed(v, SCHEMA["source"][k], f"{where}.{k}") for k, v in entry.items()}
+        rate = spec["rate"].to_value(u.s**-1)
+        if not (np.isfinite(rate) and rate >= 0):
+            raise ConfigError(f"{where}.rate: must be finite and >= 0, got '{entry['rate']}'")
+        out.append(spec)
+    return out
+
+
+def _ionization(raw, snap, kind):
+    """``[ionization]``, validated against the model it names."""
+    ion = _section(raw, "ionization")
+    if ion and (kind == "demo" or "electron_density" in snap):
+        raise ConfigError("[ionization]: only used with [snapshot].density (the demo scenario and "
+                          "snapshots with electron_density carry their own ionization)")
+    model = ion.get("model", "full")
+    if model not in _MODEL_KEYS:
+        raise ConfigError(f"[ionization].model: '{model}'{_suggest(model, _MODEL_KEYS)} is not one of "
+                          f"{', '.join(_MODEL_KEYS)}")
+    for key in sorted(set(ion) - _COMMON_IONIZATION - _MODEL_KEYS[model]):
+        users = [m for m, keys in _MODEL_KEYS.items() if key in keys]
+        raise ConfigError(f"[ionization].{key}: not used by model = '{model}' (it belongs to "
+                          f"{' or '.join(repr(m) for m in users)})")
+    if "helium" in ion and ion["helium"] not in _HELIUM_CHOICES.get(model, ()):
+        raise ConfigError(f"[ionization].helium: '{ion['helium']}' is not valid for model = '{model}'; choose "
+                          f"one of {', '.join(_HELIUM_CHOICES[model])}")
+    if "case" in ion and ion["case"] not in ("A", "B"):
+        raise ConfigError(f"[ionization].case: '{ion['case']}' is not 'A' or 'B'")
+    if model == "supplied" and "fraction" not in ion:
+        raise ConfigError("[ionization]: model = 'supplied' needs 'fraction' (the dataset with the hydrogen "
+                          "ionized fraction)")
+    if model == "supplied" and "helium" in ion and ({"helium_ii", "helium_iii"} & set(ion)):
+        raise ConfigError("[ionization].helium: not used when 'helium_ii' / 'helium_iii' datasets are given")
+    if model == "sources":
+        if "sources" not in ion:
+            raise ConfigError("[ionization]: model = 'sources' needs 'sources', e.g. [[ionization.sources]] "
+                              "position = ['1 pc', '2 pc', '3 pc'], rate = '1e49 / s'")
+        ion["sources"] = _sources(ion["sources"])
+    for key in ("threshold", "ionized_temperature"):
+        if key in ion and not ion[key].to_value(u.K) > 0:
+            raise ConfigError(f"[ionization].{key}: must be a positive temperature, got '{ion[key]}'")
+    if "rays_per_cell" in ion and not 0.25 <= ion["rays_per_cell"] <= 64:
+        raise ConfigError(f"[ionization].rays_per_cell: expected a number from 0.25 to 64, got {ion['rays_per_cell']}")
+    return ion
+
+
 def parse_job(raw, base_dir="."):
     """Validate a job given as a dict (the parsed TOML). Raises ConfigError on the first problem."""
     base_dir = Path(base_dir)
@@ -385,19 +477,9 @@ def parse_job(raw, base_dir="."):
     elif "level" in snap:
         raise ConfigError("[snapshot].level: only used with kind = 'yt'")
     if kind in ("hdf5", "yt"):
-        if "temperature" not in snap:
-            raise ConfigError(f"[snapshot]: 'temperature' is required when kind = '{kind}'")
-        if ("electron_density" in snap) == ("density" in snap):
-            raise ConfigError("[snapshot]: give exactly one of 'electron_density' or 'density'")
+        _thermal(snap, kind)
     members, series = _snapshot_members(snap, base_dir)
-    ion = _section(raw, "ionization")
-    if "model" in ion and ion["model"] not in ("full", "threshold", "saha", "supplied"):
-        raise ConfigError(f"[ionization].model: '{ion['model']}' is not one of full, threshold, saha, supplied")
-    if ion and (kind == "demo" or "electron_density" in snap):
-        raise ConfigError("[ionization]: only used with [snapshot].density (the demo scenario and "
-                          "snapshots with electron_density carry their own ionization)")
-    if ion.get("model") == "supplied" and "fraction" not in ion:
-        raise ConfigError("[ionization]: model = 'supplied' needs 'fraction' (the dataset with the ionized fraction)")
+    ion = _ionization(raw, snap, kind)
     if "frequencies" not in raw:
         raise ConfigError("job: the [frequencies] table is required")
     nu = _frequencies(_section(raw, "frequencies"))
@@ -447,6 +529,8 @@ def parse_job(raw, base_dir="."):
     par = _parallel(_section(raw, "parallel"))
     job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par)
     build_views(job)              # the View constructor validates geometry now, not after tracing
+    from .job_snapshot import check_ionization
+    check_ionization(job)         # the model's values, and sources against the grid, before any field is read
     return job
 
 

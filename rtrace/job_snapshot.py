@@ -8,7 +8,9 @@ density rather than electron and ion densities.
 
 from pathlib import Path
 
-__all__ = ["build_snapshot", "job_members"]
+import astropy.units as u
+
+__all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization"]
 
 
 def _composition(ion):
@@ -19,18 +21,82 @@ def _composition(ion):
     return None
 
 
-def _ionization_model(job):
-    from .physics.ionization import SuppliedFraction, TemperatureThreshold, resolve_ionization
+def ionization_model(job):
+    """The ionization model ``[ionization]`` describes (for snapshots holding mass density).
 
+    A supplied fraction names datasets (or yt fields, ``"gas/x_HII"``) the
+    reader fetches, over the same sub-volume.
+    """
+    from .physics.ionization import (CollisionalEquilibrium, FullyIonized, IonizingSources, SahaEquilibrium,
+                                     SuppliedFraction, TemperatureThreshold)
     ion = job.ionization
     comp = _composition(ion)
     model = ion.get("model", "full")
     if model == "threshold":
         kw = {} if "threshold" not in ion else {"threshold": ion["threshold"]}
         return TemperatureThreshold(composition=comp, helium=ion.get("helium", "single"), **kw)
-    if model == "supplied":       # the reader fetches the named dataset (same sub-volume)
-        return SuppliedFraction(ion["fraction"], composition=comp, helium=ion.get("helium", "follow"))
-    return resolve_ionization(model, composition=comp, helium=ion.get("helium"))
+    if model == "supplied":
+        return SuppliedFraction(ion["fraction"], composition=comp, helium=ion.get("helium"),
+                                helium_ii=ion.get("helium_ii"), helium_iii=ion.get("helium_iii"))
+    if model == "sources":
+        sources = ion["sources"]
+        return IonizingSources(positions=u.Quantity([s["position"].to(u.cm) for s in sources]),
+                               rates=u.Quantity([s["rate"].to(u.s**-1) for s in sources]), composition=comp,
+                               ionized_temperature=ion.get("ionized_temperature"), helium=ion.get("helium", "single"),
+                               allow_outside=ion.get("allow_outside", False),
+                               rays_per_cell=ion.get("rays_per_cell", 4.0))
+    if model == "saha":
+        return SahaEquilibrium(comp)
+    if model == "collisional":
+        return CollisionalEquilibrium(comp, case=ion.get("case", "A"))
+    return FullyIonized(comp, helium=ion.get("helium", "single"))
+
+
+# [snapshot] keys that name fields, and those read_hdf5 takes as they are.
+_FIELD_KEYS = ("temperature", "pressure", "internal_energy", "electron_density", "ion_density", "density")
+_HDF5_KEYS = _FIELD_KEYS + ("gamma", "cell_size", "origin", "units")
+
+
+def check_ionization(job):
+    """Build ``[ionization]``'s model now (a bad value is a ConfigError), and check sources against the grid.
+
+    Sources outside an HDF5 snapshot's grid are an error before any field is
+    read: only the shape and geometry of every member file (the sub-volume
+    applied) are read here. yt datasets are checked when they are loaded,
+    before any ray is cast.
+    """
+    import numpy as np
+
+    from .errors import ConfigError, InputError
+    from .io.hdf5 import _subvolume, file_geometry, open_file
+    from .snapshot import _vector3
+    if "density" not in job.snapshot:
+        return
+    try:
+        model = ionization_model(job)
+    except InputError as exc:
+        raise ConfigError(f"[ionization]: {exc}") from None
+    if job.ionization.get("model") != "sources" or job.snapshot["kind"] != "hdf5":
+        return
+    snap = job.snapshot
+    thermal = next(k for k in ("temperature", "pressure", "internal_energy") if k in snap)
+    for member in job_members(job):
+        try:
+            with open_file(member["path"]) as handle:
+                if snap[thermal] not in handle:
+                    return                      # the reader names the missing dataset
+                shape = handle[snap[thermal]].shape
+                cell_size, origin = file_geometry(handle, snap.get("cell_size"), snap.get("origin"),
+                                                  member["path"])
+            cell = _vector3(cell_size, "cell_size", u.cm)
+            org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+            if "subvolume" in snap:
+                slices, starts = _subvolume(tuple(tuple(p) for p in snap["subvolume"]), shape)
+                shape = tuple(sl.stop - sl.start for sl in slices)
+                org = org + starts * cell
+            model.check_geometry(shape, cell, org)
+        except InputError as exc:
+            raise ConfigError(f"[ionization].sources: {exc} (snapshot '{member['path']}')") from None
 
 
 def job_members(job):
@@ -64,13 +130,12 @@ def build_snapshot(job, member=None):
     if snap["kind"] == "yt":
         return _from_yt(job, snap, member)
     from .io.hdf5 import read_hdf5
-    kw = {k: snap[k] for k in ("electron_density", "ion_density", "density", "cell_size", "origin", "units")
-          if k in snap}
+    kw = {k: snap[k] for k in _HDF5_KEYS if k in snap}
     if "subvolume" in snap:
         kw["subvolume"] = tuple(tuple(p) for p in snap["subvolume"])
     if "density" in snap:
-        kw["ionization"] = _ionization_model(job)
-    return read_hdf5(member["path"], temperature=snap["temperature"], **kw)
+        kw["ionization"] = ionization_model(job)
+    return read_hdf5(member["path"], **kw)
 
 
 def _yt_field(name):
@@ -80,13 +145,9 @@ def _yt_field(name):
 
 def _from_yt(job, snap, member):
     from .snapshot import Snapshot
-    kw = {k: _yt_field(snap[k]) for k in ("electron_density", "ion_density", "density") if k in snap}
+    kw = {k: _yt_field(snap[k]) for k in _FIELD_KEYS if k in snap}
+    if "gamma" in snap:
+        kw["gamma"] = snap["gamma"]
     if "density" in snap:
-        ion = job.ionization
-        model = ion.get("model", "full")
-        kw["ionization"] = _yt_field(ion["fraction"]) if model == "supplied" else _ionization_model(job)
-        if model == "supplied":
-            kw["composition"] = _composition(ion)
-            kw["helium"] = ion.get("helium")
-    return Snapshot.from_yt(str(member["path"]), temperature=_yt_field(snap["temperature"]),
-                            level=snap.get("level"), **kw)
+        kw["ionization"] = ionization_model(job)
+    return Snapshot.from_yt(str(member["path"]), level=snap.get("level"), **kw)

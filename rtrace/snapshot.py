@@ -16,33 +16,15 @@ import astropy.units as u
 import numpy as np
 
 from .errors import InputError
+from .gas import derive_fields
 from .physics.constants import PC
 from .physics.freefree import check_temperature_range
 
 __all__ = ["Snapshot"]
 
-
-def _to_array(value, unit, name, dtype, equivalencies=None):
-    """Quantity (or plain array, taken to be in ``unit``) -> ndarray in ``unit``."""
-    if isinstance(value, u.Quantity):
-        if not value.unit.is_equivalent(unit, equivalencies=equivalencies or []):
-            raise InputError(f"{name}: expected units of {unit}, got '{value.unit}'")
-        value = value.to_value(unit, equivalencies=equivalencies or [])
-    return np.ascontiguousarray(value, dtype=dtype)
-
-
-def _check(name, arr, shape, lower, strict):
-    """Validate one field: shape, finiteness, lower bound. The message counts bad cells."""
-    if arr.shape != shape:
-        raise InputError(f"{name}: shape {arr.shape} does not match the grid shape {shape}")
-    n_bad = arr.size - int(np.count_nonzero(np.isfinite(arr)))
-    if n_bad:
-        raise InputError(f"{name}: {n_bad} of {arr.size} cells are not finite (NaN or inf)")
-    n_bad = int(np.count_nonzero(arr <= lower if strict else arr < lower))
-    if n_bad:
-        rel = "> 0" if strict else ">= 0"
-        raise InputError(f"{name}: {n_bad} of {arr.size} cells violate {name} {rel} "
-                         f"(minimum {float(arr.min()):.6g})")
+#: Provenance entries that ``describe`` shows, with their labels.
+_PROVENANCE_LINES = (("ionization_state", "state"), ("temperature", "T from"), ("ionizing_sources", "sources"),
+                     ("photon_budget", "photons"))
 
 
 def _vector3(value, name, unit):
@@ -56,39 +38,21 @@ def _vector3(value, name, unit):
     return vec
 
 
-def derive_terms(t, electron_density=None, ion_density=None, density=None, ionization=None, composition=None,
-                 helium=None, fields=None, dtype=np.float32):
-    """``(T, n_e, ion term, description)`` as ``dtype`` arrays from validated temperatures ``t`` (K).
+def field_digest(arr):
+    """A new SHA-256 object fed with the bytes of ``arr`` in C order (more can be added piece by piece)."""
+    h = hashlib.sha256()
+    h.update(memoryview(np.ascontiguousarray(arr)).cast("B"))
+    return h
 
-    Either ``electron_density`` (and optionally ``ion_density``, which
-    defaults to the same array) or the mass ``density`` with an
-    ``ionization`` model (see :meth:`Snapshot.from_arrays`). Each field is
-    validated against ``t.shape`` before use.
-    """
-    shape = t.shape
-    if density is not None:
-        if electron_density is not None or ion_density is not None:
-            raise InputError("density: give either density (with ionization) or electron_density, not both")
-        rho = _to_array(density, u.g / u.cm**3, "density", np.float64)
-        _check("density", rho, shape, 0.0, strict=False)
-        from .physics.ionization import resolve_ionization
-        model = resolve_ionization("full" if ionization is None else ionization,
-                                   composition=composition, helium=helium)
-        ne, ni = model.electron_and_ion_terms(rho, np.asarray(t, np.float64), fields or {})
-        return (np.ascontiguousarray(t, dtype), np.ascontiguousarray(ne, dtype), np.ascontiguousarray(ni, dtype),
-                model.describe())
-    if electron_density is None:
-        raise InputError("electron_density: required unless density and ionization are given")
-    if ionization is not None:
-        raise InputError("ionization: only used with density; electron_density was given directly")
-    ne = _to_array(electron_density, u.cm**-3, "electron_density", dtype)
-    _check("electron_density", ne, shape, 0.0, strict=False)
-    t = np.ascontiguousarray(t, dtype)
-    if ion_density is None:
-        return t, ne, ne, "supplied n_e; ion term = n_e"
-    ni = _to_array(ion_density, u.cm**-3, "ion_density", dtype)
-    _check("ion_density", ni, shape, 0.0, strict=False)
-    return t, ne, ni, "supplied n_e and ion term"
+
+def combined_checksum(digests, cell_size, origin):
+    """SHA-256 (hex) of the field digests, then the cell size and origin as float64 bytes."""
+    h = hashlib.sha256()
+    for d in digests:
+        h.update(d.digest())
+    for arr in (cell_size, origin):
+        h.update(memoryview(np.ascontiguousarray(arr, np.float64)).cast("B"))
+    return h.hexdigest()
 
 
 class GridGeometry:
@@ -143,18 +107,20 @@ class Snapshot(GridGeometry):
         self._blocks = None
 
     @classmethod
-    def from_arrays(cls, temperature, cell_size, electron_density=None, ion_density=None, *,
-                    density=None, ionization=None, composition=None, helium=None, origin=None,
-                    fields=None, dtype=np.float32, source="arrays"):
+    def from_arrays(cls, temperature=None, cell_size=None, electron_density=None, ion_density=None, *,
+                    density=None, pressure=None, internal_energy=None, gamma=None, ionization=None,
+                    composition=None, helium=None, origin=None, fields=None, dtype=np.float32, source="arrays"):
         """Build a Snapshot from in-memory arrays.
 
-        Give either ``electron_density`` (and optionally ``ion_density``) or the
-        mass ``density`` with an ``ionization`` model.
+        Give either ``electron_density`` (and optionally ``ion_density``)
+        with the ``temperature``, or the mass ``density`` with an
+        ``ionization`` model and one thermal input: ``temperature``,
+        ``pressure`` or ``internal_energy``.
 
         Parameters
         ----------
-        temperature : `~astropy.units.Quantity` (nx, ny, nz)
-            Electron temperature (K); must be finite and > 0.
+        temperature : `~astropy.units.Quantity` (nx, ny, nz), optional
+            Gas (electron) temperature (K); finite and > 0.
         cell_size : `~astropy.units.Quantity`
             Cell size: a length, or a 3-vector of lengths (per axis).
         electron_density : `~astropy.units.Quantity` (nx, ny, nz), optional
@@ -164,10 +130,23 @@ class Snapshot(GridGeometry):
             (pure hydrogen); the same array is shared, not copied.
         density : `~astropy.units.Quantity` (nx, ny, nz), optional
             Mass density (g cm-3), used with ``ionization``.
+        pressure : `~astropy.units.Quantity` (nx, ny, nz), optional
+            Gas pressure (dyn cm-2, > 0), instead of ``temperature``: ``T``
+            then solves ``P = (n_H + n_He + n_e) k T`` in every cell with the
+            ionization model's ``n_e``, which depends on ``T`` (the mean
+            molecular weight follows the ionization).
+        internal_energy : `~astropy.units.Quantity` (nx, ny, nz), optional
+            Specific internal energy (erg g-1, > 0), instead of
+            ``temperature``: ``P = (gamma - 1) rho e``, then as for ``pressure``.
+        gamma : float, optional
+            Adiabatic index for ``internal_energy`` (default 5/3, a monatomic
+            ideal gas); accepted, and not needed, with ``pressure``.
         ionization : str, IonizationModel or array, optional
             ``"full"`` (default when ``density`` is given), ``"threshold"``,
-            ``"saha"``, a model from :mod:`rtrace.physics.ionization`, or a
-            hydrogen ionized-fraction field.
+            ``"saha"`` (dense gas only), ``"collisional"`` (hot or shocked
+            gas), a model from :mod:`rtrace.physics.ionization` (e.g.
+            ``IonizingSources`` for stars in the grid, ``SuppliedFraction``),
+            or a hydrogen ionized-fraction array.
         composition : `~rtrace.physics.ionization.Composition`, optional
             Hydrogen and helium mass fractions (default X = 0.70, Y = 0.28).
         helium : str, optional
@@ -175,48 +154,70 @@ class Snapshot(GridGeometry):
         origin : `~astropy.units.Quantity` (3,), optional
             Lower corner of the grid; default (0, 0, 0).
         fields : dict, optional
-            Extra fields passed to the ionization model.
+            Named per-cell fields the ionization model reads (e.g. a
+            ``SuppliedFraction("x_HII")``).
         dtype : numpy dtype, optional
             Storage type, float32 (default) or float64.
         source : str, optional
             Provenance label.
+
+        Raises
+        ------
+        InputError
+            A missing, surplus or invalid field (the message names it, the
+            problem and the number of bad cells), sources outside the grid;
+            all found before the ionization is computed.
+
+        Warns
+        -----
+        PhysicsRangeWarning
+            Temperatures above 1e9 K; a model used outside its validity
+            (Saha at interstellar densities, photoionized gas left cold).
         """
         dtype = np.dtype(dtype)
         if dtype not in (np.float32, np.float64):
             raise InputError(f"dtype: must be float32 or float64, got {dtype}")
-        t = _to_array(temperature, u.K, "temperature", np.float64 if density is not None else dtype,
-                      u.temperature())
-        if t.ndim != 3:
-            raise InputError(f"temperature: expected a 3D array, got {t.ndim} dimension(s)")
-        shape = t.shape
-        _check("temperature", t, shape, 0.0, strict=True)
+        if cell_size is None:
+            raise InputError("cell_size: required (a length, or three lengths)")
         cell = _vector3(cell_size, "cell_size", u.cm)
         if not np.all(np.isfinite(cell) & (cell > 0)):
             raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
         org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
-        t, ne, ni, how = derive_terms(t, electron_density, ion_density, density, ionization, composition,
-                                      helium, fields, dtype)
-        provenance = {"source": str(source), "ionization": how}
+        t, ne, ni, derived = derive_fields(
+            cell, org, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
+            density=density, pressure=pressure, internal_energy=internal_energy, gamma=gamma,
+            ionization=ionization, composition=composition, helium=helium, fields=fields, dtype=dtype)
+        provenance = {"source": str(source), **derived}
         check_temperature_range(t, "temperature")
         return cls(t, ne, ni, cell, org, provenance)
 
     @classmethod
-    def from_yt(cls, ds, *, temperature, electron_density=None, ion_density=None, density=None, ionization=None,
-                composition=None, helium=None, level=None, dtype=np.float32):
+    def from_yt(cls, ds, *, temperature=None, electron_density=None, ion_density=None, density=None,
+                pressure=None, internal_energy=None, gamma=None, ionization=None, composition=None, helium=None,
+                level=None, dtype=np.float32):
         """Build a snapshot from a yt dataset, any simulation code yt reads.
 
         Parameters
         ----------
         ds : yt Dataset or path
             A loaded dataset, or a path handed to ``yt.load``.
-        temperature, electron_density, ion_density, density : str or (str, str)
-            yt field names (``"temperature"`` or ``("gas", "temperature")``);
-            yt's units are carried through. Give ``electron_density`` (and
-            optionally the ion term ``ion_density``) or ``density``.
+        temperature, pressure, internal_energy : str or (str, str)
+            yt field name of the one thermal input (``"temperature"`` or
+            ``("gas", "temperature")``; ``("gas", "pressure")``;
+            ``("gas", "specific_thermal_energy")``); yt's units are carried
+            through. Pressure and internal energy need ``density``.
+        electron_density, ion_density, density : str or (str, str)
+            yt field names. Give ``electron_density`` (and optionally the
+            ion term ``ion_density``) or ``density``.
+        gamma : float, optional
+            Adiabatic index for ``internal_energy`` (default 5/3).
         ionization : str, field name or model, optional
             With ``density``: a model name (``"full"``, ``"threshold"``,
-            ``"saha"``), an :class:`~rtrace.physics.ionization.IonizationModel`,
-            or the name of a hydrogen ionized-fraction field.
+            ``"saha"``, ``"collisional"``), an
+            :class:`~rtrace.physics.ionization.IonizationModel` (a
+            ``SuppliedFraction`` may name yt fields for hydrogen, He II and
+            He III; ``IonizingSources`` needs a uniform grid), or the name
+            of a hydrogen ionized-fraction field.
         composition, helium : optional
             As for :meth:`from_arrays`.
         level : int, optional
@@ -237,12 +238,13 @@ class Snapshot(GridGeometry):
         InputError
             A field the dataset does not have (the message lists those it
             has), invalid values (field, problem and cell count), AMR grids
-            not aligned with their parents' cells.
+            not aligned with their parents' cells, sources with an AMR
+            hierarchy (give ``level``).
         """
         from .io.ytdata import from_yt
         return from_yt(ds, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
-                       density=density, ionization=ionization, composition=composition, helium=helium,
-                       level=level, dtype=dtype)
+                       density=density, pressure=pressure, internal_energy=internal_energy, gamma=gamma,
+                       ionization=ionization, composition=composition, helium=helium, level=level, dtype=dtype)
 
     # -- fields as Quantities (views, no copies) --------------------------------------------
     @property
@@ -301,22 +303,35 @@ class Snapshot(GridGeometry):
         self._blocks = None
 
     def checksum(self):
-        """SHA-256 of the stored fields and geometry (for provenance headers); computed once."""
+        """SHA-256 of the stored fields and geometry (for provenance headers); computed once.
+
+        The digest of the three fields' digests (temperature, electron
+        density, ion term, each over its bytes in C order) and of the cell
+        size and origin, so a file-backed snapshot can hash all three in one
+        streaming pass.
+        """
         if self._checksum is None:
-            h = hashlib.sha256()
-            for arr in (self._t, self._ne, self._ni, self.cell_size, self.origin):
-                h.update(memoryview(np.ascontiguousarray(arr)).cast("B"))
-            self._checksum = h.hexdigest()
+            self._checksum = combined_checksum([field_digest(a) for a in (self._t, self._ne, self._ni)],
+                                               self.cell_size, self.origin)
         return self._checksum
 
     def describe(self):
-        """Multi-line summary: shape, geometry, field ranges."""
-        lines = [f"Snapshot {self.shape[0]}x{self.shape[1]}x{self.shape[2]} from {self.provenance['source']}",
+        """Multi-line summary: shape, geometry, ionization, field ranges."""
+        lines = [f"Snapshot {self.shape[0]}x{self.shape[1]}x{self.shape[2]} from {self.provenance['source']}"
+                 + self._describe_note,
                  f"  cell size  {', '.join(f'{c / PC:.4g}' for c in self.cell_size)} pc",
                  f"  ionization {self.provenance.get('ionization', '?')}"]
-        for name, arr, unit in (("T_e", self._t, "K"), ("n_e", self._ne, "cm-3"), ("ion term", self._ni, "cm-3")):
-            lines.append(f"  {name:<10} {float(arr.min()):.4g} .. {float(arr.max()):.4g} {unit}")
+        lines += [f"  {label:<10} {self.provenance[key]}" for key, label in _PROVENANCE_LINES
+                  if key in self.provenance]
+        for label, (lo, hi), unit in zip(("T_e", "n_e", "ion term"), self._field_ranges(), ("K", "cm-3", "cm-3")):
+            lines.append(f"  {label:<10} {lo:.4g} .. {hi:.4g} {unit}")
         return "\n".join(lines)
+
+    _describe_note = ""
+
+    def _field_ranges(self):
+        """``(min, max)`` of the temperature, electron density and ion term."""
+        return [(float(a.min()), float(a.max())) for a in (self._t, self._ne, self._ni)]
 
     def __repr__(self):
         return f"<Snapshot shape={self.shape} source={self.provenance['source']!r}>"

@@ -14,6 +14,8 @@ import pytest
 import scipy.constants as sc
 from scipy.optimize import brentq
 
+from rtrace.errors import InputError, PhysicsRangeWarning
+
 from rtrace.physics import ionization
 from rtrace.physics.ionization import (
     Composition,
@@ -197,10 +199,11 @@ def test_supplied_fraction_counts(helium):
     rho = np.full(3, 1e-22)
     n_h = 0.70 * 1e-22 / M_H
     n_he = 0.28 * 1e-22 / M_HE
-    # Hand bookkeeping: n_HII = x n_H; helium per mode ("follow" = He II with
-    # the same fraction, common practice).
-    he_e = {"follow": x * n_he, "none": 0 * x, "single": n_he + 0 * x, "double": 2 * n_he + 0 * x}
-    he_ion = {"follow": x * n_he, "none": 0 * x, "single": n_he + 0 * x, "double": 4 * n_he + 0 * x}
+    # Hand bookkeeping: n_HII = x n_H; helium follows the same fraction x
+    # ("follow" = "single": He II, Z = 1; "double": He III, two electrons,
+    # Z^2 = 4), so a cell with x = 0 has no free electrons at all.
+    he_e = {"follow": x * n_he, "none": 0 * x, "single": x * n_he, "double": 2 * x * n_he}
+    he_ion = {"follow": x * n_he, "none": 0 * x, "single": x * n_he, "double": 4 * x * n_he}
     n_e, ion = SuppliedFraction(x, MIXED, helium).electron_and_ion_terms(rho, np.full(3, 1e4), {})
     np.testing.assert_allclose(n_e, x * n_h + he_e[helium], rtol=1e-9, atol=1e-300)
     np.testing.assert_allclose(ion, x * n_h + he_ion[helium], rtol=1e-9, atol=1e-300)
@@ -345,13 +348,15 @@ def test_saha_cold_limit_is_neutral():
 
 def test_saha_finite_over_full_range():
     # T from 1 K to 1e9 K, rho from 1e-30 to 1 g cm^-3, plus the T = 0 and
-    # rho = 0 edges; no warning may escape (overflow, invalid, divide).
+    # rho = 0 edges; no floating-point warning may escape (overflow, invalid,
+    # divide). The range warning (LTE at low density) is expected here.
     T1 = np.concatenate([[0.0], np.logspace(0, 9, 181)])
     r1 = np.concatenate([[0.0], np.logspace(-30, 0, 151)])
     T, rho = np.meshgrid(T1, r1, indexing="ij")
     model = SahaEquilibrium(MIXED)
     with warnings.catch_warnings():
-        warnings.simplefilter("error")
+        warnings.simplefilter("error", RuntimeWarning)
+        warnings.simplefilter("ignore", PhysicsRangeWarning)
         n_e, ion = model.electron_and_ion_terms(rho, T, {})
     assert n_e.shape == T.shape
     assert np.all(np.isfinite(n_e)) and np.all(np.isfinite(ion))
@@ -400,7 +405,8 @@ def test_resolve_ionization_dispatch():
     saha = resolve_ionization(" SAHA ")
     assert isinstance(saha, SahaEquilibrium) and saha.composition == Composition()
     sup = resolve_ionization(np.array([0.3, 0.6]))
-    assert isinstance(sup, SuppliedFraction) and sup.helium == "follow"
+    # helium follows the hydrogen fraction, singly ionized, by default
+    assert isinstance(sup, SuppliedFraction) and sup.helium == "single"
     assert isinstance(resolve_ionization(np.array([0.3]) * u.dimensionless_unscaled, helium="none"),
                       SuppliedFraction)
     assert all(isinstance(m, IonizationModel) for m in (full, thr, saha, sup))
@@ -413,8 +419,10 @@ def test_resolve_ionization_errors():
         assert name in str(err.value)
     with pytest.raises(ValueError, match="helium"):
         resolve_ionization("saha", helium="single")
-    with pytest.raises(TypeError):
+    with pytest.raises(InputError, match="IonizationModel"):
         resolve_ionization(object())
+    with pytest.raises(InputError, match="IonizingSources"):
+        resolve_ionization("sources")
 
 
 def test_describe_strings():

@@ -153,7 +153,7 @@ def _bad_file(path, field, value, cells):
     ("ne", np.inf, {}, r"electron_density: 3 of 4522 cells are not finite"),
     ("ni", np.nan, dict(ion_density="ni"), r"ion_density: 3 of 4522 cells are not finite"),
     ("rho", -1e-24, dict(density="rho"), r"density: 3 of 4522 cells violate density >= 0"),
-    ("x", 1.5, dict(density="rho", ionization="x"), r"ionization: 3 of 4522 cells violate 0 <= ionized"),
+    ("x", 1.5, dict(density="rho", ionization="x"), r"ionization field 'x': 3 of 4522 cells violate 0 <= fraction"),
 ])
 def test_validation_pass_counts_bad_cells_before_tracing(tmp_path, monkeypatch, field, value, kwargs, message):
     # Same rules and counts as Snapshot.from_arrays (tests/test_snapshot.py), found by a streaming pass

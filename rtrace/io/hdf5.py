@@ -21,21 +21,25 @@ import h5py
 import numpy as np
 
 from ..errors import InputError
+from ..gas import thermal_input
+from ..physics.ionization import MODEL_NAMES, SuppliedFraction, resolve_ionization
 from ..snapshot import Snapshot
 
 __all__ = ["read_hdf5"]
 
-# Ionization names that are models, not datasets (see resolve_ionization).
-_MODEL_NAMES = ("full", "threshold", "saha")
-
-# What each field's unit must be convertible to, and with which equivalencies.
+# What each field's unit must be convertible to, and with which equivalencies; fields the
+# ionization model reads (fractions) are dimensionless and need no unit.
 _FIELD_UNITS = {
     "temperature": (u.K, u.temperature()),
+    "pressure": (u.dyn / u.cm**2, []),
+    "internal_energy": (u.erg / u.g, []),
     "electron_density": (u.cm**-3, []),
     "ion_density": (u.cm**-3, []),
     "density": (u.g / u.cm**3, []),
-    "ionization": (u.dimensionless_unscaled, []),
 }
+_FRACTION_UNIT = (u.dimensionless_unscaled, [])
+#: Prefix of the parameters that name a dataset the ionization model reads.
+MODEL_FIELD = "model field "
 
 
 def _text(value):
@@ -93,7 +97,7 @@ def _unit(dataset, name, parameter, units, required=True):
     except (ValueError, TypeError) as exc:
         raise InputError(f"{parameter}: dataset '{name}' unit {text!r} ({origin}) "
                          f"cannot be parsed: {exc}") from None
-    target, equivalencies = _FIELD_UNITS[parameter]
+    target, equivalencies = _FIELD_UNITS.get(parameter, _FRACTION_UNIT)
     if not unit.is_equivalent(target, equivalencies=equivalencies):
         raise InputError(f"{parameter}: dataset '{name}' has unit '{unit}' ({origin}), "
                          f"which is not convertible to {target}")
@@ -172,16 +176,42 @@ def checked_names(wanted, units):
 
 def open_fields(handle, wanted, units, path):
     """The datasets of ``wanted`` in an open file, their common shape and units (shape and units checked)."""
-    temperature = wanted["temperature"]
+    first = next(iter(wanted))
     datasets = {param: _dataset(handle, name, param, path) for param, name in wanted.items()}
-    shape = datasets["temperature"].shape
+    shape = datasets[first].shape
     for param, ds in datasets.items():
         if ds.shape != shape:
             raise InputError(f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
-                             f"temperature '{temperature}' has shape {shape}")
-    field_units = {param: _unit(ds, wanted[param], param, units, required=param != "ionization")
+                             f"{first} '{wanted[first]}' has shape {shape}")
+    field_units = {param: _unit(ds, wanted[param], param, units, required=param in _FIELD_UNITS)
                    for param, ds in datasets.items()}
     return datasets, shape, field_units
+
+
+def wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density, ionization,
+                  composition, helium):
+    """``(wanted, model)``: parameter -> dataset name for everything to read, and the ionization model.
+
+    The thermal input comes first (it sets the reference shape). A string
+    ``ionization`` that is not a model name names a hydrogen-fraction
+    dataset; every field a model reads by name (``SuppliedFraction``) is a
+    dataset too, under the parameter ``"model field <name>"``.
+    """
+    thermal, thermal_name = thermal_input(temperature, pressure, internal_energy)
+    wanted = {thermal: thermal_name, "electron_density": electron_density, "ion_density": ion_density,
+              "density": density}
+    model = None
+    if density is not None:
+        spec = ionization
+        if isinstance(spec, str) and spec.strip().lower() not in MODEL_NAMES + ("sources",):
+            spec = SuppliedFraction(spec, composition, helium)
+            composition = helium = None
+        model = resolve_ionization("full" if spec is None else spec, composition=composition, helium=helium)
+        for name in model.field_names():
+            wanted[MODEL_FIELD + name] = name
+    elif ionization is not None:
+        raise InputError("ionization: only used with density; electron_density was given directly")
+    return wanted, model
 
 
 def open_file(path):
@@ -203,30 +233,35 @@ def file_geometry(handle, cell_size, origin, path):
     return cell_size, origin
 
 
-def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, density=None,
-              ionization=None, composition=None, helium=None, cell_size=None, origin=None,
-              units=None, subvolume=None, dtype=np.float32):
+def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
+              internal_energy=None, gamma=None, ionization=None, composition=None, helium=None, cell_size=None,
+              origin=None, units=None, subvolume=None, dtype=np.float32):
     """Read a snapshot on a regular grid from an HDF5 file.
 
-    Give either ``electron_density`` (and optionally ``ion_density``) or the
-    mass ``density`` with an ``ionization`` model, as for
-    :meth:`rtrace.Snapshot.from_arrays`, which validates the values.
+    Give either ``electron_density`` (and optionally ``ion_density``) with
+    ``temperature``, or the mass ``density`` with an ``ionization`` model and
+    one thermal input (``temperature``, ``pressure`` or ``internal_energy``),
+    as for :meth:`rtrace.Snapshot.from_arrays`, which validates the values.
 
     Parameters
     ----------
     path : str or os.PathLike
         The HDF5 file.
-    temperature : str
-        Name of the electron-temperature dataset (any temperature unit).
+    temperature, pressure, internal_energy : str, optional
+        Name of the dataset of the one thermal input: temperature (any
+        temperature unit), pressure or specific internal energy.
     electron_density, ion_density, density : str, optional
         Names of the electron density, ion term ``sum_i Z_i^2 n_i`` (number
         densities) and mass density datasets.
+    gamma : float, optional
+        Adiabatic index for ``internal_energy`` (default 5/3).
     ionization : str or IonizationModel, optional
-        ``"full"``, ``"threshold"``, ``"saha"`` or a model, used with
-        ``density``. Any other string names a dataset holding the hydrogen
-        ionized fraction; a ``SuppliedFraction`` with a field name reads that
-        dataset too. A fraction needs no unit (it must be dimensionless if
-        it has one).
+        ``"full"``, ``"threshold"``, ``"saha"``, ``"collisional"`` or a
+        model, used with ``density``. Any other string names a dataset
+        holding the hydrogen ionized fraction; a ``SuppliedFraction`` whose
+        fractions are dataset names (hydrogen, He II, He III) reads those
+        datasets. Fractions need no unit (they must be dimensionless if
+        they have one).
     composition, helium
         Passed to the ionization model.
     cell_size : `~astropy.units.Quantity`, optional
@@ -268,18 +303,8 @@ def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
         raise InputError(f"dtype: not a numpy dtype: {dtype!r}") from None
     if dtype not in (np.float32, np.float64):
         raise InputError(f"dtype: must be float32 or float64, got {dtype}")
-
-    wanted = {"temperature": temperature, "electron_density": electron_density,
-              "ion_density": ion_density, "density": density}
-    from ..physics.ionization import SuppliedFraction
-    fraction_name = None
-    model = ionization
-    if isinstance(ionization, str) and ionization.strip().lower() not in _MODEL_NAMES:
-        fraction_name, model = ionization, None
-    elif isinstance(ionization, SuppliedFraction) and ionization.field_name is not None:
-        fraction_name = ionization.field_name
-    if fraction_name is not None:
-        wanted["ionization"] = fraction_name
+    wanted, model = wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density,
+                                  ionization, composition, helium)
     wanted = checked_names(wanted, units)
 
     with open_file(path) as handle:
@@ -300,28 +325,22 @@ def read_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
         if subvolume is not None:
             # The origin is the lower corner of cell (0, 0, 0) of the part read.
             origin = origin + starts * (cell.to(u.cm) * np.ones(3))
-        # The mass density (and, with it, the temperature) goes through the
-        # ionization model in float64; everything else is stored as dtype.
-        wide = density is not None
+        # With mass density, every input goes through the ionization model in float64;
+        # number densities and temperatures given directly are stored as dtype.
+        read_type = np.float64 if model is not None else dtype
         arrays = {}
         for param, ds in datasets.items():
-            read_type = np.float64 if wide and param in ("temperature", "density", "ionization") \
-                else dtype
             # h5py reads only the hyperslab and converts the type while reading.
             arrays[param] = u.Quantity(ds.astype(read_type)[slices], field_units[param], copy=False)
 
     source = f"hdf5:{path}"
     if subvolume is not None:
         source += " subvolume=[" + ", ".join(f"{s.start}:{s.stop}" for s in slices) + "]"
-    fields = None
-    if fraction_name is not None:
-        fraction = arrays.pop("ionization").to_value(u.dimensionless_unscaled)
-        if model is None:
-            model = fraction
-        else:
-            fields = {fraction_name: fraction}
+    fields = {wanted[p]: arrays.pop(p).to_value(u.dimensionless_unscaled) for p in list(arrays)
+              if p.startswith(MODEL_FIELD)}
     return Snapshot.from_arrays(
-        temperature=arrays["temperature"], cell_size=cell,
+        temperature=arrays.get("temperature"), pressure=arrays.get("pressure"),
+        internal_energy=arrays.get("internal_energy"), gamma=gamma, cell_size=cell,
         electron_density=arrays.get("electron_density"), ion_density=arrays.get("ion_density"),
-        density=arrays.get("density"), ionization=model, composition=composition, helium=helium,
-        origin=origin, fields=fields, dtype=dtype, source=source)
+        density=arrays.get("density"), ionization=model, origin=origin, fields=fields or None, dtype=dtype,
+        source=source)

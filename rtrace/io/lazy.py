@@ -4,37 +4,42 @@
 (dataset names, units from attributes or the caller, geometry from root
 attributes) but reads no field into memory. It returns a
 :class:`LazySnapshot`, which the tracer reads one brick at a time through an
-:class:`HDF5Source` (h5py hyperslabs; the ionization model applied per
-piece for mass-density input). An ``HDF5Source`` holds only the path, the
-dataset names, units and model, so it is cheap to send to another process:
-dask tasks read their own bricks (:mod:`rtrace.parallel`).
+:class:`HDF5Source` (h5py hyperslabs; for mass-density input the ionization
+model is applied per piece, with the temperature derived from the pressure
+or internal energy where the file holds those). An ``HDF5Source`` holds only
+the path, the dataset names, units and model, so it is cheap to send to
+another process: dask tasks read their own bricks (:mod:`rtrace.parallel`).
+The one exception is photoionization by sources, which needs the whole grid:
+it is solved at open (reading the file piece by piece) and its photoionized
+fraction, one float32 cube, is kept with the source.
 
-At open, one streaming pass over the datasets, in pieces of at most
+At open, a streaming pass over the datasets, in pieces of at most
 ``_SCAN_CELLS`` cells, does what :meth:`rtrace.Snapshot.from_arrays` does on
-whole arrays: counts non-finite, negative and non-positive-temperature cells
-per field (one InputError naming the field, the problem and the count, before
-any tracing), warns about relativistic temperatures, and records each field's
-range and the SHA-256 checksum, which equals that of the snapshot
+whole arrays: counts non-finite, negative and non-positive cells per field
+(one InputError naming the field, the problem and the count, before any
+tracing). A second pass (mass-density input) evaluates the model; together
+they record each field's range, warn about relativistic temperatures and
+compute the SHA-256 checksum, which equals that of the snapshot
 :func:`~rtrace.io.read_hdf5` builds from the same file (same bytes, same
-order). The pass reads each dataset once (``n_e`` twice when it is also the
-ion term); with mass-density input it reads the temperature three times, the
-density and the ionized fraction three times, and evaluates the ionization
-model twice.
+order).
 """
 
 import hashlib
 import os
-import warnings
 
 import astropy.units as u
 import h5py
 import numpy as np
 
-from ..errors import InputError, PhysicsRangeWarning
+from ..errors import InputError
+from ..gas import gamma_value, thermal_provenance
 from ..physics.constants import PC
-from ..physics.freefree import RELATIVISTIC_TEMPERATURE
-from ..snapshot import Snapshot, _vector3
-from .hdf5 import _FIELD_UNITS, _MODEL_NAMES, checked_names, file_geometry, open_fields, open_file
+from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
+from ..physics.ionization import IonizationModel
+from ..physics.ionization.cells import IonizationSummary, evaluate_piece
+from ..snapshot import Snapshot, _vector3, combined_checksum
+from .hdf5 import (_FIELD_UNITS, _FRACTION_UNIT, MODEL_FIELD, checked_names, file_geometry, open_fields,
+                   open_file, wanted_fields)
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
 
@@ -48,10 +53,11 @@ _PIECE_CELLS = 1 << 15
 #: other models); 2 arrays for a unit conversion.
 _PIECE_BYTES_DENSITY = 48 * 8
 _PIECE_BYTES_DIRECT = 2 * 8
+_THERMAL = ("temperature", "pressure", "internal_energy")
 
 # Lower bound and strictness per stored field, as Snapshot.from_arrays checks them.
-_BOUNDS = {"temperature": (0.0, True), "electron_density": (0.0, False),
-           "ion_density": (0.0, False), "density": (0.0, False)}
+_BOUNDS = {"temperature": (0.0, True), "pressure": (0.0, True), "internal_energy": (0.0, True),
+           "electron_density": (0.0, False), "ion_density": (0.0, False), "density": (0.0, False)}
 
 
 def pieces(lo, hi, max_cells):
@@ -95,34 +101,40 @@ class HDF5Source:
     """Read boxes of ``(n_e, ion term, T_e)`` from an HDF5 file (a brick source, see ``bricks``).
 
     Built by :func:`open_hdf5`. Picklable and small: it holds the path, dataset
-    names, units and ionization model, and opens the file on every read, so
-    each process (or dask task) reads only its own boxes.
+    names, units and ionization model (and, for photoionization by sources,
+    the photoionized fraction solved at open), and opens the file on every
+    read, so each process (or dask task) reads only its own boxes.
 
     Attributes
     ----------
     path : str
     names : dict
-        Dataset name per parameter (``temperature``, ``electron_density``,
-        ``ion_density``, ``density``, ``ionization``).
+        Dataset name per parameter (one thermal input, ``electron_density``,
+        ``ion_density``, ``density``, and ``"model field <name>"`` for each
+        field the ionization model reads).
     units : dict
         Unit per parameter.
     shape : tuple of int
     dtype : numpy dtype
         Storage type of the fields returned (float32 by default).
+    thermal : str
+        ``"temperature"``, ``"pressure"`` or ``"internal_energy"``.
     """
 
-    #: Safe and cheap to ship to another process (no arrays inside).
+    #: Safe and cheap to ship to another process (no arrays inside, but for the photoionized fraction).
     portable = True
 
-    def __init__(self, path, names, units, model, fraction_name, dtype, shape):
+    def __init__(self, path, names, units, model, dtype, shape, gamma=None):
         self.path = path
         self.names = dict(names)
         self.units = dict(units)
         self.model = model
-        self.fraction_name = fraction_name
         self.dtype = np.dtype(dtype)
         self.shape = tuple(int(n) for n in shape)
         self.wide = "density" in self.names
+        self.thermal = next(p for p in _THERMAL if p in self.names)
+        self.gamma = gamma
+        self.photo = None
 
     @property
     def shares_ion_term(self):
@@ -138,6 +150,12 @@ class HDF5Source:
     def scratch_bytes(self):
         """Bytes of temporaries per read, independent of the brick size."""
         return _PIECE_CELLS * (_PIECE_BYTES_DENSITY if self.wide else _PIECE_BYTES_DIRECT)
+
+    @property
+    def _temperature_as_stored(self):
+        """The electron temperature is the temperature dataset itself (no model changes it)."""
+        return (self.thermal == "temperature" and
+                type(self.model).electron_temperature is IonizationModel.electron_temperature)
 
     def _open(self):
         if not os.path.isfile(self.path):
@@ -160,7 +178,7 @@ class HDF5Source:
     def _to_cgs(self, param, arr):
         """``arr`` (in the dataset's unit) -> cgs, as Snapshot.from_arrays converts a Quantity."""
         unit = self.units[param]
-        target, equivalencies = _FIELD_UNITS[param]
+        target, equivalencies = _FIELD_UNITS.get(param, _FRACTION_UNIT)
         if unit == target:
             return arr
         return u.Quantity(arr, unit, copy=False).to_value(target, equivalencies=equivalencies)
@@ -175,21 +193,25 @@ class HDF5Source:
                 out[sl] = self._to_cgs(param, out[sl])
         return out
 
-    def _wide_inputs(self, handle, lo, hi, params):
-        """float64 cgs ``temperature``, ``density``, ``ionization`` (those in ``params``) over a box."""
-        return {p: np.ascontiguousarray(self._to_cgs(p, self._read_raw(handle, p, lo, hi, np.float64)),
-                                        np.float64)
-                for p in params if p in self.names}
+    def _wide(self, handle, param, lo, hi):
+        return np.ascontiguousarray(self._to_cgs(param, self._read_raw(handle, param, lo, hi, np.float64)),
+                                    np.float64)
 
-    def _model_terms(self, inputs):
-        """``(n_e, ion term)`` float64 from mass density, temperature and (maybe) the ionized fraction."""
-        fields = {}
-        if self.fraction_name is not None:
-            fields[self.fraction_name] = inputs["ionization"]
-        try:
-            return self.model.electron_and_ion_terms(inputs["density"], inputs["temperature"], fields)
-        except ValueError as exc:
-            raise InputError(f"ionization: {exc}") from None
+    def gas(self, handle, lo, hi, photo=True):
+        """``(inputs, fields)`` of a box for the ionization model: float64 cgs arrays.
+
+        ``inputs`` holds ``density``, the thermal input (and ``gamma``);
+        ``fields`` the datasets the model reads by name and, once solved
+        (and ``photo``), the photoionized fraction.
+        """
+        inputs = {"density": self._wide(handle, "density", lo, hi),
+                  self.thermal: self._wide(handle, self.thermal, lo, hi)}
+        if self.thermal != "temperature":
+            inputs["gamma"] = self.gamma
+        fields = {self.names[p]: self._wide(handle, p, lo, hi) for p in self.names if p.startswith(MODEL_FIELD)}
+        if photo and self.photo is not None:
+            fields["<photo>"] = self.photo[_slices(lo, hi)]
+        return inputs, fields
 
     def read(self, lo, hi, which=("electron_density", "ion_density", "temperature")):
         """Fields of the cells ``lo <= (i, j, k) < hi``: a tuple in the order of ``which``.
@@ -200,7 +222,7 @@ class HDF5Source:
             Box in global cell indices.
         which : tuple of str
             Any of ``"electron_density"``, ``"ion_density"`` (the ion term),
-            ``"temperature"``.
+            ``"temperature"`` (the electron temperature).
 
         Returns
         -------
@@ -227,15 +249,16 @@ class HDF5Source:
             if not self.wide:
                 for param in distinct:
                     self._direct(handle, param, lo, hi, field[param])
+            elif set(which) == {"temperature"} and self._temperature_as_stored:
+                out[0][...] = self._wide(handle, "temperature", lo, hi)
+                for arr in out[1:]:
+                    arr[...] = out[0]
             else:
                 zero = np.zeros(3, np.int64)
                 for plo, phi in pieces(zero, np.asarray(shape), _PIECE_CELLS):
                     glo, ghi = np.asarray(lo) + plo, np.asarray(lo) + phi
-                    need = ("temperature", "density", "ionization") if set(which) - {"temperature"} \
-                        else ("temperature",)
-                    inputs = self._wide_inputs(handle, glo, ghi, need)
-                    ne, ni = self._model_terms(inputs) if "density" in inputs else (None, None)
-                    values = {"electron_density": ne, "ion_density": ni, "temperature": inputs["temperature"]}
+                    t_e, ne, ni = evaluate_piece(self.model, *self.gas(handle, glo, ghi))
+                    values = {"electron_density": ne, "ion_density": ni, "temperature": t_e}
                     for arr, name in zip(out, which):
                         arr[_slices(plo, phi)] = values[name]
         for arr, name in zip(out, which):
@@ -250,6 +273,19 @@ class HDF5Source:
             raise InputError(f"{name}: {bad} of {arr.size} cells of brick {_box_text(lo, hi)} are not finite "
                              f"or violate {name} {'>' if strict else '>='} 0, though '{self.path}' passed "
                              "validation when it was opened; was the file changed since?")
+
+
+class _OpenGrid:
+    """The source's file, held open, as a grid reader for models that solve the whole grid (sources)."""
+
+    def __init__(self, source, handle, cell_size, origin):
+        self.source, self.handle = source, handle
+        self.shape = source.shape
+        self.cell_size, self.origin = cell_size, origin
+        self.thermal = source.thermal
+
+    def read(self, lo, hi):
+        return self.source.gas(self.handle, lo, hi, photo=False)
 
 
 class LazySnapshot(Snapshot):
@@ -304,17 +340,11 @@ class LazySnapshot(Snapshot):
         """
         return self._checksum
 
-    def describe(self):
-        """Multi-line summary: shape, geometry, field ranges (from the pass at open; reads nothing)."""
-        lines = [f"Snapshot {self.shape[0]}x{self.shape[1]}x{self.shape[2]} from {self.provenance['source']} "
-                 "(file-backed: fields are read brick by brick)",
-                 f"  cell size  {', '.join(f'{c / PC:.4g}' for c in self.cell_size)} pc",
-                 f"  ionization {self.provenance.get('ionization', '?')}"]
-        for label, name, unit in (("T_e", "temperature", "K"), ("n_e", "electron_density", "cm-3"),
-                                  ("ion term", "ion_density", "cm-3")):
-            lo, hi = self._ranges[name]
-            lines.append(f"  {label:<10} {lo:.4g} .. {hi:.4g} {unit}")
-        return "\n".join(lines)
+    _describe_note = " (file-backed: fields are read brick by brick)"
+
+    def _field_ranges(self):
+        """The ranges recorded by the pass at open (reads nothing)."""
+        return [self._ranges[name] for name in ("temperature", "electron_density", "ion_density")]
 
     def __repr__(self):
         return f"<Snapshot shape={self.shape} source={self.provenance['source']!r} file-backed>"
@@ -327,10 +357,10 @@ class _Tally:
 
     def __init__(self, name, dataset):
         self.name, self.dataset = name, dataset
-        self.size = self.nonfinite = self.low = self.hot = 0
+        self.size = self.nonfinite = self.low = self.high = self.empty = 0
         self.min, self.max = np.inf, -np.inf
 
-    def add(self, arr, lower=None, strict=False, hot=False):
+    def add(self, arr, lower=None, strict=False, upper=None):
         finite = np.isfinite(arr)
         self.size += arr.size
         self.nonfinite += arr.size - int(np.count_nonzero(finite))
@@ -339,121 +369,157 @@ class _Tally:
             self.max = max(self.max, float(np.max(arr, where=finite, initial=-np.inf)))
         if lower is not None:
             self.low += int(np.count_nonzero(finite & ((arr <= lower) if strict else (arr < lower))))
-        if hot:
-            self.hot += int(np.count_nonzero(arr > RELATIVISTIC_TEMPERATURE))
-        return self.nonfinite == 0 and self.low == 0
+        if upper is not None:
+            self.high += int(np.count_nonzero(finite & (arr > upper)))
+        return self.nonfinite == 0 and self.low == 0 and self.high == 0
 
     def raise_if_bad(self, path, rule):
         """One InputError with every count, in the wording of Snapshot.from_arrays."""
         problems = []
         if self.nonfinite:
             problems.append(f"{self.nonfinite} of {self.size} cells are not finite (NaN or inf)")
-        if self.low:
-            count = f"{self.low}" if problems else f"{self.low} of {self.size} cells"
-            problems.append(f"{count} violate {rule} (minimum {self.min:.6g})")
+        if self.low or self.high:
+            bad = self.low + self.high
+            count = f"{bad}" if problems else f"{bad} of {self.size} cells"
+            extreme = f"minimum {self.min:.6g}" if self.low else f"maximum {self.max:.6g}"
+            problems.append(f"{count} violate {rule} ({extreme})")
         if problems:
             raise InputError(f"{self.name}: {' and '.join(problems)}, in dataset '{self.dataset}' of '{path}' "
                              "(found by open_hdf5's validation pass; nothing was traced)")
 
 
-def _hash(h, arr, dtype):
-    h.update(memoryview(np.ascontiguousarray(arr, dtype)).cast("B"))
-
-
-def _scan(source):
-    """Validate every field, record ranges and the checksum; returns ``(ranges, sha256)``."""
-    h = hashlib.sha256()
+def _validate_direct(source, handle, digests, ranges):
+    """Electron density, ion term and temperature stored as given: validate, record ranges, hash."""
     zero, shape = np.zeros(3, np.int64), np.asarray(source.shape, np.int64)
-    names, path = source.names, source.path
-    ranges = {}
+    for param in ("temperature", "electron_density", "ion_density"):
+        if param == "ion_density" and source.shares_ion_term:
+            # the ion term is n_e: the same bytes, as Snapshot.checksum hashes the shared array
+            digests[param] = digests["electron_density"].copy()
+            ranges[param] = ranges["electron_density"]
+            continue
+        lower, strict = _BOUNDS[param]
+        tally = _Tally(param, source.names[param])
+        hot = 0
+        for plo, phi in pieces(zero, shape, _SCAN_CELLS):
+            arr = source._direct(handle, param, plo, phi)
+            if tally.add(arr, lower, strict):
+                digests[param].update(memoryview(np.ascontiguousarray(arr, source.dtype)).cast("B"))
+            if param == "temperature":
+                hot += int(np.count_nonzero(arr > RELATIVISTIC_TEMPERATURE))
+        tally.raise_if_bad(source.path, f"{param} {'>' if strict else '>='} 0")
+        ranges[param] = (tally.min, tally.max)
+        if hot:
+            warn_relativistic(hot)
+
+
+def _validate_gas(source, handle):
+    """Mass density, the thermal input and the model's fields: validate every cell, piece by piece."""
+    zero, shape = np.zeros(3, np.int64), np.asarray(source.shape, np.int64)
+    tally_rho = _Tally("density", source.names["density"])
+    tally_heat = _Tally(source.thermal, source.names[source.thermal])
+    fields = [p for p in source.names if p.startswith(MODEL_FIELD)]
+    tally_fields = {p: _Tally(f"ionization field '{source.names[p]}'", source.names[p]) for p in fields}
+    helium = [MODEL_FIELD + getattr(source.model, "_sources", {}).get(n, "") for n in ("helium_ii", "helium_iii")]
+    helium_pair = all(p in source.names for p in helium)
+    excess, largest = 0, 0.0
+    for plo, phi in pieces(zero, shape, _SCAN_CELLS):
+        rho = source._wide(handle, "density", plo, phi)
+        tally_rho.add(rho, 0.0, False)
+        if source.thermal != "temperature":
+            tally_rho.empty += int(np.count_nonzero(rho == 0.0))
+        tally_heat.add(source._wide(handle, source.thermal, plo, phi), 0.0, True)
+        values = {p: source._wide(handle, p, plo, phi) for p in fields}
+        for p in fields:
+            tally_fields[p].add(values[p], 0.0, False, upper=1.0)
+        if helium_pair:
+            n_bad, top = source.model.excess_helium(values[helium[0]], values[helium[1]])
+            excess, largest = excess + n_bad, max(largest, top)
+    # in the order Snapshot.from_arrays checks them
+    tally_rho.raise_if_bad(source.path, "density >= 0")
+    tally_heat.raise_if_bad(source.path, f"{source.thermal} > 0")
+    if tally_rho.empty:
+        raise InputError(f"density: {tally_rho.empty} of {tally_rho.size} cells are empty (density 0), where a "
+                         f"temperature cannot be derived from the {source.thermal.replace('_', ' ')}, in dataset "
+                         f"'{source.names['density']}' of '{source.path}'")
+    for tally in tally_fields.values():
+        tally.raise_if_bad(source.path, "0 <= fraction <= 1")
+    if excess:
+        raise source.model.helium_sum_error(excess, tally_rho.size, largest)
+
+
+def _evaluate_gas(source, handle, digests, ranges):
+    """Every cell through the model, piece by piece: ranges, checksum, temperature warning, summary."""
+    zero, shape = np.zeros(3, np.int64), np.asarray(source.shape, np.int64)
+    names = ("temperature", "electron_density", "ion_density")
+    tallies = {p: _Tally(p, "(ionization model)") for p in names}
+    summary = IonizationSummary()
+    hot = 0
+    for plo, phi in pieces(zero, shape, _PIECE_CELLS):
+        values = evaluate_piece(source.model, *source.gas(handle, plo, phi), summary=summary)
+        for param, value in zip(names, values):
+            stored = np.ascontiguousarray(value, source.dtype)
+            tallies[param].add(stored)
+            digests[param].update(memoryview(stored).cast("B"))
+        hot += int(np.count_nonzero(values[0] > RELATIVISTIC_TEMPERATURE))
+    for param in names:
+        ranges[param] = (tallies[param].min, tallies[param].max)
+    source.model.warn_range()
+    warn_relativistic(hot)
+    return summary.describe()
+
+
+def _scan(source, cell, origin):
+    """Validate every field, solve what the model needs, record ranges and the checksum.
+
+    Returns ``(ranges, checksum, provenance entries)``.
+    """
+    digests = {p: hashlib.sha256() for p in ("temperature", "electron_density", "ion_density")}
+    ranges, extra = {}, {}
     with source._open() as handle:
         if not source.wide:
-            for param in ("temperature", "electron_density", "ion_density"):
-                if param == "ion_density" and source.shares_ion_term:
-                    # the ion term is n_e: hashed twice, as Snapshot.checksum hashes the shared array
-                    for plo, phi in pieces(zero, shape, _SCAN_CELLS):
-                        _hash(h, source._direct(handle, "electron_density", plo, phi), source.dtype)
-                    ranges[param] = ranges["electron_density"]
-                    continue
-                lower, strict = _BOUNDS[param]
-                tally = _Tally(param, names[param])
-                for plo, phi in pieces(zero, shape, _SCAN_CELLS):
-                    arr = source._direct(handle, param, plo, phi)
-                    if tally.add(arr, lower, strict, hot=param == "temperature"):
-                        _hash(h, arr, source.dtype)
-                tally.raise_if_bad(path, f"{param} {'>' if strict else '>='} 0")
-                ranges[param] = (tally.min, tally.max)
-                if param == "temperature":
-                    _warn_hot(tally.hot)
+            _validate_direct(source, handle, digests, ranges)
         else:
-            # pass 1: temperature, validated, stored as dtype and hashed
-            tally_t = _Tally("temperature", names["temperature"])
-            for plo, phi in pieces(zero, shape, _SCAN_CELLS):
-                t64 = source._wide_inputs(handle, plo, phi, ("temperature",))["temperature"]
-                if tally_t.add(t64, 0.0, True, hot=True):
-                    _hash(h, t64, source.dtype)
-            tally_t.raise_if_bad(path, "temperature > 0")
-            _warn_hot(tally_t.hot)
-            # the range of the stored (rounded) values: rounding is monotone
-            ranges["temperature"] = tuple(float(np.asarray(v, source.dtype)) for v in (tally_t.min, tally_t.max))
-            # pass 2: the mass density and the ionized fraction, in the order from_arrays checks them
-            tally_rho = _Tally("density", names["density"])
-            tally_x = _Tally("ionization", names.get("ionization"))
-            for plo, phi in pieces(zero, shape, _SCAN_CELLS):
-                inputs = source._wide_inputs(handle, plo, phi, ("density", "ionization"))
-                tally_rho.add(inputs["density"], 0.0, False)
-                if "ionization" in inputs:
-                    x = inputs["ionization"]
-                    tally_x.add(x, 0.0, False)
-                    tally_x.low += int(np.count_nonzero(np.isfinite(x) & (x > 1.0)))
-            tally_rho.raise_if_bad(path, "density >= 0")
-            if "ionization" in names:
-                tally_x.raise_if_bad(path, "0 <= ionized fraction <= 1")
-            # passes 3 and 4: n_e, then the ion term, through the model (small pieces: the
-            # models' temporaries are tens of float64 arrays)
-            for index, param in enumerate(("electron_density", "ion_density")):
-                tally = _Tally(param, "(ionization model)")
-                for plo, phi in pieces(zero, shape, _PIECE_CELLS):
-                    inputs = source._wide_inputs(handle, plo, phi, ("temperature", "density", "ionization"))
-                    stored = np.ascontiguousarray(source._model_terms(inputs)[index], source.dtype)
-                    tally.add(stored)
-                    _hash(h, stored, source.dtype)
-                ranges[param] = (tally.min, tally.max)
-    return ranges, h
-
-
-def _warn_hot(n_hot):
-    if n_hot:
-        # the same warning Snapshot.from_arrays gives through check_temperature_range
-        warnings.warn(f"temperature: {n_hot} cell(s) above {RELATIVISTIC_TEMPERATURE:.0e} K, where the "
-                      "non-relativistic free-free treatment loses accuracy", PhysicsRangeWarning, stacklevel=3)
+            _validate_gas(source, handle)
+            if not source.model.local:
+                solution = source.model.photoionize(_OpenGrid(source, handle, cell, origin))
+                source.photo = solution.fraction
+                extra.update(solution.provenance())
+            extra["ionization_state"] = _evaluate_gas(source, handle, digests, ranges)
+    checksum = combined_checksum([digests[p] for p in ("temperature", "electron_density", "ion_density")],
+                                 cell, origin)
+    return ranges, checksum, extra
 
 
 # -- open_hdf5 ---------------------------------------------------------------------------------
 
-def open_hdf5(path, *, temperature, electron_density=None, ion_density=None, density=None,
-              ionization=None, composition=None, helium=None, cell_size=None, origin=None,
-              units=None, dtype=np.float32):
+def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
+              internal_energy=None, gamma=None, ionization=None, composition=None, helium=None, cell_size=None,
+              origin=None, units=None, dtype=np.float32):
     """Open a snapshot on a regular grid in an HDF5 file without reading its fields into memory.
 
     The arguments mean what they mean for :func:`rtrace.io.read_hdf5`: give
-    either ``electron_density`` (and optionally ``ion_density``) or the mass
-    ``density`` with an ``ionization`` model.
+    either ``electron_density`` (and optionally ``ion_density``) with
+    ``temperature``, or the mass ``density`` with an ``ionization`` model and
+    one thermal input (``temperature``, ``pressure`` or ``internal_energy``).
 
     Parameters
     ----------
     path : str or os.PathLike
         The HDF5 file. It must not change while the snapshot is in use.
-    temperature : str
-        Name of the electron-temperature dataset (any temperature unit).
+    temperature, pressure, internal_energy : str, optional
+        Name of the dataset of the one thermal input.
     electron_density, ion_density, density : str, optional
         Names of the electron density, ion term ``sum_i Z_i^2 n_i`` and mass
         density datasets.
+    gamma : float, optional
+        Adiabatic index for ``internal_energy`` (default 5/3).
     ionization : str, float or IonizationModel, optional
-        ``"full"`` (default with ``density``), ``"threshold"``, ``"saha"``, a
-        model, a uniform hydrogen ionized fraction, or the name of a dataset
-        holding the fraction. Applied per brick. An in-memory fraction array
-        is not accepted (store it in the file).
+        ``"full"`` (default with ``density``), ``"threshold"``, ``"saha"``,
+        ``"collisional"``, a model (``IonizingSources`` is solved at open,
+        reading the file piece by piece; ``SuppliedFraction`` with dataset
+        names reads those), a uniform hydrogen ionized fraction, or the name
+        of a dataset holding the fraction. An in-memory fraction array is
+        not accepted (store it in the file).
     composition, helium
         Passed to the ionization model.
     cell_size : `~astropy.units.Quantity`, optional
@@ -480,7 +546,7 @@ def open_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
     Warns
     -----
     PhysicsRangeWarning
-        Temperatures above 1e9 K.
+        Temperatures above 1e9 K; a model used outside its validity.
     """
     path = os.fspath(path)
     if not os.path.isfile(path):
@@ -496,34 +562,23 @@ def open_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
         raise InputError("density: give either density (with ionization) or electron_density, not both")
     if density is None and electron_density is None:
         raise InputError("electron_density: required unless density and ionization are given")
-    if density is None and ionization is not None:
-        raise InputError("ionization: only used with density; electron_density was given directly")
-
-    from ..physics.ionization import SuppliedFraction, resolve_ionization
-    wanted = {"temperature": temperature, "electron_density": electron_density,
-              "ion_density": ion_density, "density": density}
-    fraction_name = None
-    model = None
-    if density is not None:
-        if isinstance(ionization, str) and ionization.strip().lower() not in _MODEL_NAMES:
-            fraction_name = ionization
-            model = SuppliedFraction(fraction_name, composition, helium or "follow")
-        elif isinstance(ionization, (np.ndarray, u.Quantity)) and np.ndim(ionization) > 0:
-            raise InputError("ionization: an in-memory fraction array cannot be read brick by brick; store it "
-                             "as a dataset in the file and pass its name (or use read_hdf5)")
-        else:
-            try:
-                model = resolve_ionization("full" if ionization is None else ionization,
-                                           composition=composition, helium=helium)
-            except (TypeError, ValueError) as exc:
-                raise InputError(f"ionization: {exc}") from None
-            if isinstance(model, SuppliedFraction) and model.field_name is not None:
-                fraction_name = model.field_name
-            elif isinstance(model, SuppliedFraction) and np.ndim(model.fraction) > 0:
-                raise InputError("ionization: a SuppliedFraction holding an in-memory array cannot be read "
-                                 "brick by brick; give it the name of a dataset in the file instead")
-        if fraction_name is not None:
-            wanted["ionization"] = fraction_name
+    if density is None and (pressure is not None or internal_energy is not None):
+        raise InputError(f"{'pressure' if pressure is not None else 'internal_energy'}: needs density (the "
+                         "particle count that turns it into a temperature depends on the mass density and its "
+                         "ionization)")
+    if isinstance(ionization, (np.ndarray, u.Quantity)) and np.ndim(ionization) > 0:
+        raise InputError("ionization: an in-memory fraction array cannot be read brick by brick; store it "
+                         "as a dataset in the file and pass its name (or use read_hdf5)")
+    wanted, model = wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density,
+                                  ionization, composition, helium)
+    if model is not None and any(np.ndim(a) > 0 for a in model.cell_arrays().values()):
+        raise InputError("ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
+                         "the names of datasets in the file instead")
+    gamma_used = None
+    if model is not None and "temperature" not in wanted:
+        gamma_used = gamma_value(gamma)
+    elif gamma is not None:
+        raise InputError("gamma: only used with pressure or internal_energy (and density)")
     wanted = checked_names(wanted, units)
 
     with open_file(path) as handle:
@@ -533,16 +588,18 @@ def open_hdf5(path, *, temperature, electron_density=None, ion_density=None, den
     if not np.all(np.isfinite(cell) & (cell > 0)):
         raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
     org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+    if model is not None and not model.local:
+        model.check_geometry(shape, cell, org)          # sources outside the grid: an error before any reading
 
-    source = HDF5Source(path, wanted, field_units, model, fraction_name, dtype, shape)
-    ranges, h = _scan(source)
-    for arr in (cell, org):
-        h.update(memoryview(np.ascontiguousarray(arr)).cast("B"))
+    source = HDF5Source(path, wanted, field_units, model, dtype, shape, gamma_used)
+    ranges, checksum, extra = _scan(source, cell, org)
     if model is not None:
         ionization_text = model.describe()
     elif ion_density is None:
         ionization_text = "supplied n_e; ion term = n_e"
     else:
         ionization_text = "supplied n_e and ion term"
-    provenance = {"source": f"hdf5:{path}", "ionization": ionization_text}
-    return LazySnapshot(source, cell, org, provenance, ranges, h.hexdigest())
+    provenance = {"source": f"hdf5:{path}", "ionization": ionization_text, **extra}
+    if source.thermal != "temperature":
+        provenance["temperature"] = thermal_provenance(source.thermal, gamma_used)
+    return LazySnapshot(source, cell, org, provenance, ranges, checksum)

@@ -21,11 +21,15 @@ import numpy as np
 
 from ..amr import AMRSnapshot, Grid
 from ..errors import InputError
+from ..gas import derive_fields, thermal_input
 from ..physics.freefree import check_temperature_range
+from ..physics.ionization import MODEL_NAMES, IonizationModel, SuppliedFraction
 
 __all__ = ["from_yt"]
 
-_MODELS = ("full", "threshold", "saha")
+#: Per-cell inputs and the bound each must satisfy: (lower, strict).
+_BOUNDS = {"temperature": (0.0, True), "pressure": (0.0, True), "internal_energy": (0.0, True),
+           "electron_density": (0.0, False), "ion_density": (0.0, False), "density": (0.0, False)}
 
 
 def _load(ds):
@@ -64,7 +68,12 @@ def _fraction_field(ds, ionization):
     """True when ``ionization`` names a dataset field (an ionized fraction) rather than a model."""
     if isinstance(ionization, tuple):
         return True
-    return isinstance(ionization, str) and ionization.strip().lower() not in _MODELS
+    return isinstance(ionization, str) and ionization.strip().lower() not in MODEL_NAMES + ("sources",)
+
+
+def _yt_name(name):
+    """A field name as given in a model: ``"x_HII"`` or ``"gas/x_HII"`` for yt's (type, name)."""
+    return tuple(name.split("/", 1)) if isinstance(name, str) and "/" in name else name
 
 
 def _quantity(data, key):
@@ -106,36 +115,43 @@ def _validate(all_inputs, where):
     tally = _Tally()
     for inputs in all_inputs:
         for param, q in inputs.items():
-            if param == "temperature":
-                tally.add(param, q, 0.0, True)
-            elif param != "ionization":
-                tally.add(param, q, 0.0, False)
+            if param in _BOUNDS:
+                tally.add(param, q, *_BOUNDS[param])
     tally.raise_if_bad(where)
 
 
-def _terms(inputs, options, dtype):
-    from ..snapshot import _to_array, derive_terms
+def _terms(inputs, options, dtype, cell, origin):
+    """``(T_e, n_e, ion term, provenance)`` of one grid's (or the covering grid's) inputs."""
     import astropy.units as u
-    t = _to_array(inputs["temperature"], u.K, "temperature",
-                  np.float64 if "density" in inputs else dtype, u.temperature())
-    ionization = inputs.get("ionization", options["ionization"])
+    ionization = options["ionization"]
     if "ionization" in inputs:
         ionization = np.asarray(inputs["ionization"].to_value(u.dimensionless_unscaled), np.float64)
-    return derive_terms(t, inputs.get("electron_density"), inputs.get("ion_density"), inputs.get("density"),
-                        ionization, options["composition"], options["helium"], None, dtype)
+    fields = {name: np.asarray(inputs[key].to_value(u.dimensionless_unscaled), np.float64)
+              for key, name in options["model_fields"].items()}
+    kw = {k: inputs.get(k) for k in ("temperature", "pressure", "internal_energy", "electron_density",
+                                     "ion_density", "density")}
+    return derive_fields(cell, origin, ionization=ionization, composition=options["composition"],
+                         helium=options["helium"], gamma=options["gamma"], fields=fields or None, dtype=dtype,
+                         **kw)
 
 
-def from_yt(ds, *, temperature, electron_density=None, ion_density=None, density=None, ionization=None,
-            composition=None, helium=None, level=None, dtype=np.float32):
+def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
+            internal_energy=None, gamma=None, ionization=None, composition=None, helium=None, level=None,
+            dtype=np.float32):
     """Build a snapshot from a yt dataset (see :meth:`rtrace.Snapshot.from_yt`)."""
     from ..snapshot import Snapshot
     dtype = np.dtype(dtype)
     if dtype not in (np.float32, np.float64):
         raise InputError(f"dtype: must be float32 or float64, got {dtype}")
-    ds = _load(ds)
     if (electron_density is None) == (density is None):
         raise InputError("electron_density / density: give exactly one of them (density with ionization)")
-    keys = {"temperature": _resolve_field(ds, temperature, "temperature")}
+    thermal, thermal_name = thermal_input(temperature, pressure, internal_energy)
+    if electron_density is not None and thermal != "temperature":
+        raise InputError(f"{thermal}: needs density (the particle count that turns it into a temperature "
+                         "depends on the mass density and its ionization)")
+    ds = _load(ds)
+    keys = {thermal: _resolve_field(ds, thermal_name, thermal)}
+    model_fields = {}
     if electron_density is not None:
         keys["electron_density"] = _resolve_field(ds, electron_density, "electron_density")
         if ion_density is not None:
@@ -149,7 +165,14 @@ def from_yt(ds, *, temperature, electron_density=None, ion_density=None, density
         if _fraction_field(ds, ionization):
             keys["ionization"] = _resolve_field(ds, ionization, "ionization")
             ionization = None
-    options = {"ionization": ionization, "composition": composition, "helium": helium}
+        elif isinstance(ionization, IonizationModel):
+            # fields the model reads by name (e.g. SuppliedFraction("x_HII", helium_ii="x_HeII"))
+            for n, name in enumerate(ionization.field_names()):
+                key = f"model_field_{n}"
+                keys[key] = _resolve_field(ds, _yt_name(name), f"ionization field '{name}'")
+                model_fields[key] = name
+    options = {"ionization": ionization, "composition": composition, "helium": helium, "gamma": gamma,
+               "model_fields": model_fields}
     left = ds.domain_left_edge.to("cm").d.astype(float)
     width = (ds.domain_right_edge - ds.domain_left_edge).to("cm").d.astype(float)
     base = np.asarray(ds.domain_dimensions, np.int64)
@@ -167,11 +190,15 @@ def from_yt(ds, *, temperature, electron_density=None, ion_density=None, density
         cg = ds.covering_grid(lev, ds.domain_left_edge, dims)
         inputs = _inputs(cg, keys)
         _validate([inputs], f"{ds}")
-        t, ne, ni, how = _terms(inputs, options, dtype)
+        t, ne, ni, derived = _terms(inputs, options, dtype, width / dims, left)
         check_temperature_range(t, "temperature")
         how_sampled = "uniform level-0 grid" if level is None else f"sampled on yt's covering grid at level {lev}"
-        prov = {"source": f"yt: {ds} ({how_sampled}; {fields_text})", "ionization": how}
+        prov = {"source": f"yt: {ds} ({how_sampled}; {fields_text})", **derived}
         return Snapshot(t, ne, ni, width / dims, left, prov)
+    if isinstance(ionization, IonizationModel) and not ionization.local:
+        raise InputError(f"ionization: {type(ionization).__name__} needs the whole grid at one resolution; "
+                         f"{ds} is a {max_level + 1}-level AMR hierarchy: give level= to sample it on a uniform "
+                         "grid")
     return _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_text)
 
 
@@ -187,10 +214,14 @@ def _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_tex
         boxes.append((lev, start * scale, (start + dims) * scale, f"grid {g.id}"))
         all_inputs.append(_inputs(g, keys))
     _validate(all_inputs, f"{len(grids)} grids of {ds}")
-    out, how = [], None
-    for (lev, lo, hi, label), inputs in zip(boxes, all_inputs):
-        t, ne, ni, how = _terms(inputs, options, dtype)
+    out, derived = [], {}
+    for g, (lev, lo, hi, label), inputs in zip(grids, boxes, all_inputs):
+        dims = np.asarray(g.ActiveDimensions, np.int64)
+        edge = np.asarray(g.LeftEdge.to("cm").d, float)
+        size = np.asarray((g.RightEdge - g.LeftEdge).to("cm").d, float) / dims
+        t, ne, ni, derived = _terms(inputs, options, dtype, size, edge)
         check_temperature_range(t, "temperature")
         out.append(Grid(lev, lo, hi, ne, ni, t, label))
-    prov = {"source": f"yt: {ds} (AMR, {levels} levels, {len(grids)} grids; {fields_text})", "ionization": how}
+    derived.pop("ionization_state", None)    # the last grid's alone; not the dataset's
+    prov = {"source": f"yt: {ds} (AMR, {levels} levels, {len(grids)} grids; {fields_text})", **derived}
     return AMRSnapshot(out, r, base, width / base, left, prov)

@@ -6,18 +6,16 @@ issued. ``ion_density`` is the ion term ``sum_i Z_i^2 n_i``; it defaults to
 the electron density (pure hydrogen). The Gaunt factor is evaluated for Z = 1.
 """
 
-import warnings
-
 import astropy.units as u
 import numpy as np
 
-from ..errors import PhysicsRangeWarning
+from ..errors import warn_user
 from .constants import ALPHA_FF_PREFACTOR, EMISSIVITY_FF_PREFACTOR, H_OVER_K
 from .gaunt import gaunt_cgs
 
 __all__ = [
     "absorption_coefficient", "emission_coefficient",
-    "absorption_cgs", "emission_cgs", "check_temperature_range",
+    "absorption_cgs", "emission_cgs", "check_temperature_range", "warn_relativistic",
     "RELATIVISTIC_TEMPERATURE",
 ]
 
@@ -27,12 +25,14 @@ EMISSIVITY_UNIT = u.erg / (u.s * u.cm**3 * u.Hz * u.sr)
 
 def check_temperature_range(temperature_k, what="temperature"):
     """Warn if any temperature exceeds :data:`RELATIVISTIC_TEMPERATURE`."""
-    n_hot = int(np.count_nonzero(np.asarray(temperature_k) > RELATIVISTIC_TEMPERATURE))
+    warn_relativistic(int(np.count_nonzero(np.asarray(temperature_k) > RELATIVISTIC_TEMPERATURE)), what)
+
+
+def warn_relativistic(n_hot, what="temperature"):
+    """Warn that ``n_hot`` cells lie above :data:`RELATIVISTIC_TEMPERATURE` (nothing if none)."""
     if n_hot:
-        warnings.warn(
-            f"{what}: {n_hot} cell(s) above {RELATIVISTIC_TEMPERATURE:.0e} K, where the "
-            "non-relativistic free-free treatment loses accuracy",
-            PhysicsRangeWarning, stacklevel=3)
+        warn_user(f"{what}: {n_hot} cell(s) above {RELATIVISTIC_TEMPERATURE:.0e} K, where the "
+                  "non-relativistic free-free treatment loses accuracy")
 
 
 def absorption_cgs(nu, temperature, ne, ni):

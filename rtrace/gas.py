@@ -1,0 +1,163 @@
+"""The gas a snapshot is built from: which fields were given, their checks, and the three fields the transfer needs.
+
+A snapshot gives either the electron density (and optionally the ion term)
+with the electron temperature, or the mass density with an ionization model
+and a thermal state: the temperature, the pressure or the specific internal
+energy. :func:`derive_fields` checks every array (shape, finite, sign; the
+error names the field, the problem and the number of bad cells) before any
+ionization work, then evaluates the model over the grid in pieces.
+"""
+
+import astropy.units as u
+import numpy as np
+
+from .errors import InputError
+from .physics.ionization import resolve_ionization
+from .physics.ionization.grid import ArrayInputs, evaluate_grid
+
+__all__ = ["derive_fields", "check_field", "to_array", "gamma_value", "thermal_input", "thermal_provenance",
+           "THERMAL_UNITS", "DEFAULT_GAMMA"]
+
+#: Thermal inputs and their units (K; dyn cm^-2; erg g^-1).
+THERMAL_UNITS = {"temperature": u.K, "pressure": u.dyn / u.cm**2, "internal_energy": u.erg / u.g}
+#: Adiabatic index of a monatomic ideal gas, 5/3 (common practice).
+DEFAULT_GAMMA = 5.0 / 3.0
+
+
+def to_array(value, unit, name, dtype, equivalencies=None):
+    """Quantity (or plain array, taken to be in ``unit``) -> ndarray in ``unit``."""
+    if isinstance(value, u.Quantity):
+        if not value.unit.is_equivalent(unit, equivalencies=equivalencies or []):
+            raise InputError(f"{name}: expected units of {unit}, got '{value.unit}'")
+        value = value.to_value(unit, equivalencies=equivalencies or [])
+    try:
+        return np.ascontiguousarray(value, dtype=dtype)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: expected a numeric array, got {type(value).__name__}") from None
+
+
+def check_field(name, arr, shape, lower, strict):
+    """Validate one field: shape, finiteness, lower bound. The message counts bad cells."""
+    if arr.shape != shape:
+        raise InputError(f"{name}: shape {arr.shape} does not match the grid shape {shape}")
+    n_bad = arr.size - int(np.count_nonzero(np.isfinite(arr)))
+    if n_bad:
+        raise InputError(f"{name}: {n_bad} of {arr.size} cells are not finite (NaN or inf)")
+    n_bad = int(np.count_nonzero(arr <= lower if strict else arr < lower))
+    if n_bad:
+        rel = "> 0" if strict else ">= 0"
+        raise InputError(f"{name}: {n_bad} of {arr.size} cells violate {name} {rel} "
+                         f"(minimum {float(arr.min()):.6g})")
+
+
+def gamma_value(gamma):
+    """The adiabatic index as a float > 1 (default 5/3), or an InputError."""
+    if gamma is None:
+        return DEFAULT_GAMMA
+    try:
+        g = float(u.Quantity(gamma).to_value(u.dimensionless_unscaled))
+    except (TypeError, ValueError, u.UnitsError):
+        raise InputError(f"gamma: expected a number (the adiabatic index), got {gamma!r}") from None
+    if not (np.isfinite(g) and g > 1.0):
+        raise InputError(f"gamma: the adiabatic index must be finite and > 1, got {gamma!r}")
+    return g
+
+
+def thermal_input(temperature=None, pressure=None, internal_energy=None):
+    """``(name, value)`` of the one thermal input given, or an InputError."""
+    given = [(k, v) for k, v in (("temperature", temperature), ("pressure", pressure),
+                                 ("internal_energy", internal_energy)) if v is not None]
+    if len(given) != 1:
+        names = ", ".join(k for k, _ in given) if given else "none"
+        raise InputError(f"temperature / pressure / internal_energy: give exactly one thermal input (got {names})")
+    return given[0]
+
+
+def _grid_shape(arrays):
+    for name, value in arrays:
+        if value is not None:
+            ndim = np.ndim(value)
+            if ndim != 3:
+                raise InputError(f"{name}: expected a 3D array, got {ndim} dimension(s)")
+            return tuple(np.shape(value))
+    raise InputError("temperature: required (or pressure / internal_energy with density)")
+
+
+def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_density=None, density=None,
+                  pressure=None, internal_energy=None, gamma=None, ionization=None, composition=None,
+                  helium=None, fields=None, dtype=np.float32):
+    """``(T_e, n_e, ion term, provenance)`` of a grid from the fields a snapshot was given.
+
+    See :meth:`rtrace.Snapshot.from_arrays` for the combinations accepted.
+    ``cell`` and ``origin`` are 3-vectors in cm. Arrays come back as
+    C-contiguous ``dtype`` arrays (K, cm^-3, cm^-3); ``provenance`` holds
+    ``ionization`` and, with mass density, ``ionization_state`` and what the
+    model adds.
+    """
+    if density is None:
+        for name, value in (("pressure", pressure), ("internal_energy", internal_energy)):
+            if value is not None:
+                raise InputError(f"{name}: needs density (the particle count that turns it into a temperature "
+                                 "depends on the mass density and its ionization)")
+        if electron_density is None:
+            raise InputError("electron_density: required unless density and ionization are given")
+        if ionization is not None:
+            raise InputError("ionization: only used with density; electron_density was given directly")
+        for name, value in (("composition", composition), ("helium", helium), ("gamma", gamma)):
+            if value is not None:
+                raise InputError(f"{name}: only used with density; electron_density was given directly")
+        if temperature is None:
+            raise InputError("temperature: required with electron_density")
+        shape = _grid_shape([("temperature", temperature)])
+        t = to_array(temperature, u.K, "temperature", dtype, u.temperature())
+        check_field("temperature", t, shape, 0.0, strict=True)
+        ne = to_array(electron_density, u.cm**-3, "electron_density", dtype)
+        check_field("electron_density", ne, shape, 0.0, strict=False)
+        if ion_density is None:
+            return t, ne, ne, {"ionization": "supplied n_e; ion term = n_e"}
+        ni = to_array(ion_density, u.cm**-3, "ion_density", dtype)
+        check_field("ion_density", ni, shape, 0.0, strict=False)
+        return t, ne, ni, {"ionization": "supplied n_e and ion term"}
+
+    if electron_density is not None or ion_density is not None:
+        raise InputError("density: give either density (with ionization) or electron_density, not both")
+    thermal, value = thermal_input(temperature, pressure, internal_energy)
+    shape = _grid_shape([(thermal, value), ("density", density)])
+    model = resolve_ionization("full" if ionization is None else ionization, composition=composition,
+                               helium=helium)
+    rho = to_array(density, u.g / u.cm**3, "density", np.float64)
+    check_field("density", rho, shape, 0.0, strict=False)
+    heat = to_array(value, THERMAL_UNITS[thermal], thermal, np.float64,
+                    u.temperature() if thermal == "temperature" else None)
+    check_field(thermal, heat, shape, 0.0, strict=True)
+    inputs = {"density": rho, thermal: heat}
+    if thermal != "temperature":
+        n_empty = int(np.count_nonzero(rho <= 0.0))
+        if n_empty:
+            raise InputError(f"density: {n_empty} of {rho.size} cells are empty (density 0), where a temperature "
+                             f"cannot be derived from the {thermal.replace('_', ' ')}")
+        inputs["gamma"] = gamma_value(gamma)
+    elif gamma is not None:
+        raise InputError("gamma: only used with pressure or internal_energy")
+    user_fields = {}
+    for name, arr in (fields or {}).items():
+        user_fields[name] = np.asarray(arr)
+    missing = [n for n in model.field_names() if n not in user_fields]
+    if missing:
+        raise InputError(f"fields: the ionization model reads {', '.join(repr(n) for n in missing)}, not given "
+                         f"(fields given: {sorted(user_fields) or 'none'})")
+    merged = model.with_fields(user_fields, shape)
+    model.validate_fields(merged)                 # whole-grid counts, before any evaluation
+    grid = ArrayInputs(inputs, merged, shape, cell, origin)
+    t, ne, ni, provenance = evaluate_grid(model, grid, dtype)
+    if thermal != "temperature":
+        provenance["temperature"] = thermal_provenance(thermal, inputs["gamma"])
+    return t, ne, ni, provenance
+
+
+def thermal_provenance(thermal, gamma):
+    """How the temperature was derived, for the provenance of a snapshot built from pressure or energy."""
+    if thermal == "pressure":
+        return "from the pressure: P = (n_H + n_He + n_e) k T with the model's ionization, solved per cell"
+    return (f"from the internal energy: P = (gamma - 1) rho e, gamma = {gamma:.6g}, and P = (n_H + n_He + n_e) k T "
+            "with the model's ionization, solved per cell")
