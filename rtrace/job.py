@@ -453,8 +453,8 @@ def _ionization(raw, snap, kind):
     for key in ("threshold", "ionized_temperature"):
         if key in ion and not ion[key].to_value(u.K) > 0:
             raise ConfigError(f"[ionization].{key}: must be a positive temperature, got '{ion[key]}'")
-    if "rays_per_cell" in ion and not 0.25 <= ion["rays_per_cell"] <= 64:
-        raise ConfigError(f"[ionization].rays_per_cell: expected a number from 0.25 to 64, got {ion['rays_per_cell']}")
+    if "rays_per_cell" in ion and not 4 <= ion["rays_per_cell"] <= 64:
+        raise ConfigError(f"[ionization].rays_per_cell: expected a number from 4 to 64, got {ion['rays_per_cell']}")
     return ion
 
 

@@ -432,3 +432,74 @@ def test_describe_strings():
     desc = SuppliedFraction(np.array([0.1, 0.9])).describe()
     assert desc.startswith("supplied(") and "min=0.1" in desc and "max=0.9" in desc
     assert "\n" not in desc
+
+
+# ---------------------------------------------------------------------------
+# Saha outside its range; supplied helium fractions
+# ---------------------------------------------------------------------------
+
+
+def test_mcwhirter_density():
+    # McWhirter (1965), in the textbook form n_e >= 1.6e12 T^1/2 (Delta E/eV)^3 cm^-3 with Delta E = 10.2 eV
+    # for hydrogen (from memory): 1.7e17 cm^-3 at 1e4 K, the order REFERENCES gives (~1e17).
+    from rtrace.physics.ionization.saha import mcwhirter_density
+    assert mcwhirter_density(1e4) == pytest.approx(1.6e12 * 100.0 * 10.2**3, rel=1e-12)
+    assert 1e17 < mcwhirter_density(1e4) < 2e17
+
+
+def test_saha_warns_at_interstellar_densities_and_names_the_alternatives():
+    # Saha (LTE) holds only where collisions dominate radiation (McWhirter criterion, above); at
+    # n_H = 100 cm^-3 it ionizes hydrogen fully at 8000-20000 K, where collisional equilibrium leaves
+    # it almost neutral below 1.5e4 K.
+    rho = np.full(5, 100.0 * M_H / 0.7)
+    T = np.array([2000.0, 8000.0, 1e4, 1.5e4, 2e4])   # at 2000 K Saha too leaves n_e < 1e-3 n_H
+    model = SahaEquilibrium()
+    with pytest.warns(PhysicsRangeWarning, match=r"saha: 4 of 5 cells \(80%\).*'collisional'.*'sources'"):
+        model.electron_and_ion_terms(rho, T)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        model.electron_and_ion_terms(rho, T)        # once per model, not on every evaluation
+
+
+@pytest.mark.parametrize("n_h, T", [(1e20, 1e4), (1e23, 1e6), (1e19, 3000.0)])
+def test_saha_is_quiet_for_dense_gas(n_h, T):
+    # Stellar interiors and atmospheres: electron densities near or above the McWhirter density.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        SahaEquilibrium().electron_and_ion_terms(np.array([n_h * M_H / 0.7]), np.array([T]))
+
+
+def test_supplied_helium_follows_a_switched_off_region():
+    # A region the radiation-hydrodynamics run left neutral (x = 0) has no free electrons, whatever
+    # the helium rule (a region switched off must not emit).
+    rho = np.full(2, 1e-22)
+    for helium in ("single", "double", "follow", "none"):
+        n_e, ion = SuppliedFraction(np.array([0.0, 1.0]), MIXED, helium).electron_and_ion_terms(rho, np.full(2, 1e4))
+        assert n_e[0] == 0.0 and ion[0] == 0.0 and n_e[1] > 0
+
+
+def test_supplied_helium_fractions():
+    # Hand bookkeeping: n_e = x n_H + (f2 + 2 f3) n_He; ion term = x n_H + f2 n_He + 4 f3 n_He
+    # (He II has Z = 1, He III Z = 2).
+    x = np.array([0.0, 0.5, 1.0])
+    f2 = np.array([0.0, 0.3, 0.2])
+    f3 = np.array([0.0, 0.1, 0.8])
+    rho = np.full(3, 1e-22)
+    n_h, n_he = 0.7 * 1e-22 / M_H, 0.28 * 1e-22 / M_HE
+    model = SuppliedFraction(x, MIXED, helium_ii=f2, helium_iii=f3)
+    sp = model.species_densities(rho, np.full(3, 1e4))
+    np.testing.assert_allclose(sp["n_e"], x * n_h + (f2 + 2 * f3) * n_he, rtol=1e-12)
+    np.testing.assert_allclose(sp["n_HeI"], (1 - f2 - f3) * n_he, rtol=1e-12, atol=1e-300)
+    n_e, ion = model.electron_and_ion_terms(rho, np.full(3, 1e4))
+    np.testing.assert_allclose(ion, x * n_h + (f2 + 4 * f3) * n_he, rtol=1e-12)
+    # named fields, read when evaluated
+    named = SuppliedFraction("xH", MIXED, helium_iii="xHe3")
+    assert named.field_names() == ("xH", "xHe3")
+    n_e2, _ = named.electron_and_ion_terms(rho, np.full(3, 1e4), {"xH": x, "xHe3": f3})
+    np.testing.assert_allclose(n_e2, x * n_h + 2 * f3 * n_he, rtol=1e-12)
+    with pytest.raises(InputError, match="helium: not used when helium_ii"):
+        SuppliedFraction(x, helium="single", helium_ii=f2)
+    with pytest.raises(InputError, match=r"helium_ii \+ helium_iii: 1 of 3 cells have He II \+ He III fractions "
+                                         r"above 1 \(largest 1.2\)"):
+        SuppliedFraction(x, helium_ii=f2, helium_iii=np.array([0.0, 0.9, 0.8])).electron_and_ion_terms(
+            rho, np.full(3, 1e4))

@@ -208,14 +208,14 @@ def test_sources_job_equals_read_hdf5_and_balances_the_photons(folder, gas, ther
 
 
 def test_sources_job_from_a_file(folder):
-    text = JOB.format(snapshot='temperature = "T"', ionization=_with('helium = "none"\nrays_per_cell = 2'))
+    text = JOB.format(snapshot='temperature = "T"', ionization=_with('helium = "none"\nrays_per_cell = 8'))
     (folder / "sources.toml").write_text(text)
     job = load_job(folder / "sources.toml")
     model = ionization_model(job)
-    assert model.helium == "none" and model.rays_per_cell == 2.0 and model.ionized_temperature == 1e4
+    assert model.helium == "none" and model.rays_per_cell == 8.0 and model.ionized_temperature == 1e4
     ref = read_hdf5(folder / "cloud.h5", density="rho", temperature="T",
                     ionization=IonizingSources(positions=[STAR_PC] * u.pc, rates=[RATE] / u.s, helium="none",
-                                               ionized_temperature=1e4 * u.K, rays_per_cell=2.0))
+                                               ionized_temperature=1e4 * u.K, rays_per_cell=8.0))
     _assert_same(build_snapshot(job), ref)
 
 
@@ -305,7 +305,7 @@ def test_sources_outside_a_subvolume(folder):
                                                             r"mean 'rate'\?\)"),
     ('pressure = "P"', SOURCES.replace('"1e4 K"', '"-5 K"'),
      r"\[ionization\].ionized_temperature: must be a positive temperature"),
-    ('pressure = "P"', _with("rays_per_cell = 100"), r"rays_per_cell: expected a number from 0.25 to 64"),
+    ('pressure = "P"', _with("rays_per_cell = 100"), r"rays_per_cell: expected a number from 4 to 64"),
 ])
 def test_ionization_errors(folder, snapshot, ionization, message):
     with pytest.raises(ConfigError, match=message):

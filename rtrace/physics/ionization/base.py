@@ -5,7 +5,7 @@ import abc
 import numpy as np
 
 from ...errors import InputError, warn_user
-from .composition import Composition, broadcast_pair, ion_term
+from .composition import SPECIES, Composition, broadcast_pair, ion_term
 
 __all__ = ["IonizationModel"]
 
@@ -90,7 +90,7 @@ class IonizationModel(abc.ABC):
         sp = self._species(rho_a, T_a, self.with_fields(fields, rho_a.shape))
         self.warn_range()
         # fresh, writable float64 arrays even when inputs were broadcast views
-        return {k: np.array(np.broadcast_to(v, rho_a.shape), dtype=np.float64) for k, v in sp.items()}
+        return {k: np.array(np.broadcast_to(sp[k], rho_a.shape), dtype=np.float64) for k in SPECIES}
 
     def electron_and_ion_terms(self, rho, T, fields=None):
         """Electron density and charge-weighted ion density ``sum_i Z_i^2 n_i`` in every cell.

@@ -36,7 +36,7 @@ import numpy as np
 
 from .healpix import pix2vec_nest
 
-__all__ = ["cast_source", "add_paid_share", "MAX_LEVEL", "PAY", "MEASURE"]
+__all__ = ["cast_source", "add_paid_share", "sum_threads", "box_cost", "MAX_LEVEL", "PAY", "MEASURE"]
 
 #: Finest HEALPix level of the ray tree: 12 * 4^10 = 12.6 million rays, spaced
 #: 1e-3 rad apart (0.5 cell at 500 cells from the source).
@@ -89,18 +89,19 @@ def _next_boundary(s, d, origin, cell, i):
 
 
 @numba.njit(cache=True)
-def _march(demand, paid, weight, use_weight, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r, photons,
+def _march(demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r, photons,
            domega, level, max_level, split_area, r_stop, mode):
     """Follow one ray from radius ``r``; returns ``(status, r_end, photons_left, absorbed)``.
 
     Status: 0 its photons ran out at ``r_end`` (``PAY``); 1 it left (or never
     reaches) the grid; 2 it reached ``r_stop``; 3 it must split at ``r_end``.
     ``photons`` are in units of the source's rate. In ``PAY`` a segment of
-    cell c costs ``demand[c] (1 - paid[c]) scale v / W_c`` (``W_c`` from
-    ``weight`` when ``use_weight``, else 1: the cell volume); the paid
-    volume goes to ``acc[tid]`` when ``acc`` has cells. In ``MEASURE`` the
-    segment volume goes there. Volumes are in units of the cell volume;
-    ``acc`` and ``weight`` are indexed from the box corner ``lo``.
+    cell c costs ``cost[c] scale v`` when ``use_cost`` (``cost = demand
+    (1 - paid) / W`` over the box), else ``demand[c] (1 - paid[c]) scale v``
+    (the cell volume standing in for ``W``); the paid volume goes to
+    ``acc[tid]`` when ``acc`` has cells. In ``MEASURE`` the segment volume
+    goes there. Volumes are in units of the cell volume; ``acc`` and
+    ``cost`` are indexed from the box corner ``lo``.
     """
     nx, ny, nz = demand.shape
     if level < max_level and domega * r * r > split_area:
@@ -134,10 +135,10 @@ def _march(demand, paid, weight, use_weight, scale, acc, tid, lo, origin, cell, 
         if mode == MEASURE:
             acc[tid, i - lo[0], j - lo[1], k - lo[2]] += v
         else:
-            rate = demand[i, j, k] * (1.0 - paid[i, j, k]) * scale
-            if use_weight:
-                w = weight[i - lo[0], j - lo[1], k - lo[2]]
-                rate = rate / w if w > 0.0 else 0.0
+            if use_cost:
+                rate = cost[i - lo[0], j - lo[1], k - lo[2]] * scale
+            else:
+                rate = demand[i, j, k] * (1.0 - paid[i, j, k]) * scale
             if rate > 0.0:
                 need = rate * v
                 if need >= photons:
@@ -171,7 +172,7 @@ def _march(demand, paid, weight, use_weight, scale, acc, tid, lo, origin, cell, 
 
 
 @numba.njit(cache=True, parallel=True)
-def cast_source(demand, paid, weight, use_weight, scale, acc, lo, origin, cell, S, root_level, max_level,
+def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, root_level, max_level,
                 split_area, inside, order, r_stop, mode, stats):
     """Cast the ray tree of one source (one pass, see the module notes).
 
@@ -181,9 +182,9 @@ def cast_source(demand, paid, weight, use_weight, scale, acc, lo, origin, cell, 
         Recombinations per second and cell if the cell were fully photoionized.
     paid : ndarray (nx, ny, nz) float32
         Share of ``demand`` already paid by other sources (0..1).
-    weight : ndarray float32
-        ``W``, the volume the rays sample in each cell of the box from ``lo``
-        (cell volumes); used when ``use_weight``.
+    cost : ndarray float32
+        ``demand (1 - paid) / W`` over the box from ``lo`` (``W`` the volume the
+        rays sample in each cell, in cell volumes); used when ``use_cost``.
     scale : float
         1 / the source's photon rate (photons are counted in units of it).
     acc : ndarray (threads, bx, by, bz) float32
@@ -254,11 +255,11 @@ def cast_source(demand, paid, weight, use_weight, scale, acc, lo, origin, cell, 
                     status = _SPLIT     # children start at the source too: nothing is absorbed on the way
                 else:
                     status, r_end, photons, absorbed = _march(
-                        demand, paid, weight, use_weight, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r,
+                        demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r,
                         photons, domega, level, max_level, split_area, r_stop, mode)
             else:
                 status, r_end, photons, absorbed = _march(
-                    demand, paid, weight, use_weight, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r,
+                    demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r,
                     photons, domega, level, max_level, split_area, r_stop, mode)
             stats[n, 0] += absorbed
             if status == _SPLIT:
@@ -305,3 +306,29 @@ def add_paid_share(paid_volume, weight, lo, demand, paid, assigned):
                     paid[i, j, k] = 1.0 - (1.0 - before) * (1.0 - f)
                     total += np.float64(demand[i, j, k]) * (1.0 - before) * f
         assigned[a] = total
+
+
+@numba.njit(cache=True, parallel=True)
+def sum_threads(acc, out):
+    """``out = acc.sum(axis=0)`` (the threads' partial sums) and ``acc = 0``, in parallel over slabs."""
+    n_threads, n0, n1, n2 = acc.shape
+    for a in numba.prange(n0):
+        for b in range(n1):
+            for c in range(n2):
+                total = np.float32(0.0)
+                for t in range(n_threads):
+                    total += acc[t, a, b, c]
+                    acc[t, a, b, c] = 0.0
+                out[a, b, c] = total
+
+
+@numba.njit(cache=True, parallel=True)
+def box_cost(demand, paid, weight, lo, out):
+    """``out = demand (1 - paid) / W`` over the box from ``lo`` (0 where no ray samples a cell)."""
+    n0, n1, n2 = weight.shape
+    for a in numba.prange(n0):
+        for b in range(n1):
+            for c in range(n2):
+                w = weight[a, b, c]
+                i, j, k = lo[0] + a, lo[1] + b, lo[2] + c
+                out[a, b, c] = demand[i, j, k] * (1.0 - paid[i, j, k]) / w if w > 0.0 else 0.0

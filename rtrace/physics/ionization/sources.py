@@ -49,10 +49,10 @@ import numpy as np
 from ...errors import InputError, warn_user
 from .base import IonizationModel
 from .cells import piece_pressure, temperature_from_pressure
-from .composition import Composition, check_choice
+from .composition import M_H, M_HE, Composition, check_choice
 from .grid import box_slices, slabs
-from .raycast import MAX_LEVEL, MEASURE, PAY, add_paid_share, cast_source
-from .tables import case_b_coefficient, collisional_fractions
+from .raycast import MAX_LEVEL, MEASURE, PAY, add_paid_share, box_cost, cast_source, sum_threads
+from .tables import case_b_table, collisional_fractions, fill_demand
 
 __all__ = ["IonizingSources", "Photoionization"]
 
@@ -134,7 +134,9 @@ class IonizingSources(IonizationModel):
         space to it). Default False: a source outside is an error.
     rays_per_cell : float
         Rays split so that at least this many cross each (smallest) cell
-        face: ray spacing at most ``cell / sqrt(rays_per_cell)``. Default 4.
+        face: ray spacing at most ``cell / sqrt(rays_per_cell)``. Default 4,
+        the fewest that leave no cell uncrossed (4 to 64); the cost grows in
+        proportion.
 
     Notes
     -----
@@ -184,8 +186,9 @@ class IonizingSources(IonizationModel):
             raise InputError(f"allow_outside: expected True or False, got {allow_outside!r}")
         self.allow_outside = bool(allow_outside)
         rays = float(rays_per_cell) if isinstance(rays_per_cell, numbers.Real) else np.nan
-        if not (np.isfinite(rays) and 0.25 <= rays <= 64):
-            raise InputError(f"rays_per_cell: expected a number from 0.25 to 64, got {rays_per_cell!r}")
+        if not (np.isfinite(rays) and 4 <= rays <= 64):
+            raise InputError(f"rays_per_cell: expected a number from 4 to 64 (fewer rays can miss cells), got "
+                             f"{rays_per_cell!r}")
         self.rays_per_cell = rays
 
     # -- description ----------------------------------------------------------------------------
@@ -240,11 +243,14 @@ class IonizingSources(IonizationModel):
             else:
                 T = self._photoionized_temperature(rho, piece_pressure(inputs), fields)
             # alpha_B at the photoionized gas's electron temperature (see electron_temperature)
-            t_e = T if self.ionized_temperature is None else np.maximum(T, self.ionized_temperature)
-            n_h = comp.hydrogen_number_density(rho)
-            n_e_full = n_h + (comp.helium_number_density(rho) if self.helium == "single" else 0.0)
-            demand[box_slices(lo, hi)] = case_b_coefficient(t_e) * n_h * n_e_full
-            cold.append(t_e < _COLD_PHOTOIONIZED)
+            t_floor = 0.0 if self.ionized_temperature is None else self.ionized_temperature
+            per_mass_h = comp.hydrogen / M_H
+            per_mass_e = per_mass_h + (comp.helium / M_HE if self.helium == "single" else 0.0)
+            out = np.empty(rho.shape, np.float32)
+            fill_demand(np.ascontiguousarray(T, np.float64).reshape(-1), np.ascontiguousarray(rho).reshape(-1),
+                        t_floor, per_mass_h, per_mass_e, case_b_table(), out.reshape(-1))
+            demand[box_slices(lo, hi)] = out
+            cold.append(np.maximum(T, t_floor) < _COLD_PHOTOIONIZED)
         return np.concatenate(cold, axis=0)
 
     def _levels(self, S, shape, cell, origin):
@@ -265,31 +271,38 @@ class IonizingSources(IonizationModel):
         n_roots = 12 * 4 ** root_level
         order = order_rng.permutation(n_roots).astype(np.int64)
         scale = float(np.prod(cell)) / rate
-        none_w = np.zeros((0, 0, 0), np.float32)
-        none_acc = np.zeros((1, 0, 0, 0), np.float32)
+        no_box = np.zeros((0, 0, 0), np.float32)
+        no_acc = np.zeros((1, 0, 0, 0), np.float32)
         zero = np.zeros(3, np.int64)
+        # pass 1: how far the rays reach, with rays twice as far apart (an estimate: the cell volume
+        # stands in for the sampled volume W)
         stats = np.zeros((n_roots, 5))
-        # pass 1: how far the rays reach (each cell's volume standing in for its sampled volume W)
-        cast_source(demand, paid, none_w, False, scale, none_acc, zero, origin, cell, S, root_level, max_level,
-                    split_area, inside, order, np.inf, PAY, stats)
+        cast_source(demand, paid, no_box, False, scale, no_acc, zero, origin, cell, S, root_level,
+                    max(max_level - 1, root_level), 4.0 * split_area, inside, order, np.inf, PAY, stats)
         reach = float(stats[:, 4].max())
-        r_stop = far if not np.isfinite(reach) else min(far, 1.25 * reach + 3.0 * float(np.max(cell)))
+        r_stop = far if not np.isfinite(reach) else min(far, 1.3 * reach + 3.0 * float(np.max(cell)))
+        threads = numba.get_num_threads()
         while True:
             lo = np.clip(np.floor((S - r_stop - origin) / cell).astype(np.int64), 0, shape)
             hi = np.clip(np.ceil((S + r_stop - origin) / cell).astype(np.int64) + 1, 0, shape)
-            acc = np.zeros((numba.get_num_threads(),) + tuple(int(v) for v in hi - lo), np.float32)
-            cast_source(demand, paid, none_w, False, scale, acc, lo, origin, cell, S, root_level, max_level,
+            box = tuple(int(v) for v in hi - lo)
+            acc = np.zeros((threads,) + box, np.float32)
+            weight = np.empty(box, np.float32)
+            cost = np.empty(box, np.float32)
+            cast_source(demand, paid, no_box, False, scale, acc, lo, origin, cell, S, root_level, max_level,
                         split_area, inside, order, r_stop, MEASURE, np.zeros((n_roots, 5)))
-            weight = acc.sum(axis=0)
-            acc[...] = 0.0
+            sum_threads(acc, weight)
+            box_cost(demand, paid, weight, lo, cost)
             stats = np.zeros((n_roots, 5))
-            cast_source(demand, paid, weight, True, scale, acc, lo, origin, cell, S, root_level, max_level,
+            cast_source(demand, paid, cost, True, scale, acc, lo, origin, cell, S, root_level, max_level,
                         split_area, inside, order, r_stop, PAY, stats)
             if stats[:, 3].sum() > 0.0 and r_stop < far:
                 r_stop = min(far, 2.0 * r_stop)      # some rays still had photons: measure farther
                 continue
-            assigned = np.zeros(int(hi[0] - lo[0]))
-            add_paid_share(acc.sum(axis=0), weight, lo, demand, paid, assigned)
+            paid_volume = cost          # reused: the cost is no longer needed
+            sum_threads(acc, paid_volume)
+            assigned = np.zeros(box[0])
+            add_paid_share(paid_volume, weight, lo, demand, paid, assigned)
             break
         absorbed, escaped, missed = (float(v) * rate for v in stats[:, :3].sum(axis=0))
         return ({"rate": rate, "absorbed": absorbed, "escaped": escaped, "missed": missed,
@@ -350,8 +363,9 @@ class IonizingSources(IonizationModel):
         n_h = self.composition.hydrogen_number_density(rho)
         n_he = self.composition.helium_number_density(rho)
         n_hii = x * n_h
+        # (with the cells where photons, not collisions, set the ionization: see electron_temperature)
         return {"n_e": n_hii + (y2 + 2.0 * y3) * n_he, "n_HI": (1.0 - x) * n_h, "n_HII": n_hii,
-                "n_HeI": y1 * n_he, "n_HeII": y2 * n_he, "n_HeIII": y3 * n_he}
+                "n_HeI": y1 * n_he, "n_HeII": y2 * n_he, "n_HeIII": y3 * n_he, "photo_dominated": p > x_coll}
 
     def temperature_at_pressure(self, rho, pressure, fields):
         """Collisional-equilibrium gas at ``pressure``; photoionized cells at their ionized phase's temperature.
@@ -372,8 +386,6 @@ class IonizingSources(IonizationModel):
         return T
 
     def electron_temperature(self, T, species, fields):
-        photo = fields.get("<photo>")
-        if self.ionized_temperature is None or photo is None:
+        if self.ionized_temperature is None:
             return T
-        x_coll = collisional_fractions(T, "A")[0]
-        return np.where(np.asarray(photo) > x_coll, np.maximum(T, self.ionized_temperature), T)
+        return np.where(species["photo_dominated"], np.maximum(T, self.ionized_temperature), T)

@@ -20,7 +20,7 @@ import numpy as np
 from .rates import (ln_dielectronic_he2, ln_ionization_h, ln_ionization_he1, ln_ionization_he2,
                     ln_recombination_h, ln_recombination_he2, ln_recombination_he3)
 
-__all__ = ["collisional_fractions", "case_b_coefficient", "collisional_table", "case_b_table", "interpolate",
+__all__ = ["collisional_fractions", "case_b_coefficient", "fill_demand", "collisional_table", "case_b_table", "interpolate",
            "LN_T_MIN", "LN_T_STEP"]
 
 LN_T_MIN = np.log(100.0)
@@ -113,3 +113,16 @@ def case_b_coefficient(T):
     out = np.empty(T.shape)
     fill_case_b(T.reshape(-1), case_b_table(), out.reshape(-1))
     return out
+
+
+@numba.njit(cache=True, parallel=True)
+def fill_demand(T, rho, t_floor, per_mass_h, per_mass_e, table, out):
+    """Recombinations per unit volume if fully photoionized, ``alpha_B(T_e) n_H n_e`` [s^-1 cm^-3].
+
+    ``T_e = max(T, t_floor)``; ``n_H = per_mass_h rho``, ``n_e = per_mass_e rho``
+    (flat float64 inputs; ``out`` float32, flat).
+    """
+    for n in numba.prange(T.size):
+        t = max(T[n], t_floor)
+        r = rho[n]
+        out[n] = np.exp(interpolate(table, 0, np.log(t))) * (per_mass_h * r) * (per_mass_e * r)
