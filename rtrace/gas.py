@@ -13,6 +13,7 @@ import numpy as np
 
 from .errors import InputError
 from .physics.ionization import resolve_ionization
+from .physics.ionization.cells import THERMAL_INPUTS
 from .physics.ionization.grid import ArrayInputs, evaluate_grid
 
 __all__ = ["derive_fields", "check_field", "to_array", "gamma_value", "thermal_input", "thermal_provenance",
@@ -65,8 +66,7 @@ def gamma_value(gamma):
 
 def thermal_input(temperature=None, pressure=None, internal_energy=None):
     """``(name, value)`` of the one thermal input given, or an InputError."""
-    given = [(k, v) for k, v in (("temperature", temperature), ("pressure", pressure),
-                                 ("internal_energy", internal_energy)) if v is not None]
+    given = [(k, v) for k, v in zip(THERMAL_INPUTS, (temperature, pressure, internal_energy)) if v is not None]
     if len(given) != 1:
         names = ", ".join(k for k, _ in given) if given else "none"
         raise InputError(f"temperature / pressure / internal_energy: give exactly one thermal input (got {names})")

@@ -21,6 +21,7 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from .errors import ConfigError
+from .physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
            "check_scheduler_address", "check_workers", "SCHEMA"]
@@ -372,7 +373,7 @@ def override_parallel(job, workers=None, scheduler=None):
 
 def _thermal(snap, kind):
     """``[snapshot]``: one thermal input; pressure and internal energy need the mass density."""
-    thermal = [k for k in ("temperature", "pressure", "internal_energy") if k in snap]
+    thermal = [k for k in THERMAL_INPUTS if k in snap]
     if len(thermal) != 1:
         raise ConfigError(f"[snapshot]: give exactly one of 'temperature', 'pressure' or 'internal_energy' when "
                           f"kind = '{kind}' (got {', '.join(repr(k) for k in thermal) or 'none'})")

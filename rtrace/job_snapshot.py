@@ -10,6 +10,8 @@ from pathlib import Path
 
 import astropy.units as u
 
+from .physics.ionization.cells import THERMAL_INPUTS
+
 __all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization"]
 
 
@@ -53,7 +55,7 @@ def ionization_model(job):
 
 
 # [snapshot] keys that name fields, and those read_hdf5 takes as they are.
-_FIELD_KEYS = ("temperature", "pressure", "internal_energy", "electron_density", "ion_density", "density")
+_FIELD_KEYS = THERMAL_INPUTS + ("electron_density", "ion_density", "density")
 _HDF5_KEYS = _FIELD_KEYS + ("gamma", "cell_size", "origin", "units")
 
 
@@ -79,7 +81,7 @@ def check_ionization(job):
     if job.ionization.get("model") != "sources" or job.snapshot["kind"] != "hdf5":
         return
     snap = job.snapshot
-    thermal = next(k for k in ("temperature", "pressure", "internal_energy") if k in snap)
+    thermal = next(k for k in THERMAL_INPUTS if k in snap)
     for member in job_members(job):
         try:
             with open_file(member["path"]) as handle:

@@ -33,10 +33,9 @@ import numpy as np
 
 from ..errors import InputError
 from ..gas import gamma_value, thermal_provenance
-from ..physics.constants import PC
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
-from ..physics.ionization.cells import IonizationSummary, evaluate_piece
+from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
 from ..snapshot import Snapshot, _vector3, combined_checksum
 from .hdf5 import (_FIELD_UNITS, _FRACTION_UNIT, MODEL_FIELD, checked_names, file_geometry, open_fields,
                    open_file, wanted_fields)
@@ -53,7 +52,6 @@ _PIECE_CELLS = 1 << 15
 #: other models); 2 arrays for a unit conversion.
 _PIECE_BYTES_DENSITY = 48 * 8
 _PIECE_BYTES_DIRECT = 2 * 8
-_THERMAL = ("temperature", "pressure", "internal_energy")
 
 # Lower bound and strictness per stored field, as Snapshot.from_arrays checks them.
 _BOUNDS = {"temperature": (0.0, True), "pressure": (0.0, True), "internal_energy": (0.0, True),
@@ -132,7 +130,7 @@ class HDF5Source:
         self.dtype = np.dtype(dtype)
         self.shape = tuple(int(n) for n in shape)
         self.wide = "density" in self.names
-        self.thermal = next(p for p in _THERMAL if p in self.names)
+        self.thermal = next(p for p in THERMAL_INPUTS if p in self.names)
         self.gamma = gamma
         self.photo = None
 

@@ -23,7 +23,8 @@ from ..amr import AMRSnapshot, Grid
 from ..errors import InputError
 from ..gas import derive_fields, thermal_input
 from ..physics.freefree import check_temperature_range
-from ..physics.ionization import MODEL_NAMES, IonizationModel, SuppliedFraction
+from ..physics.ionization import MODEL_NAMES, IonizationModel
+from ..physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["from_yt"]
 
@@ -128,8 +129,7 @@ def _terms(inputs, options, dtype, cell, origin):
         ionization = np.asarray(inputs["ionization"].to_value(u.dimensionless_unscaled), np.float64)
     fields = {name: np.asarray(inputs[key].to_value(u.dimensionless_unscaled), np.float64)
               for key, name in options["model_fields"].items()}
-    kw = {k: inputs.get(k) for k in ("temperature", "pressure", "internal_energy", "electron_density",
-                                     "ion_density", "density")}
+    kw = {k: inputs.get(k) for k in THERMAL_INPUTS + ("electron_density", "ion_density", "density")}
     return derive_fields(cell, origin, ionization=ionization, composition=options["composition"],
                          helium=options["helium"], gamma=options["gamma"], fields=fields or None, dtype=dtype,
                          **kw)

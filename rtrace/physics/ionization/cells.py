@@ -15,8 +15,9 @@ from .composition import K_B, ion_term, particle_density
 
 __all__ = ["temperature_from_pressure", "evaluate_piece", "piece_pressure", "THERMAL_INPUTS", "IonizationSummary"]
 
-#: The ways a snapshot may give its thermal state, with their cgs units.
-THERMAL_INPUTS = {"temperature": "K", "pressure": "dyn cm^-2", "internal_energy": "erg g^-1"}
+#: The ways a snapshot may give its thermal state: temperature [K], pressure [dyn cm^-2] or specific
+#: internal energy [erg g^-1] (with the adiabatic index ``gamma``).
+THERMAL_INPUTS = ("temperature", "pressure", "internal_energy")
 
 #: Relative accuracy of the derived temperature.
 _TOLERANCE = 1e-11

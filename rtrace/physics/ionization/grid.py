@@ -11,7 +11,8 @@ the same reader.
 
 import numpy as np
 
-from .cells import IonizationSummary, evaluate_piece
+from ...errors import InputError
+from .cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
 
 __all__ = ["ArrayInputs", "evaluate_grid", "slabs", "box_slices", "PIECE_CELLS"]
 
@@ -56,11 +57,17 @@ class ArrayInputs:
 
     def __init__(self, inputs, fields, shape, cell_size, origin):
         self.inputs = inputs
-        self.fields = {k: np.broadcast_to(v, shape) for k, v in (fields or {}).items()}
+        self.fields = {}
+        for key, value in (fields or {}).items():
+            try:
+                self.fields[key] = np.broadcast_to(value, shape)
+            except ValueError:
+                raise InputError(f"fields: {key!r} has shape {np.shape(value)}, which does not broadcast to the "
+                                 f"grid shape {tuple(shape)}") from None
         self.shape = tuple(int(n) for n in shape)
         self.cell_size = np.asarray(cell_size, float)
         self.origin = np.asarray(origin, float)
-        self.thermal = next(k for k in ("temperature", "pressure", "internal_energy") if k in inputs)
+        self.thermal = next(k for k in THERMAL_INPUTS if k in inputs)
 
     def read(self, lo, hi):
         box = box_slices(lo, hi)

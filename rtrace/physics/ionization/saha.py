@@ -13,7 +13,7 @@ from scipy.special import log_expit
 
 from ...errors import InputError
 from .base import IonizationModel
-from .composition import CHI_H, CHI_HE1, CHI_HE2, K_B, Composition, broadcast_pair
+from .composition import CHI_H, CHI_HE1, CHI_HE2, K_B, Composition
 
 __all__ = ["SahaEquilibrium", "mcwhirter_density"]
 

@@ -25,19 +25,20 @@ is ionized, the rest neutral. It is given the uniform ionized fraction ``p``
 whose recombinations (and free-free emission, both ``~ p^2``) equal those
 of the ionized part, ``p^2 = f``, and the electron temperature of that part:
 with a temperature from pressure or internal energy, that of fully
-photoionized gas at the cell's pressure (fewer particles than neutral gas,
-so cooler at the same pressure).
+photoionized gas at the cell's pressure (the freed electrons add particles,
+so ionized gas is cooler than neutral gas at the same pressure).
 
 Collisional ionization equilibrium (:class:`CollisionalEquilibrium`,
 case A) applies everywhere as well: hot shocked gas stays ionized whether
-or not photons reach it. Where photons do reach it, every recombination
-costs one (case B, at the gas's temperature), as it does wherever the
-stars' radiation, not electron impact, dominates the ionization: near a
-star, the photoionization rate per atom exceeds the collisional one by
-orders of magnitude even in 1e6 K gas (common practice). Helium is singly ionized
-where hydrogen is photoionized (``helium="single"``; the He I edge at 24.6 eV
-is crossed by most of the ionizing photons of O stars, common practice), or
-left in its collisional state (``"none"``).
+or not photons reach it. Where photons do reach it, its recombinations are
+charged to them (case B, at the gas's temperature) even where electron
+impact alone would keep it ionized; hot gas recombines slowly (alpha_B at
+1e6 K is below 1 % of its value at 1e4 K), so this costs few photons.
+
+Helium is singly ionized where hydrogen is photoionized
+(``helium="single"``; the He I edge at 24.6 eV is crossed by most of the
+ionizing photons of O stars, common practice), or left in its collisional
+state (``"none"``).
 """
 
 import numbers
@@ -147,8 +148,11 @@ class IonizingSources(IonizationModel):
     photons of their own), no dust absorption, no diffuse field beyond the
     on-the-spot approximation. Rays are spaced at most half a cell apart up
     to 500 cells from a source (finest HEALPix level 10), and farther apart
-    beyond. Cost: one pass of rays over the ionized volume per source, and
-    a pass over the cells within each source's farthest front.
+    beyond. Cost: one pass over the grid for the recombination rates, then
+    per source three casts of its ray tree: a sparser one that finds how far
+    the photons reach, and the MEASURE and PAY passes over the ball that
+    bounds (each cell is crossed by about a dozen ray segments). Memory: four
+    float32 cubes, and per thread one float32 array over that ball.
     """
 
     local = False

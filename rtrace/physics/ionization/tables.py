@@ -20,8 +20,8 @@ import numpy as np
 from .rates import (ln_dielectronic_he2, ln_ionization_h, ln_ionization_he1, ln_ionization_he2,
                     ln_recombination_h, ln_recombination_he2, ln_recombination_he3)
 
-__all__ = ["collisional_fractions", "case_b_coefficient", "fill_demand", "collisional_table", "case_b_table", "interpolate",
-           "LN_T_MIN", "LN_T_STEP"]
+__all__ = ["collisional_fractions", "case_b_coefficient", "fill_demand", "collisional_table", "case_b_table",
+           "interpolate", "LN_T_MIN", "LN_T_STEP"]
 
 LN_T_MIN = np.log(100.0)
 _LN_T_MAX = np.log(1e10)
