@@ -26,9 +26,12 @@ distance from the source, never on the gas):
    each cell, ``sum(paid v) / W``, is its photoionized volume fraction, and
    the recombinations it implies equal the photons absorbed, to rounding.
 
-A first ``PAY`` pass with ``W`` taken as the cell volume finds how far the
-rays reach, which bounds the ``MEASURE`` pass. Photons are conserved ray by
-ray: nothing is created or lost at a split.
+A first, sparser ``PAY`` pass with ``W`` taken as the cell volume finds how
+far each ray reaches; each ray of the ``MEASURE`` pass then runs a little
+farther than that (and any ray of the second ``PAY`` pass that still has
+photons where its measurement ended makes the two passes run again,
+farther). Photons are conserved ray by ray: nothing is created or lost at a
+split.
 """
 
 import numba
@@ -36,7 +39,8 @@ import numpy as np
 
 from .healpix import pix2vec_nest
 
-__all__ = ["cast_source", "add_paid_share", "sum_threads", "box_cost", "MAX_LEVEL", "PAY", "MEASURE"]
+__all__ = ["cast_source", "limit_pyramid", "add_paid_share", "sum_threads", "box_cost", "MAX_LEVEL", "PAY",
+           "MEASURE"]
 
 #: Finest HEALPix level of the ray tree: 12 * 4^10 = 12.6 million rays, spaced
 #: 1e-3 rad apart (0.5 cell at 500 cells from the source).
@@ -173,7 +177,7 @@ def _march(demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_c
 
 @numba.njit(cache=True, parallel=True)
 def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, root_level, max_level,
-                split_area, inside, order, r_stop, mode, stats):
+                split_area, inside, order, limits, use_limits, mode, ends, stats):
     """Cast the ray tree of one source (one pass, see the module notes).
 
     Parameters
@@ -200,15 +204,20 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
         The source lies inside the grid.
     order : ndarray int64
         A permutation of the root pixels (balances the threads' work).
-    r_stop : float
-        Rays stop at this distance from the source [cm] (inf: never).
+    limits : ndarray float32
+        With ``use_limits``, the distance [cm] at which each ray stops, for every
+        pixel of every level: level ``l`` from index ``12 (4^l - 1) / 3`` (see
+        :func:`limit_pyramid`); otherwise rays never stop short.
     mode : int
         ``PAY`` or ``MEASURE``.
-    stats : ndarray (n_roots, 5) float64
+    ends : ndarray (12 4^max_level,) float32
+        Output: where each finest-level pixel's ray ended [cm]: at its front;
+        inf if it left the grid with photons; NaN if it reached its limit with
+        photons left (``PAY``); 0 if it never reached the grid.
+    stats : ndarray (n_roots, 4) float64
         Output per root, in units of the source's rate: photons absorbed,
         escaped through the grid boundary, never reaching the grid (outside
-        sources), left at ``r_stop``; and the farthest front [cm] (inf if
-        any ray left the grid).
+        sources), left at the limits.
     """
     n_roots = order.size
     lo_corner = origin
@@ -231,7 +240,6 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
         stack_photons[0] = 1.0 / (12.0 * 4.0 ** root_level)
         top = 1
         d = np.empty(3)
-        farthest = 0.0
         while top > 0:
             top -= 1
             level = stack_level[top]
@@ -241,6 +249,9 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
             nside = np.int64(1) << level
             domega = 4.0 * np.pi / (12.0 * nside * nside)
             d[0], d[1], d[2] = pix2vec_nest(nside, pix)
+            r_stop = np.inf
+            if use_limits:
+                r_stop = np.float64(limits[4 * (nside * nside - 1) + pix])    # 12 (4^l - 1) / 3 + pix
             absorbed = 0.0
             r_end = r
             if not inside and r == 0.0:
@@ -269,18 +280,41 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
                     stack_r[top] = r_end
                     stack_photons[top] = 0.25 * photons
                     top += 1
-            elif status == _FRONT:
-                farthest = max(farthest, r_end)
-            elif status == _ESCAPE:
+                continue
+            end = r_end
+            if status == _ESCAPE:
                 stats[n, 1] += photons
-                if photons > 0.0:
-                    farthest = np.inf
+                end = np.inf if photons > 0.0 else r_end
             elif status == _MISS:
                 stats[n, 2] += photons
-            else:
+                end = 0.0
+            elif status == _REACHED:
                 stats[n, 3] += photons
-                farthest = max(farthest, r_end)
-        stats[n, 4] = farthest
+                end = np.nan if (photons > 0.0 and mode == PAY) else r_end
+            span = np.int64(1) << (2 * (max_level - level))
+            for q in range(pix * span, (pix + 1) * span):
+                ends[q] = end
+
+
+def limit_pyramid(finest, max_level):
+    """Every level's stop distances from the finest level's: a ray stops where its farthest descendant does.
+
+    Returns a flat float32 array, level ``l`` at index ``12 (4^l - 1) / 3``.
+    """
+    out = np.empty(4 * (4 ** (max_level + 1) - 1), np.float32)
+    _fill_pyramid(np.asarray(finest, np.float32), max_level, out)
+    return out
+
+
+@numba.njit(cache=True)
+def _fill_pyramid(finest, max_level, out):
+    top = 4 * (4 ** max_level - 1)
+    out[top:top + finest.size] = finest
+    for level in range(max_level - 1, -1, -1):
+        start, child = 4 * (4 ** level - 1), 4 * (4 ** (level + 1) - 1)
+        for p in range(12 * 4 ** level):
+            c = child + 4 * p
+            out[start + p] = max(out[c], out[c + 1], out[c + 2], out[c + 3])
 
 
 @numba.njit(cache=True, parallel=True)

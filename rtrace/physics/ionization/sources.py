@@ -52,7 +52,7 @@ from .base import IonizationModel
 from .cells import piece_pressure, temperature_from_pressure
 from .composition import M_H, M_HE, Composition, check_choice
 from .grid import box_slices, slabs
-from .raycast import MAX_LEVEL, MEASURE, PAY, add_paid_share, box_cost, cast_source, sum_threads
+from .raycast import MAX_LEVEL, MEASURE, PAY, add_paid_share, box_cost, cast_source, limit_pyramid, sum_threads
 from .tables import case_b_table, collisional_fractions, fill_demand
 
 __all__ = ["IonizingSources", "Photoionization"]
@@ -270,38 +270,47 @@ class IonizingSources(IonizationModel):
         return level, min(_ROOT_LEVEL, level), split_area, far, spacing
 
     def _cast_one(self, S, rate, inside, demand, paid, shape, cell, origin, order_rng):
-        """Both passes of one source; updates ``paid`` and returns its photon budget (s^-1)."""
+        """The passes of one source; updates ``paid`` and returns its photon budget (s^-1)."""
         max_level, root_level, split_area, far, spacing = self._levels(S, shape, cell, origin)
         n_roots = 12 * 4 ** root_level
         order = order_rng.permutation(n_roots).astype(np.int64)
         scale = float(np.prod(cell)) / rate
         no_box = np.zeros((0, 0, 0), np.float32)
         no_acc = np.zeros((1, 0, 0, 0), np.float32)
+        no_limits = np.zeros(0, np.float32)
         zero = np.zeros(3, np.int64)
-        # pass 1: how far the rays reach, with rays twice as far apart (an estimate: the cell volume
-        # stands in for the sampled volume W)
-        stats = np.zeros((n_roots, 5))
-        cast_source(demand, paid, no_box, False, scale, no_acc, zero, origin, cell, S, root_level,
-                    max(max_level - 1, root_level), 4.0 * split_area, inside, order, np.inf, PAY, stats)
-        reach = float(stats[:, 4].max())
-        r_stop = far if not np.isfinite(reach) else min(far, 1.3 * reach + 3.0 * float(np.max(cell)))
+        margin = 4.0 * float(np.max(cell))
+        # pass 1: how far each ray reaches (an estimate: the cell volume stands in for the sampled volume W)
+        ends = np.empty(12 * 4 ** max_level, np.float32)
+        cast_source(demand, paid, no_box, False, scale, no_acc, zero, origin, cell, S, root_level, max_level,
+                    split_area, inside, order, no_limits, False, PAY, ends, np.zeros((n_roots, 4)))
+        limit = np.where(np.isfinite(ends), np.minimum(far, 1.5 * ends + margin), far).astype(np.float32)
         threads = numba.get_num_threads()
         while True:
-            lo = np.clip(np.floor((S - r_stop - origin) / cell).astype(np.int64), 0, shape)
-            hi = np.clip(np.ceil((S + r_stop - origin) / cell).astype(np.int64) + 1, 0, shape)
+            r_box = float(limit.max())
+            lo = np.clip(np.floor((S - r_box - origin) / cell).astype(np.int64), 0, shape)
+            hi = np.clip(np.ceil((S + r_box - origin) / cell).astype(np.int64) + 1, 0, shape)
             box = tuple(int(v) for v in hi - lo)
             acc = np.zeros((threads,) + box, np.float32)
             weight = np.empty(box, np.float32)
             cost = np.empty(box, np.float32)
+            limits = limit_pyramid(limit, max_level)
             cast_source(demand, paid, no_box, False, scale, acc, lo, origin, cell, S, root_level, max_level,
-                        split_area, inside, order, r_stop, MEASURE, np.zeros((n_roots, 5)))
+                        split_area, inside, order, limits, True, MEASURE, ends, np.zeros((n_roots, 4)))
             sum_threads(acc, weight)
             box_cost(demand, paid, weight, lo, cost)
-            stats = np.zeros((n_roots, 5))
+            stats = np.zeros((n_roots, 4))
             cast_source(demand, paid, cost, True, scale, acc, lo, origin, cell, S, root_level, max_level,
-                        split_area, inside, order, r_stop, PAY, stats)
-            if stats[:, 3].sum() > 0.0 and r_stop < far:
-                r_stop = min(far, 2.0 * r_stop)      # some rays still had photons: measure farther
+                        split_area, inside, order, limits, True, PAY, ends, stats)
+            short = np.isnan(ends)
+            if np.any(short):
+                # Rays that still had photons where their measurement ended: measure them, and their
+                # neighbours (the 64 finest rays of the same pixel three levels up, which the extended rays'
+                # share of W would otherwise push out next), to the end of the grid.
+                block = min(64, short.size)
+                near = np.repeat(short.reshape(-1, block).any(axis=1), block)
+                limit[near] = far
+                acc = None
                 continue
             paid_volume = cost          # reused: the cost is no longer needed
             sum_threads(acc, paid_volume)
