@@ -60,7 +60,9 @@ def cloud(n, seed=SEED):
     k = np.fft.fftfreq(n).astype(np.float32)
     kz = np.fft.rfftfreq(n).astype(np.float32)
     # Gaussian of SMOOTH_CELLS cells: exp(-2 pi^2 s^2 k^2), applied axis by axis (separable, no k^2 cube)
-    damp = lambda kk: np.exp(-2.0 * np.pi**2 * SMOOTH_CELLS**2 * kk**2)
+    def damp(kk):
+        return np.exp(-2.0 * np.pi**2 * SMOOTH_CELLS**2 * kk**2)
+
     spec *= damp(k)[:, None, None]
     spec *= damp(k)[None, :, None]
     spec *= damp(kz)[None, None, :]
@@ -181,8 +183,9 @@ def main():
                          cell_size=cell3, origin=origin)
     density_q = u.Quantity(rho, u.g / u.cm**3, copy=False)
     temp_q = u.Quantity(temp, u.K, copy=False)
-    build = lambda ionization: rtrace.Snapshot.from_arrays(temperature=temp_q, cell_size=cell_cm * u.cm,
-                                                           density=density_q, ionization=ionization)
+    def build(ionization):
+        return rtrace.Snapshot.from_arrays(temperature=temp_q, cell_size=cell_cm * u.cm, density=density_q,
+                                           ionization=ionization)
 
     side = n * cell_cm * u.cm
     tilt = np.radians(30.0)
