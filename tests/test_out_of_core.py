@@ -61,6 +61,7 @@ INPUTS = [dict(electron_density="gas/ne"),
 
 
 @pytest.mark.parametrize("kwargs", INPUTS)
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # Saha on thin gas: a reader test
 def test_lazy_snapshot_holds_what_read_hdf5_reads(h5file, kwargs):
     # Reference: read_hdf5 of the same file (its units and attributes, tests/test_hdf5.py).
     eager = read_hdf5(h5file, temperature="gas/T", **kwargs)
@@ -216,6 +217,7 @@ def test_a_file_changed_after_open_is_caught(tmp_path):
         rtrace.trace(snap, view, NU, brick_size=5)
 
 
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # Saha on thin gas: a reader test
 def test_source_is_small_to_ship(h5file):
     # Common practice: what a dask task receives for a file-backed snapshot: path, names, units, model; no arrays.
     snap = open_hdf5(h5file, temperature="gas/T", density="rho", ionization="saha")
