@@ -11,8 +11,11 @@ being worked on in memory, and :func:`make` writes outputs and records
 them in the manifest.
 """
 
+import hashlib
+import hmac
 import os
 import pickle
+import secrets
 import shutil
 from dataclasses import dataclass
 from pathlib import Path
@@ -128,20 +131,68 @@ def make(todo, res, sky, manifest, written):
 
 # --- what is kept between steps ------------------------------------------------------------------
 
+def cache_key():
+    """The secret that signs this user's series-cache files (32 random bytes, made on first use).
+
+    It lives outside any output folder: ``$RTRACE_KEY_DIR``, else ``$XDG_CACHE_HOME/rtrace``, else
+    ``~/.cache/rtrace``, readable by the user alone. Where that cannot be written, a key for this
+    process only is used (a resumed run then retraces instead of reading the cache).
+    """
+    folder = Path(os.environ.get("RTRACE_KEY_DIR")
+                  or Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "rtrace")
+    path = folder / "series-cache.key"
+    try:
+        key = path.read_bytes()
+        if len(key) == _KEY_BYTES:
+            return key
+    except OSError:
+        pass
+    key = secrets.token_bytes(_KEY_BYTES)
+    try:
+        folder.mkdir(parents=True, exist_ok=True, mode=0o700)
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(key)
+        return key
+    except FileExistsError:
+        return cache_key() if path.stat().st_size == _KEY_BYTES else _process_key()
+    except OSError:
+        return _process_key()
+
+
+def _process_key():
+    global _PROCESS_KEY
+    if _PROCESS_KEY is None:
+        _PROCESS_KEY = secrets.token_bytes(_KEY_BYTES)
+    return _PROCESS_KEY
+
+
+_KEY_BYTES = 32
+_PROCESS_KEY = None
+#: First bytes of a signed cache file; the HMAC-SHA256 of the payload follows.
+_MAGIC = b"rtrace-cache-1\n"
+
+
 class Cache:
     """Traced results of a series, kept on disk between tracing and drawing.
 
     Memory holds one view's result at a time however long the series; the
     files are keyed by the inputs, so a resumed run reuses what an
-    interrupted one traced, and stale files are never read. Like any pickle,
-    the cache is only to be read by the runs that wrote it.
+    interrupted one traced, and stale files are never read. Each file is
+    signed (HMAC-SHA256) with the user's key (:func:`cache_key`), kept
+    outside the output folder: a file that was damaged, or written by anyone
+    without that key, is never unpickled; the view is traced again.
     """
 
     def __init__(self, folder):
         self.folder = Path(folder)
+        self.key = cache_key()
 
     def _file(self, unit):
         return self.folder / unit.member["label"] / f"{unit.name}-{unit.data_key[:20]}.pickle"
+
+    def _signature(self, payload):
+        return hmac.new(self.key, payload, hashlib.sha256).digest()
 
     def put(self, unit, value):
         path = self._file(unit)
@@ -151,13 +202,23 @@ class Cache:
             return                          # not cacheable: the pictures retrace this view instead
         path.parent.mkdir(parents=True, exist_ok=True)
         with atomic_path(path) as tmp:
-            tmp.write_bytes(payload)
+            tmp.write_bytes(_MAGIC + self._signature(payload) + payload)
 
     def get(self, unit):
-        path = self._file(unit)
+        """The cached value, or None when there is none or its signature does not verify."""
         try:
-            return pickle.loads(path.read_bytes())
-        except (OSError, pickle.UnpicklingError, EOFError, AttributeError, ImportError):
+            data = self._file(unit).read_bytes()
+        except OSError:
+            return None
+        head = len(_MAGIC) + hashlib.sha256().digest_size
+        if not data.startswith(_MAGIC) or len(data) < head:
+            return None
+        payload = data[head:]
+        if not hmac.compare_digest(data[len(_MAGIC):head], self._signature(payload)):
+            return None                     # damaged, or not written with this user's key: never unpickled
+        try:
+            return pickle.loads(payload)    # signed by this user's own runs (see the class notes)
+        except (pickle.UnpicklingError, EOFError, AttributeError, ImportError):
             return None
 
     def clear(self):

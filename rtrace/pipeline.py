@@ -22,9 +22,10 @@ label. The pictures of a series are drawn after every snapshot is traced,
 with one colour scale per view and quantity for the whole series; traced
 results wait for that in a hidden cache folder in the output directory
 (``.rtrace-cache``, pickled results keyed by their inputs), removed when the
-run completes and reused by the next run when it is interrupted. Like any
-pickle, the cache is only to be read by the runs that wrote it: do not copy
-it in from elsewhere.
+run completes and reused by the next run when it is interrupted. Each file
+is signed with a key of the user's kept outside the output folder
+(:func:`rtrace.batch.cache_key`): one damaged or written by anyone else is
+ignored, never unpickled, and the view is traced again.
 """
 
 from .batch import CACHE_NAME, Cache, Snapshots, make, plan_units, split

@@ -1,10 +1,16 @@
 """Shared helpers for the test suite (small grids: the whole suite runs in minutes)."""
 
+import os
+import tempfile
+
 import astropy.units as u
 import numpy as np
 import pytest
 
 import rtrace
+
+# The series cache's signing key goes to a folder of the test run's own, not the user's home.
+os.environ.setdefault("RTRACE_KEY_DIR", tempfile.mkdtemp(prefix="rtrace-key-"))
 
 
 def uniform_snapshot(shape, temperature, ne, cell_pc=0.01, dtype=np.float64, origin=None):

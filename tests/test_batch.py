@@ -500,3 +500,28 @@ def test_local_cluster_gives_the_serial_images(tmp_path):
     parallel = run_job(par)
     assert len(parallel) == len(serial)
     _same_images(serial, parallel)
+
+
+def test_series_cache_reads_only_files_signed_with_the_users_key(tmp_path, monkeypatch):
+    # Common practice for caches in shared folders: never unpickle what this user's runs did not write
+    # (HMAC-SHA256, RFC 2104, with a key kept outside the output folder).
+    import pickle
+    from types import SimpleNamespace
+
+    from rtrace.batch import Cache
+    monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "key"))
+    unit = SimpleNamespace(member={"label": "seed1"}, name="face", data_key="0" * 64)
+    cache = Cache(tmp_path / "out" / ".rtrace-cache")
+    value = {"intensity": np.arange(5.0)}
+    cache.put(unit, value)
+    assert np.array_equal(Cache(cache.folder).get(unit)["intensity"], value["intensity"])   # a resumed run
+    path = cache._file(unit)
+    signed = path.read_bytes()
+    path.write_bytes(signed[:-1] + bytes([signed[-1] ^ 1]))                                # damaged
+    assert cache.get(unit) is None
+    path.write_bytes(pickle.dumps(value))                                                   # unsigned
+    assert cache.get(unit) is None
+    monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "someone-else"))
+    path.write_bytes(signed)
+    assert Cache(cache.folder).get(unit) is None                                            # another key
+    assert oct((tmp_path / "key" / "series-cache.key").stat().st_mode & 0o777) == "0o600"

@@ -22,6 +22,7 @@ from rtrace.errors import InputError
 from rtrace.io import lazy, read_hdf5
 from rtrace.io.lazy import open_hdf5
 from rtrace.physics.ionization import CollisionalEquilibrium, Composition, IonizingSources, SuppliedFraction
+from scenes import M_H, warm_sphere_in_cool_gas
 
 SHAPE = (20, 19, 21)
 CELL_PC = 0.4
@@ -31,25 +32,10 @@ ORIGIN_PC = np.array([-1.0, 2.0, 0.5])
 STAR_PC = np.array([2.5, 2.7, 2.3])
 RATE = 1e47
 NU = [1.0, 10.0] * u.GHz
-K_B = 1.380649e-16             # erg/K (CODATA 2018, exact)
-M_H = 1.6737e-24               # g, mass of a hydrogen atom (common practice, rounded)
 
 
 def _gas(seed=5):
-    """Cool gas (n_H ~ 20 cm^-3, ~100 K) around a hot sphere (1.5e4 .. 1e6 K, thinner), cgs float64 arrays."""
-    rng = np.random.default_rng(seed)
-    idx = np.indices(SHAPE).astype(float)
-    centre = np.array([5.8, 5.6, 5.4]) / CELL_PC - 0.5
-    r = np.sqrt(sum((idx[i] - centre[i]) ** 2 for i in range(3))) * CELL_PC
-    hot = r < 1.6
-    n_h = 20.0 * rng.lognormal(0.0, 0.1, SHAPE)
-    pressure = 22.0 * K_B * 100.0 * rng.lognormal(0.0, 0.05, SHAPE)
-    temperature = np.where(hot, 1.5e4 * (1e6 / 1.5e4) ** (1.0 - r / 1.6), pressure / (1.1 * n_h * K_B))
-    rho = np.where(hot, pressure / (K_B * temperature) * 0.6 * M_H, n_h * M_H / 0.7)
-    return {"rho": rho, "T": temperature, "P": pressure,
-            "e": pressure / ((5.0 / 3.0 - 1.0) * rho),
-            "x": rng.uniform(0.0, 1.0, SHAPE), "he2": rng.uniform(0.0, 0.6, SHAPE),
-            "he3": rng.uniform(0.0, 0.4, SHAPE)}
+    return warm_sphere_in_cool_gas(SHAPE, CELL_PC, (5.8, 5.6, 5.4), seed, gamma=5.0 / 3.0, he2_max=0.6, he3_max=0.4)
 
 
 def _write(path, gas):

@@ -26,6 +26,7 @@ from rtrace.job import load_job, parse_job
 from rtrace.job_snapshot import build_snapshot, ionization_model
 from rtrace.physics.ionization import (CollisionalEquilibrium, FullyIonized, IonizingSources,
                                        SuppliedFraction)
+from scenes import warm_sphere_in_cool_gas
 
 SHAPE = (18, 20, 19)
 CELL_PC = 0.4
@@ -39,17 +40,8 @@ RATE = 1e47                                             # s^-1: a Stromgren radi
 
 
 def _gas(seed=9):
-    rng = np.random.default_rng(seed)
-    idx = np.indices(SHAPE).astype(float)
-    centre = np.array([5.0, 5.6, 5.2]) / CELL_PC - 0.5
-    r = np.sqrt(sum((idx[i] - centre[i]) ** 2 for i in range(3))) * CELL_PC
-    warm = r < 1.6
-    n_h = 20.0 * rng.lognormal(0.0, 0.1, SHAPE)
-    pressure = 22.0 * K_B * 100.0 * rng.lognormal(0.0, 0.05, SHAPE)
-    temperature = np.where(warm, 1.5e4 * (1e6 / 1.5e4) ** (1.0 - r / 1.6), pressure / (1.1 * n_h * K_B))
-    rho = np.where(warm, pressure / (K_B * temperature) * 0.6 * M_H, n_h * M_H / X)
-    return {"rho": rho, "P": pressure, "T": temperature, "e": pressure / (0.4 * rho), "warm": warm,
-            "x": rng.uniform(0, 1, SHAPE), "he2": rng.uniform(0, 0.5, SHAPE), "he3": rng.uniform(0, 0.5, SHAPE)}
+    return warm_sphere_in_cool_gas(SHAPE, CELL_PC, (5.0, 5.6, 5.2), seed, gamma=1.4, he2_max=0.5, he3_max=0.5,
+                                   hydrogen_fraction=X)
 
 
 @pytest.fixture(scope="module")

@@ -58,7 +58,8 @@ from .tables import case_b_table, collisional_fractions, fill_demand
 __all__ = ["IonizingSources", "Photoionization"]
 
 _HELIUM = ("single", "none")
-#: Below this electron temperature photoionized gas is implausible (a run without photoheating).
+#: Below this electron temperature photoionized gas is implausible (a run without photoheating): H II
+#: regions settle near 1e4 K, rarely below ~6000 K even at high metallicity (common practice).
 _COLD_PHOTOIONIZED = 5000.0
 #: HEALPix level of the first rays (768 of them: enough to keep both cores busy).
 _ROOT_LEVEL = 3
@@ -250,10 +251,9 @@ class IonizingSources(IonizationModel):
             t_floor = 0.0 if self.ionized_temperature is None else self.ionized_temperature
             per_mass_h = comp.hydrogen / M_H
             per_mass_e = per_mass_h + (comp.helium / M_HE if self.helium == "single" else 0.0)
-            out = np.empty(rho.shape, np.float32)
+            out = demand[box_slices(lo, hi)]        # whole planes of a C-ordered cube: a contiguous view
             fill_demand(np.ascontiguousarray(T, np.float64).reshape(-1), np.ascontiguousarray(rho).reshape(-1),
                         t_floor, per_mass_h, per_mass_e, case_b_table(), out.reshape(-1))
-            demand[box_slices(lo, hi)] = out
             cold.append(np.maximum(T, t_floor) < _COLD_PHOTOIONIZED)
         return np.concatenate(cold, axis=0)
 
