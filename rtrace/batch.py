@@ -109,11 +109,14 @@ def plan_units(job, views, directory):
 
 
 def split(plan, manifest, skipped):
-    """``(todo, done)``: the outputs of ``plan`` to make, and the paths found finished (added to ``skipped``)."""
+    """``(todo, done)``: the outputs of ``plan`` to make, and the paths found finished (added to ``skipped``).
+
+    An output that writes several files (a cube one file per plane) is finished only when every one is.
+    """
     todo, done = [], []
     for o in plan:
-        if manifest.is_current(o.path, o.inputs):
-            done.append(str(o.path))
+        if all(manifest.is_current(f, o.inputs) for f in o.files):
+            done.extend(str(f) for f in o.files)
         else:
             todo.append(o)
     skipped.extend(done)
@@ -121,12 +124,13 @@ def split(plan, manifest, skipped):
 
 
 def make(todo, res, sky, manifest, written):
-    """Write each output of ``todo`` from one traced view, recording it in the manifest."""
+    """Write each output of ``todo`` from one traced view, recording each of its files in the manifest."""
     for output in todo:
         output.path.parent.mkdir(parents=True, exist_ok=True)
         output.make(output.path, res, sky)
-        manifest.record(output.path, output.inputs)
-        written.append(str(output.path))
+        for f in output.files:
+            manifest.record(f, output.inputs)
+            written.append(str(f))
 
 
 # --- what is kept between steps ------------------------------------------------------------------

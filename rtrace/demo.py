@@ -22,7 +22,8 @@ from .snapshot import Snapshot
 
 __all__ = ["scenario", "main", "DEMO_FREQUENCIES"]
 
-DEMO_FREQUENCIES = [0.3, 1, 3, 10, 30, 100] * u.GHz
+# geometric, like the demo job's: cubes of these planes get a FREQ-LOG axis
+DEMO_FREQUENCIES = 0.3 * u.GHz * (100 / 0.3) ** (np.arange(6) / 5)
 _M_H = (const.m_p + const.m_e).cgs.value   # g, mass of a hydrogen atom (binding energy neglected)
 
 

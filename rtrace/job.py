@@ -47,7 +47,7 @@ SCHEMA = {
              "reference_frequency": "frequency"},
     "noise": {"rms": ("flux_per_beam", "flux_per_beam_list"), "seed": int},
     "output": {"directory": str, "fits": bool, "pictures": bool, "sed": bool, "quantities": list,
-               "picture_format": str, "prefix": str},
+               "picture_format": str, "prefix": str, "spectral_axis": str},
     "parallel": {"scheduler": str, "workers": int, "max_memory": "memory_size"},
 }
 _TOP = set(SCHEMA) - {"source"}          # [[ionization.sources]] entries, not a table of their own
@@ -187,8 +187,26 @@ def _frequencies(spec):
         spacing = spec.get("spacing", "log")
         if spacing not in ("log", "linear"):
             raise ConfigError(f"[frequencies].spacing: '{spacing}' is not 'log' or 'linear'")
-        make = np.geomspace if spacing == "log" else np.linspace
-        nu = make(spec["start"].to_value(u.Hz), spec["stop"].to_value(u.Hz), spec["num"]) * u.Hz
+        num = spec["num"]
+        start, stop = spec["start"].to_value(u.Hz), spec["stop"].to_value(u.Hz)
+        if num < 1:
+            raise ConfigError(f"[frequencies].num: expected at least 1 frequency, got {num}")
+        if num == 1 and start != stop:
+            raise ConfigError("[frequencies].num: one frequency between different 'start' and 'stop'; give "
+                              "start = stop, or values = [...]")
+        # built exactly as the FITS axis describes them, so cubes get a FREQ or FREQ-LOG axis:
+        # even steps, or nu_k = start exp(k ln(stop/start) / (num - 1)) (the -LOG axis of
+        # Greisen et al. 2006, A&A 446, 747, with CRVAL = start)
+        k = np.arange(num, dtype=float)
+        if num == 1:
+            nu = np.array([start])
+        elif spacing == "log":
+            if start <= 0 or stop <= 0:
+                raise ConfigError("[frequencies]: frequencies must be positive")
+            nu = start * np.exp(k * (np.log(stop) - np.log(start)) / (num - 1))
+        else:
+            nu = start + k * ((stop - start) / (num - 1))
+        nu = nu * u.Hz
     if np.any(nu <= 0):
         raise ConfigError("[frequencies]: frequencies must be positive")
     return nu.to(u.Hz)
@@ -525,6 +543,10 @@ def parse_job(raw, base_dir="."):
     for q in out.get("quantities", []):
         if q not in _QUANTITIES:
             raise ConfigError(f"[output].quantities: unknown '{q}'{_suggest(q, _QUANTITIES)}")
+    out.setdefault("spectral_axis", "auto")
+    if out["spectral_axis"] not in ("auto", "tabular"):
+        raise ConfigError(f"[output].spectral_axis: '{out['spectral_axis']}' is not 'auto' (FREQ or FREQ-LOG "
+                          "cubes, one file per frequency for other lists) or 'tabular' (one FREQ-TAB cube)")
     out.setdefault("directory", "rtrace-output")
     out["directory"] = (base_dir / out["directory"]).resolve()
     par = _parallel(_section(raw, "parallel"))

@@ -107,7 +107,8 @@ def run(job, progress=None, restart=False):
             todo, done = split(plan, manifest, skipped)
             need_ranges = later and manifest.get_ranges(unit.label, unit.data_key) is None
             if done:
-                say(step, total, f"{unit.where}: {len(done)} of {len(plan)} outputs up to date, skipped")
+                say(step, total, f"{unit.where}: {len(done)} of {sum(len(o.files) for o in plan)} outputs up "
+                                 f"to date, skipped")
             if not todo and not need_ranges:
                 continue
             snap = snapshots.get(unit.member, step, total)

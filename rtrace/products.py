@@ -27,16 +27,26 @@ PICTURES = (("intensity", True), ("tau", False), ("brightness_temperature", Fals
 class Output:
     path: Path
     inputs: str
-    make: object                      # make(path, res, sky) writes the file
+    make: object                      # make(path, res, sky) writes the file(s)
+    files: list = None                # every file make writes (a cube one file per plane); default [path]
+
+    def __post_init__(self):
+        self.files = [Path(f) for f in (self.files or [self.path])]
 
 
-def _write_quantity(path, res, sky, quantity):
+def _write_quantity(path, res, sky, quantity, spectral_axis="auto"):
     from .io.fits import write_result
-    write_result(res, path, quantity=quantity)
+    write_result(res, path, quantity=quantity, spectral_axis=spectral_axis)
 
 
-def _write_sky(path, res, sky):
-    sky.write_fits(path)
+def _write_sky(path, res, sky, spectral_axis="auto"):
+    sky.write_fits(path, spectral_axis=spectral_axis)
+
+
+def _cube_files(job, path, frequencies=True):
+    """The files a cube output writes: one, or one per plane for an irregular frequency list."""
+    from .io.fits import output_paths
+    return output_paths(path, job.frequencies if frequencies else None, job.output.get("spectral_axis", "auto"))
 
 
 def _write_sed(path, res, sky, name):
@@ -87,12 +97,16 @@ def data_outputs(job, unit, quantities, fmt):
     out, obs = job.output, observing_settings(job)
     cubes, spectra = [], []
     if out.get("fits", True):
+        axis = out.get("spectral_axis", "auto")
         for q in quantities:
-            cubes.append(Output(_stem(job, unit, f"{q}.fits"), output_key(unit.base, f"fits:{q}"),
-                                partial(_write_quantity, quantity=q)))
+            path = _stem(job, unit, f"{q}.fits")
+            cubes.append(Output(path, output_key(unit.base, f"fits:{q}"),
+                                partial(_write_quantity, quantity=q, spectral_axis=axis),
+                                _cube_files(job, path, q != "emission_measure")))
         if job.beam:
-            cubes.append(Output(_stem(job, unit, "jy_per_beam.fits"),
-                                output_key(unit.base, "fits:jy_per_beam", obs), _write_sky))
+            path = _stem(job, unit, "jy_per_beam.fits")
+            cubes.append(Output(path, output_key(unit.base, "fits:jy_per_beam", obs),
+                                partial(_write_sky, spectral_axis=axis), _cube_files(job, path)))
     if out.get("sed", True):
         spectra.append(Output(_stem(job, unit, "sed.csv"), output_key(unit.base, "sed:csv", obs),
                               partial(_write_sed, name=unit.name)))

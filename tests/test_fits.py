@@ -4,7 +4,7 @@ References: Pence et al. 2010, A&A 524, A42 (FITS 3.0: keywords, BUNIT
 syntax, string cards); Greisen & Calabretta 2002, A&A 395, 1061 (WCS
 paper I: CRPIX/CDELT/CTYPE/CUNIT, pixel centres at integers); Calabretta &
 Greisen 2002, A&A 395, 1077 (paper II: RA---SIN/DEC--SIN, RADESYS);
-Greisen et al. 2006, A&A 446, 747 (paper III: FREQ, SPECSYS, -TAB).
+Greisen et al. 2006, A&A 446, 747 (paper III: FREQ, FREQ-LOG, SPECSYS, -TAB).
 Section and table numbers below are cited from memory.
 """
 
@@ -44,9 +44,9 @@ def res(snap):
 
 @pytest.fixture(scope="module")
 def res_offset(snap):
-    """Non-square image at a real sky position, non-uniform frequencies."""
+    """Non-square image at a real sky position, geometric frequencies (a FREQ-LOG axis)."""
     view = rtrace.View(npix=(30, 32), distance=2 * u.kpc, sky_position=OFF_CENTRE)
-    return rtrace.trace(snap, view, [1, 3, 10] * u.GHz)
+    return rtrace.trace(snap, view, [1, 3, 9] * u.GHz)
 
 
 def read(path):
@@ -168,19 +168,65 @@ def test_uniform_linspace_frequencies_are_linear(tmp_path):
                        rtol=1e-14, atol=0)
 
 
-def test_nonuniform_frequency_axis_is_tabulated(res_offset, tmp_path):
-    header, _, wcs, extra = read(write_result(res_offset, tmp_path / "n.fits"))
+def test_geometric_frequency_axis_is_logarithmic(res_offset, tmp_path):
+    header, _, wcs, extra = read(write_result(res_offset, tmp_path / "g.fits"))
+    # Logarithmic axis (Greisen et al. 2006, A&A 446, 747, -LOG algorithm, from memory):
+    # nu = CRVAL3 exp(CDELT3 (p - CRPIX3) / CRVAL3), so CDELT3 = nu_1 ln 3 for planes 1, 3, 9 GHz.
+    assert header["CTYPE3"] == "FREQ-LOG" and not extra
+    assert header["CRVAL3"] == 1e9 and header["CDELT3"] == pytest.approx(1e9 * np.log(3), rel=1e-15)
+    p = np.arange(3) + 1.0
+    by_formula = header["CRVAL3"] * np.exp(header["CDELT3"] * (p - header["CRPIX3"]) / header["CRVAL3"])
+    assert np.allclose(by_formula, [1e9, 3e9, 9e9], rtol=1e-14, atol=0)
+    # astropy's WCS (wcslib) evaluates the same axis from the header alone.
+    assert np.allclose(WCS(header).spectral.pixel_to_world_values(np.arange(3)), [1e9, 3e9, 9e9],
+                       rtol=1e-14, atol=0)
+    assert np.allclose(wcs.spectral.pixel_to_world_values(np.arange(3)), [1e9, 3e9, 9e9], rtol=1e-14, atol=0)
+
+
+def test_irregular_frequencies_one_file_per_plane(tmp_path):
+    nu = [1, 3, 10] * u.GHz
+    cube = np.arange(3 * 4 * 5, dtype=float).reshape(3, 4, 5) * u.K
+    paths = write_cube(tmp_path / "n.fits", cube, nu, 1 * u.arcsec, OFF_CENTRE)
+    assert [p.name for p in paths] == ["n_01_1GHz.fits", "n_02_3GHz.fits", "n_03_10GHz.fits"]
+    assert sorted(os.listdir(tmp_path)) == [p.name for p in paths]       # nothing else, names sort as planes
+    for k, path in enumerate(paths):
+        header, data, wcs, extra = read(path)
+        assert header["CTYPE3"] == "FREQ" and header["NAXIS3"] == 1 and not extra
+        assert (header["RTPLANE"], header["RTNPLANE"]) == (k + 1, 3)
+        assert WCS(header).spectral.pixel_to_world_values(0) == pytest.approx(nu[k].to_value(u.Hz), rel=1e-15)
+        assert np.array_equal(data[0], cube.value[k])
+
+
+def test_plane_names_are_distinct_and_sorted(tmp_path):
+    from rtrace.io.fits import plane_paths
+    nu = [1.00001, 1.00002, 0.3, 100, 31.62277, 1.2e5] * u.GHz
+    names = [p.name for p in plane_paths(tmp_path / "c.fits", nu)]
+    assert names == ["c_01_1.00001GHz.fits", "c_02_1.00002GHz.fits", "c_03_0.3GHz.fits", "c_04_100GHz.fits",
+                     "c_05_31.62GHz.fits", "c_06_120000GHz.fits"]
+    many = plane_paths(tmp_path / "c.fits", np.arange(1, 121) * u.GHz)
+    assert many[0].name == "c_001_1GHz.fits" and sorted(many) == many
+
+
+def test_irregular_frequencies_tabulated_on_request(tmp_path):
+    nu = [1, 3, 10] * u.GHz
+    path = write_cube(tmp_path / "n.fits", np.ones((3, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE,
+                      spectral_axis="tabular")
+    header, _, wcs, extra = read(path)
     # Tabular axis (Greisen et al. 2006, sec. 6, from memory).
     assert header["CTYPE3"] == "FREQ-TAB" and header["PS3_0"] in extra
     world = wcs.spectral.pixel_to_world_values(np.arange(3))
-    assert np.array_equal(world, res_offset.frequencies.to_value(u.Hz))
+    assert np.array_equal(world, nu.to_value(u.Hz))
     # Without the table astropy refuses rather than inventing frequencies.
     with pytest.raises(ValueError):
         WCS(header)
     # The table lists every frequency, in Hz.
     table = extra[header["PS3_0"]]
     assert u.Unit(table.columns[header["PS3_1"]].unit) == u.Hz
-    assert np.array_equal(np.ravel(table.data[header["PS3_1"]]), res_offset.frequencies.to_value(u.Hz))
+    assert np.array_equal(np.ravel(table.data[header["PS3_1"]]), nu.to_value(u.Hz))
+    with pytest.raises(InputError, match="spectral_axis: expected one of 'auto', 'tabular', got 'table'"):
+        write_cube(tmp_path / "m.fits", np.ones((3, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE,
+                   spectral_axis="table")
+    assert not (tmp_path / "m.fits").exists()
 
 
 def test_single_frequency_and_2d_maps(res, tmp_path):
@@ -197,13 +243,13 @@ def test_single_frequency_and_2d_maps(res, tmp_path):
     assert np.allclose(data, res.emission_measure.to_value(u.pc / u.cm**6), rtol=1e-6, atol=0)
 
 
-@pytest.mark.parametrize("nu", [[1, 10] * u.GHz, [1, 3, 10] * u.GHz, [8] * u.GHz,
+@pytest.mark.parametrize("nu", [[1, 10] * u.GHz, [1, 3, 10] * u.GHz, [8] * u.GHz, [1, 2, 4, 8] * u.GHz,
                                 [30, 10, 20] * u.cm])
 def test_sky_wcs_matches_written_header(nu, tmp_path):
     nu_hz = nu.to_value(u.Hz, equivalencies=u.spectral())
     w = sky_wcs((6, 7), 2 * u.arcsec, OFF_CENTRE, nu)
     _, _, read_wcs, _ = read(write_cube(tmp_path / "w.fits", np.zeros((len(nu), 6, 7)) * u.K, nu,
-                                        2 * u.arcsec, OFF_CENTRE))
+                                        2 * u.arcsec, OFF_CENTRE, spectral_axis="tabular"))
     assert w.pixel_shape == (7, 6, len(nu))
     pix = np.arange(len(nu))
     for wcs in (w, read_wcs):
@@ -353,9 +399,15 @@ def test_long_and_non_ascii_provenance(tmp_path):
     header, _, _, _ = read(write_cube(tmp_path / "p.fits", np.ones((4, 4)) * u.K, None,
                                       1 * u.arcsec, OFF_CENTRE, provenance=prov))
     assert header["VIEW"] == long_view                 # CONTINUE cards (Pence et al. 2010, sec. 4.2.1.2)
+    # ... announced by LONGSTRN (the OGIP long-string convention, from memory), before the first of them
+    assert header["LONGSTRN"] == "OGIP 1.0"
+    assert list(header.keys()).index("LONGSTRN") < list(header.keys()).index("VIEW")
     assert header["SNAPSRC"] == "snap_?.h5"            # header text is printable ASCII only
     assert header["IONIZ"] == "it's full"
     assert "custom: kept" in str(header["HISTORY"])
+    header, _, _, _ = read(write_cube(tmp_path / "s.fits", np.ones((4, 4)) * u.K, None, 1 * u.arcsec, OFF_CENTRE,
+                                      provenance={"view": "short"}))
+    assert "LONGSTRN" not in header                    # no long strings, no announcement
 
 
 def test_bad_input_is_reported(res, tmp_path):

@@ -3,6 +3,7 @@
 import textwrap
 
 import astropy.units as u
+import numpy as np
 import pytest
 
 from rtrace.errors import ConfigError
@@ -75,6 +76,39 @@ def test_frequency_ranges_and_duplicates(tmp_path):
         load_job(write(tmp_path, BASE.replace('values = ["1 GHz", "5 GHz"]', 'start = "1 GHz"\nstop = "2 GHz"')))
     with pytest.raises(ConfigError, match="'a' is used by another view"):
         load_job(write(tmp_path, BASE + '\n[[view]]\nname = "a"\n'))
+
+
+@pytest.mark.parametrize("start,stop,num,spacing,kind", [
+    ("0.3 GHz", "100 GHz", 6, "log", "log"), ("1 GHz", "100 GHz", 8, None, "log"),
+    ("90 GHz", "1 GHz", 5, "log", "log"), ("1 GHz", "20 GHz", 7, "linear", "linear"),
+    ("1.4 GHz", "43 GHz", 2, "log", "linear"), ("5 GHz", "5 GHz", 1, "log", "linear")])
+def test_frequency_ranges_are_exactly_regular(tmp_path, start, stop, num, spacing, kind):
+    from rtrace.io.fits import AXIS_RTOL, spectral_layout
+    lines = f'start = "{start}"\nstop = "{stop}"\nnum = {num}' + (f'\nspacing = "{spacing}"' if spacing else "")
+    nu = load_job(write(tmp_path, BASE.replace('values = ["1 GHz", "5 GHz"]', lines))).frequencies.to_value(u.Hz)
+    assert len(nu) == num
+    first, last = u.Quantity(start).to_value(u.Hz), u.Quantity(stop).to_value(u.Hz)
+    assert nu[0] == first and nu[-1] == pytest.approx(last, rel=1e-14)
+    if num > 2:
+        # geometric: equal ratios; even: equal steps, each to float64 rounding (common practice)
+        steps = np.diff(np.log(nu)) if kind == "log" else np.diff(nu)
+        assert np.allclose(steps, steps[0], rtol=1e-12, atol=0)
+    assert spectral_layout(nu * u.Hz) == kind            # so cubes get a FREQ or FREQ-LOG axis
+    assert AXIS_RTOL <= 1e-10
+
+
+def test_frequency_count_and_spectral_axis_checked(tmp_path):
+    for lines, message in [('start = "1 GHz"\nstop = "2 GHz"\nnum = 0', r"\[frequencies\].num: expected at least 1"),
+                           ('start = "1 GHz"\nstop = "2 GHz"\nnum = 1', r"\[frequencies\].num: one frequency")]:
+        with pytest.raises(ConfigError, match=message):
+            load_job(write(tmp_path, BASE.replace('values = ["1 GHz", "5 GHz"]', lines)))
+    assert load_job(write(tmp_path, BASE)).output["spectral_axis"] == "auto"
+    assert load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "tabular"\n')).output["spectral_axis"] == \
+        "tabular"
+    with pytest.raises(ConfigError, match=r"\[output\].spectral_axis: 'log' is not 'auto' .* or 'tabular'"):
+        load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "log"\n'))
+    with pytest.raises(ConfigError, match=r"\[output\]: unknown key 'spectral_axes' \(did you mean 'spectral_axis'"):
+        load_job(write(tmp_path, BASE + '\n[output]\nspectral_axes = "auto"\n'))
 
 
 def test_bad_toml_and_missing_file(tmp_path):

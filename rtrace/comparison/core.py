@@ -49,11 +49,13 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
 
     Parameters
     ----------
-    result : `~rtrace.Result`, SkyMap, str, path-like or HDU
+    result : `~rtrace.Result`, SkyMap, str, path-like, HDU or list of paths
         The model: a traced Result (native resolution), a SkyMap (its
         noiseless ``model``, already convolved with a beam no larger than the
         observed one), or a model FITS cube written by ``Result.write_fits``
-        (Jy/pixel) or ``SkyMap.write_fits`` (Jy/beam) with a frequency axis.
+        (Jy/pixel) or ``SkyMap.write_fits`` (Jy/beam) with a frequency axis
+        (``FREQ`` or ``FREQ-LOG``; a cube written one file per plane is given
+        as the list of its files, or by the name the cube would have had).
     observation : str, path-like, HDU, HDUList or ObservedImage
         The observed image: 2D, or a cube whose frequency and Stokes axes
         have length 1; ``BUNIT`` Jy/beam (any case) or a temperature (K).

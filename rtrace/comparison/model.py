@@ -5,7 +5,10 @@ north, columns toward west, square pixels) that are either at native
 resolution in Jy/pixel (a :class:`~rtrace.Result`, or a FITS cube written by
 :func:`rtrace.io.fits.write_result`) or already convolved with a beam in
 Jy/beam (a :class:`~rtrace.observe.SkyMap`, or a FITS cube written by
-:func:`rtrace.io.fits.write_skymap`).
+:func:`rtrace.io.fits.write_skymap`). A cube whose frequencies were written
+one file per plane (neither evenly spaced nor geometric, see
+:func:`rtrace.io.fits.plane_paths`) is read from the list of its files, or
+from the name the whole cube would have had when only its plane files exist.
 
 Between traced frequencies each pixel is interpolated as a power law through
 the two bracketing planes, ``log I`` linear in ``log nu``; that is exact for a
@@ -18,6 +21,7 @@ interpolated linearly in ``log nu`` instead.
 
 import math
 import os
+import re
 from dataclasses import dataclass, field
 
 import astropy.units as u
@@ -33,7 +37,7 @@ from ..observe.skymap import SkyMap
 from ..transfer.result import Result
 from .observation import header_beam, header_frequencies, note, open_image_hdu, parse_bunit, _wcs
 
-__all__ = ["ModelCube", "model_cube", "model_image", "FREQUENCY_MATCH_RTOL"]
+__all__ = ["ModelCube", "model_cube", "model_image", "plane_files", "FREQUENCY_MATCH_RTOL"]
 
 # A requested frequency within this fraction of a traced one uses that plane as it is.
 FREQUENCY_MATCH_RTOL = 1e-6
@@ -173,18 +177,76 @@ def _from_fits(obj, name):
                      beams=beams, source=f"model FITS {source}", provenance={"source": header.get("SNAPSRC")})
 
 
+def plane_files(path):
+    """The per-plane files rtrace wrote instead of the cube ``path``, in plane order; [] if there are none.
+
+    They are ``<stem>_<k>_<nu>GHz<suffix>`` (see `rtrace.io.fits.plane_paths`)
+    in the same folder.
+    """
+    path = os.fspath(path)
+    folder, base = os.path.split(os.path.abspath(path))
+    stem, suffix = os.path.splitext(base)
+    pattern = re.compile(re.escape(stem) + r"_(\d+)_[0-9.]+GHz" + re.escape(suffix) + "$")
+    try:
+        names = os.listdir(folder)
+    except OSError:
+        return []
+    found = sorted((int(m.group(1)), n) for n in names if (m := pattern.match(n)))
+    return [os.path.join(folder, n) for _, n in found]
+
+
+def _same_grid(a, b):
+    keys = ("CTYPE1", "CTYPE2", "CRVAL1", "CRVAL2", "CRPIX1", "CRPIX2", "CDELT1", "CDELT2")
+    ha, hb = a.to_header(), b.to_header()
+    return all(ha.get(k) == hb.get(k) if isinstance(ha.get(k), str)
+               else np.isclose(ha.get(k, 0.0), hb.get(k, 0.0), rtol=1e-12, atol=0) for k in keys)
+
+
+def _from_planes(paths, name):
+    """One ModelCube from the files of a cube written one file per plane (in plane order)."""
+    if not paths:
+        raise InputError(f"{name}: an empty list of model files")
+    parts = [_from_fits(p, f"{name}[{k}]") for k, p in enumerate(paths)]
+    first = parts[0]
+    for k, part in enumerate(parts[1:], start=1):
+        if part.data.shape[1:] != first.data.shape[1:] or not _same_grid(part.wcs, first.wcs):
+            raise InputError(f"{name}[{k}]: '{os.fspath(paths[k])}' is not on the sky grid of "
+                             f"'{os.fspath(paths[0])}'; the planes of one cube share their grid")
+        if (part.beams is None) != (first.beams is None):
+            raise InputError(f"{name}[{k}]: mixes Jy/pixel and Jy/beam planes")
+    nu = np.concatenate([p.frequencies for p in parts])
+    if np.unique(nu).size != nu.size:
+        raise InputError(f"{name}: {nu.size - np.unique(nu).size} plane(s) repeat a frequency")
+    beams = None if first.beams is None else [b for p in parts for b in p.beams]
+    return ModelCube(data=np.concatenate([p.data for p in parts]), frequencies=nu, wcs=first.wcs,
+                     pixel_scale=first.pixel_scale, beams=beams,
+                     source=f"model FITS planes {', '.join(os.path.basename(os.fspath(p)) for p in paths)}",
+                     provenance=first.provenance)
+
+
 def model_cube(result, name="result"):
-    """A :class:`ModelCube` from a Result, a SkyMap, or a model FITS file / HDU."""
+    """A :class:`ModelCube` from a Result, a SkyMap, or a model FITS file / HDU.
+
+    A list or tuple of files is read as the planes of one cube (as rtrace
+    writes a cube whose frequencies are neither evenly spaced nor geometric);
+    a file name that does not exist, but whose plane files do, reads those.
+    """
     if isinstance(result, ModelCube):
         return result
     if isinstance(result, Result):
         return _from_result(result)
     if isinstance(result, SkyMap):
         return _from_skymap(result)
+    if isinstance(result, (list, tuple)) and all(isinstance(p, (str, os.PathLike)) for p in result):
+        return _from_planes(list(result), name)
+    if isinstance(result, (str, os.PathLike)) and not os.path.exists(result):
+        planes = plane_files(result)
+        if planes:
+            return _from_planes(planes, name)
     if isinstance(result, (str, os.PathLike, fits.HDUList, fits.PrimaryHDU, fits.ImageHDU, fits.CompImageHDU)):
         return _from_fits(result, name)
-    raise InputError(f"{name}: expected an rtrace Result, a SkyMap or a model FITS file / HDU, "
-                     f"got {type(result).__name__}")
+    raise InputError(f"{name}: expected an rtrace Result, a SkyMap, a model FITS file / HDU or a list of the "
+                     f"plane files of one cube, got {type(result).__name__}")
 
 
 # --------------------------------------------------------------------------------------------

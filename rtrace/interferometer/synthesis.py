@@ -410,7 +410,7 @@ class SynthesizedMap(SkyMap):
     def w(self):
         return self._wavelengths(2)
 
-    def write_fits(self, path, image="restored"):
+    def write_fits(self, path, image="restored", spectral_axis="auto"):
         """Write one of the images to a FITS cube.
 
         Parameters
@@ -421,9 +421,18 @@ class SynthesizedMap(SkyMap):
             ``residual`` (Jy per dirty beam; the header carries the clean
             beams, as usual for these images) or ``components`` (Jy/pixel,
             no beam).
+        spectral_axis : {"auto", "tabular"}, optional
+            How a frequency list that is neither even nor geometric is
+            written: one file per plane (default) or a ``FREQ-TAB`` axis
+            (see `rtrace.io.fits.write_cube`).
+
+        Returns
+        -------
+        pathlib.Path or list of pathlib.Path
+            The file, or the files of the planes.
         """
         if image == "restored":
-            return super().write_fits(path)
+            return super().write_fits(path, spectral_axis=spectral_axis)
         choices = {"dirty": (self.dirty_image, True), "residual": (self.residual, True),
                    "components": (self.clean_components, False)}
         if image not in choices:
@@ -431,7 +440,8 @@ class SynthesizedMap(SkyMap):
         data, with_beam = choices[image]
         return write_cube(path, data, self.frequencies, self.pixel_scale, self.sky_position,
                           beams=self.beams if with_beam else None, provenance=self.provenance,
-                          reference_beam=self.beam if with_beam else None, quantity=f"synthesis {image}")
+                          reference_beam=self.beam if with_beam else None, quantity=f"synthesis {image}",
+                          spectral_axis=spectral_axis)
 
     def __repr__(self):
         nf, ny, nx = self.shape

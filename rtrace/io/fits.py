@@ -14,18 +14,31 @@ Layout and header conventions
   Calabretta 2002, A&A 395, 1061, sec. 2.1). ``RADESYS = 'ICRS'`` and
   ``CRVAL1/2`` are the ICRS coordinates of the view's sky position; no
   ``EQUINOX``, which ICRS does not use.
-* Spectral axis ``FREQ`` in Hz. ``SPECSYS = 'SOURCE'``: a model has no
+* Spectral axis in Hz. ``SPECSYS = 'SOURCE'``: a model has no
   velocity relative to any observer, the frequencies are those emitted in
   the rest frame of the snapshot, which is the "source rest frame" of
-  Greisen et al. 2006, A&A 446, 747, table 12 (from memory). Uniformly spaced
-  frequencies are written as a linear axis (``CDELT3`` the spacing; a
-  single plane gets ``CDELT3 = 1 Hz`` because a monochromatic plane has no
-  width and ``CDELTi`` must not be zero). Non-uniform frequencies use the
-  tabular algorithm ``FREQ-TAB`` (Greisen et al. 2006, sec. 6, from
-  memory): a binary table extension ``WCS-TAB`` holds every plane's
-  frequency, so the world coordinate of every plane is exact. Read such a
-  file with ``astropy.wcs.WCS(header, fobj=hdulist)``; without ``fobj``
-  astropy refuses (a loud error rather than silently wrong frequencies).
+  Greisen et al. 2006, A&A 446, 747, table 12 (from memory). How the axis
+  is written depends on the frequency list (:func:`spectral_layout`), so
+  that every client reads it from the primary header alone:
+
+  - evenly spaced (and a single frequency): linear ``FREQ`` (``CDELT3`` the
+    spacing; a single plane gets ``CDELT3 = 1 Hz`` because a monochromatic
+    plane has no width and ``CDELTi`` must not be zero);
+  - geometric: logarithmic ``FREQ-LOG`` (Greisen et al. 2006, algorithm
+    ``-LOG``, formula from memory: ``nu = CRVAL3 * exp(w / CRVAL3)`` with
+    ``w = CDELT3 * (p - CRPIX3)``), so ``CDELT3 = nu_1 ln(nu_2 / nu_1)``;
+  - any other list: one file per plane by default (:func:`plane_paths`
+    names them ``<stem>_<k>_<nu>GHz.fits``, ``k`` the 1-based plane number
+    zero-padded so that the names sort in plane order; each file holds a
+    one-plane ``FREQ`` axis and keywords ``RTPLANE``/``RTNPLANE``), or, with
+    ``spectral_axis="tabular"``, the tabular algorithm ``FREQ-TAB``
+    (Greisen et al. 2006, sec. 6, from memory): a binary table extension
+    ``WCS-TAB`` holds every plane's frequency. Such a file needs
+    ``astropy.wcs.WCS(header, fobj=hdulist)``; clients that read only the
+    header (spectral-cube 0.7 among them) cannot open it.
+
+  A list counts as even or geometric when the axis reproduces every
+  frequency to :data:`AXIS_RTOL` (1e-10) relative.
 * ``BUNIT`` in the units syntax of the FITS standard (Pence et al. 2010,
   A&A 524, A42, sec. 4.3). ``pixel`` and ``beam`` are in that standard's
   table of additional allowed units (from memory; astropy's FITS unit
@@ -43,7 +56,10 @@ Layout and header conventions
 * Provenance: ``ORIGIN = 'rtrace'``, ``DATE`` (UTC, when written),
   ``RTVERS``, ``SNAPSRC``, ``SNAPSHA``, ``VIEW``, ``IONIZ``, ``BKGND``,
   ``BEAM``, ``NOISE`` (strings longer than one card continue on
-  ``CONTINUE`` cards); any other provenance entry becomes a ``HISTORY`` line.
+  ``CONTINUE`` cards, announced by ``LONGSTRN = 'OGIP 1.0'``, the
+  convention's keyword in the FITS standard's appendix on long strings,
+  Pence et al. 2010, from memory); any other provenance entry becomes a
+  ``HISTORY`` line.
 
 Section and table numbers of the papers above are cited from memory.
 All writes go through :func:`rtrace.io.atomic.atomic_path`.
@@ -63,17 +79,23 @@ from ..errors import InputError
 from ..quantities import positive_scalar
 from .atomic import atomic_path
 
-__all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap",
-           "RESULT_QUANTITIES"]
+__all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
+           "plane_paths", "output_paths", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
 
 RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
 # EXTNAME and column name of the -TAB frequency table.
 _TAB_EXTNAME = "WCS-TAB"
 _TAB_COLUMN = "COORDS"
-# Relative tolerance below which a frequency list counts as uniformly spaced:
-# the linear axis then reproduces every frequency to ~float64 rounding.
-_UNIFORM_RTOL = 1e-12
+#: Largest relative difference between a frequency and the value a linear or
+#: logarithmic axis gives its plane for the list to be written with that axis.
+#: Lists typed with few digits (e.g. 1, 1.778, 3.162 GHz) are not geometric to
+#: this tolerance and are written one file per plane: a header never misstates
+#: a traced frequency by more than this.
+AXIS_RTOL = 1e-10
+
+#: Values of the writers' ``spectral_axis`` option (see the module notes).
+SPECTRAL_AXES = ("auto", "tabular")
 
 # Provenance keys -> header keywords (8 characters at most: plain cards, so
 # long values can use CONTINUE).
@@ -134,17 +156,130 @@ def _image_shape(shape):
     return ny, nx
 
 
-def _uniform_step(nu):
-    """Spacing of ``nu`` if it is uniform (1 Hz for a single plane), else None."""
+def _check_spectral_axis(spectral_axis):
+    if spectral_axis not in SPECTRAL_AXES:
+        raise InputError(f"spectral_axis: expected one of {', '.join(repr(a) for a in SPECTRAL_AXES)}, "
+                         f"got {spectral_axis!r}")
+    return spectral_axis
+
+
+def _linear_step(nu):
+    """Spacing of ``nu`` if it is even to AXIS_RTOL (1 Hz for a single plane), else None."""
     if nu.size == 1:
         return 1.0
     step = (nu[-1] - nu[0]) / (nu.size - 1)
     if step == 0:
         return None
     linear = nu[0] + step * np.arange(nu.size)
-    if np.max(np.abs(linear - nu)) <= _UNIFORM_RTOL * np.max(np.abs(nu)):
-        return step
-    return None
+    return step if np.all(np.abs(linear - nu) <= AXIS_RTOL * nu) else None
+
+
+def _log_step(nu):
+    """``CDELT`` of a FREQ-LOG axis with ``CRVAL = nu[0]`` if ``nu`` is geometric to AXIS_RTOL, else None."""
+    if nu.size < 2:
+        return None
+    # Greisen et al. 2006, -LOG algorithm (from memory): nu = nu_r exp(w / nu_r), w = CDELT (p - CRPIX)
+    log_ratio = (np.log(nu[-1]) - np.log(nu[0])) / (nu.size - 1)
+    if log_ratio == 0:
+        return None
+    step = nu[0] * log_ratio
+    axis = nu[0] * np.exp(step * np.arange(nu.size) / nu[0])
+    return step if np.all(np.abs(axis - nu) <= AXIS_RTOL * nu) else None
+
+
+def spectral_layout(frequencies):
+    """How a cube with these frequencies describes its spectral axis.
+
+    Parameters
+    ----------
+    frequencies : `~astropy.units.Quantity` (nfreq,)
+        Frequencies (or wavelengths) of the planes, in cube order.
+
+    Returns
+    -------
+    str
+        ``"linear"`` for evenly spaced frequencies and for a single one (a
+        ``FREQ`` axis), ``"log"`` for a geometric list (``FREQ-LOG``),
+        ``"irregular"`` for any other list (one file per plane, or
+        ``FREQ-TAB`` on request). Two frequencies are always ``"linear"``.
+    """
+    nu = _frequencies_hz(frequencies)
+    if _linear_step(nu) is not None:
+        return "linear"
+    if _log_step(nu) is not None:
+        return "log"
+    return "irregular"
+
+
+def _frequency_text(nu_hz):
+    """Each frequency in GHz, positional, 4 significant digits or as many more as tell it from the others."""
+    ghz = np.asarray(nu_hz, float) / 1e9
+    digits = np.full(ghz.size, 4)
+
+    def render():
+        return [np.format_float_positional(v, precision=int(d), unique=False, fractional=False, trim="-")
+                for v, d in zip(ghz, digits)]
+
+    text = render()
+    while True:
+        clash = [i for i in range(ghz.size)
+                 if any(text[i] == text[j] and ghz[i] != ghz[j] for j in range(ghz.size))]
+        if not clash or digits[clash].min() >= 17:
+            return text
+        digits[clash] += 1
+        text = render()
+
+
+def plane_paths(path, frequencies):
+    """The files of a cube written one file per frequency plane.
+
+    ``<stem>_<k>_<nu>GHz<suffix>`` next to ``path``: ``k`` is the 1-based
+    plane number, zero-padded to the same width for every plane (at least
+    two digits) so that sorting the names sorts the planes; ``nu`` is the
+    plane's frequency in GHz with at least 4 significant digits (more where
+    two planes would otherwise read alike). E.g. ``a_intensity.fits`` at
+    0.3, 1 and 3.162 GHz gives ``a_intensity_01_0.3GHz.fits``,
+    ``a_intensity_02_1GHz.fits``, ``a_intensity_03_3.162GHz.fits``.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file a single cube would have been written to.
+    frequencies : `~astropy.units.Quantity` (nfreq,)
+
+    Returns
+    -------
+    list of pathlib.Path
+    """
+    path = Path(path)
+    nu = _frequencies_hz(frequencies)
+    width = max(2, len(str(nu.size)))
+    stem, suffix = path.name[:-len(path.suffix)] if path.suffix else path.name, path.suffix
+    return [path.with_name(f"{stem}_{k + 1:0{width}d}_{text}GHz{suffix}")
+            for k, text in enumerate(_frequency_text(nu))]
+
+
+def output_paths(path, frequencies, spectral_axis="auto"):
+    """Every file a writer makes for ``path`` with these frequencies.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    frequencies : `~astropy.units.Quantity` (nfreq,) or None
+        The cube's frequencies; None for a map without a frequency axis.
+    spectral_axis : {"auto", "tabular"}
+        The writer's option.
+
+    Returns
+    -------
+    list of pathlib.Path
+        ``[path]``, or the :func:`plane_paths` when an irregular list is
+        written one file per plane.
+    """
+    _check_spectral_axis(spectral_axis)
+    if frequencies is None or spectral_axis == "tabular" or spectral_layout(frequencies) != "irregular":
+        return [Path(path)]
+    return plane_paths(path, frequencies)
 
 
 # --------------------------------------------------------------------------------------------
@@ -152,7 +287,7 @@ def _uniform_step(nu):
 # --------------------------------------------------------------------------------------------
 
 def wcs_header(shape, pixel_scale, sky_position, frequencies=None):
-    """WCS keywords of an rtrace image and, for non-uniform frequencies, the -TAB table.
+    """WCS keywords of an rtrace image and, for an irregular frequency list, the -TAB table.
 
     Parameters
     ----------
@@ -170,8 +305,10 @@ def wcs_header(shape, pixel_scale, sky_position, frequencies=None):
     header : `~astropy.io.fits.Header`
         ``NAXIS*`` and WCS keywords.
     table : `~astropy.io.fits.BinTableHDU` or None
-        The ``WCS-TAB`` extension the header refers to (non-uniform
-        frequencies only).
+        The ``WCS-TAB`` extension the header refers to (irregular
+        frequency lists only: a single header can describe them only with
+        a table; the writers split such lists into one file per plane
+        unless asked for the table).
     """
     ny, nx = _image_shape(shape)
     scale = _pixel_scale_deg(pixel_scale)
@@ -201,13 +338,21 @@ def wcs_header(shape, pixel_scale, sky_position, frequencies=None):
     hdr["RADESYS"] = ("ICRS", "celestial reference system")
     table = None
     if naxis == 3:
-        step = _uniform_step(nu)
+        step = _linear_step(nu)
+        log_step = None if step is not None else _log_step(nu)
         hdr["CUNIT3"] = "Hz"
         if step is not None:
             hdr["CTYPE3"] = ("FREQ", "frequency, linear")
             hdr["CRPIX3"] = 1.0
             hdr["CRVAL3"] = (float(nu[0]), "[Hz] frequency of plane 1")
             hdr["CDELT3"] = (float(step), "[Hz] plane spacing")
+        elif log_step is not None:
+            # Greisen et al. 2006, -LOG algorithm (from memory): nu = CRVAL3 exp(w / CRVAL3),
+            # w = CDELT3 (p - CRPIX3); a geometric list of ratio r has CDELT3 = nu_1 ln r.
+            hdr["CTYPE3"] = ("FREQ-LOG", "frequency, logarithmic: geometric planes")
+            hdr["CRPIX3"] = 1.0
+            hdr["CRVAL3"] = (float(nu[0]), "[Hz] frequency of plane 1")
+            hdr["CDELT3"] = (float(log_step), "[Hz] CRVAL3 * ln(ratio of planes)")
         else:
             # Tabular axis (Greisen et al. 2006, sec. 6): with CRPIX3 = CDELT3 =
             # CRVAL3 = 1 the intermediate coordinate of plane p is p itself,
@@ -250,8 +395,9 @@ def sky_wcs(shape, pixel_scale, sky_position, frequencies=None):
     -------
     `~astropy.wcs.WCS`
         Axes ``RA---SIN``, ``DEC--SIN`` and (with frequencies) ``FREQ`` in
-        Hz, linear for uniformly spaced frequencies, ``FREQ-TAB`` with the
-        table attached otherwise; the pixel shape is set.
+        Hz, linear for evenly spaced frequencies, ``FREQ-LOG`` for
+        geometric ones, ``FREQ-TAB`` with the table attached otherwise; the
+        pixel shape is set.
     """
     hdr, table = wcs_header(shape, pixel_scale, sky_position, frequencies)
     if table is None:
@@ -294,6 +440,20 @@ def _comment_fits(text, comment):
     return quoted > 70 or 10 + quoted + 3 + len(comment) <= 80
 
 
+def _announce_long_strings(header):
+    """Add ``LONGSTRN = 'OGIP 1.0'`` before the first value continued on CONTINUE cards, if any.
+
+    The long-string convention asks for this keyword in any header that uses
+    it (Pence et al. 2010, appendix on the CONTINUE convention, from memory).
+    """
+    if "LONGSTRN" in header:
+        return
+    for index, card in enumerate(header.cards):
+        if len(card.image) > 80:           # astropy renders a continued value as several cards
+            header.insert(index, ("LONGSTRN", "OGIP 1.0", "long strings continue on CONTINUE cards"))
+            return
+
+
 def _add_provenance(hdr, provenance):
     from .. import __version__
 
@@ -310,6 +470,7 @@ def _add_provenance(hdr, provenance):
             hdr[keyword] = (text, comment) if _comment_fits(text, comment) else text
         else:
             hdr.add_history(_ascii(f"{key}: {value}"))
+    _announce_long_strings(hdr)
 
 
 def _beam_values(beam, name):
@@ -360,8 +521,8 @@ def _beams_table(values):
 # --------------------------------------------------------------------------------------------
 
 def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, provenance=None,
-               overwrite=True, *, reference_beam=None, quantity=None):
-    """Write an image or cube with its WCS, beam and provenance to a FITS file.
+               overwrite=True, *, reference_beam=None, quantity=None, spectral_axis="auto"):
+    """Write an image or cube with its WCS, beam and provenance to FITS.
 
     Parameters
     ----------
@@ -385,19 +546,28 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
         ``ionization``, ``background``, ``beam``, ``noise`` get their own
         keywords; others become HISTORY lines).
     overwrite : bool, optional
-        Replace an existing file (default True).
+        Replace existing files (default True).
     reference_beam : `radio_beam.Beam`, optional
         Beam for the ``BMAJ``/``BMIN``/``BPA`` keywords when the beams differ
         by plane; default: the one of largest area.
     quantity : str, optional
         Name of the quantity, written as ``RTQUANT``.
+    spectral_axis : {"auto", "tabular"}, optional
+        For a frequency list that is neither even nor geometric (see
+        :func:`spectral_layout`): ``"auto"`` (default) writes one file per
+        plane, named by :func:`plane_paths`; ``"tabular"`` writes one file
+        with a ``FREQ-TAB`` axis. Even and geometric lists are always one
+        file with a ``FREQ`` or ``FREQ-LOG`` axis.
 
     Returns
     -------
-    pathlib.Path
-        The written file.
+    pathlib.Path or list of pathlib.Path
+        The written file; the list of files (in plane order) when the cube
+        was written one file per plane (:func:`output_paths` tells which in
+        advance).
     """
     path = os.fspath(path)
+    _check_spectral_axis(spectral_axis)
     if not isinstance(data, u.Quantity):
         raise InputError("data: expected an astropy Quantity (the unit becomes BUNIT)")
     nu = _frequencies_hz(frequencies)
@@ -433,40 +603,74 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
     elif beam_values is not None:
         ref = max(beam_values, key=lambda b: b[0] * b[1])
 
-    hdr, tab = wcs_header(values.shape[-2:], pixel_scale, sky_position,
-                          None if nu is None else nu * u.Hz)
+    # checked before any file is written (and before the header work)
+    _image_shape(values.shape[-2:])
+    _pixel_scale_deg(pixel_scale)
+    _icrs(sky_position)
     directory = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(directory):
         raise InputError(f"path: directory '{directory}' does not exist")
-    if not overwrite and os.path.exists(path):
-        raise InputError(f"path: '{path}' exists and overwrite=False")
-
-    primary = fits.PrimaryHDU(np.ascontiguousarray(values, dtype=np.float32))
-    primary.header.extend(hdr, update=True)
+    targets = output_paths(path, None if nu is None else nu * u.Hz, spectral_axis)
+    if not overwrite:
+        existing = [str(t) for t in targets if t.exists()]
+        if existing and len(targets) == 1:
+            raise InputError(f"path: '{path}' exists and overwrite=False")
+        if existing:
+            raise InputError(f"path: {len(existing)} of the {len(targets)} plane files exist and "
+                             f"overwrite=False ('{existing[0]}'{', ...' if len(existing) > 1 else ''})")
     bunit = _bunit(data.unit)
-    if bunit is not None:
-        primary.header["BUNIT"] = (bunit, "unit of the data")
-    if quantity is not None:
-        primary.header["RTQUANT"] = (str(quantity), "rtrace quantity in the data")
-    if ref is not None:
-        primary.header["BMAJ"] = (ref[0], "[deg] beam major axis (FWHM)")
-        primary.header["BMIN"] = (ref[1], "[deg] beam minor axis (FWHM)")
-        primary.header["BPA"] = (ref[2], "[deg] beam position angle, north through east")
-    _add_provenance(primary.header, provenance)
-    if nu is not None and hdr["CTYPE3"] == "FREQ-TAB":
-        # Readers that ignore -TAB would otherwise fail without a hint.
-        primary.header.add_comment("Non-uniform frequencies: FREQ-TAB, listed in extension WCS-TAB.")
-        primary.header.add_comment("astropy: WCS(header, fobj=hdulist).")
 
-    hdus = [primary]
-    if tab is not None:
-        hdus.append(tab)
-    if beam_values is not None and not all(_same_beam(b, beam_values[0]) for b in beam_values):
-        hdus.append(_beams_table(beam_values))
-    hdul = fits.HDUList(hdus)
+    def header_for(plane_nu, plane_ref):
+        hdr, tab = wcs_header(values.shape[-2:], pixel_scale, sky_position,
+                              None if plane_nu is None else plane_nu * u.Hz)
+        primary = fits.Header()
+        primary.extend(hdr, update=True)
+        if bunit is not None:
+            primary["BUNIT"] = (bunit, "unit of the data")
+        if quantity is not None:
+            primary["RTQUANT"] = (str(quantity), "rtrace quantity in the data")
+        if plane_ref is not None:
+            primary["BMAJ"] = (plane_ref[0], "[deg] beam major axis (FWHM)")
+            primary["BMIN"] = (plane_ref[1], "[deg] beam minor axis (FWHM)")
+            primary["BPA"] = (plane_ref[2], "[deg] beam position angle, north through east")
+        return primary, tab
+
+    if len(targets) == 1:
+        header, tab = header_for(nu, ref)
+        _add_provenance(header, provenance)
+        if tab is not None:
+            # Readers that ignore -TAB would otherwise fail without a hint.
+            header.add_comment("Irregular frequencies: FREQ-TAB, listed in extension WCS-TAB.")
+            header.add_comment("astropy: WCS(header, fobj=hdulist).")
+        hdus = [_primary(values, header)]
+        if tab is not None:
+            hdus.append(tab)
+        if beam_values is not None and not all(_same_beam(b, beam_values[0]) for b in beam_values):
+            hdus.append(_beams_table(beam_values))
+        _write(path, hdus)
+        return Path(path)
+
+    # one file per plane: each a one-plane FREQ cube with its own beam
+    for k, target in enumerate(targets):
+        header, _ = header_for(nu[k:k + 1], None if beam_values is None else beam_values[k])
+        header["RTPLANE"] = (k + 1, "plane number in the full frequency list")
+        header["RTNPLANE"] = (nplanes, "number of planes (one file each)")
+        _add_provenance(header, provenance)
+        header.add_comment(f"Plane {k + 1} of {nplanes}: the frequencies are neither evenly spaced nor")
+        header.add_comment("geometric, so each plane is a file of its own (RTPLANE, RTNPLANE).")
+        _write(target, [_primary(values[k:k + 1], header)])
+    return targets
+
+
+def _primary(values, header):
+    primary = fits.PrimaryHDU(np.ascontiguousarray(values, dtype=np.float32))
+    primary.header.extend(header, update=True)
+    return primary
+
+
+def _write(path, hdus):
     with atomic_path(path) as tmp:
-        hdul.writeto(tmp, output_verify="exception")
-    return Path(path)
+        fits.HDUList(hdus).writeto(tmp, output_verify="exception")
 
 
 def _is_beams(obj):
@@ -479,7 +683,7 @@ def _is_beams(obj):
 
 
 def write_result(result, path, quantity="intensity", unit=None, *, kind="planck", subtract_background=True,
-                 overwrite=True):
+                 overwrite=True, spectral_axis="auto"):
     """Write one quantity of a traced :class:`~rtrace.Result` to a FITS file.
 
     Parameters
@@ -508,13 +712,17 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         differential measurement does and as ``Result.flux_density`` does
         (default True); False writes the total intensity.
     overwrite : bool, optional
-        Replace an existing file (default True).
+        Replace existing files (default True).
+    spectral_axis : {"auto", "tabular"}, optional
+        How an irregular frequency list is written: one file per plane
+        (default) or a ``FREQ-TAB`` axis; see :func:`write_cube`.
 
     Returns
     -------
-    pathlib.Path
-        The written file.
+    pathlib.Path or list of pathlib.Path
+        The written file, or the files of the planes (see :func:`write_cube`).
     """
+    _check_spectral_axis(spectral_axis)
     if quantity not in RESULT_QUANTITIES:
         raise InputError(f"quantity: expected one of {', '.join(RESULT_QUANTITIES)}, got {quantity!r}")
     try:
@@ -546,10 +754,11 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
             raise InputError(f"unit: '{out_unit}' is not a unit of {quantity} ({data.unit})")
         data = data.to(out_unit)
     return write_cube(path, data, frequencies, result.pixel_scale, result.sky_position,
-                      provenance=result.provenance, overwrite=overwrite, quantity=quantity)
+                      provenance=result.provenance, overwrite=overwrite, quantity=quantity,
+                      spectral_axis=spectral_axis)
 
 
-def write_skymap(skymap, path, overwrite=True):
+def write_skymap(skymap, path, overwrite=True, *, spectral_axis="auto"):
     """Write a beam-convolved sky map (Jy/beam cube) to a FITS file.
 
     Parameters
@@ -563,12 +772,16 @@ def write_skymap(skymap, path, overwrite=True):
     path : str or os.PathLike
         Output file; written atomically.
     overwrite : bool, optional
-        Replace an existing file (default True).
+        Replace existing files (default True).
+    spectral_axis : {"auto", "tabular"}, optional
+        How an irregular frequency list is written: one file per plane
+        (default; each carries its plane's beam as ``BMAJ``/``BMIN``/``BPA``)
+        or a ``FREQ-TAB`` axis; see :func:`write_cube`.
 
     Returns
     -------
-    pathlib.Path
-        The written file.
+    pathlib.Path or list of pathlib.Path
+        The written file, or the files of the planes (see :func:`write_cube`).
     """
     data = skymap.data
     if not isinstance(data, u.Quantity) or not data.unit.is_equivalent(u.Jy / u.beam):
@@ -576,4 +789,4 @@ def write_skymap(skymap, path, overwrite=True):
         raise InputError(f"skymap.data: expected a Quantity in Jy/beam, got unit '{unit}'")
     return write_cube(path, data, skymap.frequencies, skymap.pixel_scale, skymap.sky_position,
                       beams=skymap.beams, provenance=skymap.provenance, overwrite=overwrite,
-                      reference_beam=skymap.beam, quantity="sky map")
+                      reference_beam=skymap.beam, quantity="sky map", spectral_axis=spectral_axis)

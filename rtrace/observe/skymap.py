@@ -304,10 +304,15 @@ class SkyMap:
         # compared as model >= thr * rms so no division by a zero rms is needed
         return (self._model >= thr * rms) | (rms == 0)
 
-    def write_fits(self, path):
-        """Write the map to a FITS file (see `rtrace.io.fits.write_skymap`)."""
+    def write_fits(self, path, spectral_axis="auto"):
+        """Write the map to FITS (see `rtrace.io.fits.write_skymap`).
+
+        A frequency list that is neither evenly spaced nor geometric is
+        written one file per plane unless ``spectral_axis="tabular"``; the
+        return value is then the list of files.
+        """
         from ..io.fits import write_skymap
-        return write_skymap(self, path)
+        return write_skymap(self, path, spectral_axis=spectral_axis)
 
     def __repr__(self):
         nf, ny, nx = self.shape
