@@ -22,9 +22,11 @@ import astropy.units as u
 import numpy as np
 import pytest
 import radio_beam
+import spectral_cube
 from astropy.coordinates import SkyCoord
 from astropy.io import fits
 from astropy.wcs import WCS
+from spectral_cube import SpectralCube, VaryingResolutionSpectralCube
 
 import rtrace
 from rtrace import demo
@@ -34,9 +36,6 @@ from rtrace.interferometer import synthesize
 from rtrace.io.fits import output_paths, spectral_layout, write_result
 from rtrace.job import load_job, run_job
 from rtrace.observe import observe
-
-spectral_cube = pytest.importorskip("spectral_cube")
-from spectral_cube import SpectralCube, VaryingResolutionSpectralCube  # noqa: E402
 
 # the frequency lists of the tests: even, geometric, neither, one
 LISTS = {

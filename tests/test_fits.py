@@ -190,7 +190,7 @@ def test_irregular_frequencies_one_file_per_plane(tmp_path):
     assert [p.name for p in paths] == ["n_01_1GHz.fits", "n_02_3GHz.fits", "n_03_10GHz.fits"]
     assert sorted(os.listdir(tmp_path)) == [p.name for p in paths]       # nothing else, names sort as planes
     for k, path in enumerate(paths):
-        header, data, wcs, extra = read(path)
+        header, data, _, extra = read(path)
         assert header["CTYPE3"] == "FREQ" and header["NAXIS3"] == 1 and not extra
         assert (header["RTPLANE"], header["RTNPLANE"]) == (k + 1, 3)
         assert WCS(header).spectral.pixel_to_world_values(0) == pytest.approx(nu[k].to_value(u.Hz), rel=1e-15)
