@@ -203,6 +203,8 @@ def test_plane_names_are_distinct_and_sorted(tmp_path):
     names = [p.name for p in plane_paths(tmp_path / "c.fits", nu)]
     assert names == ["c_01_1.00001GHz.fits", "c_02_1.00002GHz.fits", "c_03_0.3GHz.fits", "c_04_100GHz.fits",
                      "c_05_31.62GHz.fits", "c_06_120000GHz.fits"]
+    assert [p.name for p in plane_paths(tmp_path / "m.v2.fits.gz", [1, 2] * u.GHz)] == \
+        ["m.v2_01_1GHz.fits.gz", "m.v2_02_2GHz.fits.gz"]
     many = plane_paths(tmp_path / "c.fits", np.arange(1, 121) * u.GHz)
     assert many[0].name == "c_001_1GHz.fits" and sorted(many) == many
 

@@ -31,7 +31,7 @@ from astropy.io import fits
 from astropy.wcs.utils import proj_plane_pixel_scales, pixel_to_skycoord
 
 from ..errors import InputError
-from ..io.fits import sky_wcs
+from ..io.fits import sky_wcs, split_suffix
 from ..observe.beam import BeamKernel, describe_beam
 from ..observe.skymap import SkyMap
 from ..transfer.result import Result
@@ -185,7 +185,7 @@ def plane_files(path):
     """
     path = os.fspath(path)
     folder, base = os.path.split(os.path.abspath(path))
-    stem, suffix = os.path.splitext(base)
+    stem, suffix = split_suffix(base)
     pattern = re.compile(re.escape(stem) + r"_(\d+)_[0-9.]+GHz" + re.escape(suffix) + "$")
     try:
         names = os.listdir(folder)

@@ -80,7 +80,7 @@ from ..quantities import positive_scalar
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
-           "plane_paths", "output_paths", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
+           "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
 
 RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
@@ -230,6 +230,16 @@ def _frequency_text(nu_hz):
         text = render()
 
 
+def split_suffix(name):
+    """``(stem, suffix)`` of a file name; ``.fits.gz`` (and ``.fit.gz``, ``.fts.gz``) count as one suffix."""
+    lower = name.lower()
+    for compound in (".fits.gz", ".fit.gz", ".fts.gz"):
+        if lower.endswith(compound) and len(name) > len(compound):
+            return name[:-len(compound)], name[-len(compound):]
+    stem, suffix = os.path.splitext(name)
+    return stem, suffix
+
+
 def plane_paths(path, frequencies):
     """The files of a cube written one file per frequency plane.
 
@@ -254,7 +264,7 @@ def plane_paths(path, frequencies):
     path = Path(path)
     nu = _frequencies_hz(frequencies)
     width = max(2, len(str(nu.size)))
-    stem, suffix = path.name[:-len(path.suffix)] if path.suffix else path.name, path.suffix
+    stem, suffix = split_suffix(path.name)
     return [path.with_name(f"{stem}_{k + 1:0{width}d}_{text}GHz{suffix}")
             for k, text in enumerate(_frequency_text(nu))]
 
