@@ -17,7 +17,7 @@ import numpy as np
 from .errors import ConfigError
 from .observe.edges import warn_if_emission_at_edge
 
-__all__ = ["Engine", "trace_keywords", "noise_seed"]
+__all__ = ["Engine", "noise_seed", "trace_keywords"]
 
 
 def noise_seed(job, label=None):
