@@ -102,7 +102,7 @@ def cmd_demo(args):
     from .job import parse_job, run_job
     raw = tomllib.loads(_demo_job_text())
     raw["output"]["directory"] = str(Path(args.output).resolve())
-    if args.cells:
+    if args.cells is not None:
         raw["snapshot"]["cells"] = args.cells
     job = parse_job(raw)
     t0 = time.perf_counter()
@@ -119,7 +119,7 @@ def cmd_demo(args):
 def _snapshot_from(args):
     if args.job is None:
         from .demo import scenario
-        return scenario(args.cells or 64)
+        return scenario(64 if args.cells is None else args.cells)
     from .job import load_job
     from .pipeline import build_snapshot
     job = load_job(args.job)

@@ -23,8 +23,10 @@ def view_ranges(res, sky, nfreq):
     """
     from .plot import _plane
     ranges = {}
-    for q, observed in PICTURES:
-        obj = sky if observed and sky is not None else res
+    for stem, q, observed in PICTURES:
+        if observed and sky is None:
+            continue
+        obj = sky if observed else res
         if q == "spectral_index":
             if nfreq < 2:
                 continue
@@ -48,7 +50,7 @@ def view_ranges(res, sky, nfreq):
             lo, hi = np.percentile(values, 1), np.percentile(values, 99)
         else:
             lo, hi = values.min(), values.max()
-        ranges[q] = {"min": float(lo), "max": float(hi), "unit": unit.to_string()}
+        ranges[stem] = {"min": float(lo), "max": float(hi), "unit": unit.to_string()}
     return ranges
 
 
@@ -61,8 +63,8 @@ def series_limits(all_ranges):
     alone.
     """
     limits = {}
-    for q, _ in PICTURES:
-        entries = [r[q] for r in all_ranges if r and q in r]
+    for stem, q, _ in PICTURES:
+        entries = [r[stem] for r in all_ranges if r and stem in r]
         if not entries:
             continue
         unit = u.Unit(entries[0]["unit"])
@@ -74,5 +76,5 @@ def series_limits(all_ranges):
             vmin, vmax = min(0.0, lo), hi
             if vmax <= vmin:
                 vmax = vmin + 1.0          # blank images everywhere still get a valid scale
-        limits[q] = {"vmin": vmin, "vmax": vmax, "unit": unit.to_string()}
+        limits[stem] = {"vmin": vmin, "vmax": vmax, "unit": unit.to_string()}
     return limits

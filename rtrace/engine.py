@@ -9,15 +9,31 @@ client for the whole run (started on first use, closed at the end).
 
 import inspect
 import time
+import zlib
 
 import astropy.units as u
+import numpy as np
 
 from .errors import ConfigError
+from .observe.edges import warn_if_emission_at_edge
 
-__all__ = ["Engine", "trace_keywords"]
+__all__ = ["Engine", "noise_seed", "trace_keywords"]
 
 
-def _observe(res, job):
+def noise_seed(job, label=None):
+    """The noise seed of one snapshot: the job's ``[noise].seed`` itself for a single snapshot; for a
+    member of a series, a seed derived from it and the snapshot's label, so that each snapshot gets its
+    own noise (differences between snapshots would otherwise show the noise as persistent structure)
+    and a rerun gets the same noise again. None (a fresh draw) when the job gives no seed.
+    """
+    seed = job.noise.get("seed") if job.noise else None
+    if seed is None or label is None or not job.series:
+        return seed
+    label_key = zlib.crc32(str(label).encode("utf-8"))
+    return int(np.random.SeedSequence([seed, label_key]).generate_state(1, np.uint64)[0] >> np.uint64(1))
+
+
+def _observe(res, job, label=None):
     import radio_beam
     b = job.beam
     beam = radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
@@ -25,7 +41,7 @@ def _observe(res, job):
     kw = {}
     if b.get("scaling", "none") != "none":
         kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
-    return res.observe(beam=beam, noise=noise, seed=job.noise.get("seed") if job.noise else None, **kw)
+    return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label), **kw)
 
 
 def trace_keywords(job):
@@ -77,7 +93,8 @@ class Engine:
                 self._client = Client(self._cluster)
         return self._client
 
-    def trace(self, snap, view):
+    def trace(self, snap, view, label=None, view_name="view"):
+        """``(Result, SkyMap or None)`` of one view of ``snap``; ``label`` names the snapshot of a series."""
         from . import trace
         job = self.job
         kw = {}
@@ -89,7 +106,12 @@ class Engine:
         res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
                     supersample=job.trace.get("supersample", 1), **kw)
         res.provenance["trace_seconds"] = f"{time.perf_counter() - t0:.2f}"
-        sky = _observe(res, job) if job.beam else None
+        if job.beam:
+            sky = _observe(res, job, label)               # warns itself when emission reaches the edge
+        else:
+            sky = None
+            above_background = res.intensity.value - res.background.value[:, None, None]   # ~ flux per pixel
+            warn_if_emission_at_edge(above_background, res.frequencies.to_value(u.Hz), f"view '{view_name}'")
         return res, sky
 
     def close(self):

@@ -25,12 +25,28 @@ THERMAL_UNITS = {"temperature": u.K, "pressure": u.dyn / u.cm**2, "internal_ener
 DEFAULT_GAMMA = 5.0 / 3.0
 
 
+#: How a user attaches units to each physical field, for the message refusing a plain array.
+_UNIT_EXAMPLES = {"temperature": "u.K", "electron_density": "u.cm**-3", "ion_density": "u.cm**-3",
+                  "density": "u.g / u.cm**3", "pressure": "u.dyn / u.cm**2", "internal_energy": "u.erg / u.g"}
+
+
 def to_array(value, unit, name, dtype, equivalencies=None):
-    """Quantity (or plain array, taken to be in ``unit``) -> ndarray in ``unit``."""
-    if isinstance(value, u.Quantity):
-        if not value.unit.is_equivalent(unit, equivalencies=equivalencies or []):
-            raise InputError(f"{name}: expected units of {unit}, got '{value.unit}'")
-        value = value.to_value(unit, equivalencies=equivalencies or [])
+    """Quantity -> C-contiguous ndarray in ``unit``; a plain array is refused.
+
+    A simulation's arrays are often in code units; taking a plain array to
+    be in cgs would give wrong images without a word, so every physical
+    field must carry its units (`astropy.units`).
+    """
+    if not isinstance(value, u.Quantity):
+        if value is not None and np.ndim(value) > 0:
+            hint = _UNIT_EXAMPLES.get(name, str(unit))
+            raise InputError(f"{name}: a plain array has no units; attach them (import astropy.units as u; "
+                             f"{name}=array * {hint}) so that values in code units are never taken as cgs")
+        raise InputError(f"{name}: expected an array with units of {unit} (an astropy Quantity), "
+                         f"got {type(value).__name__}")
+    if not value.unit.is_equivalent(unit, equivalencies=equivalencies or []):
+        raise InputError(f"{name}: expected units of {unit}, got '{value.unit}'")
+    value = value.to_value(unit, equivalencies=equivalencies or [])
     try:
         return np.ascontiguousarray(value, dtype=dtype)
     except (TypeError, ValueError):

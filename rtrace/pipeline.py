@@ -113,7 +113,7 @@ def run(job, progress=None, restart=False):
                 continue
             snap = snapshots.get(unit.member, step, total)
             say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies")
-            res, sky = engine.trace(snap, unit.view)
+            res, sky = engine.trace(snap, unit.view, unit.member["label"], unit.name)
             if todo:
                 say(step, total, f"{unit.where}: writing {len(todo)} outputs")
             make(todo, res, sky, manifest, written)
@@ -138,7 +138,7 @@ def run(job, progress=None, restart=False):
                     snap = snapshots.get(unit.member, step, total)
                     say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies again "
                                      f"for its pictures")
-                    cached = engine.trace(snap, unit.view)
+                    cached = engine.trace(snap, unit.view, unit.member["label"], unit.name)
                 say(step, total, f"{unit.where}: drawing {len(todo)} pictures on the series' colour scales")
                 make(todo, *cached, manifest, written)
                 del cached

@@ -4,6 +4,14 @@
 :func:`picture_outputs` its pictures; each is an :class:`Output` (path,
 inputs key, and the function that writes it from the traced `Result` and
 the observed `SkyMap`). Files are named ``<folder>/<prefix><view>_<suffix>``.
+
+Names say what a file holds, and a picture and a FITS file of the same stem
+hold the same product: the model (the traced `Result`: unconvolved,
+noiseless, Jy/pixel) is ``<view>_intensity``, ``_tau``,
+``_emission_measure``, ``_brightness_temperature``, ``_sed`` and
+``_spectral_index``; the observed map (the `SkyMap`: beam-convolved, with
+noise, Jy/beam) is ``<view>_observed``, ``_observed_sed`` and
+``_observed_spectral_index``, made only when the job has a ``[beam]``.
 """
 
 from dataclasses import dataclass
@@ -18,9 +26,16 @@ __all__ = ["PICTURES", "QUANTITIES", "Output", "data_outputs", "picture_outputs"
 
 QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
-# (quantity, drawn from the observed SkyMap when there is one); order is the order written
-PICTURES = (("intensity", True), ("tau", False), ("brightness_temperature", False),
-            ("emission_measure", False), ("spectral_index", True))
+# (file stem, quantity drawn, drawn from the observed SkyMap); order is the order written.
+# Observed pictures are made only when the job has a beam.
+PICTURES = (("intensity", "intensity", False), ("tau", "tau", False),
+            ("brightness_temperature", "brightness_temperature", False),
+            ("emission_measure", "emission_measure", False), ("spectral_index", "spectral_index", False),
+            ("observed", "intensity", True), ("observed_spectral_index", "spectral_index", True))
+
+#: What each SED file is computed from, written into its header.
+SED_SOURCES = {False: "model: the traced image, unconvolved and noiseless (exact flux within the field)",
+               True: "observed map: beam-convolved, with noise (a field-filling image loses flux at its edges)"}
 
 
 @dataclass
@@ -49,23 +64,24 @@ def _cube_files(job, path, frequencies=True):
     return output_paths(path, job.frequencies if frequencies else None, job.output.get("spectral_axis", "auto"))
 
 
-def _write_sed(path, res, sky, name):
+def _write_sed(path, res, sky, name, observed):
     from .analysis.spectra import sed, write_sed_csv
-    nu, flux = sed(sky if sky is not None else res)
+    nu, flux = sed(sky if observed else res)
     write_sed_csv(path, nu, flux, metadata={"source": res.provenance.get("source", ""), "view": name,
+                                            "computed from": SED_SOURCES[observed],
                                             "aperture": "whole image"})
 
 
-def _draw_sed(path, res, sky, name):
+def _draw_sed(path, res, sky, name, observed):
     from .analysis.spectra import sed
     from .plot import plot_sed
-    nu, flux = sed(sky if sky is not None else res)
-    _close(plot_sed(nu, flux, path=path, label=name))
+    nu, flux = sed(sky if observed else res)
+    _close(plot_sed(nu, flux, path=path, label=f"{name} ({'observed map' if observed else 'model'})"))
 
 
 def _draw_picture(path, res, sky, quantity, observed, limits):
     from .plot import plot_map, plot_panels
-    obj = sky if observed and sky is not None else res
+    obj = sky if observed else res
     kw = {}
     if limits is not None:
         kw = {"vmin": u.Quantity(limits["vmin"], limits["unit"]), "vmax": u.Quantity(limits["vmax"], limits["unit"])}
@@ -104,15 +120,18 @@ def data_outputs(job, unit, quantities, fmt):
                                 partial(_write_quantity, quantity=q, spectral_axis=axis),
                                 _cube_files(job, path, q != "emission_measure")))
         if job.beam:
-            path = _stem(job, unit, "jy_per_beam.fits")
-            cubes.append(Output(path, output_key(unit.base, "fits:jy_per_beam", obs),
+            path = _stem(job, unit, "observed.fits")
+            cubes.append(Output(path, output_key(unit.base, "fits:observed", obs),
                                 partial(_write_sky, spectral_axis=axis), _cube_files(job, path)))
     if out.get("sed", True):
-        spectra.append(Output(_stem(job, unit, "sed.csv"), output_key(unit.base, "sed:csv", obs),
-                              partial(_write_sed, name=unit.name)))
-        if out.get("pictures", True) and len(job.frequencies) > 1:
-            spectra.append(Output(_stem(job, unit, f"sed.{fmt}"), output_key(unit.base, f"sed:{fmt}", obs),
-                                  partial(_draw_sed, name=unit.name)))
+        for observed in ((False, True) if job.beam else (False,)):
+            stem, settings = ("observed_sed", obs) if observed else ("sed", None)
+            spectra.append(Output(_stem(job, unit, f"{stem}.csv"), output_key(unit.base, f"{stem}:csv", settings),
+                                  partial(_write_sed, name=unit.name, observed=observed)))
+            if out.get("pictures", True) and len(job.frequencies) > 1:
+                spectra.append(Output(_stem(job, unit, f"{stem}.{fmt}"),
+                                      output_key(unit.base, f"{stem}:{fmt}", settings),
+                                      partial(_draw_sed, name=unit.name, observed=observed)))
     return cubes, spectra
 
 
@@ -120,11 +139,11 @@ def picture_outputs(job, unit, fmt, limits):
     """The pictures of one view; ``limits`` are the series' colour scales of that view, or None."""
     obs = observing_settings(job)
     plan = []
-    for q, observed in PICTURES:
-        if q == "spectral_index" and len(job.frequencies) < 2:
+    for stem, q, observed in PICTURES:
+        if (q == "spectral_index" and len(job.frequencies) < 2) or (observed and not job.beam):
             continue
-        lim = None if limits is None else limits.get(q)
-        plan.append(Output(_stem(job, unit, f"{q}.{fmt}"),
-                           output_key(unit.base, f"picture:{q}.{fmt}", obs if observed else None, lim),
+        lim = None if limits is None else limits.get(stem)
+        plan.append(Output(_stem(job, unit, f"{stem}.{fmt}"),
+                           output_key(unit.base, f"picture:{stem}.{fmt}", obs if observed else None, lim),
                            partial(_draw_picture, quantity=q, observed=observed, limits=lim)))
     return plan

@@ -117,6 +117,11 @@ class Snapshot(GridGeometry):
         ``ionization`` model and one thermal input: ``temperature``,
         ``pressure`` or ``internal_energy``.
 
+        Every physical field must be an `~astropy.units.Quantity`: a plain
+        array is refused (InputError naming the field), because values in a
+        simulation's code units would otherwise be taken as cgs without a
+        word. Ionized fractions and model ``fields`` are dimensionless.
+
         Parameters
         ----------
         temperature : `~astropy.units.Quantity` (nx, ny, nz), optional

@@ -8,6 +8,7 @@ import inspect
 import json
 import os
 import textwrap
+from pathlib import Path
 
 import astropy.units as u
 import h5py
@@ -52,7 +53,7 @@ pictures = false
 """
 
 PER_SEED = ["a_intensity.fits", "a_tau.fits", "a_emission_measure.fits", "a_brightness_temperature.fits",
-            "a_jy_per_beam.fits", "a_sed.csv"]
+            "a_observed.fits", "a_sed.csv", "a_observed_sed.csv"]
 
 
 def write(tmp_path, text, name="job.toml"):
@@ -113,7 +114,7 @@ def test_series_writes_one_folder_per_snapshot_and_a_verifiable_manifest(tmp_pat
     assert job.series and [m["label"] for m in job.snapshots] == ["seed1", "seed2", "seed3"]
     out = tmp_path / "out"
     written = run_job(job)
-    assert set(written) == expected(out) and len(written) == 18 and written.skipped == []
+    assert set(written) == expected(out) and len(written) == 21 and written.skipped == []
     assert not hidden_leftovers(out)
     # each folder holds its own snapshot: emission measures differ between seeds
     em = [fits.getdata(out / f"seed{s}" / "a_emission_measure.fits") for s in (1, 2)]
@@ -205,7 +206,7 @@ def test_changed_settings_redo_only_the_outputs_they_affect(tmp_path):
     job_path = write(tmp_path, SERIES)
     out = tmp_path / "out"
     run_job(load_job(job_path))
-    observed = {str(out / f"seed{s}" / n) for s in (1, 2, 3) for n in ("a_jy_per_beam.fits", "a_sed.csv")}
+    observed = {str(out / f"seed{s}" / n) for s in (1, 2, 3) for n in ("a_observed.fits", "a_observed_sed.csv")}
     before = stamps(expected(out) - observed)
     # the noise changes the observed map and its SED, not the model cubes
     again = run_job(load_job(write(tmp_path, SERIES.replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))))
@@ -326,15 +327,16 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
     first = recorded(out)
     again = run_job(load_job(job_path))
     assert traces.calls == 2                      # resumed from the cached results: nothing traced again
-    pictures = {str(out / f"seed{s}" / f"a_{q}.png") for s in (1, 2)
-                for q in ("intensity", "tau", "brightness_temperature", "emission_measure", "spectral_index")}
-    assert set(again) == pictures - first and len(drawn) == 10
+    stems = ("intensity", "tau", "brightness_temperature", "emission_measure", "spectral_index", "observed",
+             "observed_spectral_index")
+    pictures = {str(out / f"seed{s}" / f"a_{q}.png") for s in (1, 2) for q in stems}
+    assert set(again) == pictures - first and len(drawn) == 14
     assert not hidden_leftovers(out)              # the cache is gone once the series is complete
 
     by_q = {}
     for d in drawn:
-        by_q.setdefault(d["quantity"], []).append(d)
-    assert set(by_q) == {"intensity", "tau", "brightness_temperature", "emission_measure", "spectral_index"}
+        by_q.setdefault(Path(d["path"]).stem.split("_", 1)[1], []).append(d)
+    assert set(by_q) == set(stems)
     for q, items in by_q.items():
         assert len(items) == 2, q                 # one per snapshot, across the two runs
         a, b = (d["norm"] for d in items)
@@ -345,9 +347,11 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
     assert min(tau_max) < 0.9 * max(tau_max)
     em_max = [float(d["obj"].emission_measure.to_value(u.pc * u.cm**-6).max()) for d in by_q["emission_measure"]]
     assert by_q["emission_measure"][0]["norm"].vmax == pytest.approx(max(em_max))
-    jy = [float(d["obj"].data.to_value(u.Jy / u.beam).max()) for d in by_q["intensity"]]
-    for d in by_q["intensity"]:
-        assert d["kw"]["vmax"].to_value(u.Jy / u.beam) == pytest.approx(max(jy))
+    jy = [float(d["obj"].data.to_value(u.Jy / u.beam).max()) for d in by_q["observed"]]
+    for d in by_q["observed"]:
+        assert d["obj"] is not d["obj"].result and d["kw"]["vmax"].to_value(u.Jy / u.beam) == pytest.approx(max(jy))
+    for d in by_q["intensity"]:                   # the model: the traced Result, not the observed map
+        assert isinstance(d["obj"], rtrace.Result)
 
     # a deleted picture: only it is drawn again, from one retraced view (the cache is gone)
     (out / "seed1/a_tau.png").unlink()
@@ -367,13 +371,15 @@ def observed():
     return res, sky
 
 
-@pytest.mark.parametrize("quantity,kind", [("intensity", "panels"), ("tau", "panels"),
-                                           ("spectral_index", "map")])
-def test_a_series_of_one_gets_the_automatic_scale(observed, quantity, kind):
+@pytest.mark.parametrize("stem,quantity,kind", [("intensity", "intensity", "panels"), ("tau", "tau", "panels"),
+                                                ("observed", "intensity", "panels"),
+                                                ("spectral_index", "spectral_index", "map"),
+                                                ("observed_spectral_index", "spectral_index", "map")])
+def test_a_series_of_one_gets_the_automatic_scale(observed, stem, quantity, kind):
     """The series limits follow the automatic rules: one snapshot alone looks as it would without them."""
     res, sky = observed
-    lim = colour_scales.series_limits([colour_scales.view_ranges(res, sky, 2)])[quantity]
-    obj = sky if quantity != "tau" else res
+    lim = colour_scales.series_limits([colour_scales.view_ranges(res, sky, 2)])[stem]
+    obj = sky if stem.startswith("observed") else res
     kw = {"frequency": (1 * u.GHz, 10 * u.GHz)} if kind == "map" else {}
     draw = plot.plot_map if kind == "map" else plot.plot_panels
     auto = draw(obj, quantity=quantity, **kw).axes[0].get_images()[0].norm
@@ -381,7 +387,7 @@ def test_a_series_of_one_gets_the_automatic_scale(observed, quantity, kind):
                  vmax=u.Quantity(lim["vmax"], lim["unit"]), **kw).axes[0].get_images()[0].norm
     assert type(given) is type(auto)
     assert (given.vmin, given.vmax) == pytest.approx((auto.vmin, auto.vmax), rel=1e-12)
-    if quantity == "intensity":
+    if stem == "observed":
         assert lim["vmin"] < 0                       # noise: negative pixels set the lower end
 
 
@@ -525,3 +531,19 @@ def test_series_cache_reads_only_files_signed_with_the_users_key(tmp_path, monke
     path.write_bytes(signed)
     assert Cache(cache.folder).get(unit) is None                                            # another key
     assert oct((tmp_path / "key" / "series-cache.key").stat().st_mode & 0o777) == "0o600"
+
+
+def test_each_snapshot_of_a_series_gets_its_own_reproducible_noise(tmp_path):
+    # Identical noise in every snapshot would show as persistent structure in differences between them.
+    from rtrace.engine import noise_seed
+    series = load_job(write(tmp_path, SERIES))
+    seeds = [noise_seed(series, m["label"]) for m in series.snapshots]
+    assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m["label"]) for m in series.snapshots]
+    single = load_job(write(tmp_path, SERIES.replace("seeds = [1, 2, 3]", "seed = 1"), "single.toml"))
+    assert noise_seed(single, single.snapshots[0]["label"]) == 3        # a single snapshot keeps [noise].seed
+    out = tmp_path / "out"
+    run_job(series)
+    # the observed SED of each snapshot says what it was computed from; the model's says it is the model
+    assert "computed from: observed map" in (out / "seed1" / "a_observed_sed.csv").read_text()
+    assert "computed from: model" in (out / "seed1" / "a_sed.csv").read_text()
+

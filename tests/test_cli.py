@@ -48,11 +48,11 @@ def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):
     assert main(["run", str(job), "--quiet"]) == EXIT_OK
     out = tmp_path / "out"
     names = sorted(p.name for p in out.iterdir())
-    for expected in ("small_intensity.fits", "small_tau.fits", "small_jy_per_beam.fits", "small_sed.csv",
+    for expected in ("small_intensity.fits", "small_tau.fits", "small_observed.fits", "small_sed.csv",
                      "small_intensity.png", "small_sed.png"):
         assert expected in names
     assert [n for n in names if n.startswith(".")] == [".rtrace-manifest.json"]   # no temporary files left
-    with fits.open(out / "small_jy_per_beam.fits") as hdul:
+    with fits.open(out / "small_observed.fits") as hdul:
         header = hdul[0].header
         assert hdul[0].data.shape == (2, 24, 24)
         # FITS beam keywords in degrees (common practice of radio FITS files)
@@ -129,14 +129,14 @@ def test_rerun_skips_finished_outputs_and_restart_redoes_them(tmp_path, capsys):
     assert main(["run", str(job), "--quiet"]) == EXIT_OK
     out = tmp_path / "out"
     assert sorted(p.name for p in out.iterdir()) == [".rtrace-manifest.json", "seed1", "seed2"]
-    assert "wrote 12 files" in capsys.readouterr().out
+    assert "wrote 14 files" in capsys.readouterr().out
     assert main(["run", str(job)]) == EXIT_OK                    # with progress lines
     captured = capsys.readouterr()
-    assert "wrote 0 files" in captured.out and "skipped 12 files already up to date" in captured.out
-    assert "seed1 / view 'small': 6 of 6 outputs up to date, skipped" in captured.err
-    assert "done: 0 written, 12 up to date (skipped)" in captured.err
+    assert "wrote 0 files" in captured.out and "skipped 14 files already up to date" in captured.out
+    assert "seed1 / view 'small': 7 of 7 outputs up to date, skipped" in captured.err
+    assert "done: 0 written, 14 up to date (skipped)" in captured.err
     assert main(["run", str(job), "--quiet", "--restart"]) == EXIT_OK
-    assert "wrote 12 files" in capsys.readouterr().out
+    assert "wrote 14 files" in capsys.readouterr().out
 
 
 @pytest.mark.parametrize("argv,message", [

@@ -234,13 +234,27 @@ def test_rayleigh_jeans_temperature_matches_astropy():
         assert np.allclose(tb[i].value, formula.value, rtol=1e-6)
 
 
+def test_emission_at_the_image_edge_is_reported():
+    # A field-filling image loses flux to the beam convolution at its edges (common practice: a
+    # convolution cannot keep flux it spreads beyond the image); a compact source far from the edges
+    # says nothing.
+    nu = np.array([1e9])
+    with pytest.warns(UserWarning, match=r"observe: emission reaches the image edge \(6\.6% of the flux"):
+        observe(make_result(np.ones((1, 60, 60)), nu), beam(3.0))
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        observe(point_source((60, 60), 30, 30, 1.0), beam(3.0))
+
+
 def test_planck_temperature_of_a_blackbody_field():
     # A field at B_nu(T) everywhere: the mean intensity in any beam away from the edges is B_nu(T),
     # and its Planck inversion gives T back (Rybicki & Lightman 1979 eq. 1.51).
     nu = np.array([1e9, 300e9])
     temp = 8000.0
     img = np.broadcast_to(planck_cgs(nu, np.full(2, temp))[:, None, None], (2, 60, 60))
-    sky = observe(make_result(img, nu), beam(4.0, 3.0, 15.0))
+    with pytest.warns(UserWarning, match="emission reaches the image edge"):        # field-filling on purpose
+        sky = observe(make_result(img, nu), beam(4.0, 3.0, 15.0))
     centre = sky.brightness_temperature("planck")[:, 30, 30].to_value(u.K)
     assert np.allclose(centre, temp, rtol=1e-9)
     rj = sky.brightness_temperature("rayleigh-jeans")[:, 30, 30].to_value(u.K)

@@ -61,6 +61,25 @@ def test_shape_mismatch_and_units():
         rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc)
 
 
+@pytest.mark.parametrize("field", ["temperature", "electron_density", "ion_density", "density", "pressure",
+                                   "internal_energy"])
+def test_plain_arrays_without_units_are_refused(field):
+    # A simulation's code units must never be taken silently as cgs: the error names the field and
+    # shows how to attach units, before any ionization or tracing work.
+    t, ne = arrays()
+    if field in ("temperature", "electron_density", "ion_density"):
+        kw = {"temperature": t * u.K, "electron_density": ne * u.cm**-3, "ion_density": ne * u.cm**-3}
+    else:
+        kw = {"density": np.full(t.shape, 1e-22) * u.g / u.cm**3}
+        if field == "density":
+            kw["temperature"] = t * u.K
+        else:
+            kw[field] = np.full(t.shape, 1.0) * (u.dyn / u.cm**2 if field == "pressure" else u.erg / u.g)
+    kw[field] = kw[field].value                      # the same numbers, units dropped
+    with pytest.raises(InputError, match=rf"{field}: a plain array has no units; attach them .*{field}=array \* u\."):
+        rtrace.Snapshot.from_arrays(cell_size=1 * u.pc, **kw)
+
+
 def test_density_with_ionization_models():
     # Fully ionized H + singly ionized He: n_e = n_H + n_He (hand calculation, common practice).
     t, _ = arrays()

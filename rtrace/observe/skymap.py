@@ -8,6 +8,7 @@ from ..quantities import finite_number, positive_scalar
 from ..physics.planck import inverse_planck_cgs
 from ..transfer.result import Result
 from .beam import BeamKernel, beams_for_frequencies, describe_beam, validate_beam
+from .edges import warn_if_emission_at_edge
 from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_frequency
 
 __all__ = ["SkyMap", "observe"]
@@ -74,6 +75,7 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
         raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
     # Jy per pixel: S = I Omega_pix, then erg s-1 cm-2 Hz-1 -> Jy
     jy_per_pixel = intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
+    warn_if_emission_at_edge(jy_per_pixel, nu, "observe")
 
     beams = beams_for_frequencies(beam, nu, beam_scaling, ref_hz)
     image_shape = intensity.shape[1:]
