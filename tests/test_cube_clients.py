@@ -147,8 +147,9 @@ def test_emission_measure_map(results, tmp_path):
     assert write_result(results["irregular"], path, "emission_measure") == path
     header, _ = verified_header(path)
     assert header["NAXIS"] == 2 and WCS(header).naxis == 2
-    proj = spectral_cube.Projection.from_hdu(fits.open(path)[0])
-    assert u.Unit(proj.unit) == u.pc / u.cm**6
+    with fits.open(path) as hdul:
+        proj = spectral_cube.Projection.from_hdu(hdul[0])
+        assert u.Unit(proj.unit) == u.pc / u.cm**6 and proj.shape == (8, 8)
 
 
 # --------------------------------------------------------------------------------------------
