@@ -40,10 +40,11 @@ def _write_sky(path, res, sky):
 
 
 def _write_sed(path, res, sky, name):
-    from .analysis.spectra import sed, write_sed_csv
-    nu, flux = sed(sky if sky is not None else res)
+    from .analysis.spectra import describe_background, sed, write_sed_csv
+    obj = sky if sky is not None else res
+    nu, flux = sed(obj)
     write_sed_csv(path, nu, flux, metadata={"source": res.provenance.get("source", ""), "view": name,
-                                            "aperture": "whole image"})
+                                            "aperture": "whole image", "background": describe_background(obj)})
 
 
 def _draw_sed(path, res, sky, name):
