@@ -107,7 +107,8 @@ class Result:
         `~astropy.units.Quantity` (nfreq, ny, nx)
             erg s-1 cm-2 Hz-1 sr-1.
         """
-        if check_convention(background) == "included":
+        if check_convention(background) == "included" or not np.any(self.background.value):
+            # nothing to subtract: the stored images themselves, no copy
             return u.Quantity(self._intensity, INTENSITY_UNIT, copy=False)
         return u.Quantity(self._intensity - self.background.value[:, None, None], INTENSITY_UNIT)
 
