@@ -218,7 +218,8 @@ def _write_cut_csv(path, c):
                  c.spectral_index[k]]
     with atomic_path(path) as tmp:
         with open(tmp, "w") as fh:
-            fh.write("# rtrace cut; intensities in erg s-1 cm-2 Hz-1 sr-1, T_b Planck (K)\n")
+            fh.write("# rtrace cut; intensities in erg s-1 cm-2 Hz-1 sr-1, T_b Planck (K); "
+                     f"background {c.describe_background()}\n")
             fh.write(",".join(names) + "\n")
             for row in zip(*cols):
                 fh.write(",".join(f"{v:.8g}" for v in row) + "\n")

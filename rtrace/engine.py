@@ -110,8 +110,8 @@ class Engine:
             sky = _observe(res, job, label)               # warns itself when emission reaches the edge
         else:
             sky = None
-            above_background = res.intensity.value - res.background.value[:, None, None]   # ~ flux per pixel
-            warn_if_emission_at_edge(above_background, res.frequencies.to_value(u.Hz), f"view '{view_name}'")
+            # background-subtracted intensity: proportional to the flux per pixel
+            warn_if_emission_at_edge(res.intensity.value, res.frequencies.to_value(u.Hz), f"view '{view_name}'")
         return res, sky
 
     def close(self):

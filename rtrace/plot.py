@@ -265,7 +265,8 @@ def _plane(obj, quantity, frequency):
         peak = np.nanmax(np.abs(values)) if np.isfinite(values).any() else 1.0
         factor, prefix = _prefix_for(peak)
         noise = _noise(obj, index)
-        return _Plane(values / factor, label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$)", tag=tag,
+        return _Plane(values / factor, label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$){_background_note(obj)}",
+                      tag=tag,
                       unit=factor * u.Jy / per, per=per, beam=_beam(obj, index),
                       noise=None if noise is None else noise / factor, **common)
     if quantity == "tau":
@@ -291,7 +292,16 @@ def _plane(obj, quantity, frequency):
         tb = np.where(np.asarray(obj.intensity[index].value) == 0, 0.0, tb)
         label = "brightness temperature (K)"
         noise = None
-    return _Plane(tb, label=label, tag=tag, unit=u.K, per=None, beam=_beam(obj, index), noise=noise, **common)
+    return _Plane(tb, label=label + _background_note(obj), tag=tag, unit=u.K, per=None, beam=_beam(obj, index),
+                  noise=noise, **common)
+
+
+def _background_note(obj):
+    """``', background subtracted'`` (or included) when a background was traced; '' otherwise."""
+    from .transfer.background import background_of
+    if background_of(obj).kind == "none":
+        return ""
+    return f", background {getattr(obj, 'background', 'subtracted') if _is_skymap(obj) else 'subtracted'}"
 
 
 def _limit(value, plane, name):

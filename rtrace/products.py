@@ -65,11 +65,12 @@ def _cube_files(job, path, frequencies=True):
 
 
 def _write_sed(path, res, sky, name, observed):
-    from .analysis.spectra import sed, write_sed_csv
-    nu, flux = sed(sky if observed else res)
+    from .analysis.spectra import describe_background, sed, write_sed_csv
+    obj = sky if observed else res
+    nu, flux = sed(obj)
     write_sed_csv(path, nu, flux, metadata={"source": res.provenance.get("source", ""), "view": name,
                                             "computed from": SED_SOURCES[observed],
-                                            "aperture": "whole image"})
+                                            "aperture": "whole image", "background": describe_background(obj)})
 
 
 def _draw_sed(path, res, sky, name, observed):

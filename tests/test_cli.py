@@ -60,6 +60,11 @@ def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):
         assert WCS(header).naxis == 3
     sed = np.loadtxt(out / "small_sed.csv", delimiter=",", comments="#", skiprows=1, ndmin=2)
     assert sed.shape[0] == 2
+    # every product says its background convention (rtrace.transfer.background): FITS cards and a CSV line
+    for path in out.glob("*.fits"):
+        header = fits.getheader(path)
+        assert (header["BKGSUB"], header["BKGKIND"], header["BKGTEMP"]) == (True, "NONE", 0.0), path.name
+    assert "# background: subtracted (none): empty sky reads 0" in (out / "small_sed.csv").read_text()
     assert "wrote" in capsys.readouterr().out
 
 
@@ -104,6 +109,7 @@ def test_cut_writes_profiles_and_figure(tmp_path, capsys):
     assert rows.size == 20
     # with absorption the intensity never exceeds the emission-only one (R&L 1979 eq. 1.30: (1 - e^-tau)/tau <= 1)
     assert np.all(rows["I_1GHz"] <= rows["I_unabsorbed_1GHz"] * (1 + 1e-6))
+    assert "background subtracted" in csv.read_text().splitlines()[0]
     with pytest.raises(SystemExit) as exc:
         main(["cut", str(job), "--start", "2", "--end", "3, 4"])
     assert exc.value.code == 2

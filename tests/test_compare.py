@@ -94,7 +94,7 @@ def point_source_sum(res, plane, beam, header):
     rows, cols = np.mgrid[0:ny, 0:nx]
     model_wcs = sky_wcs(res.shape[1:], res.pixel_scale, res.sky_position)
     mx, my = model_wcs.world_to_pixel(wcs.pixel_to_world(cols, rows))
-    flux = ((res.intensity[plane] - res.background[plane]) * res.pixel_solid_angle).to_value(
+    flux = (res.intensity[plane] * res.pixel_solid_angle).to_value(
         u.erg / (u.s * u.cm**2 * u.Hz) * u.sr / u.sr) / 1.0e-23
     mrow, mcol = np.mgrid[0:res.shape[1], 0:res.shape[2]]
     s = res.pixel_scale.to_value(u.arcsec)

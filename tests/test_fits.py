@@ -274,12 +274,12 @@ def test_jy_per_pixel_sums_equal_flux_density(res, tmp_path):
 
 def test_jy_per_pixel_and_the_background(snap, tmp_path):
     # By default the file holds I - I_bg, as a differential measurement sees it (common practice), so its
-    # pixel sum is flux_density(); subtract_background=False keeps the total intensity.
+    # pixel sum is flux_density(); background="included" keeps the total intensity.
     res = rtrace.trace(snap, rtrace.View(npix=8, distance=2 * u.kpc), [1] * u.GHz, background="cmb")
     _, data, _, _ = read(write_result(res, tmp_path / "b.fits"))
     assert np.allclose(data.sum(axis=(1, 2), dtype=np.float64), res.flux_density().to_value(u.Jy), rtol=1e-5)
-    _, data, _, _ = read(write_result(res, tmp_path / "t.fits", subtract_background=False))
-    total = res.flux_density(subtract_background=False).to_value(u.Jy)
+    _, data, _, _ = read(write_result(res, tmp_path / "t.fits", background="included"))
+    total = res.flux_density(background="included").to_value(u.Jy)
     assert np.allclose(data.sum(axis=(1, 2), dtype=np.float64), total, rtol=1e-5, atol=0)
     assert not np.allclose(total, res.flux_density().to_value(u.Jy), rtol=1e-3)
 

@@ -85,9 +85,12 @@ def test_cmb_background_through_a_slab():
     res = rtrace.trace(snap, view, NU * u.Hz, background="cmb")
     tau, intensity = slab_expectation(NU, 8000.0, 100.0, 10 * 0.01 * PC)
     bg = planck_cgs(NU, np.full_like(NU, 2.7255))
-    inside = res.intensity.value[:, 2:6, 2:6]
+    full = res.specific_intensity(background="included").value
+    inside = full[:, 2:6, 2:6]
     assert np.allclose(inside, (bg * np.exp(-tau) + intensity)[:, None, None], rtol=2e-6)
-    assert np.allclose(res.intensity.value[:, 0, :], bg[:, None], rtol=1e-12)   # outside the box: CMB only
+    assert np.allclose(full[:, 0, :], bg[:, None], rtol=1e-12)   # outside the box: CMB only
+    # the default intensity is background subtracted: empty sky reads 0
+    assert np.all(res.intensity.value[:, 0, :] == 0.0)
     # The differential flux removes the background: S = sum (I - I_bg) Omega.
     expected = (intensity - bg * -np.expm1(-tau)) * 16 * res.pixel_solid_angle.to_value(u.sr)
     got = res.flux_density().to(u.erg / (u.s * u.cm**2 * u.Hz)).value
@@ -236,7 +239,7 @@ def test_flux_density_with_and_without_background():
     res = rtrace.trace(snap, rtrace.View(npix=8, width=0.08 * u.pc, distance=1 * u.kpc), [1.0] * u.GHz,
                        background=2.7255 * u.K)
     omega = res.pixel_solid_angle.to_value(u.sr)
-    total = res.intensity.value.sum() * omega * 1e23
+    total = res.specific_intensity("included").value.sum() * omega * 1e23
     bg = planck_cgs(np.array([1e9]), np.array([2.7255]))[0]
-    assert res.flux_density(subtract_background=False)[0].to_value(u.Jy) == pytest.approx(total, rel=1e-12)
+    assert res.flux_density(background="included")[0].to_value(u.Jy) == pytest.approx(total, rel=1e-12)
     assert res.flux_density()[0].to_value(u.Jy) == pytest.approx(total - bg * 64 * omega * 1e23, rel=1e-9)

@@ -1,9 +1,9 @@
 """Analysis of traced and observed images: spectra, spectral indices, optical-depth turnover."""
 
-from .spectra import (FREQUENCY_TOLERANCE, SED_COLUMNS, THIN_SPECTRAL_INDEX, aperture_mask, frequency_index,
-                      pixel_flux, sed, sed_metadata, spectral_index, spectral_index_map, tau_unity_frequency,
+from .spectra import (FREQUENCY_TOLERANCE, SED_COLUMNS, THIN_SPECTRAL_INDEX, aperture_mask, describe_background,
+                      frequency_index, pixel_flux, sed, sed_metadata, spectral_index, spectral_index_map, tau_unity_frequency,
                       write_sed_csv)
 
-__all__ = ["sed", "sed_metadata", "write_sed_csv", "spectral_index", "spectral_index_map",
+__all__ = ["sed", "sed_metadata", "describe_background", "write_sed_csv", "spectral_index", "spectral_index_map",
            "tau_unity_frequency", "frequency_index", "pixel_flux", "aperture_mask", "FREQUENCY_TOLERANCE",
            "THIN_SPECTRAL_INDEX", "SED_COLUMNS"]

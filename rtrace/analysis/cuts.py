@@ -7,7 +7,11 @@ images (bilinear by default); brightness temperatures and spectral indices
 are computed from the interpolated intensities. The unabsorbed profile
 (``int j ds``, see :attr:`rtrace.Result.unabsorbed_intensity`) is traced on
 first use, so full and unabsorbed profiles can be overlaid to show where
-absorption matters.
+absorption matters. Both profiles are in one background convention
+(:mod:`rtrace.transfer.background`): ``subtracted`` (default) gives
+``I - I_bg`` and ``int j ds``; ``included`` gives ``I`` and
+``I_bg + int j ds`` (the background unattenuated). Either way the gap
+between them is the absorption alone.
 """
 
 import math
@@ -17,7 +21,7 @@ import numpy as np
 from scipy import ndimage
 
 from ..errors import InputError
-from ..physics.planck import inverse_planck_cgs
+from ..transfer.background import brightness_temperature_cgs, check_convention, describe
 
 __all__ = ["Cut", "cut"]
 
@@ -47,7 +51,7 @@ def _sample(planes, rows, cols, order):
     return out.reshape(lead + (len(rows),))
 
 
-def cut(result, start, end, num=None, order=1):
+def cut(result, start, end, num=None, order=1, background="subtracted"):
     """Profiles along the straight line from ``start`` to ``end``.
 
     Parameters
@@ -58,11 +62,15 @@ def cut(result, start, end, num=None, order=1):
         Number of samples (default: one per pixel of length, at least 2).
     order : int, optional
         Spline order of the interpolation (1: bilinear, 0: nearest pixel).
+    background : {"subtracted", "included"}, optional
+        Convention of the intensity, unabsorbed intensity and brightness
+        temperature profiles (see the module notes).
 
     Returns
     -------
     `Cut`
     """
+    convention = check_convention(background)
     c0, r0 = _endpoint(result, start, "start")
     c1, r1 = _endpoint(result, end, "end")
     length = math.hypot(c1 - c0, r1 - r0)
@@ -76,7 +84,7 @@ def cut(result, start, end, num=None, order=1):
     frac = np.linspace(0.0, 1.0, num)
     cols = c0 + frac * (c1 - c0)
     rows = r0 + frac * (r1 - r0)
-    return Cut(result, cols, rows, frac * length, order)
+    return Cut(result, cols, rows, frac * length, order, convention)
 
 
 class Cut:
@@ -92,28 +100,35 @@ class Cut:
         Physical distance from the start at the source (pc).
     frequencies : Quantity (nfreq,)
     intensity, tau, emission_measure, brightness_temperature, spectral_index
-        Profiles, ``(nfreq, num)`` except EM ``(num,)``.
+        Profiles, ``(nfreq, num)`` except EM ``(num,)``. Intensity and the
+        Planck brightness temperature are in the cut's ``background``
+        convention (subtracted: ``T_P(I) - T_P(I_bg)``); the spectral index
+        is that of the intensity profile.
     unabsorbed_intensity : Quantity (nfreq, num)
-        ``int j ds`` along the same samples (traced on first use). Like
-        :attr:`rtrace.Result.unabsorbed_intensity` it excludes any background,
-        which ``intensity`` includes (attenuated), as ``Result.intensity`` does.
+        ``int j ds`` along the same samples (traced on first use), plus the
+        unattenuated background ``I_bg`` in the ``included`` convention.
+    background : {"subtracted", "included"}
     """
 
-    def __init__(self, result, cols, rows, offset_pix, order):
+    def __init__(self, result, cols, rows, offset_pix, order, background="subtracted"):
         self.result = result
         self.columns, self.rows = cols, rows
         self.order = order
+        self.background = check_convention(background)
+        self._bg = np.asarray(result.background.value, float)[:, None]
         self.offset = offset_pix * result.pixel_scale.to(u.arcsec)
         self.distance = (offset_pix * result.pixel_size).to(u.pc)
         self.frequencies = result.frequencies
-        unit = result.intensity.unit
-        self._i = _sample(result.intensity.value, rows, cols, order)
-        self.intensity = u.Quantity(self._i, unit)
+        subtracted = result.specific_intensity("subtracted")
+        delta = _sample(subtracted.value, rows, cols, order)
+        self._i = delta if self.background == "subtracted" else delta + self._bg
+        self.intensity = u.Quantity(self._i, subtracted.unit)
         self.tau = _sample(result.tau, rows, cols, order)
         self.emission_measure = u.Quantity(_sample(result.emission_measure.value, rows, cols, order),
                                            result.emission_measure.unit)
         nu = self.frequencies.to_value(u.Hz)[:, None]
-        self.brightness_temperature = u.Quantity(inverse_planck_cgs(nu, self._i), u.K)
+        self.brightness_temperature = u.Quantity(
+            brightness_temperature_cgs(nu, delta, self._bg, "planck", self.background), u.K)
         self._unabsorbed = None
 
     @property
@@ -129,8 +144,15 @@ class Cut:
     def unabsorbed_intensity(self):
         if self._unabsorbed is None:
             thin = self.result.unabsorbed_intensity
-            self._unabsorbed = u.Quantity(_sample(thin.value, self.rows, self.columns, self.order), thin.unit)
+            values = _sample(thin.value, self.rows, self.columns, self.order)
+            if self.background == "included":
+                values = values + self._bg
+            self._unabsorbed = u.Quantity(values, thin.unit)
         return self._unabsorbed
+
+    def describe_background(self):
+        """One line saying the profiles' background convention (for file headers)."""
+        return describe(self.background, self.result)
 
     def plot(self, path=None, frequencies=None):
         """Figure: full (solid) and unabsorbed (dashed) intensity profiles, and tau, along the cut.
@@ -155,7 +177,8 @@ class Cut:
             ax_t.set_yscale("log")
         ax_t.axhline(1.0, color="0.4", lw=0.8, ls=":")
         ax_i.set_ylabel(r"$I_\nu$ (erg s$^{-1}$ cm$^{-2}$ Hz$^{-1}$ sr$^{-1}$)")
-        ax_i.set_title("solid: with absorption, dashed: emission only")
+        ax_i.set_title("solid: with absorption, dashed: emission only\n"
+                       f"background {describe(self.background, self.result)}", fontsize="small")
         ax_i.legend(fontsize="small")
         ax_t.set_ylabel(r"$\tau_\nu$")
         ax_t.set_xlabel("offset along the cut (arcsec)")

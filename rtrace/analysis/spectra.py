@@ -13,7 +13,9 @@ Conventions
   ``(col, row)``: the image centre is ``((nx - 1) / 2, (ny - 1) / 2)``.
 * Flux and intensity of a Result are taken after subtracting the background
   that entered from the far side (zero unless one was traced), as
-  :meth:`rtrace.Result.flux_density` does.
+  :meth:`rtrace.Result.flux_density` does; a SkyMap's in its own convention.
+  ``background="included"`` asks for the full intensity (see
+  :mod:`rtrace.transfer.background`), and every SED file says which.
 """
 
 import math
@@ -22,8 +24,9 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..transfer.background import check_convention, describe
 
-__all__ = ["sed", "sed_metadata", "write_sed_csv", "spectral_index", "spectral_index_map",
+__all__ = ["sed", "sed_metadata", "describe_background", "write_sed_csv", "spectral_index", "spectral_index_map",
            "tau_unity_frequency", "frequency_index", "pixel_flux", "aperture_mask",
            "FREQUENCY_TOLERANCE", "THIN_SPECTRAL_INDEX", "SED_COLUMNS"]
 
@@ -87,7 +90,14 @@ def _jy_per_beam(value, name):
     raise InputError(f"{name}: expected a surface brightness in Jy/beam, got unit '{q.unit}'")
 
 
-def pixel_flux(obj):
+def _convention(obj, background):
+    """The background convention asked for: a Result's default is subtracted, a SkyMap's its own."""
+    if background is not None:
+        return check_convention(background)
+    return getattr(obj, "background", "subtracted") if _is_skymap(obj) else "subtracted"
+
+
+def pixel_flux(obj, background=None):
     """Flux density of every pixel (Jy), shape ``(nfreq, ny, nx)``.
 
     Parameters
@@ -96,6 +106,9 @@ def pixel_flux(obj):
         For a Result, ``(I - I_background) Omega_pixel``; for a SkyMap,
         ``S_beam Omega_pixel / Omega_beam`` (the observed ``data``, per-plane
         beam), so that sums over pixels are flux densities.
+    background : {"subtracted", "included"}, optional
+        Convention; default subtracted for a Result, the map's own
+        (``obj.background``) for a SkyMap.
 
     Returns
     -------
@@ -105,13 +118,19 @@ def pixel_flux(obj):
     _check_image(obj)
     if _is_skymap(obj):
         data = _jy_per_beam(obj.data, "obj.data")
+        own = getattr(obj, "background", "subtracted")
+        wanted = _convention(obj, background)
+        if wanted != own and hasattr(obj, "background_per_beam"):
+            level = _jy_per_beam(obj.background_per_beam, "obj.background_per_beam")[:, None, None]
+            data = data + level if wanted == "included" else data - level
         omega_pix = _pixel_solid_angle_sr(obj)
         ratio = np.array([omega_pix / _beam_solid_angle_sr(obj, i) for i in range(data.shape[0])])
         return data * ratio[:, None, None] * u.Jy
-    intensity = obj.intensity.to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
-    background = getattr(obj, "background", None)
-    if background is not None:
-        intensity = intensity - u.Quantity(background).value[:, None, None]
+    if hasattr(obj, "specific_intensity"):
+        intensity = obj.specific_intensity(_convention(obj, background))
+    else:
+        intensity = obj.intensity
+    intensity = intensity.to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
     flux_cgs = intensity * obj.pixel_solid_angle.to_value(u.sr)
     return (flux_cgs * u.erg / (u.s * u.cm**2 * u.Hz)).to(u.Jy)
 
@@ -168,7 +187,7 @@ def aperture_mask(shape, aperture):
     return mask
 
 
-def sed(obj, aperture=None):
+def sed(obj, aperture=None, background=None):
     """Spectral energy distribution: the flux density in an aperture at every frequency.
 
     Parameters
@@ -179,6 +198,8 @@ def sed(obj, aperture=None):
         beam area).
     aperture : None, ndarray of bool (ny, nx), or (float, float, float), optional
         See :func:`aperture_mask`; default the whole image.
+    background : {"subtracted", "included"}, optional
+        See :func:`pixel_flux`.
 
     Returns
     -------
@@ -187,7 +208,7 @@ def sed(obj, aperture=None):
     flux : `~astropy.units.Quantity` (nfreq,)
         Jy.
     """
-    flux = pixel_flux(obj)
+    flux = pixel_flux(obj, background)
     mask = aperture_mask(flux.shape[1:], aperture)
     total = flux.value[:, mask].sum(axis=1)
     return _frequencies_hz(obj) * u.Hz, total * u.Jy
@@ -203,18 +224,19 @@ def _describe_aperture(aperture, shape):
     return f"circle centre (col {col:g}, row {row:g}) radius {radius:g} pixels"
 
 
-def sed_metadata(obj, aperture=None):
+def sed_metadata(obj, aperture=None, background=None):
     """Header lines describing where an SED came from, for :func:`write_sed_csv`.
 
     Parameters
     ----------
     obj : `~rtrace.Result` or SkyMap
-    aperture : see :func:`sed`
+    aperture, background : see :func:`sed`
 
     Returns
     -------
     dict of str
-        ``source``, ``view``, ``distance``, ``aperture`` (and ``beam`` for a SkyMap).
+        ``source``, ``view``, ``distance``, ``aperture``, ``background``
+        (and ``beam`` for a SkyMap).
     """
     _check_image(obj)
     result = obj if _is_result(obj) else getattr(obj, "result", None)
@@ -228,11 +250,18 @@ def sed_metadata(obj, aperture=None):
     if distance is not None:
         meta["distance"] = f"{u.Quantity(distance).to_value(u.pc):.6g} pc"
     meta["aperture"] = _describe_aperture(aperture, shape)
+    meta["background"] = describe_background(obj, background)
     if _is_skymap(obj):
         beam = _beam_at(obj, 0)
         meta["beam"] = (f"{beam.major.to_value(u.arcsec):.4g} x {beam.minor.to_value(u.arcsec):.4g} arcsec, "
                         f"PA {beam.pa.to_value(u.deg):.4g} deg (first plane)")
     return meta
+
+
+def describe_background(obj, background=None):
+    """One line for a file header: the background convention of ``obj``'s fluxes (see :func:`pixel_flux`)."""
+    _check_image(obj)
+    return describe(_convention(obj, background), obj)
 
 
 def _spectrum_arrays(frequencies, flux):
@@ -300,7 +329,9 @@ def write_sed_csv(path, frequencies, flux, metadata=None):
     flux : `~astropy.units.Quantity` (n,)
         Flux density (convertible to Jy).
     metadata : dict, optional
-        Header items, e.g. from :func:`sed_metadata`.
+        Header items, e.g. from :func:`sed_metadata`; its ``background``
+        item (:func:`describe_background`) says whether the fluxes include
+        the background.
     """
     # imported here: rtrace.io gathers the file formats, none of which is needed until a write
     from ..io.atomic import atomic_path
@@ -318,6 +349,8 @@ def write_sed_csv(path, frequencies, flux, metadata=None):
     lines = ["# " + ",".join(SED_COLUMNS), "# rtrace spectral energy distribution"]
     for key, value in (metadata or {}).items():
         lines.append(f"# {_clean_header(key)}: {_clean_header(value)}")
+    if "background" not in (metadata or {}):
+        lines.append("# background: not stated by the writer (see rtrace.analysis.spectra.describe_background)")
     lines.append("# spectral_index: d ln S / d ln nu from this frequency to the next (nan on the last row)")
     for f, s, a in zip(nu / 1e9, s_jy, alpha):
         # 17 significant digits round-trip a float64 exactly
@@ -413,6 +446,9 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None):
             raise InputError("snr_threshold: needs a SkyMap with noise (noise_rms is not set)")
         noise = np.broadcast_to(_jy_per_beam(noise, "obj.noise_rms"), (len(nu),))
         model = _jy_per_beam(obj.model, "obj.model")
+        if getattr(obj, "background", "subtracted") == "included":
+            # signal to noise of the source, not of the uniform background level
+            model = model - _jy_per_beam(obj.background_per_beam, "obj.background_per_beam")[:, None, None]
         for i in (i1, i2):
             # written as a product so a zero rms (a noiseless plane) needs no division
             alpha[model[i] < threshold * noise[i]] = np.nan

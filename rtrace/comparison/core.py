@@ -203,6 +203,7 @@ class Comparison:
         self.model_center = cube.center
         self.model_source = cube.source
         self.model_provenance = dict(cube.provenance)
+        self.model_background = cube.background
         self.observation_source = obs.source
         self.frequency_source = obs.frequency_source
         self.beam_source = obs.beam_source
@@ -391,6 +392,7 @@ class Comparison:
 
         from ..io.atomic import atomic_path
         from ..io.fits import _add_provenance, _ascii
+        from ..transfer.background import header_cards
 
         path = os.fspath(path)
         directory = os.path.dirname(os.path.abspath(path))
@@ -426,6 +428,7 @@ class Comparison:
             if not hdus:
                 _add_provenance(hdu.header, {k: v for k, v in self.model_provenance.items()
                                              if k not in ("beam", "noise")})
+                hdu.header.extend(header_cards("subtracted", self.model_background))
                 hdu.header.add_history(_ascii(f"model: {self.model_source}"))
                 hdu.header.add_history(_ascii(f"observation: {self.observation_source}"))
                 for text in self.notes:

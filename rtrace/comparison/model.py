@@ -34,6 +34,7 @@ from ..errors import InputError
 from ..io.fits import sky_wcs, split_suffix
 from ..observe.beam import BeamKernel, describe_beam
 from ..observe.skymap import SkyMap
+from ..transfer.background import Background, background_in_header, background_of
 from ..transfer.result import Result
 from .observation import header_beam, header_frequencies, note, open_image_hdu, parse_bunit, _wcs
 
@@ -73,6 +74,9 @@ class ModelCube:
     source : str
         Description of where the model came from.
     provenance : dict
+    background : `~rtrace.transfer.background.Background`
+        What was behind the model; ``data`` is always background
+        subtracted (what a differenced or interferometric image measures).
     """
     data: np.ndarray
     frequencies: np.ndarray
@@ -81,6 +85,7 @@ class ModelCube:
     beams: list = None
     source: str = ""
     provenance: dict = field(default_factory=dict)
+    background: Background = field(default_factory=Background)
 
     @property
     def shape(self):
@@ -101,23 +106,27 @@ def _finite(data, name):
 
 
 def _from_result(result):
-    intensity = np.asarray(result.intensity.value, float) - result.background.value[:, None, None]
+    intensity = np.asarray(result.specific_intensity("subtracted").value, float)
     data = _finite(intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS), "result")
     ny, nx = data.shape[1:]
     return ModelCube(data=data, frequencies=result.frequencies.to_value(u.Hz),
                      wcs=sky_wcs((ny, nx), result.pixel_scale, result.sky_position),
                      pixel_scale=result.pixel_scale.to(u.arcsec), beams=None,
                      source=f"traced Result ({result.provenance.get('source', 'snapshot')})",
-                     provenance=dict(result.provenance))
+                     provenance=dict(result.provenance), background=background_of(result))
 
 
 def _from_skymap(sky):
-    data = _finite(np.asarray(sky.model.to_value(u.Jy / u.beam), float), "result")
+    data = np.asarray(sky.model.to_value(u.Jy / u.beam), float)
+    if getattr(sky, "background", "subtracted") == "included":
+        data = data - sky.background_per_beam.to_value(u.Jy / u.beam)[:, None, None]
+    data = _finite(data, "result")
     ny, nx = data.shape[1:]
     return ModelCube(data=data, frequencies=sky.frequencies.to_value(u.Hz),
                      wcs=sky_wcs((ny, nx), sky.pixel_scale, sky.sky_position),
                      pixel_scale=u.Quantity(sky.pixel_scale).to(u.arcsec), beams=list(sky.beams),
-                     source="noiseless model of a SkyMap", provenance=dict(sky.provenance))
+                     source="noiseless model of a SkyMap", provenance=dict(sky.provenance),
+                     background=background_of(sky))
 
 
 def _grid_scale(wcs, name):
@@ -173,8 +182,15 @@ def _from_fits(obj, name):
     else:
         raise InputError(f"{name}: model BUNIT is '{header['BUNIT']}'; expected Jy/pixel (as written by "
                          "Result.write_fits) or Jy/beam (SkyMap.write_fits)")
+    per_sr = ((scale.to_value(u.rad)) ** 2 if beams is None
+              else np.array([b.sr.to_value(u.sr) for b in beams]))
+    data = data - background_in_header(header, nu, per_sr, name)[:, None, None]
+    kind = str(header.get("BKGKIND", "none")).strip().lower()
+    bg = (Background(kind, float(header["BKGTEMP"])) if kind in ("cmb", "blackbody") and "BKGTEMP" in header
+          else Background())
     return ModelCube(data=_finite(data, name), frequencies=np.asarray(nu, float), wcs=cwcs, pixel_scale=scale,
-                     beams=beams, source=f"model FITS {source}", provenance={"source": header.get("SNAPSRC")})
+                     beams=beams, source=f"model FITS {source}", provenance={"source": header.get("SNAPSRC")},
+                     background=bg)
 
 
 def plane_files(path):

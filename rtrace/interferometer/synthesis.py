@@ -29,6 +29,7 @@ from ..observe.beam import describe_beam
 from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
 from ..observe.skymap import SkyMap
 from ..physics.constants import C
+from ..transfer.background import header_cards, resolve_convention
 from ..transfer.result import Result
 from .array import antenna_positions, hour_angle_samples, source_elevation, uvw_tracks
 from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
@@ -83,7 +84,8 @@ def _threshold_jyb(threshold):
 def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.hourangle, hour_angle_step=None,
                n_hour_angles=None, antenna_unit=None, min_elevation=0 * u.deg, dish_diameter=None,
                primary_beam="gaussian", primary_beam_fwhm_factor=GAUSSIAN_FWHM_FACTOR, weighting="natural",
-               robust=0.0, gain=DEFAULT_GAIN, niter=10000, threshold=None, subtract_background=True):
+               robust=0.0, gain=DEFAULT_GAIN, niter=10000, threshold=None, background=None,
+               subtract_background=None):
     """Observe a traced Result with an Earth-rotation synthesis array and image it.
 
     Parameters
@@ -132,10 +134,15 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         Stop CLEAN at this residual (Jy/beam); default 0.1 % of the dirty
         image's peak at each frequency (a noiseless model has no noise
         floor to stop at).
+    background : {"subtracted", "included"}
+        Convention of the map (see :mod:`rtrace.transfer.background`). The
+        model is always sampled without its uniform background (an
+        interferometer measures no uniform level). ``included`` adds the
+        known background back as ``I_bg Omega_beam`` per clean beam: a
+        level no interferometer measures, for comparison with total-power
+        data only.
     subtract_background : bool
-        Remove the background intensity (e.g. the CMB) first, as
-        ``Result.flux_density`` does: an interferometer measures no
-        uniform level in any case.
+        Deprecated spelling of ``background``.
 
     Returns
     -------
@@ -146,6 +153,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     """
     if not isinstance(result, Result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
+    convention = resolve_convention(background, subtract_background)
     pos = antenna_positions(antennas, unit=antenna_unit)
     lat = _angle(latitude, "latitude", -90.0, 90.0)
     min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
@@ -200,9 +208,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     l, m = direction_cosines((ny, nx), pix_rad)
     cell = uniform_cell((ny, nx), pix_rad)
 
-    intensity = np.asarray(result.intensity.value, float)
-    if subtract_background:
-        intensity = intensity - result.background.value[:, None, None]
+    intensity = np.asarray(result.specific_intensity("subtracted").value, float)
     bad = ~np.isfinite(intensity)
     if bad.any():
         raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
@@ -297,7 +303,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
 
     uvw_full = np.concatenate([uvw_half, -uvw_half]) * u.m
     return SynthesizedMap(
-        restored, beams, result, provenance, background_subtracted=bool(subtract_background),
+        restored, beams, result, provenance, background=convention,
         dirty_image=dirty_all, dirty_beam=psf_all, residual=resid_all, clean_components=comps_all,
         primary_beam=pb_all, uvw=uvw_full, visibilities=vis_all, weights=wt_all,
         hour_angles=(ha * u.rad).to(u.hourangle), baselines=pairs, antennas=pos * u.m,
@@ -354,13 +360,13 @@ class SynthesizedMap(SkyMap):
     robust : float or None
     """
 
-    def __init__(self, data, beams, result, provenance, *, background_subtracted, dirty_image, dirty_beam,
+    def __init__(self, data, beams, result, provenance, *, background="subtracted", dirty_image, dirty_beam,
                  residual, clean_components, primary_beam, uvw, visibilities, weights, hour_angles, baselines,
                  antennas, latitude, declination, largest_angular_scale, shortest_baseline, longest_baseline,
                  clean_iterations, clean_thresholds, weighting, robust):
         nu = result.frequencies.to_value(u.Hz)
         super().__init__(data, data, beams, result, None, provenance, beam=beams[0], beam_scaling=None,
-                         reference_frequency=nu[0], seed=None, background_subtracted=background_subtracted)
+                         reference_frequency=nu[0], seed=None, background=background)
         self._dirty = np.asarray(dirty_image, float)
         self._residual = np.asarray(residual, float)
         self._components = np.asarray(clean_components, float)
@@ -441,7 +447,7 @@ class SynthesizedMap(SkyMap):
         return write_cube(path, data, self.frequencies, self.pixel_scale, self.sky_position,
                           beams=self.beams if with_beam else None, provenance=self.provenance,
                           reference_beam=self.beam if with_beam else None, quantity=f"synthesis {image}",
-                          spectral_axis=spectral_axis)
+                          spectral_axis=spectral_axis, background=header_cards("subtracted", self.result))
 
     def __repr__(self):
         nf, ny, nx = self.shape

@@ -53,6 +53,10 @@ Layout and header conventions
   ``BMIN`` in arcsec, ``BPA`` in deg, ``CHAN``, ``POL``), the common
   practice for radio cubes that ``radio_beam.Beams.from_fits_bintable``
   reads; the header keywords then hold the reference beam.
+* Background convention (:mod:`rtrace.transfer.background`): ``BKGSUB``
+  (T: no background in the data, empty sky reads 0; F: the background
+  intensity is included), ``BKGKIND`` (``NONE``, ``CMB``, ``BLACKBODY``,
+  ``INTENSITY``) and ``BKGTEMP`` (K) on every file rtrace writes.
 * Provenance: ``ORIGIN = 'rtrace'``, ``DATE`` (UTC, when written),
   ``RTVERS``, ``SNAPSRC``, ``SNAPSHA``, ``VIEW``, ``IONIZ``, ``BKGND``,
   ``BEAM``, ``NOISE`` (strings longer than one card continue on
@@ -77,6 +81,7 @@ from astropy.wcs import WCS
 
 from ..errors import InputError
 from ..quantities import positive_scalar
+from ..transfer.background import header_cards, resolve_convention
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
@@ -531,7 +536,7 @@ def _beams_table(values):
 # --------------------------------------------------------------------------------------------
 
 def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, provenance=None,
-               overwrite=True, *, reference_beam=None, quantity=None, spectral_axis="auto"):
+               overwrite=True, *, reference_beam=None, quantity=None, spectral_axis="auto", background=None):
     """Write an image or cube with its WCS, beam and provenance to FITS.
 
     Parameters
@@ -568,6 +573,9 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
         plane, named by :func:`plane_paths`; ``"tabular"`` writes one file
         with a ``FREQ-TAB`` axis. Even and geometric lists are always one
         file with a ``FREQ`` or ``FREQ-LOG`` axis.
+    background : list of (keyword, value, comment), optional
+        Cards declaring the background convention, from
+        :func:`rtrace.transfer.background.header_cards`.
 
     Returns
     -------
@@ -648,6 +656,7 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
     if len(targets) == 1:
         header, tab = header_for(nu, ref)
         _add_provenance(header, provenance)
+        header.extend(background or [])
         if tab is not None:
             # Readers that ignore -TAB would otherwise fail without a hint.
             header.add_comment("Irregular frequencies: FREQ-TAB, listed in extension WCS-TAB.")
@@ -666,6 +675,7 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
         header["RTPLANE"] = (k + 1, "plane number in the full frequency list")
         header["RTNPLANE"] = (nplanes, "number of planes (one file each)")
         _add_provenance(header, provenance)
+        header.extend(background or [])
         header.add_comment(f"Plane {k + 1} of {nplanes}: the frequencies are neither evenly spaced nor")
         header.add_comment("geometric, so each plane is a file of its own (RTPLANE, RTNPLANE).")
         _write(target, [_primary(values[k:k + 1], header)])
@@ -692,8 +702,8 @@ def _is_beams(obj):
     return isinstance(obj, Beams)
 
 
-def write_result(result, path, quantity="intensity", unit=None, *, kind="planck", subtract_background=True,
-                 overwrite=True, spectral_axis="auto"):
+def write_result(result, path, quantity="intensity", unit=None, *, kind="planck", background=None,
+                 overwrite=True, subtract_background=None, spectral_axis="auto"):
     """Write one quantity of a traced :class:`~rtrace.Result` to a FITS file.
 
     Parameters
@@ -704,10 +714,10 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         Output file; written atomically.
     quantity : {"intensity", "tau", "emission_measure", "brightness_temperature"}
         ``intensity``: cube of the specific intensity, with the background
-        that entered from the far side removed (see ``subtract_background``);
+        that entered from the far side removed (see ``background``);
         ``tau``: optical-depth cube;
         ``emission_measure``: 2D map (pc cm-6) with celestial axes only;
-        ``brightness_temperature``: cube in K (see ``kind``).
+        ``brightness_temperature``: cube in K (see ``kind`` and ``background``).
     unit : str or `~astropy.units.Unit`, optional
         Output unit. For intensity (default ``"Jy/pixel"``): a flux density
         per pixel (``I * pixel_solid_angle``, so the pixel sum of a plane is
@@ -717,12 +727,17 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         dimensionless, pc cm-6, K).
     kind : {"planck", "rayleigh-jeans"}, optional
         Definition of the brightness temperature.
-    subtract_background : bool, optional
-        Intensity only: remove the background intensity (e.g. the CMB), as a
-        differential measurement does and as ``Result.flux_density`` does
-        (default True); False writes the total intensity.
+    background : {"subtracted", "included"}, optional
+        Intensity and brightness temperature: ``subtracted`` (default)
+        removes the background intensity (e.g. the CMB), as a differential
+        measurement does and as ``Result.flux_density`` does (Planck T_b is
+        then ``T_P(I) - T_P(I_bg)``); ``included`` writes the total. Optical
+        depth and emission measure hold no background either way. The
+        header says which (``BKGSUB``, ``BKGKIND``, ``BKGTEMP``).
     overwrite : bool, optional
         Replace existing files (default True).
+    subtract_background : bool, optional
+        Deprecated spelling of ``background``.
     spectral_axis : {"auto", "tabular"}, optional
         How an irregular frequency list is written: one file per plane
         (default) or a ``FREQ-TAB`` axis; see :func:`write_cube`.
@@ -739,12 +754,11 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         out_unit = None if unit is None else u.Unit(unit)
     except ValueError:
         raise InputError(f"unit: cannot parse {unit!r} as a unit") from None
+    convention = resolve_convention(background, subtract_background)
     frequencies = result.frequencies
     if quantity == "intensity":
         out_unit = u.Jy / u.pix if out_unit is None else out_unit
-        intensity = result.intensity
-        if subtract_background:
-            intensity = intensity - result.background[:, None, None]
+        intensity = result.specific_intensity(convention)
         if out_unit.is_equivalent(u.Jy / u.pix):
             per_pixel = (intensity * result.pixel_solid_angle).to(u.Jy) / u.pix
             data = per_pixel.to(out_unit)
@@ -758,14 +772,16 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         data = result.emission_measure
         frequencies = None
     else:
-        data = result.brightness_temperature(kind)
+        data = result.brightness_temperature(kind, background=convention)
     if quantity != "intensity" and out_unit is not None:
         if not out_unit.is_equivalent(data.unit):
             raise InputError(f"unit: '{out_unit}' is not a unit of {quantity} ({data.unit})")
         data = data.to(out_unit)
     return write_cube(path, data, frequencies, result.pixel_scale, result.sky_position,
                       provenance=result.provenance, overwrite=overwrite, quantity=quantity,
-                      spectral_axis=spectral_axis)
+                      spectral_axis=spectral_axis,
+                      background=header_cards(convention if quantity in ("intensity", "brightness_temperature")
+                                              else "subtracted", result))
 
 
 def write_skymap(skymap, path, overwrite=True, *, spectral_axis="auto"):
@@ -799,4 +815,5 @@ def write_skymap(skymap, path, overwrite=True, *, spectral_axis="auto"):
         raise InputError(f"skymap.data: expected a Quantity in Jy/beam, got unit '{unit}'")
     return write_cube(path, data, skymap.frequencies, skymap.pixel_scale, skymap.sky_position,
                       beams=skymap.beams, provenance=skymap.provenance, overwrite=overwrite,
-                      reference_beam=skymap.beam, quantity="sky map", spectral_axis=spectral_axis)
+                      reference_beam=skymap.beam, quantity="sky map", spectral_axis=spectral_axis,
+                      background=header_cards(getattr(skymap, "background", "subtracted"), skymap))

@@ -5,7 +5,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..quantities import finite_number, positive_scalar
-from ..physics.planck import inverse_planck_cgs
+from ..transfer.background import brightness_temperature_cgs, check_convention, resolve_convention
 from ..transfer.result import Result
 from .beam import BeamKernel, beams_for_frequencies, describe_beam, validate_beam
 from .edges import warn_if_emission_at_edge
@@ -25,7 +25,7 @@ def _reference_frequency(reference_frequency, scaling):
 
 
 def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
-            *, subtract_background=True):
+            *, background=None, subtract_background=None):
     """Convolve a traced Result with a beam and add beam-correlated noise.
 
     Parameters
@@ -48,11 +48,17 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     reference_frequency : `~astropy.units.Quantity`, optional
         Frequency at which ``beam`` applies when scaling; defaults to the
         first frequency. Only allowed with a scaling.
+    background : {"subtracted", "included"}, optional
+        Convention of the map's ``data`` and ``model`` (see
+        :mod:`rtrace.transfer.background`). ``subtracted`` (default): the
+        uniform background intensity (e.g. the CMB) that the trace let in
+        from behind is removed, as a differential measurement does; empty
+        sky reads 0. ``included``: the background is in the map, as
+        ``I_bg Omega_beam`` per beam (a uniform sky seen through any
+        normalised beam is uniform, so it is added after convolving, with no
+        loss at the image edges). Without a background both are the same.
     subtract_background : bool, optional
-        Remove the uniform background intensity (e.g. the CMB) that the
-        trace let in from behind before convolving, as a differential
-        measurement does (the convention of ``Result.flux_density``).
-        Without a background this changes nothing.
+        Deprecated spelling of ``background``.
 
     Returns
     -------
@@ -63,13 +69,13 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     validate_beam(beam)
     if beam_scaling not in (None, "inverse-frequency"):
         raise InputError(f"beam_scaling: expected None or 'inverse-frequency', got {beam_scaling!r}")
+    convention = resolve_convention(background, subtract_background)
     ref_hz = _reference_frequency(reference_frequency, beam_scaling)
     nu = result.frequencies.to_value(u.Hz)
     rms = noise_rms_per_frequency(noise, len(nu))
 
-    intensity = np.asarray(result.intensity.value, float)
-    if subtract_background:
-        intensity = intensity - result.background.value[:, None, None]
+    # always convolved without the background: a uniform level is added back (exactly) on request
+    intensity = np.asarray(result.specific_intensity("subtracted").value, float)
     bad = ~np.isfinite(intensity)
     if bad.any():
         raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
@@ -112,7 +118,7 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     provenance = dict(result.provenance, beam=beam_txt, noise=noise_txt)
     return SkyMap(data, model, beams, result, rms, provenance, beam=beam, beam_scaling=beam_scaling,
                   reference_frequency=ref_hz if ref_hz is not None else nu[0], seed=used_seed,
-                  background_subtracted=bool(subtract_background))
+                  background=convention)
 
 
 class SkyMap:
@@ -150,8 +156,13 @@ class SkyMap:
     beam_scaling : None or str
     seed : int or None
         Seed that reproduces the noise (None without noise).
+    background : {"subtracted", "included"}
+        Convention of ``data`` and ``model`` (see :mod:`rtrace.transfer.background`).
     background_subtracted : bool
-        Whether the Result's uniform background was removed before convolving.
+        ``background == "subtracted"``.
+    background_per_beam : `~astropy.units.Quantity` (nfreq,)
+        The Result's background intensity times each beam's solid angle
+        (Jy/beam): what ``included`` adds to every pixel.
     provenance : dict
         The Result's provenance plus ``"beam"`` and ``"noise"`` descriptions.
     result : `~rtrace.Result`
@@ -159,7 +170,11 @@ class SkyMap:
     """
 
     def __init__(self, data, model, beams, result, noise_rms, provenance, *, beam, beam_scaling,
-                 reference_frequency, seed, background_subtracted):
+                 reference_frequency, seed, background="subtracted", background_subtracted=None):
+        # ``data`` and ``model`` are background subtracted; ``background`` is how they are shown
+        if background_subtracted is not None:
+            background = "subtracted" if background_subtracted else "included"
+        self.background = check_convention(background)
         self._data = np.asarray(data, float)
         self._model = np.asarray(model, float)
         self.beams = list(beams)
@@ -170,9 +185,18 @@ class SkyMap:
         self.beam_scaling = beam_scaling
         self.reference_frequency = float(reference_frequency) * u.Hz
         self.seed = seed
-        self.background_subtracted = background_subtracted
         self._beam_sr = np.array([b.sr.to_value(u.sr) for b in self.beams])
         self._pix_sr = result.pixel_solid_angle.to_value(u.sr)
+        self._bg_cgs = np.asarray(result.background.value, float)
+        self._bg_jyb = self._bg_cgs * self._beam_sr / _JY_CGS
+
+    @property
+    def background_subtracted(self):
+        return self.background == "subtracted"
+
+    @property
+    def background_per_beam(self):
+        return u.Quantity(self._bg_jyb, JY_PER_BEAM)
 
     # -- geometry, taken from the Result ---------------------------------------------------------
     @property
@@ -202,11 +226,13 @@ class SkyMap:
     # -- images --------------------------------------------------------------------------------
     @property
     def data(self):
-        return u.Quantity(self._data, JY_PER_BEAM, copy=False)
+        """Model plus noise, Jy/beam, in the map's background convention."""
+        return u.Quantity(self._image(False, self.background), JY_PER_BEAM, copy=False)
 
     @property
     def model(self):
-        return u.Quantity(self._model, JY_PER_BEAM, copy=False)
+        """Noiseless map, Jy/beam, in the map's background convention."""
+        return u.Quantity(self._image(True, self.background), JY_PER_BEAM, copy=False)
 
     @property
     def noise_rms(self):
@@ -221,40 +247,52 @@ class SkyMap:
         """Beam solid angle over pixel solid angle, per frequency (ndarray)."""
         return self._beam_sr / self._pix_sr
 
-    def _image(self, noiseless):
-        return self._model if noiseless else self._data
+    def _convention(self, background):
+        return self.background if background is None else check_convention(background)
 
-    def to_jy_per_pixel(self, noiseless=False):
+    def _image(self, noiseless, background="subtracted"):
+        img = self._model if noiseless else self._data
+        if background == "included" and np.any(self._bg_jyb):
+            img = img + self._bg_jyb[:, None, None]
+        return img
+
+    def to_jy_per_pixel(self, noiseless=False, background=None):
         """The map in Jy/pixel: Jy/beam divided by the beam area in pixels.
 
         Parameters
         ----------
         noiseless : bool
             Use the model instead of the data.
+        background : {"subtracted", "included"}, optional
+            Convention; default the map's own (``self.background``).
 
         Returns
         -------
         `~astropy.units.Quantity` (nfreq, ny, nx), Jy/pixel
         """
-        img = self._image(noiseless) / self.beam_area_pixels[:, None, None]
+        img = self._image(noiseless, self._convention(background)) / self.beam_area_pixels[:, None, None]
         return u.Quantity(img, u.Jy / u.pix)
 
-    def flux_density(self, noiseless=False):
+    def flux_density(self, noiseless=False, background=None):
         """Total flux density per frequency: the sum over pixels of Jy/pixel (Jy).
 
         Parameters
         ----------
         noiseless : bool
             Use the model instead of the data.
+        background : {"subtracted", "included"}, optional
+            Convention; default the map's own (``self.background``).
+            ``included`` adds ``I_bg Omega_pix`` per pixel (it grows with the
+            field).
 
         Returns
         -------
         `~astropy.units.Quantity` (nfreq,), Jy
         """
-        total = self._image(noiseless).sum(axis=(1, 2)) / self.beam_area_pixels
+        total = self._image(noiseless, self._convention(background)).sum(axis=(1, 2)) / self.beam_area_pixels
         return u.Quantity(total, u.Jy)
 
-    def brightness_temperature(self, kind="rayleigh-jeans", noiseless=False):
+    def brightness_temperature(self, kind="rayleigh-jeans", noiseless=False, background=None):
         """Brightness temperature per beam (K).
 
         Parameters
@@ -262,17 +300,22 @@ class SkyMap:
         kind : {"rayleigh-jeans", "planck"}
             ``rayleigh-jeans``: astropy's ``brightness_temperature(nu,
             beam_area)`` equivalency, ``T = c^2 S / (2 k nu^2 Omega_beam)``
-            (linear, so noise stays Gaussian). ``planck``: the blackbody
-            temperature of the mean intensity in the beam,
-            ``I = S / Omega_beam``, NaN where ``I <= 0``.
+            (linear, so noise stays Gaussian). ``planck``: from the mean
+            intensity in the beam, ``I = S / Omega_beam``: in the subtracted
+            convention the difference of Planck temperatures
+            ``T_P(I_bg + dI) - T_P(I_bg)``, in the included one ``T_P(I)``;
+            NaN where the total intensity is negative (noise).
         noiseless : bool
             Use the model instead of the data.
+        background : {"subtracted", "included"}, optional
+            Convention; default the map's own (``self.background``).
 
         Returns
         -------
         `~astropy.units.Quantity` (nfreq, ny, nx), K
         """
-        img = self._image(noiseless)
+        convention = self._convention(background)
+        img = self._image(noiseless, convention)
         nu = self.frequencies.to_value(u.Hz)
         if kind in ("rayleigh-jeans", "rj"):
             # Kelvin per Jy/beam at each frequency, straight from astropy's equivalency
@@ -281,8 +324,10 @@ class SkyMap:
                 for f, sr in zip(nu, self._beam_sr)])
             return u.Quantity(img * k_per_jyb[:, None, None], u.K)
         if kind == "planck":
-            mean_intensity = img * (_JY_CGS / self._beam_sr[:, None, None])
-            return u.Quantity(inverse_planck_cgs(nu[:, None, None], mean_intensity), u.K)
+            delta = self._image(noiseless) * (_JY_CGS / self._beam_sr[:, None, None])
+            tb = brightness_temperature_cgs(nu[:, None, None], delta, self._bg_cgs[:, None, None], kind,
+                                            convention)
+            return u.Quantity(tb, u.K)
         raise InputError(f"kind: expected 'rayleigh-jeans' or 'planck', got {kind!r}")
 
     def snr_mask(self, threshold=5.0):

@@ -85,14 +85,14 @@ def planck(frequency, temperature):
 
 
 def inverse_planck_cgs(nu, intensity):
-    """Temperature (K) at which ``B_nu(T)`` equals ``intensity`` (cgs); NaN where intensity <= 0.
+    """Temperature (K) at which ``B_nu(T)`` equals ``intensity`` (cgs); 0 where it is 0, NaN where negative.
 
     ``T = (h nu / k) / ln(1 + 2 h nu^3 / (c^2 I))``, written with ``log1p`` so the
-    Rayleigh-Jeans end keeps full precision.
+    Rayleigh-Jeans end keeps full precision; its limit for ``I -> 0+`` is 0 K.
     """
     nu = np.asarray(nu, float)
     intensity = np.asarray(intensity, float)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = 2.0 * H * nu**3 / (C**2 * intensity)
         t = H_OVER_K * nu / np.log1p(ratio)
-    return np.where(intensity > 0, t, np.nan)
+    return np.where(intensity > 0, t, np.where(intensity == 0, 0.0, np.nan))

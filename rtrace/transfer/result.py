@@ -5,8 +5,8 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from ..errors import InputError
-from ..physics.constants import C, K_B, PC
-from ..physics.planck import inverse_planck_cgs
+from ..physics.constants import PC
+from .background import Background, brightness_temperature_cgs, check_convention, resolve_convention
 
 __all__ = ["Result", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
 
@@ -21,7 +21,10 @@ class Result:
     Attributes
     ----------
     intensity : `~astropy.units.Quantity` (nfreq, ny, nx)
-        Specific intensity in erg s-1 cm-2 Hz-1 sr-1, the mean over each pixel.
+        Specific intensity in erg s-1 cm-2 Hz-1 sr-1, the mean over each
+        pixel, background subtracted (``I - I_bg``: empty sky reads 0); the
+        full intensity is ``specific_intensity(background="included")``.
+        See :mod:`rtrace.transfer.background` for the convention.
     tau : ndarray (nfreq, ny, nx)
         Optical depth through the grid, the mean over each pixel.
     emission_measure : `~astropy.units.Quantity` (ny, nx)
@@ -33,13 +36,20 @@ class Result:
         Physical size of a pixel at the source (cm).
     pixel_scale : `~astropy.units.Quantity`
         Angular size of a pixel, ``pixel_size / distance`` (arcsec).
+    background : `~astropy.units.Quantity` (nfreq,)
+        Intensity ``I_bg`` that entered from the far side (zero without one).
+    background_info : `~rtrace.transfer.background.Background`
+        What that background is (kind and blackbody temperature).
     view, center, provenance
         The view, the image centre in snapshot coordinates (cm) and the
         snapshot's provenance.
     """
 
+    # Results pickled before the background was described carry none of their own
+    _background_info = None
+
     def __init__(self, intensity, tau, em, nu, view, pixel_size_cm, center_cm, provenance,
-                 rays_per_pixel=1, background=None):
+                 rays_per_pixel=1, background=None, background_info=None):
         self._intensity = intensity
         self.tau = tau
         self._em = em
@@ -50,6 +60,10 @@ class Result:
         self.provenance = dict(provenance)
         self.rays_per_pixel = rays_per_pixel
         self.background = (np.zeros_like(nu) if background is None else np.asarray(background)) * INTENSITY_UNIT
+        if background_info is None:
+            background_info = (Background("intensity", None) if np.any(self.background.value != 0)
+                               else Background("none", 0.0))
+        self._background_info = background_info
         ratio = pixel_size_cm / view.distance.to_value(u.cm)
         self.pixel_solid_angle = ratio**2 * u.sr
         self.pixel_scale = (ratio * u.rad).to(u.arcsec)
@@ -63,8 +77,40 @@ class Result:
         return self.view.sky_position if self.view.sky_position is not None else DEFAULT_SKY_POSITION
 
     @property
+    def background_info(self):
+        """What entered from the far side: a :class:`~rtrace.transfer.background.Background`."""
+        if isinstance(self._background_info, Background):
+            return self._background_info
+        text = str(self.provenance.get("background", "none")).strip().lower()
+        if text == "cmb":
+            from .background import CMB_TEMPERATURE
+            return Background("cmb", CMB_TEMPERATURE)
+        return Background("none", 0.0) if not np.any(self.background.value) else Background("intensity", None)
+
+    @property
     def intensity(self):
-        return u.Quantity(self._intensity, INTENSITY_UNIT, copy=False)
+        """Background-subtracted specific intensity ``I - I_bg`` (Quantity (nfreq, ny, nx))."""
+        return self.specific_intensity()
+
+    def specific_intensity(self, background="subtracted"):
+        """Specific intensity per pixel in a background convention.
+
+        Parameters
+        ----------
+        background : {"subtracted", "included"}
+            ``subtracted``: ``I - I_bg`` (empty sky reads 0; gas in
+            absorption against the background is negative). ``included``:
+            the full emergent intensity ``I_bg e^{-tau} + I_gas``.
+
+        Returns
+        -------
+        `~astropy.units.Quantity` (nfreq, ny, nx)
+            erg s-1 cm-2 Hz-1 sr-1.
+        """
+        if check_convention(background) == "included" or not np.any(self.background.value):
+            # nothing to subtract: the stored images themselves, no copy
+            return u.Quantity(self._intensity, INTENSITY_UNIT, copy=False)
+        return u.Quantity(self._intensity - self.background.value[:, None, None], INTENSITY_UNIT)
 
     @property
     def emission_measure(self):
@@ -74,41 +120,51 @@ class Result:
     def shape(self):
         return self._intensity.shape
 
-    def flux_density(self, subtract_background=True):
+    def flux_density(self, background=None, *, subtract_background=None):
         """Total flux density of the image per frequency (Jy).
 
-        ``S_nu = sum_pixels (I_nu - I_bg) Omega_pix``: the background that
-        entered from the far side (e.g. the CMB) is removed first, as in any
-        differential measurement, so gas seen in absorption against it gives
-        negative flux. ``subtract_background=False`` sums the total intensity.
-        Without a background both are the same.
+        Parameters
+        ----------
+        background : {"subtracted", "included"}, optional
+            ``subtracted`` (default): ``S_nu = sum_pixels (I_nu - I_bg)
+            Omega_pix``, the background that entered from the far side
+            (e.g. the CMB) removed first, as in any differential
+            measurement, so gas seen in absorption against it gives negative
+            flux. ``included``: the sum of the total intensity (it grows
+            with the field of view). Without a background both are the same.
+        subtract_background : bool, optional
+            Deprecated spelling of ``background``.
         """
-        img = self._intensity
-        if subtract_background:
-            img = img - self.background.value[:, None, None]
+        img = self.specific_intensity(resolve_convention(background, subtract_background)).value
         return (img.sum(axis=(1, 2)) * self.pixel_solid_angle.to_value(u.sr)
                 * (u.erg / (u.s * u.cm**2 * u.Hz))).to(u.Jy)
 
-    def brightness_temperature(self, kind="planck"):
+    def brightness_temperature(self, kind="planck", background="subtracted"):
         """Brightness temperature of each pixel (K).
 
         Parameters
         ----------
         kind : {"planck", "rayleigh-jeans"}
             ``planck``: the temperature of a blackbody of the same intensity,
-            ``T_b = (h nu/k) / ln(1 + 2 h nu^3 / (c^2 I))``, which tends to
-            ``T_e`` for optically thick isothermal gas (NaN where I <= 0).
+            ``T_P(I) = (h nu/k) / ln(1 + 2 h nu^3 / (c^2 I))``, which tends
+            to ``T_e`` for optically thick isothermal gas (0 where I = 0).
             ``rayleigh-jeans``: ``T_b = c^2 I / (2 k nu^2)``, linear in I
             (the convention of astropy's ``brightness_temperature``
             equivalency and of most radio work).
+        background : {"subtracted", "included"}
+            ``subtracted`` (default): Planck gives the difference of Planck
+            temperatures ``T_P(I) - T_P(I_bg)`` (thick isothermal gas reads
+            ``T_e - T_bg``, empty sky 0), Rayleigh-Jeans that of
+            ``I - I_bg``. ``included``: ``T_P(I)`` and ``c^2 I / (2 k nu^2)``
+            of the full intensity (empty sky reads the background's
+            temperature, 2.7255 K for the CMB with Planck).
         """
-        nu = self.frequencies.to_value(u.Hz)[:, None, None]
-        if kind == "planck":
-            tb = inverse_planck_cgs(nu, self._intensity)
-        elif kind in ("rayleigh-jeans", "rj"):
-            tb = C**2 * self._intensity / (2.0 * K_B * nu**2)
-        else:
+        convention = check_convention(background)
+        if kind not in ("planck", "rayleigh-jeans", "rj"):
             raise InputError(f"kind: expected 'planck' or 'rayleigh-jeans', got {kind!r}")
+        nu = self.frequencies.to_value(u.Hz)[:, None, None]
+        bg = self.background.value[:, None, None]
+        tb = brightness_temperature_cgs(nu, self._intensity - bg, bg, kind, convention)
         return u.Quantity(tb, u.K)
 
     def __getstate__(self):
@@ -130,7 +186,8 @@ class Result:
         """``int j_nu ds`` per pixel: the same emission with no absorption (Quantity (nfreq, ny, nx)).
 
         Traced on first use over exactly the rays of this result (same
-        lattice, same pixel footprints; background excluded), so
+        lattice, same pixel footprints; background excluded, i.e. in the
+        subtracted convention, where ``I_bg`` would pass unattenuated), so
         ``intensity / unabsorbed_intensity`` is the absorption loss per pixel,
         ``(1 - e^{-tau}) / tau`` for a uniform column. The Result keeps a
         reference to its snapshot for this.
@@ -170,10 +227,10 @@ class Result:
         from ..analysis.spectra import tau_unity_frequency
         return tau_unity_frequency(self)
 
-    def cut(self, start, end, num=None, order=1):
+    def cut(self, start, end, num=None, order=1, background="subtracted"):
         """Profiles along a straight cut; see :func:`rtrace.analysis.cuts.cut`."""
         from ..analysis.cuts import cut
-        return cut(self, start, end, num=num, order=order)
+        return cut(self, start, end, num=num, order=order, background=background)
 
     def observe(self, beam, noise=None, **kwargs):
         """Convolve with a telescope beam (and add noise): a :class:`~rtrace.observe.SkyMap` in Jy/beam.
@@ -185,6 +242,8 @@ class Result:
 
     def write_fits(self, path, quantity="intensity", **kwargs):
         """Write a (RA, Dec, FREQ) FITS cube of this result (Jy/pixel by default), atomically.
+
+        Background subtracted unless ``background="included"`` is passed on.
 
         See :func:`rtrace.io.fits.write_result` for the options.
         """

@@ -41,16 +41,15 @@ import numpy as np
 from ..errors import InputError
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.gaunt import log_temperature_table
-from ..physics.planck import planck_cgs
 from . import bricks as _bricks
 from . import kernels
+from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
 from .remap import remap_parallelograms
 from .result import Result
 
 __all__ = ["trace", "FrequencyTables"]
 
-_CMB_TEMPERATURE = 2.7255   # K, Fixsen (2009), ApJ 707, 916
 # What every traced image assumes (written to provenance and FITS headers).
 PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
            "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
@@ -86,23 +85,6 @@ def _frequencies(frequencies):
     if nu.ndim != 1 or not np.all(np.isfinite(nu) & (nu > 0)):
         raise InputError("frequencies: must be a 1D sequence of finite positive values")
     return nu
-
-
-def _background(background, nu):
-    """Intensity (nfreq,) entering from the far side: None, 'cmb', a temperature or an intensity."""
-    if background is None:
-        return np.zeros_like(nu)
-    if isinstance(background, str):
-        if background.lower() != "cmb":
-            raise InputError(f"background: unknown name '{background}' (use 'cmb', a temperature or an intensity)")
-        return planck_cgs(nu, np.full_like(nu, _CMB_TEMPERATURE))
-    q = u.Quantity(background)
-    if q.unit.is_equivalent(u.K):
-        return planck_cgs(nu, np.broadcast_to(q.to_value(u.K), nu.shape).astype(float))
-    unit = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
-    if not q.unit.is_equivalent(unit):
-        raise InputError(f"background: expected a temperature or a specific intensity, got '{q.unit}'")
-    return np.broadcast_to(q.to_value(unit), nu.shape).astype(float)
 
 
 def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_size=None,
@@ -166,7 +148,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     cells per side unless told otherwise), each brick read once per call.
     """
     nu = _frequencies(frequencies)
-    bg = _background(background, nu)
+    bg, bg_info = background_from_spec(background, nu)
     if int(supersample) < 1:
         raise InputError(f"supersample: must be a positive integer, got {supersample}")
     edge = None if brick_size is None else _bricks.check_brick_size(brick_size)
@@ -212,7 +194,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     if not absorption:
         provenance["absorption"] = "off (emission only)"
     res = Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
-                 rays_per_pixel=nrays, background=bg)
+                 rays_per_pixel=nrays, background=bg, background_info=bg_info)
     # what the diagnostics need to retrace the same rays (see Result.unabsorbed_intensity)
     res._snapshot = snapshot
     res._trace_options = dict(supersample=supersample, brick_size=brick_size, max_memory=max_memory)
