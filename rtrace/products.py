@@ -19,8 +19,11 @@ __all__ = ["PICTURES", "QUANTITIES", "Output", "data_outputs", "picture_outputs"
 QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
 # (quantity, drawn from the observed SkyMap when there is one); order is the order written
-PICTURES = (("intensity", True), ("tau", False), ("brightness_temperature", False),
-            ("emission_measure", False), ("spectral_index", True))
+PICTURES = (("intensity", True), ("tau", False), ("tau_unity_frequency", False),
+            ("brightness_temperature", False), ("emission_measure", False), ("spectral_index", True))
+
+# pictures that compare frequencies, left out of a single-frequency job
+_MULTI_FREQUENCY = ("tau_unity_frequency", "spectral_index")
 
 
 @dataclass
@@ -54,7 +57,8 @@ def _draw_sed(path, res, sky, name):
 
 
 def _draw_picture(path, res, sky, quantity, observed, limits):
-    from .plot import plot_map, plot_panels
+    from .analysis.spectra import middle_frequency_index
+    from .plot import plot_map, plot_panels, plot_tau_unity
     obj = sky if observed and sky is not None else res
     kw = {}
     if limits is not None:
@@ -65,9 +69,12 @@ def _draw_picture(path, res, sky, quantity, observed, limits):
         nu = res.frequencies
         fig = plot_map(obj, quantity=quantity, frequency=(nu[0], nu[-1]), path=path, **kw)
     elif quantity == "tau":
-        # optical depth spans decades between frequencies: one log scale per panel shows each of them
-        # (a series still shares limits, which then apply to every panel)
-        fig = plot_panels(obj, quantity=quantity, path=path, stretch="log", shared_scale=limits is not None, **kw)
+        # one map at the frequency nearest the geometric middle: the others only rescale it
+        # (tau ~ nu^-2.1); where each line of sight turns thin is the tau = 1 frequency picture
+        fig = plot_map(obj, quantity=quantity, frequency=middle_frequency_index(obj), path=path, stretch="log",
+                       **kw)
+    elif quantity == "tau_unity_frequency":
+        fig = plot_tau_unity(obj, path=path, **kw)
     else:
         fig = plot_panels(obj, quantity=quantity, path=path, **kw)
     _close(fig)
@@ -107,7 +114,7 @@ def picture_outputs(job, unit, fmt, limits):
     obs = observing_settings(job)
     plan = []
     for q, observed in PICTURES:
-        if q == "spectral_index" and len(job.frequencies) < 2:
+        if q in _MULTI_FREQUENCY and len(job.frequencies) < 2:
             continue
         lim = None if limits is None else limits.get(q)
         plan.append(Output(_stem(job, unit, f"{q}.{fmt}"),
