@@ -322,7 +322,8 @@ def _plane(obj, quantity, frequency):
             tag += f"\nbeams matched: {_angle_text(b.major)}\N{MULTIPLICATION SIGN}{_angle_text(b.minor)}"
         plane = _Plane(np.asarray(alpha), label=r"spectral index $\alpha$", tag=tag, unit=u.dimensionless_unscaled,
                        per=None, beam=alpha.beam, **common)
-        plane.note = "grey: " + alpha.masking.replace("blank where ", "")
+        reason = alpha.masking.replace("blank where ", "")
+        plane.note = ("grey: " if np.isfinite(alpha).any() else "every pixel blank: ") + reason
         return plane
 
     index = 0 if frequency is None else frequency_index(obj, frequency, "frequency")

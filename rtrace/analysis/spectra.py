@@ -446,25 +446,34 @@ def _common_beam(b1, b2):
         return radio_beam.Beams(beams=[b1, b2]).common_beam()
 
 
-def _to_beam(obj, plane, index, target):
-    """Plane ``index`` (Jy/beam in its own beam) convolved to ``target``, in Jy per ``target`` beam.
+def _to_beam(obj, planes, index, target):
+    """Planes of image ``index`` (Jy/beam in its own beam) convolved to ``target``, in Jy per ``target`` beam.
 
     Jy/beam_i divided by the beam area in pixels is Jy/pixel; a unit-sum kernel
     keeps it Jy/pixel; times the target beam area in pixels it is Jy/target
     beam. The kernel is the Gaussian ``target`` deconvolved by beam_i, since
     Gaussians convolve by adding their covariance matrices (common practice,
     e.g. Condon & Ransom 2016, from memory).
+
+    Returns the convolved planes and the factor by which the rms of the map's
+    beam-correlated noise changes: ``(A_t / A_i) sqrt(sum G_t^2 / sum G_i^2)``
+    with ``A`` the beam areas and ``G`` the unit-sum beams on the pixel grid
+    (white noise convolved with ``G_i`` then with the kernel is white noise
+    convolved with ``G_t``).
     """
     from ..observe.beam import BeamKernel
 
     own = _beam_at(obj, index)
     if _same_beam(own, target):
-        return plane
+        return list(planes), 1.0
+    shape = planes[0].shape
     kernel_beam = target.deconvolve(own, failure_returns_pointlike=True)
     omega_pix = _pixel_solid_angle_sr(obj)
-    kernel = BeamKernel(kernel_beam, obj.pixel_scale, plane.shape)
-    per_pixel = plane * omega_pix / _beam_solid_angle_sr(obj, index)
-    return kernel.convolve(per_pixel) * u.Quantity(target.sr).to_value(u.sr) / omega_pix
+    kernel = BeamKernel(kernel_beam, obj.pixel_scale, shape)
+    area_ratio = u.Quantity(target.sr).to_value(u.sr) / _beam_solid_angle_sr(obj, index)
+    out = [kernel.convolve(p) * area_ratio for p in planes]
+    g_own, g_target = BeamKernel(own, obj.pixel_scale, shape), BeamKernel(target, obj.pixel_scale, shape)
+    return out, area_ratio * math.sqrt(g_target.sum_squares / g_own.sum_squares)
 
 
 # Without noise, pixels fainter than this fraction of the plane's peak (at either frequency)
@@ -497,8 +506,12 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
     nu1, nu2 : `~astropy.units.Quantity` or int
         The two planes, by frequency (within 1 % of a traced one) or index.
     snr_threshold : float, optional
-        SkyMap with noise: NaN where either plane's noiseless ``model``
-        (in its own beam) is below this many times its ``noise_rms``.
+        SkyMap with noise: NaN where either plane's noiseless ``model`` is
+        below this many times its ``noise_rms``, both taken at the resolution
+        of the index (when a plane is smoothed to the common beam, its model
+        is smoothed too and its rms scaled as beam-correlated noise scales:
+        by ``(A_c / A_i) sqrt(sum G_c^2 / sum G_i^2)``, about
+        ``sqrt(A_c / A_i)`` in Jy per common beam).
         Default :data:`DEFAULT_SNR_THRESHOLD` (3) for a noisy SkyMap. Giving
         it for an image without noise is an error.
     peak_fraction : float, optional
@@ -544,14 +557,27 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
         threshold = DEFAULT_SNR_THRESHOLD
 
     beam, smoothed = None, False
+    models = {}
+    noise_at = {i1: None if rms is None else rms[i1], i2: None if rms is None else rms[i2]}
     if skymap:
         a = _jy_per_beam(obj.data[i1], "obj.data")
         b = _jy_per_beam(obj.data[i2], "obj.data")
+        if threshold is not None:
+            models = {i: _jy_per_beam(obj.model[i], "obj.model") for i in (i1, i2)}
         beam = _beam_at(obj, i1)
         if match_beams and not _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
             beam = _common_beam(_beam_at(obj, i1), _beam_at(obj, i2))
-            a, b = _to_beam(obj, a, i1, beam), _to_beam(obj, b, i2, beam)
             smoothed = True
+            for i in (i1, i2):
+                planes = [a if i == i1 else b] + ([models[i]] if models else [])
+                planes, factor = _to_beam(obj, planes, i, beam)
+                if i == i1:
+                    a = planes[0]
+                else:
+                    b = planes[0]
+                if models:
+                    # the S/N is judged at the resolution the index is made at
+                    models[i], noise_at[i] = planes[1], noise_at[i] * factor
         elif not _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
             beam = None         # two resolutions: the index holds at neither
             a = a / _beam_solid_angle_sr(obj, i1)
@@ -565,9 +591,8 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
     rules = []
     for i, plane in ((i1, a), (i2, b)):
         if threshold is not None and rms[i] > 0:
-            model = _jy_per_beam(obj.model[i], "obj.model")
             # written as a product so that no division by the rms is needed
-            alpha[model < threshold * rms[i]] = np.nan
+            alpha[models[i] < threshold * noise_at[i]] = np.nan
             rule = f"model below {threshold:g} \N{MULTIPLICATION SIGN} noise rms"
         else:
             finite = plane[np.isfinite(plane)]
