@@ -578,6 +578,14 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True, 
     return image
 
 
+def _map_figsize(shape):
+    """Figure size for one map: the height follows the image's aspect, never so short that the
+    vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches."""
+    ny, nx = shape
+    aspect = min(max(ny / nx, 0.3), 2.0)
+    return 5.6, max(2.6, 3.8 * aspect + 0.9)
+
+
 def _beam_fits(plane, aunit, field):
     """False (with a warning) when the beam is too large to draw in a corner of the field."""
     major = u.Quantity(plane.beam.major).to_value(aunit)
@@ -731,7 +739,7 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
     with matplotlib.rc_context(_STYLE):
         own = ax is None
         if own:
-            fig = _new_figure((5.6, 4.7))
+            fig = _new_figure(_map_figsize(plane.values.shape))
             ax = fig.add_subplot()
         else:
             fig = ax.figure
@@ -1144,7 +1152,8 @@ def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=
     with matplotlib.rc_context(_STYLE):
         own = ax is None
         if own:
-            fig = _new_figure((5.6, 5.3))
+            width, height = _map_figsize(ghz.shape)
+            fig = _new_figure((width, height + 0.6))          # room for the legend below
             ax = fig.add_subplot()
         else:
             fig = ax.figure

@@ -376,15 +376,25 @@ def inside(inner, outer, tol=0.5):
             and inner.y1 <= outer.y1 + tol)
 
 
+@pytest.fixture(scope="module")
+def strip():
+    """A wide, short view (24 x 160 pixels): the vertical axis label is longer than the map is tall."""
+    return rtrace.trace(demo.scenario(16), rtrace.View(npix=(24, 160), distance=DISTANCE), [1, 3] * u.GHz)
+
+
 @pytest.mark.parametrize("quantity", ["emission_measure", "intensity", "spectral_index"])
-def test_axis_labels_lie_inside_the_saved_figure(tiny, quantity):
+def test_axis_labels_lie_inside_the_saved_figure(tiny, strip, quantity):
     frequency = (1 * u.GHz, 3 * u.GHz) if quantity == "spectral_index" else None
-    fig = plot.plot_map(tiny, quantity, frequency)
-    renderer = rendered(fig)
-    ax = fig.axes[0]
-    for text in (ax.xaxis.label, ax.yaxis.label, ax.title, fig.axes[1].yaxis.label):
-        assert text.get_text()
-        assert inside(text.get_window_extent(renderer), fig.bbox), text.get_text()
+    for res in (tiny, strip):
+        fig = plot.plot_map(res, quantity, frequency)
+        renderer = rendered(fig)
+        ax = fig.axes[0]
+        for text in (ax.xaxis.label, ax.yaxis.label, ax.title, fig.axes[1].yaxis.label):
+            assert text.get_text()
+            assert inside(text.get_window_extent(renderer), fig.bbox), text.get_text()
+    # the strip's figure is shorter than a square map's, not padded with empty space
+    square = plot.plot_map(tiny, "emission_measure").get_size_inches()[1]
+    assert plot.plot_map(strip, "emission_measure").get_size_inches()[1] < 0.7 * square
 
 
 def test_titles_name_the_snapshot_and_the_ionization_model(tiny):
