@@ -28,7 +28,7 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
 
 from .analysis.spectra import (DEFAULT_SNR_THRESHOLD, THIN_SPECTRAL_INDEX, _is_result, _is_skymap,
-                               _spectrum_arrays, frequency_index, middle_frequency_index, pixel_flux, spectral_index,
+                               _spectrum_arrays, frequency_index, pixel_flux, spectral_index,
                                spectral_index_map, tau_unity_frequency)
 from .errors import InputError, warn_user
 from .quantities import finite_number
@@ -89,7 +89,7 @@ class _Plane:
     pixel_size: object              # Quantity or None
     beam: object = None             # radio_beam.Beam or None
     noise: object = None            # rms in the plotted unit, or None
-    note: str = ""                  # what blank pixels mean, written under the map
+    note: str = ""                  # what blank pixels mean, written on the map
 
 
 # --- small helpers ------------------------------------------------------------------------------
@@ -572,7 +572,7 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True, 
         # inside the frame, top left (usually empty sky), on a light box so it reads over any colour
         note = ax.annotate(plane.note, (0.0, 1.0), xycoords="axes fraction", xytext=(3, -3),
                            textcoords="offset points", ha="left", va="top", fontsize=7, color="0.15",
-                           bbox=dict(boxstyle="round,pad=0.2", facecolor="white", edgecolor="none", alpha=0.75),
+                           bbox={"boxstyle": "round,pad=0.2", "facecolor": "white", "edgecolor": "none", "alpha": 0.75},
                            zorder=7)
         note.set_gid("note")
     return image

@@ -2,7 +2,10 @@
 
 Works on a :class:`~rtrace.Result` (the sky-plane model) and on a SkyMap (an
 image in Jy/beam with a beam, optionally with noise); the two are told apart
-by their attributes, so this module does not import the observing code.
+by their attributes, so any image with ``data``, ``model``, ``beams`` and
+``pixel_scale`` works. Of the observing code only the beam kernel
+(:class:`rtrace.observe.beam.BeamKernel`) is used, to bring two planes to one
+beam before a spectral index.
 
 Conventions
 -----------
@@ -468,7 +471,6 @@ def _to_beam(obj, planes, index, target):
         return list(planes), 1.0
     shape = planes[0].shape
     kernel_beam = target.deconvolve(own, failure_returns_pointlike=True)
-    omega_pix = _pixel_solid_angle_sr(obj)
     kernel = BeamKernel(kernel_beam, obj.pixel_scale, shape)
     area_ratio = u.Quantity(target.sr).to_value(u.sr) / _beam_solid_angle_sr(obj, index)
     out = [kernel.convolve(p) * area_ratio for p in planes]
