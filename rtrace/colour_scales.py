@@ -8,6 +8,7 @@ snapshots of a series into one ``vmin``/``vmax`` per quantity.
 import astropy.units as u
 import numpy as np
 
+from .analysis.spectra import THIN_SPECTRAL_INDEX
 from .products import PICTURES
 
 __all__ = ["series_limits", "view_ranges"]
@@ -21,17 +22,28 @@ def view_ranges(res, sky, nfreq):
     Jy/beam with noise, Planck or Rayleigh-Jeans brightness temperatures, the
     S/N-blanked spectral index).
     """
+    from .analysis.spectra import middle_frequency_index
     from .plot import _plane
     ranges = {}
     for stem, q, observed in PICTURES:
         if observed and sky is None:
             continue
         obj = sky if observed else res
+        if q == "tau_unity_frequency":
+            if nfreq < 2:
+                continue
+            # the automatic scale is the traced range (pixels outside it are named, not
+            # stretched onto the scale): series sharing frequencies share it
+            ghz = res.frequencies.to_value(u.GHz)
+            ranges[stem] = {"min": float(ghz.min()), "max": float(ghz.max()), "unit": "GHz"}
+            continue
         if q == "spectral_index":
             if nfreq < 2:
                 continue
             nu = res.frequencies
             planes = [_plane(obj, q, (nu[0], nu[-1]))]
+        elif q == "tau":
+            planes = [_plane(obj, q, middle_frequency_index(res))]     # the one map the picture shows
         elif q == "emission_measure":
             planes = [_plane(obj, q, None)]
         else:
@@ -60,7 +72,8 @@ def series_limits(all_ranges):
     The ends follow the rules of an automatic scale applied to the union of
     the images (non-negative quantities start at zero; the spectral index is
     kept within +-4), so that a series of one gives the picture it would get
-    alone.
+    alone. The spectral index's scale is symmetric about the thin value
+    (-0.1); the tau = 1 frequency's spans the traced frequencies.
     """
     limits = {}
     for stem, q, _ in PICTURES:
@@ -71,7 +84,11 @@ def series_limits(all_ranges):
         lo = min(u.Quantity(e["min"], e["unit"]).to_value(unit) for e in entries)
         hi = max(u.Quantity(e["max"], e["unit"]).to_value(unit) for e in entries)
         if q == "spectral_index":
-            vmin, vmax = max(lo, -4.0), min(hi, 4.0)
+            # symmetric about the thin value, as the automatic index scale is
+            half = min(max(THIN_SPECTRAL_INDEX - lo, hi - THIN_SPECTRAL_INDEX, 0.05), 4.0)
+            vmin, vmax = THIN_SPECTRAL_INDEX - half, THIN_SPECTRAL_INDEX + half
+        elif q == "tau_unity_frequency":
+            vmin, vmax = lo, hi if hi > lo else lo * 1.01      # a log scale of frequencies: no zero
         else:
             vmin, vmax = min(0.0, lo), hi
             if vmax <= vmin:

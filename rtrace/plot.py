@@ -27,20 +27,29 @@ from matplotlib import colors, patheffects, ticker
 from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
 
-from .analysis.spectra import (THIN_SPECTRAL_INDEX, _is_result, _is_skymap, _spectrum_arrays, frequency_index,
-                               pixel_flux, spectral_index, spectral_index_map)
-from .errors import InputError
+from .analysis.spectra import (DEFAULT_SNR_THRESHOLD, THIN_SPECTRAL_INDEX, _is_result, _is_skymap,
+                               _spectrum_arrays, frequency_index, pixel_flux, spectral_index,
+                               spectral_index_map, tau_unity_frequency)
+from .errors import InputError, warn_user
 from .quantities import finite_number
 
-__all__ = ["plot_map", "plot_panels", "plot_sed", "QUANTITIES", "STRETCHES", "nice_length",
-           "choose_scale_bar", "DEFAULT_SNR_THRESHOLD"]
+__all__ = ["plot_map", "plot_panels", "plot_sed", "plot_tau_unity", "QUANTITIES", "STRETCHES", "nice_length",
+           "choose_scale_bar", "frequency_labels", "DEFAULT_SNR_THRESHOLD", "PER_PANEL_RATIO", "BEAM_DRAW_LIMIT"]
 
 QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature", "spectral_index")
 STRETCHES = ("linear", "log", "asinh")
 
-# Spectral-index maps of noisy SkyMaps blank pixels whose model is below this many rms in
-# either plane: below ~3 sigma the index is dominated by noise (common practice).
-DEFAULT_SNR_THRESHOLD = 3.0
+# Panels whose brightest values differ by more than this factor get a colour scale each
+# (unless limits are given): on one shared scale the faint panels would look empty.
+PER_PANEL_RATIO = 10.0
+
+# A beam whose major axis exceeds this fraction of the field's shorter side cannot be drawn
+# in a corner without covering the data: it is left out, with a warning.
+BEAM_DRAW_LIMIT = 0.5
+
+# Narrowest automatic spectral-index scale (half range about its centre): a uniform map
+# still gets a usable scale, and thin gas (-0.08 to -0.15) spreads over the colours.
+_MIN_INDEX_HALF_RANGE = 0.05
 
 # Perceptually uniform sequential maps, one per quantity so figures are recognisable;
 # a diverging map for the spectral index, white at the optically thin value.
@@ -80,14 +89,77 @@ class _Plane:
     pixel_size: object              # Quantity or None
     beam: object = None             # radio_beam.Beam or None
     noise: object = None            # rms in the plotted unit, or None
+    note: str = ""                  # what blank pixels mean, written on the map
 
 
 # --- small helpers ------------------------------------------------------------------------------
 
-def _format_frequency(nu_hz):
+def _significant(value, digits):
+    """``value`` rounded to ``digits`` significant figures, written without an exponent."""
+    decimals = digits - 1 - math.floor(math.log10(abs(value)))
+    text = f"{round(value, decimals):.{max(decimals, 0)}f}"
+    # trailing zeros say nothing here: "3.6 GHz", not "3.60 GHz"
+    return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+def _format_frequency(nu_hz, digits=3):
     if nu_hz >= 1e9:
-        return f"{nu_hz / 1e9:.4g} GHz"
-    return f"{nu_hz / 1e6:.4g} MHz"
+        return f"{_significant(nu_hz / 1e9, digits)} GHz"
+    return f"{_significant(nu_hz / 1e6, digits)} MHz"
+
+
+# A frequency label is rounded to no more than this relative error (well inside the 1 %
+# within which the plane can be asked for by that number).
+_LABEL_TOLERANCE = 0.0025
+
+
+def frequency_labels(frequencies):
+    """Short labels for a set of frequencies: as few significant figures as tell them apart.
+
+    Parameters
+    ----------
+    frequencies : `~astropy.units.Quantity` (n,)
+        Spectral unit.
+
+    Returns
+    -------
+    list of str
+        ``"1.93 GHz"``, ``"500 MHz"``: the fewest significant figures (2 to
+        6) that keep every label within 0.25 % of its frequency and the
+        labels distinct.
+    """
+    nu = np.atleast_1d(u.Quantity(frequencies).to_value(u.Hz, equivalencies=u.spectral()))
+    for digits in range(2, 7):
+        labels = [_format_frequency(f, digits) for f in nu]
+        close = all(abs(float(t.split()[0]) * (1e9 if t.endswith("GHz") else 1e6) - f) <= _LABEL_TOLERANCE * f
+                    for t, f in zip(labels, nu))
+        if close and len(set(labels)) == len(labels):
+            return labels
+    return [_format_frequency(f, 6) for f in nu]
+
+
+def _subject(obj):
+    """One line naming the snapshot and the ionization model (from the provenance), or ''."""
+    provenance = getattr(obj, "provenance", None)
+    if provenance is None and getattr(obj, "result", None) is not None:
+        provenance = getattr(obj.result, "provenance", None)
+    provenance = provenance or {}
+    parts = []
+    if provenance.get("source"):
+        parts.append(str(provenance["source"]))
+    if provenance.get("ionization"):
+        # the model's name and its first arguments; the whole description is in the FITS header
+        text = str(provenance["ionization"])
+        parts.append("ionization: " + (text if len(text) <= 40 else text[:39] + "\N{HORIZONTAL ELLIPSIS}"))
+    return " \N{MIDDLE DOT} ".join(parts)
+
+
+def _angle_text(angle):
+    """A beam axis in the unit that keeps the number short (arcsec, arcmin or deg)."""
+    arcsec = u.Quantity(angle).to_value(u.arcsec)
+    unit, name = _axis_unit(arcsec)
+    sym = {"arcsec": "\N{DOUBLE PRIME}", "arcmin": "\N{PRIME}", "deg": "\N{DEGREE SIGN}"}[name]
+    return f"{u.Quantity(angle).to_value(unit):.3g}{sym}"
 
 
 def _prefix_for(peak):
@@ -240,21 +312,22 @@ def _plane(obj, quantity, frequency):
     if quantity == "spectral_index":
         f1, f2 = _spectral_pair(frequency)
         i1, i2 = frequency_index(obj, f1, "frequency"), frequency_index(obj, f2, "frequency")
-        noisy = _noise(obj, i1) is not None
-        alpha = spectral_index_map(obj, i1, i2, snr_threshold=DEFAULT_SNR_THRESHOLD if noisy else None)
-        beam = None
-        if _is_skymap(obj):
-            # the index is only as sharp as the larger of the two beams
-            beam = max(_beam(obj, i1), _beam(obj, i2), key=lambda b: u.Quantity(b.sr).to_value(u.sr))
-        label = r"spectral index $\alpha$"
-        if noisy:
-            label += f" (model > {DEFAULT_SNR_THRESHOLD:g} rms)"
-        return _Plane(alpha, label=label, tag=f"{_format_frequency(nu[i1])} \N{EN DASH} "
-                      f"{_format_frequency(nu[i2])}", unit=u.dimensionless_unscaled, per=None, beam=beam,
-                      **common)
+        # both planes at one resolution (smoothed to a common beam where they differ), faint or
+        # noisy pixels blanked (see spectral_index_map)
+        alpha = spectral_index_map(obj, i1, i2)
+        t1, t2 = frequency_labels(nu[[i1, i2]] * u.Hz)
+        tag = f"{t1} \N{EN DASH} {t2}"
+        if alpha.smoothed:
+            b = alpha.beam
+            tag += f"\nbeams matched: {_angle_text(b.major)}\N{MULTIPLICATION SIGN}{_angle_text(b.minor)}"
+        plane = _Plane(np.asarray(alpha), label=r"spectral index $\alpha$", tag=tag, unit=u.dimensionless_unscaled,
+                       per=None, beam=alpha.beam, **common)
+        reason = alpha.masking.replace("blank where ", "")
+        plane.note = ("grey: " if np.isfinite(alpha).any() else "every pixel blank: ") + reason
+        return plane
 
     index = 0 if frequency is None else frequency_index(obj, frequency, "frequency")
-    tag = _format_frequency(nu[index])
+    tag = frequency_labels(nu[index] * u.Hz)[0]
     if quantity == "intensity":
         if _is_skymap(obj):
             values = u.Quantity(obj.data[index]).to_value(u.Jy / u.beam)
@@ -327,15 +400,7 @@ def _make_norm(planes, stretch, vmin=None, vmax=None):
     if vmin is not None and vmax is not None and vmax <= vmin:
         raise InputError(f"vmax: must exceed vmin ({vmax:g} <= {vmin:g})")
     if quantity == "spectral_index":
-        # diverging, centred on the optically thin index; the range always covers thin (-0.1)
-        # to thick (+2) and widens (up to +-4) only if the data need it
-        lo = np.percentile(vals, 1) if vals.size else THIN_SPECTRAL_INDEX
-        hi = np.percentile(vals, 99) if vals.size else 2.0
-        lo = max(lo, -4.0) if vmin is None else vmin
-        hi = min(hi, 4.0) if vmax is None else vmax
-        # given ends still widen to the thin-thick range: the centre must lie inside the scale
-        return colors.TwoSlopeNorm(vcenter=THIN_SPECTRAL_INDEX, vmin=min(THIN_SPECTRAL_INDEX - 0.5, lo),
-                                   vmax=max(2.1, hi))
+        return _index_norm(vals, vmin, vmax)
     if vals.size == 0 and vmin is None and vmax is None:
         return colors.Normalize(0.0, 1.0)
     lo, hi = (float(vals.min()), float(vals.max())) if vals.size else (0.0, 1.0)
@@ -370,6 +435,31 @@ def _make_norm(planes, stretch, vmin=None, vmax=None):
     if noises:
         width = 3.0 * max(noises)
     return colors.AsinhNorm(linear_width=width, vmin=vmin, vmax=hi)
+
+
+def _index_norm(vals, vmin, vmax):
+    """A linear scale for the spectral index, symmetric about its centre (the diverging map's white).
+
+    Automatic: centred on the optically thin index, reaching the farther of the 1st and
+    99th percentiles (within +-4). Given ends are used as they are (the centre is then
+    their middle); one given end is mirrored about the thin index when that gives a
+    valid scale.
+    """
+    c = THIN_SPECTRAL_INDEX
+    if vals.size:
+        lo, hi = np.percentile(vals, 1), np.percentile(vals, 99)
+        half = min(max(abs(lo - c), abs(hi - c), _MIN_INDEX_HALF_RANGE), 4.0)
+    else:
+        half = 2.0
+    if vmin is None and vmax is None:
+        return colors.Normalize(c - half, c + half)
+    if vmin is not None and vmax is not None:
+        return colors.Normalize(vmin, vmax)
+    if vmin is not None:
+        top = 2 * c - vmin if vmin < c else max(c + half, vmin + 2 * _MIN_INDEX_HALF_RANGE)
+        return colors.Normalize(vmin, top)
+    bottom = 2 * c - vmax if vmax > c else min(c - half, vmax - 2 * _MIN_INDEX_HALF_RANGE)
+    return colors.Normalize(bottom, vmax)
 
 
 def _extend(norm, planes):
@@ -421,7 +511,7 @@ def _sequential(plane):
     return plane.quantity != "spectral_index"
 
 
-def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True):
+def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True, show_note=True):
     """Draw one plane on ``ax``; returns the AxesImage."""
     ny, nx = plane.values.shape
     width_arcsec = max(nx, ny) * plane.pixel_scale.to_value(u.arcsec)
@@ -446,6 +536,8 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True):
         cs.set_gid("contours")
 
     pad = 0.05 * 2 * half_x
+    if show_beam and plane.beam is not None and not _beam_fits(plane, aunit, 2 * min(half_x, half_y)):
+        show_beam = False
     if show_beam and plane.beam is not None:
         major = u.Quantity(plane.beam.major).to_value(aunit)
         minor = u.Quantity(plane.beam.minor).to_value(aunit)
@@ -486,7 +578,33 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True):
         ax.set_ylim(-half_y, half_y)
     if title is not None:
         ax.set_title(title)
+    if plane.note and show_note:
+        # inside the frame, top left (usually empty sky), on a light box so it reads over any colour
+        note = ax.annotate(plane.note, (0.0, 1.0), xycoords="axes fraction", xytext=(3, -3),
+                           textcoords="offset points", ha="left", va="top", fontsize=7, color="0.15",
+                           bbox={"boxstyle": "round,pad=0.2", "facecolor": "white", "edgecolor": "none", "alpha": 0.75},
+                           zorder=7)
+        note.set_gid("note")
     return image
+
+
+def _map_figsize(shape):
+    """Figure size for one map: the height follows the image's aspect, never so short that the
+    vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches."""
+    ny, nx = shape
+    aspect = min(max(ny / nx, 0.3), 2.0)
+    return 5.6, max(2.6, 3.8 * aspect + 0.9)
+
+
+def _beam_fits(plane, aunit, field):
+    """False (with a warning) when the beam is too large to draw in a corner of the field."""
+    major = u.Quantity(plane.beam.major).to_value(aunit)
+    if major <= BEAM_DRAW_LIMIT * field:
+        return True
+    warn_user(f"the beam ({_angle_text(plane.beam.major)} FWHM) is larger than {BEAM_DRAW_LIMIT:g} of the "
+              f"field ({_angle_text(field * aunit)}): the map shows mostly the beam's shape, and its ellipse "
+              f"is not drawn over the data", UserWarning)
+    return False
 
 
 def _save(fig, path):
@@ -544,16 +662,12 @@ def _asinh_ticks(norm, min_gap=0.08):
     return sorted(chosen)
 
 
-# Colour-bar ticks of the spectral index: the thin value, half-integers near it, integers beyond
-_INDEX_TICKS = (-4, -3, -2, -1, -0.5, THIN_SPECTRAL_INDEX, 0.5, 1, 1.5, 2, 3, 4)
-
-
 def _colorbar(fig, image, ax, plane, norm, planes, **kw):
     cbar = fig.colorbar(image, ax=ax, extend=_extend(norm, planes), **kw)
     cbar.set_label(plane.label)
     axis = cbar.ax.yaxis
-    if isinstance(norm, colors.TwoSlopeNorm):
-        cbar.set_ticks([t for t in _INDEX_TICKS if norm.vmin <= t <= norm.vmax])
+    if plane.quantity == "spectral_index":
+        axis.set_major_locator(ticker.MaxNLocator(nbins=7, steps=[1, 2, 2.5, 5, 10]))
         axis.set_major_formatter(ticker.FuncFormatter(_tick_text))
     elif isinstance(norm, colors.AsinhNorm):
         cbar.set_ticks(_asinh_ticks(norm))
@@ -582,8 +696,11 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
         depth. ``emission_measure``: pc cm-6. ``brightness_temperature``: K,
         Planck inversion for a Result (-> T_e where thick), Rayleigh-Jeans
         for a SkyMap. ``spectral_index``: ``d ln I / d ln nu`` between two
-        planes (see `rtrace.analysis.spectral_index_map`); for a noisy
-        SkyMap pixels below ``DEFAULT_SNR_THRESHOLD`` rms are blanked.
+        planes (see `rtrace.analysis.spectral_index_map`): both planes at
+        one resolution (smoothed to a common beam where the beams differ,
+        said in the title), pixels blanked (grey, said on the map) below
+        ``DEFAULT_SNR_THRESHOLD`` rms for a noisy SkyMap, below 1e-3 of
+        the peak without noise.
         ``tau`` and ``emission_measure`` of a SkyMap are those of its Result.
     frequency : `~astropy.units.Quantity`, int or pair, optional
         Plane by frequency (within 1 % of a traced one) or index; default
@@ -591,7 +708,7 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
     stretch : {"asinh", "log", "linear"}
         Colour stretch (``AsinhNorm``, linear within 2 % of the peak or 3 rms;
         ``LogNorm`` over at most 4 decades; ``Normalize``). The spectral
-        index always uses a linear diverging scale centred on -0.1.
+        index always uses a linear diverging scale.
     contours : None, int or sequence of float or Quantity
         An int: that many levels evenly spaced in the stretch; values: levels
         in the plotted unit (a Quantity is converted).
@@ -605,14 +722,22 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
         Draw into this axes (a colour bar is added next to it).
     cmap : str or `~matplotlib.colors.Colormap`, optional
     title : str, optional
-        Default: the quantity and frequency.
+        Default: the quantity and frequency, with a line above naming the
+        snapshot and the ionization model (from the provenance).
     vmin, vmax : float or `~astropy.units.Quantity`, optional
         Ends of the colour scale in place of those derived from this image
         (a float in the plotted unit, a Quantity is converted to it; e.g.
         Jy/beam for the intensity of a SkyMap), so that several figures can
         share one scale. The stretch keeps its rules otherwise (the asinh
         linear range follows the larger end; a ``log`` vmin <= 0 takes the
-        automatic floor); a spectral-index scale still covers -0.6 to +2.1.
+        automatic floor). The spectral index's automatic scale is symmetric
+        about the thin value (-0.1) and reaches the 1st/99th percentiles;
+        given ends are used as they are.
+
+    Notes
+    -----
+    A beam whose major axis exceeds ``BEAM_DRAW_LIMIT`` (half) of the field
+    is not drawn (a warning says so): such a map mostly shows the beam.
 
     Returns
     -------
@@ -622,17 +747,21 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
     plane = _plane(obj, quantity, frequency)
     vmin, vmax = _limit(vmin, plane, "vmin"), _limit(vmax, plane, "vmax")
     with matplotlib.rc_context(_STYLE):
-        if ax is None:
-            fig = _new_figure((5.6, 4.5))
+        own = ax is None
+        if own:
+            fig = _new_figure(_map_figsize(plane.values.shape))
             ax = fig.add_subplot()
         else:
             fig = ax.figure
         norm = _make_norm([plane], stretch, vmin, vmax)
         cmap_obj = _resolve_cmap(cmap, quantity)
+        subject = _subject(obj) if title is None else ""
         if title is None:
             title = _NAMES[quantity] + (f", {plane.tag}" if plane.tag else "")
         image = _draw(ax, plane, norm, cmap_obj, contours=contours, scale_bar=scale_bar, title=title)
         _colorbar(fig, image, ax, plane, norm, [plane])
+        if own and subject:
+            fig.suptitle(subject, fontsize=8, color="0.3")
         _save(fig, path)
     return fig
 
@@ -662,7 +791,7 @@ def _panel_selection(obj, quantity, frequencies):
     return chosen
 
 
-def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, shared_scale=True,
+def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, shared_scale=None,
                 stretch="asinh", contours=None, scale_bar=None, cmap=None, title=None, ncols=None,
                 vmin=None, vmax=None):
     """One map per frequency on a grid.
@@ -678,14 +807,21 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
         consecutive pairs). ``emission_measure`` gives one panel.
     path : str or path-like, optional
         Save the figure there (format from the suffix, PNG without one).
-    shared_scale : bool
-        One colour scale and colour bar for all panels (default), else one per panel.
+    shared_scale : bool or None
+        True: one colour scale and colour bar for all panels; False: one per
+        panel. None (default): shared, unless the panels' brightest values
+        differ by more than ``PER_PANEL_RATIO`` (10), where one scale would
+        leave the faint panels blank; given ``vmin``/``vmax`` (e.g. a
+        series' shared limits) always give one shared scale.
     stretch, contours, scale_bar, cmap
         As in :func:`plot_map`; the scale bar is drawn in the first panel only.
     title : str, optional
-        Figure title; default the quantity.
+        Figure title; default the quantity, with a line naming the snapshot
+        and the ionization model (from the provenance).
     ncols : int, optional
-        Panels per row; default up to 3 for 6 panels or fewer, about sqrt(n) beyond.
+        Panels per row; default the layout with the fewest empty cells
+        (at most 4 across up to 8 panels, about sqrt(n) beyond). Unused
+        cells are left empty, without axes.
     vmin, vmax : float or `~astropy.units.Quantity`, optional
         As in :func:`plot_map`, for every panel (with ``shared_scale=False``
         too).
@@ -698,20 +834,23 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
     _check_quantity(quantity)
     _check_stretch(stretch)
     planes = [_plane(obj, quantity, f) for f in _panel_selection(obj, quantity, frequencies)]
-    if shared_scale and quantity == "intensity":
-        planes = _common_prefix(planes)
     # per plane: without a shared scale, intensity panels may each have their own SI prefix
     limits = [(_limit(vmin, p, "vmin"), _limit(vmax, p, "vmax")) for p in planes]
+    if shared_scale is None:
+        shared_scale = vmin is not None or vmax is not None or not _panels_differ(planes)
+    if quantity == "intensity" and shared_scale:
+        planes = _common_prefix(planes)
+        limits = [(_limit(vmin, p, "vmin"), _limit(vmax, p, "vmax")) for p in planes]
     n = len(planes)
     if ncols is None:
-        ncols = n if n <= 3 else (3 if n <= 9 else math.ceil(math.sqrt(n)))
+        ncols = _default_columns(n)
     elif not (isinstance(ncols, (int, np.integer)) and ncols >= 1):
         raise InputError(f"ncols: expected a positive integer, got {ncols!r}")
     ncols = min(int(ncols), n)
     nrows = math.ceil(n / ncols)
     with matplotlib.rc_context(_STYLE):
         extra = 0.9 if shared_scale else 1.3
-        fig = _new_figure((2.9 * ncols + extra, 2.75 * nrows + 0.45))
+        fig = _new_figure((2.9 * ncols + extra, 2.75 * nrows + 0.7))
         axes = fig.subplots(nrows, ncols, sharex=True, sharey=True, squeeze=False).ravel()
         for spare in axes[n:]:
             fig.delaxes(spare)
@@ -722,21 +861,53 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
         for k, (ax, plane) in enumerate(zip(axes, planes)):
             norm = shared if shared_scale else _make_norm([plane], stretch, *limits[k])
             image = _draw(ax, plane, norm, cmap_obj, contours=contours,
-                          scale_bar=scale_bar if k == 0 else False, title=plane.tag or None)
-            row, col = divmod(k, ncols)
-            if row < nrows - 1 and k + ncols < n:
-                ax.set_xlabel("")
-            else:
-                ax.xaxis.set_tick_params(labelbottom=True)
-            if col > 0:
-                ax.set_ylabel("")
+                          scale_bar=scale_bar if k == 0 else False, title=plane.tag or None, show_note=False)
+            # one x and one y label for the whole grid (below); tick labels on the bottom
+            # panel of every column and the first panel of every row
+            xlabel, ylabel = ax.get_xlabel(), ax.get_ylabel()
+            ax.set_xlabel("")
+            ax.set_ylabel("")
+            ax.xaxis.set_tick_params(labelbottom=k + ncols >= n)
+            ax.yaxis.set_tick_params(labelleft=k % ncols == 0)
             if not shared_scale:
-                _colorbar(fig, image, ax, plane, norm, [plane], shrink=0.9)
+                cbar = _colorbar(fig, image, ax, plane, norm, [plane], shrink=0.9)
+                if k % ncols != ncols - 1 and k != n - 1:
+                    cbar.set_label("")          # one label per row, on its last colour bar
         if shared_scale:
             _colorbar(fig, image, list(axes), planes[0], shared, planes, shrink=0.9 if nrows > 1 else 1.0)
-        fig.suptitle(_NAMES[quantity] if title is None else title)
+        fig.supxlabel(xlabel, fontsize=_STYLE["axes.labelsize"])
+        fig.supylabel(ylabel, fontsize=_STYLE["axes.labelsize"])
+        heading = _NAMES[quantity] if title is None else title
+        subject = _subject(obj) if title is None else ""
+        # what blanked pixels mean, once for the figure (the panels are too small to carry it)
+        notes = list(dict.fromkeys(p.note for p in planes if p.note))
+        lines = [heading] + ([subject] if subject else []) + notes
+        fig.suptitle("\n".join(lines))
         _save(fig, path)
     return fig
+
+
+def _default_columns(n):
+    """Columns for ``n`` panels: the fewest empty cells, then the squarest grid (wider than tall)."""
+    if n <= 3:
+        return n
+    widest = 4 if n <= 8 else math.ceil(math.sqrt(n)) + 1
+    best = min(range(2, widest + 1),
+               key=lambda c: (c * math.ceil(n / c) - n, abs(c - math.ceil(n / c) - 0.5), -c))
+    return best
+
+
+def _panels_differ(planes):
+    """True when the panels' brightest values differ by more than PER_PANEL_RATIO."""
+    if planes[0].quantity == "spectral_index":
+        return False
+    peaks = []
+    for p in planes:
+        finite = np.abs(np.asarray(p.values, float))
+        finite = finite[np.isfinite(finite)]
+        peaks.append(float(finite.max()) * (1 * p.unit).value if finite.size else 0.0)
+    peaks = [v for v in peaks if v > 0]
+    return len(peaks) > 1 and max(peaks) > PER_PANEL_RATIO * min(peaks)
 
 
 def _common_prefix(planes):
@@ -772,6 +943,7 @@ def _annotate_indices(ax, x, y, color):
     """
     alpha = spectral_index(x * u.GHz, y)
     pts = ax.transData.transform(np.column_stack([x, y]))
+    labels = []
     for k, a in enumerate(alpha):
         if not np.isfinite(a):
             continue
@@ -780,11 +952,69 @@ def _annotate_indices(ax, x, y, color):
         nx, ny = -dy / norm, dx / norm
         if ny < 0:
             nx, ny = -nx, -ny
-        ha = "right" if nx < -0.35 else "left" if nx > 0.35 else "center"
-        ax.annotate(rf"$\alpha$ = {a:+.2f}".replace("-", "\N{MINUS SIGN}"),
-                    (math.sqrt(x[k] * x[k + 1]), math.sqrt(y[k] * y[k + 1])),
-                    xytext=(7 * nx, 7 * ny), textcoords="offset points", ha=ha, va="bottom" if ny > 0.35
-                    else "center", fontsize=8, color=color, gid="spectral_index")
+        text = ax.annotate(rf"$\alpha$ = {a:+.2f}".replace("-", "\N{MINUS SIGN}"),
+                           (math.sqrt(x[k] * x[k + 1]), math.sqrt(y[k] * y[k + 1])), xytext=(0, 0),
+                           textcoords="offset points", fontsize=8, color=color, gid="spectral_index")
+        _place_label(text, nx, ny)
+        labels.append((text, nx, ny))
+    if labels:
+        _keep_inside(ax, labels)
+
+
+def _place_label(text, nx, ny):
+    """Offset a label 7 points along the normal (nx, ny), aligned so it grows away from the curve."""
+    text.xyann = (7 * nx, 7 * ny)
+    text.set_ha("right" if nx < -0.35 else "left" if nx > 0.35 else "center")
+    text.set_va("bottom" if ny > 0.35 else "top" if ny < -0.35 else "center")
+
+
+def _keep_inside(ax, labels):
+    """Put each index label on the side of its segment where it stays inside the axes.
+
+    A label outside the frame would sit on the tick labels; the other side of the
+    segment is tried, then the label is pulled into the frame along the vertical.
+    """
+    fig = ax.figure
+    fig.draw_without_rendering()               # runs the layout: the axes' final position
+    frame = ax.get_window_extent()
+    scale = fig.dpi / 72.0                     # pixels per point
+
+    def outside(text):
+        box = text.get_window_extent()
+        return max(frame.x0 - box.x0, box.x1 - frame.x1, frame.y0 - box.y0, box.y1 - frame.y1, 0.0)
+
+    for text, nx, ny in labels:
+        first = outside(text)
+        if first == 0:
+            continue
+        _place_label(text, -nx, -ny)
+        second = outside(text)
+        if second == 0:
+            continue
+        if second > first:
+            _place_label(text, nx, ny)
+        box = text.get_window_extent()
+        dy = max(frame.y0 + 2 - box.y0, 0.0) - max(box.y1 - (frame.y1 - 2), 0.0)
+        dx = max(frame.x0 + 2 - box.x0, 0.0) - max(box.x1 - (frame.x1 - 2), 0.0)
+        text.xyann = (text.xyann[0] + dx / scale, text.xyann[1] + dy / scale)
+
+
+def _log_ticks(axis, lo, hi):
+    """Labelled ticks on a log axis from ``lo`` to ``hi``, however short the range.
+
+    Over ~2.5 decades the powers of ten suffice; down to one decade the 2x and 5x
+    minor ticks are labelled too; under a decade none of those may fall inside, so
+    round values (1-2-2.5-5 steps) are placed and labelled instead.
+    """
+    axis.set_major_formatter(ticker.FuncFormatter(_tick_text))
+    if hi / lo < 10:
+        axis.set_major_locator(ticker.MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
+        axis.set_minor_locator(ticker.NullLocator())
+        axis.set_minor_formatter(ticker.NullFormatter())
+        return
+    axis.set_major_locator(ticker.LogLocator())
+    axis.set_minor_locator(ticker.LogLocator(subs="auto"))
+    axis.set_minor_formatter(ticker.FuncFormatter(_two_five) if hi / lo < 300 else ticker.NullFormatter())
 
 
 def plot_sed(frequencies, flux, path=None, ax=None, label=None, annotate_index=True):
@@ -838,17 +1068,131 @@ def plot_sed(frequencies, flux, path=None, ax=None, label=None, annotate_index=T
         ax.set_yscale("log")
         ax.set_xlabel("frequency (GHz)")
         ax.set_ylabel(f"flux density ({prefix}Jy)")
-        ax.margins(x=0.08, y=0.15)
+        ax.margins(x=0.08, y=0.2)
         ax.autoscale_view()
+        for axis, (lo, hi) in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):
+            _log_ticks(axis, lo, hi)
         if annotate_index and nu_ghz.size > 1:
             _annotate_indices(ax, nu_ghz, y, line.get_color())
-        for axis, (lo, hi) in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):
-            axis.set_major_formatter(ticker.FuncFormatter(_tick_text))
-            # under ~2.5 decades the powers of ten alone are too few labels: add 2x and 5x
-            axis.set_minor_formatter(ticker.FuncFormatter(_two_five) if hi / lo < 300 else ticker.NullFormatter())
         ax.grid(True, which="major", alpha=0.35, linewidth=0.6)
         ax.grid(True, which="minor", alpha=0.12, linewidth=0.5)
         if label is not None:
             ax.legend(frameon=False)
+        _save(fig, path)
+    return fig
+
+
+# Colours of the pixels whose tau = 1 frequency lies outside the traced range (kept out of
+# the colour map's own range of colours: near-black, a red, and a light grey for no gas).
+_BELOW_COLOUR, _ABOVE_COLOUR, _NO_GAS_COLOUR = "0.1", "#d0312d", "0.85"
+
+
+def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=None, vmax=None,
+                   scale_bar=None):
+    """Map of the frequency at which each line of sight turns from optically thick to thin.
+
+    One picture in place of a panel of optical-depth maps that all look alike
+    (free-free ``tau ~ nu^-2.1`` only rescales the map): each pixel shows
+    the frequency where its ``tau`` falls through 1
+    (:func:`rtrace.analysis.tau_unity_frequency`, interpolated between the
+    traced frequencies), on a logarithmic scale. Pixels where ``tau`` never
+    crosses 1 within the traced frequencies are not left blank: they are
+    drawn in their own colours and named in the legend, "below the traced
+    range" (thin at every traced frequency), "above the traced range"
+    (thick at every traced frequency) and "no absorbing gas" (``tau = 0``
+    everywhere).
+
+    Parameters
+    ----------
+    obj : `~rtrace.Result` or SkyMap
+        A SkyMap is drawn from the Result behind it. Needs two frequencies or more.
+    path : str or path-like, optional
+        Save the figure there (format from the suffix, PNG without one).
+    ax : `~matplotlib.axes.Axes`, optional
+        Draw into this axes.
+    cmap : str or `~matplotlib.colors.Colormap`
+        Colour map for the frequencies inside the range.
+    title : str, optional
+        Default names the picture and the whole source's tau = 1 frequency,
+        with a line naming the snapshot and the ionization model.
+    vmin, vmax : `~astropy.units.Quantity` or float, optional
+        Ends of the colour scale (a float is in GHz); default the lowest and
+        highest traced frequencies. Frequencies outside given ends take the
+        colour of the nearer end.
+    scale_bar : None, False or `~astropy.units.Quantity`
+        As in :func:`plot_map`.
+
+    Returns
+    -------
+    `~matplotlib.figure.Figure`
+    """
+    from matplotlib.patches import Patch
+
+    result = obj.result if (_is_skymap(obj) and getattr(obj, "result", None) is not None) else obj
+    if not _is_result(result):
+        raise InputError(f"obj: expected an rtrace Result or a SkyMap with its Result, got {type(obj).__name__}")
+    nu = u.Quantity(result.frequencies).to_value(u.Hz, equivalencies=u.spectral())
+    if nu.size < 2:
+        raise InputError("obj: the tau = 1 frequency needs at least two traced frequencies")
+    per_pixel, whole = tau_unity_frequency(result)
+    ghz = per_pixel.to_value(u.GHz)
+    tau = np.asarray(result.tau, float)
+    order = np.argsort(nu)
+    no_gas = np.all(tau <= 0, axis=0)
+    missing = ~np.isfinite(ghz) & ~no_gas
+    above = missing & (tau[order[-1]] >= 1.0)          # thick even at the highest frequency
+    below = missing & ~above                             # thin even at the lowest
+    scale, distance, size = _geometry(result)
+    plane = _Plane(ghz, quantity="tau", label=r"frequency where $\tau$ = 1 (GHz)", tag="",
+                   unit=u.GHz, per=None, pixel_scale=scale, distance=distance, pixel_size=size)
+    lo = nu.min() / 1e9 if vmin is None else _limit(vmin, plane, "vmin")
+    hi = nu.max() / 1e9 if vmax is None else _limit(vmax, plane, "vmax")
+    if not (lo > 0 and hi > lo):
+        raise InputError(f"vmax: the frequency scale needs 0 < vmin < vmax, got {lo:g} and {hi:g} GHz")
+    norm = colors.LogNorm(vmin=lo, vmax=hi)
+    values = np.clip(ghz, lo, hi)
+    values[below] = lo / 10.0                 # under: drawn in the "below" colour
+    values[above] = hi * 10.0                 # over: drawn in the "above" colour
+    values[no_gas] = np.nan
+    plane.values = values
+    base = matplotlib.colormaps[cmap] if isinstance(cmap, str) else cmap
+    if not isinstance(base, colors.Colormap):
+        raise InputError(f"cmap: unknown colour map {cmap!r}")
+    cmap_obj = base.with_extremes(under=_BELOW_COLOUR, over=_ABOVE_COLOUR, bad=_NO_GAS_COLOUR)
+    with matplotlib.rc_context(_STYLE):
+        own = ax is None
+        if own:
+            width, height = _map_figsize(ghz.shape)
+            fig = _new_figure((width, height + 0.6))          # room for the legend below
+            ax = fig.add_subplot()
+        else:
+            fig = ax.figure
+        subject = _subject(result) if title is None else ""
+        if title is None:
+            whole_ghz = whole.to_value(u.GHz)
+            title = (r"Frequency where $\tau$ = 1" + (f" (whole source: {frequency_labels(whole)[0]})"
+                                                       if np.isfinite(whole_ghz) else ""))
+        image = _draw(ax, plane, norm, cmap_obj, contours=None, scale_bar=scale_bar, title=title)
+        cbar = fig.colorbar(image, ax=ax, extend="both")
+        cbar.set_label(plane.label)
+        cbar.ax.yaxis.set_major_formatter(ticker.FuncFormatter(_tick_text))
+        cbar.ax.yaxis.set_minor_formatter(ticker.FuncFormatter(_two_five) if hi / lo < 300
+                                          else ticker.NullFormatter())
+        lo_txt, hi_txt = frequency_labels([lo, hi] * u.GHz)
+        handles = []
+        if below.any():
+            handles.append(Patch(facecolor=_BELOW_COLOUR, edgecolor="0.4",
+                                 label=f"below the traced range (thin at {lo_txt} and above)"))
+        if above.any():
+            handles.append(Patch(facecolor=_ABOVE_COLOUR, edgecolor="0.4",
+                                 label=f"above the traced range (thick at {hi_txt} and below)"))
+        if no_gas.any():
+            handles.append(Patch(facecolor=_NO_GAS_COLOUR, edgecolor="0.4", label="no absorbing gas"))
+        if handles:
+            legend = (fig.legend(handles=handles, loc="outside lower center", frameon=False, fontsize=8)
+                      if own else ax.legend(handles=handles, loc="lower left", fontsize=7))
+            legend.set_gid("categories")
+        if own and subject:
+            fig.suptitle(subject, fontsize=8, color="0.3")
         _save(fig, path)
     return fig

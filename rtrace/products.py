@@ -29,9 +29,13 @@ QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 # (file stem, quantity drawn, drawn from the observed SkyMap); order is the order written.
 # Observed pictures are made only when the job has a beam.
 PICTURES = (("intensity", "intensity", False), ("tau", "tau", False),
+            ("tau_unity_frequency", "tau_unity_frequency", False),
             ("brightness_temperature", "brightness_temperature", False),
             ("emission_measure", "emission_measure", False), ("spectral_index", "spectral_index", False),
             ("observed", "intensity", True), ("observed_spectral_index", "spectral_index", True))
+
+# pictures that compare frequencies, left out of a single-frequency job
+_MULTI_FREQUENCY = ("tau_unity_frequency", "spectral_index")
 
 #: What each SED file is computed from, written into its header.
 SED_SOURCES = {False: "model: the traced image, unconvolved and noiseless (exact flux within the field)",
@@ -81,7 +85,8 @@ def _draw_sed(path, res, sky, name, observed):
 
 
 def _draw_picture(path, res, sky, quantity, observed, limits):
-    from .plot import plot_map, plot_panels
+    from .analysis.spectra import middle_frequency_index
+    from .plot import plot_map, plot_panels, plot_tau_unity
     obj = sky if observed else res
     kw = {}
     if limits is not None:
@@ -92,9 +97,12 @@ def _draw_picture(path, res, sky, quantity, observed, limits):
         nu = res.frequencies
         fig = plot_map(obj, quantity=quantity, frequency=(nu[0], nu[-1]), path=path, **kw)
     elif quantity == "tau":
-        # optical depth spans decades between frequencies: one log scale per panel shows each of them
-        # (a series still shares limits, which then apply to every panel)
-        fig = plot_panels(obj, quantity=quantity, path=path, stretch="log", shared_scale=limits is not None, **kw)
+        # one map at the frequency nearest the geometric middle: the others only rescale it
+        # (tau ~ nu^-2.1); where each line of sight turns thin is the tau = 1 frequency picture
+        fig = plot_map(obj, quantity=quantity, frequency=middle_frequency_index(obj), path=path, stretch="log",
+                       **kw)
+    elif quantity == "tau_unity_frequency":
+        fig = plot_tau_unity(obj, path=path, **kw)
     else:
         fig = plot_panels(obj, quantity=quantity, path=path, **kw)
     _close(fig)
@@ -141,7 +149,7 @@ def picture_outputs(job, unit, fmt, limits):
     obs = observing_settings(job)
     plan = []
     for stem, q, observed in PICTURES:
-        if (q == "spectral_index" and len(job.frequencies) < 2) or (observed and not job.beam):
+        if (q in _MULTI_FREQUENCY and len(job.frequencies) < 2) or (observed and not job.beam):
             continue
         lim = None if limits is None else limits.get(stem)
         plan.append(Output(_stem(job, unit, f"{stem}.{fmt}"),

@@ -301,21 +301,25 @@ def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
 # --- shared colour scales ----------------------------------------------------------------------
 
 def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path, monkeypatch):
+    from rtrace.analysis import middle_frequency_index
+    QUANTITIES = ("intensity", "tau", "tau_unity_frequency", "brightness_temperature", "emission_measure",
+                  "spectral_index")
     text = SERIES.replace("[1, 2, 3]", "[1, 2]").replace("pictures = false", "pictures = true\nfits = false")
     job_path = write(tmp_path, text)
     out = tmp_path / "out"
     drawn = []
 
-    def spy(func):
+    def spy(func, quantity=None):
         def wrapper(obj, *args, **kwargs):
             fig = func(obj, *args, **kwargs)
             image = fig.axes[0].get_images()[0]
             drawn.append({"path": kwargs["path"], "obj": obj, "kw": kwargs, "norm": image.norm,
-                          "quantity": kwargs.get("quantity")})
+                          "quantity": kwargs.get("quantity", quantity)})
             return fig
         return wrapper
     monkeypatch.setattr(plot, "plot_panels", spy(plot.plot_panels))
     monkeypatch.setattr(plot, "plot_map", spy(plot.plot_map))
+    monkeypatch.setattr(plot, "plot_tau_unity", spy(plot.plot_tau_unity, "tau_unity_frequency"))
     traces = Counter(rtrace.trace)
     monkeypatch.setattr(rtrace, "trace", traces)
     with monkeypatch.context() as m:
@@ -327,10 +331,9 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
     first = recorded(out)
     again = run_job(load_job(job_path))
     assert traces.calls == 2                      # resumed from the cached results: nothing traced again
-    stems = ("intensity", "tau", "brightness_temperature", "emission_measure", "spectral_index", "observed",
-             "observed_spectral_index")
+    stems = QUANTITIES + ("observed", "observed_spectral_index")
     pictures = {str(out / f"seed{s}" / f"a_{q}.png") for s in (1, 2) for q in stems}
-    assert set(again) == pictures - first and len(drawn) == 14
+    assert set(again) == pictures - first and len(drawn) == 16
     assert not hidden_leftovers(out)              # the cache is gone once the series is complete
 
     by_q = {}
@@ -342,7 +345,8 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
         a, b = (d["norm"] for d in items)
         assert (a.vmin, a.vmax) == pytest.approx((b.vmin, b.vmax)), q
     # the shared scale spans both snapshots' images, so at least one is drawn on a wider scale than alone
-    tau_max = [float(np.max(d["obj"].tau)) for d in by_q["tau"]]
+    # the tau picture is one map, at the frequency nearest the geometric middle of the range
+    tau_max = [float(np.max(d["obj"].tau[middle_frequency_index(d["obj"])])) for d in by_q["tau"]]
     assert by_q["tau"][0]["norm"].vmax == pytest.approx(max(tau_max))
     assert min(tau_max) < 0.9 * max(tau_max)
     em_max = [float(d["obj"].emission_measure.to_value(u.pc * u.cm**-6).max()) for d in by_q["emission_measure"]]
@@ -371,19 +375,26 @@ def observed():
     return res, sky
 
 
-@pytest.mark.parametrize("stem,quantity,kind", [("intensity", "intensity", "panels"), ("tau", "tau", "panels"),
+@pytest.mark.parametrize("stem,quantity,kind", [("intensity", "intensity", "panels"), ("tau", "tau", "map"),
                                                 ("observed", "intensity", "panels"),
                                                 ("spectral_index", "spectral_index", "map"),
-                                                ("observed_spectral_index", "spectral_index", "map")])
+                                                ("observed_spectral_index", "spectral_index", "map"),
+                                                ("tau_unity_frequency", "tau_unity_frequency", "tau_unity")])
 def test_a_series_of_one_gets_the_automatic_scale(observed, stem, quantity, kind):
     """The series limits follow the automatic rules: one snapshot alone looks as it would without them."""
     res, sky = observed
     lim = colour_scales.series_limits([colour_scales.view_ranges(res, sky, 2)])[stem]
     obj = sky if stem.startswith("observed") else res
-    kw = {"frequency": (1 * u.GHz, 10 * u.GHz)} if kind == "map" else {}
-    draw = plot.plot_map if kind == "map" else plot.plot_panels
-    auto = draw(obj, quantity=quantity, **kw).axes[0].get_images()[0].norm
-    given = draw(obj, quantity=quantity, vmin=u.Quantity(lim["vmin"], lim["unit"]),
+    kw = {"quantity": quantity}
+    if quantity == "spectral_index":
+        kw["frequency"] = (1 * u.GHz, 10 * u.GHz)
+    elif quantity == "tau":
+        kw.update(frequency=0, stretch="log")      # the middle of two frequencies: the lower one
+    elif quantity == "tau_unity_frequency":
+        kw = {}
+    draw = {"map": plot.plot_map, "panels": plot.plot_panels, "tau_unity": plot.plot_tau_unity}[kind]
+    auto = draw(obj, **kw).axes[0].get_images()[0].norm
+    given = draw(obj, vmin=u.Quantity(lim["vmin"], lim["unit"]),
                  vmax=u.Quantity(lim["vmax"], lim["unit"]), **kw).axes[0].get_images()[0].norm
     assert type(given) is type(auto)
     assert (given.vmin, given.vmax) == pytest.approx((auto.vmin, auto.vmax), rel=1e-12)

@@ -212,10 +212,20 @@ def test_stretches(tiny, stretch, norm_class):
 def test_spectral_index_map_is_diverging_around_the_thin_value(tiny):
     fig = plot.plot_map(tiny, "spectral_index", (1 * u.GHz, 3 * u.GHz))
     image = the_image(fig.axes[0])
-    # thin free-free alpha = -0.1 sits at the centre of the colour map (Condon & Ransom 2016, from memory)
-    assert isinstance(image.norm, colors.TwoSlopeNorm) and image.norm.vcenter == -0.1
-    assert image.norm.vmin < -0.1 and image.norm.vmax >= 2.0       # covers thin to thick (+2)
+    # thin free-free alpha = -0.1 sits at the centre of the colour map (Condon & Ransom 2016, from memory),
+    # with equal halves on either side
+    norm = image.norm
+    assert type(norm) is colors.Normalize
+    assert norm.vmin + norm.vmax == pytest.approx(2 * -0.1, abs=1e-12)
+    # it reaches the farther of the 1st and 99th percentiles of the drawn values
+    values = image.get_array().compressed()
+    half = max(-0.1 - np.percentile(values, 1), np.percentile(values, 99) + 0.1)
+    assert norm.vmax == pytest.approx(-0.1 + half, rel=1e-12)
     assert image.get_cmap().name.startswith("RdBu")
+    # a plain colour-bar label; what is blanked is said on the map in words
+    assert fig.axes[1].get_ylabel() == r"spectral index $\alpha$"
+    note = by_gid(fig.axes[0].texts, "note")
+    assert "peak" in note.get_text() and "rms" not in note.get_text()
 
 
 def test_contours(tiny):
@@ -264,7 +274,7 @@ def image_axes(fig):
 
 
 def test_panels_shared_and_separate_scales(tiny):
-    fig = plot.plot_panels(tiny)
+    fig = plot.plot_panels(tiny, shared_scale=True)
     axes = image_axes(fig)
     assert len(axes) == 5
     norms = {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in axes}
@@ -350,3 +360,189 @@ def test_shared_scale_uses_one_unit_across_panels():
     jy = [p.values * u.Quantity(p.unit).to_value(u.Jy / u.pix) for p in planes]
     flux = res.flux_density().to_value(u.Jy)
     assert np.allclose([j.sum() for j in jy], flux, rtol=1e-6)
+
+
+# --- pictures a new user reads ------------------------------------------------------------------
+
+def rendered(fig):
+    """Lay the figure out and draw it as savefig to PNG does (Agg), so that text extents are final."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    return canvas.get_renderer()
+
+
+def inside(inner, outer, tol=0.5):
+    return (inner.x0 >= outer.x0 - tol and inner.x1 <= outer.x1 + tol and inner.y0 >= outer.y0 - tol
+            and inner.y1 <= outer.y1 + tol)
+
+
+@pytest.fixture(scope="module")
+def strip():
+    """A wide, short view (24 x 160 pixels): the vertical axis label is longer than the map is tall."""
+    return rtrace.trace(demo.scenario(16), rtrace.View(npix=(24, 160), distance=DISTANCE), [1, 3] * u.GHz)
+
+
+@pytest.mark.parametrize("quantity", ["emission_measure", "intensity", "spectral_index"])
+def test_axis_labels_lie_inside_the_saved_figure(tiny, strip, quantity):
+    frequency = (1 * u.GHz, 3 * u.GHz) if quantity == "spectral_index" else None
+    for res in (tiny, strip):
+        fig = plot.plot_map(res, quantity, frequency)
+        renderer = rendered(fig)
+        ax = fig.axes[0]
+        for text in (ax.xaxis.label, ax.yaxis.label, ax.title, fig.axes[1].yaxis.label):
+            assert text.get_text()
+            assert inside(text.get_window_extent(renderer), fig.bbox), text.get_text()
+    # the strip's figure is shorter than a square map's, not padded with empty space
+    square = plot.plot_map(tiny, "emission_measure").get_size_inches()[1]
+    assert plot.plot_map(strip, "emission_measure").get_size_inches()[1] < 0.7 * square
+
+
+def test_titles_name_the_snapshot_and_the_ionization_model(tiny):
+    source = tiny.provenance["source"]
+    model = tiny.provenance["ionization"].split("(")[0]
+    for fig in (plot.plot_map(tiny, "emission_measure"), plot.plot_panels(tiny, "tau", [0, 1]),
+                plot.plot_tau_unity(tiny)):
+        heading = fig.get_suptitle()
+        assert source in heading and f"ionization: {model}" in heading
+    # a title given by the caller is used as it is
+    assert plot.plot_map(tiny, "emission_measure", title="EM").get_suptitle() == ""
+
+
+def test_frequency_labels_use_as_few_figures_as_tell_them_apart():
+    nu = np.geomspace(0.5, 50, 8) * u.GHz          # 0.5 * 100^(k/7) GHz: 0.9653, 1.8639, 3.5988, ...
+    assert plot.frequency_labels(nu) == ["500 MHz", "965 MHz", "1.86 GHz", "3.6 GHz", "6.95 GHz", "13.4 GHz",
+                                         "25.9 GHz", "50 GHz"]
+    assert plot.frequency_labels([1.931] * u.GHz) == ["1.93 GHz"]
+    assert plot.frequency_labels([1.0, 1.001] * u.GHz) == ["1 GHz", "1.001 GHz"]     # kept distinct
+    # every label reads back within 0.25 % of its frequency
+    for f, text in zip(nu.to_value(u.GHz), plot.frequency_labels(nu)):
+        value = float(text.split()[0]) * (1e-3 if text.endswith("MHz") else 1.0)
+        assert abs(value / f - 1) <= 0.0025
+
+
+def test_eight_panels_fill_their_grid_without_stray_axes_or_labels():
+    res = rtrace.trace(demo.scenario(16), rtrace.View(npix=16, distance=DISTANCE), np.geomspace(0.5, 50, 8) * u.GHz)
+    for n, shape in ((8, (2, 4)), (7, (2, 4)), (4, (2, 2)), (6, (2, 3))):
+        fig = plot.plot_panels(res, "intensity", list(range(n)), shared_scale=True)
+        maps = image_axes(fig)
+        assert len(maps) == n
+        assert len(fig.axes) == n + 1                   # the maps and one colour bar: no empty axes
+        rows = {round(ax.get_position().y0, 3) for ax in maps}
+        cols = {round(ax.get_position().x0, 3) for ax in maps}
+        assert (len(rows), len(cols)) == shape
+        # one x and one y label for the grid, none on the panels
+        assert all(ax.get_xlabel() == "" and ax.get_ylabel() == "" for ax in maps)
+        assert "east offset" in fig._supxlabel.get_text() and "north offset" in fig._supylabel.get_text()
+        renderer = rendered(fig)
+        # tick labels on the bottom panel of each column only
+        bottom = {}
+        for ax in maps:
+            x0 = round(ax.get_position().x0, 3)
+            bottom[x0] = min(bottom.get(x0, 2.0), ax.get_position().y0)
+        for ax in maps:
+            shown = [t for t in ax.get_xticklabels() if t.get_visible() and t.get_text()]
+            assert bool(shown) == (ax.get_position().y0 == bottom[round(ax.get_position().x0, 3)])
+        assert inside(fig._supylabel.get_window_extent(renderer), fig.bbox)
+
+
+def test_panels_differing_by_more_than_a_decade_get_their_own_scales(tiny):
+    fig = plot.plot_panels(tiny, "brightness_temperature")
+    maps = image_axes(fig)
+    peaks = [np.nanmax(the_image(ax).get_array()) for ax in maps]
+    assert max(peaks) > 10 * min(peaks)               # the thick-to-thin demo spans decades in T_b
+    norms = [the_image(ax).norm for ax in maps]
+    assert [n.vmax for n in norms] == pytest.approx(peaks)
+    assert len(fig.axes) == 2 * len(maps)             # a colour bar each
+    # limits given (a series' shared scale) still give one scale
+    fig = plot.plot_panels(tiny, "brightness_temperature", vmin=0, vmax=3000)
+    assert {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in image_axes(fig)} == {(0.0, 3000.0)}
+    # panels within a decade of each other share one scale
+    fig = plot.plot_panels(tiny, "brightness_temperature", [3, 4])
+    assert len({the_image(ax).norm.vmax for ax in image_axes(fig)}) == 1
+
+
+def test_a_beam_larger_than_the_field_is_not_drawn_and_a_warning_says_so(tiny):
+    sky = standin_skymap(tiny)
+    field = NX * tiny.pixel_scale
+    sky.beams = [Beam(major=1.2 * field, minor=0.8 * field, pa=0 * u.deg) for _ in sky.beams]
+    sky.beam = sky.beams[0]
+    with pytest.warns(UserWarning, match="beam .* larger than"):
+        ax = plot.plot_map(sky).axes[0]
+    assert not [p for p in ax.patches if p.get_gid() == "beam"]
+    by_gid(plot.plot_map(standin_skymap(tiny)).axes[0].patches, "beam")       # a normal beam still is
+
+
+def test_spectral_index_limits_are_honoured(tiny):
+    sky = standin_skymap(tiny)
+    fig = plot.plot_map(sky, "spectral_index", (10 * u.GHz, 30 * u.GHz), vmin=-0.2, vmax=0.0)
+    assert fig.axes[1].get_ylim() == pytest.approx((-0.2, 0.0))       # the colour bar
+    assert (the_image(fig.axes[0]).norm.vmin, the_image(fig.axes[0]).norm.vmax) == (-0.2, 0.0)
+    fig = plot.plot_panels(sky, "spectral_index", [1, 3, 10] * u.GHz, vmin=-0.3, vmax=0.1)
+    assert {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in image_axes(fig)} == {(-0.3, 0.1)}
+    # one end given: the other mirrored about the thin value, -0.1
+    norm = the_image(plot.plot_map(sky, "spectral_index", (1, 3), vmin=-0.5).axes[0]).norm
+    assert (norm.vmin, norm.vmax) == pytest.approx((-0.5, 0.3))
+    # thin gas (-0.08 to -0.15) spreads over the colours instead of all sitting at the white centre
+    norm = the_image(plot.plot_map(tiny, "spectral_index", (10 * u.GHz, 30 * u.GHz)).axes[0]).norm
+    assert norm.vmax - norm.vmin < 0.5
+
+
+def test_spectral_index_picture_says_the_planes_were_smoothed_to_one_beam(tiny):
+    sky = standin_skymap(tiny)
+    sky.beams = [Beam(major=(24 / f) * u.arcsec, minor=(12 / f) * u.arcsec, pa=45 * u.deg)
+                 for f in (0.3, 1, 3, 10, 30)]
+    sky.beam = sky.beams[0]
+    ax = plot.plot_map(sky, "spectral_index", (1 * u.GHz, 3 * u.GHz)).axes[0]
+    assert "beams matched: 24\N{DOUBLE PRIME}\N{MULTIPLICATION SIGN}12\N{DOUBLE PRIME}" in ax.get_title()
+    assert by_gid(ax.patches, "beam").get_height() == pytest.approx(24.0)     # the 1 GHz beam, in arcsec
+
+
+def test_short_log_axes_have_tick_labels_and_index_labels_stay_off_them():
+    # a spectrum spanning less than a decade in both axes: 18 to 12 Jy between 10 and 40 GHz
+    nu = [10, 15, 25, 40] * u.GHz
+    flux = [18.0, 16.5, 14.0, 12.0] * u.Jy
+    fig = plot.plot_sed(nu, flux)
+    renderer = rendered(fig)
+    ax = fig.axes[0]
+    lo, hi = ax.get_ylim()
+    assert hi / lo < 10
+    shown = [t for t in ax.yaxis.get_ticklabels(which="both") if t.get_visible() and t.get_text()
+             and lo <= t.get_position()[1] <= hi]
+    assert len(shown) >= 2
+    frame = ax.get_window_extent(renderer)
+    tick_boxes = [t.get_window_extent(renderer) for t in ax.get_xticklabels() + ax.get_yticklabels()
+                  if t.get_visible() and t.get_text()]
+    labels = [t for t in ax.texts if t.get_gid() == "spectral_index"]
+    assert len(labels) == 3
+    for text in labels:
+        box = text.get_window_extent(renderer)
+        assert inside(box, frame), text.get_text()
+        assert not any(box.overlaps(b) for b in tick_boxes)
+
+
+def test_tau_unity_picture_names_the_pixels_outside_the_traced_range(tiny):
+    from rtrace.analysis import tau_unity_frequency
+    fig = plot.plot_tau_unity(tiny)
+    image = the_image(fig.axes[0])
+    ghz = tau_unity_frequency(tiny)[0].to_value(u.GHz)
+    tau = np.asarray(tiny.tau)
+    # the scale is the traced range, logarithmic
+    assert isinstance(image.norm, colors.LogNorm) and (image.norm.vmin, image.norm.vmax) == pytest.approx((0.3, 30))
+    values = image.get_array()
+    found = np.isfinite(ghz)
+    assert found.any()
+    assert np.allclose(values[found], ghz[found])
+    no_gas = np.all(tau == 0, axis=0)
+    below = ~found & ~no_gas & (tau[-1] < 1)
+    # not left blank: below the range drawn in the colour under the scale, named in the legend
+    assert below.any() and np.all(values[below] < image.norm.vmin)
+    assert np.all(values.mask[no_gas])
+    legend = by_gid(fig.legends, "categories")
+    words = [t.get_text() for t in legend.get_texts()]
+    assert any(w.startswith("below the traced range") for w in words) and "no absorbing gas" in words
+    # a slab thick at every traced frequency is "above the traced range"
+    thick = plot.plot_tau_unity(tiny, vmin=0.3 * u.GHz, vmax=3e4 * u.MHz)
+    assert the_image(thick.axes[0]).norm.vmax == pytest.approx(30)
+    with pytest.raises(InputError, match="vmax"):
+        plot.plot_tau_unity(tiny, vmin=3, vmax=1)

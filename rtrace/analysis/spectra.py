@@ -2,7 +2,10 @@
 
 Works on a :class:`~rtrace.Result` (the sky-plane model) and on a SkyMap (an
 image in Jy/beam with a beam, optionally with noise); the two are told apart
-by their attributes, so this module does not import the observing code.
+by their attributes, so any image with ``data``, ``model``, ``beams`` and
+``pixel_scale`` works. Of the observing code only the beam kernel
+(:class:`rtrace.observe.beam.BeamKernel`) is used, to bring two planes to one
+beam before a spectral index.
 
 Conventions
 -----------
@@ -27,8 +30,9 @@ from ..errors import InputError
 from ..transfer.background import check_convention, describe
 
 __all__ = ["sed", "sed_metadata", "describe_background", "write_sed_csv", "spectral_index", "spectral_index_map",
-           "tau_unity_frequency", "frequency_index", "pixel_flux", "aperture_mask",
-           "FREQUENCY_TOLERANCE", "THIN_SPECTRAL_INDEX", "SED_COLUMNS"]
+           "SpectralIndexMap", "tau_unity_frequency", "middle_frequency_index", "frequency_index", "pixel_flux",
+           "aperture_mask", "FREQUENCY_TOLERANCE", "THIN_SPECTRAL_INDEX", "SED_COLUMNS",
+           "DEFAULT_PEAK_FRACTION", "DEFAULT_SNR_THRESHOLD"]
 
 # Columns of the SED CSV file, in order
 SED_COLUMNS = ("frequency_GHz", "flux_density_Jy", "spectral_index")
@@ -398,20 +402,138 @@ def frequency_index(obj, frequency, name="frequency"):
     return index
 
 
-def _intensity_plane(obj, index):
-    """A plane proportional to specific intensity (units cancel in ratios)."""
-    if _is_skymap(obj):
-        # Jy/beam / beam area: planes with different beams become comparable
-        return _jy_per_beam(obj.data[index], "obj.data") / _beam_solid_angle_sr(obj, index)
-    return pixel_flux(obj).value[index]
+def middle_frequency_index(obj):
+    """Index of the plane nearest the geometric middle of the traced frequency range.
+
+    Parameters
+    ----------
+    obj : `~rtrace.Result` or SkyMap, or `~astropy.units.Quantity`
+        The image (or its frequencies).
+
+    Returns
+    -------
+    int
+        The plane whose ``ln nu`` is closest to ``(ln nu_min + ln nu_max) / 2``
+        (the lower one on a tie).
+    """
+    nu = u.Quantity(obj).to_value(u.Hz, equivalencies=u.spectral()) if isinstance(obj, u.Quantity) \
+        else _frequencies_hz(obj)
+    log_nu = np.log(np.atleast_1d(nu))
+    middle = 0.5 * (log_nu.min() + log_nu.max())
+    distance = np.abs(log_nu - middle)
+    candidates = np.flatnonzero(np.isclose(distance, distance.min(), rtol=1e-12, atol=1e-12))
+    return int(min(candidates, key=lambda k: nu[k]))
 
 
-def spectral_index_map(obj, nu1, nu2, snr_threshold=None):
-    """Per-pixel spectral index between two image planes.
+class SpectralIndexMap(np.ndarray):
+    """A per-pixel spectral index (an ``ndarray``) that says how it was made.
+
+    Attributes
+    ----------
+    beam : `radio_beam.Beam` or None
+        The resolution both planes had when they were divided (for a SkyMap
+        whose two beams differ, the beam both were smoothed to); None for a
+        Result (pixel resolution).
+    smoothed : bool
+        True if at least one plane was convolved to ``beam`` first.
+    masking : str
+        Plain words for the rule that blanked pixels (NaN).
+    frequencies : `~astropy.units.Quantity` (2,)
+        The two frequencies (Hz).
+    """
+
+    def __array_finalize__(self, obj):
+        self.beam = getattr(obj, "beam", None)
+        self.smoothed = getattr(obj, "smoothed", False)
+        self.masking = getattr(obj, "masking", "")
+        self.frequencies = getattr(obj, "frequencies", None)
+
+    def __array_wrap__(self, array, context=None, return_scalar=False):
+        # arithmetic on the map (np.isnan(amap), amap - 0.1) gives plain arrays: the
+        # attributes describe this index, not what is computed from it
+        result = np.asarray(array).view(np.ndarray)
+        return result[()] if return_scalar else result
+
+
+def _same_beam(a, b):
+    # equal to 1e-6 in both axes and the position angle (a round beam's angle is immaterial)
+    ma, mb = a.major.to_value(u.arcsec), b.major.to_value(u.arcsec)
+    na, nb = a.minor.to_value(u.arcsec), b.minor.to_value(u.arcsec)
+    if not (math.isclose(ma, mb, rel_tol=1e-6) and math.isclose(na, nb, rel_tol=1e-6)):
+        return False
+    if math.isclose(ma, na, rel_tol=1e-6):
+        return True
+    dpa = (a.pa.to_value(u.deg) - b.pa.to_value(u.deg)) % 180.0
+    return min(dpa, 180.0 - dpa) < 1e-6
+
+
+def _common_beam(b1, b2):
+    """The smallest beam that both beams can be convolved to (one of them when it contains the other)."""
+    import radio_beam
+    from radio_beam.utils import BeamError
+
+    if _same_beam(b1, b2):
+        return b1
+    big, small = (b1, b2) if b1.sr >= b2.sr else (b2, b1)
+    try:
+        big.deconvolve(small)        # succeeds when ``big`` contains ``small``: no need to go larger
+        return big
+    except BeamError:
+        return radio_beam.Beams(beams=[b1, b2]).common_beam()
+
+
+def _to_beam(obj, planes, index, target):
+    """Planes of image ``index`` (Jy/beam in its own beam) convolved to ``target``, in Jy per ``target`` beam.
+
+    Jy/beam_i divided by the beam area in pixels is Jy/pixel; a unit-sum kernel
+    keeps it Jy/pixel; times the target beam area in pixels it is Jy/target
+    beam. The kernel is the Gaussian ``target`` deconvolved by beam_i, since
+    Gaussians convolve by adding their covariance matrices (common practice,
+    e.g. Condon & Ransom 2016, from memory).
+
+    Returns the convolved planes and the factor by which the rms of the map's
+    beam-correlated noise changes: ``(A_t / A_i) sqrt(sum G_t^2 / sum G_i^2)``
+    with ``A`` the beam areas and ``G`` the unit-sum beams on the pixel grid
+    (white noise convolved with ``G_i`` then with the kernel is white noise
+    convolved with ``G_t``).
+    """
+    from ..observe.beam import BeamKernel
+
+    own = _beam_at(obj, index)
+    if _same_beam(own, target):
+        return list(planes), 1.0
+    shape = planes[0].shape
+    kernel_beam = target.deconvolve(own, failure_returns_pointlike=True)
+    kernel = BeamKernel(kernel_beam, obj.pixel_scale, shape)
+    area_ratio = u.Quantity(target.sr).to_value(u.sr) / _beam_solid_angle_sr(obj, index)
+    out = [kernel.convolve(p) * area_ratio for p in planes]
+    g_own, g_target = BeamKernel(own, obj.pixel_scale, shape), BeamKernel(target, obj.pixel_scale, shape)
+    return out, area_ratio * math.sqrt(g_target.sum_squares / g_own.sum_squares)
+
+
+# Without noise, pixels fainter than this fraction of the plane's peak (at either frequency)
+# are blanked: FFT round-off (~1e-16 of the peak) and the far wings of the beam would
+# otherwise give meaningless indices. 1e-3 keeps three decades of real emission.
+DEFAULT_PEAK_FRACTION = 1.0e-3
+
+# With noise, pixels whose noiseless model is below this many rms in either plane are
+# blanked: below ~3 sigma the index is dominated by noise (common practice).
+DEFAULT_SNR_THRESHOLD = 3.0
+
+
+def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAULT_PEAK_FRACTION,
+                       match_beams=True):
+    """Per-pixel spectral index between two image planes, at one resolution.
 
     ``alpha = ln(I2 / I1) / ln(nu2 / nu1)`` with ``I`` the background-subtracted
-    intensity of a Result, or for a SkyMap its observed data divided by each
-    plane's beam area (so maps with different beams still compare intensities).
+    intensity of a Result, or for a SkyMap its observed data divided by the
+    beam area. When the two planes of a SkyMap have different beams (e.g.
+    ``beam_scaling="inverse-frequency"`` or the per-frequency beams of a
+    synthesized map), each plane is first convolved to the smallest beam
+    containing both (the larger beam when it contains the other), so that
+    both intensities describe the same patch of sky; without this the index
+    compares a sharp map with a blurred one and is wrong wherever the
+    brightness varies on the scale of the beams.
 
     Parameters
     ----------
@@ -419,40 +541,110 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None):
     nu1, nu2 : `~astropy.units.Quantity` or int
         The two planes, by frequency (within 1 % of a traced one) or index.
     snr_threshold : float, optional
-        SkyMap with noise only: NaN where either plane's noiseless ``model``
-        divided by its ``noise_rms`` is below this.
+        SkyMap with noise: NaN where either plane's noiseless ``model`` is
+        below this many times its ``noise_rms``, both taken at the resolution
+        of the index (when a plane is smoothed to the common beam, its model
+        is smoothed too and its rms scaled as beam-correlated noise scales:
+        by ``(A_c / A_i) sqrt(sum G_c^2 / sum G_i^2)``, about
+        ``sqrt(A_c / A_i)`` in Jy per common beam).
+        Default :data:`DEFAULT_SNR_THRESHOLD` (3) for a noisy SkyMap. Giving
+        it for an image without noise is an error.
+    peak_fraction : float, optional
+        Images without noise (a Result, a noiseless SkyMap, a plane with zero
+        rms): NaN where either plane is below this fraction of its own peak
+        (after smoothing). Default :data:`DEFAULT_PEAK_FRACTION` (1e-3); 0
+        keeps every positive pixel. Faint gas more than this far below the
+        peak is blanked: lower it to see it.
+    match_beams : bool, optional
+        Convolve both planes to a common beam first (default). False divides
+        the planes as they are (only meaningful if their beams are equal).
 
     Returns
     -------
-    ndarray (ny, nx)
-        NaN where either intensity is <= 0 or the SNR cut removes the pixel.
+    `SpectralIndexMap` (ny, nx)
+        An ndarray, NaN where either intensity is <= 0 or a cut removes the
+        pixel; its ``beam``, ``smoothed`` and ``masking`` attributes say at
+        which resolution the index holds and what was blanked.
     """
     _check_image(obj)
     i1 = frequency_index(obj, nu1, "nu1")
     i2 = frequency_index(obj, nu2, "nu2")
     if i1 == i2:
         raise InputError(f"nu2: selects the same plane as nu1 (index {i1}); the index needs two frequencies")
+    fraction = float(peak_fraction) if isinstance(peak_fraction, (int, float, np.floating, np.integer)) and \
+        not isinstance(peak_fraction, bool) else None
+    if fraction is None or not (np.isfinite(fraction) and 0.0 <= fraction < 1.0):
+        raise InputError(f"peak_fraction: expected a number in [0, 1), got {peak_fraction!r}")
     nu = _frequencies_hz(obj)
-    a, b = _intensity_plane(obj, i1), _intensity_plane(obj, i2)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        alpha = np.log(b / a) / math.log(nu[i2] / nu[i1])
-    alpha[~((a > 0) & (b > 0))] = np.nan
+    skymap = _is_skymap(obj)
+    noise = getattr(obj, "noise_rms", None) if skymap else None
+    rms = None
+    if noise is not None:
+        rms = np.broadcast_to(_jy_per_beam(noise, "obj.noise_rms"), (len(nu),))
+    threshold = None
     if snr_threshold is not None:
         threshold = float(snr_threshold)
         if not np.isfinite(threshold):
             raise InputError(f"snr_threshold: must be a finite number, got {snr_threshold!r}")
-        noise = getattr(obj, "noise_rms", None) if _is_skymap(obj) else None
-        if noise is None:
+        if rms is None:
             raise InputError("snr_threshold: needs a SkyMap with noise (noise_rms is not set)")
-        noise = np.broadcast_to(_jy_per_beam(noise, "obj.noise_rms"), (len(nu),))
-        model = _jy_per_beam(obj.model, "obj.model")
+    elif rms is not None:
+        threshold = DEFAULT_SNR_THRESHOLD
+
+    beam, smoothed = None, False
+    models = {}
+    noise_at = {i1: None if rms is None else rms[i1], i2: None if rms is None else rms[i2]}
+    if skymap:
+        a = _jy_per_beam(obj.data[i1], "obj.data")
+        b = _jy_per_beam(obj.data[i2], "obj.data")
+        if threshold is not None:
+            models = {i: _jy_per_beam(obj.model[i], "obj.model") for i in (i1, i2)}
         if getattr(obj, "background", "subtracted") == "included":
-            # signal to noise of the source, not of the uniform background level
-            model = model - _jy_per_beam(obj.background_per_beam, "obj.background_per_beam")[:, None, None]
-        for i in (i1, i2):
-            # written as a product so a zero rms (a noiseless plane) needs no division
-            alpha[model[i] < threshold * noise[i]] = np.nan
-    return alpha
+            # the index and the S/N of the source, not of the uniform background level
+            level = _jy_per_beam(obj.background_per_beam, "obj.background_per_beam")
+            a, b = a - level[i1], b - level[i2]
+            models = {i: m - level[i] for i, m in models.items()}
+        beam = _beam_at(obj, i1)
+        if match_beams and not _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
+            beam = _common_beam(_beam_at(obj, i1), _beam_at(obj, i2))
+            smoothed = True
+            for i in (i1, i2):
+                planes = [a if i == i1 else b] + ([models[i]] if models else [])
+                planes, factor = _to_beam(obj, planes, i, beam)
+                if i == i1:
+                    a = planes[0]
+                else:
+                    b = planes[0]
+                if models:
+                    # the S/N is judged at the resolution the index is made at
+                    models[i], noise_at[i] = planes[1], noise_at[i] * factor
+        elif not _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
+            beam = None         # two resolutions: the index holds at neither
+            a = a / _beam_solid_angle_sr(obj, i1)
+            b = b / _beam_solid_angle_sr(obj, i2)
+    else:
+        a, b = pixel_flux(obj).value[i1], pixel_flux(obj).value[i2]
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        alpha = np.log(b / a) / math.log(nu[i2] / nu[i1])
+    alpha[~((a > 0) & (b > 0))] = np.nan
+    rules = []
+    for i, plane in ((i1, a), (i2, b)):
+        if threshold is not None and rms[i] > 0:
+            # written as a product so that no division by the rms is needed
+            alpha[models[i] < threshold * noise_at[i]] = np.nan
+            rule = f"model below {threshold:g} \N{MULTIPLICATION SIGN} noise rms"
+        else:
+            finite = plane[np.isfinite(plane)]
+            peak = float(finite.max()) if finite.size else 0.0
+            alpha[plane < fraction * peak] = np.nan
+            rule = f"below {fraction:g} of the peak"
+        if rule not in rules:
+            rules.append(rule)
+    out = alpha.view(SpectralIndexMap)
+    out.beam, out.smoothed, out.frequencies = beam, smoothed, np.array([nu[i1], nu[i2]]) * u.Hz
+    out.masking = "blank where " + " or ".join(rules) + " at either frequency"
+    return out
 
 
 def _unity_crossing(log_nu, tau):
