@@ -148,8 +148,8 @@ def _subject(obj):
     if provenance.get("source"):
         parts.append(str(provenance["source"]))
     if provenance.get("ionization"):
-        # the model's name and its first arguments; the whole description is in the FITS header
-        text = str(provenance["ionization"])
+        # the model's name; its whole description (arguments, arrays) is in the FITS header
+        text = str(provenance["ionization"]).split("(")[0].strip()
         parts.append("ionization: " + (text if len(text) <= 40 else text[:39] + "\N{HORIZONTAL ELLIPSIS}"))
     return " \N{MIDDLE DOT} ".join(parts)
 
@@ -370,11 +370,12 @@ def _plane(obj, quantity, frequency):
 
 
 def _background_note(obj):
-    """``', background subtracted'`` (or included) when a background was traced; '' otherwise."""
+    """A second label line ``background subtracted`` (or included) when a background was traced; '' otherwise."""
     from .transfer.background import background_of
     if background_of(obj).kind == "none":
         return ""
-    return f", background {getattr(obj, 'background', 'subtracted') if _is_skymap(obj) else 'subtracted'}"
+    # on a line of its own: colour-bar labels of stacked panels must stay shorter than a panel
+    return f"\nbackground {getattr(obj, 'background', 'subtracted') if _is_skymap(obj) else 'subtracted'}"
 
 
 def _limit(value, plane, name):
@@ -834,11 +835,11 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
     _check_quantity(quantity)
     _check_stretch(stretch)
     planes = [_plane(obj, quantity, f) for f in _panel_selection(obj, quantity, frequencies)]
-    # per plane: without a shared scale, intensity panels may each have their own SI prefix
     limits = [(_limit(vmin, p, "vmin"), _limit(vmax, p, "vmax")) for p in planes]
     if shared_scale is None:
         shared_scale = vmin is not None or vmax is not None or not _panels_differ(planes)
-    if quantity == "intensity" and shared_scale:
+    if quantity == "intensity":
+        # one unit for every panel, also with a scale each: a row's colour bars share one label
         planes = _common_prefix(planes)
         limits = [(_limit(vmin, p, "vmin"), _limit(vmax, p, "vmax")) for p in planes]
     n = len(planes)
@@ -911,7 +912,7 @@ def _panels_differ(planes):
 
 
 def _common_prefix(planes):
-    """Re-express intensity planes in one SI prefix (that of the brightest), for a shared scale."""
+    """Re-express intensity planes in one SI prefix (that of the brightest): one unit for every panel."""
     per_txt = "beam" if planes[0].per == u.beam else "pixel"
     base = u.Jy / planes[0].per
     to_base = [u.Quantity(p.unit).to_value(base) for p in planes]   # unit holds e.g. 1e-3 Jy/beam
@@ -922,7 +923,8 @@ def _common_prefix(planes):
     for p, f in zip(planes, to_base):
         scale = f / factor
         out.append(dataclasses.replace(
-            p, values=p.values * scale, unit=factor * base, label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$)",
+            p, values=p.values * scale, unit=factor * base,
+            label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$)" + p.label.partition(")")[2],   # keeps the note
             noise=None if p.noise is None else p.noise * scale))
     return out
 
