@@ -164,7 +164,10 @@ def _trace_job_view(path, view_name, frequencies=None):
     if name not in views:
         raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
     nu = job.frequencies if frequencies is None else frequencies
-    return job, name, trace(build_snapshot(job), views[name], nu, background=job.trace.get("background"))
+    from .compiling import watch_compilation
+    with watch_compilation(lambda message: print(f"rtrace: {message}", file=sys.stderr, flush=True)):
+        res = trace(build_snapshot(job), views[name], nu, background=job.trace.get("background"))
+    return job, name, res
 
 
 def cmd_sed(args):

@@ -30,6 +30,7 @@ ignored, never unpickled, and the view is traced again.
 
 from .batch import CACHE_NAME, Cache, Snapshots, make, plan_units, split
 from .colour_scales import series_limits, view_ranges
+from .compiling import watch_compilation
 from .engine import Engine, trace_keywords
 from .io.manifest import Manifest
 from .job import build_views
@@ -54,6 +55,11 @@ class Outputs(list):
         self.skipped = list(skipped)
 
 
+def _compiling(say, step, total):
+    """Say "compiling kernels (first run only)" and the time taken, if numba compiles in the block."""
+    return watch_compilation(lambda message: say(step, total, message))
+
+
 def run(job, progress=None, restart=False):
     """Execute ``job``; returns the paths written, in order.
 
@@ -62,7 +68,8 @@ def run(job, progress=None, restart=False):
     job : `~rtrace.job.Job`
     progress : callable, optional
         ``progress(step, total, message)``, called as work proceeds;
-        messages say which outputs were up to date and skipped.
+        messages say which outputs were up to date and skipped, and when
+        numba compiles kernels (a first run; see :mod:`rtrace.compiling`).
     restart : bool, optional
         Ignore the manifest of the output folder: make every output again
         (and start a new manifest).
@@ -111,12 +118,15 @@ def run(job, progress=None, restart=False):
                                  f"to date, skipped")
             if not todo and not need_ranges:
                 continue
-            snap = snapshots.get(unit.member, step, total)
+            with _compiling(say, step, total):
+                snap = snapshots.get(unit.member, step, total)
             say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies")
-            res, sky = engine.trace(snap, unit.view, unit.member["label"], unit.name)
+            with _compiling(say, step, total):
+                res, sky = engine.trace(snap, unit.view, unit.member["label"], unit.name)
             if todo:
                 say(step, total, f"{unit.where}: writing {len(todo)} outputs")
-            make(todo, res, sky, manifest, written)
+            with _compiling(say, step, total):
+                make(todo, res, sky, manifest, written)
             if later:
                 manifest.set_ranges(unit.label, unit.data_key, view_ranges(res, sky, len(job.frequencies)))
                 cache.put(unit, (res, sky))
@@ -135,12 +145,15 @@ def run(job, progress=None, restart=False):
                     continue
                 cached = cache.get(unit)
                 if cached is None:
-                    snap = snapshots.get(unit.member, step, total)
+                    with _compiling(say, step, total):
+                        snap = snapshots.get(unit.member, step, total)
                     say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies again "
                                      f"for its pictures")
-                    cached = engine.trace(snap, unit.view, unit.member["label"], unit.name)
+                    with _compiling(say, step, total):
+                        cached = engine.trace(snap, unit.view, unit.member["label"], unit.name)
                 say(step, total, f"{unit.where}: drawing {len(todo)} pictures on the series' colour scales")
-                make(todo, *cached, manifest, written)
+                with _compiling(say, step, total):
+                    make(todo, *cached, manifest, written)
                 del cached
     if cache is not None:
         cache.clear()

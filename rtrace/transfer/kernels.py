@@ -29,8 +29,8 @@ from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 
-__all__ = ["trace_along_last_axis", "trace_along_middle_axis", "layer_segments", "trace_sheared",
-           "emitting_blocks", "BLOCK_SHIFT"]
+__all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
+           "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
 
 _ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
 BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
@@ -142,14 +142,11 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
 
     ``forward`` is True when rays travel toward increasing index. Outputs are
     ``(nfreq, A, B)`` (intensity, optical depth) and ``(A, B)`` (EM); they must
-    be zero on entry.
+    be zero on entry. For a single frequency :func:`one_frequency_along_last_axis`
+    is faster (the tracer chooses; each is compiled only when first used).
     """
     na, nb, nl = ne.shape
     nf = hk.shape[0]
-    if nf == 1:
-        _one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                                       out_i, out_tau, out_em)
-        return
     gtab_t = np.ascontiguousarray(gtab.T)
     hk_max = hk.max()
     for a in prange(na):
@@ -174,8 +171,8 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
 
 
 @numba.njit(cache=True, parallel=True)
-def _one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                                   out_i, out_tau, out_em):
+def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
+                                  out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers."""
     na, nb, nl = ne.shape
     n_t = gtab.shape[1]
@@ -231,6 +228,19 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
                 out_tau[f, a, c] = acc_t[c, f]
 
 
+@numba.njit(cache=True, inline="always")
+def _sort_few(x, n):
+    """Sort ``x[:n]`` in place by insertion: a layer has a handful of cuts, and numba compiles this in a
+    fraction of the time its general array sort takes."""
+    for i in range(1, n):
+        v = x[i]
+        j = i - 1
+        while j >= 0 and x[j] > v:
+            x[j + 1] = x[j]
+            j -= 1
+        x[j + 1] = v
+
+
 @numba.njit(cache=True)
 def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs_lc, k_lo, k_hi, forward,
                    max_seg):
@@ -276,7 +286,7 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
                         n += 1
         cuts[n] = 1.0
         n += 1
-        cuts[:n].sort()
+        _sort_few(cuts, n)
         m = 0
         for q in range(n - 1):
             t0, t1 = cuts[q], cuts[q + 1]

@@ -349,7 +349,10 @@ class _AxisRoute(_Route):
         if ne.shape != tuple(int(h - l) for l, h in zip(lo, hi)):
             raise ValueError("axis route: brick arrays do not match the brick bounds")
         if self.la == 2:
-            arrs, kern = (ne, ni, t), kernels.trace_along_last_axis
+            # the single-frequency kernel keeps its ray sums in registers; choosing here, not inside a
+            # kernel, means a run compiles only the one it uses
+            arrs, kern = (ne, ni, t), (kernels.one_frequency_along_last_axis if self.nfreq == 1
+                                       else kernels.trace_along_last_axis)
         elif self.la == 1:
             arrs, kern = (ne, ni, t), kernels.trace_along_middle_axis
         else:
