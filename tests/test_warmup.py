@@ -81,9 +81,9 @@ def test_pipeline_says_when_it_compiles(tmp_path, monkeypatch):
     add = _new_function()
     real_trace = engine_module.Engine.trace
 
-    def trace_and_compile(self, snap, view):
+    def trace_and_compile(self, snap, view, *args):
         add(0.0)
-        return real_trace(self, snap, view)
+        return real_trace(self, snap, view, *args)
     monkeypatch.setattr(engine_module.Engine, "trace", trace_and_compile)
     from rtrace.job import parse_job, run_job
     job = parse_job({"snapshot": {"kind": "demo", "cells": 16},
