@@ -53,6 +53,9 @@ COMPACT_XY = (30.0, 25.0)
 COMPACT_SIGMA = 1.5                     # arcsec
 DISK_XY = (-20.0, -10.0)
 DISK_RADIUS = 35.0                      # arcsec
+# Checks that compare image pixels with model pixels image on the model's own grid
+MODEL_GRID = dict(pixel_scale=PIX, image_size=N)
+POINT_GRID = dict(pixel_scale=PIX, image_size=64)
 
 
 # -- helpers -------------------------------------------------------------------------------------
@@ -120,7 +123,7 @@ def both_result():
 
 @pytest.fixture(scope="module")
 def maps(compact_result):
-    return {w: synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
+    return {w: synthesize(compact_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
                           hour_angle_step=STEP, weighting=w) for w in ("natural", "uniform")}
 
 
@@ -146,7 +149,7 @@ def test_east_west_tracks_in_wavelengths_through_synthesize():
     # the same formula end to end: SynthesizedMap.u, .v in wavelengths, lambda = c / nu
     b = 900.0
     res = _point_result(32, 32, 1.0)
-    sm = synthesize(res, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=LAT,
+    sm = synthesize(res, **POINT_GRID, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=LAT,
                     hour_angle_range=(-6, 6) * u.hourangle, n_hour_angles=145)
     h = sm.hour_angles.to_value(u.rad)
     d = SKY.dec.to_value(u.rad)
@@ -219,7 +222,7 @@ def test_point_source_visibilities_follow_the_shift_theorem():
     # TMS 2017, ch. 3). l toward east = toward smaller column index on rtrace images.
     row, col, s = 40, 21, 0.37
     res = _point_result(row, col, s)
-    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
+    sm = synthesize(res, **POINT_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
     pix = PIX.to_value(u.rad)
     l0 = -(col - 31.5) * pix
     m0 = (row - 31.5) * pix
@@ -230,7 +233,7 @@ def test_point_source_visibilities_follow_the_shift_theorem():
 def test_dirty_image_is_model_convolved_with_dirty_beam(compact_result):
     # The dirty image is the sky convolved with the synthesized (dirty) beam: convolution
     # theorem applied to sampled visibilities (TMS 2017, ch. 5, from memory).
-    sm = synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
+    sm = synthesize(compact_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
                     hour_angle_step=STEP, weighting="uniform")
     jy = compact_result.intensity[0].value * compact_result.pixel_solid_angle.to_value(u.sr) / 1e-23
     full = signal.fftconvolve(jy, sm.dirty_beam[0], mode="full")
@@ -246,7 +249,7 @@ def test_bessel_beam_of_a_circular_track():
     # Its shortest projected baseline is b, so theta_LAS = 0.6 lambda / b (common practice).
     b, n = 2000.0, 360
     res = _point_result(32, 32, 1.0, sky=SkyCoord(ra=0 * u.deg, dec=90 * u.deg))
-    sm = synthesize(res, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=50 * u.deg,
+    sm = synthesize(res, **POINT_GRID, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=50 * u.deg,
                     hour_angle_range=(-12, 12 - 24 / n) * u.hourangle, hour_angle_step=(24 / n) * u.hourangle)
     theta = np.arange(-64, 64) * PIX.to_value(u.rad)
     q = b / LAM_M
@@ -277,7 +280,7 @@ def test_primary_beam_attenuates_an_offset_source():
     # model before sampling
     res = _point_result(32, 50, 1.0)
     d = 25.0
-    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
+    sm = synthesize(res, **POINT_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
                     dish_diameter=d * u.m)
     theta = (50 - 31.5) * PIX.to_value(u.rad)
     fwhm = 1.13 * LAM_M / d
@@ -376,7 +379,7 @@ def test_extended_disk_is_filtered_compact_source_survives(both_result):
     # A uniform disk much larger than theta_LAS = 0.6 lambda / B_min (common practice) has almost
     # all its visibility inside the central hole of the (u, v) coverage, so the array misses
     # most of its flux; the compact source in the same image is still recovered.
-    sm = synthesize(both_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
+    sm = synthesize(both_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
                     hour_angle_step=STEP, weighting="natural")
     las = sm.largest_angular_scale[0].to_value(u.arcsec)
     assert 2 * DISK_RADIUS > 3 * las
