@@ -1,4 +1,4 @@
-"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot an SED,
+"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot a spectrum,
 compare a model with an observed image, take a cut through a view.
 
 Exit codes (for scripts): 0 success; 1 unexpected internal error; 2 bad
@@ -116,21 +116,29 @@ def cmd_demo(args):
     return EXIT_OK
 
 
+_INSPECT_FREQUENCIES = "0.3 GHz, 1 GHz, 5 GHz, 30 GHz"
+
+
 def _snapshot_from(args):
+    """``(snapshot, frequencies)``: the job's snapshot and frequencies, or the built-in scenario's."""
     if args.job is None:
         from .demo import scenario
-        return scenario(args.cells or 64)
+        nu = args.frequencies if args.frequencies is not None else _frequencies(_INSPECT_FREQUENCIES)
+        return scenario(args.cells or 64), nu
+    if args.cells:
+        raise ConfigError("--cells: only for the built-in scenario (a job file sets [snapshot].cells)")
     from .job import load_job
     from .pipeline import build_snapshot
     job = load_job(args.job)
     if job.series:
         print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0]['label']}'")
-    return build_snapshot(job)
+    nu = args.frequencies if args.frequencies is not None else job.frequencies
+    return build_snapshot(job), nu
 
 
 def cmd_inspect(args):
     from .physics.freefree import absorption_cgs
-    snap = _snapshot_from(args)
+    snap, frequencies = _snapshot_from(args)
     print(snap.describe())
     lo, hi = snap.extent
     print(f"  extent     {', '.join(f'{v:.4g}' for v in (hi - lo) / u.pc.to(u.cm))} pc")
@@ -142,7 +150,7 @@ def cmd_inspect(args):
     if not ionized.any():
         return EXIT_OK
     print("  estimated optical depth through the box along each axis (median and max over columns):")
-    for nu in args.frequencies.to_value(u.Hz):
+    for nu in frequencies.to_value(u.Hz):
         alpha = np.zeros_like(ne)
         alpha[ionized] = absorption_cgs(nu, t[ionized], ne[ionized], ni[ionized])
         parts = []
@@ -167,14 +175,14 @@ def _trace_job_view(path, view_name, frequencies=None):
     return job, name, trace(build_snapshot(job), views[name], nu, background=job.trace.get("background"))
 
 
-def cmd_sed(args):
+def cmd_spectrum(args):
     from .analysis.spectra import sed, spectral_index
     job, name, res = _trace_job_view(args.job, args.view)
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
     if job.series:
         print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
-    print(f"# SED of view '{name}' ({res.provenance.get('source', '')})")
+    print(f"# model spectrum of view '{name}' ({res.provenance.get('source', '')}): no beam, no noise")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
     for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy))):
         a = f"{alpha[i]:+8.3f}" if i < len(alpha) else ""
@@ -269,7 +277,8 @@ def cmd_compare(args):
     with warnings.catch_warnings():
         # every warning is also a note, which the summary prints
         warnings.simplefilter("ignore", ComparisonWarning)
-        obs = read_observation(args.observation, frequency=args.frequency, beam=args.beam)
+        obs = read_observation(args.observation, frequency=args.frequency, beam=args.beam,
+                               options={"frequency": "--frequency", "beam": "--beam", "unit": "BUNIT"})
         if Path(args.model).suffix.lower() == ".toml":
             # traced at the observed frequency itself: no interpolation between planes
             job, name, model = _trace_job_view(args.model, args.view, u.Quantity([obs.frequency]))
@@ -326,18 +335,19 @@ def build_parser():
     p = sub.add_parser("inspect", help="describe a snapshot", description="Describe the snapshot of a job "
                        "file (or the built-in scenario): fields, ranges, units, estimated optical depths.")
     p.add_argument("job", nargs="?", help="job file whose snapshot to describe (default: the built-in scenario)")
-    p.add_argument("--frequencies", type=_frequencies, default=_frequencies("0.3 GHz, 1 GHz, 5 GHz, 30 GHz"),
-                   help="comma-separated frequencies for the optical-depth estimate (default '0.3 GHz, 1 GHz, "
-                        "5 GHz, 30 GHz')")
+    p.add_argument("--frequencies", type=_frequencies, default=None,
+                   help="comma-separated frequencies for the optical-depth estimate (default: the job's "
+                        f"[frequencies]; for the built-in scenario '{_INSPECT_FREQUENCIES}')")
     p.add_argument("--cells", type=int, default=None, help="cells per side of the built-in scenario")
     p.set_defaults(func=cmd_inspect)
 
-    p = sub.add_parser("sed", help="print or plot the spectrum of a view", description="Trace one view of a "
-                       "job at the job's frequencies and print its spectral energy distribution.")
+    p = sub.add_parser("spectrum", help="print or plot the spectrum of a view", description="Trace one view of "
+                       "a job at the job's frequencies and print its spectrum: flux density and spectral index "
+                       "of the model (no beam, no noise) at each frequency.")
     p.add_argument("job", help="the job file (TOML)")
     p.add_argument("--view", help="name of the view (default: the first)")
-    p.add_argument("--plot", help="also draw the SED to this file (PNG, PDF, ...)")
-    p.set_defaults(func=cmd_sed)
+    p.add_argument("--plot", help="also draw the spectrum to this file (PNG, PDF, ...)")
+    p.set_defaults(func=cmd_spectrum)
 
     p = sub.add_parser("compare", help="compare a model with an observed image", description="Take a model at "
                        "an observed image's frequency, convolve it with the observed beam, put it on the observed "

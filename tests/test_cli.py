@@ -88,7 +88,7 @@ def test_inspect_and_sed(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "estimated optical depth" in out and "30 GHz" in out
     job = write(tmp_path, JOB)
-    assert main(["sed", str(job), "--plot", str(tmp_path / "sed.png")]) == EXIT_OK
+    assert main(["spectrum", str(job), "--plot", str(tmp_path / "sed.png")]) == EXIT_OK
     out = capsys.readouterr().out
     assert "S (Jy)" in out and (tmp_path / "sed.png").stat().st_size > 1000
 
@@ -110,7 +110,7 @@ def test_cut_writes_profiles_and_figure(tmp_path, capsys):
 
 
 def test_help_everywhere():
-    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["sed", "--help"],
+    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["spectrum", "--help"],
                  ["compare", "--help"], ["cut", "--help"]):
         with pytest.raises(SystemExit) as exc:
             main(argv)

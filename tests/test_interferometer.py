@@ -341,6 +341,31 @@ def test_clean_beam_fit_recovers_a_gaussian(pa):
     assert b.pa.to_value(u.deg) == pytest.approx(pa, abs=1e-7)
 
 
+def test_clean_beam_fit_matches_the_half_power_width_of_an_airy_beam():
+    # The clean beam is fitted to the main lobe down to half power, so for a lobe that is not a
+    # Gaussian its FWHM is the beam's own half-power width. Reference: the Airy pattern
+    # (2 J1(x) / x)^2 (Born & Wolf, sec. 8.5.2, from memory), whose half-power point is found here
+    # with scipy's Bessel function and root finder.
+    from scipy.optimize import brentq
+    from scipy.special import j1
+
+    def airy(x):
+        x = np.asarray(x, float)
+        out = np.ones_like(x)
+        nz = x > 0
+        out[nz] = (2 * j1(x[nz]) / x[nz]) ** 2
+        return out
+
+    x_half = brentq(lambda x: airy(np.array([x]))[0] - 0.5, 0.5, 3.0)
+    n, scale = 48, 0.25                           # x per pixel: about 13 pixels across the FWHM
+    r, c = np.mgrid[-n:n, -n:n].astype(float)
+    psf = airy(np.hypot(r, c) * scale)
+    b = fit_clean_beam(psf, 1.0 * u.arcsec)
+    fwhm = 2 * x_half / scale
+    assert b.major.to_value(u.arcsec) == pytest.approx(fwhm, rel=0.02)
+    assert b.minor.to_value(u.arcsec) == pytest.approx(fwhm, rel=0.02)
+
+
 def test_hogbom_on_a_lone_point_source():
     # Högbom (1974): on an isolated point of flux S each iteration removes the fraction g of the
     # peak at the same pixel, so after n iterations the components hold S (1 - (1 - g)^n) there
