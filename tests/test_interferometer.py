@@ -562,3 +562,72 @@ def test_warns_without_sky_position():
     with pytest.warns(SynthesisWarning, match="no sky_position"):
         sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
     assert sm.declination.to_value(u.deg) == 0.0
+
+
+# -- the synthesized image's own grid ------------------------------------------------------------
+
+def test_default_grid_follows_the_array_and_keeps_the_flux(compact_result):
+    # 5 pixels across lambda_min / B_max (a choice documented in rtrace.interferometer.grid), over the
+    # model's field; lambda = c / nu (C, cgs) and B_max the longest antenna separation
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", SynthesisWarning)
+        sm = synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, weighting="uniform")
+    pos = ANTENNAS.to_value(u.m)
+    bmax = max(np.linalg.norm(a - b) for a in pos for b in pos)
+    pix = LAM_M / bmax / 5
+    assert sm.pixel_scale.to_value(u.rad) == pytest.approx(pix, rel=1e-12)
+    field = N * PIX.to_value(u.rad)
+    assert sm.shape[1] == sm.shape[2] == math.ceil(field / pix - 1e-9)
+    assert sm.beam.minor.to_value(u.rad) / pix >= 4
+    # the compact source's flux and position on the new grid (common practice: CLEAN of a source
+    # much smaller than the largest angular scale recovers its flux density)
+    true = compact_result.flux_density()[0].to_value(u.Jy)
+    assert sm.flux_density()[0].to_value(u.Jy) == pytest.approx(true, rel=0.03)
+    r, c = np.unravel_index(np.argmax(sm.data[0].value), sm.shape[1:])
+    centre = (sm.shape[1] - 1) / 2
+    off_arcsec = np.array([c - centre, r - centre]) * sm.pixel_scale.to_value(u.arcsec)
+    np.testing.assert_allclose(off_arcsec, COMPACT_XY, atol=sm.pixel_scale.to_value(u.arcsec))
+    # the pixel area is the synthesized grid's: Jy/beam -> Jy uses the clean beam over that pixel
+    assert sm.beam_area_pixels[0] == pytest.approx(sm.beam.sr.to_value(u.sr) / pix**2, rel=1e-9)
+
+
+def test_default_hour_angle_step_does_not_alias(compact_result):
+    # Samples spaced du along a track repeat the sky every 1 / du (sampling theorem applied along
+    # the track: TMS 2017, ch. 5, from memory; common practice). The default keeps du < 1 / field
+    # for every baseline, so the repeat lies outside the image.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", SynthesisWarning)
+        sm = synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA)
+    nb = len(sm.baselines)
+    nh = sm.hour_angles.size
+    half = sm.uvw.shape[0] // 2
+    uu = sm.u[0][:half].reshape(nh, nb)
+    vv = sm.v[0][:half].reshape(nh, nb)
+    step = np.hypot(np.diff(uu, axis=0), np.diff(vv, axis=0)).max()
+    field = sm.shape[-1] * sm.pixel_scale.to_value(u.rad)
+    assert step * field < 1.0
+    # and the samples are evenly spaced over the whole range, ends included
+    ha = sm.hour_angles.to_value(u.hourangle)
+    assert ha[0] == pytest.approx(-4) and ha[-1] == pytest.approx(4)
+    np.testing.assert_allclose(np.diff(ha), ha[1] - ha[0], rtol=1e-9)
+
+
+def test_primary_beam_bounds_the_field_and_large_images_are_refused():
+    # with dishes, the field is the primary beam's half-power width at the longest wavelength when
+    # that is smaller than the model: FWHM = 1.13 lambda / D (the Gaussian default, common practice)
+    res = _point_result(32, 32, 1.0, npix=64)
+    d = 300.0                                   # invented large dishes: a beam narrower than the model
+    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
+                    dish_diameter=d * u.m)
+    hpbw = 1.13 * LAM_M / d
+    assert hpbw < 64 * PIX.to_value(u.rad)
+    assert sm.shape[-1] == max(32, math.ceil(hpbw / sm.pixel_scale.to_value(u.rad) - 1e-9))
+    assert sm.primary_beam.shape == sm.shape
+    # a grid of more than 1024 pixels on a side is an InputError before any transform
+    with pytest.raises(InputError, match="image_size: the synthesized image would be"):
+        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
+                   pixel_scale=0.01 * u.arcsec)
+    with pytest.raises(InputError, match="image_size: expected an integer"):
+        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, image_size=4)
+    with pytest.raises(InputError, match="pixel_scale: expected one angle"):
+        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, pixel_scale=2)
