@@ -551,7 +551,9 @@ def parse_job(raw, base_dir="."):
     comparison = comparison_section(_section(raw, "comparison"), base_dir, view_names, nu)
     job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par,
               synthesis=synthesis, comparison=comparison)
-    build_views(job)              # the View constructor validates geometry now, not after tracing
+    built = build_views(job)      # the View constructor validates geometry now, not after tracing
+    from .job_study import check_synthesis_grids
+    check_synthesis_grids(job, built)
     from .job_snapshot import check_ionization
     check_ionization(job)         # the model's values, and sources against the grid, before any field is read
     return job

@@ -36,7 +36,7 @@ import numpy as np
 
 from .errors import ConfigError, InputError
 
-__all__ = ["synthesis_section", "comparison_section", "file_fingerprint"]
+__all__ = ["synthesis_section", "comparison_section", "check_synthesis_grids", "file_fingerprint"]
 
 
 def file_fingerprint(path):
@@ -199,3 +199,45 @@ def comparison_section(spec, base_dir, view_names, frequencies):
     key["observation"] = file_fingerprint(path)
     key["apertures"] = fingerprints
     return {"kwargs": {"observation": obs}, "apertures": apertures, "views": views, "key": key}
+
+
+def check_synthesis_grids(job, views):
+    """Refuse, before any tracing, a ``[synthesis]`` whose image grid would be too large for a view.
+
+    Checked for views with a ``width`` (the field of the others depends on the snapshot's box and
+    is checked when the view is synthesized); also that no two antennas stand closer than one
+    dish diameter. ``views`` is ``[(name, View)]``.
+    """
+    from .interferometer.grid import AIRY_FWHM_FACTOR, image_grid
+    from .interferometer.sampling import GAUSSIAN_FWHM_FACTOR
+    from .physics.constants import C
+
+    syn = job.synthesis
+    if not syn:
+        return
+    kw = syn["kwargs"]
+    pos = kw["antennas"].to_value(u.m)
+    sep = np.linalg.norm(pos[:, None, :] - pos[None, :, :], axis=-1)
+    bmax = float(sep.max())
+    pb = None
+    if "dish_diameter" in kw:
+        d = kw["dish_diameter"].to_value(u.m)
+        ground = np.linalg.norm(pos[:, None, :2] - pos[None, :, :2], axis=-1)
+        ground[np.diag_indices(len(pos))] = np.inf
+        if ground.min() < d:
+            i, j = np.unravel_index(np.argmin(ground), ground.shape)
+            raise ConfigError(f"[synthesis].dish_diameter: antennas {min(i, j)} and {max(i, j)} stand "
+                              f"{ground.min():.4g} m apart on the ground, closer than one dish diameter ({d:.4g} m)")
+        factor = (kw.get("primary_beam_fwhm_factor", GAUSSIAN_FWHM_FACTOR)
+                  if kw.get("primary_beam", "gaussian") == "gaussian" else AIRY_FWHM_FACTOR)
+        pb = factor / d
+    lam = C / job.frequencies.to_value(u.Hz) * 1e-2
+    for name, view in views:
+        if name not in syn["views"] or view.width is None:
+            continue
+        ny, nx = view.shape
+        field = (view.width / view.distance).decompose().value * max(ny, nx) / nx
+        try:
+            image_grid(field, bmax, lam, pb, kw.get("pixel_scale"), kw.get("image_size"))
+        except InputError as exc:
+            raise ConfigError(f"[synthesis] for view '{name}': {exc}") from None

@@ -176,3 +176,21 @@ def test_inspect_uses_the_job_frequencies(tmp_path, capsys):
             and "GHz" in line]
     assert rows == ["1", "10"]
     assert main(["inspect", str(_write(tmp_path, BASE)), "--cells", "8"]) == EXIT_CONFIG
+
+
+def test_a_synthesized_grid_too_large_is_refused_before_tracing(study):
+    # a view of known width, 2 pc at 2 kpc (1 arcsec is 1 au at 1 pc: 206 arcsec), is at least two
+    # synthesized beams wide at 1 GHz (2 lambda / B_max, rtrace.interferometer.grid); in 0.01 arcsec
+    # pixels that is tens of thousands of pixels
+    text = BASE.replace('distance = "2 kpc"', 'distance = "2 kpc"\nwidth = "2 pc"')
+    extra = '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\npixel_scale = "0.01 arcsec"\n'
+    pos = np.loadtxt(study / "five.txt", comments=("#", "unit"))
+    bmax = max(np.linalg.norm(a - b) for a in pos for b in pos)
+    field = max(206.2648, math.degrees(2 * 299792458.0 / 1e9 / bmax) * 3600)      # arcsec; c (SI definition)
+    n = math.ceil(field / 0.01)
+    with pytest.raises(ConfigError, match=rf"\[synthesis\] for view 'small': image_size: the synthesized image "
+                                          rf"would be ({n}|{n - 1}|{n + 1}) x"):
+        load_job(_write(study, text + extra))
+    extra = '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\ndish_diameter = "150 m"\n'
+    with pytest.raises(ConfigError, match=r"\[synthesis\]\.dish_diameter: antennas 0 and 1 stand"):
+        load_job(_write(study, text + extra))

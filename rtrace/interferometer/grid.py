@@ -135,7 +135,7 @@ def image_grid(model_field_rad, longest_baseline_m, wavelengths_m, pb_fwhm_per_l
         raise InputError(f"image_size: the synthesized image would be {size} x {size} pixels of "
                          f"{_arcsec(pix):.4g} arcsec ({how_pix}; field: {how_field}), more than "
                          f"{MAX_IMAGE_PIXELS} on a side; give a dish_diameter (the field then follows the "
-                         f"primary beam), a narrower frequency range, or image_size= / pixel_scale=")
+                         f"primary beam), a narrower frequency range, or set image_size / pixel_scale")
     return ImageGrid(pix, size, f"{size} x {size} pixels of {_arcsec(pix):.4g} arcsec: {how_pix}; "
                                 f"field {how_field}")
 
