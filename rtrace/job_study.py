@@ -90,7 +90,8 @@ def synthesis_section(spec, base_dir, view_names):
     path = _readable_file(spec["antennas"], f"{where}.antennas", base_dir)
     kw = {}
     try:
-        kw["antennas"] = antenna_positions(os.fspath(path), unit=spec.get("antenna_unit")) * u.m
+        kw["antennas"] = antenna_positions(os.fspath(path), unit=spec.get("antenna_unit"),
+                                           unit_option="[synthesis].antenna_unit") * u.m
     except InputError as exc:
         raise ConfigError(f"{where}.antennas: {exc}") from None
     lat = spec["latitude"].to_value(u.deg)

@@ -82,6 +82,7 @@ def _write(tmp_path, text, name="job.toml"):
 @pytest.fixture()
 def study(tmp_path):
     (tmp_path / "five.txt").write_text(ANTENNAS)
+    (tmp_path / "nounit.txt").write_text("0 0 0\n100 0 0\n")
     res = _observed(tmp_path)
     # a DS9-format circle of 60 arcsec on the view's centre, read with the regions package
     c = res.sky_position
@@ -132,6 +133,13 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
     ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nweigthing = "uniform"\n',
      r"\[synthesis\]: unknown key 'weigthing' \(did you mean 'weighting'\?\)"),
     ('[synthesis]\nantennas = "none.txt"\nlatitude = "35 deg"\n', r"\[synthesis\]\.antennas: file not found"),
+    ('[synthesis]\nantennas = "nounit.txt"\nlatitude = "35 deg"\n',
+     r"has no 'unit =' line; give \[synthesis\]\.antenna_unit"),
+    ('[synthesis]\nlatitude = "35 deg"\n', r"\[synthesis\]: 'antennas' is required"),
+    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nrobust = 0.5\n',
+     r"\[synthesis\]\.robust: only used with weighting = 'robust'"),
+    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nhour_angle_step = "5 m"\n',
+     r"\[synthesis\]\.hour_angle_step: '5 m' is not an angle"),
     ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 m"\n', r"\[synthesis\]\.latitude: '35 m' is not an angle"),
     ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nhour_angle_range = ["2 hourangle", "1 hourangle"]\n',
      r"\[synthesis\]\.hour_angle_range: start .* is after stop"),

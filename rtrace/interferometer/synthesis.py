@@ -167,7 +167,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     """
     if not isinstance(result, Result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
-    pos = antenna_positions(antennas, unit=antenna_unit)
+    pos = antenna_positions(antennas, unit=antenna_unit, unit_option="antenna_unit=")
     lat = _angle(latitude, "latitude", -90.0, 90.0)
     min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
     if weighting not in WEIGHTINGS:
@@ -208,7 +208,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         n_hour_angles = 1 if span == 0 else int(math.ceil(span / dh_max * (1.0 + 1e-9))) + 1
         if n_hour_angles > 100_000:
             raise InputError(f"hour_angle_step: avoiding aliasing over this range needs {n_hour_angles} "
-                             f"samples; give a smaller image (image_size=) or fewer hour angles")
+                             f"samples; give a smaller image (image_size) or a shorter hour-angle range")
     ha_all = hour_angle_samples(hour_angle_range, hour_angle_step, n_hour_angles)
 
     sky = result.sky_position
