@@ -128,15 +128,16 @@ def test_rerun_skips_finished_outputs_and_restart_redoes_them(tmp_path, capsys):
     job = write(tmp_path, QUICK)
     assert main(["run", str(job), "--quiet"]) == EXIT_OK
     out = tmp_path / "out"
-    assert sorted(p.name for p in out.iterdir()) == [".rtrace-manifest.json", "seed1", "seed2"]
-    assert "wrote 12 files" in capsys.readouterr().out
+    assert sorted(p.name for p in out.iterdir()) == [".rtrace-manifest.json", "job.toml", "seed1", "seed2"]
+    assert "wrote 13 files" in capsys.readouterr().out       # 12 outputs and the job's copy, job.toml
+    assert (out / "job.toml").read_text() == job.read_text()
     assert main(["run", str(job)]) == EXIT_OK                    # with progress lines
     captured = capsys.readouterr()
-    assert "wrote 0 files" in captured.out and "skipped 12 files already up to date" in captured.out
+    assert "wrote 0 files" in captured.out and "skipped 13 files already up to date" in captured.out
     assert "seed1 / view 'small': 6 of 6 outputs up to date, skipped" in captured.err
-    assert "done: 0 written, 12 up to date (skipped)" in captured.err
+    assert "done: 0 written, 13 up to date (skipped)" in captured.err
     assert main(["run", str(job), "--quiet", "--restart"]) == EXIT_OK
-    assert "wrote 12 files" in capsys.readouterr().out
+    assert "wrote 13 files" in capsys.readouterr().out
 
 
 @pytest.mark.parametrize("argv,message", [
