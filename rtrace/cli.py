@@ -289,7 +289,7 @@ def cmd_compare(args):
             raise ConfigError("--view: only for a job file (TOML) model")
         else:
             model = args.model
-        result = compare(model, obs)
+        result = compare(model, obs, model_name="model")
     out = Path(args.output)
     out.mkdir(parents=True, exist_ok=True)
     stem = Path(args.observation).name
