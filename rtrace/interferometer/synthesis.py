@@ -1,11 +1,14 @@
 """``synthesize``: a traced Result observed with an Earth-rotation synthesis array, and its map.
 
-Steps, per frequency: the (u, v, w) tracks of every baseline over the
-hour-angle range (:mod:`.array`); the model in Jy/pixel, optionally
-attenuated by the primary beam of one dish, Fourier-sampled exactly at the
-tracks (:mod:`.sampling`); weighting, dirty image and dirty beam
-(:mod:`.imaging`); Högbom CLEAN, the fitted clean beam and the restored
-image in Jy/beam (:mod:`.clean`).
+First the synthesized image's grid and, unless given, the hour-angle
+sampling are chosen from the array (:mod:`.grid`). Then, per frequency: the
+(u, v, w) tracks of every baseline over the hour-angle range (:mod:`.array`);
+the model in Jy/pixel on its own pixels, optionally attenuated by the
+primary beam of one dish, Fourier-sampled exactly at the tracks
+(:mod:`.sampling`); weighting, dirty image and dirty beam on the
+synthesized grid (:mod:`.imaging`); Högbom CLEAN, the clean beam fitted to
+the dirty beam's half-power lobe and the restored image in Jy/beam
+(:mod:`.clean`).
 
 Largest angular scale: ``theta_LAS ~ 0.6 lambda / B_min`` with ``B_min`` the
 shortest projected baseline over the observation (common practice for the
@@ -30,8 +33,8 @@ from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
 from ..observe.skymap import SkyMap
 from ..physics.constants import C
 from ..transfer.result import Result
-from .array import (_hour_angle_rad, antenna_positions, baseline_pairs, enu_to_equatorial, hour_angle_samples, source_elevation,
-                    uvw_tracks)
+from .array import (_hour_angle_rad, antenna_positions, baseline_pairs, enu_to_equatorial, hour_angle_samples,
+                    source_elevation, uvw_tracks)
 from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
 from .grid import AIRY_FWHM_FACTOR, default_hour_angle_step, image_grid
 from .imaging import WEIGHTINGS, dirty_beam, dirty_image, imaging_weights, uniform_cell
