@@ -212,6 +212,16 @@ def _cut_point(text):
                                          "units, e.g. '150.1 deg, -30.2 deg')") from None
 
 
+def _sample_count(text):
+    try:
+        n = int(text)
+    except ValueError:
+        n = None
+    if n is None or n < 2:
+        raise argparse.ArgumentTypeError(f"expected a whole number of samples >= 2, got '{text}'")
+    return n
+
+
 def _write_cut_csv(path, c):
     from .io.atomic import atomic_path
     ghz = c.frequencies.to_value(u.GHz)
@@ -232,9 +242,24 @@ def _write_cut_csv(path, c):
                 fh.write(",".join(f"{v:.8g}" for v in row) + "\n")
 
 
+def _flags(exc, names):
+    """The same InputError with the leading Python names (``"start, end: ..."``) replaced by CLI flags."""
+    head, sep, rest = str(exc).partition(": ")
+    parts = [p.strip() for p in head.split(",")]
+    if sep and all(p in names for p in parts):
+        return InputError(", ".join(names[p] for p in parts) + ": " + rest)
+    return exc
+
+
 def cmd_cut(args):
+    if isinstance(args.start, tuple) and args.start == args.end:
+        # checked before tracing (points given in pixels); sky points are checked after
+        raise InputError("--start, --end: the cut has zero length")
     job, name, res = _trace_job_view(args.job, args.view)
-    c = res.cut(args.start, args.end, num=args.num)
+    try:
+        c = res.cut(args.start, args.end, num=args.num)
+    except InputError as exc:
+        raise _flags(exc, {"start": "--start", "end": "--end", "num": "--num"}) from None
     print(f"# cut through view '{name}' ({res.provenance.get('source', '')}), {c.columns.size} samples, "
           f"{c.offset[-1].to_value(u.arcsec):.4g} arcsec = {c.distance[-1].to_value(u.pc):.4g} pc")
     print(f"{'nu (GHz)':>10} {'max tau':>10} {'min tau':>10} {'max I/I_thin':>13} {'min I/I_thin':>13}")
@@ -371,7 +396,8 @@ def build_parser():
     p.add_argument("--start", type=_cut_point, required=True, help="'column, row' (pixels, 0 = centre of the "
                    "first pixel) or 'RA, Dec' with units")
     p.add_argument("--end", type=_cut_point, required=True, help="as --start")
-    p.add_argument("--num", type=int, default=None, help="number of samples (default: one per pixel)")
+    p.add_argument("--num", type=_sample_count, default=None, help="number of samples, at least 2 (default: one "
+                   "per pixel)")
     p.add_argument("--csv", help="write the profiles to this CSV file")
     p.add_argument("--plot", help="draw full and unabsorbed profiles to this file (PNG, PDF, ...)")
     p.set_defaults(func=cmd_cut)

@@ -25,11 +25,21 @@ import astropy.units as u
 from .batch import output_key
 from .io.atomic import atomic_path
 from .io.manifest import inputs_key
-from .products import Output, _close, _stem
+from .products import Output
 
 __all__ = ["study_outputs", "job_copy_output", "JOB_COPY_NAME"]
 
 JOB_COPY_NAME = "job.toml"
+
+
+def _stem(job, unit, suffix):
+    """``<folder>/<prefix><view>_<suffix>``, as every output of a view is named."""
+    return unit.folder / f"{job.output.get('prefix', '')}{unit.name}_{suffix}"
+
+
+def _close(fig):
+    import matplotlib.pyplot as plt
+    plt.close(fig)
 
 
 class _Once:

@@ -202,3 +202,17 @@ def test_a_synthesized_grid_too_large_is_refused_before_tracing(study):
     extra = '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\ndish_diameter = "150 m"\n'
     with pytest.raises(ConfigError, match=r"\[synthesis\]\.dish_diameter: antennas 0 and 1 stand"):
         load_job(_write(study, text + extra))
+
+
+def test_cut_messages_name_flags_before_tracing(tmp_path, capsys, monkeypatch):
+    import rtrace as package
+
+    def no_trace(*args, **kwargs):
+        raise AssertionError("not reached: the cut is refused before tracing")
+    monkeypatch.setattr(package, "trace", no_trace)
+    job = _write(tmp_path, BASE)
+    assert main(["cut", str(job), "--start", "3, 4", "--end", "3, 4"]) == 4
+    assert "--start, --end: the cut has zero length" in capsys.readouterr().err
+    with pytest.raises(SystemExit) as exc:
+        main(["cut", str(job), "--start", "3, 4", "--end", "9, 4", "--num", "1"])
+    assert exc.value.code == 2 and "--num" in capsys.readouterr().err
