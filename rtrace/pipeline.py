@@ -39,7 +39,7 @@ from .io.manifest import Manifest
 from .job import build_views
 from .job_snapshot import build_snapshot
 from .products import QUANTITIES, data_outputs, picture_outputs
-from .study_products import job_copy_output, study_outputs
+from .study_products import check_job_copy, job_copy_output, study_outputs
 
 __all__ = ["run", "build_snapshot", "Outputs", "CACHE_NAME"]
 
@@ -93,6 +93,7 @@ def run(job, progress=None, restart=False):
     views = build_views(job)
     directory = out["directory"]
     directory.mkdir(parents=True, exist_ok=True)
+    check_job_copy(job, directory)                 # never overwrite a job.toml rtrace did not write
     manifest = Manifest(directory) if restart else Manifest.load(directory)
     later = job.series and pictures           # series pictures wait for the whole series' ranges
     cache = Cache(directory / CACHE_NAME) if later else None

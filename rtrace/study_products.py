@@ -27,7 +27,7 @@ from .io.atomic import atomic_path
 from .io.manifest import inputs_key
 from .products import Output
 
-__all__ = ["study_outputs", "job_copy_output", "JOB_COPY_NAME"]
+__all__ = ["study_outputs", "job_copy_output", "check_job_copy", "JOB_COPY_NAME"]
 
 JOB_COPY_NAME = "job.toml"
 
@@ -138,6 +138,44 @@ def study_outputs(job, unit, fmt):
 def _write_job_copy(path, res, sky, text):
     with atomic_path(path) as tmp:
         tmp.write_text(text)
+
+
+def _recorded_names(directory):
+    """Names the folder's manifest file records, read without judging it (empty if unreadable)."""
+    import json
+
+    from .io.manifest import MANIFEST_NAME
+    try:
+        data = json.loads((directory / MANIFEST_NAME).read_text(encoding="utf-8"))
+        return set(data.get("outputs", {}))
+    except (OSError, ValueError, AttributeError):
+        return set()
+
+
+def check_job_copy(job, directory):
+    """Refuse, before any work, to overwrite a ``job.toml`` in the output folder that rtrace did not write.
+
+    A file of that name that the folder's manifest does not record (e.g. the
+    user's own job file, when another job writes into its folder) is left
+    alone unless it already holds this job's text.
+
+    Raises
+    ------
+    ConfigError
+        Naming the file and what to do.
+    """
+    from .errors import ConfigError
+    path = directory / JOB_COPY_NAME
+    if job.text is None or not path.exists() or JOB_COPY_NAME in _recorded_names(directory):
+        return
+    try:
+        same = path.read_text() == job.text
+    except (OSError, UnicodeDecodeError):
+        same = False
+    if not same:
+        raise ConfigError(f"[output].directory: {path} exists and was not written by rtrace; a run keeps a copy "
+                          f"of its job file under that name, so move that file or write the outputs elsewhere "
+                          f"(--output on the command line)")
 
 
 def job_copy_output(job, directory):

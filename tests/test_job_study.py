@@ -216,3 +216,19 @@ def test_cut_messages_name_flags_before_tracing(tmp_path, capsys, monkeypatch):
     with pytest.raises(SystemExit) as exc:
         main(["cut", str(job), "--start", "3, 4", "--end", "9, 4", "--num", "1"])
     assert exc.value.code == 2 and "--num" in capsys.readouterr().err
+
+
+def test_a_foreign_job_toml_in_the_output_folder_is_not_overwritten(tmp_path):
+    # the user's own file of that name is left alone, with an error before any tracing
+    (tmp_path / "out").mkdir()
+    mine = tmp_path / "out" / "job.toml"
+    mine.write_text("# someone else's notes\n")
+    with pytest.raises(ConfigError, match=r"\[output\]\.directory: .*job.toml exists and was not written by rtrace"):
+        run_job(load_job(_write(tmp_path, BASE, "other.toml")))
+    assert mine.read_text() == "# someone else's notes\n"
+    assert not (tmp_path / "out" / "small_intensity.fits").exists()
+    # a job whose own file is that one (the output folder is the job's folder) runs
+    inside = BASE.replace('directory = "out"', 'directory = "."')
+    job_path = _write(tmp_path / "out", inside)
+    written = run_job(load_job(job_path))
+    assert str(job_path) in written and job_path.read_text() == textwrap.dedent(inside)
