@@ -1,4 +1,4 @@
-"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot an SED,
+"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot a spectrum,
 compare a model with an observed image, take a cut through a view.
 
 Exit codes (for scripts): 0 success; 1 unexpected internal error; 2 bad
@@ -116,21 +116,29 @@ def cmd_demo(args):
     return EXIT_OK
 
 
+_INSPECT_FREQUENCIES = "0.3 GHz, 1 GHz, 5 GHz, 30 GHz"
+
+
 def _snapshot_from(args):
+    """``(snapshot, frequencies)``: the job's snapshot and frequencies, or the built-in scenario's."""
     if args.job is None:
         from .demo import scenario
-        return scenario(64 if args.cells is None else args.cells)
+        nu = args.frequencies if args.frequencies is not None else _frequencies(_INSPECT_FREQUENCIES)
+        return scenario(64 if args.cells is None else args.cells), nu
+    if args.cells is not None:
+        raise ConfigError("--cells: only for the built-in scenario (a job file sets [snapshot].cells)")
     from .job import load_job
     from .pipeline import build_snapshot
     job = load_job(args.job)
     if job.series:
         print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0]['label']}'")
-    return build_snapshot(job)
+    nu = args.frequencies if args.frequencies is not None else job.frequencies
+    return build_snapshot(job), nu
 
 
 def cmd_inspect(args):
     from .physics.freefree import absorption_cgs
-    snap = _snapshot_from(args)
+    snap, frequencies = _snapshot_from(args)
     print(snap.describe())
     lo, hi = snap.extent
     print(f"  extent     {', '.join(f'{v:.4g}' for v in (hi - lo) / u.pc.to(u.cm))} pc")
@@ -142,7 +150,7 @@ def cmd_inspect(args):
     if not ionized.any():
         return EXIT_OK
     print("  estimated optical depth through the box along each axis (median and max over columns):")
-    for nu in args.frequencies.to_value(u.Hz):
+    for nu in frequencies.to_value(u.Hz):
         alpha = np.zeros_like(ne)
         alpha[ionized] = absorption_cgs(nu, t[ionized], ne[ionized], ni[ionized])
         parts = []
@@ -170,14 +178,14 @@ def _trace_job_view(path, view_name, frequencies=None):
     return job, name, res
 
 
-def cmd_sed(args):
+def cmd_spectrum(args):
     from .analysis.spectra import sed, spectral_index
     job, name, res = _trace_job_view(args.job, args.view)
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
     if job.series:
         print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
-    print(f"# SED of view '{name}' ({res.provenance.get('source', '')})")
+    print(f"# model spectrum of view '{name}' ({res.provenance.get('source', '')}): no beam, no noise")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
     for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy))):
         a = f"{alpha[i]:+8.3f}" if i < len(alpha) else ""
@@ -207,6 +215,16 @@ def _cut_point(text):
                                          "units, e.g. '150.1 deg, -30.2 deg')") from None
 
 
+def _sample_count(text):
+    try:
+        n = int(text)
+    except ValueError:
+        n = None
+    if n is None or n < 2:
+        raise argparse.ArgumentTypeError(f"expected a whole number of samples >= 2, got '{text}'")
+    return n
+
+
 def _write_cut_csv(path, c):
     from .io.atomic import atomic_path
     ghz = c.frequencies.to_value(u.GHz)
@@ -228,9 +246,24 @@ def _write_cut_csv(path, c):
                 fh.write(",".join(f"{v:.8g}" for v in row) + "\n")
 
 
+def _flags(exc, names):
+    """The same InputError with the leading Python names (``"start, end: ..."``) replaced by CLI flags."""
+    head, sep, rest = str(exc).partition(": ")
+    parts = [p.strip() for p in head.split(",")]
+    if sep and all(p in names for p in parts):
+        return InputError(", ".join(names[p] for p in parts) + ": " + rest)
+    return exc
+
+
 def cmd_cut(args):
+    if isinstance(args.start, tuple) and args.start == args.end:
+        # checked before tracing (points given in pixels); sky points are checked after
+        raise InputError("--start, --end: the cut has zero length")
     job, name, res = _trace_job_view(args.job, args.view)
-    c = res.cut(args.start, args.end, num=args.num)
+    try:
+        c = res.cut(args.start, args.end, num=args.num)
+    except InputError as exc:
+        raise _flags(exc, {"start": "--start", "end": "--end", "num": "--num"}) from None
     print(f"# cut through view '{name}' ({res.provenance.get('source', '')}), {c.columns.size} samples, "
           f"{c.offset[-1].to_value(u.arcsec):.4g} arcsec = {c.distance[-1].to_value(u.pc):.4g} pc")
     print(f"{'nu (GHz)':>10} {'max tau':>10} {'min tau':>10} {'max I/I_thin':>13} {'min I/I_thin':>13}")
@@ -273,7 +306,8 @@ def cmd_compare(args):
     with warnings.catch_warnings():
         # every warning is also a note, which the summary prints
         warnings.simplefilter("ignore", ComparisonWarning)
-        obs = read_observation(args.observation, frequency=args.frequency, beam=args.beam)
+        obs = read_observation(args.observation, frequency=args.frequency, beam=args.beam,
+                               options={"frequency": "--frequency", "beam": "--beam", "unit": "BUNIT"})
         if Path(args.model).suffix.lower() == ".toml":
             # traced at the observed frequency itself: no interpolation between planes
             job, name, model = _trace_job_view(args.model, args.view, u.Quantity([obs.frequency]))
@@ -284,7 +318,7 @@ def cmd_compare(args):
             raise ConfigError("--view: only for a job file (TOML) model")
         else:
             model = args.model
-        result = compare(model, obs)
+        result = compare(model, obs, model_name="model")
     out = Path(args.output)
     out.mkdir(parents=True, exist_ok=True)
     stem = Path(args.observation).name
@@ -330,18 +364,19 @@ def build_parser():
     p = sub.add_parser("inspect", help="describe a snapshot", description="Describe the snapshot of a job "
                        "file (or the built-in scenario): fields, ranges, units, estimated optical depths.")
     p.add_argument("job", nargs="?", help="job file whose snapshot to describe (default: the built-in scenario)")
-    p.add_argument("--frequencies", type=_frequencies, default=_frequencies("0.3 GHz, 1 GHz, 5 GHz, 30 GHz"),
-                   help="comma-separated frequencies for the optical-depth estimate (default '0.3 GHz, 1 GHz, "
-                        "5 GHz, 30 GHz')")
+    p.add_argument("--frequencies", type=_frequencies, default=None,
+                   help="comma-separated frequencies for the optical-depth estimate (default: the job's "
+                        f"[frequencies]; for the built-in scenario '{_INSPECT_FREQUENCIES}')")
     p.add_argument("--cells", type=int, default=None, help="cells per side of the built-in scenario")
     p.set_defaults(func=cmd_inspect)
 
-    p = sub.add_parser("sed", help="print or plot the spectrum of a view", description="Trace one view of a "
-                       "job at the job's frequencies and print its spectral energy distribution.")
+    p = sub.add_parser("spectrum", help="print or plot the spectrum of a view", description="Trace one view of "
+                       "a job at the job's frequencies and print its spectrum: flux density and spectral index "
+                       "of the model (no beam, no noise) at each frequency.")
     p.add_argument("job", help="the job file (TOML)")
     p.add_argument("--view", help="name of the view (default: the first)")
-    p.add_argument("--plot", help="also draw the SED to this file (PNG, PDF, ...)")
-    p.set_defaults(func=cmd_sed)
+    p.add_argument("--plot", help="also draw the spectrum to this file (PNG, PDF, ...)")
+    p.set_defaults(func=cmd_spectrum)
 
     p = sub.add_parser("compare", help="compare a model with an observed image", description="Take a model at "
                        "an observed image's frequency, convolve it with the observed beam, put it on the observed "
@@ -365,7 +400,8 @@ def build_parser():
     p.add_argument("--start", type=_cut_point, required=True, help="'column, row' (pixels, 0 = centre of the "
                    "first pixel) or 'RA, Dec' with units")
     p.add_argument("--end", type=_cut_point, required=True, help="as --start")
-    p.add_argument("--num", type=int, default=None, help="number of samples (default: one per pixel)")
+    p.add_argument("--num", type=_sample_count, default=None, help="number of samples, at least 2 (default: one "
+                   "per pixel)")
     p.add_argument("--csv", help="write the profiles to this CSV file")
     p.add_argument("--plot", help="draw full and unabsorbed profiles to this file (PNG, PDF, ...)")
     p.set_defaults(func=cmd_cut)

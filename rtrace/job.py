@@ -49,11 +49,18 @@ SCHEMA = {
     "output": {"directory": str, "fits": bool, "pictures": bool, "sed": bool, "quantities": list,
                "picture_format": str, "prefix": str, "spectral_axis": str},
     "parallel": {"scheduler": str, "workers": int, "max_memory": "memory_size"},
+    "synthesis": {"antennas": str, "antenna_unit": str, "latitude": "angle", "hour_angle_range": list,
+                  "hour_angle_step": ("angle", "time"), "n_hour_angles": int, "min_elevation": "angle",
+                  "dish_diameter": "length", "primary_beam": str, "primary_beam_fwhm_factor": float,
+                  "weighting": str, "robust": float, "gain": float, "niter": int, "threshold": "flux_per_beam",
+                  "pixel_scale": "angle", "image_size": int, "views": list},
+    "comparison": {"observation": str, "frequency": "frequency", "beam": list, "unit": str, "apertures": list,
+                   "views": list},
 }
 _TOP = set(SCHEMA) - {"source"}          # [[ionization.sources]] entries, not a table of their own
 _QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 _PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg, "rate": u.s**-1,
-             "flux_per_beam": u.Jy / u.beam, "memory_size": u.byte}
+             "flux_per_beam": u.Jy / u.beam, "memory_size": u.byte, "time": u.s}
 
 
 def _suggest(key, allowed):
@@ -159,6 +166,13 @@ class Job:
     parallel : dict
         ``[parallel]`` as validated: ``scheduler`` (an address) or ``workers``
         (an int), and ``max_memory`` (bytes, an int).
+    synthesis, comparison : dict
+        ``[synthesis]`` and ``[comparison]`` as validated by
+        :mod:`rtrace.job_study` (``kwargs``, ``views``, ``key``); empty when
+        the job has none.
+    text : str or None
+        The job file's text (:func:`load_job`); a run keeps a copy of it
+        with its outputs.
     """
 
     snapshot: dict
@@ -173,6 +187,9 @@ class Job:
     snapshots: list = field(default_factory=list)
     series: bool = False
     parallel: dict = field(default_factory=dict)
+    synthesis: dict = field(default_factory=dict)
+    comparison: dict = field(default_factory=dict)
+    text: str = None
 
 
 def _frequencies(spec):
@@ -550,8 +567,15 @@ def parse_job(raw, base_dir="."):
     out.setdefault("directory", "rtrace-output")
     out["directory"] = (base_dir / out["directory"]).resolve()
     par = _parallel(_section(raw, "parallel"))
-    job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par)
-    build_views(job)              # the View constructor validates geometry now, not after tracing
+    from .job_study import comparison_section, synthesis_section
+    view_names = [v["name"] for v in views]
+    synthesis = synthesis_section(_section(raw, "synthesis"), base_dir, view_names)
+    comparison = comparison_section(_section(raw, "comparison"), base_dir, view_names, nu)
+    job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par,
+              synthesis=synthesis, comparison=comparison)
+    built = build_views(job)      # the View constructor validates geometry now, not after tracing
+    from .job_study import check_synthesis_grids
+    check_synthesis_grids(job, built)
     from .job_snapshot import check_ionization
     check_ionization(job)         # the model's values, and sources against the grid, before any field is read
     return job
@@ -563,10 +587,15 @@ def load_job(path):
     if not path.is_file():
         raise ConfigError(f"job file not found: {path}")
     try:
-        raw = tomllib.loads(path.read_text())
+        text = path.read_text()
+        raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
-    return parse_job(raw, base_dir=path.parent)
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"job file {path}: cannot be read: {exc}") from None
+    job = parse_job(raw, base_dir=path.parent)
+    job.text = text
+    return job
 
 
 def build_views(job):

@@ -15,6 +15,10 @@ recorded size and SHA-256, are skipped; a view is traced only when one of
 its outputs has to be made. An interrupted run therefore resumes where it
 stopped, and a changed setting redoes exactly the outputs it affects.
 
+A job file's text is kept with its outputs as ``<directory>/job.toml``;
+``[synthesis]`` and ``[comparison]`` add their files to each view's plan
+(:mod:`rtrace.study_products`).
+
 Layout: a single snapshot writes ``<directory>/<prefix><view>_<quantity>.<ext>``;
 a series (``paths``, ``pattern`` or ``seeds``) writes
 ``<directory>/<label>/<prefix><view>_<quantity>.<ext>`` for each snapshot
@@ -36,6 +40,7 @@ from .io.manifest import Manifest
 from .job import build_views
 from .job_snapshot import build_snapshot
 from .products import QUANTITIES, data_outputs, picture_outputs
+from .study_products import check_job_copy, job_copy_output, study_outputs
 
 __all__ = ["run", "build_snapshot", "Outputs", "CACHE_NAME"]
 
@@ -95,6 +100,7 @@ def run(job, progress=None, restart=False):
     views = build_views(job)
     directory = out["directory"]
     directory.mkdir(parents=True, exist_ok=True)
+    check_job_copy(job, directory)                 # never overwrite a job.toml rtrace did not write
     manifest = Manifest(directory) if restart else Manifest.load(directory)
     later = job.series and pictures           # series pictures wait for the whole series' ranges
     cache = Cache(directory / CACHE_NAME) if later else None
@@ -104,13 +110,17 @@ def run(job, progress=None, restart=False):
     total = len(units) * (2 if later else 1)
     written, skipped = [], []
     snapshots = Snapshots(job, say)
+    copy = job_copy_output(job, directory)          # the job itself, kept with what it made
+    if copy is not None:
+        todo, _ = split([copy], manifest, skipped)
+        make(todo, None, None, manifest, written)
 
     with Engine(job, keywords) as engine:
         for step, unit in enumerate(units):
             cubes, spectra = data_outputs(job, unit, quantities, fmt)
             # a single snapshot's pictures need no other snapshot: drawn now, on their own scales
             drawn_now = picture_outputs(job, unit, fmt, None) if pictures and not later else []
-            plan = cubes + drawn_now + spectra
+            plan = cubes + drawn_now + spectra + study_outputs(job, unit, fmt)
             todo, done = split(plan, manifest, skipped)
             need_ranges = later and manifest.get_ranges(unit.label, unit.data_key) is None
             if done:

@@ -62,8 +62,9 @@ def write(tmp_path, text, name="job.toml"):
     return path
 
 
-def expected(out, seeds=(1, 2, 3)):
-    return {str(out / f"seed{s}" / n) for s in seeds for n in PER_SEED}
+def expected(out, seeds=(1, 2, 3), job=True):
+    """The outputs of the given seeds, and the job's own copy (``job.toml``, kept with the outputs)."""
+    return {str(out / f"seed{s}" / n) for s in seeds for n in PER_SEED} | ({str(out / "job.toml")} if job else set())
 
 
 def stamps(paths):
@@ -114,7 +115,7 @@ def test_series_writes_one_folder_per_snapshot_and_a_verifiable_manifest(tmp_pat
     assert job.series and [m["label"] for m in job.snapshots] == ["seed1", "seed2", "seed3"]
     out = tmp_path / "out"
     written = run_job(job)
-    assert set(written) == expected(out) and len(written) == 21 and written.skipped == []
+    assert set(written) == expected(out) and len(written) == 22 and written.skipped == []
     assert not hidden_leftovers(out)
     # each folder holds its own snapshot: emission measures differ between seeds
     em = [fits.getdata(out / f"seed{s}" / "a_emission_measure.fits") for s in (1, 2)]
@@ -207,11 +208,12 @@ def test_changed_settings_redo_only_the_outputs_they_affect(tmp_path):
     out = tmp_path / "out"
     run_job(load_job(job_path))
     observed = {str(out / f"seed{s}" / n) for s in (1, 2, 3) for n in ("a_observed.fits", "a_observed_sed.csv")}
-    before = stamps(expected(out) - observed)
-    # the noise changes the observed map and its SED, not the model cubes
+    before = stamps(expected(out, job=False) - observed)
+    # the noise changes the observed map and its SED, not the model cubes (and the job's copy, whose
+    # text changed)
     again = run_job(load_job(write(tmp_path, SERIES.replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))))
-    assert set(again) == observed
-    assert stamps(expected(out) - observed) == before
+    assert set(again) == observed | {str(out / "job.toml")}
+    assert stamps(expected(out, job=False) - observed) == before
     # a different set of snapshots: only the new one is made
     again = run_job(load_job(write(tmp_path, SERIES.replace("[1, 2, 3]", "[1, 2, 3, 4]")
                                    .replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))))
@@ -286,7 +288,7 @@ def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
     names = ["z_intensity.fits", "z_tau.fits", "z_emission_measure.fits", "z_brightness_temperature.fits",
              "z_sed.csv"]
     all_outputs = {str(out / lab / n) for lab in ("snap_0010", "snap_0020") for n in names}
-    assert set(run_job(job)) == all_outputs
+    assert set(run_job(job)) == all_outputs | {str(out / "job.toml")}          # and the job's copy
     em10, em20 = (fits.getdata(out / lab / "z_emission_measure.fits") for lab in ("snap_0010", "snap_0020"))
     assert em20.max() == pytest.approx(4 * em10.max(), rel=1e-5)     # EM ~ n_e^2: each file was traced
     # a snapshot written again (new mtime) redoes its own outputs only

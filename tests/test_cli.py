@@ -93,7 +93,7 @@ def test_inspect_and_sed(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "estimated optical depth" in out and "30 GHz" in out
     job = write(tmp_path, JOB)
-    assert main(["sed", str(job), "--plot", str(tmp_path / "sed.png")]) == EXIT_OK
+    assert main(["spectrum", str(job), "--plot", str(tmp_path / "sed.png")]) == EXIT_OK
     out = capsys.readouterr().out
     assert "S (Jy)" in out and (tmp_path / "sed.png").stat().st_size > 1000
 
@@ -116,7 +116,7 @@ def test_cut_writes_profiles_and_figure(tmp_path, capsys):
 
 
 def test_help_everywhere():
-    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["sed", "--help"],
+    for argv in (["--help"], ["run", "--help"], ["demo", "--help"], ["inspect", "--help"], ["spectrum", "--help"],
                  ["compare", "--help"], ["cut", "--help"]):
         with pytest.raises(SystemExit) as exc:
             main(argv)
@@ -134,15 +134,16 @@ def test_rerun_skips_finished_outputs_and_restart_redoes_them(tmp_path, capsys):
     job = write(tmp_path, QUICK)
     assert main(["run", str(job), "--quiet"]) == EXIT_OK
     out = tmp_path / "out"
-    assert sorted(p.name for p in out.iterdir()) == [".rtrace-manifest.json", "seed1", "seed2"]
-    assert "wrote 14 files" in capsys.readouterr().out
+    assert sorted(p.name for p in out.iterdir()) == [".rtrace-manifest.json", "job.toml", "seed1", "seed2"]
+    assert "wrote 15 files" in capsys.readouterr().out       # 14 outputs and the job's copy, job.toml
+    assert (out / "job.toml").read_text() == job.read_text()
     assert main(["run", str(job)]) == EXIT_OK                    # with progress lines
     captured = capsys.readouterr()
-    assert "wrote 0 files" in captured.out and "skipped 14 files already up to date" in captured.out
+    assert "wrote 0 files" in captured.out and "skipped 15 files already up to date" in captured.out
     assert "seed1 / view 'small': 7 of 7 outputs up to date, skipped" in captured.err
-    assert "done: 0 written, 14 up to date (skipped)" in captured.err
+    assert "done: 0 written, 15 up to date (skipped)" in captured.err
     assert main(["run", str(job), "--quiet", "--restart"]) == EXIT_OK
-    assert "wrote 14 files" in capsys.readouterr().out
+    assert "wrote 15 files" in capsys.readouterr().out
 
 
 @pytest.mark.parametrize("argv,message", [

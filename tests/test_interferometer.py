@@ -53,6 +53,9 @@ COMPACT_XY = (30.0, 25.0)
 COMPACT_SIGMA = 1.5                     # arcsec
 DISK_XY = (-20.0, -10.0)
 DISK_RADIUS = 35.0                      # arcsec
+# Checks that compare image pixels with model pixels image on the model's own grid
+MODEL_GRID = dict(pixel_scale=PIX, image_size=N)
+POINT_GRID = dict(pixel_scale=PIX, image_size=64)
 
 
 # -- helpers -------------------------------------------------------------------------------------
@@ -120,7 +123,7 @@ def both_result():
 
 @pytest.fixture(scope="module")
 def maps(compact_result):
-    return {w: synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
+    return {w: synthesize(compact_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
                           hour_angle_step=STEP, weighting=w) for w in ("natural", "uniform")}
 
 
@@ -146,7 +149,7 @@ def test_east_west_tracks_in_wavelengths_through_synthesize():
     # the same formula end to end: SynthesizedMap.u, .v in wavelengths, lambda = c / nu
     b = 900.0
     res = _point_result(32, 32, 1.0)
-    sm = synthesize(res, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=LAT,
+    sm = synthesize(res, **POINT_GRID, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=LAT,
                     hour_angle_range=(-6, 6) * u.hourangle, n_hour_angles=145)
     h = sm.hour_angles.to_value(u.rad)
     d = SKY.dec.to_value(u.rad)
@@ -219,7 +222,7 @@ def test_point_source_visibilities_follow_the_shift_theorem():
     # TMS 2017, ch. 3). l toward east = toward smaller column index on rtrace images.
     row, col, s = 40, 21, 0.37
     res = _point_result(row, col, s)
-    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
+    sm = synthesize(res, **POINT_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
     pix = PIX.to_value(u.rad)
     l0 = -(col - 31.5) * pix
     m0 = (row - 31.5) * pix
@@ -230,7 +233,7 @@ def test_point_source_visibilities_follow_the_shift_theorem():
 def test_dirty_image_is_model_convolved_with_dirty_beam(compact_result):
     # The dirty image is the sky convolved with the synthesized (dirty) beam: convolution
     # theorem applied to sampled visibilities (TMS 2017, ch. 5, from memory).
-    sm = synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
+    sm = synthesize(compact_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
                     hour_angle_step=STEP, weighting="uniform")
     jy = compact_result.intensity[0].value * compact_result.pixel_solid_angle.to_value(u.sr) / 1e-23
     full = signal.fftconvolve(jy, sm.dirty_beam[0], mode="full")
@@ -246,7 +249,7 @@ def test_bessel_beam_of_a_circular_track():
     # Its shortest projected baseline is b, so theta_LAS = 0.6 lambda / b (common practice).
     b, n = 2000.0, 360
     res = _point_result(32, 32, 1.0, sky=SkyCoord(ra=0 * u.deg, dec=90 * u.deg))
-    sm = synthesize(res, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=50 * u.deg,
+    sm = synthesize(res, **POINT_GRID, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=50 * u.deg,
                     hour_angle_range=(-12, 12 - 24 / n) * u.hourangle, hour_angle_step=(24 / n) * u.hourangle)
     theta = np.arange(-64, 64) * PIX.to_value(u.rad)
     q = b / LAM_M
@@ -277,7 +280,7 @@ def test_primary_beam_attenuates_an_offset_source():
     # model before sampling
     res = _point_result(32, 50, 1.0)
     d = 25.0
-    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
+    sm = synthesize(res, **POINT_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
                     dish_diameter=d * u.m)
     theta = (50 - 31.5) * PIX.to_value(u.rad)
     fwhm = 1.13 * LAM_M / d
@@ -338,6 +341,31 @@ def test_clean_beam_fit_recovers_a_gaussian(pa):
     assert b.pa.to_value(u.deg) == pytest.approx(pa, abs=1e-7)
 
 
+def test_clean_beam_fit_matches_the_half_power_width_of_an_airy_beam():
+    # The clean beam is fitted to the main lobe down to half power, so for a lobe that is not a
+    # Gaussian its FWHM is the beam's own half-power width. Reference: the Airy pattern
+    # (2 J1(x) / x)^2 (Born & Wolf, sec. 8.5.2, from memory), whose half-power point is found here
+    # with scipy's Bessel function and root finder.
+    from scipy.optimize import brentq
+    from scipy.special import j1
+
+    def airy(x):
+        x = np.asarray(x, float)
+        out = np.ones_like(x)
+        nz = x > 0
+        out[nz] = (2 * j1(x[nz]) / x[nz]) ** 2
+        return out
+
+    x_half = brentq(lambda x: airy(np.array([x]))[0] - 0.5, 0.5, 3.0)
+    n, scale = 48, 0.25                           # x per pixel: about 13 pixels across the FWHM
+    r, c = np.mgrid[-n:n, -n:n].astype(float)
+    psf = airy(np.hypot(r, c) * scale)
+    b = fit_clean_beam(psf, 1.0 * u.arcsec)
+    fwhm = 2 * x_half / scale
+    assert b.major.to_value(u.arcsec) == pytest.approx(fwhm, rel=0.02)
+    assert b.minor.to_value(u.arcsec) == pytest.approx(fwhm, rel=0.02)
+
+
 def test_hogbom_on_a_lone_point_source():
     # Högbom (1974): on an isolated point of flux S each iteration removes the fraction g of the
     # peak at the same pixel, so after n iterations the components hold S (1 - (1 - g)^n) there
@@ -376,7 +404,7 @@ def test_extended_disk_is_filtered_compact_source_survives(both_result):
     # A uniform disk much larger than theta_LAS = 0.6 lambda / B_min (common practice) has almost
     # all its visibility inside the central hole of the (u, v) coverage, so the array misses
     # most of its flux; the compact source in the same image is still recovered.
-    sm = synthesize(both_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
+    sm = synthesize(both_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
                     hour_angle_step=STEP, weighting="natural")
     las = sm.largest_angular_scale[0].to_value(u.arcsec)
     assert 2 * DISK_RADIUS > 3 * las
@@ -534,3 +562,72 @@ def test_warns_without_sky_position():
     with pytest.warns(SynthesisWarning, match="no sky_position"):
         sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
     assert sm.declination.to_value(u.deg) == 0.0
+
+
+# -- the synthesized image's own grid ------------------------------------------------------------
+
+def test_default_grid_follows_the_array_and_keeps_the_flux(compact_result):
+    # 5 pixels across lambda_min / B_max (a choice documented in rtrace.interferometer.grid), over the
+    # model's field; lambda = c / nu (C, cgs) and B_max the longest antenna separation
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", SynthesisWarning)
+        sm = synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, weighting="uniform")
+    pos = ANTENNAS.to_value(u.m)
+    bmax = max(np.linalg.norm(a - b) for a in pos for b in pos)
+    pix = LAM_M / bmax / 5
+    assert sm.pixel_scale.to_value(u.rad) == pytest.approx(pix, rel=1e-12)
+    field = N * PIX.to_value(u.rad)
+    assert sm.shape[1] == sm.shape[2] == math.ceil(field / pix - 1e-9)
+    assert sm.beam.minor.to_value(u.rad) / pix >= 4
+    # the compact source's flux and position on the new grid (common practice: CLEAN of a source
+    # much smaller than the largest angular scale recovers its flux density)
+    true = compact_result.flux_density()[0].to_value(u.Jy)
+    assert sm.flux_density()[0].to_value(u.Jy) == pytest.approx(true, rel=0.03)
+    r, c = np.unravel_index(np.argmax(sm.data[0].value), sm.shape[1:])
+    centre = (sm.shape[1] - 1) / 2
+    off_arcsec = np.array([c - centre, r - centre]) * sm.pixel_scale.to_value(u.arcsec)
+    np.testing.assert_allclose(off_arcsec, COMPACT_XY, atol=sm.pixel_scale.to_value(u.arcsec))
+    # the pixel area is the synthesized grid's: Jy/beam -> Jy uses the clean beam over that pixel
+    assert sm.beam_area_pixels[0] == pytest.approx(sm.beam.sr.to_value(u.sr) / pix**2, rel=1e-9)
+
+
+def test_default_hour_angle_step_does_not_alias(compact_result):
+    # Samples spaced du along a track repeat the sky every 1 / du (sampling theorem applied along
+    # the track: TMS 2017, ch. 5, from memory; common practice). The default keeps du < 1 / field
+    # for every baseline, so the repeat lies outside the image.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", SynthesisWarning)
+        sm = synthesize(compact_result, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA)
+    nb = len(sm.baselines)
+    nh = sm.hour_angles.size
+    half = sm.uvw.shape[0] // 2
+    uu = sm.u[0][:half].reshape(nh, nb)
+    vv = sm.v[0][:half].reshape(nh, nb)
+    step = np.hypot(np.diff(uu, axis=0), np.diff(vv, axis=0)).max()
+    field = sm.shape[-1] * sm.pixel_scale.to_value(u.rad)
+    assert step * field < 1.0
+    # and the samples are evenly spaced over the whole range, ends included
+    ha = sm.hour_angles.to_value(u.hourangle)
+    assert ha[0] == pytest.approx(-4) and ha[-1] == pytest.approx(4)
+    np.testing.assert_allclose(np.diff(ha), ha[1] - ha[0], rtol=1e-9)
+
+
+def test_primary_beam_bounds_the_field_and_large_images_are_refused():
+    # with dishes, the field is the primary beam's half-power width at the longest wavelength when
+    # that is smaller than the model: FWHM = 1.13 lambda / D (the Gaussian default, common practice)
+    res = _point_result(32, 32, 1.0, npix=64)
+    d = 300.0                                   # invented large dishes: a beam narrower than the model
+    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
+                    dish_diameter=d * u.m)
+    hpbw = 1.13 * LAM_M / d
+    assert hpbw < 64 * PIX.to_value(u.rad)
+    assert sm.shape[-1] == max(32, math.ceil(hpbw / sm.pixel_scale.to_value(u.rad) - 1e-9))
+    assert sm.primary_beam.shape == sm.shape
+    # a grid of more than 1024 pixels on a side is an InputError before any transform
+    with pytest.raises(InputError, match="image_size: the synthesized image would be"):
+        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
+                   pixel_scale=0.01 * u.arcsec)
+    with pytest.raises(InputError, match="image_size: expected an integer"):
+        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, image_size=4)
+    with pytest.raises(InputError, match="pixel_scale: expected one angle"):
+        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, pixel_scale=2)

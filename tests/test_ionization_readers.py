@@ -378,7 +378,7 @@ def test_from_yt_sources_need_one_resolution():
         g["temperature"] = (rng.uniform(50, 200, g["dimensions"]), "K")
     ds = yt.load_amr_grids(grids, [8, 8, 8], length_unit=(4, "pc"))
     with pytest.raises(InputError, match=r"IonizingSources needs the whole grid at one resolution; .* "
-                                         r"2-level AMR hierarchy: give level="):
+                                         r"2-level AMR hierarchy: give a level \(level= in Python, \[snapshot\]\.level in a job file\)"):
         rtrace.Snapshot.from_yt(ds, temperature="temperature", density="density",
                                 ionization=IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc,
                                                            rates=[1e45] / u.s))

@@ -44,7 +44,7 @@ __all__ = ["compare", "Comparison", "ApertureFlux", "RadialProfile", "REPROJECT_
 REPROJECT_ORDERS = ("bicubic", "bilinear", "biquadratic", "nearest-neighbor")
 
 
-def compare(result, observation, *, frequency=None, beam=None, unit=None, order="bicubic"):
+def compare(result, observation, *, frequency=None, beam=None, unit=None, order="bicubic", model_name="result"):
     """Compare a model with an observed image, on the observed image's grid.
 
     Parameters
@@ -68,6 +68,9 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
         Unit of the observed pixels, replacing BUNIT.
     order : {"bicubic", "bilinear", "biquadratic", "nearest-neighbor"}
         Interpolation order of ``reproject.reproject_interp``.
+    model_name : str, optional
+        What messages about the model call it (the command line says
+        ``model``, its argument's name).
 
     Returns
     -------
@@ -86,8 +89,8 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
 
     obs = read_observation(observation, frequency=frequency, beam=beam, unit=unit)
     notes = list(obs.notes)
-    cube = model_cube(result)
-    native = model_image(cube, obs.frequency.to_value(u.Hz), obs.beam, notes)
+    cube = model_cube(result, model_name)
+    native = model_image(cube, obs.frequency.to_value(u.Hz), obs.beam, notes, model_name)
     on_grid, footprint = reproject_interp((native, cube.wcs), obs.wcs, shape_out=obs.shape, order=order)
     on_grid = np.where(footprint > 0, on_grid, np.nan)
     common = np.isfinite(obs.data) & np.isfinite(on_grid)

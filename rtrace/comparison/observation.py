@@ -206,7 +206,7 @@ def check_frequency(frequency, name="frequency"):
 # beam and unit
 # --------------------------------------------------------------------------------------------
 
-def header_beam(header, name):
+def header_beam(header, name, beam_option="beam="):
     """The beam of BMAJ/BMIN/BPA (degrees), or None when BMAJ and BMIN are both absent."""
     have = [k for k in ("BMAJ", "BMIN") if k in header]
     if not have:
@@ -214,7 +214,7 @@ def header_beam(header, name):
     if len(have) == 1:
         missing = "BMIN" if have == ["BMAJ"] else "BMAJ"
         raise InputError(f"{name}: the header has {have[0]} but no {missing}; both beam axes are needed "
-                         "(or pass beam=)")
+                         f"(or pass {beam_option})")
     try:
         major, minor = float(header["BMAJ"]), float(header["BMIN"])
         pa = float(header.get("BPA", 0.0))
@@ -292,7 +292,7 @@ def _celestial_plane(data, wcs, header, name):
     return plane, wcs.celestial
 
 
-def read_observation(observation, frequency=None, beam=None, unit=None, name="observation"):
+def read_observation(observation, frequency=None, beam=None, unit=None, name="observation", options=None):
     """Read an observed image for :func:`rtrace.compare`.
 
     Parameters
@@ -307,14 +307,23 @@ def read_observation(observation, frequency=None, beam=None, unit=None, name="ob
         Observed beam; replaces BMAJ/BMIN/BPA.
     unit : str or `~astropy.units.Unit`, optional
         Unit of the pixels; replaces BUNIT.
+    name : str, optional
+        What the messages call the observation.
+    options : dict, optional
+        How messages name the overrides, e.g. ``{"frequency": "--frequency",
+        "beam": "--beam"}`` on the command line or ``"[comparison].frequency"``
+        in a job file; default the keywords (``"frequency="``, ...).
 
     Returns
     -------
     ObservedImage
     """
+    opt = {"frequency": "frequency=", "beam": "beam=", "unit": "unit="}
+    opt.update(options or {})
     if isinstance(observation, ObservedImage):
         if frequency is not None or beam is not None or unit is not None:
-            raise InputError(f"{name}: frequency=, beam= and unit= cannot override an ObservedImage "
+            raise InputError(f"{name}: {opt['frequency']}, {opt['beam']} and {opt['unit']} cannot override an "
+                             "ObservedImage "
                              "(pass them to read_observation)")
         return observation
     header, data, tables, source = open_image_hdu(observation, name)
@@ -328,23 +337,23 @@ def read_observation(observation, frequency=None, beam=None, unit=None, name="ob
     if frequency is not None:
         nu = check_frequency(frequency)
         if header_nu is not None and not np.isclose(nu, header_nu[0], rtol=1e-6, atol=0):
-            note(notes, f"frequency={nu / 1e9:.6g} GHz replaces the header's {header_nu[0] / 1e9:.6g} GHz "
+            note(notes, f"{opt['frequency']} {nu / 1e9:.6g} GHz replaces the header's {header_nu[0] / 1e9:.6g} GHz "
                         f"({nu_source})")
-        nu_source = "frequency="
+        nu_source = opt["frequency"]
     elif header_nu is None:
         raise InputError(f"{name}: no frequency in the header: looked for a spectral axis with CTYPE 'FREQ' "
-                         f"and the keywords {', '.join(FREQUENCY_KEYWORDS)}; pass frequency=")
+                         f"and the keywords {', '.join(FREQUENCY_KEYWORDS)}; pass {opt['frequency']}")
     else:
         nu = float(header_nu[0])
 
-    hbeam = header_beam(header, name)
+    hbeam = header_beam(header, name, opt["beam"])
     if beam is not None:
         obs_beam = validate_beam(beam)
         if hbeam is not None and not hbeam == obs_beam:
-            note(notes, f"beam= ({describe_beam(obs_beam)}) replaces the header's ({describe_beam(hbeam)})")
-        beam_source = "beam="
+            note(notes, f"{opt['beam']} ({describe_beam(obs_beam)}) replaces the header's ({describe_beam(hbeam)})")
+        beam_source = opt["beam"]
     elif hbeam is None:
-        raise InputError(f"{name}: no beam in the header: BMAJ and BMIN (degrees) are missing; pass beam=")
+        raise InputError(f"{name}: no beam in the header: BMAJ and BMIN (degrees) are missing; pass {opt['beam']}")
     else:
         obs_beam, beam_source = hbeam, "BMAJ/BMIN/BPA"
 
@@ -353,12 +362,12 @@ def read_observation(observation, frequency=None, beam=None, unit=None, name="ob
             data_unit = u.Unit(unit)
         except (TypeError, ValueError):
             raise InputError(f"unit: cannot read {unit!r} as a unit") from None
-        origin, text = "unit=", str(unit)
+        origin, text = opt["unit"], str(unit)
     elif "BUNIT" in header and str(header["BUNIT"]).strip():
         data_unit = parse_bunit(header["BUNIT"], name)
         origin, text = "BUNIT", str(header["BUNIT"]).strip()
     else:
-        raise InputError(f"{name}: the header has no BUNIT; expected Jy/beam or K (or pass unit=)")
+        raise InputError(f"{name}: the header has no BUNIT; expected Jy/beam or K (or pass {opt['unit']})")
     plane = _to_jy_per_beam(plane, data_unit, nu, obs_beam, name, notes, origin, text)
     return ObservedImage(data=plane, wcs=cwcs, frequency=nu * u.Hz, beam=obs_beam, header=header,
                          source=source, frequency_source=nu_source, beam_source=beam_source, notes=notes)

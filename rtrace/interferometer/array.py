@@ -81,7 +81,7 @@ def _length_unit(unit, name):
     return un
 
 
-def read_antennas(path, unit=None):
+def read_antennas(path, unit=None, unit_option="unit="):
     """Read antenna positions (east, north, up) from a plain text file.
 
     Parameters
@@ -92,6 +92,9 @@ def read_antennas(path, unit=None):
     unit : str or `~astropy.units.Unit`, optional
         Length unit of the numbers when the file has no ``unit =`` line. If
         the file has one, ``unit`` must be the same unit or omitted.
+    unit_option : str
+        How messages name ``unit`` (e.g. ``"antenna_unit="`` from
+        ``synthesize``, a job key from a job file).
 
     Returns
     -------
@@ -130,10 +133,11 @@ def read_antennas(path, unit=None):
                 raise InputError(f"antennas: '{path}' line {lineno}: positions must be finite, got {line!r}")
             rows.append(values)
     if file_unit is not None and arg_unit is not None and file_unit != arg_unit:
-        raise InputError(f"unit: the file '{path}' says '{file_unit}', the argument says '{arg_unit}'")
+        raise InputError(f"{unit_option.rstrip('=')}: the file '{path}' says '{file_unit}', "
+                         f"{unit_option} says '{arg_unit}'")
     use = file_unit if file_unit is not None else arg_unit
     if use is None:
-        raise InputError(f"antennas: '{path}' has no 'unit =' line; give unit= (e.g. unit='m')")
+        raise InputError(f"antennas: '{path}' has no 'unit =' line; give {unit_option} (e.g. 'm')")
     if not rows:
         raise InputError(f"antennas: '{path}' lists no antennas")
     return np.array(rows, dtype=float) * use
@@ -162,7 +166,7 @@ def write_antennas(path, positions, comment=None):
         fh.write("\n".join(lines) + "\n")
 
 
-def antenna_positions(antennas, unit=None):
+def antenna_positions(antennas, unit=None, unit_option="unit="):
     """Validate antenna positions and return them in metres.
 
     Parameters
@@ -171,15 +175,17 @@ def antenna_positions(antennas, unit=None):
         East, north, up offsets (a length), or the path of an antenna file.
     unit : str, optional
         Unit of a file without a ``unit =`` line.
+    unit_option : str
+        How messages name ``unit``.
 
     Returns
     -------
     ndarray (n, 3), metres
     """
     if isinstance(antennas, (str, os.PathLike)):
-        antennas = read_antennas(antennas, unit=unit)
+        antennas = read_antennas(antennas, unit=unit, unit_option=unit_option)
     elif unit is not None:
-        raise InputError("unit: only used when antennas is a file path")
+        raise InputError(f"{unit_option.rstrip('=')}: only used when antennas is a file path")
     if not isinstance(antennas, u.Quantity):
         raise InputError("antennas: expected a Quantity (n, 3) of lengths (east, north, up), e.g. "
                          "np.array([[0, 0, 0], [100, 0, 0]]) * u.m, or the path of an antenna file")

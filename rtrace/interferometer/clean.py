@@ -8,14 +8,17 @@
   offset between two pixels of the image (it is ``(2 ny, 2 nx)``), so the
   subtraction is exact everywhere in the image. Loop gain 0.1 is the common
   practice default.
-* Clean beam: an elliptical Gaussian of peak 1 fitted to the dirty beam's
-  main lobe, i.e. the pixels connected to the centre where the beam is at
-  least ``MAIN_LOBE_LEVEL`` of its peak (a choice of this module: low enough
-  to hold several pixels beyond the half-power contour, high enough to stay
-  inside the first null or sidelobe of the beams synthesis arrays give). The
-  fit is linear: ``ln B = -(a dr^2 + 2 b dr dc + c dc^2)`` by least squares
-  with weights ``B^2`` (so that it approximates a least-squares fit in
-  ``B`` itself), which recovers a sampled Gaussian exactly.
+* Clean beam (the method of this module): an elliptical Gaussian of peak 1
+  fitted by least squares to the dirty beam's main lobe down to its
+  half-power contour, i.e. to the pixels connected to the centre where the
+  beam is at least half its peak (``MAIN_LOBE_LEVEL``). The half-power
+  contour is what a beam's FWHM describes, so the clean beam reproduces the
+  dirty beam's width where it is defined, whatever the shape of the lobe
+  below it; sidelobes and the skirt of the lobe do not pull the fit. The
+  fit starts from the linear solution of ``ln B = -(a dr^2 + 2 b dr dc +
+  c dc^2)`` (least squares with weights ``B^2``) and is then refined by
+  ``scipy.optimize.least_squares`` on ``B`` itself over ``(a, b, c)``. Both
+  recover a sampled Gaussian exactly.
 * Restored image: the clean components convolved with the clean beam (peak
   1), plus the residual: Jy per clean beam (common practice). The
   convolution uses :class:`rtrace.observe.beam.BeamKernel` times the beam
@@ -30,14 +33,14 @@ import astropy.units as u
 import numba
 import numpy as np
 import radio_beam
-from scipy import ndimage
+from scipy import ndimage, optimize
 
 from ..errors import InputError
 from ..observe.beam import BeamKernel
 
 __all__ = ["hogbom", "fit_clean_beam", "restore", "MAIN_LOBE_LEVEL", "DEFAULT_GAIN"]
 
-MAIN_LOBE_LEVEL = 0.35
+MAIN_LOBE_LEVEL = 0.5
 DEFAULT_GAIN = 0.1
 _FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))   # Gaussian FWHM / sigma (standard identity)
 
@@ -137,7 +140,8 @@ def fit_clean_beam(psf, pixel_scale, level=MAIN_LOBE_LEVEL):
     pixel_scale : `~astropy.units.Quantity`
         Angular size of a pixel.
     level : float
-        Lowest part of the main lobe used, as a fraction of the peak.
+        Lowest part of the main lobe used, as a fraction of the peak
+        (default 0.5: the half-power contour).
 
     Returns
     -------
@@ -153,7 +157,7 @@ def fit_clean_beam(psf, pixel_scale, level=MAIN_LOBE_LEVEL):
     if rows.size < 6:
         raise InputError(f"pixel_scale: the dirty beam's main lobe covers only {rows.size} pixel(s) "
                          f"above {level:g} of its peak; the pixels ({pix:.4g}) are too coarse for the "
-                         f"synthesized beam, trace the image with smaller pixels")
+                         f"synthesized beam, give synthesize() a smaller pixel_scale")
     if rows.min() == 0 or cols.min() == 0 or rows.max() == psf.shape[0] - 1 or cols.max() == psf.shape[1] - 1:
         raise InputError("antennas: the dirty beam's main lobe reaches the edge of the image; the "
                          "(u, v) coverage does not resolve the field (one-dimensional tracks, e.g. an "
@@ -164,6 +168,11 @@ def fit_clean_beam(psf, pixel_scale, level=MAIN_LOBE_LEVEL):
     design = np.stack([dr * dr, 2.0 * dr * dc, dc * dc], axis=1)
     sw = val                                   # sqrt of the weights B^2
     coef, *_ = np.linalg.lstsq(design * sw[:, None], -np.log(val) * sw, rcond=None)
+    # refine: least squares in B itself over the half-power lobe
+    fit = optimize.least_squares(lambda p: np.exp(-(design @ p)) - val, coef, method="lm", xtol=1e-14,
+                                 ftol=1e-14, gtol=1e-14)
+    if fit.success and np.all(np.isfinite(fit.x)):
+        coef = fit.x
     quad = np.array([[coef[0], coef[1]], [coef[1], coef[2]]])
     evals, evecs = np.linalg.eigh(quad)        # ascending: evals[0] belongs to the major axis
     if not evals[0] > 0:

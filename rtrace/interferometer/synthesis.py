@@ -1,11 +1,14 @@
 """``synthesize``: a traced Result observed with an Earth-rotation synthesis array, and its map.
 
-Steps, per frequency: the (u, v, w) tracks of every baseline over the
-hour-angle range (:mod:`.array`); the model in Jy/pixel, optionally
-attenuated by the primary beam of one dish, Fourier-sampled exactly at the
-tracks (:mod:`.sampling`); weighting, dirty image and dirty beam
-(:mod:`.imaging`); Högbom CLEAN, the fitted clean beam and the restored
-image in Jy/beam (:mod:`.clean`).
+First the synthesized image's grid and, unless given, the hour-angle
+sampling are chosen from the array (:mod:`.grid`). Then, per frequency: the
+(u, v, w) tracks of every baseline over the hour-angle range (:mod:`.array`);
+the model in Jy/pixel on its own pixels, optionally attenuated by the
+primary beam of one dish, Fourier-sampled exactly at the tracks
+(:mod:`.sampling`); weighting, dirty image and dirty beam on the
+synthesized grid (:mod:`.imaging`); Högbom CLEAN, the clean beam fitted to
+the dirty beam's half-power lobe and the restored image in Jy/beam
+(:mod:`.clean`).
 
 Largest angular scale: ``theta_LAS ~ 0.6 lambda / B_min`` with ``B_min`` the
 shortest projected baseline over the observation (common practice for the
@@ -31,23 +34,29 @@ from ..observe.skymap import SkyMap
 from ..physics.constants import C
 from ..transfer.background import header_cards, resolve_convention
 from ..transfer.result import Result
-from .array import antenna_positions, hour_angle_samples, source_elevation, uvw_tracks
+from .array import (_hour_angle_rad, antenna_positions, baseline_pairs, enu_to_equatorial, hour_angle_samples,
+                    source_elevation, uvw_tracks)
 from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
+from .grid import AIRY_FWHM_FACTOR, default_hour_angle_step, image_grid
 from .imaging import WEIGHTINGS, dirty_beam, dirty_image, imaging_weights, uniform_cell
 from .sampling import (GAUSSIAN_FWHM_FACTOR, PRIMARY_BEAMS, direction_cosines, predict_visibilities,
                        primary_beam_pattern, w_term_phase)
 
-__all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_HOUR_ANGLE_STEP",
-           "DEFAULT_RELATIVE_THRESHOLD"]
+__all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_RELATIVE_THRESHOLD",
+           "DEFAULT_NITER"]
 
 _JY_CGS = 1.0e-23                # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
 
 # theta_LAS ~ 0.6 lambda / B_min (common practice)
 LAS_FACTOR = 0.6
-# Hour-angle sampling when none is given: 5 minutes of hour angle.
-DEFAULT_HOUR_ANGLE_STEP = (5.0 / 60.0) * u.hourangle
-# CLEAN stops at this fraction of the dirty image's peak when no threshold is given.
+# CLEAN stops at this fraction of the dirty image's peak when no threshold is given: a noiseless
+# model has no noise floor, so the stop is a dynamic range of 1000 (a choice of this module; the
+# residual left, kept in the restored image, then changes a total flux by well under 1 %).
 DEFAULT_RELATIVE_THRESHOLD = 1e-3
+# Most CLEAN components per frequency by default: extended emission imaged with several pixels per
+# beam needs some 10^4 components to reach the threshold above (e.g. a 2 pc HII region at 1 kpc,
+# 20 GHz, on an eight-dish array of 512 m baselines: 17 000).
+DEFAULT_NITER = 100_000
 # The neglected w-term phase at the image corner above which a warning is given (rad):
 # 0.25 rad costs 1 - cos(0.25) ~ 3 % of a source's amplitude there.
 _W_PHASE_WARN = 0.25
@@ -84,8 +93,8 @@ def _threshold_jyb(threshold):
 def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.hourangle, hour_angle_step=None,
                n_hour_angles=None, antenna_unit=None, min_elevation=0 * u.deg, dish_diameter=None,
                primary_beam="gaussian", primary_beam_fwhm_factor=GAUSSIAN_FWHM_FACTOR, weighting="natural",
-               robust=0.0, gain=DEFAULT_GAIN, niter=10000, threshold=None, background=None,
-               subtract_background=None):
+               robust=0.0, gain=DEFAULT_GAIN, niter=DEFAULT_NITER, threshold=None, background=None,
+               subtract_background=None, pixel_scale=None, image_size=None):
     """Observe a traced Result with an Earth-rotation synthesis array and image it.
 
     Parameters
@@ -102,8 +111,11 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         ``(start, stop)`` of the source's hour angle, ``start <= stop``
         (angles such as ``u.hourangle``, or times).
     hour_angle_step : `~astropy.units.Quantity`, optional
-        Sample spacing (default 5 min of hour angle). A time is converted
-        at the sidereal rate.
+        Sample spacing. A time is converted at the sidereal rate. Default:
+        the largest even spacing over the range that keeps the longest
+        baseline's successive samples closer than ``0.8 / field`` in the
+        (u, v) plane, so the track sampling repeats no source inside the
+        image (see :mod:`rtrace.interferometer.grid`).
     n_hour_angles : int, optional
         Number of evenly spaced samples instead of ``hour_angle_step``.
     antenna_unit : str, optional
@@ -129,7 +141,8 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     gain : float
         CLEAN loop gain (default 0.1).
     niter : int
-        Most CLEAN components per frequency (default 10000).
+        Most CLEAN components per frequency (default 100 000; CLEAN
+        normally stops earlier, at ``threshold``).
     threshold : `~astropy.units.Quantity`, optional
         Stop CLEAN at this residual (Jy/beam); default 0.1 % of the dirty
         image's peak at each frequency (a noiseless model has no noise
@@ -143,6 +156,16 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         data only.
     subtract_background : bool
         Deprecated spelling of ``background``.
+    pixel_scale : `~astropy.units.Quantity`, optional
+        Pixel size of the synthesized image. Default: 5 pixels across
+        ``lambda_min / B_max`` (the image grid is the array's, not the
+        model's: the model is Fourier-sampled exactly at every (u, v)).
+    image_size : int, optional
+        Side of the synthesized image in pixels. Default: the model's field,
+        or the primary beam's half-power width at the longest wavelength
+        when ``dish_diameter`` is given and that is smaller; at most 1024
+        pixels (a larger choice is an InputError, raised before any
+        transform). See :mod:`rtrace.interferometer.grid`.
 
     Returns
     -------
@@ -154,7 +177,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     if not isinstance(result, Result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
     convention = resolve_convention(background, subtract_background)
-    pos = antenna_positions(antennas, unit=antenna_unit)
+    pos = antenna_positions(antennas, unit=antenna_unit, unit_option="antenna_unit=")
     lat = _angle(latitude, "latitude", -90.0, 90.0)
     min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
     if weighting not in WEIGHTINGS:
@@ -173,8 +196,29 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         if sep[i, j] < diameter:
             raise InputError(f"dish_diameter: antennas {min(i, j)} and {max(i, j)} stand {sep[i, j]:.4g} m "
                              f"apart on the ground, closer than one dish diameter ({diameter:.4g} m)")
+    nu = result.frequencies.to_value(u.Hz)
+    nfreq = nu.size
+    lam_all = C / nu * 1e-2                                   # metres (C is cgs)
+    pairs0 = baseline_pairs(len(pos))
+    enu = pos[pairs0[:, 1]] - pos[pairs0[:, 0]]
+    pb_per_lambda = None
+    if diameter is not None:
+        pb_per_lambda = (fwhm_factor if primary_beam == "gaussian" else AIRY_FWHM_FACTOR) / diameter
+    mny, mnx = result.shape[1:]
+    model_pix = float(result.pixel_scale.to_value(u.rad))
+    grid = image_grid(max(mny, mnx) * model_pix, float(np.max(np.linalg.norm(enu, axis=1))), lam_all,
+                      pb_per_lambda, pixel_scale, image_size)
     if hour_angle_step is None and n_hour_angles is None:
-        hour_angle_step = DEFAULT_HOUR_ANGLE_STEP
+        xyz0 = enu_to_equatorial(enu, lat)
+        dh_max = default_hour_angle_step(float(np.max(np.hypot(xyz0[:, 0], xyz0[:, 1]))), float(lam_all.min()),
+                                         grid.field_rad)
+        hour_angle_samples(hour_angle_range, n_hour_angles=1)          # validates the range
+        start, stop = _hour_angle_rad(hour_angle_range, "hour_angle_range").reshape(-1)
+        span = float(stop - start)
+        n_hour_angles = 1 if span == 0 else int(math.ceil(span / dh_max * (1.0 + 1e-9))) + 1
+        if n_hour_angles > 100_000:
+            raise InputError(f"hour_angle_step: avoiding aliasing over this range needs {n_hour_angles} "
+                             f"samples; give a smaller image (image_size) or a shorter hour-angle range")
     ha_all = hour_angle_samples(hour_angle_range, hour_angle_step, n_hour_angles)
 
     sky = result.sky_position
@@ -201,11 +245,11 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     proj = np.hypot(uvw_half[:, 0], uvw_half[:, 1])
     b_min, b_max = float(proj.min()), float(proj.max())
 
-    nu = result.frequencies.to_value(u.Hz)
-    nfreq = nu.size
-    ny, nx = result.shape[1:]
-    pix_rad = float(result.pixel_scale.to_value(u.rad))
-    l, m = direction_cosines((ny, nx), pix_rad)
+    ny = nx = grid.size
+    pix_rad = grid.pixel_rad
+    pix_q = grid.pixel_scale
+    l, m = direction_cosines((ny, nx), pix_rad)                  # the synthesized image's pixels
+    ml, mm = direction_cosines((mny, mnx), model_pix)            # the model's pixels
     cell = uniform_cell((ny, nx), pix_rad)
 
     intensity = np.asarray(result.specific_intensity("subtracted").value, float)
@@ -247,14 +291,14 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         model = jy_per_pixel[i]
         if diameter is not None:
             pb_all[i] = primary_beam_pattern(primary_beam, diameter, lam, l, m, fwhm_factor)
-            model = model * pb_all[i]
-        vis = predict_visibilities(model, l, m, uu, vv)
+            model = model * primary_beam_pattern(primary_beam, diameter, lam, ml, mm, fwhm_factor)
+        vis = predict_visibilities(model, ml, mm, uu, vv)
         w_full = imaging_weights(np.concatenate([uu, -uu]), np.concatenate([vv, -vv]), weighting, cell,
                                  robust=robust)
         w_half = w_full[:nhalf]
         dirty = dirty_image(vis, w_half, uu, vv, l, m)
         psf = dirty_beam(w_half, uu, vv, (ny, nx), pix_rad)
-        beam = fit_clean_beam(psf, result.pixel_scale)
+        beam = fit_clean_beam(psf, pix_q)
         t = thr if thr is not None else DEFAULT_RELATIVE_THRESHOLD * float(np.max(np.abs(dirty)))
         comps, resid, n, peak = hogbom(dirty, psf, gain=gain, threshold=t, niter=niter)
         if n >= niter and peak > t:
@@ -265,8 +309,8 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         if minor_pix < 2.0:
             warnings.warn(f"pixel_scale: the clean beam at {f / 1e9:.6g} GHz is {minor_pix:.3g} pixels wide "
                           f"(FWHM, minor axis); fewer than 2 pixels per beam make CLEAN and the beam fit "
-                          f"coarse, trace with smaller pixels", SynthesisWarning, stacklevel=2)
-        restored[i] = restore(comps, resid, beam, result.pixel_scale)
+                          f"coarse, give a smaller pixel_scale", SynthesisWarning, stacklevel=2)
+        restored[i] = restore(comps, resid, beam, pix_q)
         dirty_all[i], resid_all[i], comps_all[i], psf_all[i] = dirty, resid, comps, psf
         vis_all[i] = np.concatenate([vis, np.conj(vis)])
         wt_all[i] = w_full / w_full.sum()
@@ -299,7 +343,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     beam_txt = ("clean beam fitted to the dirty beam: "
                 + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu)))
     provenance = dict(result.provenance, beam=beam_txt, noise="none", interferometer=interferometer_txt,
-                      largest_angular_scale=las_txt)
+                      largest_angular_scale=las_txt, synthesized_grid=grid.how)
 
     uvw_full = np.concatenate([uvw_half, -uvw_half]) * u.m
     return SynthesizedMap(
@@ -310,7 +354,7 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         latitude=(math.degrees(lat) * u.deg), declination=(math.degrees(dec) * u.deg),
         largest_angular_scale=las_q, shortest_baseline=b_min * u.m, longest_baseline=b_max * u.m,
         clean_iterations=n_iter, clean_thresholds=thresholds, weighting=weighting,
-        robust=robust if weighting == "robust" else None)
+        robust=robust if weighting == "robust" else None, pixel_scale=pix_q)
 
 
 class SynthesizedMap(SkyMap):
@@ -363,10 +407,13 @@ class SynthesizedMap(SkyMap):
     def __init__(self, data, beams, result, provenance, *, background="subtracted", dirty_image, dirty_beam,
                  residual, clean_components, primary_beam, uvw, visibilities, weights, hour_angles, baselines,
                  antennas, latitude, declination, largest_angular_scale, shortest_baseline, longest_baseline,
-                 clean_iterations, clean_thresholds, weighting, robust):
+                 clean_iterations, clean_thresholds, weighting, robust, pixel_scale=None):
         nu = result.frequencies.to_value(u.Hz)
+        # the image's own grid (the array's), not the model's; set before SkyMap reads the pixel area
+        self._pixel_scale = result.pixel_scale if pixel_scale is None else u.Quantity(pixel_scale).to(u.arcsec)
         super().__init__(data, data, beams, result, None, provenance, beam=beams[0], beam_scaling=None,
                          reference_frequency=nu[0], seed=None, background=background)
+        self._pix_sr = float(self._pixel_scale.to_value(u.rad)) ** 2
         self._dirty = np.asarray(dirty_image, float)
         self._residual = np.asarray(residual, float)
         self._components = np.asarray(clean_components, float)
@@ -387,6 +434,16 @@ class SynthesizedMap(SkyMap):
         self.clean_thresholds = u.Quantity(clean_thresholds, JY_PER_BEAM)
         self.weighting = weighting
         self.robust = robust
+
+    @property
+    def pixel_scale(self):
+        """Angular size of a pixel of the synthesized image (the array's grid, not the model's)."""
+        return self._pixel_scale
+
+    @property
+    def pixel_size(self):
+        """Pixel size at the source's distance."""
+        return (self._pixel_scale.to_value(u.rad) * self.result.view.distance).to(u.pc)
 
     @property
     def dirty_image(self):

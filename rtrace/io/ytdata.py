@@ -181,8 +181,9 @@ def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, de
     max_level = int(getattr(ds.index, "max_level", 0)) if grids is not None else 0
     if level is not None or grids is None or max_level == 0:
         if grids is None and level is None:
-            raise InputError(f"level: {ds} has no grid hierarchy (octree or particle data); give level= "
-                             "to sample it on yt's covering grid at that refinement level")
+            raise InputError(f"level: {ds} has no grid hierarchy (octree or particle data); give a level "
+                             "(level= in Python, [snapshot].level in a job file) to sample it on yt's covering grid "
+                             "at that refinement level")
         lev = 0 if level is None else int(level)
         if lev < 0:
             raise InputError(f"level: must be >= 0, got {level}")
@@ -197,8 +198,8 @@ def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, de
         return Snapshot(t, ne, ni, width / dims, left, prov)
     if isinstance(ionization, IonizationModel) and not ionization.local:
         raise InputError(f"ionization: {type(ionization).__name__} needs the whole grid at one resolution; "
-                         f"{ds} is a {max_level + 1}-level AMR hierarchy: give level= to sample it on a uniform "
-                         "grid")
+                         f"{ds} is a {max_level + 1}-level AMR hierarchy: give a level (level= in Python, "
+                         "[snapshot].level in a job file) to sample it on a uniform grid")
     return _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_text)
 
 
