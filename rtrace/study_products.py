@@ -93,6 +93,8 @@ def _write_comparison_csv(path, res, sky, once, apertures, name):
              f"{cmp.observation_source}",
              f"# frequency {cmp.frequency.to_value(u.GHz):.8g} GHz; flux densities in Jy of the model convolved "
              f"with the observed beam and of the observation, on the observed grid; ratio = model / observed",
+             f"# background: subtracted from the model (behind the source: {cmp.model_background.label()}): "
+             f"an observed image holds no uniform level",
              *(f"# note: {n}" for n in cmp.notes),
              "aperture,model_jy,observed_jy,residual_jy,ratio,pixels,complete"]
     lines.append(f"common footprint,{cmp.model_flux.to_value(u.Jy):.8g},{cmp.observed_flux.to_value(u.Jy):.8g},"

@@ -113,6 +113,7 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
         expect_deg = math.degrees(299792458.0 / 10e9 / bmax / 5)
         assert abs(hdr["CDELT2"]) == pytest.approx(expect_deg, rel=1e-9)
     # the comparison: the observation is the same model through a known beam, so model / observed = 1
+    assert "# background: subtracted from the model" in (out / "small_comparison.csv").read_text()
     rows = [line.split(",") for line in (out / "small_comparison.csv").read_text().splitlines()
             if not line.startswith("#")]
     assert rows[0][:5] == ["aperture", "model_jy", "observed_jy", "residual_jy", "ratio"]
