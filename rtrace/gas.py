@@ -17,7 +17,7 @@ from .physics.ionization.cells import THERMAL_INPUTS
 from .physics.ionization.grid import ArrayInputs, evaluate_grid
 
 __all__ = ["derive_fields", "check_field", "to_array", "gamma_value", "thermal_input", "thermal_provenance",
-           "THERMAL_UNITS", "DEFAULT_GAMMA"]
+           "check_real", "check_emission_range", "THERMAL_UNITS", "DEFAULT_GAMMA"]
 
 #: Thermal inputs and their units (K; dyn cm^-2; erg g^-1).
 THERMAL_UNITS = {"temperature": u.K, "pressure": u.dyn / u.cm**2, "internal_energy": u.erg / u.g}
@@ -28,6 +28,25 @@ DEFAULT_GAMMA = 5.0 / 3.0
 #: How a user attaches units to each physical field, for the message refusing a plain array.
 _UNIT_EXAMPLES = {"temperature": "u.K", "electron_density": "u.cm**-3", "ion_density": "u.cm**-3",
                   "density": "u.g / u.cm**3", "pressure": "u.dyn / u.cm**2", "internal_energy": "u.erg / u.g"}
+
+
+#: Largest finite float32 (numpy.finfo(numpy.float32).max).
+_FLOAT32_MAX = float(np.finfo(np.float32).max)
+
+
+def check_real(arr, name):
+    """Refuse complex and object arrays (InputError naming ``name``); numeric real arrays pass.
+
+    Casting a complex array to float drops its imaginary part with at most a
+    numpy warning, and an object array may hold anything; neither is a field.
+    """
+    kind = np.asarray(arr).dtype.kind
+    if kind == "c":
+        raise InputError(f"{name}: complex values given (dtype {np.asarray(arr).dtype}); a physical field is "
+                         "real, and casting would silently drop the imaginary parts; pass the real part")
+    if kind not in "fiub":
+        raise InputError(f"{name}: expected a real numeric array, got dtype {np.asarray(arr).dtype} "
+                         f"(convert with numpy.asarray(..., dtype=float))")
 
 
 def to_array(value, unit, name, dtype, equivalencies=None):
@@ -47,10 +66,43 @@ def to_array(value, unit, name, dtype, equivalencies=None):
     if not value.unit.is_equivalent(unit, equivalencies=equivalencies or []):
         raise InputError(f"{name}: expected units of {unit}, got '{value.unit}'")
     value = value.to_value(unit, equivalencies=equivalencies or [])
+    check_real(value, name)
     try:
-        return np.ascontiguousarray(value, dtype=dtype)
+        with np.errstate(over="ignore"):          # values beyond float32 are counted just below
+            arr = np.ascontiguousarray(value, dtype=dtype)
     except (TypeError, ValueError):
         raise InputError(f"{name}: expected a numeric array, got {type(value).__name__}") from None
+    if arr.dtype == np.float32 and arr.size and np.isinf(arr).any():
+        n_big = int(np.count_nonzero(np.isinf(arr) & np.isfinite(value)))
+        if n_big:
+            raise InputError(f"{name}: {n_big} of {arr.size} cells exceed the float32 range ({_FLOAT32_MAX:.3g} "
+                             f"{unit}); build the snapshot with dtype=numpy.float64")
+    return arr
+
+
+def check_emission_range(ne, ni, dtype):
+    """InputError if ``n_e x ion term`` overflows ``dtype`` in any cell (float32: above about 3.4e38 cm^-6).
+
+    Oblique views form that product in the storage dtype; an overflow gives
+    tau = inf without a word, so it is refused before any tracing, with the
+    count of cells, the largest product and the remedy (dtype=float64).
+    """
+    if np.dtype(dtype) != np.float32 or ne.size == 0:
+        return
+    if float(ne.max()) * float(ni.max()) <= _FLOAT32_MAX:
+        return                                    # two reductions settle the common case
+    n_bad, largest = 0, 0.0
+    flat_ne, flat_ni = ne.reshape(-1), ni.reshape(-1)
+    step = 1 << 22
+    for lo in range(0, flat_ne.size, step):       # in pieces: no whole-grid float64 temporary
+        prod = np.multiply(flat_ne[lo:lo + step], flat_ni[lo:lo + step], dtype=np.float64)
+        n_bad += int(np.count_nonzero(prod > _FLOAT32_MAX))
+        largest = max(largest, float(prod.max()))
+    if n_bad:
+        raise InputError(f"electron_density x ion_density: {n_bad} of {ne.size} cells have n_e x ion term above "
+                         f"the float32 range ({largest:.3g} > {_FLOAT32_MAX:.3g} cm^-6; n_e above about "
+                         f"{np.sqrt(_FLOAT32_MAX):.2g} cm^-3), which would give an infinite optical depth; build "
+                         "the snapshot with dtype=numpy.float64")
 
 
 def check_field(name, arr, shape, lower, strict):
@@ -95,7 +147,11 @@ def _grid_shape(arrays):
             ndim = np.ndim(value)
             if ndim != 3:
                 raise InputError(f"{name}: expected a 3D array, got {ndim} dimension(s)")
-            return tuple(np.shape(value))
+            shape = tuple(np.shape(value))
+            if 0 in shape:
+                raise InputError(f"{name}: the grid has no cells (shape {shape}); every axis needs at least "
+                                 "one cell")
+            return shape
     raise InputError("temperature: required (or pressure / internal_energy with density)")
 
 
@@ -130,9 +186,11 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
         ne = to_array(electron_density, u.cm**-3, "electron_density", dtype)
         check_field("electron_density", ne, shape, 0.0, strict=False)
         if ion_density is None:
+            check_emission_range(ne, ne, dtype)
             return t, ne, ne, {"ionization": "supplied n_e; ion term = n_e"}
         ni = to_array(ion_density, u.cm**-3, "ion_density", dtype)
         check_field("ion_density", ni, shape, 0.0, strict=False)
+        check_emission_range(ne, ni, dtype)
         return t, ne, ni, {"ionization": "supplied n_e and ion term"}
 
     if electron_density is not None or ion_density is not None:
@@ -157,7 +215,12 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
         raise InputError("gamma: only used with pressure or internal_energy")
     user_fields = {}
     for name, arr in (fields or {}).items():
-        user_fields[name] = np.asarray(arr)
+        arr = np.asarray(arr)
+        check_real(arr, f"fields[{name!r}]")
+        if arr.ndim and arr.shape != shape:
+            raise InputError(f"fields[{name!r}]: shape {arr.shape} is not the grid shape {shape} "
+                             "(give one value per cell, or a single number for the whole grid)")
+        user_fields[name] = arr
     missing = [n for n in model.field_names() if n not in user_fields]
     if missing:
         raise InputError(f"fields: the ionization model reads {', '.join(repr(n) for n in missing)}, not given "
@@ -166,6 +229,7 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
     model.validate_fields(merged)                 # whole-grid counts, before any evaluation
     grid = ArrayInputs(inputs, merged, shape, cell, origin)
     t, ne, ni, provenance = evaluate_grid(model, grid, dtype)
+    check_emission_range(ne, ni, dtype)
     if thermal != "temperature":
         provenance["temperature"] = thermal_provenance(thermal, inputs["gamma"])
     return t, ne, ni, provenance

@@ -26,7 +26,7 @@ import math
 import astropy.units as u
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, warn_user
 from ..transfer.background import check_convention, describe
 
 __all__ = ["sed", "sed_metadata", "describe_background", "write_sed_csv", "spectral_index", "spectral_index_map",
@@ -696,13 +696,15 @@ def tau_unity_frequency(result):
         frequencies that bracket ``tau = 1``; where several brackets exist the
         highest is used (above it the pixel is thin at every traced
         frequency). NaN where ``tau`` never falls through 1 within the traced
-        range.
+        range; when that is every pixel a PhysicsRangeWarning says whether
+        all is thin or thick over the traced range.
     whole_source : `~astropy.units.Quantity`
         Hz. The frequency where the intensity-weighted mean optical depth
         ``<tau>(nu) = sum(tau w) / sum(w)`` falls through 1, with weights
         ``w = max(I - I_background, 0)`` over all pixels: the optical depth of
         the gas that makes the flux, so ``<tau> = 1`` marks the turnover of
-        the integrated spectrum. Same interpolation; NaN if not bracketed.
+        the integrated spectrum. Same interpolation; NaN if not bracketed
+        (with a PhysicsRangeWarning).
     """
     if not _is_result(result) and hasattr(result, "result"):
         result = result.result
@@ -722,4 +724,34 @@ def tau_unity_frequency(result):
     with np.errstate(divide="ignore", invalid="ignore"):
         mean_tau = np.where(wsum > 0, (tau * weight).sum(axis=(1, 2)) / wsum, np.nan)
     whole = float(_unity_crossing(log_nu, mean_tau[:, None])[0])
+    if np.all(np.isnan(per_pixel)):
+        _warn_no_bracket(nu[order], tau)
+    elif np.isnan(whole):
+        thin = bool(np.all(mean_tau[np.isfinite(mean_tau)] < 1.0)) if np.isfinite(mean_tau).any() else None
+        state = {True: "thin (<tau> < 1) at every traced frequency",
+                 False: "thick or not falling through 1 within the traced frequencies",
+                 None: "without flux (no weight for <tau>)"}[thin]
+        warn_user(f"turnover_frequency: the whole source is {state} ({nu[order][0]:.4g} to {nu[order][-1]:.4g} "
+                  "Hz), so its turnover is NaN; trace a wider frequency range")
     return per_pixel * u.Hz, whole * u.Hz
+
+
+def _warn_no_bracket(nu, tau):
+    """Warn that no pixel's tau falls through 1 between the traced frequencies ``nu`` (ascending)."""
+    flat = tau.reshape(tau.shape[0], -1)
+    n_thin = int(np.count_nonzero(np.all(flat < 1.0, axis=0)))
+    n_thick = int(np.count_nonzero(np.all(flat >= 1.0, axis=0)))
+    n_other = flat.shape[1] - n_thin - n_thick
+    if n_thin == flat.shape[1]:
+        state = (f"everything is optically thin: tau < 1 at every traced frequency in all {n_thin} pixels "
+                 f"(largest tau {float(flat.max()):.3g}); the turnover lies below "
+                 f"{nu[0]:.4g} Hz, so trace lower frequencies")
+    elif n_thick == flat.shape[1]:
+        state = (f"everything is optically thick: tau >= 1 at every traced frequency in all {n_thick} pixels "
+                 f"(smallest tau {float(flat.min()):.3g}); the turnover lies above {nu[-1]:.4g} Hz, so trace "
+                 "higher frequencies")
+    else:
+        state = (f"{n_thin} pixel(s) are thin at every traced frequency, {n_thick} thick at every one, "
+                 f"{n_other} cross 1 only while tau rises with frequency")
+    warn_user(f"turnover_frequency: no traced frequency pair ({nu[0]:.4g} to {nu[-1]:.4g} Hz) brackets tau = 1 "
+              f"in any pixel, so every value is NaN: {state}")

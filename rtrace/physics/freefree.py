@@ -2,7 +2,10 @@
 
 Both coefficients are for a Maxwellian, non-relativistic plasma, valid below
 about 1e9 K (common practice); above that a :class:`PhysicsRangeWarning` is
-issued. ``ion_density`` is the ion term ``sum_i Z_i^2 n_i``; it defaults to
+issued, and outside the Gaunt factor table (1 K to 1e10 K) another one.
+Below the local plasma frequency radiation does not propagate at all;
+:func:`check_plasma_frequency` warns when a traced frequency comes near it.
+``ion_density`` is the ion term ``sum_i Z_i^2 n_i``; it defaults to
 the electron density (pure hydrogen). The Gaunt factor is evaluated for Z = 1.
 """
 
@@ -10,22 +13,117 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import warn_user
-from .constants import ALPHA_FF_PREFACTOR, EMISSIVITY_FF_PREFACTOR, H_OVER_K
-from .gaunt import gaunt_cgs
+import math
+
+from .constants import ALPHA_FF_PREFACTOR, E_CHARGE, EMISSIVITY_FF_PREFACTOR, H_OVER_K, M_E
+from .gaunt import LOG_T_MAX, LOG_T_MIN, gaunt_cgs
 
 __all__ = [
     "absorption_coefficient", "emission_coefficient",
     "absorption_cgs", "emission_cgs", "check_temperature_range", "warn_relativistic",
-    "RELATIVISTIC_TEMPERATURE",
+    "RELATIVISTIC_TEMPERATURE", "GAUNT_TABLE_RANGE", "plasma_frequency_cgs", "check_plasma_frequency",
+    "PLASMA_MARGIN",
 ]
 
 RELATIVISTIC_TEMPERATURE = 1.0e9   # K; common practice for the onset of relativistic corrections
+#: Temperatures (K) covered by the tracer's Gaunt factor tables; outside them the edge value is used.
+GAUNT_TABLE_RANGE = (math.exp(LOG_T_MIN), math.exp(LOG_T_MAX))
+#: A frequency below PLASMA_MARGIN times a cell's plasma frequency is "near" it: there the
+#: refractive index sqrt(1 - (nu_p / nu)^2) is below 0.87 (Rybicki & Lightman 1979, sec. 8.1,
+#: from memory), so straight rays and the vacuum source function are no longer a fair description.
+PLASMA_MARGIN = 2.0
 EMISSIVITY_UNIT = u.erg / (u.s * u.cm**3 * u.Hz * u.sr)
 
 
 def check_temperature_range(temperature_k, what="temperature"):
-    """Warn if any temperature exceeds :data:`RELATIVISTIC_TEMPERATURE`."""
-    warn_relativistic(int(np.count_nonzero(np.asarray(temperature_k) > RELATIVISTIC_TEMPERATURE)), what)
+    """Warn about temperatures above :data:`RELATIVISTIC_TEMPERATURE` and outside :data:`GAUNT_TABLE_RANGE`.
+
+    The tracer's Gaunt factor tables span 1 K to 1e10 K; a cell outside is
+    given the Gaunt factor at the table's edge, so its opacity and emission
+    are approximate (the warning counts the cells and gives the extremes).
+    """
+    t = np.asarray(temperature_k)
+    warn_relativistic(int(np.count_nonzero(t > RELATIVISTIC_TEMPERATURE)), what)
+    lo, hi = GAUNT_TABLE_RANGE
+    n_cold = int(np.count_nonzero(t < lo))
+    n_hot = int(np.count_nonzero(t > hi))
+    if n_cold or n_hot:
+        parts = []
+        if n_cold:
+            parts.append(f"{n_cold} below {lo:.3g} K (lowest {float(t.min()):.3g} K)")
+        if n_hot:
+            parts.append(f"{n_hot} above {hi:.3g} K (highest {float(t.max()):.3g} K)")
+        warn_user(f"{what}: {n_cold + n_hot} of {t.size} cell(s) lie outside the Gaunt factor table "
+                  f"({lo:.3g} K to {hi:.3g} K): {'; '.join(parts)}. The tracer uses the Gaunt factor at the "
+                  "table's edge there, so their optical depth and emission are approximate")
+
+
+def plasma_frequency_cgs(ne):
+    """Electron plasma frequency in Hz for ``ne`` in cm^-3.
+
+    ``nu_p = sqrt(e^2 n_e / (pi m_e))`` (Gaussian units), about
+    ``8.98 kHz sqrt(n_e / cm^-3)`` (Rybicki & Lightman 1979, sec. 8.1, from
+    memory). Below it an electromagnetic wave does not propagate through
+    the plasma.
+    """
+    return np.sqrt(E_CHARGE**2 * np.asarray(ne, float) / (math.pi * M_E))
+
+
+def _density_at_plasma_frequency(nu):
+    """Electron density (cm^-3) whose plasma frequency is ``nu`` Hz."""
+    return math.pi * M_E * nu**2 / E_CHARGE**2
+
+
+def check_plasma_frequency(nu, densities=(), largest=None):
+    """Warn when a traced frequency lies near or below the plasma frequency of some cells.
+
+    Parameters
+    ----------
+    nu : array_like
+        Traced frequencies in Hz.
+    densities : iterable of ndarray
+        Electron density arrays (cm^-3) to count cells in (may be empty).
+    largest : float, optional
+        The highest electron density when the arrays are not at hand (a
+        file-backed snapshot's recorded range); cells are then not counted.
+
+    Returns
+    -------
+    int
+        Cells where the lowest frequency is at or below the local plasma
+        frequency (0 when nothing was counted).
+
+    Notes
+    -----
+    Free-free transfer below the plasma frequency is meaningless: the wave
+    is evanescent there, and near it (within :data:`PLASMA_MARGIN`) the
+    refractive index departs from 1 (Rybicki & Lightman 1979, sec. 8.1, from
+    memory). The warning names the lowest traced frequency, the highest
+    plasma frequency and how many cells are affected.
+    """
+    nu_min = float(np.min(nu))
+    near = _density_at_plasma_frequency(nu_min / PLASMA_MARGIN)
+    below = _density_at_plasma_frequency(nu_min)
+    arrays = [np.asarray(a) for a in densities]
+    top = max([float(a.max()) for a in arrays if a.size] + ([float(largest)] if largest is not None else []),
+              default=0.0)
+    if not top >= near:
+        return 0
+    nu_p = float(plasma_frequency_cgs(top))
+    if arrays:
+        total = sum(a.size for a in arrays)
+        n_near = sum(int(np.count_nonzero(a >= near)) for a in arrays)
+        n_below = sum(int(np.count_nonzero(a >= below)) for a in arrays)
+        where = (f"{n_below} of {total} cells have a plasma frequency at or above it and {n_near} lie within a "
+                 f"factor {PLASMA_MARGIN:g} of it")
+    else:
+        n_below = 0
+        where = "cells of the snapshot (not counted: file-backed) reach it"
+    warn_user(f"frequencies: the lowest traced frequency, {nu_min:.4g} Hz, is near or below the local plasma "
+              f"frequency nu_p = 8.98 kHz sqrt(n_e / cm^-3): {where} (highest nu_p {nu_p:.4g} Hz, where n_e = "
+              f"{top:.4g} cm^-3). Radiation below nu_p does not propagate and near it is refracted; the "
+              "free-free transfer traced there is not meaningful")
+    return n_below
 
 
 def warn_relativistic(n_hot, what="temperature"):

@@ -34,12 +34,14 @@ here in sequence or by :mod:`rtrace.parallel` as a tree of dask tasks.
 
 import copy
 import math
+import numbers
 
 import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
+from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
 from . import bricks as _bricks
 from . import kernels
@@ -105,7 +107,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     supersample : int, optional
         Rays per smallest cell width for oblique views (default 1: rays are
         never farther apart than a cell). Axis-aligned views are exact and
-        ignore it.
+        ignore it. Must be an int (2.5 is refused, not truncated).
     brick_size : int, optional
         Trace the grid in cubic bricks of this many cells per side, each on
         its own sub-array, composited front to back (same result to rounding).
@@ -133,6 +135,13 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     -------
     `~rtrace.Result`
 
+    Warns
+    -----
+    PhysicsRangeWarning
+        The lowest frequency is near (within a factor 2) or below the
+        plasma frequency of some cells (the count and the highest plasma
+        frequency are given); free-free transfer is not meaningful there.
+
     Raises
     ------
     InputError
@@ -149,8 +158,11 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     """
     nu = _frequencies(frequencies)
     bg, bg_info = background_from_spec(background, nu)
-    if int(supersample) < 1:
-        raise InputError(f"supersample: must be a positive integer, got {supersample}")
+    if isinstance(supersample, (bool, np.bool_)) or not isinstance(supersample, numbers.Integral) \
+            or supersample < 1:
+        raise InputError(f"supersample: must be a positive int (rays per cell), got {supersample!r}")
+    supersample = int(supersample)
+    _check_plasma_frequency(snapshot, nu)
     edge = None if brick_size is None else _bricks.check_brick_size(brick_size)
     budget = None if max_memory is None else _bricks.parse_memory(max_memory)
     if client is not None and not (hasattr(client, "submit") and hasattr(client, "scatter")):
@@ -199,6 +211,18 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     res._snapshot = snapshot
     res._trace_options = dict(supersample=supersample, brick_size=brick_size, max_memory=max_memory)
     return res
+
+
+def _check_plasma_frequency(snapshot, nu):
+    """Warn if the lowest frequency is near or below the plasma frequency of some cells (reads no file)."""
+    if getattr(snapshot, "is_amr", False):
+        check_plasma_frequency(nu, [g.ne for g in snapshot.grids])
+    elif getattr(snapshot, "in_memory", True):
+        check_plasma_frequency(nu, [snapshot._ne])
+    else:
+        ranges = getattr(snapshot, "_ranges", {}).get("electron_density")
+        if ranges is not None:
+            check_plasma_frequency(nu, largest=ranges[1])
 
 
 # -- bricked tracing ----------------------------------------------------------------------------

@@ -9,6 +9,8 @@ FITS header has ``CDELT1 < 0``. Images have shape ``(nfreq, ny, nx)``;
 ``width`` is the extent along the column axis; pixels are square.
 """
 
+import numbers
+
 import numpy as np
 import astropy.units as u
 from astropy.coordinates import SkyCoord
@@ -26,6 +28,20 @@ def _unit_vector(value, name):
     if norm == 0:
         raise InputError(f"{name}: the zero vector has no direction")
     return vec / norm
+
+
+def _image_size(npix):
+    """``(ny, nx)`` from an int or a pair of ints; floats (2.7 would be truncated) and bools are refused."""
+    values = [npix] if np.ndim(npix) == 0 else list(np.asarray(npix, dtype=object).reshape(-1))
+    if np.ndim(npix) > 1 or len(values) != (1 if np.ndim(npix) == 0 else 2):
+        raise InputError(f"npix: expected an int or a pair (ny, nx) of ints, got {npix!r}")
+    for v in values:
+        if isinstance(v, (bool, np.bool_)) or not isinstance(v, numbers.Integral):
+            raise InputError(f"npix: expected whole numbers of pixels (int), got {v!r} in {npix!r}")
+        if v < 1:
+            raise InputError(f"npix: image size must be positive, got {npix!r}")
+    ny, nx = (int(values[0]),) * 2 if len(values) == 1 else (int(values[0]), int(values[1]))
+    return ny, nx
 
 
 class View:
@@ -49,6 +65,15 @@ class View:
         Point of the snapshot on the image centre; defaults to the snapshot's centre.
     sky_position : `~astropy.coordinates.SkyCoord`, optional
         Sky coordinates of the image centre (used for WCS).
+
+    Raises
+    ------
+    InputError
+        Before any tracing: directions that are not three finite numbers,
+        ``npix`` that is not a positive int or pair of ints (floats such as
+        2.7 and bools are refused, not truncated), a ``width`` or
+        ``distance`` that is not one finite positive length, a ``center``
+        with NaN or inf coordinates.
     """
 
     def __init__(self, los=(0, 0, 1), north=(0, 1, 0), npix=256, width=None, distance=1 * u.kpc,
@@ -60,23 +85,23 @@ class View:
             raise InputError("north: parallel to los, so the image orientation is undefined")
         self.north = perp / np.linalg.norm(perp)
         self.west = np.cross(self.north, self.los)        # column axis: north x los
-        if np.ndim(npix) == 0:
-            ny = nx = int(npix)
-        else:
-            ny, nx = (int(v) for v in npix)
-        if nx < 1 or ny < 1:
-            raise InputError(f"npix: image size must be positive, got {npix!r}")
-        self.shape = (ny, nx)
+        self.shape = _image_size(npix)
         self.width = None if width is None else self._length(width, "width")
-        if self.width is not None and not self.width.to_value(u.cm) > 0:
-            raise InputError(f"width: must be positive, got {width}")
+        if self.width is not None and not (self.width.ndim == 0 and np.isfinite(self.width.to_value(u.cm))
+                                           and self.width.to_value(u.cm) > 0):
+            raise InputError(f"width: must be one finite positive length, got {width}")
         self.distance = self._length(distance, "distance")
-        if not self.distance.to_value(u.cm) > 0:
-            raise InputError(f"distance: must be positive, got {distance}")
+        if not (self.distance.ndim == 0 and np.isfinite(self.distance.to_value(u.cm))
+                and self.distance.to_value(u.cm) > 0):
+            raise InputError(f"distance: must be one finite positive length, got {distance}")
         if center is not None:
             center = self._length(center, "center")
             if center.shape != (3,):
                 raise InputError(f"center: expected a 3-vector of lengths, got shape {center.shape}")
+            n_bad = int(np.count_nonzero(~np.isfinite(center.value)))
+            if n_bad:
+                raise InputError(f"center: {n_bad} of 3 coordinates are not finite (NaN or inf), got {center}; "
+                                 "a non-finite centre puts every ray off the grid")
         self.center = center
         if sky_position is not None and not isinstance(sky_position, SkyCoord):
             raise InputError("sky_position: expected an astropy SkyCoord")
@@ -84,7 +109,13 @@ class View:
 
     @staticmethod
     def _length(value, name):
-        q = u.Quantity(value)
+        try:
+            q = u.Quantity(value)
+        except (TypeError, ValueError):
+            raise InputError(f"{name}: expected a length (an astropy Quantity such as 3 * u.pc), "
+                             f"got {value!r}") from None
+        if not np.isrealobj(q.value) or q.dtype.kind not in "fiu":
+            raise InputError(f"{name}: expected real numbers, got dtype {q.dtype}")
         if not q.unit.is_equivalent(u.cm):
             raise InputError(f"{name}: expected a length, got unit '{q.unit}'")
         return q.to(u.cm)

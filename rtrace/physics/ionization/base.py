@@ -48,14 +48,15 @@ class IonizationModel(abc.ABC):
         return {}
 
     def with_fields(self, fields, shape):
-        """``fields`` plus the model's own per-cell arrays broadcast to ``shape``."""
+        """``fields`` plus the model's own per-cell arrays (grid-shaped, or a scalar spread over ``shape``)."""
         merged = dict(fields or {})
         for key, arr in self.cell_arrays().items():
-            try:
-                merged[key] = np.broadcast_to(arr, shape)
-            except ValueError:
-                raise InputError(f"{key.strip('<>')}: shape {np.shape(arr)} does not broadcast to the grid "
-                                 f"shape {shape}") from None
+            # one number for the whole grid, or one value per cell: an (n,) or (n, n) array
+            # would broadcast along the missing axes without a word
+            if np.ndim(arr) and tuple(np.shape(arr)) != tuple(shape):
+                raise InputError(f"{key.strip('<>')}: shape {np.shape(arr)} is not the grid shape {tuple(shape)} "
+                                 "(give one value per cell, or a single number for the whole grid)")
+            merged[key] = np.broadcast_to(arr, shape)
         return merged
 
     def validate_fields(self, fields):

@@ -10,6 +10,8 @@ practice to neglect them).
 from dataclasses import dataclass
 
 import astropy.constants as const
+import difflib
+
 import astropy.units as u
 import numpy as np
 
@@ -62,6 +64,9 @@ def as_float_array(value, unit, name, equivalencies=None):
             value = value.to_value(unit, equivalencies=equivalencies or [])
         except u.UnitConversionError:
             raise InputError(f"{name}: cannot convert {value.unit} to {unit}") from None
+    if np.iscomplexobj(value):
+        raise InputError(f"{name}: complex values given; a physical quantity is real, and casting would "
+                         "silently drop the imaginary parts; pass the real part")
     try:
         return np.asarray(value, dtype=np.float64)
     except (TypeError, ValueError):
@@ -80,7 +85,9 @@ def check_finite_nonnegative(arr, name, unit_text):
 def check_choice(value, allowed, name, model):
     """``value`` if it is one of ``allowed`` (strings), else an InputError listing them."""
     if not isinstance(value, str) or value not in allowed:
-        raise InputError(f"{name}: {value!r} is not valid for {model}; choose one of {', '.join(allowed)}")
+        close = difflib.get_close_matches(value, allowed, n=1) if isinstance(value, str) else []
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        raise InputError(f"{name}: {value!r} is not valid for {model}; choose one of {', '.join(allowed)}{hint}")
     return value
 
 

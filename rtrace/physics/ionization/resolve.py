@@ -1,5 +1,6 @@
 """Turn a user's ionization choice (a model, a name or a fraction array) into a model."""
 
+import difflib
 import numbers
 
 import astropy.units as u
@@ -72,7 +73,9 @@ def resolve_ionization(spec, composition: Composition | None = None,
         if name == "sources":
             raise InputError("ionization: 'sources' needs the stars' positions and ionizing photon rates; pass "
                              "rtrace.physics.ionization.IonizingSources(positions=..., rates=...) instead")
-        raise InputError(f"ionization: unknown model {spec!r}; valid names: {', '.join(MODEL_NAMES)} "
+        close = difflib.get_close_matches(name, MODEL_NAMES + ("sources",), n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise InputError(f"ionization: unknown model {spec!r}; {hint}valid names: {', '.join(MODEL_NAMES)} "
                          "(or an ionized-fraction array, or a model instance such as IonizingSources)")
     if isinstance(spec, (np.ndarray, u.Quantity)) or (
             isinstance(spec, numbers.Real) and not isinstance(spec, bool)):

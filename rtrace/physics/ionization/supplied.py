@@ -48,7 +48,8 @@ class SuppliedFraction(IonizationModel):
     ----------
     fraction : numpy.ndarray, astropy.units.Quantity, float or str
         Hydrogen ionized fraction ``x = n_HII / n_H`` (dimensionless,
-        finite, in [0, 1]); must broadcast against the grid. A string names
+        finite, in [0, 1]); one number for the whole grid or an array of
+        the grid's shape (other shapes are refused, not broadcast). A string names
         a snapshot field, validated when it is read.
     composition : Composition, optional
         H/He mass fractions; default X=0.70, Y=0.28.
@@ -126,11 +127,10 @@ class SuppliedFraction(IonizationModel):
         if key not in fields:
             raise InputError(f"fields: {name} field {key!r} not found; available: {sorted(fields)}")
         arr = fields[key] if key.startswith("<") else validated_fraction(fields[key], label)
-        try:
-            return np.broadcast_to(arr, shape)
-        except ValueError:
-            raise InputError(f"{label}: shape {np.shape(arr)} does not broadcast to the grid shape {shape}") \
-                from None
+        if np.ndim(arr) and tuple(np.shape(arr)) != tuple(shape):
+            raise InputError(f"{label}: shape {np.shape(arr)} is not the grid shape {tuple(shape)} "
+                             "(give one value per cell, or a single number for the whole grid)")
+        return np.broadcast_to(arr, shape)
 
     def _label(self, name):
         key = self._sources[name]
