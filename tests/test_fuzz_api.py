@@ -17,7 +17,8 @@ from hypothesis import strategies as st
 import rtrace
 from rtrace import Snapshot, View, trace
 from rtrace.errors import InputError, RtraceError
-from rtrace.physics.ionization import SuppliedFraction
+from rtrace.physics import absorption_coefficient, emission_coefficient
+from rtrace.physics.ionization import IonizingSources, SuppliedFraction
 from rtrace.transfer import tracer
 
 N = 4
@@ -150,6 +151,24 @@ CASES = [
     ("ionization-bool", gas(ionization=True), InputError, "ionization"),
     ("dtype-half", from_arrays(dtype=np.float16), InputError, "dtype"),
     ("cell-size-nan", from_arrays(cell_size=np.nan * u.pc), InputError, "cell_size"),
+    # -- models and coefficients called directly -----------------------------------------
+    ("sources-complex-rates", lambda: IonizingSources(positions=[[0, 0, 0]] * u.pc, rates=[1e49 + 1j] / u.s),
+     InputError, "rates: complex"),
+    ("sources-complex-positions", lambda: IonizingSources(positions=[[1j, 0, 0]] * u.pc, rates=[1e49] / u.s),
+     InputError, "positions: complex"),
+    ("fraction-text", lambda: SuppliedFraction(np.array(["a"], dtype=object)), InputError, "fraction"),
+    ("alpha-negative-temperature", lambda: absorption_coefficient(1 * u.GHz, [-5, 10] * u.K, 1 * u.cm**-3),
+     InputError, "temperature: 1 of 2 value(s)"),
+    ("alpha-zero-frequency", lambda: absorption_coefficient(0 * u.GHz, 1e4 * u.K, 1 * u.cm**-3), InputError,
+     "frequency"),
+    ("alpha-nan-density", lambda: absorption_coefficient(1 * u.GHz, 1e4 * u.K, np.nan * u.cm**-3), InputError,
+     "electron_density"),
+    ("j-negative-ion-term", lambda: emission_coefficient(1 * u.GHz, 1e4 * u.K, 1 * u.cm**-3, -1 * u.cm**-3),
+     InputError, "ion_density"),
+    ("j-complex-temperature", lambda: emission_coefficient(1 * u.GHz, (1e4 + 1j) * u.K, 1 * u.cm**-3), InputError,
+     "temperature: complex"),
+    ("alpha-temperature-unit", lambda: absorption_coefficient(1 * u.GHz, 1e4 * u.s, 1 * u.cm**-3), InputError,
+     "temperature"),
 ]
 
 # The product n_e x ion term is known only once the model has ionized the gas (1e-3 g cm^-3 of
@@ -216,8 +235,9 @@ def test_npix_only_takes_positive_ints(value):
 
 
 @settings(max_examples=40, deadline=None)
-@given(coords=st.lists(st.floats(allow_nan=True, allow_infinity=True, width=64), min_size=3, max_size=3)
-       .filter(lambda c: not all(np.isfinite(c))))
+@given(coords=st.tuples(st.lists(st.floats(allow_nan=True, allow_infinity=True), min_size=3, max_size=3),
+                        st.integers(0, 2), st.sampled_from([np.nan, np.inf, -np.inf]))
+       .map(lambda c: c[0][:c[1]] + [c[2]] + c[0][c[1] + 1:]))          # at least one coordinate not finite
 def test_a_centre_with_any_non_finite_coordinate_is_refused(coords):
     n_bad = int(np.count_nonzero(~np.isfinite(coords)))
     with pytest.raises(InputError, match=f"center: {n_bad} of 3 coordinates are not finite"):

@@ -136,3 +136,13 @@ def test_a_bracketed_turnover_does_not_warn_and_agrees_with_the_published_approx
     expected = (mezger_henderson_tau(1.0, 1.0e4, em)) ** (1 / 2.1) * 1e9
     assert whole.to_value(u.Hz) == pytest.approx(expected, rel=0.03)
     assert np.nanmax(per_pixel.to_value(u.Hz)) == pytest.approx(expected, rel=0.03)
+
+
+def test_a_whole_source_without_a_bracket_warns_even_when_some_pixels_have_one():
+    ne = np.full(SHAPE, 3.0e3)           # tau(1 GHz) ~ 1.2, tau(1.5 GHz) ~ 0.5 (Mezger & Henderson): bracketed
+    ne[:2] = 1.0e5                       # half the pixels thick at both frequencies, and the brightest
+    result = trace(snapshot(ne), View(npix=4), [1.0, 1.5] * u.GHz)
+    with pytest.warns(PhysicsRangeWarning, match="the whole source is thick") as record:
+        per_pixel, whole = result.turnover_frequency()
+    assert np.isnan(whole) and np.isfinite(per_pixel).any()
+    assert not any("no traced frequency pair" in m for m in range_warnings(record))

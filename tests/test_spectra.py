@@ -13,7 +13,7 @@ import rtrace
 from rtrace import demo
 from rtrace.analysis import (aperture_mask, sed, sed_metadata, spectral_index, spectral_index_map,
                              tau_unity_frequency, write_sed_csv)
-from rtrace.errors import InputError
+from rtrace.errors import InputError, PhysicsRangeWarning
 from rtrace.physics import absorption_coefficient, planck
 
 from conftest import uniform_snapshot
@@ -271,10 +271,12 @@ def test_tau_unity_frequency_per_column_and_weighted_whole():
 
 def test_tau_unity_is_nan_when_never_bracketed():
     thin = trace_slab([20, 30, 40] * u.GHz)
-    per_pixel, whole = tau_unity_frequency(thin)
+    with pytest.warns(PhysicsRangeWarning, match="everything is optically thin"):
+        per_pixel, whole = tau_unity_frequency(thin)
     assert np.all(np.isnan(per_pixel.value)) and np.isnan(whole.value)
     thick = trace_slab([0.01, 0.02] * u.GHz)
-    per_pixel, whole = tau_unity_frequency(thick)
+    with pytest.warns(PhysicsRangeWarning, match="everything is optically thick"):
+        per_pixel, whole = tau_unity_frequency(thick)
     assert np.all(np.isnan(per_pixel.value)) and np.isnan(whole.value)
     with pytest.raises(InputError, match="two frequencies"):
         tau_unity_frequency(trace_slab([1] * u.GHz))

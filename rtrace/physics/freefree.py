@@ -12,7 +12,7 @@ the electron density (pure hydrogen). The Gaunt factor is evaluated for Z = 1.
 import astropy.units as u
 import numpy as np
 
-from ..errors import warn_user
+from ..errors import InputError, warn_user
 import math
 
 from .constants import ALPHA_FF_PREFACTOR, E_CHARGE, EMISSIVITY_FF_PREFACTOR, H_OVER_K, M_E
@@ -158,12 +158,28 @@ def emission_cgs(nu, temperature, ne, ni):
             / np.sqrt(t) * np.exp(-x) * gaunt_cgs(nu, t))
 
 
+def _checked(value, unit, name, positive, equivalencies=None):
+    """``value`` in ``unit`` as a real float array; InputError naming ``name`` and counting bad entries."""
+    q = u.Quantity(value)
+    if not q.unit.is_equivalent(unit, equivalencies=equivalencies or []):
+        raise InputError(f"{name}: expected units of {unit}, got '{q.unit}'")
+    if np.iscomplexobj(q.value):
+        raise InputError(f"{name}: complex values given; expected real numbers")
+    arr = np.asarray(q.to_value(unit, equivalencies=equivalencies or []), float)
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isfinite(arr) | ((arr <= 0) if positive else (arr < 0))
+    n_bad = int(np.count_nonzero(bad))
+    if n_bad:
+        raise InputError(f"{name}: {n_bad} of {arr.size} value(s) are not finite or {'<= 0' if positive else '< 0'}")
+    return arr
+
+
 def _inputs(frequency, temperature, electron_density, ion_density):
-    nu = u.Quantity(frequency).to_value(u.Hz, equivalencies=u.spectral())
-    t = u.Quantity(temperature).to_value(u.K, equivalencies=u.temperature())
-    ne = u.Quantity(electron_density).to_value(u.cm**-3)
-    ni = ne if ion_density is None else u.Quantity(ion_density).to_value(u.cm**-3)
-    check_temperature_range(t)
+    nu = _checked(frequency, u.Hz, "frequency", True, u.spectral())
+    t = _checked(temperature, u.K, "temperature", True, u.temperature())
+    ne = _checked(electron_density, u.cm**-3, "electron_density", False)
+    ni = ne if ion_density is None else _checked(ion_density, u.cm**-3, "ion_density", False)
+    warn_relativistic(int(np.count_nonzero(t > RELATIVISTIC_TEMPERATURE)))   # no table here: no table warning
     return nu, t, ne, ni
 
 

@@ -71,6 +71,9 @@ def _as_quantity(value, unit, name, what, shape_text):
                          f"{type(value).__name__}")
     if not value.unit.is_equivalent(unit):
         raise InputError(f"{name}: expected {what}, got unit '{value.unit}'")
+    if np.iscomplexobj(value):
+        raise InputError(f"{name}: complex values given; expected real {what} (casting would silently drop "
+                         "the imaginary parts)")
     return np.asarray(value.to_value(unit), np.float64)
 
 
