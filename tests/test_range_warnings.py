@@ -146,3 +146,19 @@ def test_a_whole_source_without_a_bracket_warns_even_when_some_pixels_have_one()
         per_pixel, whole = result.turnover_frequency()
     assert np.isnan(whole) and np.isfinite(per_pixel).any()
     assert not any("no traced frequency pair" in m for m in range_warnings(record))
+
+
+def test_a_file_backed_snapshot_warns_from_its_recorded_range_without_reading(tmp_path):
+    import h5py
+    from rtrace import open_hdf5
+    path = tmp_path / "dense.h5"
+    with h5py.File(path, "w") as f:
+        f.attrs["cell_size"] = 0.1
+        f.attrs["length_unit"] = "pc"
+        f.create_dataset("T", data=np.full(SHAPE, 1.0e4)).attrs["units"] = "K"
+        f.create_dataset("ne", data=np.full(SHAPE, 1.0e4)).attrs["units"] = "cm**-3"
+    snap = open_hdf5(path, temperature="T", electron_density="ne")
+    with pytest.warns(PhysicsRangeWarning, match="not counted: file-backed") as record:
+        trace(snap, View(npix=4), 0.5 * u.MHz)         # nu_p = 0.898 MHz (NRL Plasma Formulary, as above)
+    nu_p = float(re.search(r"highest nu_p ([0-9.e+]+) Hz", " ".join(range_warnings(record))).group(1))
+    assert nu_p == pytest.approx(8.98e3 * np.sqrt(1.0e4), rel=1e-3)

@@ -218,7 +218,8 @@ def _check_plasma_frequency(snapshot, nu):
     if getattr(snapshot, "is_amr", False):
         check_plasma_frequency(nu, [g.ne for g in snapshot.grids])
     elif getattr(snapshot, "in_memory", True):
-        check_plasma_frequency(nu, [snapshot._ne])
+        if isinstance(getattr(snapshot, "_ne", None), np.ndarray):
+            check_plasma_frequency(nu, [snapshot._ne])
     else:
         ranges = getattr(snapshot, "_ranges", {}).get("electron_density")
         if ranges is not None:
