@@ -110,8 +110,8 @@ CASES = [
     ("frequency-negative", traced(frequencies=-1 * u.GHz), InputError, "frequencies"),
     ("frequency-unit", traced(frequencies=1 * u.K), InputError, "frequencies"),
     # -- snapshot arrays: real, non-empty, grid-shaped, within the storage type -----------
-    ("empty-grid", from_arrays(temperature=np.ones((0, 8, 8)) * u.K,
-                               electron_density=np.ones((0, 8, 8)) * u.cm**-3), InputError, "temperature: the grid has no cells"),
+    ("empty-grid", from_arrays(temperature=np.ones((0, 8, 8)) * u.K, electron_density=np.ones((0, 8, 8)) * u.cm**-3),
+     InputError, "temperature: the grid has no cells"),
     ("empty-grid-gas", gas(temperature=np.ones((8, 0, 8)) * u.K, density=np.ones((8, 0, 8)) * u.g / u.cm**3),
      InputError, "no cells"),
     ("complex-temperature", from_arrays(temperature=cube(1e4 + 1j, complex) * u.K), InputError,

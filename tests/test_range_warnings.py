@@ -150,6 +150,7 @@ def test_a_whole_source_without_a_bracket_warns_even_when_some_pixels_have_one()
 
 def test_a_file_backed_snapshot_warns_from_its_recorded_range_without_reading(tmp_path):
     import h5py
+
     from rtrace import open_hdf5
     path = tmp_path / "dense.h5"
     with h5py.File(path, "w") as f:

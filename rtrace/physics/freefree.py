@@ -9,12 +9,12 @@ Below the local plasma frequency radiation does not propagate at all;
 the electron density (pure hydrogen). The Gaunt factor is evaluated for Z = 1.
 """
 
+import math
+
 import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, warn_user
-import math
-
 from .constants import ALPHA_FF_PREFACTOR, E_CHARGE, EMISSIVITY_FF_PREFACTOR, H_OVER_K, M_E
 from .gaunt import LOG_T_MAX, LOG_T_MIN, gaunt_cgs
 

@@ -7,11 +7,10 @@ ions nor particles. For solar-like abundances metals would add of order
 practice to neglect them).
 """
 
+import difflib
 from dataclasses import dataclass
 
 import astropy.constants as const
-import difflib
-
 import astropy.units as u
 import numpy as np
 
