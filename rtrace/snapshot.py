@@ -171,12 +171,18 @@ class Snapshot(GridGeometry):
         InputError
             A missing, surplus or invalid field (the message names it, the
             problem and the number of bad cells), sources outside the grid;
-            all found before the ionization is computed.
+            a grid with no cells; complex or object arrays; ionized
+            fractions or ``fields`` whose shape is not the grid's (a single
+            number is accepted); all found before the ionization is
+            computed. With float32 storage, values or a product
+            ``n_e x ion term`` beyond the float32 range (the message asks
+            for ``dtype=numpy.float64``).
 
         Warns
         -----
         PhysicsRangeWarning
-            Temperatures above 1e9 K; a model used outside its validity
+            Temperatures above 1e9 K, or outside the tracer's Gaunt factor
+            table (1 K to 1e10 K); a model used outside its validity
             (Saha at interstellar densities, photoionized gas left cold).
         """
         dtype = np.dtype(dtype)
