@@ -17,6 +17,7 @@ run from north through east, so a 45 deg beam points up and to the left.
 import dataclasses
 import math
 import os
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -30,7 +31,7 @@ from matplotlib.patches import Ellipse
 from .analysis.spectra import (DEFAULT_SNR_THRESHOLD, THIN_SPECTRAL_INDEX, _is_result, _is_skymap,
                                _spectrum_arrays, frequency_index, pixel_flux, spectral_index,
                                spectral_index_map, tau_unity_frequency)
-from .errors import InputError, warn_user
+from .errors import InputError, PhysicsRangeWarning, warn_user
 from .quantities import finite_number
 
 __all__ = ["plot_map", "plot_panels", "plot_sed", "plot_tau_unity", "QUANTITIES", "STRETCHES", "nice_length",
@@ -1136,7 +1137,10 @@ def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=
     nu = u.Quantity(result.frequencies).to_value(u.Hz, equivalencies=u.spectral())
     if nu.size < 2:
         raise InputError("obj: the tau = 1 frequency needs at least two traced frequencies")
-    per_pixel, whole = tau_unity_frequency(result)
+    with warnings.catch_warnings():
+        # the picture names lines of sight thin or thick over the whole traced range in its legend
+        warnings.simplefilter("ignore", PhysicsRangeWarning)
+        per_pixel, whole = tau_unity_frequency(result)
     ghz = per_pixel.to_value(u.GHz)
     tau = np.asarray(result.tau, float)
     order = np.argsort(nu)
