@@ -21,6 +21,8 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from .errors import ConfigError
+from .job_checks import (check_beam, check_frequencies, check_noise, check_output, check_snapshot, check_trace,
+                         check_view, decode_job_text)
 from .physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
@@ -224,8 +226,7 @@ def _frequencies(spec):
         else:
             nu = start + k * ((stop - start) / (num - 1))
         nu = nu * u.Hz
-    if np.any(nu <= 0):
-        raise ConfigError("[frequencies]: frequencies must be positive")
+    check_frequencies(nu, "[frequencies].values" if "values" in spec else "[frequencies]")
     return nu.to(u.Hz)
 
 
@@ -450,6 +451,9 @@ def _sources(entries):
             if key not in entry:
                 raise ConfigError(f"{where}: '{key}' is required")
         spec = {k: _typed(v, SCHEMA["source"][k], f"{where}.{k}") for k, v in entry.items()}
+        bad = int(np.sum(~np.isfinite(spec["position"].value)))
+        if bad:
+            raise ConfigError(f"{where}.position: {bad} of 3 coordinates are not finite ({entry['position']})")
         rate = spec["rate"].to_value(u.s**-1)
         if not (np.isfinite(rate) and rate >= 0):
             raise ConfigError(f"{where}.rate: must be finite and >= 0, got '{entry['rate']}'")
@@ -489,6 +493,13 @@ def _ionization(raw, snap, kind):
     for key in ("threshold", "ionized_temperature"):
         if key in ion and not ion[key].to_value(u.K) > 0:
             raise ConfigError(f"[ionization].{key}: must be a positive temperature, got '{ion[key]}'")
+    for key in ("hydrogen_mass_fraction", "helium_mass_fraction"):
+        if key in ion and not 0 <= ion[key] <= 1:
+            raise ConfigError(f"[ionization].{key}: a mass fraction lies in [0, 1], got {ion[key]}")
+    if ion.get("hydrogen_mass_fraction", 0.70) + ion.get("helium_mass_fraction", 0.28) > 1:
+        raise ConfigError(f"[ionization].helium_mass_fraction: hydrogen_mass_fraction + helium_mass_fraction = "
+                          f"{ion.get('hydrogen_mass_fraction', 0.70) + ion.get('helium_mass_fraction', 0.28):.6g} "
+                          f"exceeds 1 (the defaults are 0.70 and 0.28)")
     if "rays_per_cell" in ion and not 4 <= ion["rays_per_cell"] <= 64:
         raise ConfigError(f"[ionization].rays_per_cell: expected a number from 4 to 64, got {ion['rays_per_cell']}")
     return ion
@@ -497,10 +508,16 @@ def _ionization(raw, snap, kind):
 def parse_job(raw, base_dir="."):
     """Validate a job given as a dict (the parsed TOML). Raises ConfigError on the first problem."""
     base_dir = Path(base_dir)
+    if not isinstance(raw, dict):
+        raise ConfigError(f"job: expected a table of tables, got {type(raw).__name__}")
     unknown = set(raw) - _TOP
     for key in sorted(unknown):
         raise ConfigError(f"job: unknown table '[{key}]'{_suggest(key, _TOP)}; allowed: {', '.join(sorted(_TOP))}")
+    if "snapshot" not in raw:
+        raise ConfigError("job: the [snapshot] table is required (kind = 'hdf5' or 'yt' with a path, or "
+                          "kind = 'demo' for the built-in scenario)")
     snap = _section(raw, "snapshot")
+    check_snapshot(snap, raw["snapshot"])
     kind = snap.get("kind", "demo")
     if kind not in ("demo", "hdf5", "yt"):
         raise ConfigError(f"[snapshot].kind: '{kind}' is not 'demo', 'hdf5' or 'yt'")
@@ -520,6 +537,7 @@ def parse_job(raw, base_dir="."):
         raise ConfigError("job: the [frequencies] table is required")
     nu = _frequencies(_section(raw, "frequencies"))
     trace = _section(raw, "trace")
+    check_trace(trace)
     views_raw = raw.get("view", [])
     if isinstance(views_raw, dict):
         views_raw = [views_raw]
@@ -533,6 +551,7 @@ def parse_job(raw, base_dir="."):
             raise ConfigError(f"{where}: expected a table")
         _check_keys(v, SCHEMA["view"], where)
         spec = {k: _typed(val, SCHEMA["view"][k], f"{where}.{k}") for k, val in v.items()}
+        check_view(spec, v, where)
         spec.setdefault("name", f"view{i + 1}")
         if spec["name"] in names:
             raise ConfigError(f"{where}.name: '{spec['name']}' is used by another view")
@@ -549,11 +568,14 @@ def parse_job(raw, base_dir="."):
             raise ConfigError(f"[beam].scaling: '{beam['scaling']}' is not 'none' or 'inverse-frequency'")
         if "reference_frequency" in beam and beam.get("scaling", "none") == "none":
             raise ConfigError("[beam].reference_frequency: only used with scaling = 'inverse-frequency'")
+        check_beam(beam, raw["beam"])
     noise = _section(raw, "noise")
     if noise and not beam:
         raise ConfigError("[noise]: noise is defined per beam, so it needs a [beam]")
     if noise and "rms" not in noise:
         raise ConfigError("[noise]: 'rms' is required")
+    if noise:
+        check_noise(noise, raw["noise"])
     if noise and noise["rms"].ndim == 1 and len(noise["rms"]) != len(nu):
         raise ConfigError(f"[noise].rms: {len(noise['rms'])} values for {len(nu)} frequencies")
     out = _section(raw, "output")
@@ -566,6 +588,7 @@ def parse_job(raw, base_dir="."):
                           "cubes, one file per frequency for other lists) or 'tabular' (one FREQ-TAB cube)")
     out.setdefault("directory", "rtrace-output")
     out["directory"] = (base_dir / out["directory"]).resolve()
+    check_output(out)
     par = _parallel(_section(raw, "parallel"))
     from .job_study import comparison_section, synthesis_section
     view_names = [v["name"] for v in views]
@@ -587,12 +610,14 @@ def load_job(path):
     if not path.is_file():
         raise ConfigError(f"job file not found: {path}")
     try:
-        text = path.read_text()
+        data = path.read_bytes()
+    except OSError as exc:
+        raise ConfigError(f"job file {path}: cannot be read: {exc}") from None
+    text = decode_job_text(data, path)
+    try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"job file {path}: cannot be read: {exc}") from None
     job = parse_job(raw, base_dir=path.parent)
     job.text = text
     return job
