@@ -208,6 +208,9 @@ def _frequencies(spec):
             raise ConfigError(f"[frequencies].spacing: '{spacing}' is not 'log' or 'linear'")
         num = spec["num"]
         start, stop = spec["start"].to_value(u.Hz), spec["stop"].to_value(u.Hz)
+        for key, value in (("start", start), ("stop", stop)):
+            if not np.isfinite(value):
+                raise ConfigError(f"[frequencies].{key}: must be finite, got '{spec[key]}'")
         if num < 1:
             raise ConfigError(f"[frequencies].num: expected at least 1 frequency, got {num}")
         if num == 1 and start != stop:
