@@ -227,3 +227,34 @@ def test_parallel_settings_and_overrides(tmp_path):
         override_parallel(job, workers=-1)
     with pytest.raises(ConfigError, match="--scheduler: 'node7' is not a scheduler address"):
         override_parallel(job, scheduler="node7")
+
+
+def test_background_temperature_is_read_for_the_tracer(tmp_path):
+    """``[trace] background = "20 K"`` reaches the tracer as a blackbody (once refused when tracing began)."""
+    from astropy.modeling.models import BlackBody
+
+    from rtrace.transfer.background import background_from_spec
+    job = load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "20 K"\n'))
+    assert job.trace["background"] == 20 * u.K
+    nu = job.frequencies.to_value(u.Hz)
+    intensity, info = background_from_spec(job.trace["background"], nu)
+    # Planck's law as astropy implements it (astropy.modeling.physical_models.BlackBody)
+    expected = BlackBody(temperature=20 * u.K)(nu * u.Hz).to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
+    assert intensity == pytest.approx(expected, rel=1e-10)
+    assert info.kind == "blackbody" and info.temperature == 20.0
+    assert "background" not in load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "none"\n')).trace
+    assert load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "CMB"\n')).trace["background"] == "cmb"
+
+
+def test_plain_names_with_dots_and_dashes_are_accepted(tmp_path):
+    text = BASE.replace('name = "a"', 'name = "face-on_v2.1"') + '\n[output]\nprefix = "run-3."\n'
+    job = load_job(write(tmp_path, text))
+    assert job.views[0]["name"] == "face-on_v2.1" and job.output["prefix"] == "run-3."
+
+
+def test_duplicate_frequencies_are_named(tmp_path):
+    text = BASE.replace('values = ["1 GHz", "5 GHz"]', 'values = ["1 GHz", "5 GHz", "5000 MHz", "1 GHz"]')
+    with pytest.raises(ConfigError, match=r"\[frequencies\]\.values: 2 frequencies are given more than once "
+                                          r"\(1 GHz, 5 GHz\)"):
+        load_job(write(tmp_path, text))
+    assert not (tmp_path / "rtrace-output").exists()
