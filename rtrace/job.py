@@ -99,7 +99,8 @@ def _quantity(value, kind, where):
         q = q / u.beam                       # '0.1 mJy' is read as per beam
     if not q.unit.is_equivalent(unit, equivalencies=equiv):
         raise ConfigError(f"{where}: '{value}' is not {_a(kind)} (unit '{q.unit}')")
-    return q.to(unit, equivalencies=equiv)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):    # a zero wavelength: refused later
+        return q.to(unit, equivalencies=equiv)
 
 
 def _typed(value, kind, where):
@@ -238,7 +239,11 @@ def _hdf5_file(value, where, base_dir, directories=False):
     if not isinstance(value, str):
         raise ConfigError(f"{where}: expected str, got {type(value).__name__} {value!r}")
     path = (base_dir / value).resolve()
-    if not (path.exists() if directories else path.is_file()):
+    try:
+        found = path.exists() if directories else path.is_file()
+    except OSError as exc:                  # a name too long for the file system
+        raise ConfigError(f"{where}: {path} cannot be used: {exc.strerror}") from None
+    if not found:
         raise ConfigError(f"{where}: {'path' if directories else 'file'} not found: {path}")
     return path
 
@@ -583,6 +588,8 @@ def parse_job(raw, base_dir="."):
         raise ConfigError(f"[noise].rms: {len(noise['rms'])} values for {len(nu)} frequencies")
     out = _section(raw, "output")
     for q in out.get("quantities", []):
+        if not isinstance(q, str):
+            raise ConfigError(f"[output].quantities: expected names such as 'intensity', got {q!r}")
         if q not in _QUANTITIES:
             raise ConfigError(f"[output].quantities: unknown '{q}'{_suggest(q, _QUANTITIES)}")
     out.setdefault("spectral_axis", "auto")
@@ -602,8 +609,9 @@ def parse_job(raw, base_dir="."):
     built = build_views(job)      # the View constructor validates geometry now, not after tracing
     from .job_study import check_synthesis_grids
     check_synthesis_grids(job, built)
-    from .job_snapshot import check_ionization
+    from .job_snapshot import check_datasets, check_ionization
     check_ionization(job)         # the model's values, and sources against the grid, before any field is read
+    check_datasets(job)           # the named datasets exist, numeric, 3-D, one shape (metadata only)
     return job
 
 

@@ -329,7 +329,11 @@ def check_output(out):
             raise ConfigError(f"[output].picture_format: '{fmt}'{_suggest(fmt, formats)} is not one of "
                               f"{', '.join(formats)}")
     directory = out["directory"]
-    if directory.exists() and not directory.is_dir():
+    try:
+        is_file = directory.exists() and not directory.is_dir()
+    except OSError as exc:                      # a name too long, a folder that cannot be searched
+        raise ConfigError(f"[output].directory: {directory} cannot be used: {exc.strerror}") from None
+    if is_file:
         raise ConfigError(f"[output].directory: {directory} exists and is not a folder")
 
 

@@ -49,7 +49,11 @@ def file_fingerprint(path):
 
 def _readable_file(value, where, base_dir):
     path = (Path(base_dir) / value).resolve()
-    if not path.is_file():
+    try:
+        found = path.is_file()
+    except OSError as exc:                  # a name too long for the file system
+        raise ConfigError(f"{where}: {path} cannot be used: {exc.strerror}") from None
+    if not found:
         raise ConfigError(f"{where}: file not found: {path}")
     if not os.access(path, os.R_OK):
         raise ConfigError(f"{where}: file not readable: {path}")

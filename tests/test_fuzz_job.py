@@ -220,6 +220,25 @@ CASES = [
     ("source-position-nan", ionization(model="sources", sources=[{"position": ["0.1 pc", "nan pc", "0.1 pc"],
                                                                   "rate": "1e40 / s"}]),
      "[ionization].sources[0].position"),
+    ("quantities-int", edit(output__quantities=[1]), "[output].quantities"),
+    ("quantities-typo", edit(output__quantities=["intensty"]), "did you mean 'intensity'"),
+    ("directory-is-a-file", edit(output__directory="afile"), "[output].directory"),
+    ("directory-name-too-long", edit(output__directory="x" * 300), "[output].directory"),
+    # --- the HDF5 snapshot: datasets and geometry checked from metadata, before any field is read ---
+    ("dataset-missing", edit(snapshot=dict(HE["snapshot"], temperature="Tx")), "[snapshot].temperature"),
+    ("dataset-group-root", edit(snapshot=dict(HE["snapshot"], density="/")), "[snapshot].density"),
+    ("dataset-unit-wrong", edit(snapshot=dict(HE["snapshot"], units={"rho": "pc"})), "[snapshot].density"),
+    ("units-unknown-dataset", edit(snapshot=dict(HE["snapshot"], units={"zz": "K"})), "[snapshot].units"),
+    ("subvolume-outside", edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2], [0, 9]])),
+     "[snapshot].subvolume"),
+    ("subvolume-str", edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2], [0, "a"]])),
+     "[snapshot].subvolume[2]"),
+    ("subvolume-two-axes", edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2]])), "[snapshot].subvolume"),
+    ("cell-size-inf", edit(snapshot=dict(HE["snapshot"], cell_size="inf pc")), "[snapshot].cell_size"),
+    ("origin-nan", edit(snapshot=dict(HE["snapshot"], origin=["0 pc", "0 pc", "nan pc"])), "[snapshot].origin"),
+    ("not-hdf5", edit(snapshot=dict(HE["snapshot"], path="garbage.h5")), "cannot be opened as an HDF5 file"),
+    ("path-too-long", edit(snapshot=dict(HE["snapshot"], path="x" * 300 + ".h5")), "[snapshot].path"),
+    ("supplied-fraction-missing", ionization(model="supplied", fraction="xH"), "[ionization].fraction"),
     # --- the file itself ---
     ("not-utf8", b'[snapshot]\nkind = "d\xffemo"\n', "offset 20"),
     ("latin1", "[snapshot]\nkind = \"demo\" # café\n".encode("latin-1"), "not UTF-8"),
@@ -238,6 +257,8 @@ def folder(tmp_path):
         h5.attrs["length_unit"] = "pc"
         h5.create_dataset("rho", data=np.full((4, 4, 4), 1e-22)).attrs["units"] = "g/cm**3"
         h5.create_dataset("T", data=np.full((4, 4, 4), 1e4)).attrs["units"] = "K"
+    (jobs / "garbage.h5").write_bytes(b"not an HDF5 file")
+    (jobs / "afile").write_text("a file where the output folder should be")
     return jobs
 
 

@@ -143,9 +143,32 @@ npix = 8
 
 
 def touch_files(tmp_path, *names):
+    """Small HDF5 snapshots with the datasets HDF5 names (the job validator opens every member file)."""
+    import h5py
     for name in names:
         (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
-        (tmp_path / name).write_bytes(b"")
+        with h5py.File(tmp_path / name, "w") as h5:
+            h5.attrs["cell_size"] = 0.1
+            h5.attrs["length_unit"] = "pc"
+            h5.create_dataset("T", data=np.full((2, 2, 2), 1e4)).attrs["units"] = "K"
+            h5.create_dataset("ne", data=np.full((2, 2, 2), 10.0)).attrs["units"] = "cm**-3"
+
+
+def test_member_files_are_opened_before_any_work(tmp_path):
+    """Every file of a series holds the named datasets, or the job stops naming the key and the file."""
+    touch_files(tmp_path, "run/snap_0001.h5", "run/snap_0002.h5")
+    with h5py_file(tmp_path / "run/snap_0002.h5") as h5:
+        del h5["ne"]
+    with pytest.raises(ConfigError, match=r"\[snapshot\]\.electron_density: dataset 'ne' not found in .*snap_0002"):
+        load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
+    (tmp_path / "run/snap_0002.h5").write_bytes(b"not an HDF5 file")
+    with pytest.raises(ConfigError, match=r"cannot be opened as an HDF5 file.*snap_0002"):
+        load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
+
+
+def h5py_file(path):
+    import h5py
+    return h5py.File(path, "a")
 
 
 def test_pattern_is_sorted_and_relative_to_the_job_file(tmp_path):
