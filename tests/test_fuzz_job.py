@@ -105,6 +105,14 @@ def ionization(**ion):
     return raw
 
 
+def study(table, **keys):
+    raw = edit()
+    raw[table] = dict({"synthesis": {"antennas": "five.txt", "latitude": "35 deg",
+                                     "hour_angle_range": ["-2 hourangle", "2 hourangle"]},
+                       "comparison": {"observation": "observed.fits"}}[table], **keys)
+    return raw
+
+
 # (id, job dict or bytes, text the message must contain)
 CASES = [
     # --- names are names, not paths (view names and the output prefix) ---
@@ -239,6 +247,24 @@ CASES = [
     ("not-hdf5", edit(snapshot=dict(HE["snapshot"], path="garbage.h5")), "cannot be opened as an HDF5 file"),
     ("path-too-long", edit(snapshot=dict(HE["snapshot"], path="x" * 300 + ".h5")), "[snapshot].path"),
     ("supplied-fraction-missing", ionization(model="supplied", fraction="xH"), "[ionization].fraction"),
+    # --- [synthesis] and [comparison] (an invented five-dish layout and a hand-made observed image) ---
+    ("synthesis-samples-huge", study("synthesis", n_hour_angles=10**30), "[synthesis].n_hour_angles"),
+    ("synthesis-samples-zero", study("synthesis", n_hour_angles=0), "[synthesis].n_hour_angles"),
+    ("synthesis-elevation-nan", study("synthesis", min_elevation="nan deg"), "[synthesis].min_elevation"),
+    ("synthesis-elevation-100", study("synthesis", min_elevation="100 deg"), "[synthesis].min_elevation"),
+    ("synthesis-latitude-100", study("synthesis", latitude="100 deg"), "[synthesis].latitude"),
+    ("synthesis-gain-zero", study("synthesis", gain=0.0), "[synthesis].gain"),
+    ("synthesis-niter-zero", study("synthesis", niter=0), "[synthesis].niter"),
+    ("synthesis-pixel-scale-negative", study("synthesis", pixel_scale="-1 arcsec"), "[synthesis].pixel_scale"),
+    ("synthesis-views-unknown", study("synthesis", views=["b"]), "[synthesis].views"),
+    ("synthesis-antennas-up", study("synthesis", antennas="../../nothere.txt"), "[synthesis].antennas"),
+    ("comparison-beam-pa-nan", study("comparison", beam=["40 arcsec", "30 arcsec", "nan deg"]), "[comparison].beam"),
+    ("comparison-beam-inf", study("comparison", beam=["inf arcsec", "30 arcsec", "0 deg"]), "[comparison].beam"),
+    ("comparison-beam-order", study("comparison", beam=["30 arcsec", "40 arcsec", "0 deg"]), "[comparison].beam"),
+    ("comparison-beam-short", study("comparison", beam=["30 arcsec"]), "[comparison].beam"),
+    ("comparison-frequency-outside", study("comparison", frequency="20 GHz"), "[comparison].observation"),
+    ("comparison-views-unknown", study("comparison", views=["b"]), "[comparison].views"),
+    ("comparison-aperture-int", study("comparison", apertures=[1]), "[comparison].apertures[0]"),
     # --- the file itself ---
     ("not-utf8", b'[snapshot]\nkind = "d\xffemo"\n', "offset 20"),
     ("latin1", "[snapshot]\nkind = \"demo\" # café\n".encode("latin-1"), "not UTF-8"),
@@ -250,6 +276,8 @@ def folder(tmp_path):
     """A job folder two levels below ``tmp_path`` (so writes above the output folder stay visible)."""
     import h5py
     import numpy as np
+    from astropy.io import fits
+    from astropy.wcs import WCS
     jobs = tmp_path / "jobs" / "deep"
     jobs.mkdir(parents=True)
     with h5py.File(jobs / "cloud.h5", "w") as h5:
@@ -259,6 +287,13 @@ def folder(tmp_path):
         h5.create_dataset("T", data=np.full((4, 4, 4), 1e4)).attrs["units"] = "K"
     (jobs / "garbage.h5").write_bytes(b"not an HDF5 file")
     (jobs / "afile").write_text("a file where the output folder should be")
+    (jobs / "five.txt").write_text("unit = m\n0 0 0\n120 10 0.5\n-60 110 0\n40 -150 1\n-130 -60 0\n")
+    wcs = WCS(naxis=2)
+    wcs.wcs.ctype = ["RA---SIN", "DEC--SIN"]
+    wcs.wcs.crval, wcs.wcs.crpix, wcs.wcs.cdelt = [10, -30], [8.5, 8.5], [-10 / 3600, 10 / 3600]
+    header = wcs.to_header()
+    header.update(BUNIT="Jy/beam", BMAJ=40 / 3600, BMIN=30 / 3600, BPA=20.0, RESTFRQ=1e9)
+    fits.PrimaryHDU(np.ones((16, 16), np.float32), header).writeto(jobs / "observed.fits")
     return jobs
 
 
@@ -272,6 +307,10 @@ def test_base_job_is_valid(folder):
     assert job.views[0]["name"] == "a" and job.output["prefix"] == "run1_"
     (folder / "job.toml").write_text(to_toml(BASE))
     assert load_job(folder / "job.toml").views[0]["npix"] == 8
+    assert parse_job(edit(**HE), base_dir=folder).snapshot["kind"] == "hdf5"
+    assert parse_job(ionization(model="full"), base_dir=folder).ionization["model"] == "full"
+    assert parse_job(study("synthesis"), base_dir=folder).synthesis["views"] == ["a"]
+    assert parse_job(study("comparison"), base_dir=folder).comparison["views"] == ["a"]
 
 
 def test_case_count():
