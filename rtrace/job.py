@@ -252,6 +252,9 @@ def _unique_labels(members, where):
     """Outputs are named by label, so two snapshots with one label would overwrite each other."""
     seen = {}
     for m in members:
+        if m["label"] in (".", ".."):         # '...h5' has the stem '..': its folder would be the parent's
+            raise ConfigError(f"{where}: the snapshot {m.get('path')} is labelled '{m['label']}' by its file "
+                              f"name, which cannot name its output folder; rename the file")
         if m["label"] in seen:
             first, second = seen[m["label"]], m.get("path", m.get("seed"))
             raise ConfigError(f"{where}: two snapshots share the label '{m['label']}' ({first} and {second}); "
@@ -563,6 +566,10 @@ def parse_job(raw, base_dir="."):
         spec.setdefault("name", f"view{i + 1}")
         if spec["name"] in names:
             raise ConfigError(f"{where}.name: '{spec['name']}' is used by another view")
+        same = [n for n in names if n.lower() == spec["name"].lower()]
+        if same:
+            raise ConfigError(f"{where}.name: '{spec['name']}' differs from view '{same[0]}' only in case; their "
+                              f"files would overwrite each other on case-insensitive file systems")
         names.add(spec["name"])
         if ("ra" in spec) != ("dec" in spec):
             raise ConfigError(f"{where}: give both 'ra' and 'dec' or neither")

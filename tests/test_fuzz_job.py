@@ -131,6 +131,10 @@ CASES = [
     ("name-long", edit(view__name="v" * 101), "[[view]] #1.name"),
     ("name-int", edit(view__name=3), "[[view]] #1.name"),
     ("name-second-view", two_views({"name": "../b"}), "[[view]] #2.name"),
+    ("name-same-but-case", two_views({"name": "A"}), "[[view]] #2.name"),
+    ("series-label-dotdot", edit(snapshot={**{k: v for k, v in HE["snapshot"].items() if k != "path"},
+                                                   "paths": ["cloud.h5", "...h5"]}),
+     "[snapshot].paths"),
     ("prefix-up", edit(output__prefix="../../X_"), "[output].prefix"),
     ("prefix-absolute", edit(output__prefix="/tmp/X_"), "[output].prefix"),
     ("prefix-subfolder", edit(output__prefix="sub/X_"), "[output].prefix"),
@@ -286,6 +290,7 @@ def folder(tmp_path):
         h5.create_dataset("rho", data=np.full((4, 4, 4), 1e-22)).attrs["units"] = "g/cm**3"
         h5.create_dataset("T", data=np.full((4, 4, 4), 1e4)).attrs["units"] = "K"
     (jobs / "garbage.h5").write_bytes(b"not an HDF5 file")
+    (jobs / "...h5").write_bytes((jobs / "cloud.h5").read_bytes())      # its stem, the series label, is '..'
     (jobs / "afile").write_text("a file where the output folder should be")
     (jobs / "five.txt").write_text("unit = m\n0 0 0\n120 10 0.5\n-60 110 0\n40 -150 1\n-130 -60 0\n")
     wcs = WCS(naxis=2)
