@@ -273,8 +273,8 @@ def check_noise(noise, raw):
 
 
 def check_snapshot(snap, raw):
-    """Check ``[snapshot]`` values: demo ``cells`` >= 2, seeds >= 0, finite positive ``cell_size``,
-    finite ``origin``, ``subvolume`` three pairs of integers.
+    """Check ``[snapshot]`` values: demo ``cells`` >= 2, seeds and yt ``level`` >= 0, finite positive
+    ``cell_size``, finite ``origin``, ``subvolume`` three pairs of integers.
 
     Raises
     ------
@@ -282,6 +282,8 @@ def check_snapshot(snap, raw):
     """
     if "cells" in snap and snap["cells"] < 2:
         raise ConfigError(f"[snapshot].cells: the demo needs at least 2 cells per side, got {snap['cells']}")
+    if "level" in snap and snap["level"] < 0:
+        raise ConfigError(f"[snapshot].level: expected a refinement level >= 0, got {snap['level']}")
     if "seed" in snap and snap["seed"] < 0:
         raise ConfigError(f"[snapshot].seed: expected an integer >= 0, got {snap['seed']}")
     for i, seed in enumerate(snap.get("seeds", [])):

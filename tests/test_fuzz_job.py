@@ -222,6 +222,8 @@ CASES = [
     ("cells-float", edit(snapshot__cells=16.5), "[snapshot].cells"),
     ("cells-bool", edit(snapshot__cells=True), "[snapshot].cells"),
     ("seed-negative", edit(snapshot__seed=-7), "[snapshot].seed"),
+    ("yt-level-negative", edit(snapshot={"kind": "yt", "path": ".", "temperature": "T", "electron_density": "ne",
+                                         "level": -1}), "[snapshot].level"),
     ("seeds-negative", edit(snapshot__seeds=[1, -2]), "[snapshot].seeds[1]"),
     # --- ionization (an HDF5 file with mass density; the file is made by the fixture) ---
     ("helium-triple", ionization(model="full", helium="triple"), "[ionization].helium"),
