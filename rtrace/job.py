@@ -21,6 +21,8 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from .errors import ConfigError
+from .job_checks import (check_beam, check_frequencies, check_noise, check_output, check_snapshot, check_trace,
+                         check_view, decode_job_text)
 from .physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
@@ -97,7 +99,8 @@ def _quantity(value, kind, where):
         q = q / u.beam                       # '0.1 mJy' is read as per beam
     if not q.unit.is_equivalent(unit, equivalencies=equiv):
         raise ConfigError(f"{where}: '{value}' is not {_a(kind)} (unit '{q.unit}')")
-    return q.to(unit, equivalencies=equiv)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):    # a zero wavelength: refused later
+        return q.to(unit, equivalencies=equiv)
 
 
 def _typed(value, kind, where):
@@ -206,6 +209,9 @@ def _frequencies(spec):
             raise ConfigError(f"[frequencies].spacing: '{spacing}' is not 'log' or 'linear'")
         num = spec["num"]
         start, stop = spec["start"].to_value(u.Hz), spec["stop"].to_value(u.Hz)
+        for key, value in (("start", start), ("stop", stop)):
+            if not np.isfinite(value):
+                raise ConfigError(f"[frequencies].{key}: must be finite, got '{spec[key]}'")
         if num < 1:
             raise ConfigError(f"[frequencies].num: expected at least 1 frequency, got {num}")
         if num == 1 and start != stop:
@@ -224,8 +230,7 @@ def _frequencies(spec):
         else:
             nu = start + k * ((stop - start) / (num - 1))
         nu = nu * u.Hz
-    if np.any(nu <= 0):
-        raise ConfigError("[frequencies]: frequencies must be positive")
+    check_frequencies(nu, "[frequencies].values" if "values" in spec else "[frequencies]")
     return nu.to(u.Hz)
 
 
@@ -234,7 +239,11 @@ def _hdf5_file(value, where, base_dir, directories=False):
     if not isinstance(value, str):
         raise ConfigError(f"{where}: expected str, got {type(value).__name__} {value!r}")
     path = (base_dir / value).resolve()
-    if not (path.exists() if directories else path.is_file()):
+    try:
+        found = path.exists() if directories else path.is_file()
+    except OSError as exc:                  # a name too long for the file system
+        raise ConfigError(f"{where}: {path} cannot be used: {exc.strerror}") from None
+    if not found:
         raise ConfigError(f"{where}: {'path' if directories else 'file'} not found: {path}")
     return path
 
@@ -243,6 +252,9 @@ def _unique_labels(members, where):
     """Outputs are named by label, so two snapshots with one label would overwrite each other."""
     seen = {}
     for m in members:
+        if m["label"] in (".", ".."):         # '...h5' has the stem '..': its folder would be the parent's
+            raise ConfigError(f"{where}: the snapshot {m.get('path')} is labelled '{m['label']}' by its file "
+                              f"name, which cannot name its output folder; rename the file")
         if m["label"] in seen:
             first, second = seen[m["label"]], m.get("path", m.get("seed"))
             raise ConfigError(f"{where}: two snapshots share the label '{m['label']}' ({first} and {second}); "
@@ -450,6 +462,9 @@ def _sources(entries):
             if key not in entry:
                 raise ConfigError(f"{where}: '{key}' is required")
         spec = {k: _typed(v, SCHEMA["source"][k], f"{where}.{k}") for k, v in entry.items()}
+        bad = int(np.sum(~np.isfinite(spec["position"].value)))
+        if bad:
+            raise ConfigError(f"{where}.position: {bad} of 3 coordinates are not finite ({entry['position']})")
         rate = spec["rate"].to_value(u.s**-1)
         if not (np.isfinite(rate) and rate >= 0):
             raise ConfigError(f"{where}.rate: must be finite and >= 0, got '{entry['rate']}'")
@@ -489,6 +504,13 @@ def _ionization(raw, snap, kind):
     for key in ("threshold", "ionized_temperature"):
         if key in ion and not ion[key].to_value(u.K) > 0:
             raise ConfigError(f"[ionization].{key}: must be a positive temperature, got '{ion[key]}'")
+    for key in ("hydrogen_mass_fraction", "helium_mass_fraction"):
+        if key in ion and not 0 <= ion[key] <= 1:
+            raise ConfigError(f"[ionization].{key}: a mass fraction lies in [0, 1], got {ion[key]}")
+    if ion.get("hydrogen_mass_fraction", 0.70) + ion.get("helium_mass_fraction", 0.28) > 1:
+        raise ConfigError(f"[ionization].helium_mass_fraction: hydrogen_mass_fraction + helium_mass_fraction = "
+                          f"{ion.get('hydrogen_mass_fraction', 0.70) + ion.get('helium_mass_fraction', 0.28):.6g} "
+                          f"exceeds 1 (the defaults are 0.70 and 0.28)")
     if "rays_per_cell" in ion and not 4 <= ion["rays_per_cell"] <= 64:
         raise ConfigError(f"[ionization].rays_per_cell: expected a number from 4 to 64, got {ion['rays_per_cell']}")
     return ion
@@ -497,10 +519,16 @@ def _ionization(raw, snap, kind):
 def parse_job(raw, base_dir="."):
     """Validate a job given as a dict (the parsed TOML). Raises ConfigError on the first problem."""
     base_dir = Path(base_dir)
+    if not isinstance(raw, dict):
+        raise ConfigError(f"job: expected a table of tables, got {type(raw).__name__}")
     unknown = set(raw) - _TOP
     for key in sorted(unknown):
         raise ConfigError(f"job: unknown table '[{key}]'{_suggest(key, _TOP)}; allowed: {', '.join(sorted(_TOP))}")
+    if "snapshot" not in raw:
+        raise ConfigError("job: the [snapshot] table is required (kind = 'hdf5' or 'yt' with a path, or "
+                          "kind = 'demo' for the built-in scenario)")
     snap = _section(raw, "snapshot")
+    check_snapshot(snap, raw["snapshot"])
     kind = snap.get("kind", "demo")
     if kind not in ("demo", "hdf5", "yt"):
         raise ConfigError(f"[snapshot].kind: '{kind}' is not 'demo', 'hdf5' or 'yt'")
@@ -520,6 +548,7 @@ def parse_job(raw, base_dir="."):
         raise ConfigError("job: the [frequencies] table is required")
     nu = _frequencies(_section(raw, "frequencies"))
     trace = _section(raw, "trace")
+    check_trace(trace)
     views_raw = raw.get("view", [])
     if isinstance(views_raw, dict):
         views_raw = [views_raw]
@@ -533,9 +562,14 @@ def parse_job(raw, base_dir="."):
             raise ConfigError(f"{where}: expected a table")
         _check_keys(v, SCHEMA["view"], where)
         spec = {k: _typed(val, SCHEMA["view"][k], f"{where}.{k}") for k, val in v.items()}
+        check_view(spec, v, where)
         spec.setdefault("name", f"view{i + 1}")
         if spec["name"] in names:
             raise ConfigError(f"{where}.name: '{spec['name']}' is used by another view")
+        same = [n for n in names if n.lower() == spec["name"].lower()]
+        if same:
+            raise ConfigError(f"{where}.name: '{spec['name']}' differs from view '{same[0]}' only in case; their "
+                              f"files would overwrite each other on case-insensitive file systems")
         names.add(spec["name"])
         if ("ra" in spec) != ("dec" in spec):
             raise ConfigError(f"{where}: give both 'ra' and 'dec' or neither")
@@ -549,15 +583,20 @@ def parse_job(raw, base_dir="."):
             raise ConfigError(f"[beam].scaling: '{beam['scaling']}' is not 'none' or 'inverse-frequency'")
         if "reference_frequency" in beam and beam.get("scaling", "none") == "none":
             raise ConfigError("[beam].reference_frequency: only used with scaling = 'inverse-frequency'")
+        check_beam(beam, raw["beam"])
     noise = _section(raw, "noise")
     if noise and not beam:
         raise ConfigError("[noise]: noise is defined per beam, so it needs a [beam]")
     if noise and "rms" not in noise:
         raise ConfigError("[noise]: 'rms' is required")
+    if noise:
+        check_noise(noise, raw["noise"])
     if noise and noise["rms"].ndim == 1 and len(noise["rms"]) != len(nu):
         raise ConfigError(f"[noise].rms: {len(noise['rms'])} values for {len(nu)} frequencies")
     out = _section(raw, "output")
     for q in out.get("quantities", []):
+        if not isinstance(q, str):
+            raise ConfigError(f"[output].quantities: expected names such as 'intensity', got {q!r}")
         if q not in _QUANTITIES:
             raise ConfigError(f"[output].quantities: unknown '{q}'{_suggest(q, _QUANTITIES)}")
     out.setdefault("spectral_axis", "auto")
@@ -566,6 +605,7 @@ def parse_job(raw, base_dir="."):
                           "cubes, one file per frequency for other lists) or 'tabular' (one FREQ-TAB cube)")
     out.setdefault("directory", "rtrace-output")
     out["directory"] = (base_dir / out["directory"]).resolve()
+    check_output(out)
     par = _parallel(_section(raw, "parallel"))
     from .job_study import comparison_section, synthesis_section
     view_names = [v["name"] for v in views]
@@ -576,8 +616,9 @@ def parse_job(raw, base_dir="."):
     built = build_views(job)      # the View constructor validates geometry now, not after tracing
     from .job_study import check_synthesis_grids
     check_synthesis_grids(job, built)
-    from .job_snapshot import check_ionization
+    from .job_snapshot import check_datasets, check_ionization
     check_ionization(job)         # the model's values, and sources against the grid, before any field is read
+    check_datasets(job)           # the named datasets exist, numeric, 3-D, one shape (metadata only)
     return job
 
 
@@ -587,12 +628,14 @@ def load_job(path):
     if not path.is_file():
         raise ConfigError(f"job file not found: {path}")
     try:
-        text = path.read_text()
+        data = path.read_bytes()
+    except OSError as exc:
+        raise ConfigError(f"job file {path}: cannot be read: {exc}") from None
+    text = decode_job_text(data, path)
+    try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"job file {path}: cannot be read: {exc}") from None
     job = parse_job(raw, base_dir=path.parent)
     job.text = text
     return job

@@ -12,7 +12,7 @@ import astropy.units as u
 
 from .physics.ionization.cells import THERMAL_INPUTS
 
-__all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization"]
+__all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization", "check_datasets"]
 
 
 def _composition(ion):
@@ -99,6 +99,54 @@ def check_ionization(job):
             model.check_geometry(shape, cell, org)
         except InputError as exc:
             raise ConfigError(f"[ionization].sources: {exc} (snapshot '{member['path']}')") from None
+
+
+def _job_key(job, message):
+    """``"[snapshot].temperature: ..."`` from a reader's ``"temperature: ..."`` (the key the job wrote)."""
+    from .io.hdf5 import MODEL_FIELD
+    param, sep, rest = message.partition(": ")
+    if sep and param in job.snapshot:
+        return f"[snapshot].{param}: {rest}"
+    if sep and param.startswith(MODEL_FIELD):
+        name = param[len(MODEL_FIELD):]
+        keys = [k for k in ("fraction", "helium_ii", "helium_iii") if job.ionization.get(k) == name]
+        return f"[ionization].{keys[0] if keys else 'fraction'}: {rest}"
+    return f"[snapshot]: {message}"
+
+
+def check_datasets(job):
+    """Check, before any field is read, that every HDF5 snapshot of the job holds the datasets it names.
+
+    Only metadata is read: each named dataset (thermal input, densities,
+    supplied ionized fractions) must exist, be numeric and 3-D, share one
+    shape and have a known unit; a ``subvolume`` must lie inside that shape.
+    For a series, every member file is checked. yt datasets are checked
+    when they are loaded.
+
+    Raises
+    ------
+    ConfigError
+        Naming the job key (``[snapshot].temperature``), the dataset and the file.
+    """
+    from .errors import ConfigError, InputError
+    from .io.hdf5 import _subvolume, checked_names, file_geometry, open_fields, open_file, wanted_fields
+
+    snap = job.snapshot
+    if snap["kind"] != "hdf5":
+        return
+    model = ionization_model(job) if "density" in snap else None
+    kw = {k: snap.get(k) for k in _FIELD_KEYS}
+    for member in job_members(job):
+        try:
+            wanted, _ = wanted_fields(**kw, ionization=model, composition=None, helium=None)
+            wanted = checked_names(wanted, snap.get("units") or {})
+            with open_file(member["path"]) as handle:
+                _, shape, _ = open_fields(handle, wanted, snap.get("units") or {}, member["path"])
+                file_geometry(handle, snap.get("cell_size"), snap.get("origin"), member["path"])
+            if "subvolume" in snap:
+                _subvolume(tuple(tuple(p) for p in snap["subvolume"]), shape)
+        except InputError as exc:
+            raise ConfigError(f"{_job_key(job, str(exc))} (snapshot '{member['path']}')") from None
 
 
 def job_members(job):

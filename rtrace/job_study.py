@@ -49,7 +49,11 @@ def file_fingerprint(path):
 
 def _readable_file(value, where, base_dir):
     path = (Path(base_dir) / value).resolve()
-    if not path.is_file():
+    try:
+        found = path.is_file()
+    except OSError as exc:                  # a name too long for the file system
+        raise ConfigError(f"{where}: {path} cannot be used: {exc.strerror}") from None
+    if not found:
         raise ConfigError(f"{where}: file not found: {path}")
     if not os.access(path, os.R_OK):
         raise ConfigError(f"{where}: file not readable: {path}")
@@ -108,6 +112,13 @@ def synthesis_section(spec, base_dir, view_names):
                 "image_size"):
         if key in spec:
             kw[key] = spec[key]
+    if kw.get("n_hour_angles", 1) > 1_000_000:      # the bound hour_angle_samples puts on a step
+        raise ConfigError(f"{where}.n_hour_angles: {kw['n_hour_angles']} samples; give at most 1000000")
+    if "min_elevation" in kw:
+        elevation = kw["min_elevation"].to_value(u.deg)
+        if not (np.isfinite(elevation) and -90.0 <= elevation < 90.0):
+            raise ConfigError(f"{where}.min_elevation: an elevation lies in [-90, 90) deg, got "
+                              f"'{spec['min_elevation']}'")
     try:
         hour_angle_samples(kw.get("hour_angle_range", (-4, 4) * u.hourangle), kw.get("hour_angle_step"),
                            kw.get("n_hour_angles", None if "hour_angle_step" in kw else 1))
@@ -159,6 +170,8 @@ def comparison_section(spec, base_dir, view_names, frequencies):
         kw["frequency"] = spec["frequency"]
     if "beam" in spec:
         major, minor, pa = _angles(spec["beam"], f"{where}.beam", 3)
+        if not np.all(np.isfinite([major.value, minor.value, pa.value])):
+            raise ConfigError(f"{where}.beam: major, minor and position angle must be finite, got {spec['beam']}")
         if not (major.value > 0 and minor.value > 0) or minor > major:
             raise ConfigError(f"{where}.beam: expected major >= minor > 0, got {spec['beam']}")
         kw["beam"] = radio_beam.Beam(major=major.to(u.arcsec), minor=minor.to(u.arcsec), pa=pa.to(u.deg))

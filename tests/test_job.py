@@ -143,9 +143,32 @@ npix = 8
 
 
 def touch_files(tmp_path, *names):
+    """Small HDF5 snapshots with the datasets HDF5 names (the job validator opens every member file)."""
+    import h5py
     for name in names:
         (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
-        (tmp_path / name).write_bytes(b"")
+        with h5py.File(tmp_path / name, "w") as h5:
+            h5.attrs["cell_size"] = 0.1
+            h5.attrs["length_unit"] = "pc"
+            h5.create_dataset("T", data=np.full((2, 2, 2), 1e4)).attrs["units"] = "K"
+            h5.create_dataset("ne", data=np.full((2, 2, 2), 10.0)).attrs["units"] = "cm**-3"
+
+
+def test_member_files_are_opened_before_any_work(tmp_path):
+    """Every file of a series holds the named datasets, or the job stops naming the key and the file."""
+    touch_files(tmp_path, "run/snap_0001.h5", "run/snap_0002.h5")
+    with h5py_file(tmp_path / "run/snap_0002.h5") as h5:
+        del h5["ne"]
+    with pytest.raises(ConfigError, match=r"\[snapshot\]\.electron_density: dataset 'ne' not found in .*snap_0002"):
+        load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
+    (tmp_path / "run/snap_0002.h5").write_bytes(b"not an HDF5 file")
+    with pytest.raises(ConfigError, match=r"cannot be opened as an HDF5 file.*snap_0002"):
+        load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
+
+
+def h5py_file(path):
+    import h5py
+    return h5py.File(path, "a")
 
 
 def test_pattern_is_sorted_and_relative_to_the_job_file(tmp_path):
@@ -227,3 +250,34 @@ def test_parallel_settings_and_overrides(tmp_path):
         override_parallel(job, workers=-1)
     with pytest.raises(ConfigError, match="--scheduler: 'node7' is not a scheduler address"):
         override_parallel(job, scheduler="node7")
+
+
+def test_background_temperature_is_read_for_the_tracer(tmp_path):
+    """``[trace] background = "20 K"`` reaches the tracer as a blackbody (once refused when tracing began)."""
+    from astropy.modeling.models import BlackBody
+
+    from rtrace.transfer.background import background_from_spec
+    job = load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "20 K"\n'))
+    assert job.trace["background"] == 20 * u.K
+    nu = job.frequencies.to_value(u.Hz)
+    intensity, info = background_from_spec(job.trace["background"], nu)
+    # Planck's law as astropy implements it (astropy.modeling.physical_models.BlackBody)
+    expected = BlackBody(temperature=20 * u.K)(nu * u.Hz).to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
+    assert intensity == pytest.approx(expected, rel=1e-10)
+    assert info.kind == "blackbody" and info.temperature == 20.0
+    assert "background" not in load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "none"\n')).trace
+    assert load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "CMB"\n')).trace["background"] == "cmb"
+
+
+def test_plain_names_with_dots_and_dashes_are_accepted(tmp_path):
+    text = BASE.replace('name = "a"', 'name = "face-on_v2.1"') + '\n[output]\nprefix = "run-3."\n'
+    job = load_job(write(tmp_path, text))
+    assert job.views[0]["name"] == "face-on_v2.1" and job.output["prefix"] == "run-3."
+
+
+def test_duplicate_frequencies_are_named(tmp_path):
+    text = BASE.replace('values = ["1 GHz", "5 GHz"]', 'values = ["1 GHz", "5 GHz", "5000 MHz", "1 GHz"]')
+    with pytest.raises(ConfigError, match=r"\[frequencies\]\.values: 2 frequencies are given more than once "
+                                          r"\(1 GHz, 5 GHz\)"):
+        load_job(write(tmp_path, text))
+    assert not (tmp_path / "rtrace-output").exists()
