@@ -58,8 +58,11 @@ def fingerprint(job, member):
         return {"demo_seed": member.get("seed", job.snapshot.get("seed", 7))}
     path = Path(member["path"])
     try:
-        if path.is_dir():
+        if path.is_dir() and job.snapshot["kind"] == "yt":
             return {"folder": path.name, "files": _stat_digest((p for p in path.rglob("*") if p.is_file()), path)}
+        if not path.is_file():          # a pipe or device would block or never end: not a snapshot file
+            raise InputError(f"[snapshot] path: '{path}' is not a regular file (or does not exist); "
+                             f"it cannot be read to identify its data")
         source = snapshot_identity(path)
         if job.snapshot["kind"] == "yt":
             companions = [p for p in path.parent.glob(f"{glob_escape(path.stem)}.*") if p != path and p.is_file()]

@@ -32,6 +32,8 @@ import json
 import os
 import secrets
 import shutil
+import stat
+import struct
 import zipfile
 from pathlib import Path
 
@@ -49,7 +51,9 @@ _KEY_BYTES = 32
 _PROCESS_KEY = None
 _RESULT_ARRAYS = ("intensity", "tau", "em", "nu", "background", "center")
 _SKY_ARRAYS = ("sky_data", "sky_model", "sky_beams")
-_READ_ERRORS = (OSError, ValueError, KeyError, EOFError, TypeError, zipfile.BadZipFile, UnicodeDecodeError)
+# RuntimeError: zipfile raises it (and NotImplementedError) for encrypted members and unknown versions
+_READ_ERRORS = (OSError, ValueError, KeyError, EOFError, TypeError, RuntimeError, struct.error, zipfile.BadZipFile,
+                zipfile.LargeZipFile)
 
 
 def cache_key():
@@ -171,6 +175,21 @@ def from_arrays(arrays, view):
     return res, sky
 
 
+def _plain_zip(handle):
+    """Whether ``handle`` is a zip whose members are stored uncompressed, fit in the file and pass their CRC.
+
+    ``np.savez`` stores its arrays uncompressed; refusing anything else bounds the memory a
+    read can take by the file's size (a compressed member could expand to any size).
+    """
+    size = os.fstat(handle.fileno()).st_size
+    with zipfile.ZipFile(handle) as archive:
+        infos = archive.infolist()
+        if not (infos and all(i.compress_type == zipfile.ZIP_STORED for i in infos)
+                and sum(i.file_size for i in infos) <= size):
+            return False
+        return archive.testzip() is None     # every member's CRC-32, headers and padding included
+
+
 class Cache:
     """Traced results of a series, kept on disk between tracing and drawing (see the module notes).
 
@@ -196,9 +215,10 @@ class Cache:
         return hmac.new(self.key, digest.encode("ascii"), hashlib.sha256).hexdigest()
 
     def put(self, unit, value):
-        """Keep ``value = (Result, SkyMap or None)`` of ``unit``; a value that cannot be stored is skipped.
+        """Keep ``value = (Result, SkyMap or None)`` of ``unit``; one that cannot be stored or written is skipped.
 
-        A skipped value is not an error: the pictures then trace that view again.
+        A skipped value is not an error: the pictures then trace that view again. The outputs
+        themselves report a full disk or a read-only folder; the cache only saves work.
         """
         res, sky = value
         try:
@@ -208,17 +228,26 @@ class Cache:
         digest = content_digest(arrays)
         arrays["checksum"] = np.frombuffer(f"{digest} {self._signature(digest)}".encode("ascii"), np.uint8)
         path = self._file(unit)
-        path.parent.mkdir(parents=True, exist_ok=True)
-        with atomic_path(path) as tmp:
-            with open(tmp, "wb") as handle:  # a file object: np.savez would otherwise append ".npz"
-                np.savez(handle, **arrays)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            with atomic_path(path) as tmp:
+                with open(tmp, "wb") as handle:  # a file object: np.savez would otherwise append ".npz"
+                    np.savez(handle, **arrays)
+        except OSError:
+            return     # no room, no permission, a folder in the way: the pictures retrace this view instead
 
     def get(self, unit):
         """``(Result, SkyMap or None)`` of ``unit``, or None when there is no entry that passes every check."""
         path = self._file(unit)
         try:
-            with np.load(path, allow_pickle=False) as npz:
-                arrays = {name: npz[name] for name in npz.files}
+            if not stat.S_ISREG(os.stat(path).st_mode):
+                return None                 # a folder, a pipe (reading would block), a device
+            with open(path, "rb") as handle:
+                if not _plain_zip(handle):
+                    return None
+                handle.seek(0)
+                with np.load(handle, allow_pickle=False) as npz:
+                    arrays = {name: npz[name] for name in npz.files}
             stamp = arrays.pop("checksum").tobytes().decode("ascii").split(" ")
             if len(stamp) != 2 or any(a.dtype.kind not in "fiub" for a in arrays.values()):
                 return None
