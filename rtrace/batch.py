@@ -13,7 +13,6 @@ them in the manifest.
 
 import hashlib
 import json
-import os
 from dataclasses import dataclass
 from glob import escape as glob_escape
 from pathlib import Path
@@ -45,7 +44,7 @@ def fingerprint(job, member):
     starting with the file's stem and a dot, e.g. ``DD0010.cpu0000``) adds
     their names, sizes and modification times; one named by a folder is
     identified by the names, sizes and modification times of every file in
-    it. Hashing a small file costs one read of it (~1 s per GB from a warm
+    it. Hashing a small file costs one read of it (about 1.3 s per GiB from a warm
     page cache, far less than tracing it); a large one costs 18 MiB of
     reads.
 

@@ -247,7 +247,7 @@ class Cache:
                     return None
                 handle.seek(0)
                 with np.load(handle, allow_pickle=False) as npz:
-                    arrays = {name: npz[name] for name in npz.files}
+                    arrays = {name: np.array(npz[name]) for name in npz.files}   # writable copies
             stamp = arrays.pop("checksum").tobytes().decode("ascii").split(" ")
             if len(stamp) != 2 or any(a.dtype.kind not in "fiub" for a in arrays.values()):
                 return None

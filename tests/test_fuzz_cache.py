@@ -17,7 +17,6 @@ import pickle
 import textwrap
 import zipfile
 from pathlib import Path
-from types import SimpleNamespace
 
 import h5py
 import numpy as np
