@@ -5,24 +5,22 @@ of a unit carries a key of the inputs that make it (:func:`output_key`,
 built from :func:`unit_inputs`, which fingerprints the snapshot's data
 with :func:`fingerprint`); the output folder's manifest
 (:mod:`rtrace.io.manifest`) tells which of them are finished
-(:func:`split`). :class:`Cache` keeps a series' traced results on disk
+(:func:`split`). :class:`~rtrace.series_cache.Cache` keeps a series' traced results on disk
 between tracing and drawing, :class:`Snapshots` keeps only the snapshot
 being worked on in memory, and :func:`make` writes outputs and records
 them in the manifest.
 """
 
 import hashlib
-import hmac
-import os
-import pickle
-import secrets
-import shutil
+import json
 from dataclasses import dataclass
+from glob import escape as glob_escape
 from pathlib import Path
 
-from .io.atomic import atomic_path
-from .io.manifest import inputs_key
+from .errors import InputError
+from .io.manifest import inputs_key, snapshot_identity
 from .job_snapshot import build_snapshot, job_members
+from .series_cache import Cache, cache_key  # noqa: F401  (the series cache lives in its own module)
 
 __all__ = ["CACHE_NAME", "Cache", "Snapshots", "Unit", "fingerprint", "make", "observing_settings", "output_key",
            "plan_units", "split", "unit_inputs"]
@@ -37,23 +35,62 @@ _MEMBER_KEYS = ("path", "paths", "pattern", "seed", "seeds")
 # --- what each output is made from ---------------------------------------------------------------
 
 def fingerprint(job, member):
-    """What identifies the snapshot's data: the demo seed, or the file's name, size and mtime.
+    """What identifies the snapshot's data: the demo seed, or the file's content (see below).
 
-    Size and modification time, not a checksum of the data: hashing a large
-    snapshot on every run would cost as much as reading it; a rewritten file
-    changes its mtime.
+    A file is identified by :func:`rtrace.io.manifest.snapshot_identity`:
+    up to 256 MiB by the SHA-256 of its whole content, above that by its
+    size, modification time and a SHA-256 of 18 sampled MiB. A yt dataset
+    named by a file whose data lie in companion files beside it (names
+    starting with the file's stem and a dot, e.g. ``DD0010.cpu0000``) adds
+    their names, sizes and modification times; one named by a folder is
+    identified by the names, sizes and modification times of every file in
+    it. Hashing a small file costs one read of it (about 1.3 s per GiB from a warm
+    page cache, far less than tracing it); a large one costs 18 MiB of
+    reads.
+
+    Raises
+    ------
+    InputError
+        If the snapshot file cannot be read.
     """
     if job.snapshot["kind"] == "demo":
         return {"demo_seed": member.get("seed", job.snapshot.get("seed", 7))}
-    st = os.stat(member["path"])
-    return {"file": Path(member["path"]).name, "size": st.st_size, "mtime_ns": st.st_mtime_ns}
+    path = Path(member["path"])
+    try:
+        if path.is_dir() and job.snapshot["kind"] == "yt":
+            return {"folder": path.name, "files": _stat_digest((p for p in path.rglob("*") if p.is_file()), path)}
+        if not path.is_file():          # a pipe or device would block or never end: not a snapshot file
+            raise InputError(f"[snapshot] path: '{path}' is not a regular file (or does not exist); "
+                             f"it cannot be read to identify its data")
+        source = snapshot_identity(path)
+        if job.snapshot["kind"] == "yt":
+            companions = [p for p in path.parent.glob(f"{glob_escape(path.stem)}.*") if p != path and p.is_file()]
+            if companions:
+                source["companions"] = _stat_digest(companions, path.parent)
+    except OSError as exc:
+        raise InputError(f"[snapshot] path: cannot read '{path}' to identify its data "
+                         f"({exc.strerror or exc})") from None
+    return source
 
 
-def unit_inputs(job, member, spec):
-    """The job settings and data every output of one (snapshot, view) depends on."""
+def _stat_digest(paths, root):
+    """SHA-256 of the names (relative to ``root``), sizes and modification times of ``paths``."""
+    rows = []
+    for p in sorted(paths):
+        st = p.stat()
+        rows.append([p.relative_to(root).as_posix(), st.st_size, st.st_mtime_ns])
+    return hashlib.sha256(json.dumps(rows).encode("utf-8")).hexdigest()
+
+
+def unit_inputs(job, member, spec, source=None):
+    """The job settings and data every output of one (snapshot, view) depends on.
+
+    ``source`` is the member's :func:`fingerprint`, computed here when not given.
+    """
     from . import __version__
     shared = {k: v for k, v in job.snapshot.items() if k not in _MEMBER_KEYS}
-    return {"rtrace": __version__, "snapshot": shared, "source": fingerprint(job, member),
+    return {"rtrace": __version__, "snapshot": shared,
+            "source": fingerprint(job, member) if source is None else source,
             "ionization": job.ionization, "frequencies": job.frequencies, "trace": job.trace, "view": spec}
 
 
@@ -100,8 +137,9 @@ def plan_units(job, views, directory):
     obs = observing_settings(job)
     units = []
     for member in job_members(job):
+        source = fingerprint(job, member)          # read once per snapshot, not once per view
         for name, view in views:
-            base = unit_inputs(job, member, specs[name])
+            base = unit_inputs(job, member, specs[name], source)
             where = f"{member['label']} / view '{name}'" if job.series else f"view '{name}'"
             folder = directory / member["label"] if job.series else directory
             units.append(Unit(member, name, view, folder, base, output_key(base, "images", obs), where))
@@ -134,100 +172,6 @@ def make(todo, res, sky, manifest, written):
 
 
 # --- what is kept between steps ------------------------------------------------------------------
-
-def cache_key():
-    """The secret that signs this user's series-cache files (32 random bytes, made on first use).
-
-    It lives outside any output folder: ``$RTRACE_KEY_DIR``, else ``$XDG_CACHE_HOME/rtrace``, else
-    ``~/.cache/rtrace``, readable by the user alone. Where that cannot be written, a key for this
-    process only is used (a resumed run then retraces instead of reading the cache).
-    """
-    folder = Path(os.environ.get("RTRACE_KEY_DIR")
-                  or Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "rtrace")
-    path = folder / "series-cache.key"
-    try:
-        key = path.read_bytes()
-        if len(key) == _KEY_BYTES:
-            return key
-    except OSError:
-        pass
-    key = secrets.token_bytes(_KEY_BYTES)
-    try:
-        folder.mkdir(parents=True, exist_ok=True, mode=0o700)
-        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(key)
-        return key
-    except FileExistsError:
-        return cache_key() if path.stat().st_size == _KEY_BYTES else _process_key()
-    except OSError:
-        return _process_key()
-
-
-def _process_key():
-    global _PROCESS_KEY
-    if _PROCESS_KEY is None:
-        _PROCESS_KEY = secrets.token_bytes(_KEY_BYTES)
-    return _PROCESS_KEY
-
-
-_KEY_BYTES = 32
-_PROCESS_KEY = None
-#: First bytes of a signed cache file; the HMAC-SHA256 of the payload follows.
-_MAGIC = b"rtrace-cache-1\n"
-
-
-class Cache:
-    """Traced results of a series, kept on disk between tracing and drawing.
-
-    Memory holds one view's result at a time however long the series; the
-    files are keyed by the inputs, so a resumed run reuses what an
-    interrupted one traced, and stale files are never read. Each file is
-    signed (HMAC-SHA256) with the user's key (:func:`cache_key`), kept
-    outside the output folder: a file that was damaged, or written by anyone
-    without that key, is never unpickled; the view is traced again.
-    """
-
-    def __init__(self, folder):
-        self.folder = Path(folder)
-        self.key = cache_key()
-
-    def _file(self, unit):
-        return self.folder / unit.member["label"] / f"{unit.name}-{unit.data_key[:20]}.pickle"
-
-    def _signature(self, payload):
-        return hmac.new(self.key, payload, hashlib.sha256).digest()
-
-    def put(self, unit, value):
-        path = self._file(unit)
-        try:
-            payload = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
-        except (pickle.PicklingError, TypeError, AttributeError):
-            return                          # not cacheable: the pictures retrace this view instead
-        path.parent.mkdir(parents=True, exist_ok=True)
-        with atomic_path(path) as tmp:
-            tmp.write_bytes(_MAGIC + self._signature(payload) + payload)
-
-    def get(self, unit):
-        """The cached value, or None when there is none or its signature does not verify."""
-        try:
-            data = self._file(unit).read_bytes()
-        except OSError:
-            return None
-        head = len(_MAGIC) + hashlib.sha256().digest_size
-        if not data.startswith(_MAGIC) or len(data) < head:
-            return None
-        payload = data[head:]
-        if not hmac.compare_digest(data[len(_MAGIC):head], self._signature(payload)):
-            return None                     # damaged, or not written with this user's key: never unpickled
-        try:
-            return pickle.loads(payload)    # signed by this user's own runs (see the class notes)
-        except (pickle.UnpicklingError, EOFError, AttributeError, ImportError):
-            return None
-
-    def clear(self):
-        shutil.rmtree(self.folder, ignore_errors=True)
-
 
 class Snapshots:
     """Builds a member's snapshot on first need and keeps only the current one."""

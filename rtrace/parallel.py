@@ -18,13 +18,28 @@ client gathers only the root: the per-ray result of the whole grid. If any
 task raises (after whatever retries dask is configured to make), the
 exception propagates from :func:`trace_bricks` and no image is made.
 
+A worker lost while it holds bricks of an in-memory snapshot takes that
+data with it (scattered data cannot be recomputed on the cluster): dask
+cancels the tasks that need it. The client still holds the snapshot, so
+the whole view is then traced again with its bricks scattered anew, with a
+warning, up to ``ATTEMPTS`` times in all; after that a
+:class:`~rtrace.errors.ConfigError` says what happened and what to do.
+Tasks of a file-backed snapshot read their own bricks and dask reruns them
+on another worker by itself.
+
 dask is imported by the client the caller made; rtrace itself never imports
 it, so rtrace works without dask installed.
 """
 
+from concurrent.futures import CancelledError
+
+from .errors import ConfigError, warn_user
 from .transfer.compositing import composite_patches
 
-__all__ = ["trace_bricks"]
+__all__ = ["trace_bricks", "ATTEMPTS"]
+
+#: How many times a view is traced on the cluster before lost workers are reported as an error.
+ATTEMPTS = 3
 
 
 class _BrickData:
@@ -47,6 +62,10 @@ def _trace_given(route, data, lo, hi):
 def trace_bricks(client, route, source, order):
     """Trace ``order``'s bricks on ``client``'s workers; return the composited Patch (or None).
 
+    Traced again from the start, with a warning, when the cluster cancels
+    tasks because a worker holding their scattered data was lost (see the
+    module notes).
+
     Parameters
     ----------
     client : dask.distributed.Client
@@ -64,9 +83,29 @@ def trace_bricks(client, route, source, order):
 
     Raises
     ------
+    ConfigError
+        If workers were lost in each of ``ATTEMPTS`` attempts.
     Exception
         Whatever a task raised.
     """
+    for attempt in range(1, ATTEMPTS + 1):
+        try:
+            return _trace_once(client, route, source, order)
+        except CancelledError as exc:      # dask's FutureCancelledError: "lost dependencies"
+            reason = str(exc) or type(exc).__name__
+            if attempt < ATTEMPTS:
+                warn_user(f"client: the dask cluster lost data of this view's bricks ({reason}); tracing the "
+                          f"view again (attempt {attempt + 1} of {ATTEMPTS})", UserWarning)
+    what = ("bricks of this in-memory snapshot (scattered data cannot be recomputed)"
+            if not getattr(source, "portable", False) else "data of this view's tasks")
+    tries = f"{ATTEMPTS} attempt{'s' if ATTEMPTS != 1 else ''}"
+    raise ConfigError(f"client: in each of {tries} the dask cluster lost a worker holding {what} (last: {reason}); "
+                      f"check that its workers stay up (memory limits, nanny restarts), or open the snapshot "
+                      f"from its file (rtrace.open_hdf5) so that any worker can re-read a lost brick")
+
+
+def _trace_once(client, route, source, order):
+    """One attempt of :func:`trace_bricks`."""
     futures = []
     try:
         route_future = client.scatter(route, broadcast=True, hash=False)

@@ -25,11 +25,13 @@ a series (``paths``, ``pattern`` or ``seeds``) writes
 label. The pictures of a series are drawn after every snapshot is traced,
 with one colour scale per view and quantity for the whole series; traced
 results wait for that in a hidden cache folder in the output directory
-(``.rtrace-cache``, pickled results keyed by their inputs), removed when the
-run completes and reused by the next run when it is interrupted. Each file
-is signed with a key of the user's kept outside the output folder
-(:func:`rtrace.batch.cache_key`): one damaged or written by anyone else is
-ignored, never unpickled, and the view is traced again.
+(``.rtrace-cache``, ``.npz`` files of plain arrays keyed by their inputs),
+removed when the run completes and reused by the next run when it is
+interrupted. An entry is used only when its SHA-256 checksum and its
+signature with a key of the user's kept outside the output folder verify
+and it was made from the same inputs (:mod:`rtrace.series_cache`); it is
+read without pickles, so it can run no code, and one damaged, truncated or
+written by anyone else is ignored and the view traced again.
 """
 
 from .batch import CACHE_NAME, Cache, Snapshots, make, plan_units, split

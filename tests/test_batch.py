@@ -521,29 +521,219 @@ def test_local_cluster_gives_the_serial_images(tmp_path):
     _same_images(serial, parallel)
 
 
-def test_series_cache_reads_only_files_signed_with_the_users_key(tmp_path, monkeypatch):
-    # Common practice for caches in shared folders: never unpickle what this user's runs did not write
-    # (HMAC-SHA256, RFC 2104, with a key kept outside the output folder).
-    import pickle
-    from types import SimpleNamespace
+# --- the series cache: plain arrays, checksummed and signed, never code ------------------------
 
+PICTURE_SERIES = SERIES.replace("[1, 2, 3]", "[1, 2]").replace("pictures = false", "pictures = true\nfits = false")
+
+
+def _pixels(path):
+    import matplotlib.image as mimage
+    return mimage.imread(path)
+
+
+@pytest.fixture(scope="module")
+def traced_unit(tmp_path_factory):
+    """A unit of a picture series and its traced (Result, SkyMap), made the way a run makes them."""
+    from rtrace.batch import plan_units
+    from rtrace.engine import Engine, trace_keywords
+    from rtrace.job import build_views
+    from rtrace.job_snapshot import build_snapshot
+    tmp = tmp_path_factory.mktemp("cache")
+    job = load_job(write(tmp, PICTURE_SERIES))
+    units = plan_units(job, build_views(job), tmp / "out")
+    with Engine(job, trace_keywords(job)) as engine:
+        value = engine.trace(build_snapshot(job, units[0].member), units[0].view, "seed1", "a")
+    return job, units, value, tmp
+
+
+def test_series_cache_gives_back_what_draws_the_same_pictures(traced_unit, tmp_path):
+    # The round trip must keep everything the pictures and the shared colour scales use: compared
+    # against pictures drawn from the traced objects themselves (pixel by pixel).
     from rtrace.batch import Cache
+    from rtrace.products import picture_outputs
+    job, units, (res, sky), _ = traced_unit
+    cache = Cache(tmp_path / ".rtrace-cache")
+    cache.put(units[0], (res, sky))
+    assert cache._file(units[0]).suffix == ".npz"
+    got_res, got_sky = Cache(cache.folder).get(units[0])               # as a resumed run reads it
+    assert got_res is not res and got_sky.result is got_res
+    np.testing.assert_array_equal(got_res.intensity, res.intensity)
+    np.testing.assert_array_equal(got_sky.data, sky.data)
+    assert got_sky.beams == sky.beams and got_sky.seed == sky.seed and got_res.provenance == res.provenance
+    assert colour_scales.view_ranges(got_res, got_sky, 2) == colour_scales.view_ranges(res, sky, 2)
+    plan = picture_outputs(job, units[0], "png", None)
+    assert len(plan) == 8
+    for output in plan:
+        a, b = tmp_path / f"live_{output.path.name}", tmp_path / f"cached_{output.path.name}"
+        output.make(a, res, sky)
+        output.make(b, got_res, got_sky)
+        np.testing.assert_array_equal(_pixels(a), _pixels(b), err_msg=output.path.name)
+
+
+class _Planted:
+    """Unpickling this would create a file: proof that no code ran."""
+
+    def __init__(self, marker):
+        self.marker = str(marker)
+
+    def __reduce__(self):
+        return (Path(self.marker).touch, ())
+
+
+def _tamper(path, how, tmp_path, units):
+    import io
+    import pickle
+    from rtrace.batch import Cache
+    data = path.read_bytes()
+    if how == "flipped":              # one byte a third of the way in (array data)
+        k = len(data) // 3
+        path.write_bytes(data[:k] + bytes([data[k] ^ 0x40]) + data[k + 1:])
+    elif how == "truncated":
+        path.write_bytes(data[: len(data) // 2])
+    elif how == "empty":
+        path.write_bytes(b"")
+    elif how == "pickle":
+        path.write_bytes(pickle.dumps(_Planted(tmp_path / "ran")))
+    elif how == "npz_with_object_array":
+        with np.load(path) as npz:
+            arrays = {k: npz[k] for k in npz.files}
+        arrays["meta"] = np.array([_Planted(tmp_path / "ran")], dtype=object)
+        buf = io.BytesIO()
+        np.savez(buf, **arrays)
+        path.write_bytes(buf.getvalue())
+    elif how == "checksum_recomputed":   # a forger who edits the data and fixes the SHA-256 but lacks the key
+        from rtrace.series_cache import content_digest
+        with np.load(path) as npz:
+            arrays = {k: npz[k] for k in npz.files}
+        arrays["intensity"] = arrays["intensity"] * 2
+        digest = content_digest({k: v for k, v in arrays.items() if k != "checksum"})
+        sig = arrays["checksum"].tobytes().decode().split(" ")[1]
+        arrays["checksum"] = np.frombuffer(f"{digest} {sig}".encode(), np.uint8)
+        buf = io.BytesIO()
+        np.savez(buf, **arrays)
+        path.write_bytes(buf.getvalue())
+    elif how == "another_view":         # a valid entry of another snapshot, copied under this name
+        other = Cache(path.parent.parent)
+        res, sky = other.get(units[0])
+        other.put(units[1], (res, sky))
+        path.write_bytes(other._file(units[1]).read_bytes())
+    else:
+        raise AssertionError(how)
+
+
+TAMPERING = ["flipped", "truncated", "empty", "pickle", "npz_with_object_array", "checksum_recomputed",
+             "another_view", "another_user"]
+
+
+@pytest.mark.parametrize("how", TAMPERING)
+def test_series_cache_never_uses_a_damaged_or_foreign_entry(traced_unit, tmp_path, monkeypatch, how):
+    # Common practice for caches in shared folders: read no pickles, verify a checksum (SHA-256, FIPS 180-4)
+    # and a signature (HMAC-SHA256, RFC 2104) with a key kept outside the output folder.
+    from rtrace.batch import Cache
+    _, units, value, _ = traced_unit
     monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "key"))
-    unit = SimpleNamespace(member={"label": "seed1"}, name="face", data_key="0" * 64)
-    cache = Cache(tmp_path / "out" / ".rtrace-cache")
-    value = {"intensity": np.arange(5.0)}
-    cache.put(unit, value)
-    assert np.array_equal(Cache(cache.folder).get(unit)["intensity"], value["intensity"])   # a resumed run
-    path = cache._file(unit)
-    signed = path.read_bytes()
-    path.write_bytes(signed[:-1] + bytes([signed[-1] ^ 1]))                                # damaged
-    assert cache.get(unit) is None
-    path.write_bytes(pickle.dumps(value))                                                   # unsigned
-    assert cache.get(unit) is None
-    monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "someone-else"))
-    path.write_bytes(signed)
-    assert Cache(cache.folder).get(unit) is None                                            # another key
+    cache = Cache(tmp_path / ".rtrace-cache")
+    cache.put(units[0], value)
+    path = cache._file(units[0])
+    assert cache.get(units[0]) is not None
+    if how == "another_user":           # the same entry, written by a run holding another key
+        monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "someone-else"))
+        Cache(cache.folder).put(units[0], value)
+        monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "key"))
+    else:
+        _tamper(path, how, tmp_path, units)
+    assert Cache(cache.folder).get(units[0]) is None
+    assert not (tmp_path / "ran").exists()                     # nothing in the file was executed
     assert oct((tmp_path / "key" / "series-cache.key").stat().st_mode & 0o777) == "0o600"
+
+
+@pytest.mark.parametrize("how", ["flipped", "truncated", "pickle"])
+def test_a_tampered_cache_entry_is_retraced_and_draws_the_clean_runs_pictures(tmp_path, monkeypatch, how):
+    job_path = write(tmp_path, PICTURE_SERIES)
+    clean = run_job(load_job(write(tmp_path, PICTURE_SERIES.replace('directory = "out"', 'directory = "clean"'),
+                                   "clean.toml")))
+    traces = Counter(rtrace.trace)
+    monkeypatch.setattr(rtrace, "trace", traces)
+    with monkeypatch.context() as m:
+        # interrupted after the first series picture (seed1/a_intensity.png): both views traced and cached
+        m.setattr(Manifest, "record", crashing_record(1, lambda p: p.endswith(".png") and not p.endswith("_sed.png")))
+        with pytest.raises(RuntimeError, match="simulated crash"):
+            run_job(load_job(job_path))
+    assert traces.calls == 2
+    entries = sorted((tmp_path / "out" / ".rtrace-cache").rglob("*.npz"))
+    assert [e.parent.name for e in entries] == ["seed1", "seed2"]
+    _tamper(entries[1], how, tmp_path, None)
+    again = run_job(load_job(job_path))
+    assert traces.calls == 3                   # seed2 traced again; seed1 drawn from its intact entry
+    assert not (tmp_path / "ran").exists()
+    pictures = sorted(p for p in clean if p.endswith(".png") and not p.endswith("_sed.png"))
+    assert len(pictures) == 16 and {p.replace("/clean/", "/out/") for p in pictures} == set(again) | {str(tmp_path / "out/seed1/a_intensity.png")}
+    for p in pictures:
+        np.testing.assert_array_equal(_pixels(p), _pixels(p.replace("/clean/", "/out/")), err_msg=p)
+    assert not hidden_leftovers(tmp_path / "out")
+
+
+def test_a_snapshot_edited_with_its_size_and_mtime_kept_is_traced_again(tmp_path):
+    # The manifest once keyed snapshots on name, size and mtime only: an edit that restores the mtime was missed.
+    (tmp_path / "run").mkdir()
+    snap = tmp_path / "run" / "snap_0010.h5"
+    snapshot_file(snap, 1.0)
+    job_path = write(tmp_path, HDF5_SERIES)
+    out = tmp_path / "out"
+    run_job(load_job(job_path))
+    em = fits.getdata(out / "snap_0010/z_emission_measure.fits").max()
+    st = os.stat(snap)
+    with h5py.File(snap, "r+") as f:            # same datasets, same size: only values change
+        f["ne"][...] = 2 * f["ne"][...]
+    os.utime(snap, ns=(st.st_atime_ns, st.st_mtime_ns))
+    assert (os.stat(snap).st_size, os.stat(snap).st_mtime_ns) == (st.st_size, st.st_mtime_ns)
+    again = run_job(load_job(job_path))
+    assert str(out / "snap_0010/z_emission_measure.fits") in again
+    assert fits.getdata(out / "snap_0010/z_emission_measure.fits").max() == pytest.approx(4 * em, rel=1e-5)
+    # a copy or touch that keeps the bytes is no change: nothing is traced again
+    os.utime(snap, ns=(st.st_atime_ns, st.st_mtime_ns + 10**9))
+    assert list(run_job(load_job(job_path))) == []
+
+
+def test_snapshot_identity_of_large_files_samples_them(tmp_path):
+    # What a sampled hash can and cannot see, on a file above the full-hash limit (made small for the test).
+    from rtrace.io.manifest import snapshot_identity
+    path = tmp_path / "big.bin"
+    block = 1 << 20
+    path.write_bytes(bytes(40 * block))
+    limit = 4 * block
+    first = snapshot_identity(path, full_limit=limit)
+    assert set(first) == {"file", "size", "mtime_ns", "sampled_sha256"}
+    assert snapshot_identity(path) == {"file": "big.bin", "size": 40 * block, "sha256": file_sha256(path)}
+    st = os.stat(path)
+
+    def edit(offset):
+        with open(path, "r+b") as f:
+            f.seek(offset)
+            old = f.read(1)
+            f.seek(offset)
+            f.write(bytes([old[0] ^ 1]))
+        os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
+        return snapshot_identity(path, full_limit=limit)["sampled_sha256"]
+
+    assert edit(0) != first["sampled_sha256"]                       # first MiB
+    assert edit(0) == first["sampled_sha256"]                       # put back
+    assert edit(40 * block - 1) != first["sampled_sha256"]          # last MiB
+    edit(40 * block - 1)
+    # the 16 samples start at round(39 MiB * k / 17): the byte just before the second sample lies in no block
+    gap = int(round(39 * block * 2 / 17)) - 1
+    assert gap > int(round(39 * block / 17)) + block
+    assert edit(gap) == first["sampled_sha256"]                     # documented as not detected
+
+
+def test_an_unreadable_snapshot_is_named_before_any_work(tmp_path):
+    from rtrace.batch import fingerprint
+    (tmp_path / "run").mkdir()
+    snapshot_file(tmp_path / "run" / "snap_0010.h5", 1.0)
+    job = load_job(write(tmp_path, HDF5_SERIES))
+    (tmp_path / "run" / "snap_0010.h5").unlink()
+    with pytest.raises(InputError, match=r"\[snapshot\] path: .*snap_0010.h5.* not a regular file"):
+        fingerprint(job, job.snapshots[0])
 
 
 def test_each_snapshot_of_a_series_gets_its_own_reproducible_noise(tmp_path):

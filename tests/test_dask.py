@@ -96,6 +96,59 @@ def test_a_failing_task_makes_trace_raise(client, tmp_path):
         rtrace.trace(snap, view, NU, brick_size=4, client=client)
 
 
+def _kill_worker_on_first_brick(monkeypatch, kills):
+    """Make the first ``kills`` brick tasks close their own worker abruptly (its data is lost with it)."""
+    import threading
+    import time
+
+    from rtrace.transfer import tracer
+    real = tracer._ObliqueRoute.trace_brick
+    lock, done = threading.Lock(), []
+
+    def trace_brick(self, lo, hi, arrays, origin, **kwargs):
+        with lock:
+            kill = len(done) < kills
+            if kill:
+                done.append(lo)
+        if kill:
+            worker = distributed.get_worker()
+            worker.loop.add_callback(worker.close, nanny=False, executor_wait=False)
+            time.sleep(0.5)                       # the worker goes while this task is running
+        return real(self, lo, hi, arrays, origin, **kwargs)
+
+    monkeypatch.setattr(tracer._ObliqueRoute, "trace_brick", trace_brick)
+    return done
+
+
+def test_a_lost_worker_with_in_memory_bricks_is_traced_again(h5file, monkeypatch):
+    # Reference: the single-process trace. Scattered bricks of an in-memory snapshot die with their worker
+    # (dask cannot recompute scattered data): the view is traced again from the client's copy.
+    snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
+    view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
+    single = rtrace.trace(snap, view, NU, brick_size=6)
+    killed = _kill_worker_on_first_brick(monkeypatch, 1)
+    with distributed.LocalCluster(n_workers=3, threads_per_worker=1, processes=False,
+                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
+        with pytest.warns(UserWarning, match=r"client: the dask cluster lost data .* \(attempt 2 of 3\)"):
+            res = rtrace.trace(snap, view, NU, brick_size=6, client=c)
+    assert len(killed) == 1
+    assert_close(res, single)
+
+
+def test_workers_lost_in_every_attempt_give_a_clear_error(h5file, monkeypatch):
+    from rtrace import parallel
+    from rtrace.errors import ConfigError
+    monkeypatch.setattr(parallel, "ATTEMPTS", 1)
+    snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
+    view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
+    _kill_worker_on_first_brick(monkeypatch, 1)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
+        with pytest.raises(ConfigError, match=r"client: in each of 1 attempt the dask cluster lost a worker "
+                                              r"holding bricks of this in-memory snapshot .*open_hdf5"):
+            rtrace.trace(snap, view, NU, brick_size=6, client=c)
+
+
 def test_client_must_be_a_client(h5file):
     # Common practice: the parameter is named in the error.
     snap = open_hdf5(h5file, temperature="T", electron_density="ne")

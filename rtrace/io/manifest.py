@@ -33,7 +33,7 @@ import numpy as np
 
 from .atomic import atomic_path
 
-__all__ = ["Manifest", "MANIFEST_NAME", "file_sha256", "inputs_key"]
+__all__ = ["Manifest", "MANIFEST_NAME", "file_sha256", "inputs_key", "snapshot_identity", "FULL_HASH_LIMIT"]
 
 MANIFEST_NAME = ".rtrace-manifest.json"
 _FORMAT = "rtrace-manifest"
@@ -59,6 +59,61 @@ def file_sha256(path, chunk_size=1 << 20):
         for block in iter(lambda: handle.read(chunk_size), b""):
             digest.update(block)
     return digest.hexdigest()
+
+
+#: Files up to this size (bytes) are identified by a SHA-256 of their whole content; larger ones by a sample.
+FULL_HASH_LIMIT = 256 << 20
+_BLOCK = 1 << 20           # bytes per sampled block
+_SAMPLES = 16              # evenly spaced blocks between the first and the last
+
+
+def _sampled_sha256(handle, size, block=_BLOCK, samples=_SAMPLES):
+    """SHA-256 of the size, the first and last ``block`` bytes and ``samples`` evenly spaced blocks between."""
+    digest = hashlib.sha256(str(size).encode("ascii"))
+    last = max(size - block, 0)
+    offsets = sorted({0, last, *(int(round(last * k / (samples + 1))) for k in range(1, samples + 1))})
+    for offset in offsets:
+        handle.seek(offset)
+        data = handle.read(block)
+        digest.update(f"{offset}:{len(data)}:".encode("ascii"))
+        digest.update(data)
+    return digest.hexdigest()
+
+
+def snapshot_identity(path, full_limit=FULL_HASH_LIMIT):
+    """What identifies a snapshot file's data in an inputs key.
+
+    A file up to ``full_limit`` bytes (256 MiB) is identified by its name,
+    size and the SHA-256 of its whole content (read in 1 MiB chunks): any
+    change of the data is detected, while a copy or ``touch`` that keeps
+    the bytes is not a change. A larger file is identified by its name,
+    size, modification time and a SHA-256 of its first and last MiB and 16
+    evenly spaced MiB between them: an edit that changes the size or the
+    modification time, or any byte of the sampled blocks, is detected; an
+    edit of the same size outside the sampled blocks whose modification
+    time was put back is not.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    full_limit : int, optional
+        Largest size (bytes) hashed whole.
+
+    Returns
+    -------
+    dict
+        ``{"file", "size", "sha256"}`` or ``{"file", "size", "mtime_ns", "sampled_sha256"}``.
+    """
+    path = Path(path)
+    with open(path, "rb") as handle:
+        st = os.fstat(handle.fileno())
+        if st.st_size <= full_limit:
+            digest = hashlib.sha256()
+            for block in iter(lambda: handle.read(_BLOCK), b""):
+                digest.update(block)
+            return {"file": path.name, "size": st.st_size, "sha256": digest.hexdigest()}
+        return {"file": path.name, "size": st.st_size, "mtime_ns": st.st_mtime_ns,
+                "sampled_sha256": _sampled_sha256(handle, st.st_size)}
 
 
 def _jsonable(value):
