@@ -9,15 +9,16 @@ client for the whole run (started on first use, closed at the end).
 
 import inspect
 import time
+import warnings
 import zlib
 
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError
+from .errors import ConfigError, InputError
 from .observe.edges import warn_if_emission_at_edge
 
-__all__ = ["Engine", "noise_seed", "trace_keywords"]
+__all__ = ["Engine", "noise_seed", "trace_keywords", "check_sizes"]
 
 
 def noise_seed(job, label=None):
@@ -33,15 +34,59 @@ def noise_seed(job, label=None):
     return int(np.random.SeedSequence([seed, label_key]).generate_state(1, np.uint64)[0] >> np.uint64(1))
 
 
-def _observe(res, job, label=None):
+def _job_beam(job):
     import radio_beam
     b = job.beam
-    beam = radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
+    return radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
+
+
+def _observe(res, job, label=None):
+    beam = _job_beam(job)
+    b = job.beam
     noise = job.noise.get("rms") if job.noise else None
     kw = {}
     if b.get("scaling", "none") != "none":
         kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
-    return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label), **kw)
+    return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label),
+                       max_memory=job.parallel.get("max_memory"), **kw)
+
+
+def _check_view(job, name, view, pixel_cm):
+    """The sizes of one view known before tracing: images (npix x frequencies), beam against field."""
+    from .memory import check_memory, format_bytes
+    from .observe.beam import beams_for_frequencies
+    from .observe.skymap import check_observation
+    nu = job.frequencies.to_value(u.Hz)
+    ny, nx = view.shape
+    where = f"[[view]] '{name}' npix"
+    budget = job.parallel.get("max_memory")
+    images = (3 * len(nu) + 1) * 8 * ny * nx         # the tracer's image planes (tracer._Route.finish_bytes)
+    check_memory(images, field=where, budget=budget,
+                 what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
+                 hint="use a smaller npix or fewer frequencies")
+    if job.beam and pixel_cm is not None:
+        b = job.beam
+        ref = b.get("reference_frequency")
+        scaling = None if b.get("scaling", "none") == "none" else b["scaling"]
+        beams = beams_for_frequencies(_job_beam(job), nu, scaling, None if ref is None else ref.to_value(u.Hz))
+        pixel_scale = (pixel_cm / view.distance.to_value(u.cm)) * u.rad
+        check_observation(beams, pixel_scale, (ny, nx), nu, noise=bool(job.noise), max_memory=budget,
+                          beam_field="[beam].major", image_field=where)
+
+
+def check_sizes(job, views):
+    """ConfigError, at validation, for a view whose images or beam kernel will not fit or whose beam is
+    wider than its image (views with a ``width``; the others are checked by :meth:`Engine.trace`
+    once the snapshot's extent is known, still before tracing). See :mod:`rtrace.memory`.
+    """
+    for name, view in views:
+        pixel_cm = None if view.width is None else view.width.to_value(u.cm) / view.shape[1]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")          # the run warns once, when it observes
+            try:
+                _check_view(job, name, view, pixel_cm)
+            except InputError as exc:
+                raise ConfigError(str(exc)) from None
 
 
 def trace_keywords(job):
@@ -102,6 +147,15 @@ class Engine:
             kw["client"] = self._get_client()
         if "max_memory" in self.keywords:
             kw["max_memory"] = job.parallel["max_memory"] * u.byte
+        if job.beam:
+            # the view's extent is known now: a beam wider than the image, or a kernel that
+            # cannot fit, is refused before tracing
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                try:
+                    _check_view(job, view_name, view, view.resolve(snap)[1])
+                except InputError as exc:
+                    raise ConfigError(str(exc)) from None
         t0 = time.perf_counter()
         res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
                     supersample=job.trace.get("supersample", 1), **kw)
