@@ -47,8 +47,9 @@ def _observe(res, job, label=None):
     kw = {}
     if b.get("scaling", "none") != "none":
         kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
+    budget = job.parallel.get("max_memory")        # bytes (an int)
     return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label),
-                       max_memory=job.parallel.get("max_memory"), **kw)
+                       max_memory=None if budget is None else budget * u.byte, **kw)
 
 
 def _check_view(job, name, view, pixel_cm):
