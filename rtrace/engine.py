@@ -65,6 +65,16 @@ def _check_view(job, name, view, pixel_cm):
     check_memory(images, field=where, budget=budget,
                  what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
                  hint="use a smaller npix or fewer frequencies")
+    supersample = int(job.trace.get("supersample", 1))
+    if view.los_axis() is None and job.snapshot.get("kind") == "demo":
+        # an oblique view's lattice has at least (cells x supersample)^2 rays (tracer._ObliqueRoute);
+        # the grid of other kinds is known once read, and the tracer checks it then, before tracing
+        rays = (int(job.snapshot.get("cells", 64)) * supersample) ** 2
+        need = rays * 8 * ((2 * len(nu) + 1) + (3 * len(nu) + 1 + 8))     # tracer._Route: segment + finish
+        check_memory(need, field="[trace].supersample" if supersample > 1 else where, budget=budget,
+                     what=f"view '{name}': a lattice of at least {rays} rays ({supersample} per cell) at "
+                          f"{len(nu)} frequencies",
+                     hint="use a smaller supersample" if supersample > 1 else "use a smaller npix")
     if job.beam and pixel_cm is not None:
         b = job.beam
         ref = b.get("reference_frequency")

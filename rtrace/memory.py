@@ -135,11 +135,11 @@ def check_memory(need, *, field, what, hint, budget=None):
     """
     need = int(need)
     if budget is not None and need > budget:
-        raise InputError(f"{field}: {what} needs about {format_bytes(need)}, more than max_memory = "
+        raise InputError(f"{field}: {what} would need about {format_bytes(need)}, more than max_memory = "
                          f"{format_bytes(budget)}; {hint}")
     avail = available_memory()
     if avail is not None and need > HEADROOM * avail:
-        raise InputError(f"{field}: {what} needs about {format_bytes(need)}, more than "
+        raise InputError(f"{field}: {what} would need about {format_bytes(need)}, more than "
                          f"{HEADROOM:.0%} of the {format_bytes(avail)} of memory available on this machine; "
                          f"{hint}")
     return need

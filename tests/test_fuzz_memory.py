@@ -286,6 +286,10 @@ CASES = [
     Case("job npix over [parallel].max_memory", _parse(npix=2000, extra='\n[parallel]\nmax_memory = "50 MB"\n'),
          ConfigError, "max_memory"),
     Case("job npix 20000 names the view", _parse(npix=20000), ConfigError, "'a'"),
+    Case("job [trace] supersample 1000 oblique", _parse(extra='los = [1, 1, 1]\n[trace]\nsupersample = 1000\n'),
+         ConfigError, "[trace].supersample"),
+    Case("job [trace] supersample 1000 names the view",
+         _parse(extra='los = [1, 2, 3]\n[trace]\nsupersample = 1000\n'), ConfigError, "view 'a'"),
     # -- job files, at run time (view without width: its extent is known from the snapshot) ----------
     Case("run_job 10 deg beam, fitted width", _run(width="", extra=BEAM_10DEG), ConfigError, "[beam].major",
          writes=True),
@@ -296,6 +300,8 @@ CASES = [
     Case("cli run [beam] 10 deg fitted width", _cli_run(width="", extra=BEAM_10DEG), 3, "[beam].major",
          writes=True),
     Case("cli run npix 20000", _cli_run(npix=20000), 3, "npix", writes=True),
+    Case("cli run supersample 1000", _cli_run(extra='los = [1, 1, 1]\n[trace]\nsupersample = 1000\n'), 3,
+         "[trace].supersample", writes=True),
     Case("cli compare BMAJ 10 deg", _cli_compare(10.0), 4, "BMAJ", writes=True),
     Case("cli compare --beam 10 deg", _cli_compare(10 / 3600, ["--beam", "10 deg, 10 deg, 0 deg"]), 4, "--beam",
          writes=True),
@@ -427,7 +433,7 @@ def test_check_memory_message_says_what_how_much_and_how_to_reduce():
     with pytest.raises(InputError) as info:
         check_memory(10 * GB, field="npix", what="images", hint="use a smaller npix")
     text = str(info.value)
-    assert text.startswith("npix: images needs about 10 GB")
+    assert text.startswith("npix: images would need about 10 GB")
     assert "8 GB of memory available" in text and "use a smaller npix" in text
 
 

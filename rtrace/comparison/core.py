@@ -118,7 +118,7 @@ def _check_beam(obs, cube, model_name, max_memory):
     from ..observe.skymap import check_observation
     field = f"{obs.source or 'observation'} BMAJ" if obs.beam_source == "BMAJ/BMIN/BPA" else obs.beam_source
     check_observation([obs.beam], cube.pixel_scale, cube.shape, [obs.frequency.to_value(u.Hz)],
-                      max_memory=max_memory, beam_field=field, image_field=model_name, image=model_name)
+                      max_memory=max_memory, beam_field=field, image_field=model_name, image="model")
 
 
 @dataclass(frozen=True)

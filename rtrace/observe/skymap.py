@@ -181,8 +181,10 @@ def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=
     need = observe_bytes(len(nu), image_shape, kernels, noise)
     images = observe_bytes(len(nu), image_shape, [], noise)
     ny, nx = image_shape
-    what = (f"observing {len(nu)} frequencies of {ny} x {nx} pixels ({format_bytes(images)} of images) "
-            f"through {len(kernels)} beam kernel(s) of up to {max(2 * h + 1 for h, _ in kernels)} pixels across")
+    nf, nk = len(nu), len(kernels)
+    what = (f"observing {nf} frequenc{'y' if nf == 1 else 'ies'} of {ny} x {nx} pixels ({format_bytes(images)} of "
+            f"images) through {nk} beam kernel{'' if nk == 1 else 's'} of up to "
+            f"{max(2 * h + 1 for h, _ in kernels)} pixels across")
     if need - images > images:
         field, hint = beam_field, "use a smaller beam, or coarser pixels (a smaller npix over the same width)"
     else:
