@@ -83,6 +83,15 @@ def _check_view(job, name, view, pixel_cm):
         pixel_scale = (pixel_cm / view.distance.to_value(u.cm)) * u.rad
         check_observation(beams, pixel_scale, (ny, nx), nu, noise=bool(job.noise), max_memory=budget,
                           beam_field="[beam].major", image_field=where)
+    cmp = job.comparison
+    if cmp and pixel_cm is not None and name in cmp.get("views", ()):
+        # the observed beam is laid on the model's own grid before it is reprojected
+        obs = cmp["kwargs"]["observation"]
+        field = ("[comparison].beam" if obs.beam_source != "BMAJ/BMIN/BPA"
+                 else f"[comparison].observation ({obs.source}) BMAJ")
+        check_observation([obs.beam], (pixel_cm / view.distance.to_value(u.cm)) * u.rad, (ny, nx),
+                          [obs.frequency.to_value(u.Hz)], max_memory=budget, beam_field=field,
+                          image_field=where, image=f"model of view '{name}'")
 
 
 def check_sizes(job, views):
@@ -158,7 +167,7 @@ class Engine:
             kw["client"] = self._get_client()
         if "max_memory" in self.keywords:
             kw["max_memory"] = job.parallel["max_memory"] * u.byte
-        if job.beam:
+        if job.beam or job.comparison:
             # the view's extent is known now: a beam wider than the image, or a kernel that
             # cannot fit, is refused before tracing
             with warnings.catch_warnings():

@@ -129,6 +129,14 @@ def write_job(tmp_path, text):
     return path
 
 
+def _parse_comparison(beam_deg, width='width = "8 pc"', run=False):
+    def call(c):
+        observed_hdu(c.result, beam_deg).writeto(c.tmp / "obs.fits")
+        job = parse(job_text(width=width, extra='\n[comparison]\nobservation = "obs.fits"\n'), c.tmp)
+        return run_job(job) if run else job
+    return call
+
+
 # -- the table ----------------------------------------------------------------------------------
 
 @dataclass
@@ -290,11 +298,16 @@ CASES = [
          ConfigError, "[trace].supersample"),
     Case("job [trace] supersample 1000 names the view",
          _parse(extra='los = [1, 2, 3]\n[trace]\nsupersample = 1000\n'), ConfigError, "view 'a'"),
+    Case("job [comparison] observation BMAJ 10 deg", _parse_comparison(10.0), ConfigError,
+         "[comparison].observation (obs.fits) BMAJ"),
+    Case("job [comparison] observation BMAJ 1 deg", _parse_comparison(1.0), ConfigError, "BMAJ"),
     # -- job files, at run time (view without width: its extent is known from the snapshot) ----------
     Case("run_job 10 deg beam, fitted width", _run(width="", extra=BEAM_10DEG), ConfigError, "[beam].major",
          writes=True),
     Case("run_job 1 deg beam, fitted width", _run(width="", extra='\n[beam]\nmajor = "1 deg"\n'), ConfigError,
          "[beam].major", writes=True),
+    Case("run_job [comparison] BMAJ 10 deg, fitted width", _parse_comparison(10.0, width="", run=True),
+         ConfigError, "BMAJ", writes=True),
     # -- command line --------------------------------------------------------------------------------
     Case("cli run [beam] 10 deg", _cli_run(extra=BEAM_10DEG), 3, "[beam].major", writes=True),
     Case("cli run [beam] 10 deg fitted width", _cli_run(width="", extra=BEAM_10DEG), 3, "[beam].major",
