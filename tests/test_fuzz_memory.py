@@ -272,7 +272,7 @@ CASES = [
                                                             hour_angle_step=0.5 * u.min), InputError,
          "hour_angle_step"),
     Case("synthesize max_memory", _synth(max_memory="1 MB"), InputError, "max_memory"),
-    Case("synthesize image_size 1024, max_memory", _synth(image_size=1024, max_memory="200 MB"), InputError,
+    Case("synthesize image_size 1024, max_memory", _synth(image_size=1024, max_memory="100 MB"), InputError,
          "image_size"),
     # -- job files, at validation ------------------------------------------------------------------
     Case("job [beam] major 10 deg", _parse(extra=BEAM_10DEG), ConfigError, "[beam].major"),
@@ -394,6 +394,31 @@ def test_trace_estimate_matches_tracemalloc(snap):
     # the estimate is a lower bound of the per-ray state and images: the real peak adds the
     # snapshot's per-call temporaries, but not many times over
     assert 0.5 * peak <= seen["need"] <= 1.5 * peak, (seen["need"], peak)
+
+
+def test_synthesis_estimate_matches_tracemalloc(result):
+    import warnings
+    from rtrace.interferometer import synthesis
+    seen = {}
+    real = synthesis._check_size
+
+    def spy(*args):
+        seen["need"] = real(*args)
+        return seen["need"]
+
+    kw = dict(antennas=ARRAY, latitude=30 * u.deg, n_hour_angles=400, image_size=192)
+    synthesis._check_size = spy
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            synthesis.synthesize(result, **kw)            # compiled outside the measurement
+            tracemalloc.start()
+            synthesis.synthesize(result, **kw)
+            _, peak = tracemalloc.get_traced_memory()
+            tracemalloc.stop()
+    finally:
+        synthesis._check_size = real
+    assert 0.5 * peak <= seen["need"] <= 2.0 * peak, (seen["need"], peak)
 
 
 def test_observe_estimate_matches_tracemalloc(snap):

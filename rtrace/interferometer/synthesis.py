@@ -98,7 +98,10 @@ def _check_size(nfreq, size, nvis, model_shape, max_memory, sample_field):
         from ..transfer.bricks import parse_memory
         budget = parse_memory(max_memory)
     from .sampling import _CHUNK_ELEMENTS
-    images, samples = synthesis_bytes(nfreq, size, nvis, model_shape, chunk_bytes=8 * 16 * _CHUNK_ELEMENTS)
+    # the Fourier sums work in chunks of at most _CHUNK_ELEMENTS complex values (fewer with few
+    # samples); their peak is about one and a half such arrays (measured with tracemalloc)
+    chunk = min(_CHUNK_ELEMENTS, nvis * max(sum(model_shape), 4 * size))
+    images, samples = synthesis_bytes(nfreq, size, nvis, model_shape, chunk_bytes=24 * chunk)
     what = (f"a synthesis of {nfreq} frequencies on a {size} x {size} grid ({format_bytes(images)} of images) "
             f"from {nvis} (u, v) samples per frequency ({format_bytes(samples)})")
     if images >= samples:
@@ -106,7 +109,7 @@ def _check_size(nfreq, size, nvis, model_shape, max_memory, sample_field):
     else:
         field, hint = sample_field, ("use fewer hour-angle samples (a larger hour_angle_step, fewer "
                                      "n_hour_angles), a shorter hour_angle_range or fewer antennas")
-    check_memory(images + samples, field=field, what=what, hint=hint, budget=budget)
+    return check_memory(images + samples, field=field, what=what, hint=hint, budget=budget)
 
 
 def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.hourangle, hour_angle_step=None,
