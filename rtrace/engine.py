@@ -9,15 +9,16 @@ client for the whole run (started on first use, closed at the end).
 
 import inspect
 import time
+import warnings
 import zlib
 
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError
+from .errors import ConfigError, InputError
 from .observe.edges import warn_if_emission_at_edge
 
-__all__ = ["Engine", "noise_seed", "trace_keywords"]
+__all__ = ["Engine", "noise_seed", "trace_keywords", "check_sizes"]
 
 
 def noise_seed(job, label=None):
@@ -33,15 +34,79 @@ def noise_seed(job, label=None):
     return int(np.random.SeedSequence([seed, label_key]).generate_state(1, np.uint64)[0] >> np.uint64(1))
 
 
-def _observe(res, job, label=None):
+def _job_beam(job):
     import radio_beam
     b = job.beam
-    beam = radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
+    return radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
+
+
+def _observe(res, job, label=None):
+    beam = _job_beam(job)
+    b = job.beam
     noise = job.noise.get("rms") if job.noise else None
     kw = {}
     if b.get("scaling", "none") != "none":
         kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
-    return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label), **kw)
+    budget = job.parallel.get("max_memory")        # bytes (an int)
+    return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label),
+                       max_memory=None if budget is None else budget * u.byte, **kw)
+
+
+def _check_view(job, name, view, pixel_cm):
+    """The sizes of one view known before tracing: images (npix x frequencies), beam against field."""
+    from .memory import check_memory, format_bytes
+    from .observe.beam import beams_for_frequencies
+    from .observe.skymap import check_observation
+    nu = job.frequencies.to_value(u.Hz)
+    ny, nx = view.shape
+    where = f"[[view]] '{name}' npix"
+    budget = job.parallel.get("max_memory")
+    images = (3 * len(nu) + 1) * 8 * ny * nx         # the tracer's image planes (tracer._Route.finish_bytes)
+    check_memory(images, field=where, budget=budget,
+                 what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
+                 hint="use a smaller npix or fewer frequencies")
+    supersample = int(job.trace.get("supersample", 1))
+    if view.los_axis() is None and job.snapshot.get("kind") == "demo":
+        # an oblique view's lattice has at least (cells x supersample)^2 rays (tracer._ObliqueRoute);
+        # the grid of other kinds is known once read, and the tracer checks it then, before tracing
+        rays = (int(job.snapshot.get("cells", 64)) * supersample) ** 2
+        need = rays * 8 * ((2 * len(nu) + 1) + (3 * len(nu) + 1 + 8))     # tracer._Route: segment + finish
+        check_memory(need, field="[trace].supersample" if supersample > 1 else where, budget=budget,
+                     what=f"view '{name}': a lattice of at least {rays} rays ({supersample} per cell) at "
+                          f"{len(nu)} frequencies",
+                     hint="use a smaller supersample" if supersample > 1 else "use a smaller npix")
+    if job.beam and pixel_cm is not None:
+        b = job.beam
+        ref = b.get("reference_frequency")
+        scaling = None if b.get("scaling", "none") == "none" else b["scaling"]
+        beams = beams_for_frequencies(_job_beam(job), nu, scaling, None if ref is None else ref.to_value(u.Hz))
+        pixel_scale = (pixel_cm / view.distance.to_value(u.cm)) * u.rad
+        check_observation(beams, pixel_scale, (ny, nx), nu, noise=bool(job.noise), max_memory=budget,
+                          beam_field="[beam].major", image_field=where)
+    cmp = job.comparison
+    if cmp and pixel_cm is not None and name in cmp.get("views", ()):
+        # the observed beam is laid on the model's own grid before it is reprojected
+        obs = cmp["kwargs"]["observation"]
+        field = ("[comparison].beam" if obs.beam_source != "BMAJ/BMIN/BPA"
+                 else f"[comparison].observation ({obs.source}) BMAJ")
+        check_observation([obs.beam], (pixel_cm / view.distance.to_value(u.cm)) * u.rad, (ny, nx),
+                          [obs.frequency.to_value(u.Hz)], max_memory=budget, beam_field=field,
+                          image_field=where, image=f"model of view '{name}'")
+
+
+def check_sizes(job, views):
+    """ConfigError, at validation, for a view whose images or beam kernel will not fit or whose beam is
+    wider than its image (views with a ``width``; the others are checked by :meth:`Engine.trace`
+    once the snapshot's extent is known, still before tracing). See :mod:`rtrace.memory`.
+    """
+    for name, view in views:
+        pixel_cm = None if view.width is None else view.width.to_value(u.cm) / view.shape[1]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")          # the run warns once, when it observes
+            try:
+                _check_view(job, name, view, pixel_cm)
+            except InputError as exc:
+                raise ConfigError(str(exc)) from None
 
 
 def trace_keywords(job):
@@ -102,6 +167,15 @@ class Engine:
             kw["client"] = self._get_client()
         if "max_memory" in self.keywords:
             kw["max_memory"] = job.parallel["max_memory"] * u.byte
+        if job.beam or job.comparison:
+            # the view's extent is known now: a beam wider than the image, or a kernel that
+            # cannot fit, is refused before tracing
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                try:
+                    _check_view(job, view_name, view, view.resolve(snap)[1])
+                except InputError as exc:
+                    raise ConfigError(str(exc)) from None
         t0 = time.perf_counter()
         res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
                     supersample=job.trace.get("supersample", 1), **kw)

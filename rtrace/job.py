@@ -614,6 +614,8 @@ def parse_job(raw, base_dir="."):
     job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par,
               synthesis=synthesis, comparison=comparison)
     built = build_views(job)      # the View constructor validates geometry now, not after tracing
+    from .engine import check_sizes
+    check_sizes(job, built)       # images and beam kernels fit in memory; beam narrower than the field
     from .job_study import check_synthesis_grids
     check_synthesis_grids(job, built)
     from .job_snapshot import check_datasets, check_ionization

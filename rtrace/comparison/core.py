@@ -44,7 +44,8 @@ __all__ = ["compare", "Comparison", "ApertureFlux", "RadialProfile", "REPROJECT_
 REPROJECT_ORDERS = ("bicubic", "bilinear", "biquadratic", "nearest-neighbor")
 
 
-def compare(result, observation, *, frequency=None, beam=None, unit=None, order="bicubic", model_name="result"):
+def compare(result, observation, *, frequency=None, beam=None, unit=None, order="bicubic", model_name="result",
+            max_memory=None):
     """Compare a model with an observed image, on the observed image's grid.
 
     Parameters
@@ -71,6 +72,9 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
     model_name : str, optional
         What messages about the model call it (the command line says
         ``model``, its argument's name).
+    max_memory : `~astropy.units.Quantity` or str, optional
+        Bytes the beam convolution may take (``"2 GB"``); the machine's
+        available memory is always checked.
 
     Returns
     -------
@@ -81,7 +85,10 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
     InputError
         Unreadable or incomplete observation (no frequency, no beam, unit not
         Jy/beam or K), a frequency outside the traced range, a model beam
-        larger than the observed one, or no overlap between the two.
+        larger than the observed one, no overlap between the two, an observed
+        beam wider than the model's field (most of the model's flux would be
+        lost at its edges; see :func:`rtrace.observe.beam.check_beam_fits_field`)
+        or a beam kernel that would not fit in memory (checked before it is made).
     """
     if order not in REPROJECT_ORDERS:
         raise InputError(f"order: expected one of {', '.join(REPROJECT_ORDERS)}, got {order!r}")
@@ -90,6 +97,7 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
     obs = read_observation(observation, frequency=frequency, beam=beam, unit=unit)
     notes = list(obs.notes)
     cube = model_cube(result, model_name)
+    _check_beam(obs, cube, model_name, max_memory)
     native = model_image(cube, obs.frequency.to_value(u.Hz), obs.beam, notes, model_name)
     on_grid, footprint = reproject_interp((native, cube.wcs), obs.wcs, shape_out=obs.shape, order=order)
     on_grid = np.where(footprint > 0, on_grid, np.nan)
@@ -103,6 +111,14 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
         note(notes, f"the model covers {n_common} of the {n_obs} observed pixels "
                     f"({100.0 * n_common / n_obs:.1f} %); totals and ratios use those (the common footprint)")
     return Comparison(obs, on_grid, common, cube, notes, order)
+
+
+def _check_beam(obs, cube, model_name, max_memory):
+    """The observed beam fits the model's field, and its kernel fits in memory (before it is made)."""
+    from ..observe.skymap import check_observation
+    field = f"{obs.source or 'observation'} BMAJ" if obs.beam_source == "BMAJ/BMIN/BPA" else obs.beam_source
+    check_observation([obs.beam], cube.pixel_scale, cube.shape, [obs.frequency.to_value(u.Hz)],
+                      max_memory=max_memory, beam_field=field, image_field=model_name, image="model")
 
 
 @dataclass(frozen=True)

@@ -26,6 +26,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..memory import check_memory, format_bytes, synthesis_bytes
 from ..quantities import finite_number, positive_scalar
 from ..io.fits import write_cube
 from ..observe.beam import describe_beam
@@ -90,11 +91,32 @@ def _threshold_jyb(threshold):
     return float(t)
 
 
+def _check_size(nfreq, size, nvis, model_shape, max_memory, sample_field):
+    """Refuse a synthesis whose buffers would not fit in memory, before the tracks are computed."""
+    budget = None
+    if max_memory is not None:
+        from ..transfer.bricks import parse_memory
+        budget = parse_memory(max_memory)
+    from .sampling import _CHUNK_ELEMENTS
+    # the Fourier sums work in chunks of at most _CHUNK_ELEMENTS complex values (fewer with few
+    # samples); their peak is about one and a half such arrays (measured with tracemalloc)
+    chunk = min(_CHUNK_ELEMENTS, nvis * max(sum(model_shape), 4 * size))
+    images, samples = synthesis_bytes(nfreq, size, nvis, model_shape, chunk_bytes=24 * chunk)
+    what = (f"a synthesis of {nfreq} frequencies on a {size} x {size} grid ({format_bytes(images)} of images) "
+            f"from {nvis} (u, v) samples per frequency ({format_bytes(samples)})")
+    if images >= samples:
+        field, hint = "image_size", "use a smaller image_size (or a larger pixel_scale) or fewer frequencies"
+    else:
+        field, hint = sample_field, ("use fewer hour-angle samples (a larger hour_angle_step, fewer "
+                                     "n_hour_angles), a shorter hour_angle_range or fewer antennas")
+    return check_memory(images + samples, field=field, what=what, hint=hint, budget=budget)
+
+
 def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.hourangle, hour_angle_step=None,
                n_hour_angles=None, antenna_unit=None, min_elevation=0 * u.deg, dish_diameter=None,
                primary_beam="gaussian", primary_beam_fwhm_factor=GAUSSIAN_FWHM_FACTOR, weighting="natural",
                robust=0.0, gain=DEFAULT_GAIN, niter=DEFAULT_NITER, threshold=None, background=None,
-               subtract_background=None, pixel_scale=None, image_size=None):
+               subtract_background=None, pixel_scale=None, image_size=None, max_memory=None):
     """Observe a traced Result with an Earth-rotation synthesis array and image it.
 
     Parameters
@@ -166,6 +188,11 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         when ``dish_diameter`` is given and that is smaller; at most 1024
         pixels (a larger choice is an InputError, raised before any
         transform). See :mod:`rtrace.interferometer.grid`.
+    max_memory : `~astropy.units.Quantity` or str, optional
+        Bytes the synthesis may take (``"2 GB"``); the machine's available
+        memory is always checked. The image buffers and the (u, v) samples
+        of every frequency are estimated before the tracks are computed, and
+        an InputError names what to reduce when they would not fit.
 
     Returns
     -------
@@ -239,6 +266,8 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
                       f"source below min_elevation={math.degrees(min_el):.6g} deg and are dropped",
                       SynthesisWarning, stacklevel=2)
     ha = ha_all[keep]
+    _check_size(nfreq, grid.size, int(ha.size) * len(pairs0), (mny, mnx), max_memory,
+                "n_hour_angles" if n_hour_angles is not None and hour_angle_step is None else "hour_angle_step")
     uvw3, pairs, xyz = uvw_tracks(pos, lat, dec, ha)
     uvw_half = uvw3.reshape(-1, 3)                            # (nh * nb, 3) metres
     nhalf = uvw_half.shape[0]

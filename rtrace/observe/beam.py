@@ -15,6 +15,15 @@ Conventions (part of the public contract):
   to what spills over the image edge). A beam narrow compared with a pixel
   is integrated over each pixel (supersampled) instead of point-sampled,
   so its shape on the grid is still right.
+* A beam whose FWHM major axis is wider than the image's narrower side is
+  refused (:func:`check_beam_fits_field`): even a point source at the centre
+  would keep under 58% of its flux on the image (the share inside a square of
+  side FWHM is ``erf(sqrt(ln 2))^2 = 0.579`` for a circular Gaussian), and
+  diffuse emission far less. Above half that side a warning says so (a
+  central point source then keeps ``erf(2 sqrt(ln 2))^2 = 96.4%`` at best).
+* The kernel's bytes and those of its padded FFT are known before either is
+  made (:func:`kernel_geometry`, :func:`rtrace.memory.fft_kernel_bytes`): a
+  kernel that would not fit in memory is an InputError naming the beam.
 """
 
 import math
@@ -24,10 +33,12 @@ import numpy as np
 import radio_beam
 import scipy.fft
 
-from ..errors import InputError
+from ..errors import InputError, warn_user
+from ..memory import check_memory, fft_kernel_bytes
 
 __all__ = ["BeamKernel", "describe_beam", "validate_beam", "beams_for_frequencies", "BEAM_SCALINGS",
-           "KERNEL_HALF_WIDTH_SIGMA", "SUPERSAMPLE_BELOW_SIGMA"]
+           "KERNEL_HALF_WIDTH_SIGMA", "SUPERSAMPLE_BELOW_SIGMA", "kernel_geometry", "check_beam_fits_field",
+           "BEAM_FIELD_ERROR", "BEAM_FIELD_WARNING"]
 
 # FWHM = sqrt(8 ln 2) sigma for a Gaussian (standard identity).
 _FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))
@@ -45,6 +56,80 @@ SUPERSAMPLE_BELOW_SIGMA = 1.0
 _MAX_SUPERSAMPLE = 65
 
 BEAM_SCALINGS = (None, "inverse-frequency")
+
+#: A beam FWHM (major axis) above this fraction of the image's narrower side is an InputError.
+BEAM_FIELD_ERROR = 1.0
+#: Above this fraction, a warning: a point source at the centre loses more than 3.6% of its flux.
+BEAM_FIELD_WARNING = 0.5
+
+
+def kernel_geometry(beam, pixel_arcsec, image_shape):
+    """Sizes of the kernel a `BeamKernel` would build, computed without allocating anything.
+
+    Parameters
+    ----------
+    beam : `radio_beam.Beam`
+    pixel_arcsec : float
+        Pixel side in arcsec.
+    image_shape : (int, int)
+
+    Returns
+    -------
+    dict
+        ``sigma_pixels`` (major, minor), ``supersample``, ``half`` and ``fft_shape``.
+    """
+    sig_maj = beam.major.to_value(u.arcsec) / pixel_arcsec / _FWHM_PER_SIGMA
+    sig_min = beam.minor.to_value(u.arcsec) / pixel_arcsec / _FWHM_PER_SIGMA
+    half = max(1, int(math.ceil(KERNEL_HALF_WIDTH_SIGMA * sig_maj)))
+    ny, nx = (int(n) for n in image_shape)
+    fft_shape = (scipy.fft.next_fast_len(ny + 2 * half, real=True),
+                 scipy.fft.next_fast_len(nx + 2 * half, real=True))
+    return dict(sigma_pixels=(sig_maj, sig_min), supersample=_supersample_factor(sig_min), half=half,
+                fft_shape=fft_shape)
+
+
+def check_beam_fits_field(beams, pixel_scale, image_shape, name="beam", frequencies_hz=None, image="image"):
+    """Refuse a beam wider than the image; warn when it is wider than half of it.
+
+    Parameters
+    ----------
+    beams : list of `radio_beam.Beam`
+        The beam at each frequency (the widest is checked).
+    pixel_scale : `~astropy.units.Quantity`
+        Pixel side (angle).
+    image_shape : (int, int)
+        ``(ny, nx)``.
+    name : str
+        The field named by the message (``"beam"``, ``"[beam].major"``, ``"BMAJ"``).
+    frequencies_hz : array-like, optional
+        The frequency of each beam, to say where the widest one applies.
+    image : str
+        What the messages call the image (``"image"``, ``"model"``).
+
+    Raises
+    ------
+    InputError
+        If the widest beam's FWHM major axis exceeds ``BEAM_FIELD_ERROR`` times
+        the image's narrower side (see the module docstring for why there).
+    """
+    pix = u.Quantity(pixel_scale).to_value(u.arcsec)
+    field = min(int(n) for n in image_shape) * pix
+    majors = [b.major.to_value(u.arcsec) for b in beams]
+    k = int(np.argmax(majors))
+    major = majors[k]
+    at = "" if frequencies_hz is None else f" at {float(frequencies_hz[k]) / 1e9:.4g} GHz"
+    ny, nx = (int(n) for n in image_shape)
+    if major > BEAM_FIELD_ERROR * field:
+        raise InputError(f"{name}: the beam's FWHM ({major:.6g} arcsec{at}) is wider than the {image} "
+                         f"({ny} x {nx} pixels of {pix:.4g} arcsec, {field:.6g} arcsec across its narrower "
+                         f"side): most of the flux would be spread outside the {image} (a point source at its "
+                         "centre would keep under 58%); widen the view (a larger width at the same or a larger "
+                         "npix) or use a smaller beam")
+    if major > BEAM_FIELD_WARNING * field:
+        warn_user(f"{name}: the beam's FWHM ({major:.6g} arcsec{at}) is more than half the {image}'s narrower "
+                  f"side ({field:.6g} arcsec): convolution spreads a noticeable share of the flux outside "
+                  f"the {image} (over 3.6% even for a point source at the centre); widen the view for fluxes "
+                  "and SEDs", UserWarning)
 
 
 def validate_beam(beam, name="beam"):
@@ -150,6 +235,17 @@ class BeamKernel:
         Angular size of a (square) pixel.
     image_shape : (int, int)
         ``(ny, nx)`` of the images to convolve.
+    name : str, optional
+        The field named by errors (default ``"beam"``).
+    max_memory : int, optional
+        Bytes the kernel and its FFT may take; the machine's available memory
+        is always checked.
+
+    Raises
+    ------
+    InputError
+        A bad beam or pixel scale; a kernel and padded FFT that would not fit
+        in memory (checked before either is made).
 
     Attributes
     ----------
@@ -167,26 +263,30 @@ class BeamKernel:
         Sub-samples per pixel side used to build the kernel (1: point-sampled).
     """
 
-    def __init__(self, beam, pixel_scale, image_shape):
-        validate_beam(beam)
+    def __init__(self, beam, pixel_scale, image_shape, *, name="beam", max_memory=None):
+        validate_beam(beam, name)
         pix = u.Quantity(pixel_scale).to_value(u.arcsec)
         if not (np.isfinite(pix) and pix > 0):
             raise InputError(f"pixel_scale: must be a positive angle, got {pixel_scale}")
         self.beam = beam
         self.image_shape = tuple(int(n) for n in image_shape)
-        sig_maj = beam.major.to_value(u.arcsec) / pix / _FWHM_PER_SIGMA
-        sig_min = beam.minor.to_value(u.arcsec) / pix / _FWHM_PER_SIGMA
-        self.sigma_pixels = (sig_maj, sig_min)
-        self.supersample = _supersample_factor(sig_min)
-        self.half = max(1, int(math.ceil(KERNEL_HALF_WIDTH_SIGMA * sig_maj)))
+        geo = kernel_geometry(beam, pix, self.image_shape)
+        sig_maj, sig_min = self.sigma_pixels = geo["sigma_pixels"]
+        self.supersample = geo["supersample"]
+        self.half = geo["half"]
+        held, transient = fft_kernel_bytes(self.half, geo["fft_shape"])
+        side = 2 * self.half + 1
+        check_memory(held + transient, field=name, budget=max_memory,
+                     what=(f"a beam kernel of {side} x {side} pixels (FWHM {beam.major.to_value(u.arcsec):.6g} "
+                           f"arcsec on {pix:.4g} arcsec pixels) and its padded FFT of {geo['fft_shape'][0]} x "
+                           f"{geo['fft_shape'][1]}"),
+                     hint="use a smaller beam, or coarser pixels (a smaller npix over the same width)")
         self.kernel = _gaussian_on_grid(self.half, sig_maj, sig_min, beam.pa.to_value(u.rad),
                                         self.supersample)
         self.sum_squares = float(np.sum(self.kernel**2))
         # radio_beam's sr is the Gaussian solid angle pi bmaj bmin / (4 ln 2)
         self.area_pixels = float(beam.sr.to_value(u.sr) / ((pix * u.arcsec).to_value(u.rad)) ** 2)
-        ny, nx = self.image_shape
-        self.fft_shape = (scipy.fft.next_fast_len(ny + 2 * self.half, real=True),
-                          scipy.fft.next_fast_len(nx + 2 * self.half, real=True))
+        self.fft_shape = geo["fft_shape"]
         # The kernel's centre goes to index (0, 0) with negative offsets wrapped to the far
         # end: the product of transforms is then the centred convolution, and the padding
         # of at least 2 half keeps the image's own wrap-around out of the first ny x nx.

@@ -4,14 +4,16 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..memory import check_memory, format_bytes, observe_bytes
 from ..quantities import finite_number, positive_scalar
 from ..transfer.background import brightness_temperature_cgs, check_convention, resolve_convention
 from ..transfer.result import Result
-from .beam import BeamKernel, beams_for_frequencies, describe_beam, validate_beam
+from .beam import (BeamKernel, beams_for_frequencies, check_beam_fits_field, describe_beam, kernel_geometry,
+                   validate_beam)
 from .edges import warn_if_emission_at_edge
 from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_frequency
 
-__all__ = ["SkyMap", "observe"]
+__all__ = ["SkyMap", "observe", "check_observation"]
 
 _JY_CGS = 1.0e-23          # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
 
@@ -25,7 +27,7 @@ def _reference_frequency(reference_frequency, scaling):
 
 
 def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
-            *, background=None, subtract_background=None):
+            *, background=None, subtract_background=None, max_memory=None):
     """Convolve a traced Result with a beam and add beam-correlated noise.
 
     Parameters
@@ -59,10 +61,21 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
         loss at the image edges). Without a background both are the same.
     subtract_background : bool, optional
         Deprecated spelling of ``background``.
+    max_memory : `~astropy.units.Quantity` or str, optional
+        Bytes the observation may take (``2 * u.GB``, ``"500 MB"``); the
+        machine's available memory is always checked.
 
     Returns
     -------
     `SkyMap`
+
+    Raises
+    ------
+    InputError
+        Bad arguments; a beam wider than the image (see
+        :func:`rtrace.observe.beam.check_beam_fits_field`); images and beam
+        kernels that would not fit in memory (both checked before any
+        kernel or image is made).
     """
     if not isinstance(result, Result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
@@ -73,6 +86,13 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     ref_hz = _reference_frequency(reference_frequency, beam_scaling)
     nu = result.frequencies.to_value(u.Hz)
     rms = noise_rms_per_frequency(noise, len(nu))
+    budget = None
+    if max_memory is not None:
+        from ..transfer.bricks import parse_memory
+        budget = parse_memory(max_memory)
+    beams = beams_for_frequencies(beam, nu, beam_scaling, ref_hz)
+    image_shape = tuple(result.shape[1:])
+    check_observation(beams, result.pixel_scale, image_shape, nu, noise=rms is not None, max_memory=budget)
 
     # always convolved without the background: a uniform level is added back (exactly) on request
     intensity = np.asarray(result.specific_intensity("subtracted").value, float)
@@ -83,14 +103,12 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     jy_per_pixel = intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
     warn_if_emission_at_edge(jy_per_pixel, nu, "observe")
 
-    beams = beams_for_frequencies(beam, nu, beam_scaling, ref_hz)
-    image_shape = intensity.shape[1:]
     kernels = {}                   # one kernel (and one kernel FFT) per distinct beam
     per_freq = []
     for b in beams:
         key = (b.major.to_value(u.arcsec), b.minor.to_value(u.arcsec), b.pa.to_value(u.deg))
         if key not in kernels:
-            kernels[key] = BeamKernel(b, result.pixel_scale, image_shape)
+            kernels[key] = BeamKernel(b, result.pixel_scale, image_shape, max_memory=budget)
         per_freq.append(kernels[key])
 
     model = np.empty_like(jy_per_pixel)
@@ -119,6 +137,61 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     return SkyMap(data, model, beams, result, rms, provenance, beam=beam, beam_scaling=beam_scaling,
                   reference_frequency=ref_hz if ref_hz is not None else nu[0], seed=used_seed,
                   background=convention)
+
+
+def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=False, max_memory=None,
+                      beam_field="beam", image_field="result", image="image"):
+    """Refuse, before any kernel or image is made, a beam wider than the image or an observation that
+    does not fit in memory.
+
+    Parameters
+    ----------
+    beams : list of `radio_beam.Beam`
+        The beam at each frequency.
+    pixel_scale : `~astropy.units.Quantity`
+        Pixel side (angle).
+    image_shape : (int, int)
+    frequencies_hz : array-like (nfreq,)
+    noise : bool
+        Whether noise will be added.
+    max_memory : int or `~astropy.units.Quantity` or str, optional
+        Bytes allowed; the machine's available memory is always checked.
+    beam_field, image_field : str
+        What the messages call the beam and the images (e.g. ``"[beam].major"``, ``"[[view]] 'a' npix"``).
+    image : str
+        What the messages call the image whose field the beam must fit (``"image"``, ``"model"``).
+
+    Raises
+    ------
+    InputError
+        See :func:`rtrace.observe.beam.check_beam_fits_field` and :func:`rtrace.memory.check_memory`.
+    """
+    budget = max_memory
+    if max_memory is not None and not isinstance(max_memory, (int, np.integer)):
+        from ..transfer.bricks import parse_memory
+        budget = parse_memory(max_memory)
+    nu = np.atleast_1d(np.asarray(frequencies_hz, float))
+    check_beam_fits_field(beams, pixel_scale, image_shape, beam_field, nu, image)
+    pix = u.Quantity(pixel_scale).to_value(u.arcsec)
+    geos = {}
+    for b in beams:
+        key = (b.major.to_value(u.arcsec), b.minor.to_value(u.arcsec), b.pa.to_value(u.deg))
+        if key not in geos:
+            geos[key] = kernel_geometry(b, pix, image_shape)
+    kernels = [(g["half"], g["fft_shape"]) for g in geos.values()]
+    need = observe_bytes(len(nu), image_shape, kernels, noise)
+    images = observe_bytes(len(nu), image_shape, [], noise)
+    ny, nx = image_shape
+    nf, nk = len(nu), len(kernels)
+    what = (f"observing {nf} frequenc{'y' if nf == 1 else 'ies'} of {ny} x {nx} pixels ({format_bytes(images)} of "
+            f"images) through {nk} beam kernel{'' if nk == 1 else 's'} of up to "
+            f"{max(2 * h + 1 for h, _ in kernels)} pixels across")
+    if need - images > images:
+        field, hint = beam_field, "use a smaller beam, or coarser pixels (a smaller npix over the same width)"
+    else:
+        field, hint = image_field, ("trace fewer pixels (npix) or fewer frequencies, or observe the frequencies "
+                                    "in separate calls")
+    check_memory(need, field=field, what=what, hint=hint, budget=budget)
 
 
 class SkyMap:

@@ -40,6 +40,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..memory import check_memory, format_bytes
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
@@ -147,7 +148,10 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     InputError
         Bad frequencies, background, supersample, brick_size or client; a
         ``max_memory`` smaller than one minimal brick plus the per-ray
-        state and images (the message gives the minimum).
+        state and images (the message gives the minimum); per-ray state and
+        images (``npix``, frequencies, ``supersample``) larger than the
+        machine's available memory (see :mod:`rtrace.memory`), checked
+        before any ray is traced.
 
     Notes
     -----
@@ -173,6 +177,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         route = _AxisRoute(snapshot, view, center, pix, tables)
     else:
         route = _ObliqueRoute(snapshot, view, center, pix, tables, int(supersample))
+    _check_ray_memory(route, int(supersample))
     in_memory = getattr(snapshot, "in_memory", True)
     if getattr(snapshot, "is_amr", False):
         if edge is not None or budget is not None or client is not None:
@@ -224,6 +229,33 @@ def _check_plasma_frequency(snapshot, nu):
         ranges = getattr(snapshot, "_ranges", {}).get("electron_density")
         if ranges is not None:
             check_plasma_frequency(nu, largest=ranges[1])
+
+
+def _check_ray_memory(route, supersample):
+    """Refuse a trace whose per-ray state and images alone exceed the memory at hand (before any work).
+
+    These live whatever the bricking: the accumulated segment of every ray and
+    the images with the remap's temporaries (``_Route.finish_bytes``). A
+    ``max_memory`` is checked in full by the brick planner (:func:`_brick_edge`).
+    """
+    rays = route.segment_bytes(route.ray_count)
+    finish = route.finish_bytes()
+    need = rays + finish
+    ny, nx = route.image_shape
+    images = (3 * route.nfreq + 1) * 8 * ny * nx
+    if isinstance(route, _ObliqueRoute) and need - images > images:
+        (n_a, n_b), (m_a, m_b) = route.ray_shape, route.m
+        field = "supersample" if supersample > 1 else "npix"
+        what = (f"a lattice of {n_a} x {n_b} rays ({m_a} x {m_b} per cell) over {route.nfreq} frequencies, "
+                f"with {ny} x {nx} pixel images")
+        hint = ("use a smaller supersample" if supersample > 1 else
+                "use a smaller npix (pixels finer than a cell add rays on oblique views)")
+    else:
+        field = "npix"
+        what = (f"images of {ny} x {nx} pixels at {route.nfreq} frequencies ({format_bytes(images)}: "
+                "intensity, optical depth and emission measure), with the per-ray state")
+        hint = "use a smaller npix or fewer frequencies (trace them in separate calls)"
+    check_memory(need, field=field, what=what, hint=hint)
 
 
 # -- bricked tracing ----------------------------------------------------------------------------
