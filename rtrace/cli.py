@@ -59,7 +59,7 @@ class Progress:
 def _frequencies(text):
     try:
         values = [u.Quantity(v.strip()) for v in text.split(",") if v.strip()]
-        with np.errstate(divide="ignore"):          # a zero wavelength: refused just below
+        with np.errstate(divide="ignore", over="ignore"):     # a zero wavelength: refused just below
             nu = u.Quantity([v.to(u.Hz, equivalencies=u.spectral()) for v in values])
     except (TypeError, ValueError, u.UnitsError):
         raise argparse.ArgumentTypeError(f"cannot read frequencies '{text}' (write e.g. '1 GHz, 5 GHz')") from None
@@ -408,7 +408,7 @@ def _check_fits_complete(path, name):
         try:
             with fits.open(path, memmap=False) as hdul:
                 for hdu in hdul:
-                    hdu.data            # reading the data is what notices a short file
+                    _ = hdu.data        # reading the data is what notices a short file
         except (OSError, ValueError, TypeError, IndexError, EOFError) as exc:
             problem = str(exc)
     short = [str(w.message) for w in caught if "truncated" in str(w.message).lower()]

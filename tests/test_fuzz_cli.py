@@ -310,7 +310,7 @@ def test_fuzz_cut_points(col, row, job_dir, capsys, monkeypatch):
                                           (errno.ENOSPC, "no space left"), (errno.EDQUOT, "quota")])
 def test_probe_failure_is_an_output_error(number, text, tmp_path, monkeypatch, capsys):
     """Simulated (as root, permissions do not stop writes): the probe file of the output folder fails."""
-    import rtrace.io.outdir as outdir
+    from rtrace.io import outdir
 
     def refuse(path, *args, **kwargs):
         raise OSError(number, os.strerror(number), str(path))
@@ -328,3 +328,64 @@ def test_probe_failure_is_an_output_error(number, text, tmp_path, monkeypatch, c
 def test_output_error_is_an_rtrace_error():
     from rtrace.errors import RtraceError
     assert issubclass(OutputError, RtraceError)
+
+
+# -- the writer itself: atomic_path turns disk errors into OutputError and leaves nothing behind
+
+
+@pytest.mark.parametrize("number", [errno.ENOSPC, errno.EDQUOT, errno.EFBIG, errno.EROFS, errno.EACCES])
+def test_atomic_path_disk_errors(number, tmp_path):
+    from rtrace.io.atomic import atomic_path
+    target = tmp_path / "cube.fits"
+    target.write_bytes(b"old")
+    with pytest.raises(OutputError, match="cube.fits") as info:
+        with atomic_path(target) as tmp:
+            tmp.write_bytes(b"half of the new")
+            raise OSError(number, os.strerror(number))
+    assert "nothing partial" in str(info.value)
+    assert isinstance(info.value.__cause__, OSError)            # the original error is kept as the cause
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cube.fits"]
+    assert target.read_bytes() == b"old"                       # the old file is untouched
+
+
+@pytest.mark.parametrize("exc", [OSError(errno.ENOENT, "No such file"), ValueError("a bug"), KeyError("k")])
+def test_atomic_path_other_errors_pass_through(exc, tmp_path):
+    """Errors that are not the disk's fault keep their type (a genuine bug exits 1 with its traceback)."""
+    from rtrace.io.atomic import atomic_path
+    with pytest.raises(type(exc)) as info:
+        with atomic_path(tmp_path / "x.csv") as tmp:
+            tmp.write_text("a,b\n")
+            raise exc
+    assert not isinstance(info.value, OutputError)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_atomic_path_onto_a_folder(tmp_path):
+    from rtrace.io.atomic import atomic_path
+    (tmp_path / "x.csv").mkdir()
+    with pytest.raises(OutputError, match="x.csv"):
+        with atomic_path(tmp_path / "x.csv") as tmp:
+            tmp.write_text("a,b\n")
+    assert [p.name for p in tmp_path.iterdir()] == ["x.csv"]
+
+
+@pytest.mark.parametrize("name, inside", [
+    ("a.fits", True), ("sub/a.fits", True), ("sub/../a.fits", True), ("./a.fits", True),
+    ("../a.fits", False), ("sub/../../a.fits", False), ("/etc/a.fits", False), (".", False), ("", False),
+    ("link_in/a.fits", True), ("link_out/a.fits", False), ("file_link_out", False), ("file_link_in", True),
+])
+def test_check_inside(name, inside, tmp_path):
+    from rtrace.io.outdir import check_inside
+    out = tmp_path / "out"
+    (out / "sub").mkdir(parents=True)
+    (tmp_path / "outside").mkdir()
+    os.symlink(out / "sub", out / "link_in")
+    os.symlink(tmp_path / "outside", out / "link_out")
+    os.symlink(tmp_path / "outside" / "f", out / "file_link_out")
+    os.symlink("sub/f", out / "file_link_in")                # relative, stays inside
+    path = out / name
+    if inside:
+        assert check_inside(path, out, "[[view]].name") == path
+    else:
+        with pytest.raises(OutputError, match=r"\[\[view\]\].name.*outside the output folder"):
+            check_inside(path, out, "[[view]].name")

@@ -18,6 +18,7 @@ tracing, and by :func:`rtrace.io.atomic.atomic_path` while writing:
 import errno
 import os
 import secrets
+import shutil
 from pathlib import Path
 
 from ..errors import OutputError
@@ -57,8 +58,13 @@ def output_error(exc, path, what="output", note=""):
     -------
     OutputError or None
     """
-    if not isinstance(exc, OSError) or exc.errno not in OUTPUT_ERRNOS:
+    cause = _disk_cause(exc)
+    if cause is None and isinstance(exc, OSError) and exc.errno is None and _nearly_full(path):
+        # a writer's own short-write check (astropy's "N requested and M written") carries no errno
+        cause = OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), os.fspath(path))
+    if cause is None:
         return None
+    exc = cause
     hint = {errno.ENOSPC: "free some space or write elsewhere",
             errno.EDQUOT: "free some space or write elsewhere",
             errno.EEXIST: "remove it or choose another folder",
@@ -67,6 +73,37 @@ def output_error(exc, path, what="output", note=""):
     where = exc.filename if exc.filename is not None else path
     return OutputError(f"{what}: cannot write {os.fspath(where)}: {OUTPUT_ERRNOS[exc.errno]} ({hint})"
                        + (f"; {note}" if note else ""))
+
+
+def _disk_cause(exc):
+    """The OSError with an output errno in ``exc`` or the errors it was raised from, or None.
+
+    Libraries re-raise disk errors in their own words (astropy's FITS writer
+    raises a plain OSError "Not enough space on disk" from the ENOSPC), so the
+    chain of causes and contexts is searched too.
+    """
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        seen.add(id(exc))
+        if isinstance(exc, OSError) and exc.errno in OUTPUT_ERRNOS:
+            return exc
+        exc = exc.__cause__ or exc.__context__
+    return None
+
+
+#: Free bytes below which an OSError without errno from a writer is taken for a full disk.
+NEARLY_FULL = 1 << 20
+
+
+def _nearly_full(path):
+    """Whether the file system holding ``path`` (or its nearest existing folder) has under 1 MiB free."""
+    folder = Path(os.path.abspath(os.fspath(path)))
+    while not folder.exists() and folder != folder.parent:
+        folder = folder.parent
+    try:
+        return shutil.disk_usage(folder).free < NEARLY_FULL
+    except OSError:
+        return False
 
 
 def _resolved(path):
