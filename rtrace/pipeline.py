@@ -38,7 +38,7 @@ from .compiling import watch_compilation
 from .engine import Engine, trace_keywords
 from .errors import OutputError
 from .io.manifest import MANIFEST_NAME, Manifest
-from .io.outdir import check_output_paths, check_writable
+from .io.outdir import check_output_paths, check_space, check_writable
 from .job import build_views
 from .job_snapshot import build_snapshot
 from .products import QUANTITIES, data_outputs, picture_outputs
@@ -67,17 +67,32 @@ def _compiling(say, step, total):
     return watch_compilation(lambda message: say(step, total, message))
 
 
+def _cube_bytes(output, shape, n_frequencies):
+    """Bytes a FITS cube output will at least add: float32 planes and one header block per file, in 2880-byte
+    FITS blocks (FITS standard 4.0, sect. 3.1), less the files it replaces. A lower bound."""
+    files = output.files
+    quantity = getattr(output.make, "keywords", {}).get("quantity")
+    planes = 1 if len(files) > 1 or quantity == "emission_measure" else n_frequencies
+    block = 2880
+    data = -(-planes * shape[0] * shape[1] * 4 // block) * block
+    return sum(block + data - (f.stat().st_size if f.is_file() else 0) for f in files)
+
+
 def _check_paths(job, units, directory, quantities, fmt, pictures, later):
-    """Every file the run may write, checked before any work: inside the folder, nothing in its way."""
+    """Every file the run may write, checked before any work: inside the folder, nothing in its way, and
+    the free space at least the FITS cubes' size."""
     paths = [directory / MANIFEST_NAME]
     copy = job_copy_output(job, directory)
     paths += [] if copy is None else copy.files
+    need = 0
     for unit in units:
         cubes, spectra = data_outputs(job, unit, quantities, fmt)
         plan = cubes + spectra + study_outputs(job, unit, fmt) + (picture_outputs(job, unit, fmt, None)
                                                                    if pictures else [])
         paths += [f for o in plan for f in o.files]
+        need += sum(_cube_bytes(o, unit.view.shape, len(job.frequencies)) for o in cubes)
     check_output_paths(paths, directory, "[output].directory")
+    check_space(directory, need)
     if later and (directory / CACHE_NAME).exists() and not (directory / CACHE_NAME).is_dir():
         raise OutputError(f"[output].directory: {directory / CACHE_NAME} is a file; rtrace keeps a series' "
                           f"traced views in a folder of that name (remove the file)")

@@ -220,8 +220,13 @@ def tmpfs(tmp_path):
         subprocess.run(["umount", "-l", str(point)], capture_output=True)
 
 
-def test_full_disk_exits_5_and_leaves_nothing_partial(tmp_path, tmpfs, capsys):
-    """A real full disk: a 16 KiB tmpfs takes the probe file but not the outputs."""
+def test_full_disk_exits_5_and_leaves_nothing_partial(tmp_path, tmpfs, capsys, monkeypatch):
+    """A real full disk: a 16 KiB tmpfs takes the probe file but not the outputs.
+
+    The up-front space check is switched off here, so that the disk fills up in the middle of writing.
+    """
+    import rtrace.pipeline
+    monkeypatch.setattr(rtrace.pipeline, "check_space", lambda *a, **k: None)
     job = write(tmp_path, SMALL)
     disk = tmpfs("16k")
     code = main(["run", str(job), "--output", str(disk / "out"), "--quiet"])
@@ -230,6 +235,21 @@ def test_full_disk_exits_5_and_leaves_nothing_partial(tmp_path, tmpfs, capsys):
     assert "no space left" in err and str(disk / "out") in err and "Traceback" not in err
     assert _leftovers(disk) == []
     _complete(disk / "out", SMALL)
+
+
+def test_outputs_larger_than_the_free_space_refused_before_tracing(tmp_path, tmpfs, capsys, monkeypatch):
+    """A 256-pixel view at 2 frequencies makes 512 KiB float32 cubes: a 64 KiB tmpfs cannot hold one."""
+    import rtrace.engine
+    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    job = write(tmp_path, SMALL.replace("npix = 24", "npix = 256"))
+    disk = tmpfs("64k")
+    assert main(["run", str(job), "--output", str(disk), "--quiet"]) == EXIT_OUTPUT
+    err = capsys.readouterr().err
+    assert "[output].directory" in err and "MB free" in err
+    # at least 4 cubes of 2 x 256 x 256 float32 and the emission measure (FITS standard 4.0: float32 = 4 bytes)
+    need = float(err.split("need at least ")[1].split(" MB")[0])
+    assert need >= (4 * 2 + 1) * 256 * 256 * 4 / 1e6
+    assert list(disk.iterdir()) == []
 
 
 def test_read_only_output_folder_exits_5_before_tracing(tmp_path, tmpfs, capsys, monkeypatch):

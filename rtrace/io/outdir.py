@@ -23,7 +23,7 @@ from pathlib import Path
 
 from ..errors import OutputError
 
-__all__ = ["OUTPUT_ERRNOS", "check_inside", "check_writable", "check_output_paths", "output_error"]
+__all__ = ["OUTPUT_ERRNOS", "check_inside", "check_writable", "check_output_paths", "check_space", "output_error"]
 
 #: errno values that are the output folder's or the disk's fault, not a bug of rtrace.
 OUTPUT_ERRNOS = {
@@ -223,3 +223,28 @@ def check_writable(folder, what="[output].directory"):
         except OSError:
             pass
     return folder
+
+
+def check_space(folder, need, what="[output].directory"):
+    """Refuse, before any work, outputs that cannot fit: ``need`` bytes (a lower bound) against the free space.
+
+    Parameters
+    ----------
+    folder : str or os.PathLike
+        An existing folder on the file system that will hold the outputs.
+    need : int
+        Bytes the outputs will at least add (files they replace counted off).
+        Give a lower bound: a run is refused only when it would surely fail.
+    what : str, optional
+        For the message.
+
+    Raises
+    ------
+    OutputError
+        Naming the folder, the bytes needed and free, and what to do.
+    """
+    free = shutil.disk_usage(folder).free
+    if need > free:
+        raise OutputError(f"{what}: the outputs need at least {need / 1e6:.3g} MB but {os.fspath(folder)} has "
+                          f"{free / 1e6:.3g} MB free; free some space, write elsewhere (--output) or ask for fewer "
+                          f"outputs ([output].quantities, fits = false, smaller npix)")
