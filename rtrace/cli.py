@@ -9,7 +9,8 @@ wrong unit, missing file, a flag that does not fit the job); 4 unusable input
 data (e.g. NaN temperatures, a truncated FITS file, a cut off the image); 5
 output problem (the output folder or a file to write is outside the output
 folder, read-only, permission denied, names a file, or the disk is full;
-nothing partial is left). Every error a user can cause is one line on
+nothing partial is left), or another refusal of the file system
+(permission denied, read-only) met on the way. Every error a user can cause is one line on
 standard error, never a traceback.
 """
 
@@ -29,7 +30,8 @@ __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_USAGE", "EXIT_CONFIG", "EXI
 EXIT_OK, EXIT_INTERNAL, EXIT_USAGE, EXIT_CONFIG, EXIT_INPUT, EXIT_OUTPUT = 0, 1, 2, 3, 4, 5
 EXIT_CODES = ("exit codes: 0 ok; 1 internal error (a bug); 2 bad command line (unknown flag, unreadable or "
               "out-of-range value); 3 job-file or option problem; 4 unusable input data; 5 output problem "
-              "(folder not writable, outside the output folder, names a file, disk full)")
+              "(folder not writable, outside the output folder, names a file, disk full) or another "
+              "file-system refusal (permission denied)")
 
 
 class Progress:
