@@ -343,6 +343,10 @@ def _sky_to_pixel(res, point):
     return float(col), float(row)
 
 
+#: The most samples a cut may take per pixel of the image's longer side (more only interpolates, and costs memory).
+MAX_SAMPLES_PER_PIXEL = 100
+
+
 def cmd_cut(args):
     if isinstance(args.start, tuple) and args.start == args.end:
         # checked before tracing (points given in pixels); sky points are checked after
@@ -350,7 +354,16 @@ def cmd_cut(args):
     _output_file(args.csv, "--csv")
     _output_file(args.plot, "--plot", picture=True)
     pixels = {flag: p for flag, p in (("--start", args.start), ("--end", args.end)) if isinstance(p, tuple)}
-    job, name, res = _trace_job_view(args.job, args.view, before=lambda view: _check_on_image(pixels, view.shape))
+
+    def before(view):
+        _check_on_image(pixels, view.shape)
+        most = MAX_SAMPLES_PER_PIXEL * max(view.shape)
+        if args.num is not None and args.num > most:
+            raise ConfigError(f"--num: {args.num} samples is more than {most} ({MAX_SAMPLES_PER_PIXEL} per pixel "
+                              f"of the image's longer side, {max(view.shape)} pixels); finer sampling only "
+                              f"interpolates between the same pixels")
+
+    job, name, res = _trace_job_view(args.job, args.view, before=before)
     _check_on_image({"--start": _sky_to_pixel(res, args.start), "--end": _sky_to_pixel(res, args.end)},
                     res.shape[1:])
     try:
@@ -386,10 +399,21 @@ def _beam_option(text):
     import radio_beam
     try:
         major, minor, pa = (u.Quantity(v.strip()) for v in text.split(","))
-        return radio_beam.Beam(major=major.to(u.arcsec), minor=minor.to(u.arcsec), pa=pa.to(u.deg))
+        major, minor, pa = major.to(u.arcsec), minor.to(u.arcsec), pa.to(u.deg)
     except (TypeError, ValueError, u.UnitsError):
         raise argparse.ArgumentTypeError(f"cannot read beam '{text}' (write e.g. '6 arcsec, 4 arcsec, 30 deg': "
                                          "major and minor FWHM, position angle)") from None
+    values = (major.value, minor.value, pa.value)
+    if not (np.all(np.isfinite(values)) and major.value > 0 and minor.value > 0):
+        raise argparse.ArgumentTypeError(f"beam '{text}': major and minor FWHM must be positive and finite, and "
+                                         f"the position angle finite")
+    if minor > major:
+        raise argparse.ArgumentTypeError(f"beam '{text}': the minor FWHM ({minor:.4g}) exceeds the major "
+                                         f"({major:.4g}); give the major axis first")
+    try:
+        return radio_beam.Beam(major=major, minor=minor, pa=pa)
+    except (TypeError, ValueError) as exc:
+        raise argparse.ArgumentTypeError(f"cannot use beam '{text}': {exc}") from None
 
 
 def _check_fits_complete(path, name):
