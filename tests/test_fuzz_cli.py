@@ -14,6 +14,7 @@ messages documented in ``rtrace/cli.py``); no physics is involved here.
 import errno
 import os
 import textwrap
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -401,3 +402,25 @@ def test_check_inside(name, inside, tmp_path):
     else:
         with pytest.raises(OutputError, match=r"\[\[view\]\].name.*outside the output folder"):
             check_inside(path, out, "[[view]].name")
+
+
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(parts=st.lists(st.sampled_from(["..", ".", "a", "b", "", "/", "x_", "..a", "a..", "~"]), min_size=1,
+                      max_size=6))
+def test_fuzz_check_inside_matches_normpath(parts, tmp_path):
+    """Without links, a name is inside the folder exactly when the standard library's path algebra says so.
+
+    Reference: os.path.normpath and os.path.commonpath (Python standard library), on the joined name.
+    """
+    from rtrace.io.outdir import check_inside
+    out = tmp_path / "out"
+    out.mkdir(exist_ok=True)
+    name = "".join(p if p in ("/",) else p + "/" for p in parts).rstrip("/") + "_tau.fits"
+    path = os.path.join(out, name)
+    norm = os.path.normpath(path)
+    inside = norm != str(out) and os.path.commonpath([norm, str(out)]) == str(out)
+    if inside:
+        assert check_inside(path, out) == Path(path)
+    else:
+        with pytest.raises(OutputError, match="outside the output folder"):
+            check_inside(path, out)
