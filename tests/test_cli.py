@@ -209,7 +209,8 @@ def tmpfs(tmp_path):
         point = tmp_path / f"mnt{len(mounts)}"
         point.mkdir()
         options = f"size={size}" + (",ro" if read_only else "")
-        done = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(point)], capture_output=True, check=False)
+        done = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(point)],
+                              capture_output=True, check=False)
         if done.returncode != 0:
             pytest.skip(f"cannot mount a tmpfs here (needs root or CAP_SYS_ADMIN): {done.stderr.decode().strip()}")
         mounts.append(point)
