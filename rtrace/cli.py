@@ -1,9 +1,17 @@
 """The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot a spectrum,
 compare a model with an observed image, take a cut through a view.
 
-Exit codes (for scripts): 0 success; 1 unexpected internal error; 2 bad
-command-line usage; 3 job-file problem (unknown key, wrong unit, missing
-file); 4 unusable input data (e.g. NaN temperatures).
+Exit codes (for scripts): 0 success; 1 unexpected internal error (a bug:
+please report it with the traceback); 2 bad command line (unknown command or
+flag, a flag value that cannot be read or is out of range, e.g. ``--cells
+-4``, ``--frequencies "0 GHz"``); 3 job-file or option problem (unknown key,
+wrong unit, missing file, a flag that does not fit the job); 4 unusable input
+data (e.g. NaN temperatures, a truncated FITS file, a cut off the image); 5
+output problem (the output folder or a file to write is outside the output
+folder, read-only, permission denied, names a file, or the disk is full;
+nothing partial is left), or another refusal of the file system
+(permission denied, read-only) met on the way. Every error a user can cause is one line on
+standard error, never a traceback.
 """
 
 import argparse
@@ -15,11 +23,15 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError, InputError
+from .errors import ConfigError, InputError, OutputError, RtraceError
 
-__all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_USAGE", "EXIT_CONFIG", "EXIT_INPUT"]
+__all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_USAGE", "EXIT_CONFIG", "EXIT_INPUT", "EXIT_OUTPUT"]
 
-EXIT_OK, EXIT_INTERNAL, EXIT_USAGE, EXIT_CONFIG, EXIT_INPUT = 0, 1, 2, 3, 4
+EXIT_OK, EXIT_INTERNAL, EXIT_USAGE, EXIT_CONFIG, EXIT_INPUT, EXIT_OUTPUT = 0, 1, 2, 3, 4, 5
+EXIT_CODES = ("exit codes: 0 ok; 1 internal error (a bug); 2 bad command line (unknown flag, unreadable or "
+              "out-of-range value); 3 job-file or option problem; 4 unusable input data; 5 output problem "
+              "(folder not writable, outside the output folder, names a file, disk full) or another "
+              "file-system refusal (permission denied)")
 
 
 class Progress:
@@ -49,10 +61,59 @@ class Progress:
 def _frequencies(text):
     try:
         values = [u.Quantity(v.strip()) for v in text.split(",") if v.strip()]
-        nu = u.Quantity([v.to(u.Hz, equivalencies=u.spectral()) for v in values])
+        with np.errstate(divide="ignore", over="ignore"):     # a zero wavelength: refused just below
+            nu = u.Quantity([v.to(u.Hz, equivalencies=u.spectral()) for v in values])
     except (TypeError, ValueError, u.UnitsError):
         raise argparse.ArgumentTypeError(f"cannot read frequencies '{text}' (write e.g. '1 GHz, 5 GHz')") from None
+    if nu.size == 0:
+        raise argparse.ArgumentTypeError(f"no frequency in '{text}' (write e.g. '1 GHz, 5 GHz')")
+    bad = ~(np.isfinite(nu.value) & (nu.value > 0))
+    if bad.any():
+        raise argparse.ArgumentTypeError(f"frequencies must be positive and finite; {int(bad.sum())} of {nu.size} "
+                                         f"in '{text}' are not")
     return nu
+
+
+def _cells(text):
+    """Cells per side of the built-in scenario: a whole number >= 2."""
+    try:
+        n = int(text)
+    except ValueError:
+        n = None
+    if n is None or n < 2:
+        raise argparse.ArgumentTypeError(f"expected a whole number of cells per side >= 2, got '{text}'")
+    return n
+
+
+def _output_folder(path, flag="--output"):
+    """Create the folder of ``flag`` and prove it writable before any work (OutputError otherwise)."""
+    from .io.outdir import check_writable
+    return check_writable(Path(path), flag)
+
+
+def _output_file(path, flag, picture=False):
+    """Check, before any work, that the file ``flag`` names can be written (and drawn, for a picture).
+
+    Its folder must exist and be writable, the name must not be a folder,
+    and a picture's suffix must be a format matplotlib can draw.
+    """
+    if path is None:
+        return
+    from .io.outdir import check_writable
+    target = Path(path)
+    if target.is_dir():
+        raise OutputError(f"{flag}: {path} is a folder; give a file name")
+    folder = target.parent
+    if not folder.is_dir():
+        raise OutputError(f"{flag}: the folder {folder} of {path} does not exist (or is a file); create it first")
+    check_writable(folder, flag)
+    if picture:
+        from matplotlib.figure import Figure
+        kinds = Figure().canvas.get_supported_filetypes()
+        kind = target.suffix.lower().lstrip(".")
+        if kind not in kinds:
+            raise ConfigError(f"{flag}: cannot draw a picture of type '{target.suffix or '(no suffix)'}' "
+                              f"({path}); use one of {', '.join('.' + k for k in sorted(kinds))}")
 
 
 def _report(paths, stream):
@@ -85,7 +146,7 @@ def cmd_run(args):
     from .job import load_job, override_parallel, run_job
     job = load_job(args.job)
     if args.output:
-        job.output["directory"] = Path(args.output).resolve()
+        job.output["directory"] = _output_folder(args.output).resolve()
     override_parallel(job, workers=args.workers, scheduler=args.scheduler)
     paths = run_job(job, progress=Progress(quiet=args.quiet), restart=args.restart)
     _report(paths, sys.stdout)
@@ -101,7 +162,7 @@ def cmd_demo(args):
 
     from .job import parse_job, run_job
     raw = tomllib.loads(_demo_job_text())
-    raw["output"]["directory"] = str(Path(args.output).resolve())
+    raw["output"]["directory"] = str(_output_folder(args.output).resolve())
     if args.cells is not None:
         raw["snapshot"]["cells"] = args.cells
     job = parse_job(raw)
@@ -161,8 +222,11 @@ def cmd_inspect(args):
     return EXIT_OK
 
 
-def _trace_job_view(path, view_name, frequencies=None):
-    """Trace one view of a job (the first snapshot of a series): ``(job, view name, Result)``."""
+def _trace_job_view(path, view_name, frequencies=None, before=None):
+    """Trace one view of a job (the first snapshot of a series): ``(job, view name, Result)``.
+
+    ``before(view)``, if given, checks the chosen `~rtrace.View` before any tracing.
+    """
     from . import trace
     from .job import build_views, load_job
     from .pipeline import build_snapshot
@@ -171,6 +235,8 @@ def _trace_job_view(path, view_name, frequencies=None):
     name = view_name or next(iter(views))
     if name not in views:
         raise ConfigError(f"--view: no view named '{name}' (the job has: {', '.join(views)})")
+    if before is not None:
+        before(views[name])
     nu = job.frequencies if frequencies is None else frequencies
     from .compiling import watch_compilation
     with watch_compilation(lambda message: print(f"rtrace: {message}", file=sys.stderr, flush=True)):
@@ -180,6 +246,7 @@ def _trace_job_view(path, view_name, frequencies=None):
 
 def cmd_spectrum(args):
     from .analysis.spectra import sed, spectral_index
+    _output_file(args.plot, "--plot", picture=True)
     job, name, res = _trace_job_view(args.job, args.view)
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
@@ -255,11 +322,50 @@ def _flags(exc, names):
     return exc
 
 
+def _check_on_image(points, shape):
+    """Refuse end points (``{flag: (column, row)}``) outside the image's pixel centres, where profiles are NaN."""
+    ny, nx = shape
+    off = {flag: p for flag, p in points.items()
+           if not (0 <= p[0] <= nx - 1 and 0 <= p[1] <= ny - 1)}
+    if off:
+        where = "; ".join(f"{flag} at column {p[0]:.4g}, row {p[1]:.4g}" for flag, p in off.items())
+        raise InputError(f"{', '.join(off)}: {len(off)} end point(s) off the image ({where}); the image has "
+                         f"columns 0 to {nx - 1} and rows 0 to {ny - 1} (pixel centres), and a cut samples "
+                         f"only inside it")
+
+
+def _sky_to_pixel(res, point):
+    """``(column, row)`` of a point: pixels as given, a SkyCoord through the image's WCS."""
+    if isinstance(point, tuple):
+        return point
+    from .io.fits import sky_wcs
+    col, row = sky_wcs(res.shape[1:], res.pixel_scale, res.sky_position).world_to_pixel(point)
+    return float(col), float(row)
+
+
+#: The most samples a cut may take per pixel of the image's longer side (more only interpolates, and costs memory).
+MAX_SAMPLES_PER_PIXEL = 100
+
+
 def cmd_cut(args):
     if isinstance(args.start, tuple) and args.start == args.end:
         # checked before tracing (points given in pixels); sky points are checked after
         raise InputError("--start, --end: the cut has zero length")
-    job, name, res = _trace_job_view(args.job, args.view)
+    _output_file(args.csv, "--csv")
+    _output_file(args.plot, "--plot", picture=True)
+    pixels = {flag: p for flag, p in (("--start", args.start), ("--end", args.end)) if isinstance(p, tuple)}
+
+    def before(view):
+        _check_on_image(pixels, view.shape)
+        most = MAX_SAMPLES_PER_PIXEL * max(view.shape)
+        if args.num is not None and args.num > most:
+            raise ConfigError(f"--num: {args.num} samples is more than {most} ({MAX_SAMPLES_PER_PIXEL} per pixel "
+                              f"of the image's longer side, {max(view.shape)} pixels); finer sampling only "
+                              f"interpolates between the same pixels")
+
+    job, name, res = _trace_job_view(args.job, args.view, before=before)
+    _check_on_image({"--start": _sky_to_pixel(res, args.start), "--end": _sky_to_pixel(res, args.end)},
+                    res.shape[1:])
     try:
         c = res.cut(args.start, args.end, num=args.num)
     except InputError as exc:
@@ -293,16 +399,57 @@ def _beam_option(text):
     import radio_beam
     try:
         major, minor, pa = (u.Quantity(v.strip()) for v in text.split(","))
-        return radio_beam.Beam(major=major.to(u.arcsec), minor=minor.to(u.arcsec), pa=pa.to(u.deg))
+        major, minor, pa = major.to(u.arcsec), minor.to(u.arcsec), pa.to(u.deg)
     except (TypeError, ValueError, u.UnitsError):
         raise argparse.ArgumentTypeError(f"cannot read beam '{text}' (write e.g. '6 arcsec, 4 arcsec, 30 deg': "
                                          "major and minor FWHM, position angle)") from None
+    values = (major.value, minor.value, pa.value)
+    if not (np.all(np.isfinite(values)) and major.value > 0 and minor.value > 0):
+        raise argparse.ArgumentTypeError(f"beam '{text}': major and minor FWHM must be positive and finite, and "
+                                         f"the position angle finite")
+    if minor > major:
+        raise argparse.ArgumentTypeError(f"beam '{text}': the minor FWHM ({minor:.4g}) exceeds the major "
+                                         f"({major:.4g}); give the major axis first")
+    try:
+        return radio_beam.Beam(major=major, minor=minor, pa=pa)
+    except (TypeError, ValueError) as exc:
+        raise argparse.ArgumentTypeError(f"cannot use beam '{text}': {exc}") from None
+
+
+def _check_fits_complete(path, name):
+    """Refuse, before any work, a FITS file whose data are cut short or unreadable (InputError naming it).
+
+    Files that do not exist are left to the readers (a model may be given
+    by its plane files); a job file (TOML) is not FITS.
+    """
+    import warnings
+
+    from astropy.io import fits
+    path = Path(path)
+    if path.suffix.lower() == ".toml" or not path.is_file():
+        return
+    problem = None
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            with fits.open(path, memmap=False) as hdul:
+                for hdu in hdul:
+                    _ = hdu.data        # reading the data is what notices a short file
+        except (OSError, ValueError, TypeError, IndexError, EOFError) as exc:
+            problem = str(exc)
+    short = [str(w.message) for w in caught if "truncated" in str(w.message).lower()]
+    if short or problem is not None:
+        raise InputError(f"{name}: '{path}' is truncated or damaged ({short[0] if short else problem}); "
+                         f"copy or download it again")
 
 
 def cmd_compare(args):
     import warnings
 
     from .comparison import ComparisonWarning, compare, read_observation
+    out = _output_folder(args.output)
+    _check_fits_complete(args.model, "model")
+    _check_fits_complete(args.observation, "observation")
     with warnings.catch_warnings():
         # every warning is also a note, which the summary prints
         warnings.simplefilter("ignore", ComparisonWarning)
@@ -319,8 +466,6 @@ def cmd_compare(args):
         else:
             model = args.model
         result = compare(model, obs, model_name="model")
-    out = Path(args.output)
-    out.mkdir(parents=True, exist_ok=True)
     stem = Path(args.observation).name
     for suffix in (".gz", ".fits", ".fit", ".fts"):
         stem = stem[:-len(suffix)] if stem.lower().endswith(suffix) else stem
@@ -334,7 +479,7 @@ def cmd_compare(args):
 def build_parser():
     parser = argparse.ArgumentParser(
         prog="rtrace", description="Synthetic thermal free-free radio images from hydrodynamics snapshots.",
-        epilog="exit codes: 0 ok, 1 internal error, 2 usage, 3 job-file problem, 4 unusable input data")
+        epilog=EXIT_CODES)
     from . import __version__
     parser.add_argument("--version", action="version", version=f"rtrace {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="command")
@@ -356,7 +501,7 @@ def build_parser():
     p = sub.add_parser("demo", help="run the built-in scenario", description="Trace the built-in HII-bubble "
                        "scenario and write FITS cubes, pictures and an SED.")
     p.add_argument("--output", default="demo-output", help="output folder (default: ./demo-output)")
-    p.add_argument("--cells", type=int, default=None, help="cells per side of the scenario")
+    p.add_argument("--cells", type=_cells, default=None, help="cells per side of the scenario (at least 2)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--restart", action="store_true", help="make every output again, even those already finished")
     p.set_defaults(func=cmd_demo)
@@ -367,7 +512,7 @@ def build_parser():
     p.add_argument("--frequencies", type=_frequencies, default=None,
                    help="comma-separated frequencies for the optical-depth estimate (default: the job's "
                         f"[frequencies]; for the built-in scenario '{_INSPECT_FREQUENCIES}')")
-    p.add_argument("--cells", type=int, default=None, help="cells per side of the built-in scenario")
+    p.add_argument("--cells", type=_cells, default=None, help="cells per side of the built-in scenario (at least 2)")
     p.set_defaults(func=cmd_inspect)
 
     p = sub.add_parser("spectrum", help="print or plot the spectrum of a view", description="Trace one view of "
@@ -419,6 +564,21 @@ def main(argv=None):
     except InputError as exc:
         print(f"rtrace: input problem: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    except OutputError as exc:
+        print(f"rtrace: output problem: {exc}", file=sys.stderr)
+        return EXIT_OUTPUT
+    except OSError as exc:
+        # a disk or permission error met outside rtrace's own writers (e.g. a plotting library's): still the
+        # output folder's fault, not a bug; anything else is re-raised and shows its traceback (exit 1)
+        from .io.outdir import OUTPUT_ERRNOS
+        if exc.errno not in OUTPUT_ERRNOS:
+            raise
+        print(f"rtrace: file-system problem: {exc.filename or ''}: {OUTPUT_ERRNOS[exc.errno]}", file=sys.stderr)
+        return EXIT_OUTPUT
+    except RtraceError as exc:
+        # any other kind a user can cause (a subclass added later): a problem with what was asked
+        print(f"rtrace: problem: {exc}", file=sys.stderr)
+        return EXIT_CONFIG
     except KeyboardInterrupt:
         print("rtrace: interrupted", file=sys.stderr)
         return 130

@@ -8,7 +8,7 @@ import os
 import sys
 import warnings
 
-__all__ = ["RtraceError", "InputError", "ConfigError", "PhysicsRangeWarning", "warn_user"]
+__all__ = ["RtraceError", "InputError", "ConfigError", "OutputError", "PhysicsRangeWarning", "warn_user"]
 
 
 class RtraceError(Exception):
@@ -24,6 +24,16 @@ class InputError(RtraceError, ValueError):
 
 class ConfigError(RtraceError, ValueError):
     """A job description or option is inconsistent or unknown."""
+
+
+class OutputError(RtraceError):
+    """The output folder or the disk cannot take the outputs.
+
+    A path outside the output folder, a folder that is read-only, lacks
+    permission, has no space left, or a file where a folder is needed (or the
+    reverse). The message names the path and the job key or flag that chose
+    it; nothing partial is left under a final name.
+    """
 
 
 class PhysicsRangeWarning(UserWarning):

@@ -38,7 +38,9 @@ from .batch import CACHE_NAME, Cache, Snapshots, make, plan_units, split
 from .colour_scales import series_limits, view_ranges
 from .compiling import watch_compilation
 from .engine import Engine, trace_keywords
-from .io.manifest import Manifest
+from .errors import OutputError
+from .io.manifest import MANIFEST_NAME, Manifest
+from .io.outdir import check_output_paths, check_space, check_writable
 from .job import build_views
 from .job_snapshot import build_snapshot
 from .products import QUANTITIES, data_outputs, picture_outputs
@@ -67,6 +69,37 @@ def _compiling(say, step, total):
     return watch_compilation(lambda message: say(step, total, message))
 
 
+def _cube_bytes(output, shape, n_frequencies):
+    """Bytes a FITS cube output will at least add: float32 planes and one header block per file, in 2880-byte
+    FITS blocks (FITS standard 4.0, sect. 3.1), less the files it replaces. A lower bound."""
+    files = output.files
+    quantity = getattr(output.make, "keywords", {}).get("quantity")
+    planes = 1 if len(files) > 1 or quantity == "emission_measure" else n_frequencies
+    block = 2880
+    data = -(-planes * shape[0] * shape[1] * 4 // block) * block
+    return sum(block + data - (f.stat().st_size if f.is_file() else 0) for f in files)
+
+
+def _check_paths(job, units, directory, quantities, fmt, pictures, later):
+    """Every file the run may write, checked before any work: inside the folder, nothing in its way, and
+    the free space at least the FITS cubes' size."""
+    paths = [directory / MANIFEST_NAME]
+    copy = job_copy_output(job, directory)
+    paths += [] if copy is None else copy.files
+    need = 0
+    for unit in units:
+        cubes, spectra = data_outputs(job, unit, quantities, fmt)
+        plan = cubes + spectra + study_outputs(job, unit, fmt) + (picture_outputs(job, unit, fmt, None)
+                                                                   if pictures else [])
+        paths += [f for o in plan for f in o.files]
+        need += sum(_cube_bytes(o, unit.view.shape, len(job.frequencies)) for o in cubes)
+    check_output_paths(paths, directory, "[output].directory")
+    check_space(directory, need)
+    if later and (directory / CACHE_NAME).exists() and not (directory / CACHE_NAME).is_dir():
+        raise OutputError(f"[output].directory: {directory / CACHE_NAME} is a file; rtrace keeps a series' "
+                          f"traced views in a folder of that name (remove the file)")
+
+
 def run(job, progress=None, restart=False):
     """Execute ``job``; returns the paths written, in order.
 
@@ -92,6 +125,12 @@ def run(job, progress=None, restart=False):
     ConfigError
         If ``[parallel]`` asks for something this rtrace build cannot do, or
         the scheduler cannot be reached.
+    OutputError
+        Before any tracing, if the output folder cannot be created or
+        written (a file of that name, read-only, permission denied, no
+        space for a probe file), or a planned output lies outside it or has
+        a folder or file in its way; while writing, if the disk fills up or
+        permissions change (nothing partial is left under a final name).
     """
     say = progress or (lambda step, total, message: None)
     out = job.output
@@ -101,14 +140,15 @@ def run(job, progress=None, restart=False):
     keywords = trace_keywords(job)
     views = build_views(job)
     directory = out["directory"]
-    directory.mkdir(parents=True, exist_ok=True)
+    check_writable(directory, "[output].directory")    # read-only, no permission, a file: before any work
     check_job_copy(job, directory)                 # never overwrite a job.toml rtrace did not write
-    manifest = Manifest(directory) if restart else Manifest.load(directory)
     later = job.series and pictures           # series pictures wait for the whole series' ranges
+    units = plan_units(job, views, directory)
+    _check_paths(job, units, directory, quantities, fmt, pictures, later)
+    manifest = Manifest(directory) if restart else Manifest.load(directory)
     cache = Cache(directory / CACHE_NAME) if later else None
     if cache is not None and restart:
         cache.clear()
-    units = plan_units(job, views, directory)
     total = len(units) * (2 if later else 1)
     written, skipped = [], []
     snapshots = Snapshots(job, say)

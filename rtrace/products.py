@@ -114,7 +114,11 @@ def _close(fig):
 
 
 def _stem(job, unit, suffix):
-    return unit.folder / f"{job.output.get('prefix', '')}{unit.name}_{suffix}"
+    """``<folder>/<prefix><view>_<suffix>``, refused (OutputError) unless it lies inside the output folder."""
+    from .io.outdir import check_inside
+    path = unit.folder / f"{job.output.get('prefix', '')}{unit.name}_{suffix}"
+    label = f", snapshot label '{unit.member['label']}'" if job.series else ""
+    return check_inside(path, job.output["directory"], f"[output].prefix, [[view]].name '{unit.name}'{label}")
 
 
 def data_outputs(job, unit, quantities, fmt):

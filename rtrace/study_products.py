@@ -33,8 +33,9 @@ JOB_COPY_NAME = "job.toml"
 
 
 def _stem(job, unit, suffix):
-    """``<folder>/<prefix><view>_<suffix>``, as every output of a view is named."""
-    return unit.folder / f"{job.output.get('prefix', '')}{unit.name}_{suffix}"
+    """``<folder>/<prefix><view>_<suffix>``, as every output of a view is named (checked inside the folder)."""
+    from .products import _stem as stem
+    return stem(job, unit, suffix)
 
 
 def _close(fig):

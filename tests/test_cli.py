@@ -1,5 +1,6 @@
 """The rtrace command end to end on small jobs in a temporary directory."""
 
+import os
 import textwrap
 
 import h5py
@@ -8,7 +9,7 @@ import pytest
 from astropy.io import fits
 from astropy.wcs import WCS
 
-from rtrace.cli import EXIT_CONFIG, EXIT_INPUT, EXIT_OK, main
+from rtrace.cli import EXIT_CONFIG, EXIT_INPUT, EXIT_OK, EXIT_OUTPUT, main
 
 JOB = """
 [snapshot]
@@ -169,3 +170,175 @@ def test_workers_option_overrides_the_job(tmp_path, monkeypatch, capsys):
     job = write(tmp_path, QUICK)
     assert main(["run", str(job), "--quiet", "--workers", "2"]) == EXIT_CONFIG
     assert "[parallel]: this rtrace build cannot trace on a dask cluster" in capsys.readouterr().err
+
+
+# -- output folder and disk problems: exit 5 (EXIT_OUTPUT), nothing partial left under a final name
+
+SMALL = JOB.replace('directory = "out"', 'directory = "out"\npictures = false').replace("cells = 20", "cells = 12")
+
+
+def _leftovers(folder):
+    """Temporary files of atomic_path (hidden, '.tmp' in the name) and probe files left in ``folder``."""
+    return [p.name for p in folder.rglob(".*") if ".tmp" in p.name or p.name.startswith(".rtrace-probe")]
+
+
+def _complete(folder, job_text):
+    """Every file under a final name is whole: FITS data read in full, the job copy equal to the job."""
+    import warnings
+    for path in folder.rglob("*"):
+        if path.name.startswith(".") or path.is_dir():
+            continue
+        if path.suffix == ".fits":
+            with warnings.catch_warnings():
+                warnings.simplefilter("error")            # astropy warns about a truncated file
+                with fits.open(path, memmap=False) as hdul:
+                    assert np.isfinite(hdul[0].data).all(), path.name
+        elif path.name == "job.toml":
+            assert path.read_text() == textwrap.dedent(job_text)
+        elif path.suffix == ".csv":
+            assert path.read_text().endswith("\n"), path.name
+
+
+@pytest.fixture
+def tmpfs(tmp_path):
+    """Mount a tiny tmpfs (``size``, ``ro``) under tmp_path; skipped where mounting is not allowed."""
+    import subprocess
+    mounts = []
+
+    def mount(size="16k", read_only=False):
+        point = tmp_path / f"mnt{len(mounts)}"
+        point.mkdir()
+        options = f"size={size}" + (",ro" if read_only else "")
+        done = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(point)],
+                              capture_output=True, check=False)
+        if done.returncode != 0:
+            pytest.skip(f"cannot mount a tmpfs here (needs root or CAP_SYS_ADMIN): {done.stderr.decode().strip()}")
+        mounts.append(point)
+        return point
+
+    yield mount
+    for point in mounts:
+        subprocess.run(["umount", "-l", str(point)], capture_output=True, check=False)
+
+
+def test_full_disk_exits_5_and_leaves_nothing_partial(tmp_path, tmpfs, capsys, monkeypatch):
+    """A real full disk: a 16 KiB tmpfs takes the probe file but not the outputs.
+
+    The up-front space check is switched off here, so that the disk fills up in the middle of writing.
+    """
+    import rtrace.pipeline
+    monkeypatch.setattr(rtrace.pipeline, "check_space", lambda *a, **k: None)
+    job = write(tmp_path, SMALL)
+    disk = tmpfs("16k")
+    code = main(["run", str(job), "--output", str(disk / "out"), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == EXIT_OUTPUT, err
+    assert "no space left" in err and str(disk / "out") in err and "Traceback" not in err
+    assert _leftovers(disk) == []
+    _complete(disk / "out", SMALL)
+
+
+def test_outputs_larger_than_the_free_space_refused_before_tracing(tmp_path, tmpfs, capsys, monkeypatch):
+    """A 256-pixel view at 2 frequencies makes 512 KiB float32 cubes: a 64 KiB tmpfs cannot hold one."""
+    import rtrace.engine
+    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    job = write(tmp_path, SMALL.replace("npix = 24", "npix = 256"))
+    disk = tmpfs("64k")
+    assert main(["run", str(job), "--output", str(disk), "--quiet"]) == EXIT_OUTPUT
+    err = capsys.readouterr().err
+    assert "[output].directory" in err and "MB free" in err
+    # at least 4 cubes of 2 x 256 x 256 float32 and the emission measure (FITS standard 4.0: float32 = 4 bytes)
+    need = float(err.split("need at least ")[1].split(" MB")[0])
+    assert need >= (4 * 2 + 1) * 256 * 256 * 4 / 1e6
+    assert list(disk.iterdir()) == []
+
+
+def test_read_only_output_folder_exits_5_before_tracing(tmp_path, tmpfs, capsys, monkeypatch):
+    """A real read-only file system, found by the probe before any tracing."""
+    import rtrace.engine
+    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    job = write(tmp_path, SMALL)
+    disk = tmpfs("16k", read_only=True)
+    for out in (disk, disk / "sub" / "folder"):
+        assert main(["run", str(job), "--output", str(out), "--quiet"]) == EXIT_OUTPUT
+        err = capsys.readouterr().err
+        assert "--output" in err and "read-only file system" in err
+    assert list(disk.iterdir()) == []
+
+
+@pytest.mark.skipif(not hasattr(os, "geteuid") or os.geteuid() == 0,
+                    reason="root ignores file permissions; test_fuzz_cli.py simulates EACCES instead")
+def test_permission_denied_output_folder_exits_5(tmp_path, capsys):
+    job = write(tmp_path, SMALL)
+    locked = tmp_path / "locked"
+    locked.mkdir(mode=0o500)
+    try:
+        assert main(["run", str(job), "--output", str(locked), "--quiet"]) == EXIT_OUTPUT
+        assert "permission denied" in capsys.readouterr().err
+        assert list(locked.iterdir()) == []
+    finally:
+        locked.chmod(0o700)
+
+
+def test_disk_full_while_writing_is_reported_and_nothing_partial_left(tmp_path, capsys, monkeypatch):
+    """Simulated full disk (ENOSPC at the fsync of the third file, where write-back errors surface).
+
+    Runs everywhere, unlike the tmpfs test above; the temporary file exists when the error comes.
+    """
+    import errno
+
+    from rtrace.io import atomic
+    real, calls = atomic._fsync_file, []
+
+    def fsync(path):
+        calls.append(path)
+        assert path.exists()                    # the writer finished its temporary file
+        if len(calls) == 3:
+            raise OSError(errno.ENOSPC, "No space left on device", str(path))
+        real(path)
+
+    monkeypatch.setattr(atomic, "_fsync_file", fsync)
+    job = write(tmp_path, SMALL)
+    assert main(["run", str(job), "--quiet"]) == EXIT_OUTPUT
+    err = capsys.readouterr().err
+    assert "no space left" in err and "nothing partial" in err
+    assert len(calls) == 3
+    assert _leftovers(tmp_path / "out") == []
+    _complete(tmp_path / "out", SMALL)
+
+
+def test_writer_guard_refuses_paths_out_of_the_folder_behind_the_validator(tmp_path, monkeypatch):
+    """Defence in depth: names changed after validation are still refused where the paths are made."""
+    import rtrace.engine
+    from rtrace.errors import OutputError
+    from rtrace.job import load_job
+    from rtrace.pipeline import run
+    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    for change in ({"name": "../escape"}, {"name": str(tmp_path / "abs")}, {"prefix": "../../X_"}):
+        job = load_job(write(tmp_path, SMALL))
+        if "name" in change:
+            job.views[0]["name"] = change["name"]
+        else:
+            job.output["prefix"] = change["prefix"]
+        with pytest.raises(OutputError, match="outside the output folder"):
+            run(job)
+        assert sorted(p.name for p in tmp_path.iterdir()) == ["job.toml", "out"]
+        assert list((tmp_path / "out").iterdir()) == []
+
+
+def test_cut_with_sky_points_off_the_image_exits_4(tmp_path, capsys):
+    """Sky end points are placed on the image after tracing; one off the image is refused, naming its flag."""
+    job = write(tmp_path, SMALL)
+    # the view's default sky position is RA 0, Dec 0; 10 deg away is far off a 24-pixel image of 2 kpc
+    code = main(["cut", str(job), "--start", "10 deg, 10 deg", "--end", "3, 3"])
+    err = capsys.readouterr().err
+    assert code == EXIT_INPUT, err
+    assert "--start" in err and "off the image" in err
+
+
+def test_help_lists_exit_codes(capsys):
+    with pytest.raises(SystemExit):
+        main(["--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    for code in ("0 ok", "1 internal error", "2 bad command line", "3 job-file", "4 unusable input", "5 output"):
+        assert code in text

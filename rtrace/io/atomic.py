@@ -12,6 +12,8 @@ import os
 import secrets
 from pathlib import Path
 
+from .outdir import output_error
+
 __all__ = ["atomic_path"]
 
 
@@ -78,6 +80,13 @@ def atomic_path(path):
     FileNotFoundError
         If the body of the ``with`` block finished without creating the
         temporary file (nothing is then written to ``path``).
+    rtrace.errors.OutputError
+        If writing fails for a reason of the disk or the folder (no space
+        left, quota, permission denied, read-only file system, a folder where
+        the file should go, a file where a folder should be): the
+        :class:`OSError` (see :data:`rtrace.io.outdir.OUTPUT_ERRNOS`) is
+        re-raised as an OutputError naming ``path``, after the temporary file
+        is removed.
 
     Examples
     --------
@@ -92,8 +101,11 @@ def atomic_path(path):
         yield tmp
         _fsync_file(tmp)
         os.replace(tmp, target)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
+    except BaseException as exc:
+        with contextlib.suppress(OSError):
             os.unlink(tmp)
+        err = output_error(exc, target, note="nothing partial was left under its name")
+        if err is not None:
+            raise err from exc
         raise
     _fsync_directory(directory if str(directory) else ".")

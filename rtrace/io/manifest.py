@@ -193,8 +193,18 @@ class Manifest:
         Returns
         -------
         Manifest
+
+        Raises
+        ------
+        rtrace.errors.OutputError
+            If a folder (or anything but a file) stands where the manifest
+            should be: it could never be rewritten.
         """
         manifest = cls(directory)
+        if manifest.path.exists() and not manifest.path.is_file():
+            from ..errors import OutputError
+            raise OutputError(f"[output].directory: {manifest.path} is not a file; rtrace keeps its record of "
+                              f"finished outputs under that name (remove it or choose another output folder)")
         try:
             data = json.loads(manifest.path.read_text(encoding="utf-8"))
         except FileNotFoundError:
