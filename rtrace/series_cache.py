@@ -40,6 +40,7 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
+from .errors import OutputError
 from .io.atomic import atomic_path
 
 __all__ = ["Cache", "cache_key", "CACHE_FORMAT"]
@@ -233,7 +234,7 @@ class Cache:
             with atomic_path(path) as tmp:
                 with open(tmp, "wb") as handle:  # a file object: np.savez would otherwise append ".npz"
                     np.savez(handle, **arrays)
-        except OSError:
+        except (OSError, OutputError):
             return     # no room, no permission, a folder in the way: the pictures retrace this view instead
 
     def get(self, unit):

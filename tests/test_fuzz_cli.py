@@ -152,8 +152,9 @@ CASES = [
      {EXIT_OUTPUT}, ["--output", "afile", "is a file"]),
     ("run-output-under-file", ["run", "job.toml", "--output", "afile/sub", "--quiet"], file_named("afile"),
      {EXIT_OUTPUT}, ["--output", "afile"]),
-    ("run-directory-is-file", ["run", "job.toml", "--quiet"], file_named("out"), {EXIT_OUTPUT},
-     ["[output].directory", "is a file"]),
+    # refused by the job validator (exit 3) before the output guard (exit 5) is reached
+    ("run-directory-is-file", ["run", "job.toml", "--quiet"], file_named("out"), {EXIT_CONFIG, EXIT_OUTPUT},
+     ["[output].directory", "not a folder"]),
     ("demo-output-is-file", ["demo", "--output", "afile", "--quiet"], file_named("afile", job=False),
      {EXIT_OUTPUT}, ["--output", "afile"]),
     ("demo-output-under-file", ["demo", "--output", "afile/x/y", "--quiet"], file_named("afile", job=False),
