@@ -1,0 +1,129 @@
+"""Per-cell cost when every cell emits: rtrace's tracer against a numpy transfer and a streaming pass.
+
+One run, on an N^3 float32 grid where every cell emits (smooth random n_e in
+5-205 cm^-3, T in 5e3-2e4 K; N = 256 by default, ``--cells`` to change), times
+in interleaved rounds and prints min / median / max of each and of the ratios
+within each round:
+
+* numpy: a vectorised per-slice transfer along the last axis (same physics
+  functions as the package; the route without rtrace), target rtrace axis 1
+  frequency <= 0.10x of it
+* stream: a numba pass that only reads the two fields once (the memory-bound
+  floor for any per-cell work), target rtrace axis 1 frequency <= 6x of it
+* rtrace axis-aligned 1 frequency, 8 frequencies (target <= 2.5x of one) and
+  oblique at supersample=1 (target <= 2x of axis)
+
+Usage: ``python benchmarks/bench_emitting.py [--cells 256] [--rounds 5]``
+"""
+
+import argparse
+import time
+
+import astropy.units as u
+import numba
+import numpy as np
+
+import rtrace
+from rtrace.physics.freefree import absorption_cgs
+from rtrace.physics.planck import planck_cgs
+
+
+def smooth_field(n, lo, hi, seed):
+    """``(n, n, n)`` float32 field from a few random low-order Fourier modes, scaled to ``[lo, hi]``."""
+    rng = np.random.default_rng(seed)
+    x = np.linspace(0.0, 2.0 * np.pi, n, endpoint=False, dtype=np.float32)
+    f = np.zeros((n, n, n), np.float32)
+    for _ in range(6):
+        kx, ky, kz = rng.integers(1, 4, 3)
+        px, py, pz = rng.uniform(0, 2 * np.pi, 3)
+        f += (np.sin(kx * x + px)[:, None, None] * np.sin(ky * x + py)[None, :, None]
+              * np.sin(kz * x + pz)[None, None, :]).astype(np.float32)
+    f -= f.min()
+    f /= f.max()
+    return (lo + (hi - lo) * f).astype(np.float32)
+
+
+def numpy_transfer(ne, t, ds, nu):
+    """Transfer along the last axis, one slice of cells at a time, in vectorised numpy (I, tau)."""
+    inten = np.zeros(ne.shape[:2])
+    tau = np.zeros(ne.shape[:2])
+    for k in range(ne.shape[2]):
+        tk = t[:, :, k].astype(np.float64)
+        nk = ne[:, :, k].astype(np.float64)
+        dtau = absorption_cgs(nu, tk, nk, nk) * ds
+        att = -np.expm1(-dtau)
+        inten += att * (planck_cgs(nu, tk) - inten)
+        tau += dtau
+    return inten, tau
+
+
+@numba.njit(parallel=True, cache=True)
+def stream_pass(ne, t, out):
+    """Read both fields once along the last axis (a sum per ray): the memory-bound floor."""
+    na, nb, nl = ne.shape
+    for a in numba.prange(na):
+        for b in range(nb):
+            acc = 0.0
+            for l in range(nl):
+                acc += float(ne[a, b, l]) * float(t[a, b, l])
+            out[a, b] = acc
+
+
+def summary(values):
+    v = np.asarray(values)
+    return f"{v.min():8.3f} / {np.median(v):8.3f} / {v.max():8.3f}"
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--cells", type=int, default=256)
+    parser.add_argument("--rounds", type=int, default=5)
+    args = parser.parse_args()
+    n = args.cells
+    cell = 1.0e-3 * u.pc
+    ne = smooth_field(n, 5.0, 205.0, 1)
+    t = smooth_field(n, 5.0e3, 2.0e4, 2)
+    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, electron_density=ne * u.cm**-3, cell_size=cell)
+    ds = cell.to_value(u.cm)
+    width = n * cell
+    axis_view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=n, width=width, distance=1 * u.kpc)
+    tilt = np.radians(30.0)
+    oblique_view = rtrace.View(los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)), north=(0, 1, 0),
+                               npix=n, width=width, distance=1 * u.kpc)
+    one = [5.0] * u.GHz
+    eight = np.geomspace(0.3, 100, 8) * u.GHz
+    out = np.zeros((n, n))
+
+    cases = {
+        "numpy": lambda: numpy_transfer(ne, t, ds, one.to_value(u.Hz)[0]),
+        "stream": lambda: stream_pass(ne, t, out),
+        "axis1": lambda: rtrace.trace(snap, axis_view, one),
+        "axis8": lambda: rtrace.trace(snap, axis_view, eight),
+        "oblique": lambda: rtrace.trace(snap, oblique_view, one, supersample=1),
+    }
+    t0 = time.perf_counter()
+    results = {k: fn() for k, fn in cases.items()}       # compile / first touch, untimed
+    print(f"grid {n}^3 float32, every cell emits; first (untimed) round {time.perf_counter() - t0:.1f} s")
+    times = {k: [] for k in cases}
+    for _ in range(args.rounds):
+        for key, fn in cases.items():
+            t0 = time.perf_counter()
+            fn()
+            times[key].append(time.perf_counter() - t0)
+    print(f"times over {args.rounds} rounds, s (min / median / max):")
+    for key in cases:
+        print(f"  {key:8s} {summary(times[key])}")
+    ratios = {"axis1/numpy (<= 0.10)": ("axis1", "numpy"), "axis1/stream (<= 6)": ("axis1", "stream"),
+              "axis8/axis1 (<= 2.5)": ("axis8", "axis1"), "oblique/axis1 (<= 2)": ("oblique", "axis1")}
+    print("ratios within each round (min / median / max), target:")
+    for label, (a, b) in ratios.items():
+        print(f"  {label:24s} {summary(np.divide(times[a], times[b]))}")
+    ref_i, ref_tau = results["numpy"]
+    ours = results["axis1"]
+    di = np.max(np.abs(ours.intensity.value[0].T / ref_i - 1))
+    dt = np.max(np.abs(np.asarray(ours.tau)[0].T / ref_tau - 1))
+    print(f"axis 1 frequency vs numpy: max relative difference I {di:.1e}, tau {dt:.1e}")
+
+
+if __name__ == "__main__":
+    main()
