@@ -116,7 +116,7 @@ def _errors(res, ref_i, ref_em):
 
 @pytest.fixture(scope="module")
 def cases(scene):
-    snap, ne, t, alpha, source = scene
+    _, ne, _, alpha, source = scene
     out = []
     for los, north in DIRECTIONS:
         for pix_cells, nsub in PIXELS:
@@ -131,7 +131,7 @@ def cases(scene):
 def test_reference_converges_with_more_sub_rays(scene):
     # the reference's quadrature converges: half the sub-rays per pixel side used in the comparisons
     # agree with those to 0.5% on the pixels compared
-    snap, ne, t, alpha, source = scene
+    _, ne, _, alpha, source = scene
     los, north = DIRECTIONS[0]
     a_i, a_em = _reference(ne, alpha, source, los, north, 6, 4.0 * CELL, 64)
     b_i, b_em = _reference(ne, alpha, source, los, north, 6, 4.0 * CELL, 128)
@@ -142,7 +142,7 @@ def test_reference_converges_with_more_sub_rays(scene):
 
 def test_reference_totals_match_the_volume_integral(scene, cases):
     # flux conservation: sum of pixel EM x pixel area = int n_e n_i dV over the grid (common practice)
-    snap, ne, *_ = scene
+    _, ne, *_ = scene
     for view, pix_cells, ref_i, ref_em in cases:
         total = ref_em.sum() * (pix_cells * CELL) ** 2
         assert total == pytest.approx(np.sum(ne * ne) * CELL**3, rel=1e-3)

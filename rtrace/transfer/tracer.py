@@ -51,7 +51,8 @@ from .compositing import Patch, Segment, composite_into
 from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
-__all__ = ["trace", "FrequencyTables", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "MAX_SUPERSAMPLE"]
+__all__ = ["trace", "FrequencyTables", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
+           "MAX_SUPERSAMPLE"]
 
 # What every traced image assumes (written to provenance and FITS headers).
 PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
@@ -67,7 +68,7 @@ PIXEL_FLOOR = 1e-3
 # The error estimate is this times the difference between lattices of s and 2s rays per cell:
 # with an error that halves per doubling the difference equals the finer image's error; the
 # factor covers error ratios up to 3/4 (slower, uneven convergence at cell edges, measured in
-# tests/test_pixel_accuracy.py, where the difference alone fell short of the error by up to 1.5x).
+# tests/test_pixel_accuracy.py, where the difference alone fell 1.5x short of the error in one case).
 ESTIMATE_FACTOR = 2.0
 # Most rays per cell side the refinement of an oblique lattice goes to.
 MAX_SUPERSAMPLE = 32
@@ -127,8 +128,9 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         it. Must be an int (2.5 is refused, not truncated).
     tolerance : float, optional
         Relative error allowed per pixel on oblique views (e.g.
-        :data:`SUGGESTED_TOLERANCE`, 1e-2), for pixels at least :data:`PIXEL_FLOOR` (1e-3) of the image's peak,
-        in the intensity at every frequency and in the emission measure.
+        :data:`SUGGESTED_TOLERANCE`, 1e-2), for pixels at least
+        :data:`PIXEL_FLOOR` (1e-3) of the image's peak, in the intensity at
+        every frequency and in the emission measure.
         The ray lattice is doubled (1, 2, 4, ... rays per cell side, up to
         :data:`MAX_SUPERSAMPLE`) until two successive images agree to
         ``tolerance``; the finer one is returned and the estimate is in
@@ -281,7 +283,7 @@ def _check_tolerance(tolerance):
     return float(tolerance)
 
 
-def relative_difference(coarse, fine, bg, floor=PIXEL_FLOOR):
+def _relative_difference(coarse, fine, bg, floor=PIXEL_FLOOR):
     """Largest ``|X_coarse - X_fine| / |X_fine|`` over pixels with ``|X_fine| >= floor * max |X_fine|``.
 
     ``X`` runs over the background-subtracted intensity of each frequency
@@ -305,11 +307,11 @@ def _refine(tolerance, run):
     """Double the lattice density until two successive images agree to ``tolerance`` per pixel.
 
     Returns the finer image of the last pair, its rays per pixel and a
-    :class:`PixelError`. :data:`ESTIMATE_FACTOR` times the difference between
-    lattices of ``s`` and ``2 s`` rays per cell is taken as the error of the finer one: the pixel
-    quadrature of a field that is piecewise constant on cells converges at
-    least linearly in the ray spacing, so the finer image's error is at most
-    about that difference (tests/test_pixel_accuracy.py checks it against an
+    :class:`PixelError`. :data:`ESTIMATE_FACTOR` times the difference
+    between lattices of ``s`` and ``2 s`` rays per cell is taken as the
+    error of the finer one: the pixel quadrature of a field that is
+    piecewise constant on cells converges about linearly in the ray
+    spacing, so the finer image's error is about that difference (tests/test_pixel_accuracy.py checks it against an
     independent reference on grids with cell-to-cell structure; it is an
     estimate, not a guaranteed bound). Refinement stops at :data:`MAX_SUPERSAMPLE`
     rays per cell or when the next lattice would not fit in memory, with a
@@ -330,7 +332,7 @@ def _refine(tolerance, run):
                 raise
             why = f"a lattice of {nxt} rays per cell side would not fit in memory"
             break
-        estimate = ESTIMATE_FACTOR * relative_difference(seg, fine, run["bg"], PIXEL_FLOOR)
+        estimate = ESTIMATE_FACTOR * _relative_difference(seg, fine, run["bg"], PIXEL_FLOOR)
         seg, nrays, s = fine, fine_rays, nxt
         if estimate <= tolerance:
             return seg, nrays, PixelError(estimate, s, tolerance, PIXEL_FLOOR, True)
