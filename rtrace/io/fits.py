@@ -59,7 +59,9 @@ Layout and header conventions
   ``INTENSITY``) and ``BKGTEMP`` (K) on every file rtrace writes.
 * Provenance: ``ORIGIN = 'rtrace'``, ``DATE`` (UTC, when written),
   ``RTVERS``, ``SNAPSRC``, ``SNAPSHA``, ``VIEW``, ``IONIZ``, ``BKGND``,
-  ``BEAM``, ``NOISE`` (strings longer than one card continue on
+  ``BEAM``, ``NOISE``, ``RTPIXERR`` and ``RTPIXSS`` (a trace's estimated
+  largest relative pixel error and its lattice's rays per cell side, see
+  :class:`rtrace.transfer.result.PixelError`) (strings longer than one card continue on
   ``CONTINUE`` cards, announced by ``LONGSTRN = 'OGIP 1.0'``, the
   convention's keyword in the FITS standard's appendix on long strings,
   Pence et al. 2010, from memory); any other provenance entry becomes a
@@ -781,7 +783,18 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
                       provenance=result.provenance, overwrite=overwrite, quantity=quantity,
                       spectral_axis=spectral_axis,
                       background=header_cards(convention if quantity in ("intensity", "brightness_temperature")
-                                              else "subtracted", result))
+                                              else "subtracted", result) + _pixel_error_cards(result))
+
+
+def _pixel_error_cards(result):
+    """``RTPIXERR`` (estimated max relative pixel error) and ``RTPIXSS`` (rays per cell), for traces given a tolerance."""
+    pe = getattr(result, "pixel_error", None)
+    if pe is None or pe.tolerance is None or result.view.los_axis() is not None:
+        return []
+    cards = [("RTPIXSS", int(pe.supersample), "rays per cell side of the oblique lattice")]
+    if np.isfinite(pe.max_relative):
+        cards.insert(0, ("RTPIXERR", float(pe.max_relative), "estimated max relative pixel error"))
+    return cards
 
 
 def write_skymap(skymap, path, overwrite=True, *, spectral_axis="auto"):

@@ -1,5 +1,7 @@
 """Result: the sky-plane product of a trace, before any instrument is applied."""
 
+from collections import namedtuple
+
 import astropy.units as u
 import numpy as np
 from astropy.coordinates import SkyCoord
@@ -8,11 +10,49 @@ from ..errors import InputError
 from ..physics.constants import PC
 from .background import Background, brightness_temperature_cgs, check_convention, resolve_convention
 
-__all__ = ["Result", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
+__all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
 
 INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 # Where an image lands on the sky when the View gives no sky_position (written to FITS headers).
 DEFAULT_SKY_POSITION = SkyCoord(ra=0.0 * u.deg, dec=0.0 * u.deg, frame="icrs")
+
+
+class PixelAccuracyWarning(UserWarning):
+    """An oblique trace stopped refining before its pixels met the requested tolerance."""
+
+
+class PixelError(namedtuple("PixelError", "max_relative supersample tolerance floor converged")):
+    """How accurately each pixel's footprint mean was computed.
+
+    Attributes
+    ----------
+    max_relative : float
+        Largest relative error estimate over the intensity (per frequency,
+        background subtracted) and emission-measure images, over pixels whose
+        absolute value is at least ``floor`` times the image's peak. On an
+        oblique view it is twice ``|X_s - X_2s| / |X_2s|`` between the returned
+        lattice (``supersample`` rays per cell, ``X_2s``) and one half as
+        dense; 0.0 on axis-aligned views (exact) and NaN where no estimate
+        was made (an oblique view traced without ``tolerance``).
+    supersample : int
+        Rays per cell side of the returned image's lattice.
+    tolerance : float or None
+        What was asked for (None: no ``tolerance``, or ``supersample`` given explicitly).
+    floor : float
+        Pixels fainter than this fraction of the peak are not checked.
+    converged : bool
+        Whether ``max_relative <= tolerance`` was reached (True on axis-aligned views).
+    """
+
+    __slots__ = ()
+
+    def describe(self):
+        """One line for provenance and FITS headers."""
+        if self.tolerance is None:
+            return f"not estimated (supersample={self.supersample}, no tolerance asked)"
+        state = "met" if self.converged else "NOT met"
+        return (f"max relative {self.max_relative:.3g} at supersample={self.supersample} "
+                f"(tolerance {self.tolerance:g} {state}; pixels above {self.floor:g} of the peak)")
 
 
 class Result:
@@ -40,6 +80,8 @@ class Result:
         Intensity ``I_bg`` that entered from the far side (zero without one).
     background_info : `~rtrace.transfer.background.Background`
         What that background is (kind and blackbody temperature).
+    pixel_error : `PixelError` or None
+        Achieved accuracy of the pixel footprint means (see :class:`PixelError`).
     view, center, provenance
         The view, the image centre in snapshot coordinates (cm) and the
         snapshot's provenance.
@@ -47,9 +89,10 @@ class Result:
 
     # Results pickled before the background was described carry none of their own
     _background_info = None
+    pixel_error = None
 
     def __init__(self, intensity, tau, em, nu, view, pixel_size_cm, center_cm, provenance,
-                 rays_per_pixel=1, background=None, background_info=None):
+                 rays_per_pixel=1, background=None, background_info=None, pixel_error=None):
         self._intensity = intensity
         self.tau = tau
         self._em = em
@@ -59,6 +102,7 @@ class Result:
         self.center = center_cm * u.cm
         self.provenance = dict(provenance)
         self.rays_per_pixel = rays_per_pixel
+        self.pixel_error = pixel_error
         self.background = (np.zeros_like(nu) if background is None else np.asarray(background)) * INTENSITY_UNIT
         if background_info is None:
             background_info = (Background("intensity", None) if np.any(self.background.value != 0)

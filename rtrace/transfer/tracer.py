@@ -39,7 +39,7 @@ import numbers
 import astropy.units as u
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, warn_user
 from ..memory import check_memory, format_bytes
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.freefree import check_plasma_frequency
@@ -49,15 +49,29 @@ from . import kernels
 from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
 from .remap import remap_parallelograms
-from .result import Result
+from .result import PixelAccuracyWarning, PixelError, Result
 
-__all__ = ["trace", "FrequencyTables"]
+__all__ = ["trace", "FrequencyTables", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
+           "MAX_SUPERSAMPLE"]
 
 # What every traced image assumes (written to provenance and FITS headers).
 PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
            "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
            "Gaunt factor: soft-photon Born + Coulomb correction + classical finite-frequency term (Z=1)")
 
+
+# A tolerance worth asking for on oblique maps (relative error per pixel); not yet the default,
+# because refining the whole lattice costs 5x or more (see trace's tolerance and bench_accuracy.py).
+SUGGESTED_TOLERANCE = 1e-2
+# Pixels fainter than this fraction of an image's peak are not held to the tolerance.
+PIXEL_FLOOR = 1e-3
+# The error estimate is this times the difference between lattices of s and 2s rays per cell:
+# with an error that halves per doubling the difference equals the finer image's error; the
+# factor covers error ratios up to 3/4 (slower, uneven convergence at cell edges, measured in
+# tests/test_pixel_accuracy.py, where the difference alone fell 1.5x short of the error in one case).
+ESTIMATE_FACTOR = 2.0
+# Most rays per cell side the refinement of an oblique lattice goes to.
+MAX_SUPERSAMPLE = 32
 
 # Opacity scale of an absorption-free trace: alpha -> eps alpha at fixed j_nu, then I / eps.
 _THIN_SCALE = 1e-30
@@ -90,8 +104,8 @@ def _frequencies(frequencies):
     return nu
 
 
-def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_size=None,
-          max_memory=None, client=None, absorption=True):
+def trace(snapshot, view, frequencies, *, background=None, supersample=None, tolerance=None,
+          brick_size=None, max_memory=None, client=None, absorption=True):
     """Solve the transfer equation along the rays of ``view`` through ``snapshot``.
 
     Parameters
@@ -106,9 +120,27 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         blackbody, Fixsen 2009), a blackbody temperature, or a specific
         intensity (scalar or one per frequency).
     supersample : int, optional
-        Rays per smallest cell width for oblique views (default 1: rays are
-        never farther apart than a cell). Axis-aligned views are exact and
-        ignore it. Must be an int (2.5 is refused, not truncated).
+        Rays per cell width for oblique views, fixed: an explicit override of
+        ``tolerance`` (no refinement, no error estimate). ``supersample=1``
+        is the lattice every oblique trace used before ``tolerance``
+        existed; its pixels can be off by several percent where the gas
+        has cell-scale structure. Axis-aligned views are exact and ignore
+        it. Must be an int (2.5 is refused, not truncated).
+    tolerance : float, optional
+        Relative error allowed per pixel on oblique views (e.g.
+        :data:`SUGGESTED_TOLERANCE`, 1e-2), for pixels at least
+        :data:`PIXEL_FLOOR` (1e-3) of the image's peak, in the intensity at
+        every frequency and in the emission measure.
+        The ray lattice is doubled (1, 2, 4, ... rays per cell side, up to
+        :data:`MAX_SUPERSAMPLE`) until two successive images agree to
+        ``tolerance``; the finer one is returned and the estimate is in
+        :attr:`Result.pixel_error`. Each doubling costs about four times the
+        previous trace. Ignored when ``supersample`` is given and on
+        axis-aligned views. Default None: one lattice of ``supersample``
+        (1) rays per cell, no estimate. Where the gas has cell-to-cell
+        structure, pixels smaller than a few cells converge only linearly
+        in the ray spacing (measured in ``benchmarks/bench_accuracy.py``);
+        1e-2 may then not be reached by the cap and a warning says so.
     brick_size : int, optional
         Trace the grid in cubic bricks of this many cells per side, each on
         its own sub-array, composited front to back (same result to rounding).
@@ -138,6 +170,9 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
 
     Warns
     -----
+    PixelAccuracyWarning
+        An oblique view stopped refining (lattice cap or memory) before its
+        pixels met ``tolerance``; the message gives the estimate reached.
     PhysicsRangeWarning
         The lowest frequency is near (within a factor 2) or below the
         plasma frequency of some cells (the count and the highest plasma
@@ -146,7 +181,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     Raises
     ------
     InputError
-        Bad frequencies, background, supersample, brick_size or client; a
+        Bad frequencies, background, supersample, tolerance, brick_size or client; a
         ``max_memory`` smaller than one minimal brick plus the per-ray
         state and images (the message gives the minimum); per-ray state and
         images (``npix``, frequencies, ``supersample``) larger than the
@@ -162,17 +197,46 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
     """
     nu = _frequencies(frequencies)
     bg, bg_info = background_from_spec(background, nu)
-    if isinstance(supersample, (bool, np.bool_)) or not isinstance(supersample, numbers.Integral) \
-            or supersample < 1:
-        raise InputError(f"supersample: must be a positive int (rays per cell), got {supersample!r}")
-    supersample = int(supersample)
+    if supersample is not None:
+        if isinstance(supersample, (bool, np.bool_)) or not isinstance(supersample, numbers.Integral) \
+                or supersample < 1:
+            raise InputError(f"supersample: must be a positive int (rays per cell), got {supersample!r}")
+        supersample = int(supersample)
     _check_plasma_frequency(snapshot, nu)
     edge = None if brick_size is None else _bricks.check_brick_size(brick_size)
     budget = None if max_memory is None else _bricks.parse_memory(max_memory)
     if client is not None and not (hasattr(client, "submit") and hasattr(client, "scatter")):
         raise InputError(f"client: expected a dask.distributed.Client, got {type(client).__name__}")
+    tolerance = None if tolerance is None else _check_tolerance(tolerance)
     tables = FrequencyTables(nu, 1.0 if absorption else _THIN_SCALE)
     center, pix = view.resolve(snapshot)
+    run = dict(snapshot=snapshot, view=view, center=center, pix=pix, tables=tables, edge=edge, budget=budget,
+               client=client, absorption=absorption, bg=bg)
+    if view.los_axis() is not None:
+        seg, nrays, _ = _trace_lattice(supersample or 1, **run)
+        pixel_error = PixelError(0.0, 1, tolerance, PIXEL_FLOOR, True)
+    elif supersample is not None or tolerance is None:
+        supersample = supersample or 1
+        seg, nrays, _ = _trace_lattice(supersample, **run)
+        pixel_error = PixelError(float("nan"), supersample, None, PIXEL_FLOOR, False)
+    else:
+        seg, nrays, pixel_error = _refine(tolerance, run)
+    provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
+                      background="none" if background is None else str(background), physics=PHYSICS)
+    if not absorption:
+        provenance["absorption"] = "off (emission only)"
+    if pixel_error.tolerance is not None and view.los_axis() is None:
+        provenance["pixel_error"] = pixel_error.describe()
+    res = Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
+                 rays_per_pixel=nrays, background=bg, background_info=bg_info, pixel_error=pixel_error)
+    # what the diagnostics need to retrace the same rays (see Result.unabsorbed_intensity)
+    res._snapshot = snapshot
+    res._trace_options = dict(supersample=pixel_error.supersample, brick_size=brick_size, max_memory=max_memory)
+    return res
+
+
+def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, budget, client, absorption, bg):
+    """One trace on the lattice of ``supersample`` rays per cell: ``(image Segment, rays per pixel, route)``."""
     if view.los_axis() is not None:
         route = _AxisRoute(snapshot, view, center, pix, tables)
     else:
@@ -206,16 +270,76 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=1, brick_
         patch.seg.intensity /= _THIN_SCALE        # I = sum S dtau' / eps = int j ds (1 + O(eps tau))
         patch.seg.tau[...] = 0.0
     seg, nrays = route.finish(patch, bg)
-    provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
-                      background="none" if background is None else str(background), physics=PHYSICS)
-    if not absorption:
-        provenance["absorption"] = "off (emission only)"
-    res = Result(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance,
-                 rays_per_pixel=nrays, background=bg, background_info=bg_info)
-    # what the diagnostics need to retrace the same rays (see Result.unabsorbed_intensity)
-    res._snapshot = snapshot
-    res._trace_options = dict(supersample=supersample, brick_size=brick_size, max_memory=max_memory)
-    return res
+    return seg, nrays, route
+
+
+# -- error-controlled pixels on oblique views ----------------------------------------------------
+
+def _check_tolerance(tolerance):
+    if isinstance(tolerance, (bool, np.bool_)) or not isinstance(tolerance, numbers.Real) \
+            or not math.isfinite(tolerance) or not 0.0 < tolerance < 1.0:
+        raise InputError(f"tolerance: must be a number with 0 < tolerance < 1 (relative error per pixel), "
+                         f"got {tolerance!r}")
+    return float(tolerance)
+
+
+def _relative_difference(coarse, fine, bg, floor=PIXEL_FLOOR):
+    """Largest ``|X_coarse - X_fine| / |X_fine|`` over pixels with ``|X_fine| >= floor * max |X_fine|``.
+
+    ``X`` runs over the background-subtracted intensity of each frequency
+    and the emission measure (``coarse`` and ``fine`` are image Segments).
+    Images that are zero everywhere contribute nothing.
+    """
+    worst = 0.0
+    planes = [(c - b, f - b) for c, f, b in zip(coarse.intensity, fine.intensity, bg)]
+    planes.append((coarse.em, fine.em))
+    for c, f in planes:
+        size = np.abs(f)
+        peak = size.max() if size.size else 0.0
+        if not peak > 0.0:
+            continue
+        bright = size >= floor * peak
+        worst = max(worst, float(np.max(np.abs(c[bright] - f[bright]) / size[bright])))
+    return worst
+
+
+def _refine(tolerance, run):
+    """Double the lattice density until two successive images agree to ``tolerance`` per pixel.
+
+    Returns the finer image of the last pair, its rays per pixel and a
+    :class:`PixelError`. :data:`ESTIMATE_FACTOR` times the difference
+    between lattices of ``s`` and ``2 s`` rays per cell is taken as the
+    error of the finer one: the pixel quadrature of a field that is
+    piecewise constant on cells converges about linearly in the ray
+    spacing, so the finer image's error is about that difference (tests/test_pixel_accuracy.py checks it against an
+    independent reference on grids with cell-to-cell structure; it is an
+    estimate, not a guaranteed bound). Refinement stops at :data:`MAX_SUPERSAMPLE`
+    rays per cell or when the next lattice would not fit in memory, with a
+    :class:`PixelAccuracyWarning` giving the error reached.
+    """
+    seg, nrays, route = _trace_lattice(1, **run)
+    s = max(route.m)
+    estimate, why = float("inf"), None
+    while True:
+        nxt = 2 * s
+        if nxt > MAX_SUPERSAMPLE:
+            why = f"the cap of {MAX_SUPERSAMPLE} rays per cell side was reached"
+            break
+        try:
+            fine, fine_rays, _ = _trace_lattice(nxt, **run)
+        except InputError as err:
+            if "memory" not in str(err).lower():
+                raise
+            why = f"a lattice of {nxt} rays per cell side would not fit in memory"
+            break
+        estimate = ESTIMATE_FACTOR * _relative_difference(seg, fine, run["bg"], PIXEL_FLOOR)
+        seg, nrays, s = fine, fine_rays, nxt
+        if estimate <= tolerance:
+            return seg, nrays, PixelError(estimate, s, tolerance, PIXEL_FLOOR, True)
+    warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
+              f"at supersample={s}, not the {tolerance:g} asked for ({why}); pass a larger tolerance, a "
+              "coarser npix or an explicit supersample", PixelAccuracyWarning)
+    return seg, nrays, PixelError(estimate, s, tolerance, PIXEL_FLOOR, False)
 
 
 def _check_plasma_frequency(snapshot, nu):

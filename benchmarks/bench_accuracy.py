@@ -1,0 +1,80 @@
+"""Accuracy benchmark: the cost of error-controlled pixels on oblique views.
+
+For one oblique view (npix = cells / 2, so pixels of about 1.7 cells) of
+
+* the demo scenario (``rtrace.demo.scenario(N)``; 14% of cells emit), and
+* a fully emitting N^3 float32 grid with strong cell-scale structure
+  (lognormal n_e, sigma = 1 in ln n_e, median 100 cm^-3; T uniform 5e3 .. 2e4 K),
+
+prints the time of ``supersample=1`` (no estimate) and of ``tolerance`` = 1e-1,
+1e-2 and 1e-3, with the error estimate reached, the rays per cell side used and
+whether the tolerance was met (the accuracy-cost curve). Times are the median and
+range of ``--repeat`` runs; ratios are to the ``supersample=1`` median of the same run.
+Targets from the issue: <= 3x (demo) and <= 10x (fully emitting) at 1e-2.
+
+Measured (``--cells 64 --repeat 3``, 2 shared cores under load; median, range over 3 runs):
+demo, supersample=1 3.2 ms (3.1 .. 3.2); tolerance 1e-1 0.20 s (0.20 .. 0.26, 61x, estimate
+0.054 at 8 rays per cell); 1e-2 6.3 s (6.1 .. 6.7, ~2000x, 0.0042 at 32); 1e-3 not met at the
+cap of 32. Fully emitting: supersample=1 7.6 ms (7.6 .. 7.8); 1e-1 2.9 s (2.6 .. 3.0, 380x,
+0.034 at 16); 1e-2 12.9 s (12.7 .. 13.2, ~1700x, 0.0086 at 32); 1e-3 not met. Refining the whole
+lattice is far above the issue's 3x / 10x targets: those need refinement only where pixels
+disagree, or exact footprint integrals (not built yet).
+
+Usage: ``python benchmarks/bench_accuracy.py [--cells 128] [--repeat 3]``
+"""
+
+import argparse
+import time
+import warnings
+
+import astropy.units as u
+import numpy as np
+
+import rtrace
+from rtrace.demo import scenario
+from rtrace.transfer.result import PixelAccuracyWarning
+
+
+def structured(n, seed=1):
+    rng = np.random.default_rng(seed)
+    ne = (100.0 * np.exp(rng.normal(0.0, 1.0, (n, n, n)))).astype(np.float32)
+    t = rng.uniform(5e3, 2e4, (n, n, n)).astype(np.float32)
+    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=0.01 * u.pc, electron_density=ne * u.cm**-3)
+
+
+def timed(fn, repeat):
+    times, value = [], None
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        value = fn()
+        times.append(time.perf_counter() - t0)
+    return np.median(times), min(times), max(times), value
+
+
+def run(name, snap, n, repeat):
+    view = rtrace.View(los=(1.0, 2.0, 3.0), north=(0.3, -0.9, 0.2), npix=max(n // 2, 8), distance=1 * u.kpc)
+    nu = [1.0, 8.0] * u.GHz
+    rtrace.trace(snap, view, nu)                              # compile / warm the caches
+    base, lo, hi, _ = timed(lambda: rtrace.trace(snap, view, nu, supersample=1), repeat)
+    print(f"{name}: supersample=1  median {base:.3g} s (range {lo:.3g} .. {hi:.3g})")
+    for tol in (1e-1, 1e-2, 1e-3):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PixelAccuracyWarning)
+            med, lo, hi, res = timed(lambda tol=tol: rtrace.trace(snap, view, nu, tolerance=tol), repeat)
+        pe = res.pixel_error
+        print(f"{name}: tolerance={tol:g}  median {med:.3g} s (range {lo:.3g} .. {hi:.3g}) = {med / base:.1f}x; "
+              f"estimate {pe.max_relative:.3g} at supersample={pe.supersample} "
+              f"({'met' if pe.converged else 'NOT met'})")
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--cells", type=int, default=128)
+    parser.add_argument("--repeat", type=int, default=3)
+    args = parser.parse_args()
+    run(f"demo {args.cells}^3", scenario(args.cells), args.cells, args.repeat)
+    run(f"fully emitting {args.cells}^3", structured(args.cells), args.cells, args.repeat)
+
+
+if __name__ == "__main__":
+    main()
