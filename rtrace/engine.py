@@ -54,14 +54,14 @@ def _observe(res, job, label=None):
 
 def _check_view(job, name, view, pixel_cm):
     """The sizes of one view known before tracing: images (npix x frequencies), beam against field."""
-    from .memory import check_memory, format_bytes
+    from .memory import check_memory, format_bytes, trace_image_bytes, trace_ray_bytes
     from .observe.beam import beams_for_frequencies
     from .observe.skymap import check_observation
     nu = job.frequencies.to_value(u.Hz)
     ny, nx = view.shape
     where = f"[[view]] '{name}' npix"
     budget = job.parallel.get("max_memory")
-    images = (3 * len(nu) + 1) * 8 * ny * nx         # the tracer's image planes (tracer._Route.finish_bytes)
+    images = trace_image_bytes(len(nu), ny * nx)
     check_memory(images, field=where, budget=budget,
                  what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
                  hint="use a smaller npix or fewer frequencies")
@@ -70,7 +70,7 @@ def _check_view(job, name, view, pixel_cm):
         # an oblique view's lattice has at least (cells x supersample)^2 rays (tracer._ObliqueRoute);
         # the grid of other kinds is known once read, and the tracer checks it then, before tracing
         rays = (int(job.snapshot.get("cells", 64)) * supersample) ** 2
-        need = rays * 8 * ((2 * len(nu) + 1) + (3 * len(nu) + 1 + 8))     # tracer._Route: segment + finish
+        need = trace_ray_bytes(len(nu), rays)
         check_memory(need, field="[trace].supersample" if supersample > 1 else where, budget=budget,
                      what=f"view '{name}': a lattice of at least {rays} rays ({supersample} per cell) at "
                           f"{len(nu)} frequencies",

@@ -25,7 +25,7 @@ import os
 
 from .errors import InputError
 
-__all__ = ["HEADROOM", "available_memory", "format_bytes", "check_memory", "array_bytes", "fft_kernel_bytes",
+__all__ = ["HEADROOM", "available_memory", "format_bytes", "check_memory", "array_bytes", "fft_kernel_bytes", "trace_image_bytes", "trace_ray_bytes",
            "observe_bytes", "synthesis_bytes"]
 
 _FLOAT = 8
@@ -143,6 +143,18 @@ def check_memory(need, *, field, what, hint, budget=None):
                          f"{HEADROOM:.0%} of the {format_bytes(avail)} of memory available on this machine; "
                          f"{hint}")
     return need
+
+
+def trace_image_bytes(nfreq, npix):
+    """Bytes of a trace's float64 image planes: intensity, optical depth and a remap term per frequency,
+    and the emission measure (``rtrace.transfer.tracer``)."""
+    return (3 * int(nfreq) + 1) * _FLOAT * int(npix)
+
+
+def trace_ray_bytes(nfreq, nrays):
+    """Bytes a trace holds per ray: its float64 segment (I and tau per frequency, EM) and the remap's
+    temporaries (values, background terms, tube positions)."""
+    return ((2 * int(nfreq) + 1) + (3 * int(nfreq) + 1 + 8)) * _FLOAT * int(nrays)
 
 
 def fft_kernel_bytes(half, fft_shape):

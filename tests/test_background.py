@@ -9,7 +9,6 @@ isothermal body has T_b = T); eq. 1.51 (Planck function) through astropy's
 here is an invented uniform slab.
 """
 
-import warnings
 
 import astropy.units as u
 import numpy as np

@@ -40,7 +40,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, warn_user
-from ..memory import check_memory, format_bytes
+from ..memory import check_memory, format_bytes, trace_image_bytes
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
@@ -366,7 +366,7 @@ def _check_ray_memory(route, supersample):
     finish = route.finish_bytes()
     need = rays + finish
     ny, nx = route.image_shape
-    images = (3 * route.nfreq + 1) * 8 * ny * nx
+    images = trace_image_bytes(route.nfreq, ny * nx)
     if isinstance(route, _ObliqueRoute) and need - images > images:
         (n_a, n_b), (m_a, m_b) = route.ray_shape, route.m
         field = "supersample" if supersample > 1 else "npix"
@@ -483,7 +483,7 @@ class _Route:
         """Images plus the remap's temporaries (values, background terms, tube positions)."""
         npix = int(np.prod(self.image_shape))
         rays = self.ray_count
-        return (3 * self.nfreq + 1) * 8 * npix + (3 * self.nfreq + 1 + 8) * 8 * rays
+        return trace_image_bytes(self.nfreq, npix) + (3 * self.nfreq + 1 + 8) * 8 * rays
 
     def table_bytes(self, edge):
         return 0
