@@ -56,8 +56,9 @@ import math
 import numba
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, warn_user
 from . import footprint_kernels as _k
+from .result import PixelAccuracyWarning
 
 __all__ = ["Footprint", "project_cells", "ACCURACY_TARGET"]
 
@@ -93,7 +94,11 @@ class Footprint:
     support : ((xlo, xhi), (ylo, yhi))
         Offsets ``delta = d - (col, row)`` outside which ``K`` is zero.
     xs, ys, table : ndarray
-        The nodes and ``table[j, i] = K(xs[i], ys[j])`` (cm).
+        The nodes and ``table[j, i] = K(xs[i], ys[j]) ** (1 / power)`` (K in cm).
+    kmax : float
+        Largest K (cm) on the exactly evaluated nodes.
+    exact_nodes : int
+        How many values of K were evaluated exactly (the build's cost).
     power : int
         The table holds ``K^(1/power)`` (3 or 1, see :meth:`_build`).
     accuracy : float
@@ -103,6 +108,29 @@ class Footprint:
     relative_accuracy : float
         The same errors divided by ``max(K, 0.01 max K)``: how well small
         contributions (a bright cell barely touching a faint pixel) keep.
+
+    Parameters
+    ----------
+    g_a, g_b, g_c, q0 : sequences of 2 floats
+        As the attributes (pixel units, (column, row)).
+    lscale : float
+        ``dc / |l_c|`` in cm.
+    image_shape : (ny, nx)
+    check : bool
+        Measure the table's error against exact values (and refine it to
+        :data:`ACCURACY_TARGET`); False builds one table unchecked
+        (``accuracy`` is then NaN).
+
+    Warns
+    -----
+    PixelAccuracyWarning
+        The table stopped more than 10 x :data:`ACCURACY_TARGET` short (its
+        node budget reached).
+
+    Raises
+    ------
+    InputError
+        Non-finite vectors, ``g_a`` parallel to ``g_b``, ``lscale <= 0``.
     """
 
     def __init__(self, g_a, g_b, g_c, q0, lscale, image_shape, *, check=True):
@@ -129,6 +157,11 @@ class Footprint:
                     or self.exact_nodes / _REFINE_STEP**2 > _MAX_EXACT_NODES:
                 break
             scale *= _REFINE_STEP
+        if self.accuracy > 10 * ACCURACY_TARGET:
+            warn_user(f"Footprint: the cell-to-pixel kernel of this view is tabulated only to "
+                      f"{self.accuracy:.1e} of its maximum (aimed at {ACCURACY_TARGET:.0e}); pixel values "
+                      f"built from it can be off by about that fraction of a cell's full contribution",
+                      PixelAccuracyWarning)
 
     def _build(self, scale, check):
         """Tabulate K at node spacings ``scale`` times the default; keep the better of K and K^(1/3).
@@ -204,7 +237,7 @@ class Footprint:
         extent = crit[-1] - crit[0]
         crit = crit[np.concatenate([[True], np.diff(crit) > 1e-12 * extent])]
         s = v.max() - v.min()
-        h = scale * _SPACING_FRACTION * min(s, 1.0) * max(s, 1.0) ** 0.25
+        h = scale * _SPACING_FRACTION * min(s, 1.0) * max(s, 1.0) ** 0.5
         coarse, fine, rows = [crit[:1]], [crit[:1]], [np.eye(1, 1)]
         ncoarse = 1
         blocks = []

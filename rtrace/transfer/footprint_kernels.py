@@ -214,6 +214,7 @@ def _locate(x, nodes, inv_step, bucket, x0, inv_bw):
     if not (nodes[0] <= x < nodes[n - 1]):
         return -1, 0.0
     i = bucket[min(int((x - x0) * inv_bw), bucket.shape[0] - 1)]
+    i += int(nodes[i + 1] <= x)          # buckets are finer than most node steps: one step, no branch
     while nodes[i + 1] <= x:
         i += 1
     return i, (x - nodes[i]) * inv_step[i]
