@@ -41,14 +41,16 @@ at most 6e-5 against an independent slab-method integration for generic
 directions, lines of sight in or near a coordinate plane, north along a
 grid axis, non-cubic cells and pixels of 0.1-8 cells. The one case known
 to stop short is a line of sight in a coordinate plane with north *not*
-along a grid axis and pixels far smaller than a cell (1e-4 to 3e-4 at
-0.1 cell). Totals are exact: each cell's weights are scaled to sum to its
-volume over the pixel area.
+along a grid axis and pixels far smaller than a cell (at 0.1 cell,
+1e-4 to 4e-4). Totals are exact: each cell's weights are scaled to sum to
+its volume over the pixel area.
 
-Cost (2 cores): a table takes 0.05-0.35 s for pixels of 0.5-8 cells
-(0.3-1.7 s for 0.1-cell pixels, whose tables are large); projecting costs
-about 80 ns of CPU per non-zero cell whose shadow spans a few pixels, and
-a few ns per zero cell (``benchmarks/bench_footprint.py``).
+Cost (2 cores, measured while other work shared them): a table takes
+0.05-0.35 s for pixels of 0.5-8 cells, 0.1-0.4 s for 0.1-cell pixels (up to
+1.1 s where a face is seen nearly edge-on and the table is refined);
+projecting costs about 70 ns of CPU per non-zero cell whose shadow spans a
+few pixels (a 256^3 grid onto 256^2 pixels: 1.0 s on 2 busy cores, about
+0.6 s idle) and a few ns per zero cell (``benchmarks/bench_footprint.py``).
 """
 
 import math
@@ -212,7 +214,11 @@ class Footprint:
 
     @classmethod
     def from_route(cls, route, **kw):
-        """The footprint of ``tracer._ObliqueRoute`` ``route`` (its ``cell_abc``, ``h``, ``rho``, ``e1``, ``e2``, ``p0``)."""
+        """The footprint of ``tracer._ObliqueRoute`` ``route``.
+
+        Uses its ``cell_abc``, ``h``, ``rho``, ``abs_lc``, ``e1``, ``e2``,
+        ``p0`` and ``image_shape``; keyword arguments go to the constructor.
+        """
         da, db, dc = (float(v) for v in route.cell_abc)
         h_a, h_b = route.h
         rho_a, rho_b = route.rho
@@ -362,8 +368,9 @@ def project_cells(footprint, values, lo, hi, off, out):
     vals = values.transpose(0, *(perm + 1))
     nchunk = max(1, min(numba.get_num_threads(), int(hi[perm[0]] - lo[perm[0]])))
     buf = np.zeros((nchunk,) + out.shape)
-    _k.project(vals, lo[perm], hi[perm], off[perm], np.ascontiguousarray(gmat[perm]), footprint.q0,
-               footprint.xs, footprint.ys, footprint._ixs, footprint._iys, footprint._bx, footprint._by, footprint._xinfo, footprint._yinfo,
-               footprint.table, footprint.power, footprint.total(), footprint.shadow, buf)
+    fp = footprint
+    _k.project(vals, lo[perm], hi[perm], off[perm], np.ascontiguousarray(gmat[perm]), fp.q0, fp.xs, fp.ys,
+               fp._ixs, fp._iys, fp._bx, fp._by, fp._xinfo, fp._yinfo, fp.table, fp.power, fp.total(),
+               fp.shadow, buf)
     out += buf.sum(axis=0)
     return out
