@@ -123,3 +123,43 @@ def test_background_with_the_split_matches_a_dense_lattice(grid):
     dense = rtrace.trace(snap, view, NU * u.Hz, supersample=16, background="cmb")
     assert _worst(split.intensity.value[1], dense.intensity.value[1]) < 1e-2
     assert split.specific_intensity("included").value[1].min() > 0
+
+
+def test_job_tolerance_key(tmp_path):
+    # [trace] tolerance reaches the tracer: the FITS cards record the estimate; with supersample too,
+    # or out of (0, 1), the job is refused before any work
+    from astropy.io import fits
+
+    from rtrace.cli import EXIT_CONFIG, EXIT_OK, main
+    job = """
+[snapshot]
+kind = "demo"
+cells = 16
+
+[frequencies]
+values = ["1 GHz", "10 GHz"]
+
+[trace]
+tolerance = 0.2
+
+[[view]]
+name = "tilted"
+los = [1, 2, 3]
+npix = 12
+distance = "2 kpc"
+
+[output]
+directory = "out"
+pictures = false
+"""
+    path = tmp_path / "job.toml"
+    path.write_text(job)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        assert main(["run", str(path), "--quiet"]) == EXIT_OK
+    header = fits.getheader(tmp_path / "out" / "tilted_intensity.fits")
+    assert 0.0 <= header["RTPIXERR"] and header["RTPIXSS"] >= 1
+    path.write_text(job.replace("tolerance = 0.2", "tolerance = 0.2\nsupersample = 2"))
+    assert main(["run", str(path), "--quiet"]) == EXIT_CONFIG
+    path.write_text(job.replace("tolerance = 0.2", "tolerance = 1.5"))
+    assert main(["run", str(path), "--quiet"]) == EXIT_CONFIG
