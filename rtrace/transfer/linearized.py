@@ -176,3 +176,50 @@ def remainder_pass(w_cells, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_
                         acc[f] += w_c[f] * ds
             for f in range(nf):
                 out_linear[f, r] = acc[f]
+
+
+@numba.njit(cache=True, parallel=True)
+def remainder_trace(alpha, source, w_cells, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+                    bg, out_rem):
+    """Trace one phase's rays on per-cell coefficients and return their remainders directly.
+
+    ``out_rem[f, r] = I + I_bg (e^{-tau} - 1) - sum_c W_c ds`` (the formal
+    solution of :func:`kernels._cross`, cell by cell; ``alpha``, ``source``,
+    ``w_cells`` ``(A, B, C, nf)``). For the refined blocks of a split trace,
+    where the lattice is dense: the coefficients are read, not recomputed
+    per lattice phase.
+    """
+    nk = count.shape[0]
+    nf = w_cells.shape[3]
+    na, nb = w_cells.shape[0], w_cells.shape[1]
+    for p in prange(n_i):
+        acc_i = np.empty(nf)
+        acc_t = np.empty(nf)
+        lin = np.empty(nf)
+        for q in range(n_j):
+            r = p * n_j + q
+            for f in range(nf):
+                acc_i[f] = 0.0
+                acc_t[f] = 0.0
+                lin[f] = 0.0
+            for s in range(nk):
+                k = k_lo + s if forward else k_lo + nk - 1 - s
+                for g in range(count[s]):
+                    a = i0 + p + seg_da[s, g]
+                    b = j0 + q + seg_db[s, g]
+                    if a < 0 or b < 0 or a >= na or b >= nb:
+                        continue
+                    kap_c = alpha[a, b, k]
+                    if kap_c[0] == 0.0:
+                        continue
+                    ds = seg_ds[s, g]
+                    src_c = source[a, b, k]
+                    w_c = w_cells[a, b, k]
+                    for f in range(nf):
+                        dtau = kap_c[f] * ds
+                        att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
+                        acc_i[f] += att * (src_c[f] - acc_i[f])
+                        acc_t[f] += dtau
+                        lin[f] += w_c[f] * ds
+            for f in range(nf):
+                out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]

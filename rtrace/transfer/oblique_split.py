@@ -17,6 +17,7 @@ It also returns a per-pixel estimate of the remainder's quadrature error
 
 import numpy as np
 
+from ..memory import check_memory
 from . import kernels, linearized
 from .compositing import Segment
 from .remap import remap_parallelograms
@@ -65,19 +66,27 @@ def _layer_segments(route, pa, pb, nk):
 
 
 def cell_sensitivities(route, cells, seg, bg):
-    """Per-cell ``alpha_nu`` and mean sensitivity ``W`` (both ``(A, B, C, nfreq)``, route axis order).
+    """Per-cell quantities of the split, in the route's axis order.
 
-    ``cells`` = ``(n_e x ion term, T)`` in the route's axis order; ``seg``:
-    the traced rays (``(nfreq, nI, nJ)`` intensity without background and
-    optical depth) of this route's lattice.
+    Returns ``(stack, source)``: ``stack`` ``(A, B, C, 2 nfreq + 1)`` holds
+    ``alpha_nu`` (``[..., :nfreq]``), the mean sensitivity ``W``
+    (``[..., nfreq:2 nfreq]``) and ``n_e x ion term`` (``[..., -1]``), the
+    quantities projected onto the pixels in one pass; ``source`` is
+    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T)``;
+    ``seg``: the traced rays (``(nfreq, nI, nJ)`` intensity without
+    background and optical depth) of this route's lattice.
     """
     nn_abc, t_abc = cells
     nf = route.nfreq
     shape = nn_abc.shape
-    alpha = np.empty(shape + (nf,))
+    check_memory(8 * int(np.prod(shape)) * (3 * nf + 1), field="tolerance",
+                 what=f"the per-cell coefficients of {nf} frequencies on {'x'.join(map(str, shape))} cells",
+                 hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies")
+    stack = np.zeros(shape + (2 * nf + 1,))
     source = np.empty(shape + (nf,))
+    alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
     linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), alpha, source)
-    w = np.zeros(shape + (nf,))
+    stack[..., -1] = nn_abc
     m_a, m_b = route.m
     weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
     i_first, i_last = route.ia
@@ -88,8 +97,7 @@ def cell_sensitivities(route, cells, seg, bg):
         ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
         linearized.sensitivity_pass(alpha, source, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
                                     ray_i, ray_t, bg, weight, w)
-    del source
-    return alpha, w
+    return stack, source
 
 
 def remainders(route, w, seg, bg):
@@ -110,6 +118,21 @@ def remainders(route, w, seg, bg):
     return out
 
 
+def traced_remainders(route, alpha, source, w, bg):
+    """:func:`remainders` of a (sub-)route's rays, traced on the per-cell coefficients (no separate trace)."""
+    nf = route.nfreq
+    out = np.zeros((nf,) + tuple(route.ray_shape))
+    i_first, i_last = route.ia
+    j_first, j_last = route.ib
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
+        rem = np.zeros((nf, n_i * n_j))
+        linearized.remainder_trace(alpha, source, w, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+                                   bg, rem)
+        out[:, rows, cols] = rem.reshape(nf, n_i, n_j)
+    return out
+
+
 def remap_rays(route, values):
     """Footprint means over the pixels of per-ray ``values`` ``(nq, nI, nJ)`` (tubes clipped exactly)."""
     ny, nx = route.image_shape
@@ -125,14 +148,19 @@ def remap_rays(route, values):
 
 
 def local_bound(route, rem):
-    """Per pixel, a bound on the remainder's quadrature error on this lattice (``(nfreq, ny, nx)``).
+    """Per pixel, an estimate of the remainder's quadrature error on this lattice (``(nfreq, ny, nx)``).
 
     A pixel's lattice value is a mean of nearby rays' remainders, each
     standing for its tube, where the true remainder varies between the
     values of neighbouring rays; so the error is at most about twice the
-    largest ``|R|`` among a ray and its eight neighbours, remapped like the
-    values. Cheap, and small wherever the gas is optically thin (R ~ 0):
-    pixels it clears need no finer lattice.
+    largest ``|R|`` among a ray and its eight neighbours. That bound is far
+    from tight: on the lognormal grids of ``tests/test_pixel_accuracy.py``
+    (three directions, pixels of 1.6 and 4 cells, an optically thick and a
+    thin frequency) it exceeded the measured error of every pixel by a
+    factor 9 to 70 at one ray per cell. :data:`BOUND_FRACTION` of it is
+    used (still at least twice the measured error there), remapped like
+    the values. Cheap, and small wherever the gas is optically thin (R ~ 0),
+    so those pixels need no finer lattice.
     """
     mag = np.abs(rem)
     big = mag.copy()
@@ -144,7 +172,7 @@ def local_bound(route, rem):
         np.maximum(shifted[tuple(lo)], big[tuple(hi)], out=shifted[tuple(lo)])
         np.maximum(shifted[tuple(hi)], big[tuple(lo)], out=shifted[tuple(hi)])
         big = shifted
-    return remap_rays(route, 2.0 * big)
+    return remap_rays(route, 2.0 * BOUND_FRACTION * big)
 
 
 def sub_route(route, r0, r1, c0, c1):
@@ -173,8 +201,12 @@ def sub_route(route, r0, r1, c0, c1):
     return out
 
 
-# Pixels per side of the blocks refined on their own.
+# Fraction of the local bound taken as the first lattice's error estimate (see local_bound).
+BOUND_FRACTION = 0.25
+# Pixels per side of the blocks refined on their own at 2 rays per cell side; halved with each
+# further doubling (the pixels left to refine are fewer and each costs four times more), down to MIN_TILE.
 TILE = 16
+MIN_TILE = 2
 # The estimate on a refined block is this times the change from the previous lattice: the finer
 # lattice's error when the error halves per doubling, three times it when it falls fourfold (the
 # remainder is smooth between cell edges).
@@ -234,18 +266,15 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     cells_abc = tuple(c.transpose(order) for c in cells)
     seg = trace_rays(route)
     bg_rays = np.zeros_like(bg) if thin_scale is not None else bg
-    alpha, w = cell_sensitivities(route, cells_abc, seg, bg_rays)
-    fp = Footprint.from_route(route)
+    stack, source = cell_sensitivities(route, cells_abc, seg, bg_rays)
+    nf = route.nfreq
+    alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
     ny, nx = route.image_shape
     zero = np.zeros(3, np.int64)
     whole = np.asarray(cells_abc[0].shape, np.int64)
-    proj_w = np.zeros((route.nfreq, ny, nx))
-    project_cells(fp, w.transpose(3, 0, 1, 2), zero, whole, zero, proj_w)
-    tau = np.zeros((route.nfreq, ny, nx))
-    project_cells(fp, alpha.transpose(3, 0, 1, 2), zero, whole, zero, tau)
-    del alpha
-    em = np.zeros((1, ny, nx))
-    project_cells(fp, cells_abc[0][None], zero, whole, zero, em)
+    projected = np.zeros((2 * nf + 1, ny, nx))
+    project_cells(Footprint.from_route(route), stack.transpose(3, 0, 1, 2), zero, whole, zero, projected)
+    tau, proj_w, em = projected[:nf], projected[nf:2 * nf], projected[2 * nf:]
     scale = 1.0 if thin_scale is None else 1.0 / thin_scale
     rem = remainders(route, w, seg, bg_rays)
     lattice = remap_rays(route, rem)
@@ -260,11 +289,11 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     while tolerance is not None and failing.any() and 2 * m <= max_supersample:
         fine = make_route(2 * m)
         m = max(fine.m)
-        for r0, r1, c0, c1 in _tiles(failing, TILE):
+        for r0, r1, c0, c1 in _tiles(failing, max(MIN_TILE, TILE * 2 // m)):
             part = sub_route(fine, r0, r1, c0, c1)
             if part.ray_shape == (0, 0):
                 continue
-            rem = remainders(part, w, trace_rays(part), bg_rays)
+            rem = traced_remainders(part, alpha, source, w, bg_rays)
             block = remap_rays(part, rem)
             error[:, r0:r1, c0:c1] = ESTIMATE_FACTOR * np.abs(block - lattice[:, r0:r1, c0:c1])
             lattice[:, r0:r1, c0:c1] = block
@@ -277,4 +306,6 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     if thin_scale is not None:
         tau[...] = 0.0
     images = SplitImages(delta, tau, em[0], error, rays / (nx * ny))
+    del stack, source
     return images, m, estimate, converged
+
