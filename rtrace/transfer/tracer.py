@@ -138,8 +138,9 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         pixels, and so is the part of the intensity linear in the cells'
         path lengths (all of it for optically thin gas); the ray lattice
         only integrates the remainder, refined (2, 4, ... rays per cell
-        side, up to :data:`MAX_SUPERSAMPLE`) in blocks of 16 x 16 pixels
-        where its estimated error exceeds ``tolerance``. Otherwise (bricks,
+        side, up to :data:`MAX_SUPERSAMPLE`) in blocks of pixels (16 x 16
+        at the first doubling, halved at each further one) where its
+        estimated error exceeds ``tolerance``. Otherwise (bricks,
         dask, AMR) the whole lattice is doubled until two successive images
         agree to ``tolerance``, which costs about four times the previous
         trace per doubling. The estimate reached is in
@@ -242,7 +243,11 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
                  rays_per_pixel=nrays, background=bg, background_info=bg_info, pixel_error=pixel_error)
     # what the diagnostics need to retrace the same rays (see Result.unabsorbed_intensity)
     res._snapshot = snapshot
-    res._trace_options = dict(supersample=pixel_error.supersample, brick_size=brick_size, max_memory=max_memory)
+    if pixel_error.tolerance is not None and view.los_axis() is None:
+        lattice = dict(tolerance=pixel_error.tolerance)            # the same accuracy, not the same rays
+    else:
+        lattice = dict(supersample=pixel_error.supersample)
+    res._trace_options = dict(lattice, brick_size=brick_size, max_memory=max_memory)
     return res
 
 
