@@ -36,7 +36,7 @@ import numpy as np
 from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
-from .kernels import _cell_coefficients
+from .kernels import BLOCK_SHIFT, _cell_coefficients
 
 # Rays thicker than this carry the transmission to the observer as exp(tau behind - tau), not as a
 # running product started from e^{-tau} (which underflows near 745).
@@ -48,7 +48,8 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
     """Fill ``alpha[a, b, c, :]`` (cm-1) and ``source[a, b, c, :]`` (``B_nu(T)``, cgs) for every cell.
 
     ``nn_cells`` is ``n_e x ion term`` and ``temp`` the temperature, both
-    ``(A, B, C)`` (any strides); cells with ``nn = 0`` get ``alpha = 0``.
+    ``(A, B, C)`` (any strides); cells with ``nn = 0`` get ``alpha = 0`` (and
+    their ``source`` is left as it was: it is never read where alpha is 0).
     Frequencies are the last (contiguous) axis. Same coefficients as the
     tracer's kernels (:func:`kernels._cell_coefficients`).
     """
@@ -57,16 +58,20 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
     gtab_t = np.ascontiguousarray(gtab.T)
     hk_max = hk.max()
     for a in prange(na):
+        kap = np.empty(nf)
+        src = np.empty(nf)
         for b in range(nb):
             for c in range(nc):
                 nn = float(nn_cells[a, b, c])
                 if nn > 0.0:
                     _cell_coefficients(nn, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
-                                       alpha_pref, b_pref, alpha[a, b, c], source[a, b, c])
+                                       alpha_pref, b_pref, kap, src)
+                    for f in range(nf):
+                        alpha[a, b, c, f] = kap[f]
+                        source[a, b, c, f] = src[f]
                 else:
                     for f in range(nf):
                         alpha[a, b, c, f] = 0.0
-                        source[a, b, c, f] = 0.0
 
 
 @numba.njit(cache=True, inline="always")
@@ -83,7 +88,7 @@ def _row_stride(count, seg_da):
 
 
 @numba.njit(cache=True, parallel=True)
-def sensitivity_pass(alpha, source, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                      ray_i, ray_tau, bg, weight, out_w):
     """Add, for every ray of the phase and cell it crosses, ``weight * ds * dI/dL_c`` to ``out_w[cell]``.
 
@@ -125,14 +130,14 @@ def sensitivity_pass(alpha, source, k_lo, forward, i0, n_i, j0, n_j, count, seg_
                         b = j0 + q + seg_db[s, g]
                         if a < 0 or b < 0 or a >= na or b >= nb:
                             continue
-                        ds = seg_ds[s, g]
-                        kap_c = alpha[a, b, k]
-                        if kap_c[0] == 0.0:
+                        if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                            continue            # a block of cells with no emitting gas
+                        if alpha[a, b, k, 0] == 0.0:
                             continue            # no gas (alpha is 0 at every frequency or none)
-                        src_c = source[a, b, k]
-                        w_c = out_w[a, b, k]
+                        ds = seg_ds[s, g]
                         for f in range(nf):
-                            kap = kap_c[f]
+                            kap = alpha[a, b, k, f]
+                            src = source[a, b, k, f]
                             dtau = kap * ds
                             if dtau < SERIES_LIMIT:
                                 att = one_minus_exp_series(dtau)      # 1 - e^{-dtau}
@@ -140,7 +145,7 @@ def sensitivity_pass(alpha, source, k_lo, forward, i0, n_i, j0, n_j, count, seg_
                             else:
                                 att = -math.expm1(-dtau)
                                 grow = 1.0 / (1.0 - att)                # e^{dtau}
-                            acc_i[f] += att * (src_c[f] - acc_i[f])
+                            acc_i[f] += att * (src - acc_i[f])
                             back[f] *= 1.0 - att
                             if ray_tau[f, r] < _DIRECT_TAU:
                                 front[f] = min(front[f] * grow, 1.0)
@@ -148,11 +153,11 @@ def sensitivity_pass(alpha, source, k_lo, forward, i0, n_i, j0, n_j, count, seg_
                                 behind[f] += dtau
                                 front[f] = math.exp(min(behind[f] - ray_tau[f, r], 0.0))
                             i_out = acc_i[f] + bg[f] * back[f]
-                            w_c[f] += weight * ds * kap * (src_c[f] - i_out) * front[f]
+                            out_w[a, b, k, f] += weight * ds * kap * (src - i_out) * front[f]
 
 
 @numba.njit(cache=True, parallel=True)
-def remainder_pass(w_cells, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
+def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
     """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase (``w_cells`` (A, B, C, nf))."""
     nk = count.shape[0]
     nf = w_cells.shape[3]
@@ -170,17 +175,18 @@ def remainder_pass(w_cells, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_
                     b = j0 + q + seg_db[s, g]
                     if a < 0 or b < 0 or a >= na or b >= nb:
                         continue
+                    if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                        continue
                     ds = seg_ds[s, g]
-                    w_c = w_cells[a, b, k]
                     for f in range(nf):
-                        acc[f] += w_c[f] * ds
+                        acc[f] += w_cells[a, b, k, f] * ds
             for f in range(nf):
                 out_linear[f, r] = acc[f]
 
 
 @numba.njit(cache=True, parallel=True)
-def remainder_trace(alpha, source, w_cells, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
-                    bg, out_rem):
+def remainder_trace(alpha, source, w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
+                    seg_ds, bg, out_rem):
     """Trace one phase's rays on per-cell coefficients and return their remainders directly.
 
     ``out_rem[f, r] = I + I_bg (e^{-tau} - 1) - sum_c W_c ds`` (the formal
@@ -209,17 +215,16 @@ def remainder_trace(alpha, source, w_cells, k_lo, forward, i0, n_i, j0, n_j, cou
                     b = j0 + q + seg_db[s, g]
                     if a < 0 or b < 0 or a >= na or b >= nb:
                         continue
-                    kap_c = alpha[a, b, k]
-                    if kap_c[0] == 0.0:
+                    if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                        continue
+                    if alpha[a, b, k, 0] == 0.0:
                         continue
                     ds = seg_ds[s, g]
-                    src_c = source[a, b, k]
-                    w_c = w_cells[a, b, k]
                     for f in range(nf):
-                        dtau = kap_c[f] * ds
+                        dtau = alpha[a, b, k, f] * ds
                         att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
-                        acc_i[f] += att * (src_c[f] - acc_i[f])
+                        acc_i[f] += att * (source[a, b, k, f] - acc_i[f])
                         acc_t[f] += dtau
-                        lin[f] += w_c[f] * ds
+                        lin[f] += w_cells[a, b, k, f] * ds
             for f in range(nf):
                 out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]

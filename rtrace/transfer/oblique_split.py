@@ -65,14 +65,15 @@ def _layer_segments(route, pa, pb, nk):
                                   route.abs_lc, 0, nk, route.forward, route.max_seg)
 
 
-def cell_sensitivities(route, cells, seg, bg):
+def cell_sensitivities(route, cells, blocks, seg, bg):
     """Per-cell quantities of the split, in the route's axis order.
 
     Returns ``(stack, source)``: ``stack`` ``(A, B, C, 2 nfreq + 1)`` holds
     ``alpha_nu`` (``[..., :nfreq]``), the mean sensitivity ``W``
     (``[..., nfreq:2 nfreq]``) and ``n_e x ion term`` (``[..., -1]``), the
     quantities projected onto the pixels in one pass; ``source`` is
-    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T)``;
+    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T)`` and
+    ``blocks`` (:func:`kernels.emitting_blocks`), in the route's axis order;
     ``seg``: the traced rays (``(nfreq, nI, nJ)`` intensity without
     background and optical depth) of this route's lattice.
     """
@@ -95,12 +96,12 @@ def cell_sensitivities(route, cells, seg, bg):
         count, da, db, ds = _layer_segments(route, pa, pb, shape[2])
         ray_i = np.ascontiguousarray(seg.intensity[:, rows, cols]).reshape(nf, -1)
         ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
-        linearized.sensitivity_pass(alpha, source, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+        linearized.sensitivity_pass(alpha, source, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
                                     ray_i, ray_t, bg, weight, w)
     return stack, source
 
 
-def remainders(route, w, seg, bg):
+def remainders(route, w, blocks, seg, bg):
     """``R - I_bg = I + I_bg (e^-tau - 1) - sum_c W_c L_c`` on every ray of the route (``(nfreq, nI, nJ)``).
 
     The background is left out (as in the tracer's images) so that pixels
@@ -113,12 +114,12 @@ def remainders(route, w, seg, bg):
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
         count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
         linear = np.zeros((nf, n_i * n_j))
-        linearized.remainder_pass(w, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
+        linearized.remainder_pass(w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
         out[:, rows, cols] -= linear.reshape(nf, n_i, n_j)
     return out
 
 
-def traced_remainders(route, alpha, source, w, bg):
+def traced_remainders(route, alpha, source, w, blocks, bg):
     """:func:`remainders` of a (sub-)route's rays, traced on the per-cell coefficients (no separate trace)."""
     nf = route.nfreq
     out = np.zeros((nf,) + tuple(route.ray_shape))
@@ -127,7 +128,7 @@ def traced_remainders(route, alpha, source, w, bg):
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
         count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
         rem = np.zeros((nf, n_i * n_j))
-        linearized.remainder_trace(alpha, source, w, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+        linearized.remainder_trace(alpha, source, w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
                                    bg, rem)
         out[:, rows, cols] = rem.reshape(nf, n_i, n_j)
     return out
@@ -252,8 +253,9 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
 
     ``make_route(m)`` gives the oblique route with ``m`` rays per cell side;
     ``trace_rays(route)`` its traced rays (a Segment ``(nfreq, nI, nJ)``,
-    intensity without background); ``cells`` = ``(n_e x ion term, T)`` in
-    grid order. With ``tolerance`` None one lattice (m = 1) is used.
+    intensity without background); ``cells`` = ``(n_e x ion term, T,
+    emitting blocks)`` in grid order (:meth:`Snapshot.emitting_blocks`).
+    With ``tolerance`` None one lattice (m = 1) is used.
     ``thin_scale``: the opacity scale of an absorption-free trace (then
     the background is left out of the sensitivities and the images are
     divided by it). Returns ``(SplitImages, m, relative estimate, converged)``.
@@ -263,10 +265,11 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     route = make_route(1)
     m = max(route.m)            # pixels smaller than a cell get more than one ray per cell side
     order = route.order
-    cells_abc = tuple(c.transpose(order) for c in cells)
+    nn_abc, t_abc, blocks = (c.transpose(order) for c in cells)
+    cells_abc = (nn_abc, t_abc)
     seg = trace_rays(route)
     bg_rays = np.zeros_like(bg) if thin_scale is not None else bg
-    stack, source = cell_sensitivities(route, cells_abc, seg, bg_rays)
+    stack, source = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)
     nf = route.nfreq
     alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
     ny, nx = route.image_shape
@@ -276,7 +279,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     project_cells(Footprint.from_route(route), stack.transpose(3, 0, 1, 2), zero, whole, zero, projected)
     tau, proj_w, em = projected[:nf], projected[nf:2 * nf], projected[2 * nf:]
     scale = 1.0 if thin_scale is None else 1.0 / thin_scale
-    rem = remainders(route, w, seg, bg_rays)
+    rem = remainders(route, w, blocks, seg, bg_rays)
     lattice = remap_rays(route, rem)
     error = local_bound(route, rem)
     rays = float(route.ray_count)
@@ -293,7 +296,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
             part = sub_route(fine, r0, r1, c0, c1)
             if part.ray_shape == (0, 0):
                 continue
-            rem = traced_remainders(part, alpha, source, w, bg_rays)
+            rem = traced_remainders(part, alpha, source, w, blocks, bg_rays)
             block = remap_rays(part, rem)
             error[:, r0:r1, c0:c1] = ESTIMATE_FACTOR * np.abs(block - lattice[:, r0:r1, c0:c1])
             lattice[:, r0:r1, c0:c1] = block

@@ -381,8 +381,9 @@ def _split(tolerance, run):
                                   blocks=snapshot.emitting_blocks())
         return _full_segment(patch, route.nfreq, route.ray_shape)
 
+    cells = (snapshot.emission_product(), snapshot._t, snapshot.emitting_blocks())
     images, m, estimate, converged = split_trace(
-        make_route, trace_rays, (snapshot.emission_product(), snapshot._t), run["bg"], tolerance=tolerance,
+        make_route, trace_rays, cells, run["bg"], tolerance=tolerance,
         floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
     if tolerance is not None and not converged:
         warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
