@@ -34,6 +34,7 @@ to the Born value; this floor lies outside the range we verified.
 
 import functools
 import math
+import warnings
 from importlib import resources
 
 import astropy.units as u
@@ -41,12 +42,13 @@ import numpy as np
 from scipy import special
 from scipy.interpolate import CubicSpline
 
+from ..errors import InputError
 from .constants import EULER_GAMMA, H_OVER_K, K_B, RYDBERG_ENERGY
 
 __all__ = [
     "gaunt_factor", "gaunt_cgs", "born_thermal", "coulomb_correction",
     "classical_correction", "classical_radio_gaunt", "born_radio_gaunt",
-    "log_temperature_table", "LOG_T_MIN", "LOG_T_MAX",
+    "log_temperature_table", "LOG_T_MIN", "LOG_T_MAX", "CHARGES",
 ]
 
 SQRT3_PI = math.sqrt(3.0) / math.pi
@@ -55,6 +57,8 @@ RY_OVER_K = RYDBERG_ENERGY / K_B          # 1.5789e5 K
 # Temperature range of the per-frequency lookup tables used by the kernels.
 LOG_T_MIN = math.log(1.0)                  # 1 K
 LOG_T_MAX = math.log(1.0e10)               # 1e10 K, beyond the non-relativistic range
+#: Ion charges the Gaunt factor is provided for: H II and He II (1), He III (2).
+CHARGES = (1, 2)
 
 
 def born_thermal(u_):
@@ -128,12 +132,16 @@ def classical_correction(w):
     return np.where(log_w < grid[0], low, np.where(log_w > grid[-1], high, inner))
 
 
-def gaunt_cgs(nu, temperature, Z=1):
-    """Gaunt factor for plain arrays: ``nu`` in Hz, ``temperature`` in K."""
+def gaunt_cgs(nu, temperature, charge=1):
+    """Gaunt factor for plain arrays: ``nu`` in Hz, ``temperature`` in K, ion ``charge`` Z.
+
+    Z enters only through ``gamma^2 = Z^2 Ry / kT`` (``u = h nu / kT`` does not
+    depend on it), so ``gbar(nu, T, Z) = gbar(nu / Z^2, T / Z^2, 1)``.
+    """
     nu = np.asarray(nu, float)
     t = np.asarray(temperature, float)
     uu = H_OVER_K * nu / t
-    gamma2 = Z * Z * RY_OVER_K / t
+    gamma2 = charge * charge * RY_OVER_K / t
     w = uu * np.sqrt(gamma2)
     g = SQRT3_PI * (np.log(4.0 / uu) - EULER_GAMMA) + coulomb_correction(gamma2) + classical_correction(w)
     wien = uu > 1.0
@@ -149,8 +157,15 @@ def _as_cgs(value, unit, equivalencies):
     return np.asarray(value, float)
 
 
-def gaunt_factor(frequency, temperature, Z=1):
-    """Thermally averaged free-free Gaunt factor ``gbar_ff(nu, T)``.
+def _check_charge(charge):
+    if isinstance(charge, (bool, np.bool_)) or charge not in CHARGES:
+        raise InputError(f"charge: the Gaunt factor is provided for ion charges {CHARGES} "
+                         f"(H II and He II: 1, He III: 2), got {charge!r}")
+    return int(charge)
+
+
+def gaunt_factor(frequency, temperature, charge=1, *, Z=None):
+    """Thermally averaged free-free Gaunt factor ``gbar_ff(nu, T)`` for ions of charge ``charge``.
 
     Parameters
     ----------
@@ -158,17 +173,29 @@ def gaunt_factor(frequency, temperature, Z=1):
         Frequency; plain numbers are taken to be in Hz.
     temperature : `~astropy.units.Quantity` or array_like
         Electron temperature; plain numbers are taken to be in K.
+    charge : {1, 2}, optional
+        Ion charge Z: 1 for H II and He II, 2 for He III. It enters through
+        ``gamma^2 = Z^2 Ry / kT``.
     Z : int, optional
-        Ion charge (1 for H+ and He+, 2 for He++).
+        Deprecated spelling of ``charge`` (DeprecationWarning).
 
     Returns
     -------
     numpy.ndarray
         Dimensionless Gaunt factor, broadcast over the inputs.
+
+    Raises
+    ------
+    InputError
+        A charge other than 1 or 2.
     """
+    if Z is not None:
+        warnings.warn("gaunt_factor: the keyword Z= is deprecated; use charge=", DeprecationWarning, stacklevel=2)
+        charge = Z
+    charge = _check_charge(charge)
     nu = _as_cgs(frequency, u.Hz, u.spectral())
     t = _as_cgs(temperature, u.K, u.temperature())
-    return gaunt_cgs(nu, t, Z)
+    return gaunt_cgs(nu, t, charge)
 
 
 def classical_radio_gaunt(nu, temperature, Z=1):
@@ -193,7 +220,7 @@ def born_radio_gaunt(nu, temperature):
     return SQRT3_PI * (np.log(4.0 / uu) - EULER_GAMMA)
 
 
-def log_temperature_table(nu, n_table=4097):
+def log_temperature_table(nu, n_table=4097, charge=1):
     """Gaunt factor for each frequency on a uniform grid in ``ln T`` (1 K to 1e10 K).
 
     The kernels interpolate this table linearly in ``ln T``; the Gaunt factor
@@ -202,23 +229,33 @@ def log_temperature_table(nu, n_table=4097):
     most recent frequencies), so repeated traces at the same frequencies do
     not evaluate the Gaunt factor again.
 
+    Parameters
+    ----------
+    nu : array_like
+        Frequencies in Hz.
+    n_table : int, optional
+        Nodes of the ``ln T`` grid.
+    charge : {1, 2}, optional
+        Ion charge Z.
+
     Returns
     -------
     log_t0, dlog_t : float
         First node and spacing of the grid in ``ln(T / K)``.
     table : ndarray, shape (nfreq, n_table)
     """
+    charge = _check_charge(charge)
     log_t = np.linspace(LOG_T_MIN, LOG_T_MAX, n_table)
     nu = np.atleast_1d(np.asarray(nu, float))
     table = np.empty((nu.size, n_table))
     for f, nu_f in enumerate(nu.ravel()):
-        table[f] = _table_row(float(nu_f), n_table)
+        table[f] = _table_row(float(nu_f), n_table, charge)
     return LOG_T_MIN, log_t[1] - log_t[0], table
 
 
-@functools.lru_cache(maxsize=256)
-def _table_row(nu, n_table):
+@functools.lru_cache(maxsize=512)
+def _table_row(nu, n_table, charge=1):
     """One frequency's row of :func:`log_temperature_table` (read-only: it is shared)."""
-    row = gaunt_cgs(nu, np.exp(np.linspace(LOG_T_MIN, LOG_T_MAX, n_table)))
+    row = gaunt_cgs(nu, np.exp(np.linspace(LOG_T_MIN, LOG_T_MAX, n_table)), charge)
     row.flags.writeable = False
     return row
