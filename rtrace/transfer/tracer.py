@@ -57,7 +57,7 @@ __all__ = ["trace", "FrequencyTables", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ES
 # What every traced image assumes (written to provenance and FITS headers).
 PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
            "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
-           "Gaunt factor: soft-photon Born + Coulomb correction + classical finite-frequency term, "
+           "Gaunt factor: exact thermal average of the Sommerfeld factor (rtrace's mpmath table), "
            "per ion charge (Z=1 for H II and He II, Z=2 for He III, whose share of the ion term is "
            "2 (1 - n_e / ion term))")
 
