@@ -69,9 +69,7 @@ def test_charge_two_classical_radio_form():
 def test_charge_two_against_exact_sommerfeld_values():
     # tests/data/gaunt_sommerfeld.csv: exact thermal averages of the Sommerfeld (1931) Gaunt factor as a
     # function of (u, gamma^2) (tools/gaunt_sommerfeld.py, mpmath). For Z = 2 the same (u, gamma^2) is met at
-    # T = 4 Ry / (k gamma^2), nu = u k T / h. Tolerances: 0.1% wherever h nu < 1e-3 kT (as for Z = 1 in
-    # tests/test_gaunt.py); elsewhere the largest deviations measured for this evaluation (issue 15's audit:
-    # 3.5% below h nu = kT, 22% on the Wien side), which the exact table is to remove.
+    # T = 4 Ry / (k gamma^2), nu = u k T / h. Within 1e-4 everywhere, as for Z = 1 (tests/test_gaunt_table.py).
     path = __import__("pathlib").Path(__file__).parent / "data" / "gaunt_sommerfeld.csv"
     lines = [ln for ln in path.read_text().splitlines() if ln and not ln.startswith("#")][1:]
     checked = 0
@@ -79,7 +77,7 @@ def test_charge_two_against_exact_sommerfeld_values():
         t = 4.0 * RY_OVER_K / gamma2
         nu = uu * t / H_OVER_K
         ours = float(gaunt_factor(nu * u.Hz, t * u.K, charge=2))
-        tol = 1e-3 if uu < 1e-3 else (0.04 if uu < 1 else 0.25)
+        tol = 1e-4
         assert ours == pytest.approx(exact, rel=tol), (gamma2, uu)
         checked += 1
     assert checked >= 40

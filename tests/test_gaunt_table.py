@@ -41,7 +41,7 @@ def test_off_node_points_within_1e4_radio_and_1e3_everywhere():
     assert radio.sum() >= 50 and (~radio).sum() >= 50
     assert dev[radio].max() <= 1e-4                           # issue 15's requirement at radio
     assert dev.max() <= 1e-3                                  # and everywhere
-    assert dev.max() <= 1e-4                                  # measured: well inside it (README)
+    assert dev.max() <= 1e-5                                  # measured 2.1e-6 (README, "Gaunt factor accuracy")
 
 
 def test_against_the_independent_quadrature():
@@ -51,10 +51,10 @@ def test_against_the_independent_quadrature():
     gamma2, uu, exact = rows[:, 0], rows[:, 1], rows[:, 2]
     dev = np.abs(_ours(uu, gamma2) / exact - 1)
     assert (uu < 1e-6).sum() >= 5
-    assert dev.max() <= 1e-4
+    assert dev.max() <= 1e-5                                  # measured 5.5e-6 (soft continuation)
     # the He III factor is the same function at T / 4: the same points with Z = 2
     dev2 = np.abs(_ours(uu, gamma2, charge=2) / exact - 1)
-    assert dev2.max() <= 1e-4
+    assert dev2.max() <= 1e-5
 
 
 def test_table_header_names_its_command_and_the_grid_covers_the_box():
@@ -70,8 +70,11 @@ def test_born_and_classical_limits_through_the_table():
     # Born radio form (sqrt(3)/pi) ln(4 kT / zeta h nu) (REFERENCES.md, from memory) at 1e9 K and 100 MHz:
     # the Coulomb correction is O(gamma^2) there in the soft-photon limit, gamma^2 = 1.6e-4.
     assert float(gaunt_cgs(1e8, 1e9)) == pytest.approx(float(gaunt.born_radio_gaunt(1e8, 1e9)), rel=1e-3)
-    # Oster (1961) classical radio form at 30 MHz, 300 K (w = u gamma = 1.1e-5, within 0.1%: tests/test_gaunt.py)
-    assert float(gaunt_cgs(3e7, 300.0)) == pytest.approx(float(gaunt.classical_radio_gaunt(3e7, 300.0)), rel=1e-3)
+    # Oster (1961) classical radio form at 33 MHz, 1580 K (gamma^2 = 100, u = 1e-6, w = u gamma = 1e-5): the
+    # quantum correction ~1/(12 gamma^2) (A&S 6.3.19) and the finite-frequency one (~7.5 w^(2/3) absolute,
+    # tools/gaunt_classical.py) are each below 1e-3 relative there
+    assert float(gaunt_cgs(3.3e7, 1580.0)) == pytest.approx(float(gaunt.classical_radio_gaunt(3.3e7, 1580.0)),
+                                                            rel=1e-3)
 
 
 def test_continuation_is_continuous_at_the_table_edges():
