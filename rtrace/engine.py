@@ -178,7 +178,8 @@ class Engine:
                     raise ConfigError(str(exc)) from None
         t0 = time.perf_counter()
         res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
-                    supersample=job.trace.get("supersample", 1), **kw)
+                    supersample=None if "tolerance" in job.trace else job.trace.get("supersample", 1),
+                    tolerance=job.trace.get("tolerance"), **kw)
         res.provenance["trace_seconds"] = f"{time.perf_counter() - t0:.2f}"
         if job.beam:
             sky = _observe(res, job, label)               # warns itself when emission reaches the edge

@@ -42,7 +42,7 @@ SCHEMA = {
     "source": {"position": "length3", "rate": "rate"},
     "frequencies": {"values": "frequency_list", "start": "frequency", "stop": "frequency",
                     "num": int, "spacing": str},
-    "trace": {"background": str, "supersample": int},
+    "trace": {"background": str, "supersample": int, "tolerance": float},
     "view": {"name": str, "los": list, "north": list, "npix": (int, list), "width": "length",
              "distance": "length", "center": "length3", "ra": "angle", "dec": "angle"},
     "beam": {"major": "angle", "minor": "angle", "pa": "angle", "scaling": str,

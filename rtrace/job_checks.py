@@ -11,6 +11,7 @@ raises :class:`~rtrace.errors.ConfigError` naming the table and key
 many items are affected.
 """
 
+import math
 import string
 
 import astropy.units as u
@@ -235,7 +236,8 @@ def _background(value):
 
 
 def check_trace(trace):
-    """Check ``[trace]`` in place: ``supersample`` >= 1; ``background`` read into what ``trace`` takes.
+    """Check ``[trace]`` in place: ``supersample`` >= 1; 0 < ``tolerance`` < 1, not with ``supersample``;
+    ``background`` read into what ``trace`` takes.
 
     ``background`` becomes ``"cmb"``, None (``"none"``) or a Quantity (K, or
     erg s^-1 cm^-2 Hz^-1 sr^-1).
@@ -247,6 +249,14 @@ def check_trace(trace):
     if "supersample" in trace and trace["supersample"] < 1:
         raise ConfigError(f"[trace].supersample: expected a positive integer (rays per pixel side), got "
                           f"{trace['supersample']}")
+    if "tolerance" in trace:
+        tol = trace["tolerance"]
+        if not (math.isfinite(tol) and 0.0 < tol < 1.0):
+            raise ConfigError(f"[trace].tolerance: expected a relative error per pixel with 0 < tolerance < 1 "
+                              f"(e.g. 0.01), got {tol}")
+        if "supersample" in trace:
+            raise ConfigError("[trace].tolerance: give either tolerance (refined to that accuracy) or supersample "
+                              "(a fixed lattice), not both")
     if "background" in trace:
         bg = _background(trace["background"])
         if bg is None:

@@ -202,6 +202,13 @@ def test_oblique_and_amr_routes_use_the_helium_iii_gaunt_factor():
     ions = rtrace.trace(snap, view, NU[:3] * u.Hz, emission_measure="ion_term")
     assert ions.emission_measure.value[1, 1] == pytest.approx(8 * n * n * path / 3.0856775814913673e18, rel=1e-6)
     np.testing.assert_array_equal(ions.tau, res.tau)
+    # the split route of oblique views traced to a tolerance (exact cell projections + lattice remainder)
+    split = rtrace.trace(snap, view, NU[:3] * u.Hz, tolerance=1e-2)
+    np.testing.assert_allclose(split.tau[:, 1:3, 1:3], res.tau[:, 1:3, 1:3], rtol=1e-6)
+    assert split.emission_measure.value[1, 1] == pytest.approx(res.emission_measure.value[1, 1], rel=1e-6)
+    split_i = rtrace.trace(snap, view, NU[:3] * u.Hz, tolerance=1e-2, emission_measure="ion_term")
+    assert split_i.emission_measure.value[1, 1] == pytest.approx(2 * res.emission_measure.value[1, 1], rel=1e-6)
+    np.testing.assert_allclose(split.intensity.value[:, 1:3, 1:3], res.intensity.value[:, 1:3, 1:3], rtol=1e-6)
     # an AMR snapshot of one level holding the same cells gives the uniform grid's image
     one = np.ones(shape)
     grid = amr.Grid(0, np.zeros(3, np.int64), np.array(shape, np.int64), 2 * n * one, 4 * n * one, t * one)

@@ -30,12 +30,16 @@ class PixelError(namedtuple("PixelError", "max_relative supersample tolerance fl
         Largest relative error estimate over the intensity (per frequency,
         background subtracted) and emission-measure images, over pixels whose
         absolute value is at least ``floor`` times the image's peak. On an
-        oblique view it is twice ``|X_s - X_2s| / |X_2s|`` between the returned
-        lattice (``supersample`` rays per cell, ``X_2s``) and one half as
-        dense; 0.0 on axis-aligned views (exact) and NaN where no estimate
-        was made (an oblique view traced without ``tolerance``).
+        oblique view traced by the split (:mod:`rtrace.transfer.oblique_split`)
+        it is the remainder's estimated quadrature error (the emission
+        measure and optical depth are exact there); otherwise twice
+        ``|X_s - X_2s| / |X_2s|`` between the returned lattice
+        (``supersample`` rays per cell, ``X_2s``) and one half as dense.
+        0.0 on axis-aligned views (exact) and NaN where no estimate was
+        made (an oblique view traced without ``tolerance``).
     supersample : int
-        Rays per cell side of the returned image's lattice.
+        Rays per cell side of the returned image's finest lattice (with the
+        split, used only in the blocks of pixels that needed it).
     tolerance : float or None
         What was asked for (None: no ``tolerance``, or ``supersample`` given explicitly).
     floor : float

@@ -48,6 +48,7 @@ from . import bricks as _bricks
 from . import kernels
 from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
+from .oblique_split import split_trace
 from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
@@ -69,7 +70,7 @@ EM_DEFINITIONS = {
 
 
 # A tolerance worth asking for on oblique maps (relative error per pixel); not yet the default,
-# because refining the whole lattice costs 5x or more (see trace's tolerance and bench_accuracy.py).
+# because optically thick silhouettes still need many rays (see trace's tolerance and bench_accuracy.py).
 SUGGESTED_TOLERANCE = 1e-2
 # Pixels fainter than this fraction of an image's peak are not held to the tolerance.
 PIXEL_FLOOR = 1e-3
@@ -153,17 +154,26 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         Relative error allowed per pixel on oblique views (e.g.
         :data:`SUGGESTED_TOLERANCE`, 1e-2), for pixels at least
         :data:`PIXEL_FLOOR` (1e-3) of the image's peak, in the intensity at
-        every frequency and in the emission measure.
-        The ray lattice is doubled (1, 2, 4, ... rays per cell side, up to
-        :data:`MAX_SUPERSAMPLE`) until two successive images agree to
-        ``tolerance``; the finer one is returned and the estimate is in
-        :attr:`Result.pixel_error`. Each doubling costs about four times the
-        previous trace. Ignored when ``supersample`` is given and on
-        axis-aligned views. Default None: one lattice of ``supersample``
-        (1) rays per cell, no estimate. Where the gas has cell-to-cell
-        structure, pixels smaller than a few cells converge only linearly
-        in the ray spacing (measured in ``benchmarks/bench_accuracy.py``);
-        1e-2 may then not be reached by the cap and a warning says so.
+        every frequency. On an in-memory uniform grid traced whole (no
+        ``brick_size``, ``max_memory`` or ``client``) the view is split
+        (:mod:`rtrace.transfer.oblique_split`): the optical depth and the
+        emission measure are exact projections of the cells onto the
+        pixels, and so is the part of the intensity linear in the cells'
+        path lengths (all of it for optically thin gas); the ray lattice
+        only integrates the remainder, refined (2, 4, ... rays per cell
+        side, up to :data:`MAX_SUPERSAMPLE`) in blocks of pixels (16 x 16
+        at the first doubling, halved at each further one) where its
+        estimated error exceeds ``tolerance``. Otherwise (bricks,
+        dask, AMR) the whole lattice is doubled until two successive images
+        agree to ``tolerance``, which costs about four times the previous
+        trace per doubling. The estimate reached is in
+        :attr:`Result.pixel_error`. Ignored when ``supersample`` is given
+        and on axis-aligned views (exact). Default None: one lattice of
+        ``supersample`` (1) rays per cell, no estimate: pixels can then be
+        several % off (far more on faint edges) where the gas has
+        cell-scale structure. Optically thick pixels on the silhouette of
+        thick cells converge slowly (about linearly in the ray spacing), so
+        1e-2 may not be reached by the cap there; a warning says so.
     brick_size : int, optional
         Trace the grid in cubic bricks of this many cells per side, each on
         its own sub-array, composited front to back (same result to rounding).
@@ -251,6 +261,8 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         supersample = supersample or 1
         seg, nrays, _ = _trace_lattice(supersample, **run)
         pixel_error = PixelError(float("nan"), supersample, None, PIXEL_FLOOR, False)
+    elif _can_split(snapshot, edge, budget, client):
+        seg, nrays, pixel_error = _split(tolerance, run)
     else:
         seg, nrays, pixel_error = _refine(tolerance, run)
     provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
@@ -264,7 +276,11 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
                  rays_per_pixel=nrays, background=bg, background_info=bg_info, pixel_error=pixel_error)
     # what the diagnostics need to retrace the same rays (see Result.unabsorbed_intensity)
     res._snapshot = snapshot
-    res._trace_options = dict(supersample=pixel_error.supersample, brick_size=brick_size, max_memory=max_memory,
+    if pixel_error.tolerance is not None and view.los_axis() is None:
+        lattice = dict(tolerance=pixel_error.tolerance)            # the same accuracy, not the same rays
+    else:
+        lattice = dict(supersample=pixel_error.supersample)
+    res._trace_options = dict(lattice, brick_size=brick_size, max_memory=max_memory,
                               emission_measure=emission_measure)
     return res
 
@@ -374,6 +390,41 @@ def _refine(tolerance, run):
               f"at supersample={s}, not the {tolerance:g} asked for ({why}); pass a larger tolerance, a "
               "coarser npix or an explicit supersample", PixelAccuracyWarning)
     return seg, nrays, PixelError(estimate, s, tolerance, PIXEL_FLOOR, False)
+
+
+def _can_split(snapshot, edge, budget, client):
+    """Whether the exact-projection split (:mod:`.oblique_split`) applies: a whole in-memory uniform grid."""
+    return (getattr(snapshot, "in_memory", True) and not getattr(snapshot, "is_amr", False)
+            and edge is None and budget is None and client is None)
+
+
+def _split(tolerance, run):
+    """An oblique view by the split into an exact cell projection and a lattice remainder."""
+    snapshot = run["snapshot"]
+    zero = np.zeros(3, np.int64)
+    whole = np.asarray(snapshot.shape, np.int64)
+    arrays = (snapshot._ne, snapshot._ni, snapshot._t)
+
+    def make_route(m):
+        route = _ObliqueRoute(snapshot, run["view"], run["center"], run["pix"], run["tables"], m)
+        _check_ray_memory(route, m)
+        return route
+
+    def trace_rays(route):
+        patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product(),
+                                  blocks=snapshot.emitting_blocks(), ratio=snapshot.emission_ratio())
+        return _full_segment(patch, route.nfreq, route.ray_shape)
+
+    images, m, estimate, converged = split_trace(
+        make_route, trace_rays, (snapshot.emission_product(), snapshot._t, snapshot.emission_ratio()), run["bg"],
+        tolerance=tolerance,
+        floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
+    if tolerance is not None and not converged:
+        warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
+                  f"at supersample={m}, not the {tolerance:g} asked for (the cap of {MAX_SUPERSAMPLE} rays per "
+                  "cell side was reached); pass a larger tolerance, a coarser npix or an explicit supersample",
+                  PixelAccuracyWarning)
+    return images.segment(run["bg"]), images.rays, PixelError(estimate, m, tolerance, PIXEL_FLOOR, converged)
 
 
 def _check_plasma_frequency(snapshot, nu):

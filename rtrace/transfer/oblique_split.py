@@ -1,0 +1,315 @@
+"""Oblique images as an exact cell projection plus a lattice remainder (see :mod:`.linearized`).
+
+For an in-memory grid seen along an oblique direction, :func:`split_trace`
+returns pixel footprint means of
+
+* the optical depth and the emission measure: linear in the cells' path
+  lengths, hence exact projections of the per-cell ``alpha_nu`` and
+  ``n_e x ion term`` (:mod:`.footprint`);
+* the intensity: the exact projection of the cells' mean sensitivities
+  ``W_c`` (:func:`linearized.sensitivity_pass`) plus the ray lattice's
+  quadrature of the remainder ``R = I - sum_c W_c L_c``, which is zero for
+  optically thin gas and second order otherwise.
+
+It also returns a per-pixel estimate of the remainder's quadrature error
+(see :func:`remainder_error`), which the tracer's ``tolerance`` loop uses.
+"""
+
+import numpy as np
+
+from ..memory import check_memory
+from . import kernels, linearized
+from .compositing import Segment
+from .remap import remap_parallelograms
+
+
+class SplitImages:
+    """Pixel planes of one split trace (all ``(…, ny, nx)`` float64).
+
+    ``delta``: ``I - I_bg`` per frequency; ``tau``; ``em``; ``error``: the
+    estimated absolute error of ``delta`` per frequency; ``rays``: lattice
+    rays per pixel.
+    """
+
+    def __init__(self, delta, tau, em, error, rays):
+        self.delta, self.tau, self.em, self.error, self.rays = delta, tau, em, error, rays
+
+    def segment(self, bg):
+        return Segment(self.delta + bg[:, None, None], self.tau, self.em)
+
+
+def _phases(route, i_first, i_last, j_first, j_last):
+    """Every lattice phase of the route with its ray block: ``(pa, pb, i_lo, n_i, j_lo, n_j, rows, cols)``."""
+    m_a, m_b = route.m
+    for pa in range(m_a):
+        i_lo, i_hi = -((pa - i_first) // m_a), (i_last - pa) // m_a
+        n_i = i_hi - i_lo + 1
+        if n_i <= 0:
+            continue
+        for pb in range(m_b):
+            j_lo, j_hi = -((pb - j_first) // m_b), (j_last - pb) // m_b
+            n_j = j_hi - j_lo + 1
+            if n_j <= 0:
+                continue
+            r = i_lo * m_a + pa - i_first
+            q = j_lo * m_b + pb - j_first
+            rows = slice(r, r + (n_i - 1) * m_a + 1, m_a)
+            cols = slice(q, q + (n_j - 1) * m_b + 1, m_b)
+            yield pa, pb, i_lo, n_i, j_lo, n_j, rows, cols
+
+
+def _layer_segments(route, pa, pb, nk):
+    (m_a, m_b), (rho_a, rho_b) = route.m, route.rho
+    cell_a, cell_b, cell_c = route.cell_abc
+    return kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell_a, cell_b, cell_c,
+                                  route.abs_lc, 0, nk, route.forward, route.max_seg)
+
+
+def cell_sensitivities(route, cells, seg, bg):
+    """Per-cell quantities of the split, in the route's axis order.
+
+    Returns ``(stack, source)``: ``stack`` ``(A, B, C, 2 nfreq + 1)`` holds
+    ``alpha_nu`` (``[..., :nfreq]``), the mean sensitivity ``W``
+    (``[..., nfreq:2 nfreq]``) and ``n_e x ion term`` (``[..., -1]``), the
+    quantities projected onto the pixels in one pass; ``source`` is
+    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T, ratio)``
+    with ``ratio`` = ``n_e / ion term`` or None where they are equal
+    (:func:`rtrace.transfer.tracer.emission_ratio`): the He III share and the
+    emission measure's ``n_e^2`` weight (the last plane then holds that weight);
+    ``seg``: the traced rays (``(nfreq, nI, nJ)`` intensity without
+    background and optical depth) of this route's lattice.
+    """
+    nn_abc, t_abc = cells[:2]
+    ratio_abc = cells[2] if len(cells) > 2 else None
+    nf = route.nfreq
+    shape = nn_abc.shape
+    check_memory(8 * int(np.prod(shape)) * (3 * nf + 1), field="tolerance",
+                 what=f"the per-cell coefficients of {nf} frequencies on {'x'.join(map(str, shape))} cells",
+                 hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies")
+    stack = np.zeros(shape + (2 * nf + 1,))
+    source = np.empty(shape + (nf,))
+    alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
+    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), alpha, source, ratio_abc)
+    stack[..., -1] = nn_abc if ratio_abc is None or route.tables.em_ions else nn_abc * ratio_abc
+    m_a, m_b = route.m
+    weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
+    i_first, i_last = route.ia
+    j_first, j_last = route.ib
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+        count, da, db, ds = _layer_segments(route, pa, pb, shape[2])
+        ray_i = np.ascontiguousarray(seg.intensity[:, rows, cols]).reshape(nf, -1)
+        ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
+        linearized.sensitivity_pass(alpha, source, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+                                    ray_i, ray_t, bg, weight, w)
+    return stack, source
+
+
+def remainders(route, w, seg, bg):
+    """``R - I_bg = I + I_bg (e^-tau - 1) - sum_c W_c L_c`` on every ray of the route (``(nfreq, nI, nJ)``).
+
+    The background is left out (as in the tracer's images) so that pixels
+    no tube covers, off the grid's shadow, read zero.
+    """
+    nf = route.nfreq
+    out = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)
+    i_first, i_last = route.ia
+    j_first, j_last = route.ib
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
+        linear = np.zeros((nf, n_i * n_j))
+        linearized.remainder_pass(w, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
+        out[:, rows, cols] -= linear.reshape(nf, n_i, n_j)
+    return out
+
+
+def traced_remainders(route, alpha, source, w, bg):
+    """:func:`remainders` of a (sub-)route's rays, traced on the per-cell coefficients (no separate trace)."""
+    nf = route.nfreq
+    out = np.zeros((nf,) + tuple(route.ray_shape))
+    i_first, i_last = route.ia
+    j_first, j_last = route.ib
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
+        rem = np.zeros((nf, n_i * n_j))
+        linearized.remainder_trace(alpha, source, w, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+                                   bg, rem)
+        out[:, rows, cols] = rem.reshape(nf, n_i, n_j)
+    return out
+
+
+def remap_rays(route, values):
+    """Footprint means over the pixels of per-ray ``values`` ``(nq, nI, nJ)`` (tubes clipped exactly)."""
+    ny, nx = route.image_shape
+    planes = np.zeros((values.shape[0], ny, nx))
+    big_i = (route.ia[0] + np.arange(route.ray_shape[0]))[:, None]
+    big_j = (route.ib[0] + np.arange(route.ray_shape[1]))[None, :]
+    e1, e2, p0 = route.e1, route.e2, route.p0
+    cols = np.ascontiguousarray((p0[0] + big_i * e1[0] + big_j * e2[0]).ravel(), float)
+    rows = np.ascontiguousarray((p0[1] + big_i * e1[1] + big_j * e2[1]).ravel(), float)
+    flat = np.ascontiguousarray(values.reshape(values.shape[0], -1))
+    remap_parallelograms(cols, rows, np.asarray(e1, float), np.asarray(e2, float), flat, planes)
+    return planes
+
+
+def local_bound(route, rem):
+    """Per pixel, an estimate of the remainder's quadrature error on this lattice (``(nfreq, ny, nx)``).
+
+    A pixel's lattice value is a mean of nearby rays' remainders, each
+    standing for its tube, where the true remainder varies between the
+    values of neighbouring rays; so the error is at most about twice the
+    largest ``|R|`` among a ray and its eight neighbours. That bound is far
+    from tight: on the lognormal grids of ``tests/test_pixel_accuracy.py``
+    (three directions, pixels of 1.6 and 4 cells, an optically thick and a
+    thin frequency) it exceeded the measured error of every pixel by a
+    factor 9 to 70 at one ray per cell. :data:`BOUND_FRACTION` of it is
+    used (still at least twice the measured error there), remapped like
+    the values. Cheap, and small wherever the gas is optically thin (R ~ 0),
+    so those pixels need no finer lattice.
+    """
+    mag = np.abs(rem)
+    big = mag.copy()
+    for axis in (1, 2):
+        shifted = big.copy()
+        lo = [slice(None)] * 3
+        hi = [slice(None)] * 3
+        lo[axis], hi[axis] = slice(1, None), slice(None, -1)
+        np.maximum(shifted[tuple(lo)], big[tuple(hi)], out=shifted[tuple(lo)])
+        np.maximum(shifted[tuple(hi)], big[tuple(lo)], out=shifted[tuple(hi)])
+        big = shifted
+    return remap_rays(route, 2.0 * BOUND_FRACTION * big)
+
+
+def sub_route(route, r0, r1, c0, c1):
+    """``route`` restricted to the rays whose tubes can touch pixel rows r0..r1-1, columns c0..c1-1.
+
+    The copy's image is that block of pixels (``p0`` shifted, ``image_shape``
+    the block's), so :func:`remap_rays` gives the block alone.
+    """
+    import copy
+    out = copy.copy(route)
+    e1, e2 = np.asarray(route.e1), np.asarray(route.e2)
+    p0 = np.asarray(route.p0) - np.array([c0, r0], float)
+    inv = np.linalg.inv(np.column_stack([e1, e2]))
+    margin = np.abs(e1) + np.abs(e2)
+    w, h = c1 - c0, r1 - r0
+    corners = np.array([[-margin[0], -margin[1]], [w + margin[0], -margin[1]],
+                        [-margin[0], h + margin[1]], [w + margin[0], h + margin[1]]])
+    ij = (corners - p0) @ inv.T
+    out.ia = (max(route.ia[0], int(np.floor(ij[:, 0].min()))), min(route.ia[1], int(np.ceil(ij[:, 0].max()))))
+    out.ib = (max(route.ib[0], int(np.floor(ij[:, 1].min()))), min(route.ib[1], int(np.ceil(ij[:, 1].max()))))
+    out.ray_shape = (max(out.ia[1] - out.ia[0] + 1, 0), max(out.ib[1] - out.ib[0] + 1, 0))
+    if 0 in out.ray_shape:
+        out.ray_shape = (0, 0)
+    out.p0 = p0
+    out.image_shape = (h, w)
+    return out
+
+
+# Fraction of the local bound taken as the first lattice's error estimate (see local_bound).
+BOUND_FRACTION = 0.25
+# Pixels per side of the blocks refined on their own at 2 rays per cell side; halved with each
+# further doubling (the pixels left to refine are fewer and each costs four times more), down to MIN_TILE.
+TILE = 16
+MIN_TILE = 2
+# The estimate on a refined block is this times the change from the previous lattice: the finer
+# lattice's error when the error halves per doubling, three times it when it falls fourfold (the
+# remainder is smooth between cell edges).
+ESTIMATE_FACTOR = 1.0
+
+
+def _failing(error, value, floor, tolerance):
+    """Pixels (``(ny, nx)`` bool) above ``floor`` of their image's peak whose ``error / |value|`` exceeds ``tolerance``."""
+    out = np.zeros(value.shape[1:], bool)
+    if tolerance is None:
+        return out
+    for e, v in zip(error, value):
+        size = np.abs(v)
+        peak = size.max() if size.size else 0.0
+        if peak > 0.0:
+            out |= (size >= floor * peak) & (e > tolerance * size)
+    return out
+
+
+def _tiles(mask, tile):
+    """Blocks ``(r0, r1, c0, c1)`` of ``tile`` pixels per side holding at least one True of ``mask``."""
+    ny, nx = mask.shape
+    for r0 in range(0, ny, tile):
+        for c0 in range(0, nx, tile):
+            if mask[r0:r0 + tile, c0:c0 + tile].any():
+                yield r0, min(ny, r0 + tile), c0, min(nx, c0 + tile)
+
+
+def _relative(error, value, floor):
+    """Largest ``error / |value|`` over pixels with ``|value| >= floor * max |value|`` (0 for a blank image)."""
+    worst = 0.0
+    for e, v in zip(error, value):
+        size = np.abs(v)
+        peak = size.max() if size.size else 0.0
+        if peak > 0.0:
+            bright = size >= floor * peak
+            worst = max(worst, float(np.max(e[bright] / size[bright])))
+    return worst
+
+
+def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supersample, thin_scale=None):
+    """Images of an oblique view by the split, refining the remainder's lattice to ``tolerance``.
+
+    ``make_route(m)`` gives the oblique route with ``m`` rays per cell side;
+    ``trace_rays(route)`` its traced rays (a Segment ``(nfreq, nI, nJ)``,
+    intensity without background); ``cells`` = ``(n_e x ion term, T, ratio)`` in
+    grid order (``ratio``: :func:`rtrace.transfer.tracer.emission_ratio`, may be None). With ``tolerance`` None one lattice (m = 1) is used.
+    ``thin_scale``: the opacity scale of an absorption-free trace (then
+    the background is left out of the sensitivities and the images are
+    divided by it). Returns ``(SplitImages, m, relative estimate, converged)``.
+    """
+    from .footprint import Footprint, project_cells
+
+    route = make_route(1)
+    m = max(route.m)            # pixels smaller than a cell get more than one ray per cell side
+    order = route.order
+    cells_abc = tuple(None if c is None else c.transpose(order) for c in cells)
+    seg = trace_rays(route)
+    bg_rays = np.zeros_like(bg) if thin_scale is not None else bg
+    stack, source = cell_sensitivities(route, cells_abc, seg, bg_rays)
+    nf = route.nfreq
+    alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
+    ny, nx = route.image_shape
+    zero = np.zeros(3, np.int64)
+    whole = np.asarray(cells_abc[0].shape, np.int64)
+    projected = np.zeros((2 * nf + 1, ny, nx))
+    project_cells(Footprint.from_route(route), stack.transpose(3, 0, 1, 2), zero, whole, zero, projected)
+    tau, proj_w, em = projected[:nf], projected[nf:2 * nf], projected[2 * nf:]
+    scale = 1.0 if thin_scale is None else 1.0 / thin_scale
+    rem = remainders(route, w, seg, bg_rays)
+    lattice = remap_rays(route, rem)
+    error = local_bound(route, rem)
+    rays = float(route.ray_count)
+    del seg, rem
+
+    def current():
+        return (proj_w + lattice) * scale
+
+    failing = _failing(error * scale, current(), floor, tolerance)
+    while tolerance is not None and failing.any() and 2 * m <= max_supersample:
+        fine = make_route(2 * m)
+        m = max(fine.m)
+        for r0, r1, c0, c1 in _tiles(failing, max(MIN_TILE, TILE * 2 // m)):
+            part = sub_route(fine, r0, r1, c0, c1)
+            if part.ray_shape == (0, 0):
+                continue
+            rem = traced_remainders(part, alpha, source, w, bg_rays)
+            block = remap_rays(part, rem)
+            error[:, r0:r1, c0:c1] = ESTIMATE_FACTOR * np.abs(block - lattice[:, r0:r1, c0:c1])
+            lattice[:, r0:r1, c0:c1] = block
+            rays += part.ray_count
+        failing = _failing(error * scale, current(), floor, tolerance)
+    delta = current()
+    error = error * scale
+    estimate = _relative(error, delta, floor)
+    converged = tolerance is not None and estimate <= tolerance
+    if thin_scale is not None:
+        tau[...] = 0.0
+    images = SplitImages(delta, tau, em[0], error, rays / (nx * ny))
+    del stack, source
+    return images, m, estimate, converged
+
