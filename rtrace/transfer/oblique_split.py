@@ -257,7 +257,8 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     ``make_route(m)`` gives the oblique route with ``m`` rays per cell side;
     ``trace_rays(route)`` its traced rays (a Segment ``(nfreq, nI, nJ)``,
     intensity without background); ``cells`` = ``(n_e x ion term, T, ratio)`` in
-    grid order (``ratio``: :func:`rtrace.transfer.tracer.emission_ratio`, may be None). With ``tolerance`` None one lattice (m = 1) is used.
+    grid order (``ratio``: :func:`rtrace.transfer.tracer.emission_ratio`, may be None). With ``tolerance``
+    None one lattice (m = 1) is used.
     ``thin_scale``: the opacity scale of an absorption-free trace (then
     the background is left out of the sensitivities and the images are
     divided by it). Returns ``(SplitImages, m, relative estimate, converged)``.
