@@ -8,7 +8,8 @@ import os
 import sys
 import warnings
 
-__all__ = ["RtraceError", "InputError", "ConfigError", "OutputError", "PhysicsRangeWarning", "warn_user"]
+__all__ = ["RtraceError", "InputError", "ConfigError", "OutputError", "PhysicsRangeWarning", "GauntRangeWarning",
+           "RelativisticWarning", "warn_user"]
 
 
 class RtraceError(Exception):
@@ -38,6 +39,18 @@ class OutputError(RtraceError):
 
 class PhysicsRangeWarning(UserWarning):
     """Input lies outside the range where the implemented physics is accurate."""
+
+
+class GauntRangeWarning(PhysicsRangeWarning):
+    """Cells lie outside the temperatures of the tracer's Gaunt factor tables (1 K to 1e10 K).
+
+    Their Gaunt factor is the table's edge value; the message counts them.
+    """
+
+
+class RelativisticWarning(PhysicsRangeWarning):
+    """Cells are hot enough (from 1e8 K) that relativistic corrections and electron-electron
+    bremsstrahlung, which rtrace neglects, change the free-free emission by several percent."""
 
 
 _PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))

@@ -93,6 +93,7 @@ class Snapshot(GridGeometry):
     in_memory = True
     _product = None
     _blocks = None
+    _ratio = False
 
     def __init__(self, temperature, electron_density, ion_term, cell_size, origin, provenance):
         self._t = temperature
@@ -105,6 +106,7 @@ class Snapshot(GridGeometry):
         self._checksum = None
         self._product = None
         self._blocks = None
+        self._ratio = False
 
     @classmethod
     def from_arrays(cls, temperature=None, cell_size=None, electron_density=None, ion_density=None, *,
@@ -308,10 +310,23 @@ class Snapshot(GridGeometry):
             self._blocks = emitting_blocks(self.emission_product())
         return self._blocks
 
+    def emission_ratio(self):
+        """``n_e / ion term`` per cell, or None where they are equal everywhere; formed on first use and kept.
+
+        Oblique views read it beside :meth:`emission_product` only when helium
+        is doubly ionized somewhere (or the fields were given with an ion term
+        different from ``n_e``): see :func:`rtrace.transfer.tracer.emission_ratio`.
+        """
+        if self._ratio is False:
+            from .transfer.tracer import emission_ratio
+            self._ratio = emission_ratio(self._ne, self._ni)
+        return self._ratio
+
     def release(self):
-        """Free what the snapshot computed and kept for speed (the emission product and its block map)."""
+        """Free what the snapshot computed and kept for speed (emission product and ratio, block map)."""
         self._product = None
         self._blocks = None
+        self._ratio = False
 
     def checksum(self):
         """SHA-256 of the stored fields and geometry (for provenance headers); computed once.

@@ -449,9 +449,11 @@ def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatc
 
     seen, made = [], []
 
-    def new_trace(snapshot, view, frequencies, *, background=None, supersample=1, client=None, max_memory=None):
+    def new_trace(snapshot, view, frequencies, *, background=None, supersample=1, tolerance=None, client=None,
+                  max_memory=None):
         seen.append((client, max_memory))
-        return RealTrace.func(snapshot, view, frequencies, background=background, supersample=supersample)
+        return RealTrace.func(snapshot, view, frequencies, background=background, supersample=supersample,
+                              tolerance=tolerance)
 
     class Cluster:
         def __init__(self, **kw):

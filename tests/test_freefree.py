@@ -112,4 +112,4 @@ def test_warning_above_relativistic_temperature():
         physics.absorption_coefficient(1 * u.GHz, [1e4, 2e9] * u.K, 1 * u.cm**-3)
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        physics.absorption_coefficient(1 * u.GHz, 9e8 * u.K, 1 * u.cm**-3)
+        physics.absorption_coefficient(1 * u.GHz, 9e7 * u.K, 1 * u.cm**-3)

@@ -181,7 +181,7 @@ def test_both_problems_are_counted_in_one_message(tmp_path):
 
 
 def test_relativistic_temperatures_warn_at_open(tmp_path):
-    # Same warning as Snapshot.from_arrays: free-free is non-relativistic below ~1e9 K (common practice).
+    # Same warning as Snapshot.from_arrays: relativistic corrections reach a few percent from ~1e8 K (from memory).
     path = _bad_file(tmp_path / "hot.h5", "T", 2e9, [0, 9])
     with pytest.warns(PhysicsRangeWarning, match="temperature: 2 cell"):
         open_hdf5(path, temperature="T", electron_density="ne")

@@ -94,7 +94,7 @@ def test_temperatures_above_the_gaunt_table_warn_with_the_count_and_the_highest(
 
 def test_temperatures_inside_the_table_do_not_warn_about_it():
     t = np.full(SHAPE, 1.0e4)
-    t[0, 0, 0], t[0, 0, 1] = 1.5, 5.0e8                     # inside 1 K .. 1e10 K and below 1e9 K
+    t[0, 0, 0], t[0, 0, 1] = 1.5, 5.0e7                     # inside 1 K .. 1e10 K and below 1e8 K
     with warnings.catch_warnings(record=True) as record:
         warnings.simplefilter("always")
         snapshot(10.0, t)

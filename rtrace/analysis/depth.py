@@ -29,7 +29,7 @@ from numba import prange
 
 from ..errors import InputError
 from ..physics.constants import PC
-from ..transfer.kernels import _opacity_and_source, _table_position
+from ..transfer.kernels import _helium3_share, _opacity_and_source, _table_position
 
 __all__ = ["tau_unity_depth", "contribution", "RayContribution", "pixel_rays"]
 
@@ -100,7 +100,8 @@ def _walk(start, direction, shape, cell, seg_t, seg_ds, seg_idx):
 
 
 @numba.njit(cache=True, parallel=True)
-def _tau_unity(ne, ni, temp, cell, starts, direction, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out):
+def _tau_unity(ne, ni, temp, cell, starts, direction, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
+               out):
     """``out`` (nfreq, nray): depth (cm) from the grid's observer-side boundary to tau = 1; NaN if never."""
     shape = np.array(ne.shape, np.int64)
     nf = hk.shape[0]
@@ -116,17 +117,19 @@ def _tau_unity(ne, ni, temp, cell, starts, direction, log_t0, inv_dlog_t, gtab, 
         left = nf
         for g in range(n):
             x, y, z = seg_idx[g, 0], seg_idx[g, 1], seg_idx[g, 2]
-            nn = float(ne[x, y, z]) * float(ni[x, y, z])
+            ne_c, ni_c = float(ne[x, y, z]), float(ni[x, y, z])
+            nn = ne_c * ni_c
             if nn <= 0.0:
                 continue
+            share = _helium3_share(ne_c, ni_c)
             t = float(temp[x, y, z])
-            it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[1])
+            it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
             inv_t = 1.0 / t
             a0 = nn * math.sqrt(inv_t)
             for f in range(nf):
                 if not math.isnan(out[f, r]):
                     continue
-                kappa, _ = _opacity_and_source(f, t, inv_t, it, wt, gtab, hk, alpha_pref, b_pref)
+                kappa, _ = _opacity_and_source(f, t, inv_t, it, wt, share, gtab, hk, alpha_pref, b_pref)
                 alpha = a0 * kappa
                 dtau = alpha * seg_ds[g]
                 if tau[f] + dtau >= 1.0:

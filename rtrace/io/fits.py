@@ -783,7 +783,18 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
                       provenance=result.provenance, overwrite=overwrite, quantity=quantity,
                       spectral_axis=spectral_axis,
                       background=header_cards(convention if quantity in ("intensity", "brightness_temperature")
-                                              else "subtracted", result) + _pixel_error_cards(result))
+                                              else "subtracted", result) + _pixel_error_cards(result)
+                      + (_em_cards(result) if quantity == "emission_measure" else []))
+
+
+#: ``EMDEF`` card values: which emission measure a file holds.
+EM_CARD_VALUES = {"electrons": "int n_e^2 dl", "ion_term": "int n_e sum Z^2 n_i dl"}
+
+
+def _em_cards(result):
+    """``EMDEF``: the emission measure's definition (observers' ``n_e^2`` or the free-free ion term)."""
+    definition = getattr(result, "em_definition", "ion_term")
+    return [("EMDEF", EM_CARD_VALUES[definition], "emission measure definition")]
 
 
 def _pixel_error_cards(result):

@@ -403,7 +403,7 @@ def _validate_direct(source, handle, digests, ranges):
             if tally.add(arr, lower, strict):
                 digests[param].update(memoryview(np.ascontiguousarray(arr, source.dtype)).cast("B"))
             if param == "temperature":
-                hot += int(np.count_nonzero(arr > RELATIVISTIC_TEMPERATURE))
+                hot += int(np.count_nonzero(arr >= RELATIVISTIC_TEMPERATURE))
         tally.raise_if_bad(source.path, f"{param} {'>' if strict else '>='} 0")
         ranges[param] = (tally.min, tally.max)
         if hot:
@@ -458,7 +458,7 @@ def _evaluate_gas(source, handle, digests, ranges):
             stored = np.ascontiguousarray(value, source.dtype)
             tallies[param].add(stored)
             digests[param].update(memoryview(stored).cast("B"))
-        hot += int(np.count_nonzero(values[0] > RELATIVISTIC_TEMPERATURE))
+        hot += int(np.count_nonzero(values[0] >= RELATIVISTIC_TEMPERATURE))
     for param in names:
         ranges[param] = (tallies[param].min, tallies[param].max)
     source.model.warn_range()

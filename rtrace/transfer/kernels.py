@@ -9,7 +9,16 @@ Per cell (piecewise-constant coefficients, LTE so ``S = B_nu(T_e)``):
 ``I <- I e^{-dtau} + S (1 - e^{-dtau})``, ``dtau = alpha_nu ds``, with
 ``alpha_nu`` from Rybicki & Lightman (1979) eq. 5.18b and Kirchhoff's law.
 Per-cell factors (``ln T``, ``T^-1/2``, the Gaunt-table index, ``n_e n_i ds``)
-are computed once and reused for every frequency. In the radio regime
+are computed once and reused for every frequency.
+
+The Gaunt tables ``gtab`` are ``(2, nfreq, n_T)``: row 0 for ion charge Z = 1
+(H II, He II), row 1 for Z = 2 (He III). For a hydrogen-helium plasma
+``sum Z^2 n_i - n_e = 2 n_HeIII``, so the He III share of the ion term,
+``4 n_HeIII / sum Z^2 n_i = 2 (1 - n_e / ion term)``, follows from the two
+fields the kernels already have (:func:`_helium3_share`); a cell with ion
+term equal to ``n_e`` (hydrogen, singly ionized helium) reads only row 0.
+The emission measure is ``sum n_e^2 ds`` or, with ``em_ions``,
+``sum n_e (ion term) ds``. In the radio regime
 (``h nu/kT < 1e-3``) the stimulated-emission factor and ``1/(e^u - 1)`` are
 replaced by their Taylor series, truncated where the next term is below
 1e-14 relative, so no transcendental is evaluated per frequency; likewise
@@ -51,6 +60,24 @@ def _table_position(temp, log_t0, inv_dlog_t, n_t):
 
 
 @numba.njit(cache=True, inline="always")
+def _helium3_share(ne, ni):
+    """He III share of the ion term, ``4 n_HeIII / ion term = 2 (ni - ne) / ni``, in [0, 1] (0 unless ni > ne).
+
+    Charge neutrality of H + He gas: ``n_e = n_HII + n_HeII + 2 n_HeIII`` and the ion term
+    ``n_HII + n_HeII + 4 n_HeIII`` (R&L 1979 eq. 5.18b sums Z^2 n_i), so their difference is ``2 n_HeIII``.
+    """
+    if ni > ne:
+        return min(2.0 * (ni - ne) / ni, 1.0)
+    return 0.0
+
+
+@numba.njit(cache=True, inline="always")
+def _share_from_ratio(ratio):
+    """:func:`_helium3_share` from ``ratio = n_e / ion term``."""
+    return min(max(2.0 * (1.0 - ratio), 0.0), 1.0)
+
+
+@numba.njit(cache=True, inline="always")
 def _radio_stimulated(uu):
     """``1 - e^{-u}`` to u^4 for ``u < SERIES_LIMIT`` (omitted terms < 1e-14 relative; A&S 4.2.1)."""
     return uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
@@ -67,16 +94,19 @@ def _radio_source(temp, uu, b_planck, b_rj):
 
 
 @numba.njit(cache=True, inline="always")
-def _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref):
+def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pref):
     """At frequency ``f``: ``alpha_nu / (n_e n_i T^-1/2)`` (cm5) and ``S = B_nu(T)``.
 
-    ``gtab`` is the Gaunt factor per frequency on a uniform ``ln T`` grid;
+    ``gtab`` (2, nfreq, n_T) is the Gaunt factor per charge (Z = 1, 2) and
+    frequency on a uniform ``ln T`` grid, mixed by the He III ``share`` of the ion term;
     ``hk = h nu / k``; ``alpha_pref = A nu^-3`` (R&L 5.18b); ``b_pref`` (2, nfreq):
     ``2 h nu^3 / c^2`` and ``2 nu^2 k / c^2`` (the Rayleigh-Jeans factor, so the
     radio branch needs no division).
     """
     uu = hk[f] * inv_t
-    g = gtab[f, i] + wt * (gtab[f, i + 1] - gtab[f, i])
+    g = gtab[0, f, i] + wt * (gtab[0, f, i + 1] - gtab[0, f, i])
+    if share > 0.0:
+        g += share * (gtab[1, f, i] + wt * (gtab[1, f, i + 1] - gtab[1, f, i]) - g)
     if uu < SERIES_LIMIT:
         stim = _radio_stimulated(uu)
         source = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
@@ -87,26 +117,37 @@ def _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref):
 
 
 @numba.njit(cache=True, inline="always")
-def _cell_coefficients(nn, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src):
+def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap,
+                       src):
     """Fill ``kap[f] = alpha_nu`` (cm-1, R&L 5.18b with ``n_e n_i = nn``) and ``src[f] = B_nu(T)``.
 
     Per-cell factors (``ln T`` table position, ``T^-1/2``, ``1/T``) are computed
     once. Where every frequency is in the radio regime (``h nu_max / kT <
     SERIES_LIMIT``, the common case) the frequency loop has no branch and reads
-    the Gaunt table transposed (``gtab_t`` (n_T, nfreq)), so it vectorises.
+    the Gaunt table transposed (``gtab_t`` (2, n_T, nfreq)), so it vectorises.
+    ``share`` is the He III share of the ion term (:func:`_helium3_share`):
+    the Z = 2 row is read only where it is positive.
     """
-    i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab_t.shape[0])
+    i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab_t.shape[1])
     inv_t = 1.0 / temp
     a0 = nn * math.sqrt(inv_t)
     if hk_max * inv_t < SERIES_LIMIT:
-        for f in range(hk.shape[0]):
-            uu = hk[f] * inv_t
-            g = gtab_t[i, f] + wt * (gtab_t[i + 1, f] - gtab_t[i, f])
-            kap[f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
-            src[f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
+        if share > 0.0:
+            for f in range(hk.shape[0]):
+                uu = hk[f] * inv_t
+                g1 = gtab_t[0, i, f] + wt * (gtab_t[0, i + 1, f] - gtab_t[0, i, f])
+                g2 = gtab_t[1, i, f] + wt * (gtab_t[1, i + 1, f] - gtab_t[1, i, f])
+                kap[f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * (g1 + share * (g2 - g1))
+                src[f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
+        else:
+            for f in range(hk.shape[0]):
+                uu = hk[f] * inv_t
+                g = gtab_t[0, i, f] + wt * (gtab_t[0, i + 1, f] - gtab_t[0, i, f])
+                kap[f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
+                src[f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
     else:
         for f in range(hk.shape[0]):
-            kappa, source = _opacity_and_source(f, temp, inv_t, i, wt, gtab, hk, alpha_pref, b_pref)
+            kappa, source = _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pref)
             kap[f] = a0 * kappa
             src[f] = source
 
@@ -136,7 +177,7 @@ def _cross(kap, src, ds, acc_i, acc_t):
 
 
 @numba.njit(cache=True, parallel=True)
-def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
+def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
                           out_i, out_tau, out_em):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
 
@@ -147,7 +188,7 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     """
     na, nb, nl = ne.shape
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.T)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
     for a in prange(na):
         kap, src = np.empty(nf), np.empty(nf)
@@ -158,11 +199,12 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
             em = 0.0
             for s in range(nl):
                 l = s if forward else nl - 1 - s
-                nn = float(ne[a, b, l]) * float(ni[a, b, l])
+                ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
+                nn = ne_c * ni_c
                 if nn > 0.0:
-                    em += nn * ds
-                    _cell_coefficients(nn, float(temp[a, b, l]), log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
-                                       alpha_pref, b_pref, kap, src)
+                    em += (nn if em_ions else ne_c * ne_c) * ds
+                    _cell_coefficients(nn, _helium3_share(ne_c, ni_c), float(temp[a, b, l]), log_t0, inv_dlog_t,
+                                       gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                     _cross(kap, src, ds, acc_i, acc_t)
             for f in range(nf):
                 out_i[f, a, b] = acc_i[f]
@@ -195,22 +237,24 @@ def _log_from_bits(bits, mant):
 
 @numba.njit(cache=True, parallel=True)
 def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                                  out_i, out_tau, out_em):
+                                  em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
 
     Each ray is done in two passes: the cells' ``1 - e^{-dtau}``, ``dtau`` and ``S`` first, in a
     loop with no branch and no library call (so it vectorises: ``ln T`` from the float's bits,
     :func:`_log_from_bits`; the radio-regime series), then the transfer recurrence in the order
     of travel. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
-    redone cell by cell with the exact forms (:func:`_one_frequency_ray`).
+    redone cell by cell with the exact forms (:func:`_one_frequency_ray`), and so is a ray with
+    a He III cell (ion term above ``n_e``), which needs the Z = 2 Gaunt row: hydrogen and singly
+    ionized helium keep the fast pass unchanged.
 
     ``ln T`` is taken in double precision here; the other kernels take it in the field's own
     precision (numba's ``float()`` keeps a float32 a float32), which moves the Gaunt-table
     position and so the results by up to ~5e-8 relative for float32 fields.
     """
     na, nb, nl = ne.shape
-    n_t = gtab.shape[1]
-    row = np.ascontiguousarray(gtab[0])
+    n_t = gtab.shape[2]
+    row = np.ascontiguousarray(gtab[0, 0])
     hk0, ap0, bp0, brj0 = hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0]
     top = n_t - 1.0
     for a in prange(na):
@@ -229,7 +273,8 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
                 mbits[l] = (tbits[l] & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000
             bad = 0
             for l in range(nl):
-                nn = float(ne[a, b, l]) * float(ni[a, b, l])
+                ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
+                nn = ne_c * ni_c
                 on = nn > 0.0
                 t = tbuf[l] if on else 1.0e4
                 x = (_log_from_bits(tbits[l] if on else 0x40C3880000000000, mant[l] if on else 1.220703125)
@@ -244,8 +289,8 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
                 source = _radio_source(t, uu, bp0, brj0)
                 dtau = nn * ds * math.sqrt(inv_t) * kappa          # R&L 5.18b times ds
                 dtau = dtau if on else 0.0
-                emb[l] = nn * ds if on else 0.0
-                bad += 1 if on & ((uu >= SERIES_LIMIT) | (dtau >= SERIES_LIMIT)) else 0
+                emb[l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
+                bad += 1 if on & ((uu >= SERIES_LIMIT) | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
                 att[l] = one_minus_exp_series(dtau)
                 dtb[l] = dtau
                 src[l] = source if on else 0.0
@@ -270,16 +315,18 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
 def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref):
     """One ray of :func:`one_frequency_along_last_axis` cell by cell with the exact forms: ``(I, tau)``."""
     nl = ne.shape[2]
-    n_t = gtab.shape[1]
+    n_t = gtab.shape[2]
     i_acc, t_acc = 0.0, 0.0
     for s in range(nl):
         l = s if forward else nl - 1 - s
-        nn = float(ne[a, b, l]) * float(ni[a, b, l])
+        ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
+        nn = ne_c * ni_c
         if nn > 0.0:
             t = float(temp[a, b, l])
             it, wt = _table_position(t, log_t0, inv_dlog_t, n_t)
             inv_t = 1.0 / t
-            kappa, source = _opacity_and_source(0, t, inv_t, it, wt, gtab, hk, alpha_pref, b_pref)
+            kappa, source = _opacity_and_source(0, t, inv_t, it, wt, _helium3_share(ne_c, ni_c), gtab, hk,
+                                                alpha_pref, b_pref)
             dtau = nn * ds * math.sqrt(inv_t) * kappa          # R&L 5.18b times ds
             i_acc += one_minus_exp(dtau) * (source - i_acc)
             t_acc += dtau
@@ -288,7 +335,7 @@ def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab
 
 @numba.njit(cache=True, parallel=True)
 def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                            out_i, out_tau, out_em):
+                            em_ions, out_i, out_tau, out_em):
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
 
     Each ray advances one plane at a time and whole rows of rays are updated
@@ -297,7 +344,7 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     """
     na, nl, nc = ne.shape
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.T)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
     for a in prange(na):
         kap, src = np.empty(nf), np.empty(nf)
@@ -306,11 +353,12 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
         for s in range(nl):
             l = s if forward else nl - 1 - s
             for c in range(nc):
-                nn = float(ne[a, l, c]) * float(ni[a, l, c])
+                ne_c, ni_c = float(ne[a, l, c]), float(ni[a, l, c])
+                nn = ne_c * ni_c
                 if nn > 0.0:
-                    out_em[a, c] += nn * ds
-                    _cell_coefficients(nn, float(temp[a, l, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
-                                       alpha_pref, b_pref, kap, src)
+                    out_em[a, c] += (nn if em_ions else ne_c * ne_c) * ds
+                    _cell_coefficients(nn, _helium3_share(ne_c, ni_c), float(temp[a, l, c]), log_t0, inv_dlog_t,
+                                       gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                     _cross(kap, src, ds, acc_i[c], acc_t[c])
         for c in range(nc):
             for f in range(nf):
@@ -393,7 +441,8 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
 
 @numba.njit(cache=True, parallel=True)
 def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
-                  seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, out_i, out_tau, out_em):
+                  seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em,
+                  ratio=None):
     """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
     ``nn_cells`` holds ``n_e x ion term`` per cell (one array read instead of
@@ -419,11 +468,16 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     int64, the global index of element 0; zeros for the whole grid), so
     lattice and layer indices stay global and every brick shares one ray
     lattice. Outputs ``(nfreq, 1, n_i n_j)`` and ``(1, n_i n_j)`` must be zero
-    on entry.
+    on entry. ``ratio`` is ``n_e / ion term`` per cell in the same layout as
+    ``nn_cells`` (:func:`rtrace.transfer.tracer.emission_ratio`), or None where
+    the two are equal in every cell (then nothing more is read): it gives the
+    He III share of the ion term (:func:`_share_from_ratio`) and the
+    ``n_e^2`` emission measure. ``nn_buf`` holds each cell's emission-measure
+    weight (``n_e^2`` or ``n_e x ion term``).
     """
     nk = count.shape[0]
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.T)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
     n_block = (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK
     span_a, span_b = 0, 0
@@ -463,12 +517,18 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
                         for yy in range(y, y_end):
                             yb, yl = yy - y_lo, yy - off[1]
                             nn = float(nn_cells[xl, yl, kl])
-                            nn_buf[xb, yb] = nn
+                            share, weight = 0.0, nn
+                            if ratio is not None:
+                                r = float(ratio[xl, yl, kl])
+                                share = _share_from_ratio(r)
+                                weight = nn if em_ions else nn * r
+                            nn_buf[xb, yb] = weight
                             if nn > 0.0:
                                 first = min(first, yb)
                                 last = max(last, yb)
-                                _cell_coefficients(nn, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab, gtab_t,
-                                                   hk, hk_max, alpha_pref, b_pref, kap_buf[xb, yb], src_buf[xb, yb])
+                                _cell_coefficients(nn, share, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab,
+                                                   gtab_t, hk, hk_max, alpha_pref, b_pref, kap_buf[xb, yb],
+                                                   src_buf[xb, yb])
                     else:
                         for yy in range(y, y_end):
                             nn_buf[xb, yy - y_lo] = 0.0

@@ -36,7 +36,7 @@ import numpy as np
 from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
-from .kernels import BLOCK_SHIFT, _cell_coefficients
+from .kernels import BLOCK_SHIFT, _cell_coefficients, _share_from_ratio
 
 # Rays thicker than this carry the transmission to the observer as exp(tau behind - tau), not as a
 # running product started from e^{-tau} (which underflows near 745).
@@ -44,18 +44,22 @@ _DIRECT_TAU = 500.0
 
 
 @numba.njit(cache=True, parallel=True)
-def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, alpha, source):
+def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, alpha, source,
+                           ratio=None):
     """Fill ``alpha[a, b, c, :]`` (cm-1) and ``source[a, b, c, :]`` (``B_nu(T)``, cgs) for every cell.
 
     ``nn_cells`` is ``n_e x ion term`` and ``temp`` the temperature, both
     ``(A, B, C)`` (any strides); cells with ``nn = 0`` get ``alpha = 0`` (and
     their ``source`` is left as it was: it is never read where alpha is 0).
     Frequencies are the last (contiguous) axis. Same coefficients as the
-    tracer's kernels (:func:`kernels._cell_coefficients`).
+    tracer's kernels (:func:`kernels._cell_coefficients`), with the He III
+    share of the ion term from ``ratio`` (``n_e / ion term``, same layout, or
+    None where the two are equal: :func:`rtrace.transfer.tracer.emission_ratio`);
+    ``em_ions`` is unused here (the arguments are the tracer's ``FrequencyTables.args()``).
     """
     na, nb, nc = nn_cells.shape
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.T)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
     for a in prange(na):
         kap = np.empty(nf)
@@ -64,8 +68,9 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
             for c in range(nc):
                 nn = float(nn_cells[a, b, c])
                 if nn > 0.0:
-                    _cell_coefficients(nn, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
-                                       alpha_pref, b_pref, kap, src)
+                    share = 0.0 if ratio is None else _share_from_ratio(float(ratio[a, b, c]))
+                    _cell_coefficients(nn, share, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
+                                       hk_max, alpha_pref, b_pref, kap, src)
                     for f in range(nf):
                         alpha[a, b, c, f] = kap[f]
                         source[a, b, c, f] = src[f]

@@ -72,12 +72,16 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     ``alpha_nu`` (``[..., :nfreq]``), the mean sensitivity ``W``
     (``[..., nfreq:2 nfreq]``) and ``n_e x ion term`` (``[..., -1]``), the
     quantities projected onto the pixels in one pass; ``source`` is
-    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T)`` and
-    ``blocks`` (:func:`kernels.emitting_blocks`), in the route's axis order;
+    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T, ratio)``
+    with ``ratio`` = ``n_e / ion term`` or None where they are equal
+    (:func:`rtrace.transfer.tracer.emission_ratio`): the He III share and the
+    emission measure's ``n_e^2`` weight (the last plane then holds that weight);
+    ``blocks`` (:func:`kernels.emitting_blocks`); all in the route's axis order;
     ``seg``: the traced rays (``(nfreq, nI, nJ)`` intensity without
     background and optical depth) of this route's lattice.
     """
-    nn_abc, t_abc = cells
+    nn_abc, t_abc = cells[:2]
+    ratio_abc = cells[2] if len(cells) > 2 else None
     nf = route.nfreq
     shape = nn_abc.shape
     check_memory(8 * int(np.prod(shape)) * (3 * nf + 1), field="tolerance",
@@ -86,8 +90,8 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     stack = np.zeros(shape + (2 * nf + 1,))
     source = np.empty(shape + (nf,))
     alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
-    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), alpha, source)
-    stack[..., -1] = nn_abc
+    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), alpha, source, ratio_abc)
+    stack[..., -1] = nn_abc if ratio_abc is None or route.tables.em_ions else nn_abc * ratio_abc
     m_a, m_b = route.m
     weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
     i_first, i_last = route.ia
@@ -254,7 +258,8 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     ``make_route(m)`` gives the oblique route with ``m`` rays per cell side;
     ``trace_rays(route)`` its traced rays (a Segment ``(nfreq, nI, nJ)``,
     intensity without background); ``cells`` = ``(n_e x ion term, T,
-    emitting blocks)`` in grid order (:meth:`Snapshot.emitting_blocks`).
+    emitting blocks, ratio)`` in grid order (:meth:`Snapshot.emitting_blocks`;
+    ``ratio``: :func:`rtrace.transfer.tracer.emission_ratio`, may be None).
     With ``tolerance`` None one lattice (m = 1) is used.
     ``thin_scale``: the opacity scale of an absorption-free trace (then
     the background is left out of the sensitivities and the images are
@@ -265,8 +270,8 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     route = make_route(1)
     m = max(route.m)            # pixels smaller than a cell get more than one ray per cell side
     order = route.order
-    nn_abc, t_abc, blocks = (c.transpose(order) for c in cells)
-    cells_abc = (nn_abc, t_abc)
+    nn_abc, t_abc, blocks, ratio_abc = (None if c is None else c.transpose(order) for c in cells)
+    cells_abc = (nn_abc, t_abc, ratio_abc)
     seg = trace_rays(route)
     bg_rays = np.zeros_like(bg) if thin_scale is not None else bg
     stack, source = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)

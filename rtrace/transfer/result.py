@@ -72,7 +72,9 @@ class Result:
     tau : ndarray (nfreq, ny, nx)
         Optical depth through the grid, the mean over each pixel.
     emission_measure : `~astropy.units.Quantity` (ny, nx)
-        ``int n_e (sum_i Z_i^2 n_i) dl`` in pc cm-6, the mean over each pixel.
+        In pc cm-6, the mean over each pixel: ``int n_e^2 dl`` by default,
+        ``int n_e (sum_i Z_i^2 n_i) dl`` when traced with
+        ``emission_measure="ion_term"``; :attr:`em_definition` says which.
     frequencies : `~astropy.units.Quantity` (nfreq,)
     pixel_solid_angle : `~astropy.units.Quantity`
         Solid angle of one pixel, ``(pixel size / distance)^2`` sr.
@@ -162,7 +164,22 @@ class Result:
 
     @property
     def emission_measure(self):
+        """Emission measure per pixel (pc cm-6); its definition is :attr:`em_definition`."""
         return u.Quantity(self._em / PC, u.pc * u.cm**-6)
+
+    @property
+    def em_definition(self):
+        """``"electrons"`` (``int n_e^2 dl``) or ``"ion_term"`` (``int n_e sum Z^2 n_i dl``).
+
+        Read from the provenance ``trace`` writes; results made before the
+        choice existed held the ion-term integral.
+        """
+        from .tracer import EM_DEFINITIONS
+        text = self.provenance.get("emission_measure")
+        for key, value in EM_DEFINITIONS.items():
+            if text == value:
+                return key
+        return "ion_term"
 
     @property
     def shape(self):

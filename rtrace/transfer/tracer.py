@@ -53,12 +53,20 @@ from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
 __all__ = ["trace", "FrequencyTables", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
-           "MAX_SUPERSAMPLE"]
+           "MAX_SUPERSAMPLE", "EM_DEFINITIONS", "emission_ratio"]
 
 # What every traced image assumes (written to provenance and FITS headers).
 PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
            "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
-           "Gaunt factor: soft-photon Born + Coulomb correction + classical finite-frequency term (Z=1)")
+           "Gaunt factor: exact thermal average of the Sommerfeld factor (rtrace's mpmath table), "
+           "per ion charge (Z=1 for H II and He II, Z=2 for He III, whose share of the ion term is "
+           "2 (1 - n_e / ion term))")
+
+#: Emission-measure definitions ``trace(emission_measure=...)`` accepts, with the text products carry.
+EM_DEFINITIONS = {
+    "electrons": "EM = int n_e^2 dl (observers' definition)",
+    "ion_term": "EM = int n_e sum_i Z_i^2 n_i dl (the free-free ion term)",
+}
 
 
 # A tolerance worth asking for on oblique maps (relative error per pixel); not yet the default,
@@ -79,20 +87,28 @@ _THIN_SCALE = 1e-30
 
 
 class FrequencyTables:
-    """Per-frequency constants the kernels need (all cgs); ``opacity_scale`` multiplies alpha_nu."""
+    """Per-frequency constants the kernels need (all cgs); ``opacity_scale`` multiplies alpha_nu.
 
-    def __init__(self, nu_hz, opacity_scale=1.0):
+    ``gtab`` (2, nfreq, n_T) holds the Gaunt factor for ion charges 1 and 2;
+    ``em_ions`` chooses the emission measure the kernels sum (False: ``n_e^2``,
+    True: ``n_e x ion term``; see :data:`EM_DEFINITIONS`).
+    """
+
+    def __init__(self, nu_hz, opacity_scale=1.0, em_ions=False):
         self.nu = np.ascontiguousarray(nu_hz, float)
         self.hk = H_OVER_K * self.nu                          # h nu / k  (K)
         # R&L 5.18b prefactor times nu^-3
         self.alpha_pref = ALPHA_FF_PREFACTOR / self.nu**3 * opacity_scale
         # Planck prefactor 2 h nu^3 / c^2 and Rayleigh-Jeans factor 2 nu^2 k / c^2 (= the former / (h nu / k))
         self.b_pref = np.ascontiguousarray([2.0 * H * self.nu**3 / C**2, 2.0 * H * self.nu**3 / C**2 / self.hk])
-        self.log_t0, dlog_t, self.gtab = log_temperature_table(self.nu)
+        self.log_t0, dlog_t, g1 = log_temperature_table(self.nu, charge=1)
+        g2 = log_temperature_table(self.nu, charge=2)[2]
+        self.gtab = np.ascontiguousarray(np.stack([g1, g2]))
         self.inv_dlog_t = 1.0 / dlog_t
+        self.em_ions = bool(em_ions)
 
     def args(self):
-        return (self.log_t0, self.inv_dlog_t, self.gtab, self.hk, self.alpha_pref, self.b_pref)
+        return (self.log_t0, self.inv_dlog_t, self.gtab, self.hk, self.alpha_pref, self.b_pref, self.em_ions)
 
 
 def _frequencies(frequencies):
@@ -105,8 +121,15 @@ def _frequencies(frequencies):
     return nu
 
 
+def _em_definition(value):
+    if not isinstance(value, str) or value not in EM_DEFINITIONS:
+        raise InputError(f"emission_measure: expected one of {sorted(EM_DEFINITIONS)} ('electrons': "
+                         f"int n_e^2 dl, 'ion_term': int n_e sum Z^2 n_i dl), got {value!r}")
+    return value
+
+
 def trace(snapshot, view, frequencies, *, background=None, supersample=None, tolerance=None,
-          brick_size=None, max_memory=None, client=None, absorption=True):
+          brick_size=None, max_memory=None, client=None, absorption=True, emission_measure="electrons"):
     """Solve the transfer equation along the rays of ``view`` through ``snapshot``.
 
     Parameters
@@ -173,6 +196,14 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         (see :attr:`Result.unabsorbed_intensity`). Traced as the limit of
         opacity scaled by ``1e-30`` at fixed emissivity, whose relative
         error is ``1e-30 tau``.
+    emission_measure : {"electrons", "ion_term"}, optional
+        What :attr:`Result.emission_measure` integrates: ``"electrons"``
+        (default), ``int n_e^2 dl``, the observers' definition; ``"ion_term"``,
+        ``int n_e sum_i Z_i^2 n_i dl``, the product free-free emission
+        scales with (1.17 times the former for Y = 0.28 helium fully doubly
+        ionized). The two agree where the ion term equals ``n_e`` (hydrogen,
+        singly ionized helium). The choice is recorded in
+        :attr:`Result.em_definition` and in FITS headers (``EMDEF``).
 
     Returns
     -------
@@ -218,7 +249,8 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
     if client is not None and not (hasattr(client, "submit") and hasattr(client, "scatter")):
         raise InputError(f"client: expected a dask.distributed.Client, got {type(client).__name__}")
     tolerance = None if tolerance is None else _check_tolerance(tolerance)
-    tables = FrequencyTables(nu, 1.0 if absorption else _THIN_SCALE)
+    emission_measure = _em_definition(emission_measure)
+    tables = FrequencyTables(nu, 1.0 if absorption else _THIN_SCALE, em_ions=emission_measure == "ion_term")
     center, pix = view.resolve(snapshot)
     run = dict(snapshot=snapshot, view=view, center=center, pix=pix, tables=tables, edge=edge, budget=budget,
                client=client, absorption=absorption, bg=bg)
@@ -234,7 +266,8 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
     else:
         seg, nrays, pixel_error = _refine(tolerance, run)
     provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
-                      background="none" if background is None else str(background), physics=PHYSICS)
+                      background="none" if background is None else str(background), physics=PHYSICS,
+                      emission_measure=EM_DEFINITIONS[emission_measure])
     if not absorption:
         provenance["absorption"] = "off (emission only)"
     if pixel_error.tolerance is not None and view.los_axis() is None:
@@ -247,7 +280,8 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         lattice = dict(tolerance=pixel_error.tolerance)            # the same accuracy, not the same rays
     else:
         lattice = dict(supersample=pixel_error.supersample)
-    res._trace_options = dict(lattice, brick_size=brick_size, max_memory=max_memory)
+    res._trace_options = dict(lattice, brick_size=brick_size, max_memory=max_memory,
+                              emission_measure=emission_measure)
     return res
 
 
@@ -270,7 +304,7 @@ def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, bu
         arrays = (snapshot._ne, snapshot._ni, snapshot._t)
         if isinstance(route, _ObliqueRoute):
             patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product(),
-                                      blocks=snapshot.emitting_blocks())
+                                      blocks=snapshot.emitting_blocks(), ratio=snapshot.emission_ratio())
         else:
             patch = route.trace_brick(zero, whole, arrays, zero)
     else:
@@ -378,10 +412,10 @@ def _split(tolerance, run):
 
     def trace_rays(route):
         patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product(),
-                                  blocks=snapshot.emitting_blocks())
+                                  blocks=snapshot.emitting_blocks(), ratio=snapshot.emission_ratio())
         return _full_segment(patch, route.nfreq, route.ray_shape)
 
-    cells = (snapshot.emission_product(), snapshot._t, snapshot.emitting_blocks())
+    cells = (snapshot.emission_product(), snapshot._t, snapshot.emitting_blocks(), snapshot.emission_ratio())
     images, m, estimate, converged = split_trace(
         make_route, trace_rays, cells, run["bg"], tolerance=tolerance,
         floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
@@ -483,6 +517,22 @@ def _trace_in_sequence(route, source, order):
 def emission_product(ne, ni):
     """``n_e x ion term`` per cell in the fields' dtype (for float32 fields the exact product, rounded once)."""
     return np.multiply(ne, ni, dtype=np.result_type(ne, ni))
+
+
+def emission_ratio(ne, ni):
+    """``n_e / ion term`` per cell (fields' dtype; 1 where the ion term is 0), or None where they are equal.
+
+    The oblique kernel reads only ``n_e x ion term``; this ratio gives it the
+    He III share of the ion term (Z = 2 Gaunt factor) and the ``n_e^2``
+    emission measure. Hydrogen and singly ionized helium have an ion term
+    equal to ``n_e`` in every cell: None then, and the kernel reads nothing more.
+    """
+    if ne is ni or np.array_equal(ne, ni):
+        return None
+    dtype = np.result_type(ne, ni)
+    out = np.ones(np.shape(ne), dtype)
+    np.divide(ne, ni, out=out, where=np.asarray(ni) > 0, casting="unsafe")
+    return out
 
 
 def _trace_amr(route, snap, los):
@@ -756,14 +806,16 @@ class _ObliqueRoute(_Route):
         # the layer tables, and the brick's n_e x ion term (4 or 8 bytes a cell; counted as 8)
         return 3 * 8 * edge * self.max_seg + 8 * edge**3
 
-    def trace_brick(self, lo, hi, arrays, off, product=None, blocks=None):
+    def trace_brick(self, lo, hi, arrays, off, product=None, blocks=None, ratio=False):
         """Segments of the rays reaching cells ``lo <= index < hi``; ``arrays`` start at global index ``off``.
 
         ``arrays`` (n_e, ion term, T) may be the whole grid (``off`` = 0) or
         the brick's own sub-array (``off`` = ``lo``); ``product`` is their
         ``n_e x ion term`` and ``blocks`` its :func:`kernels.emitting_blocks`
         if already at hand (:meth:`Snapshot.emission_product`,
-        :meth:`Snapshot.emitting_blocks`), else they are formed for the brick.
+        :meth:`Snapshot.emitting_blocks`), else they are formed for the brick;
+        likewise ``ratio`` (:func:`emission_ratio`, which may be None; False:
+        not given).
         """
         rect = self.brick_rays(lo, hi)
         if rect is None:
@@ -773,6 +825,9 @@ class _ObliqueRoute(_Route):
             blocks = None
         if blocks is None:
             blocks = kernels.emitting_blocks(product)
+        if ratio is False:
+            ratio = emission_ratio(arrays[0], arrays[1])
+        ratio_t = None if ratio is None else ratio.transpose(self.order)
         (r0, s0), (r1, s1) = rect
         i_first, i_last = r0 + self.ia[0], r1 - 1 + self.ia[0]
         j_first, j_last = s0 + self.ib[0], s1 - 1 + self.ib[0]
@@ -800,7 +855,7 @@ class _ObliqueRoute(_Route):
                                               cell_c, self.abs_lc, lo_t[2], hi_t[2], self.forward, self.max_seg)
                 part = Segment.empty(nfreq, (1, n_i * n_j))
                 kernels.trace_sheared(*arrs, lo_t, hi_t, off_t, lo_t[2], self.forward, i_lo, n_i, j_lo, n_j,
-                                      *segs, *self.tables.args(), part.intensity, part.tau, part.em)
+                                      *segs, *self.tables.args(), part.intensity, part.tau, part.em, ratio_t)
                 r = i_lo * m_a + pa - i_first
                 q = j_lo * m_b + pb - j_first
                 sl = (slice(r, r + (n_i - 1) * m_a + 1, m_a), slice(q, q + (n_j - 1) * m_b + 1, m_b))
