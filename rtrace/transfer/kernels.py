@@ -45,7 +45,7 @@ _ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
 BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _table_position(temp, log_t0, inv_dlog_t, n_t):
     """Index and weight of ``ln T`` on the uniform Gaunt-table grid (clamped to the table)."""
     x = (math.log(temp) - log_t0) * inv_dlog_t
@@ -59,7 +59,7 @@ def _table_position(temp, log_t0, inv_dlog_t, n_t):
     return i, x - i
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _helium3_share(ne, ni):
     """He III share of the ion term, ``4 n_HeIII / ion term = 2 (ni - ne) / ni``, in [0, 1] (0 unless ni > ne).
 
@@ -71,19 +71,19 @@ def _helium3_share(ne, ni):
     return 0.0
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _share_from_ratio(ratio):
     """:func:`_helium3_share` from ``ratio = n_e / ion term``."""
     return min(max(2.0 * (1.0 - ratio), 0.0), 1.0)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _radio_stimulated(uu):
     """``1 - e^{-u}`` to u^4 for ``u < SERIES_LIMIT`` (omitted terms < 1e-14 relative; A&S 4.2.1)."""
     return uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _radio_source(temp, uu, b_planck, b_rj):
     """``B_nu`` for ``u = h nu / kT < SERIES_LIMIT`` with no division: ``(2 h nu^3/c^2)(1/u - 1/2 + u/12)``.
 
@@ -93,7 +93,7 @@ def _radio_source(temp, uu, b_planck, b_rj):
     return b_rj * temp + b_planck * (uu * (1.0 / 12.0) - 0.5)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pref):
     """At frequency ``f``: ``alpha_nu / (n_e n_i T^-1/2)`` (cm5) and ``S = B_nu(T)``.
 
@@ -116,7 +116,7 @@ def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pr
     return alpha_pref[f] * stim * g, source
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap,
                        src):
     """Fill ``kap[f] = alpha_nu`` (cm-1, R&L 5.18b with ``n_e n_i = nn``) and ``src[f] = B_nu(T)``.
@@ -152,7 +152,7 @@ def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk
             src[f] = source
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _cross(kap, src, ds, acc_i, acc_t):
     """One cell crossed over path ``ds``: ``I <- I e^{-dtau} + S (1 - e^{-dtau})``, ``tau += dtau``, all frequencies.
 
@@ -176,7 +176,7 @@ def _cross(kap, src, ds, acc_i, acc_t):
             acc_t[f] += dtau
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
                           out_i, out_tau, out_em):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
@@ -216,7 +216,7 @@ _LN2 = math.log(2.0)
 _SQRT2 = math.sqrt(2.0)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _log_from_bits(bits, mant):
     """``ln T`` of a positive normal double from its bits (``bits``) and its mantissa ``mant`` in [1, 2).
 
@@ -235,7 +235,10 @@ def _log_from_bits(bits, mant):
     return e * _LN2 + 2.0 * sv * series
 
 
-@numba.njit(cache=True, parallel=True)
+_RAYS = 4           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
+
+
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                                   em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
@@ -262,56 +265,90 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
         tbits = tbuf.view(np.int64)
         mbits = np.empty(nl, np.int64)
         mant = mbits.view(np.float64)
-        att = np.empty(nl)
-        dtb = np.empty(nl)
-        src = np.empty(nl)
-        emb = np.empty(nl)
-        for b in range(nb):
-            for l in range(nl):
-                tbuf[l] = float(temp[a, b, l])
-            for l in range(nl):
-                mbits[l] = (tbits[l] & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000
-            bad = 0
-            for l in range(nl):
-                ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
-                nn = ne_c * ni_c
-                on = nn > 0.0
-                t = tbuf[l] if on else 1.0e4
-                x = (_log_from_bits(tbits[l] if on else 0x40C3880000000000, mant[l] if on else 1.220703125)
-                     - log_t0) * inv_dlog_t
-                x = min(max(x, 0.0), top)
-                it = min(int(x), n_t - 2)
-                wt = x - it
-                inv_t = 1.0 / t
-                uu = hk0 * inv_t
-                g = row[it] + wt * (row[it + 1] - row[it])
-                kappa = ap0 * _radio_stimulated(uu) * g
-                source = _radio_source(t, uu, bp0, brj0)
-                dtau = nn * ds * math.sqrt(inv_t) * kappa          # R&L 5.18b times ds
-                dtau = dtau if on else 0.0
-                emb[l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
-                bad += 1 if on & ((uu >= SERIES_LIMIT) | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
-                att[l] = one_minus_exp_series(dtau)
-                dtb[l] = dtau
-                src[l] = source if on else 0.0
-            em = 0.0
+        cof = np.empty(nl)
+        wts = np.empty(nl)
+        idx = np.empty(nl, np.int64)
+        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau}), dtau, EM weight
+        gain = np.empty((_RAYS, nl))
+        dtb = np.empty((_RAYS, nl))
+        emb = np.empty((_RAYS, nl))
+        bad = np.empty(_RAYS, np.int64)
+        for b0 in range(0, nb, _RAYS):
+            for j in range(_RAYS):
+                b = b0 + j
+                if b >= nb:                 # past the last ray: cells that change nothing
+                    keep[j, :] = 1.0
+                    gain[j, :] = 0.0
+                    dtb[j, :] = 0.0
+                    emb[j, :] = 0.0
+                    bad[j] = 0
+                    continue
+                for l in range(nl):
+                    tbuf[l] = float(temp[a, b, l])
+                for l in range(nl):
+                    mbits[l] = (tbits[l] & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000
+                n_bad = 0
+                # the table position and every factor but the Gaunt factor: vectorised (a table read in this
+                # loop, a gather, would keep it scalar)
+                for l in range(nl):
+                    ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
+                    nn = ne_c * ni_c
+                    on = nn > 0.0
+                    t = tbuf[l] if on else 1.0e4
+                    x = (_log_from_bits(tbits[l] if on else 0x40C3880000000000, mant[l] if on else 1.220703125)
+                         - log_t0) * inv_dlog_t
+                    x = min(max(x, 0.0), top)
+                    it = min(int(x), n_t - 2)
+                    wts[l] = x - it
+                    idx[l] = it
+                    inv_t = 1.0 / t
+                    uu = hk0 * inv_t
+                    # R&L 5.18b times ds, but for the Gaunt factor
+                    cof[l] = (nn * ds * math.sqrt(inv_t) * ap0 * _radio_stimulated(uu)) if on else 0.0
+                    emb[j, l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
+                    n_bad += 1 if on & ((uu >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                    gain[j, l] = _radio_source(t, uu, bp0, brj0) if on else 0.0
+                for l in range(nl):
+                    it = idx[l]
+                    dtb[j, l] = cof[l] * (row[it] + wts[l] * (row[it + 1] - row[it]))
+                for l in range(nl):
+                    dtau = dtb[j, l]
+                    n_bad += 1 if dtau >= SERIES_LIMIT else 0
+                    att = one_minus_exp_series(dtau)
+                    keep[j, l] = 1.0 - att
+                    gain[j, l] *= att
+                bad[j] = n_bad
+            # the recurrence I <- I e^{-dtau} + S (1 - e^{-dtau}) of the group's rays side by side, so that one
+            # ray's dependence chain does not serialise the core
+            i0, i1, i2, i3 = 0.0, 0.0, 0.0, 0.0
+            t0, t1, t2, t3 = 0.0, 0.0, 0.0, 0.0
+            e0, e1, e2, e3 = 0.0, 0.0, 0.0, 0.0
             for s in range(nl):
-                em += emb[s if forward else nl - 1 - s]
-            if bad:
-                i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab, hk,
-                                                  alpha_pref, b_pref)
-            else:
-                i_acc, t_acc = 0.0, 0.0
-                for s in range(nl):
-                    l = s if forward else nl - 1 - s
-                    i_acc += att[l] * (src[l] - i_acc)
-                    t_acc += dtb[l]
-            out_i[0, a, b] = i_acc
-            out_tau[0, a, b] = t_acc
-            out_em[a, b] = em
+                l = s if forward else nl - 1 - s
+                i0 = i0 * keep[0, l] + gain[0, l]
+                i1 = i1 * keep[1, l] + gain[1, l]
+                i2 = i2 * keep[2, l] + gain[2, l]
+                i3 = i3 * keep[3, l] + gain[3, l]
+                t0 += dtb[0, l]
+                t1 += dtb[1, l]
+                t2 += dtb[2, l]
+                t3 += dtb[3, l]
+                e0 += emb[0, l]
+                e1 += emb[1, l]
+                e2 += emb[2, l]
+                e3 += emb[3, l]
+            for j, (i_acc, t_acc, em) in enumerate(((i0, t0, e0), (i1, t1, e1), (i2, t2, e2), (i3, t3, e3))):
+                b = b0 + j
+                if b < nb:
+                    if bad[j]:
+                        i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t,
+                                                          gtab, hk, alpha_pref, b_pref)
+                    out_i[0, a, b] = i_acc
+                    out_tau[0, a, b] = t_acc
+                    out_em[a, b] = em
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref):
     """One ray of :func:`one_frequency_along_last_axis` cell by cell with the exact forms: ``(I, tau)``."""
     nl = ne.shape[2]
@@ -333,7 +370,7 @@ def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab
     return i_acc, t_acc
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                             em_ions, out_i, out_tau, out_em):
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
@@ -366,7 +403,7 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
                 out_tau[f, a, c] = acc_t[c, f]
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _sort_few(x, n):
     """Sort ``x[:n]`` in place by insertion: a layer has a handful of cuts, and numba compiles this in a
     fraction of the time its general array sort takes."""
@@ -379,7 +416,7 @@ def _sort_few(x, n):
         x[j + 1] = v
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs_lc, k_lo, k_hi, forward,
                    max_seg):
     """Path segments, per cell layer, shared by every ray of one lattice phase.
@@ -439,7 +476,7 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
     return count, da, db, ds
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
                   seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em,
                   ratio=None):
@@ -558,7 +595,7 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
                 out_tau[f, 0, p_lo * n_j + r] = acc_t[r, f]
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _segment_spread(seg_da, seg_db, s, n):
     """Smallest and largest cell offsets ``(da_min, da_max, db_min, db_max)`` of layer ``s``'s segments."""
     a_min, a_max, b_min, b_max = seg_da[s, 0], seg_da[s, 0], seg_db[s, 0], seg_db[s, 0]
@@ -570,7 +607,7 @@ def _segment_spread(seg_da, seg_db, s, n):
     return a_min, a_max, b_min, b_max
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def emitting_blocks(nn_cells):
     """Which blocks of ``2**BLOCK_SHIFT`` cells per axis hold a cell with ``n_e n_i > 0`` (uint8, 1 = some).
 
