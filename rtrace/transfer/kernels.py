@@ -130,7 +130,13 @@ def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk
     """
     i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab_t.shape[1])
     inv_t = 1.0 / temp
-    a0 = nn * math.sqrt(inv_t)
+    _coefficients_at(i, wt, nn * math.sqrt(inv_t), share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
+                     kap, src)
+
+
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _coefficients_at(i, wt, a0, share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src):
+    """:func:`_cell_coefficients` from the cell's table position ``(i, wt)``, ``a0 = n_e n_i T^-1/2`` and ``1/T``."""
     if hk_max * inv_t < SERIES_LIMIT:
         if share > 0.0:
             for f in range(hk.shape[0]):
@@ -190,10 +196,34 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     nf = hk.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
+    n_t = gtab.shape[2]
+    top = n_t - 1.0
     for a in prange(na):
         kap, src = np.empty(nf), np.empty(nf)
         acc_i, acc_t = np.empty(nf), np.empty(nf)
+        tbuf = np.empty(nl)
+        tbits = tbuf.view(np.int64)
+        mbits = np.empty(nl, np.int64)
+        mant = mbits.view(np.float64)
+        a0b, invb, wts = np.empty(nl), np.empty(nl), np.empty(nl)
+        idx = np.empty(nl, np.int64)
         for b in range(nb):
+            # per-cell factors of the whole ray first, vectorised (ln T from the float's bits)
+            for l in range(nl):
+                tbuf[l] = float(temp[a, b, l])
+            for l in range(nl):
+                mbits[l] = (tbits[l] & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000
+            for l in range(nl):
+                t = tbuf[l] if tbuf[l] > 0.0 else 1.0e4
+                x = (_log_from_bits(tbits[l] if tbuf[l] > 0.0 else 0x40C3880000000000,
+                                    mant[l] if tbuf[l] > 0.0 else 1.220703125) - log_t0) * inv_dlog_t
+                x = min(max(x, 0.0), top)
+                it = min(int(x), n_t - 2)
+                wts[l] = x - it
+                idx[l] = it
+                inv_t = 1.0 / t
+                invb[l] = inv_t
+                a0b[l] = math.sqrt(inv_t)
             acc_i[:] = 0.0
             acc_t[:] = 0.0
             em = 0.0
@@ -203,8 +233,8 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     em += (nn if em_ions else ne_c * ne_c) * ds
-                    _cell_coefficients(nn, _helium3_share(ne_c, ni_c), float(temp[a, b, l]), log_t0, inv_dlog_t,
-                                       gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
+                    _coefficients_at(idx[l], wts[l], nn * a0b[l], _helium3_share(ne_c, ni_c), tbuf[l], invb[l], gtab,
+                                     gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                     _cross(kap, src, ds, acc_i, acc_t)
             for f in range(nf):
                 out_i[f, a, b] = acc_i[f]
