@@ -27,6 +27,12 @@ every frequency the frequency loop has no branch, and the running sums of a
 ray keep their frequencies contiguous, so the loop vectorises; a single
 frequency keeps the sums in registers.
 
+Kernels are compiled with ``error_model="numpy"``: a float division then has no
+division-by-zero branch (numba's default raises ZeroDivisionError), without which
+no loop holding a division vectorises. Inside a loop meant to vectorise, a
+table read at a per-cell index (a gather) keeps the whole loop scalar, so the
+single-frequency kernel reads the Gaunt table in a loop of its own.
+
 Kernels trust their inputs: the Python layer validates them.
 """
 
@@ -190,7 +196,10 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     ``forward`` is True when rays travel toward increasing index. Outputs are
     ``(nfreq, A, B)`` (intensity, optical depth) and ``(A, B)`` (EM); they must
     be zero on entry. For a single frequency :func:`one_frequency_along_last_axis`
-    is faster (the tracer chooses; each is compiled only when first used).
+    is faster (the tracer chooses; each is compiled only when first used). Each
+    ray's table positions, ``1/T`` and ``T^-1/2`` come first from one vectorised
+    pass (``ln T`` from the float's bits, :func:`_log_from_bits`, in double
+    precision), then the cells' frequency loops.
     """
     na, nb, nl = ne.shape
     nf = hk.shape[0]
@@ -273,17 +282,20 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
                                   em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
 
-    Each ray is done in two passes: the cells' ``1 - e^{-dtau}``, ``dtau`` and ``S`` first, in a
-    loop with no branch and no library call (so it vectorises: ``ln T`` from the float's bits,
-    :func:`_log_from_bits`; the radio-regime series), then the transfer recurrence in the order
-    of travel. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
+    Rays are taken :data:`_RAYS` (4) at a time. For each, the cells' ``e^{-dtau}``,
+    ``S (1 - e^{-dtau})``, ``dtau`` and EM weight come first, in loops with no branch and no library
+    call (so they vectorise: ``ln T`` from the float's bits, :func:`_log_from_bits`; the
+    radio-regime series; the Gaunt table read in a loop of its own), then the four rays' transfer
+    recurrences ``I <- I e^{-dtau} + S (1 - e^{-dtau})`` run side by side in the order of travel,
+    so one ray's dependence chain does not serialise the core. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
     redone cell by cell with the exact forms (:func:`_one_frequency_ray`), and so is a ray with
     a He III cell (ion term above ``n_e``), which needs the Z = 2 Gaunt row: hydrogen and singly
     ionized helium keep the fast pass unchanged.
 
-    ``ln T`` is taken in double precision here; the other kernels take it in the field's own
-    precision (numba's ``float()`` keeps a float32 a float32), which moves the Gaunt-table
-    position and so the results by up to ~5e-8 relative for float32 fields.
+    ``ln T`` is taken in double precision here and in :func:`trace_along_last_axis`; the other
+    kernels take it in the field's own precision (numba's ``float()`` keeps a float32 a float32),
+    which moves the Gaunt-table position and so the results by up to ~5e-8 relative for float32
+    fields.
     """
     na, nb, nl = ne.shape
     n_t = gtab.shape[2]
