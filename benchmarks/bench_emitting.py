@@ -46,7 +46,10 @@ Targets met: axis1 <= 0.10x numpy. Not met: axis1 <= 6x the streaming pass (7-10
 kernel, so the ratio grew; its cell pass reads each layer with a stride and evaluates coefficients
 cell by cell). First-use compile of the warm-up's kernels with a cold numba cache
 (``NUMBA_CACHE_DIR=$(mktemp -d) python -m rtrace.warmup``) under the same load: 178 s before, 162 s
-after (34-45 s when the machine is idle): the <= 15 s target is not met.
+after (34-45 s when the machine is idle); after, at load 2.5-3.5: 46.8 s, of which trace_along_last_axis
+8.7 s, trace_sheared 7.5 s (C-ordered arrays) + 7.3 s (transposed, 'A' layout), remap_parallelograms 5.1 s,
+trace_along_middle_axis 5.0 s + 4.6 s ('A'), one_frequency_along_last_axis 4.4 s, emitting_blocks 1.4 s.
+The <= 15 s target is not met; the transposed-layout specialisations (12 s) are the first candidates.
 """
 
 import argparse
