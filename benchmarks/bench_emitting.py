@@ -13,7 +13,43 @@ within each round:
 * rtrace axis-aligned 1 frequency, 8 frequencies (target <= 2.5x of one) and
   oblique at supersample=1 (target <= 2x of axis)
 
-Usage: ``python benchmarks/bench_emitting.py [--cells 256] [--rounds 5]``
+Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5]`` from the
+repository root (without ``PYTHONPATH=.`` a script imports the installed rtrace, not this copy).
+
+Measured (issue 14, item 3), 256^3, on the 2-core machine shared with three other jobs (load 3-4,
+so absolute times vary 2-7x between runs; compare ratios within one run):
+
+===============================  ======================  ======================  ========
+one thread, median of 5, s       before (98f58a7)        after (this branch)     target
+===============================  ======================  ======================  ========
+axis 1 frequency (whole trace)   0.340 / 0.339           0.271 / 0.270
+axis 8 frequencies               1.100 / 1.111           0.782 / 0.728
+oblique, supersample=1           1.228 / 1.231           1.101 / 1.069
+axis8 / axis1                    3.19 / 3.27             2.92 / 2.82             <= 2.5
+oblique / axis1                  3.56 / 3.63             4.11 / 3.95             <= 2
+kernel alone, axis 1 frequency   0.30                    0.12
+kernel alone, axis 8 frequencies 0.83                    0.38
+kernel alone, oblique (128^3)    0.088                   0.062
+===============================  ======================  ======================  ========
+
+(two alternating runs of each, one thread, ``numba.set_num_threads(1)``, whole ``rtrace.trace``
+calls; kernel times from direct calls on the same grid). Both threads, this script, 3-5 rounds,
+min / median / max of the ratios within each round:
+
+* before: axis1/numpy 0.025-0.062, axis1/stream 7.0-16.6 (median 12.0, 11.5), axis8/axis1 2.8-3.5
+  (medians 3.02, 2.87), oblique/axis1 2.7-3.6 (medians 3.47, 3.43)
+* after: axis1/numpy 0.021-0.031 (numpy itself slowed 5-10x by the load), axis1/stream 9.4-12.3
+  (median 10.2), axis8/axis1 2.40-3.33 (median 2.75), oblique/axis1 3.4-5.2 (median 4.3)
+
+Targets met: axis1 <= 0.10x numpy. Not met: axis1 <= 6x the streaming pass (7-10x), 8 frequencies
+<= 2.5x one (2.75-2.9x), oblique <= 2x axis (about 4x: the oblique sweep gained less than the axis
+kernel, so the ratio grew; its cell pass reads each layer with a stride and evaluates coefficients
+cell by cell). First-use compile of the warm-up's kernels with a cold numba cache
+(``NUMBA_CACHE_DIR=$(mktemp -d) python -m rtrace.warmup``) under the same load: 178 s before, 162 s
+after (34-45 s when the machine is idle); after, at load 2.5-3.5: 46.8 s, of which trace_along_last_axis
+8.7 s, trace_sheared 7.5 s (C-ordered arrays) + 7.3 s (transposed, 'A' layout), remap_parallelograms 5.1 s,
+trace_along_middle_axis 5.0 s + 4.6 s ('A'), one_frequency_along_last_axis 4.4 s, emitting_blocks 1.4 s.
+The <= 15 s target is not met; the transposed-layout specialisations (12 s) are the first candidates.
 """
 
 import argparse

@@ -1,7 +1,9 @@
-"""The single-frequency axis kernel's vectorised and cell-by-cell paths against a direct evaluation.
+"""The last-axis kernels' vectorised and cell-by-cell paths against a direct evaluation.
 
-The kernel evaluates whole rays in a branch-free loop when every cell is in the radio regime and
-optically thin, and redoes a ray cell by cell otherwise. Both paths are checked here against the
+The single-frequency kernel evaluates whole rays in a branch-free loop when every cell is in the
+radio regime and optically thin, four rays side by side, and redoes a ray cell by cell otherwise;
+the several-frequency kernel takes each ray's per-cell factors (ln T from the float's bits) in a
+vectorised pass and chooses the series or exact forms per cell. Both paths are checked here against the
 formal solution for piecewise-constant cells, ``I <- I e^{-dtau} + B_nu (1 - e^{-dtau})``, with
 alpha_nu from Rybicki & Lightman (1979) eq. 5.18b (``absorption_cgs``) and B_nu from Planck's law
 (``planck_cgs``), evaluated here in numpy cell by cell.
@@ -64,3 +66,27 @@ def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu):
     np.testing.assert_allclose(out_tau[0], tau, rtol=1e-6, atol=0)
     np.testing.assert_allclose(out_i[0], inten, rtol=1e-6, atol=0)
     np.testing.assert_allclose(out_em, em, rtol=1e-6, atol=0)
+
+
+@pytest.mark.parametrize("forward", [True, False])
+def test_several_frequency_kernel_matches_direct_transfer(rng, forward):
+    # frequencies where the grid's thick ray is thick (1 GHz), thin radio (5, 30 GHz), and h nu / kT above the
+    # radio series' limit in every cell (1 THz): each cell's vectorised and exact paths against the direct sum
+    ne, temp = grid(rng, n=(5, 9, 33))             # 9 rays a row: the single-frequency kernel's groups of 4 and a tail
+    nus = np.array([1.0e9, 5.0e9, 3.0e10, 1.0e12])
+    tables = FrequencyTables(nus)
+    out_i, out_tau = np.zeros((nus.size,) + ne.shape[:2]), np.zeros((nus.size,) + ne.shape[:2])
+    out_em = np.zeros(ne.shape[:2])
+    kernels.trace_along_last_axis(ne, ne, temp, DS, forward, *tables.args(), out_i, out_tau, out_em)
+    for f, nu in enumerate(nus):
+        inten, tau, em = direct(ne, temp, nu, forward)
+        np.testing.assert_allclose(out_tau[f], tau, rtol=1e-6, atol=0)
+        np.testing.assert_allclose(out_i[f], inten, rtol=1e-6, atol=0)
+        np.testing.assert_allclose(out_em, em, rtol=1e-6, atol=0)
+    # the single-frequency kernel agrees with the several-frequency one at each frequency
+    for f, nu in enumerate(nus):
+        one_i, one_tau, one_em = np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2]), np.zeros(ne.shape[:2])
+        kernels.one_frequency_along_last_axis(ne, ne, temp, DS, forward, *FrequencyTables(nus[f:f + 1]).args(),
+                                              one_i, one_tau, one_em)
+        np.testing.assert_allclose(one_i[0], out_i[f], rtol=1e-6, atol=0)
+        np.testing.assert_allclose(one_tau[0], out_tau[f], rtol=1e-6, atol=0)

@@ -27,6 +27,12 @@ every frequency the frequency loop has no branch, and the running sums of a
 ray keep their frequencies contiguous, so the loop vectorises; a single
 frequency keeps the sums in registers.
 
+Kernels are compiled with ``error_model="numpy"``: a float division then has no
+division-by-zero branch (numba's default raises ZeroDivisionError), without which
+no loop holding a division vectorises. Inside a loop meant to vectorise, a
+table read at a per-cell index (a gather) keeps the whole loop scalar, so the
+single-frequency kernel reads the Gaunt table in a loop of its own.
+
 Kernels trust their inputs: the Python layer validates them.
 """
 
@@ -45,7 +51,7 @@ _ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
 BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _table_position(temp, log_t0, inv_dlog_t, n_t):
     """Index and weight of ``ln T`` on the uniform Gaunt-table grid (clamped to the table)."""
     x = (math.log(temp) - log_t0) * inv_dlog_t
@@ -59,7 +65,7 @@ def _table_position(temp, log_t0, inv_dlog_t, n_t):
     return i, x - i
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _helium3_share(ne, ni):
     """He III share of the ion term, ``4 n_HeIII / ion term = 2 (ni - ne) / ni``, in [0, 1] (0 unless ni > ne).
 
@@ -71,19 +77,19 @@ def _helium3_share(ne, ni):
     return 0.0
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _share_from_ratio(ratio):
     """:func:`_helium3_share` from ``ratio = n_e / ion term``."""
     return min(max(2.0 * (1.0 - ratio), 0.0), 1.0)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _radio_stimulated(uu):
     """``1 - e^{-u}`` to u^4 for ``u < SERIES_LIMIT`` (omitted terms < 1e-14 relative; A&S 4.2.1)."""
     return uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0))))
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _radio_source(temp, uu, b_planck, b_rj):
     """``B_nu`` for ``u = h nu / kT < SERIES_LIMIT`` with no division: ``(2 h nu^3/c^2)(1/u - 1/2 + u/12)``.
 
@@ -93,7 +99,7 @@ def _radio_source(temp, uu, b_planck, b_rj):
     return b_rj * temp + b_planck * (uu * (1.0 / 12.0) - 0.5)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pref):
     """At frequency ``f``: ``alpha_nu / (n_e n_i T^-1/2)`` (cm5) and ``S = B_nu(T)``.
 
@@ -116,7 +122,7 @@ def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pr
     return alpha_pref[f] * stim * g, source
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap,
                        src):
     """Fill ``kap[f] = alpha_nu`` (cm-1, R&L 5.18b with ``n_e n_i = nn``) and ``src[f] = B_nu(T)``.
@@ -130,29 +136,40 @@ def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk
     """
     i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab_t.shape[1])
     inv_t = 1.0 / temp
-    a0 = nn * math.sqrt(inv_t)
+    _coefficients_at(i, wt, nn * math.sqrt(inv_t), share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
+                     kap, src)
+
+
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _coefficients_at(i, wt, a0, share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src,
+                     at=0):
+    """:func:`_cell_coefficients` from the cell's table position ``(i, wt)``, ``a0 = n_e n_i T^-1/2`` and ``1/T``.
+
+    Writes ``kap[at + f]`` and ``src[at + f]``: a flat buffer row needs no view per cell (a view costs two
+    reference-count updates).
+    """
     if hk_max * inv_t < SERIES_LIMIT:
         if share > 0.0:
             for f in range(hk.shape[0]):
                 uu = hk[f] * inv_t
                 g1 = gtab_t[0, i, f] + wt * (gtab_t[0, i + 1, f] - gtab_t[0, i, f])
                 g2 = gtab_t[1, i, f] + wt * (gtab_t[1, i + 1, f] - gtab_t[1, i, f])
-                kap[f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * (g1 + share * (g2 - g1))
-                src[f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
+                kap[at + f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * (g1 + share * (g2 - g1))
+                src[at + f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
         else:
             for f in range(hk.shape[0]):
                 uu = hk[f] * inv_t
                 g = gtab_t[0, i, f] + wt * (gtab_t[0, i + 1, f] - gtab_t[0, i, f])
-                kap[f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
-                src[f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
+                kap[at + f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
+                src[at + f] = _radio_source(temp, uu, b_pref[0, f], b_pref[1, f])
     else:
         for f in range(hk.shape[0]):
             kappa, source = _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pref)
-            kap[f] = a0 * kappa
-            src[f] = source
+            kap[at + f] = a0 * kappa
+            src[at + f] = source
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _cross(kap, src, ds, acc_i, acc_t):
     """One cell crossed over path ``ds``: ``I <- I e^{-dtau} + S (1 - e^{-dtau})``, ``tau += dtau``, all frequencies.
 
@@ -176,7 +193,24 @@ def _cross(kap, src, ds, acc_i, acc_t):
             acc_t[f] += dtau
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy")
+def _thin_bound(gtab, hk, alpha_pref):
+    """``max_f A nu_f^-3 (h nu_f / k) max_T g_f(T)``: a cell has ``dtau_nu <= n_e n_i ds T^-3/2`` times this.
+
+    ``1 - e^{-u} <= u`` for ``u >= 0`` (and so is its series below SERIES_LIMIT), so a cell whose bound is
+    below SERIES_LIMIT is thin at every frequency (R&L 5.18b).
+    """
+    out = 0.0
+    for f in range(hk.shape[0]):
+        gmax = 0.0
+        for z in range(gtab.shape[0]):
+            for i in range(gtab.shape[2]):
+                gmax = max(gmax, gtab[z, f, i])
+        out = max(out, alpha_pref[f] * hk[f] * gmax)
+    return out
+
+
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
                           out_i, out_tau, out_em):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
@@ -184,16 +218,35 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     ``forward`` is True when rays travel toward increasing index. Outputs are
     ``(nfreq, A, B)`` (intensity, optical depth) and ``(A, B)`` (EM); they must
     be zero on entry. For a single frequency :func:`one_frequency_along_last_axis`
-    is faster (the tracer chooses; each is compiled only when first used).
+    is faster (the tracer chooses; each is compiled only when first used). Each
+    ray's table positions come first from one vectorised pass (``ln T`` from the
+    float's bits, :func:`_log_from_bits`, in double precision); then each cell
+    that is thin at every frequency (:func:`_thin_bound`), in the radio regime
+    and without He III takes one branch-free loop over the frequencies, and any
+    other the exact forms (:func:`_coefficients_at`, :func:`_cross`).
     """
     na, nb, nl = ne.shape
     nf = hk.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
+    n_t = gtab.shape[2]
+    top = n_t - 1.0
+    bound = _thin_bound(gtab, hk, alpha_pref)
+    fconst = np.empty((4, nf))          # h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2
+    fconst[0], fconst[1], fconst[2], fconst[3] = hk, alpha_pref, b_pref[0], b_pref[1]
     for a in prange(na):
         kap, src = np.empty(nf), np.empty(nf)
-        acc_i, acc_t = np.empty(nf), np.empty(nf)
+        acc = np.empty((2, nf))             # the ray's I and tau
+        acc_i, acc_t = acc[0], acc[1]
+        xpos = np.empty(nl)
         for b in range(nb):
+            # the table positions of the whole ray first, in one vectorised loop (ln T from the float's bits; a
+            # loop writing more arrays is left scalar by the compiler's aliasing checks)
+            for l in range(nl):
+                t = float(temp[a, b, l])
+                bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
+                mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
+                xpos[l] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
             acc_i[:] = 0.0
             acc_t[:] = 0.0
             em = 0.0
@@ -203,9 +256,27 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     em += (nn if em_ions else ne_c * ne_c) * ds
-                    _cell_coefficients(nn, _helium3_share(ne_c, ni_c), float(temp[a, b, l]), log_t0, inv_dlog_t,
-                                       gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
-                    _cross(kap, src, ds, acc_i, acc_t)
+                    x = min(max(xpos[l], 0.0), top)
+                    it = min(int(x), n_t - 2)
+                    wt = x - it
+                    t = float(temp[a, b, l])
+                    inv_t = 1.0 / t
+                    a0 = nn * math.sqrt(inv_t)
+                    if (hk_max * inv_t < SERIES_LIMIT) & (a0 * ds * inv_t * bound < SERIES_LIMIT) & (ni_c <= ne_c):
+                        # thin at every frequency, radio regime, no He III: one branch-free loop per cell
+                        # (few arrays in the loop, so that the compiler's aliasing checks allow it to vectorise)
+                        c0 = a0 * ds
+                        for f in range(nf):
+                            uu = fconst[0, f] * inv_t
+                            g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
+                            dtau = c0 * fconst[1, f] * _radio_stimulated(uu) * g
+                            acc[0, f] += one_minus_exp_series(dtau) * (_radio_source(t, uu, fconst[2, f], fconst[3, f])
+                                                                       - acc[0, f])
+                            acc[1, f] += dtau
+                    else:
+                        _coefficients_at(it, wt, a0, _helium3_share(ne_c, ni_c), t, inv_t, gtab, gtab_t, hk, hk_max,
+                                         alpha_pref, b_pref, kap, src)
+                        _cross(kap, src, ds, acc_i, acc_t)
             for f in range(nf):
                 out_i[f, a, b] = acc_i[f]
                 out_tau[f, a, b] = acc_t[f]
@@ -216,7 +287,7 @@ _LN2 = math.log(2.0)
 _SQRT2 = math.sqrt(2.0)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _log_from_bits(bits, mant):
     """``ln T`` of a positive normal double from its bits (``bits``) and its mantissa ``mant`` in [1, 2).
 
@@ -235,22 +306,28 @@ def _log_from_bits(bits, mant):
     return e * _LN2 + 2.0 * sv * series
 
 
-@numba.njit(cache=True, parallel=True)
+_RAYS = 4           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
+
+
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                                   em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
 
-    Each ray is done in two passes: the cells' ``1 - e^{-dtau}``, ``dtau`` and ``S`` first, in a
-    loop with no branch and no library call (so it vectorises: ``ln T`` from the float's bits,
-    :func:`_log_from_bits`; the radio-regime series), then the transfer recurrence in the order
-    of travel. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
+    Rays are taken :data:`_RAYS` (4) at a time. For each, the cells' ``e^{-dtau}``,
+    ``S (1 - e^{-dtau})``, ``dtau`` and EM weight come first, in loops with no branch and no library
+    call (so they vectorise: ``ln T`` from the float's bits, :func:`_log_from_bits`; the
+    radio-regime series; the Gaunt table read in a loop of its own), then the four rays' transfer
+    recurrences ``I <- I e^{-dtau} + S (1 - e^{-dtau})`` run side by side in the order of travel,
+    so one ray's dependence chain does not serialise the core. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
     redone cell by cell with the exact forms (:func:`_one_frequency_ray`), and so is a ray with
     a He III cell (ion term above ``n_e``), which needs the Z = 2 Gaunt row: hydrogen and singly
     ionized helium keep the fast pass unchanged.
 
-    ``ln T`` is taken in double precision here; the other kernels take it in the field's own
-    precision (numba's ``float()`` keeps a float32 a float32), which moves the Gaunt-table
-    position and so the results by up to ~5e-8 relative for float32 fields.
+    ``ln T`` is taken in double precision here and in :func:`trace_along_last_axis`; the other
+    kernels take it in the field's own precision (numba's ``float()`` keeps a float32 a float32),
+    which moves the Gaunt-table position and so the results by up to ~5e-8 relative for float32
+    fields.
     """
     na, nb, nl = ne.shape
     n_t = gtab.shape[2]
@@ -258,60 +335,87 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
     hk0, ap0, bp0, brj0 = hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0]
     top = n_t - 1.0
     for a in prange(na):
-        tbuf = np.empty(nl)
-        tbits = tbuf.view(np.int64)
-        mbits = np.empty(nl, np.int64)
-        mant = mbits.view(np.float64)
-        att = np.empty(nl)
-        dtb = np.empty(nl)
-        src = np.empty(nl)
-        emb = np.empty(nl)
-        for b in range(nb):
-            for l in range(nl):
-                tbuf[l] = float(temp[a, b, l])
-            for l in range(nl):
-                mbits[l] = (tbits[l] & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000
-            bad = 0
-            for l in range(nl):
-                ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
-                nn = ne_c * ni_c
-                on = nn > 0.0
-                t = tbuf[l] if on else 1.0e4
-                x = (_log_from_bits(tbits[l] if on else 0x40C3880000000000, mant[l] if on else 1.220703125)
-                     - log_t0) * inv_dlog_t
-                x = min(max(x, 0.0), top)
-                it = min(int(x), n_t - 2)
-                wt = x - it
-                inv_t = 1.0 / t
-                uu = hk0 * inv_t
-                g = row[it] + wt * (row[it + 1] - row[it])
-                kappa = ap0 * _radio_stimulated(uu) * g
-                source = _radio_source(t, uu, bp0, brj0)
-                dtau = nn * ds * math.sqrt(inv_t) * kappa          # R&L 5.18b times ds
-                dtau = dtau if on else 0.0
-                emb[l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
-                bad += 1 if on & ((uu >= SERIES_LIMIT) | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
-                att[l] = one_minus_exp_series(dtau)
-                dtb[l] = dtau
-                src[l] = source if on else 0.0
-            em = 0.0
+        xpos = np.empty(nl)
+        gau = np.empty(nl)
+        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau}), dtau, EM weight
+        gain = np.empty((_RAYS, nl))
+        dtb = np.empty((_RAYS, nl))
+        emb = np.empty((_RAYS, nl))
+        bad = np.empty(_RAYS, np.int64)
+        for b0 in range(0, nb, _RAYS):
+            for j in range(_RAYS):
+                b = b0 + j
+                if b >= nb:                 # past the last ray: cells that change nothing
+                    keep[j, :] = 1.0
+                    gain[j, :] = 0.0
+                    dtb[j, :] = 0.0
+                    emb[j, :] = 0.0
+                    bad[j] = 0
+                    continue
+                # five short loops, each vectorised: a loop that writes more arrays than this is left scalar by
+                # the compiler's aliasing checks, and one that reads the table at a per-cell index (a gather) too
+                for l in range(nl):             # the table position, ln T from the float's bits
+                    t = float(temp[a, b, l])
+                    bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
+                    mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
+                    xpos[l] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
+                for l in range(nl):             # the Gaunt factor (not vectorised: the gather)
+                    x = min(max(xpos[l], 0.0), top)
+                    it = min(int(x), n_t - 2)
+                    gau[l] = row[it] + (x - it) * (row[it + 1] - row[it])
+                for l in range(nl):             # dtau: R&L 5.18b times ds
+                    ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
+                    nn = ne_c * ni_c
+                    t = float(temp[a, b, l])
+                    inv_t = 1.0 / (t if t > 0.0 else 1.0e4)
+                    dtau = nn * ds * math.sqrt(inv_t) * ap0 * _radio_stimulated(hk0 * inv_t) * gau[l]
+                    dtb[j, l] = dtau if nn > 0.0 else 0.0
+                for l in range(nl):             # e^{-dtau} and S (1 - e^{-dtau})
+                    t = float(temp[a, b, l])
+                    t = t if t > 0.0 else 1.0e4
+                    att = one_minus_exp_series(dtb[j, l])
+                    keep[j, l] = 1.0 - att
+                    gain[j, l] = att * _radio_source(t, hk0 / t, bp0, brj0)
+                n_bad = 0
+                for l in range(nl):             # EM weights; cells the series do not cover
+                    ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
+                    nn = ne_c * ni_c
+                    on = nn > 0.0
+                    emb[j, l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
+                    t = float(temp[a, b, l])
+                    n_bad += 1 if on & ((hk0 >= SERIES_LIMIT * t) | (dtb[j, l] >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                bad[j] = n_bad
+            # the recurrence I <- I e^{-dtau} + S (1 - e^{-dtau}) of the group's rays side by side, so that one
+            # ray's dependence chain does not serialise the core
+            i0, i1, i2, i3 = 0.0, 0.0, 0.0, 0.0
+            t0, t1, t2, t3 = 0.0, 0.0, 0.0, 0.0
+            e0, e1, e2, e3 = 0.0, 0.0, 0.0, 0.0
             for s in range(nl):
-                em += emb[s if forward else nl - 1 - s]
-            if bad:
-                i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab, hk,
-                                                  alpha_pref, b_pref)
-            else:
-                i_acc, t_acc = 0.0, 0.0
-                for s in range(nl):
-                    l = s if forward else nl - 1 - s
-                    i_acc += att[l] * (src[l] - i_acc)
-                    t_acc += dtb[l]
-            out_i[0, a, b] = i_acc
-            out_tau[0, a, b] = t_acc
-            out_em[a, b] = em
+                l = s if forward else nl - 1 - s
+                i0 = i0 * keep[0, l] + gain[0, l]
+                i1 = i1 * keep[1, l] + gain[1, l]
+                i2 = i2 * keep[2, l] + gain[2, l]
+                i3 = i3 * keep[3, l] + gain[3, l]
+                t0 += dtb[0, l]
+                t1 += dtb[1, l]
+                t2 += dtb[2, l]
+                t3 += dtb[3, l]
+                e0 += emb[0, l]
+                e1 += emb[1, l]
+                e2 += emb[2, l]
+                e3 += emb[3, l]
+            for j, (i_acc, t_acc, em) in enumerate(((i0, t0, e0), (i1, t1, e1), (i2, t2, e2), (i3, t3, e3))):
+                b = b0 + j
+                if b < nb:
+                    if bad[j]:
+                        i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t,
+                                                          gtab, hk, alpha_pref, b_pref)
+                    out_i[0, a, b] = i_acc
+                    out_tau[0, a, b] = t_acc
+                    out_em[a, b] = em
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref):
     """One ray of :func:`one_frequency_along_last_axis` cell by cell with the exact forms: ``(I, tau)``."""
     nl = ne.shape[2]
@@ -333,40 +437,69 @@ def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab
     return i_acc, t_acc
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                             em_ions, out_i, out_tau, out_em):
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
 
     Each ray advances one plane at a time and whole rows of rays are updated
-    together, so memory is read contiguously. Outputs are ``(nfreq, A, C)``
-    and ``(A, C)``; they must be zero on entry.
+    together, so memory is read contiguously: a row's table positions in one
+    vectorised loop, then each cell's frequencies in one branch-free loop when
+    the cell is thin at every frequency (:func:`_thin_bound`), in the radio
+    regime and without He III, else the exact forms. Outputs are
+    ``(nfreq, A, C)`` and ``(A, C)``; they must be zero on entry.
     """
     na, nl, nc = ne.shape
     nf = hk.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
+    n_t = gtab.shape[2]
+    top = n_t - 1.0
+    bound = _thin_bound(gtab, hk, alpha_pref)
+    fconst = np.empty((4, nf))          # h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2
+    fconst[0], fconst[1], fconst[2], fconst[3] = hk, alpha_pref, b_pref[0], b_pref[1]
     for a in prange(na):
         kap, src = np.empty(nf), np.empty(nf)
-        acc_i = np.zeros((nc, nf))          # this row's rays, frequencies contiguous
-        acc_t = np.zeros((nc, nf))
+        acc = np.zeros((nc, 2, nf))         # this row's rays: I and tau, frequencies contiguous
+        xpos = np.empty(nc)
         for s in range(nl):
             l = s if forward else nl - 1 - s
+            for c in range(nc):             # the row's table positions, vectorised (as in trace_along_last_axis)
+                t = float(temp[a, l, c])
+                bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
+                mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
+                xpos[c] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
             for c in range(nc):
                 ne_c, ni_c = float(ne[a, l, c]), float(ni[a, l, c])
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     out_em[a, c] += (nn if em_ions else ne_c * ne_c) * ds
-                    _cell_coefficients(nn, _helium3_share(ne_c, ni_c), float(temp[a, l, c]), log_t0, inv_dlog_t,
-                                       gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
-                    _cross(kap, src, ds, acc_i[c], acc_t[c])
+                    x = min(max(xpos[c], 0.0), top)
+                    it = min(int(x), n_t - 2)
+                    wt = x - it
+                    t = float(temp[a, l, c])
+                    inv_t = 1.0 / t
+                    a0 = nn * math.sqrt(inv_t)
+                    if (hk_max * inv_t < SERIES_LIMIT) & (a0 * ds * inv_t * bound < SERIES_LIMIT) & (ni_c <= ne_c):
+                        c0 = a0 * ds                # thin, radio, no He III: as in trace_along_last_axis
+                        for f in range(nf):
+                            uu = fconst[0, f] * inv_t
+                            g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
+                            dtau = c0 * fconst[1, f] * _radio_stimulated(uu) * g
+                            acc[c, 0, f] += one_minus_exp_series(dtau) * (
+                                _radio_source(t, uu, fconst[2, f], fconst[3, f]) - acc[c, 0, f])
+                            acc[c, 1, f] += dtau
+                    else:
+                        _coefficients_at(it, wt, a0, _helium3_share(ne_c, ni_c), t, inv_t, gtab, gtab_t, hk, hk_max,
+                                         alpha_pref, b_pref, kap, src)
+                        _cross(kap, src, ds, acc[c, 0], acc[c, 1])
         for c in range(nc):
             for f in range(nf):
-                out_i[f, a, c] = acc_i[c, f]
-                out_tau[f, a, c] = acc_t[c, f]
+                out_i[f, a, c] = acc[c, 0, f]
+                out_tau[f, a, c] = acc[c, 1, f]
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _sort_few(x, n):
     """Sort ``x[:n]`` in place by insertion: a layer has a handful of cuts, and numba compiles this in a
     fraction of the time its general array sort takes."""
@@ -379,7 +512,7 @@ def _sort_few(x, n):
         x[j + 1] = v
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs_lc, k_lo, k_hi, forward,
                    max_seg):
     """Path segments, per cell layer, shared by every ray of one lattice phase.
@@ -439,7 +572,7 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
     return count, da, db, ds
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
                   seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em,
                   ratio=None):
@@ -485,18 +618,28 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
         a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, s, count[s])
         span_a = max(span_a, a_max - a_min)
         span_b = max(span_b, b_max - b_min)
+    n_t = gtab.shape[2]
+    top = n_t - 1.0
+    width = n_j + span_b
     for blk in prange(n_block):
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
         # this block's cells of one layer: n_e n_i, alpha_nu per frequency, S_nu
         row_first = np.empty(_ROW_BLOCK + span_a, np.int64)     # buffer columns of a row's emitting cells
         row_last = np.empty(_ROW_BLOCK + span_a, np.int64)
-        nn_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b))
-        kap_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
-        src_buf = np.empty((_ROW_BLOCK + span_a, n_j + span_b, nf))
+        row_kmax = np.empty(_ROW_BLOCK + span_a)                # a row's largest alpha_nu
+        nn_buf = np.empty((_ROW_BLOCK + span_a, width))
+        kap_buf = np.empty((_ROW_BLOCK + span_a, width, nf))
+        src_buf = np.empty((_ROW_BLOCK + span_a, width, nf))
+        # one row of the layer's cells: n_e n_i, He III share, T and the table position in ln T
+        nn_row, sh_row, t_row, x_row = np.empty(width), np.empty(width), np.empty(width), np.empty(width)
         # the block's rays (its rows are its own), frequencies contiguous
         acc_i = np.zeros(((p_hi - p_lo) * n_j, nf))
         acc_t = np.zeros(((p_hi - p_lo) * n_j, nf))
+        kap_flat = kap_buf.reshape((_ROW_BLOCK + span_a, width * nf))
+        src_flat = src_buf.reshape((_ROW_BLOCK + span_a, width * nf))
+        acc_i_flat = acc_i.reshape(-1)
+        acc_t_flat = acc_t.reshape(-1)
         for s in range(nk):
             k = k_lo + s if forward else k_lo + nk - 1 - s
             kl = k - off[2]
@@ -507,7 +650,7 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
             y_hi = min(j0 + n_j + b_max, hi[1])
             for x in range(x_lo, x_hi):
                 xb, xl = x - x_lo, x - off[0]
-                first, last = n_j + span_b, -1
+                first, last = width, -1
                 bx, bk = xl >> BLOCK_SHIFT, kl >> BLOCK_SHIFT
                 y = y_lo
                 while y < y_hi:                 # one block of cells along y at a time
@@ -523,19 +666,47 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
                                 share = _share_from_ratio(r)
                                 weight = nn if em_ions else nn * r
                             nn_buf[xb, yb] = weight
+                            nn_row[yb] = nn
+                            sh_row[yb] = share
+                            t_row[yb] = float(temp[xl, yl, kl])
                             if nn > 0.0:
                                 first = min(first, yb)
                                 last = max(last, yb)
-                                _cell_coefficients(nn, share, float(temp[xl, yl, kl]), log_t0, inv_dlog_t, gtab,
-                                                   gtab_t, hk, hk_max, alpha_pref, b_pref, kap_buf[xb, yb],
-                                                   src_buf[xb, yb])
                     else:
                         for yy in range(y, y_end):
                             nn_buf[xb, yy - y_lo] = 0.0
+                            nn_row[yy - y_lo] = 0.0
+                            t_row[yy - y_lo] = 1.0e4
                     y = y_end
                 row_first[xb] = first
                 row_last[xb] = last
+                # the row's table positions in one vectorised loop (ln T from the float's bits; a loop writing
+                # more arrays than this is left scalar by the compiler's aliasing checks)
+                for yb in range(first, last + 1):
+                    t = t_row[yb] if nn_row[yb] > 0.0 else 1.0e4
+                    bits = np.float64(t).view(np.int64)
+                    mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
+                    x_row[yb] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
+                kmax = 0.0
+                kap_row, src_row = kap_flat[xb], src_flat[xb]
+                for yb in range(first, last + 1):
+                    nn = nn_row[yb]
+                    if nn > 0.0:
+                        xt = min(max(x_row[yb], 0.0), top)
+                        it = min(int(xt), n_t - 2)
+                        t = t_row[yb]
+                        inv_t = 1.0 / t
+                        _coefficients_at(it, xt - it, nn * math.sqrt(inv_t), sh_row[yb], t, inv_t, gtab, gtab_t, hk,
+                                         hk_max, alpha_pref, b_pref, kap_row, src_row, yb * nf)
+                        for f in range(nf):
+                            kmax = max(kmax, kap_row[yb * nf + f])
+                    else:
+                        for m in range(yb * nf, (yb + 1) * nf):
+                            kap_row[m] = 0.0
+                            src_row[m] = 0.0
+                row_kmax[xb] = kmax
             for p in range(p_lo, p_hi):
+                r0 = (p - p_lo) * n_j
                 for g in range(count[s]):
                     x = i0 + p + seg_da[s, g]
                     if x < x_lo or x >= x_hi:
@@ -545,20 +716,34 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
                         continue                            # no emitting cell in this row of the layer
                     ds = seg_ds[s, g]
                     yb0 = j0 + seg_db[s, g] - y_lo          # buffer column of ray q = 0
-                    for q in range(max(0, row_first[xb] - yb0), min(n_j, row_last[xb] + 1 - yb0)):
-                        yb = yb0 + q
-                        nn = nn_buf[xb, yb]
-                        if nn > 0.0:
-                            r = (p - p_lo) * n_j + q
-                            out_em[0, p * n_j + q] += nn * ds
-                            _cross(kap_buf[xb, yb], src_buf[xb, yb], ds, acc_i[r], acc_t[r])
+                    q_lo = max(0, row_first[xb] - yb0)
+                    q_hi = min(n_j, row_last[xb] + 1 - yb0)
+                    if row_kmax[xb] * ds < SERIES_LIMIT:
+                        # every cell of the row thin at every frequency: no branch (a cell without emission has
+                        # alpha_nu = S = 0 and weight 0, so it changes nothing)
+                        for q in range(q_lo, q_hi):
+                            out_em[0, p * n_j + q] += nn_buf[xb, yb0 + q] * ds
+                        # rays q_lo..q_hi and their cells are contiguous runs of (ray or cell, frequency)
+                        kap_row, src_row = kap_flat[xb], src_flat[xb]
+                        shift = (yb0 - r0) * nf
+                        for m in range((r0 + q_lo) * nf, (r0 + q_hi) * nf):
+                            dtau = kap_row[m + shift] * ds
+                            acc_i_flat[m] += one_minus_exp_series(dtau) * (src_row[m + shift] - acc_i_flat[m])
+                            acc_t_flat[m] += dtau
+                    else:
+                        for q in range(q_lo, q_hi):
+                            yb = yb0 + q
+                            nn = nn_buf[xb, yb]
+                            if nn > 0.0:
+                                out_em[0, p * n_j + q] += nn * ds
+                                _cross(kap_buf[xb, yb], src_buf[xb, yb], ds, acc_i[r0 + q], acc_t[r0 + q])
         for r in range((p_hi - p_lo) * n_j):
             for f in range(nf):
                 out_i[f, 0, p_lo * n_j + r] = acc_i[r, f]
                 out_tau[f, 0, p_lo * n_j + r] = acc_t[r, f]
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, error_model="numpy", inline="always")
 def _segment_spread(seg_da, seg_db, s, n):
     """Smallest and largest cell offsets ``(da_min, da_max, db_min, db_max)`` of layer ``s``'s segments."""
     a_min, a_max, b_min, b_max = seg_da[s, 0], seg_da[s, 0], seg_db[s, 0], seg_db[s, 0]
@@ -570,7 +755,7 @@ def _segment_spread(seg_da, seg_db, s, n):
     return a_min, a_max, b_min, b_max
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, error_model="numpy", parallel=True)
 def emitting_blocks(nn_cells):
     """Which blocks of ``2**BLOCK_SHIFT`` cells per axis hold a cell with ``n_e n_i > 0`` (uint8, 1 = some).
 
