@@ -348,7 +348,9 @@ def _plane(obj, quantity, frequency):
                       unit=u.dimensionless_unscaled, per=None, **common)
     if quantity == "emission_measure":
         em = obj.emission_measure.to_value(u.pc * u.cm**-6)
-        return _Plane(em, label=r"emission measure (pc cm$^{-6}$)", tag="", unit=u.pc * u.cm**-6,
+        what = (r"$\int n_e \sum Z^2 n_i\,dl$" if getattr(obj, "em_definition", "electrons") == "ion_term"
+                else r"$\int n_e^2\,dl$")
+        return _Plane(em, label=f"emission measure {what} (pc cm$^{{-6}}$)", tag="", unit=u.pc * u.cm**-6,
                       per=None, **common)
     # brightness temperature
     if _is_skymap(obj):

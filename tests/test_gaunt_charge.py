@@ -256,6 +256,10 @@ def test_emission_measure_keyword_and_fits_card(tmp_path):
     for res, text in [(e, "int n_e^2 dl"), (i, "int n_e sum Z^2 n_i dl")]:
         path = write_result(res, tmp_path / f"em_{res.em_definition}.fits", "emission_measure")
         assert fits.getheader(path)["EMDEF"] == text
+    # pictures name the definition in their colour-bar label too
+    from rtrace.plot import _plane
+    assert "n_e^2" in _plane(e, "emission_measure", 0).label
+    assert "Z^2 n_i" in _plane(i, "emission_measure", 0).label
 
 
 # -- range warnings ----------------------------------------------------------------------------------
