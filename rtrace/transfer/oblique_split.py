@@ -4,15 +4,18 @@ For an in-memory grid seen along an oblique direction, :func:`split_trace`
 returns pixel footprint means of
 
 * the optical depth and the emission measure: linear in the cells' path
-  lengths, hence exact projections of the per-cell ``alpha_nu`` and
-  ``n_e x ion term`` (:mod:`.footprint`);
+  lengths, hence exact projections of the per-cell ``alpha_nu`` and EM
+  weight (``n_e^2``, or ``n_e x ion term``) (:mod:`.footprint`);
 * the intensity: the exact projection of the cells' mean sensitivities
   ``W_c`` (:func:`linearized.sensitivity_pass`) plus the ray lattice's
   quadrature of the remainder ``R = I - sum_c W_c L_c``, which is zero for
   optically thin gas and second order otherwise.
 
-It also returns a per-pixel estimate of the remainder's quadrature error
-(see :func:`remainder_error`), which the tracer's ``tolerance`` loop uses.
+With a ``tolerance``, the remainder's quadrature error is estimated per
+pixel (:func:`local_bound` on the first lattice), and blocks of pixels
+above it are traced again on finer lattices (:func:`sub_route`,
+:func:`traced_remainders`), the estimate there being the change from the
+previous lattice.
 """
 
 import numpy as np
