@@ -12,8 +12,11 @@ whether the tolerance was met (the accuracy-cost curve). Times are the median an
 range of ``--repeat`` runs; ratios are to the ``supersample=1`` median of the same run.
 Targets from the issue: <= 3x (demo) and <= 10x (fully emitting) at 1e-2.
 
-Measured with the split of oblique views (``rtrace.transfer.oblique_split``), 2 shared cores under
-load (medians, ranges over 3 runs):
+Measured with the split of oblique views (``rtrace.transfer.oblique_split``). On the quiet machine
+(load < 1), ``--cells 256 --tolerances 0.01``, medians (ranges) of 3: demo, supersample=1 0.124 s
+(0.106 .. 0.125), tolerance 1e-2 2.11 s (2.10 .. 3.53) = 17x, estimate 0.0095 at 4 rays per cell
+side; fully emitting, supersample=1 0.449 s (0.442 .. 0.584), 1e-2 10.5 s (10.2 .. 11.8) = 23x,
+0.0099 at 8. Under load (2 cores shared with three other jobs):
 
 * ``--cells 256 --tolerances 0.1 0.01``: demo, supersample=1 0.334 s (0.315 .. 0.338); tolerance 1e-1
   5.15 s (5.03 .. 7.88, 15x, estimate 0.099 at 2 rays per cell side); 1e-2 7.41 s (7.33 .. 7.45, 22x,

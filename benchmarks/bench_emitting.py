@@ -50,6 +50,13 @@ after (34-45 s when the machine is idle); after, at load 2.5-3.5: 46.8 s, of whi
 8.7 s, trace_sheared 7.5 s (C-ordered arrays) + 7.3 s (transposed, 'A' layout), remap_parallelograms 5.1 s,
 trace_along_middle_axis 5.0 s + 4.6 s ('A'), one_frequency_along_last_axis 4.4 s, emitting_blocks 1.4 s.
 The <= 15 s target is not met; the transposed-layout specialisations (12 s) are the first candidates.
+
+Quiet machine (load < 1), after all of issue 14's and 15's changes, this script, 5 rounds, both
+threads: numpy 4.11 s, stream 7 ms, axis1 72 ms, axis8 206 ms, oblique 299 ms (medians);
+axis1/numpy 0.017 (target <= 0.10, met), axis1/stream 10.2-10.5 (<= 6, not met), axis8/axis1
+2.84-3.38, median 2.87 (<= 2.5, not met), oblique/axis1 4.06-4.66, median 4.17 (<= 2, not met).
+Cold-cache warm-up (9 kernels): 57.9 s (was 34-45 s idle before the He III rows and the
+vectorised loops; target <= 15 s, not met).
 """
 
 import argparse
