@@ -29,33 +29,13 @@ import numba
 import numpy as np
 from numba import prange
 
+from .remap import _clip
+
 __all__ = ["exact_kernel", "kernel_table", "project"]
 
 # Relative margin by which a vertex may miss an edge and still count as crossing it (break points that
 # change nothing cost one more Simpson piece and no accuracy).
 _MARGIN = 1e-9
-
-
-@numba.njit(cache=True, inline="always")
-def _clip(xs, ys, n, out_x, out_y, axis, bound, keep_greater):
-    """Clip polygon (xs, ys)[:n] against x_axis >= bound (or <=); returns the new vertex count."""
-    m = 0
-    for k in range(n):
-        k2 = (k + 1) % n
-        p1 = xs[k] if axis == 0 else ys[k]
-        p2 = xs[k2] if axis == 0 else ys[k2]
-        in1 = p1 >= bound if keep_greater else p1 <= bound
-        in2 = p2 >= bound if keep_greater else p2 <= bound
-        if in1:
-            out_x[m] = xs[k]
-            out_y[m] = ys[k]
-            m += 1
-        if in1 != in2:
-            t = (bound - p1) / (p2 - p1)
-            out_x[m] = xs[k] + t * (xs[k2] - xs[k])
-            out_y[m] = ys[k] + t * (ys[k2] - ys[k])
-            m += 1
-    return m
 
 
 @numba.njit(cache=True)

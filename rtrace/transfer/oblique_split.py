@@ -41,9 +41,15 @@ class SplitImages:
         return Segment(self.delta + bg[:, None, None], self.tau, self.em)
 
 
-def _phases(route, i_first, i_last, j_first, j_last):
-    """Every lattice phase of the route with its ray block: ``(pa, pb, i_lo, n_i, j_lo, n_j, rows, cols)``."""
-    m_a, m_b = route.m
+def lattice_phases(m, i_first, i_last, j_first, j_last):
+    """Every phase of a lattice of ``m = (m_a, m_b)`` rays per cell side with its rays in a rectangle.
+
+    The rectangle holds sub-lattice indices ``i_first..i_last`` x ``j_first..j_last``;
+    phase ``(pa, pb)`` has the rays ``I = i m_a + pa``, ``J = j m_b + pb`` for
+    ``i_lo <= i < i_lo + n_i``, ``j_lo <= j < j_lo + n_j``, at ``rows``, ``cols``
+    (strided slices) of the rectangle. Yields ``(pa, pb, i_lo, n_i, j_lo, n_j, rows, cols)``.
+    """
+    m_a, m_b = m
     for pa in range(m_a):
         i_lo, i_hi = -((pa - i_first) // m_a), (i_last - pa) // m_a
         n_i = i_hi - i_lo + 1
@@ -99,7 +105,7 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
     i_first, i_last = route.ia
     j_first, j_last = route.ib
-    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
         count, da, db, ds = _layer_segments(route, pa, pb, shape[2])
         ray_i = np.ascontiguousarray(seg.intensity[:, rows, cols]).reshape(nf, -1)
         ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
@@ -118,7 +124,7 @@ def remainders(route, w, blocks, seg, bg):
     out = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)
     i_first, i_last = route.ia
     j_first, j_last = route.ib
-    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
         count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
         linear = np.zeros((nf, n_i * n_j))
         linearized.remainder_pass(w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
@@ -132,7 +138,7 @@ def traced_remainders(route, alpha, source, w, blocks, bg):
     out = np.zeros((nf,) + tuple(route.ray_shape))
     i_first, i_last = route.ia
     j_first, j_last = route.ib
-    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in _phases(route, i_first, i_last, j_first, j_last):
+    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
         count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
         rem = np.zeros((nf, n_i * n_j))
         linearized.remainder_trace(alpha, source, w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,

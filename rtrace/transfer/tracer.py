@@ -48,7 +48,7 @@ from . import bricks as _bricks
 from . import kernels
 from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
-from .oblique_split import split_trace
+from .oblique_split import lattice_phases, remap_rays, split_trace
 from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
@@ -840,44 +840,25 @@ class _ObliqueRoute(_Route):
         cell_a, cell_b, cell_c = self.cell_abc
         nfreq = self.nfreq
         seg = Segment.empty(nfreq, (r1 - r0, s1 - s0))
-        for pa in range(m_a):
-            # this phase's rays in the rectangle: I = i m_a + pa, J = j m_b + pb
-            i_lo, i_hi = -((pa - i_first) // m_a), (i_last - pa) // m_a
-            n_i = i_hi - i_lo + 1
-            if n_i <= 0:
-                continue
-            for pb in range(m_b):
-                j_lo, j_hi = -((pb - j_first) // m_b), (j_last - pb) // m_b
-                n_j = j_hi - j_lo + 1
-                if n_j <= 0:
-                    continue
-                segs = kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell_a, cell_b,
-                                              cell_c, self.abs_lc, lo_t[2], hi_t[2], self.forward, self.max_seg)
-                part = Segment.empty(nfreq, (1, n_i * n_j))
-                kernels.trace_sheared(*arrs, lo_t, hi_t, off_t, lo_t[2], self.forward, i_lo, n_i, j_lo, n_j,
-                                      *segs, *self.tables.args(), part.intensity, part.tau, part.em, ratio_t)
-                r = i_lo * m_a + pa - i_first
-                q = j_lo * m_b + pb - j_first
-                sl = (slice(r, r + (n_i - 1) * m_a + 1, m_a), slice(q, q + (n_j - 1) * m_b + 1, m_b))
-                seg.intensity[(slice(None),) + sl] = part.intensity.reshape(nfreq, n_i, n_j)
-                seg.tau[(slice(None),) + sl] = part.tau.reshape(nfreq, n_i, n_j)
-                seg.em[sl] = part.em.reshape(n_i, n_j)
+        for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(self.m, i_first, i_last, j_first, j_last):
+            segs = kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell_a, cell_b,
+                                          cell_c, self.abs_lc, lo_t[2], hi_t[2], self.forward, self.max_seg)
+            part = Segment.empty(nfreq, (1, n_i * n_j))
+            kernels.trace_sheared(*arrs, lo_t, hi_t, off_t, lo_t[2], self.forward, i_lo, n_i, j_lo, n_j,
+                                  *segs, *self.tables.args(), part.intensity, part.tau, part.em, ratio_t)
+            seg.intensity[:, rows, cols] = part.intensity.reshape(nfreq, n_i, n_j)
+            seg.tau[:, rows, cols] = part.tau.reshape(nfreq, n_i, n_j)
+            seg.em[rows, cols] = part.em.reshape(n_i, n_j)
         return Patch((r0, s0), seg)
 
     def finish(self, patch, bg):
         """Remap every ray's tube onto the pixels: ``(image Segment, rays per pixel)``."""
         ny, nx = self.image_shape
-        planes = np.zeros((2 * self.nfreq + 1, ny, nx))
         if self.ray_shape == (0, 0):
-            return _planes_to_segment(planes, bg), 0.0
+            return _planes_to_segment(np.zeros((2 * self.nfreq + 1, ny, nx)), bg), 0.0
         seg = _full_segment(patch, self.nfreq, self.ray_shape)
-        big_i = (self.ia[0] + np.arange(self.ray_shape[0]))[:, None]
-        big_j = (self.ib[0] + np.arange(self.ray_shape[1]))[None, :]
-        e1, e2, p0 = self.e1, self.e2, self.p0
-        cols = (p0[0] + big_i * e1[0] + big_j * e2[0]).ravel()
-        rows = (p0[1] + big_i * e1[1] + big_j * e2[1]).ravel()
-        flat = Segment(seg.intensity.reshape(self.nfreq, -1), seg.tau.reshape(self.nfreq, -1), seg.em.ravel())
-        _splat(flat, bg, cols, rows, e1, e2, planes)
+        delta = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)       # I_seg + I_bg e^{-tau} - I_bg
+        planes = remap_rays(self, np.concatenate([delta, seg.tau, seg.em[None]]))
         return _planes_to_segment(planes, bg), self.ray_count / (nx * ny)
 
 
