@@ -3,8 +3,9 @@
 ``python -m rtrace.warmup`` (run by ``make`` when it installs the package)
 traces a tiny invented grid along every route a job takes with the
 package's default field type (float32): lines of sight along each grid
-axis, an oblique view in and out of the grid's memory order, one
-frequency and several. numba stores the machine code in the package's
+axis, an oblique view in and out of the grid's memory order (with and
+without a ``tolerance``, so the exact-projection split and its block
+refinement too), one frequency and several. numba stores the machine code in the package's
 ``__pycache__``; runs after it load that in milliseconds instead of
 compiling for tens of seconds. Kernels used only by other work
 (photoionization by sources, tabulated ionization rates, tau = 1 depths,
@@ -29,6 +30,9 @@ __all__ = ["warm_up", "main"]
 # of the arrays), and oblique with the rays closest to the last axis (contiguous) and to the
 # first axis (transposed).
 _DIRECTIONS = ((0, 0, 1), (0, 1, 0), (1, 0, 0), (0, 0.6, 0.8), (0.8, 0.6, 0))
+# Oblique views are traced again with these tolerances: the default one (the split route) and a tight
+# one, at which the warm-up grid's sharp edge makes the split refine blocks (its refinement kernel).
+_TOLERANCES = (1e-2, 1e-4)
 
 
 def _grid(n=12):
@@ -64,8 +68,14 @@ def warm_up(say=None):
         for los in _DIRECTIONS:
             north = (1, 0, 0) if abs(los[0]) < 0.5 else (0, 0, 1)
             view = View(los=los, north=north, npix=8, width=0.15 * u.pc, distance=1 * u.kpc)
+            oblique = max(abs(c) for c in los) < 1.0
             for nu in (several, one):
                 trace(snap, view, nu, background="cmb")
+                if oblique:
+                    # the split route (exact cell projection plus the lattice remainder) at the accuracy a
+                    # default trace asks for, and at one tight enough that blocks are refined
+                    for tolerance in _TOLERANCES:
+                        trace(snap, view, nu, background="cmb", tolerance=tolerance)
     return seen
 
 

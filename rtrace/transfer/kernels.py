@@ -43,6 +43,7 @@ import numpy as np
 from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
+from .tasks import any_layout, run_tasks
 
 __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
@@ -122,7 +123,7 @@ def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pr
     return alpha_pref[f] * stim * g, source
 
 
-@numba.njit(cache=True, error_model="numpy", inline="always")
+@numba.njit(cache=True, error_model="numpy")
 def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap,
                        src):
     """Fill ``kap[f] = alpha_nu`` (cm-1, R&L 5.18b with ``n_e n_i = nn``) and ``src[f] = B_nu(T)``.
@@ -193,24 +194,23 @@ def _cross(kap, src, ds, acc_i, acc_t):
             acc_t[f] += dtau
 
 
-@numba.njit(cache=True, error_model="numpy")
 def _thin_bound(gtab, hk, alpha_pref):
     """``max_f A nu_f^-3 (h nu_f / k) max_T g_f(T)``: a cell has ``dtau_nu <= n_e n_i ds T^-3/2`` times this.
 
     ``1 - e^{-u} <= u`` for ``u >= 0`` (and so is its series below SERIES_LIMIT), so a cell whose bound is
     below SERIES_LIMIT is thin at every frequency (R&L 5.18b).
     """
-    out = 0.0
-    for f in range(hk.shape[0]):
-        gmax = 0.0
-        for z in range(gtab.shape[0]):
-            for i in range(gtab.shape[2]):
-                gmax = max(gmax, gtab[z, f, i])
-        out = max(out, alpha_pref[f] * hk[f] * gmax)
-    return out
+    gmax = np.maximum(gtab.max(axis=(0, 2)), 0.0)
+    return max(0.0, float(np.max(alpha_pref * hk * gmax)))
 
 
-@numba.njit(cache=True, error_model="numpy", parallel=True)
+def _frequency_constants(gtab, hk, alpha_pref, b_pref):
+    """What the multi-frequency kernels share: ``gtab`` transposed to ``(2, n_T, nfreq)``, ``max h nu / k``,
+    :func:`_thin_bound` and the ``(4, nfreq)`` rows ``h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2``."""
+    fconst = np.ascontiguousarray(np.stack([hk, alpha_pref, b_pref[0], b_pref[1]]), float)
+    return np.ascontiguousarray(gtab.transpose(0, 2, 1)), float(hk.max()), _thin_bound(gtab, hk, alpha_pref), fconst
+
+
 def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
                           out_i, out_tau, out_em):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
@@ -225,16 +225,21 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     and without He III takes one branch-free loop over the frequencies, and any
     other the exact forms (:func:`_coefficients_at`, :func:`_cross`).
     """
-    na, nb, nl = ne.shape
+    gtab_t, hk_max, bound, fconst = _frequency_constants(gtab, hk, alpha_pref, b_pref)
+    run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
+              float(inv_dlog_t), gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, fconst, bound, bool(em_ions), out_i,
+              out_tau, out_em)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _last_axis_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref,
+                      b_pref, fconst, bound, em_ions, out_i, out_tau, out_em):
+    """Planes ``lo <= a < hi`` of :func:`trace_along_last_axis` (one task of :func:`run_tasks`)."""
+    nb, nl = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    hk_max = hk.max()
     n_t = gtab.shape[2]
     top = n_t - 1.0
-    bound = _thin_bound(gtab, hk, alpha_pref)
-    fconst = np.empty((4, nf))          # h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2
-    fconst[0], fconst[1], fconst[2], fconst[3] = hk, alpha_pref, b_pref[0], b_pref[1]
-    for a in prange(na):
+    for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.empty((2, nf))             # the ray's I and tau
         acc_i, acc_t = acc[0], acc[1]
@@ -309,7 +314,6 @@ def _log_from_bits(bits, mant):
 _RAYS = 4           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
 
 
-@numba.njit(cache=True, error_model="numpy", parallel=True)
 def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                                   em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
@@ -329,12 +333,20 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
     which moves the Gaunt-table position and so the results by up to ~5e-8 relative for float32
     fields.
     """
-    na, nb, nl = ne.shape
+    run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
+              float(inv_dlog_t), gtab, hk, alpha_pref, b_pref, np.ascontiguousarray(gtab[0, 0]), bool(em_ions), out_i,
+              out_tau, out_em)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _one_frequency_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, row,
+                          em_ions, out_i, out_tau, out_em):
+    """Planes ``lo <= a < hi`` of :func:`one_frequency_along_last_axis` (one task of :func:`run_tasks`)."""
+    nb, nl = ne.shape[1], ne.shape[2]
     n_t = gtab.shape[2]
-    row = np.ascontiguousarray(gtab[0, 0])
     hk0, ap0, bp0, brj0 = hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0]
     top = n_t - 1.0
-    for a in prange(na):
+    for a in range(lo, hi):
         xpos = np.empty(nl)
         gau = np.empty(nl)
         keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau}), dtau, EM weight
@@ -437,7 +449,6 @@ def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab
     return i_acc, t_acc
 
 
-@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                             em_ions, out_i, out_tau, out_em):
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
@@ -449,16 +460,23 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     regime and without He III, else the exact forms. Outputs are
     ``(nfreq, A, C)`` and ``(A, C)``; they must be zero on entry.
     """
-    na, nl, nc = ne.shape
+    gtab_t, hk_max, bound, fconst = _frequency_constants(gtab, hk, alpha_pref, b_pref)
+    # the contiguous arrays and the transposed views are compiled apart: the any-layout code ('A') for
+    # contiguous arrays costs ~1.5x in run time (measured), and a specialisation of this kernel compiles in ~1 s
+    run_tasks(_middle_axis_rows, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
+              float(inv_dlog_t), gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, fconst, bound, bool(em_ions), out_i,
+              out_tau, out_em)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _middle_axis_rows(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref,
+                      b_pref, fconst, bound, em_ions, out_i, out_tau, out_em):
+    """Rows ``lo <= a < hi`` of :func:`trace_along_middle_axis` (one task of :func:`run_tasks`)."""
+    nl, nc = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    hk_max = hk.max()
     n_t = gtab.shape[2]
     top = n_t - 1.0
-    bound = _thin_bound(gtab, hk, alpha_pref)
-    fconst = np.empty((4, nf))          # h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2
-    fconst[0], fconst[1], fconst[2], fconst[3] = hk, alpha_pref, b_pref[0], b_pref[1]
-    for a in prange(na):
+    for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.zeros((nc, 2, nf))         # this row's rays: I and tau, frequencies contiguous
         xpos = np.empty(nc)
@@ -572,6 +590,7 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
     return count, da, db, ds
 
 
+@any_layout
 @numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
                   seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em,
@@ -755,7 +774,6 @@ def _segment_spread(seg_da, seg_db, s, n):
     return a_min, a_max, b_min, b_max
 
 
-@numba.njit(cache=True, error_model="numpy", parallel=True)
 def emitting_blocks(nn_cells):
     """Which blocks of ``2**BLOCK_SHIFT`` cells per axis hold a cell with ``n_e n_i > 0`` (uint8, 1 = some).
 
@@ -767,11 +785,19 @@ def emitting_blocks(nn_cells):
     w = 1 << BLOCK_SHIFT
     out = np.zeros(((na + w - 1) >> BLOCK_SHIFT, (nb + w - 1) >> BLOCK_SHIFT, (nc + w - 1) >> BLOCK_SHIFT),
                    np.uint8)
-    for bx in prange(out.shape[0]):
+    run_tasks(_mark_blocks, out.shape[0], nn_cells, out)
+    return out
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _mark_blocks(lo, hi, nn_cells, out):
+    """Slabs ``lo <= bx < hi`` of :func:`emitting_blocks` (one task of :func:`run_tasks`)."""
+    na, nb, nc = nn_cells.shape
+    w = 1 << BLOCK_SHIFT
+    for bx in range(lo, hi):
         for x in range(bx * w, min(na, (bx + 1) * w)):
             for y in range(nb):
                 by = y >> BLOCK_SHIFT
                 for z in range(nc):
                     if nn_cells[x, y, z] > 0:
                         out[bx, by, z >> BLOCK_SHIFT] = 1
-    return out

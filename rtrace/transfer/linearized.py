@@ -37,12 +37,14 @@ from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
 from .kernels import BLOCK_SHIFT, _cell_coefficients, _share_from_ratio
+from .tasks import any_layout
 
 # Rays thicker than this carry the transmission to the observer as exp(tau behind - tau), not as a
 # running product started from e^{-tau} (which underflows near 745).
 _DIRECT_TAU = 500.0
 
 
+@any_layout
 @numba.njit(cache=True, parallel=True)
 def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, alpha, source,
                            ratio=None):
@@ -92,6 +94,7 @@ def _row_stride(count, seg_da):
     return span + 1
 
 
+@any_layout
 @numba.njit(cache=True, parallel=True)
 def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                      ray_i, ray_tau, bg, weight, out_w):
@@ -161,6 +164,7 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
                             out_w[a, b, k, f] += weight * ds * kap * (src - i_out) * front[f]
 
 
+@any_layout
 @numba.njit(cache=True, parallel=True)
 def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
     """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase (``w_cells`` (A, B, C, nf))."""
@@ -189,6 +193,7 @@ def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_
                 out_linear[f, r] = acc[f]
 
 
+@any_layout
 @numba.njit(cache=True, parallel=True)
 def remainder_trace(alpha, source, w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
                     seg_ds, bg, out_rem):

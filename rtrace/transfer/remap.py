@@ -40,7 +40,7 @@ def _clip(xs, ys, n, out_x, out_y, axis, bound, keep_greater):
     return m
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True)
 def _add_tube(c0, r0, e1, e2, half_c, half_r, aligned, values, r, out, ax, ay, bx, by):
     """Add tube ``r`` (centre ``(c0, r0)``) to the pixels it overlaps."""
     nq, ny, nx = out.shape
