@@ -72,7 +72,36 @@ def test_warm_up_covers_the_routes_of_a_default_trace():
             for nu in ([2.0, 20.0] * u.GHz, [8.0] * u.GHz):
                 res = rtrace.trace(snap, view, nu, background="cmb")
                 assert np.all(np.isfinite(res.intensity))
+                if view.los_axis() is None:
+                    # the split route at the default accuracy and with refined blocks
+                    for tolerance in (1e-2, 1e-4):
+                        res = rtrace.trace(snap, view, nu, background="cmb", tolerance=tolerance)
+                        assert np.all(np.isfinite(res.intensity))
     assert seen.count == 0, said
+
+
+def test_warm_up_reaches_the_split_route_and_its_refinement():
+    # the kernels that only the split route and its block refinement use have been compiled (numba's
+    # dispatcher lists a signature once it has one, compiled or loaded from the cache)
+    from rtrace.transfer import footprint_kernels, linearized
+    warm_up()
+    for kernel in (linearized.cell_coefficient_grids, linearized.sensitivity_pass, linearized.remainder_pass,
+                   linearized.remainder_trace, footprint_kernels.project):
+        dispatcher = getattr(kernel, "dispatcher", kernel)
+        assert dispatcher.signatures, dispatcher.py_func.__name__
+
+
+def test_transposed_views_share_the_compiled_oblique_kernels():
+    # an oblique view whose rays run closest to the first grid axis reads transposed views of the fields;
+    # they go through the same any-layout specialisation as the contiguous arrays (one per dtype set)
+    from rtrace.transfer import kernels, linearized
+    warm_up()
+    for kernel in (kernels.trace_sheared, linearized.cell_coefficient_grids, linearized.sensitivity_pass):
+        sigs = kernel.dispatcher.signatures
+        float32_fields = [s for s in sigs if getattr(s[0], "dtype", None) == numba.float32
+                          or getattr(s[1], "dtype", None) == numba.float32]
+        assert all(a.layout == "A" for s in sigs for a in s if isinstance(a, numba.types.Array)), sigs
+        assert len(float32_fields) <= 2, sigs     # at most with and without the He III ratio
 
 
 def test_pipeline_says_when_it_compiles(tmp_path, monkeypatch):

@@ -174,7 +174,7 @@ def exact_kernel(dx, dy, g, lscale, work):
     return lscale * total
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True)
 def kernel_table(xs, ys, g, lscale, out):
     """``out[j, i] = K(xs[i], ys[j])``, exact (:func:`exact_kernel`)."""
     for j in prange(ys.shape[0]):

@@ -30,6 +30,7 @@ from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 
 import numba
+import numpy as np
 
 __all__ = ["any_layout", "entry_point", "run_tasks"]
 
@@ -57,12 +58,32 @@ def _relaxed(ty):
     return ty
 
 
+def _fingerprint(a):
+    """What numba's type of ``a`` depends on, cheaply (array layout aside)."""
+    if isinstance(a, np.ndarray):
+        return (a.dtype.str, a.ndim, a.flags.writeable, a.flags.aligned)
+    return type(a)
+
+
+_entries = {}       # (kernel, relax_layout, fingerprints) -> compiled function, for relaxed layouts
+
+
 def entry_point(kernel, args, relax_layout=False):
     """The compiled function of numba dispatcher ``kernel`` for ``args`` (compiled, or loaded from cache, if new).
 
     With ``relax_layout`` the arrays of ``args`` are typed ``'A'`` (see the
     module docstring); the returned function accepts any layout then.
     """
+    if relax_layout:
+        key = (id(kernel), tuple(_fingerprint(a) for a in args))
+        fn = _entries.get(key)
+        if fn is None:
+            fn = _entries[key] = _entry_point(kernel, args, relax_layout)
+        return fn
+    return _entry_point(kernel, args, relax_layout)
+
+
+def _entry_point(kernel, args, relax_layout):
     types = tuple(numba.typeof(a) for a in args)
     if relax_layout:
         types = tuple(_relaxed(t) for t in types)
