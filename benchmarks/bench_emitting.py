@@ -13,8 +13,13 @@ within each round:
 * rtrace axis-aligned 1 frequency, 8 frequencies (target <= 2.5x of one) and
   oblique at supersample=1 (target <= 2x of axis)
 
-Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5]`` from the
-repository root (without ``PYTHONPATH=.`` a script imports the installed rtrace, not this copy).
+* with ``--compile``: first-use compile time, the warm-up (``python -m rtrace.warmup``) run in a
+  fresh process with an empty numba cache (``NUMBA_CACHE_DIR`` a new temporary folder): kernels
+  compiled and seconds, as the warm-up reports them (target for the demo's kernels <= 15 s)
+
+Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5] [--compile]``
+from the repository root (without ``PYTHONPATH=.`` a script imports the installed rtrace, not this
+copy).
 
 Measured (issue 14, item 3), 256^3, on the 2-core machine shared with three other jobs (load 3-4,
 so absolute times vary 2-7x between runs; compare ratios within one run):
@@ -57,9 +62,50 @@ axis1/numpy 0.017 (target <= 0.10, met), axis1/stream 10.2-10.5 (<= 6, not met),
 2.84-3.38, median 2.87 (<= 2.5, not met), oblique/axis1 4.06-4.66, median 4.17 (<= 2, not met).
 Cold-cache warm-up (9 kernels): 57.9 s (was 34-45 s idle before the He III rows and the
 vectorised loops; target <= 15 s, not met).
+
+Compile time (issue 14, item 4), per kernel specialisation, seconds of numba compilation with an
+empty cache (numba's "numba:compile" event, outermost compilations), the warm-up's routes plus
+oblique traces at tolerance 1e-2 (the split route, the default since d728b3a), one process each,
+back to back at load 3.4-4 on the 2-core machine (so about twice the idle figures):
+
+===================================  ===========================  ===========================
+kernel                               before (d728b3a)             after (this branch)
+===================================  ===========================  ===========================
+along the last axis, 8 frequencies   11.9 (parfor)                1.8 (threads, run_tasks)
+along the last axis, 1 frequency     5.1                          1.8
+along the middle axis, C + 'A'       6.6 + 6.5                    1.8 + 1.8
+emitting_blocks                      1.4                          0.15
+layer_segments                       0.9                          1.0
+trace_sheared, C + 'A'               10.8 + 10.8                  15.3 (one 'A', any_layout)
+remap_parallelograms                 5.4                          3.4 (_add_tube not inlined)
+cell_coefficient_grids, C + 'A'      4.1 + 2.9                    3.8 (any_layout)
+sensitivity_pass (two layouts)       1.7 + 2.0                    2.0
+remainder_pass (two layouts)         1.1 + 1.1                    1.2
+remainder_trace (block refinement)   not in the warm-up           1.4
+kernel_table (with exact_kernel)     5.4                          3.5 (no parfor)
+project, _exact_many                 3.7, 0.3                     3.7, 0.3
+total                                81.7 (19 compilations)       42.9 (16)
+===================================  ===========================  ===========================
+
+The axis kernels lost most: numba's ``parallel=True`` typed each loop body twice, ran its parfor
+passes and built a gufunc, 5-6x the cost of the body alone; they now run as ``nogil`` kernels on
+threads (run time unchanged: axis 1 frequency 0.204 s after / 0.248 s before, 8 frequencies 0.646 /
+0.634, oblique 0.873 / 0.893, medians of 5 rounds of this script in one session at load 4-5; the
+middle-axis kernel on one thread, 192^3, 0.105 / 0.102 s). ``trace_sheared`` keeps its parfor: its
+body compiled as a plain function ran 4x slower (0.86 s against 0.21 s, 192^3, one thread; cause not
+found), so it is compiled once for both memory orders instead. The demo uses the last-axis kernel
+and the split route's kernels (its gas has no He III): about 37 s of the 43 s above, so the
+<= 15 s target is not met; trace_sheared (15 s) and the split route's parfor kernels (project,
+cell_coefficient_grids, sensitivity_pass, remap: 13 s) are what is left. ``python -m rtrace.warmup``
+with an empty cache: 15 kernels in 41.3 s (44.3 s for the process, load 2-3.5); 2.5 s once cached.
 """
 
 import argparse
+import os
+import re
+import subprocess
+import sys
+import tempfile
 import time
 
 import astropy.units as u
@@ -112,6 +158,20 @@ def stream_pass(ne, t, out):
             out[a, b] = acc
 
 
+def cold_compile():
+    """The warm-up in a fresh process with an empty numba cache: ``(kernels compiled, seconds, process wall s)``."""
+    with tempfile.TemporaryDirectory() as cache:
+        env = dict(os.environ, NUMBA_CACHE_DIR=cache)
+        t0 = time.perf_counter()
+        out = subprocess.run([sys.executable, "-m", "rtrace.warmup"], env=env, capture_output=True, text=True,
+                             check=True).stdout
+        wall = time.perf_counter() - t0
+    found = re.search(r"(\d+) compiled in ([\d.]+) s", out)
+    if found is None:
+        raise RuntimeError(f"the warm-up compiled nothing with an empty cache:\n{out}")
+    return int(found.group(1)), float(found.group(2)), wall
+
+
 def summary(values):
     v = np.asarray(values)
     return f"{v.min():8.3f} / {np.median(v):8.3f} / {v.max():8.3f}"
@@ -121,7 +181,12 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cells", type=int, default=256)
     parser.add_argument("--rounds", type=int, default=5)
+    parser.add_argument("--compile", action="store_true", help="also time the warm-up with an empty numba cache")
     args = parser.parse_args()
+    if args.compile:
+        count, seconds, wall = cold_compile()
+        print(f"first use, empty numba cache: the warm-up compiled {count} kernels in {seconds:.1f} s "
+              f"({wall:.1f} s for the whole process; target for the demo's kernels <= 15 s)", flush=True)
     n = args.cells
     cell = 1.0e-3 * u.pc
     ne = smooth_field(n, 5.0, 205.0, 1)

@@ -33,6 +33,14 @@ no loop holding a division vectorises. Inside a loop meant to vectorise, a
 table read at a per-cell index (a gather) keeps the whole loop scalar, so the
 single-frequency kernel reads the Gaunt table in a loop of its own.
 
+The axis kernels and :func:`emitting_blocks` are Python functions that run a
+``nogil`` numba worker over ranges of planes on threads
+(:func:`rtrace.transfer.tasks.run_tasks`), not ``prange`` loops: numba's
+``parallel=True`` cost them 5-6x their compile time. :func:`trace_sheared`
+keeps its ``prange`` (compiled as a plain function its body ran 4x slower) and
+is called through :func:`rtrace.transfer.tasks.any_layout`, so the contiguous
+arrays and the transposed views of an oblique view share one compiled kernel.
+
 Kernels trust their inputs: the Python layer validates them.
 """
 
