@@ -94,10 +94,15 @@ threads (run time unchanged: axis 1 frequency 0.204 s after / 0.248 s before, 8 
 middle-axis kernel on one thread, 192^3, 0.105 / 0.102 s). ``trace_sheared`` keeps its parfor: its
 body compiled as a plain function ran 4x slower (0.86 s against 0.21 s, 192^3, one thread; cause not
 found), so it is compiled once for both memory orders instead. The demo uses the last-axis kernel
-and the split route's kernels (its gas has no He III): about 37 s of the 43 s above, so the
+and the split route's kernels (its gas has no He III): about 37 s of the 43 s above (about 35 s at
+the load of the warm-up runs below), so the
 <= 15 s target is not met; trace_sheared (15 s) and the split route's parfor kernels (project,
-cell_coefficient_grids, sensitivity_pass, remap: 13 s) are what is left. ``python -m rtrace.warmup``
-with an empty cache: 15 kernels in 41.3 s (44.3 s for the process, load 2-3.5); 2.5 s once cached.
+cell_coefficient_grids, sensitivity_pass, remap: 13 s) are what is left.
+
+``python -m rtrace.warmup`` with an empty cache (what ``--compile`` runs), two alternating runs each,
+load 1.6-3.6: before (d728b3a, whose warm-up reaches the split route through the default tolerance
+but not its block refinement) 18 kernels in 81.1 s and 78.7 s; after, 15 kernels in 39.9 s and
+41.3 s (43-44 s for the process); 2.5 s once cached.
 """
 
 import argparse

@@ -5,12 +5,14 @@ traces a tiny invented grid along every route a job takes with the
 package's default field type (float32): lines of sight along each grid
 axis, an oblique view in and out of the grid's memory order (with and
 without a ``tolerance``, so the exact-projection split and its block
-refinement too), one frequency and several. numba stores the machine code in the package's
-``__pycache__``; runs after it load that in milliseconds instead of
-compiling for tens of seconds. Kernels used only by other work
-(photoionization by sources, tabulated ionization rates, tau = 1 depths,
-CLEAN) still compile on their first use, and so does a snapshot made with
-``dtype=np.float64``; a run says so when it happens.
+refinement too), one frequency and several. numba stores the machine code
+in the package's ``__pycache__``; runs after it load that in a second or
+two instead of compiling for tens of seconds. Kernels used only by other
+work (photoionization by sources, tabulated ionization rates, tau = 1
+depths, CLEAN) still compile on their first use, and so do a snapshot made
+with ``dtype=np.float64`` and, in oblique views, gas with He III (the ion
+term above ``n_e``: the oblique kernels then read one more field); a run
+says so when it happens.
 
 numba keys its cache on each source file's modification time: after
 editing a kernel module, run the warm-up again (or let the first run

@@ -65,7 +65,7 @@ def _fingerprint(a):
     return type(a)
 
 
-_entries = {}       # (kernel, relax_layout, fingerprints) -> compiled function, for relaxed layouts
+_entries = {}       # (id of the dispatcher, argument fingerprints) -> compiled any-layout function
 
 
 def entry_point(kernel, args, relax_layout=False):
@@ -124,6 +124,9 @@ def run_tasks(kernel, n, *args, relax_layout=False):
     futures = [_executor().submit(runner) for _ in range(threads - 1)]
     try:
         runner()
+    except BaseException:
+        queue.clear()               # the other threads stop after their current chunk
+        raise
     finally:
         for f in futures:
             f.result()
