@@ -38,45 +38,78 @@ from numba import prange
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
 from .kernels import BLOCK_SHIFT, _cell_coefficients, _share_from_ratio
 
+BLOCK_MASK = (1 << BLOCK_SHIFT) - 1
+
 # Rays thicker than this carry the transmission to the observer as exp(tau behind - tau), not as a
 # running product started from e^{-tau} (which underflows near 745).
 _DIRECT_TAU = 500.0
 
 
-@numba.njit(cache=True, parallel=True)
-def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, alpha, source,
-                           ratio=None):
-    """Fill ``alpha[a, b, c, :]`` (cm-1) and ``source[a, b, c, :]`` (``B_nu(T)``, cgs) for every cell.
+def block_slots(blocks):
+    """Slots of the emitting blocks: ``(slots, where)``.
 
-    ``nn_cells`` is ``n_e x ion term`` and ``temp`` the temperature, both
-    ``(A, B, C)`` (any strides); cells with ``nn = 0`` get ``alpha = 0`` (and
-    their ``source`` is left as it was: it is never read where alpha is 0).
-    Frequencies are the last (contiguous) axis. Same coefficients as the
-    tracer's kernels (:func:`kernels._cell_coefficients`), with the He III
-    share of the ion term from ``ratio`` (``n_e / ion term``, same layout, or
-    None where the two are equal: :func:`rtrace.transfer.tracer.emission_ratio`);
-    ``em_ions`` is unused here (the arguments are the tracer's ``FrequencyTables.args()``).
+    ``slots`` (same shape as ``blocks``, int64) holds each emitting block's
+    index in the compact per-cell arrays and -1 for blocks with no emitting
+    gas; ``where`` ``(nblock, 3)`` the block indices of the slots, in C order.
+    """
+    where = np.argwhere(blocks != 0).astype(np.int64)
+    slots = np.full(blocks.shape, -1, np.int64)
+    slots[tuple(where.T)] = np.arange(where.shape[0])
+    return slots, where
+
+
+@numba.njit(cache=True, parallel=True)
+def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, where, alpha,
+                           source, em, ratio=None, em_ratio=False):
+    """Fill the compact per-cell arrays of the emitting blocks ``where`` (:func:`block_slots`).
+
+    ``alpha[s, i, j, k, :]`` (cm-1) and ``source[s, i, j, k, :]`` (``B_nu(T)``,
+    cgs) of cell ``where[s] * W + (i, j, k)`` (``W = alpha.shape[1]`` cells
+    per block side); ``em[s, i, j, k]`` the emission-measure weight
+    (``n_e x ion term``, times ``ratio`` where ``em_ratio``). ``nn_cells`` is
+    ``n_e x ion term`` and ``temp`` the temperature, both ``(A, B, C)`` (any
+    strides). The arrays must come zeroed: cells with ``nn = 0`` and cells
+    beyond the grid are left alone (alpha 0: never read as gas). Frequencies
+    are the last (contiguous) axis. Same coefficients as the tracer's
+    kernels (:func:`kernels._cell_coefficients`), with the He III share of
+    the ion term from ``ratio`` (``n_e / ion term``, same layout, or None
+    where the two are equal: :func:`rtrace.transfer.tracer.emission_ratio`);
+    ``em_ions`` is unused here (the arguments are the tracer's
+    ``FrequencyTables.args()``).
     """
     na, nb, nc = nn_cells.shape
+    nw = alpha.shape[1]
     nf = hk.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
-    for a in prange(na):
+    for s in prange(where.shape[0]):
         kap = np.empty(nf)
         src = np.empty(nf)
-        for b in range(nb):
-            for c in range(nc):
-                nn = float(nn_cells[a, b, c])
-                if nn > 0.0:
-                    share = 0.0 if ratio is None else _share_from_ratio(float(ratio[a, b, c]))
-                    _cell_coefficients(nn, share, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
-                                       hk_max, alpha_pref, b_pref, kap, src)
-                    for f in range(nf):
-                        alpha[a, b, c, f] = kap[f]
-                        source[a, b, c, f] = src[f]
-                else:
-                    for f in range(nf):
-                        alpha[a, b, c, f] = 0.0
+        for i in range(nw):
+            a = where[s, 0] * nw + i
+            if a >= na:
+                break
+            for j in range(nw):
+                b = where[s, 1] * nw + j
+                if b >= nb:
+                    break
+                for k in range(nw):
+                    c = where[s, 2] * nw + k
+                    if c >= nc:
+                        break
+                    nn = float(nn_cells[a, b, c])
+                    if nn > 0.0:
+                        share = 0.0 if ratio is None else _share_from_ratio(float(ratio[a, b, c]))
+                        _cell_coefficients(nn, share, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
+                                           hk_max, alpha_pref, b_pref, kap, src)
+                        for f in range(nf):
+                            alpha[s, i, j, k, f] = kap[f]
+                            source[s, i, j, k, f] = src[f]
+                        weight = nn
+                        if ratio is not None:
+                            if em_ratio:
+                                weight = nn * float(ratio[a, b, c])
+                        em[s, i, j, k] = weight
 
 
 @numba.njit(cache=True, inline="always")
@@ -93,11 +126,12 @@ def _row_stride(count, seg_da):
 
 
 @numba.njit(cache=True, parallel=True)
-def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                      ray_i, ray_tau, bg, weight, out_w):
     """Add, for every ray of the phase and cell it crosses, ``weight * ds * dI/dL_c`` to ``out_w[cell]``.
 
-    ``alpha``, ``source``, ``out_w``: ``(A, B, C, nfreq)``. ``ray_i``/``ray_tau``
+    ``alpha``, ``source``, ``out_w``: the compact per-cell arrays ``(nblock, W, W, W, nfreq)``
+    of :func:`cell_coefficient_grids`, ``slots`` their blocks (:func:`block_slots`). ``ray_i``/``ray_tau``
     (nfreq, n_i n_j): the ray's emitted intensity (no background) and total
     optical depth from the tracer; ``bg`` (nfreq,) the background intensity
     behind the grid. ``weight`` is the fraction of a cell's volume one unit
@@ -111,7 +145,7 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
     """
     nk = count.shape[0]
     nf = bg.shape[0]
-    na, nb = alpha.shape[0], alpha.shape[1]
+    na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
     stride = _row_stride(count, seg_da)
     for cls in range(stride):
         n_rows = (n_i - cls + stride - 1) // stride
@@ -135,14 +169,16 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
                         b = j0 + q + seg_db[s, g]
                         if a < 0 or b < 0 or a >= na or b >= nb:
                             continue
-                        if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                        slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                        if slot < 0:
                             continue            # a block of cells with no emitting gas
-                        if alpha[a, b, k, 0] == 0.0:
+                        la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
+                        if alpha[slot, la, lb, lk, 0] == 0.0:
                             continue            # no gas (alpha is 0 at every frequency or none)
                         ds = seg_ds[s, g]
                         for f in range(nf):
-                            kap = alpha[a, b, k, f]
-                            src = source[a, b, k, f]
+                            kap = alpha[slot, la, lb, lk, f]
+                            src = source[slot, la, lb, lk, f]
                             dtau = kap * ds
                             if dtau < SERIES_LIMIT:
                                 att = one_minus_exp_series(dtau)      # 1 - e^{-dtau}
@@ -158,15 +194,16 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
                                 behind[f] += dtau
                                 front[f] = math.exp(min(behind[f] - ray_tau[f, r], 0.0))
                             i_out = acc_i[f] + bg[f] * back[f]
-                            out_w[a, b, k, f] += weight * ds * kap * (src - i_out) * front[f]
+                            out_w[slot, la, lb, lk, f] += weight * ds * kap * (src - i_out) * front[f]
 
 
 @numba.njit(cache=True, parallel=True)
-def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
-    """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase (``w_cells`` (A, B, C, nf))."""
+def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
+    """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase
+    (``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`)."""
     nk = count.shape[0]
-    nf = w_cells.shape[3]
-    na, nb = w_cells.shape[0], w_cells.shape[1]
+    nf = w_cells.shape[4]
+    na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
     for p in prange(n_i):
         acc = np.empty(nf)
         for q in range(n_j):
@@ -180,29 +217,31 @@ def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_
                     b = j0 + q + seg_db[s, g]
                     if a < 0 or b < 0 or a >= na or b >= nb:
                         continue
-                    if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                    slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                    if slot < 0:
                         continue
+                    la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
                     ds = seg_ds[s, g]
                     for f in range(nf):
-                        acc[f] += w_cells[a, b, k, f] * ds
+                        acc[f] += w_cells[slot, la, lb, lk, f] * ds
             for f in range(nf):
                 out_linear[f, r] = acc[f]
 
 
 @numba.njit(cache=True, parallel=True)
-def remainder_trace(alpha, source, w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
+def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
                     seg_ds, bg, out_rem):
     """Trace one phase's rays on per-cell coefficients and return their remainders directly.
 
     ``out_rem[f, r] = I + I_bg (e^{-tau} - 1) - sum_c W_c ds`` (the formal
     solution of :func:`kernels._cross`, cell by cell; ``alpha``, ``source``,
-    ``w_cells`` ``(A, B, C, nf)``). For the refined blocks of a split trace,
+    ``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`). For the refined blocks of a split trace,
     where the lattice is dense: the coefficients are read, not recomputed
     per lattice phase.
     """
     nk = count.shape[0]
-    nf = w_cells.shape[3]
-    na, nb = w_cells.shape[0], w_cells.shape[1]
+    nf = w_cells.shape[4]
+    na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
     for p in prange(n_i):
         acc_i = np.empty(nf)
         acc_t = np.empty(nf)
@@ -220,16 +259,18 @@ def remainder_trace(alpha, source, w_cells, blocks, k_lo, forward, i0, n_i, j0, 
                     b = j0 + q + seg_db[s, g]
                     if a < 0 or b < 0 or a >= na or b >= nb:
                         continue
-                    if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                    slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                    if slot < 0:
                         continue
-                    if alpha[a, b, k, 0] == 0.0:
+                    la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
+                    if alpha[slot, la, lb, lk, 0] == 0.0:
                         continue
                     ds = seg_ds[s, g]
                     for f in range(nf):
-                        dtau = alpha[a, b, k, f] * ds
+                        dtau = alpha[slot, la, lb, lk, f] * ds
                         att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
-                        acc_i[f] += att * (source[a, b, k, f] - acc_i[f])
+                        acc_i[f] += att * (source[slot, la, lb, lk, f] - acc_i[f])
                         acc_t[f] += dtau
-                        lin[f] += w_cells[a, b, k, f] * ds
+                        lin[f] += w_cells[slot, la, lb, lk, f] * ds
             for f in range(nf):
                 out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]

@@ -75,14 +75,17 @@ def _layer_segments(route, pa, pb, nk):
 
 
 def cell_sensitivities(route, cells, blocks, seg, bg):
-    """Per-cell quantities of the split, in the route's axis order.
+    """Per-cell quantities of the split, in the route's axis order, stored for the emitting blocks only.
 
-    Returns ``(stack, source)``: ``stack`` ``(A, B, C, 2 nfreq + 1)`` holds
-    ``alpha_nu`` (``[..., :nfreq]``), the mean sensitivity ``W``
-    (``[..., nfreq:2 nfreq]``) and ``n_e x ion term`` (``[..., -1]``), the
-    quantities projected onto the pixels in one pass; ``source`` is
-    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T, ratio)``
-    with ``ratio`` = ``n_e / ion term`` or None where they are equal
+    Returns ``(stack, source, slots, where)``: ``stack`` ``(nblock, W, W, W,
+    2 nfreq + 1)`` holds ``alpha_nu`` (``[..., :nfreq]``), the mean
+    sensitivity ``W`` (``[..., nfreq:2 nfreq]``) and ``n_e x ion term``
+    (``[..., -1]``), the quantities projected onto the pixels in one pass;
+    ``source`` is ``S_nu`` ``(nblock, W, W, W, nfreq)``; block ``s`` holds
+    the ``W^3`` cells from ``where[s] * W`` and ``slots`` maps block indices
+    to ``s`` (-1: no emitting gas; :func:`linearized.block_slots`).
+    ``cells`` = ``(n_e x ion term, T, ratio)`` with ``ratio`` = ``n_e / ion
+    term`` or None where they are equal
     (:func:`rtrace.transfer.tracer.emission_ratio`): the He III share and the
     emission measure's ``n_e^2`` weight (the last plane then holds that weight);
     ``blocks`` (:func:`kernels.emitting_blocks`); all in the route's axis order;
@@ -92,56 +95,61 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     nn_abc, t_abc = cells[:2]
     ratio_abc = cells[2] if len(cells) > 2 else None
     nf = route.nfreq
-    shape = nn_abc.shape
+    slots, where = linearized.block_slots(blocks)
+    nw = 1 << kernels.BLOCK_SHIFT
+    shape = (where.shape[0], nw, nw, nw)
     check_memory(8 * int(np.prod(shape)) * (3 * nf + 1), field="tolerance",
-                 what=f"the per-cell coefficients of {nf} frequencies on {'x'.join(map(str, shape))} cells",
+                 what=f"the per-cell coefficients of {nf} frequencies on {where.shape[0] * nw**3} cells "
+                      f"({where.shape[0]} blocks of {nw}^3 holding emitting gas)",
                  hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies")
     stack = np.zeros(shape + (2 * nf + 1,))
-    source = np.empty(shape + (nf,))
+    source = np.zeros(shape + (nf,))
     alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
-    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), alpha, source, ratio_abc)
-    stack[..., -1] = nn_abc if ratio_abc is None or route.tables.em_ions else nn_abc * ratio_abc
+    em_ratio = ratio_abc is not None and not route.tables.em_ions
+    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), where, alpha, source, stack[..., -1],
+                                      ratio_abc, em_ratio)
     m_a, m_b = route.m
     weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
     i_first, i_last = route.ia
     j_first, j_last = route.ib
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, shape[2])
+        count, da, db, ds = _layer_segments(route, pa, pb, nn_abc.shape[2])
         ray_i = np.ascontiguousarray(seg.intensity[:, rows, cols]).reshape(nf, -1)
         ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
-        linearized.sensitivity_pass(alpha, source, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+        linearized.sensitivity_pass(alpha, source, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
                                     ray_i, ray_t, bg, weight, w)
-    return stack, source
+    return stack, source, slots, where
 
 
-def remainders(route, w, blocks, seg, bg):
+def remainders(route, w, slots, nk, seg, bg):
     """``R - I_bg = I + I_bg (e^-tau - 1) - sum_c W_c L_c`` on every ray of the route (``(nfreq, nI, nJ)``).
 
-    The background is left out (as in the tracer's images) so that pixels
-    no tube covers, off the grid's shadow, read zero.
+    ``w``: the compact sensitivities, ``slots`` their blocks, ``nk`` the
+    grid's depth in cells. The background is left out (as in the tracer's
+    images) so that pixels no tube covers, off the grid's shadow, read zero.
     """
     nf = route.nfreq
     out = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)
     i_first, i_last = route.ia
     j_first, j_last = route.ib
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
+        count, da, db, ds = _layer_segments(route, pa, pb, nk)
         linear = np.zeros((nf, n_i * n_j))
-        linearized.remainder_pass(w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
+        linearized.remainder_pass(w, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
         out[:, rows, cols] -= linear.reshape(nf, n_i, n_j)
     return out
 
 
-def traced_remainders(route, alpha, source, w, blocks, bg):
+def traced_remainders(route, alpha, source, w, slots, nk, bg):
     """:func:`remainders` of a (sub-)route's rays, traced on the per-cell coefficients (no separate trace)."""
     nf = route.nfreq
     out = np.zeros((nf,) + tuple(route.ray_shape))
     i_first, i_last = route.ia
     j_first, j_last = route.ib
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
+        count, da, db, ds = _layer_segments(route, pa, pb, nk)
         rem = np.zeros((nf, n_i * n_j))
-        linearized.remainder_trace(alpha, source, w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+        linearized.remainder_trace(alpha, source, w, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
                                    bg, rem)
         out[:, rows, cols] = rem.reshape(nf, n_i, n_j)
     return out
@@ -274,7 +282,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     the background is left out of the sensitivities and the images are
     divided by it). Returns ``(SplitImages, m, relative estimate, converged)``.
     """
-    from .footprint import Footprint, project_cells
+    from .footprint import Footprint, project_blocks
 
     route = make_route(1)
     m = max(route.m)            # pixels smaller than a cell get more than one ray per cell side
@@ -283,17 +291,16 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     cells_abc = (nn_abc, t_abc, ratio_abc)
     seg = trace_rays(route)
     bg_rays = np.zeros_like(bg) if thin_scale is not None else bg
-    stack, source = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)
+    stack, source, slots, where = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)
+    nk = nn_abc.shape[2]
     nf = route.nfreq
     alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
     ny, nx = route.image_shape
-    zero = np.zeros(3, np.int64)
-    whole = np.asarray(cells_abc[0].shape, np.int64)
     projected = np.zeros((2 * nf + 1, ny, nx))
-    project_cells(Footprint.from_route(route), stack.transpose(3, 0, 1, 2), zero, whole, zero, projected)
+    project_blocks(Footprint.from_route(route), stack, where, projected)
     tau, proj_w, em = projected[:nf], projected[nf:2 * nf], projected[2 * nf:]
     scale = 1.0 if thin_scale is None else 1.0 / thin_scale
-    rem = remainders(route, w, blocks, seg, bg_rays)
+    rem = remainders(route, w, slots, nk, seg, bg_rays)
     lattice = remap_rays(route, rem)
     error = local_bound(route, rem)
     rays = float(route.ray_count)
@@ -310,7 +317,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
             part = sub_route(fine, r0, r1, c0, c1)
             if part.ray_shape == (0, 0):
                 continue
-            rem = traced_remainders(part, alpha, source, w, blocks, bg_rays)
+            rem = traced_remainders(part, alpha, source, w, slots, nk, bg_rays)
             block = remap_rays(part, rem)
             error[:, r0:r1, c0:c1] = ESTIMATE_FACTOR * np.abs(block - lattice[:, r0:r1, c0:c1])
             lattice[:, r0:r1, c0:c1] = block
