@@ -229,48 +229,82 @@ def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_d
 
 
 @numba.njit(cache=True, parallel=True)
-def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
-                    seg_ds, bg, out_rem):
-    """Trace one phase's rays on per-cell coefficients and return their remainders directly.
+def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, count, seg_da, seg_db, seg_ds, bg,
+                    out_rem):
+    """Trace a list of one phase's rays on the per-cell coefficients and return their remainders directly.
 
+    Ray ``r`` enters the grid's columns at cell ``(ray_a[r], ray_b[r])`` of the
+    phase's layer segments (``count``, ``seg_*``: :func:`kernels.layer_segments`);
     ``out_rem[f, r] = I + I_bg (e^{-tau} - 1) - sum_c W_c ds`` (the formal
     solution of :func:`kernels._cross`, cell by cell; ``alpha``, ``source``,
-    ``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`). For the refined blocks of a split trace,
-    where the lattice is dense: the coefficients are read, not recomputed
-    per lattice phase.
+    ``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`).
+    For the refined pixels of a split trace: only the rays whose tubes touch
+    them (:func:`mark_rays`) are traced, and the coefficients are read, not
+    recomputed.
     """
     nk = count.shape[0]
     nf = w_cells.shape[4]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
-    for p in prange(n_i):
+    for r in prange(ray_a.shape[0]):
         acc_i = np.empty(nf)
         acc_t = np.empty(nf)
         lin = np.empty(nf)
-        for q in range(n_j):
-            r = p * n_j + q
-            for f in range(nf):
-                acc_i[f] = 0.0
-                acc_t[f] = 0.0
-                lin[f] = 0.0
-            for s in range(nk):
-                k = k_lo + s if forward else k_lo + nk - 1 - s
-                for g in range(count[s]):
-                    a = i0 + p + seg_da[s, g]
-                    b = j0 + q + seg_db[s, g]
-                    if a < 0 or b < 0 or a >= na or b >= nb:
-                        continue
-                    slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
-                    if slot < 0:
-                        continue
-                    la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
-                    if alpha[slot, la, lb, lk, 0] == 0.0:
-                        continue
-                    ds = seg_ds[s, g]
-                    for f in range(nf):
-                        dtau = alpha[slot, la, lb, lk, f] * ds
-                        att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
-                        acc_i[f] += att * (source[slot, la, lb, lk, f] - acc_i[f])
-                        acc_t[f] += dtau
-                        lin[f] += w_cells[slot, la, lb, lk, f] * ds
-            for f in range(nf):
-                out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]
+        for f in range(nf):
+            acc_i[f] = 0.0
+            acc_t[f] = 0.0
+            lin[f] = 0.0
+        for s in range(nk):
+            k = k_lo + s if forward else k_lo + nk - 1 - s
+            for g in range(count[s]):
+                a = ray_a[r] + seg_da[s, g]
+                b = ray_b[r] + seg_db[s, g]
+                if a < 0 or b < 0 or a >= na or b >= nb:
+                    continue
+                slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                if slot < 0:
+                    continue
+                la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
+                if alpha[slot, la, lb, lk, 0] == 0.0:
+                    continue
+                ds = seg_ds[s, g]
+                for f in range(nf):
+                    dtau = alpha[slot, la, lb, lk, f] * ds
+                    att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
+                    acc_i[f] += att * (source[slot, la, lb, lk, f] - acc_i[f])
+                    acc_t[f] += dtau
+                    lin[f] += w_cells[slot, la, lb, lk, f] * ds
+        for f in range(nf):
+            out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]
+
+
+@numba.njit(cache=True)
+def mark_rays(pix_row, pix_col, p0, e1, e2, inv, i0, j0, mask):
+    """Set ``mask[I - i0, J - j0]`` for every lattice ray whose tube may touch one of the listed pixels.
+
+    Ray ``(I, J)`` sits at ``p0 + I e1 + J e2`` (pixel units, (column, row));
+    its tube (the parallelogram of ``e1``, ``e2`` about it) lies within half
+    ``|e1| + |e2|`` of it on each axis, so a ray is marked when that box
+    overlaps pixel ``(pix_row[n], pix_col[n])``: every ray the pixel's
+    footprint mean needs, and a few more. ``inv`` is the inverse of the
+    matrix with columns ``e1``, ``e2``.
+    """
+    n_i, n_j = mask.shape
+    half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
+    half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
+    for n in range(pix_row.shape[0]):
+        c_lo, c_hi = pix_col[n] - half_c, pix_col[n] + 1.0 + half_c
+        r_lo, r_hi = pix_row[n] - half_r, pix_row[n] + 1.0 + half_r
+        i_min, i_max, j_min, j_max = 1e300, -1e300, 1e300, -1e300
+        for corner in range(4):
+            x = (c_lo if corner & 1 else c_hi) - p0[0]
+            y = (r_lo if corner & 2 else r_hi) - p0[1]
+            ii = inv[0, 0] * x + inv[0, 1] * y
+            jj = inv[1, 0] * x + inv[1, 1] * y
+            i_min, i_max = min(i_min, ii), max(i_max, ii)
+            j_min, j_max = min(j_min, jj), max(j_max, jj)
+        for i in range(max(int(math.floor(i_min)) - i0, 0), min(int(math.ceil(i_max)) - i0 + 1, n_i)):
+            for j in range(max(int(math.floor(j_min)) - j0, 0), min(int(math.ceil(j_max)) - j0 + 1, n_j)):
+                col = p0[0] + (i + i0) * e1[0] + (j + j0) * e2[0]
+                row = p0[1] + (i + i0) * e1[1] + (j + j0) * e2[1]
+                if c_lo < col < c_hi and r_lo < row < r_hi:
+                    mask[i, j] = True

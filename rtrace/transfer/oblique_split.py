@@ -74,6 +74,19 @@ def _layer_segments(route, pa, pb, nk):
                                   route.abs_lc, 0, nk, route.forward, route.max_seg)
 
 
+def split_state_bytes(blocks, nfreq):
+    """Bytes of the split's per-cell state for ``blocks`` (:meth:`Snapshot.emitting_blocks`) and ``nfreq`` frequencies.
+
+    The float64 ``alpha``, sensitivity and source per frequency and the
+    emission-measure weight of every cell of the emitting 8^3 blocks
+    (:func:`cell_sensitivities`); the images and rays come on top, as for
+    any trace. A caller can compare it with :func:`rtrace.memory.available_memory`
+    before choosing the split.
+    """
+    nw = 1 << kernels.BLOCK_SHIFT
+    return 8 * int(np.count_nonzero(blocks)) * nw**3 * (3 * int(nfreq) + 1)
+
+
 def cell_sensitivities(route, cells, blocks, seg, bg):
     """Per-cell quantities of the split, in the route's axis order, stored for the emitting blocks only.
 
@@ -98,7 +111,7 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     slots, where = linearized.block_slots(blocks)
     nw = 1 << kernels.BLOCK_SHIFT
     shape = (where.shape[0], nw, nw, nw)
-    check_memory(8 * int(np.prod(shape)) * (3 * nf + 1), field="tolerance",
+    check_memory(split_state_bytes(blocks, nf), field="tolerance",
                  what=f"the per-cell coefficients of {nf} frequencies on {where.shape[0] * nw**3} cells "
                       f"({where.shape[0]} blocks of {nw}^3 holding emitting gas)",
                  hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies")
@@ -140,19 +153,60 @@ def remainders(route, w, slots, nk, seg, bg):
     return out
 
 
-def traced_remainders(route, alpha, source, w, slots, nk, bg):
-    """:func:`remainders` of a (sub-)route's rays, traced on the per-cell coefficients (no separate trace)."""
+def needed_rays(route, pixels):
+    """Sub-lattice indices ``(I, J)`` (int64 arrays) of the route's rays whose tubes may touch ``pixels``.
+
+    ``pixels`` is a ``(ny, nx)`` bool mask: the rays that a footprint mean
+    over each of those pixels needs (:func:`linearized.mark_rays`).
+    """
+    rows, cols = np.nonzero(pixels)
+    mask = np.zeros(tuple(route.ray_shape), bool)
+    if mask.size and rows.size:
+        e1, e2 = np.asarray(route.e1, float), np.asarray(route.e2, float)
+        inv = np.ascontiguousarray(np.linalg.inv(np.column_stack([e1, e2])))
+        linearized.mark_rays(rows.astype(float), cols.astype(float), np.asarray(route.p0, float), e1, e2, inv,
+                             route.ia[0], route.ib[0], mask)
+    big_i, big_j = np.nonzero(mask)
+    return big_i + route.ia[0], big_j + route.ib[0]
+
+
+def traced_remainders(route, big_i, big_j, alpha, source, w, slots, nk, bg):
+    """:func:`remainders` of the route's rays ``(I, J)`` (``(nfreq, nray)``), traced on the per-cell coefficients.
+
+    One kernel call per lattice phase, whatever the pixels the rays serve.
+    """
     nf = route.nfreq
-    out = np.zeros((nf,) + tuple(route.ray_shape))
-    i_first, i_last = route.ia
-    j_first, j_last = route.ib
-    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, nk)
-        rem = np.zeros((nf, n_i * n_j))
-        linearized.remainder_trace(alpha, source, w, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
-                                   bg, rem)
-        out[:, rows, cols] = rem.reshape(nf, n_i, n_j)
+    out = np.zeros((nf, big_i.size))
+    m_a, m_b = route.m
+    phase = (big_i % m_a) * m_b + big_j % m_b
+    order = np.argsort(phase, kind="stable")
+    bounds = np.searchsorted(phase[order], np.arange(m_a * m_b + 1))
+    for pa in range(m_a):
+        for pb in range(m_b):
+            sel = order[bounds[pa * m_b + pb]:bounds[pa * m_b + pb + 1]]
+            if sel.size == 0:
+                continue
+            count, da, db, ds = _layer_segments(route, pa, pb, nk)
+            rem = np.zeros((nf, sel.size))
+            linearized.remainder_trace(alpha, source, w, slots, 0, route.forward, big_i[sel] // m_a,
+                                       big_j[sel] // m_b, count, da, db, ds, bg, rem)
+            out[:, sel] = rem
     return out
+
+
+def remap_ray_list(route, big_i, big_j, values):
+    """Footprint means over the pixels of ``values`` ``(nq, nray)`` of the rays ``(I, J)`` (tubes clipped exactly).
+
+    Exact only on pixels all of whose rays are listed (:func:`needed_rays`).
+    """
+    ny, nx = route.image_shape
+    planes = np.zeros((values.shape[0], ny, nx))
+    e1, e2, p0 = route.e1, route.e2, route.p0
+    cols = np.ascontiguousarray(p0[0] + big_i * e1[0] + big_j * e2[0], float)
+    rows = np.ascontiguousarray(p0[1] + big_i * e1[1] + big_j * e2[1], float)
+    remap_parallelograms(cols, rows, np.asarray(e1, float), np.asarray(e2, float),
+                         np.ascontiguousarray(values), planes)
+    return planes
 
 
 def remap_rays(route, values):
@@ -197,32 +251,6 @@ def local_bound(route, rem):
     return remap_rays(route, 2.0 * BOUND_FRACTION * big)
 
 
-def sub_route(route, r0, r1, c0, c1):
-    """``route`` restricted to the rays whose tubes can touch pixel rows r0..r1-1, columns c0..c1-1.
-
-    The copy's image is that block of pixels (``p0`` shifted, ``image_shape``
-    the block's), so :func:`remap_rays` gives the block alone.
-    """
-    import copy
-    out = copy.copy(route)
-    e1, e2 = np.asarray(route.e1), np.asarray(route.e2)
-    p0 = np.asarray(route.p0) - np.array([c0, r0], float)
-    inv = np.linalg.inv(np.column_stack([e1, e2]))
-    margin = np.abs(e1) + np.abs(e2)
-    w, h = c1 - c0, r1 - r0
-    corners = np.array([[-margin[0], -margin[1]], [w + margin[0], -margin[1]],
-                        [-margin[0], h + margin[1]], [w + margin[0], h + margin[1]]])
-    ij = (corners - p0) @ inv.T
-    out.ia = (max(route.ia[0], int(np.floor(ij[:, 0].min()))), min(route.ia[1], int(np.ceil(ij[:, 0].max()))))
-    out.ib = (max(route.ib[0], int(np.floor(ij[:, 1].min()))), min(route.ib[1], int(np.ceil(ij[:, 1].max()))))
-    out.ray_shape = (max(out.ia[1] - out.ia[0] + 1, 0), max(out.ib[1] - out.ib[0] + 1, 0))
-    if 0 in out.ray_shape:
-        out.ray_shape = (0, 0)
-    out.p0 = p0
-    out.image_shape = (h, w)
-    return out
-
-
 # Fraction of the local bound taken as the first lattice's error estimate (see local_bound).
 BOUND_FRACTION = 0.25
 # Pixels per side of the blocks refined on their own at 2 rays per cell side; halved with each
@@ -249,12 +277,13 @@ def _failing(error, value, floor, tolerance):
 
 
 def _tiles(mask, tile):
-    """Blocks ``(r0, r1, c0, c1)`` of ``tile`` pixels per side holding at least one True of ``mask``."""
+    """The union (``(ny, nx)`` bool) of the blocks of ``tile`` pixels per side holding at least one True of ``mask``."""
     ny, nx = mask.shape
-    for r0 in range(0, ny, tile):
-        for c0 in range(0, nx, tile):
-            if mask[r0:r0 + tile, c0:c0 + tile].any():
-                yield r0, min(ny, r0 + tile), c0, min(nx, c0 + tile)
+    nby, nbx = -(-ny // tile), -(-nx // tile)
+    padded = np.zeros((nby * tile, nbx * tile), bool)
+    padded[:ny, :nx] = mask
+    hit = padded.reshape(nby, tile, nbx, tile).any(axis=(1, 3))
+    return np.repeat(np.repeat(hit, tile, axis=0), tile, axis=1)[:ny, :nx]
 
 
 def _relative(error, value, floor):
@@ -313,15 +342,14 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     while tolerance is not None and failing.any() and 2 * m <= max_supersample:
         fine = make_route(2 * m)
         m = max(fine.m)
-        for r0, r1, c0, c1 in _tiles(failing, max(MIN_TILE, TILE * 2 // m)):
-            part = sub_route(fine, r0, r1, c0, c1)
-            if part.ray_shape == (0, 0):
-                continue
-            rem = traced_remainders(part, alpha, source, w, slots, nk, bg_rays)
-            block = remap_rays(part, rem)
-            error[:, r0:r1, c0:c1] = ESTIMATE_FACTOR * np.abs(block - lattice[:, r0:r1, c0:c1])
-            lattice[:, r0:r1, c0:c1] = block
-            rays += part.ray_count
+        tiles = _tiles(failing, max(MIN_TILE, TILE * 2 // m))
+        big_i, big_j = needed_rays(fine, tiles)
+        rem = traced_remainders(fine, big_i, big_j, alpha, source, w, slots, nk, bg_rays)
+        block = remap_ray_list(fine, big_i, big_j, rem)
+        error[:, tiles] = ESTIMATE_FACTOR * np.abs(block[:, tiles] - lattice[:, tiles])
+        lattice[:, tiles] = block[:, tiles]
+        rays += big_i.size
+        del rem, block
         failing = _failing(error * scale, current(), floor, tolerance)
     delta = current()
     error = error * scale
