@@ -201,11 +201,22 @@ def remap_ray_list(route, big_i, big_j, values):
     """
     ny, nx = route.image_shape
     planes = np.zeros((values.shape[0], ny, nx))
-    e1, e2, p0 = route.e1, route.e2, route.p0
-    cols = np.ascontiguousarray(p0[0] + big_i * e1[0] + big_j * e2[0], float)
-    rows = np.ascontiguousarray(p0[1] + big_i * e1[1] + big_j * e2[1], float)
-    remap_parallelograms(cols, rows, np.asarray(e1, float), np.asarray(e2, float),
-                         np.ascontiguousarray(values), planes)
+    e1, e2, p0 = np.asarray(route.e1, float), np.asarray(route.e2, float), route.p0
+    cols = p0[0] + big_i * e1[0] + big_j * e2[0]
+    rows = p0[1] + big_i * e1[1] + big_j * e2[1]
+    # tubes wholly inside one pixel add their whole area there (no clipping needed)
+    half_c, half_r = 0.5 * (abs(e1[0]) + abs(e2[0])), 0.5 * (abs(e1[1]) + abs(e2[1]))
+    ix, iy = np.floor(cols - half_c), np.floor(rows - half_r)
+    inside = (ix == np.floor(cols + half_c)) & (iy == np.floor(rows + half_r)) \
+        & (ix >= 0) & (ix < nx) & (iy >= 0) & (iy < ny)
+    if inside.any():
+        flat = (iy[inside] * nx + ix[inside]).astype(np.int64)
+        area = abs(e1[0] * e2[1] - e1[1] * e2[0])
+        for q in range(values.shape[0]):
+            planes[q] += np.bincount(flat, weights=area * values[q, inside], minlength=ny * nx).reshape(ny, nx)
+    rest = ~inside
+    remap_parallelograms(np.ascontiguousarray(cols[rest]), np.ascontiguousarray(rows[rest]), e1, e2,
+                         np.ascontiguousarray(values[:, rest]), planes)
     return planes
 
 
