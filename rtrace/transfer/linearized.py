@@ -229,12 +229,15 @@ def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_d
 
 
 @numba.njit(cache=True, parallel=True)
-def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, count, seg_da, seg_db, seg_ds, bg,
-                    out_rem):
-    """Trace a list of one phase's rays on the per-cell coefficients and return their remainders directly.
+def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da, seg_db,
+                    seg_ds, bg, out_rem):
+    """Trace a list of rays on the per-cell coefficients and return their remainders directly.
 
-    Ray ``r`` enters the grid's columns at cell ``(ray_a[r], ray_b[r])`` of the
-    phase's layer segments (``count``, ``seg_*``: :func:`kernels.layer_segments`);
+    Ray ``r`` enters the grid's columns at cell ``(ray_a[r], ray_b[r])`` and
+    follows the layer segments of lattice phase ``ray_phase[r]``
+    (``count[phase]``, ``seg_*[phase]``: :func:`kernels.layer_segments` of
+    every phase, stacked); rays listed next to each other should share cells
+    (the same cell column, other phases), so that they are read from cache;
     ``out_rem[f, r] = I + I_bg (e^{-tau} - 1) - sum_c W_c ds`` (the formal
     solution of :func:`kernels._cross`, cell by cell; ``alpha``, ``source``,
     ``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`).
@@ -242,10 +245,11 @@ def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, 
     them (:func:`mark_rays`) are traced, and the coefficients are read, not
     recomputed.
     """
-    nk = count.shape[0]
+    nk = count.shape[1]
     nf = w_cells.shape[4]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
     for r in prange(ray_a.shape[0]):
+        ph = ray_phase[r]
         acc_i = np.empty(nf)
         acc_t = np.empty(nf)
         lin = np.empty(nf)
@@ -255,9 +259,9 @@ def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, 
             lin[f] = 0.0
         for s in range(nk):
             k = k_lo + s if forward else k_lo + nk - 1 - s
-            for g in range(count[s]):
-                a = ray_a[r] + seg_da[s, g]
-                b = ray_b[r] + seg_db[s, g]
+            for g in range(count[ph, s]):
+                a = ray_a[r] + seg_da[ph, s, g]
+                b = ray_b[r] + seg_db[ph, s, g]
                 if a < 0 or b < 0 or a >= na or b >= nb:
                     continue
                 slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
@@ -266,7 +270,7 @@ def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, 
                 la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
                 if alpha[slot, la, lb, lk, 0] == 0.0:
                     continue
-                ds = seg_ds[s, g]
+                ds = seg_ds[ph, s, g]
                 for f in range(nf):
                     dtau = alpha[slot, la, lb, lk, f] * ds
                     att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
