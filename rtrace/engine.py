@@ -161,6 +161,7 @@ class Engine:
     def trace(self, snap, view, label=None, view_name="view"):
         """``(Result, SkyMap or None)`` of one view of ``snap``; ``label`` names the snapshot of a series."""
         from . import trace
+        from .transfer.tracer import DEFAULT_TOLERANCE
         job = self.job
         kw = {}
         if "client" in self.keywords:
@@ -178,8 +179,8 @@ class Engine:
                     raise ConfigError(str(exc)) from None
         t0 = time.perf_counter()
         res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
-                    supersample=None if "tolerance" in job.trace else job.trace.get("supersample", 1),
-                    tolerance=job.trace.get("tolerance"), **kw)
+                    supersample=job.trace.get("supersample"),
+                    tolerance=job.trace.get("tolerance", DEFAULT_TOLERANCE), **kw)
         res.provenance["trace_seconds"] = f"{time.perf_counter() - t0:.2f}"
         if job.beam:
             sky = _observe(res, job, label)               # warns itself when emission reaches the edge

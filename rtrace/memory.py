@@ -25,8 +25,9 @@ import os
 
 from .errors import InputError
 
-__all__ = ["HEADROOM", "available_memory", "format_bytes", "check_memory", "array_bytes", "fft_kernel_bytes", "trace_image_bytes", "trace_ray_bytes",
-           "observe_bytes", "synthesis_bytes"]
+__all__ = ["HEADROOM", "available_memory", "format_bytes", "check_memory", "fits_in_memory", "array_bytes",
+           "fft_kernel_bytes", "split_cell_bytes", "trace_image_bytes", "trace_ray_bytes", "observe_bytes",
+           "synthesis_bytes"]
 
 _FLOAT = 8
 _COMPLEX = 16
@@ -143,6 +144,18 @@ def check_memory(need, *, field, what, hint, budget=None):
                          f"{HEADROOM:.0%} of the {format_bytes(avail)} of memory available on this machine; "
                          f"{hint}")
     return need
+
+
+def fits_in_memory(need):
+    """Whether ``need`` bytes fit within `HEADROOM` of the available memory (True when it is unknown)."""
+    avail = available_memory()
+    return avail is None or int(need) <= HEADROOM * avail
+
+
+def split_cell_bytes(ncells, nfreq):
+    """Bytes of the per-cell state of an oblique split (``rtrace.transfer.oblique_split``): float64
+    ``alpha_nu``, mean sensitivity and source function per frequency, and the emission-measure weight."""
+    return (3 * int(nfreq) + 1) * _FLOAT * int(ncells)
 
 
 def trace_image_bytes(nfreq, npix):

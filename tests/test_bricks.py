@@ -158,9 +158,9 @@ def test_sparse_snapshot_bricks_equal_the_whole_grid(sparse, los):
     # Each brick maps its own blocks (offset from the whole grid's); composited they give the whole-grid
     # image (R&L 1979, eq. 1.30 piecewise).
     view = rtrace.View(los=los, north=(0, 0, 1), npix=40, distance=1 * u.kpc)
-    whole = rtrace.trace(sparse, view, NU)
+    whole = rtrace.trace(sparse, view, NU, supersample=1)
     for size in (5, 9):
-        assert_same(rtrace.trace(sparse, view, NU, brick_size=size), whole)
+        assert_same(rtrace.trace(sparse, view, NU, supersample=1, brick_size=size), whole)
 
 
 @pytest.mark.parametrize("los", [(0.3, -0.5, 0.8), (-0.9, 0.2, 0.1), (0.0, 0.6, -0.8), (0, 0, 1), (0.5, 0.5, -0.7)])
@@ -205,9 +205,9 @@ def test_patches_composite_associatively_over_different_rectangles():
 def test_max_memory_with_in_memory_snapshot_equals_the_whole_grid(snap):
     # Whatever brick the budget picks, the composite is the whole-grid result (R&L 1979, eq. 1.30).
     view = rtrace.View(los=(0.4, -0.7, 0.6), north=(0, 0, 1), npix=30, distance=1 * u.kpc)
-    whole = rtrace.trace(snap, view, NU)
-    assert_same(rtrace.trace(snap, view, NU, max_memory="2 MB"), whole)
-    assert_same(rtrace.trace(snap, view, NU, max_memory=1 * u.GB), whole)
+    whole = rtrace.trace(snap, view, NU, supersample=1)
+    assert_same(rtrace.trace(snap, view, NU, supersample=1, max_memory="2 MB"), whole)
+    assert_same(rtrace.trace(snap, view, NU, supersample=1, max_memory=1 * u.GB), whole)
 
 
 @pytest.mark.parametrize("value,expected", [("150 MB", 150_000_000), ("2GB", 2_000_000_000),
@@ -237,8 +237,8 @@ def test_impossible_budget_says_the_minimum(snap, los):
         rtrace.trace(snap, view, NU, max_memory="0.1 MB")
     minimum = float(info.value.args[0].split("at least ")[1].split(" MB")[0])
     # the minimum stated is enough (it is rounded to 3 digits: allow the rounding)
-    res = rtrace.trace(snap, view, NU, max_memory=f"{minimum * 1.005} MB")
-    assert_same(res, rtrace.trace(snap, view, NU))
+    res = rtrace.trace(snap, view, NU, supersample=1, max_memory=f"{minimum * 1.005} MB")
+    assert_same(res, rtrace.trace(snap, view, NU, supersample=1))
 
 
 def test_brick_size_that_breaks_the_budget_is_an_input_error(snap):

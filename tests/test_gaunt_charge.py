@@ -194,12 +194,12 @@ def test_oblique_and_amr_routes_use_the_helium_iii_gaunt_factor():
     snap = uniform_snapshot(2 * n, 4 * n, t, shape)
     los = np.array([0.2, 0.1, 1.0])
     view = rtrace.View(los=tuple(los), npix=4, width=4 * CELL_CM * u.cm)
-    res = rtrace.trace(snap, view, NU[:3] * u.Hz)
+    res = rtrace.trace(snap, view, NU[:3] * u.Hz, supersample=1)
     path = shape[2] * CELL_CM * np.linalg.norm(los) / los[2]
     np.testing.assert_allclose(res.tau[:, 1:3, 1:3], alpha_rl(NU[:3], t, 2 * n, [(2, n)])[:, None, None] * path
                                * np.ones((1, 2, 2)), rtol=2e-3)
     assert res.emission_measure.value[1, 1] == pytest.approx((2 * n) ** 2 * path / 3.0856775814913673e18, rel=1e-6)
-    ions = rtrace.trace(snap, view, NU[:3] * u.Hz, emission_measure="ion_term")
+    ions = rtrace.trace(snap, view, NU[:3] * u.Hz, supersample=1, emission_measure="ion_term")
     assert ions.emission_measure.value[1, 1] == pytest.approx(8 * n * n * path / 3.0856775814913673e18, rel=1e-6)
     np.testing.assert_array_equal(ions.tau, res.tau)
     # the split route of oblique views traced to a tolerance (exact cell projections + lattice remainder)
@@ -214,7 +214,8 @@ def test_oblique_and_amr_routes_use_the_helium_iii_gaunt_factor():
     grid = amr.Grid(0, np.zeros(3, np.int64), np.array(shape, np.int64), 2 * n * one, 4 * n * one, t * one)
     amr_snap = amr.AMRSnapshot([grid], 2, shape, np.full(3, CELL_CM), np.zeros(3), {"source": "test"})
     for v in (view, rtrace.View(los=(0, 0, 1), npix=4, width=4 * CELL_CM * u.cm)):
-        a, b = rtrace.trace(amr_snap, v, NU[:3] * u.Hz), rtrace.trace(snap, v, NU[:3] * u.Hz)
+        a, b = (rtrace.trace(amr_snap, v, NU[:3] * u.Hz, supersample=1),
+                rtrace.trace(snap, v, NU[:3] * u.Hz, supersample=1))
         np.testing.assert_allclose(a.tau, b.tau, rtol=1e-12)
         np.testing.assert_allclose(a.emission_measure.value, b.emission_measure.value, rtol=1e-12)
 

@@ -90,10 +90,10 @@ def test_lazy_trace_equals_in_memory_trace(h5file, kwargs, los):
     eager = read_hdf5(h5file, temperature="gas/T", **kwargs)
     snap = open_hdf5(h5file, temperature="gas/T", **kwargs)
     view = rtrace.View(los=los, north=(1, 0, 0) if los[0] == 0 else (0, 0, 1), npix=21, distance=1 * u.kpc)
-    ref = rtrace.trace(eager, view, NU)
+    ref = rtrace.trace(eager, view, NU, supersample=1)
     assert ref.tau[0].max() > 1 and ref.tau[-1].max() < 1e-2
     for size in (None, 6):
-        res = rtrace.trace(snap, view, NU, brick_size=size)
+        res = rtrace.trace(snap, view, NU, supersample=1, brick_size=size)
         for x, y in ((res.intensity.value, ref.intensity.value), (res.tau, ref.tau),
                      (res.emission_measure.value, ref.emission_measure.value)):
             assert np.allclose(x, y, rtol=1e-10, atol=0)
@@ -245,7 +245,7 @@ _CHILD = textwrap.dedent('''
     # warm-up on a tiny file: imports, numba caches, the Gaunt tables (a ~200 MB transient)
     small = rtrace.open_hdf5(tiny, **kw)
     for v in views:
-        rtrace.trace(small, v, nu, max_memory=budget)
+        rtrace.trace(small, v, nu, supersample=1, max_memory=budget)
     # Forget the warm-up's peak: "5" resets the process's peak RSS (VmHWM, the counter
     # getrusage's ru_maxrss reads for a live process). ru_maxrss itself also keeps the
     # peak folded in by any thread that exited, so it cannot be reset; VmHWM is used.
@@ -260,7 +260,7 @@ _CHILD = textwrap.dedent('''
     results, allocated = [], []
     for v in views:
         tracemalloc.reset_peak()
-        results.append(rtrace.trace(snap, v, nu, max_memory=budget))
+        results.append(rtrace.trace(snap, v, nu, supersample=1, max_memory=budget))
         allocated.append(tracemalloc.get_traced_memory()[1])
     t_trace = time.perf_counter() - t0 - t_open
     growth = status("VmHWM") - base
@@ -269,7 +269,7 @@ _CHILD = textwrap.dedent('''
     eager = read_hdf5(path, **kw)
     diffs = []
     for v, res in zip(views, results):
-        ref = rtrace.trace(eager, v, nu)
+        ref = rtrace.trace(eager, v, nu, supersample=1)
         for x, y in ((res.intensity.value, ref.intensity.value), (res.tau, ref.tau),
                      (res.emission_measure.value, ref.emission_measure.value)):
             diffs.append(float(np.max(np.abs(x - y)) / np.max(np.abs(y))))
@@ -332,7 +332,7 @@ def test_file_backed_result_diagnostics(h5file):
     eager = read_hdf5(h5file, temperature="gas/T", electron_density="gas/ne", cell_size=0.01 * u.pc)
     view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=12, distance=1 * u.kpc)
     res = rtrace.trace(snap, view, NU, max_memory="20 MB")
-    ref = rtrace.trace(eager, view, NU)
+    ref = rtrace.trace(eager, view, NU, supersample=1)
     assert np.allclose(res.unabsorbed_intensity.value, ref.unabsorbed_intensity.value, rtol=1e-10, atol=0)
     with pytest.raises(InputError, match="file-backed"):
         res.tau_unity_depth()

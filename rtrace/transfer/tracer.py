@@ -40,7 +40,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, warn_user
-from ..memory import check_memory, format_bytes, trace_image_bytes
+from ..memory import check_memory, fits_in_memory, format_bytes, split_cell_bytes, trace_image_bytes
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
@@ -52,7 +52,7 @@ from .oblique_split import lattice_phases, remap_rays, split_trace
 from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
-__all__ = ["trace", "FrequencyTables", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
+__all__ = ["trace", "FrequencyTables", "DEFAULT_TOLERANCE", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
            "MAX_SUPERSAMPLE", "EM_DEFINITIONS", "emission_ratio"]
 
 # What every traced image assumes (written to provenance and FITS headers).
@@ -69,8 +69,21 @@ EM_DEFINITIONS = {
 }
 
 
-# A tolerance worth asking for on oblique maps (relative error per pixel); not yet the default,
-# because optically thick silhouettes still need many rays (see trace's tolerance and bench_accuracy.py).
+class _DefaultTolerance(float):
+    """The value of ``trace``'s ``tolerance`` when none is given: a plain float, marked as the default.
+
+    Routes without the split (bricks, dask, AMR, file-backed grids) and
+    grids whose per-cell state does not fit in memory fall back to one ray
+    lattice with a warning when the tolerance is the default, instead of
+    the costly whole-lattice refinement an explicit ``tolerance`` asks for.
+    """
+
+    __slots__ = ()
+
+
+#: ``trace``'s default relative error per oblique pixel.
+DEFAULT_TOLERANCE = _DefaultTolerance(1e-2)
+# Kept for code written before the default existed: the same value.
 SUGGESTED_TOLERANCE = 1e-2
 # Pixels fainter than this fraction of an image's peak are not held to the tolerance.
 PIXEL_FLOOR = 1e-3
@@ -128,7 +141,7 @@ def _em_definition(value):
     return value
 
 
-def trace(snapshot, view, frequencies, *, background=None, supersample=None, tolerance=None,
+def trace(snapshot, view, frequencies, *, background=None, supersample=None, tolerance=DEFAULT_TOLERANCE,
           brick_size=None, max_memory=None, client=None, absorption=True, emission_measure="electrons"):
     """Solve the transfer equation along the rays of ``view`` through ``snapshot``.
 
@@ -146,13 +159,14 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
     supersample : int, optional
         Rays per cell width for oblique views, fixed: an explicit override of
         ``tolerance`` (no refinement, no error estimate). ``supersample=1``
-        is the lattice every oblique trace used before ``tolerance``
-        existed; its pixels can be off by several percent where the gas
-        has cell-scale structure. Axis-aligned views are exact and ignore
-        it. Must be an int (2.5 is refused, not truncated).
-    tolerance : float, optional
-        Relative error allowed per pixel on oblique views (e.g.
-        :data:`SUGGESTED_TOLERANCE`, 1e-2), for pixels at least
+        is the fastest oblique trace (one lattice, as before ``tolerance``
+        existed); its pixels can be off by several percent where the gas
+        has cell-scale structure (far more on faint edges). Axis-aligned
+        views are exact and ignore it. Must be an int (2.5 is refused, not
+        truncated).
+    tolerance : float or None, optional
+        Relative error allowed per pixel on oblique views, default
+        :data:`DEFAULT_TOLERANCE` (1e-2), for pixels at least
         :data:`PIXEL_FLOOR` (1e-3) of the image's peak, in the intensity at
         every frequency. On an in-memory uniform grid traced whole (no
         ``brick_size``, ``max_memory`` or ``client``) the view is split
@@ -161,19 +175,20 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         pixels, and so is the part of the intensity linear in the cells'
         path lengths (all of it for optically thin gas); the ray lattice
         only integrates the remainder, refined (2, 4, ... rays per cell
-        side, up to :data:`MAX_SUPERSAMPLE`) in blocks of pixels (16 x 16
-        at the first doubling, halved at each further one) where its
-        estimated error exceeds ``tolerance``. Otherwise (bricks,
-        dask, AMR) the whole lattice is doubled until two successive images
-        agree to ``tolerance``, which costs about four times the previous
-        trace per doubling. The estimate reached is in
-        :attr:`Result.pixel_error`. Ignored when ``supersample`` is given
-        and on axis-aligned views (exact). Default None: one lattice of
-        ``supersample`` (1) rays per cell, no estimate: pixels can then be
-        several % off (far more on faint edges) where the gas has
-        cell-scale structure. Optically thick pixels on the silhouette of
-        thick cells converge slowly (about linearly in the ray spacing), so
-        1e-2 may not be reached by the cap there; a warning says so.
+        side, up to :data:`MAX_SUPERSAMPLE`) in blocks of pixels where its
+        estimated error exceeds ``tolerance``. Optically thick pixels on
+        the silhouette of thick cells converge slowly (about linearly in
+        the ray spacing), so 1e-2 may not be reached by the cap there; a
+        warning says so. On other routes (bricks, dask, AMR, file-backed
+        grids) an explicit ``tolerance`` doubles the whole lattice until
+        two successive images agree, about four times the previous trace
+        per doubling; with the default there, or where the split's
+        per-cell state (``8 (3 nfreq + 1)`` bytes per cell) does not fit
+        in memory, one lattice of 1 ray per cell is traced instead and a
+        :class:`PixelAccuracyWarning` says so. ``None``: one lattice, no
+        estimate (the fastest oblique trace). The estimate reached is in
+        :attr:`Result.pixel_error`, provenance and FITS headers. Ignored
+        when ``supersample`` is given and on axis-aligned views (exact).
     brick_size : int, optional
         Trace the grid in cubic bricks of this many cells per side, each on
         its own sub-array, composited front to back (same result to rounding).
@@ -248,6 +263,7 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
     budget = None if max_memory is None else _bricks.parse_memory(max_memory)
     if client is not None and not (hasattr(client, "submit") and hasattr(client, "scatter")):
         raise InputError(f"client: expected a dask.distributed.Client, got {type(client).__name__}")
+    default_tolerance = isinstance(tolerance, _DefaultTolerance)
     tolerance = None if tolerance is None else _check_tolerance(tolerance)
     emission_measure = _em_definition(emission_measure)
     tables = FrequencyTables(nu, 1.0 if absorption else _THIN_SCALE, em_ions=emission_measure == "ion_term")
@@ -261,8 +277,12 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         supersample = supersample or 1
         seg, nrays, _ = _trace_lattice(supersample, **run)
         pixel_error = PixelError(float("nan"), supersample, None, PIXEL_FLOOR, False)
-    elif _can_split(snapshot, edge, budget, client):
+    elif _can_split(snapshot, edge, budget, client) and (not default_tolerance or _split_fits(snapshot, nu)):
         seg, nrays, pixel_error = _split(tolerance, run)
+    elif default_tolerance:
+        _warn_unrefined(snapshot, edge, budget, client, nu)
+        seg, nrays, _ = _trace_lattice(1, **run)
+        pixel_error = PixelError(float("nan"), 1, None, PIXEL_FLOOR, False)
     else:
         seg, nrays, pixel_error = _refine(tolerance, run)
     provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
@@ -396,6 +416,32 @@ def _can_split(snapshot, edge, budget, client):
     """Whether the exact-projection split (:mod:`.oblique_split`) applies: a whole in-memory uniform grid."""
     return (getattr(snapshot, "in_memory", True) and not getattr(snapshot, "is_amr", False)
             and edge is None and budget is None and client is None)
+
+
+def _split_fits(snapshot, nu):
+    """Whether the split's per-cell state for ``nu`` fits in the memory at hand (see :func:`split_cell_bytes`)."""
+    return fits_in_memory(split_cell_bytes(int(np.prod(snapshot.shape)), len(nu)))
+
+
+def _warn_unrefined(snapshot, edge, budget, client, nu):
+    """Say why an oblique view with the default tolerance is traced on one lattice without an estimate."""
+    if getattr(snapshot, "is_amr", False):
+        why = "AMR snapshots are traced leaf by leaf"
+    elif client is not None:
+        why = "the grid is traced as dask tasks"
+    elif not getattr(snapshot, "in_memory", True):
+        why = "the snapshot is read from its file in bricks"
+    elif edge is not None or budget is not None:
+        why = "the grid is traced in bricks (brick_size / max_memory)"
+    else:
+        need = split_cell_bytes(int(np.prod(snapshot.shape)), len(nu))
+        why = (f"its per-cell state ({format_bytes(need)} for {len(nu)} frequencies) does not fit in the "
+               "memory available")
+    warn_user(f"tolerance: this oblique view is traced on one lattice of 1 ray per cell with no pixel error "
+              f"estimate, because the error-controlled split needs the whole grid in memory and {why}; pixels "
+              "can be several % off (more on faint edges) where the gas has cell-scale structure. Pass an "
+              "explicit tolerance to refine the whole lattice (about 4x the time per doubling), an explicit "
+              "supersample, or fewer frequencies", PixelAccuracyWarning)
 
 
 def _split(tolerance, run):
