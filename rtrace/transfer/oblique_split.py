@@ -27,7 +27,7 @@ at 2 frequencies, 150 MB for the demo scenario (16% of its blocks emit).
 
 import numpy as np
 
-from ..memory import check_memory
+from ..memory import check_memory, split_cell_bytes
 from . import kernels, linearized
 from .compositing import Segment
 from .remap import remap_parallelograms
@@ -86,12 +86,12 @@ def split_state_bytes(blocks, nfreq):
 
     The float64 ``alpha``, sensitivity and source per frequency and the
     emission-measure weight of every cell of the emitting 8^3 blocks
-    (:func:`cell_sensitivities`); the images and rays come on top, as for
+    (:func:`cell_sensitivities`; :func:`rtrace.memory.split_cell_bytes` of
+    those cells); the images and rays come on top, as for
     any trace. A caller can compare it with :func:`rtrace.memory.available_memory`
     before choosing the split.
     """
-    nw = 1 << kernels.BLOCK_SHIFT
-    return 8 * int(np.count_nonzero(blocks)) * nw**3 * (3 * int(nfreq) + 1)
+    return split_cell_bytes(int(np.count_nonzero(blocks)) << (3 * kernels.BLOCK_SHIFT), nfreq)
 
 
 def cell_sensitivities(route, cells, blocks, seg, bg):
