@@ -158,6 +158,31 @@ def test_refined_rays_cover_their_pixels(grid, pix_cells):
         assert got[:, pixels] == pytest.approx(whole[:, pixels], rel=1e-11, abs=1e-12 * whole.max())
 
 
+def test_refinement_stops_where_the_next_lattice_does_not_fit(grid, monkeypatch):
+    # a finer lattice refused by the memory check ends the refinement with a warning and the estimate
+    # reached on the last lattice (not an error: the coarser images are still valid)
+    from rtrace.errors import InputError
+    from rtrace.transfer import tracer
+    snap = grid[0]
+    view, _ = _view(*DIRECTIONS[0], 1.6)
+    with monkeypatch.context() as patch:
+        patch.setattr(tracer, "MAX_SUPERSAMPLE", 1)             # the first lattice alone
+        first = _trace(snap, view, tolerance=1e-3)
+    check = tracer._check_ray_memory
+
+    def refuse_fine(route, supersample):
+        if supersample > 1:
+            raise InputError("supersample: not enough memory (test)")
+        return check(route, supersample)
+
+    monkeypatch.setattr(tracer, "_check_ray_memory", refuse_fine)
+    with pytest.warns(PixelAccuracyWarning, match="stopped at 1 rays per cell side"):
+        res = rtrace.trace(snap, view, NU * u.Hz, tolerance=1e-3)
+    assert not res.pixel_error.converged and res.pixel_error.supersample == 1
+    assert res.pixel_error.max_relative > 1e-3
+    np.testing.assert_allclose(res.intensity.value, first.intensity.value, rtol=1e-12)
+
+
 def test_per_cell_state_only_for_emitting_blocks():
     # the split's per-cell arrays hold the 8^3 blocks with gas only: a grid emitting in one corner needs
     # one block's worth, and block_slots numbers exactly those blocks

@@ -27,10 +27,12 @@ at 2 frequencies, 150 MB for the demo scenario (16% of its blocks emit).
 
 import numpy as np
 
+from ..errors import InputError, warn_user
 from ..memory import check_memory, split_cell_bytes
 from . import kernels, linearized
 from .compositing import Segment
 from .remap import remap_parallelograms
+from .result import PixelAccuracyWarning
 
 
 class SplitImages:
@@ -354,7 +356,13 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
 
     failing = _failing(error * scale, current(), floor, tolerance)
     while tolerance is not None and failing.any() and 2 * m <= max_supersample:
-        fine = make_route(2 * m)
+        try:
+            fine = make_route(2 * m)
+        except InputError as exc:               # the finer lattice's rays would not fit: keep this one
+            warn_user(f"tolerance: refinement of this oblique view stopped at {m} rays per cell side, where "
+                      f"{int(failing.sum())} pixels are still above the tolerance, because the next lattice "
+                      f"would not fit in memory ({exc})", PixelAccuracyWarning)
+            break
         m = max(fine.m)
         tiles = _tiles(failing, max(MIN_TILE, TILE * 2 // m))
         big_i, big_j = needed_rays(fine, tiles)
