@@ -214,7 +214,7 @@ def project(values, lo, hi, off, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinf
     every cell adds exactly its volume over the pixel area. ``shadow`` = (xmin, xmax, ymin, ymax)
     of a cell's shadow relative to its corner. Cells whose values are all zero are skipped.
     """
-    nchunk, nq, ny, nx = out.shape
+    nchunk, nq = out.shape[0], out.shape[1]
     g00, g01, g10, g11, g20, g21 = gmat[0, 0], gmat[0, 1], gmat[1, 0], gmat[1, 1], gmat[2, 0], gmat[2, 1]
     xmin, xmax, ymin, ymax = shadow[0], shadow[1], shadow[2], shadow[3]
     ncol = int(math.ceil(xmax - xmin)) + 2
@@ -315,7 +315,7 @@ def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yin
     zeros and are skipped, as are all cells whose values are all zero);
     ``out`` (nchunk, nq, ny, nx): chunk ``t`` takes blocks ``t, t + nchunk, ...``.
     """
-    nchunk, nq, ny, nx = out.shape
+    nchunk, nq = out.shape[0], out.shape[1]
     nw = values.shape[1]
     g00, g01, g10, g11, g20, g21 = gmat[0, 0], gmat[0, 1], gmat[1, 0], gmat[1, 1], gmat[2, 0], gmat[2, 1]
     ncol = int(math.ceil(shadow[1] - shadow[0])) + 2

@@ -106,7 +106,7 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
                             alpha[s, i, j, k, f] = kap[f]
                             source[s, i, j, k, f] = src[f]
                         weight = nn
-                        if ratio is not None:
+                        if ratio is not None:  # noqa: SIM102 (apart: numba prunes it when ratio is None)
                             if em_ratio:
                                 weight = nn * float(ratio[a, b, c])
                         em[s, i, j, k] = weight
