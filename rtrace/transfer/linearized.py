@@ -52,7 +52,7 @@ def block_slots(blocks):
     index in the compact per-cell arrays and -1 for blocks with no emitting
     gas; ``where`` ``(nblock, 3)`` the block indices of the slots, in C order.
     """
-    where = np.argwhere(blocks != 0).astype(np.int64)
+    where = np.ascontiguousarray(np.argwhere(blocks != 0), np.int64)     # C order always: one specialisation
     slots = np.full(blocks.shape, -1, np.int64)
     slots[tuple(where.T)] = np.arange(where.shape[0])
     return slots, where
