@@ -16,29 +16,29 @@ Measured with the split of oblique views (``rtrace.transfer.oblique_split``).
 
 Before/after the split's cost work (per-cell state only for the emitting 8^3 blocks, refined rays
 limited to those touching the failing tiles and traced in one call per lattice ordered by cell
-column, tubes inside one pixel remapped without clipping), ``--cells 256 --tolerances 0.1 0.01``,
-medians (ranges) of 3, the two versions run back to back on the same busy machine (2 cores shared
-with other jobs; images equal to 5e-12 relative, same estimates and rays per cell side):
+column, tubes inside one pixel remapped without clipping), ``--cells 256 --tolerances 0.01``, medians
+(ranges) of 3, the two versions run back to back on the quiet machine (load < 1.6; images equal to
+5e-12 relative, same estimates and rays per cell side):
 
-======================  =====================  =====================  ================================
-case                    supersample=1          before                 after
-======================  =====================  =====================  ================================
-demo, 1e-1              0.223 s / 0.224 s      3.34 s (3.26 .. 5.35)  1.70 s (1.69 .. 1.71), 7.6x
-demo, 1e-2 (m = 4)                             2.91 s (2.37 .. 2.92)  2.16 s (2.15 .. 2.18), 9.6x
-fully emitting, 1e-1    0.439 s / 0.898 s      13.9 s (13.5 .. 18.2)  6.86 s (6.76 .. 7.77)
-fully emitting, 1e-2                           29.5 s (20.9 .. 29.8)  10.1 s (10.0 .. 10.1)
-======================  =====================  =====================  ================================
+==================  ======================  =====================  ===============================
+case, 1e-2          supersample=1           before                 after
+==================  ======================  =====================  ===============================
+demo (m = 4)        0.108 s / 0.106 s       2.21 s (2.18 .. 3.28)  1.10 s (1.08 .. 1.10) = 10.4x
+                                            = 20.5x                (an earlier run: 1.12 s, 10.4x)
+fully emitting      0.450 s / 0.439 s       11.2 s (11.2 .. 11.8)  5.46 s (5.16 .. 5.91) = 12.4x
+(m = 8)                                     = 24.8x                (an earlier run: 5.29 s, 11.6x)
+==================  ======================  =====================  ===============================
 
-(The fully emitting supersample=1 trace ran at 0.44 s in the first run and 0.90 s in the second:
-the load changed; against the quiet-machine 0.45 s the 1e-2 trace is about 22x, against its own
-run 11x.) Before, on the quiet machine: demo 1e-2 17x, fully emitting 1e-2 23x.
+On a busy machine (2 cores shared with other jobs), ``--tolerances 0.1 0.01``: demo 1e-1 3.34 ->
+1.70 s, 1e-2 2.91 -> 2.16 s (supersample=1 0.22 s); fully emitting 1e-1 13.9 -> 6.86 s, 1e-2
+29.5 -> 10.1 s (supersample=1 0.44-0.90 s, the load changed).
 
-Where the time goes (one 256^3 trace at 1e-2, each step timed by wrapping it, busy machine,
-supersample=1 about 0.32 s, seconds before -> after): demo (m = 4): refined remainders 3.96 -> 1.81,
-per-cell state and sensitivities 1.39 -> 0.78, remaps 0.71 -> 0.14, projection 0.54 -> 0.30, first
-remainder pass 0.49 -> 0.36. Fully emitting (m = 8; before = with the compact state only): refined
-remainders 29.2 -> 7.3, remaps 2.97 -> 0.30, per-cell state and sensitivities 3.4-8.7 (noisy),
-projection 1.6, first remainder pass 0.8-1.0. The targets (3x demo,
+Where the time goes (one 256^3 trace at 1e-2, each step timed by wrapping it, quiet machine,
+seconds before -> after): demo (supersample=1 0.105 s): refined remainders 1.09 -> 0.41, per-cell
+state and sensitivities 0.51 -> 0.24, projection 0.23 -> 0.125, first remainder pass 0.18 -> 0.12,
+remaps and the rest 0.07 -> 0.05, plus the first lattice's trace (0.1). Fully emitting (0.44 s):
+refined remainders 7.66 -> 2.69, per-cell state and sensitivities 1.47 -> 0.96, projection 0.67 ->
+0.55, first remainder pass 0.47 -> 0.28. The targets (3x demo,
 10x fully emitting at 1e-2) are not met: the split's first lattice alone (per-cell coefficients,
 the sensitivity and remainder passes, the projection) costs several plain traces, and the
 estimate sends most pixels of both grids to 4 (demo) or 8 (fully emitting) rays per cell side:
