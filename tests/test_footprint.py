@@ -22,7 +22,7 @@ import pytest
 import rtrace
 from rtrace.errors import InputError
 from rtrace.physics.freefree import absorption_cgs
-from rtrace.transfer.footprint import Footprint, project_cells
+from rtrace.transfer.footprint import Footprint, project_blocks, project_cells
 from rtrace.transfer.tracer import FrequencyTables, _ObliqueRoute
 
 PC = 3.0856775814913673e18          # cm (IAU 2015 B2 parsec, common practice)
@@ -315,6 +315,30 @@ def test_bricks_add_up_and_zero_cells_are_skipped():
     hi[list(route.order).index(0)] = 6             # grid axis x in (a, b, c) order
     project_cells(fp, values, [0, 0, 0], hi, [0, 0, 0], empty)
     assert not np.any(empty)
+
+
+def test_blocks_project_like_the_whole_grid():
+    # the split's compact storage (only the 8^3 blocks holding gas, cells beyond the grid zero) projects to
+    # the same images as the whole array: the same linear sum (sub-ray reference above), in another order
+    from rtrace.transfer.kernels import emitting_blocks
+    from rtrace.transfer.linearized import block_slots
+    ne, t = _grid(20, seed=7)
+    ne[:9, :, 5:] = 0.0                                # some blocks empty, one grid side not a multiple of 8
+    los, north = DIRECTIONS[0]
+    route = _route(los, north, 1.6, n=20, npix=24, fields=(ne, t))[2]
+    qs = np.stack([ne * ne, ne])
+    whole = _project(route, qs)
+    values = qs.transpose(0, *(route.order + 1))
+    slots, where = block_slots(emitting_blocks(np.ascontiguousarray(values[0])))
+    assert 0 < len(where) < slots.size
+    packed = np.zeros((len(where), 8, 8, 8, 2))
+    for s, (i, j, k) in enumerate(where):
+        part = values[:, 8 * i:8 * i + 8, 8 * j:8 * j + 8, 8 * k:8 * k + 8]
+        packed[s, :part.shape[1], :part.shape[2], :part.shape[3]] = np.moveaxis(part, 0, -1)
+    out = project_blocks(Footprint.from_route(route), packed, where, np.zeros_like(whole))
+    assert out == pytest.approx(whole, rel=1e-12, abs=1e-300)
+    with pytest.raises(InputError, match="values"):
+        project_blocks(Footprint.from_route(route), packed[..., :1], where, np.zeros_like(whole))
 
 
 def test_bad_arguments_are_refused():

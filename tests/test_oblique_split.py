@@ -133,6 +133,71 @@ def test_background_with_the_split_matches_a_dense_lattice(grid):
     assert split.specific_intensity("included").value[1].min() > 0
 
 
+@pytest.mark.parametrize("pix_cells", [0.5, 1.6, 4.0])
+def test_refined_rays_cover_their_pixels(grid, pix_cells):
+    # the rays traced for refined pixels (needed_rays) are all the tubes those pixels overlap: their exact
+    # remap (remap_ray_list, with the shortcut for tubes inside one pixel) gives those pixels what the
+    # whole lattice gives, to rounding (tubes tile the plane: constant values remap to their footprint
+    # coverage, common practice)
+    from rtrace.transfer import oblique_split as split
+    from rtrace.transfer.tracer import FrequencyTables, _ObliqueRoute
+    snap = grid[0]
+    los, north = DIRECTIONS[1]
+    view, _ = _view(los, north, pix_cells)
+    center, pix = view.resolve(snap)
+    rng = np.random.default_rng(5)
+    for m in (1, 2, 4):
+        route = _ObliqueRoute(snap, view, center, pix, FrequencyTables(NU * u.Hz), m)
+        values = rng.random((2,) + tuple(route.ray_shape))
+        whole = split.remap_rays(route, values)
+        pixels = rng.random(route.image_shape) < 0.2
+        big_i, big_j = split.needed_rays(route, pixels)
+        assert 0 < big_i.size < values[0].size
+        picked = values[:, big_i - route.ia[0], big_j - route.ib[0]]
+        got = split.remap_ray_list(route, big_i, big_j, picked)
+        assert got[:, pixels] == pytest.approx(whole[:, pixels], rel=1e-11, abs=1e-12 * whole.max())
+
+
+def test_refinement_stops_where_the_next_lattice_does_not_fit(grid, monkeypatch):
+    # a finer lattice refused by the memory check ends the refinement with a warning and the estimate
+    # reached on the last lattice (not an error: the coarser images are still valid)
+    from rtrace.errors import InputError
+    from rtrace.transfer import tracer
+    snap = grid[0]
+    view, _ = _view(*DIRECTIONS[0], 1.6)
+    with monkeypatch.context() as patch:
+        patch.setattr(tracer, "MAX_SUPERSAMPLE", 1)             # the first lattice alone
+        first = _trace(snap, view, tolerance=1e-3)
+    check = tracer._check_ray_memory
+
+    def refuse_fine(route, supersample):
+        if supersample > 1:
+            raise InputError("supersample: not enough memory (test)")
+        return check(route, supersample)
+
+    monkeypatch.setattr(tracer, "_check_ray_memory", refuse_fine)
+    with pytest.warns(PixelAccuracyWarning, match="stopped at 1 rays per cell side"):
+        res = rtrace.trace(snap, view, NU * u.Hz, tolerance=1e-3)
+    assert not res.pixel_error.converged and res.pixel_error.supersample == 1
+    assert res.pixel_error.max_relative > 1e-3
+    np.testing.assert_allclose(res.intensity.value, first.intensity.value, rtol=1e-12)
+
+
+def test_per_cell_state_only_for_emitting_blocks():
+    # the split's per-cell arrays hold the 8^3 blocks with gas only: a grid emitting in one corner needs
+    # one block's worth, and block_slots numbers exactly those blocks
+    from rtrace.transfer.kernels import emitting_blocks
+    from rtrace.transfer.linearized import block_slots
+    from rtrace.transfer.oblique_split import split_state_bytes
+    nn = np.zeros((20, 17, 9))
+    nn[2, 3, 4] = nn[15, 16, 8] = 1.0
+    blocks = emitting_blocks(nn)
+    slots, where = block_slots(blocks)
+    assert where.tolist() == [[0, 0, 0], [1, 2, 1]]
+    assert slots[0, 0, 0] == 0 and slots[1, 2, 1] == 1 and np.count_nonzero(slots >= 0) == 2
+    assert split_state_bytes(blocks, 2) == 8 * 2 * 512 * 7
+
+
 def test_job_tolerance_key(tmp_path):
     # [trace] tolerance reaches the tracer: the FITS cards record the estimate; with supersample too,
     # or out of (0, 1), the job is refused before any work

@@ -62,7 +62,7 @@ from ..errors import InputError, warn_user
 from . import footprint_kernels as _k
 from .result import PixelAccuracyWarning
 
-__all__ = ["Footprint", "project_cells", "ACCURACY_TARGET"]
+__all__ = ["Footprint", "project_cells", "project_blocks", "ACCURACY_TARGET"]
 
 # Largest error of the interpolated kernel the table is built for, as a fraction of max K.
 ACCURACY_TARGET = 1e-4
@@ -372,5 +372,37 @@ def project_cells(footprint, values, lo, hi, off, out):
     _k.project(vals, lo[perm], hi[perm], off[perm], np.ascontiguousarray(gmat[perm]), fp.q0, fp.xs, fp.ys,
                fp._ixs, fp._iys, fp._bx, fp._by, fp._xinfo, fp._yinfo, fp.table, fp.power, fp.total(),
                fp.shadow, buf)
+    out += buf.sum(axis=0)
+    return out
+
+
+def project_blocks(footprint, values, where, out):
+    """:func:`project_cells` for cells stored by blocks (the split's compact per-cell state).
+
+    Parameters
+    ----------
+    footprint : Footprint
+    values : ndarray (nblock, W, W, W, nq) float64
+        ``values[s, i, j, k]`` belongs to cell ``where[s] * W + (i, j, k)``
+        (``(a, b, c)`` order); cells beyond the grid must hold zeros.
+    where : ndarray (nblock, 3) int64
+        Block indices.
+    out : ndarray (nq, ny, nx) float64
+        Receives the footprint means, as in :func:`project_cells`.
+    """
+    values = np.asarray(values)
+    if values.ndim != 5 or values.dtype != np.float64 or out.shape != (values.shape[4],) + footprint.image_shape \
+            or out.dtype != np.float64 or where.shape != (values.shape[0], 3):
+        raise InputError(f"values/where/out: expected (nblock, W, W, W, nq) float64 values, (nblock, 3) block "
+                         f"indices and (nq, ny, nx) float64 out, got {values.shape} {values.dtype}, "
+                         f"{where.shape}, {out.shape} {out.dtype}")
+    if values.shape[0] == 0:
+        return out
+    gmat = np.stack([footprint.g_a, footprint.g_b, footprint.g_c])
+    nchunk = max(1, min(numba.get_num_threads(), values.shape[0]))
+    buf = np.zeros((nchunk,) + out.shape)
+    fp = footprint
+    _k.project_blocks(values, np.ascontiguousarray(where, np.int64), gmat, fp.q0, fp.xs, fp.ys, fp._ixs, fp._iys,
+                      fp._bx, fp._by, fp._xinfo, fp._yinfo, fp.table, fp.power, fp.total(), fp.shadow, buf)
     out += buf.sum(axis=0)
     return out

@@ -214,7 +214,7 @@ def project(values, lo, hi, off, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinf
     every cell adds exactly its volume over the pixel area. ``shadow`` = (xmin, xmax, ymin, ymax)
     of a cell's shadow relative to its corner. Cells whose values are all zero are skipped.
     """
-    nchunk, nq, ny, nx = out.shape
+    nchunk, nq = out.shape[0], out.shape[1]
     g00, g01, g10, g11, g20, g21 = gmat[0, 0], gmat[0, 1], gmat[1, 0], gmat[1, 1], gmat[2, 0], gmat[2, 1]
     xmin, xmax, ymin, ymax = shadow[0], shadow[1], shadow[2], shadow[3]
     ncol = int(math.ceil(xmax - xmin)) + 2
@@ -241,58 +241,110 @@ def project(values, lo, hi, off, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinf
                             nonzero = True
                     if not nonzero:
                         continue
-                    dx = base_x + i2 * g20
-                    dy = base_y + i2 * g21
-                    c_lo = int(math.floor(dx + xmin))
-                    c_hi = int(math.floor(dx + xmax))
-                    r_lo = int(math.floor(dy + ymin))
-                    r_hi = int(math.floor(dy + ymax))
-                    if c_hi < 0 or c_lo > nx - 1 or r_hi < 0 or r_lo > ny - 1:
-                        continue
-                    m = 0
-                    for col in range(c_lo, c_hi + 1):
-                        i, f = _locate(dx - col, xs, ixs, bx, xinfo[0], xinfo[1])
-                        if i >= 0:
-                            ci[m] = i
-                            cf[m] = f
-                            cc[m] = col
-                            m += 1
-                    k = 0
-                    for row in range(r_lo, r_hi + 1):
-                        j, f = _locate(dy - row, ys, iys, by, yinfo[0], yinfo[1])
-                        if j >= 0:
-                            ri[k] = j
-                            rf[k] = f
-                            rr[k] = row
-                            k += 1
-                    wsum = 0.0
-                    for a in range(k):
-                        j = ri[a]
-                        fy = rf[a]
-                        for b in range(m):
-                            i = ci[b]
-                            fx = cf[b]
-                            w = ((1.0 - fy) * ((1.0 - fx) * table[j, i] + fx * table[j, i + 1])
-                                 + fy * ((1.0 - fx) * table[j + 1, i] + fx * table[j + 1, i + 1]))
-                            if w > 0.0:
-                                if power == 3:
-                                    w = w * w * w
-                            else:
-                                w = 0.0
-                            wgt[a, b] = w
-                            wsum += w
-                    if not wsum > 0.0:
-                        continue
-                    scale = total / wsum
-                    for a in range(k):
-                        row = rr[a]
-                        if row < 0 or row >= ny:
+                    _add_cell(base_x + i2 * g20, base_y + i2 * g21, val, buf, xs, ys, ixs, iys, bx, by, xinfo,
+                              yinfo, table, power, total, shadow, ci, cf, cc, ri, rf, rr, wgt)
+
+
+@numba.njit(cache=True, inline="always")
+def _add_cell(dx, dy, val, buf, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow,
+              ci, cf, cc, ri, rf, rr, wgt):
+    """Add one cell's ``val[q] K(d - (col, row))`` (shadow corner ``d = (dx, dy)``) to ``buf`` (see :func:`project`)."""
+    nq, ny, nx = buf.shape
+    xmin, xmax, ymin, ymax = shadow[0], shadow[1], shadow[2], shadow[3]
+    c_lo = int(math.floor(dx + xmin))
+    c_hi = int(math.floor(dx + xmax))
+    r_lo = int(math.floor(dy + ymin))
+    r_hi = int(math.floor(dy + ymax))
+    if c_hi < 0 or c_lo > nx - 1 or r_hi < 0 or r_lo > ny - 1:
+        return
+    m = 0
+    for col in range(c_lo, c_hi + 1):
+        i, f = _locate(dx - col, xs, ixs, bx, xinfo[0], xinfo[1])
+        if i >= 0:
+            ci[m] = i
+            cf[m] = f
+            cc[m] = col
+            m += 1
+    k = 0
+    for row in range(r_lo, r_hi + 1):
+        j, f = _locate(dy - row, ys, iys, by, yinfo[0], yinfo[1])
+        if j >= 0:
+            ri[k] = j
+            rf[k] = f
+            rr[k] = row
+            k += 1
+    wsum = 0.0
+    for a in range(k):
+        j = ri[a]
+        fy = rf[a]
+        for b in range(m):
+            i = ci[b]
+            fx = cf[b]
+            w = ((1.0 - fy) * ((1.0 - fx) * table[j, i] + fx * table[j, i + 1])
+                 + fy * ((1.0 - fx) * table[j + 1, i] + fx * table[j + 1, i + 1]))
+            if w > 0.0:
+                if power == 3:
+                    w = w * w * w
+            else:
+                w = 0.0
+            wgt[a, b] = w
+            wsum += w
+    if not wsum > 0.0:
+        return
+    scale = total / wsum
+    for a in range(k):
+        row = rr[a]
+        if row < 0 or row >= ny:
+            continue
+        for b in range(m):
+            col = cc[b]
+            w = wgt[a, b]
+            if col < 0 or col >= nx or w == 0.0:
+                continue
+            w *= scale
+            for q in range(nq):
+                buf[q, row, col] += w * val[q]
+
+
+@numba.njit(cache=True, parallel=True)
+def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow,
+                   out):
+    """:func:`project` of cells stored by blocks: ``values[s, i, j, k, q]`` is cell ``where[s] * W + (i, j, k)``.
+
+    ``W = values.shape[1]`` cells per block side (cells beyond the grid hold
+    zeros and are skipped, as are all cells whose values are all zero);
+    ``out`` (nchunk, nq, ny, nx): chunk ``t`` takes blocks ``t, t + nchunk, ...``.
+    """
+    nchunk, nq = out.shape[0], out.shape[1]
+    nw = values.shape[1]
+    g00, g01, g10, g11, g20, g21 = gmat[0, 0], gmat[0, 1], gmat[1, 0], gmat[1, 1], gmat[2, 0], gmat[2, 1]
+    ncol = int(math.ceil(shadow[1] - shadow[0])) + 2
+    nrow = int(math.ceil(shadow[3] - shadow[2])) + 2
+    for t in prange(nchunk):
+        buf = out[t]
+        ci = np.empty(ncol, np.int64)
+        cf = np.empty(ncol)
+        cc = np.empty(ncol, np.int64)
+        ri = np.empty(nrow, np.int64)
+        rf = np.empty(nrow)
+        rr = np.empty(nrow, np.int64)
+        wgt = np.empty((nrow, ncol))
+        val = np.empty(nq)
+        for s in range(t, values.shape[0], nchunk):
+            for i in range(nw):
+                i0 = where[s, 0] * nw + i
+                for j in range(nw):
+                    i1 = where[s, 1] * nw + j
+                    base_x = q0[0] + i0 * g00 + i1 * g10
+                    base_y = q0[1] + i0 * g01 + i1 * g11
+                    for k in range(nw):
+                        i2 = where[s, 2] * nw + k
+                        nonzero = False
+                        for q in range(nq):
+                            val[q] = values[s, i, j, k, q]
+                            if val[q] != 0.0:
+                                nonzero = True
+                        if not nonzero:
                             continue
-                        for b in range(m):
-                            col = cc[b]
-                            w = wgt[a, b]
-                            if col < 0 or col >= nx or w == 0.0:
-                                continue
-                            w *= scale
-                            for q in range(nq):
-                                buf[q, row, col] += w * val[q]
+                        _add_cell(base_x + i2 * g20, base_y + i2 * g21, val, buf, xs, ys, ixs, iys, bx, by, xinfo,
+                                  yinfo, table, power, total, shadow, ci, cf, cc, ri, rf, rr, wgt)

@@ -39,46 +39,79 @@ from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
 from .kernels import BLOCK_SHIFT, _cell_coefficients, _share_from_ratio
 from .tasks import any_layout
 
+BLOCK_MASK = (1 << BLOCK_SHIFT) - 1
+
 # Rays thicker than this carry the transmission to the observer as exp(tau behind - tau), not as a
 # running product started from e^{-tau} (which underflows near 745).
 _DIRECT_TAU = 500.0
 
 
+def block_slots(blocks):
+    """Slots of the emitting blocks: ``(slots, where)``.
+
+    ``slots`` (same shape as ``blocks``, int64) holds each emitting block's
+    index in the compact per-cell arrays and -1 for blocks with no emitting
+    gas; ``where`` ``(nblock, 3)`` the block indices of the slots, in C order.
+    """
+    where = np.ascontiguousarray(np.argwhere(blocks != 0), np.int64)     # C order always: one specialisation
+    slots = np.full(blocks.shape, -1, np.int64)
+    slots[tuple(where.T)] = np.arange(where.shape[0])
+    return slots, where
+
+
 @any_layout
 @numba.njit(cache=True, parallel=True)
-def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, alpha, source,
-                           ratio=None):
-    """Fill ``alpha[a, b, c, :]`` (cm-1) and ``source[a, b, c, :]`` (``B_nu(T)``, cgs) for every cell.
+def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, where, alpha,
+                           source, em, ratio=None, em_ratio=False):
+    """Fill the compact per-cell arrays of the emitting blocks ``where`` (:func:`block_slots`).
 
-    ``nn_cells`` is ``n_e x ion term`` and ``temp`` the temperature, both
-    ``(A, B, C)`` (any strides); cells with ``nn = 0`` get ``alpha = 0`` (and
-    their ``source`` is left as it was: it is never read where alpha is 0).
-    Frequencies are the last (contiguous) axis. Same coefficients as the
-    tracer's kernels (:func:`kernels._cell_coefficients`), with the He III
-    share of the ion term from ``ratio`` (``n_e / ion term``, same layout, or
-    None where the two are equal: :func:`rtrace.transfer.tracer.emission_ratio`);
-    ``em_ions`` is unused here (the arguments are the tracer's ``FrequencyTables.args()``).
+    ``alpha[s, i, j, k, :]`` (cm-1) and ``source[s, i, j, k, :]`` (``B_nu(T)``,
+    cgs) of cell ``where[s] * W + (i, j, k)`` (``W = alpha.shape[1]`` cells
+    per block side); ``em[s, i, j, k]`` the emission-measure weight
+    (``n_e x ion term``, times ``ratio`` where ``em_ratio``). ``nn_cells`` is
+    ``n_e x ion term`` and ``temp`` the temperature, both ``(A, B, C)`` (any
+    strides). The arrays must come zeroed: cells with ``nn = 0`` and cells
+    beyond the grid are left alone (alpha 0: never read as gas). Frequencies
+    are the last (contiguous) axis. Same coefficients as the tracer's
+    kernels (:func:`kernels._cell_coefficients`), with the He III share of
+    the ion term from ``ratio`` (``n_e / ion term``, same layout, or None
+    where the two are equal: :func:`rtrace.transfer.tracer.emission_ratio`);
+    ``em_ions`` is unused here (the arguments are the tracer's
+    ``FrequencyTables.args()``).
     """
     na, nb, nc = nn_cells.shape
+    nw = alpha.shape[1]
     nf = hk.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     hk_max = hk.max()
-    for a in prange(na):
+    for s in prange(where.shape[0]):
         kap = np.empty(nf)
         src = np.empty(nf)
-        for b in range(nb):
-            for c in range(nc):
-                nn = float(nn_cells[a, b, c])
-                if nn > 0.0:
-                    share = 0.0 if ratio is None else _share_from_ratio(float(ratio[a, b, c]))
-                    _cell_coefficients(nn, share, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
-                                       hk_max, alpha_pref, b_pref, kap, src)
-                    for f in range(nf):
-                        alpha[a, b, c, f] = kap[f]
-                        source[a, b, c, f] = src[f]
-                else:
-                    for f in range(nf):
-                        alpha[a, b, c, f] = 0.0
+        for i in range(nw):
+            a = where[s, 0] * nw + i
+            if a >= na:
+                break
+            for j in range(nw):
+                b = where[s, 1] * nw + j
+                if b >= nb:
+                    break
+                for k in range(nw):
+                    c = where[s, 2] * nw + k
+                    if c >= nc:
+                        break
+                    nn = float(nn_cells[a, b, c])
+                    if nn > 0.0:
+                        share = 0.0 if ratio is None else _share_from_ratio(float(ratio[a, b, c]))
+                        _cell_coefficients(nn, share, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
+                                           hk_max, alpha_pref, b_pref, kap, src)
+                        for f in range(nf):
+                            alpha[s, i, j, k, f] = kap[f]
+                            source[s, i, j, k, f] = src[f]
+                        weight = nn
+                        if ratio is not None:  # noqa: SIM102 (apart: numba prunes it when ratio is None)
+                            if em_ratio:
+                                weight = nn * float(ratio[a, b, c])
+                        em[s, i, j, k] = weight
 
 
 @numba.njit(cache=True, inline="always")
@@ -96,11 +129,12 @@ def _row_stride(count, seg_da):
 
 @any_layout
 @numba.njit(cache=True, parallel=True)
-def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
+def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                      ray_i, ray_tau, bg, weight, out_w):
     """Add, for every ray of the phase and cell it crosses, ``weight * ds * dI/dL_c`` to ``out_w[cell]``.
 
-    ``alpha``, ``source``, ``out_w``: ``(A, B, C, nfreq)``. ``ray_i``/``ray_tau``
+    ``alpha``, ``source``, ``out_w``: the compact per-cell arrays ``(nblock, W, W, W, nfreq)``
+    of :func:`cell_coefficient_grids`, ``slots`` their blocks (:func:`block_slots`). ``ray_i``/``ray_tau``
     (nfreq, n_i n_j): the ray's emitted intensity (no background) and total
     optical depth from the tracer; ``bg`` (nfreq,) the background intensity
     behind the grid. ``weight`` is the fraction of a cell's volume one unit
@@ -114,7 +148,7 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
     """
     nk = count.shape[0]
     nf = bg.shape[0]
-    na, nb = alpha.shape[0], alpha.shape[1]
+    na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
     stride = _row_stride(count, seg_da)
     for cls in range(stride):
         n_rows = (n_i - cls + stride - 1) // stride
@@ -138,14 +172,16 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
                         b = j0 + q + seg_db[s, g]
                         if a < 0 or b < 0 or a >= na or b >= nb:
                             continue
-                        if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                        slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                        if slot < 0:
                             continue            # a block of cells with no emitting gas
-                        if alpha[a, b, k, 0] == 0.0:
+                        la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
+                        if alpha[slot, la, lb, lk, 0] == 0.0:
                             continue            # no gas (alpha is 0 at every frequency or none)
                         ds = seg_ds[s, g]
                         for f in range(nf):
-                            kap = alpha[a, b, k, f]
-                            src = source[a, b, k, f]
+                            kap = alpha[slot, la, lb, lk, f]
+                            src = source[slot, la, lb, lk, f]
                             dtau = kap * ds
                             if dtau < SERIES_LIMIT:
                                 att = one_minus_exp_series(dtau)      # 1 - e^{-dtau}
@@ -161,16 +197,17 @@ def sensitivity_pass(alpha, source, blocks, k_lo, forward, i0, n_i, j0, n_j, cou
                                 behind[f] += dtau
                                 front[f] = math.exp(min(behind[f] - ray_tau[f, r], 0.0))
                             i_out = acc_i[f] + bg[f] * back[f]
-                            out_w[a, b, k, f] += weight * ds * kap * (src - i_out) * front[f]
+                            out_w[slot, la, lb, lk, f] += weight * ds * kap * (src - i_out) * front[f]
 
 
 @any_layout
 @numba.njit(cache=True, parallel=True)
-def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
-    """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase (``w_cells`` (A, B, C, nf))."""
+def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
+    """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase
+    (``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`)."""
     nk = count.shape[0]
-    nf = w_cells.shape[3]
-    na, nb = w_cells.shape[0], w_cells.shape[1]
+    nf = w_cells.shape[4]
+    na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
     for p in prange(n_i):
         acc = np.empty(nf)
         for q in range(n_j):
@@ -184,57 +221,99 @@ def remainder_pass(w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_
                     b = j0 + q + seg_db[s, g]
                     if a < 0 or b < 0 or a >= na or b >= nb:
                         continue
-                    if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
+                    slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                    if slot < 0:
                         continue
+                    la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
                     ds = seg_ds[s, g]
                     for f in range(nf):
-                        acc[f] += w_cells[a, b, k, f] * ds
+                        acc[f] += w_cells[slot, la, lb, lk, f] * ds
             for f in range(nf):
                 out_linear[f, r] = acc[f]
 
 
 @any_layout
 @numba.njit(cache=True, parallel=True)
-def remainder_trace(alpha, source, w_cells, blocks, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
+def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da, seg_db,
                     seg_ds, bg, out_rem):
-    """Trace one phase's rays on per-cell coefficients and return their remainders directly.
+    """Trace a list of rays on the per-cell coefficients and return their remainders directly.
 
+    Ray ``r`` enters the grid's columns at cell ``(ray_a[r], ray_b[r])`` and
+    follows the layer segments of lattice phase ``ray_phase[r]``
+    (``count[phase]``, ``seg_*[phase]``: :func:`kernels.layer_segments` of
+    every phase, stacked); rays listed next to each other should share cells
+    (the same cell column, other phases), so that they are read from cache;
     ``out_rem[f, r] = I + I_bg (e^{-tau} - 1) - sum_c W_c ds`` (the formal
     solution of :func:`kernels._cross`, cell by cell; ``alpha``, ``source``,
-    ``w_cells`` ``(A, B, C, nf)``). For the refined blocks of a split trace,
-    where the lattice is dense: the coefficients are read, not recomputed
-    per lattice phase.
+    ``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`).
+    For the refined pixels of a split trace: only the rays whose tubes touch
+    them (:func:`mark_rays`) are traced, and the coefficients are read, not
+    recomputed.
     """
-    nk = count.shape[0]
-    nf = w_cells.shape[3]
-    na, nb = w_cells.shape[0], w_cells.shape[1]
-    for p in prange(n_i):
+    nk = count.shape[1]
+    nf = w_cells.shape[4]
+    na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
+    for r in prange(ray_a.shape[0]):
+        ph = ray_phase[r]
         acc_i = np.empty(nf)
         acc_t = np.empty(nf)
         lin = np.empty(nf)
-        for q in range(n_j):
-            r = p * n_j + q
-            for f in range(nf):
-                acc_i[f] = 0.0
-                acc_t[f] = 0.0
-                lin[f] = 0.0
-            for s in range(nk):
-                k = k_lo + s if forward else k_lo + nk - 1 - s
-                for g in range(count[s]):
-                    a = i0 + p + seg_da[s, g]
-                    b = j0 + q + seg_db[s, g]
-                    if a < 0 or b < 0 or a >= na or b >= nb:
-                        continue
-                    if blocks[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT] == 0:
-                        continue
-                    if alpha[a, b, k, 0] == 0.0:
-                        continue
-                    ds = seg_ds[s, g]
-                    for f in range(nf):
-                        dtau = alpha[a, b, k, f] * ds
-                        att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
-                        acc_i[f] += att * (source[a, b, k, f] - acc_i[f])
-                        acc_t[f] += dtau
-                        lin[f] += w_cells[a, b, k, f] * ds
-            for f in range(nf):
-                out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]
+        for f in range(nf):
+            acc_i[f] = 0.0
+            acc_t[f] = 0.0
+            lin[f] = 0.0
+        for s in range(nk):
+            k = k_lo + s if forward else k_lo + nk - 1 - s
+            for g in range(count[ph, s]):
+                a = ray_a[r] + seg_da[ph, s, g]
+                b = ray_b[r] + seg_db[ph, s, g]
+                if a < 0 or b < 0 or a >= na or b >= nb:
+                    continue
+                slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                if slot < 0:
+                    continue
+                la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
+                if alpha[slot, la, lb, lk, 0] == 0.0:
+                    continue
+                ds = seg_ds[ph, s, g]
+                for f in range(nf):
+                    dtau = alpha[slot, la, lb, lk, f] * ds
+                    att = one_minus_exp_series(dtau) if dtau < SERIES_LIMIT else -math.expm1(-dtau)
+                    acc_i[f] += att * (source[slot, la, lb, lk, f] - acc_i[f])
+                    acc_t[f] += dtau
+                    lin[f] += w_cells[slot, la, lb, lk, f] * ds
+        for f in range(nf):
+            out_rem[f, r] = acc_i[f] + bg[f] * math.expm1(-acc_t[f]) - lin[f]
+
+
+@numba.njit(cache=True)
+def mark_rays(pix_row, pix_col, p0, e1, e2, inv, i0, j0, mask):
+    """Set ``mask[I - i0, J - j0]`` for every lattice ray whose tube may touch one of the listed pixels.
+
+    Ray ``(I, J)`` sits at ``p0 + I e1 + J e2`` (pixel units, (column, row));
+    its tube (the parallelogram of ``e1``, ``e2`` about it) lies within half
+    ``|e1| + |e2|`` of it on each axis, so a ray is marked when that box
+    overlaps pixel ``(pix_row[n], pix_col[n])``: every ray the pixel's
+    footprint mean needs, and a few more. ``inv`` is the inverse of the
+    matrix with columns ``e1``, ``e2``.
+    """
+    n_i, n_j = mask.shape
+    half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
+    half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
+    for n in range(pix_row.shape[0]):
+        c_lo, c_hi = pix_col[n] - half_c, pix_col[n] + 1.0 + half_c
+        r_lo, r_hi = pix_row[n] - half_r, pix_row[n] + 1.0 + half_r
+        i_min, i_max, j_min, j_max = 1e300, -1e300, 1e300, -1e300
+        for corner in range(4):
+            x = (c_lo if corner & 1 else c_hi) - p0[0]
+            y = (r_lo if corner & 2 else r_hi) - p0[1]
+            ii = inv[0, 0] * x + inv[0, 1] * y
+            jj = inv[1, 0] * x + inv[1, 1] * y
+            i_min, i_max = min(i_min, ii), max(i_max, ii)
+            j_min, j_max = min(j_min, jj), max(j_max, jj)
+        for i in range(max(int(math.floor(i_min)) - i0, 0), min(int(math.ceil(i_max)) - i0 + 1, n_i)):
+            for j in range(max(int(math.floor(j_min)) - j0, 0), min(int(math.ceil(j_max)) - j0 + 1, n_j)):
+                col = p0[0] + (i + i0) * e1[0] + (j + j0) * e2[0]
+                row = p0[1] + (i + i0) * e1[1] + (j + j0) * e2[1]
+                if c_lo < col < c_hi and r_lo < row < r_hi:
+                    mask[i, j] = True

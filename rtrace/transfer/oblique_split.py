@@ -13,17 +13,26 @@ returns pixel footprint means of
 
 With a ``tolerance``, the remainder's quadrature error is estimated per
 pixel (:func:`local_bound` on the first lattice), and blocks of pixels
-above it are traced again on finer lattices (:func:`sub_route`,
-:func:`traced_remainders`), the estimate there being the change from the
-previous lattice.
+(:data:`TILE`) holding one above it are traced again on finer lattices,
+the estimate there being the change from the previous lattice. Only the
+rays whose tubes touch those blocks are traced (:func:`needed_rays`), all
+of a lattice in one call ordered by cell column (:func:`traced_remainders`).
+
+Per-cell state (``alpha``, ``S``, ``W`` per frequency and the EM weight,
+float64) is kept only for the 8^3 blocks holding emitting gas
+(:func:`cell_sensitivities`, :func:`split_state_bytes`): 8 (3 nfreq + 1)
+bytes per cell of those blocks, about 1 GB for a fully emitting 256^3 grid
+at 2 frequencies, 150 MB for the demo scenario (16% of its blocks emit).
 """
 
 import numpy as np
 
-from ..memory import check_memory
+from ..errors import InputError, warn_user
+from ..memory import check_memory, split_cell_bytes
 from . import kernels, linearized
 from .compositing import Segment
 from .remap import remap_parallelograms
+from .result import PixelAccuracyWarning
 
 
 class SplitImages:
@@ -74,15 +83,31 @@ def _layer_segments(route, pa, pb, nk):
                                   route.abs_lc, 0, nk, route.forward, route.max_seg)
 
 
-def cell_sensitivities(route, cells, blocks, seg, bg):
-    """Per-cell quantities of the split, in the route's axis order.
+def split_state_bytes(blocks, nfreq):
+    """Bytes of the split's per-cell state for ``blocks`` (:meth:`Snapshot.emitting_blocks`) and ``nfreq`` frequencies.
 
-    Returns ``(stack, source)``: ``stack`` ``(A, B, C, 2 nfreq + 1)`` holds
-    ``alpha_nu`` (``[..., :nfreq]``), the mean sensitivity ``W``
-    (``[..., nfreq:2 nfreq]``) and ``n_e x ion term`` (``[..., -1]``), the
-    quantities projected onto the pixels in one pass; ``source`` is
-    ``S_nu`` ``(A, B, C, nfreq)``. ``cells`` = ``(n_e x ion term, T, ratio)``
-    with ``ratio`` = ``n_e / ion term`` or None where they are equal
+    The float64 ``alpha``, sensitivity and source per frequency and the
+    emission-measure weight of every cell of the emitting 8^3 blocks
+    (:func:`cell_sensitivities`; :func:`rtrace.memory.split_cell_bytes` of
+    those cells); the images and rays come on top, as for
+    any trace. A caller can compare it with :func:`rtrace.memory.available_memory`
+    before choosing the split.
+    """
+    return split_cell_bytes(int(np.count_nonzero(blocks)) << (3 * kernels.BLOCK_SHIFT), nfreq)
+
+
+def cell_sensitivities(route, cells, blocks, seg, bg):
+    """Per-cell quantities of the split, in the route's axis order, stored for the emitting blocks only.
+
+    Returns ``(stack, source, slots, where)``: ``stack`` ``(nblock, W, W, W,
+    2 nfreq + 1)`` holds ``alpha_nu`` (``[..., :nfreq]``), the mean
+    sensitivity ``W`` (``[..., nfreq:2 nfreq]``) and ``n_e x ion term``
+    (``[..., -1]``), the quantities projected onto the pixels in one pass;
+    ``source`` is ``S_nu`` ``(nblock, W, W, W, nfreq)``; block ``s`` holds
+    the ``W^3`` cells from ``where[s] * W`` and ``slots`` maps block indices
+    to ``s`` (-1: no emitting gas; :func:`linearized.block_slots`).
+    ``cells`` = ``(n_e x ion term, T, ratio)`` with ``ratio`` = ``n_e / ion
+    term`` or None where they are equal
     (:func:`rtrace.transfer.tracer.emission_ratio`): the He III share and the
     emission measure's ``n_e^2`` weight (the last plane then holds that weight);
     ``blocks`` (:func:`kernels.emitting_blocks`); all in the route's axis order;
@@ -92,59 +117,112 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     nn_abc, t_abc = cells[:2]
     ratio_abc = cells[2] if len(cells) > 2 else None
     nf = route.nfreq
-    shape = nn_abc.shape
-    check_memory(8 * int(np.prod(shape)) * (3 * nf + 1), field="tolerance",
-                 what=f"the per-cell coefficients of {nf} frequencies on {'x'.join(map(str, shape))} cells",
+    slots, where = linearized.block_slots(blocks)
+    nw = 1 << kernels.BLOCK_SHIFT
+    shape = (where.shape[0], nw, nw, nw)
+    check_memory(split_state_bytes(blocks, nf), field="tolerance",
+                 what=f"the per-cell coefficients of {nf} frequencies on {where.shape[0] * nw**3} cells "
+                      f"({where.shape[0]} blocks of {nw}^3 holding emitting gas)",
                  hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies")
     stack = np.zeros(shape + (2 * nf + 1,))
-    source = np.empty(shape + (nf,))
+    source = np.zeros(shape + (nf,))
     alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
-    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), alpha, source, ratio_abc)
-    stack[..., -1] = nn_abc if ratio_abc is None or route.tables.em_ions else nn_abc * ratio_abc
+    em_ratio = ratio_abc is not None and not route.tables.em_ions
+    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), where, alpha, source, stack[..., -1],
+                                      ratio_abc, em_ratio)
     m_a, m_b = route.m
     weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
     i_first, i_last = route.ia
     j_first, j_last = route.ib
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, shape[2])
+        count, da, db, ds = _layer_segments(route, pa, pb, nn_abc.shape[2])
         ray_i = np.ascontiguousarray(seg.intensity[:, rows, cols]).reshape(nf, -1)
         ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
-        linearized.sensitivity_pass(alpha, source, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
+        linearized.sensitivity_pass(alpha, source, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
                                     ray_i, ray_t, bg, weight, w)
-    return stack, source
+    return stack, source, slots, where
 
 
-def remainders(route, w, blocks, seg, bg):
+def remainders(route, w, slots, nk, seg, bg):
     """``R - I_bg = I + I_bg (e^-tau - 1) - sum_c W_c L_c`` on every ray of the route (``(nfreq, nI, nJ)``).
 
-    The background is left out (as in the tracer's images) so that pixels
-    no tube covers, off the grid's shadow, read zero.
+    ``w``: the compact sensitivities, ``slots`` their blocks, ``nk`` the
+    grid's depth in cells. The background is left out (as in the tracer's
+    images) so that pixels no tube covers, off the grid's shadow, read zero.
     """
     nf = route.nfreq
     out = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)
     i_first, i_last = route.ia
     j_first, j_last = route.ib
     for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
+        count, da, db, ds = _layer_segments(route, pa, pb, nk)
         linear = np.zeros((nf, n_i * n_j))
-        linearized.remainder_pass(w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
+        linearized.remainder_pass(w, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, linear)
         out[:, rows, cols] -= linear.reshape(nf, n_i, n_j)
     return out
 
 
-def traced_remainders(route, alpha, source, w, blocks, bg):
-    """:func:`remainders` of a (sub-)route's rays, traced on the per-cell coefficients (no separate trace)."""
+def needed_rays(route, pixels):
+    """Sub-lattice indices ``(I, J)`` (int64 arrays) of the route's rays whose tubes may touch ``pixels``.
+
+    ``pixels`` is a ``(ny, nx)`` bool mask: the rays that a footprint mean
+    over each of those pixels needs (:func:`linearized.mark_rays`).
+    """
+    rows, cols = np.nonzero(pixels)
+    mask = np.zeros(tuple(route.ray_shape), bool)
+    if mask.size and rows.size:
+        e1, e2 = np.asarray(route.e1, float), np.asarray(route.e2, float)
+        inv = np.ascontiguousarray(np.linalg.inv(np.column_stack([e1, e2])))
+        linearized.mark_rays(rows.astype(float), cols.astype(float), np.asarray(route.p0, float), e1, e2, inv,
+                             route.ia[0], route.ib[0], mask)
+    big_i, big_j = np.nonzero(mask)
+    return big_i + route.ia[0], big_j + route.ib[0]
+
+
+def traced_remainders(route, big_i, big_j, alpha, source, w, slots, nk, bg):
+    """:func:`remainders` of the route's rays ``(I, J)`` (``(nfreq, nray)``), traced on the per-cell coefficients.
+
+    One kernel call for all the rays, ordered so that those sharing a cell column are traced together.
+    """
     nf = route.nfreq
-    out = np.zeros((nf,) + tuple(route.ray_shape))
-    i_first, i_last = route.ia
-    j_first, j_last = route.ib
-    for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(route.m, i_first, i_last, j_first, j_last):
-        count, da, db, ds = _layer_segments(route, pa, pb, w.shape[2])
-        rem = np.zeros((nf, n_i * n_j))
-        linearized.remainder_trace(alpha, source, w, blocks, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
-                                   bg, rem)
-        out[:, rows, cols] = rem.reshape(nf, n_i, n_j)
+    m_a, m_b = route.m
+    tables = [_layer_segments(route, pa, pb, nk) for pa in range(m_a) for pb in range(m_b)]
+    count, da, db, ds = (np.stack([t[q] for t in tables]) for q in range(4))
+    phase = (big_i % m_a) * m_b + big_j % m_b
+    ray_a, ray_b = big_i // m_a, big_j // m_b
+    order = np.lexsort((phase, ray_b, ray_a))        # by cell column, then phase: rays sharing cells together
+    rem = np.zeros((nf, big_i.size))
+    linearized.remainder_trace(alpha, source, w, slots, 0, route.forward, ray_a[order], ray_b[order], phase[order],
+                               count, da, db, ds, bg, rem)
+    out = np.empty_like(rem)
+    out[:, order] = rem
     return out
+
+
+def remap_ray_list(route, big_i, big_j, values):
+    """Footprint means over the pixels of ``values`` ``(nq, nray)`` of the rays ``(I, J)`` (tubes clipped exactly).
+
+    Exact only on pixels all of whose rays are listed (:func:`needed_rays`).
+    """
+    ny, nx = route.image_shape
+    planes = np.zeros((values.shape[0], ny, nx))
+    e1, e2, p0 = np.asarray(route.e1, float), np.asarray(route.e2, float), route.p0
+    cols = p0[0] + big_i * e1[0] + big_j * e2[0]
+    rows = p0[1] + big_i * e1[1] + big_j * e2[1]
+    # tubes wholly inside one pixel add their whole area there (no clipping needed)
+    half_c, half_r = 0.5 * (abs(e1[0]) + abs(e2[0])), 0.5 * (abs(e1[1]) + abs(e2[1]))
+    ix, iy = np.floor(cols - half_c), np.floor(rows - half_r)
+    inside = (ix == np.floor(cols + half_c)) & (iy == np.floor(rows + half_r)) \
+        & (ix >= 0) & (ix < nx) & (iy >= 0) & (iy < ny)
+    if inside.any():
+        flat = (iy[inside] * nx + ix[inside]).astype(np.int64)
+        area = abs(e1[0] * e2[1] - e1[1] * e2[0])
+        for q in range(values.shape[0]):
+            planes[q] += np.bincount(flat, weights=area * values[q, inside], minlength=ny * nx).reshape(ny, nx)
+    rest = ~inside
+    remap_parallelograms(np.ascontiguousarray(cols[rest]), np.ascontiguousarray(rows[rest]), e1, e2,
+                         np.ascontiguousarray(values[:, rest]), planes)
+    return planes
 
 
 def remap_rays(route, values):
@@ -189,32 +267,6 @@ def local_bound(route, rem):
     return remap_rays(route, 2.0 * BOUND_FRACTION * big)
 
 
-def sub_route(route, r0, r1, c0, c1):
-    """``route`` restricted to the rays whose tubes can touch pixel rows r0..r1-1, columns c0..c1-1.
-
-    The copy's image is that block of pixels (``p0`` shifted, ``image_shape``
-    the block's), so :func:`remap_rays` gives the block alone.
-    """
-    import copy
-    out = copy.copy(route)
-    e1, e2 = np.asarray(route.e1), np.asarray(route.e2)
-    p0 = np.asarray(route.p0) - np.array([c0, r0], float)
-    inv = np.linalg.inv(np.column_stack([e1, e2]))
-    margin = np.abs(e1) + np.abs(e2)
-    w, h = c1 - c0, r1 - r0
-    corners = np.array([[-margin[0], -margin[1]], [w + margin[0], -margin[1]],
-                        [-margin[0], h + margin[1]], [w + margin[0], h + margin[1]]])
-    ij = (corners - p0) @ inv.T
-    out.ia = (max(route.ia[0], int(np.floor(ij[:, 0].min()))), min(route.ia[1], int(np.ceil(ij[:, 0].max()))))
-    out.ib = (max(route.ib[0], int(np.floor(ij[:, 1].min()))), min(route.ib[1], int(np.ceil(ij[:, 1].max()))))
-    out.ray_shape = (max(out.ia[1] - out.ia[0] + 1, 0), max(out.ib[1] - out.ib[0] + 1, 0))
-    if 0 in out.ray_shape:
-        out.ray_shape = (0, 0)
-    out.p0 = p0
-    out.image_shape = (h, w)
-    return out
-
-
 # Fraction of the local bound taken as the first lattice's error estimate (see local_bound).
 BOUND_FRACTION = 0.25
 # Pixels per side of the blocks refined on their own at 2 rays per cell side; halved with each
@@ -241,12 +293,13 @@ def _failing(error, value, floor, tolerance):
 
 
 def _tiles(mask, tile):
-    """Blocks ``(r0, r1, c0, c1)`` of ``tile`` pixels per side holding at least one True of ``mask``."""
+    """The union (``(ny, nx)`` bool) of the blocks of ``tile`` pixels per side holding at least one True of ``mask``."""
     ny, nx = mask.shape
-    for r0 in range(0, ny, tile):
-        for c0 in range(0, nx, tile):
-            if mask[r0:r0 + tile, c0:c0 + tile].any():
-                yield r0, min(ny, r0 + tile), c0, min(nx, c0 + tile)
+    nby, nbx = -(-ny // tile), -(-nx // tile)
+    padded = np.zeros((nby * tile, nbx * tile), bool)
+    padded[:ny, :nx] = mask
+    hit = padded.reshape(nby, tile, nbx, tile).any(axis=(1, 3))
+    return np.repeat(np.repeat(hit, tile, axis=0), tile, axis=1)[:ny, :nx]
 
 
 def _relative(error, value, floor):
@@ -274,7 +327,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     the background is left out of the sensitivities and the images are
     divided by it). Returns ``(SplitImages, m, relative estimate, converged)``.
     """
-    from .footprint import Footprint, project_cells
+    from .footprint import Footprint, project_blocks
 
     route = make_route(1)
     m = max(route.m)            # pixels smaller than a cell get more than one ray per cell side
@@ -283,17 +336,16 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     cells_abc = (nn_abc, t_abc, ratio_abc)
     seg = trace_rays(route)
     bg_rays = np.zeros_like(bg) if thin_scale is not None else bg
-    stack, source = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)
+    stack, source, slots, where = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)
+    nk = nn_abc.shape[2]
     nf = route.nfreq
     alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
     ny, nx = route.image_shape
-    zero = np.zeros(3, np.int64)
-    whole = np.asarray(cells_abc[0].shape, np.int64)
     projected = np.zeros((2 * nf + 1, ny, nx))
-    project_cells(Footprint.from_route(route), stack.transpose(3, 0, 1, 2), zero, whole, zero, projected)
+    project_blocks(Footprint.from_route(route), stack, where, projected)
     tau, proj_w, em = projected[:nf], projected[nf:2 * nf], projected[2 * nf:]
     scale = 1.0 if thin_scale is None else 1.0 / thin_scale
-    rem = remainders(route, w, blocks, seg, bg_rays)
+    rem = remainders(route, w, slots, nk, seg, bg_rays)
     lattice = remap_rays(route, rem)
     error = local_bound(route, rem)
     rays = float(route.ray_count)
@@ -304,17 +356,22 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
 
     failing = _failing(error * scale, current(), floor, tolerance)
     while tolerance is not None and failing.any() and 2 * m <= max_supersample:
-        fine = make_route(2 * m)
+        try:
+            fine = make_route(2 * m)
+        except InputError as exc:               # the finer lattice's rays would not fit: keep this one
+            warn_user(f"tolerance: refinement of this oblique view stopped at {m} rays per cell side, where "
+                      f"{int(failing.sum())} pixels are still above the tolerance, because the next lattice "
+                      f"would not fit in memory ({exc})", PixelAccuracyWarning)
+            break
         m = max(fine.m)
-        for r0, r1, c0, c1 in _tiles(failing, max(MIN_TILE, TILE * 2 // m)):
-            part = sub_route(fine, r0, r1, c0, c1)
-            if part.ray_shape == (0, 0):
-                continue
-            rem = traced_remainders(part, alpha, source, w, blocks, bg_rays)
-            block = remap_rays(part, rem)
-            error[:, r0:r1, c0:c1] = ESTIMATE_FACTOR * np.abs(block - lattice[:, r0:r1, c0:c1])
-            lattice[:, r0:r1, c0:c1] = block
-            rays += part.ray_count
+        tiles = _tiles(failing, max(MIN_TILE, TILE * 2 // m))
+        big_i, big_j = needed_rays(fine, tiles)
+        rem = traced_remainders(fine, big_i, big_j, alpha, source, w, slots, nk, bg_rays)
+        block = remap_ray_list(fine, big_i, big_j, rem)
+        error[:, tiles] = ESTIMATE_FACTOR * np.abs(block[:, tiles] - lattice[:, tiles])
+        lattice[:, tiles] = block[:, tiles]
+        rays += big_i.size
+        del rem, block
         failing = _failing(error * scale, current(), floor, tolerance)
     delta = current()
     error = error * scale
