@@ -111,9 +111,12 @@ def _kill_worker_on_first_brick(monkeypatch, kills):
             if kill:
                 done.append(lo)
         if kill:
+            from distributed.core import Status
             worker = distributed.get_worker()
             worker.loop.add_callback(worker.close, nanny=False, executor_wait=False)
-            time.sleep(0.5)                       # the worker goes while this task is running
+            deadline = time.monotonic() + 30.0    # the worker goes while this task is running (a fixed
+            while worker.status != Status.closed and time.monotonic() < deadline:     # sleep lost the
+                time.sleep(0.05)                  # race on a loaded machine: the result came back first)
         return real(self, lo, hi, arrays, origin, **kwargs)
 
     monkeypatch.setattr(tracer._ObliqueRoute, "trace_brick", trace_brick)

@@ -159,24 +159,27 @@ def test_refined_rays_cover_their_pixels(grid, pix_cells):
 
 
 def test_refinement_stops_where_the_next_lattice_does_not_fit(grid, monkeypatch):
-    # a finer lattice refused by the memory check ends the refinement with a warning and the estimate
-    # reached on the last lattice (not an error: the coarser images are still valid)
+    # a finer lattice whose rays (only those of the tiles refined) are refused by the memory check ends
+    # the refinement with a warning that says so and the estimate reached on the last lattice (not an
+    # error: the coarser images are still valid)
     from rtrace.errors import InputError
-    from rtrace.transfer import tracer
+    from rtrace.transfer import oblique_split, tracer
     snap = grid[0]
     view, _ = _view(*DIRECTIONS[0], 1.6)
     with monkeypatch.context() as patch:
         patch.setattr(tracer, "MAX_SUPERSAMPLE", 1)             # the first lattice alone
         first = _trace(snap, view, tolerance=1e-3)
-    check = tracer._check_ray_memory
 
-    def refuse_fine(route, supersample):
-        if supersample > 1:
-            raise InputError("supersample: not enough memory (test)")
-        return check(route, supersample)
+    real = oblique_split.check_memory
 
-    monkeypatch.setattr(tracer, "_check_ray_memory", refuse_fine)
-    with pytest.warns(PixelAccuracyWarning, match="stopped at 1 rays per cell side"):
+    def refuse(need, *, field, what, hint, budget=None):
+        if "rays of" in what:               # the refined rays; the per-cell state passes
+            raise InputError(f"{field}: {what}: not enough memory (test)")
+        return real(need, field=field, what=what, hint=hint, budget=budget)
+
+    monkeypatch.setattr(oblique_split, "check_memory", refuse)
+    with pytest.warns(PixelAccuracyWarning, match=r"at supersample=1, not the 0.001 asked for \(the \d+ rays of "
+                                                  r"the next lattice \(2 per cell side\) would not fit in memory\)"):
         res = rtrace.trace(snap, view, NU * u.Hz, tolerance=1e-3)
     assert not res.pixel_error.converged and res.pixel_error.supersample == 1
     assert res.pixel_error.max_relative > 1e-3

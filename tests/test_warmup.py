@@ -86,7 +86,7 @@ def test_warm_up_reaches_the_split_route_and_its_refinement():
     from rtrace.transfer import footprint_kernels, linearized
     warm_up()
     for kernel in (linearized.cell_coefficient_grids, linearized.sensitivity_pass, linearized.remainder_pass,
-                   linearized.remainder_trace, footprint_kernels.project):
+                   linearized.remainder_trace, linearized.mark_rays, footprint_kernels.project_blocks):
         dispatcher = getattr(kernel, "dispatcher", kernel)
         assert dispatcher.signatures, dispatcher.py_func.__name__
 

@@ -27,12 +27,11 @@ at 2 frequencies, 150 MB for the demo scenario (16% of its blocks emit).
 
 import numpy as np
 
-from ..errors import InputError, warn_user
-from ..memory import check_memory, split_cell_bytes
+from ..errors import InputError
+from ..memory import check_memory, split_cell_bytes, trace_ray_bytes
 from . import kernels, linearized
 from .compositing import Segment
 from .remap import remap_parallelograms
-from .result import PixelAccuracyWarning
 
 
 class SplitImages:
@@ -325,7 +324,9 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     With ``tolerance`` None one lattice (m = 1) is used.
     ``thin_scale``: the opacity scale of an absorption-free trace (then
     the background is left out of the sensitivities and the images are
-    divided by it). Returns ``(SplitImages, m, relative estimate, converged)``.
+    divided by it). Returns ``(SplitImages, m, relative estimate, converged, stopped)``,
+    ``stopped`` saying why refinement ended with pixels still above the
+    tolerance (the cap, or the next lattice's rays not fitting in memory), else None.
     """
     from .footprint import Footprint, project_blocks
 
@@ -355,17 +356,23 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
         return (proj_w + lattice) * scale
 
     failing = _failing(error * scale, current(), floor, tolerance)
-    while tolerance is not None and failing.any() and 2 * m <= max_supersample:
+    stopped = None
+    while tolerance is not None and failing.any():
+        if 2 * m > max_supersample:
+            stopped = f"the cap of {max_supersample} rays per cell side was reached"
+            break
+        fine = make_route(2 * m)                # the lattice's geometry; only the tiles' rays are traced
+        tiles = _tiles(failing, max(MIN_TILE, TILE * 2 // max(fine.m)))
+        big_i, big_j = needed_rays(fine, tiles)
         try:
-            fine = make_route(2 * m)
-        except InputError as exc:               # the finer lattice's rays would not fit: keep this one
-            warn_user(f"tolerance: refinement of this oblique view stopped at {m} rays per cell side, where "
-                      f"{int(failing.sum())} pixels are still above the tolerance, because the next lattice "
-                      f"would not fit in memory ({exc})", PixelAccuracyWarning)
+            check_memory(trace_ray_bytes(nf, big_i.size), field="tolerance",
+                         what=f"the {big_i.size} rays of {max(fine.m)} per cell side refining {int(tiles.sum())} pixels",
+                         hint="pass a larger tolerance, a coarser npix or fewer frequencies")
+        except InputError:                      # the finer lattice's rays would not fit: keep this one
+            stopped = (f"the {big_i.size} rays of the next lattice ({max(fine.m)} per cell side) would not fit in "
+                       "memory")
             break
         m = max(fine.m)
-        tiles = _tiles(failing, max(MIN_TILE, TILE * 2 // m))
-        big_i, big_j = needed_rays(fine, tiles)
         rem = traced_remainders(fine, big_i, big_j, alpha, source, w, slots, nk, bg_rays)
         block = remap_ray_list(fine, big_i, big_j, rem)
         error[:, tiles] = ESTIMATE_FACTOR * np.abs(block[:, tiles] - lattice[:, tiles])
@@ -381,5 +388,5 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
         tau[...] = 0.0
     images = SplitImages(delta, tau, em[0], error, rays / (nx * ny))
     del stack, source
-    return images, m, estimate, converged
+    return images, m, estimate, converged, stopped
 

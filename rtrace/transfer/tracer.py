@@ -40,7 +40,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, warn_user
-from ..memory import check_memory, fits_in_memory, format_bytes, split_cell_bytes, trace_image_bytes
+from ..memory import check_memory, fits_in_memory, format_bytes, trace_image_bytes
 from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
@@ -48,7 +48,7 @@ from . import bricks as _bricks
 from . import kernels
 from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
-from .oblique_split import lattice_phases, remap_rays, split_trace
+from .oblique_split import lattice_phases, remap_rays, split_state_bytes, split_trace
 from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
@@ -419,8 +419,8 @@ def _can_split(snapshot, edge, budget, client):
 
 
 def _split_fits(snapshot, nu):
-    """Whether the split's per-cell state for ``nu`` fits in the memory at hand (see :func:`split_cell_bytes`)."""
-    return fits_in_memory(split_cell_bytes(int(np.prod(snapshot.shape)), len(nu)))
+    """Whether the split's per-cell state for ``nu`` fits in the memory at hand (:func:`split_state_bytes`)."""
+    return fits_in_memory(split_state_bytes(snapshot.emitting_blocks(), len(nu)))
 
 
 def _warn_unrefined(snapshot, edge, budget, client, nu):
@@ -434,7 +434,7 @@ def _warn_unrefined(snapshot, edge, budget, client, nu):
     elif edge is not None or budget is not None:
         why = "the grid is traced in bricks (brick_size / max_memory)"
     else:
-        need = split_cell_bytes(int(np.prod(snapshot.shape)), len(nu))
+        need = split_state_bytes(snapshot.emitting_blocks(), len(nu))
         why = (f"its per-cell state ({format_bytes(need)} for {len(nu)} frequencies) does not fit in the "
                "memory available")
     warn_user(f"tolerance: this oblique view is traced on one lattice of 1 ray per cell with no pixel error "
@@ -453,7 +453,8 @@ def _split(tolerance, run):
 
     def make_route(m):
         route = _ObliqueRoute(snapshot, run["view"], run["center"], run["pix"], run["tables"], m)
-        _check_ray_memory(route, m)
+        if m == 1:          # the first lattice is traced whole; finer ones only where pixels need them
+            _check_ray_memory(route, m)
         return route
 
     def trace_rays(route):
@@ -462,14 +463,13 @@ def _split(tolerance, run):
         return _full_segment(patch, route.nfreq, route.ray_shape)
 
     cells = (snapshot.emission_product(), snapshot._t, snapshot.emitting_blocks(), snapshot.emission_ratio())
-    images, m, estimate, converged = split_trace(
+    images, m, estimate, converged, stopped = split_trace(
         make_route, trace_rays, cells, run["bg"], tolerance=tolerance,
         floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
     if tolerance is not None and not converged:
         warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
-                  f"at supersample={m}, not the {tolerance:g} asked for (the cap of {MAX_SUPERSAMPLE} rays per "
-                  "cell side was reached); pass a larger tolerance, a coarser npix or an explicit supersample",
-                  PixelAccuracyWarning)
+                  f"at supersample={m}, not the {tolerance:g} asked for ({stopped}); pass a larger tolerance, "
+                  "a coarser npix or an explicit supersample", PixelAccuracyWarning)
     return images.segment(run["bg"]), images.rays, PixelError(estimate, m, tolerance, PIXEL_FLOOR, converged)
 
 
