@@ -366,7 +366,8 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
         big_i, big_j = needed_rays(fine, tiles)
         try:
             check_memory(trace_ray_bytes(nf, big_i.size), field="tolerance",
-                         what=f"the {big_i.size} rays of {max(fine.m)} per cell side refining {int(tiles.sum())} pixels",
+                         what=(f"the {big_i.size} rays of {max(fine.m)} per cell side refining "
+                               f"{int(tiles.sum())} pixels"),
                          hint="pass a larger tolerance, a coarser npix or fewer frequencies")
         except InputError:                      # the finer lattice's rays would not fit: keep this one
             stopped = (f"the {big_i.size} rays of the next lattice ({max(fine.m)} per cell side) would not fit in "
