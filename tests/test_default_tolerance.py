@@ -98,12 +98,32 @@ def test_amr_snapshot_falls_back(snap):
 
 def test_per_cell_state_too_large_falls_back(snap, monkeypatch):
     monkeypatch.setattr(tracer, "fits_in_memory", lambda need: False)
-    with pytest.warns(PixelAccuracyWarning, match="does not fit in the memory available"):
+    with pytest.warns(PixelAccuracyWarning, match="even for one frequency at a time\\) does not fit in the memory"):
         res = rtrace.trace(snap, VIEW, NU)
     assert res.pixel_error.tolerance is None
     # an explicit tolerance is not silently dropped: the split's own memory check decides
     monkeypatch.undo()
     assert _quiet(snap, VIEW, NU, tolerance=1e-2).pixel_error.tolerance == 1e-2
+
+
+def test_frequencies_split_in_groups_when_their_state_does_not_fit(snap, monkeypatch):
+    # with room for one frequency's per-cell state at a time, each frequency is refined on its own:
+    # the images are those of tracing each frequency alone (thick 0.1 GHz, thin 10 GHz)
+    from rtrace.transfer.oblique_split import split_state_bytes
+    both = [0.1, 10.0] * u.GHz
+    one = split_state_bytes(snap.emitting_blocks(), 1)
+    monkeypatch.setattr(tracer, "fits_in_memory", lambda need: need <= one)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PixelAccuracyWarning)
+        res = rtrace.trace(snap, VIEW, both, tolerance=5e-2)
+        alone = [rtrace.trace(snap, VIEW, both[k:k + 1], tolerance=5e-2) for k in range(2)]
+    for k in range(2):
+        np.testing.assert_allclose(res.intensity.value[k], alone[k].intensity.value[0], rtol=1e-12, atol=0)
+        np.testing.assert_allclose(res.tau[k], alone[k].tau[0], rtol=1e-12, atol=0)
+    np.testing.assert_allclose(res.emission_measure.value, alone[0].emission_measure.value, rtol=1e-12)
+    pe = res.pixel_error
+    assert pe.max_relative == max(a.pixel_error.max_relative for a in alone)
+    assert pe.supersample == max(a.pixel_error.supersample for a in alone)
 
 
 def test_axis_views_are_exact_and_unchanged(snap):

@@ -123,6 +123,14 @@ class FrequencyTables:
     def args(self):
         return (self.log_t0, self.inv_dlog_t, self.gtab, self.hk, self.alpha_pref, self.b_pref, self.em_ions)
 
+    def subset(self, part):
+        """The tables of the frequencies ``part`` (a slice) alone."""
+        out = copy.copy(self)
+        out.nu, out.hk, out.alpha_pref = self.nu[part], self.hk[part], self.alpha_pref[part]
+        out.b_pref = np.ascontiguousarray(self.b_pref[:, part])
+        out.gtab = np.ascontiguousarray(self.gtab[:, part])
+        return out
+
 
 def _frequencies(frequencies):
     q = u.Quantity(frequencies)
@@ -183,9 +191,10 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         grids) an explicit ``tolerance`` doubles the whole lattice until
         two successive images agree, about four times the previous trace
         per doubling; with the default there, or where the split's
-        per-cell state (``8 (3 nfreq + 1)`` bytes per cell) does not fit
-        in memory, one lattice of 1 ray per cell is traced instead and a
-        :class:`PixelAccuracyWarning` says so. ``None``: one lattice, no
+        per-cell state (``8 (3 nfreq + 1)`` bytes per cell of the blocks
+        holding emitting gas; frequencies are taken in groups that fit)
+        does not fit in memory even for one frequency, one lattice of 1 ray
+        per cell is traced instead and a :class:`PixelAccuracyWarning` says so. ``None``: one lattice, no
         estimate (the fastest oblique trace). The estimate reached is in
         :attr:`Result.pixel_error`, provenance and FITS headers. Ignored
         when ``supersample`` is given and on axis-aligned views (exact).
@@ -419,8 +428,17 @@ def _can_split(snapshot, edge, budget, client):
 
 
 def _split_fits(snapshot, nu):
-    """Whether the split's per-cell state for ``nu`` fits in the memory at hand (:func:`split_state_bytes`)."""
-    return fits_in_memory(split_state_bytes(snapshot.emitting_blocks(), len(nu)))
+    """Whether the split's per-cell state for one frequency fits in the memory at hand (:func:`split_state_bytes`)."""
+    return fits_in_memory(split_state_bytes(snapshot.emitting_blocks(), 1))
+
+
+def _frequency_chunk(snapshot, nfreq):
+    """Most frequencies whose split state fits in memory together (at least 1: the split then says it does not fit)."""
+    blocks = snapshot.emitting_blocks()
+    k = nfreq
+    while k > 1 and not fits_in_memory(split_state_bytes(blocks, k)):
+        k = (k + 1) // 2
+    return k
 
 
 def _warn_unrefined(snapshot, edge, budget, client, nu):
@@ -434,8 +452,8 @@ def _warn_unrefined(snapshot, edge, budget, client, nu):
     elif edge is not None or budget is not None:
         why = "the grid is traced in bricks (brick_size / max_memory)"
     else:
-        need = split_state_bytes(snapshot.emitting_blocks(), len(nu))
-        why = (f"its per-cell state ({format_bytes(need)} for {len(nu)} frequencies) does not fit in the "
+        need = split_state_bytes(snapshot.emitting_blocks(), 1)
+        why = (f"its per-cell state ({format_bytes(need)} even for one frequency at a time) does not fit in the "
                "memory available")
     warn_user(f"tolerance: this oblique view is traced on one lattice of 1 ray per cell with no pixel error "
               f"estimate, because the error-controlled split needs the whole grid in memory and {why}; pixels "
@@ -445,14 +463,42 @@ def _warn_unrefined(snapshot, edge, budget, client, nu):
 
 
 def _split(tolerance, run):
-    """An oblique view by the split into an exact cell projection and a lattice remainder."""
+    """An oblique view by the split into an exact cell projection and a lattice remainder.
+
+    The frequencies are split in as few groups as let the per-cell state fit
+    in memory (:func:`_frequency_chunk`); each group is refined on its own, so
+    a group's images are those of a trace of its frequencies alone.
+    """
+    snapshot, tables, bg = run["snapshot"], run["tables"], run["bg"]
+    nf = len(tables.nu)
+    step = _frequency_chunk(snapshot, nf)
+    parts = [_split_frequencies(tolerance, run, tables.subset(slice(lo, lo + step)), bg[lo:lo + step])
+             for lo in range(0, nf, step)]
+    intensity = np.concatenate([p[0].intensity for p in parts])
+    tau = np.concatenate([p[0].tau for p in parts])
+    seg = Segment(intensity, tau, parts[0][0].em)
+    rays = max(p[1] for p in parts)
+    m = max(p[2] for p in parts)
+    estimate = max(p[3] for p in parts)
+    converged = all(p[4] for p in parts)
+    stopped = "; ".join(sorted({p[5] for p in parts if p[5]}))
+    if tolerance is not None and not converged:
+        warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
+                  f"at supersample={m}, not the {tolerance:g} asked for ({stopped}); pass a larger tolerance, "
+                  "a coarser npix or an explicit supersample", PixelAccuracyWarning)
+    return seg, rays, PixelError(estimate, m, tolerance, PIXEL_FLOOR, converged)
+
+
+def _split_frequencies(tolerance, run, tables, bg):
+    """:func:`split_trace` of the frequencies of ``tables``: ``(Segment, rays per pixel, m, estimate, converged,
+    why refinement stopped)``."""
     snapshot = run["snapshot"]
     zero = np.zeros(3, np.int64)
     whole = np.asarray(snapshot.shape, np.int64)
     arrays = (snapshot._ne, snapshot._ni, snapshot._t)
 
     def make_route(m):
-        route = _ObliqueRoute(snapshot, run["view"], run["center"], run["pix"], run["tables"], m)
+        route = _ObliqueRoute(snapshot, run["view"], run["center"], run["pix"], tables, m)
         if m == 1:          # the first lattice is traced whole; finer ones only where pixels need them
             _check_ray_memory(route, m)
         return route
@@ -464,13 +510,9 @@ def _split(tolerance, run):
 
     cells = (snapshot.emission_product(), snapshot._t, snapshot.emitting_blocks(), snapshot.emission_ratio())
     images, m, estimate, converged, stopped = split_trace(
-        make_route, trace_rays, cells, run["bg"], tolerance=tolerance,
+        make_route, trace_rays, cells, bg, tolerance=tolerance,
         floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
-    if tolerance is not None and not converged:
-        warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
-                  f"at supersample={m}, not the {tolerance:g} asked for ({stopped}); pass a larger tolerance, "
-                  "a coarser npix or an explicit supersample", PixelAccuracyWarning)
-    return images.segment(run["bg"]), images.rays, PixelError(estimate, m, tolerance, PIXEL_FLOOR, converged)
+    return images.segment(bg), images.rays, m, estimate, converged, stopped
 
 
 def _check_plasma_frequency(snapshot, nu):
