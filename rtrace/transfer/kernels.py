@@ -41,8 +41,8 @@ The axis kernels and :func:`emitting_blocks` are Python functions that run a
 (``relax_layout``), so the contiguous arrays and the transposed views of an
 oblique view share one compiled kernel. In these workers a per-cell call of a
 helper taking arrays is avoided: each array argument costs an atomic
-reference-count update per call, which numba prunes inside a ``prange`` body
-but not in a plain loop (:func:`_row_coefficients`).
+reference-count update per call, which a ``prange`` body did not pay but a
+plain loop does (:func:`_row_coefficients`).
 
 Kernels trust their inputs: the Python layer validates them.
 """
@@ -790,7 +790,7 @@ def _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, h
 
     :func:`_coefficients_at` written out with the same operations in the same order (so results are
     identical): called per cell, inlined or not, its array arguments cost an atomic reference-count
-    increment and decrement each per cell (numba did not prune them outside a ``prange`` body), half
+    increment and decrement each per cell (the ``prange`` build of the sweep did not pay them), half
     the sweep's time on a fully emitting grid.
     """
     nf = hk.shape[0]
