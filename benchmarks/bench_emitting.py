@@ -123,10 +123,11 @@ Images identical bit for bit (both directions, 1 and 8 frequencies). The cause o
 the atomic reference counts of the arrays passed per cell to the inlined ``_coefficients_at``; neither a separate
 row function calling it nor a non-inlined helper removed them; indexing the tables in the row loop itself
 (``kernels._row_coefficients``) did. Where the sweep's time goes (256^3, one thread, 1 frequency, 0.50 s, by
-leaving parts out): reading a layer's cells into the row buffers with their ``ln T`` 0.21 s, the coefficients
-0.15 s, the crossings 0.14 s. The first, a strided read of each layer, alone costs more on one thread than the
-whole axis-aligned trace on two (0.075 s), so the oblique/axis target (<= 2) needs a different way of reading
-the layers (not attempted).
+leaving parts out): reading a layer's cells into the row buffers 0.155 s, their ``ln T`` 0.055 s, the
+coefficients 0.15 s, the crossings 0.13-0.14 s. The read (a stride through memory per cell; about 10x a
+streaming pass over the two fields) alone costs twice the whole axis-aligned trace on two threads (0.075 s), so
+the oblique/axis target (<= 2) needs another way of reading the layers, e.g. tiles of 16 layers read along
+the contiguous axis (not attempted).
 """
 
 import argparse
