@@ -103,6 +103,31 @@ cell_coefficient_grids, sensitivity_pass, remap: 13 s) are what is left.
 load 1.6-3.6: before (d728b3a, whose warm-up reaches the split route through the default tolerance
 but not its block refinement) 18 kernels in 81.1 s and 78.7 s; after, 15 kernels in 39.9 s and
 41.3 s (43-44 s for the process); 2.5 s once cached.
+
+``trace_sheared`` on threads (``run_tasks``, one any-layout specialisation) instead of its parfor, load 1.0-1.6,
+old (1b240c9) and new alternating:
+
+=================================================  =====================  =====================
+                                                   before (parfor)        after (threads)
+=================================================  =====================  =====================
+trace_sheared alone, empty cache, 2 runs           13.7, 13.7 s           3.9, 3.9 s
+warm-up, empty cache (16 kernels), 2 runs          40.1, 41.6 s           33.2, 31.9 s
+kernel alone, 256^3, 2 threads, 1 / 8 frequencies  0.254 / 0.72 s         0.251 / 0.66 s
+  (medians of 5; second oblique direction)         0.192 / 0.633 s        0.211 / 0.628 s
+this script, oblique (median of 5), two runs       0.270, 0.286 s         0.277, 0.284 s
+this script, oblique/axis1 (median), two runs      3.67, 3.71             3.08, 3.74
+=================================================  =====================  =====================
+
+Images identical bit for bit (both directions, 1 and 8 frequencies). The cause of the plain build's 4-5x slowdown
+(0.24 s against 0.05 s, 128^3, one thread, 1 frequency): half its samples were in ``NRT_incref``/``NRT_decref``,
+the atomic reference counts of the arrays passed per cell to the inlined ``_coefficients_at``; neither a separate
+row function calling it nor a non-inlined helper removed them; indexing the tables in the row loop itself
+(``kernels._row_coefficients``) did. Where the sweep's time goes (256^3, one thread, 1 frequency, 0.50 s, by
+leaving parts out): reading a layer's cells into the row buffers 0.155 s, their ``ln T`` 0.055 s, the
+coefficients 0.15 s, the crossings 0.13-0.14 s. The read (a stride through memory per cell; about 10x a
+streaming pass over the two fields) alone costs twice the whole axis-aligned trace on two threads (0.075 s), so
+the oblique/axis target (<= 2) needs another way of reading the layers, e.g. tiles of 16 layers read along
+the contiguous axis (not attempted).
 """
 
 import argparse

@@ -90,3 +90,44 @@ def test_several_frequency_kernel_matches_direct_transfer(rng, forward):
                                               one_i, one_tau, one_em)
         np.testing.assert_allclose(one_i[0], out_i[f], rtol=1e-6, atol=0)
         np.testing.assert_allclose(one_tau[0], out_tau[f], rtol=1e-6, atol=0)
+
+
+@pytest.mark.parametrize("nus", [[5.0e9], [1.0e9, 5.0e9, 3.0e10], [5.0e9, 1.0e12]])
+def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus):
+    # The oblique sweep's per-row pass writes out _coefficients_at by hand (no per-cell call with arrays):
+    # alpha_nu (R&L 1979 eq. 5.18b, absorption_cgs, with He III cells) and B_nu (Planck's law, planck_cgs) per
+    # cell, zero where n_e n_i = 0, the largest alpha_nu returned; and it must agree with the per-cell helper
+    # (_cell_coefficients) to rounding, in the radio series (GHz) and the exact (1 THz, 50 K) branches.
+    nus = np.array(nus)
+    n = 60
+    ne = rng.uniform(5.0, 205.0, n)
+    ni = ne * np.where(rng.random(n) < 0.3, 1.1, 1.0)          # ion term above n_e: He III present
+    temp = rng.uniform(5.0e3, 2.0e4, n)
+    temp[4] = 50.0                                              # h nu / kT > SERIES_LIMIT at 1 THz
+    ne[rng.random(n) < 0.2] = 0.0
+    ni[ne == 0] = 0.0
+    tables = FrequencyTables(nus)
+    log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, _ = tables.args()
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    nn = ne * ni
+    share = np.array([kernels._helium3_share(a, b) for a, b in zip(ne, ni)])
+    x_row = (np.log(temp) - log_t0) * inv_dlog_t
+    kap, src = np.full(n * nus.size, np.nan), np.full(n * nus.size, np.nan)
+    kmax = kernels._row_coefficients(0, n - 1, nn, share, temp, x_row, gtab, gtab_t, hk, float(hk.max()),
+                                     alpha_pref, b_pref, kap, src)
+    kap, src = kap.reshape(n, nus.size), src.reshape(n, nus.size)
+    on = nn > 0
+    assert share.max() > 0 and not on.all()
+    assert np.all(kap[~on] == 0.0) and np.all(src[~on] == 0.0)
+    want_kap = np.stack([absorption_cgs(nu, temp[on], ne[on], ni[on]) for nu in nus], axis=1)
+    want_src = np.stack([planck_cgs(nu, temp[on]) for nu in nus], axis=1)
+    # the Gaunt factor comes from a table in ln T (linear interpolation): well below 1e-6 relative
+    np.testing.assert_allclose(kap[on], want_kap, rtol=1e-6, atol=0)
+    np.testing.assert_allclose(src[on], want_src, rtol=1e-6, atol=0)
+    assert kmax == kap.max()
+    for c in np.flatnonzero(on):
+        k1, s1 = np.empty(nus.size), np.empty(nus.size)
+        kernels._cell_coefficients(nn[c], share[c], temp[c], log_t0, inv_dlog_t, gtab, gtab_t, hk, float(hk.max()),
+                                   alpha_pref, b_pref, k1, s1)
+        np.testing.assert_allclose(kap[c], k1, rtol=1e-13, atol=0)
+        np.testing.assert_allclose(src[c], s1, rtol=1e-13, atol=0)

@@ -122,3 +122,44 @@ def test_emitting_blocks_match_a_numpy_reduction():
     pad[:20, :17, :9] = nn
     want = (pad.reshape(3, 8, 3, 8, 2, 8) > 0).any(axis=(1, 3, 5))
     assert got.dtype == np.uint8 and np.array_equal(got.astype(bool), want)
+
+
+def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout():
+    # trace_sheared runs its blocks of rows on threads (run_tasks): each block writes only its own rays, so one
+    # thread and two give the same bits, and transposed views (one any-layout specialisation) give what their
+    # contiguous copies give; with He III cells (the ratio array), thick cells (1 GHz) and thin ones (30 GHz)
+    from rtrace.transfer.tracer import FrequencyTables
+    rng = np.random.default_rng(5)
+    shape = (24, 40, 30)                                        # (c, a, b): transposed to (a, b, c) below
+    nn = 10.0 ** rng.uniform(2.0, 7.0, shape)                  # n_e x ion term, cm^-6
+    nn[rng.random(shape) < 0.3] = 0.0
+    temp = rng.uniform(5.0e3, 2.0e4, shape)
+    ratio = np.where(rng.random(shape) < 0.3, 0.9, 1.0)          # n_e / ion term below 1: He III
+    views = tuple(a.transpose(1, 2, 0) for a in (nn, temp, ratio))
+    copies = tuple(np.ascontiguousarray(a) for a in views)
+    assert not views[0].flags.c_contiguous
+    tables = FrequencyTables(np.array([1.0e9, 3.0e10]))
+    lo, hi, off = np.zeros(3, np.int64), np.array(views[0].shape, np.int64), np.zeros(3, np.int64)
+    cell = 3.0e16                                               # cm (about 0.01 pc)
+    segs = kernels.layer_segments(0.25, 0.75, 0.6, -0.35, cell, cell, cell, 0.8, 0, hi[2], True, 8)
+    n_i, n_j = 44, 33                                           # 6 blocks of 8 rows, the last one short
+
+    def sweep(arrays, threads):
+        before = numba.get_num_threads()
+        numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+        out_i, out_tau, out_em = np.zeros((2, 1, n_i * n_j)), np.zeros((2, 1, n_i * n_j)), np.zeros((1, n_i * n_j))
+        try:
+            kernels.trace_sheared(arrays[0], arrays[1], kernels.emitting_blocks(arrays[0]), lo, hi, off, 0, True,
+                                  -2, n_i, -3, n_j, *segs, *tables.args(), out_i, out_tau, out_em, arrays[2])
+        finally:
+            numba.set_num_threads(before)
+        return out_i, out_tau, out_em
+
+    one = sweep(copies, 1)
+    # rays of tau > 0.1 over ~30 cells at 1 GHz: cells with dtau above SERIES_LIMIT (1e-3), the exact branch
+    assert one[1][0].max() > 0.1 and one[1][1].max() > 0.0 and one[2].max() > 0.0
+    for arrays, threads in ((copies, 2), (views, 1), (views, 2)):
+        for a, b in zip(one, sweep(arrays, threads)):
+            assert np.array_equal(a, b)
+    sigs = kernels.trace_sheared.dispatcher.signatures
+    assert all(a.layout == "A" for s in sigs for a in s if isinstance(a, numba.types.Array)), sigs

@@ -36,10 +36,13 @@ single-frequency kernel reads the Gaunt table in a loop of its own.
 The axis kernels and :func:`emitting_blocks` are Python functions that run a
 ``nogil`` numba worker over ranges of planes on threads
 (:func:`rtrace.transfer.tasks.run_tasks`), not ``prange`` loops: numba's
-``parallel=True`` cost them 5-6x their compile time. :func:`trace_sheared`
-keeps its ``prange`` (compiled as a plain function its body ran 4x slower) and
-is called through :func:`rtrace.transfer.tasks.any_layout`, so the contiguous
-arrays and the transposed views of an oblique view share one compiled kernel.
+``parallel=True`` cost them 5-6x their compile time. So does :func:`trace_sheared`
+(threads over its blocks of rows), with one any-layout specialisation
+(``relax_layout``), so the contiguous arrays and the transposed views of an
+oblique view share one compiled kernel. In these workers a per-cell call of a
+helper taking arrays is avoided: each array argument costs an atomic
+reference-count update per call, which a ``prange`` body did not pay but a
+plain loop does (:func:`_row_coefficients`).
 
 Kernels trust their inputs: the Python layer validates them.
 """
@@ -48,10 +51,9 @@ import math
 
 import numba
 import numpy as np
-from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
-from .tasks import any_layout, run_tasks
+from .tasks import run_tasks
 
 __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
@@ -598,8 +600,6 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
     return count, da, db, ds
 
 
-@any_layout
-@numba.njit(cache=True, error_model="numpy", parallel=True)
 def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
                   seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em,
                   ratio=None):
@@ -636,19 +636,29 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     weight (``n_e^2`` or ``n_e x ion term``).
     """
     nk = count.shape[0]
-    nf = hk.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    hk_max = hk.max()
-    n_block = (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK
-    span_a, span_b = 0, 0
-    for s in range(nk):
-        a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, s, count[s])
-        span_a = max(span_a, a_max - a_min)
-        span_b = max(span_b, b_max - b_min)
-    n_t = gtab.shape[2]
-    top = n_t - 1.0
+    span_a = span_b = 0
+    if nk > 0:
+        first = np.arange(seg_da.shape[1]) < count[:, None]         # a layer's listed segments (else its first)
+        da = np.where(first, seg_da, seg_da[:, :1])
+        db = np.where(first, seg_db, seg_db[:, :1])
+        span_a = int((da.max(axis=1) - da.min(axis=1)).max())
+        span_b = int((db.max(axis=1) - db.min(axis=1)).max())
+    run_tasks(_sheared_row_blocks, (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK, nn_cells, temp, blocks, lo, hi, off,
+              int(k_lo), bool(forward), int(i0), int(n_i), int(j0), int(n_j), count, seg_da, seg_db, seg_ds,
+              float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()), alpha_pref, b_pref,
+              bool(em_ions), out_i, out_tau, out_em, ratio, span_a, span_b, relax_layout=True)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count,
+                        seg_da, seg_db, seg_ds, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
+                        em_ions, out_i, out_tau, out_em, ratio, span_a, span_b):
+    """Blocks of rows ``blk_lo <= blk < blk_hi`` of :func:`trace_sheared` (one task of :func:`run_tasks`)."""
+    nk = count.shape[0]
+    nf = hk.shape[0]
     width = n_j + span_b
-    for blk in prange(n_block):
+    for blk in range(blk_lo, blk_hi):
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
         # this block's cells of one layer: n_e n_i, alpha_nu per frequency, S_nu
@@ -714,24 +724,8 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
                     bits = np.float64(t).view(np.int64)
                     mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
                     x_row[yb] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
-                kmax = 0.0
-                kap_row, src_row = kap_flat[xb], src_flat[xb]
-                for yb in range(first, last + 1):
-                    nn = nn_row[yb]
-                    if nn > 0.0:
-                        xt = min(max(x_row[yb], 0.0), top)
-                        it = min(int(xt), n_t - 2)
-                        t = t_row[yb]
-                        inv_t = 1.0 / t
-                        _coefficients_at(it, xt - it, nn * math.sqrt(inv_t), sh_row[yb], t, inv_t, gtab, gtab_t, hk,
-                                         hk_max, alpha_pref, b_pref, kap_row, src_row, yb * nf)
-                        for f in range(nf):
-                            kmax = max(kmax, kap_row[yb * nf + f])
-                    else:
-                        for m in range(yb * nf, (yb + 1) * nf):
-                            kap_row[m] = 0.0
-                            src_row[m] = 0.0
-                row_kmax[xb] = kmax
+                row_kmax[xb] = _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk, hk_max,
+                                                 alpha_pref, b_pref, kap_flat[xb], src_flat[xb])
             for p in range(p_lo, p_hi):
                 r0 = (p - p_lo) * n_j
                 for g in range(count[s]):
@@ -758,16 +752,101 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
                             acc_i_flat[m] += one_minus_exp_series(dtau) * (src_row[m + shift] - acc_i_flat[m])
                             acc_t_flat[m] += dtau
                     else:
+                        # some cell optically thick at some frequency: _cross per cell, written out on the flat
+                        # rows (a view per crossing costs two atomic reference-count updates per array)
+                        kap_row, src_row = kap_flat[xb], src_flat[xb]
                         for q in range(q_lo, q_hi):
                             yb = yb0 + q
                             nn = nn_buf[xb, yb]
                             if nn > 0.0:
                                 out_em[0, p * n_j + q] += nn * ds
-                                _cross(kap_buf[xb, yb], src_buf[xb, yb], ds, acc_i[r0 + q], acc_t[r0 + q])
+                                c0, r = yb * nf, (r0 + q) * nf
+                                thick = False
+                                for f in range(nf):
+                                    thick |= kap_row[c0 + f] * ds >= SERIES_LIMIT
+                                if thick:
+                                    for f in range(nf):
+                                        dtau = kap_row[c0 + f] * ds
+                                        acc_i_flat[r + f] += one_minus_exp(dtau) * (src_row[c0 + f] - acc_i_flat[r + f])
+                                        acc_t_flat[r + f] += dtau
+                                else:
+                                    for f in range(nf):
+                                        dtau = kap_row[c0 + f] * ds
+                                        acc_i_flat[r + f] += one_minus_exp_series(dtau) * (src_row[c0 + f]
+                                                                                           - acc_i_flat[r + f])
+                                        acc_t_flat[r + f] += dtau
         for r in range((p_hi - p_lo) * n_j):
             for f in range(nf):
                 out_i[f, 0, p_lo * n_j + r] = acc_i[r, f]
                 out_tau[f, 0, p_lo * n_j + r] = acc_t[r, f]
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
+                      kap_row, src_row):
+    """Cells ``first <= yb <= last`` of one row of :func:`trace_sheared`'s layer buffer: ``alpha_nu`` and ``S_nu``
+    into ``kap_row[yb * nf + f]``, ``src_row[yb * nf + f]`` (zero where ``n_e n_i = 0``); returns the largest
+    ``alpha_nu``.
+
+    :func:`_coefficients_at` written out with the same operations in the same order (so results are
+    identical): called per cell, inlined or not, its array arguments cost an atomic reference-count
+    increment and decrement each per cell (the ``prange`` build of the sweep did not pay them), half
+    the sweep's time on a fully emitting grid.
+    """
+    nf = hk.shape[0]
+    n_t = gtab.shape[2]
+    top = n_t - 1.0
+    kmax = 0.0
+    for yb in range(first, last + 1):
+        nn = nn_row[yb]
+        c0 = yb * nf
+        if nn > 0.0:
+            xt = min(max(x_row[yb], 0.0), top)
+            it = min(int(xt), n_t - 2)
+            wt = xt - it
+            t = t_row[yb]
+            inv_t = 1.0 / t
+            a0 = nn * math.sqrt(inv_t)
+            share = sh_row[yb]
+            # _coefficients_at written out (the same operations in the same order)
+            if hk_max * inv_t < SERIES_LIMIT:
+                if share > 0.0:
+                    for f in range(nf):
+                        uu = hk[f] * inv_t
+                        g1 = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
+                        g2 = gtab_t[1, it, f] + wt * (gtab_t[1, it + 1, f] - gtab_t[1, it, f])
+                        kap_row[c0 + f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * (g1 + share * (g2 - g1))
+                        src_row[c0 + f] = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
+                else:
+                    for f in range(nf):
+                        uu = hk[f] * inv_t
+                        g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
+                        kap_row[c0 + f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
+                        src_row[c0 + f] = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
+            else:
+                for f in range(nf):
+                    uu = hk[f] * inv_t
+                    g = gtab[0, f, it] + wt * (gtab[0, f, it + 1] - gtab[0, f, it])
+                    if share > 0.0:
+                        g += share * (gtab[1, f, it] + wt * (gtab[1, f, it + 1] - gtab[1, f, it]) - g)
+                    if uu < SERIES_LIMIT:
+                        stim = _radio_stimulated(uu)
+                        source = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
+                    else:
+                        stim = one_minus_exp(uu)
+                        source = b_pref[0, f] * inverse_expm1(uu)
+                    kap_row[c0 + f] = a0 * (alpha_pref[f] * stim * g)
+                    src_row[c0 + f] = source
+            for f in range(nf):
+                kmax = max(kmax, kap_row[c0 + f])
+        else:
+            for f in range(nf):
+                kap_row[c0 + f] = 0.0
+                src_row[c0 + f] = 0.0
+    return kmax
+
+
+trace_sheared.dispatcher = _sheared_row_blocks       # the compiled kernel (its signatures, for the warm-up's checks)
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
