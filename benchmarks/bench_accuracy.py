@@ -49,7 +49,14 @@ lognormal grids of ``tests/test_pixel_accuracy.py`` the change between two latti
 small while both are 10-14% off (errors 0.106 and 0.143 against estimates below 0.05), which the
 wider tiles hide by refining neighbours further.
 
-Usage: ``python benchmarks/bench_accuracy.py [--cells 128] [--repeat 3]``
+The accuracy-cost curve on the merged tree (the default now 1e-2, the oblique sweep on threads), quiet
+machine (load 1-2), ``--cells 256 --tolerances 0.1 0.01 --repeat 3`` and ``--tolerances 0.001 --repeat 1``:
+demo, supersample=1 0.129 s (0.127 .. 0.13); 1e-1 1.04 s (1.03 .. 1.09) = 8.1x, 0.0994 at 2 rays per
+cell side; 1e-2 1.32 s (1.29 .. 1.34) = 10.2x, 0.0095 at 4; 1e-3 1.91 s = 15.4x, 0.00096 at 8 (met).
+Fully emitting, supersample=1 0.451 s (0.45 .. 0.457); 1e-1 4.09 s (3.99 .. 5.63) = 9.1x, 0.0989 at 4;
+1e-2 5.93 s (5.89 .. 6.05) = 13.1x, 0.00995 at 8; 1e-3 21.4 s = 48x, 0.00101 at the cap of 32 (not met).
+
+Usage: ``PYTHONPATH=. python benchmarks/bench_accuracy.py [--cells 128] [--repeat 3]``
 """
 
 import argparse
