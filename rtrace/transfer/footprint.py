@@ -244,7 +244,7 @@ class Footprint:
         crit = crit[np.concatenate([[True], np.diff(crit) > 1e-12 * extent])]
         s = v.max() - v.min()
         h = scale * _SPACING_FRACTION * min(s, 1.0) * max(s, 1.0) ** 0.5
-        coarse, fine, rows = [crit[:1]], [crit[:1]], [np.eye(1, 1)]
+        coarse, fine = [crit[:1]], [crit[:1]]
         ncoarse = 1
         blocks = []
         for a, b in zip(crit[:-1], crit[1:]):

@@ -194,8 +194,8 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
         per-cell state (``8 (3 nfreq + 1)`` bytes per cell of the blocks
         holding emitting gas; frequencies are taken in groups that fit)
         does not fit in memory even for one frequency, one lattice of 1 ray
-        per cell is traced instead and a :class:`PixelAccuracyWarning` says so. ``None``: one lattice, no
-        estimate (the fastest oblique trace). The estimate reached is in
+        per cell is traced instead and a :class:`PixelAccuracyWarning` says
+        so. ``None``: one lattice, no estimate (the fastest oblique trace). The estimate reached is in
         :attr:`Result.pixel_error`, provenance and FITS headers. Ignored
         when ``supersample`` is given and on axis-aligned views (exact).
     brick_size : int, optional
