@@ -30,6 +30,7 @@ import numpy as np
 from numba import prange
 
 from .remap import _clip
+from .tasks import run_tasks
 
 __all__ = ["exact_kernel", "kernel_table", "project"]
 
@@ -306,7 +307,6 @@ def _add_cell(dx, dy, val, buf, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, p
                 buf[q, row, col] += w * val[q]
 
 
-@numba.njit(cache=True, parallel=True)
 def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow,
                    out):
     """:func:`project` of cells stored by blocks: ``values[s, i, j, k, q]`` is cell ``where[s] * W + (i, j, k)``.
@@ -315,12 +315,20 @@ def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yin
     zeros and are skipped, as are all cells whose values are all zero);
     ``out`` (nchunk, nq, ny, nx): chunk ``t`` takes blocks ``t, t + nchunk, ...``.
     """
+    run_tasks(_project_block_chunks, out.shape[0], values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo,
+              table, int(power), float(total), shadow, out)
+
+
+@numba.njit(cache=True, nogil=True)
+def _project_block_chunks(t_lo, t_hi, values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power,
+                          total, shadow, out):
+    """Chunks ``t_lo <= t < t_hi`` of :func:`project_blocks` (one task of :func:`run_tasks`)."""
     nchunk, nq = out.shape[0], out.shape[1]
     nw = values.shape[1]
     g00, g01, g10, g11, g20, g21 = gmat[0, 0], gmat[0, 1], gmat[1, 0], gmat[1, 1], gmat[2, 0], gmat[2, 1]
     ncol = int(math.ceil(shadow[1] - shadow[0])) + 2
     nrow = int(math.ceil(shadow[3] - shadow[2])) + 2
-    for t in prange(nchunk):
+    for t in range(t_lo, t_hi):
         buf = out[t]
         ci = np.empty(ncol, np.int64)
         cf = np.empty(ncol)
@@ -348,3 +356,6 @@ def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yin
                             continue
                         _add_cell(base_x + i2 * g20, base_y + i2 * g21, val, buf, xs, ys, ixs, iys, bx, by, xinfo,
                                   yinfo, table, power, total, shadow, ci, cf, cc, ri, rf, rr, wgt)
+
+
+project_blocks.dispatcher = _project_block_chunks       # the compiled kernel (its signatures, for the warm-up's checks)

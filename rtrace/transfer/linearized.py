@@ -33,11 +33,10 @@ import math
 
 import numba
 import numpy as np
-from numba import prange
 
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
 from .kernels import BLOCK_SHIFT, _cell_coefficients, _share_from_ratio
-from .tasks import any_layout
+from .tasks import run_tasks
 
 BLOCK_MASK = (1 << BLOCK_SHIFT) - 1
 
@@ -59,8 +58,6 @@ def block_slots(blocks):
     return slots, where
 
 
-@any_layout
-@numba.njit(cache=True, parallel=True)
 def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, where, alpha,
                            source, em, ratio=None, em_ratio=False):
     """Fill the compact per-cell arrays of the emitting blocks ``where`` (:func:`block_slots`).
@@ -79,14 +76,21 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
     ``em_ions`` is unused here (the arguments are the tracer's
     ``FrequencyTables.args()``).
     """
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    run_tasks(_coefficient_blocks, where.shape[0], nn_cells, temp, float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk,
+              float(hk.max()), alpha_pref, b_pref, where, alpha, source, em, ratio, bool(em_ratio), relax_layout=True)
+
+
+@numba.njit(cache=True, nogil=True)
+def _coefficient_blocks(s_lo, s_hi, nn_cells, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
+                        where, alpha, source, em, ratio, em_ratio):
+    """Blocks ``s_lo <= s < s_hi`` of :func:`cell_coefficient_grids` (one task of :func:`run_tasks`)."""
     na, nb, nc = nn_cells.shape
     nw = alpha.shape[1]
     nf = hk.shape[0]
-    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    hk_max = hk.max()
-    for s in prange(where.shape[0]):
-        kap = np.empty(nf)
-        src = np.empty(nf)
+    kap = np.empty(nf)
+    src = np.empty(nf)
+    for s in range(s_lo, s_hi):
         for i in range(nw):
             a = where[s, 0] * nw + i
             if a >= na:
@@ -114,21 +118,15 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
                         em[s, i, j, k] = weight
 
 
-@numba.njit(cache=True, inline="always")
 def _row_stride(count, seg_da):
     """Rays of a phase whose cell columns differ by at least this never share a cell in any layer."""
-    span = 0
-    for s in range(count.shape[0]):
-        lo, hi = seg_da[s, 0], seg_da[s, 0]
-        for g in range(1, count[s]):
-            lo = min(lo, seg_da[s, g])
-            hi = max(hi, seg_da[s, g])
-        span = max(span, hi - lo)
-    return span + 1
+    if count.shape[0] == 0 or seg_da.shape[1] == 0:
+        return 1
+    first = np.arange(seg_da.shape[1]) < count[:, None]         # a layer's listed segments (else its first)
+    da = np.where(first, seg_da, seg_da[:, :1])
+    return int((da.max(axis=1) - da.min(axis=1)).max()) + 1
 
 
-@any_layout
-@numba.njit(cache=True, parallel=True)
 def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
                      ray_i, ray_tau, bg, weight, out_w):
     """Add, for every ray of the phase and cell it crosses, ``weight * ds * dI/dL_c`` to ``out_w[cell]``.
@@ -146,70 +144,83 @@ def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, coun
     in optical depth): the transmission to the observer is carried as
     ``e^{tau_behind - tau}``, updated by the cell's own factor.
     """
+    stride = _row_stride(count, seg_da)
+    for cls in range(stride):
+        run_tasks(_sensitivity_rows, (n_i - cls + stride - 1) // stride, cls, stride, alpha, source, slots, int(k_lo),
+                  bool(forward), int(i0), int(j0), int(n_j), count, seg_da, seg_db, seg_ds, ray_i, ray_tau, bg,
+                  float(weight), out_w, relax_layout=True)
+
+
+@numba.njit(cache=True, nogil=True)
+def _sensitivity_rows(t_lo, t_hi, cls, stride, alpha, source, slots, k_lo, forward, i0, j0, n_j, count, seg_da, seg_db,
+                      seg_ds, ray_i, ray_tau, bg, weight, out_w):
+    """Rows ``p = cls + t * stride``, ``t_lo <= t < t_hi``, of :func:`sensitivity_pass` (one task of :func:`run_tasks`)."""
     nk = count.shape[0]
     nf = bg.shape[0]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
-    stride = _row_stride(count, seg_da)
-    for cls in range(stride):
-        n_rows = (n_i - cls + stride - 1) // stride
-        for t in prange(n_rows):
-            p = cls + t * stride
-            acc_i = np.empty(nf)        # intensity emitted behind, so far (no background)
-            back = np.empty(nf)         # e^{-tau behind}
-            front = np.empty(nf)        # e^{-(tau - tau behind)}: transmission to the observer
-            behind = np.empty(nf)       # tau behind, for rays too thick to start from e^{-tau}
-            for q in range(n_j):
-                r = p * n_j + q
-                for f in range(nf):
-                    acc_i[f] = 0.0
-                    back[f] = 1.0
-                    front[f] = math.exp(-ray_tau[f, r])
-                    behind[f] = 0.0
-                for s in range(nk):
-                    k = k_lo + s if forward else k_lo + nk - 1 - s
-                    for g in range(count[s]):
-                        a = i0 + p + seg_da[s, g]
-                        b = j0 + q + seg_db[s, g]
-                        if a < 0 or b < 0 or a >= na or b >= nb:
-                            continue
-                        slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
-                        if slot < 0:
-                            continue            # a block of cells with no emitting gas
-                        la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
-                        if alpha[slot, la, lb, lk, 0] == 0.0:
-                            continue            # no gas (alpha is 0 at every frequency or none)
-                        ds = seg_ds[s, g]
-                        for f in range(nf):
-                            kap = alpha[slot, la, lb, lk, f]
-                            src = source[slot, la, lb, lk, f]
-                            dtau = kap * ds
-                            if dtau < SERIES_LIMIT:
-                                att = one_minus_exp_series(dtau)      # 1 - e^{-dtau}
-                                grow = 1.0 + dtau * (1.0 + dtau * (0.5 + dtau * (1.0 / 6.0 + dtau / 24.0)))
-                            else:
-                                att = -math.expm1(-dtau)
-                                grow = 1.0 / (1.0 - att)                # e^{dtau}
-                            acc_i[f] += att * (src - acc_i[f])
-                            back[f] *= 1.0 - att
-                            if ray_tau[f, r] < _DIRECT_TAU:
-                                front[f] = min(front[f] * grow, 1.0)
-                            else:                           # e^{-tau} would underflow: take it directly
-                                behind[f] += dtau
-                                front[f] = math.exp(min(behind[f] - ray_tau[f, r], 0.0))
-                            i_out = acc_i[f] + bg[f] * back[f]
-                            out_w[slot, la, lb, lk, f] += weight * ds * kap * (src - i_out) * front[f]
+    acc_i = np.empty(nf)        # intensity emitted behind, so far (no background)
+    back = np.empty(nf)         # e^{-tau behind}
+    front = np.empty(nf)        # e^{-(tau - tau behind)}: transmission to the observer
+    behind = np.empty(nf)       # tau behind, for rays too thick to start from e^{-tau}
+    for t in range(t_lo, t_hi):
+        p = cls + t * stride
+        for q in range(n_j):
+            r = p * n_j + q
+            for f in range(nf):
+                acc_i[f] = 0.0
+                back[f] = 1.0
+                front[f] = math.exp(-ray_tau[f, r])
+                behind[f] = 0.0
+            for s in range(nk):
+                k = k_lo + s if forward else k_lo + nk - 1 - s
+                for g in range(count[s]):
+                    a = i0 + p + seg_da[s, g]
+                    b = j0 + q + seg_db[s, g]
+                    if a < 0 or b < 0 or a >= na or b >= nb:
+                        continue
+                    slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
+                    if slot < 0:
+                        continue            # a block of cells with no emitting gas
+                    la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
+                    if alpha[slot, la, lb, lk, 0] == 0.0:
+                        continue            # no gas (alpha is 0 at every frequency or none)
+                    ds = seg_ds[s, g]
+                    for f in range(nf):
+                        kap = alpha[slot, la, lb, lk, f]
+                        src = source[slot, la, lb, lk, f]
+                        dtau = kap * ds
+                        if dtau < SERIES_LIMIT:
+                            att = one_minus_exp_series(dtau)      # 1 - e^{-dtau}
+                            grow = 1.0 + dtau * (1.0 + dtau * (0.5 + dtau * (1.0 / 6.0 + dtau / 24.0)))
+                        else:
+                            att = -math.expm1(-dtau)
+                            grow = 1.0 / (1.0 - att)                # e^{dtau}
+                        acc_i[f] += att * (src - acc_i[f])
+                        back[f] *= 1.0 - att
+                        if ray_tau[f, r] < _DIRECT_TAU:
+                            front[f] = min(front[f] * grow, 1.0)
+                        else:                           # e^{-tau} would underflow: take it directly
+                            behind[f] += dtau
+                            front[f] = math.exp(min(behind[f] - ray_tau[f, r], 0.0))
+                        i_out = acc_i[f] + bg[f] * back[f]
+                        out_w[slot, la, lb, lk, f] += weight * ds * kap * (src - i_out) * front[f]
 
 
-@any_layout
-@numba.njit(cache=True, parallel=True)
 def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
     """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase
     (``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`)."""
+    run_tasks(_remainder_rows, n_i, w_cells, slots, int(k_lo), bool(forward), int(i0), int(j0), int(n_j), count, seg_da,
+              seg_db, seg_ds, out_linear, relax_layout=True)
+
+
+@numba.njit(cache=True, nogil=True)
+def _remainder_rows(p_lo, p_hi, w_cells, slots, k_lo, forward, i0, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
+    """Rows ``p_lo <= p < p_hi`` of :func:`remainder_pass` (one task of :func:`run_tasks`)."""
     nk = count.shape[0]
     nf = w_cells.shape[4]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
-    for p in prange(n_i):
-        acc = np.empty(nf)
+    acc = np.empty(nf)
+    for p in range(p_lo, p_hi):
         for q in range(n_j):
             r = p * n_j + q
             for f in range(nf):
@@ -232,8 +243,6 @@ def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_d
                 out_linear[f, r] = acc[f]
 
 
-@any_layout
-@numba.njit(cache=True, parallel=True)
 def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da, seg_db,
                     seg_ds, bg, out_rem):
     """Trace a list of rays on the per-cell coefficients and return their remainders directly.
@@ -250,14 +259,22 @@ def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, 
     them (:func:`mark_rays`) are traced, and the coefficients are read, not
     recomputed.
     """
+    run_tasks(_remainder_rays, ray_a.shape[0], alpha, source, w_cells, slots, int(k_lo), bool(forward), ray_a, ray_b,
+              ray_phase, count, seg_da, seg_db, seg_ds, bg, out_rem, relax_layout=True)
+
+
+@numba.njit(cache=True, nogil=True)
+def _remainder_rays(r_lo, r_hi, alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da,
+                    seg_db, seg_ds, bg, out_rem):
+    """Rays ``r_lo <= r < r_hi`` of :func:`remainder_trace` (one task of :func:`run_tasks`)."""
     nk = count.shape[1]
     nf = w_cells.shape[4]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
-    for r in prange(ray_a.shape[0]):
+    acc_i = np.empty(nf)
+    acc_t = np.empty(nf)
+    lin = np.empty(nf)
+    for r in range(r_lo, r_hi):
         ph = ray_phase[r]
-        acc_i = np.empty(nf)
-        acc_t = np.empty(nf)
-        lin = np.empty(nf)
         for f in range(nf):
             acc_i[f] = 0.0
             acc_t[f] = 0.0
@@ -317,3 +334,10 @@ def mark_rays(pix_row, pix_col, p0, e1, e2, inv, i0, j0, mask):
                 row = p0[1] + (i + i0) * e1[1] + (j + j0) * e2[1]
                 if c_lo < col < c_hi and r_lo < row < r_hi:
                     mask[i, j] = True
+
+
+# the compiled kernels behind the Python entry points (their signatures, for the warm-up's checks)
+cell_coefficient_grids.dispatcher = _coefficient_blocks
+sensitivity_pass.dispatcher = _sensitivity_rows
+remainder_pass.dispatcher = _remainder_rows
+remainder_trace.dispatcher = _remainder_rays

@@ -13,7 +13,8 @@ import math
 
 import numba
 import numpy as np
-from numba import prange
+
+from .tasks import run_tasks
 
 __all__ = ["remap_parallelograms"]
 
@@ -88,7 +89,6 @@ def _add_tube(c0, r0, e1, e2, half_c, half_r, aligned, values, r, out, ax, ay, b
                     out[q, iy, ix] += area * values[q, r]
 
 
-@numba.njit(cache=True, parallel=True)
 def remap_parallelograms(cols, rows, e1, e2, values, out):
     """Accumulate ``values`` (nq, nray) of parallelogram tubes into ``out`` (nq, ny, nx).
 
@@ -104,15 +104,27 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
     adding to the same pixel. Bands depend only on the geometry, not on the
     thread count, so the sums are the same for any number of threads.
     """
-    nq, ny, nx = out.shape
+    ny = out.shape[1]
+    half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
+    height = max(int(math.ceil(2.0 * half_r)) + 2, 8)
+    n_band = (ny + height - 1) // height
+    start, order = _band_order(cols, rows, e1, e2, out.shape[2], ny, height, n_band)
+    # tubes that are rectangles aligned with the pixels: overlaps are products of 1D overlaps
+    aligned = bool((e1[1] == 0.0 and e2[0] == 0.0) or (e1[0] == 0.0 and e2[1] == 0.0))
+    for parity in range(2):
+        run_tasks(_band_pass, (n_band - parity + 1) // 2, parity, start, order, cols, rows, e1, e2, aligned, values,
+                  out)
+
+
+@numba.njit(cache=True, nogil=True)
+def _band_order(cols, rows, e1, e2, nx, ny, height, n_band):
+    """Counting sort of the tubes by band: ``(start, order)``, band ``b``'s tubes ``order[start[b]:start[b + 1]]``.
+
+    Tubes wholly outside the image are dropped.
+    """
     nray = cols.shape[0]
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
     half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
-    # tubes that are rectangles aligned with the pixels: overlaps are products of 1D overlaps
-    aligned = (e1[1] == 0.0 and e2[0] == 0.0) or (e1[0] == 0.0 and e2[1] == 0.0)
-    height = max(int(math.ceil(2.0 * half_r)) + 2, 8)
-    n_band = (ny + height - 1) // height
-    # counting sort of the tubes by band (tubes wholly outside the image are dropped)
     band = np.full(nray, -1, np.int64)
     start = np.zeros(n_band + 1, np.int64)
     for r in range(nray):
@@ -131,13 +143,23 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
         if band[r] >= 0:
             order[fill[band[r]]] = r
             fill[band[r]] += 1
-    for parity in range(2):
-        for t in prange((n_band - parity + 1) // 2):
-            b = 2 * t + parity
-            ax = np.empty(12)
-            ay = np.empty(12)
-            bx = np.empty(12)
-            by = np.empty(12)
-            for k in range(start[b], start[b + 1]):
-                r = order[k]
-                _add_tube(cols[r], rows[r], e1, e2, half_c, half_r, aligned, values, r, out, ax, ay, bx, by)
+    return start, order
+
+
+@numba.njit(cache=True, nogil=True)
+def _band_pass(t_lo, t_hi, parity, start, order, cols, rows, e1, e2, aligned, values, out):
+    """Bands ``b = 2 t + parity``, ``t_lo <= t < t_hi``, of :func:`remap_parallelograms` (one task of :func:`run_tasks`)."""
+    half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
+    half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
+    ax = np.empty(12)
+    ay = np.empty(12)
+    bx = np.empty(12)
+    by = np.empty(12)
+    for t in range(t_lo, t_hi):
+        b = 2 * t + parity
+        for k in range(start[b], start[b + 1]):
+            r = order[k]
+            _add_tube(cols[r], rows[r], e1, e2, half_c, half_r, aligned, values, r, out, ax, ay, bx, by)
+
+
+remap_parallelograms.dispatcher = _band_pass     # the compiled kernel of the band passes
