@@ -163,3 +163,41 @@ def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout():
             assert np.array_equal(a, b)
     sigs = kernels.trace_sheared.dispatcher.signatures
     assert all(a.layout == "A" for s in sigs for a in s if isinstance(a, numba.types.Array)), sigs
+
+
+@pytest.mark.parametrize("los", [(0.2, 0.5, 0.84), (0.85, 0.5, 0.17)])
+def test_split_route_on_threads_does_not_depend_on_the_thread_count(los):
+    # the split route's kernels (per-cell coefficients, sensitivities, remainders, refined rays, cell projection,
+    # tube remap) run on run_tasks threads with the chunking of the prange loops they replace: disjoint writes
+    # (rows a stride apart, one buffer per chunk, even then odd bands), so one thread and two agree to rounding, at
+    # the default tolerance and at one tight enough that blocks of rays are refined (not bit for bit: the cell
+    # projection keeps one buffer per thread, as its prange version did, and sums them at the end); thread count
+    # set with numba.set_num_threads (numba's documented API)
+    from rtrace.transfer import footprint_kernels, linearized, remap
+    snap = _sphere()
+    north = (1, 0, 0) if abs(los[0]) < 0.5 else (0, 0, 1)
+    view = rtrace.View(los=los, north=north, npix=14, width=0.25 * u.pc, distance=1 * u.kpc)
+    nus = [1.0, 30.0] * u.GHz
+    before = numba.get_num_threads()
+    for tolerance in (1e-2, 1e-4):
+        try:
+            numba.set_num_threads(1)
+            one = rtrace.trace(snap, view, nus, background="cmb", tolerance=tolerance)
+            numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+            two = rtrace.trace(snap, view, nus, background="cmb", tolerance=tolerance)
+        finally:
+            numba.set_num_threads(before)
+        assert np.all(np.isfinite(one.intensity)) and np.asarray(one.intensity).max() > 0.0
+        for a, b in ((one.intensity, two.intensity), (one.tau, two.tau),
+                     (one.emission_measure, two.emission_measure)):
+            a, b = np.asarray(a), np.asarray(b)
+            np.testing.assert_allclose(b, a, rtol=1e-12, atol=1e-12 * np.abs(a).max())
+    kernels_used = (linearized.cell_coefficient_grids, linearized.sensitivity_pass, linearized.remainder_pass,
+                    linearized.remainder_trace, footprint_kernels.project_blocks, remap.remap_parallelograms)
+    for kernel in kernels_used:
+        dispatcher = kernel.dispatcher
+        assert dispatcher.signatures, dispatcher.py_func.__name__          # it ran (compiled or from the cache)
+        assert not dispatcher.targetoptions.get("parallel"), dispatcher.py_func.__name__
+    for kernel in kernels_used[:4]:                                         # one any-layout specialisation
+        sigs = kernel.dispatcher.signatures
+        assert all(a.layout == "A" for s in sigs for a in s if isinstance(a, numba.types.Array)), sigs
