@@ -319,7 +319,7 @@ def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yin
               table, int(power), float(total), shadow, out)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True)
 def _project_block_chunks(t_lo, t_hi, values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power,
                           total, shadow, out):
     """Chunks ``t_lo <= t < t_hi`` of :func:`project_blocks` (one task of :func:`run_tasks`)."""

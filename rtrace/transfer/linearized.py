@@ -81,7 +81,7 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
               float(hk.max()), alpha_pref, b_pref, where, alpha, source, em, ratio, bool(em_ratio), relax_layout=True)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True)
 def _coefficient_blocks(s_lo, s_hi, nn_cells, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
                         where, alpha, source, em, ratio, em_ratio):
     """Blocks ``s_lo <= s < s_hi`` of :func:`cell_coefficient_grids` (one task of :func:`run_tasks`)."""
@@ -151,7 +151,7 @@ def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, coun
                   float(weight), out_w, relax_layout=True)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True)
 def _sensitivity_rows(t_lo, t_hi, cls, stride, alpha, source, slots, k_lo, forward, i0, j0, n_j, count, seg_da, seg_db,
                       seg_ds, ray_i, ray_tau, bg, weight, out_w):
     """Rows ``p = cls + t * stride``, ``t_lo <= t < t_hi``, of :func:`sensitivity_pass` (one task of :func:`run_tasks`)."""
@@ -213,7 +213,7 @@ def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_d
               seg_db, seg_ds, out_linear, relax_layout=True)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True)
 def _remainder_rows(p_lo, p_hi, w_cells, slots, k_lo, forward, i0, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
     """Rows ``p_lo <= p < p_hi`` of :func:`remainder_pass` (one task of :func:`run_tasks`)."""
     nk = count.shape[0]
@@ -263,7 +263,7 @@ def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, 
               ray_phase, count, seg_da, seg_db, seg_ds, bg, out_rem, relax_layout=True)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True)
 def _remainder_rays(r_lo, r_hi, alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da,
                     seg_db, seg_ds, bg, out_rem):
     """Rays ``r_lo <= r < r_hi`` of :func:`remainder_trace` (one task of :func:`run_tasks`)."""

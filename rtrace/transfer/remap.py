@@ -116,37 +116,25 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
                   out)
 
 
-@numba.njit(cache=True, nogil=True)
 def _band_order(cols, rows, e1, e2, nx, ny, height, n_band):
-    """Counting sort of the tubes by band: ``(start, order)``, band ``b``'s tubes ``order[start[b]:start[b + 1]]``.
+    """Stable sort of the tubes by band: ``(start, order)``, band ``b``'s tubes ``order[start[b]:start[b + 1]]``.
 
     Tubes wholly outside the image are dropped.
     """
-    nray = cols.shape[0]
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
     half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
-    band = np.full(nray, -1, np.int64)
+    lo = np.floor(rows - half_r)
+    keep = ~((np.floor(rows + half_r) < 0) | (lo > ny - 1) | (np.floor(cols + half_c) < 0)
+             | (np.floor(cols - half_c) > nx - 1))
+    idx = np.flatnonzero(keep)
+    band = np.minimum(np.maximum(lo[idx], 0.0).astype(np.int64) // height, n_band - 1)
+    order = idx[np.argsort(band, kind="stable")].astype(np.int64)
     start = np.zeros(n_band + 1, np.int64)
-    for r in range(nray):
-        lo = math.floor(rows[r] - half_r)
-        hi = math.floor(rows[r] + half_r)
-        if hi < 0 or lo > ny - 1 or math.floor(cols[r] + half_c) < 0 or math.floor(cols[r] - half_c) > nx - 1:
-            continue
-        b = min(max(lo, 0) // height, n_band - 1)
-        band[r] = b
-        start[b + 1] += 1
-    for b in range(n_band):
-        start[b + 1] += start[b]
-    order = np.empty(start[n_band], np.int64)
-    fill = start[:n_band].copy()
-    for r in range(nray):
-        if band[r] >= 0:
-            order[fill[band[r]]] = r
-            fill[band[r]] += 1
+    start[1:] = np.cumsum(np.bincount(band, minlength=n_band))
     return start, order
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True)
 def _band_pass(t_lo, t_hi, parity, start, order, cols, rows, e1, e2, aligned, values, out):
     """Bands ``b = 2 t + parity``, ``t_lo <= t < t_hi``, of :func:`remap_parallelograms` (one task of :func:`run_tasks`)."""
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
