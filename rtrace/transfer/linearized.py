@@ -35,7 +35,8 @@ import numba
 import numpy as np
 
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
-from .kernels import BLOCK_SHIFT, _cell_coefficients, _share_from_ratio
+from .kernels import (BLOCK_SHIFT, _cell_coefficients, _radio_source, _radio_stimulated, _share_from_ratio,
+                      _table_position)
 from .tasks import run_tasks
 
 BLOCK_MASK = (1 << BLOCK_SHIFT) - 1
@@ -106,11 +107,34 @@ def _coefficient_blocks(s_lo, s_hi, nn_cells, temp, log_t0, inv_dlog_t, gtab, gt
                     nn = float(nn_cells[a, b, c])
                     if nn > 0.0:
                         share = 0.0 if ratio is None else _share_from_ratio(float(ratio[a, b, c]))
-                        _cell_coefficients(nn, share, float(temp[a, b, c]), log_t0, inv_dlog_t, gtab, gtab_t, hk,
-                                           hk_max, alpha_pref, b_pref, kap, src)
-                        for f in range(nf):
-                            alpha[s, i, j, k, f] = kap[f]
-                            source[s, i, j, k, f] = src[f]
+                        t = float(temp[a, b, c])
+                        inv_t = 1.0 / t
+                        if hk_max * inv_t < SERIES_LIMIT:
+                            # the radio regime (the common case): kernels._cell_coefficients written out with the
+                            # same operations in the same order (a per-cell call of a helper taking arrays costs
+                            # an atomic reference-count update per array: kernels module docstring)
+                            it, wt = _table_position(t, log_t0, inv_dlog_t, gtab_t.shape[1])
+                            a0 = nn * math.sqrt(inv_t)
+                            if share > 0.0:
+                                for f in range(nf):
+                                    uu = hk[f] * inv_t
+                                    g1 = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
+                                    g2 = gtab_t[1, it, f] + wt * (gtab_t[1, it + 1, f] - gtab_t[1, it, f])
+                                    alpha[s, i, j, k, f] = (a0 * alpha_pref[f] * _radio_stimulated(uu)
+                                                            * (g1 + share * (g2 - g1)))
+                                    source[s, i, j, k, f] = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
+                            else:
+                                for f in range(nf):
+                                    uu = hk[f] * inv_t
+                                    g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
+                                    alpha[s, i, j, k, f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
+                                    source[s, i, j, k, f] = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
+                        else:
+                            _cell_coefficients(nn, share, t, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
+                                               alpha_pref, b_pref, kap, src)
+                            for f in range(nf):
+                                alpha[s, i, j, k, f] = kap[f]
+                                source[s, i, j, k, f] = src[f]
                         weight = nn
                         if ratio is not None:  # noqa: SIM102 (apart: numba prunes it when ratio is None)
                             if em_ratio:
