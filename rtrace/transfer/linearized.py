@@ -27,6 +27,15 @@ Every kernel works on one lattice phase of :class:`tracer._ObliqueRoute`
 (the rays ``(i0 + p, j0 + q)`` sharing the per-layer segments of
 :func:`kernels.layer_segments`), over whole in-memory grids in the route's
 ``(a, b, c)`` axis order.
+
+The passes are Python functions that run a ``nogil`` numba worker over
+ranges of blocks, rows or rays on threads
+(:func:`rtrace.transfer.tasks.run_tasks`, one any-layout specialisation),
+not ``prange`` loops, whose compilation cost several times the loops
+themselves; the chunks write disjoint output exactly as the ``prange``
+iterations did. Workers use ``error_model="numpy"`` (a thick cell's
+``1 / (1 - att)`` is ``inf``, not an exception) and do per-cell work in
+their own loop, not through a helper taking arrays (see :mod:`kernels`).
 """
 
 import math
