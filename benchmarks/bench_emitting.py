@@ -21,7 +21,7 @@ Latest (the split route's kernels on threads too, ``splitthr``; quiet machine, l
 gives 16 kernels in 21.4 s; the demo run with an empty cache compiles its 13 kernels in 15.9 and
 16.3 s (two runs; 27.4 s before that branch): ``_sheared_row_blocks`` 4 s, ``kernel_table`` 2.8 s,
 the remap's band pass 1.6 s and the last-axis planes 1.8 s are the largest left (target <= 15 s,
-not met by about 1 s). The tables above are the history.
+not met by about 1 s). The figures and tables below are the history.
 
 Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5] [--compile]``
 from the repository root (without ``PYTHONPATH=.`` a script imports the installed rtrace, not this
