@@ -92,8 +92,8 @@ def main():
     lazy_small = rtrace.open_hdf5(small_path, temperature="T", electron_density="ne")
     for v in views.values():            # compile / load the kernels outside the timings
         sv = rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc)
-        rtrace.trace(small, sv, nu)
-        rtrace.trace(lazy_small, sv, nu, brick_size=8)
+        rtrace.trace(small, sv, nu, supersample=1)
+        rtrace.trace(lazy_small, sv, nu, brick_size=8, supersample=1)
 
     t_open, lazy = best_of(lambda: rtrace.open_hdf5(path, temperature="T", electron_density="ne"), 1)
     print(f"\nopen_hdf5 (streaming validation + checksum over {fields_mb:.0f} MB): {t_open:6.3f} s")
@@ -102,10 +102,10 @@ def main():
           f"{'file/whole':>12}{'max diff':>10}")
     single = {}
     for name, v in views.items():
-        t_whole, ref = best_of(lambda: rtrace.trace(snap, v, nu), repeat)
-        t_brick, res_b = best_of(lambda: rtrace.trace(snap, v, nu, brick_size=brick), repeat)
-        t_budget, res_m = best_of(lambda: rtrace.trace(snap, v, nu, max_memory=budget), repeat)
-        t_file, res_f = best_of(lambda: rtrace.trace(lazy, v, nu, brick_size=brick), repeat)
+        t_whole, ref = best_of(lambda: rtrace.trace(snap, v, nu, supersample=1), repeat)
+        t_brick, res_b = best_of(lambda: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1), repeat)
+        t_budget, res_m = best_of(lambda: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1), repeat)
+        t_file, res_f = best_of(lambda: rtrace.trace(lazy, v, nu, brick_size=brick, supersample=1), repeat)
         single[name] = (t_file, res_f)
         diff = max(max_difference(r, ref) for r in (res_b, res_m, res_f))
         print(f"{name:<16}{t_whole:8.3f}s{t_brick:10.3f}s{t_budget:11.3f}s{t_file:8.3f}s"
@@ -116,7 +116,7 @@ def main():
     if reset_peak():
         base = status_bytes("VmRSS")
         for v in views.values():
-            rtrace.trace(lazy, v, nu, max_memory=budget)
+            rtrace.trace(lazy, v, nu, max_memory=budget, supersample=1)
         grown = status_bytes("VmHWM") - base
         print(f"\npeak RSS growth of the two file-backed traces under max_memory={budget!r}: "
               f"{grown / 1e6:.1f} MB (fields on disk: {fields_mb:.0f} MB)")
@@ -131,13 +131,14 @@ def main():
             Client(cluster) as client:
         for v in views.values():        # workers import rtrace and load the kernels once
             rtrace.trace(lazy_small, rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc), nu,
-                         brick_size=8, client=client)
+                         brick_size=8, client=client, supersample=1)
         t_start = time.perf_counter() - t0
         print(f"\ndask LocalCluster, 2 worker processes x 1 thread (start and warm-up {t_start:.1f} s), "
               f"file-backed, brick {brick}")
         print(f"{'view':<16}{'single':>9}{'dask':>9}{'dask/single':>13}{'max diff':>10}")
         for name, v in views.items():
-            t_dask, res = best_of(lambda: rtrace.trace(lazy, v, nu, brick_size=brick, client=client), repeat)
+            t_dask, res = best_of(lambda: rtrace.trace(lazy, v, nu, brick_size=brick, client=client, supersample=1),
+                                  repeat)
             t_single, res_single = single[name]
             print(f"{name:<16}{t_single:8.3f}s{t_dask:8.3f}s{t_dask / t_single:12.2f}x"
                   f"{max_difference(res, res_single):10.1e}")

@@ -79,7 +79,7 @@ def main():
     # compile (cached on disk after the first run) outside the timings
     small = demo.scenario(16)
     for v in (axis_view, oblique_view):
-        rtrace.trace(small, rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc), eight)
+        rtrace.trace(small, rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc), eight, supersample=1)
 
     cases = {"axis1": (axis_view, one), "axis8": (axis_view, eight), "oblique": (oblique_view, one)}
     times, results = interleaved_rounds(snap, cases, args.repeat)
@@ -88,7 +88,7 @@ def main():
     per_round = {"8/1": np.divide(times["axis8"], times["axis1"]),
                  "oblique/axis": np.divide(times["oblique"], times["axis1"])}
     snap.release()                                # measure the cached n_e x ion term too
-    mem_rt = max(traced_peak_mb(lambda: rtrace.trace(snap, v, nu))[0] for v, nu in cases.values())
+    mem_rt = max(traced_peak_mb(lambda: rtrace.trace(snap, v, nu, supersample=1))[0] for v, nu in cases.values())
     t_np, ref = best_of(lambda: numpy_reference(snap, one.to_value(u.Hz)), 1)
     mem_np, _ = traced_peak_mb(lambda: numpy_reference(snap, one.to_value(u.Hz)))
 
@@ -135,11 +135,11 @@ def interleaved_rounds(snap, cases, repeat):
     times = {k: [] for k in cases}
     results = {}
     for view, nu in cases.values():
-        rtrace.trace(snap, view, nu)
+        rtrace.trace(snap, view, nu, supersample=1)
     for _ in range(repeat):
         for key, (view, nu) in cases.items():
             t0 = time.perf_counter()
-            results[key] = rtrace.trace(snap, view, nu)
+            results[key] = rtrace.trace(snap, view, nu, supersample=1)
             times[key].append(time.perf_counter() - t0)
     return times, results
 

@@ -61,11 +61,11 @@ def main():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for label, snap, view, nu, kw in cases:           # compile and warm up
-            rtrace.trace(snap, view, nu, **kw)
+            rtrace.trace(snap, view, nu, supersample=1, **kw)
         for _ in range(args.rounds):
             for label, snap, view, nu, kw in cases:
                 t0 = time.perf_counter()
-                rtrace.trace(snap, view, nu, **kw)
+                rtrace.trace(snap, view, nu, supersample=1, **kw)
                 times[label].append(time.perf_counter() - t0)
     print(f"{n}^3 float32, {args.rounds} rounds: min / median / max (ms)")
     for label, ts in times.items():

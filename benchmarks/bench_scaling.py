@@ -54,7 +54,8 @@ def thread_scaling(snap, n, repeat):
     rows = []
     for k in range(1, top + 1):
         numba.set_num_threads(k)
-        rows.append((k, {name: best_of(lambda v=v: rtrace.trace(snap, v, NU), repeat)[0] for name, v in views.items()}))
+        rows.append((k, {name: best_of(lambda v=v: rtrace.trace(snap, v, NU, supersample=1), repeat)[0]
+                         for name, v in views.items()}))
     numba.set_num_threads(top)
     return rows
 
@@ -73,7 +74,7 @@ def main():
     # compile outside the timings (numba caches on disk)
     small = demo.scenario(16)
     for v in views_for(small, 16).values():
-        rtrace.trace(small, v, NU)
+        rtrace.trace(small, v, NU, supersample=1)
     del small
 
     results, threads = {}, None
@@ -82,7 +83,7 @@ def main():
         snap = demo.scenario(n)
         t_build = time.perf_counter() - t0
         gc.collect()
-        row = {name: best_of(lambda v=v: rtrace.trace(snap, v, NU), args.repeat)[0]
+        row = {name: best_of(lambda v=v: rtrace.trace(snap, v, NU, supersample=1), args.repeat)[0]
                for name, v in views_for(snap, n).items()}
         results[n] = row
         print(f"  N={n:4d}: scenario built in {t_build:6.1f} s; axis {row['axis']:8.3f} s, "

@@ -161,7 +161,8 @@ def main():
     # warm-ups outside the timings: numba compilation (cached on disk) and yt's first projection
     small = demo.scenario(16)
     for los in VIEWS.values():
-        rtrace.trace(small, rtrace.View(los=los, north=NORTH, npix=16, distance=DISTANCE), [5, 30] * u.GHz)
+        rtrace.trace(small, rtrace.View(los=los, north=NORTH, npix=16, distance=DISTANCE), [5, 30] * u.GHz,
+                     supersample=1)
     ds_small = load_into_yt(small)
     f_small, _ = add_emissivity(ds_small, 5.0, args.gaunt)
     for los in VIEWS.values():
@@ -176,7 +177,7 @@ def main():
     timings = {}
     for name, los in VIEWS.items():
         v = view(los)
-        t_rt, _ = best_of(lambda: rtrace.trace(snap, v, [5] * u.GHz), args.repeat)
+        t_rt, _ = best_of(lambda: rtrace.trace(snap, v, [5] * u.GHz, supersample=1), args.repeat)
         count5.cells = 0
         t_yt, _ = best_of(lambda: yt_projection(ds, f5, los, n, args.threads), args.repeat)
         per_run = count5.cells / args.repeat
@@ -206,7 +207,7 @@ def main():
         print(f"  whole-box thin flux of the yt field (numpy volume sum) {s_vol:.5g} Jy")
     del t, ne, ni, j_vol
     for name, los in VIEWS.items():
-        res = rtrace.trace(snap, view(los), [30] * u.GHz)
+        res = rtrace.trace(snap, view(los), [30] * u.GHz, supersample=1)
         s_rt = res.flux_density().to_value(u.Jy)[0]
         img_yt = as_rtrace_orientation(yt_projection(ds, f30, los, n, args.threads))
         s_yt = img_yt.sum() * pix_cm**2 / d_cm**2 * 1e23
