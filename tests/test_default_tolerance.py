@@ -169,3 +169,31 @@ def test_jobs_follow_the_default(tmp_path):
         warnings.simplefilter("ignore")
         assert main(["run", str(path), "--quiet"]) == EXIT_OK
     assert "RTPIXERR" not in fits.getheader(tmp_path / "plain" / "tilted_intensity.fits")
+
+
+def test_sky_maps_and_interferometer_images_carry_the_model_estimate(snap, tmp_path):
+    # a map made from an error-controlled trace says how accurate its model was (the cards of the traced
+    # Result, labelled as the model's: the beam averages pixel errors), and one from a plain lattice does not
+    from astropy.coordinates import SkyCoord
+    from astropy.io import fits
+    from radio_beam import Beam
+
+    from rtrace.interferometer import synthesize
+    from rtrace.observe import observe
+    view = rtrace.View(los=(1.0, 2.0, 3.0), north=(0.3, -0.9, 0.2), npix=13, width=13 * 1.6 * CELL * u.cm,
+                       distance=1 * u.kpc, sky_position=SkyCoord(ra=150 * u.deg, dec=40 * u.deg))
+    res = _quiet(snap, view, NU)
+    beam = Beam(3 * res.pixel_scale.to(u.arcsec))
+    header = fits.getheader(observe(res, beam, seed=1).write_fits(tmp_path / "observed.fits"))
+    assert header["RTPIXERR"] == pytest.approx(res.pixel_error.max_relative, rel=1e-6)
+    assert header["RTPIXSS"] == res.pixel_error.supersample
+    assert "model" in header.comments["RTPIXERR"]
+    antennas = np.array([[0, 0, 0], [610, 140, 1], [-380, 520, 2], [150, -700, 0]], float) * u.m
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")           # coarse sampling warnings are not the subject here
+        sm = synthesize(res, antennas=antennas, latitude=35 * u.deg, n_hour_angles=8, niter=10)
+    for image in ("restored", "dirty"):
+        header = fits.getheader(sm.write_fits(tmp_path / f"{image}.fits", image=image))
+        assert header["RTPIXERR"] == pytest.approx(res.pixel_error.max_relative, rel=1e-6)
+    plain = observe(_quiet(snap, view, NU, supersample=1), beam, seed=1)
+    assert "RTPIXERR" not in fits.getheader(plain.write_fits(tmp_path / "plain.fits"))

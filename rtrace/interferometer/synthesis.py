@@ -28,7 +28,7 @@ import numpy as np
 from ..errors import InputError
 from ..memory import check_memory, format_bytes, synthesis_bytes
 from ..quantities import finite_number, positive_scalar
-from ..io.fits import write_cube
+from ..io.fits import pixel_error_cards, write_cube
 from ..observe.beam import describe_beam
 from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
 from ..observe.skymap import SkyMap
@@ -533,7 +533,8 @@ class SynthesizedMap(SkyMap):
         return write_cube(path, data, self.frequencies, self.pixel_scale, self.sky_position,
                           beams=self.beams if with_beam else None, provenance=self.provenance,
                           reference_beam=self.beam if with_beam else None, quantity=f"synthesis {image}",
-                          spectral_axis=spectral_axis, background=header_cards("subtracted", self.result))
+                          spectral_axis=spectral_axis, background=header_cards("subtracted", self.result)
+                          + pixel_error_cards(self.result, model=True))
 
     def __repr__(self):
         nf, ny, nx = self.shape

@@ -61,7 +61,8 @@ Layout and header conventions
   ``RTVERS``, ``SNAPSRC``, ``SNAPSHA``, ``VIEW``, ``IONIZ``, ``BKGND``,
   ``BEAM``, ``NOISE``, ``RTPIXERR`` and ``RTPIXSS`` (a trace's estimated
   largest relative pixel error and its lattice's rays per cell side, see
-  :class:`rtrace.transfer.result.PixelError`) (strings longer than one card continue on
+  :class:`rtrace.transfer.result.PixelError`; on sky maps and interferometer images, those of the
+  traced model before the beam) (strings longer than one card continue on
   ``CONTINUE`` cards, announced by ``LONGSTRN = 'OGIP 1.0'``, the
   convention's keyword in the FITS standard's appendix on long strings,
   Pence et al. 2010, from memory); any other provenance entry becomes a
@@ -87,7 +88,7 @@ from ..transfer.background import header_cards, resolve_convention
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
-           "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
+           "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
 
 RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
@@ -783,7 +784,7 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
                       provenance=result.provenance, overwrite=overwrite, quantity=quantity,
                       spectral_axis=spectral_axis,
                       background=header_cards(convention if quantity in ("intensity", "brightness_temperature")
-                                              else "subtracted", result) + _pixel_error_cards(result)
+                                              else "subtracted", result) + pixel_error_cards(result)
                       + (_em_cards(result) if quantity == "emission_measure" else []))
 
 
@@ -797,14 +798,21 @@ def _em_cards(result):
     return [("EMDEF", EM_CARD_VALUES[definition], "emission measure definition")]
 
 
-def _pixel_error_cards(result):
-    """``RTPIXERR`` (estimated max relative pixel error) and ``RTPIXSS`` (rays per cell), for traces given a tolerance."""
+def pixel_error_cards(result, model=False):
+    """``RTPIXERR`` (estimated max relative pixel error) and ``RTPIXSS`` (rays per cell), for traces given a tolerance.
+
+    With ``model`` the cards describe the traced model a sky map was made from (before the beam,
+    noise or interferometer), and their comments say so: convolution averages pixel errors, so the
+    model's figure is an upper estimate for the map's pixels, not their error.
+    """
     pe = getattr(result, "pixel_error", None)
-    if pe is None or pe.tolerance is None or result.view.los_axis() is not None:
+    view = getattr(result, "view", None)
+    if pe is None or pe.tolerance is None or view is None or view.los_axis() is not None:
         return []
-    cards = [("RTPIXSS", int(pe.supersample), "rays per cell side of the oblique lattice")]
+    of = "model " if model else ""
+    cards = [("RTPIXSS", int(pe.supersample), f"rays per cell side of the {of}oblique lattice")]
     if np.isfinite(pe.max_relative):
-        cards.insert(0, ("RTPIXERR", float(pe.max_relative), "estimated max relative pixel error"))
+        cards.insert(0, ("RTPIXERR", float(pe.max_relative), f"estimated max relative {of}pixel error"))
     return cards
 
 
@@ -840,4 +848,5 @@ def write_skymap(skymap, path, overwrite=True, *, spectral_axis="auto"):
     return write_cube(path, data, skymap.frequencies, skymap.pixel_scale, skymap.sky_position,
                       beams=skymap.beams, provenance=skymap.provenance, overwrite=overwrite,
                       reference_beam=skymap.beam, quantity="sky map", spectral_axis=spectral_axis,
-                      background=header_cards(getattr(skymap, "background", "subtracted"), skymap))
+                      background=header_cards(getattr(skymap, "background", "subtracted"), skymap)
+                      + pixel_error_cards(getattr(skymap, "result", None), model=True))
