@@ -20,7 +20,12 @@ the translation, its pieces changing only where a vertex of one crosses an
 edge line of the other; :func:`exact_kernel` cuts ``[0, 1]`` at those
 crossings and integrates each piece with Simpson's rule, which is exact
 for quadratics, so ``K`` is exact to rounding. The overlap areas come from
-convex-polygon clipping (Sutherland & Hodgman 1974, CACM 17, 32).
+convex-polygon clipping (Sutherland & Hodgman 1974, CACM 17, 32), the
+remap's :func:`remap._box_overlap`: its clipping code written once (a loop
+over the box's sides) and its vertex buffers in one scratch array indexed
+in place, so that the table costs numba less to compile (issue 14: 2.3 ->
+1.6 CPU-s) and nothing per call of :func:`_overlap` but plain floats and
+two arrays.
 """
 
 import math
