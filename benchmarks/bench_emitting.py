@@ -15,15 +15,46 @@ within each round:
 
 * with ``--compile``: first-use compile time, the warm-up (``python -m rtrace.warmup``) run in a
   fresh process with an empty numba cache (``NUMBA_CACHE_DIR`` a new temporary folder): kernels
-  compiled and seconds, as the warm-up reports them (target for the demo's kernels <= 15 s)
+  compiled and seconds, as the warm-up reports them; then the demo (``rtrace demo``) the same way,
+  each kernel it compiles with its seconds (``rtrace.compiling.Compilation.kernels``; target for the
+  demo's kernels <= 15 s on an idle machine). ``--compile-only`` stops there.
 
-Latest (the split route's kernels on threads too, ``splitthr``; quiet machine, load 1.4): ``--compile``
+Latest (branch ``compile2``: the footprint table's and the remap's polygon clipping written once, as a loop
+over the box's sides, instead of four inlined copies; vertex buffers picked by index, so no array is passed
+or swapped per pixel; the tube work written into the remap's band pass). The demo with an empty cache, one
+process each, old (main, 6351ed1) and new alternating, two rounds, at load 5.7-9.4 (four other jobs on the
+2 cores, so wall time was 2-2.5x the CPU time; CPU seconds of the compiling thread, ``time.thread_time``,
+are the steadier measure):
+
+================================  ==================  ==================
+demo, 13 kernels + planck         before (main)       after (compile2)
+================================  ==================  ==================
+all, CPU s                        17.42, 18.09        15.59, 15.74
+kernel_table (with exact_kernel)  2.91, 3.26          1.92, 1.79
+remap band pass                   1.66, 1.75          1.14, 1.12
+_exact_many                       0.29, 0.29          0.20, 0.22
+the 11 others (unchanged)         12.56, 12.79        12.33, 12.61
+================================  ==================  ==================
+
+Scaled to an idle machine with the ratio of the old figures (15.9-16.3 s idle against 17.4-18.1 CPU-s
+here): about 14.2 s (13.9-14.6), target <= 15 s met, by about 0.8 s. In isolation (the two kernels
+compiled in a fresh process, 2 x 2 alternating runs): ``kernel_table`` 2.28-2.43 -> 1.52-1.72 CPU-s, the
+band pass 1.62-1.76 -> 1.16-1.37 CPU-s; run time, one thread: a 400 x 300 table 83-91 -> 30-34 ms
+(2.7x faster: ``_overlap`` no longer takes four array views per call), 200k tubes remapped 84-104 ->
+75-88 ms; tables and images bit for bit the same (52 cases, random and degenerate directions, compared
+with ``np.array_equal``). What is left is outside these modules: ``_sheared_row_blocks`` 4 s; and
+``_row_coefficients`` is compiled twice in ``trace_sheared``, once for the argument type
+``Literal[int](-1)``, because ``last`` starts as the literal ``-1`` (numba's type propagation compiles
+a called function for an intermediate literal type; ``first, last = width, np.int64(-1)`` in
+``_sheared_row_blocks`` removes it: 15.59, 15.74 -> 14.90, 15.45 CPU-s in the same rounds).
+
+Before (the split route's kernels on threads too, ``splitthr``; quiet machine, load 1.4): ``--compile``
 gives 16 kernels in 21.4 s; the demo run with an empty cache compiles its 13 kernels in 15.9 and
 16.3 s (two runs; 27.4 s before that branch): ``_sheared_row_blocks`` 4 s, ``kernel_table`` 2.8 s,
 the remap's band pass 1.6 s and the last-axis planes 1.8 s are the largest left (target <= 15 s,
 not met by about 1 s). The figures and tables below are the history.
 
-Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5] [--compile]``
+Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5] [--compile | --compile-only]``
 from the repository root (without ``PYTHONPATH=.`` a script imports the installed rtrace, not this
 copy).
 
@@ -208,6 +239,31 @@ def cold_compile():
     return int(found.group(1)), float(found.group(2)), wall
 
 
+# Run in a fresh process: the demo job (``rtrace demo``) with compilation watched, one line per kernel compiled.
+_DEMO_PROGRAM = """
+import contextlib, io, sys
+from rtrace.cli import main
+from rtrace.compiling import watch_compilation
+with watch_compilation() as seen, contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+    status = main(["demo", "--output", sys.argv[1]])
+for name, seconds in seen.kernels:
+    print(f"{seconds:.3f} {name}")
+sys.exit(status)
+"""
+
+
+def demo_compile():
+    """The demo (``rtrace demo``) in a fresh process with an empty numba cache: ``[(kernel, seconds), ...]``."""
+    with tempfile.TemporaryDirectory() as work:
+        env = dict(os.environ, NUMBA_CACHE_DIR=os.path.join(work, "cache"))
+        out = subprocess.run([sys.executable, "-c", _DEMO_PROGRAM, os.path.join(work, "out")], env=env,
+                             capture_output=True, text=True, check=True).stdout
+    kernels = [(name, float(seconds)) for seconds, name in (line.split(" ", 1) for line in out.splitlines())]
+    if not kernels:
+        raise RuntimeError("the demo compiled nothing with an empty cache")
+    return kernels
+
+
 def summary(values):
     v = np.asarray(values)
     return f"{v.min():8.3f} / {np.median(v):8.3f} / {v.max():8.3f}"
@@ -217,12 +273,22 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cells", type=int, default=256)
     parser.add_argument("--rounds", type=int, default=5)
-    parser.add_argument("--compile", action="store_true", help="also time the warm-up with an empty numba cache")
+    parser.add_argument("--compile", action="store_true",
+                        help="also time the warm-up and the demo, each with an empty numba cache")
+    parser.add_argument("--compile-only", action="store_true", help="only that (no per-cell timings)")
     args = parser.parse_args()
-    if args.compile:
+    if args.compile or args.compile_only:
         count, seconds, wall = cold_compile()
         print(f"first use, empty numba cache: the warm-up compiled {count} kernels in {seconds:.1f} s "
-              f"({wall:.1f} s for the whole process; target for the demo's kernels <= 15 s)", flush=True)
+              f"({wall:.1f} s for the whole process)", flush=True)
+        kernels = demo_compile()
+        total = sum(sec for _, sec in kernels)
+        print(f"the demo (rtrace demo) with an empty cache compiled {len(kernels)} kernels in {total:.1f} s "
+              f"(target <= 15 s on an idle machine; load average now {os.getloadavg()[0]:.1f}):", flush=True)
+        for name, sec in sorted(kernels, key=lambda k: -k[1]):
+            print(f"  {sec:6.2f} s  {name}")
+        if args.compile_only:
+            return
     n = args.cells
     cell = 1.0e-3 * u.pc
     ne = smooth_field(n, 5.0, 205.0, 1)

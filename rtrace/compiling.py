@@ -34,6 +34,8 @@ class _Listener(_event.Listener):
         self.start = 0.0
         self.seconds = 0.0
         self.count = 0
+        self.kernel = ""
+        self.kernels = []
 
     def on_start(self, event):
         if threading.get_ident() != self.thread:
@@ -42,6 +44,7 @@ class _Listener(_event.Listener):
         if self.depth == 1:
             if self.count == 0 and self.on_first is not None:
                 self.on_first()
+            self.kernel = _kernel_name(event.data)
             self.start = time.perf_counter()
 
     def on_end(self, event):
@@ -49,16 +52,32 @@ class _Listener(_event.Listener):
             return
         self.depth -= 1
         if self.depth == 0:
-            self.seconds += time.perf_counter() - self.start
+            seconds = time.perf_counter() - self.start
+            self.seconds += seconds
             self.count += 1
+            self.kernels.append((self.kernel, seconds))
+
+
+def _kernel_name(data):
+    """``module.function`` of the dispatcher a ``"numba:compile"`` event is about (``"?"`` if it says none)."""
+    func = getattr((data or {}).get("dispatcher"), "py_func", None)
+    if func is None:
+        return "?"
+    return f"{func.__module__}.{func.__qualname__}"
 
 
 class Compilation:
-    """What :func:`watch_compilation` saw: ``count`` kernels compiled in ``seconds`` (wall time)."""
+    """What :func:`watch_compilation` saw: ``count`` kernels compiled in ``seconds`` (wall time).
+
+    ``kernels`` lists them in the order compiled, ``(name, seconds)`` with
+    ``name`` the kernel's ``module.function`` (a kernel compiled inside
+    another's compilation is part of that one's seconds and not listed).
+    """
 
     def __init__(self):
         self.count = 0
         self.seconds = 0.0
+        self.kernels = []
 
 
 @contextmanager
@@ -76,7 +95,7 @@ def watch_compilation(say=None):
     Yields
     ------
     Compilation
-        Filled in when the block ends: ``count`` and ``seconds``.
+        Filled in when the block ends: ``count``, ``seconds`` and ``kernels``.
     """
     seen = Compilation()
     listener = _Listener((lambda: say(COMPILING_MESSAGE + " ...")) if say is not None else None)
@@ -84,7 +103,7 @@ def watch_compilation(say=None):
         try:
             yield seen
         finally:
-            seen.count, seen.seconds = listener.count, listener.seconds
+            seen.count, seen.seconds, seen.kernels = listener.count, listener.seconds, list(listener.kernels)
     if say is not None and seen.count:
         say(f"{COMPILING_MESSAGE}: {seen.count} compiled in {seen.seconds:.1f} s; "
             f"numba keeps them in its cache for later runs")

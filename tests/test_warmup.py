@@ -36,6 +36,9 @@ def test_notice_appears_when_a_kernel_is_compiled_and_not_after():
     with watch_compilation(said.append) as seen:
         assert add(1.0) == 1.0 + add.offset
     assert seen.count == 1 and seen.seconds > 0.0
+    # the kernel compiled, by name, with its seconds (the only one, so all of them)
+    assert [name for name, _ in seen.kernels] == [f"{__name__}._new_function.<locals>.add"]
+    assert seen.kernels[0][1] == seen.seconds
     assert said[0].startswith(COMPILING_MESSAGE)
     assert said[-1].startswith(f"{COMPILING_MESSAGE}: 1 compiled in ")       # the time taken
     # compiled now: calling again compiles nothing and says nothing
@@ -54,6 +57,7 @@ def test_nested_compilation_counts_once():
     with watch_compilation() as seen:
         outer(1.0)
     assert seen.count == 1          # inner is compiled inside outer's compilation
+    assert [name for name, _ in seen.kernels] == [f"{__name__}.test_nested_compilation_counts_once.<locals>.outer"]
 
 
 def test_warm_up_covers_the_routes_of_a_default_trace():

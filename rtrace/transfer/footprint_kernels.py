@@ -20,7 +20,12 @@ the translation, its pieces changing only where a vertex of one crosses an
 edge line of the other; :func:`exact_kernel` cuts ``[0, 1]`` at those
 crossings and integrates each piece with Simpson's rule, which is exact
 for quadratics, so ``K`` is exact to rounding. The overlap areas come from
-convex-polygon clipping (Sutherland & Hodgman 1974, CACM 17, 32).
+convex-polygon clipping (Sutherland & Hodgman 1974, CACM 17, 32), the
+remap's :func:`remap._box_overlap`: its clipping code written once (a loop
+over the box's sides) and its vertex buffers in one scratch array indexed
+in place, so that the table costs numba less to compile (issue 14: 2.3 ->
+1.6 CPU-s) and nothing per call of :func:`_overlap` but plain floats and
+two arrays.
 """
 
 import math
@@ -29,7 +34,7 @@ import numba
 import numpy as np
 from numba import prange
 
-from .remap import _clip
+from .remap import _box_overlap
 from .tasks import run_tasks
 
 __all__ = ["exact_kernel", "kernel_table", "project"]
@@ -40,62 +45,36 @@ _MARGIN = 1e-9
 
 
 @numba.njit(cache=True)
-def _overlap(zx, zy, g, ax, ay, bx, by):
-    """Area of the parallelogram ``z + a g_a + b g_b`` (a, b in [0, 1]) inside the unit square."""
-    ax[0] = zx
-    ay[0] = zy
-    ax[1] = zx + g[0]
-    ay[1] = zy + g[1]
-    ax[2] = ax[1] + g[2]
-    ay[2] = ay[1] + g[3]
-    ax[3] = zx + g[2]
-    ay[3] = zy + g[3]
-    xmin = min(min(ax[0], ax[1]), min(ax[2], ax[3]))
-    xmax = max(max(ax[0], ax[1]), max(ax[2], ax[3]))
-    ymin = min(min(ay[0], ay[1]), min(ay[2], ay[3]))
-    ymax = max(max(ay[0], ay[1]), max(ay[2], ay[3]))
+def _overlap(zx, zy, g, poly):
+    """Area of the parallelogram ``z + a g_a + b g_b`` (a, b in [0, 1]) inside the unit square.
+
+    ``poly`` is scratch space of 48 float64 (see :func:`remap._box_overlap`).
+    """
+    ax0 = zx
+    ay0 = zy
+    ax1 = zx + g[0]
+    ay1 = zy + g[1]
+    ax2 = ax1 + g[2]
+    ay2 = ay1 + g[3]
+    ax3 = zx + g[2]
+    ay3 = zy + g[3]
+    xmin = min(min(ax0, ax1), min(ax2, ax3))
+    xmax = max(max(ax0, ax1), max(ax2, ax3))
+    ymin = min(min(ay0, ay1), min(ay2, ay3))
+    ymax = max(max(ay0, ay1), max(ay2, ay3))
     if xmax <= 0.0 or xmin >= 1.0 or ymax <= 0.0 or ymin >= 1.0:
         return 0.0
-    n = 4
-    if xmin < 0.0:
-        n = _clip(ax, ay, n, bx, by, 0, 0.0, True)
-    else:
-        for k in range(n):
-            bx[k] = ax[k]
-            by[k] = ay[k]
-    if xmax > 1.0:
-        n = _clip(bx, by, n, ax, ay, 0, 1.0, False)
-    else:
-        for k in range(n):
-            ax[k] = bx[k]
-            ay[k] = by[k]
-    if ymin < 0.0:
-        n = _clip(ax, ay, n, bx, by, 1, 0.0, True)
-    else:
-        for k in range(n):
-            bx[k] = ax[k]
-            by[k] = ay[k]
-    if ymax > 1.0:
-        n = _clip(bx, by, n, ax, ay, 1, 1.0, False)
-    else:
-        for k in range(n):
-            ax[k] = bx[k]
-            ay[k] = by[k]
-    if n < 3:
-        return 0.0
-    area = 0.0
-    for k in range(n):
-        k2 = (k + 1) % n
-        area += ax[k] * ay[k2] - ax[k2] * ay[k]
-    return abs(0.5 * area)
-
-
-@numba.njit(cache=True)
-def _add_break(ts, n, t):
-    if 0.0 < t < 1.0:
-        ts[n] = t
-        return n + 1
-    return n
+    poly[0] = ax0
+    poly[1] = ax1
+    poly[2] = ax2
+    poly[3] = ax3
+    poly[12] = ay0
+    poly[13] = ay1
+    poly[14] = ay2
+    poly[15] = ay3
+    # clip only against the sides the parallelogram crosses
+    sides = int(xmin < 0.0) | (int(xmax > 1.0) << 1) | (int(ymin < 0.0) << 2) | (int(ymax > 1.0) << 3)
+    return _box_overlap(poly, 0.0, 1.0, 0.0, 1.0, sides)
 
 
 @numba.njit(cache=True)
@@ -104,10 +83,7 @@ def exact_kernel(dx, dy, g, lscale, work):
 
     ``work`` is scratch space of at least 96 float64 (one per thread).
     """
-    ax = work[0:12]
-    ay = work[12:24]
-    bx = work[24:36]
-    by = work[36:48]
+    poly = work[0:48]
     ts = work[48:96]
     gax, gay, gbx, gby, gcx, gcy = g[0], g[1], g[2], g[3], g[4], g[5]
     n = 0
@@ -121,18 +97,16 @@ def exact_kernel(dx, dy, g, lscale, work):
     for v in range(4):
         vx = dx + (gax if v == 1 or v == 2 else 0.0) + (gbx if v >= 2 else 0.0)
         vy = dy + (gay if v == 1 or v == 2 else 0.0) + (gby if v >= 2 else 0.0)
-        if gcx != 0.0:
-            for e in range(2):
-                t = (e - vx) / gcx
-                y = vy + t * gcy
-                if lo_m <= y <= hi_m:
-                    n = _add_break(ts, n, t)
-        if gcy != 0.0:
-            for e in range(2):
-                t = (e - vy) / gcy
-                x = vx + t * gcx
-                if lo_m <= x <= hi_m:
-                    n = _add_break(ts, n, t)
+        for axis in range(2):           # the pixel's edges x = e, then y = e
+            along, across = (vx, vy) if axis == 0 else (vy, vx)
+            g_along, g_across = (gcx, gcy) if axis == 0 else (gcy, gcx)
+            if g_along != 0.0:
+                for e in range(2):
+                    t = (e - along) / g_along
+                    o = across + t * g_across
+                    if lo_m <= o <= hi_m and 0.0 < t < 1.0:
+                        ts[n] = t
+                        n += 1
     # a corner of the pixel crosses an edge of the parallelogram: cross(u, c - delta - w - t g_c) = 0,
     # inside the edge: 0 <= (c - delta - w - t g_c) . u / |u|^2 <= 1
     for e in range(2):
@@ -149,8 +123,9 @@ def exact_kernel(dx, dy, g, lscale, work):
                 for cy in range(2):
                     t = (ux * (cy - oy) - uy * (cx - ox)) / den
                     along = ((cx - ox - t * gcx) * ux + (cy - oy - t * gcy) * uy) * uu
-                    if lo_m <= along <= hi_m:
-                        n = _add_break(ts, n, t)
+                    if lo_m <= along <= hi_m and 0.0 < t < 1.0:
+                        ts[n] = t
+                        n += 1
     # insertion sort of the break points
     for i in range(1, n):
         t = ts[i]
@@ -161,14 +136,14 @@ def exact_kernel(dx, dy, g, lscale, work):
         ts[j + 1] = t
     total = 0.0
     a = 0.0
-    fa = _overlap(dx, dy, g, ax, ay, bx, by)
+    fa = _overlap(dx, dy, g, poly)
     for i in range(1, n):
         b = ts[i]
         if b <= a:
             continue
         m = 0.5 * (a + b)
-        fm = _overlap(dx + m * gcx, dy + m * gcy, g, ax, ay, bx, by)
-        fb = _overlap(dx + b * gcx, dy + b * gcy, g, ax, ay, bx, by)
+        fm = _overlap(dx + m * gcx, dy + m * gcy, g, poly)
+        fb = _overlap(dx + b * gcx, dy + b * gcy, g, poly)
         total += (b - a) * (fa + 4.0 * fm + fb) / 6.0
         a = b
         fa = fb
