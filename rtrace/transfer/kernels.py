@@ -44,6 +44,15 @@ helper taking arrays is avoided: each array argument costs an atomic
 reference-count update per call, which a ``prange`` body did not pay but a
 plain loop does (:func:`_row_coefficients`).
 
+:func:`trace_sheared` gathers each task's cells :data:`_TILE` layers at a time
+into a tile ordered (layer, a, b), reading along the array's axis of unit
+stride, and asks the CPU to prefetch the columns ahead (:func:`_prefetch`):
+read layer by layer, a C-ordered grid seen nearly along its last axis is a
+stride through memory per cell, which the hardware prefetcher does not follow.
+An array index that numba cannot prove non-negative gets a negative-index
+wraparound (a select) on every access, which keeps a loop scalar: the sweep's
+loops index with ``np.uint64`` values or with ranges from 0.
+
 Kernels trust their inputs: the Python layer validates them.
 """
 
@@ -647,8 +656,12 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     absorption coefficient and source function at every frequency, then each
     segment of :func:`layer_segments` applies them to a whole row of rays
     (a cell is crossed by ~1 + |rho_a| + |rho_b| ray segments, so the
-    transcendentals are not repeated per crossing). Memory is read in order
-    and a cache line serves many consecutive layers. ``blocks`` is
+    transcendentals are not repeated per crossing). The cells are read
+    :data:`_TILE` layers at a time into a tile, along the axis of unit stride
+    (c or b) with the columns ahead prefetched, and each layer's rows then
+    come from the tile with unit stride; a single frequency in the radio
+    regime without He III has a vectorised row pass (:func:`_radio_row`).
+    ``blocks`` is
     :func:`emitting_blocks` of ``nn_cells`` (same axis order): cells of a
     block with no emitting cell are not read, and each row's crossings are
     confined to the span of its emitting cells, so neutral gas costs almost
