@@ -839,10 +839,10 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                     t = float(tile_t[lt, ur, uc]) if nn > 0.0 else 1.0e4
                     t_row[yb] = t
                     if nn > 0.0:
-                        first = min(first, yb)
-                        last = max(last, yb)
-                        t_min = min(t_min, t)
-                        sh_max = max(sh_max, share)
+                        first = yb if yb < first else first
+                        last = yb
+                        t_min = t if t < t_min else t_min
+                        sh_max = share if share > sh_max else sh_max
                 row_first[xb] = first
                 row_last[xb] = last
                 if last < 0:
@@ -925,9 +925,12 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
     """
     n_t = gtab_t.shape[1]
     top = n_t - 1.0
-    for yb in range(n):
-        xt = min(max(x_row[yb], 0.0), top)
-        it = min(int(xt), n_t - 2)
+    for yb in range(n):         # (selects, not min and max: in this kernel those stayed calls)
+        xt = x_row[yb]
+        xt = xt if xt > 0.0 else 0.0
+        xt = xt if xt < top else top
+        it = int(xt)
+        it = it if it < n_t - 2 else n_t - 2
         it_row[yb] = it
         g_row[yb] = xt - it
     for yb in range(n):         # the Gaunt factor (the gather)
@@ -942,7 +945,7 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
         src_row[yb] = _radio_source(t, uu, bp0, brj0) if nn > 0.0 else 0.0
     kmax = 0.0
     for yb in range(n):
-        kmax = max(kmax, kap_row[yb])
+        kmax = kap_row[yb] if kap_row[yb] > kmax else kmax
     return kmax
 
 
