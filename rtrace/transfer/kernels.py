@@ -71,10 +71,8 @@ __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_alon
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
 
 _ROW_BLOCK = 16     # rows of rays per parallel task in trace_sheared
-_TILE = 8           # layers trace_sheared gathers at a time (one 8-cell block along c)
 BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
-
-
+_TILE = 1 << BLOCK_SHIFT    # layers trace_sheared gathers at a time: one block of cells along c
 _AHEAD = 8          # trace_sheared's tile gather along c: prefetch the cells this many columns ahead
 
 
@@ -693,7 +691,7 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
         window = min(_TILE, nk)
         tile_a = int((_windows(da.max(axis=1), window).max(axis=1) - _windows(da.min(axis=1), window).min(axis=1)).max())
         tile_b = int((_windows(db.max(axis=1), window).max(axis=1) - _windows(db.min(axis=1), window).min(axis=1)).max())
-    # a tile is read along c (k innermost) where c is the axis of unit stride, else along b (y innermost)
+    # the tile gather prefetches columns ahead where c is the axis of unit stride
     along_c = nn_cells.strides[2] < nn_cells.strides[1]
     run_tasks(_sheared_row_blocks, (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK, nn_cells, temp, blocks, lo, hi, off,
               int(k_lo), bool(forward), int(i0), int(n_i), int(j0), int(n_j), count, seg_da, seg_db, seg_ds,
@@ -713,16 +711,15 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                         em_ions, out_i, out_tau, out_em, ratio, span_a, span_b, tile_a, tile_b, along_c):
     """Blocks of rows ``blk_lo <= blk < blk_hi`` of :func:`trace_sheared` (one task of :func:`run_tasks`).
 
-    The block's cells are read :data:`_TILE` layers at a time into tiles ordered (layer, a, b), with
-    unit stride in the array (``along_c``: along the layers when c is the axis of unit stride, else
-    along b), so each layer is then read from the tile with unit stride: read layer by layer, a
-    layer of a C-ordered grid seen along its last axis is a stride through memory per cell.
+    The block's cells are read :data:`_TILE` layers (one block of cells along c) at a time into tiles
+    ordered (layer, a, b), layer innermost, with the columns ahead prefetched where c is the axis of
+    unit stride (``along_c``); each layer is then read from the tile with unit stride. Read layer by
+    layer, a C-ordered grid seen along its last axis is a stride through memory per cell.
     """
     nk = count.shape[0]
     nf = hk.shape[0]
     width = n_j + span_b
     t_rows, t_cols = _ROW_BLOCK + tile_a, n_j + tile_b
-    line = max(1, 64 // nn_cells.itemsize)      # cells in a cache line (64 bytes)
     for blk in range(blk_lo, blk_hi):
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
@@ -764,56 +761,37 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                     tx_hi = max(tx_hi, min(i0 + p_hi + a_max, hi[0]))
                     ty_lo = min(ty_lo, max(j0 + b_min, lo[1]))
                     ty_hi = max(ty_hi, min(j0 + n_j + b_max, hi[1]))
-                # indices are unsigned (numba then adds no negative-index wraparound to each access)
+                # indices are unsigned (numba then adds no negative-index wraparound to each access); the tile is
+                # one block of cells along c (bk), read layer-innermost: along c, a run of adjacent cells; along b,
+                # each cache line serves the next columns
+                bk = np.uint64(tile)
+                n_k = t_k1 - t_k0
+                uk0 = np.uint64(t_k0)
                 for xr in range(tx_hi - tx_lo):
                     xl = np.uint64(tx_lo + xr - off[0])
                     bx = xl >> BLOCK_SHIFT
-                    if along_c:
-                        for yc in range(ty_hi - ty_lo):
-                            yl = np.uint64(ty_lo + yc - off[1])
-                            by = yl >> BLOCK_SHIFT
-                            if yc + _AHEAD < ty_hi - ty_lo:
-                                ya = yl + np.uint64(_AHEAD)
-                                for kq in range(t_k0, t_k1 + line, line):      # the cache lines of the run
-                                    kp = np.uint64(min(kq, t_k1 - 1))
-                                    _prefetch(nn_cells, xl, ya, kp)
-                                    _prefetch(temp, xl, ya, kp)
-                                    if ratio is not None:
-                                        _prefetch(ratio, xl, ya, kp)
-                            kq = t_k0
-                            while kq < t_k1:            # one block of cells along c at a time
-                                k_end = min(t_k1, ((kq >> BLOCK_SHIFT) + 1) << BLOCK_SHIFT)
-                                kq0 = np.uint64(kq)
-                                if blocks[bx, by, kq0 >> BLOCK_SHIFT]:
-                                    for kk in range(k_end - kq):
-                                        tile_nn[kq - t_k0 + kk, xr, yc] = nn_cells[xl, yl, kq0 + np.uint64(kk)]
-                                        tile_t[kq - t_k0 + kk, xr, yc] = temp[xl, yl, kq0 + np.uint64(kk)]
-                                    if ratio is not None:
-                                        for kk in range(k_end - kq):
-                                            tile_r[kq - t_k0 + kk, xr, yc] = ratio[xl, yl, kq0 + np.uint64(kk)]
-                                else:
-                                    for kk in range(k_end - kq):
-                                        tile_nn[kq - t_k0 + kk, xr, yc] = 0.0
-                                kq = k_end
-                    else:
-                        for kt in range(t_k1 - t_k0):
-                            uk = np.uint64(t_k0 + kt)
-                            bk = uk >> BLOCK_SHIFT
-                            y = ty_lo
-                            while y < ty_hi:            # one block of cells along b at a time
-                                y_end = min(ty_hi, ((((y - off[1]) >> BLOCK_SHIFT) + 1) << BLOCK_SHIFT) + off[1])
-                                y0 = np.uint64(y - off[1])
-                                if blocks[bx, y0 >> BLOCK_SHIFT, bk]:
-                                    for yy in range(y_end - y):
-                                        tile_nn[kt, xr, y - ty_lo + yy] = nn_cells[xl, y0 + np.uint64(yy), uk]
-                                        tile_t[kt, xr, y - ty_lo + yy] = temp[xl, y0 + np.uint64(yy), uk]
-                                    if ratio is not None:
-                                        for yy in range(y_end - y):
-                                            tile_r[kt, xr, y - ty_lo + yy] = ratio[xl, y0 + np.uint64(yy), uk]
-                                else:
-                                    for yy in range(y_end - y):
-                                        tile_nn[kt, xr, y - ty_lo + yy] = 0.0
-                                y = y_end
+                    for yc in range(ty_hi - ty_lo):
+                        yl = np.uint64(ty_lo + yc - off[1])
+                        if along_c and yc + _AHEAD < ty_hi - ty_lo:
+                            # the (one or two) cache lines of the run: its first and last cells
+                            ya, k_first, k_last = yl + np.uint64(_AHEAD), uk0, uk0 + np.uint64(n_k - 1)
+                            _prefetch(nn_cells, xl, ya, k_first)
+                            _prefetch(nn_cells, xl, ya, k_last)
+                            _prefetch(temp, xl, ya, k_first)
+                            _prefetch(temp, xl, ya, k_last)
+                            if ratio is not None:
+                                _prefetch(ratio, xl, ya, k_first)
+                                _prefetch(ratio, xl, ya, k_last)
+                        if blocks[bx, yl >> BLOCK_SHIFT, bk]:
+                            for kk in range(n_k):
+                                tile_nn[kk, xr, yc] = nn_cells[xl, yl, uk0 + np.uint64(kk)]
+                                tile_t[kk, xr, yc] = temp[xl, yl, uk0 + np.uint64(kk)]
+                            if ratio is not None:
+                                for kk in range(n_k):
+                                    tile_r[kk, xr, yc] = ratio[xl, yl, uk0 + np.uint64(kk)]
+                        else:
+                            for kk in range(n_k):
+                                tile_nn[kk, xr, yc] = 0.0
             a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, s, count[s])
             x_lo = max(i0 + p_lo + a_min, lo[0])
             x_hi = min(i0 + p_hi + a_max, hi[0])
