@@ -40,6 +40,9 @@ oblique/axis1 (min-median-max)     3.05-3.31-3.73 /        1.46-1.93-2.00 /     
                                    3.71-3.93-4.35          1.53-1.62-2.50
 =================================  ======================  ======================  ========
 
+(The "after" runs are of eac8455; the final tile gather, 2fe7960, once, while the test suite ran on the same
+cores: oblique 0.689 s, axis1 0.430 s, oblique/axis1 1.03-1.52-3.21.)
+
 ``trace_sheared`` alone, CPU seconds, one thread, medians of 5 (``los`` (0.3, 0.4, 0.87): layers along the
 contiguous axis; (0.9, -0.3, 0.5): along the first): 1 frequency 0.493 -> 0.236 s and 0.387 -> 0.210 s; 8
 frequencies (3 rounds) 0.985 -> 0.868 s and 0.854 -> 0.811 s. Where the single-frequency sweep's time went
