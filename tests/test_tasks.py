@@ -128,8 +128,8 @@ def test_emitting_blocks_match_a_numpy_reduction():
 def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout(nus):
     # trace_sheared runs its blocks of rows on threads (run_tasks): each block writes only its own rays, so one
     # thread and two give the same bits, and transposed views (one any-layout specialisation) give what their
-    # contiguous copies give (the cells are gathered in tiles along the axis of unit stride: c for the copies, b
-    # for the views); with He III cells (the ratio array), thick cells (1 GHz) and thin ones (30 GHz); one
+    # contiguous copies give (the cells are gathered in tiles of 8 layers, prefetched ahead where c has unit
+    # stride: the copies, not the views); with He III cells (the ratio array), thick cells (1 GHz) and thin ones (30 GHz); one
     # frequency without He III (hydrogen: no ratio array; its own row pass) gives what it gives beside another
     from rtrace.transfer.tracer import FrequencyTables
     rng = np.random.default_rng(5)

@@ -45,8 +45,8 @@ reference-count update per call, which a ``prange`` body did not pay but a
 plain loop does (:func:`_row_coefficients`).
 
 :func:`trace_sheared` gathers each task's cells :data:`_TILE` layers at a time
-into a tile ordered (layer, a, b), reading along the array's axis of unit
-stride, and asks the CPU to prefetch the columns ahead (:func:`_prefetch`):
+into a tile ordered (layer, a, b) and, where c is the array's axis of unit
+stride, asks the CPU to prefetch the columns ahead (:func:`_prefetch`):
 read layer by layer, a C-ordered grid seen nearly along its last axis is a
 stride through memory per cell, which the hardware prefetcher does not follow.
 An array index that numba cannot prove non-negative gets a negative-index
@@ -655,9 +655,9 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     segment of :func:`layer_segments` applies them to a whole row of rays
     (a cell is crossed by ~1 + |rho_a| + |rho_b| ray segments, so the
     transcendentals are not repeated per crossing). The cells are read
-    :data:`_TILE` layers at a time into a tile, along the axis of unit stride
-    (c or b) with the columns ahead prefetched, and each layer's rows then
-    come from the tile with unit stride; a single frequency in the radio
+    :data:`_TILE` layers (one block of cells along c) at a time into a tile,
+    with the columns ahead prefetched where c is the axis of unit stride, and
+    each layer's rows then come from the tile with unit stride; a single frequency in the radio
     regime without He III has a vectorised row pass (:func:`_radio_row`).
     ``blocks`` is
     :func:`emitting_blocks` of ``nn_cells`` (same axis order): cells of a
