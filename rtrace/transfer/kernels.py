@@ -903,7 +903,7 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
     """
     n_t = gtab_t.shape[1]
     top = n_t - 1.0
-    for yb in range(n):         # (selects, not min and max: in this kernel those stayed calls)
+    for yb in range(n):         # the table position, clamped to the table by selects
         xt = x_row[yb]
         xt = xt if xt > 0.0 else 0.0
         xt = xt if xt < top else top
