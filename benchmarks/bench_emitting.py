@@ -54,6 +54,36 @@ gives 16 kernels in 21.4 s; the demo run with an empty cache compiles its 13 ker
 the remap's band pass 1.6 s and the last-axis planes 1.8 s are the largest left (target <= 15 s,
 not met by about 1 s). The figures and tables below are the history.
 
+Oblique sweep (branch ``sweep2``, issue 14 item 3): ``trace_sheared`` gathers each task's cells one block
+(8 layers) at a time into a tile, layer innermost, prefetching the columns 8 ahead (``llvm.prefetch``) when the
+rays run nearly along the array's last axis; its loops index with unsigned values (a signed index costs a
+negative-index wraparound per access, which had kept the crossing loop and the ``ln T`` loop scalar), 16 rows
+of rays a task, and one frequency in the radio regime without He III has a vectorised row pass
+(``_radio_row``). Images bit-identical (both directions, 1 and 8 frequencies). This script, 256^3, 5 rounds,
+two alternating runs of each, machine busy (load 8-11):
+
+=================================  ======================  ======================  ========
+both threads, medians, s           before (6351ed1)        after (sweep2)          target
+=================================  ======================  ======================  ========
+axis 1 frequency                   0.410 / 0.354           0.366 / 0.344
+oblique, supersample=1             1.388 / 1.461           0.617 / 0.596
+oblique/axis1 (min-median-max)     3.05-3.31-3.73 /        1.46-1.93-2.00 /        <= 2
+                                   3.71-3.93-4.35          1.53-1.62-2.50
+=================================  ======================  ======================  ========
+
+(The "after" runs are of eac8455; the final tile gather, 2fe7960, once, while the test suite ran on the same
+cores: oblique 0.689 s, axis1 0.430 s, oblique/axis1 1.03-1.52-3.21.)
+
+``trace_sheared`` alone, CPU seconds, one thread, medians of 5 (``los`` (0.3, 0.4, 0.87): layers along the
+contiguous axis; (0.9, -0.3, 0.5): along the first): 1 frequency 0.493 -> 0.236 s and 0.387 -> 0.210 s; 8
+frequencies (3 rounds) 0.985 -> 0.868 s and 0.854 -> 0.811 s; the sparse demo scenario (``demo.scenario(256)``,
+13.7% of cells emit, first view) 0.131 -> 0.130 s, image identical. Where the single-frequency sweep's time went
+before (perf, samples by code address): a quarter in the loads of the strided layer reads, then the ``ln T``
+and crossing loops (scalar: the wraparound), then the coefficients; after: the tile gather's loads still lead.
+Compile time: ``_sheared_row_blocks`` with an empty cache (a first call on a tiny float32 grid, 1 frequency,
+two runs each) 4.2-4.3 -> 5.5-5.8 CPU-s (numba's LLVM time about 2.5 -> 4.7 s: the loops that now vectorise),
+so it grew by about 1.4 s (the brief asked that it not grow; not met).
+
 Usage: ``PYTHONPATH=. python benchmarks/bench_emitting.py [--cells 256] [--rounds 5] [--compile | --compile-only]``
 from the repository root (without ``PYTHONPATH=.`` a script imports the installed rtrace, not this
 copy).

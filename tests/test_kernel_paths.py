@@ -131,3 +131,36 @@ def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus
                                    alpha_pref, b_pref, k1, s1)
         np.testing.assert_allclose(kap[c], k1, rtol=1e-13, atol=0)
         np.testing.assert_allclose(src[c], s1, rtol=1e-13, atol=0)
+
+
+@pytest.mark.parametrize("nu", [5.0e9, 3.0e10])
+def test_oblique_radio_row_matches_the_physics_and_the_general_row_pass(rng, nu):
+    # The oblique sweep's single-frequency pass for rows in the radio regime without He III (_radio_row: the
+    # table position, the Gaunt-table gather and the coefficients in separate loops) against alpha_nu (R&L 1979
+    # eq. 5.18b, absorption_cgs) and B_nu (Planck's law, planck_cgs), zero where n_e n_i = 0, and bit for bit
+    # against the general row pass (_row_coefficients), which does the same operations in the same order.
+    n = 77
+    ne = rng.uniform(5.0, 205.0, n)
+    temp = rng.uniform(5.0e3, 2.0e4, n)
+    ne[rng.random(n) < 0.2] = 0.0
+    temp[ne == 0] = 1.0e4                                       # what the sweep's row buffer holds there
+    tables = FrequencyTables(np.array([nu]))
+    log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, _ = tables.args()
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    nn = ne * ne
+    x_row = (np.log(temp) - log_t0) * inv_dlog_t
+    kap, src = np.full(n, np.nan), np.full(n, np.nan)
+    kmax = kernels._radio_row(n, nn, temp, x_row, gtab_t, hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0],
+                              np.empty(n, np.int64), np.empty(n), kap, src)
+    on = nn > 0
+    assert 0 < on.sum() < n
+    assert np.all(kap[~on] == 0.0) and np.all(src[~on] == 0.0)
+    np.testing.assert_allclose(kap[on], absorption_cgs(nu, temp[on], ne[on], ne[on]), rtol=1e-6, atol=0)
+    np.testing.assert_allclose(src[on], planck_cgs(nu, temp[on]), rtol=1e-6, atol=0)
+    assert kmax == kap.max()
+    k2, s2 = np.full(n, np.nan), np.full(n, np.nan)
+    first, last = np.flatnonzero(on)[[0, -1]]
+    kmax2 = kernels._row_coefficients(first, last, nn, np.zeros(n), temp, x_row, gtab, gtab_t, hk, float(hk.max()),
+                                      alpha_pref, b_pref, k2, s2)
+    assert np.array_equal(kap[first:last + 1], k2[first:last + 1]) and kmax2 == kmax
+    assert np.array_equal(src[first:last + 1], s2[first:last + 1])

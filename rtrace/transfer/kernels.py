@@ -44,6 +44,15 @@ helper taking arrays is avoided: each array argument costs an atomic
 reference-count update per call, which a ``prange`` body did not pay but a
 plain loop does (:func:`_row_coefficients`).
 
+:func:`trace_sheared` gathers each task's cells :data:`_TILE` layers at a time
+into a tile ordered (layer, a, b) and, where c is the array's axis of unit
+stride, asks the CPU to prefetch the columns ahead (:func:`_prefetch`):
+read layer by layer, a C-ordered grid seen nearly along its last axis is a
+stride through memory per cell, which the hardware prefetcher does not follow.
+An array index that numba cannot prove non-negative gets a negative-index
+wraparound (a select) on every access, which keeps a loop scalar: the sweep's
+loops index with ``np.uint64`` values or with ranges from 0.
+
 Kernels trust their inputs: the Python layer validates them.
 """
 
@@ -51,6 +60,9 @@ import math
 
 import numba
 import numpy as np
+from llvmlite import ir
+from numba.core import cgutils, types
+from numba.extending import intrinsic
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 from .tasks import run_tasks
@@ -58,8 +70,35 @@ from .tasks import run_tasks
 __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
 
-_ROW_BLOCK = 8      # rows of rays per parallel task in trace_sheared
+_ROW_BLOCK = 16     # rows of rays per parallel task in trace_sheared
 BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
+_TILE = 1 << BLOCK_SHIFT    # layers trace_sheared gathers at a time: one block of cells along c
+_AHEAD = 8          # trace_sheared's tile gather along c: prefetch the cells this many columns ahead
+
+
+@intrinsic
+def _prefetch(typingctx, arr, i, j, k):
+    """Ask the CPU to fetch element ``arr[i, j, k]`` into cache (LLVM's ``llvm.prefetch``; no effect on results).
+
+    The tile gather of :func:`trace_sheared` reads a short run of layers per column, each column 1 row of
+    the array apart: too far apart for the hardware prefetcher, so it waits on memory at every column.
+    """
+    sig = types.void(arr, i, j, k)
+
+    def codegen(context, builder, signature, args):
+        aryty = signature.args[0]
+        ary = context.make_array(aryty)(context, builder, args[0])
+        inds = [context.cast(builder, v, t, types.intp) for v, t in zip(args[1:], signature.args[1:])]
+        ptr = cgutils.get_item_pointer2(context, builder, ary.data, cgutils.unpack_tuple(builder, ary.shape),
+                                        cgutils.unpack_tuple(builder, ary.strides), aryty.layout, inds,
+                                        wraparound=False)
+        i8p, i32 = ir.IntType(8).as_pointer(), ir.IntType(32)
+        fn = cgutils.get_or_insert_function(builder.module, ir.FunctionType(ir.VoidType(), [i8p, i32, i32, i32]),
+                                            "llvm.prefetch.p0")
+        builder.call(fn, [builder.bitcast(ptr, i8p), i32(0), i32(3), i32(1)])     # read, keep in all caches, data
+        return context.get_dummy_value()
+
+    return sig, codegen
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
@@ -615,8 +654,12 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     absorption coefficient and source function at every frequency, then each
     segment of :func:`layer_segments` applies them to a whole row of rays
     (a cell is crossed by ~1 + |rho_a| + |rho_b| ray segments, so the
-    transcendentals are not repeated per crossing). Memory is read in order
-    and a cache line serves many consecutive layers. ``blocks`` is
+    transcendentals are not repeated per crossing). The cells are read
+    :data:`_TILE` layers (one block of cells along c) at a time into a tile,
+    with the columns ahead prefetched where c is the axis of unit stride, and
+    each layer's rows then come from the tile with unit stride; a single frequency in the radio
+    regime without He III has a vectorised row pass (:func:`_radio_row`).
+    ``blocks`` is
     :func:`emitting_blocks` of ``nn_cells`` (same axis order): cells of a
     block with no emitting cell are not read, and each row's crossings are
     confined to the span of its emitting cells, so neutral gas costs almost
@@ -637,27 +680,46 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     """
     nk = count.shape[0]
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    span_a = span_b = 0
+    span_a = span_b = tile_a = tile_b = 0
     if nk > 0:
         first = np.arange(seg_da.shape[1]) < count[:, None]         # a layer's listed segments (else its first)
         da = np.where(first, seg_da, seg_da[:, :1])
         db = np.where(first, seg_db, seg_db[:, :1])
         span_a = int((da.max(axis=1) - da.min(axis=1)).max())
         span_b = int((db.max(axis=1) - db.min(axis=1)).max())
+        # the spread of the offsets over any _TILE consecutive layers: the rows and columns a tile gathers
+        window = min(_TILE, nk)
+        tile_a = int((_windows(da.max(axis=1), window).max(axis=1) - _windows(da.min(axis=1), window).min(axis=1)).max())
+        tile_b = int((_windows(db.max(axis=1), window).max(axis=1) - _windows(db.min(axis=1), window).min(axis=1)).max())
+    # the tile gather prefetches columns ahead where c is the axis of unit stride
+    along_c = nn_cells.strides[2] < nn_cells.strides[1]
     run_tasks(_sheared_row_blocks, (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK, nn_cells, temp, blocks, lo, hi, off,
               int(k_lo), bool(forward), int(i0), int(n_i), int(j0), int(n_j), count, seg_da, seg_db, seg_ds,
               float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()), alpha_pref, b_pref,
-              bool(em_ions), out_i, out_tau, out_em, ratio, span_a, span_b, relax_layout=True)
+              bool(em_ions), out_i, out_tau, out_em, ratio, span_a, span_b, tile_a, tile_b, bool(along_c),
+              relax_layout=True)
+
+
+def _windows(x, n):
+    """Sliding windows of ``n`` consecutive elements of ``x`` (a view, ``(len(x) - n + 1, n)``)."""
+    return np.lib.stride_tricks.sliding_window_view(x, n)
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
 def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count,
                         seg_da, seg_db, seg_ds, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
-                        em_ions, out_i, out_tau, out_em, ratio, span_a, span_b):
-    """Blocks of rows ``blk_lo <= blk < blk_hi`` of :func:`trace_sheared` (one task of :func:`run_tasks`)."""
+                        em_ions, out_i, out_tau, out_em, ratio, span_a, span_b, tile_a, tile_b, along_c):
+    """Blocks of rows ``blk_lo <= blk < blk_hi`` of :func:`trace_sheared` (one task of :func:`run_tasks`).
+
+    The block's cells are read :data:`_TILE` layers (one block of cells along c) at a time into tiles
+    ordered (layer, a, b), layer innermost, with the columns ahead prefetched where c is the axis of
+    unit stride (``along_c``); each layer is then read from the tile with unit stride. Read layer by
+    layer, a C-ordered grid seen along its last axis is a stride through memory per cell.
+    """
     nk = count.shape[0]
     nf = hk.shape[0]
     width = n_j + span_b
+    t_rows, t_cols = _ROW_BLOCK + tile_a, n_j + tile_b
     for blk in range(blk_lo, blk_hi):
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
@@ -670,6 +732,12 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
         src_buf = np.empty((_ROW_BLOCK + span_a, width, nf))
         # one row of the layer's cells: n_e n_i, He III share, T and the table position in ln T
         nn_row, sh_row, t_row, x_row = np.empty(width), np.empty(width), np.empty(width), np.empty(width)
+        it_row, g_row = np.empty(width, np.int64), np.empty(width)     # _radio_row's table index, Gaunt factor
+        # the cells of _TILE layers (the fields' own dtype), rows tx_lo.., columns ty_lo.. (0 where no block emits)
+        tile_nn = np.empty((_TILE, t_rows, t_cols), nn_cells.dtype)
+        tile_t = np.empty((_TILE, t_rows, t_cols), temp.dtype)
+        tile_r = np.empty((_TILE, t_rows, t_cols) if ratio is not None else (1, 1, 1), nn_cells.dtype)
+        tile, t_k0, tx_lo, ty_lo = -1, 0, 0, 0
         # the block's rays (its rows are its own), frequencies contiguous
         acc_i = np.zeros(((p_hi - p_lo) * n_j, nf))
         acc_t = np.zeros(((p_hi - p_lo) * n_j, nf))
@@ -680,52 +748,95 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
         for s in range(nk):
             k = k_lo + s if forward else k_lo + nk - 1 - s
             kl = k - off[2]
+            if kl // _TILE != tile:
+                # gather the next tile: the layers of this brick in [tile * _TILE, (tile + 1) * _TILE) (local)
+                tile = kl // _TILE
+                t_k0 = max(tile * _TILE, k_lo - off[2])
+                t_k1 = min(tile * _TILE + _TILE, k_lo + nk - off[2])
+                tx_lo, tx_hi, ty_lo, ty_hi = hi[0], lo[0], hi[1], lo[1]
+                for kq in range(t_k0, t_k1):
+                    sq = kq + off[2] - k_lo if forward else k_lo + nk - 1 - (kq + off[2])
+                    a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, sq, count[sq])
+                    tx_lo = min(tx_lo, max(i0 + p_lo + a_min, lo[0]))
+                    tx_hi = max(tx_hi, min(i0 + p_hi + a_max, hi[0]))
+                    ty_lo = min(ty_lo, max(j0 + b_min, lo[1]))
+                    ty_hi = max(ty_hi, min(j0 + n_j + b_max, hi[1]))
+                # indices are unsigned (numba then adds no negative-index wraparound to each access); the tile is
+                # one block of cells along c (bk), read layer-innermost: along c, a run of adjacent cells; along b,
+                # each cache line serves the next columns
+                bk = np.uint64(tile)
+                n_k = t_k1 - t_k0
+                uk0 = np.uint64(t_k0)
+                for xr in range(tx_hi - tx_lo):
+                    xl = np.uint64(tx_lo + xr - off[0])
+                    bx = xl >> BLOCK_SHIFT
+                    for yc in range(ty_hi - ty_lo):
+                        yl = np.uint64(ty_lo + yc - off[1])
+                        if along_c and yc + _AHEAD < ty_hi - ty_lo:
+                            # the (one or two) cache lines of the run: its first and last cells
+                            ya, k_first, k_last = yl + np.uint64(_AHEAD), uk0, uk0 + np.uint64(n_k - 1)
+                            _prefetch(nn_cells, xl, ya, k_first)
+                            _prefetch(nn_cells, xl, ya, k_last)
+                            _prefetch(temp, xl, ya, k_first)
+                            _prefetch(temp, xl, ya, k_last)
+                            if ratio is not None:
+                                _prefetch(ratio, xl, ya, k_first)
+                                _prefetch(ratio, xl, ya, k_last)
+                        if blocks[bx, yl >> BLOCK_SHIFT, bk]:
+                            for kk in range(n_k):
+                                tile_nn[kk, xr, yc] = nn_cells[xl, yl, uk0 + np.uint64(kk)]
+                                tile_t[kk, xr, yc] = temp[xl, yl, uk0 + np.uint64(kk)]
+                            if ratio is not None:
+                                for kk in range(n_k):
+                                    tile_r[kk, xr, yc] = ratio[xl, yl, uk0 + np.uint64(kk)]
+                        else:
+                            for kk in range(n_k):
+                                tile_nn[kk, xr, yc] = 0.0
             a_min, a_max, b_min, b_max = _segment_spread(seg_da, seg_db, s, count[s])
             x_lo = max(i0 + p_lo + a_min, lo[0])
             x_hi = min(i0 + p_hi + a_max, hi[0])
             y_lo = max(j0 + b_min, lo[1])
             y_hi = min(j0 + n_j + b_max, hi[1])
-            for x in range(x_lo, x_hi):
-                xb, xl = x - x_lo, x - off[0]
+            n_y = y_hi - y_lo
+            lt = np.uint64(kl - t_k0)              # the layer's place in the tile
+            for xb in range(x_hi - x_lo):
+                ur = np.uint64(x_lo + xb - tx_lo)
                 first, last = width, -1
-                bx, bk = xl >> BLOCK_SHIFT, kl >> BLOCK_SHIFT
-                y = y_lo
-                while y < y_hi:                 # one block of cells along y at a time
-                    by = (y - off[1]) >> BLOCK_SHIFT
-                    y_end = min(y_hi, ((by + 1) << BLOCK_SHIFT) + off[1])
-                    if blocks[bx, by, bk]:
-                        for yy in range(y, y_end):
-                            yb, yl = yy - y_lo, yy - off[1]
-                            nn = float(nn_cells[xl, yl, kl])
-                            share, weight = 0.0, nn
-                            if ratio is not None:
-                                r = float(ratio[xl, yl, kl])
-                                share = _share_from_ratio(r)
-                                weight = nn if em_ions else nn * r
-                            nn_buf[xb, yb] = weight
-                            nn_row[yb] = nn
-                            sh_row[yb] = share
-                            t_row[yb] = float(temp[xl, yl, kl])
-                            if nn > 0.0:
-                                first = min(first, yb)
-                                last = max(last, yb)
-                    else:
-                        for yy in range(y, y_end):
-                            nn_buf[xb, yy - y_lo] = 0.0
-                            nn_row[yy - y_lo] = 0.0
-                            t_row[yy - y_lo] = 1.0e4
-                    y = y_end
+                t_min, sh_max = 1.0e4, 0.0              # over the row's emitting cells
+                for yb in range(n_y):
+                    uc = np.uint64(y_lo - ty_lo) + np.uint64(yb)
+                    nn = float(tile_nn[lt, ur, uc])
+                    share, weight = 0.0, nn
+                    if ratio is not None and nn > 0.0:
+                        r = float(tile_r[lt, ur, uc])
+                        share = _share_from_ratio(r)
+                        weight = nn if em_ions else nn * r
+                    nn_buf[xb, yb] = weight
+                    nn_row[yb] = nn
+                    sh_row[yb] = share
+                    t = float(tile_t[lt, ur, uc]) if nn > 0.0 else 1.0e4
+                    t_row[yb] = t
+                    if nn > 0.0:
+                        first = yb if yb < first else first
+                        last = yb
+                        t_min = t if t < t_min else t_min
+                        sh_max = share if share > sh_max else sh_max
                 row_first[xb] = first
                 row_last[xb] = last
+                if last < 0:
+                    continue
                 # the row's table positions in one vectorised loop (ln T from the float's bits; a loop writing
                 # more arrays than this is left scalar by the compiler's aliasing checks)
-                for yb in range(first, last + 1):
-                    t = t_row[yb] if nn_row[yb] > 0.0 else 1.0e4
-                    bits = np.float64(t).view(np.int64)
+                for yb in range(n_y):
+                    bits = np.float64(t_row[yb]).view(np.int64)
                     mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
                     x_row[yb] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
-                row_kmax[xb] = _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk, hk_max,
-                                                 alpha_pref, b_pref, kap_flat[xb], src_flat[xb])
+                if nf == 1 and sh_max == 0.0 and hk_max * (1.0 / t_min) < SERIES_LIMIT:
+                    row_kmax[xb] = _radio_row(n_y, nn_row, t_row, x_row, gtab_t, hk[0], alpha_pref[0], b_pref[0, 0],
+                                              b_pref[1, 0], it_row, g_row, kap_flat[xb], src_flat[xb])
+                else:
+                    row_kmax[xb] = _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk,
+                                                     hk_max, alpha_pref, b_pref, kap_flat[xb], src_flat[xb])
             for p in range(p_lo, p_hi):
                 r0 = (p - p_lo) * n_j
                 for g in range(count[s]):
@@ -742,15 +853,18 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                     if row_kmax[xb] * ds < SERIES_LIMIT:
                         # every cell of the row thin at every frequency: no branch (a cell without emission has
                         # alpha_nu = S = 0 and weight 0, so it changes nothing)
-                        for q in range(q_lo, q_hi):
-                            out_em[0, p * n_j + q] += nn_buf[xb, yb0 + q] * ds
+                        # (unsigned indices: with no negative-index wraparound per access, the loops vectorise)
+                        ux, e0, c0 = np.uint64(xb), np.uint64(p * n_j + q_lo), np.uint64(yb0 + q_lo)
+                        for j in range(q_hi - q_lo):
+                            out_em[0, e0 + np.uint64(j)] += nn_buf[ux, c0 + np.uint64(j)] * ds
                         # rays q_lo..q_hi and their cells are contiguous runs of (ray or cell, frequency)
-                        kap_row, src_row = kap_flat[xb], src_flat[xb]
-                        shift = (yb0 - r0) * nf
-                        for m in range((r0 + q_lo) * nf, (r0 + q_hi) * nf):
-                            dtau = kap_row[m + shift] * ds
-                            acc_i_flat[m] += one_minus_exp_series(dtau) * (src_row[m + shift] - acc_i_flat[m])
-                            acc_t_flat[m] += dtau
+                        m0, k0 = np.uint64((r0 + q_lo) * nf), c0 * np.uint64(nf)
+                        for j in range((q_hi - q_lo) * nf):
+                            uj = np.uint64(j)
+                            dtau = kap_flat[ux, k0 + uj] * ds
+                            acc_i_flat[m0 + uj] += one_minus_exp_series(dtau) * (src_flat[ux, k0 + uj]
+                                                                                 - acc_i_flat[m0 + uj])
+                            acc_t_flat[m0 + uj] += dtau
                     else:
                         # some cell optically thick at some frequency: _cross per cell, written out on the flat
                         # rows (a view per crossing costs two atomic reference-count updates per array)
@@ -779,6 +893,38 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
             for f in range(nf):
                 out_i[f, 0, p_lo * n_j + r] = acc_i[r, f]
                 out_tau[f, 0, p_lo * n_j + r] = acc_t[r, f]
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True)
+def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_row, kap_row, src_row):
+    """:func:`_row_coefficients` for one frequency where no cell of the row has He III and every cell is in
+    the radio regime (the common case): cells ``0 <= yb < n`` in three loops, two of them vectorised (the
+    table read at a per-cell index, a gather, has a loop of its own), the same operations in the same order.
+    """
+    n_t = gtab_t.shape[1]
+    top = n_t - 1.0
+    for yb in range(n):         # the table position, clamped to the table by selects
+        xt = x_row[yb]
+        xt = xt if xt > 0.0 else 0.0
+        xt = xt if xt < top else top
+        it = int(xt)
+        it = it if it < n_t - 2 else n_t - 2
+        it_row[yb] = it
+        g_row[yb] = xt - it
+    for yb in range(n):         # the Gaunt factor (the gather)
+        it = it_row[yb]
+        g_row[yb] = gtab_t[0, it, 0] + g_row[yb] * (gtab_t[0, it + 1, 0] - gtab_t[0, it, 0])
+    for yb in range(n):
+        t = t_row[yb]
+        nn = nn_row[yb]
+        inv_t = 1.0 / t
+        uu = hk0 * inv_t
+        kap_row[yb] = nn * math.sqrt(inv_t) * ap0 * _radio_stimulated(uu) * g_row[yb] if nn > 0.0 else 0.0
+        src_row[yb] = _radio_source(t, uu, bp0, brj0) if nn > 0.0 else 0.0
+    kmax = 0.0
+    for yb in range(n):
+        kmax = kap_row[yb] if kap_row[yb] > kmax else kmax
+    return kmax
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
