@@ -61,6 +61,7 @@ import math
 import numba
 import numpy as np
 from llvmlite import ir
+from llvmlite.binding import llvm_version_info
 from numba.core import cgutils, types
 from numba.extending import intrinsic
 
@@ -74,6 +75,11 @@ _ROW_BLOCK = 16     # rows of rays per parallel task in trace_sheared
 BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
 _TILE = 1 << BLOCK_SHIFT    # layers trace_sheared gathers at a time: one block of cells along c
 _AHEAD = 8          # trace_sheared's tile gather along c: prefetch the cells this many columns ahead
+
+
+# the intrinsic's name carries its pointer type: "p0" (opaque pointers) from LLVM 15 on, "p0i8" before (numba 0.59's
+# llvmlite is built on LLVM 14)
+_PREFETCH_NAME = "llvm.prefetch.p0" if llvm_version_info[0] >= 15 else "llvm.prefetch.p0i8"
 
 
 @intrinsic
@@ -94,7 +100,7 @@ def _prefetch(typingctx, arr, i, j, k):
                                         wraparound=False)
         i8p, i32 = ir.IntType(8).as_pointer(), ir.IntType(32)
         fn = cgutils.get_or_insert_function(builder.module, ir.FunctionType(ir.VoidType(), [i8p, i32, i32, i32]),
-                                            "llvm.prefetch.p0")
+                                            _PREFETCH_NAME)
         builder.call(fn, [builder.bitcast(ptr, i8p), i32(0), i32(3), i32(1)])     # read, keep in all caches, data
         return context.get_dummy_value()
 
