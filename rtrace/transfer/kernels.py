@@ -54,6 +54,7 @@ import numpy as np
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 from .tasks import run_tasks
+from .ttable import INDEX_MASK, T_TOP, bit_layout, opacity_table
 
 __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
@@ -321,120 +322,116 @@ def _log_from_bits(bits, mant):
     return e * _LN2 + 2.0 * sv * series
 
 
-_RAYS = 4           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
+_RAYS = 8           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
 
 
 def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                                   em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
 
-    Rays are taken :data:`_RAYS` (4) at a time. For each, the cells' ``e^{-dtau}``,
-    ``S (1 - e^{-dtau})``, ``dtau`` and EM weight come first, in loops with no branch and no library
-    call (so they vectorise: ``ln T`` from the float's bits, :func:`_log_from_bits`; the
-    radio-regime series; the Gaunt table read in a loop of its own), then the four rays' transfer
-    recurrences ``I <- I e^{-dtau} + S (1 - e^{-dtau})`` run side by side in the order of travel,
-    so one ray's dependence chain does not serialise the core. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
-    redone cell by cell with the exact forms (:func:`_one_frequency_ray`), and so is a ray with
-    a He III cell (ion term above ``n_e``), which needs the Z = 2 Gaunt row: hydrogen and singly
-    ionized helium keep the fast pass unchanged.
+    Rays are taken :data:`_RAYS` (8) at a time. For each, the cell's opacity factor
+    ``alpha_nu / (n_e n_i)`` is read from :func:`rtrace.transfer.ttable.opacity_table` at
+    the node given by the temperature's bits (integer operations, no logarithm, square root
+    or division; the table read is a loop of its own, which the compiler leaves scalar),
+    then one branch-free loop makes ``dtau``, ``e^{-dtau}``, ``S (1 - e^{-dtau})`` and the
+    sums of ``dtau`` and the EM weight (vectorised), and the rays' transfer recurrences
+    ``I <- I e^{-dtau} + S (1 - e^{-dtau})`` run side by side in the order of travel, so one
+    ray's dependence chain does not serialise the core. A ray with a cell outside the radio
+    regime, outside the table (below 1 K or from :data:`ttable.T_TOP`), with
+    ``dtau >= SERIES_LIMIT`` or with He III (ion term above ``n_e``, which needs the Z = 2
+    Gaunt row) is redone cell by cell with the exact forms (:func:`_one_frequency_ray`).
 
-    ``ln T`` is taken in double precision here and in :func:`trace_along_last_axis`; the other
-    kernels take it in the field's own precision (numba's ``float()`` keeps a float32 a float32),
-    which moves the Gaunt-table position and so the results by up to ~5e-8 relative for float32
-    fields.
+    The table's interpolation, linear in ``T`` between nodes ``2^-10`` apart in relative
+    terms, moves ``dtau`` by up to ~1e-7 relative from the former per-cell evaluation
+    (:mod:`rtrace.transfer.ttable`); the sums of ``dtau`` and of the EM weight are added in
+    any order (``fastmath`` reassociation: rounding-level differences).
     """
-    run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
-              float(inv_dlog_t), gtab, hk, alpha_pref, b_pref, np.ascontiguousarray(gtab[0, 0]), bool(em_ions), out_i,
-              out_tau, out_em)
+    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
+    shift, base = bit_layout(temp.dtype)
+    run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table,
+              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, hk, alpha_pref, b_pref,
+              bool(em_ions), out_i, out_tau, out_em)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True)
-def _one_frequency_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, row,
-                          em_ions, out_i, out_tau, out_em):
+def _temperature_bits(temp):
+    """``temp`` viewed as integers of its own width (no copy)."""
+    return temp.view(np.int32 if temp.dtype == np.float32 else np.int64)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"reassoc"})
+def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, forward, log_t0, inv_dlog_t, gtab, hk,
+                          alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Planes ``lo <= a < hi`` of :func:`one_frequency_along_last_axis` (one task of :func:`run_tasks`)."""
     nb, nl = ne.shape[1], ne.shape[2]
-    n_t = gtab.shape[2]
-    hk0, ap0, bp0, brj0 = hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0]
-    top = n_t - 1.0
+    hk0, bp0, brj0 = hk[0], b_pref[0, 0], b_pref[1, 0]
+    # B_nu = b_rj T + b_planck (u / 12 - 1/2), u = h nu / kT (_radio_source), with constant factors apart
+    s_half, s_twelfth = -0.5 * bp0, bp0 * hk0 / 12.0
+    mask = (1 << shift) - 1
+    inv_step = 1.0 / (1 << shift)
     for a in range(lo, hi):
-        xpos = np.empty(nl)
-        gau = np.empty(nl)
-        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau}), dtau, EM weight
+        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau})
         gain = np.empty((_RAYS, nl))
-        dtb = np.empty((_RAYS, nl))
-        emb = np.empty((_RAYS, nl))
-        bad = np.empty(_RAYS, np.int64)
+        tau_sum = np.zeros(_RAYS)
+        em_sum = np.zeros(_RAYS)
+        bad = np.zeros(_RAYS, np.int64)
+        k_node = np.empty(nl)
+        k_step = np.empty(nl)
         for b0 in range(0, nb, _RAYS):
             for j in range(_RAYS):
                 b = b0 + j
                 if b >= nb:                 # past the last ray: cells that change nothing
                     keep[j, :] = 1.0
                     gain[j, :] = 0.0
-                    dtb[j, :] = 0.0
-                    emb[j, :] = 0.0
-                    bad[j] = 0
                     continue
-                # five short loops, each vectorised: a loop that writes more arrays than this is left scalar by
-                # the compiler's aliasing checks, and one that reads the table at a per-cell index (a gather) too
-                for l in range(nl):             # the table position, ln T from the float's bits
-                    t = float(temp[a, b, l])
-                    bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
-                    mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
-                    xpos[l] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
-                for l in range(nl):             # the Gaunt factor (not vectorised: the gather)
-                    x = min(max(xpos[l], 0.0), top)
-                    it = min(int(x), n_t - 2)
-                    gau[l] = row[it] + (x - it) * (row[it + 1] - row[it])
-                for l in range(nl):             # dtau: R&L 5.18b times ds
-                    ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
-                    nn = ne_c * ni_c
-                    t = float(temp[a, b, l])
-                    inv_t = 1.0 / (t if t > 0.0 else 1.0e4)
-                    dtau = nn * ds * math.sqrt(inv_t) * ap0 * _radio_stimulated(hk0 * inv_t) * gau[l]
-                    dtb[j, l] = dtau if nn > 0.0 else 0.0
-                for l in range(nl):             # e^{-dtau} and S (1 - e^{-dtau})
-                    t = float(temp[a, b, l])
-                    t = t if t > 0.0 else 1.0e4
-                    att = one_minus_exp_series(dtb[j, l])
-                    keep[j, l] = 1.0 - att
-                    gain[j, l] = att * _radio_source(t, hk0 / t, bp0, brj0)
+                for l in range(nl):         # the table's node from T's bits (a gather: left scalar)
+                    node = ((np.int64(tbits[a, b, l]) >> shift) - base) & INDEX_MASK
+                    k_node[l] = table[node, 0, 0]
+                    k_step[l] = table[node, 1, 0]
+                keep_j, gain_j = keep[j], gain[j]
                 n_bad = 0
-                for l in range(nl):             # EM weights; cells the series do not cover
+                tau = 0.0
+                em = 0.0
+                for l in range(nl):         # dtau (R&L 5.18b times ds), e^{-dtau}, S (1 - e^{-dtau}): vectorised
                     ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
                     nn = ne_c * ni_c
                     on = nn > 0.0
-                    emb[j, l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
+                    frac = float(np.int64(tbits[a, b, l]) & mask) * inv_step
+                    dtau = nn * ds * (k_node[l] + frac * k_step[l]) if on else 0.0
+                    tau += dtau
+                    em += (nn if em_ions else ne_c * ne_c) if on else 0.0
                     t = float(temp[a, b, l])
-                    n_bad += 1 if on & ((hk0 >= SERIES_LIMIT * t) | (dtb[j, l] >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                    n_bad += 1 if on & ((t < 1.0) | (t >= T_TOP) | (t != t) | (hk0 >= SERIES_LIMIT * t)
+                                        | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                    t = t if t > 0.0 else 1.0e4
+                    att = one_minus_exp_series(dtau)
+                    keep_j[l] = 1.0 - att
+                    gain_j[l] = att * (brj0 * t + s_half + s_twelfth / t)
+                tau_sum[j] = tau
+                em_sum[j] = em * ds
                 bad[j] = n_bad
             # the recurrence I <- I e^{-dtau} + S (1 - e^{-dtau}) of the group's rays side by side, so that one
             # ray's dependence chain does not serialise the core
-            i0, i1, i2, i3 = 0.0, 0.0, 0.0, 0.0
-            t0, t1, t2, t3 = 0.0, 0.0, 0.0, 0.0
-            e0, e1, e2, e3 = 0.0, 0.0, 0.0, 0.0
+            i0, i1, i2, i3, i4, i5, i6, i7 = 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
             for s in range(nl):
                 l = s if forward else nl - 1 - s
                 i0 = i0 * keep[0, l] + gain[0, l]
                 i1 = i1 * keep[1, l] + gain[1, l]
                 i2 = i2 * keep[2, l] + gain[2, l]
                 i3 = i3 * keep[3, l] + gain[3, l]
-                t0 += dtb[0, l]
-                t1 += dtb[1, l]
-                t2 += dtb[2, l]
-                t3 += dtb[3, l]
-                e0 += emb[0, l]
-                e1 += emb[1, l]
-                e2 += emb[2, l]
-                e3 += emb[3, l]
-            for j, (i_acc, t_acc, em) in enumerate(((i0, t0, e0), (i1, t1, e1), (i2, t2, e2), (i3, t3, e3))):
+                i4 = i4 * keep[4, l] + gain[4, l]
+                i5 = i5 * keep[5, l] + gain[5, l]
+                i6 = i6 * keep[6, l] + gain[6, l]
+                i7 = i7 * keep[7, l] + gain[7, l]
+            for j, i_acc in enumerate((i0, i1, i2, i3, i4, i5, i6, i7)):
                 b = b0 + j
                 if b < nb:
+                    t_acc = tau_sum[j]
                     if bad[j]:
                         i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t,
                                                           gtab, hk, alpha_pref, b_pref)
                     out_i[0, a, b] = i_acc
                     out_tau[0, a, b] = t_acc
-                    out_em[a, b] = em
+                    out_em[a, b] = em_sum[j]
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
