@@ -230,39 +230,38 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     ``(nfreq, A, B)`` (intensity, optical depth) and ``(A, B)`` (EM); they must
     be zero on entry. For a single frequency :func:`one_frequency_along_last_axis`
     is faster (the tracer chooses; each is compiled only when first used). Each
-    ray's table positions come first from one vectorised pass (``ln T`` from the
-    float's bits, :func:`_log_from_bits`, in double precision); then each cell
-    that is thin at every frequency (:func:`_thin_bound`), in the radio regime
-    and without He III takes one branch-free loop over the frequencies, and any
-    other the exact forms (:func:`_coefficients_at`, :func:`_cross`).
+    cell's opacity factors come from :func:`rtrace.transfer.ttable.opacity_table`
+    at the node given by the temperature's bits (no logarithm or square root; the
+    table's row of a node holds every frequency, so the frequency loop reads it
+    contiguously). A cell that is thin at every frequency (the table's per-node
+    bound), in the radio regime, inside the table and without He III takes one
+    branch-free loop over the frequencies; any other the exact forms
+    (:func:`_coefficients_at`, :func:`_cross`). The table moves ``dtau`` by up to
+    ~1e-7 relative (:mod:`rtrace.transfer.ttable`).
     """
-    gtab_t, hk_max, bound, fconst = _frequency_constants(gtab, hk, alpha_pref, b_pref)
-    run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
-              float(inv_dlog_t), gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, fconst, bound, bool(em_ions), out_i,
-              out_tau, out_em)
+    table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
+    shift, base = bit_layout(temp.dtype)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    # B_nu = b_rj T + b_planck (u / 12 - 1/2), u = h nu / kT (_radio_source), with its constant factors apart
+    sconst = np.ascontiguousarray(np.stack([b_pref[1], -0.5 * b_pref[0], b_pref[0] * hk / 12.0]), float)
+    run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
+              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
+              alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _last_axis_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref,
-                      b_pref, fconst, bound, em_ions, out_i, out_tau, out_em):
+def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
+                      gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Planes ``lo <= a < hi`` of :func:`trace_along_last_axis` (one task of :func:`run_tasks`)."""
     nb, nl = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
-    n_t = gtab.shape[2]
-    top = n_t - 1.0
+    mask = (1 << shift) - 1
+    inv_step = 1.0 / (1 << shift)
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.empty((2, nf))             # the ray's I and tau
         acc_i, acc_t = acc[0], acc[1]
-        xpos = np.empty(nl)
         for b in range(nb):
-            # the table positions of the whole ray first, in one vectorised loop (ln T from the float's bits; a
-            # loop writing more arrays is left scalar by the compiler's aliasing checks)
-            for l in range(nl):
-                t = float(temp[a, b, l])
-                bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
-                mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
-                xpos[l] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
             acc_i[:] = 0.0
             acc_t[:] = 0.0
             em = 0.0
@@ -272,26 +271,25 @@ def _last_axis_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gta
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     em += (nn if em_ions else ne_c * ne_c) * ds
-                    x = min(max(xpos[l], 0.0), top)
-                    it = min(int(x), n_t - 2)
-                    wt = x - it
+                    bits = np.int64(tbits[a, b, l])
+                    node = ((bits >> shift) - base) & INDEX_MASK
                     t = float(temp[a, b, l])
                     inv_t = 1.0 / t
-                    a0 = nn * math.sqrt(inv_t)
-                    if (hk_max * inv_t < SERIES_LIMIT) & (a0 * ds * inv_t * bound < SERIES_LIMIT) & (ni_c <= ne_c):
+                    c0 = nn * ds
+                    if ((t >= 1.0) & (t < T_TOP) & (hk_max * inv_t < SERIES_LIMIT) & (c0 * bound[node] < SERIES_LIMIT)
+                            & (ni_c <= ne_c)):
                         # thin at every frequency, radio regime, no He III: one branch-free loop per cell
                         # (few arrays in the loop, so that the compiler's aliasing checks allow it to vectorise)
-                        c0 = a0 * ds
+                        c1 = c0 * float(bits & mask) * inv_step
                         for f in range(nf):
-                            uu = fconst[0, f] * inv_t
-                            g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
-                            dtau = c0 * fconst[1, f] * _radio_stimulated(uu) * g
-                            acc[0, f] += one_minus_exp_series(dtau) * (_radio_source(t, uu, fconst[2, f], fconst[3, f])
-                                                                       - acc[0, f])
+                            dtau = c0 * table[node, 0, f] + c1 * table[node, 1, f]
+                            acc[0, f] += one_minus_exp_series(dtau) * (sconst[0, f] * t + sconst[1, f]
+                                                                       + sconst[2, f] * inv_t - acc[0, f])
                             acc[1, f] += dtau
                     else:
-                        _coefficients_at(it, wt, a0, _helium3_share(ne_c, ni_c), t, inv_t, gtab, gtab_t, hk, hk_max,
-                                         alpha_pref, b_pref, kap, src)
+                        it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
+                        _coefficients_at(it, wt, nn * math.sqrt(inv_t), _helium3_share(ne_c, ni_c), t, inv_t, gtab,
+                                         gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                         _cross(kap, src, ds, acc_i, acc_t)
             for f in range(nf):
                 out_i[f, a, b] = acc_i[f]
@@ -346,7 +344,7 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
     (:mod:`rtrace.transfer.ttable`); the sums of ``dtau`` and of the EM weight are added in
     any order (``fastmath`` reassociation: rounding-level differences).
     """
-    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
+    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)[0]
     shift, base = bit_layout(temp.dtype)
     run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table,
               float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, hk, alpha_pref, b_pref,

@@ -41,7 +41,7 @@ _ROWS = 1 << 16                         # table rows: a masked index needs no cl
 INDEX_MASK = _ROWS - 1
 
 _cache = {}                             # key -> table (the last few sets of frequencies)
-_CACHE_SIZE = 4
+_CACHE_SIZE = 2
 
 
 def bit_layout(dtype):
@@ -57,28 +57,32 @@ def _node_temperatures():
     return ((j + (1023 << NODE_BITS)) << (52 - NODE_BITS)).view(np.float64)
 
 
-def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref):
-    """The ``(2^16, 3, nfreq)`` table: per node, ``K_f`` (cm5), its step to the next node,
-    and in ``[:, 2, 0]`` the largest of both ends over the frequencies (a thin-cell bound).
+def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref, chunk=1):
+    """The table of ``K_f(T) = alpha_nu / (n_e n_i)`` (cm5, ion charge 1, ``gtab[0]``): ``(table, bound)``.
 
-    ``K_f(T) = alpha_nu / (n_e n_i)`` for ion charge 1 (``gtab[0]``), so a cell has
-    ``dtau_f = n_e n_i ds K_f(T)``. Kept for the last few sets of frequencies (a
-    trace's tables are made once per call; the Gaunt rows are cached the same way).
+    ``table`` is ``(2^16, 2, nfp)``: per node, ``K_f`` and its step to the next node, the
+    frequencies padded with zeros to ``nfp``, a multiple of ``chunk``; ``bound`` ``(2^16,)``
+    is the largest ``K_f`` at either end of the node's segment over the frequencies (a cell
+    with ``n_e n_i ds bound < SERIES_LIMIT`` is thin at every frequency). A cell has
+    ``dtau_f = n_e n_i ds K_f(T)``. Rows past :data:`T_TOP` are zero. Kept for the last two
+    sets of frequencies (8.4 MB for 8 frequencies, 1 MB for one; a trace makes its
+    frequency tables once per call, and the Gaunt rows are cached the same way).
     """
-    key = (float(log_t0), float(inv_dlog_t), np.asarray(hk, float).tobytes(),
-           np.asarray(alpha_pref, float).tobytes(), hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest())
-    table = _cache.get(key)
-    if table is None:
-        table = _build(float(log_t0), float(inv_dlog_t), np.asarray(gtab[0], float), np.asarray(hk, float),
-                       np.asarray(alpha_pref, float))
-        table.flags.writeable = False
+    key = (float(log_t0), float(inv_dlog_t), np.asarray(hk, float).tobytes(), np.asarray(alpha_pref, float).tobytes(),
+           hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest(), int(chunk))
+    found = _cache.get(key)
+    if found is None:
+        found = _build(float(log_t0), float(inv_dlog_t), np.asarray(gtab[0], float), np.asarray(hk, float),
+                       np.asarray(alpha_pref, float), int(chunk))
+        for arr in found:
+            arr.flags.writeable = False
         if len(_cache) >= _CACHE_SIZE:
             _cache.pop(next(iter(_cache)))
-        _cache[key] = table
-    return table
+        _cache[key] = found
+    return found
 
 
-def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref):
+def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref, chunk):
     temp = _node_temperatures()
     n_t = grows.shape[1]
     # the Gaunt factor as the kernels interpolated it: linear in ln T, clamped to the table
@@ -87,7 +91,8 @@ def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref):
     wt = x - it
     inv_t = 1.0 / temp
     nf = hk.shape[0]
-    table = np.zeros((_ROWS, 3, nf))
+    table = np.zeros((_ROWS, 2, -(-nf // chunk) * chunk))
+    bound = np.zeros(_ROWS)
     nodes = temp.shape[0]
     for f in range(nf):
         g = grows[f, it] + wt * (grows[f, it + 1] - grows[f, it])
@@ -98,6 +103,5 @@ def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref):
         k = np.sqrt(inv_t) * alpha_pref[f] * stim * g
         table[:nodes - 1, 0, f] = k[:-1]
         table[:nodes - 1, 1, f] = k[1:] - k[:-1]
-    ends = np.maximum(table[:nodes - 1, 0], table[:nodes - 1, 0] + table[:nodes - 1, 1])
-    table[:nodes - 1, 2, 0] = ends.max(axis=1)
-    return table
+        bound[:nodes - 1] = np.maximum(bound[:nodes - 1], np.maximum(k[:-1], k[1:]))
+    return table, bound
