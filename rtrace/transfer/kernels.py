@@ -249,7 +249,7 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
               alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True)
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
 def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
                       gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Planes ``lo <= a < hi`` of :func:`trace_along_last_axis` (one task of :func:`run_tasks`)."""
@@ -356,7 +356,7 @@ def _temperature_bits(temp):
     return temp.view(np.int32 if temp.dtype == np.float32 else np.int64)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"reassoc"})
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"reassoc", "contract"})
 def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, forward, log_t0, inv_dlog_t, gtab, hk,
                           alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Planes ``lo <= a < hi`` of :func:`one_frequency_along_last_axis` (one task of :func:`run_tasks`)."""
