@@ -205,23 +205,6 @@ def _cross(kap, src, ds, acc_i, acc_t):
             acc_t[f] += dtau
 
 
-def _thin_bound(gtab, hk, alpha_pref):
-    """``max_f A nu_f^-3 (h nu_f / k) max_T g_f(T)``: a cell has ``dtau_nu <= n_e n_i ds T^-3/2`` times this.
-
-    ``1 - e^{-u} <= u`` for ``u >= 0`` (and so is its series below SERIES_LIMIT), so a cell whose bound is
-    below SERIES_LIMIT is thin at every frequency (R&L 5.18b).
-    """
-    gmax = np.maximum(gtab.max(axis=(0, 2)), 0.0)
-    return max(0.0, float(np.max(alpha_pref * hk * gmax)))
-
-
-def _frequency_constants(gtab, hk, alpha_pref, b_pref):
-    """What the multi-frequency kernels share: ``gtab`` transposed to ``(2, n_T, nfreq)``, ``max h nu / k``,
-    :func:`_thin_bound` and the ``(4, nfreq)`` rows ``h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2``."""
-    fconst = np.ascontiguousarray(np.stack([hk, alpha_pref, b_pref[0], b_pref[1]]), float)
-    return np.ascontiguousarray(gtab.transpose(0, 2, 1)), float(hk.max()), _thin_bound(gtab, hk, alpha_pref), fconst
-
-
 def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
                           out_i, out_tau, out_em):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
@@ -242,11 +225,16 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
     shift, base = bit_layout(temp.dtype)
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    # B_nu = b_rj T + b_planck (u / 12 - 1/2), u = h nu / kT (_radio_source), with its constant factors apart
-    sconst = np.ascontiguousarray(np.stack([b_pref[1], -0.5 * b_pref[0], b_pref[0] * hk / 12.0]), float)
+    sconst = _source_constants(hk, b_pref)
     run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
               float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
               alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
+
+
+def _source_constants(hk, b_pref):
+    """``(3, nfreq)`` rows ``b_rj, -b_planck / 2, b_planck (h nu / k) / 12``: ``B_nu = b_rj T + b_planck (u / 12 - 1/2)``
+    with ``u = h nu / kT`` (:func:`_radio_source`) as ``row0 T + row1 + row2 / T``."""
+    return np.ascontiguousarray(np.stack([b_pref[1], -0.5 * b_pref[0], b_pref[0] * hk / 12.0]), float)
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
@@ -459,62 +447,60 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
 
     Each ray advances one plane at a time and whole rows of rays are updated
-    together, so memory is read contiguously: a row's table positions in one
-    vectorised loop, then each cell's frequencies in one branch-free loop when
-    the cell is thin at every frequency (:func:`_thin_bound`), in the radio
-    regime and without He III, else the exact forms. Outputs are
-    ``(nfreq, A, C)`` and ``(A, C)``; they must be zero on entry.
+    together, so memory is read contiguously. Each cell's opacity factors come
+    from :func:`rtrace.transfer.ttable.opacity_table` at the node given by the
+    temperature's bits, as in :func:`trace_along_last_axis`: a cell thin at every
+    frequency (the table's per-node bound), in the radio regime, inside the table
+    and without He III takes one branch-free loop over the frequencies, any other
+    the exact forms. Outputs are ``(nfreq, A, C)`` and ``(A, C)``; they must be
+    zero on entry.
     """
-    gtab_t, hk_max, bound, fconst = _frequency_constants(gtab, hk, alpha_pref, b_pref)
+    table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
+    shift, base = bit_layout(temp.dtype)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    sconst = _source_constants(hk, b_pref)
     # the contiguous arrays and the transposed views are compiled apart: the any-layout code ('A') for
     # contiguous arrays costs ~1.5x in run time (measured), and a specialisation of this kernel compiles in ~1 s
-    run_tasks(_middle_axis_rows, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
-              float(inv_dlog_t), gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, fconst, bound, bool(em_ions), out_i,
-              out_tau, out_em)
+    run_tasks(_middle_axis_rows, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
+              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
+              alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True)
-def _middle_axis_rows(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref,
-                      b_pref, fconst, bound, em_ions, out_i, out_tau, out_em):
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
+def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
+                      gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Rows ``lo <= a < hi`` of :func:`trace_along_middle_axis` (one task of :func:`run_tasks`)."""
     nl, nc = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
-    n_t = gtab.shape[2]
-    top = n_t - 1.0
+    mask = (1 << shift) - 1
+    inv_step = 1.0 / (1 << shift)
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.zeros((nc, 2, nf))         # this row's rays: I and tau, frequencies contiguous
-        xpos = np.empty(nc)
         for s in range(nl):
             l = s if forward else nl - 1 - s
-            for c in range(nc):             # the row's table positions, vectorised (as in trace_along_last_axis)
-                t = float(temp[a, l, c])
-                bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
-                mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
-                xpos[c] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
             for c in range(nc):
                 ne_c, ni_c = float(ne[a, l, c]), float(ni[a, l, c])
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     out_em[a, c] += (nn if em_ions else ne_c * ne_c) * ds
-                    x = min(max(xpos[c], 0.0), top)
-                    it = min(int(x), n_t - 2)
-                    wt = x - it
+                    bits = np.int64(tbits[a, l, c])
+                    node = ((bits >> shift) - base) & INDEX_MASK
                     t = float(temp[a, l, c])
                     inv_t = 1.0 / t
-                    a0 = nn * math.sqrt(inv_t)
-                    if (hk_max * inv_t < SERIES_LIMIT) & (a0 * ds * inv_t * bound < SERIES_LIMIT) & (ni_c <= ne_c):
-                        c0 = a0 * ds                # thin, radio, no He III: as in trace_along_last_axis
+                    c0 = nn * ds
+                    if ((t >= 1.0) & (t < T_TOP) & (hk_max * inv_t < SERIES_LIMIT) & (c0 * bound[node] < SERIES_LIMIT)
+                            & (ni_c <= ne_c)):
+                        c1 = c0 * float(bits & mask) * inv_step     # thin, radio, no He III: as trace_along_last_axis
                         for f in range(nf):
-                            uu = fconst[0, f] * inv_t
-                            g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
-                            dtau = c0 * fconst[1, f] * _radio_stimulated(uu) * g
-                            acc[c, 0, f] += one_minus_exp_series(dtau) * (
-                                _radio_source(t, uu, fconst[2, f], fconst[3, f]) - acc[c, 0, f])
+                            dtau = c0 * table[node, 0, f] + c1 * table[node, 1, f]
+                            acc[c, 0, f] += one_minus_exp_series(dtau) * (sconst[0, f] * t + sconst[1, f]
+                                                                          + sconst[2, f] * inv_t - acc[c, 0, f])
                             acc[c, 1, f] += dtau
                     else:
-                        _coefficients_at(it, wt, a0, _helium3_share(ne_c, ni_c), t, inv_t, gtab, gtab_t, hk, hk_max,
-                                         alpha_pref, b_pref, kap, src)
+                        it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
+                        _coefficients_at(it, wt, nn * math.sqrt(inv_t), _helium3_share(ne_c, ni_c), t, inv_t, gtab,
+                                         gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                         _cross(kap, src, ds, acc[c, 0], acc[c, 1])
         for c in range(nc):
             for f in range(nf):
