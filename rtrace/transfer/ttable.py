@@ -45,10 +45,17 @@ _CACHE_SIZE = 2
 
 
 def bit_layout(dtype):
-    """``(shift, base)`` for fields of ``dtype``: node ``= (bits >> shift) - base`` (masked by :data:`INDEX_MASK`)."""
-    if np.dtype(dtype) == np.float32:
+    """``(shift, base)`` for fields of ``dtype``: node ``= (bits >> shift) - base`` (masked by :data:`INDEX_MASK`).
+
+    IEEE 754 binary32 (8 exponent bits, bias 127, 23 fraction bits) and binary64 (11, 1023, 52);
+    snapshots store float32 or float64 only.
+    """
+    dtype = np.dtype(dtype)
+    if dtype == np.float32:
         return 23 - NODE_BITS, 127 << NODE_BITS
-    return 52 - NODE_BITS, 1023 << NODE_BITS
+    if dtype == np.float64:
+        return 52 - NODE_BITS, 1023 << NODE_BITS
+    raise ValueError(f"temperature table: fields must be float32 or float64, got {dtype}")
 
 
 def _node_temperatures():
