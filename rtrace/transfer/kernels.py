@@ -9,7 +9,10 @@ Per cell (piecewise-constant coefficients, LTE so ``S = B_nu(T_e)``):
 ``I <- I e^{-dtau} + S (1 - e^{-dtau})``, ``dtau = alpha_nu ds``, with
 ``alpha_nu`` from Rybicki & Lightman (1979) eq. 5.18b and Kirchhoff's law.
 Per-cell factors (``ln T``, ``T^-1/2``, the Gaunt-table index, ``n_e n_i ds``)
-are computed once and reused for every frequency.
+are computed once and reused for every frequency. The axis-aligned kernels
+read ``alpha_nu / (n_e n_i)`` instead from a per-frequency table indexed by
+the temperature's bits (:mod:`rtrace.transfer.ttable`): no logarithm, square
+root or division per cell and frequency.
 
 The Gaunt tables ``gtab`` are ``(2, nfreq, n_T)``: row 0 for ion charge Z = 1
 (H II, He II), row 1 for Z = 2 (He III). For a hydrogen-helium plasma
@@ -31,7 +34,7 @@ Kernels are compiled with ``error_model="numpy"``: a float division then has no
 division-by-zero branch (numba's default raises ZeroDivisionError), without which
 no loop holding a division vectorises. Inside a loop meant to vectorise, a
 table read at a per-cell index (a gather) keeps the whole loop scalar, so the
-single-frequency kernel reads the Gaunt table in a loop of its own.
+single-frequency kernel reads its opacity table in a loop of its own.
 
 The axis kernels and :func:`emitting_blocks` are Python functions that run a
 ``nogil`` numba worker over ranges of planes on threads
