@@ -107,3 +107,24 @@ def test_axis_kernels_agree_for_both_precisions(rng, forward):
         found[dtype] = last
     for a, b in zip(found[np.float32], found[np.float64]):
         np.testing.assert_allclose(a, b, rtol=1e-5, atol=0)
+
+
+def test_many_frequencies_are_traced_in_chunks(rng):
+    # more frequencies than one table holds (ttable.FREQUENCY_CHUNK): the kernels take them in chunks; each
+    # frequency must equal the single-frequency trace of the same cells, and the EM is summed once
+    nus = np.geomspace(0.5e9, 50.0e9, ttable.FREQUENCY_CHUNK + 5)
+    ne, temp = _fields(rng, np.float32)
+    tables = FrequencyTables(nus)
+    shape = (nus.size,) + ne.shape[:2]
+    last = [np.zeros(shape), np.zeros(shape), np.zeros(ne.shape[:2])]
+    kernels.trace_along_last_axis(ne, ne, temp, 3.0e15, True, *tables.args(), *last)
+    mid = [np.zeros(shape), np.zeros(shape), np.zeros(ne.shape[:2])]
+    kernels.trace_along_middle_axis(*(x.transpose(0, 2, 1) for x in (ne, ne, temp)), 3.0e15, True, *tables.args(),
+                                    *mid)
+    for f in (0, ttable.FREQUENCY_CHUNK - 1, ttable.FREQUENCY_CHUNK, nus.size - 1):
+        one = [np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2]), np.zeros(ne.shape[:2])]
+        kernels.one_frequency_along_last_axis(ne, ne, temp, 3.0e15, True, *FrequencyTables(nus[f:f + 1]).args(), *one)
+        for got in (last, mid):
+            np.testing.assert_allclose(got[0][f], one[0][0], rtol=1e-6, atol=0)
+            np.testing.assert_allclose(got[1][f], one[1][0], rtol=1e-6, atol=0)
+            np.testing.assert_allclose(got[2], one[2], rtol=1e-12, atol=0)

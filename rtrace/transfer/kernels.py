@@ -57,7 +57,7 @@ import numpy as np
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 from .tasks import run_tasks
-from .ttable import INDEX_MASK, T_TOP, bit_layout, opacity_table
+from .ttable import FREQUENCY_CHUNK, INDEX_MASK, T_TOP, bit_layout, opacity_table
 
 __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
@@ -225,6 +225,10 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     (:func:`_coefficients_at`, :func:`_cross`). The table moves ``dtau`` by up to
     ~1e-7 relative (:mod:`rtrace.transfer.ttable`).
     """
+    if hk.shape[0] > FREQUENCY_CHUNK:
+        _by_frequency_chunks(trace_along_last_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
+                             alpha_pref, b_pref, em_ions, out_i, out_tau, out_em)
+        return
     table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
     shift, base = bit_layout(temp.dtype)
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
@@ -232,6 +236,16 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
               float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
               alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
+
+
+def _by_frequency_chunks(kernel, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
+                         em_ions, out_i, out_tau, out_em):
+    """``kernel`` over at most :data:`ttable.FREQUENCY_CHUNK` frequencies at a time (bounds its opacity table)."""
+    for f0 in range(0, hk.shape[0], FREQUENCY_CHUNK):
+        part = slice(f0, f0 + FREQUENCY_CHUNK)
+        em = out_em if f0 == 0 else np.zeros_like(out_em)          # the EM once
+        kernel(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, np.ascontiguousarray(gtab[:, part]), hk[part],
+               alpha_pref[part], np.ascontiguousarray(b_pref[:, part]), em_ions, out_i[part], out_tau[part], em)
 
 
 def _source_constants(hk, b_pref):
@@ -248,6 +262,7 @@ def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
     nf = hk.shape[0]
     mask = (1 << shift) - 1
     inv_step = 1.0 / (1 << shift)
+    top = table.shape[0] - 1
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.empty((2, nf))             # the ray's I and tau
@@ -263,7 +278,7 @@ def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
                 if nn > 0.0:
                     em += (nn if em_ions else ne_c * ne_c) * ds
                     bits = np.int64(tbits[a, b, l])
-                    node = ((bits >> shift) - base) & INDEX_MASK
+                    node = min(max((bits >> shift) - base, 0), top)
                     t = float(temp[a, b, l])
                     inv_t = 1.0 / t
                     c0 = nn * ds
@@ -335,7 +350,9 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
     (:mod:`rtrace.transfer.ttable`); the sums of ``dtau`` and of the EM weight are added in
     any order (``fastmath`` reassociation: rounding-level differences).
     """
-    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)[0]
+    if hk.shape[0] != 1:
+        raise ValueError(f"one_frequency_along_last_axis: one frequency, got {hk.shape[0]}")
+    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)[0]      # 2^16 rows: the node is masked
     shift, base = bit_layout(temp.dtype)
     run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table,
               float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, hk, alpha_pref, b_pref,
@@ -458,6 +475,10 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     the exact forms. Outputs are ``(nfreq, A, C)`` and ``(A, C)``; they must be
     zero on entry.
     """
+    if hk.shape[0] > FREQUENCY_CHUNK:
+        _by_frequency_chunks(trace_along_middle_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
+                             alpha_pref, b_pref, em_ions, out_i, out_tau, out_em)
+        return
     table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
     shift, base = bit_layout(temp.dtype)
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
@@ -477,6 +498,7 @@ def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
     nf = hk.shape[0]
     mask = (1 << shift) - 1
     inv_step = 1.0 / (1 << shift)
+    top = table.shape[0] - 1
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.zeros((nc, 2, nf))         # this row's rays: I and tau, frequencies contiguous
@@ -488,7 +510,7 @@ def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
                 if nn > 0.0:
                     out_em[a, c] += (nn if em_ions else ne_c * ne_c) * ds
                     bits = np.int64(tbits[a, l, c])
-                    node = ((bits >> shift) - base) & INDEX_MASK
+                    node = min(max((bits >> shift) - base, 0), top)
                     t = float(temp[a, l, c])
                     inv_t = 1.0 / t
                     c0 = nn * ds

@@ -32,7 +32,7 @@ import numpy as np
 
 from ..physics.planck import SERIES_LIMIT
 
-__all__ = ["NODE_BITS", "T_TOP", "INDEX_MASK", "opacity_table", "bit_layout"]
+__all__ = ["NODE_BITS", "T_TOP", "INDEX_MASK", "FREQUENCY_CHUNK", "opacity_table", "bit_layout"]
 
 NODE_BITS = 10                          # mantissa bits that select a node: 1024 nodes per binade
 _BINADES = 33                           # nodes from 1 K (2^0) to 2^33 K
@@ -42,6 +42,7 @@ INDEX_MASK = _ROWS - 1
 
 _cache = {}                             # key -> table (the last few sets of frequencies)
 _CACHE_SIZE = 2
+FREQUENCY_CHUNK = 16                    # frequencies per table (and per kernel call) in the several-frequency kernels
 
 
 def bit_layout(dtype):
@@ -67,13 +68,17 @@ def _node_temperatures():
 def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref, chunk=1):
     """The table of ``K_f(T) = alpha_nu / (n_e n_i)`` (cm5, ion charge 1, ``gtab[0]``): ``(table, bound)``.
 
-    ``table`` is ``(2^16, 2, nfp)``: per node, ``K_f`` and its step to the next node, the
-    frequencies padded with zeros to ``nfp``, a multiple of ``chunk``; ``bound`` ``(2^16,)``
+    ``table`` is ``(rows, 2, nfp)``: per node, ``K_f`` and its step to the next node, the
+    frequencies padded with zeros to ``nfp``, a multiple of ``chunk``; ``bound`` ``(rows,)``
     is the largest ``K_f`` at either end of the node's segment over the frequencies (a cell
     with ``n_e n_i ds bound < SERIES_LIMIT`` is thin at every frequency). A cell has
-    ``dtau_f = n_e n_i ds K_f(T)``. Rows past :data:`T_TOP` are zero. Kept for the last two
-    sets of frequencies (8.4 MB for 8 frequencies, 1 MB for one; a trace makes its
-    frequency tables once per call, and the Gaunt rows are cached the same way).
+    ``dtau_f = n_e n_i ds K_f(T)``. ``rows`` is 2^16 for one frequency (a node index
+    masked by :data:`INDEX_MASK` stays inside; rows past :data:`T_TOP` are zero), else
+    the 33 792 nodes below ``T_TOP`` (a kernel clamps the index). Memory: 1 MB for one
+    frequency, 0.54 MB per frequency otherwise (the kernels take at most
+    :data:`FREQUENCY_CHUNK` frequencies per table). Kept for the last two sets of
+    frequencies (a trace makes its frequency tables once per call; the Gaunt rows are
+    cached the same way).
     """
     key = (float(log_t0), float(inv_dlog_t), np.asarray(hk, float).tobytes(), np.asarray(alpha_pref, float).tobytes(),
            hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest(), int(chunk))
@@ -97,18 +102,18 @@ def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref, chunk):
     it = np.minimum(x.astype(np.int64), n_t - 2)
     wt = x - it
     inv_t = 1.0 / temp
-    nf = hk.shape[0]
-    table = np.zeros((_ROWS, 2, -(-nf // chunk) * chunk))
-    bound = np.zeros(_ROWS)
-    nodes = temp.shape[0]
-    for f in range(nf):
-        g = grows[f, it] + wt * (grows[f, it + 1] - grows[f, it])
-        uu = hk[f] * inv_t
-        # 1 - e^{-u}: the kernels' series below SERIES_LIMIT (A&S 4.2.1), else exact
-        stim = np.where(uu < SERIES_LIMIT, uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0)))),
-                        -np.expm1(-uu))
-        k = np.sqrt(inv_t) * alpha_pref[f] * stim * g
-        table[:nodes - 1, 0, f] = k[:-1]
-        table[:nodes - 1, 1, f] = k[1:] - k[:-1]
-        bound[:nodes - 1] = np.maximum(bound[:nodes - 1], np.maximum(k[:-1], k[1:]))
+    g = grows[:, it] + wt * (grows[:, it + 1] - grows[:, it])          # (nfreq, nodes)
+    uu = hk[:, None] * inv_t
+    # 1 - e^{-u}: the kernels' series below SERIES_LIMIT (A&S 4.2.1), else exact
+    stim = np.where(uu < SERIES_LIMIT, uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0)))),
+                    -np.expm1(-uu))
+    k = (np.sqrt(inv_t) * alpha_pref[:, None]) * stim * g
+    nf, segments = hk.shape[0], temp.shape[0] - 1
+    # one frequency: 2^16 rows, so the single-frequency kernel masks the node instead of clamping it
+    rows = _ROWS if nf == 1 else segments
+    table = np.zeros((rows, 2, -(-nf // chunk) * chunk))
+    table[:segments, 0, :nf] = k[:, :-1].T
+    table[:segments, 1, :nf] = (k[:, 1:] - k[:, :-1]).T
+    bound = np.zeros(rows)
+    bound[:segments] = np.maximum(k[:, :-1], k[:, 1:]).max(axis=0)
     return table, bound
