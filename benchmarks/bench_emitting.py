@@ -31,7 +31,12 @@ source (a division), the EM pass and the 4-ray recurrence were 121 ms against 13
 after: the table gather (a scalar loop: the compiler emits no vector gather here) 18 ms, the recurrence
 9 ms, the fused loop and the field reads 25 ms, 52 ms in all. Measured at load 9-11 (three other jobs and a
 test suite on the 2 cores), so in CPU seconds, one thread, 5 rounds, main (6351ed1) and this branch
-alternating, two runs each (``--one-thread`` gives the same figures):
+alternating, two runs each (a harness timing the same calls); then this script with ``--one-thread``, one run
+each, while the test suite ran too: before axis1 0.147 s, axis8 0.420, oblique 0.579, stream 0.014, numpy
+4.48; axis1/stream 10.2-12.5 (median 10.7), axis8/axis1 2.46-3.04 (2.87), oblique/axis1 3.5-4.1 (3.8);
+after axis1 0.081, axis8 0.291, oblique 0.582, stream 0.014, numpy 5.19; axis1/stream 4.7-6.4 (median
+5.8), axis8/axis1 3.3-4.3 (3.6), oblique/axis1 6.6-8.3 (7.2: the oblique sweep is unchanged here);
+axis1/numpy 0.016 (target <= 0.10, met before and after):
 
 ==============================  ======================  ======================  ========
 one thread, CPU s, medians      before (6351ed1)        after (axis2)           target
