@@ -406,7 +406,7 @@ def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, f
                     tau += dtau
                     em += (nn if em_ions else ne_c * ne_c) if on else 0.0
                     t = float(temp[a, b, l])
-                    n_bad += 1 if on & ((t < 1.0) | (t >= T_TOP) | (t != t) | (hk0 >= SERIES_LIMIT * t)
+                    n_bad += 1 if on & ((t < 1.0) | (t >= T_TOP) | math.isnan(t) | (hk0 >= SERIES_LIMIT * t)
                                         | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
                     t = t if t > 0.0 else 1.0e4
                     att = one_minus_exp_series(dtau)

@@ -27,12 +27,13 @@ the kernels' exact path.
 """
 
 import hashlib
+import threading
 
 import numpy as np
 
 from ..physics.planck import SERIES_LIMIT
 
-__all__ = ["NODE_BITS", "T_TOP", "INDEX_MASK", "FREQUENCY_CHUNK", "opacity_table", "bit_layout"]
+__all__ = ["FREQUENCY_CHUNK", "INDEX_MASK", "NODE_BITS", "T_TOP", "bit_layout", "opacity_table"]
 
 NODE_BITS = 10                          # mantissa bits that select a node: 1024 nodes per binade
 _BINADES = 33                           # nodes from 1 K (2^0) to 2^33 K
@@ -41,6 +42,7 @@ _ROWS = 1 << 16                         # table rows: a masked index needs no cl
 INDEX_MASK = _ROWS - 1
 
 _cache = {}                             # key -> table (the last few sets of frequencies)
+_lock = threading.Lock()                # bricks may be traced on several threads (dask)
 _CACHE_SIZE = 2
 FREQUENCY_CHUNK = 16                    # frequencies per table (and per kernel call) in the several-frequency kernels
 
@@ -65,11 +67,10 @@ def _node_temperatures():
     return ((j + (1023 << NODE_BITS)) << (52 - NODE_BITS)).view(np.float64)
 
 
-def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref, chunk=1):
+def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref):
     """The table of ``K_f(T) = alpha_nu / (n_e n_i)`` (cm5, ion charge 1, ``gtab[0]``): ``(table, bound)``.
 
-    ``table`` is ``(rows, 2, nfp)``: per node, ``K_f`` and its step to the next node, the
-    frequencies padded with zeros to ``nfp``, a multiple of ``chunk``; ``bound`` ``(rows,)``
+    ``table`` is ``(rows, 2, nfreq)``: per node, ``K_f`` and its step to the next node; ``bound`` ``(rows,)``
     is the largest ``K_f`` at either end of the node's segment over the frequencies (a cell
     with ``n_e n_i ds bound < SERIES_LIMIT`` is thin at every frequency). A cell has
     ``dtau_f = n_e n_i ds K_f(T)``. ``rows`` is 2^16 for one frequency (a node index
@@ -81,20 +82,22 @@ def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref, chunk=1):
     cached the same way).
     """
     key = (float(log_t0), float(inv_dlog_t), np.asarray(hk, float).tobytes(), np.asarray(alpha_pref, float).tobytes(),
-           hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest(), int(chunk))
-    found = _cache.get(key)
+           hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest())
+    with _lock:
+        found = _cache.get(key)
     if found is None:
         found = _build(float(log_t0), float(inv_dlog_t), np.asarray(gtab[0], float), np.asarray(hk, float),
-                       np.asarray(alpha_pref, float), int(chunk))
+                       np.asarray(alpha_pref, float))
         for arr in found:
             arr.flags.writeable = False
-        if len(_cache) >= _CACHE_SIZE:
-            _cache.pop(next(iter(_cache)))
-        _cache[key] = found
+        with _lock:
+            while len(_cache) >= _CACHE_SIZE:
+                _cache.pop(next(iter(_cache)))
+            _cache[key] = found
     return found
 
 
-def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref, chunk):
+def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref):
     temp = _node_temperatures()
     n_t = grows.shape[1]
     # the Gaunt factor as the kernels interpolated it: linear in ln T, clamped to the table
@@ -111,7 +114,7 @@ def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref, chunk):
     nf, segments = hk.shape[0], temp.shape[0] - 1
     # one frequency: 2^16 rows, so the single-frequency kernel masks the node instead of clamping it
     rows = _ROWS if nf == 1 else segments
-    table = np.zeros((rows, 2, -(-nf // chunk) * chunk))
+    table = np.zeros((rows, 2, nf))
     table[:segments, 0, :nf] = k[:, :-1].T
     table[:segments, 1, :nf] = (k[:, 1:] - k[:, :-1]).T
     bound = np.zeros(rows)
