@@ -223,7 +223,9 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     bound), in the radio regime, inside the table and without He III takes one
     branch-free loop over the frequencies; any other the exact forms
     (:func:`_coefficients_at`, :func:`_cross`). The table moves ``dtau`` by up to
-    ~1e-7 relative (:mod:`rtrace.transfer.ttable`).
+    ~2e-7 relative (:mod:`rtrace.transfer.ttable`). More than
+    :data:`ttable.FREQUENCY_CHUNK` frequencies are taken in chunks (one table
+    and one pass over the cells each), which bounds the table's memory.
     """
     if hk.shape[0] > FREQUENCY_CHUNK:
         _by_frequency_chunks(trace_along_last_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
@@ -346,7 +348,7 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
     Gaunt row) is redone cell by cell with the exact forms (:func:`_one_frequency_ray`).
 
     The table's interpolation, linear in ``T`` between nodes ``2^-10`` apart in relative
-    terms, moves ``dtau`` by up to ~1e-7 relative from the former per-cell evaluation
+    terms, moves ``dtau`` by up to ~2e-7 relative from the former per-cell evaluation
     (:mod:`rtrace.transfer.ttable`); the sums of ``dtau`` and of the EM weight are added in
     any order (``fastmath`` reassociation: rounding-level differences).
     """
@@ -472,8 +474,8 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     temperature's bits, as in :func:`trace_along_last_axis`: a cell thin at every
     frequency (the table's per-node bound), in the radio regime, inside the table
     and without He III takes one branch-free loop over the frequencies, any other
-    the exact forms. Outputs are ``(nfreq, A, C)`` and ``(A, C)``; they must be
-    zero on entry.
+    the exact forms; frequencies in chunks as there. Outputs are ``(nfreq, A, C)``
+    and ``(A, C)``; they must be zero on entry.
     """
     if hk.shape[0] > FREQUENCY_CHUNK:
         _by_frequency_chunks(trace_along_middle_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
