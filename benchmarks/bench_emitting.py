@@ -13,8 +13,62 @@ within each round:
 * rtrace axis-aligned 1 frequency, 8 frequencies (target <= 2.5x of one) and
   oblique at supersample=1 (target <= 2x of axis)
 
+* with ``--one-thread``: one numba thread, each case timed in process CPU seconds, so the
+  figures hold steady on a machine shared with other work (wall-clock ratios there vary 2x)
+
 * with ``--compile``: first-use compile time, the warm-up (``python -m rtrace.warmup``) run in a
   fresh process with an empty numba cache (``NUMBA_CACHE_DIR`` a new temporary folder): kernels
+  compiled and seconds, as the warm-up reports them (target for the demo's kernels <= 15 s)
+
+Latest, the axis kernels (issue 14 item 3, branch ``axis2``): the opacity factor ``alpha_nu / (n_e n_i)``
+comes from a per-frequency table indexed by the temperature's bits (``rtrace/transfer/ttable.py``: node and
+weight by integer operations, no logarithm, square root or division per cell; results move by up to 2.2e-7
+relative, the table's linear interpolation in T); the single-frequency kernel fuses its per-cell passes into
+one vectorised loop (sums of dtau and EM reassociated), advances 8 rays side by side (was 4) and all axis
+kernels contract multiply-adds. Profile of the single-frequency kernel before (one thread, CPU time, 256^3,
+by leaving parts out): ``ln T`` from the bits, the Gaunt gather, dtau (square root, division), the series and
+source (a division), the EM pass and the 4-ray recurrence were 121 ms against 13.4 ms for the streaming pass;
+after: the table gather (a scalar loop: the compiler emits no vector gather here) 18 ms, the recurrence
+9 ms, the fused loop and the field reads 25 ms, 52 ms in all. Measured at load 9-11 (three other jobs and a
+test suite on the 2 cores), so in CPU seconds, one thread, 5 rounds, main (6351ed1) and this branch
+alternating, two runs each (a harness timing the same calls); then this script with ``--one-thread``, one run
+each, while the test suite ran too: before axis1 0.147 s, axis8 0.420, oblique 0.579, stream 0.014, numpy
+4.48; axis1/stream 10.2-12.5 (median 10.7), axis8/axis1 2.46-3.04 (2.87), oblique/axis1 3.5-4.1 (3.8);
+after axis1 0.081, axis8 0.291, oblique 0.582, stream 0.014, numpy 5.19; axis1/stream 4.7-6.4 (median
+5.8), axis8/axis1 3.3-4.3 (3.6), oblique/axis1 6.6-8.3 (7.2: the oblique sweep is unchanged here);
+axis1/numpy 0.016 (target <= 0.10, met before and after):
+
+==============================  ======================  ======================  ========
+one thread, CPU s, medians      before (6351ed1)        after (axis2)           target
+==============================  ======================  ======================  ========
+stream (reads the two fields)   0.014 / 0.016           0.014 / 0.014
+axis 1 frequency (whole trace)  0.146 / 0.147           0.070 / 0.071
+axis 8 frequencies              0.415 / 0.444           0.277 / 0.287
+axis1/stream, per round         9.9-11.3 / 9.0-10.9     4.4-5.3 / 4.1-5.2       <= 6
+axis8/axis1, per round          2.79-2.94 / 2.87-3.05   3.82-4.11 / 3.98-4.45   <= 2.5
+kernel alone, 1 frequency       0.121-0.127             0.050-0.055
+kernel alone, 8 frequencies     0.368                   0.256
+middle axis, 1 / 8 frequencies  0.24 / 0.89             0.127 / 0.38
+==============================  ======================  ======================  ========
+
+The single-frequency target (<= 6x the streaming pass) is met with margin in CPU time (wall clock, both
+threads, at that load: medians 5.3 and 6.9 against 8.8-9.7 before). Of the 70 ms trace, 18 ms is outside
+these kernels: the image step (the remap of the columns onto pixels, 9 ms in ``remap._band_pass`` on both
+threads for 256^2 columns) and the input checks (a pass over n_e, 4 ms). The 8-frequency
+ratio got worse (2.9 -> 4.0): the 8-frequency kernel gained 1.4-1.5x, the single-frequency one 2.1x.
+What bounds it, measured: with its per-cell arithmetic removed the kernel still takes 253 of its 256 ms,
+and 2, 4, 8, 16 frequencies take 183, 244, 252, 331 ms, so ~170 ms is per-cell overhead (the scalar part
+and the entry checks of the vectorised frequency loop, which the compiler re-runs for every cell: its
+arrays may alias) rather than work per frequency. Tried and dropped (same run, same units): two-phase
+per ray (coefficients for all cells, then the recurrence) 392-398 ms (the 3-output frequency loop stays
+scalar, the recurrence through memory costs 140 ms); 8 frequencies' sums in local variables, straight-line
+code per cell 474 ms (not vectorised); a fixed 8-count frequency loop 471 ms; 2 and 4 rays interleaved
+per cell 284 and 538 ms; the per-cell factors in a vectorised pre-pass 281 ms. Compile time with an empty
+cache, per kernel in a fresh process, two runs each at load 8-10: single frequency 5.3, 11.1 s before /
+4.8, 5.6 s after; 8 frequencies 4.9, 4.6 / 5.1, 5.4; middle axis 5.7, 5.5 / 4.7, 5.3 (unchanged within
+the noise).
+
+
   compiled and seconds, as the warm-up reports them; then the demo (``rtrace demo``) the same way,
   each kernel it compiles with its seconds (``rtrace.compiling.Compilation.kernels``; target for the
   demo's kernels <= 15 s on an idle machine). ``--compile-only`` stops there.
@@ -306,7 +360,13 @@ def main():
     parser.add_argument("--compile", action="store_true",
                         help="also time the warm-up and the demo, each with an empty numba cache")
     parser.add_argument("--compile-only", action="store_true", help="only that (no per-cell timings)")
+    parser.add_argument("--one-thread", action="store_true",
+                        help="one thread, timed in process CPU seconds (steady on a machine shared with other work)")
     args = parser.parse_args()
+    clock = time.perf_counter
+    if args.one_thread:
+        numba.set_num_threads(1)
+        clock = time.process_time
     if args.compile or args.compile_only:
         count, seconds, wall = cold_compile()
         print(f"first use, empty numba cache: the warm-up compiled {count} kernels in {seconds:.1f} s "
@@ -347,10 +407,11 @@ def main():
     times = {k: [] for k in cases}
     for _ in range(args.rounds):
         for key, fn in cases.items():
-            t0 = time.perf_counter()
+            t0 = clock()
             fn()
-            times[key].append(time.perf_counter() - t0)
-    print(f"times over {args.rounds} rounds, s (min / median / max):")
+            times[key].append(clock() - t0)
+    print(f"{'CPU ' if args.one_thread else ''}times over {args.rounds} rounds"
+          f"{', one thread' if args.one_thread else ''}, s (min / median / max):")
     for key in cases:
         print(f"  {key:8s} {summary(times[key])}")
     ratios = {"axis1/numpy (<= 0.10)": ("axis1", "numpy"), "axis1/stream (<= 6)": ("axis1", "stream"),

@@ -1,9 +1,9 @@
 """The last-axis kernels' vectorised and cell-by-cell paths against a direct evaluation.
 
 The single-frequency kernel evaluates whole rays in a branch-free loop when every cell is in the
-radio regime and optically thin, four rays side by side, and redoes a ray cell by cell otherwise;
-the several-frequency kernel takes each ray's per-cell factors (ln T from the float's bits) in a
-vectorised pass and chooses the series or exact forms per cell. Both paths are checked here against the
+radio regime and optically thin, eight rays side by side, and redoes a ray cell by cell otherwise;
+the several-frequency kernel chooses the series or exact forms per cell. Both read the opacity
+factor from a table indexed by the temperature's bits (``rtrace.transfer.ttable``). Both paths are checked here against the
 formal solution for piecewise-constant cells, ``I <- I e^{-dtau} + B_nu (1 - e^{-dtau})``, with
 alpha_nu from Rybicki & Lightman (1979) eq. 5.18b (``absorption_cgs``) and B_nu from Planck's law
 (``planck_cgs``), evaluated here in numpy cell by cell.
@@ -48,10 +48,11 @@ def grid(rng, n=(6, 7, 40)):
     return ne, temp
 
 
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
 @pytest.mark.parametrize("forward", [True, False])
 @pytest.mark.parametrize("nu", [5.0e9, 1.0e12])
-def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu):
-    ne, temp = grid(rng)
+def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu, dtype):
+    ne, temp = (x.astype(dtype) for x in grid(rng))
     tables = FrequencyTables(np.array([nu]))
     out_i, out_tau = np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2])
     out_em = np.zeros(ne.shape[:2])
@@ -62,7 +63,8 @@ def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu):
         assert tau[1, 2] > 1.0                      # the thick ray really is thick at 5 GHz
     else:
         assert np.all(4.8e-11 * nu / temp > 1e-3)   # h nu / kT (h/k ~ 4.8e-11 K s, from memory): no radio series
-    # the Gaunt factor comes from a table in ln T (linear interpolation): well below 1e-6 relative
+    # the Gaunt factor comes from a table in ln T (linear interpolation), the opacity factor from one linear in
+    # T between nodes 2^-10 apart (rtrace.transfer.ttable): together below 1e-6 relative
     np.testing.assert_allclose(out_tau[0], tau, rtol=1e-6, atol=0)
     np.testing.assert_allclose(out_i[0], inten, rtol=1e-6, atol=0)
     np.testing.assert_allclose(out_em, em, rtol=1e-6, atol=0)
@@ -72,7 +74,7 @@ def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu):
 def test_several_frequency_kernel_matches_direct_transfer(rng, forward):
     # frequencies where the grid's thick ray is thick (1 GHz), thin radio (5, 30 GHz), and h nu / kT above the
     # radio series' limit in every cell (1 THz): each cell's vectorised and exact paths against the direct sum
-    ne, temp = grid(rng, n=(5, 9, 33))             # 9 rays a row: the single-frequency kernel's groups of 4 and a tail
+    ne, temp = grid(rng, n=(5, 9, 33))             # 9 rays a row: the single-frequency kernel's group of 8 and a tail
     nus = np.array([1.0e9, 5.0e9, 3.0e10, 1.0e12])
     tables = FrequencyTables(nus)
     out_i, out_tau = np.zeros((nus.size,) + ne.shape[:2]), np.zeros((nus.size,) + ne.shape[:2])
@@ -121,7 +123,8 @@ def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus
     assert np.all(kap[~on] == 0.0) and np.all(src[~on] == 0.0)
     want_kap = np.stack([absorption_cgs(nu, temp[on], ne[on], ni[on]) for nu in nus], axis=1)
     want_src = np.stack([planck_cgs(nu, temp[on]) for nu in nus], axis=1)
-    # the Gaunt factor comes from a table in ln T (linear interpolation): well below 1e-6 relative
+    # the Gaunt factor comes from a table in ln T (linear interpolation), the opacity factor from one linear in
+    # T between nodes 2^-10 apart (rtrace.transfer.ttable): together below 1e-6 relative
     np.testing.assert_allclose(kap[on], want_kap, rtol=1e-6, atol=0)
     np.testing.assert_allclose(src[on], want_src, rtol=1e-6, atol=0)
     assert kmax == kap.max()

@@ -9,7 +9,10 @@ Per cell (piecewise-constant coefficients, LTE so ``S = B_nu(T_e)``):
 ``I <- I e^{-dtau} + S (1 - e^{-dtau})``, ``dtau = alpha_nu ds``, with
 ``alpha_nu`` from Rybicki & Lightman (1979) eq. 5.18b and Kirchhoff's law.
 Per-cell factors (``ln T``, ``T^-1/2``, the Gaunt-table index, ``n_e n_i ds``)
-are computed once and reused for every frequency.
+are computed once and reused for every frequency. The axis-aligned kernels
+read ``alpha_nu / (n_e n_i)`` instead from a per-frequency table indexed by
+the temperature's bits (:mod:`rtrace.transfer.ttable`): no logarithm, square
+root or division per cell and frequency.
 
 The Gaunt tables ``gtab`` are ``(2, nfreq, n_T)``: row 0 for ion charge Z = 1
 (H II, He II), row 1 for Z = 2 (He III). For a hydrogen-helium plasma
@@ -31,7 +34,7 @@ Kernels are compiled with ``error_model="numpy"``: a float division then has no
 division-by-zero branch (numba's default raises ZeroDivisionError), without which
 no loop holding a division vectorises. Inside a loop meant to vectorise, a
 table read at a per-cell index (a gather) keeps the whole loop scalar, so the
-single-frequency kernel reads the Gaunt table in a loop of its own.
+single-frequency kernel reads its opacity table in a loop of its own.
 
 The axis kernels and :func:`emitting_blocks` are Python functions that run a
 ``nogil`` numba worker over ranges of planes on threads
@@ -67,6 +70,7 @@ from numba.extending import intrinsic
 
 from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_minus_exp_series
 from .tasks import run_tasks
+from .ttable import FREQUENCY_CHUNK, INDEX_MASK, T_TOP, bit_layout, opacity_table
 
 __all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
            "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
@@ -249,23 +253,6 @@ def _cross(kap, src, ds, acc_i, acc_t):
             acc_t[f] += dtau
 
 
-def _thin_bound(gtab, hk, alpha_pref):
-    """``max_f A nu_f^-3 (h nu_f / k) max_T g_f(T)``: a cell has ``dtau_nu <= n_e n_i ds T^-3/2`` times this.
-
-    ``1 - e^{-u} <= u`` for ``u >= 0`` (and so is its series below SERIES_LIMIT), so a cell whose bound is
-    below SERIES_LIMIT is thin at every frequency (R&L 5.18b).
-    """
-    gmax = np.maximum(gtab.max(axis=(0, 2)), 0.0)
-    return max(0.0, float(np.max(alpha_pref * hk * gmax)))
-
-
-def _frequency_constants(gtab, hk, alpha_pref, b_pref):
-    """What the multi-frequency kernels share: ``gtab`` transposed to ``(2, n_T, nfreq)``, ``max h nu / k``,
-    :func:`_thin_bound` and the ``(4, nfreq)`` rows ``h nu / k, A nu^-3, 2 h nu^3 / c^2, 2 nu^2 k / c^2``."""
-    fconst = np.ascontiguousarray(np.stack([hk, alpha_pref, b_pref[0], b_pref[1]]), float)
-    return np.ascontiguousarray(gtab.transpose(0, 2, 1)), float(hk.max()), _thin_bound(gtab, hk, alpha_pref), fconst
-
-
 def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
                           out_i, out_tau, out_em):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
@@ -274,39 +261,60 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     ``(nfreq, A, B)`` (intensity, optical depth) and ``(A, B)`` (EM); they must
     be zero on entry. For a single frequency :func:`one_frequency_along_last_axis`
     is faster (the tracer chooses; each is compiled only when first used). Each
-    ray's table positions come first from one vectorised pass (``ln T`` from the
-    float's bits, :func:`_log_from_bits`, in double precision); then each cell
-    that is thin at every frequency (:func:`_thin_bound`), in the radio regime
-    and without He III takes one branch-free loop over the frequencies, and any
-    other the exact forms (:func:`_coefficients_at`, :func:`_cross`).
+    cell's opacity factors come from :func:`rtrace.transfer.ttable.opacity_table`
+    at the node given by the temperature's bits (no logarithm or square root; the
+    table's row of a node holds every frequency, so the frequency loop reads it
+    contiguously). A cell that is thin at every frequency (the table's per-node
+    bound), in the radio regime, inside the table and without He III takes one
+    branch-free loop over the frequencies; any other the exact forms
+    (:func:`_coefficients_at`, :func:`_cross`). The table moves ``dtau`` by up to
+    ~2e-7 relative (:mod:`rtrace.transfer.ttable`). More than
+    :data:`ttable.FREQUENCY_CHUNK` frequencies are taken in chunks (one table
+    and one pass over the cells each), which bounds the table's memory.
     """
-    gtab_t, hk_max, bound, fconst = _frequency_constants(gtab, hk, alpha_pref, b_pref)
-    run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
-              float(inv_dlog_t), gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, fconst, bound, bool(em_ions), out_i,
-              out_tau, out_em)
+    if hk.shape[0] > FREQUENCY_CHUNK:
+        _by_frequency_chunks(trace_along_last_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
+                             alpha_pref, b_pref, em_ions, out_i, out_tau, out_em)
+        return
+    table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
+    shift, base = bit_layout(temp.dtype)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    sconst = _source_constants(hk, b_pref)
+    run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
+              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
+              alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True)
-def _last_axis_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref,
-                      b_pref, fconst, bound, em_ions, out_i, out_tau, out_em):
+def _by_frequency_chunks(kernel, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
+                         em_ions, out_i, out_tau, out_em):
+    """``kernel`` over at most :data:`ttable.FREQUENCY_CHUNK` frequencies at a time (bounds its opacity table)."""
+    for f0 in range(0, hk.shape[0], FREQUENCY_CHUNK):
+        part = slice(f0, f0 + FREQUENCY_CHUNK)
+        em = out_em if f0 == 0 else np.zeros_like(out_em)          # the EM once
+        kernel(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, np.ascontiguousarray(gtab[:, part]), hk[part],
+               alpha_pref[part], np.ascontiguousarray(b_pref[:, part]), em_ions, out_i[part], out_tau[part], em)
+
+
+def _source_constants(hk, b_pref):
+    """``(3, nfreq)`` rows ``b_rj, -b_planck / 2, b_planck (h nu / k) / 12``: ``B_nu = b_rj T + b_planck (u / 12 - 1/2)``
+    with ``u = h nu / kT`` (:func:`_radio_source`) as ``row0 T + row1 + row2 / T``."""
+    return np.ascontiguousarray(np.stack([b_pref[1], -0.5 * b_pref[0], b_pref[0] * hk / 12.0]), float)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
+def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
+                      gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Planes ``lo <= a < hi`` of :func:`trace_along_last_axis` (one task of :func:`run_tasks`)."""
     nb, nl = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
-    n_t = gtab.shape[2]
-    top = n_t - 1.0
+    mask = (1 << shift) - 1
+    inv_step = 1.0 / (1 << shift)
+    top = table.shape[0] - 1
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.empty((2, nf))             # the ray's I and tau
         acc_i, acc_t = acc[0], acc[1]
-        xpos = np.empty(nl)
         for b in range(nb):
-            # the table positions of the whole ray first, in one vectorised loop (ln T from the float's bits; a
-            # loop writing more arrays is left scalar by the compiler's aliasing checks)
-            for l in range(nl):
-                t = float(temp[a, b, l])
-                bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
-                mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
-                xpos[l] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
             acc_i[:] = 0.0
             acc_t[:] = 0.0
             em = 0.0
@@ -316,26 +324,25 @@ def _last_axis_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gta
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     em += (nn if em_ions else ne_c * ne_c) * ds
-                    x = min(max(xpos[l], 0.0), top)
-                    it = min(int(x), n_t - 2)
-                    wt = x - it
+                    bits = np.int64(tbits[a, b, l])
+                    node = min(max((bits >> shift) - base, 0), top)
                     t = float(temp[a, b, l])
                     inv_t = 1.0 / t
-                    a0 = nn * math.sqrt(inv_t)
-                    if (hk_max * inv_t < SERIES_LIMIT) & (a0 * ds * inv_t * bound < SERIES_LIMIT) & (ni_c <= ne_c):
+                    c0 = nn * ds
+                    if ((t >= 1.0) & (t < T_TOP) & (hk_max * inv_t < SERIES_LIMIT) & (c0 * bound[node] < SERIES_LIMIT)
+                            & (ni_c <= ne_c)):
                         # thin at every frequency, radio regime, no He III: one branch-free loop per cell
                         # (few arrays in the loop, so that the compiler's aliasing checks allow it to vectorise)
-                        c0 = a0 * ds
+                        c1 = c0 * float(bits & mask) * inv_step
                         for f in range(nf):
-                            uu = fconst[0, f] * inv_t
-                            g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
-                            dtau = c0 * fconst[1, f] * _radio_stimulated(uu) * g
-                            acc[0, f] += one_minus_exp_series(dtau) * (_radio_source(t, uu, fconst[2, f], fconst[3, f])
-                                                                       - acc[0, f])
+                            dtau = c0 * table[node, 0, f] + c1 * table[node, 1, f]
+                            acc[0, f] += one_minus_exp_series(dtau) * (sconst[0, f] * t + sconst[1, f]
+                                                                       + sconst[2, f] * inv_t - acc[0, f])
                             acc[1, f] += dtau
                     else:
-                        _coefficients_at(it, wt, a0, _helium3_share(ne_c, ni_c), t, inv_t, gtab, gtab_t, hk, hk_max,
-                                         alpha_pref, b_pref, kap, src)
+                        it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
+                        _coefficients_at(it, wt, nn * math.sqrt(inv_t), _helium3_share(ne_c, ni_c), t, inv_t, gtab,
+                                         gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                         _cross(kap, src, ds, acc_i, acc_t)
             for f in range(nf):
                 out_i[f, a, b] = acc_i[f]
@@ -366,120 +373,118 @@ def _log_from_bits(bits, mant):
     return e * _LN2 + 2.0 * sv * series
 
 
-_RAYS = 4           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
+_RAYS = 8           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
 
 
 def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
                                   em_ions, out_i, out_tau, out_em):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
 
-    Rays are taken :data:`_RAYS` (4) at a time. For each, the cells' ``e^{-dtau}``,
-    ``S (1 - e^{-dtau})``, ``dtau`` and EM weight come first, in loops with no branch and no library
-    call (so they vectorise: ``ln T`` from the float's bits, :func:`_log_from_bits`; the
-    radio-regime series; the Gaunt table read in a loop of its own), then the four rays' transfer
-    recurrences ``I <- I e^{-dtau} + S (1 - e^{-dtau})`` run side by side in the order of travel,
-    so one ray's dependence chain does not serialise the core. A ray with a cell outside the radio regime or with ``dtau >= SERIES_LIMIT`` is
-    redone cell by cell with the exact forms (:func:`_one_frequency_ray`), and so is a ray with
-    a He III cell (ion term above ``n_e``), which needs the Z = 2 Gaunt row: hydrogen and singly
-    ionized helium keep the fast pass unchanged.
+    Rays are taken :data:`_RAYS` (8) at a time. For each, the cell's opacity factor
+    ``alpha_nu / (n_e n_i)`` is read from :func:`rtrace.transfer.ttable.opacity_table` at
+    the node given by the temperature's bits (integer operations, no logarithm, square root
+    or division; the table read is a loop of its own, which the compiler leaves scalar),
+    then one branch-free loop makes ``dtau``, ``e^{-dtau}``, ``S (1 - e^{-dtau})`` and the
+    sums of ``dtau`` and the EM weight (vectorised), and the rays' transfer recurrences
+    ``I <- I e^{-dtau} + S (1 - e^{-dtau})`` run side by side in the order of travel, so one
+    ray's dependence chain does not serialise the core. A ray with a cell outside the radio
+    regime, outside the table (below 1 K or from :data:`ttable.T_TOP`), with
+    ``dtau >= SERIES_LIMIT`` or with He III (ion term above ``n_e``, which needs the Z = 2
+    Gaunt row) is redone cell by cell with the exact forms (:func:`_one_frequency_ray`).
 
-    ``ln T`` is taken in double precision here and in :func:`trace_along_last_axis`; the other
-    kernels take it in the field's own precision (numba's ``float()`` keeps a float32 a float32),
-    which moves the Gaunt-table position and so the results by up to ~5e-8 relative for float32
-    fields.
+    The table's interpolation, linear in ``T`` between nodes ``2^-10`` apart in relative
+    terms, moves ``dtau`` by up to ~2e-7 relative from the former per-cell evaluation
+    (:mod:`rtrace.transfer.ttable`); the sums of ``dtau`` and of the EM weight are added in
+    any order (``fastmath`` reassociation: rounding-level differences).
     """
-    run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
-              float(inv_dlog_t), gtab, hk, alpha_pref, b_pref, np.ascontiguousarray(gtab[0, 0]), bool(em_ions), out_i,
-              out_tau, out_em)
+    if hk.shape[0] != 1:
+        raise ValueError(f"one_frequency_along_last_axis: one frequency, got {hk.shape[0]}")
+    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)[0]      # 2^16 rows: the node is masked
+    shift, base = bit_layout(temp.dtype)
+    run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table,
+              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, hk, alpha_pref, b_pref,
+              bool(em_ions), out_i, out_tau, out_em)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True)
-def _one_frequency_planes(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, row,
-                          em_ions, out_i, out_tau, out_em):
+def _temperature_bits(temp):
+    """``temp`` viewed as integers of its own width (no copy)."""
+    return temp.view(np.int32 if temp.dtype == np.float32 else np.int64)
+
+
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"reassoc", "contract"})
+def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, forward, log_t0, inv_dlog_t, gtab, hk,
+                          alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Planes ``lo <= a < hi`` of :func:`one_frequency_along_last_axis` (one task of :func:`run_tasks`)."""
     nb, nl = ne.shape[1], ne.shape[2]
-    n_t = gtab.shape[2]
-    hk0, ap0, bp0, brj0 = hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0]
-    top = n_t - 1.0
+    hk0, bp0, brj0 = hk[0], b_pref[0, 0], b_pref[1, 0]
+    # B_nu = b_rj T + b_planck (u / 12 - 1/2), u = h nu / kT (_radio_source), with constant factors apart
+    s_half, s_twelfth = -0.5 * bp0, bp0 * hk0 / 12.0
+    mask = (1 << shift) - 1
+    inv_step = 1.0 / (1 << shift)
     for a in range(lo, hi):
-        xpos = np.empty(nl)
-        gau = np.empty(nl)
-        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau}), dtau, EM weight
+        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau})
         gain = np.empty((_RAYS, nl))
-        dtb = np.empty((_RAYS, nl))
-        emb = np.empty((_RAYS, nl))
-        bad = np.empty(_RAYS, np.int64)
+        tau_sum = np.zeros(_RAYS)
+        em_sum = np.zeros(_RAYS)
+        bad = np.zeros(_RAYS, np.int64)
+        k_node = np.empty(nl)
+        k_step = np.empty(nl)
         for b0 in range(0, nb, _RAYS):
             for j in range(_RAYS):
                 b = b0 + j
                 if b >= nb:                 # past the last ray: cells that change nothing
                     keep[j, :] = 1.0
                     gain[j, :] = 0.0
-                    dtb[j, :] = 0.0
-                    emb[j, :] = 0.0
-                    bad[j] = 0
                     continue
-                # five short loops, each vectorised: a loop that writes more arrays than this is left scalar by
-                # the compiler's aliasing checks, and one that reads the table at a per-cell index (a gather) too
-                for l in range(nl):             # the table position, ln T from the float's bits
-                    t = float(temp[a, b, l])
-                    bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
-                    mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
-                    xpos[l] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
-                for l in range(nl):             # the Gaunt factor (not vectorised: the gather)
-                    x = min(max(xpos[l], 0.0), top)
-                    it = min(int(x), n_t - 2)
-                    gau[l] = row[it] + (x - it) * (row[it + 1] - row[it])
-                for l in range(nl):             # dtau: R&L 5.18b times ds
-                    ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
-                    nn = ne_c * ni_c
-                    t = float(temp[a, b, l])
-                    inv_t = 1.0 / (t if t > 0.0 else 1.0e4)
-                    dtau = nn * ds * math.sqrt(inv_t) * ap0 * _radio_stimulated(hk0 * inv_t) * gau[l]
-                    dtb[j, l] = dtau if nn > 0.0 else 0.0
-                for l in range(nl):             # e^{-dtau} and S (1 - e^{-dtau})
-                    t = float(temp[a, b, l])
-                    t = t if t > 0.0 else 1.0e4
-                    att = one_minus_exp_series(dtb[j, l])
-                    keep[j, l] = 1.0 - att
-                    gain[j, l] = att * _radio_source(t, hk0 / t, bp0, brj0)
+                for l in range(nl):         # the table's node from T's bits (a gather: left scalar)
+                    node = ((np.int64(tbits[a, b, l]) >> shift) - base) & INDEX_MASK
+                    k_node[l] = table[node, 0, 0]
+                    k_step[l] = table[node, 1, 0]
+                keep_j, gain_j = keep[j], gain[j]
                 n_bad = 0
-                for l in range(nl):             # EM weights; cells the series do not cover
+                tau = 0.0
+                em = 0.0
+                for l in range(nl):         # dtau (R&L 5.18b times ds), e^{-dtau}, S (1 - e^{-dtau}): vectorised
                     ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
                     nn = ne_c * ni_c
                     on = nn > 0.0
-                    emb[j, l] = (nn if em_ions else ne_c * ne_c) * ds if on else 0.0
+                    frac = float(np.int64(tbits[a, b, l]) & mask) * inv_step
+                    dtau = nn * ds * (k_node[l] + frac * k_step[l]) if on else 0.0
+                    tau += dtau
+                    em += (nn if em_ions else ne_c * ne_c) if on else 0.0
                     t = float(temp[a, b, l])
-                    n_bad += 1 if on & ((hk0 >= SERIES_LIMIT * t) | (dtb[j, l] >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                    n_bad += 1 if on & ((t < 1.0) | (t >= T_TOP) | math.isnan(t) | (hk0 >= SERIES_LIMIT * t)
+                                        | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                    t = t if t > 0.0 else 1.0e4
+                    att = one_minus_exp_series(dtau)
+                    keep_j[l] = 1.0 - att
+                    gain_j[l] = att * (brj0 * t + s_half + s_twelfth / t)
+                tau_sum[j] = tau
+                em_sum[j] = em * ds
                 bad[j] = n_bad
             # the recurrence I <- I e^{-dtau} + S (1 - e^{-dtau}) of the group's rays side by side, so that one
             # ray's dependence chain does not serialise the core
-            i0, i1, i2, i3 = 0.0, 0.0, 0.0, 0.0
-            t0, t1, t2, t3 = 0.0, 0.0, 0.0, 0.0
-            e0, e1, e2, e3 = 0.0, 0.0, 0.0, 0.0
+            i0, i1, i2, i3, i4, i5, i6, i7 = 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
             for s in range(nl):
                 l = s if forward else nl - 1 - s
                 i0 = i0 * keep[0, l] + gain[0, l]
                 i1 = i1 * keep[1, l] + gain[1, l]
                 i2 = i2 * keep[2, l] + gain[2, l]
                 i3 = i3 * keep[3, l] + gain[3, l]
-                t0 += dtb[0, l]
-                t1 += dtb[1, l]
-                t2 += dtb[2, l]
-                t3 += dtb[3, l]
-                e0 += emb[0, l]
-                e1 += emb[1, l]
-                e2 += emb[2, l]
-                e3 += emb[3, l]
-            for j, (i_acc, t_acc, em) in enumerate(((i0, t0, e0), (i1, t1, e1), (i2, t2, e2), (i3, t3, e3))):
+                i4 = i4 * keep[4, l] + gain[4, l]
+                i5 = i5 * keep[5, l] + gain[5, l]
+                i6 = i6 * keep[6, l] + gain[6, l]
+                i7 = i7 * keep[7, l] + gain[7, l]
+            for j, i_acc in enumerate((i0, i1, i2, i3, i4, i5, i6, i7)):
                 b = b0 + j
                 if b < nb:
+                    t_acc = tau_sum[j]
                     if bad[j]:
                         i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t,
                                                           gtab, hk, alpha_pref, b_pref)
                     out_i[0, a, b] = i_acc
                     out_tau[0, a, b] = t_acc
-                    out_em[a, b] = em
+                    out_em[a, b] = em_sum[j]
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
@@ -509,62 +514,65 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
 
     Each ray advances one plane at a time and whole rows of rays are updated
-    together, so memory is read contiguously: a row's table positions in one
-    vectorised loop, then each cell's frequencies in one branch-free loop when
-    the cell is thin at every frequency (:func:`_thin_bound`), in the radio
-    regime and without He III, else the exact forms. Outputs are
-    ``(nfreq, A, C)`` and ``(A, C)``; they must be zero on entry.
+    together, so memory is read contiguously. Each cell's opacity factors come
+    from :func:`rtrace.transfer.ttable.opacity_table` at the node given by the
+    temperature's bits, as in :func:`trace_along_last_axis`: a cell thin at every
+    frequency (the table's per-node bound), in the radio regime, inside the table
+    and without He III takes one branch-free loop over the frequencies, any other
+    the exact forms; frequencies in chunks as there. Outputs are ``(nfreq, A, C)``
+    and ``(A, C)``; they must be zero on entry.
     """
-    gtab_t, hk_max, bound, fconst = _frequency_constants(gtab, hk, alpha_pref, b_pref)
+    if hk.shape[0] > FREQUENCY_CHUNK:
+        _by_frequency_chunks(trace_along_middle_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
+                             alpha_pref, b_pref, em_ions, out_i, out_tau, out_em)
+        return
+    table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
+    shift, base = bit_layout(temp.dtype)
+    gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
+    sconst = _source_constants(hk, b_pref)
     # the contiguous arrays and the transposed views are compiled apart: the any-layout code ('A') for
     # contiguous arrays costs ~1.5x in run time (measured), and a specialisation of this kernel compiles in ~1 s
-    run_tasks(_middle_axis_rows, ne.shape[0], ne, ni, temp, float(ds), bool(forward), float(log_t0),
-              float(inv_dlog_t), gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, fconst, bound, bool(em_ions), out_i,
-              out_tau, out_em)
+    run_tasks(_middle_axis_rows, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
+              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
+              alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
 
 
-@numba.njit(cache=True, error_model="numpy", nogil=True)
-def _middle_axis_rows(lo, hi, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref,
-                      b_pref, fconst, bound, em_ions, out_i, out_tau, out_em):
+@numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
+def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
+                      gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
     """Rows ``lo <= a < hi`` of :func:`trace_along_middle_axis` (one task of :func:`run_tasks`)."""
     nl, nc = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
-    n_t = gtab.shape[2]
-    top = n_t - 1.0
+    mask = (1 << shift) - 1
+    inv_step = 1.0 / (1 << shift)
+    top = table.shape[0] - 1
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
         acc = np.zeros((nc, 2, nf))         # this row's rays: I and tau, frequencies contiguous
-        xpos = np.empty(nc)
         for s in range(nl):
             l = s if forward else nl - 1 - s
-            for c in range(nc):             # the row's table positions, vectorised (as in trace_along_last_axis)
-                t = float(temp[a, l, c])
-                bits = np.float64(t if t > 0.0 else 1.0e4).view(np.int64)
-                mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
-                xpos[c] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
             for c in range(nc):
                 ne_c, ni_c = float(ne[a, l, c]), float(ni[a, l, c])
                 nn = ne_c * ni_c
                 if nn > 0.0:
                     out_em[a, c] += (nn if em_ions else ne_c * ne_c) * ds
-                    x = min(max(xpos[c], 0.0), top)
-                    it = min(int(x), n_t - 2)
-                    wt = x - it
+                    bits = np.int64(tbits[a, l, c])
+                    node = min(max((bits >> shift) - base, 0), top)
                     t = float(temp[a, l, c])
                     inv_t = 1.0 / t
-                    a0 = nn * math.sqrt(inv_t)
-                    if (hk_max * inv_t < SERIES_LIMIT) & (a0 * ds * inv_t * bound < SERIES_LIMIT) & (ni_c <= ne_c):
-                        c0 = a0 * ds                # thin, radio, no He III: as in trace_along_last_axis
+                    c0 = nn * ds
+                    if ((t >= 1.0) & (t < T_TOP) & (hk_max * inv_t < SERIES_LIMIT) & (c0 * bound[node] < SERIES_LIMIT)
+                            & (ni_c <= ne_c)):
+                        c1 = c0 * float(bits & mask) * inv_step     # thin, radio, no He III: as trace_along_last_axis
                         for f in range(nf):
-                            uu = fconst[0, f] * inv_t
-                            g = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
-                            dtau = c0 * fconst[1, f] * _radio_stimulated(uu) * g
-                            acc[c, 0, f] += one_minus_exp_series(dtau) * (
-                                _radio_source(t, uu, fconst[2, f], fconst[3, f]) - acc[c, 0, f])
+                            dtau = c0 * table[node, 0, f] + c1 * table[node, 1, f]
+                            acc[c, 0, f] += one_minus_exp_series(dtau) * (sconst[0, f] * t + sconst[1, f]
+                                                                          + sconst[2, f] * inv_t - acc[c, 0, f])
                             acc[c, 1, f] += dtau
                     else:
-                        _coefficients_at(it, wt, a0, _helium3_share(ne_c, ni_c), t, inv_t, gtab, gtab_t, hk, hk_max,
-                                         alpha_pref, b_pref, kap, src)
+                        it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
+                        _coefficients_at(it, wt, nn * math.sqrt(inv_t), _helium3_share(ne_c, ni_c), t, inv_t, gtab,
+                                         gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
                         _cross(kap, src, ds, acc[c, 0], acc[c, 1])
         for c in range(nc):
             for f in range(nf):
