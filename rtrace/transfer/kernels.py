@@ -815,7 +815,7 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
             lt = np.uint64(kl - t_k0)              # the layer's place in the tile
             for xb in range(x_hi - x_lo):
                 ur = np.uint64(x_lo + xb - tx_lo)
-                first, last = width, -1
+                first, last = width, np.int64(-1)   # not a literal -1 (a 2nd compile of the callee)
                 t_min, sh_max = 1.0e4, 0.0              # over the row's emitting cells
                 for yb in range(n_y):
                     uc = np.uint64(y_lo - ty_lo) + np.uint64(yb)
