@@ -12,7 +12,8 @@ returns pixel footprint means of
   optically thin gas and second order otherwise.
 
 With a ``tolerance``, the remainder's quadrature error is estimated per
-pixel (:func:`local_bound` on the first lattice), and blocks of pixels
+pixel (:func:`phase_estimate` on the first lattice: from its sub-lattices
+of twice the ray spacing), and blocks of pixels
 (:data:`TILE`) holding one above it are traced again on finer lattices,
 the estimate there being the change from the previous lattice. Only the
 rays whose tubes touch those blocks are traced (:func:`needed_rays`), all
@@ -251,7 +252,9 @@ def local_bound(route, rem):
     factor 9 to 70 at one ray per cell. :data:`BOUND_FRACTION` of it is
     used (still at least twice the measured error there), remapped like
     the values. Cheap, and small wherever the gas is optically thin (R ~ 0),
-    so those pixels need no finer lattice.
+    so those pixels need no finer lattice. No longer used by :func:`split_trace`
+    (:func:`phase_estimate` is several times tighter on optically thick
+    gas); kept as the conservative alternative.
     """
     big = _neighbourhood_max(np.abs(rem))
     return remap_rays(route, 2.0 * BOUND_FRACTION * big)
@@ -273,13 +276,22 @@ def phase_estimate(route, rem, lattice):
     smooth on the scale of a pixel (an optically thick region seen through
     uniform gas), which is most of the thick pixels of a real map.
 
-    Calibration (measured, not a proof): on the lognormal grids of
-    ``tests/test_pixel_accuracy.py`` (three directions, pixels of 0.5, 1.6
-    and 4 cells, the optically thick frequency) the largest difference was
-    at least 0.75 of the error measured against the brute-force reference in
-    every pixel (median 18 times it); on the demo scenario and the fully
-    emitting benchmark grid (``benchmarks/bench_accuracy.py``, 256^3)
-    against the trace refined to 1e-2, see :data:`PHASE_FACTOR`.
+    Calibration (measured, not a proof; ratios of the largest difference to
+    the first lattice's measured error, over pixels above 1e-2 of the peak
+    whose error exceeds 2e-3): on the lognormal grids of
+    ``tests/test_pixel_accuracy.py`` against the brute-force reference (three
+    directions, both frequencies), at least 2.5 for pixels of 1.6 and 4
+    cells (median 15-40) and 0.75 for pixels of 0.5 cell (0.49 at the thin
+    frequency, where the split is exact and the reference's 16 x 16 sub-rays
+    are what is off); at 256^3 against the same trace refined to 1e-2
+    (``benchmarks/bench_accuracy.py``'s view, over pixels whose error exceeds
+    1e-3), at least 1.7 on the demo scenario (median 5.8) and 0.61 on the
+    fully emitting grid (below 1 in 8 of about 10^4 pixels, 1st percentile
+    1.2). Hence :data:`PHASE_FACTOR` = 2. The old estimate (:func:`local_bound`)
+    was 18-470 times the error on the demo and sent 1893 of its 2076 bright
+    pixels to the next lattice; this one sends 301 (the fully emitting grid:
+    7888 -> 3745 of 9952). ``test_first_lattice_estimate_covers_each_pixel``
+    checks it pixel by pixel against the reference.
     """
     ny, nx = route.image_shape
     nf, n_i, n_j = rem.shape
@@ -316,7 +328,7 @@ def _neighbourhood_max(planes):
 BOUND_FRACTION = 0.25
 # The first lattice's error estimate is this times the largest difference between it and its four
 # sub-lattices of twice the spacing (phase_estimate): 1 where the quadrature error halves per halving
-# of the spacing; 2 covers the smallest ratio of difference to measured error found (0.75).
+# of the spacing; 2 covers the smallest ratios of difference to measured error found (0.61-0.75, see there).
 PHASE_FACTOR = 2.0
 # Pixels per side of the blocks refined on their own at 2 rays per cell side; halved with each
 # further doubling (the pixels left to refine are fewer and each costs four times more), down to MIN_TILE.
