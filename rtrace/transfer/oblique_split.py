@@ -14,7 +14,7 @@ returns pixel footprint means of
 With a ``tolerance``, the remainder's quadrature error is estimated per
 pixel (:func:`phase_estimate` on the first lattice: from its sub-lattices
 of twice the ray spacing), and blocks of pixels
-(:data:`TILE`) holding one above it are traced again on finer lattices,
+(:data:`FIRST_TILE`, :data:`TILE`) holding one above it are traced again on finer lattices,
 the estimate there being the change from the previous lattice. Only the
 rays whose tubes touch those blocks are traced (:func:`needed_rays`), all
 of a lattice in one call ordered by cell column (:func:`traced_remainders`).
