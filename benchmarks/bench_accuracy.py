@@ -56,6 +56,36 @@ cell side; 1e-2 1.32 s (1.29 .. 1.34) = 10.2x, 0.0095 at 4; 1e-3 1.91 s = 15.4x,
 Fully emitting, supersample=1 0.451 s (0.45 .. 0.457); 1e-1 4.09 s (3.99 .. 5.63) = 9.1x, 0.0989 at 4;
 1e-2 5.93 s (5.89 .. 6.05) = 13.1x, 0.00995 at 8; 1e-3 21.4 s = 48x, 0.00101 at the cap of 32 (not met).
 
+The first lattice's error estimated from its four sub-lattices of twice the ray spacing
+(``oblique_split.phase_estimate``, twice the largest difference, instead of a quarter of twice the
+largest nearby |R|) and 8^2-pixel blocks at the first refinement (``FIRST_TILE``, was 16^2),
+``--cells 256 --tolerances 0.01 --repeat 3``: the same estimates reached (0.00952 at 4 rays per cell
+side, 0.00995 at 8). Counts (deterministic): pixels failing on the first lattice, demo 1893 -> 301
+of its 2076 bright ones, fully emitting 7888 -> 3745 of 9952; refined rays, demo 204148 + 41354 ->
+72375 + 41354 (at 2 + 4 rays per cell side, -53%), fully emitting 560888 + 425052 + 110512 ->
+541633 + 425052 + 110512 (-2%: its 3745 failing pixels are spread over the whole image, so the
+blocks still cover nearly every bright pixel). Times from two back-to-back pairs on a machine shared
+with other jobs (load 1-10 on 2 cores, changing within a run: only the demo's ratios are clear):
+
+==================  ==============================  ==============================
+case, 1e-2          before                          after
+==================  ==============================  ==============================
+demo, pair 1        5.57 s (4.27 .. 6.13) = 16.2x   4.17 s (3.59 .. 4.43) = 8.0x
+demo, pair 2        2.77 s (2.33 .. 3.56) = 13.3x   1.86 s (1.85 .. 1.89) = 7.7x
+fully emitting      29.5, 20.3 s = 13.9x, 10.4x     9.19, 16.1 s = 7.6x, 17.2x
+==================  ==============================  ==============================
+
+(supersample=1 in those runs: demo 0.34, 0.21 s before and 0.52, 0.24 s after; fully emitting 2.12,
+1.96 s and 1.22, 0.94 s.) On the quiet machine the demo was 10.2x before; with about half its
+refined rays gone, expect about 7-8x. Where the time goes now (demo, one loaded run, seconds,
+supersample=1 0.44): sensitivities 1.25 (the pass 0.97, the coefficients 0.28), refined remainders
+0.86, first remainder pass 0.57, projection 0.44, estimate and remaps 0.37: the first lattice's
+fixed work alone is about 6 plain traces, so 3x needs a cheaper first pass, not only fewer refined
+rays. Tried and dropped: blocks of 8, 4, 2 or 16, 4, 2 pixels per side at 2, 4, 8 rays (the
+change-based estimate of ``tests/test_pixel_accuracy.py`` then fell below the measured error,
+0.049 against 0.054); the sub-lattice difference also on refined lattices (too conservative: the
+default tolerance then stopped at the cap on more of the test's views).
+
 Usage: ``PYTHONPATH=. python benchmarks/bench_accuracy.py [--cells 128] [--repeat 3]``
 """
 

@@ -265,3 +265,35 @@ def test_cap_warns_with_the_error_reached(scene, cases, monkeypatch):
 def test_bad_tolerance_is_refused(scene, cases, bad):
     with pytest.raises(InputError, match="tolerance"):
         rtrace.trace(scene[0], cases[1][0], NU * u.Hz, tolerance=bad)
+
+
+def test_first_lattice_estimate_covers_each_pixel(scene, cases, monkeypatch):
+    # The first lattice's per-pixel estimate (oblique_split.phase_estimate), before any refinement,
+    # against the brute-force reference, pixel by pixel: it decides which pixels are refined and is
+    # kept as the error of those that are not, so it must cover each pixel's measured error (less the
+    # reference's own, REF_ERROR), on pixels of 1.6 and 4 cells, thick and thin frequencies.
+    from rtrace.transfer import oblique_split
+    first = []
+    failing = oblique_split._failing
+
+    def record(error, value, floor, tolerance):
+        if not first:
+            first.append((error.copy(), value.copy()))
+        return failing(error, value, floor, tolerance)
+
+    monkeypatch.setattr(oblique_split, "_failing", record)
+    covered = 0
+    for view, pix_cells, ref_i, ref_em in cases:
+        if pix_cells < 1.0:
+            continue
+        first.clear()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PixelAccuracyWarning)
+            rtrace.trace(scene[0], view, NU * u.Hz, tolerance=0.5)
+        error, value = first[0]
+        for est, got, ref in zip(error, value, ref_i):
+            bright = ref >= FLOOR * ref.max()
+            measured = np.abs(got - ref)[bright]
+            assert np.all(est[bright] >= measured - REF_ERROR * ref[bright]), (view.los, pix_cells)
+            covered += int(np.count_nonzero(measured > REF_ERROR * ref[bright]))
+    assert covered > 100        # pixels whose first-lattice error is above the reference's own (not vacuous)

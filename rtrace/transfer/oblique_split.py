@@ -12,8 +12,9 @@ returns pixel footprint means of
   optically thin gas and second order otherwise.
 
 With a ``tolerance``, the remainder's quadrature error is estimated per
-pixel (:func:`local_bound` on the first lattice), and blocks of pixels
-(:data:`TILE`) holding one above it are traced again on finer lattices,
+pixel (:func:`phase_estimate` on the first lattice: from its sub-lattices
+of twice the ray spacing), and blocks of pixels
+(:data:`FIRST_TILE`, :data:`TILE`) holding one above it are traced again on finer lattices,
 the estimate there being the change from the previous lattice. Only the
 rays whose tubes touch those blocks are traced (:func:`needed_rays`), all
 of a lattice in one call ordered by cell column (:func:`traced_remainders`).
@@ -251,10 +252,67 @@ def local_bound(route, rem):
     factor 9 to 70 at one ray per cell. :data:`BOUND_FRACTION` of it is
     used (still at least twice the measured error there), remapped like
     the values. Cheap, and small wherever the gas is optically thin (R ~ 0),
-    so those pixels need no finer lattice.
+    so those pixels need no finer lattice. No longer used by :func:`split_trace`
+    (:func:`phase_estimate` is several times tighter on optically thick
+    gas); kept as the conservative alternative.
     """
-    mag = np.abs(rem)
-    big = mag.copy()
+    big = _neighbourhood_max(np.abs(rem))
+    return remap_rays(route, 2.0 * BOUND_FRACTION * big)
+
+
+def phase_estimate(route, rem, lattice):
+    """Per pixel, an estimate of the remainder's quadrature error on this lattice, from its coarser sub-lattices.
+
+    The rays ``(I, J)`` of the lattice split by the parities of ``I`` and
+    ``J`` into four lattices of twice the spacing, each of which tiles the
+    image plane on its own (tubes ``2 e1`` x ``2 e2`` about its rays). Each
+    gives a footprint mean of the remainder (``rem``, ``(nfreq, nI, nJ)``),
+    and where the lattice quadrature converges at least linearly with the
+    ray spacing its difference from the full lattice's value (``lattice``,
+    :func:`remap_rays` of ``rem``) is at least the full lattice's own error.
+    The estimate is :data:`PHASE_FACTOR` times the largest of the four
+    differences. Unlike
+    :func:`local_bound`, it is small where the remainder is large but
+    smooth on the scale of a pixel (an optically thick region seen through
+    uniform gas), which is most of the thick pixels of a real map.
+
+    Calibration (measured, not a proof; ratios of the largest difference to
+    the first lattice's measured error, over pixels above 1e-2 of the peak
+    whose error exceeds 2e-3): on the lognormal grids of
+    ``tests/test_pixel_accuracy.py`` against the brute-force reference (three
+    directions, both frequencies), at least 2.5 for pixels of 1.6 and 4
+    cells (median 15-40) and 0.75 for pixels of 0.5 cell (0.49 at the thin
+    frequency, where the split is exact and the reference's 16 x 16 sub-rays
+    are what is off); at 256^3 against the same trace refined to 1e-2
+    (``benchmarks/bench_accuracy.py``'s view, over pixels whose error exceeds
+    1e-3), at least 1.7 on the demo scenario (median 5.8) and 0.61 on the
+    fully emitting grid (below 1 in 8 of about 10^4 pixels, 1st percentile
+    1.2). Hence :data:`PHASE_FACTOR` = 2. The old estimate (:func:`local_bound`)
+    was 18-470 times the error on the demo and sent 1893 of its 2076 bright
+    pixels to the next lattice; this one sends 301 (the fully emitting grid:
+    7888 -> 3745 of 9952). ``test_first_lattice_estimate_covers_each_pixel``
+    checks it pixel by pixel against the reference.
+    """
+    ny, nx = route.image_shape
+    nf, n_i, n_j = rem.shape
+    e1, e2, p0 = np.asarray(route.e1, float), np.asarray(route.e2, float), np.asarray(route.p0, float)
+    worst = np.zeros((nf, ny, nx))
+    for pa in range(2):
+        for pb in range(2):
+            big_i = (route.ia[0] + np.arange(pa, n_i, 2))[:, None]
+            big_j = (route.ib[0] + np.arange(pb, n_j, 2))[None, :]
+            cols = np.ascontiguousarray((p0[0] + big_i * e1[0] + big_j * e2[0]).ravel(), float)
+            rows = np.ascontiguousarray((p0[1] + big_i * e1[1] + big_j * e2[1]).ravel(), float)
+            coarse = np.zeros((nf, ny, nx))
+            remap_parallelograms(cols, rows, 2.0 * e1, 2.0 * e2,
+                                 np.ascontiguousarray(rem[:, pa::2, pb::2].reshape(nf, -1)), coarse)
+            np.maximum(worst, np.abs(coarse - lattice), out=worst)
+    return PHASE_FACTOR * worst
+
+
+def _neighbourhood_max(planes):
+    """Largest value of each pixel and its eight neighbours (``(nq, ny, nx)``)."""
+    big = planes.copy()
     for axis in (1, 2):
         shifted = big.copy()
         lo = [slice(None)] * 3
@@ -263,15 +321,25 @@ def local_bound(route, rem):
         np.maximum(shifted[tuple(lo)], big[tuple(hi)], out=shifted[tuple(lo)])
         np.maximum(shifted[tuple(hi)], big[tuple(lo)], out=shifted[tuple(hi)])
         big = shifted
-    return remap_rays(route, 2.0 * BOUND_FRACTION * big)
+    return big
 
 
 # Fraction of the local bound taken as the first lattice's error estimate (see local_bound).
 BOUND_FRACTION = 0.25
+# The first lattice's error estimate is this times the largest difference between it and its four
+# sub-lattices of twice the spacing (phase_estimate): 1 where the quadrature error halves per halving
+# of the spacing; 2 covers the smallest ratios of difference to measured error found (0.61-0.75, see there).
+PHASE_FACTOR = 2.0
 # Pixels per side of the blocks refined on their own at 2 rays per cell side; halved with each
 # further doubling (the pixels left to refine are fewer and each costs four times more), down to MIN_TILE.
 TILE = 16
 MIN_TILE = 2
+# ... but at most this many at the first refinement: with phase_estimate few, scattered pixels of the first
+# lattice fail, and 16^2 blocks round them up to most of an optically thick region (the demo scenario at
+# 256^3: 3072 pixels refined for 301 failing, 1344 with 8^2 blocks). The blocks are then 8, 8, 4, 2 pixels
+# per side at 2, 4, 8, 16 rays per cell side; 8, 4, 2, 2 or 16, 4, 2, 2 let the change-based estimate on
+# tests/test_pixel_accuracy.py's lognormal grids fall below the measured error (0.049 against 0.054).
+FIRST_TILE = 8
 # The estimate on a refined block is this times the change from the previous lattice: the finer
 # lattice's error when the error halves per doubling, three times it when it falls fourfold (the
 # remainder is smooth between cell edges).
@@ -348,7 +416,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     scale = 1.0 if thin_scale is None else 1.0 / thin_scale
     rem = remainders(route, w, slots, nk, seg, bg_rays)
     lattice = remap_rays(route, rem)
-    error = local_bound(route, rem)
+    error = phase_estimate(route, rem, lattice)
     rays = float(route.ray_count)
     del seg, rem
 
@@ -362,7 +430,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
             stopped = f"the cap of {max_supersample} rays per cell side was reached"
             break
         fine = make_route(2 * m)                # the lattice's geometry; only the tiles' rays are traced
-        tiles = _tiles(failing, max(MIN_TILE, TILE * 2 // max(fine.m)))
+        tiles = _tiles(failing, max(MIN_TILE, min(FIRST_TILE, TILE * 2 // max(fine.m))))
         big_i, big_j = needed_rays(fine, tiles)
         try:
             check_memory(trace_ray_bytes(nf, big_i.size), field="tolerance",
