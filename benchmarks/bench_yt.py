@@ -25,9 +25,9 @@ import time
 import astropy.units as u
 import numba
 import numpy as np
+from timing import best_of, max_rss_mb
 
 import rtrace
-from timing import best_of, max_rss_mb
 from rtrace import demo
 from rtrace.physics.constants import EMISSIVITY_FF_PREFACTOR, H_OVER_K
 from rtrace.physics.gaunt import classical_radio_gaunt, gaunt_cgs
@@ -125,7 +125,7 @@ def yt_projection(ds, field, los, npix, threads):
 
 
 def as_rtrace_orientation(yt_img):
-    """yt [east, north] -> rtrace [row (north), column (west)]."""
+    """Yt [east, north] -> rtrace [row (north), column (west)]."""
     return yt_img[::-1, :].T
 
 
@@ -177,9 +177,9 @@ def main():
     timings = {}
     for name, los in VIEWS.items():
         v = view(los)
-        t_rt, _ = best_of(lambda: rtrace.trace(snap, v, [5] * u.GHz, supersample=1), args.repeat)
+        t_rt, _ = best_of(lambda v=v: rtrace.trace(snap, v, [5] * u.GHz, supersample=1), args.repeat)
         count5.cells = 0
-        t_yt, _ = best_of(lambda: yt_projection(ds, f5, los, n, args.threads), args.repeat)
+        t_yt, _ = best_of(lambda los=los: yt_projection(ds, f5, los, n, args.threads), args.repeat)
         per_run = count5.cells / args.repeat
         timings[name] = (t_rt, t_yt)
         print(f"\n{name} los=({', '.join(f'{x:.4f}' for x in los)}), 5 GHz, best of {args.repeat}:")

@@ -87,7 +87,7 @@ def unit_inputs(job, member, spec, source=None):
 
     ``source`` is the member's :func:`fingerprint`, computed here when not given.
     """
-    from . import __version__
+    from ._version import __version__
     shared = {k: v for k, v in job.snapshot.items() if k not in _MEMBER_KEYS}
     return {"rtrace": __version__, "snapshot": shared,
             "source": fingerprint(job, member) if source is None else source,
@@ -114,6 +114,7 @@ def output_key(base, product, observing=None, limits=None):
 @dataclass
 class Unit:
     """One snapshot seen through one view."""
+
     member: dict
     name: str
     view: object

@@ -480,7 +480,7 @@ def build_parser():
     parser = argparse.ArgumentParser(
         prog="rtrace", description="Synthetic thermal free-free radio images from hydrodynamics snapshots.",
         epilog=EXIT_CODES)
-    from . import __version__
+    from ._version import __version__
     parser.add_argument("--version", action="version", version=f"rtrace {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="command")
 

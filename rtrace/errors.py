@@ -50,7 +50,8 @@ class GauntRangeWarning(PhysicsRangeWarning):
 
 class RelativisticWarning(PhysicsRangeWarning):
     """Cells are hot enough (from 1e8 K) that relativistic corrections and electron-electron
-    bremsstrahlung, which rtrace neglects, change the free-free emission by several percent."""
+    bremsstrahlung, which rtrace neglects, change the free-free emission by several percent.
+    """
 
 
 _PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))

@@ -71,7 +71,8 @@ def _compiling(say, step, total):
 
 def _cube_bytes(output, shape, n_frequencies):
     """Bytes a FITS cube output will at least add: float32 planes and one header block per file, in 2880-byte
-    FITS blocks (FITS standard 4.0, sect. 3.1), less the files it replaces. A lower bound."""
+    FITS blocks (FITS standard 4.0, sect. 3.1), less the files it replaces. A lower bound.
+    """
     files = output.files
     quantity = getattr(output.make, "keywords", {}).get("quantity")
     planes = 1 if len(files) > 1 or quantity == "emission_measure" else n_frequencies
@@ -82,7 +83,8 @@ def _cube_bytes(output, shape, n_frequencies):
 
 def _check_paths(job, units, directory, quantities, fmt, pictures, later):
     """Every file the run may write, checked before any work: inside the folder, nothing in its way, and
-    the free space at least the FITS cubes' size."""
+    the free space at least the FITS cubes' size.
+    """
     paths = [directory / MANIFEST_NAME]
     copy = job_copy_output(job, directory)
     paths += [] if copy is None else copy.files

@@ -28,9 +28,18 @@ from matplotlib import colors, patheffects, ticker
 from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
 
-from .analysis.spectra import (DEFAULT_SNR_THRESHOLD, THIN_SPECTRAL_INDEX, _is_result, _is_skymap,
-                               _spectrum_arrays, frequency_index, pixel_flux, spectral_index,
-                               spectral_index_map, tau_unity_frequency)
+from .analysis.spectra import (
+    DEFAULT_SNR_THRESHOLD,
+    THIN_SPECTRAL_INDEX,
+    _is_result,
+    _is_skymap,
+    _spectrum_arrays,
+    frequency_index,
+    pixel_flux,
+    spectral_index,
+    spectral_index_map,
+    tau_unity_frequency,
+)
 from .errors import InputError, PhysicsRangeWarning, warn_user
 from .quantities import finite_number
 
@@ -79,6 +88,7 @@ _SI_PREFIXES = ((1.0, ""), (1.0e-3, "m"), (1.0e-6, "\N{MICRO SIGN}"), (1.0e-9, "
 @dataclass
 class _Plane:
     """One 2-D image ready to draw, in its plotted unit."""
+
     values: np.ndarray              # (ny, nx)
     quantity: str
     label: str                      # colour-bar label with unit
@@ -594,7 +604,8 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True, 
 
 def _map_figsize(shape):
     """Figure size for one map: the height follows the image's aspect, never so short that the
-    vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches."""
+    vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches.
+    """
     ny, nx = shape
     aspect = min(max(ny / nx, 0.3), 2.0)
     return 5.6, max(2.6, 3.8 * aspect + 0.9)

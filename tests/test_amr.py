@@ -8,16 +8,15 @@ Phys. 82, 64) with sub-cell structure in its refined patches must give the
 same image as that uniform grid. The data are invented test patterns.
 """
 
+import astropy.units as u
 import numpy as np
 import pytest
 
-import astropy.units as u
-
 yt = pytest.importorskip("yt")
 
-import rtrace                                    # noqa: E402
-from rtrace import amr                           # noqa: E402
-from rtrace.errors import InputError             # noqa: E402
+import rtrace  # noqa: E402
+from rtrace import amr  # noqa: E402
+from rtrace.errors import InputError  # noqa: E402
 
 BOX_PC = 2.0
 FREQS = [0.3, 1.4, 8.0, 40.0] * u.GHz           # thick to thin through the dense knots

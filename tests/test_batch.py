@@ -19,12 +19,12 @@ from astropy.io import fits
 
 matplotlib.use("Agg")              # no display in tests
 
-import rtrace                                      # noqa: E402
-from rtrace import colour_scales, plot             # noqa: E402
+import rtrace  # noqa: E402
+from rtrace import colour_scales, plot  # noqa: E402
 from rtrace.errors import ConfigError, InputError  # noqa: E402
-from rtrace.io import atomic                       # noqa: E402
-from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key   # noqa: E402
-from rtrace.job import load_job, override_parallel, run_job   # noqa: E402
+from rtrace.io import atomic  # noqa: E402
+from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key  # noqa: E402
+from rtrace.job import load_job, override_parallel, run_job  # noqa: E402
 
 SERIES = """
 [snapshot]
@@ -587,6 +587,7 @@ class _Planted:
 def _tamper(path, how, tmp_path, units):
     import io
     import pickle
+
     from rtrace.batch import Cache
     data = path.read_bytes()
     if how == "flipped":              # one byte a third of the way in (array data)

@@ -101,7 +101,7 @@ def test_header_keywords_follow_the_standards(res_offset, tmp_path):
     assert header["BKGND"] == prov["background"]
     # DATE is 'YYYY-MM-DDThh:mm:ss' (Pence et al. 2010, sec. 4.4.2.1), UTC, just now.
     written = datetime.datetime.strptime(header["DATE"], "%Y-%m-%dT%H:%M:%S")
-    now = datetime.datetime.now(datetime.timezone.utc).replace(tzinfo=None)
+    now = datetime.datetime.now(datetime.UTC).replace(tzinfo=None)
     assert abs((now - written).total_seconds()) < 600
     assert "BMAJ" not in header      # not beam-convolved
 

@@ -23,8 +23,13 @@ from scipy.special import j0
 import rtrace
 from rtrace.errors import InputError
 from rtrace.interferometer import SynthesisWarning, read_antennas, synthesize
-from rtrace.interferometer.array import (enu_to_equatorial, equatorial_to_uvw, hour_angle_samples,
-                                         source_elevation, uvw_tracks)
+from rtrace.interferometer.array import (
+    enu_to_equatorial,
+    equatorial_to_uvw,
+    hour_angle_samples,
+    source_elevation,
+    uvw_tracks,
+)
 from rtrace.interferometer.clean import fit_clean_beam, hogbom
 from rtrace.interferometer.imaging import imaging_weights
 from rtrace.interferometer.sampling import primary_beam_pattern

@@ -15,7 +15,6 @@ import scipy.constants as sc
 from scipy.optimize import brentq
 
 from rtrace.errors import InputError, PhysicsRangeWarning
-
 from rtrace.physics import ionization
 from rtrace.physics.ionization import (
     Composition,

@@ -16,13 +16,13 @@ import astropy.units as u
 import h5py
 import numpy as np
 import pytest
+from scenes import M_H, warm_sphere_in_cool_gas
 
 import rtrace
 from rtrace.errors import InputError
 from rtrace.io import lazy, read_hdf5
 from rtrace.io.lazy import open_hdf5
 from rtrace.physics.ionization import CollisionalEquilibrium, Composition, IonizingSources, SuppliedFraction
-from scenes import M_H, warm_sphere_in_cool_gas
 
 SHAPE = (20, 19, 21)
 CELL_PC = 0.4

@@ -21,8 +21,7 @@ import pytest
 
 import rtrace
 from rtrace.errors import InputError, PhysicsRangeWarning
-from rtrace.io import read_hdf5
-from rtrace.io import lazy
+from rtrace.io import lazy, read_hdf5
 from rtrace.io.lazy import HDF5Source, open_hdf5
 
 SHAPE = (17, 14, 19)

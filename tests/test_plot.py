@@ -13,10 +13,10 @@ from radio_beam import Beam
 
 matplotlib.use("Agg")              # no display in tests
 
-import rtrace                      # noqa: E402
-from rtrace import demo, plot      # noqa: E402
-from rtrace.analysis import sed, spectral_index   # noqa: E402
-from rtrace.errors import InputError   # noqa: E402
+import rtrace  # noqa: E402
+from rtrace import demo, plot  # noqa: E402
+from rtrace.analysis import sed, spectral_index  # noqa: E402
+from rtrace.errors import InputError  # noqa: E402
 
 NX = NY = 48
 DISTANCE = 2 * u.kpc
@@ -351,6 +351,7 @@ def test_drawing_into_given_axes(tiny):
 def test_shared_scale_uses_one_unit_across_panels():
     # A shared colour scale must express every panel in the same unit (regression: per-panel SI prefixes).
     import astropy.units as u
+
     import rtrace
     from rtrace import demo
     from rtrace.plot import _common_prefix, _plane

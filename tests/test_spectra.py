@@ -6,17 +6,23 @@ import types
 import astropy.units as u
 import numpy as np
 import pytest
+from conftest import uniform_snapshot
 from radio_beam import Beam
 from scipy.optimize import brentq
 
 import rtrace
 from rtrace import demo
-from rtrace.analysis import (aperture_mask, sed, sed_metadata, spectral_index, spectral_index_map,
-                             tau_unity_frequency, write_sed_csv)
+from rtrace.analysis import (
+    aperture_mask,
+    sed,
+    sed_metadata,
+    spectral_index,
+    spectral_index_map,
+    tau_unity_frequency,
+    write_sed_csv,
+)
 from rtrace.errors import InputError, PhysicsRangeWarning
 from rtrace.physics import absorption_coefficient, planck
-
-from conftest import uniform_snapshot
 
 T_SLAB = 8000.0          # K
 NE_SLAB = 2000.0         # cm-3

@@ -14,8 +14,7 @@ from scipy import constants as sc
 
 import rtrace
 from rtrace.errors import InputError
-from rtrace.physics.ionization import (CollisionalEquilibrium, Composition, SuppliedFraction,
-                                       TemperatureThreshold)
+from rtrace.physics.ionization import CollisionalEquilibrium, Composition, SuppliedFraction, TemperatureThreshold
 from rtrace.physics.ionization.cells import temperature_from_pressure
 
 K_B = sc.k * 1e7                                   # erg/K

@@ -208,7 +208,7 @@ def plan(step, h, sample=16):
 
 
 def elwert_coefficient(u_):
-    """d gbar / d gamma at gamma = 0: the thermal average of g_Born pi (eta_f - eta_i) / gamma.
+    """D gbar / d gamma at gamma = 0: the thermal average of g_Born pi (eta_f - eta_i) / gamma.
 
     To first order in eta the Sommerfeld factor is the Born one times the Elwert factor
     ``(eta_f / eta_i)(1 - e^{-2 pi eta_i}) / (1 - e^{-2 pi eta_f}) = 1 + pi (eta_f - eta_i) + O(eta^2)``

@@ -21,13 +21,13 @@ import matplotlib
 import numpy as np
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt      # noqa: E402
+import matplotlib.pyplot as plt  # noqa: E402
 
-import rtrace                         # noqa: E402
-from rtrace.analysis.spectra import sed, spectral_index      # noqa: E402
-from rtrace.physics import emission_coefficient             # noqa: E402
-from rtrace.physics.ionization import Composition, IonizingSources     # noqa: E402
-from rtrace.physics.ionization.tables import case_b_coefficient        # noqa: E402
+import rtrace  # noqa: E402
+from rtrace.analysis.spectra import sed, spectral_index  # noqa: E402
+from rtrace.physics import emission_coefficient  # noqa: E402
+from rtrace.physics.ionization import Composition, IonizingSources  # noqa: E402
+from rtrace.physics.ionization.tables import case_b_coefficient  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 OUT = Path("out")

@@ -26,22 +26,35 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
-from ..memory import check_memory, format_bytes, synthesis_bytes
-from ..quantities import finite_number, positive_scalar
 from ..io.fits import pixel_error_cards, write_cube
+from ..memory import check_memory, format_bytes, synthesis_bytes
 from ..observe.beam import describe_beam
 from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
 from ..observe.skymap import SkyMap
 from ..physics.constants import C
+from ..quantities import finite_number, positive_scalar
 from ..transfer.background import header_cards, resolve_convention
 from ..transfer.result import Result
-from .array import (_hour_angle_rad, antenna_positions, baseline_pairs, enu_to_equatorial, hour_angle_samples,
-                    source_elevation, uvw_tracks)
+from .array import (
+    _hour_angle_rad,
+    antenna_positions,
+    baseline_pairs,
+    enu_to_equatorial,
+    hour_angle_samples,
+    source_elevation,
+    uvw_tracks,
+)
 from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
 from .grid import AIRY_FWHM_FACTOR, default_hour_angle_step, image_grid
 from .imaging import WEIGHTINGS, dirty_beam, dirty_image, imaging_weights, uniform_cell
-from .sampling import (GAUSSIAN_FWHM_FACTOR, PRIMARY_BEAMS, direction_cosines, predict_visibilities,
-                       primary_beam_pattern, w_term_phase)
+from .sampling import (
+    GAUSSIAN_FWHM_FACTOR,
+    PRIMARY_BEAMS,
+    direction_cosines,
+    predict_visibilities,
+    primary_beam_pattern,
+    w_term_phase,
+)
 
 __all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_RELATIVE_THRESHOLD",
            "DEFAULT_NITER"]

@@ -473,10 +473,10 @@ def _announce_long_strings(header):
 
 
 def _add_provenance(hdr, provenance):
-    from .. import __version__
+    from .._version import __version__
 
     hdr["ORIGIN"] = ("rtrace", "software that wrote this file")
-    hdr["DATE"] = (datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S"),
+    hdr["DATE"] = (datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%S"),
                    "UTC date the file was written")
     hdr["RTVERS"] = (__version__, "rtrace version")
     for key, value in (provenance or {}).items():

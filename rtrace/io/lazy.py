@@ -37,8 +37,16 @@ from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
 from ..snapshot import Snapshot, _vector3, combined_checksum
-from .hdf5 import (_FIELD_UNITS, _FRACTION_UNIT, MODEL_FIELD, checked_names, file_geometry, open_fields,
-                   open_file, wanted_fields)
+from .hdf5 import (
+    _FIELD_UNITS,
+    _FRACTION_UNIT,
+    MODEL_FIELD,
+    checked_names,
+    file_geometry,
+    open_fields,
+    open_file,
+    wanted_fields,
+)
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
 

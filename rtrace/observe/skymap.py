@@ -8,8 +8,14 @@ from ..memory import check_memory, format_bytes, observe_bytes
 from ..quantities import finite_number, positive_scalar
 from ..transfer.background import brightness_temperature_cgs, check_convention, resolve_convention
 from ..transfer.result import Result
-from .beam import (BeamKernel, beams_for_frequencies, check_beam_fits_field, describe_beam, kernel_geometry,
-                   validate_beam)
+from .beam import (
+    BeamKernel,
+    beams_for_frequencies,
+    check_beam_fits_field,
+    describe_beam,
+    kernel_geometry,
+    validate_beam,
+)
 from .edges import warn_if_emission_at_edge
 from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_frequency
 

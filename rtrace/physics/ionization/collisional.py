@@ -61,7 +61,8 @@ class CollisionalEquilibrium(IonizationModel):
 
     def fractions(self, T):
         """``(x_H, y_HeI, y_HeII, y_HeIII)`` at temperatures ``T`` (K, finite, >= 0); see
-        :func:`~rtrace.physics.ionization.tables.collisional_fractions`."""
+        :func:`~rtrace.physics.ionization.tables.collisional_fractions`.
+        """
         T = as_float_array(T, u.K, "T", equivalencies=u.temperature())
         check_finite_nonnegative(T, "T", "K")
         return collisional_fractions(T, self.case)

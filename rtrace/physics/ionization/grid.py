@@ -22,7 +22,8 @@ PIECE_CELLS = 1 << 19
 
 def slabs(shape, max_cells=PIECE_CELLS):
     """Boxes ``(lo, hi)`` of whole ``[i0:i1, :, :]`` slabs covering the grid, each of at most ``max_cells`` cells
-    (one plane if a plane alone is larger)."""
+    (one plane if a plane alone is larger).
+    """
     plane = int(shape[1]) * int(shape[2])
     step = max(1, max_cells // max(plane, 1))
     for i in range(0, int(shape[0]), step):

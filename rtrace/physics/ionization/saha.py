@@ -135,7 +135,7 @@ class SahaEquilibrium(IonizationModel):
 
     @staticmethod
     def _log_charge_supply(uu, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2):
-        """ln g(u), d ln g / du and the pieces needed for species fractions.
+        """Ln g(u), d ln g / du and the pieces needed for species fractions.
 
         ``g(n_e) = n_H x_H(n_e) + n_He zbar(n_e)``: electrons released by the
         ions when the electron density is ``n_e = exp(u)``.
