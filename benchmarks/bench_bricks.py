@@ -101,8 +101,10 @@ def main():
     single = {}
     for name, v in views.items():
         t_whole, ref = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, supersample=1), repeat)
-        t_brick, res_b = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1), repeat)
-        t_budget, res_m = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1), repeat)
+        t_brick, res_b = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1),
+                                 repeat)
+        t_budget, res_m = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1),
+                                  repeat)
         t_file, res_f = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, supersample=1), repeat)
         single[name] = (t_file, res_f)
         diff = max(max_difference(r, ref) for r in (res_b, res_m, res_f))
@@ -135,7 +137,8 @@ def main():
               f"file-backed, brick {brick}")
         print(f"{'view':<16}{'single':>9}{'dask':>9}{'dask/single':>13}{'max diff':>10}")
         for name, v in views.items():
-            t_dask, res = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, client=client, supersample=1),
+            t_dask, res = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, client=client,
+                                                                  supersample=1),
                                   repeat)
             t_single, res_single = single[name]
             print(f"{name:<16}{t_single:8.3f}s{t_dask:8.3f}s{t_dask / t_single:12.2f}x"

@@ -88,7 +88,8 @@ def main():
     per_round = {"8/1": np.divide(times["axis8"], times["axis1"]),
                  "oblique/axis": np.divide(times["oblique"], times["axis1"])}
     snap.release()                                # measure the cached n_e x ion term too
-    mem_rt = max(traced_peak_mb(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, supersample=1))[0] for v, nu in cases.values())
+    mem_rt = max(traced_peak_mb(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, supersample=1))[0]
+                 for v, nu in cases.values())
     t_np, ref = best_of(lambda: numpy_reference(snap, one.to_value(u.Hz)), 1)
     mem_np, _ = traced_peak_mb(lambda: numpy_reference(snap, one.to_value(u.Hz)))
 

@@ -109,7 +109,8 @@ def main():
             expo = math.log(8.0) / math.log(cell_ratio)
             ra = (ta / results[prev]["axis"]) ** expo
             ro = (to / results[prev]["oblique"]) ** expo
-            raw = f"raw {ta / results[prev]['axis']:.2f}, {to / results[prev]['oblique']:.2f} for {cell_ratio:.3g}x cells"
+            raw = (f"raw {ta / results[prev]['axis']:.2f}, {to / results[prev]['oblique']:.2f} "
+                   f"for {cell_ratio:.3g}x cells")
             line += f"   {ra:6.2f}, {ro:6.2f}  ({raw})"
         print(line)
         prev = n

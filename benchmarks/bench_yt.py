@@ -217,12 +217,15 @@ def main():
         thin_rt, thin_yt = ours[thin].sum(), img_yt[thin].sum()
         bright = thin & (img_yt > 1e-2 * np.percentile(img_yt[img_yt > 0], 99))
         rel = ours[bright] / img_yt[bright]
-        print(f"  {name:8s} rtrace S = {s_rt:.5g} Jy (max tau {tau.max():.3g}, pixel {res.pixel_size.to_value(u.cm):.4g} cm);"
+        print(f"  {name:8s} rtrace S = {s_rt:.5g} Jy (max tau {tau.max():.3g}, "
+              f"pixel {res.pixel_size.to_value(u.cm):.4g} cm);"
               f" yt sum(image) * pixel area / D^2 = {s_yt:.5g} Jy (pixel {pix_cm:.4g} cm)")
         print(f"           ratio rtrace / yt = {s_rt / s_yt:.4f}; yt image / whole-box volume sum = {s_yt / s_vol:.4f}")
-        print(f"           pixels with rtrace tau < 0.1 ({thin.sum()} px, {thin_yt / img_yt.sum():.1%} of the yt flux): "
+        print(f"           pixels with rtrace tau < 0.1 ({thin.sum()} px, "
+              f"{thin_yt / img_yt.sum():.1%} of the yt flux): "
               f"rtrace / yt = {thin_rt / thin_yt:.4f}; per pixel among them (I_yt > 1% of its 99th percentile, "
-              f"{bright.sum()} px) median {np.median(rel):.4f}, 16-84% {np.percentile(rel, 16):.4f}-{np.percentile(rel, 84):.4f}")
+              f"{bright.sum()} px) median {np.median(rel):.4f}, "
+              f"16-84% {np.percentile(rel, 16):.4f}-{np.percentile(rel, 84):.4f}")
 
 if __name__ == "__main__":
     main()

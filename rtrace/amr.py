@@ -213,7 +213,7 @@ class AMRSnapshot(GridGeometry):
     def leaf_arrays(self, leaf):
         """``(n_e, ion term, T)`` of ``leaf`` at its level's resolution (contiguous copies)."""
         g, r = leaf.grid, self.scale(leaf.level)
-        sl = tuple(slice(int((a - b) // r), int((c - b) // r)) for a, c, b in zip(leaf.lo, leaf.hi, g.lo))
+        sl = tuple(slice(int((a - b) // r), int((c - b) // r)) for a, c, b in zip(leaf.lo, leaf.hi, g.lo, strict=True))
         if g.ni is g.ne:
             ne = np.ascontiguousarray(g.ne[sl])
             return ne, ne, np.ascontiguousarray(g.t[sl])

@@ -254,7 +254,7 @@ def cmd_spectrum(args):
         print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
     print(f"# model spectrum of view '{name}' ({res.provenance.get('source', '')}): no beam, no noise")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
-    for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy))):
+    for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy), strict=True)):
         a = f"{alpha[i]:+8.3f}" if i < len(alpha) else ""
         print(f"{f:12.5g} {s:12.5g} {a}")
     if args.plot:
@@ -309,7 +309,7 @@ def _write_cut_csv(path, c):
             fh.write("# rtrace cut; intensities in erg s-1 cm-2 Hz-1 sr-1, T_b Planck (K); "
                      f"background {c.describe_background()}\n")
             fh.write(",".join(names) + "\n")
-            for row in zip(*cols):
+            for row in zip(*cols, strict=True):
                 fh.write(",".join(f"{v:.8g}" for v in row) + "\n")
 
 

@@ -167,7 +167,8 @@ def main(argv=None):
         for f in range(len(nu)):
             a = f"{alpha[f]:+7.2f}" if f < len(alpha) else " " * 7
             print(f"  {nu[f]:9.3g} {flux[f]:10.4g} {a} {res.tau[f].max():9.3g} {np.nanmax(tb[f]):12.4g}")
-        print(f"  peak emission measure {res.emission_measure.max():.3g}  (alpha: spectral index to the next frequency)")
+        print(f"  peak emission measure {res.emission_measure.max():.3g}  "
+              "(alpha: spectral index to the next frequency)")
 
 
 if __name__ == "__main__":

@@ -143,7 +143,7 @@ def frequency_labels(frequencies):
     for digits in range(2, 7):
         labels = [_format_frequency(f, digits) for f in nu]
         close = all(abs(float(t.split()[0]) * (1e9 if t.endswith("GHz") else 1e6) - f) <= _LABEL_TOLERANCE * f
-                    for t, f in zip(labels, nu))
+                    for t, f in zip(labels, nu, strict=True))
         if close and len(set(labels)) == len(labels):
             return labels
     return [_format_frequency(f, 6) for f in nu]
@@ -802,7 +802,7 @@ def _panel_selection(obj, quantity, frequencies):
             return [tuple(c) for c in chosen]
         if len(chosen) < 2:
             raise InputError("frequencies: spectral-index panels need at least two frequencies")
-        return list(zip(chosen[:-1], chosen[1:]))
+        return list(zip(chosen[:-1], chosen[1:], strict=True))
     return chosen
 
 
@@ -873,7 +873,7 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
         cmap_obj = _resolve_cmap(cmap, quantity)
         shared = _make_norm(planes, stretch, *limits[0]) if shared_scale else None
         image = None
-        for k, (ax, plane) in enumerate(zip(axes, planes)):
+        for k, (ax, plane) in enumerate(zip(axes, planes, strict=True)):
             norm = shared if shared_scale else _make_norm([plane], stretch, *limits[k])
             image = _draw(ax, plane, norm, cmap_obj, contours=contours,
                           scale_bar=scale_bar if k == 0 else False, title=plane.tag or None, show_note=False)
@@ -931,10 +931,10 @@ def _common_prefix(planes):
     base = u.Jy / planes[0].per
     to_base = [u.Quantity(p.unit).to_value(base) for p in planes]   # unit holds e.g. 1e-3 Jy/beam
     peak = max(float(np.nanmax(np.abs(p.values))) * f if np.isfinite(p.values).any() else 0.0
-               for p, f in zip(planes, to_base))
+               for p, f in zip(planes, to_base, strict=True))
     factor, prefix = _prefix_for(peak if peak > 0 else 1.0)
     out = []
-    for p, f in zip(planes, to_base):
+    for p, f in zip(planes, to_base, strict=True):
         scale = f / factor
         out.append(dataclasses.replace(
             p, values=p.values * scale, unit=factor * base,

@@ -70,7 +70,7 @@ def test_leaves_tile_the_domain_with_the_finest_data(hierarchy):
     ds, snap, uniform = hierarchy
     owner = np.full(snap.shape, -1)
     for n, leaf in enumerate(snap.leaves):
-        sl = tuple(slice(a, b) for a, b in zip(leaf.lo, leaf.hi))
+        sl = tuple(slice(a, b) for a, b in zip(leaf.lo, leaf.hi, strict=True))
         assert np.all(owner[sl] == -1), "leaves overlap"
         owner[sl] = n
         # the leaf's data, spread to the finest level, is yt's covering grid there

@@ -496,7 +496,7 @@ def _trace_takes(keyword, module=None):
 
 
 def _same_images(serial, other):
-    for a, b in zip(sorted(serial), sorted(other)):
+    for a, b in zip(sorted(serial), sorted(other), strict=True):
         if a.endswith(("_tau.fits", "_emission_measure.fits", "_intensity.fits")):
             np.testing.assert_allclose(fits.getdata(b), fits.getdata(a), rtol=1e-5, atol=1e-30)
 
@@ -672,7 +672,9 @@ def test_a_tampered_cache_entry_is_retraced_and_draws_the_clean_runs_pictures(tm
     assert traces.calls == 3                   # seed2 traced again; seed1 drawn from its intact entry
     assert not (tmp_path / "ran").exists()
     pictures = sorted(p for p in clean if p.endswith(".png") and not p.endswith("_sed.png"))
-    assert len(pictures) == 16 and {p.replace("/clean/", "/out/") for p in pictures} == set(again) | {str(tmp_path / "out/seed1/a_intensity.png")}
+    assert len(pictures) == 16
+    assert ({p.replace("/clean/", "/out/") for p in pictures}
+            == set(again) | {str(tmp_path / "out/seed1/a_intensity.png")})
     for p in pictures:
         np.testing.assert_array_equal(_pixels(p), _pixels(p.replace("/clean/", "/out/")), err_msg=p)
     assert not hidden_leftovers(tmp_path / "out")

@@ -85,8 +85,8 @@ def test_dask_with_a_memory_budget(client, h5file):
 
 
 def test_a_failing_task_makes_trace_raise(client, tmp_path):
-    # Common practice: never return a partial image. The file passes validation at open, then one brick is spoiled: that brick's task raises,
-    # and trace must raise it rather than return an image without the brick.
+    # Common practice: never return a partial image. The file passes validation at open, then one brick is
+    # spoiled: that brick's task raises, and trace must raise it rather than return an image without the brick.
     path = _write(tmp_path / "spoiled.h5")
     snap = open_hdf5(path, temperature="T", electron_density="ne")
     with h5py.File(path, "r+") as h5:
@@ -160,8 +160,8 @@ def test_client_must_be_a_client(h5file):
 
 
 def test_worker_processes_read_their_own_bricks(h5file, monkeypatch):
-    # Reference: the single-process trace. With worker processes, a file-backed snapshot's tasks get the source (path, names, units:
-    # a few hundred bytes) and an index range. Reading is made impossible in this (client)
+    # Reference: the single-process trace. With worker processes, a file-backed snapshot's tasks get the source
+    # (path, names, units: a few hundred bytes) and an index range. Reading is made impossible in this (client)
     # process: the trace still succeeds, so every brick was read by a worker.
     snap = open_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=19, distance=1 * u.kpc)
@@ -183,8 +183,8 @@ def test_worker_processes_read_their_own_bricks(h5file, monkeypatch):
 
 
 def test_rtrace_imports_without_dask():
-    # Common practice for optional dependencies: rtrace (and its dask module) must import when dask is not installed: None in sys.modules
-    # makes any import of dask or distributed fail.
+    # Common practice for optional dependencies: rtrace (and its dask module) must import when dask is not
+    # installed: None in sys.modules makes any import of dask or distributed fail.
     code = ("import sys; sys.modules['dask'] = sys.modules['distributed'] = None\n"
             "import rtrace, rtrace.parallel, rtrace.io.lazy\n"
             "assert not [m for m in sys.modules if m.split('.')[0] in ('dask', 'distributed') and sys.modules[m]]\n")

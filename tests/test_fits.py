@@ -376,7 +376,7 @@ def test_skymap_beams_per_channel(tmp_path):
     assert np.allclose(table.data["BMAJ"], [4, 3, 2], rtol=1e-14)       # arcsec
     read_beams = radio_beam.Beams.from_fits_bintable(table)
     assert len(read_beams) == 3
-    for got, want in zip(read_beams, beams):
+    for got, want in zip(read_beams, beams, strict=True):
         assert got == want
 
 

@@ -127,7 +127,7 @@ def test_pieces_tile_a_box_in_c_order():
     lo, hi = np.array([2, 3, 1]), np.array([9, 8, 12])
     for max_cells in (1, 7, 11, 55, 56, 10_000):
         index = np.arange(1000).reshape(10, 10, 10)
-        order = [index[tuple(slice(a, b) for a, b in zip(plo, phi))].ravel()
+        order = [index[tuple(slice(a, b) for a, b in zip(plo, phi, strict=True))].ravel()
                  for plo, phi in lazy.pieces(lo, hi, max_cells)]
         assert all(p.size <= max_cells for p in order)
         assert np.array_equal(np.concatenate(order), index[2:9, 3:8, 1:12].ravel())

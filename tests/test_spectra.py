@@ -168,7 +168,7 @@ def test_uniform_slab_thick_and_thin_indices():
     assert -0.2 < alpha[2] < -0.05
     # and exactly the index of B_nu(T)(1 - e^-tau) with tau from the absorption coefficient
     exact = [math.log(slab_intensity(b) / slab_intensity(a)) / math.log(b / a)
-             for a, b in zip(freqs[:-1], freqs[1:])]
+             for a, b in zip(freqs[:-1], freqs[1:], strict=True)]
     assert np.allclose(alpha, exact, rtol=1e-6, atol=1e-8)
 
 

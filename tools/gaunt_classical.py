@@ -503,18 +503,18 @@ def main(argv=None):
     # (i) mpmath precision: recompute a subset of g_cl at higher precision
     sub = gint.xs[::25]
     e_prec = max(abs(g_cl_exact(x, 50) / g - 1)
-                 for x, g in zip(sub, gint.gs[::25]))
+                 for x, g in zip(sub, gint.gs[::25], strict=True))
     # (ii) interpolation: rebuild from every other grid point, compare
     half = ClassicalGaunt(xs=gint.xs[::2], gs=gint.gs[::2])
     e_interp_g = np.max(np.abs(half(gint.xs[1::2]) / gint.gs[1::2] - 1))
-    e_interp = max(abs(gbar_cl(w, half) / t - 1) for w, t in zip(ws, table))
+    e_interp = max(abs(gbar_cl(w, half) / t - 1) for w, t in zip(ws, table, strict=True))
     # (iii) quadrature step in ln y
     e_quad = max(abs(gbar_cl(w, gint, h=0.01) / t - 1)
-                 for w, t in zip(ws, table))
+                 for w, t in zip(ws, table, strict=True))
     # (iv) large-x expansion order
     sel = gint.xs >= X_FIT_MIN
     alt = ClassicalGaunt(xs=gint.xs, gs=gint.gs, order=6)
-    e_asym = max(abs(gbar_cl(w, alt) / t - 1) for w, t in zip(ws, table))
+    e_asym = max(abs(gbar_cl(w, alt) / t - 1) for w, t in zip(ws, table, strict=True))
     fit_res = np.max(np.abs(eval_large_x(gint.coef, gint.xs[sel])
                             / gint.gs[sel] - 1))
     e_tot = e_prec + e_interp + e_quad + e_asym
@@ -556,7 +556,7 @@ def main(argv=None):
         for line in header:
             fh.write("# " + line + "\n")
         fh.write("w,gbar_cl\n")
-        for w, g in zip(ws, table):
+        for w, g in zip(ws, table, strict=True):
             fh.write(f"{w:.10g},{g:.10g}\n")
     print(f"wrote {args.out} ({nw} rows) in {time.time() - t0:.0f} s")
     return 0

@@ -219,7 +219,7 @@ def _panel(fun, a, b, n):
     xk, wk = _gl_nodes(n)
     half = 0.5 * (b - a)
     mid = 0.5 * (b + a)
-    return half * mp.fsum(w * fun(mid + half * t) for t, w in zip(xk, wk))
+    return half * mp.fsum(w * fun(mid + half * t) for t, w in zip(xk, wk, strict=True))
 
 
 def _adaptive(fun, a, b, tol, depth=0, maxdepth=8):
@@ -299,7 +299,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
             breaks.add(math.log(xs))
     breaks = sorted(breaks)
     edges = []
-    for lo, hi in zip(breaks[:-1], breaks[1:]):
+    for lo, hi in zip(breaks[:-1], breaks[1:], strict=True):
         npan = max(1, int(math.ceil((hi - lo) / 1.0)))
         edges += [lo + (hi - lo) * k / npan for k in range(npan)]
     edges.append(0.0)
@@ -309,7 +309,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
         return x * f.g(x) * mp.exp(-x)
 
     elog = mp.mpf(0)
-    for lo, hi in zip(edges[:-1], edges[1:]):
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
         v, e = _adaptive(flog, lo, hi, tol / 80)
         total += v
         elog += e
@@ -319,7 +319,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
     # -- linear panels from 1 to X_MAX -------------------------------------
     elin = mp.mpf(0)
     lin_edges = [1.0, 2.0, 4.0, 8.0, 16.0, 32.0, X_MAX]
-    for lo, hi in zip(lin_edges[:-1], lin_edges[1:]):
+    for lo, hi in zip(lin_edges[:-1], lin_edges[1:], strict=True):
         v, e = _adaptive(lambda x: f.g(x) * mp.exp(-x), lo, hi, tol / 20)
         total += v
         elin += e

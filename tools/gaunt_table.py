@@ -117,7 +117,7 @@ def average(g_values, nodes, h, gamma2):
     c = (g_values[1] - g_values[0]) / (e1 - e0)
     g_inf = g_values[0] - c * e0
     total = mp.mpf(0)
-    for s, g in zip(nodes, g_values):
+    for s, g in zip(nodes, g_values, strict=True):
         x = gamma2 * mp.exp(s)
         total += g * x * mp.exp(-x)
     s = nodes[0]

@@ -380,10 +380,10 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
         + ",".join(f"{t:.4g}" for t in thresholds) + " Jy/beam, iterations "
         + ",".join(str(k) for k in n_iter) + f", w-term phase at corners <= {w_phase.max():.3g} rad")
     las_txt = ("0.6 lambda / B_min (common practice): "
-               + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu))
+               + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu, strict=True))
                + f" (B_min = {b_min:.6g} m projected)")
     beam_txt = ("clean beam fitted to the dirty beam: "
-                + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu)))
+                + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu, strict=True)))
     provenance = dict(result.provenance, beam=beam_txt, noise="none", interferometer=interferometer_txt,
                       largest_angular_scale=las_txt, synthesized_grid=grid.how)
 

@@ -88,7 +88,8 @@ from ..transfer.background import header_cards, resolve_convention
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
-           "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
+           "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES",
+           "AXIS_RTOL"]
 
 RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
@@ -226,7 +227,7 @@ def _frequency_text(nu_hz):
 
     def render():
         return [np.format_float_positional(v, precision=int(d), unique=False, fractional=False, trim="-")
-                for v, d in zip(ghz, digits)]
+                for v, d in zip(ghz, digits, strict=True)]
 
     text = render()
     while True:

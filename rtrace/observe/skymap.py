@@ -400,7 +400,7 @@ class SkyMap:
             # Kelvin per Jy/beam at each frequency, straight from astropy's equivalency
             k_per_jyb = np.array([(1.0 * JY_PER_BEAM).to_value(
                 u.K, equivalencies=u.brightness_temperature(f * u.Hz, beam_area=sr * u.sr))
-                for f, sr in zip(nu, self._beam_sr)])
+                for f, sr in zip(nu, self._beam_sr, strict=True)])
             return u.Quantity(img * k_per_jyb[:, None, None], u.K)
         if kind == "planck":
             delta = self._image(noiseless) * (_JY_CGS / self._beam_sr[:, None, None])

@@ -32,7 +32,7 @@ def slabs(shape, max_cells=PIECE_CELLS):
 
 def box_slices(lo, hi):
     """The slices of the box ``lo <= (i, j, k) < hi``."""
-    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
+    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi, strict=True))
 
 
 class ArrayInputs:
@@ -107,7 +107,7 @@ def evaluate_grid(model, grid, dtype, max_cells=PIECE_CELLS):
         box = box_slices(lo, hi)
         if photo is not None:
             fields["<photo>"] = photo[box]
-        for arr, value in zip(out, evaluate_piece(model, inputs, fields, summary)):
+        for arr, value in zip(out, evaluate_piece(model, inputs, fields, summary), strict=True):
             arr[box] = value
     model.warn_range()
     provenance = {"ionization": model.describe(), "ionization_state": summary.describe(), **extra}

@@ -204,7 +204,7 @@ class IonizingSources(IonizationModel):
         """``"(x, y, z) pc Q=... s-1; ..."`` for every source."""
         pc = u.pc.to(u.cm)
         return "; ".join(f"({x / pc:.4g}, {y / pc:.4g}, {z / pc:.4g}) pc Q={q:.4g} s-1"
-                         for (x, y, z), q in zip(self.positions, self.rates))
+                         for (x, y, z), q in zip(self.positions, self.rates, strict=True))
 
     def describe(self) -> str:
         t_ion = "snapshot T" if self.ionized_temperature is None else f"{self.ionized_temperature:g} K"
