@@ -55,6 +55,7 @@ class Leaf:
 
     @property
     def level(self):
+        """Refinement level of the grid this leaf belongs to (0 the coarsest)."""
         return self.grid.level
 
 
@@ -239,6 +240,7 @@ class AMRSnapshot(GridGeometry):
         return self._checksum
 
     def describe(self):
+        """A few lines for people: levels, grids, leaves, finest cell, cells per level and each field's range."""
         counts = self.cell_counts()
         lines = [f"AMR snapshot, {self.levels} level(s) refined by {self.refine_by}, {len(self.grids)} grids, "
                  f"{len(self.leaves)} leaves, from {self.provenance['source']}",

@@ -125,6 +125,7 @@ class Unit:
 
     @property
     def label(self):
+        """``"<snapshot label>/<view name>"``, for messages."""
         return f"{self.member['label']}/{self.name}"
 
 
@@ -182,6 +183,7 @@ class Snapshots:
         self.label, self.snap = None, None
 
     def get(self, member, step, total):
+        """The snapshot of series member ``member``, built (and announced as step ``step`` of ``total``) if new."""
         if self.label != member["label"]:
             self.snap = None                 # release the previous snapshot before reading the next
             where = f"snapshot '{member['label']}'" if self.job.series else "the snapshot"
@@ -191,4 +193,5 @@ class Snapshots:
         return self.snap
 
     def release(self):
+        """Forget the kept snapshot, so that its memory can be freed."""
         self.label, self.snap = None, None

@@ -1,4 +1,6 @@
-"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot a spectrum,
+"""The ``rtrace`` command and its sub-commands.
+
+Run a job file, run the demo, describe a snapshot, print or plot a spectrum,
 compare a model with an observed image, take a cut through a view.
 
 Exit codes (for scripts): 0 success; 1 unexpected internal error (a bug:
@@ -554,6 +556,18 @@ def build_parser():
 
 
 def main(argv=None):
+    """Run the ``rtrace`` command.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        The arguments after the command name (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        The exit code (see the module docstring); argparse itself exits with 2 on a bad command line.
+    """
     parser = build_parser()
     args = parser.parse_args(argv)
     try:

@@ -139,6 +139,13 @@ def scenario(n=96, seed=7, box=2.0 * u.pc):
 
 
 def main(argv=None):
+    """Build the demo scenario, trace it and print a summary (``python -m rtrace.demo``).
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Command-line arguments (``--cells``, ``--pixels``); default ``sys.argv[1:]``.
+    """
     from . import View, trace
 
     parser = argparse.ArgumentParser(description="Trace the built-in HII-bubble scenario and summarise it.")

@@ -603,7 +603,9 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True, 
 
 
 def _map_figsize(shape):
-    """Figure size for one map: the height follows the image's aspect, never so short that the
+    """Figure size for one map.
+
+    The height follows the image's aspect, never so short that the
     vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches.
     """
     ny, nx = shape

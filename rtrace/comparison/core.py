@@ -243,18 +243,22 @@ class Comparison:
     # -- images -----------------------------------------------------------------------------------
     @property
     def observation(self):
+        """Observed image, Jy/beam ``(ny, nx)``."""
         return u.Quantity(self._obs, JY_PER_BEAM, copy=False)
 
     @property
     def model(self):
+        """Model at the observed frequency and beam, Jy/beam ``(ny, nx)``; NaN where it does not reach."""
         return u.Quantity(self._model, JY_PER_BEAM, copy=False)
 
     @property
     def residual(self):
+        """``observation - model``, Jy/beam ``(ny, nx)``; NaN outside the common footprint."""
         return u.Quantity(self._residual, JY_PER_BEAM, copy=False)
 
     @property
     def shape(self):
+        """``(ny, nx)`` of the observed grid."""
         return self._obs.shape
 
     # -- measurements -----------------------------------------------------------------------------

@@ -90,6 +90,7 @@ class ModelCube:
 
     @property
     def shape(self):
+        """``(ny, nx)`` of one plane."""
         return self.data.shape[1:]
 
     @property

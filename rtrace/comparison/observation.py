@@ -82,6 +82,7 @@ class ObservedImage:
 
     @property
     def shape(self):
+        """``(ny, nx)`` of the image."""
         return self.data.shape
 
     @property

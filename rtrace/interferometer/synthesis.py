@@ -489,14 +489,17 @@ class SynthesizedMap(SkyMap):
 
     @property
     def dirty_image(self):
+        """Dirty image ``(nfreq, ny, nx)``, Jy per dirty beam."""
         return u.Quantity(self._dirty, JY_PER_BEAM, copy=False)
 
     @property
     def residual(self):
+        """What CLEAN left ``(nfreq, ny, nx)``, Jy per dirty beam."""
         return u.Quantity(self._residual, JY_PER_BEAM, copy=False)
 
     @property
     def clean_components(self):
+        """CLEAN components ``(nfreq, ny, nx)``, Jy/pixel."""
         return u.Quantity(self._components, u.Jy / u.pix, copy=False)
 
     def _wavelengths(self, k):
@@ -505,14 +508,17 @@ class SynthesizedMap(SkyMap):
 
     @property
     def u(self):
+        """``u`` of every sample in wavelengths at each frequency, ``(nfreq, nvis)``."""
         return self._wavelengths(0)
 
     @property
     def v(self):
+        """``v`` of every sample in wavelengths at each frequency, ``(nfreq, nvis)``."""
         return self._wavelengths(1)
 
     @property
     def w(self):
+        """``w`` of every sample in wavelengths at each frequency, ``(nfreq, nvis)``."""
         return self._wavelengths(2)
 
     def write_fits(self, path, image="restored", spectral_axis="auto"):

@@ -147,8 +147,9 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
 
 def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=False, max_memory=None,
                       beam_field="beam", image_field="result", image="image"):
-    """Refuse, before any kernel or image is made, a beam wider than the image or an observation that
-    does not fit in memory.
+    """Refuse a beam wider than the image or an observation that does not fit in memory.
+
+    Checked before any kernel or image is made.
 
     Parameters
     ----------
@@ -271,35 +272,43 @@ class SkyMap:
 
     @property
     def background_subtracted(self):
+        """True when ``data`` and ``model`` have the background subtracted."""
         return self.background == "subtracted"
 
     @property
     def background_per_beam(self):
+        """The Result's background intensity times each beam's solid angle, Jy/beam ``(nfreq,)``."""
         return u.Quantity(self._bg_jyb, JY_PER_BEAM)
 
     # -- geometry, taken from the Result ---------------------------------------------------------
     @property
     def frequencies(self):
+        """Frequencies of the planes (those of the Result)."""
         return self.result.frequencies
 
     @property
     def pixel_scale(self):
+        """Angular side of a square pixel (that of the Result)."""
         return self.result.pixel_scale
 
     @property
     def pixel_size(self):
+        """Physical side of a pixel at the source (that of the Result)."""
         return self.result.pixel_size
 
     @property
     def distance(self):
+        """Distance to the source (that of the Result's view)."""
         return self.result.view.distance
 
     @property
     def sky_position(self):
+        """Sky coordinates of the image centre (those of the Result)."""
         return self.result.sky_position
 
     @property
     def shape(self):
+        """``(nfreq, ny, nx)``."""
         return self._data.shape
 
     # -- images --------------------------------------------------------------------------------
@@ -315,10 +324,12 @@ class SkyMap:
 
     @property
     def noise_rms(self):
+        """Requested noise rms per frequency, Jy/beam; None without noise."""
         return None if self._rms is None else u.Quantity(self._rms, JY_PER_BEAM)
 
     @property
     def beam_solid_angle(self):
+        """Solid angle of each frequency's beam, ``pi bmaj bmin / (4 ln 2)`` (sr)."""
         return u.Quantity(self._beam_sr, u.sr)
 
     @property

@@ -21,8 +21,9 @@ PIECE_CELLS = 1 << 19
 
 
 def slabs(shape, max_cells=PIECE_CELLS):
-    """Boxes ``(lo, hi)`` of whole ``[i0:i1, :, :]`` slabs covering the grid, each of at most ``max_cells`` cells
-    (one plane if a plane alone is larger).
+    """Boxes ``(lo, hi)`` of whole ``[i0:i1, :, :]`` slabs covering the grid.
+
+    Each holds at most ``max_cells`` cells (one plane if a plane alone is larger).
     """
     plane = int(shape[1]) * int(shape[2])
     step = max(1, max_cells // max(plane, 1))
@@ -71,6 +72,7 @@ class ArrayInputs:
         self.thermal = next(k for k in THERMAL_INPUTS if k in inputs)
 
     def read(self, lo, hi):
+        """``(inputs, fields)`` over the box ``lo <= index < hi`` (per-cell arrays sliced, scalars kept)."""
         box = box_slices(lo, hi)
         inputs = {k: (v[box] if np.ndim(v) == 3 else v) for k, v in self.inputs.items()}
         return inputs, {k: v[box] for k, v in self.fields.items()}
