@@ -269,7 +269,8 @@ values = ["1 GHz"]
 
 [[view]]
 name = "z"
-npix = 8
+npix = 16
+width = "0.16 pc"          # twice the grid: no emission at the image edge (it would warn)
 distance = "1 kpc"
 
 [output]

@@ -236,7 +236,7 @@ def test_impossible_budget_says_the_minimum(snap, los):
     view = rtrace.View(los=los, npix=200, distance=1 * u.kpc)
     with pytest.raises(InputError, match=r"max_memory: 0\.1 MB is too small; this trace needs at least "
                                          r"([0-9.]+) MB") as info:
-        rtrace.trace(snap, view, NU, max_memory="0.1 MB")
+        rtrace.trace(snap, view, NU, supersample=1, max_memory="0.1 MB")
     minimum = float(info.value.args[0].split("at least ")[1].split(" MB")[0])
     # the minimum stated is enough (it is rounded to 3 digits: allow the rounding)
     res = rtrace.trace(snap, view, NU, supersample=1, max_memory=f"{minimum * 1.005} MB")

@@ -113,7 +113,7 @@ def test_each_brick_is_read_once_per_view(h5file, monkeypatch, los, width, every
 
     monkeypatch.setattr(HDF5Source, "read", counting)
     view = rtrace.View(los=los, npix=16, width=None if width is None else width * u.pc, distance=1 * u.kpc)
-    rtrace.trace(snap, view, NU, brick_size=5)
+    rtrace.trace(snap, view, NU, brick_size=5, supersample=1)
     assert len(reads) == len(set(reads))                          # no brick twice
     cells = sum(np.prod(np.subtract(hi, lo)) for lo, hi in reads)
     if everything:
