@@ -4,12 +4,12 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test bench warmup clean
+.PHONY: demo test docs bench warmup clean
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e ".[test,tools]"
+	$(BIN)/python -m pip install --quiet -e ".[test,tools,docs]"
 	$(BIN)/python -m rtrace.warmup
 	touch $(STAMP)
 
@@ -19,6 +19,11 @@ demo: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest -n 2 -q
 
+# the documentation (docs/_build/html): runs the examples for the gallery first; any warning fails it
+docs: $(STAMP)
+	$(BIN)/python docs/gallery.py
+	$(BIN)/python -m sphinx -W --keep-going -q -b html docs docs/_build/html
+
 # compile the numba kernels into their cache again (after editing a kernel module)
 warmup: $(STAMP)
 	$(BIN)/python -m rtrace.warmup
@@ -27,4 +32,4 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_engine.py
 
 clean:
-	rm -rf $(VENV) demo-output .pytest_cache
+	rm -rf $(VENV) demo-output .pytest_cache docs/_build docs/_gallery docs/generated

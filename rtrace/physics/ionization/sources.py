@@ -159,6 +159,7 @@ class IonizingSources(IonizationModel):
     float32 cubes, and per thread one float32 array over that ball.
     """
 
+    #: False: a cell's state depends on the whole grid (the photons reach it through other cells).
     local = False
 
     def __init__(self, positions, rates, composition: Composition | None = None, ionized_temperature=None,
@@ -201,7 +202,7 @@ class IonizingSources(IonizationModel):
 
     # -- description ----------------------------------------------------------------------------
     def describe_sources(self):
-        """``"(x, y, z) pc Q=... s-1; ..."`` for every source."""
+        """Every source as ``(x, y, z) pc Q=<rate> s-1``, separated by semicolons."""
         pc = u.pc.to(u.cm)
         return "; ".join(f"({x / pc:.4g}, {y / pc:.4g}, {z / pc:.4g}) pc Q={q:.4g} s-1"
                          for (x, y, z), q in zip(self.positions, self.rates, strict=True))
