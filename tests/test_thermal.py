@@ -170,6 +170,7 @@ def test_collisional_pressure_from_independent_fits():
     np.testing.assert_allclose(s.electron_density.to_value(u.cm**-3)[big], n_e[big], rtol=3e-4)
 
 
+@HOT
 @pytest.mark.parametrize("gamma", [5.0 / 3.0, 1.4])
 def test_collisional_internal_energy_inversion(gamma):
     model = CollisionalEquilibrium()
