@@ -4,20 +4,38 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test bench warmup clean
+.PHONY: demo test lint docs oldest bench warmup clean
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e ".[test,tools]"
+	$(BIN)/python -m pip install --quiet -e ".[test,tools,docs,lint]"
 	$(BIN)/python -m rtrace.warmup
 	touch $(STAMP)
 
 demo: $(STAMP)
 	$(BIN)/rtrace demo --output demo-output
 
+# the tests, with the coverage of rtrace/'s Python lines (below 90% fails; see [tool.coverage] in pyproject.toml)
 test: $(STAMP)
-	$(BIN)/python -m pytest -n 2 -q
+	$(BIN)/python -m pytest -n 2 -q --cov=rtrace --cov-report=term
+
+# ruff's checks (configured in pyproject.toml)
+lint: $(STAMP)
+	$(BIN)/ruff check rtrace tests benchmarks examples tools docs
+
+# the documentation (docs/_build/html): runs the examples for the gallery first; any warning fails it
+docs: $(STAMP)
+	$(BIN)/python docs/gallery.py
+	$(BIN)/python -m sphinx -W --keep-going -q -b html docs docs/_build/html
+
+# the tests with the oldest dependency versions pyproject.toml allows (in .venv-oldest)
+oldest:
+	test -x .venv-oldest/bin/python || $(PYTHON) -m venv .venv-oldest
+	.venv-oldest/bin/python -m pip install --quiet --upgrade pip
+	$(PYTHON) tools/oldest_requirements.py > .venv-oldest/constraints.txt
+	.venv-oldest/bin/python -m pip install --quiet -c .venv-oldest/constraints.txt -e ".[test,tools]"
+	.venv-oldest/bin/python -m pytest -n 2 -q -p no:cacheprovider
 
 # compile the numba kernels into their cache again (after editing a kernel module)
 warmup: $(STAMP)
@@ -27,4 +45,4 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_engine.py
 
 clean:
-	rm -rf $(VENV) demo-output .pytest_cache
+	rm -rf $(VENV) .venv-oldest demo-output .pytest_cache docs/_build docs/_gallery docs/generated

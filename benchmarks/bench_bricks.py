@@ -23,12 +23,10 @@ import time
 import astropy.units as u
 import h5py
 import numpy as np
+from timing import best_of, max_rss_mb
 
 import rtrace
-from timing import best_of, max_rss_mb
 from rtrace import demo
-
-
 
 
 def status_bytes(key):
@@ -102,10 +100,12 @@ def main():
           f"{'file/whole':>12}{'max diff':>10}")
     single = {}
     for name, v in views.items():
-        t_whole, ref = best_of(lambda: rtrace.trace(snap, v, nu, supersample=1), repeat)
-        t_brick, res_b = best_of(lambda: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1), repeat)
-        t_budget, res_m = best_of(lambda: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1), repeat)
-        t_file, res_f = best_of(lambda: rtrace.trace(lazy, v, nu, brick_size=brick, supersample=1), repeat)
+        t_whole, ref = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, supersample=1), repeat)
+        t_brick, res_b = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1),
+                                 repeat)
+        t_budget, res_m = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1),
+                                  repeat)
+        t_file, res_f = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, supersample=1), repeat)
         single[name] = (t_file, res_f)
         diff = max(max_difference(r, ref) for r in (res_b, res_m, res_f))
         print(f"{name:<16}{t_whole:8.3f}s{t_brick:10.3f}s{t_budget:11.3f}s{t_file:8.3f}s"
@@ -137,7 +137,8 @@ def main():
               f"file-backed, brick {brick}")
         print(f"{'view':<16}{'single':>9}{'dask':>9}{'dask/single':>13}{'max diff':>10}")
         for name, v in views.items():
-            t_dask, res = best_of(lambda: rtrace.trace(lazy, v, nu, brick_size=brick, client=client, supersample=1),
+            t_dask, res = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, client=client,
+                                                                  supersample=1),
                                   repeat)
             t_single, res_single = single[name]
             print(f"{name:<16}{t_single:8.3f}s{t_dask:8.3f}s{t_dask / t_single:12.2f}x"

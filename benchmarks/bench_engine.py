@@ -14,14 +14,14 @@ Usage: ``python benchmarks/bench_engine.py [--cells 256] [--repeat 5]``
 """
 
 import argparse
-import tracemalloc
 import time
+import tracemalloc
 
 import astropy.units as u
 import numpy as np
+from timing import best_of
 
 import rtrace
-from timing import best_of
 from rtrace.physics.freefree import absorption_cgs
 from rtrace.physics.planck import planck_cgs
 
@@ -88,7 +88,8 @@ def main():
     per_round = {"8/1": np.divide(times["axis8"], times["axis1"]),
                  "oblique/axis": np.divide(times["oblique"], times["axis1"])}
     snap.release()                                # measure the cached n_e x ion term too
-    mem_rt = max(traced_peak_mb(lambda: rtrace.trace(snap, v, nu, supersample=1))[0] for v, nu in cases.values())
+    mem_rt = max(traced_peak_mb(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, supersample=1))[0]
+                 for v, nu in cases.values())
     t_np, ref = best_of(lambda: numpy_reference(snap, one.to_value(u.Hz)), 1)
     mem_np, _ = traced_peak_mb(lambda: numpy_reference(snap, one.to_value(u.Hz)))
 
@@ -118,7 +119,7 @@ def main():
     full = rtrace.Snapshot.from_arrays(temperature=np.maximum(snap._t, np.float32(5e3)) * u.K,
                                        cell_size=snap.cell_size * u.cm,
                                        electron_density=np.maximum(snap._ne, np.float32(1.0)) * u.cm**-3)
-    del snap, results
+    snap = results = None                          # free the demo grid before the fully ionized one
     times, _ = interleaved_rounds(full, {"axis1": (axis_view, one), "oblique": (oblique_view, one)}, args.repeat)
     ratio = np.divide(times["oblique"], times["axis1"])
     print(f"every cell ionized: axis {min(times['axis1']):.3f} s, oblique {min(times['oblique']):.3f} s, "

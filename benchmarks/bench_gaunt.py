@@ -60,7 +60,7 @@ def main():
     times = {c[0]: [] for c in cases}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        for label, snap, view, nu, kw in cases:           # compile and warm up
+        for _label, snap, view, nu, kw in cases:          # compile and warm up
             rtrace.trace(snap, view, nu, supersample=1, **kw)
         for _ in range(args.rounds):
             for label, snap, view, nu, kw in cases:

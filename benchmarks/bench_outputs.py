@@ -99,7 +99,7 @@ def main():
             for name in first:
                 print(f"  {name:32s}{summary([r[name] for r in rounds])}   first use {first[name]:7.3f} s")
             for ref in ("trace", "trace+observe"):
-                def reference(r):
+                def reference(r, ref=ref):
                     return r["trace"] + (r["observe"] if ref == "trace+observe" else 0.0)
                 per_round = [r["writing"] / reference(r) for r in rounds]
                 of_medians = (statistics.median([r["writing"] for r in rounds])

@@ -24,9 +24,9 @@ import time
 
 import astropy.units as u
 import numba
+from timing import best_of, max_rss_mb
 
 import rtrace
-from timing import best_of, max_rss_mb
 from rtrace import demo
 
 TILT = math.radians(30.0)
@@ -54,7 +54,7 @@ def thread_scaling(snap, n, repeat):
     rows = []
     for k in range(1, top + 1):
         numba.set_num_threads(k)
-        rows.append((k, {name: best_of(lambda v=v: rtrace.trace(snap, v, NU, supersample=1), repeat)[0]
+        rows.append((k, {name: best_of(lambda v=v, snap=snap: rtrace.trace(snap, v, NU, supersample=1), repeat)[0]
                          for name, v in views.items()}))
     numba.set_num_threads(top)
     return rows
@@ -83,7 +83,7 @@ def main():
         snap = demo.scenario(n)
         t_build = time.perf_counter() - t0
         gc.collect()
-        row = {name: best_of(lambda v=v: rtrace.trace(snap, v, NU, supersample=1), args.repeat)[0]
+        row = {name: best_of(lambda v=v, snap=snap: rtrace.trace(snap, v, NU, supersample=1), args.repeat)[0]
                for name, v in views_for(snap, n).items()}
         results[n] = row
         print(f"  N={n:4d}: scenario built in {t_build:6.1f} s; axis {row['axis']:8.3f} s, "
@@ -109,7 +109,8 @@ def main():
             expo = math.log(8.0) / math.log(cell_ratio)
             ra = (ta / results[prev]["axis"]) ** expo
             ro = (to / results[prev]["oblique"]) ** expo
-            raw = f"raw {ta / results[prev]['axis']:.2f}, {to / results[prev]['oblique']:.2f} for {cell_ratio:.3g}x cells"
+            raw = (f"raw {ta / results[prev]['axis']:.2f}, {to / results[prev]['oblique']:.2f} "
+                   f"for {cell_ratio:.3g}x cells")
             line += f"   {ra:6.2f}, {ro:6.2f}  ({raw})"
         print(line)
         prev = n

@@ -33,9 +33,9 @@ import time
 import astropy.constants as const
 import astropy.units as u
 import numpy as np
+from timing import max_rss_mb
 
 import rtrace
-from timing import max_rss_mb
 from rtrace.physics.ionization import IonizingSources
 from rtrace.physics.ionization.grid import ArrayInputs
 
@@ -197,9 +197,9 @@ def main():
     # photoionize, then the snapshots to trace, built once outside the timed rounds
     first, snaps = {}, {}
     for case, model in models.items():
-        first[("photoionize", case)], _ = timed(lambda: model.photoionize(reader))
+        first[("photoionize", case)], _ = timed(lambda model=model: model.photoionize(reader))
     for case, model in models.items():
-        first[("from_arrays", case)], snaps[case] = timed(lambda: build(model))
+        first[("from_arrays", case)], snaps[case] = timed(lambda model=model: build(model))
 
     tasks = {}
     for case, model in models.items():

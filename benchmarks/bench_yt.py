@@ -25,9 +25,9 @@ import time
 import astropy.units as u
 import numba
 import numpy as np
+from timing import best_of, max_rss_mb
 
 import rtrace
-from timing import best_of, max_rss_mb
 from rtrace import demo
 from rtrace.physics.constants import EMISSIVITY_FF_PREFACTOR, H_OVER_K
 from rtrace.physics.gaunt import classical_radio_gaunt, gaunt_cgs
@@ -125,7 +125,7 @@ def yt_projection(ds, field, los, npix, threads):
 
 
 def as_rtrace_orientation(yt_img):
-    """yt [east, north] -> rtrace [row (north), column (west)]."""
+    """Yt [east, north] -> rtrace [row (north), column (west)]."""
     return yt_img[::-1, :].T
 
 
@@ -177,9 +177,9 @@ def main():
     timings = {}
     for name, los in VIEWS.items():
         v = view(los)
-        t_rt, _ = best_of(lambda: rtrace.trace(snap, v, [5] * u.GHz, supersample=1), args.repeat)
+        t_rt, _ = best_of(lambda v=v: rtrace.trace(snap, v, [5] * u.GHz, supersample=1), args.repeat)
         count5.cells = 0
-        t_yt, _ = best_of(lambda: yt_projection(ds, f5, los, n, args.threads), args.repeat)
+        t_yt, _ = best_of(lambda los=los: yt_projection(ds, f5, los, n, args.threads), args.repeat)
         per_run = count5.cells / args.repeat
         timings[name] = (t_rt, t_yt)
         print(f"\n{name} los=({', '.join(f'{x:.4f}' for x in los)}), 5 GHz, best of {args.repeat}:")
@@ -217,12 +217,15 @@ def main():
         thin_rt, thin_yt = ours[thin].sum(), img_yt[thin].sum()
         bright = thin & (img_yt > 1e-2 * np.percentile(img_yt[img_yt > 0], 99))
         rel = ours[bright] / img_yt[bright]
-        print(f"  {name:8s} rtrace S = {s_rt:.5g} Jy (max tau {tau.max():.3g}, pixel {res.pixel_size.to_value(u.cm):.4g} cm);"
+        print(f"  {name:8s} rtrace S = {s_rt:.5g} Jy (max tau {tau.max():.3g}, "
+              f"pixel {res.pixel_size.to_value(u.cm):.4g} cm);"
               f" yt sum(image) * pixel area / D^2 = {s_yt:.5g} Jy (pixel {pix_cm:.4g} cm)")
         print(f"           ratio rtrace / yt = {s_rt / s_yt:.4f}; yt image / whole-box volume sum = {s_yt / s_vol:.4f}")
-        print(f"           pixels with rtrace tau < 0.1 ({thin.sum()} px, {thin_yt / img_yt.sum():.1%} of the yt flux): "
+        print(f"           pixels with rtrace tau < 0.1 ({thin.sum()} px, "
+              f"{thin_yt / img_yt.sum():.1%} of the yt flux): "
               f"rtrace / yt = {thin_rt / thin_yt:.4f}; per pixel among them (I_yt > 1% of its 99th percentile, "
-              f"{bright.sum()} px) median {np.median(rel):.4f}, 16-84% {np.percentile(rel, 16):.4f}-{np.percentile(rel, 84):.4f}")
+              f"{bright.sum()} px) median {np.median(rel):.4f}, "
+              f"16-84% {np.percentile(rel, 16):.4f}-{np.percentile(rel, 84):.4f}")
 
 if __name__ == "__main__":
     main()

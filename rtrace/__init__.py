@@ -7,15 +7,13 @@ The public API::
     res = rtrace.trace(snap, view, frequencies=[1, 5, 20] * u.GHz)
 """
 
-from . import physics
+from . import interferometer, physics
+from ._version import __version__
+from .comparison import Comparison, compare
 from .errors import ConfigError, InputError, PhysicsRangeWarning, RtraceError
+from .io.lazy import open_hdf5
 from .snapshot import Snapshot
 from .transfer import Result, View, trace
-from .io.lazy import open_hdf5
-from . import interferometer
-from .comparison import Comparison, compare
-
-__version__ = "0.1.0"
 
 __all__ = ["Snapshot", "View", "Result", "trace", "open_hdf5", "physics", "RtraceError", "InputError",
            "ConfigError", "PhysicsRangeWarning", "compare", "Comparison", "interferometer", "__version__"]

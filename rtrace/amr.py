@@ -55,6 +55,7 @@ class Leaf:
 
     @property
     def level(self):
+        """Refinement level of the grid this leaf belongs to (0 the coarsest)."""
         return self.grid.level
 
 
@@ -213,7 +214,7 @@ class AMRSnapshot(GridGeometry):
     def leaf_arrays(self, leaf):
         """``(n_e, ion term, T)`` of ``leaf`` at its level's resolution (contiguous copies)."""
         g, r = leaf.grid, self.scale(leaf.level)
-        sl = tuple(slice(int((a - b) // r), int((c - b) // r)) for a, c, b in zip(leaf.lo, leaf.hi, g.lo))
+        sl = tuple(slice(int((a - b) // r), int((c - b) // r)) for a, c, b in zip(leaf.lo, leaf.hi, g.lo, strict=True))
         if g.ni is g.ne:
             ne = np.ascontiguousarray(g.ne[sl])
             return ne, ne, np.ascontiguousarray(g.t[sl])
@@ -239,6 +240,7 @@ class AMRSnapshot(GridGeometry):
         return self._checksum
 
     def describe(self):
+        """A few lines for people: levels, grids, leaves, finest cell, cells per level and each field's range."""
         counts = self.cell_counts()
         lines = [f"AMR snapshot, {self.levels} level(s) refined by {self.refine_by}, {len(self.grids)} grids, "
                  f"{len(self.leaves)} leaves, from {self.provenance['source']}",

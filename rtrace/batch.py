@@ -87,7 +87,7 @@ def unit_inputs(job, member, spec, source=None):
 
     ``source`` is the member's :func:`fingerprint`, computed here when not given.
     """
-    from . import __version__
+    from ._version import __version__
     shared = {k: v for k, v in job.snapshot.items() if k not in _MEMBER_KEYS}
     return {"rtrace": __version__, "snapshot": shared,
             "source": fingerprint(job, member) if source is None else source,
@@ -114,6 +114,7 @@ def output_key(base, product, observing=None, limits=None):
 @dataclass
 class Unit:
     """One snapshot seen through one view."""
+
     member: dict
     name: str
     view: object
@@ -124,6 +125,7 @@ class Unit:
 
     @property
     def label(self):
+        """``"<snapshot label>/<view name>"``, for messages."""
         return f"{self.member['label']}/{self.name}"
 
 
@@ -181,6 +183,7 @@ class Snapshots:
         self.label, self.snap = None, None
 
     def get(self, member, step, total):
+        """The snapshot of series member ``member``, built (and announced as step ``step`` of ``total``) if new."""
         if self.label != member["label"]:
             self.snap = None                 # release the previous snapshot before reading the next
             where = f"snapshot '{member['label']}'" if self.job.series else "the snapshot"
@@ -190,4 +193,5 @@ class Snapshots:
         return self.snap
 
     def release(self):
+        """Forget the kept snapshot, so that its memory can be freed."""
         self.label, self.snap = None, None

@@ -1,4 +1,6 @@
-"""The ``rtrace`` command: run a job file, run the demo, describe a snapshot, print or plot a spectrum,
+"""The ``rtrace`` command and its sub-commands.
+
+Run a job file, run the demo, describe a snapshot, print or plot a spectrum,
 compare a model with an observed image, take a cut through a view.
 
 Exit codes (for scripts): 0 success; 1 unexpected internal error (a bug:
@@ -254,7 +256,7 @@ def cmd_spectrum(args):
         print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
     print(f"# model spectrum of view '{name}' ({res.provenance.get('source', '')}): no beam, no noise")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
-    for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy))):
+    for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy), strict=True)):
         a = f"{alpha[i]:+8.3f}" if i < len(alpha) else ""
         print(f"{f:12.5g} {s:12.5g} {a}")
     if args.plot:
@@ -309,7 +311,7 @@ def _write_cut_csv(path, c):
             fh.write("# rtrace cut; intensities in erg s-1 cm-2 Hz-1 sr-1, T_b Planck (K); "
                      f"background {c.describe_background()}\n")
             fh.write(",".join(names) + "\n")
-            for row in zip(*cols):
+            for row in zip(*cols, strict=True):
                 fh.write(",".join(f"{v:.8g}" for v in row) + "\n")
 
 
@@ -480,7 +482,7 @@ def build_parser():
     parser = argparse.ArgumentParser(
         prog="rtrace", description="Synthetic thermal free-free radio images from hydrodynamics snapshots.",
         epilog=EXIT_CODES)
-    from . import __version__
+    from ._version import __version__
     parser.add_argument("--version", action="version", version=f"rtrace {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="command")
 
@@ -554,6 +556,18 @@ def build_parser():
 
 
 def main(argv=None):
+    """Run the ``rtrace`` command.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        The arguments after the command name (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        The exit code (see the module docstring); argparse itself exits with 2 on a bad command line.
+    """
     parser = build_parser()
     args = parser.parse_args(argv)
     try:

@@ -139,6 +139,13 @@ def scenario(n=96, seed=7, box=2.0 * u.pc):
 
 
 def main(argv=None):
+    """Build the demo scenario, trace it and print a summary (``python -m rtrace.demo``).
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Command-line arguments (``--cells``, ``--pixels``); default ``sys.argv[1:]``.
+    """
     from . import View, trace
 
     parser = argparse.ArgumentParser(description="Trace the built-in HII-bubble scenario and summarise it.")
@@ -167,7 +174,8 @@ def main(argv=None):
         for f in range(len(nu)):
             a = f"{alpha[f]:+7.2f}" if f < len(alpha) else " " * 7
             print(f"  {nu[f]:9.3g} {flux[f]:10.4g} {a} {res.tau[f].max():9.3g} {np.nanmax(tb[f]):12.4g}")
-        print(f"  peak emission measure {res.emission_measure.max():.3g}  (alpha: spectral index to the next frequency)")
+        print(f"  peak emission measure {res.emission_measure.max():.3g}  "
+              "(alpha: spectral index to the next frequency)")
 
 
 if __name__ == "__main__":

@@ -22,7 +22,9 @@ __all__ = ["Engine", "noise_seed", "trace_keywords", "check_sizes"]
 
 
 def noise_seed(job, label=None):
-    """The noise seed of one snapshot: the job's ``[noise].seed`` itself for a single snapshot; for a
+    """The noise seed of one snapshot.
+
+    The job's ``[noise].seed`` itself for a single snapshot; for a
     member of a series, a seed derived from it and the snapshot's label, so that each snapshot gets its
     own noise (differences between snapshots would otherwise show the noise as persistent structure)
     and a rerun gets the same noise again. None (a fresh draw) when the job gives no seed.
@@ -95,7 +97,9 @@ def _check_view(job, name, view, pixel_cm):
 
 
 def check_sizes(job, views):
-    """ConfigError, at validation, for a view whose images or beam kernel will not fit or whose beam is
+    """Check at validation that every view's images and beam kernel fit; ConfigError if not.
+
+    ConfigError for a view whose images or beam kernel will not fit or whose beam is
     wider than its image (views with a ``width``; the others are checked by :meth:`Engine.trace`
     once the snapshot's extent is known, still before tracing). See :mod:`rtrace.memory`.
     """
@@ -191,6 +195,7 @@ class Engine:
         return res, sky
 
     def close(self):
+        """Close the dask client and the local cluster this engine started, if any."""
         if self._client is not None:
             self._client.close()
         if self._cluster is not None:

@@ -49,8 +49,11 @@ class GauntRangeWarning(PhysicsRangeWarning):
 
 
 class RelativisticWarning(PhysicsRangeWarning):
-    """Cells are hot enough (from 1e8 K) that relativistic corrections and electron-electron
-    bremsstrahlung, which rtrace neglects, change the free-free emission by several percent."""
+    """Cells are hot enough (from 1e8 K) for neglected physics to matter.
+
+    Relativistic corrections and electron-electron bremsstrahlung, which
+    rtrace neglects, change the free-free emission by several percent there.
+    """
 
 
 _PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))

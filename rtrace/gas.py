@@ -134,7 +134,8 @@ def gamma_value(gamma):
 
 def thermal_input(temperature=None, pressure=None, internal_energy=None):
     """``(name, value)`` of the one thermal input given, or an InputError."""
-    given = [(k, v) for k, v in zip(THERMAL_INPUTS, (temperature, pressure, internal_energy)) if v is not None]
+    given = [(k, v) for k, v in zip(THERMAL_INPUTS, (temperature, pressure, internal_energy), strict=True)
+             if v is not None]
     if len(given) != 1:
         names = ", ".join(k for k, _ in given) if given else "none"
         raise InputError(f"temperature / pressure / internal_energy: give exactly one thermal input (got {names})")

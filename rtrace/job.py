@@ -21,8 +21,16 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from .errors import ConfigError
-from .job_checks import (check_beam, check_frequencies, check_noise, check_output, check_snapshot, check_trace,
-                         check_view, decode_job_text)
+from .job_checks import (
+    check_beam,
+    check_frequencies,
+    check_noise,
+    check_output,
+    check_snapshot,
+    check_trace,
+    check_view,
+    decode_job_text,
+)
 from .physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",

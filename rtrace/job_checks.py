@@ -48,7 +48,7 @@ def _why_not_a_name(value):
 
 
 def check_name(value, where):
-    """Return ``value`` if it can be used as a file name inside the output folder.
+    r"""Return ``value`` if it can be used as a file name inside the output folder.
 
     Parameters
     ----------
@@ -64,7 +64,7 @@ def check_name(value, where):
     Raises
     ------
     ConfigError
-        Not a str; empty; a path (``/``, ``\\``, ``..``, absolute); a leading
+        Not a str; empty; a path (``/``, ``\``, ``..``, absolute); a leading
         ``.``; characters other than ASCII letters, digits, ``_``, ``-`` and
         ``.``; longer than 100 characters.
     """
@@ -236,7 +236,9 @@ def _background(value):
 
 
 def check_trace(trace):
-    """Check ``[trace]`` in place: ``supersample`` >= 1; 0 < ``tolerance`` < 1, not with ``supersample``;
+    """Check ``[trace]`` in place.
+
+    ``supersample`` >= 1; 0 < ``tolerance`` < 1, not with ``supersample``;
     ``background`` read into what ``trace`` takes.
 
     ``background`` becomes ``"cmb"``, None (``"none"``) or a Quantity (K, or
@@ -283,7 +285,9 @@ def check_noise(noise, raw):
 
 
 def check_snapshot(snap, raw):
-    """Check ``[snapshot]`` values: demo ``cells`` >= 2, seeds and yt ``level`` >= 0, finite positive
+    """Check ``[snapshot]`` values.
+
+    Demo ``cells`` >= 2, seeds and yt ``level`` >= 0, finite positive
     ``cell_size``, finite ``origin``, ``subvolume`` three pairs of integers.
 
     Raises
@@ -324,7 +328,9 @@ def _picture_formats():
 
 
 def check_output(out):
-    """Check ``[output]``: ``prefix`` a safe file-name start, ``picture_format`` one matplotlib writes,
+    """Check ``[output]``.
+
+    ``prefix`` a safe file-name start, ``picture_format`` one matplotlib writes,
     ``directory`` not an existing file.
 
     Raises

@@ -29,8 +29,14 @@ def ionization_model(job):
     A supplied fraction names datasets (or yt fields, ``"gas/x_HII"``) the
     reader fetches, over the same sub-volume.
     """
-    from .physics.ionization import (CollisionalEquilibrium, FullyIonized, IonizingSources, SahaEquilibrium,
-                                     SuppliedFraction, TemperatureThreshold)
+    from .physics.ionization import (
+        CollisionalEquilibrium,
+        FullyIonized,
+        IonizingSources,
+        SahaEquilibrium,
+        SuppliedFraction,
+        TemperatureThreshold,
+    )
     ion = job.ionization
     comp = _composition(ion)
     model = ion.get("model", "full")

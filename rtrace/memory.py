@@ -153,20 +153,28 @@ def fits_in_memory(need):
 
 
 def split_cell_bytes(ncells, nfreq):
-    """Bytes of the per-cell state of an oblique split (``rtrace.transfer.oblique_split``): float64
-    ``alpha_nu``, mean sensitivity and source function per frequency, and the emission-measure weight."""
+    """Bytes of the per-cell state of an oblique split (``rtrace.transfer.oblique_split``).
+
+    Float64 ``alpha_nu``, mean sensitivity and source function per frequency, and the emission-measure weight.
+    """
     return (3 * int(nfreq) + 1) * _FLOAT * int(ncells)
 
 
 def trace_image_bytes(nfreq, npix):
-    """Bytes of a trace's float64 image planes: intensity, optical depth and a remap term per frequency,
-    and the emission measure (``rtrace.transfer.tracer``)."""
+    """Bytes of a trace's float64 image planes.
+
+    Intensity, optical depth and a remap term per frequency, and the emission
+    measure (``rtrace.transfer.tracer``).
+    """
     return (3 * int(nfreq) + 1) * _FLOAT * int(npix)
 
 
 def trace_ray_bytes(nfreq, nrays):
-    """Bytes a trace holds per ray: its float64 segment (I and tau per frequency, EM) and the remap's
-    temporaries (values, background terms, tube positions)."""
+    """Bytes a trace holds per ray.
+
+    Its float64 segment (I and tau per frequency, EM) and the remap's
+    temporaries (values, background terms, tube positions).
+    """
     return ((2 * int(nfreq) + 1) + (3 * int(nfreq) + 1 + 8)) * _FLOAT * int(nrays)
 
 

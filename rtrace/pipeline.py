@@ -70,8 +70,11 @@ def _compiling(say, step, total):
 
 
 def _cube_bytes(output, shape, n_frequencies):
-    """Bytes a FITS cube output will at least add: float32 planes and one header block per file, in 2880-byte
-    FITS blocks (FITS standard 4.0, sect. 3.1), less the files it replaces. A lower bound."""
+    """Bytes a FITS cube output will at least add (a lower bound).
+
+    Float32 planes and one header block per file, in 2880-byte FITS blocks
+    (FITS standard 4.0, sect. 3.1), less the files it replaces.
+    """
     files = output.files
     quantity = getattr(output.make, "keywords", {}).get("quantity")
     planes = 1 if len(files) > 1 or quantity == "emission_measure" else n_frequencies
@@ -81,8 +84,11 @@ def _cube_bytes(output, shape, n_frequencies):
 
 
 def _check_paths(job, units, directory, quantities, fmt, pictures, later):
-    """Every file the run may write, checked before any work: inside the folder, nothing in its way, and
-    the free space at least the FITS cubes' size."""
+    """Every file the run may write, checked before any work.
+
+    Each must lie inside the folder with nothing in its way, and the free
+    space must be at least the FITS cubes' size.
+    """
     paths = [directory / MANIFEST_NAME]
     copy = job_copy_output(job, directory)
     paths += [] if copy is None else copy.files

@@ -28,9 +28,18 @@ from matplotlib import colors, patheffects, ticker
 from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
 
-from .analysis.spectra import (DEFAULT_SNR_THRESHOLD, THIN_SPECTRAL_INDEX, _is_result, _is_skymap,
-                               _spectrum_arrays, frequency_index, pixel_flux, spectral_index,
-                               spectral_index_map, tau_unity_frequency)
+from .analysis.spectra import (
+    DEFAULT_SNR_THRESHOLD,
+    THIN_SPECTRAL_INDEX,
+    _is_result,
+    _is_skymap,
+    _spectrum_arrays,
+    frequency_index,
+    pixel_flux,
+    spectral_index,
+    spectral_index_map,
+    tau_unity_frequency,
+)
 from .errors import InputError, PhysicsRangeWarning, warn_user
 from .quantities import finite_number
 
@@ -79,6 +88,7 @@ _SI_PREFIXES = ((1.0, ""), (1.0e-3, "m"), (1.0e-6, "\N{MICRO SIGN}"), (1.0e-9, "
 @dataclass
 class _Plane:
     """One 2-D image ready to draw, in its plotted unit."""
+
     values: np.ndarray              # (ny, nx)
     quantity: str
     label: str                      # colour-bar label with unit
@@ -133,7 +143,7 @@ def frequency_labels(frequencies):
     for digits in range(2, 7):
         labels = [_format_frequency(f, digits) for f in nu]
         close = all(abs(float(t.split()[0]) * (1e9 if t.endswith("GHz") else 1e6) - f) <= _LABEL_TOLERANCE * f
-                    for t, f in zip(labels, nu))
+                    for t, f in zip(labels, nu, strict=True))
         if close and len(set(labels)) == len(labels):
             return labels
     return [_format_frequency(f, 6) for f in nu]
@@ -593,8 +603,11 @@ def _draw(ax, plane, norm, cmap, *, contours, scale_bar, title, show_beam=True, 
 
 
 def _map_figsize(shape):
-    """Figure size for one map: the height follows the image's aspect, never so short that the
-    vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches."""
+    """Figure size for one map.
+
+    The height follows the image's aspect, never so short that the
+    vertical axis label (about 1.6 inches) would be cut off, nor taller than 9 inches.
+    """
     ny, nx = shape
     aspect = min(max(ny / nx, 0.3), 2.0)
     return 5.6, max(2.6, 3.8 * aspect + 0.9)
@@ -791,7 +804,7 @@ def _panel_selection(obj, quantity, frequencies):
             return [tuple(c) for c in chosen]
         if len(chosen) < 2:
             raise InputError("frequencies: spectral-index panels need at least two frequencies")
-        return list(zip(chosen[:-1], chosen[1:]))
+        return list(zip(chosen[:-1], chosen[1:], strict=True))
     return chosen
 
 
@@ -862,7 +875,7 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
         cmap_obj = _resolve_cmap(cmap, quantity)
         shared = _make_norm(planes, stretch, *limits[0]) if shared_scale else None
         image = None
-        for k, (ax, plane) in enumerate(zip(axes, planes)):
+        for k, (ax, plane) in enumerate(zip(axes, planes, strict=True)):
             norm = shared if shared_scale else _make_norm([plane], stretch, *limits[k])
             image = _draw(ax, plane, norm, cmap_obj, contours=contours,
                           scale_bar=scale_bar if k == 0 else False, title=plane.tag or None, show_note=False)
@@ -920,10 +933,10 @@ def _common_prefix(planes):
     base = u.Jy / planes[0].per
     to_base = [u.Quantity(p.unit).to_value(base) for p in planes]   # unit holds e.g. 1e-3 Jy/beam
     peak = max(float(np.nanmax(np.abs(p.values))) * f if np.isfinite(p.values).any() else 0.0
-               for p, f in zip(planes, to_base))
+               for p, f in zip(planes, to_base, strict=True))
     factor, prefix = _prefix_for(peak if peak > 0 else 1.0)
     out = []
-    for p, f in zip(planes, to_base):
+    for p, f in zip(planes, to_base, strict=True):
         scale = f / factor
         out.append(dataclasses.replace(
             p, values=p.values * scale, unit=factor * base,

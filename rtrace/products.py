@@ -44,6 +44,22 @@ SED_SOURCES = {False: "model: the traced image, unconvolved and noiseless (exact
 
 @dataclass
 class Output:
+    """One output of a view: where it goes, what it is made from and how it is written.
+
+    Attributes
+    ----------
+    path : Path
+        The output's file; for a cube written one file per plane, the path handed to the writer,
+        from which the planes' names are derived.
+    inputs : str
+        Key of the inputs the output is made from, recorded in the manifest with each file (resume
+        keeps a file only when it is unchanged and was written from the same inputs).
+    make : callable
+        ``make(path, res, sky)`` writes the file(s).
+    files : list of Path, optional
+        Every file ``make`` writes; default ``[path]``.
+    """
+
     path: Path
     inputs: str
     make: object                      # make(path, res, sky) writes the file(s)

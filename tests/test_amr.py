@@ -8,16 +8,15 @@ Phys. 82, 64) with sub-cell structure in its refined patches must give the
 same image as that uniform grid. The data are invented test patterns.
 """
 
+import astropy.units as u
 import numpy as np
 import pytest
 
-import astropy.units as u
-
 yt = pytest.importorskip("yt")
 
-import rtrace                                    # noqa: E402
-from rtrace import amr                           # noqa: E402
-from rtrace.errors import InputError             # noqa: E402
+import rtrace  # noqa: E402
+from rtrace import amr  # noqa: E402
+from rtrace.errors import InputError  # noqa: E402
 
 BOX_PC = 2.0
 FREQS = [0.3, 1.4, 8.0, 40.0] * u.GHz           # thick to thin through the dense knots
@@ -71,7 +70,7 @@ def test_leaves_tile_the_domain_with_the_finest_data(hierarchy):
     ds, snap, uniform = hierarchy
     owner = np.full(snap.shape, -1)
     for n, leaf in enumerate(snap.leaves):
-        sl = tuple(slice(a, b) for a, b in zip(leaf.lo, leaf.hi))
+        sl = tuple(slice(a, b) for a, b in zip(leaf.lo, leaf.hi, strict=True))
         assert np.all(owner[sl] == -1), "leaves overlap"
         owner[sl] = n
         # the leaf's data, spread to the finest level, is yt's covering grid there

@@ -24,8 +24,13 @@ from rtrace.errors import InputError
 from rtrace.interferometer import synthesize
 from rtrace.io.fits import write_result
 from rtrace.physics.planck import planck_cgs
-from rtrace.transfer.background import (Background, brightness_temperature_cgs, check_convention,
-                                        header_cards, resolve_convention)
+from rtrace.transfer.background import (
+    Background,
+    brightness_temperature_cgs,
+    check_convention,
+    header_cards,
+    resolve_convention,
+)
 from rtrace.transfer.result import Result
 
 T_CMB = 2.7255                         # K, Fixsen (2009)

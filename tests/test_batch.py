@@ -19,12 +19,12 @@ from astropy.io import fits
 
 matplotlib.use("Agg")              # no display in tests
 
-import rtrace                                      # noqa: E402
-from rtrace import colour_scales, plot             # noqa: E402
+import rtrace  # noqa: E402
+from rtrace import colour_scales, plot  # noqa: E402
 from rtrace.errors import ConfigError, InputError  # noqa: E402
-from rtrace.io import atomic                       # noqa: E402
-from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key   # noqa: E402
-from rtrace.job import load_job, override_parallel, run_job   # noqa: E402
+from rtrace.io import atomic  # noqa: E402
+from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key  # noqa: E402
+from rtrace.job import load_job, override_parallel, run_job  # noqa: E402
 
 SERIES = """
 [snapshot]
@@ -269,7 +269,8 @@ values = ["1 GHz"]
 
 [[view]]
 name = "z"
-npix = 8
+npix = 16
+width = "0.16 pc"          # twice the grid: no emission at the image edge (it would warn)
 distance = "1 kpc"
 
 [output]
@@ -496,7 +497,7 @@ def _trace_takes(keyword, module=None):
 
 
 def _same_images(serial, other):
-    for a, b in zip(sorted(serial), sorted(other)):
+    for a, b in zip(sorted(serial), sorted(other), strict=True):
         if a.endswith(("_tau.fits", "_emission_measure.fits", "_intensity.fits")):
             np.testing.assert_allclose(fits.getdata(b), fits.getdata(a), rtol=1e-5, atol=1e-30)
 
@@ -587,6 +588,7 @@ class _Planted:
 def _tamper(path, how, tmp_path, units):
     import io
     import pickle
+
     from rtrace.batch import Cache
     data = path.read_bytes()
     if how == "flipped":              # one byte a third of the way in (array data)
@@ -671,7 +673,9 @@ def test_a_tampered_cache_entry_is_retraced_and_draws_the_clean_runs_pictures(tm
     assert traces.calls == 3                   # seed2 traced again; seed1 drawn from its intact entry
     assert not (tmp_path / "ran").exists()
     pictures = sorted(p for p in clean if p.endswith(".png") and not p.endswith("_sed.png"))
-    assert len(pictures) == 16 and {p.replace("/clean/", "/out/") for p in pictures} == set(again) | {str(tmp_path / "out/seed1/a_intensity.png")}
+    assert len(pictures) == 16
+    assert ({p.replace("/clean/", "/out/") for p in pictures}
+            == set(again) | {str(tmp_path / "out/seed1/a_intensity.png")})
     for p in pictures:
         np.testing.assert_array_equal(_pixels(p), _pixels(p.replace("/clean/", "/out/")), err_msg=p)
     assert not hidden_leftovers(tmp_path / "out")

@@ -151,7 +151,7 @@ def test_fractions_match_independent_evaluation_of_published_fits(case):
     ref = fractions_from_ratios(*ln_r)
     got = CollisionalEquilibrium(case=case).fractions(T_GRID)
     rtol = interpolation_rtol(T_GRID)
-    for name, g, r in zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref):
+    for name, g, r in zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref, strict=True):
         assert g.shape == T_GRID.shape and g.dtype == np.float64
         ok = r > 1e-200
         assert ok.sum() > 1000, name       # the comparison covers most of the grid for every stage
@@ -238,7 +238,8 @@ def test_fractions_agree_with_cen_1992_in_transition_regions(threshold, factor):
     ref = fractions_from_ratios(*ln_ratios_cen(T))              # Cen 1992 (from memory)
     got = CollisionalEquilibrium(case="A").fractions(T)
     neutral_ref = neutral_h_fraction(ln_ratios_cen(T)[0])
-    pairs = list(zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref)) + [("1 - x_H", 1 - got[0], neutral_ref)]
+    pairs = (list(zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref, strict=True))
+             + [("1 - x_H", 1 - got[0], neutral_ref)])
     for name, g, r in pairs:
         both = (g > threshold) & (r > threshold)
         assert both.sum() > 20, name

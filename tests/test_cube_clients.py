@@ -100,7 +100,7 @@ def check_clients(path, frequencies, beams=None, ctype="FREQ"):
     if per_plane:
         assert isinstance(cube, VaryingResolutionSpectralCube) and "BEAMS" in extensions
         assert len(cube.beams) == len(beams)
-        for got, want in zip(cube.beams, beams):
+        for got, want in zip(cube.beams, beams, strict=True):
             assert got == want
     else:
         assert not isinstance(cube, VaryingResolutionSpectralCube) and "BEAMS" not in extensions
@@ -242,7 +242,7 @@ def test_observation_reader_reads_a_plane_file(results, tmp_path):
     assert obs.frequency.to_value(u.Hz) == pytest.approx(22e9, rel=RTOL)
     assert obs.beam == sky.beams[2]
     planes = model_cube(tmp_path / "obs.fits")
-    assert planes.beams is not None and all(a == b for a, b in zip(planes.beams, sky.beams))
+    assert planes.beams is not None and all(a == b for a, b in zip(planes.beams, sky.beams, strict=True))
 
 
 # --------------------------------------------------------------------------------------------

@@ -70,30 +70,31 @@ def test_dask_equals_single_process(client, h5file, view, kind):
     else:
         snap = open_hdf5(h5file, temperature="T", density="rho", ionization="full")
     v = rtrace.View(npix=19, distance=1 * u.kpc, **view)
-    single = rtrace.trace(snap, v, NU, brick_size=6)
+    single = rtrace.trace(snap, v, NU, supersample=1, brick_size=6)
     assert single.tau[0].max() > 1 and single.tau[-1].max() < 1e-2
-    assert_close(rtrace.trace(snap, v, NU, brick_size=6, client=client), single)
+    assert_close(rtrace.trace(snap, v, NU, supersample=1, brick_size=6, client=client), single)
 
 
 def test_dask_with_a_memory_budget(client, h5file):
     # Reference: the single-process trace under the same budget / default bricks.
     snap = open_hdf5(h5file, temperature="T", electron_density="ne")
     v = rtrace.View(los=(0.3, -0.5, 0.8), npix=19, distance=1 * u.kpc)
-    assert_close(rtrace.trace(snap, v, NU, client=client, max_memory="3 MB"),
-                 rtrace.trace(snap, v, NU, max_memory="3 MB"))
-    assert_close(rtrace.trace(snap, v, NU, client=client), rtrace.trace(snap, v, NU))   # default bricks
+    assert_close(rtrace.trace(snap, v, NU, supersample=1, client=client, max_memory="3 MB"),
+                 rtrace.trace(snap, v, NU, supersample=1, max_memory="3 MB"))
+    assert_close(rtrace.trace(snap, v, NU, supersample=1, client=client),          # default bricks
+                 rtrace.trace(snap, v, NU, supersample=1))
 
 
 def test_a_failing_task_makes_trace_raise(client, tmp_path):
-    # Common practice: never return a partial image. The file passes validation at open, then one brick is spoiled: that brick's task raises,
-    # and trace must raise it rather than return an image without the brick.
+    # Common practice: never return a partial image. The file passes validation at open, then one brick is
+    # spoiled: that brick's task raises, and trace must raise it rather than return an image without the brick.
     path = _write(tmp_path / "spoiled.h5")
     snap = open_hdf5(path, temperature="T", electron_density="ne")
     with h5py.File(path, "r+") as h5:
         h5["T"][9, 2, 14] = np.nan
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
     with pytest.raises(InputError, match=r"temperature: 1 of 64 cells of brick \[8:12, 0:4, 12:16\]"):
-        rtrace.trace(snap, view, NU, brick_size=4, client=client)
+        rtrace.trace(snap, view, NU, supersample=1, brick_size=4, client=client)
 
 
 def _kill_worker_on_first_brick(monkeypatch, kills):
@@ -128,12 +129,12 @@ def test_a_lost_worker_with_in_memory_bricks_is_traced_again(h5file, monkeypatch
     # (dask cannot recompute scattered data): the view is traced again from the client's copy.
     snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
-    single = rtrace.trace(snap, view, NU, brick_size=6)
+    single = rtrace.trace(snap, view, NU, supersample=1, brick_size=6)
     killed = _kill_worker_on_first_brick(monkeypatch, 1)
     with distributed.LocalCluster(n_workers=3, threads_per_worker=1, processes=False,
                                   dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
         with pytest.warns(UserWarning, match=r"client: the dask cluster lost data .* \(attempt 2 of 3\)"):
-            res = rtrace.trace(snap, view, NU, brick_size=6, client=c)
+            res = rtrace.trace(snap, view, NU, supersample=1, brick_size=6, client=c)
     assert len(killed) == 1
     assert_close(res, single)
 
@@ -149,7 +150,7 @@ def test_workers_lost_in_every_attempt_give_a_clear_error(h5file, monkeypatch):
                                   dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
         with pytest.raises(ConfigError, match=r"client: in each of 1 attempt the dask cluster lost a worker "
                                               r"holding bricks of this in-memory snapshot .*open_hdf5"):
-            rtrace.trace(snap, view, NU, brick_size=6, client=c)
+            rtrace.trace(snap, view, NU, supersample=1, brick_size=6, client=c)
 
 
 def test_client_must_be_a_client(h5file):
@@ -160,12 +161,12 @@ def test_client_must_be_a_client(h5file):
 
 
 def test_worker_processes_read_their_own_bricks(h5file, monkeypatch):
-    # Reference: the single-process trace. With worker processes, a file-backed snapshot's tasks get the source (path, names, units:
-    # a few hundred bytes) and an index range. Reading is made impossible in this (client)
+    # Reference: the single-process trace. With worker processes, a file-backed snapshot's tasks get the source
+    # (path, names, units: a few hundred bytes) and an index range. Reading is made impossible in this (client)
     # process: the trace still succeeds, so every brick was read by a worker.
     snap = open_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=19, distance=1 * u.kpc)
-    single = rtrace.trace(snap, view, NU, brick_size=5)
+    single = rtrace.trace(snap, view, NU, supersample=1, brick_size=5)
     assert len(pickle.dumps(snap.field_source())) < 2000
 
     def no_reading_here(self, lo, hi, **kwargs):
@@ -173,18 +174,18 @@ def test_worker_processes_read_their_own_bricks(h5file, monkeypatch):
 
     monkeypatch.setattr(HDF5Source, "read", no_reading_here)
     with pytest.raises(AssertionError):
-        rtrace.trace(snap, view, NU, brick_size=5)            # the guard works in this process
+        rtrace.trace(snap, view, NU, supersample=1, brick_size=5)            # the guard works in this process
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
-        res = rtrace.trace(snap, view, NU, brick_size=5, client=c)
+        res = rtrace.trace(snap, view, NU, supersample=1, brick_size=5, client=c)
         hosts = c.run(lambda: __import__("os").getpid())
     assert len(set(hosts.values())) == 2                      # two separate worker processes
     assert_close(res, single)
 
 
 def test_rtrace_imports_without_dask():
-    # Common practice for optional dependencies: rtrace (and its dask module) must import when dask is not installed: None in sys.modules
-    # makes any import of dask or distributed fail.
+    # Common practice for optional dependencies: rtrace (and its dask module) must import when dask is not
+    # installed: None in sys.modules makes any import of dask or distributed fail.
     code = ("import sys; sys.modules['dask'] = sys.modules['distributed'] = None\n"
             "import rtrace, rtrace.parallel, rtrace.io.lazy\n"
             "assert not [m for m in sys.modules if m.split('.')[0] in ('dask', 'distributed') and sys.modules[m]]\n")

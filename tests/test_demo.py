@@ -1,5 +1,7 @@
 """The built-in scenario: it exercises optically thick and thin emission."""
 
+import warnings
+
 import astropy.units as u
 import numpy as np
 import pytest
@@ -7,6 +9,7 @@ import pytest
 import rtrace
 from rtrace import demo
 from rtrace.errors import InputError
+from rtrace.transfer.result import PixelAccuracyWarning
 
 
 def test_scenario_has_thick_and_thin_regimes():
@@ -45,6 +48,10 @@ def test_scenario_is_reproducible():
 
 
 def test_demo_main_runs(capsys):
-    demo.main(["--cells", "24", "--pixels", "24"])
+    with warnings.catch_warnings():
+        # at 24 cells the small HII region's optically thick edge does not reach the default tolerance by the cap
+        # of rays per cell, and the tilted view says so (PixelAccuracyWarning): documented, not the subject here
+        warnings.simplefilter("ignore", PixelAccuracyWarning)
+        demo.main(["--cells", "24", "--pixels", "24"])
     out = capsys.readouterr().out
     assert "face-on" in out and "S (Jy)" in out

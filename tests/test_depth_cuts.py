@@ -7,10 +7,9 @@ coefficient, through rtrace.physics.absorption_coefficient) and eq. 5.14b
 (emission coefficient). Data are invented uniform test media.
 """
 
+import astropy.units as u
 import numpy as np
 import pytest
-
-import astropy.units as u
 from astropy.coordinates import SkyCoord
 
 import rtrace

@@ -101,7 +101,7 @@ def test_header_keywords_follow_the_standards(res_offset, tmp_path):
     assert header["BKGND"] == prov["background"]
     # DATE is 'YYYY-MM-DDThh:mm:ss' (Pence et al. 2010, sec. 4.4.2.1), UTC, just now.
     written = datetime.datetime.strptime(header["DATE"], "%Y-%m-%dT%H:%M:%S")
-    now = datetime.datetime.now(datetime.timezone.utc).replace(tzinfo=None)
+    now = datetime.datetime.now(datetime.UTC).replace(tzinfo=None)
     assert abs((now - written).total_seconds()) < 600
     assert "BMAJ" not in header      # not beam-convolved
 
@@ -376,7 +376,7 @@ def test_skymap_beams_per_channel(tmp_path):
     assert np.allclose(table.data["BMAJ"], [4, 3, 2], rtol=1e-14)       # arcsec
     read_beams = radio_beam.Beams.from_fits_bintable(table)
     assert len(read_beams) == 3
-    for got, want in zip(read_beams, beams):
+    for got, want in zip(read_beams, beams, strict=True):
         assert got == want
 
 

@@ -148,7 +148,8 @@ def _flip(data, at):
 
 
 def cut(keep):
-    return lambda c, p, o, m: p.write_bytes(p.read_bytes()[:keep if isinstance(keep, int) else int(keep * p.stat().st_size)])
+    return lambda c, p, o, m: p.write_bytes(
+        p.read_bytes()[:keep if isinstance(keep, int) else int(keep * p.stat().st_size)])
 
 
 def replace(make):

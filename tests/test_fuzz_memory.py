@@ -398,6 +398,7 @@ def test_trace_estimate_matches_tracemalloc(snap):
 
 def test_synthesis_estimate_matches_tracemalloc(result):
     import warnings
+
     from rtrace.interferometer import synthesis
     seen = {}
     real = synthesis._check_size

@@ -18,7 +18,9 @@ def test_classical_radio_value_at_1ghz_1e4k():
 
 
 def _soft_classical_points():
-    w = lambda nu, t: H_OVER_K * nu / t * math.sqrt(RY_OVER_K / t)
+    def w(nu, t):
+        return H_OVER_K * nu / t * math.sqrt(RY_OVER_K / t)
+
     return [(t, nu) for t in (300.0, 1e3, 3e3, 1e4, 2e4) for nu in (1e7, 1e8, 1e9, 1e10) if w(nu, t) <= 1e-4]
 
 

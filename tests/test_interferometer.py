@@ -17,14 +17,20 @@ import radio_beam
 from astropy.coordinates import AltAz, EarthLocation, HADec, SkyCoord
 from astropy.io import fits
 from astropy.time import Time
+from astropy.utils import iers
 from scipy import signal
 from scipy.special import j0
 
 import rtrace
 from rtrace.errors import InputError
 from rtrace.interferometer import SynthesisWarning, read_antennas, synthesize
-from rtrace.interferometer.array import (enu_to_equatorial, equatorial_to_uvw, hour_angle_samples,
-                                         source_elevation, uvw_tracks)
+from rtrace.interferometer.array import (
+    enu_to_equatorial,
+    equatorial_to_uvw,
+    hour_angle_samples,
+    source_elevation,
+    uvw_tracks,
+)
 from rtrace.interferometer.clean import fit_clean_beam, hogbom
 from rtrace.interferometer.imaging import imaging_weights
 from rtrace.interferometer.sampling import primary_beam_pattern
@@ -175,7 +181,9 @@ def test_uvw_against_astropy_horizon_frame():
     def enu(ha_h, dec_deg):
         c = SkyCoord(ha=ha_h * u.hourangle, dec=dec_deg * u.deg,
                      frame=HADec(location=loc, obstime=t, pressure=0 * u.hPa))
-        a = c.transform_to(AltAz(location=loc, obstime=t, pressure=0 * u.hPa))
+        # offline: astropy's bundled Earth-orientation table covers 2020 (no download of the newer one)
+        with iers.conf.set_temp("auto_download", False):
+            a = c.transform_to(AltAz(location=loc, obstime=t, pressure=0 * u.hPa))
         alt, az = a.alt.to_value(u.rad), a.az.to_value(u.rad)
         return np.stack([np.cos(alt) * np.sin(az), np.cos(alt) * np.cos(az), np.sin(alt)], axis=-1)
 

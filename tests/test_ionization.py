@@ -15,7 +15,6 @@ import scipy.constants as sc
 from scipy.optimize import brentq
 
 from rtrace.errors import InputError, PhysicsRangeWarning
-
 from rtrace.physics import ionization
 from rtrace.physics.ionization import (
     Composition,
@@ -307,7 +306,7 @@ def test_saha_charge_conservation_and_independent_root(comp):
     np.testing.assert_allclose(n_hii + n_heii + 2.0 * n_heiii, n_e, rtol=1e-8)
     np.testing.assert_allclose(ion, n_hii + n_heii + 4.0 * n_heiii, rtol=1e-8)
 
-    expected = np.array([_brentq_ne(a, b, t) for a, b, t in zip(n_h, n_he, T)])
+    expected = np.array([_brentq_ne(a, b, t) for a, b, t in zip(n_h, n_he, T, strict=True)])
     np.testing.assert_allclose(n_e, expected, rtol=1e-8)
 
     # The module's own species densities add up and conserve nuclei.

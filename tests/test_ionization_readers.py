@@ -16,13 +16,13 @@ import astropy.units as u
 import h5py
 import numpy as np
 import pytest
+from scenes import M_H, warm_sphere_in_cool_gas
 
 import rtrace
 from rtrace.errors import InputError
 from rtrace.io import lazy, read_hdf5
 from rtrace.io.lazy import open_hdf5
 from rtrace.physics.ionization import CollisionalEquilibrium, Composition, IonizingSources, SuppliedFraction
-from scenes import M_H, warm_sphere_in_cool_gas
 
 SHAPE = (20, 19, 21)
 CELL_PC = 0.4
@@ -349,7 +349,7 @@ def test_from_yt_equals_from_arrays(yt_uniform, gas, case):
     np.testing.assert_allclose(snap.origin, (ORIGIN_PC * u.pc).to_value(u.cm), rtol=1e-9)
     fields = None
     if names is not None:
-        fields = dict(zip(names, (gas["x"], gas["he2"], gas["he3"])))
+        fields = dict(zip(names, (gas["x"], gas["he2"], gas["he3"]), strict=True))
     ref = _yt_reference(snap, gas, thermal, make(), kwargs.get("gamma"), fields)
     _assert_same(snap, ref, same_source=False)
     assert snap.provenance["source"].startswith("yt: ")
@@ -378,7 +378,8 @@ def test_from_yt_sources_need_one_resolution():
         g["temperature"] = (rng.uniform(50, 200, g["dimensions"]), "K")
     ds = yt.load_amr_grids(grids, [8, 8, 8], length_unit=(4, "pc"))
     with pytest.raises(InputError, match=r"IonizingSources needs the whole grid at one resolution; .* "
-                                         r"2-level AMR hierarchy: give a level \(level= in Python, \[snapshot\]\.level in a job file\)"):
+                                         r"2-level AMR hierarchy: give a level \(level= in Python, "
+                                         r"\[snapshot\]\.level in a job file\)"):
         rtrace.Snapshot.from_yt(ds, temperature="temperature", density="density",
                                 ionization=IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc,
                                                            rates=[1e45] / u.s))

@@ -82,7 +82,7 @@ def test_small_beam_is_integrated_over_pixels():
         assert k.supersample > 1
         i = np.arange(-k.half, k.half + 1)
 
-        def cell(s):
+        def cell(s, i=i):
             return 0.5 * (erf((i + 0.5) / (np.sqrt(2) * s)) - erf((i - 0.5) / (np.sqrt(2) * s)))
 
         ref = np.outer(cell(major / FWHM_PER_SIGMA), cell(0.7 * major / FWHM_PER_SIGMA))

@@ -13,10 +13,10 @@ from radio_beam import Beam
 
 matplotlib.use("Agg")              # no display in tests
 
-import rtrace                      # noqa: E402
-from rtrace import demo, plot      # noqa: E402
-from rtrace.analysis import sed, spectral_index   # noqa: E402
-from rtrace.errors import InputError   # noqa: E402
+import rtrace  # noqa: E402
+from rtrace import demo, plot  # noqa: E402
+from rtrace.analysis import sed, spectral_index  # noqa: E402
+from rtrace.errors import InputError  # noqa: E402
 
 NX = NY = 48
 DISTANCE = 2 * u.kpc
@@ -36,7 +36,7 @@ def standin_skymap(res, pa=45 * u.deg, noise=None):
     def brightness_temperature(kind="rayleigh-jeans"):
         # Rayleigh-Jeans T = c^2 S / (2 k nu^2 Omega) via astropy's equivalency
         return u.Quantity([data[i].to(u.K, equivalencies=u.brightness_temperature(nu, beam_area=b.sr))
-                           for i, (nu, b) in enumerate(zip(res.frequencies, beams))])
+                           for i, (nu, b) in enumerate(zip(res.frequencies, beams, strict=True))])
 
     return types.SimpleNamespace(data=data, model=data, beam=beams[0], beams=beams, frequencies=res.frequencies,
                                  pixel_scale=res.pixel_scale, pixel_size=res.pixel_size, distance=res.view.distance,
@@ -309,7 +309,7 @@ def test_plot_sed_is_log_log_with_index_labels(tiny):
     assert np.allclose(line.get_xdata(), nu.to_value(u.GHz))
     labels = [t.get_text() for t in ax.texts if t.get_gid() == "spectral_index"]
     expected = [f"{a:+.2f}".replace("-", "\N{MINUS SIGN}") for a in spectral_index(nu, flux)]
-    assert len(labels) == 4 and all(e in lab for e, lab in zip(expected, labels))
+    assert len(labels) == 4 and all(e in lab for e, lab in zip(expected, labels, strict=True))
     assert ax.get_legend() is not None
     bare = plot.plot_sed(nu, flux, annotate_index=False).axes[0]
     assert [t for t in bare.texts if t.get_gid() == "spectral_index"] == []
@@ -351,6 +351,7 @@ def test_drawing_into_given_axes(tiny):
 def test_shared_scale_uses_one_unit_across_panels():
     # A shared colour scale must express every panel in the same unit (regression: per-panel SI prefixes).
     import astropy.units as u
+
     import rtrace
     from rtrace import demo
     from rtrace.plot import _common_prefix, _plane
@@ -416,7 +417,7 @@ def test_frequency_labels_use_as_few_figures_as_tell_them_apart():
     assert plot.frequency_labels([1.931] * u.GHz) == ["1.93 GHz"]
     assert plot.frequency_labels([1.0, 1.001] * u.GHz) == ["1 GHz", "1.001 GHz"]     # kept distinct
     # every label reads back within 0.25 % of its frequency
-    for f, text in zip(nu.to_value(u.GHz), plot.frequency_labels(nu)):
+    for f, text in zip(nu.to_value(u.GHz), plot.frequency_labels(nu), strict=True):
         value = float(text.split()[0]) * (1e-3 if text.endswith("MHz") else 1.0)
         assert abs(value / f - 1) <= 0.0025
 

@@ -6,17 +6,23 @@ import types
 import astropy.units as u
 import numpy as np
 import pytest
+from conftest import uniform_snapshot
 from radio_beam import Beam
 from scipy.optimize import brentq
 
 import rtrace
 from rtrace import demo
-from rtrace.analysis import (aperture_mask, sed, sed_metadata, spectral_index, spectral_index_map,
-                             tau_unity_frequency, write_sed_csv)
+from rtrace.analysis import (
+    aperture_mask,
+    sed,
+    sed_metadata,
+    spectral_index,
+    spectral_index_map,
+    tau_unity_frequency,
+    write_sed_csv,
+)
 from rtrace.errors import InputError, PhysicsRangeWarning
 from rtrace.physics import absorption_coefficient, planck
-
-from conftest import uniform_snapshot
 
 T_SLAB = 8000.0          # K
 NE_SLAB = 2000.0         # cm-3
@@ -162,7 +168,7 @@ def test_uniform_slab_thick_and_thin_indices():
     assert -0.2 < alpha[2] < -0.05
     # and exactly the index of B_nu(T)(1 - e^-tau) with tau from the absorption coefficient
     exact = [math.log(slab_intensity(b) / slab_intensity(a)) / math.log(b / a)
-             for a, b in zip(freqs[:-1], freqs[1:])]
+             for a, b in zip(freqs[:-1], freqs[1:], strict=True)]
     assert np.allclose(alpha, exact, rtol=1e-6, atol=1e-8)
 
 

@@ -14,8 +14,7 @@ from scipy import constants as sc
 
 import rtrace
 from rtrace.errors import InputError
-from rtrace.physics.ionization import (CollisionalEquilibrium, Composition, SuppliedFraction,
-                                       TemperatureThreshold)
+from rtrace.physics.ionization import CollisionalEquilibrium, Composition, SuppliedFraction, TemperatureThreshold
 from rtrace.physics.ionization.cells import temperature_from_pressure
 
 K_B = sc.k * 1e7                                   # erg/K
@@ -26,6 +25,8 @@ K_PER_EV = sc.e / sc.k
 G_CM3 = u.g / u.cm**3
 DYN_CM2 = u.dyn / u.cm**2
 ERG_G = u.erg / u.g
+# the inversions reach 1e8-5e8 K on purpose; the RelativisticWarning itself is tested in test_freefree.py
+HOT = pytest.mark.filterwarnings("ignore::rtrace.errors.RelativisticWarning")
 
 
 def number_densities(rho, X=0.70, Y=0.28):
@@ -47,6 +48,7 @@ def snapshot(**kw):
 # --------------------------------------------------------------------------------------------
 # Fully ionized gas: T = P / (k n) with the particle count written out
 # --------------------------------------------------------------------------------------------
+@HOT
 @pytest.mark.parametrize("helium, n_of, mu_hand", [
     # helium doubly ionized: every H gives 2 particles (p + e), every He 3 (nucleus + 2 e).
     # mu = rho / (m_H n) = 1 / (2 X + 3 Y m_H/m_He) = 1 / (1.4 + 0.84 x 0.2517925) = 0.620538
@@ -71,6 +73,7 @@ def test_fully_ionized_ideal_gas(helium, n_of, mu_hand):
     np.testing.assert_allclose(s.ion_density.to_value(u.cm**-3), nh + z * z * nhe, rtol=1e-8)
 
 
+@HOT
 @pytest.mark.parametrize("gamma", [5.0 / 3.0, 1.4, None])
 def test_fully_ionized_internal_energy(gamma):
     # P = (gamma - 1) rho e (ideal gas, common practice); gamma defaults to 5/3 (monatomic)
@@ -136,6 +139,7 @@ def independent_electrons_per_nucleus(T):
     return x, y[1] + 2 * y[2]
 
 
+@HOT
 @pytest.mark.parametrize("rho", RHOS)
 def test_collisional_pressure_inversion(rho):
     model = CollisionalEquilibrium()
@@ -149,8 +153,7 @@ def test_collisional_pressure_inversion(rho):
     np.testing.assert_allclose(s.electron_density.to_value(u.cm**-3), sp["n_e"], rtol=1e-6)
     ion = sp["n_HII"] + sp["n_HeII"] + 4 * sp["n_HeIII"]
     np.testing.assert_allclose(s.ion_density.to_value(u.cm**-3), ion, rtol=1e-6)
-
-
+@HOT
 def test_collisional_pressure_from_independent_fits():
     # P built with no package code: (n_H + n_He + n_e) k T, n_e from the published fits. The
     # package's tables reproduce those fractions to <~1e-5 (see test_collisional.py), so
@@ -167,6 +170,7 @@ def test_collisional_pressure_from_independent_fits():
     np.testing.assert_allclose(s.electron_density.to_value(u.cm**-3)[big], n_e[big], rtol=3e-4)
 
 
+@HOT
 @pytest.mark.parametrize("gamma", [5.0 / 3.0, 1.4])
 def test_collisional_internal_energy_inversion(gamma):
     model = CollisionalEquilibrium()

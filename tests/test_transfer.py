@@ -3,14 +3,13 @@
 import astropy.units as u
 import numpy as np
 import pytest
+from conftest import uniform_snapshot
 from scipy import integrate
 
 import rtrace
 from rtrace.physics.constants import PC
 from rtrace.physics.freefree import absorption_cgs, emission_cgs
 from rtrace.physics.planck import planck_cgs
-
-from conftest import uniform_snapshot
 
 NU = np.array([0.1e9, 1e9, 5e9, 30e9])
 
@@ -114,7 +113,8 @@ def test_uniform_sphere_against_1d_integration():
     for f, nuf in enumerate(nu):
         alpha = absorption_cgs(nuf, 1e4, 1e3, 1e3)
         b = planck_cgs(nuf, 1e4)
-        val, _ = integrate.quad(lambda p: b * -np.expm1(-2 * alpha * np.sqrt(radius**2 - p**2)) * p, 0, radius)
+        val, _ = integrate.quad(lambda p, b=b, alpha=alpha: b * -np.expm1(-2 * alpha * np.sqrt(radius**2 - p**2)) * p,
+                                 0, radius)
         expected = 2 * np.pi * val / d_cm**2 / 1e-23            # Jy
         assert res.flux_density()[f].to_value(u.Jy) == pytest.approx(expected, rel=0.01), nuf
 

@@ -82,7 +82,7 @@ import warnings
 
 import mpmath as mp
 import numpy as np
-from scipy.integrate import quad, simpson
+from scipy.integrate import quad, simpson, trapezoid
 from scipy.interpolate import CubicSpline
 
 SQRT3 = np.sqrt(3.0)
@@ -95,6 +95,7 @@ DEFAULT_OUT = os.path.join(HERE, os.pardir, "rtrace", "physics", "data",
 X_MIN_EXACT = 1e-12     # below: soft limit
 X_MAX_EXACT = 3e3       # above: fitted large-x expansion
 X_FIT_MIN = 30.0        # lower end of the large-x fitting range
+LNY_MAX = np.log(120.0)  # upper limit of the thermal average in ln y (default of gbar_cl)
 
 
 # ---------------------------------------------------------------------------
@@ -268,7 +269,7 @@ class ClassicalGaunt:
 # ---------------------------------------------------------------------------
 # Thermal average, eq. (3)
 # ---------------------------------------------------------------------------
-def gbar_cl(w, gfun, h=0.02, lny_min=-40.0, lny_max=np.log(120.0)):
+def gbar_cl(w, gfun, h=0.02, lny_min=-40.0, lny_max=LNY_MAX):
     """Maxwell average ``int_0^inf g_cl((w/2) y^{-3/2}) e^{-y} dy``.
 
     Parameters
@@ -292,8 +293,8 @@ def gbar_cl(w, gfun, h=0.02, lny_min=-40.0, lny_max=np.log(120.0)):
     y = np.exp(t)
     x = 0.5 * w * y ** -1.5
     f = gfun(x) * y * np.exp(-y)
-    return float(np.trapezoid(f, t) if hasattr(np, "trapezoid")
-                 else np.trapz(f, t))
+    # scipy's trapezoid: the same rule as numpy's, on every numpy the package supports
+    return float(trapezoid(f, t))
 
 
 def gbar_cl_soft(w):
@@ -453,7 +454,7 @@ def run_verification(gint):
         print(f"  x={x:7.0f}  g={g_cl_exact(x):.10f}")
     print("== thermal average: spline/asymptotics vs direct quadrature")
     for w in [1e-3, 0.1, 1.0, 10.0]:
-        def integrand(t):
+        def integrand(t, w=w):
             y = np.exp(t)
             x = 0.5 * w * y ** -1.5
             g = (g_cl_exact(x, 20) if X_MIN_EXACT <= x <= X_MAX_EXACT
@@ -503,18 +504,18 @@ def main(argv=None):
     # (i) mpmath precision: recompute a subset of g_cl at higher precision
     sub = gint.xs[::25]
     e_prec = max(abs(g_cl_exact(x, 50) / g - 1)
-                 for x, g in zip(sub, gint.gs[::25]))
+                 for x, g in zip(sub, gint.gs[::25], strict=True))
     # (ii) interpolation: rebuild from every other grid point, compare
     half = ClassicalGaunt(xs=gint.xs[::2], gs=gint.gs[::2])
     e_interp_g = np.max(np.abs(half(gint.xs[1::2]) / gint.gs[1::2] - 1))
-    e_interp = max(abs(gbar_cl(w, half) / t - 1) for w, t in zip(ws, table))
+    e_interp = max(abs(gbar_cl(w, half) / t - 1) for w, t in zip(ws, table, strict=True))
     # (iii) quadrature step in ln y
     e_quad = max(abs(gbar_cl(w, gint, h=0.01) / t - 1)
-                 for w, t in zip(ws, table))
+                 for w, t in zip(ws, table, strict=True))
     # (iv) large-x expansion order
     sel = gint.xs >= X_FIT_MIN
     alt = ClassicalGaunt(xs=gint.xs, gs=gint.gs, order=6)
-    e_asym = max(abs(gbar_cl(w, alt) / t - 1) for w, t in zip(ws, table))
+    e_asym = max(abs(gbar_cl(w, alt) / t - 1) for w, t in zip(ws, table, strict=True))
     fit_res = np.max(np.abs(eval_large_x(gint.coef, gint.xs[sel])
                             / gint.gs[sel] - 1))
     e_tot = e_prec + e_interp + e_quad + e_asym
@@ -545,7 +546,7 @@ def main(argv=None):
         f"Produced by tools/gaunt_classical.py: mpmath g_cl on "
         f"{X_MIN_EXACT:g} <= x <= {X_MAX_EXACT:g} ({len(gint.xs)} pts, "
         f"cubic spline in ln x), soft limit below,",
-        f"  large-x fit g = 1 + sum_k c_k x^(-2k/3) above (c1..c5 = "
+        "  large-x fit g = 1 + sum_k c_k x^(-2k/3) above (c1..c5 = "
         + ", ".join(f"{v:.8g}" for v in c[1:]) + "), trapezoid in ln y.",
         f"Estimated max relative error of gbar_cl: {e_tot:.1e} (precision "
         f"{e_prec:.1e}, spline {e_interp:.1e}, quadrature {e_quad:.1e}, "
@@ -556,7 +557,7 @@ def main(argv=None):
         for line in header:
             fh.write("# " + line + "\n")
         fh.write("w,gbar_cl\n")
-        for w, g in zip(ws, table):
+        for w, g in zip(ws, table, strict=True):
             fh.write(f"{w:.10g},{g:.10g}\n")
     print(f"wrote {args.out} ({nw} rows) in {time.time() - t0:.0f} s")
     return 0

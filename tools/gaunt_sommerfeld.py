@@ -219,7 +219,7 @@ def _panel(fun, a, b, n):
     xk, wk = _gl_nodes(n)
     half = 0.5 * (b - a)
     mid = 0.5 * (b + a)
-    return half * mp.fsum(w * fun(mid + half * t) for t, w in zip(xk, wk))
+    return half * mp.fsum(w * fun(mid + half * t) for t, w in zip(xk, wk, strict=True))
 
 
 def _adaptive(fun, a, b, tol, depth=0, maxdepth=8):
@@ -299,7 +299,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
             breaks.add(math.log(xs))
     breaks = sorted(breaks)
     edges = []
-    for lo, hi in zip(breaks[:-1], breaks[1:]):
+    for lo, hi in zip(breaks[:-1], breaks[1:], strict=True):
         npan = max(1, int(math.ceil((hi - lo) / 1.0)))
         edges += [lo + (hi - lo) * k / npan for k in range(npan)]
     edges.append(0.0)
@@ -309,7 +309,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
         return x * f.g(x) * mp.exp(-x)
 
     elog = mp.mpf(0)
-    for lo, hi in zip(edges[:-1], edges[1:]):
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
         v, e = _adaptive(flog, lo, hi, tol / 80)
         total += v
         elog += e
@@ -319,7 +319,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
     # -- linear panels from 1 to X_MAX -------------------------------------
     elin = mp.mpf(0)
     lin_edges = [1.0, 2.0, 4.0, 8.0, 16.0, 32.0, X_MAX]
-    for lo, hi in zip(lin_edges[:-1], lin_edges[1:]):
+    for lo, hi in zip(lin_edges[:-1], lin_edges[1:], strict=True):
         v, e = _adaptive(lambda x: f.g(x) * mp.exp(-x), lo, hi, tol / 20)
         total += v
         elin += e
@@ -393,7 +393,7 @@ def point_set(quick=False):
     for T in temps:
         for nu in freqs:
             u, g2 = u_gamma2_from_T_nu(T, nu)
-            pts.append(("T=%g nu=%g" % (T, nu), g2, u))
+            pts.append((f"T={T:g} nu={nu:g}", g2, u))
     grid_u = [0.01, 0.1, 1.0, 3.0] if not quick else [0.1, 1.0]
     grid_g2 = [1e-2, 1.0, 100.0] if not quick else [1.0]
     for g2 in grid_g2:
@@ -429,9 +429,8 @@ def verify():
         # eta_f/eta_i (1-exp(-2 pi eta_i))/(1-exp(-2 pi eta_f))
         elw = (mp.mpf(ef) / ei * (1 - mp.exp(-2 * mp.pi * ei))
                / (1 - mp.exp(-2 * mp.pi * ef)))
-        print("eta_i=%-8g eta_f=%-8g g=%s g/g_Born=%s Elwert=%s"
-              % (ei, ef, mp.nstr(ge, 12), mp.nstr(ge / gb, 10),
-                 mp.nstr(elw, 10)))
+        print(f"eta_i={ei:<8g} eta_f={ef:<8g} g={mp.nstr(ge, 12)} g/g_Born={mp.nstr(ge / gb, 10)} "
+              f"Elwert={mp.nstr(elw, 10)}")
     print("# 2) Kramers limit, eta_i >> 1, E_f << h nu: compare with "
           "1 + 0.1728 w^(1/3) - 0.0496 w^(2/3), w = h nu / Ry "
           "(Menzel & Pekeris 1935 leading terms, from memory)")
@@ -439,16 +438,14 @@ def verify():
         ge = gaunt_sommerfeld(ei, ef)
         w = mp.mpf(1) / ei**2 - mp.mpf(1) / ef**2
         approx = 1 + mp.mpf("0.1728") * mp.cbrt(w) - mp.mpf("0.0496") * mp.cbrt(w)**2
-        print("eta_i=%-6g eta_f=%-8g g=%s  MP approx=%s"
-              % (ei, ef, mp.nstr(ge, 12), mp.nstr(approx, 12)))
-    print("# 3) precision stability: g at dps=%d vs dps=%d" % (BASE_DPS, 2 * BASE_DPS))
+        print(f"eta_i={ei:<6g} eta_f={ef:<8g} g={mp.nstr(ge, 12)}  MP approx={mp.nstr(approx, 12)}")
+    print(f"# 3) precision stability: g at dps={BASE_DPS:d} vs dps={2 * BASE_DPS:d}")
     for ei, ef in [(1e-3, 1.0000001e-3), (1.0, 3.0), (30.0, 30.0001),
                    (300.0, 3000.0), (1000.0, 1000.001)]:
         g1 = gaunt_sommerfeld(ei, ef)
         with mp.workdps(2 * BASE_DPS):
             g2 = gaunt_sommerfeld(ei, ef)
-        print("eta_i=%-8g eta_f=%-10g g=%s  diff=%s"
-              % (ei, ef, mp.nstr(g1, 15), mp.nstr(g2 - g1, 3)))
+        print(f"eta_i={ei:<8g} eta_f={ef:<10g} g={mp.nstr(g1, 15)}  diff={mp.nstr(g2 - g1, 3)}")
     print("# 4) non-averaged soft limit: g_exact - g_soft at h nu/E_i = eps")
     for eta in [0.01, 1.0, 10.0, 100.0, 1000.0]:
         row = []
@@ -457,23 +454,21 @@ def verify():
             with mp.workdps(mp.mp.dps + 15):
                 ef = ei / mp.sqrt(1 - mp.mpf(eps))
                 d = gaunt_sommerfeld(ei, ef) - gaunt_soft(ei, ef)
-            row.append("%s:%s" % (eps, mp.nstr(d, 3)))
-        print("eta_i=%-6g " % eta + " ".join(row))
+            row.append(f"{eps}:{mp.nstr(d, 3)}")
+        print(f"eta_i={eta:<6g} " + " ".join(row))
     print("# 5) Born thermal average through the same quadrature")
     for g2, u in [(1.0, 1e-6), (1.0, 1e-3), (1.0, 1.0), (100.0, 3.0)]:
         v, e, info = thermal_average(g2, u, gfunc=gaunt_born)
         ex = born_average(u)
-        print("u=%-6g quad=%s exact=%s diff=%s est.err=%s nevals=%d"
-              % (u, mp.nstr(v, 15), mp.nstr(ex, 15), mp.nstr(v - ex, 3),
-                 mp.nstr(e, 3), info["nevals"]))
+        print(f"u={u:<6g} quad={mp.nstr(v, 15)} exact={mp.nstr(ex, 15)} diff={mp.nstr(v - ex, 3)} "
+              f"est.err={mp.nstr(e, 3)} nevals={info['nevals']:d}")
     print("# 6) exact thermal average at tiny gamma^2 vs Born average")
     for g2, u in [(1e-8, 1e-3), (1e-8, 1.0), (1e-6, 0.1)]:
         t0 = time.time()
         v, e, info = thermal_average(g2, u)
         ex = born_average(u)
-        print("gamma2=%-6g u=%-6g gbar=%s Born=%s rel.diff=%s (%.1fs)"
-              % (g2, u, mp.nstr(v, 12), mp.nstr(ex, 12),
-                 mp.nstr((v - ex) / ex, 3), time.time() - t0))
+        print(f"gamma2={g2:<6g} u={u:<6g} gbar={mp.nstr(v, 12)} Born={mp.nstr(ex, 12)} "
+              f"rel.diff={mp.nstr((v - ex) / ex, 3)} ({time.time() - t0:.1f}s)")
 
 
 # ---------------------------------------------------------------------------
@@ -503,15 +498,14 @@ def main(argv=None):
     header = (
         "# Thermally averaged non-relativistic free-free Gaunt factor, Z=1, "
         "gbar(u,gamma2) = int_0^inf g(E_i=(x+u)kT, E_f=x kT) exp(-x) dx, "
-        "u = h nu/(k T), gamma2 = Ry/(k T), Ry = %.9f eV (CODATA via "
+        f"u = h nu/(k T), gamma2 = Ry/(k T), Ry = {RY_EV:.9f} eV (CODATA via "
         "scipy.constants). g from the exact Sommerfeld (1931) formula in the "
         "Karzas & Latter 1961 / Hummer 1988 form, evaluated with mpmath "
-        "(dps=%d); x-integral by adaptive composite Gauss-Legendre (5 vs 10 "
+        f"(dps={args.dps:d}); x-integral by adaptive composite Gauss-Legendre (5 vs 10 "
         "nodes). abs_error_estimate = sum of |I10-I5| over panels + error of "
         "the x<x_b=min(u/99,gamma2/100) piece (integrated if gamma/sqrt(u)"
-        "<=400, else estimated as x_b*g(x_b) with 50%% error) + bound on x>60. "
-        "Generated by tools/gaunt_sommerfeld.py"
-        % (RY_EV, args.dps))
+        "<=400, else estimated as x_b*g(x_b) with 50% error) + bound on x>60. "
+        "Generated by tools/gaunt_sommerfeld.py")
     pts = point_set(args.quick)
     t_start = time.time()
     rows = []
@@ -522,16 +516,14 @@ def main(argv=None):
             t0 = time.time()
             v, e, info = thermal_average(g2, u)
             dt = time.time() - t0
-            fh.write("%.10e,%.10e,%.12f,%.2e\n" % (g2, u, float(v), float(e)))
+            fh.write(f"{g2:.10e},{u:.10e},{float(v):.12f},{float(e):.2e}\n")
             fh.flush()
             soft = soft_limit_average(g2, u)
             rows.append((label, g2, u, v, e, soft))
-            print("%-22s gamma2=%-12.6g u=%-12.6g gbar=%-18s err=%-9s "
-                  "soft-limit diff=%-10s u*gamma=%-9.3g nevals=%-5d %.1fs"
-                  % (label, g2, u, mp.nstr(v, 13), mp.nstr(e, 2),
-                     mp.nstr(v - soft, 3), u * math.sqrt(g2),
-                     info["nevals"], dt), flush=True)
-    print("total runtime %.1f s; wrote %s" % (time.time() - t_start, out))
+            print(f"{label:<22} gamma2={g2:<12.6g} u={u:<12.6g} gbar={mp.nstr(v, 13):<18} err={mp.nstr(e, 2):<9} "
+                  f"soft-limit diff={mp.nstr(v - soft, 3):<10} u*gamma={u * math.sqrt(g2):<9.3g} "
+                  f"nevals={info['nevals']:<5d} {dt:.1f}s", flush=True)
+    print(f"total runtime {time.time() - t_start:.1f} s; wrote {out}")
     return 0
 
 

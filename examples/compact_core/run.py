@@ -50,7 +50,7 @@ def main():
     depth = res.tau_unity_depth()[:, c, c]
     per_pixel, whole = res.turnover_frequency()
     print("tau = 1 depth through the centre, from the near side of the box:")
-    for f, d in zip(nu, depth):
+    for f, d in zip(nu, depth, strict=True):
         print(f"  {f:5.1f}: {d:.4f}" if np.isfinite(d) else f"  {f:5.1f}: never (thin)")
     print(f"turnover frequency: centre {per_pixel[c, c].to(u.GHz):.1f}, whole source {whole.to(u.GHz):.2f}")
 
@@ -59,7 +59,7 @@ def main():
     with np.errstate(invalid="ignore", divide="ignore"):        # NaN outside the gas
         ratio = (cut.intensity / cut.unabsorbed_intensity).value
     print("absorption loss I / I_unabsorbed at the core:",
-          ", ".join(f"{f:.1f}: {v:.3f}" for f, v in zip(nu, ratio[:, cut.columns.size // 2])))
+          ", ".join(f"{f:.1f}: {v:.3f}" for f, v in zip(nu, ratio[:, cut.columns.size // 2], strict=True)))
     cut.plot(OUT / "cut.png")
 
     # 3. two invented arrays at 5 GHz

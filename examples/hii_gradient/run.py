@@ -7,9 +7,9 @@ near -0.1 (optically thin free-free) on the diffuse side (Condon & Ransom 2016).
 
 import astropy.units as u
 import numpy as np
+from make_snapshot import build
 
 import rtrace
-from make_snapshot import build
 
 
 def main():

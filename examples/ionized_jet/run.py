@@ -12,9 +12,9 @@ more from the side.
 
 import astropy.units as u
 import numpy as np
+from make_snapshot import build
 
 import rtrace
-from make_snapshot import build
 
 
 def main():

@@ -21,13 +21,13 @@ import matplotlib
 import numpy as np
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt      # noqa: E402
+import matplotlib.pyplot as plt  # noqa: E402
 
-import rtrace                         # noqa: E402
-from rtrace.analysis.spectra import sed, spectral_index      # noqa: E402
-from rtrace.physics import emission_coefficient             # noqa: E402
-from rtrace.physics.ionization import Composition, IonizingSources     # noqa: E402
-from rtrace.physics.ionization.tables import case_b_coefficient        # noqa: E402
+import rtrace  # noqa: E402
+from rtrace.analysis.spectra import sed, spectral_index  # noqa: E402
+from rtrace.physics import emission_coefficient  # noqa: E402
+from rtrace.physics.ionization import Composition, IonizingSources  # noqa: E402
+from rtrace.physics.ionization.tables import case_b_coefficient  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 OUT = Path("out")
@@ -57,7 +57,7 @@ def main():
     freq, flux = sed(res)
     alpha = spectral_index(freq, flux)
     print("\n   nu      S (Jy)   thin estimate from Q (Jy)   ratio   alpha to next   max tau")
-    for i, (f, s) in enumerate(zip(freq, flux)):
+    for i, (f, s) in enumerate(zip(freq, flux, strict=True)):
         unit = 1 * u.cm**-3
         j = emission_coefficient(f, T_ION, unit, unit) / unit**2        # per unit n_e n_i (R&L eq. 5.14b)
         thin = (4 * np.pi * u.sr * j * emission_volume / (4 * np.pi * DISTANCE**2)).to(u.Jy)

@@ -142,6 +142,7 @@ class Cut:
 
     @property
     def unabsorbed_intensity(self):
+        """``int j ds`` along the cut's samples, ``(nfreq, num)`` (traced on first use, then kept)."""
         if self._unabsorbed is None:
             thin = self.result.unabsorbed_intensity
             values = _sample(thin.value, self.rows, self.columns, self.order)

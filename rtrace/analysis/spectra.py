@@ -356,7 +356,7 @@ def write_sed_csv(path, frequencies, flux, metadata=None):
     if "background" not in (metadata or {}):
         lines.append("# background: not stated by the writer (see rtrace.analysis.spectra.describe_background)")
     lines.append("# spectral_index: d ln S / d ln nu from this frequency to the next (nan on the last row)")
-    for f, s, a in zip(nu / 1e9, s_jy, alpha):
+    for f, s, a in zip(nu / 1e9, s_jy, alpha, strict=True):
         # 17 significant digits round-trip a float64 exactly
         lines.append(f"{f:.17g},{s:.17g},{a:.17g}")
     with atomic_path(path) as tmp:

@@ -34,8 +34,8 @@ from astropy.io import fits
 from astropy.wcs.utils import pixel_to_skycoord
 
 from ..errors import InputError
-from ..quantities import positive_scalar
 from ..observe.beam import describe_beam
+from ..quantities import positive_scalar
 from .model import model_cube, model_image
 from .observation import JY_PER_BEAM, note, read_observation
 
@@ -92,7 +92,7 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
     """
     if order not in REPROJECT_ORDERS:
         raise InputError(f"order: expected one of {', '.join(REPROJECT_ORDERS)}, got {order!r}")
-    from reproject import reproject_interp      # imported here: it takes a while to import
+    from reproject import reproject_interp  # imported here: it takes a while to import
 
     obs = read_observation(observation, frequency=frequency, beam=beam, unit=unit)
     notes = list(obs.notes)
@@ -136,6 +136,7 @@ class ApertureFlux:
     complete : bool
         False when part of the region lies outside the common footprint.
     """
+
     model: u.Quantity
     observation: u.Quantity
     residual: u.Quantity
@@ -158,6 +159,7 @@ class RadialProfile:
         Pixels in each ring.
     center : `~astropy.coordinates.SkyCoord`
     """
+
     radius: u.Quantity
     inner: u.Quantity
     outer: u.Quantity
@@ -241,18 +243,22 @@ class Comparison:
     # -- images -----------------------------------------------------------------------------------
     @property
     def observation(self):
+        """Observed image, Jy/beam ``(ny, nx)``."""
         return u.Quantity(self._obs, JY_PER_BEAM, copy=False)
 
     @property
     def model(self):
+        """Model at the observed frequency and beam, Jy/beam ``(ny, nx)``; NaN where it does not reach."""
         return u.Quantity(self._model, JY_PER_BEAM, copy=False)
 
     @property
     def residual(self):
+        """``observation - model``, Jy/beam ``(ny, nx)``; NaN outside the common footprint."""
         return u.Quantity(self._residual, JY_PER_BEAM, copy=False)
 
     @property
     def shape(self):
+        """``(ny, nx)`` of the observed grid."""
         return self._obs.shape
 
     # -- measurements -----------------------------------------------------------------------------

@@ -19,7 +19,7 @@ from matplotlib import colors
 from matplotlib.patches import Ellipse
 
 from ..errors import InputError
-from ..plot import _STYLE, _Plane, _colorbar, _make_norm, _new_figure, _prefix_for, _resolve_cmap
+from ..plot import _STYLE, _colorbar, _make_norm, _new_figure, _Plane, _prefix_for, _resolve_cmap
 
 __all__ = ["comparison_figure"]
 

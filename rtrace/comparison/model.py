@@ -28,7 +28,7 @@ import astropy.units as u
 import numpy as np
 import radio_beam
 from astropy.io import fits
-from astropy.wcs.utils import proj_plane_pixel_scales, pixel_to_skycoord
+from astropy.wcs.utils import pixel_to_skycoord, proj_plane_pixel_scales
 
 from ..errors import InputError
 from ..io.fits import sky_wcs, split_suffix
@@ -36,7 +36,7 @@ from ..observe.beam import BeamKernel, describe_beam
 from ..observe.skymap import SkyMap
 from ..transfer.background import Background, background_in_header, background_of
 from ..transfer.result import Result
-from .observation import header_beam, header_frequencies, note, open_image_hdu, parse_bunit, _wcs
+from .observation import _wcs, header_beam, header_frequencies, note, open_image_hdu, parse_bunit
 
 __all__ = ["ModelCube", "model_cube", "model_image", "plane_files", "FREQUENCY_MATCH_RTOL"]
 
@@ -78,6 +78,7 @@ class ModelCube:
         What was behind the model; ``data`` is always background
         subtracted (what a differenced or interferometric image measures).
     """
+
     data: np.ndarray
     frequencies: np.ndarray
     wcs: object
@@ -89,6 +90,7 @@ class ModelCube:
 
     @property
     def shape(self):
+        """``(ny, nx)`` of one plane."""
         return self.data.shape[1:]
 
     @property

@@ -25,8 +25,8 @@ from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_area, proj_plane_pixel_scales
 
 from ..errors import InputError
-from ..quantities import positive_scalar
 from ..observe.beam import describe_beam, validate_beam
+from ..quantities import positive_scalar
 
 __all__ = ["ObservedImage", "read_observation", "ComparisonWarning", "FREQUENCY_KEYWORDS",
            "header_frequencies", "open_image_hdu"]
@@ -69,6 +69,7 @@ class ObservedImage:
     notes : list of str
         What was done to the data on reading (unit conversion, overrides).
     """
+
     data: np.ndarray
     wcs: WCS
     frequency: u.Quantity
@@ -81,6 +82,7 @@ class ObservedImage:
 
     @property
     def shape(self):
+        """``(ny, nx)`` of the image."""
         return self.data.shape
 
     @property

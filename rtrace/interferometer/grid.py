@@ -60,10 +60,12 @@ class ImageGrid:
 
     @property
     def field_rad(self):
+        """Side of the image (rad)."""
         return self.pixel_rad * self.size
 
     @property
     def pixel_scale(self):
+        """Pixel side as a Quantity in arcsec."""
         return (self.pixel_rad * u.rad).to(u.arcsec)
 
 

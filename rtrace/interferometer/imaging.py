@@ -49,7 +49,7 @@ _CHUNK_ELEMENTS = 1 << 21
 
 
 def uniform_cell(shape, pixel_scale_rad):
-    """uv cell ``(du, dv)`` in wavelengths: one inverse field of view (``1 / (n * pixel)``)."""
+    """Uv cell ``(du, dv)`` in wavelengths: one inverse field of view (``1 / (n * pixel)``)."""
     ny, nx = shape
     return 1.0 / (nx * pixel_scale_rad), 1.0 / (ny * pixel_scale_rad)
 

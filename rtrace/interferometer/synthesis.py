@@ -20,28 +20,40 @@ samples the visibility near ``(u, v) = 0``.
 """
 
 import math
-import warnings
 
 import astropy.units as u
 import numpy as np
 
-from ..errors import InputError
-from ..memory import check_memory, format_bytes, synthesis_bytes
-from ..quantities import finite_number, positive_scalar
+from ..errors import InputError, warn_user
 from ..io.fits import pixel_error_cards, write_cube
+from ..memory import check_memory, format_bytes, synthesis_bytes
 from ..observe.beam import describe_beam
 from ..observe.noise import JY_PER_BEAM, jy_per_beam_value
 from ..observe.skymap import SkyMap
 from ..physics.constants import C
+from ..quantities import finite_number, positive_scalar
 from ..transfer.background import header_cards, resolve_convention
 from ..transfer.result import Result
-from .array import (_hour_angle_rad, antenna_positions, baseline_pairs, enu_to_equatorial, hour_angle_samples,
-                    source_elevation, uvw_tracks)
+from .array import (
+    _hour_angle_rad,
+    antenna_positions,
+    baseline_pairs,
+    enu_to_equatorial,
+    hour_angle_samples,
+    source_elevation,
+    uvw_tracks,
+)
 from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
 from .grid import AIRY_FWHM_FACTOR, default_hour_angle_step, image_grid
 from .imaging import WEIGHTINGS, dirty_beam, dirty_image, imaging_weights, uniform_cell
-from .sampling import (GAUSSIAN_FWHM_FACTOR, PRIMARY_BEAMS, direction_cosines, predict_visibilities,
-                       primary_beam_pattern, w_term_phase)
+from .sampling import (
+    GAUSSIAN_FWHM_FACTOR,
+    PRIMARY_BEAMS,
+    direction_cosines,
+    predict_visibilities,
+    primary_beam_pattern,
+    w_term_phase,
+)
 
 __all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_RELATIVE_THRESHOLD",
            "DEFAULT_NITER"]
@@ -204,186 +216,248 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     if not isinstance(result, Result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
     convention = resolve_convention(background, subtract_background)
-    pos = antenna_positions(antennas, unit=antenna_unit, unit_option="antenna_unit=")
-    lat = _angle(latitude, "latitude", -90.0, 90.0)
-    min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
+    array = _Array.parse(antennas, antenna_unit, latitude, min_elevation, dish_diameter, primary_beam,
+                         primary_beam_fwhm_factor)
     if weighting not in WEIGHTINGS:
         raise InputError(f"weighting: expected one of {', '.join(WEIGHTINGS)}, got {weighting!r}")
     robust = finite_number(robust, "robust")
     thr = _threshold_jyb(threshold)
-    diameter = None
-    if dish_diameter is not None:
+    jy_per_pixel = _model_jy_per_pixel(result)
+    obs = _Observation.plan(result, array, hour_angle_range, hour_angle_step, n_hour_angles, pixel_scale,
+                            image_size, max_memory)
+    planes = [_image_plane(f, jy_per_pixel[i], obs, array, weighting, robust, gain, niter, thr)
+              for i, f in enumerate(obs.nu)]
+    w_phase = max(p.w_phase for p in planes)
+    if w_phase > _W_PHASE_WARN:
+        warn_user(f"result: the neglected w term reaches a phase of {w_phase:.3g} rad at the image "
+                  f"corners (non-coplanar baselines); the field is too wide for a two-dimensional "
+                  f"transform at these baselines", SynthesisWarning)
+    return _synthesized_map(result, convention, array, obs, planes, weighting, robust, gain, niter)
+
+
+class _Array:
+    """The array's settings, checked: antenna positions (m), latitude and horizon (rad), dish and primary beam."""
+
+    def __init__(self, pos, lat, min_el, diameter, primary_beam, fwhm_factor):
+        self.pos, self.lat, self.min_el = pos, lat, min_el
+        self.diameter, self.primary_beam, self.fwhm_factor = diameter, primary_beam, fwhm_factor
+
+    @classmethod
+    def parse(cls, antennas, antenna_unit, latitude, min_elevation, dish_diameter, primary_beam, fwhm_factor):
+        """The settings of :func:`synthesize` that describe the array; InputError naming the first bad one."""
+        pos = antenna_positions(antennas, unit=antenna_unit, unit_option="antenna_unit=")
+        lat = _angle(latitude, "latitude", -90.0, 90.0)
+        min_el = _angle(min_elevation, "min_elevation", -90.0, 90.0)
+        if dish_diameter is None:
+            return cls(pos, lat, min_el, None, primary_beam, None)
         diameter = _positive_length(dish_diameter, "dish_diameter")
         if primary_beam not in PRIMARY_BEAMS:
             raise InputError(f"primary_beam: expected one of {', '.join(PRIMARY_BEAMS)}, got {primary_beam!r}")
-        fwhm_factor = finite_number(primary_beam_fwhm_factor, "primary_beam_fwhm_factor", positive=True)
+        fwhm_factor = finite_number(fwhm_factor, "primary_beam_fwhm_factor", positive=True)
         sep = np.linalg.norm(pos[:, None, :2] - pos[None, :, :2], axis=-1)
         sep[np.diag_indices(len(pos))] = np.inf
         i, j = np.unravel_index(np.argmin(sep), sep.shape)
         if sep[i, j] < diameter:
             raise InputError(f"dish_diameter: antennas {min(i, j)} and {max(i, j)} stand {sep[i, j]:.4g} m "
                              f"apart on the ground, closer than one dish diameter ({diameter:.4g} m)")
-    nu = result.frequencies.to_value(u.Hz)
-    nfreq = nu.size
-    lam_all = C / nu * 1e-2                                   # metres (C is cgs)
-    pairs0 = baseline_pairs(len(pos))
-    enu = pos[pairs0[:, 1]] - pos[pairs0[:, 0]]
-    pb_per_lambda = None
-    if diameter is not None:
-        pb_per_lambda = (fwhm_factor if primary_beam == "gaussian" else AIRY_FWHM_FACTOR) / diameter
-    mny, mnx = result.shape[1:]
-    model_pix = float(result.pixel_scale.to_value(u.rad))
-    grid = image_grid(max(mny, mnx) * model_pix, float(np.max(np.linalg.norm(enu, axis=1))), lam_all,
-                      pb_per_lambda, pixel_scale, image_size)
-    if hour_angle_step is None and n_hour_angles is None:
-        xyz0 = enu_to_equatorial(enu, lat)
-        dh_max = default_hour_angle_step(float(np.max(np.hypot(xyz0[:, 0], xyz0[:, 1]))), float(lam_all.min()),
-                                         grid.field_rad)
-        hour_angle_samples(hour_angle_range, n_hour_angles=1)          # validates the range
-        start, stop = _hour_angle_rad(hour_angle_range, "hour_angle_range").reshape(-1)
-        span = float(stop - start)
-        n_hour_angles = 1 if span == 0 else int(math.ceil(span / dh_max * (1.0 + 1e-9))) + 1
-        if n_hour_angles > 100_000:
-            raise InputError(f"hour_angle_step: avoiding aliasing over this range needs {n_hour_angles} "
-                             f"samples; give a smaller image (image_size) or a shorter hour-angle range")
-    ha_all = hour_angle_samples(hour_angle_range, hour_angle_step, n_hour_angles)
+        return cls(pos, lat, min_el, diameter, primary_beam, fwhm_factor)
 
-    sky = result.sky_position
-    dec = float(sky.icrs.dec.to_value(u.rad))
-    if result.view.sky_position is None:
-        warnings.warn("result: the View has no sky_position, so the source is placed at the default "
-                      "ICRS (0, 0): declination 0 deg; give View(sky_position=...) for the real "
-                      "declination, which shapes the (u, v) tracks", SynthesisWarning, stacklevel=2)
+    def primary_beam_per_lambda(self):
+        """Primary beam FWHM times 1/wavelength (rad m), or None without a dish."""
+        if self.diameter is None:
+            return None
+        return (self.fwhm_factor if self.primary_beam == "gaussian" else AIRY_FWHM_FACTOR) / self.diameter
 
-    elev = source_elevation(ha_all, dec, lat)
-    keep = elev >= min_el - 1e-12
-    if not keep.any():
-        raise InputError(f"hour_angle_range: the source (declination {math.degrees(dec):.6g} deg) stays below "
-                         f"min_elevation={math.degrees(min_el):.6g} deg at latitude {math.degrees(lat):.6g} deg "
-                         f"over the whole range")
-    if not keep.all():
-        warnings.warn(f"hour_angle_range: {int((~keep).sum())} of {keep.size} hour-angle samples have the "
-                      f"source below min_elevation={math.degrees(min_el):.6g} deg and are dropped",
-                      SynthesisWarning, stacklevel=2)
-    ha = ha_all[keep]
-    _check_size(nfreq, grid.size, int(ha.size) * len(pairs0), (mny, mnx), max_memory,
-                "n_hour_angles" if n_hour_angles is not None and hour_angle_step is None else "hour_angle_step")
-    uvw3, pairs, xyz = uvw_tracks(pos, lat, dec, ha)
-    uvw_half = uvw3.reshape(-1, 3)                            # (nh * nb, 3) metres
-    nhalf = uvw_half.shape[0]
-    proj = np.hypot(uvw_half[:, 0], uvw_half[:, 1])
-    b_min, b_max = float(proj.min()), float(proj.max())
+    def pattern(self, lam, l, m):
+        """The primary beam's power pattern at direction cosines ``l, m`` and wavelength ``lam`` (m)."""
+        return primary_beam_pattern(self.primary_beam, self.diameter, lam, l, m, self.fwhm_factor)
 
-    ny = nx = grid.size
-    pix_rad = grid.pixel_rad
-    pix_q = grid.pixel_scale
-    l, m = direction_cosines((ny, nx), pix_rad)                  # the synthesized image's pixels
-    ml, mm = direction_cosines((mny, mnx), model_pix)            # the model's pixels
-    cell = uniform_cell((ny, nx), pix_rad)
+    def describe_primary_beam(self):
+        """The primary beam for provenance."""
+        if self.diameter is None:
+            return "none"
+        return (f"{self.primary_beam} of a {self.diameter:.6g} m dish"
+                + (f" (FWHM {self.fwhm_factor:.4g} lambda/D)" if self.primary_beam == "gaussian" else "")
+                + ", applied to the model, not corrected")
 
+
+def _model_jy_per_pixel(result):
+    """The Result's background-subtracted intensity in Jy per model pixel; InputError on non-finite pixels."""
     intensity = np.asarray(result.specific_intensity("subtracted").value, float)
     bad = ~np.isfinite(intensity)
     if bad.any():
         raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
-    jy_per_pixel = intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
+    return intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
 
-    # sampling of the tracks: successive samples of the longest equatorial baseline are
-    # |d(u, v)/dH| dH <= sqrt(X^2 + Y^2) dH / lambda apart, which repeats the response of
-    # each source 1 / that away (a grating response along the track)
-    if ha.size > 1:
-        dh = float(np.max(np.diff(ha_all)))
-        dq_m = float(np.max(np.hypot(xyz[:, 0], xyz[:, 1]))) * dh
-        lam_min = C / nu.max() * 1e-2                     # metres (C is cgs)
-        alias_rad = lam_min / dq_m if dq_m > 0 else math.inf
-        extent_rad = max(nx, ny) * pix_rad
-        if alias_rad < extent_rad:
-            warnings.warn(f"hour_angle_step: the longest baseline's samples are far apart in (u, v), "
-                          f"so each source repeats {math.degrees(alias_rad) * 3600:.4g} arcsec away along the "
-                          f"tracks, inside the {math.degrees(extent_rad) * 3600:.4g} arcsec image; use a "
-                          f"step below {math.degrees(dh * alias_rad / extent_rad) * 4.0:.3g} min of hour angle",
-                          SynthesisWarning, stacklevel=2)
 
-    shape2 = (nfreq, ny, nx)
-    restored = np.empty(shape2)
-    dirty_all = np.empty(shape2)
-    resid_all = np.empty(shape2)
-    comps_all = np.empty(shape2)
-    psf_all = np.empty((nfreq, 2 * ny, 2 * nx))
-    pb_all = np.empty(shape2) if diameter is not None else None
-    vis_all = np.empty((nfreq, 2 * nhalf), complex)
-    wt_all = np.empty((nfreq, 2 * nhalf))
-    beams, las, n_iter, thresholds = [], np.empty(nfreq), np.empty(nfreq, int), np.empty(nfreq)
-    w_phase = np.empty(nfreq)
-    for i, f in enumerate(nu):
-        lam = C / f * 1e-2                                    # metres (C is cgs)
-        uu, vv, ww = (uvw_half[:, k] / lam for k in range(3))
-        model = jy_per_pixel[i]
-        if diameter is not None:
-            pb_all[i] = primary_beam_pattern(primary_beam, diameter, lam, l, m, fwhm_factor)
-            model = model * primary_beam_pattern(primary_beam, diameter, lam, ml, mm, fwhm_factor)
-        vis = predict_visibilities(model, ml, mm, uu, vv)
-        w_full = imaging_weights(np.concatenate([uu, -uu]), np.concatenate([vv, -vv]), weighting, cell,
-                                 robust=robust)
-        w_half = w_full[:nhalf]
-        dirty = dirty_image(vis, w_half, uu, vv, l, m)
-        psf = dirty_beam(w_half, uu, vv, (ny, nx), pix_rad)
-        beam = fit_clean_beam(psf, pix_q)
-        t = thr if thr is not None else DEFAULT_RELATIVE_THRESHOLD * float(np.max(np.abs(dirty)))
-        comps, resid, n, peak = hogbom(dirty, psf, gain=gain, threshold=t, niter=niter)
-        if n >= niter and peak > t:
-            warnings.warn(f"niter: CLEAN at {f / 1e9:.6g} GHz stopped after {n} components with the residual "
-                          f"peak at {peak:.4g} Jy/beam, above the threshold {t:.4g} Jy/beam",
-                          SynthesisWarning, stacklevel=2)
-        minor_pix = beam.minor.to_value(u.rad) / pix_rad
-        if minor_pix < 2.0:
-            warnings.warn(f"pixel_scale: the clean beam at {f / 1e9:.6g} GHz is {minor_pix:.3g} pixels wide "
-                          f"(FWHM, minor axis); fewer than 2 pixels per beam make CLEAN and the beam fit "
-                          f"coarse, give a smaller pixel_scale", SynthesisWarning, stacklevel=2)
-        restored[i] = restore(comps, resid, beam, pix_q)
-        dirty_all[i], resid_all[i], comps_all[i], psf_all[i] = dirty, resid, comps, psf
-        vis_all[i] = np.concatenate([vis, np.conj(vis)])
-        wt_all[i] = w_full / w_full.sum()
-        beams.append(beam)
-        q_min = b_min / lam
-        las[i] = LAS_FACTOR / q_min if q_min > 0 else math.inf
-        n_iter[i], thresholds[i] = n, t
-        w_phase[i] = w_term_phase(np.max(np.abs(ww)), l, m)
-    if w_phase.max() > _W_PHASE_WARN:
-        warnings.warn(f"result: the neglected w term reaches a phase of {w_phase.max():.3g} rad at the image "
-                      f"corners (non-coplanar baselines); the field is too wide for a two-dimensional "
-                      f"transform at these baselines", SynthesisWarning, stacklevel=2)
+class _Observation:
+    """What is observed: frequencies, the synthesized grid, hour angles above the horizon, (u, v, w) tracks."""
 
-    las_q = (las * u.rad).to(u.arcsec)
-    pb_txt = ("none" if diameter is None else
-              f"{primary_beam} of a {diameter:.6g} m dish"
-              + (f" (FWHM {fwhm_factor:.4g} lambda/D)" if primary_beam == "gaussian" else "")
-              + ", applied to the model, not corrected")
+    @classmethod
+    def plan(cls, result, array, hour_angle_range, hour_angle_step, n_hour_angles, pixel_scale, image_size,
+             max_memory):
+        """Choose the grid and the sampling, drop hour angles below the horizon, check memory, then the tracks."""
+        obs = cls()
+        obs.nu = result.frequencies.to_value(u.Hz)
+        lam_all = C / obs.nu * 1e-2                                   # metres (C is cgs)
+        pairs0 = baseline_pairs(len(array.pos))
+        enu = array.pos[pairs0[:, 1]] - array.pos[pairs0[:, 0]]
+        obs.model_shape = result.shape[1:]
+        obs.model_pix = float(result.pixel_scale.to_value(u.rad))
+        obs.grid = image_grid(max(obs.model_shape) * obs.model_pix, float(np.max(np.linalg.norm(enu, axis=1))),
+                              lam_all, array.primary_beam_per_lambda(), pixel_scale, image_size)
+        if hour_angle_step is None and n_hour_angles is None:
+            n_hour_angles = _unaliased_samples(enu, array.lat, float(lam_all.min()), obs.grid.field_rad,
+                                               hour_angle_range)
+        sample_field = "n_hour_angles" if n_hour_angles is not None and hour_angle_step is None else "hour_angle_step"
+        ha_all = hour_angle_samples(hour_angle_range, hour_angle_step, n_hour_angles)
+        obs.dec = float(result.sky_position.icrs.dec.to_value(u.rad))
+        if result.view.sky_position is None:
+            warn_user("result: the View has no sky_position, so the source is placed at the default "
+                      "ICRS (0, 0): declination 0 deg; give View(sky_position=...) for the real "
+                      "declination, which shapes the (u, v) tracks", SynthesisWarning)
+        obs.ha = _above_horizon(ha_all, obs.dec, array)
+        _check_size(obs.nu.size, obs.grid.size, int(obs.ha.size) * len(pairs0), obs.model_shape, max_memory,
+                    sample_field)
+        uvw3, obs.pairs, xyz = uvw_tracks(array.pos, array.lat, obs.dec, obs.ha)
+        obs.uvw_half = uvw3.reshape(-1, 3)                        # (nh * nb, 3) metres
+        proj = np.hypot(obs.uvw_half[:, 0], obs.uvw_half[:, 1])
+        obs.b_min, obs.b_max = float(proj.min()), float(proj.max())
+        n = obs.grid.size
+        obs.l, obs.m = direction_cosines((n, n), obs.grid.pixel_rad)             # the synthesized image's pixels
+        obs.ml, obs.mm = direction_cosines(obs.model_shape, obs.model_pix)      # the model's pixels
+        obs.cell = uniform_cell((n, n), obs.grid.pixel_rad)
+        if obs.ha.size > 1:
+            _warn_track_aliasing(ha_all, xyz, float(obs.nu.max()), n * obs.grid.pixel_rad)
+        return obs
+
+
+def _unaliased_samples(enu, lat, lam_min, field_rad, hour_angle_range):
+    """Hour-angle samples over the range so that the tracks do not alias inside the field (default sampling)."""
+    xyz0 = enu_to_equatorial(enu, lat)
+    dh_max = default_hour_angle_step(float(np.max(np.hypot(xyz0[:, 0], xyz0[:, 1]))), lam_min, field_rad)
+    hour_angle_samples(hour_angle_range, n_hour_angles=1)          # validates the range
+    start, stop = _hour_angle_rad(hour_angle_range, "hour_angle_range").reshape(-1)
+    span = float(stop - start)
+    n_hour_angles = 1 if span == 0 else int(math.ceil(span / dh_max * (1.0 + 1e-9))) + 1
+    if n_hour_angles > 100_000:
+        raise InputError(f"hour_angle_step: avoiding aliasing over this range needs {n_hour_angles} "
+                         f"samples; give a smaller image (image_size) or a shorter hour-angle range")
+    return n_hour_angles
+
+
+def _above_horizon(ha_all, dec, array):
+    """The hour angles at which the source is above ``min_elevation``; InputError if none, a warning if some."""
+    elev = source_elevation(ha_all, dec, array.lat)
+    keep = elev >= array.min_el - 1e-12
+    if not keep.any():
+        raise InputError(f"hour_angle_range: the source (declination {math.degrees(dec):.6g} deg) stays below "
+                         f"min_elevation={math.degrees(array.min_el):.6g} deg at latitude "
+                         f"{math.degrees(array.lat):.6g} deg over the whole range")
+    if not keep.all():
+        warn_user(f"hour_angle_range: {int((~keep).sum())} of {keep.size} hour-angle samples have the "
+                  f"source below min_elevation={math.degrees(array.min_el):.6g} deg and are dropped",
+                  SynthesisWarning)
+    return ha_all[keep]
+
+
+def _warn_track_aliasing(ha_all, xyz, nu_max, extent_rad):
+    """Warn when the longest baseline's samples are so far apart in (u, v) that sources repeat in the image.
+
+    Successive samples of the longest equatorial baseline are ``|d(u, v)/dH| dH <= sqrt(X^2 + Y^2) dH /
+    lambda`` apart, which repeats the response of each source 1 / that away (a grating response along the
+    track).
+    """
+    dh = float(np.max(np.diff(ha_all)))
+    dq_m = float(np.max(np.hypot(xyz[:, 0], xyz[:, 1]))) * dh
+    lam_min = C / nu_max * 1e-2                           # metres (C is cgs)
+    alias_rad = lam_min / dq_m if dq_m > 0 else math.inf
+    if alias_rad < extent_rad:
+        warn_user(f"hour_angle_step: the longest baseline's samples are far apart in (u, v), "
+                  f"so each source repeats {math.degrees(alias_rad) * 3600:.4g} arcsec away along the "
+                  f"tracks, inside the {math.degrees(extent_rad) * 3600:.4g} arcsec image; use a "
+                  f"step below {math.degrees(dh * alias_rad / extent_rad) * 4.0:.3g} min of hour angle",
+                  SynthesisWarning)
+
+
+class _Plane:
+    """One frequency's products: restored, dirty, residual, components, dirty beam, clean beam, samples."""
+
+    def __init__(self, **kw):
+        self.__dict__.update(kw)
+
+
+def _image_plane(f, model, obs, array, weighting, robust, gain, niter, thr):
+    """Sample the model at frequency ``f`` (Hz) on the tracks, image it and CLEAN it: a `_Plane`."""
+    lam = C / f * 1e-2                                    # metres (C is cgs)
+    uu, vv, ww = (obs.uvw_half[:, k] / lam for k in range(3))
+    pb = None
+    if array.diameter is not None:
+        pb = array.pattern(lam, obs.l, obs.m)
+        model = model * array.pattern(lam, obs.ml, obs.mm)
+    vis = predict_visibilities(model, obs.ml, obs.mm, uu, vv)
+    w_full = imaging_weights(np.concatenate([uu, -uu]), np.concatenate([vv, -vv]), weighting, obs.cell,
+                             robust=robust)
+    w_half = w_full[:obs.uvw_half.shape[0]]
+    n, pix_rad, pix_q = obs.grid.size, obs.grid.pixel_rad, obs.grid.pixel_scale
+    dirty = dirty_image(vis, w_half, uu, vv, obs.l, obs.m)
+    psf = dirty_beam(w_half, uu, vv, (n, n), pix_rad)
+    beam = fit_clean_beam(psf, pix_q)
+    t = thr if thr is not None else DEFAULT_RELATIVE_THRESHOLD * float(np.max(np.abs(dirty)))
+    comps, resid, n_iter, peak = hogbom(dirty, psf, gain=gain, threshold=t, niter=niter)
+    if n_iter >= niter and peak > t:
+        warn_user(f"niter: CLEAN at {f / 1e9:.6g} GHz stopped after {n_iter} components with the residual "
+                  f"peak at {peak:.4g} Jy/beam, above the threshold {t:.4g} Jy/beam", SynthesisWarning)
+    minor_pix = beam.minor.to_value(u.rad) / pix_rad
+    if minor_pix < 2.0:
+        warn_user(f"pixel_scale: the clean beam at {f / 1e9:.6g} GHz is {minor_pix:.3g} pixels wide "
+                  f"(FWHM, minor axis); fewer than 2 pixels per beam make CLEAN and the beam fit "
+                  f"coarse, give a smaller pixel_scale", SynthesisWarning)
+    q_min = obs.b_min / lam
+    return _Plane(restored=restore(comps, resid, beam, pix_q), dirty=dirty, residual=resid, components=comps,
+                  psf=psf, primary_beam=pb, beam=beam, visibilities=np.concatenate([vis, np.conj(vis)]),
+                  weights=w_full / w_full.sum(), las=LAS_FACTOR / q_min if q_min > 0 else math.inf,
+                  n_iter=n_iter, threshold=t, w_phase=w_term_phase(np.max(np.abs(ww)), obs.l, obs.m))
+
+
+def _synthesized_map(result, convention, array, obs, planes, weighting, robust, gain, niter):
+    """The `SynthesizedMap` of the planes, with the provenance that says how it was made."""
+    nu, ha = obs.nu, obs.ha
+    las_q = ([p.las for p in planes] * u.rad).to(u.arcsec)
+    beams = [p.beam for p in planes]
+    n_iter = np.array([p.n_iter for p in planes], int)
+    thresholds = np.array([p.threshold for p in planes])
     interferometer_txt = (
-        f"{len(pos)} antennas, {len(pairs)} baselines, latitude {math.degrees(lat):.6g} deg, declination "
-        f"{math.degrees(dec):.6g} deg, hour angle {math.degrees(ha[0]) / 15:.6g} to {math.degrees(ha[-1]) / 15:.6g} h "
-        f"({ha.size} samples), projected baselines {b_min:.6g}-{b_max:.6g} m, weighting {weighting}"
+        f"{len(array.pos)} antennas, {len(obs.pairs)} baselines, latitude {math.degrees(array.lat):.6g} deg, "
+        f"declination {math.degrees(obs.dec):.6g} deg, hour angle {math.degrees(ha[0]) / 15:.6g} to "
+        f"{math.degrees(ha[-1]) / 15:.6g} h ({ha.size} samples), projected baselines {obs.b_min:.6g}-"
+        f"{obs.b_max:.6g} m, weighting {weighting}"
         + (f" R={robust:g}" if weighting == "robust" else "")
-        + f", primary beam {pb_txt}, Hogbom CLEAN gain {gain:g} niter {niter} threshold "
+        + f", primary beam {array.describe_primary_beam()}, Hogbom CLEAN gain {gain:g} niter {niter} threshold "
         + ",".join(f"{t:.4g}" for t in thresholds) + " Jy/beam, iterations "
-        + ",".join(str(k) for k in n_iter) + f", w-term phase at corners <= {w_phase.max():.3g} rad")
+        + ",".join(str(k) for k in n_iter) + f", w-term phase at corners <= {max(p.w_phase for p in planes):.3g} rad")
     las_txt = ("0.6 lambda / B_min (common practice): "
-               + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu))
-               + f" (B_min = {b_min:.6g} m projected)")
+               + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu, strict=True))
+               + f" (B_min = {obs.b_min:.6g} m projected)")
     beam_txt = ("clean beam fitted to the dirty beam: "
-                + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu)))
+                + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu, strict=True)))
     provenance = dict(result.provenance, beam=beam_txt, noise="none", interferometer=interferometer_txt,
-                      largest_angular_scale=las_txt, synthesized_grid=grid.how)
+                      largest_angular_scale=las_txt, synthesized_grid=obs.grid.how)
+    uvw_full = np.concatenate([obs.uvw_half, -obs.uvw_half]) * u.m
+    def stack(name):
+        return np.array([getattr(p, name) for p in planes])
 
-    uvw_full = np.concatenate([uvw_half, -uvw_half]) * u.m
     return SynthesizedMap(
-        restored, beams, result, provenance, background=convention,
-        dirty_image=dirty_all, dirty_beam=psf_all, residual=resid_all, clean_components=comps_all,
-        primary_beam=pb_all, uvw=uvw_full, visibilities=vis_all, weights=wt_all,
-        hour_angles=(ha * u.rad).to(u.hourangle), baselines=pairs, antennas=pos * u.m,
-        latitude=(math.degrees(lat) * u.deg), declination=(math.degrees(dec) * u.deg),
-        largest_angular_scale=las_q, shortest_baseline=b_min * u.m, longest_baseline=b_max * u.m,
+        stack("restored"), beams, result, provenance, background=convention,
+        dirty_image=stack("dirty"), dirty_beam=stack("psf"), residual=stack("residual"),
+        clean_components=stack("components"),
+        primary_beam=None if array.diameter is None else stack("primary_beam"), uvw=uvw_full,
+        visibilities=stack("visibilities"), weights=stack("weights"),
+        hour_angles=(ha * u.rad).to(u.hourangle), baselines=obs.pairs, antennas=array.pos * u.m,
+        latitude=(math.degrees(array.lat) * u.deg), declination=(math.degrees(obs.dec) * u.deg),
+        largest_angular_scale=las_q, shortest_baseline=obs.b_min * u.m, longest_baseline=obs.b_max * u.m,
         clean_iterations=n_iter, clean_thresholds=thresholds, weighting=weighting,
-        robust=robust if weighting == "robust" else None, pixel_scale=pix_q)
+        robust=robust if weighting == "robust" else None, pixel_scale=obs.grid.pixel_scale)
 
 
 class SynthesizedMap(SkyMap):
@@ -476,14 +550,17 @@ class SynthesizedMap(SkyMap):
 
     @property
     def dirty_image(self):
+        """Dirty image ``(nfreq, ny, nx)``, Jy per dirty beam."""
         return u.Quantity(self._dirty, JY_PER_BEAM, copy=False)
 
     @property
     def residual(self):
+        """What CLEAN left ``(nfreq, ny, nx)``, Jy per dirty beam."""
         return u.Quantity(self._residual, JY_PER_BEAM, copy=False)
 
     @property
     def clean_components(self):
+        """CLEAN components ``(nfreq, ny, nx)``, Jy/pixel."""
         return u.Quantity(self._components, u.Jy / u.pix, copy=False)
 
     def _wavelengths(self, k):
@@ -492,14 +569,17 @@ class SynthesizedMap(SkyMap):
 
     @property
     def u(self):
+        """``u`` of every sample in wavelengths at each frequency, ``(nfreq, nvis)``."""
         return self._wavelengths(0)
 
     @property
     def v(self):
+        """``v`` of every sample in wavelengths at each frequency, ``(nfreq, nvis)``."""
         return self._wavelengths(1)
 
     @property
     def w(self):
+        """``w`` of every sample in wavelengths at each frequency, ``(nfreq, nvis)``."""
         return self._wavelengths(2)
 
     def write_fits(self, path, image="restored", spectral_axis="auto"):

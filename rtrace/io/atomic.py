@@ -47,7 +47,7 @@ def _fsync_directory(directory):
 
 @contextlib.contextmanager
 def atomic_path(path):
-    """Context manager giving a temporary path that replaces ``path`` on success.
+    r"""Context manager giving a temporary path that replaces ``path`` on success.
 
     The temporary file lies in the same directory as ``path`` (so the final
     :func:`os.replace` is an atomic rename on one file system), has a hidden
@@ -91,7 +91,7 @@ def atomic_path(path):
     Examples
     --------
     >>> with atomic_path("table.csv") as tmp:          # doctest: +SKIP
-    ...     tmp.write_text("a,b\\n1,2\\n")
+    ...     tmp.write_text("a,b\n1,2\n")
     """
     target = Path(os.fspath(path))
     directory = target.parent

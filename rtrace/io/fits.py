@@ -88,7 +88,8 @@ from ..transfer.background import header_cards, resolve_convention
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
-           "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES", "AXIS_RTOL"]
+           "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES",
+           "AXIS_RTOL"]
 
 RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
@@ -226,7 +227,7 @@ def _frequency_text(nu_hz):
 
     def render():
         return [np.format_float_positional(v, precision=int(d), unique=False, fractional=False, trim="-")
-                for v, d in zip(ghz, digits)]
+                for v, d in zip(ghz, digits, strict=True)]
 
     text = render()
     while True:
@@ -473,10 +474,10 @@ def _announce_long_strings(header):
 
 
 def _add_provenance(hdr, provenance):
-    from .. import __version__
+    from .._version import __version__
 
     hdr["ORIGIN"] = ("rtrace", "software that wrote this file")
-    hdr["DATE"] = (datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S"),
+    hdr["DATE"] = (datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%S"),
                    "UTC date the file was written")
     hdr["RTVERS"] = (__version__, "rtrace version")
     for key, value in (provenance or {}).items():
@@ -589,77 +590,19 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
     """
     path = os.fspath(path)
     _check_spectral_axis(spectral_axis)
-    if not isinstance(data, u.Quantity):
-        raise InputError("data: expected an astropy Quantity (the unit becomes BUNIT)")
-    nu = _frequencies_hz(frequencies)
-    if data.ndim == 2:
-        if nu is not None:
-            nu = nu[:1]
-            values = data.value[None]
-        else:
-            values = data.value
-    elif data.ndim == 3:
-        if nu is None:
-            raise InputError("frequencies: required for a 3D cube")
-        if data.shape[0] != nu.size:
-            raise InputError(f"frequencies: {nu.size} given for a cube of {data.shape[0]} planes")
-        values = data.value
-    else:
-        raise InputError(f"data: expected a (nfreq, ny, nx) cube or a (ny, nx) map, got shape {data.shape}")
-    if 0 in values.shape:
-        raise InputError(f"data: empty array of shape {data.shape}")
+    values, nu = _cube_values(data, _frequencies_hz(frequencies))
     nplanes = 1 if values.ndim == 2 else values.shape[0]
-
-    beam_values = None
-    if beams is not None:
-        seq = list(beams) if isinstance(beams, (list, tuple)) or _is_beams(beams) else [beams]
-        beam_values = [_beam_values(b, "beams") for b in seq]
-        if len(beam_values) == 1:
-            beam_values = beam_values * nplanes
-        if len(beam_values) != nplanes:
-            raise InputError(f"beams: {len(beam_values)} beams given for {nplanes} planes")
-    ref = None
-    if reference_beam is not None:
-        ref = _beam_values(reference_beam, "reference_beam")
-    elif beam_values is not None:
-        ref = max(beam_values, key=lambda b: b[0] * b[1])
-
+    beam_values, ref = _plane_beams(beams, reference_beam, nplanes)
     # checked before any file is written (and before the header work)
     _image_shape(values.shape[-2:])
     _pixel_scale_deg(pixel_scale)
     _icrs(sky_position)
-    directory = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(directory):
-        raise InputError(f"path: directory '{directory}' does not exist")
-    targets = output_paths(path, None if nu is None else nu * u.Hz, spectral_axis)
-    if not overwrite:
-        existing = [str(t) for t in targets if t.exists()]
-        if existing and len(targets) == 1:
-            raise InputError(f"path: '{path}' exists and overwrite=False")
-        if existing:
-            raise InputError(f"path: {len(existing)} of the {len(targets)} plane files exist and "
-                             f"overwrite=False ('{existing[0]}'{', ...' if len(existing) > 1 else ''})")
-    bunit = _bunit(data.unit)
-
-    def header_for(plane_nu, plane_ref):
-        hdr, tab = wcs_header(values.shape[-2:], pixel_scale, sky_position,
-                              None if plane_nu is None else plane_nu * u.Hz)
-        primary = fits.Header()
-        primary.extend(hdr, update=True)
-        if bunit is not None:
-            primary["BUNIT"] = (bunit, "unit of the data")
-        if quantity is not None:
-            primary["RTQUANT"] = (str(quantity), "rtrace quantity in the data")
-        if plane_ref is not None:
-            primary["BMAJ"] = (plane_ref[0], "[deg] beam major axis (FWHM)")
-            primary["BMIN"] = (plane_ref[1], "[deg] beam minor axis (FWHM)")
-            primary["BPA"] = (plane_ref[2], "[deg] beam position angle, north through east")
-        return primary, tab
+    targets = _writable_targets(path, nu, spectral_axis, overwrite)
+    cube = _CubeHeader(values.shape[-2:], pixel_scale, sky_position, _bunit(data.unit), quantity, provenance,
+                       background or [])
 
     if len(targets) == 1:
-        header, tab = header_for(nu, ref)
-        _add_provenance(header, provenance)
-        header.extend(background or [])
+        header, tab = cube.header(nu, ref)
         if tab is not None:
             # Readers that ignore -TAB would otherwise fail without a hint.
             header.add_comment("Irregular frequencies: FREQ-TAB, listed in extension WCS-TAB.")
@@ -674,15 +617,94 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
 
     # one file per plane: each a one-plane FREQ cube with its own beam
     for k, target in enumerate(targets):
-        header, _ = header_for(nu[k:k + 1], None if beam_values is None else beam_values[k])
-        header["RTPLANE"] = (k + 1, "plane number in the full frequency list")
-        header["RTNPLANE"] = (nplanes, "number of planes (one file each)")
-        _add_provenance(header, provenance)
-        header.extend(background or [])
+        header, _ = cube.header(nu[k:k + 1], None if beam_values is None else beam_values[k],
+                                plane=(k + 1, nplanes))
         header.add_comment(f"Plane {k + 1} of {nplanes}: the frequencies are neither evenly spaced nor")
         header.add_comment("geometric, so each plane is a file of its own (RTPLANE, RTNPLANE).")
         _write(target, [_primary(values[k:k + 1], header)])
     return targets
+
+
+def _cube_values(data, nu):
+    """``(values, nu)``: the data as a (nfreq, ny, nx) array (or (ny, nx) without frequencies), checked."""
+    if not isinstance(data, u.Quantity):
+        raise InputError("data: expected an astropy Quantity (the unit becomes BUNIT)")
+    if data.ndim == 2:
+        values = data.value if nu is None else data.value[None]
+        nu = None if nu is None else nu[:1]
+    elif data.ndim == 3:
+        if nu is None:
+            raise InputError("frequencies: required for a 3D cube")
+        if data.shape[0] != nu.size:
+            raise InputError(f"frequencies: {nu.size} given for a cube of {data.shape[0]} planes")
+        values = data.value
+    else:
+        raise InputError(f"data: expected a (nfreq, ny, nx) cube or a (ny, nx) map, got shape {data.shape}")
+    if 0 in values.shape:
+        raise InputError(f"data: empty array of shape {data.shape}")
+    return values, nu
+
+
+def _plane_beams(beams, reference_beam, nplanes):
+    """``(beam of each plane or None, reference beam or None)`` as (major, minor, pa) in degrees."""
+    beam_values = None
+    if beams is not None:
+        seq = list(beams) if isinstance(beams, (list, tuple)) or _is_beams(beams) else [beams]
+        beam_values = [_beam_values(b, "beams") for b in seq]
+        if len(beam_values) == 1:
+            beam_values = beam_values * nplanes
+        if len(beam_values) != nplanes:
+            raise InputError(f"beams: {len(beam_values)} beams given for {nplanes} planes")
+    if reference_beam is not None:
+        return beam_values, _beam_values(reference_beam, "reference_beam")
+    if beam_values is not None:
+        return beam_values, max(beam_values, key=lambda b: b[0] * b[1])
+    return None, None
+
+
+def _writable_targets(path, nu, spectral_axis, overwrite):
+    """The files :func:`write_cube` will write; InputError if their folder is missing or they exist unwanted."""
+    directory = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(directory):
+        raise InputError(f"path: directory '{directory}' does not exist")
+    targets = output_paths(path, None if nu is None else nu * u.Hz, spectral_axis)
+    if not overwrite:
+        existing = [str(t) for t in targets if t.exists()]
+        if existing and len(targets) == 1:
+            raise InputError(f"path: '{path}' exists and overwrite=False")
+        if existing:
+            raise InputError(f"path: {len(existing)} of the {len(targets)} plane files exist and "
+                             f"overwrite=False ('{existing[0]}'{', ...' if len(existing) > 1 else ''})")
+    return targets
+
+
+class _CubeHeader:
+    """The header cards every file of one :func:`write_cube` call shares, and a plane's header from them."""
+
+    def __init__(self, image_shape, pixel_scale, sky_position, bunit, quantity, provenance, background):
+        self.image_shape, self.pixel_scale, self.sky_position = image_shape, pixel_scale, sky_position
+        self.bunit, self.quantity, self.provenance, self.background = bunit, quantity, provenance, background
+
+    def header(self, nu, beam, plane=None):
+        """``(primary header, WCS-TAB extension or None)`` for frequencies ``nu`` (Hz) and ``beam`` (deg)."""
+        hdr, tab = wcs_header(self.image_shape, self.pixel_scale, self.sky_position,
+                              None if nu is None else nu * u.Hz)
+        primary = fits.Header()
+        primary.extend(hdr, update=True)
+        if self.bunit is not None:
+            primary["BUNIT"] = (self.bunit, "unit of the data")
+        if self.quantity is not None:
+            primary["RTQUANT"] = (str(self.quantity), "rtrace quantity in the data")
+        if beam is not None:
+            primary["BMAJ"] = (beam[0], "[deg] beam major axis (FWHM)")
+            primary["BMIN"] = (beam[1], "[deg] beam minor axis (FWHM)")
+            primary["BPA"] = (beam[2], "[deg] beam position angle, north through east")
+        if plane is not None:
+            primary["RTPLANE"] = (plane[0], "plane number in the full frequency list")
+            primary["RTNPLANE"] = (plane[1], "number of planes (one file each)")
+        _add_provenance(primary, self.provenance)
+        primary.extend(self.background)
+        return primary, tab
 
 
 def _primary(values, header):

@@ -112,7 +112,7 @@ def _subvolume(subvolume, shape):
     if len(items) != 3:
         raise InputError(f"subvolume: expected three (start, stop) pairs or slices, got {len(items)}")
     slices, starts = [], []
-    for axis, (item, n) in enumerate(zip(items, shape)):
+    for axis, (item, n) in enumerate(zip(items, shape, strict=True)):
         if isinstance(item, slice):
             if item.step not in (None, 1):
                 raise InputError(f"subvolume: axis {axis} slice has step {item.step}; only "

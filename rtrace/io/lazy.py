@@ -37,8 +37,16 @@ from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
 from ..snapshot import Snapshot, _vector3, combined_checksum
-from .hdf5 import (_FIELD_UNITS, _FRACTION_UNIT, MODEL_FIELD, checked_names, file_geometry, open_fields,
-                   open_file, wanted_fields)
+from .hdf5 import (
+    _FIELD_UNITS,
+    _FRACTION_UNIT,
+    MODEL_FIELD,
+    checked_names,
+    file_geometry,
+    open_fields,
+    open_file,
+    wanted_fields,
+)
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
 
@@ -88,11 +96,11 @@ def pieces(lo, hi, max_cells):
 
 
 def _slices(lo, hi):
-    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
+    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi, strict=True))
 
 
 def _box_text(lo, hi):
-    return "[" + ", ".join(f"{int(a)}:{int(b)}" for a, b in zip(lo, hi)) + "]"
+    return "[" + ", ".join(f"{int(a)}:{int(b)}" for a, b in zip(lo, hi, strict=True)) + "]"
 
 
 class HDF5Source:
@@ -167,7 +175,7 @@ class HDF5Source:
         """Dataset ``param`` over the box, converted to ``dtype`` by HDF5 while reading (into ``out``)."""
         ds = handle[self.names[param]]
         if out is None:
-            out = np.empty(tuple(int(b - a) for a, b in zip(lo, hi)), dtype)
+            out = np.empty(tuple(int(b - a) for a, b in zip(lo, hi, strict=True)), dtype)
         if out.size:
             # same conversion as read_hdf5's ds.astype(dtype)[...]: HDF5 converts on read
             ds.read_direct(out, source_sel=_slices(lo, hi))
@@ -233,7 +241,7 @@ class HDF5Source:
             If the file is gone, or a value is out of range (the file was
             validated at open, so it changed since).
         """
-        shape = tuple(int(b - a) for a, b in zip(lo, hi))
+        shape = tuple(int(b - a) for a, b in zip(lo, hi, strict=True))
         params = ["electron_density" if name == "ion_density" and self.shares_ion_term else name
                   for name in which]
         distinct = list(dict.fromkeys(params))
@@ -257,9 +265,9 @@ class HDF5Source:
                     glo, ghi = np.asarray(lo) + plo, np.asarray(lo) + phi
                     t_e, ne, ni = evaluate_piece(self.model, *self.gas(handle, glo, ghi))
                     values = {"electron_density": ne, "ion_density": ni, "temperature": t_e}
-                    for arr, name in zip(out, which):
+                    for arr, name in zip(out, which, strict=True):
                         arr[_slices(plo, phi)] = values[name]
-        for arr, name in zip(out, which):
+        for arr, name in zip(out, which, strict=True):
             self._recheck(name, arr, lo, hi)
         return tuple(out)
 
@@ -454,7 +462,7 @@ def _evaluate_gas(source, handle, digests, ranges):
     hot = 0
     for plo, phi in pieces(zero, shape, _PIECE_CELLS):
         values = evaluate_piece(source.model, *source.gas(handle, plo, phi), summary=summary)
-        for param, value in zip(names, values):
+        for param, value in zip(names, values, strict=True):
             stored = np.ascontiguousarray(value, source.dtype)
             tallies[param].add(stored)
             digests[param].update(memoryview(stored).cast("B"))

@@ -283,7 +283,7 @@ class Manifest:
 
     def save(self):
         """Write the manifest atomically (a crash leaves the previous version intact)."""
-        from .. import __version__
+        from .._version import __version__
         data = {"format": _FORMAT, "version": _VERSION, "rtrace": __version__,
                 "outputs": self.outputs, "ranges": self.ranges}
         self.directory.mkdir(parents=True, exist_ok=True)

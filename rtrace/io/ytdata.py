@@ -216,7 +216,7 @@ def _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_tex
         all_inputs.append(_inputs(g, keys))
     _validate(all_inputs, f"{len(grids)} grids of {ds}")
     out, derived = [], {}
-    for g, (lev, lo, hi, label), inputs in zip(grids, boxes, all_inputs):
+    for g, (lev, lo, hi, label), inputs in zip(grids, boxes, all_inputs, strict=True):
         dims = np.asarray(g.ActiveDimensions, np.int64)
         edge = np.asarray(g.LeftEdge.to("cm").d, float)
         size = np.asarray((g.RightEdge - g.LeftEdge).to("cm").d, float) / dims

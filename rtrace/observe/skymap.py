@@ -8,8 +8,14 @@ from ..memory import check_memory, format_bytes, observe_bytes
 from ..quantities import finite_number, positive_scalar
 from ..transfer.background import brightness_temperature_cgs, check_convention, resolve_convention
 from ..transfer.result import Result
-from .beam import (BeamKernel, beams_for_frequencies, check_beam_fits_field, describe_beam, kernel_geometry,
-                   validate_beam)
+from .beam import (
+    BeamKernel,
+    beams_for_frequencies,
+    check_beam_fits_field,
+    describe_beam,
+    kernel_geometry,
+    validate_beam,
+)
 from .edges import warn_if_emission_at_edge
 from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_frequency
 
@@ -141,8 +147,9 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
 
 def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=False, max_memory=None,
                       beam_field="beam", image_field="result", image="image"):
-    """Refuse, before any kernel or image is made, a beam wider than the image or an observation that
-    does not fit in memory.
+    """Refuse a beam wider than the image or an observation that does not fit in memory.
+
+    Checked before any kernel or image is made.
 
     Parameters
     ----------
@@ -265,35 +272,43 @@ class SkyMap:
 
     @property
     def background_subtracted(self):
+        """True when ``data`` and ``model`` have the background subtracted."""
         return self.background == "subtracted"
 
     @property
     def background_per_beam(self):
+        """The Result's background intensity times each beam's solid angle, Jy/beam ``(nfreq,)``."""
         return u.Quantity(self._bg_jyb, JY_PER_BEAM)
 
     # -- geometry, taken from the Result ---------------------------------------------------------
     @property
     def frequencies(self):
+        """Frequencies of the planes (those of the Result)."""
         return self.result.frequencies
 
     @property
     def pixel_scale(self):
+        """Angular side of a square pixel (that of the Result)."""
         return self.result.pixel_scale
 
     @property
     def pixel_size(self):
+        """Physical side of a pixel at the source (that of the Result)."""
         return self.result.pixel_size
 
     @property
     def distance(self):
+        """Distance to the source (that of the Result's view)."""
         return self.result.view.distance
 
     @property
     def sky_position(self):
+        """Sky coordinates of the image centre (those of the Result)."""
         return self.result.sky_position
 
     @property
     def shape(self):
+        """``(nfreq, ny, nx)``."""
         return self._data.shape
 
     # -- images --------------------------------------------------------------------------------
@@ -309,10 +324,12 @@ class SkyMap:
 
     @property
     def noise_rms(self):
+        """Requested noise rms per frequency, Jy/beam; None without noise."""
         return None if self._rms is None else u.Quantity(self._rms, JY_PER_BEAM)
 
     @property
     def beam_solid_angle(self):
+        """Solid angle of each frequency's beam, ``pi bmaj bmin / (4 ln 2)`` (sr)."""
         return u.Quantity(self._beam_sr, u.sr)
 
     @property
@@ -394,7 +411,7 @@ class SkyMap:
             # Kelvin per Jy/beam at each frequency, straight from astropy's equivalency
             k_per_jyb = np.array([(1.0 * JY_PER_BEAM).to_value(
                 u.K, equivalencies=u.brightness_temperature(f * u.Hz, beam_area=sr * u.sr))
-                for f, sr in zip(nu, self._beam_sr)])
+                for f, sr in zip(nu, self._beam_sr, strict=True)])
             return u.Quantity(img * k_per_jyb[:, None, None], u.K)
         if kind == "planck":
             delta = self._image(noiseless) * (_JY_CGS / self._beam_sr[:, None, None])

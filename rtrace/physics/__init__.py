@@ -4,7 +4,7 @@ Public functions take astropy Quantities; the ``*_cgs`` variants and the numba
 cores take plain float arrays in cgs units.
 """
 
-from .freefree import absorption_coefficient, emission_coefficient, RELATIVISTIC_TEMPERATURE
+from .freefree import RELATIVISTIC_TEMPERATURE, absorption_coefficient, emission_coefficient
 from .gaunt import gaunt_factor
 from .planck import planck
 

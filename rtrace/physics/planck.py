@@ -12,7 +12,7 @@ import astropy.units as u
 import numba
 import numpy as np
 
-from .constants import C, H, H_OVER_K
+from .constants import H_OVER_K, C, H
 
 __all__ = ["planck", "planck_cgs", "planck_scalar", "inverse_planck_cgs", "one_minus_exp",
            "one_minus_exp_series", "inverse_expm1",

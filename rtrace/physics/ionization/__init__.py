@@ -1,9 +1,9 @@
-"""Ionization state of the gas: electron density and the free-free ion term.
+r"""Ionization state of the gas: electron density and the free-free ion term.
 
 Thermal free-free (bremsstrahlung) emission and absorption scale with the
 product of the electron density and the charge-weighted ion density,
 
-.. math:: n_e \\sum_i Z_i^2 n_i ,
+.. math:: n_e \sum_i Z_i^2 n_i ,
 
 so these models turn a hydrodynamics snapshot's mass density ``rho``
 (g cm^-3) and temperature ``T`` (K) into the number densities of H I,

@@ -61,6 +61,8 @@ class IonizationModel(abc.ABC):
 
     def validate_fields(self, fields):
         """Check the model's per-cell fields over the whole grid (before any evaluation); InputError if bad."""
+        # a hook, not abstract: models that read no per-cell fields of their own have nothing to check
+        return None
 
     # -- public evaluation ----------------------------------------------------------------------
     def species_densities(self, rho, T, fields=None):

@@ -1,10 +1,10 @@
-"""Collisional ionization equilibrium of hydrogen and helium: shock-heated and hot gas.
+r"""Collisional ionization equilibrium of hydrogen and helium: shock-heated and hot gas.
 
 In a low-density plasma with no ionizing radiation every ionization is by
 electron impact and every recombination is radiative (or dielectronic), both
 proportional to ``n_e``; the balance of stage ``r`` against ``r+1``,
 
-.. math:: n_{r+1} / n_r = C_r(T) / \\alpha_{r+1}(T),
+.. math:: n_{r+1} / n_r = C_r(T) / \alpha_{r+1}(T),
 
 therefore does not depend on the density (the coronal approximation). The
 rates are those of :mod:`rtrace.physics.ionization.rates`, evaluated
@@ -60,8 +60,10 @@ class CollisionalEquilibrium(IonizationModel):
         self.case = check_choice(case, CASES, "case", "CollisionalEquilibrium")
 
     def fractions(self, T):
-        """``(x_H, y_HeI, y_HeII, y_HeIII)`` at temperatures ``T`` (K, finite, >= 0); see
-        :func:`~rtrace.physics.ionization.tables.collisional_fractions`."""
+        """``(x_H, y_HeI, y_HeII, y_HeIII)`` at temperatures ``T`` (K, finite, >= 0).
+
+        See :func:`~rtrace.physics.ionization.tables.collisional_fractions`.
+        """
         T = as_float_array(T, u.K, "T", equivalencies=u.temperature())
         check_finite_nonnegative(T, "T", "K")
         return collisional_fractions(T, self.case)
@@ -75,5 +77,6 @@ class CollisionalEquilibrium(IonizationModel):
                 "n_HeI": y1 * n_he, "n_HeII": y2 * n_he, "n_HeIII": y3 * n_he}
 
     def describe(self) -> str:
+        """One-line description for provenance headers: case, rate sources and composition."""
         return (f"collisional(case {self.case}; ionization Voronov 1997, recombination Hui & Gnedin 1997 + "
                 f"dielectronic Aldrovandi & Pequignot 1973; {self.composition.describe()})")

@@ -21,8 +21,10 @@ PIECE_CELLS = 1 << 19
 
 
 def slabs(shape, max_cells=PIECE_CELLS):
-    """Boxes ``(lo, hi)`` of whole ``[i0:i1, :, :]`` slabs covering the grid, each of at most ``max_cells`` cells
-    (one plane if a plane alone is larger)."""
+    """Boxes ``(lo, hi)`` of whole ``[i0:i1, :, :]`` slabs covering the grid.
+
+    Each holds at most ``max_cells`` cells (one plane if a plane alone is larger).
+    """
     plane = int(shape[1]) * int(shape[2])
     step = max(1, max_cells // max(plane, 1))
     for i in range(0, int(shape[0]), step):
@@ -31,7 +33,7 @@ def slabs(shape, max_cells=PIECE_CELLS):
 
 def box_slices(lo, hi):
     """The slices of the box ``lo <= (i, j, k) < hi``."""
-    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
+    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi, strict=True))
 
 
 class ArrayInputs:
@@ -70,6 +72,7 @@ class ArrayInputs:
         self.thermal = next(k for k in THERMAL_INPUTS if k in inputs)
 
     def read(self, lo, hi):
+        """``(inputs, fields)`` over the box ``lo <= index < hi`` (per-cell arrays sliced, scalars kept)."""
         box = box_slices(lo, hi)
         inputs = {k: (v[box] if np.ndim(v) == 3 else v) for k, v in self.inputs.items()}
         return inputs, {k: v[box] for k, v in self.fields.items()}
@@ -106,7 +109,7 @@ def evaluate_grid(model, grid, dtype, max_cells=PIECE_CELLS):
         box = box_slices(lo, hi)
         if photo is not None:
             fields["<photo>"] = photo[box]
-        for arr, value in zip(out, evaluate_piece(model, inputs, fields, summary)):
+        for arr, value in zip(out, evaluate_piece(model, inputs, fields, summary), strict=True):
             arr[box] = value
     model.warn_range()
     provenance = {"ionization": model.describe(), "ionization_state": summary.describe(), **extra}

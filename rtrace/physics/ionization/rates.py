@@ -52,29 +52,29 @@ _T_HEII = 631515.0
 
 
 def _ln_voronov(T, row):
-    """ln C for one Voronov (1997) row: C = A (1 + P U^1/2) U^K exp(-U) / (X + U)."""
+    """Ln C for one Voronov (1997) row: C = A (1 + P U^1/2) U^K exp(-U) / (X + U)."""
     delta_e, p, a, x, k = _VORONOV[row]
     uu = delta_e * _EV_OVER_K / T
     return np.log(a) + np.log1p(p * np.sqrt(uu)) + k * np.log(uu) - uu - np.log(x + uu)
 
 
 def ln_ionization_h(T):
-    """ln of the collisional ionization rate coefficient of H I [cm^3 s^-1] (Voronov 1997)."""
+    """Ln of the collisional ionization rate coefficient of H I [cm^3 s^-1] (Voronov 1997)."""
     return _ln_voronov(T, "H")
 
 
 def ln_ionization_he1(T):
-    """ln of the collisional ionization rate coefficient of He I [cm^3 s^-1] (Voronov 1997)."""
+    """Ln of the collisional ionization rate coefficient of He I [cm^3 s^-1] (Voronov 1997)."""
     return _ln_voronov(T, "He1")
 
 
 def ln_ionization_he2(T):
-    """ln of the collisional ionization rate coefficient of He II [cm^3 s^-1] (Voronov 1997)."""
+    """Ln of the collisional ionization rate coefficient of He II [cm^3 s^-1] (Voronov 1997)."""
     return _ln_voronov(T, "He2")
 
 
 def _ln_hydrogenic(lam, case):
-    """ln of the Hui & Gnedin (1997) hydrogenic radiative recombination fit at ``lam = 2 T_thr / T``.
+    """Ln of the Hui & Gnedin (1997) hydrogenic radiative recombination fit at ``lam = 2 T_thr / T``.
 
     Case A: ``1.269e-13 lam^1.503 / [1 + (lam/0.522)^0.470]^1.923``;
     case B: ``2.753e-14 lam^1.500 / [1 + (lam/2.740)^0.407]^2.242`` (cm^3 s^-1).
@@ -89,12 +89,12 @@ def _ln_hydrogenic(lam, case):
 
 
 def ln_recombination_h(T, case="A"):
-    """ln of the radiative recombination coefficient of H II [cm^3 s^-1] (Hui & Gnedin 1997)."""
+    """Ln of the radiative recombination coefficient of H II [cm^3 s^-1] (Hui & Gnedin 1997)."""
     return _ln_hydrogenic(2.0 * _T_HI / T, case)
 
 
 def ln_recombination_he3(T, case="A"):
-    """ln of the radiative recombination coefficient of He III -> He II [cm^3 s^-1].
+    """Ln of the radiative recombination coefficient of He III -> He II [cm^3 s^-1].
 
     Hydrogenic: Hui & Gnedin (1997) give it as twice the H II fit evaluated at
     ``lam = 2 T_HeII / T`` (the Z alpha(T / Z^2) scaling of hydrogenic ions, Z = 2).
@@ -103,7 +103,7 @@ def ln_recombination_he3(T, case="A"):
 
 
 def ln_recombination_he2(T, case="A"):
-    """ln of the radiative recombination coefficient of He II -> He I [cm^3 s^-1] (Hui & Gnedin 1997).
+    """Ln of the radiative recombination coefficient of He II -> He I [cm^3 s^-1] (Hui & Gnedin 1997).
 
     Case A ``3.0e-14 lam^0.654``, case B ``1.26e-14 lam^0.750``, ``lam = 2 T_HeI / T``.
     """
@@ -112,7 +112,7 @@ def ln_recombination_he2(T, case="A"):
 
 
 def ln_dielectronic_he2(T):
-    """ln of the dielectronic recombination coefficient of He II -> He I [cm^3 s^-1].
+    """Ln of the dielectronic recombination coefficient of He II -> He I [cm^3 s^-1].
 
     Aldrovandi & Péquignot (1973): ``1.9e-3 T^-3/2 exp(-4.7e5/T) (1 + 0.3 exp(-9.4e4/T))``
     (coefficients from memory). It dominates He II recombination above ~6e4 K.

@@ -58,13 +58,13 @@ def mcwhirter_density(T):
 
 
 class SahaEquilibrium(IonizationModel):
-    """Local thermodynamic (Saha) equilibrium for hydrogen and helium.
+    r"""Local thermodynamic (Saha) equilibrium for hydrogen and helium.
 
     For each stage ``r -> r+1`` (H I->H II, He I->He II, He II->He III)
 
     .. math::
-        \\frac{n_{r+1} n_e}{n_r} = S_r(T) = \\frac{2 g_{r+1}}{g_r}
-        \\left(\\frac{2\\pi m_e k T}{h^2}\\right)^{3/2} e^{-\\chi_r / kT},
+        \frac{n_{r+1} n_e}{n_r} = S_r(T) = \frac{2 g_{r+1}}{g_r}
+        \left(\frac{2\pi m_e k T}{h^2}\right)^{3/2} e^{-\chi_r / kT},
 
     with ground-state weights g(H I)=2, g(H II)=1, g(He I)=1, g(He II)=2,
     g(He III)=1 and ionization energies 13.598434, 24.587389 and
@@ -135,7 +135,7 @@ class SahaEquilibrium(IonizationModel):
 
     @staticmethod
     def _log_charge_supply(uu, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2):
-        """ln g(u), d ln g / du and the pieces needed for species fractions.
+        """Ln g(u), d ln g / du and the pieces needed for species fractions.
 
         ``g(n_e) = n_H x_H(n_e) + n_He zbar(n_e)``: electrons released by the
         ions when the electron density is ``n_e = exp(u)``.
@@ -249,4 +249,5 @@ class SahaEquilibrium(IonizationModel):
 
 
     def describe(self) -> str:
+        """One-line description for provenance headers."""
         return f"saha({self.composition.describe()})"

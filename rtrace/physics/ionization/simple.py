@@ -72,6 +72,7 @@ class FullyIonized(IonizationModel):
         return hydrogen_helium_species(self.composition, rho, 1.0, 1.0, self.helium)
 
     def describe(self) -> str:
+        """One-line description for provenance headers."""
         return f"full({self.composition.describe()}, He={self.helium})"
 
 
@@ -102,5 +103,6 @@ class TemperatureThreshold(FullyIonized):
         return hydrogen_helium_species(self.composition, rho, hot, hot, self.helium)
 
     def describe(self) -> str:
+        """One-line description for provenance headers."""
         return (f"threshold(T>={self.threshold:g} K, {self.composition.describe()}, "
                 f"He={self.helium})")

@@ -1,4 +1,4 @@
-"""Photoionization by point sources (stars) in a snapshot that did not follow their radiation.
+r"""Photoionization by point sources (stars) in a snapshot that did not follow their radiation.
 
 Static photoionization equilibrium in the on-the-spot approximation
 (Osterbrock & Ferland 2006, sec. 2.3): each star emits ``Q`` hydrogen-
@@ -9,7 +9,7 @@ direction the ionized gas therefore extends until the recombinations in the
 cone behind it use up the photons sent that way, which for uniform gas is
 the Strömgren (1939) sphere,
 
-.. math:: Q = \\frac{4\\pi}{3} R_S^3 \\, n_e n_{H^+} \\alpha_B(T).
+.. math:: Q = \frac{4\pi}{3} R_S^3 \, n_e n_{H^+} \alpha_B(T).
 
 The rays, their adaptive splitting and the photon-conserving front are
 those of :mod:`rtrace.physics.ionization.raycast`. Dense clumps use up the
@@ -159,6 +159,7 @@ class IonizingSources(IonizationModel):
     float32 cubes, and per thread one float32 array over that ball.
     """
 
+    #: False: a cell's state depends on the whole grid (the photons reach it through other cells).
     local = False
 
     def __init__(self, positions, rates, composition: Composition | None = None, ionized_temperature=None,
@@ -201,12 +202,13 @@ class IonizingSources(IonizationModel):
 
     # -- description ----------------------------------------------------------------------------
     def describe_sources(self):
-        """``"(x, y, z) pc Q=... s-1; ..."`` for every source."""
+        """Every source as ``(x, y, z) pc Q=<rate> s-1``, separated by semicolons."""
         pc = u.pc.to(u.cm)
         return "; ".join(f"({x / pc:.4g}, {y / pc:.4g}, {z / pc:.4g}) pc Q={q:.4g} s-1"
-                         for (x, y, z), q in zip(self.positions, self.rates))
+                         for (x, y, z), q in zip(self.positions, self.rates, strict=True))
 
     def describe(self) -> str:
+        """One-line description for provenance headers: sources, photon budget, temperature and helium."""
         t_ion = "snapshot T" if self.ionized_temperature is None else f"{self.ionized_temperature:g} K"
         return (f"sources({len(self.rates)} source(s), Q total {self.rates.sum():.4g} s-1; on-the-spot case B "
                 f"alpha_B Hui & Gnedin 1997; photoionized T_e {t_ion}; He={self.helium}; plus collisional "
@@ -402,6 +404,7 @@ class IonizingSources(IonizationModel):
         return T
 
     def electron_temperature(self, T, species, fields):
+        """Electron temperature [K]: at least ``ionized_temperature`` where photoionization dominates, else ``T``."""
         if self.ionized_temperature is None:
             return T
         return np.where(species["photo_dominated"], np.maximum(T, self.ionized_temperature), T)

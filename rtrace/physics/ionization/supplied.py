@@ -116,9 +116,11 @@ class SuppliedFraction(IonizationModel):
         return self._arrays.get("<fraction>")
 
     def field_names(self):
+        """Names of the snapshot fields the fractions are read from (none for in-memory arrays)."""
         return tuple(key for key in self._sources.values() if not key.startswith("<"))
 
     def cell_arrays(self):
+        """The fraction arrays given in memory, under their internal keys."""
         return dict(self._arrays)
 
     def _read(self, fields, name, shape):
@@ -149,6 +151,11 @@ class SuppliedFraction(IonizationModel):
         return int(np.count_nonzero(total > 1.0 + _SUM_TOLERANCE)), float(np.max(total))
 
     def validate_fields(self, fields):
+        """Check the supplied fractions over the whole grid; InputError if bad.
+
+        Every named field must be present, a fraction read from a field must be
+        finite and within [0, 1], and He II + He III must not exceed 1 (beyond rounding).
+        """
         arrays = {}
         for name, key in self._sources.items():
             if key not in fields:
@@ -188,6 +195,7 @@ class SuppliedFraction(IonizationModel):
         return f"array(shape={arr.shape})"
 
     def describe(self) -> str:
+        """One-line description for provenance headers: where each fraction comes from, and the composition."""
         text = f"supplied(H II {self._source_text('fraction')}"
         if self.helium == "supplied":
             for name, label in (("helium_ii", "He II"), ("helium_iii", "He III")):

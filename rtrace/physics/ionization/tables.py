@@ -17,8 +17,15 @@ import functools
 import numba
 import numpy as np
 
-from .rates import (ln_dielectronic_he2, ln_ionization_h, ln_ionization_he1, ln_ionization_he2,
-                    ln_recombination_h, ln_recombination_he2, ln_recombination_he3)
+from .rates import (
+    ln_dielectronic_he2,
+    ln_ionization_h,
+    ln_ionization_he1,
+    ln_ionization_he2,
+    ln_recombination_h,
+    ln_recombination_he2,
+    ln_recombination_he3,
+)
 
 __all__ = ["collisional_fractions", "case_b_coefficient", "fill_demand", "collisional_table", "case_b_table",
            "interpolate", "LN_T_MIN", "LN_T_STEP"]
@@ -33,7 +40,7 @@ def _ln_t_grid():
     return LN_T_MIN + LN_T_STEP * np.arange(_POINTS)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def collisional_table(case):
     """``(points, 3)`` table of ``ln r_H``, ``ln r_HeI->II``, ``ln r_HeII->III`` against ``ln T`` (read-only)."""
     T = np.exp(_ln_t_grid())
@@ -45,7 +52,7 @@ def collisional_table(case):
     return table
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def case_b_table():
     """``(points, 1)`` table of ``ln alpha_B`` of H II [cm^3 s^-1] against ``ln T`` (read-only)."""
     table = ln_recombination_h(np.exp(_ln_t_grid()), "B").reshape(-1, 1)
