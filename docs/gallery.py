@@ -24,11 +24,13 @@ GALLERY = ROOT / "docs" / "_gallery"
 EXAMPLES = [
     ("compact_core", None, [
         ("out/cut.png", "A cut through the compact core and its halo, with and without absorption."),
-        ("out/comparison.png", "The ring array's image (left) against the model and their difference: the array filters out the halo."),
+        ("out/comparison.png",
+         "The ring array's image (left) against the model and their difference: the array filters out the halo."),
     ]),
     ("ionized_jet", "jet.h5", [
         ("jet-output/inclined_45_intensity.png", "Intensity of the bipolar wind at 45 degrees."),
-        ("jet-output/inclined_45_observed.png", "The same, convolved with a beam whose width scales as 1/frequency (grey disk)."),
+        ("jet-output/inclined_45_observed.png",
+         "The same, convolved with a beam whose width scales as 1/frequency (grey disk)."),
         ("jet-output/inclined_45_spectral_index.png", "Spectral index map."),
         ("jet-output/pole_on_tau_unity_frequency.png", "Frequency at which the optical depth reaches 1, pole-on."),
         ("jet-output/edge_on_sed.png", "Spectrum of the whole source, edge-on."),
@@ -81,8 +83,9 @@ def main(argv=None):
     RUNS.mkdir(parents=True, exist_ok=True)
     shutil.rmtree(GALLERY, ignore_errors=True)
     GALLERY.mkdir(parents=True)
-    lines = ["# Gallery", "", "Pictures written by the examples (`examples/`), each an invented scenario; `make docs` runs",
-             "them first (`docs/gallery.py`). See each example's `run.py` and job file for how a picture was made.", ""]
+    lines = ["# Gallery", "",
+             "Pictures written by the examples (`examples/`), each an invented scenario; `make docs` runs them first",
+             "(`docs/gallery.py`). See each example's `run.py` and job file for how a picture was made.", ""]
     for name, snapshot, pictures in EXAMPLES:
         where = run_example(name, snapshot, args.reuse)
         lines += [f"## {name.replace('_', ' ')}", "", f"From `examples/{name}/`.", ""]

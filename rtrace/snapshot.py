@@ -349,7 +349,8 @@ class Snapshot(GridGeometry):
                  f"  ionization {self.provenance.get('ionization', '?')}"]
         lines += [f"  {label:<10} {self.provenance[key]}" for key, label in _PROVENANCE_LINES
                   if key in self.provenance]
-        for label, (lo, hi), unit in zip(("T_e", "n_e", "ion term"), self._field_ranges(), ("K", "cm-3", "cm-3")):
+        ranges = zip(("T_e", "n_e", "ion term"), self._field_ranges(), ("K", "cm-3", "cm-3"), strict=True)
+        for label, (lo, hi), unit in ranges:
             lines.append(f"  {label:<10} {lo:.4g} .. {hi:.4g} {unit}")
         return "\n".join(lines)
 

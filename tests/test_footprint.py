@@ -116,7 +116,7 @@ def test_kernel_in_a_coordinate_plane_with_oblique_north():
         fp = Footprint.from_route(_route(los, north, pix_cells, cell=cell)[2])
         (x0, x1), (y0, y1) = fp.support
         dx, dy = rng.uniform(x0, x1, 12), rng.uniform(y0, y1, 12)
-        ref = np.array([_brute_kernel(fp, a, b) for a, b in zip(dx, dy)])
+        ref = np.array([_brute_kernel(fp, a, b) for a, b in zip(dx, dy, strict=True)])
         assert np.max(np.abs(fp.exact(dx, dy) - ref)) <= 2e-6 * fp.kmax
         assert np.max(np.abs(fp(dx, dy) - ref)) <= limit * fp.kmax, pix_cells
         assert fp.accuracy <= limit, (pix_cells, fp.accuracy)
@@ -167,7 +167,7 @@ def test_kernel_against_brute_force(los, north):
         fp = Footprint.from_route(_route(los, north, pix_cells, cell=cell)[2])
         (x0, x1), (y0, y1) = fp.support
         # offsets spread over the support, plus the table's worst places: its kinks, where it changes most
-        offsets = list(zip(rng.uniform(x0, x1, 12), rng.uniform(y0, y1, 12)))
+        offsets = list(zip(rng.uniform(x0, x1, 12), rng.uniform(y0, y1, 12), strict=True))
         ref = np.array([_brute_kernel(fp, dx, dy) for dx, dy in offsets])
         dx, dy = np.array(offsets).T
         kmax = fp.kmax

@@ -3,8 +3,8 @@
 The single-frequency kernel evaluates whole rays in a branch-free loop when every cell is in the
 radio regime and optically thin, eight rays side by side, and redoes a ray cell by cell otherwise;
 the several-frequency kernel chooses the series or exact forms per cell. Both read the opacity
-factor from a table indexed by the temperature's bits (``rtrace.transfer.ttable``). Both paths are checked here against the
-formal solution for piecewise-constant cells, ``I <- I e^{-dtau} + B_nu (1 - e^{-dtau})``, with
+factor from a table indexed by the temperature's bits (``rtrace.transfer.ttable``). Both paths are checked here against
+the formal solution for piecewise-constant cells, ``I <- I e^{-dtau} + B_nu (1 - e^{-dtau})``, with
 alpha_nu from Rybicki & Lightman (1979) eq. 5.18b (``absorption_cgs``) and B_nu from Planck's law
 (``planck_cgs``), evaluated here in numpy cell by cell.
 """
@@ -86,7 +86,7 @@ def test_several_frequency_kernel_matches_direct_transfer(rng, forward):
         np.testing.assert_allclose(out_i[f], inten, rtol=1e-6, atol=0)
         np.testing.assert_allclose(out_em, em, rtol=1e-6, atol=0)
     # the single-frequency kernel agrees with the several-frequency one at each frequency
-    for f, nu in enumerate(nus):
+    for f in range(nus.size):
         one_i, one_tau, one_em = np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2]), np.zeros(ne.shape[:2])
         kernels.one_frequency_along_last_axis(ne, ne, temp, DS, forward, *FrequencyTables(nus[f:f + 1]).args(),
                                               one_i, one_tau, one_em)
@@ -112,7 +112,7 @@ def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus
     log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, _ = tables.args()
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     nn = ne * ni
-    share = np.array([kernels._helium3_share(a, b) for a, b in zip(ne, ni)])
+    share = np.array([kernels._helium3_share(a, b) for a, b in zip(ne, ni, strict=True)])
     x_row = (np.log(temp) - log_t0) * inv_dlog_t
     kap, src = np.full(n * nus.size, np.nan), np.full(n * nus.size, np.nan)
     kmax = kernels._row_coefficients(0, n - 1, nn, share, temp, x_row, gtab, gtab_t, hk, float(hk.max()),

@@ -101,11 +101,11 @@ def test_axis_kernels_agree_for_both_precisions(rng, forward):
             # single-frequency kernel, but only that cell by the others: the table's ~2e-7 apart
             np.testing.assert_allclose(one[0][0], last[0][f], rtol=1e-6, atol=0)
             np.testing.assert_allclose(one[1][0], last[1][f], rtol=1e-6, atol=0)
-        for a, b in zip(last, mid):
+        for a, b in zip(last, mid, strict=True):
             np.testing.assert_allclose(a, b, rtol=1e-12, atol=0)
         assert last[1][0, 1, 2] > 1.0               # the thick ray is thick at 1 GHz
         found[dtype] = last
-    for a, b in zip(found[np.float32], found[np.float64]):
+    for a, b in zip(found[np.float32], found[np.float64], strict=True):
         np.testing.assert_allclose(a, b, rtol=1e-5, atol=0)
 
 

@@ -111,7 +111,7 @@ def _reference(ne, alpha, source, los, north, npix, pix, nsub, chunk=60000):
 def _errors(res, ref_i, ref_em):
     """Largest relative error over pixels above FLOOR of the peak: per frequency, and of EM."""
     out = []
-    for got, ref in list(zip(res.intensity.value, ref_i)) + [(res._em, ref_em)]:
+    for got, ref in list(zip(res.intensity.value, ref_i, strict=True)) + [(res._em, ref_em)]:
         bright = ref >= FLOOR * ref.max()
         out.append(float(np.max(np.abs(got[bright] - ref[bright]) / ref[bright])))
     return out
@@ -138,7 +138,7 @@ def test_reference_converges_with_more_sub_rays(scene):
     los, north = DIRECTIONS[0]
     a_i, a_em = _reference(ne, alpha, source, los, north, 6, 4.0 * CELL, 64)
     b_i, b_em = _reference(ne, alpha, source, los, north, 6, 4.0 * CELL, 128)
-    for a, b in list(zip(a_i, b_i)) + [(a_em, b_em)]:
+    for a, b in list(zip(a_i, b_i, strict=True)) + [(a_em, b_em)]:
         bright = b >= FLOOR * b.max()
         assert np.max(np.abs(a - b)[bright] / b[bright]) < 5e-3
 
@@ -146,7 +146,7 @@ def test_reference_converges_with_more_sub_rays(scene):
 def test_reference_totals_match_the_volume_integral(scene, cases):
     # flux conservation: sum of pixel EM x pixel area = int n_e n_i dV over the grid (common practice)
     _, ne, *_ = scene
-    for view, pix_cells, ref_i, ref_em in cases:
+    for _view, pix_cells, _ref_i, ref_em in cases:
         total = ref_em.sum() * (pix_cells * CELL) ** 2
         assert total == pytest.approx(np.sum(ne * ne) * CELL**3, rel=1e-3)
 
@@ -283,7 +283,7 @@ def test_first_lattice_estimate_covers_each_pixel(scene, cases, monkeypatch):
 
     monkeypatch.setattr(oblique_split, "_failing", record)
     covered = 0
-    for view, pix_cells, ref_i, ref_em in cases:
+    for view, pix_cells, ref_i, _ref_em in cases:
         if pix_cells < 1.0:
             continue
         first.clear()
@@ -291,7 +291,7 @@ def test_first_lattice_estimate_covers_each_pixel(scene, cases, monkeypatch):
             warnings.simplefilter("ignore", PixelAccuracyWarning)
             rtrace.trace(scene[0], view, NU * u.Hz, tolerance=0.5)
         error, value = first[0]
-        for est, got, ref in zip(error, value, ref_i):
+        for est, got, ref in zip(error, value, ref_i, strict=True):
             bright = ref >= FLOOR * ref.max()
             measured = np.abs(got - ref)[bright]
             assert np.all(est[bright] >= measured - REF_ERROR * ref[bright]), (view.los, pix_cells)

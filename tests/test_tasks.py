@@ -129,8 +129,9 @@ def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout(nus):
     # trace_sheared runs its blocks of rows on threads (run_tasks): each block writes only its own rays, so one
     # thread and two give the same bits, and transposed views (one any-layout specialisation) give what their
     # contiguous copies give (the cells are gathered in tiles of 8 layers, prefetched ahead where c has unit
-    # stride: the copies, not the views); with He III cells (the ratio array), thick cells (1 GHz) and thin ones (30 GHz); one
-    # frequency without He III (hydrogen: no ratio array; its own row pass) gives what it gives beside another
+    # stride: the copies, not the views); with He III cells (the ratio array), thick cells (1 GHz) and thin ones
+    # (30 GHz); one frequency without He III (hydrogen: no ratio array; its own row pass) gives what it gives beside
+    # another
     from rtrace.transfer.tracer import FrequencyTables
     rng = np.random.default_rng(5)
     shape = (24, 40, 30)                                        # (c, a, b): transposed to (a, b, c) below
@@ -168,11 +169,11 @@ def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout(nus):
         # 30 GHz beside 100 GHz (more transparent, so the same cells take the series): the same images
         pair = sweep(copies, 1, (nus[0], 1.0e11))
         assert one[1].max() > 0.0 and np.all(pair[1][0] >= pair[1][1])
-        for a, b in zip(one[:2], pair[:2]):
+        for a, b in zip(one[:2], pair[:2], strict=True):
             np.testing.assert_allclose(a[0], b[0], rtol=1e-13, atol=0)
         assert np.array_equal(one[2], pair[2])
     for arrays, threads in ((copies, 2), (views, 1), (views, 2)):
-        for a, b in zip(one, sweep(arrays, threads)):
+        for a, b in zip(one, sweep(arrays, threads), strict=True):
             assert np.array_equal(a, b)
     sigs = kernels.trace_sheared.dispatcher.signatures
     assert all(a.layout == "A" for s in sigs for a in s if isinstance(a, numba.types.Array)), sigs

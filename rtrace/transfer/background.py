@@ -47,7 +47,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
-from ..physics.constants import C, K_B
+from ..physics.constants import K_B, C
 from ..physics.planck import inverse_planck_cgs, planck_cgs
 
 __all__ = ["CONVENTIONS", "DEFAULT_CONVENTION", "CMB_TEMPERATURE", "Background", "check_convention",
@@ -75,6 +75,7 @@ class Background:
     temperature : float or None
         Blackbody temperature in K (0 for "none", None for "intensity").
     """
+
     kind: str = "none"
     temperature: float = 0.0
 

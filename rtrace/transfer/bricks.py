@@ -64,7 +64,7 @@ class ArraySource:
 
     def read(self, lo, hi):
         """``(n_e, ion term, T_e)`` of cells ``lo <= index < hi``, C-contiguous."""
-        sl = tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
+        sl = tuple(slice(int(a), int(b)) for a, b in zip(lo, hi, strict=True))
         ne = np.ascontiguousarray(self.ne[sl])
         ni = ne if self.ni is self.ne else np.ascontiguousarray(self.ni[sl])
         return ne, ni, np.ascontiguousarray(self.t[sl])

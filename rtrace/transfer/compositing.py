@@ -61,11 +61,11 @@ class Patch:
     @property
     def stop(self):
         """One past the rectangle's last ray on each axis."""
-        return tuple(s + n for s, n in zip(self.start, self.seg.em.shape))
+        return tuple(s + n for s, n in zip(self.start, self.seg.em.shape, strict=True))
 
     def _slices(self, start):
         """Slices of this patch's rectangle within a rectangle that starts at ``start``."""
-        return tuple(slice(a - s, b - s) for a, b, s in zip(self.start, self.stop, start))
+        return tuple(slice(a - s, b - s) for a, b, s in zip(self.start, self.stop, start, strict=True))
 
 
 def composite_into(acc, start, patch):
@@ -91,9 +91,9 @@ def composite_patches(near, far):
         return far
     if far is None:
         return near
-    start = tuple(min(a, b) for a, b in zip(near.start, far.start))
-    stop = tuple(max(a, b) for a, b in zip(near.stop, far.stop))
-    shape = tuple(b - a for a, b in zip(start, stop))
+    start = tuple(min(a, b) for a, b in zip(near.start, far.start, strict=True))
+    stop = tuple(max(a, b) for a, b in zip(near.stop, far.stop, strict=True))
+    shape = tuple(b - a for a, b in zip(start, stop, strict=True))
     if start == near.start and stop == near.stop:
         acc = Segment(near.seg.intensity.copy(), near.seg.tau.copy(), near.seg.em.copy())
     else:

@@ -247,7 +247,7 @@ class Footprint:
         coarse, fine = [crit[:1]], [crit[:1]]
         ncoarse = 1
         blocks = []
-        for a, b in zip(crit[:-1], crit[1:]):
+        for a, b in zip(crit[:-1], crit[1:], strict=True):
             n = max(_MIN_PER_INTERVAL, int(math.ceil((b - a) / h)))
             coarse.append(a + (b - a) * np.arange(1, n + 1) / n)
             k = np.arange(1, n * _REFINE + 1)

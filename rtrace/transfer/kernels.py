@@ -98,7 +98,7 @@ def _prefetch(typingctx, arr, i, j, k):
     def codegen(context, builder, signature, args):
         aryty = signature.args[0]
         ary = context.make_array(aryty)(context, builder, args[0])
-        inds = [context.cast(builder, v, t, types.intp) for v, t in zip(args[1:], signature.args[1:])]
+        inds = [context.cast(builder, v, t, types.intp) for v, t in zip(args[1:], signature.args[1:], strict=True)]
         ptr = cgutils.get_item_pointer2(context, builder, ary.data, cgutils.unpack_tuple(builder, ary.shape),
                                         cgutils.unpack_tuple(builder, ary.strides), aryty.layout, inds,
                                         wraparound=False)
@@ -296,8 +296,11 @@ def _by_frequency_chunks(kernel, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, 
 
 
 def _source_constants(hk, b_pref):
-    """``(3, nfreq)`` rows ``b_rj, -b_planck / 2, b_planck (h nu / k) / 12``: ``B_nu = b_rj T + b_planck (u / 12 - 1/2)``
-    with ``u = h nu / kT`` (:func:`_radio_source`) as ``row0 T + row1 + row2 / T``."""
+    """``(3, nfreq)`` rows ``b_rj, -b_planck / 2, b_planck (h nu / k) / 12`` of the radio-regime source function.
+
+    ``B_nu = b_rj T + b_planck (u / 12 - 1/2)`` with ``u = h nu / kT`` (:func:`_radio_source`) is
+    ``row0 T + row1 + row2 / T``.
+    """
     return np.ascontiguousarray(np.stack([b_pref[1], -0.5 * b_pref[0], b_pref[0] * hk / 12.0]), float)
 
 
@@ -582,8 +585,10 @@ def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
 def _sort_few(x, n):
-    """Sort ``x[:n]`` in place by insertion: a layer has a handful of cuts, and numba compiles this in a
-    fraction of the time its general array sort takes."""
+    """Sort ``x[:n]`` in place by insertion.
+
+    A layer has a handful of cuts, and numba compiles this in a fraction of the time its general array sort takes.
+    """
     for i in range(1, n):
         v = x[i]
         j = i - 1
@@ -703,8 +708,10 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
         span_b = int((db.max(axis=1) - db.min(axis=1)).max())
         # the spread of the offsets over any _TILE consecutive layers: the rows and columns a tile gathers
         window = min(_TILE, nk)
-        tile_a = int((_windows(da.max(axis=1), window).max(axis=1) - _windows(da.min(axis=1), window).min(axis=1)).max())
-        tile_b = int((_windows(db.max(axis=1), window).max(axis=1) - _windows(db.min(axis=1), window).min(axis=1)).max())
+        tile_a = int((_windows(da.max(axis=1), window).max(axis=1)
+                      - _windows(da.min(axis=1), window).min(axis=1)).max())
+        tile_b = int((_windows(db.max(axis=1), window).max(axis=1)
+                      - _windows(db.min(axis=1), window).min(axis=1)).max())
     # the tile gather prefetches columns ahead where c is the axis of unit stride
     along_c = nn_cells.strides[2] < nn_cells.strides[1]
     run_tasks(_sheared_row_blocks, (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK, nn_cells, temp, blocks, lo, hi, off,
@@ -911,8 +918,9 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
 def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_row, kap_row, src_row):
-    """:func:`_row_coefficients` for one frequency where no cell of the row has He III and every cell is in
-    the radio regime (the common case): cells ``0 <= yb < n`` in three loops, two of them vectorised (the
+    """:func:`_row_coefficients` for one frequency, no He III and every cell in the radio regime (the common case).
+
+    Cells ``0 <= yb < n`` in three loops, two of them vectorised (the
     table read at a per-cell index, a gather, has a loop of its own), the same operations in the same order.
     """
     n_t = gtab_t.shape[1]
@@ -944,8 +952,9 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
 @numba.njit(cache=True, error_model="numpy", nogil=True)
 def _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
                       kap_row, src_row):
-    """Cells ``first <= yb <= last`` of one row of :func:`trace_sheared`'s layer buffer: ``alpha_nu`` and ``S_nu``
-    into ``kap_row[yb * nf + f]``, ``src_row[yb * nf + f]`` (zero where ``n_e n_i = 0``); returns the largest
+    """Cells ``first <= yb <= last`` of one row of :func:`trace_sheared`'s layer buffer: ``alpha_nu`` and ``S_nu``.
+
+    Written into ``kap_row[yb * nf + f]``, ``src_row[yb * nf + f]`` (zero where ``n_e n_i = 0``); returns the largest
     ``alpha_nu``.
 
     :func:`_coefficients_at` written out with the same operations in the same order (so results are

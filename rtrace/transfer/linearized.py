@@ -44,8 +44,14 @@ import numba
 import numpy as np
 
 from ..physics.planck import SERIES_LIMIT, one_minus_exp_series
-from .kernels import (BLOCK_SHIFT, _cell_coefficients, _radio_source, _radio_stimulated, _share_from_ratio,
-                      _table_position)
+from .kernels import (
+    BLOCK_SHIFT,
+    _cell_coefficients,
+    _radio_source,
+    _radio_stimulated,
+    _share_from_ratio,
+    _table_position,
+)
 from .tasks import run_tasks
 
 BLOCK_MASK = (1 << BLOCK_SHIFT) - 1
@@ -187,7 +193,7 @@ def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, coun
 @numba.njit(cache=True, error_model="numpy", nogil=True)
 def _sensitivity_rows(t_lo, t_hi, cls, stride, alpha, source, slots, k_lo, forward, i0, j0, n_j, count, seg_da, seg_db,
                       seg_ds, ray_i, ray_tau, bg, weight, out_w):
-    """Rows ``p = cls + t * stride``, ``t_lo <= t < t_hi``, of :func:`sensitivity_pass` (one task of :func:`run_tasks`)."""
+    """Rows ``p = cls + t * stride``, ``t_lo <= t < t_hi``, of :func:`sensitivity_pass` (one :func:`run_tasks` task)."""
     nk = count.shape[0]
     nf = bg.shape[0]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
@@ -240,8 +246,10 @@ def _sensitivity_rows(t_lo, t_hi, cls, stride, alpha, source, slots, k_lo, forwa
 
 
 def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds, out_linear):
-    """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase
-    (``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`)."""
+    """``out_linear[f, r] = sum over the cells ray r crosses of W_c ds`` for one phase.
+
+    (``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`).
+    """
     run_tasks(_remainder_rows, n_i, w_cells, slots, int(k_lo), bool(forward), int(i0), int(j0), int(n_j), count, seg_da,
               seg_db, seg_ds, out_linear, relax_layout=True)
 

@@ -47,6 +47,7 @@ class SplitImages:
         self.delta, self.tau, self.em, self.error, self.rays = delta, tau, em, error, rays
 
     def segment(self, bg):
+        """The images as a `Segment` with the background ``bg`` (per frequency) let in from behind."""
         return Segment(self.delta + bg[:, None, None], self.tau, self.em)
 
 
@@ -347,11 +348,11 @@ ESTIMATE_FACTOR = 1.0
 
 
 def _failing(error, value, floor, tolerance):
-    """Pixels (``(ny, nx)`` bool) above ``floor`` of their image's peak whose ``error / |value|`` exceeds ``tolerance``."""
+    """Pixels (``(ny, nx)`` bool) above ``floor`` of their peak whose ``error / |value|`` exceeds ``tolerance``."""
     out = np.zeros(value.shape[1:], bool)
     if tolerance is None:
         return out
-    for e, v in zip(error, value):
+    for e, v in zip(error, value, strict=True):
         size = np.abs(v)
         peak = size.max() if size.size else 0.0
         if peak > 0.0:
@@ -372,7 +373,7 @@ def _tiles(mask, tile):
 def _relative(error, value, floor):
     """Largest ``error / |value|`` over pixels with ``|value| >= floor * max |value|`` (0 for a blank image)."""
     worst = 0.0
-    for e, v in zip(error, value):
+    for e, v in zip(error, value, strict=True):
         size = np.abs(v)
         peak = size.max() if size.size else 0.0
         if peak > 0.0:

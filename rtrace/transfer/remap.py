@@ -123,7 +123,7 @@ def _band_order(cols, rows, e1, e2, nx, ny, height, n_band):
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
 def _band_pass(t_lo, t_hi, parity, start, order, cols, rows, e1, e2, aligned, values, out):
-    """Bands ``b = 2 t + parity``, ``t_lo <= t < t_hi``, of :func:`remap_parallelograms` (one task of :func:`run_tasks`)."""
+    """Bands ``b = 2 t + parity``, ``t_lo <= t < t_hi``, of :func:`remap_parallelograms` (one task of run_tasks)."""
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
     half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
     nq, ny, nx = out.shape

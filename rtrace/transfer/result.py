@@ -183,6 +183,7 @@ class Result:
 
     @property
     def shape(self):
+        """``(nfreq, ny, nx)``: frequencies, image rows, image columns."""
         return self._intensity.shape
 
     def flux_density(self, background=None, *, subtract_background=None):

@@ -41,7 +41,7 @@ import numpy as np
 
 from ..errors import InputError, warn_user
 from ..memory import check_memory, fits_in_memory, format_bytes, trace_image_bytes
-from ..physics.constants import ALPHA_FF_PREFACTOR, C, H, H_OVER_K
+from ..physics.constants import ALPHA_FF_PREFACTOR, H_OVER_K, C, H
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
 from . import bricks as _bricks
@@ -121,6 +121,7 @@ class FrequencyTables:
         self.em_ions = bool(em_ions)
 
     def args(self):
+        """The tables as the kernels take them, in their argument order."""
         return (self.log_t0, self.inv_dlog_t, self.gtab, self.hk, self.alpha_pref, self.b_pref, self.em_ions)
 
     def subset(self, part):
@@ -370,7 +371,7 @@ def _relative_difference(coarse, fine, bg, floor=PIXEL_FLOOR):
     Images that are zero everywhere contribute nothing.
     """
     worst = 0.0
-    planes = [(c - b, f - b) for c, f, b in zip(coarse.intensity, fine.intensity, bg)]
+    planes = [(c - b, f - b) for c, f, b in zip(coarse.intensity, fine.intensity, bg, strict=True)]
     planes.append((coarse.em, fine.em))
     for c, f in planes:
         size = np.abs(f)
@@ -490,8 +491,10 @@ def _split(tolerance, run):
 
 
 def _split_frequencies(tolerance, run, tables, bg):
-    """:func:`split_trace` of the frequencies of ``tables``: ``(Segment, rays per pixel, m, estimate, converged,
-    why refinement stopped)``."""
+    """:func:`split_trace` of the frequencies of ``tables``.
+
+    Returns ``(Segment, rays per pixel, m, estimate, converged, why refinement stopped)``.
+    """
     snapshot = run["snapshot"]
     zero = np.zeros(3, np.int64)
     whole = np.asarray(snapshot.shape, np.int64)
@@ -702,7 +705,7 @@ class _AxisRoute(_Route):
         return min(edge, self.ray_shape[0]) * min(edge, self.ray_shape[1])
 
     def coarsened(self, r):
-        """This route for cells ``r`` times larger on every axis (an AMR level), on the same rays."""
+        """The route for cells ``r`` times larger on every axis (an AMR level), on the same rays."""
         return self if r == 1 else _CoarseAxisRoute(self, r)
 
     def brick_rays(self, lo, hi):
@@ -716,7 +719,7 @@ class _AxisRoute(_Route):
         position carries it).
         """
         ne, ni, t = arrays
-        if ne.shape != tuple(int(h - l) for l, h in zip(lo, hi)):
+        if ne.shape != tuple(int(h - l) for l, h in zip(lo, hi, strict=True)):
             raise ValueError("axis route: brick arrays do not match the brick bounds")
         if self.la == 2:
             # the single-frequency kernel keeps its ray sums in registers; choosing here, not inside a
@@ -845,7 +848,7 @@ class _ObliqueRoute(_Route):
         self.nfreq = len(tables.nu)
 
     def coarsened(self, r):
-        """This route for cells ``r`` times larger on every axis (an AMR level), on the same rays.
+        """The route for cells ``r`` times larger on every axis (an AMR level), on the same rays.
 
         The lattice is unchanged (same spacing, same origin), so a coarse
         cell holds ``r m`` lattice phases per axis where a finest cell holds

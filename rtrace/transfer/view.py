@@ -11,8 +11,8 @@ FITS header has ``CDELT1 < 0``. Images have shape ``(nfreq, ny, nx)``;
 
 import numbers
 
-import numpy as np
 import astropy.units as u
+import numpy as np
 from astropy.coordinates import SkyCoord
 
 from ..errors import InputError
