@@ -576,54 +576,12 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
     if fraction is None or not (np.isfinite(fraction) and 0.0 <= fraction < 1.0):
         raise InputError(f"peak_fraction: expected a number in [0, 1), got {peak_fraction!r}")
     nu = _frequencies_hz(obj)
-    skymap = _is_skymap(obj)
-    noise = getattr(obj, "noise_rms", None) if skymap else None
-    rms = None
-    if noise is not None:
-        rms = np.broadcast_to(_jy_per_beam(noise, "obj.noise_rms"), (len(nu),))
-    threshold = None
-    if snr_threshold is not None:
-        threshold = float(snr_threshold)
-        if not np.isfinite(threshold):
-            raise InputError(f"snr_threshold: must be a finite number, got {snr_threshold!r}")
-        if rms is None:
-            raise InputError("snr_threshold: needs a SkyMap with noise (noise_rms is not set)")
-    elif rms is not None:
-        threshold = DEFAULT_SNR_THRESHOLD
-
-    beam, smoothed = None, False
-    models = {}
-    noise_at = {i1: None if rms is None else rms[i1], i2: None if rms is None else rms[i2]}
-    if skymap:
-        a = _jy_per_beam(obj.data[i1], "obj.data")
-        b = _jy_per_beam(obj.data[i2], "obj.data")
-        if threshold is not None:
-            models = {i: _jy_per_beam(obj.model[i], "obj.model") for i in (i1, i2)}
-        if getattr(obj, "background", "subtracted") == "included":
-            # the index and the S/N of the source, not of the uniform background level
-            level = _jy_per_beam(obj.background_per_beam, "obj.background_per_beam")
-            a, b = a - level[i1], b - level[i2]
-            models = {i: m - level[i] for i, m in models.items()}
-        beam = _beam_at(obj, i1)
-        if match_beams and not _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
-            beam = _common_beam(_beam_at(obj, i1), _beam_at(obj, i2))
-            smoothed = True
-            for i in (i1, i2):
-                planes = [a if i == i1 else b] + ([models[i]] if models else [])
-                planes, factor = _to_beam(obj, planes, i, beam)
-                if i == i1:
-                    a = planes[0]
-                else:
-                    b = planes[0]
-                if models:
-                    # the S/N is judged at the resolution the index is made at
-                    models[i], noise_at[i] = planes[1], noise_at[i] * factor
-        elif not _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
-            beam = None         # two resolutions: the index holds at neither
-            a = a / _beam_solid_angle_sr(obj, i1)
-            b = b / _beam_solid_angle_sr(obj, i2)
+    rms, threshold = _noise_threshold(obj, snr_threshold, len(nu))
+    if _is_skymap(obj):
+        a, b, models, noise_at, beam, smoothed = _skymap_planes(obj, i1, i2, rms, threshold, match_beams)
     else:
         a, b = pixel_flux(obj).value[i1], pixel_flux(obj).value[i2]
+        models, noise_at, beam, smoothed = {}, {i1: None, i2: None}, None, False
 
     with np.errstate(divide="ignore", invalid="ignore"):
         alpha = np.log(b / a) / math.log(nu[i2] / nu[i1])
@@ -645,6 +603,56 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
     out.beam, out.smoothed, out.frequencies = beam, smoothed, np.array([nu[i1], nu[i2]]) * u.Hz
     out.masking = "blank where " + " or ".join(rules) + " at either frequency"
     return out
+
+
+def _noise_threshold(obj, snr_threshold, nfreq):
+    """``(noise rms per frequency or None, S/N threshold or None)`` of :func:`spectral_index_map`."""
+    noise = getattr(obj, "noise_rms", None) if _is_skymap(obj) else None
+    rms = None if noise is None else np.broadcast_to(_jy_per_beam(noise, "obj.noise_rms"), (nfreq,))
+    if snr_threshold is None:
+        return rms, (None if rms is None else DEFAULT_SNR_THRESHOLD)
+    threshold = float(snr_threshold)
+    if not np.isfinite(threshold):
+        raise InputError(f"snr_threshold: must be a finite number, got {snr_threshold!r}")
+    if rms is None:
+        raise InputError("snr_threshold: needs a SkyMap with noise (noise_rms is not set)")
+    return rms, threshold
+
+
+def _skymap_planes(obj, i1, i2, rms, threshold, match_beams):
+    """A sky map's two planes for :func:`spectral_index_map`, at one resolution where asked.
+
+    Returns ``(a, b, models, noise_at, beam, smoothed)``: the planes (background removed; per steradian
+    where the beams differ and are not matched), the noiseless models and the noise rms at which the S/N
+    is judged (by plane index), the beam the index holds at (None for two resolutions) and whether a plane
+    was smoothed to the common beam.
+    """
+    noise_at = {i1: None if rms is None else rms[i1], i2: None if rms is None else rms[i2]}
+    a = _jy_per_beam(obj.data[i1], "obj.data")
+    b = _jy_per_beam(obj.data[i2], "obj.data")
+    models = {}
+    if threshold is not None:
+        models = {i: _jy_per_beam(obj.model[i], "obj.model") for i in (i1, i2)}
+    if getattr(obj, "background", "subtracted") == "included":
+        # the index and the S/N of the source, not of the uniform background level
+        level = _jy_per_beam(obj.background_per_beam, "obj.background_per_beam")
+        a, b = a - level[i1], b - level[i2]
+        models = {i: m - level[i] for i, m in models.items()}
+    beam = _beam_at(obj, i1)
+    if _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
+        return a, b, models, noise_at, beam, False
+    if not match_beams:
+        # two resolutions: the index holds at neither
+        return a / _beam_solid_angle_sr(obj, i1), b / _beam_solid_angle_sr(obj, i2), models, noise_at, None, False
+    beam = _common_beam(_beam_at(obj, i1), _beam_at(obj, i2))
+    planes = {i1: a, i2: b}
+    for i in (i1, i2):
+        smoothed, factor = _to_beam(obj, [planes[i]] + ([models[i]] if models else []), i, beam)
+        planes[i] = smoothed[0]
+        if models:
+            # the S/N is judged at the resolution the index is made at
+            models[i], noise_at[i] = smoothed[1], noise_at[i] * factor
+    return planes[i1], planes[i2], models, noise_at, beam, True
 
 
 def _unity_crossing(log_nu, tau):
