@@ -174,46 +174,68 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
                                  "depends on the mass density and its ionization)")
         if electron_density is None:
             raise InputError("electron_density: required unless density and ionization are given")
-        if ionization is not None:
-            raise InputError("ionization: only used with density; electron_density was given directly")
-        for name, value in (("composition", composition), ("helium", helium), ("gamma", gamma)):
+        for name, value in (("ionization", ionization), ("composition", composition), ("helium", helium),
+                            ("gamma", gamma)):
             if value is not None:
                 raise InputError(f"{name}: only used with density; electron_density was given directly")
-        if temperature is None:
-            raise InputError("temperature: required with electron_density")
-        shape = _grid_shape([("temperature", temperature)])
-        t = to_array(temperature, u.K, "temperature", dtype, u.temperature())
-        check_field("temperature", t, shape, 0.0, strict=True)
-        ne = to_array(electron_density, u.cm**-3, "electron_density", dtype)
-        check_field("electron_density", ne, shape, 0.0, strict=False)
-        if ion_density is None:
-            check_emission_range(ne, ne, dtype)
-            return t, ne, ne, {"ionization": "supplied n_e; ion term = n_e"}
-        ni = to_array(ion_density, u.cm**-3, "ion_density", dtype)
-        check_field("ion_density", ni, shape, 0.0, strict=False)
-        check_emission_range(ne, ni, dtype)
-        return t, ne, ni, {"ionization": "supplied n_e and ion term"}
-
+        return _supplied_electrons(temperature, electron_density, ion_density, dtype)
     if electron_density is not None or ion_density is not None:
         raise InputError("density: give either density (with ionization) or electron_density, not both")
     thermal, value = thermal_input(temperature, pressure, internal_energy)
     shape = _grid_shape([(thermal, value), ("density", density)])
     model = resolve_ionization("full" if ionization is None else ionization, composition=composition,
                                helium=helium)
+    inputs = _mass_density_inputs(density, thermal, value, gamma, shape)
+    merged = model.with_fields(_model_fields(model, fields, shape), shape)
+    model.validate_fields(merged)                 # whole-grid counts, before any evaluation
+    grid = ArrayInputs(inputs, merged, shape, cell, origin)
+    t, ne, ni, provenance = evaluate_grid(model, grid, dtype)
+    check_emission_range(ne, ni, dtype)
+    if thermal != "temperature":
+        provenance["temperature"] = thermal_provenance(thermal, inputs["gamma"])
+    return t, ne, ni, provenance
+
+
+def _supplied_electrons(temperature, electron_density, ion_density, dtype):
+    """:func:`derive_fields` for a snapshot that gives the electron density (and ion term) itself."""
+    if temperature is None:
+        raise InputError("temperature: required with electron_density")
+    shape = _grid_shape([("temperature", temperature)])
+    t = to_array(temperature, u.K, "temperature", dtype, u.temperature())
+    check_field("temperature", t, shape, 0.0, strict=True)
+    ne = to_array(electron_density, u.cm**-3, "electron_density", dtype)
+    check_field("electron_density", ne, shape, 0.0, strict=False)
+    if ion_density is None:
+        check_emission_range(ne, ne, dtype)
+        return t, ne, ne, {"ionization": "supplied n_e; ion term = n_e"}
+    ni = to_array(ion_density, u.cm**-3, "ion_density", dtype)
+    check_field("ion_density", ni, shape, 0.0, strict=False)
+    check_emission_range(ne, ni, dtype)
+    return t, ne, ni, {"ionization": "supplied n_e and ion term"}
+
+
+def _mass_density_inputs(density, thermal, value, gamma, shape):
+    """The checked mass density and thermal field (and gamma where a temperature is derived), by name."""
     rho = to_array(density, u.g / u.cm**3, "density", np.float64)
     check_field("density", rho, shape, 0.0, strict=False)
     heat = to_array(value, THERMAL_UNITS[thermal], thermal, np.float64,
                     u.temperature() if thermal == "temperature" else None)
     check_field(thermal, heat, shape, 0.0, strict=True)
     inputs = {"density": rho, thermal: heat}
-    if thermal != "temperature":
-        n_empty = int(np.count_nonzero(rho <= 0.0))
-        if n_empty:
-            raise InputError(f"density: {n_empty} of {rho.size} cells are empty (density 0), where a temperature "
-                             f"cannot be derived from the {thermal.replace('_', ' ')}")
-        inputs["gamma"] = gamma_value(gamma)
-    elif gamma is not None:
-        raise InputError("gamma: only used with pressure or internal_energy")
+    if thermal == "temperature":
+        if gamma is not None:
+            raise InputError("gamma: only used with pressure or internal_energy")
+        return inputs
+    n_empty = int(np.count_nonzero(rho <= 0.0))
+    if n_empty:
+        raise InputError(f"density: {n_empty} of {rho.size} cells are empty (density 0), where a temperature "
+                         f"cannot be derived from the {thermal.replace('_', ' ')}")
+    inputs["gamma"] = gamma_value(gamma)
+    return inputs
+
+
+def _model_fields(model, fields, shape):
+    """The user's per-cell fields for the ionization model, checked; InputError naming any the model lacks."""
     user_fields = {}
     for name, arr in (fields or {}).items():
         arr = np.asarray(arr)
@@ -226,14 +248,7 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
     if missing:
         raise InputError(f"fields: the ionization model reads {', '.join(repr(n) for n in missing)}, not given "
                          f"(fields given: {sorted(user_fields) or 'none'})")
-    merged = model.with_fields(user_fields, shape)
-    model.validate_fields(merged)                 # whole-grid counts, before any evaluation
-    grid = ArrayInputs(inputs, merged, shape, cell, origin)
-    t, ne, ni, provenance = evaluate_grid(model, grid, dtype)
-    check_emission_range(ne, ni, dtype)
-    if thermal != "temperature":
-        provenance["temperature"] = thermal_provenance(thermal, inputs["gamma"])
-    return t, ne, ni, provenance
+    return user_fields
 
 
 def thermal_provenance(thermal, gamma):
