@@ -15,6 +15,7 @@ from .errors import InputError
 from .physics.ionization import resolve_ionization
 from .physics.ionization.cells import THERMAL_INPUTS
 from .physics.ionization.grid import ArrayInputs, evaluate_grid
+from .quantities import check_density_inputs
 
 __all__ = ["derive_fields", "check_field", "to_array", "gamma_value", "thermal_input", "thermal_provenance",
            "check_real", "check_emission_range", "THERMAL_UNITS", "DEFAULT_GAMMA"]
@@ -167,20 +168,13 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
     ``ionization`` and, with mass density, ``ionization_state`` and what the
     model adds.
     """
+    check_density_inputs(density, electron_density, ion_density, pressure, internal_energy)
     if density is None:
-        for name, value in (("pressure", pressure), ("internal_energy", internal_energy)):
-            if value is not None:
-                raise InputError(f"{name}: needs density (the particle count that turns it into a temperature "
-                                 "depends on the mass density and its ionization)")
-        if electron_density is None:
-            raise InputError("electron_density: required unless density and ionization are given")
         for name, value in (("ionization", ionization), ("composition", composition), ("helium", helium),
                             ("gamma", gamma)):
             if value is not None:
                 raise InputError(f"{name}: only used with density; electron_density was given directly")
         return _supplied_electrons(temperature, electron_density, ion_density, dtype)
-    if electron_density is not None or ion_density is not None:
-        raise InputError("density: give either density (with ionization) or electron_density, not both")
     thermal, value = thermal_input(temperature, pressure, internal_energy)
     shape = _grid_shape([(thermal, value), ("density", density)])
     model = resolve_ionization("full" if ionization is None else ionization, composition=composition,

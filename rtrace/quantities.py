@@ -5,7 +5,39 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["positive_scalar", "finite_number"]
+__all__ = ["positive_scalar", "finite_number", "storage_dtype", "check_density_inputs"]
+
+#: The field types a snapshot stores (the kernels are compiled for these two).
+STORAGE_DTYPES = (np.dtype(np.float32), np.dtype(np.float64))
+
+
+def storage_dtype(dtype):
+    """``dtype`` as a numpy dtype a snapshot can store its fields in (float32 or float64); InputError otherwise."""
+    try:
+        dtype = np.dtype(dtype)
+    except TypeError:
+        raise InputError(f"dtype: not a numpy dtype: {dtype!r}") from None
+    if dtype not in STORAGE_DTYPES:
+        raise InputError(f"dtype: must be float32 or float64, got {dtype}")
+    return dtype
+
+
+def check_density_inputs(density, electron_density, ion_density, pressure, internal_energy):
+    """Refuse the combinations of density inputs no reader accepts, naming the field.
+
+    A snapshot gives either ``electron_density`` (and optionally ``ion_density``), or the mass ``density``
+    with an ionization model; a ``pressure`` or ``internal_energy`` needs ``density`` (the particle count
+    that turns it into a temperature depends on the mass density and its ionization).
+    """
+    if density is not None and (electron_density is not None or ion_density is not None):
+        raise InputError("density: give either density (with ionization) or electron_density, not both")
+    if density is None:
+        for name, value in (("pressure", pressure), ("internal_energy", internal_energy)):
+            if value is not None:
+                raise InputError(f"{name}: needs density (the particle count that turns it into a temperature "
+                                 "depends on the mass density and its ionization)")
+        if electron_density is None:
+            raise InputError("electron_density: required unless density and ionization are given")
 
 
 def positive_scalar(value, unit, name, what, equivalencies=None):

@@ -19,6 +19,7 @@ from .errors import InputError
 from .gas import derive_fields
 from .physics.constants import PC
 from .physics.freefree import check_temperature_range
+from .quantities import storage_dtype
 
 __all__ = ["Snapshot"]
 
@@ -187,9 +188,7 @@ class Snapshot(GridGeometry):
             table (1 K to 1e10 K); a model used outside its validity
             (Saha at interstellar densities, photoionized gas left cold).
         """
-        dtype = np.dtype(dtype)
-        if dtype not in (np.float32, np.float64):
-            raise InputError(f"dtype: must be float32 or float64, got {dtype}")
+        dtype = storage_dtype(dtype)
         if cell_size is None:
             raise InputError("cell_size: required (a length, or three lengths)")
         cell = _vector3(cell_size, "cell_size", u.cm)

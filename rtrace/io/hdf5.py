@@ -23,6 +23,7 @@ import numpy as np
 from ..errors import InputError
 from ..gas import thermal_input
 from ..physics.ionization import MODEL_NAMES, SuppliedFraction, resolve_ionization
+from ..quantities import storage_dtype
 from ..snapshot import Snapshot
 
 __all__ = ["read_hdf5"]
@@ -297,12 +298,7 @@ def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
     if not os.path.isfile(path):
         raise InputError(f"path: HDF5 file '{path}' not found")
     units = {} if units is None else dict(units)
-    try:
-        dtype = np.dtype(dtype)
-    except TypeError:
-        raise InputError(f"dtype: not a numpy dtype: {dtype!r}") from None
-    if dtype not in (np.float32, np.float64):
-        raise InputError(f"dtype: must be float32 or float64, got {dtype}")
+    dtype = storage_dtype(dtype)
     wanted, model = wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density,
                                   ionization, composition, helium)
     wanted = checked_names(wanted, units)

@@ -36,6 +36,7 @@ from ..gas import gamma_value, thermal_provenance
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
+from ..quantities import check_density_inputs, storage_dtype
 from ..snapshot import Snapshot, _vector3, combined_checksum
 from .hdf5 import (
     _FIELD_UNITS,
@@ -558,20 +559,8 @@ def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
     if not os.path.isfile(path):
         raise InputError(f"path: HDF5 file '{path}' not found")
     units = {} if units is None else dict(units)
-    try:
-        dtype = np.dtype(dtype)
-    except TypeError:
-        raise InputError(f"dtype: not a numpy dtype: {dtype!r}") from None
-    if dtype not in (np.float32, np.float64):
-        raise InputError(f"dtype: must be float32 or float64, got {dtype}")
-    if density is not None and (electron_density is not None or ion_density is not None):
-        raise InputError("density: give either density (with ionization) or electron_density, not both")
-    if density is None and electron_density is None:
-        raise InputError("electron_density: required unless density and ionization are given")
-    if density is None and (pressure is not None or internal_energy is not None):
-        raise InputError(f"{'pressure' if pressure is not None else 'internal_energy'}: needs density (the "
-                         "particle count that turns it into a temperature depends on the mass density and its "
-                         "ionization)")
+    dtype = storage_dtype(dtype)
+    check_density_inputs(density, electron_density, ion_density, pressure, internal_energy)
     if isinstance(ionization, (np.ndarray, u.Quantity)) and np.ndim(ionization) > 0:
         raise InputError("ionization: an in-memory fraction array cannot be read brick by brick; store it "
                          "as a dataset in the file and pass its name (or use read_hdf5)")

@@ -25,6 +25,7 @@ from ..gas import derive_fields, thermal_input
 from ..physics.freefree import check_temperature_range
 from ..physics.ionization import MODEL_NAMES, IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS
+from ..quantities import storage_dtype
 
 __all__ = ["from_yt"]
 
@@ -140,9 +141,7 @@ def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, de
             dtype=np.float32):
     """Build a snapshot from a yt dataset (see :meth:`rtrace.Snapshot.from_yt`)."""
     from ..snapshot import Snapshot
-    dtype = np.dtype(dtype)
-    if dtype not in (np.float32, np.float64):
-        raise InputError(f"dtype: must be float32 or float64, got {dtype}")
+    dtype = storage_dtype(dtype)
     if (electron_density is None) == (density is None):
         raise InputError("electron_density / density: give exactly one of them (density with ionization)")
     thermal, thermal_name = thermal_input(temperature, pressure, internal_energy)
