@@ -9,7 +9,7 @@ import sys
 import warnings
 
 __all__ = ["RtraceError", "InputError", "ConfigError", "OutputError", "PhysicsRangeWarning", "GauntRangeWarning",
-           "RelativisticWarning", "warn_user"]
+           "RelativisticWarning", "PixelAccuracyWarning", "warn_user"]
 
 
 class RtraceError(Exception):
@@ -46,6 +46,10 @@ class GauntRangeWarning(PhysicsRangeWarning):
 
     Their Gaunt factor is the table's edge value; the message counts them.
     """
+
+
+class PixelAccuracyWarning(UserWarning):
+    """An oblique trace stopped refining before its pixels met the requested tolerance."""
 
 
 class RelativisticWarning(PhysicsRangeWarning):

@@ -342,7 +342,7 @@ def check_output(out):
     if "picture_format" in out:
         formats = _picture_formats()
         if out["picture_format"] not in formats:
-            from .job import _suggest
+            from .job_values import _suggest
             fmt = out["picture_format"]
             raise ConfigError(f"[output].picture_format: '{fmt}'{_suggest(fmt, formats)} is not one of "
                               f"{', '.join(formats)}")

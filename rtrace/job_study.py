@@ -66,14 +66,14 @@ def _views(spec, where, names):
         raise ConfigError(f"{where}.views: expected a non-empty list of view names")
     for v in views:
         if v not in names:
-            from .job import _suggest
+            from .job_values import _suggest
             raise ConfigError(f"{where}.views: no view named {v!r}{_suggest(str(v), names)} (the job has: "
                               f"{', '.join(names)})")
     return list(views)
 
 
 def _angles(value, where, count, kinds=("angle",)):
-    from .job import _typed
+    from .job_values import _typed
     if not isinstance(value, list) or len(value) != count:
         raise ConfigError(f"{where}: expected a list of {count} values with units")
     return u.Quantity([_typed(v, kinds, f"{where}[{i}]") for i, v in enumerate(value)])

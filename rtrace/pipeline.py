@@ -41,8 +41,8 @@ from .engine import Engine, trace_keywords
 from .errors import OutputError
 from .io.manifest import MANIFEST_NAME, Manifest
 from .io.outdir import check_output_paths, check_space, check_writable
-from .job import build_views
 from .job_snapshot import build_snapshot
+from .job_views import build_views
 from .products import QUANTITIES, data_outputs, picture_outputs
 from .study_products import check_job_copy, job_copy_output, study_outputs
 

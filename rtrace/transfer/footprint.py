@@ -58,9 +58,8 @@ import math
 import numba
 import numpy as np
 
-from ..errors import InputError, warn_user
+from ..errors import InputError, PixelAccuracyWarning, warn_user
 from . import footprint_kernels as _k
-from .result import PixelAccuracyWarning
 
 __all__ = ["Footprint", "project_cells", "project_blocks", "ACCURACY_TARGET"]
 

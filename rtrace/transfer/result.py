@@ -6,7 +6,7 @@ import astropy.units as u
 import numpy as np
 from astropy.coordinates import SkyCoord
 
-from ..errors import InputError
+from ..errors import InputError, PixelAccuracyWarning  # noqa: F401  (also rtrace.transfer.result.PixelAccuracyWarning)
 from ..physics.constants import PC
 from .background import Background, brightness_temperature_cgs, check_convention, resolve_convention
 
@@ -15,10 +15,6 @@ __all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DE
 INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 # Where an image lands on the sky when the View gives no sky_position (written to FITS headers).
 DEFAULT_SKY_POSITION = SkyCoord(ra=0.0 * u.deg, dec=0.0 * u.deg, frame="icrs")
-
-
-class PixelAccuracyWarning(UserWarning):
-    """An oblique trace stopped refining before its pixels met the requested tolerance."""
 
 
 class PixelError(namedtuple("PixelError", "max_relative supersample tolerance floor converged")):
