@@ -5,7 +5,7 @@ walking each module's syntax tree), so it sees what a run actually imports, not 
 when the package loads. Layers, lowest first (a module may import its own layer and those below):
 
 core -> snapshot and readers -> transfer -> result -> observe, analysis, comparison, interferometer, files
--> plot -> run (jobs, batch, demo) -> cli
+-> plot -> run (jobs, planning, engine, products, colour scales, batch, manifest, demo) -> cli
 
 Package ``__init__`` modules re-export and are left out as importers (importing one counts as importing its
 package). The graph may hold no cycle and no upward import
@@ -26,10 +26,11 @@ LAYERS = [
     ("transfer", ["rtrace.transfer", "rtrace.parallel"]),
     ("result", ["rtrace.transfer.result"]),
     ("products", ["rtrace.observe", "rtrace.analysis", "rtrace.comparison", "rtrace.interferometer",
-                  "rtrace.io.fits", "rtrace.io.manifest"]),
-    ("plot", ["rtrace.plot", "rtrace.colour_scales"]),
-    ("run", ["rtrace.job", "rtrace.job_values", "rtrace.job_views", "rtrace.job_checks", "rtrace.job_study", "rtrace.job_snapshot", "rtrace.pipeline",
-             "rtrace.engine", "rtrace.batch", "rtrace.products", "rtrace.study_products", "rtrace.series_cache",
+                  "rtrace.io.fits"]),
+    ("plot", ["rtrace.plot"]),
+    ("run", ["rtrace.job", "rtrace.job_values", "rtrace.job_views", "rtrace.job_checks", "rtrace.job_study",
+             "rtrace.job_snapshot", "rtrace.pipeline", "rtrace.engine", "rtrace.batch", "rtrace.products",
+             "rtrace.study_products", "rtrace.series_cache", "rtrace.colour_scales", "rtrace.io.manifest",
              "rtrace.demo", "rtrace.warmup"]),
     ("cli", ["rtrace.cli"]),
 ]
@@ -49,7 +50,6 @@ KNOWN_UPWARD = {
     ("rtrace.analysis.cuts", "rtrace.plot"),                 # drawing helpers still in plot's private names
     ("rtrace.comparison.core", "rtrace.plot"),
     ("rtrace.comparison.figure", "rtrace.plot"),
-    ("rtrace.colour_scales", "rtrace.products"),
     ("rtrace.cli", "rtrace"),                                # the package root, for trace
     ("rtrace.demo", "rtrace"),
     ("rtrace.engine", "rtrace"),
