@@ -11,6 +11,7 @@ from . import interferometer, physics
 from ._version import __version__
 from .comparison import Comparison, compare
 from .errors import ConfigError, InputError, PhysicsRangeWarning, RtraceError
+from .io import ytdata as _ytdata  # noqa: F401  (registers Snapshot.from_yt's reader)
 from .io.lazy import open_hdf5
 from .snapshot import Snapshot
 from .transfer import Result, View, trace

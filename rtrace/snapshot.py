@@ -21,7 +21,16 @@ from .physics.constants import PC
 from .physics.freefree import check_temperature_range
 from .quantities import storage_dtype
 
-__all__ = ["Snapshot"]
+__all__ = ["Snapshot", "register_reader"]
+
+# Readers of other codes' outputs, by name, registered by their modules (rtrace.io.ytdata registers "yt"),
+# so that the data model does not import its readers.
+_READERS = {}
+
+
+def register_reader(name, reader):
+    """Make ``reader`` the function behind ``Snapshot.from_<name>`` (called by the reader's module on import)."""
+    _READERS[name] = reader
 
 #: Provenance entries that ``describe`` shows, with their labels.
 _PROVENANCE_LINES = (("ionization_state", "state"), ("temperature", "T from"), ("ionizing_sources", "sources"),
@@ -253,8 +262,7 @@ class Snapshot(GridGeometry):
             not aligned with their parents' cells, sources with an AMR
             hierarchy (give ``level``).
         """
-        from .io.ytdata import from_yt
-        return from_yt(ds, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
+        return _READERS["yt"](ds, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
                        density=density, pressure=pressure, internal_energy=internal_energy, gamma=gamma,
                        ionization=ionization, composition=composition, helium=helium, level=level, dtype=dtype)
 

@@ -26,6 +26,7 @@ from ..physics.freefree import check_temperature_range
 from ..physics.ionization import MODEL_NAMES, IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS
 from ..quantities import storage_dtype
+from ..snapshot import register_reader
 
 __all__ = ["from_yt"]
 
@@ -225,3 +226,6 @@ def _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_tex
     derived.pop("ionization_state", None)    # the last grid's alone; not the dataset's
     prov = {"source": f"yt: {ds} (AMR, {levels} levels, {len(grids)} grids; {fields_text})", **derived}
     return AMRSnapshot(out, r, base, width / base, left, prov)
+
+
+register_reader("yt", from_yt)           # behind Snapshot.from_yt
