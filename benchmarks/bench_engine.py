@@ -24,6 +24,7 @@ from timing import best_of
 import rtrace
 from rtrace.physics.freefree import absorption_cgs
 from rtrace.physics.planck import planck_cgs
+from rtrace.transfer import cell_cache
 
 
 def numpy_reference(snap, nu_hz):
@@ -114,8 +115,8 @@ def main():
 
     # the same snapshot with every cell ionized (warm ionized gas: n_e >= 1 cm-3, T >= 5000 K), so the
     # oblique sweep has no neutral block to skip
-    print(f"emitting cells in the scenario: {np.mean(snap.emission_product() > 0):.1%}; "
-          f"8^3 blocks holding one: {snap.emitting_blocks().mean():.1%}")
+    print(f"emitting cells in the scenario: {np.mean(cell_cache.emission_product(snap) > 0):.1%}; "
+          f"8^3 blocks holding one: {cell_cache.emitting_blocks(snap).mean():.1%}")
     full = rtrace.Snapshot.from_arrays(temperature=np.maximum(snap._t, np.float32(5e3)) * u.K,
                                        cell_size=snap.cell_size * u.cm,
                                        electron_density=np.maximum(snap._ne, np.float32(1.0)) * u.cm**-3)

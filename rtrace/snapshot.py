@@ -21,7 +21,7 @@ from .physics.constants import PC
 from .physics.freefree import check_temperature_range
 from .quantities import storage_dtype
 
-__all__ = ["Snapshot", "register_reader"]
+__all__ = ["Snapshot", "ArraySource", "register_reader"]
 
 # Readers of other codes' outputs, by name, registered by their modules (rtrace.io.ytdata registers "yt"),
 # so that the data model does not import its readers.
@@ -101,9 +101,6 @@ class Snapshot(GridGeometry):
     #: True when the fields are arrays in memory; False for a file-backed snapshot
     #: (:func:`rtrace.open_hdf5`), whose fields are read brick by brick.
     in_memory = True
-    _product = None
-    _blocks = None
-    _ratio = False
 
     def __init__(self, temperature, electron_density, ion_term, cell_size, origin, provenance):
         self._t = temperature
@@ -114,9 +111,9 @@ class Snapshot(GridGeometry):
         self.origin = np.asarray(origin, float)
         self.provenance = dict(provenance)
         self._checksum = None
-        self._product = None
-        self._blocks = None
-        self._ratio = False
+        #: Arrays other layers derive from the fields once and keep with the snapshot (the tracer's
+        #: emission product, block map and ratio: :mod:`rtrace.transfer.cell_cache`); :meth:`release` empties it.
+        self.kept = {}
 
     @classmethod
     def from_arrays(cls, temperature=None, cell_size=None, electron_density=None, ion_density=None, *,
@@ -287,53 +284,16 @@ class Snapshot(GridGeometry):
 
         Returns
         -------
-        `~rtrace.transfer.bricks.ArraySource`
+        `ArraySource`
             ``read(lo, hi)`` gives ``(n_e, ion term, T_e)`` of cells
             ``lo <= (i, j, k) < hi`` (cgs, the storage dtype), copied only
             where the box is not contiguous in memory.
         """
-        from .transfer.bricks import ArraySource
         return ArraySource(self._ne, self._ni, self._t)
 
-    def emission_product(self):
-        """``n_e x ion term`` per cell (storage dtype), formed on first use and kept.
-
-        Oblique views read it instead of both fields (their layer-by-layer
-        sweep reads memory with a stride, so each array read costs): one more
-        cube of memory for as long as the snapshot lives, or until :meth:`release`.
-        """
-        if self._product is None:
-            from .transfer.tracer import emission_product
-            self._product = emission_product(self._ne, self._ni)
-        return self._product
-
-    def emitting_blocks(self):
-        """Which blocks of 8^3 cells hold emitting gas (:func:`rtrace.transfer.kernels.emitting_blocks`), kept.
-
-        Oblique views skip the blocks with none (1/512 of a cube of uint8).
-        """
-        if self._blocks is None:
-            from .transfer.kernels import emitting_blocks
-            self._blocks = emitting_blocks(self.emission_product())
-        return self._blocks
-
-    def emission_ratio(self):
-        """``n_e / ion term`` per cell, or None where they are equal everywhere; formed on first use and kept.
-
-        Oblique views read it beside :meth:`emission_product` only when helium
-        is doubly ionized somewhere (or the fields were given with an ion term
-        different from ``n_e``): see :func:`rtrace.transfer.tracer.emission_ratio`.
-        """
-        if self._ratio is False:
-            from .transfer.tracer import emission_ratio
-            self._ratio = emission_ratio(self._ne, self._ni)
-        return self._ratio
-
     def release(self):
-        """Free what the snapshot computed and kept for speed (emission product and ratio, block map)."""
-        self._product = None
-        self._blocks = None
-        self._ratio = False
+        """Free what was derived from the fields and kept for speed (:attr:`kept`: emission product, block map)."""
+        self.kept.clear()
 
     def checksum(self):
         """SHA-256 of the stored fields and geometry (for provenance headers); computed once.
@@ -369,3 +329,34 @@ class Snapshot(GridGeometry):
 
     def __repr__(self):
         return f"<Snapshot shape={self.shape} source={self.provenance['source']!r}>"
+
+
+class ArraySource:
+    """Bricks of in-memory arrays (copies only where a brick is not contiguous).
+
+    Parameters
+    ----------
+    ne, ni, t : ndarray (nx, ny, nz)
+        Electron density, ion term (cm-3) and temperature (K); ``ni`` may be ``ne``.
+    """
+
+    #: Shipping this source to another process would ship the whole arrays.
+    portable = False
+    scratch_bytes = 0
+
+    def __init__(self, ne, ni, t):
+        self.ne, self.ni, self.t = ne, ni, t
+        self.shape = tuple(t.shape)
+        self.dtype = t.dtype
+
+    @property
+    def bytes_per_cell(self):
+        """Bytes one brick cell costs when read (the shared ion term is copied once)."""
+        return self.dtype.itemsize * (2 if self.ni is self.ne else 3)
+
+    def read(self, lo, hi):
+        """``(n_e, ion term, T_e)`` of cells ``lo <= index < hi``, C-contiguous."""
+        sl = tuple(slice(int(a), int(b)) for a, b in zip(lo, hi, strict=True))
+        ne = np.ascontiguousarray(self.ne[sl])
+        ni = ne if self.ni is self.ne else np.ascontiguousarray(self.ni[sl])
+        return ne, ni, np.ascontiguousarray(self.t[sl])

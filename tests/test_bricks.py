@@ -14,7 +14,7 @@ import pytest
 
 import rtrace
 from rtrace.errors import InputError
-from rtrace.transfer import bricks, kernels
+from rtrace.transfer import bricks, cell_cache, kernels
 from rtrace.transfer.compositing import Patch, Segment, composite_patches
 from rtrace.transfer.tracer import FrequencyTables
 
@@ -114,16 +114,16 @@ def sparse():
 
 def test_emitting_blocks_mark_the_blocks_with_emitting_cells(sparse):
     # Reference: numpy's any() over each 8^3 block of the zero-padded cube (common practice).
-    nn = sparse.emission_product()
+    nn = cell_cache.emission_product(sparse)
     padded = np.zeros([-(-n // 8) * 8 for n in nn.shape])
     padded[:nn.shape[0], :nn.shape[1], :nn.shape[2]] = nn
     s = padded.shape
     expected = (padded.reshape(s[0] // 8, 8, s[1] // 8, 8, s[2] // 8, 8) > 0).any(axis=(1, 3, 5))
-    blocks = sparse.emitting_blocks()
+    blocks = cell_cache.emitting_blocks(sparse)
     assert np.array_equal(blocks.astype(bool), expected)
     assert 0 < blocks.mean() < 0.5                               # the sweep has blocks to skip
     sparse.release()
-    assert sparse._blocks is None and np.array_equal(sparse.emitting_blocks(), blocks)
+    assert not sparse.kept and np.array_equal(cell_cache.emitting_blocks(sparse), blocks)
 
 
 @pytest.mark.parametrize("off", [(0, 0, 0), (3, 5, 2)])
@@ -132,7 +132,8 @@ def test_skipping_neutral_blocks_changes_no_bit(sparse, off):
     # sweep that skips empty blocks must give exactly the sweep that reads every cell (an all-ones map),
     # on the whole array and on a sub-array whose blocks are offset from the global ones.
     tables = FrequencyTables(NU.to_value(u.Hz))
-    arrays = tuple(a.transpose(2, 0, 1) for a in (sparse.emission_product(), sparse._t))     # (a, b, c) = (z, x, y)
+    # (a, b, c) = (z, x, y)
+    arrays = tuple(a.transpose(2, 0, 1) for a in (cell_cache.emission_product(sparse), sparse._t))
     off = np.array(off, np.int64)
     lo, hi = off, np.array(arrays[0].shape, np.int64)
     arrays = tuple(np.ascontiguousarray(a[off[0]:, off[1]:, off[2]:]) for a in arrays)

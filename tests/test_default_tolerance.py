@@ -19,7 +19,7 @@ from test_pixel_accuracy import CELL, _grid
 
 import rtrace
 from rtrace import amr
-from rtrace.transfer import tracer
+from rtrace.transfer import cell_cache, tracer
 from rtrace.transfer.result import PixelAccuracyWarning
 
 NU = [10.0] * u.GHz          # optically thin on this grid (tau ~ 1e-4): the first lattice meets 1e-2
@@ -111,7 +111,7 @@ def test_frequencies_split_in_groups_when_their_state_does_not_fit(snap, monkeyp
     # the images are those of tracing each frequency alone (thick 0.1 GHz, thin 10 GHz)
     from rtrace.transfer.oblique_split import split_state_bytes
     both = [0.1, 10.0] * u.GHz
-    one = split_state_bytes(snap.emitting_blocks(), 1)
+    one = split_state_bytes(cell_cache.emitting_blocks(snap), 1)
     monkeypatch.setattr(tracer, "fits_in_memory", lambda need: need <= one)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PixelAccuracyWarning)

@@ -21,6 +21,7 @@ from rtrace.errors import GauntRangeWarning, InputError, PhysicsRangeWarning, Re
 from rtrace.physics import gaunt
 from rtrace.physics.constants import H_OVER_K
 from rtrace.physics.gaunt import RY_OVER_K, gaunt_factor
+from rtrace.transfer import cell_cache
 
 CELL_CM = 3.0e17
 NU = np.array([0.5e9, 5.0e9, 30.0e9, 3.0e12])          # radio to far infrared (the last off the radio series)
@@ -236,8 +237,8 @@ def test_single_frequency_kernel_agrees_with_the_general_one_on_helium_iii(rng):
 def test_hydrogen_snapshots_carry_no_ratio_array():
     # Ion term equal to n_e: the oblique kernel reads nothing more (no second array).
     snap = uniform_snapshot(10.0, 10.0)
-    assert snap.emission_ratio() is None
-    assert uniform_snapshot(20.0, 40.0).emission_ratio() is not None
+    assert cell_cache.emission_ratio(snap) is None
+    assert cell_cache.emission_ratio(uniform_snapshot(20.0, 40.0)) is not None
 
 
 # -- emission measure definition ---------------------------------------------------------------------

@@ -37,9 +37,6 @@ LAYERS = [
 
 # (importer, imported): upward imports still to remove. Shrinks; never grows.
 KNOWN_UPWARD = {
-    ("rtrace.snapshot", "rtrace.transfer.bricks"),       # the tracer's caches and sources live in Snapshot
-    ("rtrace.snapshot", "rtrace.transfer.kernels"),
-    ("rtrace.snapshot", "rtrace.transfer.tracer"),
     ("rtrace.transfer.tracer", "rtrace.transfer.result"),     # the tracer builds its Result
     ("rtrace.transfer.result", "rtrace.analysis.cuts"),     # Result's conveniences call the layers above
     ("rtrace.transfer.result", "rtrace.analysis.depth"),

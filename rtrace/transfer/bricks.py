@@ -27,7 +27,7 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["ArraySource", "partition", "front_to_back", "parse_memory", "check_brick_size",
+__all__ = ["partition", "front_to_back", "parse_memory", "check_brick_size",
            "choose_brick_edge", "MIN_BRICK", "DEFAULT_BRICK"]
 
 #: Smallest brick edge (cells) the memory planner will use: below this the per-brick
@@ -37,37 +37,6 @@ MIN_BRICK = 8
 #: Brick edge (cells) for file-backed snapshots when neither brick_size nor max_memory is
 #: given: three float32 fields of 128^3 cells are 24 MiB.
 DEFAULT_BRICK = 128
-
-
-class ArraySource:
-    """Bricks of in-memory arrays (copies only where a brick is not contiguous).
-
-    Parameters
-    ----------
-    ne, ni, t : ndarray (nx, ny, nz)
-        Electron density, ion term (cm-3) and temperature (K); ``ni`` may be ``ne``.
-    """
-
-    #: Shipping this source to another process would ship the whole arrays.
-    portable = False
-    scratch_bytes = 0
-
-    def __init__(self, ne, ni, t):
-        self.ne, self.ni, self.t = ne, ni, t
-        self.shape = tuple(t.shape)
-        self.dtype = t.dtype
-
-    @property
-    def bytes_per_cell(self):
-        """Bytes one brick cell costs when read (the shared ion term is copied once)."""
-        return self.dtype.itemsize * (2 if self.ni is self.ne else 3)
-
-    def read(self, lo, hi):
-        """``(n_e, ion term, T_e)`` of cells ``lo <= index < hi``, C-contiguous."""
-        sl = tuple(slice(int(a), int(b)) for a, b in zip(lo, hi, strict=True))
-        ne = np.ascontiguousarray(self.ne[sl])
-        ni = ne if self.ni is self.ne else np.ascontiguousarray(self.ni[sl])
-        return ne, ni, np.ascontiguousarray(self.t[sl])
 
 
 def check_brick_size(brick_size):

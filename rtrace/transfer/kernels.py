@@ -691,7 +691,7 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     lattice and layer indices stay global and every brick shares one ray
     lattice. Outputs ``(nfreq, 1, n_i n_j)`` and ``(1, n_i n_j)`` must be zero
     on entry. ``ratio`` is ``n_e / ion term`` per cell in the same layout as
-    ``nn_cells`` (:func:`rtrace.transfer.tracer.emission_ratio`), or None where
+    ``nn_cells`` (:func:`rtrace.transfer.cell_cache.ratio_of`), or None where
     the two are equal in every cell (then nothing more is read): it gives the
     He III share of the ion term (:func:`_share_from_ratio`) and the
     ``n_e^2`` emission measure. ``nn_buf`` holds each cell's emission-measure

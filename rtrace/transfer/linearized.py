@@ -88,7 +88,7 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
     are the last (contiguous) axis. Same coefficients as the tracer's
     kernels (:func:`kernels._cell_coefficients`), with the He III share of
     the ion term from ``ratio`` (``n_e / ion term``, same layout, or None
-    where the two are equal: :func:`rtrace.transfer.tracer.emission_ratio`);
+    where the two are equal: :func:`rtrace.transfer.cell_cache.ratio_of`);
     ``em_ions`` is unused here (the arguments are the tracer's
     ``FrequencyTables.args()``).
     """

@@ -109,7 +109,7 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     to ``s`` (-1: no emitting gas; :func:`linearized.block_slots`).
     ``cells`` = ``(n_e x ion term, T, ratio)`` with ``ratio`` = ``n_e / ion
     term`` or None where they are equal
-    (:func:`rtrace.transfer.tracer.emission_ratio`): the He III share and the
+    (:func:`rtrace.transfer.cell_cache.ratio_of`): the He III share and the
     emission measure's ``n_e^2`` weight (the last plane then holds that weight);
     ``blocks`` (:func:`kernels.emitting_blocks`); all in the route's axis order;
     ``seg``: the traced rays (``(nfreq, nI, nJ)`` intensity without
@@ -389,7 +389,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     ``trace_rays(route)`` its traced rays (a Segment ``(nfreq, nI, nJ)``,
     intensity without background); ``cells`` = ``(n_e x ion term, T,
     emitting blocks, ratio)`` in grid order (:meth:`Snapshot.emitting_blocks`;
-    ``ratio``: :func:`rtrace.transfer.tracer.emission_ratio`, may be None).
+    ``ratio``: :func:`rtrace.transfer.cell_cache.ratio_of`, may be None).
     With ``tolerance`` None one lattice (m = 1) is used.
     ``thin_scale``: the opacity scale of an absorption-free trace (then
     the background is left out of the sensitivities and the images are

@@ -45,7 +45,7 @@ from ..physics.constants import ALPHA_FF_PREFACTOR, H_OVER_K, C, H
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
 from . import bricks as _bricks
-from . import kernels
+from . import cell_cache, kernels
 from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
 from .oblique_split import lattice_phases, remap_rays, split_state_bytes, split_trace
@@ -53,7 +53,7 @@ from .remap import remap_parallelograms
 from .result import PixelAccuracyWarning, PixelError, Result
 
 __all__ = ["trace", "FrequencyTables", "DEFAULT_TOLERANCE", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
-           "MAX_SUPERSAMPLE", "EM_DEFINITIONS", "emission_ratio"]
+           "MAX_SUPERSAMPLE", "EM_DEFINITIONS"]
 
 # What every traced image assumes (written to provenance and FITS headers).
 PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
@@ -333,8 +333,9 @@ def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, bu
         whole = np.asarray(snapshot.shape, np.int64)
         arrays = (snapshot._ne, snapshot._ni, snapshot._t)
         if isinstance(route, _ObliqueRoute):
-            patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product(),
-                                      blocks=snapshot.emitting_blocks(), ratio=snapshot.emission_ratio())
+            patch = route.trace_brick(zero, whole, arrays, zero, product=cell_cache.emission_product(snapshot),
+                                      blocks=cell_cache.emitting_blocks(snapshot),
+                                      ratio=cell_cache.emission_ratio(snapshot))
         else:
             patch = route.trace_brick(zero, whole, arrays, zero)
     else:
@@ -430,12 +431,12 @@ def _can_split(snapshot, edge, budget, client):
 
 def _split_fits(snapshot, nu):
     """Whether the split's per-cell state for one frequency fits in the memory at hand (:func:`split_state_bytes`)."""
-    return fits_in_memory(split_state_bytes(snapshot.emitting_blocks(), 1))
+    return fits_in_memory(split_state_bytes(cell_cache.emitting_blocks(snapshot), 1))
 
 
 def _frequency_chunk(snapshot, nfreq):
     """Most frequencies whose split state fits in memory together (at least 1: the split then says it does not fit)."""
-    blocks = snapshot.emitting_blocks()
+    blocks = cell_cache.emitting_blocks(snapshot)
     k = nfreq
     while k > 1 and not fits_in_memory(split_state_bytes(blocks, k)):
         k = (k + 1) // 2
@@ -453,7 +454,7 @@ def _warn_unrefined(snapshot, edge, budget, client, nu):
     elif edge is not None or budget is not None:
         why = "the grid is traced in bricks (brick_size / max_memory)"
     else:
-        need = split_state_bytes(snapshot.emitting_blocks(), 1)
+        need = split_state_bytes(cell_cache.emitting_blocks(snapshot), 1)
         why = (f"its per-cell state ({format_bytes(need)} even for one frequency at a time) does not fit in the "
                "memory available")
     warn_user(f"tolerance: this oblique view is traced on one lattice of 1 ray per cell with no pixel error "
@@ -507,11 +508,13 @@ def _split_frequencies(tolerance, run, tables, bg):
         return route
 
     def trace_rays(route):
-        patch = route.trace_brick(zero, whole, arrays, zero, product=snapshot.emission_product(),
-                                  blocks=snapshot.emitting_blocks(), ratio=snapshot.emission_ratio())
+        patch = route.trace_brick(zero, whole, arrays, zero, product=cell_cache.emission_product(snapshot),
+                                  blocks=cell_cache.emitting_blocks(snapshot),
+                                  ratio=cell_cache.emission_ratio(snapshot))
         return _full_segment(patch, route.nfreq, route.ray_shape)
 
-    cells = (snapshot.emission_product(), snapshot._t, snapshot.emitting_blocks(), snapshot.emission_ratio())
+    cells = (cell_cache.emission_product(snapshot), snapshot._t, cell_cache.emitting_blocks(snapshot),
+             cell_cache.emission_ratio(snapshot))
     images, m, estimate, converged, stopped = split_trace(
         make_route, trace_rays, cells, bg, tolerance=tolerance,
         floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
@@ -603,27 +606,6 @@ def _trace_in_sequence(route, source, order):
         if patch is not None:
             composite_into(acc, (0, 0), patch)
     return Patch((0, 0), acc)
-
-
-def emission_product(ne, ni):
-    """``n_e x ion term`` per cell in the fields' dtype (for float32 fields the exact product, rounded once)."""
-    return np.multiply(ne, ni, dtype=np.result_type(ne, ni))
-
-
-def emission_ratio(ne, ni):
-    """``n_e / ion term`` per cell (fields' dtype; 1 where the ion term is 0), or None where they are equal.
-
-    The oblique kernel reads only ``n_e x ion term``; this ratio gives it the
-    He III share of the ion term (Z = 2 Gaunt factor) and the ``n_e^2``
-    emission measure. Hydrogen and singly ionized helium have an ion term
-    equal to ``n_e`` in every cell: None then, and the kernel reads nothing more.
-    """
-    if ne is ni or np.array_equal(ne, ni):
-        return None
-    dtype = np.result_type(ne, ni)
-    out = np.ones(np.shape(ne), dtype)
-    np.divide(ne, ni, out=out, where=np.asarray(ni) > 0, casting="unsafe")
-    return out
 
 
 def _trace_amr(route, snap, los):
@@ -903,21 +885,21 @@ class _ObliqueRoute(_Route):
         ``arrays`` (n_e, ion term, T) may be the whole grid (``off`` = 0) or
         the brick's own sub-array (``off`` = ``lo``); ``product`` is their
         ``n_e x ion term`` and ``blocks`` its :func:`kernels.emitting_blocks`
-        if already at hand (:meth:`Snapshot.emission_product`,
-        :meth:`Snapshot.emitting_blocks`), else they are formed for the brick;
-        likewise ``ratio`` (:func:`emission_ratio`, which may be None; False:
+        if already at hand (:func:`cell_cache.emission_product`,
+        :func:`cell_cache.emitting_blocks`), else they are formed for the brick;
+        likewise ``ratio`` (:func:`cell_cache.ratio_of`, which may be None; False:
         not given).
         """
         rect = self.brick_rays(lo, hi)
         if rect is None:
             return None
         if product is None:
-            product = emission_product(arrays[0], arrays[1])
+            product = cell_cache.product_of(arrays[0], arrays[1])
             blocks = None
         if blocks is None:
             blocks = kernels.emitting_blocks(product)
         if ratio is False:
-            ratio = emission_ratio(arrays[0], arrays[1])
+            ratio = cell_cache.ratio_of(arrays[0], arrays[1])
         ratio_t = None if ratio is None else ratio.transpose(self.order)
         (r0, s0), (r1, s1) = rect
         i_first, i_last = r0 + self.ia[0], r1 - 1 + self.ia[0]
