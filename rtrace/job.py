@@ -29,8 +29,8 @@ from .job_checks import (
     check_view,
     decode_job_text,
 )
-from .job_values import _PHYSICAL, _a, _check_keys, _quantity, _suggest, _typed  # noqa: F401
-from .job_views import build_views  # noqa: F401  (rtrace.job.build_views)
+from .job_values import _check_keys, _suggest, _typed
+from .job_views import build_views
 from .physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",

@@ -20,6 +20,7 @@ samples the visibility near ``(u, v) = 0``.
 """
 
 import math
+from types import SimpleNamespace
 
 import astropy.units as u
 import numpy as np
@@ -380,11 +381,8 @@ def _warn_track_aliasing(ha_all, xyz, nu_max, extent_rad):
                   SynthesisWarning)
 
 
-class _Plane:
+class _Plane(SimpleNamespace):
     """One frequency's products: restored, dirty, residual, components, dirty beam, clean beam, samples."""
-
-    def __init__(self, **kw):
-        self.__dict__.update(kw)
 
 
 def _image_plane(f, model, obs, array, weighting, robust, gain, niter, thr):

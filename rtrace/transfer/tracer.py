@@ -39,7 +39,7 @@ import numbers
 import astropy.units as u
 import numpy as np
 
-from ..errors import InputError, warn_user
+from ..errors import InputError, PixelAccuracyWarning, warn_user
 from ..memory import check_memory, fits_in_memory, format_bytes, trace_image_bytes
 from ..physics.constants import ALPHA_FF_PREFACTOR, H_OVER_K, C, H
 from ..physics.freefree import check_plasma_frequency
@@ -50,7 +50,7 @@ from .background import background_from_spec
 from .compositing import Patch, Segment, composite_into
 from .oblique_split import lattice_phases, remap_rays, split_state_bytes, split_trace
 from .remap import remap_parallelograms
-from .result import PixelAccuracyWarning, PixelError, Result
+from .result import PixelError, Result
 
 __all__ = ["trace", "FrequencyTables", "DEFAULT_TOLERANCE", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
            "MAX_SUPERSAMPLE", "EM_DEFINITIONS"]
