@@ -10,7 +10,7 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e ".[test,tools,docs,lint]"
-	$(BIN)/python -m rtrace.warmup
+	$(BIN)/python -m rtrace.run.warmup
 	touch $(STAMP)
 
 demo: $(STAMP)
@@ -39,7 +39,7 @@ oldest:
 
 # compile the numba kernels into their cache again (after editing a kernel module)
 warmup: $(STAMP)
-	$(BIN)/python -m rtrace.warmup
+	$(BIN)/python -m rtrace.run.warmup
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_engine.py

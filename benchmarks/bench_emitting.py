@@ -16,7 +16,7 @@ within each round:
 * with ``--one-thread``: one numba thread, each case timed in process CPU seconds, so the
   figures hold steady on a machine shared with other work (wall-clock ratios there vary 2x)
 
-* with ``--compile``: first-use compile time, the warm-up (``python -m rtrace.warmup``) run in a
+* with ``--compile``: first-use compile time, the warm-up (``python -m rtrace.run.warmup``) run in a
   fresh process with an empty numba cache (``NUMBA_CACHE_DIR`` a new temporary folder): kernels
   compiled and seconds, as the warm-up reports them (target for the demo's kernels <= 15 s)
 
@@ -171,7 +171,7 @@ Targets met: axis1 <= 0.10x numpy. Not met: axis1 <= 6x the streaming pass (7-10
 <= 2.5x one (2.75-2.9x), oblique <= 2x axis (about 4x: the oblique sweep gained less than the axis
 kernel, so the ratio grew; its cell pass reads each layer with a stride and evaluates coefficients
 cell by cell). First-use compile of the warm-up's kernels with a cold numba cache
-(``NUMBA_CACHE_DIR=$(mktemp -d) python -m rtrace.warmup``) under the same load: 178 s before, 162 s
+(``NUMBA_CACHE_DIR=$(mktemp -d) python -m rtrace.run.warmup``) under the same load: 178 s before, 162 s
 after (34-45 s when the machine is idle); after, at load 2.5-3.5: 46.8 s, of which trace_along_last_axis
 8.7 s, trace_sheared 7.5 s (C-ordered arrays) + 7.3 s (transposed, 'A' layout), remap_parallelograms 5.1 s,
 trace_along_middle_axis 5.0 s + 4.6 s ('A'), one_frequency_along_last_axis 4.4 s, emitting_blocks 1.4 s.
@@ -220,7 +220,7 @@ the load of the warm-up runs below), so the
 <= 15 s target is not met; trace_sheared (15 s) and the split route's parfor kernels (project,
 cell_coefficient_grids, sensitivity_pass, remap: 13 s) are what is left.
 
-``python -m rtrace.warmup`` with an empty cache (what ``--compile`` runs), two alternating runs each,
+``python -m rtrace.run.warmup`` with an empty cache (what ``--compile`` runs), two alternating runs each,
 load 1.6-3.6: before (d728b3a, whose warm-up reaches the split route through the default tolerance
 but not its block refinement) 18 kernels in 81.1 s and 78.7 s; after, 15 kernels in 39.9 s and
 41.3 s (43-44 s for the process); 2.5 s once cached.
@@ -314,7 +314,7 @@ def cold_compile():
     with tempfile.TemporaryDirectory() as cache:
         env = dict(os.environ, NUMBA_CACHE_DIR=cache)
         t0 = time.perf_counter()
-        out = subprocess.run([sys.executable, "-m", "rtrace.warmup"], env=env, capture_output=True, text=True,
+        out = subprocess.run([sys.executable, "-m", "rtrace.run.warmup"], env=env, capture_output=True, text=True,
                              check=True).stdout
         wall = time.perf_counter() - t0
     found = re.search(r"(\d+) compiled in ([\d.]+) s", out)

@@ -1,4 +1,4 @@
-"""Cost of identifying a snapshot file for the resume manifest (``rtrace.io.manifest.snapshot_identity``).
+"""Cost of identifying a snapshot file for the resume manifest (``rtrace.run.manifest.snapshot_identity``).
 
 Writes a file of random bytes (default 1 GiB) in a temporary folder and times, over several rounds:
 the whole-file SHA-256 (what files up to 256 MiB get), and the sampled hash larger files get, each
@@ -14,7 +14,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from rtrace.io.manifest import snapshot_identity
+from rtrace.run.manifest import snapshot_identity
 
 
 def _drop(path):

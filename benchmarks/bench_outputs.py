@@ -32,11 +32,11 @@ from importlib import resources
 from pathlib import Path
 
 from rtrace import trace
-from rtrace.batch import Snapshots, plan_units
-from rtrace.engine import _observe
-from rtrace.io.manifest import Manifest
-from rtrace.job import build_views, parse_job
-from rtrace.products import QUANTITIES, data_outputs, picture_outputs
+from rtrace.run.batch import Snapshots, plan_units
+from rtrace.run.engine import _observe
+from rtrace.run.job import build_views, parse_job
+from rtrace.run.manifest import Manifest
+from rtrace.run.products import QUANTITIES, data_outputs, picture_outputs
 
 
 def demo_job(directory, cells):

@@ -128,7 +128,7 @@ def _report(paths, stream):
 
 
 def _positive_int(text):
-    from .job import check_workers
+    from .run.job import check_workers
     try:
         return check_workers(int(text), "--workers")
     except (ValueError, ConfigError) as exc:
@@ -137,7 +137,7 @@ def _positive_int(text):
 
 
 def _address(text):
-    from .job import check_scheduler_address
+    from .run.job import check_scheduler_address
     try:
         return check_scheduler_address(text, "--scheduler")
     except ConfigError as exc:
@@ -145,7 +145,7 @@ def _address(text):
 
 
 def cmd_run(args):
-    from .job import load_job, override_parallel, run_job
+    from .run.job import load_job, override_parallel, run_job
     job = load_job(args.job)
     if args.output:
         job.output["directory"] = _output_folder(args.output).resolve()
@@ -162,7 +162,7 @@ def _demo_job_text():
 def cmd_demo(args):
     import tomllib
 
-    from .job import parse_job, run_job
+    from .run.job import parse_job, run_job
     raw = tomllib.loads(_demo_job_text())
     raw["output"]["directory"] = str(_output_folder(args.output).resolve())
     if args.cells is not None:
@@ -190,8 +190,8 @@ def _snapshot_from(args):
         return scenario(64 if args.cells is None else args.cells), nu
     if args.cells is not None:
         raise ConfigError("--cells: only for the built-in scenario (a job file sets [snapshot].cells)")
-    from .job import load_job
-    from .pipeline import build_snapshot
+    from .run.job import load_job
+    from .run.pipeline import build_snapshot
     job = load_job(args.job)
     if job.series:
         print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0]['label']}'")
@@ -229,9 +229,9 @@ def _trace_job_view(path, view_name, frequencies=None, before=None):
 
     ``before(view)``, if given, checks the chosen `~rtrace.View` before any tracing.
     """
-    from . import trace
-    from .job import build_views, load_job
-    from .pipeline import build_snapshot
+    from .run.job import build_views, load_job
+    from .run.pipeline import build_snapshot
+    from .transfer import trace
     job = load_job(path)
     views = dict(build_views(job))
     name = view_name or next(iter(views))

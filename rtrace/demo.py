@@ -146,7 +146,7 @@ def main(argv=None):
     argv : list of str, optional
         Command-line arguments (``--cells``, ``--pixels``); default ``sys.argv[1:]``.
     """
-    from . import View, trace
+    from .transfer import View, trace
 
     parser = argparse.ArgumentParser(description="Trace the built-in HII-bubble scenario and summarise it.")
     parser.add_argument("--cells", type=int, default=96, help="cells per side (default 96)")

@@ -205,8 +205,8 @@ def test_path_form_loads_through_yt(tmp_path):
 
 def test_job_file_reads_a_yt_dataset(tmp_path):
     from rtrace.errors import ConfigError
-    from rtrace.job import load_job
-    from rtrace.job_snapshot import build_snapshot
+    from rtrace.run.inputs import build_snapshot
+    from rtrace.run.job import load_job
     rng = np.random.default_rng(6)
     t = rng.uniform(5e3, 3e4, (8, 8, 8))
     rho = rng.uniform(1e-22, 1e-21, (8, 8, 8))

@@ -20,11 +20,13 @@ from astropy.io import fits
 matplotlib.use("Agg")              # no display in tests
 
 import rtrace  # noqa: E402
-from rtrace import colour_scales, plot  # noqa: E402
-from rtrace.errors import ConfigError, InputError  # noqa: E402
+import rtrace.run.engine  # noqa: E402
+from rtrace import plot  # noqa: E402
+from rtrace.errors import InputError  # noqa: E402
 from rtrace.io import atomic  # noqa: E402
-from rtrace.io.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key  # noqa: E402
-from rtrace.job import load_job, override_parallel, run_job  # noqa: E402
+from rtrace.run import colour_scales  # noqa: E402
+from rtrace.run.job import load_job, override_parallel, run_job  # noqa: E402
+from rtrace.run.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key  # noqa: E402
 
 SERIES = """
 [snapshot]
@@ -194,7 +196,7 @@ def test_truncated_edited_and_missing_outputs_are_redone(tmp_path, monkeypatch):
     untouched = expected(out) - damaged
     before = stamps(untouched)
     traces = Counter(rtrace.trace)
-    monkeypatch.setattr(rtrace, "trace", traces)
+    monkeypatch.setattr(rtrace.run.engine, "trace", traces)
     again = run_job(load_job(job_path))
     assert set(again) == damaged and set(again.skipped) == untouched
     assert traces.calls == 3                             # one view of each damaged snapshot
@@ -324,7 +326,7 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
     monkeypatch.setattr(plot, "plot_map", spy(plot.plot_map))
     monkeypatch.setattr(plot, "plot_tau_unity", spy(plot.plot_tau_unity, "tau_unity_frequency"))
     traces = Counter(rtrace.trace)
-    monkeypatch.setattr(rtrace, "trace", traces)
+    monkeypatch.setattr(rtrace.run.engine, "trace", traces)
     with monkeypatch.context() as m:
         # interrupted after the second series picture (all tracing done, pictures half drawn)
         m.setattr(Manifest, "record", crashing_record(2, lambda p: p.endswith(".png") and not p.endswith("_sed.png")))
@@ -427,22 +429,8 @@ def test_plot_vmin_vmax(observed):
 
 # --- [parallel] --------------------------------------------------------------------------------
 
-def old_trace(snapshot, view, frequencies, *, background=None, supersample=1):
-    """The signature of an rtrace build without cluster support."""
-    return RealTrace.func(snapshot, view, frequencies, background=background, supersample=supersample)
-
-
 class RealTrace:
     func = staticmethod(rtrace.trace)
-
-
-def test_parallel_settings_need_a_trace_that_takes_them(tmp_path, monkeypatch):
-    monkeypatch.setattr(rtrace, "trace", old_trace)
-    job = load_job(write(tmp_path, SERIES + '\n[parallel]\nworkers = 2\nmax_memory = "1 GB"\n'))
-    with pytest.raises(ConfigError, match=r"\[parallel\]: this rtrace build cannot trace on a dask cluster "
-                                          r"\('scheduler' / 'workers'\) or bound its memory use"):
-        run_job(job)
-    assert not (tmp_path / "out").exists()          # refused before any work
 
 
 def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatch):
@@ -472,7 +460,7 @@ def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatc
         def close(self):
             self.closed = True
 
-    monkeypatch.setattr(rtrace, "trace", new_trace)
+    monkeypatch.setattr(rtrace.run.engine, "trace", new_trace)
     monkeypatch.setattr(dask.distributed, "LocalCluster", Cluster)
     monkeypatch.setattr(dask.distributed, "Client", Client)
     text = SERIES.replace("[1, 2, 3]", "[1, 2]") + '\n[parallel]\nworkers = 3\nmax_memory = "2 GB"\n'
@@ -514,7 +502,7 @@ def test_max_memory_gives_the_images_of_an_unbounded_run(tmp_path):
     _same_images(serial, bounded)
 
 
-@pytest.mark.skipif(not _trace_takes("client", "rtrace.parallel"),
+@pytest.mark.skipif(not _trace_takes("client", "rtrace.transfer.parallel"),
                     reason="this rtrace build has no cluster support in rtrace.trace yet")
 def test_local_cluster_gives_the_serial_images(tmp_path):
     text = SERIES.replace("[1, 2, 3]", "[1]")
@@ -539,14 +527,14 @@ def _pixels(path):
 @pytest.fixture(scope="module")
 def traced_unit(tmp_path_factory):
     """A unit of a picture series and its traced (Result, SkyMap), made the way a run makes them."""
-    from rtrace.batch import plan_units
-    from rtrace.engine import Engine, trace_keywords
-    from rtrace.job import build_views
-    from rtrace.job_snapshot import build_snapshot
+    from rtrace.run.batch import plan_units
+    from rtrace.run.engine import Engine, parallel_keywords
+    from rtrace.run.inputs import build_snapshot
+    from rtrace.run.job import build_views
     tmp = tmp_path_factory.mktemp("cache")
     job = load_job(write(tmp, PICTURE_SERIES))
     units = plan_units(job, build_views(job), tmp / "out")
-    with Engine(job, trace_keywords(job)) as engine:
+    with Engine(job, parallel_keywords(job)) as engine:
         value = engine.trace(build_snapshot(job, units[0].member), units[0].view, "seed1", "a")
     return job, units, value, tmp
 
@@ -554,8 +542,8 @@ def traced_unit(tmp_path_factory):
 def test_series_cache_gives_back_what_draws_the_same_pictures(traced_unit, tmp_path):
     # The round trip must keep everything the pictures and the shared colour scales use: compared
     # against pictures drawn from the traced objects themselves (pixel by pixel).
-    from rtrace.batch import Cache
-    from rtrace.products import picture_outputs
+    from rtrace.run.batch import Cache
+    from rtrace.run.products import picture_outputs
     job, units, (res, sky), _ = traced_unit
     cache = Cache(tmp_path / ".rtrace-cache")
     cache.put(units[0], (res, sky))
@@ -589,7 +577,7 @@ def _tamper(path, how, tmp_path, units):
     import io
     import pickle
 
-    from rtrace.batch import Cache
+    from rtrace.run.batch import Cache
     data = path.read_bytes()
     if how == "flipped":              # one byte a third of the way in (array data)
         k = len(data) // 3
@@ -608,7 +596,7 @@ def _tamper(path, how, tmp_path, units):
         np.savez(buf, **arrays)
         path.write_bytes(buf.getvalue())
     elif how == "checksum_recomputed":   # a forger who edits the data and fixes the SHA-256 but lacks the key
-        from rtrace.series_cache import content_digest
+        from rtrace.run.series_cache import content_digest
         with np.load(path) as npz:
             arrays = {k: npz[k] for k in npz.files}
         arrays["intensity"] = arrays["intensity"] * 2
@@ -635,7 +623,7 @@ TAMPERING = ["flipped", "truncated", "empty", "pickle", "npz_with_object_array",
 def test_series_cache_never_uses_a_damaged_or_foreign_entry(traced_unit, tmp_path, monkeypatch, how):
     # Common practice for caches in shared folders: read no pickles, verify a checksum (SHA-256, FIPS 180-4)
     # and a signature (HMAC-SHA256, RFC 2104) with a key kept outside the output folder.
-    from rtrace.batch import Cache
+    from rtrace.run.batch import Cache
     _, units, value, _ = traced_unit
     monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "key"))
     cache = Cache(tmp_path / ".rtrace-cache")
@@ -659,7 +647,7 @@ def test_a_tampered_cache_entry_is_retraced_and_draws_the_clean_runs_pictures(tm
     clean = run_job(load_job(write(tmp_path, PICTURE_SERIES.replace('directory = "out"', 'directory = "clean"'),
                                    "clean.toml")))
     traces = Counter(rtrace.trace)
-    monkeypatch.setattr(rtrace, "trace", traces)
+    monkeypatch.setattr(rtrace.run.engine, "trace", traces)
     with monkeypatch.context() as m:
         # interrupted after the first series picture (seed1/a_intensity.png): both views traced and cached
         m.setattr(Manifest, "record", crashing_record(1, lambda p: p.endswith(".png") and not p.endswith("_sed.png")))
@@ -705,7 +693,7 @@ def test_a_snapshot_edited_with_its_size_and_mtime_kept_is_traced_again(tmp_path
 
 def test_snapshot_identity_of_large_files_samples_them(tmp_path):
     # What a sampled hash can and cannot see, on a file above the full-hash limit (made small for the test).
-    from rtrace.io.manifest import snapshot_identity
+    from rtrace.run.manifest import snapshot_identity
     path = tmp_path / "big.bin"
     block = 1 << 20
     path.write_bytes(bytes(40 * block))
@@ -735,7 +723,7 @@ def test_snapshot_identity_of_large_files_samples_them(tmp_path):
 
 
 def test_an_unreadable_snapshot_is_named_before_any_work(tmp_path):
-    from rtrace.batch import fingerprint
+    from rtrace.run.batch import fingerprint
     (tmp_path / "run").mkdir()
     snapshot_file(tmp_path / "run" / "snap_0010.h5", 1.0)
     job = load_job(write(tmp_path, HDF5_SERIES))
@@ -746,7 +734,7 @@ def test_an_unreadable_snapshot_is_named_before_any_work(tmp_path):
 
 def test_each_snapshot_of_a_series_gets_its_own_reproducible_noise(tmp_path):
     # Identical noise in every snapshot would show as persistent structure in differences between them.
-    from rtrace.engine import noise_seed
+    from rtrace.run.engine import noise_seed
     series = load_job(write(tmp_path, SERIES))
     seeds = [noise_seed(series, m["label"]) for m in series.snapshots]
     assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m["label"]) for m in series.snapshots]

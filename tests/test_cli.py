@@ -161,15 +161,39 @@ def test_bad_parallel_options_are_usage_errors(tmp_path, capsys, argv, message):
     assert not (tmp_path / "out").exists()
 
 
-def test_workers_option_overrides_the_job(tmp_path, monkeypatch, capsys):
-    import rtrace
+def test_workers_option_overrides_the_job(tmp_path, monkeypatch):
+    import dask.distributed
 
-    def serial_only(snapshot, view, frequencies, *, background=None, supersample=1):
-        raise AssertionError("not reached: the job is refused before tracing")
-    monkeypatch.setattr(rtrace, "trace", serial_only)
-    job = write(tmp_path, QUICK)
-    assert main(["run", str(job), "--quiet", "--workers", "2"]) == EXIT_CONFIG
-    assert "[parallel]: this rtrace build cannot trace on a dask cluster" in capsys.readouterr().err
+    import rtrace.run.engine
+    made, seen = [], []
+
+    class Cluster:
+        def __init__(self, **kw):
+            self.kw = kw
+            made.append(self)
+
+        def close(self):
+            pass
+
+    class Client:
+        def __init__(self, target):
+            self.target = target
+
+        def close(self):
+            pass
+
+    real = rtrace.run.engine.trace
+
+    def recorded(*args, client=None, **kwargs):
+        seen.append(client)
+        return real(*args, **kwargs)
+    monkeypatch.setattr(dask.distributed, "LocalCluster", Cluster)
+    monkeypatch.setattr(dask.distributed, "Client", Client)
+    monkeypatch.setattr(rtrace.run.engine, "trace", recorded)
+    job = write(tmp_path, QUICK)                        # the job itself asks for no cluster
+    assert main(["run", str(job), "--quiet", "--workers", "3"]) == EXIT_OK
+    assert [c.kw for c in made] == [{"n_workers": 3, "threads_per_worker": 1}]
+    assert seen and all(isinstance(c, Client) and c.target is made[0] for c in seen)
 
 
 # -- output folder and disk problems: exit 5 (EXIT_OUTPUT), nothing partial left under a final name
@@ -226,8 +250,8 @@ def test_full_disk_exits_5_and_leaves_nothing_partial(tmp_path, tmpfs, capsys, m
 
     The up-front space check is switched off here, so that the disk fills up in the middle of writing.
     """
-    import rtrace.pipeline
-    monkeypatch.setattr(rtrace.pipeline, "check_space", lambda *a, **k: None)
+    import rtrace.run.pipeline
+    monkeypatch.setattr(rtrace.run.pipeline, "check_space", lambda *a, **k: None)
     job = write(tmp_path, SMALL)
     disk = tmpfs("16k")
     code = main(["run", str(job), "--output", str(disk / "out"), "--quiet"])
@@ -240,8 +264,8 @@ def test_full_disk_exits_5_and_leaves_nothing_partial(tmp_path, tmpfs, capsys, m
 
 def test_outputs_larger_than_the_free_space_refused_before_tracing(tmp_path, tmpfs, capsys, monkeypatch):
     """A 256-pixel view at 2 frequencies makes 512 KiB float32 cubes: a 64 KiB tmpfs cannot hold one."""
-    import rtrace.engine
-    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    import rtrace.run.engine
+    monkeypatch.setattr(rtrace.run.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
     job = write(tmp_path, SMALL.replace("npix = 24", "npix = 256"))
     disk = tmpfs("64k")
     assert main(["run", str(job), "--output", str(disk), "--quiet"]) == EXIT_OUTPUT
@@ -255,8 +279,8 @@ def test_outputs_larger_than_the_free_space_refused_before_tracing(tmp_path, tmp
 
 def test_read_only_output_folder_exits_5_before_tracing(tmp_path, tmpfs, capsys, monkeypatch):
     """A real read-only file system, found by the probe before any tracing."""
-    import rtrace.engine
-    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    import rtrace.run.engine
+    monkeypatch.setattr(rtrace.run.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
     job = write(tmp_path, SMALL)
     disk = tmpfs("16k", read_only=True)
     for out in (disk, disk / "sub" / "folder"):
@@ -309,11 +333,11 @@ def test_disk_full_while_writing_is_reported_and_nothing_partial_left(tmp_path, 
 
 def test_writer_guard_refuses_paths_out_of_the_folder_behind_the_validator(tmp_path, monkeypatch):
     """Defence in depth: names changed after validation are still refused where the paths are made."""
-    import rtrace.engine
+    import rtrace.run.engine
     from rtrace.errors import OutputError
-    from rtrace.job import load_job
-    from rtrace.pipeline import run
-    monkeypatch.setattr(rtrace.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
+    from rtrace.run.job import load_job
+    from rtrace.run.pipeline import run
+    monkeypatch.setattr(rtrace.run.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
     for change in ({"name": "../escape"}, {"name": str(tmp_path / "abs")}, {"prefix": "../../X_"}):
         job = load_job(write(tmp_path, SMALL))
         if "name" in change:

@@ -502,8 +502,8 @@ directory = "out"
 
 
 def test_command_line_compare_traces_a_job_at_the_observed_frequency(tmp_path, capsys):
-    from rtrace.job import build_views, load_job
-    from rtrace.pipeline import build_snapshot
+    from rtrace.run.job import build_views, load_job
+    from rtrace.run.pipeline import build_snapshot
     job_path = tmp_path / "job.toml"
     job_path.write_text(JOB)
     job = load_job(job_path)

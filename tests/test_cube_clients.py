@@ -34,8 +34,8 @@ from rtrace.comparison.model import model_cube
 from rtrace.comparison.observation import read_observation
 from rtrace.interferometer import synthesize
 from rtrace.io.fits import output_paths, spectral_layout, write_result
-from rtrace.job import load_job, run_job
 from rtrace.observe import observe
+from rtrace.run.job import load_job, run_job
 
 # the frequency lists of the tests: even, geometric, neither, one
 LISTS = {

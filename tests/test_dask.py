@@ -140,8 +140,8 @@ def test_a_lost_worker_with_in_memory_bricks_is_traced_again(h5file, monkeypatch
 
 
 def test_workers_lost_in_every_attempt_give_a_clear_error(h5file, monkeypatch):
-    from rtrace import parallel
     from rtrace.errors import ConfigError
+    from rtrace.transfer import parallel
     monkeypatch.setattr(parallel, "ATTEMPTS", 1)
     snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
@@ -187,7 +187,7 @@ def test_rtrace_imports_without_dask():
     # Common practice for optional dependencies: rtrace (and its dask module) must import when dask is not
     # installed: None in sys.modules makes any import of dask or distributed fail.
     code = ("import sys; sys.modules['dask'] = sys.modules['distributed'] = None\n"
-            "import rtrace, rtrace.parallel, rtrace.io.lazy\n"
+            "import rtrace, rtrace.transfer.parallel, rtrace.io.lazy\n"
             "assert not [m for m in sys.modules if m.split('.')[0] in ('dask', 'distributed') and sys.modules[m]]\n")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr[-2000:]

@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 
-from rtrace.job import parse_job
-from rtrace.job_snapshot import build_snapshot
+from rtrace.run.inputs import build_snapshot
+from rtrace.run.job import parse_job
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "stars_in_clumpy_cloud"
 

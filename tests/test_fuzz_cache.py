@@ -24,11 +24,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from rtrace.batch import Cache, fingerprint
 from rtrace.errors import InputError
-from rtrace.io.manifest import snapshot_identity
-from rtrace.job import load_job
-from rtrace.series_cache import content_digest
+from rtrace.run.batch import Cache, fingerprint
+from rtrace.run.job import load_job
+from rtrace.run.manifest import snapshot_identity
+from rtrace.run.series_cache import content_digest
 
 JOB = """
 [snapshot]
@@ -62,15 +62,15 @@ def traced(tmp_path_factory):
     """Two units of a demo series and the traced (Result, SkyMap) of the first, as a run makes them."""
     import warnings
 
-    from rtrace.batch import plan_units
-    from rtrace.engine import Engine, trace_keywords
-    from rtrace.job import build_views
-    from rtrace.job_snapshot import build_snapshot
+    from rtrace.run.batch import plan_units
+    from rtrace.run.engine import Engine, parallel_keywords
+    from rtrace.run.inputs import build_snapshot
+    from rtrace.run.job import build_views
     tmp = tmp_path_factory.mktemp("fuzz-cache")
     (tmp / "job.toml").write_text(textwrap.dedent(JOB))
     job = load_job(tmp / "job.toml")
     units = plan_units(job, build_views(job), tmp / "out")
-    with Engine(job, trace_keywords(job)) as engine, warnings.catch_warnings():
+    with Engine(job, parallel_keywords(job)) as engine, warnings.catch_warnings():
         warnings.simplefilter("ignore")            # the small demo reaches the image edge
         value = engine.trace(build_snapshot(job, units[0].member), units[0].view, "seed1", "a")
     return units, value
@@ -452,7 +452,7 @@ IDENTITY_CASES = [
 
 @pytest.mark.parametrize("change", [c[1] for c in IDENTITY_CASES], ids=[c[0] for c in IDENTITY_CASES])
 def test_a_snapshot_that_cannot_be_identified_is_named(hdf5_job, change):
-    from rtrace.job import run_job
+    from rtrace.run.job import run_job
     job, path = hdf5_job
     change(path)
     with pytest.raises(InputError) as info:
@@ -465,7 +465,7 @@ def test_a_snapshot_that_cannot_be_identified_is_named(hdf5_job, change):
 
 
 def job_members(job):
-    from rtrace.job_snapshot import job_members as members
+    from rtrace.run.inputs import job_members as members
     return members(job)
 
 

@@ -1,6 +1,6 @@
 """Fuzz table of bad job files: each is refused with a ConfigError (exit 3) naming the key, and nothing is written.
 
-Every case is run twice: through :func:`rtrace.job.load_job` (the error class and the key in the message)
+Every case is run twice: through :func:`rtrace.run.job.load_job` (the error class and the key in the message)
 and through ``rtrace run`` in-process (exit code 3, the key on stderr, and no file anywhere under the
 test's folder but the job file itself: a refused job writes nothing, in the output folder or above it).
 Property tests (hypothesis) compare the validator with independent statements of what is valid.
@@ -27,8 +27,8 @@ from hypothesis import strategies as st
 
 from rtrace.cli import EXIT_CONFIG, EXIT_USAGE, main
 from rtrace.errors import ConfigError
-from rtrace.job import load_job, parse_job
-from rtrace.job_checks import check_name
+from rtrace.run.checks import check_name
+from rtrace.run.job import load_job, parse_job
 
 BASE = {
     "snapshot": {"kind": "demo", "cells": 8},

@@ -33,10 +33,10 @@ import rtrace.memory
 from rtrace.cli import main
 from rtrace.demo import scenario
 from rtrace.errors import ConfigError, InputError
-from rtrace.job import parse_job, run_job
 from rtrace.memory import check_memory, fft_kernel_bytes, format_bytes
 from rtrace.observe.beam import BeamKernel, check_beam_fits_field
 from rtrace.observe.skymap import check_observation
+from rtrace.run.job import parse_job, run_job
 
 GB = 10**9
 FAKE_AVAILABLE = 8 * GB

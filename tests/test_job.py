@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from rtrace.errors import ConfigError
-from rtrace.job import load_job, override_parallel, parse_job
+from rtrace.run.job import load_job, override_parallel, parse_job
 
 BASE = """
 [snapshot]

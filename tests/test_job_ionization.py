@@ -23,9 +23,9 @@ from scenes import warm_sphere_in_cool_gas
 
 from rtrace.errors import ConfigError
 from rtrace.io import read_hdf5
-from rtrace.job import load_job, parse_job
-from rtrace.job_snapshot import build_snapshot, ionization_model
 from rtrace.physics.ionization import CollisionalEquilibrium, FullyIonized, IonizingSources, SuppliedFraction
+from rtrace.run.inputs import build_snapshot, ionization_model
+from rtrace.run.job import load_job, parse_job
 
 SHAPE = (18, 20, 19)
 CELL_PC = 0.4

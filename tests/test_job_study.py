@@ -18,7 +18,7 @@ from astropy.wcs import WCS
 import rtrace
 from rtrace.cli import EXIT_CONFIG, EXIT_OK, main
 from rtrace.errors import ConfigError
-from rtrace.job import load_job, run_job
+from rtrace.run.job import load_job, run_job
 
 BASE = """
 [snapshot]
@@ -67,8 +67,8 @@ OBS_BEAM = radio_beam.Beam(major=40 * u.arcsec, minor=30 * u.arcsec, pa=20 * u.d
 def _observed(tmp_path):
     """The demo view at 10 GHz seen through OBS_BEAM, written as a one-plane Jy/beam image."""
     job = load_job(_write(tmp_path, BASE, "base.toml"))
-    from rtrace.job import build_views
-    from rtrace.job_snapshot import build_snapshot
+    from rtrace.run.inputs import build_snapshot
+    from rtrace.run.job import build_views
     _, view = build_views(job)[0]
     res = rtrace.trace(build_snapshot(job, job.snapshots[0]), view, [10] * u.GHz)
     res.observe(beam=OBS_BEAM).write_fits(tmp_path / "observed.fits")
@@ -214,7 +214,7 @@ def test_cut_messages_name_flags_before_tracing(tmp_path, capsys, monkeypatch):
 
     def no_trace(*args, **kwargs):
         raise AssertionError("not reached: the cut is refused before tracing")
-    monkeypatch.setattr(package, "trace", no_trace)
+    monkeypatch.setattr(package.transfer, "trace", no_trace)
     job = _write(tmp_path, BASE)
     assert main(["cut", str(job), "--start", "3, 4", "--end", "3, 4"]) == 4
     assert "--start, --end: the cut has zero length" in capsys.readouterr().err

@@ -14,7 +14,7 @@ import numpy as np
 
 import rtrace
 from rtrace.compiling import COMPILING_MESSAGE, watch_compilation
-from rtrace.warmup import warm_up
+from rtrace.run.warmup import warm_up
 
 _fresh = itertools.count()
 
@@ -110,7 +110,7 @@ def test_transposed_views_share_the_compiled_oblique_kernels():
 
 def test_pipeline_says_when_it_compiles(tmp_path, monkeypatch):
     # a kernel compiled during the trace of a run must be announced through its progress callback
-    from rtrace import engine as engine_module
+    from rtrace.run import engine as engine_module
     add = _new_function()
     real_trace = engine_module.Engine.trace
 
@@ -118,7 +118,7 @@ def test_pipeline_says_when_it_compiles(tmp_path, monkeypatch):
         add(0.0)
         return real_trace(self, snap, view, *args)
     monkeypatch.setattr(engine_module.Engine, "trace", trace_and_compile)
-    from rtrace.job import parse_job, run_job
+    from rtrace.run.job import parse_job, run_job
     job = parse_job({"snapshot": {"kind": "demo", "cells": 16},
                      "frequencies": {"values": ["1 GHz"]},
                      "view": [{"name": "v", "los": [0, 0, 1], "npix": 16, "width": "2.2 pc",

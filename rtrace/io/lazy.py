@@ -8,7 +8,7 @@ attributes) but reads no field into memory. It returns a
 model is applied per piece, with the temperature derived from the pressure
 or internal energy where the file holds those). An ``HDF5Source`` holds only
 the path, the dataset names, units and model, so it is cheap to send to
-another process: dask tasks read their own bricks (:mod:`rtrace.parallel`).
+another process: dask tasks read their own bricks (:mod:`rtrace.transfer.parallel`).
 The one exception is photoionization by sources, which needs the whole grid:
 it is solved at open (reading the file piece by piece) and its photoionized
 fraction, one float32 cube, is kept with the source.

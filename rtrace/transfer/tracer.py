@@ -29,7 +29,7 @@ arrays. Otherwise (``brick_size``, ``max_memory``, ``client``, or a
 file-backed snapshot) the grid is cut into bricks (``bricks``), each read
 once from the snapshot's field source and traced on its own sub-array;
 the patches are composited front to back (exact, see ``compositing``),
-here in sequence or by :mod:`rtrace.parallel` as a tree of dask tasks.
+here in sequence or by :mod:`rtrace.transfer.parallel` as a tree of dask tasks.
 """
 
 import copy
@@ -343,7 +343,7 @@ def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, bu
         edge = _brick_edge(route, source, edge, budget)
         order = _bricks.front_to_back(snapshot.shape, edge, view.los)
         if client is not None:
-            from .. import parallel
+            from . import parallel
             patch = parallel.trace_bricks(client, route, source, order)
         else:
             patch = _trace_in_sequence(route, source, order)

@@ -4,8 +4,8 @@ A run is planned as :class:`Unit` s, one per (snapshot, view). Every output
 of a unit carries a key of the inputs that make it (:func:`output_key`,
 built from :func:`unit_inputs`, which fingerprints the snapshot's data
 with :func:`fingerprint`); the output folder's manifest
-(:mod:`rtrace.io.manifest`) tells which of them are finished
-(:func:`split`). :class:`~rtrace.series_cache.Cache` keeps a series' traced results on disk
+(:mod:`rtrace.run.manifest`) tells which of them are finished
+(:func:`split`). :class:`~rtrace.run.series_cache.Cache` keeps a series' traced results on disk
 between tracing and drawing, :class:`Snapshots` keeps only the snapshot
 being worked on in memory, and :func:`make` writes outputs and records
 them in the manifest.
@@ -17,9 +17,9 @@ from dataclasses import dataclass
 from glob import escape as glob_escape
 from pathlib import Path
 
-from .errors import InputError
-from .io.manifest import inputs_key, snapshot_identity
-from .job_snapshot import build_snapshot, job_members
+from ..errors import InputError
+from .inputs import build_snapshot, job_members
+from .manifest import inputs_key, snapshot_identity
 from .series_cache import Cache, cache_key  # noqa: F401  (the series cache lives in its own module)
 
 __all__ = ["CACHE_NAME", "Cache", "Snapshots", "Unit", "fingerprint", "make", "observing_settings", "output_key",
@@ -37,7 +37,7 @@ _MEMBER_KEYS = ("path", "paths", "pattern", "seed", "seeds")
 def fingerprint(job, member):
     """What identifies the snapshot's data: the demo seed, or the file's content (see below).
 
-    A file is identified by :func:`rtrace.io.manifest.snapshot_identity`:
+    A file is identified by :func:`rtrace.run.manifest.snapshot_identity`:
     up to 256 MiB by the SHA-256 of its whole content, above that by its
     size, modification time and a SHA-256 of 18 sampled MiB. A yt dataset
     named by a file whose data lie in companion files beside it (names
@@ -87,7 +87,7 @@ def unit_inputs(job, member, spec, source=None):
 
     ``source`` is the member's :func:`fingerprint`, computed here when not given.
     """
-    from ._version import __version__
+    from .._version import __version__
     shared = {k: v for k, v in job.snapshot.items() if k not in _MEMBER_KEYS}
     return {"rtrace": __version__, "snapshot": shared,
             "source": fingerprint(job, member) if source is None else source,
@@ -132,7 +132,7 @@ class Unit:
 def plan_units(job, views, directory):
     """Every (snapshot, view) of the job, snapshot by snapshot, as :class:`Unit` s.
 
-    ``views`` is ``[(name, View)]`` as `rtrace.job.build_views` gives them;
+    ``views`` is ``[(name, View)]`` as `rtrace.run.job.build_views` gives them;
     a series puts each snapshot's outputs in a folder named by its label.
     """
     specs = {spec["name"]: spec for spec in job.views}

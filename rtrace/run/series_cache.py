@@ -40,8 +40,8 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
-from .errors import OutputError
-from .io.atomic import atomic_path
+from ..errors import OutputError
+from ..io.atomic import atomic_path
 
 __all__ = ["Cache", "cache_key", "CACHE_FORMAT"]
 
@@ -144,9 +144,9 @@ def to_arrays(res, sky, inputs):
 
 def from_arrays(arrays, view):
     """``(Result, SkyMap or None)`` rebuilt from :func:`to_arrays`'s arrays; ValueError if inconsistent."""
-    from .observe.skymap import SkyMap
-    from .transfer.background import Background
-    from .transfer.result import Result
+    from ..observe.skymap import SkyMap
+    from ..transfer.background import Background
+    from ..transfer.result import Result
     meta = json.loads(arrays["meta"].tobytes().decode("utf-8"))
     sky_meta = meta["sky"]
     names = set(_RESULT_ARRAYS) | {"meta"}

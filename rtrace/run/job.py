@@ -18,8 +18,9 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError
-from .job_checks import (
+from ..errors import ConfigError
+from ..physics.ionization.cells import THERMAL_INPUTS
+from .checks import (
     check_beam,
     check_frequencies,
     check_noise,
@@ -29,9 +30,8 @@ from .job_checks import (
     check_view,
     decode_job_text,
 )
-from .job_values import _check_keys, _suggest, _typed
-from .job_views import build_views
-from .physics.ionization.cells import THERMAL_INPUTS
+from .values import _check_keys, _suggest, _typed
+from .views import build_views
 
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
            "check_scheduler_address", "check_workers", "SCHEMA"]
@@ -111,7 +111,7 @@ class Job:
         (an int), and ``max_memory`` (bytes, an int).
     synthesis, comparison : dict
         ``[synthesis]`` and ``[comparison]`` as validated by
-        :mod:`rtrace.job_study` (``kwargs``, ``views``, ``key``); empty when
+        :mod:`rtrace.run.study` (``kwargs``, ``views``, ``key``); empty when
         the job has none.
     text : str or None
         The job file's text (:func:`load_job`); a run keeps a copy of it
@@ -547,7 +547,7 @@ def parse_job(raw, base_dir="."):
     out["directory"] = (base_dir / out["directory"]).resolve()
     check_output(out)
     par = _parallel(_section(raw, "parallel"))
-    from .job_study import comparison_section, synthesis_section
+    from .study import comparison_section, synthesis_section
     view_names = [v["name"] for v in views]
     synthesis = synthesis_section(_section(raw, "synthesis"), base_dir, view_names)
     comparison = comparison_section(_section(raw, "comparison"), base_dir, view_names, nu)
@@ -556,9 +556,9 @@ def parse_job(raw, base_dir="."):
     built = build_views(job)      # the View constructor validates geometry now, not after tracing
     from .engine import check_sizes
     check_sizes(job, built)       # images and beam kernels fit in memory; beam narrower than the field
-    from .job_study import check_synthesis_grids
+    from .study import check_synthesis_grids
     check_synthesis_grids(job, built)
-    from .job_snapshot import check_datasets, check_ionization
+    from .inputs import check_datasets, check_ionization
     check_ionization(job)         # the model's values, and sources against the grid, before any field is read
     check_datasets(job)           # the named datasets exist, numeric, 3-D, one shape (metadata only)
     return job
@@ -589,7 +589,7 @@ def run_job(job, progress=None, restart=False):
     ``progress(step, total, message)`` is called before each step (the command
     line draws a progress bar from it). Outputs recorded as finished in the
     output folder's manifest are skipped unless ``restart`` (see
-    :func:`rtrace.pipeline.run`).
+    :func:`rtrace.run.pipeline.run`).
     """
     from .pipeline import run
     return run(job, progress=progress, restart=restart)

@@ -31,7 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .atomic import atomic_path
+from ..io.atomic import atomic_path
 
 __all__ = ["Manifest", "MANIFEST_NAME", "file_sha256", "inputs_key", "snapshot_identity", "FULL_HASH_LIMIT"]
 

@@ -5,7 +5,7 @@ import difflib
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError
+from ..errors import ConfigError
 
 _PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg, "rate": u.s**-1,
              "flux_per_beam": u.Jy / u.beam, "memory_size": u.byte, "time": u.s}

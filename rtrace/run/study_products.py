@@ -11,7 +11,7 @@ Named like every other output, ``<folder>/<prefix><view>_<suffix>``:
   ``<view>_comparison.csv``: flux densities over the common footprint and in
   every aperture of the region files.
 
-Each is an :class:`rtrace.products.Output` whose key holds the view's
+Each is an :class:`rtrace.run.products.Output` whose key holds the view's
 inputs and the section's settings and file fingerprints, so the manifest
 skips it on a rerun and redoes it when the antenna layout, the observed
 image or a region file changes. The synthesized map and the comparison are
@@ -22,9 +22,9 @@ from functools import partial
 
 import astropy.units as u
 
+from ..io.atomic import atomic_path
 from .batch import output_key
-from .io.atomic import atomic_path
-from .io.manifest import inputs_key
+from .manifest import inputs_key
 from .products import Output
 
 __all__ = ["study_outputs", "job_copy_output", "check_job_copy", "JOB_COPY_NAME"]
@@ -58,14 +58,14 @@ class _Once:
 
 
 def _synthesize(res, kwargs):
-    from .interferometer import synthesize
+    from ..interferometer import synthesize
     return synthesize(res, **kwargs)
 
 
 def _compare(res, kwargs):
     import warnings
 
-    from .comparison import ComparisonWarning, compare
+    from ..comparison import ComparisonWarning, compare
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ComparisonWarning)      # notes are written into the CSV
         return compare(res, kwargs["observation"])
@@ -76,7 +76,7 @@ def _write_synth_fits(path, res, sky, once):
 
 
 def _draw_synth(path, res, sky, once):
-    from .plot import plot_panels
+    from ..plot import plot_panels
     _close(plot_panels(once(res), quantity="intensity", path=path))
 
 
@@ -110,7 +110,7 @@ def _write_comparison_csv(path, res, sky, once, apertures, name):
 
 
 def study_outputs(job, unit, fmt):
-    """The ``[synthesis]`` and ``[comparison]`` outputs of one view (a `rtrace.batch.Unit`)."""
+    """The ``[synthesis]`` and ``[comparison]`` outputs of one view (a `rtrace.run.batch.Unit`)."""
     pictures = job.output.get("pictures", True)
     plan = []
     syn = job.synthesis
@@ -147,7 +147,7 @@ def _recorded_names(directory):
     """Names the folder's manifest file records, read without judging it (empty if unreadable)."""
     import json
 
-    from .io.manifest import MANIFEST_NAME
+    from .manifest import MANIFEST_NAME
     try:
         data = json.loads((directory / MANIFEST_NAME).read_text(encoding="utf-8"))
         return set(data.get("outputs", {}))
@@ -167,7 +167,7 @@ def check_job_copy(job, directory):
     ConfigError
         Naming the file and what to do.
     """
-    from .errors import ConfigError
+    from ..errors import ConfigError
     path = directory / JOB_COPY_NAME
     if job.text is None or not path.exists() or JOB_COPY_NAME in _recorded_names(directory):
         return

@@ -1,13 +1,12 @@
 """The engine a run traces with: the ``[parallel]`` check, the dask client, trace and observe of one view.
 
-:func:`trace_keywords` checks, before any work, that this build's
-`rtrace.trace` takes the keywords ``[parallel]`` needs; :class:`Engine`
+:func:`parallel_keywords` names the keywords ``[parallel]`` passes to
+`rtrace.trace`; :class:`Engine`
 traces one view with the job's ``[trace]`` settings, observes it with
 ``[beam]`` and ``[noise]`` when the job has a beam, and owns the dask
 client for the whole run (started on first use, closed at the end).
 """
 
-import inspect
 import time
 import warnings
 import zlib
@@ -15,10 +14,11 @@ import zlib
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError, InputError
-from .observe.edges import warn_if_emission_at_edge
+from ..errors import ConfigError, InputError
+from ..observe.edges import warn_if_emission_at_edge
+from ..transfer.tracer import DEFAULT_TOLERANCE, trace
 
-__all__ = ["Engine", "noise_seed", "trace_keywords", "check_sizes"]
+__all__ = ["Engine", "noise_seed", "parallel_keywords", "check_sizes"]
 
 
 def noise_seed(job, label=None):
@@ -56,9 +56,9 @@ def _observe(res, job, label=None):
 
 def _check_view(job, name, view, pixel_cm):
     """The sizes of one view known before tracing: images (npix x frequencies), beam against field."""
-    from .memory import check_memory, format_bytes, trace_image_bytes, trace_ray_bytes
-    from .observe.beam import beams_for_frequencies
-    from .observe.skymap import check_observation
+    from ..memory import check_memory, format_bytes, trace_image_bytes, trace_ray_bytes
+    from ..observe.beam import beams_for_frequencies
+    from ..observe.skymap import check_observation
     nu = job.frequencies.to_value(u.Hz)
     ny, nx = view.shape
     where = f"[[view]] '{name}' npix"
@@ -113,27 +113,14 @@ def check_sizes(job, views):
                 raise ConfigError(str(exc)) from None
 
 
-def trace_keywords(job):
-    """The keywords ``[parallel]`` needs ``rtrace.trace`` to take; ConfigError if this build lacks them.
-
-    Checked before any work, so that a job does not fail after hours of tracing.
-    """
-    from . import trace
+def parallel_keywords(job):
+    """The keywords of `rtrace.trace` that ``[parallel]`` sets: ``client`` (a cluster), ``max_memory``."""
     par = job.parallel
     wanted = []
     if "scheduler" in par or "workers" in par:
         wanted.append("client")
     if "max_memory" in par:
         wanted.append("max_memory")
-    if not wanted:
-        return ()
-    params = inspect.signature(trace).parameters
-    missing = [k for k in wanted if k not in params]
-    if missing:
-        what = {"client": "trace on a dask cluster ('scheduler' / 'workers')",
-                "max_memory": "bound its memory use ('max_memory')"}
-        raise ConfigError(f"[parallel]: this rtrace build cannot {' or '.join(what[k] for k in missing)}: "
-                          f"rtrace.trace takes no {' or '.join(repr(k) for k in missing)} keyword")
     return tuple(wanted)
 
 
@@ -164,8 +151,6 @@ class Engine:
 
     def trace(self, snap, view, label=None, view_name="view"):
         """``(Result, SkyMap or None)`` of one view of ``snap``; ``label`` names the snapshot of a series."""
-        from . import trace
-        from .transfer.tracer import DEFAULT_TOLERANCE
         job = self.job
         kw = {}
         if "client" in self.keywords:

@@ -33,8 +33,8 @@ it, so rtrace works without dask installed.
 
 from concurrent.futures import CancelledError
 
-from .errors import ConfigError, warn_user
-from .transfer.compositing import composite_patches
+from ..errors import ConfigError, warn_user
+from .compositing import composite_patches
 
 __all__ = ["trace_bricks", "ATTEMPTS"]
 

@@ -34,7 +34,7 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError, InputError
+from ..errors import ConfigError, InputError
 
 __all__ = ["synthesis_section", "comparison_section", "check_synthesis_grids", "file_fingerprint"]
 
@@ -66,14 +66,14 @@ def _views(spec, where, names):
         raise ConfigError(f"{where}.views: expected a non-empty list of view names")
     for v in views:
         if v not in names:
-            from .job_values import _suggest
+            from .values import _suggest
             raise ConfigError(f"{where}.views: no view named {v!r}{_suggest(str(v), names)} (the job has: "
                               f"{', '.join(names)})")
     return list(views)
 
 
 def _angles(value, where, count, kinds=("angle",)):
-    from .job_values import _typed
+    from .values import _typed
     if not isinstance(value, list) or len(value) != count:
         raise ConfigError(f"{where}: expected a list of {count} values with units")
     return u.Quantity([_typed(v, kinds, f"{where}[{i}]") for i, v in enumerate(value)])
@@ -81,9 +81,9 @@ def _angles(value, where, count, kinds=("angle",)):
 
 def synthesis_section(spec, base_dir, view_names):
     """Validate ``[synthesis]`` (already type-checked by the schema); {} when absent."""
-    from .interferometer.array import antenna_positions, hour_angle_samples
-    from .interferometer.imaging import WEIGHTINGS
-    from .interferometer.sampling import PRIMARY_BEAMS
+    from ..interferometer.array import antenna_positions, hour_angle_samples
+    from ..interferometer.imaging import WEIGHTINGS
+    from ..interferometer.sampling import PRIMARY_BEAMS
 
     if not spec:
         return {}
@@ -157,7 +157,7 @@ def comparison_section(spec, base_dir, view_names, frequencies):
     import radio_beam
     import regions
 
-    from .comparison import read_observation
+    from ..comparison import read_observation
 
     if not spec:
         return {}
@@ -222,9 +222,9 @@ def check_synthesis_grids(job, views):
     is checked when the view is synthesized); also that no two antennas stand closer than one
     dish diameter. ``views`` is ``[(name, View)]``.
     """
-    from .interferometer.grid import AIRY_FWHM_FACTOR, image_grid
-    from .interferometer.sampling import GAUSSIAN_FWHM_FACTOR
-    from .physics.constants import C
+    from ..interferometer.grid import AIRY_FWHM_FACTOR, image_grid
+    from ..interferometer.sampling import GAUSSIAN_FWHM_FACTOR
+    from ..physics.constants import C
 
     syn = job.synthesis
     if not syn:

@@ -8,7 +8,7 @@ snapshots of a series into one ``vmin``/``vmax`` per quantity.
 import astropy.units as u
 import numpy as np
 
-from .analysis.spectra import THIN_SPECTRAL_INDEX
+from ..analysis.spectra import THIN_SPECTRAL_INDEX
 from .products import PICTURES
 
 __all__ = ["series_limits", "view_ranges"]
@@ -22,8 +22,8 @@ def view_ranges(res, sky, nfreq):
     Jy/beam with noise, Planck or Rayleigh-Jeans brightness temperatures, the
     S/N-blanked spectral index).
     """
-    from .analysis.spectra import middle_frequency_index
-    from .plot import _plane
+    from ..analysis.spectra import middle_frequency_index
+    from ..plot import _plane
     ranges = {}
     for stem, q, observed in PICTURES:
         if observed and sky is None:

@@ -70,7 +70,7 @@ class Output:
 
 
 def _write_quantity(path, res, sky, quantity, spectral_axis="auto"):
-    from .io.fits import write_result
+    from ..io.fits import write_result
     write_result(res, path, quantity=quantity, spectral_axis=spectral_axis)
 
 
@@ -80,12 +80,12 @@ def _write_sky(path, res, sky, spectral_axis="auto"):
 
 def _cube_files(job, path, frequencies=True):
     """The files a cube output writes: one, or one per plane for an irregular frequency list."""
-    from .io.fits import output_paths
+    from ..io.fits import output_paths
     return output_paths(path, job.frequencies if frequencies else None, job.output.get("spectral_axis", "auto"))
 
 
 def _write_sed(path, res, sky, name, observed):
-    from .analysis.spectra import describe_background, sed, write_sed_csv
+    from ..analysis.spectra import describe_background, sed, write_sed_csv
     obj = sky if observed else res
     nu, flux = sed(obj)
     write_sed_csv(path, nu, flux, metadata={"source": res.provenance.get("source", ""), "view": name,
@@ -94,15 +94,15 @@ def _write_sed(path, res, sky, name, observed):
 
 
 def _draw_sed(path, res, sky, name, observed):
-    from .analysis.spectra import sed
-    from .plot import plot_sed
+    from ..analysis.spectra import sed
+    from ..plot import plot_sed
     nu, flux = sed(sky if observed else res)
     _close(plot_sed(nu, flux, path=path, label=f"{name} ({'observed map' if observed else 'model'})"))
 
 
 def _draw_picture(path, res, sky, quantity, observed, limits):
-    from .analysis.spectra import middle_frequency_index
-    from .plot import plot_map, plot_panels, plot_tau_unity
+    from ..analysis.spectra import middle_frequency_index
+    from ..plot import plot_map, plot_panels, plot_tau_unity
     obj = sky if observed else res
     kw = {}
     if limits is not None:
@@ -131,14 +131,14 @@ def _close(fig):
 
 def _stem(job, unit, suffix):
     """``<folder>/<prefix><view>_<suffix>``, refused (OutputError) unless it lies inside the output folder."""
-    from .io.outdir import check_inside
+    from ..io.outdir import check_inside
     path = unit.folder / f"{job.output.get('prefix', '')}{unit.name}_{suffix}"
     label = f", snapshot label '{unit.member['label']}'" if job.series else ""
     return check_inside(path, job.output["directory"], f"[output].prefix, [[view]].name '{unit.name}'{label}")
 
 
 def data_outputs(job, unit, quantities, fmt):
-    """``(cubes, spectra)``: the FITS outputs and the SED outputs of one view (a `rtrace.batch.Unit`)."""
+    """``(cubes, spectra)``: the FITS outputs and the SED outputs of one view (a `rtrace.run.batch.Unit`)."""
     out, obs = job.output, observing_settings(job)
     cubes, spectra = [], []
     if out.get("fits", True):

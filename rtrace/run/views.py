@@ -2,8 +2,8 @@
 
 from astropy.coordinates import SkyCoord
 
-from .errors import ConfigError, InputError
-from .transfer import View
+from ..errors import ConfigError, InputError
+from ..transfer import View
 
 
 def build_views(job):

@@ -1,6 +1,6 @@
 """Compile the transfer kernels into numba's on-disk cache, so that a first run starts at once.
 
-``python -m rtrace.warmup`` (run by ``make`` when it installs the package)
+``python -m rtrace.run.warmup`` (run by ``make`` when it installs the package)
 traces a tiny invented grid along every route a job takes with the
 package's default field type (float32): lines of sight along each grid
 axis, an oblique view in and out of the grid's memory order (with and
@@ -39,13 +39,13 @@ _TOLERANCES = (1e-2, 1e-4)
 
 def _grid(n=12):
     """A small ionized sphere in empty space (invented; float32 like any default snapshot)."""
-    from .snapshot import Snapshot
+    from ..snapshot import Snapshot
     x = (np.arange(n) + 0.5) / n - 0.5
     r = np.sqrt(x[:, None, None]**2 + x[None, :, None]**2 + x[None, None, :]**2)
     ne = np.where(r < 0.35, 100.0, 0.0)
     temp = np.full_like(ne, 1.0e4)
     return Snapshot.from_arrays(temperature=temp * u.K, electron_density=ne * u.cm**-3,
-                                cell_size=0.01 * u.pc, source="rtrace.warmup")
+                                cell_size=0.01 * u.pc, source="rtrace.run.warmup")
 
 
 def warm_up(say=None):
@@ -62,8 +62,8 @@ def warm_up(say=None):
         How many kernels were compiled and the seconds it took (0 when the
         cache was already warm); see :func:`rtrace.compiling.watch_compilation`.
     """
-    from . import View, trace
-    from .compiling import watch_compilation
+    from ..compiling import watch_compilation
+    from ..transfer import View, trace
     snap = _grid()
     several, one = [1.0, 10.0, 100.0] * u.GHz, [5.0] * u.GHz
     with watch_compilation(say) as seen:
@@ -82,7 +82,7 @@ def warm_up(say=None):
 
 
 def main(argv=None):
-    """``python -m rtrace.warmup``: compile the kernels; prints what it did. Exit status 0."""
+    """``python -m rtrace.run.warmup``: compile the kernels; prints what it did. Exit status 0."""
     t0 = time.perf_counter()
     seen = warm_up(lambda message: print(f"rtrace warm-up: {message}", flush=True))
     if not seen.count:

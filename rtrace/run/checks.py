@@ -1,6 +1,6 @@
 """Checks of a job's values that a schema type cannot express, all made before any snapshot is read.
 
-:mod:`rtrace.job` reads each key with the right type (an int, a list, a
+:mod:`rtrace.run.job` reads each key with the right type (an int, a list, a
 quantity of the right physical type); the functions here then check the
 values themselves: finite and positive sizes, distances and frequencies,
 no duplicate frequency, beam axes in order, declinations on the sphere,
@@ -17,7 +17,7 @@ import string
 import astropy.units as u
 import numpy as np
 
-from .errors import ConfigError
+from ..errors import ConfigError
 
 __all__ = ["check_name", "check_prefix", "check_view", "check_beam", "check_frequencies", "check_trace",
            "check_noise", "check_snapshot", "check_output", "decode_job_text"]
@@ -342,7 +342,7 @@ def check_output(out):
     if "picture_format" in out:
         formats = _picture_formats()
         if out["picture_format"] not in formats:
-            from .job_values import _suggest
+            from .values import _suggest
             fmt = out["picture_format"]
             raise ConfigError(f"[output].picture_format: '{fmt}'{_suggest(fmt, formats)} is not one of "
                               f"{', '.join(formats)}")

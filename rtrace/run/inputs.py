@@ -10,13 +10,13 @@ from pathlib import Path
 
 import astropy.units as u
 
-from .physics.ionization.cells import THERMAL_INPUTS
+from ..physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization", "check_datasets"]
 
 
 def _composition(ion):
-    from .physics.ionization import Composition
+    from ..physics.ionization import Composition
     if "hydrogen_mass_fraction" in ion or "helium_mass_fraction" in ion:
         return Composition(hydrogen=ion.get("hydrogen_mass_fraction", 0.70),
                            helium=ion.get("helium_mass_fraction", 0.28))
@@ -29,7 +29,7 @@ def ionization_model(job):
     A supplied fraction names datasets (or yt fields, ``"gas/x_HII"``) the
     reader fetches, over the same sub-volume.
     """
-    from .physics.ionization import (
+    from ..physics.ionization import (
         CollisionalEquilibrium,
         FullyIonized,
         IonizingSources,
@@ -75,9 +75,9 @@ def check_ionization(job):
     """
     import numpy as np
 
-    from .errors import ConfigError, InputError
-    from .io.hdf5 import _subvolume, file_geometry, open_file
-    from .snapshot import _vector3
+    from ..errors import ConfigError, InputError
+    from ..io.hdf5 import _subvolume, file_geometry, open_file
+    from ..snapshot import _vector3
     if "density" not in job.snapshot:
         return
     try:
@@ -109,7 +109,7 @@ def check_ionization(job):
 
 def _job_key(job, message):
     """``"[snapshot].temperature: ..."`` from a reader's ``"temperature: ..."`` (the key the job wrote)."""
-    from .io.hdf5 import MODEL_FIELD
+    from ..io.hdf5 import MODEL_FIELD
     param, sep, rest = message.partition(": ")
     if sep and param in job.snapshot:
         return f"[snapshot].{param}: {rest}"
@@ -134,8 +134,8 @@ def check_datasets(job):
     ConfigError
         Naming the job key (``[snapshot].temperature``), the dataset and the file.
     """
-    from .errors import ConfigError, InputError
-    from .io.hdf5 import _subvolume, checked_names, file_geometry, open_fields, open_file, wanted_fields
+    from ..errors import ConfigError, InputError
+    from ..io.hdf5 import _subvolume, checked_names, file_geometry, open_fields, open_file, wanted_fields
 
     snap = job.snapshot
     if snap["kind"] != "hdf5":
@@ -170,7 +170,7 @@ def build_snapshot(job, member=None):
 
     Parameters
     ----------
-    job : `~rtrace.job.Job`
+    job : `~rtrace.run.job.Job`
     member : dict, optional
         An entry of ``job.snapshots``; default the first.
 
@@ -181,11 +181,11 @@ def build_snapshot(job, member=None):
     snap = job.snapshot
     member = member or job_members(job)[0]
     if snap["kind"] == "demo":
-        from .demo import scenario
+        from ..demo import scenario
         return scenario(n=snap.get("cells", 64), seed=member.get("seed", snap.get("seed", 7)))
     if snap["kind"] == "yt":
         return _from_yt(job, snap, member)
-    from .io.hdf5 import read_hdf5
+    from ..io.hdf5 import read_hdf5
     kw = {k: snap[k] for k in _HDF5_KEYS if k in snap}
     if "subvolume" in snap:
         kw["subvolume"] = tuple(tuple(p) for p in snap["subvolume"])
@@ -200,7 +200,7 @@ def _yt_field(name):
 
 
 def _from_yt(job, snap, member):
-    from .snapshot import Snapshot
+    from ..snapshot import Snapshot
     kw = {k: _yt_field(snap[k]) for k in _FIELD_KEYS if k in snap}
     if "gamma" in snap:
         kw["gamma"] = snap["gamma"]

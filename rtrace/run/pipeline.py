@@ -1,15 +1,15 @@
 """Run a validated job: build each snapshot, trace every view, observe, write every output.
 
 This module is the orchestrator, :func:`run`; the pieces it drives live in
-their own modules: :mod:`rtrace.job_snapshot` (the job's snapshots and
-:func:`build_snapshot`), :mod:`rtrace.engine` (tracing and observing one
-view, the ``[parallel]`` settings), :mod:`rtrace.batch` (units of work,
-input keys, the series cache, snapshot reuse), :mod:`rtrace.products` (the
-files made of each view) and :mod:`rtrace.colour_scales` (a series' shared
+their own modules: :mod:`rtrace.run.inputs` (the job's snapshots and
+:func:`build_snapshot`), :mod:`rtrace.run.engine` (tracing and observing one
+view, the ``[parallel]`` settings), :mod:`rtrace.run.batch` (units of work,
+input keys, the series cache, snapshot reuse), :mod:`rtrace.run.products` (the
+files made of each view) and :mod:`rtrace.run.colour_scales` (a series' shared
 colour scales).
 
 Every output is planned before any work, with a key of the inputs that make
-it (see :mod:`rtrace.io.manifest`). Outputs that the output folder's manifest
+it (see :mod:`rtrace.run.manifest`). Outputs that the output folder's manifest
 records as finished from the same inputs, and whose files still match the
 recorded size and SHA-256, are skipped; a view is traced only when one of
 its outputs has to be made. An interrupted run therefore resumes where it
@@ -17,7 +17,7 @@ stopped, and a changed setting redoes exactly the outputs it affects.
 
 A job file's text is kept with its outputs as ``<directory>/job.toml``;
 ``[synthesis]`` and ``[comparison]`` add their files to each view's plan
-(:mod:`rtrace.study_products`).
+(:mod:`rtrace.run.study_products`).
 
 Layout: a single snapshot writes ``<directory>/<prefix><view>_<quantity>.<ext>``;
 a series (``paths``, ``pattern`` or ``seeds``) writes
@@ -29,22 +29,22 @@ results wait for that in a hidden cache folder in the output directory
 removed when the run completes and reused by the next run when it is
 interrupted. An entry is used only when its SHA-256 checksum and its
 signature with a key of the user's kept outside the output folder verify
-and it was made from the same inputs (:mod:`rtrace.series_cache`); it is
+and it was made from the same inputs (:mod:`rtrace.run.series_cache`); it is
 read without pickles, so it can run no code, and one damaged, truncated or
 written by anyone else is ignored and the view traced again.
 """
 
+from ..compiling import watch_compilation
+from ..errors import OutputError
+from ..io.outdir import check_output_paths, check_space, check_writable
 from .batch import CACHE_NAME, Cache, Snapshots, make, plan_units, split
 from .colour_scales import series_limits, view_ranges
-from .compiling import watch_compilation
-from .engine import Engine, trace_keywords
-from .errors import OutputError
-from .io.manifest import MANIFEST_NAME, Manifest
-from .io.outdir import check_output_paths, check_space, check_writable
-from .job_snapshot import build_snapshot
-from .job_views import build_views
+from .engine import Engine, parallel_keywords
+from .inputs import build_snapshot
+from .manifest import MANIFEST_NAME, Manifest
 from .products import QUANTITIES, data_outputs, picture_outputs
 from .study_products import check_job_copy, job_copy_output, study_outputs
+from .views import build_views
 
 __all__ = ["run", "build_snapshot", "Outputs", "CACHE_NAME"]
 
@@ -111,7 +111,7 @@ def run(job, progress=None, restart=False):
 
     Parameters
     ----------
-    job : `~rtrace.job.Job`
+    job : `~rtrace.run.job.Job`
     progress : callable, optional
         ``progress(step, total, message)``, called as work proceeds;
         messages say which outputs were up to date and skipped, and when
@@ -143,7 +143,7 @@ def run(job, progress=None, restart=False):
     quantities = out.get("quantities", list(QUANTITIES))
     fmt = out.get("picture_format", "png")
     pictures = out.get("pictures", True)
-    keywords = trace_keywords(job)
+    keywords = parallel_keywords(job)
     views = build_views(job)
     directory = out["directory"]
     check_writable(directory, "[output].directory")    # read-only, no permission, a file: before any work
