@@ -30,7 +30,7 @@ LAYERS = [
     ("snapshot", ["rtrace.gas", "rtrace.snapshot", "rtrace.amr", "rtrace.io.hdf5", "rtrace.io.lazy",
                   "rtrace.io.ytdata", "rtrace.io.atomic", "rtrace.io.outdir"]),
     ("transfer", ["rtrace.transfer"]),
-    ("result", ["rtrace.transfer.result"]),
+    ("result", ["rtrace.transfer.result", "rtrace.transfer.high_level"]),
     ("products", ["rtrace.observe", "rtrace.analysis", "rtrace.comparison", "rtrace.interferometer",
                   "rtrace.io.fits"]),
     ("plot", ["rtrace.plot"]),
@@ -38,7 +38,7 @@ LAYERS = [
     ("cli", ["rtrace.cli"]),
 ]
 
-# (importer, imported): upward imports still to remove. Shrinks; never grows.
+# (importer, imported): methods of a product object that hand it to a layer above (see the docstring)
 CONVENIENCES = {
     ("rtrace.transfer.result", "rtrace.analysis.cuts"): "Result.cut",
     ("rtrace.transfer.result", "rtrace.analysis.depth"): "Result.tau_unity_depth, Result.contribution",
@@ -47,8 +47,8 @@ CONVENIENCES = {
     ("rtrace.transfer.result", "rtrace.io.fits"): "Result.write_fits",
 }
 
+# (importer, imported): upward imports still to remove. Shrinks; never grows.
 KNOWN_UPWARD = {
-    ("rtrace.transfer.tracer", "rtrace.transfer.result"),     # the tracer builds its Result
     ("rtrace.analysis.cuts", "rtrace.plot"),                 # drawing helpers still in plot's private names
     ("rtrace.comparison.core", "rtrace.plot"),
     ("rtrace.comparison.figure", "rtrace.plot"),

@@ -16,7 +16,8 @@ import numpy as np
 
 from ..errors import ConfigError, InputError
 from ..observe.edges import warn_if_emission_at_edge
-from ..transfer.tracer import DEFAULT_TOLERANCE, trace
+from ..transfer import trace
+from ..transfer.tracer import DEFAULT_TOLERANCE
 
 __all__ = ["Engine", "noise_seed", "parallel_keywords", "check_sizes"]
 

@@ -1,7 +1,7 @@
 """Ray layout (View), numba kernels, compositing and the tracer."""
 
+from .high_level import trace
 from .result import Result
-from .tracer import trace
 from .view import View
 
 __all__ = ["Result", "View", "trace"]

@@ -1,7 +1,5 @@
 """Result: the sky-plane product of a trace, before any instrument is applied."""
 
-from collections import namedtuple
-
 import astropy.units as u
 import numpy as np
 from astropy.coordinates import SkyCoord
@@ -9,50 +7,13 @@ from astropy.coordinates import SkyCoord
 from ..errors import InputError, PixelAccuracyWarning  # noqa: F401  (also rtrace.transfer.result.PixelAccuracyWarning)
 from ..physics.constants import PC
 from .background import Background, brightness_temperature_cgs, check_convention, resolve_convention
+from .pixel_error import PixelError
 
 __all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
 
 INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 # Where an image lands on the sky when the View gives no sky_position (written to FITS headers).
 DEFAULT_SKY_POSITION = SkyCoord(ra=0.0 * u.deg, dec=0.0 * u.deg, frame="icrs")
-
-
-class PixelError(namedtuple("PixelError", "max_relative supersample tolerance floor converged")):
-    """How accurately each pixel's footprint mean was computed.
-
-    Attributes
-    ----------
-    max_relative : float
-        Largest relative error estimate over the intensity (per frequency,
-        background subtracted) and emission-measure images, over pixels whose
-        absolute value is at least ``floor`` times the image's peak. On an
-        oblique view traced by the split (:mod:`rtrace.transfer.oblique_split`)
-        it is the remainder's estimated quadrature error (the emission
-        measure and optical depth are exact there); otherwise twice
-        ``|X_s - X_2s| / |X_2s|`` between the returned lattice
-        (``supersample`` rays per cell, ``X_2s``) and one half as dense.
-        0.0 on axis-aligned views (exact) and NaN where no estimate was
-        made (an oblique view traced without ``tolerance``).
-    supersample : int
-        Rays per cell side of the returned image's finest lattice (with the
-        split, used only in the blocks of pixels that needed it).
-    tolerance : float or None
-        What was asked for (None: no ``tolerance``, or ``supersample`` given explicitly).
-    floor : float
-        Pixels fainter than this fraction of the peak are not checked.
-    converged : bool
-        Whether ``max_relative <= tolerance`` was reached (True on axis-aligned views).
-    """
-
-    __slots__ = ()
-
-    def describe(self):
-        """One line for provenance and FITS headers."""
-        if self.tolerance is None:
-            return f"not estimated (supersample={self.supersample}, no tolerance asked)"
-        state = "met" if self.converged else "NOT met"
-        return (f"max relative {self.max_relative:.3g} at supersample={self.supersample} "
-                f"(tolerance {self.tolerance:g} {state}; pixels above {self.floor:g} of the peak)")
 
 
 class Result:
@@ -113,9 +74,20 @@ class Result:
         ratio = pixel_size_cm / view.distance.to_value(u.cm)
         self.pixel_solid_angle = ratio**2 * u.sr
         self.pixel_scale = (ratio * u.rad).to(u.arcsec)
-        self._snapshot = None           # set by trace(): the diagnostics retrace the same rays
+        self._snapshot = None           # set by from_images(): the diagnostics retrace the same rays
         self._trace_options = {}
         self._unabsorbed = None
+
+    @classmethod
+    def from_images(cls, images):
+        """The Result of a trace's :class:`~rtrace.transfer.tracer.TracedImages`, able to retrace its rays."""
+        res = cls(images.intensity, images.tau, images.em, images.nu, images.view, images.pixel_size_cm,
+                  images.center_cm, images.provenance, rays_per_pixel=images.rays_per_pixel,
+                  background=images.background, background_info=images.background_info,
+                  pixel_error=images.pixel_error)
+        res._snapshot = images.snapshot
+        res._trace_options = dict(images.trace_options)
+        return res
 
     @property
     def sky_position(self):
@@ -255,10 +227,10 @@ class Result:
         reference to its snapshot for this.
         """
         if self._unabsorbed is None:
-            from .tracer import trace
+            from .tracer import trace_images
             snap = self._require_snapshot("unabsorbed_intensity")
-            thin = trace(snap, self.view, self.frequencies, absorption=False, **self._trace_options)
-            self._unabsorbed = thin._intensity
+            thin = trace_images(snap, self.view, self.frequencies, absorption=False, **self._trace_options)
+            self._unabsorbed = thin.intensity
         return u.Quantity(self._unabsorbed, INTENSITY_UNIT, copy=False)
 
     def tau_unity_depth(self):
