@@ -48,6 +48,19 @@ class Result:
     view, center, provenance
         The view, the image centre in snapshot coordinates (cm) and the
         snapshot's provenance.
+
+    Notes
+    -----
+    Six conveniences hand the Result to the layers above it, each the
+    same as calling the function it names: :meth:`observe`
+    (:func:`rtrace.observe.observe`), :meth:`write_fits`
+    (:func:`rtrace.io.fits.write_result`), :meth:`cut`
+    (:func:`rtrace.analysis.cuts.cut`), :meth:`tau_unity_depth` and
+    :meth:`contribution` (:mod:`rtrace.analysis.depth`) and
+    :meth:`turnover_frequency`
+    (:func:`rtrace.analysis.spectra.tau_unity_frequency`). They import
+    those layers when called, never when this module loads; no other
+    method reaches above the transfer layer (``tests/test_layers.py``).
     """
 
     # Results pickled before the background was described carry none of their own
