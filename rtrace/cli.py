@@ -205,9 +205,9 @@ def cmd_inspect(args):
     print(snap.describe())
     lo, hi = snap.extent
     print(f"  extent     {', '.join(f'{v:.4g}' for v in (hi - lo) / u.pc.to(u.cm))} pc")
-    ne = snap._ne.astype(float)
-    ni = snap._ni.astype(float)
-    t = snap._t.astype(float)
+    ne = snap.electron_density.to_value(u.cm**-3).astype(float)
+    ni = snap.ion_density.to_value(u.cm**-3).astype(float)
+    t = snap.temperature.to_value(u.K).astype(float)
     ionized = ne * ni > 0
     print(f"  ionized cells {int(ionized.sum())} of {ionized.size}")
     if not ionized.any():

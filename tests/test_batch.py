@@ -7,7 +7,6 @@ import importlib.util
 import inspect
 import json
 import os
-import textwrap
 from pathlib import Path
 
 import astropy.units as u
@@ -19,6 +18,8 @@ from astropy.io import fits
 
 matplotlib.use("Agg")              # no display in tests
 
+from jobs import BEAM, NOISE, TWO_FREQUENCIES, demo, job_text, view, write  # noqa: E402
+
 import rtrace  # noqa: E402
 import rtrace.run.engine  # noqa: E402
 from rtrace import plot  # noqa: E402
@@ -28,40 +29,11 @@ from rtrace.run import colour_scales  # noqa: E402
 from rtrace.run.job import load_job, override_parallel, run_job  # noqa: E402
 from rtrace.run.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key  # noqa: E402
 
-SERIES = """
-[snapshot]
-kind = "demo"
-cells = 16
-seeds = [1, 2, 3]
-
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[[view]]
-name = "a"
-npix = 16
-distance = "2 kpc"
-
-[beam]
-major = "60 arcsec"
-
-[noise]
-rms = "0.1 mJy"
-seed = 3
-
-[output]
-directory = "out"
-pictures = false
-"""
+SERIES = job_text(snapshot=demo(16, seeds=[1, 2, 3]), frequencies=TWO_FREQUENCIES, view=view("a", 16, "2 kpc"),
+                  beam=BEAM, noise=NOISE, output={"directory": "out", "pictures": False})
 
 PER_SEED = ["a_intensity.fits", "a_tau.fits", "a_emission_measure.fits", "a_brightness_temperature.fits",
             "a_observed.fits", "a_sed.csv", "a_observed_sed.csv"]
-
-
-def write(tmp_path, text, name="job.toml"):
-    path = tmp_path / name
-    path.write_text(textwrap.dedent(text))
-    return path
 
 
 def expected(out, seeds=(1, 2, 3), job=True):
@@ -258,27 +230,11 @@ def snapshot_file(path, scale):
         f.create_dataset("ne", data=scale * 100.0 * np.exp(-r2)).attrs["units"] = "cm**-3"
 
 
-HDF5_SERIES = """
-[snapshot]
-kind = "hdf5"
-pattern = "run/snap_*.h5"
-temperature = "T"
-electron_density = "ne"
-cell_size = "0.01 pc"
-
-[frequencies]
-values = ["1 GHz"]
-
-[[view]]
-name = "z"
-npix = 16
-width = "0.16 pc"          # twice the grid: no emission at the image edge (it would warn)
-distance = "1 kpc"
-
-[output]
-directory = "out"
-pictures = false
-"""
+# width: twice the grid, so no emission at the image edge (it would warn)
+HDF5_SERIES = job_text(snapshot={"kind": "hdf5", "pattern": "run/snap_*.h5", "temperature": "T",
+                                 "electron_density": "ne", "cell_size": "0.01 pc"},
+                       frequencies={"values": ["1 GHz"]}, view=view("z", 16, "1 kpc", width="0.16 pc"),
+                       output={"directory": "out", "pictures": False})
 
 
 def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):

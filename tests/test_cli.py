@@ -8,40 +8,13 @@ import numpy as np
 import pytest
 from astropy.io import fits
 from astropy.wcs import WCS
+from jobs import NOISE, TWO_FREQUENCIES, demo, job_text, view, write
 
 from rtrace.cli import EXIT_CONFIG, EXIT_INPUT, EXIT_OK, EXIT_OUTPUT, main
 
-JOB = """
-[snapshot]
-kind = "demo"
-cells = 20
-
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[[view]]
-name = "small"
-npix = 24
-distance = "2 kpc"
-
-[beam]
-major = "60 arcsec"
-minor = "40 arcsec"
-pa = "30 deg"
-
-[noise]
-rms = "0.1 mJy"
-seed = 3
-
-[output]
-directory = "out"
-"""
-
-
-def write(tmp_path, text, name="job.toml"):
-    path = tmp_path / name
-    path.write_text(textwrap.dedent(text))
-    return path
+JOB = job_text(snapshot=demo(20), frequencies=TWO_FREQUENCIES, view=view("small", 24, "2 kpc"),
+               beam={"major": "60 arcsec", "minor": "40 arcsec", "pa": "30 deg"}, noise=NOISE,
+               output={"directory": "out"})
 
 
 def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):

@@ -21,6 +21,7 @@ from astropy import constants as const
 from astropy.coordinates import SkyCoord
 from astropy.io import fits
 from astropy.wcs import WCS
+from jobs import TWO_FREQUENCIES, demo, job_text, view
 
 import rtrace
 from rtrace.cli import EXIT_INPUT, EXIT_OK, main
@@ -483,22 +484,8 @@ def test_command_line_compare(result, tmp_path, capsys):
         assert exc.value.code == (0 if argv == ["--help"] else 2)
 
 
-JOB = """
-[snapshot]
-kind = "demo"
-cells = 16
-
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[[view]]
-name = "small"
-npix = 24
-distance = "2 kpc"
-
-[output]
-directory = "out"
-"""
+JOB = job_text(snapshot=demo(16), frequencies=TWO_FREQUENCIES, view=view("small", 24, "2 kpc"),
+               output={"directory": "out"})
 
 
 def test_command_line_compare_traces_a_job_at_the_observed_frequency(tmp_path, capsys):

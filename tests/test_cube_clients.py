@@ -19,6 +19,7 @@ import warnings
 from pathlib import Path
 
 import astropy.units as u
+import jobs
 import numpy as np
 import pytest
 import radio_beam
@@ -249,29 +250,10 @@ def test_observation_reader_reads_a_plane_file(results, tmp_path):
 # a job run with an irregular list
 # --------------------------------------------------------------------------------------------
 
-JOB = """
-[snapshot]
-kind = "demo"
-cells = 8
-
-[frequencies]
-values = ["1 GHz", "5 GHz", "22 GHz"]
-
-[[view]]
-name = "face"
-npix = 8
-distance = "2 kpc"
-
-[beam]
-major = "70 arcsec"
-scaling = "inverse-frequency"
-reference_frequency = "1 GHz"
-
-[output]
-directory = "out"
-pictures = false
-sed = false
-"""
+JOB = jobs.job_text(snapshot=jobs.demo(8), frequencies={"values": ["1 GHz", "5 GHz", "22 GHz"]},
+                    view=jobs.view("face", 8, "2 kpc"),
+                    beam={"major": "70 arcsec", "scaling": "inverse-frequency", "reference_frequency": "1 GHz"},
+                    output={"directory": "out", "pictures": False, "sed": False})
 
 
 def test_job_with_irregular_frequencies_writes_plane_files_and_resumes(tmp_path):

@@ -15,6 +15,7 @@ import warnings
 import astropy.units as u
 import numpy as np
 import pytest
+from jobs import demo, job_text, view
 from test_pixel_accuracy import CELL, _grid
 
 import rtrace
@@ -133,24 +134,8 @@ def test_axis_views_are_exact_and_unchanged(snap):
     assert a.pixel_error.max_relative == 0.0
 
 
-JOB = """
-[snapshot]
-kind = "demo"
-cells = 16
-
-[frequencies]
-values = ["10 GHz"]
-
-[[view]]
-name = "tilted"
-los = [1, 2, 3]
-npix = 12
-distance = "2 kpc"
-
-[output]
-directory = "out"
-pictures = false
-"""
+JOB = job_text(snapshot=demo(16), frequencies={"values": ["10 GHz"]}, view=view("tilted", 12, "2 kpc", los=[1, 2, 3]),
+               output={"directory": "out", "pictures": False})
 
 
 def test_jobs_follow_the_default(tmp_path):

@@ -23,6 +23,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from jobs import BEAM, NOISE, TWO_FREQUENCIES, demo, job_text, view
 
 from rtrace.errors import InputError
 from rtrace.run.batch import Cache, fingerprint
@@ -30,31 +31,8 @@ from rtrace.run.job import load_job
 from rtrace.run.manifest import snapshot_identity
 from rtrace.run.series_cache import content_digest
 
-JOB = """
-[snapshot]
-kind = "demo"
-cells = 8
-seeds = [1, 2]
-
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[[view]]
-name = "a"
-npix = 8
-distance = "2 kpc"
-
-[beam]
-major = "60 arcsec"
-
-[noise]
-rms = "0.1 mJy"
-seed = 3
-
-[output]
-directory = "out"
-fits = false
-"""
+JOB = job_text(snapshot=demo(8, seeds=[1, 2]), frequencies=TWO_FREQUENCIES, view=view("a", 8, "2 kpc"), beam=BEAM,
+               noise=NOISE, output={"directory": "out", "fits": False})
 
 
 @pytest.fixture(scope="module")
@@ -403,26 +381,10 @@ def test_random_damage_is_never_used(entry, edits, keep):
 
 # --- snapshot identity -------------------------------------------------------------------------
 
-HDF5_JOB = """
-[snapshot]
-kind = "hdf5"
-path = "snap.h5"
-temperature = "T"
-electron_density = "ne"
-cell_size = "0.01 pc"
-
-[frequencies]
-values = ["1 GHz"]
-
-[[view]]
-name = "z"
-npix = 4
-distance = "1 kpc"
-
-[output]
-directory = "out"
-pictures = false
-"""
+HDF5_JOB = job_text(snapshot={"kind": "hdf5", "path": "snap.h5", "temperature": "T", "electron_density": "ne",
+                              "cell_size": "0.01 pc"},
+                    frequencies={"values": ["1 GHz"]}, view=view("z", 4, "1 kpc"),
+                    output={"directory": "out", "pictures": False})
 
 
 @pytest.fixture

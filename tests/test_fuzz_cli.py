@@ -13,9 +13,9 @@ messages documented in ``rtrace/cli.py``); no physics is involved here.
 
 import errno
 import os
-import textwrap
 from pathlib import Path
 
+import jobs
 import numpy as np
 import pytest
 from astropy.io import fits
@@ -25,29 +25,12 @@ from hypothesis import strategies as st
 from rtrace.cli import EXIT_CONFIG, EXIT_INPUT, EXIT_OUTPUT, EXIT_USAGE, main
 from rtrace.errors import OutputError
 
-JOB = """
-[snapshot]
-kind = "demo"
-cells = 12
-{snapshot}
 
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[[view]]
-name = "{name}"
-npix = 16
-distance = "2 kpc"
-
-[output]
-directory = "out"
-pictures = {pictures}
-{output}
-"""
-
-
-def job_text(name="small", snapshot="", output="", pictures="false"):
-    return textwrap.dedent(JOB.format(name=name, snapshot=snapshot, output=output, pictures=pictures))
+def job_text(name="small", snapshot=None, output=None, pictures=False):
+    """The small demo job, with more ``[snapshot]`` and ``[output]`` keys (dicts) where given."""
+    return jobs.job_text(snapshot=jobs.demo(12, **(snapshot or {})), frequencies=jobs.TWO_FREQUENCIES,
+                         view=jobs.view(name, 16, "2 kpc"),
+                         output={"directory": "out", "pictures": pictures, **(output or {})})
 
 
 def observed_fits(path):
@@ -111,7 +94,7 @@ def link_folder_out(link, **kw):
     return setup
 
 
-SERIES = 'seeds = [1, 2]'
+SERIES = {"seeds": [1, 2]}
 CUT = ["cut", "job.toml"]
 
 # (id, argv, setup, exit codes accepted, texts the message must contain)
@@ -174,7 +157,7 @@ CASES = [
      lambda d: (with_job(snapshot=SERIES)(d), (d / "out").mkdir(), (d / "out" / "seed2").write_text("x")),
      {EXIT_OUTPUT}, ["seed2", "is a file"]),
     ("run-series-cache-is-file", ["run", "job.toml", "--quiet"],
-     lambda d: (with_job(snapshot=SERIES, pictures="true")(d), (d / "out").mkdir(),
+     lambda d: (with_job(snapshot=SERIES, pictures=True)(d), (d / "out").mkdir(),
                 (d / "out" / ".rtrace-cache").write_text("x")), {EXIT_OUTPUT}, [".rtrace-cache", "is a file"]),
     ("run-job-copy-is-folder", ["run", "job.toml", "--quiet"], folder_named("out/job.toml"), {EXIT_CONFIG},
      ["[output].directory", "job.toml"]),
@@ -186,12 +169,12 @@ CASES = [
      {EXIT_CONFIG, EXIT_OUTPUT}, ["name"]),
     ("run-view-name-absolute", ["run", "job.toml", "--quiet"], lambda d: with_job(name=f"{d}/abs")(d),
      {EXIT_CONFIG, EXIT_OUTPUT}, ["name"]),
-    ("run-prefix-dotdot", ["run", "job.toml", "--quiet"], with_job(output='prefix = "../X_"'),
+    ("run-prefix-dotdot", ["run", "job.toml", "--quiet"], with_job(output={"prefix": "../X_"}),
      {EXIT_CONFIG, EXIT_OUTPUT}, ["prefix"]),
-    ("run-prefix-absolute", ["run", "job.toml", "--quiet"], lambda d: with_job(output=f'prefix = "{d}/X_"')(d),
+    ("run-prefix-absolute", ["run", "job.toml", "--quiet"], lambda d: with_job(output={"prefix": f"{d}/X_"})(d),
      {EXIT_CONFIG, EXIT_OUTPUT}, ["prefix"]),
     ("run-prefix-into-subfolder-dotdot", ["run", "job.toml", "--quiet"],
-     with_job(output='prefix = "a/../../X_"'), {EXIT_CONFIG, EXIT_OUTPUT}, ["prefix"]),
+     with_job(output={"prefix": "a/../../X_"}), {EXIT_CONFIG, EXIT_OUTPUT}, ["prefix"]),
     # -- symbolic links in the output folder pointing out of it: the writer's guard, exit 5
     ("run-output-file-links-out", ["run", "job.toml", "--quiet"], link_out("out/small_tau.fits"),
      {EXIT_OUTPUT}, ["small_tau.fits", "outside the output folder"]),

@@ -1,33 +1,15 @@
 """Job files: validated in full before any work; errors name the key, the problem and a suggestion."""
 
-import textwrap
 
 import astropy.units as u
 import numpy as np
 import pytest
+from jobs import demo, job_text, view, write
 
 from rtrace.errors import ConfigError
 from rtrace.run.job import load_job, override_parallel, parse_job
 
-BASE = """
-[snapshot]
-kind = "demo"
-cells = 16
-
-[frequencies]
-values = ["1 GHz", "5 GHz"]
-
-[[view]]
-name = "a"
-npix = 16
-distance = "1 kpc"
-"""
-
-
-def write(tmp_path, text, name="job.toml"):
-    path = tmp_path / name
-    path.write_text(textwrap.dedent(text))
-    return path
+BASE = job_text(snapshot=demo(16), frequencies={"values": ["1 GHz", "5 GHz"]}, view=view("a", 16, "1 kpc"))
 
 
 def test_minimal_job_parses(tmp_path):

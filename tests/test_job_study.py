@@ -14,31 +14,18 @@ import pytest
 import radio_beam
 from astropy.io import fits
 from astropy.wcs import WCS
+from jobs import TWO_FREQUENCIES, demo, job_text, view
+from jobs import write as _write
 
 import rtrace
 from rtrace.cli import EXIT_CONFIG, EXIT_OK, main
 from rtrace.errors import ConfigError
 from rtrace.run.job import load_job, run_job
 
-BASE = """
-[snapshot]
-kind = "demo"
-cells = 20
-
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[[view]]
-name = "small"
-npix = 24
-distance = "2 kpc"
-ra = "150 deg"             # a declination for the (u, v) tracks (without one, synthesis warns and uses 0)
-dec = "20 deg"
-
-[output]
-directory = "out"
-quantities = ["intensity"]
-"""
+# ra, dec: a declination for the (u, v) tracks (without one, synthesis warns and uses 0)
+BASE = job_text(snapshot=demo(20), frequencies=TWO_FREQUENCIES,
+                view=view("small", 24, "2 kpc", ra="150 deg", dec="20 deg"),
+                output={"directory": "out", "quantities": ["intensity"]})
 
 STUDY = """
 [synthesis]
@@ -73,12 +60,6 @@ def _observed(tmp_path):
     res = rtrace.trace(build_snapshot(job, job.snapshots[0]), view, [10] * u.GHz)
     res.observe(beam=OBS_BEAM).write_fits(tmp_path / "observed.fits")
     return res
-
-
-def _write(tmp_path, text, name="job.toml"):
-    path = tmp_path / name
-    path.write_text(textwrap.dedent(text))
-    return path
 
 
 @pytest.fixture()

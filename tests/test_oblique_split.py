@@ -14,6 +14,7 @@ import warnings
 import astropy.units as u
 import numpy as np
 import pytest
+from jobs import TWO_FREQUENCIES, demo, job_text, view
 from test_pixel_accuracy import CELL, DIRECTIONS, NU, _grid, _reference
 
 import rtrace
@@ -207,27 +208,8 @@ def test_job_tolerance_key(tmp_path):
     from astropy.io import fits
 
     from rtrace.cli import EXIT_CONFIG, EXIT_OK, main
-    job = """
-[snapshot]
-kind = "demo"
-cells = 16
-
-[frequencies]
-values = ["1 GHz", "10 GHz"]
-
-[trace]
-tolerance = 0.2
-
-[[view]]
-name = "tilted"
-los = [1, 2, 3]
-npix = 12
-distance = "2 kpc"
-
-[output]
-directory = "out"
-pictures = false
-"""
+    job = job_text(snapshot=demo(16), frequencies=TWO_FREQUENCIES, trace={"tolerance": 0.2},
+                   view=view("tilted", 12, "2 kpc", los=[1, 2, 3]), output={"directory": "out", "pictures": False})
     path = tmp_path / "job.toml"
     path.write_text(job)
     with warnings.catch_warnings():

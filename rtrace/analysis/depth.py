@@ -2,9 +2,9 @@
 
 Both march single rays through the pixel centres from the observer's side
 of the grid with the Amanatides & Woo (1987) traversal (exact path lengths
-per cell), using the same per-cell absorption coefficient (Rybicki &
-Lightman 1979, eq. 5.18b, with the tabulated Gaunt factor) and source
-function ``B_nu(T_e)`` as the tracer.
+per cell; :mod:`rtrace.transfer.rays`), using the same per-cell absorption
+coefficient (Rybicki & Lightman 1979, eq. 5.18b, with the tabulated Gaunt
+factor) and source function ``B_nu(T_e)`` as the tracer.
 
 * ``tau = 1`` depth: distance from the observer-side boundary of the grid to
   the point where the optical depth accumulated from the observer first
@@ -20,135 +20,14 @@ These are single rays through pixel centres, not footprint means: for
 pixels much larger than the cells they describe the central ray only.
 """
 
-import math
-
 import astropy.units as u
-import numba
 import numpy as np
-from numba import prange
 
 from ..errors import InputError
 from ..physics.constants import PC
-from ..transfer.kernels import _helium3_share, _opacity_and_source, _table_position
+from ..transfer.rays import ray_segments, tau_unity_depths
 
 __all__ = ["tau_unity_depth", "contribution", "RayContribution", "pixel_rays"]
-
-
-@numba.njit(cache=True)
-def _walk(start, direction, shape, cell, seg_t, seg_ds, seg_idx):
-    """Cell segments of the line ``start + t direction`` inside the grid, in order of increasing t.
-
-    ``start`` is relative to the grid's lower corner (cm); fills
-    ``seg_t`` (entry parameter), ``seg_ds`` (path length, cm) and
-    ``seg_idx`` (cell index) and returns ``(count, t_entry)``.
-    """
-    t0, t1 = -1e300, 1e300
-    for ax in range(3):
-        size = shape[ax] * cell[ax]
-        if direction[ax] != 0.0:
-            ta = (0.0 - start[ax]) / direction[ax]
-            tb = (size - start[ax]) / direction[ax]
-            t0 = max(t0, min(ta, tb))
-            t1 = min(t1, max(ta, tb))
-        elif start[ax] < 0.0 or start[ax] >= size:
-            return 0, 0.0
-    if not t1 > t0:
-        return 0, 0.0
-    idx = np.empty(3, np.int64)
-    step = np.empty(3, np.int64)
-    tmax = np.empty(3)
-    tdelta = np.empty(3)
-    tm = t0 + 1e-9 * (t1 - t0)          # a point just inside the grid, for the first cell
-    for ax in range(3):
-        p = start[ax] + tm * direction[ax]
-        i = int(math.floor(p / cell[ax]))
-        idx[ax] = min(max(i, 0), shape[ax] - 1)
-        if direction[ax] > 0.0:
-            step[ax] = 1
-            tmax[ax] = ((idx[ax] + 1) * cell[ax] - start[ax]) / direction[ax]
-            tdelta[ax] = cell[ax] / direction[ax]
-        elif direction[ax] < 0.0:
-            step[ax] = -1
-            tmax[ax] = (idx[ax] * cell[ax] - start[ax]) / direction[ax]
-            tdelta[ax] = -cell[ax] / direction[ax]
-        else:
-            step[ax] = 0
-            tmax[ax] = 1e300
-            tdelta[ax] = 1e300
-    t = t0
-    n = 0
-    while n < seg_t.shape[0]:
-        ax = 0
-        if tmax[1] < tmax[ax]:
-            ax = 1
-        if tmax[2] < tmax[ax]:
-            ax = 2
-        t_next = min(tmax[ax], t1)
-        if t_next > t:
-            seg_t[n] = t
-            seg_ds[n] = t_next - t
-            seg_idx[n, 0], seg_idx[n, 1], seg_idx[n, 2] = idx[0], idx[1], idx[2]
-            n += 1
-        t = t_next
-        if t >= t1:
-            break
-        idx[ax] += step[ax]
-        if idx[ax] < 0 or idx[ax] >= shape[ax]:
-            break
-        tmax[ax] += tdelta[ax]
-    return n, t0
-
-
-@numba.njit(cache=True, parallel=True)
-def _tau_unity(ne, ni, temp, cell, starts, direction, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
-               out):
-    """``out`` (nfreq, nray): depth (cm) from the grid's observer-side boundary to tau = 1; NaN if never."""
-    shape = np.array(ne.shape, np.int64)
-    nf = hk.shape[0]
-    nmax = shape[0] + shape[1] + shape[2] + 4
-    for r in prange(starts.shape[0]):
-        seg_t = np.empty(nmax)
-        seg_ds = np.empty(nmax)
-        seg_idx = np.empty((nmax, 3), np.int64)
-        tau = np.zeros(nf)
-        for f in range(nf):
-            out[f, r] = np.nan
-        n, t0 = _walk(starts[r], direction, shape, cell, seg_t, seg_ds, seg_idx)
-        left = nf
-        for g in range(n):
-            x, y, z = seg_idx[g, 0], seg_idx[g, 1], seg_idx[g, 2]
-            ne_c, ni_c = float(ne[x, y, z]), float(ni[x, y, z])
-            nn = ne_c * ni_c
-            if nn <= 0.0:
-                continue
-            share = _helium3_share(ne_c, ni_c)
-            t = float(temp[x, y, z])
-            it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
-            inv_t = 1.0 / t
-            a0 = nn * math.sqrt(inv_t)
-            for f in range(nf):
-                if not math.isnan(out[f, r]):
-                    continue
-                kappa, _ = _opacity_and_source(f, t, inv_t, it, wt, share, gtab, hk, alpha_pref, b_pref)
-                alpha = a0 * kappa
-                dtau = alpha * seg_ds[g]
-                if tau[f] + dtau >= 1.0:
-                    out[f, r] = (seg_t[g] - t0) + (1.0 - tau[f]) / alpha
-                    left -= 1
-                else:
-                    tau[f] += dtau
-            if left == 0:
-                break
-
-
-@numba.njit(cache=True)
-def _one_ray(start, direction, shape, cell):
-    nmax = shape[0] + shape[1] + shape[2] + 4
-    seg_t = np.empty(nmax)
-    seg_ds = np.empty(nmax)
-    seg_idx = np.empty((nmax, 3), np.int64)
-    n, t0 = _walk(start, direction, shape, cell, seg_t, seg_ds, seg_idx)
-    return seg_t[:n] - t0, seg_ds[:n], seg_idx[:n]
 
 
 def _snapshot_of(result):
@@ -162,6 +41,12 @@ def _snapshot_of(result):
                          "memory, and this snapshot is file-backed (open_hdf5); read it, or a sub-volume of it, "
                          "with rtrace.io.hdf5.read_hdf5 and trace that")
     return snap
+
+
+def _fields(snap):
+    """``(n_e, ion term, T_e)`` as stored (cgs arrays in the snapshot's dtype, views, no copies)."""
+    return (snap.electron_density.to_value(u.cm**-3), snap.ion_density.to_value(u.cm**-3),
+            snap.temperature.to_value(u.K))
 
 
 def pixel_rays(result, snapshot):
@@ -193,9 +78,8 @@ def tau_unity_depth(result):
     nf, ny, nx = result.shape
     starts, direction = pixel_rays(result, snap)
     tables = FrequencyTables(result.frequencies.to_value(u.Hz))
-    out = np.empty((nf, ny * nx))
-    _tau_unity(snap._ne, snap._ni, snap._t, np.asarray(snap.cell_size, float), starts, direction,
-               *tables.args(), out)
+    ne, ni, temp = _fields(snap)
+    out = tau_unity_depths(ne, ni, temp, snap.cell_size, starts, direction, tables)
     return u.Quantity(out.reshape(nf, ny, nx) / PC, u.pc)
 
 
@@ -246,13 +130,14 @@ def contribution(result, pixel):
     if not (0 <= col < nx and 0 <= row < ny):
         raise InputError(f"pixel: (column, row) = {pixel} is outside the {nx}x{ny} image")
     starts, direction = pixel_rays(result, snap)
-    depth, ds, cells = _one_ray(starts[row * nx + col], direction, np.asarray(snap.shape, np.int64),
-                                np.asarray(snap.cell_size, float))
+    depth, ds, cells = ray_segments(starts[row * nx + col], direction, np.asarray(snap.shape, np.int64),
+                                    np.asarray(snap.cell_size, float))
     nu = result.frequencies.to_value(u.Hz)[:, None]
     x, y, z = cells.T
-    t = snap._t[x, y, z].astype(float)[None, :]
-    ne = snap._ne[x, y, z].astype(float)[None, :]
-    ni = snap._ni[x, y, z].astype(float)[None, :]
+    ne, ni, temp = _fields(snap)
+    t = temp[x, y, z].astype(float)[None, :]
+    ne = ne[x, y, z].astype(float)[None, :]
+    ni = ni[x, y, z].astype(float)[None, :]
     dtau = absorption_cgs(nu, t, ne, ni) * ds[None, :]         # R&L 5.18b
     tau_front = np.cumsum(dtau, axis=1) - dtau
     contrib = planck_cgs(nu, t) * -np.expm1(-dtau) * np.exp(-tau_front)

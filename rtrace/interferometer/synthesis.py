@@ -47,6 +47,7 @@ from .array import (
 from .clean import DEFAULT_GAIN, fit_clean_beam, hogbom, restore
 from .grid import AIRY_FWHM_FACTOR, default_hour_angle_step, image_grid
 from .imaging import WEIGHTINGS, dirty_beam, dirty_image, imaging_weights, uniform_cell
+from .records import ArrayTrack, Imaging, UVData
 from .sampling import (
     GAUSSIAN_FWHM_FACTOR,
     PRIMARY_BEAMS,
@@ -445,17 +446,23 @@ def _synthesized_map(result, convention, array, obs, planes, weighting, robust, 
     def stack(name):
         return np.array([getattr(p, name) for p in planes])
 
-    return SynthesizedMap(
-        stack("restored"), beams, result, provenance, background=convention,
-        dirty_image=stack("dirty"), dirty_beam=stack("psf"), residual=stack("residual"),
-        clean_components=stack("components"),
-        primary_beam=None if array.diameter is None else stack("primary_beam"), uvw=uvw_full,
-        visibilities=stack("visibilities"), weights=stack("weights"),
-        hour_angles=(ha * u.rad).to(u.hourangle), baselines=obs.pairs, antennas=array.pos * u.m,
-        latitude=(math.degrees(array.lat) * u.deg), declination=(math.degrees(obs.dec) * u.deg),
-        largest_angular_scale=las_q, shortest_baseline=obs.b_min * u.m, longest_baseline=obs.b_max * u.m,
-        clean_iterations=n_iter, clean_thresholds=thresholds, weighting=weighting,
-        robust=robust if weighting == "robust" else None, pixel_scale=obs.grid.pixel_scale)
+    track = ArrayTrack(antennas=array.pos * u.m, baselines=obs.pairs, latitude=math.degrees(array.lat) * u.deg,
+                       declination=math.degrees(obs.dec) * u.deg, hour_angles=(ha * u.rad).to(u.hourangle),
+                       shortest_baseline=obs.b_min * u.m, longest_baseline=obs.b_max * u.m,
+                       largest_angular_scale=las_q)
+    uv_data = UVData(uvw=uvw_full, visibilities=stack("visibilities"), weights=stack("weights"))
+    imaging = Imaging(dirty_image=stack("dirty"), residual=stack("residual"), clean_components=stack("components"),
+                      dirty_beam=stack("psf"), primary_beam=None if array.diameter is None else stack("primary_beam"),
+                      clean_iterations=n_iter, clean_thresholds=thresholds, weighting=weighting,
+                      robust=robust if weighting == "robust" else None, pixel_scale=obs.grid.pixel_scale)
+    return SynthesizedMap(stack("restored"), beams, result, provenance, background=convention, track=track,
+                          uv_data=uv_data, imaging=imaging)
+
+
+def _field(record, name):
+    """A read-only attribute of `SynthesizedMap`: field ``name`` of its record ``record``."""
+    return property(lambda self: getattr(getattr(self, record), name),
+                    doc=f"``{record}.{name}`` (see :mod:`rtrace.interferometer.records`).")
 
 
 class SynthesizedMap(SkyMap):
@@ -466,8 +473,27 @@ class SynthesizedMap(SkyMap):
     one per frequency, ``beam`` the first; ``model`` is ``data``, as
     nothing adds noise here). Build one with :func:`synthesize`.
 
+    Parameters
+    ----------
+    data : ndarray (nfreq, ny, nx)
+        Restored image, Jy per clean beam.
+    beams : list of `radio_beam.Beam`
+        Fitted clean beam per frequency.
+    result : `~rtrace.Result`
+        The traced model.
+    provenance : dict
+    track : `~rtrace.interferometer.records.ArrayTrack`
+        Antennas, baselines, latitude, declination, hour angles, baseline extremes, largest angular scale.
+    uv_data : `~rtrace.interferometer.records.UVData`
+        ``uvw``, visibilities and imaging weights.
+    imaging : `~rtrace.interferometer.records.Imaging`
+        Dirty image and beam, residual, components, primary beam, CLEAN and weighting settings, pixel scale.
+    background : {"subtracted", "included"}
+
     Attributes
     ----------
+    track, uv_data, imaging : records
+        As given; their fields are also read-only attributes of the map, listed below.
     dirty_image, residual : `~astropy.units.Quantity` (nfreq, ny, nx)
         Jy per dirty beam.
     clean_components : `~astropy.units.Quantity` (nfreq, ny, nx)
@@ -505,36 +531,34 @@ class SynthesizedMap(SkyMap):
     robust : float or None
     """
 
-    def __init__(self, data, beams, result, provenance, *, background="subtracted", dirty_image, dirty_beam,
-                 residual, clean_components, primary_beam, uvw, visibilities, weights, hour_angles, baselines,
-                 antennas, latitude, declination, largest_angular_scale, shortest_baseline, longest_baseline,
-                 clean_iterations, clean_thresholds, weighting, robust, pixel_scale=None):
+    def __init__(self, data, beams, result, provenance, *, track, uv_data, imaging, background="subtracted"):
+        """``track``, ``uv_data``, ``imaging``: the records of :mod:`rtrace.interferometer.records`."""
         nu = result.frequencies.to_value(u.Hz)
+        self.track, self.uv_data, self.imaging = track, uv_data, imaging
         # the image's own grid (the array's), not the model's; set before SkyMap reads the pixel area
-        self._pixel_scale = result.pixel_scale if pixel_scale is None else u.Quantity(pixel_scale).to(u.arcsec)
+        self._pixel_scale = imaging.pixel_scale
         super().__init__(data, data, beams, result, None, provenance, beam=beams[0], beam_scaling=None,
                          reference_frequency=nu[0], seed=None, background=background)
         self._pix_sr = float(self._pixel_scale.to_value(u.rad)) ** 2
-        self._dirty = np.asarray(dirty_image, float)
-        self._residual = np.asarray(residual, float)
-        self._components = np.asarray(clean_components, float)
-        self.dirty_beam = np.asarray(dirty_beam, float)
-        self.primary_beam = primary_beam
-        self.uvw = uvw
-        self.visibilities = visibilities
-        self.weights = weights
-        self.hour_angles = hour_angles
-        self.baselines = baselines
-        self.antennas = antennas
-        self.latitude = latitude
-        self.declination = declination
-        self.largest_angular_scale = largest_angular_scale
-        self.shortest_baseline = shortest_baseline
-        self.longest_baseline = longest_baseline
-        self.clean_iterations = np.asarray(clean_iterations, int)
-        self.clean_thresholds = u.Quantity(clean_thresholds, JY_PER_BEAM)
-        self.weighting = weighting
-        self.robust = robust
+
+    # the records' fields, read-only, under the names the class documents
+    antennas = _field("track", "antennas")
+    baselines = _field("track", "baselines")
+    latitude = _field("track", "latitude")
+    declination = _field("track", "declination")
+    hour_angles = _field("track", "hour_angles")
+    shortest_baseline = _field("track", "shortest_baseline")
+    longest_baseline = _field("track", "longest_baseline")
+    largest_angular_scale = _field("track", "largest_angular_scale")
+    uvw = _field("uv_data", "uvw")
+    visibilities = _field("uv_data", "visibilities")
+    weights = _field("uv_data", "weights")
+    dirty_beam = _field("imaging", "dirty_beam")
+    primary_beam = _field("imaging", "primary_beam")
+    clean_iterations = _field("imaging", "clean_iterations")
+    clean_thresholds = _field("imaging", "clean_thresholds")
+    weighting = _field("imaging", "weighting")
+    robust = _field("imaging", "robust")
 
     @property
     def pixel_scale(self):
@@ -549,17 +573,17 @@ class SynthesizedMap(SkyMap):
     @property
     def dirty_image(self):
         """Dirty image ``(nfreq, ny, nx)``, Jy per dirty beam."""
-        return u.Quantity(self._dirty, JY_PER_BEAM, copy=False)
+        return u.Quantity(self.imaging.dirty_image, JY_PER_BEAM, copy=False)
 
     @property
     def residual(self):
         """What CLEAN left ``(nfreq, ny, nx)``, Jy per dirty beam."""
-        return u.Quantity(self._residual, JY_PER_BEAM, copy=False)
+        return u.Quantity(self.imaging.residual, JY_PER_BEAM, copy=False)
 
     @property
     def clean_components(self):
         """CLEAN components ``(nfreq, ny, nx)``, Jy/pixel."""
-        return u.Quantity(self._components, u.Jy / u.pix, copy=False)
+        return u.Quantity(self.imaging.clean_components, u.Jy / u.pix, copy=False)
 
     def _wavelengths(self, k):
         lam_m = C / self.frequencies.to_value(u.Hz) * 1e-2

@@ -155,7 +155,3 @@ class View:
         """``(axis, sign)`` if the line of sight lies along a grid axis, else None."""
         return self._along_axis(self.los)
 
-    def axis_alignment(self):
-        """``(axis, sign)`` of los, column and row axes if all lie along grid axes, else None."""
-        out = tuple(self._along_axis(v) for v in (self.los, self.west, self.north))
-        return None if None in out else out
