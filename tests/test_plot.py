@@ -354,9 +354,9 @@ def test_shared_scale_uses_one_unit_across_panels():
 
     import rtrace
     from rtrace import demo
-    from rtrace.plot import _common_prefix, _plane
+    from rtrace.plot.core import common_prefix, plane_of
     res = rtrace.trace(demo.scenario(24), rtrace.View(npix=32, distance=2 * u.kpc), [0.3, 30] * u.GHz)
-    planes = _common_prefix([_plane(res, "intensity", k) for k in range(2)])
+    planes = common_prefix([plane_of(res, "intensity", k) for k in range(2)])
     assert planes[0].unit == planes[1].unit
     jy = [p.values * u.Quantity(p.unit).to_value(u.Jy / u.pix) for p in planes]
     flux = res.flux_density().to_value(u.Jy)
