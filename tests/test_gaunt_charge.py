@@ -259,9 +259,9 @@ def test_emission_measure_keyword_and_fits_card(tmp_path):
         path = write_result(res, tmp_path / f"em_{res.em_definition}.fits", "emission_measure")
         assert fits.getheader(path)["EMDEF"] == text
     # pictures name the definition in their colour-bar label too
-    from rtrace.plot import _plane
-    assert "n_e^2" in _plane(e, "emission_measure", 0).label
-    assert "Z^2 n_i" in _plane(i, "emission_measure", 0).label
+    from rtrace.plot.core import plane_of
+    assert "n_e^2" in plane_of(e, "emission_measure", 0).label
+    assert "Z^2 n_i" in plane_of(i, "emission_measure", 0).label
 
 
 # -- range warnings ----------------------------------------------------------------------------------

@@ -45,13 +45,12 @@ CONVENIENCES = {
     ("rtrace.transfer.result", "rtrace.analysis.spectra"): "Result.turnover_frequency",
     ("rtrace.transfer.result", "rtrace.observe"): "Result.observe",
     ("rtrace.transfer.result", "rtrace.io.fits"): "Result.write_fits",
+    ("rtrace.analysis.cuts", "rtrace.plot.cuts"): "Cut.plot",
+    ("rtrace.comparison.core", "rtrace.plot.comparison"): "Comparison.figure, Comparison.plot",
 }
 
 # (importer, imported): upward imports still to remove. Shrinks; never grows.
 KNOWN_UPWARD = {
-    ("rtrace.analysis.cuts", "rtrace.plot"),                 # drawing helpers still in plot's private names
-    ("rtrace.comparison.core", "rtrace.plot"),
-    ("rtrace.comparison.figure", "rtrace.plot"),
 }
 
 

@@ -354,9 +354,9 @@ def test_shared_scale_uses_one_unit_across_panels():
 
     import rtrace
     from rtrace import demo
-    from rtrace.plot import _common_prefix, _plane
+    from rtrace.plot.core import common_prefix, plane_of
     res = rtrace.trace(demo.scenario(24), rtrace.View(npix=32, distance=2 * u.kpc), [0.3, 30] * u.GHz)
-    planes = _common_prefix([_plane(res, "intensity", k) for k in range(2)])
+    planes = common_prefix([plane_of(res, "intensity", k) for k in range(2)])
     assert planes[0].unit == planes[1].unit
     jy = [p.values * u.Quantity(p.unit).to_value(u.Jy / u.pix) for p in planes]
     flux = res.flux_density().to_value(u.Jy)
@@ -547,3 +547,39 @@ def test_tau_unity_picture_names_the_pixels_outside_the_traced_range(tiny):
     assert the_image(thick.axes[0]).norm.vmax == pytest.approx(30)
     with pytest.raises(InputError, match="vmax"):
         plot.plot_tau_unity(tiny, vmin=3, vmax=1)
+
+
+# --- the package's shape ------------------------------------------------------------------------
+
+def test_nothing_outside_plot_imports_its_private_names():
+    # Other modules use plot's internal API (rtrace.plot.core) or its public names, never an
+    # underscore name of a plot module (issue 16: one internal API instead of private helpers).
+    import ast
+    import pathlib
+
+    root = pathlib.Path(__file__).resolve().parents[1]
+    offenders = []
+    for path in [*(root / "rtrace").rglob("*.py"), *(root / "tests").rglob("*.py"),
+                 *(root / "examples").rglob("*.py"), *(root / "benchmarks").rglob("*.py")]:
+        if (root / "rtrace" / "plot") in path.parents:
+            continue
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom) and node.module and "plot" in node.module.split("."):
+                offenders += [f"{path.relative_to(root)}: {a.name}" for a in node.names if a.name.startswith("_")]
+    assert not offenders, f"private names of rtrace.plot imported elsewhere: {offenders}"
+
+
+def test_public_names_and_the_internal_api_resolve():
+    import rtrace.plot.core as core
+
+    # README and the API reference import these from rtrace.plot
+    for name in plot.__all__:
+        assert getattr(plot, name) is not None, name
+    for name in core.__all__:
+        assert getattr(core, name) is not None, name
+    # the conveniences of lower layers draw through the plot package's own functions
+    from rtrace.analysis.cuts import Cut
+    from rtrace.comparison import Comparison
+    assert "plot_cut" in Cut.plot.__code__.co_names
+    assert "plot_comparison" in Comparison.figure.__code__.co_names
+    assert "plot_comparison" in Comparison.plot.__code__.co_names

@@ -160,28 +160,7 @@ class Cut:
 
         ``frequencies``: indices of the traced frequencies to show (default all).
         Saved atomically to ``path`` if given; returns the matplotlib Figure.
+        A convenience for :func:`rtrace.plot.plot_cut` (imported here, on use: plot is a layer above).
         """
-        from ..plot import _format_frequency, _new_figure, _save
-        idx = range(len(self.frequencies)) if frequencies is None else list(frequencies)
-        fig = _new_figure((7.0, 6.0))
-        ax_i, ax_t = fig.subplots(2, 1, sharex=True)
-        x = self.offset.to_value(u.arcsec)
-        full = self.intensity.value
-        thin = self.unabsorbed_intensity.value
-        for k in idx:
-            nu = float(self.frequencies[k].to_value(u.Hz))
-            line, = ax_i.plot(x, full[k], label=f"{_format_frequency(nu)}")
-            ax_i.plot(x, thin[k], ls="--", color=line.get_color())
-            ax_t.plot(x, self.tau[k], color=line.get_color())
-        if np.any(full[list(idx)] > 0):
-            ax_i.set_yscale("log")
-            ax_t.set_yscale("log")
-        ax_t.axhline(1.0, color="0.4", lw=0.8, ls=":")
-        ax_i.set_ylabel(r"$I_\nu$ (erg s$^{-1}$ cm$^{-2}$ Hz$^{-1}$ sr$^{-1}$)")
-        ax_i.set_title("solid: with absorption, dashed: emission only\n"
-                       f"background {describe(self.background, self.result)}", fontsize="small")
-        ax_i.legend(fontsize="small")
-        ax_t.set_ylabel(r"$\tau_\nu$")
-        ax_t.set_xlabel("offset along the cut (arcsec)")
-        _save(fig, path)
-        return fig
+        from ..plot.cuts import plot_cut
+        return plot_cut(self, path, frequencies)

@@ -389,16 +389,17 @@ class Comparison:
         return "\n".join(lines)
 
     def figure(self, stretch="asinh", cmap=None, residual_cmap="RdBu_r", title=None):
-        """Observation, model and residual side by side (see :func:`rtrace.comparison.figure.comparison_figure`)."""
-        from .figure import comparison_figure
-        return comparison_figure(self, stretch=stretch, cmap=cmap, residual_cmap=residual_cmap, title=title)
+        """Observation, model and residual side by side (see :func:`rtrace.plot.plot_comparison`).
+
+        A convenience: the drawing lives in :mod:`rtrace.plot.comparison` (imported here, on use).
+        """
+        from ..plot.comparison import plot_comparison
+        return plot_comparison(self, stretch=stretch, cmap=cmap, residual_cmap=residual_cmap, title=title)
 
     def plot(self, path=None, **kwargs):
         """:meth:`figure`, saved atomically to ``path`` when given (format from the suffix)."""
-        from ..plot import _save
-        fig = self.figure(**kwargs)
-        _save(fig, path)
-        return fig
+        from ..plot.comparison import plot_comparison
+        return plot_comparison(self, path, **kwargs)
 
     def write_fits(self, path, overwrite=True):
         """Write residual, model and observation on the observed grid to one FITS file, atomically.

@@ -23,7 +23,7 @@ def view_ranges(res, sky, nfreq):
     S/N-blanked spectral index).
     """
     from ..analysis.spectra import middle_frequency_index
-    from ..plot import _plane
+    from ..plot.core import plane_of
     ranges = {}
     for stem, q, observed in PICTURES:
         if observed and sky is None:
@@ -41,13 +41,13 @@ def view_ranges(res, sky, nfreq):
             if nfreq < 2:
                 continue
             nu = res.frequencies
-            planes = [_plane(obj, q, (nu[0], nu[-1]))]
+            planes = [plane_of(obj, q, (nu[0], nu[-1]))]
         elif q == "tau":
-            planes = [_plane(obj, q, middle_frequency_index(res))]     # the one map the picture shows
+            planes = [plane_of(obj, q, middle_frequency_index(res))]     # the one map the picture shows
         elif q == "emission_measure":
-            planes = [_plane(obj, q, None)]
+            planes = [plane_of(obj, q, None)]
         else:
-            planes = [_plane(obj, q, i) for i in range(nfreq)]       # every panel of the picture
+            planes = [plane_of(obj, q, i) for i in range(nfreq)]       # every panel of the picture
         # a plane's unit is a Unit, or a Quantity such as 1e-3 Jy/beam for prefixed intensities
         unit = (1 * planes[0].unit).unit
         values = []

@@ -1,9 +1,9 @@
-"""Figure of a comparison: observation, model and residual side by side on the observed grid.
+"""A comparison's figure (:func:`plot_comparison`): observation, model and residual side by side.
 
 The panels are drawn on the observed pixel grid with astropy's WCS axes (RA
 and Dec ticks, rotated with the grid if the grid is rotated); the horizontal
 axis is flipped if needed so that east is on the left. Observation and model
-share one colour scale (the stretch rules of :mod:`rtrace.plot`); the residual
+share one colour scale (the stretch rules of :func:`rtrace.plot.plot_map`); the residual
 has a symmetric diverging scale about zero. Pixels outside the common
 footprint are grey. The observed beam is drawn in the lower left (south-east)
 corner of each panel.
@@ -19,9 +19,9 @@ from matplotlib import colors
 from matplotlib.patches import Ellipse
 
 from ..errors import InputError
-from ..plot import _STYLE, _colorbar, _make_norm, _new_figure, _Plane, _prefix_for, _resolve_cmap
+from .core import STYLE, Plane, check_stretch, colorbar, make_norm, new_figure, prefix_for, resolve_cmap, save
 
-__all__ = ["comparison_figure"]
+__all__ = ["plot_comparison"]
 
 _BLANK = "0.75"          # colour of pixels outside the common footprint
 
@@ -60,16 +60,18 @@ def _beam_patch(ax, beam, wcs, shape, scale_arcsec, face):
 
 
 def _plane(values, label, comparison, unit):
-    return _Plane(values=values, quantity="intensity", label=label, tag="", unit=unit, per=u.beam,
+    return Plane(values=values, quantity="intensity", label=label, tag="", unit=unit, per=u.beam,
                   pixel_scale=comparison.pixel_scale, distance=None, pixel_size=None, beam=comparison.beam)
 
 
-def comparison_figure(comparison, stretch="asinh", cmap=None, residual_cmap="RdBu_r", title=None):
+def plot_comparison(comparison, path=None, *, stretch="asinh", cmap=None, residual_cmap="RdBu_r", title=None):
     """Three panels: observation, model (matched colour scale) and residual (symmetric scale).
 
     Parameters
     ----------
-    comparison : `~rtrace.Comparison`
+    comparison : `~rtrace.comparison.Comparison`
+    path : str or path-like, optional
+        Save the figure there, atomically (format from the suffix, PNG without one).
     stretch : {"asinh", "log", "linear"}
         Stretch of the shared observation/model scale (as in :func:`rtrace.plot.plot_map`).
     cmap : str or Colormap, optional
@@ -83,21 +85,19 @@ def comparison_figure(comparison, stretch="asinh", cmap=None, residual_cmap="RdB
     -------
     `~matplotlib.figure.Figure`
     """
-    from ..plot import STRETCHES
-    if stretch not in STRETCHES:
-        raise InputError(f"stretch: expected one of {', '.join(STRETCHES)}, got {stretch!r}")
+    check_stretch(stretch)
     obs = comparison.observation.to_value(u.Jy / u.beam)
     model = comparison.model.to_value(u.Jy / u.beam)
     resid = comparison.residual.to_value(u.Jy / u.beam)
     inside = comparison.footprint
     model = np.where(np.isfinite(model), model, np.nan)
     peak = float(np.nanmax(np.abs(np.concatenate([obs[np.isfinite(obs)], model[np.isfinite(model)]]))))
-    factor, prefix = _prefix_for(peak if peak > 0 else 1.0)
+    factor, prefix = prefix_for(peak if peak > 0 else 1.0)
     unit = factor * u.Jy / u.beam
     p_obs = _plane(obs / factor, f"{prefix}Jy beam$^{{-1}}$", comparison, unit)
     p_mod = _plane(model / factor, f"{prefix}Jy beam$^{{-1}}$", comparison, unit)
     rmax = float(np.nanmax(np.abs(resid[inside]))) if inside.any() else 0.0
-    rfactor, rprefix = _prefix_for(rmax if rmax > 0 else 1.0)
+    rfactor, rprefix = prefix_for(rmax if rmax > 0 else 1.0)
     half = rmax / rfactor if rmax > 0 else 1.0
     p_res = _plane(resid / rfactor, f"{rprefix}Jy beam$^{{-1}}$", comparison, rfactor * u.Jy / u.beam)
 
@@ -108,15 +108,15 @@ def comparison_figure(comparison, stretch="asinh", cmap=None, residual_cmap="RdB
                  else matplotlib.colormaps[residual_cmap]).with_extremes(bad=_BLANK)
     except KeyError:
         raise InputError(f"residual_cmap: unknown colour map {residual_cmap!r}") from None
-    scmap = _resolve_cmap(cmap, "intensity").with_extremes(bad=_BLANK)
+    scmap = resolve_cmap(cmap, "intensity").with_extremes(bad=_BLANK)
     shape = comparison.shape
     ny, nx = shape
     _, east = _sky_directions(comparison.wcs, shape)
     scale = comparison.pixel_scale.to_value(u.arcsec)
 
-    with matplotlib.rc_context(_STYLE):
-        fig = _new_figure((14.0, 4.6))
-        norm = _make_norm([p_obs, p_mod], stretch)
+    with matplotlib.rc_context(STYLE):
+        fig = new_figure((14.0, 4.6))
+        norm = make_norm([p_obs, p_mod], stretch)
         rnorm = colors.Normalize(vmin=-half, vmax=half)
         panels = ((p_obs, norm, scmap, "observation"), (p_mod, norm, scmap, "model"),
                   (p_res, rnorm, rcmap, "residual (observation \N{MINUS SIGN} model)"))
@@ -143,7 +143,7 @@ def comparison_figure(comparison, stretch="asinh", cmap=None, residual_cmap="RdB
             axes.append(ax)
             images.append(image)
         # one colour bar for observation and model (a matched scale), one for the residual
-        _colorbar(fig, images[1], axes[:2], p_mod, norm, [p_obs, p_mod], shrink=0.85)
+        colorbar(fig, images[1], axes[:2], p_mod, norm, [p_obs, p_mod], shrink=0.85)
         cbar = fig.colorbar(images[2], ax=axes[2], shrink=0.85)
         cbar.set_label(p_res.label)
         nu = comparison.frequency.to_value(u.GHz)
@@ -151,4 +151,6 @@ def comparison_figure(comparison, stretch="asinh", cmap=None, residual_cmap="RdB
             title = (f"{nu:.4g} GHz: model / observed flux = {comparison.flux_ratio:.3f} over the common "
                      "footprint")
         fig.suptitle(title)
+    # outside the style context, as the figure was always saved: at the figure's own dpi
+    save(fig, path)
     return fig
