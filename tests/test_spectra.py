@@ -1,11 +1,13 @@
 """SEDs, spectral indices and the tau = 1 frequency against analytic free-free spectra."""
 
+import csv
 import math
 import types
 
 import astropy.units as u
 import numpy as np
 import pytest
+from astropy.table import Table
 from conftest import uniform_snapshot
 from radio_beam import Beam
 from scipy.optimize import brentq
@@ -13,13 +15,15 @@ from scipy.optimize import brentq
 import rtrace
 from rtrace import demo
 from rtrace.analysis import (
+    SED_COLUMNS,
     aperture_mask,
     sed,
     sed_metadata,
+    sed_table,
     spectral_index,
     spectral_index_map,
     tau_unity_frequency,
-    write_sed_csv,
+    write_sed_table,
 )
 from rtrace.errors import InputError, PhysicsRangeWarning
 from rtrace.physics import absorption_coefficient, planck
@@ -300,39 +304,45 @@ def test_tau_unity_of_the_demo_lies_between_its_thick_and_thin_frequencies(tiny)
     assert 0.3 < whole.to_value(u.GHz) < 30
 
 
-# --- CSV ---------------------------------------------------------------------------------------
+# --- ECSV table ----------------------------------------------------------------------------------
 
-def test_sed_csv_round_trip(tiny, tmp_path):
+def test_sed_table_round_trip(tiny, tmp_path):
     nu, flux = sed(tiny, (24, 24, 12))
     meta = sed_metadata(tiny, (24, 24, 12))
     assert meta["source"].startswith("rtrace.demo.scenario") and "circle" in meta["aperture"]
-    meta["note"] = "two\nlines"                                   # must stay on one header line
-    path = tmp_path / "sed.csv"
-    write_sed_csv(path, nu, flux, meta)
-    table = np.loadtxt(path, delimiter=",")
-    assert table.shape == (5, 3)
-    # 17 significant digits: the values come back to the last bit (up to the Hz -> GHz division)
-    assert np.allclose(table[:, 0], nu.to_value(u.GHz), rtol=1e-15, atol=0)
-    assert np.array_equal(table[:, 1], flux.to_value(u.Jy))
-    assert np.allclose(table[:-1, 2], spectral_index(nu, flux), rtol=1e-14)
-    assert np.isnan(table[-1, 2])
-    named = np.genfromtxt(path, delimiter=",", names=True)
-    assert named.dtype.names == ("frequency_GHz", "flux_density_Jy", "spectral_index")
-    header = [line for line in path.read_text().splitlines() if line.startswith("#")]
-    assert "# note: two lines" in header
-    assert any(line.startswith("# view: ") for line in header)
+    meta["note"] = "two\nlines"
+    path = tmp_path / "sed.ecsv"
+    write_sed_table(path, nu, flux, meta)
+    # astropy ECSV (astropy proposal APE 6, from memory) carries units, descriptions and meta;
+    # Table.read is the reference reader
+    table = Table.read(path)
+    assert table.colnames == list(SED_COLUMNS)
+    assert table["frequency"].unit == u.GHz and table["flux_density"].unit == u.Jy
+    assert table["spectral_index"].unit is None and "d ln S / d ln nu" in table["spectral_index"].description
+    # float64 written in full: the values come back to the last bit (up to the Hz -> GHz division)
+    assert np.allclose(table["frequency"].quantity.to_value(u.Hz), nu.to_value(u.Hz), rtol=1e-15, atol=0)
+    assert np.array_equal(table["flux_density"].quantity.to_value(u.Jy), flux.to_value(u.Jy))
+    assert np.allclose(table["spectral_index"][:-1], spectral_index(nu, flux), rtol=1e-14)
+    assert np.isnan(table["spectral_index"][-1])
+    assert table.meta["note"] == "two lines" and table.meta["view"] == meta["view"]      # one line each
+    assert table.meta["background"] == meta["background"]
+    # below the '#' lines the file is plain CSV: names, then rows (common practice)
+    rows = list(csv.reader(line for line in path.read_text().splitlines() if not line.startswith("#")))
+    assert rows[0] == list(SED_COLUMNS) and len(rows) == 6 and float(rows[1][1]) == flux[0].to_value(u.Jy)
     # no temporary file is left next to it
-    assert [p.name for p in tmp_path.iterdir()] == ["sed.csv"]
+    assert [p.name for p in tmp_path.iterdir()] == ["sed.ecsv"]
 
 
-def test_sed_csv_rejects_bad_input_and_leaves_no_file(tmp_path):
-    path = tmp_path / "bad.csv"
+def test_sed_table_states_background_and_rejects_bad_input(tmp_path):
+    table = sed_table([1, 2] * u.GHz, [1, 2] * u.Jy)
+    assert table.meta["background"].startswith("not stated")
+    path = tmp_path / "bad.ecsv"
     with pytest.raises(InputError, match="flux"):
-        write_sed_csv(path, [1, 2] * u.GHz, [1, 2] * u.K)
+        write_sed_table(path, [1, 2] * u.GHz, [1, 2] * u.K)
     with pytest.raises(InputError, match="flux"):
-        write_sed_csv(path, [1, 2] * u.GHz, [1, 2, 3] * u.Jy)
+        write_sed_table(path, [1, 2] * u.GHz, [1, 2, 3] * u.Jy)
     with pytest.raises(InputError, match="metadata"):
-        write_sed_csv(path, [1, 2] * u.GHz, [1, 2] * u.Jy, metadata=["source"])
+        write_sed_table(path, [1, 2] * u.GHz, [1, 2] * u.Jy, metadata=["source"])
     assert list(tmp_path.iterdir()) == []
 
 
