@@ -7,6 +7,7 @@ import types
 import astropy.units as u
 import numpy as np
 import pytest
+import regions
 from astropy.table import Table
 from conftest import uniform_snapshot
 from radio_beam import Beam
@@ -94,6 +95,51 @@ def test_mask_aperture_and_its_complement_add_up(tiny):
     # a list of lists works like the array
     _, listed = sed(tiny, mask.tolist())
     assert np.array_equal(listed.value, inside.value)
+
+
+def _centres_within(shape, col0, row0, radius):
+    """Pixels whose centres lie within ``radius`` of ``(col0, row0)``, edge included (the definition)."""
+    rows, cols = np.mgrid[0:shape[0], 0:shape[1]]
+    return (cols - col0) ** 2 + (rows - row0) ** 2 <= radius**2
+
+
+def test_regions_apertures_select_the_same_pixels_as_the_circle_tuple(tiny):
+    # regions (Astropy Regions package) gives the masks; the sums must be those of the written-out rule
+    rng = np.random.default_rng(7)
+    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23     # Jy (1 Jy = 1e-23 cgs)
+    circles = [(24, 24, 12), (2, 3, 1.0), (0, 0, 5), (47, 10, 3), (23.5, 23.5, 2.0), (10, 40, 0.5)]
+    circles += [tuple(rng.uniform(-3, 50, 2)) + (float(rng.uniform(0.3, 30)),) for _ in range(40)]
+    circles += [(float(c), float(r), float(rad)) for c, r, rad in rng.integers(0, 48, (20, 3)) + (0, 0, 1)]
+    for col0, row0, radius in circles:
+        expected = _centres_within((48, 48), col0, row0, radius)
+        if not expected.any():
+            continue
+        region = regions.CirclePixelRegion(regions.PixCoord(col0, row0), radius)
+        assert np.array_equal(aperture_mask((48, 48), (col0, row0, radius)), expected), (col0, row0, radius)
+        assert np.array_equal(aperture_mask((48, 48), region), expected), (col0, row0, radius)
+        want = per_pixel[:, expected].sum(axis=1)
+        for aperture in ((col0, row0, radius), region):
+            _, flux = sed(tiny, aperture)
+            np.testing.assert_allclose(flux.value, want, rtol=1e-12, atol=0)
+
+
+def test_sky_region_aperture_is_placed_with_the_image_wcs(tiny):
+    from rtrace.io.fits import sky_wcs
+
+    wcs = sky_wcs((48, 48), tiny.pixel_scale, tiny.sky_position)
+    pix = tiny.pixel_scale.to_value(u.arcsec)
+    circle = regions.CircleSkyRegion(tiny.sky_position, 9.3 * pix * u.arcsec)
+    # the image centre is pixel (23.5, 23.5); the radius in pixels is the angle over the pixel scale
+    expected = _centres_within((48, 48), 23.5, 23.5, 9.3)
+    assert np.array_equal(aperture_mask((48, 48), circle, wcs), expected)
+    _, flux = sed(tiny, circle)
+    _, by_pixels = sed(tiny, (23.5, 23.5, 9.3))
+    np.testing.assert_allclose(flux.value, by_pixels.value, rtol=1e-12, atol=0)
+    assert "circle centre RA" in sed_metadata(tiny, circle)["aperture"]
+    with pytest.raises(InputError, match="sky region .* needs the image's WCS"):
+        aperture_mask((48, 48), circle)
+    box = regions.RectanglePixelRegion(regions.PixCoord(10, 20), width=5, height=3)
+    assert aperture_mask((48, 48), box).sum() == 15            # 5 x 3 pixel centres
 
 
 @pytest.mark.parametrize("aperture, words", [

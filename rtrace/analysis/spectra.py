@@ -141,18 +141,52 @@ def pixel_flux(obj, background=None):
     return (flux_cgs * u.erg / (u.s * u.cm**2 * u.Hz)).to(u.Jy)
 
 
-def aperture_mask(shape, aperture):
+# A pixel whose centre lies on a circular aperture's edge counts (the rule of the (col, row, radius)
+# form); regions' "center" mask mode counts only centres strictly inside, so a circle's radius is
+# widened by this relative amount before its mask is made (far below any pixel-scale meaning).
+_ON_THE_EDGE = 1e-12
+
+
+def _is_region(aperture):
+    import regions
+    return isinstance(aperture, (regions.PixelRegion, regions.SkyRegion))
+
+
+def _region_mask(shape, region, wcs):
+    """Boolean mask of the pixels whose centres a `regions` region holds (mode ``"center"``)."""
+    import regions
+    if isinstance(region, regions.SkyRegion):
+        if wcs is None:
+            raise InputError(f"aperture: a sky region ({type(region).__name__}) needs the image's WCS; "
+                             "give a pixel region or (center_col, center_row, radius)")
+        region = region.to_pixel(wcs)
+    if isinstance(region, regions.CirclePixelRegion):
+        region = regions.CirclePixelRegion(region.center, region.radius * (1 + _ON_THE_EDGE))
+    mask = region.to_mask(mode="center")
+    if isinstance(mask, list):          # a compound region can give several masks
+        raise InputError("aperture: give a single region (its mask must be one piece)")
+    image = mask.to_image(tuple(shape))
+    return np.zeros(shape, bool) if image is None else image > 0
+
+
+def aperture_mask(shape, aperture, wcs=None):
     """Boolean mask ``(ny, nx)`` of the pixels an aperture selects.
 
     Parameters
     ----------
     shape : tuple of int
         Image shape ``(ny, nx)``.
-    aperture : None, ndarray of bool (ny, nx), or (float, float, float)
-        ``None``: the whole image. A boolean mask of the image shape. A circle
-        ``(center_col, center_row, radius)`` in pixels: every pixel whose
-        centre lies within ``radius`` of the centre counts (pixel
-        ``(row, col)`` has its centre at ``(col, row)``).
+    aperture : None, ndarray of bool (ny, nx), `regions.PixelRegion`, `regions.SkyRegion` or (float, float, float)
+        ``None``: the whole image. A boolean mask of the image shape. A
+        region of the ``regions`` package (e.g. ``CirclePixelRegion``,
+        ``CircleSkyRegion``): the pixels whose centres it holds (its mask in
+        ``"center"`` mode; a circle also counts centres on its edge). A circle
+        ``(center_col, center_row, radius)`` in pixels, the same as
+        ``CirclePixelRegion(PixCoord(center_col, center_row), radius)``
+        (pixel ``(row, col)`` has its centre at ``(col, row)``).
+    wcs : `~astropy.wcs.WCS`, optional
+        The image's celestial WCS, needed for a sky region
+        (:func:`rtrace.io.fits.sky_wcs`; :func:`sed` makes it).
 
     Returns
     -------
@@ -166,7 +200,9 @@ def aperture_mask(shape, aperture):
     ny, nx = shape
     if aperture is None:
         return np.ones(shape, bool)
-    if not isinstance(aperture, tuple) and np.ndim(aperture) == 2:
+    if _is_region(aperture):
+        mask = _region_mask((ny, nx), aperture, wcs)
+    elif not isinstance(aperture, tuple) and np.ndim(aperture) == 2:
         aperture = np.asarray(aperture)
         if aperture.dtype != bool:
             # integer or float masks are refused: 0/1 weights and pixel values look alike.
@@ -175,22 +211,37 @@ def aperture_mask(shape, aperture):
             raise InputError(f"aperture: mask shape {aperture.shape} does not match the image shape {(ny, nx)}")
         mask = aperture.copy()
     else:
-        try:
-            values = np.asarray(aperture, dtype=float).reshape(-1)
-        except (TypeError, ValueError):
-            raise InputError(f"aperture: expected None, a boolean mask or (center_col, center_row, radius), "
-                             f"got {aperture!r}") from None
-        if values.shape != (3,) or not np.all(np.isfinite(values)):
-            raise InputError(f"aperture: a circle is three finite numbers (center_col, center_row, radius) "
-                             f"in pixels, got {aperture!r}")
-        col0, row0, radius = values
-        if not radius > 0:
-            raise InputError(f"aperture: the circle radius must be positive, got {radius:g} pixels")
-        rows, cols = np.mgrid[0:ny, 0:nx]
-        mask = (cols - col0) ** 2 + (rows - row0) ** 2 <= radius**2
+        mask = _region_mask((ny, nx), _circle(aperture), None)
     if not mask.any():
         raise InputError(f"aperture: selects none of the {ny}x{nx} pixels")
     return mask
+
+
+def _circle(aperture):
+    """``(center_col, center_row, radius)`` in pixels, checked, as a `regions.CirclePixelRegion`."""
+    import regions
+    try:
+        values = np.asarray(aperture, dtype=float).reshape(-1)
+    except (TypeError, ValueError):
+        raise InputError(f"aperture: expected None, a boolean mask, a regions region or (center_col, center_row, "
+                         f"radius), got {aperture!r}") from None
+    if values.shape != (3,) or not np.all(np.isfinite(values)):
+        raise InputError(f"aperture: a circle is three finite numbers (center_col, center_row, radius) "
+                         f"in pixels, got {aperture!r}")
+    col0, row0, radius = (float(v) for v in values)
+    if not radius > 0:
+        raise InputError(f"aperture: the circle radius must be positive, got {radius:g} pixels")
+    return regions.CirclePixelRegion(regions.PixCoord(col0, row0), radius)
+
+
+def _image_wcs(obj, aperture):
+    """The celestial WCS of ``obj``'s image when ``aperture`` is a sky region (None otherwise)."""
+    import regions
+    if not isinstance(aperture, regions.SkyRegion):
+        return None
+    from ..io.fits import sky_wcs
+    shape = np.shape(obj.data if _is_skymap(obj) else obj.tau)[1:]
+    return sky_wcs(shape, obj.pixel_scale, obj.sky_position)
 
 
 def sed(obj, aperture=None, background=None):
@@ -202,8 +253,9 @@ def sed(obj, aperture=None, background=None):
         A traced Result (background subtracted, as in ``flux_density()``) or a
         SkyMap (its observed ``data`` in Jy/beam, converted with each plane's
         beam area).
-    aperture : None, ndarray of bool (ny, nx), or (float, float, float), optional
-        See :func:`aperture_mask`; default the whole image.
+    aperture : None, ndarray of bool (ny, nx), `regions` region or (float, float, float), optional
+        See :func:`aperture_mask`; default the whole image. A sky region is
+        placed with the image's WCS (:func:`rtrace.io.fits.sky_wcs`).
     background : {"subtracted", "included"}, optional
         See :func:`pixel_flux`.
 
@@ -215,12 +267,21 @@ def sed(obj, aperture=None, background=None):
         Jy.
     """
     flux = pixel_flux(obj, background)
-    mask = aperture_mask(flux.shape[1:], aperture)
+    mask = aperture_mask(flux.shape[1:], aperture, _image_wcs(obj, aperture))
     total = flux.value[:, mask].sum(axis=1)
     return _frequencies_hz(obj) * u.Hz, total * u.Jy
 
 
 def _describe_aperture(aperture, shape):
+    import regions
+    if isinstance(aperture, regions.CircleSkyRegion):
+        c = aperture.center.icrs
+        return (f"circle centre RA {c.ra.deg:.8g} deg, Dec {c.dec.deg:.8g} deg (ICRS) radius "
+                f"{aperture.radius.to_value(u.arcsec):g} arcsec")
+    if isinstance(aperture, regions.CirclePixelRegion):
+        aperture = (aperture.center.x, aperture.center.y, aperture.radius)
+    elif _is_region(aperture):
+        return f"{type(aperture).__name__} (regions package)"
     if aperture is None:
         return f"whole image ({shape[0]}x{shape[1]} pixels)"
     if not isinstance(aperture, tuple) and np.ndim(aperture) == 2:

@@ -229,13 +229,14 @@ def _gaussian_on_grid(beam, pixel_scale, half, supersample):
         kernel = np.array(sampled.array, dtype=float)
     else:
         model = sampled.model
+        params = model.parameters      # the model's own evaluate: no input checks in the sub-pixel loop
         offs = np.arange(-half, half + 1, dtype=float)
         kernel = np.zeros((side, side))
         sub = (np.arange(supersample) + 0.5) / supersample - 0.5      # sub-pixel offsets
         for dr_sub in sub:
             rows = (offs + dr_sub)[:, None]
             for dc_sub in sub:
-                kernel += model((offs + dc_sub)[None, :], rows)
+                kernel += model.evaluate((offs + dc_sub)[None, :], rows, *params)
     return kernel / kernel.sum()
 
 
