@@ -7,7 +7,7 @@ loading from numba's cache, first imports of matplotlib and astropy.io.fits; sho
 
 * ``trace``: ``rtrace.trace`` of the view (the reference);
 * ``observe``: the beam convolution and noise of the job (``Result.observe``);
-* each output of the view, as the run writes it: the FITS cubes, the pictures, the SED CSV and
+* each output of the view, as the run writes it: the FITS cubes, the pictures, the SED table (ECSV) and
   picture; and, apart, ``manifest``: recording every output in the folder's manifest (size and
   SHA-256 of each file, the manifest rewritten atomically each time).
 

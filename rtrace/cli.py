@@ -294,27 +294,6 @@ def _sample_count(text):
     return n
 
 
-def _write_cut_csv(path, c):
-    from .io.atomic import atomic_path
-    ghz = c.frequencies.to_value(u.GHz)
-    names = ["offset_arcsec", "distance_pc", "column", "row", "emission_measure_pc_cm-6"]
-    cols = [c.offset.to_value(u.arcsec), c.distance.to_value(u.pc), c.columns, c.rows,
-            c.emission_measure.to_value(u.pc * u.cm**-6)]
-    thin = c.unabsorbed_intensity.value
-    for k, f in enumerate(ghz):
-        tag = f"{f:.6g}GHz"
-        names += [f"I_{tag}", f"I_unabsorbed_{tag}", f"tau_{tag}", f"Tb_{tag}_K", f"alpha_{tag}"]
-        cols += [c.intensity.value[k], thin[k], c.tau[k], c.brightness_temperature.to_value(u.K)[k],
-                 c.spectral_index[k]]
-    with atomic_path(path) as tmp:
-        with open(tmp, "w") as fh:
-            fh.write("# rtrace cut; intensities in erg s-1 cm-2 Hz-1 sr-1, T_b Planck (K); "
-                     f"background {c.describe_background()}\n")
-            fh.write(",".join(names) + "\n")
-            for row in zip(*cols, strict=True):
-                fh.write(",".join(f"{v:.8g}" for v in row) + "\n")
-
-
 def _flags(exc, names):
     """The same InputError with the leading Python names (``"start, end: ..."``) replaced by CLI flags."""
     head, sep, rest = str(exc).partition(": ")
@@ -382,7 +361,7 @@ def cmd_cut(args):
         print(f"{f:10.5g} {np.nanmax(c.tau[k]):10.4g} {np.nanmin(c.tau[k]):10.4g} "
               f"{np.nanmax(ratio[k]):13.4g} {np.nanmin(ratio[k]):13.4g}")
     if args.csv:
-        _write_cut_csv(args.csv, c)
+        c.write(args.csv)
         print(f"wrote {args.csv}")
     if args.plot:
         c.plot(args.plot)
@@ -549,7 +528,8 @@ def build_parser():
     p.add_argument("--end", type=_cut_point, required=True, help="as --start")
     p.add_argument("--num", type=_sample_count, default=None, help="number of samples, at least 2 (default: one "
                    "per pixel)")
-    p.add_argument("--csv", help="write the profiles to this CSV file")
+    p.add_argument("--csv", help="write the profiles to this table (ECSV: comma-separated rows with "
+                   "units, e.g. cut.ecsv)")
     p.add_argument("--plot", help="draw full and unabsorbed profiles to this file (PNG, PDF, ...)")
     p.set_defaults(func=cmd_cut)
     return parser

@@ -17,9 +17,10 @@ import radio_beam
 from astropy.coordinates import SkyCoord
 from astropy.io import fits
 from astropy.modeling.physical_models import BlackBody
+from astropy.table import Table
 
 import rtrace
-from rtrace.analysis.spectra import sed, sed_metadata, write_sed_csv
+from rtrace.analysis.spectra import sed, sed_metadata, write_sed_table
 from rtrace.errors import InputError
 from rtrace.interferometer import synthesize
 from rtrace.io.fits import write_result
@@ -181,11 +182,11 @@ def test_empty_grid_has_zero_flux_and_sed(empty, tmp_path):
     # included: the CMB over the field, B(T_cmb) Omega_pix per pixel
     expected = _bb(nu.value, T_CMB) * empty.pixel_solid_angle.to_value(u.sr) * 256 / 1e-23
     np.testing.assert_allclose(empty.flux_density(background="included").to_value(u.Jy), expected, rtol=1e-9)
-    path = tmp_path / "sed.csv"
-    write_sed_csv(path, nu, flux, metadata=sed_metadata(empty))
-    text = path.read_text()
-    assert "# background: subtracted (CMB, 2.7255 K): empty sky reads 0" in text
-    assert np.all(np.loadtxt(path, delimiter=",")[:, 1] == 0)
+    path = tmp_path / "sed.ecsv"
+    write_sed_table(path, nu, flux, metadata=sed_metadata(empty))
+    table = Table.read(path)            # astropy ECSV reader
+    assert table.meta["background"] == "subtracted (CMB, 2.7255 K): empty sky reads 0"
+    assert np.all(table["flux_density"] == 0)
     meta = sed_metadata(empty, background="included")
     assert meta["background"].startswith("included (CMB, 2.7255 K)")
 

@@ -3,10 +3,12 @@
 import os
 import textwrap
 
+import astropy.units as u
 import h5py
 import numpy as np
 import pytest
 from astropy.io import fits
+from astropy.table import Table
 from astropy.wcs import WCS
 from jobs import NOISE, TWO_FREQUENCIES, demo, job_text, view, write
 
@@ -22,7 +24,7 @@ def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):
     assert main(["run", str(job), "--quiet"]) == EXIT_OK
     out = tmp_path / "out"
     names = sorted(p.name for p in out.iterdir())
-    for expected in ("small_intensity.fits", "small_tau.fits", "small_observed.fits", "small_sed.csv",
+    for expected in ("small_intensity.fits", "small_tau.fits", "small_observed.fits", "small_sed.ecsv",
                      "small_intensity.png", "small_sed.png"):
         assert expected in names
     assert [n for n in names if n.startswith(".")] == [".rtrace-manifest.json"]   # no temporary files left
@@ -32,13 +34,13 @@ def test_run_writes_fits_pictures_and_sed(tmp_path, capsys):
         # FITS beam keywords in degrees (common practice of radio FITS files)
         assert header["BMAJ"] == pytest.approx(60 / 3600)
         assert WCS(header).naxis == 3
-    sed = np.loadtxt(out / "small_sed.csv", delimiter=",", comments="#", skiprows=1, ndmin=2)
-    assert sed.shape[0] == 2
-    # every product says its background convention (rtrace.transfer.background): FITS cards and a CSV line
+    sed = Table.read(out / "small_sed.ecsv")            # astropy ECSV reader
+    assert len(sed) == 2 and sed["flux_density"].unit == u.Jy
+    # every product says its background convention (rtrace.transfer.background): FITS cards and table meta
     for path in out.glob("*.fits"):
         header = fits.getheader(path)
         assert (header["BKGSUB"], header["BKGKIND"], header["BKGTEMP"]) == (True, "NONE", 0.0), path.name
-    assert "# background: subtracted (none): empty sky reads 0" in (out / "small_sed.csv").read_text()
+    assert sed.meta["background"] == "subtracted (none): empty sky reads 0"
     assert "wrote" in capsys.readouterr().out
 
 
@@ -74,16 +76,17 @@ def test_inspect_and_sed(tmp_path, capsys):
 
 def test_cut_writes_profiles_and_figure(tmp_path, capsys):
     job = write(tmp_path, JOB)
-    csv, png = tmp_path / "cut.csv", tmp_path / "cut.png"
+    csv, png = tmp_path / "cut.ecsv", tmp_path / "cut.png"
     assert main(["cut", str(job), "--start", "2, 12", "--end", "21, 12", "--csv", str(csv),
                  "--plot", str(png)]) == EXIT_OK
     out = capsys.readouterr().out
     assert "max tau" in out and png.stat().st_size > 1000
-    rows = np.genfromtxt(csv, delimiter=",", names=True, skip_header=1)
-    assert rows.size == 20
+    rows = Table.read(csv)              # astropy ECSV reader: units and meta come back
+    assert len(rows) == 20 and rows["offset"].unit == u.arcsec and rows["Tb_1GHz"].unit == u.K
+    assert rows["I_1GHz"].unit == u.Unit("erg s-1 cm-2 Hz-1 sr-1")
     # with absorption the intensity never exceeds the emission-only one (R&L 1979 eq. 1.30: (1 - e^-tau)/tau <= 1)
     assert np.all(rows["I_1GHz"] <= rows["I_unabsorbed_1GHz"] * (1 + 1e-6))
-    assert "background subtracted" in csv.read_text().splitlines()[0]
+    assert rows.meta["background"].startswith("subtracted")
     with pytest.raises(SystemExit) as exc:
         main(["cut", str(job), "--start", "2", "--end", "3, 4"])
     assert exc.value.code == 2
@@ -192,7 +195,7 @@ def _complete(folder, job_text):
                     assert np.isfinite(hdul[0].data).all(), path.name
         elif path.name == "job.toml":
             assert path.read_text() == textwrap.dedent(job_text)
-        elif path.suffix == ".csv":
+        elif path.suffix == ".ecsv":
             assert path.read_text().endswith("\n"), path.name
 
 

@@ -372,6 +372,32 @@ def test_aperture_flux_of_a_point_source_is_its_total_flux(point):
         cmp.aperture_flux((10, 10, 3))
 
 
+def test_flux_table_round_trips_as_ecsv_with_units(point, tmp_path):
+    from astropy.table import Table
+
+    from rtrace.io.tables import write_ecsv
+
+    res, beam, hdu = point
+    cmp = quiet_compare(res, hdu)
+    circle = regions.CircleSkyRegion(center=POSITION, radius=12 * u.arcsec)
+    table = cmp.flux_table([("core", circle), circle.to_pixel(cmp.wcs)])
+    path = write_ecsv(tmp_path / "cmp.ecsv", table)
+    # astropy's ECSV reader (astropy proposal APE 6, from memory) gives units, descriptions and meta back
+    back = Table.read(path)
+    assert list(back["aperture"]) == ["common footprint", "core", "aperture 2"]
+    assert back["model"].unit == u.Jy and back["observed"].unit == u.Jy and back["pixels"].unit == u.pix
+    assert "observed - model" in back["residual"].description
+    assert back.meta["background"].startswith("subtracted from the model")
+    assert back.meta["frequency"] == f"{cmp.frequency.to_value(u.GHz):.8g} GHz"
+    # the numbers are those of the measurements, to the last bit
+    ap = cmp.aperture_flux(circle)
+    assert back["model"][0] == cmp.model_flux.to_value(u.Jy) and back["ratio"][0] == cmp.flux_ratio
+    assert back["model"][1] == ap.model.to_value(u.Jy) and back["observed"][1] == ap.observation.to_value(u.Jy)
+    assert back["pixels"][1] == ap.pixels and bool(back["complete"][1]) is ap.complete
+    assert back["model"][2] == pytest.approx(ap.model.to_value(u.Jy), rel=1e-9)
+    assert [p.name for p in tmp_path.iterdir()] == ["cmp.ecsv"]
+
+
 def test_observation_in_kelvin_is_converted(point):
     res, beam, hdu = point
     jyb = quiet_compare(res, hdu)

@@ -102,6 +102,27 @@ def test_cut_across_a_uniform_slab_has_constant_tau(axis_result):
     np.testing.assert_allclose(c.intensity / c.unabsorbed_intensity, -np.expm1(-c.tau) / c.tau, rtol=1e-5)
 
 
+def test_cut_table_round_trips_as_ecsv_with_units(axis_result, tmp_path):
+    from astropy.table import Table
+
+    c = axis_result.cut((2, 3), (20, 18))
+    path = c.write(tmp_path / "cut.ecsv")
+    # astropy's ECSV reader (astropy proposal APE 6, from memory): units, descriptions and meta come back
+    t = Table.read(path)
+    assert len(t) == c.columns.size and t.meta["background"] == c.describe_background()
+    np.testing.assert_array_equal(t["offset"].quantity, c.offset)
+    np.testing.assert_array_equal(t["distance"].quantity, c.distance)
+    np.testing.assert_array_equal(t["emission_measure"].quantity.to_value(u.pc * u.cm**-6),
+                                  c.emission_measure.to_value(u.pc * u.cm**-6))
+    for k, f in enumerate(FREQS.to_value(u.GHz)):
+        tag = f"{f:.6g}GHz"
+        np.testing.assert_array_equal(t[f"I_{tag}"].quantity, c.intensity[k])
+        np.testing.assert_array_equal(t[f"Tb_{tag}"].quantity, c.brightness_temperature[k])
+        np.testing.assert_array_equal(t[f"tau_{tag}"], c.tau[k])
+        assert t[f"tau_{tag}"].unit is None and "optical depth" in t[f"tau_{tag}"].description
+    assert [p.name for p in tmp_path.iterdir()] == ["cut.ecsv"]
+
+
 def test_cut_spectral_index_in_thick_and_thin_limits(axis_result):
     c = axis_result.cut((4, 4), (19, 19))
     alpha = c.spectral_index[:, 5]

@@ -325,7 +325,7 @@ def _products(folder):
     folder = Path(folder)
     if not folder.exists():
         return []
-    return [p for p in folder.rglob("*") if p.is_file() and p.suffix.lower() in (".fits", ".png", ".csv", ".pdf")]
+    return [p for p in folder.rglob("*") if p.is_file() and p.suffix.lower() in (".fits", ".png", ".ecsv", ".pdf")]
 
 
 @pytest.mark.filterwarnings("ignore::UserWarning")

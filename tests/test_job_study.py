@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 import radio_beam
 from astropy.io import fits
+from astropy.table import Table
 from astropy.wcs import WCS
 from jobs import TWO_FREQUENCIES, demo, job_text, view
 from jobs import write as _write
@@ -81,7 +82,7 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
     assert main(["run", str(job_path), "--quiet"]) == EXIT_OK
     out = study / "out"
     for name in ("small_synthesized.fits", "small_synthesized.png", "small_comparison.fits",
-                 "small_comparison.png", "small_comparison.csv", "job.toml"):
+                 "small_comparison.png", "small_comparison.ecsv", "job.toml"):
         assert (out / name).stat().st_size > 0, name
     # the job is kept, byte for byte, with its outputs
     assert (out / "job.toml").read_text() == job_path.read_text()
@@ -98,16 +99,16 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
         expect_deg = math.degrees(299792458.0 / 10e9 / bmax / 5)
         assert abs(hdr["CDELT2"]) == pytest.approx(expect_deg, rel=1e-9)
     # the comparison: the observation is the same model through a known beam, so model / observed = 1
-    assert "# background: subtracted from the model" in (out / "small_comparison.csv").read_text()
-    rows = [line.split(",") for line in (out / "small_comparison.csv").read_text().splitlines()
-            if not line.startswith("#")]
-    assert rows[0][:5] == ["aperture", "model_jy", "observed_jy", "residual_jy", "ratio"]
-    assert rows[1][0] == "common footprint" and float(rows[1][4]) == pytest.approx(1.0, abs=0.02)
-    assert rows[2][0] == "core.reg#0" and float(rows[2][4]) == pytest.approx(1.0, abs=0.02)
+    rows = Table.read(out / "small_comparison.ecsv")        # astropy ECSV reader: units and meta come back
+    assert rows.meta["background"].startswith("subtracted from the model")
+    assert rows.colnames[:5] == ["aperture", "model", "observed", "residual", "ratio"]
+    assert rows["model"].unit == u.Jy and rows["observed"].unit == u.Jy and rows["pixels"].unit == u.pix
+    assert rows["aperture"][0] == "common footprint" and rows["ratio"][0] == pytest.approx(1.0, abs=0.02)
+    assert rows["aperture"][1] == "core.reg#0" and rows["ratio"][1] == pytest.approx(1.0, abs=0.02)
     # a rerun finds every output finished and skips it
     again = run_job(load_job(job_path))
     assert list(again) == []
-    assert {p.split("/")[-1] for p in again.skipped} >= {"small_synthesized.fits", "small_comparison.csv",
+    assert {p.split("/")[-1] for p in again.skipped} >= {"small_synthesized.fits", "small_comparison.ecsv",
                                                         "job.toml"}
     # a changed antenna file redoes the synthesis outputs only
     (study / "five.txt").write_text(ANTENNAS + "200 200 0\n")

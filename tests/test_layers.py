@@ -28,7 +28,7 @@ LAYERS = [
     ("core", ["rtrace._version", "rtrace.errors", "rtrace.quantities", "rtrace.memory", "rtrace.compiling",
               "rtrace.physics"]),
     ("snapshot", ["rtrace.gas", "rtrace.snapshot", "rtrace.amr", "rtrace.io.hdf5", "rtrace.io.lazy",
-                  "rtrace.io.ytdata", "rtrace.io.atomic", "rtrace.io.outdir"]),
+                  "rtrace.io.ytdata", "rtrace.io.atomic", "rtrace.io.outdir", "rtrace.io.tables"]),
     ("transfer", ["rtrace.transfer"]),
     ("result", ["rtrace.transfer.result", "rtrace.transfer.high_level"]),
     ("products", ["rtrace.observe", "rtrace.analysis", "rtrace.comparison", "rtrace.interferometer",

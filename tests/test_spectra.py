@@ -1,11 +1,14 @@
 """SEDs, spectral indices and the tau = 1 frequency against analytic free-free spectra."""
 
+import csv
 import math
 import types
 
 import astropy.units as u
 import numpy as np
 import pytest
+import regions
+from astropy.table import Table
 from conftest import uniform_snapshot
 from radio_beam import Beam
 from scipy.optimize import brentq
@@ -13,13 +16,15 @@ from scipy.optimize import brentq
 import rtrace
 from rtrace import demo
 from rtrace.analysis import (
+    SED_COLUMNS,
     aperture_mask,
     sed,
     sed_metadata,
+    sed_table,
     spectral_index,
     spectral_index_map,
     tau_unity_frequency,
-    write_sed_csv,
+    write_sed_table,
 )
 from rtrace.errors import InputError, PhysicsRangeWarning
 from rtrace.physics import absorption_coefficient, planck
@@ -90,6 +95,51 @@ def test_mask_aperture_and_its_complement_add_up(tiny):
     # a list of lists works like the array
     _, listed = sed(tiny, mask.tolist())
     assert np.array_equal(listed.value, inside.value)
+
+
+def _centres_within(shape, col0, row0, radius):
+    """Pixels whose centres lie within ``radius`` of ``(col0, row0)``, edge included (the definition)."""
+    rows, cols = np.mgrid[0:shape[0], 0:shape[1]]
+    return (cols - col0) ** 2 + (rows - row0) ** 2 <= radius**2
+
+
+def test_regions_apertures_select_the_same_pixels_as_the_circle_tuple(tiny):
+    # regions (Astropy Regions package) gives the masks; the sums must be those of the written-out rule
+    rng = np.random.default_rng(7)
+    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23     # Jy (1 Jy = 1e-23 cgs)
+    circles = [(24, 24, 12), (2, 3, 1.0), (0, 0, 5), (47, 10, 3), (23.5, 23.5, 2.0), (10, 40, 0.5)]
+    circles += [tuple(rng.uniform(-3, 50, 2)) + (float(rng.uniform(0.3, 30)),) for _ in range(40)]
+    circles += [(float(c), float(r), float(rad)) for c, r, rad in rng.integers(0, 48, (20, 3)) + (0, 0, 1)]
+    for col0, row0, radius in circles:
+        expected = _centres_within((48, 48), col0, row0, radius)
+        if not expected.any():
+            continue
+        region = regions.CirclePixelRegion(regions.PixCoord(col0, row0), radius)
+        assert np.array_equal(aperture_mask((48, 48), (col0, row0, radius)), expected), (col0, row0, radius)
+        assert np.array_equal(aperture_mask((48, 48), region), expected), (col0, row0, radius)
+        want = per_pixel[:, expected].sum(axis=1)
+        for aperture in ((col0, row0, radius), region):
+            _, flux = sed(tiny, aperture)
+            np.testing.assert_allclose(flux.value, want, rtol=1e-12, atol=0)
+
+
+def test_sky_region_aperture_is_placed_with_the_image_wcs(tiny):
+    from rtrace.io.fits import sky_wcs
+
+    wcs = sky_wcs((48, 48), tiny.pixel_scale, tiny.sky_position)
+    pix = tiny.pixel_scale.to_value(u.arcsec)
+    circle = regions.CircleSkyRegion(tiny.sky_position, 9.3 * pix * u.arcsec)
+    # the image centre is pixel (23.5, 23.5); the radius in pixels is the angle over the pixel scale
+    expected = _centres_within((48, 48), 23.5, 23.5, 9.3)
+    assert np.array_equal(aperture_mask((48, 48), circle, wcs), expected)
+    _, flux = sed(tiny, circle)
+    _, by_pixels = sed(tiny, (23.5, 23.5, 9.3))
+    np.testing.assert_allclose(flux.value, by_pixels.value, rtol=1e-12, atol=0)
+    assert "circle centre RA" in sed_metadata(tiny, circle)["aperture"]
+    with pytest.raises(InputError, match="sky region .* needs the image's WCS"):
+        aperture_mask((48, 48), circle)
+    box = regions.RectanglePixelRegion(regions.PixCoord(10, 20), width=5, height=3)
+    assert aperture_mask((48, 48), box).sum() == 15            # 5 x 3 pixel centres
 
 
 @pytest.mark.parametrize("aperture, words", [
@@ -300,39 +350,45 @@ def test_tau_unity_of_the_demo_lies_between_its_thick_and_thin_frequencies(tiny)
     assert 0.3 < whole.to_value(u.GHz) < 30
 
 
-# --- CSV ---------------------------------------------------------------------------------------
+# --- ECSV table ----------------------------------------------------------------------------------
 
-def test_sed_csv_round_trip(tiny, tmp_path):
+def test_sed_table_round_trip(tiny, tmp_path):
     nu, flux = sed(tiny, (24, 24, 12))
     meta = sed_metadata(tiny, (24, 24, 12))
     assert meta["source"].startswith("rtrace.demo.scenario") and "circle" in meta["aperture"]
-    meta["note"] = "two\nlines"                                   # must stay on one header line
-    path = tmp_path / "sed.csv"
-    write_sed_csv(path, nu, flux, meta)
-    table = np.loadtxt(path, delimiter=",")
-    assert table.shape == (5, 3)
-    # 17 significant digits: the values come back to the last bit (up to the Hz -> GHz division)
-    assert np.allclose(table[:, 0], nu.to_value(u.GHz), rtol=1e-15, atol=0)
-    assert np.array_equal(table[:, 1], flux.to_value(u.Jy))
-    assert np.allclose(table[:-1, 2], spectral_index(nu, flux), rtol=1e-14)
-    assert np.isnan(table[-1, 2])
-    named = np.genfromtxt(path, delimiter=",", names=True)
-    assert named.dtype.names == ("frequency_GHz", "flux_density_Jy", "spectral_index")
-    header = [line for line in path.read_text().splitlines() if line.startswith("#")]
-    assert "# note: two lines" in header
-    assert any(line.startswith("# view: ") for line in header)
+    meta["note"] = "two\nlines"
+    path = tmp_path / "sed.ecsv"
+    write_sed_table(path, nu, flux, meta)
+    # astropy ECSV (astropy proposal APE 6, from memory) carries units, descriptions and meta;
+    # Table.read is the reference reader
+    table = Table.read(path)
+    assert table.colnames == list(SED_COLUMNS)
+    assert table["frequency"].unit == u.GHz and table["flux_density"].unit == u.Jy
+    assert table["spectral_index"].unit is None and "d ln S / d ln nu" in table["spectral_index"].description
+    # float64 written in full: the values come back to the last bit (up to the Hz -> GHz division)
+    assert np.allclose(table["frequency"].quantity.to_value(u.Hz), nu.to_value(u.Hz), rtol=1e-15, atol=0)
+    assert np.array_equal(table["flux_density"].quantity.to_value(u.Jy), flux.to_value(u.Jy))
+    assert np.allclose(table["spectral_index"][:-1], spectral_index(nu, flux), rtol=1e-14)
+    assert np.isnan(table["spectral_index"][-1])
+    assert table.meta["note"] == "two lines" and table.meta["view"] == meta["view"]      # one line each
+    assert table.meta["background"] == meta["background"]
+    # below the '#' lines the file is plain CSV: names, then rows (common practice)
+    rows = list(csv.reader(line for line in path.read_text().splitlines() if not line.startswith("#")))
+    assert rows[0] == list(SED_COLUMNS) and len(rows) == 6 and float(rows[1][1]) == flux[0].to_value(u.Jy)
     # no temporary file is left next to it
-    assert [p.name for p in tmp_path.iterdir()] == ["sed.csv"]
+    assert [p.name for p in tmp_path.iterdir()] == ["sed.ecsv"]
 
 
-def test_sed_csv_rejects_bad_input_and_leaves_no_file(tmp_path):
-    path = tmp_path / "bad.csv"
+def test_sed_table_states_background_and_rejects_bad_input(tmp_path):
+    table = sed_table([1, 2] * u.GHz, [1, 2] * u.Jy)
+    assert table.meta["background"].startswith("not stated")
+    path = tmp_path / "bad.ecsv"
     with pytest.raises(InputError, match="flux"):
-        write_sed_csv(path, [1, 2] * u.GHz, [1, 2] * u.K)
+        write_sed_table(path, [1, 2] * u.GHz, [1, 2] * u.K)
     with pytest.raises(InputError, match="flux"):
-        write_sed_csv(path, [1, 2] * u.GHz, [1, 2, 3] * u.Jy)
+        write_sed_table(path, [1, 2] * u.GHz, [1, 2, 3] * u.Jy)
     with pytest.raises(InputError, match="metadata"):
-        write_sed_csv(path, [1, 2] * u.GHz, [1, 2] * u.Jy, metadata=["source"])
+        write_sed_table(path, [1, 2] * u.GHz, [1, 2] * u.Jy, metadata=["source"])
     assert list(tmp_path.iterdir()) == []
 
 

@@ -155,6 +155,53 @@ class Cut:
         """One line saying the profiles' background convention (for file headers)."""
         return describe(self.background, self.result)
 
+    def to_table(self):
+        """The profiles as an astropy `~astropy.table.Table`, one row per sample, with units.
+
+        Columns ``offset`` (arcsec), ``distance`` (pc), ``column``, ``row``
+        (pixels), ``emission_measure`` (pc cm-6), then for each frequency
+        ``<f>GHz`` tag: ``I_<tag>`` and ``I_unabsorbed_<tag>`` (erg s-1
+        cm-2 Hz-1 sr-1), ``tau_<tag>``, ``Tb_<tag>`` (Planck brightness
+        temperature, K) and ``alpha_<tag>``. Each column has a description;
+        ``meta`` holds the title, the source and the ``background`` convention
+        (:meth:`describe_background`).
+        """
+        from astropy.table import Table
+
+        meta = {"title": "rtrace cut", "source": str(self.result.provenance.get("source", "unknown")),
+                "background": self.describe_background()}
+        table = Table(meta=meta)
+
+        def add(name, values, description, unit=None):
+            table[name] = np.asarray(values, float)
+            table[name].unit, table[name].description = unit, description
+
+        add("offset", self.offset.to_value(u.arcsec), "angular distance from the start of the cut", u.arcsec)
+        add("distance", self.distance.to_value(u.pc), "distance from the start at the source", u.pc)
+        add("column", self.columns, "pixel column of the sample", u.pix)
+        add("row", self.rows, "pixel row of the sample", u.pix)
+        add("emission_measure", self.emission_measure.to_value(u.pc * u.cm**-6), "emission measure",
+            u.pc * u.cm**-6)
+        unit = self.intensity.unit
+        thin = self.unabsorbed_intensity.to_value(unit)
+        tb = self.brightness_temperature.to_value(u.K)
+        alpha = self.spectral_index
+        for k, f in enumerate(self.frequencies.to_value(u.GHz)):
+            tag = f"{f:.6g}GHz"
+            add(f"I_{tag}", self.intensity.value[k], f"specific intensity at {tag} (background: {self.background})",
+                unit)
+            add(f"I_unabsorbed_{tag}", thin[k], f"unabsorbed intensity, int j ds, at {tag}", unit)
+            add(f"tau_{tag}", self.tau[k], f"optical depth at {tag}")
+            add(f"Tb_{tag}", tb[k], f"Planck brightness temperature at {tag}", u.K)
+            add(f"alpha_{tag}", alpha[k], f"spectral index d ln I / d ln nu at {tag}")
+        return table
+
+    def write(self, path):
+        """Write :meth:`to_table` as an ECSV file (``.ecsv`` by convention), atomically; returns the path."""
+        from ..io.tables import write_ecsv
+
+        return write_ecsv(path, self.to_table())
+
     def plot(self, path=None, frequencies=None):
         """Figure: full (solid) and unabsorbed (dashed) intensity profiles, and tau, along the cut.
 

@@ -27,15 +27,17 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, warn_user
+from ..observe.beam import same_beam
 from ..transfer.background import check_convention, describe
 
-__all__ = ["sed", "sed_metadata", "describe_background", "write_sed_csv", "spectral_index", "spectral_index_map",
+__all__ = ["sed", "sed_metadata", "describe_background", "sed_table", "write_sed_table", "spectral_index",
+           "spectral_index_map",
            "SpectralIndexMap", "tau_unity_frequency", "middle_frequency_index", "frequency_index", "pixel_flux",
            "aperture_mask", "FREQUENCY_TOLERANCE", "THIN_SPECTRAL_INDEX", "SED_COLUMNS",
            "DEFAULT_PEAK_FRACTION", "DEFAULT_SNR_THRESHOLD"]
 
 # Columns of the SED CSV file, in order
-SED_COLUMNS = ("frequency_GHz", "flux_density_Jy", "spectral_index")
+SED_COLUMNS = ("frequency", "flux_density", "spectral_index")     # units GHz, Jy and none
 
 # Spectral index of optically thin free-free emission at radio frequencies (the Gaunt
 # factor's slow decline makes S ~ nu^-0.1; Condon & Ransom 2016, from memory).
@@ -139,18 +141,52 @@ def pixel_flux(obj, background=None):
     return (flux_cgs * u.erg / (u.s * u.cm**2 * u.Hz)).to(u.Jy)
 
 
-def aperture_mask(shape, aperture):
+# A pixel whose centre lies on a circular aperture's edge counts (the rule of the (col, row, radius)
+# form); regions' "center" mask mode counts only centres strictly inside, so a circle's radius is
+# widened by this relative amount before its mask is made (far below any pixel-scale meaning).
+_ON_THE_EDGE = 1e-12
+
+
+def _is_region(aperture):
+    import regions
+    return isinstance(aperture, (regions.PixelRegion, regions.SkyRegion))
+
+
+def _region_mask(shape, region, wcs):
+    """Boolean mask of the pixels whose centres a `regions` region holds (mode ``"center"``)."""
+    import regions
+    if isinstance(region, regions.SkyRegion):
+        if wcs is None:
+            raise InputError(f"aperture: a sky region ({type(region).__name__}) needs the image's WCS; "
+                             "give a pixel region or (center_col, center_row, radius)")
+        region = region.to_pixel(wcs)
+    if isinstance(region, regions.CirclePixelRegion):
+        region = regions.CirclePixelRegion(region.center, region.radius * (1 + _ON_THE_EDGE))
+    mask = region.to_mask(mode="center")
+    if isinstance(mask, list):          # a compound region can give several masks
+        raise InputError("aperture: give a single region (its mask must be one piece)")
+    image = mask.to_image(tuple(shape))
+    return np.zeros(shape, bool) if image is None else image > 0
+
+
+def aperture_mask(shape, aperture, wcs=None):
     """Boolean mask ``(ny, nx)`` of the pixels an aperture selects.
 
     Parameters
     ----------
     shape : tuple of int
         Image shape ``(ny, nx)``.
-    aperture : None, ndarray of bool (ny, nx), or (float, float, float)
-        ``None``: the whole image. A boolean mask of the image shape. A circle
-        ``(center_col, center_row, radius)`` in pixels: every pixel whose
-        centre lies within ``radius`` of the centre counts (pixel
-        ``(row, col)`` has its centre at ``(col, row)``).
+    aperture : None, ndarray of bool (ny, nx), `regions.PixelRegion`, `regions.SkyRegion` or (float, float, float)
+        ``None``: the whole image. A boolean mask of the image shape. A
+        region of the ``regions`` package (e.g. ``CirclePixelRegion``,
+        ``CircleSkyRegion``): the pixels whose centres it holds (its mask in
+        ``"center"`` mode; a circle also counts centres on its edge). A circle
+        ``(center_col, center_row, radius)`` in pixels, the same as
+        ``CirclePixelRegion(PixCoord(center_col, center_row), radius)``
+        (pixel ``(row, col)`` has its centre at ``(col, row)``).
+    wcs : `~astropy.wcs.WCS`, optional
+        The image's celestial WCS, needed for a sky region
+        (:func:`rtrace.io.fits.sky_wcs`; :func:`sed` makes it).
 
     Returns
     -------
@@ -164,7 +200,9 @@ def aperture_mask(shape, aperture):
     ny, nx = shape
     if aperture is None:
         return np.ones(shape, bool)
-    if not isinstance(aperture, tuple) and np.ndim(aperture) == 2:
+    if _is_region(aperture):
+        mask = _region_mask((ny, nx), aperture, wcs)
+    elif not isinstance(aperture, tuple) and np.ndim(aperture) == 2:
         aperture = np.asarray(aperture)
         if aperture.dtype != bool:
             # integer or float masks are refused: 0/1 weights and pixel values look alike.
@@ -173,22 +211,37 @@ def aperture_mask(shape, aperture):
             raise InputError(f"aperture: mask shape {aperture.shape} does not match the image shape {(ny, nx)}")
         mask = aperture.copy()
     else:
-        try:
-            values = np.asarray(aperture, dtype=float).reshape(-1)
-        except (TypeError, ValueError):
-            raise InputError(f"aperture: expected None, a boolean mask or (center_col, center_row, radius), "
-                             f"got {aperture!r}") from None
-        if values.shape != (3,) or not np.all(np.isfinite(values)):
-            raise InputError(f"aperture: a circle is three finite numbers (center_col, center_row, radius) "
-                             f"in pixels, got {aperture!r}")
-        col0, row0, radius = values
-        if not radius > 0:
-            raise InputError(f"aperture: the circle radius must be positive, got {radius:g} pixels")
-        rows, cols = np.mgrid[0:ny, 0:nx]
-        mask = (cols - col0) ** 2 + (rows - row0) ** 2 <= radius**2
+        mask = _region_mask((ny, nx), _circle(aperture), None)
     if not mask.any():
         raise InputError(f"aperture: selects none of the {ny}x{nx} pixels")
     return mask
+
+
+def _circle(aperture):
+    """``(center_col, center_row, radius)`` in pixels, checked, as a `regions.CirclePixelRegion`."""
+    import regions
+    try:
+        values = np.asarray(aperture, dtype=float).reshape(-1)
+    except (TypeError, ValueError):
+        raise InputError(f"aperture: expected None, a boolean mask, a regions region or (center_col, center_row, "
+                         f"radius), got {aperture!r}") from None
+    if values.shape != (3,) or not np.all(np.isfinite(values)):
+        raise InputError(f"aperture: a circle is three finite numbers (center_col, center_row, radius) "
+                         f"in pixels, got {aperture!r}")
+    col0, row0, radius = (float(v) for v in values)
+    if not radius > 0:
+        raise InputError(f"aperture: the circle radius must be positive, got {radius:g} pixels")
+    return regions.CirclePixelRegion(regions.PixCoord(col0, row0), radius)
+
+
+def _image_wcs(obj, aperture):
+    """The celestial WCS of ``obj``'s image when ``aperture`` is a sky region (None otherwise)."""
+    import regions
+    if not isinstance(aperture, regions.SkyRegion):
+        return None
+    from ..io.fits import sky_wcs
+    shape = np.shape(obj.data if _is_skymap(obj) else obj.tau)[1:]
+    return sky_wcs(shape, obj.pixel_scale, obj.sky_position)
 
 
 def sed(obj, aperture=None, background=None):
@@ -200,8 +253,9 @@ def sed(obj, aperture=None, background=None):
         A traced Result (background subtracted, as in ``flux_density()``) or a
         SkyMap (its observed ``data`` in Jy/beam, converted with each plane's
         beam area).
-    aperture : None, ndarray of bool (ny, nx), or (float, float, float), optional
-        See :func:`aperture_mask`; default the whole image.
+    aperture : None, ndarray of bool (ny, nx), `regions` region or (float, float, float), optional
+        See :func:`aperture_mask`; default the whole image. A sky region is
+        placed with the image's WCS (:func:`rtrace.io.fits.sky_wcs`).
     background : {"subtracted", "included"}, optional
         See :func:`pixel_flux`.
 
@@ -213,12 +267,21 @@ def sed(obj, aperture=None, background=None):
         Jy.
     """
     flux = pixel_flux(obj, background)
-    mask = aperture_mask(flux.shape[1:], aperture)
+    mask = aperture_mask(flux.shape[1:], aperture, _image_wcs(obj, aperture))
     total = flux.value[:, mask].sum(axis=1)
     return _frequencies_hz(obj) * u.Hz, total * u.Jy
 
 
 def _describe_aperture(aperture, shape):
+    import regions
+    if isinstance(aperture, regions.CircleSkyRegion):
+        c = aperture.center.icrs
+        return (f"circle centre RA {c.ra.deg:.8g} deg, Dec {c.dec.deg:.8g} deg (ICRS) radius "
+                f"{aperture.radius.to_value(u.arcsec):g} arcsec")
+    if isinstance(aperture, regions.CirclePixelRegion):
+        aperture = (aperture.center.x, aperture.center.y, aperture.radius)
+    elif _is_region(aperture):
+        return f"{type(aperture).__name__} (regions package)"
     if aperture is None:
         return f"whole image ({shape[0]}x{shape[1]} pixels)"
     if not isinstance(aperture, tuple) and np.ndim(aperture) == 2:
@@ -229,7 +292,7 @@ def _describe_aperture(aperture, shape):
 
 
 def sed_metadata(obj, aperture=None, background=None):
-    """Header lines describing where an SED came from, for :func:`write_sed_csv`.
+    """Header lines describing where an SED came from, for :func:`write_sed_table`.
 
     Parameters
     ----------
@@ -308,26 +371,23 @@ def spectral_index(frequencies, flux):
     return alpha
 
 
-def _clean_header(text):
-    # one metadata item must stay on one '#' line, or loadtxt would read the rest as data
+def _one_line(text):
+    # a metadata item stays on one line of the file's header
     return " ".join(str(text).split())
 
 
-def write_sed_csv(path, frequencies, flux, metadata=None):
-    """Write an SED as CSV, atomically.
+def sed_table(frequencies, flux, metadata=None):
+    """An SED as an astropy `~astropy.table.Table` with units and column descriptions.
 
-    Every line before the data starts with ``#``: first the column names
-    ``# frequency_GHz,flux_density_Jy,spectral_index``, then a title, each
-    metadata item as ``# key: value`` and the column meanings; then one row
-    per frequency. ``spectral_index`` is the index from this frequency to the
-    next (``nan`` on the last row). Both ``numpy.loadtxt(path, delimiter=",")``
-    and ``numpy.genfromtxt(path, delimiter=",", names=True)`` read it back
-    (the commented names line keeps plain ``loadtxt`` working).
+    Columns: ``frequency`` (GHz), ``flux_density`` (Jy) and
+    ``spectral_index`` (``d ln S / d ln nu`` from this frequency to the next,
+    NaN on the last row). ``meta`` holds a ``title``, the ``metadata`` items
+    (strings, each on one line: runs of white space become one space) and
+    always a ``background`` item: the fluxes' background convention, or a
+    note that the writer did not state it.
 
     Parameters
     ----------
-    path : str or path-like
-        Destination; written to a temporary file and renamed onto it.
     frequencies : `~astropy.units.Quantity` (n,)
         Spectral unit.
     flux : `~astropy.units.Quantity` (n,)
@@ -336,9 +396,12 @@ def write_sed_csv(path, frequencies, flux, metadata=None):
         Header items, e.g. from :func:`sed_metadata`; its ``background``
         item (:func:`describe_background`) says whether the fluxes include
         the background.
+
+    Returns
+    -------
+    `astropy.table.Table`
     """
-    # imported here: rtrace.io gathers the file formats, none of which is needed until a write
-    from ..io.atomic import atomic_path
+    from astropy.table import Table
 
     nu, _, _ = _spectrum_arrays(frequencies, flux)
     try:
@@ -350,18 +413,43 @@ def write_sed_csv(path, frequencies, flux, metadata=None):
     alpha = np.full(nu.shape, np.nan)
     if nu.size > 1:
         alpha[:-1] = spectral_index(nu * u.Hz, s_jy)
-    lines = ["# " + ",".join(SED_COLUMNS), "# rtrace spectral energy distribution"]
-    for key, value in (metadata or {}).items():
-        lines.append(f"# {_clean_header(key)}: {_clean_header(value)}")
-    if "background" not in (metadata or {}):
-        lines.append("# background: not stated by the writer (see rtrace.analysis.spectra.describe_background)")
-    lines.append("# spectral_index: d ln S / d ln nu from this frequency to the next (nan on the last row)")
-    for f, s, a in zip(nu / 1e9, s_jy, alpha, strict=True):
-        # 17 significant digits round-trip a float64 exactly
-        lines.append(f"{f:.17g},{s:.17g},{a:.17g}")
-    with atomic_path(path) as tmp:
-        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write("\n".join(lines) + "\n")
+    meta = {"title": "rtrace spectral energy distribution"}
+    meta.update({_one_line(k): _one_line(v) for k, v in (metadata or {}).items()})
+    meta.setdefault("background", "not stated by the writer (see rtrace.analysis.spectra.describe_background)")
+    freq, flux_col, index = SED_COLUMNS
+    table = Table(meta=meta)
+    table[freq] = nu / 1e9
+    table[freq].unit, table[freq].description = u.GHz, "frequency"
+    table[flux_col] = s_jy
+    table[flux_col].unit = u.Jy
+    table[flux_col].description = "flux density (background convention: see meta 'background')"
+    table[index] = alpha
+    table[index].description = "d ln S / d ln nu from this frequency to the next (nan on the last row)"
+    return table
+
+
+def write_sed_table(path, frequencies, flux, metadata=None):
+    """Write an SED as an ECSV table (:func:`sed_table`), atomically.
+
+    ``astropy.table.Table.read(path)`` gives the columns back with their
+    units and the metadata in ``meta``; below the ``#`` header lines the file
+    is plain CSV (a line of column names, then comma-separated rows).
+
+    Parameters
+    ----------
+    path : str or path-like
+        Destination (``.ecsv`` by convention); written to a temporary file and renamed onto it.
+    frequencies, flux, metadata
+        As for :func:`sed_table`.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    # imported here: rtrace.io gathers the file formats, none of which is needed until a write
+    from ..io.tables import write_ecsv
+
+    return write_ecsv(path, sed_table(frequencies, flux, metadata))
 
 
 def frequency_index(obj, frequency, name="frequency"):
@@ -455,24 +543,12 @@ class SpectralIndexMap(np.ndarray):
         return result[()] if return_scalar else result
 
 
-def _same_beam(a, b):
-    # equal to 1e-6 in both axes and the position angle (a round beam's angle is immaterial)
-    ma, mb = a.major.to_value(u.arcsec), b.major.to_value(u.arcsec)
-    na, nb = a.minor.to_value(u.arcsec), b.minor.to_value(u.arcsec)
-    if not (math.isclose(ma, mb, rel_tol=1e-6) and math.isclose(na, nb, rel_tol=1e-6)):
-        return False
-    if math.isclose(ma, na, rel_tol=1e-6):
-        return True
-    dpa = (a.pa.to_value(u.deg) - b.pa.to_value(u.deg)) % 180.0
-    return min(dpa, 180.0 - dpa) < 1e-6
-
-
 def _common_beam(b1, b2):
     """The smallest beam that both beams can be convolved to (one of them when it contains the other)."""
     import radio_beam
     from radio_beam.utils import BeamError
 
-    if _same_beam(b1, b2):
+    if same_beam(b1, b2):
         return b1
     big, small = (b1, b2) if b1.sr >= b2.sr else (b2, b1)
     try:
@@ -500,7 +576,7 @@ def _to_beam(obj, planes, index, target):
     from ..observe.beam import BeamKernel
 
     own = _beam_at(obj, index)
-    if _same_beam(own, target):
+    if same_beam(own, target):
         return list(planes), 1.0
     shape = planes[0].shape
     kernel_beam = target.deconvolve(own, failure_returns_pointlike=True)
@@ -639,7 +715,7 @@ def _skymap_planes(obj, i1, i2, rms, threshold, match_beams):
         a, b = a - level[i1], b - level[i2]
         models = {i: m - level[i] for i, m in models.items()}
     beam = _beam_at(obj, i1)
-    if _same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
+    if same_beam(_beam_at(obj, i1), _beam_at(obj, i2)):
         return a, b, models, noise_at, beam, False
     if not match_beams:
         # two resolutions: the index holds at neither

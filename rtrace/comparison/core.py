@@ -34,7 +34,7 @@ from astropy.io import fits
 from astropy.wcs.utils import pixel_to_skycoord
 
 from ..errors import InputError
-from ..observe.beam import describe_beam
+from ..observe.beam import beam_cards, describe_beam
 from ..quantities import positive_scalar
 from .model import model_cube, model_image
 from .observation import JY_PER_BEAM, note, read_observation
@@ -311,6 +311,57 @@ class Comparison:
         return ApertureFlux(model=m * u.Jy, observation=o * u.Jy, residual=(o - m) * u.Jy,
                             ratio=m / o if o != 0 else float("nan"), pixels=counted, complete=complete)
 
+    def flux_table(self, apertures=(), title=None):
+        """Flux densities over the common footprint and in each aperture, as an astropy `~astropy.table.Table`.
+
+        Parameters
+        ----------
+        apertures : sequence of region or (label, region)
+            `regions.SkyRegion` / `regions.PixelRegion` (as for
+            :meth:`aperture_flux`, exact mode); a bare region is labelled
+            ``aperture <k>``.
+        title : str, optional
+            The table's ``meta["title"]``.
+
+        Returns
+        -------
+        `astropy.table.Table`
+            One row for the common footprint, then one per aperture: ``aperture``
+            (label), ``model``, ``observed``, ``residual`` (Jy; observed -
+            model), ``ratio`` (model / observed), ``pixels`` (pixels counted,
+            boundary pixels by the fraction inside) and ``complete`` (False when
+            part of the aperture lies outside the common footprint). ``meta``
+            holds the frequency, the observation, the ``background``
+            convention and the comparison's notes.
+        """
+        from astropy.table import Table
+
+        rows = [("common footprint", self.model_flux.to_value(u.Jy), self.observed_flux.to_value(u.Jy),
+                 (self.observed_flux - self.model_flux).to_value(u.Jy), self.flux_ratio,
+                 float(self.footprint.sum()), True)]
+        for k, item in enumerate(apertures):
+            label, region = item if isinstance(item, tuple) else (f"aperture {k + 1}", item)
+            a = self.aperture_flux(region)
+            rows.append((str(label), a.model.to_value(u.Jy), a.observation.to_value(u.Jy),
+                         a.residual.to_value(u.Jy), a.ratio, a.pixels, a.complete))
+        columns = [("aperture", None, "where the flux densities are summed"),
+                   ("model", u.Jy, "flux density of the model convolved with the observed beam, on the observed grid"),
+                   ("observed", u.Jy, "flux density of the observation"),
+                   ("residual", u.Jy, "observed - model"),
+                   ("ratio", None, "model / observed"),
+                   ("pixels", u.pix, "pixels counted (boundary pixels weighted by the fraction inside)"),
+                   ("complete", None, "False when part of the aperture lies outside the common footprint")]
+        meta = {"title": title or f"rtrace comparison with {self.observation_source}",
+                "frequency": f"{self.frequency.to_value(u.GHz):.8g} GHz",
+                "observation": str(self.observation_source),
+                "background": f"subtracted from the model (behind the source: {self.model_background.label()}): "
+                              "an observed image holds no uniform level",
+                "notes": list(self.notes)}
+        table = Table(rows=rows, names=[c[0] for c in columns], meta=meta)
+        for name, unit, description in columns:
+            table[name].unit, table[name].description = unit, description
+        return table
+
     def _radii_arcsec(self, center):
         ny, nx = self.shape
         rows, cols = np.mgrid[0:ny, 0:nx]
@@ -436,9 +487,8 @@ class Comparison:
         if "SPECSYS" in self.observed_header:
             base["SPECSYS"] = self.observed_header["SPECSYS"]
         base["BUNIT"] = ("Jy/beam", "unit of the data")
-        base["BMAJ"] = (float(self.beam.major.to_value(u.deg)), "[deg] beam major axis (FWHM)")
-        base["BMIN"] = (float(self.beam.minor.to_value(u.deg)), "[deg] beam minor axis (FWHM)")
-        base["BPA"] = (float(self.beam.pa.to_value(u.deg)), "[deg] beam position angle, north through east")
+        for key, value, comment in beam_cards(self.beam):
+            base[key] = (value, comment)
         ratio = self.flux_ratio if np.isfinite(self.flux_ratio) else "nan"
         base["FLUXRAT"] = (ratio, "model / observed total, common footprint")
         base["INTERP"] = (self.order, "reproject_interp order")

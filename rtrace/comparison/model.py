@@ -32,7 +32,7 @@ from astropy.wcs.utils import pixel_to_skycoord, proj_plane_pixel_scales
 
 from ..errors import InputError
 from ..io.fits import sky_wcs, split_suffix
-from ..observe.beam import BeamKernel, describe_beam
+from ..observe.beam import BeamKernel, describe_beam, same_beam
 from ..observe.skymap import SkyMap
 from ..transfer.background import Background, background_in_header, background_of
 from ..transfer.result import Result
@@ -309,23 +309,13 @@ def power_law_between(a, b, w):
 # beam
 # --------------------------------------------------------------------------------------------
 
-def _same_beam(a, b):
-    if not (np.isclose(a.major.to_value(u.arcsec), b.major.to_value(u.arcsec), rtol=1e-6, atol=0)
-            and np.isclose(a.minor.to_value(u.arcsec), b.minor.to_value(u.arcsec), rtol=1e-6, atol=0)):
-        return False
-    if np.isclose(a.major.to_value(u.arcsec), a.minor.to_value(u.arcsec), rtol=1e-6, atol=0):
-        return True
-    dpa = (a.pa.to_value(u.deg) - b.pa.to_value(u.deg)) % 180.0
-    return min(dpa, 180.0 - dpa) <= 1e-4
-
-
 def difference_beam(target, own, pixel_arcsec, name="result"):
     """The beam that takes an image at ``own`` resolution to ``target``, or None if they are the same.
 
     Uses radio_beam's ``Beam.deconvolve``; raises InputError when ``own`` is
     larger than ``target`` along some direction (no such beam exists).
     """
-    if _same_beam(target, own):
+    if same_beam(target, own):
         return None
     try:
         diff = target.deconvolve(own)
@@ -384,7 +374,7 @@ def model_image(cube, nu_hz, beam, notes, name="result"):
         return _to_beam(cube.data[lo], None if beams is None else beams[lo], beam, cube.pixel_scale,
                         cube.shape, name)
     f_lo, f_hi = cube.frequencies[lo], cube.frequencies[hi]
-    if beams is None or _same_beam(beams[lo], beams[hi]):
+    if beams is None or same_beam(beams[lo], beams[hi]):
         # interpolate at the model's own resolution, then convolve once
         plane, n_linear = power_law_between(cube.data[lo], cube.data[hi], w)
         image = _to_beam(plane, None if beams is None else beams[lo], beam, cube.pixel_scale, cube.shape, name)

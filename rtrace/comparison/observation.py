@@ -228,6 +228,9 @@ def header_beam(header, name, beam_option="beam="):
         raise InputError(f"{name}: BMAJ = {major!r}, BMIN = {minor!r} deg are not positive beam axes")
     if minor > major:
         raise InputError(f"{name}: BMIN ({minor} deg) exceeds BMAJ ({major} deg)")
+    if isinstance(header, fits.Header):
+        # the cards are checked above; radio-beam reads them (BPA defaults to 0 for a round beam)
+        return radio_beam.Beam.from_fits_header(header)
     return radio_beam.Beam(major=major * u.deg, minor=minor * u.deg, pa=pa * u.deg)
 
 

@@ -83,6 +83,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 from ..errors import InputError
+from ..observe.beam import beam_cards, same_beam
 from ..quantities import positive_scalar
 from ..transfer.background import header_cards, resolve_convention
 from .atomic import atomic_path
@@ -502,18 +503,16 @@ def _beam_values(beam, name):
     if not (np.isfinite(major) and np.isfinite(minor) and np.isfinite(pa) and major > 0 and minor > 0):
         raise InputError(f"{name}: beam axes must be finite and positive, got major={major} deg, "
                          f"minor={minor} deg, pa={pa} deg")
+    if minor > major:
+        raise InputError(f"{name}: the minor axis ({minor} deg) exceeds the major axis ({major} deg)")
     return major, minor, pa
 
 
-def _same_beam(a, b):
-    """Equal within float64 rounding; the PA of a circular beam is irrelevant."""
-    close = np.isclose(a[0], b[0], rtol=1e-12, atol=0) and np.isclose(a[1], b[1], rtol=1e-12, atol=0)
-    if not close:
-        return False
-    if np.isclose(a[0], a[1], rtol=1e-12, atol=0):
-        return True
-    dpa = (a[2] - b[2]) % 180.0
-    return min(dpa, 180.0 - dpa) <= 1e-10
+def _as_beam(values):
+    """A `radio_beam.Beam` from checked ``(major, minor, pa)`` degrees."""
+    import radio_beam
+
+    return radio_beam.Beam(major=values[0] * u.deg, minor=values[1] * u.deg, pa=values[2] * u.deg)
 
 
 def _beams_table(values):
@@ -610,7 +609,8 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
         hdus = [_primary(values, header)]
         if tab is not None:
             hdus.append(tab)
-        if beam_values is not None and not all(_same_beam(b, beam_values[0]) for b in beam_values):
+        if beam_values is not None and not all(same_beam(_as_beam(b), _as_beam(beam_values[0]))
+                                               for b in beam_values):
             hdus.append(_beams_table(beam_values))
         _write(path, hdus)
         return Path(path)
@@ -696,9 +696,8 @@ class _CubeHeader:
         if self.quantity is not None:
             primary["RTQUANT"] = (str(self.quantity), "rtrace quantity in the data")
         if beam is not None:
-            primary["BMAJ"] = (beam[0], "[deg] beam major axis (FWHM)")
-            primary["BMIN"] = (beam[1], "[deg] beam minor axis (FWHM)")
-            primary["BPA"] = (beam[2], "[deg] beam position angle, north through east")
+            for key, value, comment in beam_cards(_as_beam(beam)):
+                primary[key] = (value, comment)
         if plane is not None:
             primary["RTPLANE"] = (plane[0], "plane number in the full frequency list")
             primary["RTNPLANE"] = (plane[1], "number of planes (one file each)")

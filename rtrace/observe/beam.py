@@ -10,9 +10,9 @@ Conventions (part of the public contract):
   elongated along the rows (north), ``pa = 90 deg`` along east (toward
   smaller column index), ``pa = 45 deg`` along north-east, i.e. along
   ``(+row, -column)``.
-* The kernel is sampled on the image's pixel grid and normalised to unit
-  sum, so convolving a Jy/pixel image with it conserves flux exactly (up
-  to what spills over the image edge). A beam narrow compared with a pixel
+* The kernel is radio-beam's ``Beam.as_kernel``, sampled on the image's
+  pixel grid and normalised to unit sum, so convolving a Jy/pixel image
+  with it conserves flux exactly (up to what spills over the image edge). A beam narrow compared with a pixel
   is integrated over each pixel (supersampled) instead of point-sampled,
   so its shape on the grid is still right.
 * A beam whose FWHM major axis is wider than the image's narrower side is
@@ -38,7 +38,7 @@ from ..memory import check_memory, fft_kernel_bytes
 
 __all__ = ["BeamKernel", "describe_beam", "validate_beam", "beams_for_frequencies", "BEAM_SCALINGS",
            "KERNEL_HALF_WIDTH_SIGMA", "SUPERSAMPLE_BELOW_SIGMA", "kernel_geometry", "check_beam_fits_field",
-           "BEAM_FIELD_ERROR", "BEAM_FIELD_WARNING"]
+           "BEAM_FIELD_ERROR", "BEAM_FIELD_WARNING", "same_beam", "SAME_BEAM_RTOL", "beam_cards"]
 
 # FWHM = sqrt(8 ln 2) sigma for a Gaussian (standard identity).
 _FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))
@@ -56,6 +56,10 @@ SUPERSAMPLE_BELOW_SIGMA = 1.0
 _MAX_SUPERSAMPLE = 65
 
 BEAM_SCALINGS = (None, "inverse-frequency")
+
+#: Two beams whose axes (and, when elliptical, position angles in radians) agree to this relative
+#: tolerance are the same beam (:func:`same_beam`): no convolution between them, one ``BMAJ`` for a cube.
+SAME_BEAM_RTOL = 1e-6
 
 #: A beam FWHM (major axis) above this fraction of the image's narrower side is an InputError.
 BEAM_FIELD_ERROR = 1.0
@@ -207,21 +211,83 @@ def _supersample_factor(sigma_minor_pix):
     return min(s, _MAX_SUPERSAMPLE)
 
 
-def _gaussian_on_grid(half, sigma_major, sigma_minor, pa_rad, supersample):
-    """Unit-sum elliptical Gaussian on a (2 half + 1)^2 pixel grid, (row, column) order."""
-    offs = np.arange(-half, half + 1, dtype=float)
-    # major-axis direction in (column, row): east is -column, so (-sin pa, cos pa)
-    s, c = math.sin(pa_rad), math.cos(pa_rad)
-    kernel = np.zeros((2 * half + 1, 2 * half + 1))
-    sub = (np.arange(supersample) + 0.5) / supersample - 0.5      # sub-pixel offsets
-    for dr_sub in sub:
-        dr = (offs + dr_sub)[:, None]
-        for dc_sub in sub:
-            dc = (offs + dc_sub)[None, :]
-            along = dr * c - dc * s         # projection on the major axis
-            across = dr * s + dc * c        # projection on the minor axis
-            kernel += np.exp(-0.5 * ((along / sigma_major) ** 2 + (across / sigma_minor) ** 2))
+def _gaussian_on_grid(beam, pixel_scale, half, supersample):
+    """Unit-sum elliptical Gaussian of ``beam`` on a (2 half + 1)^2 pixel grid, (row, column) order.
+
+    The Gaussian is radio-beam's ``Beam.as_kernel(pixel_scale)`` (an astropy
+    ``Gaussian2D`` with x along columns and y along rows and its major axis
+    ``pa + 90 deg`` from +x, which is the orientation of the module docstring:
+    ``pa = 0`` along +row, ``pa = 90 deg`` along -column). With ``supersample == 1`` its
+    point-sampled array is used as is; otherwise the same model is averaged
+    over ``supersample^2`` sub-pixel centres (the midpoint rule of astropy's
+    ``mode="oversample"``), one sub-grid at a time so the memory stays that of
+    the kernel.
+    """
+    side = 2 * half + 1
+    sampled = beam.as_kernel(pixel_scale, x_size=side, y_size=side)
+    if supersample == 1:
+        kernel = np.array(sampled.array, dtype=float)
+    else:
+        model = sampled.model
+        params = model.parameters      # the model's own evaluate: no input checks in the sub-pixel loop
+        offs = np.arange(-half, half + 1, dtype=float)
+        kernel = np.zeros((side, side))
+        sub = (np.arange(supersample) + 0.5) / supersample - 0.5      # sub-pixel offsets
+        for dr_sub in sub:
+            rows = (offs + dr_sub)[:, None]
+            for dc_sub in sub:
+                kernel += model.evaluate((offs + dc_sub)[None, :], rows, *params)
     return kernel / kernel.sum()
+
+
+def same_beam(a, b):
+    """Whether two beams are the same to the package's one tolerance, `SAME_BEAM_RTOL`.
+
+    Major and minor axes must agree to a relative ``SAME_BEAM_RTOL``; for an
+    elliptical beam (axes differing by more than that) the position angles
+    must agree, modulo 180 deg, to ``SAME_BEAM_RTOL`` radians (a round beam's
+    angle is immaterial). Arcsecond-sized beams that radio-beam's
+    ``Beam.__eq__`` calls equal (to an absolute 1e-10 deg) are equal here too;
+    the relative rule keeps the same meaning for milliarcsecond and degree beams.
+
+    Parameters
+    ----------
+    a, b : `radio_beam.Beam`
+
+    Returns
+    -------
+    bool
+    """
+    ma, mb = a.major.to_value(u.arcsec), b.major.to_value(u.arcsec)
+    na, nb = a.minor.to_value(u.arcsec), b.minor.to_value(u.arcsec)
+    if not (math.isclose(ma, mb, rel_tol=SAME_BEAM_RTOL) and math.isclose(na, nb, rel_tol=SAME_BEAM_RTOL)):
+        return False
+    if math.isclose(ma, na, rel_tol=SAME_BEAM_RTOL):
+        return True
+    dpa = (a.pa.to_value(u.deg) - b.pa.to_value(u.deg)) % 180.0
+    return math.radians(min(dpa, 180.0 - dpa)) <= SAME_BEAM_RTOL
+
+
+_BEAM_CARD_COMMENTS = {"BMAJ": "[deg] beam major axis (FWHM)", "BMIN": "[deg] beam minor axis (FWHM)",
+                       "BPA": "[deg] beam position angle, north through east"}
+
+
+def beam_cards(beam):
+    """The ``BMAJ``, ``BMIN``, ``BPA`` header cards of ``beam`` (degrees), with comments.
+
+    The values are radio-beam's ``Beam.to_header_keywords()`` (what
+    ``Beam.attach_to_header`` writes and ``Beam.from_fits_header`` reads back).
+
+    Parameters
+    ----------
+    beam : `radio_beam.Beam`
+
+    Returns
+    -------
+    list of (str, float, str)
+        ``(keyword, value, comment)``, ready for ``header.extend`` or ``header[key] = (value, comment)``.
+    """
+    return [(key, float(value), _BEAM_CARD_COMMENTS[key]) for key, value in beam.to_header_keywords().items()]
 
 
 class BeamKernel:
@@ -271,7 +337,7 @@ class BeamKernel:
         self.beam = beam
         self.image_shape = tuple(int(n) for n in image_shape)
         geo = kernel_geometry(beam, pix, self.image_shape)
-        sig_maj, sig_min = self.sigma_pixels = geo["sigma_pixels"]
+        self.sigma_pixels = geo["sigma_pixels"]
         self.supersample = geo["supersample"]
         self.half = geo["half"]
         held, transient = fft_kernel_bytes(self.half, geo["fft_shape"])
@@ -281,8 +347,7 @@ class BeamKernel:
                            f"arcsec on {pix:.4g} arcsec pixels) and its padded FFT of {geo['fft_shape'][0]} x "
                            f"{geo['fft_shape'][1]}"),
                      hint="use a smaller beam, or coarser pixels (a smaller npix over the same width)")
-        self.kernel = _gaussian_on_grid(self.half, sig_maj, sig_min, beam.pa.to_value(u.rad),
-                                        self.supersample)
+        self.kernel = _gaussian_on_grid(beam, pix * u.arcsec, self.half, self.supersample)
         self.sum_squares = float(np.sum(self.kernel**2))
         # radio_beam's sr is the Gaussian solid angle pi bmaj bmin / (4 ln 2)
         self.area_pixels = float(beam.sr.to_value(u.sr) / ((pix * u.arcsec).to_value(u.rad)) ** 2)

@@ -85,10 +85,10 @@ def _cube_files(job, path, frequencies=True):
 
 
 def _write_sed(path, res, sky, name, observed):
-    from ..analysis.spectra import describe_background, sed, write_sed_csv
+    from ..analysis.spectra import describe_background, sed, write_sed_table
     obj = sky if observed else res
     nu, flux = sed(obj)
-    write_sed_csv(path, nu, flux, metadata={"source": res.provenance.get("source", ""), "view": name,
+    write_sed_table(path, nu, flux, metadata={"source": res.provenance.get("source", ""), "view": name,
                                             "computed from": SED_SOURCES[observed],
                                             "aperture": "whole image", "background": describe_background(obj)})
 
@@ -155,7 +155,7 @@ def data_outputs(job, unit, quantities, fmt):
     if out.get("sed", True):
         for observed in ((False, True) if job.beam else (False,)):
             stem, settings = ("observed_sed", obs) if observed else ("sed", None)
-            spectra.append(Output(_stem(job, unit, f"{stem}.csv"), output_key(unit.base, f"{stem}:csv", settings),
+            spectra.append(Output(_stem(job, unit, f"{stem}.ecsv"), output_key(unit.base, f"{stem}:ecsv", settings),
                                   partial(_write_sed, name=unit.name, observed=observed)))
             if out.get("pictures", True) and len(job.frequencies) > 1:
                 spectra.append(Output(_stem(job, unit, f"{stem}.{fmt}"),

@@ -8,7 +8,7 @@ Named like every other output, ``<folder>/<prefix><view>_<suffix>``:
 * ``<view>_comparison.fits``: residual (observed - model), model and
   observation on the observed grid (:meth:`rtrace.comparison.Comparison.write_fits`);
   ``<view>_comparison.<fmt>``: the three side by side;
-  ``<view>_comparison.csv``: flux densities over the common footprint and in
+  ``<view>_comparison.ecsv``: flux densities over the common footprint and in
   every aperture of the region files.
 
 Each is an :class:`rtrace.run.products.Output` whose key holds the view's
@@ -20,9 +20,8 @@ computed once per traced view and shared by their files.
 
 from functools import partial
 
-import astropy.units as u
-
 from ..io.atomic import atomic_path
+from ..io.tables import write_ecsv
 from .batch import output_key
 from .manifest import inputs_key
 from .products import Output
@@ -67,7 +66,7 @@ def _compare(res, kwargs):
 
     from ..comparison import ComparisonWarning, compare
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ComparisonWarning)      # notes are written into the CSV
+        warnings.simplefilter("ignore", ComparisonWarning)      # notes are written into the table
         return compare(res, kwargs["observation"])
 
 
@@ -88,25 +87,10 @@ def _draw_comparison(path, res, sky, once):
     _close(once(res).plot(path))
 
 
-def _write_comparison_csv(path, res, sky, once, apertures, name):
+def _write_comparison_table(path, res, sky, once, apertures, name):
     cmp = once(res)
-    lines = [f"# rtrace comparison of view '{name}' ({res.provenance.get('source', '')}) with "
-             f"{cmp.observation_source}",
-             f"# frequency {cmp.frequency.to_value(u.GHz):.8g} GHz; flux densities in Jy of the model convolved "
-             f"with the observed beam and of the observation, on the observed grid; ratio = model / observed",
-             f"# background: subtracted from the model (behind the source: {cmp.model_background.label()}): "
-             f"an observed image holds no uniform level",
-             *(f"# note: {n}" for n in cmp.notes),
-             "aperture,model_jy,observed_jy,residual_jy,ratio,pixels,complete"]
-    lines.append(f"common footprint,{cmp.model_flux.to_value(u.Jy):.8g},{cmp.observed_flux.to_value(u.Jy):.8g},"
-                 f"{(cmp.observed_flux - cmp.model_flux).to_value(u.Jy):.8g},{cmp.flux_ratio:.8g},"
-                 f"{int(cmp.footprint.sum())},True")
-    for label, region in apertures:
-        a = cmp.aperture_flux(region)
-        lines.append(f"{label},{a.model.to_value(u.Jy):.8g},{a.observation.to_value(u.Jy):.8g},"
-                     f"{a.residual.to_value(u.Jy):.8g},{a.ratio:.8g},{a.pixels:.6g},{a.complete}")
-    with atomic_path(path) as tmp:
-        tmp.write_text("\n".join(lines) + "\n")
+    title = f"rtrace comparison of view '{name}' ({res.provenance.get('source', '')}) with {cmp.observation_source}"
+    write_ecsv(path, cmp.flux_table(apertures, title=title))
 
 
 def study_outputs(job, unit, fmt):
@@ -129,8 +113,8 @@ def study_outputs(job, unit, fmt):
         settings = {"comparison": cmp["key"]}
         plan.append(Output(_stem(job, unit, "comparison.fits"), output_key(unit.base, "comparison:fits", settings),
                            partial(_write_comparison_fits, once=once)))
-        plan.append(Output(_stem(job, unit, "comparison.csv"), output_key(unit.base, "comparison:csv", settings),
-                           partial(_write_comparison_csv, once=once, apertures=cmp["apertures"], name=unit.name)))
+        plan.append(Output(_stem(job, unit, "comparison.ecsv"), output_key(unit.base, "comparison:ecsv", settings),
+                           partial(_write_comparison_table, once=once, apertures=cmp["apertures"], name=unit.name)))
         if pictures:
             plan.append(Output(_stem(job, unit, f"comparison.{fmt}"),
                                output_key(unit.base, f"comparison:{fmt}", settings),
