@@ -27,6 +27,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, warn_user
+from ..quantities import JY_PER_BEAM, jy_per_beam, parse_frequencies
 from ..transfer.background import check_convention, describe
 
 __all__ = ["sed", "sed_metadata", "describe_background", "write_sed_csv", "spectral_index", "spectral_index_map",
@@ -87,11 +88,7 @@ def _beam_solid_angle_sr(obj, index):
 
 def _jy_per_beam(value, name):
     """Values of a Jy/beam Quantity (a bare Jy unit is read as per beam, as FITS BUNIT often is)."""
-    q = u.Quantity(value)
-    for unit in (u.Jy / u.beam, u.Jy):
-        if q.unit.is_equivalent(unit):
-            return q.to_value(unit)
-    raise InputError(f"{name}: expected a surface brightness in Jy/beam, got unit '{q.unit}'")
+    return jy_per_beam(value, name).to_value(JY_PER_BEAM)
 
 
 def _convention(obj, background):
@@ -269,17 +266,11 @@ def describe_background(obj, background=None):
 
 
 def _spectrum_arrays(frequencies, flux):
-    try:
-        nu = u.Quantity(frequencies).to_value(u.Hz, equivalencies=u.spectral())
-    except (u.UnitsError, TypeError):
-        raise InputError(f"frequencies: expected a Quantity with a spectral unit, got {frequencies!r}") from None
+    nu = parse_frequencies(frequencies, "frequencies")
     flux_q = u.Quantity(flux)
-    nu = np.atleast_1d(np.asarray(nu, float))
     values = np.atleast_1d(np.asarray(flux_q.value, float))
-    if nu.ndim != 1 or values.shape != nu.shape:
+    if values.shape != nu.shape:
         raise InputError(f"flux: shape {values.shape} does not match frequencies shape {nu.shape}")
-    if not np.all(np.isfinite(nu) & (nu > 0)):
-        raise InputError("frequencies: must be finite and positive")
     return nu, values, flux_q.unit
 
 
@@ -388,12 +379,9 @@ def frequency_index(obj, frequency, name="frequency"):
         if not -nu.size <= frequency < nu.size:
             raise InputError(f"{name}: index {frequency} is out of range for {nu.size} frequencies")
         return int(frequency) % nu.size
-    try:
-        want = u.Quantity(frequency).to_value(u.Hz, equivalencies=u.spectral())
-    except (u.UnitsError, TypeError):
-        raise InputError(f"{name}: expected a spectral Quantity or a plane index, got {frequency!r}") from None
-    if np.ndim(want) != 0 or not np.isfinite(want) or want <= 0:
-        raise InputError(f"{name}: expected one positive frequency, got {frequency!r}")
+    if not isinstance(frequency, (u.Quantity, str)):
+        raise InputError(f"{name}: expected a spectral Quantity or a plane index, got {frequency!r}")
+    want = parse_frequencies(frequency, name, scalar=True)
     index = int(np.argmin(np.abs(nu - want)))
     if abs(nu[index] - want) > FREQUENCY_TOLERANCE * want:
         traced = ", ".join(f"{v / 1e9:.6g}" for v in nu)

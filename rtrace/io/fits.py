@@ -83,7 +83,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 from ..errors import InputError
-from ..quantities import positive_scalar
+from ..quantities import parse_frequencies, positive_scalar
 from ..transfer.background import header_cards, resolve_convention
 from .atomic import atomic_path
 
@@ -132,15 +132,7 @@ _PREFERRED_BUNIT = (
 # --------------------------------------------------------------------------------------------
 
 def _frequencies_hz(frequencies, name="frequencies"):
-    if frequencies is None:
-        return None
-    q = u.Quantity(frequencies)
-    if not q.unit.is_equivalent(u.Hz, equivalencies=u.spectral()):
-        raise InputError(f"{name}: expected a frequency (or wavelength), got unit '{q.unit}'")
-    nu = np.atleast_1d(q.to_value(u.Hz, equivalencies=u.spectral())).astype(float)
-    if nu.ndim != 1 or nu.size == 0 or not np.all(np.isfinite(nu) & (nu > 0)):
-        raise InputError(f"{name}: must be a non-empty 1D sequence of finite positive frequencies")
-    return nu
+    return None if frequencies is None else parse_frequencies(frequencies, name)
 
 
 def _pixel_scale_deg(pixel_scale):

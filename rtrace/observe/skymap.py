@@ -5,7 +5,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..memory import check_memory, format_bytes, observe_bytes
-from ..quantities import finite_number, positive_scalar
+from ..quantities import finite_number, parse_frequencies
 from ..transfer.background import brightness_temperature_cgs, check_convention, resolve_convention
 from ..transfer.result import Result
 from .beam import (
@@ -29,7 +29,7 @@ def _reference_frequency(reference_frequency, scaling):
         return None
     if scaling is None:
         raise InputError("reference_frequency: only used with beam_scaling='inverse-frequency'")
-    return positive_scalar(reference_frequency, u.Hz, "reference_frequency", "a frequency", u.spectral())
+    return parse_frequencies(reference_frequency, "reference_frequency", scalar=True)
 
 
 def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
