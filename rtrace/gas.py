@@ -15,7 +15,7 @@ from .errors import InputError
 from .physics.ionization import resolve_ionization
 from .physics.ionization.cells import THERMAL_INPUTS
 from .physics.ionization.grid import ArrayInputs, evaluate_grid
-from .quantities import check_density_inputs
+from .quantities import check_cells, check_density_inputs
 
 __all__ = ["derive_fields", "check_field", "to_array", "gamma_value", "thermal_input", "thermal_provenance",
            "check_real", "check_emission_range", "THERMAL_UNITS", "DEFAULT_GAMMA"]
@@ -110,14 +110,7 @@ def check_field(name, arr, shape, lower, strict):
     """Validate one field: shape, finiteness, lower bound. The message counts bad cells."""
     if arr.shape != shape:
         raise InputError(f"{name}: shape {arr.shape} does not match the grid shape {shape}")
-    n_bad = arr.size - int(np.count_nonzero(np.isfinite(arr)))
-    if n_bad:
-        raise InputError(f"{name}: {n_bad} of {arr.size} cells are not finite (NaN or inf)")
-    n_bad = int(np.count_nonzero(arr <= lower if strict else arr < lower))
-    if n_bad:
-        rel = "> 0" if strict else ">= 0"
-        raise InputError(f"{name}: {n_bad} of {arr.size} cells violate {name} {rel} "
-                         f"(minimum {float(arr.min()):.6g})")
+    check_cells(arr, name, lower, strict)
 
 
 def gamma_value(gamma):

@@ -234,6 +234,9 @@ class CellTally:
         Words after "cells" (e.g. ``"of brick [0:4, 0:4, 0:4]"``).
     context : str, optional
         Appended to the message (e.g. the dataset and file).
+    ranges : bool
+        Keep the finite range (``min``, ``max``; two more passes over each
+        block). :func:`check_cells` skips it unless a cell is bad.
 
     Attributes
     ----------
@@ -243,9 +246,10 @@ class CellTally:
         Range of the finite cells (``inf``/``-inf`` before any).
     """
 
-    def __init__(self, name, lower=None, strict=False, upper=None, *, rule=None, where="", context=""):
+    def __init__(self, name, lower=None, strict=False, upper=None, *, rule=None, where="", context="", ranges=True):
         self.name, self.lower, self.strict, self.upper = name, lower, strict, upper
         self.rule, self.where, self.context = rule or _rule_text(name, lower, strict, upper), where, context
+        self.ranges = ranges
         self.size = self.nonfinite = self.low = self.high = 0
         self.min, self.max = np.inf, -np.inf
 
@@ -257,8 +261,8 @@ class CellTally:
         all_finite = n_finite == arr.size
         self.size += arr.size
         self.nonfinite += arr.size - n_finite
-        if n_finite:
-            where = None if all_finite else finite
+        if n_finite and self.ranges:
+            where = True if all_finite else finite
             self.min = min(self.min, float(np.min(arr, where=where, initial=np.inf)))
             self.max = max(self.max, float(np.max(arr, where=where, initial=-np.inf)))
         with np.errstate(invalid="ignore"):
@@ -289,7 +293,8 @@ class CellTally:
         if self.nonfinite:
             problems.append((self.nonfinite, "are not finite (NaN or inf)"))
         if self.low or self.high:
-            extreme = f"minimum {self.min:.6g}" if self.low else f"maximum {self.max:.6g}"
+            extreme = ", ".join(([f"minimum {self.min:.6g}"] if self.low else [])
+                                + ([f"maximum {self.max:.6g}"] if self.high else []))
             problems.append((self.low + self.high, f"violate {self.rule} ({extreme})"))
         first, text = problems[0]
         words = f"{first} of {cells} {text}"
@@ -315,8 +320,12 @@ def _rule_text(name, lower, strict, upper):
 
 
 def check_cells(arr, name, lower=None, strict=False, upper=None, **kwargs):
-    """Check one whole array with a :class:`CellTally` (one InputError naming field, problem, count)."""
+    """Check one whole array with a :class:`CellTally`: one InputError naming the field, problem and count.
+
+    Parameters are those of :class:`CellTally`; the range (for the message) is found only when a cell is bad.
+    """
+    if CellTally(name, lower, strict, upper, ranges=False, **kwargs).add(arr):
+        return
     tally = CellTally(name, lower, strict, upper, **kwargs)
     tally.add(arr)
     tally.raise_if_bad()
-    return tally
