@@ -127,10 +127,9 @@ def pixel_flux(obj, background=None):
         omega_pix = _pixel_solid_angle_sr(obj)
         ratio = np.array([omega_pix / _beam_solid_angle_sr(obj, i) for i in range(data.shape[0])])
         return data * ratio[:, None, None] * u.Jy
-    if hasattr(obj, "specific_intensity"):
-        intensity = obj.specific_intensity(_convention(obj, background))
-    else:
-        intensity = obj.intensity
+    if hasattr(obj, "jy_per_pixel"):
+        return obj.jy_per_pixel(_convention(obj, background))
+    intensity = obj.intensity
     intensity = intensity.to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
     flux_cgs = intensity * obj.pixel_solid_angle.to_value(u.sr)
     return (flux_cgs * u.erg / (u.s * u.cm**2 * u.Hz)).to(u.Jy)

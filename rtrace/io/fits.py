@@ -777,7 +777,7 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         out_unit = u.Jy / u.pix if out_unit is None else out_unit
         intensity = result.specific_intensity(convention)
         if out_unit.is_equivalent(u.Jy / u.pix):
-            per_pixel = (intensity * result.pixel_solid_angle).to(u.Jy) / u.pix
+            per_pixel = result.jy_per_pixel(convention) / u.pix
             data = per_pixel.to(out_unit)
         elif out_unit.is_equivalent(intensity.unit):
             data = intensity.to(out_unit)
