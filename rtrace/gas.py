@@ -12,7 +12,7 @@ import astropy.units as u
 import numpy as np
 
 from .errors import InputError
-from .physics.ionization import resolve_ionization
+from .physics.ionization import DEFAULT_MODEL, resolve_ionization
 from .physics.ionization.cells import THERMAL_INPUTS
 from .physics.ionization.grid import ArrayInputs, evaluate_grid
 from .quantities import check_cells, check_density_inputs
@@ -170,7 +170,7 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
         return _supplied_electrons(temperature, electron_density, ion_density, dtype)
     thermal, value = thermal_input(temperature, pressure, internal_energy)
     shape = _grid_shape([(thermal, value), ("density", density)])
-    model = resolve_ionization("full" if ionization is None else ionization, composition=composition,
+    model = resolve_ionization(DEFAULT_MODEL if ionization is None else ionization, composition=composition,
                                helium=helium)
     inputs = _mass_density_inputs(density, thermal, value, gamma, shape)
     merged = model.with_fields(_model_fields(model, fields, shape), shape)

@@ -85,13 +85,14 @@ from astropy.wcs import WCS
 from ..errors import InputError
 from ..quantities import parse_frequencies, positive_scalar
 from ..transfer.background import header_cards, resolve_convention
+from ..transfer.result import QUANTITIES
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
            "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES",
            "AXIS_RTOL"]
 
-RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
+RESULT_QUANTITIES = QUANTITIES
 
 # EXTNAME and column name of the -TAB frequency table.
 _TAB_EXTNAME = "WCS-TAB"

@@ -22,7 +22,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..gas import thermal_input
-from ..physics.ionization import MODEL_NAMES, SuppliedFraction, resolve_ionization
+from ..physics.ionization import DEFAULT_MODEL, RESERVED_NAMES, SuppliedFraction, resolve_ionization
 from ..quantities import storage_dtype
 from ..snapshot import Snapshot
 
@@ -204,10 +204,10 @@ def wanted_fields(temperature, pressure, internal_energy, electron_density, ion_
     model = None
     if density is not None:
         spec = ionization
-        if isinstance(spec, str) and spec.strip().lower() not in MODEL_NAMES + ("sources",):
+        if isinstance(spec, str) and spec.strip().lower() not in RESERVED_NAMES:
             spec = SuppliedFraction(spec, composition, helium)
             composition = helium = None
-        model = resolve_ionization("full" if spec is None else spec, composition=composition, helium=helium)
+        model = resolve_ionization(DEFAULT_MODEL if spec is None else spec, composition=composition, helium=helium)
         for name in model.field_names():
             wanted[MODEL_FIELD + name] = name
     elif ionization is not None:

@@ -23,7 +23,7 @@ from ..amr import AMRSnapshot, Grid
 from ..errors import InputError
 from ..gas import derive_fields, thermal_input
 from ..physics.freefree import check_temperature_range
-from ..physics.ionization import MODEL_NAMES, IonizationModel
+from ..physics.ionization import RESERVED_NAMES, IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS
 from ..quantities import CellTally, storage_dtype
 from ..snapshot import register_reader
@@ -71,7 +71,7 @@ def _fraction_field(ds, ionization):
     """True when ``ionization`` names a dataset field (an ionized fraction) rather than a model."""
     if isinstance(ionization, tuple):
         return True
-    return isinstance(ionization, str) and ionization.strip().lower() not in MODEL_NAMES + ("sources",)
+    return isinstance(ionization, str) and ionization.strip().lower() not in RESERVED_NAMES
 
 
 def _yt_name(name):

@@ -10,7 +10,10 @@ from ..errors import InputError, PixelAccuracyWarning  # noqa: F401  (also rtrac
 from ..physics.constants import JANSKY, PC
 from .background import Background, brightness_temperature_cgs, check_convention, resolve_convention
 
-__all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
+__all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION", "QUANTITIES"]
+
+#: The images a Result holds, by the names writers, jobs and pictures use.
+QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
 INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 # Where an image lands on the sky when the View gives no sky_position (written to FITS headers).
