@@ -36,17 +36,16 @@ from ..gas import gamma_value, thermal_provenance
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
-from ..quantities import CellTally, check_density_inputs, storage_dtype
+from ..quantities import CellTally, check_density_inputs
 from ..snapshot import Snapshot, _vector3, combined_checksum
 from .hdf5 import (
     _FIELD_UNITS,
     _FRACTION_UNIT,
     MODEL_FIELD,
-    checked_names,
     file_geometry,
     open_fields,
     open_file,
-    wanted_fields,
+    parse_request,
 )
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
@@ -527,46 +526,57 @@ def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
     PhysicsRangeWarning
         Temperatures above 1e9 K; a model used outside its validity.
     """
-    path = os.fspath(path)
-    if not os.path.isfile(path):
-        raise InputError(f"path: HDF5 file '{path}' not found")
-    units = {} if units is None else dict(units)
-    dtype = storage_dtype(dtype)
     check_density_inputs(density, electron_density, ion_density, pressure, internal_energy)
     if isinstance(ionization, (np.ndarray, u.Quantity)) and np.ndim(ionization) > 0:
         raise InputError("ionization: an in-memory fraction array cannot be read brick by brick; store it "
                          "as a dataset in the file and pass its name (or use read_hdf5)")
-    wanted, model = wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density,
-                                  ionization, composition, helium)
-    if model is not None and any(np.ndim(a) > 0 for a in model.cell_arrays().values()):
-        raise InputError("ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
-                         "the names of datasets in the file instead")
-    gamma_used = None
-    if model is not None and "temperature" not in wanted:
-        gamma_used = gamma_value(gamma)
-    elif gamma is not None:
-        raise InputError("gamma: only used with pressure or internal_energy (and density)")
-    wanted = checked_names(wanted, units)
+    path, units, dtype, wanted, model = parse_request(path, units, dtype, dict(
+        temperature=temperature, pressure=pressure, internal_energy=internal_energy,
+        electron_density=electron_density, ion_density=ion_density, density=density, ionization=ionization,
+        composition=composition, helium=helium))
+    gamma_used = _streamed_model(model, wanted, gamma)
 
     with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
         cell_size, origin = file_geometry(handle, cell_size, origin, path)
-    cell = _vector3(cell_size, "cell_size", u.cm)
-    if not np.all(np.isfinite(cell) & (cell > 0)):
-        raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
-    org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+    cell, org = _lazy_geometry(cell_size, origin)
     if model is not None and not model.local:
         model.check_geometry(shape, cell, org)          # sources outside the grid: an error before any reading
 
     source = HDF5Source(path, wanted, field_units, model, dtype, shape, gamma_used)
     ranges, checksum, extra = _scan(source, cell, org)
-    if model is not None:
-        ionization_text = model.describe()
+    return LazySnapshot(source, cell, org, _provenance(source, ion_density, gamma_used, extra), ranges, checksum)
+
+
+def _streamed_model(model, wanted, gamma):
+    """The adiabatic index a streamed model uses (None with a temperature); refuse in-memory model arrays."""
+    if model is not None and any(np.ndim(a) > 0 for a in model.cell_arrays().values()):
+        raise InputError("ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
+                         "the names of datasets in the file instead")
+    if model is not None and "temperature" not in wanted:
+        return gamma_value(gamma)
+    if gamma is not None:
+        raise InputError("gamma: only used with pressure or internal_energy (and density)")
+    return None
+
+
+def _lazy_geometry(cell_size, origin):
+    """Cell size and origin as 3-vectors in cm; the cell size finite and positive."""
+    cell = _vector3(cell_size, "cell_size", u.cm)
+    if not np.all(np.isfinite(cell) & (cell > 0)):
+        raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
+    return cell, np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+
+
+def _provenance(source, ion_density, gamma_used, extra):
+    """The LazySnapshot's provenance: file, ionization, thermal input, and the scan's entries."""
+    if source.model is not None:
+        ionization_text = source.model.describe()
     elif ion_density is None:
         ionization_text = "supplied n_e; ion term = n_e"
     else:
         ionization_text = "supplied n_e and ion term"
-    provenance = {"source": f"hdf5:{path}", "ionization": ionization_text, **extra}
+    provenance = {"source": f"hdf5:{source.path}", "ionization": ionization_text, **extra}
     if source.thermal != "temperature":
         provenance["temperature"] = thermal_provenance(source.thermal, gamma_used)
-    return LazySnapshot(source, cell, org, provenance, ranges, checksum)
+    return provenance
