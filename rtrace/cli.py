@@ -26,6 +26,7 @@ import astropy.units as u
 import numpy as np
 
 from .errors import ConfigError, InputError, OutputError, RtraceError
+from .quantities import parse_frequencies
 
 __all__ = ["main", "EXIT_OK", "EXIT_INTERNAL", "EXIT_USAGE", "EXIT_CONFIG", "EXIT_INPUT", "EXIT_OUTPUT"]
 
@@ -61,19 +62,13 @@ class Progress:
 
 
 def _frequencies(text):
-    try:
-        values = [u.Quantity(v.strip()) for v in text.split(",") if v.strip()]
-        with np.errstate(divide="ignore", over="ignore"):     # a zero wavelength: refused just below
-            nu = u.Quantity([v.to(u.Hz, equivalencies=u.spectral()) for v in values])
-    except (TypeError, ValueError, u.UnitsError):
-        raise argparse.ArgumentTypeError(f"cannot read frequencies '{text}' (write e.g. '1 GHz, 5 GHz')") from None
-    if nu.size == 0:
+    values = [v.strip() for v in text.split(",") if v.strip()]
+    if not values:
         raise argparse.ArgumentTypeError(f"no frequency in '{text}' (write e.g. '1 GHz, 5 GHz')")
-    bad = ~(np.isfinite(nu.value) & (nu.value > 0))
-    if bad.any():
-        raise argparse.ArgumentTypeError(f"frequencies must be positive and finite; {int(bad.sum())} of {nu.size} "
-                                         f"in '{text}' are not")
-    return nu
+    try:
+        return parse_frequencies(values, f"frequencies '{text}'") * u.Hz
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(f"{exc} (write e.g. '1 GHz, 5 GHz')") from None
 
 
 def _cells(text):

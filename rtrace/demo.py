@@ -23,9 +23,11 @@ from .errors import InputError
 from .physics.ionization import Composition, SuppliedFraction
 from .snapshot import Snapshot
 
-__all__ = ["scenario", "main", "DEMO_FREQUENCIES"]
+__all__ = ["scenario", "main", "DEMO_FREQUENCIES", "DEMO_SEED"]
 
 # geometric, like the demo job's: cubes of these planes get a FREQ-LOG axis
+#: Seed of the demo's clump field when a job gives none.
+DEMO_SEED = 7
 DEMO_FREQUENCIES = 0.3 * u.GHz * (100 / 0.3) ** (np.arange(6) / 5)
 _M_H = (const.m_p + const.m_e).cgs.value   # g, mass of a hydrogen atom (binding energy neglected)
 
@@ -84,7 +86,7 @@ def _inside(r, radius, width=EDGE_WIDTH):
     return 1.0 - t * t * t * (t * (6.0 * t - 15.0) + 10.0)
 
 
-def scenario(n=96, seed=7, box=2.0 * u.pc):
+def scenario(n=96, seed=DEMO_SEED, box=2.0 * u.pc):
     """Build the demo snapshot.
 
     The scene is defined in physical coordinates (smooth edges 0.08 pc wide,
@@ -128,7 +130,7 @@ def scenario(n=96, seed=7, box=2.0 * u.pc):
     temp = 30.0 * (1.0 - ionized) + 8000.0 * (ionized - bubble) + 9000.0 * bubble   # K
     temp += wind * (1.0e4 - temp)
     del r, bubble, wind, clumps
-    comp = Composition(hydrogen=0.70, helium=0.28)
+    comp = Composition()                                          # X = 0.70, Y = 0.28
     rho = n_h
     rho *= _M_H / comp.hydrogen                                   # g cm-3, in place
     return Snapshot.from_arrays(temperature=u.Quantity(temp, u.K, copy=False), cell_size=dx * u.pc,

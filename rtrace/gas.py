@@ -12,10 +12,10 @@ import astropy.units as u
 import numpy as np
 
 from .errors import InputError
-from .physics.ionization import resolve_ionization
+from .physics.ionization import DEFAULT_MODEL, resolve_ionization
 from .physics.ionization.cells import THERMAL_INPUTS
 from .physics.ionization.grid import ArrayInputs, evaluate_grid
-from .quantities import check_density_inputs
+from .quantities import check_cells, check_density_inputs
 
 __all__ = ["derive_fields", "check_field", "to_array", "gamma_value", "thermal_input", "thermal_provenance",
            "check_real", "check_emission_range", "THERMAL_UNITS", "DEFAULT_GAMMA"]
@@ -110,14 +110,7 @@ def check_field(name, arr, shape, lower, strict):
     """Validate one field: shape, finiteness, lower bound. The message counts bad cells."""
     if arr.shape != shape:
         raise InputError(f"{name}: shape {arr.shape} does not match the grid shape {shape}")
-    n_bad = arr.size - int(np.count_nonzero(np.isfinite(arr)))
-    if n_bad:
-        raise InputError(f"{name}: {n_bad} of {arr.size} cells are not finite (NaN or inf)")
-    n_bad = int(np.count_nonzero(arr <= lower if strict else arr < lower))
-    if n_bad:
-        rel = "> 0" if strict else ">= 0"
-        raise InputError(f"{name}: {n_bad} of {arr.size} cells violate {name} {rel} "
-                         f"(minimum {float(arr.min()):.6g})")
+    check_cells(arr, name, lower, strict)
 
 
 def gamma_value(gamma):
@@ -177,7 +170,7 @@ def derive_fields(cell, origin, *, temperature=None, electron_density=None, ion_
         return _supplied_electrons(temperature, electron_density, ion_density, dtype)
     thermal, value = thermal_input(temperature, pressure, internal_energy)
     shape = _grid_shape([(thermal, value), ("density", density)])
-    model = resolve_ionization("full" if ionization is None else ionization, composition=composition,
+    model = resolve_ionization(DEFAULT_MODEL if ionization is None else ionization, composition=composition,
                                helium=helium)
     inputs = _mass_density_inputs(density, thermal, value, gamma, shape)
     merged = model.with_fields(_model_fields(model, fields, shape), shape)

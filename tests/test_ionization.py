@@ -220,7 +220,7 @@ def test_supplied_fraction_quantity_and_field_name():
     np.testing.assert_allclose(n_e, [5.0, 10.0], rtol=1e-9)
     with pytest.raises(ValueError, match="xion.*not found"):
         model.electron_and_ion_terms(rho, T, {})
-    with pytest.raises(ValueError, match=r"'xion': 1 of 2 cells are invalid"):
+    with pytest.raises(ValueError, match=r"'xion': 1 of 2 cells violate 0 <= fraction <= 1"):
         model.electron_and_ion_terms(rho, T, {"xion": np.array([0.1, 2.0])})
 
 
@@ -230,8 +230,9 @@ def test_supplied_fraction_validation_counts_bad_cells():
         SuppliedFraction(bad)
     msg = str(err.value)
     assert msg.startswith("fraction:")
-    assert "4 of 6 cells are invalid" in msg
-    assert "2 not finite" in msg and "2 outside [0, 1]" in msg
+    # one wording for every per-cell check (rtrace.quantities.CellTally): each problem with its count
+    assert "2 of 6 cells are not finite (NaN or inf) and 2 violate 0 <= fraction <= 1" in msg
+    assert "minimum -0.1, maximum 1.5" in msg
     with pytest.raises(ValueError, match="dimensionless"):
         SuppliedFraction(np.array([0.5]) * u.K)
     with pytest.raises(ValueError, match="helium"):

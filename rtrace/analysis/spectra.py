@@ -28,6 +28,7 @@ import numpy as np
 
 from ..errors import InputError, warn_user
 from ..observe.beam import same_beam
+from ..quantities import JY_PER_BEAM, jy_per_beam, parse_frequencies
 from ..transfer.background import check_convention, describe
 
 __all__ = ["sed", "sed_metadata", "describe_background", "sed_table", "write_sed_table", "spectral_index",
@@ -89,11 +90,7 @@ def _beam_solid_angle_sr(obj, index):
 
 def _jy_per_beam(value, name):
     """Values of a Jy/beam Quantity (a bare Jy unit is read as per beam, as FITS BUNIT often is)."""
-    q = u.Quantity(value)
-    for unit in (u.Jy / u.beam, u.Jy):
-        if q.unit.is_equivalent(unit):
-            return q.to_value(unit)
-    raise InputError(f"{name}: expected a surface brightness in Jy/beam, got unit '{q.unit}'")
+    return jy_per_beam(value, name).to_value(JY_PER_BEAM)
 
 
 def _convention(obj, background):
@@ -132,10 +129,9 @@ def pixel_flux(obj, background=None):
         omega_pix = _pixel_solid_angle_sr(obj)
         ratio = np.array([omega_pix / _beam_solid_angle_sr(obj, i) for i in range(data.shape[0])])
         return data * ratio[:, None, None] * u.Jy
-    if hasattr(obj, "specific_intensity"):
-        intensity = obj.specific_intensity(_convention(obj, background))
-    else:
-        intensity = obj.intensity
+    if hasattr(obj, "jy_per_pixel"):
+        return obj.jy_per_pixel(_convention(obj, background))
+    intensity = obj.intensity
     intensity = intensity.to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
     flux_cgs = intensity * obj.pixel_solid_angle.to_value(u.sr)
     return (flux_cgs * u.erg / (u.s * u.cm**2 * u.Hz)).to(u.Jy)
@@ -332,17 +328,11 @@ def describe_background(obj, background=None):
 
 
 def _spectrum_arrays(frequencies, flux):
-    try:
-        nu = u.Quantity(frequencies).to_value(u.Hz, equivalencies=u.spectral())
-    except (u.UnitsError, TypeError):
-        raise InputError(f"frequencies: expected a Quantity with a spectral unit, got {frequencies!r}") from None
+    nu = parse_frequencies(frequencies, "frequencies")
     flux_q = u.Quantity(flux)
-    nu = np.atleast_1d(np.asarray(nu, float))
     values = np.atleast_1d(np.asarray(flux_q.value, float))
-    if nu.ndim != 1 or values.shape != nu.shape:
+    if values.shape != nu.shape:
         raise InputError(f"flux: shape {values.shape} does not match frequencies shape {nu.shape}")
-    if not np.all(np.isfinite(nu) & (nu > 0)):
-        raise InputError("frequencies: must be finite and positive")
     return nu, values, flux_q.unit
 
 
@@ -476,12 +466,9 @@ def frequency_index(obj, frequency, name="frequency"):
         if not -nu.size <= frequency < nu.size:
             raise InputError(f"{name}: index {frequency} is out of range for {nu.size} frequencies")
         return int(frequency) % nu.size
-    try:
-        want = u.Quantity(frequency).to_value(u.Hz, equivalencies=u.spectral())
-    except (u.UnitsError, TypeError):
-        raise InputError(f"{name}: expected a spectral Quantity or a plane index, got {frequency!r}") from None
-    if np.ndim(want) != 0 or not np.isfinite(want) or want <= 0:
-        raise InputError(f"{name}: expected one positive frequency, got {frequency!r}")
+    if not isinstance(frequency, (u.Quantity, str)):
+        raise InputError(f"{name}: expected a spectral Quantity or a plane index, got {frequency!r}")
+    want = parse_frequencies(frequency, name, scalar=True)
     index = int(np.argmin(np.abs(nu - want)))
     if abs(nu[index] - want) > FREQUENCY_TOLERANCE * want:
         traced = ", ".join(f"{v / 1e9:.6g}" for v in nu)

@@ -52,7 +52,6 @@ _MIN_DIFFERENCE_FWHM_PIX = 0.25
 # convolved model is too coarsely sampled for interpolation onto another grid.
 _MIN_PIXELS_PER_BEAM = 3.0
 
-_JY_CGS = 1.0e-23          # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
 
 
 @dataclass
@@ -108,8 +107,7 @@ def _finite(data, name):
 
 
 def _from_result(result):
-    intensity = np.asarray(result.specific_intensity("subtracted").value, float)
-    data = _finite(intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS), "result")
+    data = _finite(result.jy_per_pixel("subtracted").value, "result")
     ny, nx = data.shape[1:]
     return ModelCube(data=data, frequencies=result.frequencies.to_value(u.Hz),
                      wcs=sky_wcs((ny, nx), result.pixel_scale, result.sky_position),

@@ -26,7 +26,7 @@ from astropy.wcs.utils import proj_plane_pixel_area, proj_plane_pixel_scales
 
 from ..errors import InputError
 from ..observe.beam import describe_beam, validate_beam
-from ..quantities import positive_scalar
+from ..quantities import JY_PER_BEAM, parse_frequencies
 
 __all__ = ["ObservedImage", "read_observation", "ComparisonWarning", "FREQUENCY_KEYWORDS",
            "header_frequencies", "open_image_hdu"]
@@ -34,7 +34,6 @@ __all__ = ["ObservedImage", "read_observation", "ComparisonWarning", "FREQUENCY_
 # Keywords tried, in this order, when the header has no spectral axis.
 FREQUENCY_KEYWORDS = ("RESTFRQ", "RESTFREQ", "FREQ")
 
-JY_PER_BEAM = u.Jy / u.beam
 
 
 class ComparisonWarning(UserWarning):
@@ -201,7 +200,7 @@ def header_frequencies(header, wcs, name):
 
 def check_frequency(frequency, name="frequency"):
     """A positive scalar frequency (or wavelength) in Hz."""
-    return positive_scalar(frequency, u.Hz, name, "a frequency", u.spectral())
+    return parse_frequencies(frequency, name, scalar=True)
 
 
 # --------------------------------------------------------------------------------------------

@@ -60,7 +60,6 @@ from .sampling import (
 __all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_RELATIVE_THRESHOLD",
            "DEFAULT_NITER"]
 
-_JY_CGS = 1.0e-23                # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
 
 # theta_LAS ~ 0.6 lambda / B_min (common practice)
 LAS_FACTOR = 0.6
@@ -285,11 +284,7 @@ class _Array:
 
 def _model_jy_per_pixel(result):
     """The Result's background-subtracted intensity in Jy per model pixel; InputError on non-finite pixels."""
-    intensity = np.asarray(result.specific_intensity("subtracted").value, float)
-    bad = ~np.isfinite(intensity)
-    if bad.any():
-        raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
-    return intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
+    return result.jy_per_pixel("subtracted", require_finite=True).value
 
 
 class _Observation:

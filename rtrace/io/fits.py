@@ -84,15 +84,16 @@ from astropy.wcs import WCS
 
 from ..errors import InputError
 from ..observe.beam import beam_cards, same_beam
-from ..quantities import positive_scalar
+from ..quantities import parse_frequencies, positive_scalar
 from ..transfer.background import header_cards, resolve_convention
+from ..transfer.result import QUANTITIES
 from .atomic import atomic_path
 
 __all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
            "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES",
            "AXIS_RTOL"]
 
-RESULT_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
+RESULT_QUANTITIES = QUANTITIES
 
 # EXTNAME and column name of the -TAB frequency table.
 _TAB_EXTNAME = "WCS-TAB"
@@ -133,15 +134,7 @@ _PREFERRED_BUNIT = (
 # --------------------------------------------------------------------------------------------
 
 def _frequencies_hz(frequencies, name="frequencies"):
-    if frequencies is None:
-        return None
-    q = u.Quantity(frequencies)
-    if not q.unit.is_equivalent(u.Hz, equivalencies=u.spectral()):
-        raise InputError(f"{name}: expected a frequency (or wavelength), got unit '{q.unit}'")
-    nu = np.atleast_1d(q.to_value(u.Hz, equivalencies=u.spectral())).astype(float)
-    if nu.ndim != 1 or nu.size == 0 or not np.all(np.isfinite(nu) & (nu > 0)):
-        raise InputError(f"{name}: must be a non-empty 1D sequence of finite positive frequencies")
-    return nu
+    return None if frequencies is None else parse_frequencies(frequencies, name)
 
 
 def _pixel_scale_deg(pixel_scale):
@@ -784,7 +777,7 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         out_unit = u.Jy / u.pix if out_unit is None else out_unit
         intensity = result.specific_intensity(convention)
         if out_unit.is_equivalent(u.Jy / u.pix):
-            per_pixel = (intensity * result.pixel_solid_angle).to(u.Jy) / u.pix
+            per_pixel = result.jy_per_pixel(convention) / u.pix
             data = per_pixel.to(out_unit)
         elif out_unit.is_equivalent(intensity.unit):
             data = intensity.to(out_unit)

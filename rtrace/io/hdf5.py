@@ -22,7 +22,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..gas import thermal_input
-from ..physics.ionization import MODEL_NAMES, SuppliedFraction, resolve_ionization
+from ..physics.ionization import DEFAULT_MODEL, RESERVED_NAMES, SuppliedFraction, resolve_ionization
 from ..quantities import storage_dtype
 from ..snapshot import Snapshot
 
@@ -204,10 +204,10 @@ def wanted_fields(temperature, pressure, internal_energy, electron_density, ion_
     model = None
     if density is not None:
         spec = ionization
-        if isinstance(spec, str) and spec.strip().lower() not in MODEL_NAMES + ("sources",):
+        if isinstance(spec, str) and spec.strip().lower() not in RESERVED_NAMES:
             spec = SuppliedFraction(spec, composition, helium)
             composition = helium = None
-        model = resolve_ionization("full" if spec is None else spec, composition=composition, helium=helium)
+        model = resolve_ionization(DEFAULT_MODEL if spec is None else spec, composition=composition, helium=helium)
         for name in model.field_names():
             wanted[MODEL_FIELD + name] = name
     elif ionization is not None:
@@ -232,6 +232,69 @@ def file_geometry(handle, cell_size, origin, path):
     if origin is None and "origin" in handle.attrs:
         origin = _root_length(handle, "origin", ("origin_units", "length_unit", "cell_size_units"), path)
     return cell_size, origin
+
+
+def parse_request(path, units, dtype, fields):
+    """The parse step of :func:`read_hdf5` and :func:`~rtrace.io.open_hdf5`, before the file is opened.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Must name an existing file.
+    units : dict or None
+        Dataset name -> unit.
+    dtype : numpy dtype
+        float32 or float64.
+    fields : dict
+        The readers' ``temperature``, ``pressure``, ``internal_energy``,
+        ``electron_density``, ``ion_density``, ``density``, ``ionization``,
+        ``composition`` and ``helium`` arguments.
+
+    Returns
+    -------
+    tuple
+        ``(path, units, dtype, wanted, model)``: the path as a string, the
+        units as a dict, the dtype, parameter -> dataset name for every
+        dataset to read, and the ionization model (None without density).
+    """
+    path = os.fspath(path)
+    if not os.path.isfile(path):
+        raise InputError(f"path: HDF5 file '{path}' not found")
+    units = {} if units is None else dict(units)
+    dtype = storage_dtype(dtype)
+    wanted, model = wanted_fields(**fields)
+    return path, units, dtype, checked_names(wanted, units), model
+
+
+def _read_geometry(cell_size, origin, starts, subvolume):
+    """Cell size and origin as Quantities (the origin moved to the sub-volume's first cell), checked."""
+    cell = u.Quantity(cell_size)
+    if not cell.unit.is_equivalent(u.cm):
+        raise InputError(f"cell_size: expected a length, got unit '{cell.unit}'")
+    if cell.size not in (1, 3):
+        raise InputError(f"cell_size: expected a scalar or a 3-vector, got shape {cell.shape}")
+    origin = u.Quantity(np.zeros(3) * u.cm if origin is None else origin)
+    if not origin.unit.is_equivalent(u.cm):
+        raise InputError(f"origin: expected a length, got unit '{origin.unit}'")
+    if subvolume is not None:
+        # The origin is the lower corner of cell (0, 0, 0) of the part read.
+        origin = origin + starts * (cell.to(u.cm) * np.ones(3))
+    return cell, origin
+
+
+def _assemble(path, arrays, wanted, slices, subvolume, cell, origin, gamma, model, dtype):
+    """The Snapshot of the arrays read (``Snapshot.from_arrays`` validates them and applies the model)."""
+    source = f"hdf5:{path}"
+    if subvolume is not None:
+        source += " subvolume=[" + ", ".join(f"{s.start}:{s.stop}" for s in slices) + "]"
+    fields = {wanted[p]: arrays.pop(p).to_value(u.dimensionless_unscaled) for p in list(arrays)
+              if p.startswith(MODEL_FIELD)}
+    return Snapshot.from_arrays(
+        temperature=arrays.get("temperature"), pressure=arrays.get("pressure"),
+        internal_energy=arrays.get("internal_energy"), gamma=gamma, cell_size=cell,
+        electron_density=arrays.get("electron_density"), ion_density=arrays.get("ion_density"),
+        density=arrays.get("density"), ionization=model, origin=origin, fields=fields or None, dtype=dtype,
+        source=source)
 
 
 def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
@@ -294,49 +357,20 @@ def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
         unparseable units, missing geometry, bad sub-volume; and every
         value check of :meth:`~rtrace.Snapshot.from_arrays`.
     """
-    path = os.fspath(path)
-    if not os.path.isfile(path):
-        raise InputError(f"path: HDF5 file '{path}' not found")
-    units = {} if units is None else dict(units)
-    dtype = storage_dtype(dtype)
-    wanted, model = wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density,
-                                  ionization, composition, helium)
-    wanted = checked_names(wanted, units)
-
+    path, units, dtype, wanted, model = parse_request(path, units, dtype, dict(
+        temperature=temperature, pressure=pressure, internal_energy=internal_energy,
+        electron_density=electron_density, ion_density=ion_density, density=density, ionization=ionization,
+        composition=composition, helium=helium))
     with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
         cell_size, origin = file_geometry(handle, cell_size, origin, path)
         slices, starts = _subvolume(subvolume, shape)
         # Geometry is checked before any data is read: a mistake costs no I/O.
-        cell = u.Quantity(cell_size)
-        if not cell.unit.is_equivalent(u.cm):
-            raise InputError(f"cell_size: expected a length, got unit '{cell.unit}'")
-        if cell.size not in (1, 3):
-            raise InputError(f"cell_size: expected a scalar or a 3-vector, got shape {cell.shape}")
-        if origin is None:
-            origin = np.zeros(3) * u.cm
-        origin = u.Quantity(origin)
-        if not origin.unit.is_equivalent(u.cm):
-            raise InputError(f"origin: expected a length, got unit '{origin.unit}'")
-        if subvolume is not None:
-            # The origin is the lower corner of cell (0, 0, 0) of the part read.
-            origin = origin + starts * (cell.to(u.cm) * np.ones(3))
+        cell, origin = _read_geometry(cell_size, origin, starts, subvolume)
         # With mass density, every input goes through the ionization model in float64;
         # number densities and temperatures given directly are stored as dtype.
         read_type = np.float64 if model is not None else dtype
-        arrays = {}
-        for param, ds in datasets.items():
-            # h5py reads only the hyperslab and converts the type while reading.
-            arrays[param] = u.Quantity(ds.astype(read_type)[slices], field_units[param], copy=False)
-
-    source = f"hdf5:{path}"
-    if subvolume is not None:
-        source += " subvolume=[" + ", ".join(f"{s.start}:{s.stop}" for s in slices) + "]"
-    fields = {wanted[p]: arrays.pop(p).to_value(u.dimensionless_unscaled) for p in list(arrays)
-              if p.startswith(MODEL_FIELD)}
-    return Snapshot.from_arrays(
-        temperature=arrays.get("temperature"), pressure=arrays.get("pressure"),
-        internal_energy=arrays.get("internal_energy"), gamma=gamma, cell_size=cell,
-        electron_density=arrays.get("electron_density"), ion_density=arrays.get("ion_density"),
-        density=arrays.get("density"), ionization=model, origin=origin, fields=fields or None, dtype=dtype,
-        source=source)
+        # h5py reads only the hyperslab and converts the type while reading.
+        arrays = {param: u.Quantity(ds.astype(read_type)[slices], field_units[param], copy=False)
+                  for param, ds in datasets.items()}
+    return _assemble(path, arrays, wanted, slices, subvolume, cell, origin, gamma, model, dtype)

@@ -36,17 +36,16 @@ from ..gas import gamma_value, thermal_provenance
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
-from ..quantities import check_density_inputs, storage_dtype
+from ..quantities import CellTally, check_density_inputs
 from ..snapshot import Snapshot, _vector3, combined_checksum
 from .hdf5 import (
     _FIELD_UNITS,
     _FRACTION_UNIT,
     MODEL_FIELD,
-    checked_names,
     file_geometry,
     open_fields,
     open_file,
-    wanted_fields,
+    parse_request,
 )
 
 __all__ = ["open_hdf5", "LazySnapshot", "HDF5Source", "pieces"]
@@ -359,40 +358,11 @@ class LazySnapshot(Snapshot):
 
 # -- the streaming pass at open ----------------------------------------------------------------
 
-class _Tally:
-    """Counts and range of one field over the pieces of a streaming pass."""
-
-    def __init__(self, name, dataset):
-        self.name, self.dataset = name, dataset
-        self.size = self.nonfinite = self.low = self.high = self.empty = 0
-        self.min, self.max = np.inf, -np.inf
-
-    def add(self, arr, lower=None, strict=False, upper=None):
-        finite = np.isfinite(arr)
-        self.size += arr.size
-        self.nonfinite += arr.size - int(np.count_nonzero(finite))
-        if arr.size:
-            self.min = min(self.min, float(np.min(arr, where=finite, initial=np.inf)))
-            self.max = max(self.max, float(np.max(arr, where=finite, initial=-np.inf)))
-        if lower is not None:
-            self.low += int(np.count_nonzero(finite & ((arr <= lower) if strict else (arr < lower))))
-        if upper is not None:
-            self.high += int(np.count_nonzero(finite & (arr > upper)))
-        return self.nonfinite == 0 and self.low == 0 and self.high == 0
-
-    def raise_if_bad(self, path, rule):
-        """One InputError with every count, in the wording of Snapshot.from_arrays."""
-        problems = []
-        if self.nonfinite:
-            problems.append(f"{self.nonfinite} of {self.size} cells are not finite (NaN or inf)")
-        if self.low or self.high:
-            bad = self.low + self.high
-            count = f"{bad}" if problems else f"{bad} of {self.size} cells"
-            extreme = f"minimum {self.min:.6g}" if self.low else f"maximum {self.max:.6g}"
-            problems.append(f"{count} violate {rule} ({extreme})")
-        if problems:
-            raise InputError(f"{self.name}: {' and '.join(problems)}, in dataset '{self.dataset}' of '{path}' "
-                             "(found by open_hdf5's validation pass; nothing was traced)")
+def _tally(name, dataset, path, lower=None, strict=False, upper=None, rule=None):
+    """A :class:`~rtrace.quantities.CellTally` of one dataset over the pieces of the streaming pass."""
+    return CellTally(name, lower, strict, upper, rule=rule,
+                     context=f", in dataset '{dataset}' of '{path}' (found by open_hdf5's validation pass; "
+                             "nothing was traced)")
 
 
 def _validate_direct(source, handle, digests, ranges):
@@ -405,15 +375,15 @@ def _validate_direct(source, handle, digests, ranges):
             ranges[param] = ranges["electron_density"]
             continue
         lower, strict = _BOUNDS[param]
-        tally = _Tally(param, source.names[param])
+        tally = _tally(param, source.names[param], source.path, lower, strict)
         hot = 0
         for plo, phi in pieces(zero, shape, _SCAN_CELLS):
             arr = source._direct(handle, param, plo, phi)
-            if tally.add(arr, lower, strict):
+            if tally.add(arr):
                 digests[param].update(memoryview(np.ascontiguousarray(arr, source.dtype)).cast("B"))
             if param == "temperature":
                 hot += int(np.count_nonzero(arr >= RELATIVISTIC_TEMPERATURE))
-        tally.raise_if_bad(source.path, f"{param} {'>' if strict else '>='} 0")
+        tally.raise_if_bad()
         ranges[param] = (tally.min, tally.max)
         if hot:
             warn_relativistic(hot)
@@ -422,34 +392,35 @@ def _validate_direct(source, handle, digests, ranges):
 def _validate_gas(source, handle):
     """Mass density, the thermal input and the model's fields: validate every cell, piece by piece."""
     zero, shape = np.zeros(3, np.int64), np.asarray(source.shape, np.int64)
-    tally_rho = _Tally("density", source.names["density"])
-    tally_heat = _Tally(source.thermal, source.names[source.thermal])
+    tally_rho = _tally("density", source.names["density"], source.path, 0.0)
+    tally_heat = _tally(source.thermal, source.names[source.thermal], source.path, 0.0, strict=True)
     fields = [p for p in source.names if p.startswith(MODEL_FIELD)]
-    tally_fields = {p: _Tally(f"ionization field '{source.names[p]}'", source.names[p]) for p in fields}
+    tally_fields = {p: _tally(f"ionization field '{source.names[p]}'", source.names[p], source.path, 0.0,
+                              upper=1.0, rule="0 <= fraction <= 1") for p in fields}
     helium = [MODEL_FIELD + getattr(source.model, "_sources", {}).get(n, "") for n in ("helium_ii", "helium_iii")]
     helium_pair = all(p in source.names for p in helium)
-    excess, largest = 0, 0.0
+    excess, largest, empty = 0, 0.0, 0
     for plo, phi in pieces(zero, shape, _SCAN_CELLS):
         rho = source._wide(handle, "density", plo, phi)
-        tally_rho.add(rho, 0.0, False)
+        tally_rho.add(rho)
         if source.thermal != "temperature":
-            tally_rho.empty += int(np.count_nonzero(rho == 0.0))
-        tally_heat.add(source._wide(handle, source.thermal, plo, phi), 0.0, True)
+            empty += int(np.count_nonzero(rho == 0.0))
+        tally_heat.add(source._wide(handle, source.thermal, plo, phi))
         values = {p: source._wide(handle, p, plo, phi) for p in fields}
         for p in fields:
-            tally_fields[p].add(values[p], 0.0, False, upper=1.0)
+            tally_fields[p].add(values[p])
         if helium_pair:
             n_bad, top = source.model.excess_helium(values[helium[0]], values[helium[1]])
             excess, largest = excess + n_bad, max(largest, top)
     # in the order Snapshot.from_arrays checks them
-    tally_rho.raise_if_bad(source.path, "density >= 0")
-    tally_heat.raise_if_bad(source.path, f"{source.thermal} > 0")
-    if tally_rho.empty:
-        raise InputError(f"density: {tally_rho.empty} of {tally_rho.size} cells are empty (density 0), where a "
+    tally_rho.raise_if_bad()
+    tally_heat.raise_if_bad()
+    if empty:
+        raise InputError(f"density: {empty} of {tally_rho.size} cells are empty (density 0), where a "
                          f"temperature cannot be derived from the {source.thermal.replace('_', ' ')}, in dataset "
                          f"'{source.names['density']}' of '{source.path}'")
     for tally in tally_fields.values():
-        tally.raise_if_bad(source.path, "0 <= fraction <= 1")
+        tally.raise_if_bad()
     if excess:
         raise source.model.helium_sum_error(excess, tally_rho.size, largest)
 
@@ -458,7 +429,7 @@ def _evaluate_gas(source, handle, digests, ranges):
     """Every cell through the model, piece by piece: ranges, checksum, temperature warning, summary."""
     zero, shape = np.zeros(3, np.int64), np.asarray(source.shape, np.int64)
     names = ("temperature", "electron_density", "ion_density")
-    tallies = {p: _Tally(p, "(ionization model)") for p in names}
+    tallies = {p: CellTally(p) for p in names}
     summary = IonizationSummary()
     hot = 0
     for plo, phi in pieces(zero, shape, _PIECE_CELLS):
@@ -555,46 +526,57 @@ def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
     PhysicsRangeWarning
         Temperatures above 1e9 K; a model used outside its validity.
     """
-    path = os.fspath(path)
-    if not os.path.isfile(path):
-        raise InputError(f"path: HDF5 file '{path}' not found")
-    units = {} if units is None else dict(units)
-    dtype = storage_dtype(dtype)
     check_density_inputs(density, electron_density, ion_density, pressure, internal_energy)
     if isinstance(ionization, (np.ndarray, u.Quantity)) and np.ndim(ionization) > 0:
         raise InputError("ionization: an in-memory fraction array cannot be read brick by brick; store it "
                          "as a dataset in the file and pass its name (or use read_hdf5)")
-    wanted, model = wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density,
-                                  ionization, composition, helium)
-    if model is not None and any(np.ndim(a) > 0 for a in model.cell_arrays().values()):
-        raise InputError("ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
-                         "the names of datasets in the file instead")
-    gamma_used = None
-    if model is not None and "temperature" not in wanted:
-        gamma_used = gamma_value(gamma)
-    elif gamma is not None:
-        raise InputError("gamma: only used with pressure or internal_energy (and density)")
-    wanted = checked_names(wanted, units)
+    path, units, dtype, wanted, model = parse_request(path, units, dtype, dict(
+        temperature=temperature, pressure=pressure, internal_energy=internal_energy,
+        electron_density=electron_density, ion_density=ion_density, density=density, ionization=ionization,
+        composition=composition, helium=helium))
+    gamma_used = _streamed_model(model, wanted, gamma)
 
     with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
         cell_size, origin = file_geometry(handle, cell_size, origin, path)
-    cell = _vector3(cell_size, "cell_size", u.cm)
-    if not np.all(np.isfinite(cell) & (cell > 0)):
-        raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
-    org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+    cell, org = _lazy_geometry(cell_size, origin)
     if model is not None and not model.local:
         model.check_geometry(shape, cell, org)          # sources outside the grid: an error before any reading
 
     source = HDF5Source(path, wanted, field_units, model, dtype, shape, gamma_used)
     ranges, checksum, extra = _scan(source, cell, org)
-    if model is not None:
-        ionization_text = model.describe()
+    return LazySnapshot(source, cell, org, _provenance(source, ion_density, gamma_used, extra), ranges, checksum)
+
+
+def _streamed_model(model, wanted, gamma):
+    """The adiabatic index a streamed model uses (None with a temperature); refuse in-memory model arrays."""
+    if model is not None and any(np.ndim(a) > 0 for a in model.cell_arrays().values()):
+        raise InputError("ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
+                         "the names of datasets in the file instead")
+    if model is not None and "temperature" not in wanted:
+        return gamma_value(gamma)
+    if gamma is not None:
+        raise InputError("gamma: only used with pressure or internal_energy (and density)")
+    return None
+
+
+def _lazy_geometry(cell_size, origin):
+    """Cell size and origin as 3-vectors in cm; the cell size finite and positive."""
+    cell = _vector3(cell_size, "cell_size", u.cm)
+    if not np.all(np.isfinite(cell) & (cell > 0)):
+        raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
+    return cell, np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+
+
+def _provenance(source, ion_density, gamma_used, extra):
+    """The LazySnapshot's provenance: file, ionization, thermal input, and the scan's entries."""
+    if source.model is not None:
+        ionization_text = source.model.describe()
     elif ion_density is None:
         ionization_text = "supplied n_e; ion term = n_e"
     else:
         ionization_text = "supplied n_e and ion term"
-    provenance = {"source": f"hdf5:{path}", "ionization": ionization_text, **extra}
+    provenance = {"source": f"hdf5:{source.path}", "ionization": ionization_text, **extra}
     if source.thermal != "temperature":
         provenance["temperature"] = thermal_provenance(source.thermal, gamma_used)
-    return LazySnapshot(source, cell, org, provenance, ranges, checksum)
+    return provenance

@@ -23,9 +23,9 @@ from ..amr import AMRSnapshot, Grid
 from ..errors import InputError
 from ..gas import derive_fields, thermal_input
 from ..physics.freefree import check_temperature_range
-from ..physics.ionization import MODEL_NAMES, IonizationModel
+from ..physics.ionization import RESERVED_NAMES, IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS
-from ..quantities import storage_dtype
+from ..quantities import CellTally, storage_dtype
 from ..snapshot import register_reader
 
 __all__ = ["from_yt"]
@@ -71,7 +71,7 @@ def _fraction_field(ds, ionization):
     """True when ``ionization`` names a dataset field (an ionized fraction) rather than a model."""
     if isinstance(ionization, tuple):
         return True
-    return isinstance(ionization, str) and ionization.strip().lower() not in MODEL_NAMES + ("sources",)
+    return isinstance(ionization, str) and ionization.strip().lower() not in RESERVED_NAMES
 
 
 def _yt_name(name):
@@ -83,44 +83,22 @@ def _quantity(data, key):
     return data[key].to_astropy()
 
 
-class _Tally:
-    """Bad-cell counts of one field over all grids, for one error naming the field and the count."""
-
-    def __init__(self):
-        self.counts = {}
-        self.total = 0
-
-    def add(self, name, q, lower, strict):
-        arr = np.asarray(q.value)
-        bad_finite = arr.size - int(np.count_nonzero(np.isfinite(arr)))
-        with np.errstate(invalid="ignore"):
-            bad_bound = int(np.count_nonzero(arr <= lower if strict else arr < lower))
-        c = self.counts.setdefault(name, [0, 0, 0, strict])
-        c[0] += bad_finite
-        c[1] += bad_bound
-        c[2] += arr.size
-
-    def raise_if_bad(self, where):
-        for name, (bad_finite, bad_bound, size, strict) in self.counts.items():
-            if bad_finite:
-                raise InputError(f"{name}: {bad_finite} of {size} cells in {where} are not finite (NaN or inf)")
-            if bad_bound:
-                raise InputError(f"{name}: {bad_bound} of {size} cells in {where} violate {name} "
-                                 f"{'> 0' if strict else '>= 0'}")
-
-
 def _inputs(data, keys):
     """Quantities of the fields ``keys`` (param -> yt key) read from ``data`` (a grid or covering grid)."""
     return {param: _quantity(data, key) for param, key in keys.items()}
 
 
 def _validate(all_inputs, where):
-    tally = _Tally()
+    """Every grid's inputs counted per field (:class:`~rtrace.quantities.CellTally`): one error per field."""
+    tallies = {}
     for inputs in all_inputs:
         for param, q in inputs.items():
             if param in _BOUNDS:
-                tally.add(param, q, *_BOUNDS[param])
-    tally.raise_if_bad(where)
+                if param not in tallies:
+                    tallies[param] = CellTally(param, *_BOUNDS[param], where=f"in {where}")
+                tallies[param].add(np.asarray(q.value))
+    for tally in tallies.values():
+        tally.raise_if_bad()
 
 
 def _terms(inputs, options, dtype, cell, origin):

@@ -10,28 +10,21 @@ kernel is the noise variance times the sum of the squared kernel weights, so
 the expected mean square of every output pixel is exactly ``rms^2``.
 """
 
-import astropy.units as u
 import numpy as np
 
 from ..errors import InputError
+from ..quantities import JY_PER_BEAM, jy_per_beam
 
 __all__ = ["noise_rms_per_frequency", "make_rng", "correlated_noise", "JY_PER_BEAM", "jy_per_beam_value"]
-
-JY_PER_BEAM = u.Jy / u.beam
 
 
 def jy_per_beam_value(value, name, example):
     """The value(s) of a surface-brightness Quantity in Jy/beam (a plain flux density is read as per beam).
 
-    ``example`` is shown in the error for a value without units (e.g. ``"50 * u.uJy / u.beam"``).
+    ``example`` is shown in the error for a value without units (e.g. ``"50 * u.uJy / u.beam"``); see
+    :func:`rtrace.quantities.jy_per_beam`.
     """
-    if not isinstance(value, u.Quantity):
-        raise InputError(f"{name}: expected a Quantity in Jy/beam (e.g. {example}), got {value!r}")
-    if value.unit.is_equivalent(JY_PER_BEAM):
-        return value.to_value(JY_PER_BEAM)
-    if value.unit.is_equivalent(u.Jy):
-        return value.to_value(u.Jy)
-    raise InputError(f"{name}: expected Jy/beam, got unit '{value.unit}'")
+    return jy_per_beam(value, name, example).to_value(JY_PER_BEAM)
 
 
 def noise_rms_per_frequency(noise, nfreq):

@@ -5,7 +5,8 @@ import numpy as np
 
 from ..errors import InputError
 from ..memory import check_memory, format_bytes, observe_bytes
-from ..quantities import finite_number, positive_scalar
+from ..physics.constants import JANSKY
+from ..quantities import finite_number, parse_frequencies
 from ..transfer.background import brightness_temperature_cgs, check_convention, resolve_convention
 from ..transfer.result import Result
 from .beam import (
@@ -21,7 +22,6 @@ from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_freque
 
 __all__ = ["SkyMap", "observe", "check_observation"]
 
-_JY_CGS = 1.0e-23          # erg s-1 cm-2 Hz-1 per Jy (definition of the jansky)
 
 
 def _reference_frequency(reference_frequency, scaling):
@@ -29,7 +29,7 @@ def _reference_frequency(reference_frequency, scaling):
         return None
     if scaling is None:
         raise InputError("reference_frequency: only used with beam_scaling='inverse-frequency'")
-    return positive_scalar(reference_frequency, u.Hz, "reference_frequency", "a frequency", u.spectral())
+    return parse_frequencies(reference_frequency, "reference_frequency", scalar=True)
 
 
 def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
@@ -101,12 +101,7 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     check_observation(beams, result.pixel_scale, image_shape, nu, noise=rms is not None, max_memory=budget)
 
     # always convolved without the background: a uniform level is added back (exactly) on request
-    intensity = np.asarray(result.specific_intensity("subtracted").value, float)
-    bad = ~np.isfinite(intensity)
-    if bad.any():
-        raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
-    # Jy per pixel: S = I Omega_pix, then erg s-1 cm-2 Hz-1 -> Jy
-    jy_per_pixel = intensity * (result.pixel_solid_angle.to_value(u.sr) / _JY_CGS)
+    jy_per_pixel = result.jy_per_pixel("subtracted", require_finite=True).value
     warn_if_emission_at_edge(jy_per_pixel, nu, "observe")
 
     kernels = {}                   # one kernel (and one kernel FFT) per distinct beam
@@ -268,7 +263,7 @@ class SkyMap:
         self._beam_sr = np.array([b.sr.to_value(u.sr) for b in self.beams])
         self._pix_sr = result.pixel_solid_angle.to_value(u.sr)
         self._bg_cgs = np.asarray(result.background.value, float)
-        self._bg_jyb = self._bg_cgs * self._beam_sr / _JY_CGS
+        self._bg_jyb = self._bg_cgs * self._beam_sr / JANSKY
 
     @property
     def background_subtracted(self):
@@ -414,7 +409,7 @@ class SkyMap:
                 for f, sr in zip(nu, self._beam_sr, strict=True)])
             return u.Quantity(img * k_per_jyb[:, None, None], u.K)
         if kind == "planck":
-            delta = self._image(noiseless) * (_JY_CGS / self._beam_sr[:, None, None])
+            delta = self._image(noiseless) * (JANSKY / self._beam_sr[:, None, None])
             tb = brightness_temperature_cgs(nu[:, None, None], delta, self._bg_cgs[:, None, None], kind,
                                             convention)
             return u.Quantity(tb, u.K)

@@ -17,6 +17,7 @@ from dataclasses import dataclass
 from glob import escape as glob_escape
 from pathlib import Path
 
+from ..demo import DEMO_SEED
 from ..errors import InputError
 from .inputs import build_snapshot, job_members
 from .manifest import inputs_key, snapshot_identity
@@ -54,7 +55,7 @@ def fingerprint(job, member):
         If the snapshot file cannot be read.
     """
     if job.snapshot["kind"] == "demo":
-        return {"demo_seed": member.get("seed", job.snapshot.get("seed", 7))}
+        return {"demo_seed": member.get("seed", job.snapshot.get("seed", DEMO_SEED))}
     path = Path(member["path"])
     try:
         if path.is_dir() and job.snapshot["kind"] == "yt":

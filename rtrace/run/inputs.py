@@ -10,16 +10,18 @@ from pathlib import Path
 
 import astropy.units as u
 
+from ..demo import DEMO_SEED
+from ..physics.ionization import DEFAULT_MODEL
 from ..physics.ionization.cells import THERMAL_INPUTS
 
 __all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization", "check_datasets"]
 
 
 def _composition(ion):
-    from ..physics.ionization import Composition
+    from ..physics.ionization import DEFAULT_HELIUM_MASS_FRACTION, DEFAULT_HYDROGEN_MASS_FRACTION, Composition
     if "hydrogen_mass_fraction" in ion or "helium_mass_fraction" in ion:
-        return Composition(hydrogen=ion.get("hydrogen_mass_fraction", 0.70),
-                           helium=ion.get("helium_mass_fraction", 0.28))
+        return Composition(hydrogen=ion.get("hydrogen_mass_fraction", DEFAULT_HYDROGEN_MASS_FRACTION),
+                           helium=ion.get("helium_mass_fraction", DEFAULT_HELIUM_MASS_FRACTION))
     return None
 
 
@@ -39,7 +41,7 @@ def ionization_model(job):
     )
     ion = job.ionization
     comp = _composition(ion)
-    model = ion.get("model", "full")
+    model = ion.get("model", DEFAULT_MODEL)
     if model == "threshold":
         kw = {} if "threshold" not in ion else {"threshold": ion["threshold"]}
         return TemperatureThreshold(composition=comp, helium=ion.get("helium", "single"), **kw)
@@ -161,7 +163,7 @@ def job_members(job):
         return job.snapshots
     snap = job.snapshot
     if snap["kind"] == "demo":
-        return [{"label": "demo", "seed": snap.get("seed", 7)}]
+        return [{"label": "demo", "seed": snap.get("seed", DEMO_SEED)}]
     return [{"label": Path(snap["path"]).stem, "path": Path(snap["path"])}]
 
 
@@ -182,7 +184,7 @@ def build_snapshot(job, member=None):
     member = member or job_members(job)[0]
     if snap["kind"] == "demo":
         from ..demo import scenario
-        return scenario(n=snap.get("cells", 64), seed=member.get("seed", snap.get("seed", 7)))
+        return scenario(n=snap.get("cells", 64), seed=member.get("seed", snap.get("seed", DEMO_SEED)))
     if snap["kind"] == "yt":
         return _from_yt(job, snap, member)
     from ..io.hdf5 import read_hdf5

@@ -18,8 +18,11 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
+from ..demo import DEMO_SEED
 from ..errors import ConfigError
+from ..physics.ionization import DEFAULT_MODEL
 from ..physics.ionization.cells import THERMAL_INPUTS
+from ..transfer.result import QUANTITIES as _QUANTITIES
 from .checks import (
     check_beam,
     check_frequencies,
@@ -68,7 +71,6 @@ SCHEMA = {
                    "views": list},
 }
 _TOP = set(SCHEMA) - {"source"}          # [[ionization.sources]] entries, not a table of their own
-_QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
 
 def _section(raw, name, where=None):
@@ -211,7 +213,7 @@ def _snapshot_members(snap, base_dir):
                 raise ConfigError(f"[snapshot].{key}: only used with kind = 'hdf5' or 'yt' "
                                   f"(a series of demo snapshots takes 'seeds')")
         if "seeds" not in snap:
-            return [{"label": "demo", "seed": snap.get("seed", 7)}], False
+            return [{"label": "demo", "seed": snap.get("seed", DEMO_SEED)}], False
         if "seed" in snap:
             raise ConfigError("[snapshot]: give either 'seed' (one demo snapshot) or 'seeds' (a series), not both")
         seeds = snap["seeds"]
@@ -418,7 +420,7 @@ def _ionization(raw, snap, kind):
     if ion and (kind == "demo" or "electron_density" in snap):
         raise ConfigError("[ionization]: only used with [snapshot].density (the demo scenario and "
                           "snapshots with electron_density carry their own ionization)")
-    model = ion.get("model", "full")
+    model = ion.get("model", DEFAULT_MODEL)
     if model not in _MODEL_KEYS:
         raise ConfigError(f"[ionization].model: '{model}'{_suggest(model, _MODEL_KEYS)} is not one of "
                           f"{', '.join(_MODEL_KEYS)}")

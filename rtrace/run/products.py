@@ -20,11 +20,11 @@ from pathlib import Path
 
 import astropy.units as u
 
+from ..transfer.result import QUANTITIES
 from .batch import observing_settings, output_key
 
 __all__ = ["PICTURES", "QUANTITIES", "Output", "data_outputs", "picture_outputs"]
 
-QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
 # (file stem, quantity drawn, drawn from the observed SkyMap); order is the order written.
 # Observed pictures are made only when the job has a beam.

@@ -6,9 +6,10 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import ConfigError
+from ..quantities import JY_PER_BEAM, jy_per_beam
 
 _PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg, "rate": u.s**-1,
-             "flux_per_beam": u.Jy / u.beam, "memory_size": u.byte, "time": u.s}
+             "flux_per_beam": JY_PER_BEAM, "memory_size": u.byte, "time": u.s}
 
 
 def _suggest(key, allowed):
@@ -30,10 +31,7 @@ def _a(kind):
 
 def _quantity(value, kind, where):
     """Parse '1 GHz' (or a number with no unit, refused) into a Quantity of the right type."""
-    if kind == "flux_per_beam":
-        unit = u.Jy / u.beam
-    else:
-        unit = _PHYSICAL[kind]
+    unit = _PHYSICAL[kind]
     try:
         q = u.Quantity(value)
     except (TypeError, ValueError):
@@ -42,7 +40,7 @@ def _quantity(value, kind, where):
         raise ConfigError(f"{where}: '{value}' has no unit; expected {_a(kind)}")
     equiv = u.spectral() if kind == "frequency" else []
     if kind == "flux_per_beam" and q.unit.is_equivalent(u.Jy):
-        q = q / u.beam                       # '0.1 mJy' is read as per beam
+        q = jy_per_beam(q, where, error=ConfigError)        # '0.1 mJy' is read as per beam
     if not q.unit.is_equivalent(unit, equivalencies=equiv):
         raise ConfigError(f"{where}: '{value}' is not {_a(kind)} (unit '{q.unit}')")
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):    # a zero wavelength: refused later

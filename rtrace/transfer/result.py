@@ -5,11 +5,14 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from ..errors import InputError, PixelAccuracyWarning  # noqa: F401  (also rtrace.transfer.result.PixelAccuracyWarning)
-from ..physics.constants import PC
+from ..physics.constants import JANSKY, PC
 from .background import Background, brightness_temperature_cgs, check_convention, resolve_convention
 from .pixel_error import PixelError
 
-__all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION"]
+__all__ = ["Result", "PixelError", "PixelAccuracyWarning", "INTENSITY_UNIT", "DEFAULT_SKY_POSITION", "QUANTITIES"]
+
+#: The images a Result holds, by the names writers, jobs and pictures use.
+QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature")
 
 INTENSITY_UNIT = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 # Where an image lands on the sky when the View gives no sky_position (written to FITS headers).
@@ -182,9 +185,36 @@ class Result:
         subtract_background : bool, optional
             Deprecated spelling of ``background``.
         """
-        img = self.specific_intensity(resolve_convention(background, subtract_background)).value
-        return (img.sum(axis=(1, 2)) * self.pixel_solid_angle.to_value(u.sr)
-                * (u.erg / (u.s * u.cm**2 * u.Hz))).to(u.Jy)
+        per_pixel = self.jy_per_pixel(resolve_convention(background, subtract_background))
+        return per_pixel.sum(axis=(1, 2))
+
+    def jy_per_pixel(self, background="subtracted", *, require_finite=False):
+        """Flux density of each pixel, ``S = I Omega_pix`` (Jy per pixel), shape ``(nfreq, ny, nx)``.
+
+        The one conversion of the images to flux densities: sums over pixels
+        are flux densities (:meth:`flux_density`), and ``observe``, the
+        interferometer, the comparison and the FITS writer start from it.
+
+        Parameters
+        ----------
+        background : {"subtracted", "included"}
+            Convention of :meth:`specific_intensity` (default subtracted).
+        require_finite : bool
+            Raise an InputError counting the non-finite pixels, if any (for
+            the steps that convolve or Fourier-transform the image, where
+            one NaN would spread over the whole map).
+
+        Returns
+        -------
+        `~astropy.units.Quantity` (nfreq, ny, nx)
+            Jy (per pixel), float64.
+        """
+        intensity = np.asarray(self.specific_intensity(background).value, float)
+        if require_finite:
+            bad = ~np.isfinite(intensity)
+            if bad.any():
+                raise InputError(f"result: intensity has {int(bad.sum())} non-finite pixel value(s)")
+        return u.Quantity(intensity * (self.pixel_solid_angle.to_value(u.sr) / JANSKY), u.Jy, copy=False)
 
     def brightness_temperature(self, kind="planck", background="subtracted"):
         """Brightness temperature of each pixel (K).

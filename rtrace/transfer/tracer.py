@@ -37,7 +37,6 @@ import math
 import numbers
 from collections import namedtuple
 
-import astropy.units as u
 import numpy as np
 
 from ..errors import InputError, PixelAccuracyWarning, warn_user
@@ -45,6 +44,7 @@ from ..memory import check_memory, fits_in_memory, format_bytes, trace_image_byt
 from ..physics.constants import ALPHA_FF_PREFACTOR, H_OVER_K, C, H
 from ..physics.freefree import check_plasma_frequency
 from ..physics.gaunt import log_temperature_table
+from ..quantities import parse_frequencies
 from . import bricks as _bricks
 from . import cell_cache, kernels
 from .background import background_from_spec
@@ -146,16 +146,6 @@ class FrequencyTables:
         return out
 
 
-def _frequencies(frequencies):
-    q = u.Quantity(frequencies)
-    if not q.unit.is_equivalent(u.Hz, equivalencies=u.spectral()):
-        raise InputError(f"frequencies: expected a frequency (or wavelength), got unit '{q.unit}'")
-    nu = np.atleast_1d(q.to_value(u.Hz, equivalencies=u.spectral())).astype(float)
-    if nu.ndim != 1 or not np.all(np.isfinite(nu) & (nu > 0)):
-        raise InputError("frequencies: must be a 1D sequence of finite positive values")
-    return nu
-
-
 def _em_definition(value):
     if not isinstance(value, str) or value not in EM_DEFINITIONS:
         raise InputError(f"emission_measure: expected one of {sorted(EM_DEFINITIONS)} ('electrons': "
@@ -169,7 +159,7 @@ def trace_images(snapshot, view, frequencies, *, background=None, supersample=No
 
     Parameters as :func:`rtrace.trace` (its docstring is the contract); that function wraps this one.
     """
-    nu = _frequencies(frequencies)
+    nu = parse_frequencies(frequencies, "frequencies")
     bg, bg_info = background_from_spec(background, nu)
     if supersample is not None:
         if isinstance(supersample, (bool, np.bool_)) or not isinstance(supersample, numbers.Integral) \

@@ -33,7 +33,7 @@ arrays in cgs units; the public entry points also accept
 from .base import IonizationModel
 from .collisional import CollisionalEquilibrium
 from .composition import DEFAULT_HELIUM_MASS_FRACTION, DEFAULT_HYDROGEN_MASS_FRACTION, Composition
-from .resolve import MODEL_NAMES, resolve_ionization
+from .resolve import DEFAULT_MODEL, MODEL_NAMES, RESERVED_NAMES, resolve_ionization
 from .saha import SahaEquilibrium
 from .simple import DEFAULT_THRESHOLD_TEMPERATURE, FullyIonized, TemperatureThreshold
 from .sources import IonizingSources
@@ -50,6 +50,8 @@ __all__ = [
     "IonizingSources",
     "resolve_ionization",
     "MODEL_NAMES",
+    "RESERVED_NAMES",
+    "DEFAULT_MODEL",
     "DEFAULT_HYDROGEN_MASS_FRACTION",
     "DEFAULT_HELIUM_MASS_FRACTION",
     "DEFAULT_THRESHOLD_TEMPERATURE",

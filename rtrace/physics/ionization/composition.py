@@ -15,6 +15,7 @@ import astropy.units as u
 import numpy as np
 
 from ...errors import InputError
+from ...quantities import check_cells
 
 __all__ = [
     "Composition", "SPECIES", "DEFAULT_HYDROGEN_MASS_FRACTION", "DEFAULT_HELIUM_MASS_FRACTION",
@@ -74,11 +75,7 @@ def as_float_array(value, unit, name, equivalencies=None):
 
 def check_finite_nonnegative(arr, name, unit_text):
     """Raise InputError naming ``name`` if any cell is negative or non-finite (with the count)."""
-    bad = ~np.isfinite(arr) | (arr < 0.0)
-    nbad = int(np.count_nonzero(bad))
-    if nbad:
-        raise InputError(f"{name}: {nbad} of {arr.size} cells are negative or not finite "
-                         f"(expected finite values >= 0 {unit_text})")
+    check_cells(arr, name, 0.0, rule=f"{name} >= 0 {unit_text}")
 
 
 def check_choice(value, allowed, name, model):

@@ -14,10 +14,15 @@ from .saha import SahaEquilibrium
 from .simple import FullyIonized, TemperatureThreshold
 from .supplied import SuppliedFraction
 
-__all__ = ["resolve_ionization", "MODEL_NAMES"]
+__all__ = ["resolve_ionization", "MODEL_NAMES", "RESERVED_NAMES", "DEFAULT_MODEL"]
 
 #: Model names a string may give (case-insensitive).
 MODEL_NAMES = ("full", "threshold", "saha", "collisional")
+#: Strings that name a model, never a snapshot field: :data:`MODEL_NAMES` and ``"sources"`` (which needs its
+#: sources, so it is refused as a bare name).
+RESERVED_NAMES = MODEL_NAMES + ("sources",)
+#: The model of a snapshot given mass density and no ionization.
+DEFAULT_MODEL = "full"
 
 
 def resolve_ionization(spec, composition: Composition | None = None,
@@ -73,7 +78,7 @@ def resolve_ionization(spec, composition: Composition | None = None,
         if name == "sources":
             raise InputError("ionization: 'sources' needs the stars' positions and ionizing photon rates; pass "
                              "rtrace.physics.ionization.IonizingSources(positions=..., rates=...) instead")
-        close = difflib.get_close_matches(name, MODEL_NAMES + ("sources",), n=1)
+        close = difflib.get_close_matches(name, RESERVED_NAMES, n=1)
         hint = f"did you mean {close[0]!r}? " if close else ""
         raise InputError(f"ionization: unknown model {spec!r}; {hint}valid names: {', '.join(MODEL_NAMES)} "
                          "(or an ionized-fraction array, or a model instance such as IonizingSources)")

@@ -10,6 +10,7 @@ import astropy.units as u
 import numpy as np
 
 from ...errors import InputError
+from ...quantities import check_cells
 from .base import IonizationModel
 from .composition import Composition, as_float_array, check_choice
 from .simple import hydrogen_helium_species
@@ -29,15 +30,8 @@ def validated_fraction(fraction, name):
         except u.UnitConversionError:
             raise InputError(f"{name}: ionized fraction must be dimensionless, got unit {fraction.unit}") from None
     arr = as_float_array(fraction, u.dimensionless_unscaled, name)
-    nonfinite = ~np.isfinite(arr)
-    with np.errstate(invalid="ignore"):
-        outside = ~nonfinite & ((arr < 0.0) | (arr > 1.0))
-    n_nonfinite = int(np.count_nonzero(nonfinite))
-    n_outside = int(np.count_nonzero(outside))
-    if n_nonfinite or n_outside:
-        raise InputError(f"{name}: {n_nonfinite + n_outside} of {arr.size} cells are invalid "
-                         f"({n_nonfinite} not finite, {n_outside} outside [0, 1]); "
-                         "an ionized fraction must be finite and within [0, 1]")
+    check_cells(arr, name, 0.0, upper=1.0, rule="0 <= fraction <= 1",
+                context="; an ionized fraction must be finite and within [0, 1]")
     return arr
 
 
