@@ -145,11 +145,13 @@ def _address(text):
 
 
 def cmd_run(args):
+    from dataclasses import replace
+
     from .run.job import load_job, override_parallel, run_job
     job = load_job(args.job)
     if args.output:
-        job.output["directory"] = _output_folder(args.output).resolve()
-    override_parallel(job, workers=args.workers, scheduler=args.scheduler)
+        job = replace(job, output=replace(job.output, directory=_output_folder(args.output).resolve()))
+    job = override_parallel(job, workers=args.workers, scheduler=args.scheduler)
     paths = run_job(job, progress=Progress(quiet=args.quiet), restart=args.restart)
     _report(paths, sys.stdout)
     return EXIT_OK
@@ -242,7 +244,7 @@ def _trace_job_view(path, view_name, frequencies=None, before=None):
     nu = job.frequencies if frequencies is None else frequencies
     from .compiling import watch_compilation
     with watch_compilation(lambda message: print(f"rtrace: {message}", file=sys.stderr, flush=True)):
-        res = trace(build_snapshot(job), views[name], nu, background=job.trace.get("background"))
+        res = trace(build_snapshot(job), views[name], nu, background=job.trace.background)
     return job, name, res
 
 

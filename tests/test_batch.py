@@ -473,7 +473,7 @@ def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatc
     assert cluster.closed and client.closed
     run_job(job)                                           # everything up to date: no cluster started
     assert len(made) == 2
-    override_parallel(job, scheduler="tcp://127.0.0.1:8786")
+    job = override_parallel(job, scheduler="tcp://127.0.0.1:8786")
     run_job(job, restart=True)
     assert made[2].target == "tcp://127.0.0.1:8786" and seen[-1][0] is made[2]
 

@@ -53,17 +53,17 @@ def fingerprint(job, member):
     InputError
         If the snapshot file cannot be read.
     """
-    if job.snapshot["kind"] == "demo":
-        return {"demo_seed": member.get("seed", job.snapshot.get("seed", 7))}
+    if job.snapshot.kind == "demo":
+        return {"demo_seed": member.get("seed", 7 if job.snapshot.seed is None else job.snapshot.seed)}
     path = Path(member["path"])
     try:
-        if path.is_dir() and job.snapshot["kind"] == "yt":
+        if path.is_dir() and job.snapshot.kind == "yt":
             return {"folder": path.name, "files": _stat_digest((p for p in path.rglob("*") if p.is_file()), path)}
         if not path.is_file():          # a pipe or device would block or never end: not a snapshot file
             raise InputError(f"[snapshot] path: '{path}' is not a regular file (or does not exist); "
                              f"it cannot be read to identify its data")
         source = snapshot_identity(path)
-        if job.snapshot["kind"] == "yt":
+        if job.snapshot.kind == "yt":
             companions = [p for p in path.parent.glob(f"{glob_escape(path.stem)}.*") if p != path and p.is_file()]
             if companions:
                 source["companions"] = _stat_digest(companions, path.parent)
@@ -85,18 +85,22 @@ def _stat_digest(paths, root):
 def unit_inputs(job, member, spec, source=None):
     """The job settings and data every output of one (snapshot, view) depends on.
 
-    ``source`` is the member's :func:`fingerprint`, computed here when not given.
+    ``source`` is the member's :func:`fingerprint`, computed here when not given; ``spec`` is the
+    view's `~rtrace.run.sections.ViewSection`. Sections enter as their ``as_dict()``, the form the
+    manifest hashes (it must not change for the same job file, or resumed runs redo their work).
     """
     from .._version import __version__
-    shared = {k: v for k, v in job.snapshot.items() if k not in _MEMBER_KEYS}
+    shared = {k: v for k, v in job.snapshot.as_dict().items() if k not in _MEMBER_KEYS}
     return {"rtrace": __version__, "snapshot": shared,
             "source": fingerprint(job, member) if source is None else source,
-            "ionization": job.ionization, "frequencies": job.frequencies, "trace": job.trace, "view": spec}
+            "ionization": job.ionization.as_dict(), "frequencies": job.frequencies,
+            "trace": job.trace.as_dict(), "view": spec.as_dict()}
 
 
 def observing_settings(job):
     """The settings only observed products depend on."""
-    return {"beam": job.beam, "noise": job.noise}
+    return {"beam": {} if job.beam is None else job.beam.as_dict(),
+            "noise": {} if job.noise is None else job.noise.as_dict()}
 
 
 def output_key(base, product, observing=None, limits=None):
@@ -135,7 +139,7 @@ def plan_units(job, views, directory):
     ``views`` is ``[(name, View)]`` as `rtrace.run.job.build_views` gives them;
     a series puts each snapshot's outputs in a folder named by its label.
     """
-    specs = {spec["name"]: spec for spec in job.views}
+    specs = {spec.name: spec for spec in job.views}
     obs = observing_settings(job)
     units = []
     for member in job_members(job):

@@ -140,12 +140,12 @@ def run(job, progress=None, restart=False):
     """
     say = progress or (lambda step, total, message: None)
     out = job.output
-    quantities = out.get("quantities", list(QUANTITIES))
-    fmt = out.get("picture_format", "png")
-    pictures = out.get("pictures", True)
+    quantities = list(QUANTITIES) if out.quantities is None else list(out.quantities)
+    fmt = out.picture_format
+    pictures = out.pictures
     keywords = parallel_keywords(job)
     views = build_views(job)
-    directory = out["directory"]
+    directory = out.directory
     check_writable(directory, "[output].directory")    # read-only, no permission, a file: before any work
     check_job_copy(job, directory)                 # never overwrite a job.toml rtrace did not write
     later = job.series and pictures           # series pictures wait for the whole series' ranges
