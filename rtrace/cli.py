@@ -196,7 +196,7 @@ def _snapshot_from(args):
     from .run.pipeline import build_snapshot
     job = load_job(args.job)
     if job.series:
-        print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0]['label']}'")
+        print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0].label}'")
     nu = args.frequencies if args.frequencies is not None else job.frequencies
     return build_snapshot(job), nu
 
@@ -255,7 +255,7 @@ def cmd_spectrum(args):
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
     if job.series:
-        print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
+        print(f"# first snapshot of the series: '{job.snapshots[0].label}'")
     print(f"# model spectrum of view '{name}' ({res.provenance.get('source', '')}): no beam, no noise")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
     for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy), strict=True)):
@@ -464,7 +464,7 @@ def cmd_compare(args):
             job, name, model = _trace_job_view(args.model, args.view, u.Quantity([obs.frequency]))
             if job.series:
                 print(f"series of {len(job.snapshots)} snapshots; compared the first, "
-                      f"'{job.snapshots[0]['label']}'")
+                      f"'{job.snapshots[0].label}'")
         elif args.view:
             raise ConfigError("--view: only for a job file (TOML) model")
         else:

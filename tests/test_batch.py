@@ -114,7 +114,7 @@ def crashing_record(fail_after, counts=lambda path: True):
 
 def test_series_writes_one_folder_per_snapshot_and_a_verifiable_manifest(tmp_path):
     job = load_job(write(tmp_path, SERIES))
-    assert job.series and [m["label"] for m in job.snapshots] == ["seed1", "seed2", "seed3"]
+    assert job.series and [m.label for m in job.snapshots] == ["seed1", "seed2", "seed3"]
     out = tmp_path / "out"
     written = run_job(job)
     assert set(written) == expected(out) and len(written) == 22 and written.skipped == []
@@ -286,7 +286,7 @@ def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
     for i, scale in ((20, 2.0), (10, 1.0)):
         snapshot_file(tmp_path / "run" / f"snap_{i:04d}.h5", scale)
     job = load_job(write(tmp_path, HDF5_SERIES))
-    assert [m["label"] for m in job.snapshots] == ["snap_0010", "snap_0020"]        # sorted
+    assert [m.label for m in job.snapshots] == ["snap_0010", "snap_0020"]        # sorted
     out = tmp_path / "out"
     names = ["z_intensity.fits", "z_tau.fits", "z_emission_measure.fits", "z_brightness_temperature.fits",
              "z_sed.csv"]
@@ -736,10 +736,10 @@ def test_each_snapshot_of_a_series_gets_its_own_reproducible_noise(tmp_path):
     # Identical noise in every snapshot would show as persistent structure in differences between them.
     from rtrace.run.engine import noise_seed
     series = load_job(write(tmp_path, SERIES))
-    seeds = [noise_seed(series, m["label"]) for m in series.snapshots]
-    assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m["label"]) for m in series.snapshots]
+    seeds = [noise_seed(series, m.label) for m in series.snapshots]
+    assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m.label) for m in series.snapshots]
     single = load_job(write(tmp_path, SERIES.replace("seeds = [1, 2, 3]", "seed = 1"), "single.toml"))
-    assert noise_seed(single, single.snapshots[0]["label"]) == 3        # a single snapshot keeps [noise].seed
+    assert noise_seed(single, single.snapshots[0].label) == 3        # a single snapshot keeps [noise].seed
     out = tmp_path / "out"
     run_job(series)
     # the observed SED of each snapshot says what it was computed from; the model's says it is the model

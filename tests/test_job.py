@@ -8,6 +8,7 @@ import pytest
 
 from rtrace.errors import ConfigError
 from rtrace.run.job import load_job, override_parallel, parse_job
+from rtrace.run.snapshot_sections import Member
 
 BASE = """
 [snapshot]
@@ -175,12 +176,12 @@ def test_pattern_is_sorted_and_relative_to_the_job_file(tmp_path):
     touch_files(tmp_path, "run/snap_0020.h5", "run/snap_0003.h5", "run/snap_0010.h5", "run/other.h5")
     job = load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
     assert job.series
-    assert [m["label"] for m in job.snapshots] == ["snap_0003", "snap_0010", "snap_0020"]
-    assert job.snapshots[0]["path"] == (tmp_path / "run/snap_0003.h5").resolve()
+    assert [m.label for m in job.snapshots] == ["snap_0003", "snap_0010", "snap_0020"]
+    assert job.snapshots[0].path == (tmp_path / "run/snap_0003.h5").resolve()
     job = load_job(write(tmp_path, HDF5.format(source='paths = ["run/snap_0010.h5", "run/other.h5"]')))
-    assert [m["label"] for m in job.snapshots] == ["snap_0010", "other"]        # the order given
+    assert [m.label for m in job.snapshots] == ["snap_0010", "other"]        # the order given
     job = load_job(write(tmp_path, HDF5.format(source='path = "run/other.h5"')))
-    assert not job.series and job.snapshots == ({"label": "other", "path": (tmp_path / "run/other.h5").resolve()},)
+    assert not job.series and job.snapshots == (Member("other", path=(tmp_path / "run/other.h5").resolve()),)
 
 
 @pytest.mark.parametrize("source,message", [
@@ -214,7 +215,7 @@ def test_demo_series_errors(tmp_path, patch, message):
 
 def test_demo_seeds_make_a_series(tmp_path):
     job = load_job(write(tmp_path, BASE.replace("cells = 16", "cells = 16\nseeds = [4, 2]")))
-    assert job.series and job.snapshots == ({"label": "seed4", "seed": 4}, {"label": "seed2", "seed": 2})
+    assert job.series and job.snapshots == (Member("seed4", seed=4), Member("seed2", seed=2))
     single = load_job(write(tmp_path, BASE))
     assert not single.series and single.parallel.as_dict() == {}
 

@@ -54,8 +54,9 @@ def fingerprint(job, member):
         If the snapshot file cannot be read.
     """
     if job.snapshot.kind == "demo":
-        return {"demo_seed": member.get("seed", 7 if job.snapshot.seed is None else job.snapshot.seed)}
-    path = Path(member["path"])
+        seed = member.seed if member.seed is not None else job.snapshot.seed
+        return {"demo_seed": 7 if seed is None else seed}
+    path = Path(member.path)
     try:
         if path.is_dir() and job.snapshot.kind == "yt":
             return {"folder": path.name, "files": _stat_digest((p for p in path.rglob("*") if p.is_file()), path)}
@@ -119,7 +120,7 @@ def output_key(base, product, observing=None, limits=None):
 class Unit:
     """One snapshot seen through one view."""
 
-    member: dict
+    member: object                    # a rtrace.run.snapshot_sections.Member
     name: str
     view: object
     folder: Path
@@ -130,7 +131,7 @@ class Unit:
     @property
     def label(self):
         """``"<snapshot label>/<view name>"``, for messages."""
-        return f"{self.member['label']}/{self.name}"
+        return f"{self.member.label}/{self.name}"
 
 
 def plan_units(job, views, directory):
@@ -146,8 +147,8 @@ def plan_units(job, views, directory):
         source = fingerprint(job, member)          # read once per snapshot, not once per view
         for name, view in views:
             base = unit_inputs(job, member, specs[name], source)
-            where = f"{member['label']} / view '{name}'" if job.series else f"view '{name}'"
-            folder = directory / member["label"] if job.series else directory
+            where = f"{member.label} / view '{name}'" if job.series else f"view '{name}'"
+            folder = directory / member.label if job.series else directory
             units.append(Unit(member, name, view, folder, base, output_key(base, "images", obs), where))
     return units
 
@@ -188,12 +189,12 @@ class Snapshots:
 
     def get(self, member, step, total):
         """The snapshot of series member ``member``, built (and announced as step ``step`` of ``total``) if new."""
-        if self.label != member["label"]:
+        if self.label != member.label:
             self.snap = None                 # release the previous snapshot before reading the next
-            where = f"snapshot '{member['label']}'" if self.job.series else "the snapshot"
+            where = f"snapshot '{member.label}'" if self.job.series else "the snapshot"
             self.say(step, total, f"building {where}")
             self.snap = build_snapshot(self.job, member)
-            self.label = member["label"]
+            self.label = member.label
         return self.snap
 
     def release(self):

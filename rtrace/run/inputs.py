@@ -11,6 +11,7 @@ from pathlib import Path
 import astropy.units as u
 
 from ..physics.ionization.cells import THERMAL_INPUTS
+from .snapshot_sections import Member
 
 __all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization", "check_datasets"]
 
@@ -94,11 +95,11 @@ def check_ionization(job):
     thermal = getattr(snap, snap.thermal_input)
     for member in job_members(job):
         try:
-            with open_file(member["path"]) as handle:
+            with open_file(member.path) as handle:
                 if thermal not in handle:
                     return                      # the reader names the missing dataset
                 shape = handle[thermal].shape
-                cell_size, origin = file_geometry(handle, snap.cell_size, snap.origin, member["path"])
+                cell_size, origin = file_geometry(handle, snap.cell_size, snap.origin, member.path)
             cell = _vector3(cell_size, "cell_size", u.cm)
             org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
             if snap.subvolume is not None:
@@ -107,7 +108,7 @@ def check_ionization(job):
                 org = org + starts * cell
             model.check_geometry(shape, cell, org)
         except InputError as exc:
-            raise ConfigError(f"[ionization].sources: {exc} (snapshot '{member['path']}')") from None
+            raise ConfigError(f"[ionization].sources: {exc} (snapshot '{member.path}')") from None
 
 
 def _job_key(job, message):
@@ -149,13 +150,13 @@ def check_datasets(job):
         try:
             wanted, _ = wanted_fields(**kw, ionization=model, composition=None, helium=None)
             wanted = checked_names(wanted, snap.units or {})
-            with open_file(member["path"]) as handle:
-                _, shape, _ = open_fields(handle, wanted, snap.units or {}, member["path"])
-                file_geometry(handle, snap.cell_size, snap.origin, member["path"])
+            with open_file(member.path) as handle:
+                _, shape, _ = open_fields(handle, wanted, snap.units or {}, member.path)
+                file_geometry(handle, snap.cell_size, snap.origin, member.path)
             if snap.subvolume is not None:
                 _subvolume(tuple(tuple(p) for p in snap.subvolume), shape)
         except InputError as exc:
-            raise ConfigError(f"{_job_key(job, str(exc))} (snapshot '{member['path']}')") from None
+            raise ConfigError(f"{_job_key(job, str(exc))} (snapshot '{member.path}')") from None
 
 
 def job_members(job):
@@ -164,8 +165,8 @@ def job_members(job):
         return job.snapshots
     snap = job.snapshot
     if snap.kind == "demo":
-        return ({"label": "demo", "seed": _or(snap.seed, 7)},)
-    return ({"label": Path(snap.path).stem, "path": Path(snap.path)},)
+        return (Member("demo", seed=_or(snap.seed, 7)),)
+    return (Member(Path(snap.path).stem, path=Path(snap.path)),)
 
 
 def build_snapshot(job, member=None):
@@ -174,7 +175,7 @@ def build_snapshot(job, member=None):
     Parameters
     ----------
     job : `~rtrace.run.job.Job`
-    member : dict, optional
+    member : `~rtrace.run.snapshot_sections.Member`, optional
         An entry of ``job.snapshots``; default the first.
 
     Returns
@@ -185,7 +186,7 @@ def build_snapshot(job, member=None):
     member = member or job_members(job)[0]
     if snap.kind == "demo":
         from ..demo import scenario
-        return scenario(n=_or(snap.cells, 64), seed=member.get("seed", _or(snap.seed, 7)))
+        return scenario(n=_or(snap.cells, 64), seed=_or(member.seed, _or(snap.seed, 7)))
     if snap.kind == "yt":
         return _from_yt(job, snap, member)
     from ..io.hdf5 import read_hdf5
@@ -194,7 +195,7 @@ def build_snapshot(job, member=None):
         kw["subvolume"] = tuple(tuple(p) for p in snap.subvolume)
     if snap.density is not None:
         kw["ionization"] = ionization_model(job)
-    return read_hdf5(member["path"], **kw)
+    return read_hdf5(member.path, **kw)
 
 
 def _yt_field(name):
@@ -209,4 +210,4 @@ def _from_yt(job, snap, member):
         kw["gamma"] = snap.gamma
     if snap.density is not None:
         kw["ionization"] = ionization_model(job)
-    return Snapshot.from_yt(str(member["path"]), level=snap.level, **kw)
+    return Snapshot.from_yt(str(member.path), level=snap.level, **kw)

@@ -36,7 +36,7 @@ from .sections import (
     parse_frequencies,
     parse_views,
 )
-from .snapshot_sections import IonizationSection, SnapshotSection
+from .snapshot_sections import IonizationSection, Member, SnapshotSection
 from .study import ComparisonSection, SynthesisSection
 from .values import _suggest
 from .views import build_views
@@ -44,16 +44,17 @@ from .views import build_views
 __all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
            "check_scheduler_address", "check_workers", "SCHEMA", "SnapshotSection", "IonizationSection",
            "TraceSection", "ViewSection", "BeamSection", "NoiseSection", "OutputSection", "ParallelSection",
-           "SynthesisSection", "ComparisonSection"]
+           "SynthesisSection", "ComparisonSection", "Member"]
 
 _TOP = set(SCHEMA) - {"source"}          # [[ionization.sources]] entries, not a table of their own
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Job:
     """A validated job, frozen: one typed section per table. Build it with :func:`load_job` or :func:`parse_job`.
 
-    A changed copy is made with `dataclasses.replace` (as :func:`override_parallel` does).
+    A changed copy is made with `dataclasses.replace` (as :func:`override_parallel` does). Two jobs
+    compare equal only when they are the same object.
 
     Attributes
     ----------
@@ -74,7 +75,7 @@ class Job:
         ``[output]`` with its defaults; ``directory`` is an absolute path.
     base_dir : pathlib.Path
         Folder of the job file; relative paths are read from there.
-    snapshots : tuple of dict
+    snapshots : tuple of `~rtrace.run.snapshot_sections.Member`
         The snapshots to process, in order: each has a ``label`` and either a
         ``path`` (HDF5, yt) or a ``seed`` (demo). One entry for a single snapshot.
     series : bool

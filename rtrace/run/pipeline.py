@@ -180,7 +180,7 @@ def run(job, progress=None, restart=False):
                 snap = snapshots.get(unit.member, step, total)
             say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies")
             with _compiling(say, step, total):
-                res, sky = engine.trace(snap, unit.view, unit.member["label"], unit.name)
+                res, sky = engine.trace(snap, unit.view, unit.member.label, unit.name)
             if todo:
                 say(step, total, f"{unit.where}: writing {len(todo)} outputs")
             with _compiling(say, step, total):
@@ -208,7 +208,7 @@ def run(job, progress=None, restart=False):
                     say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies again "
                                      f"for its pictures")
                     with _compiling(say, step, total):
-                        cached = engine.trace(snap, unit.view, unit.member["label"], unit.name)
+                        cached = engine.trace(snap, unit.view, unit.member.label, unit.name)
                 say(step, total, f"{unit.where}: drawing {len(todo)} pictures on the series' colour scales")
                 with _compiling(say, step, total):
                     make(todo, *cached, manifest, written)

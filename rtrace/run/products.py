@@ -133,7 +133,7 @@ def _stem(job, unit, suffix):
     """``<folder>/<prefix><view>_<suffix>``, refused (OutputError) unless it lies inside the output folder."""
     from ..io.outdir import check_inside
     path = unit.folder / f"{job.output.prefix}{unit.name}_{suffix}"
-    label = f", snapshot label '{unit.member['label']}'" if job.series else ""
+    label = f", snapshot label '{unit.member.label}'" if job.series else ""
     return check_inside(path, job.output.directory, f"[output].prefix, [[view]].name '{unit.name}'{label}")
 
 

@@ -22,9 +22,23 @@ from .schema import SCHEMA, typed_table
 from .sections import Section
 from .values import _check_keys, _suggest, _typed
 
-__all__ = ["SnapshotSection", "IonizationSection", "Source", "snapshot_members", "MODEL_KEYS"]
+__all__ = ["SnapshotSection", "IonizationSection", "Source", "Member", "snapshot_members", "MODEL_KEYS"]
 
 _KINDS = ("demo", "hdf5", "yt")
+
+
+@dataclass(frozen=True)
+class Member:
+    """One snapshot of the job: its ``label`` (names its outputs), and a ``path`` (HDF5, yt) or a ``seed`` (demo)."""
+
+    label: str
+    path: Path = None
+    seed: int = None
+
+    @property
+    def origin(self):
+        """The file, or the seed, that this snapshot comes from (for messages)."""
+        return self.seed if self.path is None else self.path
 
 
 @dataclass(frozen=True)
@@ -132,14 +146,13 @@ def _unique_labels(members, where):
     """Outputs are named by label, so two snapshots with one label would overwrite each other."""
     seen = {}
     for m in members:
-        if m["label"] in (".", ".."):         # '...h5' has the stem '..': its folder would be the parent's
-            raise ConfigError(f"{where}: the snapshot {m.get('path')} is labelled '{m['label']}' by its file "
+        if m.label in (".", ".."):         # '...h5' has the stem '..': its folder would be the parent's
+            raise ConfigError(f"{where}: the snapshot {m.path} is labelled '{m.label}' by its file "
                               f"name, which cannot name its output folder; rename the file")
-        if m["label"] in seen:
-            first, second = seen[m["label"]], m.get("path", m.get("seed"))
-            raise ConfigError(f"{where}: two snapshots share the label '{m['label']}' ({first} and {second}); "
-                              f"outputs are named by label, so labels must differ")
-        seen[m["label"]] = m.get("path", m.get("seed"))
+        if m.label in seen:
+            raise ConfigError(f"{where}: two snapshots share the label '{m.label}' ({seen[m.label]} and "
+                              f"{m.origin}); outputs are named by label, so labels must differ")
+        seen[m.label] = m.origin
 
 
 def _demo_members(snap):
@@ -148,7 +161,7 @@ def _demo_members(snap):
             raise ConfigError(f"[snapshot].{key}: only used with kind = 'hdf5' or 'yt' "
                               f"(a series of demo snapshots takes 'seeds')")
     if "seeds" not in snap:
-        return [{"label": "demo", "seed": snap.get("seed", 7)}], False
+        return [Member("demo", seed=snap.get("seed", 7))], False
     if "seed" in snap:
         raise ConfigError("[snapshot]: give either 'seed' (one demo snapshot) or 'seeds' (a series), not both")
     seeds = snap["seeds"]
@@ -157,7 +170,7 @@ def _demo_members(snap):
     for i, seed in enumerate(seeds):
         if isinstance(seed, bool) or not isinstance(seed, int):
             raise ConfigError(f"[snapshot].seeds[{i}]: expected int, got {type(seed).__name__} {seed!r}")
-    members = [{"label": f"seed{seed}", "seed": seed} for seed in seeds]
+    members = [Member(f"seed{seed}", seed=seed) for seed in seeds]
     _unique_labels(members, "[snapshot].seeds")
     return members, True
 
@@ -190,7 +203,7 @@ def _file_members(snap, base_dir):
                           f"{' and '.join(repr(k) for k in sources)}")
     if "path" in snap:
         snap["path"] = _hdf5_file(snap["path"], "[snapshot].path", base_dir, dirs)
-        return [{"label": snap["path"].stem, "path": snap["path"]}], False
+        return [Member(snap["path"].stem, path=snap["path"])], False
     if "paths" in snap:
         if not snap["paths"]:
             raise ConfigError("[snapshot].paths: expected a non-empty list of file names")
@@ -199,7 +212,7 @@ def _file_members(snap, base_dir):
     else:
         files = _pattern_files(snap["pattern"], base_dir, dirs)
         where = "[snapshot].pattern"
-    members = [{"label": f.stem, "path": f} for f in files]
+    members = [Member(f.stem, path=f) for f in files]
     _unique_labels(members, where)
     return members, True
 
@@ -207,7 +220,7 @@ def _file_members(snap, base_dir):
 def snapshot_members(snap, base_dir):
     """``(members, series)`` from a typed ``[snapshot]`` dict (``path`` resolved in place).
 
-    ``members`` is a tuple of ``{"label", "path" or "seed"}``, one per snapshot, in
+    ``members`` is a tuple of :class:`Member`, one per snapshot, in
     order; ``series`` is True when the job names a series (``paths``, ``pattern`` or ``seeds``).
     """
     members, series = _demo_members(snap) if snap["kind"] == "demo" else _file_members(snap, base_dir)
