@@ -164,6 +164,8 @@ def test_job_and_sections_are_frozen(tmp_path):
             setattr(obj, name, value)
     assert isinstance(job.views, tuple) and isinstance(job.snapshots, tuple)
     assert isinstance(job.views[0].los, tuple)               # lists are kept as tuples: no change in place
+    with pytest.raises(ValueError, match="read-only"):
+        job.frequencies[0] = 2 * u.GHz
 
 
 def test_override_parallel_returns_a_new_job(tmp_path):

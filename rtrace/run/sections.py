@@ -371,7 +371,7 @@ def _frequency_grid(spec):
 
 
 def parse_frequencies(table):
-    """Validate ``[frequencies]`` (``values``, or ``start``/``stop``/``num``/``spacing``): a Quantity in Hz.
+    """Validate ``[frequencies]`` (``values``, or ``start``/``stop``/``num``/``spacing``): a read-only Quantity in Hz.
 
     Raises
     ------
@@ -388,4 +388,6 @@ def parse_frequencies(table):
     else:
         nu = _frequency_grid(spec) * u.Hz
     check_frequencies(nu, "[frequencies].values" if "values" in spec else "[frequencies]")
-    return nu.to(u.Hz)
+    nu = nu.to(u.Hz)
+    nu.flags.writeable = False          # part of a frozen Job: read, never changed in place
+    return nu
