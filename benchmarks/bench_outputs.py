@@ -51,14 +51,15 @@ def one_round(job, unit, snap, manifest):
     """``{name: seconds}`` of one trace, observe and write of ``unit``."""
     times = {}
     t0 = time.perf_counter()
-    res = trace(snap, unit.view, job.frequencies, background=job.trace.get("background"),
-                supersample=job.trace.get("supersample", 1))
+    res = trace(snap, unit.view, job.frequencies, background=job.trace.background,
+                supersample=job.trace.supersample or 1)
     times["trace"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    sky = _observe(res, job) if job.beam else None
+    sky = _observe(res, job) if job.beam is not None else None
     times["observe"] = time.perf_counter() - t0
-    fmt = job.output.get("picture_format", "png")
-    cubes, spectra = data_outputs(job, unit, job.output.get("quantities", list(QUANTITIES)), fmt)
+    fmt = job.output.picture_format
+    quantities = list(QUANTITIES) if job.output.quantities is None else list(job.output.quantities)
+    cubes, spectra = data_outputs(job, unit, quantities, fmt)
     times["manifest"] = 0.0
     for output in cubes + picture_outputs(job, unit, fmt, None) + spectra:
         t0 = time.perf_counter()

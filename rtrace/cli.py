@@ -140,11 +140,13 @@ def _address(text):
 
 
 def cmd_run(args):
+    from dataclasses import replace
+
     from .run.job import load_job, override_parallel, run_job
     job = load_job(args.job)
     if args.output:
-        job.output["directory"] = _output_folder(args.output).resolve()
-    override_parallel(job, workers=args.workers, scheduler=args.scheduler)
+        job = replace(job, output=replace(job.output, directory=_output_folder(args.output).resolve()))
+    job = override_parallel(job, workers=args.workers, scheduler=args.scheduler)
     paths = run_job(job, progress=Progress(quiet=args.quiet), restart=args.restart)
     _report(paths, sys.stdout)
     return EXIT_OK
@@ -189,7 +191,7 @@ def _snapshot_from(args):
     from .run.pipeline import build_snapshot
     job = load_job(args.job)
     if job.series:
-        print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0]['label']}'")
+        print(f"series of {len(job.snapshots)} snapshots; showing the first, '{job.snapshots[0].label}'")
     nu = args.frequencies if args.frequencies is not None else job.frequencies
     return build_snapshot(job), nu
 
@@ -237,7 +239,7 @@ def _trace_job_view(path, view_name, frequencies=None, before=None):
     nu = job.frequencies if frequencies is None else frequencies
     from .compiling import watch_compilation
     with watch_compilation(lambda message: print(f"rtrace: {message}", file=sys.stderr, flush=True)):
-        res = trace(build_snapshot(job), views[name], nu, background=job.trace.get("background"))
+        res = trace(build_snapshot(job), views[name], nu, background=job.trace.background)
     return job, name, res
 
 
@@ -248,7 +250,7 @@ def cmd_spectrum(args):
     nu, flux = sed(res)
     alpha = spectral_index(nu, flux)
     if job.series:
-        print(f"# first snapshot of the series: '{job.snapshots[0]['label']}'")
+        print(f"# first snapshot of the series: '{job.snapshots[0].label}'")
     print(f"# model spectrum of view '{name}' ({res.provenance.get('source', '')}): no beam, no noise")
     print(f"{'nu (GHz)':>12} {'S (Jy)':>12} {'alpha':>8}")
     for i, (f, s) in enumerate(zip(nu.to_value(u.GHz), flux.to_value(u.Jy), strict=True)):
@@ -436,7 +438,7 @@ def cmd_compare(args):
             job, name, model = _trace_job_view(args.model, args.view, u.Quantity([obs.frequency]))
             if job.series:
                 print(f"series of {len(job.snapshots)} snapshots; compared the first, "
-                      f"'{job.snapshots[0]['label']}'")
+                      f"'{job.snapshots[0].label}'")
         elif args.view:
             raise ConfigError("--view: only for a job file (TOML) model")
         else:

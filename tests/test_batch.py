@@ -87,7 +87,7 @@ def crashing_record(fail_after, counts=lambda path: True):
 
 def test_series_writes_one_folder_per_snapshot_and_a_verifiable_manifest(tmp_path):
     job = load_job(write(tmp_path, SERIES))
-    assert job.series and [m["label"] for m in job.snapshots] == ["seed1", "seed2", "seed3"]
+    assert job.series and [m.label for m in job.snapshots] == ["seed1", "seed2", "seed3"]
     out = tmp_path / "out"
     written = run_job(job)
     assert set(written) == expected(out) and len(written) == 22 and written.skipped == []
@@ -243,7 +243,7 @@ def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
     for i, scale in ((20, 2.0), (10, 1.0)):
         snapshot_file(tmp_path / "run" / f"snap_{i:04d}.h5", scale)
     job = load_job(write(tmp_path, HDF5_SERIES))
-    assert [m["label"] for m in job.snapshots] == ["snap_0010", "snap_0020"]        # sorted
+    assert [m.label for m in job.snapshots] == ["snap_0010", "snap_0020"]        # sorted
     out = tmp_path / "out"
     names = ["z_intensity.fits", "z_tau.fits", "z_emission_measure.fits", "z_brightness_temperature.fits",
              "z_sed.ecsv"]
@@ -430,7 +430,7 @@ def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatc
     assert cluster.closed and client.closed
     run_job(job)                                           # everything up to date: no cluster started
     assert len(made) == 2
-    override_parallel(job, scheduler="tcp://127.0.0.1:8786")
+    job = override_parallel(job, scheduler="tcp://127.0.0.1:8786")
     run_job(job, restart=True)
     assert made[2].target == "tcp://127.0.0.1:8786" and seen[-1][0] is made[2]
 
@@ -693,10 +693,10 @@ def test_each_snapshot_of_a_series_gets_its_own_reproducible_noise(tmp_path):
     # Identical noise in every snapshot would show as persistent structure in differences between them.
     from rtrace.run.engine import noise_seed
     series = load_job(write(tmp_path, SERIES))
-    seeds = [noise_seed(series, m["label"]) for m in series.snapshots]
-    assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m["label"]) for m in series.snapshots]
+    seeds = [noise_seed(series, m.label) for m in series.snapshots]
+    assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m.label) for m in series.snapshots]
     single = load_job(write(tmp_path, SERIES.replace("seeds = [1, 2, 3]", "seed = 1"), "single.toml"))
-    assert noise_seed(single, single.snapshots[0]["label"]) == 3        # a single snapshot keeps [noise].seed
+    assert noise_seed(single, single.snapshots[0].label) == 3        # a single snapshot keeps [noise].seed
     out = tmp_path / "out"
     run_job(series)
     # the observed SED of each snapshot says what it was computed from; the model's says it is the model

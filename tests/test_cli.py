@@ -309,6 +309,8 @@ def test_disk_full_while_writing_is_reported_and_nothing_partial_left(tmp_path, 
 
 def test_writer_guard_refuses_paths_out_of_the_folder_behind_the_validator(tmp_path, monkeypatch):
     """Defence in depth: names changed after validation are still refused where the paths are made."""
+    from dataclasses import replace
+
     import rtrace.run.engine
     from rtrace.errors import OutputError
     from rtrace.run.job import load_job
@@ -316,10 +318,11 @@ def test_writer_guard_refuses_paths_out_of_the_folder_behind_the_validator(tmp_p
     monkeypatch.setattr(rtrace.run.engine.Engine, "trace", lambda *a, **k: pytest.fail("traced before the check"))
     for change in ({"name": "../escape"}, {"name": str(tmp_path / "abs")}, {"prefix": "../../X_"}):
         job = load_job(write(tmp_path, SMALL))
+        # the Job is frozen: a changed copy stands for a name changed after validation
         if "name" in change:
-            job.views[0]["name"] = change["name"]
+            job = replace(job, views=(replace(job.views[0], name=change["name"]),) + job.views[1:])
         else:
-            job.output["prefix"] = change["prefix"]
+            job = replace(job, output=replace(job.output, prefix=change["prefix"]))
         with pytest.raises(OutputError, match="outside the output folder"):
             run(job)
         assert sorted(p.name for p in tmp_path.iterdir()) == ["job.toml", "out"]

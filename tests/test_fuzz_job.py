@@ -311,13 +311,13 @@ def _files(root):
 def test_base_job_is_valid(folder):
     """The cases differ from a valid job by one change only."""
     job = parse_job(copy.deepcopy(BASE), base_dir=folder)
-    assert job.views[0]["name"] == "a" and job.output["prefix"] == "run1_"
+    assert job.views[0].name == "a" and job.output.prefix == "run1_"
     (folder / "job.toml").write_text(to_toml(BASE))
-    assert load_job(folder / "job.toml").views[0]["npix"] == 8
-    assert parse_job(edit(**HE), base_dir=folder).snapshot["kind"] == "hdf5"
-    assert parse_job(ionization(model="full"), base_dir=folder).ionization["model"] == "full"
-    assert parse_job(study("synthesis"), base_dir=folder).synthesis["views"] == ["a"]
-    assert parse_job(study("comparison"), base_dir=folder).comparison["views"] == ["a"]
+    assert load_job(folder / "job.toml").views[0].npix == 8
+    assert parse_job(edit(**HE), base_dir=folder).snapshot.kind == "hdf5"
+    assert parse_job(ionization(model="full"), base_dir=folder).ionization.model == "full"
+    assert parse_job(study("synthesis"), base_dir=folder).synthesis.views == ("a",)
+    assert parse_job(study("comparison"), base_dir=folder).comparison.views == ("a",)
 
 
 def test_case_count():
@@ -365,7 +365,7 @@ def test_non_utf8_message_names_the_file_and_offset(tmp_path):
 def test_byte_order_mark_is_accepted(tmp_path):
     path = tmp_path / "job.toml"
     path.write_bytes(b"\xef\xbb\xbf" + to_toml(BASE).encode())
-    assert load_job(path).views[0]["name"] == "a"
+    assert load_job(path).views[0].name == "a"
 
 
 # --- properties: the validator against independent statements of what is valid -------------------
@@ -400,7 +400,7 @@ def test_beam_accepted_iff_axes_finite_positive_and_ordered(tmp_path, major, min
     raw = edit(beam__major=f"{major!r} arcsec", beam__minor=f"{minor!r} arcsec", beam__pa=f"{pa!r} deg")
     valid = all(math.isfinite(v) for v in (major, minor, pa)) and 0 < minor <= major
     if valid:
-        assert parse_job(raw, base_dir=tmp_path).beam["major"].to_value(u.arcsec) == pytest.approx(major)
+        assert parse_job(raw, base_dir=tmp_path).beam.major.to_value(u.arcsec) == pytest.approx(major)
     else:
         with pytest.raises(ConfigError, match=r"\[beam\]\.(major|minor|pa)"):
             parse_job(raw, base_dir=tmp_path)
@@ -431,7 +431,7 @@ def test_npix_accepted_iff_positive_int_or_pair(tmp_path, npix):
     valid = positive_int(npix) or (isinstance(npix, list) and len(npix) == 2 and all(map(positive_int, npix)))
     raw = edit(view__npix=npix)
     if valid:
-        assert parse_job(raw, base_dir=tmp_path).views[0]["npix"] == npix
+        assert parse_job(raw, base_dir=tmp_path).views[0].as_dict()["npix"] == npix
     else:
         with pytest.raises(ConfigError, match=r"\[\[view\]\] #1\.npix"):
             parse_job(raw, base_dir=tmp_path)

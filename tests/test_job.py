@@ -8,6 +8,7 @@ from jobs import demo, job_text, view, write
 
 from rtrace.errors import ConfigError
 from rtrace.run.job import load_job, override_parallel, parse_job
+from rtrace.run.snapshot_sections import Member
 
 BASE = job_text(snapshot=demo(16), frequencies={"values": ["1 GHz", "5 GHz"]}, view=view("a", 16, "1 kpc"))
 
@@ -15,8 +16,8 @@ BASE = job_text(snapshot=demo(16), frequencies={"values": ["1 GHz", "5 GHz"]}, v
 def test_minimal_job_parses(tmp_path):
     job = load_job(write(tmp_path, BASE))
     assert job.frequencies.unit == u.Hz and len(job.frequencies) == 2
-    assert job.views[0]["distance"].unit == u.cm
-    assert job.output["directory"] == (tmp_path / "rtrace-output").resolve()
+    assert job.views[0].distance.unit == u.cm
+    assert job.output.directory == (tmp_path / "rtrace-output").resolve()
 
 
 @pytest.mark.parametrize("patch,message", [
@@ -84,8 +85,8 @@ def test_frequency_count_and_spectral_axis_checked(tmp_path):
                            ('start = "1 GHz"\nstop = "2 GHz"\nnum = 1', r"\[frequencies\].num: one frequency")]:
         with pytest.raises(ConfigError, match=message):
             load_job(write(tmp_path, BASE.replace('values = ["1 GHz", "5 GHz"]', lines)))
-    assert load_job(write(tmp_path, BASE)).output["spectral_axis"] == "auto"
-    assert load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "tabular"\n')).output["spectral_axis"] == \
+    assert load_job(write(tmp_path, BASE)).output.spectral_axis == "auto"
+    assert load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "tabular"\n')).output.spectral_axis == \
         "tabular"
     with pytest.raises(ConfigError, match=r"\[output\].spectral_axis: 'log' is not 'auto' .* or 'tabular'"):
         load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "log"\n'))
@@ -157,12 +158,12 @@ def test_pattern_is_sorted_and_relative_to_the_job_file(tmp_path):
     touch_files(tmp_path, "run/snap_0020.h5", "run/snap_0003.h5", "run/snap_0010.h5", "run/other.h5")
     job = load_job(write(tmp_path, HDF5.format(source='pattern = "run/snap_*.h5"')))
     assert job.series
-    assert [m["label"] for m in job.snapshots] == ["snap_0003", "snap_0010", "snap_0020"]
-    assert job.snapshots[0]["path"] == (tmp_path / "run/snap_0003.h5").resolve()
+    assert [m.label for m in job.snapshots] == ["snap_0003", "snap_0010", "snap_0020"]
+    assert job.snapshots[0].path == (tmp_path / "run/snap_0003.h5").resolve()
     job = load_job(write(tmp_path, HDF5.format(source='paths = ["run/snap_0010.h5", "run/other.h5"]')))
-    assert [m["label"] for m in job.snapshots] == ["snap_0010", "other"]        # the order given
+    assert [m.label for m in job.snapshots] == ["snap_0010", "other"]        # the order given
     job = load_job(write(tmp_path, HDF5.format(source='path = "run/other.h5"')))
-    assert not job.series and job.snapshots == [{"label": "other", "path": (tmp_path / "run/other.h5").resolve()}]
+    assert not job.series and job.snapshots == (Member("other", path=(tmp_path / "run/other.h5").resolve()),)
 
 
 @pytest.mark.parametrize("source,message", [
@@ -196,9 +197,9 @@ def test_demo_series_errors(tmp_path, patch, message):
 
 def test_demo_seeds_make_a_series(tmp_path):
     job = load_job(write(tmp_path, BASE.replace("cells = 16", "cells = 16\nseeds = [4, 2]")))
-    assert job.series and job.snapshots == [{"label": "seed4", "seed": 4}, {"label": "seed2", "seed": 2}]
+    assert job.series and job.snapshots == (Member("seed4", seed=4), Member("seed2", seed=2))
     single = load_job(write(tmp_path, BASE))
-    assert not single.series and single.parallel == {}
+    assert not single.series and single.parallel.as_dict() == {}
 
 
 @pytest.mark.parametrize("table,message", [
@@ -222,12 +223,15 @@ def test_parallel_errors(tmp_path, table, message):
 
 def test_parallel_settings_and_overrides(tmp_path):
     job = load_job(write(tmp_path, BASE + '\n[parallel]\nscheduler = "tls://10.0.0.5:8786"\nmax_memory = "2 GiB"\n'))
-    assert job.parallel == {"scheduler": "tls://10.0.0.5:8786", "max_memory": 2 * 1024**3}
-    assert load_job(write(tmp_path, BASE + '\n[parallel]\nscheduler = "tcp://[::1]:8786"\n')).parallel
-    override_parallel(job, workers=3)
-    assert job.parallel == {"workers": 3, "max_memory": 2 * 1024**3}
-    override_parallel(job, scheduler="tcp://node7:8786")
-    assert job.parallel == {"scheduler": "tcp://node7:8786", "max_memory": 2 * 1024**3}
+    assert job.parallel.as_dict() == {"scheduler": "tls://10.0.0.5:8786", "max_memory": 2 * 1024**3}
+    assert load_job(write(tmp_path, BASE + '\n[parallel]\nscheduler = "tcp://[::1]:8786"\n')).parallel.cluster
+    # the Job is frozen: an override returns a new Job and leaves the loaded one as it was
+    local = override_parallel(job, workers=3)
+    assert local.parallel.as_dict() == {"workers": 3, "max_memory": 2 * 1024**3}
+    assert job.parallel.as_dict() == {"scheduler": "tls://10.0.0.5:8786", "max_memory": 2 * 1024**3}
+    remote = override_parallel(local, scheduler="tcp://node7:8786")
+    assert remote.parallel.as_dict() == {"scheduler": "tcp://node7:8786", "max_memory": 2 * 1024**3}
+    assert override_parallel(job) is job
     with pytest.raises(ConfigError, match="--workers: expected a positive number of workers, got -1"):
         override_parallel(job, workers=-1)
     with pytest.raises(ConfigError, match="--scheduler: 'node7' is not a scheduler address"):
@@ -240,21 +244,21 @@ def test_background_temperature_is_read_for_the_tracer(tmp_path):
 
     from rtrace.transfer.background import background_from_spec
     job = load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "20 K"\n'))
-    assert job.trace["background"] == 20 * u.K
+    assert job.trace.background == 20 * u.K
     nu = job.frequencies.to_value(u.Hz)
-    intensity, info = background_from_spec(job.trace["background"], nu)
+    intensity, info = background_from_spec(job.trace.background, nu)
     # Planck's law as astropy implements it (astropy.modeling.physical_models.BlackBody)
     expected = BlackBody(temperature=20 * u.K)(nu * u.Hz).to_value(u.erg / (u.s * u.cm**2 * u.Hz * u.sr))
     assert intensity == pytest.approx(expected, rel=1e-10)
     assert info.kind == "blackbody" and info.temperature == 20.0
-    assert "background" not in load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "none"\n')).trace
-    assert load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "CMB"\n')).trace["background"] == "cmb"
+    assert load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "none"\n')).trace.background is None
+    assert load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "CMB"\n')).trace.background == "cmb"
 
 
 def test_plain_names_with_dots_and_dashes_are_accepted(tmp_path):
     text = BASE.replace('name = "a"', 'name = "face-on_v2.1"') + '\n[output]\nprefix = "run-3."\n'
     job = load_job(write(tmp_path, text))
-    assert job.views[0]["name"] == "face-on_v2.1" and job.output["prefix"] == "run-3."
+    assert job.views[0].name == "face-on_v2.1" and job.output.prefix == "run-3."
 
 
 def test_duplicate_frequencies_are_named(tmp_path):

@@ -54,17 +54,18 @@ def fingerprint(job, member):
     InputError
         If the snapshot file cannot be read.
     """
-    if job.snapshot["kind"] == "demo":
-        return {"demo_seed": member.get("seed", job.snapshot.get("seed", DEMO_SEED))}
-    path = Path(member["path"])
+    if job.snapshot.kind == "demo":
+        seed = member.seed if member.seed is not None else job.snapshot.seed
+        return {"demo_seed": DEMO_SEED if seed is None else seed}
+    path = Path(member.path)
     try:
-        if path.is_dir() and job.snapshot["kind"] == "yt":
+        if path.is_dir() and job.snapshot.kind == "yt":
             return {"folder": path.name, "files": _stat_digest((p for p in path.rglob("*") if p.is_file()), path)}
         if not path.is_file():          # a pipe or device would block or never end: not a snapshot file
             raise InputError(f"[snapshot] path: '{path}' is not a regular file (or does not exist); "
                              f"it cannot be read to identify its data")
         source = snapshot_identity(path)
-        if job.snapshot["kind"] == "yt":
+        if job.snapshot.kind == "yt":
             companions = [p for p in path.parent.glob(f"{glob_escape(path.stem)}.*") if p != path and p.is_file()]
             if companions:
                 source["companions"] = _stat_digest(companions, path.parent)
@@ -86,18 +87,22 @@ def _stat_digest(paths, root):
 def unit_inputs(job, member, spec, source=None):
     """The job settings and data every output of one (snapshot, view) depends on.
 
-    ``source`` is the member's :func:`fingerprint`, computed here when not given.
+    ``source`` is the member's :func:`fingerprint`, computed here when not given; ``spec`` is the
+    view's `~rtrace.run.sections.ViewSection`. Sections enter as their ``as_dict()``, the form the
+    manifest hashes (it must not change for the same job file, or resumed runs redo their work).
     """
     from .._version import __version__
-    shared = {k: v for k, v in job.snapshot.items() if k not in _MEMBER_KEYS}
+    shared = {k: v for k, v in job.snapshot.as_dict().items() if k not in _MEMBER_KEYS}
     return {"rtrace": __version__, "snapshot": shared,
             "source": fingerprint(job, member) if source is None else source,
-            "ionization": job.ionization, "frequencies": job.frequencies, "trace": job.trace, "view": spec}
+            "ionization": job.ionization.as_dict(), "frequencies": job.frequencies,
+            "trace": job.trace.as_dict(), "view": spec.as_dict()}
 
 
 def observing_settings(job):
     """The settings only observed products depend on."""
-    return {"beam": job.beam, "noise": job.noise}
+    return {"beam": {} if job.beam is None else job.beam.as_dict(),
+            "noise": {} if job.noise is None else job.noise.as_dict()}
 
 
 def output_key(base, product, observing=None, limits=None):
@@ -116,7 +121,7 @@ def output_key(base, product, observing=None, limits=None):
 class Unit:
     """One snapshot seen through one view."""
 
-    member: dict
+    member: object                    # a rtrace.run.snapshot_sections.Member
     name: str
     view: object
     folder: Path
@@ -127,7 +132,7 @@ class Unit:
     @property
     def label(self):
         """``"<snapshot label>/<view name>"``, for messages."""
-        return f"{self.member['label']}/{self.name}"
+        return f"{self.member.label}/{self.name}"
 
 
 def plan_units(job, views, directory):
@@ -136,15 +141,15 @@ def plan_units(job, views, directory):
     ``views`` is ``[(name, View)]`` as `rtrace.run.job.build_views` gives them;
     a series puts each snapshot's outputs in a folder named by its label.
     """
-    specs = {spec["name"]: spec for spec in job.views}
+    specs = {spec.name: spec for spec in job.views}
     obs = observing_settings(job)
     units = []
     for member in job_members(job):
         source = fingerprint(job, member)          # read once per snapshot, not once per view
         for name, view in views:
             base = unit_inputs(job, member, specs[name], source)
-            where = f"{member['label']} / view '{name}'" if job.series else f"view '{name}'"
-            folder = directory / member["label"] if job.series else directory
+            where = f"{member.label} / view '{name}'" if job.series else f"view '{name}'"
+            folder = directory / member.label if job.series else directory
             units.append(Unit(member, name, view, folder, base, output_key(base, "images", obs), where))
     return units
 
@@ -185,12 +190,12 @@ class Snapshots:
 
     def get(self, member, step, total):
         """The snapshot of series member ``member``, built (and announced as step ``step`` of ``total``) if new."""
-        if self.label != member["label"]:
+        if self.label != member.label:
             self.snap = None                 # release the previous snapshot before reading the next
-            where = f"snapshot '{member['label']}'" if self.job.series else "the snapshot"
+            where = f"snapshot '{member.label}'" if self.job.series else "the snapshot"
             self.say(step, total, f"building {where}")
             self.snap = build_snapshot(self.job, member)
-            self.label = member["label"]
+            self.label = member.label
         return self.snap
 
     def release(self):

@@ -30,7 +30,7 @@ def noise_seed(job, label=None):
     own noise (differences between snapshots would otherwise show the noise as persistent structure)
     and a rerun gets the same noise again. None (a fresh draw) when the job gives no seed.
     """
-    seed = job.noise.get("seed") if job.noise else None
+    seed = job.noise.seed if job.noise is not None else None
     if seed is None or label is None or not job.series:
         return seed
     label_key = zlib.crc32(str(label).encode("utf-8"))
@@ -40,17 +40,18 @@ def noise_seed(job, label=None):
 def _job_beam(job):
     import radio_beam
     b = job.beam
-    return radio_beam.Beam(major=b["major"], minor=b.get("minor", b["major"]), pa=b.get("pa", 0 * u.deg))
+    return radio_beam.Beam(major=b.major, minor=b.major if b.minor is None else b.minor,
+                           pa=0 * u.deg if b.pa is None else b.pa)
 
 
 def _observe(res, job, label=None):
     beam = _job_beam(job)
     b = job.beam
-    noise = job.noise.get("rms") if job.noise else None
+    noise = job.noise.rms if job.noise is not None else None
     kw = {}
-    if b.get("scaling", "none") != "none":
-        kw = {"beam_scaling": b["scaling"], "reference_frequency": b.get("reference_frequency")}
-    budget = job.parallel.get("max_memory")        # bytes (an int)
+    if b.frequency_scaling is not None:
+        kw = {"beam_scaling": b.frequency_scaling, "reference_frequency": b.reference_frequency}
+    budget = job.parallel.max_memory        # bytes (an int)
     return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label),
                        max_memory=None if budget is None else budget * u.byte, **kw)
 
@@ -63,33 +64,33 @@ def _check_view(job, name, view, pixel_cm):
     nu = job.frequencies.to_value(u.Hz)
     ny, nx = view.shape
     where = f"[[view]] '{name}' npix"
-    budget = job.parallel.get("max_memory")
+    budget = job.parallel.max_memory
     images = trace_image_bytes(len(nu), ny * nx)
     check_memory(images, field=where, budget=budget,
                  what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
                  hint="use a smaller npix or fewer frequencies")
-    supersample = int(job.trace.get("supersample", 1))
-    if view.los_axis() is None and job.snapshot.get("kind") == "demo":
+    supersample = int(job.trace.supersample or 1)
+    if view.los_axis() is None and job.snapshot.kind == "demo":
         # an oblique view's lattice has at least (cells x supersample)^2 rays (tracer._ObliqueRoute);
         # the grid of other kinds is known once read, and the tracer checks it then, before tracing
-        rays = (int(job.snapshot.get("cells", 64)) * supersample) ** 2
+        rays = (int(job.snapshot.cells or 64) * supersample) ** 2
         need = trace_ray_bytes(len(nu), rays)
         check_memory(need, field="[trace].supersample" if supersample > 1 else where, budget=budget,
                      what=f"view '{name}': a lattice of at least {rays} rays ({supersample} per cell) at "
                           f"{len(nu)} frequencies",
                      hint="use a smaller supersample" if supersample > 1 else "use a smaller npix")
-    if job.beam and pixel_cm is not None:
+    if job.beam is not None and pixel_cm is not None:
         b = job.beam
-        ref = b.get("reference_frequency")
-        scaling = None if b.get("scaling", "none") == "none" else b["scaling"]
+        ref = b.reference_frequency
+        scaling = b.frequency_scaling
         beams = beams_for_frequencies(_job_beam(job), nu, scaling, None if ref is None else ref.to_value(u.Hz))
         pixel_scale = (pixel_cm / view.distance.to_value(u.cm)) * u.rad
-        check_observation(beams, pixel_scale, (ny, nx), nu, noise=bool(job.noise), max_memory=budget,
+        check_observation(beams, pixel_scale, (ny, nx), nu, noise=job.noise is not None, max_memory=budget,
                           beam_field="[beam].major", image_field=where)
     cmp = job.comparison
-    if cmp and pixel_cm is not None and name in cmp.get("views", ()):
+    if cmp is not None and pixel_cm is not None and name in cmp.views:
         # the observed beam is laid on the model's own grid before it is reprojected
-        obs = cmp["kwargs"]["observation"]
+        obs = cmp.observation
         field = ("[comparison].beam" if obs.beam_source != "BMAJ/BMIN/BPA"
                  else f"[comparison].observation ({obs.source}) BMAJ")
         check_observation([obs.beam], (pixel_cm / view.distance.to_value(u.cm)) * u.rad, (ny, nx),
@@ -118,9 +119,9 @@ def parallel_keywords(job):
     """The keywords of `rtrace.trace` that ``[parallel]`` sets: ``client`` (a cluster), ``max_memory``."""
     par = job.parallel
     wanted = []
-    if "scheduler" in par or "workers" in par:
+    if par.cluster:
         wanted.append("client")
-    if "max_memory" in par:
+    if par.max_memory is not None:
         wanted.append("max_memory")
     return tuple(wanted)
 
@@ -139,14 +140,14 @@ class Engine:
             # imported here: dask is needed only by jobs that ask for a cluster
             from dask.distributed import Client, LocalCluster
             par = self.job.parallel
-            if "scheduler" in par:
+            if par.scheduler is not None:
                 try:
-                    self._client = Client(par["scheduler"])
+                    self._client = Client(par.scheduler)
                 except (OSError, TimeoutError) as exc:
-                    raise ConfigError(f"[parallel].scheduler: cannot connect to {par['scheduler']}: "
+                    raise ConfigError(f"[parallel].scheduler: cannot connect to {par.scheduler}: "
                                       f"{exc}") from None
             else:
-                self._cluster = LocalCluster(n_workers=par["workers"], threads_per_worker=1)
+                self._cluster = LocalCluster(n_workers=par.workers, threads_per_worker=1)
                 self._client = Client(self._cluster)
         return self._client
 
@@ -157,8 +158,8 @@ class Engine:
         if "client" in self.keywords:
             kw["client"] = self._get_client()
         if "max_memory" in self.keywords:
-            kw["max_memory"] = job.parallel["max_memory"] * u.byte
-        if job.beam or job.comparison:
+            kw["max_memory"] = job.parallel.max_memory * u.byte
+        if job.beam is not None or job.comparison is not None:
             # the view's extent is known now: a beam wider than the image, or a kernel that
             # cannot fit, is refused before tracing
             with warnings.catch_warnings():
@@ -168,11 +169,11 @@ class Engine:
                 except InputError as exc:
                     raise ConfigError(str(exc)) from None
         t0 = time.perf_counter()
-        res = trace(snap, view, job.frequencies, background=job.trace.get("background"),
-                    supersample=job.trace.get("supersample"),
-                    tolerance=job.trace.get("tolerance", DEFAULT_TOLERANCE), **kw)
+        tolerance = DEFAULT_TOLERANCE if job.trace.tolerance is None else job.trace.tolerance
+        res = trace(snap, view, job.frequencies, background=job.trace.background,
+                    supersample=job.trace.supersample, tolerance=tolerance, **kw)
         res.provenance["trace_seconds"] = f"{time.perf_counter() - t0:.2f}"
-        if job.beam:
+        if job.beam is not None:
             sky = _observe(res, job, label)               # warns itself when emission reaches the edge
         else:
             sky = None

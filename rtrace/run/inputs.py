@@ -11,17 +11,21 @@ from pathlib import Path
 import astropy.units as u
 
 from ..demo import DEMO_SEED
-from ..physics.ionization import DEFAULT_MODEL
 from ..physics.ionization.cells import THERMAL_INPUTS
+from .snapshot_sections import Member
 
 __all__ = ["build_snapshot", "job_members", "ionization_model", "check_ionization", "check_datasets"]
 
 
+def _or(value, default):
+    return default if value is None else value
+
+
 def _composition(ion):
     from ..physics.ionization import DEFAULT_HELIUM_MASS_FRACTION, DEFAULT_HYDROGEN_MASS_FRACTION, Composition
-    if "hydrogen_mass_fraction" in ion or "helium_mass_fraction" in ion:
-        return Composition(hydrogen=ion.get("hydrogen_mass_fraction", DEFAULT_HYDROGEN_MASS_FRACTION),
-                           helium=ion.get("helium_mass_fraction", DEFAULT_HELIUM_MASS_FRACTION))
+    if ion.hydrogen_mass_fraction is not None or ion.helium_mass_fraction is not None:
+        return Composition(hydrogen=_or(ion.hydrogen_mass_fraction, DEFAULT_HYDROGEN_MASS_FRACTION),
+                           helium=_or(ion.helium_mass_fraction, DEFAULT_HELIUM_MASS_FRACTION))
     return None
 
 
@@ -41,25 +45,25 @@ def ionization_model(job):
     )
     ion = job.ionization
     comp = _composition(ion)
-    model = ion.get("model", DEFAULT_MODEL)
+    model = ion.model_name
     if model == "threshold":
-        kw = {} if "threshold" not in ion else {"threshold": ion["threshold"]}
-        return TemperatureThreshold(composition=comp, helium=ion.get("helium", "single"), **kw)
+        kw = {} if ion.threshold is None else {"threshold": ion.threshold}
+        return TemperatureThreshold(composition=comp, helium=_or(ion.helium, "single"), **kw)
     if model == "supplied":
-        return SuppliedFraction(ion["fraction"], composition=comp, helium=ion.get("helium"),
-                                helium_ii=ion.get("helium_ii"), helium_iii=ion.get("helium_iii"))
+        return SuppliedFraction(ion.fraction, composition=comp, helium=ion.helium,
+                                helium_ii=ion.helium_ii, helium_iii=ion.helium_iii)
     if model == "sources":
-        sources = ion["sources"]
-        return IonizingSources(positions=u.Quantity([s["position"].to(u.cm) for s in sources]),
-                               rates=u.Quantity([s["rate"].to(u.s**-1) for s in sources]), composition=comp,
-                               ionized_temperature=ion.get("ionized_temperature"), helium=ion.get("helium", "single"),
-                               allow_outside=ion.get("allow_outside", False),
-                               rays_per_cell=ion.get("rays_per_cell", 4.0))
+        sources = ion.sources
+        return IonizingSources(positions=u.Quantity([s.position.to(u.cm) for s in sources]),
+                               rates=u.Quantity([s.rate.to(u.s**-1) for s in sources]), composition=comp,
+                               ionized_temperature=ion.ionized_temperature, helium=_or(ion.helium, "single"),
+                               allow_outside=_or(ion.allow_outside, False),
+                               rays_per_cell=_or(ion.rays_per_cell, 4.0))
     if model == "saha":
         return SahaEquilibrium(comp)
     if model == "collisional":
-        return CollisionalEquilibrium(comp, case=ion.get("case", "A"))
-    return FullyIonized(comp, helium=ion.get("helium", "single"))
+        return CollisionalEquilibrium(comp, case=_or(ion.case, "A"))
+    return FullyIonized(comp, helium=_or(ion.helium, "single"))
 
 
 # [snapshot] keys that name fields, and those read_hdf5 takes as they are.
@@ -80,44 +84,43 @@ def check_ionization(job):
     from ..errors import ConfigError, InputError
     from ..io.hdf5 import _subvolume, file_geometry, open_file
     from ..snapshot import _vector3
-    if "density" not in job.snapshot:
+    if job.snapshot.density is None:
         return
     try:
         model = ionization_model(job)
     except InputError as exc:
         raise ConfigError(f"[ionization]: {exc}") from None
-    if job.ionization.get("model") != "sources" or job.snapshot["kind"] != "hdf5":
+    if job.ionization.model != "sources" or job.snapshot.kind != "hdf5":
         return
     snap = job.snapshot
-    thermal = next(k for k in THERMAL_INPUTS if k in snap)
+    thermal = getattr(snap, snap.thermal_input)
     for member in job_members(job):
         try:
-            with open_file(member["path"]) as handle:
-                if snap[thermal] not in handle:
+            with open_file(member.path) as handle:
+                if thermal not in handle:
                     return                      # the reader names the missing dataset
-                shape = handle[snap[thermal]].shape
-                cell_size, origin = file_geometry(handle, snap.get("cell_size"), snap.get("origin"),
-                                                  member["path"])
+                shape = handle[thermal].shape
+                cell_size, origin = file_geometry(handle, snap.cell_size, snap.origin, member.path)
             cell = _vector3(cell_size, "cell_size", u.cm)
             org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
-            if "subvolume" in snap:
-                slices, starts = _subvolume(tuple(tuple(p) for p in snap["subvolume"]), shape)
+            if snap.subvolume is not None:
+                slices, starts = _subvolume(tuple(tuple(p) for p in snap.subvolume), shape)
                 shape = tuple(sl.stop - sl.start for sl in slices)
                 org = org + starts * cell
             model.check_geometry(shape, cell, org)
         except InputError as exc:
-            raise ConfigError(f"[ionization].sources: {exc} (snapshot '{member['path']}')") from None
+            raise ConfigError(f"[ionization].sources: {exc} (snapshot '{member.path}')") from None
 
 
 def _job_key(job, message):
     """``"[snapshot].temperature: ..."`` from a reader's ``"temperature: ..."`` (the key the job wrote)."""
     from ..io.hdf5 import MODEL_FIELD
     param, sep, rest = message.partition(": ")
-    if sep and param in job.snapshot:
+    if sep and param in job.snapshot.as_dict():
         return f"[snapshot].{param}: {rest}"
     if sep and param.startswith(MODEL_FIELD):
         name = param[len(MODEL_FIELD):]
-        keys = [k for k in ("fraction", "helium_ii", "helium_iii") if job.ionization.get(k) == name]
+        keys = [k for k in ("fraction", "helium_ii", "helium_iii") if getattr(job.ionization, k) == name]
         return f"[ionization].{keys[0] if keys else 'fraction'}: {rest}"
     return f"[snapshot]: {message}"
 
@@ -140,21 +143,21 @@ def check_datasets(job):
     from ..io.hdf5 import _subvolume, checked_names, file_geometry, open_fields, open_file, wanted_fields
 
     snap = job.snapshot
-    if snap["kind"] != "hdf5":
+    if snap.kind != "hdf5":
         return
-    model = ionization_model(job) if "density" in snap else None
-    kw = {k: snap.get(k) for k in _FIELD_KEYS}
+    model = ionization_model(job) if snap.density is not None else None
+    kw = {k: getattr(snap, k) for k in _FIELD_KEYS}
     for member in job_members(job):
         try:
             wanted, _ = wanted_fields(**kw, ionization=model, composition=None, helium=None)
-            wanted = checked_names(wanted, snap.get("units") or {})
-            with open_file(member["path"]) as handle:
-                _, shape, _ = open_fields(handle, wanted, snap.get("units") or {}, member["path"])
-                file_geometry(handle, snap.get("cell_size"), snap.get("origin"), member["path"])
-            if "subvolume" in snap:
-                _subvolume(tuple(tuple(p) for p in snap["subvolume"]), shape)
+            wanted = checked_names(wanted, snap.units or {})
+            with open_file(member.path) as handle:
+                _, shape, _ = open_fields(handle, wanted, snap.units or {}, member.path)
+                file_geometry(handle, snap.cell_size, snap.origin, member.path)
+            if snap.subvolume is not None:
+                _subvolume(tuple(tuple(p) for p in snap.subvolume), shape)
         except InputError as exc:
-            raise ConfigError(f"{_job_key(job, str(exc))} (snapshot '{member['path']}')") from None
+            raise ConfigError(f"{_job_key(job, str(exc))} (snapshot '{member.path}')") from None
 
 
 def job_members(job):
@@ -162,9 +165,9 @@ def job_members(job):
     if job.snapshots:
         return job.snapshots
     snap = job.snapshot
-    if snap["kind"] == "demo":
-        return [{"label": "demo", "seed": snap.get("seed", DEMO_SEED)}]
-    return [{"label": Path(snap["path"]).stem, "path": Path(snap["path"])}]
+    if snap.kind == "demo":
+        return (Member("demo", seed=_or(snap.seed, DEMO_SEED)),)
+    return (Member(Path(snap.path).stem, path=Path(snap.path)),)
 
 
 def build_snapshot(job, member=None):
@@ -173,7 +176,7 @@ def build_snapshot(job, member=None):
     Parameters
     ----------
     job : `~rtrace.run.job.Job`
-    member : dict, optional
+    member : `~rtrace.run.snapshot_sections.Member`, optional
         An entry of ``job.snapshots``; default the first.
 
     Returns
@@ -182,18 +185,18 @@ def build_snapshot(job, member=None):
     """
     snap = job.snapshot
     member = member or job_members(job)[0]
-    if snap["kind"] == "demo":
+    if snap.kind == "demo":
         from ..demo import scenario
-        return scenario(n=snap.get("cells", 64), seed=member.get("seed", snap.get("seed", DEMO_SEED)))
-    if snap["kind"] == "yt":
+        return scenario(n=_or(snap.cells, 64), seed=_or(member.seed, _or(snap.seed, DEMO_SEED)))
+    if snap.kind == "yt":
         return _from_yt(job, snap, member)
     from ..io.hdf5 import read_hdf5
-    kw = {k: snap[k] for k in _HDF5_KEYS if k in snap}
-    if "subvolume" in snap:
-        kw["subvolume"] = tuple(tuple(p) for p in snap["subvolume"])
-    if "density" in snap:
+    kw = {k: getattr(snap, k) for k in _HDF5_KEYS if getattr(snap, k) is not None}
+    if snap.subvolume is not None:
+        kw["subvolume"] = tuple(tuple(p) for p in snap.subvolume)
+    if snap.density is not None:
         kw["ionization"] = ionization_model(job)
-    return read_hdf5(member["path"], **kw)
+    return read_hdf5(member.path, **kw)
 
 
 def _yt_field(name):
@@ -203,9 +206,9 @@ def _yt_field(name):
 
 def _from_yt(job, snap, member):
     from ..snapshot import Snapshot
-    kw = {k: _yt_field(snap[k]) for k in _FIELD_KEYS if k in snap}
-    if "gamma" in snap:
-        kw["gamma"] = snap["gamma"]
-    if "density" in snap:
+    kw = {k: _yt_field(getattr(snap, k)) for k in _FIELD_KEYS if getattr(snap, k) is not None}
+    if snap.gamma is not None:
+        kw["gamma"] = snap.gamma
+    if snap.density is not None:
         kw["ionization"] = ionization_model(job)
-    return Snapshot.from_yt(str(member["path"]), level=snap.get("level"), **kw)
+    return Snapshot.from_yt(str(member.path), level=snap.level, **kw)

@@ -140,12 +140,12 @@ def run(job, progress=None, restart=False):
     """
     say = progress or (lambda step, total, message: None)
     out = job.output
-    quantities = out.get("quantities", list(QUANTITIES))
-    fmt = out.get("picture_format", "png")
-    pictures = out.get("pictures", True)
+    quantities = list(QUANTITIES) if out.quantities is None else list(out.quantities)
+    fmt = out.picture_format
+    pictures = out.pictures
     keywords = parallel_keywords(job)
     views = build_views(job)
-    directory = out["directory"]
+    directory = out.directory
     check_writable(directory, "[output].directory")    # read-only, no permission, a file: before any work
     check_job_copy(job, directory)                 # never overwrite a job.toml rtrace did not write
     later = job.series and pictures           # series pictures wait for the whole series' ranges
@@ -180,7 +180,7 @@ def run(job, progress=None, restart=False):
                 snap = snapshots.get(unit.member, step, total)
             say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies")
             with _compiling(say, step, total):
-                res, sky = engine.trace(snap, unit.view, unit.member["label"], unit.name)
+                res, sky = engine.trace(snap, unit.view, unit.member.label, unit.name)
             if todo:
                 say(step, total, f"{unit.where}: writing {len(todo)} outputs")
             with _compiling(say, step, total):
@@ -208,7 +208,7 @@ def run(job, progress=None, restart=False):
                     say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies again "
                                      f"for its pictures")
                     with _compiling(say, step, total):
-                        cached = engine.trace(snap, unit.view, unit.member["label"], unit.name)
+                        cached = engine.trace(snap, unit.view, unit.member.label, unit.name)
                 say(step, total, f"{unit.where}: drawing {len(todo)} pictures on the series' colour scales")
                 with _compiling(say, step, total):
                     make(todo, *cached, manifest, written)

@@ -81,7 +81,7 @@ def _write_sky(path, res, sky, spectral_axis="auto"):
 def _cube_files(job, path, frequencies=True):
     """The files a cube output writes: one, or one per plane for an irregular frequency list."""
     from ..io.fits import output_paths
-    return output_paths(path, job.frequencies if frequencies else None, job.output.get("spectral_axis", "auto"))
+    return output_paths(path, job.frequencies if frequencies else None, job.output.spectral_axis)
 
 
 def _write_sed(path, res, sky, name, observed):
@@ -132,32 +132,32 @@ def _close(fig):
 def _stem(job, unit, suffix):
     """``<folder>/<prefix><view>_<suffix>``, refused (OutputError) unless it lies inside the output folder."""
     from ..io.outdir import check_inside
-    path = unit.folder / f"{job.output.get('prefix', '')}{unit.name}_{suffix}"
-    label = f", snapshot label '{unit.member['label']}'" if job.series else ""
-    return check_inside(path, job.output["directory"], f"[output].prefix, [[view]].name '{unit.name}'{label}")
+    path = unit.folder / f"{job.output.prefix}{unit.name}_{suffix}"
+    label = f", snapshot label '{unit.member.label}'" if job.series else ""
+    return check_inside(path, job.output.directory, f"[output].prefix, [[view]].name '{unit.name}'{label}")
 
 
 def data_outputs(job, unit, quantities, fmt):
     """``(cubes, spectra)``: the FITS outputs and the SED outputs of one view (a `rtrace.run.batch.Unit`)."""
     out, obs = job.output, observing_settings(job)
     cubes, spectra = [], []
-    if out.get("fits", True):
-        axis = out.get("spectral_axis", "auto")
+    if out.fits:
+        axis = out.spectral_axis
         for q in quantities:
             path = _stem(job, unit, f"{q}.fits")
             cubes.append(Output(path, output_key(unit.base, f"fits:{q}"),
                                 partial(_write_quantity, quantity=q, spectral_axis=axis),
                                 _cube_files(job, path, q != "emission_measure")))
-        if job.beam:
+        if job.beam is not None:
             path = _stem(job, unit, "observed.fits")
             cubes.append(Output(path, output_key(unit.base, "fits:observed", obs),
                                 partial(_write_sky, spectral_axis=axis), _cube_files(job, path)))
-    if out.get("sed", True):
-        for observed in ((False, True) if job.beam else (False,)):
+    if out.sed:
+        for observed in ((False, True) if job.beam is not None else (False,)):
             stem, settings = ("observed_sed", obs) if observed else ("sed", None)
             spectra.append(Output(_stem(job, unit, f"{stem}.ecsv"), output_key(unit.base, f"{stem}:ecsv", settings),
                                   partial(_write_sed, name=unit.name, observed=observed)))
-            if out.get("pictures", True) and len(job.frequencies) > 1:
+            if out.pictures and len(job.frequencies) > 1:
                 spectra.append(Output(_stem(job, unit, f"{stem}.{fmt}"),
                                       output_key(unit.base, f"{stem}:{fmt}", settings),
                                       partial(_draw_sed, name=unit.name, observed=observed)))
@@ -169,7 +169,7 @@ def picture_outputs(job, unit, fmt, limits):
     obs = observing_settings(job)
     plan = []
     for stem, q, observed in PICTURES:
-        if (q in _MULTI_FREQUENCY and len(job.frequencies) < 2) or (observed and not job.beam):
+        if (q in _MULTI_FREQUENCY and len(job.frequencies) < 2) or (observed and job.beam is None):
             continue
         lim = None if limits is None else limits.get(stem)
         plan.append(Output(_stem(job, unit, f"{stem}.{fmt}"),

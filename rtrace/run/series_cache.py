@@ -210,7 +210,7 @@ class Cache:
         self.key = cache_key()
 
     def _file(self, unit):
-        return self.folder / unit.member["label"] / f"{unit.name}-{unit.data_key[:20]}.npz"
+        return self.folder / unit.member.label / f"{unit.name}-{unit.data_key[:20]}.npz"
 
     def _signature(self, digest):
         return hmac.new(self.key, digest.encode("ascii"), hashlib.sha256).hexdigest()

@@ -95,12 +95,12 @@ def _write_comparison_table(path, res, sky, once, apertures, name):
 
 def study_outputs(job, unit, fmt):
     """The ``[synthesis]`` and ``[comparison]`` outputs of one view (a `rtrace.run.batch.Unit`)."""
-    pictures = job.output.get("pictures", True)
+    pictures = job.output.pictures
     plan = []
     syn = job.synthesis
-    if syn and unit.name in syn["views"]:
-        once = _Once(partial(_synthesize, kwargs=syn["kwargs"]))
-        settings = {"synthesis": syn["key"]}
+    if syn is not None and unit.name in syn.views:
+        once = _Once(partial(_synthesize, kwargs=syn.kwargs))
+        settings = {"synthesis": syn.key}
         plan.append(Output(_stem(job, unit, "synthesized.fits"), output_key(unit.base, "synthesized:fits", settings),
                            partial(_write_synth_fits, once=once)))
         if pictures:
@@ -108,13 +108,13 @@ def study_outputs(job, unit, fmt):
                                output_key(unit.base, f"synthesized:{fmt}", settings),
                                partial(_draw_synth, once=once)))
     cmp = job.comparison
-    if cmp and unit.name in cmp["views"]:
-        once = _Once(partial(_compare, kwargs=cmp["kwargs"]))
-        settings = {"comparison": cmp["key"]}
+    if cmp is not None and unit.name in cmp.views:
+        once = _Once(partial(_compare, kwargs=cmp.kwargs))
+        settings = {"comparison": cmp.key}
         plan.append(Output(_stem(job, unit, "comparison.fits"), output_key(unit.base, "comparison:fits", settings),
                            partial(_write_comparison_fits, once=once)))
         plan.append(Output(_stem(job, unit, "comparison.ecsv"), output_key(unit.base, "comparison:ecsv", settings),
-                           partial(_write_comparison_table, once=once, apertures=cmp["apertures"], name=unit.name)))
+                           partial(_write_comparison_table, once=once, apertures=cmp.apertures, name=unit.name)))
         if pictures:
             plan.append(Output(_stem(job, unit, f"comparison.{fmt}"),
                                output_key(unit.base, f"comparison:{fmt}", settings),
