@@ -8,15 +8,11 @@ core -> snapshot and readers -> transfer -> result -> observe, analysis, compari
 -> plot -> run (jobs, planning, engine, products, colour scales, batch, manifest, demo) -> cli
 
 Package ``__init__`` modules re-export and are left out as importers (importing one counts as importing its
-package). The graph may hold no cycle and no upward import, with two lists of exceptions:
-
-- ``CONVENIENCES``: methods of a product object that hand it to a layer above (``Result.observe``,
-  ``Result.write_fits``, a cut's ``plot``), as a data object of a general analysis library offers its
-  plots. They are allowed for good, but only as imports inside a function body, so that loading a lower
-  layer never loads a higher one; each entry says which methods it serves.
-- ``KNOWN_UPWARD``: the ones left to remove (issue 16). The list may only shrink.
-
-An entry of either list that the code no longer has fails the test too, so that the lists stay true.
+package). The graph may hold no cycle and no upward import, except ``CONVENIENCES``: methods of a product
+object that hand it to a layer above (``Result.observe``, ``Result.write_fits``, ``Cut.plot``), as a data
+object of a general analysis library offers its plots. They are allowed for good, but only as imports inside
+a function body, so that loading a lower layer never loads a higher one; each entry says which methods it
+serves. An entry that the code no longer has fails the test too, so that the list stays true.
 """
 
 import ast
@@ -47,10 +43,6 @@ CONVENIENCES = {
     ("rtrace.transfer.result", "rtrace.io.fits"): "Result.write_fits",
     ("rtrace.analysis.cuts", "rtrace.plot.cuts"): "Cut.plot",
     ("rtrace.comparison.core", "rtrace.plot.comparison"): "Comparison.figure, Comparison.plot",
-}
-
-# (importer, imported): upward imports still to remove. Shrinks; never grows.
-KNOWN_UPWARD = {
 }
 
 
@@ -131,12 +123,12 @@ def test_imports_go_one_way():
                 upward.add((name, target))
             elif name == "rtrace.snapshot" and target.startswith("rtrace.io."):
                 upward.add((name, target))                 # the data model does not import its readers
-    allowed = KNOWN_UPWARD | set(CONVENIENCES)
+    allowed = set(CONVENIENCES)
     new = sorted(upward - allowed)
     gone = sorted(allowed - upward)
     eager = sorted(pair for pair in CONVENIENCES if pair in upward and not lazy[pair])
     assert not new, f"imports against the layering (a lower layer importing a higher one): {new}"
-    assert not gone, f"removed from the code, so remove them from CONVENIENCES / KNOWN_UPWARD too: {gone}"
+    assert not gone, f"removed from the code, so remove them from CONVENIENCES too: {gone}"
     assert not eager, f"convenience imports must sit inside the method that needs them: {eager}"
 
 
@@ -144,7 +136,7 @@ def test_no_import_cycles_beyond_the_known_ones():
     # Tarjan's strongly connected components (Tarjan 1972, SIAM J. Comput. 1, 146) on the graph without
     # package __init__ targets and without the listed upward imports: what is left must be acyclic
     mods = _modules()
-    allowed = KNOWN_UPWARD | set(CONVENIENCES)
+    allowed = set(CONVENIENCES)
     edges = {m: {t for t in ts if not mods[t][1] and (m, t) not in allowed}
              for m, ts in _imports(mods).items() if not mods[m][1]}
     index, low, stack, on_stack, cycles, counter = {}, {}, [], set(), [], [0]
