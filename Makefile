@@ -20,8 +20,9 @@ demo: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest -n 2 -q --cov=rtrace --cov-report=term
 
-# ruff's checks (configured in pyproject.toml)
+# ruff's formatting and checks (configured in pyproject.toml); `ruff format <paths>` fixes the first
 lint: $(STAMP)
+	$(BIN)/ruff format --check rtrace tests benchmarks examples tools docs
 	$(BIN)/ruff check rtrace tests benchmarks examples tools docs
 
 # the documentation (docs/_build/html): runs the examples for the gallery first; any warning fails it

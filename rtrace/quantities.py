@@ -6,7 +6,7 @@ import numpy as np
 from .errors import InputError
 
 __all__ = ["positive_scalar", "finite_number", "storage_dtype", "check_density_inputs", "parse_frequencies",
-           "JY_PER_BEAM", "jy_per_beam", "CellTally", "check_cells"]
+           "parse_vector3", "JY_PER_BEAM", "jy_per_beam", "CellTally", "check_cells"]
 
 #: The field types a snapshot stores (the kernels are compiled for these two).
 STORAGE_DTYPES = (np.dtype(np.float32), np.dtype(np.float64))
@@ -329,3 +329,15 @@ def check_cells(arr, name, lower=None, strict=False, upper=None, **kwargs):
     tally = CellTally(name, lower, strict, upper, **kwargs)
     tally.add(arr)
     tally.raise_if_bad()
+
+
+def parse_vector3(value, name, unit):
+    """A length given as a scalar or a 3-vector (any length unit) as a float64 ``(3,)`` array in ``unit``."""
+    q = u.Quantity(value)
+    if not q.unit.is_equivalent(unit):
+        raise InputError(f"{name}: expected a length, got unit '{q.unit}'")
+    vec = np.broadcast_to(np.asarray(q.to_value(unit), float), (3,)).copy() if q.ndim == 0 \
+        else np.asarray(q.to_value(unit), float).reshape(-1)
+    if vec.shape != (3,):
+        raise InputError(f"{name}: expected a scalar or a 3-vector, got shape {q.shape}")
+    return vec

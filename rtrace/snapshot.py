@@ -19,7 +19,7 @@ from .errors import InputError
 from .gas import derive_fields
 from .physics.constants import PC
 from .physics.freefree import check_temperature_range
-from .quantities import storage_dtype
+from .quantities import parse_vector3, storage_dtype
 
 __all__ = ["Snapshot", "ArraySource", "register_reader"]
 
@@ -35,17 +35,6 @@ def register_reader(name, reader):
 #: Provenance entries that ``describe`` shows, with their labels.
 _PROVENANCE_LINES = (("ionization_state", "state"), ("temperature", "T from"), ("ionizing_sources", "sources"),
                      ("photon_budget", "photons"))
-
-
-def _vector3(value, name, unit):
-    q = u.Quantity(value)
-    if not q.unit.is_equivalent(unit):
-        raise InputError(f"{name}: expected a length, got unit '{q.unit}'")
-    vec = np.broadcast_to(np.asarray(q.to_value(unit), float), (3,)).copy() if q.ndim == 0 \
-        else np.asarray(q.to_value(unit), float).reshape(-1)
-    if vec.shape != (3,):
-        raise InputError(f"{name}: expected a scalar or a 3-vector, got shape {q.shape}")
-    return vec
 
 
 def field_digest(arr):
@@ -197,10 +186,10 @@ class Snapshot(GridGeometry):
         dtype = storage_dtype(dtype)
         if cell_size is None:
             raise InputError("cell_size: required (a length, or three lengths)")
-        cell = _vector3(cell_size, "cell_size", u.cm)
+        cell = parse_vector3(cell_size, "cell_size", u.cm)
         if not np.all(np.isfinite(cell) & (cell > 0)):
             raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
-        org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+        org = np.zeros(3) if origin is None else parse_vector3(origin, "origin", u.cm)
         t, ne, ni, derived = derive_fields(
             cell, org, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
             density=density, pressure=pressure, internal_energy=internal_energy, gamma=gamma,

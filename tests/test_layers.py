@@ -167,3 +167,24 @@ def test_no_import_cycles_beyond_the_known_ones():
         if v not in index:
             strong(v)
     assert not cycles, f"import cycles: {cycles}"
+
+
+def test_no_module_takes_a_private_name_from_another_package():
+    # a leading underscore marks a name as its own package's business: another package that needs it gets a
+    # public name (as plot's internal API in rtrace/plot/core.py, or the parsers in rtrace/quantities.py)
+    found = []
+    for name, (path, init) in _modules().items():
+        package = name.split(".") if init else name.split(".")[:-1]
+        for node in ast.walk(ast.parse(path.read_text())):
+            if not isinstance(node, ast.ImportFrom):
+                continue
+            base = node.module or ""
+            if node.level:
+                base = ".".join(package[:len(package) - (node.level - 1)] + ([node.module] if node.module else []))
+            if not base.startswith("rtrace"):
+                continue
+            source_package = base if base in _modules() and _modules()[base][1] else base.rsplit(".", 1)[0]
+            private = [a.name for a in node.names if a.name.startswith("_") and not a.name.startswith("__")]
+            if private and source_package != ".".join(package):
+                found.append(f"{name}: {base} {private}")
+    assert not found, "private names imported across packages:\n" + "\n".join(found)

@@ -31,7 +31,7 @@ __all__ = ["tau_unity_depth", "contribution", "RayContribution", "pixel_rays"]
 
 
 def _snapshot_of(result):
-    snap = getattr(result, "_snapshot", None)
+    snap = getattr(result, "snapshot", None)
     if snap is None:
         raise InputError("result: this Result does not carry its snapshot (it was not made by rtrace.trace)")
     if getattr(snap, "is_amr", False):

@@ -49,17 +49,17 @@ THIN_SPECTRAL_INDEX = -0.1
 FREQUENCY_TOLERANCE = 0.01
 
 
-def _is_skymap(obj):
+def is_skymap(obj):
     """True for an image in Jy/beam (duck-typed: it has ``data`` and a beam)."""
     return hasattr(obj, "data") and (hasattr(obj, "beam") or hasattr(obj, "beams"))
 
 
-def _is_result(obj):
+def is_result(obj):
     return hasattr(obj, "intensity") and hasattr(obj, "tau") and hasattr(obj, "pixel_solid_angle")
 
 
 def _check_image(obj, name="obj"):
-    if not (_is_skymap(obj) or _is_result(obj)):
+    if not (is_skymap(obj) or is_result(obj)):
         raise InputError(f"{name}: expected an rtrace Result or SkyMap, got {type(obj).__name__}")
 
 
@@ -97,7 +97,7 @@ def _convention(obj, background):
     """The background convention asked for: a Result's default is subtracted, a SkyMap's its own."""
     if background is not None:
         return check_convention(background)
-    return getattr(obj, "background", "subtracted") if _is_skymap(obj) else "subtracted"
+    return getattr(obj, "background", "subtracted") if is_skymap(obj) else "subtracted"
 
 
 def pixel_flux(obj, background=None):
@@ -119,7 +119,7 @@ def pixel_flux(obj, background=None):
         Jy per pixel.
     """
     _check_image(obj)
-    if _is_skymap(obj):
+    if is_skymap(obj):
         data = _jy_per_beam(obj.data, "obj.data")
         own = getattr(obj, "background", "subtracted")
         wanted = _convention(obj, background)
@@ -236,7 +236,7 @@ def _image_wcs(obj, aperture):
     if not isinstance(aperture, regions.SkyRegion):
         return None
     from ..io.fits import sky_wcs
-    shape = np.shape(obj.data if _is_skymap(obj) else obj.tau)[1:]
+    shape = np.shape(obj.data if is_skymap(obj) else obj.tau)[1:]
     return sky_wcs(shape, obj.pixel_scale, obj.sky_position)
 
 
@@ -302,9 +302,9 @@ def sed_metadata(obj, aperture=None, background=None):
         (and ``beam`` for a SkyMap).
     """
     _check_image(obj)
-    result = obj if _is_result(obj) else getattr(obj, "result", None)
+    result = obj if is_result(obj) else getattr(obj, "result", None)
     provenance = getattr(result, "provenance", {}) if result is not None else {}
-    shape = np.shape(obj.data if _is_skymap(obj) else obj.tau)[1:]
+    shape = np.shape(obj.data if is_skymap(obj) else obj.tau)[1:]
     meta = {"source": str(provenance.get("source", "unknown")),
             "view": str(provenance.get("view", "unknown"))}
     distance = getattr(obj, "distance", None)
@@ -314,7 +314,7 @@ def sed_metadata(obj, aperture=None, background=None):
         meta["distance"] = f"{u.Quantity(distance).to_value(u.pc):.6g} pc"
     meta["aperture"] = _describe_aperture(aperture, shape)
     meta["background"] = describe_background(obj, background)
-    if _is_skymap(obj):
+    if is_skymap(obj):
         beam = _beam_at(obj, 0)
         meta["beam"] = (f"{beam.major.to_value(u.arcsec):.4g} x {beam.minor.to_value(u.arcsec):.4g} arcsec, "
                         f"PA {beam.pa.to_value(u.deg):.4g} deg (first plane)")
@@ -327,7 +327,7 @@ def describe_background(obj, background=None):
     return describe(_convention(obj, background), obj)
 
 
-def _spectrum_arrays(frequencies, flux):
+def spectrum_arrays(frequencies, flux):
     nu = parse_frequencies(frequencies, "frequencies")
     flux_q = u.Quantity(flux)
     values = np.atleast_1d(np.asarray(flux_q.value, float))
@@ -352,7 +352,7 @@ def spectral_index(frequencies, flux):
         ``alpha_i = ln(S_{i+1} / S_i) / ln(nu_{i+1} / nu_i)``; NaN where
         either flux is <= 0 (no power law through it).
     """
-    nu, s, _ = _spectrum_arrays(frequencies, flux)
+    nu, s, _ = spectrum_arrays(frequencies, flux)
     if np.any(np.diff(nu) == 0):
         raise InputError("frequencies: consecutive frequencies must differ")
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -393,7 +393,7 @@ def sed_table(frequencies, flux, metadata=None):
     """
     from astropy.table import Table
 
-    nu, _, _ = _spectrum_arrays(frequencies, flux)
+    nu, _, _ = spectrum_arrays(frequencies, flux)
     try:
         s_jy = np.atleast_1d(u.Quantity(flux).to_value(u.Jy))
     except u.UnitsError:
@@ -640,7 +640,7 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
         raise InputError(f"peak_fraction: expected a number in [0, 1), got {peak_fraction!r}")
     nu = _frequencies_hz(obj)
     rms, threshold = _noise_threshold(obj, snr_threshold, len(nu))
-    if _is_skymap(obj):
+    if is_skymap(obj):
         a, b, models, noise_at, beam, smoothed = _skymap_planes(obj, i1, i2, rms, threshold, match_beams)
     else:
         a, b = pixel_flux(obj).value[i1], pixel_flux(obj).value[i2]
@@ -670,7 +670,7 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
 
 def _noise_threshold(obj, snr_threshold, nfreq):
     """``(noise rms per frequency or None, S/N threshold or None)`` of :func:`spectral_index_map`."""
-    noise = getattr(obj, "noise_rms", None) if _is_skymap(obj) else None
+    noise = getattr(obj, "noise_rms", None) if is_skymap(obj) else None
     rms = None if noise is None else np.broadcast_to(_jy_per_beam(noise, "obj.noise_rms"), (nfreq,))
     if snr_threshold is None:
         return rms, (None if rms is None else DEFAULT_SNR_THRESHOLD)
@@ -777,9 +777,9 @@ def tau_unity_frequency(result):
         the integrated spectrum. Same interpolation; NaN if not bracketed
         (with a PhysicsRangeWarning).
     """
-    if not _is_result(result) and hasattr(result, "result"):
+    if not is_result(result) and hasattr(result, "result"):
         result = result.result
-    if not _is_result(result):
+    if not is_result(result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
     nu = _frequencies_hz(result)
     if nu.size < 2:

@@ -468,7 +468,7 @@ class Comparison:
         from pathlib import Path
 
         from ..io.atomic import atomic_path
-        from ..io.fits import _add_provenance, _ascii
+        from ..io.fits import add_provenance, header_ascii
         from ..transfer.background import header_cards
 
         path = os.fspath(path)
@@ -502,13 +502,13 @@ class Comparison:
             hdu = fits.PrimaryHDU(values) if not hdus else fits.ImageHDU(values)
             hdu.header.extend(hdr, update=True)
             if not hdus:
-                _add_provenance(hdu.header, {k: v for k, v in self.model_provenance.items()
+                add_provenance(hdu.header, {k: v for k, v in self.model_provenance.items()
                                              if k not in ("beam", "noise")})
                 hdu.header.extend(header_cards("subtracted", self.model_background))
-                hdu.header.add_history(_ascii(f"model: {self.model_source}"))
-                hdu.header.add_history(_ascii(f"observation: {self.observation_source}"))
+                hdu.header.add_history(header_ascii(f"model: {self.model_source}"))
+                hdu.header.add_history(header_ascii(f"observation: {self.observation_source}"))
                 for text in self.notes:
-                    hdu.header.add_history(_ascii(f"note: {text}"))
+                    hdu.header.add_history(header_ascii(f"note: {text}"))
             hdus.append(hdu)
         with atomic_path(path) as tmp:
             fits.HDUList(hdus).writeto(tmp, output_verify="exception")

@@ -436,7 +436,7 @@ def _bunit(unit):
         raise InputError(f"data: unit '{unit}' cannot be written in FITS syntax ({exc})") from None
 
 
-def _ascii(text):
+def header_ascii(text):
     """FITS header strings are printable ASCII (Pence et al. 2010, sec. 4.2.1)."""
     return "".join(ch if 32 <= ord(ch) <= 126 else "?" for ch in str(text))
 
@@ -467,7 +467,7 @@ def _announce_long_strings(header):
             return
 
 
-def _add_provenance(hdr, provenance):
+def add_provenance(hdr, provenance):
     from .._version import __version__
 
     hdr["ORIGIN"] = ("rtrace", "software that wrote this file")
@@ -479,10 +479,10 @@ def _add_provenance(hdr, provenance):
             continue
         if key in _PROVENANCE_KEYWORDS:
             keyword, comment = _PROVENANCE_KEYWORDS[key]
-            text = _ascii(value)
+            text = header_ascii(value)
             hdr[keyword] = (text, comment) if _comment_fits(text, comment) else text
         else:
-            hdr.add_history(_ascii(f"{key}: {value}"))
+            hdr.add_history(header_ascii(f"{key}: {value}"))
     _announce_long_strings(hdr)
 
 
@@ -694,7 +694,7 @@ class _CubeHeader:
         if plane is not None:
             primary["RTPLANE"] = (plane[0], "plane number in the full frequency list")
             primary["RTNPLANE"] = (plane[1], "number of planes (one file each)")
-        _add_provenance(primary, self.provenance)
+        add_provenance(primary, self.provenance)
         primary.extend(self.background)
         return primary, tab
 

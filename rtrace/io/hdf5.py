@@ -105,7 +105,7 @@ def _unit(dataset, name, parameter, units, required=True):
     return unit
 
 
-def _subvolume(subvolume, shape):
+def subvolume_slices(subvolume, shape):
     """Validated ``(slices, starts)`` for a sub-volume in cell indices."""
     if subvolume is None:
         return tuple(slice(0, n) for n in shape), np.zeros(3, int)
@@ -364,7 +364,7 @@ def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
     with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
         cell_size, origin = file_geometry(handle, cell_size, origin, path)
-        slices, starts = _subvolume(subvolume, shape)
+        slices, starts = subvolume_slices(subvolume, shape)
         # Geometry is checked before any data is read: a mistake costs no I/O.
         cell, origin = _read_geometry(cell_size, origin, starts, subvolume)
         # With mass density, every input goes through the ionization model in float64;

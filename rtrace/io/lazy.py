@@ -36,8 +36,8 @@ from ..gas import gamma_value, thermal_provenance
 from ..physics.freefree import RELATIVISTIC_TEMPERATURE, warn_relativistic
 from ..physics.ionization import IonizationModel
 from ..physics.ionization.cells import THERMAL_INPUTS, IonizationSummary, evaluate_piece
-from ..quantities import CellTally, check_density_inputs
-from ..snapshot import Snapshot, _vector3, combined_checksum
+from ..quantities import CellTally, check_density_inputs, parse_vector3
+from ..snapshot import Snapshot, combined_checksum
 from .hdf5 import (
     _FIELD_UNITS,
     _FRACTION_UNIT,
@@ -562,10 +562,10 @@ def _streamed_model(model, wanted, gamma):
 
 def _lazy_geometry(cell_size, origin):
     """Cell size and origin as 3-vectors in cm; the cell size finite and positive."""
-    cell = _vector3(cell_size, "cell_size", u.cm)
+    cell = parse_vector3(cell_size, "cell_size", u.cm)
     if not np.all(np.isfinite(cell) & (cell > 0)):
         raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
-    return cell, np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+    return cell, np.zeros(3) if origin is None else parse_vector3(origin, "origin", u.cm)
 
 
 def _provenance(source, ion_density, gamma_used, extra):

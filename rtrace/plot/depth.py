@@ -7,7 +7,7 @@ import matplotlib
 import numpy as np
 from matplotlib import colors, ticker
 
-from ..analysis.spectra import _is_result, _is_skymap, tau_unity_frequency
+from ..analysis.spectra import is_result, is_skymap, tau_unity_frequency
 from ..errors import InputError, PhysicsRangeWarning
 from .core import (
     STYLE,
@@ -72,8 +72,8 @@ def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=
     """
     from matplotlib.patches import Patch
 
-    result = obj.result if (_is_skymap(obj) and getattr(obj, "result", None) is not None) else obj
-    if not _is_result(result):
+    result = obj.result if (is_skymap(obj) and getattr(obj, "result", None) is not None) else obj
+    if not is_result(result):
         raise InputError(f"obj: expected an rtrace Result or a SkyMap with its Result, got {type(obj).__name__}")
     nu = u.Quantity(result.frequencies).to_value(u.Hz, equivalencies=u.spectral())
     if nu.size < 2:

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import astropy.units as u
 import numpy as np
 
-from ..analysis.spectra import _is_result, _is_skymap, frequency_index, pixel_flux, spectral_index_map
+from ..analysis.spectra import frequency_index, is_result, is_skymap, pixel_flux, spectral_index_map
 from ..errors import InputError
 from ..quantities import finite_number
 from .text import angle_text, frequency_labels, prefix_for
@@ -66,7 +66,7 @@ def check_quantity(quantity):
 
 def check_image(obj):
     """Refuse (InputError) anything but a Result or a SkyMap."""
-    if not (_is_result(obj) or _is_skymap(obj)):
+    if not (is_result(obj) or is_skymap(obj)):
         raise InputError(f"obj: expected an rtrace Result or SkyMap, got {type(obj).__name__}")
 
 
@@ -81,14 +81,14 @@ def geometry(obj):
 
 
 def _beam(obj, index):
-    if not _is_skymap(obj):
+    if not is_skymap(obj):
         return None
     beams = getattr(obj, "beams", None)
     return beams[index] if beams is not None else obj.beam
 
 
 def _noise(obj, index):
-    rms = getattr(obj, "noise_rms", None) if _is_skymap(obj) else None
+    rms = getattr(obj, "noise_rms", None) if is_skymap(obj) else None
     if rms is None:
         return None
     value = float(np.broadcast_to(u.Quantity(rms).to_value(u.Jy / u.beam), (len(obj.frequencies),))[index])
@@ -113,7 +113,7 @@ def plane_of(obj, quantity, frequency):
     """Extract the image to draw as a Plane."""
     check_image(obj)
     check_quantity(quantity)
-    if _is_skymap(obj) and quantity in ("tau", "emission_measure"):
+    if is_skymap(obj) and quantity in ("tau", "emission_measure"):
         # optical depth and emission measure are not observed: show those of the model behind the map
         if getattr(obj, "result", None) is None:
             raise InputError(f"quantity: {quantity!r} needs the Result behind the SkyMap (obj.result is None)")
@@ -142,7 +142,7 @@ def plane_of(obj, quantity, frequency):
     index = 0 if frequency is None else frequency_index(obj, frequency, "frequency")
     tag = frequency_labels(nu[index] * u.Hz)[0]
     if quantity == "intensity":
-        if _is_skymap(obj):
+        if is_skymap(obj):
             values = u.Quantity(obj.data[index]).to_value(u.Jy / u.beam)
             per, per_txt = u.beam, "beam"
         else:
@@ -165,7 +165,7 @@ def plane_of(obj, quantity, frequency):
         return Plane(em, label=f"emission measure {what} (pc cm$^{{-6}}$)", tag="", unit=u.pc * u.cm**-6,
                       per=None, **common)
     # brightness temperature
-    if _is_skymap(obj):
+    if is_skymap(obj):
         # Rayleigh-Jeans: linear in Jy/beam, so noise stays symmetric (radio convention)
         tb = obj.brightness_temperature("rayleigh-jeans")[index].to_value(u.K)
         label = "brightness temperature, R\N{EN DASH}J (K)"
@@ -190,7 +190,7 @@ def _background_note(obj):
     if background_of(obj).kind == "none":
         return ""
     # on a line of its own: colour-bar labels of stacked panels must stay shorter than a panel
-    return f"\nbackground {getattr(obj, 'background', 'subtracted') if _is_skymap(obj) else 'subtracted'}"
+    return f"\nbackground {getattr(obj, 'background', 'subtracted') if is_skymap(obj) else 'subtracted'}"
 
 
 def limit(value, plane, name):

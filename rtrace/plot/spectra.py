@@ -7,7 +7,7 @@ import matplotlib
 import numpy as np
 from matplotlib import ticker
 
-from ..analysis.spectra import _spectrum_arrays, spectral_index
+from ..analysis.spectra import spectral_index, spectrum_arrays
 from ..errors import InputError
 from .core import STYLE, new_figure, prefix_for, save, tick_text, two_five
 
@@ -120,7 +120,7 @@ def plot_sed(frequencies, flux, path=None, ax=None, label=None, annotate_index=T
     -------
     `~matplotlib.figure.Figure`
     """
-    nu, _, _ = _spectrum_arrays(frequencies, flux)
+    nu, _, _ = spectrum_arrays(frequencies, flux)
     try:
         s_jy = np.atleast_1d(u.Quantity(flux).to_value(u.Jy))
     except u.UnitsError:

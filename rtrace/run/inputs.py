@@ -82,8 +82,8 @@ def check_ionization(job):
     import numpy as np
 
     from ..errors import ConfigError, InputError
-    from ..io.hdf5 import _subvolume, file_geometry, open_file
-    from ..snapshot import _vector3
+    from ..io.hdf5 import file_geometry, open_file, subvolume_slices
+    from ..quantities import parse_vector3
     if job.snapshot.density is None:
         return
     try:
@@ -101,10 +101,10 @@ def check_ionization(job):
                     return                      # the reader names the missing dataset
                 shape = handle[thermal].shape
                 cell_size, origin = file_geometry(handle, snap.cell_size, snap.origin, member.path)
-            cell = _vector3(cell_size, "cell_size", u.cm)
-            org = np.zeros(3) if origin is None else _vector3(origin, "origin", u.cm)
+            cell = parse_vector3(cell_size, "cell_size", u.cm)
+            org = np.zeros(3) if origin is None else parse_vector3(origin, "origin", u.cm)
             if snap.subvolume is not None:
-                slices, starts = _subvolume(tuple(tuple(p) for p in snap.subvolume), shape)
+                slices, starts = subvolume_slices(tuple(tuple(p) for p in snap.subvolume), shape)
                 shape = tuple(sl.stop - sl.start for sl in slices)
                 org = org + starts * cell
             model.check_geometry(shape, cell, org)
@@ -140,7 +140,7 @@ def check_datasets(job):
         Naming the job key (``[snapshot].temperature``), the dataset and the file.
     """
     from ..errors import ConfigError, InputError
-    from ..io.hdf5 import _subvolume, checked_names, file_geometry, open_fields, open_file, wanted_fields
+    from ..io.hdf5 import checked_names, file_geometry, open_fields, open_file, subvolume_slices, wanted_fields
 
     snap = job.snapshot
     if snap.kind != "hdf5":
@@ -155,7 +155,7 @@ def check_datasets(job):
                 _, shape, _ = open_fields(handle, wanted, snap.units or {}, member.path)
                 file_geometry(handle, snap.cell_size, snap.origin, member.path)
             if snap.subvolume is not None:
-                _subvolume(tuple(tuple(p) for p in snap.subvolume), shape)
+                subvolume_slices(tuple(tuple(p) for p in snap.subvolume), shape)
         except InputError as exc:
             raise ConfigError(f"{_job_key(job, str(exc))} (snapshot '{member.path}')") from None
 

@@ -253,6 +253,15 @@ class Result:
 
     # -- optical-depth diagnostics -----------------------------------------------------------
 
+    @property
+    def snapshot(self):
+        """The snapshot this Result was traced from (None when it was not made by :func:`rtrace.trace`).
+
+        Kept so that the diagnostics (:attr:`unabsorbed_intensity`, :meth:`tau_unity_depth`,
+        :meth:`contribution`) can march the same rays again.
+        """
+        return self._snapshot
+
     def _require_snapshot(self, what):
         if self._snapshot is None:
             raise InputError(f"{what}: this Result does not carry its snapshot (it was not made by rtrace.trace)")
