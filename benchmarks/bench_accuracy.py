@@ -120,7 +120,7 @@ def timed(fn, repeat):
 def run(name, snap, n, repeat, tolerances=(1e-1, 1e-2, 1e-3)):
     view = rtrace.View(los=(1.0, 2.0, 3.0), north=(0.3, -0.9, 0.2), npix=max(n // 2, 8), distance=1 * u.kpc)
     nu = [1.0, 8.0] * u.GHz
-    rtrace.trace(snap, view, nu)                              # compile / warm the caches
+    rtrace.trace(snap, view, nu)  # compile / warm the caches
     base, lo, hi, _ = timed(lambda: rtrace.trace(snap, view, nu, supersample=1), repeat)
     print(f"{name}: supersample=1  median {base:.3g} s (range {lo:.3g} .. {hi:.3g})")
     for tol in tolerances:
@@ -128,9 +128,11 @@ def run(name, snap, n, repeat, tolerances=(1e-1, 1e-2, 1e-3)):
             warnings.simplefilter("ignore", PixelAccuracyWarning)
             med, lo, hi, res = timed(lambda tol=tol: rtrace.trace(snap, view, nu, tolerance=tol), repeat)
         pe = res.pixel_error
-        print(f"{name}: tolerance={tol:g}  median {med:.3g} s (range {lo:.3g} .. {hi:.3g}) = {med / base:.1f}x; "
-              f"estimate {pe.max_relative:.3g} at supersample={pe.supersample} "
-              f"({'met' if pe.converged else 'NOT met'})")
+        print(
+            f"{name}: tolerance={tol:g}  median {med:.3g} s (range {lo:.3g} .. {hi:.3g}) = {med / base:.1f}x; "
+            f"estimate {pe.max_relative:.3g} at supersample={pe.supersample} "
+            f"({'met' if pe.converged else 'NOT met'})"
+        )
 
 
 def main():

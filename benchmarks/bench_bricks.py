@@ -57,8 +57,10 @@ def write_snapshot(snap, path):
 
 
 def max_difference(a, b):
-    return max(float(np.max(np.abs(x - y)) / np.max(np.abs(y)))
-               for x, y in ((a.intensity.value, b.intensity.value), (a.tau, b.tau)))
+    return max(
+        float(np.max(np.abs(x - y)) / np.max(np.abs(y)))
+        for x, y in ((a.intensity.value, b.intensity.value), (a.tau, b.tau))
+    )
 
 
 def main():
@@ -73,13 +75,22 @@ def main():
     snap = demo.scenario(n)
     width = (snap.shape[0] * snap.cell_size[0]) * u.cm
     tilt = np.radians(30.0)
-    views = {"axis-aligned": rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=n, width=width, distance=1 * u.kpc),
-             "oblique 30 deg": rtrace.View(los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)),
-                                           north=(0, 1, 0), npix=n, width=width, distance=1 * u.kpc)}
+    views = {
+        "axis-aligned": rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=n, width=width, distance=1 * u.kpc),
+        "oblique 30 deg": rtrace.View(
+            los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)),
+            north=(0, 1, 0),
+            npix=n,
+            width=width,
+            distance=1 * u.kpc,
+        ),
+    }
     nu = np.geomspace(0.3, 30, 4) * u.GHz
     fields_mb = 2 * snap._t.nbytes / 1e6
-    print(f"snapshot {n}^3 float32 ({fields_mb:.0f} MB of fields; the ion term is n_e), 4 frequencies, "
-          f"{os.cpu_count()} CPU cores, best of {repeat}")
+    print(
+        f"snapshot {n}^3 float32 ({fields_mb:.0f} MB of fields; the ion term is n_e), 4 frequencies, "
+        f"{os.cpu_count()} CPU cores, best of {repeat}"
+    )
 
     tmp = tempfile.TemporaryDirectory()
     path = os.path.join(tmp.name, "snap.h5")
@@ -88,7 +99,7 @@ def main():
     small_path = os.path.join(tmp.name, "small.h5")
     write_snapshot(small, small_path)
     lazy_small = rtrace.open_hdf5(small_path, temperature="T", electron_density="ne")
-    for v in views.values():            # compile / load the kernels outside the timings
+    for v in views.values():  # compile / load the kernels outside the timings
         sv = rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc)
         rtrace.trace(small, sv, nu, supersample=1)
         rtrace.trace(lazy_small, sv, nu, brick_size=8, supersample=1)
@@ -96,30 +107,38 @@ def main():
     t_open, lazy = best_of(lambda: rtrace.open_hdf5(path, temperature="T", electron_density="ne"), 1)
     print(f"\nopen_hdf5 (streaming validation + checksum over {fields_mb:.0f} MB): {t_open:6.3f} s")
 
-    print(f"\n{'view':<16}{'whole':>9}{f'brick {brick}':>11}{'max_memory':>12}{'file':>9}"
-          f"{'file/whole':>12}{'max diff':>10}")
+    print(
+        f"\n{'view':<16}{'whole':>9}{f'brick {brick}':>11}{'max_memory':>12}{'file':>9}"
+        f"{'file/whole':>12}{'max diff':>10}"
+    )
     single = {}
     for name, v in views.items():
         t_whole, ref = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, supersample=1), repeat)
-        t_brick, res_b = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1),
-                                 repeat)
-        t_budget, res_m = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1),
-                                  repeat)
+        t_brick, res_b = best_of(lambda v=v, nu=nu: rtrace.trace(snap, v, nu, brick_size=brick, supersample=1), repeat)
+        t_budget, res_m = best_of(
+            lambda v=v, nu=nu: rtrace.trace(snap, v, nu, max_memory=budget, supersample=1), repeat
+        )
         t_file, res_f = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, supersample=1), repeat)
         single[name] = (t_file, res_f)
         diff = max(max_difference(r, ref) for r in (res_b, res_m, res_f))
-        print(f"{name:<16}{t_whole:8.3f}s{t_brick:10.3f}s{t_budget:11.3f}s{t_file:8.3f}s"
-              f"{t_file / t_whole:11.2f}x{diff:10.1e}")
-    print(f"(seconds; 'max_memory' = {budget!r}, brick chosen by the planner; 'file' = open_hdf5 snapshot, "
-          f"brick {brick}; max diff = largest relative difference from the whole-array images)")
+        print(
+            f"{name:<16}{t_whole:8.3f}s{t_brick:10.3f}s{t_budget:11.3f}s{t_file:8.3f}s"
+            f"{t_file / t_whole:11.2f}x{diff:10.1e}"
+        )
+    print(
+        f"(seconds; 'max_memory' = {budget!r}, brick chosen by the planner; 'file' = open_hdf5 snapshot, "
+        f"brick {brick}; max diff = largest relative difference from the whole-array images)"
+    )
 
     if reset_peak():
         base = status_bytes("VmRSS")
         for v in views.values():
             rtrace.trace(lazy, v, nu, max_memory=budget, supersample=1)
         grown = status_bytes("VmHWM") - base
-        print(f"\npeak RSS growth of the two file-backed traces under max_memory={budget!r}: "
-              f"{grown / 1e6:.1f} MB (fields on disk: {fields_mb:.0f} MB)")
+        print(
+            f"\npeak RSS growth of the two file-backed traces under max_memory={budget!r}: "
+            f"{grown / 1e6:.1f} MB (fields on disk: {fields_mb:.0f} MB)"
+        )
 
     try:
         from distributed import Client, LocalCluster
@@ -127,24 +146,38 @@ def main():
         print("\ndask.distributed not installed: no dask figures")
         return
     t0 = time.perf_counter()
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster, \
-            Client(cluster) as client:
-        for v in views.values():        # workers import rtrace and load the kernels once
-            rtrace.trace(lazy_small, rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc), nu,
-                         brick_size=8, client=client, supersample=1)
+    with (
+        LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster,
+        Client(cluster) as client,
+    ):
+        for v in views.values():  # workers import rtrace and load the kernels once
+            rtrace.trace(
+                lazy_small,
+                rtrace.View(los=v.los, north=v.north, npix=16, distance=1 * u.kpc),
+                nu,
+                brick_size=8,
+                client=client,
+                supersample=1,
+            )
         t_start = time.perf_counter() - t0
-        print(f"\ndask LocalCluster, 2 worker processes x 1 thread (start and warm-up {t_start:.1f} s), "
-              f"file-backed, brick {brick}")
+        print(
+            f"\ndask LocalCluster, 2 worker processes x 1 thread (start and warm-up {t_start:.1f} s), "
+            f"file-backed, brick {brick}"
+        )
         print(f"{'view':<16}{'single':>9}{'dask':>9}{'dask/single':>13}{'max diff':>10}")
         for name, v in views.items():
-            t_dask, res = best_of(lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, client=client,
-                                                                  supersample=1),
-                                  repeat)
+            t_dask, res = best_of(
+                lambda v=v, nu=nu: rtrace.trace(lazy, v, nu, brick_size=brick, client=client, supersample=1), repeat
+            )
             t_single, res_single = single[name]
-            print(f"{name:<16}{t_single:8.3f}s{t_dask:8.3f}s{t_dask / t_single:12.2f}x"
-                  f"{max_difference(res, res_single):10.1e}")
-    print("(the single process already runs the numba kernels on every core; each worker does too, "
-          "so on a 2-core machine dask adds scheduling and transfer, not cores)")
+            print(
+                f"{name:<16}{t_single:8.3f}s{t_dask:8.3f}s{t_dask / t_single:12.2f}x"
+                f"{max_difference(res, res_single):10.1e}"
+            )
+    print(
+        "(the single process already runs the numba kernels on every core; each worker does too, "
+        "so on a 2-core machine dask adds scheduling and transfer, not cores)"
+    )
     print(f"\nprocess peak RSS {max_rss_mb():.0f} MiB")
 
 

@@ -276,8 +276,9 @@ def smooth_field(n, lo, hi, seed):
     for _ in range(6):
         kx, ky, kz = rng.integers(1, 4, 3)
         px, py, pz = rng.uniform(0, 2 * np.pi, 3)
-        f += (np.sin(kx * x + px)[:, None, None] * np.sin(ky * x + py)[None, :, None]
-              * np.sin(kz * x + pz)[None, None, :]).astype(np.float32)
+        f += (
+            np.sin(kx * x + px)[:, None, None] * np.sin(ky * x + py)[None, :, None] * np.sin(kz * x + pz)[None, None, :]
+        ).astype(np.float32)
     f -= f.min()
     f /= f.max()
     return (lo + (hi - lo) * f).astype(np.float32)
@@ -314,8 +315,9 @@ def cold_compile():
     with tempfile.TemporaryDirectory() as cache:
         env = dict(os.environ, NUMBA_CACHE_DIR=cache)
         t0 = time.perf_counter()
-        out = subprocess.run([sys.executable, "-m", "rtrace.run.warmup"], env=env, capture_output=True, text=True,
-                             check=True).stdout
+        out = subprocess.run(
+            [sys.executable, "-m", "rtrace.run.warmup"], env=env, capture_output=True, text=True, check=True
+        ).stdout
         wall = time.perf_counter() - t0
     found = re.search(r"(\d+) compiled in ([\d.]+) s", out)
     if found is None:
@@ -340,8 +342,13 @@ def demo_compile():
     """The demo (``rtrace demo``) in a fresh process with an empty numba cache: ``[(kernel, seconds), ...]``."""
     with tempfile.TemporaryDirectory() as work:
         env = dict(os.environ, NUMBA_CACHE_DIR=os.path.join(work, "cache"))
-        out = subprocess.run([sys.executable, "-c", _DEMO_PROGRAM, os.path.join(work, "out")], env=env,
-                             capture_output=True, text=True, check=True).stdout
+        out = subprocess.run(
+            [sys.executable, "-c", _DEMO_PROGRAM, os.path.join(work, "out")],
+            env=env,
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout
     kernels = [(name, float(seconds)) for seconds, name in (line.split(" ", 1) for line in out.splitlines())]
     if not kernels:
         raise RuntimeError("the demo compiled nothing with an empty cache")
@@ -357,11 +364,15 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cells", type=int, default=256)
     parser.add_argument("--rounds", type=int, default=5)
-    parser.add_argument("--compile", action="store_true",
-                        help="also time the warm-up and the demo, each with an empty numba cache")
+    parser.add_argument(
+        "--compile", action="store_true", help="also time the warm-up and the demo, each with an empty numba cache"
+    )
     parser.add_argument("--compile-only", action="store_true", help="only that (no per-cell timings)")
-    parser.add_argument("--one-thread", action="store_true",
-                        help="one thread, timed in process CPU seconds (steady on a machine shared with other work)")
+    parser.add_argument(
+        "--one-thread",
+        action="store_true",
+        help="one thread, timed in process CPU seconds (steady on a machine shared with other work)",
+    )
     args = parser.parse_args()
     clock = time.perf_counter
     if args.one_thread:
@@ -369,12 +380,18 @@ def main():
         clock = time.process_time
     if args.compile or args.compile_only:
         count, seconds, wall = cold_compile()
-        print(f"first use, empty numba cache: the warm-up compiled {count} kernels in {seconds:.1f} s "
-              f"({wall:.1f} s for the whole process)", flush=True)
+        print(
+            f"first use, empty numba cache: the warm-up compiled {count} kernels in {seconds:.1f} s "
+            f"({wall:.1f} s for the whole process)",
+            flush=True,
+        )
         kernels = demo_compile()
         total = sum(sec for _, sec in kernels)
-        print(f"the demo (rtrace demo) with an empty cache compiled {len(kernels)} kernels in {total:.1f} s "
-              f"(target <= 15 s on an idle machine; load average now {os.getloadavg()[0]:.1f}):", flush=True)
+        print(
+            f"the demo (rtrace demo) with an empty cache compiled {len(kernels)} kernels in {total:.1f} s "
+            f"(target <= 15 s on an idle machine; load average now {os.getloadavg()[0]:.1f}):",
+            flush=True,
+        )
         for name, sec in sorted(kernels, key=lambda k: -k[1]):
             print(f"  {sec:6.2f} s  {name}")
         if args.compile_only:
@@ -388,8 +405,13 @@ def main():
     width = n * cell
     axis_view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=n, width=width, distance=1 * u.kpc)
     tilt = np.radians(30.0)
-    oblique_view = rtrace.View(los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)), north=(0, 1, 0),
-                               npix=n, width=width, distance=1 * u.kpc)
+    oblique_view = rtrace.View(
+        los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)),
+        north=(0, 1, 0),
+        npix=n,
+        width=width,
+        distance=1 * u.kpc,
+    )
     one = [5.0] * u.GHz
     eight = np.geomspace(0.3, 100, 8) * u.GHz
     out = np.zeros((n, n))
@@ -402,7 +424,7 @@ def main():
         "oblique": lambda: rtrace.trace(snap, oblique_view, one, supersample=1),
     }
     t0 = time.perf_counter()
-    results = {k: fn() for k, fn in cases.items()}       # compile / first touch, untimed
+    results = {k: fn() for k, fn in cases.items()}  # compile / first touch, untimed
     print(f"grid {n}^3 float32, every cell emits; first (untimed) round {time.perf_counter() - t0:.1f} s")
     times = {k: [] for k in cases}
     for _ in range(args.rounds):
@@ -410,12 +432,18 @@ def main():
             t0 = clock()
             fn()
             times[key].append(clock() - t0)
-    print(f"{'CPU ' if args.one_thread else ''}times over {args.rounds} rounds"
-          f"{', one thread' if args.one_thread else ''}, s (min / median / max):")
+    print(
+        f"{'CPU ' if args.one_thread else ''}times over {args.rounds} rounds"
+        f"{', one thread' if args.one_thread else ''}, s (min / median / max):"
+    )
     for key in cases:
         print(f"  {key:8s} {summary(times[key])}")
-    ratios = {"axis1/numpy (<= 0.10)": ("axis1", "numpy"), "axis1/stream (<= 6)": ("axis1", "stream"),
-              "axis8/axis1 (<= 2.5)": ("axis8", "axis1"), "oblique/axis1 (<= 2)": ("oblique", "axis1")}
+    ratios = {
+        "axis1/numpy (<= 0.10)": ("axis1", "numpy"),
+        "axis1/stream (<= 6)": ("axis1", "stream"),
+        "axis8/axis1 (<= 2.5)": ("axis8", "axis1"),
+        "oblique/axis1 (<= 2)": ("oblique", "axis1"),
+    }
     print("ratios within each round (min / median / max), target:")
     for label, (a, b) in ratios.items():
         print(f"  {label:24s} {summary(np.divide(times[a], times[b]))}")

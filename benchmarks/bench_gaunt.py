@@ -39,18 +39,26 @@ def main():
     rng = np.random.default_rng(1)
     ne = (rng.lognormal(3, 1, (n, n, n)) * (rng.random((n, n, n)) > 0.3)).astype(np.float32)
     t = rng.uniform(5e3, 2e4, (n, n, n)).astype(np.float32)
-    snaps = {"hydrogen": rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=0.01 * u.pc,
-                                                    electron_density=ne * u.cm**-3)}
+    snaps = {
+        "hydrogen": rtrace.Snapshot.from_arrays(
+            temperature=t * u.K, cell_size=0.01 * u.pc, electron_density=ne * u.cm**-3
+        )
+    }
     if not args.plain:
         # X = 0.70, Y = 0.28 by mass, all He doubly ionized: per H atom n_He = 0.1, n_e = 1.2, ion term = 1.4
-        snaps["he III"] = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=0.01 * u.pc,
-                                                      electron_density=ne * u.cm**-3,
-                                                      ion_density=ne * (1.4 / 1.2) * u.cm**-3)
+        snaps["he III"] = rtrace.Snapshot.from_arrays(
+            temperature=t * u.K,
+            cell_size=0.01 * u.pc,
+            electron_density=ne * u.cm**-3,
+            ion_density=ne * (1.4 / 1.2) * u.cm**-3,
+        )
     six = np.geomspace(0.3, 100, 6) * u.GHz
-    routes = {"axis 1 freq": (rtrace.View(los=(0, 0, 1), npix=n), [5] * u.GHz),
-              "axis 6 freq": (rtrace.View(los=(0, 0, 1), npix=n), six),
-              "middle 6 freq": (rtrace.View(los=(0, 1, 0), north=(0, 0, 1), npix=n), six),
-              "oblique 6 freq": (rtrace.View(los=(0.3, 0.2, 1), npix=n), six)}
+    routes = {
+        "axis 1 freq": (rtrace.View(los=(0, 0, 1), npix=n), [5] * u.GHz),
+        "axis 6 freq": (rtrace.View(los=(0, 0, 1), npix=n), six),
+        "middle 6 freq": (rtrace.View(los=(0, 1, 0), north=(0, 0, 1), npix=n), six),
+        "oblique 6 freq": (rtrace.View(los=(0.3, 0.2, 1), npix=n), six),
+    }
     cases = []
     for route, (view, nu) in routes.items():
         for name, snap in snaps.items():
@@ -60,7 +68,7 @@ def main():
     times = {c[0]: [] for c in cases}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        for _label, snap, view, nu, kw in cases:          # compile and warm up
+        for _label, snap, view, nu, kw in cases:  # compile and warm up
             rtrace.trace(snap, view, nu, supersample=1, **kw)
         for _ in range(args.rounds):
             for label, snap, view, nu, kw in cases:

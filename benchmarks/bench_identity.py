@@ -38,8 +38,10 @@ def _time(func, rounds, before=None):
 
 
 def _say(label, times):
-    print(f"{label:<38} median {statistics.median(times):8.4f} s  [{min(times):.4f}-{max(times):.4f}]  "
-          f"({len(times)} rounds)")
+    print(
+        f"{label:<38} median {statistics.median(times):8.4f} s  [{min(times):.4f}-{max(times):.4f}]  "
+        f"({len(times)} rounds)"
+    )
 
 
 def main(size_mib=1024, rounds=5):
@@ -50,9 +52,9 @@ def main(size_mib=1024, rounds=5):
                 handle.write(os.urandom(1 << 20))
         size = path.stat().st_size
         print(f"file: {size / 2**30:.3f} GiB")
-        full = lambda: snapshot_identity(path, full_limit=size)           # noqa: E731
-        sampled = lambda: snapshot_identity(path, full_limit=0)           # noqa: E731
-        full()                                                            # into the page cache
+        full = lambda: snapshot_identity(path, full_limit=size)  # noqa: E731
+        sampled = lambda: snapshot_identity(path, full_limit=0)  # noqa: E731
+        full()  # into the page cache
         _say("whole-file SHA-256, warm", _time(full, rounds))
         _say("sampled (18 MiB), warm", _time(sampled, rounds))
         _say("whole-file SHA-256, cold", _time(full, rounds, lambda: _drop(path)))

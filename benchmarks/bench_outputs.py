@@ -51,8 +51,9 @@ def one_round(job, unit, snap, manifest):
     """``{name: seconds}`` of one trace, observe and write of ``unit``."""
     times = {}
     t0 = time.perf_counter()
-    res = trace(snap, unit.view, job.frequencies, background=job.trace.background,
-                supersample=job.trace.supersample or 1)
+    res = trace(
+        snap, unit.view, job.frequencies, background=job.trace.background, supersample=job.trace.supersample or 1
+    )
     times["trace"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     sky = _observe(res, job) if job.beam is not None else None
@@ -64,7 +65,7 @@ def one_round(job, unit, snap, manifest):
     for output in cubes + picture_outputs(job, unit, fmt, None) + spectra:
         t0 = time.perf_counter()
         output.make(output.path, res, sky)
-        times[output.path.name[len(unit.name) + 1:]] = time.perf_counter() - t0
+        times[output.path.name[len(unit.name) + 1 :]] = time.perf_counter() - t0
         t0 = time.perf_counter()
         manifest.record(output.path, output.inputs)
         times["manifest"] += time.perf_counter() - t0
@@ -90,23 +91,32 @@ def main():
             units = [x for x in units if x.name == args.view]
         snap = Snapshots(job, lambda *a: None).get(units[0].member, 0, 1)
         manifest = Manifest(folder)
-        print(f"demo job: {snap.shape[0]}^3 cells, {len(job.frequencies)} frequencies, "
-              f"{args.rounds} rounds after a first-use round")
+        print(
+            f"demo job: {snap.shape[0]}^3 cells, {len(job.frequencies)} frequencies, "
+            f"{args.rounds} rounds after a first-use round"
+        )
         for unit in units:
             first = one_round(job, unit, snap, manifest)
             rounds = [one_round(job, unit, snap, manifest) for _ in range(args.rounds)]
-            print(f"\nview '{unit.name}' ({unit.view.shape[1]}x{unit.view.shape[0]} pixels): "
-                  f"median [min, max] over {args.rounds} rounds; first use apart")
+            print(
+                f"\nview '{unit.name}' ({unit.view.shape[1]}x{unit.view.shape[0]} pixels): "
+                f"median [min, max] over {args.rounds} rounds; first use apart"
+            )
             for name in first:
                 print(f"  {name:32s}{summary([r[name] for r in rounds])}   first use {first[name]:7.3f} s")
             for ref in ("trace", "trace+observe"):
+
                 def reference(r, ref=ref):
                     return r["trace"] + (r["observe"] if ref == "trace+observe" else 0.0)
+
                 per_round = [r["writing"] / reference(r) for r in rounds]
-                of_medians = (statistics.median([r["writing"] for r in rounds])
-                              / statistics.median([reference(r) for r in rounds]))
-                print(f"  writing / {ref:14s} ratio of medians {of_medians:7.2f}; per round "
-                      f"{statistics.median(per_round):.2f} [{min(per_round):.2f}, {max(per_round):.2f}]")
+                of_medians = statistics.median([r["writing"] for r in rounds]) / statistics.median(
+                    [reference(r) for r in rounds]
+                )
+                print(
+                    f"  writing / {ref:14s} ratio of medians {of_medians:7.2f}; per round "
+                    f"{statistics.median(per_round):.2f} [{min(per_round):.2f}, {max(per_round):.2f}]"
+                )
     finally:
         shutil.rmtree(folder, ignore_errors=True)
 

@@ -38,14 +38,11 @@ NORTH = (0.0, 1.0, 0.0)
 NU = [5.0] * u.GHz
 
 
-
-
-
-
 def views_for(snap, n):
     width = float(snap.shape[0] * snap.cell_size[0]) * u.cm
-    return {name: rtrace.View(los=los, north=NORTH, npix=n, width=width, distance=1 * u.kpc)
-            for name, los in VIEWS.items()}
+    return {
+        name: rtrace.View(los=los, north=NORTH, npix=n, width=width, distance=1 * u.kpc) for name, los in VIEWS.items()
+    }
 
 
 def thread_scaling(snap, n, repeat):
@@ -54,8 +51,15 @@ def thread_scaling(snap, n, repeat):
     rows = []
     for k in range(1, top + 1):
         numba.set_num_threads(k)
-        rows.append((k, {name: best_of(lambda v=v, snap=snap: rtrace.trace(snap, v, NU, supersample=1), repeat)[0]
-                         for name, v in views.items()}))
+        rows.append(
+            (
+                k,
+                {
+                    name: best_of(lambda v=v, snap=snap: rtrace.trace(snap, v, NU, supersample=1), repeat)[0]
+                    for name, v in views.items()
+                },
+            )
+        )
     numba.set_num_threads(top)
     return rows
 
@@ -64,12 +68,15 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256, 512], help="cells per side")
     parser.add_argument("--repeat", type=int, default=3, help="best of this many runs (default 3)")
-    parser.add_argument("--thread-size", type=int, default=256,
-                        help="grid size of the thread-scaling test (default 256; 0 to skip)")
+    parser.add_argument(
+        "--thread-size", type=int, default=256, help="grid size of the thread-scaling test (default 256; 0 to skip)"
+    )
     args = parser.parse_args()
     sizes = sorted(set(args.sizes))
-    print(f"rtrace trace at 5 GHz, image N x N, width = box side; numba threads {numba.get_num_threads()} "
-          f"(NUMBA_NUM_THREADS {numba.config.NUMBA_NUM_THREADS}), best of {args.repeat}")
+    print(
+        f"rtrace trace at 5 GHz, image N x N, width = box side; numba threads {numba.get_num_threads()} "
+        f"(NUMBA_NUM_THREADS {numba.config.NUMBA_NUM_THREADS}), best of {args.repeat}"
+    )
 
     # compile outside the timings (numba caches on disk)
     small = demo.scenario(16)
@@ -83,11 +90,16 @@ def main():
         snap = demo.scenario(n)
         t_build = time.perf_counter() - t0
         gc.collect()
-        row = {name: best_of(lambda v=v, snap=snap: rtrace.trace(snap, v, NU, supersample=1), args.repeat)[0]
-               for name, v in views_for(snap, n).items()}
+        row = {
+            name: best_of(lambda v=v, snap=snap: rtrace.trace(snap, v, NU, supersample=1), args.repeat)[0]
+            for name, v in views_for(snap, n).items()
+        }
         results[n] = row
-        print(f"  N={n:4d}: scenario built in {t_build:6.1f} s; axis {row['axis']:8.3f} s, "
-              f"oblique {row['oblique']:8.3f} s; peak RSS so far {max_rss_mb():.0f} MiB", flush=True)
+        print(
+            f"  N={n:4d}: scenario built in {t_build:6.1f} s; axis {row['axis']:8.3f} s, "
+            f"oblique {row['oblique']:8.3f} s; peak RSS so far {max_rss_mb():.0f} MiB",
+            flush=True,
+        )
         if n == args.thread_size:
             threads = thread_scaling(snap, n, args.repeat)
         del snap
@@ -97,8 +109,10 @@ def main():
         threads = thread_scaling(snap, args.thread_size, args.repeat)
         del snap
 
-    print(f"\n{'N':>5} {'cells':>12} {'axis s':>9} {'Mcell/s':>8} {'oblique s':>10} {'Mcell/s*':>9}"
-          f"   {'time ratio to previous N, scaled to 8x cells (axis, oblique)'}")
+    print(
+        f"\n{'N':>5} {'cells':>12} {'axis s':>9} {'Mcell/s':>8} {'oblique s':>10} {'Mcell/s*':>9}"
+        f"   {'time ratio to previous N, scaled to 8x cells (axis, oblique)'}"
+    )
     prev = None
     for n in sizes:
         cells = n**3
@@ -109,20 +123,25 @@ def main():
             expo = math.log(8.0) / math.log(cell_ratio)
             ra = (ta / results[prev]["axis"]) ** expo
             ro = (to / results[prev]["oblique"]) ** expo
-            raw = (f"raw {ta / results[prev]['axis']:.2f}, {to / results[prev]['oblique']:.2f} "
-                   f"for {cell_ratio:.3g}x cells")
+            raw = (
+                f"raw {ta / results[prev]['axis']:.2f}, {to / results[prev]['oblique']:.2f} for {cell_ratio:.3g}x cells"
+            )
             line += f"   {ra:6.2f}, {ro:6.2f}  ({raw})"
         print(line)
         prev = n
-    print("  * oblique Mcell/s is N^3 / time, the same N^3-based figure as the axis view "
-          "(its rays cross more cell segments than N^3)")
+    print(
+        "  * oblique Mcell/s is N^3 / time, the same N^3-based figure as the axis view "
+        "(its rays cross more cell segments than N^3)"
+    )
 
     if threads:
         print(f"\nthread scaling at N={args.thread_size} (numba.set_num_threads(k)):")
         base = threads[0][1]
         for k, row in threads:
-            print(f"  k={k:2d}: axis {row['axis']:8.3f} s (speedup {base['axis'] / row['axis']:5.2f}), "
-                  f"oblique {row['oblique']:8.3f} s (speedup {base['oblique'] / row['oblique']:5.2f})")
+            print(
+                f"  k={k:2d}: axis {row['axis']:8.3f} s (speedup {base['axis'] / row['axis']:5.2f}), "
+                f"oblique {row['oblique']:8.3f} s (speedup {base['oblique'] / row['oblique']:5.2f})"
+            )
     print(f"\npeak RSS {max_rss_mb():.0f} MiB")
 
 

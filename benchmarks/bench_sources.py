@@ -40,14 +40,14 @@ from rtrace.physics.ionization import IonizingSources
 from rtrace.physics.ionization.grid import ArrayInputs
 
 BOX_PC = 10.0
-MEAN_NH = 100.0                     # cm^-3
-SIGMA_LN = 1.0                      # standard deviation of ln n
-SMOOTH_CELLS = 3.0                  # Gaussian smoothing of the white noise (cells, at any N)
-T_COLD = 100.0                      # K
-T_ION = 1e4                         # K
-X_H, Y_HE = 0.70, 0.28              # the package's default composition
-M_H = (const.m_p + const.m_e).cgs.value     # g, the hydrogen atom
-ALPHA_B_1E4 = 2.59e-13              # cm^3 s^-1, case B at 1e4 K (for choosing Q only)
+MEAN_NH = 100.0  # cm^-3
+SIGMA_LN = 1.0  # standard deviation of ln n
+SMOOTH_CELLS = 3.0  # Gaussian smoothing of the white noise (cells, at any N)
+T_COLD = 100.0  # K
+T_ION = 1e4  # K
+X_H, Y_HE = 0.70, 0.28  # the package's default composition
+M_H = (const.m_p + const.m_e).cgs.value  # g, the hydrogen atom
+ALPHA_B_1E4 = 2.59e-13  # cm^3 s^-1, case B at 1e4 K (for choosing Q only)
 N_SCATTERED = 20
 SEED = 20240611
 NU = [5.0] * u.GHz
@@ -59,6 +59,7 @@ def cloud(n, seed=SEED):
     spec = np.fft.rfftn(rng.standard_normal((n, n, n), dtype=np.float32))
     k = np.fft.fftfreq(n).astype(np.float32)
     kz = np.fft.rfftfreq(n).astype(np.float32)
+
     # Gaussian of SMOOTH_CELLS cells: exp(-2 pi^2 s^2 k^2), applied axis by axis (separable, no k^2 cube)
     def damp(kk):
         return np.exp(-2.0 * np.pi**2 * SMOOTH_CELLS**2 * kk**2)
@@ -71,7 +72,7 @@ def cloud(n, seed=SEED):
     g -= g.mean()
     g *= SIGMA_LN / g.std()
     np.exp(g, out=g)
-    g *= MEAN_NH * M_H / X_H / g.mean()           # exactly the mean n_H, as mass density
+    g *= MEAN_NH * M_H / X_H / g.mean()  # exactly the mean n_H, as mass density
     return g
 
 
@@ -93,7 +94,7 @@ def scenario_models(rho, cell_cm):
     # for; the other rays run on through thinner gas. 1/8 of that sum gives, for this cloud, an ionized
     # volume of equivalent radius ~side/4 whose farthest cells stay inside the grid (found by trial).
     c = (np.arange(n) + 0.5) * cell_cm - 0.5 * side
-    inside = (c[:, None, None]**2 + c[None, :, None]**2 + c[None, None, :]**2) <= (0.25 * side)**2
+    inside = (c[:, None, None] ** 2 + c[None, :, None] ** 2 + c[None, None, :] ** 2) <= (0.25 * side) ** 2
     q_half = recombinations(rho, cell_cm, inside) / 8.0
     del inside
     # bright: 100x the recombinations of the whole grid ionizes every cell, shadows of clumps included
@@ -108,9 +109,11 @@ def scenario_models(rho, cell_cm):
         "bright": IonizingSources(centre * u.cm, [q_bright] / u.s, **common),
         "20 src": IonizingSources(pos * u.cm, rates / u.s, **common),
     }
-    note = (f"Q: 1 src {q_half:.3g} s-1 (1/8 of the recombinations within r = box/4, all ionized); bright "
-            f"{q_bright:.3g} s-1 (100x those of the whole grid); 20 src total {rates.sum():.3g} s-1 "
-            f"({rates.min():.2g} .. {rates.max():.2g} each, at random in the central 80% of each axis)")
+    note = (
+        f"Q: 1 src {q_half:.3g} s-1 (1/8 of the recombinations within r = box/4, all ionized); bright "
+        f"{q_bright:.3g} s-1 (100x those of the whole grid); 20 src total {rates.sum():.3g} s-1 "
+        f"({rates.min():.2g} .. {rates.max():.2g} each, at random in the central 80% of each axis)"
+    )
     return models, note
 
 
@@ -153,8 +156,10 @@ def spread(ts):
 
 def ratio_line(label, num, den, target=""):
     per_round = np.divide(num, den)
-    return (f"{label:<44}{np.median(num) / np.median(den):7.2f}   per round {np.median(per_round):6.2f} "
-            f"[{per_round.min():.2f}, {per_round.max():.2f}]{target}")
+    return (
+        f"{label:<44}{np.median(num) / np.median(den):7.2f}   per round {np.median(per_round):6.2f} "
+        f"[{per_round.min():.2f}, {per_round.max():.2f}]{target}"
+    )
 
 
 def main():
@@ -168,10 +173,12 @@ def main():
     t_build, rho = timed(lambda: cloud(n))
     temp = np.full(rho.shape, T_COLD)
     n_h = rho * (X_H / M_H)
-    print(f"cloud {n}^3, box {BOX_PC:g} pc (cell {BOX_PC / n * 1e3:.1f} mpc): lognormal n_H, mean "
-          f"{n_h.mean():.1f} cm-3, sigma(ln n) {np.log(n_h).std():.2f}, range {n_h.min():.3g} .. {n_h.max():.3g} "
-          f"cm-3, correlation {SMOOTH_CELLS:g} cells; T = {T_COLD:g} K, photoionized at {T_ION:g} K "
-          f"(built in {t_build:.1f} s)")
+    print(
+        f"cloud {n}^3, box {BOX_PC:g} pc (cell {BOX_PC / n * 1e3:.1f} mpc): lognormal n_H, mean "
+        f"{n_h.mean():.1f} cm-3, sigma(ln n) {np.log(n_h).std():.2f}, range {n_h.min():.3g} .. {n_h.max():.3g} "
+        f"cm-3, correlation {SMOOTH_CELLS:g} cells; T = {T_COLD:g} K, photoionized at {T_ION:g} K "
+        f"(built in {t_build:.1f} s)"
+    )
     del n_h
     models, note = scenario_models(rho, cell_cm)
     print(note)
@@ -179,19 +186,29 @@ def main():
     shape = rho.shape
     cell3 = np.full(3, cell_cm)
     origin = np.zeros(3)
-    reader = ArrayInputs(inputs={"density": rho, "temperature": temp}, fields={}, shape=shape,
-                         cell_size=cell3, origin=origin)
+    reader = ArrayInputs(
+        inputs={"density": rho, "temperature": temp}, fields={}, shape=shape, cell_size=cell3, origin=origin
+    )
     density_q = u.Quantity(rho, u.g / u.cm**3, copy=False)
     temp_q = u.Quantity(temp, u.K, copy=False)
+
     def build(ionization):
-        return rtrace.Snapshot.from_arrays(temperature=temp_q, cell_size=cell_cm * u.cm, density=density_q,
-                                           ionization=ionization)
+        return rtrace.Snapshot.from_arrays(
+            temperature=temp_q, cell_size=cell_cm * u.cm, density=density_q, ionization=ionization
+        )
 
     side = n * cell_cm * u.cm
     tilt = np.radians(30.0)
-    views = {"axis": rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=n, width=side, distance=1 * u.kpc),
-             "oblique": rtrace.View(los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)), north=(0, 1, 0),
-                                    npix=n, width=side, distance=1 * u.kpc)}
+    views = {
+        "axis": rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=n, width=side, distance=1 * u.kpc),
+        "oblique": rtrace.View(
+            los=(np.sin(tilt) * 0.6, np.sin(tilt) * 0.8, np.cos(tilt)),
+            north=(0, 1, 0),
+            npix=n,
+            width=side,
+            distance=1 * u.kpc,
+        ),
+    }
 
     # first uses, in the order that puts each kernel's compilation (or cache load) on its own row:
     # photoionize, then the snapshots to trace, built once outside the timed rounds
@@ -210,8 +227,10 @@ def main():
     tasks[("from_arrays", "collisional")] = (lambda: build("collisional"), False)
     first, times, values = interleaved_rounds(tasks, rounds, first)
 
-    print(f"\n{rounds} interleaved rounds after a first-use round; seconds, median [min, max]; first use = "
-          "the first call (numba compile or cache load, first touches)")
+    print(
+        f"\n{rounds} interleaved rounds after a first-use round; seconds, median [min, max]; first use = "
+        "the first call (numba compile or cache load, first touches)"
+    )
     print(f"{'':<24}{'median [min, max]':>28}{'first use':>12}")
     for (what, case), ts in times.items():
         print(f"{what + ', ' + case:<24}{spread(ts):>28}{first[(what, case)]:12.3f}")
@@ -221,21 +240,41 @@ def main():
     for case in models:
         for vname in views:
             target = "   (target: comparable, ~1)" if case == "1 src" else ""
-            print(ratio_line(f"photoionize / trace {vname}, {case}", times[("photoionize", case)],
-                             times[(f"trace {vname}", case)], target))
+            print(
+                ratio_line(
+                    f"photoionize / trace {vname}, {case}",
+                    times[("photoionize", case)],
+                    times[(f"trace {vname}", case)],
+                    target,
+                )
+            )
     # the trace of a mostly neutral snapshot skips the gas that does not emit: the bright case's snapshot
     # (every cell emitting) gives the cost of a trace of the whole grid
     for vname in views:
         for case in ("1 src", "20 src"):
-            print(ratio_line(f"photoionize {case} / trace {vname}, bright", times[("photoionize", case)],
-                             times[(f"trace {vname}", "bright")]))
+            print(
+                ratio_line(
+                    f"photoionize {case} / trace {vname}, bright",
+                    times[("photoionize", case)],
+                    times[(f"trace {vname}", "bright")],
+                )
+            )
     print(ratio_line("photoionize 20 src / 1 src", many, one, "   (target < 10)"))
     for vname in views:
-        print(ratio_line(f"photoionize 20 src / trace {vname} 1 src", many, times[(f"trace {vname}", "1 src")],
-                         "   (target < 10)"))
+        print(
+            ratio_line(
+                f"photoionize 20 src / trace {vname} 1 src",
+                many,
+                times[(f"trace {vname}", "1 src")],
+                "   (target < 10)",
+            )
+        )
     for case in models:
-        print(ratio_line(f"from_arrays {case} / collisional", times[("from_arrays", case)],
-                         times[("from_arrays", "collisional")]))
+        print(
+            ratio_line(
+                f"from_arrays {case} / collisional", times[("from_arrays", case)], times[("from_arrays", "collisional")]
+            )
+        )
 
     print("\nphoton budget and ionized cells (photoionized fraction p; a front cell has p^2 = its ionized volume)")
     for case in models:
@@ -243,9 +282,11 @@ def main():
         p = sol.fraction
         volume = float(np.mean(np.square(p, dtype=np.float64)))
         print(f"{case:<8}{sol.provenance()['photon_budget']}")
-        print(f"{'':<8}cells with p > 0.5: {np.mean(p > 0.5):.2%}; p > 0: {np.mean(p > 0):.2%}; ionized volume "
-              f"sum p^2 / cells: {volume:.2%} (a sphere of radius {(3 * volume / (4 * np.pi))**(1 / 3):.2f} box); "
-              f"snapshot: {snaps[case].provenance.get('ionization_state', '?')}")
+        print(
+            f"{'':<8}cells with p > 0.5: {np.mean(p > 0.5):.2%}; p > 0: {np.mean(p > 0):.2%}; ionized volume "
+            f"sum p^2 / cells: {volume:.2%} (a sphere of radius {(3 * volume / (4 * np.pi)) ** (1 / 3):.2f} box); "
+            f"snapshot: {snaps[case].provenance.get('ionization_state', '?')}"
+        )
     print(f"\npeak RSS {max_rss_mb():.0f} MiB")
 
 

@@ -42,10 +42,6 @@ NORTH = (0.0, 1.0, 0.0)
 J_UNITS = "erg/s/cm**3/Hz/sr"
 
 
-
-
-
-
 def emissivity(nu_hz, t, ne, ni, gaunt):
     """j_nu (erg s-1 cm-3 Hz-1 sr-1) from plain cgs float64 arrays.
 
@@ -71,6 +67,7 @@ def emissivity(nu_hz, t, ne, ni, gaunt):
 def load_into_yt(snap):
     """The snapshot as a yt uniform-grid dataset; code length = box side, domain [0, 1]^3."""
     import yt
+
     n = snap.shape
     side = np.asarray(snap.shape) * np.asarray(snap.cell_size)
     if not np.allclose(side, side[0]):
@@ -80,8 +77,9 @@ def load_into_yt(snap):
         "electron_density": (snap._ne, "cm**-3"),
         "ion_term": (snap._ni, "cm**-3"),
     }
-    return yt.load_uniform_grid(data, n, length_unit=(float(side[0]), "cm"),
-                                bbox=np.array([[0.0, 1.0]] * 3), nprocs=1, periodicity=(False,) * 3)
+    return yt.load_uniform_grid(
+        data, n, length_unit=(float(side[0]), "cm"), bbox=np.array([[0.0, 1.0]] * 3), nprocs=1, periodicity=(False,) * 3
+    )
 
 
 class EmissivityField:
@@ -115,12 +113,21 @@ def yt_projection(ds, field, los, npix, threads):
     with east = north x normal = -(north x los), i.e. minus rtrace's column axis.
     """
     import yt
+
     # no_ghost=True is the fast setting; yt 4.4.3's off_axis_projection accepts it but its grid path
     # (cell values, interpolated=False) needs no ghost zones either way.
     width = ds.arr([1.0, 1.0, math.sqrt(3.0)], "code_length")
-    img = yt.off_axis_projection(ds, ds.arr([0.5, 0.5, 0.5], "code_length"), -np.asarray(los, float),
-                                 width, npix, field, north_vector=np.asarray(NORTH), no_ghost=True,
-                                 num_threads=threads)
+    img = yt.off_axis_projection(
+        ds,
+        ds.arr([0.5, 0.5, 0.5], "code_length"),
+        -np.asarray(los, float),
+        width,
+        npix,
+        field,
+        north_vector=np.asarray(NORTH),
+        no_ghost=True,
+        num_threads=threads,
+    )
     return np.asarray(img.to(J_UNITS.replace("cm**3", "cm**2")).d)
 
 
@@ -133,23 +140,34 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cells", type=int, default=256, help="cells per side (default 256); image npix = cells")
     parser.add_argument("--repeat", type=int, default=3, help="best of this many runs (default 3)")
-    parser.add_argument("--threads", type=int, default=numba.config.NUMBA_NUM_THREADS,
-                        help="numba threads for rtrace and OpenMP threads for yt's projection "
-                             f"(default {numba.config.NUMBA_NUM_THREADS})")
-    parser.add_argument("--gaunt", choices=("radio", "full"), default="radio",
-                        help="Gaunt factor inside the yt field: classical radio form (default) or rtrace's full one")
+    parser.add_argument(
+        "--threads",
+        type=int,
+        default=numba.config.NUMBA_NUM_THREADS,
+        help="numba threads for rtrace and OpenMP threads for yt's projection "
+        f"(default {numba.config.NUMBA_NUM_THREADS})",
+    )
+    parser.add_argument(
+        "--gaunt",
+        choices=("radio", "full"),
+        default="radio",
+        help="Gaunt factor inside the yt field: classical radio form (default) or rtrace's full one",
+    )
     args = parser.parse_args()
     n = args.cells
     numba.set_num_threads(args.threads)
 
     import yt
+
     yt.set_log_level(40)
 
     t0 = time.perf_counter()
     snap = demo.scenario(n)
-    print(f"snapshot {n}^3 float32 built in {time.perf_counter() - t0:.1f} s; image {n}x{n} pixels, "
-          f"width = box side, distance {DISTANCE}; threads: rtrace {numba.get_num_threads()}, yt {args.threads}; "
-          f"yt {yt.__version__}, Gaunt factor in the yt field: {args.gaunt}")
+    print(
+        f"snapshot {n}^3 float32 built in {time.perf_counter() - t0:.1f} s; image {n}x{n} pixels, "
+        f"width = box side, distance {DISTANCE}; threads: rtrace {numba.get_num_threads()}, yt {args.threads}; "
+        f"yt {yt.__version__}, Gaunt factor in the yt field: {args.gaunt}"
+    )
     side_cm = float(snap.shape[0] * snap.cell_size[0])
     width = side_cm * u.cm
     pix_cm = side_cm / n
@@ -161,8 +179,9 @@ def main():
     # warm-ups outside the timings: numba compilation (cached on disk) and yt's first projection
     small = demo.scenario(16)
     for los in VIEWS.values():
-        rtrace.trace(small, rtrace.View(los=los, north=NORTH, npix=16, distance=DISTANCE), [5, 30] * u.GHz,
-                     supersample=1)
+        rtrace.trace(
+            small, rtrace.View(los=los, north=NORTH, npix=16, distance=DISTANCE), [5, 30] * u.GHz, supersample=1
+        )
     ds_small = load_into_yt(small)
     f_small, _ = add_emissivity(ds_small, 5.0, args.gaunt)
     for los in VIEWS.values():
@@ -184,24 +203,30 @@ def main():
         timings[name] = (t_rt, t_yt)
         print(f"\n{name} los=({', '.join(f'{x:.4f}' for x in los)}), 5 GHz, best of {args.repeat}:")
         print(f"  rtrace.trace (full transfer)          {t_rt:8.3f} s")
-        print(f"  yt off_axis_projection of j_nu field  {t_yt:8.3f} s   (field evaluated on "
-              f"{per_run:.0f} cells per projection = {per_run / n**3:.2f} x n^3)")
+        print(
+            f"  yt off_axis_projection of j_nu field  {t_yt:8.3f} s   (field evaluated on "
+            f"{per_run:.0f} cells per projection = {per_run / n**3:.2f} x n^3)"
+        )
         print(f"  ratio rtrace / yt                     {t_rt / t_yt:8.3f}   (target <= 0.3)")
     print(f"\npeak RSS {max_rss_mb():.0f} MiB (growth during the timings {max_rss_mb() - rss0:.0f} MiB)")
 
     # consistency at 30 GHz (nearly thin): totals over the same image, and the pixel maps
-    print("\nconsistency at 30 GHz (not asserted; yt samples each pixel with one ray through cell values, rtrace"
-          " reports the mean over each pixel's footprint, so per-pixel ratios scatter on the oblique view):")
+    print(
+        "\nconsistency at 30 GHz (not asserted; yt samples each pixel with one ray through cell values, rtrace"
+        " reports the mean over each pixel's footprint, so per-pixel ratios scatter on the oblique view):"
+    )
     t = snap._t.astype(np.float64)
     ne = snap._ne.astype(np.float64)
     ni = snap._ni.astype(np.float64)
     j_vol = emissivity(30e9, t, ne, ni, args.gaunt)
-    s_vol = j_vol.sum() * pix_cm**3 / d_cm**2 * 1e23              # whole box, thin, Jy
+    s_vol = j_vol.sum() * pix_cm**3 / d_cm**2 * 1e23  # whole box, thin, Jy
     if args.gaunt == "radio":
         j_full = emissivity(30e9, t, ne, ni, "full")
-        print(f"  whole-box thin flux of the yt field (numpy volume sum) {s_vol:.5g} Jy; with rtrace's full "
-              f"Gaunt factor instead {j_full.sum() * pix_cm**3 / d_cm**2 * 1e23:.5g} Jy "
-              f"(ratio full/radio {j_full.sum() / j_vol.sum():.4f})")
+        print(
+            f"  whole-box thin flux of the yt field (numpy volume sum) {s_vol:.5g} Jy; with rtrace's full "
+            f"Gaunt factor instead {j_full.sum() * pix_cm**3 / d_cm**2 * 1e23:.5g} Jy "
+            f"(ratio full/radio {j_full.sum() / j_vol.sum():.4f})"
+        )
         del j_full
     else:
         print(f"  whole-box thin flux of the yt field (numpy volume sum) {s_vol:.5g} Jy")
@@ -217,15 +242,20 @@ def main():
         thin_rt, thin_yt = ours[thin].sum(), img_yt[thin].sum()
         bright = thin & (img_yt > 1e-2 * np.percentile(img_yt[img_yt > 0], 99))
         rel = ours[bright] / img_yt[bright]
-        print(f"  {name:8s} rtrace S = {s_rt:.5g} Jy (max tau {tau.max():.3g}, "
-              f"pixel {res.pixel_size.to_value(u.cm):.4g} cm);"
-              f" yt sum(image) * pixel area / D^2 = {s_yt:.5g} Jy (pixel {pix_cm:.4g} cm)")
+        print(
+            f"  {name:8s} rtrace S = {s_rt:.5g} Jy (max tau {tau.max():.3g}, "
+            f"pixel {res.pixel_size.to_value(u.cm):.4g} cm);"
+            f" yt sum(image) * pixel area / D^2 = {s_yt:.5g} Jy (pixel {pix_cm:.4g} cm)"
+        )
         print(f"           ratio rtrace / yt = {s_rt / s_yt:.4f}; yt image / whole-box volume sum = {s_yt / s_vol:.4f}")
-        print(f"           pixels with rtrace tau < 0.1 ({thin.sum()} px, "
-              f"{thin_yt / img_yt.sum():.1%} of the yt flux): "
-              f"rtrace / yt = {thin_rt / thin_yt:.4f}; per pixel among them (I_yt > 1% of its 99th percentile, "
-              f"{bright.sum()} px) median {np.median(rel):.4f}, "
-              f"16-84% {np.percentile(rel, 16):.4f}-{np.percentile(rel, 84):.4f}")
+        print(
+            f"           pixels with rtrace tau < 0.1 ({thin.sum()} px, "
+            f"{thin_yt / img_yt.sum():.1%} of the yt flux): "
+            f"rtrace / yt = {thin_rt / thin_yt:.4f}; per pixel among them (I_yt > 1% of its 99th percentile, "
+            f"{bright.sum()} px) median {np.median(rel):.4f}, "
+            f"16-84% {np.percentile(rel, 16):.4f}-{np.percentile(rel, 84):.4f}"
+        )
+
 
 if __name__ == "__main__":
     main()

@@ -22,29 +22,49 @@ GALLERY = ROOT / "docs" / "_gallery"
 
 # (example, snapshot file or None, [(picture, caption)]): the pictures shown, in order
 EXAMPLES = [
-    ("compact_core", None, [
-        ("out/cut.png", "A cut through the compact core and its halo, with and without absorption."),
-        ("out/comparison.png",
-         "The ring array's image (left) against the model and their difference: the array filters out the halo."),
-    ]),
-    ("ionized_jet", "jet.h5", [
-        ("jet-output/inclined_45_intensity.png", "Intensity of the bipolar wind at 45 degrees."),
-        ("jet-output/inclined_45_observed.png",
-         "The same, convolved with a beam whose width scales as 1/frequency (grey disk)."),
-        ("jet-output/inclined_45_spectral_index.png", "Spectral index map."),
-        ("jet-output/pole_on_tau_unity_frequency.png", "Frequency at which the optical depth reaches 1, pole-on."),
-        ("jet-output/edge_on_sed.png", "Spectrum of the whole source, edge-on."),
-    ]),
-    ("hii_gradient", "hii.h5", [
-        ("hii-output/face_intensity.png", "A blister HII region whose density falls across its face."),
-        ("hii-output/face_spectral_index.png", "Its spectral index, from optically thick to thin across the face."),
-        ("hii-output/face_observed.png", "Observed with a beam and noise."),
-    ]),
-    ("stars_in_clumpy_cloud", "cloud.h5", [
-        ("cloud-output/face_intensity.png", "HII regions of three stars in a clumpy sheet, face-on."),
-        ("cloud-output/side_tau_unity_frequency.png", "The optical-depth-1 frequency, side-on."),
-        ("out/shadows.png", "Electron density in the midplane beside the 22 GHz map: globules cast shadows."),
-    ]),
+    (
+        "compact_core",
+        None,
+        [
+            ("out/cut.png", "A cut through the compact core and its halo, with and without absorption."),
+            (
+                "out/comparison.png",
+                "The ring array's image (left) against the model and their difference: the array filters out the halo.",
+            ),
+        ],
+    ),
+    (
+        "ionized_jet",
+        "jet.h5",
+        [
+            ("jet-output/inclined_45_intensity.png", "Intensity of the bipolar wind at 45 degrees."),
+            (
+                "jet-output/inclined_45_observed.png",
+                "The same, convolved with a beam whose width scales as 1/frequency (grey disk).",
+            ),
+            ("jet-output/inclined_45_spectral_index.png", "Spectral index map."),
+            ("jet-output/pole_on_tau_unity_frequency.png", "Frequency at which the optical depth reaches 1, pole-on."),
+            ("jet-output/edge_on_sed.png", "Spectrum of the whole source, edge-on."),
+        ],
+    ),
+    (
+        "hii_gradient",
+        "hii.h5",
+        [
+            ("hii-output/face_intensity.png", "A blister HII region whose density falls across its face."),
+            ("hii-output/face_spectral_index.png", "Its spectral index, from optically thick to thin across the face."),
+            ("hii-output/face_observed.png", "Observed with a beam and noise."),
+        ],
+    ),
+    (
+        "stars_in_clumpy_cloud",
+        "cloud.h5",
+        [
+            ("cloud-output/face_intensity.png", "HII regions of three stars in a clumpy sheet, face-on."),
+            ("cloud-output/side_tau_unity_frequency.png", "The optical-depth-1 frequency, side-on."),
+            ("out/shadows.png", "Electron density in the midplane beside the 22 GHz map: globules cast shadows."),
+        ],
+    ),
 ]
 
 
@@ -69,8 +89,9 @@ def run_example(name, snapshot, reuse):
     py = sys.executable
     if snapshot is not None:
         run([py, "make_snapshot.py", snapshot], where)
-        run([py, "-c", "import sys; from rtrace.cli import main; sys.exit(main())", "run", "job.toml", "--quiet"],
-            where)
+        run(
+            [py, "-c", "import sys; from rtrace.cli import main; sys.exit(main())", "run", "job.toml", "--quiet"], where
+        )
     run([py, "run.py"], where)
     return where
 
@@ -83,9 +104,13 @@ def main(argv=None):
     RUNS.mkdir(parents=True, exist_ok=True)
     shutil.rmtree(GALLERY, ignore_errors=True)
     GALLERY.mkdir(parents=True)
-    lines = ["# Gallery", "",
-             "Pictures written by the examples (`examples/`), each an invented scenario; `make docs` runs them first",
-             "(`docs/gallery.py`). See each example's `run.py` and job file for how a picture was made.", ""]
+    lines = [
+        "# Gallery",
+        "",
+        "Pictures written by the examples (`examples/`), each an invented scenario; `make docs` runs them first",
+        "(`docs/gallery.py`). See each example's `run.py` and job file for how a picture was made.",
+        "",
+    ]
     for name, snapshot, pictures in EXAMPLES:
         where = run_example(name, snapshot, args.reuse)
         lines += [f"## {name.replace('_', ' ')}", "", f"From `examples/{name}/`.", ""]

@@ -16,5 +16,19 @@ from .io.lazy import open_hdf5
 from .snapshot import Snapshot
 from .transfer import Result, View, trace
 
-__all__ = ["Snapshot", "View", "Result", "trace", "open_hdf5", "physics", "RtraceError", "InputError",
-           "ConfigError", "PhysicsRangeWarning", "compare", "Comparison", "interferometer", "__version__"]
+__all__ = [
+    "Snapshot",
+    "View",
+    "Result",
+    "trace",
+    "open_hdf5",
+    "physics",
+    "RtraceError",
+    "InputError",
+    "ConfigError",
+    "PhysicsRangeWarning",
+    "compare",
+    "Comparison",
+    "interferometer",
+    "__version__",
+]

@@ -96,8 +96,9 @@ def decompose(grids, domain_lo, domain_hi):
     by_level = {}
     for g in grids:
         by_level.setdefault(g.level, []).append(g)
-    return _node(np.asarray(domain_lo, np.int64), np.asarray(domain_hi, np.int64), -1, None,
-                 by_level.get(0, []), by_level)
+    return _node(
+        np.asarray(domain_lo, np.int64), np.asarray(domain_hi, np.int64), -1, None, by_level.get(0, []), by_level
+    )
 
 
 def _node(lo, hi, level, grid, candidates, by_level):
@@ -105,8 +106,10 @@ def _node(lo, hi, level, grid, candidates, by_level):
     cands = [g for g in candidates if _overlaps(g, lo, hi)]
     if not cands:
         if grid is None:
-            raise InputError(f"AMR hierarchy: no level-0 grid covers the cells from {lo.tolist()} to "
-                             f"{hi.tolist()} (finest-level indices); level 0 must cover the domain")
+            raise InputError(
+                f"AMR hierarchy: no level-0 grid covers the cells from {lo.tolist()} to "
+                f"{hi.tolist()} (finest-level indices); level 0 must cover the domain"
+            )
         return Leaf(grid, lo, hi)
     for g in cands:
         if _contains(g, lo, hi):
@@ -123,8 +126,9 @@ def _node(lo, hi, level, grid, candidates, by_level):
     _, ax, p = best
     low_hi, high_lo = hi.copy(), lo.copy()
     low_hi[ax], high_lo[ax] = p, p
-    return _Split(ax, p, _node(lo, low_hi, level, grid, cands, by_level),
-                  _node(high_lo, hi, level, grid, cands, by_level))
+    return _Split(
+        ax, p, _node(lo, low_hi, level, grid, cands, by_level), _node(high_lo, hi, level, grid, cands, by_level)
+    )
 
 
 def leaves(tree):
@@ -154,7 +158,7 @@ def front_to_back(tree, los):
             out.append(node)
             continue
         near, far = (node.high, node.low) if los[node.axis] > 0 else (node.low, node.high)
-        stack.extend((far, near))          # near is popped first
+        stack.extend((far, near))  # near is popped first
     return out
 
 
@@ -199,10 +203,12 @@ class AMRSnapshot(GridGeometry):
                 r = self.scale(g.level - 1)
                 if np.any(g.lo % r) or np.any(g.hi % r):
                     s = self.scale(g.level)
-                    raise InputError(f"AMR hierarchy: {g.label} at level {g.level} (cells {(g.lo // s).tolist()} "
-                                     f"to {(g.hi // s).tolist()} of its level) does not start and end on cell "
-                                     f"boundaries of level {g.level - 1}; rtrace needs grids aligned with their "
-                                     "parents' cells")
+                    raise InputError(
+                        f"AMR hierarchy: {g.label} at level {g.level} (cells {(g.lo // s).tolist()} "
+                        f"to {(g.hi // s).tolist()} of its level) does not start and end on cell "
+                        f"boundaries of level {g.level - 1}; rtrace needs grids aligned with their "
+                        "parents' cells"
+                    )
         self.tree = decompose(self.grids, np.zeros(3, np.int64), np.asarray(self.shape, np.int64))
         self.leaves = leaves(self.tree)
         self._checksum = None
@@ -242,12 +248,14 @@ class AMRSnapshot(GridGeometry):
     def describe(self):
         """A few lines for people: levels, grids, leaves, finest cell, cells per level and each field's range."""
         counts = self.cell_counts()
-        lines = [f"AMR snapshot, {self.levels} level(s) refined by {self.refine_by}, {len(self.grids)} grids, "
-                 f"{len(self.leaves)} leaves, from {self.provenance['source']}",
-                 f"  finest cell {', '.join(f'{c / PC:.4g}' for c in self.cell_size)} pc; "
-                 f"equivalent uniform grid {self.shape[0]}x{self.shape[1]}x{self.shape[2]}",
-                 "  cells traced per level: " + ", ".join(f"{int(c)}" for c in counts),
-                 f"  ionization {self.provenance.get('ionization', '?')}"]
+        lines = [
+            f"AMR snapshot, {self.levels} level(s) refined by {self.refine_by}, {len(self.grids)} grids, "
+            f"{len(self.leaves)} leaves, from {self.provenance['source']}",
+            f"  finest cell {', '.join(f'{c / PC:.4g}' for c in self.cell_size)} pc; "
+            f"equivalent uniform grid {self.shape[0]}x{self.shape[1]}x{self.shape[2]}",
+            "  cells traced per level: " + ", ".join(f"{int(c)}" for c in counts),
+            f"  ionization {self.provenance.get('ionization', '?')}",
+        ]
         for name, attr, unit in (("T_e", "t", "K"), ("n_e", "ne", "cm-3"), ("ion term", "ni", "cm-3")):
             lo = min(float(getattr(g, attr).min()) for g in self.grids)
             hi = max(float(getattr(g, attr).max()) for g in self.grids)
@@ -255,5 +263,7 @@ class AMRSnapshot(GridGeometry):
         return "\n".join(lines)
 
     def __repr__(self):
-        return (f"<AMRSnapshot levels={self.levels} grids={len(self.grids)} leaves={len(self.leaves)} "
-                f"source={self.provenance['source']!r}>")
+        return (
+            f"<AMRSnapshot levels={self.levels} grids={len(self.grids)} leaves={len(self.leaves)} "
+            f"source={self.provenance['source']!r}>"
+        )

@@ -105,5 +105,7 @@ def watch_compilation(say=None):
         finally:
             seen.count, seen.seconds, seen.kernels = listener.count, listener.seconds, list(listener.kernels)
     if say is not None and seen.count:
-        say(f"{COMPILING_MESSAGE}: {seen.count} compiled in {seen.seconds:.1f} s; "
-            f"numba keeps them in its cache for later runs")
+        say(
+            f"{COMPILING_MESSAGE}: {seen.count} compiled in {seen.seconds:.1f} s; "
+            f"numba keeps them in its cache for later runs"
+        )

@@ -29,7 +29,7 @@ __all__ = ["scenario", "main", "DEMO_FREQUENCIES", "DEMO_SEED"]
 #: Seed of the demo's clump field when a job gives none.
 DEMO_SEED = 7
 DEMO_FREQUENCIES = 0.3 * u.GHz * (100 / 0.3) ** (np.arange(6) / 5)
-_M_H = (const.m_p + const.m_e).cgs.value   # g, mass of a hydrogen atom (binding energy neglected)
+_M_H = (const.m_p + const.m_e).cgs.value  # g, mass of a hydrogen atom (binding energy neglected)
 
 
 #: Highest clump wavenumber, in cycles per box side: the smallest clumps are 1/8 of the box (0.25 pc).
@@ -50,23 +50,24 @@ def _clumps(n, rng, slope=-3.7, sigma=0.7, modes=CLUMP_MODES):
     density) comes from the modes (Parseval), not from the samples.
     """
     from scipy import fft
+
     m = 2 * modes + 1
-    k = np.arange(-modes, modes + 1)                              # integer wavenumbers, cycles per side
+    k = np.arange(-modes, modes + 1)  # integer wavenumbers, cycles per side
     kx, ky, kz = np.meshgrid(k, k, k, indexing="ij")
     kk = (kx**2 + ky**2 + kz**2).astype(float)
     kk[modes, modes, modes] = 1.0
-    amp = kk**(slope / 4)                                         # |k|^(slope/2): power ~ k^slope
+    amp = kk ** (slope / 4)  # |k|^(slope/2): power ~ k^slope
     amp[modes, modes, modes] = 0.0
-    amp[kk > modes**2] = 0.0                                      # a sphere of modes: isotropic
+    amp[kk > modes**2] = 0.0  # a sphere of modes: isotropic
     coeff = amp * (rng.standard_normal((m, m, m)) + 1j * rng.standard_normal((m, m, m)))
-    coeff = 0.5 * (coeff + np.conj(coeff[::-1, ::-1, ::-1]))      # Hermitian: the field is real
-    keep = min(modes, (n - 1) // 2)                               # modes this grid can sample
+    coeff = 0.5 * (coeff + np.conj(coeff[::-1, ::-1, ::-1]))  # Hermitian: the field is real
+    keep = min(modes, (n - 1) // 2)  # modes this grid can sample
     if keep < modes:
         cut = slice(modes - keep, modes + keep + 1)
         coeff = coeff[cut, cut, cut]
-        k = k[modes - keep:modes + keep + 1]
-    norm = sigma / np.sqrt(np.sum(np.abs(coeff)**2))              # Parseval: the field's variance
-    shift = np.exp(1j * np.pi * k / n)                            # samples at cell centres (i + 1/2) / n
+        k = k[modes - keep : modes + keep + 1]
+    norm = sigma / np.sqrt(np.sum(np.abs(coeff) ** 2))  # Parseval: the field's variance
+    shift = np.exp(1j * np.pi * k / n)  # samples at cell centres (i + 1/2) / n
     coeff = coeff * norm * shift[:, None, None] * shift[None, :, None] * shift[None, None, :]
     field = np.zeros((n, n, n), complex)
     idx = np.mod(k, n)
@@ -112,32 +113,35 @@ def scenario(n=96, seed=DEMO_SEED, box=2.0 * u.pc):
         raise InputError(f"cells: the demo needs an integer number of cells per side >= 2, got {n!r}")
     rng = np.random.default_rng(seed)
     side = box.to_value(u.pc)
-    scale = side / 2.0                                            # the scene is drawn for a 2 pc box
+    scale = side / 2.0  # the scene is drawn for a 2 pc box
     dx = side / n
     x = (np.arange(n) + 0.5) * dx - side / 2
     clumps = _clumps(n, rng)
     # bubble centred slightly off the box centre so views differ
     bx, by, bz = 0.08 * scale, -0.05 * scale, 0.0
-    r = np.sqrt((x[:, None, None] - bx)**2 + (x[None, :, None] - by)**2 + (x[None, None, :] - bz)**2)
+    r = np.sqrt((x[:, None, None] - bx) ** 2 + (x[None, :, None] - by) ** 2 + (x[None, None, :] - bz) ** 2)
     r_bubble, shell, r_wind, r_core = 0.55 * scale, 0.09 * scale, 0.15 * scale, 0.03 * scale
     width = EDGE_WIDTH * scale
-    bubble = _inside(r, r_bubble, width)                          # 1 inside the bubble
-    ionized = _inside(r, r_bubble + shell, width)                 # 1 inside the shell's outer edge
+    bubble = _inside(r, r_bubble, width)  # 1 inside the bubble
+    ionized = _inside(r, r_bubble + shell, width)  # 1 inside the shell's outer edge
     wind = _inside(r, r_wind, width)
-    n_h = clumps * (300.0 * (1.0 - ionized) + 1500.0 * (ionized - bubble))     # cloud and shell, cm-3
+    n_h = clumps * (300.0 * (1.0 - ionized) + 1500.0 * (ionized - bubble))  # cloud and shell, cm-3
     n_h += 30.0 * bubble
-    n_h += wind * 3.0e4 * (0.02 * scale)**2 / (r**2 + r_core**2)               # r^-2 wind, cored
-    temp = 30.0 * (1.0 - ionized) + 8000.0 * (ionized - bubble) + 9000.0 * bubble   # K
+    n_h += wind * 3.0e4 * (0.02 * scale) ** 2 / (r**2 + r_core**2)  # r^-2 wind, cored
+    temp = 30.0 * (1.0 - ionized) + 8000.0 * (ionized - bubble) + 9000.0 * bubble  # K
     temp += wind * (1.0e4 - temp)
     del r, bubble, wind, clumps
-    comp = Composition()                                          # X = 0.70, Y = 0.28
+    comp = Composition()  # X = 0.70, Y = 0.28
     rho = n_h
-    rho *= _M_H / comp.hydrogen                                   # g cm-3, in place
-    return Snapshot.from_arrays(temperature=u.Quantity(temp, u.K, copy=False), cell_size=dx * u.pc,
-                                density=u.Quantity(rho, u.g / u.cm**3, copy=False),
-                                ionization=SuppliedFraction(ionized, composition=comp),
-                                origin=[-side / 2] * 3 * u.pc,
-                                source=f"rtrace.demo.scenario(n={n}, seed={seed})")
+    rho *= _M_H / comp.hydrogen  # g cm-3, in place
+    return Snapshot.from_arrays(
+        temperature=u.Quantity(temp, u.K, copy=False),
+        cell_size=dx * u.pc,
+        density=u.Quantity(rho, u.g / u.cm**3, copy=False),
+        ionization=SuppliedFraction(ionized, composition=comp),
+        origin=[-side / 2] * 3 * u.pc,
+        source=f"rtrace.demo.scenario(n={n}, seed={seed})",
+    )
 
 
 def main(argv=None):
@@ -160,9 +164,15 @@ def main(argv=None):
     t1 = time.perf_counter()
     print(snap.describe())
     print(f"  built in {t1 - t0:.2f} s")
-    views = {"face-on (los +z)": View(los=(0, 0, 1), north=(0, 1, 0), npix=args.pixels, distance=2 * u.kpc),
-             "oblique (30 deg)": View(los=(0, np.sin(np.radians(30)), np.cos(np.radians(30))),
-                                      north=(0, 1, 0), npix=args.pixels, distance=2 * u.kpc)}
+    views = {
+        "face-on (los +z)": View(los=(0, 0, 1), north=(0, 1, 0), npix=args.pixels, distance=2 * u.kpc),
+        "oblique (30 deg)": View(
+            los=(0, np.sin(np.radians(30)), np.cos(np.radians(30))),
+            north=(0, 1, 0),
+            npix=args.pixels,
+            distance=2 * u.kpc,
+        ),
+    }
     for name, view in views.items():
         t0 = time.perf_counter()
         res = trace(snap, view, DEMO_FREQUENCIES)
@@ -176,8 +186,9 @@ def main(argv=None):
         for f in range(len(nu)):
             a = f"{alpha[f]:+7.2f}" if f < len(alpha) else " " * 7
             print(f"  {nu[f]:9.3g} {flux[f]:10.4g} {a} {res.tau[f].max():9.3g} {np.nanmax(tb[f]):12.4g}")
-        print(f"  peak emission measure {res.emission_measure.max():.3g}  "
-              "(alpha: spectral index to the next frequency)")
+        print(
+            f"  peak emission measure {res.emission_measure.max():.3g}  (alpha: spectral index to the next frequency)"
+        )
 
 
 if __name__ == "__main__":

@@ -8,8 +8,17 @@ import os
 import sys
 import warnings
 
-__all__ = ["RtraceError", "InputError", "ConfigError", "OutputError", "PhysicsRangeWarning", "GauntRangeWarning",
-           "RelativisticWarning", "PixelAccuracyWarning", "warn_user"]
+__all__ = [
+    "RtraceError",
+    "InputError",
+    "ConfigError",
+    "OutputError",
+    "PhysicsRangeWarning",
+    "GauntRangeWarning",
+    "RelativisticWarning",
+    "PixelAccuracyWarning",
+    "warn_user",
+]
 
 
 class RtraceError(Exception):

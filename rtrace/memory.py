@@ -25,9 +25,20 @@ import os
 
 from .errors import InputError
 
-__all__ = ["HEADROOM", "available_memory", "format_bytes", "check_memory", "fits_in_memory", "array_bytes",
-           "fft_kernel_bytes", "split_cell_bytes", "trace_image_bytes", "trace_ray_bytes", "observe_bytes",
-           "synthesis_bytes"]
+__all__ = [
+    "HEADROOM",
+    "available_memory",
+    "format_bytes",
+    "check_memory",
+    "fits_in_memory",
+    "array_bytes",
+    "fft_kernel_bytes",
+    "split_cell_bytes",
+    "trace_image_bytes",
+    "trace_ray_bytes",
+    "observe_bytes",
+    "synthesis_bytes",
+]
 
 _FLOAT = 8
 _COMPLEX = 16
@@ -43,7 +54,7 @@ def _meminfo_available(path="/proc/meminfo"):
             for line in fh:
                 if line.startswith(b"MemAvailable:"):
                     parts = line.split()
-                    return int(parts[1]) * 1024          # the value is in kB (KiB)
+                    return int(parts[1]) * 1024  # the value is in kB (KiB)
     except (OSError, ValueError, IndexError):
         return None
     return None
@@ -136,13 +147,17 @@ def check_memory(need, *, field, what, hint, budget=None):
     """
     need = int(need)
     if budget is not None and need > budget:
-        raise InputError(f"{field}: {what} would need about {format_bytes(need)}, more than max_memory = "
-                         f"{format_bytes(budget)}; {hint}")
+        raise InputError(
+            f"{field}: {what} would need about {format_bytes(need)}, more than max_memory = "
+            f"{format_bytes(budget)}; {hint}"
+        )
     avail = available_memory()
     if avail is not None and need > HEADROOM * avail:
-        raise InputError(f"{field}: {what} would need about {format_bytes(need)}, more than "
-                         f"{HEADROOM:.0%} of the {format_bytes(avail)} of memory available on this machine; "
-                         f"{hint}")
+        raise InputError(
+            f"{field}: {what} would need about {format_bytes(need)}, more than "
+            f"{HEADROOM:.0%} of the {format_bytes(avail)} of memory available on this machine; "
+            f"{hint}"
+        )
     return need
 
 
@@ -233,6 +248,5 @@ def synthesis_bytes(nfreq, image_size, nvis, model_shape, chunk_bytes=0):
     """
     plane = array_bytes(nfreq, image_size, image_size)
     images = 5 * plane + 4 * plane + 2 * array_bytes(nfreq, *model_shape) + int(chunk_bytes)
-    samples = (array_bytes(nfreq, 2 * nvis, itemsize=_COMPLEX) + array_bytes(nfreq, 2 * nvis)
-               + array_bytes(nvis, 16))
+    samples = array_bytes(nfreq, 2 * nvis, itemsize=_COMPLEX) + array_bytes(nfreq, 2 * nvis) + array_bytes(nvis, 16)
     return images, samples

@@ -5,8 +5,18 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["positive_scalar", "finite_number", "storage_dtype", "check_density_inputs", "parse_frequencies",
-           "parse_vector3", "JY_PER_BEAM", "jy_per_beam", "CellTally", "check_cells"]
+__all__ = [
+    "positive_scalar",
+    "finite_number",
+    "storage_dtype",
+    "check_density_inputs",
+    "parse_frequencies",
+    "parse_vector3",
+    "JY_PER_BEAM",
+    "jy_per_beam",
+    "CellTally",
+    "check_cells",
+]
 
 #: The field types a snapshot stores (the kernels are compiled for these two).
 STORAGE_DTYPES = (np.dtype(np.float32), np.dtype(np.float64))
@@ -35,8 +45,10 @@ def check_density_inputs(density, electron_density, ion_density, pressure, inter
     if density is None:
         for name, value in (("pressure", pressure), ("internal_energy", internal_energy)):
             if value is not None:
-                raise InputError(f"{name}: needs density (the particle count that turns it into a temperature "
-                                 "depends on the mass density and its ionization)")
+                raise InputError(
+                    f"{name}: needs density (the particle count that turns it into a temperature "
+                    "depends on the mass density and its ionization)"
+                )
         if electron_density is None:
             raise InputError("electron_density: required unless density and ionization are given")
 
@@ -94,6 +106,7 @@ def finite_number(value, name, positive=False, what="a number"):
 # frequencies
 # --------------------------------------------------------------------------------------------
 
+
 def parse_frequencies(value, name="frequencies", *, scalar=False, error=InputError):
     """Frequencies (or wavelengths, or photon energies) as floats in Hz.
 
@@ -125,7 +138,7 @@ def parse_frequencies(value, name="frequencies", *, scalar=False, error=InputErr
         values that are not finite and positive (counted).
     """
     q = _spectral_quantity(value, name, error)
-    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):   # a zero wavelength: refused below
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):  # a zero wavelength: refused below
         nu = np.asarray(q.to_value(u.Hz, equivalencies=u.spectral()), dtype=float)
     if scalar:
         if nu.ndim != 0:
@@ -138,8 +151,10 @@ def parse_frequencies(value, name="frequencies", *, scalar=False, error=InputErr
         raise error(f"{name}: must be a 1D sequence of finite positive values, got shape {nu.shape}")
     bad = ~(np.isfinite(nu) & (nu > 0))
     if bad.any():
-        raise error(f"{name}: must be a 1D sequence of finite positive values; {int(bad.sum())} of {nu.size} "
-                    f"are not (first: {q.ravel()[np.argmax(bad)] if q.ndim else q})")
+        raise error(
+            f"{name}: must be a 1D sequence of finite positive values; {int(bad.sum())} of {nu.size} "
+            f"are not (first: {q.ravel()[np.argmax(bad)] if q.ndim else q})"
+        )
     return nu
 
 
@@ -207,6 +222,7 @@ def jy_per_beam(value, name, example="0.1 * u.mJy / u.beam", *, error=InputError
 # --------------------------------------------------------------------------------------------
 # per-cell validation, whole arrays or streamed block by block
 # --------------------------------------------------------------------------------------------
+
 
 class CellTally:
     """Counts of the bad cells of one field over one array or the blocks of a streaming pass.
@@ -293,8 +309,9 @@ class CellTally:
         if self.nonfinite:
             problems.append((self.nonfinite, "are not finite (NaN or inf)"))
         if self.low or self.high:
-            extreme = ", ".join(([f"minimum {self.min:.6g}"] if self.low else [])
-                                + ([f"maximum {self.max:.6g}"] if self.high else []))
+            extreme = ", ".join(
+                ([f"minimum {self.min:.6g}"] if self.low else []) + ([f"maximum {self.max:.6g}"] if self.high else [])
+            )
             problems.append((self.low + self.high, f"violate {self.rule} ({extreme})"))
         first, text = problems[0]
         words = f"{first} of {cells} {text}"
@@ -336,8 +353,11 @@ def parse_vector3(value, name, unit):
     q = u.Quantity(value)
     if not q.unit.is_equivalent(unit):
         raise InputError(f"{name}: expected a length, got unit '{q.unit}'")
-    vec = np.broadcast_to(np.asarray(q.to_value(unit), float), (3,)).copy() if q.ndim == 0 \
+    vec = (
+        np.broadcast_to(np.asarray(q.to_value(unit), float), (3,)).copy()
+        if q.ndim == 0
         else np.asarray(q.to_value(unit), float).reshape(-1)
+    )
     if vec.shape != (3,):
         raise InputError(f"{name}: expected a scalar or a 3-vector, got shape {q.shape}")
     return vec

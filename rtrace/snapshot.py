@@ -32,9 +32,14 @@ def register_reader(name, reader):
     """Make ``reader`` the function behind ``Snapshot.from_<name>`` (called by the reader's module on import)."""
     _READERS[name] = reader
 
+
 #: Provenance entries that ``describe`` shows, with their labels.
-_PROVENANCE_LINES = (("ionization_state", "state"), ("temperature", "T from"), ("ionizing_sources", "sources"),
-                     ("photon_budget", "photons"))
+_PROVENANCE_LINES = (
+    ("ionization_state", "state"),
+    ("temperature", "T from"),
+    ("ionizing_sources", "sources"),
+    ("photon_budget", "photons"),
+)
 
 
 def field_digest(arr):
@@ -105,9 +110,25 @@ class Snapshot(GridGeometry):
         self.kept = {}
 
     @classmethod
-    def from_arrays(cls, temperature=None, cell_size=None, electron_density=None, ion_density=None, *,
-                    density=None, pressure=None, internal_energy=None, gamma=None, ionization=None,
-                    composition=None, helium=None, origin=None, fields=None, dtype=np.float32, source="arrays"):
+    def from_arrays(
+        cls,
+        temperature=None,
+        cell_size=None,
+        electron_density=None,
+        ion_density=None,
+        *,
+        density=None,
+        pressure=None,
+        internal_energy=None,
+        gamma=None,
+        ionization=None,
+        composition=None,
+        helium=None,
+        origin=None,
+        fields=None,
+        dtype=np.float32,
+        source="arrays",
+    ):
         """Build a Snapshot from in-memory arrays.
 
         Give either ``electron_density`` (and optionally ``ion_density``)
@@ -191,17 +212,43 @@ class Snapshot(GridGeometry):
             raise InputError(f"cell_size: must be finite and positive, got {cell} cm")
         org = np.zeros(3) if origin is None else parse_vector3(origin, "origin", u.cm)
         t, ne, ni, derived = derive_fields(
-            cell, org, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
-            density=density, pressure=pressure, internal_energy=internal_energy, gamma=gamma,
-            ionization=ionization, composition=composition, helium=helium, fields=fields, dtype=dtype)
+            cell,
+            org,
+            temperature=temperature,
+            electron_density=electron_density,
+            ion_density=ion_density,
+            density=density,
+            pressure=pressure,
+            internal_energy=internal_energy,
+            gamma=gamma,
+            ionization=ionization,
+            composition=composition,
+            helium=helium,
+            fields=fields,
+            dtype=dtype,
+        )
         provenance = {"source": str(source), **derived}
         check_temperature_range(t, "temperature")
         return cls(t, ne, ni, cell, org, provenance)
 
     @classmethod
-    def from_yt(cls, ds, *, temperature=None, electron_density=None, ion_density=None, density=None,
-                pressure=None, internal_energy=None, gamma=None, ionization=None, composition=None, helium=None,
-                level=None, dtype=np.float32):
+    def from_yt(
+        cls,
+        ds,
+        *,
+        temperature=None,
+        electron_density=None,
+        ion_density=None,
+        density=None,
+        pressure=None,
+        internal_energy=None,
+        gamma=None,
+        ionization=None,
+        composition=None,
+        helium=None,
+        level=None,
+        dtype=np.float32,
+    ):
         """Build a snapshot from a yt dataset, any simulation code yt reads.
 
         Parameters
@@ -248,9 +295,21 @@ class Snapshot(GridGeometry):
             not aligned with their parents' cells, sources with an AMR
             hierarchy (give ``level``).
         """
-        return _READERS["yt"](ds, temperature=temperature, electron_density=electron_density, ion_density=ion_density,
-                       density=density, pressure=pressure, internal_energy=internal_energy, gamma=gamma,
-                       ionization=ionization, composition=composition, helium=helium, level=level, dtype=dtype)
+        return _READERS["yt"](
+            ds,
+            temperature=temperature,
+            electron_density=electron_density,
+            ion_density=ion_density,
+            density=density,
+            pressure=pressure,
+            internal_energy=internal_energy,
+            gamma=gamma,
+            ionization=ionization,
+            composition=composition,
+            helium=helium,
+            level=level,
+            dtype=dtype,
+        )
 
     # -- fields as Quantities (views, no copies) --------------------------------------------
     @property
@@ -293,18 +352,20 @@ class Snapshot(GridGeometry):
         streaming pass.
         """
         if self._checksum is None:
-            self._checksum = combined_checksum([field_digest(a) for a in (self._t, self._ne, self._ni)],
-                                               self.cell_size, self.origin)
+            self._checksum = combined_checksum(
+                [field_digest(a) for a in (self._t, self._ne, self._ni)], self.cell_size, self.origin
+            )
         return self._checksum
 
     def describe(self):
         """Multi-line summary: shape, geometry, ionization, field ranges."""
-        lines = [f"Snapshot {self.shape[0]}x{self.shape[1]}x{self.shape[2]} from {self.provenance['source']}"
-                 + self._describe_note,
-                 f"  cell size  {', '.join(f'{c / PC:.4g}' for c in self.cell_size)} pc",
-                 f"  ionization {self.provenance.get('ionization', '?')}"]
-        lines += [f"  {label:<10} {self.provenance[key]}" for key, label in _PROVENANCE_LINES
-                  if key in self.provenance]
+        lines = [
+            f"Snapshot {self.shape[0]}x{self.shape[1]}x{self.shape[2]} from {self.provenance['source']}"
+            + self._describe_note,
+            f"  cell size  {', '.join(f'{c / PC:.4g}' for c in self.cell_size)} pc",
+            f"  ionization {self.provenance.get('ionization', '?')}",
+        ]
+        lines += [f"  {label:<10} {self.provenance[key]}" for key, label in _PROVENANCE_LINES if key in self.provenance]
         ranges = zip(("T_e", "n_e", "ion term"), self._field_ranges(), ("K", "cm-3", "cm-3"), strict=True)
         for label, (lo, hi), unit in ranges:
             lines.append(f"  {label:<10} {lo:.4g} .. {hi:.4g} {unit}")

@@ -17,9 +17,9 @@ def uniform_snapshot(shape, temperature, ne, cell_pc=0.01, dtype=np.float64, ori
     """A snapshot with uniform temperature (K) and electron density (cm-3)."""
     t = np.full(shape, float(temperature))
     n = np.full(shape, float(ne))
-    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=cell_pc * u.pc,
-                                       electron_density=n * u.cm**-3, dtype=dtype,
-                                       origin=origin)
+    return rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=cell_pc * u.pc, electron_density=n * u.cm**-3, dtype=dtype, origin=origin
+    )
 
 
 @pytest.fixture

@@ -7,8 +7,8 @@ Composition documents.
 import numpy as np
 import scipy.constants as sc
 
-K_B = sc.k * 1e7                        # erg/K
-M_H = (sc.m_p + sc.m_e) * 1e3           # g
+K_B = sc.k * 1e7  # erg/K
+M_H = (sc.m_p + sc.m_e) * 1e3  # g
 
 
 def warm_sphere_in_cool_gas(shape, cell_pc, centre_pc, seed, gamma, he2_max, he3_max, hydrogen_fraction=0.70):
@@ -27,6 +27,13 @@ def warm_sphere_in_cool_gas(shape, cell_pc, centre_pc, seed, gamma, he2_max, he3
     pressure = 22.0 * K_B * 100.0 * rng.lognormal(0.0, 0.05, shape)
     temperature = np.where(warm, 1.5e4 * (1e6 / 1.5e4) ** (1.0 - r / 1.6), pressure / (1.1 * n_h * K_B))
     rho = np.where(warm, pressure / (K_B * temperature) * 0.6 * M_H, n_h * M_H / hydrogen_fraction)
-    return {"rho": rho, "T": temperature, "P": pressure, "e": pressure / ((gamma - 1.0) * rho), "warm": warm,
-            "x": rng.uniform(0.0, 1.0, shape), "he2": rng.uniform(0.0, he2_max, shape),
-            "he3": rng.uniform(0.0, he3_max, shape)}
+    return {
+        "rho": rho,
+        "T": temperature,
+        "P": pressure,
+        "e": pressure / ((gamma - 1.0) * rho),
+        "warm": warm,
+        "x": rng.uniform(0.0, 1.0, shape),
+        "he2": rng.uniform(0.0, he2_max, shape),
+        "he3": rng.uniform(0.0, he3_max, shape),
+    }

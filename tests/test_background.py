@@ -9,7 +9,6 @@ isothermal body has T_b = T); eq. 1.51 (Planck function) through astropy's
 here is an invented uniform slab.
 """
 
-
 import astropy.units as u
 import numpy as np
 import pytest
@@ -34,26 +33,35 @@ from rtrace.transfer.background import (
 )
 from rtrace.transfer.result import Result
 
-T_CMB = 2.7255                         # K, Fixsen (2009)
+T_CMB = 2.7255  # K, Fixsen (2009)
 T_E = 8000.0
 N_E = 1.0e4
 CELLS = 8
-FREQS = [0.1, 30.0] * u.GHz            # tau ~ 400 (thick) and ~ 4e-3 (thin) through 0.08 pc
+FREQS = [0.1, 30.0] * u.GHz  # tau ~ 400 (thick) and ~ 4e-3 (thin) through 0.08 pc
 SKY = SkyCoord(ra=150 * u.deg, dec=40 * u.deg)
 INTENSITY = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 
 
 def _snapshot(ne):
     shape = (CELLS, CELLS, CELLS)
-    return rtrace.Snapshot.from_arrays(temperature=np.full(shape, T_E) * u.K,
-                                       electron_density=np.full(shape, ne) * u.cm**-3,
-                                       cell_size=0.01 * u.pc, dtype=np.float64)
+    return rtrace.Snapshot.from_arrays(
+        temperature=np.full(shape, T_E) * u.K,
+        electron_density=np.full(shape, ne) * u.cm**-3,
+        cell_size=0.01 * u.pc,
+        dtype=np.float64,
+    )
 
 
 def _view():
     # twice the box: the 8x8 central pixels see the slab, the ring around them empty sky
-    return rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=2 * CELLS, width=2 * CELLS * 0.01 * u.pc,
-                       distance=1 * u.kpc, sky_position=SKY)
+    return rtrace.View(
+        los=(0, 0, 1),
+        north=(0, 1, 0),
+        npix=2 * CELLS,
+        width=2 * CELLS * 0.01 * u.pc,
+        distance=1 * u.kpc,
+        sky_position=SKY,
+    )
 
 
 @pytest.fixture(scope="module")
@@ -72,10 +80,11 @@ def _bb(nu_hz, t):
 
 
 CENTRE = (slice(None), slice(6, 10), slice(6, 10))
-EMPTY = (slice(None), slice(0, 2), slice(None))        # two rows of pixels that miss the box
+EMPTY = (slice(None), slice(0, 2), slice(None))  # two rows of pixels that miss the box
 
 
 # -- the convention keyword --------------------------------------------------------------------
+
 
 def test_keyword_is_checked_with_a_hint():
     assert check_convention("Included") == "included"
@@ -110,6 +119,7 @@ def test_trace_describes_its_background(slab):
 
 # -- Planck difference ------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("t_source", [30.0, 1.0, 5000.0])
 def test_planck_difference_against_astropy_blackbody(t_source):
     # Delta I = B(T) - B(T_bg) (astropy BlackBody, R&L eq. 1.51) must give back T - T_bg exactly
@@ -135,10 +145,12 @@ def test_rayleigh_jeans_is_linear_against_astropy():
     expected_full = ((delta + bg) * INTENSITY).to(u.Jy / u.sr).to_value(u.K, equivalencies=equiv)
     assert brightness_temperature_cgs(nu, delta, bg, "rj", "subtracted") == pytest.approx(expected_sub, rel=1e-10)
     assert brightness_temperature_cgs(nu, delta, bg, "rayleigh-jeans", "included") == pytest.approx(
-        expected_full, rel=1e-10)
+        expected_full, rel=1e-10
+    )
 
 
 # -- Result --------------------------------------------------------------------------------------
+
 
 def test_thick_isothermal_slab_reads_te_minus_tcmb_or_te(slab):
     # R&L eq. 1.30 with tau ~ 400: I = B(T_e); sec. 1.5: T_b = T_e (full), T_e - T_bg (subtracted)
@@ -165,14 +177,16 @@ def test_empty_sky_is_zero_in_every_subtracted_result_product(slab):
     # included: the CMB itself, T_P = 2.7255 K at every frequency
     np.testing.assert_allclose(slab.brightness_temperature(background="included").value[EMPTY], T_CMB, rtol=1e-10)
     from rtrace.analysis.spectra import pixel_flux
+
     assert np.all(pixel_flux(slab).value[EMPTY] == 0)
 
 
 def test_result_without_background_is_the_same_either_way():
     res = rtrace.trace(_snapshot(N_E), _view(), FREQS)
     np.testing.assert_array_equal(res.intensity.value, res.specific_intensity("included").value)
-    np.testing.assert_array_equal(res.brightness_temperature().value,
-                                  res.brightness_temperature(background="included").value)
+    np.testing.assert_array_equal(
+        res.brightness_temperature().value, res.brightness_temperature(background="included").value
+    )
 
 
 def test_empty_grid_has_zero_flux_and_sed(empty, tmp_path):
@@ -184,7 +198,7 @@ def test_empty_grid_has_zero_flux_and_sed(empty, tmp_path):
     np.testing.assert_allclose(empty.flux_density(background="included").to_value(u.Jy), expected, rtol=1e-9)
     path = tmp_path / "sed.ecsv"
     write_sed_table(path, nu, flux, metadata=sed_metadata(empty))
-    table = Table.read(path)            # astropy ECSV reader
+    table = Table.read(path)  # astropy ECSV reader
     assert table.meta["background"] == "subtracted (CMB, 2.7255 K): empty sky reads 0"
     assert np.all(table["flux_density"] == 0)
     meta = sed_metadata(empty, background="included")
@@ -193,8 +207,9 @@ def test_empty_grid_has_zero_flux_and_sed(empty, tmp_path):
 
 # -- SkyMap ----------------------------------------------------------------------------------------
 
+
 def test_skymap_empty_sky_and_thick_centre(slab, empty):
-    beam = radio_beam.Beam(2.0 * u.arcsec)        # ~1 pixel FWHM: the slab centre is 8 sigma from its edge
+    beam = radio_beam.Beam(2.0 * u.arcsec)  # ~1 pixel FWHM: the slab centre is 8 sigma from its edge
     sky = empty.observe(beam)
     assert sky.background == "subtracted"
     assert np.all(sky.model.value == 0) and np.all(sky.flux_density(noiseless=True).value == 0)
@@ -210,26 +225,44 @@ def test_skymap_empty_sky_and_thick_centre(slab, empty):
     np.testing.assert_allclose(tb_full[0, 7:9, 7:9], T_E, rtol=1e-6)
     # RJ of the subtracted map is astropy's equivalency on the map in Jy/beam
     equiv = u.brightness_temperature(FREQS[1], beam_area=obs.beams[1].sr)
-    np.testing.assert_allclose(obs.brightness_temperature("rayleigh-jeans", noiseless=True).value[1],
-                               obs.model[1].to_value(u.K, equivalencies=equiv), rtol=1e-10)
+    np.testing.assert_allclose(
+        obs.brightness_temperature("rayleigh-jeans", noiseless=True).value[1],
+        obs.model[1].to_value(u.K, equivalencies=equiv),
+        rtol=1e-10,
+    )
 
 
 def test_skymap_included_is_subtracted_plus_the_background_per_beam(slab):
     beam = radio_beam.Beam(3.0 * u.arcsec)
     sub, full = slab.observe(beam), slab.observe(beam, background="included")
     level = planck_cgs(FREQS.to_value(u.Hz), np.full(2, T_CMB)) * sub.beam_solid_angle.to_value(u.sr) / 1e-23
-    np.testing.assert_allclose((full.model - sub.model).value, np.broadcast_to(level[:, None, None], sub.shape),
-                               rtol=1e-9)
-    np.testing.assert_allclose(full.flux_density(background="subtracted").value, sub.flux_density().value,
-                               rtol=1e-12)
+    np.testing.assert_allclose(
+        (full.model - sub.model).value, np.broadcast_to(level[:, None, None], sub.shape), rtol=1e-9
+    )
+    np.testing.assert_allclose(full.flux_density(background="subtracted").value, sub.flux_density().value, rtol=1e-12)
 
 
 # -- synthesized map ------------------------------------------------------------------------------
 
 # an invented 10-dish layout (as in test_interferometer.py)
-ANTENNAS = np.array([[0, 0, 0], [610, 140, 1], [-380, 520, 2], [150, -700, 0], [-900, -300, 1],
-                     [1200, 800, 3], [-200, 1500, 2], [1700, -600, 0], [-1500, 1100, 1],
-                     [500, 1900, 2]], float) * u.m
+ANTENNAS = (
+    np.array(
+        [
+            [0, 0, 0],
+            [610, 140, 1],
+            [-380, 520, 2],
+            [150, -700, 0],
+            [-900, -300, 1],
+            [1200, 800, 3],
+            [-200, 1500, 2],
+            [1700, -600, 0],
+            [-1500, 1100, 1],
+            [500, 1900, 2],
+        ],
+        float,
+    )
+    * u.m
+)
 
 
 def _point(flux_jy, with_cmb):
@@ -237,17 +270,32 @@ def _point(flux_jy, with_cmb):
     nu = np.array([5e9])
     pix = (1 * u.arcsec).to_value(u.rad)
     img = np.zeros((1, 64, 64))
-    img[0, 30, 34] = flux_jy * 1e-23 / pix**2            # 1 Jy = 1e-23 cgs (definition)
+    img[0, 30, 34] = flux_jy * 1e-23 / pix**2  # 1 Jy = 1e-23 cgs (definition)
     bg = planck_cgs(nu, np.full(1, T_CMB)) if with_cmb else np.zeros(1)
     view = rtrace.View(npix=64, distance=1 * u.kpc, sky_position=SKY)
-    return Result(img + bg[:, None, None], np.zeros_like(img), np.zeros((64, 64)), nu, view,
-                  pix * (1 * u.kpc).to_value(u.cm), np.zeros(3), {"source": "test"}, background=bg,
-                  background_info=Background("cmb", T_CMB) if with_cmb else None)
+    return Result(
+        img + bg[:, None, None],
+        np.zeros_like(img),
+        np.zeros((64, 64)),
+        nu,
+        view,
+        pix * (1 * u.kpc).to_value(u.cm),
+        np.zeros(3),
+        {"source": "test"},
+        background=bg,
+        background_info=Background("cmb", T_CMB) if with_cmb else None,
+    )
 
 
 def _synth(res, **kw):
-    return synthesize(res, antennas=ANTENNAS, latitude=35 * u.deg, hour_angle_range=(-4, 4) * u.hourangle,
-                      hour_angle_step=4 * u.min, **kw)
+    return synthesize(
+        res,
+        antennas=ANTENNAS,
+        latitude=35 * u.deg,
+        hour_angle_range=(-4, 4) * u.hourangle,
+        hour_angle_step=4 * u.min,
+        **kw,
+    )
 
 
 def test_synthesized_map_convention():
@@ -263,8 +311,9 @@ def test_synthesized_map_convention():
 
 # -- cuts -------------------------------------------------------------------------------------------
 
+
 def test_cut_profiles_share_one_convention(slab):
-    sub = slab.cut((0, 8), (15, 8), num=16)                       # empty -> slab -> empty along a row
+    sub = slab.cut((0, 8), (15, 8), num=16)  # empty -> slab -> empty along a row
     full = slab.cut((0, 8), (15, 8), num=16, background="included")
     nu = FREQS.to_value(u.Hz)
     bg = _bb(nu, T_CMB)
@@ -291,6 +340,7 @@ def test_cut_profiles_share_one_convention(slab):
 
 # -- headers ---------------------------------------------------------------------------------------
 
+
 def _cards(path, ext=0):
     with fits.open(path) as hdul:
         h = hdul[ext].header
@@ -303,8 +353,9 @@ def test_every_fits_product_declares_the_background(slab, tmp_path):
     for quantity in ("intensity", "tau", "emission_measure", "brightness_temperature"):
         files[quantity] = write_result(slab, tmp_path / f"{quantity}.fits", quantity=quantity)
     files["intensity_full"] = write_result(slab, tmp_path / "full.fits", background="included")
-    files["tb_full"] = write_result(slab, tmp_path / "tbf.fits", quantity="brightness_temperature",
-                                    background="included")
+    files["tb_full"] = write_result(
+        slab, tmp_path / "tbf.fits", quantity="brightness_temperature", background="included"
+    )
     files["sky"] = slab.observe(beam).write_fits(tmp_path / "sky.fits")
     files["sky_full"] = slab.observe(beam, background="included").write_fits(tmp_path / "skyf.fits")
     for name, path in files.items():
@@ -330,6 +381,7 @@ def test_synthesis_and_comparison_files_declare_it(tmp_path):
 def test_included_model_file_is_read_back_subtracted(slab, tmp_path):
     # a model written with the background in it is compared without it (BKGSUB = F, BKGTEMP)
     from rtrace.comparison.model import model_cube
+
     a = model_cube(write_result(slab, tmp_path / "s.fits"))
     b = model_cube(write_result(slab, tmp_path / "f.fits", background="included"))
     np.testing.assert_allclose(b.data, a.data, rtol=1e-5, atol=1e-7 * np.abs(a.data).max())

@@ -17,7 +17,7 @@ import pytest
 from astropy.io import fits
 from astropy.table import Table
 
-matplotlib.use("Agg")              # no display in tests
+matplotlib.use("Agg")  # no display in tests
 
 from jobs import BEAM, NOISE, TWO_FREQUENCIES, demo, job_text, view, write  # noqa: E402
 
@@ -30,11 +30,24 @@ from rtrace.run import colour_scales  # noqa: E402
 from rtrace.run.job import load_job, override_parallel, run_job  # noqa: E402
 from rtrace.run.manifest import MANIFEST_NAME, Manifest, file_sha256, inputs_key  # noqa: E402
 
-SERIES = job_text(snapshot=demo(16, seeds=[1, 2, 3]), frequencies=TWO_FREQUENCIES, view=view("a", 16, "2 kpc"),
-                  beam=BEAM, noise=NOISE, output={"directory": "out", "pictures": False})
+SERIES = job_text(
+    snapshot=demo(16, seeds=[1, 2, 3]),
+    frequencies=TWO_FREQUENCIES,
+    view=view("a", 16, "2 kpc"),
+    beam=BEAM,
+    noise=NOISE,
+    output={"directory": "out", "pictures": False},
+)
 
-PER_SEED = ["a_intensity.fits", "a_tau.fits", "a_emission_measure.fits", "a_brightness_temperature.fits",
-            "a_observed.fits", "a_sed.ecsv", "a_observed_sed.ecsv"]
+PER_SEED = [
+    "a_intensity.fits",
+    "a_tau.fits",
+    "a_emission_measure.fits",
+    "a_brightness_temperature.fits",
+    "a_observed.fits",
+    "a_sed.ecsv",
+    "a_observed_sed.ecsv",
+]
 
 
 def expected(out, seeds=(1, 2, 3), job=True):
@@ -80,10 +93,12 @@ def crashing_record(fail_after, counts=lambda path: True):
             if len(seen) >= fail_after:
                 raise RuntimeError("simulated crash")
         return entry
+
     return record
 
 
 # --- layout -------------------------------------------------------------------------------------
+
 
 def test_series_writes_one_folder_per_snapshot_and_a_verifiable_manifest(tmp_path):
     job = load_job(write(tmp_path, SERIES))
@@ -111,6 +126,7 @@ def test_inputs_key_is_order_independent_and_unit_aware():
 
 # --- resume ------------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("how", ["after_output", "during_write"])
 def test_interrupted_batch_resumes_with_exactly_the_missing_outputs(tmp_path, monkeypatch, how):
     job_path = write(tmp_path, SERIES)
@@ -129,23 +145,24 @@ def test_interrupted_batch_resumes_with_exactly_the_missing_outputs(tmp_path, mo
                 if len(calls) == 11:
                     raise RuntimeError("simulated crash")
                 real(path)
+
             m.setattr(atomic, "_fsync_file", crash)
         with pytest.raises(RuntimeError, match="simulated crash"):
             run_job(load_job(job_path))
-    assert not hidden_leftovers(out)                     # no temporary file survives the crash
+    assert not hidden_leftovers(out)  # no temporary file survives the crash
     done = recorded(out)
     present = {str(p) for p in out.rglob("*") if p.is_file() and p.name != MANIFEST_NAME}
     assert done and done < expected(out) and done <= present
     if how == "after_output":
         assert len(done) == 7 and present == done
-    for p in done:                                       # what the manifest calls finished is intact
+    for p in done:  # what the manifest calls finished is intact
         entry = json.loads((out / MANIFEST_NAME).read_text())["outputs"][os.path.relpath(p, out)]
         assert os.stat(p).st_size == entry["size"] and file_sha256(p) == entry["sha256"]
     before = stamps(done)
     again = run_job(load_job(job_path))
     assert set(again) == expected(out) - done
     assert set(again.skipped) == done
-    assert stamps(done) == before                        # finished outputs were not rewritten
+    assert stamps(done) == before  # finished outputs were not rewritten
     assert recorded(out) == expected(out)
     for p in again:
         if p.endswith(".fits"):
@@ -162,7 +179,7 @@ def test_truncated_edited_and_missing_outputs_are_redone(tmp_path, monkeypatch):
     with open(truncated, "r+b") as f:
         f.truncate(full_size // 2)
     text = bytearray(edited.read_bytes())
-    text[-2] = ord("7") if text[-2] != ord("7") else ord("8")    # same size, different content
+    text[-2] = ord("7") if text[-2] != ord("7") else ord("8")  # same size, different content
     edited.write_bytes(bytes(text))
     deleted.unlink()
     damaged = {str(truncated), str(edited), str(deleted)}
@@ -172,10 +189,10 @@ def test_truncated_edited_and_missing_outputs_are_redone(tmp_path, monkeypatch):
     monkeypatch.setattr(rtrace.run.engine, "trace", traces)
     again = run_job(load_job(job_path))
     assert set(again) == damaged and set(again.skipped) == untouched
-    assert traces.calls == 3                             # one view of each damaged snapshot
+    assert traces.calls == 3  # one view of each damaged snapshot
     assert stamps(untouched) == before
     assert truncated.stat().st_size == full_size and fits.getdata(truncated).shape == (2, 16, 16)
-    assert len(Table.read(edited)) == 2                  # astropy's ECSV reader parses the rewritten table
+    assert len(Table.read(edited)) == 2  # astropy's ECSV reader parses the rewritten table
 
 
 def test_changed_settings_redo_only_the_outputs_they_affect(tmp_path):
@@ -190,8 +207,11 @@ def test_changed_settings_redo_only_the_outputs_they_affect(tmp_path):
     assert set(again) == observed | {str(out / "job.toml")}
     assert stamps(expected(out, job=False) - observed) == before
     # a different set of snapshots: only the new one is made
-    again = run_job(load_job(write(tmp_path, SERIES.replace("[1, 2, 3]", "[1, 2, 3, 4]")
-                                   .replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))))
+    again = run_job(
+        load_job(
+            write(tmp_path, SERIES.replace("[1, 2, 3]", "[1, 2, 3, 4]").replace('rms = "0.1 mJy"', 'rms = "0.3 mJy"'))
+        )
+    )
     assert set(again) == expected(out, seeds=(4,))
     # the view geometry changes every output
     again = run_job(load_job(write(tmp_path, SERIES.replace("npix = 16", "npix = 12"))))
@@ -223,6 +243,7 @@ def test_unreadable_manifest_is_ignored_with_a_warning(tmp_path):
 
 # --- HDF5 series -------------------------------------------------------------------------------
 
+
 def snapshot_file(path, scale):
     x = np.linspace(-1, 1, 8)
     r2 = x[:, None, None] ** 2 + x[None, :, None] ** 2 + x[None, None, :] ** 2
@@ -232,10 +253,18 @@ def snapshot_file(path, scale):
 
 
 # width: twice the grid, so no emission at the image edge (it would warn)
-HDF5_SERIES = job_text(snapshot={"kind": "hdf5", "pattern": "run/snap_*.h5", "temperature": "T",
-                                 "electron_density": "ne", "cell_size": "0.01 pc"},
-                       frequencies={"values": ["1 GHz"]}, view=view("z", 16, "1 kpc", width="0.16 pc"),
-                       output={"directory": "out", "pictures": False})
+HDF5_SERIES = job_text(
+    snapshot={
+        "kind": "hdf5",
+        "pattern": "run/snap_*.h5",
+        "temperature": "T",
+        "electron_density": "ne",
+        "cell_size": "0.01 pc",
+    },
+    frequencies={"values": ["1 GHz"]},
+    view=view("z", 16, "1 kpc", width="0.16 pc"),
+    output={"directory": "out", "pictures": False},
+)
 
 
 def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
@@ -243,14 +272,13 @@ def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
     for i, scale in ((20, 2.0), (10, 1.0)):
         snapshot_file(tmp_path / "run" / f"snap_{i:04d}.h5", scale)
     job = load_job(write(tmp_path, HDF5_SERIES))
-    assert [m.label for m in job.snapshots] == ["snap_0010", "snap_0020"]        # sorted
+    assert [m.label for m in job.snapshots] == ["snap_0010", "snap_0020"]  # sorted
     out = tmp_path / "out"
-    names = ["z_intensity.fits", "z_tau.fits", "z_emission_measure.fits", "z_brightness_temperature.fits",
-             "z_sed.ecsv"]
+    names = ["z_intensity.fits", "z_tau.fits", "z_emission_measure.fits", "z_brightness_temperature.fits", "z_sed.ecsv"]
     all_outputs = {str(out / lab / n) for lab in ("snap_0010", "snap_0020") for n in names}
-    assert set(run_job(job)) == all_outputs | {str(out / "job.toml")}          # and the job's copy
+    assert set(run_job(job)) == all_outputs | {str(out / "job.toml")}  # and the job's copy
     em10, em20 = (fits.getdata(out / lab / "z_emission_measure.fits") for lab in ("snap_0010", "snap_0020"))
-    assert em20.max() == pytest.approx(4 * em10.max(), rel=1e-5)     # EM ~ n_e^2: each file was traced
+    assert em20.max() == pytest.approx(4 * em10.max(), rel=1e-5)  # EM ~ n_e^2: each file was traced
     # a snapshot written again (new mtime) redoes its own outputs only
     snapshot_file(tmp_path / "run" / "snap_0010.h5", 3.0)
     st = os.stat(tmp_path / "run" / "snap_0010.h5")
@@ -262,10 +290,18 @@ def test_hdf5_pattern_series_and_a_rewritten_snapshot(tmp_path):
 
 # --- shared colour scales ----------------------------------------------------------------------
 
+
 def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path, monkeypatch):
     from rtrace.analysis import middle_frequency_index
-    QUANTITIES = ("intensity", "tau", "tau_unity_frequency", "brightness_temperature", "emission_measure",
-                  "spectral_index")
+
+    QUANTITIES = (
+        "intensity",
+        "tau",
+        "tau_unity_frequency",
+        "brightness_temperature",
+        "emission_measure",
+        "spectral_index",
+    )
     text = SERIES.replace("[1, 2, 3]", "[1, 2]").replace("pictures = false", "pictures = true\nfits = false")
     job_path = write(tmp_path, text)
     out = tmp_path / "out"
@@ -275,10 +311,19 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
         def wrapper(obj, *args, **kwargs):
             fig = func(obj, *args, **kwargs)
             image = fig.axes[0].get_images()[0]
-            drawn.append({"path": kwargs["path"], "obj": obj, "kw": kwargs, "norm": image.norm,
-                          "quantity": kwargs.get("quantity", quantity)})
+            drawn.append(
+                {
+                    "path": kwargs["path"],
+                    "obj": obj,
+                    "kw": kwargs,
+                    "norm": image.norm,
+                    "quantity": kwargs.get("quantity", quantity),
+                }
+            )
             return fig
+
         return wrapper
+
     monkeypatch.setattr(plot, "plot_panels", spy(plot.plot_panels))
     monkeypatch.setattr(plot, "plot_map", spy(plot.plot_map))
     monkeypatch.setattr(plot, "plot_tau_unity", spy(plot.plot_tau_unity, "tau_unity_frequency"))
@@ -292,18 +337,18 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
     assert traces.calls == 2 and len(drawn) == 2
     first = recorded(out)
     again = run_job(load_job(job_path))
-    assert traces.calls == 2                      # resumed from the cached results: nothing traced again
+    assert traces.calls == 2  # resumed from the cached results: nothing traced again
     stems = QUANTITIES + ("observed", "observed_spectral_index")
     pictures = {str(out / f"seed{s}" / f"a_{q}.png") for s in (1, 2) for q in stems}
     assert set(again) == pictures - first and len(drawn) == 16
-    assert not hidden_leftovers(out)              # the cache is gone once the series is complete
+    assert not hidden_leftovers(out)  # the cache is gone once the series is complete
 
     by_q = {}
     for d in drawn:
         by_q.setdefault(Path(d["path"]).stem.split("_", 1)[1], []).append(d)
     assert set(by_q) == set(stems)
     for q, items in by_q.items():
-        assert len(items) == 2, q                 # one per snapshot, across the two runs
+        assert len(items) == 2, q  # one per snapshot, across the two runs
         a, b = (d["norm"] for d in items)
         assert (a.vmin, a.vmax) == pytest.approx((b.vmin, b.vmax)), q
     # the shared scale spans both snapshots' images, so at least one is drawn on a wider scale than alone
@@ -316,7 +361,7 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
     jy = [float(d["obj"].data.to_value(u.Jy / u.beam).max()) for d in by_q["observed"]]
     for d in by_q["observed"]:
         assert d["obj"] is not d["obj"].result and d["kw"]["vmax"].to_value(u.Jy / u.beam) == pytest.approx(max(jy))
-    for d in by_q["intensity"]:                   # the model: the traced Result, not the observed map
+    for d in by_q["intensity"]:  # the model: the traced Result, not the observed map
         assert isinstance(d["obj"], rtrace.Result)
 
     # a deleted picture: only it is drawn again, from one retraced view (the cache is gone)
@@ -329,19 +374,26 @@ def test_series_pictures_share_colour_scales_and_resume_from_the_cache(tmp_path,
 @pytest.fixture(scope="module")
 def observed():
     from rtrace import demo
-    res = rtrace.trace(demo.scenario(n=16, seed=2), rtrace.View(npix=16, distance=2 * u.kpc),
-                       [1, 10] * u.GHz)
+
+    res = rtrace.trace(demo.scenario(n=16, seed=2), rtrace.View(npix=16, distance=2 * u.kpc), [1, 10] * u.GHz)
     import radio_beam
+
     # noise well above the faintest emission, so that the intensity map has negative pixels
     sky = res.observe(beam=radio_beam.Beam(60 * u.arcsec), noise=0.3 * u.Jy / u.beam, seed=1)
     return res, sky
 
 
-@pytest.mark.parametrize("stem,quantity,kind", [("intensity", "intensity", "panels"), ("tau", "tau", "map"),
-                                                ("observed", "intensity", "panels"),
-                                                ("spectral_index", "spectral_index", "map"),
-                                                ("observed_spectral_index", "spectral_index", "map"),
-                                                ("tau_unity_frequency", "tau_unity_frequency", "tau_unity")])
+@pytest.mark.parametrize(
+    "stem,quantity,kind",
+    [
+        ("intensity", "intensity", "panels"),
+        ("tau", "tau", "map"),
+        ("observed", "intensity", "panels"),
+        ("spectral_index", "spectral_index", "map"),
+        ("observed_spectral_index", "spectral_index", "map"),
+        ("tau_unity_frequency", "tau_unity_frequency", "tau_unity"),
+    ],
+)
 def test_a_series_of_one_gets_the_automatic_scale(observed, stem, quantity, kind):
     """The series limits follow the automatic rules: one snapshot alone looks as it would without them."""
     res, sky = observed
@@ -351,17 +403,21 @@ def test_a_series_of_one_gets_the_automatic_scale(observed, stem, quantity, kind
     if quantity == "spectral_index":
         kw["frequency"] = (1 * u.GHz, 10 * u.GHz)
     elif quantity == "tau":
-        kw.update(frequency=0, stretch="log")      # the middle of two frequencies: the lower one
+        kw.update(frequency=0, stretch="log")  # the middle of two frequencies: the lower one
     elif quantity == "tau_unity_frequency":
         kw = {}
     draw = {"map": plot.plot_map, "panels": plot.plot_panels, "tau_unity": plot.plot_tau_unity}[kind]
     auto = draw(obj, **kw).axes[0].get_images()[0].norm
-    given = draw(obj, vmin=u.Quantity(lim["vmin"], lim["unit"]),
-                 vmax=u.Quantity(lim["vmax"], lim["unit"]), **kw).axes[0].get_images()[0].norm
+    given = (
+        draw(obj, vmin=u.Quantity(lim["vmin"], lim["unit"]), vmax=u.Quantity(lim["vmax"], lim["unit"]), **kw)
+        .axes[0]
+        .get_images()[0]
+        .norm
+    )
     assert type(given) is type(auto)
     assert (given.vmin, given.vmax) == pytest.approx((auto.vmin, auto.vmax), rel=1e-12)
     if stem == "observed":
-        assert lim["vmin"] < 0                       # noise: negative pixels set the lower end
+        assert lim["vmin"] < 0  # noise: negative pixels set the lower end
 
 
 def test_plot_vmin_vmax(observed):
@@ -374,7 +430,7 @@ def test_plot_vmin_vmax(observed):
     fig = plot.plot_map(sky, quantity="intensity", vmax=2e3 * peak * u.mJy / u.beam, stretch="linear")
     image = fig.axes[0].get_images()[0]
     assert "(Jy beam" in fig.axes[1].get_ylabel() and image.norm.vmax == pytest.approx(2 * image.get_array().max())
-    pix = float(res.flux_density().to_value(u.Jy).max())          # more than any one pixel
+    pix = float(res.flux_density().to_value(u.Jy).max())  # more than any one pixel
     fig = plot.plot_map(res, quantity="intensity", vmax=pix * u.Jy / u.pix, stretch="linear")
     assert "(mJy pixel" in fig.axes[1].get_ylabel()
     assert fig.axes[0].get_images()[0].norm.vmax == pytest.approx(1e3 * pix)
@@ -386,6 +442,7 @@ def test_plot_vmin_vmax(observed):
 
 # --- [parallel] --------------------------------------------------------------------------------
 
+
 class RealTrace:
     func = staticmethod(rtrace.trace)
 
@@ -395,11 +452,13 @@ def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatc
 
     seen, made = [], []
 
-    def new_trace(snapshot, view, frequencies, *, background=None, supersample=1, tolerance=None, client=None,
-                  max_memory=None):
+    def new_trace(
+        snapshot, view, frequencies, *, background=None, supersample=1, tolerance=None, client=None, max_memory=None
+    ):
         seen.append((client, max_memory))
-        return RealTrace.func(snapshot, view, frequencies, background=background, supersample=supersample,
-                              tolerance=tolerance)
+        return RealTrace.func(
+            snapshot, view, frequencies, background=background, supersample=supersample, tolerance=tolerance
+        )
 
     class Cluster:
         def __init__(self, **kw):
@@ -425,10 +484,10 @@ def test_parallel_client_is_made_lazily_and_passed_to_trace(tmp_path, monkeypatc
     run_job(job)
     cluster, client = made
     assert cluster.kw == {"n_workers": 3, "threads_per_worker": 1} and client.target is cluster
-    assert [c for c, _ in seen] == [client, client]         # one client for the whole series
+    assert [c for c, _ in seen] == [client, client]  # one client for the whole series
     assert all(m == 2_000_000_000 * u.byte for _, m in seen)
     assert cluster.closed and client.closed
-    run_job(job)                                           # everything up to date: no cluster started
+    run_job(job)  # everything up to date: no cluster started
     assert len(made) == 2
     job = override_parallel(job, scheduler="tcp://127.0.0.1:8786")
     run_job(job, restart=True)
@@ -450,22 +509,32 @@ def _same_images(serial, other):
 @pytest.mark.skipif(not _trace_takes("max_memory"), reason="this rtrace build cannot bound trace memory yet")
 def test_max_memory_gives_the_images_of_an_unbounded_run(tmp_path):
     # the same lattice in both (bricked traces have no split: see trace's tolerance)
-    text = (SERIES.replace("[1, 2, 3]", "[1]").replace("npix = 16", "npix = 16\nlos = [0, 0.6, 0.8]")
-            + "\n[trace]\nsupersample = 1\n")
+    text = (
+        SERIES.replace("[1, 2, 3]", "[1]").replace("npix = 16", "npix = 16\nlos = [0, 0.6, 0.8]")
+        + "\n[trace]\nsupersample = 1\n"
+    )
     serial = run_job(load_job(write(tmp_path, text)))
-    bounded = run_job(load_job(write(tmp_path, text.replace('directory = "out"', 'directory = "mem"')
-                                     + '\n[parallel]\nmax_memory = "1 MB"\n')))
+    bounded = run_job(
+        load_job(
+            write(
+                tmp_path, text.replace('directory = "out"', 'directory = "mem"') + '\n[parallel]\nmax_memory = "1 MB"\n'
+            )
+        )
+    )
     assert len(bounded) == len(serial)
     _same_images(serial, bounded)
 
 
-@pytest.mark.skipif(not _trace_takes("client", "rtrace.transfer.parallel"),
-                    reason="this rtrace build has no cluster support in rtrace.trace yet")
+@pytest.mark.skipif(
+    not _trace_takes("client", "rtrace.transfer.parallel"),
+    reason="this rtrace build has no cluster support in rtrace.trace yet",
+)
 def test_local_cluster_gives_the_serial_images(tmp_path):
     text = SERIES.replace("[1, 2, 3]", "[1]")
     serial = run_job(load_job(write(tmp_path, text)))
-    par = load_job(write(tmp_path, text.replace('directory = "out"', 'directory = "par"')
-                         + "\n[parallel]\nworkers = 1\n"))
+    par = load_job(
+        write(tmp_path, text.replace('directory = "out"', 'directory = "par"') + "\n[parallel]\nworkers = 1\n")
+    )
     parallel = run_job(par)
     assert len(parallel) == len(serial)
     _same_images(serial, parallel)
@@ -478,6 +547,7 @@ PICTURE_SERIES = SERIES.replace("[1, 2, 3]", "[1, 2]").replace("pictures = false
 
 def _pixels(path):
     import matplotlib.image as mimage
+
     return mimage.imread(path)
 
 
@@ -488,6 +558,7 @@ def traced_unit(tmp_path_factory):
     from rtrace.run.engine import Engine, parallel_keywords
     from rtrace.run.inputs import build_snapshot
     from rtrace.run.job import build_views
+
     tmp = tmp_path_factory.mktemp("cache")
     job = load_job(write(tmp, PICTURE_SERIES))
     units = plan_units(job, build_views(job), tmp / "out")
@@ -501,11 +572,12 @@ def test_series_cache_gives_back_what_draws_the_same_pictures(traced_unit, tmp_p
     # against pictures drawn from the traced objects themselves (pixel by pixel).
     from rtrace.run.batch import Cache
     from rtrace.run.products import picture_outputs
+
     job, units, (res, sky), _ = traced_unit
     cache = Cache(tmp_path / ".rtrace-cache")
     cache.put(units[0], (res, sky))
     assert cache._file(units[0]).suffix == ".npz"
-    got_res, got_sky = Cache(cache.folder).get(units[0])               # as a resumed run reads it
+    got_res, got_sky = Cache(cache.folder).get(units[0])  # as a resumed run reads it
     assert got_res is not res and got_sky.result is got_res
     np.testing.assert_array_equal(got_res.intensity, res.intensity)
     np.testing.assert_array_equal(got_sky.data, sky.data)
@@ -535,10 +607,11 @@ def _tamper(path, how, tmp_path, units):
     import pickle
 
     from rtrace.run.batch import Cache
+
     data = path.read_bytes()
-    if how == "flipped":              # one byte a third of the way in (array data)
+    if how == "flipped":  # one byte a third of the way in (array data)
         k = len(data) // 3
-        path.write_bytes(data[:k] + bytes([data[k] ^ 0x40]) + data[k + 1:])
+        path.write_bytes(data[:k] + bytes([data[k] ^ 0x40]) + data[k + 1 :])
     elif how == "truncated":
         path.write_bytes(data[: len(data) // 2])
     elif how == "empty":
@@ -552,8 +625,9 @@ def _tamper(path, how, tmp_path, units):
         buf = io.BytesIO()
         np.savez(buf, **arrays)
         path.write_bytes(buf.getvalue())
-    elif how == "checksum_recomputed":   # a forger who edits the data and fixes the SHA-256 but lacks the key
+    elif how == "checksum_recomputed":  # a forger who edits the data and fixes the SHA-256 but lacks the key
         from rtrace.run.series_cache import content_digest
+
         with np.load(path) as npz:
             arrays = {k: npz[k] for k in npz.files}
         arrays["intensity"] = arrays["intensity"] * 2
@@ -563,7 +637,7 @@ def _tamper(path, how, tmp_path, units):
         buf = io.BytesIO()
         np.savez(buf, **arrays)
         path.write_bytes(buf.getvalue())
-    elif how == "another_view":         # a valid entry of another snapshot, copied under this name
+    elif how == "another_view":  # a valid entry of another snapshot, copied under this name
         other = Cache(path.parent.parent)
         res, sky = other.get(units[0])
         other.put(units[1], (res, sky))
@@ -572,8 +646,16 @@ def _tamper(path, how, tmp_path, units):
         raise AssertionError(how)
 
 
-TAMPERING = ["flipped", "truncated", "empty", "pickle", "npz_with_object_array", "checksum_recomputed",
-             "another_view", "another_user"]
+TAMPERING = [
+    "flipped",
+    "truncated",
+    "empty",
+    "pickle",
+    "npz_with_object_array",
+    "checksum_recomputed",
+    "another_view",
+    "another_user",
+]
 
 
 @pytest.mark.parametrize("how", TAMPERING)
@@ -581,28 +663,30 @@ def test_series_cache_never_uses_a_damaged_or_foreign_entry(traced_unit, tmp_pat
     # Common practice for caches in shared folders: read no pickles, verify a checksum (SHA-256, FIPS 180-4)
     # and a signature (HMAC-SHA256, RFC 2104) with a key kept outside the output folder.
     from rtrace.run.batch import Cache
+
     _, units, value, _ = traced_unit
     monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "key"))
     cache = Cache(tmp_path / ".rtrace-cache")
     cache.put(units[0], value)
     path = cache._file(units[0])
     assert cache.get(units[0]) is not None
-    if how == "another_user":           # the same entry, written by a run holding another key
+    if how == "another_user":  # the same entry, written by a run holding another key
         monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "someone-else"))
         Cache(cache.folder).put(units[0], value)
         monkeypatch.setenv("RTRACE_KEY_DIR", str(tmp_path / "key"))
     else:
         _tamper(path, how, tmp_path, units)
     assert Cache(cache.folder).get(units[0]) is None
-    assert not (tmp_path / "ran").exists()                     # nothing in the file was executed
+    assert not (tmp_path / "ran").exists()  # nothing in the file was executed
     assert oct((tmp_path / "key" / "series-cache.key").stat().st_mode & 0o777) == "0o600"
 
 
 @pytest.mark.parametrize("how", ["flipped", "truncated", "pickle"])
 def test_a_tampered_cache_entry_is_retraced_and_draws_the_clean_runs_pictures(tmp_path, monkeypatch, how):
     job_path = write(tmp_path, PICTURE_SERIES)
-    clean = run_job(load_job(write(tmp_path, PICTURE_SERIES.replace('directory = "out"', 'directory = "clean"'),
-                                   "clean.toml")))
+    clean = run_job(
+        load_job(write(tmp_path, PICTURE_SERIES.replace('directory = "out"', 'directory = "clean"'), "clean.toml"))
+    )
     traces = Counter(rtrace.trace)
     monkeypatch.setattr(rtrace.run.engine, "trace", traces)
     with monkeypatch.context() as m:
@@ -615,12 +699,13 @@ def test_a_tampered_cache_entry_is_retraced_and_draws_the_clean_runs_pictures(tm
     assert [e.parent.name for e in entries] == ["seed1", "seed2"]
     _tamper(entries[1], how, tmp_path, None)
     again = run_job(load_job(job_path))
-    assert traces.calls == 3                   # seed2 traced again; seed1 drawn from its intact entry
+    assert traces.calls == 3  # seed2 traced again; seed1 drawn from its intact entry
     assert not (tmp_path / "ran").exists()
     pictures = sorted(p for p in clean if p.endswith(".png") and not p.endswith("_sed.png"))
     assert len(pictures) == 16
-    assert ({p.replace("/clean/", "/out/") for p in pictures}
-            == set(again) | {str(tmp_path / "out/seed1/a_intensity.png")})
+    assert {p.replace("/clean/", "/out/") for p in pictures} == set(again) | {
+        str(tmp_path / "out/seed1/a_intensity.png")
+    }
     for p in pictures:
         np.testing.assert_array_equal(_pixels(p), _pixels(p.replace("/clean/", "/out/")), err_msg=p)
     assert not hidden_leftovers(tmp_path / "out")
@@ -636,7 +721,7 @@ def test_a_snapshot_edited_with_its_size_and_mtime_kept_is_traced_again(tmp_path
     run_job(load_job(job_path))
     em = fits.getdata(out / "snap_0010/z_emission_measure.fits").max()
     st = os.stat(snap)
-    with h5py.File(snap, "r+") as f:            # same datasets, same size: only values change
+    with h5py.File(snap, "r+") as f:  # same datasets, same size: only values change
         f["ne"][...] = 2 * f["ne"][...]
     os.utime(snap, ns=(st.st_atime_ns, st.st_mtime_ns))
     assert (os.stat(snap).st_size, os.stat(snap).st_mtime_ns) == (st.st_size, st.st_mtime_ns)
@@ -651,6 +736,7 @@ def test_a_snapshot_edited_with_its_size_and_mtime_kept_is_traced_again(tmp_path
 def test_snapshot_identity_of_large_files_samples_them(tmp_path):
     # What a sampled hash can and cannot see, on a file above the full-hash limit (made small for the test).
     from rtrace.run.manifest import snapshot_identity
+
     path = tmp_path / "big.bin"
     block = 1 << 20
     path.write_bytes(bytes(40 * block))
@@ -669,18 +755,19 @@ def test_snapshot_identity_of_large_files_samples_them(tmp_path):
         os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
         return snapshot_identity(path, full_limit=limit)["sampled_sha256"]
 
-    assert edit(0) != first["sampled_sha256"]                       # first MiB
-    assert edit(0) == first["sampled_sha256"]                       # put back
-    assert edit(40 * block - 1) != first["sampled_sha256"]          # last MiB
+    assert edit(0) != first["sampled_sha256"]  # first MiB
+    assert edit(0) == first["sampled_sha256"]  # put back
+    assert edit(40 * block - 1) != first["sampled_sha256"]  # last MiB
     edit(40 * block - 1)
     # the 16 samples start at round(39 MiB * k / 17): the byte just before the second sample lies in no block
     gap = int(round(39 * block * 2 / 17)) - 1
     assert gap > int(round(39 * block / 17)) + block
-    assert edit(gap) == first["sampled_sha256"]                     # documented as not detected
+    assert edit(gap) == first["sampled_sha256"]  # documented as not detected
 
 
 def test_an_unreadable_snapshot_is_named_before_any_work(tmp_path):
     from rtrace.run.batch import fingerprint
+
     (tmp_path / "run").mkdir()
     snapshot_file(tmp_path / "run" / "snap_0010.h5", 1.0)
     job = load_job(write(tmp_path, HDF5_SERIES))
@@ -692,14 +779,14 @@ def test_an_unreadable_snapshot_is_named_before_any_work(tmp_path):
 def test_each_snapshot_of_a_series_gets_its_own_reproducible_noise(tmp_path):
     # Identical noise in every snapshot would show as persistent structure in differences between them.
     from rtrace.run.engine import noise_seed
+
     series = load_job(write(tmp_path, SERIES))
     seeds = [noise_seed(series, m.label) for m in series.snapshots]
     assert len(set(seeds)) == len(seeds) and seeds == [noise_seed(series, m.label) for m in series.snapshots]
     single = load_job(write(tmp_path, SERIES.replace("seeds = [1, 2, 3]", "seed = 1"), "single.toml"))
-    assert noise_seed(single, single.snapshots[0].label) == 3        # a single snapshot keeps [noise].seed
+    assert noise_seed(single, single.snapshots[0].label) == 3  # a single snapshot keeps [noise].seed
     out = tmp_path / "out"
     run_job(series)
     # the observed SED of each snapshot says what it was computed from; the model's says it is the model
     assert Table.read(out / "seed1" / "a_observed_sed.ecsv").meta["computed from"].startswith("observed map")
     assert Table.read(out / "seed1" / "a_sed.ecsv").meta["computed from"].startswith("model")
-

@@ -22,8 +22,15 @@ from rtrace.observe.beam import SAME_BEAM_RTOL, BeamKernel, beam_cards, same_bea
 
 # (major arcsec, minor arcsec, pa deg, pixel arcsec): point-sampled and supersampled kernels,
 # round and elliptical, angles in all quadrants
-CASES = [(10, 5, 30, 1.0), (10, 10, 0, 1.0), (3, 1, 45, 2.0), (0.5, 0.3, 70, 1.0), (8, 2, -20, 0.7),
-         (2, 1, 100, 1.0), (6, 2, 135, 1.0)]
+CASES = [
+    (10, 5, 30, 1.0),
+    (10, 10, 0, 1.0),
+    (3, 1, 45, 2.0),
+    (0.5, 0.3, 70, 1.0),
+    (8, 2, -20, 0.7),
+    (2, 1, 100, 1.0),
+    (6, 2, 135, 1.0),
+]
 
 
 def _written_out(beam, pix, half, supersample):
@@ -39,7 +46,7 @@ def _written_out(beam, pix, half, supersample):
         r = (offs + dr)[:, None]
         for dc in sub:
             c = (offs + dc)[None, :]
-            along = r * math.cos(pa) - c * math.sin(pa)      # major axis along (+row, -column) rotated by pa
+            along = r * math.cos(pa) - c * math.sin(pa)  # major axis along (+row, -column) rotated by pa
             across = r * math.sin(pa) + c * math.cos(pa)
             kernel += np.exp(-0.5 * ((along / s_maj) ** 2 + (across / s_min) ** 2))
     return kernel / kernel.sum()
@@ -68,9 +75,9 @@ def test_kernel_fft_is_kept_and_convolves_a_point_into_the_kernel():
     image = np.zeros((40, 40))
     image[20, 20] = 1.0
     out = k.convolve(image)
-    assert k.kernel_ft is ft                 # one transform per beam, reused by every convolution
+    assert k.kernel_ft is ft  # one transform per beam, reused by every convolution
     h = k.half
-    np.testing.assert_allclose(out[20 - h:21 + h, 20 - h:21 + h], k.kernel, atol=1e-15)
+    np.testing.assert_allclose(out[20 - h : 21 + h, 20 - h : 21 + h], k.kernel, atol=1e-15)
 
 
 def test_beam_cards_are_radio_beam_header_keywords_and_read_back():
@@ -82,18 +89,24 @@ def test_beam_cards_are_radio_beam_header_keywords_and_read_back():
     for key, value, comment in cards:
         header[key] = (value, comment)
     assert dict(header) == dict(beam.attach_to_header(fits.Header()))
-    assert radio_beam.Beam.from_fits_header(header) == beam          # radio-beam's own equality
+    assert radio_beam.Beam.from_fits_header(header) == beam  # radio-beam's own equality
 
 
 def test_written_cube_beam_reads_back_with_radio_beam(tmp_path):
     from astropy.coordinates import SkyCoord
 
     beam = radio_beam.Beam(major=20 * u.arcsec, minor=10 * u.arcsec, pa=15 * u.deg)
-    path = write_cube(tmp_path / "c.fits", np.ones((2, 8, 8)) * u.Jy / u.beam, [1, 2] * u.GHz, 2 * u.arcsec,
-                      SkyCoord(10 * u.deg, 20 * u.deg), beams=beam)
+    path = write_cube(
+        tmp_path / "c.fits",
+        np.ones((2, 8, 8)) * u.Jy / u.beam,
+        [1, 2] * u.GHz,
+        2 * u.arcsec,
+        SkyCoord(10 * u.deg, 20 * u.deg),
+        beams=beam,
+    )
     header = fits.getheader(path)
     assert radio_beam.Beam.from_fits_header(header) == beam
-    assert header_beam(header, "obs") == beam               # rtrace's reader of observations agrees
+    assert header_beam(header, "obs") == beam  # rtrace's reader of observations agrees
     assert header.comments["BPA"].startswith("[deg]")
 
 
@@ -104,14 +117,14 @@ def test_header_beam_errors_name_the_card():
     header["BMIN"], header["BPA"] = 2e-3, 0.0
     with pytest.raises(InputError, match="BMIN .* exceeds BMAJ"):
         header_beam(header, "obs")
-    round_beam = header_beam(fits.Header({"BMAJ": 1e-3, "BMIN": 1e-3}), "obs")      # no BPA: a round beam
+    round_beam = header_beam(fits.Header({"BMAJ": 1e-3, "BMIN": 1e-3}), "obs")  # no BPA: a round beam
     assert round_beam == radio_beam.Beam(major=1e-3 * u.deg)
 
 
 def test_same_beam_is_one_relative_rule():
     b = radio_beam.Beam(major=10 * u.arcsec, minor=5 * u.arcsec, pa=30 * u.deg)
     near = radio_beam.Beam(major=10 * (1 + 1e-9) * u.arcsec, minor=5 * u.arcsec, pa=(30 + 180) * u.deg)
-    assert b == near and same_beam(b, near)             # radio-beam's equality (1e-10 deg) implies ours
+    assert b == near and same_beam(b, near)  # radio-beam's equality (1e-10 deg) implies ours
     # beyond radio-beam's absolute 1e-10 deg but within the relative tolerance: the same beam here
     within = radio_beam.Beam(major=10 * (1 + 0.5 * SAME_BEAM_RTOL) * u.arcsec, minor=5 * u.arcsec, pa=30 * u.deg)
     assert b != within and same_beam(b, within)

@@ -24,43 +24,63 @@ NU = [0.3, 3.0, 300.0] * u.GHz
 @pytest.fixture(scope="module")
 def snap():
     rng = np.random.default_rng(2024)
-    shape = (19, 16, 22)                       # no brick size below divides every axis
+    shape = (19, 16, 22)  # no brick size below divides every axis
     ne = 1e3 * rng.lognormal(0, 1, shape)
     t = rng.uniform(5e3, 2e4, shape)
-    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=[0.01, 0.012, 0.009] * u.pc,
-                                       electron_density=ne * u.cm**-3, ion_density=1.1 * ne * u.cm**-3,
-                                       dtype=np.float64)
+    return rtrace.Snapshot.from_arrays(
+        temperature=t * u.K,
+        cell_size=[0.01, 0.012, 0.009] * u.pc,
+        electron_density=ne * u.cm**-3,
+        ion_density=1.1 * ne * u.cm**-3,
+        dtype=np.float64,
+    )
 
 
 def assert_same(a, b, rtol=1e-10):
     assert a.intensity.shape == b.intensity.shape
-    for x, y in ((a.intensity.value, b.intensity.value), (a.tau, b.tau),
-                 (a.emission_measure.value, b.emission_measure.value)):
+    for x, y in (
+        (a.intensity.value, b.intensity.value),
+        (a.tau, b.tau),
+        (a.emission_measure.value, b.emission_measure.value),
+    ):
         assert np.allclose(x, y, rtol=rtol, atol=0), np.max(np.abs(x - y) / np.maximum(np.abs(y), 1e-300))
     assert a.rays_per_pixel == b.rays_per_pixel
 
 
-@pytest.mark.parametrize("los,north", [((0, 0, 1), (0, 1, 0)), ((0, 0, -1), (1, 1, 0)), ((1, 0, 0), (0, 0, 1)),
-                                       ((-1, 0, 0), (0, 1, 0)), ((0, 1, 0), (1, 0, 0)), ((0, -1, 0), (0, 0, 1))])
+@pytest.mark.parametrize(
+    "los,north",
+    [
+        ((0, 0, 1), (0, 1, 0)),
+        ((0, 0, -1), (1, 1, 0)),
+        ((1, 0, 0), (0, 0, 1)),
+        ((-1, 0, 0), (0, 1, 0)),
+        ((0, 1, 0), (1, 0, 0)),
+        ((0, -1, 0), (0, 0, 1)),
+    ],
+)
 def test_axis_aligned_bricks_equal_the_whole_grid(snap, los, north):
     # Column segments of stacked bricks composite to the whole column (R&L 1979, eq. 1.30 piecewise).
     view = rtrace.View(los=los, north=north, npix=23, distance=1 * u.kpc)
     whole = rtrace.trace(snap, view, NU)
-    assert whole.tau[0].max() > 10 and whole.tau[-1].max() < 1e-2      # thick and thin
+    assert whole.tau[0].max() > 10 and whole.tau[-1].max() < 1e-2  # thick and thin
     for size in (5, 7):
         assert_same(rtrace.trace(snap, view, NU, brick_size=size), whole)
 
 
-@pytest.mark.parametrize("los,north,npix,width,supersample", [
-    ((0.4, -0.7, 0.6), (0, 0, 1), 30, None, 1),
-    ((0.7, 0.1, 0.7), (0, 1, 0), 64, None, 2),        # several lattice phases per cell
-    ((1, 2, 0.1), (0, 0, 1), 9, None, 1),             # coarse pixels, nearly in a coordinate plane
-    ((0.3, -0.5, 0.8), (0, 1, 0), 50, 0.05, 1),       # zoomed: some bricks are reached by no ray
-])
+@pytest.mark.parametrize(
+    "los,north,npix,width,supersample",
+    [
+        ((0.4, -0.7, 0.6), (0, 0, 1), 30, None, 1),
+        ((0.7, 0.1, 0.7), (0, 1, 0), 64, None, 2),  # several lattice phases per cell
+        ((1, 2, 0.1), (0, 0, 1), 9, None, 1),  # coarse pixels, nearly in a coordinate plane
+        ((0.3, -0.5, 0.8), (0, 1, 0), 50, 0.05, 1),  # zoomed: some bricks are reached by no ray
+    ],
+)
 def test_oblique_bricks_equal_the_whole_grid(snap, los, north, npix, width, supersample):
     # Ray segments through bricks composite to the whole ray (R&L 1979, eq. 1.30 piecewise).
-    view = rtrace.View(los=los, north=north, npix=npix, width=None if width is None else width * u.pc,
-                       distance=1 * u.kpc)
+    view = rtrace.View(
+        los=los, north=north, npix=npix, width=None if width is None else width * u.pc, distance=1 * u.kpc
+    )
     whole = rtrace.trace(snap, view, NU, supersample=supersample)
     assert whole.tau[0].max() > 10 and whole.tau[-1].max() < 1e-2
     los = np.asarray(los, float) / np.linalg.norm(los)
@@ -86,12 +106,28 @@ def test_sheared_kernel_on_a_brick_sub_array_equals_the_whole_array(snap):
 
     def run(arrs, off):
         out = Segment.empty(len(tables.nu), (1, 20 * 25))
-        kernels.trace_sheared(*arrs, kernels.emitting_blocks(arrs[0]), lo, hi, off, lo[2], True, -3, 20, -2, 25,
-                              *segs, *tables.args(), out.intensity, out.tau, out.em)
+        kernels.trace_sheared(
+            *arrs,
+            kernels.emitting_blocks(arrs[0]),
+            lo,
+            hi,
+            off,
+            lo[2],
+            True,
+            -3,
+            20,
+            -2,
+            25,
+            *segs,
+            *tables.args(),
+            out.intensity,
+            out.tau,
+            out.em,
+        )
         return out
 
     whole = run(arrays, np.zeros(3, np.int64))
-    sub = run(tuple(np.ascontiguousarray(a[lo[0]:hi[0], lo[1]:hi[1], lo[2]:hi[2]]) for a in arrays), lo)
+    sub = run(tuple(np.ascontiguousarray(a[lo[0] : hi[0], lo[1] : hi[1], lo[2] : hi[2]]) for a in arrays), lo)
     assert whole.em.max() > 0
     assert np.array_equal(sub.intensity, whole.intensity) and np.array_equal(sub.tau, whole.tau)
     assert np.array_equal(sub.em, whole.em)
@@ -103,25 +139,26 @@ def sparse():
     rng = np.random.default_rng(77)
     shape = (29, 21, 26)
     ne = np.zeros(shape)
-    ne[6:10, 14:17, 7:9] = 1e4 * rng.lognormal(0, 1, (4, 3, 2))      # across x = 8, y = 16, z = 8
+    ne[6:10, 14:17, 7:9] = 1e4 * rng.lognormal(0, 1, (4, 3, 2))  # across x = 8, y = 16, z = 8
     ne[20:25, 2:5, 15:18] = 3e3
     for cell in [(0, 0, 0), (7, 7, 7), (8, 8, 8), (15, 20, 25), (28, 9, 16), (13, 0, 24)]:
         ne[cell] = 5e4
     t = rng.uniform(5e3, 2e4, shape)
-    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=[0.01, 0.012, 0.009] * u.pc,
-                                       electron_density=ne * u.cm**-3, dtype=np.float64)
+    return rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=[0.01, 0.012, 0.009] * u.pc, electron_density=ne * u.cm**-3, dtype=np.float64
+    )
 
 
 def test_emitting_blocks_mark_the_blocks_with_emitting_cells(sparse):
     # Reference: numpy's any() over each 8^3 block of the zero-padded cube (common practice).
     nn = cell_cache.emission_product(sparse)
     padded = np.zeros([-(-n // 8) * 8 for n in nn.shape])
-    padded[:nn.shape[0], :nn.shape[1], :nn.shape[2]] = nn
+    padded[: nn.shape[0], : nn.shape[1], : nn.shape[2]] = nn
     s = padded.shape
     expected = (padded.reshape(s[0] // 8, 8, s[1] // 8, 8, s[2] // 8, 8) > 0).any(axis=(1, 3, 5))
     blocks = cell_cache.emitting_blocks(sparse)
     assert np.array_equal(blocks.astype(bool), expected)
-    assert 0 < blocks.mean() < 0.5                               # the sweep has blocks to skip
+    assert 0 < blocks.mean() < 0.5  # the sweep has blocks to skip
     sparse.release()
     assert not sparse.kept and np.array_equal(cell_cache.emitting_blocks(sparse), blocks)
 
@@ -136,14 +173,30 @@ def test_skipping_neutral_blocks_changes_no_bit(sparse, off):
     arrays = tuple(a.transpose(2, 0, 1) for a in (cell_cache.emission_product(sparse), sparse._t))
     off = np.array(off, np.int64)
     lo, hi = off, np.array(arrays[0].shape, np.int64)
-    arrays = tuple(np.ascontiguousarray(a[off[0]:, off[1]:, off[2]:]) for a in arrays)
+    arrays = tuple(np.ascontiguousarray(a[off[0] :, off[1] :, off[2] :]) for a in arrays)
     cell = sparse.cell_size[[2, 0, 1]]
     segs = kernels.layer_segments(0.25, 0.75, 0.6, -0.35, cell[0], cell[1], cell[2], 0.8, lo[2], hi[2], True, 8)
 
     def run(blocks):
         out = Segment.empty(len(tables.nu), (1, 40 * 30))
-        kernels.trace_sheared(*arrays, blocks, lo, hi, off, lo[2], True, -8, 40, -4, 30, *segs, *tables.args(),
-                              out.intensity, out.tau, out.em)
+        kernels.trace_sheared(
+            *arrays,
+            blocks,
+            lo,
+            hi,
+            off,
+            lo[2],
+            True,
+            -8,
+            40,
+            -4,
+            30,
+            *segs,
+            *tables.args(),
+            out.intensity,
+            out.tau,
+            out.em,
+        )
         return out
 
     blocks = kernels.emitting_blocks(arrays[0])
@@ -190,15 +243,15 @@ def test_patches_composite_associatively_over_different_rectangles():
     rng = np.random.default_rng(9)
 
     def patch(start, shape):
-        return Patch(start, Segment(rng.uniform(0, 1, (2,) + shape), rng.uniform(0, 3, (2,) + shape),
-                                    rng.uniform(0, 1, shape)))
+        return Patch(
+            start, Segment(rng.uniform(0, 1, (2,) + shape), rng.uniform(0, 3, (2,) + shape), rng.uniform(0, 1, shape))
+        )
 
     near, mid, far = patch((0, 3), (5, 4)), patch((2, 0), (6, 5)), patch((4, 5), (3, 3))
     left = composite_patches(composite_patches(near, mid), far)
     right = composite_patches(near, composite_patches(mid, far))
     assert left.start == right.start == (0, 0) and left.stop == right.stop == (8, 8)
-    for x, y in ((left.seg.intensity, right.seg.intensity), (left.seg.tau, right.seg.tau),
-                 (left.seg.em, right.seg.em)):
+    for x, y in ((left.seg.intensity, right.seg.intensity), (left.seg.tau, right.seg.tau), (left.seg.em, right.seg.em)):
         assert np.allclose(x, y, rtol=1e-14, atol=0)
     # a ray only `far` covers is far's own value, bit for bit (the identity is exact)
     assert np.array_equal(left.seg.intensity[:, 6, 7], far.seg.intensity[:, 2, 2])
@@ -213,17 +266,32 @@ def test_max_memory_with_in_memory_snapshot_equals_the_whole_grid(snap):
     assert_same(rtrace.trace(snap, view, NU, supersample=1, max_memory=1 * u.GB), whole)
 
 
-@pytest.mark.parametrize("value,expected", [("150 MB", 150_000_000), ("2GB", 2_000_000_000),
-                                            ("1.5 GiB", 1_610_612_736), (3 * u.kbyte, 3000),
-                                            (u.Quantity(2, u.MiB), 2 * 2**20)])
+@pytest.mark.parametrize(
+    "value,expected",
+    [
+        ("150 MB", 150_000_000),
+        ("2GB", 2_000_000_000),
+        ("1.5 GiB", 1_610_612_736),
+        (3 * u.kbyte, 3000),
+        (u.Quantity(2, u.MiB), 2 * 2**20),
+    ],
+)
 def test_max_memory_parsing(value, expected):
     # astropy's byte prefixes: MB, GB decimal; MiB, GiB binary (common practice, IEC 80000-13)
     assert bricks.parse_memory(value) == expected
 
 
-@pytest.mark.parametrize("value,message", [("2", "max_memory"), ("lots", "max_memory: cannot read"),
-                                           (2e9, "max_memory: expected a Quantity"), (5 * u.m, "bytes"),
-                                           ("-1 GB", "positive"), ([1, 2] * u.GB, "one amount")])
+@pytest.mark.parametrize(
+    "value,message",
+    [
+        ("2", "max_memory"),
+        ("lots", "max_memory: cannot read"),
+        (2e9, "max_memory: expected a Quantity"),
+        (5 * u.m, "bytes"),
+        ("-1 GB", "positive"),
+        ([1, 2] * u.GB, "one amount"),
+    ],
+)
 def test_bad_max_memory_is_an_input_error(snap, value, message):
     # Common practice: bad input is an InputError naming the parameter, before any tracing.
     view = rtrace.View(npix=8, distance=1 * u.kpc)
@@ -235,8 +303,11 @@ def test_bad_max_memory_is_an_input_error(snap, value, message):
 def test_impossible_budget_says_the_minimum(snap, los):
     # Common practice: an impossible budget is refused with the minimum that would work.
     view = rtrace.View(los=los, npix=200, distance=1 * u.kpc)
-    with pytest.raises(InputError, match=r"max_memory: 0\.1 MB is too small; this trace needs at least "
-                                         r"([0-9.]+) MB") as info:
+    with pytest.raises(
+        InputError,
+        match=r"max_memory: 0\.1 MB is too small; this trace needs at least "
+        r"([0-9.]+) MB",
+    ) as info:
         rtrace.trace(snap, view, NU, supersample=1, max_memory="0.1 MB")
     minimum = float(info.value.args[0].split("at least ")[1].split(" MB")[0])
     # the minimum stated is enough (it is rounded to 3 digits: allow the rounding)

@@ -29,9 +29,9 @@ from rtrace.physics.ionization import CollisionalEquilibrium, Composition
 # --------------------------------------------------------------------------------------------
 # Independent constants (scipy.constants, CODATA; cgs)
 # --------------------------------------------------------------------------------------------
-K_PER_EV = sc.e / sc.k                                    # 11604.5 K per eV
-M_H_G = (sc.m_p + sc.m_e) * 1e3                           # hydrogen atom (proton + electron) [g]
-M_HE_G = 4.002602 * sc.physical_constants["atomic mass constant"][0] * 1e3   # He standard atomic weight
+K_PER_EV = sc.e / sc.k  # 11604.5 K per eV
+M_H_G = (sc.m_p + sc.m_e) * 1e3  # hydrogen atom (proton + electron) [g]
+M_HE_G = 4.002602 * sc.physical_constants["atomic mass constant"][0] * 1e3  # He standard atomic weight
 # (4.002602: IUPAC standard atomic weight of helium, from memory)
 
 X_DEF, Y_DEF = 0.70, 0.28
@@ -47,9 +47,11 @@ def number_densities(rho, X=X_DEF, Y=Y_DEF):
 # --------------------------------------------------------------------------------------------
 # Voronov 1997, ADNDT 65, 1, table 1 (from memory): dE [eV], P, A [cm^3 s^-1], X, K;
 # C = A (1 + P U^1/2) U^K exp(-U) / (X + U), U = dE / kT.
-VORONOV = {"H": (13.6, 0.0, 2.91e-8, 0.232, 0.39),
-           "HeI": (24.6, 0.0, 1.75e-8, 0.180, 0.35),
-           "HeII": (54.4, 1.0, 2.05e-9, 0.265, 0.25)}
+VORONOV = {
+    "H": (13.6, 0.0, 2.91e-8, 0.232, 0.39),
+    "HeI": (24.6, 0.0, 1.75e-8, 0.180, 0.35),
+    "HeII": (54.4, 1.0, 2.05e-9, 0.265, 0.25),
+}
 
 
 def ln_voronov(T, row):
@@ -103,11 +105,11 @@ def ln_ratios_cen(T):
     c_h = 5.85e-11 * shape * np.exp(-157809.1 / T)
     c_he1 = 2.38e-11 * shape * np.exp(-285335.4 / T)
     c_he2 = 5.68e-12 * shape * np.exp(-631515.0 / T)
-    a_h = 8.4e-11 / np.sqrt(T) * T3 ** -0.2 / (1.0 + T6 ** 0.7)
+    a_h = 8.4e-11 / np.sqrt(T) * T3**-0.2 / (1.0 + T6**0.7)
     # the He II dielectronic term of that set is the same Aldrovandi & Pequignot form: the one
     # ingredient the two sets share
-    a_he2 = 1.5e-10 * T ** -0.6353 + np.exp(ln_dielectronic(T))
-    a_he3 = 3.36e-10 / np.sqrt(T) * T3 ** -0.2 / (1.0 + T6 ** 0.7)
+    a_he2 = 1.5e-10 * T**-0.6353 + np.exp(ln_dielectronic(T))
+    a_he3 = 3.36e-10 / np.sqrt(T) * T3**-0.2 / (1.0 + T6**0.7)
     return np.log(c_h / a_h), np.log(c_he1 / a_he2), np.log(c_he2 / a_he3)
 
 
@@ -133,12 +135,12 @@ T_GRID = np.geomspace(3.0e3, 1.0e9, 1501)
 # fraction depends on up to two ratios, so a bound on its relative error is
 # 2 h^2/8 (U_H + U_HeI + U_HeII + 1): about 3e-5 at 3e3 K (where U sum ~ 360), 3e-6 at
 # 3e4 K, below 1e-7 above 1e6 K. (Measured: 1.2e-5 for He III at 3e3 K, ~1e-6 elsewhere.)
-H_STEP = np.log(1e10 / 1e2) / (2 ** 15 - 1)
+H_STEP = np.log(1e10 / 1e2) / (2**15 - 1)
 
 
 def interpolation_rtol(T):
     u_sum = (13.6 + 24.6 + 54.4) * K_PER_EV / np.asarray(T, float)
-    return 2.0 * H_STEP ** 2 / 8.0 * (u_sum + 1.0) + 1e-9
+    return 2.0 * H_STEP**2 / 8.0 * (u_sum + 1.0) + 1e-9
 
 
 # --------------------------------------------------------------------------------------------
@@ -154,27 +156,35 @@ def test_fractions_match_independent_evaluation_of_published_fits(case):
     for name, g, r in zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref, strict=True):
         assert g.shape == T_GRID.shape and g.dtype == np.float64
         ok = r > 1e-200
-        assert ok.sum() > 1000, name       # the comparison covers most of the grid for every stage
+        assert ok.sum() > 1000, name  # the comparison covers most of the grid for every stage
         rel = np.abs(g[ok] / r[ok] - 1.0)
         worst = np.argmax(rel / rtol[ok])
-        assert np.all(rel <= rtol[ok]), (f"{name} case {case}: relative error {rel[worst]:.3g} at "
-                                         f"T = {T_GRID[ok][worst]:.4g} K (bound {rtol[ok][worst]:.3g})")
+        assert np.all(rel <= rtol[ok]), (
+            f"{name} case {case}: relative error {rel[worst]:.3g} at "
+            f"T = {T_GRID[ok][worst]:.4g} K (bound {rtol[ok][worst]:.3g})"
+        )
     # helium fractions add up to one
     np.testing.assert_allclose(got[1] + got[2] + got[3], 1.0, rtol=1e-13)
 
 
 @pytest.mark.parametrize("case", ["A", "B"])
 def test_species_densities_match_independent_evaluation(case):
-    rho = 2.3e-24                                        # ~1 H atom per cm^3
+    rho = 2.3e-24  # ~1 H atom per cm^3
     T = T_GRID[::10]
     ln_rh, ln_r1, ln_r2 = ln_ratios_set1(T, case)
     x, y1, y2, y3 = fractions_from_ratios(ln_rh, ln_r1, ln_r2)
     n_h, n_he = number_densities(rho)
-    ref = {"n_HII": x * n_h, "n_HI": neutral_h_fraction(ln_rh) * n_h, "n_HeI": y1 * n_he, "n_HeII": y2 * n_he,
-           "n_HeIII": y3 * n_he, "n_e": x * n_h + (y2 + 2 * y3) * n_he}
+    ref = {
+        "n_HII": x * n_h,
+        "n_HI": neutral_h_fraction(ln_rh) * n_h,
+        "n_HeI": y1 * n_he,
+        "n_HeII": y2 * n_he,
+        "n_HeIII": y3 * n_he,
+        "n_e": x * n_h + (y2 + 2 * y3) * n_he,
+    }
     sp = CollisionalEquilibrium(case=case).species_densities(np.full(T.shape, rho) * u.g / u.cm**3, T * u.K)
     assert set(sp) == set(ref)
-    rtol = interpolation_rtol(T) + 1e-8                  # + CODATA versions of astropy vs scipy
+    rtol = interpolation_rtol(T) + 1e-8  # + CODATA versions of astropy vs scipy
     for key, r in ref.items():
         g = sp[key]
         assert g.dtype == np.float64 and g.shape == T.shape
@@ -194,23 +204,27 @@ def _crossing(f, lo, hi):
 
 def _package_crossing(model, index, lo, hi):
     """Where the package's stage fractions cross: x_H = 1/2 (index 0), He I = He II (1), He II = He III (2)."""
+
     def f(T):
         x, y1, y2, y3 = model.fractions(np.array([T]))
         return {0: np.log(x / (1 - x)), 1: np.log(y2 / y1), 2: np.log(y3 / y2)}[index][0]
+
     return _crossing(f, lo, hi)
 
 
 # Measured: Voronov + Hui & Gnedin (case A): H half ionized at 15745 K, He I = He II at 29054 K,
 # He II = He III at 78704 K; Cen 1992: 16408 K, 30247 K, 82663 K (differences 4.0 %, 3.9 %,
 # 4.8 %). Case B (Hui & Gnedin): 15007 K, 27616 K, 73950 K.
-TRANSITIONS = [(0, "H half ionized", 8e3, 5e4, 0.06),
-               (1, "He I = He II", 1.5e4, 1e5, 0.06),
-               (2, "He II = He III", 4e4, 3e5, 0.07)]
+TRANSITIONS = [
+    (0, "H half ionized", 8e3, 5e4, 0.06),
+    (1, "He I = He II", 1.5e4, 1e5, 0.06),
+    (2, "He II = He III", 4e4, 3e5, 0.07),
+]
 
 
 @pytest.mark.parametrize("index, label, lo, hi, tol", TRANSITIONS)
 def test_transition_temperatures_agree_with_cen_1992(index, label, lo, hi, tol):
-    t_cen = _crossing(lambda T: ln_ratios_cen(T)[index], lo, hi)        # Cen 1992 (from memory)
+    t_cen = _crossing(lambda T: ln_ratios_cen(T)[index], lo, hi)  # Cen 1992 (from memory)
     t_set1 = _crossing(lambda T: ln_ratios_set1(T, "A")[index], lo, hi)  # Voronov + Hui & Gnedin
     t_pkg = _package_crossing(CollisionalEquilibrium(case="A"), index, lo, hi)
     # the package reproduces its fits (table interpolation only)
@@ -235,17 +249,19 @@ def test_fractions_agree_with_cen_1992_in_transition_regions(threshold, factor):
     # `factor` (measured worst ratios: 1.55 above 0.1 (He I near 3.6e4 K), 1.81 above 0.01
     # (He I near 4.9e4 K, where He I is a tail on the dielectronic rate)).
     T = np.geomspace(5e3, 1e6, 801)
-    ref = fractions_from_ratios(*ln_ratios_cen(T))              # Cen 1992 (from memory)
+    ref = fractions_from_ratios(*ln_ratios_cen(T))  # Cen 1992 (from memory)
     got = CollisionalEquilibrium(case="A").fractions(T)
     neutral_ref = neutral_h_fraction(ln_ratios_cen(T)[0])
-    pairs = (list(zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref, strict=True))
-             + [("1 - x_H", 1 - got[0], neutral_ref)])
+    pairs = list(zip(("x_H", "y_HeI", "y_HeII", "y_HeIII"), got, ref, strict=True)) + [
+        ("1 - x_H", 1 - got[0], neutral_ref)
+    ]
     for name, g, r in pairs:
         both = (g > threshold) & (r > threshold)
         assert both.sum() > 20, name
         ratio = g[both] / r[both]
-        assert np.all((ratio < factor) & (ratio > 1 / factor)), \
+        assert np.all((ratio < factor) & (ratio > 1 / factor)), (
             f"{name}: ratio {ratio.min():.3g}..{ratio.max():.3g} (factor {factor})"
+        )
 
 
 # --------------------------------------------------------------------------------------------
@@ -333,13 +349,16 @@ def test_bad_case_rejected(case):
         CollisionalEquilibrium(case=case)
 
 
-@pytest.mark.parametrize("field, rho, T, count", [
-    ("T", [1e-24, 1e-24, 1e-24, 1e-24], [1e4, -1.0, 2e4, -5.0], 2),
-    ("T", [1e-24, 1e-24, 1e-24, 1e-24], [1e4, np.nan, 2e4, 3e4], 1),
-    ("T", [1e-24, 1e-24, 1e-24, 1e-24], [np.inf, 1e4, 2e4, 3e4], 1),
-    ("rho", [1e-24, -1e-24, 1e-24, 1e-24], [1e4, 1e4, 2e4, 3e4], 1),
-    ("rho", [np.nan, 1e-24, np.nan, np.nan], [1e4, 1e4, 2e4, 3e4], 3),
-])
+@pytest.mark.parametrize(
+    "field, rho, T, count",
+    [
+        ("T", [1e-24, 1e-24, 1e-24, 1e-24], [1e4, -1.0, 2e4, -5.0], 2),
+        ("T", [1e-24, 1e-24, 1e-24, 1e-24], [1e4, np.nan, 2e4, 3e4], 1),
+        ("T", [1e-24, 1e-24, 1e-24, 1e-24], [np.inf, 1e4, 2e4, 3e4], 1),
+        ("rho", [1e-24, -1e-24, 1e-24, 1e-24], [1e4, 1e4, 2e4, 3e4], 1),
+        ("rho", [np.nan, 1e-24, np.nan, np.nan], [1e4, 1e4, 2e4, 3e4], 3),
+    ],
+)
 def test_bad_cells_rejected_with_count(field, rho, T, count):
     with pytest.raises(InputError, match=rf"^{field}: {count} of 4 cells"):
         CollisionalEquilibrium().species_densities(np.array(rho), np.array(T))

@@ -31,15 +31,16 @@ from rtrace.io.fits import sky_wcs
 
 # an invented field centre
 POSITION = SkyCoord(ra=150.0 * u.deg, dec=-30.0 * u.deg, frame="icrs")
-FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))      # Gaussian identity
+FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))  # Gaussian identity
 
 
 def blob_snapshot(n=32, sigma_cells=4.0, ne_peak=100.0, temperature=1.0e4, cell_pc=0.005):
     """A Gaussian cloud of ionized gas, uniform temperature, optically thin at GHz frequencies."""
     x = np.indices((n, n, n)).astype(float) - (n - 1) / 2
     ne = ne_peak * np.exp(-0.5 * (x**2).sum(axis=0) / sigma_cells**2)
-    return rtrace.Snapshot.from_arrays(temperature=np.full(ne.shape, temperature) * u.K,
-                                       electron_density=ne * u.cm**-3, cell_size=cell_pc * u.pc)
+    return rtrace.Snapshot.from_arrays(
+        temperature=np.full(ne.shape, temperature) * u.K, electron_density=ne * u.cm**-3, cell_size=cell_pc * u.pc
+    )
 
 
 def traced(snapshot=None, npix=64, frequencies=(1.4, 5.0) * u.GHz):
@@ -52,8 +53,16 @@ def result():
     return traced()
 
 
-def observed_header(shape=(20, 20), scale_arcsec=1.5, rotation_deg=30.0, center=None, frequency=1.4e9,
-                    beam=None, bunit="Jy/beam", stokes=True):
+def observed_header(
+    shape=(20, 20),
+    scale_arcsec=1.5,
+    rotation_deg=30.0,
+    center=None,
+    frequency=1.4e9,
+    beam=None,
+    bunit="Jy/beam",
+    stokes=True,
+):
     """FITS header of a TAN image rotated by ``rotation_deg`` (PC matrix), with FREQ (and STOKES) axes."""
     center = POSITION.directional_offset_by(60 * u.deg, 2 * u.arcsec) if center is None else center
     ny, nx = shape
@@ -96,8 +105,9 @@ def point_source_sum(res, plane, beam, header):
     model_wcs = sky_wcs(res.shape[1:], res.pixel_scale, res.sky_position)
     mx, my = model_wcs.world_to_pixel(wcs.pixel_to_world(cols, rows))
     flux = (res.intensity[plane] * res.pixel_solid_angle).to_value(
-        u.erg / (u.s * u.cm**2 * u.Hz) * u.sr / u.sr) / 1.0e-23
-    mrow, mcol = np.mgrid[0:res.shape[1], 0:res.shape[2]]
+        u.erg / (u.s * u.cm**2 * u.Hz) * u.sr / u.sr
+    ) / 1.0e-23
+    mrow, mcol = np.mgrid[0 : res.shape[1], 0 : res.shape[2]]
     s = res.pixel_scale.to_value(u.arcsec)
     north = (my.ravel()[:, None] - mrow.ravel()[None, :]) * s
     east = -(mx.ravel()[:, None] - mcol.ravel()[None, :]) * s
@@ -155,10 +165,11 @@ def interior(mask, width=1):
 # 1. a model against its own synthetic observation
 # ---------------------------------------------------------------------------------------------
 
+
 def test_model_matches_its_own_observation_on_a_rotated_coarser_grid(result):
     hdu = observation_hdu(result)
     cmp, messages = recorded_compare(result, hdu)
-    assert any("common footprint" in m for m in messages)          # rotated corners fall off the model
+    assert any("common footprint" in m for m in messages)  # rotated corners fall off the model
     assert messages == cmp.notes
     assert cmp.frequency.to_value(u.GHz) == pytest.approx(1.4, rel=1e-12)
     assert cmp.beam == BEAM
@@ -173,8 +184,7 @@ def test_model_matches_its_own_observation_on_a_rotated_coarser_grid(result):
     assert np.max(np.abs(cmp.residual.value[inner])) < 1e-4 * peak
     assert np.all(np.isnan(cmp.residual.value[~cmp.footprint]))
     assert cmp.flux_ratio == pytest.approx(1.0, abs=0.01)
-    np.testing.assert_allclose(cmp.residual.value[cmp.footprint],
-                               (cmp.observation - cmp.model).value[cmp.footprint])
+    np.testing.assert_allclose(cmp.residual.value[cmp.footprint], (cmp.observation - cmp.model).value[cmp.footprint])
     # bilinear interpolation is coarser than the default bicubic one but still within 1 %
     lin = quiet_compare(result, hdu, order="bilinear")
     assert np.max(np.abs(lin.residual.value[inner])) < 0.01 * peak
@@ -190,33 +200,40 @@ def test_skymap_model_is_convolved_by_the_beam_difference(result):
     assert cmp.flux_ratio == pytest.approx(1.0, abs=0.01)
     # a SkyMap at the observed beam itself needs no further convolution
     same = quiet_compare(result.observe(beam=BEAM), hdu)
-    np.testing.assert_allclose(same.model.value[same.footprint], cmp.model.value[cmp.footprint],
-                               rtol=0, atol=0.01 * peak)
+    np.testing.assert_allclose(
+        same.model.value[same.footprint], cmp.model.value[cmp.footprint], rtol=0, atol=0.01 * peak
+    )
 
 
 def test_model_fits_cubes_give_the_same_comparison(result, tmp_path):
     hdu = observation_hdu(result)
     direct = quiet_compare(result, hdu)
-    path = result.write_fits(tmp_path / "model.fits")               # Jy/pixel cube with a FREQ axis
+    path = result.write_fits(tmp_path / "model.fits")  # Jy/pixel cube with a FREQ axis
     from_file = quiet_compare(path, hdu)
     scale = np.max(direct.observation.value)
     # float32 storage of the model: agreement to ~1e-7 of the peak
-    np.testing.assert_allclose(from_file.model.value[direct.footprint], direct.model.value[direct.footprint],
-                               rtol=0, atol=1e-6 * scale)
+    np.testing.assert_allclose(
+        from_file.model.value[direct.footprint], direct.model.value[direct.footprint], rtol=0, atol=1e-6 * scale
+    )
     with fits.open(path) as hdul:
         flipped = hdul[0].copy()
-    flipped.header["CDELT1"] = -flipped.header["CDELT1"]           # east to the right: not rtrace's grid
+    flipped.header["CDELT1"] = -flipped.header["CDELT1"]  # east to the right: not rtrace's grid
     with pytest.raises(InputError, match="north up and east left"):
         rtrace.compare(flipped, hdu)
     sky = result.observe(beam=radio_beam.Beam(major=3 * u.arcsec, minor=2 * u.arcsec, pa=10 * u.deg))
-    sky_path = sky.write_fits(tmp_path / "sky.fits")                # Jy/beam cube with BMAJ/BMIN/BPA
-    np.testing.assert_allclose(quiet_compare(sky_path, hdu).model.value[direct.footprint],
-                               quiet_compare(sky, hdu).model.value[direct.footprint], rtol=0, atol=1e-6 * scale)
+    sky_path = sky.write_fits(tmp_path / "sky.fits")  # Jy/beam cube with BMAJ/BMIN/BPA
+    np.testing.assert_allclose(
+        quiet_compare(sky_path, hdu).model.value[direct.footprint],
+        quiet_compare(sky, hdu).model.value[direct.footprint],
+        rtol=0,
+        atol=1e-6 * scale,
+    )
 
 
 # ---------------------------------------------------------------------------------------------
 # 2. frequency: where it is read, interpolation between traced planes
 # ---------------------------------------------------------------------------------------------
+
 
 def test_frequency_from_freq_axis_or_restfrq(result):
     hdu = observation_hdu(result, stokes=False)
@@ -230,12 +247,13 @@ def test_frequency_from_freq_axis_or_restfrq(result):
     from_key = quiet_compare(result, fits.PrimaryHDU(hdu.data[0], header=hdr2))
     assert from_key.frequency_source == "RESTFRQ"
     assert from_key.frequency == from_axis.frequency
-    np.testing.assert_allclose(from_key.model.value, from_axis.model.value, rtol=1e-7)   # header round trip
+    np.testing.assert_allclose(from_key.model.value, from_axis.model.value, rtol=1e-7)  # header round trip
     # an axis in GHz is converted by the WCS (CUNIT3, Greisen et al. 2006)
     ghz = hdu.header.copy()
     ghz["CUNIT3"], ghz["CRVAL3"], ghz["CDELT3"] = "GHz", 1.4, 0.001
-    assert read_observation(fits.PrimaryHDU(hdu.data, header=ghz)).frequency.to_value(u.Hz) == \
-        pytest.approx(1.4e9, rel=1e-12)
+    assert read_observation(fits.PrimaryHDU(hdu.data, header=ghz)).frequency.to_value(u.Hz) == pytest.approx(
+        1.4e9, rel=1e-12
+    )
     # nothing at all: the error lists what was looked for; frequency= supplies it
     del hdr2["RESTFRQ"]
     bare = fits.PrimaryHDU(hdu.data[0], header=hdr2)
@@ -250,16 +268,24 @@ def power_law_result(base, frequencies, nu0=1.0e9):
     i0 = base.intensity.value[0]
     ny, nx = i0.shape
     yy, xx = np.mgrid[0:ny, 0:nx]
-    alpha = -0.1 + 2.1 * (xx / (nx - 1)) * (yy / (ny - 1))          # from thin (-0.1) to thick (+2)
+    alpha = -0.1 + 2.1 * (xx / (nx - 1)) * (yy / (ny - 1))  # from thin (-0.1) to thick (+2)
     nu = u.Quantity(frequencies).to_value(u.Hz)
     cube = i0[None] * (nu[:, None, None] / nu0) ** alpha[None]
-    return rtrace.Result(cube, np.zeros_like(cube), base._em, nu, base.view, base.pixel_size.to_value(u.cm),
-                         base.center.to_value(u.cm), base.provenance)
+    return rtrace.Result(
+        cube,
+        np.zeros_like(cube),
+        base._em,
+        nu,
+        base.view,
+        base.pixel_size.to_value(u.cm),
+        base.center.to_value(u.cm),
+        base.provenance,
+    )
 
 
 def test_power_law_interpolation_is_exact_in_log_log(result):
     pair = power_law_result(result, [1.0, 4.0] * u.GHz)
-    exact = power_law_result(result, [2.0] * u.GHz)          # the power law evaluated at 2 GHz itself
+    exact = power_law_result(result, [2.0] * u.GHz)  # the power law evaluated at 2 GHz itself
     hdu = observation_hdu(exact, plane=0)
     cmp, messages = recorded_compare(pair, hdu)
     assert any("interpolated between the traced 1 and 4 GHz planes" in m for m in messages)
@@ -274,7 +300,7 @@ def test_power_law_interpolation_is_exact_in_log_log(result):
 
 
 def test_frequency_match_uses_the_traced_plane_without_a_note(result):
-    hdu = observation_hdu(result, plane=1)           # 5 GHz, the second traced plane
+    hdu = observation_hdu(result, plane=1)  # 5 GHz, the second traced plane
     cmp = quiet_compare(result, hdu)
     assert cmp.frequency.to_value(u.GHz) == pytest.approx(5.0)
     assert not any("interpolated" in n for n in cmp.notes)
@@ -292,11 +318,15 @@ def test_coarse_model_pixels_are_noted(result):
 # 3. errors
 # ---------------------------------------------------------------------------------------------
 
+
 def test_model_beam_larger_than_observed_is_an_error(result):
     hdu = observation_hdu(result)
     big = result.observe(beam=radio_beam.Beam(major=8 * u.arcsec, minor=3 * u.arcsec, pa=0 * u.deg))
-    with pytest.raises(InputError, match=r"model's beam \(major=8 arcsec.*larger than the observed beam "
-                                         r"\(major=6 arcsec"):
+    with pytest.raises(
+        InputError,
+        match=r"model's beam \(major=8 arcsec.*larger than the observed beam "
+        r"\(major=6 arcsec",
+    ):
         rtrace.compare(big, hdu)
 
 
@@ -318,7 +348,7 @@ def test_missing_beam_and_bad_units_are_errors(result):
         with pytest.raises(InputError, match=f"BUNIT is '{bunit}'"):
             rtrace.compare(result, fits.PrimaryHDU(hdu.data, header=hdr))
     hdr = hdu.header.copy()
-    hdr["BUNIT"] = "JY/BEAM"                          # upper case, as some writers spell it
+    hdr["BUNIT"] = "JY/BEAM"  # upper case, as some writers spell it
     assert quiet_compare(result, fits.PrimaryHDU(hdu.data, header=hdr)).flux_ratio == pytest.approx(1, abs=0.01)
     hdr["BUNIT"] = "not a unit"
     with pytest.raises(InputError, match="BUNIT = 'not a unit'"):
@@ -346,6 +376,7 @@ def test_unusable_inputs_are_errors(result, tmp_path):
 # 4. aperture fluxes, brightness temperature, profiles
 # ---------------------------------------------------------------------------------------------
 
+
 @pytest.fixture(scope="module")
 def point():
     """A compact source (sigma ~ 1 arcsec on the sky) in a 49 arcsec field, seen with a 4 arcsec beam."""
@@ -359,7 +390,7 @@ def test_aperture_flux_of_a_point_source_is_its_total_flux(point):
     res, beam, hdu = point
     cmp = quiet_compare(res, hdu)
     total = res.flux_density()[0]
-    circle = regions.CircleSkyRegion(center=POSITION, radius=12 * u.arcsec)      # 3 FWHM
+    circle = regions.CircleSkyRegion(center=POSITION, radius=12 * u.arcsec)  # 3 FWHM
     ap = cmp.aperture_flux(circle)
     assert ap.complete
     assert ap.model.to_value(u.Jy) == pytest.approx(total.to_value(u.Jy), rel=0.02)
@@ -421,7 +452,7 @@ def test_radial_profile_of_a_point_source(point):
     cmp = quiet_compare(res, hdu)
     prof = cmp.radial_profile()
     assert prof.center.separation(POSITION) < 0.01 * u.arcsec
-    assert (prof.outer[0] - prof.inner[0]).to_value(u.arcsec) == pytest.approx(2.0)       # half the FWHM
+    assert (prof.outer[0] - prof.inner[0]).to_value(u.arcsec) == pytest.approx(2.0)  # half the FWHM
     peak = np.max(cmp.observation.value)
     assert np.nanmax(np.abs(prof.residual.value)) < 0.01 * peak
     # The source: emission ~ n_e^2 of a Gaussian cloud of sigma 1.5 cells is a Gaussian of sigma
@@ -429,20 +460,19 @@ def test_radial_profile_of_a_point_source(point):
     # the image is the Gaussian of summed variances, peak S sigma_b^2 / sigma^2 Jy/beam
     # (Jy/beam definition, common practice). Its mean over the pixels of each ring:
     total = res.flux_density()[0].to_value(u.Jy)
-    cell = res.pixel_scale.to_value(u.arcsec)                 # one cell per pixel here
+    cell = res.pixel_scale.to_value(u.arcsec)  # one cell per pixel here
     var_b = (4.0 / FWHM_PER_SIGMA) ** 2
     var = var_b + 1.5**2 / 2 * cell**2
     rows, cols = np.mgrid[0:36, 0:36]
     r = POSITION.separation(cmp.wcs.pixel_to_world(cols, rows)).to_value(u.arcsec)
-    analytic = total * var_b / var * np.exp(-r**2 / (2 * var))
+    analytic = total * var_b / var * np.exp(-(r**2) / (2 * var))
     ring = (r[cmp.footprint] // 2.0).astype(int)
     expected = [analytic[cmp.footprint][ring == k].mean() for k in range(5)]
     np.testing.assert_allclose(prof.model.value[:5], expected, rtol=0, atol=0.01 * peak)
     np.testing.assert_array_equal(prof.pixels[:5], [np.sum(ring == k) for k in range(5)])
     assert np.all(np.diff(prof.model.value[:6]) < 0)
     assert prof.pixels.sum() == cmp.footprint.sum()
-    narrow = cmp.radial_profile(center=regions.PixCoord(17.5, 17.5), bin_width=1 * u.arcsec,
-                                max_radius=5 * u.arcsec)
+    narrow = cmp.radial_profile(center=regions.PixCoord(17.5, 17.5), bin_width=1 * u.arcsec, max_radius=5 * u.arcsec)
     assert len(narrow.radius) == 5
     with pytest.raises(InputError, match="bin_width"):
         cmp.radial_profile(bin_width=2 * u.m)
@@ -452,16 +482,17 @@ def test_radial_profile_of_a_point_source(point):
 # outputs: figure, FITS, command line
 # ---------------------------------------------------------------------------------------------
 
+
 def test_figure_scales_and_orientation(result, tmp_path):
     cmp = quiet_compare(result, observation_hdu(result))
     fig = cmp.plot(tmp_path / "cmp.png")
     assert (tmp_path / "cmp.png").stat().st_size > 10000
-    assert [p.name for p in tmp_path.iterdir()] == ["cmp.png"]              # no temporary file left
+    assert [p.name for p in tmp_path.iterdir()] == ["cmp.png"]  # no temporary file left
     images = [ax.images[0] for ax in fig.axes if ax.images]
     assert len(images) == 3
-    assert images[0].norm is images[1].norm                                  # matched obs / model scale
+    assert images[0].norm is images[1].norm  # matched obs / model scale
     rnorm = images[2].norm
-    assert rnorm.vmin == pytest.approx(-rnorm.vmax)                           # symmetric residual scale
+    assert rnorm.vmin == pytest.approx(-rnorm.vmax)  # symmetric residual scale
     assert sum(1 for ax in fig.axes for p in ax.patches if p.get_gid() == "beam") == 3
     # east on the left: right ascension decreases from the left edge to the right edge
     ax = fig.axes[0]
@@ -502,21 +533,35 @@ def test_command_line_compare(result, tmp_path, capsys):
     hdu.writeto(tmp_path / "nobeam.fits")
     assert main(["compare", str(model), str(tmp_path / "nobeam.fits"), "--output", str(tmp_path)]) == EXIT_INPUT
     assert "BMAJ" in capsys.readouterr().err
-    assert main(["compare", str(model), str(tmp_path / "nobeam.fits"), "--output", str(tmp_path),
-                 "--beam", "6 arcsec, 4 arcsec, 30 deg"]) == EXIT_OK
+    assert (
+        main(
+            [
+                "compare",
+                str(model),
+                str(tmp_path / "nobeam.fits"),
+                "--output",
+                str(tmp_path),
+                "--beam",
+                "6 arcsec, 4 arcsec, 30 deg",
+            ]
+        )
+        == EXIT_OK
+    )
     for argv in (["--beam", "6 arcsec"], ["--frequency", "1 GHz, 2 GHz"], ["--help"]):
         with pytest.raises(SystemExit) as exc:
             main(["compare", str(model), str(tmp_path / "obs.fits"), *argv])
         assert exc.value.code == (0 if argv == ["--help"] else 2)
 
 
-JOB = job_text(snapshot=demo(16), frequencies=TWO_FREQUENCIES, view=view("small", 24, "2 kpc"),
-               output={"directory": "out"})
+JOB = job_text(
+    snapshot=demo(16), frequencies=TWO_FREQUENCIES, view=view("small", 24, "2 kpc"), output={"directory": "out"}
+)
 
 
 def test_command_line_compare_traces_a_job_at_the_observed_frequency(tmp_path, capsys):
     from rtrace.run.job import build_views, load_job
     from rtrace.run.pipeline import build_snapshot
+
     job_path = tmp_path / "job.toml"
     job_path.write_text(JOB)
     job = load_job(job_path)
@@ -524,10 +569,17 @@ def test_command_line_compare_traces_a_job_at_the_observed_frequency(tmp_path, c
     res = rtrace.trace(build_snapshot(job), dict(build_views(job))["small"], [3.0] * u.GHz)
     field = res.pixel_scale * 24
     beam = radio_beam.Beam(major=field / 5, minor=field / 6, pa=10 * u.deg)
-    hdr = observed_header(shape=(16, 16), scale_arcsec=(field / 20).to_value(u.arcsec), rotation_deg=-15,
-                          center=res.sky_position, frequency=3e9, beam=beam, stokes=False)
+    hdr = observed_header(
+        shape=(16, 16),
+        scale_arcsec=(field / 20).to_value(u.arcsec),
+        rotation_deg=-15,
+        center=res.sky_position,
+        frequency=3e9,
+        beam=beam,
+        stokes=False,
+    )
     fits.PrimaryHDU(point_source_sum(res, 0, beam, hdr)[None], header=hdr).writeto(tmp_path / "obs.fits")
     assert main(["compare", str(job_path), str(tmp_path / "obs.fits"), "--output", str(tmp_path)]) == EXIT_OK
     out = capsys.readouterr().out
     assert "frequency    3 GHz" in out and "flux ratio   model / observed = 1.00" in out
-    assert "interpolated" not in out                   # traced at 3 GHz itself
+    assert "interpolated" not in out  # traced at 3 GHz itself

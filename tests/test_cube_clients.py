@@ -65,6 +65,7 @@ def results(snap):
 # the clients
 # --------------------------------------------------------------------------------------------
 
+
 def verified_header(path):
     """The primary header after astropy's strictest check; any warning fails."""
     with warnings.catch_warnings():
@@ -122,7 +123,7 @@ def check_written(written, path, frequencies, beams=None):
         assert [str(f) for f in written] == [str(f) for f in files] and len(files) == len(frequencies)
         for k, f in enumerate(files):
             plane_beam = None if beams is None else (beams[k] if isinstance(beams, list) else beams)
-            header, _ = check_clients(f, frequencies[k:k + 1], plane_beam)
+            header, _ = check_clients(f, frequencies[k : k + 1], plane_beam)
             assert (header["RTPLANE"], header["RTNPLANE"]) == (k + 1, len(frequencies))
     else:
         assert str(written) == str(path) and files == [path]
@@ -132,6 +133,7 @@ def check_written(written, path, frequencies, beams=None):
 # --------------------------------------------------------------------------------------------
 # Result quantities
 # --------------------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("name", list(LISTS))
 @pytest.mark.parametrize("quantity", ["intensity", "tau", "brightness_temperature"])
@@ -164,8 +166,14 @@ BEAM = radio_beam.Beam(major=70 * u.arcsec, minor=50 * u.arcsec, pa=30 * u.deg)
 @pytest.mark.parametrize("scaling", [None, "inverse-frequency"])
 def test_skymap_cubes_open_everywhere(results, tmp_path, name, scaling):
     res = results[name]
-    sky = observe(res, BEAM, noise=1e-4 * u.Jy / u.beam, seed=1, beam_scaling=scaling,
-                         reference_frequency=res.frequencies[0] if scaling else None)
+    sky = observe(
+        res,
+        BEAM,
+        noise=1e-4 * u.Jy / u.beam,
+        seed=1,
+        beam_scaling=scaling,
+        reference_frequency=res.frequencies[0] if scaling else None,
+    )
     beams = list(sky.beams)
     if scaling and len(beams) > 1:
         # the beam scales as 1/nu from the reference frequency (the meaning of the option)
@@ -178,13 +186,15 @@ def test_skymap_cubes_open_everywhere(results, tmp_path, name, scaling):
 def test_synthesized_cubes_open_everywhere(snap, tmp_path):
     # a compact invented array at 35 deg latitude (beam ~ 6 arcsec at 5 GHz); the demo at 10 kpc on 32
     # pixels of 1.3 arcsec puts several pixels across the synthesized beam
-    antennas = np.array([[0, 0, 0], [610, 140, 1], [-380, 520, 2], [150, -700, 0], [-900, -300, 1],
-                         [1200, 800, 3]], float) * u.m
+    antennas = (
+        np.array([[0, 0, 0], [610, 140, 1], [-380, 520, 2], [150, -700, 0], [-900, -300, 1], [1200, 800, 3]], float)
+        * u.m
+    )
     view = rtrace.View(npix=32, distance=10 * u.kpc, sky_position=SkyCoord(ra=150 * u.deg, dec=40 * u.deg))
     for name, nu in (("geometric", [4, 6, 9] * u.GHz), ("irregular", [4, 5, 7] * u.GHz)):
         res = rtrace.trace(snap, view, nu)
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore")       # coarse sampling warnings are not the subject here
+            warnings.simplefilter("ignore")  # coarse sampling warnings are not the subject here
             sm = synthesize(res, antennas=antennas, latitude=35 * u.deg, n_hour_angles=16, niter=50)
         path = tmp_path / f"{name}_synthesized.fits"
         check_written(sm.write_fits(path), path, nu, list(sm.beams))
@@ -218,6 +228,7 @@ def test_long_strings_are_announced(results, tmp_path):
 # rtrace's own readers
 # --------------------------------------------------------------------------------------------
 
+
 def test_comparison_reads_log_axis_and_plane_files(results, tmp_path):
     for name in ("geometric", "irregular"):
         res = results[name]
@@ -226,8 +237,8 @@ def test_comparison_reads_log_axis_and_plane_files(results, tmp_path):
         direct = model_cube(res)
         readers = [model_cube(written)]
         if name == "irregular":
-            readers.append(model_cube(path))           # the cube's own name finds its plane files
-            readers.append(model_cube([str(p) for p in reversed(written)]))   # any order: by frequency below
+            readers.append(model_cube(path))  # the cube's own name finds its plane files
+            readers.append(model_cube([str(p) for p in reversed(written)]))  # any order: by frequency below
         for cube in readers:
             order = np.argsort(cube.frequencies)
             assert np.allclose(cube.frequencies[order], res.frequencies.to_value(u.Hz), rtol=RTOL, atol=0)
@@ -250,10 +261,13 @@ def test_observation_reader_reads_a_plane_file(results, tmp_path):
 # a job run with an irregular list
 # --------------------------------------------------------------------------------------------
 
-JOB = jobs.job_text(snapshot=jobs.demo(8), frequencies={"values": ["1 GHz", "5 GHz", "22 GHz"]},
-                    view=jobs.view("face", 8, "2 kpc"),
-                    beam={"major": "70 arcsec", "scaling": "inverse-frequency", "reference_frequency": "1 GHz"},
-                    output={"directory": "out", "pictures": False, "sed": False})
+JOB = jobs.job_text(
+    snapshot=jobs.demo(8),
+    frequencies={"values": ["1 GHz", "5 GHz", "22 GHz"]},
+    view=jobs.view("face", 8, "2 kpc"),
+    beam={"major": "70 arcsec", "scaling": "inverse-frequency", "reference_frequency": "1 GHz"},
+    output={"directory": "out", "pictures": False, "sed": False},
+)
 
 
 def test_job_with_irregular_frequencies_writes_plane_files_and_resumes(tmp_path):
@@ -265,7 +279,7 @@ def test_job_with_irregular_frequencies_writes_plane_files_and_resumes(tmp_path)
     for f in fits_files:
         header, _ = verified_header(f)
         if header["NAXIS"] == 2:
-            maps.append(f)                          # the emission measure: no spectral axis
+            maps.append(f)  # the emission measure: no spectral axis
             continue
         planes.setdefault(header["RTNPLANE"], []).append(header["RTPLANE"])
         nu = WCS(header).spectral.pixel_to_world_values(0)
@@ -283,7 +297,7 @@ def test_job_with_irregular_frequencies_writes_plane_files_and_resumes(tmp_path)
     assert list(again) == [] and sorted(again.skipped) == sorted(written)
     # a lost plane file makes its cube again, and only that one
     lost = next(f for f in fits_files if f.endswith("_02_5GHz.fits"))
-    stem = lost[:-len("_02_5GHz.fits")]
+    stem = lost[: -len("_02_5GHz.fits")]
     Path(lost).unlink()
     third = run_job(load_job(job_path))
     assert sorted(third) == [f"{stem}_01_1GHz.fits", lost, f"{stem}_03_22GHz.fits"]

@@ -47,14 +47,19 @@ def h5file(tmp_path_factory):
 @pytest.fixture(scope="module")
 def client():
     # threads in one process: quick to start; the process-based cluster is tested below
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
-                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
+    with (
+        distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster,
+        distributed.Client(cluster) as c,
+    ):
         yield c
 
 
 def assert_close(a, b, rtol=1e-12):
-    for x, y in ((a.intensity.value, b.intensity.value), (a.tau, b.tau),
-                 (a.emission_measure.value, b.emission_measure.value)):
+    for x, y in (
+        (a.intensity.value, b.intensity.value),
+        (a.tau, b.tau),
+        (a.emission_measure.value, b.emission_measure.value),
+    ):
         assert np.allclose(x, y, rtol=rtol, atol=0)
     assert a.rays_per_pixel == b.rays_per_pixel
 
@@ -79,10 +84,14 @@ def test_dask_with_a_memory_budget(client, h5file):
     # Reference: the single-process trace under the same budget / default bricks.
     snap = open_hdf5(h5file, temperature="T", electron_density="ne")
     v = rtrace.View(los=(0.3, -0.5, 0.8), npix=19, distance=1 * u.kpc)
-    assert_close(rtrace.trace(snap, v, NU, supersample=1, client=client, max_memory="3 MB"),
-                 rtrace.trace(snap, v, NU, supersample=1, max_memory="3 MB"))
-    assert_close(rtrace.trace(snap, v, NU, supersample=1, client=client),          # default bricks
-                 rtrace.trace(snap, v, NU, supersample=1))
+    assert_close(
+        rtrace.trace(snap, v, NU, supersample=1, client=client, max_memory="3 MB"),
+        rtrace.trace(snap, v, NU, supersample=1, max_memory="3 MB"),
+    )
+    assert_close(
+        rtrace.trace(snap, v, NU, supersample=1, client=client),  # default bricks
+        rtrace.trace(snap, v, NU, supersample=1),
+    )
 
 
 def test_a_failing_task_makes_trace_raise(client, tmp_path):
@@ -103,6 +112,7 @@ def _kill_worker_on_first_brick(monkeypatch, kills):
     import time
 
     from rtrace.transfer import tracer
+
     real = tracer._ObliqueRoute.trace_brick
     lock, done = threading.Lock(), []
 
@@ -113,11 +123,12 @@ def _kill_worker_on_first_brick(monkeypatch, kills):
                 done.append(lo)
         if kill:
             from distributed.core import Status
+
             worker = distributed.get_worker()
             worker.loop.add_callback(worker.close, nanny=False, executor_wait=False)
-            deadline = time.monotonic() + 30.0    # the worker goes while this task is running (a fixed
-            while worker.status != Status.closed and time.monotonic() < deadline:     # sleep lost the
-                time.sleep(0.05)                  # race on a loaded machine: the result came back first)
+            deadline = time.monotonic() + 30.0  # the worker goes while this task is running (a fixed
+            while worker.status != Status.closed and time.monotonic() < deadline:  # sleep lost the
+                time.sleep(0.05)  # race on a loaded machine: the result came back first)
         return real(self, lo, hi, arrays, origin, **kwargs)
 
     monkeypatch.setattr(tracer._ObliqueRoute, "trace_brick", trace_brick)
@@ -131,8 +142,10 @@ def test_a_lost_worker_with_in_memory_bricks_is_traced_again(h5file, monkeypatch
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
     single = rtrace.trace(snap, view, NU, supersample=1, brick_size=6)
     killed = _kill_worker_on_first_brick(monkeypatch, 1)
-    with distributed.LocalCluster(n_workers=3, threads_per_worker=1, processes=False,
-                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
+    with (
+        distributed.LocalCluster(n_workers=3, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster,
+        distributed.Client(cluster) as c,
+    ):
         with pytest.warns(UserWarning, match=r"client: the dask cluster lost data .* \(attempt 2 of 3\)"):
             res = rtrace.trace(snap, view, NU, supersample=1, brick_size=6, client=c)
     assert len(killed) == 1
@@ -142,14 +155,20 @@ def test_a_lost_worker_with_in_memory_bricks_is_traced_again(h5file, monkeypatch
 def test_workers_lost_in_every_attempt_give_a_clear_error(h5file, monkeypatch):
     from rtrace.errors import ConfigError
     from rtrace.transfer import parallel
+
     monkeypatch.setattr(parallel, "ATTEMPTS", 1)
     snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
     _kill_worker_on_first_brick(monkeypatch, 1)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
-                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
-        with pytest.raises(ConfigError, match=r"client: in each of 1 attempt the dask cluster lost a worker "
-                                              r"holding bricks of this in-memory snapshot .*open_hdf5"):
+    with (
+        distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster,
+        distributed.Client(cluster) as c,
+    ):
+        with pytest.raises(
+            ConfigError,
+            match=r"client: in each of 1 attempt the dask cluster lost a worker "
+            r"holding bricks of this in-memory snapshot .*open_hdf5",
+        ):
             rtrace.trace(snap, view, NU, supersample=1, brick_size=6, client=c)
 
 
@@ -174,20 +193,24 @@ def test_worker_processes_read_their_own_bricks(h5file, monkeypatch):
 
     monkeypatch.setattr(HDF5Source, "read", no_reading_here)
     with pytest.raises(AssertionError):
-        rtrace.trace(snap, view, NU, supersample=1, brick_size=5)            # the guard works in this process
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=":0") as cluster, distributed.Client(cluster) as c:
+        rtrace.trace(snap, view, NU, supersample=1, brick_size=5)  # the guard works in this process
+    with (
+        distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster,
+        distributed.Client(cluster) as c,
+    ):
         res = rtrace.trace(snap, view, NU, supersample=1, brick_size=5, client=c)
         hosts = c.run(lambda: __import__("os").getpid())
-    assert len(set(hosts.values())) == 2                      # two separate worker processes
+    assert len(set(hosts.values())) == 2  # two separate worker processes
     assert_close(res, single)
 
 
 def test_rtrace_imports_without_dask():
     # Common practice for optional dependencies: rtrace (and its dask module) must import when dask is not
     # installed: None in sys.modules makes any import of dask or distributed fail.
-    code = ("import sys; sys.modules['dask'] = sys.modules['distributed'] = None\n"
-            "import rtrace, rtrace.transfer.parallel, rtrace.io.lazy\n"
-            "assert not [m for m in sys.modules if m.split('.')[0] in ('dask', 'distributed') and sys.modules[m]]\n")
+    code = (
+        "import sys; sys.modules['dask'] = sys.modules['distributed'] = None\n"
+        "import rtrace, rtrace.transfer.parallel, rtrace.io.lazy\n"
+        "assert not [m for m in sys.modules if m.split('.')[0] in ('dask', 'distributed') and sys.modules[m]]\n"
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr[-2000:]

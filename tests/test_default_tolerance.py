@@ -23,16 +23,18 @@ from rtrace import amr
 from rtrace.transfer import cell_cache, tracer
 from rtrace.transfer.result import PixelAccuracyWarning
 
-NU = [10.0] * u.GHz          # optically thin on this grid (tau ~ 1e-4): the first lattice meets 1e-2
-VIEW = rtrace.View(los=(1.0, 2.0, 3.0), north=(0.3, -0.9, 0.2), npix=13, width=13 * 1.6 * CELL * u.cm,
-                   distance=1 * u.kpc)
+NU = [10.0] * u.GHz  # optically thin on this grid (tau ~ 1e-4): the first lattice meets 1e-2
+VIEW = rtrace.View(
+    los=(1.0, 2.0, 3.0), north=(0.3, -0.9, 0.2), npix=13, width=13 * 1.6 * CELL * u.cm, distance=1 * u.kpc
+)
 
 
 @pytest.fixture(scope="module")
 def snap():
     ne, t = _grid()
-    return rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=CELL * u.cm, electron_density=ne * u.cm**-3,
-                                       dtype=np.float64)
+    return rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=CELL * u.cm, electron_density=ne * u.cm**-3, dtype=np.float64
+    )
 
 
 def _quiet(*args, **kwargs):
@@ -75,6 +77,7 @@ def test_explicit_tolerance_on_bricks_still_refines(snap):
 
 def test_file_backed_snapshot_falls_back(snap, tmp_path):
     import h5py
+
     path = tmp_path / "grid.h5"
     with h5py.File(path, "w") as h5:
         h5.attrs["cell_size"] = CELL
@@ -93,8 +96,7 @@ def test_amr_snapshot_falls_back(snap):
     amr_snap = amr.AMRSnapshot([grid], 2, shape, np.full(3, CELL), np.zeros(3), {"source": "test"})
     with pytest.warns(PixelAccuracyWarning, match="AMR snapshots are traced leaf by leaf"):
         res = rtrace.trace(amr_snap, VIEW, NU)
-    np.testing.assert_allclose(res.intensity.value, _quiet(snap, VIEW, NU, supersample=1).intensity.value,
-                               rtol=1e-10)
+    np.testing.assert_allclose(res.intensity.value, _quiet(snap, VIEW, NU, supersample=1).intensity.value, rtol=1e-10)
 
 
 def test_per_cell_state_too_large_falls_back(snap, monkeypatch):
@@ -111,13 +113,14 @@ def test_frequencies_split_in_groups_when_their_state_does_not_fit(snap, monkeyp
     # with room for one frequency's per-cell state at a time, each frequency is refined on its own:
     # the images are those of tracing each frequency alone (thick 0.1 GHz, thin 10 GHz)
     from rtrace.transfer.oblique_split import split_state_bytes
+
     both = [0.1, 10.0] * u.GHz
     one = split_state_bytes(cell_cache.emitting_blocks(snap), 1)
     monkeypatch.setattr(tracer, "fits_in_memory", lambda need: need <= one)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PixelAccuracyWarning)
         res = rtrace.trace(snap, VIEW, both, tolerance=5e-2)
-        alone = [rtrace.trace(snap, VIEW, both[k:k + 1], tolerance=5e-2) for k in range(2)]
+        alone = [rtrace.trace(snap, VIEW, both[k : k + 1], tolerance=5e-2) for k in range(2)]
     for k in range(2):
         np.testing.assert_allclose(res.intensity.value[k], alone[k].intensity.value[0], rtol=1e-12, atol=0)
         np.testing.assert_allclose(res.tau[k], alone[k].tau[0], rtol=1e-12, atol=0)
@@ -134,14 +137,19 @@ def test_axis_views_are_exact_and_unchanged(snap):
     assert a.pixel_error.max_relative == 0.0
 
 
-JOB = job_text(snapshot=demo(16), frequencies={"values": ["10 GHz"]}, view=view("tilted", 12, "2 kpc", los=[1, 2, 3]),
-               output={"directory": "out", "pictures": False})
+JOB = job_text(
+    snapshot=demo(16),
+    frequencies={"values": ["10 GHz"]},
+    view=view("tilted", 12, "2 kpc", los=[1, 2, 3]),
+    output={"directory": "out", "pictures": False},
+)
 
 
 def test_jobs_follow_the_default(tmp_path):
     from astropy.io import fits
 
     from rtrace.cli import EXIT_OK, main
+
     path = tmp_path / "job.toml"
     path.write_text(JOB)
     with warnings.catch_warnings():
@@ -165,8 +173,15 @@ def test_sky_maps_and_interferometer_images_carry_the_model_estimate(snap, tmp_p
 
     from rtrace.interferometer import synthesize
     from rtrace.observe import observe
-    view = rtrace.View(los=(1.0, 2.0, 3.0), north=(0.3, -0.9, 0.2), npix=13, width=13 * 1.6 * CELL * u.cm,
-                       distance=1 * u.kpc, sky_position=SkyCoord(ra=150 * u.deg, dec=40 * u.deg))
+
+    view = rtrace.View(
+        los=(1.0, 2.0, 3.0),
+        north=(0.3, -0.9, 0.2),
+        npix=13,
+        width=13 * 1.6 * CELL * u.cm,
+        distance=1 * u.kpc,
+        sky_position=SkyCoord(ra=150 * u.deg, dec=40 * u.deg),
+    )
     res = _quiet(snap, view, NU)
     beam = Beam(3 * res.pixel_scale.to(u.arcsec))
     header = fits.getheader(observe(res, beam, seed=1).write_fits(tmp_path / "observed.fits"))
@@ -175,7 +190,7 @@ def test_sky_maps_and_interferometer_images_carry_the_model_estimate(snap, tmp_p
     assert "model" in header.comments["RTPIXERR"]
     antennas = np.array([[0, 0, 0], [610, 140, 1], [-380, 520, 2], [150, -700, 0]], float) * u.m
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore")           # coarse sampling warnings are not the subject here
+        warnings.simplefilter("ignore")  # coarse sampling warnings are not the subject here
         sm = synthesize(res, antennas=antennas, latitude=35 * u.deg, n_hour_angles=8, niter=10)
     for image in ("restored", "dirty"):
         header = fits.getheader(sm.write_fits(tmp_path / f"{image}.fits", image=image))

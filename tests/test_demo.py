@@ -15,7 +15,7 @@ from rtrace.transfer.result import PixelAccuracyWarning
 def test_scenario_has_thick_and_thin_regimes():
     snap = demo.scenario(n=32)
     assert snap.shape == (32, 32, 32)
-    assert snap._ne.max() > 1e3 and (snap._ne == 0).any()        # ionized gas inside a neutral cloud
+    assert snap._ne.max() > 1e3 and (snap._ne == 0).any()  # ionized gas inside a neutral cloud
     res = rtrace.trace(snap, rtrace.View(npix=32, distance=2 * u.kpc), [0.3, 100] * u.GHz)
     assert res.tau[0].max() > 5 and np.median(res.tau[1][res.tau[1] > 0]) < 0.01
     flux = res.flux_density().to_value(u.Jy)
@@ -32,7 +32,7 @@ def test_scenario_is_one_object_at_every_resolution():
     flux = {n: rtrace.trace(demo.scenario(n), view, nu).flux_density().to_value(u.Jy) for n in (64, 128, 256)}
     for n in (64, 128):
         assert np.allclose(flux[n], flux[256], rtol=0.02), (n, flux[n], flux[256])
-    assert flux[256][1] > 2 * flux[256][0]          # thick at 0.3 GHz: the flux rises to 3 GHz
+    assert flux[256][1] > 2 * flux[256][0]  # thick at 0.3 GHz: the flux rises to 3 GHz
 
 
 def test_scenario_rejects_bad_cell_counts():

@@ -20,15 +20,16 @@ N = 24
 CELL = 0.01 * u.pc
 T_E = 8000.0
 N_E = 3000.0
-FREQS = [0.2, 0.5, 1.4, 5.0, 20.0] * u.GHz        # tau of the 0.24 pc slab from ~30 down to ~0.01
+FREQS = [0.2, 0.5, 1.4, 5.0, 20.0] * u.GHz  # tau of the 0.24 pc slab from ~30 down to ~0.01
 
 
 @pytest.fixture(scope="module")
 def slab():
     t = np.full((N, N, N), T_E)
     ne = np.full((N, N, N), N_E)
-    return rtrace.Snapshot.from_arrays(temperature=t * u.K, electron_density=ne * u.cm**-3, cell_size=CELL,
-                                       dtype=np.float64)
+    return rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, electron_density=ne * u.cm**-3, cell_size=CELL, dtype=np.float64
+    )
 
 
 def _alpha():
@@ -37,8 +38,13 @@ def _alpha():
 
 @pytest.fixture(scope="module")
 def axis_result(slab):
-    view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=N, distance=1 * u.kpc,
-                       sky_position=SkyCoord(ra=150 * u.deg, dec=-30 * u.deg))
+    view = rtrace.View(
+        los=(0, 0, 1),
+        north=(0, 1, 0),
+        npix=N,
+        distance=1 * u.kpc,
+        sky_position=SkyCoord(ra=150 * u.deg, dec=-30 * u.deg),
+    )
     return rtrace.trace(slab, view, FREQS)
 
 
@@ -49,7 +55,7 @@ def test_tau_unity_depth_is_one_over_alpha_in_a_uniform_slab(axis_result):
     length = (N * CELL).to_value(u.cm)
     for k, a in enumerate(alpha):
         if a * length > 1.0:
-            np.testing.assert_allclose(depth[k], 1.0 / a, rtol=2e-6)       # table Gaunt factor to 5e-7
+            np.testing.assert_allclose(depth[k], 1.0 / a, rtol=2e-6)  # table Gaunt factor to 5e-7
         else:
             assert np.all(np.isnan(depth[k]))
     assert np.any(alpha * length > 1) and np.any(alpha * length < 1)
@@ -112,8 +118,9 @@ def test_cut_table_round_trips_as_ecsv_with_units(axis_result, tmp_path):
     assert len(t) == c.columns.size and t.meta["background"] == c.describe_background()
     np.testing.assert_array_equal(t["offset"].quantity, c.offset)
     np.testing.assert_array_equal(t["distance"].quantity, c.distance)
-    np.testing.assert_array_equal(t["emission_measure"].quantity.to_value(u.pc * u.cm**-6),
-                                  c.emission_measure.to_value(u.pc * u.cm**-6))
+    np.testing.assert_array_equal(
+        t["emission_measure"].quantity.to_value(u.pc * u.cm**-6), c.emission_measure.to_value(u.pc * u.cm**-6)
+    )
     for k, f in enumerate(FREQS.to_value(u.GHz)):
         tag = f"{f:.6g}GHz"
         np.testing.assert_array_equal(t[f"I_{tag}"].quantity, c.intensity[k])
@@ -134,6 +141,7 @@ def test_cut_spectral_index_in_thick_and_thin_limits(axis_result):
 
 def test_cut_endpoints_from_sky_coordinates(axis_result):
     from rtrace.io.fits import sky_wcs
+
     wcs = sky_wcs(axis_result.shape[1:], axis_result.pixel_scale, axis_result.sky_position)
     a = wcs.pixel_to_world(3.0, 5.0)
     b = wcs.pixel_to_world(17.5, 9.0)
@@ -154,8 +162,7 @@ def test_contribution_function_sums_to_the_traced_intensity(slab):
     dtau_last = ray.tau_front[:, -1] - ray.tau_front[:, -2] if ray.tau_front.shape[1] > 1 else 0
     alpha = _alpha()
     tau_ray = alpha * ray.path_length.to_value(u.cm).sum()
-    np.testing.assert_allclose(ray.tau_front[:, -1] + alpha * ray.path_length[-1].to_value(u.cm), tau_ray,
-                               rtol=1e-5)
+    np.testing.assert_allclose(ray.tau_front[:, -1] + alpha * ray.path_length[-1].to_value(u.cm), tau_ray, rtol=1e-5)
     assert np.all(dtau_last > 0)
     s = physics.planck(FREQS, T_E * u.K).to_value(res.intensity.unit)
     np.testing.assert_allclose(ray.intensity.value, s * -np.expm1(-tau_ray), rtol=1e-5)
@@ -170,18 +177,27 @@ def test_contribution_function_sums_to_the_traced_intensity(slab):
 
 def test_diagnostics_need_a_traced_result():
     from rtrace.transfer.result import Result
-    res = Result(np.zeros((1, 2, 2)), np.zeros((1, 2, 2)), np.zeros((2, 2)), np.array([1e9]),
-                 rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=2, distance=1 * u.kpc), 1.0,
-                 np.zeros(3), {"source": "x"})
+
+    res = Result(
+        np.zeros((1, 2, 2)),
+        np.zeros((1, 2, 2)),
+        np.zeros((2, 2)),
+        np.array([1e9]),
+        rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=2, distance=1 * u.kpc),
+        1.0,
+        np.zeros(3),
+        {"source": "x"},
+    )
     with pytest.raises(InputError, match="snapshot"):
         res.tau_unity_depth()
 
 
 def test_pickled_result_leaves_its_snapshot_behind(axis_result):
     import pickle
+
     copy = pickle.loads(pickle.dumps(axis_result))
     np.testing.assert_array_equal(copy.intensity.value, axis_result.intensity.value)
     assert copy._snapshot is None and axis_result._snapshot is not None
-    assert len(pickle.dumps(axis_result)) < 5 * axis_result.intensity.nbytes      # not the 24^3 snapshot
+    assert len(pickle.dumps(axis_result)) < 5 * axis_result.intensity.nbytes  # not the 24^3 snapshot
     with pytest.raises(InputError, match="snapshot"):
         copy.tau_unity_depth()

@@ -52,7 +52,7 @@ def test_the_example_job_balances_photons(snapshot):
     alpha_b = 2.753e-14 * lam**1.5 / (1.0 + (lam / 2.740) ** 0.407) ** 2.242
     # photoionized cells are the warm ones (the cloud is 60 K); n_HII = n_e - n_HeII with n_HeII = y n_HII
     warm = snap.temperature.value > 1000.0
-    y = (0.27 / 4.002602) / (0.71 / 1.00794)                      # n_He / n_H from the mass fractions
+    y = (0.27 / 4.002602) / (0.71 / 1.00794)  # n_He / n_H from the mass fractions
     ne = snap.electron_density.value
     n_hii = ne / (1.0 + y)
     recombinations = np.sum((alpha_b * ne * n_hii)[warm]) * np.prod(snap.cell_size)
@@ -63,7 +63,7 @@ def test_the_example_globules_cast_shadows(snapshot):
     snap, *_ = snapshot
     ne = snap.electron_density.value
     dx = snap.cell_size[0] / u.pc.to(u.cm)
-    at = lambda x, y, z: ne[int(x / dx), int(y / dx), int(z / dx)]     # noqa: E731
+    at = lambda x, y, z: ne[int(x / dx), int(y / dx), int(z / dx)]  # noqa: E731
     # behind the western globule (centre 2.2 pc, radius 0.3 pc) as seen from the stars near x = 3 pc
     assert at(1.6, 3.15, 3.0) < 1e-3
     # the same distance from the stars toward the north-west, clear of the globules

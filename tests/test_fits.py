@@ -28,7 +28,7 @@ from rtrace.errors import InputError
 from rtrace.io import atomic as atomic_module
 from rtrace.io import atomic_path, sky_wcs, write_cube, write_result, write_skymap
 
-OFF_CENTRE = SkyCoord(ra=137.25 * u.deg, dec=-41.5 * u.deg, frame="icrs")   # an arbitrary position
+OFF_CENTRE = SkyCoord(ra=137.25 * u.deg, dec=-41.5 * u.deg, frame="icrs")  # an arbitrary position
 
 
 @pytest.fixture(scope="module")
@@ -72,6 +72,7 @@ def offsets_arcsec(centre, other):
 # header keywords
 # --------------------------------------------------------------------------------------------
 
+
 def test_header_keywords_follow_the_standards(res_offset, tmp_path):
     res = res_offset
     header, data, _, _ = read(write_result(res, tmp_path / "cube.fits"))
@@ -89,8 +90,8 @@ def test_header_keywords_follow_the_standards(res_offset, tmp_path):
     assert header["CRPIX1"] == nx / 2 + 0.5 and header["CRPIX2"] == ny / 2 + 0.5
     assert header["CRVAL1"] == pytest.approx(OFF_CENTRE.ra.deg, abs=1e-12)
     assert header["CRVAL2"] == pytest.approx(OFF_CENTRE.dec.deg, abs=1e-12)
-    assert header["RADESYS"] == "ICRS" and "EQUINOX" not in header   # ICRS has no equinox (paper II, sec. 3.1)
-    assert header["SPECSYS"] == "SOURCE"                               # paper III, table 12 (from memory)
+    assert header["RADESYS"] == "ICRS" and "EQUINOX" not in header  # ICRS has no equinox (paper II, sec. 3.1)
+    assert header["SPECSYS"] == "SOURCE"  # paper III, table 12 (from memory)
     assert header["BUNIT"] == "Jy/pixel"
     assert u.Unit(header["BUNIT"], format="fits") == u.Jy / u.pix
     # Provenance.
@@ -103,7 +104,7 @@ def test_header_keywords_follow_the_standards(res_offset, tmp_path):
     written = datetime.datetime.strptime(header["DATE"], "%Y-%m-%dT%H:%M:%S")
     now = datetime.datetime.now(datetime.UTC).replace(tzinfo=None)
     assert abs((now - written).total_seconds()) < 600
-    assert "BMAJ" not in header      # not beam-convolved
+    assert "BMAJ" not in header  # not beam-convolved
 
 
 def test_data_layout_matches_result(res_offset, tmp_path):
@@ -117,6 +118,7 @@ def test_data_layout_matches_result(res_offset, tmp_path):
 # --------------------------------------------------------------------------------------------
 # WCS read back
 # --------------------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("which", ["res", "res_offset"])
 def test_wcs_centre_and_orientation(which, request, tmp_path):
@@ -164,8 +166,7 @@ def test_uniform_linspace_frequencies_are_linear(tmp_path):
     path = write_cube(tmp_path / "l.fits", np.ones((7, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE)
     header, _, wcs, extra = read(path)
     assert header["CTYPE3"] == "FREQ" and not extra
-    assert np.allclose(wcs.spectral.pixel_to_world_values(np.arange(7)), nu.to_value(u.Hz),
-                       rtol=1e-14, atol=0)
+    assert np.allclose(wcs.spectral.pixel_to_world_values(np.arange(7)), nu.to_value(u.Hz), rtol=1e-14, atol=0)
 
 
 def test_geometric_frequency_axis_is_logarithmic(res_offset, tmp_path):
@@ -178,8 +179,7 @@ def test_geometric_frequency_axis_is_logarithmic(res_offset, tmp_path):
     by_formula = header["CRVAL3"] * np.exp(header["CDELT3"] * (p - header["CRPIX3"]) / header["CRVAL3"])
     assert np.allclose(by_formula, [1e9, 3e9, 9e9], rtol=1e-14, atol=0)
     # astropy's WCS (wcslib) evaluates the same axis from the header alone.
-    assert np.allclose(WCS(header).spectral.pixel_to_world_values(np.arange(3)), [1e9, 3e9, 9e9],
-                       rtol=1e-14, atol=0)
+    assert np.allclose(WCS(header).spectral.pixel_to_world_values(np.arange(3)), [1e9, 3e9, 9e9], rtol=1e-14, atol=0)
     assert np.allclose(wcs.spectral.pixel_to_world_values(np.arange(3)), [1e9, 3e9, 9e9], rtol=1e-14, atol=0)
 
 
@@ -188,7 +188,7 @@ def test_irregular_frequencies_one_file_per_plane(tmp_path):
     cube = np.arange(3 * 4 * 5, dtype=float).reshape(3, 4, 5) * u.K
     paths = write_cube(tmp_path / "n.fits", cube, nu, 1 * u.arcsec, OFF_CENTRE)
     assert [p.name for p in paths] == ["n_01_1GHz.fits", "n_02_3GHz.fits", "n_03_10GHz.fits"]
-    assert sorted(os.listdir(tmp_path)) == [p.name for p in paths]       # nothing else, names sort as planes
+    assert sorted(os.listdir(tmp_path)) == [p.name for p in paths]  # nothing else, names sort as planes
     for k, path in enumerate(paths):
         header, data, _, extra = read(path)
         assert header["CTYPE3"] == "FREQ" and header["NAXIS3"] == 1 and not extra
@@ -199,20 +199,30 @@ def test_irregular_frequencies_one_file_per_plane(tmp_path):
 
 def test_plane_names_are_distinct_and_sorted(tmp_path):
     from rtrace.io.fits import plane_paths
+
     nu = [1.00001, 1.00002, 0.3, 100, 31.62277, 1.2e5] * u.GHz
     names = [p.name for p in plane_paths(tmp_path / "c.fits", nu)]
-    assert names == ["c_01_1.00001GHz.fits", "c_02_1.00002GHz.fits", "c_03_0.3GHz.fits", "c_04_100GHz.fits",
-                     "c_05_31.62GHz.fits", "c_06_120000GHz.fits"]
-    assert [p.name for p in plane_paths(tmp_path / "m.v2.fits.gz", [1, 2] * u.GHz)] == \
-        ["m.v2_01_1GHz.fits.gz", "m.v2_02_2GHz.fits.gz"]
+    assert names == [
+        "c_01_1.00001GHz.fits",
+        "c_02_1.00002GHz.fits",
+        "c_03_0.3GHz.fits",
+        "c_04_100GHz.fits",
+        "c_05_31.62GHz.fits",
+        "c_06_120000GHz.fits",
+    ]
+    assert [p.name for p in plane_paths(tmp_path / "m.v2.fits.gz", [1, 2] * u.GHz)] == [
+        "m.v2_01_1GHz.fits.gz",
+        "m.v2_02_2GHz.fits.gz",
+    ]
     many = plane_paths(tmp_path / "c.fits", np.arange(1, 121) * u.GHz)
     assert many[0].name == "c_001_1GHz.fits" and sorted(many) == many
 
 
 def test_irregular_frequencies_tabulated_on_request(tmp_path):
     nu = [1, 3, 10] * u.GHz
-    path = write_cube(tmp_path / "n.fits", np.ones((3, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE,
-                      spectral_axis="tabular")
+    path = write_cube(
+        tmp_path / "n.fits", np.ones((3, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE, spectral_axis="tabular"
+    )
     header, _, wcs, extra = read(path)
     # Tabular axis (Greisen et al. 2006, sec. 6, from memory).
     assert header["CTYPE3"] == "FREQ-TAB" and header["PS3_0"] in extra
@@ -226,18 +236,18 @@ def test_irregular_frequencies_tabulated_on_request(tmp_path):
     assert u.Unit(table.columns[header["PS3_1"]].unit) == u.Hz
     assert np.array_equal(np.ravel(table.data[header["PS3_1"]]), nu.to_value(u.Hz))
     with pytest.raises(InputError, match="spectral_axis: expected one of 'auto', 'tabular', got 'table'"):
-        write_cube(tmp_path / "m.fits", np.ones((3, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE,
-                   spectral_axis="table")
+        write_cube(tmp_path / "m.fits", np.ones((3, 4, 5)) * u.K, nu, 1 * u.arcsec, OFF_CENTRE, spectral_axis="table")
     assert not (tmp_path / "m.fits").exists()
 
 
 def test_single_frequency_and_2d_maps(res, tmp_path):
     # A 2D map with frequencies: a degenerate FREQ axis at frequencies[0].
-    header, data, wcs, _ = read(write_cube(tmp_path / "one.fits", res.emission_measure,
-                                           [5] * u.GHz, res.pixel_scale, res.sky_position))
+    header, data, wcs, _ = read(
+        write_cube(tmp_path / "one.fits", res.emission_measure, [5] * u.GHz, res.pixel_scale, res.sky_position)
+    )
     assert header["NAXIS"] == 3 and header["NAXIS3"] == 1 and data.shape == (1, 32, 32)
     assert wcs.spectral.pixel_to_world_values(0) == pytest.approx(5e9, rel=1e-15)
-    assert header["CDELT3"] != 0                  # CDELTi must not be zero
+    assert header["CDELT3"] != 0  # CDELTi must not be zero
     # The emission measure is frequency-independent: celestial axes only.
     header, data, wcs, _ = read(write_result(res, tmp_path / "em.fits", "emission_measure"))
     assert header["NAXIS"] == 2 and header["WCSAXES"] == 2 and wcs.naxis == 2
@@ -245,13 +255,17 @@ def test_single_frequency_and_2d_maps(res, tmp_path):
     assert np.allclose(data, res.emission_measure.to_value(u.pc / u.cm**6), rtol=1e-6, atol=0)
 
 
-@pytest.mark.parametrize("nu", [[1, 10] * u.GHz, [1, 3, 10] * u.GHz, [8] * u.GHz, [1, 2, 4, 8] * u.GHz,
-                                [30, 10, 20] * u.cm])
+@pytest.mark.parametrize(
+    "nu", [[1, 10] * u.GHz, [1, 3, 10] * u.GHz, [8] * u.GHz, [1, 2, 4, 8] * u.GHz, [30, 10, 20] * u.cm]
+)
 def test_sky_wcs_matches_written_header(nu, tmp_path):
     nu_hz = nu.to_value(u.Hz, equivalencies=u.spectral())
     w = sky_wcs((6, 7), 2 * u.arcsec, OFF_CENTRE, nu)
-    _, _, read_wcs, _ = read(write_cube(tmp_path / "w.fits", np.zeros((len(nu), 6, 7)) * u.K, nu,
-                                        2 * u.arcsec, OFF_CENTRE, spectral_axis="tabular"))
+    _, _, read_wcs, _ = read(
+        write_cube(
+            tmp_path / "w.fits", np.zeros((len(nu), 6, 7)) * u.K, nu, 2 * u.arcsec, OFF_CENTRE, spectral_axis="tabular"
+        )
+    )
     assert w.pixel_shape == (7, 6, len(nu))
     pix = np.arange(len(nu))
     for wcs in (w, read_wcs):
@@ -265,11 +279,11 @@ def test_sky_wcs_matches_written_header(nu, tmp_path):
 # quantities and units
 # --------------------------------------------------------------------------------------------
 
+
 def test_jy_per_pixel_sums_equal_flux_density(res, tmp_path):
     _, data, _, _ = read(write_result(res, tmp_path / "f.fits"))
     # Float32 storage and summation: agree to a few parts in 1e6.
-    assert np.allclose(data.sum(axis=(1, 2), dtype=np.float64), res.flux_density().to_value(u.Jy),
-                       rtol=1e-5, atol=0)
+    assert np.allclose(data.sum(axis=(1, 2), dtype=np.float64), res.flux_density().to_value(u.Jy), rtol=1e-5, atol=0)
 
 
 def test_jy_per_pixel_and_the_background(snap, tmp_path):
@@ -287,7 +301,7 @@ def test_jy_per_pixel_and_the_background(snap, tmp_path):
 @pytest.mark.parametrize("unit", ["Jy/sr", "erg/(s cm2 Hz sr)", "mJy/pixel"])
 def test_intensity_units(res, tmp_path, unit):
     header, data, _, _ = read(write_result(res, tmp_path / "i.fits", unit=unit))
-    bunit = u.Unit(header["BUNIT"], format="fits")       # FITS unit syntax (Pence et al. 2010, sec. 4.3)
+    bunit = u.Unit(header["BUNIT"], format="fits")  # FITS unit syntax (Pence et al. 2010, sec. 4.3)
     assert bunit == u.Unit(unit)
     if bunit.is_equivalent(u.Jy / u.pix):
         expected = (res.intensity * res.pixel_solid_angle).to_value(u.mJy)
@@ -300,7 +314,7 @@ def test_intensity_units(res, tmp_path, unit):
 
 def test_optical_depth(res, tmp_path):
     header, data, _, _ = read(write_result(res, tmp_path / "t.fits", "tau"))
-    assert "BUNIT" not in header and header["RTQUANT"] == "tau"   # dimensionless
+    assert "BUNIT" not in header and header["RTQUANT"] == "tau"  # dimensionless
     assert np.allclose(data, res.tau, rtol=1e-6, atol=0)
 
 
@@ -319,8 +333,7 @@ def test_brightness_temperature_is_planck(res, tmp_path):
 
 
 def test_brightness_temperature_rayleigh_jeans(res, tmp_path):
-    header, data, _, _ = read(write_result(res, tmp_path / "rj.fits", "brightness_temperature",
-                                           kind="rayleigh-jeans"))
+    header, data, _, _ = read(write_result(res, tmp_path / "rj.fits", "brightness_temperature", kind="rayleigh-jeans"))
     # T_RJ = c^2 I / (2 k nu^2) (Rybicki & Lightman 1979, eq. 1.53, from memory).
     for plane, nu in enumerate(res.frequencies):
         expected = res.intensity[plane].to_value(u.K, u.brightness_temperature(nu))
@@ -331,16 +344,27 @@ def test_brightness_temperature_rayleigh_jeans(res, tmp_path):
 # sky maps and beams
 # --------------------------------------------------------------------------------------------
 
+
 def skymap(beams, reference, nfreq=3, shape=(10, 12)):
     """A stand-in with the attributes of rtrace.observe.skymap.SkyMap."""
     rng = np.random.default_rng(3)
     return types.SimpleNamespace(
         data=rng.normal(size=(nfreq,) + shape) * u.Jy / u.beam,
-        beams=list(beams), beam=reference,
+        beams=list(beams),
+        beam=reference,
         frequencies=np.linspace(2, 6, nfreq) * u.GHz,
-        pixel_scale=0.5 * u.arcsec, sky_position=OFF_CENTRE,
-        provenance={"source": "test", "checksum": "0" * 64, "view": "v", "ionization": "full",
-                    "background": "none", "beam": "gaussian, FWHM 3 arcsec", "noise": "rms 1e-5 Jy/beam"})
+        pixel_scale=0.5 * u.arcsec,
+        sky_position=OFF_CENTRE,
+        provenance={
+            "source": "test",
+            "checksum": "0" * 64,
+            "view": "v",
+            "ionization": "full",
+            "background": "none",
+            "beam": "gaussian, FWHM 3 arcsec",
+            "noise": "rms 1e-5 Jy/beam",
+        },
+    )
 
 
 def assert_header_beam(header, beam):
@@ -360,20 +384,22 @@ def test_skymap_common_beam(tmp_path):
     assert "BEAMS" not in extra
     assert header["BEAM"] == sm.provenance["beam"] and header["NOISE"] == sm.provenance["noise"]
     assert np.allclose(data, sm.data.value, rtol=1e-6, atol=0)
-    assert np.allclose(wcs.spectral.pixel_to_world_values(np.arange(3)), sm.frequencies.to_value(u.Hz),
-                       rtol=1e-14, atol=0)
+    assert np.allclose(
+        wcs.spectral.pixel_to_world_values(np.arange(3)), sm.frequencies.to_value(u.Hz), rtol=1e-14, atol=0
+    )
 
 
 def test_skymap_beams_per_channel(tmp_path):
-    beams = [radio_beam.Beam(major=(4 - i) * u.arcsec, minor=(3 - i) * u.arcsec, pa=(10 + 20 * i) * u.deg)
-             for i in range(3)]
+    beams = [
+        radio_beam.Beam(major=(4 - i) * u.arcsec, minor=(3 - i) * u.arcsec, pa=(10 + 20 * i) * u.deg) for i in range(3)
+    ]
     sm = skymap(beams, beams[0])
     header, _, _, extra = read(write_skymap(sm, tmp_path / "sky.fits"))
     assert_header_beam(header, beams[0])
     table = extra["BEAMS"]
     assert list(table.columns.names) == ["BMAJ", "BMIN", "BPA", "CHAN", "POL"]
     assert np.array_equal(table.data["CHAN"], [0, 1, 2]) and np.array_equal(table.data["POL"], [0, 0, 0])
-    assert np.allclose(table.data["BMAJ"], [4, 3, 2], rtol=1e-14)       # arcsec
+    assert np.allclose(table.data["BMAJ"], [4, 3, 2], rtol=1e-14)  # arcsec
     read_beams = radio_beam.Beams.from_fits_bintable(table)
     assert len(read_beams) == 3
     for got, want in zip(read_beams, beams, strict=True):
@@ -383,12 +409,28 @@ def test_skymap_beams_per_channel(tmp_path):
 def test_write_cube_single_beam_and_default_reference(tmp_path):
     small = radio_beam.Beam(2 * u.arcsec)
     large = radio_beam.Beam(major=5 * u.arcsec, minor=4 * u.arcsec, pa=0 * u.deg)
-    header, _, _, extra = read(write_cube(tmp_path / "a.fits", np.ones((2, 4, 4)) * u.Jy / u.beam,
-                                          [1, 2] * u.GHz, 1 * u.arcsec, OFF_CENTRE, beams=small))
+    header, _, _, extra = read(
+        write_cube(
+            tmp_path / "a.fits",
+            np.ones((2, 4, 4)) * u.Jy / u.beam,
+            [1, 2] * u.GHz,
+            1 * u.arcsec,
+            OFF_CENTRE,
+            beams=small,
+        )
+    )
     assert_header_beam(header, small) and "BEAMS" not in extra
-    header, _, _, extra = read(write_cube(tmp_path / "b.fits", np.ones((2, 4, 4)) * u.Jy / u.beam,
-                                          [1, 2] * u.GHz, 1 * u.arcsec, OFF_CENTRE, beams=[small, large]))
-    assert_header_beam(header, large)          # default reference: the largest beam
+    header, _, _, extra = read(
+        write_cube(
+            tmp_path / "b.fits",
+            np.ones((2, 4, 4)) * u.Jy / u.beam,
+            [1, 2] * u.GHz,
+            1 * u.arcsec,
+            OFF_CENTRE,
+            beams=[small, large],
+        )
+    )
+    assert_header_beam(header, large)  # default reference: the largest beam
     assert "BEAMS" in extra
 
 
@@ -396,22 +438,27 @@ def test_write_cube_single_beam_and_default_reference(tmp_path):
 # long strings, bad input
 # --------------------------------------------------------------------------------------------
 
+
 def test_long_and_non_ascii_provenance(tmp_path):
     # No trailing blank: trailing spaces of FITS strings are not significant (Pence et al. 2010, sec. 4.2.1.1).
     long_view = " ".join(["los=(0.267261, 0.534522, 0.801784)"] * 6)
     prov = {"view": long_view, "source": "snap_α.h5", "ionization": "it's full", "custom": "kept"}
-    header, _, _, _ = read(write_cube(tmp_path / "p.fits", np.ones((4, 4)) * u.K, None,
-                                      1 * u.arcsec, OFF_CENTRE, provenance=prov))
-    assert header["VIEW"] == long_view                 # CONTINUE cards (Pence et al. 2010, sec. 4.2.1.2)
+    header, _, _, _ = read(
+        write_cube(tmp_path / "p.fits", np.ones((4, 4)) * u.K, None, 1 * u.arcsec, OFF_CENTRE, provenance=prov)
+    )
+    assert header["VIEW"] == long_view  # CONTINUE cards (Pence et al. 2010, sec. 4.2.1.2)
     # ... announced by LONGSTRN (the OGIP long-string convention, from memory), before the first of them
     assert header["LONGSTRN"] == "OGIP 1.0"
     assert list(header.keys()).index("LONGSTRN") < list(header.keys()).index("VIEW")
-    assert header["SNAPSRC"] == "snap_?.h5"            # header text is printable ASCII only
+    assert header["SNAPSRC"] == "snap_?.h5"  # header text is printable ASCII only
     assert header["IONIZ"] == "it's full"
     assert "custom: kept" in str(header["HISTORY"])
-    header, _, _, _ = read(write_cube(tmp_path / "s.fits", np.ones((4, 4)) * u.K, None, 1 * u.arcsec, OFF_CENTRE,
-                                      provenance={"view": "short"}))
-    assert "LONGSTRN" not in header                    # no long strings, no announcement
+    header, _, _, _ = read(
+        write_cube(
+            tmp_path / "s.fits", np.ones((4, 4)) * u.K, None, 1 * u.arcsec, OFF_CENTRE, provenance={"view": "short"}
+        )
+    )
+    assert "LONGSTRN" not in header  # no long strings, no announcement
 
 
 def test_bad_input_is_reported(res, tmp_path):
@@ -456,6 +503,7 @@ def test_bad_input_is_reported(res, tmp_path):
 # atomic writes
 # --------------------------------------------------------------------------------------------
 
+
 def _failing_writeto(self, fileobj, *args, **kwargs):
     """Write part of a file, then fail, as a full disk would."""
     with open(fileobj, "wb") as handle:
@@ -482,12 +530,11 @@ def test_atomic_path_success_and_failure(tmp_path, monkeypatch):
     calls = []
     real_fsync, real_replace = os.fsync, os.replace
     monkeypatch.setattr(atomic_module.os, "fsync", lambda fd: (calls.append("fsync"), real_fsync(fd))[1])
-    monkeypatch.setattr(atomic_module.os, "replace",
-                        lambda a, b: (calls.append("replace"), real_replace(a, b))[1])
+    monkeypatch.setattr(atomic_module.os, "replace", lambda a, b: (calls.append("replace"), real_replace(a, b))[1])
     with atomic_path(target) as tmp:
         assert tmp.parent == tmp_path and tmp.name.startswith(".") and tmp.name.endswith(".csv.gz")
         tmp.write_text("new")
-        assert not target.exists()                # nothing visible before the end
+        assert not target.exists()  # nothing visible before the end
     assert target.read_text() == "new" and os.listdir(tmp_path) == ["table.csv.gz"]
     # Data are flushed before the rename (and the directory after it).
     assert calls[:2] == ["fsync", "replace"]

@@ -25,15 +25,20 @@ from rtrace.physics.freefree import absorption_cgs
 from rtrace.transfer.footprint import Footprint, project_blocks, project_cells
 from rtrace.transfer.tracer import FrequencyTables, _ObliqueRoute
 
-PC = 3.0856775814913673e18          # cm (IAU 2015 B2 parsec, common practice)
+PC = 3.0856775814913673e18  # cm (IAU 2015 B2 parsec, common practice)
 CELL = 0.01 * PC
 
 # (los, north): generic ones; los in a coordinate plane with north along a grid axis (faces seen edge-on,
 # shadow edges parallel to pixel edges); north along a grid axis; nearly in a coordinate plane.
-DIRECTIONS = [((1.0, 2.0, 3.0), (0.3, -0.9, 0.2)), ((-0.35, 0.8, 0.52), (0.7, 0.1, 0.6)),
-              ((1.0, 2.0, 0.0), (0.0, 0.0, 1.0)), ((1.0, 0.0, 3.0), (0.0, 1.0, 0.0)),
-              ((1.0, 1.0, 1.0), (0.0, 0.0, 1.0)), ((0.02, 1.0, 0.5), (0.0, 0.0, 1.0)),
-              ((1.0, 2.0, 3e-4), (0.0, 0.0, 1.0))]
+DIRECTIONS = [
+    ((1.0, 2.0, 3.0), (0.3, -0.9, 0.2)),
+    ((-0.35, 0.8, 0.52), (0.7, 0.1, 0.6)),
+    ((1.0, 2.0, 0.0), (0.0, 0.0, 1.0)),
+    ((1.0, 0.0, 3.0), (0.0, 1.0, 0.0)),
+    ((1.0, 1.0, 1.0), (0.0, 0.0, 1.0)),
+    ((0.02, 1.0, 0.5), (0.0, 0.0, 1.0)),
+    ((1.0, 2.0, 3e-4), (0.0, 0.0, 1.0)),
+]
 
 
 def _route(los, north, pix_cells, cell=(1.0, 1.0, 1.0), n=12, npix=16, nu=1e10, fields=None):
@@ -43,9 +48,13 @@ def _route(los, north, pix_cells, cell=(1.0, 1.0, 1.0), n=12, npix=16, nu=1e10, 
         t = np.full((n, n, n), 1e4)
     else:
         ne, t = fields
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=cell * u.cm,
-                                       electron_density=ne * u.cm**-3, ion_density=ne * u.cm**-3,
-                                       dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K,
+        cell_size=cell * u.cm,
+        electron_density=ne * u.cm**-3,
+        ion_density=ne * u.cm**-3,
+        dtype=np.float64,
+    )
     view = rtrace.View(los=los, north=north, npix=npix, width=npix * pix_cells * CELL * u.cm, distance=1 * u.kpc)
     center, pix = view.resolve(snap)
     return snap, view, _ObliqueRoute(snap, view, center, pix, FrequencyTables(np.array([nu])), 1), center, pix
@@ -55,9 +64,9 @@ def _brute_kernel(fp, dx, dy, nrow=4000):
     """K(dx, dy) (cm): chord lengths by slabs, exact along one pixel axis, ``nrow`` midpoint rows across."""
     ga, gb, gc = fp.g_a.copy(), fp.g_b.copy(), fp.g_c.copy()
     ginv = np.linalg.inv(np.column_stack([ga, gb]))
-    r = -ginv @ gc                                 # depth drift of (alpha, beta) per unit depth
+    r = -ginv @ gc  # depth drift of (alpha, beta) per unit depth
     # integrate exactly along the axis across which a face seen edge-on (a jump of the chord) runs
-    jump = gb if abs(r[0]) < abs(r[1]) else ga          # the face nearest edge-on runs along this
+    jump = gb if abs(r[0]) < abs(r[1]) else ga  # the face nearest edge-on runs along this
     if abs(jump[0]) > abs(jump[1]):
         ga, gb, gc = ga[::-1], gb[::-1], gc[::-1]
         dx, dy = dy, dx
@@ -70,13 +79,13 @@ def _brute_kernel(fp, dx, dy, nrow=4000):
     y = ya + (yb - ya) * (np.arange(nrow) + 0.5) / nrow
     # (alpha, beta) = ginv @ (x - dx, y - dy): slope in x, intercept per row
     slope = ginv[:, 0]
-    icpt = ginv[:, 0:1] * (-dx) + ginv[:, 1:2] * (y[None, :] - dy)      # (2, nrow)
-    lower = [(np.zeros(nrow), np.zeros(nrow))]     # (slope, intercept) of bounds on the depth t
+    icpt = ginv[:, 0:1] * (-dx) + ginv[:, 1:2] * (y[None, :] - dy)  # (2, nrow)
+    lower = [(np.zeros(nrow), np.zeros(nrow))]  # (slope, intercept) of bounds on the depth t
     upper = [(np.zeros(nrow), np.ones(nrow))]
     x0, x1 = np.zeros(nrow), np.ones(nrow)
     for k in range(2):
         s, c = np.full(nrow, slope[k]), icpt[k]
-        if abs(r[k]) < 1e-12:                      # slab parallel to the rays: 0 <= alpha <= 1 limits x
+        if abs(r[k]) < 1e-12:  # slab parallel to the rays: 0 <= alpha <= 1 limits x
             if s[0] == 0.0:
                 bad = (c < 0) | (c > 1)
                 x1 = np.where(bad, x0, x1)
@@ -111,8 +120,12 @@ def test_kernel_in_a_coordinate_plane_with_oblique_north():
     # stop at the node budget a little short of it (reported in Footprint.accuracy)
     rng = np.random.default_rng(12)
     los, north = (1.0, 2.0, 0.0), (0.3, 0.1, 1.0)
-    for pix_cells, cell, limit in [(0.1, (1.0, 1.0, 1.0), 4e-4), (0.5, (1.0, 2.0, 0.5), 1e-4),
-                                   (1.6, (1.0, 1.0, 1.0), 1e-4), (8.0, (1.0, 2.0, 0.5), 1e-4)]:
+    for pix_cells, cell, limit in [
+        (0.1, (1.0, 1.0, 1.0), 4e-4),
+        (0.5, (1.0, 2.0, 0.5), 1e-4),
+        (1.6, (1.0, 1.0, 1.0), 1e-4),
+        (8.0, (1.0, 2.0, 0.5), 1e-4),
+    ]:
         fp = Footprint.from_route(_route(los, north, pix_cells, cell=cell)[2])
         (x0, x1), (y0, y1) = fp.support
         dx, dy = rng.uniform(x0, x1, 12), rng.uniform(y0, y1, 12)
@@ -162,8 +175,13 @@ def test_kernel_against_brute_force(los, north):
     # K interpolated from the table, and the exact evaluation, against the slab reference at random offsets
     rng = np.random.default_rng(11)
     worst = []
-    for pix_cells, cell in [(0.1, (1.0, 2.0, 0.5)), (0.5, (1.0, 1.0, 1.0)), (1.6, (1.0, 2.0, 0.5)),
-                            (8.0, (1.0, 1.0, 1.0)), (8.0, (0.5, 1.0, 2.0))]:
+    for pix_cells, cell in [
+        (0.1, (1.0, 2.0, 0.5)),
+        (0.5, (1.0, 1.0, 1.0)),
+        (1.6, (1.0, 2.0, 0.5)),
+        (8.0, (1.0, 1.0, 1.0)),
+        (8.0, (0.5, 1.0, 2.0)),
+    ]:
         fp = Footprint.from_route(_route(los, north, pix_cells, cell=cell)[2])
         (x0, x1), (y0, y1) = fp.support
         # offsets spread over the support, plus the table's worst places: its kinks, where it changes most
@@ -180,6 +198,7 @@ def test_kernel_against_brute_force(los, north):
 
 
 # -- images of a random grid against brute-force sub-rays -------------------------------------------
+
 
 def _grid(n=12, seed=3):
     """Lognormal n_e (sigma = 1 in ln n_e) with cell-to-cell structure, T uniform in 5e3 .. 2e4 K."""
@@ -206,14 +225,14 @@ def _reference(qs, los, north, npix, pix, nsub, window=None, chunk=40000):
     flat_q = qs.reshape(len(qs), -1)
     out = np.empty((len(qs), len(points)))
     for s0 in range(0, len(points), chunk):
-        p = points[s0:s0 + chunk]
+        p = points[s0 : s0 + chunk]
         ts, t_in, t_out = [], np.full(len(p), -np.inf), np.full(len(p), np.inf)
         for k in range(3):
             if los[k] == 0.0:
                 inside = (p[:, k] >= 0) & (p[:, k] <= size[k])
                 t_out = np.where(inside, t_out, -np.inf)
                 continue
-            planes = (np.arange(shape[k] + 1) * CELL - p[:, k:k + 1]) / los[k]
+            planes = (np.arange(shape[k] + 1) * CELL - p[:, k : k + 1]) / los[k]
             ts.append(planes)
             t_in = np.maximum(t_in, planes.min(axis=1))
             t_out = np.minimum(t_out, planes.max(axis=1))
@@ -224,13 +243,13 @@ def _reference(qs, los, north, npix, pix, nsub, window=None, chunk=40000):
         idx = np.clip(np.floor(mid / CELL).astype(int), 0, shape - 1)
         flat = np.ravel_multi_index((idx[..., 0], idx[..., 1], idx[..., 2]), tuple(shape))
         for q in range(len(qs)):
-            out[q, s0:s0 + chunk] = np.sum(flat_q[q][flat] * ds, axis=1)
+            out[q, s0 : s0 + chunk] = np.sum(flat_q[q][flat] * ds, axis=1)
     return out.reshape(len(qs), size_w, nsub, size_w, nsub).mean(axis=(2, 4))
 
 
 def _project(route, qs):
     fp = Footprint.from_route(route)
-    values = qs.transpose(0, *(route.order + 1))               # (a, b, c) order, a transposed view
+    values = qs.transpose(0, *(route.order + 1))  # (a, b, c) order, a transposed view
     out = np.zeros((len(qs),) + route.image_shape)
     lo = np.zeros(3, np.int64)
     project_cells(fp, values, lo, np.asarray(values.shape[1:]), lo, out)
@@ -242,8 +261,11 @@ def _rel_error(got, ref, peak, floor=1e-3):
     return float(np.max(np.abs(got[bright] - ref[bright]) / ref[bright]))
 
 
-IMAGE_DIRECTIONS = [((1.0, 2.0, 3.0), (0.3, -0.9, 0.2)), ((-0.35, 0.8, 0.52), (0.7, 0.1, 0.6)),
-                    ((0.9, -0.25, 0.4), (-0.2, 0.5, 0.9))]
+IMAGE_DIRECTIONS = [
+    ((1.0, 2.0, 3.0), (0.3, -0.9, 0.2)),
+    ((-0.35, 0.8, 0.52), (0.7, 0.1, 0.6)),
+    ((0.9, -0.25, 0.4), (-0.2, 0.5, 0.9)),
+]
 
 
 @pytest.mark.parametrize("los,north", IMAGE_DIRECTIONS)
@@ -264,14 +286,16 @@ def test_em_and_tau_images_against_sub_rays(los, north):
         full = _project(route, qs)
         r0 = npix // 2 - size // 2
         c0 = int(np.argmax(full[0, npix // 2] >= 1e-3 * full[0].max()))
-        got = full[:, r0:r0 + size, c0:c0 + size]
+        got = full[:, r0 : r0 + size, c0 : c0 + size]
         ref = _reference(qs, los, north, npix, pix, nsub, (r0, c0, size))
         err_em, err_tau = _rel_error(got[0], ref[0], full[0].max()), _rel_error(got[1], ref[1], full[1].max())
         lattice = rtrace.trace(snap, view, nu * u.Hz, supersample=1)
-        err_lat = _rel_error(lattice._em[r0:r0 + size, c0:c0 + size], ref[0], full[0].max())
-        print(f"los={los} pixel={pix_cells} cells, pixels {ref[0].min() / full[0].max():.1e}.."
-              f"{ref[0].max() / full[0].max():.1e} of the peak: footprint EM {err_em:.1e} tau {err_tau:.1e}; "
-              f"lattice EM {err_lat:.1e}")
+        err_lat = _rel_error(lattice._em[r0 : r0 + size, c0 : c0 + size], ref[0], full[0].max())
+        print(
+            f"los={los} pixel={pix_cells} cells, pixels {ref[0].min() / full[0].max():.1e}.."
+            f"{ref[0].max() / full[0].max():.1e} of the peak: footprint EM {err_em:.1e} tau {err_tau:.1e}; "
+            f"lattice EM {err_lat:.1e}"
+        )
         assert err_em <= 1e-3 and err_tau <= 1e-3, (pix_cells, err_em, err_tau)
         assert err_lat > 0.02, (pix_cells, err_lat)
         # flux conservation: sum of pixel EM x pixel area = int n_e n_i dV (common practice), to rounding
@@ -294,7 +318,7 @@ def test_cells_partly_outside_the_image_keep_their_inside_part():
 def test_bricks_add_up_and_zero_cells_are_skipped():
     # projecting the grid in pieces (sub-arrays with their offsets) gives the whole: the sum is linear
     ne, t = _grid(12, seed=6)
-    ne[:6] = 0.0                                   # half the grid empty
+    ne[:6] = 0.0  # half the grid empty
     los, north = DIRECTIONS[1]
     route = _route(los, north, 1.6, fields=(ne, t))[2]
     qs = np.stack([ne * ne, ne]).astype(np.float32)
@@ -305,14 +329,14 @@ def test_bricks_add_up_and_zero_cells_are_skipped():
     for lo in np.ndindex(2, 2, 2):
         lo = np.asarray(lo) * 6
         hi = lo + 6
-        sub = np.ascontiguousarray(values[:, lo[0]:hi[0], lo[1]:hi[1], lo[2]:hi[2]])
+        sub = np.ascontiguousarray(values[:, lo[0] : hi[0], lo[1] : hi[1], lo[2] : hi[2]])
         project_cells(fp, sub, lo, hi, lo, parts)
     assert parts == pytest.approx(whole, rel=1e-12, abs=1e-300)
     assert np.count_nonzero(whole[0]) > 0
     # the empty half alone projects to nothing
     empty = np.zeros_like(whole)
     hi = np.array([12, 12, 12])
-    hi[list(route.order).index(0)] = 6             # grid axis x in (a, b, c) order
+    hi[list(route.order).index(0)] = 6  # grid axis x in (a, b, c) order
     project_cells(fp, values, [0, 0, 0], hi, [0, 0, 0], empty)
     assert not np.any(empty)
 
@@ -322,8 +346,9 @@ def test_blocks_project_like_the_whole_grid():
     # the same images as the whole array: the same linear sum (sub-ray reference above), in another order
     from rtrace.transfer.kernels import emitting_blocks
     from rtrace.transfer.linearized import block_slots
+
     ne, t = _grid(20, seed=7)
-    ne[:9, :, 5:] = 0.0                                # some blocks empty, one grid side not a multiple of 8
+    ne[:9, :, 5:] = 0.0  # some blocks empty, one grid side not a multiple of 8
     los, north = DIRECTIONS[0]
     route = _route(los, north, 1.6, n=20, npix=24, fields=(ne, t))[2]
     qs = np.stack([ne * ne, ne])
@@ -333,8 +358,8 @@ def test_blocks_project_like_the_whole_grid():
     assert 0 < len(where) < slots.size
     packed = np.zeros((len(where), 8, 8, 8, 2))
     for s, (i, j, k) in enumerate(where):
-        part = values[:, 8 * i:8 * i + 8, 8 * j:8 * j + 8, 8 * k:8 * k + 8]
-        packed[s, :part.shape[1], :part.shape[2], :part.shape[3]] = np.moveaxis(part, 0, -1)
+        part = values[:, 8 * i : 8 * i + 8, 8 * j : 8 * j + 8, 8 * k : 8 * k + 8]
+        packed[s, : part.shape[1], : part.shape[2], : part.shape[3]] = np.moveaxis(part, 0, -1)
     out = project_blocks(Footprint.from_route(route), packed, where, np.zeros_like(whole))
     assert out == pytest.approx(whole, rel=1e-12, abs=1e-300)
     with pytest.raises(InputError, match="values"):

@@ -25,8 +25,7 @@ def test_prefactors_from_constants():
     assert k.EMISSIVITY_FF_PREFACTOR == pytest.approx(6.84e-38, rel=1e-3)
     # Independent evaluation of the 5.18b prefactor through astropy Quantities.
     e2 = const.e.gauss**2
-    pref = (4 * e2**3 / (3 * const.m_e * const.h * const.c)
-            * np.sqrt(2 * np.pi / (3 * const.k_B * const.m_e))).cgs
+    pref = (4 * e2**3 / (3 * const.m_e * const.h * const.c) * np.sqrt(2 * np.pi / (3 * const.k_B * const.m_e))).cgs
     assert pref.value == pytest.approx(k.ALPHA_FF_PREFACTOR, rel=1e-12)
 
 
@@ -51,7 +50,7 @@ def test_kirchhoff_against_astropy_blackbody(temperature, nu):
     # Kirchhoff's law in LTE: j_nu / alpha_nu = B_nu(T) (Rybicki & Lightman 1979, eq. 1.37),
     # with the two coefficients from eqs. 5.14b and 5.18b computed independently.
     args = (nu * u.Hz, temperature * u.K, 1.0 * u.cm**-3, 1.2 * u.cm**-3)
-    hot = temperature >= physics.RELATIVISTIC_TEMPERATURE       # an identity even where the model warns
+    hot = temperature >= physics.RELATIVISTIC_TEMPERATURE  # an identity even where the model warns
     with pytest.warns(RelativisticWarning) if hot else contextlib.nullcontext():
         j = physics.emission_coefficient(*args).to_value(u.erg / (u.s * u.cm**3 * u.Hz * u.sr))
         a = physics.absorption_coefficient(*args).to_value(1 / u.cm)
@@ -70,7 +69,7 @@ def test_planck_against_astropy_and_high_precision():
         nu = x * t / k.H_OVER_K
         ours = physics.planck(nu * u.Hz, t * u.K).to_value(CGS_INTENSITY)
         mx = mpmath.mpf(k.H) * mpmath.mpf(nu) / (mpmath.mpf(k.K_B) * t)
-        exact = 2 * mpmath.mpf(k.H) * mpmath.mpf(nu)**3 / mpmath.mpf(k.C)**2 / mpmath.expm1(mx)
+        exact = 2 * mpmath.mpf(k.H) * mpmath.mpf(nu) ** 3 / mpmath.mpf(k.C) ** 2 / mpmath.expm1(mx)
         assert ours == pytest.approx(float(exact), rel=1e-13), x
         if x <= 300:
             bb = BlackBody(temperature=t * u.K, scale=1.0 * CGS_INTENSITY)(nu * u.Hz).to_value(CGS_INTENSITY)

@@ -112,37 +112,79 @@ CASES = [
     ("frequency-negative", traced(frequencies=-1 * u.GHz), InputError, "frequencies"),
     ("frequency-unit", traced(frequencies=1 * u.K), InputError, "frequencies"),
     # -- snapshot arrays: real, non-empty, grid-shaped, within the storage type -----------
-    ("empty-grid", from_arrays(temperature=np.ones((0, 8, 8)) * u.K, electron_density=np.ones((0, 8, 8)) * u.cm**-3),
-     InputError, "temperature: the grid has no cells"),
-    ("empty-grid-gas", gas(temperature=np.ones((8, 0, 8)) * u.K, density=np.ones((8, 0, 8)) * u.g / u.cm**3),
-     InputError, "no cells"),
-    ("complex-temperature", from_arrays(temperature=cube(1e4 + 1j, complex) * u.K), InputError,
-     "temperature: complex"),
-    ("complex-electron-density", from_arrays(electron_density=cube(10 + 2j, complex) * u.cm**-3), InputError,
-     "electron_density: complex"),
-    ("complex-ion-density", from_arrays(ion_density=cube(10 + 0j, complex) * u.cm**-3), InputError,
-     "ion_density: complex"),
+    (
+        "empty-grid",
+        from_arrays(temperature=np.ones((0, 8, 8)) * u.K, electron_density=np.ones((0, 8, 8)) * u.cm**-3),
+        InputError,
+        "temperature: the grid has no cells",
+    ),
+    (
+        "empty-grid-gas",
+        gas(temperature=np.ones((8, 0, 8)) * u.K, density=np.ones((8, 0, 8)) * u.g / u.cm**3),
+        InputError,
+        "no cells",
+    ),
+    ("complex-temperature", from_arrays(temperature=cube(1e4 + 1j, complex) * u.K), InputError, "temperature: complex"),
+    (
+        "complex-electron-density",
+        from_arrays(electron_density=cube(10 + 2j, complex) * u.cm**-3),
+        InputError,
+        "electron_density: complex",
+    ),
+    (
+        "complex-ion-density",
+        from_arrays(ion_density=cube(10 + 0j, complex) * u.cm**-3),
+        InputError,
+        "ion_density: complex",
+    ),
     ("complex-density", gas(density=cube(1e-22 + 0j, complex) * u.g / u.cm**3), InputError, "density: complex"),
     ("complex-fraction", gas(ionization=cube(0.5 + 0.1j, complex)), InputError, "complex"),
     ("fraction-1d", gas(ionization=np.full(N, 0.5)), InputError, "fraction: shape (4,) is not the grid shape"),
     ("fraction-2d", gas(ionization=np.full((N, N), 0.5)), InputError, "fraction: shape (4, 4)"),
     ("fraction-broadcastable-3d", gas(ionization=np.full((1, N, N), 0.5)), InputError, "fraction: shape (1, 4, 4)"),
     ("fraction-wrong-3d", gas(ionization=np.full((N, N, N + 1), 0.5)), InputError, "fraction"),
-    ("helium-ii-1d", gas(ionization=SuppliedFraction(cube(0.5), helium_ii=np.full(N, 0.1))), InputError,
-     "helium_ii: shape (4,)"),
-    ("field-1d", gas(ionization=SuppliedFraction("x_HII"), fields={"x_HII": np.full(N, 0.5)}), InputError,
-     "fields['x_HII']: shape (4,)"),
-    ("field-complex", gas(ionization=SuppliedFraction("x_HII"), fields={"x_HII": cube(0.5 + 0j, complex)}),
-     InputError, "fields['x_HII']: complex"),
-    ("field-object", gas(ionization=SuppliedFraction("x_HII"), fields={"x_HII": cube(None, object)}),
-     InputError, "fields['x_HII']"),
-    ("float32-overflow-product", from_arrays(electron_density=cube(1e20) * u.cm**-3), InputError,
-     "dtype=numpy.float64"),
-    ("float32-overflow-ion-term", from_arrays(electron_density=cube(1e19) * u.cm**-3,
-                                              ion_density=cube(1e20) * u.cm**-3), InputError,
-     "electron_density x ion_density: 64 of 64 cells"),
-    ("float32-overflow-value", from_arrays(electron_density=cube(1e39) * u.cm**-3), InputError,
-     "electron_density: 64 of 64 cells exceed the float32 range"),
+    (
+        "helium-ii-1d",
+        gas(ionization=SuppliedFraction(cube(0.5), helium_ii=np.full(N, 0.1))),
+        InputError,
+        "helium_ii: shape (4,)",
+    ),
+    (
+        "field-1d",
+        gas(ionization=SuppliedFraction("x_HII"), fields={"x_HII": np.full(N, 0.5)}),
+        InputError,
+        "fields['x_HII']: shape (4,)",
+    ),
+    (
+        "field-complex",
+        gas(ionization=SuppliedFraction("x_HII"), fields={"x_HII": cube(0.5 + 0j, complex)}),
+        InputError,
+        "fields['x_HII']: complex",
+    ),
+    (
+        "field-object",
+        gas(ionization=SuppliedFraction("x_HII"), fields={"x_HII": cube(None, object)}),
+        InputError,
+        "fields['x_HII']",
+    ),
+    (
+        "float32-overflow-product",
+        from_arrays(electron_density=cube(1e20) * u.cm**-3),
+        InputError,
+        "dtype=numpy.float64",
+    ),
+    (
+        "float32-overflow-ion-term",
+        from_arrays(electron_density=cube(1e19) * u.cm**-3, ion_density=cube(1e20) * u.cm**-3),
+        InputError,
+        "electron_density x ion_density: 64 of 64 cells",
+    ),
+    (
+        "float32-overflow-value",
+        from_arrays(electron_density=cube(1e39) * u.cm**-3),
+        InputError,
+        "electron_density: 64 of 64 cells exceed the float32 range",
+    ),
     ("unknown-model-typo", gas(ionization="sahaa"), InputError, "did you mean 'saha'"),
     ("unknown-model-short", gas(ionization="ful"), InputError, "did you mean 'full'"),
     ("unknown-model-spelling", gas(ionization="threshhold"), InputError, "did you mean 'threshold'"),
@@ -154,30 +196,61 @@ CASES = [
     ("dtype-half", from_arrays(dtype=np.float16), InputError, "dtype"),
     ("cell-size-nan", from_arrays(cell_size=np.nan * u.pc), InputError, "cell_size"),
     # -- models and coefficients called directly -----------------------------------------
-    ("sources-complex-rates", lambda: IonizingSources(positions=[[0, 0, 0]] * u.pc, rates=[1e49 + 1j] / u.s),
-     InputError, "rates: complex"),
-    ("sources-complex-positions", lambda: IonizingSources(positions=[[1j, 0, 0]] * u.pc, rates=[1e49] / u.s),
-     InputError, "positions: complex"),
+    (
+        "sources-complex-rates",
+        lambda: IonizingSources(positions=[[0, 0, 0]] * u.pc, rates=[1e49 + 1j] / u.s),
+        InputError,
+        "rates: complex",
+    ),
+    (
+        "sources-complex-positions",
+        lambda: IonizingSources(positions=[[1j, 0, 0]] * u.pc, rates=[1e49] / u.s),
+        InputError,
+        "positions: complex",
+    ),
     ("fraction-text", lambda: SuppliedFraction(np.array(["a"], dtype=object)), InputError, "fraction"),
-    ("alpha-negative-temperature", lambda: absorption_coefficient(1 * u.GHz, [-5, 10] * u.K, 1 * u.cm**-3),
-     InputError, "temperature: 1 of 2 value(s)"),
-    ("alpha-zero-frequency", lambda: absorption_coefficient(0 * u.GHz, 1e4 * u.K, 1 * u.cm**-3), InputError,
-     "frequency"),
-    ("alpha-nan-density", lambda: absorption_coefficient(1 * u.GHz, 1e4 * u.K, np.nan * u.cm**-3), InputError,
-     "electron_density"),
-    ("j-negative-ion-term", lambda: emission_coefficient(1 * u.GHz, 1e4 * u.K, 1 * u.cm**-3, -1 * u.cm**-3),
-     InputError, "ion_density"),
-    ("j-complex-temperature", lambda: emission_coefficient(1 * u.GHz, (1e4 + 1j) * u.K, 1 * u.cm**-3), InputError,
-     "temperature: complex"),
-    ("alpha-temperature-unit", lambda: absorption_coefficient(1 * u.GHz, 1e4 * u.s, 1 * u.cm**-3), InputError,
-     "temperature"),
+    (
+        "alpha-negative-temperature",
+        lambda: absorption_coefficient(1 * u.GHz, [-5, 10] * u.K, 1 * u.cm**-3),
+        InputError,
+        "temperature: 1 of 2 value(s)",
+    ),
+    (
+        "alpha-zero-frequency",
+        lambda: absorption_coefficient(0 * u.GHz, 1e4 * u.K, 1 * u.cm**-3),
+        InputError,
+        "frequency",
+    ),
+    (
+        "alpha-nan-density",
+        lambda: absorption_coefficient(1 * u.GHz, 1e4 * u.K, np.nan * u.cm**-3),
+        InputError,
+        "electron_density",
+    ),
+    (
+        "j-negative-ion-term",
+        lambda: emission_coefficient(1 * u.GHz, 1e4 * u.K, 1 * u.cm**-3, -1 * u.cm**-3),
+        InputError,
+        "ion_density",
+    ),
+    (
+        "j-complex-temperature",
+        lambda: emission_coefficient(1 * u.GHz, (1e4 + 1j) * u.K, 1 * u.cm**-3),
+        InputError,
+        "temperature: complex",
+    ),
+    (
+        "alpha-temperature-unit",
+        lambda: absorption_coefficient(1 * u.GHz, 1e4 * u.s, 1 * u.cm**-3),
+        InputError,
+        "temperature",
+    ),
 ]
 
 # The product n_e x ion term is known only once the model has ionized the gas (1e-3 g cm^-3 of
 # fully ionized gas holds ~5e20 electrons per cm^3).
 AFTER_IONIZATION = [
-    ("float32-overflow-after-ionization", gas(density=cube(1e-3) * u.g / u.cm**3), InputError,
-     "dtype=numpy.float64"),
+    ("float32-overflow-after-ionization", gas(density=cube(1e-3) * u.g / u.cm**3), InputError, "dtype=numpy.float64"),
 ]
 
 
@@ -220,7 +293,7 @@ def test_the_good_values_next_to_the_bad_ones_pass(no_work):
     View(npix=np.int64(16))
     Snapshot.from_arrays(temperature=T, electron_density=cube(1e18) * u.cm**-3, cell_size=CELL)
     Snapshot.from_arrays(temperature=T, electron_density=cube(1e20) * u.cm**-3, cell_size=CELL, dtype=np.float64)
-    with pytest.raises(AssertionError, match="expensive work"):       # past every check, into the tracer
+    with pytest.raises(AssertionError, match="expensive work"):  # past every check, into the tracer
         trace(snap(), View(npix=4, los=(1, 1, 1)), 1 * u.GHz, supersample=np.int32(2), background=3 * u.K)
 
 
@@ -237,13 +310,17 @@ def test_npix_only_takes_positive_ints(value):
 
 
 @settings(max_examples=40, deadline=None)
-@given(coords=st.tuples(st.lists(st.floats(allow_nan=True, allow_infinity=True), min_size=3, max_size=3),
-                        st.integers(0, 2), st.sampled_from([np.nan, np.inf, -np.inf]))
-       .map(lambda c: c[0][:c[1]] + [c[2]] + c[0][c[1] + 1:]))          # at least one coordinate not finite
+@given(
+    coords=st.tuples(
+        st.lists(st.floats(allow_nan=True, allow_infinity=True), min_size=3, max_size=3),
+        st.integers(0, 2),
+        st.sampled_from([np.nan, np.inf, -np.inf]),
+    ).map(lambda c: c[0][: c[1]] + [c[2]] + c[0][c[1] + 1 :])
+)  # at least one coordinate not finite
 def test_a_centre_with_any_non_finite_coordinate_is_refused(coords):
     n_bad = int(np.count_nonzero(~np.isfinite(coords)))
     with pytest.raises(InputError, match=f"center: {n_bad} of 3 coordinates are not finite"):
-        View(center=coords * u.cm)          # cm: no unit conversion that could overflow
+        View(center=coords * u.cm)  # cm: no unit conversion that could overflow
 
 
 @settings(max_examples=30, deadline=None)

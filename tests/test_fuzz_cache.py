@@ -31,8 +31,14 @@ from rtrace.run.job import load_job
 from rtrace.run.manifest import snapshot_identity
 from rtrace.run.series_cache import content_digest
 
-JOB = job_text(snapshot=demo(8, seeds=[1, 2]), frequencies=TWO_FREQUENCIES, view=view("a", 8, "2 kpc"), beam=BEAM,
-               noise=NOISE, output={"directory": "out", "fits": False})
+JOB = job_text(
+    snapshot=demo(8, seeds=[1, 2]),
+    frequencies=TWO_FREQUENCIES,
+    view=view("a", 8, "2 kpc"),
+    beam=BEAM,
+    noise=NOISE,
+    output={"directory": "out", "fits": False},
+)
 
 
 @pytest.fixture(scope="module")
@@ -44,12 +50,13 @@ def traced(tmp_path_factory):
     from rtrace.run.engine import Engine, parallel_keywords
     from rtrace.run.inputs import build_snapshot
     from rtrace.run.job import build_views
+
     tmp = tmp_path_factory.mktemp("fuzz-cache")
     (tmp / "job.toml").write_text(textwrap.dedent(JOB))
     job = load_job(tmp / "job.toml")
     units = plan_units(job, build_views(job), tmp / "out")
     with Engine(job, parallel_keywords(job)) as engine, warnings.catch_warnings():
-        warnings.simplefilter("ignore")            # the small demo reaches the image edge
+        warnings.simplefilter("ignore")  # the small demo reaches the image edge
         value = engine.trace(build_snapshot(job, units[0].member), units[0].view, "seed1", "a")
     return units, value
 
@@ -65,11 +72,12 @@ def entry(traced, tmp_path):
     cache.put(units[0], value)
     path = cache._file(units[0])
     assert path.is_file()
-    _VALUE[:] = [value]                  # what the table's makers and checks compare with
+    _VALUE[:] = [value]  # what the table's makers and checks compare with
     return cache, units[0], units[1], path
 
 
 # --- what can lie under an entry's name ----------------------------------------------------------
+
 
 class Planted:
     """Unpickling this creates ``marker``: proof that code in the file ran."""
@@ -102,6 +110,7 @@ def _signed(cache, arrays):
 
 def _meta(arrays, **changes):
     import json
+
     meta = json.loads(arrays["meta"].tobytes())
     meta.update(changes)
     return dict(arrays, meta=np.frombuffer(json.dumps(meta).encode(), np.uint8))
@@ -118,16 +127,21 @@ def _flip(data, at):
         archive = zipfile.ZipFile(io.BytesIO(data))
         info = archive.getinfo(f"{member}.npy")
         head = info.header_offset
-        start = head + 30 + int.from_bytes(data[head + 26:head + 28], "little") \
-            + int.from_bytes(data[head + 28:head + 30], "little")
+        start = (
+            head
+            + 30
+            + int.from_bytes(data[head + 26 : head + 28], "little")
+            + int.from_bytes(data[head + 28 : head + 30], "little")
+        )
         at = start + (k % info.file_size)
     k = at % len(data)
-    return data[:k] + bytes([data[k] ^ 0xFF]) + data[k + 1:]
+    return data[:k] + bytes([data[k] ^ 0xFF]) + data[k + 1 :]
 
 
 def cut(keep):
     return lambda c, p, o, m: p.write_bytes(
-        p.read_bytes()[:keep if isinstance(keep, int) else int(keep * p.stat().st_size)])
+        p.read_bytes()[: keep if isinstance(keep, int) else int(keep * p.stat().st_size)]
+    )
 
 
 def replace(make):
@@ -217,6 +231,7 @@ def _link(target):
     def make(c, p, o, m):
         p.unlink()
         p.symlink_to(target)
+
     return make
 
 
@@ -314,6 +329,7 @@ def _empty_zip():
 
 def _drop_meta(arrays, key):
     import json
+
     meta = json.loads(arrays["meta"].tobytes())
     del meta[key]
     return np.frombuffer(json.dumps(meta).encode(), np.uint8)
@@ -341,9 +357,9 @@ def test_a_bad_cache_entry_reads_as_not_cached(entry, tmp_path, how):
     how(cache, path, other, marker)
     before = _snapshot_of_folder(cache.folder)
     assert cache.get(unit) is None
-    assert not marker.exists()                                   # nothing in the file was executed
-    assert _snapshot_of_folder(cache.folder) == before           # reading writes and removes nothing
-    cache.put(unit, _VALUE[0])           # the retraced view is kept again, or skipped where a folder is in the way
+    assert not marker.exists()  # nothing in the file was executed
+    assert _snapshot_of_folder(cache.folder) == before  # reading writes and removes nothing
+    cache.put(unit, _VALUE[0])  # the retraced view is kept again, or skipped where a folder is in the way
     assert (cache.get(unit) is None) == path.is_dir()
 
 
@@ -356,8 +372,10 @@ def test_an_intact_entry_reads_back(entry):
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(edits=st.lists(st.tuples(st.floats(0, 1, exclude_max=True), st.integers(1, 255)), min_size=1, max_size=4),
-       keep=st.one_of(st.none(), st.floats(0, 1, exclude_max=True)))
+@given(
+    edits=st.lists(st.tuples(st.floats(0, 1, exclude_max=True), st.integers(1, 255)), min_size=1, max_size=4),
+    keep=st.one_of(st.none(), st.floats(0, 1, exclude_max=True)),
+)
 def test_random_damage_is_never_used(entry, edits, keep):
     # Any set of byte changes (and optional truncation) either leaves bytes no reader uses (the entry then
     # reads back identical) or makes the entry "not cached": never a different image.
@@ -368,7 +386,7 @@ def test_random_damage_is_never_used(entry, edits, keep):
         for at, xor in edits:
             data[int(at * len(data))] ^= xor
         if keep is not None:
-            data = data[:int(keep * len(data))]
+            data = data[: int(keep * len(data))]
         path.write_bytes(bytes(data))
         got = cache.get(unit)
         if got is not None:
@@ -381,10 +399,12 @@ def test_random_damage_is_never_used(entry, edits, keep):
 
 # --- snapshot identity -------------------------------------------------------------------------
 
-HDF5_JOB = job_text(snapshot={"kind": "hdf5", "path": "snap.h5", "temperature": "T", "electron_density": "ne",
-                              "cell_size": "0.01 pc"},
-                    frequencies={"values": ["1 GHz"]}, view=view("z", 4, "1 kpc"),
-                    output={"directory": "out", "pictures": False})
+HDF5_JOB = job_text(
+    snapshot={"kind": "hdf5", "path": "snap.h5", "temperature": "T", "electron_density": "ne", "cell_size": "0.01 pc"},
+    frequencies={"values": ["1 GHz"]},
+    view=view("z", 4, "1 kpc"),
+    output={"directory": "out", "pictures": False},
+)
 
 
 @pytest.fixture
@@ -400,6 +420,7 @@ def _swap(make):
     def change(path):
         path.unlink()
         make(path)
+
     return change
 
 
@@ -415,19 +436,21 @@ IDENTITY_CASES = [
 @pytest.mark.parametrize("change", [c[1] for c in IDENTITY_CASES], ids=[c[0] for c in IDENTITY_CASES])
 def test_a_snapshot_that_cannot_be_identified_is_named(hdf5_job, change):
     from rtrace.run.job import run_job
+
     job, path = hdf5_job
     change(path)
     with pytest.raises(InputError) as info:
         fingerprint(job, job_members(job)[0])
     assert "[snapshot] path" in str(info.value) and "snap.h5" in str(info.value)
     with pytest.raises(InputError, match=r"\[snapshot\] path"):
-        run_job(job)                                             # before any tracing: nothing traced, no image
+        run_job(job)  # before any tracing: nothing traced, no image
     out = path.parent / "out"
-    assert not out.exists() or not any(out.iterdir())           # nothing written
+    assert not out.exists() or not any(out.iterdir())  # nothing written
 
 
 def job_members(job):
     from rtrace.run.inputs import job_members as members
+
     return members(job)
 
 
@@ -436,7 +459,7 @@ def job_members(job):
 def test_any_one_byte_edit_of_a_small_snapshot_changes_its_identity(tmp_path, at, xor):
     # A small file is hashed whole (SHA-256, FIPS 180-4): every edit is seen, even with size and mtime kept.
     path = tmp_path / "small.bin"
-    data = bytes(range(256)) * 40                                  # 10240 bytes
+    data = bytes(range(256)) * 40  # 10240 bytes
     path.write_bytes(data)
     first = snapshot_identity(path)
     st_ = path.stat()
@@ -446,4 +469,4 @@ def test_any_one_byte_edit_of_a_small_snapshot_changes_its_identity(tmp_path, at
     os.utime(path, ns=(st_.st_atime_ns, st_.st_mtime_ns))
     assert snapshot_identity(path) != first
     path.write_bytes(data)
-    assert snapshot_identity(path) == first                        # the content alone decides
+    assert snapshot_identity(path) == first  # the content alone decides

@@ -34,8 +34,18 @@ BASE = {
     "snapshot": {"kind": "demo", "cells": 8},
     "frequencies": {"values": ["1 GHz", "5 GHz"]},
     "trace": {"background": "cmb", "supersample": 1},
-    "view": [{"name": "a", "los": [0, 0, 1], "north": [0, 1, 0], "npix": 8, "width": "2 pc",
-              "distance": "1 kpc", "ra": "10 deg", "dec": "-30 deg"}],
+    "view": [
+        {
+            "name": "a",
+            "los": [0, 0, 1],
+            "north": [0, 1, 0],
+            "npix": 8,
+            "width": "2 pc",
+            "distance": "1 kpc",
+            "ra": "10 deg",
+            "dec": "-30 deg",
+        }
+    ],
     "beam": {"major": "20 arcsec", "minor": "10 arcsec", "pa": "30 deg"},
     "noise": {"rms": "0.1 mJy", "seed": 3},
     "output": {"directory": "out", "prefix": "run1_", "picture_format": "png"},
@@ -51,7 +61,7 @@ def _toml_value(v):
     if isinstance(v, (int, float)):
         return repr(v)
     if isinstance(v, str):
-        return json.dumps(v)                 # JSON string escapes are TOML basic-string escapes
+        return json.dumps(v)  # JSON string escapes are TOML basic-string escapes
     if isinstance(v, list):
         return "[" + ", ".join(_toml_value(x) for x in v) + "]"
     if isinstance(v, dict):
@@ -63,7 +73,7 @@ def to_toml(raw):
     """A job dict as TOML text: tables, arrays of tables ([[view]]) and plain values only."""
     lines = []
     for name, table in raw.items():
-        for entry in (table if isinstance(table, list) else [table]):
+        for entry in table if isinstance(table, list) else [table]:
             lines.append(f"[[{name}]]" if isinstance(table, list) else f"[{name}]")
             lines += [f"{k} = {_toml_value(v)}" for k, v in entry.items()]
             lines.append("")
@@ -107,9 +117,17 @@ def ionization(**ion):
 
 def study(table, **keys):
     raw = edit()
-    raw[table] = dict({"synthesis": {"antennas": "five.txt", "latitude": "35 deg",
-                                     "hour_angle_range": ["-2 hourangle", "2 hourangle"]},
-                       "comparison": {"observation": "observed.fits"}}[table], **keys)
+    raw[table] = dict(
+        {
+            "synthesis": {
+                "antennas": "five.txt",
+                "latitude": "35 deg",
+                "hour_angle_range": ["-2 hourangle", "2 hourangle"],
+            },
+            "comparison": {"observation": "observed.fits"},
+        }[table],
+        **keys,
+    )
     return raw
 
 
@@ -132,9 +150,11 @@ CASES = [
     ("name-int", edit(view__name=3), "[[view]] #1.name"),
     ("name-second-view", two_views({"name": "../b"}), "[[view]] #2.name"),
     ("name-same-but-case", two_views({"name": "A"}), "[[view]] #2.name"),
-    ("series-label-dotdot", edit(snapshot={**{k: v for k, v in HE["snapshot"].items() if k != "path"},
-                                                   "paths": ["cloud.h5", "...h5"]}),
-     "[snapshot].paths"),
+    (
+        "series-label-dotdot",
+        edit(snapshot={**{k: v for k, v in HE["snapshot"].items() if k != "path"}, "paths": ["cloud.h5", "...h5"]}),
+        "[snapshot].paths",
+    ),
     ("prefix-up", edit(output__prefix="../../X_"), "[output].prefix"),
     ("prefix-absolute", edit(output__prefix="/tmp/X_"), "[output].prefix"),
     ("prefix-subfolder", edit(output__prefix="sub/X_"), "[output].prefix"),
@@ -154,8 +174,11 @@ CASES = [
     ("beam-minor-larger", edit(beam__minor="30 arcsec"), "[beam].minor"),
     ("beam-pa-nan", edit(beam__pa="nan deg"), "[beam].pa"),
     ("beam-pa-inf", edit(beam__pa="inf deg"), "[beam].pa"),
-    ("beam-reference-zero", edit(beam__scaling="inverse-frequency", beam__reference_frequency="0 GHz"),
-     "[beam].reference_frequency"),
+    (
+        "beam-reference-zero",
+        edit(beam__scaling="inverse-frequency", beam__reference_frequency="0 GHz"),
+        "[beam].reference_frequency",
+    ),
     # --- frequencies ---
     ("freq-duplicate", edit(frequencies={"values": ["1 GHz", "5 GHz", "1000 MHz"]}), "[frequencies].values"),
     ("freq-zero", edit(frequencies={"values": ["0 GHz", "5 GHz"]}), "[frequencies].values"),
@@ -166,8 +189,11 @@ CASES = [
     ("freq-num-zero", edit(frequencies={"start": "1 GHz", "stop": "2 GHz", "num": 0}), "[frequencies].num"),
     ("freq-num-float", edit(frequencies={"start": "1 GHz", "stop": "2 GHz", "num": 2.5}), "[frequencies].num"),
     ("freq-num-bool", edit(frequencies={"start": "1 GHz", "stop": "2 GHz", "num": True}), "[frequencies].num"),
-    ("freq-stop-inf", edit(frequencies={"start": "1 GHz", "stop": "inf GHz", "num": 3, "spacing": "linear"}),
-     "[frequencies].stop"),
+    (
+        "freq-stop-inf",
+        edit(frequencies={"start": "1 GHz", "stop": "inf GHz", "num": 3, "spacing": "linear"}),
+        "[frequencies].stop",
+    ),
     ("freq-start-nan", edit(frequencies={"start": "nan GHz", "stop": "2 GHz", "num": 3}), "[frequencies].start"),
     ("freq-equal-ends", edit(frequencies={"start": "1 GHz", "stop": "1 GHz", "num": 3}), "[frequencies]"),
     # --- views ---
@@ -207,8 +233,7 @@ CASES = [
     ("background-negative", edit(trace__background="-3 K"), "[trace].background"),
     ("background-unit", edit(trace__background="3 pc"), "[trace].background"),
     ("background-word", edit(trace__background="cmbb"), "[trace].background"),
-    ("background-negative-intensity", edit(trace__background="-1e-17 erg / (s cm2 Hz sr)"),
-     "[trace].background"),
+    ("background-negative-intensity", edit(trace__background="-1e-17 erg / (s cm2 Hz sr)"), "[trace].background"),
     # --- noise ---
     ("rms-nan", edit(noise__rms="nan mJy"), "[noise].rms"),
     ("rms-negative", edit(noise__rms="-0.1 mJy"), "[noise].rms"),
@@ -222,18 +247,26 @@ CASES = [
     ("cells-float", edit(snapshot__cells=16.5), "[snapshot].cells"),
     ("cells-bool", edit(snapshot__cells=True), "[snapshot].cells"),
     ("seed-negative", edit(snapshot__seed=-7), "[snapshot].seed"),
-    ("yt-level-negative", edit(snapshot={"kind": "yt", "path": ".", "temperature": "T", "electron_density": "ne",
-                                         "level": -1}), "[snapshot].level"),
+    (
+        "yt-level-negative",
+        edit(snapshot={"kind": "yt", "path": ".", "temperature": "T", "electron_density": "ne", "level": -1}),
+        "[snapshot].level",
+    ),
     ("seeds-negative", edit(snapshot__seeds=[1, -2]), "[snapshot].seeds[1]"),
     # --- ionization (an HDF5 file with mass density; the file is made by the fixture) ---
     ("helium-triple", ionization(model="full", helium="triple"), "[ionization].helium"),
     ("model-typo", ionization(model="sahaa"), "did you mean 'saha'"),
     ("hydrogen-fraction-nan", ionization(hydrogen_mass_fraction=float("nan")), "[ionization].hydrogen_mass_fraction"),
-    ("fractions-above-one", ionization(hydrogen_mass_fraction=0.8, helium_mass_fraction=0.3),
-     "[ionization].helium_mass_fraction"),
-    ("source-position-nan", ionization(model="sources", sources=[{"position": ["0.1 pc", "nan pc", "0.1 pc"],
-                                                                  "rate": "1e40 / s"}]),
-     "[ionization].sources[0].position"),
+    (
+        "fractions-above-one",
+        ionization(hydrogen_mass_fraction=0.8, helium_mass_fraction=0.3),
+        "[ionization].helium_mass_fraction",
+    ),
+    (
+        "source-position-nan",
+        ionization(model="sources", sources=[{"position": ["0.1 pc", "nan pc", "0.1 pc"], "rate": "1e40 / s"}]),
+        "[ionization].sources[0].position",
+    ),
     ("quantities-int", edit(output__quantities=[1]), "[output].quantities"),
     ("quantities-typo", edit(output__quantities=["intensty"]), "did you mean 'intensity'"),
     ("directory-is-a-file", edit(output__directory="afile"), "[output].directory"),
@@ -243,10 +276,16 @@ CASES = [
     ("dataset-group-root", edit(snapshot=dict(HE["snapshot"], density="/")), "[snapshot].density"),
     ("dataset-unit-wrong", edit(snapshot=dict(HE["snapshot"], units={"rho": "pc"})), "[snapshot].density"),
     ("units-unknown-dataset", edit(snapshot=dict(HE["snapshot"], units={"zz": "K"})), "[snapshot].units"),
-    ("subvolume-outside", edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2], [0, 9]])),
-     "[snapshot].subvolume"),
-    ("subvolume-str", edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2], [0, "a"]])),
-     "[snapshot].subvolume[2]"),
+    (
+        "subvolume-outside",
+        edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2], [0, 9]])),
+        "[snapshot].subvolume",
+    ),
+    (
+        "subvolume-str",
+        edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2], [0, "a"]])),
+        "[snapshot].subvolume[2]",
+    ),
     ("subvolume-two-axes", edit(snapshot=dict(HE["snapshot"], subvolume=[[0, 2], [0, 2]])), "[snapshot].subvolume"),
     ("cell-size-inf", edit(snapshot=dict(HE["snapshot"], cell_size="inf pc")), "[snapshot].cell_size"),
     ("origin-nan", edit(snapshot=dict(HE["snapshot"], origin=["0 pc", "0 pc", "nan pc"])), "[snapshot].origin"),
@@ -273,7 +312,7 @@ CASES = [
     ("comparison-aperture-int", study("comparison", apertures=[1]), "[comparison].apertures[0]"),
     # --- the file itself ---
     ("not-utf8", b'[snapshot]\nkind = "d\xffemo"\n', "offset 20"),
-    ("latin1", "[snapshot]\nkind = \"demo\" # café\n".encode("latin-1"), "not UTF-8"),
+    ("latin1", '[snapshot]\nkind = "demo" # café\n'.encode("latin-1"), "not UTF-8"),
 ]
 
 
@@ -284,6 +323,7 @@ def folder(tmp_path):
     import numpy as np
     from astropy.io import fits
     from astropy.wcs import WCS
+
     jobs = tmp_path / "jobs" / "deep"
     jobs.mkdir(parents=True)
     with h5py.File(jobs / "cloud.h5", "w") as h5:
@@ -292,7 +332,7 @@ def folder(tmp_path):
         h5.create_dataset("rho", data=np.full((4, 4, 4), 1e-22)).attrs["units"] = "g/cm**3"
         h5.create_dataset("T", data=np.full((4, 4, 4), 1e4)).attrs["units"] = "K"
     (jobs / "garbage.h5").write_bytes(b"not an HDF5 file")
-    (jobs / "...h5").write_bytes((jobs / "cloud.h5").read_bytes())      # its stem, the series label, is '..'
+    (jobs / "...h5").write_bytes((jobs / "cloud.h5").read_bytes())  # its stem, the series label, is '..'
     (jobs / "afile").write_text("a file where the output folder should be")
     (jobs / "five.txt").write_text("unit = m\n0 0 0\n120 10 0.5\n-60 110 0\n40 -150 1\n-130 -60 0\n")
     wcs = WCS(naxis=2)
@@ -339,7 +379,7 @@ def test_bad_job_is_refused_before_any_work(folder, raw, text, capsys):
     assert main(["run", str(path), "--quiet"]) == EXIT_CONFIG
     stderr = capsys.readouterr().err
     assert text in stderr and "Traceback" not in stderr
-    assert _files(folder.parent.parent) == before             # nothing written, here or above
+    assert _files(folder.parent.parent) == before  # nothing written, here or above
     assert not (folder / "out").exists()
 
 
@@ -348,7 +388,7 @@ def test_demo_cells_on_the_command_line(tmp_path, capsys):
     # exit 3 from the job validator ([snapshot].cells), or 2 should argparse refuse the flag itself
     try:
         code = main(["demo", "--cells", "-4", "--output", str(out), "--quiet"])
-    except SystemExit as exc:                       # argparse refuses the flag itself: exit 2
+    except SystemExit as exc:  # argparse refuses the flag itself: exit 2
         code = exc.code
     assert code in (EXIT_CONFIG, EXIT_USAGE)
     assert "cells" in capsys.readouterr().err
@@ -370,28 +410,35 @@ def test_byte_order_mark_is_accepted(tmp_path):
 
 # --- properties: the validator against independent statements of what is valid -------------------
 
+
 def _safe_by_definition(name):
     """POSIX.1-2017 3.282 portable filename character set, without '..' or a leading '.'."""
     portable = set("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789._-")
-    return (0 < len(name) <= 100 and set(name) <= portable and not name.startswith(".") and ".." not in name)
+    return 0 < len(name) <= 100 and set(name) <= portable and not name.startswith(".") and ".." not in name
 
 
 @settings(max_examples=300, deadline=None)
-@given(st.one_of(st.text(max_size=12), st.text(alphabet="./\\_-ab9", max_size=8),
-                 st.from_regex(r"[a-z0-9_.-]{0,6}", fullmatch=True)))
+@given(
+    st.one_of(
+        st.text(max_size=12),
+        st.text(alphabet="./\\_-ab9", max_size=8),
+        st.from_regex(r"[a-z0-9_.-]{0,6}", fullmatch=True),
+    )
+)
 def test_names_accepted_are_exactly_the_safe_ones(tmp_path_factory, name):
     out = Path("/nonexistent/out")
     if _safe_by_definition(name):
         assert check_name(name, "[[view]] #1.name") == name
-        assert (out / f"{name}_intensity.fits").parent == out      # one file name, inside the folder
+        assert (out / f"{name}_intensity.fits").parent == out  # one file name, inside the folder
     else:
         with pytest.raises(ConfigError, match=r"\[\[view\]\] #1\.name"):
             check_name(name, "[[view]] #1.name")
 
 
 # beams of 0.01-100 arcsec (sizes no other check of a job refuses), their negatives, and the specials
-_FLOATS = st.one_of(st.floats(0.01, 100), st.floats(-100, -0.01),
-                    st.sampled_from([0.0, -0.0, math.inf, -math.inf, math.nan]))
+_FLOATS = st.one_of(
+    st.floats(0.01, 100), st.floats(-100, -0.01), st.sampled_from([0.0, -0.0, math.inf, -math.inf, math.nan])
+)
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
@@ -407,8 +454,13 @@ def test_beam_accepted_iff_axes_finite_positive_and_ordered(tmp_path, major, min
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(st.lists(st.one_of(st.sampled_from([0.0, -1.0, math.inf, -math.inf, math.nan]),
-                          st.integers(1, 100_000).map(float)), min_size=1, max_size=5))
+@given(
+    st.lists(
+        st.one_of(st.sampled_from([0.0, -1.0, math.inf, -math.inf, math.nan]), st.integers(1, 100_000).map(float)),
+        min_size=1,
+        max_size=5,
+    )
+)
 def test_frequencies_accepted_iff_finite_positive_and_distinct(tmp_path, mhz):
     # whole MHz: distinct values stay distinct in Hz, so distinctness is judged on what was written
     raw = edit(frequencies={"values": [f"{v!r} MHz" for v in mhz]})
@@ -428,6 +480,7 @@ _NPIX_ITEM = st.one_of(st.integers(-3, 40), st.booleans(), st.floats(0, 40), st.
 def test_npix_accepted_iff_positive_int_or_pair(tmp_path, npix):
     def positive_int(v):
         return type(v) is int and v >= 1
+
     valid = positive_int(npix) or (isinstance(npix, list) and len(npix) == 2 and all(map(positive_int, npix)))
     raw = edit(view__npix=npix)
     if valid:

@@ -118,6 +118,7 @@ def job_text(npix=16, width='width = "8 pc"', freqs='["1 GHz", "5 GHz"]', extra=
 
 def parse(text, tmp_path):
     import tomllib
+
     raw = tomllib.loads(text)
     raw.setdefault("output", {})["directory"] = str(tmp_path / "out")
     return parse_job(raw, base_dir=tmp_path)
@@ -134,17 +135,19 @@ def _parse_comparison(beam_deg, width='width = "8 pc"', run=False):
         observed_hdu(c.result, beam_deg).writeto(c.tmp / "obs.fits")
         job = parse(job_text(width=width, extra='\n[comparison]\nobservation = "obs.fits"\n'), c.tmp)
         return run_job(job) if run else job
+
     return call
 
 
 # -- the table ----------------------------------------------------------------------------------
 
+
 @dataclass
 class Case:
     id: str
-    call: object          # ctx -> the failing call's return (run inside the test)
-    expect: object        # exception class, or an int exit code of the command line
-    text: str             # the message must contain this (the field)
+    call: object  # ctx -> the failing call's return (run inside the test)
+    expect: object  # exception class, or an int exit code of the command line
+    text: str  # the message must contain this (the field)
     writes: bool = False  # the case could write into ctx.out
 
 
@@ -168,8 +171,9 @@ def _observe_field(factor, **kw):
 
 
 def _check_obs(major_arcsec, shape, nfreq=1, pix=1.0, **kw):
-    return lambda c: check_observation([beam(major_arcsec * u.arcsec)] * nfreq, pix * u.arcsec, shape,
-                                       np.linspace(1e9, 2e9, nfreq), **kw)
+    return lambda c: check_observation(
+        [beam(major_arcsec * u.arcsec)] * nfreq, pix * u.arcsec, shape, np.linspace(1e9, 2e9, nfreq), **kw
+    )
 
 
 def _compare_hdu(beam_deg, **kw):
@@ -180,6 +184,7 @@ def _synth(**kw):
     args = dict(antennas=ARRAY, latitude=30 * u.deg, n_hour_angles=16)
     args.update(kw)
     from rtrace.interferometer import synthesize
+
     return lambda c: synthesize(c.result, **args)
 
 
@@ -201,10 +206,11 @@ def _cli_compare(beam_deg, extra=()):
         obs = c.tmp / "obs.fits"
         observed_hdu(c.result, beam_deg).writeto(obs)
         return main(["compare", str(model), str(obs), "--output", str(c.out), *extra])
+
     return call
 
 
-FIELD = 412.5          # arcsec, the result's field
+FIELD = 412.5  # arcsec, the result's field
 BEAM_10DEG = '\n[beam]\nmajor = "10 deg"\n'
 
 CASES = [
@@ -213,17 +219,26 @@ CASES = [
     Case("trace npix 20000 one frequency", _trace(npix=20000, freqs=[1] * u.GHz), InputError, "npix"),
     Case("trace npix (20000, 20000)", _trace(npix=(20000, 20000)), InputError, "npix"),
     Case("trace npix (100, 2000000)", _trace(npix=(100, 2_000_000)), InputError, "npix"),
-    Case("trace npix 5000 x 40 frequencies", _trace(npix=5000, freqs=np.linspace(1, 40, 40) * u.GHz),
-         InputError, "npix"),
+    Case(
+        "trace npix 5000 x 40 frequencies", _trace(npix=5000, freqs=np.linspace(1, 40, 40) * u.GHz), InputError, "npix"
+    ),
     Case("trace npix 20000 along x", _trace(npix=20000, los=(1, 0, 0)), InputError, "npix"),
     Case("trace npix 20000 oblique", _trace(npix=20000, los=(1, 1, 1)), InputError, "npix"),
     Case("trace supersample 1000", _trace(los=(1, 1, 1), supersample=1000), InputError, "supersample"),
-    Case("trace supersample 1000 one frequency", _trace(los=(1, 1, 1), supersample=1000, freqs=[1] * u.GHz),
-         InputError, "supersample"),
+    Case(
+        "trace supersample 1000 one frequency",
+        _trace(los=(1, 1, 1), supersample=1000, freqs=[1] * u.GHz),
+        InputError,
+        "supersample",
+    ),
     Case("trace supersample 600", _trace(los=(1, 2, 3), supersample=600), InputError, "supersample"),
     Case("trace supersample 10**6", _trace(los=(0, 1, 1), supersample=10**6), InputError, "supersample"),
-    Case("trace supersample 1000 with max_memory", _trace(los=(1, 1, 1), supersample=1000, max_memory="1 GB"),
-         InputError, "supersample"),
+    Case(
+        "trace supersample 1000 with max_memory",
+        _trace(los=(1, 1, 1), supersample=1000, max_memory="1 GB"),
+        InputError,
+        "supersample",
+    ),
     Case("trace npix 20000 with max_memory", _trace(npix=20000, max_memory="100 MB"), InputError, "npix"),
     Case("trace npix 2000 over max_memory", _trace(npix=2000, max_memory="10 MB"), InputError, "max_memory"),
     # -- observe: beam wider than the image, kernels that do not fit -------------------------------
@@ -232,92 +247,185 @@ CASES = [
     Case("observe 10 deg beam with noise", _observe(10 * u.deg, noise=1 * u.mJy / u.beam), InputError, "beam"),
     Case("observe beam 1.01 x field", _observe_field(1.01), InputError, "beam"),
     Case("observe beam 3 x field", _observe_field(3.0), InputError, "beam"),
-    Case("observe elongated beam wider than field", _observe(2 * FIELD * u.arcsec, 10 * u.arcsec, 30.0),
-         InputError, "beam"),
-    Case("observe beam wider than field at lowest frequency",
-         _observe(0.4 * FIELD * u.arcsec, beam_scaling="inverse-frequency", reference_frequency=5 * u.GHz),
-         InputError, "at 1 GHz"),
+    Case(
+        "observe elongated beam wider than field",
+        _observe(2 * FIELD * u.arcsec, 10 * u.arcsec, 30.0),
+        InputError,
+        "beam",
+    ),
+    Case(
+        "observe beam wider than field at lowest frequency",
+        _observe(0.4 * FIELD * u.arcsec, beam_scaling="inverse-frequency", reference_frequency=5 * u.GHz),
+        InputError,
+        "at 1 GHz",
+    ),
     Case("observe 10 deg beam, max_memory", _observe(10 * u.deg, max_memory="1 GB"), InputError, "beam"),
-    Case("observe small beam over max_memory", _observe(20 * u.arcsec, max_memory="100 kB"), InputError,
-         "max_memory"),
+    Case("observe small beam over max_memory", _observe(20 * u.arcsec, max_memory="100 kB"), InputError, "max_memory"),
     Case("observe bad max_memory", _observe(20 * u.arcsec, max_memory="lots"), InputError, "max_memory"),
     Case("check_observation 20000^2 image", _check_obs(30.0, (20000, 20000), nfreq=3), InputError, "result"),
     Case("check_observation huge kernel", _check_obs(9000.0, (10000, 10000), pix=1.0), InputError, "beam"),
     Case("check_observation narrow image", _check_obs(1500.0, (10, 5000), pix=100.0), InputError, "beam"),
-    Case("check_observation field names", lambda c: check_observation(
-        [beam(1 * u.deg)], 1 * u.arcsec, (64, 64), [1e9], beam_field="[beam].major"), InputError, "[beam].major"),
-    Case("check_observation budget", lambda c: check_observation(
-        [beam(30 * u.arcsec)], 1 * u.arcsec, (2000, 2000), [1e9], max_memory=10**6), InputError, "max_memory"),
-    Case("BeamKernel 10 deg on fine pixels", lambda c: BeamKernel(beam(10 * u.deg), 0.05 * u.arcsec, (16, 16)),
-         InputError, "beam"),
-    Case("BeamKernel named field", lambda c: BeamKernel(beam(10 * u.deg), 0.05 * u.arcsec, (16, 16),
-                                                        name="BMAJ"), InputError, "BMAJ"),
-    Case("BeamKernel budget", lambda c: BeamKernel(beam(100 * u.arcsec), 1 * u.arcsec, (512, 512),
-                                                   max_memory=10**6), InputError, "max_memory"),
-    Case("check_beam_fits_field rectangular", lambda c: check_beam_fits_field(
-        [beam(50 * u.arcsec)], 1 * u.arcsec, (40, 400)), InputError, "beam"),
+    Case(
+        "check_observation field names",
+        lambda c: check_observation([beam(1 * u.deg)], 1 * u.arcsec, (64, 64), [1e9], beam_field="[beam].major"),
+        InputError,
+        "[beam].major",
+    ),
+    Case(
+        "check_observation budget",
+        lambda c: check_observation([beam(30 * u.arcsec)], 1 * u.arcsec, (2000, 2000), [1e9], max_memory=10**6),
+        InputError,
+        "max_memory",
+    ),
+    Case(
+        "BeamKernel 10 deg on fine pixels",
+        lambda c: BeamKernel(beam(10 * u.deg), 0.05 * u.arcsec, (16, 16)),
+        InputError,
+        "beam",
+    ),
+    Case(
+        "BeamKernel named field",
+        lambda c: BeamKernel(beam(10 * u.deg), 0.05 * u.arcsec, (16, 16), name="BMAJ"),
+        InputError,
+        "BMAJ",
+    ),
+    Case(
+        "BeamKernel budget",
+        lambda c: BeamKernel(beam(100 * u.arcsec), 1 * u.arcsec, (512, 512), max_memory=10**6),
+        InputError,
+        "max_memory",
+    ),
+    Case(
+        "check_beam_fits_field rectangular",
+        lambda c: check_beam_fits_field([beam(50 * u.arcsec)], 1 * u.arcsec, (40, 400)),
+        InputError,
+        "beam",
+    ),
     # -- compare: the observed beam against the model's field --------------------------------------
     Case("compare BMAJ 10 deg", _compare_hdu(10.0), InputError, "BMAJ"),
     Case("compare BMAJ 1 deg", _compare_hdu(1.0), InputError, "BMAJ"),
     Case("compare BMAJ 2 x model field", _compare_hdu(2 * FIELD / 3600), InputError, "BMAJ"),
-    Case("compare beam= override 10 deg", lambda c: rtrace.compare(
-        c.result, observed_hdu(c.result, 10 / 3600), beam=beam(10 * u.deg)), InputError, "beam="),
+    Case(
+        "compare beam= override 10 deg",
+        lambda c: rtrace.compare(c.result, observed_hdu(c.result, 10 / 3600), beam=beam(10 * u.deg)),
+        InputError,
+        "beam=",
+    ),
     Case("compare max_memory", _compare_hdu(30 / 3600, max_memory="10 kB"), InputError, "max_memory"),
-    Case("compare SkyMap model, BMAJ 10 deg", lambda c: rtrace.compare(
-        c.result.observe(beam(20 * u.arcsec)), observed_hdu(c.result, 10.0)), InputError, "BMAJ"),
+    Case(
+        "compare SkyMap model, BMAJ 10 deg",
+        lambda c: rtrace.compare(c.result.observe(beam(20 * u.arcsec)), observed_hdu(c.result, 10.0)),
+        InputError,
+        "BMAJ",
+    ),
     # -- synthesis: image buffers and (u, v) samples -----------------------------------------------
-    Case("synthesize 300 antennas x 1000 hour angles", _synth(antennas=many_antennas(300), n_hour_angles=1000),
-         InputError, "n_hour_angles"),
-    Case("synthesize 300 antennas, hour_angle_step", _synth(antennas=many_antennas(300), n_hour_angles=None,
-                                                            hour_angle_step=0.5 * u.min), InputError,
-         "hour_angle_step"),
+    Case(
+        "synthesize 300 antennas x 1000 hour angles",
+        _synth(antennas=many_antennas(300), n_hour_angles=1000),
+        InputError,
+        "n_hour_angles",
+    ),
+    Case(
+        "synthesize 300 antennas, hour_angle_step",
+        _synth(antennas=many_antennas(300), n_hour_angles=None, hour_angle_step=0.5 * u.min),
+        InputError,
+        "hour_angle_step",
+    ),
     Case("synthesize max_memory", _synth(max_memory="1 MB"), InputError, "max_memory"),
-    Case("synthesize image_size 1024, max_memory", _synth(image_size=1024, max_memory="100 MB"), InputError,
-         "image_size"),
+    Case(
+        "synthesize image_size 1024, max_memory", _synth(image_size=1024, max_memory="100 MB"), InputError, "image_size"
+    ),
     # -- job files, at validation ------------------------------------------------------------------
     Case("job [beam] major 10 deg", _parse(extra=BEAM_10DEG), ConfigError, "[beam].major"),
     Case("job [beam] major 1 deg", _parse(extra='\n[beam]\nmajor = "1 deg"\n'), ConfigError, "[beam].major"),
-    Case("job [beam] major 4 arcmin on 2 arcmin field", _parse(npix=16, width='width = "0.5 pc"',
-                                                                extra='\n[beam]\nmajor = "4 arcmin"\n'),
-         ConfigError, "[beam].major"),
-    Case("job [beam] inverse-frequency scaling", _parse(
-        freqs='["0.1 GHz", "10 GHz"]',
-        extra='\n[beam]\nmajor = "5 arcmin"\nscaling = "inverse-frequency"\nreference_frequency = "10 GHz"\n'),
-        ConfigError, "[beam].major"),
-    Case("job [beam] with noise", _parse(extra=BEAM_10DEG + '\n[noise]\nrms = "1 mJy"\n'), ConfigError,
-         "[beam].major"),
+    Case(
+        "job [beam] major 4 arcmin on 2 arcmin field",
+        _parse(npix=16, width='width = "0.5 pc"', extra='\n[beam]\nmajor = "4 arcmin"\n'),
+        ConfigError,
+        "[beam].major",
+    ),
+    Case(
+        "job [beam] inverse-frequency scaling",
+        _parse(
+            freqs='["0.1 GHz", "10 GHz"]',
+            extra='\n[beam]\nmajor = "5 arcmin"\nscaling = "inverse-frequency"\nreference_frequency = "10 GHz"\n',
+        ),
+        ConfigError,
+        "[beam].major",
+    ),
+    Case("job [beam] with noise", _parse(extra=BEAM_10DEG + '\n[noise]\nrms = "1 mJy"\n'), ConfigError, "[beam].major"),
     Case("job npix 20000", _parse(npix=20000), ConfigError, "npix"),
     Case("job npix [20000, 20000]", _parse(npix="[20000, 20000]"), ConfigError, "npix"),
     Case("job npix 20000 without width", _parse(npix=20000, width=""), ConfigError, "npix"),
-    Case("job npix 4000 x 60 frequencies", _parse(
-        npix=4000, freqs="[" + ", ".join(f'"{k} GHz"' for k in range(1, 61)) + "]"), ConfigError, "npix"),
-    Case("job npix over [parallel].max_memory", _parse(npix=2000, extra='\n[parallel]\nmax_memory = "50 MB"\n'),
-         ConfigError, "max_memory"),
+    Case(
+        "job npix 4000 x 60 frequencies",
+        _parse(npix=4000, freqs="[" + ", ".join(f'"{k} GHz"' for k in range(1, 61)) + "]"),
+        ConfigError,
+        "npix",
+    ),
+    Case(
+        "job npix over [parallel].max_memory",
+        _parse(npix=2000, extra='\n[parallel]\nmax_memory = "50 MB"\n'),
+        ConfigError,
+        "max_memory",
+    ),
     Case("job npix 20000 names the view", _parse(npix=20000), ConfigError, "'a'"),
-    Case("job [trace] supersample 1000 oblique", _parse(extra='los = [1, 1, 1]\n[trace]\nsupersample = 1000\n'),
-         ConfigError, "[trace].supersample"),
-    Case("job [trace] supersample 1000 names the view",
-         _parse(extra='los = [1, 2, 3]\n[trace]\nsupersample = 1000\n'), ConfigError, "view 'a'"),
-    Case("job [comparison] observation BMAJ 10 deg", _parse_comparison(10.0), ConfigError,
-         "[comparison].observation (obs.fits) BMAJ"),
+    Case(
+        "job [trace] supersample 1000 oblique",
+        _parse(extra="los = [1, 1, 1]\n[trace]\nsupersample = 1000\n"),
+        ConfigError,
+        "[trace].supersample",
+    ),
+    Case(
+        "job [trace] supersample 1000 names the view",
+        _parse(extra="los = [1, 2, 3]\n[trace]\nsupersample = 1000\n"),
+        ConfigError,
+        "view 'a'",
+    ),
+    Case(
+        "job [comparison] observation BMAJ 10 deg",
+        _parse_comparison(10.0),
+        ConfigError,
+        "[comparison].observation (obs.fits) BMAJ",
+    ),
     Case("job [comparison] observation BMAJ 1 deg", _parse_comparison(1.0), ConfigError, "BMAJ"),
     # -- job files, at run time (view without width: its extent is known from the snapshot) ----------
-    Case("run_job 10 deg beam, fitted width", _run(width="", extra=BEAM_10DEG), ConfigError, "[beam].major",
-         writes=True),
-    Case("run_job 1 deg beam, fitted width", _run(width="", extra='\n[beam]\nmajor = "1 deg"\n'), ConfigError,
-         "[beam].major", writes=True),
-    Case("run_job [comparison] BMAJ 10 deg, fitted width", _parse_comparison(10.0, width="", run=True),
-         ConfigError, "BMAJ", writes=True),
+    Case(
+        "run_job 10 deg beam, fitted width", _run(width="", extra=BEAM_10DEG), ConfigError, "[beam].major", writes=True
+    ),
+    Case(
+        "run_job 1 deg beam, fitted width",
+        _run(width="", extra='\n[beam]\nmajor = "1 deg"\n'),
+        ConfigError,
+        "[beam].major",
+        writes=True,
+    ),
+    Case(
+        "run_job [comparison] BMAJ 10 deg, fitted width",
+        _parse_comparison(10.0, width="", run=True),
+        ConfigError,
+        "BMAJ",
+        writes=True,
+    ),
     # -- command line --------------------------------------------------------------------------------
     Case("cli run [beam] 10 deg", _cli_run(extra=BEAM_10DEG), 3, "[beam].major", writes=True),
-    Case("cli run [beam] 10 deg fitted width", _cli_run(width="", extra=BEAM_10DEG), 3, "[beam].major",
-         writes=True),
+    Case("cli run [beam] 10 deg fitted width", _cli_run(width="", extra=BEAM_10DEG), 3, "[beam].major", writes=True),
     Case("cli run npix 20000", _cli_run(npix=20000), 3, "npix", writes=True),
-    Case("cli run supersample 1000", _cli_run(extra='los = [1, 1, 1]\n[trace]\nsupersample = 1000\n'), 3,
-         "[trace].supersample", writes=True),
+    Case(
+        "cli run supersample 1000",
+        _cli_run(extra="los = [1, 1, 1]\n[trace]\nsupersample = 1000\n"),
+        3,
+        "[trace].supersample",
+        writes=True,
+    ),
     Case("cli compare BMAJ 10 deg", _cli_compare(10.0), 4, "BMAJ", writes=True),
-    Case("cli compare --beam 10 deg", _cli_compare(10 / 3600, ["--beam", "10 deg, 10 deg, 0 deg"]), 4, "--beam",
-         writes=True),
+    Case(
+        "cli compare --beam 10 deg",
+        _cli_compare(10 / 3600, ["--beam", "10 deg, 10 deg, 0 deg"]),
+        4,
+        "--beam",
+        writes=True,
+    ),
 ]
 
 
@@ -357,6 +465,7 @@ def test_refused_before_work(case, snap, result, tmp_path, capsys):
 
 # -- the estimates against what numpy and scipy really allocate --------------------------------------
 
+
 def test_beam_kernel_estimate_matches_tracemalloc():
     # tracemalloc sees numpy's array buffers (numpy reports them to it); the estimate
     # should be within a factor of two of the real peak of building and using a kernel
@@ -374,6 +483,7 @@ def test_beam_kernel_estimate_matches_tracemalloc():
 def test_trace_estimate_matches_tracemalloc(snap):
     # an oblique view: the ray lattice and images the check estimates
     from rtrace.transfer import tracer
+
     view = rtrace.View(los=(1, 1, 1), npix=48, distance=1 * u.kpc)
     seen = {}
     real = tracer._check_ray_memory
@@ -384,7 +494,7 @@ def test_trace_estimate_matches_tracemalloc(snap):
 
     tracer._check_ray_memory = spy
     try:
-        rtrace.trace(snap, view, NU2, supersample=3)          # compiled (and cached) outside the measurement
+        rtrace.trace(snap, view, NU2, supersample=3)  # compiled (and cached) outside the measurement
         tracemalloc.start()
         rtrace.trace(snap, view, NU2, supersample=3)
         _, peak = tracemalloc.get_traced_memory()
@@ -400,6 +510,7 @@ def test_synthesis_estimate_matches_tracemalloc(result):
     import warnings
 
     from rtrace.interferometer import synthesis
+
     seen = {}
     real = synthesis._check_size
 
@@ -412,7 +523,7 @@ def test_synthesis_estimate_matches_tracemalloc(result):
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            synthesis.synthesize(result, **kw)            # compiled outside the measurement
+            synthesis.synthesize(result, **kw)  # compiled outside the measurement
             tracemalloc.start()
             synthesis.synthesize(result, **kw)
             _, peak = tracemalloc.get_traced_memory()
@@ -425,6 +536,7 @@ def test_synthesis_estimate_matches_tracemalloc(result):
 def test_observe_estimate_matches_tracemalloc(snap):
     from rtrace.memory import observe_bytes
     from rtrace.observe.beam import kernel_geometry
+
     res = rtrace.trace(snap, rtrace.View(npix=256, distance=1 * u.kpc), [1, 2, 5] * u.GHz)
     b = beam(40 * u.arcsec)
     geo = kernel_geometry(b, res.pixel_scale.to_value(u.arcsec), res.shape[1:])
@@ -438,6 +550,7 @@ def test_observe_estimate_matches_tracemalloc(snap):
 
 
 # -- where the line for a beam wider than the image is drawn --------------------------------------
+
 
 def test_point_source_keeps_58_percent_when_the_beam_fwhm_equals_the_field():
     # The share of a circular Gaussian inside a centred square of side L = FWHM is
@@ -458,8 +571,7 @@ def test_point_source_keeps_58_percent_when_the_beam_fwhm_equals_the_field():
 
 
 @settings(max_examples=60, deadline=None)
-@given(ratio=st.floats(1.0001, 1.0e4), ny=st.integers(1, 4096), nx=st.integers(1, 4096),
-       pix=st.floats(1e-3, 1e3))
+@given(ratio=st.floats(1.0001, 1.0e4), ny=st.integers(1, 4096), nx=st.integers(1, 4096), pix=st.floats(1e-3, 1e3))
 def test_any_beam_wider_than_the_field_is_refused(ratio, ny, nx, pix):
     major = ratio * min(ny, nx) * pix
     with pytest.raises(InputError, match="^beam: .* wider than the image"):
@@ -470,6 +582,7 @@ def test_any_beam_wider_than_the_field_is_refused(ratio, ny, nx, pix):
 @given(ratio=st.floats(1e-3, 0.4999), ny=st.integers(1, 4096), nx=st.integers(1, 4096), pix=st.floats(1e-3, 1e3))
 def test_a_beam_within_half_the_field_passes_silently(ratio, ny, nx, pix):
     import warnings
+
     major = ratio * min(ny, nx) * pix
     with warnings.catch_warnings():
         warnings.simplefilter("error")
@@ -483,6 +596,7 @@ def test_beam_between_half_and_whole_field_warns(result):
 
 # -- the memory check itself -----------------------------------------------------------------------
 
+
 def test_check_memory_message_says_what_how_much_and_how_to_reduce():
     with pytest.raises(InputError) as info:
         check_memory(10 * GB, field="npix", what="images", hint="use a smaller npix")
@@ -492,7 +606,7 @@ def test_check_memory_message_says_what_how_much_and_how_to_reduce():
 
 
 def test_check_memory_honours_the_budget_below_the_available_memory():
-    check_memory(GB, field="x", what="y", hint="z")            # fits in 80% of 8 GB
+    check_memory(GB, field="x", what="y", hint="z")  # fits in 80% of 8 GB
     with pytest.raises(InputError, match="max_memory = 500 MB"):
         check_memory(GB, field="x", what="y", hint="z", budget=500 * 10**6)
 

@@ -37,7 +37,7 @@ def test_classical_limit_at_any_frequency(w):
     # For gamma^2 -> inf at fixed w = u gamma the Gaunt factor is the classical thermal average gbar_cl(w)
     # (Coulomb-orbit result, Landau & Lifshitz, Classical Theory of Fields sec. 70; tabulated by
     # tools/gaunt_classical.py and checked there against a direct orbit integration).
-    temperature = RY_OVER_K / 1e10                      # gamma^2 = 1e10, so u = w / 1e5 is small
+    temperature = RY_OVER_K / 1e10  # gamma^2 = 1e10, so u = w / 1e5 is small
     nu = w / 1e5 * temperature / H_OVER_K
     log_w = math.log(w)
     grid, spline, _ = gaunt._classical_table()
@@ -94,8 +94,9 @@ def test_coulomb_correction_limits():
 def test_coulomb_integral_against_quad(g2):
     # F(gamma^2) = int_0^inf Re psi(1 + i gamma / sqrt(x)) e^{-x} dx, by adaptive quadrature (scipy).
     gam = math.sqrt(g2)
-    val, _ = integrate.quad(lambda x: special.psi(1 + 1j * gam / math.sqrt(x)).real * math.exp(-x), 0, np.inf,
-                            limit=400)
+    val, _ = integrate.quad(
+        lambda x: special.psi(1 + 1j * gam / math.sqrt(x)).real * math.exp(-x), 0, np.inf, limit=400
+    )
     assert float(-gaunt.coulomb_correction(g2) / SQRT3_PI - EULER_GAMMA) == pytest.approx(val, abs=1e-8)
 
 
@@ -107,7 +108,7 @@ def test_classical_table_limits():
     assert g_last == pytest.approx(1.0, abs=1e-3)
     w = np.exp(grid)
     g = spline(grid) + SQRT3_PI * (np.log(4 / w) - 2.5 * EULER_GAMMA)
-    assert np.all(np.diff(g) < 0)            # falls monotonically toward the plateau
+    assert np.all(np.diff(g) < 0)  # falls monotonically toward the plateau
 
 
 def test_gaunt_is_smooth_and_positive_over_the_plane():
@@ -132,7 +133,7 @@ def test_gaunt_is_smooth_and_positive_over_the_plane():
 def _sommerfeld_points():
     path = __import__("pathlib").Path(__file__).parent / "data" / "gaunt_sommerfeld.csv"
     lines = [ln for ln in path.read_text().splitlines() if ln and not ln.startswith("#")]
-    return np.array([[float(v) for v in ln.split(",")] for ln in lines[1:]])   # after the column names
+    return np.array([[float(v) for v in ln.split(",")] for ln in lines[1:]])  # after the column names
 
 
 def test_against_exact_sommerfeld_thermal_averages():

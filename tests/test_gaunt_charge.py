@@ -24,7 +24,7 @@ from rtrace.physics.gaunt import RY_OVER_K, gaunt_factor
 from rtrace.transfer import cell_cache
 
 CELL_CM = 3.0e17
-NU = np.array([0.5e9, 5.0e9, 30.0e9, 3.0e12])          # radio to far infrared (the last off the radio series)
+NU = np.array([0.5e9, 5.0e9, 30.0e9, 3.0e12])  # radio to far infrared (the last off the radio series)
 
 
 def rl_prefactor():
@@ -45,6 +45,7 @@ def alpha_rl(nu, t, ne, n_ions):
 
 # -- the Gaunt factor per charge ---------------------------------------------------------------------
 
+
 def test_charge_two_is_the_charge_one_value_at_scaled_frequency_and_temperature():
     # gbar(nu, T, Z) = gbar(nu / Z^2, T / Z^2, 1) (Karzas & Latter 1961: gbar depends on u and gamma^2 only)
     nu = np.geomspace(1e8, 1e14, 7)[:, None] * u.Hz
@@ -64,7 +65,8 @@ def test_charge_two_classical_radio_form():
         w = H_OVER_K * nu / t * math.sqrt(4 * RY_OVER_K / t)
         assert w <= 1e-4
         assert float(gaunt_factor(nu, t, charge=2)) == pytest.approx(
-            float(gaunt.classical_radio_gaunt(nu, t, 2)), rel=5e-3)
+            float(gaunt.classical_radio_gaunt(nu, t, 2)), rel=5e-3
+        )
 
 
 def test_charge_two_against_exact_sommerfeld_values():
@@ -94,22 +96,27 @@ def test_charge_keyword_checks_and_old_spelling():
 
 # -- coefficients of a doubly ionized helium plasma --------------------------------------------------
 
+
 def test_helium_iii_plasma_alpha_matches_rl_518b_with_z2_gaunt():
     # Pure He III: n_e = 2 n, ion term Z^2 n = 4 n. R&L 1979 eq. 5.18b with Z = 2 and the Z = 2 Gaunt factor.
     n, t = 10.0, np.array([8e3, 1e5, 3e6])
     for nu in NU:
         expected = alpha_rl(nu, t, 2 * n, [(2, n)])
         got = physics.absorption_coefficient(nu * u.Hz, t * u.K, 2 * n * u.cm**-3, 4 * n * u.cm**-3).value
-        np.testing.assert_allclose(got, expected, rtol=2e-3)      # 5.18b's constants vs ours: 0.1%
+        np.testing.assert_allclose(got, expected, rtol=2e-3)  # 5.18b's constants vs ours: 0.1%
         # and not the Z = 1 value: the two differ by 1-6% at these points
         z1 = rl_prefactor() * t**-0.5 * 8 * n * n * nu**-3 * -np.expm1(-H_OVER_K * nu / t) * gaunt_factor(nu, t)
         assert np.all(np.abs(got / z1 - 1) > 0.005)
 
 
 def uniform_snapshot(ne, ni, t=2.0e4, shape=(6, 5, 8), dtype=np.float64):
-    return rtrace.Snapshot.from_arrays(temperature=np.full(shape, t) * u.K, cell_size=CELL_CM * u.cm,
-                                       electron_density=np.full(shape, ne) * u.cm**-3,
-                                       ion_density=np.full(shape, ni) * u.cm**-3, dtype=dtype)
+    return rtrace.Snapshot.from_arrays(
+        temperature=np.full(shape, t) * u.K,
+        cell_size=CELL_CM * u.cm,
+        electron_density=np.full(shape, ne) * u.cm**-3,
+        ion_density=np.full(shape, ni) * u.cm**-3,
+        dtype=dtype,
+    )
 
 
 @pytest.mark.parametrize("los", [(0, 0, 1), (0, 1, 0), (-1, 0, 0)])
@@ -137,7 +144,7 @@ def test_helium_iii_slab_through_trace(los, nfreq):
 def mixed_fields(rng, shape=(5, 6, 9)):
     """H fully ionized, He partly He II and He III (Y = 0.28 by mass): (n_e, ion term, n_HII, n_HeII, n_HeIII, T)."""
     nh = rng.uniform(10.0, 500.0, shape)
-    nhe = nh * 0.28 / (4 * 0.70)                              # number ratio He/H for X = 0.70, Y = 0.28
+    nhe = nh * 0.28 / (4 * 0.70)  # number ratio He/H for X = 0.70, Y = 0.28
     f3 = rng.uniform(0.0, 1.0, shape) * (rng.uniform(size=shape) > 0.3)
     he2, he3 = nhe * (1 - f3), nhe * f3
     ne = nh + he2 + 2 * he3
@@ -148,7 +155,7 @@ def mixed_fields(rng, shape=(5, 6, 9)):
 
 def numpy_transfer(nu, ne, nh, he2, he3, t, axis):
     """Direct per-cell formal solution along +axis (R&L 1979 eq. 1.30), alpha summed per ion species (5.18b)."""
-    move = lambda a: np.moveaxis(a, axis, -1)                              # noqa: E731
+    move = lambda a: np.moveaxis(a, axis, -1)  # noqa: E731
     ne, nh, he2, he3, t = map(move, (ne, nh, he2, he3, t))
     inten = np.zeros((len(nu),) + ne.shape[:2])
     tau = np.zeros_like(inten)
@@ -170,8 +177,13 @@ def test_mixed_hydrogen_helium_plasma_through_trace(rng, nfreq):
     # Gaunt factor; the tracer gets only n_e and the ion term and must find the He III share itself.
     ne, ni, nh, he2, he3, t = mixed_fields(rng)
     nu = NU[:nfreq] if nfreq > 1 else NU[1:2]
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=CELL_CM * u.cm, electron_density=ne * u.cm**-3,
-                                       ion_density=ni * u.cm**-3, dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K,
+        cell_size=CELL_CM * u.cm,
+        electron_density=ne * u.cm**-3,
+        ion_density=ni * u.cm**-3,
+        dtype=np.float64,
+    )
     nx, ny, nz = ne.shape
     # rays travel +z (the observer is at +z): cell k = 0 is the farthest; north = +y, west = north x los = +x
     view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=(ny, nx), width=nx * CELL_CM * u.cm)
@@ -197,8 +209,9 @@ def test_oblique_and_amr_routes_use_the_helium_iii_gaunt_factor():
     view = rtrace.View(los=tuple(los), npix=4, width=4 * CELL_CM * u.cm)
     res = rtrace.trace(snap, view, NU[:3] * u.Hz, supersample=1)
     path = shape[2] * CELL_CM * np.linalg.norm(los) / los[2]
-    np.testing.assert_allclose(res.tau[:, 1:3, 1:3], alpha_rl(NU[:3], t, 2 * n, [(2, n)])[:, None, None] * path
-                               * np.ones((1, 2, 2)), rtol=2e-3)
+    np.testing.assert_allclose(
+        res.tau[:, 1:3, 1:3], alpha_rl(NU[:3], t, 2 * n, [(2, n)])[:, None, None] * path * np.ones((1, 2, 2)), rtol=2e-3
+    )
     assert res.emission_measure.value[1, 1] == pytest.approx((2 * n) ** 2 * path / 3.0856775814913673e18, rel=1e-6)
     ions = rtrace.trace(snap, view, NU[:3] * u.Hz, supersample=1, emission_measure="ion_term")
     assert ions.emission_measure.value[1, 1] == pytest.approx(8 * n * n * path / 3.0856775814913673e18, rel=1e-6)
@@ -215,8 +228,10 @@ def test_oblique_and_amr_routes_use_the_helium_iii_gaunt_factor():
     grid = amr.Grid(0, np.zeros(3, np.int64), np.array(shape, np.int64), 2 * n * one, 4 * n * one, t * one)
     amr_snap = amr.AMRSnapshot([grid], 2, shape, np.full(3, CELL_CM), np.zeros(3), {"source": "test"})
     for v in (view, rtrace.View(los=(0, 0, 1), npix=4, width=4 * CELL_CM * u.cm)):
-        a, b = (rtrace.trace(amr_snap, v, NU[:3] * u.Hz, supersample=1),
-                rtrace.trace(snap, v, NU[:3] * u.Hz, supersample=1))
+        a, b = (
+            rtrace.trace(amr_snap, v, NU[:3] * u.Hz, supersample=1),
+            rtrace.trace(snap, v, NU[:3] * u.Hz, supersample=1),
+        )
         np.testing.assert_allclose(a.tau, b.tau, rtol=1e-12)
         np.testing.assert_allclose(a.emission_measure.value, b.emission_measure.value, rtol=1e-12)
 
@@ -225,8 +240,9 @@ def test_single_frequency_kernel_agrees_with_the_general_one_on_helium_iii(rng):
     # The single-frequency kernel sends rays with He III cells to its cell-by-cell path; it must give what
     # the general kernel gives for the same frequency (both: R&L 5.18b per cell).
     ne, ni, *_, t = mixed_fields(rng)
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=CELL_CM * u.cm, electron_density=ne * u.cm**-3,
-                                       ion_density=ni * u.cm**-3)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=CELL_CM * u.cm, electron_density=ne * u.cm**-3, ion_density=ni * u.cm**-3
+    )
     view = rtrace.View(los=(0, 0, 1), npix=(6, 5), width=5 * CELL_CM * u.cm)
     one = rtrace.trace(snap, view, NU[1:2] * u.Hz)
     two = rtrace.trace(snap, view, NU[1:3] * u.Hz)
@@ -243,6 +259,7 @@ def test_hydrogen_snapshots_carry_no_ratio_array():
 
 # -- emission measure definition ---------------------------------------------------------------------
 
+
 def test_emission_measure_keyword_and_fits_card(tmp_path):
     n = 50.0
     snap = uniform_snapshot(2 * n, 4 * n)
@@ -255,24 +272,28 @@ def test_emission_measure_keyword_and_fits_card(tmp_path):
     np.testing.assert_allclose(i.emission_measure.value, 2 * e.emission_measure.value, rtol=1e-12)
     assert i.em_definition == "ion_term"
     from rtrace.io.fits import write_result
+
     for res, text in [(e, "int n_e^2 dl"), (i, "int n_e sum Z^2 n_i dl")]:
         path = write_result(res, tmp_path / f"em_{res.em_definition}.fits", "emission_measure")
         assert fits.getheader(path)["EMDEF"] == text
     # pictures name the definition in their colour-bar label too
     from rtrace.plot.core import plane_of
+
     assert "n_e^2" in plane_of(e, "emission_measure", 0).label
     assert "Z^2 n_i" in plane_of(i, "emission_measure", 0).label
 
 
 # -- range warnings ----------------------------------------------------------------------------------
 
+
 def _warned(t_value):
     t = np.full((3, 3, 3), 1e4)
     t[0, 0, :2] = t_value
     with warnings.catch_warnings(record=True) as record:
         warnings.simplefilter("always")
-        rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc,
-                                    electron_density=np.ones((3, 3, 3)) * u.cm**-3)
+        rtrace.Snapshot.from_arrays(
+            temperature=t * u.K, cell_size=1 * u.pc, electron_density=np.ones((3, 3, 3)) * u.cm**-3
+        )
     return {w.category: str(w.message) for w in record if issubclass(w.category, PhysicsRangeWarning)}
 
 

@@ -35,13 +35,13 @@ def test_off_node_points_within_1e4_radio_and_1e3_everywhere():
     rows = _rows("gaunt_offnode.csv")
     assert len(rows) >= 150
     uu, gamma2, exact, err = 10 ** rows[:, 0], 10 ** rows[:, 1], rows[:, 2], rows[:, 3]
-    assert np.all(err < 1e-5 * exact)                        # the reference values' own error bound
+    assert np.all(err < 1e-5 * exact)  # the reference values' own error bound
     dev = np.abs(_ours(uu, gamma2) / exact - 1)
     radio = uu < 1e-3
     assert radio.sum() >= 50 and (~radio).sum() >= 50
-    assert dev[radio].max() <= 1e-4                           # issue 15's requirement at radio
-    assert dev.max() <= 1e-3                                  # and everywhere
-    assert dev.max() <= 1e-5                                  # measured 2.1e-6 (README, "Gaunt factor accuracy")
+    assert dev[radio].max() <= 1e-4  # issue 15's requirement at radio
+    assert dev.max() <= 1e-3  # and everywhere
+    assert dev.max() <= 1e-5  # measured 2.1e-6 (README, "Gaunt factor accuracy")
 
 
 def test_against_the_independent_quadrature():
@@ -51,7 +51,7 @@ def test_against_the_independent_quadrature():
     gamma2, uu, exact = rows[:, 0], rows[:, 1], rows[:, 2]
     dev = np.abs(_ours(uu, gamma2) / exact - 1)
     assert (uu < 1e-6).sum() >= 5
-    assert dev.max() <= 1e-5                                  # measured 5.5e-6 (soft continuation)
+    assert dev.max() <= 1e-5  # measured 5.5e-6 (soft continuation)
     # the He III factor is the same function at T / 4: the same points with Z = 2
     dev2 = np.abs(_ours(uu, gamma2, charge=2) / exact - 1)
     assert dev2.max() <= 1e-5
@@ -73,8 +73,7 @@ def test_born_and_classical_limits_through_the_table():
     # Oster (1961) classical radio form at 33 MHz, 1580 K (gamma^2 = 100, u = 1e-6, w = u gamma = 1e-5): the
     # quantum correction ~1/(12 gamma^2) (A&S 6.3.19) and the finite-frequency one (~7.5 w^(2/3) absolute,
     # tools/gaunt_classical.py) are each below 1e-3 relative there
-    assert float(gaunt_cgs(3.3e7, 1580.0)) == pytest.approx(float(gaunt.classical_radio_gaunt(3.3e7, 1580.0)),
-                                                            rel=1e-3)
+    assert float(gaunt_cgs(3.3e7, 1580.0)) == pytest.approx(float(gaunt.classical_radio_gaunt(3.3e7, 1580.0)), rel=1e-3)
 
 
 def test_continuation_is_continuous_at_the_table_edges():
@@ -83,5 +82,5 @@ def test_continuation_is_continuous_at_the_table_edges():
     edge_nu = 1e-6 * t / H_OVER_K
     below, above = gaunt_cgs(edge_nu * (1 - 1e-9), t), gaunt_cgs(edge_nu * (1 + 1e-9), t)
     assert below == pytest.approx(above, rel=1e-8)
-    hot = RY_OVER_K / 1e-6                                  # gamma^2 = 1e-6: T = 1.6e11 K
+    hot = RY_OVER_K / 1e-6  # gamma^2 = 1e-6: T = 1.6e11 K
     assert gaunt_cgs(1e12, hot * (1 + 1e-9)) == pytest.approx(gaunt_cgs(1e12, hot * (1 - 1e-9)), rel=1e-8)

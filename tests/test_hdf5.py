@@ -20,8 +20,12 @@ PC_CM = (1 * u.pc).to_value(u.cm)
 @pytest.fixture(scope="module")
 def fields():
     rng = np.random.default_rng(11)
-    return {"T": rng.uniform(6000, 12000, SHAPE), "ne": rng.uniform(10, 1000, SHAPE),
-            "rho": rng.uniform(1e-23, 1e-21, SHAPE), "x": rng.uniform(0, 1, SHAPE)}
+    return {
+        "T": rng.uniform(6000, 12000, SHAPE),
+        "ne": rng.uniform(10, 1000, SHAPE),
+        "rho": rng.uniform(1e-23, 1e-21, SHAPE),
+        "x": rng.uniform(0, 1, SHAPE),
+    }
 
 
 @pytest.fixture
@@ -47,8 +51,9 @@ def h5file(tmp_path, fields):
 
 
 def test_round_trip(h5file, fields):
-    snap = read_hdf5(h5file, temperature="gas/thermal/T", electron_density="gas/ne",
-                     ion_density="gas/ni", units={"gas/ni": "cm**-3"})
+    snap = read_hdf5(
+        h5file, temperature="gas/thermal/T", electron_density="gas/ne", ion_density="gas/ni", units={"gas/ni": "cm**-3"}
+    )
     assert isinstance(snap, rtrace.Snapshot) and snap.shape == SHAPE
     assert snap.temperature.dtype == np.float32
     assert np.allclose(snap.temperature.to_value(u.K), fields["T"], rtol=1e-7)
@@ -63,13 +68,18 @@ def test_round_trip(h5file, fields):
 
 def test_units_argument_overrides_attribute(h5file, fields):
     # The file says cm**-3; the caller says m**-3: the argument wins.
-    snap = read_hdf5(h5file, temperature="gas/thermal/T", electron_density="gas/ne",
-                     units={"gas/ne": "m**-3"}, dtype=np.float64)
-    assert np.allclose(snap.electron_density.to_value(u.cm**-3), fields["ne"].astype(np.float32) * 1e-6,
-                       rtol=1e-12)
+    snap = read_hdf5(
+        h5file, temperature="gas/thermal/T", electron_density="gas/ne", units={"gas/ne": "m**-3"}, dtype=np.float64
+    )
+    assert np.allclose(snap.electron_density.to_value(u.cm**-3), fields["ne"].astype(np.float32) * 1e-6, rtol=1e-12)
     # A temperature unit other than kelvin is converted (astropy temperature equivalency).
-    snap = read_hdf5(h5file, temperature="gas/thermal/T", electron_density="gas/ne",
-                     units={"gas/thermal/T": "deg_C"}, dtype=np.float64)
+    snap = read_hdf5(
+        h5file,
+        temperature="gas/thermal/T",
+        electron_density="gas/ne",
+        units={"gas/thermal/T": "deg_C"},
+        dtype=np.float64,
+    )
     assert np.allclose(snap.temperature.to_value(u.K), fields["T"] + 273.15, rtol=1e-12)
 
 
@@ -80,7 +90,7 @@ def test_geometry_arguments_and_defaults(tmp_path, fields):
         f.create_dataset("ne", data=fields["ne"]).attrs["units"] = "cm**-3"
     snap = read_hdf5(path, temperature="T", electron_density="ne", cell_size=2 * u.au)
     assert np.allclose(snap.cell_size, (2 * u.au).to_value(u.cm), rtol=1e-12)
-    assert np.array_equal(snap.origin, np.zeros(3))          # no origin attribute: zeros
+    assert np.array_equal(snap.origin, np.zeros(3))  # no origin attribute: zeros
     with h5py.File(path, "a") as f:
         f.attrs["cell_size"] = 0.5
         f.attrs["cell_size_units"] = "pc"
@@ -96,28 +106,37 @@ def test_geometry_arguments_and_defaults(tmp_path, fields):
 def test_density_and_ionization(h5file, fields):
     for ionization in ("full", "threshold"):
         snap = read_hdf5(h5file, temperature="gas/thermal/T", density="rho", ionization=ionization)
-        ref = rtrace.Snapshot.from_arrays(temperature=fields["T"] * u.K, cell_size=1 * u.pc,
-                                          density=fields["rho"] * u.g / u.cm**3, ionization=ionization)
+        ref = rtrace.Snapshot.from_arrays(
+            temperature=fields["T"] * u.K,
+            cell_size=1 * u.pc,
+            density=fields["rho"] * u.g / u.cm**3,
+            ionization=ionization,
+        )
         assert np.allclose(snap.electron_density.value, ref.electron_density.value, rtol=1e-6)
         assert np.allclose(snap.ion_density.value, ref.ion_density.value, rtol=1e-6)
         assert snap.provenance["ionization"] == ref.provenance["ionization"]
     # Any other string names an ionized-fraction dataset (dimensionless, needs no unit).
     snap = read_hdf5(h5file, temperature="gas/thermal/T", density="rho", ionization="xHII")
-    ref = rtrace.Snapshot.from_arrays(temperature=fields["T"] * u.K, cell_size=1 * u.pc,
-                                      density=fields["rho"] * u.g / u.cm**3, ionization=fields["x"])
+    ref = rtrace.Snapshot.from_arrays(
+        temperature=fields["T"] * u.K, cell_size=1 * u.pc, density=fields["rho"] * u.g / u.cm**3, ionization=fields["x"]
+    )
     assert np.allclose(snap.electron_density.value, ref.electron_density.value, rtol=1e-6)
     # A SuppliedFraction naming a field reads that dataset too.
     from rtrace.physics.ionization import SuppliedFraction
-    snap = read_hdf5(h5file, temperature="gas/thermal/T", density="rho",
-                     ionization=SuppliedFraction("xHII", helium="none"))
-    ref = rtrace.Snapshot.from_arrays(temperature=fields["T"] * u.K, cell_size=1 * u.pc,
-                                      density=fields["rho"] * u.g / u.cm**3,
-                                      ionization=SuppliedFraction(fields["x"], helium="none"))
+
+    snap = read_hdf5(
+        h5file, temperature="gas/thermal/T", density="rho", ionization=SuppliedFraction("xHII", helium="none")
+    )
+    ref = rtrace.Snapshot.from_arrays(
+        temperature=fields["T"] * u.K,
+        cell_size=1 * u.pc,
+        density=fields["rho"] * u.g / u.cm**3,
+        ionization=SuppliedFraction(fields["x"], helium="none"),
+    )
     assert np.allclose(snap.ion_density.value, ref.ion_density.value, rtol=1e-6)
 
 
-@pytest.mark.parametrize("subvolume", [((1, 4), (0, 5), (2, 4)),
-                                       (slice(1, 4), slice(None), slice(2, None))])
+@pytest.mark.parametrize("subvolume", [((1, 4), (0, 5), (2, 4)), (slice(1, 4), slice(None), slice(2, None))])
 def test_subvolume(h5file, fields, subvolume, monkeypatch):
     requested = []
     real_getitem = h5py.Dataset.__getitem__
@@ -144,6 +163,7 @@ def test_subvolume(h5file, fields, subvolume, monkeypatch):
 # errors
 # --------------------------------------------------------------------------------------------
 
+
 def test_missing_dataset_lists_the_file(h5file):
     with pytest.raises(InputError) as err:
         read_hdf5(h5file, temperature="gas/thermal/T", electron_density="gas/n_e")
@@ -159,15 +179,23 @@ def test_dataset_errors_name_the_dataset(h5file):
     base = dict(temperature="gas/thermal/T", electron_density="gas/ne")
     cases = [
         (dict(base, ion_density="flat"), r"ion_density: dataset 'flat' has 2 dimension\(s\)"),
-        (dict(base, ion_density="small"), r"ion_density: dataset 'small' has shape \(3, 5, 4\), but "
-                                          r"temperature 'gas/thermal/T' has shape \(6, 5, 4\)"),
+        (
+            dict(base, ion_density="small"),
+            r"ion_density: dataset 'small' has shape \(3, 5, 4\), but "
+            r"temperature 'gas/thermal/T' has shape \(6, 5, 4\)",
+        ),
         (dict(base, ion_density="names"), r"ion_density: dataset 'names' has non-numeric type"),
         (dict(base, ion_density="gas/ni"), r"ion_density: dataset 'gas/ni' has no 'units' attribute"),
-        (dict(base, ion_density="badunit"), r"ion_density: dataset 'badunit' unit 'furlongs per "
-                                            r"fortnight!' \(attribute 'units'\) cannot be parsed"),
+        (
+            dict(base, ion_density="badunit"),
+            r"ion_density: dataset 'badunit' unit 'furlongs per "
+            r"fortnight!' \(attribute 'units'\) cannot be parsed",
+        ),
         (dict(base, ion_density="lengthy"), r"ion_density: dataset 'lengthy' has unit 'cm'"),
-        (dict(base, ion_density="gas/ni", units={"gas/ni": "K"}),
-         r"ion_density: dataset 'gas/ni' has unit 'K' \(units argument\)"),
+        (
+            dict(base, ion_density="gas/ni", units={"gas/ni": "K"}),
+            r"ion_density: dataset 'gas/ni' has unit 'K' \(units argument\)",
+        ),
         (dict(base, units={"typo": "K"}), r"units: 'typo' name\(s\) no dataset being read"),
         (dict(base, temperature=3), r"temperature: expected a dataset name"),
         (dict(base, dtype=np.int32), r"dtype: must be float32 or float64"),
@@ -190,7 +218,7 @@ def test_geometry_errors(tmp_path, fields):
     with pytest.raises(InputError, match="cell_size: root attribute 'cell_size' of .* has no unit"):
         read_hdf5(path, **args)
     with h5py.File(path, "a") as f:
-        f.attrs["length_unit"] = 3.086e18          # a number is not a unit
+        f.attrs["length_unit"] = 3.086e18  # a number is not a unit
     with pytest.raises(InputError, match="cell_size: root attribute 'length_unit' .* must be a unit string"):
         read_hdf5(path, **args)
     with h5py.File(path, "a") as f:

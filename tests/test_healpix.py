@@ -81,26 +81,58 @@ def _special_points(nside, rng):
     quadrant / zone switches of the algorithm sit."""
     pts = []
     # Poles, exact and with other lengths; points a hair off the poles.
-    pts.append(np.array([[0.0, 0.0, 1.0], [0.0, 0.0, -1.0], [0.0, 0.0, 3.5],
-                         [0.0, 0.0, -1e-3], [-0.0, -0.0, 1.0], [1e-300, 0.0, 1.0],
-                         [0.0, -1e-300, -1.0], [1e-17, 1e-17, 1.0], [-1e-17, 1e-17, -1.0]]))
-    phi_grid = np.concatenate([np.linspace(0.0, 2 * np.pi, 4097),
-                               rng.uniform(0.0, 2 * np.pi, 2000)])
-    for z in (0.0, 2.0 / 3.0, -2.0 / 3.0,
-              np.nextafter(2.0 / 3.0, 1.0), np.nextafter(2.0 / 3.0, 0.0),
-              np.nextafter(-2.0 / 3.0, -1.0), np.nextafter(-2.0 / 3.0, 0.0)):
+    pts.append(
+        np.array(
+            [
+                [0.0, 0.0, 1.0],
+                [0.0, 0.0, -1.0],
+                [0.0, 0.0, 3.5],
+                [0.0, 0.0, -1e-3],
+                [-0.0, -0.0, 1.0],
+                [1e-300, 0.0, 1.0],
+                [0.0, -1e-300, -1.0],
+                [1e-17, 1e-17, 1.0],
+                [-1e-17, 1e-17, -1.0],
+            ]
+        )
+    )
+    phi_grid = np.concatenate([np.linspace(0.0, 2 * np.pi, 4097), rng.uniform(0.0, 2 * np.pi, 2000)])
+    for z in (
+        0.0,
+        2.0 / 3.0,
+        -2.0 / 3.0,
+        np.nextafter(2.0 / 3.0, 1.0),
+        np.nextafter(2.0 / 3.0, 0.0),
+        np.nextafter(-2.0 / 3.0, -1.0),
+        np.nextafter(-2.0 / 3.0, 0.0),
+    ):
         pts.append(_sph(z, phi_grid))
     # The quadrant lines phi = 0, pi/2, pi, 3pi/2, exactly and just either side,
     # crossed with a z grid that includes the zone switches and the poles.
     ulp = np.spacing(2.0 / 3.0)
     near_cap = 2.0 / 3.0 + ulp * np.arange(-8, 9)
-    z_grid = np.concatenate([np.linspace(-1.0, 1.0, 2001), near_cap, -near_cap, [0.0],
-                             1.0 - np.logspace(-16, -1, 40), -1.0 + np.logspace(-16, -1, 40)])
+    z_grid = np.concatenate(
+        [
+            np.linspace(-1.0, 1.0, 2001),
+            near_cap,
+            -near_cap,
+            [0.0],
+            1.0 - np.logspace(-16, -1, 40),
+            -1.0 + np.logspace(-16, -1, 40),
+        ]
+    )
     for k in range(4):
         base = k * np.pi / 2
-        for phi in (base, np.nextafter(base, 10.0), np.nextafter(base, -10.0),
-                    base + 1e-15, base - 1e-15, base + 1e-9, base - 1e-9,
-                    base + 2 * np.pi - 1e-15):
+        for phi in (
+            base,
+            np.nextafter(base, 10.0),
+            np.nextafter(base, -10.0),
+            base + 1e-15,
+            base - 1e-15,
+            base + 1e-9,
+            base - 1e-9,
+            base + 2 * np.pi - 1e-15,
+        ):
             pts.append(_sph(z_grid, phi))
     # A lattice of floating-point neighbours of the corners where the cap edge
     # |z| = 2/3 meets a quadrant line, with phi exactly 0, pi/2 or a hair below
@@ -113,8 +145,7 @@ def _special_points(nside, rng):
         for a, b in ((rr, 0.0 * rr), (rr, np.full_like(rr, -1e-300)), (0.0 * rr, rr)):
             pts.append(np.column_stack([a, b, sign * zz]))
     # Exact coordinate axes (zero components, signed zeros), not normalised.
-    for x, y in ((1.0, 0.0), (0.0, 1.0), (-1.0, 0.0), (0.0, -1.0),
-                 (1.0, -0.0), (-1.0, -0.0), (2.0, 2.0), (-3.0, 3.0)):
+    for x, y in ((1.0, 0.0), (0.0, 1.0), (-1.0, 0.0), (0.0, -1.0), (1.0, -0.0), (-1.0, -0.0), (2.0, 2.0), (-3.0, 3.0)):
         pts.append(np.column_stack([np.full(z_grid.size, x), np.full(z_grid.size, y), 5 * z_grid]))
     # Equator and z = +-2/3 at the exact longitudes of pixel corners there.
     phi_corner = np.arange(8 * nside + 1) * (np.pi / (4 * nside))
@@ -174,17 +205,22 @@ def _compare_vec2pix(nside, xyz):
         probe = (u[:, None, :] + eps * d).reshape(-1, 3)
         got = hp.vec2pix(nside, probe[:, 0], probe[:, 1], probe[:, 2], nest=True).reshape(bad.size, -1)
         found |= (got == ours[:, None]).any(axis=1)
-    assert found.all(), (f"nside={nside}: points not within {BOUNDARY_TOL} of our pixel per healpy: "
-                         f"{pts[~found][:5]}, ours {ours[~found][:5]}, healpy {theirs[~found][:5]}")
+    assert found.all(), (
+        f"nside={nside}: points not within {BOUNDARY_TOL} of our pixel per healpy: "
+        f"{pts[~found][:5]}, ours {ours[~found][:5]}, healpy {theirs[~found][:5]}"
+    )
 
     in_range = (theirs >= 0) & (theirs < npix)
     adjacent = np.zeros(bad.size, dtype=bool)
-    adjacent[in_range] = (hp.get_all_neighbours(nside, theirs[in_range], nest=True).reshape(8, -1)
-                          == ours[in_range]).any(axis=0)
+    adjacent[in_range] = (
+        hp.get_all_neighbours(nside, theirs[in_range], nest=True).reshape(8, -1) == ours[in_range]
+    ).any(axis=0)
     far = ~in_range
     far[in_range] = _angle(pts[in_range], _pix2vec_many(nside, theirs[in_range])) > max_rad
-    assert (adjacent | far).all(), (f"nside={nside}: unexplained disagreement at {pts[~(adjacent | far)][:5]}: "
-                                    f"ours {ours[~(adjacent | far)][:5]}, healpy {theirs[~(adjacent | far)][:5]}")
+    assert (adjacent | far).all(), (
+        f"nside={nside}: unexplained disagreement at {pts[~(adjacent | far)][:5]}: "
+        f"ours {ours[~(adjacent | far)][:5]}, healpy {theirs[~(adjacent | far)][:5]}"
+    )
     return bad, far & ~adjacent
 
 
@@ -209,7 +245,7 @@ def test_pix2vec_deep_levels(level, rng):
     # corners, including the rings next to the poles).
     nside = nside_for_level(level)
     npface = nside * nside
-    ends = np.concatenate([f * npface + np.r_[0:64, npface - 64:npface] for f in range(12)])
+    ends = np.concatenate([f * npface + np.r_[0:64, npface - 64 : npface] for f in range(12)])
     ipix = np.concatenate([rng.integers(0, 12 * npface, 50_000), ends]).astype(np.int64)
     mine = _pix2vec_many(nside, ipix)
     ref = np.column_stack(hp.pix2vec(nside, ipix, nest=True))
@@ -223,8 +259,7 @@ def test_pix2vec_pole_precision():
     # (sqrt(1 - z*z) would lose ~8 digits).
     nside = nside_for_level(13)
     npface = nside * nside
-    ipix = np.array([f * npface + npface - 1 for f in range(4)]
-                    + [f * npface for f in range(8, 12)], dtype=np.int64)
+    ipix = np.array([f * npface + npface - 1 for f in range(4)] + [f * npface for f in range(8, 12)], dtype=np.int64)
     mine = _pix2vec_many(nside, ipix)
     ref = np.column_stack(hp.pix2vec(nside, ipix, nest=True))
     # All eight lie on the rings next to the poles; healpy's theta is exact to

@@ -37,28 +37,43 @@ from rtrace.interferometer.sampling import primary_beam_pattern
 from rtrace.physics.constants import C
 from rtrace.transfer.result import Result
 
-AU_CM = 1.495978707e13                  # IAU 2012 Resolution B2 (exact)
+AU_CM = 1.495978707e13  # IAU 2012 Resolution B2 (exact)
 DIST = 1.0 * u.kpc
-PIX = 1.0 * u.arcsec                    # 1 arcsec at 1 kpc is 1000 au (definition of the parsec)
+PIX = 1.0 * u.arcsec  # 1 arcsec at 1 kpc is 1000 au (definition of the parsec)
 NU = 5.0 * u.GHz
 LAM_M = C / NU.to_value(u.Hz) / 100.0
 N = 128
 SKY = SkyCoord(ra=150 * u.deg, dec=40 * u.deg)
 LAT = 35 * u.deg
 HA = (-4, 4) * u.hourangle
-STEP = 4 * u.min                        # a time: converted at the sidereal rate
+STEP = 4 * u.min  # a time: converted at the sidereal rate
 
 # An invented 10-dish layout, 0.44-3.2 km projected baselines: beam ~ 3.5", LAS ~ 17".
-ANTENNAS = np.array([[0, 0, 0], [610, 140, 1], [-380, 520, 2], [150, -700, 0], [-900, -300, 1],
-                     [1200, 800, 3], [-200, 1500, 2], [1700, -600, 0], [-1500, 1100, 1],
-                     [500, 1900, 2]], float) * u.m
+ANTENNAS = (
+    np.array(
+        [
+            [0, 0, 0],
+            [610, 140, 1],
+            [-380, 520, 2],
+            [150, -700, 0],
+            [-900, -300, 1],
+            [1200, 800, 3],
+            [-200, 1500, 2],
+            [1700, -600, 0],
+            [-1500, 1100, 1],
+            [500, 1900, 2],
+        ],
+        float,
+    )
+    * u.m
+)
 
 # Source positions on the image, arcsec from the centre along the snapshot's x (column, west)
 # and y (row, north) axes
 COMPACT_XY = (30.0, 25.0)
-COMPACT_SIGMA = 1.5                     # arcsec
+COMPACT_SIGMA = 1.5  # arcsec
 DISK_XY = (-20.0, -10.0)
-DISK_RADIUS = 35.0                      # arcsec
+DISK_RADIUS = 35.0  # arcsec
 # Checks that compare image pixels with model pixels image on the model's own grid
 MODEL_GRID = dict(pixel_scale=PIX, image_size=N)
 POINT_GRID = dict(pixel_scale=PIX, image_size=64)
@@ -66,19 +81,23 @@ POINT_GRID = dict(pixel_scale=PIX, image_size=64)
 
 # -- helpers -------------------------------------------------------------------------------------
 
+
 def _traced(ne2d):
     """Trace a 4-cell-thick slab of 10^4 K gas with the given column profile n_e(x, y) (cm-3)."""
     ne = np.repeat(ne2d[:, :, None], 4, axis=2)
-    snap = rtrace.Snapshot.from_arrays(temperature=np.full(ne.shape, 1e4) * u.K,
-                                       electron_density=ne * u.cm**-3, cell_size=1000 * AU_CM * u.cm,
-                                       dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=np.full(ne.shape, 1e4) * u.K,
+        electron_density=ne * u.cm**-3,
+        cell_size=1000 * AU_CM * u.cm,
+        dtype=np.float64,
+    )
     view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=N, distance=DIST, sky_position=SKY)
     return rtrace.trace(snap, view, [NU.to_value(u.GHz)] * u.GHz)
 
 
 def _offsets():
-    x = np.arange(N) - (N - 1) / 2.0                 # cell centres, arcsec (1 cell = 1 pixel)
-    return np.meshgrid(x, x, indexing="ij")          # (x, y) arrays indexed [i, j]
+    x = np.arange(N) - (N - 1) / 2.0  # cell centres, arcsec (1 cell = 1 pixel)
+    return np.meshgrid(x, x, indexing="ij")  # (x, y) arrays indexed [i, j]
 
 
 def _compact_ne():
@@ -110,11 +129,19 @@ def _true_aperture_flux(res, xy, radius):
 def _point_result(row, col, flux_jy, sky=SKY, npix=64, nu_hz=(5e9,)):
     """A Result whose only emission is one pixel of the given flux density (Jy)."""
     img = np.zeros((len(nu_hz), npix, npix))
-    img[:, row, col] = flux_jy * 1e-23 / PIX.to_value(u.rad) ** 2     # 1 Jy = 1e-23 cgs (definition)
+    img[:, row, col] = flux_jy * 1e-23 / PIX.to_value(u.rad) ** 2  # 1 Jy = 1e-23 cgs (definition)
     view = rtrace.View(npix=npix, distance=DIST, sky_position=sky)
     pix_cm = PIX.to_value(u.rad) * DIST.to_value(u.cm)
-    return Result(img, np.zeros_like(img), np.zeros((npix, npix)), np.asarray(nu_hz, float), view, pix_cm,
-                  np.zeros(3), {"source": "test"})
+    return Result(
+        img,
+        np.zeros_like(img),
+        np.zeros((npix, npix)),
+        np.asarray(nu_hz, float),
+        view,
+        pix_cm,
+        np.zeros(3),
+        {"source": "test"},
+    )
 
 
 @pytest.fixture(scope="module")
@@ -129,11 +156,22 @@ def both_result():
 
 @pytest.fixture(scope="module")
 def maps(compact_result):
-    return {w: synthesize(compact_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
-                          hour_angle_step=STEP, weighting=w) for w in ("natural", "uniform")}
+    return {
+        w: synthesize(
+            compact_result,
+            **MODEL_GRID,
+            antennas=ANTENNAS,
+            latitude=LAT,
+            hour_angle_range=HA,
+            hour_angle_step=STEP,
+            weighting=w,
+        )
+        for w in ("natural", "uniform")
+    }
 
 
 # -- geometry ------------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("lat_deg, dec_deg", [(35.0, 40.0), (-30.0, -60.0), (52.0, 10.0), (0.0, 75.0)])
 def test_east_west_baseline_tracks(lat_deg, dec_deg):
@@ -142,8 +180,7 @@ def test_east_west_baseline_tracks(lat_deg, dec_deg):
     # plane). Convention: u toward east, v toward north, w toward the source.
     b = 1500.0
     ha = hour_angle_samples((-6, 6) * u.hourangle, n_hour_angles=49)
-    uvw, pairs, _ = uvw_tracks(np.array([[0.0, 0, 0], [b, 0, 0]]), math.radians(lat_deg),
-                               math.radians(dec_deg), ha)
+    uvw, pairs, _ = uvw_tracks(np.array([[0.0, 0, 0], [b, 0, 0]]), math.radians(lat_deg), math.radians(dec_deg), ha)
     d = math.radians(dec_deg)
     np.testing.assert_allclose(uvw[:, 0, 0], b * np.cos(ha), atol=1e-9)
     np.testing.assert_allclose(uvw[:, 0, 1], b * math.sin(d) * np.sin(ha), atol=1e-9)
@@ -155,8 +192,14 @@ def test_east_west_tracks_in_wavelengths_through_synthesize():
     # the same formula end to end: SynthesizedMap.u, .v in wavelengths, lambda = c / nu
     b = 900.0
     res = _point_result(32, 32, 1.0)
-    sm = synthesize(res, **POINT_GRID, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=LAT,
-                    hour_angle_range=(-6, 6) * u.hourangle, n_hour_angles=145)
+    sm = synthesize(
+        res,
+        **POINT_GRID,
+        antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m,
+        latitude=LAT,
+        hour_angle_range=(-6, 6) * u.hourangle,
+        n_hour_angles=145,
+    )
     h = sm.hour_angles.to_value(u.rad)
     d = SKY.dec.to_value(u.rad)
     q = b / LAM_M
@@ -179,8 +222,9 @@ def test_uvw_against_astropy_horizon_frame():
     t = Time("2020-01-01T00:00:00", scale="utc")
 
     def enu(ha_h, dec_deg):
-        c = SkyCoord(ha=ha_h * u.hourangle, dec=dec_deg * u.deg,
-                     frame=HADec(location=loc, obstime=t, pressure=0 * u.hPa))
+        c = SkyCoord(
+            ha=ha_h * u.hourangle, dec=dec_deg * u.deg, frame=HADec(location=loc, obstime=t, pressure=0 * u.hPa)
+        )
         # offline: astropy's bundled Earth-orientation table covers 2020 (no download of the newer one)
         with iers.conf.set_temp("auto_download", False):
             a = c.transform_to(AltAz(location=loc, obstime=t, pressure=0 * u.hPa))
@@ -200,8 +244,9 @@ def test_uvw_against_astropy_horizon_frame():
     np.testing.assert_allclose(uvw[..., 1], n @ base.T, atol=1e-6)
     np.testing.assert_allclose(uvw[..., 2], s @ base.T, atol=1e-6)
     # and the elevation: sin e = sin(lat) sin(dec) + cos(lat) cos(dec) cos H against astropy
-    np.testing.assert_allclose(source_elevation(np.radians(15 * ha_h), math.radians(dec), math.radians(lat)),
-                               np.arcsin(s[:, 2]), atol=1e-10)
+    np.testing.assert_allclose(
+        source_elevation(np.radians(15 * ha_h), math.radians(dec), math.radians(lat)), np.arcsin(s[:, 2]), atol=1e-10
+    )
 
 
 def test_polar_axis_baseline_does_not_rotate():
@@ -220,10 +265,11 @@ def test_time_step_uses_the_sidereal_rate():
     # 1 h of clock time is 86400 / 86164.0905 h of hour angle (mean sidereal day, from memory)
     h = hour_angle_samples((0, 3) * u.hourangle, hour_angle_step=1 * u.h)
     assert np.diff(h)[0] == pytest.approx(math.radians(15.0) * 86400.0 / 86164.0905, rel=1e-12)
-    assert h.size == 3            # 0, 1.0027, 2.0055 h; 3.008 h is past the end
+    assert h.size == 3  # 0, 1.0027, 2.0055 h; 3.008 h is past the end
 
 
 # -- sampling ------------------------------------------------------------------------------------
+
 
 def test_point_source_visibilities_follow_the_shift_theorem():
     # A point of flux S at (l0, m0): V(u, v) = S exp(-2 pi i (u l0 + v m0)) (Fourier shift theorem;
@@ -241,12 +287,19 @@ def test_point_source_visibilities_follow_the_shift_theorem():
 def test_dirty_image_is_model_convolved_with_dirty_beam(compact_result):
     # The dirty image is the sky convolved with the synthesized (dirty) beam: convolution
     # theorem applied to sampled visibilities (TMS 2017, ch. 5, from memory).
-    sm = synthesize(compact_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
-                    hour_angle_step=STEP, weighting="uniform")
+    sm = synthesize(
+        compact_result,
+        **MODEL_GRID,
+        antennas=ANTENNAS,
+        latitude=LAT,
+        hour_angle_range=HA,
+        hour_angle_step=STEP,
+        weighting="uniform",
+    )
     jy = compact_result.intensity[0].value * compact_result.pixel_solid_angle.to_value(u.sr) / 1e-23
     full = signal.fftconvolve(jy, sm.dirty_beam[0], mode="full")
     # model pixel q and image pixel p: dirty[p] = sum_q jy[q] psf[N + p - q]
-    expect = full[N:2 * N, N:2 * N]
+    expect = full[N : 2 * N, N : 2 * N]
     np.testing.assert_allclose(sm.dirty_image[0].value, expect, atol=1e-9 * np.abs(expect).max())
 
 
@@ -257,8 +310,14 @@ def test_bessel_beam_of_a_circular_track():
     # Its shortest projected baseline is b, so theta_LAS = 0.6 lambda / b (common practice).
     b, n = 2000.0, 360
     res = _point_result(32, 32, 1.0, sky=SkyCoord(ra=0 * u.deg, dec=90 * u.deg))
-    sm = synthesize(res, **POINT_GRID, antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m, latitude=50 * u.deg,
-                    hour_angle_range=(-12, 12 - 24 / n) * u.hourangle, hour_angle_step=(24 / n) * u.hourangle)
+    sm = synthesize(
+        res,
+        **POINT_GRID,
+        antennas=np.array([[0, 0, 0], [b, 0, 0]]) * u.m,
+        latitude=50 * u.deg,
+        hour_angle_range=(-12, 12 - 24 / n) * u.hourangle,
+        hour_angle_step=(24 / n) * u.hourangle,
+    )
     theta = np.arange(-64, 64) * PIX.to_value(u.rad)
     q = b / LAM_M
     np.testing.assert_allclose(sm.dirty_beam[0][:, 64], j0(2 * np.pi * q * theta), atol=1e-10)
@@ -288,8 +347,15 @@ def test_primary_beam_attenuates_an_offset_source():
     # model before sampling
     res = _point_result(32, 50, 1.0)
     d = 25.0
-    sm = synthesize(res, **POINT_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
-                    dish_diameter=d * u.m)
+    sm = synthesize(
+        res,
+        **POINT_GRID,
+        antennas=ANTENNAS,
+        latitude=LAT,
+        hour_angle_range=HA,
+        hour_angle_step=STEP,
+        dish_diameter=d * u.m,
+    )
     theta = (50 - 31.5) * PIX.to_value(u.rad)
     fwhm = 1.13 * LAM_M / d
     a = math.exp(-4 * math.log(2) * (theta**2 + (0.5 * PIX.to_value(u.rad)) ** 2) / fwhm**2)
@@ -298,6 +364,7 @@ def test_primary_beam_attenuates_an_offset_source():
 
 
 # -- weighting and beams -------------------------------------------------------------------------
+
 
 def test_dirty_beam_peak_and_natural_broader_than_uniform(maps):
     # The dirty beam is sum w cos(...) / sum w: exactly 1 at zero offset and never above
@@ -322,7 +389,7 @@ def test_robust_weighting_limits():
     cell = (10.0, 10.0)
     nat = imaging_weights(uu, vv, "natural", cell)
     uni = imaging_weights(uu, vv, "uniform", cell)
-    assert len(np.unique(uni)) > 3              # the density does vary
+    assert len(np.unique(uni)) > 3  # the density does vary
     for r, ref in ((8.0, nat), (-8.0, uni)):
         w = imaging_weights(uu, vv, "robust", cell, robust=r)
         np.testing.assert_allclose(w / w.sum(), ref / ref.sum(), rtol=1e-4)
@@ -365,7 +432,7 @@ def test_clean_beam_fit_matches_the_half_power_width_of_an_airy_beam():
         return out
 
     x_half = brentq(lambda x: airy(np.array([x]))[0] - 0.5, 0.5, 3.0)
-    n, scale = 48, 0.25                           # x per pixel: about 13 pixels across the FWHM
+    n, scale = 48, 0.25  # x per pixel: about 13 pixels across the FWHM
     r, c = np.mgrid[-n:n, -n:n].astype(float)
     psf = airy(np.hypot(r, c) * scale)
     b = fit_clean_beam(psf, 1.0 * u.arcsec)
@@ -383,16 +450,17 @@ def test_hogbom_on_a_lone_point_source():
     psf = np.exp(-(rr**2 + cc**2) / 8.0) * np.cos(0.6 * rr)
     psf /= psf[n, n]
     s, g, k = 2.5, 0.2, 17
-    dirty = s * psf[n - 10:2 * n - 10, n - 7:2 * n - 7]          # source at pixel (10, 7)
+    dirty = s * psf[n - 10 : 2 * n - 10, n - 7 : 2 * n - 7]  # source at pixel (10, 7)
     comps, resid, it, peak = hogbom(dirty, psf, gain=g, threshold=0.0, niter=k)
     assert it == k
     assert comps[10, 7] == pytest.approx(s * (1 - (1 - g) ** k), rel=1e-12)
     assert np.count_nonzero(comps) == 1
-    np.testing.assert_allclose(resid, s * (1 - g) ** k * psf[n - 10:2 * n - 10, n - 7:2 * n - 7], atol=1e-12)
+    np.testing.assert_allclose(resid, s * (1 - g) ** k * psf[n - 10 : 2 * n - 10, n - 7 : 2 * n - 7], atol=1e-12)
     assert peak == pytest.approx(s * (1 - g) ** k, rel=1e-12)
 
 
 # -- flux recovery -------------------------------------------------------------------------------
+
 
 def test_compact_source_keeps_its_flux(maps, compact_result):
     # a source much smaller than the largest angular scale is sampled at all spatial frequencies
@@ -412,13 +480,20 @@ def test_extended_disk_is_filtered_compact_source_survives(both_result):
     # A uniform disk much larger than theta_LAS = 0.6 lambda / B_min (common practice) has almost
     # all its visibility inside the central hole of the (u, v) coverage, so the array misses
     # most of its flux; the compact source in the same image is still recovered.
-    sm = synthesize(both_result, **MODEL_GRID, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA,
-                    hour_angle_step=STEP, weighting="natural")
+    sm = synthesize(
+        both_result,
+        **MODEL_GRID,
+        antennas=ANTENNAS,
+        latitude=LAT,
+        hour_angle_range=HA,
+        hour_angle_step=STEP,
+        weighting="natural",
+    )
     las = sm.largest_angular_scale[0].to_value(u.arcsec)
     assert 2 * DISK_RADIUS > 3 * las
     disk_true = _true_aperture_flux(both_result, DISK_XY, DISK_RADIUS + 5)
     compact_true = _true_aperture_flux(both_result, COMPACT_XY, 8.0)
-    assert disk_true > 3 * compact_true                 # the disk holds most of the true flux
+    assert disk_true > 3 * compact_true  # the disk holds most of the true flux
     disk_seen = _aperture_flux(sm, DISK_XY, DISK_RADIUS + 5)
     compact_seen = _aperture_flux(sm, COMPACT_XY, 8.0)
     assert abs(disk_seen) < 0.2 * disk_true
@@ -426,6 +501,7 @@ def test_extended_disk_is_filtered_compact_source_survives(both_result):
 
 
 # -- products --------------------------------------------------------------------------------------
+
 
 def test_map_is_a_skymap_and_writes_fits(maps, tmp_path):
     sm = maps["natural"]
@@ -443,11 +519,13 @@ def test_map_is_a_skymap_and_writes_fits(maps, tmp_path):
         np.testing.assert_allclose(hdul[0].data, sm.data.value, rtol=1e-6, atol=1e-6 * np.abs(sm.data.value).max())
     path = sm.write_fits(tmp_path / "dirty.fits", image="dirty")
     with fits.open(path) as hdul:
-        np.testing.assert_allclose(hdul[0].data[0], sm.dirty_image[0].value, rtol=1e-6,
-                                   atol=1e-6 * np.abs(sm.dirty_image.value).max())
+        np.testing.assert_allclose(
+            hdul[0].data[0], sm.dirty_image[0].value, rtol=1e-6, atol=1e-6 * np.abs(sm.dirty_image.value).max()
+        )
 
 
 # -- antenna files -------------------------------------------------------------------------------
+
 
 def test_read_antennas_file(tmp_path):
     p = tmp_path / "ants.txt"
@@ -474,11 +552,12 @@ def test_read_antennas_file(tmp_path):
 @pytest.mark.parametrize("name, n", [("compact_y8.txt", 8), ("ring12.txt", 12)])
 def test_example_layouts_load(name, n):
     from pathlib import Path
+
     path = Path(__file__).resolve().parents[1] / "examples" / "antennas" / name
     a = read_antennas(path)
     assert a.shape == (n, 3)
     d = np.linalg.norm((a[:, None, :] - a[None, :, :]).to_value(u.m), axis=-1)
-    assert d[np.triu_indices(n, 1)].min() > 25.0       # no two dishes overlap
+    assert d[np.triu_indices(n, 1)].min() > 25.0  # no two dishes overlap
 
 
 def test_synthesize_reads_a_layout_file(tmp_path):
@@ -492,35 +571,39 @@ def test_synthesize_reads_a_layout_file(tmp_path):
 
 # -- bad input -----------------------------------------------------------------------------------
 
+
 def _call(**kw):
     args = dict(antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP)
     args.update(kw)
     return synthesize(_point_result(32, 32, 1.0), **args)
 
 
-@pytest.mark.parametrize("kw, match", [
-    (dict(antennas=np.zeros((4, 2)) * u.m), r"antennas: expected shape \(n, 3\)"),
-    (dict(antennas=np.zeros((3, 3, 1)) * u.m), r"antennas: expected shape \(n, 3\)"),
-    (dict(antennas=np.array([[0.0, 0, 0]]) * u.m), "at least 2 antennas, got 1"),
-    (dict(antennas=np.array([[0.0, 0, 0], [1, 0, 0]]) * u.s), "expected lengths"),
-    (dict(antennas=np.array([[0.0, 0, 0], [1, 0, 0]])), "expected a Quantity"),
-    (dict(antennas=np.array([[0.0, 0, 0], [5, 5, 0], [0, 0, 0]]) * u.m), "antennas 0 and 2 are at the same"),
-    (dict(antennas=np.array([[0.0, 0, 0], [np.nan, 0, 0]]) * u.m), "not finite"),
-    (dict(hour_angle_range=(4, -4) * u.hourangle), "hour_angle_range: start .* is after stop"),
-    (dict(hour_angle_range=(-13, 13) * u.hourangle), "more than the 24 h"),
-    (dict(hour_angle_range=(-4, 4) * u.m), "hour_angle_range: expected an angle"),
-    (dict(hour_angle_step=-1 * u.min), "hour_angle_step: must be positive"),
-    (dict(n_hour_angles=10), "give one of them, not both"),
-    (dict(latitude=95 * u.deg), r"latitude: must lie in \[-90.0, 90.0\]"),
-    (dict(latitude=35), "latitude: expected an angle"),
-    (dict(latitude=-80 * u.deg), "stays below min_elevation"),
-    (dict(weighting="briggs"), "weighting: expected one of natural, uniform, robust"),
-    (dict(dish_diameter=2000 * u.m), "dish_diameter: antennas .* closer than one dish diameter"),
-    (dict(dish_diameter=10 * u.m, primary_beam="cosine"), "primary_beam: expected one of"),
-    (dict(gain=1.5), r"gain: the loop gain must lie in \(0, 1\]"),
-    (dict(threshold=1.0), "threshold: expected a Quantity"),
-    (dict(antennas="/nonexistent/antennas.txt"), "does not exist"),
-])
+@pytest.mark.parametrize(
+    "kw, match",
+    [
+        (dict(antennas=np.zeros((4, 2)) * u.m), r"antennas: expected shape \(n, 3\)"),
+        (dict(antennas=np.zeros((3, 3, 1)) * u.m), r"antennas: expected shape \(n, 3\)"),
+        (dict(antennas=np.array([[0.0, 0, 0]]) * u.m), "at least 2 antennas, got 1"),
+        (dict(antennas=np.array([[0.0, 0, 0], [1, 0, 0]]) * u.s), "expected lengths"),
+        (dict(antennas=np.array([[0.0, 0, 0], [1, 0, 0]])), "expected a Quantity"),
+        (dict(antennas=np.array([[0.0, 0, 0], [5, 5, 0], [0, 0, 0]]) * u.m), "antennas 0 and 2 are at the same"),
+        (dict(antennas=np.array([[0.0, 0, 0], [np.nan, 0, 0]]) * u.m), "not finite"),
+        (dict(hour_angle_range=(4, -4) * u.hourangle), "hour_angle_range: start .* is after stop"),
+        (dict(hour_angle_range=(-13, 13) * u.hourangle), "more than the 24 h"),
+        (dict(hour_angle_range=(-4, 4) * u.m), "hour_angle_range: expected an angle"),
+        (dict(hour_angle_step=-1 * u.min), "hour_angle_step: must be positive"),
+        (dict(n_hour_angles=10), "give one of them, not both"),
+        (dict(latitude=95 * u.deg), r"latitude: must lie in \[-90.0, 90.0\]"),
+        (dict(latitude=35), "latitude: expected an angle"),
+        (dict(latitude=-80 * u.deg), "stays below min_elevation"),
+        (dict(weighting="briggs"), "weighting: expected one of natural, uniform, robust"),
+        (dict(dish_diameter=2000 * u.m), "dish_diameter: antennas .* closer than one dish diameter"),
+        (dict(dish_diameter=10 * u.m, primary_beam="cosine"), "primary_beam: expected one of"),
+        (dict(gain=1.5), r"gain: the loop gain must lie in \(0, 1\]"),
+        (dict(threshold=1.0), "threshold: expected a Quantity"),
+        (dict(antennas="/nonexistent/antennas.txt"), "does not exist"),
+    ],
+)
 def test_bad_input(kw, match):
     with pytest.raises(InputError, match=match):
         _call(**kw)
@@ -543,7 +626,7 @@ def test_warnings_for_horizon_and_coarse_track_sampling():
         _call(hour_angle_step=60 * u.min)
     with warnings.catch_warnings():
         warnings.simplefilter("error", SynthesisWarning)
-        _call()                                                  # the defaults used above are fine
+        _call()  # the defaults used above are fine
 
 
 def test_two_frequencies_scale_as_one_over_nu(tmp_path):
@@ -560,7 +643,7 @@ def test_two_frequencies_scale_as_one_over_nu(tmp_path):
     np.testing.assert_allclose(sm.flux_density().to_value(u.Jy), 1.0, rtol=0.01)
     path = sm.write_fits(tmp_path / "two.fits")
     with fits.open(path) as hdul:
-        assert "BEAMS" in hdul                          # one clean beam per plane
+        assert "BEAMS" in hdul  # one clean beam per plane
         np.testing.assert_allclose(hdul["BEAMS"].data["BMAJ"], [b.major.to_value(u.arcsec) for b in sm.beams])
 
 
@@ -573,6 +656,7 @@ def test_warns_without_sky_position():
 
 
 # -- the synthesized image's own grid ------------------------------------------------------------
+
 
 def test_default_grid_follows_the_array_and_keeps_the_flux(compact_result):
     # 5 pixels across lambda_min / B_max (a choice documented in rtrace.interferometer.grid), over the
@@ -624,17 +708,19 @@ def test_primary_beam_bounds_the_field_and_large_images_are_refused():
     # with dishes, the field is the primary beam's half-power width at the longest wavelength when
     # that is smaller than the model: FWHM = 1.13 lambda / D (the Gaussian default, common practice)
     res = _point_result(32, 32, 1.0, npix=64)
-    d = 300.0                                   # invented large dishes: a beam narrower than the model
-    sm = synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
-                    dish_diameter=d * u.m)
+    d = 300.0  # invented large dishes: a beam narrower than the model
+    sm = synthesize(
+        res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, dish_diameter=d * u.m
+    )
     hpbw = 1.13 * LAM_M / d
     assert hpbw < 64 * PIX.to_value(u.rad)
     assert sm.shape[-1] == max(32, math.ceil(hpbw / sm.pixel_scale.to_value(u.rad) - 1e-9))
     assert sm.primary_beam.shape == sm.shape
     # a grid of more than 1024 pixels on a side is an InputError before any transform
     with pytest.raises(InputError, match="image_size: the synthesized image would be"):
-        synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP,
-                   pixel_scale=0.01 * u.arcsec)
+        synthesize(
+            res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, pixel_scale=0.01 * u.arcsec
+        )
     with pytest.raises(InputError, match="image_size: expected an integer"):
         synthesize(res, antennas=ANTENNAS, latitude=LAT, hour_angle_range=HA, hour_angle_step=STEP, image_size=4)
     with pytest.raises(InputError, match="pixel_scale: expected one angle"):

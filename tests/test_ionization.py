@@ -49,9 +49,11 @@ def saha_factor(T, chi_ev, g_upper, g_lower):
 
 def saha_factors(T):
     """S for H I->II, He I->II, He II->III with g = 2,1 / 1,2 / 2,1."""
-    return (saha_factor(T, 13.598434, 1.0, 2.0),
-            saha_factor(T, 24.587389, 2.0, 1.0),
-            saha_factor(T, 54.417765, 1.0, 2.0))
+    return (
+        saha_factor(T, 13.598434, 1.0, 2.0),
+        saha_factor(T, 24.587389, 2.0, 1.0),
+        saha_factor(T, 54.417765, 1.0, 2.0),
+    )
 
 
 def species_given_ne(n_h, n_he, T, n_e):
@@ -84,16 +86,17 @@ def test_composition_defaults_and_number_densities():
     np.testing.assert_allclose(n_he, [4.21276, 4.21276e12], rtol=1e-5)
     assert n_h.dtype == np.float64 and n_h.shape == rho.shape
     # Quantity input in SI gives the same numbers.
-    np.testing.assert_allclose(
-        comp.hydrogen_number_density(rho * 1e3 * u.kg / u.m**3), n_h, rtol=1e-12)
+    np.testing.assert_allclose(comp.hydrogen_number_density(rho * 1e3 * u.kg / u.m**3), n_h, rtol=1e-12)
 
 
 @pytest.mark.parametrize(
     "kwargs, name",
-    [({"hydrogen": -0.1}, "hydrogen"),
-     ({"helium": 1.5}, "helium"),
-     ({"hydrogen": float("nan")}, "hydrogen"),
-     ({"hydrogen": 0.8, "helium": 0.3}, "X + Y")],
+    [
+        ({"hydrogen": -0.1}, "hydrogen"),
+        ({"helium": 1.5}, "helium"),
+        ({"hydrogen": float("nan")}, "hydrogen"),
+        ({"hydrogen": 0.8, "helium": 0.3}, "X + Y"),
+    ],
 )
 def test_composition_validation(kwargs, name):
     with pytest.raises(ValueError, match=name.replace("+", r"\+")):
@@ -166,18 +169,21 @@ def test_threshold_validation(bad):
         TemperatureThreshold(bad)
 
 
-@pytest.mark.parametrize("rho, T, name", [
-    (np.array([-1e-24]), np.array([1e4]), "rho"),
-    (np.array([np.nan]), np.array([1e4]), "rho"),
-    (np.array([1e-24]), np.array([np.inf]), "T"),
-    (np.array([1e-24]), np.array([-3.0]), "T"),
-])
+@pytest.mark.parametrize(
+    "rho, T, name",
+    [
+        (np.array([-1e-24]), np.array([1e4]), "rho"),
+        (np.array([np.nan]), np.array([1e4]), "rho"),
+        (np.array([1e-24]), np.array([np.inf]), "T"),
+        (np.array([1e-24]), np.array([-3.0]), "T"),
+    ],
+)
 def test_input_validation(rho, T, name):
     with pytest.raises(ValueError, match=rf"^{name}: 1 of 1 cells"):
         FullyIonized().electron_and_ion_terms(rho, T, {})
 
 
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # the equation, not its range
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # the equation, not its range
 def test_quantity_inputs_match_cgs():
     model = SahaEquilibrium()
     rho = np.array([1e-21, 1e-15])
@@ -247,7 +253,7 @@ def test_supplied_fraction_validation_counts_bad_cells():
 # ---------------------------------------------------------------------------
 
 
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # the equation, not its range
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # the equation, not its range
 def test_saha_pure_hydrogen_closed_form():
     # Pure hydrogen: n_e = n_HII = x n_H, so x^2 / (1 - x) = S(T) / n_H
     # (Saha equation, e.g. Rybicki & Lightman 1979, eq. 9.45, from memory),
@@ -280,18 +286,21 @@ def test_saha_pure_hydrogen_closed_form():
 
 def _brentq_ne(n_h, n_he, T):
     """Scalar charge-conservation root, independent of rtrace's solver."""
+
     def f(ln_ne):
         n_e = np.exp(ln_ne)
         n_hii, n_heii, n_heiii = species_given_ne(n_h, n_he, T, n_e)
         return np.log(n_hii + n_heii + 2.0 * n_heiii) - ln_ne
+
     # Upper end nudged above ln(n_H + 2 n_He): at full ionization f(ln N) is 0
     # up to rounding and may come out as +1 ulp.
-    return np.exp(brentq(f, np.log(1e-200 * (n_h + n_he)), np.log(n_h + 2 * n_he) + 1e-9,
-                         xtol=1e-14, rtol=1e-15, maxiter=500))
+    return np.exp(
+        brentq(f, np.log(1e-200 * (n_h + n_he)), np.log(n_h + 2 * n_he) + 1e-9, xtol=1e-14, rtol=1e-15, maxiter=500)
+    )
 
 
 @pytest.mark.parametrize("comp", [MIXED, PURE_HE, Composition(0.5, 0.5)])
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # the equation, not its range
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # the equation, not its range
 def test_saha_charge_conservation_and_independent_root(comp):
     # Charge conservation n_e = n_HII + n_HeII + 2 n_HeIII with Saha
     # populations (e.g. Rybicki & Lightman 1979, eq. 9.45, from memory).
@@ -323,7 +332,7 @@ def test_saha_charge_conservation_and_independent_root(comp):
         assert np.any((frac2 > 0.1) & (frac2 < 0.9))
 
 
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # the equation, not its range
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # the equation, not its range
 def test_saha_hot_limit_is_fully_ionized():
     # At 1e6 K and n ~ 1 cm^-3 every Saha factor is >~1e23 cm^-3, so H and He
     # are fully stripped: n_e = n_H + 2 n_He, ion term = n_H + 4 n_He.
@@ -335,7 +344,7 @@ def test_saha_hot_limit_is_fully_ionized():
     np.testing.assert_allclose(ion, n_h + 4 * n_he, rtol=1e-10)
 
 
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # the equation, not its range
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # the equation, not its range
 def test_saha_cold_limit_is_neutral():
     # At 1000 K, rho = 1e-10 g cm^-3 (n_H ~ 4e13) hydrogen is nearly neutral and
     # x^2/(1-x) = S/n_H gives n_e = sqrt(n_H S_H) (weak-ionization limit of the
@@ -412,8 +421,7 @@ def test_resolve_ionization_dispatch():
     sup = resolve_ionization(np.array([0.3, 0.6]))
     # helium follows the hydrogen fraction, singly ionized, by default
     assert isinstance(sup, SuppliedFraction) and sup.helium == "single"
-    assert isinstance(resolve_ionization(np.array([0.3]) * u.dimensionless_unscaled, helium="none"),
-                      SuppliedFraction)
+    assert isinstance(resolve_ionization(np.array([0.3]) * u.dimensionless_unscaled, helium="none"), SuppliedFraction)
     assert all(isinstance(m, IonizationModel) for m in (full, thr, saha, sup))
 
 
@@ -448,6 +456,7 @@ def test_mcwhirter_density():
     # McWhirter (1965), in the textbook form n_e >= 1.6e12 T^1/2 (Delta E/eV)^3 cm^-3 with Delta E = 10.2 eV
     # for hydrogen (from memory): 1.7e17 cm^-3 at 1e4 K, the order REFERENCES gives (~1e17).
     from rtrace.physics.ionization.saha import mcwhirter_density
+
     assert mcwhirter_density(1e4) == pytest.approx(1.6e12 * 100.0 * 10.2**3, rel=1e-12)
     assert 1e17 < mcwhirter_density(1e4) < 2e17
 
@@ -457,13 +466,13 @@ def test_saha_warns_at_interstellar_densities_and_names_the_alternatives():
     # n_H = 100 cm^-3 it ionizes hydrogen fully at 8000-20000 K, where collisional equilibrium leaves
     # it almost neutral below 1.5e4 K.
     rho = np.full(5, 100.0 * M_H / 0.7)
-    T = np.array([2000.0, 8000.0, 1e4, 1.5e4, 2e4])   # at 2000 K Saha too leaves n_e < 1e-3 n_H
+    T = np.array([2000.0, 8000.0, 1e4, 1.5e4, 2e4])  # at 2000 K Saha too leaves n_e < 1e-3 n_H
     model = SahaEquilibrium()
     with pytest.warns(PhysicsRangeWarning, match=r"saha: 4 of 5 cells \(80%\).*'collisional'.*'sources'"):
         model.electron_and_ion_terms(rho, T)
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        model.electron_and_ion_terms(rho, T)        # once per model, not on every evaluation
+        model.electron_and_ion_terms(rho, T)  # once per model, not on every evaluation
 
 
 @pytest.mark.parametrize("n_h, T", [(1e20, 1e4), (1e23, 1e6), (1e19, 3000.0)])
@@ -504,7 +513,11 @@ def test_supplied_helium_fractions():
     np.testing.assert_allclose(n_e2, x * n_h + 2 * f3 * n_he, rtol=1e-12)
     with pytest.raises(InputError, match="helium: not used when helium_ii"):
         SuppliedFraction(x, helium="single", helium_ii=f2)
-    with pytest.raises(InputError, match=r"helium_ii \+ helium_iii: 1 of 3 cells have He II \+ He III fractions "
-                                         r"above 1 \(largest 1.2\)"):
+    with pytest.raises(
+        InputError,
+        match=r"helium_ii \+ helium_iii: 1 of 3 cells have He II \+ He III fractions "
+        r"above 1 \(largest 1.2\)",
+    ):
         SuppliedFraction(x, helium_ii=f2, helium_iii=np.array([0.0, 0.9, 0.8])).electron_and_ion_terms(
-            rho, np.full(3, 1e4))
+            rho, np.full(3, 1e4)
+        )

@@ -1,6 +1,5 @@
 """Job files: validated in full before any work; errors name the key, the problem and a suggestion."""
 
-
 import astropy.units as u
 import numpy as np
 import pytest
@@ -20,24 +19,29 @@ def test_minimal_job_parses(tmp_path):
     assert job.output.directory == (tmp_path / "rtrace-output").resolve()
 
 
-@pytest.mark.parametrize("patch,message", [
-    (("[[view]]", "[[veiw]]"), r"unknown table '\[veiw\]' \(did you mean 'view'\?\)"),
-    (("cells = 16", "cels = 16"), r"\[snapshot\]: unknown key 'cels' \(did you mean 'cells'\?\)"),
-    (("npix = 16", "npix = 16\nwidht = '1 pc'"), r"unknown key 'widht' \(did you mean 'width'\?\)"),
-    (('distance = "1 kpc"', 'distance = "1 GHz"'), r"\[\[view\]\] #1.distance: '1 GHz' is not a length"),
-    (('distance = "1 kpc"', 'distance = "1000"'), r"distance: '1000' has no unit; expected a length"),
-    (('"5 GHz"', '"5 K"'), r"\[frequencies\].values\[1\]: '5 K' is not a frequency"),
-    (('kind = "demo"', 'kind = "hdf5"\npath = "nope.h5"\ntemperature = "T"\nelectron_density = "ne"'),
-     r"\[snapshot\].path: file not found"),
-    (('kind = "demo"', 'kind = "movie"'), r"\[snapshot\].kind: 'movie' is not 'demo', 'hdf5' or 'yt'"),
-    (("npix = 16", "npix = 16\nlos = [0, 0, 1]\nnorth = [0, 0, 1]"), r"'a': north: parallel to los"),
-])
+@pytest.mark.parametrize(
+    "patch,message",
+    [
+        (("[[view]]", "[[veiw]]"), r"unknown table '\[veiw\]' \(did you mean 'view'\?\)"),
+        (("cells = 16", "cels = 16"), r"\[snapshot\]: unknown key 'cels' \(did you mean 'cells'\?\)"),
+        (("npix = 16", "npix = 16\nwidht = '1 pc'"), r"unknown key 'widht' \(did you mean 'width'\?\)"),
+        (('distance = "1 kpc"', 'distance = "1 GHz"'), r"\[\[view\]\] #1.distance: '1 GHz' is not a length"),
+        (('distance = "1 kpc"', 'distance = "1000"'), r"distance: '1000' has no unit; expected a length"),
+        (('"5 GHz"', '"5 K"'), r"\[frequencies\].values\[1\]: '5 K' is not a frequency"),
+        (
+            ('kind = "demo"', 'kind = "hdf5"\npath = "nope.h5"\ntemperature = "T"\nelectron_density = "ne"'),
+            r"\[snapshot\].path: file not found",
+        ),
+        (('kind = "demo"', 'kind = "movie"'), r"\[snapshot\].kind: 'movie' is not 'demo', 'hdf5' or 'yt'"),
+        (("npix = 16", "npix = 16\nlos = [0, 0, 1]\nnorth = [0, 0, 1]"), r"'a': north: parallel to los"),
+    ],
+)
 def test_validation_errors(tmp_path, patch, message):
     old, new = patch
     assert old in BASE
     with pytest.raises(ConfigError, match=message):
         load_job(write(tmp_path, BASE.replace(old, new, 1)))
-    assert not (tmp_path / "rtrace-output").exists()          # nothing was written
+    assert not (tmp_path / "rtrace-output").exists()  # nothing was written
 
 
 def test_noise_needs_a_beam_and_matching_lengths(tmp_path):
@@ -61,12 +65,20 @@ def test_frequency_ranges_and_duplicates(tmp_path):
         load_job(write(tmp_path, BASE + '\n[[view]]\nname = "a"\n'))
 
 
-@pytest.mark.parametrize("start,stop,num,spacing,kind", [
-    ("0.3 GHz", "100 GHz", 6, "log", "log"), ("1 GHz", "100 GHz", 8, None, "log"),
-    ("90 GHz", "1 GHz", 5, "log", "log"), ("1 GHz", "20 GHz", 7, "linear", "linear"),
-    ("1.4 GHz", "43 GHz", 2, "log", "linear"), ("5 GHz", "5 GHz", 1, "log", "linear")])
+@pytest.mark.parametrize(
+    "start,stop,num,spacing,kind",
+    [
+        ("0.3 GHz", "100 GHz", 6, "log", "log"),
+        ("1 GHz", "100 GHz", 8, None, "log"),
+        ("90 GHz", "1 GHz", 5, "log", "log"),
+        ("1 GHz", "20 GHz", 7, "linear", "linear"),
+        ("1.4 GHz", "43 GHz", 2, "log", "linear"),
+        ("5 GHz", "5 GHz", 1, "log", "linear"),
+    ],
+)
 def test_frequency_ranges_are_exactly_regular(tmp_path, start, stop, num, spacing, kind):
     from rtrace.io.fits import AXIS_RTOL, spectral_layout
+
     lines = f'start = "{start}"\nstop = "{stop}"\nnum = {num}' + (f'\nspacing = "{spacing}"' if spacing else "")
     nu = load_job(write(tmp_path, BASE.replace('values = ["1 GHz", "5 GHz"]', lines))).frequencies.to_value(u.Hz)
     assert len(nu) == num
@@ -76,18 +88,19 @@ def test_frequency_ranges_are_exactly_regular(tmp_path, start, stop, num, spacin
         # geometric: equal ratios; even: equal steps, each to float64 rounding (common practice)
         steps = np.diff(np.log(nu)) if kind == "log" else np.diff(nu)
         assert np.allclose(steps, steps[0], rtol=1e-12, atol=0)
-    assert spectral_layout(nu * u.Hz) == kind            # so cubes get a FREQ or FREQ-LOG axis
+    assert spectral_layout(nu * u.Hz) == kind  # so cubes get a FREQ or FREQ-LOG axis
     assert AXIS_RTOL <= 1e-10
 
 
 def test_frequency_count_and_spectral_axis_checked(tmp_path):
-    for lines, message in [('start = "1 GHz"\nstop = "2 GHz"\nnum = 0', r"\[frequencies\].num: expected at least 1"),
-                           ('start = "1 GHz"\nstop = "2 GHz"\nnum = 1', r"\[frequencies\].num: one frequency")]:
+    for lines, message in [
+        ('start = "1 GHz"\nstop = "2 GHz"\nnum = 0', r"\[frequencies\].num: expected at least 1"),
+        ('start = "1 GHz"\nstop = "2 GHz"\nnum = 1', r"\[frequencies\].num: one frequency"),
+    ]:
         with pytest.raises(ConfigError, match=message):
             load_job(write(tmp_path, BASE.replace('values = ["1 GHz", "5 GHz"]', lines)))
     assert load_job(write(tmp_path, BASE)).output.spectral_axis == "auto"
-    assert load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "tabular"\n')).output.spectral_axis == \
-        "tabular"
+    assert load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "tabular"\n')).output.spectral_axis == "tabular"
     with pytest.raises(ConfigError, match=r"\[output\].spectral_axis: 'log' is not 'auto' .* or 'tabular'"):
         load_job(write(tmp_path, BASE + '\n[output]\nspectral_axis = "log"\n'))
     with pytest.raises(ConfigError, match=r"\[output\]: unknown key 'spectral_axes' \(did you mean 'spectral_axis'"):
@@ -103,6 +116,7 @@ def test_bad_toml_and_missing_file(tmp_path):
 
 def test_ionization_only_with_density():
     import tomllib
+
     raw = tomllib.loads(BASE + '\n[ionization]\nmodel = "saha"\n')
     with pytest.raises(ConfigError, match=r"\[ionization\]: only used with \[snapshot\].density"):
         parse_job(raw)
@@ -128,6 +142,7 @@ npix = 8
 def touch_files(tmp_path, *names):
     """Small HDF5 snapshots with the datasets HDF5 names (the job validator opens every member file)."""
     import h5py
+
     for name in names:
         (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
         with h5py.File(tmp_path / name, "w") as h5:
@@ -151,6 +166,7 @@ def test_member_files_are_opened_before_any_work(tmp_path):
 
 def h5py_file(path):
     import h5py
+
     return h5py.File(path, "a")
 
 
@@ -161,35 +177,44 @@ def test_pattern_is_sorted_and_relative_to_the_job_file(tmp_path):
     assert [m.label for m in job.snapshots] == ["snap_0003", "snap_0010", "snap_0020"]
     assert job.snapshots[0].path == (tmp_path / "run/snap_0003.h5").resolve()
     job = load_job(write(tmp_path, HDF5.format(source='paths = ["run/snap_0010.h5", "run/other.h5"]')))
-    assert [m.label for m in job.snapshots] == ["snap_0010", "other"]        # the order given
+    assert [m.label for m in job.snapshots] == ["snap_0010", "other"]  # the order given
     job = load_job(write(tmp_path, HDF5.format(source='path = "run/other.h5"')))
     assert not job.series and job.snapshots == (Member("other", path=(tmp_path / "run/other.h5").resolve()),)
 
 
-@pytest.mark.parametrize("source,message", [
-    ('pattern = "run/nothing_*.h5"', r"\[snapshot\].pattern: 'run/nothing_\*.h5' matches no file \(looked in "),
-    ('paths = ["run/a.h5", "run/missing.h5"]', r"\[snapshot\].paths\[1\]: file not found: .*missing.h5"),
-    ('paths = []', r"\[snapshot\].paths: expected a non-empty list"),
-    ('paths = ["run/a.h5", 3]', r"\[snapshot\].paths\[1\]: expected str, got int 3"),
-    ('paths = ["run/a.h5", "other/a.h5"]', r"two snapshots share the label 'a'"),
-    ('path = "run/a.h5"\npattern = "run/*.h5"', r"give one of 'path', 'paths' or 'pattern', not 'path' and 'pattern'"),
-    ('seeds = [1, 2]', r"\[snapshot\].seeds: only used with kind = 'demo'"),
-    ('patern = "run/*.h5"', r"unknown key 'patern' \(did you mean 'pattern'\?\)"),
-    ('', r"\[snapshot\]: 'path' is required when kind = 'hdf5' \(or 'paths' / 'pattern'"),
-])
+@pytest.mark.parametrize(
+    "source,message",
+    [
+        ('pattern = "run/nothing_*.h5"', r"\[snapshot\].pattern: 'run/nothing_\*.h5' matches no file \(looked in "),
+        ('paths = ["run/a.h5", "run/missing.h5"]', r"\[snapshot\].paths\[1\]: file not found: .*missing.h5"),
+        ("paths = []", r"\[snapshot\].paths: expected a non-empty list"),
+        ('paths = ["run/a.h5", 3]', r"\[snapshot\].paths\[1\]: expected str, got int 3"),
+        ('paths = ["run/a.h5", "other/a.h5"]', r"two snapshots share the label 'a'"),
+        (
+            'path = "run/a.h5"\npattern = "run/*.h5"',
+            r"give one of 'path', 'paths' or 'pattern', not 'path' and 'pattern'",
+        ),
+        ("seeds = [1, 2]", r"\[snapshot\].seeds: only used with kind = 'demo'"),
+        ('patern = "run/*.h5"', r"unknown key 'patern' \(did you mean 'pattern'\?\)"),
+        ("", r"\[snapshot\]: 'path' is required when kind = 'hdf5' \(or 'paths' / 'pattern'"),
+    ],
+)
 def test_series_errors(tmp_path, source, message):
     touch_files(tmp_path, "run/a.h5", "other/a.h5")
     with pytest.raises(ConfigError, match=message):
         load_job(write(tmp_path, HDF5.format(source=source)))
 
 
-@pytest.mark.parametrize("patch,message", [
-    ("seeds = [1, 1]", r"\[snapshot\].seeds: two snapshots share the label 'seed1'"),
-    ("seeds = []", r"\[snapshot\].seeds: expected a non-empty list"),
-    ("seeds = [1, 2.5]", r"\[snapshot\].seeds\[1\]: expected int, got float 2.5"),
-    ("seeds = [1, 2]\nseed = 3", r"give either 'seed' \(one demo snapshot\) or 'seeds'"),
-    ('pattern = "*.h5"', r"\[snapshot\].pattern: only used with kind = 'hdf5'"),
-])
+@pytest.mark.parametrize(
+    "patch,message",
+    [
+        ("seeds = [1, 1]", r"\[snapshot\].seeds: two snapshots share the label 'seed1'"),
+        ("seeds = []", r"\[snapshot\].seeds: expected a non-empty list"),
+        ("seeds = [1, 2.5]", r"\[snapshot\].seeds\[1\]: expected int, got float 2.5"),
+        ("seeds = [1, 2]\nseed = 3", r"give either 'seed' \(one demo snapshot\) or 'seeds'"),
+        ('pattern = "*.h5"', r"\[snapshot\].pattern: only used with kind = 'hdf5'"),
+    ],
+)
 def test_demo_series_errors(tmp_path, patch, message):
     with pytest.raises(ConfigError, match=message):
         load_job(write(tmp_path, BASE.replace("cells = 16", f"cells = 16\n{patch}")))
@@ -202,20 +227,26 @@ def test_demo_seeds_make_a_series(tmp_path):
     assert not single.series and single.parallel.as_dict() == {}
 
 
-@pytest.mark.parametrize("table,message", [
-    ('scheduler = "localhost:8786"', r"\[parallel\].scheduler: 'localhost:8786' is not a scheduler address of "
-                                     r"the form scheme://host:port"),
-    ('scheduler = "tcp://host:99999"', r"'tcp://host:99999' is not a scheduler address"),
-    ('scheduler = "tcp://host"', r"'tcp://host' is not a scheduler address"),
-    ("workers = 0", r"\[parallel\].workers: expected a positive number of workers, got 0"),
-    ("workers = true", r"\[parallel\].workers: expected int, got bool True"),
-    ('workers = "4"', r"\[parallel\].workers: expected int, got str '4'"),
-    ('workers = 2\nscheduler = "tcp://h:1"', r"\[parallel\]: give either 'scheduler' .* or 'workers' .*, not both"),
-    ('max_memory = "2 GHz"', r"\[parallel\].max_memory: '2 GHz' is not a memory size"),
-    ("max_memory = 2000", r"\[parallel\].max_memory: '2000' has no unit; expected a memory size"),
-    ('max_memory = "-1 GB"', r"\[parallel\].max_memory: must be a positive amount of memory"),
-    ("worker = 2", r"\[parallel\]: unknown key 'worker' \(did you mean 'workers'\?\)"),
-])
+@pytest.mark.parametrize(
+    "table,message",
+    [
+        (
+            'scheduler = "localhost:8786"',
+            r"\[parallel\].scheduler: 'localhost:8786' is not a scheduler address of "
+            r"the form scheme://host:port",
+        ),
+        ('scheduler = "tcp://host:99999"', r"'tcp://host:99999' is not a scheduler address"),
+        ('scheduler = "tcp://host"', r"'tcp://host' is not a scheduler address"),
+        ("workers = 0", r"\[parallel\].workers: expected a positive number of workers, got 0"),
+        ("workers = true", r"\[parallel\].workers: expected int, got bool True"),
+        ('workers = "4"', r"\[parallel\].workers: expected int, got str '4'"),
+        ('workers = 2\nscheduler = "tcp://h:1"', r"\[parallel\]: give either 'scheduler' .* or 'workers' .*, not both"),
+        ('max_memory = "2 GHz"', r"\[parallel\].max_memory: '2 GHz' is not a memory size"),
+        ("max_memory = 2000", r"\[parallel\].max_memory: '2000' has no unit; expected a memory size"),
+        ('max_memory = "-1 GB"', r"\[parallel\].max_memory: must be a positive amount of memory"),
+        ("worker = 2", r"\[parallel\]: unknown key 'worker' \(did you mean 'workers'\?\)"),
+    ],
+)
 def test_parallel_errors(tmp_path, table, message):
     with pytest.raises(ConfigError, match=message):
         load_job(write(tmp_path, BASE + f"\n[parallel]\n{table}\n"))
@@ -243,6 +274,7 @@ def test_background_temperature_is_read_for_the_tracer(tmp_path):
     from astropy.modeling.models import BlackBody
 
     from rtrace.transfer.background import background_from_spec
+
     job = load_job(write(tmp_path, BASE + '\n[trace]\nbackground = "20 K"\n'))
     assert job.trace.background == 20 * u.K
     nu = job.frequencies.to_value(u.Hz)
@@ -263,7 +295,10 @@ def test_plain_names_with_dots_and_dashes_are_accepted(tmp_path):
 
 def test_duplicate_frequencies_are_named(tmp_path):
     text = BASE.replace('values = ["1 GHz", "5 GHz"]', 'values = ["1 GHz", "5 GHz", "5000 MHz", "1 GHz"]')
-    with pytest.raises(ConfigError, match=r"\[frequencies\]\.values: 2 frequencies are given more than once "
-                                          r"\(1 GHz, 5 GHz\)"):
+    with pytest.raises(
+        ConfigError,
+        match=r"\[frequencies\]\.values: 2 frequencies are given more than once "
+        r"\(1 GHz, 5 GHz\)",
+    ):
         load_job(write(tmp_path, text))
     assert not (tmp_path / "rtrace-output").exists()

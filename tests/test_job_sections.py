@@ -110,8 +110,10 @@ def _grid(folder):
 
 def _image_keys(job):
     # the snapshot's own fingerprint is given, so the keys depend on the job's settings only
-    return [output_key(unit_inputs(job, job.snapshots[0], spec, source={"fixed": 1}), "images",
-                       observing_settings(job)) for spec in job.views]
+    return [
+        output_key(unit_inputs(job, job.snapshots[0], spec, source={"fixed": 1}), "images", observing_settings(job))
+        for spec in job.views
+    ]
 
 
 def test_manifest_keys_unchanged_by_typed_sections(tmp_path):
@@ -123,16 +125,21 @@ def test_manifest_keys_unchanged_by_typed_sections(tmp_path):
     _grid(tmp_path)
     assert _image_keys(parse_job(tomllib.loads(DEMO), tmp_path)) == [
         "47d195e151959b733d89aaf3d712d645e2a5e9ed978dca0530fa660c59456522",
-        "fd7d0d050c4efa10de40f1a4d93f679093a38809efb18f2d44a450fb3f38be37"]
+        "fd7d0d050c4efa10de40f1a4d93f679093a38809efb18f2d44a450fb3f38be37",
+    ]
     assert _image_keys(parse_job(tomllib.loads(HDF5), tmp_path)) == [
-        "0b0e9543e7b1cfc59d3a84d330fd65de293d5669065416716771d10b76251ba1"]
+        "0b0e9543e7b1cfc59d3a84d330fd65de293d5669065416716771d10b76251ba1"
+    ]
 
 
 def test_keys_follow_a_changed_setting(tmp_path):
     """The key is not blind: a different beam, trace setting or view gives a different key."""
     base = _image_keys(parse_job(tomllib.loads(DEMO), tmp_path))
-    for old, new in (('pa = "30 deg"', 'pa = "31 deg"'), ("tolerance = 0.02", "tolerance = 0.03"),
-                     ('npix = [24, 32]', 'npix = [24, 31]')):
+    for old, new in (
+        ('pa = "30 deg"', 'pa = "31 deg"'),
+        ("tolerance = 0.02", "tolerance = 0.03"),
+        ("npix = [24, 32]", "npix = [24, 31]"),
+    ):
         changed = _image_keys(parse_job(tomllib.loads(DEMO.replace(old, new)), tmp_path))
         assert changed != base, old
 
@@ -140,7 +147,10 @@ def test_keys_follow_a_changed_setting(tmp_path):
 def test_sections_as_dict_give_what_the_job_said(tmp_path):
     job = parse_job(tomllib.loads(DEMO), tmp_path)
     assert job.views[0].as_dict()["npix"] == [24, 32] and job.views[1].as_dict() == {
-        "npix": 16, "distance": 2 * u.kpc.to(u.cm) * u.cm, "name": "view2"}
+        "npix": 16,
+        "distance": 2 * u.kpc.to(u.cm) * u.cm,
+        "name": "view2",
+    }
     assert job.trace.as_dict() == {"background": 20 * u.K, "tolerance": 0.02}
     assert job.parallel.as_dict() == {"max_memory": 4 * 1024**3}
     assert job.ionization.as_dict() == {} and job.synthesis is None and job.comparison is None
@@ -156,14 +166,21 @@ def test_sections_as_dict_give_what_the_job_said(tmp_path):
 
 def test_job_and_sections_are_frozen(tmp_path):
     job = parse_job(tomllib.loads(DEMO), tmp_path)
-    for obj, name, value in ((job, "trace", None), (job, "text", "x"), (job.trace, "background", None),
-                             (job.views[0], "name", "b"), (job.beam, "major", 1 * u.arcsec),
-                             (job.output, "prefix", "q_"), (job.parallel, "workers", 2),
-                             (job.snapshot, "cells", 8), (job.noise, "seed", 1)):
+    for obj, name, value in (
+        (job, "trace", None),
+        (job, "text", "x"),
+        (job.trace, "background", None),
+        (job.views[0], "name", "b"),
+        (job.beam, "major", 1 * u.arcsec),
+        (job.output, "prefix", "q_"),
+        (job.parallel, "workers", 2),
+        (job.snapshot, "cells", 8),
+        (job.noise, "seed", 1),
+    ):
         with pytest.raises(dataclasses.FrozenInstanceError):
             setattr(obj, name, value)
     assert isinstance(job.views, tuple) and isinstance(job.snapshots, tuple)
-    assert isinstance(job.views[0].los, tuple)               # lists are kept as tuples: no change in place
+    assert isinstance(job.views[0].los, tuple)  # lists are kept as tuples: no change in place
     with pytest.raises(ValueError, match="read-only"):
         job.frequencies[0] = 2 * u.GHz
 
@@ -173,7 +190,7 @@ def test_override_parallel_returns_a_new_job(tmp_path):
     local = override_parallel(job, workers=2)
     assert local is not job and local.parallel == ParallelSection(workers=2, max_memory=4 * 1024**3)
     assert job.parallel == ParallelSection(max_memory=4 * 1024**3)
-    assert local.views is job.views                        # everything else is shared, not copied
+    assert local.views is job.views  # everything else is shared, not copied
 
 
 def _frequencies(table):
@@ -182,21 +199,42 @@ def _frequencies(table):
 
 # (parser, table as written, message the ConfigError must match): an unknown key and a bad value each
 _CASES = [
-    (lambda t: SnapshotSection.parse(t, "."), {"kind": "demo", "cels": 8},
-     r"\[snapshot\]: unknown key 'cels' \(did you mean 'cells'\?\)"),
-    (lambda t: SnapshotSection.parse(t, "."), {"kind": "demo", "cells": 1},
-     r"\[snapshot\]\.cells: the demo needs at least 2 cells per side, got 1"),
+    (
+        lambda t: SnapshotSection.parse(t, "."),
+        {"kind": "demo", "cels": 8},
+        r"\[snapshot\]: unknown key 'cels' \(did you mean 'cells'\?\)",
+    ),
+    (
+        lambda t: SnapshotSection.parse(t, "."),
+        {"kind": "demo", "cells": 1},
+        r"\[snapshot\]\.cells: the demo needs at least 2 cells per side, got 1",
+    ),
     (lambda t: SnapshotSection.parse(t, "."), {"kind": "fits"}, r"\[snapshot\]\.kind: 'fits' is not"),
-    (lambda t: IonizationSection.parse(t, SnapshotSection(kind="hdf5", density="rho")), {"modle": "full"},
-     r"\[ionization\]: unknown key 'modle' \(did you mean 'model'\?\)"),
-    (lambda t: IonizationSection.parse(t, SnapshotSection(kind="hdf5", density="rho")), {"model": "sahaa"},
-     r"\[ionization\]\.model: 'sahaa' \(did you mean 'saha'\?\)"),
-    (lambda t: IonizationSection.parse(t, SnapshotSection(kind="hdf5", density="rho")),
-     {"model": "full", "hydrogen_mass_fraction": 1.5}, r"\[ionization\]\.hydrogen_mass_fraction: a mass fraction"),
-    (lambda t: Source.parse(t, 0), {"position": ["0 pc", "0 pc", "0 pc"], "rate": "1e48 / s", "rte": 1},
-     r"\[ionization\]\.sources\[0\]: unknown key 'rte'"),
-    (lambda t: Source.parse(t, 1), {"position": ["0 pc", "0 pc", "0 pc"], "rate": "-1 / s"},
-     r"\[ionization\]\.sources\[1\]\.rate: must be finite and >= 0"),
+    (
+        lambda t: IonizationSection.parse(t, SnapshotSection(kind="hdf5", density="rho")),
+        {"modle": "full"},
+        r"\[ionization\]: unknown key 'modle' \(did you mean 'model'\?\)",
+    ),
+    (
+        lambda t: IonizationSection.parse(t, SnapshotSection(kind="hdf5", density="rho")),
+        {"model": "sahaa"},
+        r"\[ionization\]\.model: 'sahaa' \(did you mean 'saha'\?\)",
+    ),
+    (
+        lambda t: IonizationSection.parse(t, SnapshotSection(kind="hdf5", density="rho")),
+        {"model": "full", "hydrogen_mass_fraction": 1.5},
+        r"\[ionization\]\.hydrogen_mass_fraction: a mass fraction",
+    ),
+    (
+        lambda t: Source.parse(t, 0),
+        {"position": ["0 pc", "0 pc", "0 pc"], "rate": "1e48 / s", "rte": 1},
+        r"\[ionization\]\.sources\[0\]: unknown key 'rte'",
+    ),
+    (
+        lambda t: Source.parse(t, 1),
+        {"position": ["0 pc", "0 pc", "0 pc"], "rate": "-1 / s"},
+        r"\[ionization\]\.sources\[1\]\.rate: must be finite and >= 0",
+    ),
     (_frequencies, {"value": ["1 GHz"]}, r"\[frequencies\]: unknown key 'value' \(did you mean 'values'\?\)"),
     (_frequencies, {"values": ["1 GHz", "1 GHz"]}, r"\[frequencies\]\.values: 1 frequency is given more than once"),
     (TraceSection.parse, {"supersampel": 2}, r"\[trace\]: unknown key 'supersampel' \(did you mean 'supersample'"),
@@ -206,21 +244,36 @@ _CASES = [
     (parse_views, [{"name": "a"}, {"name": "A"}], r"\[\[view\]\] #2\.name: 'A' differs from view 'a' only in case"),
     (BeamSection.parse, {"major": "1 arcsec", "mnior": "1 arcsec"}, r"\[beam\]: unknown key 'mnior'"),
     (BeamSection.parse, {"major": "1 arcsec", "minor": "2 arcsec"}, r"\[beam\]\.minor: '2 arcsec' is larger than"),
-    (lambda t: NoiseSection.parse(t, BeamSection(major=1 * u.arcsec), [1, 2] * u.GHz), {"rsm": "1 mJy"},
-     r"\[noise\]: unknown key 'rsm' \(did you mean 'rms'\?\)"),
-    (lambda t: NoiseSection.parse(t, BeamSection(major=1 * u.arcsec), [1, 2] * u.GHz),
-     {"rms": ["1 mJy", "1 mJy", "1 mJy"]}, r"\[noise\]\.rms: 3 values for 2 frequencies"),
+    (
+        lambda t: NoiseSection.parse(t, BeamSection(major=1 * u.arcsec), [1, 2] * u.GHz),
+        {"rsm": "1 mJy"},
+        r"\[noise\]: unknown key 'rsm' \(did you mean 'rms'\?\)",
+    ),
+    (
+        lambda t: NoiseSection.parse(t, BeamSection(major=1 * u.arcsec), [1, 2] * u.GHz),
+        {"rms": ["1 mJy", "1 mJy", "1 mJy"]},
+        r"\[noise\]\.rms: 3 values for 2 frequencies",
+    ),
     (lambda t: OutputSection.parse(t, "."), {"prefx": "a"}, r"\[output\]: unknown key 'prefx' \(did you mean 'prefix'"),
     (lambda t: OutputSection.parse(t, "."), {"prefix": "../a"}, r"\[output\]\.prefix: '\.\./a' contains"),
     (ParallelSection.parse, {"worker": 2}, r"\[parallel\]: unknown key 'worker' \(did you mean 'workers'\?\)"),
     (ParallelSection.parse, {"workers": 0}, r"\[parallel\]\.workers: expected a positive number of workers, got 0"),
-    (lambda t: SynthesisSection.parse(t, ".", ["a"]), {"antenas": "x"},
-     r"\[synthesis\]: unknown key 'antenas' \(did you mean 'antennas'\?\)"),
+    (
+        lambda t: SynthesisSection.parse(t, ".", ["a"]),
+        {"antenas": "x"},
+        r"\[synthesis\]: unknown key 'antenas' \(did you mean 'antennas'\?\)",
+    ),
     (lambda t: SynthesisSection.parse(t, ".", ["a"]), {"latitude": "30 deg"}, r"\[synthesis\]: 'antennas' is required"),
-    (lambda t: ComparisonSection.parse(t, ".", ["a"], [1] * u.GHz), {"observaton": "x.fits"},
-     r"\[comparison\]: unknown key 'observaton' \(did you mean 'observation'\?\)"),
-    (lambda t: ComparisonSection.parse(t, ".", ["a"], [1] * u.GHz), {"observation": 3},
-     r"\[comparison\]\.observation: expected str, got int 3"),
+    (
+        lambda t: ComparisonSection.parse(t, ".", ["a"], [1] * u.GHz),
+        {"observaton": "x.fits"},
+        r"\[comparison\]: unknown key 'observaton' \(did you mean 'observation'\?\)",
+    ),
+    (
+        lambda t: ComparisonSection.parse(t, ".", ["a"], [1] * u.GHz),
+        {"observation": 3},
+        r"\[comparison\]\.observation: expected str, got int 3",
+    ),
 ]
 
 

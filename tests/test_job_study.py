@@ -24,9 +24,12 @@ from rtrace.errors import ConfigError
 from rtrace.run.job import load_job, run_job
 
 # ra, dec: a declination for the (u, v) tracks (without one, synthesis warns and uses 0)
-BASE = job_text(snapshot=demo(20), frequencies=TWO_FREQUENCIES,
-                view=view("small", 24, "2 kpc", ra="150 deg", dec="20 deg"),
-                output={"directory": "out", "quantities": ["intensity"]})
+BASE = job_text(
+    snapshot=demo(20),
+    frequencies=TWO_FREQUENCIES,
+    view=view("small", 24, "2 kpc", ra="150 deg", dec="20 deg"),
+    output={"directory": "out", "quantities": ["intensity"]},
+)
 
 STUDY = """
 [synthesis]
@@ -57,6 +60,7 @@ def _observed(tmp_path):
     job = load_job(_write(tmp_path, BASE, "base.toml"))
     from rtrace.run.inputs import build_snapshot
     from rtrace.run.job import build_views
+
     _, view = build_views(job)[0]
     res = rtrace.trace(build_snapshot(job, job.snapshots[0]), view, [10] * u.GHz)
     res.observe(beam=OBS_BEAM).write_fits(tmp_path / "observed.fits")
@@ -70,8 +74,7 @@ def study(tmp_path):
     res = _observed(tmp_path)
     # a DS9-format circle of 60 arcsec on the view's centre, read with the regions package
     c = res.sky_position
-    (tmp_path / "core.reg").write_text(f'# Region file format: DS9\nicrs\ncircle({c.ra.deg:.8f},{c.dec.deg:.8f},'
-                                       f'60")\n')
+    (tmp_path / "core.reg").write_text(f'# Region file format: DS9\nicrs\ncircle({c.ra.deg:.8f},{c.dec.deg:.8f},60")\n')
     return tmp_path
 
 
@@ -81,8 +84,14 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
     job_path = _write(study, BASE + STUDY)
     assert main(["run", str(job_path), "--quiet"]) == EXIT_OK
     out = study / "out"
-    for name in ("small_synthesized.fits", "small_synthesized.png", "small_comparison.fits",
-                 "small_comparison.png", "small_comparison.ecsv", "job.toml"):
+    for name in (
+        "small_synthesized.fits",
+        "small_synthesized.png",
+        "small_comparison.fits",
+        "small_comparison.png",
+        "small_comparison.ecsv",
+        "job.toml",
+    ):
         assert (out / name).stat().st_size > 0, name
     # the job is kept, byte for byte, with its outputs
     assert (out / "job.toml").read_text() == job_path.read_text()
@@ -99,7 +108,7 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
         expect_deg = math.degrees(299792458.0 / 10e9 / bmax / 5)
         assert abs(hdr["CDELT2"]) == pytest.approx(expect_deg, rel=1e-9)
     # the comparison: the observation is the same model through a known beam, so model / observed = 1
-    rows = Table.read(out / "small_comparison.ecsv")        # astropy ECSV reader: units and meta come back
+    rows = Table.read(out / "small_comparison.ecsv")  # astropy ECSV reader: units and meta come back
     assert rows.meta["background"].startswith("subtracted from the model")
     assert rows.colnames[:5] == ["aperture", "model", "observed", "residual", "ratio"]
     assert rows["model"].unit == u.Jy and rows["observed"].unit == u.Jy and rows["pixels"].unit == u.pix
@@ -108,37 +117,56 @@ def test_job_with_synthesis_and_comparison_runs_and_resumes(study):
     # a rerun finds every output finished and skips it
     again = run_job(load_job(job_path))
     assert list(again) == []
-    assert {p.split("/")[-1] for p in again.skipped} >= {"small_synthesized.fits", "small_comparison.ecsv",
-                                                        "job.toml"}
+    assert {p.split("/")[-1] for p in again.skipped} >= {"small_synthesized.fits", "small_comparison.ecsv", "job.toml"}
     # a changed antenna file redoes the synthesis outputs only
     (study / "five.txt").write_text(ANTENNAS + "200 200 0\n")
     third = run_job(load_job(job_path))
     assert sorted(p.split("/")[-1] for p in third) == ["small_synthesized.fits", "small_synthesized.png"]
 
 
-@pytest.mark.parametrize("extra, match", [
-    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nweigthing = "uniform"\n',
-     r"\[synthesis\]: unknown key 'weigthing' \(did you mean 'weighting'\?\)"),
-    ('[synthesis]\nantennas = "none.txt"\nlatitude = "35 deg"\n', r"\[synthesis\]\.antennas: file not found"),
-    ('[synthesis]\nantennas = "nounit.txt"\nlatitude = "35 deg"\n',
-     r"has no 'unit =' line; give \[synthesis\]\.antenna_unit"),
-    ('[synthesis]\nlatitude = "35 deg"\n', r"\[synthesis\]: 'antennas' is required"),
-    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nrobust = 0.5\n',
-     r"\[synthesis\]\.robust: only used with weighting = 'robust'"),
-    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nhour_angle_step = "5 m"\n',
-     r"\[synthesis\]\.hour_angle_step: '5 m' is not an angle"),
-    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 m"\n', r"\[synthesis\]\.latitude: '35 m' is not an angle"),
-    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nhour_angle_range = ["2 hourangle", "1 hourangle"]\n',
-     r"\[synthesis\]\.hour_angle_range: start .* is after stop"),
-    ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nweighting = "briggs"\n',
-     r"\[synthesis\]\.weighting: 'briggs' is not one of"),
-    ('[comparison]\nobservation = "observed.fits"\napertures = ["missing.reg"]\n',
-     r"\[comparison\]\.apertures\[0\]: file not found"),
-    ('[comparison]\nobservation = "observed.fits"\nfrequency = "20 GHz"\n',
-     r"\[comparison\]\.observation: observed at 20 GHz, outside the job's frequencies"),
-    ('[comparison]\nobservation = "observed.fits"\nveiws = ["small"]\n', r"did you mean 'views'"),
-    ('[comparison]\nobservation = "observed.fits"\nviews = ["smal"]\n', r"no view named 'smal'"),
-])
+@pytest.mark.parametrize(
+    "extra, match",
+    [
+        (
+            '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nweigthing = "uniform"\n',
+            r"\[synthesis\]: unknown key 'weigthing' \(did you mean 'weighting'\?\)",
+        ),
+        ('[synthesis]\nantennas = "none.txt"\nlatitude = "35 deg"\n', r"\[synthesis\]\.antennas: file not found"),
+        (
+            '[synthesis]\nantennas = "nounit.txt"\nlatitude = "35 deg"\n',
+            r"has no 'unit =' line; give \[synthesis\]\.antenna_unit",
+        ),
+        ('[synthesis]\nlatitude = "35 deg"\n', r"\[synthesis\]: 'antennas' is required"),
+        (
+            '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nrobust = 0.5\n',
+            r"\[synthesis\]\.robust: only used with weighting = 'robust'",
+        ),
+        (
+            '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nhour_angle_step = "5 m"\n',
+            r"\[synthesis\]\.hour_angle_step: '5 m' is not an angle",
+        ),
+        ('[synthesis]\nantennas = "five.txt"\nlatitude = "35 m"\n', r"\[synthesis\]\.latitude: '35 m' is not an angle"),
+        (
+            '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\n'
+            'hour_angle_range = ["2 hourangle", "1 hourangle"]\n',
+            r"\[synthesis\]\.hour_angle_range: start .* is after stop",
+        ),
+        (
+            '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\nweighting = "briggs"\n',
+            r"\[synthesis\]\.weighting: 'briggs' is not one of",
+        ),
+        (
+            '[comparison]\nobservation = "observed.fits"\napertures = ["missing.reg"]\n',
+            r"\[comparison\]\.apertures\[0\]: file not found",
+        ),
+        (
+            '[comparison]\nobservation = "observed.fits"\nfrequency = "20 GHz"\n',
+            r"\[comparison\]\.observation: observed at 20 GHz, outside the job's frequencies",
+        ),
+        ('[comparison]\nobservation = "observed.fits"\nveiws = ["small"]\n', r"did you mean 'views'"),
+        ('[comparison]\nobservation = "observed.fits"\nviews = ["smal"]\n', r"no view named 'smal'"),
+    ],
+)
 def test_study_sections_are_validated_before_tracing(study, extra, match):
     with pytest.raises(ConfigError, match=match):
         load_job(_write(study, BASE + extra))
@@ -147,9 +175,20 @@ def test_study_sections_are_validated_before_tracing(study, extra, match):
 def test_comparison_without_beam_names_the_job_key(tmp_path):
     # an observed image with no BMAJ/BMIN: the job error names the job key, the CLI error the flag
     hdu = fits.PrimaryHDU(np.ones((8, 8)))
-    hdu.header.update({"CTYPE1": "RA---SIN", "CTYPE2": "DEC--SIN", "CDELT1": -1e-3, "CDELT2": 1e-3,
-                       "CRPIX1": 4.5, "CRPIX2": 4.5, "CRVAL1": 0.0, "CRVAL2": 0.0, "BUNIT": "Jy/beam",
-                       "RESTFRQ": 5e9})
+    hdu.header.update(
+        {
+            "CTYPE1": "RA---SIN",
+            "CTYPE2": "DEC--SIN",
+            "CDELT1": -1e-3,
+            "CDELT2": 1e-3,
+            "CRPIX1": 4.5,
+            "CRPIX2": 4.5,
+            "CRVAL1": 0.0,
+            "CRVAL2": 0.0,
+            "BUNIT": "Jy/beam",
+            "RESTFRQ": 5e9,
+        }
+    )
     hdu.writeto(tmp_path / "nobeam.fits")
     with pytest.raises(ConfigError, match=r"pass \[comparison\]\.beam"):
         load_job(_write(tmp_path, BASE + '[comparison]\nobservation = "nobeam.fits"\n'))
@@ -157,8 +196,19 @@ def test_comparison_without_beam_names_the_job_key(tmp_path):
 
 def test_cli_messages_name_flags(tmp_path, capsys):
     hdu = fits.PrimaryHDU(np.ones((8, 8)))
-    hdu.header.update({"CTYPE1": "RA---SIN", "CTYPE2": "DEC--SIN", "CDELT1": -1e-3, "CDELT2": 1e-3,
-                       "CRPIX1": 4.5, "CRPIX2": 4.5, "CRVAL1": 0.0, "CRVAL2": 0.0, "BUNIT": "Jy/beam"})
+    hdu.header.update(
+        {
+            "CTYPE1": "RA---SIN",
+            "CTYPE2": "DEC--SIN",
+            "CDELT1": -1e-3,
+            "CDELT2": 1e-3,
+            "CRPIX1": 4.5,
+            "CRPIX2": 4.5,
+            "CRVAL1": 0.0,
+            "CRVAL2": 0.0,
+            "BUNIT": "Jy/beam",
+        }
+    )
     hdu.writeto(tmp_path / "bare.fits")
     main(["compare", str(tmp_path / "bare.fits"), str(tmp_path / "bare.fits"), "--output", str(tmp_path)])
     err = capsys.readouterr().err
@@ -167,8 +217,11 @@ def test_cli_messages_name_flags(tmp_path, capsys):
 
 def test_inspect_uses_the_job_frequencies(tmp_path, capsys):
     assert main(["inspect", str(_write(tmp_path, BASE))]) == EXIT_OK
-    rows = [line.split()[0] for line in capsys.readouterr().out.splitlines() if line.strip().endswith("GHz") is False
-            and "GHz" in line]
+    rows = [
+        line.split()[0]
+        for line in capsys.readouterr().out.splitlines()
+        if line.strip().endswith("GHz") is False and "GHz" in line
+    ]
     assert rows == ["1", "10"]
     assert main(["inspect", str(_write(tmp_path, BASE)), "--cells", "8"]) == EXIT_CONFIG
 
@@ -181,10 +234,13 @@ def test_a_synthesized_grid_too_large_is_refused_before_tracing(study):
     extra = '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\npixel_scale = "0.01 arcsec"\n'
     pos = np.loadtxt(study / "five.txt", comments=("#", "unit"))
     bmax = max(np.linalg.norm(a - b) for a in pos for b in pos)
-    field = max(206.2648, math.degrees(2 * 299792458.0 / 1e9 / bmax) * 3600)      # arcsec; c (SI definition)
+    field = max(206.2648, math.degrees(2 * 299792458.0 / 1e9 / bmax) * 3600)  # arcsec; c (SI definition)
     n = math.ceil(field / 0.01)
-    with pytest.raises(ConfigError, match=rf"\[synthesis\] for view 'small': image_size: the synthesized image "
-                                          rf"would be ({n}|{n - 1}|{n + 1}) x"):
+    with pytest.raises(
+        ConfigError,
+        match=rf"\[synthesis\] for view 'small': image_size: the synthesized image "
+        rf"would be ({n}|{n - 1}|{n + 1}) x",
+    ):
         load_job(_write(study, text + extra))
     extra = '[synthesis]\nantennas = "five.txt"\nlatitude = "35 deg"\ndish_diameter = "150 m"\n'
     with pytest.raises(ConfigError, match=r"\[synthesis\]\.dish_diameter: antennas 0 and 1 stand"):
@@ -196,6 +252,7 @@ def test_cut_messages_name_flags_before_tracing(tmp_path, capsys, monkeypatch):
 
     def no_trace(*args, **kwargs):
         raise AssertionError("not reached: the cut is refused before tracing")
+
     monkeypatch.setattr(package.transfer, "trace", no_trace)
     job = _write(tmp_path, BASE)
     assert main(["cut", str(job), "--start", "3, 4", "--end", "3, 4"]) == 4

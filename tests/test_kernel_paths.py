@@ -17,7 +17,7 @@ from rtrace.physics.planck import planck_cgs
 from rtrace.transfer import kernels
 from rtrace.transfer.tracer import FrequencyTables
 
-DS = 3.0e15     # cm (about 1e-3 pc)
+DS = 3.0e15  # cm (about 1e-3 pc)
 
 
 def direct(ne, temp, nu, forward):
@@ -41,10 +41,10 @@ def grid(rng, n=(6, 7, 40)):
     """float32 fields: smooth-ish random n_e and T, some neutral cells, one optically thick ray."""
     ne = rng.uniform(5.0, 205.0, n).astype(np.float32)
     temp = rng.uniform(5.0e3, 2.0e4, n).astype(np.float32)
-    ne[rng.random(n) < 0.2] = 0.0                   # neutral cells (temperature kept, not used)
-    ne[0, 0, :] = 0.0                               # a ray with no emitting cell
-    ne[1, 2, 5:9] = 3.0e5                           # dtau > SERIES_LIMIT at 5 GHz: the cell-by-cell path
-    temp[2, 3, 10] = 50.0                           # h nu / kT > SERIES_LIMIT at 5 GHz: the same
+    ne[rng.random(n) < 0.2] = 0.0  # neutral cells (temperature kept, not used)
+    ne[0, 0, :] = 0.0  # a ray with no emitting cell
+    ne[1, 2, 5:9] = 3.0e5  # dtau > SERIES_LIMIT at 5 GHz: the cell-by-cell path
+    temp[2, 3, 10] = 50.0  # h nu / kT > SERIES_LIMIT at 5 GHz: the same
     return ne, temp
 
 
@@ -60,9 +60,9 @@ def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu, dtype):
     inten, tau, em = direct(ne, temp, nu, forward)
     assert out_i[0, 0, 0] == 0.0 and out_tau[0, 0, 0] == 0.0 and out_em[0, 0] == 0.0
     if nu < 1e10:
-        assert tau[1, 2] > 1.0                      # the thick ray really is thick at 5 GHz
+        assert tau[1, 2] > 1.0  # the thick ray really is thick at 5 GHz
     else:
-        assert np.all(4.8e-11 * nu / temp > 1e-3)   # h nu / kT (h/k ~ 4.8e-11 K s, from memory): no radio series
+        assert np.all(4.8e-11 * nu / temp > 1e-3)  # h nu / kT (h/k ~ 4.8e-11 K s, from memory): no radio series
     # the Gaunt factor comes from a table in ln T (linear interpolation), the opacity factor from one linear in
     # T between nodes 2^-10 apart (rtrace.transfer.ttable): together below 1e-6 relative
     np.testing.assert_allclose(out_tau[0], tau, rtol=1e-6, atol=0)
@@ -74,7 +74,7 @@ def test_one_frequency_kernel_matches_direct_transfer(rng, forward, nu, dtype):
 def test_several_frequency_kernel_matches_direct_transfer(rng, forward):
     # frequencies where the grid's thick ray is thick (1 GHz), thin radio (5, 30 GHz), and h nu / kT above the
     # radio series' limit in every cell (1 THz): each cell's vectorised and exact paths against the direct sum
-    ne, temp = grid(rng, n=(5, 9, 33))             # 9 rays a row: the single-frequency kernel's group of 8 and a tail
+    ne, temp = grid(rng, n=(5, 9, 33))  # 9 rays a row: the single-frequency kernel's group of 8 and a tail
     nus = np.array([1.0e9, 5.0e9, 3.0e10, 1.0e12])
     tables = FrequencyTables(nus)
     out_i, out_tau = np.zeros((nus.size,) + ne.shape[:2]), np.zeros((nus.size,) + ne.shape[:2])
@@ -88,8 +88,9 @@ def test_several_frequency_kernel_matches_direct_transfer(rng, forward):
     # the single-frequency kernel agrees with the several-frequency one at each frequency
     for f in range(nus.size):
         one_i, one_tau, one_em = np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2]), np.zeros(ne.shape[:2])
-        kernels.one_frequency_along_last_axis(ne, ne, temp, DS, forward, *FrequencyTables(nus[f:f + 1]).args(),
-                                              one_i, one_tau, one_em)
+        kernels.one_frequency_along_last_axis(
+            ne, ne, temp, DS, forward, *FrequencyTables(nus[f : f + 1]).args(), one_i, one_tau, one_em
+        )
         np.testing.assert_allclose(one_i[0], out_i[f], rtol=1e-6, atol=0)
         np.testing.assert_allclose(one_tau[0], out_tau[f], rtol=1e-6, atol=0)
 
@@ -103,9 +104,9 @@ def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus
     nus = np.array(nus)
     n = 60
     ne = rng.uniform(5.0, 205.0, n)
-    ni = ne * np.where(rng.random(n) < 0.3, 1.1, 1.0)          # ion term above n_e: He III present
+    ni = ne * np.where(rng.random(n) < 0.3, 1.1, 1.0)  # ion term above n_e: He III present
     temp = rng.uniform(5.0e3, 2.0e4, n)
-    temp[4] = 50.0                                              # h nu / kT > SERIES_LIMIT at 1 THz
+    temp[4] = 50.0  # h nu / kT > SERIES_LIMIT at 1 THz
     ne[rng.random(n) < 0.2] = 0.0
     ni[ne == 0] = 0.0
     tables = FrequencyTables(nus)
@@ -115,8 +116,9 @@ def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus
     share = np.array([kernels._helium3_share(a, b) for a, b in zip(ne, ni, strict=True)])
     x_row = (np.log(temp) - log_t0) * inv_dlog_t
     kap, src = np.full(n * nus.size, np.nan), np.full(n * nus.size, np.nan)
-    kmax = kernels._row_coefficients(0, n - 1, nn, share, temp, x_row, gtab, gtab_t, hk, float(hk.max()),
-                                     alpha_pref, b_pref, kap, src)
+    kmax = kernels._row_coefficients(
+        0, n - 1, nn, share, temp, x_row, gtab, gtab_t, hk, float(hk.max()), alpha_pref, b_pref, kap, src
+    )
     kap, src = kap.reshape(n, nus.size), src.reshape(n, nus.size)
     on = nn > 0
     assert share.max() > 0 and not on.all()
@@ -130,8 +132,9 @@ def test_oblique_row_coefficients_match_the_physics_and_the_cell_helper(rng, nus
     assert kmax == kap.max()
     for c in np.flatnonzero(on):
         k1, s1 = np.empty(nus.size), np.empty(nus.size)
-        kernels._cell_coefficients(nn[c], share[c], temp[c], log_t0, inv_dlog_t, gtab, gtab_t, hk, float(hk.max()),
-                                   alpha_pref, b_pref, k1, s1)
+        kernels._cell_coefficients(
+            nn[c], share[c], temp[c], log_t0, inv_dlog_t, gtab, gtab_t, hk, float(hk.max()), alpha_pref, b_pref, k1, s1
+        )
         np.testing.assert_allclose(kap[c], k1, rtol=1e-13, atol=0)
         np.testing.assert_allclose(src[c], s1, rtol=1e-13, atol=0)
 
@@ -146,15 +149,28 @@ def test_oblique_radio_row_matches_the_physics_and_the_general_row_pass(rng, nu)
     ne = rng.uniform(5.0, 205.0, n)
     temp = rng.uniform(5.0e3, 2.0e4, n)
     ne[rng.random(n) < 0.2] = 0.0
-    temp[ne == 0] = 1.0e4                                       # what the sweep's row buffer holds there
+    temp[ne == 0] = 1.0e4  # what the sweep's row buffer holds there
     tables = FrequencyTables(np.array([nu]))
     log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, _ = tables.args()
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     nn = ne * ne
     x_row = (np.log(temp) - log_t0) * inv_dlog_t
     kap, src = np.full(n, np.nan), np.full(n, np.nan)
-    kmax = kernels._radio_row(n, nn, temp, x_row, gtab_t, hk[0], alpha_pref[0], b_pref[0, 0], b_pref[1, 0],
-                              np.empty(n, np.int64), np.empty(n), kap, src)
+    kmax = kernels._radio_row(
+        n,
+        nn,
+        temp,
+        x_row,
+        gtab_t,
+        hk[0],
+        alpha_pref[0],
+        b_pref[0, 0],
+        b_pref[1, 0],
+        np.empty(n, np.int64),
+        np.empty(n),
+        kap,
+        src,
+    )
     on = nn > 0
     assert 0 < on.sum() < n
     assert np.all(kap[~on] == 0.0) and np.all(src[~on] == 0.0)
@@ -163,7 +179,8 @@ def test_oblique_radio_row_matches_the_physics_and_the_general_row_pass(rng, nu)
     assert kmax == kap.max()
     k2, s2 = np.full(n, np.nan), np.full(n, np.nan)
     first, last = np.flatnonzero(on)[[0, -1]]
-    kmax2 = kernels._row_coefficients(first, last, nn, np.zeros(n), temp, x_row, gtab, gtab_t, hk, float(hk.max()),
-                                      alpha_pref, b_pref, k2, s2)
-    assert np.array_equal(kap[first:last + 1], k2[first:last + 1]) and kmax2 == kmax
-    assert np.array_equal(src[first:last + 1], s2[first:last + 1])
+    kmax2 = kernels._row_coefficients(
+        first, last, nn, np.zeros(n), temp, x_row, gtab, gtab_t, hk, float(hk.max()), alpha_pref, b_pref, k2, s2
+    )
+    assert np.array_equal(kap[first : last + 1], k2[first : last + 1]) and kmax2 == kmax
+    assert np.array_equal(src[first : last + 1], s2[first : last + 1])

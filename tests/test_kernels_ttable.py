@@ -46,8 +46,7 @@ def test_node_and_weight_give_back_the_temperature(rng, dtype):
 
 def _rybicki_lightman(nu, temp):
     """alpha_nu / (n_e n_i) for Z = 1 (cm5): R&L (1979) eq. 5.18a, constants from astropy (cgs, Gaussian)."""
-    e, m, h, c, k = (const.e.esu.value, const.m_e.cgs.value, const.h.cgs.value, const.c.cgs.value,
-                     const.k_B.cgs.value)
+    e, m, h, c, k = (const.e.esu.value, const.m_e.cgs.value, const.h.cgs.value, const.c.cgs.value, const.k_B.cgs.value)
     pref = 4.0 * e**6 / (3.0 * m * h * c) * math.sqrt(2.0 * math.pi / (3.0 * k * m))
     return pref * temp**-0.5 * nu**-3 * -np.expm1(-h * nu / (k * temp)) * gaunt_cgs(nu, temp)
 
@@ -64,16 +63,16 @@ def test_table_matches_the_free_free_opacity(rng):
         # (< 2e-7, ttable's docstring): 1e-6 allowed
         np.testing.assert_allclose(ours, _rybicki_lightman(nu, temp), rtol=1e-6, atol=0)
         assert np.all(bound[node] >= np.maximum(table[node, 0, f], table[node, 0, f] + table[node, 1, f]))
-    assert np.all(table[(33 << ttable.NODE_BITS):] == 0.0)        # past T_TOP: nothing (the exact path)
+    assert np.all(table[(33 << ttable.NODE_BITS) :] == 0.0)  # past T_TOP: nothing (the exact path)
 
 
 def _fields(rng, dtype, shape=(5, 9, 33)):
     ne = rng.uniform(5.0, 205.0, shape)
     temp = np.exp(rng.uniform(math.log(3.0e3), math.log(3.0e4), shape))
     ne[rng.random(shape) < 0.2] = 0.0
-    ne[1, 2, 5:9] = 3.0e5                           # optically thick cells at 1 GHz: the exact path
-    temp[2, 3, 10] = 50.0                           # h nu / kT above the radio series at 1 THz
-    temp[3, 4, 12] = 9.0e9                          # above T_TOP: the exact path
+    ne[1, 2, 5:9] = 3.0e5  # optically thick cells at 1 GHz: the exact path
+    temp[2, 3, 10] = 50.0  # h nu / kT above the radio series at 1 THz
+    temp[3, 4, 12] = 9.0e9  # above T_TOP: the exact path
     return ne.astype(dtype), temp.astype(dtype)
 
 
@@ -91,19 +90,21 @@ def test_axis_kernels_agree_for_both_precisions(rng, forward):
         last = [np.zeros(shape), np.zeros(shape), np.zeros(ne.shape[:2])]
         kernels.trace_along_last_axis(ne, ne, temp, 3.0e15, forward, *tables.args(), *last)
         mid = [np.zeros(shape), np.zeros(shape), np.zeros(ne.shape[:2])]
-        kernels.trace_along_middle_axis(*(x.transpose(0, 2, 1) for x in (ne, ne, temp)), 3.0e15, forward,
-                                        *tables.args(), *mid)
+        kernels.trace_along_middle_axis(
+            *(x.transpose(0, 2, 1) for x in (ne, ne, temp)), 3.0e15, forward, *tables.args(), *mid
+        )
         for f in range(nus.size):
             one = [np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2]), np.zeros(ne.shape[:2])]
-            kernels.one_frequency_along_last_axis(ne, ne, temp, 3.0e15, forward, *FrequencyTables(nus[f:f + 1]).args(),
-                                                  *one)
+            kernels.one_frequency_along_last_axis(
+                ne, ne, temp, 3.0e15, forward, *FrequencyTables(nus[f : f + 1]).args(), *one
+            )
             # a ray with any cell off the table's path is redone cell by cell with the Gaunt table in ln T by the
             # single-frequency kernel, but only that cell by the others: the table's ~2e-7 apart
             np.testing.assert_allclose(one[0][0], last[0][f], rtol=1e-6, atol=0)
             np.testing.assert_allclose(one[1][0], last[1][f], rtol=1e-6, atol=0)
         for a, b in zip(last, mid, strict=True):
             np.testing.assert_allclose(a, b, rtol=1e-12, atol=0)
-        assert last[1][0, 1, 2] > 1.0               # the thick ray is thick at 1 GHz
+        assert last[1][0, 1, 2] > 1.0  # the thick ray is thick at 1 GHz
         found[dtype] = last
     for a, b in zip(found[np.float32], found[np.float64], strict=True):
         np.testing.assert_allclose(a, b, rtol=1e-5, atol=0)
@@ -119,11 +120,10 @@ def test_many_frequencies_are_traced_in_chunks(rng):
     last = [np.zeros(shape), np.zeros(shape), np.zeros(ne.shape[:2])]
     kernels.trace_along_last_axis(ne, ne, temp, 3.0e15, True, *tables.args(), *last)
     mid = [np.zeros(shape), np.zeros(shape), np.zeros(ne.shape[:2])]
-    kernels.trace_along_middle_axis(*(x.transpose(0, 2, 1) for x in (ne, ne, temp)), 3.0e15, True, *tables.args(),
-                                    *mid)
+    kernels.trace_along_middle_axis(*(x.transpose(0, 2, 1) for x in (ne, ne, temp)), 3.0e15, True, *tables.args(), *mid)
     for f in (0, ttable.FREQUENCY_CHUNK - 1, ttable.FREQUENCY_CHUNK, nus.size - 1):
         one = [np.zeros((1,) + ne.shape[:2]), np.zeros((1,) + ne.shape[:2]), np.zeros(ne.shape[:2])]
-        kernels.one_frequency_along_last_axis(ne, ne, temp, 3.0e15, True, *FrequencyTables(nus[f:f + 1]).args(), *one)
+        kernels.one_frequency_along_last_axis(ne, ne, temp, 3.0e15, True, *FrequencyTables(nus[f : f + 1]).args(), *one)
         for got in (last, mid):
             np.testing.assert_allclose(got[0][f], one[0][0], rtol=1e-6, atol=0)
             np.testing.assert_allclose(got[1][f], one[1][0], rtol=1e-6, atol=0)

@@ -21,14 +21,34 @@ import pathlib
 ROOT = pathlib.Path(__file__).resolve().parents[1] / "rtrace"
 
 LAYERS = [
-    ("core", ["rtrace._version", "rtrace.errors", "rtrace.quantities", "rtrace.memory", "rtrace.compiling",
-              "rtrace.physics"]),
-    ("snapshot", ["rtrace.gas", "rtrace.snapshot", "rtrace.amr", "rtrace.io.hdf5", "rtrace.io.lazy",
-                  "rtrace.io.ytdata", "rtrace.io.atomic", "rtrace.io.outdir", "rtrace.io.tables"]),
+    (
+        "core",
+        [
+            "rtrace._version",
+            "rtrace.errors",
+            "rtrace.quantities",
+            "rtrace.memory",
+            "rtrace.compiling",
+            "rtrace.physics",
+        ],
+    ),
+    (
+        "snapshot",
+        [
+            "rtrace.gas",
+            "rtrace.snapshot",
+            "rtrace.amr",
+            "rtrace.io.hdf5",
+            "rtrace.io.lazy",
+            "rtrace.io.ytdata",
+            "rtrace.io.atomic",
+            "rtrace.io.outdir",
+            "rtrace.io.tables",
+        ],
+    ),
     ("transfer", ["rtrace.transfer"]),
     ("result", ["rtrace.transfer.result", "rtrace.transfer.high_level"]),
-    ("products", ["rtrace.observe", "rtrace.analysis", "rtrace.comparison", "rtrace.interferometer",
-                  "rtrace.io.fits"]),
+    ("products", ["rtrace.observe", "rtrace.analysis", "rtrace.comparison", "rtrace.interferometer", "rtrace.io.fits"]),
     ("plot", ["rtrace.plot"]),
     ("run", ["rtrace.run", "rtrace.demo"]),
     ("cli", ["rtrace.cli"]),
@@ -82,7 +102,7 @@ def _imports(mods, lazy_only=None):
             elif isinstance(node, ast.ImportFrom):
                 base = node.module or ""
                 if node.level:
-                    up = package[:len(package) - (node.level - 1)]
+                    up = package[: len(package) - (node.level - 1)]
                     base = ".".join(up + ([node.module] if node.module else []))
                 targets = [f"{base}.{a.name}" if f"{base}.{a.name}" in mods else base for a in node.names]
             for target in targets:
@@ -115,14 +135,14 @@ def test_imports_go_one_way():
     upward, lazy = set(), {}
     for name, targets in _imports(mods, lazy).items():
         if mods[name][1]:
-            continue                                       # package __init__: re-exports
+            continue  # package __init__: re-exports
         for target in targets:
             if target == "rtrace":
-                upward.add((name, target))                 # the package root re-exports everything
-            elif _layer(target) > _layer(name):                # a package's __init__ counts as the package
+                upward.add((name, target))  # the package root re-exports everything
+            elif _layer(target) > _layer(name):  # a package's __init__ counts as the package
                 upward.add((name, target))
             elif name == "rtrace.snapshot" and target.startswith("rtrace.io."):
-                upward.add((name, target))                 # the data model does not import its readers
+                upward.add((name, target))  # the data model does not import its readers
     allowed = set(CONVENIENCES)
     new = sorted(upward - allowed)
     gone = sorted(allowed - upward)
@@ -137,8 +157,11 @@ def test_no_import_cycles_beyond_the_known_ones():
     # package __init__ targets and without the listed upward imports: what is left must be acyclic
     mods = _modules()
     allowed = set(CONVENIENCES)
-    edges = {m: {t for t in ts if not mods[t][1] and (m, t) not in allowed}
-             for m, ts in _imports(mods).items() if not mods[m][1]}
+    edges = {
+        m: {t for t in ts if not mods[t][1] and (m, t) not in allowed}
+        for m, ts in _imports(mods).items()
+        if not mods[m][1]
+    }
     index, low, stack, on_stack, cycles, counter = {}, {}, [], set(), [], [0]
 
     def strong(v):
@@ -180,7 +203,7 @@ def test_no_module_takes_a_private_name_from_another_package():
                 continue
             base = node.module or ""
             if node.level:
-                base = ".".join(package[:len(package) - (node.level - 1)] + ([node.module] if node.module else []))
+                base = ".".join(package[: len(package) - (node.level - 1)] + ([node.module] if node.module else []))
             if not base.startswith("rtrace"):
                 continue
             source_package = base if base in _modules() and _modules()[base][1] else base.rsplit(".", 1)[0]

@@ -21,7 +21,7 @@ import rtrace
 from rtrace.physics.freefree import absorption_cgs, emission_cgs
 from rtrace.transfer.result import PixelAccuracyWarning
 
-FLOOR = 1e-2          # pixels compared: where the reference has converged (see test_pixel_accuracy)
+FLOOR = 1e-2  # pixels compared: where the reference has converged (see test_pixel_accuracy)
 # The reference's own quadrature error on those pixels: 64 and 128 sub-rays per pixel side differ by
 # up to 0.5% (test_pixel_accuracy.test_reference_converges_with_more_sub_rays), so agreement is
 # checked to 1%; the exactness of the projection itself to 1e-4 is checked in test_footprint.py.
@@ -32,9 +32,13 @@ PIXEL_CELLS = [(1.6, 64), (4.0, 128)]
 @pytest.fixture(scope="module")
 def grid():
     ne, t = _grid()
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=CELL * u.cm,
-                                       electron_density=ne * u.cm**-3, ion_density=ne * u.cm**-3,
-                                       dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K,
+        cell_size=CELL * u.cm,
+        electron_density=ne * u.cm**-3,
+        ion_density=ne * u.cm**-3,
+        dtype=np.float64,
+    )
     alpha = np.stack([absorption_cgs(nu, t, ne, ne).ravel() for nu in NU])
     source = np.stack([emission_cgs(nu, t, ne, ne).ravel() for nu in NU]) / alpha
     return snap, ne, t, alpha, source
@@ -42,8 +46,7 @@ def grid():
 
 def _view(los, north, pix_cells):
     npix = int(np.ceil(21.0 / pix_cells))
-    return rtrace.View(los=los, north=north, npix=npix, width=npix * pix_cells * CELL * u.cm,
-                       distance=1 * u.kpc), npix
+    return rtrace.View(los=los, north=north, npix=npix, width=npix * pix_cells * CELL * u.cm, distance=1 * u.kpc), npix
 
 
 def _worst(got, ref):
@@ -142,6 +145,7 @@ def test_refined_rays_cover_their_pixels(grid, pix_cells):
     # coverage, common practice)
     from rtrace.transfer import oblique_split as split
     from rtrace.transfer.tracer import FrequencyTables, _ObliqueRoute
+
     snap = grid[0]
     los, north = DIRECTIONS[1]
     view, _ = _view(los, north, pix_cells)
@@ -165,22 +169,26 @@ def test_refinement_stops_where_the_next_lattice_does_not_fit(grid, monkeypatch)
     # error: the coarser images are still valid)
     from rtrace.errors import InputError
     from rtrace.transfer import oblique_split, tracer
+
     snap = grid[0]
     view, _ = _view(*DIRECTIONS[0], 1.6)
     with monkeypatch.context() as patch:
-        patch.setattr(tracer, "MAX_SUPERSAMPLE", 1)             # the first lattice alone
+        patch.setattr(tracer, "MAX_SUPERSAMPLE", 1)  # the first lattice alone
         first = _trace(snap, view, tolerance=1e-3)
 
     real = oblique_split.check_memory
 
     def refuse(need, *, field, what, hint, budget=None):
-        if "rays of" in what:               # the refined rays; the per-cell state passes
+        if "rays of" in what:  # the refined rays; the per-cell state passes
             raise InputError(f"{field}: {what}: not enough memory (test)")
         return real(need, field=field, what=what, hint=hint, budget=budget)
 
     monkeypatch.setattr(oblique_split, "check_memory", refuse)
-    with pytest.warns(PixelAccuracyWarning, match=r"at supersample=1, not the 0.001 asked for \(the \d+ rays of "
-                                                  r"the next lattice \(2 per cell side\) would not fit in memory\)"):
+    with pytest.warns(
+        PixelAccuracyWarning,
+        match=r"at supersample=1, not the 0.001 asked for \(the \d+ rays of "
+        r"the next lattice \(2 per cell side\) would not fit in memory\)",
+    ):
         res = rtrace.trace(snap, view, NU * u.Hz, tolerance=1e-3)
     assert not res.pixel_error.converged and res.pixel_error.supersample == 1
     assert res.pixel_error.max_relative > 1e-3
@@ -193,6 +201,7 @@ def test_per_cell_state_only_for_emitting_blocks():
     from rtrace.transfer.kernels import emitting_blocks
     from rtrace.transfer.linearized import block_slots
     from rtrace.transfer.oblique_split import split_state_bytes
+
     nn = np.zeros((20, 17, 9))
     nn[2, 3, 4] = nn[15, 16, 8] = 1.0
     blocks = emitting_blocks(nn)
@@ -208,8 +217,14 @@ def test_job_tolerance_key(tmp_path):
     from astropy.io import fits
 
     from rtrace.cli import EXIT_CONFIG, EXIT_OK, main
-    job = job_text(snapshot=demo(16), frequencies=TWO_FREQUENCIES, trace={"tolerance": 0.2},
-                   view=view("tilted", 12, "2 kpc", los=[1, 2, 3]), output={"directory": "out", "pictures": False})
+
+    job = job_text(
+        snapshot=demo(16),
+        frequencies=TWO_FREQUENCIES,
+        trace={"tolerance": 0.2},
+        view=view("tilted", 12, "2 kpc", los=[1, 2, 3]),
+        output={"directory": "out", "pictures": False},
+    )
     path = tmp_path / "job.toml"
     path.write_text(job)
     with warnings.catch_warnings():

@@ -17,10 +17,10 @@ from rtrace.observe.beam import BeamKernel
 from rtrace.physics.planck import planck_cgs
 from rtrace.transfer.result import Result
 
-PIX = 1.0 * u.arcsec            # pixel scale of the synthetic Results
+PIX = 1.0 * u.arcsec  # pixel scale of the synthetic Results
 DIST = 1.0 * u.kpc
 JYB = u.Jy / u.beam
-FWHM_PER_SIGMA = np.sqrt(8 * np.log(2))   # Gaussian FWHM = sqrt(8 ln 2) sigma (standard identity)
+FWHM_PER_SIGMA = np.sqrt(8 * np.log(2))  # Gaussian FWHM = sqrt(8 ln 2) sigma (standard identity)
 
 
 def make_result(intensity, nu_hz, background=None):
@@ -29,15 +29,24 @@ def make_result(intensity, nu_hz, background=None):
     nf, ny, nx = intensity.shape
     view = rtrace.View(npix=(ny, nx), distance=DIST)
     pix_cm = PIX.to_value(u.rad) * DIST.to_value(u.cm)
-    return Result(intensity, np.zeros_like(intensity), np.zeros((ny, nx)), np.asarray(nu_hz, float), view,
-                  pix_cm, np.zeros(3), {"source": "test"}, background=background)
+    return Result(
+        intensity,
+        np.zeros_like(intensity),
+        np.zeros((ny, nx)),
+        np.asarray(nu_hz, float),
+        view,
+        pix_cm,
+        np.zeros(3),
+        {"source": "test"},
+        background=background,
+    )
 
 
 def point_source(shape, row, col, flux_jy, nu_hz=(1e9,)):
     """One bright pixel of the given flux (Jy) at every frequency."""
     img = np.zeros((len(nu_hz),) + shape)
     pix_sr = PIX.to_value(u.rad) ** 2
-    img[:, row, col] = flux_jy * 1e-23 / pix_sr     # 1 Jy = 1e-23 erg s-1 cm-2 Hz-1 (definition)
+    img[:, row, col] = flux_jy * 1e-23 / pix_sr  # 1 Jy = 1e-23 erg s-1 cm-2 Hz-1 (definition)
     return make_result(img, nu_hz)
 
 
@@ -47,6 +56,7 @@ def beam(major_pix, minor_pix=None, pa_deg=0.0):
 
 
 # -- the kernel ----------------------------------------------------------------------------------
+
 
 def test_beam_area_in_pixels():
     # Gaussian beam solid angle pi bmaj bmin / (4 ln 2), Condon & Ransom 2016 (from memory)
@@ -62,7 +72,7 @@ def test_kernel_second_moments(pa):
     # the position-angle convention of radio astronomy (common practice).
     k = BeamKernel(beam(8.0, 4.0, pa), PIX, (16, 16))
     h = k.half
-    r, c = np.mgrid[-h:h + 1, -h:h + 1]
+    r, c = np.mgrid[-h : h + 1, -h : h + 1]
     w = k.kernel
     smaj, smin = 8.0 / FWHM_PER_SIGMA, 4.0 / FWHM_PER_SIGMA
     t = np.radians(pa)
@@ -96,13 +106,14 @@ def test_convolution_matches_scipy_and_does_not_wrap(rng):
     img = np.zeros((40, 50))
     img[0, 0], img[39, 49], img[0, 49], img[20, 25] = 3.0, 5.0, 7.0, 1.0
     img += rng.random(img.shape) * 0.1
-    for b in (beam(5.0, 2.5, 37.0), beam(60.0, 30.0, 120.0)):   # kernel smaller / larger than the image
+    for b in (beam(5.0, 2.5, 37.0), beam(60.0, 30.0, 120.0)):  # kernel smaller / larger than the image
         k = BeamKernel(b, PIX, img.shape)
         ref = signal.convolve2d(img, k.kernel, mode="same")
         assert np.allclose(k.convolve(img), ref, rtol=0, atol=1e-12 * img.sum())
 
 
 # -- flux ----------------------------------------------------------------------------------------
+
 
 def test_point_source_peak_equals_flux():
     # A point source seen through a beam peaks at its flux density in Jy/beam (definition of the
@@ -137,12 +148,15 @@ def test_flux_conserved_on_traced_demo():
     assert np.allclose(sky.flux_density().to_value(u.Jy), res.flux_density().to_value(u.Jy), rtol=5e-3)
 
 
-@pytest.mark.parametrize("pa, bright, faint", [
-    (0.0, (4, 0), (0, 4)),        # pa 0: along north = +row
-    (90.0, (0, -4), (4, 0)),      # pa 90: along east = -column
-    (45.0, (3, -3), (3, 3)),      # pa 45: along north-east (+row, -column), not north-west
-    (-45.0, (3, 3), (3, -3)),     # pa -45: along north-west (+row, +column)
-])
+@pytest.mark.parametrize(
+    "pa, bright, faint",
+    [
+        (0.0, (4, 0), (0, 4)),  # pa 0: along north = +row
+        (90.0, (0, -4), (4, 0)),  # pa 90: along east = -column
+        (45.0, (3, -3), (3, 3)),  # pa 45: along north-east (+row, -column), not north-west
+        (-45.0, (3, 3), (3, -3)),  # pa -45: along north-west (+row, +column)
+    ],
+)
 def test_position_angle_east_of_north(pa, bright, faint):
     # Position angle from north through east (common practice); on rtrace images row grows
     # north and column grows west, so east is decreasing column.
@@ -166,6 +180,7 @@ def test_background_is_removed_before_convolving():
 
 
 # -- noise ---------------------------------------------------------------------------------------
+
 
 def blank(shape=(384, 384), nu_hz=(1e9, 2e9)):
     return make_result(np.zeros((len(nu_hz),) + shape), nu_hz)
@@ -218,19 +233,20 @@ def test_snr_mask():
 
 # -- brightness temperature ----------------------------------------------------------------------
 
+
 def test_rayleigh_jeans_temperature_matches_astropy():
     # astropy's brightness_temperature(nu, beam_area) equivalency (reference library), and
     # T_b = c^2 S / (2 k nu^2 Omega_beam), Rybicki & Lightman 1979 eq. 1.60 with I = S / Omega.
     res = point_source((40, 40), 20, 20, 0.01, nu_hz=(1e9, 8e9))
-    sky = observe(res, beam(6.0, 3.0, 40.0), beam_scaling="inverse-frequency",
-                  reference_frequency=2 * u.GHz)
+    sky = observe(res, beam(6.0, 3.0, 40.0), beam_scaling="inverse-frequency", reference_frequency=2 * u.GHz)
     tb = sky.brightness_temperature("rayleigh-jeans")
     for i, nu in enumerate(sky.frequencies):
         ref = sky.data[i].to(u.K, u.brightness_temperature(nu, beam_area=sky.beams[i].sr))
         assert np.allclose(tb[i].value, ref.value, rtol=1e-10)
         omega = np.pi * sky.beams[i].major * sky.beams[i].minor / (4 * np.log(2))
         formula = (const.c**2 * sky.data[i] * u.beam / (2 * const.k_B * nu**2 * omega)).to(
-            u.K, u.dimensionless_angles())
+            u.K, u.dimensionless_angles()
+        )
         assert np.allclose(tb[i].value, formula.value, rtol=1e-6)
 
 
@@ -242,6 +258,7 @@ def test_emission_at_the_image_edge_is_reported():
     with pytest.warns(UserWarning, match=r"observe: emission reaches the image edge \(6\.6% of the flux"):
         observe(make_result(np.ones((1, 60, 60)), nu), beam(3.0))
     import warnings
+
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         observe(point_source((60, 60), 30, 30, 1.0), beam(3.0))
@@ -253,17 +270,19 @@ def test_planck_temperature_of_a_blackbody_field():
     nu = np.array([1e9, 300e9])
     temp = 8000.0
     img = np.broadcast_to(planck_cgs(nu, np.full(2, temp))[:, None, None], (2, 60, 60))
-    with pytest.warns(UserWarning, match="emission reaches the image edge"):        # field-filling on purpose
+    with pytest.warns(UserWarning, match="emission reaches the image edge"):  # field-filling on purpose
         sky = observe(make_result(img, nu), beam(4.0, 3.0, 15.0))
     centre = sky.brightness_temperature("planck")[:, 30, 30].to_value(u.K)
     assert np.allclose(centre, temp, rtol=1e-9)
     rj = sky.brightness_temperature("rayleigh-jeans")[:, 30, 30].to_value(u.K)
-    expect_rj = (const.c**2 * img[:, 0, 0] * u.erg / u.s / u.cm**2 / u.Hz
-                 / (2 * const.k_B * (nu * u.Hz) ** 2)).to_value(u.K)
+    expect_rj = (
+        const.c**2 * img[:, 0, 0] * u.erg / u.s / u.cm**2 / u.Hz / (2 * const.k_B * (nu * u.Hz) ** 2)
+    ).to_value(u.K)
     assert np.allclose(rj, expect_rj, rtol=1e-9)
 
 
 # -- the SkyMap as a whole -----------------------------------------------------------------------
+
 
 def test_skymap_attributes_and_provenance():
     res = point_source((32, 32), 16, 16, 1.0, nu_hz=(1e9, 2e9, 4e9))
@@ -302,21 +321,24 @@ def test_one_kernel_per_distinct_beam(monkeypatch):
     assert len(built) == 1
     built.clear()
     observe(res, beam(3.0), beam_scaling="inverse-frequency")
-    assert len(built) == 3          # 2 GHz appears twice and shares its kernel
+    assert len(built) == 3  # 2 GHz appears twice and shares its kernel
 
 
-@pytest.mark.parametrize("kwargs, name", [
-    ({"beam": 3 * u.arcsec}, "beam"),
-    ({"beam": radio_beam.Beam(major=-1 * u.arcsec, minor=-1 * u.arcsec)}, "beam"),
-    ({"noise": -1 * JYB}, "noise"),
-    ({"noise": [1, 2, 3] * JYB}, "noise"),
-    ({"noise": 1e-3}, "noise"),
-    ({"noise": 1e-3 * u.K}, "noise"),
-    ({"beam_scaling": "linear"}, "beam_scaling"),
-    ({"reference_frequency": 1 * u.GHz}, "reference_frequency"),
-    ({"beam_scaling": "inverse-frequency", "reference_frequency": -1 * u.GHz}, "reference_frequency"),
-    ({"noise": 1e-3 * JYB, "seed": 1.5}, "seed"),
-])
+@pytest.mark.parametrize(
+    "kwargs, name",
+    [
+        ({"beam": 3 * u.arcsec}, "beam"),
+        ({"beam": radio_beam.Beam(major=-1 * u.arcsec, minor=-1 * u.arcsec)}, "beam"),
+        ({"noise": -1 * JYB}, "noise"),
+        ({"noise": [1, 2, 3] * JYB}, "noise"),
+        ({"noise": 1e-3}, "noise"),
+        ({"noise": 1e-3 * u.K}, "noise"),
+        ({"beam_scaling": "linear"}, "beam_scaling"),
+        ({"reference_frequency": 1 * u.GHz}, "reference_frequency"),
+        ({"beam_scaling": "inverse-frequency", "reference_frequency": -1 * u.GHz}, "reference_frequency"),
+        ({"noise": 1e-3 * JYB, "seed": 1.5}, "seed"),
+    ],
+)
 def test_bad_input_names_the_parameter(kwargs, name):
     res = point_source((16, 16), 8, 8, 1.0, nu_hz=(1e9, 2e9))
     kw = {"beam": beam(3.0), **kwargs}

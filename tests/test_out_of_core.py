@@ -30,8 +30,13 @@ NU = [0.3, 3.0, 300.0] * u.GHz
 
 def _fields(rng, shape):
     ne = 1e3 * rng.lognormal(0, 1, shape)
-    return {"T": rng.uniform(5e3, 2e4, shape), "ne": ne, "ni": 1.1 * ne, "rho": ne * 2.3e-24,
-            "x": rng.uniform(0, 1, shape)}
+    return {
+        "T": rng.uniform(5e3, 2e4, shape),
+        "ne": ne,
+        "ni": 1.1 * ne,
+        "rho": ne * 2.3e-24,
+        "x": rng.uniform(0, 1, shape),
+    }
 
 
 @pytest.fixture(scope="module")
@@ -51,16 +56,18 @@ def h5file(tmp_path_factory):
     return path
 
 
-INPUTS = [dict(electron_density="gas/ne"),
-          dict(electron_density="gas/ne", ion_density="gas/ni"),
-          dict(density="rho"),
-          dict(density="rho", ionization="xHII"),
-          dict(density="rho", ionization="threshold", helium="double"),
-          dict(density="rho", ionization="saha")]
+INPUTS = [
+    dict(electron_density="gas/ne"),
+    dict(electron_density="gas/ne", ion_density="gas/ni"),
+    dict(density="rho"),
+    dict(density="rho", ionization="xHII"),
+    dict(density="rho", ionization="threshold", helium="double"),
+    dict(density="rho", ionization="saha"),
+]
 
 
 @pytest.mark.parametrize("kwargs", INPUTS)
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # Saha on thin gas: a reader test
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # Saha on thin gas: a reader test
 def test_lazy_snapshot_holds_what_read_hdf5_reads(h5file, kwargs):
     # Reference: read_hdf5 of the same file (its units and attributes, tests/test_hdf5.py).
     eager = read_hdf5(h5file, temperature="gas/T", **kwargs)
@@ -71,11 +78,11 @@ def test_lazy_snapshot_holds_what_read_hdf5_reads(h5file, kwargs):
     for name in ("temperature", "electron_density", "ion_density"):
         lazy_q, eager_q = getattr(snap, name), getattr(eager, name)
         assert lazy_q.unit == eager_q.unit and lazy_q.dtype == eager_q.dtype
-        assert np.array_equal(lazy_q.value, eager_q.value)                   # same bits, read on demand
+        assert np.array_equal(lazy_q.value, eager_q.value)  # same bits, read on demand
     # the streamed checksum and ranges equal the in-memory ones
     assert snap.checksum() == eager.checksum()
     lazy_lines, eager_lines = snap.describe().splitlines(), eager.describe().splitlines()
-    assert lazy_lines[3:] == eager_lines[3:] and lazy_lines[1] == eager_lines[1]     # ranges, cell size
+    assert lazy_lines[3:] == eager_lines[3:] and lazy_lines[1] == eager_lines[1]  # ranges, cell size
     assert snap.provenance["source"] == eager.provenance["source"]
     if kwargs.get("ionization") != "xHII":
         # (a fraction dataset is described by name, not by the array read_hdf5 holds)
@@ -93,14 +100,18 @@ def test_lazy_trace_equals_in_memory_trace(h5file, kwargs, los):
     assert ref.tau[0].max() > 1 and ref.tau[-1].max() < 1e-2
     for size in (None, 6):
         res = rtrace.trace(snap, view, NU, supersample=1, brick_size=size)
-        for x, y in ((res.intensity.value, ref.intensity.value), (res.tau, ref.tau),
-                     (res.emission_measure.value, ref.emission_measure.value)):
+        for x, y in (
+            (res.intensity.value, ref.intensity.value),
+            (res.tau, ref.tau),
+            (res.emission_measure.value, ref.emission_measure.value),
+        ):
             assert np.allclose(x, y, rtol=1e-10, atol=0)
         assert res.provenance["checksum"] == ref.provenance["checksum"]
 
 
-@pytest.mark.parametrize("los,width,everything", [((0.3, -0.5, 0.8), None, True), ((0, 0, 1), None, True),
-                                                  ((0.3, -0.5, 0.8), 0.04, False)])
+@pytest.mark.parametrize(
+    "los,width,everything", [((0.3, -0.5, 0.8), None, True), ((0, 0, 1), None, True), ((0.3, -0.5, 0.8), 0.04, False)]
+)
 def test_each_brick_is_read_once_per_view(h5file, monkeypatch, los, width, everything):
     # Common practice for out-of-core sweeps: one read of each needed brick per traversal.
     snap = open_hdf5(h5file, temperature="gas/T", electron_density="gas/ne", ion_density="gas/ni")
@@ -114,12 +125,12 @@ def test_each_brick_is_read_once_per_view(h5file, monkeypatch, los, width, every
     monkeypatch.setattr(HDF5Source, "read", counting)
     view = rtrace.View(los=los, npix=16, width=None if width is None else width * u.pc, distance=1 * u.kpc)
     rtrace.trace(snap, view, NU, brick_size=5, supersample=1)
-    assert len(reads) == len(set(reads))                          # no brick twice
+    assert len(reads) == len(set(reads))  # no brick twice
     cells = sum(np.prod(np.subtract(hi, lo)) for lo, hi in reads)
     if everything:
-        assert cells == np.prod(SHAPE)                            # the whole grid, once
+        assert cells == np.prod(SHAPE)  # the whole grid, once
     else:
-        assert 0 < cells < np.prod(SHAPE)                         # a zoomed view skips bricks no ray reaches
+        assert 0 < cells < np.prod(SHAPE)  # a zoomed view skips bricks no ray reaches
 
 
 def test_pieces_tile_a_box_in_c_order():
@@ -127,8 +138,10 @@ def test_pieces_tile_a_box_in_c_order():
     lo, hi = np.array([2, 3, 1]), np.array([9, 8, 12])
     for max_cells in (1, 7, 11, 55, 56, 10_000):
         index = np.arange(1000).reshape(10, 10, 10)
-        order = [index[tuple(slice(a, b) for a, b in zip(plo, phi, strict=True))].ravel()
-                 for plo, phi in lazy.pieces(lo, hi, max_cells)]
+        order = [
+            index[tuple(slice(a, b) for a, b in zip(plo, phi, strict=True))].ravel()
+            for plo, phi in lazy.pieces(lo, hi, max_cells)
+        ]
         assert all(p.size <= max_cells for p in order)
         assert np.array_equal(np.concatenate(order), index[2:9, 3:8, 1:12].ravel())
 
@@ -145,16 +158,19 @@ def _bad_file(path, field, value, cells):
     return path
 
 
-@pytest.mark.parametrize("field,value,kwargs,message", [
-    ("T", np.nan, {}, r"temperature: 3 of 4522 cells are not finite \(NaN or inf\), in dataset 'T'"),
-    ("T", 0.0, {}, r"temperature: 3 of 4522 cells violate temperature > 0 \(minimum 0\)"),
-    ("T", -50.0, dict(density="rho"), r"temperature: 3 of 4522 cells violate temperature > 0 \(minimum -50\)"),
-    ("ne", -1.0, {}, r"electron_density: 3 of 4522 cells violate electron_density >= 0"),
-    ("ne", np.inf, {}, r"electron_density: 3 of 4522 cells are not finite"),
-    ("ni", np.nan, dict(ion_density="ni"), r"ion_density: 3 of 4522 cells are not finite"),
-    ("rho", -1e-24, dict(density="rho"), r"density: 3 of 4522 cells violate density >= 0"),
-    ("x", 1.5, dict(density="rho", ionization="x"), r"ionization field 'x': 3 of 4522 cells violate 0 <= fraction"),
-])
+@pytest.mark.parametrize(
+    "field,value,kwargs,message",
+    [
+        ("T", np.nan, {}, r"temperature: 3 of 4522 cells are not finite \(NaN or inf\), in dataset 'T'"),
+        ("T", 0.0, {}, r"temperature: 3 of 4522 cells violate temperature > 0 \(minimum 0\)"),
+        ("T", -50.0, dict(density="rho"), r"temperature: 3 of 4522 cells violate temperature > 0 \(minimum -50\)"),
+        ("ne", -1.0, {}, r"electron_density: 3 of 4522 cells violate electron_density >= 0"),
+        ("ne", np.inf, {}, r"electron_density: 3 of 4522 cells are not finite"),
+        ("ni", np.nan, dict(ion_density="ni"), r"ion_density: 3 of 4522 cells are not finite"),
+        ("rho", -1e-24, dict(density="rho"), r"density: 3 of 4522 cells violate density >= 0"),
+        ("x", 1.5, dict(density="rho", ionization="x"), r"ionization field 'x': 3 of 4522 cells violate 0 <= fraction"),
+    ],
+)
 def test_validation_pass_counts_bad_cells_before_tracing(tmp_path, monkeypatch, field, value, kwargs, message):
     # Same rules and counts as Snapshot.from_arrays (tests/test_snapshot.py), found by a streaming pass
     # in pieces far smaller than a field (the counts add up across pieces).
@@ -165,8 +181,8 @@ def test_validation_pass_counts_bad_cells_before_tracing(tmp_path, monkeypatch, 
     monkeypatch.setattr(lazy, "_SCAN_CELLS", 97)
     with pytest.raises(InputError, match=message):
         open_hdf5(path, temperature="T", **kwargs)
-    with pytest.raises(ValueError):                               # InputError is a ValueError
-        read_hdf5(path, temperature="T", **kwargs)                # the eager reader agrees it is bad
+    with pytest.raises(ValueError):  # InputError is a ValueError
+        read_hdf5(path, temperature="T", **kwargs)  # the eager reader agrees it is bad
 
 
 def test_both_problems_are_counted_in_one_message(tmp_path):
@@ -174,8 +190,11 @@ def test_both_problems_are_counted_in_one_message(tmp_path):
     path = _bad_file(tmp_path / "bad.h5", "T", np.nan, [1, 2])
     with h5py.File(path, "r+") as h5:
         h5["T"][0, 0, 5] = -3.0
-    with pytest.raises(InputError, match=r"temperature: 2 of 4522 cells are not finite \(NaN or inf\) and "
-                                         r"1 violate temperature > 0 \(minimum -3\)"):
+    with pytest.raises(
+        InputError,
+        match=r"temperature: 2 of 4522 cells are not finite \(NaN or inf\) and "
+        r"1 violate temperature > 0 \(minimum -3\)",
+    ):
         open_hdf5(path, temperature="T", electron_density="ne")
 
 
@@ -216,7 +235,7 @@ def test_a_file_changed_after_open_is_caught(tmp_path):
         rtrace.trace(snap, view, NU, brick_size=5)
 
 
-@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")   # Saha on thin gas: a reader test
+@pytest.mark.filterwarnings("ignore::rtrace.errors.PhysicsRangeWarning")  # Saha on thin gas: a reader test
 def test_source_is_small_to_ship(h5file):
     # Common practice: what a dask task receives for a file-backed snapshot: path, names, units, model; no arrays.
     snap = open_hdf5(h5file, temperature="gas/T", density="rho", ionization="saha")
@@ -225,7 +244,7 @@ def test_source_is_small_to_ship(h5file):
 
 # -- memory: a file several times the budget, traced in a child process -------------------------
 
-_CHILD = textwrap.dedent('''
+_CHILD = textwrap.dedent("""
     import json, resource, sys, time, tracemalloc
     import astropy.units as u
     import numpy as np
@@ -275,7 +294,7 @@ _CHILD = textwrap.dedent('''
     print(json.dumps({"growth": growth, "rusage_growth": rusage_growth, "allocated": allocated,
                       "t_open": t_open, "t_trace": t_trace, "diffs": diffs,
                       "same_checksum": snap.checksum() == eager.checksum()}))
-''')
+""")
 
 
 def _write_grid(path, n, rng):
@@ -290,9 +309,9 @@ def _write_grid(path, n, rng):
         for i in range(0, n, step):
             m = min(step, n - i)
             ne = (100.0 * rng.lognormal(0.0, 1.0, (m, n, n))).astype(np.float32)
-            ds["ne"][i:i + m] = ne
-            ds["ni"][i:i + m] = 1.1 * ne
-            ds["T"][i:i + m] = rng.uniform(5e3, 2e4, (m, n, n)).astype(np.float32)
+            ds["ne"][i : i + m] = ne
+            ds["ni"][i : i + m] = 1.1 * ne
+            ds["T"][i : i + m] = rng.uniform(5e3, 2e4, (m, n, n)).astype(np.float32)
 
 
 @pytest.mark.skipif(not os.path.exists("/proc/self/clear_refs"), reason="needs Linux /proc to reset the peak RSS")
@@ -308,14 +327,21 @@ def test_out_of_core_trace_stays_within_the_budget(tmp_path):
     assert size > 3 * budget
     script = tmp_path / "child.py"
     script.write_text(_CHILD)
-    out = subprocess.run([sys.executable, str(script), str(big), str(tiny), "100 MB"], capture_output=True,
-                         text=True, timeout=300, env=dict(os.environ, PYTHONWARNINGS="ignore"))
+    out = subprocess.run(
+        [sys.executable, str(script), str(big), str(tiny), "100 MB"],
+        capture_output=True,
+        text=True,
+        timeout=300,
+        env=dict(os.environ, PYTHONWARNINGS="ignore"),
+    )
     assert out.returncode == 0, out.stderr[-3000:]
     report = json.loads(out.stdout.strip().splitlines()[-1])
-    print(f"file {size / 1e6:.0f} MB, budget {budget / 1e6:.0f} MB: peak RSS growth {report['growth'] / 1e6:.1f} MB "
-          f"(ru_maxrss growth {report['rusage_growth'] / 1e6:.1f} MB), "
-          f"numpy allocations at peak {[round(a / 1e6, 1) for a in report['allocated']]} MB, "
-          f"open {report['t_open']:.1f} s, traces {report['t_trace']:.1f} s")
+    print(
+        f"file {size / 1e6:.0f} MB, budget {budget / 1e6:.0f} MB: peak RSS growth {report['growth'] / 1e6:.1f} MB "
+        f"(ru_maxrss growth {report['rusage_growth'] / 1e6:.1f} MB), "
+        f"numpy allocations at peak {[round(a / 1e6, 1) for a in report['allocated']]} MB, "
+        f"open {report['t_open']:.1f} s, traces {report['t_trace']:.1f} s"
+    )
     assert report["growth"] < size / 2
     # what the planner budgets (brick fields, per-ray state, images) is what numpy allocated
     assert all(a < budget for a in report["allocated"])
@@ -327,6 +353,7 @@ def test_file_backed_result_diagnostics(h5file):
     # The unabsorbed image retraces the file brick by brick; the ray-marching diagnostics refuse
     # a file-backed snapshot (they would read every field whole) and say what to do instead.
     from rtrace.errors import InputError
+
     snap = open_hdf5(h5file, temperature="gas/T", electron_density="gas/ne", cell_size=0.01 * u.pc)
     eager = read_hdf5(h5file, temperature="gas/T", electron_density="gas/ne", cell_size=0.01 * u.pc)
     view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=12, distance=1 * u.kpc)

@@ -21,9 +21,9 @@ from rtrace.errors import InputError
 from rtrace.physics.freefree import absorption_cgs, emission_cgs
 from rtrace.transfer.result import PixelAccuracyWarning
 
-PC = 3.0856775814913673e18          # cm (IAU 2015 B2 parsec, common practice)
+PC = 3.0856775814913673e18  # cm (IAU 2015 B2 parsec, common practice)
 CELL = 0.01 * PC
-NU = np.array([1e8, 1e10])          # Hz: optically thick (tau ~ 5 through the grid) and thin (tau ~ 1e-4)
+NU = np.array([1e8, 1e10])  # Hz: optically thick (tau ~ 5 through the grid) and thin (tau ~ 1e-4)
 # Pixels compared with the reference: at least this fraction of the peak. The tracer holds pixels down
 # to 1e-3 of the peak (PIXEL_FLOOR) to its estimate; below 1e-2 of the peak, pixels on the grid's
 # silhouette, barely covered, are where the reference itself has not converged to 1e-2 at 128 x 128
@@ -33,8 +33,11 @@ FLOOR = 1e-2
 # (test_reference_converges_with_more_sub_rays), so agreement below that is not checked.
 REF_ERROR = 5e-3
 # oblique directions, each with its own north (random, fixed)
-DIRECTIONS = [((1.0, 2.0, 3.0), (0.3, -0.9, 0.2)), ((-0.35, 0.8, 0.52), (0.7, 0.1, 0.6)),
-              ((0.9, -0.25, 0.4), (-0.2, 0.5, 0.9))]
+DIRECTIONS = [
+    ((1.0, 2.0, 3.0), (0.3, -0.9, 0.2)),
+    ((-0.35, 0.8, 0.52), (0.7, 0.1, 0.6)),
+    ((0.9, -0.25, 0.4), (-0.2, 0.5, 0.9)),
+]
 # (pixel size in cells, sub-rays per pixel side of the reference)
 PIXELS = [(0.5, 16), (1.6, 64), (4.0, 128)]
 
@@ -50,9 +53,13 @@ def _grid(n=12, seed=3):
 @pytest.fixture(scope="module")
 def scene():
     ne, t = _grid()
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=CELL * u.cm,
-                                       electron_density=ne * u.cm**-3, ion_density=ne * u.cm**-3,
-                                       dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K,
+        cell_size=CELL * u.cm,
+        electron_density=ne * u.cm**-3,
+        ion_density=ne * u.cm**-3,
+        dtype=np.float64,
+    )
     alpha = np.stack([absorption_cgs(nu, t, ne, ne).ravel() for nu in NU])
     source = np.stack([emission_cgs(nu, t, ne, ne).ravel() for nu in NU]) / alpha
     return snap, ne, t, alpha, source
@@ -68,14 +75,14 @@ def _reference(ne, alpha, source, los, north, npix, pix, nsub, chunk=60000):
     north /= np.linalg.norm(north)
     west = np.cross(north, los)
     center = size / 2
-    sub = (np.arange(npix * nsub) + 0.5) / nsub - npix / 2          # sub-ray offsets in pixels
+    sub = (np.arange(npix * nsub) + 0.5) / nsub - npix / 2  # sub-ray offsets in pixels
     rows, cols = np.meshgrid(sub, sub, indexing="ij")
     points = center + (cols.ravel()[:, None] * west + rows.ravel()[:, None] * north) * pix
     em_all = np.empty(len(points))
     i_all = np.empty((len(NU), len(points)))
     emis = (ne * ne).ravel()
     for s0 in range(0, len(points), chunk):
-        q = points[s0:s0 + chunk]
+        q = points[s0 : s0 + chunk]
         ts = []
         t_in = np.full(len(q), -np.inf)
         t_out = np.full(len(q), np.inf)
@@ -84,7 +91,7 @@ def _reference(ne, alpha, source, los, north, npix, pix, nsub, chunk=60000):
                 inside = (q[:, k] >= 0) & (q[:, k] <= size[k])
                 t_out = np.where(inside, t_out, -np.inf)
                 continue
-            planes = (np.arange(shape[k] + 1) * CELL - q[:, k:k + 1]) / los[k]
+            planes = (np.arange(shape[k] + 1) * CELL - q[:, k : k + 1]) / los[k]
             ts.append(planes)
             t_in = np.maximum(t_in, planes.min(axis=1))
             t_out = np.minimum(t_out, planes.max(axis=1))
@@ -95,12 +102,12 @@ def _reference(ne, alpha, source, los, north, npix, pix, nsub, chunk=60000):
         mid = q[:, None, :] + 0.5 * (tt[:, 1:] + tt[:, :-1])[..., None] * los
         idx = np.clip(np.floor(mid / CELL).astype(int), 0, shape - 1)
         flat = np.ravel_multi_index((idx[..., 0], idx[..., 1], idx[..., 2]), tuple(shape))
-        em_all[s0:s0 + chunk] = np.sum(emis[flat] * ds, axis=1)
+        em_all[s0 : s0 + chunk] = np.sum(emis[flat] * ds, axis=1)
         intensity = np.zeros((len(NU), len(q)))
-        for j in range(ds.shape[1]):                     # along the photons' direction (increasing t)
+        for j in range(ds.shape[1]):  # along the photons' direction (increasing t)
             dtau = alpha[:, flat[:, j]] * ds[:, j]
             intensity = intensity * np.exp(-dtau) - source[:, flat[:, j]] * np.expm1(-dtau)
-        i_all[:, s0:s0 + chunk] = intensity
+        i_all[:, s0 : s0 + chunk] = intensity
 
     def mean(x):
         return x.reshape(x.shape[:-1] + (npix, nsub, npix, nsub)).mean(axis=(-3, -1))
@@ -220,6 +227,7 @@ def test_default_tolerance_against_the_reference(scene, cases):
 
 def test_estimate_recorded_in_provenance_and_fits(scene, cases, tmp_path):
     from astropy.io import fits
+
     snap = scene[0]
     view = cases[1][0]
     with warnings.catch_warnings():
@@ -253,6 +261,7 @@ def test_axis_aligned_views_are_not_refined(scene):
 
 def test_cap_warns_with_the_error_reached(scene, cases, monkeypatch):
     from rtrace.transfer import tracer
+
     monkeypatch.setattr(tracer, "MAX_SUPERSAMPLE", 2)
     snap = scene[0]
     with pytest.warns(PixelAccuracyWarning, match="relative error estimate of"):
@@ -273,6 +282,7 @@ def test_first_lattice_estimate_covers_each_pixel(scene, cases, monkeypatch):
     # kept as the error of those that are not, so it must cover each pixel's measured error (less the
     # reference's own, REF_ERROR), on pixels of 1.6 and 4 cells, thick and thin frequencies.
     from rtrace.transfer import oblique_split
+
     first = []
     failing = oblique_split._failing
 
@@ -296,4 +306,4 @@ def test_first_lattice_estimate_covers_each_pixel(scene, cases, monkeypatch):
             measured = np.abs(got - ref)[bright]
             assert np.all(est[bright] >= measured - REF_ERROR * ref[bright]), (view.los, pix_cells)
             covered += int(np.count_nonzero(measured > REF_ERROR * ref[bright]))
-    assert covered > 100        # pixels whose first-lattice error is above the reference's own (not vacuous)
+    assert covered > 100  # pixels whose first-lattice error is above the reference's own (not vacuous)

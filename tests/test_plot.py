@@ -11,7 +11,7 @@ from matplotlib import colors
 from matplotlib.patches import Ellipse
 from radio_beam import Beam
 
-matplotlib.use("Agg")              # no display in tests
+matplotlib.use("Agg")  # no display in tests
 
 import rtrace  # noqa: E402
 from rtrace import demo, plot  # noqa: E402
@@ -35,12 +35,26 @@ def standin_skymap(res, pa=45 * u.deg, noise=None):
 
     def brightness_temperature(kind="rayleigh-jeans"):
         # Rayleigh-Jeans T = c^2 S / (2 k nu^2 Omega) via astropy's equivalency
-        return u.Quantity([data[i].to(u.K, equivalencies=u.brightness_temperature(nu, beam_area=b.sr))
-                           for i, (nu, b) in enumerate(zip(res.frequencies, beams, strict=True))])
+        return u.Quantity(
+            [
+                data[i].to(u.K, equivalencies=u.brightness_temperature(nu, beam_area=b.sr))
+                for i, (nu, b) in enumerate(zip(res.frequencies, beams, strict=True))
+            ]
+        )
 
-    return types.SimpleNamespace(data=data, model=data, beam=beams[0], beams=beams, frequencies=res.frequencies,
-                                 pixel_scale=res.pixel_scale, pixel_size=res.pixel_size, distance=res.view.distance,
-                                 noise_rms=noise, result=res, brightness_temperature=brightness_temperature)
+    return types.SimpleNamespace(
+        data=data,
+        model=data,
+        beam=beams[0],
+        beams=beams,
+        frequencies=res.frequencies,
+        pixel_scale=res.pixel_scale,
+        pixel_size=res.pixel_size,
+        distance=res.view.distance,
+        noise_rms=noise,
+        result=res,
+        brightness_temperature=brightness_temperature,
+    )
 
 
 def the_image(ax):
@@ -63,15 +77,22 @@ def assert_written(path, magic):
 
 # --- files -------------------------------------------------------------------------------------
 
-@pytest.mark.parametrize("quantity, frequency", [
-    ("intensity", None), ("tau", 1 * u.GHz), ("emission_measure", None),
-    ("brightness_temperature", 2), ("spectral_index", (1 * u.GHz, 3 * u.GHz)),
-])
+
+@pytest.mark.parametrize(
+    "quantity, frequency",
+    [
+        ("intensity", None),
+        ("tau", 1 * u.GHz),
+        ("emission_measure", None),
+        ("brightness_temperature", 2),
+        ("spectral_index", (1 * u.GHz, 3 * u.GHz)),
+    ],
+)
 def test_plot_map_writes_png_for_every_quantity(tiny, tmp_path, quantity, frequency):
     path = tmp_path / f"{quantity}.png"
     fig = plot.plot_map(tiny, quantity, frequency, path=path)
     assert isinstance(fig, matplotlib.figure.Figure)
-    assert_written(path, b"\x89PNG")     # PNG signature (PNG specification)
+    assert_written(path, b"\x89PNG")  # PNG signature (PNG specification)
 
 
 def test_every_function_writes_pdf(tiny, tmp_path):
@@ -79,8 +100,8 @@ def test_every_function_writes_pdf(tiny, tmp_path):
     plot.plot_panels(tiny, "tau", [0, 2, 4], path=tmp_path / "panels.pdf", stretch="log")
     plot.plot_sed(*sed(tiny), path=tmp_path / "sed.pdf")
     for name in ("map.pdf", "panels.pdf", "sed.pdf"):
-        assert_written(tmp_path / name, b"%PDF")     # PDF header (ISO 32000)
-    plot.plot_panels(standin_skymap(tiny), path=tmp_path / "sky_panels")    # no suffix: PNG
+        assert_written(tmp_path / name, b"%PDF")  # PDF header (ISO 32000)
+    plot.plot_panels(standin_skymap(tiny), path=tmp_path / "sky_panels")  # no suffix: PNG
     assert_written(tmp_path / "sky_panels", b"\x89PNG")
     plot.plot_sed(*sed(tiny), path=tmp_path / "sed.png")
     assert_written(tmp_path / "sed.png", b"\x89PNG")
@@ -94,14 +115,15 @@ def test_unknown_format_is_refused_before_writing(tiny, tmp_path):
 
 # --- orientation, beam, scale bar ------------------------------------------------------------
 
+
 def test_east_is_left(tiny):
     fig = plot.plot_map(tiny, "tau")
     ax = fig.axes[0]
     half = NX / 2 * tiny.pixel_scale.to_value(u.arcsec)
     left, right = ax.get_xlim()
-    assert left > right                                        # east offsets grow to the left
+    assert left > right  # east offsets grow to the left
     assert np.allclose((left, right), (half, -half))
-    assert np.allclose(ax.get_ylim(), (-half, half))           # north up
+    assert np.allclose(ax.get_ylim(), (-half, half))  # north up
     # column 0 is the most easterly: offset_x = -(col + 0.5 - nx/2) * scale (the View's convention)
     image = the_image(ax)
     assert image.origin == "lower"
@@ -116,15 +138,16 @@ def test_beam_ellipse_follows_the_position_angle(tiny, pa_deg):
     ax = fig.axes[0]
     beam = by_gid(ax.patches, "beam")
     assert isinstance(beam, Ellipse)
-    assert math.isclose(beam.height, 24.0) and math.isclose(beam.width, 12.0)   # FWHM in arcsec
+    assert math.isclose(beam.height, 24.0) and math.isclose(beam.width, 12.0)  # FWHM in arcsec
     assert math.isclose(beam.angle, -pa_deg)
     # On screen the major axis must point north through east, east being left: (-sin PA, cos PA)
     # (position angle convention, common practice in radio astronomy).
     centre, tip = ax.transData.transform([beam.center, beam.get_patch_transform().transform((0.0, 1.0))])
     direction = (tip - centre) / np.hypot(*(tip - centre))
     pa = math.radians(pa_deg)
-    assert np.allclose(direction * np.sign(direction @ [-math.sin(pa), math.cos(pa)]),
-                       [-math.sin(pa), math.cos(pa)], atol=1e-6)
+    assert np.allclose(
+        direction * np.sign(direction @ [-math.sin(pa), math.cos(pa)]), [-math.sin(pa), math.cos(pa)], atol=1e-6
+    )
     # lower-left corner
     left, right = ax.get_xlim()
     bottom, top = ax.get_ylim()
@@ -138,7 +161,7 @@ def test_pa_45_points_up_left_on_screen(tiny):
     beam = by_gid(ax.patches, "beam")
     centre, tip = ax.transData.transform([beam.center, beam.get_patch_transform().transform((0.0, 1.0))])
     dx, dy = tip - centre
-    assert dx * dy < 0 and math.isclose(abs(dx), abs(dy), rel_tol=1e-6)   # the major axis runs up-left
+    assert dx * dy < 0 and math.isclose(abs(dx), abs(dy), rel_tol=1e-6)  # the major axis runs up-left
 
 
 def test_result_maps_have_no_beam(tiny):
@@ -176,10 +199,16 @@ def test_given_scale_bar_length(tiny):
         plot.plot_map(tiny, scale_bar=3 * u.s)
 
 
-@pytest.mark.parametrize("field, expected", [
-    (100 * u.AU, 20 * u.AU), (0.01 * u.pc, 500 * u.AU), (1 * u.pc, 0.2 * u.pc), (3 * u.pc, 0.5 * u.pc),
-    (10 * u.kpc, 2 * u.kpc),
-])
+@pytest.mark.parametrize(
+    "field, expected",
+    [
+        (100 * u.AU, 20 * u.AU),
+        (0.01 * u.pc, 500 * u.AU),
+        (1 * u.pc, 0.2 * u.pc),
+        (3 * u.pc, 0.5 * u.pc),
+        (10 * u.kpc, 2 * u.kpc),
+    ],
+)
 def test_choose_scale_bar(field, expected):
     # ~1/5 of the field rounded to the nearest of 1, 2, 5 x 10^k (common practice)
     got = plot.choose_scale_bar(field)
@@ -188,22 +217,28 @@ def test_choose_scale_bar(field, expected):
 
 # --- quantities, units, stretches --------------------------------------------------------------
 
+
 def test_intensity_units_and_prefix(tiny):
     fig = plot.plot_map(tiny, frequency=0.3 * u.GHz)
     image = the_image(fig.axes[0])
     label = fig.axes[1].get_ylabel()
     # peak Jy/pixel: I * Omega_pix (erg s-1 cm-2 Hz-1 -> Jy is x 1e23)
     peak_jy = (tiny.intensity.value[0] * tiny.pixel_solid_angle.to_value(u.sr) * 1e23).max()
-    assert 1e-3 <= peak_jy < 1                           # so mJy is the sensible prefix
+    assert 1e-3 <= peak_jy < 1  # so mJy is the sensible prefix
     assert "mJy pixel" in label
     assert math.isclose(np.nanmax(image.get_array()), peak_jy * 1e3, rel_tol=1e-12)
     sky_label = plot.plot_map(standin_skymap(tiny), frequency=1).axes[1].get_ylabel()
     assert "Jy beam" in sky_label
 
 
-@pytest.mark.parametrize("stretch, norm_class", [
-    ("linear", colors.Normalize), ("log", colors.LogNorm), ("asinh", colors.AsinhNorm),
-])
+@pytest.mark.parametrize(
+    "stretch, norm_class",
+    [
+        ("linear", colors.Normalize),
+        ("log", colors.LogNorm),
+        ("asinh", colors.AsinhNorm),
+    ],
+)
 def test_stretches(tiny, stretch, norm_class):
     norm = the_image(plot.plot_map(tiny, "emission_measure", stretch=stretch).axes[0]).norm
     assert type(norm) is norm_class
@@ -245,16 +280,19 @@ def test_contours(tiny):
             plot.plot_map(tiny, contours=bad)
 
 
-@pytest.mark.parametrize("kwargs, name", [
-    (dict(quantity="flux"), "quantity"),
-    (dict(quantity="Tau"), "quantity"),
-    (dict(stretch="sqrt"), "stretch"),
-    (dict(quantity="spectral_index"), "frequency"),
-    (dict(quantity="spectral_index", frequency=1 * u.GHz), "frequency"),
-    (dict(frequency=2 * u.GHz), "frequency"),
-    (dict(frequency=9), "frequency"),
-    (dict(cmap="no-such-map"), "cmap"),
-])
+@pytest.mark.parametrize(
+    "kwargs, name",
+    [
+        (dict(quantity="flux"), "quantity"),
+        (dict(quantity="Tau"), "quantity"),
+        (dict(stretch="sqrt"), "stretch"),
+        (dict(quantity="spectral_index"), "frequency"),
+        (dict(quantity="spectral_index", frequency=1 * u.GHz), "frequency"),
+        (dict(frequency=2 * u.GHz), "frequency"),
+        (dict(frequency=9), "frequency"),
+        (dict(cmap="no-such-map"), "cmap"),
+    ],
+)
 def test_bad_arguments_raise(tiny, kwargs, name):
     with pytest.raises(InputError, match=name):
         plot.plot_map(tiny, **kwargs)
@@ -269,6 +307,7 @@ def test_bad_quantity_in_panels_and_bad_object():
 
 # --- panels ------------------------------------------------------------------------------------
 
+
 def image_axes(fig):
     return [ax for ax in fig.axes if ax.get_images()]
 
@@ -278,15 +317,15 @@ def test_panels_shared_and_separate_scales(tiny):
     axes = image_axes(fig)
     assert len(axes) == 5
     norms = {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in axes}
-    assert len(norms) == 1                                   # one colour scale
-    assert len(fig.axes) == 6                                # five maps and one colour bar
+    assert len(norms) == 1  # one colour scale
+    assert len(fig.axes) == 6  # five maps and one colour bar
     assert [ax.get_title() for ax in axes] == ["300 MHz", "1 GHz", "3 GHz", "10 GHz", "30 GHz"]
     for ax in axes:
         assert ax.get_xlim()[0] > ax.get_xlim()[1]
     fig = plot.plot_panels(tiny, "tau", shared_scale=False)
     axes = image_axes(fig)
     assert len({the_image(ax).norm.vmax for ax in axes}) == 5
-    assert len(fig.axes) == 10                               # a colour bar per map
+    assert len(fig.axes) == 10  # a colour bar per map
 
 
 def test_spectral_index_panels_take_consecutive_pairs(tiny):
@@ -299,6 +338,7 @@ def test_spectral_index_panels_take_consecutive_pairs(tiny):
 
 
 # --- SED -------------------------------------------------------------------------------------
+
 
 def test_plot_sed_is_log_log_with_index_labels(tiny):
     nu, flux = sed(tiny)
@@ -321,9 +361,11 @@ def test_plot_sed_is_log_log_with_index_labels(tiny):
 
 def test_observed_skymap_noise_contours_and_delegated_quantities(tiny):
     from rtrace.observe import observe
+
     rms = 2e-3
-    sky = observe(tiny, Beam(major=20 * u.arcsec, minor=10 * u.arcsec, pa=60 * u.deg), noise=rms * u.Jy / u.beam,
-                  seed=5)
+    sky = observe(
+        tiny, Beam(major=20 * u.arcsec, minor=10 * u.arcsec, pa=60 * u.deg), noise=rms * u.Jy / u.beam, seed=5
+    )
     ax = plot.plot_map(sky, frequency=1 * u.GHz, contours=3).axes[0]
     levels = by_gid(ax.collections, "contours").levels
     # lowest contour at 3 rms (common practice for radio maps), in the unit the colour bar names
@@ -345,7 +387,7 @@ def test_drawing_into_given_axes(tiny):
     assert plot.plot_map(tiny, "emission_measure", ax=left) is fig
     assert plot.plot_sed(*sed(tiny), ax=right) is fig
     assert left.get_images() and right.get_xscale() == "log"
-    assert len(fig.axes) == 3                                # two panels and the map's colour bar
+    assert len(fig.axes) == 3  # two panels and the map's colour bar
 
 
 def test_shared_scale_uses_one_unit_across_panels():
@@ -355,6 +397,7 @@ def test_shared_scale_uses_one_unit_across_panels():
     import rtrace
     from rtrace import demo
     from rtrace.plot.core import common_prefix, plane_of
+
     res = rtrace.trace(demo.scenario(24), rtrace.View(npix=32, distance=2 * u.kpc), [0.3, 30] * u.GHz)
     planes = common_prefix([plane_of(res, "intensity", k) for k in range(2)])
     assert planes[0].unit == planes[1].unit
@@ -365,17 +408,23 @@ def test_shared_scale_uses_one_unit_across_panels():
 
 # --- pictures a new user reads ------------------------------------------------------------------
 
+
 def rendered(fig):
     """Lay the figure out and draw it as savefig to PNG does (Agg), so that text extents are final."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
+
     canvas = FigureCanvasAgg(fig)
     canvas.draw()
     return canvas.get_renderer()
 
 
 def inside(inner, outer, tol=0.5):
-    return (inner.x0 >= outer.x0 - tol and inner.x1 <= outer.x1 + tol and inner.y0 >= outer.y0 - tol
-            and inner.y1 <= outer.y1 + tol)
+    return (
+        inner.x0 >= outer.x0 - tol
+        and inner.x1 <= outer.x1 + tol
+        and inner.y0 >= outer.y0 - tol
+        and inner.y1 <= outer.y1 + tol
+    )
 
 
 @pytest.fixture(scope="module")
@@ -402,8 +451,11 @@ def test_axis_labels_lie_inside_the_saved_figure(tiny, strip, quantity):
 def test_titles_name_the_snapshot_and_the_ionization_model(tiny):
     source = tiny.provenance["source"]
     model = tiny.provenance["ionization"].split("(")[0]
-    for fig in (plot.plot_map(tiny, "emission_measure"), plot.plot_panels(tiny, "tau", [0, 1]),
-                plot.plot_tau_unity(tiny)):
+    for fig in (
+        plot.plot_map(tiny, "emission_measure"),
+        plot.plot_panels(tiny, "tau", [0, 1]),
+        plot.plot_tau_unity(tiny),
+    ):
         heading = fig.get_suptitle()
         assert source in heading and f"ionization: {model}" in heading
     # a title given by the caller is used as it is
@@ -411,11 +463,19 @@ def test_titles_name_the_snapshot_and_the_ionization_model(tiny):
 
 
 def test_frequency_labels_use_as_few_figures_as_tell_them_apart():
-    nu = np.geomspace(0.5, 50, 8) * u.GHz          # 0.5 * 100^(k/7) GHz: 0.9653, 1.8639, 3.5988, ...
-    assert plot.frequency_labels(nu) == ["500 MHz", "965 MHz", "1.86 GHz", "3.6 GHz", "6.95 GHz", "13.4 GHz",
-                                         "25.9 GHz", "50 GHz"]
+    nu = np.geomspace(0.5, 50, 8) * u.GHz  # 0.5 * 100^(k/7) GHz: 0.9653, 1.8639, 3.5988, ...
+    assert plot.frequency_labels(nu) == [
+        "500 MHz",
+        "965 MHz",
+        "1.86 GHz",
+        "3.6 GHz",
+        "6.95 GHz",
+        "13.4 GHz",
+        "25.9 GHz",
+        "50 GHz",
+    ]
     assert plot.frequency_labels([1.931] * u.GHz) == ["1.93 GHz"]
-    assert plot.frequency_labels([1.0, 1.001] * u.GHz) == ["1 GHz", "1.001 GHz"]     # kept distinct
+    assert plot.frequency_labels([1.0, 1.001] * u.GHz) == ["1 GHz", "1.001 GHz"]  # kept distinct
     # every label reads back within 0.25 % of its frequency
     for f, text in zip(nu.to_value(u.GHz), plot.frequency_labels(nu), strict=True):
         value = float(text.split()[0]) * (1e-3 if text.endswith("MHz") else 1.0)
@@ -428,7 +488,7 @@ def test_eight_panels_fill_their_grid_without_stray_axes_or_labels():
         fig = plot.plot_panels(res, "intensity", list(range(n)), shared_scale=True)
         maps = image_axes(fig)
         assert len(maps) == n
-        assert len(fig.axes) == n + 1                   # the maps and one colour bar: no empty axes
+        assert len(fig.axes) == n + 1  # the maps and one colour bar: no empty axes
         rows = {round(ax.get_position().y0, 3) for ax in maps}
         cols = {round(ax.get_position().x0, 3) for ax in maps}
         assert (len(rows), len(cols)) == shape
@@ -451,10 +511,10 @@ def test_panels_differing_by_more_than_a_decade_get_their_own_scales(tiny):
     fig = plot.plot_panels(tiny, "brightness_temperature")
     maps = image_axes(fig)
     peaks = [np.nanmax(the_image(ax).get_array()) for ax in maps]
-    assert max(peaks) > 10 * min(peaks)               # the thick-to-thin demo spans decades in T_b
+    assert max(peaks) > 10 * min(peaks)  # the thick-to-thin demo spans decades in T_b
     norms = [the_image(ax).norm for ax in maps]
     assert [n.vmax for n in norms] == pytest.approx(peaks)
-    assert len(fig.axes) == 2 * len(maps)             # a colour bar each
+    assert len(fig.axes) == 2 * len(maps)  # a colour bar each
     # limits given (a series' shared scale) still give one scale
     fig = plot.plot_panels(tiny, "brightness_temperature", vmin=0, vmax=3000)
     assert {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in image_axes(fig)} == {(0.0, 3000.0)}
@@ -471,13 +531,13 @@ def test_a_beam_larger_than_the_field_is_not_drawn_and_a_warning_says_so(tiny):
     with pytest.warns(UserWarning, match="beam .* larger than"):
         ax = plot.plot_map(sky).axes[0]
     assert not [p for p in ax.patches if p.get_gid() == "beam"]
-    by_gid(plot.plot_map(standin_skymap(tiny)).axes[0].patches, "beam")       # a normal beam still is
+    by_gid(plot.plot_map(standin_skymap(tiny)).axes[0].patches, "beam")  # a normal beam still is
 
 
 def test_spectral_index_limits_are_honoured(tiny):
     sky = standin_skymap(tiny)
     fig = plot.plot_map(sky, "spectral_index", (10 * u.GHz, 30 * u.GHz), vmin=-0.2, vmax=0.0)
-    assert fig.axes[1].get_ylim() == pytest.approx((-0.2, 0.0))       # the colour bar
+    assert fig.axes[1].get_ylim() == pytest.approx((-0.2, 0.0))  # the colour bar
     assert (the_image(fig.axes[0]).norm.vmin, the_image(fig.axes[0]).norm.vmax) == (-0.2, 0.0)
     fig = plot.plot_panels(sky, "spectral_index", [1, 3, 10] * u.GHz, vmin=-0.3, vmax=0.1)
     assert {(the_image(ax).norm.vmin, the_image(ax).norm.vmax) for ax in image_axes(fig)} == {(-0.3, 0.1)}
@@ -491,12 +551,11 @@ def test_spectral_index_limits_are_honoured(tiny):
 
 def test_spectral_index_picture_says_the_planes_were_smoothed_to_one_beam(tiny):
     sky = standin_skymap(tiny)
-    sky.beams = [Beam(major=(24 / f) * u.arcsec, minor=(12 / f) * u.arcsec, pa=45 * u.deg)
-                 for f in (0.3, 1, 3, 10, 30)]
+    sky.beams = [Beam(major=(24 / f) * u.arcsec, minor=(12 / f) * u.arcsec, pa=45 * u.deg) for f in (0.3, 1, 3, 10, 30)]
     sky.beam = sky.beams[0]
     ax = plot.plot_map(sky, "spectral_index", (1 * u.GHz, 3 * u.GHz)).axes[0]
     assert "beams matched: 24\N{DOUBLE PRIME}\N{MULTIPLICATION SIGN}12\N{DOUBLE PRIME}" in ax.get_title()
-    assert by_gid(ax.patches, "beam").get_height() == pytest.approx(24.0)     # the 1 GHz beam, in arcsec
+    assert by_gid(ax.patches, "beam").get_height() == pytest.approx(24.0)  # the 1 GHz beam, in arcsec
 
 
 def test_short_log_axes_have_tick_labels_and_index_labels_stay_off_them():
@@ -508,12 +567,18 @@ def test_short_log_axes_have_tick_labels_and_index_labels_stay_off_them():
     ax = fig.axes[0]
     lo, hi = ax.get_ylim()
     assert hi / lo < 10
-    shown = [t for t in ax.yaxis.get_ticklabels(which="both") if t.get_visible() and t.get_text()
-             and lo <= t.get_position()[1] <= hi]
+    shown = [
+        t
+        for t in ax.yaxis.get_ticklabels(which="both")
+        if t.get_visible() and t.get_text() and lo <= t.get_position()[1] <= hi
+    ]
     assert len(shown) >= 2
     frame = ax.get_window_extent(renderer)
-    tick_boxes = [t.get_window_extent(renderer) for t in ax.get_xticklabels() + ax.get_yticklabels()
-                  if t.get_visible() and t.get_text()]
+    tick_boxes = [
+        t.get_window_extent(renderer)
+        for t in ax.get_xticklabels() + ax.get_yticklabels()
+        if t.get_visible() and t.get_text()
+    ]
     labels = [t for t in ax.texts if t.get_gid() == "spectral_index"]
     assert len(labels) == 3
     for text in labels:
@@ -524,6 +589,7 @@ def test_short_log_axes_have_tick_labels_and_index_labels_stay_off_them():
 
 def test_tau_unity_picture_names_the_pixels_outside_the_traced_range(tiny):
     from rtrace.analysis import tau_unity_frequency
+
     fig = plot.plot_tau_unity(tiny)
     image = the_image(fig.axes[0])
     ghz = tau_unity_frequency(tiny)[0].to_value(u.GHz)
@@ -551,6 +617,7 @@ def test_tau_unity_picture_names_the_pixels_outside_the_traced_range(tiny):
 
 # --- the package's shape ------------------------------------------------------------------------
 
+
 def test_nothing_outside_plot_imports_its_private_names():
     # Other modules use plot's internal API (rtrace.plot.core) or its public names, never an
     # underscore name of a plot module (issue 16: one internal API instead of private helpers).
@@ -559,8 +626,12 @@ def test_nothing_outside_plot_imports_its_private_names():
 
     root = pathlib.Path(__file__).resolve().parents[1]
     offenders = []
-    for path in [*(root / "rtrace").rglob("*.py"), *(root / "tests").rglob("*.py"),
-                 *(root / "examples").rglob("*.py"), *(root / "benchmarks").rglob("*.py")]:
+    for path in [
+        *(root / "rtrace").rglob("*.py"),
+        *(root / "tests").rglob("*.py"),
+        *(root / "examples").rglob("*.py"),
+        *(root / "benchmarks").rglob("*.py"),
+    ]:
         if (root / "rtrace" / "plot") in path.parents:
             continue
         for node in ast.walk(ast.parse(path.read_text())):
@@ -580,6 +651,7 @@ def test_public_names_and_the_internal_api_resolve():
     # the conveniences of lower layers draw through the plot package's own functions
     from rtrace.analysis.cuts import Cut
     from rtrace.comparison import Comparison
+
     assert "plot_cut" in Cut.plot.__code__.co_names
     assert "plot_comparison" in Comparison.figure.__code__.co_names
     assert "plot_comparison" in Comparison.plot.__code__.co_names

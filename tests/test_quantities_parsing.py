@@ -26,19 +26,23 @@ def test_frequencies_in_any_spectral_unit():
     assert energy == pytest.approx((1 * u.eV).to_value(u.J) / const.h.to_value(u.J * u.s), rel=1e-15)
     assert parse_frequencies("5 GHz", scalar=True) == 5e9
     # a list mixing units, as a command line or job file gives it: each item converted on its own
-    np.testing.assert_allclose(parse_frequencies(["1 GHz", "21 cm", 3 * u.MHz]),
-                               [1e9, const.c.to_value(u.cm / u.s) / 21.0, 3e6], rtol=1e-15)
+    np.testing.assert_allclose(
+        parse_frequencies(["1 GHz", "21 cm", 3 * u.MHz]), [1e9, const.c.to_value(u.cm / u.s) / 21.0, 3e6], rtol=1e-15
+    )
 
 
-@pytest.mark.parametrize("value, words", [
-    (5 * u.K, "expected a frequency (or wavelength), got unit 'K'"),
-    ("not a frequency", "expected a frequency"),
-    (np.ones((2, 2)) * u.GHz, "1D sequence"),
-    ([] * u.GHz, "1D sequence"),
-    ([1.0, 0.0, -2.0] * u.GHz, "2 of 3 are not"),
-    ([1.0, np.nan] * u.GHz, "1 of 2 are not"),
-    (0 * u.cm, "1 of 1 are not"),
-])
+@pytest.mark.parametrize(
+    "value, words",
+    [
+        (5 * u.K, "expected a frequency (or wavelength), got unit 'K'"),
+        ("not a frequency", "expected a frequency"),
+        (np.ones((2, 2)) * u.GHz, "1D sequence"),
+        ([] * u.GHz, "1D sequence"),
+        ([1.0, 0.0, -2.0] * u.GHz, "2 of 3 are not"),
+        ([1.0, np.nan] * u.GHz, "1 of 2 are not"),
+        (0 * u.cm, "1 of 1 are not"),
+    ],
+)
 def test_bad_frequencies_name_the_argument_and_count(value, words):
     with pytest.raises(InputError, match="^nu: ") as err:
         parse_frequencies(value, "nu")
@@ -72,13 +76,16 @@ def test_a_bare_jansky_means_per_beam():
     np.testing.assert_allclose(jy_per_beam([1, 2] * u.Jy, "rms").to_value(JY_PER_BEAM), [1, 2])
 
 
-@pytest.mark.parametrize("value, words", [
-    (0.1, "expected a Quantity in Jy/beam (e.g. 1 * u.mJy / u.beam)"),
-    (0.1 * u.dimensionless_unscaled, "expected a Quantity in Jy/beam"),
-    (3 * u.K, "expected Jy/beam, got unit 'K'"),
-    (1 * u.Jy / u.sr, "expected Jy/beam, got unit 'Jy / sr'"),
-    ("loud", "cannot read 'loud'"),
-])
+@pytest.mark.parametrize(
+    "value, words",
+    [
+        (0.1, "expected a Quantity in Jy/beam (e.g. 1 * u.mJy / u.beam)"),
+        (0.1 * u.dimensionless_unscaled, "expected a Quantity in Jy/beam"),
+        (3 * u.K, "expected Jy/beam, got unit 'K'"),
+        (1 * u.Jy / u.sr, "expected Jy/beam, got unit 'Jy / sr'"),
+        ("loud", "cannot read 'loud'"),
+    ],
+)
 def test_bad_surface_brightness(value, words):
     with pytest.raises(InputError, match="^threshold: ") as err:
         jy_per_beam(value, "threshold", "1 * u.mJy / u.beam")
@@ -110,8 +117,11 @@ def test_streamed_blocks_count_as_the_whole_array():
         # counted directly here: 3 not finite, and -3 and 0 violate T > 0
         assert (tally.size, tally.nonfinite, tally.low, tally.high, tally.bad) == (336, 3, 2, 0, 5)
         assert tally.min == -3.0 and tally.max == np.max(arr[np.isfinite(arr)])
-    assert whole.message() == streamed.message() == (
-        "temperature: 3 of 336 cells are not finite (NaN or inf) and 2 violate temperature > 0 (minimum -3)")
+    assert (
+        whole.message()
+        == streamed.message()
+        == ("temperature: 3 of 336 cells are not finite (NaN or inf) and 2 violate temperature > 0 (minimum -3)")
+    )
     with pytest.raises(InputError, match=r"^temperature: 3 of 336 cells"):
         streamed.raise_if_bad()
 
@@ -122,11 +132,13 @@ def test_bounds_rules_and_context():
     tally = CellTally("fraction", 0.0, upper=1.0, where="of brick [0:6]", context=", in dataset 'x'")
     assert not tally.add(arr)
     assert (tally.low, tally.high, tally.nonfinite) == (1, 1, 1)
-    assert tally.message() == ("fraction: 1 of 6 cells of brick [0:6] are not finite (NaN or inf) and 2 violate "
-                               "0 <= fraction <= 1 (minimum -0.25, maximum 1.5), in dataset 'x'")
+    assert tally.message() == (
+        "fraction: 1 of 6 cells of brick [0:6] are not finite (NaN or inf) and 2 violate "
+        "0 <= fraction <= 1 (minimum -0.25, maximum 1.5), in dataset 'x'"
+    )
     good = CellTally("density", 0.0)
     assert good.add(np.zeros(4)) and good.ok and good.message() is None
-    good.raise_if_bad()                       # nothing to report
+    good.raise_if_bad()  # nothing to report
 
 
 def test_check_cells_whole_arrays():
@@ -157,8 +169,17 @@ def _result(background=None):
     nu = np.array([1e9, 5e9])
     img = rng.uniform(0.0, 1e-15, (2, 3, 4))
     view = View(npix=(3, 4), width=0.4 * u.pc, distance=2 * u.kpc)
-    return Result(img, np.zeros_like(img), np.zeros((3, 4)), nu, view, 0.1 * u.pc.to(u.cm), np.zeros(3),
-                  {"source": "test"}, background=background)
+    return Result(
+        img,
+        np.zeros_like(img),
+        np.zeros((3, 4)),
+        nu,
+        view,
+        0.1 * u.pc.to(u.cm),
+        np.zeros(3),
+        {"source": "test"},
+        background=background,
+    )
 
 
 def test_jy_per_pixel_is_intensity_times_pixel_solid_angle():
@@ -172,8 +193,11 @@ def test_jy_per_pixel_is_intensity_times_pixel_solid_angle():
         np.testing.assert_allclose(res.flux_density(convention).value, got.value.sum(axis=(1, 2)), rtol=1e-14)
     # the background is I_bg Omega_pix on each pixel
     delta = res.jy_per_pixel("included") - res.jy_per_pixel("subtracted")
-    np.testing.assert_allclose(delta.value[:, 0, 0], ([1e-17, 2e-17] * u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
-                                                      * res.pixel_solid_angle).to_value(u.Jy), rtol=1e-12)
+    np.testing.assert_allclose(
+        delta.value[:, 0, 0],
+        ([1e-17, 2e-17] * u.erg / (u.s * u.cm**2 * u.Hz * u.sr) * res.pixel_solid_angle).to_value(u.Jy),
+        rtol=1e-12,
+    )
 
 
 def test_jy_per_pixel_refuses_non_finite_pixels_on_request():

@@ -22,8 +22,7 @@ CELL = 0.1 * u.pc
 def snapshot(ne, t=1.0e4):
     ne = np.broadcast_to(np.asarray(ne, float), SHAPE)
     t = np.broadcast_to(np.asarray(t, float), SHAPE)
-    return Snapshot.from_arrays(temperature=t * u.K, electron_density=ne * u.cm**-3, cell_size=CELL,
-                                dtype=np.float64)
+    return Snapshot.from_arrays(temperature=t * u.K, electron_density=ne * u.cm**-3, cell_size=CELL, dtype=np.float64)
 
 
 def range_warnings(record):
@@ -38,6 +37,7 @@ def mezger_henderson_tau(nu_ghz, t_k, em_pc_cm6):
 
 # -- plasma frequency -------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("ne", [1.0, 1.0e4, 1.0e10])
 def test_plasma_frequency_matches_the_handbook(ne):
     # NRL Plasma Formulary (Huba), electron plasma frequency f_pe = 8.98e3 n_e^1/2 Hz (from memory)
@@ -46,24 +46,25 @@ def test_plasma_frequency_matches_the_handbook(ne):
 
 def test_tracing_below_the_plasma_frequency_warns_with_the_cells_and_the_highest_frequency():
     ne = np.ones(SHAPE)
-    ne[:2] = 100.0                                    # 32 of 64 cells with nu_p = 89.8 kHz; the rest 8.98 kHz
+    ne[:2] = 100.0  # 32 of 64 cells with nu_p = 89.8 kHz; the rest 8.98 kHz
     with pytest.warns(PhysicsRangeWarning) as record:
         trace(snapshot(ne), View(npix=4), 60 * u.kHz)
     text = " ".join(range_warnings(record))
     assert "32 of 64 cells have a plasma frequency at or above it" in text
     assert "6e+04 Hz" in text
     nu_p = float(re.search(r"highest nu_p ([0-9.e+]+) Hz", text).group(1))
-    assert nu_p == pytest.approx(8.98e3 * np.sqrt(100.0), rel=1e-3)   # NRL Plasma Formulary, as above
+    assert nu_p == pytest.approx(8.98e3 * np.sqrt(100.0), rel=1e-3)  # NRL Plasma Formulary, as above
 
 
 def test_a_frequency_near_the_plasma_frequency_warns_and_counts_no_cell_below():
-    with pytest.warns(PhysicsRangeWarning, match="0 of 64 cells have a plasma frequency at or above it and 64 lie "
-                                                 "within a factor 2"):
-        trace(snapshot(100.0), View(npix=4), 150 * u.kHz)   # nu_p = 89.8 kHz: above it, by less than 2x
+    with pytest.warns(
+        PhysicsRangeWarning, match="0 of 64 cells have a plasma frequency at or above it and 64 lie within a factor 2"
+    ):
+        trace(snapshot(100.0), View(npix=4), 150 * u.kHz)  # nu_p = 89.8 kHz: above it, by less than 2x
 
 
 def test_radio_frequencies_far_above_the_plasma_frequency_do_not_warn():
-    snap = snapshot(1.0e4)                                   # nu_p = 0.9 MHz
+    snap = snapshot(1.0e4)  # nu_p = 0.9 MHz
     with warnings.catch_warnings(record=True) as record:
         warnings.simplefilter("always")
         trace(snap, View(npix=4), [0.1, 1.0] * u.GHz)
@@ -71,6 +72,7 @@ def test_radio_frequencies_far_above_the_plasma_frequency_do_not_warn():
 
 
 # -- Gaunt table range --------------------------------------------------------------------------
+
 
 def test_temperatures_below_the_gaunt_table_warn_with_the_count_and_the_lowest():
     t = np.full(SHAPE, 1.0e4)
@@ -94,7 +96,7 @@ def test_temperatures_above_the_gaunt_table_warn_with_the_count_and_the_highest(
 
 def test_temperatures_inside_the_table_do_not_warn_about_it():
     t = np.full(SHAPE, 1.0e4)
-    t[0, 0, 0], t[0, 0, 1] = 1.5, 5.0e7                     # inside 1 K .. 1e10 K and below 1e8 K
+    t[0, 0, 0], t[0, 0, 1] = 1.5, 5.0e7  # inside 1 K .. 1e10 K and below 1e8 K
     with warnings.catch_warnings(record=True) as record:
         warnings.simplefilter("always")
         snapshot(10.0, t)
@@ -103,9 +105,10 @@ def test_temperatures_inside_the_table_do_not_warn_about_it():
 
 # -- tau = 1 not bracketed ------------------------------------------------------------------------
 
+
 def test_turnover_of_thin_gas_warns_that_everything_is_thin():
     depth_pc = SHAPE[2] * CELL.to_value(u.pc)
-    em = 100.0**2 * depth_pc                                  # 4000 pc cm^-6 on every line of sight
+    em = 100.0**2 * depth_pc  # 4000 pc cm^-6 on every line of sight
     result = trace(snapshot(100.0), View(npix=4), [1.0, 2.0] * u.GHz)
     with pytest.warns(PhysicsRangeWarning, match="everything is optically thin") as record:
         per_pixel, whole = result.turnover_frequency()
@@ -117,7 +120,7 @@ def test_turnover_of_thin_gas_warns_that_everything_is_thin():
 
 
 def test_turnover_of_thick_gas_warns_that_everything_is_thick():
-    result = trace(snapshot(1.0e5), View(npix=4), [1.0, 2.0] * u.GHz)   # tau(2 GHz) ~ 300 (Mezger & Henderson)
+    result = trace(snapshot(1.0e5), View(npix=4), [1.0, 2.0] * u.GHz)  # tau(2 GHz) ~ 300 (Mezger & Henderson)
     with pytest.warns(PhysicsRangeWarning, match="everything is optically thick") as record:
         per_pixel, _ = result.turnover_frequency()
     assert np.all(np.isnan(per_pixel))
@@ -139,8 +142,8 @@ def test_a_bracketed_turnover_does_not_warn_and_agrees_with_the_published_approx
 
 
 def test_a_whole_source_without_a_bracket_warns_even_when_some_pixels_have_one():
-    ne = np.full(SHAPE, 3.0e3)           # tau(1 GHz) ~ 1.2, tau(1.5 GHz) ~ 0.5 (Mezger & Henderson): bracketed
-    ne[:2] = 1.0e5                       # half the pixels thick at both frequencies, and the brightest
+    ne = np.full(SHAPE, 3.0e3)  # tau(1 GHz) ~ 1.2, tau(1.5 GHz) ~ 0.5 (Mezger & Henderson): bracketed
+    ne[:2] = 1.0e5  # half the pixels thick at both frequencies, and the brightest
     result = trace(snapshot(ne), View(npix=4), [1.0, 1.5] * u.GHz)
     with pytest.warns(PhysicsRangeWarning, match="the whole source is thick") as record:
         per_pixel, whole = result.turnover_frequency()
@@ -152,6 +155,7 @@ def test_a_file_backed_snapshot_warns_from_its_recorded_range_without_reading(tm
     import h5py
 
     from rtrace import open_hdf5
+
     path = tmp_path / "dense.h5"
     with h5py.File(path, "w") as f:
         f.attrs["cell_size"] = 0.1
@@ -160,6 +164,6 @@ def test_a_file_backed_snapshot_warns_from_its_recorded_range_without_reading(tm
         f.create_dataset("ne", data=np.full(SHAPE, 1.0e4)).attrs["units"] = "cm**-3"
     snap = open_hdf5(path, temperature="T", electron_density="ne")
     with pytest.warns(PhysicsRangeWarning, match="not counted: file-backed") as record:
-        trace(snap, View(npix=4), 0.5 * u.MHz)         # nu_p = 0.898 MHz (NRL Plasma Formulary, as above)
+        trace(snap, View(npix=4), 0.5 * u.MHz)  # nu_p = 0.898 MHz (NRL Plasma Formulary, as above)
     nu_p = float(re.search(r"highest nu_p ([0-9.e+]+) Hz", " ".join(range_warnings(record))).group(1))
     assert nu_p == pytest.approx(8.98e3 * np.sqrt(1.0e4), rel=1e-3)

@@ -14,7 +14,7 @@ def test_segments_tile_the_chord_through_the_box(direction, rng):
     d /= np.linalg.norm(d)
     size = shape * cell
     for _ in range(20):
-        start = rng.uniform(0.05, 0.95, 3) * size          # a point inside: the line crosses the box
+        start = rng.uniform(0.05, 0.95, 3) * size  # a point inside: the line crosses the box
         depth, ds, cells = ray_segments(start, d, shape, cell)
         # chord of a line through a box by the slab method (Kay & Kajiya 1986, SIGGRAPH 20, 269)
         with np.errstate(divide="ignore"):
@@ -33,6 +33,7 @@ def test_segments_tile_the_chord_through_the_box(direction, rng):
 
 
 def test_a_line_outside_the_box_crosses_nothing():
-    depth, ds, cells = ray_segments(np.array([-1.0, 0.5, 0.5]), np.array([0.0, 0.0, 1.0]),
-                                    np.array([4, 4, 4], np.int64), np.ones(3))
+    depth, ds, cells = ray_segments(
+        np.array([-1.0, 0.5, 0.5]), np.array([0.0, 0.0, 1.0]), np.array([4, 4, 4], np.int64), np.ones(3)
+    )
     assert depth.size == ds.size == cells.shape[0] == 0

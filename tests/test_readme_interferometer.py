@@ -30,7 +30,7 @@ def _blocks():
 
 
 def _invented_arrays(n=48):
-    x = (np.arange(n) + 0.5) / n * 2 - 1                     # box of 2 pc, coordinates in [-1, 1]
+    x = (np.arange(n) + 0.5) / n * 2 - 1  # box of 2 pc, coordinates in [-1, 1]
     X, Y, Z = np.meshgrid(x, x, x, indexing="ij")
     ne = np.where(np.sqrt(X**2 + Y**2 + Z**2) < 0.5, 200.0, 0.0)
     ne += np.where((np.hypot(X - 0.2, Y + 0.1) < 0.08) & (np.abs(Z) < 0.1), 2000.0, 0.0)

@@ -49,8 +49,8 @@ def _reference_area(tube, pixel):
     if len(points) < 3:
         return 0.0
     try:
-        return ConvexHull(points).volume          # in 2D, Qhull's "volume" is the area
-    except QhullError:                            # all points on a line: no area
+        return ConvexHull(points).volume  # in 2D, Qhull's "volume" is the area
+    except QhullError:  # all points on a line: no area
         return 0.0
 
 
@@ -79,7 +79,7 @@ def test_pixel_areas_match_an_independent_polygon_intersection(aligned):
                 ref = _reference_area(tube, unit + [ix, iy])
                 assert out[r, iy, ix] == pytest.approx(ref, rel=1e-12, abs=1e-13), (r, iy, ix)
                 checked += ref > 0.0
-    assert checked > 3 * n // 2          # most tubes lie (partly) inside the image
+    assert checked > 3 * n // 2  # most tubes lie (partly) inside the image
 
 
 def test_flux_of_tubes_inside_the_image_is_conserved():

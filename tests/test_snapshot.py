@@ -17,27 +17,31 @@ def test_from_arrays_stores_float32_and_shares_the_ion_term():
     snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.au, electron_density=ne * u.cm**-3)
     assert snap.shape == (4, 5, 6)
     assert snap._ne.dtype == np.float32
-    assert snap._ni is snap._ne                       # ion term defaults to n_e without a copy
+    assert snap._ni is snap._ne  # ion term defaults to n_e without a copy
     assert np.allclose(snap.cell_size, (1 * u.au).to_value(u.cm))
     assert snap.temperature.unit == u.K and snap.electron_density.unit == u.cm**-3
 
 
 def test_cell_size_per_axis_and_origin():
     t, ne = arrays()
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=[1, 2, 3] * u.pc,
-                                       electron_density=ne * u.cm**-3, origin=[-1, 0, 1] * u.pc)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=[1, 2, 3] * u.pc, electron_density=ne * u.cm**-3, origin=[-1, 0, 1] * u.pc
+    )
     lo, hi = snap.extent
     assert np.allclose(hi - lo, (np.array([4, 10, 18]) * u.pc).to_value(u.cm))
     assert np.allclose(lo, ([-1, 0, 1] * u.pc).to_value(u.cm))
 
 
-@pytest.mark.parametrize("field,bad,message", [
-    ("temperature", np.nan, r"temperature: 2 of 120 cells are not finite"),
-    ("temperature", 0.0, r"temperature: 2 of 120 cells violate temperature > 0"),
-    ("temperature", -5.0, r"temperature: 2 of 120 cells violate temperature > 0"),
-    ("electron_density", np.inf, r"electron_density: 2 of 120 cells are not finite"),
-    ("electron_density", -1.0, r"electron_density: 2 of 120 cells violate electron_density >= 0"),
-])
+@pytest.mark.parametrize(
+    "field,bad,message",
+    [
+        ("temperature", np.nan, r"temperature: 2 of 120 cells are not finite"),
+        ("temperature", 0.0, r"temperature: 2 of 120 cells violate temperature > 0"),
+        ("temperature", -5.0, r"temperature: 2 of 120 cells violate temperature > 0"),
+        ("electron_density", np.inf, r"electron_density: 2 of 120 cells are not finite"),
+        ("electron_density", -1.0, r"electron_density: 2 of 120 cells violate electron_density >= 0"),
+    ],
+)
 def test_bad_values_are_counted(field, bad, message):
     t, ne = arrays()
     target = t if field == "temperature" else ne
@@ -49,8 +53,9 @@ def test_bad_values_are_counted(field, bad, message):
 def test_shape_mismatch_and_units():
     t, ne = arrays()
     with pytest.raises(InputError, match=r"ion_density: shape \(4, 5\) does not match the grid shape \(4, 5, 6\)"):
-        rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc, electron_density=ne * u.cm**-3,
-                                    ion_density=ne[:, :, 0] * u.cm**-3)
+        rtrace.Snapshot.from_arrays(
+            temperature=t * u.K, cell_size=1 * u.pc, electron_density=ne * u.cm**-3, ion_density=ne[:, :, 0] * u.cm**-3
+        )
     with pytest.raises(InputError, match="electron_density: expected units of 1 / cm3"):
         rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc, electron_density=ne * u.g)
     with pytest.raises(InputError, match="cell_size: expected a length"):
@@ -61,8 +66,9 @@ def test_shape_mismatch_and_units():
         rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc)
 
 
-@pytest.mark.parametrize("field", ["temperature", "electron_density", "ion_density", "density", "pressure",
-                                   "internal_energy"])
+@pytest.mark.parametrize(
+    "field", ["temperature", "electron_density", "ion_density", "density", "pressure", "internal_energy"]
+)
 def test_plain_arrays_without_units_are_refused(field):
     # A simulation's code units must never be taken silently as cgs: the error names the field and
     # shows how to attach units, before any ionization or tracing work.
@@ -75,7 +81,7 @@ def test_plain_arrays_without_units_are_refused(field):
             kw["temperature"] = t * u.K
         else:
             kw[field] = np.full(t.shape, 1.0) * (u.dyn / u.cm**2 if field == "pressure" else u.erg / u.g)
-    kw[field] = kw[field].value                      # the same numbers, units dropped
+    kw[field] = kw[field].value  # the same numbers, units dropped
     with pytest.raises(InputError, match=rf"{field}: a plain array has no units; attach them .*{field}=array \* u\."):
         rtrace.Snapshot.from_arrays(cell_size=1 * u.pc, **kw)
 
@@ -84,23 +90,30 @@ def test_density_with_ionization_models():
     # Fully ionized H + singly ionized He: n_e = n_H + n_He (hand calculation, common practice).
     t, _ = arrays()
     rho = np.full(t.shape, 1e-21)
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc, density=rho * u.g / u.cm**3,
-                                       ionization="full")
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=1 * u.pc, density=rho * u.g / u.cm**3, ionization="full"
+    )
     from rtrace.physics.ionization import Composition
+
     comp = Composition()
     expected = comp.hydrogen_number_density(1e-21) + comp.helium_number_density(1e-21)
     assert np.allclose(snap._ne, expected, rtol=1e-6)
     assert "full" in snap.provenance["ionization"]
-    cold = rtrace.Snapshot.from_arrays(temperature=np.full(t.shape, 100.0) * u.K, cell_size=1 * u.pc,
-                                       density=rho * u.g / u.cm**3, ionization="threshold")
+    cold = rtrace.Snapshot.from_arrays(
+        temperature=np.full(t.shape, 100.0) * u.K,
+        cell_size=1 * u.pc,
+        density=rho * u.g / u.cm**3,
+        ionization="threshold",
+    )
     assert cold._ne.max() == 0
     with pytest.raises(InputError, match="density: 1 of 120 cells violate density >= 0"):
         bad = rho.copy()
         bad[1, 1, 1] = -1
         rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc, density=bad * u.g / u.cm**3)
     with pytest.raises(InputError, match="not both"):
-        rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc, density=rho * u.g / u.cm**3,
-                                    electron_density=rho * u.cm**-3)
+        rtrace.Snapshot.from_arrays(
+            temperature=t * u.K, cell_size=1 * u.pc, density=rho * u.g / u.cm**3, electron_density=rho * u.cm**-3
+        )
 
 
 def test_validation_happens_before_ionization_work():
@@ -108,8 +121,9 @@ def test_validation_happens_before_ionization_work():
     t, _ = arrays()
     t[2, 2, 2] = np.nan
     with pytest.raises(InputError, match="temperature: 1 of 120 cells are not finite"):
-        rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=1 * u.pc,
-                                    density=np.full(t.shape, 1e-22) * u.g / u.cm**3, ionization="saha")
+        rtrace.Snapshot.from_arrays(
+            temperature=t * u.K, cell_size=1 * u.pc, density=np.full(t.shape, 1e-22) * u.g / u.cm**3, ionization="saha"
+        )
 
 
 def test_relativistic_temperature_warns():
@@ -140,5 +154,5 @@ def test_trace_validation():
         rtrace.trace(snap, view, [1, -2] * u.GHz)
     with pytest.raises(InputError, match="background: unknown name"):
         rtrace.trace(snap, view, [1] * u.GHz, background="sky")
-    res = rtrace.trace(snap, view, 21 * u.cm)          # wavelengths are accepted
+    res = rtrace.trace(snap, view, 21 * u.cm)  # wavelengths are accepted
     assert res.frequencies.to_value(u.GHz) == pytest.approx(1.4275, rel=1e-4)

@@ -24,8 +24,8 @@ from rtrace.physics import gaunt_factor
 from rtrace.physics.ionization import Composition, IonizingSources
 
 PURE_H = Composition(hydrogen=1.0, helium=0.0)
-M_H = (sc.m_p + sc.m_e) * 1e3                  # g, hydrogen atom (scipy CODATA)
-M_HE = 4.002602 * sc.atomic_mass * 1e3         # g (standard atomic weight, from memory)
+M_H = (sc.m_p + sc.m_e) * 1e3  # g, hydrogen atom (scipy CODATA)
+M_HE = 4.002602 * sc.atomic_mass * 1e3  # g (standard atomic weight, from memory)
 PC = u.pc.to(u.cm)
 
 
@@ -46,8 +46,14 @@ def uniform(n, box_pc=4.0, n_h=100.0, T=1e4, comp=PURE_H):
 
 
 def build(rho, T, dx_pc, model, **kw):
-    return rtrace.Snapshot.from_arrays(temperature=T * u.K, cell_size=dx_pc * u.pc, density=rho * u.g / u.cm**3,
-                                       ionization=model, dtype=np.float64, **kw)
+    return rtrace.Snapshot.from_arrays(
+        temperature=T * u.K,
+        cell_size=dx_pc * u.pc,
+        density=rho * u.g / u.cm**3,
+        ionization=model,
+        dtype=np.float64,
+        **kw,
+    )
 
 
 def recombinations(snap, T=None):
@@ -60,6 +66,7 @@ def recombinations(snap, T=None):
 def test_case_b_coefficient_against_its_table_value():
     # Osterbrock & Ferland (2006), table 2.1 (from memory): alpha_B(1e4 K) = 2.59e-13 cm^3 s^-1.
     from rtrace.physics.ionization.tables import case_b_coefficient
+
     assert alpha_b(1e4) == pytest.approx(2.59e-13, rel=5e-3)
     T = np.geomspace(3e3, 1e7, 40)
     np.testing.assert_allclose(case_b_coefficient(T), alpha_b(T), rtol=1e-6)
@@ -89,7 +96,7 @@ def test_stromgren_sphere_volume(n):
     inside = x[r < r_s - 1.8 * dx * PC]
     assert np.count_nonzero(inside > 0.999) >= 0.999 * inside.size and inside.min() > 0.7
     assert np.all(x[r < r_s - 3.0 * dx * PC] > 0.999)
-    assert np.all(x[r > r_s + 1.8 * dx * PC] < 0.01)     # collisional equilibrium at 1e4 K: x = 1.7e-3
+    assert np.all(x[r > r_s + 1.8 * dx * PC] < 0.01)  # collisional equilibrium at 1e4 K: x = 1.7e-3
     assert "100% absorbed" in snap.provenance["photon_budget"]
 
 
@@ -110,7 +117,7 @@ def test_photon_conservation(sigma):
     # subtract what collisional equilibrium alone ionizes at 1e4 K (x = 1.7e-3), outside the region
     neutral = build(rho, T, 4.0 / n, "collisional")
     photo = recombinations(snap) - recombinations(neutral)
-    assert photo / Q == pytest.approx(1.0, abs=1e-3)      # measured: 1e-5 (float32 storage)
+    assert photo / Q == pytest.approx(1.0, abs=1e-3)  # measured: 1e-5 (float32 storage)
 
 
 def test_dense_clump_casts_a_shadow():
@@ -124,11 +131,11 @@ def test_dense_clump_casts_a_shadow():
     rho[clump] *= 100.0
     src = IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H)
     x = build(rho, T, dx, src).electron_density.value / rho * M_H
-    at = lambda px, py, pz: x[int(px / dx), int(py / dx), int(pz / dx)]      # noqa: E731
-    assert at(3.1, 2.0, 2.0) < 0.01            # behind the clump, 1.1 pc from the star (R_S = 1.46 pc)
-    assert at(0.9, 2.0, 2.0) > 0.999           # the same distance on the other side
-    assert at(2.0, 3.1, 2.0) > 0.999           # and sideways
-    assert at(3.1, 2.0 + 0.8, 2.0) > 0.999     # outside the shadow's cone (half-angle asin(0.2/0.5) = 24 deg)
+    at = lambda px, py, pz: x[int(px / dx), int(py / dx), int(pz / dx)]  # noqa: E731
+    assert at(3.1, 2.0, 2.0) < 0.01  # behind the clump, 1.1 pc from the star (R_S = 1.46 pc)
+    assert at(0.9, 2.0, 2.0) > 0.999  # the same distance on the other side
+    assert at(2.0, 3.1, 2.0) > 0.999  # and sideways
+    assert at(3.1, 2.0 + 0.8, 2.0) > 0.999  # outside the shadow's cone (half-angle asin(0.2/0.5) = 24 deg)
 
 
 def test_two_distant_sources_make_two_equal_spheres():
@@ -136,11 +143,12 @@ def test_two_distant_sources_make_two_equal_spheres():
     dx = 6.0 / n_x * 2 / 2
     rho = np.full((n_x, n, n), 100.0 * M_H)
     T = np.full(rho.shape, 1e4)
-    dx = 0.1   # pc: the box is 7.2 x 2.4 x 2.4 pc
-    src = IonizingSources(positions=[[1.8, 1.2, 1.2], [5.4, 1.2, 1.2]] * u.pc, rates=[3e47, 3e47] / u.s,
-                          composition=PURE_H)
+    dx = 0.1  # pc: the box is 7.2 x 2.4 x 2.4 pc
+    src = IonizingSources(
+        positions=[[1.8, 1.2, 1.2], [5.4, 1.2, 1.2]] * u.pc, rates=[3e47, 3e47] / u.s, composition=PURE_H
+    )
     x = build(rho, T, dx, src).electron_density.value / 100.0
-    left, right = np.sum(x[: n_x // 2] ** 2), np.sum(x[n_x // 2:] ** 2)
+    left, right = np.sum(x[: n_x // 2] ** 2), np.sum(x[n_x // 2 :] ** 2)
     assert left / right == pytest.approx(1.0, abs=0.005)
     expected = 4 / 3 * np.pi * stromgren_radius(3e47, 100, 100, 1e4) ** 3 / (dx * PC) ** 3
     assert left / expected == pytest.approx(1.0, abs=0.015)
@@ -151,8 +159,9 @@ def test_overlapping_sources_count_each_photon_once():
     # both, Q1 + Q2 = alpha_B n^2 V (no recombination paid twice, none left unpaid).
     rho, T, dx = uniform(40)
     Q = 3e47
-    src = IonizingSources(positions=[[1.5, 2.0, 2.0], [2.5, 2.0, 2.0]] * u.pc, rates=[Q, 0.7 * Q] / u.s,
-                          composition=PURE_H)
+    src = IonizingSources(
+        positions=[[1.5, 2.0, 2.0], [2.5, 2.0, 2.0]] * u.pc, rates=[Q, 0.7 * Q] / u.s, composition=PURE_H
+    )
     snap = build(rho, T, dx, src)
     neutral = build(rho, T, dx, "collisional")
     assert (recombinations(snap) - recombinations(neutral)) / (1.7 * Q) == pytest.approx(1.0, abs=1e-3)
@@ -170,16 +179,21 @@ def test_thin_flux_of_a_stromgren_sphere():
     view = rtrace.View(los=(0, 0, 1), north=(0, 1, 0), npix=64, width=4.0 * u.pc, distance=D)
     res = rtrace.trace(snap, view, [nu.value] * nu.unit)
     assert float(res.tau.max()) < 1e-3
-    e, m_e, c, k, h = (const.e.gauss.value, const.m_e.cgs.value, const.c.cgs.value, const.k_B.cgs.value,
-                       const.h.cgs.value)
+    e, m_e, c, k, h = (
+        const.e.gauss.value,
+        const.m_e.cgs.value,
+        const.c.cgs.value,
+        const.k_B.cgs.value,
+        const.h.cgs.value,
+    )
     prefactor = 2**5 * np.pi * e**6 / (3 * m_e * c**3) * np.sqrt(2 * np.pi / (3 * k * m_e))
     assert prefactor == pytest.approx(6.84e-38, rel=2e-3)
-    g = float(gaunt_factor(nu, 1e4 * u.K))        # exact thermal average (tests/test_gaunt.py)
+    g = float(gaunt_factor(nu, 1e4 * u.K))  # exact thermal average (tests/test_gaunt.py)
     # Draine (2011), eq. 10.9 (from memory): an interpolation good to ~1% in the radio
     g_draine = np.log(np.exp(5.960 - np.sqrt(3) / np.pi * np.log(nu.to_value(u.GHz))) + np.e)
     assert g == pytest.approx(g_draine, rel=0.02)
     j_per_ne_ni = prefactor / (4 * np.pi) / np.sqrt(1e4) * np.exp(-h * nu.to_value(u.Hz) / (k * 1e4)) * g
-    emission_volume = Q / alpha_b(1e4)                            # n_e n_p V, cm^-3
+    emission_volume = Q / alpha_b(1e4)  # n_e n_p V, cm^-3
     expected = j_per_ne_ni * emission_volume / D.to_value(u.cm) ** 2 * 1e23 * 4 * np.pi / (4 * np.pi)
     flux = float(res.flux_density()[0].to_value(u.Jy))
     # collisional ionization at 1e4 K adds (1.7e-3)^2 of n^2 outside the sphere: negligible
@@ -188,30 +202,34 @@ def test_thin_flux_of_a_stromgren_sphere():
 
 def test_ionized_temperature_for_a_run_without_photoheating():
     rho, T, dx = uniform(24, T=100.0)
-    src = IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H,
-                          ionized_temperature=1e4 * u.K)
+    src = IonizingSources(
+        positions=[[2.0, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H, ionized_temperature=1e4 * u.K
+    )
     snap = build(rho, T, dx, src)
     x = snap.electron_density.value / 100.0
     t_e = snap.temperature.value
     assert np.all(t_e[x > 0.5] == 1e4) and np.all(t_e[x == 0] == 100.0)
     # alpha_B is taken at 1e4 K: the same sphere as warm gas
-    np.testing.assert_allclose(snap.electron_density.value,
-                               build(*uniform(24), IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc,
-                                                                   rates=[1e48] / u.s, composition=PURE_H))
-                               .electron_density.value, atol=0.2)
+    np.testing.assert_allclose(
+        snap.electron_density.value,
+        build(
+            *uniform(24), IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H)
+        ).electron_density.value,
+        atol=0.2,
+    )
     plain = IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H)
     with pytest.warns(PhysicsRangeWarning, match="colder than 5000 K.*ionized_temperature"):
         build(rho, T, dx, plain)
 
 
 def test_hot_gas_stays_ionized_and_helium_follows_hydrogen():
-    comp = Composition()         # X = 0.70, Y = 0.28
+    comp = Composition()  # X = 0.70, Y = 0.28
     rho, T, dx = uniform(32, n_h=30.0, comp=comp)
     c = (np.arange(32) + 0.5) * dx
     X, Y, Z = np.meshgrid(c, c, c, indexing="ij")
     bubble = (X - 3.4) ** 2 + (Y - 3.4) ** 2 + (Z - 3.4) ** 2 < 0.4**2
     T[bubble] = 1e6
-    src = IonizingSources(positions=[[1.0, 1.0, 1.0]] * u.pc, rates=[1e47] / u.s)   # R_S ~ 1 pc
+    src = IonizingSources(positions=[[1.0, 1.0, 1.0]] * u.pc, rates=[1e47] / u.s)  # R_S ~ 1 pc
     snap = build(rho, T, dx, src)
     n_h = comp.hydrogen * rho / M_H
     n_he = comp.helium * rho / M_HE
@@ -242,8 +260,13 @@ def test_temperature_from_pressure_with_sources():
     # the heated region reaches 1.5 cells past R_S, so the front lies in 1e4 K gas
     pressure = np.where(r < r_s + 1.5 * dx, 2 * 100.0 * k * 1e4, 100.0 * k * 100.0)
     src = IonizingSources(positions=[[2.0, 2.0, 2.0]] * u.pc, rates=[Q] / u.s, composition=PURE_H)
-    snap = rtrace.Snapshot.from_arrays(pressure=pressure * u.dyn / u.cm**2, cell_size=dx * u.pc,
-                                       density=rho * u.g / u.cm**3, ionization=src, dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        pressure=pressure * u.dyn / u.cm**2,
+        cell_size=dx * u.pc,
+        density=rho * u.g / u.cm**3,
+        ionization=src,
+        dtype=np.float64,
+    )
     t = snap.temperature.value
     inner = r < r_s - 2 * dx
     np.testing.assert_allclose(t[inner], 1e4, rtol=1e-3)
@@ -251,9 +274,13 @@ def test_temperature_from_pressure_with_sources():
     # Photons balance the recombinations, at each cell's own temperature, of the cells that photons
     # ionized (those more ionized than collisional equilibrium alone makes them at the same pressure; the
     # warm ring just outside R_S is partly collisionally ionized, and pays no photons).
-    collisional = rtrace.Snapshot.from_arrays(pressure=pressure * u.dyn / u.cm**2, cell_size=dx * u.pc,
-                                              density=rho * u.g / u.cm**3, ionization="collisional",
-                                              dtype=np.float64)
+    collisional = rtrace.Snapshot.from_arrays(
+        pressure=pressure * u.dyn / u.cm**2,
+        cell_size=dx * u.pc,
+        density=rho * u.g / u.cm**3,
+        ionization="collisional",
+        dtype=np.float64,
+    )
     lit = snap.electron_density.value > collisional.electron_density.value * (1 + 1e-9) + 1e-12
     ne = snap.electron_density.value
     balance = np.sum((alpha_b(t) * ne * snap.ion_density.value)[lit]) * (dx * PC) ** 3
@@ -265,11 +292,12 @@ def test_source_outside_the_grid():
     outside = IonizingSources(positions=[[-0.3, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H)
     with pytest.raises(InputError, match=r"positions: 1 of 1 sources lie outside the grid.*allow_outside=True"):
         build(rho, T, dx, outside)
-    allowed = IonizingSources(positions=[[-0.3, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H,
-                              allow_outside=True)
+    allowed = IonizingSources(
+        positions=[[-0.3, 2.0, 2.0]] * u.pc, rates=[1e48] / u.s, composition=PURE_H, allow_outside=True
+    )
     snap = build(rho, T, dx, allowed)
     x = snap.electron_density.value / 100.0
-    assert x[0, 12, 12] > 0.999 and x[-1, 12, 12] < 0.01        # the near face is lit, the far side not
+    assert x[0, 12, 12] > 0.999 and x[-1, 12, 12] < 0.01  # the near face is lit, the far side not
     budget = snap.provenance["photon_budget"]
     missed = float(budget.split("left it, ")[1].split("%")[0]) / 100
     # The 4 pc x 4 pc face seen from 0.3 pc on its axis subtends 4 arcsin(ab / sqrt((a^2 + d^2)(b^2 + d^2)))
@@ -280,18 +308,23 @@ def test_source_outside_the_grid():
     assert missed == pytest.approx(1 - omega / (4 * np.pi), abs=0.002)
 
 
-@pytest.mark.parametrize("kwargs, message", [
-    (dict(positions=[[1, 2, 3]] * u.pc, rates=[-1.0] / u.s), r"rates: 1 of 1 rates are negative or not finite"),
-    (dict(positions=[[1, 2, 3]] * u.pc, rates=[np.nan] / u.s), r"rates: 1 of 1 rates are negative"),
-    (dict(positions=[[1, 2, 3]], rates=[1e48] / u.s), r"positions: expected lengths as an astropy Quantity"),
-    (dict(positions=[[1, 2, 3]] * u.K, rates=[1e48] / u.s), r"positions: expected lengths, got unit 'K'"),
-    (dict(positions=[[1, 2]] * u.pc, rates=[1e48] / u.s), r"positions: expected shape \(n, 3\)"),
-    (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48, 1e48] / u.s), r"rates: 2 rate\(s\) for 1 source"),
-    (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48] * u.m), r"rates: expected photon rates"),
-    (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48] / u.s, ionized_temperature=-5 * u.K),
-     r"ionized_temperature: expected one finite temperature > 0 K"),
-    (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48] / u.s, helium="double"), r"helium: 'double' is not valid"),
-])
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [
+        (dict(positions=[[1, 2, 3]] * u.pc, rates=[-1.0] / u.s), r"rates: 1 of 1 rates are negative or not finite"),
+        (dict(positions=[[1, 2, 3]] * u.pc, rates=[np.nan] / u.s), r"rates: 1 of 1 rates are negative"),
+        (dict(positions=[[1, 2, 3]], rates=[1e48] / u.s), r"positions: expected lengths as an astropy Quantity"),
+        (dict(positions=[[1, 2, 3]] * u.K, rates=[1e48] / u.s), r"positions: expected lengths, got unit 'K'"),
+        (dict(positions=[[1, 2]] * u.pc, rates=[1e48] / u.s), r"positions: expected shape \(n, 3\)"),
+        (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48, 1e48] / u.s), r"rates: 2 rate\(s\) for 1 source"),
+        (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48] * u.m), r"rates: expected photon rates"),
+        (
+            dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48] / u.s, ionized_temperature=-5 * u.K),
+            r"ionized_temperature: expected one finite temperature > 0 K",
+        ),
+        (dict(positions=[[1, 2, 3]] * u.pc, rates=[1e48] / u.s, helium="double"), r"helium: 'double' is not valid"),
+    ],
+)
 def test_bad_sources_are_named(kwargs, message):
     with pytest.raises(InputError, match=message):
         IonizingSources(**kwargs)
@@ -300,13 +333,18 @@ def test_bad_sources_are_named(kwargs, message):
 def test_sources_need_mass_density():
     src = IonizingSources(positions=[[1, 1, 1]] * u.pc, rates=[1e48] / u.s)
     with pytest.raises(InputError, match="ionization: only used with density"):
-        rtrace.Snapshot.from_arrays(temperature=np.full((4, 4, 4), 1e4) * u.K, cell_size=0.5 * u.pc,
-                                    electron_density=np.ones((4, 4, 4)) / u.cm**3, ionization=src)
+        rtrace.Snapshot.from_arrays(
+            temperature=np.full((4, 4, 4), 1e4) * u.K,
+            cell_size=0.5 * u.pc,
+            electron_density=np.ones((4, 4, 4)) / u.cm**3,
+            ionization=src,
+        )
 
 
 def test_source_checks_come_before_the_work(monkeypatch):
     # Common practice (and DEVELOPERS.md): a mistake in the sources is found before any ray is cast.
     from rtrace.physics.ionization import sources
+
     calls = []
     monkeypatch.setattr(sources, "cast_source", lambda *a: calls.append(1))
     rho, T, dx = uniform(8)

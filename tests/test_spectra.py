@@ -29,10 +29,10 @@ from rtrace.analysis import (
 from rtrace.errors import InputError, PhysicsRangeWarning
 from rtrace.physics import absorption_coefficient, planck
 
-T_SLAB = 8000.0          # K
-NE_SLAB = 2000.0         # cm-3
+T_SLAB = 8000.0  # K
+NE_SLAB = 2000.0  # cm-3
 CELL_PC = 0.01
-N_ALONG = 40             # cells along the line of sight
+N_ALONG = 40  # cells along the line of sight
 L_SLAB = N_ALONG * CELL_PC * u.pc
 
 
@@ -59,6 +59,7 @@ def slab_intensity(nu_hz, ne=NE_SLAB):
 
 # --- SED -------------------------------------------------------------------------------------
 
+
 def test_sed_of_whole_image_equals_flux_density(tiny):
     nu, flux = sed(tiny)
     assert nu.unit == u.Hz and flux.unit == u.Jy
@@ -69,7 +70,7 @@ def test_sed_of_whole_image_equals_flux_density(tiny):
 def test_circle_aperture_counts_pixel_centres_inside(tiny):
     # Pixel (row, col) centred at (col, row); a brute-force loop is the reference.
     col0, row0, radius = 20.3, 25.7, 9.5
-    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23     # Jy (1 Jy = 1e-23 cgs)
+    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23  # Jy (1 Jy = 1e-23 cgs)
     expected = np.zeros(len(tiny.frequencies))
     count = 0
     for row in range(48):
@@ -99,14 +100,14 @@ def test_mask_aperture_and_its_complement_add_up(tiny):
 
 def _centres_within(shape, col0, row0, radius):
     """Pixels whose centres lie within ``radius`` of ``(col0, row0)``, edge included (the definition)."""
-    rows, cols = np.mgrid[0:shape[0], 0:shape[1]]
+    rows, cols = np.mgrid[0 : shape[0], 0 : shape[1]]
     return (cols - col0) ** 2 + (rows - row0) ** 2 <= radius**2
 
 
 def test_regions_apertures_select_the_same_pixels_as_the_circle_tuple(tiny):
     # regions (Astropy Regions package) gives the masks; the sums must be those of the written-out rule
     rng = np.random.default_rng(7)
-    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23     # Jy (1 Jy = 1e-23 cgs)
+    per_pixel = tiny.intensity.value * tiny.pixel_solid_angle.to_value(u.sr) * 1e23  # Jy (1 Jy = 1e-23 cgs)
     circles = [(24, 24, 12), (2, 3, 1.0), (0, 0, 5), (47, 10, 3), (23.5, 23.5, 2.0), (10, 40, 0.5)]
     circles += [tuple(rng.uniform(-3, 50, 2)) + (float(rng.uniform(0.3, 30)),) for _ in range(40)]
     circles += [(float(c), float(r), float(rad)) for c, r, rad in rng.integers(0, 48, (20, 3)) + (0, 0, 1)]
@@ -139,20 +140,23 @@ def test_sky_region_aperture_is_placed_with_the_image_wcs(tiny):
     with pytest.raises(InputError, match="sky region .* needs the image's WCS"):
         aperture_mask((48, 48), circle)
     box = regions.RectanglePixelRegion(regions.PixCoord(10, 20), width=5, height=3)
-    assert aperture_mask((48, 48), box).sum() == 15            # 5 x 3 pixel centres
+    assert aperture_mask((48, 48), box).sum() == 15  # 5 x 3 pixel centres
 
 
-@pytest.mark.parametrize("aperture, words", [
-    (np.ones((47, 48), bool), "shape"),
-    (np.ones((48, 48), int), "boolean"),
-    (np.zeros((48, 48), bool), "selects none"),
-    ((10, 10, 0), "radius"),
-    ((10, 10, -2), "radius"),
-    ((500, 500, 3), "selects none"),
-    ((10, 10), "three"),
-    ((10, np.nan, 3), "three"),
-    ("centre", "aperture"),
-])
+@pytest.mark.parametrize(
+    "aperture, words",
+    [
+        (np.ones((47, 48), bool), "shape"),
+        (np.ones((48, 48), int), "boolean"),
+        (np.zeros((48, 48), bool), "selects none"),
+        ((10, 10, 0), "radius"),
+        ((10, 10, -2), "radius"),
+        ((500, 500, 3), "selects none"),
+        ((10, 10), "three"),
+        ((10, np.nan, 3), "three"),
+        ("centre", "aperture"),
+    ],
+)
 def test_bad_apertures_raise(tiny, aperture, words):
     with pytest.raises(InputError, match="aperture") as info:
         sed(tiny, aperture)
@@ -161,17 +165,24 @@ def test_bad_apertures_raise(tiny, aperture, words):
 
 def skymap_standin(res, beams, noise=None, model=None):
     """A SkyMap look-alike: the Result's intensity times each beam's solid angle, in Jy/beam, unconvolved."""
-    jy_per_sr = res.intensity.value * 1e23            # 1 Jy = 1e-23 erg s-1 cm-2 Hz-1 (definition)
+    jy_per_sr = res.intensity.value * 1e23  # 1 Jy = 1e-23 erg s-1 cm-2 Hz-1 (definition)
     data = np.stack([jy_per_sr[i] * b.sr.to_value(u.sr) for i, b in enumerate(beams)]) * u.Jy / u.beam
     return types.SimpleNamespace(
-        data=data, model=data if model is None else model, beam=beams[0], beams=beams,
-        frequencies=res.frequencies, pixel_scale=res.pixel_scale, pixel_size=res.pixel_size,
-        distance=res.view.distance, noise_rms=noise, result=res)
+        data=data,
+        model=data if model is None else model,
+        beam=beams[0],
+        beams=beams,
+        frequencies=res.frequencies,
+        pixel_scale=res.pixel_scale,
+        pixel_size=res.pixel_size,
+        distance=res.view.distance,
+        noise_rms=noise,
+        result=res,
+    )
 
 
 def test_skymap_sed_converts_with_the_beam_area(tiny):
-    beams = [Beam(major=(20 / f) * u.arcsec, minor=(12 / f) * u.arcsec, pa=30 * u.deg)
-             for f in (0.3, 1, 3, 10, 30)]
+    beams = [Beam(major=(20 / f) * u.arcsec, minor=(12 / f) * u.arcsec, pa=30 * u.deg) for f in (0.3, 1, 3, 10, 30)]
     # The Gaussian beam solid angle pi theta_maj theta_min / (4 ln 2) (Condon & Ransom 2016, from memory)
     omega = math.pi * (20 * u.arcsec) * (12 * u.arcsec) / (4 * math.log(2))
     assert math.isclose(beams[1].sr.to_value(u.sr), omega.to_value(u.sr), rel_tol=1e-10)
@@ -185,13 +196,14 @@ def test_skymap_sed_converts_with_the_beam_area(tiny):
 
 def test_sed_of_an_observed_skymap_matches_its_flux_density(tiny):
     from rtrace.observe import observe
-    sky = observe(tiny, Beam(major=15 * u.arcsec, minor=10 * u.arcsec, pa=20 * u.deg), noise=1 * u.mJy / u.beam,
-                  seed=3)
+
+    sky = observe(tiny, Beam(major=15 * u.arcsec, minor=10 * u.arcsec, pa=20 * u.deg), noise=1 * u.mJy / u.beam, seed=3)
     _, flux = sed(sky)
     assert np.allclose(flux.to_value(u.Jy), sky.flux_density().to_value(u.Jy), rtol=1e-10)
 
 
 # --- spectral indices --------------------------------------------------------------------------
+
 
 def test_spectral_index_of_a_power_law():
     nu = [1, 2, 8, 10] * u.GHz
@@ -210,15 +222,17 @@ def test_spectral_index_of_a_power_law():
 def test_uniform_slab_thick_and_thin_indices():
     freqs = np.array([0.01, 0.0105, 20.0, 30.0]) * 1e9
     res = trace_slab(freqs * u.Hz)
-    assert res.tau[0].min() > 100 and res.tau[-1].max() < 1e-2        # really thick / really thin
+    assert res.tau[0].min() > 100 and res.tau[-1].max() < 1e-2  # really thick / really thin
     alpha = spectral_index(*sed(res))
     # Rayleigh-Jeans thick limit S ~ nu^2 (Rybicki & Lightman 1979, eq. 1.54)
     assert abs(alpha[0] - 2.0) < 1e-3
     # thin free-free alpha ~ -0.1 (Condon & Ransom 2016, from memory): the Gaunt factor's slow fall
     assert -0.2 < alpha[2] < -0.05
     # and exactly the index of B_nu(T)(1 - e^-tau) with tau from the absorption coefficient
-    exact = [math.log(slab_intensity(b) / slab_intensity(a)) / math.log(b / a)
-             for a, b in zip(freqs[:-1], freqs[1:], strict=True)]
+    exact = [
+        math.log(slab_intensity(b) / slab_intensity(a)) / math.log(b / a)
+        for a, b in zip(freqs[:-1], freqs[1:], strict=True)
+    ]
     assert np.allclose(alpha, exact, rtol=1e-6, atol=1e-8)
 
 
@@ -231,8 +245,13 @@ def test_spectral_index_map_of_a_slab_matches_the_sed_index():
     # planes found within 1 % of the request, or by index
     assert np.array_equal(spectral_index_map(res, 1.005 * u.GHz, 2.98 * u.GHz), amap)
     assert np.array_equal(spectral_index_map(res, 1, 2), amap)
-    for nu1, nu2, name in ((1.02 * u.GHz, 3 * u.GHz, "nu1"), (1 * u.GHz, 5 * u.GHz, "nu2"),
-                           (1 * u.GHz, 1 * u.GHz, "nu2"), (1 * u.kg, 3 * u.GHz, "nu1"), (0, 7, "nu2")):
+    for nu1, nu2, name in (
+        (1.02 * u.GHz, 3 * u.GHz, "nu1"),
+        (1 * u.GHz, 5 * u.GHz, "nu2"),
+        (1 * u.GHz, 1 * u.GHz, "nu2"),
+        (1 * u.kg, 3 * u.GHz, "nu1"),
+        (0, 7, "nu2"),
+    ):
         with pytest.raises(InputError, match=name):
             spectral_index_map(res, nu1, nu2)
 
@@ -261,25 +280,24 @@ def test_spectral_index_map_snr_cut_uses_model_over_noise(tiny):
     assert low.any() and (~low).any()
     assert np.array_equal(np.isnan(amap), low)
     with pytest.raises(InputError, match="snr_threshold"):
-        spectral_index_map(tiny, 1, 4, snr_threshold=3)          # a Result has no noise
+        spectral_index_map(tiny, 1, 4, snr_threshold=3)  # a Result has no noise
 
 
 # --- tau = 1 -----------------------------------------------------------------------------------
 
-FINE = np.geomspace(0.1e9, 10e9, 41)          # 5 % steps in frequency
+FINE = np.geomspace(0.1e9, 10e9, 41)  # 5 % steps in frequency
 
 
 def unity_frequency(ne):
     """Frequency where alpha_nu L = 1, found independently by root finding in ln nu."""
-    return math.exp(brentq(lambda x: math.log(slab_tau(math.exp(x), ne)), math.log(1e7), math.log(1e12),
-                           xtol=1e-12))
+    return math.exp(brentq(lambda x: math.log(slab_tau(math.exp(x), ne)), math.log(1e7), math.log(1e12), xtol=1e-12))
 
 
 def test_tau_unity_frequency_of_a_uniform_slab():
     res = trace_slab(FINE * u.Hz)
     per_pixel, whole = tau_unity_frequency(res)
     nu1 = unity_frequency(NE_SLAB)
-    assert 0.2e9 < nu1 < 5e9                     # well inside the traced range
+    assert 0.2e9 < nu1 < 5e9  # well inside the traced range
     assert per_pixel.unit == u.Hz and per_pixel.shape == (4, 4)
     assert np.allclose(per_pixel.value, nu1, rtol=0.01)
     # uniform slab: every pixel alike, so the intensity-weighted <tau> is tau itself
@@ -301,10 +319,14 @@ def test_tau_unity_frequency_per_column_and_weighted_whole():
     densities = [3000.0, 3000.0, 900.0, 900.0, 900.0, 0.0]
     for i, d in enumerate(densities):
         ne[i] = d
-    snap = rtrace.Snapshot.from_arrays(temperature=np.full(ne.shape, T_SLAB) * u.K, cell_size=CELL_PC * u.pc,
-                                       electron_density=ne * u.cm**-3, dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=np.full(ne.shape, T_SLAB) * u.K,
+        cell_size=CELL_PC * u.pc,
+        electron_density=ne * u.cm**-3,
+        dtype=np.float64,
+    )
     view = rtrace.View(npix=(ny, nx), width=nx * CELL_PC * u.pc, distance=1 * u.kpc)
-    res = rtrace.trace(snap, view, FINE[::-1] * u.Hz)          # descending order must not matter
+    res = rtrace.trace(snap, view, FINE[::-1] * u.Hz)  # descending order must not matter
     per_pixel, whole = tau_unity_frequency(res)
     # column axis is west = north x los = +x, so column i holds density densities[i]
     for i, d in enumerate(densities):
@@ -352,6 +374,7 @@ def test_tau_unity_of_the_demo_lies_between_its_thick_and_thin_frequencies(tiny)
 
 # --- ECSV table ----------------------------------------------------------------------------------
 
+
 def test_sed_table_round_trip(tiny, tmp_path):
     nu, flux = sed(tiny, (24, 24, 12))
     meta = sed_metadata(tiny, (24, 24, 12))
@@ -370,7 +393,7 @@ def test_sed_table_round_trip(tiny, tmp_path):
     assert np.array_equal(table["flux_density"].quantity.to_value(u.Jy), flux.to_value(u.Jy))
     assert np.allclose(table["spectral_index"][:-1], spectral_index(nu, flux), rtol=1e-14)
     assert np.isnan(table["spectral_index"][-1])
-    assert table.meta["note"] == "two lines" and table.meta["view"] == meta["view"]      # one line each
+    assert table.meta["note"] == "two lines" and table.meta["view"] == meta["view"]  # one line each
     assert table.meta["background"] == meta["background"]
     # below the '#' lines the file is plain CSV: names, then rows (common practice)
     rows = list(csv.reader(line for line in path.read_text().splitlines() if not line.startswith("#")))
@@ -401,14 +424,16 @@ POWER_NU = [1.0, 2.0, 4.0] * u.GHz
 def power_law_result(npix=96, alpha=POWER_LAW_ALPHA):
     """A Result whose every pixel has S ~ nu^alpha: two Gaussian blobs on empty sky, 1 arcsec pixels."""
     from rtrace.transfer.result import Result
+
     distance = 1 * u.kpc
     pix_cm = (1 * u.arcsec).to_value(u.rad) * distance.to_value(u.cm)
     view = rtrace.View(npix=npix, width=npix * pix_cm * u.cm, distance=distance)
     rows, cols = np.mgrid[0:npix, 0:npix]
     c = (npix - 1) / 2
-    shape = (np.exp(-((rows - c) ** 2 + (cols - c) ** 2) / (2 * 6.0**2))
-             + 0.5 * np.exp(-((rows - c - 9) ** 2 + (cols - c + 7) ** 2) / (2 * 2.0**2)))
-    shape[:, :8] = 0.0                   # empty sky: a strip with no emission at all
+    shape = np.exp(-((rows - c) ** 2 + (cols - c) ** 2) / (2 * 6.0**2)) + 0.5 * np.exp(
+        -((rows - c - 9) ** 2 + (cols - c + 7) ** 2) / (2 * 2.0**2)
+    )
+    shape[:, :8] = 0.0  # empty sky: a strip with no emission at all
     nu = POWER_NU.to_value(u.Hz)
     intensity = 1e-15 * shape[None] * (nu / nu[0])[:, None, None] ** alpha
     tau = np.zeros_like(intensity)
@@ -421,6 +446,7 @@ def test_power_law_observed_with_inverse_frequency_beams_recovers_its_index():
     # (common practice; any imaging text), so smoothing the sharper map with the deconvolution kernel
     # brings both to the larger beam, where ln(S2/S1)/ln(nu2/nu1) = alpha exactly.
     from rtrace.observe import observe
+
     res = power_law_result()
     beam = Beam(major=12 * u.arcsec, minor=8 * u.arcsec, pa=30 * u.deg)
     sky = observe(res, beam, beam_scaling="inverse-frequency")
@@ -429,7 +455,7 @@ def test_power_law_observed_with_inverse_frequency_beams_recovers_its_index():
     assert good.sum() > 1000
     assert np.nanmax(np.abs(amap - POWER_LAW_ALPHA)) < 0.02
     assert amap.smoothed
-    assert math.isclose(amap.beam.major.to_value(u.arcsec), 12.0, rel_tol=1e-9)      # the 1 GHz beam
+    assert math.isclose(amap.beam.major.to_value(u.arcsec), 12.0, rel_tol=1e-9)  # the 1 GHz beam
     assert "peak" in amap.masking
     # the same division at the two native resolutions is wrong by far more (what this fixes)
     raw = spectral_index_map(sky, 1 * u.GHz, 4 * u.GHz, match_beams=False)
@@ -441,13 +467,19 @@ def test_beams_that_do_not_contain_each_other_meet_at_a_common_beam():
     # Two elliptical beams at right angles: neither contains the other, so both are smoothed to
     # the smallest beam containing both (radio-beam's common_beam), and the power law still holds.
     from rtrace.observe import observe
+
     res = power_law_result(alpha=1.3)
     sky = observe(res, Beam(major=9 * u.arcsec, minor=5 * u.arcsec, pa=0 * u.deg))
     other = observe(res, Beam(major=9 * u.arcsec, minor=5 * u.arcsec, pa=90 * u.deg))
-    mixed = types.SimpleNamespace(data=u.Quantity([sky.data[0], other.data[2]]),
-                                  model=u.Quantity([sky.model[0], other.model[2]]),
-                                  beams=[sky.beams[0], other.beams[2]], frequencies=POWER_NU[[0, 2]],
-                                  pixel_scale=res.pixel_scale, noise_rms=None, result=res)
+    mixed = types.SimpleNamespace(
+        data=u.Quantity([sky.data[0], other.data[2]]),
+        model=u.Quantity([sky.model[0], other.model[2]]),
+        beams=[sky.beams[0], other.beams[2]],
+        frequencies=POWER_NU[[0, 2]],
+        pixel_scale=res.pixel_scale,
+        noise_rms=None,
+        result=res,
+    )
     amap = spectral_index_map(mixed, 0, 1)
     assert amap.smoothed and amap.beam.minor > 5 * u.arcsec
     assert np.nanmax(np.abs(amap - 1.3)) < 0.02
@@ -455,9 +487,10 @@ def test_beams_that_do_not_contain_each_other_meet_at_a_common_beam():
 
 def test_empty_sky_is_masked_without_and_with_noise():
     from rtrace.observe import observe
+
     res = power_law_result()
     empty = np.zeros((96, 96), bool)
-    empty[:, :2] = True             # far from the emission: only FFT round-off or noise there
+    empty[:, :2] = True  # far from the emission: only FFT round-off or noise there
     # a model Result: the strip has exactly zero intensity
     assert np.all(np.isnan(spectral_index_map(res, 0, 2)[empty]))
     beam = Beam(major=6 * u.arcsec, minor=6 * u.arcsec, pa=0 * u.deg)
@@ -475,7 +508,7 @@ def test_empty_sky_is_masked_without_and_with_noise():
         with pytest.raises(InputError, match="peak_fraction"):
             spectral_index_map(clean, 0, 2, peak_fraction=bad)
     noisy = observe(res, beam, noise=1e-4 * u.Jy / u.beam, seed=5, beam_scaling="inverse-frequency")
-    amap = spectral_index_map(noisy, 0, 2)           # the S/N cut (3 rms) applies by default
+    amap = spectral_index_map(noisy, 0, 2)  # the S/N cut (3 rms) applies by default
     assert np.all(np.isnan(amap[empty]))
     assert "rms" in amap.masking
     assert np.isfinite(amap).sum() > 500
@@ -487,17 +520,30 @@ def test_noise_rms_after_smoothing_to_the_common_beam_is_measured_rms():
     # check: 16 maps of ~50 independent 16" beams each give the rms to a few per cent).
     from rtrace.analysis.spectra import _to_beam
     from rtrace.observe import observe
+
     res = power_law_result()
-    res._intensity = np.zeros_like(res._intensity)            # empty sky: data = noise
-    sky = observe(res, Beam(major=4 * u.arcsec, minor=3 * u.arcsec, pa=10 * u.deg), noise=1.0 * u.mJy / u.beam,
-                  seed=11, beam_scaling="inverse-frequency", reference_frequency=4 * u.GHz)
-    target = sky.beams[0]                                      # 16" x 12" at 1 GHz
+    res._intensity = np.zeros_like(res._intensity)  # empty sky: data = noise
+    sky = observe(
+        res,
+        Beam(major=4 * u.arcsec, minor=3 * u.arcsec, pa=10 * u.deg),
+        noise=1.0 * u.mJy / u.beam,
+        seed=11,
+        beam_scaling="inverse-frequency",
+        reference_frequency=4 * u.GHz,
+    )
+    target = sky.beams[0]  # 16" x 12" at 1 GHz
     measured, predicted = [], []
     for seed in range(16):
-        sky = observe(res, sky.beam, noise=1.0 * u.mJy / u.beam, seed=seed, beam_scaling="inverse-frequency",
-                      reference_frequency=4 * u.GHz)
+        sky = observe(
+            res,
+            sky.beam,
+            noise=1.0 * u.mJy / u.beam,
+            seed=seed,
+            beam_scaling="inverse-frequency",
+            reference_frequency=4 * u.GHz,
+        )
         (smoothed,), factor = _to_beam(sky, [sky.data.value[2]], 2, target)
-        measured.append(np.mean(smoothed[24:-24, 24:-24] ** 2))      # away from the zero-padded edges
+        measured.append(np.mean(smoothed[24:-24, 24:-24] ** 2))  # away from the zero-padded edges
         predicted.append(1e-3 * factor)
     # about sqrt(A_c / A_i) = 4 for beams 4x larger in each axis (Jy per common beam)
     assert 3.5 < predicted[0] / 1e-3 < 4.5

@@ -43,7 +43,7 @@ def test_every_task_runs_exactly_once(n, threads):
 
 
 def test_no_tasks_runs_nothing():
-    run_tasks(_fail_at, 0, 0)          # would raise if any chunk ran
+    run_tasks(_fail_at, 0, 0)  # would raise if any chunk ran
 
 
 def test_an_error_in_a_task_reaches_the_caller():
@@ -85,12 +85,11 @@ def test_entry_point_reuses_the_compiled_specialisation():
 
 def _sphere(n=20):
     x = (np.arange(n) + 0.5) / n - 0.5
-    r = np.sqrt(x[:, None, None]**2 + x[None, :, None]**2 + x[None, None, :]**2)
+    r = np.sqrt(x[:, None, None] ** 2 + x[None, :, None] ** 2 + x[None, None, :] ** 2)
     rng = np.random.default_rng(7)
     ne = np.where(r < 0.4, rng.uniform(10.0, 300.0, r.shape), 0.0).astype(np.float32)
     temp = rng.uniform(6.0e3, 1.5e4, r.shape).astype(np.float32)
-    return rtrace.Snapshot.from_arrays(temperature=temp * u.K, electron_density=ne * u.cm**-3,
-                                       cell_size=0.01 * u.pc)
+    return rtrace.Snapshot.from_arrays(temperature=temp * u.K, electron_density=ne * u.cm**-3, cell_size=0.01 * u.pc)
 
 
 @pytest.mark.parametrize("los", [(0, 0, 1), (0, 1, 0), (1, 0, 0), (0.2, 0.5, 0.84), (0.85, 0.5, 0.17)])
@@ -133,19 +132,20 @@ def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout(nus):
     # (30 GHz); one frequency without He III (hydrogen: no ratio array; its own row pass) gives what it gives beside
     # another
     from rtrace.transfer.tracer import FrequencyTables
+
     rng = np.random.default_rng(5)
-    shape = (24, 40, 30)                                        # (c, a, b): transposed to (a, b, c) below
-    nn = 10.0 ** rng.uniform(2.0, 7.0, shape)                  # n_e x ion term, cm^-6
+    shape = (24, 40, 30)  # (c, a, b): transposed to (a, b, c) below
+    nn = 10.0 ** rng.uniform(2.0, 7.0, shape)  # n_e x ion term, cm^-6
     nn[rng.random(shape) < 0.3] = 0.0
     temp = rng.uniform(5.0e3, 2.0e4, shape)
-    ratio = np.where(rng.random(shape) < 0.3, 0.9, 1.0)          # n_e / ion term below 1: He III
+    ratio = np.where(rng.random(shape) < 0.3, 0.9, 1.0)  # n_e / ion term below 1: He III
     views = tuple(a.transpose(1, 2, 0) for a in (nn, temp, ratio))
     copies = tuple(np.ascontiguousarray(a) for a in views)
     assert not views[0].flags.c_contiguous
     lo, hi, off = np.zeros(3, np.int64), np.array(views[0].shape, np.int64), np.zeros(3, np.int64)
-    cell = 3.0e16                                               # cm (about 0.01 pc)
+    cell = 3.0e16  # cm (about 0.01 pc)
     segs = kernels.layer_segments(0.25, 0.75, 0.6, -0.35, cell, cell, cell, 0.8, 0, hi[2], True, 8)
-    n_i, n_j = 44, 33                                           # 3 blocks of 16 rows, the last one short
+    n_i, n_j = 44, 33  # 3 blocks of 16 rows, the last one short
 
     def sweep(arrays, threads, freqs=nus):
         tables = FrequencyTables(np.array(freqs))
@@ -154,9 +154,26 @@ def test_oblique_sweep_on_threads_is_the_one_thread_sweep_for_any_layout(nus):
         numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
         out_i, out_tau, out_em = np.zeros((nf, 1, n_i * n_j)), np.zeros((nf, 1, n_i * n_j)), np.zeros((1, n_i * n_j))
         try:
-            kernels.trace_sheared(arrays[0], arrays[1], kernels.emitting_blocks(arrays[0]), lo, hi, off, 0, True,
-                                  -2, n_i, -3, n_j, *segs, *tables.args(), out_i, out_tau, out_em,
-                                  arrays[2] if len(nus) == 2 else None)
+            kernels.trace_sheared(
+                arrays[0],
+                arrays[1],
+                kernels.emitting_blocks(arrays[0]),
+                lo,
+                hi,
+                off,
+                0,
+                True,
+                -2,
+                n_i,
+                -3,
+                n_j,
+                *segs,
+                *tables.args(),
+                out_i,
+                out_tau,
+                out_em,
+                arrays[2] if len(nus) == 2 else None,
+            )
         finally:
             numba.set_num_threads(before)
         return out_i, out_tau, out_em
@@ -188,6 +205,7 @@ def test_split_route_on_threads_does_not_depend_on_the_thread_count(los):
     # projection keeps one buffer per thread, as its prange version did, and sums them at the end); thread count
     # set with numba.set_num_threads (numba's documented API)
     from rtrace.transfer import footprint_kernels, linearized, remap
+
     snap = _sphere()
     north = (1, 0, 0) if abs(los[0]) < 0.5 else (0, 0, 1)
     view = rtrace.View(los=los, north=north, npix=14, width=0.25 * u.pc, distance=1 * u.kpc)
@@ -202,16 +220,21 @@ def test_split_route_on_threads_does_not_depend_on_the_thread_count(los):
         finally:
             numba.set_num_threads(before)
         assert np.all(np.isfinite(one.intensity)) and np.asarray(one.intensity).max() > 0.0
-        for a, b in ((one.intensity, two.intensity), (one.tau, two.tau),
-                     (one.emission_measure, two.emission_measure)):
+        for a, b in ((one.intensity, two.intensity), (one.tau, two.tau), (one.emission_measure, two.emission_measure)):
             a, b = np.asarray(a), np.asarray(b)
             np.testing.assert_allclose(b, a, rtol=1e-12, atol=1e-12 * np.abs(a).max())
-    kernels_used = (linearized.cell_coefficient_grids, linearized.sensitivity_pass, linearized.remainder_pass,
-                    linearized.remainder_trace, footprint_kernels.project_blocks, remap.remap_parallelograms)
+    kernels_used = (
+        linearized.cell_coefficient_grids,
+        linearized.sensitivity_pass,
+        linearized.remainder_pass,
+        linearized.remainder_trace,
+        footprint_kernels.project_blocks,
+        remap.remap_parallelograms,
+    )
     for kernel in kernels_used:
         dispatcher = kernel.dispatcher
-        assert dispatcher.signatures, dispatcher.py_func.__name__          # it ran (compiled or from the cache)
+        assert dispatcher.signatures, dispatcher.py_func.__name__  # it ran (compiled or from the cache)
         assert not dispatcher.targetoptions.get("parallel"), dispatcher.py_func.__name__
-    for kernel in kernels_used[:4]:                                         # one any-layout specialisation
+    for kernel in kernels_used[:4]:  # one any-layout specialisation
         sigs = kernel.dispatcher.signatures
         assert all(a.layout == "A" for s in sigs for a in s if isinstance(a, numba.types.Array)), sigs

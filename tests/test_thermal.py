@@ -17,8 +17,8 @@ from rtrace.errors import InputError
 from rtrace.physics.ionization import CollisionalEquilibrium, Composition, SuppliedFraction, TemperatureThreshold
 from rtrace.physics.ionization.cells import temperature_from_pressure
 
-K_B = sc.k * 1e7                                   # erg/K
-M_H_G = (sc.m_p + sc.m_e) * 1e3                    # hydrogen atom [g]
+K_B = sc.k * 1e7  # erg/K
+M_H_G = (sc.m_p + sc.m_e) * 1e3  # hydrogen atom [g]
 M_HE_G = 4.002602 * sc.physical_constants["atomic mass constant"][0] * 1e3
 # (4.002602: standard atomic weight of helium, IUPAC, from memory)
 K_PER_EV = sc.e / sc.k
@@ -49,13 +49,16 @@ def snapshot(**kw):
 # Fully ionized gas: T = P / (k n) with the particle count written out
 # --------------------------------------------------------------------------------------------
 @HOT
-@pytest.mark.parametrize("helium, n_of, mu_hand", [
-    # helium doubly ionized: every H gives 2 particles (p + e), every He 3 (nucleus + 2 e).
-    # mu = rho / (m_H n) = 1 / (2 X + 3 Y m_H/m_He) = 1 / (1.4 + 0.84 x 0.2517925) = 0.620538
-    ("double", lambda nh, nhe: 2 * nh + 3 * nhe, 0.620538),
-    # helium singly ionized: 2 per H, 2 per He: mu = 1 / (1.4 + 0.56 x 0.2517925) = 0.648928
-    ("single", lambda nh, nhe: 2 * nh + 2 * nhe, 0.648928),
-])
+@pytest.mark.parametrize(
+    "helium, n_of, mu_hand",
+    [
+        # helium doubly ionized: every H gives 2 particles (p + e), every He 3 (nucleus + 2 e).
+        # mu = rho / (m_H n) = 1 / (2 X + 3 Y m_H/m_He) = 1 / (1.4 + 0.84 x 0.2517925) = 0.620538
+        ("double", lambda nh, nhe: 2 * nh + 3 * nhe, 0.620538),
+        # helium singly ionized: 2 per H, 2 per He: mu = 1 / (1.4 + 0.56 x 0.2517925) = 0.648928
+        ("single", lambda nh, nhe: 2 * nh + 2 * nhe, 0.648928),
+    ],
+)
 def test_fully_ionized_ideal_gas(helium, n_of, mu_hand):
     # ideal gas law P = n k T (closed form)
     rho = grid(np.geomspace(1e-27, 1e-15, 7))
@@ -127,8 +130,10 @@ def _ln_hg_a(lam):
 def independent_electrons_per_nucleus(T):
     """(n_e / n_H from H, n_e / n_He from He) in CIE, case A."""
     ln_rh = _ln_voronov(T, 13.6, 0, 2.91e-8, 0.232, 0.39) - _ln_hg_a(2 * 157807.0 / T)
-    ln_a2 = np.logaddexp(np.log(3.0e-14) + 0.654 * np.log(2 * 285335.0 / T),
-                         np.log(1.9e-3) - 1.5 * np.log(T) - 4.7e5 / T + np.log1p(0.3 * np.exp(-9.4e4 / T)))
+    ln_a2 = np.logaddexp(
+        np.log(3.0e-14) + 0.654 * np.log(2 * 285335.0 / T),
+        np.log(1.9e-3) - 1.5 * np.log(T) - 4.7e5 / T + np.log1p(0.3 * np.exp(-9.4e4 / T)),
+    )
     ln_r1 = _ln_voronov(T, 24.6, 0, 1.75e-8, 0.180, 0.35) - ln_a2
     ln_r2 = _ln_voronov(T, 54.4, 1, 2.05e-9, 0.265, 0.25) - (np.log(2.0) + _ln_hg_a(2 * 631515.0 / T))
     x = np.exp(-np.logaddexp(0.0, -ln_rh))
@@ -153,6 +158,8 @@ def test_collisional_pressure_inversion(rho):
     np.testing.assert_allclose(s.electron_density.to_value(u.cm**-3), sp["n_e"], rtol=1e-6)
     ion = sp["n_HII"] + sp["n_HeII"] + 4 * sp["n_HeIII"]
     np.testing.assert_allclose(s.ion_density.to_value(u.cm**-3), ion, rtol=1e-6)
+
+
 @HOT
 def test_collisional_pressure_from_independent_fits():
     # P built with no package code: (n_H + n_He + n_e) k T, n_e from the published fits. The
@@ -166,7 +173,7 @@ def test_collisional_pressure_from_independent_fits():
     P = (nh + nhe + n_e) * K_B * T
     s = snapshot(pressure=P * DYN_CM2, density=rho * G_CM3, ionization="collisional")
     np.testing.assert_allclose(s.temperature.to_value(u.K), T, rtol=1e-5)
-    big = n_e > 1e-6 * nh          # the electron density itself, where it is not a vanishing tail
+    big = n_e > 1e-6 * nh  # the electron density itself, where it is not a vanishing tail
     np.testing.assert_allclose(s.electron_density.to_value(u.cm**-3)[big], n_e[big], rtol=3e-4)
 
 
@@ -177,7 +184,7 @@ def test_collisional_internal_energy_inversion(gamma):
     T = grid(T_TRUE)
     rho = np.full(T.shape, 1e-22)
     P, sp = collisional_pressure(model, rho, T)
-    e = P / ((gamma - 1.0) * rho)                   # P = (gamma - 1) rho e
+    e = P / ((gamma - 1.0) * rho)  # P = (gamma - 1) rho e
     s = snapshot(internal_energy=e * ERG_G, density=rho * G_CM3, ionization="collisional", gamma=gamma)
     np.testing.assert_allclose(s.temperature.to_value(u.K), T, rtol=1e-8)
     np.testing.assert_allclose(s.electron_density.to_value(u.cm**-3), sp["n_e"], rtol=1e-6)
@@ -244,8 +251,9 @@ def test_supplied_helium_fractions_pressure():
 # --------------------------------------------------------------------------------------------
 # Threshold model: the particle count jumps at the threshold
 # --------------------------------------------------------------------------------------------
-@pytest.mark.parametrize("helium, n_ion", [("single", lambda nh, nhe: 2 * nh + 2 * nhe),
-                                           ("double", lambda nh, nhe: 2 * nh + 3 * nhe)])
+@pytest.mark.parametrize(
+    "helium, n_ion", [("single", lambda nh, nhe: 2 * nh + 2 * nhe), ("double", lambda nh, nhe: 2 * nh + 3 * nhe)]
+)
 def test_threshold_pressure_inside_jump(helium, n_ion):
     # n(T) k T jumps at T_thr from (n_H + n_He) k T_thr to n_ion k T_thr. A pressure between
     # the two has no exact solution; the documented answer is T = T_thr (the jump).
@@ -279,7 +287,7 @@ def test_threshold_pressure_inside_jump(helium, n_ion):
 def _neutral_cases():
     rho = 1e-22
     nh, nhe = number_densities(rho)
-    neutral = nh + nhe                               # neutral gas: one particle per nucleus
+    neutral = nh + nhe  # neutral gas: one particle per nucleus
     # collisional equilibrium at 3e3-3.5e3 K: x_H ~ 4e-20..1e-16 (Voronov 1997 / Hui & Gnedin
     # 1997), so n = n_H + n_He to 1e-15
     T_coll = np.array([3.0e3, 3.2e3, 3.5e3])
@@ -292,8 +300,9 @@ def _neutral_cases():
     yield "threshold", TemperatureThreshold(8000.0), T_thr, neutral * K_B * T_thr
 
 
-@pytest.mark.parametrize("label, model, T_true, P", list(_neutral_cases()),
-                         ids=["collisional", "supplied_x0", "threshold"])
+@pytest.mark.parametrize(
+    "label, model, T_true, P", list(_neutral_cases()), ids=["collisional", "supplied_x0", "threshold"]
+)
 def test_neutral_cells_from_pressure(label, model, T_true, P):
     # Ideal gas law for neutral H + He: P = (n_H + n_He) k T (closed form).
     # PACKAGE BUG (fails at the time of writing): temperature_from_pressure brackets ln T between
@@ -323,9 +332,14 @@ def test_pressure_needs_density():
         snapshot(internal_energy=_ones(1e12) * ERG_G, electron_density=_ones(1.0) * u.cm**-3)
 
 
-@pytest.mark.parametrize("kw", [dict(temperature=_ones(1e4) * u.K, pressure=_ones(1e-12) * DYN_CM2),
-                                dict(pressure=_ones(1e-12) * DYN_CM2, internal_energy=_ones(1e12) * ERG_G),
-                                dict()])
+@pytest.mark.parametrize(
+    "kw",
+    [
+        dict(temperature=_ones(1e4) * u.K, pressure=_ones(1e-12) * DYN_CM2),
+        dict(pressure=_ones(1e-12) * DYN_CM2, internal_energy=_ones(1e12) * ERG_G),
+        dict(),
+    ],
+)
 def test_exactly_one_thermal_input(kw):
     with pytest.raises(InputError, match="thermal input"):
         snapshot(density=_ones(1e-22) * G_CM3, ionization="collisional", **kw)
@@ -343,7 +357,7 @@ def test_zero_density_with_pressure_rejected():
 @pytest.mark.parametrize("bad, count", [([0.0], 1), ([-1e-12, 0.0, -3.0], 3), ([np.nan], 1)])
 def test_non_positive_pressure_rejected(bad, count):
     P = _ones(1e-12)
-    P.reshape(-1)[:len(bad)] = bad
+    P.reshape(-1)[: len(bad)] = bad
     with pytest.raises(InputError, match=rf"^pressure: {count} of 8 cells"):
         snapshot(pressure=P * DYN_CM2, density=_ones(1e-22) * G_CM3, ionization="collisional")
 
@@ -363,8 +377,12 @@ def test_metal_only_gas_with_pressure_rejected():
     # X = Y = 0: metals carry mass only in this package, so there are no particles and no
     # temperature that gives the pressure; this must be an input error, not T = inf.
     with pytest.raises(InputError):
-        snapshot(pressure=_ones(1e-12) * DYN_CM2, density=_ones(1e-22) * G_CM3, ionization="full",
-                 composition=Composition(hydrogen=0.0, helium=0.0))
+        snapshot(
+            pressure=_ones(1e-12) * DYN_CM2,
+            density=_ones(1e-22) * G_CM3,
+            ionization="full",
+            composition=Composition(hydrogen=0.0, helium=0.0),
+        )
 
 
 # --------------------------------------------------------------------------------------------
@@ -383,7 +401,7 @@ def test_hot_bubble_collisional_versus_full_single():
     #   from the same pressure, 'full'/single reads T higher by (2 + 3y)/(2 + 2y) = 1.045751
     # (with m_He = 4 m_H, y = 0.1 and the ion factor would be 1.4/1.1 = 1.272727: the masses matter
     # at 1e-3.)
-    rho = grid([2.3e-26, 2.3e-24])                   # ~0.01 and ~1 H per cm^3
+    rho = grid([2.3e-26, 2.3e-24])  # ~0.01 and ~1 H per cm^3
     nh, nhe = number_densities(rho)
     P = K_B * 1e6 * (2 * nh + 3 * nhe)
     coll = snapshot(pressure=P * DYN_CM2, density=rho * G_CM3, ionization="collisional")

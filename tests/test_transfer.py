@@ -37,17 +37,18 @@ def test_uniform_slab_axis_aligned(axis, sign):
     assert np.allclose(res.intensity.value, intensity[:, None, None], rtol=2e-6, atol=0)
     # Emission measure = n_e n_i L (REFERENCES.md: EM = int n_e n_i dl, pc cm-6)
     assert np.allclose(res.emission_measure.to_value(u.pc / u.cm**6), 500.0**2 * 40 * 0.01, rtol=1e-12)
-    assert tau[0] > 1 > tau[-1]        # both regimes are exercised
+    assert tau[0] > 1 > tau[-1]  # both regimes are exercised
 
 
 def test_uniform_slab_oblique():
     # A thin slab seen 30 degrees from its normal: path length L / cos(30 deg), so I = B (1 - e^{-tau}).
     snap = uniform_snapshot((40, 40, 4), 8000.0, 2000.0)
     theta = np.radians(30)
-    view = rtrace.View(los=(0, np.sin(theta), np.cos(theta)), north=(0, 1, 0), npix=4,
-                       width=0.02 * u.pc, distance=1 * u.kpc)
+    view = rtrace.View(
+        los=(0, np.sin(theta), np.cos(theta)), north=(0, 1, 0), npix=4, width=0.02 * u.pc, distance=1 * u.kpc
+    )
     res = rtrace.trace(snap, view, NU * u.Hz, supersample=3)
-    assert res.rays_per_pixel > 2     # 3 rays per cell on each lattice axis, 2 pixels per cell
+    assert res.rays_per_pixel > 2  # 3 rays per cell on each lattice axis, 2 pixels per cell
     tau, intensity = slab_expectation(NU, 8000.0, 2000.0, 4 * 0.01 * PC / np.cos(theta))
     assert np.allclose(res.tau, tau[:, None, None], rtol=2e-6)
     assert np.allclose(res.intensity.value, intensity[:, None, None], rtol=2e-6)
@@ -71,8 +72,8 @@ def test_thick_limit_on_the_wien_side():
     res = rtrace.trace(snap, view, [1000.0] * u.GHz)
     assert res.tau.min() > 50
     assert np.allclose(res.brightness_temperature().to_value(u.K), 100.0, rtol=1e-9)
-    x = 6.62607015e-27 * 1e12 / (1.380649e-16 * 100.0)      # h nu / k T (CODATA 2018 exact h, k)
-    rj = 100.0 * x / np.expm1(x)                              # c^2 B / (2 k nu^2) for a blackbody
+    x = 6.62607015e-27 * 1e12 / (1.380649e-16 * 100.0)  # h nu / k T (CODATA 2018 exact h, k)
+    rj = 100.0 * x / np.expm1(x)  # c^2 B / (2 k nu^2) for a blackbody
     assert np.allclose(res.brightness_temperature("rayleigh-jeans").to_value(u.K), rj, rtol=1e-9)
 
 
@@ -80,14 +81,14 @@ def test_cmb_background_through_a_slab():
     # Formal solution with incident intensity: I = I_bg e^{-tau} + B (1 - e^{-tau})
     # (Rybicki & Lightman 1979, eq. 1.30); CMB at 2.7255 K (Fixsen 2009).
     snap = uniform_snapshot((4, 4, 10), 8000.0, 100.0)
-    view = rtrace.View(npix=8, width=0.08 * u.pc, distance=1 * u.kpc)   # half the pixels miss the box
+    view = rtrace.View(npix=8, width=0.08 * u.pc, distance=1 * u.kpc)  # half the pixels miss the box
     res = rtrace.trace(snap, view, NU * u.Hz, background="cmb")
     tau, intensity = slab_expectation(NU, 8000.0, 100.0, 10 * 0.01 * PC)
     bg = planck_cgs(NU, np.full_like(NU, 2.7255))
     full = res.specific_intensity(background="included").value
     inside = full[:, 2:6, 2:6]
     assert np.allclose(inside, (bg * np.exp(-tau) + intensity)[:, None, None], rtol=2e-6)
-    assert np.allclose(full[:, 0, :], bg[:, None], rtol=1e-12)   # outside the box: CMB only
+    assert np.allclose(full[:, 0, :], bg[:, None], rtol=1e-12)  # outside the box: CMB only
     # the default intensity is background subtracted: empty sky reads 0
     assert np.all(res.intensity.value[:, 0, :] == 0.0)
     # The differential flux removes the background: S = sum (I - I_bg) Omega.
@@ -102,7 +103,7 @@ def test_uniform_sphere_against_1d_integration():
     n, cell = 64, 0.01 * PC
     radius = 30 * cell
     x = (np.arange(n) + 0.5 - n / 2) * cell
-    r = np.sqrt(x[:, None, None]**2 + x[None, :, None]**2 + x[None, None, :]**2)
+    r = np.sqrt(x[:, None, None] ** 2 + x[None, :, None] ** 2 + x[None, None, :] ** 2)
     ne = np.where(r < radius, 1e3, 0.0)
     t = np.full_like(ne, 1e4)
     snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=cell * u.cm, electron_density=ne * u.cm**-3)
@@ -113,9 +114,10 @@ def test_uniform_sphere_against_1d_integration():
     for f, nuf in enumerate(nu):
         alpha = absorption_cgs(nuf, 1e4, 1e3, 1e3)
         b = planck_cgs(nuf, 1e4)
-        val, _ = integrate.quad(lambda p, b=b, alpha=alpha: b * -np.expm1(-2 * alpha * np.sqrt(radius**2 - p**2)) * p,
-                                 0, radius)
-        expected = 2 * np.pi * val / d_cm**2 / 1e-23            # Jy
+        val, _ = integrate.quad(
+            lambda p, b=b, alpha=alpha: b * -np.expm1(-2 * alpha * np.sqrt(radius**2 - p**2)) * p, 0, radius
+        )
+        expected = 2 * np.pi * val / d_cm**2 / 1e-23  # Jy
         assert res.flux_density()[f].to_value(u.Jy) == pytest.approx(expected, rel=0.01), nuf
 
 
@@ -126,54 +128,64 @@ def _thin_field(n, rng):
     ne = 5.0 + 3.0 * X
     for _ in range(6):
         c = rng.uniform(-0.8, 0.8, 3)
-        ne += 40 * np.exp(-((X - c[0])**2 + (Y - c[1])**2 + (Z - c[2])**2) / 0.05)
+        ne += 40 * np.exp(-((X - c[0]) ** 2 + (Y - c[1]) ** 2 + (Z - c[2]) ** 2) / 0.05)
     t = 8000.0 + 3000.0 * np.sin(3 * Y) * np.cos(2 * Z)
     return ne, t
 
 
-@pytest.mark.parametrize("los,north,npix", [
-    ((0, 0, 1), (0, 1, 0), 37),
-    ((-1, 0, 0), (0, 0, 1), 200),
-    ((0, 1, 0), (1, 0, 0), 5),
-    ((1, 1, 1), (0, 0, 1), 41),
-    ((0.3, -0.5, 0.8), (0, 1, 0), 64),
-    ((1, 2, 0.1), (0, 0, 1), 9),
-    ((0.0, 0.01, 1.0), (0, 1, 0), 150),
-    ((0, 0, 1), (1, 1, 0), 48),
-])
+@pytest.mark.parametrize(
+    "los,north,npix",
+    [
+        ((0, 0, 1), (0, 1, 0), 37),
+        ((-1, 0, 0), (0, 0, 1), 200),
+        ((0, 1, 0), (1, 0, 0), 5),
+        ((1, 1, 1), (0, 0, 1), 41),
+        ((0.3, -0.5, 0.8), (0, 1, 0), 64),
+        ((1, 2, 0.1), (0, 0, 1), 9),
+        ((0.0, 0.01, 1.0), (0, 1, 0), 150),
+        ((0, 0, 1), (1, 1, 0), 48),
+    ],
+)
 def test_thin_flux_is_conserved_for_any_view(los, north, npix, rng):
     # Optically thin limit: total flux = sum_cells j_nu V_cell / D^2 for any viewing
     # direction and pixel size (REFERENCES.md, simple analytic checks).
     n, cell = 24, 0.05 * PC
     ne, t = _thin_field(n, rng)
-    snap = rtrace.Snapshot.from_arrays(temperature=t * u.K, cell_size=cell * u.cm,
-                                       electron_density=ne * u.cm**-3, dtype=np.float64)
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=t * u.K, cell_size=cell * u.cm, electron_density=ne * u.cm**-3, dtype=np.float64
+    )
     nu = 30e9
     dist = 2 * u.kpc
     res = rtrace.trace(snap, rtrace.View(los=los, north=north, npix=npix, distance=dist), [nu] * u.Hz)
     assert res.tau.max() < 1e-6
-    expected = emission_cgs(nu, t, ne, ne).sum() * cell**3 / dist.to_value(u.cm)**2 / 1e-23
+    expected = emission_cgs(nu, t, ne, ne).sum() * cell**3 / dist.to_value(u.cm) ** 2 / 1e-23
     assert res.flux_density()[0].to_value(u.Jy) == pytest.approx(expected, rel=0.005)
 
 
-@pytest.mark.parametrize("los,north,blob_x_col,blob_y_row", [
-    ((0, 0, 1), (0, 1, 0), "high", "high"),      # west = north x los = +x
-    ((0, 0, -1), (0, 1, 0), "low", "high"),      # west = +y x -z = -x
-])
+@pytest.mark.parametrize(
+    "los,north,blob_x_col,blob_y_row",
+    [
+        ((0, 0, 1), (0, 1, 0), "high", "high"),  # west = north x los = +x
+        ((0, 0, -1), (0, 1, 0), "low", "high"),  # west = +y x -z = -x
+    ],
+)
 def test_image_orientation_convention(los, north, blob_x_col, blob_y_row):
     # DESIGN.md geometry conventions (common practice for sky images): row index grows toward
     # north, columns toward north x los (west). Cell i = 10 of 20 spans the centre line, so it
     # lands in column 10 when columns run along +x and in column 9 when they run along -x.
     n = 20
     ne = np.zeros((n, n, n))
-    ne[16, 10, 10] = 100.0     # blob A on +x
-    ne[10, 16, 10] = 50.0      # blob B on +y
-    snap = rtrace.Snapshot.from_arrays(temperature=np.full((n, n, n), 1e4) * u.K, cell_size=1 * u.pc,
-                                       electron_density=ne * u.cm**-3)
+    ne[16, 10, 10] = 100.0  # blob A on +x
+    ne[10, 16, 10] = 50.0  # blob B on +y
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=np.full((n, n, n), 1e4) * u.K, cell_size=1 * u.pc, electron_density=ne * u.cm**-3
+    )
     res = rtrace.trace(snap, rtrace.View(los=los, north=north, npix=n, distance=1 * u.kpc), [5] * u.GHz)
     img = res.intensity.value[0]
-    (ra, ca), (rb, cb) = [np.unravel_index(np.argmax(np.where(img == v, img, 0)), img.shape)
-                          for v in sorted(np.unique(img[img > 0]))[::-1]]
+    (ra, ca), (rb, cb) = [
+        np.unravel_index(np.argmax(np.where(img == v, img, 0)), img.shape)
+        for v in sorted(np.unique(img[img > 0]))[::-1]
+    ]
     centre_col = n // 2 if blob_x_col == "high" else n // 2 - 1
     assert (ca > n // 2) == (blob_x_col == "high") and ra == n // 2
     assert (rb > n // 2) == (blob_y_row == "high") and cb == centre_col
@@ -185,10 +197,12 @@ def test_orientation_side_view():
     ne = np.zeros((n, n, n))
     ne[10, 16, 10] = 100.0
     ne[10, 10, 16] = 50.0
-    snap = rtrace.Snapshot.from_arrays(temperature=np.full((n, n, n), 1e4) * u.K, cell_size=1 * u.pc,
-                                       electron_density=ne * u.cm**-3)
-    img = rtrace.trace(snap, rtrace.View(los=(1, 0, 0), north=(0, 0, 1), npix=n, distance=1 * u.kpc),
-                       [5] * u.GHz).intensity.value[0]
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=np.full((n, n, n), 1e4) * u.K, cell_size=1 * u.pc, electron_density=ne * u.cm**-3
+    )
+    img = rtrace.trace(
+        snap, rtrace.View(los=(1, 0, 0), north=(0, 0, 1), npix=n, distance=1 * u.kpc), [5] * u.GHz
+    ).intensity.value[0]
     assert np.unravel_index(np.argmax(img), img.shape) == (10, 16)
     img[10, 16] = 0
     assert np.unravel_index(np.argmax(img), img.shape) == (16, 10)
@@ -236,8 +250,9 @@ def test_rayleigh_jeans_matches_astropy_equivalency():
 def test_flux_density_with_and_without_background():
     # S_nu = sum_pixels I_nu Omega_pix (common practice); the background is removed by default.
     snap = uniform_snapshot((4, 4, 10), 8000.0, 100.0)
-    res = rtrace.trace(snap, rtrace.View(npix=8, width=0.08 * u.pc, distance=1 * u.kpc), [1.0] * u.GHz,
-                       background=2.7255 * u.K)
+    res = rtrace.trace(
+        snap, rtrace.View(npix=8, width=0.08 * u.pc, distance=1 * u.kpc), [1.0] * u.GHz, background=2.7255 * u.K
+    )
     omega = res.pixel_solid_angle.to_value(u.sr)
     total = res.specific_intensity("included").value.sum() * omega * 1e23
     bg = planck_cgs(np.array([1e9]), np.array([2.7255]))[0]

@@ -89,12 +89,11 @@ SQRT3 = np.sqrt(3.0)
 EULER = float(mp.euler)
 
 HERE = os.path.dirname(os.path.abspath(__file__))
-DEFAULT_OUT = os.path.join(HERE, os.pardir, "rtrace", "physics", "data",
-                           "gaunt_classical.csv")
+DEFAULT_OUT = os.path.join(HERE, os.pardir, "rtrace", "physics", "data", "gaunt_classical.csv")
 
-X_MIN_EXACT = 1e-12     # below: soft limit
-X_MAX_EXACT = 3e3       # above: fitted large-x expansion
-X_FIT_MIN = 30.0        # lower end of the large-x fitting range
+X_MIN_EXACT = 1e-12  # below: soft limit
+X_MAX_EXACT = 3e3  # above: fitted large-x expansion
+X_FIT_MIN = 30.0  # lower end of the large-x fitting range
 LNY_MAX = np.log(120.0)  # upper limit of the thermal average in ln y (default of gbar_cl)
 
 
@@ -212,7 +211,7 @@ def fit_large_x(xs, gs, order=5, free_constant=False):
     """
     s = xs ** (-2.0 / 3.0)
     kmin = 0 if free_constant else 1
-    a = np.vstack([s ** k for k in range(kmin, order + 1)]).T
+    a = np.vstack([s**k for k in range(kmin, order + 1)]).T
     rhs = gs - (0.0 if free_constant else 1.0)
     c, *_ = np.linalg.lstsq(a, rhs, rcond=None)
     if not free_constant:
@@ -223,7 +222,7 @@ def fit_large_x(xs, gs, order=5, free_constant=False):
 def eval_large_x(c, x):
     """Evaluate the large-x expansion with coefficients ``c`` at ``x``."""
     s = np.asarray(x, dtype=float) ** (-2.0 / 3.0)
-    return sum(ck * s ** k for k, ck in enumerate(c))
+    return sum(ck * s**k for k, ck in enumerate(c))
 
 
 class ClassicalGaunt:
@@ -291,7 +290,7 @@ def gbar_cl(w, gfun, h=0.02, lny_min=-40.0, lny_max=LNY_MAX):
     n = int(np.ceil((lny_max - lny_min) / h)) + 1
     t = np.linspace(lny_min, lny_max, n)
     y = np.exp(t)
-    x = 0.5 * w * y ** -1.5
+    x = 0.5 * w * y**-1.5
     f = gfun(x) * y * np.exp(-y)
     # scipy's trapezoid: the same rule as numpy's, on every numpy the package supports
     return float(trapezoid(f, t))
@@ -345,7 +344,7 @@ def orbit_accel_fourier2(omega, b, xi1=2.0):
     ``t > t(xi1)`` with QUADPACK's Fourier-integral rule (QAWF) in t.
     """
     ecc = np.hypot(1.0, b)
-    sb = np.sqrt(ecc ** 2 - 1.0)
+    sb = np.sqrt(ecc**2 - 1.0)
 
     def r(xi):
         return ecc * np.cosh(xi) - 1.0
@@ -373,10 +372,8 @@ def orbit_accel_fourier2(omega, b, xi1=2.0):
         return -sb * np.sinh(xi) / r(xi) ** 3
 
     t1 = tt(xi1)
-    ox = quad(ax, t1, np.inf, weight="cos", wvar=omega, limlst=200,
-              epsabs=1e-14)[0]
-    oy = quad(ay, t1, np.inf, weight="sin", wvar=omega, limlst=200,
-              epsabs=1e-14)[0]
+    ox = quad(ax, t1, np.inf, weight="cos", wvar=omega, limlst=200, epsabs=1e-14)[0]
+    oy = quad(ay, t1, np.inf, weight="sin", wvar=omega, limlst=200, epsabs=1e-14)[0]
     return (2.0 * (ix + ox)) ** 2 + (2.0 * (iy + oy)) ** 2
 
 
@@ -407,13 +404,13 @@ def g_cl_orbit(x, per_efold=16, b_min=1e-4):
     ``g = (sqrt 3 / (4 pi)) int |a(omega)|^2 b db``.
     """
     lo = np.log(b_min)
-    hi = np.log(40.0 / x + 5.0)      # |a|^2 ~ exp(-2 x b) beyond ~1/x
+    hi = np.log(40.0 / x + 5.0)  # |a|^2 ~ exp(-2 x b) beyond ~1/x
     n = int((hi - lo) * per_efold) // 2 * 2 + 1
     lb = np.linspace(lo, hi, n)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         v = np.array([orbit_accel_fourier2(x, np.exp(t)) for t in lb])
-    integral = simpson(v * np.exp(2 * lb), x=lb) + 0.5 * b_min ** 2 * v[0]
+    integral = simpson(v * np.exp(2 * lb), x=lb) + 0.5 * b_min**2 * v[0]
     return SQRT3 / (4 * np.pi) * integral
 
 
@@ -423,8 +420,7 @@ def run_verification(gint):
     for x in [1e-6, 0.01, 0.3, 1.0, 5.0, 100.0]:
         gh = g_cl_hankel(x)
         gk = g_cl_exact(x)
-        print(f"  x={x:8.3g}  eq1={gh.real:.15f} (Im {gh.imag:.1e})"
-              f"  eq2={gk:.15f}")
+        print(f"  x={x:8.3g}  eq1={gh.real:.15f} (Im {gh.imag:.1e})  eq2={gk:.15f}")
     print("== (0') precision: dps 30 vs 50")
     for x in [1e-10, 1e-3, 1.0, 1e3]:
         a, b = g_cl_exact(x, 30), g_cl_exact(x, 50)
@@ -433,46 +429,44 @@ def run_verification(gint):
     for x in [1e-10, 1e-8, 1e-6, 1e-4, 1e-2]:
         g = g_cl_exact(x)
         s = g_cl_soft(x)
-        print(f"  x={x:8.1e}  g={g:.12f} soft={s:.12f} diff={g - s:.3e}"
-              f"  diff/(x ln(1/x))={(g - s) / (x * np.log(1 / x)):.4f}")
+        print(
+            f"  x={x:8.1e}  g={g:.12f} soft={s:.12f} diff={g - s:.3e}"
+            f"  diff/(x ln(1/x))={(g - s) / (x * np.log(1 / x)):.4f}"
+        )
     print("== (b) direct hyperbolic-orbit dipole spectrum vs eq. (2)")
     for x in [0.01, 0.3, 1.0, 5.0]:
         t0 = time.time()
         go = g_cl_orbit(x)
         gk = g_cl_exact(x)
-        print(f"  x={x:5.2f}  orbit={go:.10f}  eq2={gk:.10f}"
-              f"  rel={go / gk - 1:.1e}  ({time.time() - t0:.0f} s)",
-              flush=True)
-    print("== (c) large x: free fit g = g_inf + sum c_k x^(-2k/3), "
-          f"{X_FIT_MIN:g} <= x <= {X_MAX_EXACT:g}")
+        print(
+            f"  x={x:5.2f}  orbit={go:.10f}  eq2={gk:.10f}  rel={go / gk - 1:.1e}  ({time.time() - t0:.0f} s)",
+            flush=True,
+        )
+    print(f"== (c) large x: free fit g = g_inf + sum c_k x^(-2k/3), {X_FIT_MIN:g} <= x <= {X_MAX_EXACT:g}")
     sel = gint.xs >= X_FIT_MIN
     for order in (4, 5, 6):
         c = fit_large_x(gint.xs[sel], gint.gs[sel], order, True)
-        print(f"  order {order}: g_inf={c[0]:.10f}  c1={c[1]:.8f}"
-              f"  c2={c[2]:.8f}")
+        print(f"  order {order}: g_inf={c[0]:.10f}  c1={c[1]:.8f}  c2={c[2]:.8f}")
     for x in [10.0, 100.0, 1e3, 3e3]:
         print(f"  x={x:7.0f}  g={g_cl_exact(x):.10f}")
     print("== thermal average: spline/asymptotics vs direct quadrature")
     for w in [1e-3, 0.1, 1.0, 10.0]:
+
         def integrand(t, w=w):
             y = np.exp(t)
-            x = 0.5 * w * y ** -1.5
-            g = (g_cl_exact(x, 20) if X_MIN_EXACT <= x <= X_MAX_EXACT
-                 else float(gint(np.array([x]))[0]))
+            x = 0.5 * w * y**-1.5
+            g = g_cl_exact(x, 20) if X_MIN_EXACT <= x <= X_MAX_EXACT else float(gint(np.array([x]))[0])
             return g * y * np.exp(-y)
-        d = quad(integrand, -40.0, np.log(120.0), limit=200,
-                 epsrel=1e-10)[0]
+
+        d = quad(integrand, -40.0, np.log(120.0), limit=200, epsrel=1e-10)[0]
         s = gbar_cl(w, gint)
-        print(f"  w={w:6.3g}  direct={d:.10f}  table={s:.10f}"
-              f"  rel={s / d - 1:.1e}", flush=True)
+        print(f"  w={w:6.3g}  direct={d:.10f}  table={s:.10f}  rel={s / d - 1:.1e}", flush=True)
     print("== thermal soft limit (Oster 1961; Spitzer 1978)")
     for w in [1e-4, 1e-3, 1e-2]:
-        print(f"  w={w:6.0e}  gbar={gbar_cl(w, gint):.8f}"
-              f"  soft={gbar_cl_soft(w):.8f}")
+        print(f"  w={w:6.0e}  gbar={gbar_cl(w, gint):.8f}  soft={gbar_cl_soft(w):.8f}")
     print("== thermal hard limit 1 + c1 (2/w)^(2/3) (from the expansion)")
     for w in [1e3, 1e4]:
-        print(f"  w={w:6.0e}  gbar={gbar_cl(w, gint):.8f}"
-              f"  1+c1(2/w)^(2/3)={1 + gint.coef[1] * (2 / w) ** (2 / 3):.8f}")
+        print(f"  w={w:6.0e}  gbar={gbar_cl(w, gint):.8f}  1+c1(2/w)^(2/3)={1 + gint.coef[1] * (2 / w) ** (2 / 3):.8f}")
 
 
 # ---------------------------------------------------------------------------
@@ -482,12 +476,9 @@ def main(argv=None):
     """Compute the table, estimate its accuracy, write the CSV."""
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--out", default=DEFAULT_OUT, help="output CSV path")
-    p.add_argument("--per-decade", type=int, default=40,
-                   help="x-grid points per decade for g_cl (default 40)")
-    p.add_argument("--w-per-decade", type=int, default=20,
-                   help="w-grid points per decade in the table (default 20)")
-    p.add_argument("--verify", action="store_true",
-                   help="run the verification checks (a)-(c)")
+    p.add_argument("--per-decade", type=int, default=40, help="x-grid points per decade for g_cl (default 40)")
+    p.add_argument("--w-per-decade", type=int, default=20, help="w-grid points per decade in the table (default 20)")
+    p.add_argument("--verify", action="store_true", help="run the verification checks (a)-(c)")
     args = p.parse_args(argv)
 
     t0 = time.time()
@@ -503,25 +494,24 @@ def main(argv=None):
     # --- error estimates -------------------------------------------------
     # (i) mpmath precision: recompute a subset of g_cl at higher precision
     sub = gint.xs[::25]
-    e_prec = max(abs(g_cl_exact(x, 50) / g - 1)
-                 for x, g in zip(sub, gint.gs[::25], strict=True))
+    e_prec = max(abs(g_cl_exact(x, 50) / g - 1) for x, g in zip(sub, gint.gs[::25], strict=True))
     # (ii) interpolation: rebuild from every other grid point, compare
     half = ClassicalGaunt(xs=gint.xs[::2], gs=gint.gs[::2])
     e_interp_g = np.max(np.abs(half(gint.xs[1::2]) / gint.gs[1::2] - 1))
     e_interp = max(abs(gbar_cl(w, half) / t - 1) for w, t in zip(ws, table, strict=True))
     # (iii) quadrature step in ln y
-    e_quad = max(abs(gbar_cl(w, gint, h=0.01) / t - 1)
-                 for w, t in zip(ws, table, strict=True))
+    e_quad = max(abs(gbar_cl(w, gint, h=0.01) / t - 1) for w, t in zip(ws, table, strict=True))
     # (iv) large-x expansion order
     sel = gint.xs >= X_FIT_MIN
     alt = ClassicalGaunt(xs=gint.xs, gs=gint.gs, order=6)
     e_asym = max(abs(gbar_cl(w, alt) / t - 1) for w, t in zip(ws, table, strict=True))
-    fit_res = np.max(np.abs(eval_large_x(gint.coef, gint.xs[sel])
-                            / gint.gs[sel] - 1))
+    fit_res = np.max(np.abs(eval_large_x(gint.coef, gint.xs[sel]) / gint.gs[sel] - 1))
     e_tot = e_prec + e_interp + e_quad + e_asym
-    print(f"  precision {e_prec:.1e}, spline(g) {e_interp_g:.1e}, "
-          f"spline(gbar, half grid) {e_interp:.1e}, quadrature {e_quad:.1e}, "
-          f"large-x order {e_asym:.1e}, fit residual {fit_res:.1e}")
+    print(
+        f"  precision {e_prec:.1e}, spline(g) {e_interp_g:.1e}, "
+        f"spline(gbar, half grid) {e_interp:.1e}, quadrature {e_quad:.1e}, "
+        f"large-x order {e_asym:.1e}, fit residual {fit_res:.1e}"
+    )
 
     if args.verify:
         run_verification(gint)
@@ -531,8 +521,7 @@ def main(argv=None):
     header = [
         "Thermally averaged CLASSICAL free-free Gaunt factor, attractive "
         "Coulomb field (charge Z e), Maxwellian electrons.",
-        "w = omega Z e^2 m_e^(1/2) / (sqrt(2) (kT)^(3/2)) "
-        "= (h nu/kT) Z sqrt(Ry/kT)  (independent of h).",
+        "w = omega Z e^2 m_e^(1/2) / (sqrt(2) (kT)^(3/2)) = (h nu/kT) Z sqrt(Ry/kT)  (independent of h).",
         "gbar_cl(w) = int_0^inf g_cl((w/2) y^(-3/2)) exp(-y) dy,  y = E/kT.",
         "g_cl(x) = Re[(sqrt3 pi/4) i x H1_{ix}(ix) H1'_{ix}(ix)] "
         "= -(sqrt3/pi) x exp(pi x) K_{ix}(x) K'_{ix}(x),  "
@@ -541,13 +530,13 @@ def main(argv=None):
         "Theory of Fields sec. 70; Brussaard & van de Hulst 1962 RMP 34 507;",
         "  formula checked against a direct hyperbolic-orbit dipole "
         "computation, see tools/gaunt_classical.py --verify).",
-        "Limits: w->0: (sqrt3/pi)[ln(4/w) - 5 gamma_E/2] (Oster 1961; "
-        "Spitzer 1978);  w->inf: 1 + c1 (2/w)^(2/3).",
+        "Limits: w->0: (sqrt3/pi)[ln(4/w) - 5 gamma_E/2] (Oster 1961; Spitzer 1978);  w->inf: 1 + c1 (2/w)^(2/3).",
         f"Produced by tools/gaunt_classical.py: mpmath g_cl on "
         f"{X_MIN_EXACT:g} <= x <= {X_MAX_EXACT:g} ({len(gint.xs)} pts, "
         f"cubic spline in ln x), soft limit below,",
         "  large-x fit g = 1 + sum_k c_k x^(-2k/3) above (c1..c5 = "
-        + ", ".join(f"{v:.8g}" for v in c[1:]) + "), trapezoid in ln y.",
+        + ", ".join(f"{v:.8g}" for v in c[1:])
+        + "), trapezoid in ln y.",
         f"Estimated max relative error of gbar_cl: {e_tot:.1e} (precision "
         f"{e_prec:.1e}, spline {e_interp:.1e}, quadrature {e_quad:.1e}, "
         f"large-x order {e_asym:.1e}).",

@@ -88,6 +88,7 @@ def _gl_nodes(n):
 # Non-averaged Gaunt factors
 # ---------------------------------------------------------------------------
 
+
 def _radial_integral(l, eta_i, eta_f):
     """Dipole radial integral I_l of the Sommerfeld formula.
 
@@ -124,10 +125,14 @@ def _radial_integral(l, eta_i, eta_f):
     phase = mp.power(abs(d / (eta_f + eta_i)), 1j * (eta_i + eta_f))
     f21 = mp.hyp2f1(l + 1 - 1j * eta_f, l + 1 - 1j * eta_i, 2 * l + 2, z)
     g_l = mp.re(phase * f21)
-    pref = (mp.mpf(1) / 4 * (4 * eta_i * eta_f / d**2) ** (l + 1)
-            * mp.exp(mp.pi * abs(d) / 2)
-            * abs(mp.gamma(l + 1 + 1j * eta_i) * mp.gamma(l + 1 + 1j * eta_f))
-            / mp.gamma(2 * l + 2))
+    pref = (
+        mp.mpf(1)
+        / 4
+        * (4 * eta_i * eta_f / d**2) ** (l + 1)
+        * mp.exp(mp.pi * abs(d) / 2)
+        * abs(mp.gamma(l + 1 + 1j * eta_i) * mp.gamma(l + 1 + 1j * eta_f))
+        / mp.gamma(2 * l + 2)
+    )
     return pref * g_l
 
 
@@ -157,9 +162,9 @@ def gaunt_sommerfeld(eta_i, eta_f):
     eta_f = mp.mpf(eta_f)
     i0 = _radial_integral(0, eta_i, eta_f)
     i1 = _radial_integral(1, eta_i, eta_f)
-    bracket = ((eta_i**2 + eta_f**2 + 2 * eta_i**2 * eta_f**2) * i0
-               - 2 * eta_i * eta_f * mp.sqrt(1 + eta_i**2)
-               * mp.sqrt(1 + eta_f**2) * i1)
+    bracket = (eta_i**2 + eta_f**2 + 2 * eta_i**2 * eta_f**2) * i0 - 2 * eta_i * eta_f * mp.sqrt(
+        1 + eta_i**2
+    ) * mp.sqrt(1 + eta_f**2) * i1
     return 2 * SQRT3_PI / (eta_i * eta_f) * bracket * i0
 
 
@@ -184,13 +189,13 @@ def gaunt_soft(eta_i, eta_f):
     eta_i = mp.mpf(eta_i)
     eta_f = mp.mpf(eta_f)
     ei_over_hnu = 1 / (1 - (eta_i / eta_f) ** 2)
-    return SQRT3_PI * (mp.log(4 * ei_over_hnu) - mp.euler
-                       - mp.re(mp.digamma(1 + 1j * eta_i)))
+    return SQRT3_PI * (mp.log(4 * ei_over_hnu) - mp.euler - mp.re(mp.digamma(1 + 1j * eta_i)))
 
 
 # ---------------------------------------------------------------------------
 # Thermal average
 # ---------------------------------------------------------------------------
+
 
 class _Integrand:
     """``g(E_i=(x+u)kT, E_f=x kT)`` as a function of ``x`` with counters."""
@@ -240,8 +245,7 @@ def _adaptive(fun, a, b, tol, depth=0, maxdepth=8):
     return v1 + v2, e1 + e2
 
 
-def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
-                    eta_cheap=ETA_CHEAP):
+def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11, eta_cheap=ETA_CHEAP):
     """Maxwellian average of a free-free Gaunt factor.
 
     ``gbar = int_0^inf g(E_i=(x+u)kT, E_f=x kT) exp(-x) dx``
@@ -280,8 +284,7 @@ def thermal_average(gamma2, u, gfunc=gaunt_sommerfeld, tol=1e-11,
     if eta_edge <= eta_cheap:
         tb = math.sqrt(xb)
         # x = t^2, dx = 2 t dt; smooth in t at the threshold.
-        v, e = _adaptive(lambda t: 2 * t * f.g(t * t) * mp.exp(-t * t),
-                         0.0, tb, tol / 10)
+        v, e = _adaptive(lambda t: 2 * t * f.g(t * t) * mp.exp(-t * t), 0.0, tb, tol / 10)
         budget["x<x_b"] = float(e)
     else:
         gb = f.g(xb)
@@ -359,8 +362,7 @@ def classical_limit_average(gamma2, u):
 
     ``gbar = sqrt(3)/pi [ln(4/(u gamma)) - 5 euler_gamma/2]``.
     """
-    return SQRT3_PI * (mp.log(4 / (mp.mpf(u) * mp.sqrt(gamma2)))
-                       - 5 * mp.euler / 2)
+    return SQRT3_PI * (mp.log(4 / (mp.mpf(u) * mp.sqrt(gamma2))) - 5 * mp.euler / 2)
 
 
 def born_average(u):
@@ -376,6 +378,7 @@ def born_average(u):
 # ---------------------------------------------------------------------------
 # Point sets
 # ---------------------------------------------------------------------------
+
 
 def u_gamma2_from_T_nu(T, nu):
     """Return (u, gamma^2) for Z = 1 at temperature T [K], frequency nu [Hz]."""
@@ -409,8 +412,7 @@ def point_set(quick=False):
                 pts.append(("small-u", g2, u))
     if not quick:
         # extra points so that large gamma^2 has smaller u*gamma
-        pts += [("small-u", 1e3, 3e-4), ("small-u", 100.0, 3e-5),
-                ("small-u", 10.0, 3e-6)]
+        pts += [("small-u", 1e3, 3e-4), ("small-u", 100.0, 3e-5), ("small-u", 10.0, 3e-6)]
     return pts
 
 
@@ -418,30 +420,32 @@ def point_set(quick=False):
 # Verification of the non-averaged formula
 # ---------------------------------------------------------------------------
 
+
 def verify():
     """Print checks of g and gbar against their known limits."""
-    print("# 1) Born limit (eta -> 0): g_exact / g_Born and first-order "
-          "Coulomb (Elwert-type) factor")
+    print("# 1) Born limit (eta -> 0): g_exact / g_Born and first-order Coulomb (Elwert-type) factor")
     for ei, ef in [(1e-6, 2e-6), (1e-4, 2e-4), (1e-3, 1.5e-3), (1e-2, 1.5e-2)]:
         ge = gaunt_sommerfeld(ei, ef)
         gb = gaunt_born(ei, ef)
         # Elwert 1939 factor (from memory):
         # eta_f/eta_i (1-exp(-2 pi eta_i))/(1-exp(-2 pi eta_f))
-        elw = (mp.mpf(ef) / ei * (1 - mp.exp(-2 * mp.pi * ei))
-               / (1 - mp.exp(-2 * mp.pi * ef)))
-        print(f"eta_i={ei:<8g} eta_f={ef:<8g} g={mp.nstr(ge, 12)} g/g_Born={mp.nstr(ge / gb, 10)} "
-              f"Elwert={mp.nstr(elw, 10)}")
-    print("# 2) Kramers limit, eta_i >> 1, E_f << h nu: compare with "
-          "1 + 0.1728 w^(1/3) - 0.0496 w^(2/3), w = h nu / Ry "
-          "(Menzel & Pekeris 1935 leading terms, from memory)")
+        elw = mp.mpf(ef) / ei * (1 - mp.exp(-2 * mp.pi * ei)) / (1 - mp.exp(-2 * mp.pi * ef))
+        print(
+            f"eta_i={ei:<8g} eta_f={ef:<8g} g={mp.nstr(ge, 12)} g/g_Born={mp.nstr(ge / gb, 10)} "
+            f"Elwert={mp.nstr(elw, 10)}"
+        )
+    print(
+        "# 2) Kramers limit, eta_i >> 1, E_f << h nu: compare with "
+        "1 + 0.1728 w^(1/3) - 0.0496 w^(2/3), w = h nu / Ry "
+        "(Menzel & Pekeris 1935 leading terms, from memory)"
+    )
     for ei, ef in [(100.0, 1e4), (300.0, 3e4), (1000.0, 1e5)]:
         ge = gaunt_sommerfeld(ei, ef)
         w = mp.mpf(1) / ei**2 - mp.mpf(1) / ef**2
-        approx = 1 + mp.mpf("0.1728") * mp.cbrt(w) - mp.mpf("0.0496") * mp.cbrt(w)**2
+        approx = 1 + mp.mpf("0.1728") * mp.cbrt(w) - mp.mpf("0.0496") * mp.cbrt(w) ** 2
         print(f"eta_i={ei:<6g} eta_f={ef:<8g} g={mp.nstr(ge, 12)}  MP approx={mp.nstr(approx, 12)}")
     print(f"# 3) precision stability: g at dps={BASE_DPS:d} vs dps={2 * BASE_DPS:d}")
-    for ei, ef in [(1e-3, 1.0000001e-3), (1.0, 3.0), (30.0, 30.0001),
-                   (300.0, 3000.0), (1000.0, 1000.001)]:
+    for ei, ef in [(1e-3, 1.0000001e-3), (1.0, 3.0), (30.0, 30.0001), (300.0, 3000.0), (1000.0, 1000.001)]:
         g1 = gaunt_sommerfeld(ei, ef)
         with mp.workdps(2 * BASE_DPS):
             g2 = gaunt_sommerfeld(ei, ef)
@@ -460,32 +464,38 @@ def verify():
     for g2, u in [(1.0, 1e-6), (1.0, 1e-3), (1.0, 1.0), (100.0, 3.0)]:
         v, e, info = thermal_average(g2, u, gfunc=gaunt_born)
         ex = born_average(u)
-        print(f"u={u:<6g} quad={mp.nstr(v, 15)} exact={mp.nstr(ex, 15)} diff={mp.nstr(v - ex, 3)} "
-              f"est.err={mp.nstr(e, 3)} nevals={info['nevals']:d}")
+        print(
+            f"u={u:<6g} quad={mp.nstr(v, 15)} exact={mp.nstr(ex, 15)} diff={mp.nstr(v - ex, 3)} "
+            f"est.err={mp.nstr(e, 3)} nevals={info['nevals']:d}"
+        )
     print("# 6) exact thermal average at tiny gamma^2 vs Born average")
     for g2, u in [(1e-8, 1e-3), (1e-8, 1.0), (1e-6, 0.1)]:
         t0 = time.time()
         v, e, info = thermal_average(g2, u)
         ex = born_average(u)
-        print(f"gamma2={g2:<6g} u={u:<6g} gbar={mp.nstr(v, 12)} Born={mp.nstr(ex, 12)} "
-              f"rel.diff={mp.nstr((v - ex) / ex, 3)} ({time.time() - t0:.1f}s)")
+        print(
+            f"gamma2={g2:<6g} u={u:<6g} gbar={mp.nstr(v, 12)} Born={mp.nstr(ex, 12)} "
+            f"rel.diff={mp.nstr((v - ex) / ex, 3)} ({time.time() - t0:.1f}s)"
+        )
 
 
 # ---------------------------------------------------------------------------
 # Main
 # ---------------------------------------------------------------------------
 
+
 def main(argv=None):
     """Compute the table and write the CSV file."""
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--quick", action="store_true", help="few points only")
-    p.add_argument("--verify", action="store_true",
-                   help="print limit checks instead of writing the table")
-    p.add_argument("--out", default=os.path.join(
-        os.path.dirname(os.path.abspath(__file__)), os.pardir, "tests",
-        "data", "gaunt_sommerfeld.csv"))
-    p.add_argument("--dps", type=int, default=BASE_DPS,
-                   help="mpmath working precision (decimal digits)")
+    p.add_argument("--verify", action="store_true", help="print limit checks instead of writing the table")
+    p.add_argument(
+        "--out",
+        default=os.path.join(
+            os.path.dirname(os.path.abspath(__file__)), os.pardir, "tests", "data", "gaunt_sommerfeld.csv"
+        ),
+    )
+    p.add_argument("--dps", type=int, default=BASE_DPS, help="mpmath working precision (decimal digits)")
     args = p.parse_args(argv)
     _init_precision(args.dps)
 
@@ -505,7 +515,8 @@ def main(argv=None):
         "nodes). abs_error_estimate = sum of |I10-I5| over panels + error of "
         "the x<x_b=min(u/99,gamma2/100) piece (integrated if gamma/sqrt(u)"
         "<=400, else estimated as x_b*g(x_b) with 50% error) + bound on x>60. "
-        "Generated by tools/gaunt_sommerfeld.py")
+        "Generated by tools/gaunt_sommerfeld.py"
+    )
     pts = point_set(args.quick)
     t_start = time.time()
     rows = []
@@ -520,9 +531,12 @@ def main(argv=None):
             fh.flush()
             soft = soft_limit_average(g2, u)
             rows.append((label, g2, u, v, e, soft))
-            print(f"{label:<22} gamma2={g2:<12.6g} u={u:<12.6g} gbar={mp.nstr(v, 13):<18} err={mp.nstr(e, 2):<9} "
-                  f"soft-limit diff={mp.nstr(v - soft, 3):<10} u*gamma={u * math.sqrt(g2):<9.3g} "
-                  f"nevals={info['nevals']:<5d} {dt:.1f}s", flush=True)
+            print(
+                f"{label:<22} gamma2={g2:<12.6g} u={u:<12.6g} gbar={mp.nstr(v, 13):<18} err={mp.nstr(e, 2):<9} "
+                f"soft-limit diff={mp.nstr(v - soft, 3):<10} u*gamma={u * math.sqrt(g2):<9.3g} "
+                f"nevals={info['nevals']:<5d} {dt:.1f}s",
+                flush=True,
+            )
     print(f"total runtime {time.time() - t_start:.1f} s; wrote {out}")
     return 0
 

@@ -77,13 +77,13 @@ import mpmath as mp
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import gaunt_sommerfeld as gs  # noqa: E402  (the checked evaluation of g)
 
-U_RANGE = (-6.0, 2.0)          # log10 u
-G2_RANGE = (-6.0, 6.0)         # log10 gamma^2
-TAIL_RIGHT = 40.0              # gamma^2 eps_f up to this (e^-40 = 4e-18)
-TAIL_LEFT = 14.0               # ln(gamma^2 eps_f) down to -14 (weight e^-14 = 8e-7 below)
-ETA_MAX = 3.0e4                # colder electrons (eta_f above this) are evaluated only while it stays cheap:
-ETA_HARD = 1.0e6               # up to this eta_f, while each evaluation takes under SLOW_S seconds (mpmath's
-SLOW_S = 2.0                   # hyp2f1 needs seconds there and fails to converge when both eta are ~1e5)
+U_RANGE = (-6.0, 2.0)  # log10 u
+G2_RANGE = (-6.0, 6.0)  # log10 gamma^2
+TAIL_RIGHT = 40.0  # gamma^2 eps_f up to this (e^-40 = 4e-18)
+TAIL_LEFT = 14.0  # ln(gamma^2 eps_f) down to -14 (weight e^-14 = 8e-7 below)
+ETA_MAX = 3.0e4  # colder electrons (eta_f above this) are evaluated only while it stays cheap:
+ETA_HARD = 1.0e6  # up to this eta_f, while each evaluation takes under SLOW_S seconds (mpmath's
+SLOW_S = 2.0  # hyp2f1 needs seconds there and fails to converge when both eta are ~1e5)
 
 
 def g_exact(eps_f, w):
@@ -129,7 +129,7 @@ def average(g_values, nodes, h, gamma2):
             break
         total += (g_inf + c * eps) * x * mp.exp(-x)
     total *= h
-    total += g_inf * gamma2 * mp.exp(s + h / 2)          # int_{-inf}^{s + h/2} g_inf x ds (x e^-x ~ x there)
+    total += g_inf * gamma2 * mp.exp(s + h / 2)  # int_{-inf}^{s + h/2} g_inf x ds (x e^-x ~ x there)
     x0 = gamma2 * e0
     curvature = abs(g_values[2] - (g_values[0] + c * (e2 - e0)))
     return total, 2 * curvature * -mp.expm1(-x0)
@@ -194,7 +194,7 @@ def plan(step, h, sample=16):
     for i in range(sample):
         k = keys[int(i * (len(keys) - 1) / (sample - 1))]
         nodes = per_line[k]
-        s = nodes[(i * 7919) % len(nodes)]              # spread over the line, cold and warm nodes alike
+        s = nodes[(i * 7919) % len(nodes)]  # spread over the line, cold and warm nodes alike
         t0 = time.perf_counter()
         try:
             g_exact(mp.exp(s), mp.mpf(10) ** (k * step))
@@ -202,9 +202,11 @@ def plan(step, h, sample=16):
             failed += 1
         spent += time.perf_counter() - t0
     per = spent / sample
-    print(f"step {step} decades, h = {h}: {len(lines)} lines, {total_nodes} evaluations of g (eta_f <= {ETA_MAX:g}); "
-          f"sampled {per:.3f} s each ({failed} of {sample} did not converge) -> about "
-          f"{total_nodes * per / 3600:.1f} h on one core")
+    print(
+        f"step {step} decades, h = {h}: {len(lines)} lines, {total_nodes} evaluations of g (eta_f <= {ETA_MAX:g}); "
+        f"sampled {per:.3f} s each ({failed} of {sample} did not converge) -> about "
+        f"{total_nodes * per / 3600:.1f} h on one core"
+    )
 
 
 def elwert_coefficient(u_):
@@ -241,19 +243,24 @@ def verify(h):
             # the residual after the O(gamma) term is O(gamma^2) (times a coefficient of order 10)
             good = abs(dev1) < 30 * float(gamma) ** 2 and abs(dev1) < abs(dev0)
             ok &= good
-            print(f"Born     u=1e{lu:+.0f} gamma2=1e{lg:+.0f}: {mp.nstr(row[2], 10)}; Born {mp.nstr(born, 10)} "
-                  f"({dev0:+.1e}), Born + first Coulomb term {mp.nstr(first, 10)} ({dev1:+.1e}) "
-                  f"{'ok' if good else 'FAIL'}", flush=True)
+            print(
+                f"Born     u=1e{lu:+.0f} gamma2=1e{lg:+.0f}: {mp.nstr(row[2], 10)}; Born {mp.nstr(born, 10)} "
+                f"({dev0:+.1e}), Born + first Coulomb term {mp.nstr(first, 10)} ({dev1:+.1e}) "
+                f"{'ok' if good else 'FAIL'}",
+                flush=True,
+            )
     # classical soft-photon limit: gamma^2 = 1e3, u = 1e-6 (w = u gamma = 3e-5)
     lg, lu = 3.0, -6.0
     (row,) = compute_line(lu - lg, [lg], h)
     u_, g2 = mp.mpf(10) ** lu, mp.mpf(10) ** lg
     oster = sqrt3_pi * (mp.log(4 / (u_ * mp.sqrt(g2))) - 2.5 * mp.euler)
     dev = float(row[2] / oster - 1)
-    good = abs(dev) < 3e-3          # the classical average approaches it as ~7.5 w^(2/3) (gaunt_classical.py)
+    good = abs(dev) < 3e-3  # the classical average approaches it as ~7.5 w^(2/3) (gaunt_classical.py)
     ok &= good
-    print(f"Oster    u=1e-6 gamma2=1e3: {mp.nstr(row[2], 10)} vs {mp.nstr(oster, 10)} ({dev:+.1e}) "
-          f"{'ok' if good else 'FAIL'}")
+    print(
+        f"Oster    u=1e-6 gamma2=1e3: {mp.nstr(row[2], 10)} vs {mp.nstr(oster, 10)} ({dev:+.1e}) "
+        f"{'ok' if good else 'FAIL'}"
+    )
     # spot points from the independent quadrature, with h and h/2
     path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "tests", "data", "gaunt_sommerfeld.csv")
     with open(path) as fh:
@@ -267,30 +274,38 @@ def verify(h):
         dev, conv = float(a[2] / exact - 1), float(a[2] / b[2] - 1)
         good = abs(dev) < 1e-6 and abs(conv) < 1e-6
         ok &= good
-        print(f"spot     u={u_:.3g} gamma2={gamma2:.3g}: {mp.nstr(a[2], 10)} vs {exact:.10g} ({dev:+.1e}); "
-              f"h/2 {conv:+.1e} {'ok' if good else 'FAIL'}", flush=True)
+        print(
+            f"spot     u={u_:.3g} gamma2={gamma2:.3g}: {mp.nstr(a[2], 10)} vs {exact:.10g} ({dev:+.1e}); "
+            f"h/2 {conv:+.1e} {'ok' if good else 'FAIL'}",
+            flush=True,
+        )
     return ok
 
 
 def header_lines(args):
     """Comment lines with the method's parameters (after the command line)."""
-    return (f"# grid: log10 u {U_RANGE[0]:g} .. {U_RANGE[1]:g}, log10 gamma^2 {G2_RANGE[0]:g} .. {G2_RANGE[1]:g}, "
-            f"step {args.step:g}; u = h nu / kT, gamma^2 = Z^2 Ry / kT; gbar = int_0^inf g(E_i = (x + u) kT, "
-            "E_f = x kT) e^-x dx\n"
-            f"# g: Sommerfeld (1931) in the Karzas & Latter 1961 / Hummer 1988 form (tools/gaunt_sommerfeld.py); "
-            f"average along lines of fixed h nu / Z^2 Ry by the trapezoidal rule in ln(E_f / Z^2 Ry), step {args.h:g}, "
-            f"nodes down to eta_f = {ETA_MAX:g} (further while cheap, at most {ETA_HARD:g}), below them "
-            "continued by a straight line in E_f to the threshold; last column: bound on that piece's error\n")
+    return (
+        f"# grid: log10 u {U_RANGE[0]:g} .. {U_RANGE[1]:g}, log10 gamma^2 {G2_RANGE[0]:g} .. {G2_RANGE[1]:g}, "
+        f"step {args.step:g}; u = h nu / kT, gamma^2 = Z^2 Ry / kT; gbar = int_0^inf g(E_i = (x + u) kT, "
+        "E_f = x kT) e^-x dx\n"
+        f"# g: Sommerfeld (1931) in the Karzas & Latter 1961 / Hummer 1988 form (tools/gaunt_sommerfeld.py); "
+        f"average along lines of fixed h nu / Z^2 Ry by the trapezoidal rule in ln(E_f / Z^2 Ry), step {args.h:g}, "
+        f"nodes down to eta_f = {ETA_MAX:g} (further while cheap, at most {ETA_HARD:g}), below them "
+        "continued by a straight line in E_f to the threshold; last column: bound on that piece's error\n"
+    )
 
 
 def random_points(args):
     """Exact values at random points of the box (uniform in log u and log gamma^2), off the grid's nodes."""
     import random
+
     rng = random.Random(args.seed)
     with open(args.out, "w") as fh:
-        fh.write(f"# Thermally averaged Sommerfeld free-free Gaunt factor at random points, exact (mpmath "
-                 f"dps={args.dps}); generated by: python tools/gaunt_table.py --points {args.points} --seed "
-                 f"{args.seed} --h {args.h} --out {os.path.basename(args.out)}\n")
+        fh.write(
+            f"# Thermally averaged Sommerfeld free-free Gaunt factor at random points, exact (mpmath "
+            f"dps={args.dps}); generated by: python tools/gaunt_table.py --points {args.points} --seed "
+            f"{args.seed} --h {args.h} --out {os.path.basename(args.out)}\n"
+        )
         fh.write("log10_u,log10_gamma2,gbar,left_tail_error_bound\n")
         for _ in range(args.points):
             lu = rng.uniform(*U_RANGE)
@@ -329,17 +344,20 @@ def main(argv=None):
     done = set()
     if args.resume and os.path.exists(args.out):
         with open(args.out) as fh:
-            done = {round(float(ln.split(",")[0]) - float(ln.split(",")[1]), 6)
-                    for ln in fh if ln and ln[0] not in "#l"}
+            done = {
+                round(float(ln.split(",")[0]) - float(ln.split(",")[1]), 6) for ln in fh if ln and ln[0] not in "#l"
+            }
     mode = "a" if args.resume and os.path.exists(args.out) else "w"
     with open(args.out, mode) as fh:
         if mode == "w":
-            fh.write(f"# Thermally averaged Sommerfeld free-free Gaunt factor, exact (mpmath dps={args.dps}); "
-                     f"generated by: python tools/gaunt_table.py --step {args.step} --h {args.h} --out {args.out}"
-                     f"{f' --lines {args.lines[0]:g} {args.lines[1]:g}' if args.lines else ''}\n")
+            fh.write(
+                f"# Thermally averaged Sommerfeld free-free Gaunt factor, exact (mpmath dps={args.dps}); "
+                f"generated by: python tools/gaunt_table.py --step {args.step} --h {args.h} --out {args.out}"
+                f"{f' --lines {args.lines[0]:g} {args.lines[1]:g}' if args.lines else ''}\n"
+            )
             fh.write(header_lines(args))
             fh.write("log10_u,log10_gamma2,gbar,left_tail_error_bound\n")
-        for k in sorted(lines, reverse=True):          # warm (cheap) lines first
+        for k in sorted(lines, reverse=True):  # warm (cheap) lines first
             log_w = k * args.step
             if args.lines and not args.lines[0] - 1e-9 <= log_w <= args.lines[1] + 1e-9:
                 continue
@@ -349,8 +367,7 @@ def main(argv=None):
             for lu, lg, gbar, err in compute_line(log_w, sorted(lines[k]), args.h):
                 fh.write(f"{lu:.4f},{lg:.4f},{mp.nstr(gbar, 15)},{mp.nstr(err, 3)}\n")
             fh.flush()
-            print(f"line log10 w = {log_w:+.2f}: {len(lines[k])} points, {time.perf_counter() - t0:.1f} s",
-                  flush=True)
+            print(f"line log10 w = {log_w:+.2f}: {len(lines[k])} points, {time.perf_counter() - t0:.1f} s", flush=True)
     return 0
 
 

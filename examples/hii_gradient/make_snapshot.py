@@ -12,7 +12,7 @@ import astropy.constants as const
 import h5py
 import numpy as np
 
-M_H = (const.m_p + const.m_e).cgs.value   # g, hydrogen atom mass
+M_H = (const.m_p + const.m_e).cgs.value  # g, hydrogen atom mass
 
 
 def build(n=96, cell_pc=0.01):
@@ -32,7 +32,7 @@ def main():
     args = parser.parse_args()
     rho, temperature = build(args.cells)
     with h5py.File(args.output, "w") as f:
-        f.create_dataset("rho", data=rho)            # units given in the job file
+        f.create_dataset("rho", data=rho)  # units given in the job file
         f.create_dataset("T", data=temperature)
     print(f"wrote {args.output}: {args.cells}^3 cells")
 

@@ -14,9 +14,13 @@ import rtrace
 
 def main():
     rho, temperature = build(96)
-    snap = rtrace.Snapshot.from_arrays(temperature=temperature * u.K, cell_size=0.01 * u.pc,
-                                       density=rho * u.g / u.cm**3, ionization="threshold",
-                                       source="examples/hii_gradient")
+    snap = rtrace.Snapshot.from_arrays(
+        temperature=temperature * u.K,
+        cell_size=0.01 * u.pc,
+        density=rho * u.g / u.cm**3,
+        ionization="threshold",
+        source="examples/hii_gradient",
+    )
     res = rtrace.trace(snap, rtrace.View(npix=96, width=0.96 * u.pc, distance=3 * u.kpc), [1, 10] * u.GHz)
     i = res.intensity.value
     row = i.shape[1] // 2

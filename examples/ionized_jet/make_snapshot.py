@@ -19,7 +19,7 @@ def build(n=96, box_au=800.0, n0=1e8, r0_au=10.0, half_angle_deg=20.0):
     r = np.sqrt(X**2 + Y**2 + Z**2)
     cos_theta = np.abs(Z) / np.maximum(r, 1e-9)
     in_cone = cos_theta >= np.cos(np.radians(half_angle_deg))
-    ne = np.where(in_cone, n0 * (r0_au / np.maximum(r, r0_au))**2, 0.0)
+    ne = np.where(in_cone, n0 * (r0_au / np.maximum(r, r0_au)) ** 2, 0.0)
     temperature = np.where(in_cone, 1.0e4, 50.0)
     return ne.astype(np.float32), temperature.astype(np.float32), dx
 

@@ -18,10 +18,10 @@ import numpy as np
 from scipy.ndimage import gaussian_filter
 
 BOX_PC = 6.0
-X, Y = 0.71, 0.27                                  # hydrogen and helium mass fractions
-M_H = (const.m_p + const.m_e).cgs.value            # g
-M_HE = 4.002602 * const.u.cgs.value                # g
-K_B = const.k_B.cgs.value                          # erg/K
+X, Y = 0.71, 0.27  # hydrogen and helium mass fractions
+M_H = (const.m_p + const.m_e).cgs.value  # g
+M_HE = 4.002602 * const.u.cgs.value  # g
+K_B = const.k_B.cgs.value  # erg/K
 #: Globules: centre (pc) and radius (pc), about 0.8 pc from the group of stars (which is 0.4 pc across),
 #: so that all three stars see each globule in about the same direction and their shadows overlap.
 GLOBULES = [((2.2, 3.15, 3.0), 0.3), ((3.75, 3.6, 3.0), 0.3), ((3.1, 2.1, 3.0), 0.28)]
@@ -34,13 +34,13 @@ def build(n=128, seed=3):
     field /= field.std()
     c = (np.arange(n) + 0.5) * BOX_PC / n
     gx, gy, gz = np.meshgrid(c, c, c, indexing="ij")
-    sheet = 1.0 + 49.0 * -np.expm1(-((gz - 3.0) / 0.6) ** 4)  # 1 in the midplane, 50 beyond 1 pc from it
+    sheet = 1.0 + 49.0 * -np.expm1(-(((gz - 3.0) / 0.6) ** 4))  # 1 in the midplane, 50 beyond 1 pc from it
     n_h = 200.0 * sheet * np.exp(0.6 * field - 0.5 * 0.6**2)
     for (x0, y0, z0), radius in GLOBULES:
         inside = (gx - x0) ** 2 + (gy - y0) ** 2 + (gz - z0) ** 2 < radius**2
         n_h[inside] = 3.0e4
     rho = n_h * M_H / X
-    n_particles = n_h + rho * Y / M_HE                       # neutral atoms: what sets P in cold gas
+    n_particles = n_h + rho * Y / M_HE  # neutral atoms: what sets P in cold gas
     pressure = n_particles * K_B * 60.0
     return rho, pressure
 

@@ -31,7 +31,7 @@ from rtrace.physics.ionization.tables import case_b_coefficient  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 OUT = Path("out")
-STARS = [[2.85, 3.0, 3.0], [3.2, 3.15, 2.98], [3.05, 2.75, 3.05]] * u.pc      # as in job.toml
+STARS = [[2.85, 3.0, 3.0], [3.2, 3.15, 2.98], [3.05, 2.75, 3.05]] * u.pc  # as in job.toml
 RATES = [3e48, 1.5e48, 5e47] / u.s
 T_ION = 8500 * u.K
 COMPOSITION = Composition(hydrogen=0.71, helium=0.27)
@@ -59,11 +59,13 @@ def main():
     print("\n   nu      S (Jy)   thin estimate from Q (Jy)   ratio   alpha to next   max tau")
     for i, (f, s) in enumerate(zip(freq, flux, strict=True)):
         unit = 1 * u.cm**-3
-        j = emission_coefficient(f, T_ION, unit, unit) / unit**2        # per unit n_e n_i (R&L eq. 5.14b)
+        j = emission_coefficient(f, T_ION, unit, unit) / unit**2  # per unit n_e n_i (R&L eq. 5.14b)
         thin = (4 * np.pi * u.sr * j * emission_volume / (4 * np.pi * DISTANCE**2)).to(u.Jy)
         a = f"{alpha[i]:+.3f}" if i < len(alpha) else ""
-        print(f"{f.to(u.GHz):7.1f}  {s.to_value(u.Jy):9.4g}   {thin.to_value(u.Jy):13.4g}             "
-              f"{(s / thin).decompose().value:6.3f}   {a:>8}     {float(res.tau[i].max()):.3g}")
+        print(
+            f"{f.to(u.GHz):7.1f}  {s.to_value(u.Jy):9.4g}   {thin.to_value(u.Jy):13.4g}             "
+            f"{(s / thin).decompose().value:6.3f}   {a:>8}     {float(res.tau[i].max()):.3g}"
+        )
     print("(at 1 GHz the densest rims are optically thick, so the flux falls below the thin estimate)")
 
     # 4. the midplane and the map
@@ -71,15 +73,22 @@ def main():
     k = ne.shape[2] // 2
     side = 6.0
     fig, (left, right) = plt.subplots(1, 2, figsize=(11, 5), constrained_layout=True)
-    image = left.imshow(np.log10(np.maximum(ne[:, :, k].T, 1e-2)), origin="lower", extent=[0, side, 0, side],
-                        cmap="magma", vmin=0, vmax=3.5)
+    image = left.imshow(
+        np.log10(np.maximum(ne[:, :, k].T, 1e-2)),
+        origin="lower",
+        extent=[0, side, 0, side],
+        cmap="magma",
+        vmin=0,
+        vmax=3.5,
+    )
     left.plot(STARS[:, 0].to_value(u.pc), STARS[:, 1].to_value(u.pc), "c*", ms=12, mec="k")
     left.set(xlabel="x (pc)", ylabel="y (pc)", title="electron density in the midplane (z = 3 pc)")
     fig.colorbar(image, ax=left, label="log10 n_e (cm$^{-3}$)")
     jy = (res.intensity[2] * res.pixel_solid_angle).to_value(u.mJy)
     # the image's columns grow toward +x (sky west) and its rows toward +y (north): the midplane's orientation
-    image = right.imshow(np.asinh(jy / np.percentile(jy[jy > 0], 50)), origin="lower", extent=[0, side, 0, side],
-                         cmap="inferno")
+    image = right.imshow(
+        np.asinh(jy / np.percentile(jy[jy > 0], 50)), origin="lower", extent=[0, side, 0, side], cmap="inferno"
+    )
     right.set(xlabel="x (pc)", ylabel="y (pc)", title="22 GHz, seen face-on (asinh stretch of mJy/pixel)")
     fig.savefig(OUT / "shadows.png", dpi=90)
     print(f"\nwrote {OUT / 'shadows.png'}: the dark wedges behind the three globules are their shadows")

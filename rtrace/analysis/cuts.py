@@ -28,8 +28,10 @@ __all__ = ["Cut", "cut"]
 
 def _endpoint(result, point, name):
     from astropy.coordinates import SkyCoord
+
     if isinstance(point, SkyCoord):
         from ..io.fits import sky_wcs
+
         wcs = sky_wcs(result.shape[1:], result.pixel_scale, result.sky_position)
         col, row = wcs.world_to_pixel(point)
         return float(col), float(row)
@@ -46,8 +48,7 @@ def _sample(planes, rows, cols, order):
     """Interpolate each plane of ``planes`` (..., ny, nx) at the points; NaN outside the image."""
     lead = planes.shape[:-2]
     flat = planes.reshape((-1,) + planes.shape[-2:])
-    out = np.array([ndimage.map_coordinates(p, [rows, cols], order=order, mode="constant", cval=np.nan)
-                    for p in flat])
+    out = np.array([ndimage.map_coordinates(p, [rows, cols], order=order, mode="constant", cval=np.nan) for p in flat])
     return out.reshape(lead + (len(rows),))
 
 
@@ -124,11 +125,13 @@ class Cut:
         self._i = delta if self.background == "subtracted" else delta + self._bg
         self.intensity = u.Quantity(self._i, subtracted.unit)
         self.tau = _sample(result.tau, rows, cols, order)
-        self.emission_measure = u.Quantity(_sample(result.emission_measure.value, rows, cols, order),
-                                           result.emission_measure.unit)
+        self.emission_measure = u.Quantity(
+            _sample(result.emission_measure.value, rows, cols, order), result.emission_measure.unit
+        )
         nu = self.frequencies.to_value(u.Hz)[:, None]
         self.brightness_temperature = u.Quantity(
-            brightness_temperature_cgs(nu, delta, self._bg, "planck", self.background), u.K)
+            brightness_temperature_cgs(nu, delta, self._bg, "planck", self.background), u.K
+        )
         self._unabsorbed = None
 
     @property
@@ -168,8 +171,11 @@ class Cut:
         """
         from astropy.table import Table
 
-        meta = {"title": "rtrace cut", "source": str(self.result.provenance.get("source", "unknown")),
-                "background": self.describe_background()}
+        meta = {
+            "title": "rtrace cut",
+            "source": str(self.result.provenance.get("source", "unknown")),
+            "background": self.describe_background(),
+        }
         table = Table(meta=meta)
 
         def add(name, values, description, unit=None):
@@ -180,16 +186,19 @@ class Cut:
         add("distance", self.distance.to_value(u.pc), "distance from the start at the source", u.pc)
         add("column", self.columns, "pixel column of the sample", u.pix)
         add("row", self.rows, "pixel row of the sample", u.pix)
-        add("emission_measure", self.emission_measure.to_value(u.pc * u.cm**-6), "emission measure",
-            u.pc * u.cm**-6)
+        add("emission_measure", self.emission_measure.to_value(u.pc * u.cm**-6), "emission measure", u.pc * u.cm**-6)
         unit = self.intensity.unit
         thin = self.unabsorbed_intensity.to_value(unit)
         tb = self.brightness_temperature.to_value(u.K)
         alpha = self.spectral_index
         for k, f in enumerate(self.frequencies.to_value(u.GHz)):
             tag = f"{f:.6g}GHz"
-            add(f"I_{tag}", self.intensity.value[k], f"specific intensity at {tag} (background: {self.background})",
-                unit)
+            add(
+                f"I_{tag}",
+                self.intensity.value[k],
+                f"specific intensity at {tag} (background: {self.background})",
+                unit,
+            )
             add(f"I_unabsorbed_{tag}", thin[k], f"unabsorbed intensity, int j ds, at {tag}", unit)
             add(f"tau_{tag}", self.tau[k], f"optical depth at {tag}")
             add(f"Tb_{tag}", tb[k], f"Planck brightness temperature at {tag}", u.K)
@@ -210,4 +219,5 @@ class Cut:
         A convenience for :func:`rtrace.plot.plot_cut` (imported here, on use: plot is a layer above).
         """
         from ..plot.cuts import plot_cut
+
         return plot_cut(self, path, frequencies)

@@ -37,16 +37,21 @@ def _snapshot_of(result):
     if getattr(snap, "is_amr", False):
         raise InputError("result: tau = 1 depths and contribution functions are not available for AMR snapshots")
     if not getattr(snap, "in_memory", True):
-        raise InputError("result: tau = 1 depths and contribution functions march rays through the fields in "
-                         "memory, and this snapshot is file-backed (open_hdf5); read it, or a sub-volume of it, "
-                         "with rtrace.io.hdf5.read_hdf5 and trace that")
+        raise InputError(
+            "result: tau = 1 depths and contribution functions march rays through the fields in "
+            "memory, and this snapshot is file-backed (open_hdf5); read it, or a sub-volume of it, "
+            "with rtrace.io.hdf5.read_hdf5 and trace that"
+        )
     return snap
 
 
 def _fields(snap):
     """``(n_e, ion term, T_e)`` as stored (cgs arrays in the snapshot's dtype, views, no copies)."""
-    return (snap.electron_density.to_value(u.cm**-3), snap.ion_density.to_value(u.cm**-3),
-            snap.temperature.to_value(u.K))
+    return (
+        snap.electron_density.to_value(u.cm**-3),
+        snap.ion_density.to_value(u.cm**-3),
+        snap.temperature.to_value(u.K),
+    )
 
 
 def pixel_rays(result, snapshot):
@@ -74,6 +79,7 @@ def tau_unity_depth(result):
         NaN where the ray's total optical depth stays below 1 (or misses the grid).
     """
     from ..transfer.tracer import FrequencyTables
+
     snap = _snapshot_of(result)
     nf, ny, nx = result.shape
     starts, direction = pixel_rays(result, snap)
@@ -124,21 +130,23 @@ def contribution(result, pixel):
     """Contribution function along the ray through the centre of ``pixel`` = ``(column, row)``."""
     from ..physics.freefree import absorption_cgs
     from ..physics.planck import planck_cgs
+
     snap = _snapshot_of(result)
     nf, ny, nx = result.shape
     col, row = (int(v) for v in pixel)
     if not (0 <= col < nx and 0 <= row < ny):
         raise InputError(f"pixel: (column, row) = {pixel} is outside the {nx}x{ny} image")
     starts, direction = pixel_rays(result, snap)
-    depth, ds, cells = ray_segments(starts[row * nx + col], direction, np.asarray(snap.shape, np.int64),
-                                    np.asarray(snap.cell_size, float))
+    depth, ds, cells = ray_segments(
+        starts[row * nx + col], direction, np.asarray(snap.shape, np.int64), np.asarray(snap.cell_size, float)
+    )
     nu = result.frequencies.to_value(u.Hz)[:, None]
     x, y, z = cells.T
     ne, ni, temp = _fields(snap)
     t = temp[x, y, z].astype(float)[None, :]
     ne = ne[x, y, z].astype(float)[None, :]
     ni = ni[x, y, z].astype(float)[None, :]
-    dtau = absorption_cgs(nu, t, ne, ni) * ds[None, :]         # R&L 5.18b
+    dtau = absorption_cgs(nu, t, ne, ni) * ds[None, :]  # R&L 5.18b
     tau_front = np.cumsum(dtau, axis=1) - dtau
     contrib = planck_cgs(nu, t) * -np.expm1(-dtau) * np.exp(-tau_front)
     return RayContribution(depth, ds, cells, contrib, tau_front, nu[:, 0])

@@ -31,14 +31,29 @@ from ..observe.beam import same_beam
 from ..quantities import JY_PER_BEAM, jy_per_beam, parse_frequencies
 from ..transfer.background import check_convention, describe
 
-__all__ = ["sed", "sed_metadata", "describe_background", "sed_table", "write_sed_table", "spectral_index",
-           "spectral_index_map",
-           "SpectralIndexMap", "tau_unity_frequency", "middle_frequency_index", "frequency_index", "pixel_flux",
-           "aperture_mask", "FREQUENCY_TOLERANCE", "THIN_SPECTRAL_INDEX", "SED_COLUMNS",
-           "DEFAULT_PEAK_FRACTION", "DEFAULT_SNR_THRESHOLD"]
+__all__ = [
+    "sed",
+    "sed_metadata",
+    "describe_background",
+    "sed_table",
+    "write_sed_table",
+    "spectral_index",
+    "spectral_index_map",
+    "SpectralIndexMap",
+    "tau_unity_frequency",
+    "middle_frequency_index",
+    "frequency_index",
+    "pixel_flux",
+    "aperture_mask",
+    "FREQUENCY_TOLERANCE",
+    "THIN_SPECTRAL_INDEX",
+    "SED_COLUMNS",
+    "DEFAULT_PEAK_FRACTION",
+    "DEFAULT_SNR_THRESHOLD",
+]
 
 # Columns of the SED CSV file, in order
-SED_COLUMNS = ("frequency", "flux_density", "spectral_index")     # units GHz, Jy and none
+SED_COLUMNS = ("frequency", "flux_density", "spectral_index")  # units GHz, Jy and none
 
 # Spectral index of optically thin free-free emission at radio frequencies (the Gaunt
 # factor's slow decline makes S ~ nu^-0.1; Condon & Ransom 2016, from memory).
@@ -145,21 +160,25 @@ _ON_THE_EDGE = 1e-12
 
 def _is_region(aperture):
     import regions
+
     return isinstance(aperture, (regions.PixelRegion, regions.SkyRegion))
 
 
 def _region_mask(shape, region, wcs):
     """Boolean mask of the pixels whose centres a `regions` region holds (mode ``"center"``)."""
     import regions
+
     if isinstance(region, regions.SkyRegion):
         if wcs is None:
-            raise InputError(f"aperture: a sky region ({type(region).__name__}) needs the image's WCS; "
-                             "give a pixel region or (center_col, center_row, radius)")
+            raise InputError(
+                f"aperture: a sky region ({type(region).__name__}) needs the image's WCS; "
+                "give a pixel region or (center_col, center_row, radius)"
+            )
         region = region.to_pixel(wcs)
     if isinstance(region, regions.CirclePixelRegion):
         region = regions.CirclePixelRegion(region.center, region.radius * (1 + _ON_THE_EDGE))
     mask = region.to_mask(mode="center")
-    if isinstance(mask, list):          # a compound region can give several masks
+    if isinstance(mask, list):  # a compound region can give several masks
         raise InputError("aperture: give a single region (its mask must be one piece)")
     image = mask.to_image(tuple(shape))
     return np.zeros(shape, bool) if image is None else image > 0
@@ -216,14 +235,18 @@ def aperture_mask(shape, aperture, wcs=None):
 def _circle(aperture):
     """``(center_col, center_row, radius)`` in pixels, checked, as a `regions.CirclePixelRegion`."""
     import regions
+
     try:
         values = np.asarray(aperture, dtype=float).reshape(-1)
     except (TypeError, ValueError):
-        raise InputError(f"aperture: expected None, a boolean mask, a regions region or (center_col, center_row, "
-                         f"radius), got {aperture!r}") from None
+        raise InputError(
+            f"aperture: expected None, a boolean mask, a regions region or (center_col, center_row, "
+            f"radius), got {aperture!r}"
+        ) from None
     if values.shape != (3,) or not np.all(np.isfinite(values)):
-        raise InputError(f"aperture: a circle is three finite numbers (center_col, center_row, radius) "
-                         f"in pixels, got {aperture!r}")
+        raise InputError(
+            f"aperture: a circle is three finite numbers (center_col, center_row, radius) in pixels, got {aperture!r}"
+        )
     col0, row0, radius = (float(v) for v in values)
     if not radius > 0:
         raise InputError(f"aperture: the circle radius must be positive, got {radius:g} pixels")
@@ -233,9 +256,11 @@ def _circle(aperture):
 def _image_wcs(obj, aperture):
     """The celestial WCS of ``obj``'s image when ``aperture`` is a sky region (None otherwise)."""
     import regions
+
     if not isinstance(aperture, regions.SkyRegion):
         return None
     from ..io.fits import sky_wcs
+
     shape = np.shape(obj.data if is_skymap(obj) else obj.tau)[1:]
     return sky_wcs(shape, obj.pixel_scale, obj.sky_position)
 
@@ -270,10 +295,13 @@ def sed(obj, aperture=None, background=None):
 
 def _describe_aperture(aperture, shape):
     import regions
+
     if isinstance(aperture, regions.CircleSkyRegion):
         c = aperture.center.icrs
-        return (f"circle centre RA {c.ra.deg:.8g} deg, Dec {c.dec.deg:.8g} deg (ICRS) radius "
-                f"{aperture.radius.to_value(u.arcsec):g} arcsec")
+        return (
+            f"circle centre RA {c.ra.deg:.8g} deg, Dec {c.dec.deg:.8g} deg (ICRS) radius "
+            f"{aperture.radius.to_value(u.arcsec):g} arcsec"
+        )
     if isinstance(aperture, regions.CirclePixelRegion):
         aperture = (aperture.center.x, aperture.center.y, aperture.radius)
     elif _is_region(aperture):
@@ -305,8 +333,7 @@ def sed_metadata(obj, aperture=None, background=None):
     result = obj if is_result(obj) else getattr(obj, "result", None)
     provenance = getattr(result, "provenance", {}) if result is not None else {}
     shape = np.shape(obj.data if is_skymap(obj) else obj.tau)[1:]
-    meta = {"source": str(provenance.get("source", "unknown")),
-            "view": str(provenance.get("view", "unknown"))}
+    meta = {"source": str(provenance.get("source", "unknown")), "view": str(provenance.get("view", "unknown"))}
     distance = getattr(obj, "distance", None)
     if distance is None and result is not None:
         distance = result.view.distance
@@ -316,8 +343,10 @@ def sed_metadata(obj, aperture=None, background=None):
     meta["background"] = describe_background(obj, background)
     if is_skymap(obj):
         beam = _beam_at(obj, 0)
-        meta["beam"] = (f"{beam.major.to_value(u.arcsec):.4g} x {beam.minor.to_value(u.arcsec):.4g} arcsec, "
-                        f"PA {beam.pa.to_value(u.deg):.4g} deg (first plane)")
+        meta["beam"] = (
+            f"{beam.major.to_value(u.arcsec):.4g} x {beam.minor.to_value(u.arcsec):.4g} arcsec, "
+            f"PA {beam.pa.to_value(u.deg):.4g} deg (first plane)"
+        )
     return meta
 
 
@@ -459,8 +488,11 @@ def frequency_index(obj, frequency, name="frequency"):
     -------
     int
     """
-    nu = u.Quantity(obj).to_value(u.Hz, equivalencies=u.spectral()) if isinstance(obj, u.Quantity) \
+    nu = (
+        u.Quantity(obj).to_value(u.Hz, equivalencies=u.spectral())
+        if isinstance(obj, u.Quantity)
         else _frequencies_hz(obj)
+    )
     nu = np.atleast_1d(nu)
     if isinstance(frequency, (int, np.integer)) and not isinstance(frequency, bool):
         if not -nu.size <= frequency < nu.size:
@@ -472,8 +504,10 @@ def frequency_index(obj, frequency, name="frequency"):
     index = int(np.argmin(np.abs(nu - want)))
     if abs(nu[index] - want) > FREQUENCY_TOLERANCE * want:
         traced = ", ".join(f"{v / 1e9:.6g}" for v in nu)
-        raise InputError(f"{name}: {want / 1e9:.6g} GHz is not within {FREQUENCY_TOLERANCE:.0%} of a "
-                         f"traced frequency (traced: {traced} GHz)")
+        raise InputError(
+            f"{name}: {want / 1e9:.6g} GHz is not within {FREQUENCY_TOLERANCE:.0%} of a "
+            f"traced frequency (traced: {traced} GHz)"
+        )
     return index
 
 
@@ -491,8 +525,11 @@ def middle_frequency_index(obj):
         The plane whose ``ln nu`` is closest to ``(ln nu_min + ln nu_max) / 2``
         (the lower one on a tie).
     """
-    nu = u.Quantity(obj).to_value(u.Hz, equivalencies=u.spectral()) if isinstance(obj, u.Quantity) \
+    nu = (
+        u.Quantity(obj).to_value(u.Hz, equivalencies=u.spectral())
+        if isinstance(obj, u.Quantity)
         else _frequencies_hz(obj)
+    )
     log_nu = np.log(np.atleast_1d(nu))
     middle = 0.5 * (log_nu.min() + log_nu.max())
     distance = np.abs(log_nu - middle)
@@ -539,7 +576,7 @@ def _common_beam(b1, b2):
         return b1
     big, small = (b1, b2) if b1.sr >= b2.sr else (b2, b1)
     try:
-        big.deconvolve(small)        # succeeds when ``big`` contains ``small``: no need to go larger
+        big.deconvolve(small)  # succeeds when ``big`` contains ``small``: no need to go larger
         return big
     except BeamError:
         return radio_beam.Beams(beams=[b1, b2]).common_beam()
@@ -584,8 +621,7 @@ DEFAULT_PEAK_FRACTION = 1.0e-3
 DEFAULT_SNR_THRESHOLD = 3.0
 
 
-def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAULT_PEAK_FRACTION,
-                       match_beams=True):
+def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAULT_PEAK_FRACTION, match_beams=True):
     """Per-pixel spectral index between two image planes, at one resolution.
 
     ``alpha = ln(I2 / I1) / ln(nu2 / nu1)`` with ``I`` the background-subtracted
@@ -634,8 +670,11 @@ def spectral_index_map(obj, nu1, nu2, snr_threshold=None, *, peak_fraction=DEFAU
     i2 = frequency_index(obj, nu2, "nu2")
     if i1 == i2:
         raise InputError(f"nu2: selects the same plane as nu1 (index {i1}); the index needs two frequencies")
-    fraction = float(peak_fraction) if isinstance(peak_fraction, (int, float, np.floating, np.integer)) and \
-        not isinstance(peak_fraction, bool) else None
+    fraction = (
+        float(peak_fraction)
+        if isinstance(peak_fraction, (int, float, np.floating, np.integer)) and not isinstance(peak_fraction, bool)
+        else None
+    )
     if fraction is None or not (np.isfinite(fraction) and 0.0 <= fraction < 1.0):
         raise InputError(f"peak_fraction: expected a number in [0, 1), got {peak_fraction!r}")
     nu = _frequencies_hz(obj)
@@ -730,7 +769,7 @@ def _unity_crossing(log_nu, tau):
     out = np.full(flat.shape[1], np.nan)
     above = flat[:-1] >= 1.0
     below = flat[1:] < 1.0
-    bracket = above & below                                  # (nfreq - 1, npix)
+    bracket = above & below  # (nfreq - 1, npix)
     has = bracket.any(axis=0)
     # highest bracketing k: reverse search
     k = bracket.shape[0] - 1 - np.argmax(bracket[::-1], axis=0)
@@ -799,11 +838,15 @@ def tau_unity_frequency(result):
         _warn_no_bracket(nu[order], tau)
     elif np.isnan(whole):
         thin = bool(np.all(mean_tau[np.isfinite(mean_tau)] < 1.0)) if np.isfinite(mean_tau).any() else None
-        state = {True: "thin (<tau> < 1) at every traced frequency",
-                 False: "thick or not falling through 1 within the traced frequencies",
-                 None: "without flux (no weight for <tau>)"}[thin]
-        warn_user(f"turnover_frequency: the whole source is {state} ({nu[order][0]:.4g} to {nu[order][-1]:.4g} "
-                  "Hz), so its turnover is NaN; trace a wider frequency range")
+        state = {
+            True: "thin (<tau> < 1) at every traced frequency",
+            False: "thick or not falling through 1 within the traced frequencies",
+            None: "without flux (no weight for <tau>)",
+        }[thin]
+        warn_user(
+            f"turnover_frequency: the whole source is {state} ({nu[order][0]:.4g} to {nu[order][-1]:.4g} "
+            "Hz), so its turnover is NaN; trace a wider frequency range"
+        )
     return per_pixel * u.Hz, whole * u.Hz
 
 
@@ -814,15 +857,23 @@ def _warn_no_bracket(nu, tau):
     n_thick = int(np.count_nonzero(np.all(flat >= 1.0, axis=0)))
     n_other = flat.shape[1] - n_thin - n_thick
     if n_thin == flat.shape[1]:
-        state = (f"everything is optically thin: tau < 1 at every traced frequency in all {n_thin} pixels "
-                 f"(largest tau {float(flat.max()):.3g}); the turnover lies below "
-                 f"{nu[0]:.4g} Hz, so trace lower frequencies")
+        state = (
+            f"everything is optically thin: tau < 1 at every traced frequency in all {n_thin} pixels "
+            f"(largest tau {float(flat.max()):.3g}); the turnover lies below "
+            f"{nu[0]:.4g} Hz, so trace lower frequencies"
+        )
     elif n_thick == flat.shape[1]:
-        state = (f"everything is optically thick: tau >= 1 at every traced frequency in all {n_thick} pixels "
-                 f"(smallest tau {float(flat.min()):.3g}); the turnover lies above {nu[-1]:.4g} Hz, so trace "
-                 "higher frequencies")
+        state = (
+            f"everything is optically thick: tau >= 1 at every traced frequency in all {n_thick} pixels "
+            f"(smallest tau {float(flat.min()):.3g}); the turnover lies above {nu[-1]:.4g} Hz, so trace "
+            "higher frequencies"
+        )
     else:
-        state = (f"{n_thin} pixel(s) are thin at every traced frequency, {n_thick} thick at every one, "
-                 f"{n_other} cross 1 only while tau rises with frequency")
-    warn_user(f"turnover_frequency: no traced frequency pair ({nu[0]:.4g} to {nu[-1]:.4g} Hz) brackets tau = 1 "
-              f"in any pixel, so every value is NaN: {state}")
+        state = (
+            f"{n_thin} pixel(s) are thin at every traced frequency, {n_thick} thick at every one, "
+            f"{n_other} cross 1 only while tau rises with frequency"
+        )
+    warn_user(
+        f"turnover_frequency: no traced frequency pair ({nu[0]:.4g} to {nu[-1]:.4g} Hz) brackets tau = 1 "
+        f"in any pixel, so every value is NaN: {state}"
+    )

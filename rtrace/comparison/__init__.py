@@ -12,6 +12,17 @@ from .core import REPROJECT_ORDERS, ApertureFlux, Comparison, RadialProfile, com
 from .model import FREQUENCY_MATCH_RTOL, ModelCube, model_cube
 from .observation import FREQUENCY_KEYWORDS, ComparisonWarning, ObservedImage, read_observation
 
-__all__ = ["compare", "Comparison", "ApertureFlux", "RadialProfile", "ComparisonWarning", "ObservedImage",
-           "read_observation", "ModelCube", "model_cube", "REPROJECT_ORDERS", "FREQUENCY_KEYWORDS",
-           "FREQUENCY_MATCH_RTOL"]
+__all__ = [
+    "compare",
+    "Comparison",
+    "ApertureFlux",
+    "RadialProfile",
+    "ComparisonWarning",
+    "ObservedImage",
+    "read_observation",
+    "ModelCube",
+    "model_cube",
+    "REPROJECT_ORDERS",
+    "FREQUENCY_KEYWORDS",
+    "FREQUENCY_MATCH_RTOL",
+]

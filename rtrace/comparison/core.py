@@ -44,8 +44,9 @@ __all__ = ["compare", "Comparison", "ApertureFlux", "RadialProfile", "REPROJECT_
 REPROJECT_ORDERS = ("bicubic", "bilinear", "biquadratic", "nearest-neighbor")
 
 
-def compare(result, observation, *, frequency=None, beam=None, unit=None, order="bicubic", model_name="result",
-            max_memory=None):
+def compare(
+    result, observation, *, frequency=None, beam=None, unit=None, order="bicubic", model_name="result", max_memory=None
+):
     """Compare a model with an observed image, on the observed image's grid.
 
     Parameters
@@ -104,21 +105,35 @@ def compare(result, observation, *, frequency=None, beam=None, unit=None, order=
     common = np.isfinite(obs.data) & np.isfinite(on_grid)
     n_common, n_obs = int(common.sum()), int(np.isfinite(obs.data).sum())
     if n_common == 0:
-        raise InputError("observation: the model and the observed image do not overlap on the sky "
-                         f"(model centre {cube.center.to_string('hmsdms')}, observed grid of {obs.shape[1]} x "
-                         f"{obs.shape[0]} pixels)")
+        raise InputError(
+            "observation: the model and the observed image do not overlap on the sky "
+            f"(model centre {cube.center.to_string('hmsdms')}, observed grid of {obs.shape[1]} x "
+            f"{obs.shape[0]} pixels)"
+        )
     if n_common < n_obs:
-        note(notes, f"the model covers {n_common} of the {n_obs} observed pixels "
-                    f"({100.0 * n_common / n_obs:.1f} %); totals and ratios use those (the common footprint)")
+        note(
+            notes,
+            f"the model covers {n_common} of the {n_obs} observed pixels "
+            f"({100.0 * n_common / n_obs:.1f} %); totals and ratios use those (the common footprint)",
+        )
     return Comparison(obs, on_grid, common, cube, notes, order)
 
 
 def _check_beam(obs, cube, model_name, max_memory):
     """The observed beam fits the model's field, and its kernel fits in memory (before it is made)."""
     from ..observe.skymap import check_observation
+
     field = f"{obs.source or 'observation'} BMAJ" if obs.beam_source == "BMAJ/BMIN/BPA" else obs.beam_source
-    check_observation([obs.beam], cube.pixel_scale, cube.shape, [obs.frequency.to_value(u.Hz)],
-                      max_memory=max_memory, beam_field=field, image_field=model_name, image="model")
+    check_observation(
+        [obs.beam],
+        cube.pixel_scale,
+        cube.shape,
+        [obs.frequency.to_value(u.Hz)],
+        max_memory=max_memory,
+        beam_field=field,
+        image_field=model_name,
+        image="model",
+    )
 
 
 @dataclass(frozen=True)
@@ -237,8 +252,11 @@ class Comparison:
             self.flux_ratio = m / o
         else:
             self.flux_ratio = float("nan")
-            note(self.notes, f"the observed total over the common footprint is {o / self.beam_area_pixels:.4g} Jy "
-                             "(not positive): no flux ratio")
+            note(
+                self.notes,
+                f"the observed total over the common footprint is {o / self.beam_area_pixels:.4g} Jy "
+                "(not positive): no flux ratio",
+            )
 
     # -- images -----------------------------------------------------------------------------------
     @property
@@ -264,6 +282,7 @@ class Comparison:
     # -- measurements -----------------------------------------------------------------------------
     def _region_weights(self, region, mode):
         import regions
+
         if isinstance(region, regions.SkyRegion):
             pix = region.to_pixel(self.wcs)
         elif isinstance(region, regions.PixelRegion):
@@ -274,7 +293,7 @@ class Comparison:
             mask = pix.to_mask(mode=mode)
         except ValueError as exc:
             raise InputError(f"mode: {exc}") from None
-        if isinstance(mask, list):          # a compound region can give several masks
+        if isinstance(mask, list):  # a compound region can give several masks
             raise InputError("region: give a single region (its mask must be one piece)")
         weights = mask.to_image(self.shape)
         if weights is None or not np.any(weights > 0):
@@ -308,8 +327,14 @@ class Comparison:
         m = float(np.sum(w * np.nan_to_num(self._model))) / self.beam_area_pixels
         o = float(np.sum(w * np.nan_to_num(self._obs))) / self.beam_area_pixels
         complete = bool(np.isclose(counted, full, rtol=1e-9, atol=1e-9))
-        return ApertureFlux(model=m * u.Jy, observation=o * u.Jy, residual=(o - m) * u.Jy,
-                            ratio=m / o if o != 0 else float("nan"), pixels=counted, complete=complete)
+        return ApertureFlux(
+            model=m * u.Jy,
+            observation=o * u.Jy,
+            residual=(o - m) * u.Jy,
+            ratio=m / o if o != 0 else float("nan"),
+            pixels=counted,
+            complete=complete,
+        )
 
     def flux_table(self, apertures=(), title=None):
         """Flux densities over the common footprint and in each aperture, as an astropy `~astropy.table.Table`.
@@ -336,27 +361,48 @@ class Comparison:
         """
         from astropy.table import Table
 
-        rows = [("common footprint", self.model_flux.to_value(u.Jy), self.observed_flux.to_value(u.Jy),
-                 (self.observed_flux - self.model_flux).to_value(u.Jy), self.flux_ratio,
-                 float(self.footprint.sum()), True)]
+        rows = [
+            (
+                "common footprint",
+                self.model_flux.to_value(u.Jy),
+                self.observed_flux.to_value(u.Jy),
+                (self.observed_flux - self.model_flux).to_value(u.Jy),
+                self.flux_ratio,
+                float(self.footprint.sum()),
+                True,
+            )
+        ]
         for k, item in enumerate(apertures):
             label, region = item if isinstance(item, tuple) else (f"aperture {k + 1}", item)
             a = self.aperture_flux(region)
-            rows.append((str(label), a.model.to_value(u.Jy), a.observation.to_value(u.Jy),
-                         a.residual.to_value(u.Jy), a.ratio, a.pixels, a.complete))
-        columns = [("aperture", None, "where the flux densities are summed"),
-                   ("model", u.Jy, "flux density of the model convolved with the observed beam, on the observed grid"),
-                   ("observed", u.Jy, "flux density of the observation"),
-                   ("residual", u.Jy, "observed - model"),
-                   ("ratio", None, "model / observed"),
-                   ("pixels", u.pix, "pixels counted (boundary pixels weighted by the fraction inside)"),
-                   ("complete", None, "False when part of the aperture lies outside the common footprint")]
-        meta = {"title": title or f"rtrace comparison with {self.observation_source}",
-                "frequency": f"{self.frequency.to_value(u.GHz):.8g} GHz",
-                "observation": str(self.observation_source),
-                "background": f"subtracted from the model (behind the source: {self.model_background.label()}): "
-                              "an observed image holds no uniform level",
-                "notes": list(self.notes)}
+            rows.append(
+                (
+                    str(label),
+                    a.model.to_value(u.Jy),
+                    a.observation.to_value(u.Jy),
+                    a.residual.to_value(u.Jy),
+                    a.ratio,
+                    a.pixels,
+                    a.complete,
+                )
+            )
+        columns = [
+            ("aperture", None, "where the flux densities are summed"),
+            ("model", u.Jy, "flux density of the model convolved with the observed beam, on the observed grid"),
+            ("observed", u.Jy, "flux density of the observation"),
+            ("residual", u.Jy, "observed - model"),
+            ("ratio", None, "model / observed"),
+            ("pixels", u.pix, "pixels counted (boundary pixels weighted by the fraction inside)"),
+            ("complete", None, "False when part of the aperture lies outside the common footprint"),
+        ]
+        meta = {
+            "title": title or f"rtrace comparison with {self.observation_source}",
+            "frequency": f"{self.frequency.to_value(u.GHz):.8g} GHz",
+            "observation": str(self.observation_source),
+            "background": f"subtracted from the model (behind the source: {self.model_background.label()}): "
+            "an observed image holds no uniform level",
+            "notes": list(self.notes),
+        }
         table = Table(rows=rows, names=[c[0] for c in columns], meta=meta)
         for name, unit, description in columns:
             table[name].unit, table[name].description = unit, description
@@ -386,6 +432,7 @@ class Comparison:
         RadialProfile
         """
         import regions
+
         if center is None:
             center = self.model_center
         elif isinstance(center, regions.PixCoord):
@@ -410,10 +457,16 @@ class Comparison:
             with np.errstate(invalid="ignore", divide="ignore"):
                 return np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
 
-        return RadialProfile(radius=0.5 * (edges[:-1] + edges[1:]) * u.arcsec, inner=edges[:-1] * u.arcsec,
-                             outer=edges[1:] * u.arcsec, model=mean(self._model) * JY_PER_BEAM,
-                             observation=mean(self._obs) * JY_PER_BEAM,
-                             residual=mean(self._residual) * JY_PER_BEAM, pixels=counts, center=center)
+        return RadialProfile(
+            radius=0.5 * (edges[:-1] + edges[1:]) * u.arcsec,
+            inner=edges[:-1] * u.arcsec,
+            outer=edges[1:] * u.arcsec,
+            model=mean(self._model) * JY_PER_BEAM,
+            observation=mean(self._obs) * JY_PER_BEAM,
+            residual=mean(self._residual) * JY_PER_BEAM,
+            pixels=counts,
+            center=center,
+        )
 
     # -- output -------------------------------------------------------------------------------------
     def summary(self):
@@ -445,11 +498,13 @@ class Comparison:
         A convenience: the drawing lives in :mod:`rtrace.plot.comparison` (imported here, on use).
         """
         from ..plot.comparison import plot_comparison
+
         return plot_comparison(self, stretch=stretch, cmap=cmap, residual_cmap=residual_cmap, title=title)
 
     def plot(self, path=None, **kwargs):
         """:meth:`figure`, saved atomically to ``path`` when given (format from the suffix)."""
         from ..plot.comparison import plot_comparison
+
         return plot_comparison(self, path, **kwargs)
 
     def write_fits(self, path, overwrite=True):
@@ -493,8 +548,11 @@ class Comparison:
         base["FLUXRAT"] = (ratio, "model / observed total, common footprint")
         base["INTERP"] = (self.order, "reproject_interp order")
         hdus = []
-        for kind, data, extname in (("residual", self._residual, "RESIDUAL"), ("model", self._model, "MODEL"),
-                                    ("observation", self._obs, "OBSERVED")):
+        for kind, data, extname in (
+            ("residual", self._residual, "RESIDUAL"),
+            ("model", self._model, "MODEL"),
+            ("observation", self._obs, "OBSERVED"),
+        ):
             hdr = base.copy()
             hdr["EXTNAME"] = extname
             hdr["RTQUANT"] = (kind, "rtrace quantity in the data")
@@ -502,8 +560,9 @@ class Comparison:
             hdu = fits.PrimaryHDU(values) if not hdus else fits.ImageHDU(values)
             hdu.header.extend(hdr, update=True)
             if not hdus:
-                add_provenance(hdu.header, {k: v for k, v in self.model_provenance.items()
-                                             if k not in ("beam", "noise")})
+                add_provenance(
+                    hdu.header, {k: v for k, v in self.model_provenance.items() if k not in ("beam", "noise")}
+                )
                 hdu.header.extend(header_cards("subtracted", self.model_background))
                 hdu.header.add_history(header_ascii(f"model: {self.model_source}"))
                 hdu.header.add_history(header_ascii(f"observation: {self.observation_source}"))
@@ -516,8 +575,10 @@ class Comparison:
 
     def __repr__(self):
         ny, nx = self.shape
-        return (f"<Comparison {nx}x{ny} pixels at {self.frequency.to_value(u.GHz):.6g} GHz, "
-                f"flux ratio {self.flux_ratio:.4f}, {len(self.notes)} note(s)>")
+        return (
+            f"<Comparison {nx}x{ny} pixels at {self.frequency.to_value(u.GHz):.6g} GHz, "
+            f"flux ratio {self.flux_ratio:.4f}, {len(self.notes)} note(s)>"
+        )
 
 
 def _angle_arcsec(value, name):

@@ -53,7 +53,6 @@ _MIN_DIFFERENCE_FWHM_PIX = 0.25
 _MIN_PIXELS_PER_BEAM = 3.0
 
 
-
 @dataclass
 class ModelCube:
     """Model planes on rtrace's sky grid.
@@ -109,11 +108,16 @@ def _finite(data, name):
 def _from_result(result):
     data = _finite(result.jy_per_pixel("subtracted").value, "result")
     ny, nx = data.shape[1:]
-    return ModelCube(data=data, frequencies=result.frequencies.to_value(u.Hz),
-                     wcs=sky_wcs((ny, nx), result.pixel_scale, result.sky_position),
-                     pixel_scale=result.pixel_scale.to(u.arcsec), beams=None,
-                     source=f"traced Result ({result.provenance.get('source', 'snapshot')})",
-                     provenance=dict(result.provenance), background=background_of(result))
+    return ModelCube(
+        data=data,
+        frequencies=result.frequencies.to_value(u.Hz),
+        wcs=sky_wcs((ny, nx), result.pixel_scale, result.sky_position),
+        pixel_scale=result.pixel_scale.to(u.arcsec),
+        beams=None,
+        source=f"traced Result ({result.provenance.get('source', 'snapshot')})",
+        provenance=dict(result.provenance),
+        background=background_of(result),
+    )
 
 
 def _from_skymap(sky):
@@ -122,11 +126,16 @@ def _from_skymap(sky):
         data = data - sky.background_per_beam.to_value(u.Jy / u.beam)[:, None, None]
     data = _finite(data, "result")
     ny, nx = data.shape[1:]
-    return ModelCube(data=data, frequencies=sky.frequencies.to_value(u.Hz),
-                     wcs=sky_wcs((ny, nx), sky.pixel_scale, sky.sky_position),
-                     pixel_scale=u.Quantity(sky.pixel_scale).to(u.arcsec), beams=list(sky.beams),
-                     source="noiseless model of a SkyMap", provenance=dict(sky.provenance),
-                     background=background_of(sky))
+    return ModelCube(
+        data=data,
+        frequencies=sky.frequencies.to_value(u.Hz),
+        wcs=sky_wcs((ny, nx), sky.pixel_scale, sky.sky_position),
+        pixel_scale=u.Quantity(sky.pixel_scale).to(u.arcsec),
+        beams=list(sky.beams),
+        source="noiseless model of a SkyMap",
+        provenance=dict(sky.provenance),
+        background=background_of(sky),
+    )
 
 
 def _grid_scale(wcs, name):
@@ -136,8 +145,10 @@ def _grid_scale(wcs, name):
         raise InputError(f"{name}: model pixels must be square, got {scales[0]:.6g} x {scales[1]:.6g} arcsec")
     m = wcs.pixel_scale_matrix * 3600.0 / scales[0]
     if not np.allclose(m, [[-1.0, 0.0], [0.0, 1.0]], atol=1e-6):
-        raise InputError(f"{name}: the model grid must have north up and east left (column index toward "
-                         f"west, as rtrace writes it); its pixel matrix is {m.tolist()}")
+        raise InputError(
+            f"{name}: the model grid must have north up and east left (column index toward "
+            f"west, as rtrace writes it); its pixel matrix is {m.tolist()}"
+        )
     return scales[0] * u.arcsec
 
 
@@ -180,17 +191,28 @@ def _from_fits(obj, name):
         if len(beams) != nu.size:
             raise InputError(f"{name}: the BEAMS table has {len(beams)} rows for {nu.size} planes")
     else:
-        raise InputError(f"{name}: model BUNIT is '{header['BUNIT']}'; expected Jy/pixel (as written by "
-                         "Result.write_fits) or Jy/beam (SkyMap.write_fits)")
-    per_sr = ((scale.to_value(u.rad)) ** 2 if beams is None
-              else np.array([b.sr.to_value(u.sr) for b in beams]))
+        raise InputError(
+            f"{name}: model BUNIT is '{header['BUNIT']}'; expected Jy/pixel (as written by "
+            "Result.write_fits) or Jy/beam (SkyMap.write_fits)"
+        )
+    per_sr = (scale.to_value(u.rad)) ** 2 if beams is None else np.array([b.sr.to_value(u.sr) for b in beams])
     data = data - background_in_header(header, nu, per_sr, name)[:, None, None]
     kind = str(header.get("BKGKIND", "none")).strip().lower()
-    bg = (Background(kind, float(header["BKGTEMP"])) if kind in ("cmb", "blackbody") and "BKGTEMP" in header
-          else Background())
-    return ModelCube(data=_finite(data, name), frequencies=np.asarray(nu, float), wcs=cwcs, pixel_scale=scale,
-                     beams=beams, source=f"model FITS {source}", provenance={"source": header.get("SNAPSRC")},
-                     background=bg)
+    bg = (
+        Background(kind, float(header["BKGTEMP"]))
+        if kind in ("cmb", "blackbody") and "BKGTEMP" in header
+        else Background()
+    )
+    return ModelCube(
+        data=_finite(data, name),
+        frequencies=np.asarray(nu, float),
+        wcs=cwcs,
+        pixel_scale=scale,
+        beams=beams,
+        source=f"model FITS {source}",
+        provenance={"source": header.get("SNAPSRC")},
+        background=bg,
+    )
 
 
 def plane_files(path):
@@ -214,8 +236,12 @@ def plane_files(path):
 def _same_grid(a, b):
     keys = ("CTYPE1", "CTYPE2", "CRVAL1", "CRVAL2", "CRPIX1", "CRPIX2", "CDELT1", "CDELT2")
     ha, hb = a.to_header(), b.to_header()
-    return all(ha.get(k) == hb.get(k) if isinstance(ha.get(k), str)
-               else np.isclose(ha.get(k, 0.0), hb.get(k, 0.0), rtol=1e-12, atol=0) for k in keys)
+    return all(
+        ha.get(k) == hb.get(k)
+        if isinstance(ha.get(k), str)
+        else np.isclose(ha.get(k, 0.0), hb.get(k, 0.0), rtol=1e-12, atol=0)
+        for k in keys
+    )
 
 
 def _from_planes(paths, name):
@@ -226,18 +252,25 @@ def _from_planes(paths, name):
     first = parts[0]
     for k, part in enumerate(parts[1:], start=1):
         if part.data.shape[1:] != first.data.shape[1:] or not _same_grid(part.wcs, first.wcs):
-            raise InputError(f"{name}[{k}]: '{os.fspath(paths[k])}' is not on the sky grid of "
-                             f"'{os.fspath(paths[0])}'; the planes of one cube share their grid")
+            raise InputError(
+                f"{name}[{k}]: '{os.fspath(paths[k])}' is not on the sky grid of "
+                f"'{os.fspath(paths[0])}'; the planes of one cube share their grid"
+            )
         if (part.beams is None) != (first.beams is None):
             raise InputError(f"{name}[{k}]: mixes Jy/pixel and Jy/beam planes")
     nu = np.concatenate([p.frequencies for p in parts])
     if np.unique(nu).size != nu.size:
         raise InputError(f"{name}: {nu.size - np.unique(nu).size} plane(s) repeat a frequency")
     beams = None if first.beams is None else [b for p in parts for b in p.beams]
-    return ModelCube(data=np.concatenate([p.data for p in parts]), frequencies=nu, wcs=first.wcs,
-                     pixel_scale=first.pixel_scale, beams=beams,
-                     source=f"model FITS planes {', '.join(os.path.basename(os.fspath(p)) for p in paths)}",
-                     provenance=first.provenance)
+    return ModelCube(
+        data=np.concatenate([p.data for p in parts]),
+        frequencies=nu,
+        wcs=first.wcs,
+        pixel_scale=first.pixel_scale,
+        beams=beams,
+        source=f"model FITS planes {', '.join(os.path.basename(os.fspath(p)) for p in paths)}",
+        provenance=first.provenance,
+    )
 
 
 def model_cube(result, name="result"):
@@ -261,13 +294,16 @@ def model_cube(result, name="result"):
             return _from_planes(planes, name)
     if isinstance(result, (str, os.PathLike, fits.HDUList, fits.PrimaryHDU, fits.ImageHDU, fits.CompImageHDU)):
         return _from_fits(result, name)
-    raise InputError(f"{name}: expected an rtrace Result, a SkyMap, a model FITS file / HDU or a list of the "
-                     f"plane files of one cube, got {type(result).__name__}")
+    raise InputError(
+        f"{name}: expected an rtrace Result, a SkyMap, a model FITS file / HDU or a list of the "
+        f"plane files of one cube, got {type(result).__name__}"
+    )
 
 
 # --------------------------------------------------------------------------------------------
 # frequency
 # --------------------------------------------------------------------------------------------
+
 
 def _bracket(nu_hz, frequencies):
     """``(k, None, 0)`` for a traced plane, else ``(lo, hi, w)`` with log-frequency weight w."""
@@ -278,8 +314,10 @@ def _bracket(nu_hz, frequencies):
     lo_f, hi_f = frequencies.min(), frequencies.max()
     if nu_hz < lo_f or nu_hz > hi_f:
         traced = ", ".join(f"{f / 1e9:.6g}" for f in np.sort(frequencies))
-        raise InputError(f"frequency: the observed {nu_hz / 1e9:.6g} GHz lies outside the traced frequencies "
-                         f"({traced} GHz); trace the model at it or at frequencies around it")
+        raise InputError(
+            f"frequency: the observed {nu_hz / 1e9:.6g} GHz lies outside the traced frequencies "
+            f"({traced} GHz); trace the model at it or at frequencies around it"
+        )
     below = np.where(frequencies < nu_hz)[0]
     above = np.where(frequencies > nu_hz)[0]
     lo = int(below[np.argmax(frequencies[below])])
@@ -307,6 +345,7 @@ def power_law_between(a, b, w):
 # beam
 # --------------------------------------------------------------------------------------------
 
+
 def difference_beam(target, own, pixel_arcsec, name="result"):
     """The beam that takes an image at ``own`` resolution to ``target``, or None if they are the same.
 
@@ -317,10 +356,12 @@ def difference_beam(target, own, pixel_arcsec, name="result"):
         return None
     try:
         diff = target.deconvolve(own)
-    except Exception:            # radio_beam raises BeamError (not a ValueError) when it cannot
-        raise InputError(f"{name}: the model's beam ({describe_beam(own)}) is larger than the observed beam "
-                         f"({describe_beam(target)}) along some direction, so it cannot be brought to the "
-                         "observed resolution; use a model at native resolution or a smaller beam") from None
+    except Exception:  # radio_beam raises BeamError (not a ValueError) when it cannot
+        raise InputError(
+            f"{name}: the model's beam ({describe_beam(own)}) is larger than the observed beam "
+            f"({describe_beam(target)}) along some direction, so it cannot be brought to the "
+            "observed resolution; use a model at native resolution or a smaller beam"
+        ) from None
     floor = _MIN_DIFFERENCE_FWHM_PIX * pixel_arcsec
     major, minor = diff.major.to_value(u.arcsec), diff.minor.to_value(u.arcsec)
     if major < floor:
@@ -365,12 +406,15 @@ def model_image(cube, nu_hz, beam, notes, name="result"):
     lo, hi, w = _bracket(nu_hz, cube.frequencies)
     beams = cube.beams
     if beam.minor.to_value(u.arcsec) < _MIN_PIXELS_PER_BEAM * cube.pixel_scale.to_value(u.arcsec):
-        note(notes, f"the model's {cube.pixel_scale.to_value(u.arcsec):.4g} arcsec pixels sample the observed "
-                    f"beam ({describe_beam(beam)}) with fewer than {_MIN_PIXELS_PER_BEAM:g} pixels across its "
-                    "minor axis; the interpolation onto the observed grid may be inaccurate", stacklevel=4)
+        note(
+            notes,
+            f"the model's {cube.pixel_scale.to_value(u.arcsec):.4g} arcsec pixels sample the observed "
+            f"beam ({describe_beam(beam)}) with fewer than {_MIN_PIXELS_PER_BEAM:g} pixels across its "
+            "minor axis; the interpolation onto the observed grid may be inaccurate",
+            stacklevel=4,
+        )
     if hi is None:
-        return _to_beam(cube.data[lo], None if beams is None else beams[lo], beam, cube.pixel_scale,
-                        cube.shape, name)
+        return _to_beam(cube.data[lo], None if beams is None else beams[lo], beam, cube.pixel_scale, cube.shape, name)
     f_lo, f_hi = cube.frequencies[lo], cube.frequencies[hi]
     if beams is None or same_beam(beams[lo], beams[hi]):
         # interpolate at the model's own resolution, then convolve once
@@ -383,10 +427,14 @@ def model_image(cube, nu_hz, beam, notes, name="result"):
         b = _to_beam(cube.data[hi], beams[hi], beam, cube.pixel_scale, cube.shape, name)
         image, n_linear = power_law_between(a, b, w)
         where = "pixel by pixel after bringing both planes to the observed beam"
-    text = (f"model at {nu_hz / 1e9:.6g} GHz interpolated between the traced {f_lo / 1e9:.6g} and "
-            f"{f_hi / 1e9:.6g} GHz planes, log I linear in log nu (a power law), {where}")
+    text = (
+        f"model at {nu_hz / 1e9:.6g} GHz interpolated between the traced {f_lo / 1e9:.6g} and "
+        f"{f_hi / 1e9:.6g} GHz planes, log I linear in log nu (a power law), {where}"
+    )
     if n_linear:
-        text += (f"; {n_linear} pixel(s) with a zero or a change of sign between the planes interpolated "
-                 "linearly in log nu instead")
+        text += (
+            f"; {n_linear} pixel(s) with a zero or a change of sign between the planes interpolated "
+            "linearly in log nu instead"
+        )
     note(notes, text, stacklevel=4)
     return image

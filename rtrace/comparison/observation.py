@@ -28,12 +28,17 @@ from ..errors import InputError
 from ..observe.beam import describe_beam, validate_beam
 from ..quantities import JY_PER_BEAM, parse_frequencies
 
-__all__ = ["ObservedImage", "read_observation", "ComparisonWarning", "FREQUENCY_KEYWORDS",
-           "header_frequencies", "open_image_hdu"]
+__all__ = [
+    "ObservedImage",
+    "read_observation",
+    "ComparisonWarning",
+    "FREQUENCY_KEYWORDS",
+    "header_frequencies",
+    "open_image_hdu",
+]
 
 # Keywords tried, in this order, when the header has no spectral axis.
 FREQUENCY_KEYWORDS = ("RESTFRQ", "RESTFREQ", "FREQ")
-
 
 
 class ComparisonWarning(UserWarning):
@@ -138,8 +143,7 @@ def _first_image(hdul, name):
     for hdu in hdul:
         if isinstance(hdu, _IMAGE_HDUS) and hdu.data is not None and hdu.data.ndim >= 2:
             # the table extensions a -TAB axis or a BEAMS table may refer to, copied out
-            tables = fits.HDUList([fits.PrimaryHDU()] + [h.copy() for h in hdul
-                                                         if isinstance(h, fits.BinTableHDU)])
+            tables = fits.HDUList([fits.PrimaryHDU()] + [h.copy() for h in hdul if isinstance(h, fits.BinTableHDU)])
             return hdu.header.copy(), np.array(hdu.data, dtype=float), tables
     raise InputError(f"{name}: no image extension with at least two axes")
 
@@ -150,13 +154,14 @@ def _wcs(header, tables, name):
             # informational FITSFixedWarnings about e.g. DATE-OBS are not the user's concern here
             warnings.simplefilter("ignore", category=Warning)
             return WCS(header, fobj=tables) if tables is not None else WCS(header)
-    except Exception as exc:          # astropy raises several unrelated types for bad WCS
+    except Exception as exc:  # astropy raises several unrelated types for bad WCS
         raise InputError(f"{name}: cannot read the WCS from the header ({exc})") from None
 
 
 # --------------------------------------------------------------------------------------------
 # frequency
 # --------------------------------------------------------------------------------------------
+
 
 def _spectral_axis(header):
     """1-based number of the axis whose CTYPE starts with FREQ, or None."""
@@ -181,8 +186,9 @@ def header_frequencies(header, wcs, name):
             unit = u.Unit(sub.wcs.cunit[0] or "Hz")
             nu = (world * unit).to_value(u.Hz)
         except Exception as exc:
-            raise InputError(f"{name}: cannot evaluate the spectral axis {axis} "
-                             f"({header.get(f'CTYPE{axis}')}): {exc}") from None
+            raise InputError(
+                f"{name}: cannot evaluate the spectral axis {axis} ({header.get(f'CTYPE{axis}')}): {exc}"
+            ) from None
         if not np.all(np.isfinite(nu) & (nu > 0)):
             raise InputError(f"{name}: the spectral axis gives non-positive frequencies {nu}")
         return nu, f"{str(header[f'CTYPE{axis}']).strip()} axis"
@@ -207,6 +213,7 @@ def check_frequency(frequency, name="frequency"):
 # beam and unit
 # --------------------------------------------------------------------------------------------
 
+
 def header_beam(header, name, beam_option="beam="):
     """The beam of BMAJ/BMIN/BPA (degrees), or None when BMAJ and BMIN are both absent."""
     have = [k for k in ("BMAJ", "BMIN") if k in header]
@@ -214,8 +221,9 @@ def header_beam(header, name, beam_option="beam="):
         return None
     if len(have) == 1:
         missing = "BMIN" if have == ["BMAJ"] else "BMAJ"
-        raise InputError(f"{name}: the header has {have[0]} but no {missing}; both beam axes are needed "
-                         f"(or pass {beam_option})")
+        raise InputError(
+            f"{name}: the header has {have[0]} but no {missing}; both beam axes are needed (or pass {beam_option})"
+        )
     try:
         major, minor = float(header["BMAJ"]), float(header["BMIN"])
         pa = float(header.get("BPA", 0.0))
@@ -246,8 +254,7 @@ def parse_bunit(text, name, keyword="BUNIT"):
                 return u.Unit(raw, format=fmt) if fmt else u.Unit(raw)
         except ValueError:
             continue
-    raise InputError(f"{name}: {keyword} = '{raw}' is not a unit astropy can read "
-                     "(expected Jy/beam or K)")
+    raise InputError(f"{name}: {keyword} = '{raw}' is not a unit astropy can read (expected Jy/beam or K)")
 
 
 def _to_jy_per_beam(data, unit, frequency_hz, beam, name, notes, unit_origin, unit_text):
@@ -256,20 +263,27 @@ def _to_jy_per_beam(data, unit, frequency_hz, beam, name, notes, unit_origin, un
     if unit.physical_type == "temperature":
         # Rayleigh-Jeans brightness temperature <-> Jy/beam through astropy's
         # brightness_temperature(frequency, beam_area) equivalency
-        kelvin_to_jyb = (1.0 * unit).to_value(JY_PER_BEAM, equivalencies=u.brightness_temperature(
-            frequency_hz * u.Hz, beam_area=beam.sr))
-        note(notes, f"observation in {unit} ({unit_origin}) converted to Jy/beam with astropy's "
-                    f"Rayleigh-Jeans brightness_temperature equivalency at {frequency_hz / 1e9:.6g} GHz "
-                    f"for the {describe_beam(beam)} beam ({kelvin_to_jyb:.6g} Jy/beam per {unit})",
-             stacklevel=5)
+        kelvin_to_jyb = (1.0 * unit).to_value(
+            JY_PER_BEAM, equivalencies=u.brightness_temperature(frequency_hz * u.Hz, beam_area=beam.sr)
+        )
+        note(
+            notes,
+            f"observation in {unit} ({unit_origin}) converted to Jy/beam with astropy's "
+            f"Rayleigh-Jeans brightness_temperature equivalency at {frequency_hz / 1e9:.6g} GHz "
+            f"for the {describe_beam(beam)} beam ({kelvin_to_jyb:.6g} Jy/beam per {unit})",
+            stacklevel=5,
+        )
         return data * kelvin_to_jyb
-    raise InputError(f"{name}: {unit_origin} is '{unit_text}'; expected a surface brightness in Jy/beam "
-                     "or a brightness temperature in K")
+    raise InputError(
+        f"{name}: {unit_origin} is '{unit_text}'; expected a surface brightness in Jy/beam "
+        "or a brightness temperature in K"
+    )
 
 
 # --------------------------------------------------------------------------------------------
 # the image
 # --------------------------------------------------------------------------------------------
+
 
 def _celestial_plane(data, wcs, header, name):
     """Drop degenerate non-celestial axes; the remaining 2D array matches ``wcs.celestial``."""
@@ -278,9 +292,9 @@ def _celestial_plane(data, wcs, header, name):
         raise InputError(f"{name}: the header describes {wcs.naxis} axes but the data have {naxis}")
     if not wcs.has_celestial:
         raise InputError(f"{name}: the header has no celestial axes (CTYPE RA/DEC, GLON/GLAT, ...)")
-    keep = {wcs.wcs.lng, wcs.wcs.lat}              # 0-based FITS axis numbers
+    keep = {wcs.wcs.lng, wcs.wcs.lat}  # 0-based FITS axis numbers
     index = []
-    for fits_axis in range(naxis - 1, -1, -1):     # numpy order is the reverse of FITS order
+    for fits_axis in range(naxis - 1, -1, -1):  # numpy order is the reverse of FITS order
         n = data.shape[naxis - 1 - fits_axis]
         if fits_axis in keep:
             index.append(slice(None))
@@ -288,8 +302,10 @@ def _celestial_plane(data, wcs, header, name):
             index.append(0)
         else:
             ctype = header.get(f"CTYPE{fits_axis + 1}", "?")
-            raise InputError(f"{name}: axis {fits_axis + 1} ({ctype}) has {n} planes; compare takes one "
-                             "image (a 2D map, or a cube whose frequency and Stokes axes have length 1)")
+            raise InputError(
+                f"{name}: axis {fits_axis + 1} ({ctype}) has {n} planes; compare takes one "
+                "image (a 2D map, or a cube whose frequency and Stokes axes have length 1)"
+            )
     plane = np.array(data[tuple(index)], dtype=float)
     if not np.isfinite(plane).any():
         raise InputError(f"{name}: every pixel is blank (NaN or infinite)")
@@ -326,9 +342,11 @@ def read_observation(observation, frequency=None, beam=None, unit=None, name="ob
     opt.update(options or {})
     if isinstance(observation, ObservedImage):
         if frequency is not None or beam is not None or unit is not None:
-            raise InputError(f"{name}: {opt['frequency']}, {opt['beam']} and {opt['unit']} cannot override an "
-                             "ObservedImage "
-                             "(pass them to read_observation)")
+            raise InputError(
+                f"{name}: {opt['frequency']}, {opt['beam']} and {opt['unit']} cannot override an "
+                "ObservedImage "
+                "(pass them to read_observation)"
+            )
         return observation
     header, data, tables, source = open_image_hdu(observation, name)
     notes = []
@@ -341,12 +359,17 @@ def read_observation(observation, frequency=None, beam=None, unit=None, name="ob
     if frequency is not None:
         nu = check_frequency(frequency)
         if header_nu is not None and not np.isclose(nu, header_nu[0], rtol=1e-6, atol=0):
-            note(notes, f"{opt['frequency']} {nu / 1e9:.6g} GHz replaces the header's {header_nu[0] / 1e9:.6g} GHz "
-                        f"({nu_source})")
+            note(
+                notes,
+                f"{opt['frequency']} {nu / 1e9:.6g} GHz replaces the header's {header_nu[0] / 1e9:.6g} GHz "
+                f"({nu_source})",
+            )
         nu_source = opt["frequency"]
     elif header_nu is None:
-        raise InputError(f"{name}: no frequency in the header: looked for a spectral axis with CTYPE 'FREQ' "
-                         f"and the keywords {', '.join(FREQUENCY_KEYWORDS)}; pass {opt['frequency']}")
+        raise InputError(
+            f"{name}: no frequency in the header: looked for a spectral axis with CTYPE 'FREQ' "
+            f"and the keywords {', '.join(FREQUENCY_KEYWORDS)}; pass {opt['frequency']}"
+        )
     else:
         nu = float(header_nu[0])
 
@@ -373,5 +396,14 @@ def read_observation(observation, frequency=None, beam=None, unit=None, name="ob
     else:
         raise InputError(f"{name}: the header has no BUNIT; expected Jy/beam or K (or pass {opt['unit']})")
     plane = _to_jy_per_beam(plane, data_unit, nu, obs_beam, name, notes, origin, text)
-    return ObservedImage(data=plane, wcs=cwcs, frequency=nu * u.Hz, beam=obs_beam, header=header,
-                         source=source, frequency_source=nu_source, beam_source=beam_source, notes=notes)
+    return ObservedImage(
+        data=plane,
+        wcs=cwcs,
+        frequency=nu * u.Hz,
+        beam=obs_beam,
+        header=header,
+        source=source,
+        frequency_source=nu_source,
+        beam_source=beam_source,
+        notes=notes,
+    )

@@ -57,9 +57,18 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["read_antennas", "write_antennas", "antenna_positions", "baseline_pairs",
-           "enu_to_equatorial", "equatorial_to_uvw", "source_elevation", "hour_angle_samples",
-           "uvw_tracks", "SIDEREAL_DAY_S"]
+__all__ = [
+    "read_antennas",
+    "write_antennas",
+    "antenna_positions",
+    "baseline_pairs",
+    "enu_to_equatorial",
+    "equatorial_to_uvw",
+    "source_elevation",
+    "hour_angle_samples",
+    "uvw_tracks",
+    "SIDEREAL_DAY_S",
+]
 
 # Mean sidereal day in SI seconds (from memory): the period of the hour angle.
 SIDEREAL_DAY_S = 86164.0905
@@ -70,6 +79,7 @@ _UNIT_LINE = re.compile(r"^\s*unit\s*=\s*(\S+)\s*$", re.IGNORECASE)
 # --------------------------------------------------------------------------------------------
 # antenna positions
 # --------------------------------------------------------------------------------------------
+
 
 def _length_unit(unit, name):
     try:
@@ -117,14 +127,17 @@ def read_antennas(path, unit=None, unit_option="unit="):
                 if file_unit is not None:
                     raise InputError(f"antennas: '{path}' line {lineno}: a second 'unit =' line")
                 if rows:
-                    raise InputError(f"antennas: '{path}' line {lineno}: the 'unit =' line must "
-                                     f"come before the first antenna")
+                    raise InputError(
+                        f"antennas: '{path}' line {lineno}: the 'unit =' line must come before the first antenna"
+                    )
                 file_unit = _length_unit(m.group(1), f"antennas: '{path}' line {lineno}: unit")
                 continue
             fields = line.split()
             if len(fields) != 3:
-                raise InputError(f"antennas: '{path}' line {lineno}: expected three numbers "
-                                 f"(east north up), got {len(fields)} field(s): {line!r}")
+                raise InputError(
+                    f"antennas: '{path}' line {lineno}: expected three numbers "
+                    f"(east north up), got {len(fields)} field(s): {line!r}"
+                )
             try:
                 values = [float(f) for f in fields]
             except ValueError:
@@ -133,8 +146,9 @@ def read_antennas(path, unit=None, unit_option="unit="):
                 raise InputError(f"antennas: '{path}' line {lineno}: positions must be finite, got {line!r}")
             rows.append(values)
     if file_unit is not None and arg_unit is not None and file_unit != arg_unit:
-        raise InputError(f"{unit_option.rstrip('=')}: the file '{path}' says '{file_unit}', "
-                         f"{unit_option} says '{arg_unit}'")
+        raise InputError(
+            f"{unit_option.rstrip('=')}: the file '{path}' says '{file_unit}', {unit_option} says '{arg_unit}'"
+        )
     use = file_unit if file_unit is not None else arg_unit
     if use is None:
         raise InputError(f"antennas: '{path}' has no 'unit =' line; give {unit_option} (e.g. 'm')")
@@ -155,7 +169,7 @@ def write_antennas(path, positions, comment=None):
     comment : str, optional
         Text for ``#`` lines at the top (may span several lines).
     """
-    pos = antenna_positions(positions)          # validates
+    pos = antenna_positions(positions)  # validates
     q = u.Quantity(positions)
     lines = [f"# {c}".rstrip() for c in (comment.splitlines() if comment else [])]
     lines.append("# columns: east north up")
@@ -187,8 +201,10 @@ def antenna_positions(antennas, unit=None, unit_option="unit="):
     elif unit is not None:
         raise InputError(f"{unit_option.rstrip('=')}: only used when antennas is a file path")
     if not isinstance(antennas, u.Quantity):
-        raise InputError("antennas: expected a Quantity (n, 3) of lengths (east, north, up), e.g. "
-                         "np.array([[0, 0, 0], [100, 0, 0]]) * u.m, or the path of an antenna file")
+        raise InputError(
+            "antennas: expected a Quantity (n, 3) of lengths (east, north, up), e.g. "
+            "np.array([[0, 0, 0], [100, 0, 0]]) * u.m, or the path of an antenna file"
+        )
     if not antennas.unit.is_equivalent(u.m):
         raise InputError(f"antennas: expected lengths, got unit '{antennas.unit}'")
     pos = np.asarray(antennas.to_value(u.m), dtype=float)
@@ -198,14 +214,16 @@ def antenna_positions(antennas, unit=None, unit_option="unit="):
         raise InputError(f"antennas: an interferometer needs at least 2 antennas, got {pos.shape[0]}")
     bad = ~np.all(np.isfinite(pos), axis=1)
     if bad.any():
-        raise InputError(f"antennas: {int(bad.sum())} antenna position(s) are not finite "
-                         f"(first: antenna {int(np.argmax(bad))})")
+        raise InputError(
+            f"antennas: {int(bad.sum())} antenna position(s) are not finite (first: antenna {int(np.argmax(bad))})"
+        )
     # coincident antennas would make a zero-length baseline
     d = np.linalg.norm(pos[:, None, :] - pos[None, :, :], axis=-1)
     i, j = np.nonzero(np.triu(d == 0, k=1))
     if i.size:
-        raise InputError(f"antennas: antennas {int(i[0])} and {int(j[0])} are at the same position "
-                         f"({i.size} coincident pair(s))")
+        raise InputError(
+            f"antennas: antennas {int(i[0])} and {int(j[0])} are at the same position ({i.size} coincident pair(s))"
+        )
     return pos
 
 
@@ -218,6 +236,7 @@ def baseline_pairs(n_antennas):
 # --------------------------------------------------------------------------------------------
 # coordinates
 # --------------------------------------------------------------------------------------------
+
 
 def enu_to_equatorial(enu, latitude_rad):
     """Local (east, north, up) vectors (..., 3) -> equatorial (X, Y, Z) (..., 3), same unit.
@@ -252,8 +271,7 @@ def source_elevation(hour_angle_rad, dec_rad, latitude_rad):
     Spherical astronomy's standard relation (e.g. TMS 2017, sec. 4.2, from memory).
     """
     h = np.asarray(hour_angle_rad, float)
-    s = (math.sin(latitude_rad) * math.sin(dec_rad)
-         + math.cos(latitude_rad) * math.cos(dec_rad) * np.cos(h))
+    s = math.sin(latitude_rad) * math.sin(dec_rad) + math.cos(latitude_rad) * math.cos(dec_rad) * np.cos(h)
     return np.arcsin(np.clip(s, -1.0, 1.0))
 
 
@@ -298,11 +316,15 @@ def hour_angle_samples(hour_angle_range, hour_angle_step=None, n_hour_angles=Non
         raise InputError(f"hour_angle_range: expected two values (start, stop), got {rng.size}")
     start, stop = float(rng[0]), float(rng[1])
     if stop < start:
-        raise InputError(f"hour_angle_range: start ({hour_angle_range[0]}) is after stop "
-                         f"({hour_angle_range[1]}); give (start, stop) in increasing order")
+        raise InputError(
+            f"hour_angle_range: start ({hour_angle_range[0]}) is after stop "
+            f"({hour_angle_range[1]}); give (start, stop) in increasing order"
+        )
     if stop - start > 2.0 * math.pi * (1.0 + 1e-12):
-        raise InputError(f"hour_angle_range: spans {math.degrees(stop - start) / 15.0:.6g} h, "
-                         f"more than the 24 h of one turn of the Earth")
+        raise InputError(
+            f"hour_angle_range: spans {math.degrees(stop - start) / 15.0:.6g} h, "
+            f"more than the 24 h of one turn of the Earth"
+        )
     if hour_angle_step is not None and n_hour_angles is not None:
         raise InputError("hour_angle_step, n_hour_angles: give one of them, not both")
     if n_hour_angles is not None:

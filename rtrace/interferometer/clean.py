@@ -42,11 +42,11 @@ __all__ = ["hogbom", "fit_clean_beam", "restore", "MAIN_LOBE_LEVEL", "DEFAULT_GA
 
 MAIN_LOBE_LEVEL = 0.5
 DEFAULT_GAIN = 0.1
-_FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))   # Gaussian FWHM / sigma (standard identity)
+_FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))  # Gaussian FWHM / sigma (standard identity)
 
 
 @numba.njit(cache=True)
-def _hogbom_loop(residual, psf, components, gain, threshold, niter):     # pragma: no cover - numba
+def _hogbom_loop(residual, psf, components, gain, threshold, niter):  # pragma: no cover - numba
     ny, nx = residual.shape
     best = -1.0
     br = 0
@@ -155,36 +155,44 @@ def fit_clean_beam(psf, pixel_scale, level=MAIN_LOBE_LEVEL):
     lobe = labels == labels[cy, cx]
     rows, cols = np.nonzero(lobe)
     if rows.size < 6:
-        raise InputError(f"pixel_scale: the dirty beam's main lobe covers only {rows.size} pixel(s) "
-                         f"above {level:g} of its peak; the pixels ({pix:.4g}) are too coarse for the "
-                         f"synthesized beam, give synthesize() a smaller pixel_scale")
+        raise InputError(
+            f"pixel_scale: the dirty beam's main lobe covers only {rows.size} pixel(s) "
+            f"above {level:g} of its peak; the pixels ({pix:.4g}) are too coarse for the "
+            f"synthesized beam, give synthesize() a smaller pixel_scale"
+        )
     if rows.min() == 0 or cols.min() == 0 or rows.max() == psf.shape[0] - 1 or cols.max() == psf.shape[1] - 1:
-        raise InputError("antennas: the dirty beam's main lobe reaches the edge of the image; the "
-                         "(u, v) coverage does not resolve the field (one-dimensional tracks, e.g. an "
-                         "east-west array at declination 0, or baselines too short for the image)")
+        raise InputError(
+            "antennas: the dirty beam's main lobe reaches the edge of the image; the "
+            "(u, v) coverage does not resolve the field (one-dimensional tracks, e.g. an "
+            "east-west array at declination 0, or baselines too short for the image)"
+        )
     dr = (rows - cy).astype(float)
     dc = (cols - cx).astype(float)
     val = psf[rows, cols]
     design = np.stack([dr * dr, 2.0 * dr * dc, dc * dc], axis=1)
-    sw = val                                   # sqrt of the weights B^2
+    sw = val  # sqrt of the weights B^2
     coef, *_ = np.linalg.lstsq(design * sw[:, None], -np.log(val) * sw, rcond=None)
     # refine: least squares in B itself over the half-power lobe
-    fit = optimize.least_squares(lambda p: np.exp(-(design @ p)) - val, coef, method="lm", xtol=1e-14,
-                                 ftol=1e-14, gtol=1e-14)
+    fit = optimize.least_squares(
+        lambda p: np.exp(-(design @ p)) - val, coef, method="lm", xtol=1e-14, ftol=1e-14, gtol=1e-14
+    )
     if fit.success and np.all(np.isfinite(fit.x)):
         coef = fit.x
     quad = np.array([[coef[0], coef[1]], [coef[1], coef[2]]])
-    evals, evecs = np.linalg.eigh(quad)        # ascending: evals[0] belongs to the major axis
+    evals, evecs = np.linalg.eigh(quad)  # ascending: evals[0] belongs to the major axis
     if not evals[0] > 0:
-        raise InputError("antennas: the dirty beam's main lobe is not closed (the fitted Gaussian "
-                         "does not fall off in every direction); the (u, v) coverage is too "
-                         "one-dimensional for a clean beam")
-    sig_major, sig_minor = np.sqrt(0.5 / evals)          # exp(-x^2 / (2 sigma^2)) = exp(-lambda x^2)
+        raise InputError(
+            "antennas: the dirty beam's main lobe is not closed (the fitted Gaussian "
+            "does not fall off in every direction); the (u, v) coverage is too "
+            "one-dimensional for a clean beam"
+        )
+    sig_major, sig_minor = np.sqrt(0.5 / evals)  # exp(-x^2 / (2 sigma^2)) = exp(-lambda x^2)
     e_row, e_col = evecs[:, 0]
     # position angle from north (+row) through east (-column)
     pa = math.degrees(math.atan2(-e_col, e_row)) % 180.0
-    return radio_beam.Beam(major=sig_major * _FWHM_PER_SIGMA * pix, minor=sig_minor * _FWHM_PER_SIGMA * pix,
-                           pa=pa * u.deg)
+    return radio_beam.Beam(
+        major=sig_major * _FWHM_PER_SIGMA * pix, minor=sig_minor * _FWHM_PER_SIGMA * pix, pa=pa * u.deg
+    )
 
 
 def restore(components, residual, beam, pixel_scale):

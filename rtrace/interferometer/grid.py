@@ -35,8 +35,16 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["PIXELS_PER_BEAM", "MAX_IMAGE_PIXELS", "MIN_IMAGE_PIXELS", "AIRY_FWHM_FACTOR", "STEP_MARGIN",
-           "ImageGrid", "image_grid", "default_hour_angle_step"]
+__all__ = [
+    "PIXELS_PER_BEAM",
+    "MAX_IMAGE_PIXELS",
+    "MIN_IMAGE_PIXELS",
+    "AIRY_FWHM_FACTOR",
+    "STEP_MARGIN",
+    "ImageGrid",
+    "image_grid",
+    "default_hour_angle_step",
+]
 
 PIXELS_PER_BEAM = 5
 # Largest side of a synthesized image chosen or accepted (pixels); the direct transforms and CLEAN
@@ -73,8 +81,9 @@ def _arcsec(rad):
     return math.degrees(rad) * 3600.0
 
 
-def image_grid(model_field_rad, longest_baseline_m, wavelengths_m, pb_fwhm_per_lambda=None, pixel_scale=None,
-               image_size=None):
+def image_grid(
+    model_field_rad, longest_baseline_m, wavelengths_m, pb_fwhm_per_lambda=None, pixel_scale=None, image_size=None
+):
     """The synthesized image's pixel size and side, from the array unless given.
 
     Parameters
@@ -107,8 +116,11 @@ def image_grid(model_field_rad, longest_baseline_m, wavelengths_m, pb_fwhm_per_l
     lam_min, lam_max = float(lam.min()), float(lam.max())
     resolution = lam_min / longest_baseline_m
     if pixel_scale is not None:
-        if (not isinstance(pixel_scale, u.Quantity) or not pixel_scale.unit.is_equivalent(u.rad)
-                or pixel_scale.ndim != 0):
+        if (
+            not isinstance(pixel_scale, u.Quantity)
+            or not pixel_scale.unit.is_equivalent(u.rad)
+            or pixel_scale.ndim != 0
+        ):
             raise InputError(f"pixel_scale: expected one angle, e.g. 0.5 * u.arcsec, got {pixel_scale!r}")
         pix = float(pixel_scale.to_value(u.rad))
         if not (np.isfinite(pix) and pix > 0):
@@ -134,12 +146,13 @@ def image_grid(model_field_rad, longest_baseline_m, wavelengths_m, pb_fwhm_per_l
             how_field = f"two synthesized beams at the longest wavelength ({_arcsec(field):.4g} arcsec)"
         size = max(MIN_IMAGE_PIXELS, int(math.ceil(field / pix - 1e-9)))
     if size > MAX_IMAGE_PIXELS:
-        raise InputError(f"image_size: the synthesized image would be {size} x {size} pixels of "
-                         f"{_arcsec(pix):.4g} arcsec ({how_pix}; field: {how_field}), more than "
-                         f"{MAX_IMAGE_PIXELS} on a side; give a dish_diameter (the field then follows the "
-                         f"primary beam), a narrower frequency range, or set image_size / pixel_scale")
-    return ImageGrid(pix, size, f"{size} x {size} pixels of {_arcsec(pix):.4g} arcsec: {how_pix}; "
-                                f"field {how_field}")
+        raise InputError(
+            f"image_size: the synthesized image would be {size} x {size} pixels of "
+            f"{_arcsec(pix):.4g} arcsec ({how_pix}; field: {how_field}), more than "
+            f"{MAX_IMAGE_PIXELS} on a side; give a dish_diameter (the field then follows the "
+            f"primary beam), a narrower frequency range, or set image_size / pixel_scale"
+        )
+    return ImageGrid(pix, size, f"{size} x {size} pixels of {_arcsec(pix):.4g} arcsec: {how_pix}; field {how_field}")
 
 
 def default_hour_angle_step(equatorial_baseline_m, wavelength_min_m, field_rad):
@@ -148,5 +161,5 @@ def default_hour_angle_step(equatorial_baseline_m, wavelength_min_m, field_rad):
     ``STEP_MARGIN * lambda_min / (B_xy,max * field)`` (see the module notes).
     """
     if not equatorial_baseline_m > 0:
-        return math.inf                     # baselines along the polar axis do not move
+        return math.inf  # baselines along the polar axis do not move
     return STEP_MARGIN * wavelength_min_m / (equatorial_baseline_m * field_rad)

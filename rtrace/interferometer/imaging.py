@@ -88,8 +88,8 @@ def imaging_weights(uu, vv, weighting, cell, robust=0.0, natural=None):
     iv = np.rint(vv / dv).astype(np.int64)
     _, inverse = np.unique(np.stack([iu, iv], axis=1), axis=0, return_inverse=True)
     inverse = inverse.reshape(-1)
-    density = np.bincount(inverse, weights=nat)          # W per occupied cell
-    w_cell = density[inverse]                             # W(cell_k) for each sample
+    density = np.bincount(inverse, weights=nat)  # W per occupied cell
+    w_cell = density[inverse]  # W(cell_k) for each sample
     if weighting == "uniform":
         return nat / w_cell
     # Briggs (1995), from memory: f^2 = (5 10^-R)^2 / (sum_cells W^2 / sum_k w_k)
@@ -103,8 +103,8 @@ def _inverse_dft(coeffs, uu, vv, l, m):
     step = max(64, _CHUNK_ELEMENTS // (len(l) + len(m)))
     for a in range(0, len(uu), step):
         sl = slice(a, min(len(uu), a + step))
-        p = coeffs[sl, None] * np.exp(2j * math.pi * np.outer(vv[sl], m))     # (k, ny)
-        phase_l = 2.0 * math.pi * np.outer(uu[sl], l)                          # (k, nx)
+        p = coeffs[sl, None] * np.exp(2j * math.pi * np.outer(vv[sl], m))  # (k, ny)
+        phase_l = 2.0 * math.pi * np.outer(uu[sl], l)  # (k, nx)
         # Re[p e^{i phi}] = Re(p) cos(phi) - Im(p) sin(phi): two real matrix products
         out += p.real.T @ np.cos(phase_l) - p.imag.T @ np.sin(phase_l)
     return out
@@ -136,6 +136,6 @@ def dirty_beam(weights, uu, vv, shape, pixel_scale_rad):
     """
     ny, nx = shape
     w = np.asarray(weights, float)
-    dl = -np.arange(-nx, nx) * pixel_scale_rad        # column offsets: l grows toward east
+    dl = -np.arange(-nx, nx) * pixel_scale_rad  # column offsets: l grows toward east
     dm = np.arange(-ny, ny) * pixel_scale_rad
     return _inverse_dft(w.astype(complex), uu, vv, dl, dm) / w.sum()

@@ -15,7 +15,7 @@ __all__ = ["ArrayTrack", "UVData", "Imaging"]
 
 
 def _set(record, name, value):
-    object.__setattr__(record, name, value)     # a frozen dataclass normalises its own fields once
+    object.__setattr__(record, name, value)  # a frozen dataclass normalises its own fields once
 
 
 @dataclass(frozen=True, eq=False)

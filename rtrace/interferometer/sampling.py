@@ -43,8 +43,15 @@ from scipy.special import j1
 
 from ..errors import InputError
 
-__all__ = ["direction_cosines", "primary_beam_pattern", "predict_visibilities", "w_term_phase",
-           "PRIMARY_BEAMS", "AIRY_FIRST_NULL", "GAUSSIAN_FWHM_FACTOR"]
+__all__ = [
+    "direction_cosines",
+    "primary_beam_pattern",
+    "predict_visibilities",
+    "w_term_phase",
+    "PRIMARY_BEAMS",
+    "AIRY_FIRST_NULL",
+    "GAUSSIAN_FWHM_FACTOR",
+]
 
 PRIMARY_BEAMS = ("gaussian", "airy")
 
@@ -93,7 +100,7 @@ def primary_beam_pattern(kind, diameter_m, wavelength_m, l, m, fwhm_factor=GAUSS
     fwhm_factor : float
         Gaussian FWHM in units of lambda / D.
     """
-    rho2 = l[None, :] ** 2 + m[:, None] ** 2            # sin^2(theta) for direction cosines
+    rho2 = l[None, :] ** 2 + m[:, None] ** 2  # sin^2(theta) for direction cosines
     if kind == "gaussian":
         fwhm = fwhm_factor * wavelength_m / diameter_m
         return np.exp(-4.0 * math.log(2.0) * rho2 / fwhm**2)
@@ -133,10 +140,10 @@ def predict_visibilities(model, l, m, uu, vv):
     out = np.empty(len(uu), complex)
     ny, nx = model.shape
     for sl in _chunks(len(uu), nx + ny):
-        el = np.exp(-2j * math.pi * np.outer(uu[sl], l))        # (k, nx)
-        em = np.exp(-2j * math.pi * np.outer(vv[sl], m))        # (k, ny)
-        partial = model @ el.T                                  # (ny, k): sum over columns
-        out[sl] = np.einsum("kr,rk->k", em, partial)            # sum over rows
+        el = np.exp(-2j * math.pi * np.outer(uu[sl], l))  # (k, nx)
+        em = np.exp(-2j * math.pi * np.outer(vv[sl], m))  # (k, ny)
+        partial = model @ el.T  # (ny, k): sum over columns
+        out[sl] = np.einsum("kr,rk->k", em, partial)  # sum over rows
     return out
 
 

@@ -57,8 +57,14 @@ from .sampling import (
     w_term_phase,
 )
 
-__all__ = ["synthesize", "SynthesizedMap", "SynthesisWarning", "LAS_FACTOR", "DEFAULT_RELATIVE_THRESHOLD",
-           "DEFAULT_NITER"]
+__all__ = [
+    "synthesize",
+    "SynthesizedMap",
+    "SynthesisWarning",
+    "LAS_FACTOR",
+    "DEFAULT_RELATIVE_THRESHOLD",
+    "DEFAULT_NITER",
+]
 
 
 # theta_LAS ~ 0.6 lambda / B_min (common practice)
@@ -109,27 +115,55 @@ def _check_size(nfreq, size, nvis, model_shape, max_memory, sample_field):
     budget = None
     if max_memory is not None:
         from ..transfer.bricks import parse_memory
+
         budget = parse_memory(max_memory)
     from .sampling import _CHUNK_ELEMENTS
+
     # the Fourier sums work in chunks of at most _CHUNK_ELEMENTS complex values (fewer with few
     # samples); their peak is about one and a half such arrays (measured with tracemalloc)
     chunk = min(_CHUNK_ELEMENTS, nvis * max(sum(model_shape), 4 * size))
     images, samples = synthesis_bytes(nfreq, size, nvis, model_shape, chunk_bytes=24 * chunk)
-    what = (f"a synthesis of {nfreq} frequencies on a {size} x {size} grid ({format_bytes(images)} of images) "
-            f"from {nvis} (u, v) samples per frequency ({format_bytes(samples)})")
+    what = (
+        f"a synthesis of {nfreq} frequencies on a {size} x {size} grid ({format_bytes(images)} of images) "
+        f"from {nvis} (u, v) samples per frequency ({format_bytes(samples)})"
+    )
     if images >= samples:
         field, hint = "image_size", "use a smaller image_size (or a larger pixel_scale) or fewer frequencies"
     else:
-        field, hint = sample_field, ("use fewer hour-angle samples (a larger hour_angle_step, fewer "
-                                     "n_hour_angles), a shorter hour_angle_range or fewer antennas")
+        field, hint = (
+            sample_field,
+            (
+                "use fewer hour-angle samples (a larger hour_angle_step, fewer "
+                "n_hour_angles), a shorter hour_angle_range or fewer antennas"
+            ),
+        )
     return check_memory(images + samples, field=field, what=what, hint=hint, budget=budget)
 
 
-def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.hourangle, hour_angle_step=None,
-               n_hour_angles=None, antenna_unit=None, min_elevation=0 * u.deg, dish_diameter=None,
-               primary_beam="gaussian", primary_beam_fwhm_factor=GAUSSIAN_FWHM_FACTOR, weighting="natural",
-               robust=0.0, gain=DEFAULT_GAIN, niter=DEFAULT_NITER, threshold=None, background=None,
-               subtract_background=None, pixel_scale=None, image_size=None, max_memory=None):
+def synthesize(
+    result,
+    *,
+    antennas,
+    latitude,
+    hour_angle_range=(-4, 4) * u.hourangle,
+    hour_angle_step=None,
+    n_hour_angles=None,
+    antenna_unit=None,
+    min_elevation=0 * u.deg,
+    dish_diameter=None,
+    primary_beam="gaussian",
+    primary_beam_fwhm_factor=GAUSSIAN_FWHM_FACTOR,
+    weighting="natural",
+    robust=0.0,
+    gain=DEFAULT_GAIN,
+    niter=DEFAULT_NITER,
+    threshold=None,
+    background=None,
+    subtract_background=None,
+    pixel_scale=None,
+    image_size=None,
+    max_memory=None,
+):
     """Observe a traced Result with an Earth-rotation synthesis array and image it.
 
     Parameters
@@ -217,22 +251,28 @@ def synthesize(result, *, antennas, latitude, hour_angle_range=(-4, 4) * u.houra
     if not isinstance(result, Result):
         raise InputError(f"result: expected an rtrace Result, got {type(result).__name__}")
     convention = resolve_convention(background, subtract_background)
-    array = _Array.parse(antennas, antenna_unit, latitude, min_elevation, dish_diameter, primary_beam,
-                         primary_beam_fwhm_factor)
+    array = _Array.parse(
+        antennas, antenna_unit, latitude, min_elevation, dish_diameter, primary_beam, primary_beam_fwhm_factor
+    )
     if weighting not in WEIGHTINGS:
         raise InputError(f"weighting: expected one of {', '.join(WEIGHTINGS)}, got {weighting!r}")
     robust = finite_number(robust, "robust")
     thr = _threshold_jyb(threshold)
     jy_per_pixel = _model_jy_per_pixel(result)
-    obs = _Observation.plan(result, array, hour_angle_range, hour_angle_step, n_hour_angles, pixel_scale,
-                            image_size, max_memory)
-    planes = [_image_plane(f, jy_per_pixel[i], obs, array, weighting, robust, gain, niter, thr)
-              for i, f in enumerate(obs.nu)]
+    obs = _Observation.plan(
+        result, array, hour_angle_range, hour_angle_step, n_hour_angles, pixel_scale, image_size, max_memory
+    )
+    planes = [
+        _image_plane(f, jy_per_pixel[i], obs, array, weighting, robust, gain, niter, thr) for i, f in enumerate(obs.nu)
+    ]
     w_phase = max(p.w_phase for p in planes)
     if w_phase > _W_PHASE_WARN:
-        warn_user(f"result: the neglected w term reaches a phase of {w_phase:.3g} rad at the image "
-                  f"corners (non-coplanar baselines); the field is too wide for a two-dimensional "
-                  f"transform at these baselines", SynthesisWarning)
+        warn_user(
+            f"result: the neglected w term reaches a phase of {w_phase:.3g} rad at the image "
+            f"corners (non-coplanar baselines); the field is too wide for a two-dimensional "
+            f"transform at these baselines",
+            SynthesisWarning,
+        )
     return _synthesized_map(result, convention, array, obs, planes, weighting, robust, gain, niter)
 
 
@@ -259,8 +299,10 @@ class _Array:
         sep[np.diag_indices(len(pos))] = np.inf
         i, j = np.unravel_index(np.argmin(sep), sep.shape)
         if sep[i, j] < diameter:
-            raise InputError(f"dish_diameter: antennas {min(i, j)} and {max(i, j)} stand {sep[i, j]:.4g} m "
-                             f"apart on the ground, closer than one dish diameter ({diameter:.4g} m)")
+            raise InputError(
+                f"dish_diameter: antennas {min(i, j)} and {max(i, j)} stand {sep[i, j]:.4g} m "
+                f"apart on the ground, closer than one dish diameter ({diameter:.4g} m)"
+            )
         return cls(pos, lat, min_el, diameter, primary_beam, fwhm_factor)
 
     def primary_beam_per_lambda(self):
@@ -277,9 +319,11 @@ class _Array:
         """The primary beam for provenance."""
         if self.diameter is None:
             return "none"
-        return (f"{self.primary_beam} of a {self.diameter:.6g} m dish"
-                + (f" (FWHM {self.fwhm_factor:.4g} lambda/D)" if self.primary_beam == "gaussian" else "")
-                + ", applied to the model, not corrected")
+        return (
+            f"{self.primary_beam} of a {self.diameter:.6g} m dish"
+            + (f" (FWHM {self.fwhm_factor:.4g} lambda/D)" if self.primary_beam == "gaussian" else "")
+            + ", applied to the model, not corrected"
+        )
 
 
 def _model_jy_per_pixel(result):
@@ -291,38 +335,48 @@ class _Observation:
     """What is observed: frequencies, the synthesized grid, hour angles above the horizon, (u, v, w) tracks."""
 
     @classmethod
-    def plan(cls, result, array, hour_angle_range, hour_angle_step, n_hour_angles, pixel_scale, image_size,
-             max_memory):
+    def plan(cls, result, array, hour_angle_range, hour_angle_step, n_hour_angles, pixel_scale, image_size, max_memory):
         """Choose the grid and the sampling, drop hour angles below the horizon, check memory, then the tracks."""
         obs = cls()
         obs.nu = result.frequencies.to_value(u.Hz)
-        lam_all = C / obs.nu * 1e-2                                   # metres (C is cgs)
+        lam_all = C / obs.nu * 1e-2  # metres (C is cgs)
         pairs0 = baseline_pairs(len(array.pos))
         enu = array.pos[pairs0[:, 1]] - array.pos[pairs0[:, 0]]
         obs.model_shape = result.shape[1:]
         obs.model_pix = float(result.pixel_scale.to_value(u.rad))
-        obs.grid = image_grid(max(obs.model_shape) * obs.model_pix, float(np.max(np.linalg.norm(enu, axis=1))),
-                              lam_all, array.primary_beam_per_lambda(), pixel_scale, image_size)
+        obs.grid = image_grid(
+            max(obs.model_shape) * obs.model_pix,
+            float(np.max(np.linalg.norm(enu, axis=1))),
+            lam_all,
+            array.primary_beam_per_lambda(),
+            pixel_scale,
+            image_size,
+        )
         if hour_angle_step is None and n_hour_angles is None:
-            n_hour_angles = _unaliased_samples(enu, array.lat, float(lam_all.min()), obs.grid.field_rad,
-                                               hour_angle_range)
+            n_hour_angles = _unaliased_samples(
+                enu, array.lat, float(lam_all.min()), obs.grid.field_rad, hour_angle_range
+            )
         sample_field = "n_hour_angles" if n_hour_angles is not None and hour_angle_step is None else "hour_angle_step"
         ha_all = hour_angle_samples(hour_angle_range, hour_angle_step, n_hour_angles)
         obs.dec = float(result.sky_position.icrs.dec.to_value(u.rad))
         if result.view.sky_position is None:
-            warn_user("result: the View has no sky_position, so the source is placed at the default "
-                      "ICRS (0, 0): declination 0 deg; give View(sky_position=...) for the real "
-                      "declination, which shapes the (u, v) tracks", SynthesisWarning)
+            warn_user(
+                "result: the View has no sky_position, so the source is placed at the default "
+                "ICRS (0, 0): declination 0 deg; give View(sky_position=...) for the real "
+                "declination, which shapes the (u, v) tracks",
+                SynthesisWarning,
+            )
         obs.ha = _above_horizon(ha_all, obs.dec, array)
-        _check_size(obs.nu.size, obs.grid.size, int(obs.ha.size) * len(pairs0), obs.model_shape, max_memory,
-                    sample_field)
+        _check_size(
+            obs.nu.size, obs.grid.size, int(obs.ha.size) * len(pairs0), obs.model_shape, max_memory, sample_field
+        )
         uvw3, obs.pairs, xyz = uvw_tracks(array.pos, array.lat, obs.dec, obs.ha)
-        obs.uvw_half = uvw3.reshape(-1, 3)                        # (nh * nb, 3) metres
+        obs.uvw_half = uvw3.reshape(-1, 3)  # (nh * nb, 3) metres
         proj = np.hypot(obs.uvw_half[:, 0], obs.uvw_half[:, 1])
         obs.b_min, obs.b_max = float(proj.min()), float(proj.max())
         n = obs.grid.size
-        obs.l, obs.m = direction_cosines((n, n), obs.grid.pixel_rad)             # the synthesized image's pixels
-        obs.ml, obs.mm = direction_cosines(obs.model_shape, obs.model_pix)      # the model's pixels
+        obs.l, obs.m = direction_cosines((n, n), obs.grid.pixel_rad)  # the synthesized image's pixels
+        obs.ml, obs.mm = direction_cosines(obs.model_shape, obs.model_pix)  # the model's pixels
         obs.cell = uniform_cell((n, n), obs.grid.pixel_rad)
         if obs.ha.size > 1:
             _warn_track_aliasing(ha_all, xyz, float(obs.nu.max()), n * obs.grid.pixel_rad)
@@ -333,13 +387,15 @@ def _unaliased_samples(enu, lat, lam_min, field_rad, hour_angle_range):
     """Hour-angle samples over the range so that the tracks do not alias inside the field (default sampling)."""
     xyz0 = enu_to_equatorial(enu, lat)
     dh_max = default_hour_angle_step(float(np.max(np.hypot(xyz0[:, 0], xyz0[:, 1]))), lam_min, field_rad)
-    hour_angle_samples(hour_angle_range, n_hour_angles=1)          # validates the range
+    hour_angle_samples(hour_angle_range, n_hour_angles=1)  # validates the range
     start, stop = _hour_angle_rad(hour_angle_range, "hour_angle_range").reshape(-1)
     span = float(stop - start)
     n_hour_angles = 1 if span == 0 else int(math.ceil(span / dh_max * (1.0 + 1e-9))) + 1
     if n_hour_angles > 100_000:
-        raise InputError(f"hour_angle_step: avoiding aliasing over this range needs {n_hour_angles} "
-                         f"samples; give a smaller image (image_size) or a shorter hour-angle range")
+        raise InputError(
+            f"hour_angle_step: avoiding aliasing over this range needs {n_hour_angles} "
+            f"samples; give a smaller image (image_size) or a shorter hour-angle range"
+        )
     return n_hour_angles
 
 
@@ -348,13 +404,17 @@ def _above_horizon(ha_all, dec, array):
     elev = source_elevation(ha_all, dec, array.lat)
     keep = elev >= array.min_el - 1e-12
     if not keep.any():
-        raise InputError(f"hour_angle_range: the source (declination {math.degrees(dec):.6g} deg) stays below "
-                         f"min_elevation={math.degrees(array.min_el):.6g} deg at latitude "
-                         f"{math.degrees(array.lat):.6g} deg over the whole range")
+        raise InputError(
+            f"hour_angle_range: the source (declination {math.degrees(dec):.6g} deg) stays below "
+            f"min_elevation={math.degrees(array.min_el):.6g} deg at latitude "
+            f"{math.degrees(array.lat):.6g} deg over the whole range"
+        )
     if not keep.all():
-        warn_user(f"hour_angle_range: {int((~keep).sum())} of {keep.size} hour-angle samples have the "
-                  f"source below min_elevation={math.degrees(array.min_el):.6g} deg and are dropped",
-                  SynthesisWarning)
+        warn_user(
+            f"hour_angle_range: {int((~keep).sum())} of {keep.size} hour-angle samples have the "
+            f"source below min_elevation={math.degrees(array.min_el):.6g} deg and are dropped",
+            SynthesisWarning,
+        )
     return ha_all[keep]
 
 
@@ -367,14 +427,16 @@ def _warn_track_aliasing(ha_all, xyz, nu_max, extent_rad):
     """
     dh = float(np.max(np.diff(ha_all)))
     dq_m = float(np.max(np.hypot(xyz[:, 0], xyz[:, 1]))) * dh
-    lam_min = C / nu_max * 1e-2                           # metres (C is cgs)
+    lam_min = C / nu_max * 1e-2  # metres (C is cgs)
     alias_rad = lam_min / dq_m if dq_m > 0 else math.inf
     if alias_rad < extent_rad:
-        warn_user(f"hour_angle_step: the longest baseline's samples are far apart in (u, v), "
-                  f"so each source repeats {math.degrees(alias_rad) * 3600:.4g} arcsec away along the "
-                  f"tracks, inside the {math.degrees(extent_rad) * 3600:.4g} arcsec image; use a "
-                  f"step below {math.degrees(dh * alias_rad / extent_rad) * 4.0:.3g} min of hour angle",
-                  SynthesisWarning)
+        warn_user(
+            f"hour_angle_step: the longest baseline's samples are far apart in (u, v), "
+            f"so each source repeats {math.degrees(alias_rad) * 3600:.4g} arcsec away along the "
+            f"tracks, inside the {math.degrees(extent_rad) * 3600:.4g} arcsec image; use a "
+            f"step below {math.degrees(dh * alias_rad / extent_rad) * 4.0:.3g} min of hour angle",
+            SynthesisWarning,
+        )
 
 
 class _Plane(SimpleNamespace):
@@ -383,16 +445,15 @@ class _Plane(SimpleNamespace):
 
 def _image_plane(f, model, obs, array, weighting, robust, gain, niter, thr):
     """Sample the model at frequency ``f`` (Hz) on the tracks, image it and CLEAN it: a `_Plane`."""
-    lam = C / f * 1e-2                                    # metres (C is cgs)
+    lam = C / f * 1e-2  # metres (C is cgs)
     uu, vv, ww = (obs.uvw_half[:, k] / lam for k in range(3))
     pb = None
     if array.diameter is not None:
         pb = array.pattern(lam, obs.l, obs.m)
         model = model * array.pattern(lam, obs.ml, obs.mm)
     vis = predict_visibilities(model, obs.ml, obs.mm, uu, vv)
-    w_full = imaging_weights(np.concatenate([uu, -uu]), np.concatenate([vv, -vv]), weighting, obs.cell,
-                             robust=robust)
-    w_half = w_full[:obs.uvw_half.shape[0]]
+    w_full = imaging_weights(np.concatenate([uu, -uu]), np.concatenate([vv, -vv]), weighting, obs.cell, robust=robust)
+    w_half = w_full[: obs.uvw_half.shape[0]]
     n, pix_rad, pix_q = obs.grid.size, obs.grid.pixel_rad, obs.grid.pixel_scale
     dirty = dirty_image(vis, w_half, uu, vv, obs.l, obs.m)
     psf = dirty_beam(w_half, uu, vv, (n, n), pix_rad)
@@ -400,18 +461,35 @@ def _image_plane(f, model, obs, array, weighting, robust, gain, niter, thr):
     t = thr if thr is not None else DEFAULT_RELATIVE_THRESHOLD * float(np.max(np.abs(dirty)))
     comps, resid, n_iter, peak = hogbom(dirty, psf, gain=gain, threshold=t, niter=niter)
     if n_iter >= niter and peak > t:
-        warn_user(f"niter: CLEAN at {f / 1e9:.6g} GHz stopped after {n_iter} components with the residual "
-                  f"peak at {peak:.4g} Jy/beam, above the threshold {t:.4g} Jy/beam", SynthesisWarning)
+        warn_user(
+            f"niter: CLEAN at {f / 1e9:.6g} GHz stopped after {n_iter} components with the residual "
+            f"peak at {peak:.4g} Jy/beam, above the threshold {t:.4g} Jy/beam",
+            SynthesisWarning,
+        )
     minor_pix = beam.minor.to_value(u.rad) / pix_rad
     if minor_pix < 2.0:
-        warn_user(f"pixel_scale: the clean beam at {f / 1e9:.6g} GHz is {minor_pix:.3g} pixels wide "
-                  f"(FWHM, minor axis); fewer than 2 pixels per beam make CLEAN and the beam fit "
-                  f"coarse, give a smaller pixel_scale", SynthesisWarning)
+        warn_user(
+            f"pixel_scale: the clean beam at {f / 1e9:.6g} GHz is {minor_pix:.3g} pixels wide "
+            f"(FWHM, minor axis); fewer than 2 pixels per beam make CLEAN and the beam fit "
+            f"coarse, give a smaller pixel_scale",
+            SynthesisWarning,
+        )
     q_min = obs.b_min / lam
-    return _Plane(restored=restore(comps, resid, beam, pix_q), dirty=dirty, residual=resid, components=comps,
-                  psf=psf, primary_beam=pb, beam=beam, visibilities=np.concatenate([vis, np.conj(vis)]),
-                  weights=w_full / w_full.sum(), las=LAS_FACTOR / q_min if q_min > 0 else math.inf,
-                  n_iter=n_iter, threshold=t, w_phase=w_term_phase(np.max(np.abs(ww)), obs.l, obs.m))
+    return _Plane(
+        restored=restore(comps, resid, beam, pix_q),
+        dirty=dirty,
+        residual=resid,
+        components=comps,
+        psf=psf,
+        primary_beam=pb,
+        beam=beam,
+        visibilities=np.concatenate([vis, np.conj(vis)]),
+        weights=w_full / w_full.sum(),
+        las=LAS_FACTOR / q_min if q_min > 0 else math.inf,
+        n_iter=n_iter,
+        threshold=t,
+        w_phase=w_term_phase(np.max(np.abs(ww)), obs.l, obs.m),
+    )
 
 
 def _synthesized_map(result, convention, array, obs, planes, weighting, robust, gain, niter):
@@ -428,36 +506,73 @@ def _synthesized_map(result, convention, array, obs, planes, weighting, robust, 
         f"{obs.b_max:.6g} m, weighting {weighting}"
         + (f" R={robust:g}" if weighting == "robust" else "")
         + f", primary beam {array.describe_primary_beam()}, Hogbom CLEAN gain {gain:g} niter {niter} threshold "
-        + ",".join(f"{t:.4g}" for t in thresholds) + " Jy/beam, iterations "
-        + ",".join(str(k) for k in n_iter) + f", w-term phase at corners <= {max(p.w_phase for p in planes):.3g} rad")
-    las_txt = ("0.6 lambda / B_min (common practice): "
-               + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu, strict=True))
-               + f" (B_min = {obs.b_min:.6g} m projected)")
-    beam_txt = ("clean beam fitted to the dirty beam: "
-                + "; ".join(f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu, strict=True)))
-    provenance = dict(result.provenance, beam=beam_txt, noise="none", interferometer=interferometer_txt,
-                      largest_angular_scale=las_txt, synthesized_grid=obs.grid.how)
+        + ",".join(f"{t:.4g}" for t in thresholds)
+        + " Jy/beam, iterations "
+        + ",".join(str(k) for k in n_iter)
+        + f", w-term phase at corners <= {max(p.w_phase for p in planes):.3g} rad"
+    )
+    las_txt = (
+        "0.6 lambda / B_min (common practice): "
+        + ", ".join(f"{a:.6g} arcsec at {f / 1e9:.6g} GHz" for a, f in zip(las_q.value, nu, strict=True))
+        + f" (B_min = {obs.b_min:.6g} m projected)"
+    )
+    beam_txt = "clean beam fitted to the dirty beam: " + "; ".join(
+        f"{describe_beam(b)} at {f / 1e9:.6g} GHz" for b, f in zip(beams, nu, strict=True)
+    )
+    provenance = dict(
+        result.provenance,
+        beam=beam_txt,
+        noise="none",
+        interferometer=interferometer_txt,
+        largest_angular_scale=las_txt,
+        synthesized_grid=obs.grid.how,
+    )
     uvw_full = np.concatenate([obs.uvw_half, -obs.uvw_half]) * u.m
+
     def stack(name):
         return np.array([getattr(p, name) for p in planes])
 
-    track = ArrayTrack(antennas=array.pos * u.m, baselines=obs.pairs, latitude=math.degrees(array.lat) * u.deg,
-                       declination=math.degrees(obs.dec) * u.deg, hour_angles=(ha * u.rad).to(u.hourangle),
-                       shortest_baseline=obs.b_min * u.m, longest_baseline=obs.b_max * u.m,
-                       largest_angular_scale=las_q)
+    track = ArrayTrack(
+        antennas=array.pos * u.m,
+        baselines=obs.pairs,
+        latitude=math.degrees(array.lat) * u.deg,
+        declination=math.degrees(obs.dec) * u.deg,
+        hour_angles=(ha * u.rad).to(u.hourangle),
+        shortest_baseline=obs.b_min * u.m,
+        longest_baseline=obs.b_max * u.m,
+        largest_angular_scale=las_q,
+    )
     uv_data = UVData(uvw=uvw_full, visibilities=stack("visibilities"), weights=stack("weights"))
-    imaging = Imaging(dirty_image=stack("dirty"), residual=stack("residual"), clean_components=stack("components"),
-                      dirty_beam=stack("psf"), primary_beam=None if array.diameter is None else stack("primary_beam"),
-                      clean_iterations=n_iter, clean_thresholds=thresholds, weighting=weighting,
-                      robust=robust if weighting == "robust" else None, pixel_scale=obs.grid.pixel_scale)
-    return SynthesizedMap(stack("restored"), beams, result, provenance, background=convention, track=track,
-                          uv_data=uv_data, imaging=imaging)
+    imaging = Imaging(
+        dirty_image=stack("dirty"),
+        residual=stack("residual"),
+        clean_components=stack("components"),
+        dirty_beam=stack("psf"),
+        primary_beam=None if array.diameter is None else stack("primary_beam"),
+        clean_iterations=n_iter,
+        clean_thresholds=thresholds,
+        weighting=weighting,
+        robust=robust if weighting == "robust" else None,
+        pixel_scale=obs.grid.pixel_scale,
+    )
+    return SynthesizedMap(
+        stack("restored"),
+        beams,
+        result,
+        provenance,
+        background=convention,
+        track=track,
+        uv_data=uv_data,
+        imaging=imaging,
+    )
 
 
 def _field(record, name):
     """A read-only attribute of `SynthesizedMap`: field ``name`` of its record ``record``."""
-    return property(lambda self: getattr(getattr(self, record), name),
-                    doc=f"``{record}.{name}`` (see :mod:`rtrace.interferometer.records`).")
+    return property(
+        lambda self: getattr(getattr(self, record), name),
+        doc=f"``{record}.{name}`` (see :mod:`rtrace.interferometer.records`).",
+    )
 
 
 class SynthesizedMap(SkyMap):
@@ -532,8 +647,19 @@ class SynthesizedMap(SkyMap):
         self.track, self.uv_data, self.imaging = track, uv_data, imaging
         # the image's own grid (the array's), not the model's; set before SkyMap reads the pixel area
         self._pixel_scale = imaging.pixel_scale
-        super().__init__(data, data, beams, result, None, provenance, beam=beams[0], beam_scaling=None,
-                         reference_frequency=nu[0], seed=None, background=background)
+        super().__init__(
+            data,
+            data,
+            beams,
+            result,
+            None,
+            provenance,
+            beam=beams[0],
+            beam_scaling=None,
+            reference_frequency=nu[0],
+            seed=None,
+            background=background,
+        )
         self._pix_sr = float(self._pixel_scale.to_value(u.rad)) ** 2
 
     # the records' fields, read-only, under the names the class documents
@@ -622,21 +748,34 @@ class SynthesizedMap(SkyMap):
         """
         if image == "restored":
             return super().write_fits(path, spectral_axis=spectral_axis)
-        choices = {"dirty": (self.dirty_image, True), "residual": (self.residual, True),
-                   "components": (self.clean_components, False)}
+        choices = {
+            "dirty": (self.dirty_image, True),
+            "residual": (self.residual, True),
+            "components": (self.clean_components, False),
+        }
         if image not in choices:
             raise InputError(f"image: expected 'restored', 'dirty', 'residual' or 'components', got {image!r}")
         data, with_beam = choices[image]
-        return write_cube(path, data, self.frequencies, self.pixel_scale, self.sky_position,
-                          beams=self.beams if with_beam else None, provenance=self.provenance,
-                          reference_beam=self.beam if with_beam else None, quantity=f"synthesis {image}",
-                          spectral_axis=spectral_axis, background=header_cards("subtracted", self.result)
-                          + pixel_error_cards(self.result, model=True))
+        return write_cube(
+            path,
+            data,
+            self.frequencies,
+            self.pixel_scale,
+            self.sky_position,
+            beams=self.beams if with_beam else None,
+            provenance=self.provenance,
+            reference_beam=self.beam if with_beam else None,
+            quantity=f"synthesis {image}",
+            spectral_axis=spectral_axis,
+            background=header_cards("subtracted", self.result) + pixel_error_cards(self.result, model=True),
+        )
 
     def __repr__(self):
         nf, ny, nx = self.shape
         b = self.beam
-        return (f"<SynthesizedMap {nf} frequencies, {ny}x{nx} pixels of {self.pixel_scale:.4g}, "
-                f"{len(self.antennas)} antennas, clean beam {b.major.to(u.arcsec):.4g} x "
-                f"{b.minor.to(u.arcsec):.4g} pa {b.pa.to(u.deg):.4g}, largest angular scale "
-                f"{self.largest_angular_scale[0]:.4g}>")
+        return (
+            f"<SynthesizedMap {nf} frequencies, {ny}x{nx} pixels of {self.pixel_scale:.4g}, "
+            f"{len(self.antennas)} antennas, clean beam {b.major.to(u.arcsec):.4g} x "
+            f"{b.minor.to(u.arcsec):.4g} pa {b.pa.to(u.deg):.4g}, largest angular scale "
+            f"{self.largest_angular_scale[0]:.4g}>"
+        )

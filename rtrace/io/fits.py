@@ -89,9 +89,21 @@ from ..transfer.background import header_cards, resolve_convention
 from ..transfer.result import QUANTITIES
 from .atomic import atomic_path
 
-__all__ = ["sky_wcs", "wcs_header", "write_cube", "write_result", "write_skymap", "spectral_layout",
-           "pixel_error_cards", "plane_paths", "output_paths", "split_suffix", "RESULT_QUANTITIES", "SPECTRAL_AXES",
-           "AXIS_RTOL"]
+__all__ = [
+    "sky_wcs",
+    "wcs_header",
+    "write_cube",
+    "write_result",
+    "write_skymap",
+    "spectral_layout",
+    "pixel_error_cards",
+    "plane_paths",
+    "output_paths",
+    "split_suffix",
+    "RESULT_QUANTITIES",
+    "SPECTRAL_AXES",
+    "AXIS_RTOL",
+]
 
 RESULT_QUANTITIES = QUANTITIES
 
@@ -133,6 +145,7 @@ _PREFERRED_BUNIT = (
 # argument checks
 # --------------------------------------------------------------------------------------------
 
+
 def _frequencies_hz(frequencies, name="frequencies"):
     return None if frequencies is None else parse_frequencies(frequencies, name)
 
@@ -161,8 +174,9 @@ def _image_shape(shape):
 
 def _check_spectral_axis(spectral_axis):
     if spectral_axis not in SPECTRAL_AXES:
-        raise InputError(f"spectral_axis: expected one of {', '.join(repr(a) for a in SPECTRAL_AXES)}, "
-                         f"got {spectral_axis!r}")
+        raise InputError(
+            f"spectral_axis: expected one of {', '.join(repr(a) for a in SPECTRAL_AXES)}, got {spectral_axis!r}"
+        )
     return spectral_axis
 
 
@@ -220,13 +234,14 @@ def _frequency_text(nu_hz):
     digits = np.full(ghz.size, 4)
 
     def render():
-        return [np.format_float_positional(v, precision=int(d), unique=False, fractional=False, trim="-")
-                for v, d in zip(ghz, digits, strict=True)]
+        return [
+            np.format_float_positional(v, precision=int(d), unique=False, fractional=False, trim="-")
+            for v, d in zip(ghz, digits, strict=True)
+        ]
 
     text = render()
     while True:
-        clash = [i for i in range(ghz.size)
-                 if any(text[i] == text[j] and ghz[i] != ghz[j] for j in range(ghz.size))]
+        clash = [i for i in range(ghz.size) if any(text[i] == text[j] and ghz[i] != ghz[j] for j in range(ghz.size))]
         if not clash or digits[clash].min() >= 17:
             return text
         digits[clash] += 1
@@ -238,7 +253,7 @@ def split_suffix(name):
     lower = name.lower()
     for compound in (".fits.gz", ".fit.gz", ".fts.gz"):
         if lower.endswith(compound) and len(name) > len(compound):
-            return name[:-len(compound)], name[-len(compound):]
+            return name[: -len(compound)], name[-len(compound) :]
     stem, suffix = os.path.splitext(name)
     return stem, suffix
 
@@ -268,8 +283,7 @@ def plane_paths(path, frequencies):
     nu = _frequencies_hz(frequencies)
     width = max(2, len(str(nu.size)))
     stem, suffix = split_suffix(path.name)
-    return [path.with_name(f"{stem}_{k + 1:0{width}d}_{text}GHz{suffix}")
-            for k, text in enumerate(_frequency_text(nu))]
+    return [path.with_name(f"{stem}_{k + 1:0{width}d}_{text}GHz{suffix}") for k, text in enumerate(_frequency_text(nu))]
 
 
 def output_paths(path, frequencies, spectral_axis="auto"):
@@ -298,6 +312,7 @@ def output_paths(path, frequencies, spectral_axis="auto"):
 # --------------------------------------------------------------------------------------------
 # WCS
 # --------------------------------------------------------------------------------------------
+
 
 def wcs_header(shape, pixel_scale, sky_position, frequencies=None):
     """WCS keywords of an rtrace image and, for an irregular frequency list, the -TAB table.
@@ -379,8 +394,9 @@ def wcs_header(shape, pixel_scale, sky_position, frequencies=None):
             hdr["PV3_1"] = (1, "EXTVER of the frequency table")
             hdr["PV3_2"] = (1, "EXTLEVEL of the frequency table")
             hdr["PV3_3"] = (1, "axis number in the coordinate array")
-            column = fits.Column(name=_TAB_COLUMN, format=f"{nu.size}D", dim=f"(1,{nu.size})",
-                                 unit="Hz", array=nu.reshape(1, nu.size, 1))
+            column = fits.Column(
+                name=_TAB_COLUMN, format=f"{nu.size}D", dim=f"(1,{nu.size})", unit="Hz", array=nu.reshape(1, nu.size, 1)
+            )
             table = fits.BinTableHDU.from_columns([column], name=_TAB_EXTNAME)
             table.header["EXTVER"] = 1
             table.header["EXTLEVEL"] = 1
@@ -422,6 +438,7 @@ def sky_wcs(shape, pixel_scale, sky_position, frequencies=None):
 # header pieces
 # --------------------------------------------------------------------------------------------
 
+
 def _bunit(unit):
     """FITS-standard BUNIT string for ``unit``; None for dimensionless."""
     unit = u.Unit(unit)
@@ -462,7 +479,7 @@ def _announce_long_strings(header):
     if "LONGSTRN" in header:
         return
     for index, card in enumerate(header.cards):
-        if len(card.image) > 80:           # astropy renders a continued value as several cards
+        if len(card.image) > 80:  # astropy renders a continued value as several cards
             header.insert(index, ("LONGSTRN", "OGIP 1.0", "long strings continue on CONTINUE cards"))
             return
 
@@ -471,8 +488,7 @@ def add_provenance(hdr, provenance):
     from .._version import __version__
 
     hdr["ORIGIN"] = ("rtrace", "software that wrote this file")
-    hdr["DATE"] = (datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%S"),
-                   "UTC date the file was written")
+    hdr["DATE"] = (datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%S"), "UTC date the file was written")
     hdr["RTVERS"] = (__version__, "rtrace version")
     for key, value in (provenance or {}).items():
         if value is None:
@@ -494,8 +510,9 @@ def _beam_values(beam, name):
     except (AttributeError, u.UnitsError, TypeError):
         raise InputError(f"{name}: expected a radio_beam.Beam (major, minor, pa angles)") from None
     if not (np.isfinite(major) and np.isfinite(minor) and np.isfinite(pa) and major > 0 and minor > 0):
-        raise InputError(f"{name}: beam axes must be finite and positive, got major={major} deg, "
-                         f"minor={minor} deg, pa={pa} deg")
+        raise InputError(
+            f"{name}: beam axes must be finite and positive, got major={major} deg, minor={minor} deg, pa={pa} deg"
+        )
     if minor > major:
         raise InputError(f"{name}: the minor axis ({minor} deg) exceeds the major axis ({major} deg)")
     return major, minor, pa
@@ -531,8 +548,22 @@ def _beams_table(values):
 # writers
 # --------------------------------------------------------------------------------------------
 
-def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, provenance=None,
-               overwrite=True, *, reference_beam=None, quantity=None, spectral_axis="auto", background=None):
+
+def write_cube(
+    path,
+    data,
+    frequencies,
+    pixel_scale,
+    sky_position,
+    beams=None,
+    provenance=None,
+    overwrite=True,
+    *,
+    reference_beam=None,
+    quantity=None,
+    spectral_axis="auto",
+    background=None,
+):
     """Write an image or cube with its WCS, beam and provenance to FITS.
 
     Parameters
@@ -590,8 +621,9 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
     _pixel_scale_deg(pixel_scale)
     _icrs(sky_position)
     targets = _writable_targets(path, nu, spectral_axis, overwrite)
-    cube = _CubeHeader(values.shape[-2:], pixel_scale, sky_position, _bunit(data.unit), quantity, provenance,
-                       background or [])
+    cube = _CubeHeader(
+        values.shape[-2:], pixel_scale, sky_position, _bunit(data.unit), quantity, provenance, background or []
+    )
 
     if len(targets) == 1:
         header, tab = cube.header(nu, ref)
@@ -602,19 +634,17 @@ def write_cube(path, data, frequencies, pixel_scale, sky_position, beams=None, p
         hdus = [_primary(values, header)]
         if tab is not None:
             hdus.append(tab)
-        if beam_values is not None and not all(same_beam(_as_beam(b), _as_beam(beam_values[0]))
-                                               for b in beam_values):
+        if beam_values is not None and not all(same_beam(_as_beam(b), _as_beam(beam_values[0])) for b in beam_values):
             hdus.append(_beams_table(beam_values))
         _write(path, hdus)
         return Path(path)
 
     # one file per plane: each a one-plane FREQ cube with its own beam
     for k, target in enumerate(targets):
-        header, _ = cube.header(nu[k:k + 1], None if beam_values is None else beam_values[k],
-                                plane=(k + 1, nplanes))
+        header, _ = cube.header(nu[k : k + 1], None if beam_values is None else beam_values[k], plane=(k + 1, nplanes))
         header.add_comment(f"Plane {k + 1} of {nplanes}: the frequencies are neither evenly spaced nor")
         header.add_comment("geometric, so each plane is a file of its own (RTPLANE, RTNPLANE).")
-        _write(target, [_primary(values[k:k + 1], header)])
+        _write(target, [_primary(values[k : k + 1], header)])
     return targets
 
 
@@ -666,8 +696,10 @@ def _writable_targets(path, nu, spectral_axis, overwrite):
         if existing and len(targets) == 1:
             raise InputError(f"path: '{path}' exists and overwrite=False")
         if existing:
-            raise InputError(f"path: {len(existing)} of the {len(targets)} plane files exist and "
-                             f"overwrite=False ('{existing[0]}'{', ...' if len(existing) > 1 else ''})")
+            raise InputError(
+                f"path: {len(existing)} of the {len(targets)} plane files exist and "
+                f"overwrite=False ('{existing[0]}'{', ...' if len(existing) > 1 else ''})"
+            )
     return targets
 
 
@@ -680,8 +712,7 @@ class _CubeHeader:
 
     def header(self, nu, beam, plane=None):
         """``(primary header, WCS-TAB extension or None)`` for frequencies ``nu`` (Hz) and ``beam`` (deg)."""
-        hdr, tab = wcs_header(self.image_shape, self.pixel_scale, self.sky_position,
-                              None if nu is None else nu * u.Hz)
+        hdr, tab = wcs_header(self.image_shape, self.pixel_scale, self.sky_position, None if nu is None else nu * u.Hz)
         primary = fits.Header()
         primary.extend(hdr, update=True)
         if self.bunit is not None:
@@ -714,13 +745,23 @@ def _is_beams(obj):
     """True for a ``radio_beam.Beams`` (a sequence of beams), False for a single Beam."""
     try:
         from radio_beam import Beams
-    except ImportError:   # radio_beam is a dependency, but a duck-typed Beam needs no import
+    except ImportError:  # radio_beam is a dependency, but a duck-typed Beam needs no import
         return False
     return isinstance(obj, Beams)
 
 
-def write_result(result, path, quantity="intensity", unit=None, *, kind="planck", background=None,
-                 overwrite=True, subtract_background=None, spectral_axis="auto"):
+def write_result(
+    result,
+    path,
+    quantity="intensity",
+    unit=None,
+    *,
+    kind="planck",
+    background=None,
+    overwrite=True,
+    subtract_background=None,
+    spectral_axis="auto",
+):
     """Write one quantity of a traced :class:`~rtrace.Result` to a FITS file.
 
     Parameters
@@ -794,12 +835,22 @@ def write_result(result, path, quantity="intensity", unit=None, *, kind="planck"
         if not out_unit.is_equivalent(data.unit):
             raise InputError(f"unit: '{out_unit}' is not a unit of {quantity} ({data.unit})")
         data = data.to(out_unit)
-    return write_cube(path, data, frequencies, result.pixel_scale, result.sky_position,
-                      provenance=result.provenance, overwrite=overwrite, quantity=quantity,
-                      spectral_axis=spectral_axis,
-                      background=header_cards(convention if quantity in ("intensity", "brightness_temperature")
-                                              else "subtracted", result) + pixel_error_cards(result)
-                      + (_em_cards(result) if quantity == "emission_measure" else []))
+    return write_cube(
+        path,
+        data,
+        frequencies,
+        result.pixel_scale,
+        result.sky_position,
+        provenance=result.provenance,
+        overwrite=overwrite,
+        quantity=quantity,
+        spectral_axis=spectral_axis,
+        background=header_cards(
+            convention if quantity in ("intensity", "brightness_temperature") else "subtracted", result
+        )
+        + pixel_error_cards(result)
+        + (_em_cards(result) if quantity == "emission_measure" else []),
+    )
 
 
 #: ``EMDEF`` card values: which emission measure a file holds.
@@ -859,8 +910,18 @@ def write_skymap(skymap, path, overwrite=True, *, spectral_axis="auto"):
     if not isinstance(data, u.Quantity) or not data.unit.is_equivalent(u.Jy / u.beam):
         unit = getattr(data, "unit", None)
         raise InputError(f"skymap.data: expected a Quantity in Jy/beam, got unit '{unit}'")
-    return write_cube(path, data, skymap.frequencies, skymap.pixel_scale, skymap.sky_position,
-                      beams=skymap.beams, provenance=skymap.provenance, overwrite=overwrite,
-                      reference_beam=skymap.beam, quantity="sky map", spectral_axis=spectral_axis,
-                      background=header_cards(getattr(skymap, "background", "subtracted"), skymap)
-                      + pixel_error_cards(getattr(skymap, "result", None), model=True))
+    return write_cube(
+        path,
+        data,
+        skymap.frequencies,
+        skymap.pixel_scale,
+        skymap.sky_position,
+        beams=skymap.beams,
+        provenance=skymap.provenance,
+        overwrite=overwrite,
+        reference_beam=skymap.beam,
+        quantity="sky map",
+        spectral_axis=spectral_axis,
+        background=header_cards(getattr(skymap, "background", "subtracted"), skymap)
+        + pixel_error_cards(getattr(skymap, "result", None), model=True),
+    )

@@ -66,14 +66,15 @@ def _dataset(handle, name, parameter, path):
     if not isinstance(obj, h5py.Dataset):
         what = "is a group, not a dataset" if isinstance(obj, h5py.Group) else "not found"
         available = ", ".join(_all_datasets(handle)) or "none"
-        raise InputError(f"{parameter}: dataset '{name}' {what} in '{path}'; "
-                         f"datasets in the file: {available}")
+        raise InputError(f"{parameter}: dataset '{name}' {what} in '{path}'; datasets in the file: {available}")
     if obj.dtype.kind not in "fiu":
-        raise InputError(f"{parameter}: dataset '{name}' has non-numeric type {obj.dtype} "
-                         "(expected floats or integers)")
+        raise InputError(
+            f"{parameter}: dataset '{name}' has non-numeric type {obj.dtype} (expected floats or integers)"
+        )
     if obj.ndim != 3:
-        raise InputError(f"{parameter}: dataset '{name}' has {obj.ndim} dimension(s) "
-                         f"(shape {obj.shape}); expected a 3D grid")
+        raise InputError(
+            f"{parameter}: dataset '{name}' has {obj.ndim} dimension(s) (shape {obj.shape}); expected a 3D grid"
+        )
     return obj
 
 
@@ -86,22 +87,23 @@ def _unit(dataset, name, parameter, units, required=True):
         text = _text(raw)
         origin = "attribute 'units'"
         if text is None:
-            raise InputError(f"{parameter}: dataset '{name}' attribute 'units' is not a string "
-                             f"({raw!r})")
+            raise InputError(f"{parameter}: dataset '{name}' attribute 'units' is not a string ({raw!r})")
     elif not required:
         return u.dimensionless_unscaled
     else:
-        raise InputError(f"{parameter}: dataset '{name}' has no 'units' attribute and no entry "
-                         f"in the units argument; give units={{'{name}': '...'}}")
+        raise InputError(
+            f"{parameter}: dataset '{name}' has no 'units' attribute and no entry "
+            f"in the units argument; give units={{'{name}': '...'}}"
+        )
     try:
         unit = u.Unit(text)
     except (ValueError, TypeError) as exc:
-        raise InputError(f"{parameter}: dataset '{name}' unit {text!r} ({origin}) "
-                         f"cannot be parsed: {exc}") from None
+        raise InputError(f"{parameter}: dataset '{name}' unit {text!r} ({origin}) cannot be parsed: {exc}") from None
     target, equivalencies = _FIELD_UNITS.get(parameter, _FRACTION_UNIT)
     if not unit.is_equivalent(target, equivalencies=equivalencies):
-        raise InputError(f"{parameter}: dataset '{name}' has unit '{unit}' ({origin}), "
-                         f"which is not convertible to {target}")
+        raise InputError(
+            f"{parameter}: dataset '{name}' has unit '{unit}' ({origin}), which is not convertible to {target}"
+        )
     return unit
 
 
@@ -116,18 +118,19 @@ def subvolume_slices(subvolume, shape):
     for axis, (item, n) in enumerate(zip(items, shape, strict=True)):
         if isinstance(item, slice):
             if item.step not in (None, 1):
-                raise InputError(f"subvolume: axis {axis} slice has step {item.step}; only "
-                                 "contiguous ranges keep the cell size")
+                raise InputError(
+                    f"subvolume: axis {axis} slice has step {item.step}; only contiguous ranges keep the cell size"
+                )
             start, stop, _ = item.indices(n)
         else:
             try:
                 start, stop = (int(v) for v in item)
             except (TypeError, ValueError):
-                raise InputError(f"subvolume: axis {axis} expected a (start, stop) pair or a slice, "
-                                 f"got {item!r}") from None
+                raise InputError(
+                    f"subvolume: axis {axis} expected a (start, stop) pair or a slice, got {item!r}"
+                ) from None
             if not (0 <= start and stop <= n):
-                raise InputError(f"subvolume: axis {axis} range ({start}, {stop}) lies outside "
-                                 f"the grid's 0..{n}")
+                raise InputError(f"subvolume: axis {axis} range ({start}, {stop}) lies outside the grid's 0..{n}")
         if stop <= start:
             raise InputError(f"subvolume: axis {axis} range ({start}, {stop}) is empty")
         slices.append(slice(start, stop))
@@ -145,21 +148,24 @@ def _root_length(handle, key, unit_keys, path):
             raw = handle.attrs[unit_key]
             text = _text(raw)
             if text is None:
-                raise InputError(f"{key}: root attribute '{unit_key}' of '{path}' must be a unit "
-                                 f"string such as 'cm' or 'pc', got {raw!r}")
+                raise InputError(
+                    f"{key}: root attribute '{unit_key}' of '{path}' must be a unit "
+                    f"string such as 'cm' or 'pc', got {raw!r}"
+                )
             try:
                 unit = u.Unit(text)
             except ValueError as exc:
-                raise InputError(f"{key}: root attribute '{unit_key}' = {text!r} of '{path}' "
-                                 f"cannot be parsed: {exc}") from None
+                raise InputError(
+                    f"{key}: root attribute '{unit_key}' = {text!r} of '{path}' cannot be parsed: {exc}"
+                ) from None
             if not unit.is_equivalent(u.cm):
-                raise InputError(f"{key}: root attribute '{unit_key}' = {text!r} of '{path}' "
-                                 "is not a length")
-            return u.Quantity(value.astype(float).reshape(-1) if value.size == 3
-                              else float(value.reshape(-1)[0]), unit)
-    raise InputError(f"{key}: root attribute '{key}' of '{path}' has no unit; add one of the "
-                     f"root attributes {', '.join(repr(k) for k in unit_keys)} or pass {key} "
-                     "as a Quantity")
+                raise InputError(f"{key}: root attribute '{unit_key}' = {text!r} of '{path}' is not a length")
+            return u.Quantity(value.astype(float).reshape(-1) if value.size == 3 else float(value.reshape(-1)[0]), unit)
+    raise InputError(
+        f"{key}: root attribute '{key}' of '{path}' has no unit; add one of the "
+        f"root attributes {', '.join(repr(k) for k in unit_keys)} or pass {key} "
+        "as a Quantity"
+    )
 
 
 def checked_names(wanted, units):
@@ -170,8 +176,10 @@ def checked_names(wanted, units):
             raise InputError(f"{param}: expected a dataset name (str), got {type(name).__name__}")
     unknown = sorted(set(units) - set(wanted.values()))
     if unknown:
-        raise InputError(f"units: {', '.join(repr(k) for k in unknown)} name(s) no dataset being "
-                         f"read (datasets read: {', '.join(repr(v) for v in wanted.values())})")
+        raise InputError(
+            f"units: {', '.join(repr(k) for k in unknown)} name(s) no dataset being "
+            f"read (datasets read: {', '.join(repr(v) for v in wanted.values())})"
+        )
     return wanted
 
 
@@ -182,15 +190,19 @@ def open_fields(handle, wanted, units, path):
     shape = datasets[first].shape
     for param, ds in datasets.items():
         if ds.shape != shape:
-            raise InputError(f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
-                             f"{first} '{wanted[first]}' has shape {shape}")
-    field_units = {param: _unit(ds, wanted[param], param, units, required=param in _FIELD_UNITS)
-                   for param, ds in datasets.items()}
+            raise InputError(
+                f"{param}: dataset '{wanted[param]}' has shape {ds.shape}, but "
+                f"{first} '{wanted[first]}' has shape {shape}"
+            )
+    field_units = {
+        param: _unit(ds, wanted[param], param, units, required=param in _FIELD_UNITS) for param, ds in datasets.items()
+    }
     return datasets, shape, field_units
 
 
-def wanted_fields(temperature, pressure, internal_energy, electron_density, ion_density, density, ionization,
-                  composition, helium):
+def wanted_fields(
+    temperature, pressure, internal_energy, electron_density, ion_density, density, ionization, composition, helium
+):
     """``(wanted, model)``: parameter -> dataset name for everything to read, and the ionization model.
 
     The thermal input comes first (it sets the reference shape). A string
@@ -199,8 +211,12 @@ def wanted_fields(temperature, pressure, internal_energy, electron_density, ion_
     dataset too, under the parameter ``"model field <name>"``.
     """
     thermal, thermal_name = thermal_input(temperature, pressure, internal_energy)
-    wanted = {thermal: thermal_name, "electron_density": electron_density, "ion_density": ion_density,
-              "density": density}
+    wanted = {
+        thermal: thermal_name,
+        "electron_density": electron_density,
+        "ion_density": ion_density,
+        "density": density,
+    }
     model = None
     if density is not None:
         spec = ionization
@@ -287,19 +303,45 @@ def _assemble(path, arrays, wanted, slices, subvolume, cell, origin, gamma, mode
     source = f"hdf5:{path}"
     if subvolume is not None:
         source += " subvolume=[" + ", ".join(f"{s.start}:{s.stop}" for s in slices) + "]"
-    fields = {wanted[p]: arrays.pop(p).to_value(u.dimensionless_unscaled) for p in list(arrays)
-              if p.startswith(MODEL_FIELD)}
+    fields = {
+        wanted[p]: arrays.pop(p).to_value(u.dimensionless_unscaled) for p in list(arrays) if p.startswith(MODEL_FIELD)
+    }
     return Snapshot.from_arrays(
-        temperature=arrays.get("temperature"), pressure=arrays.get("pressure"),
-        internal_energy=arrays.get("internal_energy"), gamma=gamma, cell_size=cell,
-        electron_density=arrays.get("electron_density"), ion_density=arrays.get("ion_density"),
-        density=arrays.get("density"), ionization=model, origin=origin, fields=fields or None, dtype=dtype,
-        source=source)
+        temperature=arrays.get("temperature"),
+        pressure=arrays.get("pressure"),
+        internal_energy=arrays.get("internal_energy"),
+        gamma=gamma,
+        cell_size=cell,
+        electron_density=arrays.get("electron_density"),
+        ion_density=arrays.get("ion_density"),
+        density=arrays.get("density"),
+        ionization=model,
+        origin=origin,
+        fields=fields or None,
+        dtype=dtype,
+        source=source,
+    )
 
 
-def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
-              internal_energy=None, gamma=None, ionization=None, composition=None, helium=None, cell_size=None,
-              origin=None, units=None, subvolume=None, dtype=np.float32):
+def read_hdf5(
+    path,
+    *,
+    temperature=None,
+    electron_density=None,
+    ion_density=None,
+    density=None,
+    pressure=None,
+    internal_energy=None,
+    gamma=None,
+    ionization=None,
+    composition=None,
+    helium=None,
+    cell_size=None,
+    origin=None,
+    units=None,
+    subvolume=None,
+    dtype=np.float32,
+):
     """Read a snapshot on a regular grid from an HDF5 file.
 
     Give either ``electron_density`` (and optionally ``ion_density``) with
@@ -357,10 +399,22 @@ def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
         unparseable units, missing geometry, bad sub-volume; and every
         value check of :meth:`~rtrace.Snapshot.from_arrays`.
     """
-    path, units, dtype, wanted, model = parse_request(path, units, dtype, dict(
-        temperature=temperature, pressure=pressure, internal_energy=internal_energy,
-        electron_density=electron_density, ion_density=ion_density, density=density, ionization=ionization,
-        composition=composition, helium=helium))
+    path, units, dtype, wanted, model = parse_request(
+        path,
+        units,
+        dtype,
+        dict(
+            temperature=temperature,
+            pressure=pressure,
+            internal_energy=internal_energy,
+            electron_density=electron_density,
+            ion_density=ion_density,
+            density=density,
+            ionization=ionization,
+            composition=composition,
+            helium=helium,
+        ),
+    )
     with open_file(path) as handle:
         datasets, shape, field_units = open_fields(handle, wanted, units, path)
         cell_size, origin = file_geometry(handle, cell_size, origin, path)
@@ -371,6 +425,8 @@ def read_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
         # number densities and temperatures given directly are stored as dtype.
         read_type = np.float64 if model is not None else dtype
         # h5py reads only the hyperslab and converts the type while reading.
-        arrays = {param: u.Quantity(ds.astype(read_type)[slices], field_units[param], copy=False)
-                  for param, ds in datasets.items()}
+        arrays = {
+            param: u.Quantity(ds.astype(read_type)[slices], field_units[param], copy=False)
+            for param, ds in datasets.items()
+        }
     return _assemble(path, arrays, wanted, slices, subvolume, cell, origin, gamma, model, dtype)

@@ -62,8 +62,14 @@ _PIECE_BYTES_DENSITY = 48 * 8
 _PIECE_BYTES_DIRECT = 2 * 8
 
 # Lower bound and strictness per stored field, as Snapshot.from_arrays checks them.
-_BOUNDS = {"temperature": (0.0, True), "pressure": (0.0, True), "internal_energy": (0.0, True),
-           "electron_density": (0.0, False), "ion_density": (0.0, False), "density": (0.0, False)}
+_BOUNDS = {
+    "temperature": (0.0, True),
+    "pressure": (0.0, True),
+    "internal_energy": (0.0, True),
+    "electron_density": (0.0, False),
+    "ion_density": (0.0, False),
+    "density": (0.0, False),
+}
 
 
 def pieces(lo, hi, max_cells):
@@ -160,8 +166,10 @@ class HDF5Source:
     @property
     def _temperature_as_stored(self):
         """The electron temperature is the temperature dataset itself (no model changes it)."""
-        return (self.thermal == "temperature" and
-                type(self.model).electron_temperature is IonizationModel.electron_temperature)
+        return (
+            self.thermal == "temperature"
+            and type(self.model).electron_temperature is IonizationModel.electron_temperature
+        )
 
     def _open(self):
         if not os.path.isfile(self.path):
@@ -200,8 +208,7 @@ class HDF5Source:
         return out
 
     def _wide(self, handle, param, lo, hi):
-        return np.ascontiguousarray(self._to_cgs(param, self._read_raw(handle, param, lo, hi, np.float64)),
-                                    np.float64)
+        return np.ascontiguousarray(self._to_cgs(param, self._read_raw(handle, param, lo, hi, np.float64)), np.float64)
 
     def gas(self, handle, lo, hi, photo=True):
         """``(inputs, fields)`` of a box for the ionization model: float64 cgs arrays.
@@ -210,8 +217,10 @@ class HDF5Source:
         ``fields`` the datasets the model reads by name and, once solved
         (and ``photo``), the photoionized fraction.
         """
-        inputs = {"density": self._wide(handle, "density", lo, hi),
-                  self.thermal: self._wide(handle, self.thermal, lo, hi)}
+        inputs = {
+            "density": self._wide(handle, "density", lo, hi),
+            self.thermal: self._wide(handle, self.thermal, lo, hi),
+        }
         if self.thermal != "temperature":
             inputs["gamma"] = self.gamma
         fields = {self.names[p]: self._wide(handle, p, lo, hi) for p in self.names if p.startswith(MODEL_FIELD)}
@@ -242,8 +251,7 @@ class HDF5Source:
             validated at open, so it changed since).
         """
         shape = tuple(int(b - a) for a, b in zip(lo, hi, strict=True))
-        params = ["electron_density" if name == "ion_density" and self.shares_ion_term else name
-                  for name in which]
+        params = ["electron_density" if name == "ion_density" and self.shares_ion_term else name for name in which]
         distinct = list(dict.fromkeys(params))
         # One buffer for all fields: a single large allocation is mapped afresh and handed
         # back whole when the brick is dropped, where separate arrays of a few MB would be
@@ -274,11 +282,13 @@ class HDF5Source:
     def _recheck(self, name, arr, lo, hi):
         """Cheap guard: the file was validated at open; a bad value now means it changed."""
         lower, strict = _BOUNDS[name]
-        bad = arr.size - int(np.count_nonzero(arr > lower if strict else arr >= lower))   # NaN fails both
+        bad = arr.size - int(np.count_nonzero(arr > lower if strict else arr >= lower))  # NaN fails both
         if bad:
-            raise InputError(f"{name}: {bad} of {arr.size} cells of brick {_box_text(lo, hi)} are not finite "
-                             f"or violate {name} {'>' if strict else '>='} 0, though '{self.path}' passed "
-                             "validation when it was opened; was the file changed since?")
+            raise InputError(
+                f"{name}: {bad} of {arr.size} cells of brick {_box_text(lo, hi)} are not finite "
+                f"or violate {name} {'>' if strict else '>='} 0, though '{self.path}' passed "
+                "validation when it was opened; was the file changed since?"
+            )
 
 
 class _OpenGrid:
@@ -358,11 +368,17 @@ class LazySnapshot(Snapshot):
 
 # -- the streaming pass at open ----------------------------------------------------------------
 
+
 def _tally(name, dataset, path, lower=None, strict=False, upper=None, rule=None):
     """A :class:`~rtrace.quantities.CellTally` of one dataset over the pieces of the streaming pass."""
-    return CellTally(name, lower, strict, upper, rule=rule,
-                     context=f", in dataset '{dataset}' of '{path}' (found by open_hdf5's validation pass; "
-                             "nothing was traced)")
+    return CellTally(
+        name,
+        lower,
+        strict,
+        upper,
+        rule=rule,
+        context=f", in dataset '{dataset}' of '{path}' (found by open_hdf5's validation pass; nothing was traced)",
+    )
 
 
 def _validate_direct(source, handle, digests, ranges):
@@ -395,8 +411,17 @@ def _validate_gas(source, handle):
     tally_rho = _tally("density", source.names["density"], source.path, 0.0)
     tally_heat = _tally(source.thermal, source.names[source.thermal], source.path, 0.0, strict=True)
     fields = [p for p in source.names if p.startswith(MODEL_FIELD)]
-    tally_fields = {p: _tally(f"ionization field '{source.names[p]}'", source.names[p], source.path, 0.0,
-                              upper=1.0, rule="0 <= fraction <= 1") for p in fields}
+    tally_fields = {
+        p: _tally(
+            f"ionization field '{source.names[p]}'",
+            source.names[p],
+            source.path,
+            0.0,
+            upper=1.0,
+            rule="0 <= fraction <= 1",
+        )
+        for p in fields
+    }
     helium = [MODEL_FIELD + getattr(source.model, "_sources", {}).get(n, "") for n in ("helium_ii", "helium_iii")]
     helium_pair = all(p in source.names for p in helium)
     excess, largest, empty = 0, 0.0, 0
@@ -416,9 +441,11 @@ def _validate_gas(source, handle):
     tally_rho.raise_if_bad()
     tally_heat.raise_if_bad()
     if empty:
-        raise InputError(f"density: {empty} of {tally_rho.size} cells are empty (density 0), where a "
-                         f"temperature cannot be derived from the {source.thermal.replace('_', ' ')}, in dataset "
-                         f"'{source.names['density']}' of '{source.path}'")
+        raise InputError(
+            f"density: {empty} of {tally_rho.size} cells are empty (density 0), where a "
+            f"temperature cannot be derived from the {source.thermal.replace('_', ' ')}, in dataset "
+            f"'{source.names['density']}' of '{source.path}'"
+        )
     for tally in tally_fields.values():
         tally.raise_if_bad()
     if excess:
@@ -463,16 +490,31 @@ def _scan(source, cell, origin):
                 source.photo = solution.fraction
                 extra.update(solution.provenance())
             extra["ionization_state"] = _evaluate_gas(source, handle, digests, ranges)
-    checksum = combined_checksum([digests[p] for p in ("temperature", "electron_density", "ion_density")],
-                                 cell, origin)
+    checksum = combined_checksum([digests[p] for p in ("temperature", "electron_density", "ion_density")], cell, origin)
     return ranges, checksum, extra
 
 
 # -- open_hdf5 ---------------------------------------------------------------------------------
 
-def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
-              internal_energy=None, gamma=None, ionization=None, composition=None, helium=None, cell_size=None,
-              origin=None, units=None, dtype=np.float32):
+
+def open_hdf5(
+    path,
+    *,
+    temperature=None,
+    electron_density=None,
+    ion_density=None,
+    density=None,
+    pressure=None,
+    internal_energy=None,
+    gamma=None,
+    ionization=None,
+    composition=None,
+    helium=None,
+    cell_size=None,
+    origin=None,
+    units=None,
+    dtype=np.float32,
+):
     """Open a snapshot on a regular grid in an HDF5 file without reading its fields into memory.
 
     The arguments mean what they mean for :func:`rtrace.io.read_hdf5`: give
@@ -528,12 +570,26 @@ def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
     """
     check_density_inputs(density, electron_density, ion_density, pressure, internal_energy)
     if isinstance(ionization, (np.ndarray, u.Quantity)) and np.ndim(ionization) > 0:
-        raise InputError("ionization: an in-memory fraction array cannot be read brick by brick; store it "
-                         "as a dataset in the file and pass its name (or use read_hdf5)")
-    path, units, dtype, wanted, model = parse_request(path, units, dtype, dict(
-        temperature=temperature, pressure=pressure, internal_energy=internal_energy,
-        electron_density=electron_density, ion_density=ion_density, density=density, ionization=ionization,
-        composition=composition, helium=helium))
+        raise InputError(
+            "ionization: an in-memory fraction array cannot be read brick by brick; store it "
+            "as a dataset in the file and pass its name (or use read_hdf5)"
+        )
+    path, units, dtype, wanted, model = parse_request(
+        path,
+        units,
+        dtype,
+        dict(
+            temperature=temperature,
+            pressure=pressure,
+            internal_energy=internal_energy,
+            electron_density=electron_density,
+            ion_density=ion_density,
+            density=density,
+            ionization=ionization,
+            composition=composition,
+            helium=helium,
+        ),
+    )
     gamma_used = _streamed_model(model, wanted, gamma)
 
     with open_file(path) as handle:
@@ -541,7 +597,7 @@ def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
         cell_size, origin = file_geometry(handle, cell_size, origin, path)
     cell, org = _lazy_geometry(cell_size, origin)
     if model is not None and not model.local:
-        model.check_geometry(shape, cell, org)          # sources outside the grid: an error before any reading
+        model.check_geometry(shape, cell, org)  # sources outside the grid: an error before any reading
 
     source = HDF5Source(path, wanted, field_units, model, dtype, shape, gamma_used)
     ranges, checksum, extra = _scan(source, cell, org)
@@ -551,8 +607,10 @@ def open_hdf5(path, *, temperature=None, electron_density=None, ion_density=None
 def _streamed_model(model, wanted, gamma):
     """The adiabatic index a streamed model uses (None with a temperature); refuse in-memory model arrays."""
     if model is not None and any(np.ndim(a) > 0 for a in model.cell_arrays().values()):
-        raise InputError("ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
-                         "the names of datasets in the file instead")
+        raise InputError(
+            "ionization: a model holding in-memory arrays cannot be read brick by brick; give it "
+            "the names of datasets in the file instead"
+        )
     if model is not None and "temperature" not in wanted:
         return gamma_value(gamma)
     if gamma is not None:

@@ -65,14 +65,17 @@ def output_error(exc, path, what="output", note=""):
     if cause is None:
         return None
     exc = cause
-    hint = {errno.ENOSPC: "free some space or write elsewhere",
-            errno.EDQUOT: "free some space or write elsewhere",
-            errno.EEXIST: "remove it or choose another folder",
-            errno.ENOTDIR: "remove it or choose another folder",
-            errno.EISDIR: "remove it or choose another folder"}.get(exc.errno, "choose a folder you can write to")
+    hint = {
+        errno.ENOSPC: "free some space or write elsewhere",
+        errno.EDQUOT: "free some space or write elsewhere",
+        errno.EEXIST: "remove it or choose another folder",
+        errno.ENOTDIR: "remove it or choose another folder",
+        errno.EISDIR: "remove it or choose another folder",
+    }.get(exc.errno, "choose a folder you can write to")
     where = exc.filename if exc.filename is not None else path
-    return OutputError(f"{what}: cannot write {os.fspath(where)}: {OUTPUT_ERRNOS[exc.errno]} ({hint})"
-                       + (f"; {note}" if note else ""))
+    return OutputError(
+        f"{what}: cannot write {os.fspath(where)}: {OUTPUT_ERRNOS[exc.errno]} ({hint})" + (f"; {note}" if note else "")
+    )
 
 
 def _disk_cause(exc):
@@ -133,8 +136,10 @@ def check_inside(path, folder, what="output"):
     real, root = _resolved(path), _resolved(folder)
     if real == root or root not in real.parents:
         link = "" if real == Path(os.path.abspath(os.fspath(path))) else f" (it resolves to {real})"
-        raise OutputError(f"{what}: {os.fspath(path)} lies outside the output folder {root}{link}; "
-                          f"rtrace writes only inside the output folder")
+        raise OutputError(
+            f"{what}: {os.fspath(path)} lies outside the output folder {root}{link}; "
+            f"rtrace writes only inside the output folder"
+        )
     return Path(path)
 
 
@@ -167,14 +172,18 @@ def check_output_paths(paths, folder, what="output"):
             bad.append(str(exc))
             continue
         if path.is_dir():
-            bad.append(f"{what}: {path} is a folder; rtrace needs to write a file of that name there "
-                       f"(remove the folder or choose another output folder)")
+            bad.append(
+                f"{what}: {path} is a folder; rtrace needs to write a file of that name there "
+                f"(remove the folder or choose another output folder)"
+            )
             continue
         parent = path.parent
         while _resolved(parent) != root:
             if parent.exists() and not parent.is_dir():
-                bad.append(f"{what}: {parent} is a file; rtrace needs a folder of that name for {path.name} "
-                           f"(remove the file or choose another output folder)")
+                bad.append(
+                    f"{what}: {parent} is a file; rtrace needs a folder of that name for {path.name} "
+                    f"(remove the file or choose another output folder)"
+                )
                 break
             parent = parent.parent
     if bad:
@@ -245,6 +254,8 @@ def check_space(folder, need, what="[output].directory"):
     """
     free = shutil.disk_usage(folder).free
     if need > free:
-        raise OutputError(f"{what}: the outputs need at least {need / 1e6:.3g} MB but {os.fspath(folder)} has "
-                          f"{free / 1e6:.3g} MB free; free some space, write elsewhere (--output) or ask for fewer "
-                          f"outputs ([output].quantities, fits = false, smaller npix)")
+        raise OutputError(
+            f"{what}: the outputs need at least {need / 1e6:.3g} MB but {os.fspath(folder)} has "
+            f"{free / 1e6:.3g} MB free; free some space, write elsewhere (--output) or ask for fewer "
+            f"outputs ([output].quantities, fits = false, smaller npix)"
+        )

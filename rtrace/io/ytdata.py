@@ -31,12 +31,19 @@ from ..snapshot import register_reader
 __all__ = ["from_yt"]
 
 #: Per-cell inputs and the bound each must satisfy: (lower, strict).
-_BOUNDS = {"temperature": (0.0, True), "pressure": (0.0, True), "internal_energy": (0.0, True),
-           "electron_density": (0.0, False), "ion_density": (0.0, False), "density": (0.0, False)}
+_BOUNDS = {
+    "temperature": (0.0, True),
+    "pressure": (0.0, True),
+    "internal_energy": (0.0, True),
+    "electron_density": (0.0, False),
+    "ion_density": (0.0, False),
+    "density": (0.0, False),
+}
 
 
 def _load(ds):
     import yt
+
     if isinstance(ds, (str, os.PathLike)):
         if not os.path.exists(ds):
             raise InputError(f"yt dataset: '{ds}' does not exist")
@@ -63,8 +70,10 @@ def _resolve_field(ds, name, param):
             return matches[0]
     on_disk = ", ".join(f"{t}/{n}" for t, n in ds.field_list)
     gas = sorted({n for t, n in known if t == "gas"})
-    raise InputError(f"{param}: yt field '{name if isinstance(name, str) else '/'.join(name)}' is not in "
-                     f"{ds}; fields on disk: {on_disk}; derived gas fields: {', '.join(gas) or 'none'}")
+    raise InputError(
+        f"{param}: yt field '{name if isinstance(name, str) else '/'.join(name)}' is not in "
+        f"{ds}; fields on disk: {on_disk}; derived gas fields: {', '.join(gas) or 'none'}"
+    )
 
 
 def _fraction_field(ds, ionization):
@@ -104,29 +113,56 @@ def _validate(all_inputs, where):
 def _terms(inputs, options, dtype, cell, origin):
     """``(T_e, n_e, ion term, provenance)`` of one grid's (or the covering grid's) inputs."""
     import astropy.units as u
+
     ionization = options["ionization"]
     if "ionization" in inputs:
         ionization = np.asarray(inputs["ionization"].to_value(u.dimensionless_unscaled), np.float64)
-    fields = {name: np.asarray(inputs[key].to_value(u.dimensionless_unscaled), np.float64)
-              for key, name in options["model_fields"].items()}
+    fields = {
+        name: np.asarray(inputs[key].to_value(u.dimensionless_unscaled), np.float64)
+        for key, name in options["model_fields"].items()
+    }
     kw = {k: inputs.get(k) for k in THERMAL_INPUTS + ("electron_density", "ion_density", "density")}
-    return derive_fields(cell, origin, ionization=ionization, composition=options["composition"],
-                         helium=options["helium"], gamma=options["gamma"], fields=fields or None, dtype=dtype,
-                         **kw)
+    return derive_fields(
+        cell,
+        origin,
+        ionization=ionization,
+        composition=options["composition"],
+        helium=options["helium"],
+        gamma=options["gamma"],
+        fields=fields or None,
+        dtype=dtype,
+        **kw,
+    )
 
 
-def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, density=None, pressure=None,
-            internal_energy=None, gamma=None, ionization=None, composition=None, helium=None, level=None,
-            dtype=np.float32):
+def from_yt(
+    ds,
+    *,
+    temperature=None,
+    electron_density=None,
+    ion_density=None,
+    density=None,
+    pressure=None,
+    internal_energy=None,
+    gamma=None,
+    ionization=None,
+    composition=None,
+    helium=None,
+    level=None,
+    dtype=np.float32,
+):
     """Build a snapshot from a yt dataset (see :meth:`rtrace.Snapshot.from_yt`)."""
     from ..snapshot import Snapshot
+
     dtype = storage_dtype(dtype)
     if (electron_density is None) == (density is None):
         raise InputError("electron_density / density: give exactly one of them (density with ionization)")
     thermal, thermal_name = thermal_input(temperature, pressure, internal_energy)
     if electron_density is not None and thermal != "temperature":
-        raise InputError(f"{thermal}: needs density (the particle count that turns it into a temperature "
-                         "depends on the mass density and its ionization)")
+        raise InputError(
+            f"{thermal}: needs density (the particle count that turns it into a temperature "
+            "depends on the mass density and its ionization)"
+        )
     ds = _load(ds)
     keys = {thermal: _resolve_field(ds, thermal_name, thermal)}
     model_fields = {}
@@ -149,8 +185,13 @@ def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, de
                 key = f"model_field_{n}"
                 keys[key] = _resolve_field(ds, _yt_name(name), f"ionization field '{name}'")
                 model_fields[key] = name
-    options = {"ionization": ionization, "composition": composition, "helium": helium, "gamma": gamma,
-               "model_fields": model_fields}
+    options = {
+        "ionization": ionization,
+        "composition": composition,
+        "helium": helium,
+        "gamma": gamma,
+        "model_fields": model_fields,
+    }
     left = ds.domain_left_edge.to("cm").d.astype(float)
     width = (ds.domain_right_edge - ds.domain_left_edge).to("cm").d.astype(float)
     base = np.asarray(ds.domain_dimensions, np.int64)
@@ -159,9 +200,11 @@ def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, de
     max_level = int(getattr(ds.index, "max_level", 0)) if grids is not None else 0
     if level is not None or grids is None or max_level == 0:
         if grids is None and level is None:
-            raise InputError(f"level: {ds} has no grid hierarchy (octree or particle data); give a level "
-                             "(level= in Python, [snapshot].level in a job file) to sample it on yt's covering grid "
-                             "at that refinement level")
+            raise InputError(
+                f"level: {ds} has no grid hierarchy (octree or particle data); give a level "
+                "(level= in Python, [snapshot].level in a job file) to sample it on yt's covering grid "
+                "at that refinement level"
+            )
         lev = 0 if level is None else int(level)
         if lev < 0:
             raise InputError(f"level: must be >= 0, got {level}")
@@ -175,9 +218,11 @@ def from_yt(ds, *, temperature=None, electron_density=None, ion_density=None, de
         prov = {"source": f"yt: {ds} ({how_sampled}; {fields_text})", **derived}
         return Snapshot(t, ne, ni, width / dims, left, prov)
     if isinstance(ionization, IonizationModel) and not ionization.local:
-        raise InputError(f"ionization: {type(ionization).__name__} needs the whole grid at one resolution; "
-                         f"{ds} is a {max_level + 1}-level AMR hierarchy: give a level (level= in Python, "
-                         "[snapshot].level in a job file) to sample it on a uniform grid")
+        raise InputError(
+            f"ionization: {type(ionization).__name__} needs the whole grid at one resolution; "
+            f"{ds} is a {max_level + 1}-level AMR hierarchy: give a level (level= in Python, "
+            "[snapshot].level in a job file) to sample it on a uniform grid"
+        )
     return _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_text)
 
 
@@ -201,9 +246,9 @@ def _amr_snapshot(ds, grids, keys, options, dtype, base, left, width, fields_tex
         t, ne, ni, derived = _terms(inputs, options, dtype, size, edge)
         check_temperature_range(t, "temperature")
         out.append(Grid(lev, lo, hi, ne, ni, t, label))
-    derived.pop("ionization_state", None)    # the last grid's alone; not the dataset's
+    derived.pop("ionization_state", None)  # the last grid's alone; not the dataset's
     prov = {"source": f"yt: {ds} (AMR, {levels} levels, {len(grids)} grids; {fields_text})", **derived}
     return AMRSnapshot(out, r, base, width / base, left, prov)
 
 
-register_reader("yt", from_yt)           # behind Snapshot.from_yt
+register_reader("yt", from_yt)  # behind Snapshot.from_yt

@@ -36,9 +36,22 @@ import scipy.fft
 from ..errors import InputError, warn_user
 from ..memory import check_memory, fft_kernel_bytes
 
-__all__ = ["BeamKernel", "describe_beam", "validate_beam", "beams_for_frequencies", "BEAM_SCALINGS",
-           "KERNEL_HALF_WIDTH_SIGMA", "SUPERSAMPLE_BELOW_SIGMA", "kernel_geometry", "check_beam_fits_field",
-           "BEAM_FIELD_ERROR", "BEAM_FIELD_WARNING", "same_beam", "SAME_BEAM_RTOL", "beam_cards"]
+__all__ = [
+    "BeamKernel",
+    "describe_beam",
+    "validate_beam",
+    "beams_for_frequencies",
+    "BEAM_SCALINGS",
+    "KERNEL_HALF_WIDTH_SIGMA",
+    "SUPERSAMPLE_BELOW_SIGMA",
+    "kernel_geometry",
+    "check_beam_fits_field",
+    "BEAM_FIELD_ERROR",
+    "BEAM_FIELD_WARNING",
+    "same_beam",
+    "SAME_BEAM_RTOL",
+    "beam_cards",
+]
 
 # FWHM = sqrt(8 ln 2) sigma for a Gaussian (standard identity).
 _FWHM_PER_SIGMA = math.sqrt(8.0 * math.log(2.0))
@@ -86,10 +99,10 @@ def kernel_geometry(beam, pixel_arcsec, image_shape):
     sig_min = beam.minor.to_value(u.arcsec) / pixel_arcsec / _FWHM_PER_SIGMA
     half = max(1, int(math.ceil(KERNEL_HALF_WIDTH_SIGMA * sig_maj)))
     ny, nx = (int(n) for n in image_shape)
-    fft_shape = (scipy.fft.next_fast_len(ny + 2 * half, real=True),
-                 scipy.fft.next_fast_len(nx + 2 * half, real=True))
-    return dict(sigma_pixels=(sig_maj, sig_min), supersample=_supersample_factor(sig_min), half=half,
-                fft_shape=fft_shape)
+    fft_shape = (scipy.fft.next_fast_len(ny + 2 * half, real=True), scipy.fft.next_fast_len(nx + 2 * half, real=True))
+    return dict(
+        sigma_pixels=(sig_maj, sig_min), supersample=_supersample_factor(sig_min), half=half, fft_shape=fft_shape
+    )
 
 
 def check_beam_fits_field(beams, pixel_scale, image_shape, name="beam", frequencies_hz=None, image="image"):
@@ -124,16 +137,21 @@ def check_beam_fits_field(beams, pixel_scale, image_shape, name="beam", frequenc
     at = "" if frequencies_hz is None else f" at {float(frequencies_hz[k]) / 1e9:.4g} GHz"
     ny, nx = (int(n) for n in image_shape)
     if major > BEAM_FIELD_ERROR * field:
-        raise InputError(f"{name}: the beam's FWHM ({major:.6g} arcsec{at}) is wider than the {image} "
-                         f"({ny} x {nx} pixels of {pix:.4g} arcsec, {field:.6g} arcsec across its narrower "
-                         f"side): most of the flux would be spread outside the {image} (a point source at its "
-                         "centre would keep under 58%); widen the view (a larger width at the same or a larger "
-                         "npix) or use a smaller beam")
+        raise InputError(
+            f"{name}: the beam's FWHM ({major:.6g} arcsec{at}) is wider than the {image} "
+            f"({ny} x {nx} pixels of {pix:.4g} arcsec, {field:.6g} arcsec across its narrower "
+            f"side): most of the flux would be spread outside the {image} (a point source at its "
+            "centre would keep under 58%); widen the view (a larger width at the same or a larger "
+            "npix) or use a smaller beam"
+        )
     if major > BEAM_FIELD_WARNING * field:
-        warn_user(f"{name}: the beam's FWHM ({major:.6g} arcsec{at}) is more than half the {image}'s narrower "
-                  f"side ({field:.6g} arcsec): convolution spreads a noticeable share of the flux outside "
-                  f"the {image} (over 3.6% even for a point source at the centre); widen the view for fluxes "
-                  "and SEDs", UserWarning)
+        warn_user(
+            f"{name}: the beam's FWHM ({major:.6g} arcsec{at}) is more than half the {image}'s narrower "
+            f"side ({field:.6g} arcsec): convolution spreads a noticeable share of the flux outside "
+            f"the {image} (over 3.6% even for a point source at the centre); widen the view for fluxes "
+            "and SEDs",
+            UserWarning,
+        )
 
 
 def validate_beam(beam, name="beam"):
@@ -229,10 +247,10 @@ def _gaussian_on_grid(beam, pixel_scale, half, supersample):
         kernel = np.array(sampled.array, dtype=float)
     else:
         model = sampled.model
-        params = model.parameters      # the model's own evaluate: no input checks in the sub-pixel loop
+        params = model.parameters  # the model's own evaluate: no input checks in the sub-pixel loop
         offs = np.arange(-half, half + 1, dtype=float)
         kernel = np.zeros((side, side))
-        sub = (np.arange(supersample) + 0.5) / supersample - 0.5      # sub-pixel offsets
+        sub = (np.arange(supersample) + 0.5) / supersample - 0.5  # sub-pixel offsets
         for dr_sub in sub:
             rows = (offs + dr_sub)[:, None]
             for dc_sub in sub:
@@ -268,8 +286,11 @@ def same_beam(a, b):
     return math.radians(min(dpa, 180.0 - dpa)) <= SAME_BEAM_RTOL
 
 
-_BEAM_CARD_COMMENTS = {"BMAJ": "[deg] beam major axis (FWHM)", "BMIN": "[deg] beam minor axis (FWHM)",
-                       "BPA": "[deg] beam position angle, north through east"}
+_BEAM_CARD_COMMENTS = {
+    "BMAJ": "[deg] beam major axis (FWHM)",
+    "BMIN": "[deg] beam minor axis (FWHM)",
+    "BPA": "[deg] beam position angle, north through east",
+}
 
 
 def beam_cards(beam):
@@ -342,11 +363,17 @@ class BeamKernel:
         self.half = geo["half"]
         held, transient = fft_kernel_bytes(self.half, geo["fft_shape"])
         side = 2 * self.half + 1
-        check_memory(held + transient, field=name, budget=max_memory,
-                     what=(f"a beam kernel of {side} x {side} pixels (FWHM {beam.major.to_value(u.arcsec):.6g} "
-                           f"arcsec on {pix:.4g} arcsec pixels) and its padded FFT of {geo['fft_shape'][0]} x "
-                           f"{geo['fft_shape'][1]}"),
-                     hint="use a smaller beam, or coarser pixels (a smaller npix over the same width)")
+        check_memory(
+            held + transient,
+            field=name,
+            budget=max_memory,
+            what=(
+                f"a beam kernel of {side} x {side} pixels (FWHM {beam.major.to_value(u.arcsec):.6g} "
+                f"arcsec on {pix:.4g} arcsec pixels) and its padded FFT of {geo['fft_shape'][0]} x "
+                f"{geo['fft_shape'][1]}"
+            ),
+            hint="use a smaller beam, or coarser pixels (a smaller npix over the same width)",
+        )
         self.kernel = _gaussian_on_grid(beam, pix * u.arcsec, self.half, self.supersample)
         self.sum_squares = float(np.sum(self.kernel**2))
         # radio_beam's sr is the Gaussian solid angle pi bmaj bmin / (4 ln 2)
@@ -360,7 +387,7 @@ class BeamKernel:
         idx_r = np.arange(-h, h + 1) % self.fft_shape[0]
         idx_c = np.arange(-h, h + 1) % self.fft_shape[1]
         wrapped[np.ix_(idx_r, idx_c)] = self.kernel
-        self.kernel_ft = scipy.fft.rfft2(wrapped)     # the one transform of this beam's kernel
+        self.kernel_ft = scipy.fft.rfft2(wrapped)  # the one transform of this beam's kernel
 
     def convolve(self, image):
         """Linear convolution of ``image`` (..., ny, nx) with the kernel, zero outside the image.
@@ -370,7 +397,7 @@ class BeamKernel:
         """
         image = np.asarray(image, float)
         ny, nx = self.image_shape
-        ft = scipy.fft.rfft2(image, s=self.fft_shape)           # zero padded
+        ft = scipy.fft.rfft2(image, s=self.fft_shape)  # zero padded
         return scipy.fft.irfft2(ft * self.kernel_ft, s=self.fft_shape)[..., :ny, :nx]
 
     def convolve_periodic(self, field):
@@ -390,5 +417,7 @@ class BeamKernel:
 
 def describe_beam(beam):
     """One-line description of a beam: FWHM axes (arcsec) and position angle (deg)."""
-    return (f"major={beam.major.to_value(u.arcsec):.6g} arcsec minor={beam.minor.to_value(u.arcsec):.6g} arcsec "
-            f"pa={beam.pa.to_value(u.deg):.6g} deg")
+    return (
+        f"major={beam.major.to_value(u.arcsec):.6g} arcsec minor={beam.minor.to_value(u.arcsec):.6g} arcsec "
+        f"pa={beam.pa.to_value(u.deg):.6g} deg"
+    )

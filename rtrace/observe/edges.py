@@ -36,7 +36,10 @@ def warn_if_emission_at_edge(images, frequencies_hz, what):
         return
     share, k = edge_share(images)
     if share > EDGE_SHARE_LIMIT:
-        warn_user(f"{what}: emission reaches the image edge ({100 * share:.2g}% of the flux at "
-                  f"{frequencies_hz[k] / 1e9:.4g} GHz lies in the outermost pixel ring): flux beyond the field "
-                  "is missing from sums and SEDs, and beam convolution spreads part of the edge flux out "
-                  "of the image; widen the view", UserWarning)
+        warn_user(
+            f"{what}: emission reaches the image edge ({100 * share:.2g}% of the flux at "
+            f"{frequencies_hz[k] / 1e9:.4g} GHz lies in the outermost pixel ring): flux beyond the field "
+            "is missing from sums and SEDs, and beam convolution spreads part of the edge flux out "
+            "of the image; widen the view",
+            UserWarning,
+        )

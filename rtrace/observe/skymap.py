@@ -23,7 +23,6 @@ from .noise import JY_PER_BEAM, correlated_noise, make_rng, noise_rms_per_freque
 __all__ = ["SkyMap", "observe", "check_observation"]
 
 
-
 def _reference_frequency(reference_frequency, scaling):
     if reference_frequency is None:
         return None
@@ -32,8 +31,18 @@ def _reference_frequency(reference_frequency, scaling):
     return parse_frequencies(reference_frequency, "reference_frequency", scalar=True)
 
 
-def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_frequency=None,
-            *, background=None, subtract_background=None, max_memory=None):
+def observe(
+    result,
+    beam,
+    noise=None,
+    seed=None,
+    beam_scaling=None,
+    reference_frequency=None,
+    *,
+    background=None,
+    subtract_background=None,
+    max_memory=None,
+):
     """Convolve a traced Result with a beam and add beam-correlated noise.
 
     Parameters
@@ -95,6 +104,7 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     budget = None
     if max_memory is not None:
         from ..transfer.bricks import parse_memory
+
         budget = parse_memory(max_memory)
     beams = beams_for_frequencies(beam, nu, beam_scaling, ref_hz)
     image_shape = tuple(result.shape[1:])
@@ -104,7 +114,7 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
     jy_per_pixel = result.jy_per_pixel("subtracted", require_finite=True).value
     warn_if_emission_at_edge(jy_per_pixel, nu, "observe")
 
-    kernels = {}                   # one kernel (and one kernel FFT) per distinct beam
+    kernels = {}  # one kernel (and one kernel FFT) per distinct beam
     per_freq = []
     for b in beams:
         key = (b.major.to_value(u.arcsec), b.minor.to_value(u.arcsec), b.pa.to_value(u.deg))
@@ -124,24 +134,50 @@ def observe(result, beam, noise=None, seed=None, beam_scaling=None, reference_fr
         rng, used_seed = make_rng(seed)
         data = model.copy()
         for i, k in enumerate(per_freq):
-            data[i] += correlated_noise(k, rms[i:i + 1], rng)[0]
+            data[i] += correlated_noise(k, rms[i : i + 1], rng)[0]
 
-    scaling_txt = ("same at all frequencies" if beam_scaling is None else
-                   f"FWHM ~ 1/nu from {(ref_hz if ref_hz is not None else nu[0]) / 1e9:.6g} GHz")
+    scaling_txt = (
+        "same at all frequencies"
+        if beam_scaling is None
+        else f"FWHM ~ 1/nu from {(ref_hz if ref_hz is not None else nu[0]) / 1e9:.6g} GHz"
+    )
     beam_txt = f"gaussian {describe_beam(beam)}, {scaling_txt}"
     if rms is None:
         noise_txt = "none"
     else:
-        noise_txt = ("gaussian, correlated over the beam, rms="
-                     + ",".join(f"{r:.6g}" for r in rms) + f" Jy/beam, seed={used_seed}")
+        noise_txt = (
+            "gaussian, correlated over the beam, rms="
+            + ",".join(f"{r:.6g}" for r in rms)
+            + f" Jy/beam, seed={used_seed}"
+        )
     provenance = dict(result.provenance, beam=beam_txt, noise=noise_txt)
-    return SkyMap(data, model, beams, result, rms, provenance, beam=beam, beam_scaling=beam_scaling,
-                  reference_frequency=ref_hz if ref_hz is not None else nu[0], seed=used_seed,
-                  background=convention)
+    return SkyMap(
+        data,
+        model,
+        beams,
+        result,
+        rms,
+        provenance,
+        beam=beam,
+        beam_scaling=beam_scaling,
+        reference_frequency=ref_hz if ref_hz is not None else nu[0],
+        seed=used_seed,
+        background=convention,
+    )
 
 
-def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=False, max_memory=None,
-                      beam_field="beam", image_field="result", image="image"):
+def check_observation(
+    beams,
+    pixel_scale,
+    image_shape,
+    frequencies_hz,
+    *,
+    noise=False,
+    max_memory=None,
+    beam_field="beam",
+    image_field="result",
+    image="image",
+):
     """Refuse a beam wider than the image or an observation that does not fit in memory.
 
     Checked before any kernel or image is made.
@@ -171,6 +207,7 @@ def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=
     budget = max_memory
     if max_memory is not None and not isinstance(max_memory, (int, np.integer)):
         from ..transfer.bricks import parse_memory
+
         budget = parse_memory(max_memory)
     nu = np.atleast_1d(np.asarray(frequencies_hz, float))
     check_beam_fits_field(beams, pixel_scale, image_shape, beam_field, nu, image)
@@ -185,14 +222,18 @@ def check_observation(beams, pixel_scale, image_shape, frequencies_hz, *, noise=
     images = observe_bytes(len(nu), image_shape, [], noise)
     ny, nx = image_shape
     nf, nk = len(nu), len(kernels)
-    what = (f"observing {nf} frequenc{'y' if nf == 1 else 'ies'} of {ny} x {nx} pixels ({format_bytes(images)} of "
-            f"images) through {nk} beam kernel{'' if nk == 1 else 's'} of up to "
-            f"{max(2 * h + 1 for h, _ in kernels)} pixels across")
+    what = (
+        f"observing {nf} frequenc{'y' if nf == 1 else 'ies'} of {ny} x {nx} pixels ({format_bytes(images)} of "
+        f"images) through {nk} beam kernel{'' if nk == 1 else 's'} of up to "
+        f"{max(2 * h + 1 for h, _ in kernels)} pixels across"
+    )
     if need - images > images:
         field, hint = beam_field, "use a smaller beam, or coarser pixels (a smaller npix over the same width)"
     else:
-        field, hint = image_field, ("trace fewer pixels (npix) or fewer frequencies, or observe the frequencies "
-                                    "in separate calls")
+        field, hint = (
+            image_field,
+            ("trace fewer pixels (npix) or fewer frequencies, or observe the frequencies in separate calls"),
+        )
     check_memory(need, field=field, what=what, hint=hint, budget=budget)
 
 
@@ -244,8 +285,22 @@ class SkyMap:
         The Result this map came from.
     """
 
-    def __init__(self, data, model, beams, result, noise_rms, provenance, *, beam, beam_scaling,
-                 reference_frequency, seed, background="subtracted", background_subtracted=None):
+    def __init__(
+        self,
+        data,
+        model,
+        beams,
+        result,
+        noise_rms,
+        provenance,
+        *,
+        beam,
+        beam_scaling,
+        reference_frequency,
+        seed,
+        background="subtracted",
+        background_subtracted=None,
+    ):
         # ``data`` and ``model`` are background subtracted; ``background`` is how they are shown
         if background_subtracted is not None:
             background = "subtracted" if background_subtracted else "included"
@@ -404,14 +459,18 @@ class SkyMap:
         nu = self.frequencies.to_value(u.Hz)
         if kind in ("rayleigh-jeans", "rj"):
             # Kelvin per Jy/beam at each frequency, straight from astropy's equivalency
-            k_per_jyb = np.array([(1.0 * JY_PER_BEAM).to_value(
-                u.K, equivalencies=u.brightness_temperature(f * u.Hz, beam_area=sr * u.sr))
-                for f, sr in zip(nu, self._beam_sr, strict=True)])
+            k_per_jyb = np.array(
+                [
+                    (1.0 * JY_PER_BEAM).to_value(
+                        u.K, equivalencies=u.brightness_temperature(f * u.Hz, beam_area=sr * u.sr)
+                    )
+                    for f, sr in zip(nu, self._beam_sr, strict=True)
+                ]
+            )
             return u.Quantity(img * k_per_jyb[:, None, None], u.K)
         if kind == "planck":
             delta = self._image(noiseless) * (JANSKY / self._beam_sr[:, None, None])
-            tb = brightness_temperature_cgs(nu[:, None, None], delta, self._bg_cgs[:, None, None], kind,
-                                            convention)
+            tb = brightness_temperature_cgs(nu[:, None, None], delta, self._bg_cgs[:, None, None], kind, convention)
             return u.Quantity(tb, u.K)
         raise InputError(f"kind: expected 'rayleigh-jeans' or 'planck', got {kind!r}")
 
@@ -444,10 +503,13 @@ class SkyMap:
         return value is then the list of files.
         """
         from ..io.fits import write_skymap
+
         return write_skymap(self, path, spectral_axis=spectral_axis)
 
     def __repr__(self):
         nf, ny, nx = self.shape
         b = self.beam
-        return (f"<SkyMap {nf} frequencies, {ny}x{nx} pixels of {self.pixel_scale:.4g}, beam "
-                f"{b.major.to(u.arcsec):.4g} x {b.minor.to(u.arcsec):.4g} pa {b.pa.to(u.deg):.4g}>")
+        return (
+            f"<SkyMap {nf} frequencies, {ny}x{nx} pixels of {self.pixel_scale:.4g}, beam "
+            f"{b.major.to(u.arcsec):.4g} x {b.minor.to(u.arcsec):.4g} pa {b.pa.to(u.deg):.4g}>"
+        )

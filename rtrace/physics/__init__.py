@@ -9,6 +9,9 @@ from .gaunt import gaunt_factor
 from .planck import planck
 
 __all__ = [
-    "absorption_coefficient", "emission_coefficient", "gaunt_factor", "planck",
+    "absorption_coefficient",
+    "emission_coefficient",
+    "gaunt_factor",
+    "planck",
     "RELATIVISTIC_TEMPERATURE",
 ]

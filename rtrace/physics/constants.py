@@ -10,20 +10,30 @@ import astropy.constants as const
 import astropy.units as u
 
 __all__ = [
-    "C", "H", "K_B", "M_E", "E_CHARGE", "RYDBERG_ENERGY", "EULER_GAMMA", "PC",
-    "ALPHA_FF_PREFACTOR", "EMISSIVITY_FF_PREFACTOR", "H_OVER_K", "JANSKY",
+    "C",
+    "H",
+    "K_B",
+    "M_E",
+    "E_CHARGE",
+    "RYDBERG_ENERGY",
+    "EULER_GAMMA",
+    "PC",
+    "ALPHA_FF_PREFACTOR",
+    "EMISSIVITY_FF_PREFACTOR",
+    "H_OVER_K",
+    "JANSKY",
 ]
 
-C = const.c.cgs.value                 # cm s-1
-H = const.h.cgs.value                 # erg s
-K_B = const.k_B.cgs.value             # erg K-1
-M_E = const.m_e.cgs.value             # g
-E_CHARGE = const.e.gauss.value        # statcoulomb (Gaussian units)
-RYDBERG_ENERGY = (const.Ryd * const.h * const.c).cgs.value   # erg, 13.6057 eV (infinite nuclear mass)
-PC = u.pc.to(u.cm)                    # cm
-H_OVER_K = H / K_B                    # K s
+C = const.c.cgs.value  # cm s-1
+H = const.h.cgs.value  # erg s
+K_B = const.k_B.cgs.value  # erg K-1
+M_E = const.m_e.cgs.value  # g
+E_CHARGE = const.e.gauss.value  # statcoulomb (Gaussian units)
+RYDBERG_ENERGY = (const.Ryd * const.h * const.c).cgs.value  # erg, 13.6057 eV (infinite nuclear mass)
+PC = u.pc.to(u.cm)  # cm
+H_OVER_K = H / K_B  # K s
 EULER_GAMMA = 0.57721566490153286
-JANSKY = u.Jy.to(u.erg / (u.s * u.cm**2 * u.Hz))   # erg s-1 cm-2 Hz-1 per Jy, 1e-23 (definition of the jansky)
+JANSKY = u.Jy.to(u.erg / (u.s * u.cm**2 * u.Hz))  # erg s-1 cm-2 Hz-1 per Jy, 1e-23 (definition of the jansky)
 
 _THERMAL = math.sqrt(2.0 * math.pi / (3.0 * K_B * M_E))
 

@@ -27,10 +27,19 @@ from .constants import ALPHA_FF_PREFACTOR, E_CHARGE, EMISSIVITY_FF_PREFACTOR, H_
 from .gaunt import LOG_T_MAX, LOG_T_MIN, gaunt_cgs
 
 __all__ = [
-    "absorption_coefficient", "emission_coefficient",
-    "absorption_cgs", "emission_cgs", "check_temperature_range", "warn_relativistic",
-    "RELATIVISTIC_TEMPERATURE", "GAUNT_TABLE_RANGE", "plasma_frequency_cgs", "check_plasma_frequency",
-    "PLASMA_MARGIN", "helium3_share", "RELATIVISTIC_CORRECTION",
+    "absorption_coefficient",
+    "emission_coefficient",
+    "absorption_cgs",
+    "emission_cgs",
+    "check_temperature_range",
+    "warn_relativistic",
+    "RELATIVISTIC_TEMPERATURE",
+    "GAUNT_TABLE_RANGE",
+    "plasma_frequency_cgs",
+    "check_plasma_frequency",
+    "PLASMA_MARGIN",
+    "helium3_share",
+    "RELATIVISTIC_CORRECTION",
 ]
 
 #: Temperature (K) from which a warning says that relativistic corrections and electron-electron
@@ -72,10 +81,13 @@ def check_temperature_range(temperature_k, what="temperature"):
             parts.append(f"{n_cold} below {lo:.3g} K (lowest {float(t.min()):.3g} K)")
         if n_hot:
             parts.append(f"{n_hot} above {hi:.3g} K (highest {float(t.max()):.3g} K)")
-        warn_user(f"{what}: {n_cold + n_hot} of {t.size} cell(s) lie outside the Gaunt factor table "
-                  f"({lo:.3g} K to {hi:.3g} K): {'; '.join(parts)}. The tracer uses the Gaunt factor at the "
-                  "table's edge there, so their optical depth and emission are approximate (off by several "
-                  "percent a decade beyond the edge)", GauntRangeWarning)
+        warn_user(
+            f"{what}: {n_cold + n_hot} of {t.size} cell(s) lie outside the Gaunt factor table "
+            f"({lo:.3g} K to {hi:.3g} K): {'; '.join(parts)}. The tracer uses the Gaunt factor at the "
+            "table's edge there, so their optical depth and emission are approximate (off by several "
+            "percent a decade beyond the edge)",
+            GauntRangeWarning,
+        )
 
 
 def plasma_frequency_cgs(ne):
@@ -125,8 +137,9 @@ def check_plasma_frequency(nu, densities=(), largest=None):
     near = _density_at_plasma_frequency(nu_min / PLASMA_MARGIN)
     below = _density_at_plasma_frequency(nu_min)
     arrays = [np.asarray(a) for a in densities]
-    top = max([float(a.max()) for a in arrays if a.size] + ([float(largest)] if largest is not None else []),
-              default=0.0)
+    top = max(
+        [float(a.max()) for a in arrays if a.size] + ([float(largest)] if largest is not None else []), default=0.0
+    )
     if not top >= near:
         return 0
     nu_p = float(plasma_frequency_cgs(top))
@@ -134,15 +147,19 @@ def check_plasma_frequency(nu, densities=(), largest=None):
         total = sum(a.size for a in arrays)
         n_near = sum(int(np.count_nonzero(a >= near)) for a in arrays)
         n_below = sum(int(np.count_nonzero(a >= below)) for a in arrays)
-        where = (f"{n_below} of {total} cells have a plasma frequency at or above it and {n_near} lie within a "
-                 f"factor {PLASMA_MARGIN:g} of it")
+        where = (
+            f"{n_below} of {total} cells have a plasma frequency at or above it and {n_near} lie within a "
+            f"factor {PLASMA_MARGIN:g} of it"
+        )
     else:
         n_below = 0
         where = "cells of the snapshot (not counted: file-backed) reach it"
-    warn_user(f"frequencies: the lowest traced frequency, {nu_min:.4g} Hz, is near or below the local plasma "
-              f"frequency nu_p = 8.98 kHz sqrt(n_e / cm^-3): {where} (highest nu_p {nu_p:.4g} Hz, where n_e = "
-              f"{top:.4g} cm^-3). Radiation below nu_p does not propagate and near it is refracted; the "
-              "free-free transfer traced there is not meaningful")
+    warn_user(
+        f"frequencies: the lowest traced frequency, {nu_min:.4g} Hz, is near or below the local plasma "
+        f"frequency nu_p = 8.98 kHz sqrt(n_e / cm^-3): {where} (highest nu_p {nu_p:.4g} Hz, where n_e = "
+        f"{top:.4g} cm^-3). Radiation below nu_p does not propagate and near it is refracted; the "
+        "free-free transfer traced there is not meaningful"
+    )
     return n_below
 
 
@@ -156,11 +173,14 @@ def warn_relativistic(n_hot, what="temperature", hottest=None):
         at = ""
         if hottest is not None and math.isfinite(hottest):
             at = f"; about {100 * RELATIVISTIC_CORRECTION * hottest:.2g}% at the hottest cell ({hottest:.3g} K)"
-        warn_user(f"{what}: {n_hot} cell(s) at or above {RELATIVISTIC_TEMPERATURE:.0e} K, where relativistic "
-                  "corrections and electron-electron bremsstrahlung, both neglected here, change the free-free "
-                  f"emission by about {100 * RELATIVISTIC_CORRECTION * RELATIVISTIC_TEMPERATURE:.0f}% at 1e8 K and "
-                  f"{100 * RELATIVISTIC_CORRECTION * 1e9:.0f}% at 1e9 K (the factor 1 + 4.4e-10 T/K of the "
-                  f"frequency-integrated emission, from memory){at}", RelativisticWarning)
+        warn_user(
+            f"{what}: {n_hot} cell(s) at or above {RELATIVISTIC_TEMPERATURE:.0e} K, where relativistic "
+            "corrections and electron-electron bremsstrahlung, both neglected here, change the free-free "
+            f"emission by about {100 * RELATIVISTIC_CORRECTION * RELATIVISTIC_TEMPERATURE:.0f}% at 1e8 K and "
+            f"{100 * RELATIVISTIC_CORRECTION * 1e9:.0f}% at 1e9 K (the factor 1 + 4.4e-10 T/K of the "
+            f"frequency-integrated emission, from memory){at}",
+            RelativisticWarning,
+        )
 
 
 def helium3_share(ne, ni):
@@ -196,8 +216,14 @@ def absorption_cgs(nu, temperature, ne, ni):
     nu = np.asarray(nu, float)
     t = np.asarray(temperature, float)
     x = H_OVER_K * nu / t
-    return (ALPHA_FF_PREFACTOR * np.asarray(ne, float) * np.asarray(ni, float)
-            / (np.sqrt(t) * nu**3) * -np.expm1(-x) * _mixed_gaunt(nu, t, ne, ni))
+    return (
+        ALPHA_FF_PREFACTOR
+        * np.asarray(ne, float)
+        * np.asarray(ni, float)
+        / (np.sqrt(t) * nu**3)
+        * -np.expm1(-x)
+        * _mixed_gaunt(nu, t, ne, ni)
+    )
 
 
 def emission_cgs(nu, temperature, ne, ni):
@@ -209,8 +235,15 @@ def emission_cgs(nu, temperature, ne, ni):
     nu = np.asarray(nu, float)
     t = np.asarray(temperature, float)
     x = H_OVER_K * nu / t
-    return (EMISSIVITY_FF_PREFACTOR / (4.0 * np.pi) * np.asarray(ne, float) * np.asarray(ni, float)
-            / np.sqrt(t) * np.exp(-x) * _mixed_gaunt(nu, t, ne, ni))
+    return (
+        EMISSIVITY_FF_PREFACTOR
+        / (4.0 * np.pi)
+        * np.asarray(ne, float)
+        * np.asarray(ni, float)
+        / np.sqrt(t)
+        * np.exp(-x)
+        * _mixed_gaunt(nu, t, ne, ni)
+    )
 
 
 def _checked(value, unit, name, positive, equivalencies=None):
@@ -235,7 +268,7 @@ def _inputs(frequency, temperature, electron_density, ion_density):
     ne = _checked(electron_density, u.cm**-3, "electron_density", False)
     ni = ne if ion_density is None else _checked(ion_density, u.cm**-3, "ion_density", False)
     n_hot = int(np.count_nonzero(t >= RELATIVISTIC_TEMPERATURE))
-    warn_relativistic(n_hot, hottest=float(t.max()) if n_hot else None)   # no table here: no table warning
+    warn_relativistic(n_hot, hottest=float(t.max()) if n_hot else None)  # no table here: no table warning
     return nu, t, ne, ni
 
 

@@ -55,18 +55,28 @@ from ..errors import InputError
 from .constants import EULER_GAMMA, H_OVER_K, K_B, RYDBERG_ENERGY
 
 __all__ = [
-    "gaunt_factor", "gaunt_cgs", "analytic_gaunt", "exact_table_range", "EXACT_TABLE", "born_thermal",
+    "gaunt_factor",
+    "gaunt_cgs",
+    "analytic_gaunt",
+    "exact_table_range",
+    "EXACT_TABLE",
+    "born_thermal",
     "coulomb_correction",
-    "classical_correction", "classical_radio_gaunt", "born_radio_gaunt",
-    "log_temperature_table", "LOG_T_MIN", "LOG_T_MAX", "CHARGES",
+    "classical_correction",
+    "classical_radio_gaunt",
+    "born_radio_gaunt",
+    "log_temperature_table",
+    "LOG_T_MIN",
+    "LOG_T_MAX",
+    "CHARGES",
 ]
 
 SQRT3_PI = math.sqrt(3.0) / math.pi
-RY_OVER_K = RYDBERG_ENERGY / K_B          # 1.5789e5 K
+RY_OVER_K = RYDBERG_ENERGY / K_B  # 1.5789e5 K
 
 # Temperature range of the per-frequency lookup tables used by the kernels.
-LOG_T_MIN = math.log(1.0)                  # 1 K
-LOG_T_MAX = math.log(1.0e10)               # 1e10 K, beyond the non-relativistic range
+LOG_T_MIN = math.log(1.0)  # 1 K
+LOG_T_MAX = math.log(1.0e10)  # 1e10 K, beyond the non-relativistic range
 #: Ion charges the Gaunt factor is provided for: H II and He II (1), He III (2).
 CHARGES = (1, 2)
 
@@ -208,7 +218,7 @@ def gaunt_cgs(nu, temperature, charge=1):
     outside = (lu != lu_c) | (lg != lg_c)
     if np.any(outside):
         o = outside
-        g[o] += (analytic_gaunt(10.0 ** lu[o], 10.0 ** lg[o]) - analytic_gaunt(10.0 ** lu_c[o], 10.0 ** lg_c[o]))
+        g[o] += analytic_gaunt(10.0 ** lu[o], 10.0 ** lg[o]) - analytic_gaunt(10.0 ** lu_c[o], 10.0 ** lg_c[o])
     return g.reshape(shape)
 
 
@@ -220,8 +230,10 @@ def _as_cgs(value, unit, equivalencies):
 
 def _check_charge(charge):
     if isinstance(charge, (bool, np.bool_)) or charge not in CHARGES:
-        raise InputError(f"charge: the Gaunt factor is provided for ion charges {CHARGES} "
-                         f"(H II and He II: 1, He III: 2), got {charge!r}")
+        raise InputError(
+            f"charge: the Gaunt factor is provided for ion charges {CHARGES} "
+            f"(H II and He II: 1, He III: 2), got {charge!r}"
+        )
     return int(charge)
 
 
@@ -267,6 +279,7 @@ def classical_radio_gaunt(nu, temperature, Z=1):
     ``h nu << kT`` and ``T << 1.6e5 Z^2 K``. ``nu`` in Hz, ``temperature`` in K.
     """
     from .constants import E_CHARGE, M_E
+
     t = np.asarray(temperature, float)
     arg = (2.0 * K_B * t) ** 1.5 / (math.pi * Z * E_CHARGE**2 * np.asarray(nu, float) * math.sqrt(M_E))
     return SQRT3_PI * (np.log(arg) - 2.5 * EULER_GAMMA)

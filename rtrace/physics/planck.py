@@ -14,9 +14,16 @@ import numpy as np
 
 from .constants import H_OVER_K, C, H
 
-__all__ = ["planck", "planck_cgs", "planck_scalar", "inverse_planck_cgs", "one_minus_exp",
-           "one_minus_exp_series", "inverse_expm1",
-           "SERIES_LIMIT"]
+__all__ = [
+    "planck",
+    "planck_cgs",
+    "planck_scalar",
+    "inverse_planck_cgs",
+    "one_minus_exp",
+    "one_minus_exp_series",
+    "inverse_expm1",
+    "SERIES_LIMIT",
+]
 
 # Below this argument the Taylor series in ``one_minus_exp`` and ``inverse_expm1`` are exact to
 # double precision (the first omitted terms are < 1e-14 relative).
@@ -43,6 +50,7 @@ def inverse_expm1(x):
     if x < SERIES_LIMIT:
         return 1.0 / x - 0.5 + x * (1.0 / 12.0 - x * x * (1.0 / 720.0))
     return math.exp(-x) / -math.expm1(-x)
+
 
 _INTENSITY = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
 

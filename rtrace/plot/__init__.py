@@ -29,6 +29,19 @@ from .depth import plot_tau_unity
 from .maps import PER_PANEL_RATIO, plot_map, plot_panels
 from .spectra import plot_sed
 
-__all__ = ["plot_map", "plot_panels", "plot_sed", "plot_tau_unity", "plot_cut", "plot_comparison", "QUANTITIES",
-           "STRETCHES", "nice_length", "choose_scale_bar", "frequency_labels", "DEFAULT_SNR_THRESHOLD",
-           "PER_PANEL_RATIO", "BEAM_DRAW_LIMIT"]
+__all__ = [
+    "plot_map",
+    "plot_panels",
+    "plot_sed",
+    "plot_tau_unity",
+    "plot_cut",
+    "plot_comparison",
+    "QUANTITIES",
+    "STRETCHES",
+    "nice_length",
+    "choose_scale_bar",
+    "frequency_labels",
+    "DEFAULT_SNR_THRESHOLD",
+    "PER_PANEL_RATIO",
+    "BEAM_DRAW_LIMIT",
+]

@@ -23,7 +23,7 @@ from .core import STYLE, Plane, check_stretch, colorbar, make_norm, new_figure, 
 
 __all__ = ["plot_comparison"]
 
-_BLANK = "0.75"          # colour of pixels outside the common footprint
+_BLANK = "0.75"  # colour of pixels outside the common footprint
 
 
 def _sky_directions(wcs, shape):
@@ -53,15 +53,34 @@ def _beam_patch(ax, beam, wcs, shape, scale_arcsec, face):
     pad = 0.06 * max(nx, ny) + major / 2
     # lower left on screen: the east side (x axis is flipped when east points to +x)
     x = -0.5 + pad if east[0] < 0 else nx - 0.5 - pad
-    ellipse = Ellipse((x, -0.5 + pad), width=major, height=minor, angle=angle, facecolor=face,
-                      edgecolor="black", linewidth=0.8, alpha=0.85, zorder=5)
+    ellipse = Ellipse(
+        (x, -0.5 + pad),
+        width=major,
+        height=minor,
+        angle=angle,
+        facecolor=face,
+        edgecolor="black",
+        linewidth=0.8,
+        alpha=0.85,
+        zorder=5,
+    )
     ellipse.set_gid("beam")
     ax.add_patch(ellipse)
 
 
 def _plane(values, label, comparison, unit):
-    return Plane(values=values, quantity="intensity", label=label, tag="", unit=unit, per=u.beam,
-                  pixel_scale=comparison.pixel_scale, distance=None, pixel_size=None, beam=comparison.beam)
+    return Plane(
+        values=values,
+        quantity="intensity",
+        label=label,
+        tag="",
+        unit=unit,
+        per=u.beam,
+        pixel_scale=comparison.pixel_scale,
+        distance=None,
+        pixel_size=None,
+        beam=comparison.beam,
+    )
 
 
 def plot_comparison(comparison, path=None, *, stretch="asinh", cmap=None, residual_cmap="RdBu_r", title=None):
@@ -104,8 +123,9 @@ def plot_comparison(comparison, path=None, *, stretch="asinh", cmap=None, residu
     if residual_cmap is None:
         residual_cmap = "RdBu_r"
     try:
-        rcmap = (residual_cmap if isinstance(residual_cmap, colors.Colormap)
-                 else matplotlib.colormaps[residual_cmap]).with_extremes(bad=_BLANK)
+        rcmap = (
+            residual_cmap if isinstance(residual_cmap, colors.Colormap) else matplotlib.colormaps[residual_cmap]
+        ).with_extremes(bad=_BLANK)
     except KeyError:
         raise InputError(f"residual_cmap: unknown colour map {residual_cmap!r}") from None
     scmap = resolve_cmap(cmap, "intensity").with_extremes(bad=_BLANK)
@@ -118,14 +138,18 @@ def plot_comparison(comparison, path=None, *, stretch="asinh", cmap=None, residu
         fig = new_figure((14.0, 4.6))
         norm = make_norm([p_obs, p_mod], stretch)
         rnorm = colors.Normalize(vmin=-half, vmax=half)
-        panels = ((p_obs, norm, scmap, "observation"), (p_mod, norm, scmap, "model"),
-                  (p_res, rnorm, rcmap, "residual (observation \N{MINUS SIGN} model)"))
+        panels = (
+            (p_obs, norm, scmap, "observation"),
+            (p_mod, norm, scmap, "model"),
+            (p_res, rnorm, rcmap, "residual (observation \N{MINUS SIGN} model)"),
+        )
         axes, images = [], []
         for k, (plane, nrm, cm, name) in enumerate(panels):
             ax = fig.add_subplot(1, 3, k + 1, projection=comparison.wcs)
-            image = ax.imshow(np.ma.masked_invalid(plane.values), origin="lower", norm=nrm, cmap=cm,
-                              interpolation="nearest")
-            if east[0] > 0:                  # east toward +column: flip so that east is on the left
+            image = ax.imshow(
+                np.ma.masked_invalid(plane.values), origin="lower", norm=nrm, cmap=cm, interpolation="nearest"
+            )
+            if east[0] > 0:  # east toward +column: flip so that east is on the left
                 ax.set_xlim(nx - 0.5, -0.5)
             else:
                 ax.set_xlim(-0.5, nx - 0.5)
@@ -138,8 +162,7 @@ def plot_comparison(comparison, path=None, *, stretch="asinh", cmap=None, residu
             dec.set_axislabel("declination" if k == 0 else " ")
             if k > 0:
                 dec.set_ticklabel_visible(False)
-            _beam_patch(ax, comparison.beam, comparison.wcs, shape, scale,
-                        face="white" if k < 2 else "0.35")
+            _beam_patch(ax, comparison.beam, comparison.wcs, shape, scale, face="white" if k < 2 else "0.35")
             axes.append(ax)
             images.append(image)
         # one colour bar for observation and model (a matched scale), one for the residual
@@ -148,8 +171,7 @@ def plot_comparison(comparison, path=None, *, stretch="asinh", cmap=None, residu
         cbar.set_label(p_res.label)
         nu = comparison.frequency.to_value(u.GHz)
         if title is None:
-            title = (f"{nu:.4g} GHz: model / observed flux = {comparison.flux_ratio:.3f} over the common "
-                     "footprint")
+            title = f"{nu:.4g} GHz: model / observed flux = {comparison.flux_ratio:.3f} over the common footprint"
         fig.suptitle(title)
     # outside the style context, as the figure was always saved: at the figure's own dpi
     save(fig, path)

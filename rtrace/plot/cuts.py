@@ -34,7 +34,7 @@ def plot_cut(cut, path=None, frequencies=None):
     thin = cut.unabsorbed_intensity.value
     for k in idx:
         nu = float(cut.frequencies[k].to_value(u.Hz))
-        line, = ax_i.plot(x, full[k], label=f"{format_frequency(nu)}")
+        (line,) = ax_i.plot(x, full[k], label=f"{format_frequency(nu)}")
         ax_i.plot(x, thin[k], ls="--", color=line.get_color())
         ax_t.plot(x, cut.tau[k], color=line.get_color())
     if np.any(full[list(idx)] > 0):
@@ -42,8 +42,9 @@ def plot_cut(cut, path=None, frequencies=None):
         ax_t.set_yscale("log")
     ax_t.axhline(1.0, color="0.4", lw=0.8, ls=":")
     ax_i.set_ylabel(r"$I_\nu$ (erg s$^{-1}$ cm$^{-2}$ Hz$^{-1}$ sr$^{-1}$)")
-    ax_i.set_title("solid: with absorption, dashed: emission only\n"
-                   f"background {cut.describe_background()}", fontsize="small")
+    ax_i.set_title(
+        f"solid: with absorption, dashed: emission only\nbackground {cut.describe_background()}", fontsize="small"
+    )
     ax_i.legend(fontsize="small")
     ax_t.set_ylabel(r"$\tau_\nu$")
     ax_t.set_xlabel("offset along the cut (arcsec)")

@@ -31,8 +31,7 @@ __all__ = ["plot_tau_unity"]
 _BELOW_COLOUR, _ABOVE_COLOUR, _NO_GAS_COLOUR = "0.1", "#d0312d", "0.85"
 
 
-def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=None, vmax=None,
-                   scale_bar=None):
+def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=None, vmax=None, scale_bar=None):
     """Map of the frequency at which each line of sight turns from optically thick to thin.
 
     One picture in place of a panel of optical-depth maps that all look alike
@@ -87,19 +86,28 @@ def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=
     order = np.argsort(nu)
     no_gas = np.all(tau <= 0, axis=0)
     missing = ~np.isfinite(ghz) & ~no_gas
-    above = missing & (tau[order[-1]] >= 1.0)          # thick even at the highest frequency
-    below = missing & ~above                             # thin even at the lowest
+    above = missing & (tau[order[-1]] >= 1.0)  # thick even at the highest frequency
+    below = missing & ~above  # thin even at the lowest
     scale, distance, size = geometry(result)
-    plane = Plane(ghz, quantity="tau", label=r"frequency where $\tau$ = 1 (GHz)", tag="",
-                   unit=u.GHz, per=None, pixel_scale=scale, distance=distance, pixel_size=size)
+    plane = Plane(
+        ghz,
+        quantity="tau",
+        label=r"frequency where $\tau$ = 1 (GHz)",
+        tag="",
+        unit=u.GHz,
+        per=None,
+        pixel_scale=scale,
+        distance=distance,
+        pixel_size=size,
+    )
     lo = nu.min() / 1e9 if vmin is None else limit(vmin, plane, "vmin")
     hi = nu.max() / 1e9 if vmax is None else limit(vmax, plane, "vmax")
     if not (lo > 0 and hi > lo):
         raise InputError(f"vmax: the frequency scale needs 0 < vmin < vmax, got {lo:g} and {hi:g} GHz")
     norm = colors.LogNorm(vmin=lo, vmax=hi)
     values = np.clip(ghz, lo, hi)
-    values[below] = lo / 10.0                 # under: drawn in the "below" colour
-    values[above] = hi * 10.0                 # over: drawn in the "above" colour
+    values[below] = lo / 10.0  # under: drawn in the "below" colour
+    values[above] = hi * 10.0  # over: drawn in the "above" colour
     values[no_gas] = np.nan
     plane.values = values
     base = matplotlib.colormaps[cmap] if isinstance(cmap, str) else cmap
@@ -110,34 +118,47 @@ def plot_tau_unity(obj, path=None, *, ax=None, cmap="cividis", title=None, vmin=
         own = ax is None
         if own:
             width, height = map_figsize(ghz.shape)
-            fig = new_figure((width, height + 0.6))          # room for the legend below
+            fig = new_figure((width, height + 0.6))  # room for the legend below
             ax = fig.add_subplot()
         else:
             fig = ax.figure
         subject = subject_line(result) if title is None else ""
         if title is None:
             whole_ghz = whole.to_value(u.GHz)
-            title = (r"Frequency where $\tau$ = 1" + (f" (whole source: {frequency_labels(whole)[0]})"
-                                                       if np.isfinite(whole_ghz) else ""))
+            title = r"Frequency where $\tau$ = 1" + (
+                f" (whole source: {frequency_labels(whole)[0]})" if np.isfinite(whole_ghz) else ""
+            )
         image = draw_plane(ax, plane, norm, cmap_obj, contours=None, scale_bar=scale_bar, title=title)
         cbar = fig.colorbar(image, ax=ax, extend="both")
         cbar.set_label(plane.label)
         cbar.ax.yaxis.set_major_formatter(ticker.FuncFormatter(tick_text))
-        cbar.ax.yaxis.set_minor_formatter(ticker.FuncFormatter(two_five) if hi / lo < 300
-                                          else ticker.NullFormatter())
+        cbar.ax.yaxis.set_minor_formatter(ticker.FuncFormatter(two_five) if hi / lo < 300 else ticker.NullFormatter())
         lo_txt, hi_txt = frequency_labels([lo, hi] * u.GHz)
         handles = []
         if below.any():
-            handles.append(Patch(facecolor=_BELOW_COLOUR, edgecolor="0.4",
-                                 label=f"below the traced range (thin at {lo_txt} and above)"))
+            handles.append(
+                Patch(
+                    facecolor=_BELOW_COLOUR,
+                    edgecolor="0.4",
+                    label=f"below the traced range (thin at {lo_txt} and above)",
+                )
+            )
         if above.any():
-            handles.append(Patch(facecolor=_ABOVE_COLOUR, edgecolor="0.4",
-                                 label=f"above the traced range (thick at {hi_txt} and below)"))
+            handles.append(
+                Patch(
+                    facecolor=_ABOVE_COLOUR,
+                    edgecolor="0.4",
+                    label=f"above the traced range (thick at {hi_txt} and below)",
+                )
+            )
         if no_gas.any():
             handles.append(Patch(facecolor=_NO_GAS_COLOUR, edgecolor="0.4", label="no absorbing gas"))
         if handles:
-            legend = (fig.legend(handles=handles, loc="outside lower center", frameon=False, fontsize=8)
-                      if own else ax.legend(handles=handles, loc="lower left", fontsize=7))
+            legend = (
+                fig.legend(handles=handles, loc="outside lower center", frameon=False, fontsize=8)
+                if own
+                else ax.legend(handles=handles, loc="lower left", fontsize=7)
+            )
             legend.set_gid("categories")
         if own and subject:
             fig.suptitle(subject, fontsize=8, color="0.3")

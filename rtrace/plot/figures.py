@@ -13,9 +13,19 @@ from ..errors import InputError
 __all__ = ["STYLE", "new_figure", "save", "map_figsize"]
 
 # Readable at the sizes these figures are made (about 5 inches wide), whatever the user's rcParams.
-STYLE = {"font.size": 10, "axes.titlesize": 11, "axes.labelsize": 10, "xtick.labelsize": 9,
-         "ytick.labelsize": 9, "legend.fontsize": 9, "figure.titlesize": 12, "savefig.dpi": 150,
-         "figure.dpi": 100, "image.interpolation": "nearest", "axes.linewidth": 0.8}
+STYLE = {
+    "font.size": 10,
+    "axes.titlesize": 11,
+    "axes.labelsize": 10,
+    "xtick.labelsize": 9,
+    "ytick.labelsize": 9,
+    "legend.fontsize": 9,
+    "figure.titlesize": 12,
+    "savefig.dpi": 150,
+    "figure.dpi": 100,
+    "image.interpolation": "nearest",
+    "axes.linewidth": 0.8,
+}
 
 
 def map_figsize(shape):
@@ -46,8 +56,9 @@ def save(fig, path):
     fmt = suffix[1:].lower() if suffix else "png"
     supported = fig.canvas.get_supported_filetypes()
     if fmt not in supported:
-        raise InputError(f"path: matplotlib cannot write '.{fmt}' files; use one of "
-                         f"{', '.join('.' + k for k in sorted(supported))}")
+        raise InputError(
+            f"path: matplotlib cannot write '.{fmt}' files; use one of {', '.join('.' + k for k in sorted(supported))}"
+        )
     with atomic_path(path) as tmp:
         fig.savefig(tmp, format=fmt)
 

@@ -34,8 +34,21 @@ __all__ = ["plot_map", "plot_panels", "PER_PANEL_RATIO"]
 PER_PANEL_RATIO = 10.0
 
 
-def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", contours=None, scale_bar=None,
-             path=None, ax=None, cmap=None, title=None, vmin=None, vmax=None):
+def plot_map(
+    obj,
+    quantity="intensity",
+    frequency=None,
+    *,
+    stretch="asinh",
+    contours=None,
+    scale_bar=None,
+    path=None,
+    ax=None,
+    cmap=None,
+    title=None,
+    vmin=None,
+    vmax=None,
+):
     """Draw one image of a Result or SkyMap.
 
     Parameters
@@ -121,7 +134,7 @@ def plot_map(obj, quantity="intensity", frequency=None, *, stretch="asinh", cont
 def _panel_selection(obj, quantity, frequencies):
     n = len(u.Quantity(obj.frequencies))
     if quantity == "emission_measure":
-        return [None]                         # the same at every frequency: one panel
+        return [None]  # the same at every frequency: one panel
     if frequencies is None:
         chosen = list(range(n))
     elif isinstance(frequencies, u.Quantity):
@@ -130,8 +143,9 @@ def _panel_selection(obj, quantity, frequencies):
         try:
             chosen = list(frequencies)
         except TypeError:
-            raise InputError(f"frequencies: expected a sequence of frequencies or indices, "
-                             f"got {frequencies!r}") from None
+            raise InputError(
+                f"frequencies: expected a sequence of frequencies or indices, got {frequencies!r}"
+            ) from None
     if not chosen:
         raise InputError("frequencies: selects no plane")
     if quantity == "spectral_index":
@@ -143,9 +157,22 @@ def _panel_selection(obj, quantity, frequencies):
     return chosen
 
 
-def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, shared_scale=None,
-                stretch="asinh", contours=None, scale_bar=None, cmap=None, title=None, ncols=None,
-                vmin=None, vmax=None):
+def plot_panels(
+    obj,
+    quantity="intensity",
+    frequencies=None,
+    path=None,
+    *,
+    shared_scale=None,
+    stretch="asinh",
+    contours=None,
+    scale_bar=None,
+    cmap=None,
+    title=None,
+    ncols=None,
+    vmin=None,
+    vmax=None,
+):
     """One map per frequency on a grid.
 
     Parameters
@@ -212,8 +239,16 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
         image = None
         for k, (ax, plane) in enumerate(zip(axes, planes, strict=True)):
             norm = shared if shared_scale else make_norm([plane], stretch, *limits[k])
-            image = draw_plane(ax, plane, norm, cmap_obj, contours=contours,
-                          scale_bar=scale_bar if k == 0 else False, title=plane.tag or None, show_note=False)
+            image = draw_plane(
+                ax,
+                plane,
+                norm,
+                cmap_obj,
+                contours=contours,
+                scale_bar=scale_bar if k == 0 else False,
+                title=plane.tag or None,
+                show_note=False,
+            )
             # one x and one y label for the whole grid (below); tick labels on the bottom
             # panel of every column and the first panel of every row
             xlabel, ylabel = ax.get_xlabel(), ax.get_ylabel()
@@ -224,7 +259,7 @@ def plot_panels(obj, quantity="intensity", frequencies=None, path=None, *, share
             if not shared_scale:
                 cbar = colorbar(fig, image, ax, plane, norm, [plane], shrink=0.9)
                 if k % ncols != ncols - 1 and k != n - 1:
-                    cbar.set_label("")          # one label per row, on its last colour bar
+                    cbar.set_label("")  # one label per row, on its last colour bar
         if shared_scale:
             colorbar(fig, image, list(axes), planes[0], shared, planes, shrink=0.9 if nrows > 1 else 1.0)
         fig.supxlabel(xlabel, fontsize=STYLE["axes.labelsize"])
@@ -244,8 +279,7 @@ def _default_columns(n):
     if n <= 3:
         return n
     widest = 4 if n <= 8 else math.ceil(math.sqrt(n)) + 1
-    best = min(range(2, widest + 1),
-               key=lambda c: (c * math.ceil(n / c) - n, abs(c - math.ceil(n / c) - 0.5), -c))
+    best = min(range(2, widest + 1), key=lambda c: (c * math.ceil(n / c) - n, abs(c - math.ceil(n / c) - 0.5), -c))
     return best
 
 

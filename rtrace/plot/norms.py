@@ -23,8 +23,13 @@ _MIN_INDEX_HALF_RANGE = 0.05
 
 # Perceptually uniform sequential maps, one per quantity so figures are recognisable;
 # a diverging map for the spectral index, white at the optically thin value.
-_CMAPS = {"intensity": "inferno", "tau": "viridis", "emission_measure": "magma",
-          "brightness_temperature": "plasma", "spectral_index": "RdBu_r"}
+_CMAPS = {
+    "intensity": "inferno",
+    "tau": "viridis",
+    "emission_measure": "magma",
+    "brightness_temperature": "plasma",
+    "spectral_index": "RdBu_r",
+}
 
 # The log stretch shows at most this dynamic range below the peak; fainter values take the
 # lowest colour (a wider range spends most of the colour map on numerical dust).
@@ -93,7 +98,7 @@ def make_norm(planes, stretch, vmin=None, vmax=None):
     if hi <= low:
         if vmax is not None:
             raise InputError(f"vmax: {vmax:g} lies below the lower end of the colour scale ({low:g})")
-        hi = low + 1.0             # a constant image still gets a valid scale
+        hi = low + 1.0  # a constant image still gets a valid scale
     noises = [p.noise for p in planes if p.noise is not None]
     if stretch == "linear":
         return colors.Normalize(vmin=low, vmax=hi)
@@ -148,8 +153,7 @@ def _extend(norm, planes):
     if vals.size == 0:
         return "neither"
     low, high = bool(vals.min() < norm.vmin), bool(vals.max() > norm.vmax)
-    return {(False, False): "neither", (True, False): "min", (False, True): "max", (True, True): "both"}[
-        (low, high)]
+    return {(False, False): "neither", (True, False): "min", (False, True): "max", (True, True): "both"}[(low, high)]
 
 
 def _asinh_ticks(norm, min_gap=0.08):
@@ -195,4 +199,3 @@ def colorbar(fig, image, ax, plane, norm, planes, **kw):
         axis.set_major_formatter(ticker.FuncFormatter(tick_text))
         axis.set_minor_formatter(ticker.NullFormatter())
     return cbar
-

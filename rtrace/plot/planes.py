@@ -14,32 +14,48 @@ from ..errors import InputError
 from ..quantities import finite_number
 from .text import angle_text, frequency_labels, prefix_for
 
-__all__ = ["QUANTITIES", "NAMES", "Plane", "plane_of", "subject_line", "check_image", "check_quantity", "geometry",
-           "is_pair", "limit", "common_prefix"]
+__all__ = [
+    "QUANTITIES",
+    "NAMES",
+    "Plane",
+    "plane_of",
+    "subject_line",
+    "check_image",
+    "check_quantity",
+    "geometry",
+    "is_pair",
+    "limit",
+    "common_prefix",
+]
 
 QUANTITIES = ("intensity", "tau", "emission_measure", "brightness_temperature", "spectral_index")
 
 # the quantities' names in titles
-NAMES = {"intensity": "Intensity", "tau": "Optical depth", "emission_measure": "Emission measure",
-         "brightness_temperature": "Brightness temperature", "spectral_index": "Spectral index"}
+NAMES = {
+    "intensity": "Intensity",
+    "tau": "Optical depth",
+    "emission_measure": "Emission measure",
+    "brightness_temperature": "Brightness temperature",
+    "spectral_index": "Spectral index",
+}
 
 
 @dataclass
 class Plane:
     """One 2-D image ready to draw, in its plotted unit."""
 
-    values: np.ndarray              # (ny, nx)
+    values: np.ndarray  # (ny, nx)
     quantity: str
-    label: str                      # colour-bar label with unit
-    tag: str                        # frequency description, e.g. "1 GHz"
-    unit: object                    # astropy unit of ``values`` (for contour levels given as Quantities)
-    per: object                     # u.pix or u.beam for fluxes, else None
-    pixel_scale: u.Quantity         # angle
-    distance: object                # Quantity or None
-    pixel_size: object              # Quantity or None
-    beam: object = None             # radio_beam.Beam or None
-    noise: object = None            # rms in the plotted unit, or None
-    note: str = ""                  # what blank pixels mean, written on the map
+    label: str  # colour-bar label with unit
+    tag: str  # frequency description, e.g. "1 GHz"
+    unit: object  # astropy unit of ``values`` (for contour levels given as Quantities)
+    per: object  # u.pix or u.beam for fluxes, else None
+    pixel_scale: u.Quantity  # angle
+    distance: object  # Quantity or None
+    pixel_size: object  # Quantity or None
+    beam: object = None  # radio_beam.Beam or None
+    noise: object = None  # rms in the plotted unit, or None
+    note: str = ""  # what blank pixels mean, written on the map
 
 
 def subject_line(obj):
@@ -71,6 +87,7 @@ def check_image(obj):
 
 
 # --- what to draw --------------------------------------------------------------------------------
+
 
 def geometry(obj):
     """``(pixel_scale, distance, pixel_size)`` of a Result or SkyMap (distance and size may be None)."""
@@ -133,8 +150,15 @@ def plane_of(obj, quantity, frequency):
         if alpha.smoothed:
             b = alpha.beam
             tag += f"\nbeams matched: {angle_text(b.major)}\N{MULTIPLICATION SIGN}{angle_text(b.minor)}"
-        plane = Plane(np.asarray(alpha), label=r"spectral index $\alpha$", tag=tag, unit=u.dimensionless_unscaled,
-                       per=None, beam=alpha.beam, **common)
+        plane = Plane(
+            np.asarray(alpha),
+            label=r"spectral index $\alpha$",
+            tag=tag,
+            unit=u.dimensionless_unscaled,
+            per=None,
+            beam=alpha.beam,
+            **common,
+        )
         reason = alpha.masking.replace("blank where ", "")
         plane.note = ("grey: " if np.isfinite(alpha).any() else "every pixel blank: ") + reason
         return plane
@@ -151,19 +175,35 @@ def plane_of(obj, quantity, frequency):
         peak = np.nanmax(np.abs(values)) if np.isfinite(values).any() else 1.0
         factor, prefix = prefix_for(peak)
         noise = _noise(obj, index)
-        return Plane(values / factor, label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$){_background_note(obj)}",
-                      tag=tag,
-                      unit=factor * u.Jy / per, per=per, beam=_beam(obj, index),
-                      noise=None if noise is None else noise / factor, **common)
+        return Plane(
+            values / factor,
+            label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$){_background_note(obj)}",
+            tag=tag,
+            unit=factor * u.Jy / per,
+            per=per,
+            beam=_beam(obj, index),
+            noise=None if noise is None else noise / factor,
+            **common,
+        )
     if quantity == "tau":
-        return Plane(np.asarray(obj.tau[index], float), label=r"optical depth $\tau$", tag=tag,
-                      unit=u.dimensionless_unscaled, per=None, **common)
+        return Plane(
+            np.asarray(obj.tau[index], float),
+            label=r"optical depth $\tau$",
+            tag=tag,
+            unit=u.dimensionless_unscaled,
+            per=None,
+            **common,
+        )
     if quantity == "emission_measure":
         em = obj.emission_measure.to_value(u.pc * u.cm**-6)
-        what = (r"$\int n_e \sum Z^2 n_i\,dl$" if getattr(obj, "em_definition", "electrons") == "ion_term"
-                else r"$\int n_e^2\,dl$")
-        return Plane(em, label=f"emission measure {what} (pc cm$^{{-6}}$)", tag="", unit=u.pc * u.cm**-6,
-                      per=None, **common)
+        what = (
+            r"$\int n_e \sum Z^2 n_i\,dl$"
+            if getattr(obj, "em_definition", "electrons") == "ion_term"
+            else r"$\int n_e^2\,dl$"
+        )
+        return Plane(
+            em, label=f"emission measure {what} (pc cm$^{{-6}}$)", tag="", unit=u.pc * u.cm**-6, per=None, **common
+        )
     # brightness temperature
     if is_skymap(obj):
         # Rayleigh-Jeans: linear in Jy/beam, so noise stays symmetric (radio convention)
@@ -172,21 +212,31 @@ def plane_of(obj, quantity, frequency):
         noise = _noise(obj, index)
         if noise is not None:
             # the rms in K, by the same Rayleigh-Jeans equivalency (astropy) the map uses
-            noise = (noise * u.Jy / u.beam).to_value(u.K, equivalencies=u.brightness_temperature(
-                nu[index] * u.Hz, beam_area=_beam(obj, index).sr))
+            noise = (noise * u.Jy / u.beam).to_value(
+                u.K, equivalencies=u.brightness_temperature(nu[index] * u.Hz, beam_area=_beam(obj, index).sr)
+            )
     else:
         # Planck inversion (-> T_e where thick); its limit for zero intensity is 0 K, not NaN
         tb = obj.brightness_temperature("planck")[index].to_value(u.K)
         tb = np.where(np.asarray(obj.intensity[index].value) == 0, 0.0, tb)
         label = "brightness temperature (K)"
         noise = None
-    return Plane(tb, label=label + _background_note(obj), tag=tag, unit=u.K, per=None, beam=_beam(obj, index),
-                  noise=noise, **common)
+    return Plane(
+        tb,
+        label=label + _background_note(obj),
+        tag=tag,
+        unit=u.K,
+        per=None,
+        beam=_beam(obj, index),
+        noise=noise,
+        **common,
+    )
 
 
 def _background_note(obj):
     """A second label line ``background subtracted`` (or included) when a background was traced; '' otherwise."""
     from ..transfer.background import background_of
+
     if background_of(obj).kind == "none":
         return ""
     # on a line of its own: colour-bar labels of stacked panels must stay shorter than a panel
@@ -201,8 +251,10 @@ def limit(value, plane, name):
         try:
             value = (value / (1 * plane.unit)).to_value(u.dimensionless_unscaled)
         except u.UnitsError:
-            raise InputError(f"{name}: '{value}' cannot be converted to the unit of the {plane.quantity} map "
-                             f"({(1 * plane.unit).unit})") from None
+            raise InputError(
+                f"{name}: '{value}' cannot be converted to the unit of the {plane.quantity} map "
+                f"({(1 * plane.unit).unit})"
+            ) from None
     return finite_number(value, name, what="a number or a Quantity")
 
 
@@ -210,15 +262,22 @@ def common_prefix(planes):
     """Re-express intensity planes in one SI prefix (that of the brightest): one unit for every panel."""
     per_txt = "beam" if planes[0].per == u.beam else "pixel"
     base = u.Jy / planes[0].per
-    to_base = [u.Quantity(p.unit).to_value(base) for p in planes]   # unit holds e.g. 1e-3 Jy/beam
-    peak = max(float(np.nanmax(np.abs(p.values))) * f if np.isfinite(p.values).any() else 0.0
-               for p, f in zip(planes, to_base, strict=True))
+    to_base = [u.Quantity(p.unit).to_value(base) for p in planes]  # unit holds e.g. 1e-3 Jy/beam
+    peak = max(
+        float(np.nanmax(np.abs(p.values))) * f if np.isfinite(p.values).any() else 0.0
+        for p, f in zip(planes, to_base, strict=True)
+    )
     factor, prefix = prefix_for(peak if peak > 0 else 1.0)
     out = []
     for p, f in zip(planes, to_base, strict=True):
         scale = f / factor
-        out.append(dataclasses.replace(
-            p, values=p.values * scale, unit=factor * base,
-            label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$)" + p.label.partition(")")[2],   # keeps the note
-            noise=None if p.noise is None else p.noise * scale))
+        out.append(
+            dataclasses.replace(
+                p,
+                values=p.values * scale,
+                unit=factor * base,
+                label=f"intensity ({prefix}Jy {per_txt}$^{{-1}}$)" + p.label.partition(")")[2],  # keeps the note
+                noise=None if p.noise is None else p.noise * scale,
+            )
+        )
     return out

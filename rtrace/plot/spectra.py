@@ -31,9 +31,15 @@ def _annotate_indices(ax, x, y, color):
         nx, ny = -dy / norm, dx / norm
         if ny < 0:
             nx, ny = -nx, -ny
-        text = ax.annotate(rf"$\alpha$ = {a:+.2f}".replace("-", "\N{MINUS SIGN}"),
-                           (math.sqrt(x[k] * x[k + 1]), math.sqrt(y[k] * y[k + 1])), xytext=(0, 0),
-                           textcoords="offset points", fontsize=8, color=color, gid="spectral_index")
+        text = ax.annotate(
+            rf"$\alpha$ = {a:+.2f}".replace("-", "\N{MINUS SIGN}"),
+            (math.sqrt(x[k] * x[k + 1]), math.sqrt(y[k] * y[k + 1])),
+            xytext=(0, 0),
+            textcoords="offset points",
+            fontsize=8,
+            color=color,
+            gid="spectral_index",
+        )
         _place_label(text, nx, ny)
         labels.append((text, nx, ny))
     if labels:
@@ -54,9 +60,9 @@ def _keep_inside(ax, labels):
     segment is tried, then the label is pulled into the frame along the vertical.
     """
     fig = ax.figure
-    fig.draw_without_rendering()               # runs the layout: the axes' final position
+    fig.draw_without_rendering()  # runs the layout: the axes' final position
     frame = ax.get_window_extent()
-    scale = fig.dpi / 72.0                     # pixels per point
+    scale = fig.dpi / 72.0  # pixels per point
 
     def outside(text):
         box = text.get_window_extent()
@@ -142,7 +148,7 @@ def plot_sed(frequencies, flux, path=None, ax=None, label=None, annotate_index=T
             factor, prefix = getattr(ax, "_rtrace_flux_unit", None) or prefix_for(float(s_pos.max()))
             ax._rtrace_flux_unit = (factor, prefix)
         y = s_pos / factor
-        line, = ax.plot(nu_ghz, y, marker="o", markersize=5, linewidth=1.5, label=label)
+        (line,) = ax.plot(nu_ghz, y, marker="o", markersize=5, linewidth=1.5, label=label)
         ax.set_xscale("log")
         ax.set_yscale("log")
         ax.set_xlabel("frequency (GHz)")

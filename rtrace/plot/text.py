@@ -10,13 +10,24 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["significant", "format_frequency", "frequency_labels", "angle_text", "prefix_for",
-           "nice_length", "choose_scale_bar", "axis_unit", "tick_text", "two_five"]
+__all__ = [
+    "significant",
+    "format_frequency",
+    "frequency_labels",
+    "angle_text",
+    "prefix_for",
+    "nice_length",
+    "choose_scale_bar",
+    "axis_unit",
+    "tick_text",
+    "two_five",
+]
 
 _SI_PREFIXES = ((1.0, ""), (1.0e-3, "m"), (1.0e-6, "\N{MICRO SIGN}"), (1.0e-9, "n"))
 
 
 # --- small helpers ------------------------------------------------------------------------------
+
 
 def significant(value, digits):
     """``value`` rounded to ``digits`` significant figures, written without an exponent."""
@@ -56,8 +67,10 @@ def frequency_labels(frequencies):
     nu = np.atleast_1d(u.Quantity(frequencies).to_value(u.Hz, equivalencies=u.spectral()))
     for digits in range(2, 7):
         labels = [format_frequency(f, digits) for f in nu]
-        close = all(abs(float(t.split()[0]) * (1e9 if t.endswith("GHz") else 1e6) - f) <= _LABEL_TOLERANCE * f
-                    for t, f in zip(labels, nu, strict=True))
+        close = all(
+            abs(float(t.split()[0]) * (1e9 if t.endswith("GHz") else 1e6) - f) <= _LABEL_TOLERANCE * f
+            for t, f in zip(labels, nu, strict=True)
+        )
         if close and len(set(labels)) == len(labels):
             return labels
     return [format_frequency(f, 6) for f in nu]
@@ -140,8 +153,13 @@ def tick_text(value, _pos=None):
     else:
         exponent = math.floor(math.log10(abs(value)))
         mantissa = round(value / 10.0**exponent, 3)
-        text = (f"$10^{{{exponent}}}$" if mantissa == 1 else
-                f"$-10^{{{exponent}}}$" if mantissa == -1 else f"${mantissa:g}\\times10^{{{exponent}}}$")
+        text = (
+            f"$10^{{{exponent}}}$"
+            if mantissa == 1
+            else f"$-10^{{{exponent}}}$"
+            if mantissa == -1
+            else f"${mantissa:g}\\times10^{{{exponent}}}$"
+        )
     return text.replace("-", "\N{MINUS SIGN}")
 
 

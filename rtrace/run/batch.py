@@ -23,8 +23,19 @@ from .inputs import build_snapshot, job_members
 from .manifest import inputs_key, snapshot_identity
 from .series_cache import Cache, cache_key  # noqa: F401  (the series cache lives in its own module)
 
-__all__ = ["CACHE_NAME", "Cache", "Snapshots", "Unit", "fingerprint", "make", "observing_settings", "output_key",
-           "plan_units", "split", "unit_inputs"]
+__all__ = [
+    "CACHE_NAME",
+    "Cache",
+    "Snapshots",
+    "Unit",
+    "fingerprint",
+    "make",
+    "observing_settings",
+    "output_key",
+    "plan_units",
+    "split",
+    "unit_inputs",
+]
 
 CACHE_NAME = ".rtrace-cache"
 
@@ -34,6 +45,7 @@ _MEMBER_KEYS = ("path", "paths", "pattern", "seed", "seeds")
 
 
 # --- what each output is made from ---------------------------------------------------------------
+
 
 def fingerprint(job, member):
     """What identifies the snapshot's data: the demo seed, or the file's content (see below).
@@ -61,17 +73,20 @@ def fingerprint(job, member):
     try:
         if path.is_dir() and job.snapshot.kind == "yt":
             return {"folder": path.name, "files": _stat_digest((p for p in path.rglob("*") if p.is_file()), path)}
-        if not path.is_file():          # a pipe or device would block or never end: not a snapshot file
-            raise InputError(f"[snapshot] path: '{path}' is not a regular file (or does not exist); "
-                             f"it cannot be read to identify its data")
+        if not path.is_file():  # a pipe or device would block or never end: not a snapshot file
+            raise InputError(
+                f"[snapshot] path: '{path}' is not a regular file (or does not exist); "
+                f"it cannot be read to identify its data"
+            )
         source = snapshot_identity(path)
         if job.snapshot.kind == "yt":
             companions = [p for p in path.parent.glob(f"{glob_escape(path.stem)}.*") if p != path and p.is_file()]
             if companions:
                 source["companions"] = _stat_digest(companions, path.parent)
     except OSError as exc:
-        raise InputError(f"[snapshot] path: cannot read '{path}' to identify its data "
-                         f"({exc.strerror or exc})") from None
+        raise InputError(
+            f"[snapshot] path: cannot read '{path}' to identify its data ({exc.strerror or exc})"
+        ) from None
     return source
 
 
@@ -92,42 +107,51 @@ def unit_inputs(job, member, spec, source=None):
     manifest hashes (it must not change for the same job file, or resumed runs redo their work).
     """
     from .._version import __version__
+
     shared = {k: v for k, v in job.snapshot.as_dict().items() if k not in _MEMBER_KEYS}
-    return {"rtrace": __version__, "snapshot": shared,
-            "source": fingerprint(job, member) if source is None else source,
-            "ionization": job.ionization.as_dict(), "frequencies": job.frequencies,
-            "trace": job.trace.as_dict(), "view": spec.as_dict()}
+    return {
+        "rtrace": __version__,
+        "snapshot": shared,
+        "source": fingerprint(job, member) if source is None else source,
+        "ionization": job.ionization.as_dict(),
+        "frequencies": job.frequencies,
+        "trace": job.trace.as_dict(),
+        "view": spec.as_dict(),
+    }
 
 
 def observing_settings(job):
     """The settings only observed products depend on."""
-    return {"beam": {} if job.beam is None else job.beam.as_dict(),
-            "noise": {} if job.noise is None else job.noise.as_dict()}
+    return {
+        "beam": {} if job.beam is None else job.beam.as_dict(),
+        "noise": {} if job.noise is None else job.noise.as_dict(),
+    }
 
 
 def output_key(base, product, observing=None, limits=None):
     """The inputs key of one product of a unit whose :func:`unit_inputs` are ``base``."""
     parts = dict(base, product=product)
-    if observing is not None:        # only observed products change with the beam and noise
+    if observing is not None:  # only observed products change with the beam and noise
         parts["observing"] = observing
-    if limits is not None:           # a series picture changes when the series' colour scale does
+    if limits is not None:  # a series picture changes when the series' colour scale does
         parts["limits"] = limits
     return inputs_key(parts)
 
 
 # --- units of work -------------------------------------------------------------------------------
 
+
 @dataclass
 class Unit:
     """One snapshot seen through one view."""
 
-    member: object                    # a rtrace.run.snapshot_sections.Member
+    member: object  # a rtrace.run.snapshot_sections.Member
     name: str
     view: object
     folder: Path
     base: dict
-    data_key: str                     # inputs of the traced and observed images themselves
-    where: str                        # for progress messages
+    data_key: str  # inputs of the traced and observed images themselves
+    where: str  # for progress messages
 
     @property
     def label(self):
@@ -145,7 +169,7 @@ def plan_units(job, views, directory):
     obs = observing_settings(job)
     units = []
     for member in job_members(job):
-        source = fingerprint(job, member)          # read once per snapshot, not once per view
+        source = fingerprint(job, member)  # read once per snapshot, not once per view
         for name, view in views:
             base = unit_inputs(job, member, specs[name], source)
             where = f"{member.label} / view '{name}'" if job.series else f"view '{name}'"
@@ -181,6 +205,7 @@ def make(todo, res, sky, manifest, written):
 
 # --- what is kept between steps ------------------------------------------------------------------
 
+
 class Snapshots:
     """Builds a member's snapshot on first need and keeps only the current one."""
 
@@ -191,7 +216,7 @@ class Snapshots:
     def get(self, member, step, total):
         """The snapshot of series member ``member``, built (and announced as step ``step`` of ``total``) if new."""
         if self.label != member.label:
-            self.snap = None                 # release the previous snapshot before reading the next
+            self.snap = None  # release the previous snapshot before reading the next
             where = f"snapshot '{member.label}'" if self.job.series else "the snapshot"
             self.say(step, total, f"building {where}")
             self.snap = build_snapshot(self.job, member)

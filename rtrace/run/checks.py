@@ -19,14 +19,24 @@ import numpy as np
 
 from ..errors import ConfigError
 
-__all__ = ["check_name", "check_prefix", "check_view", "check_beam", "check_frequencies", "check_trace",
-           "check_noise", "check_snapshot", "check_output", "decode_job_text"]
+__all__ = [
+    "check_name",
+    "check_prefix",
+    "check_view",
+    "check_beam",
+    "check_frequencies",
+    "check_trace",
+    "check_noise",
+    "check_snapshot",
+    "check_output",
+    "decode_job_text",
+]
 
 # Outputs are named <prefix><view>_<suffix> inside the output folder: a name must stay one file name
 # there. Letters, digits, '_', '-' and '.' (not leading: no hidden files, no '.' or '..').
 _ALLOWED = frozenset(string.ascii_letters + string.digits + "_-.")
 _NAME_RULE = "letters, digits, '_', '-' and '.' (not first)"
-_MAX_NAME = 100          # file systems allow 255 bytes; the suffixes rtrace adds need the rest
+_MAX_NAME = 100  # file systems allow 255 bytes; the suffixes rtrace adds need the rest
 
 
 def _why_not_a_name(value):
@@ -104,8 +114,7 @@ def _vector(value, where):
         raise ConfigError(f"{where}: expected a list of three numbers, e.g. [0, 0, 1], got {got}")
     bad = [i for i, v in enumerate(value) if isinstance(v, bool) or not isinstance(v, (int, float))]
     if bad:
-        raise ConfigError(f"{where}: {len(bad)} of 3 entries are not numbers (entry {bad[0]}: "
-                          f"{value[bad[0]]!r})")
+        raise ConfigError(f"{where}: {len(bad)} of 3 entries are not numbers (entry {bad[0]}: {value[bad[0]]!r})")
     bad = [i for i, v in enumerate(value) if not np.isfinite(v)]
     if bad:
         raise ConfigError(f"{where}: {len(bad)} of 3 entries are not finite ({value})")
@@ -116,15 +125,13 @@ def _vector(value, where):
 def _npix(value, where):
     if isinstance(value, list):
         if len(value) != 2:
-            raise ConfigError(f"{where}: expected one integer or a list of two, [ny, nx], got a list of "
-                              f"{len(value)}")
+            raise ConfigError(f"{where}: expected one integer or a list of two, [ny, nx], got a list of {len(value)}")
         items = value
     else:
         items = [value]
     for v in items:
         if isinstance(v, bool) or not isinstance(v, int):
-            raise ConfigError(f"{where}: expected a positive integer number of pixels, got "
-                              f"{type(v).__name__} {v!r}")
+            raise ConfigError(f"{where}: expected a positive integer number of pixels, got {type(v).__name__} {v!r}")
         if v < 1:
             raise ConfigError(f"{where}: expected a positive number of pixels, got {v}")
 
@@ -174,8 +181,10 @@ def check_beam(beam, raw):
         if key in beam:
             _finite_positive(beam[key], f"[beam].{key}", raw[key])
     if "minor" in beam and beam["minor"] > beam["major"]:
-        raise ConfigError(f"[beam].minor: '{raw['minor']}' is larger than major = '{raw['major']}'; the minor "
-                          f"axis (FWHM) must not exceed the major axis")
+        raise ConfigError(
+            f"[beam].minor: '{raw['minor']}' is larger than major = '{raw['major']}'; the minor "
+            f"axis (FWHM) must not exceed the major axis"
+        )
     if "pa" in beam and not np.isfinite(beam["pa"].value):
         raise ConfigError(f"[beam].pa: must be finite, got '{raw['pa']}'")
     if "reference_frequency" in beam:
@@ -196,15 +205,19 @@ def check_frequencies(nu, where="[frequencies]"):
         raise ConfigError(f"{where}: {int(bad.sum())} of {hz.size} frequencies are not finite")
     bad = hz <= 0
     if bad.any():
-        raise ConfigError(f"{where}: {int(bad.sum())} of {hz.size} frequencies are not positive "
-                          f"(first: {hz[bad][0]:g} Hz); frequencies must be positive")
+        raise ConfigError(
+            f"{where}: {int(bad.sum())} of {hz.size} frequencies are not positive "
+            f"(first: {hz[bad][0]:g} Hz); frequencies must be positive"
+        )
     values, counts = np.unique(hz, return_counts=True)
     if (counts > 1).any():
         repeated = values[counts > 1]
         listed = ", ".join(f"{v / 1e9:.9g} GHz" for v in repeated[:5])
-        raise ConfigError(f"{where}: {len(repeated)} frequenc{'y is' if len(repeated) == 1 else 'ies are'} "
-                          f"given more than once ({listed}{', ...' if len(repeated) > 5 else ''}); "
-                          f"outputs are named by frequency, so each must appear once")
+        raise ConfigError(
+            f"{where}: {len(repeated)} frequenc{'y is' if len(repeated) == 1 else 'ies are'} "
+            f"given more than once ({listed}{', ...' if len(repeated) > 5 else ''}); "
+            f"outputs are named by frequency, so each must appear once"
+        )
 
 
 _INTENSITY = u.erg / (u.s * u.cm**2 * u.Hz * u.sr)
@@ -221,15 +234,16 @@ def _background(value):
     try:
         q = u.Quantity(value)
     except (TypeError, ValueError):
-        raise ConfigError(f"{where}: '{value}' is not 'cmb', 'none', a temperature ('20 K') or a specific "
-                          f"intensity ('1e-17 erg / (s cm2 Hz sr)')") from None
+        raise ConfigError(
+            f"{where}: '{value}' is not 'cmb', 'none', a temperature ('20 K') or a specific "
+            f"intensity ('1e-17 erg / (s cm2 Hz sr)')"
+        ) from None
     if q.unit.is_equivalent(u.K):
         q = q.to(u.K)
     elif q.unit.is_equivalent(_INTENSITY):
         q = q.to(_INTENSITY)
     else:
-        raise ConfigError(f"{where}: '{value}' is neither a temperature nor a specific intensity "
-                          f"(unit '{q.unit}')")
+        raise ConfigError(f"{where}: '{value}' is neither a temperature nor a specific intensity (unit '{q.unit}')")
     if not (np.isfinite(q.value) and q.value >= 0):
         raise ConfigError(f"{where}: must be finite and >= 0, got '{value}'")
     return q
@@ -249,16 +263,20 @@ def check_trace(trace):
     ConfigError
     """
     if "supersample" in trace and trace["supersample"] < 1:
-        raise ConfigError(f"[trace].supersample: expected a positive integer (rays per pixel side), got "
-                          f"{trace['supersample']}")
+        raise ConfigError(
+            f"[trace].supersample: expected a positive integer (rays per pixel side), got {trace['supersample']}"
+        )
     if "tolerance" in trace:
         tol = trace["tolerance"]
         if not (math.isfinite(tol) and 0.0 < tol < 1.0):
-            raise ConfigError(f"[trace].tolerance: expected a relative error per pixel with 0 < tolerance < 1 "
-                              f"(e.g. 0.01), got {tol}")
+            raise ConfigError(
+                f"[trace].tolerance: expected a relative error per pixel with 0 < tolerance < 1 (e.g. 0.01), got {tol}"
+            )
         if "supersample" in trace:
-            raise ConfigError("[trace].tolerance: give either tolerance (refined to that accuracy) or supersample "
-                              "(a fixed lattice), not both")
+            raise ConfigError(
+                "[trace].tolerance: give either tolerance (refined to that accuracy) or supersample "
+                "(a fixed lattice), not both"
+            )
     if "background" in trace:
         bg = _background(trace["background"])
         if bg is None:
@@ -278,8 +296,9 @@ def check_noise(noise, raw):
         rms = np.atleast_1d(noise["rms"].value)
         bad = ~(np.isfinite(rms) & (rms >= 0))
         if bad.any():
-            raise ConfigError(f"[noise].rms: {int(bad.sum())} of {rms.size} value(s) negative or not finite "
-                              f"({raw['rms']})")
+            raise ConfigError(
+                f"[noise].rms: {int(bad.sum())} of {rms.size} value(s) negative or not finite ({raw['rms']})"
+            )
     if "seed" in noise and noise["seed"] < 0:
         raise ConfigError(f"[noise].seed: expected an integer >= 0, got {noise['seed']}")
 
@@ -313,8 +332,10 @@ def check_snapshot(snap, raw):
         sub = snap["subvolume"]
         shape_ok = len(sub) == 3 and all(isinstance(p, list) and len(p) == 2 for p in sub)
         if not shape_ok:
-            raise ConfigError("[snapshot].subvolume: expected three [start, stop] pairs of cell indices, e.g. "
-                              "[[0, 64], [0, 64], [10, 50]]")
+            raise ConfigError(
+                "[snapshot].subvolume: expected three [start, stop] pairs of cell indices, e.g. "
+                "[[0, 64], [0, 64], [10, 50]]"
+            )
         for axis, pair in enumerate(sub):
             if any(isinstance(v, bool) or not isinstance(v, int) for v in pair):
                 raise ConfigError(f"[snapshot].subvolume[{axis}]: expected two integers, got {pair}")
@@ -324,6 +345,7 @@ def check_snapshot(snap, raw):
 
 def _picture_formats():
     from matplotlib.backend_bases import FigureCanvasBase
+
     return sorted(FigureCanvasBase.get_supported_filetypes())
 
 
@@ -343,13 +365,15 @@ def check_output(out):
         formats = _picture_formats()
         if out["picture_format"] not in formats:
             from .values import _suggest
+
             fmt = out["picture_format"]
-            raise ConfigError(f"[output].picture_format: '{fmt}'{_suggest(fmt, formats)} is not one of "
-                              f"{', '.join(formats)}")
+            raise ConfigError(
+                f"[output].picture_format: '{fmt}'{_suggest(fmt, formats)} is not one of {', '.join(formats)}"
+            )
     directory = out["directory"]
     try:
         is_file = directory.exists() and not directory.is_dir()
-    except OSError as exc:                      # a name too long, a folder that cannot be searched
+    except OSError as exc:  # a name too long, a folder that cannot be searched
         raise ConfigError(f"[output].directory: {directory} cannot be used: {exc.strerror}") from None
     if is_file:
         raise ConfigError(f"[output].directory: {directory} exists and is not a folder")
@@ -368,5 +392,7 @@ def decode_job_text(data, path):
         return data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         line = data.count(b"\n", 0, exc.start) + 1
-        raise ConfigError(f"job file {path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at offset {exc.start} "
-                          f"(line {line}) cannot be decoded; save the file as UTF-8") from None
+        raise ConfigError(
+            f"job file {path}: not UTF-8 text: byte 0x{data[exc.start]:02x} at offset {exc.start} "
+            f"(line {line}) cannot be decoded; save the file as UTF-8"
+        ) from None

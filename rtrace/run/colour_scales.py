@@ -24,6 +24,7 @@ def view_ranges(res, sky, nfreq):
     """
     from ..analysis.spectra import middle_frequency_index
     from ..plot.core import plane_of
+
     ranges = {}
     for stem, q, observed in PICTURES:
         if observed and sky is None:
@@ -43,11 +44,11 @@ def view_ranges(res, sky, nfreq):
             nu = res.frequencies
             planes = [plane_of(obj, q, (nu[0], nu[-1]))]
         elif q == "tau":
-            planes = [plane_of(obj, q, middle_frequency_index(res))]     # the one map the picture shows
+            planes = [plane_of(obj, q, middle_frequency_index(res))]  # the one map the picture shows
         elif q == "emission_measure":
             planes = [plane_of(obj, q, None)]
         else:
-            planes = [plane_of(obj, q, i) for i in range(nfreq)]       # every panel of the picture
+            planes = [plane_of(obj, q, i) for i in range(nfreq)]  # every panel of the picture
         # a plane's unit is a Unit, or a Quantity such as 1e-3 Jy/beam for prefixed intensities
         unit = (1 * planes[0].unit).unit
         values = []
@@ -58,7 +59,7 @@ def view_ranges(res, sky, nfreq):
         values = np.concatenate(values)
         if values.size == 0:
             continue
-        if q == "spectral_index":        # the automatic index scale uses percentiles: outliers ignored
+        if q == "spectral_index":  # the automatic index scale uses percentiles: outliers ignored
             lo, hi = np.percentile(values, 1), np.percentile(values, 99)
         else:
             lo, hi = values.min(), values.max()
@@ -88,10 +89,10 @@ def series_limits(all_ranges):
             half = min(max(THIN_SPECTRAL_INDEX - lo, hi - THIN_SPECTRAL_INDEX, 0.05), 4.0)
             vmin, vmax = THIN_SPECTRAL_INDEX - half, THIN_SPECTRAL_INDEX + half
         elif q == "tau_unity_frequency":
-            vmin, vmax = lo, hi if hi > lo else lo * 1.01      # a log scale of frequencies: no zero
+            vmin, vmax = lo, hi if hi > lo else lo * 1.01  # a log scale of frequencies: no zero
         else:
             vmin, vmax = min(0.0, lo), hi
             if vmax <= vmin:
-                vmax = vmin + 1.0          # blank images everywhere still get a valid scale
+                vmax = vmin + 1.0  # blank images everywhere still get a valid scale
         limits[stem] = {"vmin": vmin, "vmax": vmax, "unit": unit.to_string()}
     return limits

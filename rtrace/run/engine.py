@@ -39,9 +39,11 @@ def noise_seed(job, label=None):
 
 def _job_beam(job):
     import radio_beam
+
     b = job.beam
-    return radio_beam.Beam(major=b.major, minor=b.major if b.minor is None else b.minor,
-                           pa=0 * u.deg if b.pa is None else b.pa)
+    return radio_beam.Beam(
+        major=b.major, minor=b.major if b.minor is None else b.minor, pa=0 * u.deg if b.pa is None else b.pa
+    )
 
 
 def _observe(res, job, label=None):
@@ -51,9 +53,14 @@ def _observe(res, job, label=None):
     kw = {}
     if b.frequency_scaling is not None:
         kw = {"beam_scaling": b.frequency_scaling, "reference_frequency": b.reference_frequency}
-    budget = job.parallel.max_memory        # bytes (an int)
-    return res.observe(beam=beam, noise=noise, seed=noise_seed(job, label),
-                       max_memory=None if budget is None else budget * u.byte, **kw)
+    budget = job.parallel.max_memory  # bytes (an int)
+    return res.observe(
+        beam=beam,
+        noise=noise,
+        seed=noise_seed(job, label),
+        max_memory=None if budget is None else budget * u.byte,
+        **kw,
+    )
 
 
 def _check_view(job, name, view, pixel_cm):
@@ -61,41 +68,67 @@ def _check_view(job, name, view, pixel_cm):
     from ..memory import check_memory, format_bytes, trace_image_bytes, trace_ray_bytes
     from ..observe.beam import beams_for_frequencies
     from ..observe.skymap import check_observation
+
     nu = job.frequencies.to_value(u.Hz)
     ny, nx = view.shape
     where = f"[[view]] '{name}' npix"
     budget = job.parallel.max_memory
     images = trace_image_bytes(len(nu), ny * nx)
-    check_memory(images, field=where, budget=budget,
-                 what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
-                 hint="use a smaller npix or fewer frequencies")
+    check_memory(
+        images,
+        field=where,
+        budget=budget,
+        what=f"images of {ny} x {nx} pixels at {len(nu)} frequencies ({format_bytes(images)})",
+        hint="use a smaller npix or fewer frequencies",
+    )
     supersample = int(job.trace.supersample or 1)
     if view.los_axis() is None and job.snapshot.kind == "demo":
         # an oblique view's lattice has at least (cells x supersample)^2 rays (tracer._ObliqueRoute);
         # the grid of other kinds is known once read, and the tracer checks it then, before tracing
         rays = (int(job.snapshot.cells or 64) * supersample) ** 2
         need = trace_ray_bytes(len(nu), rays)
-        check_memory(need, field="[trace].supersample" if supersample > 1 else where, budget=budget,
-                     what=f"view '{name}': a lattice of at least {rays} rays ({supersample} per cell) at "
-                          f"{len(nu)} frequencies",
-                     hint="use a smaller supersample" if supersample > 1 else "use a smaller npix")
+        check_memory(
+            need,
+            field="[trace].supersample" if supersample > 1 else where,
+            budget=budget,
+            what=f"view '{name}': a lattice of at least {rays} rays ({supersample} per cell) at {len(nu)} frequencies",
+            hint="use a smaller supersample" if supersample > 1 else "use a smaller npix",
+        )
     if job.beam is not None and pixel_cm is not None:
         b = job.beam
         ref = b.reference_frequency
         scaling = b.frequency_scaling
         beams = beams_for_frequencies(_job_beam(job), nu, scaling, None if ref is None else ref.to_value(u.Hz))
         pixel_scale = (pixel_cm / view.distance.to_value(u.cm)) * u.rad
-        check_observation(beams, pixel_scale, (ny, nx), nu, noise=job.noise is not None, max_memory=budget,
-                          beam_field="[beam].major", image_field=where)
+        check_observation(
+            beams,
+            pixel_scale,
+            (ny, nx),
+            nu,
+            noise=job.noise is not None,
+            max_memory=budget,
+            beam_field="[beam].major",
+            image_field=where,
+        )
     cmp = job.comparison
     if cmp is not None and pixel_cm is not None and name in cmp.views:
         # the observed beam is laid on the model's own grid before it is reprojected
         obs = cmp.observation
-        field = ("[comparison].beam" if obs.beam_source != "BMAJ/BMIN/BPA"
-                 else f"[comparison].observation ({obs.source}) BMAJ")
-        check_observation([obs.beam], (pixel_cm / view.distance.to_value(u.cm)) * u.rad, (ny, nx),
-                          [obs.frequency.to_value(u.Hz)], max_memory=budget, beam_field=field,
-                          image_field=where, image=f"model of view '{name}'")
+        field = (
+            "[comparison].beam"
+            if obs.beam_source != "BMAJ/BMIN/BPA"
+            else f"[comparison].observation ({obs.source}) BMAJ"
+        )
+        check_observation(
+            [obs.beam],
+            (pixel_cm / view.distance.to_value(u.cm)) * u.rad,
+            (ny, nx),
+            [obs.frequency.to_value(u.Hz)],
+            max_memory=budget,
+            beam_field=field,
+            image_field=where,
+            image=f"model of view '{name}'",
+        )
 
 
 def check_sizes(job, views):
@@ -108,7 +141,7 @@ def check_sizes(job, views):
     for name, view in views:
         pixel_cm = None if view.width is None else view.width.to_value(u.cm) / view.shape[1]
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore")          # the run warns once, when it observes
+            warnings.simplefilter("ignore")  # the run warns once, when it observes
             try:
                 _check_view(job, name, view, pixel_cm)
             except InputError as exc:
@@ -139,13 +172,13 @@ class Engine:
         if self._client is None:
             # imported here: dask is needed only by jobs that ask for a cluster
             from dask.distributed import Client, LocalCluster
+
             par = self.job.parallel
             if par.scheduler is not None:
                 try:
                     self._client = Client(par.scheduler)
                 except (OSError, TimeoutError) as exc:
-                    raise ConfigError(f"[parallel].scheduler: cannot connect to {par.scheduler}: "
-                                      f"{exc}") from None
+                    raise ConfigError(f"[parallel].scheduler: cannot connect to {par.scheduler}: {exc}") from None
             else:
                 self._cluster = LocalCluster(n_workers=par.workers, threads_per_worker=1)
                 self._client = Client(self._cluster)
@@ -170,11 +203,18 @@ class Engine:
                     raise ConfigError(str(exc)) from None
         t0 = time.perf_counter()
         tolerance = DEFAULT_TOLERANCE if job.trace.tolerance is None else job.trace.tolerance
-        res = trace(snap, view, job.frequencies, background=job.trace.background,
-                    supersample=job.trace.supersample, tolerance=tolerance, **kw)
+        res = trace(
+            snap,
+            view,
+            job.frequencies,
+            background=job.trace.background,
+            supersample=job.trace.supersample,
+            tolerance=tolerance,
+            **kw,
+        )
         res.provenance["trace_seconds"] = f"{time.perf_counter() - t0:.2f}"
         if job.beam is not None:
-            sky = _observe(res, job, label)               # warns itself when emission reaches the edge
+            sky = _observe(res, job, label)  # warns itself when emission reaches the edge
         else:
             sky = None
             # background-subtracted intensity: proportional to the flux per pixel

@@ -23,9 +23,12 @@ def _or(value, default):
 
 def _composition(ion):
     from ..physics.ionization import DEFAULT_HELIUM_MASS_FRACTION, DEFAULT_HYDROGEN_MASS_FRACTION, Composition
+
     if ion.hydrogen_mass_fraction is not None or ion.helium_mass_fraction is not None:
-        return Composition(hydrogen=_or(ion.hydrogen_mass_fraction, DEFAULT_HYDROGEN_MASS_FRACTION),
-                           helium=_or(ion.helium_mass_fraction, DEFAULT_HELIUM_MASS_FRACTION))
+        return Composition(
+            hydrogen=_or(ion.hydrogen_mass_fraction, DEFAULT_HYDROGEN_MASS_FRACTION),
+            helium=_or(ion.helium_mass_fraction, DEFAULT_HELIUM_MASS_FRACTION),
+        )
     return None
 
 
@@ -43,6 +46,7 @@ def ionization_model(job):
         SuppliedFraction,
         TemperatureThreshold,
     )
+
     ion = job.ionization
     comp = _composition(ion)
     model = ion.model_name
@@ -50,15 +54,20 @@ def ionization_model(job):
         kw = {} if ion.threshold is None else {"threshold": ion.threshold}
         return TemperatureThreshold(composition=comp, helium=_or(ion.helium, "single"), **kw)
     if model == "supplied":
-        return SuppliedFraction(ion.fraction, composition=comp, helium=ion.helium,
-                                helium_ii=ion.helium_ii, helium_iii=ion.helium_iii)
+        return SuppliedFraction(
+            ion.fraction, composition=comp, helium=ion.helium, helium_ii=ion.helium_ii, helium_iii=ion.helium_iii
+        )
     if model == "sources":
         sources = ion.sources
-        return IonizingSources(positions=u.Quantity([s.position.to(u.cm) for s in sources]),
-                               rates=u.Quantity([s.rate.to(u.s**-1) for s in sources]), composition=comp,
-                               ionized_temperature=ion.ionized_temperature, helium=_or(ion.helium, "single"),
-                               allow_outside=_or(ion.allow_outside, False),
-                               rays_per_cell=_or(ion.rays_per_cell, 4.0))
+        return IonizingSources(
+            positions=u.Quantity([s.position.to(u.cm) for s in sources]),
+            rates=u.Quantity([s.rate.to(u.s**-1) for s in sources]),
+            composition=comp,
+            ionized_temperature=ion.ionized_temperature,
+            helium=_or(ion.helium, "single"),
+            allow_outside=_or(ion.allow_outside, False),
+            rays_per_cell=_or(ion.rays_per_cell, 4.0),
+        )
     if model == "saha":
         return SahaEquilibrium(comp)
     if model == "collisional":
@@ -84,6 +93,7 @@ def check_ionization(job):
     from ..errors import ConfigError, InputError
     from ..io.hdf5 import file_geometry, open_file, subvolume_slices
     from ..quantities import parse_vector3
+
     if job.snapshot.density is None:
         return
     try:
@@ -98,7 +108,7 @@ def check_ionization(job):
         try:
             with open_file(member.path) as handle:
                 if thermal not in handle:
-                    return                      # the reader names the missing dataset
+                    return  # the reader names the missing dataset
                 shape = handle[thermal].shape
                 cell_size, origin = file_geometry(handle, snap.cell_size, snap.origin, member.path)
             cell = parse_vector3(cell_size, "cell_size", u.cm)
@@ -115,11 +125,12 @@ def check_ionization(job):
 def _job_key(job, message):
     """``"[snapshot].temperature: ..."`` from a reader's ``"temperature: ..."`` (the key the job wrote)."""
     from ..io.hdf5 import MODEL_FIELD
+
     param, sep, rest = message.partition(": ")
     if sep and param in job.snapshot.as_dict():
         return f"[snapshot].{param}: {rest}"
     if sep and param.startswith(MODEL_FIELD):
-        name = param[len(MODEL_FIELD):]
+        name = param[len(MODEL_FIELD) :]
         keys = [k for k in ("fraction", "helium_ii", "helium_iii") if getattr(job.ionization, k) == name]
         return f"[ionization].{keys[0] if keys else 'fraction'}: {rest}"
     return f"[snapshot]: {message}"
@@ -187,10 +198,12 @@ def build_snapshot(job, member=None):
     member = member or job_members(job)[0]
     if snap.kind == "demo":
         from ..demo import scenario
+
         return scenario(n=_or(snap.cells, 64), seed=_or(member.seed, _or(snap.seed, DEMO_SEED)))
     if snap.kind == "yt":
         return _from_yt(job, snap, member)
     from ..io.hdf5 import read_hdf5
+
     kw = {k: getattr(snap, k) for k in _HDF5_KEYS if getattr(snap, k) is not None}
     if snap.subvolume is not None:
         kw["subvolume"] = tuple(tuple(p) for p in snap.subvolume)
@@ -206,6 +219,7 @@ def _yt_field(name):
 
 def _from_yt(job, snap, member):
     from ..snapshot import Snapshot
+
     kw = {k: _yt_field(getattr(snap, k)) for k in _FIELD_KEYS if getattr(snap, k) is not None}
     if snap.gamma is not None:
         kw["gamma"] = snap.gamma

@@ -41,12 +41,30 @@ from .study import ComparisonSection, SynthesisSection
 from .values import _suggest
 from .views import build_views
 
-__all__ = ["Job", "load_job", "parse_job", "run_job", "build_views", "override_parallel",
-           "check_scheduler_address", "check_workers", "SCHEMA", "SnapshotSection", "IonizationSection",
-           "TraceSection", "ViewSection", "BeamSection", "NoiseSection", "OutputSection", "ParallelSection",
-           "SynthesisSection", "ComparisonSection", "Member"]
+__all__ = [
+    "Job",
+    "load_job",
+    "parse_job",
+    "run_job",
+    "build_views",
+    "override_parallel",
+    "check_scheduler_address",
+    "check_workers",
+    "SCHEMA",
+    "SnapshotSection",
+    "IonizationSection",
+    "TraceSection",
+    "ViewSection",
+    "BeamSection",
+    "NoiseSection",
+    "OutputSection",
+    "ParallelSection",
+    "SynthesisSection",
+    "ComparisonSection",
+    "Member",
+]
 
-_TOP = set(SCHEMA) - {"source"}          # [[ionization.sources]] entries, not a table of their own
+_TOP = set(SCHEMA) - {"source"}  # [[ionization.sources]] entries, not a table of their own
 
 
 @dataclass(frozen=True, eq=False)
@@ -153,14 +171,17 @@ def _check_tables(raw):
 
 def _check_before_work(job):
     """Checks that need the whole job: view geometry, sizes in memory, synthesis grids, datasets."""
-    built = build_views(job)      # the View constructor validates geometry now, not after tracing
+    built = build_views(job)  # the View constructor validates geometry now, not after tracing
     from .engine import check_sizes
-    check_sizes(job, built)       # images and beam kernels fit in memory; beam narrower than the field
+
+    check_sizes(job, built)  # images and beam kernels fit in memory; beam narrower than the field
     from .study import check_synthesis_grids
+
     check_synthesis_grids(job, built)
     from .inputs import check_datasets, check_ionization
-    check_ionization(job)         # the model's values, and sources against the grid, before any field is read
-    check_datasets(job)           # the named datasets exist, numeric, 3-D, one shape (metadata only)
+
+    check_ionization(job)  # the model's values, and sources against the grid, before any field is read
+    check_datasets(job)  # the named datasets exist, numeric, 3-D, one shape (metadata only)
 
 
 def parse_job(raw, base_dir="."):
@@ -187,8 +208,22 @@ def parse_job(raw, base_dir="."):
     view_names = [v.name for v in views]
     synthesis = SynthesisSection.parse(raw.get("synthesis"), base_dir, view_names)
     comparison = ComparisonSection.parse(raw.get("comparison"), base_dir, view_names, nu)
-    job = Job(snap, ion, nu, trace, views, beam, noise, out, base_dir, members, series, par,
-              synthesis=synthesis, comparison=comparison)
+    job = Job(
+        snap,
+        ion,
+        nu,
+        trace,
+        views,
+        beam,
+        noise,
+        out,
+        base_dir,
+        members,
+        series,
+        par,
+        synthesis=synthesis,
+        comparison=comparison,
+    )
     _check_before_work(job)
     return job
 
@@ -219,4 +254,5 @@ def run_job(job, progress=None, restart=False):
     :func:`rtrace.run.pipeline.run`).
     """
     from .pipeline import run
+
     return run(job, progress=progress, restart=restart)

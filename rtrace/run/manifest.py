@@ -63,8 +63,8 @@ def file_sha256(path, chunk_size=1 << 20):
 
 #: Files up to this size (bytes) are identified by a SHA-256 of their whole content; larger ones by a sample.
 FULL_HASH_LIMIT = 256 << 20
-_BLOCK = 1 << 20           # bytes per sampled block
-_SAMPLES = 16              # evenly spaced blocks between the first and the last
+_BLOCK = 1 << 20  # bytes per sampled block
+_SAMPLES = 16  # evenly spaced blocks between the first and the last
 
 
 def _sampled_sha256(handle, size, block=_BLOCK, samples=_SAMPLES):
@@ -112,13 +112,18 @@ def snapshot_identity(path, full_limit=FULL_HASH_LIMIT):
             for block in iter(lambda: handle.read(_BLOCK), b""):
                 digest.update(block)
             return {"file": path.name, "size": st.st_size, "sha256": digest.hexdigest()}
-        return {"file": path.name, "size": st.st_size, "mtime_ns": st.st_mtime_ns,
-                "sampled_sha256": _sampled_sha256(handle, st.st_size)}
+        return {
+            "file": path.name,
+            "size": st.st_size,
+            "mtime_ns": st.st_mtime_ns,
+            "sampled_sha256": _sampled_sha256(handle, st.st_size),
+        }
 
 
 def _jsonable(value):
     """JSON form of the values a validated job holds (Quantities, paths, numpy numbers)."""
     import astropy.units as u
+
     if isinstance(value, u.Quantity):
         return {"value": np.asarray(value.value).tolist(), "unit": value.unit.to_string()}
     if isinstance(value, os.PathLike):
@@ -203,8 +208,11 @@ class Manifest:
         manifest = cls(directory)
         if manifest.path.exists() and not manifest.path.is_file():
             from ..errors import OutputError
-            raise OutputError(f"[output].directory: {manifest.path} is not a file; rtrace keeps its record of "
-                              f"finished outputs under that name (remove it or choose another output folder)")
+
+            raise OutputError(
+                f"[output].directory: {manifest.path} is not a file; rtrace keeps its record of "
+                f"finished outputs under that name (remove it or choose another output folder)"
+            )
         try:
             data = json.loads(manifest.path.read_text(encoding="utf-8"))
         except FileNotFoundError:
@@ -212,10 +220,17 @@ class Manifest:
         except (OSError, ValueError) as exc:
             warnings.warn(f"{manifest.path}: unreadable ({exc}); every output will be made again", stacklevel=2)
             return manifest
-        if not (isinstance(data, dict) and data.get("format") == _FORMAT and data.get("version") == _VERSION
-                and isinstance(data.get("outputs"), dict) and isinstance(data.get("ranges", {}), dict)):
-            warnings.warn(f"{manifest.path}: not an rtrace manifest of version {_VERSION}; every output will "
-                          f"be made again", stacklevel=2)
+        if not (
+            isinstance(data, dict)
+            and data.get("format") == _FORMAT
+            and data.get("version") == _VERSION
+            and isinstance(data.get("outputs"), dict)
+            and isinstance(data.get("ranges", {}), dict)
+        ):
+            warnings.warn(
+                f"{manifest.path}: not an rtrace manifest of version {_VERSION}; every output will be made again",
+                stacklevel=2,
+            )
             return manifest
         manifest.outputs = data["outputs"]
         manifest.ranges = data.get("ranges", {})
@@ -263,8 +278,12 @@ class Manifest:
         dict
             The new entry.
         """
-        entry = {"size": os.stat(path).st_size, "sha256": file_sha256(path), "inputs": inputs,
-                 "written": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}
+        entry = {
+            "size": os.stat(path).st_size,
+            "sha256": file_sha256(path),
+            "inputs": inputs,
+            "written": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+        }
         self.outputs[self._name(path)] = entry
         self.save()
         return entry
@@ -284,8 +303,14 @@ class Manifest:
     def save(self):
         """Write the manifest atomically (a crash leaves the previous version intact)."""
         from .._version import __version__
-        data = {"format": _FORMAT, "version": _VERSION, "rtrace": __version__,
-                "outputs": self.outputs, "ranges": self.ranges}
+
+        data = {
+            "format": _FORMAT,
+            "version": _VERSION,
+            "rtrace": __version__,
+            "outputs": self.outputs,
+            "ranges": self.ranges,
+        }
         self.directory.mkdir(parents=True, exist_ok=True)
         with atomic_path(self.path) as tmp:
             tmp.write_text(json.dumps(data, indent=1, sort_keys=True), encoding="utf-8")

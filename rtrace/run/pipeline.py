@@ -95,15 +95,21 @@ def _check_paths(job, units, directory, quantities, fmt, pictures, later):
     need = 0
     for unit in units:
         cubes, spectra = data_outputs(job, unit, quantities, fmt)
-        plan = cubes + spectra + study_outputs(job, unit, fmt) + (picture_outputs(job, unit, fmt, None)
-                                                                   if pictures else [])
+        plan = (
+            cubes
+            + spectra
+            + study_outputs(job, unit, fmt)
+            + (picture_outputs(job, unit, fmt, None) if pictures else [])
+        )
         paths += [f for o in plan for f in o.files]
         need += sum(_cube_bytes(o, unit.view.shape, len(job.frequencies)) for o in cubes)
     check_output_paths(paths, directory, "[output].directory")
     check_space(directory, need)
     if later and (directory / CACHE_NAME).exists() and not (directory / CACHE_NAME).is_dir():
-        raise OutputError(f"[output].directory: {directory / CACHE_NAME} is a file; rtrace keeps a series' "
-                          f"traced views in a folder of that name (remove the file)")
+        raise OutputError(
+            f"[output].directory: {directory / CACHE_NAME} is a file; rtrace keeps a series' "
+            f"traced views in a folder of that name (remove the file)"
+        )
 
 
 def run(job, progress=None, restart=False):
@@ -146,9 +152,9 @@ def run(job, progress=None, restart=False):
     keywords = parallel_keywords(job)
     views = build_views(job)
     directory = out.directory
-    check_writable(directory, "[output].directory")    # read-only, no permission, a file: before any work
-    check_job_copy(job, directory)                 # never overwrite a job.toml rtrace did not write
-    later = job.series and pictures           # series pictures wait for the whole series' ranges
+    check_writable(directory, "[output].directory")  # read-only, no permission, a file: before any work
+    check_job_copy(job, directory)  # never overwrite a job.toml rtrace did not write
+    later = job.series and pictures  # series pictures wait for the whole series' ranges
     units = plan_units(job, views, directory)
     _check_paths(job, units, directory, quantities, fmt, pictures, later)
     manifest = Manifest(directory) if restart else Manifest.load(directory)
@@ -158,7 +164,7 @@ def run(job, progress=None, restart=False):
     total = len(units) * (2 if later else 1)
     written, skipped = [], []
     snapshots = Snapshots(job, say)
-    copy = job_copy_output(job, directory)          # the job itself, kept with what it made
+    copy = job_copy_output(job, directory)  # the job itself, kept with what it made
     if copy is not None:
         todo, _ = split([copy], manifest, skipped)
         make(todo, None, None, manifest, written)
@@ -172,8 +178,11 @@ def run(job, progress=None, restart=False):
             todo, done = split(plan, manifest, skipped)
             need_ranges = later and manifest.get_ranges(unit.label, unit.data_key) is None
             if done:
-                say(step, total, f"{unit.where}: {len(done)} of {sum(len(o.files) for o in plan)} outputs up "
-                                 f"to date, skipped")
+                say(
+                    step,
+                    total,
+                    f"{unit.where}: {len(done)} of {sum(len(o.files) for o in plan)} outputs up to date, skipped",
+                )
             if not todo and not need_ranges:
                 continue
             with _compiling(say, step, total):
@@ -191,8 +200,10 @@ def run(job, progress=None, restart=False):
             del res, sky
         if later:
             snapshots.release()
-            limits = {name: series_limits([manifest.get_ranges(v.label, v.data_key)
-                                           for v in units if v.name == name]) for name, _ in views}
+            limits = {
+                name: series_limits([manifest.get_ranges(v.label, v.data_key) for v in units if v.name == name])
+                for name, _ in views
+            }
             for k, unit in enumerate(units):
                 step = len(units) + k
                 plan = picture_outputs(job, unit, fmt, limits[unit.name])
@@ -205,8 +216,7 @@ def run(job, progress=None, restart=False):
                 if cached is None:
                     with _compiling(say, step, total):
                         snap = snapshots.get(unit.member, step, total)
-                    say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies again "
-                                     f"for its pictures")
+                    say(step, total, f"{unit.where}: tracing {len(job.frequencies)} frequencies again for its pictures")
                     with _compiling(say, step, total):
                         cached = engine.trace(snap, unit.view, unit.member.label, unit.name)
                 say(step, total, f"{unit.where}: drawing {len(todo)} pictures on the series' colour scales")

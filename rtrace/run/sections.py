@@ -24,11 +24,22 @@ from .checks import check_beam, check_frequencies, check_noise, check_output, ch
 from .schema import typed_table
 from .values import _suggest
 
-__all__ = ["Section", "TraceSection", "BeamSection", "NoiseSection", "OutputSection", "ParallelSection",
-           "ViewSection", "parse_frequencies", "parse_views", "check_scheduler_address", "check_workers",
-           "QUANTITY_NAMES"]
+__all__ = [
+    "Section",
+    "TraceSection",
+    "BeamSection",
+    "NoiseSection",
+    "OutputSection",
+    "ParallelSection",
+    "ViewSection",
+    "parse_frequencies",
+    "parse_views",
+    "check_scheduler_address",
+    "check_workers",
+    "QUANTITY_NAMES",
+]
 
-QUANTITY_NAMES = QUANTITIES      # what [output].quantities may name: the Result's products
+QUANTITY_NAMES = QUANTITIES  # what [output].quantities may name: the Result's products
 
 
 def _plain(value):
@@ -178,8 +189,10 @@ class OutputSection(Section):
                 raise ConfigError(f"[output].quantities: unknown '{q}'{_suggest(q, QUANTITY_NAMES)}")
         out.setdefault("spectral_axis", "auto")
         if out["spectral_axis"] not in ("auto", "tabular"):
-            raise ConfigError(f"[output].spectral_axis: '{out['spectral_axis']}' is not 'auto' (FREQ or FREQ-LOG "
-                              "cubes, one file per frequency for other lists) or 'tabular' (one FREQ-TAB cube)")
+            raise ConfigError(
+                f"[output].spectral_axis: '{out['spectral_axis']}' is not 'auto' (FREQ or FREQ-LOG "
+                "cubes, one file per frequency for other lists) or 'tabular' (one FREQ-TAB cube)"
+            )
         out["directory"] = (Path(base_dir) / out.get("directory", "rtrace-output")).resolve()
         check_output(out)
         return cls._build(out)
@@ -209,8 +222,9 @@ def check_scheduler_address(value, where="[parallel].scheduler"):
     """
     match = _ADDRESS.match(value) if isinstance(value, str) else None
     if match is None or not 1 <= int(match.group(2)) <= 65535:
-        raise ConfigError(f"{where}: {value!r} is not a scheduler address of the form scheme://host:port "
-                          f"(e.g. 'tcp://10.0.0.5:8786')")
+        raise ConfigError(
+            f"{where}: {value!r} is not a scheduler address of the form scheme://host:port (e.g. 'tcp://10.0.0.5:8786')"
+        )
     return value
 
 
@@ -258,8 +272,10 @@ class ParallelSection(Section):
         """Validate ``[parallel]``; ConfigError naming ``[parallel].key``."""
         spec = typed_table(table, "parallel")
         if "scheduler" in spec and "workers" in spec:
-            raise ConfigError("[parallel]: give either 'scheduler' (the address of a running cluster) or "
-                              "'workers' (the size of a local one), not both")
+            raise ConfigError(
+                "[parallel]: give either 'scheduler' (the address of a running cluster) or "
+                "'workers' (the size of a local one), not both"
+            )
         if "scheduler" in spec:
             check_scheduler_address(spec["scheduler"])
         if "workers" in spec:
@@ -267,8 +283,9 @@ class ParallelSection(Section):
         if "max_memory" in spec:
             nbytes = spec["max_memory"].to_value(u.byte)
             if not np.isfinite(nbytes) or nbytes < 1:
-                raise ConfigError(f"[parallel].max_memory: must be a positive amount of memory, got "
-                                  f"'{spec['max_memory']}'")
+                raise ConfigError(
+                    f"[parallel].max_memory: must be a positive amount of memory, got '{spec['max_memory']}'"
+                )
             spec["max_memory"] = int(nbytes)
         return cls._build(spec)
 
@@ -313,8 +330,10 @@ def _check_unique_names(view, index, names):
         raise ConfigError(f"{where}.name: '{view.name}' is used by another view")
     same = [n for n in names if n.lower() == view.name.lower()]
     if same:
-        raise ConfigError(f"{where}.name: '{view.name}' differs from view '{same[0]}' only in case; their "
-                          f"files would overwrite each other on case-insensitive file systems")
+        raise ConfigError(
+            f"{where}.name: '{view.name}' differs from view '{same[0]}' only in case; their "
+            f"files would overwrite each other on case-insensitive file systems"
+        )
 
 
 def parse_views(tables):
@@ -356,8 +375,10 @@ def _frequency_grid(spec):
     if num < 1:
         raise ConfigError(f"[frequencies].num: expected at least 1 frequency, got {num}")
     if num == 1 and start != stop:
-        raise ConfigError("[frequencies].num: one frequency between different 'start' and 'stop'; give "
-                          "start = stop, or values = [...]")
+        raise ConfigError(
+            "[frequencies].num: one frequency between different 'start' and 'stop'; give "
+            "start = stop, or values = [...]"
+        )
     # built exactly as the FITS axis describes them, so cubes get a FREQ or FREQ-LOG axis:
     # even steps, or nu_k = start exp(k ln(stop/start) / (num - 1)) (the -LOG axis of
     # Greisen et al. 2006, A&A 446, 747, with CRVAL = start)
@@ -390,5 +411,5 @@ def parse_frequencies(table):
         nu = _frequency_grid(spec) * u.Hz
     check_frequencies(nu, "[frequencies].values" if "values" in spec else "[frequencies]")
     nu = nu.to(u.Hz)
-    nu.flags.writeable = False          # part of a frozen Job: read, never changed in place
+    nu.flags.writeable = False  # part of a frozen Job: read, never changed in place
     return nu

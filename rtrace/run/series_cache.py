@@ -53,8 +53,17 @@ _PROCESS_KEY = None
 _RESULT_ARRAYS = ("intensity", "tau", "em", "nu", "background", "center")
 _SKY_ARRAYS = ("sky_data", "sky_model", "sky_beams")
 # RuntimeError: zipfile raises it (and NotImplementedError) for encrypted members and unknown versions
-_READ_ERRORS = (OSError, ValueError, KeyError, EOFError, TypeError, RuntimeError, struct.error, zipfile.BadZipFile,
-                zipfile.LargeZipFile)
+_READ_ERRORS = (
+    OSError,
+    ValueError,
+    KeyError,
+    EOFError,
+    TypeError,
+    RuntimeError,
+    struct.error,
+    zipfile.BadZipFile,
+    zipfile.LargeZipFile,
+)
 
 
 def cache_key():
@@ -64,8 +73,9 @@ def cache_key():
     ``~/.cache/rtrace``, readable by the user alone. Where that cannot be written, a key for this
     process only is used (a resumed run then retraces instead of reading the cache).
     """
-    folder = Path(os.environ.get("RTRACE_KEY_DIR")
-                  or Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "rtrace")
+    folder = Path(
+        os.environ.get("RTRACE_KEY_DIR") or Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "rtrace"
+    )
     path = folder / "series-cache.key"
     try:
         key = path.read_bytes()
@@ -105,35 +115,53 @@ def content_digest(arrays):
 
 # --- Result and SkyMap to arrays and back --------------------------------------------------------
 
+
 def _beam_rows(beams):
-    return np.array([[b.major.to_value(u.deg), b.minor.to_value(u.deg), b.pa.to_value(u.deg)] for b in beams],
-                    float).reshape(-1, 3)
+    return np.array(
+        [[b.major.to_value(u.deg), b.minor.to_value(u.deg), b.pa.to_value(u.deg)] for b in beams], float
+    ).reshape(-1, 3)
 
 
 def _beam(row):
     from radio_beam import Beam
+
     return Beam(major=row[0] * u.deg, minor=row[1] * u.deg, pa=row[2] * u.deg)
 
 
 def to_arrays(res, sky, inputs):
     """``{name: ndarray}`` of a traced view (``sky`` may be None); raises TypeError/ValueError if not storable."""
-    arrays = {"intensity": np.asarray(res._intensity), "tau": np.asarray(res.tau), "em": np.asarray(res._em),
-              "nu": res.frequencies.to_value(u.Hz), "background": np.asarray(res.background.value, float),
-              "center": res.center.to_value(u.cm)}
+    arrays = {
+        "intensity": np.asarray(res._intensity),
+        "tau": np.asarray(res.tau),
+        "em": np.asarray(res._em),
+        "nu": res.frequencies.to_value(u.Hz),
+        "background": np.asarray(res.background.value, float),
+        "center": res.center.to_value(u.cm),
+    }
     info = res.background_info
-    meta = {"format": CACHE_FORMAT, "inputs": inputs, "pixel_size_cm": float(res.pixel_size.to_value(u.cm)),
-            "rays_per_pixel": int(res.rays_per_pixel), "provenance": res.provenance,
-            "background_info": [info.kind, info.temperature], "sky": None}
+    meta = {
+        "format": CACHE_FORMAT,
+        "inputs": inputs,
+        "pixel_size_cm": float(res.pixel_size.to_value(u.cm)),
+        "rays_per_pixel": int(res.rays_per_pixel),
+        "provenance": res.provenance,
+        "background_info": [info.kind, info.temperature],
+        "sky": None,
+    }
     if sky is not None:
         arrays.update(sky_data=sky._data, sky_model=sky._model, sky_beams=_beam_rows(sky.beams))
         arrays["sky_beam"] = _beam_rows([sky.beam])
         if sky._rms is not None:
             arrays["sky_rms"] = sky._rms
-        meta["sky"] = {"provenance": sky.provenance, "beam_scaling": sky.beam_scaling,
-                       "reference_frequency": float(sky.reference_frequency.to_value(u.Hz)),
-                       "seed": None if sky.seed is None else int(sky.seed), "background": sky.background}
+        meta["sky"] = {
+            "provenance": sky.provenance,
+            "beam_scaling": sky.beam_scaling,
+            "reference_frequency": float(sky.reference_frequency.to_value(u.Hz)),
+            "seed": None if sky.seed is None else int(sky.seed),
+            "background": sky.background,
+        }
     text = json.dumps(meta, sort_keys=True, allow_nan=False)
-    if json.loads(text) != meta:          # e.g. tuples or numpy values in a provenance: not kept exactly
+    if json.loads(text) != meta:  # e.g. tuples or numpy values in a provenance: not kept exactly
         raise TypeError("metadata does not survive JSON unchanged")
     for name, a in arrays.items():
         if a.dtype.kind not in "fiub":
@@ -147,6 +175,7 @@ def from_arrays(arrays, view):
     from ..observe.skymap import SkyMap
     from ..transfer.background import Background
     from ..transfer.result import Result
+
     meta = json.loads(arrays["meta"].tobytes().decode("utf-8"))
     sky_meta = meta["sky"]
     names = set(_RESULT_ARRAYS) | {"meta"}
@@ -155,24 +184,52 @@ def from_arrays(arrays, view):
     if set(arrays) != names:
         raise ValueError(f"unexpected arrays {sorted(set(arrays) ^ names)}")
     cube = arrays["intensity"].shape
-    if (len(cube) != 3 or arrays["tau"].shape != cube or arrays["em"].shape != cube[1:]
-            or arrays["nu"].shape != cube[:1] or arrays["background"].shape != cube[:1]
-            or arrays["center"].shape != (3,)):
+    if (
+        len(cube) != 3
+        or arrays["tau"].shape != cube
+        or arrays["em"].shape != cube[1:]
+        or arrays["nu"].shape != cube[:1]
+        or arrays["background"].shape != cube[:1]
+        or arrays["center"].shape != (3,)
+    ):
         raise ValueError("inconsistent array shapes")
-    res = Result(arrays["intensity"], arrays["tau"], arrays["em"], arrays["nu"], view, float(meta["pixel_size_cm"]),
-                 arrays["center"], meta["provenance"], rays_per_pixel=int(meta["rays_per_pixel"]),
-                 background=arrays["background"], background_info=Background(*meta["background_info"]))
+    res = Result(
+        arrays["intensity"],
+        arrays["tau"],
+        arrays["em"],
+        arrays["nu"],
+        view,
+        float(meta["pixel_size_cm"]),
+        arrays["center"],
+        meta["provenance"],
+        rays_per_pixel=int(meta["rays_per_pixel"]),
+        background=arrays["background"],
+        background_info=Background(*meta["background_info"]),
+    )
     if sky_meta is None:
         return res, None
     rms = arrays.get("sky_rms")
-    if (arrays["sky_data"].shape != cube or arrays["sky_model"].shape != cube
-            or arrays["sky_beams"].shape != (cube[0], 3) or arrays["sky_beam"].shape != (1, 3)
-            or (rms is not None and rms.shape != cube[:1])):
+    if (
+        arrays["sky_data"].shape != cube
+        or arrays["sky_model"].shape != cube
+        or arrays["sky_beams"].shape != (cube[0], 3)
+        or arrays["sky_beam"].shape != (1, 3)
+        or (rms is not None and rms.shape != cube[:1])
+    ):
         raise ValueError("inconsistent observed-map shapes")
-    sky = SkyMap(arrays["sky_data"], arrays["sky_model"], [_beam(r) for r in arrays["sky_beams"]], res, rms,
-                 sky_meta["provenance"], beam=_beam(arrays["sky_beam"][0]), beam_scaling=sky_meta["beam_scaling"],
-                 reference_frequency=sky_meta["reference_frequency"], seed=sky_meta["seed"],
-                 background=sky_meta["background"])
+    sky = SkyMap(
+        arrays["sky_data"],
+        arrays["sky_model"],
+        [_beam(r) for r in arrays["sky_beams"]],
+        res,
+        rms,
+        sky_meta["provenance"],
+        beam=_beam(arrays["sky_beam"][0]),
+        beam_scaling=sky_meta["beam_scaling"],
+        reference_frequency=sky_meta["reference_frequency"],
+        seed=sky_meta["seed"],
+        background=sky_meta["background"],
+    )
     return res, sky
 
 
@@ -185,10 +242,13 @@ def _plain_zip(handle):
     size = os.fstat(handle.fileno()).st_size
     with zipfile.ZipFile(handle) as archive:
         infos = archive.infolist()
-        if not (infos and all(i.compress_type == zipfile.ZIP_STORED for i in infos)
-                and sum(i.file_size for i in infos) <= size):
+        if not (
+            infos
+            and all(i.compress_type == zipfile.ZIP_STORED for i in infos)
+            and sum(i.file_size for i in infos) <= size
+        ):
             return False
-        return archive.testzip() is None     # every member's CRC-32, headers and padding included
+        return archive.testzip() is None  # every member's CRC-32, headers and padding included
 
 
 class Cache:
@@ -225,7 +285,7 @@ class Cache:
         try:
             arrays = to_arrays(res, sky, unit.data_key)
         except (TypeError, ValueError, AttributeError):
-            return                          # not storable: the pictures retrace this view instead
+            return  # not storable: the pictures retrace this view instead
         digest = content_digest(arrays)
         arrays["checksum"] = np.frombuffer(f"{digest} {self._signature(digest)}".encode("ascii"), np.uint8)
         path = self._file(unit)
@@ -235,30 +295,32 @@ class Cache:
                 with open(tmp, "wb") as handle:  # a file object: np.savez would otherwise append ".npz"
                     np.savez(handle, **arrays)
         except (OSError, OutputError):
-            return     # no room, no permission, a folder in the way: the pictures retrace this view instead
+            return  # no room, no permission, a folder in the way: the pictures retrace this view instead
 
     def get(self, unit):
         """``(Result, SkyMap or None)`` of ``unit``, or None when there is no entry that passes every check."""
         path = self._file(unit)
         try:
             if not stat.S_ISREG(os.stat(path).st_mode):
-                return None                 # a folder, a pipe (reading would block), a device
+                return None  # a folder, a pipe (reading would block), a device
             with open(path, "rb") as handle:
                 if not _plain_zip(handle):
                     return None
                 handle.seek(0)
                 with np.load(handle, allow_pickle=False) as npz:
-                    arrays = {name: np.array(npz[name]) for name in npz.files}   # writable copies
+                    arrays = {name: np.array(npz[name]) for name in npz.files}  # writable copies
             stamp = arrays.pop("checksum").tobytes().decode("ascii").split(" ")
             if len(stamp) != 2 or any(a.dtype.kind not in "fiub" for a in arrays.values()):
                 return None
             digest, signature = stamp
-            if not (hmac.compare_digest(digest, content_digest(arrays))
-                    and hmac.compare_digest(signature, self._signature(digest))):
-                return None                 # damaged, or not written with this user's key
+            if not (
+                hmac.compare_digest(digest, content_digest(arrays))
+                and hmac.compare_digest(signature, self._signature(digest))
+            ):
+                return None  # damaged, or not written with this user's key
             meta = json.loads(arrays["meta"].tobytes().decode("utf-8"))
             if not isinstance(meta, dict) or meta.get("format") != CACHE_FORMAT or meta.get("inputs") != unit.data_key:
-                return None                 # another format, or another view's entry under this name
+                return None  # another format, or another view's entry under this name
             return from_arrays(arrays, unit.view)
         except _READ_ERRORS:
             return None

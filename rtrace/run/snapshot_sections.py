@@ -88,8 +88,10 @@ class SnapshotSection(Section):
             thermal inputs, missing files, a pattern matching nothing, two snapshots with one label.
         """
         if table is None:
-            raise ConfigError("job: the [snapshot] table is required (kind = 'hdf5' or 'yt' with a path, or "
-                              "kind = 'demo' for the built-in scenario)")
+            raise ConfigError(
+                "job: the [snapshot] table is required (kind = 'hdf5' or 'yt' with a path, or "
+                "kind = 'demo' for the built-in scenario)"
+            )
         snap = typed_table(table, "snapshot")
         check_snapshot(snap, table)
         snap["kind"] = kind = snap.get("kind", "demo")
@@ -106,8 +108,9 @@ def _check_kind_keys(snap, kind):
     if kind == "yt":
         for key in ("cell_size", "origin", "units", "subvolume"):
             if key in snap:
-                raise ConfigError(f"[snapshot].{key}: not used with kind = 'yt' (yt reads the geometry and "
-                                  "units from the dataset)")
+                raise ConfigError(
+                    f"[snapshot].{key}: not used with kind = 'yt' (yt reads the geometry and units from the dataset)"
+                )
     elif "level" in snap:
         raise ConfigError("[snapshot].level: only used with kind = 'yt'")
 
@@ -116,13 +119,17 @@ def _thermal(snap, kind):
     """``[snapshot]``: one thermal input; pressure and internal energy need the mass density."""
     thermal = [k for k in THERMAL_INPUTS if k in snap]
     if len(thermal) != 1:
-        raise ConfigError(f"[snapshot]: give exactly one of 'temperature', 'pressure' or 'internal_energy' when "
-                          f"kind = '{kind}' (got {', '.join(repr(k) for k in thermal) or 'none'})")
+        raise ConfigError(
+            f"[snapshot]: give exactly one of 'temperature', 'pressure' or 'internal_energy' when "
+            f"kind = '{kind}' (got {', '.join(repr(k) for k in thermal) or 'none'})"
+        )
     if ("electron_density" in snap) == ("density" in snap):
         raise ConfigError("[snapshot]: give exactly one of 'electron_density' or 'density'")
     if thermal[0] != "temperature" and "density" not in snap:
-        raise ConfigError(f"[snapshot].{thermal[0]}: needs 'density' (the temperature is derived from it with the "
-                          "ionization model's particle count)")
+        raise ConfigError(
+            f"[snapshot].{thermal[0]}: needs 'density' (the temperature is derived from it with the "
+            "ionization model's particle count)"
+        )
     if "gamma" in snap:
         if thermal[0] == "temperature":
             raise ConfigError("[snapshot].gamma: only used with 'pressure' or 'internal_energy'")
@@ -137,7 +144,7 @@ def _hdf5_file(value, where, base_dir, directories=False):
     path = (base_dir / value).resolve()
     try:
         found = path.exists() if directories else path.is_file()
-    except OSError as exc:                  # a name too long for the file system
+    except OSError as exc:  # a name too long for the file system
         raise ConfigError(f"{where}: {path} cannot be used: {exc.strerror}") from None
     if not found:
         raise ConfigError(f"{where}: {'path' if directories else 'file'} not found: {path}")
@@ -148,20 +155,25 @@ def _unique_labels(members, where):
     """Outputs are named by label, so two snapshots with one label would overwrite each other."""
     seen = {}
     for m in members:
-        if m.label in (".", ".."):         # '...h5' has the stem '..': its folder would be the parent's
-            raise ConfigError(f"{where}: the snapshot {m.path} is labelled '{m.label}' by its file "
-                              f"name, which cannot name its output folder; rename the file")
+        if m.label in (".", ".."):  # '...h5' has the stem '..': its folder would be the parent's
+            raise ConfigError(
+                f"{where}: the snapshot {m.path} is labelled '{m.label}' by its file "
+                f"name, which cannot name its output folder; rename the file"
+            )
         if m.label in seen:
-            raise ConfigError(f"{where}: two snapshots share the label '{m.label}' ({seen[m.label]} and "
-                              f"{m.origin}); outputs are named by label, so labels must differ")
+            raise ConfigError(
+                f"{where}: two snapshots share the label '{m.label}' ({seen[m.label]} and "
+                f"{m.origin}); outputs are named by label, so labels must differ"
+            )
         seen[m.label] = m.origin
 
 
 def _demo_members(snap):
     for key in ("paths", "pattern"):
         if key in snap:
-            raise ConfigError(f"[snapshot].{key}: only used with kind = 'hdf5' or 'yt' "
-                              f"(a series of demo snapshots takes 'seeds')")
+            raise ConfigError(
+                f"[snapshot].{key}: only used with kind = 'hdf5' or 'yt' (a series of demo snapshots takes 'seeds')"
+            )
     if "seeds" not in snap:
         return [Member("demo", seed=snap.get("seed", DEMO_SEED))], False
     if "seed" in snap:
@@ -181,28 +193,31 @@ def _pattern_files(pattern, base_dir, dirs):
     # relative to the job file, like every other path in a job; sorted so that the series
     # order (and therefore the output layout and progress) does not depend on the file system
     full = pattern if Path(pattern).is_absolute() else str(base_dir / pattern)
-    files = sorted(Path(p).resolve() for p in glob.glob(full, recursive=True)
-                   if (Path(p).exists() if dirs else Path(p).is_file()))
+    files = sorted(
+        Path(p).resolve() for p in glob.glob(full, recursive=True) if (Path(p).exists() if dirs else Path(p).is_file())
+    )
     if not files:
-        raise ConfigError(f"[snapshot].pattern: '{pattern}' matches no file (looked in "
-                          f"{Path(full).parent.resolve()})")
+        raise ConfigError(f"[snapshot].pattern: '{pattern}' matches no file (looked in {Path(full).parent.resolve()})")
     return files
 
 
 def _file_members(snap, base_dir):
     """Members of an HDF5 or yt job; ``snap["path"]`` is resolved in place."""
     if "seeds" in snap:
-        raise ConfigError("[snapshot].seeds: only used with kind = 'demo' (a series of files takes "
-                          "'paths' or 'pattern')")
+        raise ConfigError(
+            "[snapshot].seeds: only used with kind = 'demo' (a series of files takes 'paths' or 'pattern')"
+        )
     kind = snap["kind"]
     dirs = kind == "yt"
     sources = [k for k in ("path", "paths", "pattern") if k in snap]
     if not sources:
-        raise ConfigError(f"[snapshot]: 'path' is required when kind = '{kind}' (or 'paths' / 'pattern' "
-                          "for a series of files)")
+        raise ConfigError(
+            f"[snapshot]: 'path' is required when kind = '{kind}' (or 'paths' / 'pattern' for a series of files)"
+        )
     if len(sources) > 1:
-        raise ConfigError(f"[snapshot]: give one of 'path', 'paths' or 'pattern', not "
-                          f"{' and '.join(repr(k) for k in sources)}")
+        raise ConfigError(
+            f"[snapshot]: give one of 'path', 'paths' or 'pattern', not {' and '.join(repr(k) for k in sources)}"
+        )
     if "path" in snap:
         snap["path"] = _hdf5_file(snap["path"], "[snapshot].path", base_dir, dirs)
         return [Member(snap["path"].stem, path=snap["path"])], False
@@ -231,12 +246,19 @@ def snapshot_members(snap, base_dir):
 
 # The ionization models a job may name, and which [ionization] keys each one takes.
 MODEL_KEYS = {
-    "full": {"helium"}, "threshold": {"threshold", "helium"}, "saha": set(), "collisional": {"case"},
+    "full": {"helium"},
+    "threshold": {"threshold", "helium"},
+    "saha": set(),
+    "collisional": {"case"},
     "supplied": {"fraction", "helium", "helium_ii", "helium_iii"},
     "sources": {"sources", "ionized_temperature", "helium", "allow_outside", "rays_per_cell"},
 }
-_HELIUM_CHOICES = {"full": ("single", "double"), "threshold": ("single", "double"),
-                   "supplied": ("single", "double", "none", "follow"), "sources": ("single", "none")}
+_HELIUM_CHOICES = {
+    "full": ("single", "double"),
+    "threshold": ("single", "double"),
+    "supplied": ("single", "double", "none", "follow"),
+    "sources": ("single", "none"),
+}
 _COMMON_IONIZATION = {"model", "hydrogen_mass_fraction", "helium_mass_fraction"}
 
 
@@ -270,8 +292,10 @@ class Source(Section):
 def _sources(entries):
     """``[[ionization.sources]]``: a tuple of :class:`Source`."""
     if not entries:
-        raise ConfigError("[ionization].sources: expected a non-empty list of sources, each "
-                          "{ position = ['1 pc', '2 pc', '3 pc'], rate = '1e49 / s' }")
+        raise ConfigError(
+            "[ionization].sources: expected a non-empty list of sources, each "
+            "{ position = ['1 pc', '2 pc', '3 pc'], rate = '1e49 / s' }"
+        )
     return tuple(Source.parse(entry, i) for i, entry in enumerate(entries))
 
 
@@ -306,14 +330,18 @@ class IonizationSection(Section):
         """Validate ``[ionization]`` for the job's ``snapshot`` (a :class:`SnapshotSection`)."""
         ion = typed_table(table, "ionization")
         if ion and (snapshot.kind == "demo" or snapshot.electron_density is not None):
-            raise ConfigError("[ionization]: only used with [snapshot].density (the demo scenario and "
-                              "snapshots with electron_density carry their own ionization)")
+            raise ConfigError(
+                "[ionization]: only used with [snapshot].density (the demo scenario and "
+                "snapshots with electron_density carry their own ionization)"
+            )
         model = ion.get("model", DEFAULT_MODEL)
         _check_model_keys(ion, model)
         if model == "sources":
             if "sources" not in ion:
-                raise ConfigError("[ionization]: model = 'sources' needs 'sources', e.g. [[ionization.sources]] "
-                                  "position = ['1 pc', '2 pc', '3 pc'], rate = '1e49 / s'")
+                raise ConfigError(
+                    "[ionization]: model = 'sources' needs 'sources', e.g. [[ionization.sources]] "
+                    "position = ['1 pc', '2 pc', '3 pc'], rate = '1e49 / s'"
+                )
             ion["sources"] = _sources(ion["sources"])
         _check_ionization_values(ion)
         return cls._build(ion)
@@ -322,20 +350,25 @@ class IonizationSection(Section):
 def _check_model_keys(ion, model):
     """The model exists, and every key given is one it uses, with an allowed value."""
     if model not in MODEL_KEYS:
-        raise ConfigError(f"[ionization].model: '{model}'{_suggest(model, MODEL_KEYS)} is not one of "
-                          f"{', '.join(MODEL_KEYS)}")
+        raise ConfigError(
+            f"[ionization].model: '{model}'{_suggest(model, MODEL_KEYS)} is not one of {', '.join(MODEL_KEYS)}"
+        )
     for key in sorted(set(ion) - _COMMON_IONIZATION - MODEL_KEYS[model]):
         users = [m for m, keys in MODEL_KEYS.items() if key in keys]
-        raise ConfigError(f"[ionization].{key}: not used by model = '{model}' (it belongs to "
-                          f"{' or '.join(repr(m) for m in users)})")
+        raise ConfigError(
+            f"[ionization].{key}: not used by model = '{model}' (it belongs to {' or '.join(repr(m) for m in users)})"
+        )
     if "helium" in ion and ion["helium"] not in _HELIUM_CHOICES.get(model, ()):
-        raise ConfigError(f"[ionization].helium: '{ion['helium']}' is not valid for model = '{model}'; choose "
-                          f"one of {', '.join(_HELIUM_CHOICES[model])}")
+        raise ConfigError(
+            f"[ionization].helium: '{ion['helium']}' is not valid for model = '{model}'; choose "
+            f"one of {', '.join(_HELIUM_CHOICES[model])}"
+        )
     if "case" in ion and ion["case"] not in ("A", "B"):
         raise ConfigError(f"[ionization].case: '{ion['case']}' is not 'A' or 'B'")
     if model == "supplied" and "fraction" not in ion:
-        raise ConfigError("[ionization]: model = 'supplied' needs 'fraction' (the dataset with the hydrogen "
-                          "ionized fraction)")
+        raise ConfigError(
+            "[ionization]: model = 'supplied' needs 'fraction' (the dataset with the hydrogen ionized fraction)"
+        )
     if model == "supplied" and "helium" in ion and ({"helium_ii", "helium_iii"} & set(ion)):
         raise ConfigError("[ionization].helium: not used when 'helium_ii' / 'helium_iii' datasets are given")
 
@@ -348,11 +381,14 @@ def _check_ionization_values(ion):
     for key in ("hydrogen_mass_fraction", "helium_mass_fraction"):
         if key in ion and not 0 <= ion[key] <= 1:
             raise ConfigError(f"[ionization].{key}: a mass fraction lies in [0, 1], got {ion[key]}")
-    total = (ion.get("hydrogen_mass_fraction", DEFAULT_HYDROGEN_MASS_FRACTION)
-             + ion.get("helium_mass_fraction", DEFAULT_HELIUM_MASS_FRACTION))
+    total = ion.get("hydrogen_mass_fraction", DEFAULT_HYDROGEN_MASS_FRACTION) + ion.get(
+        "helium_mass_fraction", DEFAULT_HELIUM_MASS_FRACTION
+    )
     if total > 1:
-        raise ConfigError(f"[ionization].helium_mass_fraction: hydrogen_mass_fraction + helium_mass_fraction = "
-                          f"{total:.6g} exceeds 1 (the defaults are {DEFAULT_HYDROGEN_MASS_FRACTION:.2f} and "
-                          f"{DEFAULT_HELIUM_MASS_FRACTION:.2f})")
+        raise ConfigError(
+            f"[ionization].helium_mass_fraction: hydrogen_mass_fraction + helium_mass_fraction = "
+            f"{total:.6g} exceeds 1 (the defaults are {DEFAULT_HYDROGEN_MASS_FRACTION:.2f} and "
+            f"{DEFAULT_HELIUM_MASS_FRACTION:.2f})"
+        )
     if "rays_per_cell" in ion and not 4 <= ion["rays_per_cell"] <= 64:
         raise ConfigError(f"[ionization].rays_per_cell: expected a number from 4 to 64, got {ion['rays_per_cell']}")

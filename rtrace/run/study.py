@@ -39,8 +39,14 @@ import numpy as np
 
 from ..errors import ConfigError, InputError
 
-__all__ = ["SynthesisSection", "ComparisonSection", "synthesis_section", "comparison_section",
-           "check_synthesis_grids", "file_fingerprint"]
+__all__ = [
+    "SynthesisSection",
+    "ComparisonSection",
+    "synthesis_section",
+    "comparison_section",
+    "check_synthesis_grids",
+    "file_fingerprint",
+]
 
 
 def file_fingerprint(path):
@@ -55,7 +61,7 @@ def _readable_file(value, where, base_dir):
     path = (Path(base_dir) / value).resolve()
     try:
         found = path.is_file()
-    except OSError as exc:                  # a name too long for the file system
+    except OSError as exc:  # a name too long for the file system
         raise ConfigError(f"{where}: {path} cannot be used: {exc.strerror}") from None
     if not found:
         raise ConfigError(f"{where}: file not found: {path}")
@@ -71,13 +77,16 @@ def _views(spec, where, names):
     for v in views:
         if v not in names:
             from .values import _suggest
-            raise ConfigError(f"{where}.views: no view named {v!r}{_suggest(str(v), names)} (the job has: "
-                              f"{', '.join(names)})")
+
+            raise ConfigError(
+                f"{where}.views: no view named {v!r}{_suggest(str(v), names)} (the job has: {', '.join(names)})"
+            )
     return list(views)
 
 
 def _angles(value, where, count, kinds=("angle",)):
     from .values import _typed
+
     if not isinstance(value, list) or len(value) != count:
         raise ConfigError(f"{where}: expected a list of {count} values with units")
     return u.Quantity([_typed(v, kinds, f"{where}[{i}]") for i, v in enumerate(value)])
@@ -105,6 +114,7 @@ class SynthesisSection:
     def parse(cls, table, base_dir, view_names):
         """Validate ``[synthesis]`` (as written; None when absent); None when the job has none."""
         from .schema import typed_table
+
         return synthesis_section(typed_table(table, "synthesis"), base_dir, view_names)
 
 
@@ -138,18 +148,22 @@ class ComparisonSection:
     def parse(cls, table, base_dir, view_names, frequencies):
         """Validate ``[comparison]`` (as written; None when absent); None when the job has none."""
         from .schema import typed_table
+
         return comparison_section(typed_table(table, "comparison"), base_dir, view_names, frequencies)
 
 
 def _synthesis_antennas(spec, base_dir, where):
     from ..interferometer.array import antenna_positions
+
     for key in ("antennas", "latitude"):
         if key not in spec:
             raise ConfigError(f"{where}: '{key}' is required")
     path = _readable_file(spec["antennas"], f"{where}.antennas", base_dir)
     try:
-        antennas = antenna_positions(os.fspath(path), unit=spec.get("antenna_unit"),
-                                     unit_option="[synthesis].antenna_unit") * u.m
+        antennas = (
+            antenna_positions(os.fspath(path), unit=spec.get("antenna_unit"), unit_option="[synthesis].antenna_unit")
+            * u.m
+        )
     except InputError as exc:
         raise ConfigError(f"{where}.antennas: {exc}") from None
     return path, antennas
@@ -158,18 +172,23 @@ def _synthesis_antennas(spec, base_dir, where):
 def _synthesis_hour_angles(spec, kw, where):
     """``hour_angle_range``, ``hour_angle_step`` / ``n_hour_angles`` and ``min_elevation`` of ``[synthesis]``."""
     from ..interferometer.array import hour_angle_samples
+
     if "hour_angle_step" in spec and "n_hour_angles" in spec:
         raise ConfigError(f"{where}: give 'hour_angle_step' or 'n_hour_angles', not both")
-    if kw.get("n_hour_angles", 1) > 1_000_000:      # the bound hour_angle_samples puts on a step
+    if kw.get("n_hour_angles", 1) > 1_000_000:  # the bound hour_angle_samples puts on a step
         raise ConfigError(f"{where}.n_hour_angles: {kw['n_hour_angles']} samples; give at most 1000000")
     if "min_elevation" in kw:
         elevation = kw["min_elevation"].to_value(u.deg)
         if not (np.isfinite(elevation) and -90.0 <= elevation < 90.0):
-            raise ConfigError(f"{where}.min_elevation: an elevation lies in [-90, 90) deg, got "
-                              f"'{spec['min_elevation']}'")
+            raise ConfigError(
+                f"{where}.min_elevation: an elevation lies in [-90, 90) deg, got '{spec['min_elevation']}'"
+            )
     try:
-        hour_angle_samples(kw.get("hour_angle_range", (-4, 4) * u.hourangle), kw.get("hour_angle_step"),
-                           kw.get("n_hour_angles", None if "hour_angle_step" in kw else 1))
+        hour_angle_samples(
+            kw.get("hour_angle_range", (-4, 4) * u.hourangle),
+            kw.get("hour_angle_step"),
+            kw.get("n_hour_angles", None if "hour_angle_step" in kw else 1),
+        )
     except InputError as exc:
         raise ConfigError(f"{where}.{str(exc).split(':', 1)[0]}: {str(exc).split(':', 1)[1].strip()}") from None
 
@@ -178,6 +197,7 @@ def _synthesis_choices(kw, where):
     """Weighting and primary beam among those known, and the keys that only go with them."""
     from ..interferometer.imaging import WEIGHTINGS
     from ..interferometer.sampling import PRIMARY_BEAMS
+
     if kw.get("weighting", "natural") not in WEIGHTINGS:
         raise ConfigError(f"{where}.weighting: '{kw['weighting']}' is not one of {', '.join(WEIGHTINGS)}")
     if kw.get("primary_beam", "gaussian") not in PRIMARY_BEAMS:
@@ -204,9 +224,21 @@ def _synthesis_numbers(kw, where):
             raise ConfigError(f"{where}.{key}: must be positive, got '{kw[key]}'")
 
 
-_SYNTHESIS_KEYWORDS = ("hour_angle_step", "n_hour_angles", "min_elevation", "dish_diameter", "primary_beam",
-                       "primary_beam_fwhm_factor", "weighting", "robust", "gain", "niter", "threshold",
-                       "pixel_scale", "image_size")
+_SYNTHESIS_KEYWORDS = (
+    "hour_angle_step",
+    "n_hour_angles",
+    "min_elevation",
+    "dish_diameter",
+    "primary_beam",
+    "primary_beam_fwhm_factor",
+    "weighting",
+    "robust",
+    "gain",
+    "niter",
+    "threshold",
+    "pixel_scale",
+    "image_size",
+)
 
 
 def synthesis_section(spec, base_dir, view_names):
@@ -221,8 +253,7 @@ def synthesis_section(spec, base_dir, view_names):
         raise ConfigError(f"{where}.latitude: must lie in [-90, 90] deg, got '{spec['latitude']}'")
     kw["latitude"] = spec["latitude"]
     if "hour_angle_range" in spec:
-        kw["hour_angle_range"] = _angles(spec["hour_angle_range"], f"{where}.hour_angle_range", 2,
-                                         ("angle", "time"))
+        kw["hour_angle_range"] = _angles(spec["hour_angle_range"], f"{where}.hour_angle_range", 2, ("angle", "time"))
     kw.update({key: spec[key] for key in _SYNTHESIS_KEYWORDS if key in spec})
     _synthesis_hour_angles(spec, kw, where)
     _synthesis_choices(kw, where)
@@ -237,6 +268,7 @@ def synthesis_section(spec, base_dir, view_names):
 
 def _comparison_beam(value, where):
     import radio_beam
+
     major, minor, pa = _angles(value, f"{where}.beam", 3)
     if not np.all(np.isfinite([major.value, minor.value, pa.value])):
         raise ConfigError(f"{where}.beam: major, minor and position angle must be finite, got {value}")
@@ -250,6 +282,7 @@ def _observation(spec, path, where, frequencies):
     import warnings
 
     from ..comparison import read_observation
+
     kw = {}
     if "frequency" in spec:
         kw["frequency"] = spec["frequency"]
@@ -260,21 +293,24 @@ def _observation(spec, path, where, frequencies):
     options = {k: f"{where}.{k}" for k in ("frequency", "beam", "unit")}
     try:
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore")          # notes are repeated in the comparison's own output
+            warnings.simplefilter("ignore")  # notes are repeated in the comparison's own output
             obs = read_observation(os.fspath(path), name=f"{where}.observation", options=options, **kw)
     except InputError as exc:
         raise ConfigError(str(exc)) from None
     nu = obs.frequency.to_value(u.Hz)
     lo, hi = float(frequencies.min().to_value(u.Hz)), float(frequencies.max().to_value(u.Hz))
     if not lo * (1 - 1e-9) <= nu <= hi * (1 + 1e-9):
-        raise ConfigError(f"{where}.observation: observed at {nu / 1e9:.6g} GHz, outside the job's frequencies "
-                          f"({lo / 1e9:.6g}-{hi / 1e9:.6g} GHz); add it to [frequencies]")
+        raise ConfigError(
+            f"{where}.observation: observed at {nu / 1e9:.6g} GHz, outside the job's frequencies "
+            f"({lo / 1e9:.6g}-{hi / 1e9:.6g} GHz); add it to [frequencies]"
+        )
     return obs
 
 
 def _apertures(names, base_dir, where):
     """``(apertures, fingerprints)``: ``(label, region)`` pairs of every region file, and the files' fingerprints."""
     import regions
+
     apertures, fingerprints = [], []
     for i, name in enumerate(names):
         w = f"{where}.apertures[{i}]"
@@ -283,7 +319,7 @@ def _apertures(names, base_dir, where):
         rpath = _readable_file(name, w, base_dir)
         try:
             regs = regions.Regions.read(os.fspath(rpath))
-        except Exception as exc:        # the regions parsers raise many kinds of errors
+        except Exception as exc:  # the regions parsers raise many kinds of errors
             raise ConfigError(f"{w}: cannot read {rpath.name} as a region file: {exc}") from None
         if len(regs) == 0:
             raise ConfigError(f"{w}: {rpath.name} holds no region")
@@ -337,10 +373,15 @@ def check_synthesis_grids(job, views):
         ground[np.diag_indices(len(pos))] = np.inf
         if ground.min() < d:
             i, j = np.unravel_index(np.argmin(ground), ground.shape)
-            raise ConfigError(f"[synthesis].dish_diameter: antennas {min(i, j)} and {max(i, j)} stand "
-                              f"{ground.min():.4g} m apart on the ground, closer than one dish diameter ({d:.4g} m)")
-        factor = (kw.get("primary_beam_fwhm_factor", GAUSSIAN_FWHM_FACTOR)
-                  if kw.get("primary_beam", "gaussian") == "gaussian" else AIRY_FWHM_FACTOR)
+            raise ConfigError(
+                f"[synthesis].dish_diameter: antennas {min(i, j)} and {max(i, j)} stand "
+                f"{ground.min():.4g} m apart on the ground, closer than one dish diameter ({d:.4g} m)"
+            )
+        factor = (
+            kw.get("primary_beam_fwhm_factor", GAUSSIAN_FWHM_FACTOR)
+            if kw.get("primary_beam", "gaussian") == "gaussian"
+            else AIRY_FWHM_FACTOR
+        )
         pb = factor / d
     lam = C / job.frequencies.to_value(u.Hz) * 1e-2
     for name, view in views:

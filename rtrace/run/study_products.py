@@ -34,11 +34,13 @@ JOB_COPY_NAME = "job.toml"
 def _stem(job, unit, suffix):
     """``<folder>/<prefix><view>_<suffix>``, as every output of a view is named (checked inside the folder)."""
     from .products import _stem as stem
+
     return stem(job, unit, suffix)
 
 
 def _close(fig):
     import matplotlib.pyplot as plt
+
     plt.close(fig)
 
 
@@ -58,6 +60,7 @@ class _Once:
 
 def _synthesize(res, kwargs):
     from ..interferometer import synthesize
+
     return synthesize(res, **kwargs)
 
 
@@ -65,8 +68,9 @@ def _compare(res, kwargs):
     import warnings
 
     from ..comparison import ComparisonWarning, compare
+
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ComparisonWarning)      # notes are written into the table
+        warnings.simplefilter("ignore", ComparisonWarning)  # notes are written into the table
         return compare(res, kwargs["observation"])
 
 
@@ -76,6 +80,7 @@ def _write_synth_fits(path, res, sky, once):
 
 def _draw_synth(path, res, sky, once):
     from ..plot import plot_panels
+
     _close(plot_panels(once(res), quantity="intensity", path=path))
 
 
@@ -101,24 +106,47 @@ def study_outputs(job, unit, fmt):
     if syn is not None and unit.name in syn.views:
         once = _Once(partial(_synthesize, kwargs=syn.kwargs))
         settings = {"synthesis": syn.key}
-        plan.append(Output(_stem(job, unit, "synthesized.fits"), output_key(unit.base, "synthesized:fits", settings),
-                           partial(_write_synth_fits, once=once)))
+        plan.append(
+            Output(
+                _stem(job, unit, "synthesized.fits"),
+                output_key(unit.base, "synthesized:fits", settings),
+                partial(_write_synth_fits, once=once),
+            )
+        )
         if pictures:
-            plan.append(Output(_stem(job, unit, f"synthesized.{fmt}"),
-                               output_key(unit.base, f"synthesized:{fmt}", settings),
-                               partial(_draw_synth, once=once)))
+            plan.append(
+                Output(
+                    _stem(job, unit, f"synthesized.{fmt}"),
+                    output_key(unit.base, f"synthesized:{fmt}", settings),
+                    partial(_draw_synth, once=once),
+                )
+            )
     cmp = job.comparison
     if cmp is not None and unit.name in cmp.views:
         once = _Once(partial(_compare, kwargs=cmp.kwargs))
         settings = {"comparison": cmp.key}
-        plan.append(Output(_stem(job, unit, "comparison.fits"), output_key(unit.base, "comparison:fits", settings),
-                           partial(_write_comparison_fits, once=once)))
-        plan.append(Output(_stem(job, unit, "comparison.ecsv"), output_key(unit.base, "comparison:ecsv", settings),
-                           partial(_write_comparison_table, once=once, apertures=cmp.apertures, name=unit.name)))
+        plan.append(
+            Output(
+                _stem(job, unit, "comparison.fits"),
+                output_key(unit.base, "comparison:fits", settings),
+                partial(_write_comparison_fits, once=once),
+            )
+        )
+        plan.append(
+            Output(
+                _stem(job, unit, "comparison.ecsv"),
+                output_key(unit.base, "comparison:ecsv", settings),
+                partial(_write_comparison_table, once=once, apertures=cmp.apertures, name=unit.name),
+            )
+        )
         if pictures:
-            plan.append(Output(_stem(job, unit, f"comparison.{fmt}"),
-                               output_key(unit.base, f"comparison:{fmt}", settings),
-                               partial(_draw_comparison, once=once)))
+            plan.append(
+                Output(
+                    _stem(job, unit, f"comparison.{fmt}"),
+                    output_key(unit.base, f"comparison:{fmt}", settings),
+                    partial(_draw_comparison, once=once),
+                )
+            )
     return plan
 
 
@@ -132,6 +160,7 @@ def _recorded_names(directory):
     import json
 
     from .manifest import MANIFEST_NAME
+
     try:
         data = json.loads((directory / MANIFEST_NAME).read_text(encoding="utf-8"))
         return set(data.get("outputs", {}))
@@ -152,6 +181,7 @@ def check_job_copy(job, directory):
         Naming the file and what to do.
     """
     from ..errors import ConfigError
+
     path = directory / JOB_COPY_NAME
     if job.text is None or not path.exists() or JOB_COPY_NAME in _recorded_names(directory):
         return
@@ -160,14 +190,17 @@ def check_job_copy(job, directory):
     except (OSError, UnicodeDecodeError):
         same = False
     if not same:
-        raise ConfigError(f"[output].directory: {path} exists and was not written by rtrace; a run keeps a copy "
-                          f"of its job file under that name, so move that file or write the outputs elsewhere "
-                          f"(--output on the command line)")
+        raise ConfigError(
+            f"[output].directory: {path} exists and was not written by rtrace; a run keeps a copy "
+            f"of its job file under that name, so move that file or write the outputs elsewhere "
+            f"(--output on the command line)"
+        )
 
 
 def job_copy_output(job, directory):
     """The copy of the job file kept with the outputs (``<directory>/job.toml``), or None without its text."""
     if job.text is None:
         return None
-    return Output(directory / JOB_COPY_NAME, inputs_key({"job_text": job.text}),
-                  partial(_write_job_copy, text=job.text))
+    return Output(
+        directory / JOB_COPY_NAME, inputs_key({"job_text": job.text}), partial(_write_job_copy, text=job.text)
+    )

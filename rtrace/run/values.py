@@ -8,8 +8,16 @@ import numpy as np
 from ..errors import ConfigError
 from ..quantities import JY_PER_BEAM, jy_per_beam
 
-_PHYSICAL = {"length": u.cm, "temperature": u.K, "frequency": u.Hz, "angle": u.deg, "rate": u.s**-1,
-             "flux_per_beam": JY_PER_BEAM, "memory_size": u.byte, "time": u.s}
+_PHYSICAL = {
+    "length": u.cm,
+    "temperature": u.K,
+    "frequency": u.Hz,
+    "angle": u.deg,
+    "rate": u.s**-1,
+    "flux_per_beam": JY_PER_BEAM,
+    "memory_size": u.byte,
+    "time": u.s,
+}
 
 
 def _suggest(key, allowed):
@@ -20,8 +28,9 @@ def _suggest(key, allowed):
 def _check_keys(table, allowed, where):
     for key in table:
         if key not in allowed:
-            raise ConfigError(f"{where}: unknown key '{key}'{_suggest(key, allowed)}; "
-                              f"allowed: {', '.join(sorted(allowed))}")
+            raise ConfigError(
+                f"{where}: unknown key '{key}'{_suggest(key, allowed)}; allowed: {', '.join(sorted(allowed))}"
+            )
 
 
 def _a(kind):
@@ -40,10 +49,10 @@ def _quantity(value, kind, where):
         raise ConfigError(f"{where}: '{value}' has no unit; expected {_a(kind)}")
     equiv = u.spectral() if kind == "frequency" else []
     if kind == "flux_per_beam" and q.unit.is_equivalent(u.Jy):
-        q = jy_per_beam(q, where, error=ConfigError)        # '0.1 mJy' is read as per beam
+        q = jy_per_beam(q, where, error=ConfigError)  # '0.1 mJy' is read as per beam
     if not q.unit.is_equivalent(unit, equivalencies=equiv):
         raise ConfigError(f"{where}: '{value}' is not {_a(kind)} (unit '{q.unit}')")
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):    # a zero wavelength: refused later
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # a zero wavelength: refused later
         return q.to(unit, equivalencies=equiv)
 
 

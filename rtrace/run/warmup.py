@@ -40,12 +40,14 @@ _TOLERANCES = (1e-2, 1e-4)
 def _grid(n=12):
     """A small ionized sphere in empty space (invented; float32 like any default snapshot)."""
     from ..snapshot import Snapshot
+
     x = (np.arange(n) + 0.5) / n - 0.5
-    r = np.sqrt(x[:, None, None]**2 + x[None, :, None]**2 + x[None, None, :]**2)
+    r = np.sqrt(x[:, None, None] ** 2 + x[None, :, None] ** 2 + x[None, None, :] ** 2)
     ne = np.where(r < 0.35, 100.0, 0.0)
     temp = np.full_like(ne, 1.0e4)
-    return Snapshot.from_arrays(temperature=temp * u.K, electron_density=ne * u.cm**-3,
-                                cell_size=0.01 * u.pc, source="rtrace.run.warmup")
+    return Snapshot.from_arrays(
+        temperature=temp * u.K, electron_density=ne * u.cm**-3, cell_size=0.01 * u.pc, source="rtrace.run.warmup"
+    )
 
 
 def warm_up(say=None):
@@ -64,6 +66,7 @@ def warm_up(say=None):
     """
     from ..compiling import watch_compilation
     from ..transfer import View, trace
+
     snap = _grid()
     several, one = [1.0, 10.0, 100.0] * u.GHz, [5.0] * u.GHz
     with watch_compilation(say) as seen:
@@ -86,8 +89,9 @@ def main(argv=None):
     t0 = time.perf_counter()
     seen = warm_up(lambda message: print(f"rtrace warm-up: {message}", flush=True))
     if not seen.count:
-        print(f"rtrace warm-up: kernels already compiled (loaded from numba's cache in "
-              f"{time.perf_counter() - t0:.1f} s)")
+        print(
+            f"rtrace warm-up: kernels already compiled (loaded from numba's cache in {time.perf_counter() - t0:.1f} s)"
+        )
     return 0
 
 

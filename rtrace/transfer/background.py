@@ -50,9 +50,21 @@ from ..errors import InputError
 from ..physics.constants import K_B, C
 from ..physics.planck import inverse_planck_cgs, planck_cgs
 
-__all__ = ["CONVENTIONS", "DEFAULT_CONVENTION", "CMB_TEMPERATURE", "Background", "check_convention",
-           "resolve_convention", "background_from_spec", "background_of", "header_cards", "describe",
-           "brightness_temperature_cgs", "background_in_header", "HEADER_KEYWORDS"]
+__all__ = [
+    "CONVENTIONS",
+    "DEFAULT_CONVENTION",
+    "CMB_TEMPERATURE",
+    "Background",
+    "check_convention",
+    "resolve_convention",
+    "background_from_spec",
+    "background_of",
+    "header_cards",
+    "describe",
+    "brightness_temperature_cgs",
+    "background_in_header",
+    "HEADER_KEYWORDS",
+]
 
 CONVENTIONS = ("subtracted", "included")
 DEFAULT_CONVENTION = "subtracted"
@@ -102,8 +114,10 @@ def check_convention(value, name="background"):
         return value.strip().lower()
     hint = ""
     if (isinstance(value, str) and value.strip().lower() == "cmb") or isinstance(value, u.Quantity):
-        hint = (" (the background itself is chosen when tracing: rtrace.trace(..., background='cmb'); "
-                "here the keyword says whether products include or subtract it)")
+        hint = (
+            " (the background itself is chosen when tracing: rtrace.trace(..., background='cmb'); "
+            "here the keyword says whether products include or subtract it)"
+        )
     raise InputError(f"{name}: expected 'subtracted' or 'included', got {value!r}{hint}")
 
 
@@ -117,12 +131,17 @@ def resolve_convention(background, subtract_background=None, name="background"):
     if subtract_background is None:
         return check_convention(DEFAULT_CONVENTION if background is None else background, name)
     import warnings
-    warnings.warn("subtract_background= is deprecated; use background='subtracted' or 'included'",
-                  DeprecationWarning, stacklevel=3)
+
+    warnings.warn(
+        "subtract_background= is deprecated; use background='subtracted' or 'included'",
+        DeprecationWarning,
+        stacklevel=3,
+    )
     old = "subtracted" if subtract_background else "included"
     if background is not None and check_convention(background, name) != old:
-        raise InputError(f"{name}: {background!r} contradicts subtract_background={subtract_background!r}; "
-                         f"give only background=")
+        raise InputError(
+            f"{name}: {background!r} contradicts subtract_background={subtract_background!r}; give only background="
+        )
     return old
 
 
@@ -189,8 +208,10 @@ def header_cards(convention, background):
     convention = check_convention(convention)
     if not isinstance(background, Background):
         background = background_of(background)
-    cards = [("BKGSUB", convention == "subtracted", "T: no background in data (empty sky reads 0)"),
-             ("BKGKIND", background.kind.upper(), "what is behind: NONE,CMB,BLACKBODY,INTENSITY")]
+    cards = [
+        ("BKGSUB", convention == "subtracted", "T: no background in data (empty sky reads 0)"),
+        ("BKGKIND", background.kind.upper(), "what is behind: NONE,CMB,BLACKBODY,INTENSITY"),
+    ]
     if background.temperature is not None:
         cards.append(("BKGTEMP", float(background.temperature), "[K] background blackbody temperature"))
     return cards
@@ -201,8 +222,7 @@ def describe(convention, background):
     convention = check_convention(convention)
     if not isinstance(background, Background):
         background = background_of(background)
-    what = ("empty sky reads 0" if convention == "subtracted"
-            else "values include the background intensity")
+    what = "empty sky reads 0" if convention == "subtracted" else "values include the background intensity"
     return f"{convention} ({background.label()}): {what}"
 
 
@@ -272,8 +292,10 @@ def background_in_header(header, nu, unit_solid_angle, name="model"):
         return np.zeros_like(nu)
     temperature = header.get("BKGTEMP")
     if kind not in ("CMB", "BLACKBODY") or temperature is None:
-        raise InputError(f"{name}: the header says BKGSUB = F (background included) but gives no background "
-                         f"temperature (BKGKIND = {kind or 'missing'!r}); write the model with "
-                         f"background='subtracted'")
+        raise InputError(
+            f"{name}: the header says BKGSUB = F (background included) but gives no background "
+            f"temperature (BKGKIND = {kind or 'missing'!r}); write the model with "
+            f"background='subtracted'"
+        )
     intensity = planck_cgs(nu, np.full_like(nu, float(temperature)))
     return intensity * np.asarray(unit_solid_angle, float) / 1.0e-23

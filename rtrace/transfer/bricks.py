@@ -27,8 +27,15 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["partition", "front_to_back", "parse_memory", "check_brick_size",
-           "choose_brick_edge", "MIN_BRICK", "DEFAULT_BRICK"]
+__all__ = [
+    "partition",
+    "front_to_back",
+    "parse_memory",
+    "check_brick_size",
+    "choose_brick_edge",
+    "MIN_BRICK",
+    "DEFAULT_BRICK",
+]
 
 #: Smallest brick edge (cells) the memory planner will use: below this the per-brick
 #: bookkeeping (one kernel launch and one Amanatides & Woo layer table per brick and
@@ -63,8 +70,9 @@ def parse_memory(value):
         except (TypeError, ValueError) as exc:
             raise InputError(f"max_memory: cannot read {value!r} ({exc})") from None
     if not isinstance(value, u.Quantity):
-        raise InputError(f"max_memory: expected a Quantity of bytes (e.g. 2 * u.GB) or a string "
-                         f"such as '2 GB', got {value!r}")
+        raise InputError(
+            f"max_memory: expected a Quantity of bytes (e.g. 2 * u.GB) or a string such as '2 GB', got {value!r}"
+        )
     if not value.unit.is_equivalent(u.byte) or value.ndim != 0:
         raise InputError(f"max_memory: expected one amount of memory in bytes, got {value!r}")
     nbytes = float(value.to_value(u.byte))
@@ -136,8 +144,10 @@ def choose_brick_edge(shape, budget, working_set, what):
     hi_edge = max(shape)
     need = working_set(lo_edge)
     if need > budget:
-        raise InputError(f"max_memory: {_mb(budget)} is too small; this trace needs at least {_mb(need)} "
-                         f"({what}, with bricks of {lo_edge}^3 cells)")
+        raise InputError(
+            f"max_memory: {_mb(budget)} is too small; this trace needs at least {_mb(need)} "
+            f"({what}, with bricks of {lo_edge}^3 cells)"
+        )
     # working_set is monotone: bisect for the largest edge that fits
     while lo_edge < hi_edge:
         mid = (lo_edge + hi_edge + 1) // 2

@@ -39,8 +39,7 @@ class Segment:
 
 def composite(near, far):
     """Segment ``near`` (closer to the observer) in front of ``far``."""
-    return Segment(near.intensity + np.exp(-near.tau) * far.intensity,
-                   near.tau + far.tau, near.em + far.em)
+    return Segment(near.intensity + np.exp(-near.tau) * far.intensity, near.tau + far.tau, near.em + far.em)
 
 
 @dataclass

@@ -140,13 +140,18 @@ class Footprint:
         self.lscale = float(lscale)
         self.image_shape = tuple(int(n) for n in image_shape)
         det = self.g_a[0] * self.g_b[1] - self.g_a[1] * self.g_b[0]
-        if not (np.all(np.isfinite(np.concatenate([self.g_a, self.g_b, self.g_c, self.q0])))
-                and math.isfinite(det) and det != 0.0 and self.lscale > 0.0):
-            raise InputError("Footprint: the shadow vectors g_a, g_b must be finite and independent, "
-                             "and lscale positive")
+        if not (
+            np.all(np.isfinite(np.concatenate([self.g_a, self.g_b, self.g_c, self.q0])))
+            and math.isfinite(det)
+            and det != 0.0
+            and self.lscale > 0.0
+        ):
+            raise InputError(
+                "Footprint: the shadow vectors g_a, g_b must be finite and independent, and lscale positive"
+            )
         self.g = np.concatenate([self.g_a, self.g_b, self.g_c])
         corners = np.array([[i, j, k] for i in (0, 1) for j in (0, 1) for k in (0, 1)], float)
-        self.vertices = corners @ np.stack([self.g_a, self.g_b, self.g_c])     # shadow corners rel. d
+        self.vertices = corners @ np.stack([self.g_a, self.g_b, self.g_c])  # shadow corners rel. d
         lo, hi = self.vertices.min(axis=0), self.vertices.max(axis=0)
         self.shadow = np.array([lo[0], hi[0], lo[1], hi[1]])
         self.support = ((-hi[0], 1.0 - lo[0]), (-hi[1], 1.0 - lo[1]))
@@ -154,15 +159,16 @@ class Footprint:
         scale = 1.0
         while True:
             self._build(scale, check)
-            if not check or self.accuracy <= ACCURACY_TARGET \
-                    or self.exact_nodes / _REFINE_STEP**2 > _MAX_EXACT_NODES:
+            if not check or self.accuracy <= ACCURACY_TARGET or self.exact_nodes / _REFINE_STEP**2 > _MAX_EXACT_NODES:
                 break
             scale *= _REFINE_STEP
         if self.accuracy > 10 * ACCURACY_TARGET:
-            warn_user(f"Footprint: the cell-to-pixel kernel of this view is tabulated only to "
-                      f"{self.accuracy:.1e} of its maximum (aimed at {ACCURACY_TARGET:.0e}); pixel values "
-                      f"built from it can be off by about that fraction of a cell's full contribution",
-                      PixelAccuracyWarning)
+            warn_user(
+                f"Footprint: the cell-to-pixel kernel of this view is tabulated only to "
+                f"{self.accuracy:.1e} of its maximum (aimed at {ACCURACY_TARGET:.0e}); pixel values "
+                f"built from it can be off by about that fraction of a cell's full contribution",
+                PixelAccuracyWarning,
+            )
 
     def _build(self, scale, check):
         """Tabulate K at node spacings ``scale`` times the default; keep the better of K and K^(1/3).
@@ -251,11 +257,18 @@ class Footprint:
             coarse.append(a + (b - a) * np.arange(1, n + 1) / n)
             k = np.arange(1, n * _REFINE + 1)
             fine.append(a + (b - a) * k / (n * _REFINE))
-            u = k / _REFINE                                  # position in coarse steps
+            u = k / _REFINE  # position in coarse steps
             j0 = np.clip(np.floor(u).astype(int) - 1, 0, n - 3)
             xi = u - j0
-            w = np.stack([-(xi - 1) * (xi - 2) * (xi - 3) / 6, xi * (xi - 2) * (xi - 3) / 2,
-                          -xi * (xi - 1) * (xi - 3) / 2, xi * (xi - 1) * (xi - 2) / 6], axis=1)
+            w = np.stack(
+                [
+                    -(xi - 1) * (xi - 2) * (xi - 3) / 6,
+                    xi * (xi - 2) * (xi - 3) / 2,
+                    -xi * (xi - 1) * (xi - 3) / 2,
+                    xi * (xi - 1) * (xi - 2) / 6,
+                ],
+                axis=1,
+            )
             blocks.append((ncoarse - 1 + j0, w))
             ncoarse += n
         nfine = sum(len(f) for f in fine)
@@ -282,8 +295,9 @@ class Footprint:
         fx = (dx.ravel() - self.xs[ix]) / (self.xs[ix + 1] - self.xs[ix])
         fy = (dy.ravel() - self.ys[iy]) / (self.ys[iy + 1] - self.ys[iy])
         t = self.table
-        val = ((1 - fy) * ((1 - fx) * t[iy, ix] + fx * t[iy, ix + 1])
-               + fy * ((1 - fx) * t[iy + 1, ix] + fx * t[iy + 1, ix + 1]))
+        val = (1 - fy) * ((1 - fx) * t[iy, ix] + fx * t[iy, ix + 1]) + fy * (
+            (1 - fx) * t[iy + 1, ix] + fx * t[iy + 1, ix + 1]
+        )
         val = np.maximum(val, 0.0) ** self.power
         out.ravel()[:] = np.where(ok, val, 0.0)
         return out
@@ -349,16 +363,24 @@ def project_cells(footprint, values, lo, hi, off, out):
     """
     values = np.asarray(values)
     if values.ndim != 4 or values.dtype not in (np.float32, np.float64):
-        raise InputError(f"values: expected a float32 or float64 array (nq, A, B, C), got {values.dtype} "
-                         f"of shape {values.shape}")
-    if out.ndim != 3 or out.shape[0] != values.shape[0] or out.shape[1:] != footprint.image_shape \
-            or out.dtype != np.float64:
-        raise InputError(f"out: expected float64 of shape {(values.shape[0],) + footprint.image_shape}, "
-                         f"got {out.dtype} {out.shape}")
+        raise InputError(
+            f"values: expected a float32 or float64 array (nq, A, B, C), got {values.dtype} of shape {values.shape}"
+        )
+    if (
+        out.ndim != 3
+        or out.shape[0] != values.shape[0]
+        or out.shape[1:] != footprint.image_shape
+        or out.dtype != np.float64
+    ):
+        raise InputError(
+            f"out: expected float64 of shape {(values.shape[0],) + footprint.image_shape}, got {out.dtype} {out.shape}"
+        )
     lo, hi, off = (np.asarray(x, np.int64).reshape(3) for x in (lo, hi, off))
     if np.any(lo - off < 0) or np.any(hi - off > np.asarray(values.shape[1:])):
-        raise InputError(f"lo, hi: cells {lo.tolist()}..{hi.tolist()} are not all in values "
-                         f"(offset {off.tolist()}, shape {values.shape[1:]})")
+        raise InputError(
+            f"lo, hi: cells {lo.tolist()}..{hi.tolist()} are not all in values "
+            f"(offset {off.tolist()}, shape {values.shape[1:]})"
+        )
     if np.any(hi <= lo):
         return out
     gmat = np.stack([footprint.g_a, footprint.g_b, footprint.g_c])
@@ -368,9 +390,27 @@ def project_cells(footprint, values, lo, hi, off, out):
     nchunk = max(1, min(numba.get_num_threads(), int(hi[perm[0]] - lo[perm[0]])))
     buf = np.zeros((nchunk,) + out.shape)
     fp = footprint
-    _k.project(vals, lo[perm], hi[perm], off[perm], np.ascontiguousarray(gmat[perm]), fp.q0, fp.xs, fp.ys,
-               fp._ixs, fp._iys, fp._bx, fp._by, fp._xinfo, fp._yinfo, fp.table, fp.power, fp.total(),
-               fp.shadow, buf)
+    _k.project(
+        vals,
+        lo[perm],
+        hi[perm],
+        off[perm],
+        np.ascontiguousarray(gmat[perm]),
+        fp.q0,
+        fp.xs,
+        fp.ys,
+        fp._ixs,
+        fp._iys,
+        fp._bx,
+        fp._by,
+        fp._xinfo,
+        fp._yinfo,
+        fp.table,
+        fp.power,
+        fp.total(),
+        fp.shadow,
+        buf,
+    )
     out += buf.sum(axis=0)
     return out
 
@@ -390,18 +430,42 @@ def project_blocks(footprint, values, where, out):
         Receives the footprint means, as in :func:`project_cells`.
     """
     values = np.asarray(values)
-    if values.ndim != 5 or values.dtype != np.float64 or out.shape != (values.shape[4],) + footprint.image_shape \
-            or out.dtype != np.float64 or where.shape != (values.shape[0], 3):
-        raise InputError(f"values/where/out: expected (nblock, W, W, W, nq) float64 values, (nblock, 3) block "
-                         f"indices and (nq, ny, nx) float64 out, got {values.shape} {values.dtype}, "
-                         f"{where.shape}, {out.shape} {out.dtype}")
+    if (
+        values.ndim != 5
+        or values.dtype != np.float64
+        or out.shape != (values.shape[4],) + footprint.image_shape
+        or out.dtype != np.float64
+        or where.shape != (values.shape[0], 3)
+    ):
+        raise InputError(
+            f"values/where/out: expected (nblock, W, W, W, nq) float64 values, (nblock, 3) block "
+            f"indices and (nq, ny, nx) float64 out, got {values.shape} {values.dtype}, "
+            f"{where.shape}, {out.shape} {out.dtype}"
+        )
     if values.shape[0] == 0:
         return out
     gmat = np.stack([footprint.g_a, footprint.g_b, footprint.g_c])
     nchunk = max(1, min(numba.get_num_threads(), values.shape[0]))
     buf = np.zeros((nchunk,) + out.shape)
     fp = footprint
-    _k.project_blocks(values, np.ascontiguousarray(where, np.int64), gmat, fp.q0, fp.xs, fp.ys, fp._ixs, fp._iys,
-                      fp._bx, fp._by, fp._xinfo, fp._yinfo, fp.table, fp.power, fp.total(), fp.shadow, buf)
+    _k.project_blocks(
+        values,
+        np.ascontiguousarray(where, np.int64),
+        gmat,
+        fp.q0,
+        fp.xs,
+        fp.ys,
+        fp._ixs,
+        fp._iys,
+        fp._bx,
+        fp._by,
+        fp._xinfo,
+        fp._yinfo,
+        fp.table,
+        fp.power,
+        fp.total(),
+        fp.shadow,
+        buf,
+    )
     out += buf.sum(axis=0)
     return out

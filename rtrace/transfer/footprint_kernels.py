@@ -97,7 +97,7 @@ def exact_kernel(dx, dy, g, lscale, work):
     for v in range(4):
         vx = dx + (gax if v == 1 or v == 2 else 0.0) + (gbx if v >= 2 else 0.0)
         vy = dy + (gay if v == 1 or v == 2 else 0.0) + (gby if v >= 2 else 0.0)
-        for axis in range(2):           # the pixel's edges x = e, then y = e
+        for axis in range(2):  # the pixel's edges x = e, then y = e
             along, across = (vx, vy) if axis == 0 else (vy, vx)
             g_along, g_across = (gcx, gcy) if axis == 0 else (gcy, gcx)
             if g_along != 0.0:
@@ -170,15 +170,14 @@ def _locate(x, nodes, inv_step, bucket, x0, inv_bw):
     if not (nodes[0] <= x < nodes[n - 1]):
         return -1, 0.0
     i = bucket[min(int((x - x0) * inv_bw), bucket.shape[0] - 1)]
-    i += int(nodes[i + 1] <= x)          # buckets are finer than most node steps: one step, no branch
+    i += int(nodes[i + 1] <= x)  # buckets are finer than most node steps: one step, no branch
     while nodes[i + 1] <= x:
         i += 1
     return i, (x - nodes[i]) * inv_step[i]
 
 
 @numba.njit(cache=True, parallel=True)
-def project(values, lo, hi, off, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow,
-            out):
+def project(values, lo, hi, off, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow, out):
     """Add ``sum_c values[q, c] K(d_c - (col, row))`` over cells ``lo <= idx < hi`` into ``out[t]``.
 
     ``values`` (nq, n0, n1, n2) holds cell ``idx`` at ``idx - off``; the shadow corner of
@@ -217,13 +216,37 @@ def project(values, lo, hi, off, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinf
                             nonzero = True
                     if not nonzero:
                         continue
-                    _add_cell(base_x + i2 * g20, base_y + i2 * g21, val, buf, xs, ys, ixs, iys, bx, by, xinfo,
-                              yinfo, table, power, total, shadow, ci, cf, cc, ri, rf, rr, wgt)
+                    _add_cell(
+                        base_x + i2 * g20,
+                        base_y + i2 * g21,
+                        val,
+                        buf,
+                        xs,
+                        ys,
+                        ixs,
+                        iys,
+                        bx,
+                        by,
+                        xinfo,
+                        yinfo,
+                        table,
+                        power,
+                        total,
+                        shadow,
+                        ci,
+                        cf,
+                        cc,
+                        ri,
+                        rf,
+                        rr,
+                        wgt,
+                    )
 
 
 @numba.njit(cache=True, inline="always")
-def _add_cell(dx, dy, val, buf, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow,
-              ci, cf, cc, ri, rf, rr, wgt):
+def _add_cell(
+    dx, dy, val, buf, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow, ci, cf, cc, ri, rf, rr, wgt
+):
     """Add one cell's ``val[q] K(d - (col, row))`` (shadow corner ``d = (dx, dy)``) to ``buf`` (see :func:`project`)."""
     nq, ny, nx = buf.shape
     xmin, xmax, ymin, ymax = shadow[0], shadow[1], shadow[2], shadow[3]
@@ -256,8 +279,9 @@ def _add_cell(dx, dy, val, buf, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, p
         for b in range(m):
             i = ci[b]
             fx = cf[b]
-            w = ((1.0 - fy) * ((1.0 - fx) * table[j, i] + fx * table[j, i + 1])
-                 + fy * ((1.0 - fx) * table[j + 1, i] + fx * table[j + 1, i + 1]))
+            w = (1.0 - fy) * ((1.0 - fx) * table[j, i] + fx * table[j, i + 1]) + fy * (
+                (1.0 - fx) * table[j + 1, i] + fx * table[j + 1, i + 1]
+            )
             if w > 0.0:
                 if power == 3:
                     w = w * w * w
@@ -282,21 +306,40 @@ def _add_cell(dx, dy, val, buf, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, p
                 buf[q, row, col] += w * val[q]
 
 
-def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow,
-                   out):
+def project_blocks(values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow, out):
     """:func:`project` of cells stored by blocks: ``values[s, i, j, k, q]`` is cell ``where[s] * W + (i, j, k)``.
 
     ``W = values.shape[1]`` cells per block side (cells beyond the grid hold
     zeros and are skipped, as are all cells whose values are all zero);
     ``out`` (nchunk, nq, ny, nx): chunk ``t`` takes blocks ``t, t + nchunk, ...``.
     """
-    run_tasks(_project_block_chunks, out.shape[0], values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo,
-              table, int(power), float(total), shadow, out)
+    run_tasks(
+        _project_block_chunks,
+        out.shape[0],
+        values,
+        where,
+        gmat,
+        q0,
+        xs,
+        ys,
+        ixs,
+        iys,
+        bx,
+        by,
+        xinfo,
+        yinfo,
+        table,
+        int(power),
+        float(total),
+        shadow,
+        out,
+    )
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _project_block_chunks(t_lo, t_hi, values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power,
-                          total, shadow, out):
+def _project_block_chunks(
+    t_lo, t_hi, values, where, gmat, q0, xs, ys, ixs, iys, bx, by, xinfo, yinfo, table, power, total, shadow, out
+):
     """Chunks ``t_lo <= t < t_hi`` of :func:`project_blocks` (one task of :func:`run_tasks`)."""
     nchunk, nq = out.shape[0], out.shape[1]
     nw = values.shape[1]
@@ -377,8 +420,9 @@ def _project_block_chunks(t_lo, t_hi, values, where, gmat, q0, xs, ys, ixs, iys,
                             for b in range(m):
                                 it = ci[b]
                                 fx = cf[b]
-                                w = ((1.0 - fy) * ((1.0 - fx) * table[jt, it] + fx * table[jt, it + 1])
-                                     + fy * ((1.0 - fx) * table[jt + 1, it] + fx * table[jt + 1, it + 1]))
+                                w = (1.0 - fy) * ((1.0 - fx) * table[jt, it] + fx * table[jt, it + 1]) + fy * (
+                                    (1.0 - fx) * table[jt + 1, it] + fx * table[jt + 1, it + 1]
+                                )
                                 if w > 0.0:
                                     if power == 3:
                                         w = w * w * w
@@ -403,4 +447,4 @@ def _project_block_chunks(t_lo, t_hi, values, where, gmat, q0, xs, ys, ixs, iys,
                                     buf[q, row, col] += w * val[q]
 
 
-project_blocks.dispatcher = _project_block_chunks       # the compiled kernel (its signatures, for the warm-up's checks)
+project_blocks.dispatcher = _project_block_chunks  # the compiled kernel (its signatures, for the warm-up's checks)

@@ -10,8 +10,20 @@ from .tracer import DEFAULT_TOLERANCE, trace_images
 __all__ = ["trace"]
 
 
-def trace(snapshot, view, frequencies, *, background=None, supersample=None, tolerance=DEFAULT_TOLERANCE,
-          brick_size=None, max_memory=None, client=None, absorption=True, emission_measure="electrons"):
+def trace(
+    snapshot,
+    view,
+    frequencies,
+    *,
+    background=None,
+    supersample=None,
+    tolerance=DEFAULT_TOLERANCE,
+    brick_size=None,
+    max_memory=None,
+    client=None,
+    absorption=True,
+    emission_measure="electrons",
+):
     """Solve the transfer equation along the rays of ``view`` through ``snapshot``.
 
     Parameters
@@ -121,7 +133,18 @@ def trace(snapshot, view, frequencies, *, background=None, supersample=None, tol
     file-backed one is always traced in bricks (``bricks.DEFAULT_BRICK``
     cells per side unless told otherwise), each brick read once per call.
     """
-    return Result.from_images(trace_images(
-        snapshot, view, frequencies, background=background, supersample=supersample, tolerance=tolerance,
-        brick_size=brick_size, max_memory=max_memory, client=client, absorption=absorption,
-        emission_measure=emission_measure))
+    return Result.from_images(
+        trace_images(
+            snapshot,
+            view,
+            frequencies,
+            background=background,
+            supersample=supersample,
+            tolerance=tolerance,
+            brick_size=brick_size,
+            max_memory=max_memory,
+            client=client,
+            absorption=absorption,
+            emission_measure=emission_measure,
+        )
+    )

@@ -72,13 +72,20 @@ from ..physics.planck import SERIES_LIMIT, inverse_expm1, one_minus_exp, one_min
 from .tasks import run_tasks
 from .ttable import FREQUENCY_CHUNK, INDEX_MASK, T_TOP, bit_layout, opacity_table
 
-__all__ = ["trace_along_last_axis", "one_frequency_along_last_axis", "trace_along_middle_axis", "layer_segments",
-           "trace_sheared", "emitting_blocks", "BLOCK_SHIFT"]
+__all__ = [
+    "trace_along_last_axis",
+    "one_frequency_along_last_axis",
+    "trace_along_middle_axis",
+    "layer_segments",
+    "trace_sheared",
+    "emitting_blocks",
+    "BLOCK_SHIFT",
+]
 
-_ROW_BLOCK = 16     # rows of rays per parallel task in trace_sheared
-BLOCK_SHIFT = 3     # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
-_TILE = 1 << BLOCK_SHIFT    # layers trace_sheared gathers at a time: one block of cells along c
-_AHEAD = 8          # trace_sheared's tile gather along c: prefetch the cells this many columns ahead
+_ROW_BLOCK = 16  # rows of rays per parallel task in trace_sheared
+BLOCK_SHIFT = 3  # emitting_blocks: blocks of 2**BLOCK_SHIFT = 8 cells per axis
+_TILE = 1 << BLOCK_SHIFT  # layers trace_sheared gathers at a time: one block of cells along c
+_AHEAD = 8  # trace_sheared's tile gather along c: prefetch the cells this many columns ahead
 
 
 # the intrinsic's name carries its pointer type: "p0" (opaque pointers) from LLVM 15 on, "p0i8" before (numba 0.59's
@@ -99,13 +106,21 @@ def _prefetch(typingctx, arr, i, j, k):
         aryty = signature.args[0]
         ary = context.make_array(aryty)(context, builder, args[0])
         inds = [context.cast(builder, v, t, types.intp) for v, t in zip(args[1:], signature.args[1:], strict=True)]
-        ptr = cgutils.get_item_pointer2(context, builder, ary.data, cgutils.unpack_tuple(builder, ary.shape),
-                                        cgutils.unpack_tuple(builder, ary.strides), aryty.layout, inds,
-                                        wraparound=False)
+        ptr = cgutils.get_item_pointer2(
+            context,
+            builder,
+            ary.data,
+            cgutils.unpack_tuple(builder, ary.shape),
+            cgutils.unpack_tuple(builder, ary.strides),
+            aryty.layout,
+            inds,
+            wraparound=False,
+        )
         i8p, i32 = ir.IntType(8).as_pointer(), ir.IntType(32)
-        fn = cgutils.get_or_insert_function(builder.module, ir.FunctionType(ir.VoidType(), [i8p, i32, i32, i32]),
-                                            _PREFETCH_NAME)
-        builder.call(fn, [builder.bitcast(ptr, i8p), i32(0), i32(3), i32(1)])     # read, keep in all caches, data
+        fn = cgutils.get_or_insert_function(
+            builder.module, ir.FunctionType(ir.VoidType(), [i8p, i32, i32, i32]), _PREFETCH_NAME
+        )
+        builder.call(fn, [builder.bitcast(ptr, i8p), i32(0), i32(3), i32(1)])  # read, keep in all caches, data
         return context.get_dummy_value()
 
     return sig, codegen
@@ -183,8 +198,7 @@ def _opacity_and_source(f, temp, inv_t, i, wt, share, gtab, hk, alpha_pref, b_pr
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap,
-                       src):
+def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src):
     """Fill ``kap[f] = alpha_nu`` (cm-1, R&L 5.18b with ``n_e n_i = nn``) and ``src[f] = B_nu(T)``.
 
     Per-cell factors (``ln T`` table position, ``T^-1/2``, ``1/T``) are computed
@@ -196,13 +210,13 @@ def _cell_coefficients(nn, share, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk
     """
     i, wt = _table_position(temp, log_t0, inv_dlog_t, gtab_t.shape[1])
     inv_t = 1.0 / temp
-    _coefficients_at(i, wt, nn * math.sqrt(inv_t), share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
-                     kap, src)
+    _coefficients_at(
+        i, wt, nn * math.sqrt(inv_t), share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src
+    )
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
-def _coefficients_at(i, wt, a0, share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src,
-                     at=0):
+def _coefficients_at(i, wt, a0, share, temp, inv_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src, at=0):
     """:func:`_cell_coefficients` from the cell's table position ``(i, wt)``, ``a0 = n_e n_i T^-1/2`` and ``1/T``.
 
     Writes ``kap[at + f]`` and ``src[at + f]``: a flat buffer row needs no view per cell (a view costs two
@@ -253,8 +267,9 @@ def _cross(kap, src, ds, acc_i, acc_t):
             acc_t[f] += dtau
 
 
-def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
-                          out_i, out_tau, out_em):
+def trace_along_last_axis(
+    ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em
+):
     """Rays along the contiguous last axis of ``(A, B, L)`` arrays.
 
     ``forward`` is True when rays travel toward increasing index. Outputs are
@@ -273,26 +288,82 @@ def trace_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, h
     and one pass over the cells each), which bounds the table's memory.
     """
     if hk.shape[0] > FREQUENCY_CHUNK:
-        _by_frequency_chunks(trace_along_last_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
-                             alpha_pref, b_pref, em_ions, out_i, out_tau, out_em)
+        _by_frequency_chunks(
+            trace_along_last_axis,
+            ne,
+            ni,
+            temp,
+            ds,
+            forward,
+            log_t0,
+            inv_dlog_t,
+            gtab,
+            hk,
+            alpha_pref,
+            b_pref,
+            em_ions,
+            out_i,
+            out_tau,
+            out_em,
+        )
         return
     table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
     shift, base = bit_layout(temp.dtype)
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     sconst = _source_constants(hk, b_pref)
-    run_tasks(_last_axis_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
-              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
-              alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
+    run_tasks(
+        _last_axis_planes,
+        ne.shape[0],
+        ne,
+        ni,
+        temp,
+        _temperature_bits(temp),
+        shift,
+        base,
+        table,
+        bound,
+        sconst,
+        float(ds),
+        bool(forward),
+        float(log_t0),
+        float(inv_dlog_t),
+        gtab,
+        gtab_t,
+        hk,
+        float(hk.max()),
+        alpha_pref,
+        b_pref,
+        bool(em_ions),
+        out_i,
+        out_tau,
+        out_em,
+    )
 
 
-def _by_frequency_chunks(kernel, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                         em_ions, out_i, out_tau, out_em):
+def _by_frequency_chunks(
+    kernel, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em
+):
     """``kernel`` over at most :data:`ttable.FREQUENCY_CHUNK` frequencies at a time (bounds its opacity table)."""
     for f0 in range(0, hk.shape[0], FREQUENCY_CHUNK):
         part = slice(f0, f0 + FREQUENCY_CHUNK)
-        em = out_em if f0 == 0 else np.zeros_like(out_em)          # the EM once
-        kernel(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, np.ascontiguousarray(gtab[:, part]), hk[part],
-               alpha_pref[part], np.ascontiguousarray(b_pref[:, part]), em_ions, out_i[part], out_tau[part], em)
+        em = out_em if f0 == 0 else np.zeros_like(out_em)  # the EM once
+        kernel(
+            ne,
+            ni,
+            temp,
+            ds,
+            forward,
+            log_t0,
+            inv_dlog_t,
+            np.ascontiguousarray(gtab[:, part]),
+            hk[part],
+            alpha_pref[part],
+            np.ascontiguousarray(b_pref[:, part]),
+            em_ions,
+            out_i[part],
+            out_tau[part],
+            em,
+        )
 
 
 def _source_constants(hk, b_pref):
@@ -305,8 +376,33 @@ def _source_constants(hk, b_pref):
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
-def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
-                      gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
+def _last_axis_planes(
+    lo,
+    hi,
+    ne,
+    ni,
+    temp,
+    tbits,
+    shift,
+    base,
+    table,
+    bound,
+    sconst,
+    ds,
+    forward,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    gtab_t,
+    hk,
+    hk_max,
+    alpha_pref,
+    b_pref,
+    em_ions,
+    out_i,
+    out_tau,
+    out_em,
+):
     """Planes ``lo <= a < hi`` of :func:`trace_along_last_axis` (one task of :func:`run_tasks`)."""
     nb, nl = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
@@ -315,7 +411,7 @@ def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
     top = table.shape[0] - 1
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
-        acc = np.empty((2, nf))             # the ray's I and tau
+        acc = np.empty((2, nf))  # the ray's I and tau
         acc_i, acc_t = acc[0], acc[1]
         for b in range(nb):
             acc_i[:] = 0.0
@@ -332,20 +428,40 @@ def _last_axis_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
                     t = float(temp[a, b, l])
                     inv_t = 1.0 / t
                     c0 = nn * ds
-                    if ((t >= 1.0) & (t < T_TOP) & (hk_max * inv_t < SERIES_LIMIT) & (c0 * bound[node] < SERIES_LIMIT)
-                            & (ni_c <= ne_c)):
+                    if (
+                        (t >= 1.0)
+                        & (t < T_TOP)
+                        & (hk_max * inv_t < SERIES_LIMIT)
+                        & (c0 * bound[node] < SERIES_LIMIT)
+                        & (ni_c <= ne_c)
+                    ):
                         # thin at every frequency, radio regime, no He III: one branch-free loop per cell
                         # (few arrays in the loop, so that the compiler's aliasing checks allow it to vectorise)
                         c1 = c0 * float(bits & mask) * inv_step
                         for f in range(nf):
                             dtau = c0 * table[node, 0, f] + c1 * table[node, 1, f]
-                            acc[0, f] += one_minus_exp_series(dtau) * (sconst[0, f] * t + sconst[1, f]
-                                                                       + sconst[2, f] * inv_t - acc[0, f])
+                            acc[0, f] += one_minus_exp_series(dtau) * (
+                                sconst[0, f] * t + sconst[1, f] + sconst[2, f] * inv_t - acc[0, f]
+                            )
                             acc[1, f] += dtau
                     else:
                         it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
-                        _coefficients_at(it, wt, nn * math.sqrt(inv_t), _helium3_share(ne_c, ni_c), t, inv_t, gtab,
-                                         gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
+                        _coefficients_at(
+                            it,
+                            wt,
+                            nn * math.sqrt(inv_t),
+                            _helium3_share(ne_c, ni_c),
+                            t,
+                            inv_t,
+                            gtab,
+                            gtab_t,
+                            hk,
+                            hk_max,
+                            alpha_pref,
+                            b_pref,
+                            kap,
+                            src,
+                        )
                         _cross(kap, src, ds, acc_i, acc_t)
             for f in range(nf):
                 out_i[f, a, b] = acc_i[f]
@@ -371,16 +487,27 @@ def _log_from_bits(bits, mant):
         e += 1.0
     sv = (mant - 1.0) / (mant + 1.0)
     s2 = sv * sv
-    series = 1.0 + s2 * (1.0 / 3.0 + s2 * (1.0 / 5.0 + s2 * (1.0 / 7.0 + s2 * (1.0 / 9.0 + s2 * (
-        1.0 / 11.0 + s2 * (1.0 / 13.0 + s2 * (1.0 / 15.0 + s2 * (1.0 / 17.0))))))))
+    series = 1.0 + s2 * (
+        1.0 / 3.0
+        + s2
+        * (
+            1.0 / 5.0
+            + s2
+            * (
+                1.0 / 7.0
+                + s2 * (1.0 / 9.0 + s2 * (1.0 / 11.0 + s2 * (1.0 / 13.0 + s2 * (1.0 / 15.0 + s2 * (1.0 / 17.0)))))
+            )
+        )
+    )
     return e * _LN2 + 2.0 * sv * series
 
 
-_RAYS = 8           # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
+_RAYS = 8  # rays of one_frequency_along_last_axis advanced side by side (the recurrence)
 
 
-def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                                  em_ions, out_i, out_tau, out_em):
+def one_frequency_along_last_axis(
+    ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em
+):
     """:func:`trace_along_last_axis` for a single frequency, with the ray sums in registers.
 
     Rays are taken :data:`_RAYS` (8) at a time. For each, the cell's opacity factor
@@ -402,11 +529,31 @@ def one_frequency_along_last_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t,
     """
     if hk.shape[0] != 1:
         raise ValueError(f"one_frequency_along_last_axis: one frequency, got {hk.shape[0]}")
-    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)[0]      # 2^16 rows: the node is masked
+    table = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)[0]  # 2^16 rows: the node is masked
     shift, base = bit_layout(temp.dtype)
-    run_tasks(_one_frequency_planes, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table,
-              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, hk, alpha_pref, b_pref,
-              bool(em_ions), out_i, out_tau, out_em)
+    run_tasks(
+        _one_frequency_planes,
+        ne.shape[0],
+        ne,
+        ni,
+        temp,
+        _temperature_bits(temp),
+        shift,
+        base,
+        table,
+        float(ds),
+        bool(forward),
+        float(log_t0),
+        float(inv_dlog_t),
+        gtab,
+        hk,
+        alpha_pref,
+        b_pref,
+        bool(em_ions),
+        out_i,
+        out_tau,
+        out_em,
+    )
 
 
 def _temperature_bits(temp):
@@ -415,8 +562,29 @@ def _temperature_bits(temp):
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"reassoc", "contract"})
-def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, forward, log_t0, inv_dlog_t, gtab, hk,
-                          alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
+def _one_frequency_planes(
+    lo,
+    hi,
+    ne,
+    ni,
+    temp,
+    tbits,
+    shift,
+    base,
+    table,
+    ds,
+    forward,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    hk,
+    alpha_pref,
+    b_pref,
+    em_ions,
+    out_i,
+    out_tau,
+    out_em,
+):
     """Planes ``lo <= a < hi`` of :func:`one_frequency_along_last_axis` (one task of :func:`run_tasks`)."""
     nb, nl = ne.shape[1], ne.shape[2]
     hk0, bp0, brj0 = hk[0], b_pref[0, 0], b_pref[1, 0]
@@ -425,7 +593,7 @@ def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, f
     mask = (1 << shift) - 1
     inv_step = 1.0 / (1 << shift)
     for a in range(lo, hi):
-        keep = np.empty((_RAYS, nl))        # per ray of the group: e^{-dtau}, S (1 - e^{-dtau})
+        keep = np.empty((_RAYS, nl))  # per ray of the group: e^{-dtau}, S (1 - e^{-dtau})
         gain = np.empty((_RAYS, nl))
         tau_sum = np.zeros(_RAYS)
         em_sum = np.zeros(_RAYS)
@@ -435,11 +603,11 @@ def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, f
         for b0 in range(0, nb, _RAYS):
             for j in range(_RAYS):
                 b = b0 + j
-                if b >= nb:                 # past the last ray: cells that change nothing
+                if b >= nb:  # past the last ray: cells that change nothing
                     keep[j, :] = 1.0
                     gain[j, :] = 0.0
                     continue
-                for l in range(nl):         # the table's node from T's bits (a gather: left scalar)
+                for l in range(nl):  # the table's node from T's bits (a gather: left scalar)
                     node = ((np.int64(tbits[a, b, l]) >> shift) - base) & INDEX_MASK
                     k_node[l] = table[node, 0, 0]
                     k_step[l] = table[node, 1, 0]
@@ -447,7 +615,7 @@ def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, f
                 n_bad = 0
                 tau = 0.0
                 em = 0.0
-                for l in range(nl):         # dtau (R&L 5.18b times ds), e^{-dtau}, S (1 - e^{-dtau}): vectorised
+                for l in range(nl):  # dtau (R&L 5.18b times ds), e^{-dtau}, S (1 - e^{-dtau}): vectorised
                     ne_c, ni_c = float(ne[a, b, l]), float(ni[a, b, l])
                     nn = ne_c * ni_c
                     on = nn > 0.0
@@ -456,8 +624,19 @@ def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, f
                     tau += dtau
                     em += (nn if em_ions else ne_c * ne_c) if on else 0.0
                     t = float(temp[a, b, l])
-                    n_bad += 1 if on & ((t < 1.0) | (t >= T_TOP) | math.isnan(t) | (hk0 >= SERIES_LIMIT * t)
-                                        | (dtau >= SERIES_LIMIT) | (ni_c > ne_c)) else 0
+                    n_bad += (
+                        1
+                        if on
+                        & (
+                            (t < 1.0)
+                            | (t >= T_TOP)
+                            | math.isnan(t)
+                            | (hk0 >= SERIES_LIMIT * t)
+                            | (dtau >= SERIES_LIMIT)
+                            | (ni_c > ne_c)
+                        )
+                        else 0
+                    )
                     t = t if t > 0.0 else 1.0e4
                     att = one_minus_exp_series(dtau)
                     keep_j[l] = 1.0 - att
@@ -483,8 +662,9 @@ def _one_frequency_planes(lo, hi, ne, ni, temp, tbits, shift, base, table, ds, f
                 if b < nb:
                     t_acc = tau_sum[j]
                     if bad[j]:
-                        i_acc, t_acc = _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t,
-                                                          gtab, hk, alpha_pref, b_pref)
+                        i_acc, t_acc = _one_frequency_ray(
+                            ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref
+                        )
                     out_i[0, a, b] = i_acc
                     out_tau[0, a, b] = t_acc
                     out_em[a, b] = em_sum[j]
@@ -504,16 +684,18 @@ def _one_frequency_ray(ne, ni, temp, a, b, ds, forward, log_t0, inv_dlog_t, gtab
             t = float(temp[a, b, l])
             it, wt = _table_position(t, log_t0, inv_dlog_t, n_t)
             inv_t = 1.0 / t
-            kappa, source = _opacity_and_source(0, t, inv_t, it, wt, _helium3_share(ne_c, ni_c), gtab, hk,
-                                                alpha_pref, b_pref)
-            dtau = nn * ds * math.sqrt(inv_t) * kappa          # R&L 5.18b times ds
+            kappa, source = _opacity_and_source(
+                0, t, inv_t, it, wt, _helium3_share(ne_c, ni_c), gtab, hk, alpha_pref, b_pref
+            )
+            dtau = nn * ds * math.sqrt(inv_t) * kappa  # R&L 5.18b times ds
             i_acc += one_minus_exp(dtau) * (source - i_acc)
             t_acc += dtau
     return i_acc, t_acc
 
 
-def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref,
-                            em_ions, out_i, out_tau, out_em):
+def trace_along_middle_axis(
+    ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em
+):
     """Rays along the middle axis of ``(A, L, C)`` arrays (C contiguous).
 
     Each ray advances one plane at a time and whole rows of rays are updated
@@ -526,8 +708,24 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     and ``(A, C)``; they must be zero on entry.
     """
     if hk.shape[0] > FREQUENCY_CHUNK:
-        _by_frequency_chunks(trace_along_middle_axis, ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab, hk,
-                             alpha_pref, b_pref, em_ions, out_i, out_tau, out_em)
+        _by_frequency_chunks(
+            trace_along_middle_axis,
+            ne,
+            ni,
+            temp,
+            ds,
+            forward,
+            log_t0,
+            inv_dlog_t,
+            gtab,
+            hk,
+            alpha_pref,
+            b_pref,
+            em_ions,
+            out_i,
+            out_tau,
+            out_em,
+        )
         return
     table, bound = opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref)
     shift, base = bit_layout(temp.dtype)
@@ -535,14 +733,63 @@ def trace_along_middle_axis(ne, ni, temp, ds, forward, log_t0, inv_dlog_t, gtab,
     sconst = _source_constants(hk, b_pref)
     # the contiguous arrays and the transposed views are compiled apart: the any-layout code ('A') for
     # contiguous arrays costs ~1.5x in run time (measured), and a specialisation of this kernel compiles in ~1 s
-    run_tasks(_middle_axis_rows, ne.shape[0], ne, ni, temp, _temperature_bits(temp), shift, base, table, bound, sconst,
-              float(ds), bool(forward), float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()),
-              alpha_pref, b_pref, bool(em_ions), out_i, out_tau, out_em)
+    run_tasks(
+        _middle_axis_rows,
+        ne.shape[0],
+        ne,
+        ni,
+        temp,
+        _temperature_bits(temp),
+        shift,
+        base,
+        table,
+        bound,
+        sconst,
+        float(ds),
+        bool(forward),
+        float(log_t0),
+        float(inv_dlog_t),
+        gtab,
+        gtab_t,
+        hk,
+        float(hk.max()),
+        alpha_pref,
+        b_pref,
+        bool(em_ions),
+        out_i,
+        out_tau,
+        out_em,
+    )
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True, fastmath={"contract"})
-def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sconst, ds, forward, log_t0, inv_dlog_t,
-                      gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em):
+def _middle_axis_rows(
+    lo,
+    hi,
+    ne,
+    ni,
+    temp,
+    tbits,
+    shift,
+    base,
+    table,
+    bound,
+    sconst,
+    ds,
+    forward,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    gtab_t,
+    hk,
+    hk_max,
+    alpha_pref,
+    b_pref,
+    em_ions,
+    out_i,
+    out_tau,
+    out_em,
+):
     """Rows ``lo <= a < hi`` of :func:`trace_along_middle_axis` (one task of :func:`run_tasks`)."""
     nl, nc = ne.shape[1], ne.shape[2]
     nf = hk.shape[0]
@@ -551,7 +798,7 @@ def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
     top = table.shape[0] - 1
     for a in range(lo, hi):
         kap, src = np.empty(nf), np.empty(nf)
-        acc = np.zeros((nc, 2, nf))         # this row's rays: I and tau, frequencies contiguous
+        acc = np.zeros((nc, 2, nf))  # this row's rays: I and tau, frequencies contiguous
         for s in range(nl):
             l = s if forward else nl - 1 - s
             for c in range(nc):
@@ -564,18 +811,38 @@ def _middle_axis_rows(lo, hi, ne, ni, temp, tbits, shift, base, table, bound, sc
                     t = float(temp[a, l, c])
                     inv_t = 1.0 / t
                     c0 = nn * ds
-                    if ((t >= 1.0) & (t < T_TOP) & (hk_max * inv_t < SERIES_LIMIT) & (c0 * bound[node] < SERIES_LIMIT)
-                            & (ni_c <= ne_c)):
-                        c1 = c0 * float(bits & mask) * inv_step     # thin, radio, no He III: as trace_along_last_axis
+                    if (
+                        (t >= 1.0)
+                        & (t < T_TOP)
+                        & (hk_max * inv_t < SERIES_LIMIT)
+                        & (c0 * bound[node] < SERIES_LIMIT)
+                        & (ni_c <= ne_c)
+                    ):
+                        c1 = c0 * float(bits & mask) * inv_step  # thin, radio, no He III: as trace_along_last_axis
                         for f in range(nf):
                             dtau = c0 * table[node, 0, f] + c1 * table[node, 1, f]
-                            acc[c, 0, f] += one_minus_exp_series(dtau) * (sconst[0, f] * t + sconst[1, f]
-                                                                          + sconst[2, f] * inv_t - acc[c, 0, f])
+                            acc[c, 0, f] += one_minus_exp_series(dtau) * (
+                                sconst[0, f] * t + sconst[1, f] + sconst[2, f] * inv_t - acc[c, 0, f]
+                            )
                             acc[c, 1, f] += dtau
                     else:
                         it, wt = _table_position(t, log_t0, inv_dlog_t, gtab.shape[2])
-                        _coefficients_at(it, wt, nn * math.sqrt(inv_t), _helium3_share(ne_c, ni_c), t, inv_t, gtab,
-                                         gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src)
+                        _coefficients_at(
+                            it,
+                            wt,
+                            nn * math.sqrt(inv_t),
+                            _helium3_share(ne_c, ni_c),
+                            t,
+                            inv_t,
+                            gtab,
+                            gtab_t,
+                            hk,
+                            hk_max,
+                            alpha_pref,
+                            b_pref,
+                            kap,
+                            src,
+                        )
                         _cross(kap, src, ds, acc[c, 0], acc[c, 1])
         for c in range(nc):
             for f in range(nf):
@@ -599,8 +866,7 @@ def _sort_few(x, n):
 
 
 @numba.njit(cache=True, error_model="numpy")
-def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs_lc, k_lo, k_hi, forward,
-                   max_seg):
+def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs_lc, k_lo, k_hi, forward, max_seg):
     """Path segments, per cell layer, shared by every ray of one lattice phase.
 
     Rays of a lattice commensurate with the grid on axes a and b all sit at the
@@ -619,7 +885,7 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
     da = np.zeros((nk, max_seg), np.int64)
     db = np.zeros((nk, max_seg), np.int64)
     ds = np.zeros((nk, max_seg))
-    step_a = rho_a * cell_c / cell_a          # change of the cell-unit position per layer
+    step_a = rho_a * cell_c / cell_a  # change of the cell-unit position per layer
     step_b = rho_b * cell_c / cell_b
     cuts = np.empty(max_seg + 1)
     for s in range(nk):
@@ -658,9 +924,35 @@ def layer_segments(offset_a, offset_b, rho_a, rho_b, cell_a, cell_b, cell_c, abs
     return count, da, db, ds
 
 
-def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db,
-                  seg_ds, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out_i, out_tau, out_em,
-                  ratio=None):
+def trace_sheared(
+    nn_cells,
+    temp,
+    blocks,
+    lo,
+    hi,
+    off,
+    k_lo,
+    forward,
+    i0,
+    n_i,
+    j0,
+    n_j,
+    count,
+    seg_da,
+    seg_db,
+    seg_ds,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    hk,
+    alpha_pref,
+    b_pref,
+    em_ions,
+    out_i,
+    out_tau,
+    out_em,
+    ratio=None,
+):
     """A block of ``n_i x n_j`` parallel rays of one lattice phase, swept layer by layer.
 
     ``nn_cells`` holds ``n_e x ion term`` per cell (one array read instead of
@@ -701,24 +993,60 @@ def trace_sheared(nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
     span_a = span_b = tile_a = tile_b = 0
     if nk > 0:
-        first = np.arange(seg_da.shape[1]) < count[:, None]         # a layer's listed segments (else its first)
+        first = np.arange(seg_da.shape[1]) < count[:, None]  # a layer's listed segments (else its first)
         da = np.where(first, seg_da, seg_da[:, :1])
         db = np.where(first, seg_db, seg_db[:, :1])
         span_a = int((da.max(axis=1) - da.min(axis=1)).max())
         span_b = int((db.max(axis=1) - db.min(axis=1)).max())
         # the spread of the offsets over any _TILE consecutive layers: the rows and columns a tile gathers
         window = min(_TILE, nk)
-        tile_a = int((_windows(da.max(axis=1), window).max(axis=1)
-                      - _windows(da.min(axis=1), window).min(axis=1)).max())
-        tile_b = int((_windows(db.max(axis=1), window).max(axis=1)
-                      - _windows(db.min(axis=1), window).min(axis=1)).max())
+        tile_a = int(
+            (_windows(da.max(axis=1), window).max(axis=1) - _windows(da.min(axis=1), window).min(axis=1)).max()
+        )
+        tile_b = int(
+            (_windows(db.max(axis=1), window).max(axis=1) - _windows(db.min(axis=1), window).min(axis=1)).max()
+        )
     # the tile gather prefetches columns ahead where c is the axis of unit stride
     along_c = nn_cells.strides[2] < nn_cells.strides[1]
-    run_tasks(_sheared_row_blocks, (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK, nn_cells, temp, blocks, lo, hi, off,
-              int(k_lo), bool(forward), int(i0), int(n_i), int(j0), int(n_j), count, seg_da, seg_db, seg_ds,
-              float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk, float(hk.max()), alpha_pref, b_pref,
-              bool(em_ions), out_i, out_tau, out_em, ratio, span_a, span_b, tile_a, tile_b, bool(along_c),
-              relax_layout=True)
+    run_tasks(
+        _sheared_row_blocks,
+        (n_i + _ROW_BLOCK - 1) // _ROW_BLOCK,
+        nn_cells,
+        temp,
+        blocks,
+        lo,
+        hi,
+        off,
+        int(k_lo),
+        bool(forward),
+        int(i0),
+        int(n_i),
+        int(j0),
+        int(n_j),
+        count,
+        seg_da,
+        seg_db,
+        seg_ds,
+        float(log_t0),
+        float(inv_dlog_t),
+        gtab,
+        gtab_t,
+        hk,
+        float(hk.max()),
+        alpha_pref,
+        b_pref,
+        bool(em_ions),
+        out_i,
+        out_tau,
+        out_em,
+        ratio,
+        span_a,
+        span_b,
+        tile_a,
+        tile_b,
+        bool(along_c),
+        relax_layout=True,
+    )
 
 
 def _windows(x, n):
@@ -727,9 +1055,44 @@ def _windows(x, n):
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_lo, forward, i0, n_i, j0, n_j, count,
-                        seg_da, seg_db, seg_ds, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
-                        em_ions, out_i, out_tau, out_em, ratio, span_a, span_b, tile_a, tile_b, along_c):
+def _sheared_row_blocks(
+    blk_lo,
+    blk_hi,
+    nn_cells,
+    temp,
+    blocks,
+    lo,
+    hi,
+    off,
+    k_lo,
+    forward,
+    i0,
+    n_i,
+    j0,
+    n_j,
+    count,
+    seg_da,
+    seg_db,
+    seg_ds,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    gtab_t,
+    hk,
+    hk_max,
+    alpha_pref,
+    b_pref,
+    em_ions,
+    out_i,
+    out_tau,
+    out_em,
+    ratio,
+    span_a,
+    span_b,
+    tile_a,
+    tile_b,
+    along_c,
+):
     """Blocks of rows ``blk_lo <= blk < blk_hi`` of :func:`trace_sheared` (one task of :func:`run_tasks`).
 
     The block's cells are read :data:`_TILE` layers (one block of cells along c) at a time into tiles
@@ -745,15 +1108,15 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
         p_lo = blk * _ROW_BLOCK
         p_hi = min(n_i, p_lo + _ROW_BLOCK)
         # this block's cells of one layer: n_e n_i, alpha_nu per frequency, S_nu
-        row_first = np.empty(_ROW_BLOCK + span_a, np.int64)     # buffer columns of a row's emitting cells
+        row_first = np.empty(_ROW_BLOCK + span_a, np.int64)  # buffer columns of a row's emitting cells
         row_last = np.empty(_ROW_BLOCK + span_a, np.int64)
-        row_kmax = np.empty(_ROW_BLOCK + span_a)                # a row's largest alpha_nu
+        row_kmax = np.empty(_ROW_BLOCK + span_a)  # a row's largest alpha_nu
         nn_buf = np.empty((_ROW_BLOCK + span_a, width))
         kap_buf = np.empty((_ROW_BLOCK + span_a, width, nf))
         src_buf = np.empty((_ROW_BLOCK + span_a, width, nf))
         # one row of the layer's cells: n_e n_i, He III share, T and the table position in ln T
         nn_row, sh_row, t_row, x_row = np.empty(width), np.empty(width), np.empty(width), np.empty(width)
-        it_row, g_row = np.empty(width, np.int64), np.empty(width)     # _radio_row's table index, Gaunt factor
+        it_row, g_row = np.empty(width, np.int64), np.empty(width)  # _radio_row's table index, Gaunt factor
         # the cells of _TILE layers (the fields' own dtype), rows tx_lo.., columns ty_lo.. (0 where no block emits)
         tile_nn = np.empty((_TILE, t_rows, t_cols), nn_cells.dtype)
         tile_t = np.empty((_TILE, t_rows, t_cols), temp.dtype)
@@ -819,11 +1182,11 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
             y_lo = max(j0 + b_min, lo[1])
             y_hi = min(j0 + n_j + b_max, hi[1])
             n_y = y_hi - y_lo
-            lt = np.uint64(kl - t_k0)              # the layer's place in the tile
+            lt = np.uint64(kl - t_k0)  # the layer's place in the tile
             for xb in range(x_hi - x_lo):
                 ur = np.uint64(x_lo + xb - tx_lo)
-                first, last = width, np.int64(-1)   # not a literal -1 (a 2nd compile of the callee)
-                t_min, sh_max = 1.0e4, 0.0              # over the row's emitting cells
+                first, last = width, np.int64(-1)  # not a literal -1 (a 2nd compile of the callee)
+                t_min, sh_max = 1.0e4, 0.0  # over the row's emitting cells
                 for yb in range(n_y):
                     uc = np.uint64(y_lo - ty_lo) + np.uint64(yb)
                     nn = float(tile_nn[lt, ur, uc])
@@ -853,11 +1216,38 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                     mant = np.int64((bits & 0xFFFFFFFFFFFFF) | 0x3FF0000000000000).view(np.float64)
                     x_row[yb] = (_log_from_bits(bits, mant) - log_t0) * inv_dlog_t
                 if nf == 1 and sh_max == 0.0 and hk_max * (1.0 / t_min) < SERIES_LIMIT:
-                    row_kmax[xb] = _radio_row(n_y, nn_row, t_row, x_row, gtab_t, hk[0], alpha_pref[0], b_pref[0, 0],
-                                              b_pref[1, 0], it_row, g_row, kap_flat[xb], src_flat[xb])
+                    row_kmax[xb] = _radio_row(
+                        n_y,
+                        nn_row,
+                        t_row,
+                        x_row,
+                        gtab_t,
+                        hk[0],
+                        alpha_pref[0],
+                        b_pref[0, 0],
+                        b_pref[1, 0],
+                        it_row,
+                        g_row,
+                        kap_flat[xb],
+                        src_flat[xb],
+                    )
                 else:
-                    row_kmax[xb] = _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk,
-                                                     hk_max, alpha_pref, b_pref, kap_flat[xb], src_flat[xb])
+                    row_kmax[xb] = _row_coefficients(
+                        first,
+                        last,
+                        nn_row,
+                        sh_row,
+                        t_row,
+                        x_row,
+                        gtab,
+                        gtab_t,
+                        hk,
+                        hk_max,
+                        alpha_pref,
+                        b_pref,
+                        kap_flat[xb],
+                        src_flat[xb],
+                    )
             for p in range(p_lo, p_hi):
                 r0 = (p - p_lo) * n_j
                 for g in range(count[s]):
@@ -866,9 +1256,9 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                         continue
                     xb = x - x_lo
                     if row_last[xb] < 0:
-                        continue                            # no emitting cell in this row of the layer
+                        continue  # no emitting cell in this row of the layer
                     ds = seg_ds[s, g]
-                    yb0 = j0 + seg_db[s, g] - y_lo          # buffer column of ray q = 0
+                    yb0 = j0 + seg_db[s, g] - y_lo  # buffer column of ray q = 0
                     q_lo = max(0, row_first[xb] - yb0)
                     q_hi = min(n_j, row_last[xb] + 1 - yb0)
                     if row_kmax[xb] * ds < SERIES_LIMIT:
@@ -883,8 +1273,9 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                         for j in range((q_hi - q_lo) * nf):
                             uj = np.uint64(j)
                             dtau = kap_flat[ux, k0 + uj] * ds
-                            acc_i_flat[m0 + uj] += one_minus_exp_series(dtau) * (src_flat[ux, k0 + uj]
-                                                                                 - acc_i_flat[m0 + uj])
+                            acc_i_flat[m0 + uj] += one_minus_exp_series(dtau) * (
+                                src_flat[ux, k0 + uj] - acc_i_flat[m0 + uj]
+                            )
                             acc_t_flat[m0 + uj] += dtau
                     else:
                         # some cell optically thick at some frequency: _cross per cell, written out on the flat
@@ -907,8 +1298,9 @@ def _sheared_row_blocks(blk_lo, blk_hi, nn_cells, temp, blocks, lo, hi, off, k_l
                                 else:
                                     for f in range(nf):
                                         dtau = kap_row[c0 + f] * ds
-                                        acc_i_flat[r + f] += one_minus_exp_series(dtau) * (src_row[c0 + f]
-                                                                                           - acc_i_flat[r + f])
+                                        acc_i_flat[r + f] += one_minus_exp_series(dtau) * (
+                                            src_row[c0 + f] - acc_i_flat[r + f]
+                                        )
                                         acc_t_flat[r + f] += dtau
         for r in range((p_hi - p_lo) * n_j):
             for f in range(nf):
@@ -925,7 +1317,7 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
     """
     n_t = gtab_t.shape[1]
     top = n_t - 1.0
-    for yb in range(n):         # the table position, clamped to the table by selects
+    for yb in range(n):  # the table position, clamped to the table by selects
         xt = x_row[yb]
         xt = xt if xt > 0.0 else 0.0
         xt = xt if xt < top else top
@@ -933,7 +1325,7 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
         it = it if it < n_t - 2 else n_t - 2
         it_row[yb] = it
         g_row[yb] = xt - it
-    for yb in range(n):         # the Gaunt factor (the gather)
+    for yb in range(n):  # the Gaunt factor (the gather)
         it = it_row[yb]
         g_row[yb] = gtab_t[0, it, 0] + g_row[yb] * (gtab_t[0, it + 1, 0] - gtab_t[0, it, 0])
     for yb in range(n):
@@ -950,8 +1342,9 @@ def _radio_row(n, nn_row, t_row, x_row, gtab_t, hk0, ap0, bp0, brj0, it_row, g_r
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
-                      kap_row, src_row):
+def _row_coefficients(
+    first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap_row, src_row
+):
     """Cells ``first <= yb <= last`` of one row of :func:`trace_sheared`'s layer buffer: ``alpha_nu`` and ``S_nu``.
 
     Written into ``kap_row[yb * nf + f]``, ``src_row[yb * nf + f]`` (zero where ``n_e n_i = 0``); returns the largest
@@ -1015,7 +1408,7 @@ def _row_coefficients(first, last, nn_row, sh_row, t_row, x_row, gtab, gtab_t, h
     return kmax
 
 
-trace_sheared.dispatcher = _sheared_row_blocks       # the compiled kernel (its signatures, for the warm-up's checks)
+trace_sheared.dispatcher = _sheared_row_blocks  # the compiled kernel (its signatures, for the warm-up's checks)
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
@@ -1039,8 +1432,7 @@ def emitting_blocks(nn_cells):
     """
     na, nb, nc = nn_cells.shape
     w = 1 << BLOCK_SHIFT
-    out = np.zeros(((na + w - 1) >> BLOCK_SHIFT, (nb + w - 1) >> BLOCK_SHIFT, (nc + w - 1) >> BLOCK_SHIFT),
-                   np.uint8)
+    out = np.zeros(((na + w - 1) >> BLOCK_SHIFT, (nb + w - 1) >> BLOCK_SHIFT, (nc + w - 1) >> BLOCK_SHIFT), np.uint8)
     run_tasks(_mark_blocks, out.shape[0], nn_cells, out)
     return out
 

@@ -68,14 +68,29 @@ def block_slots(blocks):
     index in the compact per-cell arrays and -1 for blocks with no emitting
     gas; ``where`` ``(nblock, 3)`` the block indices of the slots, in C order.
     """
-    where = np.ascontiguousarray(np.argwhere(blocks != 0), np.int64)     # C order always: one specialisation
+    where = np.ascontiguousarray(np.argwhere(blocks != 0), np.int64)  # C order always: one specialisation
     slots = np.full(blocks.shape, -1, np.int64)
     slots[tuple(where.T)] = np.arange(where.shape[0])
     return slots, where
 
 
-def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, where, alpha,
-                           source, em, ratio=None, em_ratio=False):
+def cell_coefficient_grids(
+    nn_cells,
+    temp,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    hk,
+    alpha_pref,
+    b_pref,
+    em_ions,
+    where,
+    alpha,
+    source,
+    em,
+    ratio=None,
+    em_ratio=False,
+):
     """Fill the compact per-cell arrays of the emitting blocks ``where`` (:func:`block_slots`).
 
     ``alpha[s, i, j, k, :]`` (cm-1) and ``source[s, i, j, k, :]`` (``B_nu(T)``,
@@ -93,13 +108,50 @@ def cell_coefficient_grids(nn_cells, temp, log_t0, inv_dlog_t, gtab, hk, alpha_p
     ``FrequencyTables.args()``).
     """
     gtab_t = np.ascontiguousarray(gtab.transpose(0, 2, 1))
-    run_tasks(_coefficient_blocks, where.shape[0], nn_cells, temp, float(log_t0), float(inv_dlog_t), gtab, gtab_t, hk,
-              float(hk.max()), alpha_pref, b_pref, where, alpha, source, em, ratio, bool(em_ratio), relax_layout=True)
+    run_tasks(
+        _coefficient_blocks,
+        where.shape[0],
+        nn_cells,
+        temp,
+        float(log_t0),
+        float(inv_dlog_t),
+        gtab,
+        gtab_t,
+        hk,
+        float(hk.max()),
+        alpha_pref,
+        b_pref,
+        where,
+        alpha,
+        source,
+        em,
+        ratio,
+        bool(em_ratio),
+        relax_layout=True,
+    )
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _coefficient_blocks(s_lo, s_hi, nn_cells, temp, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref,
-                        where, alpha, source, em, ratio, em_ratio):
+def _coefficient_blocks(
+    s_lo,
+    s_hi,
+    nn_cells,
+    temp,
+    log_t0,
+    inv_dlog_t,
+    gtab,
+    gtab_t,
+    hk,
+    hk_max,
+    alpha_pref,
+    b_pref,
+    where,
+    alpha,
+    source,
+    em,
+    ratio,
+    em_ratio,
+):
     """Blocks ``s_lo <= s < s_hi`` of :func:`cell_coefficient_grids` (one task of :func:`run_tasks`)."""
     na, nb, nc = nn_cells.shape
     nw = alpha.shape[1]
@@ -135,8 +187,9 @@ def _coefficient_blocks(s_lo, s_hi, nn_cells, temp, log_t0, inv_dlog_t, gtab, gt
                                     uu = hk[f] * inv_t
                                     g1 = gtab_t[0, it, f] + wt * (gtab_t[0, it + 1, f] - gtab_t[0, it, f])
                                     g2 = gtab_t[1, it, f] + wt * (gtab_t[1, it + 1, f] - gtab_t[1, it, f])
-                                    alpha[s, i, j, k, f] = (a0 * alpha_pref[f] * _radio_stimulated(uu)
-                                                            * (g1 + share * (g2 - g1)))
+                                    alpha[s, i, j, k, f] = (
+                                        a0 * alpha_pref[f] * _radio_stimulated(uu) * (g1 + share * (g2 - g1))
+                                    )
                                     source[s, i, j, k, f] = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
                             else:
                                 for f in range(nf):
@@ -145,8 +198,9 @@ def _coefficient_blocks(s_lo, s_hi, nn_cells, temp, log_t0, inv_dlog_t, gtab, gt
                                     alpha[s, i, j, k, f] = a0 * alpha_pref[f] * _radio_stimulated(uu) * g
                                     source[s, i, j, k, f] = _radio_source(t, uu, b_pref[0, f], b_pref[1, f])
                         else:
-                            _cell_coefficients(nn, share, t, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max,
-                                               alpha_pref, b_pref, kap, src)
+                            _cell_coefficients(
+                                nn, share, t, log_t0, inv_dlog_t, gtab, gtab_t, hk, hk_max, alpha_pref, b_pref, kap, src
+                            )
                             for f in range(nf):
                                 alpha[s, i, j, k, f] = kap[f]
                                 source[s, i, j, k, f] = src[f]
@@ -161,13 +215,31 @@ def _row_stride(count, seg_da):
     """Rays of a phase whose cell columns differ by at least this never share a cell in any layer."""
     if count.shape[0] == 0 or seg_da.shape[1] == 0:
         return 1
-    first = np.arange(seg_da.shape[1]) < count[:, None]         # a layer's listed segments (else its first)
+    first = np.arange(seg_da.shape[1]) < count[:, None]  # a layer's listed segments (else its first)
     da = np.where(first, seg_da, seg_da[:, :1])
     return int((da.max(axis=1) - da.min(axis=1)).max()) + 1
 
 
-def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_da, seg_db, seg_ds,
-                     ray_i, ray_tau, bg, weight, out_w):
+def sensitivity_pass(
+    alpha,
+    source,
+    slots,
+    k_lo,
+    forward,
+    i0,
+    n_i,
+    j0,
+    n_j,
+    count,
+    seg_da,
+    seg_db,
+    seg_ds,
+    ray_i,
+    ray_tau,
+    bg,
+    weight,
+    out_w,
+):
     """Add, for every ray of the phase and cell it crosses, ``weight * ds * dI/dL_c`` to ``out_w[cell]``.
 
     ``alpha``, ``source``, ``out_w``: the compact per-cell arrays ``(nblock, W, W, W, nfreq)``
@@ -185,22 +257,64 @@ def sensitivity_pass(alpha, source, slots, k_lo, forward, i0, n_i, j0, n_j, coun
     """
     stride = _row_stride(count, seg_da)
     for cls in range(stride):
-        run_tasks(_sensitivity_rows, (n_i - cls + stride - 1) // stride, cls, stride, alpha, source, slots, int(k_lo),
-                  bool(forward), int(i0), int(j0), int(n_j), count, seg_da, seg_db, seg_ds, ray_i, ray_tau, bg,
-                  float(weight), out_w, relax_layout=True)
+        run_tasks(
+            _sensitivity_rows,
+            (n_i - cls + stride - 1) // stride,
+            cls,
+            stride,
+            alpha,
+            source,
+            slots,
+            int(k_lo),
+            bool(forward),
+            int(i0),
+            int(j0),
+            int(n_j),
+            count,
+            seg_da,
+            seg_db,
+            seg_ds,
+            ray_i,
+            ray_tau,
+            bg,
+            float(weight),
+            out_w,
+            relax_layout=True,
+        )
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _sensitivity_rows(t_lo, t_hi, cls, stride, alpha, source, slots, k_lo, forward, i0, j0, n_j, count, seg_da, seg_db,
-                      seg_ds, ray_i, ray_tau, bg, weight, out_w):
+def _sensitivity_rows(
+    t_lo,
+    t_hi,
+    cls,
+    stride,
+    alpha,
+    source,
+    slots,
+    k_lo,
+    forward,
+    i0,
+    j0,
+    n_j,
+    count,
+    seg_da,
+    seg_db,
+    seg_ds,
+    ray_i,
+    ray_tau,
+    bg,
+    weight,
+    out_w,
+):
     """Rows ``p = cls + t * stride``, ``t_lo <= t < t_hi``, of :func:`sensitivity_pass` (one :func:`run_tasks` task)."""
     nk = count.shape[0]
     nf = bg.shape[0]
     na, nb = slots.shape[0] << BLOCK_SHIFT, slots.shape[1] << BLOCK_SHIFT
-    acc_i = np.empty(nf)        # intensity emitted behind, so far (no background)
-    back = np.empty(nf)         # e^{-tau behind}
-    front = np.empty(nf)        # e^{-(tau - tau behind)}: transmission to the observer
-    behind = np.empty(nf)       # tau behind, for rays too thick to start from e^{-tau}
+    acc_i = np.empty(nf)  # intensity emitted behind, so far (no background)
+    back = np.empty(nf)  # e^{-tau behind}
+    front = np.empty(nf)  # e^{-(tau - tau behind)}: transmission to the observer
+    behind = np.empty(nf)  # tau behind, for rays too thick to start from e^{-tau}
     for t in range(t_lo, t_hi):
         p = cls + t * stride
         for q in range(n_j):
@@ -219,26 +333,26 @@ def _sensitivity_rows(t_lo, t_hi, cls, stride, alpha, source, slots, k_lo, forwa
                         continue
                     slot = slots[a >> BLOCK_SHIFT, b >> BLOCK_SHIFT, k >> BLOCK_SHIFT]
                     if slot < 0:
-                        continue            # a block of cells with no emitting gas
+                        continue  # a block of cells with no emitting gas
                     la, lb, lk = a & BLOCK_MASK, b & BLOCK_MASK, k & BLOCK_MASK
                     if alpha[slot, la, lb, lk, 0] == 0.0:
-                        continue            # no gas (alpha is 0 at every frequency or none)
+                        continue  # no gas (alpha is 0 at every frequency or none)
                     ds = seg_ds[s, g]
                     for f in range(nf):
                         kap = alpha[slot, la, lb, lk, f]
                         src = source[slot, la, lb, lk, f]
                         dtau = kap * ds
                         if dtau < SERIES_LIMIT:
-                            att = one_minus_exp_series(dtau)      # 1 - e^{-dtau}
+                            att = one_minus_exp_series(dtau)  # 1 - e^{-dtau}
                             grow = 1.0 + dtau * (1.0 + dtau * (0.5 + dtau * (1.0 / 6.0 + dtau / 24.0)))
                         else:
                             att = -math.expm1(-dtau)
-                            grow = 1.0 / (1.0 - att)                # e^{dtau}
+                            grow = 1.0 / (1.0 - att)  # e^{dtau}
                         acc_i[f] += att * (src - acc_i[f])
                         back[f] *= 1.0 - att
                         if ray_tau[f, r] < _DIRECT_TAU:
                             front[f] = min(front[f] * grow, 1.0)
-                        else:                           # e^{-tau} would underflow: take it directly
+                        else:  # e^{-tau} would underflow: take it directly
                             behind[f] += dtau
                             front[f] = math.exp(min(behind[f] - ray_tau[f, r], 0.0))
                         i_out = acc_i[f] + bg[f] * back[f]
@@ -250,8 +364,23 @@ def remainder_pass(w_cells, slots, k_lo, forward, i0, n_i, j0, n_j, count, seg_d
 
     (``w_cells`` compact ``(nblock, W, W, W, nf)``, ``slots``: :func:`block_slots`).
     """
-    run_tasks(_remainder_rows, n_i, w_cells, slots, int(k_lo), bool(forward), int(i0), int(j0), int(n_j), count, seg_da,
-              seg_db, seg_ds, out_linear, relax_layout=True)
+    run_tasks(
+        _remainder_rows,
+        n_i,
+        w_cells,
+        slots,
+        int(k_lo),
+        bool(forward),
+        int(i0),
+        int(j0),
+        int(n_j),
+        count,
+        seg_da,
+        seg_db,
+        seg_ds,
+        out_linear,
+        relax_layout=True,
+    )
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
@@ -284,8 +413,9 @@ def _remainder_rows(p_lo, p_hi, w_cells, slots, k_lo, forward, i0, j0, n_j, coun
                 out_linear[f, r] = acc[f]
 
 
-def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da, seg_db,
-                    seg_ds, bg, out_rem):
+def remainder_trace(
+    alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da, seg_db, seg_ds, bg, out_rem
+):
     """Trace a list of rays on the per-cell coefficients and return their remainders directly.
 
     Ray ``r`` enters the grid's columns at cell ``(ray_a[r], ray_b[r])`` and
@@ -300,13 +430,48 @@ def remainder_trace(alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, 
     them (:func:`mark_rays`) are traced, and the coefficients are read, not
     recomputed.
     """
-    run_tasks(_remainder_rays, ray_a.shape[0], alpha, source, w_cells, slots, int(k_lo), bool(forward), ray_a, ray_b,
-              ray_phase, count, seg_da, seg_db, seg_ds, bg, out_rem, relax_layout=True)
+    run_tasks(
+        _remainder_rays,
+        ray_a.shape[0],
+        alpha,
+        source,
+        w_cells,
+        slots,
+        int(k_lo),
+        bool(forward),
+        ray_a,
+        ray_b,
+        ray_phase,
+        count,
+        seg_da,
+        seg_db,
+        seg_ds,
+        bg,
+        out_rem,
+        relax_layout=True,
+    )
 
 
 @numba.njit(cache=True, error_model="numpy", nogil=True)
-def _remainder_rays(r_lo, r_hi, alpha, source, w_cells, slots, k_lo, forward, ray_a, ray_b, ray_phase, count, seg_da,
-                    seg_db, seg_ds, bg, out_rem):
+def _remainder_rays(
+    r_lo,
+    r_hi,
+    alpha,
+    source,
+    w_cells,
+    slots,
+    k_lo,
+    forward,
+    ray_a,
+    ray_b,
+    ray_phase,
+    count,
+    seg_da,
+    seg_db,
+    seg_ds,
+    bg,
+    out_rem,
+):
     """Rays ``r_lo <= r < r_hi`` of :func:`remainder_trace` (one task of :func:`run_tasks`)."""
     nk = count.shape[1]
     nf = w_cells.shape[4]

@@ -80,8 +80,20 @@ def lattice_phases(m, i_first, i_last, j_first, j_last):
 def _layer_segments(route, pa, pb, nk):
     (m_a, m_b), (rho_a, rho_b) = route.m, route.rho
     cell_a, cell_b, cell_c = route.cell_abc
-    return kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell_a, cell_b, cell_c,
-                                  route.abs_lc, 0, nk, route.forward, route.max_seg)
+    return kernels.layer_segments(
+        (pa + 0.5) / m_a,
+        (pb + 0.5) / m_b,
+        rho_a,
+        rho_b,
+        cell_a,
+        cell_b,
+        cell_c,
+        route.abs_lc,
+        0,
+        nk,
+        route.forward,
+        route.max_seg,
+    )
 
 
 def split_state_bytes(blocks, nfreq):
@@ -121,16 +133,20 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
     slots, where = linearized.block_slots(blocks)
     nw = 1 << kernels.BLOCK_SHIFT
     shape = (where.shape[0], nw, nw, nw)
-    check_memory(split_state_bytes(blocks, nf), field="tolerance",
-                 what=f"the per-cell coefficients of {nf} frequencies on {where.shape[0] * nw**3} cells "
-                      f"({where.shape[0]} blocks of {nw}^3 holding emitting gas)",
-                 hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies")
+    check_memory(
+        split_state_bytes(blocks, nf),
+        field="tolerance",
+        what=f"the per-cell coefficients of {nf} frequencies on {where.shape[0] * nw**3} cells "
+        f"({where.shape[0]} blocks of {nw}^3 holding emitting gas)",
+        hint="trace without tolerance, or in bricks (brick_size or max_memory), or fewer frequencies",
+    )
     stack = np.zeros(shape + (2 * nf + 1,))
     source = np.zeros(shape + (nf,))
-    alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
+    alpha, w = stack[..., :nf], stack[..., nf : 2 * nf]
     em_ratio = ratio_abc is not None and not route.tables.em_ions
-    linearized.cell_coefficient_grids(nn_abc, t_abc, *route.tables.args(), where, alpha, source, stack[..., -1],
-                                      ratio_abc, em_ratio)
+    linearized.cell_coefficient_grids(
+        nn_abc, t_abc, *route.tables.args(), where, alpha, source, stack[..., -1], ratio_abc, em_ratio
+    )
     m_a, m_b = route.m
     weight = route.abs_lc / (route.cell_abc[2] * m_a * m_b)
     i_first, i_last = route.ia
@@ -139,8 +155,9 @@ def cell_sensitivities(route, cells, blocks, seg, bg):
         count, da, db, ds = _layer_segments(route, pa, pb, nn_abc.shape[2])
         ray_i = np.ascontiguousarray(seg.intensity[:, rows, cols]).reshape(nf, -1)
         ray_t = np.ascontiguousarray(seg.tau[:, rows, cols]).reshape(nf, -1)
-        linearized.sensitivity_pass(alpha, source, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds,
-                                    ray_i, ray_t, bg, weight, w)
+        linearized.sensitivity_pass(
+            alpha, source, slots, 0, route.forward, i_lo, n_i, j_lo, n_j, count, da, db, ds, ray_i, ray_t, bg, weight, w
+        )
     return stack, source, slots, where
 
 
@@ -174,8 +191,17 @@ def needed_rays(route, pixels):
     if mask.size and rows.size:
         e1, e2 = np.asarray(route.e1, float), np.asarray(route.e2, float)
         inv = np.ascontiguousarray(np.linalg.inv(np.column_stack([e1, e2])))
-        linearized.mark_rays(rows.astype(float), cols.astype(float), np.asarray(route.p0, float), e1, e2, inv,
-                             route.ia[0], route.ib[0], mask)
+        linearized.mark_rays(
+            rows.astype(float),
+            cols.astype(float),
+            np.asarray(route.p0, float),
+            e1,
+            e2,
+            inv,
+            route.ia[0],
+            route.ib[0],
+            mask,
+        )
     big_i, big_j = np.nonzero(mask)
     return big_i + route.ia[0], big_j + route.ib[0]
 
@@ -191,10 +217,11 @@ def traced_remainders(route, big_i, big_j, alpha, source, w, slots, nk, bg):
     count, da, db, ds = (np.stack([t[q] for t in tables]) for q in range(4))
     phase = (big_i % m_a) * m_b + big_j % m_b
     ray_a, ray_b = big_i // m_a, big_j // m_b
-    order = np.lexsort((phase, ray_b, ray_a))        # by cell column, then phase: rays sharing cells together
+    order = np.lexsort((phase, ray_b, ray_a))  # by cell column, then phase: rays sharing cells together
     rem = np.zeros((nf, big_i.size))
-    linearized.remainder_trace(alpha, source, w, slots, 0, route.forward, ray_a[order], ray_b[order], phase[order],
-                               count, da, db, ds, bg, rem)
+    linearized.remainder_trace(
+        alpha, source, w, slots, 0, route.forward, ray_a[order], ray_b[order], phase[order], count, da, db, ds, bg, rem
+    )
     out = np.empty_like(rem)
     out[:, order] = rem
     return out
@@ -213,16 +240,28 @@ def remap_ray_list(route, big_i, big_j, values):
     # tubes wholly inside one pixel add their whole area there (no clipping needed)
     half_c, half_r = 0.5 * (abs(e1[0]) + abs(e2[0])), 0.5 * (abs(e1[1]) + abs(e2[1]))
     ix, iy = np.floor(cols - half_c), np.floor(rows - half_r)
-    inside = (ix == np.floor(cols + half_c)) & (iy == np.floor(rows + half_r)) \
-        & (ix >= 0) & (ix < nx) & (iy >= 0) & (iy < ny)
+    inside = (
+        (ix == np.floor(cols + half_c))
+        & (iy == np.floor(rows + half_r))
+        & (ix >= 0)
+        & (ix < nx)
+        & (iy >= 0)
+        & (iy < ny)
+    )
     if inside.any():
         flat = (iy[inside] * nx + ix[inside]).astype(np.int64)
         area = abs(e1[0] * e2[1] - e1[1] * e2[0])
         for q in range(values.shape[0]):
             planes[q] += np.bincount(flat, weights=area * values[q, inside], minlength=ny * nx).reshape(ny, nx)
     rest = ~inside
-    remap_parallelograms(np.ascontiguousarray(cols[rest]), np.ascontiguousarray(rows[rest]), e1, e2,
-                         np.ascontiguousarray(values[:, rest]), planes)
+    remap_parallelograms(
+        np.ascontiguousarray(cols[rest]),
+        np.ascontiguousarray(rows[rest]),
+        e1,
+        e2,
+        np.ascontiguousarray(values[:, rest]),
+        planes,
+    )
     return planes
 
 
@@ -305,8 +344,9 @@ def phase_estimate(route, rem, lattice):
             cols = np.ascontiguousarray((p0[0] + big_i * e1[0] + big_j * e2[0]).ravel(), float)
             rows = np.ascontiguousarray((p0[1] + big_i * e1[1] + big_j * e2[1]).ravel(), float)
             coarse = np.zeros((nf, ny, nx))
-            remap_parallelograms(cols, rows, 2.0 * e1, 2.0 * e2,
-                                 np.ascontiguousarray(rem[:, pa::2, pb::2].reshape(nf, -1)), coarse)
+            remap_parallelograms(
+                cols, rows, 2.0 * e1, 2.0 * e2, np.ascontiguousarray(rem[:, pa::2, pb::2].reshape(nf, -1)), coarse
+            )
             np.maximum(worst, np.abs(coarse - lattice), out=worst)
     return PHASE_FACTOR * worst
 
@@ -400,7 +440,7 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     from .footprint import Footprint, project_blocks
 
     route = make_route(1)
-    m = max(route.m)            # pixels smaller than a cell get more than one ray per cell side
+    m = max(route.m)  # pixels smaller than a cell get more than one ray per cell side
     order = route.order
     nn_abc, t_abc, blocks, ratio_abc = (None if c is None else c.transpose(order) for c in cells)
     cells_abc = (nn_abc, t_abc, ratio_abc)
@@ -409,11 +449,11 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     stack, source, slots, where = cell_sensitivities(route, cells_abc, blocks, seg, bg_rays)
     nk = nn_abc.shape[2]
     nf = route.nfreq
-    alpha, w = stack[..., :nf], stack[..., nf:2 * nf]
+    alpha, w = stack[..., :nf], stack[..., nf : 2 * nf]
     ny, nx = route.image_shape
     projected = np.zeros((2 * nf + 1, ny, nx))
     project_blocks(Footprint.from_route(route), stack, where, projected)
-    tau, proj_w, em = projected[:nf], projected[nf:2 * nf], projected[2 * nf:]
+    tau, proj_w, em = projected[:nf], projected[nf : 2 * nf], projected[2 * nf :]
     scale = 1.0 if thin_scale is None else 1.0 / thin_scale
     rem = remainders(route, w, slots, nk, seg, bg_rays)
     lattice = remap_rays(route, rem)
@@ -430,17 +470,18 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
         if 2 * m > max_supersample:
             stopped = f"the cap of {max_supersample} rays per cell side was reached"
             break
-        fine = make_route(2 * m)                # the lattice's geometry; only the tiles' rays are traced
+        fine = make_route(2 * m)  # the lattice's geometry; only the tiles' rays are traced
         tiles = _tiles(failing, max(MIN_TILE, min(FIRST_TILE, TILE * 2 // max(fine.m))))
         big_i, big_j = needed_rays(fine, tiles)
         try:
-            check_memory(trace_ray_bytes(nf, big_i.size), field="tolerance",
-                         what=(f"the {big_i.size} rays of {max(fine.m)} per cell side refining "
-                               f"{int(tiles.sum())} pixels"),
-                         hint="pass a larger tolerance, a coarser npix or fewer frequencies")
-        except InputError:                      # the finer lattice's rays would not fit: keep this one
-            stopped = (f"the {big_i.size} rays of the next lattice ({max(fine.m)} per cell side) would not fit in "
-                       "memory")
+            check_memory(
+                trace_ray_bytes(nf, big_i.size),
+                field="tolerance",
+                what=(f"the {big_i.size} rays of {max(fine.m)} per cell side refining {int(tiles.sum())} pixels"),
+                hint="pass a larger tolerance, a coarser npix or fewer frequencies",
+            )
+        except InputError:  # the finer lattice's rays would not fit: keep this one
+            stopped = f"the {big_i.size} rays of the next lattice ({max(fine.m)} per cell side) would not fit in memory"
             break
         m = max(fine.m)
         rem = traced_remainders(fine, big_i, big_j, alpha, source, w, slots, nk, bg_rays)
@@ -459,4 +500,3 @@ def split_trace(make_route, trace_rays, cells, bg, *, tolerance, floor, max_supe
     images = SplitImages(delta, tau, em[0], error, rays / (nx * ny))
     del stack, source
     return images, m, estimate, converged, stopped
-

@@ -91,17 +91,25 @@ def trace_bricks(client, route, source, order):
     for attempt in range(1, ATTEMPTS + 1):
         try:
             return _trace_once(client, route, source, order)
-        except CancelledError as exc:      # dask's FutureCancelledError: "lost dependencies"
+        except CancelledError as exc:  # dask's FutureCancelledError: "lost dependencies"
             reason = str(exc) or type(exc).__name__
             if attempt < ATTEMPTS:
-                warn_user(f"client: the dask cluster lost data of this view's bricks ({reason}); tracing the "
-                          f"view again (attempt {attempt + 1} of {ATTEMPTS})", UserWarning)
-    what = ("bricks of this in-memory snapshot (scattered data cannot be recomputed)"
-            if not getattr(source, "portable", False) else "data of this view's tasks")
+                warn_user(
+                    f"client: the dask cluster lost data of this view's bricks ({reason}); tracing the "
+                    f"view again (attempt {attempt + 1} of {ATTEMPTS})",
+                    UserWarning,
+                )
+    what = (
+        "bricks of this in-memory snapshot (scattered data cannot be recomputed)"
+        if not getattr(source, "portable", False)
+        else "data of this view's tasks"
+    )
     tries = f"{ATTEMPTS} attempt{'s' if ATTEMPTS != 1 else ''}"
-    raise ConfigError(f"client: in each of {tries} the dask cluster lost a worker holding {what} (last: {reason}); "
-                      f"check that its workers stay up (memory limits, nanny restarts), or open the snapshot "
-                      f"from its file (rtrace.open_hdf5) so that any worker can re-read a lost brick")
+    raise ConfigError(
+        f"client: in each of {tries} the dask cluster lost a worker holding {what} (last: {reason}); "
+        f"check that its workers stay up (memory limits, nanny restarts), or open the snapshot "
+        f"from its file (rtrace.open_hdf5) so that any worker can re-read a lost brick"
+    )
 
 
 def _trace_once(client, route, source, order):
@@ -113,7 +121,7 @@ def _trace_once(client, route, source, order):
         level = []
         for lo, hi in order:
             if route.brick_rays(lo, hi) is None:
-                continue           # no ray reaches this brick: nothing to read or trace
+                continue  # no ray reaches this brick: nothing to read or trace
             if getattr(source, "portable", False):
                 fut = client.submit(_trace_read, route_future, source, lo, hi, pure=False)
             else:
@@ -124,8 +132,10 @@ def _trace_once(client, route, source, order):
         futures.extend(level)
         # pairwise tree, neighbours in front-to-back order: composite is associative
         while len(level) > 1:
-            paired = [client.submit(composite_patches, level[i], level[i + 1], pure=False)
-                      for i in range(0, len(level) - 1, 2)]
+            paired = [
+                client.submit(composite_patches, level[i], level[i + 1], pure=False)
+                for i in range(0, len(level) - 1, 2)
+            ]
             if len(level) % 2:
                 paired.append(level[-1])
             futures.extend(paired)

@@ -39,5 +39,7 @@ class PixelError(namedtuple("PixelError", "max_relative supersample tolerance fl
         if self.tolerance is None:
             return f"not estimated (supersample={self.supersample}, no tolerance asked)"
         state = "met" if self.converged else "NOT met"
-        return (f"max relative {self.max_relative:.3g} at supersample={self.supersample} "
-                f"(tolerance {self.tolerance:g} {state}; pixels above {self.floor:g} of the peak)")
+        return (
+            f"max relative {self.max_relative:.3g} at supersample={self.supersample} "
+            f"(tolerance {self.tolerance:g} {state}; pixels above {self.floor:g} of the peak)"
+        )

@@ -62,7 +62,7 @@ def walk_cells(start, direction, shape, cell, seg_t, seg_ds, seg_idx):
     step = np.empty(3, np.int64)
     tmax = np.empty(3)
     tdelta = np.empty(3)
-    tm = t0 + 1e-9 * (t1 - t0)          # a point just inside the grid, for the first cell
+    tm = t0 + 1e-9 * (t1 - t0)  # a point just inside the grid, for the first cell
     for ax in range(3):
         p = start[ax] + tm * direction[ax]
         i = int(math.floor(p / cell[ax]))
@@ -151,14 +151,21 @@ def tau_unity_depths(ne, ni, temp, cell, starts, direction, tables):
         Depth in cm; NaN where the ray's total optical depth stays below 1 or it misses the grid.
     """
     out = np.empty((tables.nu.shape[0], starts.shape[0]))
-    _tau_unity(ne, ni, temp, np.asarray(cell, float), np.ascontiguousarray(starts, float),
-               np.ascontiguousarray(direction, float), *tables.args(), out)
+    _tau_unity(
+        ne,
+        ni,
+        temp,
+        np.asarray(cell, float),
+        np.ascontiguousarray(starts, float),
+        np.ascontiguousarray(direction, float),
+        *tables.args(),
+        out,
+    )
     return out
 
 
 @numba.njit(cache=True, parallel=True)
-def _tau_unity(ne, ni, temp, cell, starts, direction, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions,
-               out):
+def _tau_unity(ne, ni, temp, cell, starts, direction, log_t0, inv_dlog_t, gtab, hk, alpha_pref, b_pref, em_ions, out):
     """``out`` (nfreq, nray): depth (cm) from the grid's observer-side boundary to tau = 1; NaN if never."""
     shape = np.array(ne.shape, np.int64)
     nf = hk.shape[0]

@@ -46,7 +46,7 @@ def _box_overlap(poly, x0, x1, y0, y1, sides):
         sy = sx + 12
         dx = 24 - sx
         dy = dx + 12
-        sp = sx if side < 2 else sy        # the coordinate this side tests
+        sp = sx if side < 2 else sy  # the coordinate this side tests
         m = 0
         for k in range(n):
             k2 = (k + 1) % n
@@ -99,8 +99,9 @@ def remap_parallelograms(cols, rows, e1, e2, values, out):
     # tubes that are rectangles aligned with the pixels: overlaps are products of 1D overlaps
     aligned = bool((e1[1] == 0.0 and e2[0] == 0.0) or (e1[0] == 0.0 and e2[1] == 0.0))
     for parity in range(2):
-        run_tasks(_band_pass, (n_band - parity + 1) // 2, parity, start, order, cols, rows, e1, e2, aligned, values,
-                  out)
+        run_tasks(
+            _band_pass, (n_band - parity + 1) // 2, parity, start, order, cols, rows, e1, e2, aligned, values, out
+        )
 
 
 def _band_order(cols, rows, e1, e2, nx, ny, height, n_band):
@@ -111,8 +112,12 @@ def _band_order(cols, rows, e1, e2, nx, ny, height, n_band):
     half_c = 0.5 * (abs(e1[0]) + abs(e2[0]))
     half_r = 0.5 * (abs(e1[1]) + abs(e2[1]))
     lo = np.floor(rows - half_r)
-    keep = ~((np.floor(rows + half_r) < 0) | (lo > ny - 1) | (np.floor(cols + half_c) < 0)
-             | (np.floor(cols - half_c) > nx - 1))
+    keep = ~(
+        (np.floor(rows + half_r) < 0)
+        | (lo > ny - 1)
+        | (np.floor(cols + half_c) < 0)
+        | (np.floor(cols - half_c) > nx - 1)
+    )
     idx = np.flatnonzero(keep)
     band = np.minimum(np.maximum(lo[idx], 0.0).astype(np.int64) // height, n_band - 1)
     order = idx[np.argsort(band, kind="stable")].astype(np.int64)
@@ -174,12 +179,16 @@ def _band_pass(t_lo, t_hi, parity, start, order, cols, rows, e1, e2, aligned, va
                     poly[3] = xc
                     poly[15] = yc
                     # clip only against the pixel's sides the tube crosses
-                    sides = (int(xmin < ix) | (int(xmax > ix + 1.0) << 1) | (int(ymin < iy) << 2)
-                             | (int(ymax > iy + 1.0) << 3))
+                    sides = (
+                        int(xmin < ix)
+                        | (int(xmax > ix + 1.0) << 1)
+                        | (int(ymin < iy) << 2)
+                        | (int(ymax > iy + 1.0) << 3)
+                    )
                     area = _box_overlap(poly, float(ix), float(ix + 1), float(iy), float(iy + 1), sides)
                     if area > 0.0:
                         for q in range(nq):
                             out[q, iy, ix] += area * values[q, r]
 
 
-remap_parallelograms.dispatcher = _band_pass     # the compiled kernel of the band passes
+remap_parallelograms.dispatcher = _band_pass  # the compiled kernel of the band passes

@@ -70,8 +70,21 @@ class Result:
     _background_info = None
     pixel_error = None
 
-    def __init__(self, intensity, tau, em, nu, view, pixel_size_cm, center_cm, provenance,
-                 rays_per_pixel=1, background=None, background_info=None, pixel_error=None):
+    def __init__(
+        self,
+        intensity,
+        tau,
+        em,
+        nu,
+        view,
+        pixel_size_cm,
+        center_cm,
+        provenance,
+        rays_per_pixel=1,
+        background=None,
+        background_info=None,
+        pixel_error=None,
+    ):
         self._intensity = intensity
         self.tau = tau
         self._em = em
@@ -84,23 +97,34 @@ class Result:
         self.pixel_error = pixel_error
         self.background = (np.zeros_like(nu) if background is None else np.asarray(background)) * INTENSITY_UNIT
         if background_info is None:
-            background_info = (Background("intensity", None) if np.any(self.background.value != 0)
-                               else Background("none", 0.0))
+            background_info = (
+                Background("intensity", None) if np.any(self.background.value != 0) else Background("none", 0.0)
+            )
         self._background_info = background_info
         ratio = pixel_size_cm / view.distance.to_value(u.cm)
         self.pixel_solid_angle = ratio**2 * u.sr
         self.pixel_scale = (ratio * u.rad).to(u.arcsec)
-        self._snapshot = None           # set by from_images(): the diagnostics retrace the same rays
+        self._snapshot = None  # set by from_images(): the diagnostics retrace the same rays
         self._trace_options = {}
         self._unabsorbed = None
 
     @classmethod
     def from_images(cls, images):
         """The Result of a trace's :class:`~rtrace.transfer.tracer.TracedImages`, able to retrace its rays."""
-        res = cls(images.intensity, images.tau, images.em, images.nu, images.view, images.pixel_size_cm,
-                  images.center_cm, images.provenance, rays_per_pixel=images.rays_per_pixel,
-                  background=images.background, background_info=images.background_info,
-                  pixel_error=images.pixel_error)
+        res = cls(
+            images.intensity,
+            images.tau,
+            images.em,
+            images.nu,
+            images.view,
+            images.pixel_size_cm,
+            images.center_cm,
+            images.provenance,
+            rays_per_pixel=images.rays_per_pixel,
+            background=images.background,
+            background_info=images.background_info,
+            pixel_error=images.pixel_error,
+        )
         res._snapshot = images.snapshot
         res._trace_options = dict(images.trace_options)
         return res
@@ -118,6 +142,7 @@ class Result:
         text = str(self.provenance.get("background", "none")).strip().lower()
         if text == "cmb":
             from .background import CMB_TEMPERATURE
+
             return Background("cmb", CMB_TEMPERATURE)
         return Background("none", 0.0) if not np.any(self.background.value) else Background("intensity", None)
 
@@ -159,6 +184,7 @@ class Result:
         choice existed held the ion-term integral.
         """
         from .tracer import EM_DEFINITIONS
+
         text = self.provenance.get("emission_measure")
         for key, value in EM_DEFINITIONS.items():
             if text == value:
@@ -280,6 +306,7 @@ class Result:
         """
         if self._unabsorbed is None:
             from .tracer import trace_images
+
             snap = self._require_snapshot("unabsorbed_intensity")
             thin = trace_images(snap, self.view, self.frequencies, absorption=False, **self._trace_options)
             self._unabsorbed = thin.intensity
@@ -292,6 +319,7 @@ class Result:
         See :mod:`rtrace.analysis.depth`.
         """
         from ..analysis.depth import tau_unity_depth
+
         self._require_snapshot("tau_unity_depth")
         return tau_unity_depth(self)
 
@@ -302,6 +330,7 @@ class Result:
         the line of sight the emergent intensity comes from.
         """
         from ..analysis.depth import contribution
+
         self._require_snapshot("contribution")
         return contribution(self, pixel)
 
@@ -311,11 +340,13 @@ class Result:
         See :func:`rtrace.analysis.spectra.tau_unity_frequency`.
         """
         from ..analysis.spectra import tau_unity_frequency
+
         return tau_unity_frequency(self)
 
     def cut(self, start, end, num=None, order=1, background="subtracted"):
         """Profiles along a straight cut; see :func:`rtrace.analysis.cuts.cut`."""
         from ..analysis.cuts import cut
+
         return cut(self, start, end, num=num, order=order, background=background)
 
     def observe(self, beam, noise=None, **kwargs):
@@ -324,6 +355,7 @@ class Result:
         See :func:`rtrace.observe.observe` for the parameters.
         """
         from ..observe import observe
+
         return observe(self, beam=beam, noise=noise, **kwargs)
 
     def write_fits(self, path, quantity="intensity", **kwargs):
@@ -334,6 +366,7 @@ class Result:
         See :func:`rtrace.io.fits.write_result` for the options.
         """
         from ..io.fits import write_result
+
         return write_result(self, path, quantity=quantity, **kwargs)
 
     def __repr__(self):

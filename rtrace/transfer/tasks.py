@@ -34,7 +34,7 @@ import numpy as np
 
 __all__ = ["any_layout", "entry_point", "run_tasks"]
 
-_CHUNKS_PER_THREAD = 4      # chunks a range is cut into per thread (load balance against call overhead)
+_CHUNKS_PER_THREAD = 4  # chunks a range is cut into per thread (load balance against call overhead)
 _pool = None
 _pool_pid = None
 _lock = threading.Lock()
@@ -45,8 +45,9 @@ def _executor():
     global _pool, _pool_pid
     with _lock:
         if _pool is None or _pool_pid != os.getpid():
-            _pool = ThreadPoolExecutor(max_workers=max(1, numba.config.NUMBA_NUM_THREADS - 1),
-                                       thread_name_prefix="rtrace-kernel")
+            _pool = ThreadPoolExecutor(
+                max_workers=max(1, numba.config.NUMBA_NUM_THREADS - 1), thread_name_prefix="rtrace-kernel"
+            )
             _pool_pid = os.getpid()
         return _pool
 
@@ -65,7 +66,7 @@ def _fingerprint(a):
     return type(a)
 
 
-_entries = {}       # (id of the dispatcher, argument fingerprints) -> compiled any-layout function
+_entries = {}  # (id of the dispatcher, argument fingerprints) -> compiled any-layout function
 
 
 def entry_point(kernel, args, relax_layout=False):
@@ -89,7 +90,7 @@ def _entry_point(kernel, args, relax_layout):
         types = tuple(_relaxed(t) for t in types)
     cres = kernel.overloads.get(types)
     if cres is None:
-        kernel.compile(types)       # numba's on-disk cache first; raises numba:compile only when it compiles
+        kernel.compile(types)  # numba's on-disk cache first; raises numba:compile only when it compiles
         cres = kernel.overloads[types]
     return cres.entry_point
 
@@ -125,7 +126,7 @@ def run_tasks(kernel, n, *args, relax_layout=False):
     try:
         runner()
     except BaseException:
-        queue.clear()               # the other threads stop after their current chunk
+        queue.clear()  # the other threads stop after their current chunk
         raise
     finally:
         for f in futures:
@@ -144,7 +145,7 @@ def any_layout(kernel):
     @functools.wraps(kernel.py_func)
     def call(*args, **kwargs):
         bound = signature.bind(*args, **kwargs)
-        bound.apply_defaults()          # omitted arguments are passed as their defaults: one specialisation
+        bound.apply_defaults()  # omitted arguments are passed as their defaults: one specialisation
         return entry_point(kernel, bound.args, relax_layout=True)(*bound.args)
 
     call.dispatcher = kernel

@@ -53,16 +53,26 @@ from .oblique_split import lattice_phases, remap_rays, split_state_bytes, split_
 from .pixel_error import PixelError
 from .remap import remap_parallelograms
 
-__all__ = ["trace_images", "TracedImages",
-           "FrequencyTables", "DEFAULT_TOLERANCE", "SUGGESTED_TOLERANCE", "PIXEL_FLOOR", "ESTIMATE_FACTOR",
-           "MAX_SUPERSAMPLE", "EM_DEFINITIONS"]
+__all__ = [
+    "trace_images",
+    "TracedImages",
+    "FrequencyTables",
+    "DEFAULT_TOLERANCE",
+    "SUGGESTED_TOLERANCE",
+    "PIXEL_FLOOR",
+    "ESTIMATE_FACTOR",
+    "MAX_SUPERSAMPLE",
+    "EM_DEFINITIONS",
+]
 
 # What every traced image assumes (written to provenance and FITS headers).
-PHYSICS = ("thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
-           "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
-           "Gaunt factor: exact thermal average of the Sommerfeld factor (rtrace's mpmath table), "
-           "per ion charge (Z=1 for H II and He II, Z=2 for He III, whose share of the ion term is "
-           "2 (1 - n_e / ion term))")
+PHYSICS = (
+    "thermal free-free, Maxwellian non-relativistic, LTE source function B_nu(T_e); "
+    "alpha_nu Rybicki & Lightman eq. 5.18b with exact stimulated emission; "
+    "Gaunt factor: exact thermal average of the Sommerfeld factor (rtrace's mpmath table), "
+    "per ion charge (Z=1 for H II and He II, Z=2 for He III, whose share of the ion term is "
+    "2 (1 - n_e / ion term))"
+)
 
 #: Emission-measure definitions ``trace(emission_measure=...)`` accepts, with the text products carry.
 EM_DEFINITIONS = {
@@ -71,9 +81,14 @@ EM_DEFINITIONS = {
 }
 
 
-class TracedImages(namedtuple("TracedImages", "intensity tau em nu view pixel_size_cm center_cm provenance "
-                                              "rays_per_pixel background background_info pixel_error snapshot "
-                                              "trace_options")):
+class TracedImages(
+    namedtuple(
+        "TracedImages",
+        "intensity tau em nu view pixel_size_cm center_cm provenance "
+        "rays_per_pixel background background_info pixel_error snapshot "
+        "trace_options",
+    )
+):
     """What :func:`trace_images` returns: the images (cgs arrays, shape ``(nfreq, ny, nx)``) and how they were made.
 
     ``snapshot`` and ``trace_options`` let the Result's diagnostics retrace the same rays.
@@ -122,7 +137,7 @@ class FrequencyTables:
 
     def __init__(self, nu_hz, opacity_scale=1.0, em_ions=False):
         self.nu = np.ascontiguousarray(nu_hz, float)
-        self.hk = H_OVER_K * self.nu                          # h nu / k  (K)
+        self.hk = H_OVER_K * self.nu  # h nu / k  (K)
         # R&L 5.18b prefactor times nu^-3
         self.alpha_pref = ALPHA_FF_PREFACTOR / self.nu**3 * opacity_scale
         # Planck prefactor 2 h nu^3 / c^2 and Rayleigh-Jeans factor 2 nu^2 k / c^2 (= the former / (h nu / k))
@@ -148,13 +163,27 @@ class FrequencyTables:
 
 def _em_definition(value):
     if not isinstance(value, str) or value not in EM_DEFINITIONS:
-        raise InputError(f"emission_measure: expected one of {sorted(EM_DEFINITIONS)} ('electrons': "
-                         f"int n_e^2 dl, 'ion_term': int n_e sum Z^2 n_i dl), got {value!r}")
+        raise InputError(
+            f"emission_measure: expected one of {sorted(EM_DEFINITIONS)} ('electrons': "
+            f"int n_e^2 dl, 'ion_term': int n_e sum Z^2 n_i dl), got {value!r}"
+        )
     return value
 
 
-def trace_images(snapshot, view, frequencies, *, background=None, supersample=None, tolerance=DEFAULT_TOLERANCE,
-                 brick_size=None, max_memory=None, client=None, absorption=True, emission_measure="electrons"):
+def trace_images(
+    snapshot,
+    view,
+    frequencies,
+    *,
+    background=None,
+    supersample=None,
+    tolerance=DEFAULT_TOLERANCE,
+    brick_size=None,
+    max_memory=None,
+    client=None,
+    absorption=True,
+    emission_measure="electrons",
+):
     """The images of a trace, before they become a `~rtrace.Result`: a :class:`TracedImages`.
 
     Parameters as :func:`rtrace.trace` (its docstring is the contract); that function wraps this one.
@@ -162,8 +191,11 @@ def trace_images(snapshot, view, frequencies, *, background=None, supersample=No
     nu = parse_frequencies(frequencies, "frequencies")
     bg, bg_info = background_from_spec(background, nu)
     if supersample is not None:
-        if isinstance(supersample, (bool, np.bool_)) or not isinstance(supersample, numbers.Integral) \
-                or supersample < 1:
+        if (
+            isinstance(supersample, (bool, np.bool_))
+            or not isinstance(supersample, numbers.Integral)
+            or supersample < 1
+        ):
             raise InputError(f"supersample: must be a positive int (rays per cell), got {supersample!r}")
         supersample = int(supersample)
     _check_plasma_frequency(snapshot, nu)
@@ -176,8 +208,18 @@ def trace_images(snapshot, view, frequencies, *, background=None, supersample=No
     emission_measure = _em_definition(emission_measure)
     tables = FrequencyTables(nu, 1.0 if absorption else _THIN_SCALE, em_ions=emission_measure == "ion_term")
     center, pix = view.resolve(snapshot)
-    run = dict(snapshot=snapshot, view=view, center=center, pix=pix, tables=tables, edge=edge, budget=budget,
-               client=client, absorption=absorption, bg=bg)
+    run = dict(
+        snapshot=snapshot,
+        view=view,
+        center=center,
+        pix=pix,
+        tables=tables,
+        edge=edge,
+        budget=budget,
+        client=client,
+        absorption=absorption,
+        bg=bg,
+    )
     if view.los_axis() is not None:
         seg, nrays, _ = _trace_lattice(supersample or 1, **run)
         pixel_error = PixelError(0.0, 1, tolerance, PIXEL_FLOOR, True)
@@ -193,20 +235,38 @@ def trace_images(snapshot, view, frequencies, *, background=None, supersample=No
         pixel_error = PixelError(float("nan"), 1, None, PIXEL_FLOOR, False)
     else:
         seg, nrays, pixel_error = _refine(tolerance, run)
-    provenance = dict(snapshot.provenance, checksum=snapshot.checksum(), view=view.describe(),
-                      background="none" if background is None else str(background), physics=PHYSICS,
-                      emission_measure=EM_DEFINITIONS[emission_measure])
+    provenance = dict(
+        snapshot.provenance,
+        checksum=snapshot.checksum(),
+        view=view.describe(),
+        background="none" if background is None else str(background),
+        physics=PHYSICS,
+        emission_measure=EM_DEFINITIONS[emission_measure],
+    )
     if not absorption:
         provenance["absorption"] = "off (emission only)"
     if pixel_error.tolerance is not None and view.los_axis() is None:
         provenance["pixel_error"] = pixel_error.describe()
     if pixel_error.tolerance is not None and view.los_axis() is None:
-        lattice = dict(tolerance=pixel_error.tolerance)            # the same accuracy, not the same rays
+        lattice = dict(tolerance=pixel_error.tolerance)  # the same accuracy, not the same rays
     else:
         lattice = dict(supersample=pixel_error.supersample)
-    return TracedImages(seg.intensity, seg.tau, seg.em, nu, view, pix, center, provenance, nrays, bg, bg_info,
-                        pixel_error, snapshot, dict(lattice, brick_size=brick_size, max_memory=max_memory,
-                                                    emission_measure=emission_measure))
+    return TracedImages(
+        seg.intensity,
+        seg.tau,
+        seg.em,
+        nu,
+        view,
+        pix,
+        center,
+        provenance,
+        nrays,
+        bg,
+        bg_info,
+        pixel_error,
+        snapshot,
+        dict(lattice, brick_size=brick_size, max_memory=max_memory, emission_measure=emission_measure),
+    )
 
 
 def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, budget, client, absorption, bg):
@@ -219,17 +279,25 @@ def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, bu
     in_memory = getattr(snapshot, "in_memory", True)
     if getattr(snapshot, "is_amr", False):
         if edge is not None or budget is not None or client is not None:
-            raise InputError("brick_size / max_memory / client: not available for AMR snapshots; their leaves "
-                             "are traced in memory, one at a time")
+            raise InputError(
+                "brick_size / max_memory / client: not available for AMR snapshots; their leaves "
+                "are traced in memory, one at a time"
+            )
         patch = _trace_amr(route, snapshot, view.los)
     elif in_memory and edge is None and budget is None and client is None:
         zero = np.zeros(3, np.int64)
         whole = np.asarray(snapshot.shape, np.int64)
         arrays = (snapshot._ne, snapshot._ni, snapshot._t)
         if isinstance(route, _ObliqueRoute):
-            patch = route.trace_brick(zero, whole, arrays, zero, product=cell_cache.emission_product(snapshot),
-                                      blocks=cell_cache.emitting_blocks(snapshot),
-                                      ratio=cell_cache.emission_ratio(snapshot))
+            patch = route.trace_brick(
+                zero,
+                whole,
+                arrays,
+                zero,
+                product=cell_cache.emission_product(snapshot),
+                blocks=cell_cache.emitting_blocks(snapshot),
+                ratio=cell_cache.emission_ratio(snapshot),
+            )
         else:
             patch = route.trace_brick(zero, whole, arrays, zero)
     else:
@@ -238,11 +306,12 @@ def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, bu
         order = _bricks.front_to_back(snapshot.shape, edge, view.los)
         if client is not None:
             from . import parallel
+
             patch = parallel.trace_bricks(client, route, source, order)
         else:
             patch = _trace_in_sequence(route, source, order)
     if not absorption and patch is not None:
-        patch.seg.intensity /= _THIN_SCALE        # I = sum S dtau' / eps = int j ds (1 + O(eps tau))
+        patch.seg.intensity /= _THIN_SCALE  # I = sum S dtau' / eps = int j ds (1 + O(eps tau))
         patch.seg.tau[...] = 0.0
     seg, nrays = route.finish(patch, bg)
     return seg, nrays, route
@@ -250,11 +319,17 @@ def _trace_lattice(supersample, *, snapshot, view, center, pix, tables, edge, bu
 
 # -- error-controlled pixels on oblique views ----------------------------------------------------
 
+
 def _check_tolerance(tolerance):
-    if isinstance(tolerance, (bool, np.bool_)) or not isinstance(tolerance, numbers.Real) \
-            or not math.isfinite(tolerance) or not 0.0 < tolerance < 1.0:
-        raise InputError(f"tolerance: must be a number with 0 < tolerance < 1 (relative error per pixel), "
-                         f"got {tolerance!r}")
+    if (
+        isinstance(tolerance, (bool, np.bool_))
+        or not isinstance(tolerance, numbers.Real)
+        or not math.isfinite(tolerance)
+        or not 0.0 < tolerance < 1.0
+    ):
+        raise InputError(
+            f"tolerance: must be a number with 0 < tolerance < 1 (relative error per pixel), got {tolerance!r}"
+        )
     return float(tolerance)
 
 
@@ -311,16 +386,24 @@ def _refine(tolerance, run):
         seg, nrays, s = fine, fine_rays, nxt
         if estimate <= tolerance:
             return seg, nrays, PixelError(estimate, s, tolerance, PIXEL_FLOOR, True)
-    warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
-              f"at supersample={s}, not the {tolerance:g} asked for ({why}); pass a larger tolerance, a "
-              "coarser npix or an explicit supersample", PixelAccuracyWarning)
+    warn_user(
+        f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
+        f"at supersample={s}, not the {tolerance:g} asked for ({why}); pass a larger tolerance, a "
+        "coarser npix or an explicit supersample",
+        PixelAccuracyWarning,
+    )
     return seg, nrays, PixelError(estimate, s, tolerance, PIXEL_FLOOR, False)
 
 
 def _can_split(snapshot, edge, budget, client):
     """Whether the exact-projection split (:mod:`.oblique_split`) applies: a whole in-memory uniform grid."""
-    return (getattr(snapshot, "in_memory", True) and not getattr(snapshot, "is_amr", False)
-            and edge is None and budget is None and client is None)
+    return (
+        getattr(snapshot, "in_memory", True)
+        and not getattr(snapshot, "is_amr", False)
+        and edge is None
+        and budget is None
+        and client is None
+    )
 
 
 def _split_fits(snapshot, nu):
@@ -349,13 +432,18 @@ def _warn_unrefined(snapshot, edge, budget, client, nu):
         why = "the grid is traced in bricks (brick_size / max_memory)"
     else:
         need = split_state_bytes(cell_cache.emitting_blocks(snapshot), 1)
-        why = (f"its per-cell state ({format_bytes(need)} even for one frequency at a time) does not fit in the "
-               "memory available")
-    warn_user(f"tolerance: this oblique view is traced on one lattice of 1 ray per cell with no pixel error "
-              f"estimate, because the error-controlled split needs the whole grid in memory and {why}; pixels "
-              "can be several % off (more on faint edges) where the gas has cell-scale structure. Pass an "
-              "explicit tolerance to refine the whole lattice (about 4x the time per doubling), an explicit "
-              "supersample, or fewer frequencies", PixelAccuracyWarning)
+        why = (
+            f"its per-cell state ({format_bytes(need)} even for one frequency at a time) does not fit in the "
+            "memory available"
+        )
+    warn_user(
+        f"tolerance: this oblique view is traced on one lattice of 1 ray per cell with no pixel error "
+        f"estimate, because the error-controlled split needs the whole grid in memory and {why}; pixels "
+        "can be several % off (more on faint edges) where the gas has cell-scale structure. Pass an "
+        "explicit tolerance to refine the whole lattice (about 4x the time per doubling), an explicit "
+        "supersample, or fewer frequencies",
+        PixelAccuracyWarning,
+    )
 
 
 def _split(tolerance, run):
@@ -368,8 +456,10 @@ def _split(tolerance, run):
     snapshot, tables, bg = run["snapshot"], run["tables"], run["bg"]
     nf = len(tables.nu)
     step = _frequency_chunk(snapshot, nf)
-    parts = [_split_frequencies(tolerance, run, tables.subset(slice(lo, lo + step)), bg[lo:lo + step])
-             for lo in range(0, nf, step)]
+    parts = [
+        _split_frequencies(tolerance, run, tables.subset(slice(lo, lo + step)), bg[lo : lo + step])
+        for lo in range(0, nf, step)
+    ]
     intensity = np.concatenate([p[0].intensity for p in parts])
     tau = np.concatenate([p[0].tau for p in parts])
     seg = Segment(intensity, tau, parts[0][0].em)
@@ -379,9 +469,12 @@ def _split(tolerance, run):
     converged = all(p[4] for p in parts)
     stopped = "; ".join(sorted({p[5] for p in parts if p[5]}))
     if tolerance is not None and not converged:
-        warn_user(f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
-                  f"at supersample={m}, not the {tolerance:g} asked for ({stopped}); pass a larger tolerance, "
-                  "a coarser npix or an explicit supersample", PixelAccuracyWarning)
+        warn_user(
+            f"tolerance: pixels of this oblique view reached a relative error estimate of {estimate:.3g} "
+            f"at supersample={m}, not the {tolerance:g} asked for ({stopped}); pass a larger tolerance, "
+            "a coarser npix or an explicit supersample",
+            PixelAccuracyWarning,
+        )
     return seg, rays, PixelError(estimate, m, tolerance, PIXEL_FLOOR, converged)
 
 
@@ -397,21 +490,38 @@ def _split_frequencies(tolerance, run, tables, bg):
 
     def make_route(m):
         route = _ObliqueRoute(snapshot, run["view"], run["center"], run["pix"], tables, m)
-        if m == 1:          # the first lattice is traced whole; finer ones only where pixels need them
+        if m == 1:  # the first lattice is traced whole; finer ones only where pixels need them
             _check_ray_memory(route, m)
         return route
 
     def trace_rays(route):
-        patch = route.trace_brick(zero, whole, arrays, zero, product=cell_cache.emission_product(snapshot),
-                                  blocks=cell_cache.emitting_blocks(snapshot),
-                                  ratio=cell_cache.emission_ratio(snapshot))
+        patch = route.trace_brick(
+            zero,
+            whole,
+            arrays,
+            zero,
+            product=cell_cache.emission_product(snapshot),
+            blocks=cell_cache.emitting_blocks(snapshot),
+            ratio=cell_cache.emission_ratio(snapshot),
+        )
         return _full_segment(patch, route.nfreq, route.ray_shape)
 
-    cells = (cell_cache.emission_product(snapshot), snapshot._t, cell_cache.emitting_blocks(snapshot),
-             cell_cache.emission_ratio(snapshot))
+    cells = (
+        cell_cache.emission_product(snapshot),
+        snapshot._t,
+        cell_cache.emitting_blocks(snapshot),
+        cell_cache.emission_ratio(snapshot),
+    )
     images, m, estimate, converged, stopped = split_trace(
-        make_route, trace_rays, cells, bg, tolerance=tolerance,
-        floor=PIXEL_FLOOR, max_supersample=MAX_SUPERSAMPLE, thin_scale=None if run["absorption"] else _THIN_SCALE)
+        make_route,
+        trace_rays,
+        cells,
+        bg,
+        tolerance=tolerance,
+        floor=PIXEL_FLOOR,
+        max_supersample=MAX_SUPERSAMPLE,
+        thin_scale=None if run["absorption"] else _THIN_SCALE,
+    )
     return images.segment(bg), images.rays, m, estimate, converged, stopped
 
 
@@ -443,14 +553,21 @@ def _check_ray_memory(route, supersample):
     if isinstance(route, _ObliqueRoute) and need - images > images:
         (n_a, n_b), (m_a, m_b) = route.ray_shape, route.m
         field = "supersample" if supersample > 1 else "npix"
-        what = (f"a lattice of {n_a} x {n_b} rays ({m_a} x {m_b} per cell) over {route.nfreq} frequencies, "
-                f"with {ny} x {nx} pixel images")
-        hint = ("use a smaller supersample" if supersample > 1 else
-                "use a smaller npix (pixels finer than a cell add rays on oblique views)")
+        what = (
+            f"a lattice of {n_a} x {n_b} rays ({m_a} x {m_b} per cell) over {route.nfreq} frequencies, "
+            f"with {ny} x {nx} pixel images"
+        )
+        hint = (
+            "use a smaller supersample"
+            if supersample > 1
+            else "use a smaller npix (pixels finer than a cell add rays on oblique views)"
+        )
     else:
         field = "npix"
-        what = (f"images of {ny} x {nx} pixels at {route.nfreq} frequencies ({format_bytes(images)}: "
-                "intensity, optical depth and emission measure), with the per-ray state")
+        what = (
+            f"images of {ny} x {nx} pixels at {route.nfreq} frequencies ({format_bytes(images)}: "
+            "intensity, optical depth and emission measure), with the per-ray state"
+        )
         hint = "use a smaller npix or fewer frequencies (trace them in separate calls)"
     check_memory(need, field=field, what=what, hint=hint)
 
@@ -473,8 +590,12 @@ def _brick_edge(route, source, edge, budget):
         # the accumulated per-ray state lives throughout; bricks come and go; the images
         # and the remap's temporaries exist only after the last brick is freed
         cells = int(np.prod(np.minimum(shape, b)))
-        brick = (cells * source.bytes_per_cell + source.scratch_bytes
-                 + _BRICK_SEGMENTS * route.segment_bytes(route.brick_ray_count(b)) + route.table_bytes(b))
+        brick = (
+            cells * source.bytes_per_cell
+            + source.scratch_bytes
+            + _BRICK_SEGMENTS * route.segment_bytes(route.brick_ray_count(b))
+            + route.table_bytes(b)
+        )
         return route.segment_bytes(route.ray_count) + max(brick, route.finish_bytes())
 
     what = "one brick of the fields, the per-ray segment state and the images"
@@ -482,9 +603,11 @@ def _brick_edge(route, source, edge, budget):
         return _bricks.choose_brick_edge(shape, budget, working_set, what)
     need = working_set(edge)
     if need > budget:
-        raise InputError(f"max_memory: brick_size={edge} needs about {need / 1e6:.3g} MB ({what}), "
-                         f"more than the {budget / 1e6:.3g} MB allowed; give a smaller brick_size "
-                         "or leave it out to have one chosen")
+        raise InputError(
+            f"max_memory: brick_size={edge} needs about {need / 1e6:.3g} MB ({what}), "
+            f"more than the {budget / 1e6:.3g} MB allowed; give a smaller brick_size "
+            "or leave it out to have one chosen"
+        )
     return edge
 
 
@@ -493,10 +616,10 @@ def _trace_in_sequence(route, source, order):
     acc = Segment.empty(route.nfreq, route.ray_shape)
     for lo, hi in order:
         if route.brick_rays(lo, hi) is None:
-            continue            # no ray of this view reaches the brick: do not read it
+            continue  # no ray of this view reaches the brick: do not read it
         arrays = source.read(lo, hi)
         patch = route.trace_brick(lo, hi, arrays, lo)
-        del arrays              # free the brick before the next one is read
+        del arrays  # free the brick before the next one is read
         if patch is not None:
             composite_into(acc, (0, 0), patch)
     return Patch((0, 0), acc)
@@ -510,6 +633,7 @@ def _trace_amr(route, snap, los):
     patches composite exactly.
     """
     from ..amr import front_to_back
+
     acc = Segment.empty(route.nfreq, route.ray_shape)
     routes = {}
     for leaf in front_to_back(snap.tree, los):
@@ -517,7 +641,7 @@ def _trace_amr(route, snap, los):
         if r not in routes:
             routes[r] = route.coarsened(r)
         level_route = routes[r]
-        lo, hi = leaf.lo // r, leaf.hi // r            # the leaf in its level's cell indices
+        lo, hi = leaf.lo // r, leaf.hi // r  # the leaf in its level's cell indices
         if level_route.brick_rays(lo, hi) is None:
             continue
         patch = level_route.trace_brick(lo, hi, snap.leaf_arrays(leaf), lo)
@@ -558,6 +682,7 @@ class _Route:
 
 
 # -- axis-aligned route -------------------------------------------------------------------------
+
 
 class _AxisRoute(_Route):
     """Rays are the grid's columns along the line of sight; the ray grid is the other two axes."""
@@ -600,8 +725,10 @@ class _AxisRoute(_Route):
         if self.la == 2:
             # the single-frequency kernel keeps its ray sums in registers; choosing here, not inside a
             # kernel, means a run compiles only the one it uses
-            arrs, kern = (ne, ni, t), (kernels.one_frequency_along_last_axis if self.nfreq == 1
-                                       else kernels.trace_along_last_axis)
+            arrs, kern = (
+                (ne, ni, t),
+                (kernels.one_frequency_along_last_axis if self.nfreq == 1 else kernels.trace_along_last_axis),
+            )
         elif self.la == 1:
             arrs, kern = (ne, ni, t), kernels.trace_along_middle_axis
         else:
@@ -621,8 +748,9 @@ class _AxisRoute(_Route):
         centers[..., a] = self.origin[a] + (np.arange(self.ray_shape[0])[:, None] + 0.5) * cell[a]
         centers[..., b] = self.origin[b] + (np.arange(self.ray_shape[1])[None, :] + 0.5) * cell[b]
         centers[..., self.la] = self.center[self.la]
-        cols, rows = _pixel_coordinates(centers.reshape(-1, 3), self.center, self.west, self.north,
-                                        self.image_shape, self.pix)
+        cols, rows = _pixel_coordinates(
+            centers.reshape(-1, 3), self.center, self.west, self.north, self.image_shape, self.pix
+        )
         e1 = cell[a] * np.array([self.west[a], self.north[a]]) / self.pix
         e2 = cell[b] * np.array([self.west[b], self.north[b]]) / self.pix
         flat = Segment(seg.intensity.reshape(nfreq, -1), seg.tau.reshape(nfreq, -1), seg.em.ravel())
@@ -662,6 +790,7 @@ class _CoarseAxisRoute:
 
 # -- oblique route ------------------------------------------------------------------------------
 
+
 def _lattice_range(lo, hi, spacing):
     """Integer lattice indices i with (i + 0.5) * spacing covering [lo, hi]."""
     return int(math.floor(lo / spacing - 0.5)), int(math.ceil(hi / spacing - 0.5))
@@ -689,7 +818,7 @@ class _ObliqueRoute(_Route):
         m_b = max(supersample, math.ceil(cell[b] / pix - 1e-9))
         h_a, h_b = cell[a] / m_a, cell[b] / m_b
         rho_a, rho_b = los[a] / los[c], los[b] / los[c]
-        shift_a, shift_b = rho_a * size[c], rho_b * size[c]     # drift of a ray across the grid's depth
+        shift_a, shift_b = rho_a * size[c], rho_b * size[c]  # drift of a ray across the grid's depth
         ia = _lattice_range(-max(shift_a, 0.0), size[a] - min(shift_a, 0.0), h_a)
         ib = _lattice_range(-max(shift_b, 0.0), size[b] - min(shift_b, 0.0), h_b)
         # pixel coordinates are affine in the sub-lattice indices: (col, row) = p0 + I e1 + J e2
@@ -702,8 +831,14 @@ class _ObliqueRoute(_Route):
         # keep only the part of the lattice whose tubes can touch the image
         inv = np.linalg.inv(np.column_stack([e1, e2]))
         margin = np.abs(e1) + np.abs(e2)
-        corners = np.array([[-margin[0], -margin[1]], [nx + margin[0], -margin[1]],
-                            [-margin[0], ny + margin[1]], [nx + margin[0], ny + margin[1]]])
+        corners = np.array(
+            [
+                [-margin[0], -margin[1]],
+                [nx + margin[0], -margin[1]],
+                [-margin[0], ny + margin[1]],
+                [nx + margin[0], ny + margin[1]],
+            ]
+        )
         ij = (corners - p0) @ inv.T
         self.ia = (max(ia[0], int(math.floor(ij[:, 0].min()))), min(ia[1], int(math.ceil(ij[:, 0].max()))))
         self.ib = (max(ib[0], int(math.floor(ij[:, 1].min()))), min(ib[1], int(math.ceil(ij[:, 1].max()))))
@@ -758,8 +893,7 @@ class _ObliqueRoute(_Route):
         j_first, j_last = self._ray_span(1, lo_t, hi_t)
         if i_last < i_first or j_last < j_first:
             return None
-        return ((i_first - self.ia[0], j_first - self.ib[0]),
-                (i_last - self.ia[0] + 1, j_last - self.ib[0] + 1))
+        return ((i_first - self.ia[0], j_first - self.ib[0]), (i_last - self.ia[0] + 1, j_last - self.ib[0] + 1))
 
     def brick_ray_count(self, edge):
         """Upper bound on the rays :meth:`brick_rays` gives a cubic brick of ``edge`` cells."""
@@ -808,11 +942,39 @@ class _ObliqueRoute(_Route):
         nfreq = self.nfreq
         seg = Segment.empty(nfreq, (r1 - r0, s1 - s0))
         for pa, pb, i_lo, n_i, j_lo, n_j, rows, cols in lattice_phases(self.m, i_first, i_last, j_first, j_last):
-            segs = kernels.layer_segments((pa + 0.5) / m_a, (pb + 0.5) / m_b, rho_a, rho_b, cell_a, cell_b,
-                                          cell_c, self.abs_lc, lo_t[2], hi_t[2], self.forward, self.max_seg)
+            segs = kernels.layer_segments(
+                (pa + 0.5) / m_a,
+                (pb + 0.5) / m_b,
+                rho_a,
+                rho_b,
+                cell_a,
+                cell_b,
+                cell_c,
+                self.abs_lc,
+                lo_t[2],
+                hi_t[2],
+                self.forward,
+                self.max_seg,
+            )
             part = Segment.empty(nfreq, (1, n_i * n_j))
-            kernels.trace_sheared(*arrs, lo_t, hi_t, off_t, lo_t[2], self.forward, i_lo, n_i, j_lo, n_j,
-                                  *segs, *self.tables.args(), part.intensity, part.tau, part.em, ratio_t)
+            kernels.trace_sheared(
+                *arrs,
+                lo_t,
+                hi_t,
+                off_t,
+                lo_t[2],
+                self.forward,
+                i_lo,
+                n_i,
+                j_lo,
+                n_j,
+                *segs,
+                *self.tables.args(),
+                part.intensity,
+                part.tau,
+                part.em,
+                ratio_t,
+            )
             seg.intensity[:, rows, cols] = part.intensity.reshape(nfreq, n_i, n_j)
             seg.tau[:, rows, cols] = part.tau.reshape(nfreq, n_i, n_j)
             seg.em[rows, cols] = part.em.reshape(n_i, n_j)
@@ -824,7 +986,7 @@ class _ObliqueRoute(_Route):
         if self.ray_shape == (0, 0):
             return _planes_to_segment(np.zeros((2 * self.nfreq + 1, ny, nx)), bg), 0.0
         seg = _full_segment(patch, self.nfreq, self.ray_shape)
-        delta = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)       # I_seg + I_bg e^{-tau} - I_bg
+        delta = seg.intensity + bg[:, None, None] * np.expm1(-seg.tau)  # I_seg + I_bg e^{-tau} - I_bg
         planes = remap_rays(self, np.concatenate([delta, seg.tau, seg.em[None]]))
         return _planes_to_segment(planes, bg), self.ray_count / (nx * ny)
 
@@ -836,15 +998,21 @@ def _splat(seg, bg, cols, rows, e1, e2, planes):
     of EM; :func:`_planes_to_segment` adds the background back, so pixels no
     tube covers see the background alone.
     """
-    delta = seg.intensity + bg[:, None] * np.expm1(-seg.tau)       # I_seg + I_bg e^{-tau} - I_bg
+    delta = seg.intensity + bg[:, None] * np.expm1(-seg.tau)  # I_seg + I_bg e^{-tau} - I_bg
     values = np.ascontiguousarray(np.concatenate([delta, seg.tau, seg.em[None, :]]))
-    remap_parallelograms(np.ascontiguousarray(cols, float), np.ascontiguousarray(rows, float),
-                         np.asarray(e1, float), np.asarray(e2, float), values, planes)
+    remap_parallelograms(
+        np.ascontiguousarray(cols, float),
+        np.ascontiguousarray(rows, float),
+        np.asarray(e1, float),
+        np.asarray(e2, float),
+        values,
+        planes,
+    )
 
 
 def _planes_to_segment(planes, bg):
     nfreq = len(bg)
-    return Segment(planes[:nfreq] + bg[:, None, None], planes[nfreq:2 * nfreq], planes[-1])
+    return Segment(planes[:nfreq] + bg[:, None, None], planes[nfreq : 2 * nfreq], planes[-1])
 
 
 def _pixel_coordinates(points, center, west, north, image_shape, pix):
@@ -852,5 +1020,3 @@ def _pixel_coordinates(points, center, west, north, image_shape, pix):
     ny, nx = image_shape
     rel = points - center
     return rel @ west / pix + nx / 2, rel @ north / pix + ny / 2
-
-

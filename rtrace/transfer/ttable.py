@@ -35,16 +35,16 @@ from ..physics.planck import SERIES_LIMIT
 
 __all__ = ["FREQUENCY_CHUNK", "INDEX_MASK", "NODE_BITS", "T_TOP", "bit_layout", "opacity_table"]
 
-NODE_BITS = 10                          # mantissa bits that select a node: 1024 nodes per binade
-_BINADES = 33                           # nodes from 1 K (2^0) to 2^33 K
-T_TOP = 2.0 ** _BINADES                 # cells at or above this temperature take the exact path
-_ROWS = 1 << 16                         # table rows: a masked index needs no clamp (rows past T_TOP are zero)
+NODE_BITS = 10  # mantissa bits that select a node: 1024 nodes per binade
+_BINADES = 33  # nodes from 1 K (2^0) to 2^33 K
+T_TOP = 2.0**_BINADES  # cells at or above this temperature take the exact path
+_ROWS = 1 << 16  # table rows: a masked index needs no clamp (rows past T_TOP are zero)
 INDEX_MASK = _ROWS - 1
 
-_cache = {}                             # key -> table (the last few sets of frequencies)
-_lock = threading.Lock()                # bricks may be traced on several threads (dask)
+_cache = {}  # key -> table (the last few sets of frequencies)
+_lock = threading.Lock()  # bricks may be traced on several threads (dask)
 _CACHE_SIZE = 2
-FREQUENCY_CHUNK = 16                    # frequencies per table (and per kernel call) in the several-frequency kernels
+FREQUENCY_CHUNK = 16  # frequencies per table (and per kernel call) in the several-frequency kernels
 
 
 def bit_layout(dtype):
@@ -81,13 +81,23 @@ def opacity_table(log_t0, inv_dlog_t, gtab, hk, alpha_pref):
     frequencies (a trace makes its frequency tables once per call; the Gaunt rows are
     cached the same way).
     """
-    key = (float(log_t0), float(inv_dlog_t), np.asarray(hk, float).tobytes(), np.asarray(alpha_pref, float).tobytes(),
-           hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest())
+    key = (
+        float(log_t0),
+        float(inv_dlog_t),
+        np.asarray(hk, float).tobytes(),
+        np.asarray(alpha_pref, float).tobytes(),
+        hashlib.blake2b(np.ascontiguousarray(gtab[0])).digest(),
+    )
     with _lock:
         found = _cache.get(key)
     if found is None:
-        found = _build(float(log_t0), float(inv_dlog_t), np.asarray(gtab[0], float), np.asarray(hk, float),
-                       np.asarray(alpha_pref, float))
+        found = _build(
+            float(log_t0),
+            float(inv_dlog_t),
+            np.asarray(gtab[0], float),
+            np.asarray(hk, float),
+            np.asarray(alpha_pref, float),
+        )
         for arr in found:
             arr.flags.writeable = False
         with _lock:
@@ -105,11 +115,10 @@ def _build(log_t0, inv_dlog_t, grows, hk, alpha_pref):
     it = np.minimum(x.astype(np.int64), n_t - 2)
     wt = x - it
     inv_t = 1.0 / temp
-    g = grows[:, it] + wt * (grows[:, it + 1] - grows[:, it])          # (nfreq, nodes)
+    g = grows[:, it] + wt * (grows[:, it + 1] - grows[:, it])  # (nfreq, nodes)
     uu = hk[:, None] * inv_t
     # 1 - e^{-u}: the kernels' series below SERIES_LIMIT (A&S 4.2.1), else exact
-    stim = np.where(uu < SERIES_LIMIT, uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0)))),
-                    -np.expm1(-uu))
+    stim = np.where(uu < SERIES_LIMIT, uu * (1.0 - uu * (0.5 - uu * (1.0 / 6.0 - uu * (1.0 / 24.0)))), -np.expm1(-uu))
     k = (np.sqrt(inv_t) * alpha_pref[:, None]) * stim * g
     nf, segments = hk.shape[0], temp.shape[0] - 1
     # one frequency: 2^16 rows, so the single-frequency kernel masks the node instead of clamping it

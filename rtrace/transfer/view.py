@@ -76,23 +76,26 @@ class View:
         with NaN or inf coordinates.
     """
 
-    def __init__(self, los=(0, 0, 1), north=(0, 1, 0), npix=256, width=None, distance=1 * u.kpc,
-                 center=None, sky_position=None):
+    def __init__(
+        self, los=(0, 0, 1), north=(0, 1, 0), npix=256, width=None, distance=1 * u.kpc, center=None, sky_position=None
+    ):
         self.los = _unit_vector(los, "los")
         north = _unit_vector(north, "north")
         perp = north - np.dot(north, self.los) * self.los
         if np.linalg.norm(perp) < 1e-8:
             raise InputError("north: parallel to los, so the image orientation is undefined")
         self.north = perp / np.linalg.norm(perp)
-        self.west = np.cross(self.north, self.los)        # column axis: north x los
+        self.west = np.cross(self.north, self.los)  # column axis: north x los
         self.shape = _image_size(npix)
         self.width = None if width is None else self._length(width, "width")
-        if self.width is not None and not (self.width.ndim == 0 and np.isfinite(self.width.to_value(u.cm))
-                                           and self.width.to_value(u.cm) > 0):
+        if self.width is not None and not (
+            self.width.ndim == 0 and np.isfinite(self.width.to_value(u.cm)) and self.width.to_value(u.cm) > 0
+        ):
             raise InputError(f"width: must be one finite positive length, got {width}")
         self.distance = self._length(distance, "distance")
-        if not (self.distance.ndim == 0 and np.isfinite(self.distance.to_value(u.cm))
-                and self.distance.to_value(u.cm) > 0):
+        if not (
+            self.distance.ndim == 0 and np.isfinite(self.distance.to_value(u.cm)) and self.distance.to_value(u.cm) > 0
+        ):
             raise InputError(f"distance: must be one finite positive length, got {distance}")
         if center is not None:
             center = self._length(center, "center")
@@ -100,8 +103,10 @@ class View:
                 raise InputError(f"center: expected a 3-vector of lengths, got shape {center.shape}")
             n_bad = int(np.count_nonzero(~np.isfinite(center.value)))
             if n_bad:
-                raise InputError(f"center: {n_bad} of 3 coordinates are not finite (NaN or inf), got {center}; "
-                                 "a non-finite centre puts every ray off the grid")
+                raise InputError(
+                    f"center: {n_bad} of 3 coordinates are not finite (NaN or inf), got {center}; "
+                    "a non-finite centre puts every ray off the grid"
+                )
         self.center = center
         if sky_position is not None and not isinstance(sky_position, SkyCoord):
             raise InputError("sky_position: expected an astropy SkyCoord")
@@ -112,8 +117,9 @@ class View:
         try:
             q = u.Quantity(value)
         except (TypeError, ValueError):
-            raise InputError(f"{name}: expected a length (an astropy Quantity such as 3 * u.pc), "
-                             f"got {value!r}") from None
+            raise InputError(
+                f"{name}: expected a length (an astropy Quantity such as 3 * u.pc), got {value!r}"
+            ) from None
         if not np.isrealobj(q.value) or q.dtype.kind not in "fiu":
             raise InputError(f"{name}: expected real numbers, got dtype {q.dtype}")
         if not q.unit.is_equivalent(u.cm):
@@ -123,10 +129,12 @@ class View:
     def describe(self):
         """One-line description for provenance."""
         w = "fit" if self.width is None else f"{self.width.to_value(u.pc):.6g} pc"
-        return (f"los=({', '.join(f'{v:.6g}' for v in self.los)}) "
-                f"north=({', '.join(f'{v:.6g}' for v in self.north)}) "
-                f"npix={self.shape[0]}x{self.shape[1]} width={w} "
-                f"distance={self.distance.to_value(u.pc):.6g} pc")
+        return (
+            f"los=({', '.join(f'{v:.6g}' for v in self.los)}) "
+            f"north=({', '.join(f'{v:.6g}' for v in self.north)}) "
+            f"npix={self.shape[0]}x{self.shape[1]} width={w} "
+            f"distance={self.distance.to_value(u.pc):.6g} pc"
+        )
 
     def resolve(self, snapshot):
         """Pixel geometry for ``snapshot``: ``(center_cm (3,), pixel_size_cm)``.
@@ -138,8 +146,7 @@ class View:
         center = (lo + hi) / 2 if self.center is None else self.center.to_value(u.cm)
         if self.width is not None:
             return center, self.width.to_value(u.cm) / self.shape[1]
-        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                            for z in (lo[2], hi[2])]) - center
+        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])]) - center
         half_w = np.max(np.abs(corners @ self.west))
         half_n = np.max(np.abs(corners @ self.north))
         return center, max(2 * half_w / self.shape[1], 2 * half_n / self.shape[0])
@@ -154,4 +161,3 @@ class View:
     def los_axis(self):
         """``(axis, sign)`` if the line of sight lies along a grid axis, else None."""
         return self._along_axis(self.los)
-

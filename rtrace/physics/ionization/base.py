@@ -54,8 +54,10 @@ class IonizationModel(abc.ABC):
             # one number for the whole grid, or one value per cell: an (n,) or (n, n) array
             # would broadcast along the missing axes without a word
             if np.ndim(arr) and tuple(np.shape(arr)) != tuple(shape):
-                raise InputError(f"{key.strip('<>')}: shape {np.shape(arr)} is not the grid shape {tuple(shape)} "
-                                 "(give one value per cell, or a single number for the whole grid)")
+                raise InputError(
+                    f"{key.strip('<>')}: shape {np.shape(arr)} is not the grid shape {tuple(shape)} "
+                    "(give one value per cell, or a single number for the whole grid)"
+                )
             merged[key] = np.broadcast_to(arr, shape)
         return merged
 
@@ -107,6 +109,7 @@ class IonizationModel(abc.ABC):
     def temperature_at_pressure(self, rho, pressure, fields):
         """Gas temperature [K] at which this model's particle count gives ``pressure`` (see ``cells``)."""
         from .cells import temperature_from_pressure
+
         return temperature_from_pressure(self, rho, pressure, fields)
 
     def electron_temperature(self, T, species, fields):

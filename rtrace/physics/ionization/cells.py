@@ -60,13 +60,15 @@ def temperature_from_pressure(model, rho, pressure, fields=None):
     fields = fields or {}
     comp = model.composition
     if comp.hydrogen + comp.helium <= 0.0:
-        raise InputError(f"pressure: the composition ({comp.describe()}) has no hydrogen or helium, so no "
-                         "particles to turn a pressure into a temperature (metals count as mass only)")
+        raise InputError(
+            f"pressure: the composition ({comp.describe()}) has no hydrogen or helium, so no "
+            "particles to turn a pressure into a temperature (metals count as mass only)"
+        )
     n_h = comp.hydrogen_number_density(rho)
     n_he = comp.helium_number_density(rho)
     ln_p = np.log(pressure)
-    lo = ln_p - np.log(K_B * (2.0 * n_h + 3.0 * n_he))     # fully ionized: fewest K per unit pressure
-    hi = ln_p - np.log(K_B * (n_h + n_he))                  # neutral
+    lo = ln_p - np.log(K_B * (2.0 * n_h + 3.0 * n_he))  # fully ionized: fewest K per unit pressure
+    hi = ln_p - np.log(K_B * (n_h + n_he))  # neutral
     flat = rho.reshape(-1)
     out = np.exp(hi).reshape(-1)
     lo, hi, ln_p = lo.reshape(-1), hi.reshape(-1), ln_p.reshape(-1)
@@ -95,9 +97,9 @@ def temperature_from_pressure(model, rho, pressure, fields=None):
         use_mid = (it % 4 == 3) | ~((secant > np.minimum(a, b)) & (secant < np.maximum(a, b)))
         c = np.where(use_mid, mid, secant)
         fc = g(c, idx)
-        cross = np.sign(fc) * np.sign(fb) < 0          # root between c and b: b becomes the other end
+        cross = np.sign(fc) * np.sign(fb) < 0  # root between c and b: b becomes the other end
         a_new = np.where(cross, b, a)
-        fa_new = np.where(cross, fb, np.where(use_mid, fa, 0.5 * fa))   # Illinois: halve the kept end
+        fa_new = np.where(cross, fb, np.where(use_mid, fa, 0.5 * fa))  # Illinois: halve the kept end
         a, fa, b, fb = a_new, fa_new, c, fc
         done = (np.abs(b - a) <= _TOLERANCE) | (fc == 0.0)
         out[idx[done]] = np.exp(b[done])

@@ -73,10 +73,18 @@ class CollisionalEquilibrium(IonizationModel):
         n_h = self.composition.hydrogen_number_density(rho)
         n_he = self.composition.helium_number_density(rho)
         n_hii = x_h * n_h
-        return {"n_e": n_hii + (y2 + 2.0 * y3) * n_he, "n_HI": (1.0 - x_h) * n_h, "n_HII": n_hii,
-                "n_HeI": y1 * n_he, "n_HeII": y2 * n_he, "n_HeIII": y3 * n_he}
+        return {
+            "n_e": n_hii + (y2 + 2.0 * y3) * n_he,
+            "n_HI": (1.0 - x_h) * n_h,
+            "n_HII": n_hii,
+            "n_HeI": y1 * n_he,
+            "n_HeII": y2 * n_he,
+            "n_HeIII": y3 * n_he,
+        }
 
     def describe(self) -> str:
         """One-line description for provenance headers: case, rate sources and composition."""
-        return (f"collisional(case {self.case}; ionization Voronov 1997, recombination Hui & Gnedin 1997 + "
-                f"dielectronic Aldrovandi & Pequignot 1973; {self.composition.describe()})")
+        return (
+            f"collisional(case {self.case}; ionization Voronov 1997, recombination Hui & Gnedin 1997 + "
+            f"dielectronic Aldrovandi & Pequignot 1973; {self.composition.describe()})"
+        )

@@ -18,10 +18,23 @@ from ...errors import InputError
 from ...quantities import check_cells
 
 __all__ = [
-    "Composition", "SPECIES", "DEFAULT_HYDROGEN_MASS_FRACTION", "DEFAULT_HELIUM_MASS_FRACTION",
-    "M_H", "M_HE", "K_B", "ERG_PER_EV", "CHI_H", "CHI_HE1", "CHI_HE2",
-    "as_float_array", "check_finite_nonnegative", "check_choice", "broadcast_pair",
-    "ion_term", "particle_density",
+    "Composition",
+    "SPECIES",
+    "DEFAULT_HYDROGEN_MASS_FRACTION",
+    "DEFAULT_HELIUM_MASS_FRACTION",
+    "M_H",
+    "M_HE",
+    "K_B",
+    "ERG_PER_EV",
+    "CHI_H",
+    "CHI_HE1",
+    "CHI_HE2",
+    "as_float_array",
+    "check_finite_nonnegative",
+    "check_choice",
+    "broadcast_pair",
+    "ion_term",
+    "particle_density",
 ]
 
 #: Keys of the species dictionaries every model returns (number densities, cm^-3).
@@ -65,8 +78,10 @@ def as_float_array(value, unit, name, equivalencies=None):
         except u.UnitConversionError:
             raise InputError(f"{name}: cannot convert {value.unit} to {unit}") from None
     if np.iscomplexobj(value):
-        raise InputError(f"{name}: complex values given; a physical quantity is real, and casting would "
-                         "silently drop the imaginary parts; pass the real part")
+        raise InputError(
+            f"{name}: complex values given; a physical quantity is real, and casting would "
+            "silently drop the imaginary parts; pass the real part"
+        )
     try:
         return np.asarray(value, dtype=np.float64)
     except (TypeError, ValueError):
@@ -107,8 +122,9 @@ def ion_term(species):
 
 def particle_density(species):
     """All free particles, ``n_H + n_He + n_e`` (cm^-3), which set the gas pressure ``P = n k T``."""
-    return (species["n_HI"] + species["n_HII"] + species["n_HeI"] + species["n_HeII"] + species["n_HeIII"]
-            + species["n_e"])
+    return (
+        species["n_HI"] + species["n_HII"] + species["n_HeI"] + species["n_HeII"] + species["n_HeIII"] + species["n_e"]
+    )
 
 
 @dataclass(frozen=True)

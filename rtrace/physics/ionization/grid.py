@@ -64,8 +64,10 @@ class ArrayInputs:
             try:
                 self.fields[key] = np.broadcast_to(value, shape)
             except ValueError:
-                raise InputError(f"fields: {key!r} has shape {np.shape(value)}, which does not broadcast to the "
-                                 f"grid shape {tuple(shape)}") from None
+                raise InputError(
+                    f"fields: {key!r} has shape {np.shape(value)}, which does not broadcast to the "
+                    f"grid shape {tuple(shape)}"
+                ) from None
         self.shape = tuple(int(n) for n in shape)
         self.cell_size = np.asarray(cell_size, float)
         self.origin = np.asarray(origin, float)

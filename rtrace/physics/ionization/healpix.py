@@ -194,11 +194,11 @@ def vec2pix_nest(nside, x, y, z):
         fp = jp // n
         fm = jm // n
         if fp == fm:
-            face = fp | 4          # equatorial face (fp == 4 wraps to face 4)
+            face = fp | 4  # equatorial face (fp == 4 wraps to face 4)
         elif fp < fm:
-            face = fp              # north polar face
+            face = fp  # north polar face
         else:
-            face = fm + 8          # south polar face
+            face = fm + 8  # south polar face
         ix = jm & (n - 1)
         iy = n - (jp & (n - 1)) - 1
         return xyf2nest(n, ix, iy, face)

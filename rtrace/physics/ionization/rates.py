@@ -27,9 +27,15 @@ import numpy as np
 from .composition import ERG_PER_EV, K_B
 
 __all__ = [
-    "ln_ionization_h", "ln_ionization_he1", "ln_ionization_he2",
-    "ln_recombination_h", "ln_recombination_he2", "ln_recombination_he3", "ln_dielectronic_he2",
-    "recombination_case_b_h", "CASES",
+    "ln_ionization_h",
+    "ln_ionization_he1",
+    "ln_ionization_he2",
+    "ln_recombination_h",
+    "ln_recombination_he2",
+    "ln_recombination_he3",
+    "ln_dielectronic_he2",
+    "recombination_case_b_h",
+    "CASES",
 ]
 
 #: Recombination cases: "A" (optically thin to recombination photons: hot, diffuse
@@ -42,7 +48,7 @@ _VORONOV = {
     "He1": (24.6, 0.0, 1.75e-8, 0.180, 0.35),
     "He2": (54.4, 1.0, 2.05e-9, 0.265, 0.25),
 }
-_EV_OVER_K = ERG_PER_EV / K_B   # K per eV
+_EV_OVER_K = ERG_PER_EV / K_B  # K per eV
 
 # Hui & Gnedin (1997), appendix A: threshold temperatures T_i = chi_i / k [K] (from memory)
 # and the fits' lambda = 2 T_i / T.

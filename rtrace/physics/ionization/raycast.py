@@ -39,8 +39,7 @@ import numpy as np
 
 from .healpix import pix2vec_nest
 
-__all__ = ["cast_source", "limit_pyramid", "add_paid_share", "sum_threads", "box_cost", "MAX_LEVEL", "PAY",
-           "MEASURE"]
+__all__ = ["cast_source", "limit_pyramid", "add_paid_share", "sum_threads", "box_cost", "MAX_LEVEL", "PAY", "MEASURE"]
 
 #: Finest HEALPix level of the ray tree: 12 * 4^10 = 12.6 million rays, spaced
 #: 1e-3 rad apart (0.5 cell at 500 cells from the source).
@@ -93,8 +92,29 @@ def _next_boundary(s, d, origin, cell, i):
 
 
 @numba.njit(cache=True)
-def _march(demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r, photons,
-           domega, level, max_level, split_area, r_stop, mode):
+def _march(
+    demand,
+    paid,
+    cost,
+    use_cost,
+    scale,
+    acc,
+    tid,
+    lo,
+    origin,
+    cell,
+    hi_corner,
+    S,
+    d,
+    r,
+    photons,
+    domega,
+    level,
+    max_level,
+    split_area,
+    r_stop,
+    mode,
+):
     """Follow one ray from radius ``r``; returns ``(status, r_end, photons_left, absorbed)``.
 
     Status: 0 its photons ran out at ``r_end`` (``PAY``); 1 it left (or never
@@ -126,7 +146,7 @@ def _march(demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_c
     tx, dtx, sx = _next_boundary(S[0], d[0], origin[0], cell[0], i)
     ty, dty, sy = _next_boundary(S[1], d[1], origin[1], cell[1], j)
     tz, dtz, sz = _next_boundary(S[2], d[2], origin[2], cell[2], k)
-    third = domega / (3.0 * cell[0] * cell[1] * cell[2])      # cone volume in cell volumes, per r^3
+    third = domega / (3.0 * cell[0] * cell[1] * cell[2])  # cone volume in cell volumes, per r^3
     record = acc.shape[1] > 0
     absorbed = 0.0
     while True:
@@ -176,8 +196,28 @@ def _march(demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_c
 
 
 @numba.njit(cache=True, parallel=True)
-def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, root_level, max_level,
-                split_area, inside, order, limits, use_limits, mode, ends, stats):
+def cast_source(
+    demand,
+    paid,
+    cost,
+    use_cost,
+    scale,
+    acc,
+    lo,
+    origin,
+    cell,
+    S,
+    root_level,
+    max_level,
+    split_area,
+    inside,
+    order,
+    limits,
+    use_limits,
+    mode,
+    ends,
+    stats,
+):
     """Cast the ray tree of one source (one pass, see the module notes).
 
     Parameters
@@ -225,7 +265,7 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
     centre = 0.5 * (lo_corner + hi_corner)
     box_radius = 0.5 * np.sqrt(np.sum((hi_corner - lo_corner) ** 2))
     to_centre = centre - S
-    dist_centre = np.sqrt(np.sum(to_centre ** 2))
+    dist_centre = np.sqrt(np.sum(to_centre**2))
     depth = 3 * (max_level - root_level) + 4
     for n in numba.prange(n_roots):
         tid = numba.get_thread_id()
@@ -237,7 +277,7 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
         stack_level[0] = root_level
         stack_pix[0] = root
         stack_r[0] = 0.0
-        stack_photons[0] = 1.0 / (12.0 * 4.0 ** root_level)
+        stack_photons[0] = 1.0 / (12.0 * 4.0**root_level)
         top = 1
         d = np.empty(3)
         while top > 0:
@@ -251,7 +291,7 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
             d[0], d[1], d[2] = pix2vec_nest(nside, pix)
             r_stop = np.inf
             if use_limits:
-                r_stop = np.float64(limits[4 * (nside * nside - 1) + pix])    # 12 (4^l - 1) / 3 + pix
+                r_stop = np.float64(limits[4 * (nside * nside - 1) + pix])  # 12 (4^l - 1) / 3 + pix
             absorbed = 0.0
             r_end = r
             if not inside and r == 0.0:
@@ -263,15 +303,55 @@ def cast_source(demand, paid, cost, use_cost, scale, acc, lo, origin, cell, S, r
                     reach = np.arcsin(min(1.0, box_radius / dist_centre)) + 2.0 * np.sqrt(domega)
                     status = _SPLIT if (sep <= reach and level < max_level) else _MISS
                 elif level < max_level and domega * t_in * t_in > split_area:
-                    status = _SPLIT     # children start at the source too: nothing is absorbed on the way
+                    status = _SPLIT  # children start at the source too: nothing is absorbed on the way
                 else:
                     status, r_end, photons, absorbed = _march(
-                        demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r,
-                        photons, domega, level, max_level, split_area, r_stop, mode)
+                        demand,
+                        paid,
+                        cost,
+                        use_cost,
+                        scale,
+                        acc,
+                        tid,
+                        lo,
+                        origin,
+                        cell,
+                        hi_corner,
+                        S,
+                        d,
+                        r,
+                        photons,
+                        domega,
+                        level,
+                        max_level,
+                        split_area,
+                        r_stop,
+                        mode,
+                    )
             else:
                 status, r_end, photons, absorbed = _march(
-                    demand, paid, cost, use_cost, scale, acc, tid, lo, origin, cell, hi_corner, S, d, r,
-                    photons, domega, level, max_level, split_area, r_stop, mode)
+                    demand,
+                    paid,
+                    cost,
+                    use_cost,
+                    scale,
+                    acc,
+                    tid,
+                    lo,
+                    origin,
+                    cell,
+                    hi_corner,
+                    S,
+                    d,
+                    r,
+                    photons,
+                    domega,
+                    level,
+                    max_level,
+                    split_area,
+                    r_stop,
+                    mode,
+                )
             stats[n, 0] += absorbed
             if status == _SPLIT:
                 for c in range(4):
@@ -308,11 +388,11 @@ def limit_pyramid(finest, max_level):
 
 @numba.njit(cache=True)
 def _fill_pyramid(finest, max_level, out):
-    top = 4 * (4 ** max_level - 1)
-    out[top:top + finest.size] = finest
+    top = 4 * (4**max_level - 1)
+    out[top : top + finest.size] = finest
     for level in range(max_level - 1, -1, -1):
-        start, child = 4 * (4 ** level - 1), 4 * (4 ** (level + 1) - 1)
-        for p in range(12 * 4 ** level):
+        start, child = 4 * (4**level - 1), 4 * (4 ** (level + 1) - 1)
+        for p in range(12 * 4**level):
             c = child + 4 * p
             out[start + p] = max(out[c], out[c + 1], out[c + 2], out[c + 3])
 

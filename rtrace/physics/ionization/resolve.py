@@ -25,8 +25,7 @@ RESERVED_NAMES = MODEL_NAMES + ("sources",)
 DEFAULT_MODEL = "full"
 
 
-def resolve_ionization(spec, composition: Composition | None = None,
-                       helium: str | None = None) -> IonizationModel:
+def resolve_ionization(spec, composition: Composition | None = None, helium: str | None = None) -> IonizationModel:
     """Turn a user-facing ionization specification into a model.
 
     Parameters
@@ -62,8 +61,10 @@ def resolve_ionization(spec, composition: Composition | None = None,
     """
     if isinstance(spec, IonizationModel):
         if composition is not None or helium is not None:
-            raise InputError(f"composition, helium: not used with a model instance ({spec.describe()}), "
-                             "which carries its own; give them to the model's constructor")
+            raise InputError(
+                f"composition, helium: not used with a model instance ({spec.describe()}), "
+                "which carries its own; give them to the model's constructor"
+            )
         return spec
     if isinstance(spec, str):
         name = spec.strip().lower()
@@ -76,14 +77,19 @@ def resolve_ionization(spec, composition: Composition | None = None,
                 raise InputError(f"helium: not used by '{name}', which solves for the helium ionization state")
             return SahaEquilibrium(composition) if name == "saha" else CollisionalEquilibrium(composition)
         if name == "sources":
-            raise InputError("ionization: 'sources' needs the stars' positions and ionizing photon rates; pass "
-                             "rtrace.physics.ionization.IonizingSources(positions=..., rates=...) instead")
+            raise InputError(
+                "ionization: 'sources' needs the stars' positions and ionizing photon rates; pass "
+                "rtrace.physics.ionization.IonizingSources(positions=..., rates=...) instead"
+            )
         close = difflib.get_close_matches(name, RESERVED_NAMES, n=1)
         hint = f"did you mean {close[0]!r}? " if close else ""
-        raise InputError(f"ionization: unknown model {spec!r}; {hint}valid names: {', '.join(MODEL_NAMES)} "
-                         "(or an ionized-fraction array, or a model instance such as IonizingSources)")
-    if isinstance(spec, (np.ndarray, u.Quantity)) or (
-            isinstance(spec, numbers.Real) and not isinstance(spec, bool)):
+        raise InputError(
+            f"ionization: unknown model {spec!r}; {hint}valid names: {', '.join(MODEL_NAMES)} "
+            "(or an ionized-fraction array, or a model instance such as IonizingSources)"
+        )
+    if isinstance(spec, (np.ndarray, u.Quantity)) or (isinstance(spec, numbers.Real) and not isinstance(spec, bool)):
         return SuppliedFraction(spec, composition, helium)
-    raise InputError(f"ionization: expected an IonizationModel, one of {', '.join(MODEL_NAMES)}, "
-                     f"or an ionized-fraction array; got {type(spec).__name__}")
+    raise InputError(
+        f"ionization: expected an IonizationModel, one of {', '.join(MODEL_NAMES)}, "
+        f"or an ionized-fraction array; got {type(spec).__name__}"
+    )

@@ -111,8 +111,7 @@ class SahaEquilibrium(IonizationModel):
     non-equilibrium or photoionization effects.
     """
 
-    def __init__(self, composition: Composition | None = None,
-                 tolerance: float = 1e-12, max_iterations: int = 200):
+    def __init__(self, composition: Composition | None = None, tolerance: float = 1e-12, max_iterations: int = 200):
         super().__init__(composition)
         tolerance = float(tolerance)
         if not np.isfinite(tolerance) or tolerance <= 0.0:
@@ -129,9 +128,11 @@ class SahaEquilibrium(IonizationModel):
         """Natural logs of S_H, S_He1, S_He2 [ln cm^-3] for ``T > 0`` (K)."""
         kT = K_B * T
         ln_lambda = 1.5 * (_LN_DEBROGLIE_COEFF + np.log(T))
-        return (_LN_W_H + ln_lambda - CHI_H / kT,
-                _LN_W_HE1 + ln_lambda - CHI_HE1 / kT,
-                _LN_W_HE2 + ln_lambda - CHI_HE2 / kT)
+        return (
+            _LN_W_H + ln_lambda - CHI_H / kT,
+            _LN_W_HE1 + ln_lambda - CHI_HE1 / kT,
+            _LN_W_HE2 + ln_lambda - CHI_HE2 / kT,
+        )
 
     @staticmethod
     def _log_charge_supply(uu, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2):
@@ -149,8 +150,8 @@ class SahaEquilibrium(IonizationModel):
         w1 = ln_s1 + uu
         w2 = ln_s1 + ln_s2
         ln_den = np.logaddexp(np.logaddexp(w0, w1), w2)
-        ln_q1 = np.logaddexp(w1, _LN2 + w2)          # ln sum k p_k (unnormalised)
-        ln_q2 = np.logaddexp(w1, _LN4 + w2)          # ln sum k^2 p_k (unnormalised)
+        ln_q1 = np.logaddexp(w1, _LN2 + w2)  # ln sum k p_k (unnormalised)
+        ln_q2 = np.logaddexp(w1, _LN4 + w2)  # ln sum k^2 p_k (unnormalised)
         ln_zbar = ln_q1 - ln_den
         ln_he = ln_nhe + ln_zbar
         ln_g = np.logaddexp(ln_h, ln_he)
@@ -165,15 +166,15 @@ class SahaEquilibrium(IonizationModel):
 
     def _solve(self, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2):
         """Solve ``ln g(u) = u`` for every cell; returns ``u = ln n_e``."""
-        ln_ntot = np.logaddexp(ln_nh, _LN2 + ln_nhe)   # ln N, full ionization
+        ln_ntot = np.logaddexp(ln_nh, _LN2 + ln_nhe)  # ln N, full ionization
         hi = ln_ntot.copy()
         lo, _, _, _ = self._log_charge_supply(hi, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2)
         lo = np.minimum(lo, hi)
         uu = hi.copy()
         for _ in range(self.max_iterations):
             ln_g, dlng, _, _ = self._log_charge_supply(uu, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2)
-            resid = ln_g - uu                      # decreasing in u
-            deriv = dlng - 1.0                     # <= -1, never zero
+            resid = ln_g - uu  # decreasing in u
+            deriv = dlng - 1.0  # <= -1, never zero
             # Shrink the bracket with the sign of the residual at the current point.
             pos = resid > 0.0
             lo = np.where(pos, uu, lo)
@@ -189,14 +190,11 @@ class SahaEquilibrium(IonizationModel):
             # before the bracket check, because such a step can round onto a
             # bracket end and would otherwise trigger needless bisection.
             converged = (np.abs(delta) <= tol) | (hi - lo <= tol)
-            uu = np.where(converged, np.clip(newton, lo, hi),
-                          np.where(inside, newton, 0.5 * (lo + hi)))
+            uu = np.where(converged, np.clip(newton, lo, hi), np.where(inside, newton, 0.5 * (lo + hi)))
             if np.all(converged):
                 break
         else:
-            raise RuntimeError(
-                f"SahaEquilibrium: n_e did not converge in {self.max_iterations} iterations"
-            )
+            raise RuntimeError(f"SahaEquilibrium: n_e did not converge in {self.max_iterations} iterations")
         return uu
 
     def _species(self, rho, T, fields):
@@ -218,8 +216,7 @@ class SahaEquilibrium(IonizationModel):
         ln_sh, ln_s1, ln_s2 = self._log_saha_factors(T[active])
         with np.errstate(under="ignore", invalid="ignore"):
             uu = self._solve(ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2)
-            _, _, ln_xh, (w0, w1, w2, ln_den) = self._log_charge_supply(
-                uu, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2)
+            _, _, ln_xh, (w0, w1, w2, ln_den) = self._log_charge_supply(uu, ln_nh, ln_nhe, ln_sh, ln_s1, ln_s2)
             nh_a, nhe_a = n_h[active], n_he[active]
             n_hii = np.exp(ln_nh + ln_xh)
             out["n_e"][active] = np.exp(uu)
@@ -240,13 +237,14 @@ class SahaEquilibrium(IonizationModel):
         self._count_range("lte", np.count_nonzero(ionized & thin), n_e.size)
 
     def _range_message(self, key, affected, total):
-        return (f"saha: {affected} of {total} cells ({100.0 * affected / total:.3g}%) are ionized by the Saha "
-                f"equation at electron densities far below where it holds (under {_MCWHIRTER_MARGIN:g} of the "
-                "McWhirter density 1.6e12 T^1/2 (10.2 eV)^3 cm^-3, 1.7e15 cm^-3 at 1e4 K); LTE overestimates "
-                "their ionization, by orders of magnitude below ~1.5e4 K at interstellar densities. Use "
-                "'collisional' for shocked or hot gas, 'sources' for gas photoionized by stars, or a supplied "
-                "ionization state")
-
+        return (
+            f"saha: {affected} of {total} cells ({100.0 * affected / total:.3g}%) are ionized by the Saha "
+            f"equation at electron densities far below where it holds (under {_MCWHIRTER_MARGIN:g} of the "
+            "McWhirter density 1.6e12 T^1/2 (10.2 eV)^3 cm^-3, 1.7e15 cm^-3 at 1e4 K); LTE overestimates "
+            "their ionization, by orders of magnitude below ~1.5e4 K at interstellar densities. Use "
+            "'collisional' for shocked or hot gas, 'sources' for gas photoionized by stars, or a supplied "
+            "ionization state"
+        )
 
     def describe(self) -> str:
         """One-line description for provenance headers."""

@@ -39,8 +39,14 @@ def hydrogen_helium_species(composition, rho, x_h, x_he, helium):
     n_he = composition.helium_number_density(rho)
     n_hii = x_h * n_h
     he1, he2, he3 = helium_species(n_he, x_he, helium)
-    return {"n_e": n_hii + he2 + 2.0 * he3, "n_HI": n_h - n_hii, "n_HII": n_hii,
-            "n_HeI": he1, "n_HeII": he2, "n_HeIII": he3}
+    return {
+        "n_e": n_hii + he2 + 2.0 * he3,
+        "n_HI": n_h - n_hii,
+        "n_HII": n_hii,
+        "n_HeI": he1,
+        "n_HeII": he2,
+        "n_HeIII": he3,
+    }
 
 
 class FullyIonized(IonizationModel):
@@ -90,8 +96,9 @@ class TemperatureThreshold(FullyIonized):
         Helium state in the ionized cells, as for :class:`FullyIonized`.
     """
 
-    def __init__(self, threshold=DEFAULT_THRESHOLD_TEMPERATURE,
-                 composition: Composition | None = None, helium: str = "single"):
+    def __init__(
+        self, threshold=DEFAULT_THRESHOLD_TEMPERATURE, composition: Composition | None = None, helium: str = "single"
+    ):
         super().__init__(composition, helium)
         arr = as_float_array(threshold, u.K, "threshold", equivalencies=u.temperature())
         if arr.ndim != 0 or not np.isfinite(arr) or arr <= 0.0:
@@ -104,5 +111,4 @@ class TemperatureThreshold(FullyIonized):
 
     def describe(self) -> str:
         """One-line description for provenance headers."""
-        return (f"threshold(T>={self.threshold:g} K, {self.composition.describe()}, "
-                f"He={self.helium})")
+        return f"threshold(T>={self.threshold:g} K, {self.composition.describe()}, He={self.helium})"

@@ -67,13 +67,15 @@ _ROOT_LEVEL = 3
 
 def _as_quantity(value, unit, name, what, shape_text):
     if not isinstance(value, u.Quantity):
-        raise InputError(f"{name}: expected {what} as an astropy Quantity (e.g. {shape_text}), got "
-                         f"{type(value).__name__}")
+        raise InputError(
+            f"{name}: expected {what} as an astropy Quantity (e.g. {shape_text}), got {type(value).__name__}"
+        )
     if not value.unit.is_equivalent(unit):
         raise InputError(f"{name}: expected {what}, got unit '{value.unit}'")
     if np.iscomplexobj(value):
-        raise InputError(f"{name}: complex values given; expected real {what} (casting would silently drop "
-                         "the imaginary parts)")
+        raise InputError(
+            f"{name}: complex values given; expected real {what} (casting would silently drop the imaginary parts)"
+        )
     return np.asarray(value.to_value(unit), np.float64)
 
 
@@ -106,9 +108,11 @@ class Photoionization:
         share = (lambda x: f"{100 * x / total:.3g}%") if total > 0 else (lambda x: "0%")
         return {
             "ionizing_sources": self._sources.describe_sources(),
-            "photon_budget": (f"Q = {total:.4g} s-1: {share(absorbed)} absorbed in the grid, {share(escaped)} left "
-                              f"it, {share(missed)} never reached it; recombinations in the ionized cells "
-                              f"{assigned:.4g} s-1"),
+            "photon_budget": (
+                f"Q = {total:.4g} s-1: {share(absorbed)} absorbed in the grid, {share(escaped)} left "
+                f"it, {share(missed)} never reached it; recombinations in the ionized cells "
+                f"{assigned:.4g} s-1"
+            ),
         }
 
 
@@ -162,8 +166,16 @@ class IonizingSources(IonizationModel):
     #: False: a cell's state depends on the whole grid (the photons reach it through other cells).
     local = False
 
-    def __init__(self, positions, rates, composition: Composition | None = None, ionized_temperature=None,
-                 helium: str = "single", allow_outside: bool = False, rays_per_cell: float = 4.0):
+    def __init__(
+        self,
+        positions,
+        rates,
+        composition: Composition | None = None,
+        ionized_temperature=None,
+        helium: str = "single",
+        allow_outside: bool = False,
+        rays_per_cell: float = 4.0,
+    ):
         super().__init__(composition)
         pos = _as_quantity(positions, u.cm, "positions", "lengths", "[[2, 2, 2]] * u.pc")
         if pos.ndim == 1:
@@ -187,8 +199,9 @@ class IonizingSources(IonizationModel):
         else:
             t = _as_quantity(ionized_temperature, u.K, "ionized_temperature", "a temperature", "1e4 * u.K")
             if t.ndim != 0 or not np.isfinite(t) or t <= 0:
-                raise InputError(f"ionized_temperature: expected one finite temperature > 0 K, got "
-                                 f"{ionized_temperature!r}")
+                raise InputError(
+                    f"ionized_temperature: expected one finite temperature > 0 K, got {ionized_temperature!r}"
+                )
             self.ionized_temperature = float(t)
         self.helium = check_choice(helium, _HELIUM, "helium", "IonizingSources")
         if not isinstance(allow_outside, (bool, np.bool_)):
@@ -196,23 +209,28 @@ class IonizingSources(IonizationModel):
         self.allow_outside = bool(allow_outside)
         rays = float(rays_per_cell) if isinstance(rays_per_cell, numbers.Real) else np.nan
         if not (np.isfinite(rays) and 4 <= rays <= 64):
-            raise InputError(f"rays_per_cell: expected a number from 4 to 64 (fewer rays can miss cells), got "
-                             f"{rays_per_cell!r}")
+            raise InputError(
+                f"rays_per_cell: expected a number from 4 to 64 (fewer rays can miss cells), got {rays_per_cell!r}"
+            )
         self.rays_per_cell = rays
 
     # -- description ----------------------------------------------------------------------------
     def describe_sources(self):
         """Every source as ``(x, y, z) pc Q=<rate> s-1``, separated by semicolons."""
         pc = u.pc.to(u.cm)
-        return "; ".join(f"({x / pc:.4g}, {y / pc:.4g}, {z / pc:.4g}) pc Q={q:.4g} s-1"
-                         for (x, y, z), q in zip(self.positions, self.rates, strict=True))
+        return "; ".join(
+            f"({x / pc:.4g}, {y / pc:.4g}, {z / pc:.4g}) pc Q={q:.4g} s-1"
+            for (x, y, z), q in zip(self.positions, self.rates, strict=True)
+        )
 
     def describe(self) -> str:
         """One-line description for provenance headers: sources, photon budget, temperature and helium."""
         t_ion = "snapshot T" if self.ionized_temperature is None else f"{self.ionized_temperature:g} K"
-        return (f"sources({len(self.rates)} source(s), Q total {self.rates.sum():.4g} s-1; on-the-spot case B "
-                f"alpha_B Hui & Gnedin 1997; photoionized T_e {t_ion}; He={self.helium}; plus collisional "
-                f"equilibrium, case A; {self.composition.describe()})")
+        return (
+            f"sources({len(self.rates)} source(s), Q total {self.rates.sum():.4g} s-1; on-the-spot case B "
+            f"alpha_B Hui & Gnedin 1997; photoionized T_e {t_ion}; He={self.helium}; plus collisional "
+            f"equilibrium, case A; {self.composition.describe()})"
+        )
 
     # -- the grid-wide solve --------------------------------------------------------------------
     def check_geometry(self, shape, cell_size, origin):
@@ -229,7 +247,8 @@ class IonizingSources(IonizationModel):
                 f"[{', '.join(f'{a / pc:.4g}' for a in lo)}] .. [{', '.join(f'{b / pc:.4g}' for b in hi)}) pc "
                 f"(source {first} at ({x:.4g}, {y:.4g}, {z:.4g}) pc); positions are in the grid's frame, "
                 "cell (i, j, k) spanning [origin + i dx, origin + (i+1) dx); pass allow_outside=True to let "
-                "outside sources shine into the grid")
+                "outside sources shine into the grid"
+            )
         return outside
 
     def _photoionized_temperature(self, rho, pressure, fields):
@@ -256,28 +275,36 @@ class IonizingSources(IonizationModel):
             t_floor = 0.0 if self.ionized_temperature is None else self.ionized_temperature
             per_mass_h = comp.hydrogen / M_H
             per_mass_e = per_mass_h + (comp.helium / M_HE if self.helium == "single" else 0.0)
-            out = demand[box_slices(lo, hi)]        # whole planes of a C-ordered cube: a contiguous view
-            fill_demand(np.ascontiguousarray(T, np.float64).reshape(-1), np.ascontiguousarray(rho).reshape(-1),
-                        t_floor, per_mass_h, per_mass_e, case_b_table(), out.reshape(-1))
+            out = demand[box_slices(lo, hi)]  # whole planes of a C-ordered cube: a contiguous view
+            fill_demand(
+                np.ascontiguousarray(T, np.float64).reshape(-1),
+                np.ascontiguousarray(rho).reshape(-1),
+                t_floor,
+                per_mass_h,
+                per_mass_e,
+                case_b_table(),
+                out.reshape(-1),
+            )
             cold.append(np.maximum(T, t_floor) < _COLD_PHOTOIONIZED)
         return np.concatenate(cold, axis=0)
 
     def _levels(self, S, shape, cell, origin):
         """Finest and first HEALPix levels, split area and the distance to the farthest grid corner."""
-        corners = origin + np.array([[a, b, c] for a in (0, 1) for b in (0, 1) for c in (0, 1)]) \
-            * (np.asarray(shape) * cell)
+        corners = origin + np.array([[a, b, c] for a in (0, 1) for b in (0, 1) for c in (0, 1)]) * (
+            np.asarray(shape) * cell
+        )
         far = float(np.max(np.sqrt(np.sum((corners - S) ** 2, axis=1))))
         split_area = float(np.min(cell)) ** 2 / self.rays_per_cell
         level = 0
-        while level < MAX_LEVEL and 4 * np.pi / (12 * 4.0 ** level) * far ** 2 > split_area:
+        while level < MAX_LEVEL and 4 * np.pi / (12 * 4.0**level) * far**2 > split_area:
             level += 1
-        spacing = far * np.sqrt(4 * np.pi / (12 * 4.0 ** level)) / float(np.min(cell))
+        spacing = far * np.sqrt(4 * np.pi / (12 * 4.0**level)) / float(np.min(cell))
         return level, min(_ROOT_LEVEL, level), split_area, far, spacing
 
     def _cast_one(self, S, rate, inside, demand, paid, shape, cell, origin, order_rng):
         """The passes of one source; updates ``paid`` and returns its photon budget (s^-1)."""
         max_level, root_level, split_area, far, spacing = self._levels(S, shape, cell, origin)
-        n_roots = 12 * 4 ** root_level
+        n_roots = 12 * 4**root_level
         order = order_rng.permutation(n_roots).astype(np.int64)
         scale = float(np.prod(cell)) / rate
         no_box = np.zeros((0, 0, 0), np.float32)
@@ -286,9 +313,29 @@ class IonizingSources(IonizationModel):
         zero = np.zeros(3, np.int64)
         margin = 4.0 * float(np.max(cell))
         # pass 1: how far each ray reaches (an estimate: the cell volume stands in for the sampled volume W)
-        ends = np.empty(12 * 4 ** max_level, np.float32)
-        cast_source(demand, paid, no_box, False, scale, no_acc, zero, origin, cell, S, root_level, max_level,
-                    split_area, inside, order, no_limits, False, PAY, ends, np.zeros((n_roots, 4)))
+        ends = np.empty(12 * 4**max_level, np.float32)
+        cast_source(
+            demand,
+            paid,
+            no_box,
+            False,
+            scale,
+            no_acc,
+            zero,
+            origin,
+            cell,
+            S,
+            root_level,
+            max_level,
+            split_area,
+            inside,
+            order,
+            no_limits,
+            False,
+            PAY,
+            ends,
+            np.zeros((n_roots, 4)),
+        )
         limit = np.where(np.isfinite(ends), np.minimum(far, 1.5 * ends + margin), far).astype(np.float32)
         threads = numba.get_num_threads()
         while True:
@@ -300,13 +347,53 @@ class IonizingSources(IonizationModel):
             weight = np.empty(box, np.float32)
             cost = np.empty(box, np.float32)
             limits = limit_pyramid(limit, max_level)
-            cast_source(demand, paid, no_box, False, scale, acc, lo, origin, cell, S, root_level, max_level,
-                        split_area, inside, order, limits, True, MEASURE, ends, np.zeros((n_roots, 4)))
+            cast_source(
+                demand,
+                paid,
+                no_box,
+                False,
+                scale,
+                acc,
+                lo,
+                origin,
+                cell,
+                S,
+                root_level,
+                max_level,
+                split_area,
+                inside,
+                order,
+                limits,
+                True,
+                MEASURE,
+                ends,
+                np.zeros((n_roots, 4)),
+            )
             sum_threads(acc, weight)
             box_cost(demand, paid, weight, lo, cost)
             stats = np.zeros((n_roots, 4))
-            cast_source(demand, paid, cost, True, scale, acc, lo, origin, cell, S, root_level, max_level,
-                        split_area, inside, order, limits, True, PAY, ends, stats)
+            cast_source(
+                demand,
+                paid,
+                cost,
+                True,
+                scale,
+                acc,
+                lo,
+                origin,
+                cell,
+                S,
+                root_level,
+                max_level,
+                split_area,
+                inside,
+                order,
+                limits,
+                True,
+                PAY,
+                ends,
+                stats,
+            )
             short = np.isnan(ends)
             if np.any(short):
                 # Rays that still had photons where their measurement ended: measure them, and their
@@ -317,14 +404,22 @@ class IonizingSources(IonizationModel):
                 limit[near] = far
                 acc = None
                 continue
-            paid_volume = cost          # reused: the cost is no longer needed
+            paid_volume = cost  # reused: the cost is no longer needed
             sum_threads(acc, paid_volume)
             assigned = np.zeros(box[0])
             add_paid_share(paid_volume, weight, lo, demand, paid, assigned)
             break
         absorbed, escaped, missed = (float(v) * rate for v in stats[:, :3].sum(axis=0))
-        return ({"rate": rate, "absorbed": absorbed, "escaped": escaped, "missed": missed,
-                 "assigned": float(assigned.sum()) * float(np.prod(cell))}, spacing)
+        return (
+            {
+                "rate": rate,
+                "absorbed": absorbed,
+                "escaped": escaped,
+                "missed": missed,
+                "assigned": float(assigned.sum()) * float(np.prod(cell)),
+            },
+            spacing,
+        )
 
     def _cast(self, demand, paid, shape, cell, origin, outside):
         """All sources, brightest first; ``paid`` accumulates their shares. Returns the budgets."""
@@ -336,14 +431,25 @@ class IonizingSources(IonizationModel):
             if rate == 0.0:
                 budget[s] = {"rate": 0.0, "absorbed": 0.0, "escaped": 0.0, "missed": 0.0, "assigned": 0.0}
                 continue
-            budget[s], spacing = self._cast_one(self.positions[s], rate, not bool(outside[s]), demand, paid,
-                                                np.asarray(shape, np.int64), cell, origin, order_rng)
+            budget[s], spacing = self._cast_one(
+                self.positions[s],
+                rate,
+                not bool(outside[s]),
+                demand,
+                paid,
+                np.asarray(shape, np.int64),
+                cell,
+                origin,
+                order_rng,
+            )
             if spacing > 1.0001 / np.sqrt(self.rays_per_cell):
                 sparse.append((int(s), spacing))
         if sparse:
             s, spacing = max(sparse, key=lambda item: item[1])
-            warn_user(f"sources: rays are up to {spacing:.3g} cells apart at the far side of the grid from "
-                      f"source {s} (finest ray level {MAX_LEVEL}); fronts there are resolved more coarsely")
+            warn_user(
+                f"sources: rays are up to {spacing:.3g} cells apart at the far side of the grid from "
+                f"source {s} (finest ray level {MAX_LEVEL}); fronts there are resolved more coarsely"
+            )
         return budget
 
     def photoionize(self, grid):
@@ -364,9 +470,11 @@ class IonizingSources(IonizationModel):
         photo = np.sqrt(paid, out=paid)
         n_cold = int(np.count_nonzero(cold & (photo > 0.5)))
         if n_cold and self.ionized_temperature is None:
-            warn_user(f"sources: {n_cold} photoionized cells are colder than {_COLD_PHOTOIONIZED:g} K; "
-                      "photoionized gas is near 1e4 K, so the run probably did not model its heating. Set "
-                      "ionized_temperature (e.g. 1e4 K): alpha_B and the free-free emission depend on it")
+            warn_user(
+                f"sources: {n_cold} photoionized cells are colder than {_COLD_PHOTOIONIZED:g} K; "
+                "photoionized gas is near 1e4 K, so the run probably did not model its heating. Set "
+                "ionized_temperature (e.g. 1e4 K): alpha_B and the free-free emission depend on it"
+            )
         return Photoionization(photo, budget, self)
 
     # -- cells, once the photoionized fraction is known -----------------------------------------
@@ -382,8 +490,15 @@ class IonizingSources(IonizationModel):
         n_he = self.composition.helium_number_density(rho)
         n_hii = x * n_h
         # (with the cells where photons, not collisions, set the ionization: see electron_temperature)
-        return {"n_e": n_hii + (y2 + 2.0 * y3) * n_he, "n_HI": (1.0 - x) * n_h, "n_HII": n_hii,
-                "n_HeI": y1 * n_he, "n_HeII": y2 * n_he, "n_HeIII": y3 * n_he, "photo_dominated": p > x_coll}
+        return {
+            "n_e": n_hii + (y2 + 2.0 * y3) * n_he,
+            "n_HI": (1.0 - x) * n_h,
+            "n_HII": n_hii,
+            "n_HeI": y1 * n_he,
+            "n_HeII": y2 * n_he,
+            "n_HeIII": y3 * n_he,
+            "photo_dominated": p > x_coll,
+        }
 
     def temperature_at_pressure(self, rho, pressure, fields):
         """Collisional-equilibrium gas at ``pressure``; photoionized cells at their ionized phase's temperature.

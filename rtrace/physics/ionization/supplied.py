@@ -30,8 +30,14 @@ def validated_fraction(fraction, name):
         except u.UnitConversionError:
             raise InputError(f"{name}: ionized fraction must be dimensionless, got unit {fraction.unit}") from None
     arr = as_float_array(fraction, u.dimensionless_unscaled, name)
-    check_cells(arr, name, 0.0, upper=1.0, rule="0 <= fraction <= 1",
-                context="; an ionized fraction must be finite and within [0, 1]")
+    check_cells(
+        arr,
+        name,
+        0.0,
+        upper=1.0,
+        rule="0 <= fraction <= 1",
+        context="; an ionized fraction must be finite and within [0, 1]",
+    )
     return arr
 
 
@@ -70,8 +76,14 @@ class SuppliedFraction(IonizationModel):
         bad cells.
     """
 
-    def __init__(self, fraction, composition: Composition | None = None, helium: str | None = None,
-                 helium_ii=None, helium_iii=None):
+    def __init__(
+        self,
+        fraction,
+        composition: Composition | None = None,
+        helium: str | None = None,
+        helium_ii=None,
+        helium_iii=None,
+    ):
         super().__init__(composition)
         self._sources = {}
         self._arrays = {}
@@ -85,8 +97,7 @@ class SuppliedFraction(IonizationModel):
                 if value is not None:
                     self._take(name, value)
         else:
-            rule = check_choice("single" if helium is None else helium, _HELIUM_RULES, "helium",
-                                "SuppliedFraction")
+            rule = check_choice("single" if helium is None else helium, _HELIUM_RULES, "helium", "SuppliedFraction")
             self.helium = "single" if rule == "follow" else rule
 
     def _take(self, name, value):
@@ -124,8 +135,10 @@ class SuppliedFraction(IonizationModel):
             raise InputError(f"fields: {name} field {key!r} not found; available: {sorted(fields)}")
         arr = fields[key] if key.startswith("<") else validated_fraction(fields[key], label)
         if np.ndim(arr) and tuple(np.shape(arr)) != tuple(shape):
-            raise InputError(f"{label}: shape {np.shape(arr)} is not the grid shape {tuple(shape)} "
-                             "(give one value per cell, or a single number for the whole grid)")
+            raise InputError(
+                f"{label}: shape {np.shape(arr)} is not the grid shape {tuple(shape)} "
+                "(give one value per cell, or a single number for the whole grid)"
+            )
         return np.broadcast_to(arr, shape)
 
     def _label(self, name):
@@ -134,8 +147,10 @@ class SuppliedFraction(IonizationModel):
 
     def helium_sum_error(self, n_bad, size, largest):
         """The InputError for He II + He III fractions above 1 in ``n_bad`` of ``size`` cells."""
-        return InputError(f"{self._label('helium_ii')} + {self._label('helium_iii')}: {n_bad} of {size} cells "
-                          f"have He II + He III fractions above 1 (largest {largest:.6g})")
+        return InputError(
+            f"{self._label('helium_ii')} + {self._label('helium_iii')}: {n_bad} of {size} cells "
+            f"have He II + He III fractions above 1 (largest {largest:.6g})"
+        )
 
     def excess_helium(self, he2, he3):
         """``(cells with He II + He III above 1, the largest sum)`` (0 when only one is supplied)."""
@@ -169,15 +184,21 @@ class SuppliedFraction(IonizationModel):
         he3 = self._read(fields, "helium_iii", rho.shape) if "helium_iii" in self._sources else zero
         total = he2 + he3
         n_over, largest = self.excess_helium(he2, he3)
-        if n_over:          # validate_fields checks the whole grid first; this guards direct calls
+        if n_over:  # validate_fields checks the whole grid first; this guards direct calls
             raise self.helium_sum_error(n_over, total.size, largest)
-        scale = np.where(total > 1.0, 1.0 / np.maximum(total, 1.0), 1.0)   # rounding-level excess only
+        scale = np.where(total > 1.0, 1.0 / np.maximum(total, 1.0), 1.0)  # rounding-level excess only
         he2, he3 = he2 * scale, he3 * scale
         n_h = self.composition.hydrogen_number_density(rho)
         n_he = self.composition.helium_number_density(rho)
         n_hii = x * n_h
-        return {"n_e": n_hii + (he2 + 2.0 * he3) * n_he, "n_HI": n_h - n_hii, "n_HII": n_hii,
-                "n_HeI": np.maximum(1.0 - he2 - he3, 0.0) * n_he, "n_HeII": he2 * n_he, "n_HeIII": he3 * n_he}
+        return {
+            "n_e": n_hii + (he2 + 2.0 * he3) * n_he,
+            "n_HI": n_h - n_hii,
+            "n_HII": n_hii,
+            "n_HeI": np.maximum(1.0 - he2 - he3, 0.0) * n_he,
+            "n_HeII": he2 * n_he,
+            "n_HeIII": he3 * n_he,
+        }
 
     def _source_text(self, name):
         key = self._sources[name]

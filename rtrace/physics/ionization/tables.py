@@ -27,8 +27,16 @@ from .rates import (
     ln_recombination_he3,
 )
 
-__all__ = ["collisional_fractions", "case_b_coefficient", "fill_demand", "collisional_table", "case_b_table",
-           "interpolate", "LN_T_MIN", "LN_T_STEP"]
+__all__ = [
+    "collisional_fractions",
+    "case_b_coefficient",
+    "fill_demand",
+    "collisional_table",
+    "case_b_table",
+    "interpolate",
+    "LN_T_MIN",
+    "LN_T_STEP",
+]
 
 LN_T_MIN = np.log(100.0)
 _LN_T_MAX = np.log(1e10)
