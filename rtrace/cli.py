@@ -351,7 +351,7 @@ def cmd_cut(args):
     if isinstance(args.start, tuple) and args.start == args.end:
         # checked before tracing (points given in pixels); sky points are checked after
         raise InputError("--start, --end: the cut has zero length")
-    _output_file(args.csv, "--csv")
+    _output_file(args.table, "--table")
     _output_file(args.plot, "--plot", picture=True)
     pixels = {flag: p for flag, p in (("--start", args.start), ("--end", args.end)) if isinstance(p, tuple)}
 
@@ -384,9 +384,9 @@ def cmd_cut(args):
             f"{f:10.5g} {np.nanmax(c.tau[k]):10.4g} {np.nanmin(c.tau[k]):10.4g} "
             f"{np.nanmax(ratio[k]):13.4g} {np.nanmin(ratio[k]):13.4g}"
         )
-    if args.csv:
-        c.write(args.csv)
-        print(f"wrote {args.csv}")
+    if args.table:
+        c.write(args.table)
+        print(f"wrote {args.table}")
     if args.plot:
         c.plot(args.plot)
         print(f"wrote {args.plot}")
@@ -616,7 +616,11 @@ def build_parser():
         "--num", type=_sample_count, default=None, help="number of samples, at least 2 (default: one per pixel)"
     )
     p.add_argument(
-        "--csv", help="write the profiles to this table (ECSV: comma-separated rows with units, e.g. cut.ecsv)"
+        "--table",
+        "--csv",
+        dest="table",
+        help="write the profiles to this table (ECSV: comma-separated rows with units, e.g. cut.ecsv; "
+        "--csv is the former name)",
     )
     p.add_argument("--plot", help="draw full and unabsorbed profiles to this file (PNG, PDF, ...)")
     p.set_defaults(func=cmd_cut)

@@ -89,6 +89,7 @@ def test_inspect_and_sed(tmp_path, capsys):
 def test_cut_writes_profiles_and_figure(tmp_path, capsys):
     job = write(tmp_path, JOB)
     csv, png = tmp_path / "cut.ecsv", tmp_path / "cut.png"
+    # --csv: the former name of --table, still accepted (the fuzz tests use --table)
     assert (
         main(["cut", str(job), "--start", "2, 12", "--end", "21, 12", "--csv", str(csv), "--plot", str(png)]) == EXIT_OK
     )

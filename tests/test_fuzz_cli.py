@@ -368,24 +368,24 @@ CASES = [
     # -- files named by flags: exit 5 (folder) or 3 (a picture type matplotlib cannot draw)
     (
         "cut-csv-no-folder",
-        CUT + ["--start", "1, 1", "--end", "5, 5", "--csv", "nodir/x.csv"],
+        CUT + ["--start", "1, 1", "--end", "5, 5", "--table", "nodir/x.csv"],
         with_job(),
         {EXIT_OUTPUT},
-        ["--csv", "nodir"],
+        ["--table", "nodir"],
     ),
     (
         "cut-csv-is-folder",
-        CUT + ["--start", "1, 1", "--end", "5, 5", "--csv", "adir"],
+        CUT + ["--start", "1, 1", "--end", "5, 5", "--table", "adir"],
         folder_named("adir"),
         {EXIT_OUTPUT},
-        ["--csv", "is a folder"],
+        ["--table", "is a folder"],
     ),
     (
         "cut-csv-under-file",
-        CUT + ["--start", "1, 1", "--end", "5, 5", "--csv", "afile/x.csv"],
+        CUT + ["--start", "1, 1", "--end", "5, 5", "--table", "afile/x.csv"],
         file_named("afile"),
         {EXIT_OUTPUT},
-        ["--csv"],
+        ["--table"],
     ),
     (
         "cut-plot-unknown-type",
