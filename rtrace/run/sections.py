@@ -10,6 +10,7 @@ stay the same for the same job file, or a resumed run would redo finished
 outputs.
 """
 
+import math
 import re
 from dataclasses import dataclass, fields
 from pathlib import Path
@@ -388,7 +389,10 @@ def _frequency_grid(spec):
     if spacing == "log":
         if start <= 0 or stop <= 0:
             raise ConfigError("[frequencies]: frequencies must be positive")
-        return start * np.exp(k * (np.log(stop) - np.log(start)) / (num - 1))
+        # the C library's exp and log, element by element: numpy's vectorised exp can differ in the last bit
+        # between numpy versions, which would change the frequencies and so every output's resume key
+        step = (math.log(stop) - math.log(start)) / (num - 1)
+        return np.array([start * math.exp(i * step) for i in range(num)])
     return start + k * ((stop - start) / (num - 1))
 
 
