@@ -27,6 +27,7 @@ lint: $(STAMP)
 
 # the documentation (docs/_build/html): runs the examples for the gallery first; any warning fails it
 docs: $(STAMP)
+	rm -rf docs/generated
 	$(BIN)/python docs/gallery.py
 	$(BIN)/python -m sphinx -W --keep-going -q -b html docs docs/_build/html
 
