@@ -106,10 +106,18 @@ def test_a_failing_task_makes_trace_raise(client, tmp_path):
         rtrace.trace(snap, view, NU, supersample=1, brick_size=4, client=client)
 
 
-def _kill_worker_on_first_brick(monkeypatch, kills):
-    """Make the first ``kills`` brick tasks close their own worker abruptly (its data is lost with it)."""
+def _kill_other_workers_on_first_brick(monkeypatch, cluster_of):
+    """Make the first brick task close every other worker of the cluster abruptly (their data is lost with them).
+
+    The other workers, not the task's own: dask may run a brick's task beside a copy of its brick fetched from the
+    worker it was scattered to (small data moves to an idle worker), and losing that copy loses nothing, so
+    killing the task's own worker did not always lose data. The other workers hold the other bricks scattered
+    round-robin, so their loss is certain. ``cluster_of()`` gives the running LocalCluster (None before it starts).
+    """
     import threading
     import time
+
+    from distributed.core import Status
 
     from rtrace.transfer import tracer
 
@@ -117,18 +125,21 @@ def _kill_worker_on_first_brick(monkeypatch, kills):
     lock, done = threading.Lock(), []
 
     def trace_brick(self, lo, hi, arrays, origin, **kwargs):
+        cluster = cluster_of()
+        me = distributed.get_worker()
         with lock:
-            kill = len(done) < kills
+            # only a task of this cluster: a task of an earlier test's cluster can still be running in its
+            # thread (cancelling a future does not stop a running task) and would otherwise take the kill
+            kill = not done and cluster is not None and any(w is me for w in cluster.workers.values())
             if kill:
                 done.append(lo)
         if kill:
-            from distributed.core import Status
-
-            worker = distributed.get_worker()
-            worker.loop.add_callback(worker.close, nanny=False, executor_wait=False)
-            deadline = time.monotonic() + 30.0  # the worker goes while this task is running (a fixed
-            while worker.status != Status.closed and time.monotonic() < deadline:  # sleep lost the
-                time.sleep(0.05)  # race on a loaded machine: the result came back first)
+            others = [w for w in cluster.workers.values() if w is not me]
+            for worker in others:
+                worker.loop.add_callback(worker.close, nanny=False, executor_wait=False)
+            deadline = time.monotonic() + 30.0  # they go while this task is running
+            while any(w.status != Status.closed for w in others) and time.monotonic() < deadline:
+                time.sleep(0.05)
         return real(self, lo, hi, arrays, origin, **kwargs)
 
     monkeypatch.setattr(tracer._ObliqueRoute, "trace_brick", trace_brick)
@@ -141,11 +152,13 @@ def test_a_lost_worker_with_in_memory_bricks_is_traced_again(h5file, monkeypatch
     snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
     single = rtrace.trace(snap, view, NU, supersample=1, brick_size=6)
-    killed = _kill_worker_on_first_brick(monkeypatch, 1)
+    running = []
+    killed = _kill_other_workers_on_first_brick(monkeypatch, lambda: running[0] if running else None)
     with (
         distributed.LocalCluster(n_workers=3, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster,
         distributed.Client(cluster) as c,
     ):
+        running.append(cluster)
         with pytest.warns(UserWarning, match=r"client: the dask cluster lost data .* \(attempt 2 of 3\)"):
             res = rtrace.trace(snap, view, NU, supersample=1, brick_size=6, client=c)
     assert len(killed) == 1
@@ -159,11 +172,13 @@ def test_workers_lost_in_every_attempt_give_a_clear_error(h5file, monkeypatch):
     monkeypatch.setattr(parallel, "ATTEMPTS", 1)
     snap = rtrace.io.read_hdf5(h5file, temperature="T", electron_density="ne")
     view = rtrace.View(los=(0.3, -0.5, 0.8), npix=10, distance=1 * u.kpc)
-    _kill_worker_on_first_brick(monkeypatch, 1)
+    running = []
+    _kill_other_workers_on_first_brick(monkeypatch, lambda: running[0] if running else None)
     with (
         distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster,
         distributed.Client(cluster) as c,
     ):
+        running.append(cluster)
         with pytest.raises(
             ConfigError,
             match=r"client: in each of 1 attempt the dask cluster lost a worker "
